@@ -1,0 +1,79 @@
+"""``sourcelab analyze RECORDING --out DIR``."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from ..cautions import SHORT
+from ..errors import InputError
+
+
+def add_common_options(p) -> None:
+    """Options shared by analyze, demo and batch."""
+    p.add_argument("--config", metavar="TOML", help="analysis configuration file")
+    p.add_argument("--method", choices=("sLORETA", "eLORETA", "dSPM"), help="inverse method")
+    p.add_argument("--orientation", choices=("fixed", "free"), help="source orientation")
+    p.add_argument("--snr", type=float, help="amplitude SNR; lambda2 = 1/SNR^2 (default 3)")
+    p.add_argument("--no-figures", action="store_true", help="tables and provenance only")
+    p.add_argument("--no-report", action="store_true", help="skip the HTML report")
+
+
+def config_from_args(args):
+    from ..config import load_config
+
+    return load_config(args.config, method=args.method, orientation=args.orientation,
+                       snr=args.snr)
+
+
+def add_parser(sub) -> None:
+    p = sub.add_parser("analyze", help="analyse one recording",
+                       description="Analyse one 19-channel 10-20 recording: source band power, "
+                                   "ROI tables, z-scores (with --norms), figures and report.")
+    p.add_argument("recording", help="EDF/BDF/BrainVision/EEGLAB/FIF file or BIDS EEG path")
+    p.add_argument("--out", required=True, help="output folder (replaced atomically)")
+    p.add_argument("--age", type=float, help="age in years (needed with --norms)")
+    p.add_argument("--norms", help="norms TSV (sourcelab norms format)")
+    p.add_argument("--condition", help='recording condition, e.g. "eyes closed"')
+    p.add_argument("--select", action="append", metavar="ANNOTATION",
+                   help="analyse only segments with this annotation (repeatable)")
+    p.add_argument("--allow-extrapolation", action="store_true",
+                   help="z-score outside the norms' age range (flagged on every row)")
+    p.add_argument("--allow-condition-mismatch", action="store_true",
+                   help="z-score against norms of another condition (flagged)")
+    add_common_options(p)
+    p.set_defaults(func=run)
+
+
+def run(args) -> int:
+    from ..outputs import write_analysis
+    from ..pipeline import analyze
+
+    path = Path(args.recording)
+    if not path.exists():
+        raise InputError("file not found", path=path)
+    config = config_from_args(args)
+    result = analyze(path, config=config, age=args.age, norms=args.norms,
+                     condition=args.condition, select=args.select,
+                     allow_extrapolation=args.allow_extrapolation,
+                     allow_condition_mismatch=args.allow_condition_mismatch)
+    out = write_analysis(result, args.out, figures=not args.no_figures,
+                         report=not args.no_report, command=["sourcelab", *sys.argv[1:]])
+    print_summary(result, out)
+    return 0
+
+
+def print_summary(result, out) -> None:
+    q = result.quality
+    print(f"sourcelab: analysed {result.recording.get('path') or 'recording'}: "
+          f"{q.get('kept_s', 0):.0f} s clean data in {q.get('n_epochs', 0)} epochs")
+    t = result.roi_table
+    if t["z"].notna().any():
+        n = int(t["z"].notna().sum())
+        big = int((t["z"].abs() > 1.96).sum())
+        print(f"sourcelab: {n} ROI z-scores; {big} with |z| > 1.96 "
+              f"({0.05 * n:.0f} expected by chance alone)")
+    for w in result.recording.get("warnings", []):
+        print(f"sourcelab: warning: {w}")
+    print(f"sourcelab: wrote {out}")
+    print(SHORT)

@@ -1,0 +1,45 @@
+"""``sourcelab atlas list|show NAME|plot NAME --out PNG``."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from ..errors import InputError
+
+
+def add_parser(sub) -> None:
+    p = sub.add_parser("atlas", help="list, show or plot the shipped atlases")
+    asub = p.add_subparsers(dest="atlas_cmd", metavar="ACTION", required=True)
+    asub.add_parser("list", help="available atlases and their ROI counts").set_defaults(func=run)
+    s = asub.add_parser("show", help="ROIs of one atlas with sizes and centroids")
+    s.add_argument("name")
+    s.set_defaults(func=run)
+    pl = asub.add_parser("plot", help="render an atlas on the inflated surface")
+    pl.add_argument("name")
+    pl.add_argument("--out", required=True, help="PNG file")
+    pl.set_defaults(func=run)
+
+
+def run(args) -> int:
+    from ..rois import atlas_summary, available_atlases, load_atlas
+
+    if args.atlas_cmd == "list":
+        for name in available_atlases():
+            at = load_atlas(name)
+            n_small = sum(r.small for r in at.rois)
+            print(f"{name:<12} {len(at.rois):>4} ROIs ({n_small} small)  {at.description}")
+        return 0
+    if args.atlas_cmd == "show":
+        print(atlas_summary(args.name).to_string(index=False))
+        return 0
+    from ..rois import plot_atlas
+
+    out = Path(args.out)
+    if out.suffix.lower() != ".png":
+        raise InputError("--out must end in .png", path=out)
+    tmp = out.with_name(f".{out.name}.tmp.png")
+    fig = plot_atlas(args.name, output_file=None)
+    fig.savefig(tmp, dpi=100)
+    tmp.replace(out)
+    print(f"sourcelab: wrote {out}")
+    return 0

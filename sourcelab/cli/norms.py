@@ -1,0 +1,35 @@
+"""``sourcelab norms build COHORT --participants TSV --out NORMS.tsv`` and ``norms check``."""
+
+from __future__ import annotations
+
+
+def add_parser(sub) -> None:
+    from .analyze import add_common_options
+
+    p = sub.add_parser("norms", help="build norms from reference recordings, or check a file")
+    nsub = p.add_subparsers(dest="norms_cmd", metavar="ACTION", required=True)
+    b = nsub.add_parser("build", help="build norms from a folder of reference recordings")
+    b.add_argument("cohort", help="folder of recordings or a BIDS dataset")
+    b.add_argument("--participants", required=True, help="participants.tsv (BIDS convention)")
+    b.add_argument("--out", required=True, help="norms TSV to write")
+    b.add_argument("--model", choices=("regression", "binned"), default="regression",
+                   help="age model (default: %(default)s)")
+    add_common_options(b)
+    b.set_defaults(func=run)
+    c = nsub.add_parser("check", help="validate a norms file and print a summary")
+    c.add_argument("norms")
+    c.set_defaults(func=run)
+
+
+def run(args) -> int:
+    from ..norms import build_norms_from_cohort, check_norms
+
+    if args.norms_cmd == "check":
+        print(check_norms(args.norms))
+        return 0
+    from .analyze import config_from_args
+
+    out = build_norms_from_cohort(args.cohort, args.participants, config=config_from_args(args),
+                                  out=args.out, model=args.model)
+    print(f"sourcelab: wrote {out}")
+    return 0

@@ -1,0 +1,70 @@
+"""Dispatch table of inverse methods on the template head model.
+
+* ``sLORETA`` (fixed or free orientation): sourcelab's own kernel (:mod:`.sloreta`).
+* ``eLORETA`` and ``dSPM``: MNE-Python's implementations, turned into a kernel by applying MNE's
+  inverse operator to an identity "evoked" (one column per electrode), which is exact because both
+  are linear in the data.  Source power is then ``Σ_rows diag(K C Kᵀ)`` as for sLORETA.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import InputError
+from ..headmodel.model import HeadModel
+from .sloreta import SourceOperator, sloreta_kernel
+
+
+def _sloreta(model: HeadModel, orientation: str, lambda2: float) -> SourceOperator:
+    if orientation == "fixed":
+        return sloreta_kernel(model.gain, lambda2=lambda2, orientation="fixed",
+                              normals=model.src_nn)
+    return sloreta_kernel(model.gain, lambda2=lambda2, orientation="free")
+
+
+def _mne_kernel(model: HeadModel, orientation: str, lambda2: float, method: str) -> SourceOperator:
+    import mne
+
+    from ..headmodel import make_info, to_mne_forward
+
+    info = make_info(256.0)
+    fwd = to_mne_forward(model, info)
+    noise_cov = mne.Covariance(np.eye(len(model.ch_names)) * 1e-12, info["ch_names"],
+                               info["bads"], info["projs"], nfree=1_000_000, verbose="error")
+    fixed = orientation == "fixed"
+    inv = mne.minimum_norm.make_inverse_operator(info, fwd, noise_cov, loose=0.0 if fixed else 1.0,
+                                                 depth=None, fixed=fixed, verbose="error")
+    evoked = mne.EvokedArray(np.eye(len(model.ch_names)) * 1e-6, info, tmin=0.0,
+                             verbose="error")  # one µV per electrode: the kernel per µV
+    evoked.set_eeg_reference("average", projection=True, verbose="error")
+    stc = mne.minimum_norm.apply_inverse(evoked, inv, lambda2=lambda2, method=method,
+                                         pick_ori=None if fixed else "vector", verbose="error")
+    k = stc.data.reshape(-1, len(model.ch_names))
+    return SourceOperator(kernel=k, orientation=orientation, lambda2=lambda2,
+                          n_src=model.n_src, method=method)
+
+
+METHODS = {
+    "sLORETA": _sloreta,
+    "eLORETA": lambda m, o, l2: _mne_kernel(m, o, l2, "eLORETA"),
+    "dSPM": lambda m, o, l2: _mne_kernel(m, o, l2, "dSPM"),
+}
+
+
+def make_operator(model: HeadModel, *, method: str = "sLORETA", orientation: str = "fixed",
+                  lambda2: float = 1 / 9) -> SourceOperator:
+    """Build the source operator for ``method`` on ``model``.
+
+    Parameters
+    ----------
+    model : HeadModel
+    method : {"sLORETA", "eLORETA", "dSPM"}
+    orientation : {"fixed", "free"}
+    lambda2 : float
+        λ² = 1/SNR².
+    """
+    if method not in METHODS:
+        raise InputError(f"method: {method!r} is not one of {sorted(METHODS)}")
+    if orientation not in ("fixed", "free"):
+        raise InputError(f"orientation: {orientation!r} is not one of fixed, free")
+    return METHODS[method](model, orientation, float(lambda2))

@@ -1,0 +1,92 @@
+"""Write an analysis to a folder: tidy tables, provenance, figures, report — atomically."""
+
+from __future__ import annotations
+
+import json
+import logging
+import platform
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .cautions import CAUTIONS
+from .provenance import atomic_output_dir
+from .result import AnalysisResult
+
+log = logging.getLogger("sourcelab")
+
+
+def software_versions() -> dict:
+    import importlib.metadata as md
+
+    out = {"sourcelab": __version__, "python": platform.python_version()}
+    for name in ("mne", "numpy", "scipy", "nilearn", "nibabel", "matplotlib", "pandas"):
+        try:
+            out[name] = md.version(name)
+        except md.PackageNotFoundError:
+            out[name] = None
+    return out
+
+
+def provenance(result: AnalysisResult, *, command: list[str] | None = None) -> dict:
+    """The provenance record written as ``provenance.json``."""
+    return {
+        "sourcelab_provenance": 1,
+        "command": command if command is not None else sys.argv,
+        "inputs": {"recording": {"path": result.recording.get("path"),
+                                 "sha256": result.recording.get("sha256")},
+                   "norms": result.norms},
+        "recording": result.recording,
+        "parameters": result.config.to_dict(),
+        "fingerprint": result.fingerprint.to_dict(),
+        "quality": result.quality,
+        "versions": software_versions(),
+        "cautions": list(CAUTIONS),
+    }
+
+
+def _json_default(o):
+    if isinstance(o, (np.floating, np.integer)):
+        return o.item()
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, Path):
+        return str(o)
+    raise TypeError(f"not JSON serialisable: {type(o)}")
+
+
+def write_tables(result: AnalysisResult, folder: Path, *, command=None) -> None:
+    """``roi_table.tsv``, ``sensor_table.tsv`` and ``provenance.json`` into ``folder``."""
+    result.roi_table.to_csv(folder / "roi_table.tsv", sep="\t", index=False, na_rep="",
+                            float_format="%.6g")
+    result.sensor_table.to_csv(folder / "sensor_table.tsv", sep="\t", index=False, na_rep="",
+                               float_format="%.6g")
+    with open(folder / "provenance.json", "w", encoding="utf-8") as f:
+        json.dump(provenance(result, command=command), f, indent=2, default=_json_default,
+)
+
+
+def write_analysis(result: AnalysisResult, out: str | Path, *, figures: bool = True,
+                   report: bool = True, command=None) -> Path:
+    """Write everything for one analysis into ``out`` (replaced atomically)."""
+    out = Path(out)
+    with atomic_output_dir(out) as tmp:
+        write_analysis_into(result, tmp, figures=figures, report=report, command=command)
+    return out
+
+
+def write_analysis_into(result: AnalysisResult, folder: Path, *, figures: bool = True,
+                        report: bool = True, command=None) -> None:
+    """Write the analysis into an existing (temporary) folder."""
+    write_tables(result, folder, command=command)
+    figs = {}
+    if figures:
+        from .figures import write_figure_set
+
+        figs = write_figure_set(result, folder / "figures")
+    if report:
+        from .report import write_report
+
+        write_report(result, folder / "report.html", figures=figs)
