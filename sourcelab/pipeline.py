@@ -174,9 +174,7 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
                     allow_condition_mismatch=allow_condition_mismatch)
         roi_table = apply_norms(roi_table, nm, kind="roi", **opts)
         sensor_table = apply_norms(sensor_table, nm, kind="sensor", **opts)
-        norms_summary = {"path": str(getattr(nm, "path", "")), "sha256": getattr(nm, "sha256", ""),
-                         "condition": getattr(nm, "condition", None),
-                         "fingerprint": nm.fingerprint.to_dict()}
+        norms_summary = nm.summary()
     recording_info = {
         "path": str(rec.path) if rec.path else None, "sha256": rec.sha256,
         "sfreq": float(rec.sfreq), "duration_s": float(rec.duration_s),

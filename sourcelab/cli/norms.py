@@ -29,7 +29,10 @@ def run(args) -> int:
         return 0
     from .analyze import config_from_args
 
-    out = build_norms_from_cohort(args.cohort, args.participants, config=config_from_args(args),
-                                  out=args.out, model=args.model)
-    print(f"sourcelab: wrote {out}")
+    built = build_norms_from_cohort(args.cohort, args.participants,
+                                    config=config_from_args(args), out=args.out, model=args.model)
+    for pid, message in built.failures:
+        print(f"sourcelab: skipped {pid}: {message}")
+    print(f"sourcelab: wrote {args.out} ({built.norms.cohort.get('n', '?')} participants); "
+          f"calibration report {built.report_path}")
     return 0

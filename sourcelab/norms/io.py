@@ -1,0 +1,379 @@
+"""The sourcelab norms file: a documented TSV with a commented header (see FORMAT.md).
+
+One row per (kind, atlas, name, hemisphere, band, measure, age range) gives a model of the
+*transformed* value (``log10`` for absolute power, ``logit`` for relative power) as a polynomial in
+``log10(age in years)`` with a constant residual standard deviation.  Age-binned norms are the
+degree-0 case (``b0`` is the bin mean); age-regression norms have degree 1-3.
+
+Example::
+
+    # sourcelab-norms 1
+    # fingerprint: {"bands": [["delta", 1.0, 4.0], ...], "headmodel_sha256": "...", ...}
+    # condition: eyes closed
+    # cohort: {"n": 100, "age_min": 18.2, "age_max": 79.5, ...}
+    # note: simulated demo norms, not from real people
+    kind  atlas     name  hemisphere  band   measure   age_min  age_max  model       degree ...
+    roi   brodmann  BA17  left        alpha  absolute  6.0      80.0     regression  2      ...
+
+References
+----------
+Gasser T, Bächer P, Möcks J (1982).  Electroencephalogr Clin Neurophysiol 53:119-124 (from memory).
+John ER, Ahn H, Prichep L, et al. (1980).  Science 210:1255-1258 (from memory).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+from ..provenance import Fingerprint, atomic_write_text, sha256_file
+from .transforms import TRANSFORM_FOR_MEASURE, TRANSFORMS
+
+FORMAT_NAME = "sourcelab-norms"
+FORMAT_VERSION = 1
+#: Highest polynomial degree a row may use (coefficients b0..b3).
+MAX_DEGREE = 3
+#: Placeholder for "does not apply" (BIDS convention), used for atlas/hemisphere of sensor rows.
+NA = "n/a"
+
+KINDS = ("roi", "sensor")
+MODELS = ("binned", "regression")
+#: Columns identifying a row's quantity (without the age range).
+QUANTITY_COLUMNS = ("kind", "atlas", "name", "hemisphere", "band", "measure")
+KEY_COLUMNS = QUANTITY_COLUMNS + ("age_min", "age_max")
+COEF_COLUMNS = tuple(f"b{k}" for k in range(MAX_DEGREE + 1))
+#: All columns of a norms table, in file order.
+COLUMNS = KEY_COLUMNS + ("model", "degree", "transform") + COEF_COLUMNS + ("sd", "n")
+_STR_COLUMNS = QUANTITY_COLUMNS + ("model", "transform")
+_FLOAT_COLUMNS = ("age_min", "age_max") + COEF_COLUMNS + ("sd",)
+_INT_COLUMNS = ("degree", "n")
+_HEADER_KEYS = ("fingerprint", "condition", "cohort", "note")
+_HEADER_RE = re.compile(r"^# ([a-z]+): (.*)$")
+
+
+def normalise_condition(condition: str) -> str:
+    """Canonical form for comparing conditions (``"Eyes-closed"`` -> ``"eyes closed"``)."""
+    return " ".join(re.sub(r"[-_]+", " ", str(condition)).lower().split())
+
+
+@dataclass(frozen=True, eq=False)
+class Norms:
+    """A validated norms table with its pipeline fingerprint and recording condition.
+
+    Attributes
+    ----------
+    table : DataFrame
+        One row per quantity and age range; columns :data:`COLUMNS` (see FORMAT.md).
+    fingerprint : Fingerprint
+        The pipeline that produced the reference values; analyses must match it.
+    condition : str
+        Recording condition of the reference cohort, e.g. ``"eyes closed"``.
+    cohort : dict
+        Summary of the reference cohort (n, ages, sex counts, source); JSON-serialisable.
+    notes : tuple of str
+        Free-text provenance lines (``# note:`` in the file).
+    path : Path | None
+        File the norms were read from or written to.
+    sha256 : str | None
+        Hex sha256 of that file's bytes.
+    """
+
+    table: pd.DataFrame
+    fingerprint: Fingerprint
+    condition: str
+    cohort: dict = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
+    path: Path | None = None
+    sha256: str | None = None
+
+    def __post_init__(self):
+        where = self.path if self.path is not None else "norms"
+        if not isinstance(self.fingerprint, Fingerprint):
+            raise InputError("norms fingerprint must be a sourcelab Fingerprint", path=where)
+        if not isinstance(self.condition, str) or not self.condition.strip() \
+                or "\n" in self.condition:
+            raise InputError("norms condition must be a non-empty single line", path=where)
+        for note in self.notes:
+            if "\n" in note:
+                raise InputError("norms notes must be single lines", path=where)
+        object.__setattr__(self, "table", validate_table(self.table, path=where))
+
+    def summary(self) -> dict:
+        """Short description for result provenance (path, sha256, fingerprint, condition)."""
+        return {"path": None if self.path is None else str(self.path), "sha256": self.sha256,
+                "fingerprint": self.fingerprint.to_dict(), "condition": self.condition,
+                "cohort": dict(self.cohort), "n_rows": int(len(self.table))}
+
+
+def _bad(msg: str, path, line: int | None = None):
+    return InputError(msg if line is None else f"line {line}: {msg}", path=path)
+
+
+def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None = None
+                   ) -> pd.DataFrame:
+    """Check a norms table and return a clean copy with canonical dtypes and column order.
+
+    Parameters
+    ----------
+    table : DataFrame
+        Columns :data:`COLUMNS`.
+    path : str | Path
+        Named in error messages.
+    first_line : int | None
+        File line number of the first data row (for messages), or None for row indices.
+
+    Raises
+    ------
+    InputError
+        Missing/unknown columns, empty table, NaN or non-finite numbers, SD <= 0, bad kind,
+        model, transform or degree, duplicate rows, overlapping age ranges.
+    """
+    if not isinstance(table, pd.DataFrame):
+        raise _bad("norms table must be a pandas DataFrame", path)
+    missing = [c for c in COLUMNS if c not in table.columns]
+    if missing:
+        raise _bad(f"norms table is missing columns {missing}; required: {list(COLUMNS)}", path)
+    extra = [c for c in table.columns if c not in COLUMNS]
+    if extra:
+        raise _bad(f"norms table has unknown columns {extra}; allowed: {list(COLUMNS)}", path)
+    if len(table) == 0:
+        raise _bad("norms table has no rows", path)
+    t = table.loc[:, list(COLUMNS)].reset_index(drop=True).copy()
+
+    def where(i):
+        return (first_line + i) if first_line is not None else None
+
+    def row_name(i):
+        return "" if first_line is not None else f"row {i}: "
+
+    for c in _STR_COLUMNS:
+        vals = t[c].tolist()
+        for i, v in enumerate(vals):
+            if not isinstance(v, str) or not v.strip() or any(ch in v for ch in "\t\r\n"):
+                raise _bad(f"{row_name(i)}column {c!r} must be a non-empty text without tabs, "
+                           f"got {v!r}", path, where(i))
+        t[c] = t[c].astype(object)
+    for c in _FLOAT_COLUMNS + _INT_COLUMNS:
+        try:
+            arr = np.asarray(t[c].to_numpy(), dtype=float)
+        except (TypeError, ValueError):
+            raise _bad(f"column {c!r} must be numeric", path) from None
+        bad = np.flatnonzero(~np.isfinite(arr))
+        if bad.size:
+            i = int(bad[0])
+            raise _bad(f"{row_name(i)}column {c!r} is NaN or not finite ({t[c].iloc[i]!r})",
+                       path, where(i))
+        if c in _INT_COLUMNS:
+            if np.any(arr != np.round(arr)):
+                i = int(np.flatnonzero(arr != np.round(arr))[0])
+                raise _bad(f"{row_name(i)}column {c!r} must be an integer", path, where(i))
+            t[c] = arr.astype(np.int64)
+        else:
+            t[c] = arr
+    checks = [
+        (~t["kind"].isin(KINDS), f"kind must be one of {list(KINDS)}"),
+        (~t["measure"].isin(tuple(TRANSFORM_FOR_MEASURE)),
+         f"measure must be one of {sorted(TRANSFORM_FOR_MEASURE)}"),
+        (~t["transform"].isin(tuple(TRANSFORMS)),
+         f"unknown transform; allowed: {sorted(TRANSFORMS)}"),
+        (~t["model"].isin(MODELS), f"model must be one of {list(MODELS)}"),
+        (~(t["sd"] > 0), "sd must be > 0"),
+        (t["n"] < 2, "n must be >= 2"),
+        (t["age_min"] < 0, "age_min must be >= 0 (years)"),
+        (~(t["age_max"] > t["age_min"]), "age_max must be > age_min"),
+        ((t["degree"] < 0) | (t["degree"] > MAX_DEGREE), f"degree must be 0..{MAX_DEGREE}"),
+        ((t["model"] == "binned") & (t["degree"] != 0), "binned rows must have degree 0"),
+        ((t["model"] == "regression") & ~(t["age_min"] > 0),
+         "regression rows need age_min > 0 (the model uses log10 age)"),
+        ((t["kind"] == "sensor") & ((t["atlas"] != NA) | (t["hemisphere"] != NA)),
+         f"sensor rows must have atlas and hemisphere {NA!r}"),
+    ]
+    deg = t["degree"].to_numpy()
+    for k, c in enumerate(COEF_COLUMNS):
+        checks.append((pd.Series((k > deg) & (t[c].to_numpy() != 0)),
+                       f"coefficient {c} must be 0 for rows of degree < {k}"))
+    for mask, msg in checks:
+        bad = np.flatnonzero(np.asarray(mask))
+        if bad.size:
+            i = int(bad[0])
+            shown = {c: t[c].iloc[i] for c in ("kind", "name", "band", "measure", "transform",
+                                                "sd", "degree", "model")}
+            raise _bad(f"{row_name(i)}{msg} ({_fmt_row(shown)})", path, where(i))
+    dup = t.duplicated(list(KEY_COLUMNS), keep="first")
+    if dup.any():
+        i = int(np.flatnonzero(dup.to_numpy())[0])
+        raise _bad(f"{row_name(i)}duplicate row for "
+                   f"{_fmt_row({c: t[c].iloc[i] for c in KEY_COLUMNS})}", path, where(i))
+    s = t.sort_values(list(QUANTITY_COLUMNS) + ["age_min"], kind="stable")
+    same = np.ones(len(s) - 1, dtype=bool)
+    for c in QUANTITY_COLUMNS:
+        v = s[c].to_numpy()
+        same &= v[1:] == v[:-1]
+    amin, amax = s["age_min"].to_numpy(), s["age_max"].to_numpy()
+    overlap = np.flatnonzero(same & (amin[1:] < amax[:-1]))
+    if overlap.size:
+        j = int(overlap[0])
+        i = int(s.index[j + 1])
+        q = {c: s[c].iloc[j] for c in QUANTITY_COLUMNS}
+        raise _bad(f"{row_name(i)}overlapping age ranges [{amin[j]}, {amax[j]}] and "
+                   f"[{amin[j + 1]}, {amax[j + 1]}] for {_fmt_row(q)}", path, where(i))
+    return t
+
+
+def _fmt_row(d: dict) -> str:
+    return ", ".join(f"{k}={v}" for k, v in d.items())
+
+
+def _fmt_value(v) -> str:
+    if isinstance(v, (float, np.floating)):
+        return repr(float(v))  # shortest string that round-trips exactly
+    if isinstance(v, (int, np.integer)):
+        return str(int(v))
+    return str(v)
+
+
+def format_norms(norms: Norms) -> str:
+    """The text of a norms file (see FORMAT.md)."""
+    lines = [f"# {FORMAT_NAME} {FORMAT_VERSION}",
+             f"# fingerprint: {norms.fingerprint.to_json()}",
+             f"# condition: {norms.condition.strip()}",
+             f"# cohort: {json.dumps(norms.cohort, sort_keys=True)}"]
+    lines += [f"# note: {n}" for n in norms.notes]
+    lines.append("\t".join(COLUMNS))
+    t = norms.table
+    cols = [t[c].tolist() for c in COLUMNS]
+    for row in zip(*cols):
+        lines.append("\t".join(_fmt_value(v) for v in row))
+    return "\n".join(lines) + "\n"
+
+
+def write_norms(norms: Norms, path: str | Path) -> Norms:
+    """Write ``norms`` to ``path`` atomically (temporary file + rename).
+
+    Returns
+    -------
+    Norms
+        The same norms with ``path`` and ``sha256`` of the written file.
+    """
+    path = Path(path)
+    if path.exists() and path.is_dir():
+        raise InputError("norms output path is a folder", path=path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    atomic_write_text(path, format_norms(norms))
+    return replace(norms, path=path, sha256=sha256_file(path))
+
+
+def _parse_header(lines: list[str], path) -> tuple[dict, int]:
+    if not lines or lines[0].rstrip() != f"# {FORMAT_NAME} {FORMAT_VERSION}":
+        got = lines[0].rstrip()[:60] if lines else "<empty file>"
+        if lines and got.startswith(f"# {FORMAT_NAME} "):
+            raise _bad(f"unsupported norms format version ({got!r}); this sourcelab reads "
+                       f"version {FORMAT_VERSION}", path, 1)
+        raise _bad(f"not a sourcelab norms file: first line must be "
+                   f"'# {FORMAT_NAME} {FORMAT_VERSION}', got {got!r}", path, 1)
+    head: dict = {"note": []}
+    i = 1
+    while i < len(lines) and lines[i].startswith("#"):
+        m = _HEADER_RE.match(lines[i])
+        if not m or m.group(1) not in _HEADER_KEYS:
+            raise _bad(f"bad header line {lines[i][:60]!r}; expected '# key: value' with key "
+                       f"one of {list(_HEADER_KEYS)}", path, i + 1)
+        key, value = m.group(1), m.group(2).strip()
+        if key == "note":
+            head["note"].append(value)
+        elif key in head:
+            raise _bad(f"header key {key!r} given twice", path, i + 1)
+        else:
+            head[key] = (value, i + 1)
+        i += 1
+    for key in ("fingerprint", "condition"):
+        if key not in head:
+            raise _bad(f"header has no '# {key}:' line", path)
+    fp_text, fp_line = head["fingerprint"]
+    try:
+        fp = Fingerprint.from_dict(json.loads(fp_text))
+    except (json.JSONDecodeError, AttributeError, InputError) as exc:
+        raise _bad(f"header fingerprint is not a valid pipeline fingerprint ({exc})",
+                   path, fp_line) from None
+    cohort: dict = {}
+    if "cohort" in head:
+        c_text, c_line = head["cohort"]
+        try:
+            cohort = json.loads(c_text)
+        except json.JSONDecodeError as exc:
+            raise _bad(f"header cohort is not JSON ({exc})", path, c_line) from None
+        if not isinstance(cohort, dict):
+            raise _bad("header cohort must be a JSON object", path, c_line)
+    return {"fingerprint": fp, "condition": head["condition"][0], "cohort": cohort,
+            "notes": tuple(head["note"])}, i
+
+
+def read_norms(path: str | Path) -> Norms:
+    """Read and strictly validate a norms file.
+
+    Parameters
+    ----------
+    path : str | Path
+        A ``sourcelab-norms 1`` TSV file (see FORMAT.md).
+
+    Returns
+    -------
+    Norms
+
+    Raises
+    ------
+    InputError
+        One-line message naming the file (and line) for any problem: bad header, missing columns,
+        NaN, SD <= 0, unknown transform, duplicate rows, overlapping age ranges ...
+    """
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise InputError("norms file not found", path=path) from None
+    except (IsADirectoryError, PermissionError) as exc:
+        raise InputError(f"cannot read norms file ({exc.strerror})", path=path) from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputError("norms file is not UTF-8 text", path=path) from None
+    lines = text.splitlines()
+    head, i = _parse_header(lines, path)
+    if i >= len(lines):
+        raise _bad("no column header line after the comments", path)
+    names = lines[i].split("\t")
+    missing = [c for c in COLUMNS if c not in names]
+    if missing:
+        raise _bad(f"missing columns {missing}; required: {list(COLUMNS)}", path, i + 1)
+    extra = [c for c in names if c not in COLUMNS]
+    if extra or len(set(names)) != len(names):
+        raise _bad(f"unknown or repeated columns {extra or names}; allowed: {list(COLUMNS)}",
+                   path, i + 1)
+    rows = []
+    first = i + 2
+    for k, line in enumerate(lines[i + 1:]):
+        if not line.strip():
+            raise _bad("blank line in the table", path, first + k)
+        cells = line.split("\t")
+        if len(cells) != len(names):
+            raise _bad(f"{len(cells)} fields, expected {len(names)}", path, first + k)
+        rows.append(cells)
+    table = pd.DataFrame(rows, columns=names, dtype=object)
+    for c in _FLOAT_COLUMNS + _INT_COLUMNS:
+        vals = []
+        for k, v in enumerate(table[c].tolist()):
+            try:
+                vals.append(float(v) if v not in ("", NA) else math.nan)
+            except ValueError:
+                raise _bad(f"column {c!r} is not a number ({v!r})", path, first + k) from None
+        table[c] = vals
+    table = validate_table(table, path=path, first_line=first)
+    return Norms(table=table, fingerprint=head["fingerprint"], condition=head["condition"],
+                 cohort=head["cohort"], notes=head["notes"], path=path, sha256=sha256_file(path))

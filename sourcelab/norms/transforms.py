@@ -1,0 +1,95 @@
+"""Normalising transforms for band power, as a dispatch table with inverses.
+
+Absolute band power is right-skewed and roughly log-normal across people; relative power is a
+fraction in (0, 1).  Norms are therefore modelled on ``log10(power)`` and ``logit(fraction)``.
+
+References
+----------
+Gasser T, Bächer P, Möcks J (1982).  Transformations towards the normal distribution of broad band
+spectral parameters of the EEG.  Electroencephalogr Clin Neurophysiol 53:119-124 (from memory).
+John ER, Ahn H, Prichep L, et al. (1980).  Developmental equations for the electroencephalogram.
+Science 210:1255-1258 (from memory).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from ..errors import InputError
+
+
+def _log10(x: np.ndarray) -> np.ndarray:
+    x = np.asarray(x, dtype=float)
+    bad = np.isfinite(x) & ~(x > 0)
+    if bad.any():
+        raise InputError(f"log10 transform: values must be > 0 (absolute power); got "
+                         f"{x[bad][:3].tolist()}")
+    return np.log10(x)
+
+
+def _exp10(y: np.ndarray) -> np.ndarray:
+    return np.power(10.0, np.asarray(y, dtype=float))
+
+
+def _logit(x: np.ndarray) -> np.ndarray:
+    x = np.asarray(x, dtype=float)
+    bad = np.isfinite(x) & ~((x > 0) & (x < 1))
+    if bad.any():
+        raise InputError(f"logit transform: values must lie in the open interval (0, 1) "
+                         f"(relative power); got {x[bad][:3].tolist()}")
+    return np.log(x) - np.log1p(-x)
+
+
+def _expit(y: np.ndarray) -> np.ndarray:
+    y = np.asarray(y, dtype=float)
+    return 0.5 * (1.0 + np.tanh(0.5 * y))  # numerically stable logistic
+
+
+@dataclass(frozen=True)
+class Transform:
+    """A normalising transform and its inverse (both elementwise, NaN passes through)."""
+
+    name: str
+    forward: Callable[[np.ndarray], np.ndarray]
+    inverse: Callable[[np.ndarray], np.ndarray]
+    domain: str
+
+
+#: The transforms a norms file may name.
+TRANSFORMS: dict[str, Transform] = {
+    "log10": Transform("log10", _log10, _exp10, "(0, inf)"),
+    "logit": Transform("logit", _logit, _expit, "(0, 1)"),
+}
+
+#: The transform used for each measure when norms are built.
+TRANSFORM_FOR_MEASURE: dict[str, str] = {"absolute": "log10", "relative": "logit"}
+
+
+def get_transform(name: str) -> Transform:
+    """Look a transform up by name; unknown names raise InputError listing the allowed ones."""
+    try:
+        return TRANSFORMS[name]
+    except (KeyError, TypeError):
+        raise InputError(f"transform: {name!r} is not one of {sorted(TRANSFORMS)}") from None
+
+
+def transform_for_measure(measure: str) -> str:
+    """Name of the transform used for ``measure`` (``"absolute"`` or ``"relative"``)."""
+    try:
+        return TRANSFORM_FOR_MEASURE[measure]
+    except (KeyError, TypeError):
+        raise InputError(f"measure: {measure!r} is not one of "
+                         f"{sorted(TRANSFORM_FOR_MEASURE)}") from None
+
+
+def forward(values, name: str) -> np.ndarray:
+    """Apply transform ``name`` to ``values`` (array-like, any shape)."""
+    return get_transform(name).forward(values)
+
+
+def inverse(values, name: str) -> np.ndarray:
+    """Undo transform ``name``."""
+    return get_transform(name).inverse(values)

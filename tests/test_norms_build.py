@@ -1,0 +1,203 @@
+"""Building norms from a reference cohort, leave-one-out calibration, cohort folders, check."""
+
+from __future__ import annotations
+
+import sys
+import types
+
+import matplotlib
+import numpy as np
+import pandas as pd
+import pytest
+
+from sourcelab.config import DEFAULT_BANDS
+from sourcelab.errors import InputError
+from sourcelab.norms import (apply_norms, build_norms_from_cohort, calibration_report,
+                             check_norms, find_recording, fit_norms, normalise_condition,
+                             plot_calibration, read_norms,
+                             write_norms)
+from sourcelab.norms.models import fit_poly
+from sourcelab.norms.simulate import gaussian_cohort
+from sourcelab.provenance import Fingerprint
+
+matplotlib.use("Agg")
+
+FP = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
+                 lambda2=1 / 9, bands=DEFAULT_BANDS)
+N = 100
+
+
+@pytest.fixture(scope="module")
+def cohort():
+    # 100 invented controls x 66 quantities, Gaussian after transform with an age trend
+    return gaussian_cohort(N, rng=np.random.default_rng(7))
+
+
+@pytest.fixture(scope="module")
+def fit(cohort):
+    return fit_norms(cohort.entries, fingerprint=FP, condition="eyes closed")
+
+
+def test_loo_false_positive_rate_matches_normal(fit):
+    # Under a correct Gaussian model P(|Z| > 1.96) = 0.05 and P(|Z| > 2.58) = 0.0099 (scipy.stats
+    # normal); leave-one-out z of 6,600 control values must land within 5 +- 1.5 %.
+    rep = calibration_report(fit)
+    ov = rep.attrs["overall"]
+    assert ov["loo_n"] == N * 66
+    assert 0.035 <= ov["loo_frac_1.96"] <= 0.065
+    assert 0.002 <= ov["loo_frac_2.58"] <= 0.02
+    assert 0.95 <= ov["loo_sd"] <= 1.08
+    # Gaussian by construction: Shapiro-Wilk (Shapiro & Wilk 1965, Biometrika 52:591-611) should
+    # reject in about 5 % of rows, skewness and excess kurtosis near 0
+    assert ov["frac_rows_shapiro_p<0.05"] <= 0.15
+    assert ov["median_abs_skewness"] < 0.3 and abs(ov["median_excess_kurtosis"]) < 0.4
+    assert len(rep) == len(fit.norms.table) and rep["n"].min() >= 95
+
+
+def test_planted_deviations_recovered(cohort, fit):
+    # A new person exactly +3 true SD above the true age mean in every quantity: the estimated
+    # norms (n = 100) must give z near 3.  Per-row precision is about +-0.25 (SD of the
+    # estimated SD ~ 7 % x 3, plus the mean's error), so most, not all, rows fall in [2.5, 3.5].
+    zs = []
+    for age in (12.0, 30.0):
+        roi, sen = cohort.tables_at(age, np.full(len(cohort.keys), 3.0))
+        zs.append(apply_norms(roi, fit.norms, age=age, fingerprint=FP).z)
+        zs.append(apply_norms(sen, fit.norms, age=age, fingerprint=FP, kind="sensor").z)
+    z = np.concatenate(zs)
+    assert abs(np.median(z) - 3.0) < 0.15
+    assert np.mean((z >= 2.5) & (z <= 3.5)) >= 0.9
+    assert z.min() > 2.0 and z.max() < 4.0
+    # and the unplanted person sitting on the true mean is not flagged
+    roi, _ = cohort.tables_at(30.0, np.zeros(len(cohort.keys)))
+    z0 = apply_norms(roi, fit.norms, age=30.0, fingerprint=FP).z
+    assert np.abs(z0).max() < 1.0
+
+
+def test_analytic_loo_equals_refitting():
+    # hat-matrix leave-one-out (Cook & Weisberg 1982, from memory) must equal brute-force refits
+    rng = np.random.default_rng(5)
+    age = 10 ** rng.uniform(0.8, 1.9, 40)
+    y = 0.3 + 0.5 * np.log10(age) + 0.2 * rng.standard_normal(40)
+    f = fit_poly(age, y, 2, robust=False)
+    brute = []
+    for i in range(40):
+        keep = np.arange(40) != i
+        g = fit_poly(age[keep], y[keep], 2, robust=False)
+        x = np.log10(age[i])
+        brute.append((y[i] - g.coef @ [1, x, x * x]) / g.sd)
+    np.testing.assert_allclose(f.loo_z, brute, rtol=1e-9)
+
+
+def test_robust_rule_excludes_gross_outliers(cohort):
+    # three controls with values 8 true SD high in every quantity must be excluded and must not
+    # inflate the SD; a clean cohort loses almost nothing (P(|Z|>3.5) = 0.00047, scipy.stats)
+    k = len(cohort.keys)
+    ents = list(cohort.entries)
+    for i in range(3):
+        pid, age = ents[i][0], ents[i][1]
+        ents[i] = (pid, age, *cohort.tables_at(age, np.full(k, 8.0)))
+    robust = fit_norms(ents, fingerprint=FP, condition="eyes closed", degree=2)
+    naive = fit_norms(ents, fingerprint=FP, condition="eyes closed", degree=2, robust=False)
+    assert robust.excluded[:3].all()
+    assert robust.excluded[3:].mean() < 0.005
+    ratio_r = robust.norms.table["sd"].to_numpy() / cohort.sd
+    ratio_n = naive.norms.table["sd"].to_numpy() / cohort.sd
+    assert 0.9 < np.median(ratio_r) < 1.1 and np.median(ratio_n) > 1.3
+
+
+def test_binned_model_and_degree_selection(cohort, fit):
+    # the truth is quadratic in log age: LOO cross-validation must prefer degree >= 1 to 0
+    sc = fit.degree_scores
+    assert min(sc, key=sc.get) == fit.norms.cohort["degree"] >= 1 and sc[0] > sc[1]
+    b = fit_norms(cohort.entries, fingerprint=FP, condition="eyes closed", model="binned",
+                  bins=(5, 15, 30, 81), min_n_per_bin=15)
+    t = b.norms.table
+    assert set(t.model) == {"binned"} and (t.degree == 0).all()
+    assert len(t) == 3 * 66 and (t.n >= 15).all()
+    # a bin's b0 and sd are the mean and SD of its retained members' transformed values
+    j = 0
+    mem = (b.ages >= 5) & (b.ages < 15)
+    kept = mem & ~b.excluded[:, j]
+    row = t[(t.age_min == 5) & (t.name == b.quantities.name[j]) &
+            (t.band == b.quantities.band[j]) & (t.measure == b.quantities.measure[j]) &
+            (t.hemisphere == b.quantities.hemisphere[j]) & (t.kind == b.quantities.kind[j])]
+    assert row.b0.iloc[0] == pytest.approx(np.mean(b.values[kept, j]), rel=1e-12)
+    assert row.sd.iloc[0] == pytest.approx(np.std(b.values[kept, j], ddof=1), rel=1e-12)
+    with pytest.raises(InputError, match="model"):
+        fit_norms(cohort.entries, fingerprint=FP, condition="x", model="spline")
+
+
+def test_plot_calibration_content(fit):
+    fig = plot_calibration(fit)
+    axes = fig.get_axes()
+    assert len(axes) == 4
+    assert all(ax.has_data() for ax in axes)
+    assert "5.0 %" in axes[0].get_title() and axes[1].get_xlabel()
+
+
+def test_check_norms_summary(fit, tmp_path):
+    p = write_norms(fit.norms, tmp_path / "n.tsv").path
+    s = check_norms(p)
+    assert "valid sourcelab-norms 1" in s and "8 ROIs" in s and "3 channels" in s
+    # the fingerprint declares delta and highbeta, which these norms lack
+    assert "without norms: ['delta', 'highbeta']" in s
+
+
+def _fake_pipeline(cohort, fail_id):
+    by_file = {}
+    for pid, age, roi, sen in cohort.entries:
+        by_file[pid] = (roi, sen)
+
+    def analyze(recording, *, config=None, age=None, norms=None):
+        pid = recording.name.split("_")[0]
+        if pid == fail_id:
+            raise RuntimeError("flat channels: Fz, Cz\nsecond line")
+        roi, sen = by_file[pid]
+        return types.SimpleNamespace(roi_table=roi, sensor_table=sen, fingerprint=FP)
+    return types.SimpleNamespace(analyze=analyze)
+
+
+def test_build_from_cohort_folder(cohort, tmp_path, monkeypatch):
+    root = tmp_path / "cohort"
+    rows = ["participant_id\tage\tsex\tcondition"]
+    for k, (pid, age, _, _) in enumerate(cohort.entries[:40]):
+        (root / pid / "eeg").mkdir(parents=True)
+        (root / pid / "eeg" / f"{pid}_task-rest_eeg.edf").write_bytes(b"")
+        rows.append(f"{pid}\t{age}\t{'FM'[k % 2]}\teyes closed")
+    rows.append("sub-900\tn/a\tF\teyes closed")          # bad age
+    rows.append("../../etc/passwd\t30\tF\teyes closed")  # hostile id: never a path
+    rows.append("sub-901\t30\tM\teyes open")              # other condition: not used
+    (root / "participants.tsv").write_text("\n".join(rows) + "\n")
+    monkeypatch.setitem(sys.modules, "sourcelab.pipeline",
+                        _fake_pipeline(cohort, fail_id="sub-003"))
+    with pytest.raises(InputError, match="conditions"):  # two conditions listed: must choose
+        build_norms_from_cohort(root, root / "participants.tsv", config=None,
+                                out=tmp_path / "out" / "norms.tsv")
+    res = build_norms_from_cohort(root, root / "participants.tsv", config=None,
+                                  out=tmp_path / "out" / "norms.tsv", min_n_per_bin=20,
+                                  condition="Eyes closed")
+    failed = dict(res.failures)
+    assert set(failed) == {"sub-003", "sub-900", "../../etc/passwd"}
+    assert "\n" not in failed["sub-003"] and "no recording" in failed["../../etc/passwd"]
+    nm = read_norms(tmp_path / "out" / "norms.tsv")
+    assert nm.cohort["n"] == 39 and nm.sha256 == res.norms.sha256
+    assert normalise_condition(nm.condition) == "eyes closed"
+    # sub-003 (k = 2, "F") failed: 19 F + 20 M remain
+    assert nm.cohort["sex"] == {"F": 19, "M": 20}
+    rep = pd.read_csv(res.report_path, sep="\t")
+    assert len(rep) == len(nm.table) and "loo_frac_1.96" in rep
+    assert res.figure_path.read_bytes()[:4] == b"\x89PNG"
+
+
+def test_find_recording_flat_folder_and_ambiguity(tmp_path):
+    (tmp_path / "P01.edf").write_bytes(b"")
+    (tmp_path / "P02_rest.vhdr").write_bytes(b"")
+    (tmp_path / "P02_rest.eeg").write_bytes(b"")
+    (tmp_path / "P03.edf").write_bytes(b"")
+    (tmp_path / "P03.bdf").write_bytes(b"")
+    assert find_recording(tmp_path, "P01").name == "P01.edf"
+    assert find_recording(tmp_path, "P02").name == "P02_rest.vhdr"
+    with pytest.raises(InputError, match="several"):
+        find_recording(tmp_path, "P03")
+    with pytest.raises(InputError, match="no recording"):
+        find_recording(tmp_path, "P0")
