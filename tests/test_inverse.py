@@ -47,7 +47,7 @@ def test_mne_free_sloreta_differs(head_model, rng):
     w, u, s, vt, f, scale2 = _svd_whitened(head_model.gain, None, 1 / 9)
     v3 = vt.T.reshape(head_model.n_src, 3, -1)
     trace = np.einsum("sak,k,sak->s", v3, f, v3)
-    k = np.sqrt(scale2) * (vt.T * (s / (s**2 + 1 / 9))) @ u.T @ w
+    k = (vt.T * (s / (s**2 + 1 / 9))) @ u.T @ w
     g = head_model.gain.reshape(19, -1, 3)
     data = np.einsum("cjk,jk->cj", g[:, idx], ori[idx])
     est = (k @ data).reshape(head_model.n_src, 3, -1)
@@ -75,9 +75,10 @@ def test_matches_mne_apply_inverse_cov(head_model, rng):
     # Pascual-Marqui (2002) by sqrt(diag(R)): MNE's power = ours × λ².
     import mne
 
-    from sourcelab.headmodel import make_info, to_mne_forward
+    from sourcelab.headmodel import to_mne_forward
+    from sourcelab.inverse.methods import info_with_average_reference
 
-    info = make_info(256.0)
+    info = info_with_average_reference(256.0)
     fwd = to_mne_forward(head_model, info)
     n = len(head_model.ch_names)
     noise = mne.Covariance(np.eye(n) * 1e-12, info["ch_names"], [], info["projs"], nfree=10**6,

@@ -22,12 +22,24 @@ def _sloreta(model: HeadModel, orientation: str, lambda2: float) -> SourceOperat
     return sloreta_kernel(model.gain, lambda2=lambda2, orientation="free")
 
 
+def info_with_average_reference(sfreq: float = 256.0):
+    """``mne.Info`` of the 19 sites carrying the average-reference projector (MNE needs it for
+    inverse modelling)."""
+    import mne
+
+    from ..headmodel import make_info
+
+    raw = mne.io.RawArray(np.zeros((19, 1)), make_info(sfreq), verbose="error")
+    raw.set_eeg_reference("average", projection=True, verbose="error")
+    return raw.info
+
+
 def _mne_kernel(model: HeadModel, orientation: str, lambda2: float, method: str) -> SourceOperator:
     import mne
 
-    from ..headmodel import make_info, to_mne_forward
+    from ..headmodel import to_mne_forward
 
-    info = make_info(256.0)
+    info = info_with_average_reference()
     fwd = to_mne_forward(model, info)
     noise_cov = mne.Covariance(np.eye(len(model.ch_names)) * 1e-12, info["ch_names"],
                                info["bads"], info["projs"], nfree=1_000_000, verbose="error")
@@ -36,7 +48,6 @@ def _mne_kernel(model: HeadModel, orientation: str, lambda2: float, method: str)
                                                  depth=None, fixed=fixed, verbose="error")
     evoked = mne.EvokedArray(np.eye(len(model.ch_names)) * 1e-6, info, tmin=0.0,
                              verbose="error")  # one µV per electrode: the kernel per µV
-    evoked.set_eeg_reference("average", projection=True, verbose="error")
     stc = mne.minimum_norm.apply_inverse(evoked, inv, lambda2=lambda2, method=method,
                                          pick_ori=None if fixed else "vector", verbose="error")
     k = stc.data.reshape(-1, len(model.ch_names))

@@ -8,8 +8,11 @@ orientation) or 3x3 (free orientation) diagonal block of ``R``.  Noise-free sing
 localised with zero error for both forms; MNE's free-orientation sLORETA replaces the 3x3 block by
 the scalar trace and loses that property, which is why sourcelab computes the kernel itself.
 
-MNE's sLORETA noise normalisation divides by ``sqrt(diag(R) / λ²)``: for fixed orientation MNE's
-power equals sourcelab's times ``λ²``.
+The kernel is that of the trace-normalised gain, so the standardised power is expressed in
+whitened-data units (squared data unit of the white-noise model, e.g. µV²) whatever the
+leadfield's absolute calibration.  MNE's sLORETA noise normalisation divides by
+``sqrt(diag(R) / λ²)`` in the same units: for fixed orientation MNE's power equals sourcelab's
+times ``λ²``.
 
 References
 ----------
@@ -134,8 +137,10 @@ def sloreta_kernel(gain: np.ndarray, *, lambda2: float, orientation: str = "fixe
     if orientation == "free" and gain.shape[1] % 3:
         raise InputError("gain: free orientation needs 3 columns per source")
     w, u, s, vt, f, scale2 = _svd_whitened(gain, noise_cov, lambda2)
-    # K = scale * V diag(s/(s²+λ²)) Uᵀ W   (minimum-norm kernel in the un-scaled gain's units)
-    kernel = np.sqrt(scale2) * (vt.T * (s / (s**2 + lambda2))) @ u.T @ w
+    # K = V diag(s/(s²+λ²)) Uᵀ W: the minimum-norm kernel of the trace-normalised gain, so the
+    # standardised power is in whitened-data units (e.g. µV² of the 1 µV² white noise model) and
+    # does not depend on the leadfield's absolute calibration.
+    kernel = (vt.T * (s / (s**2 + lambda2))) @ u.T @ w
     v = vt.T
     if orientation == "fixed":
         r_diag = np.einsum("ik,k,ik->i", v, f, v)
