@@ -81,6 +81,13 @@ class AnalysisConfig:
         Epoch length for cleaning and Welch cross-spectra, seconds.
     reject_uv : float
         Peak-to-peak amplitude rejection threshold per epoch, microvolts.
+    flat_uv : float
+        An epoch whose site varies less than this (peak to peak, µV) is rejected as flat.
+    muscle_uv : float
+        RMS above this in 25 Hz to ``h_freq`` at any site rejects an epoch as muscle, µV.
+    blink_uv : float
+        Deflection of the Fp1/Fp2 mean (low-passed at 3 Hz) above this, and at least twice the
+        O1/O2 deflection, rejects an epoch as an eye blink, µV.
     min_clean_s : float
         Minimum clean data; less is refused.
     warn_clean_s : float
@@ -100,6 +107,8 @@ class AnalysisConfig:
     epoch_s: float = 2.0
     reject_uv: float = 150.0
     flat_uv: float = 0.5
+    muscle_uv: float = 8.0
+    blink_uv: float = 70.0
     min_clean_s: float = 60.0
     warn_clean_s: float = 120.0
     l_freq: float = 0.5

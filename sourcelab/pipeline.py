@@ -127,7 +127,8 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     t0 = time.perf_counter()
     config = config or AnalysisConfig()
     rec = recording if isinstance(recording, Recording) else read_recording(recording)
-    clean = clean_recording(rec, config, select=select)
+    clean = clean_recording(rec, config, select=select, muscle_uv=config.muscle_uv,
+                            blink_uv=config.blink_uv)
     model = load_head_model()
     if tuple(clean.ch_names) != tuple(model.ch_names):
         raise InputError(f"channels {clean.ch_names} do not match the head model's "

@@ -1,0 +1,119 @@
+"""Band power of clean epochs: the small Welch helper shared by intake checks and reliability.
+
+Convention (the same as the spectra module's cross-spectra): one Hann window over the whole
+epoch, constant detrend, one-sided power spectral density; band power = sum of the density at
+the bins in [low, high) times the frequency resolution df = sfreq / n_times.  With this density
+scaling a sine of amplitude A carries A²/2 in a band that covers its main lobe (Parseval;
+Welch 1967, IEEE Trans Audio Electroacoust 15:70-73).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.signal import welch
+
+from ..errors import InputError
+
+
+def _edges(bands) -> list[tuple[float, float]]:
+    """Accept a :class:`sourcelab.config.Bands`, a mapping name -> (lo, hi) or pairs."""
+    if hasattr(bands, "edges"):
+        return [tuple(map(float, e)) for e in bands.edges]
+    if isinstance(bands, dict):
+        return [tuple(map(float, e)) for e in bands.values()]
+    out = [tuple(map(float, e)) for e in bands]
+    if not out or any(len(e) != 2 for e in out):
+        raise InputError("bands: need (low, high) pairs in Hz")
+    return out
+
+
+def epoch_spectra(epochs: np.ndarray, sfreq: float) -> tuple[np.ndarray, np.ndarray]:
+    """One-sided PSD of each epoch with a single Hann window over the epoch.
+
+    Parameters
+    ----------
+    epochs : ndarray, shape (n_epochs, n_channels, n_times)
+        µV.
+    sfreq : float
+        Hz.
+
+    Returns
+    -------
+    freqs : ndarray, shape (n_freqs,)
+        Hz, resolution sfreq / n_times.
+    psd : ndarray, shape (n_epochs, n_channels, n_freqs)
+        µV²/Hz.
+    """
+    epochs = np.asarray(epochs, float)
+    if epochs.ndim != 3:
+        raise InputError(f"epochs: need shape (n_epochs, n_channels, n_times), got {epochs.shape}")
+    n = epochs.shape[-1]
+    return welch(epochs, fs=sfreq, window="hann", nperseg=n, noverlap=0, detrend="constant",
+                 scaling="density", axis=-1)
+
+
+def epoch_band_power(epochs: np.ndarray, sfreq: float, bands) -> np.ndarray:
+    """Band power of every epoch.
+
+    Parameters
+    ----------
+    epochs : ndarray, shape (n_epochs, n_channels, n_times)
+        µV.
+    sfreq : float
+    bands : Bands | dict | sequence of (low, high)
+        Hz, [low, high).
+
+    Returns
+    -------
+    ndarray, shape (n_epochs, n_bands, n_channels)
+        µV².
+    """
+    freqs, psd = epoch_spectra(epochs, sfreq)
+    df = freqs[1] - freqs[0]
+    out = np.empty((psd.shape[0], len(_edges(bands)), psd.shape[1]))
+    for i, (lo, hi) in enumerate(_edges(bands)):
+        sel = (freqs >= lo) & (freqs < hi)
+        out[:, i] = psd[..., sel].sum(-1) * df
+    return out
+
+
+def band_power(epochs: np.ndarray, sfreq: float, bands) -> np.ndarray:
+    """Band power averaged over epochs (Welch's method, one Hann segment per epoch).
+
+    Parameters
+    ----------
+    epochs : ndarray, shape (n_epochs, n_channels, n_times)
+        µV.
+    sfreq : float
+    bands : Bands | dict | sequence of (low, high)
+
+    Returns
+    -------
+    ndarray, shape (n_bands, n_channels)
+        µV².
+
+    References
+    ----------
+    Welch PD (1967) IEEE Trans Audio Electroacoust 15:70-73.
+    """
+    return epoch_band_power(epochs, sfreq, bands).mean(axis=0)
+
+
+def peak_frequency(epochs: np.ndarray, sfreq: float, *, fmin: float = 7.0,
+                   fmax: float = 14.0) -> np.ndarray:
+    """Frequency of the largest mean-PSD bin in [fmin, fmax) per channel, Hz.
+
+    Parameters
+    ----------
+    epochs : ndarray, shape (n_epochs, n_channels, n_times)
+
+    Returns
+    -------
+    ndarray, shape (n_channels,)
+    """
+    freqs, psd = epoch_spectra(epochs, sfreq)
+    sel = (freqs >= fmin) & (freqs < fmax)
+    if not sel.any():
+        raise InputError(f"peak_frequency: no bins in [{fmin}, {fmax}) Hz")
+    mean = psd.mean(0)[:, sel]
+    return freqs[sel][np.argmax(mean, axis=1)]
