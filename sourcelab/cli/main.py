@@ -33,6 +33,21 @@ def _get_parser() -> argparse.ArgumentParser:
     return p
 
 
+class _StderrHandler(logging.StreamHandler):
+    """Log to whatever ``sys.stderr`` is at the time of the message."""
+
+    def __init__(self):
+        super().__init__()
+
+    @property
+    def stream(self):
+        return sys.stderr
+
+    @stream.setter
+    def stream(self, value):
+        pass
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the CLI; returns the exit code (0 ok, 2 user error)."""
     parser = _get_parser()
@@ -42,8 +57,8 @@ def main(argv: list[str] | None = None) -> int:
         return int(exc.code or 0)
     level = logging.WARNING - 10 * min(args.verbose, 2)
     logger = logging.getLogger("sourcelab")
-    if not logger.handlers:
-        h = logging.StreamHandler(sys.stderr)
+    if not any(isinstance(h, _StderrHandler) for h in logger.handlers):
+        h = _StderrHandler()
         h.setFormatter(logging.Formatter("sourcelab: %(levelname)s: %(message)s"))
         logger.addHandler(h)
     logger.setLevel(level)

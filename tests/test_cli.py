@@ -1,0 +1,95 @@
+"""The command line: outputs, one-line errors with exit code 2, nothing partial left behind."""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from sourcelab.cli.main import main
+
+
+@pytest.fixture(scope="module")
+def sim_edf(tmp_path_factory):
+    import mne
+
+    from sourcelab.headmodel import load_head_model
+    from sourcelab.simulate import Generator, simulate_raw
+
+    raw = simulate_raw(load_head_model(), duration_s=90.0, sfreq=256.0,
+                       generators=(Generator((-20, -90, 5), "left", amplitude=0.5),),
+                       rng=np.random.default_rng(3))
+    path = tmp_path_factory.mktemp("cli") / "invented.edf"
+    mne.export.export_raw(path, raw, fmt="edf", verbose="error")
+    return path
+
+
+def test_analyze_writes_tables_and_provenance(sim_edf, tmp_path, capsys):
+    out = tmp_path / "res"
+    assert main(["analyze", str(sim_edf), "--out", str(out), "--no-figures", "--no-report"]) == 0
+    t = pd.read_csv(out / "roi_table.tsv", sep="\t")
+    for col in ("roi", "hemisphere", "atlas", "band", "measure", "value", "z"):
+        assert col in t.columns
+    assert set(t.measure) == {"absolute", "relative"}
+    assert t.z.isna().all()  # no norms → z empty
+    prov = json.loads((out / "provenance.json").read_text())
+    assert prov["fingerprint"]["method"] == "sLORETA"
+    assert len(prov["inputs"]["recording"]["sha256"]) == 64
+    assert "not a diagnostic device" in capsys.readouterr().out
+
+
+def _bad(args, tmp_path, capsys, match):
+    out = tmp_path / "out"
+    code = main([*args, "--out", str(out)])
+    err = capsys.readouterr().err.strip()
+    assert code == 2
+    errors = [line for line in err.splitlines() if line.startswith("sourcelab: error:")]
+    assert len(errors) == 1 and "Traceback" not in err, err
+    assert match in errors[0]
+    assert not out.exists()
+    assert not any(p.name.startswith(".out") for p in tmp_path.iterdir())
+
+
+def test_missing_file(tmp_path, capsys):
+    _bad(["analyze", str(tmp_path / "nope.edf")], tmp_path, capsys, "nope.edf")
+
+
+def test_not_an_eeg_file(tmp_path, capsys):
+    p = tmp_path / "notes.edf"
+    p.write_text("this is not an EDF file\n")
+    _bad(["analyze", str(p)], tmp_path, capsys, "notes.edf")
+
+
+def test_missing_sites(tmp_path, capsys):
+    import mne
+
+    info = mne.create_info(["Fp1", "Fp2", "O1", "O2"], 256.0, "eeg")
+    raw = mne.io.RawArray(np.random.default_rng(0).standard_normal((4, 256 * 90)) * 1e-5, info,
+                          verbose="error")
+    p = tmp_path / "four.edf"
+    mne.export.export_raw(p, raw, fmt="edf", verbose="error")
+    _bad(["analyze", str(p)], tmp_path, capsys, "F7")
+
+
+def test_too_short(sim_edf, tmp_path, capsys):
+    import mne
+
+    raw = mne.io.read_raw_edf(sim_edf, preload=True, verbose="error").crop(0, 40)
+    p = tmp_path / "short.edf"
+    mne.export.export_raw(p, raw, fmt="edf", verbose="error")
+    _bad(["analyze", str(p)], tmp_path, capsys, "short.edf")
+
+
+def test_bad_norms(sim_edf, tmp_path, capsys):
+    n = tmp_path / "norms.tsv"
+    n.write_text("garbage\tcolumns\n1\t2\n")
+    _bad(["analyze", str(sim_edf), "--norms", str(n), "--age", "30"], tmp_path, capsys,
+         "norms.tsv")
+
+
+def test_failed_rerun_keeps_previous_output(sim_edf, tmp_path, capsys):
+    out = tmp_path / "keep"
+    assert main(["analyze", str(sim_edf), "--out", str(out), "--no-figures", "--no-report"]) == 0
+    before = (out / "roi_table.tsv").read_bytes()
+    assert main(["analyze", str(tmp_path / "missing.edf"), "--out", str(out)]) == 2
+    assert (out / "roi_table.tsv").read_bytes() == before
