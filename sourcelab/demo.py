@@ -23,7 +23,8 @@ DEMO_AGE = 41.0
 DEMO_CONDITION = "eyes closed"
 DEMO_SEED = 20261201
 COHORT_SEED = 19291
-PLANTED = dict(roi="BA9", hemisphere="left", band="theta")
+#: The planted deviation: theta in the left dorsolateral prefrontal areas.
+PLANTED = dict(rois=("BA8", "BA9", "BA46"), hemisphere="left", band="theta")
 _PLANTED_CENTER = (-40.0, 30.0, 30.0)
 
 
@@ -31,24 +32,24 @@ def _person_generators(rng: np.random.Generator, age: float) -> tuple[Generator,
     """Generators of one invented person: bilateral occipital alpha, frontal-midline theta,
     central beta; strengths log-normal across people, alpha frequency slowing with age."""
     alpha_f = 10.4 - 0.02 * (age - 18) + rng.normal(0, 0.4)
-    a = np.exp(rng.normal(np.log(3.0), 0.3))
+    a = np.exp(rng.normal(np.log(0.6), 0.3))
     gens = [
         Generator((-18, -92, 4), "left", freq=alpha_f, amplitude=a * np.exp(rng.normal(0, 0.1))),
         Generator((20, -92, 4), "right", freq=alpha_f, amplitude=a * np.exp(rng.normal(0, 0.1))),
         Generator((-30, -70, 40), "left", freq=alpha_f, amplitude=0.5 * a),
         Generator((30, -70, 40), "right", freq=alpha_f, amplitude=0.5 * a),
-        Generator((-4, 40, 20), "left", freq=6.0, amplitude=np.exp(rng.normal(np.log(0.8), 0.3))),
-        Generator((4, 40, 20), "right", freq=6.0, amplitude=np.exp(rng.normal(np.log(0.8), 0.3))),
+        Generator((-4, 40, 20), "left", freq=6.0, amplitude=np.exp(rng.normal(np.log(0.3), 0.3))),
+        Generator((4, 40, 20), "right", freq=6.0, amplitude=np.exp(rng.normal(np.log(0.3), 0.3))),
         Generator((-38, -20, 55), "left", freq=18.0, bandwidth=6.0,
-                  amplitude=np.exp(rng.normal(np.log(0.6), 0.3))),
+                  amplitude=np.exp(rng.normal(np.log(0.25), 0.3))),
         Generator((38, -20, 55), "right", freq=18.0, bandwidth=6.0,
-                  amplitude=np.exp(rng.normal(np.log(0.6), 0.3))),
+                  amplitude=np.exp(rng.normal(np.log(0.25), 0.3))),
     ]
     return tuple(gens)
 
 
 def _person_background(rng: np.random.Generator, age: float) -> float:
-    return float(np.exp(rng.normal(np.log(14.0) - 0.004 * (age - 18), 0.2)))
+    return float(np.exp(rng.normal(np.log(11.0) - 0.004 * (age - 18), 0.2)))
 
 
 def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
@@ -64,11 +65,11 @@ def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
 def demo_recording():
     """The invented demo participant's recording (deterministic)."""
     rng = np.random.default_rng(DEMO_SEED)
-    planted = Generator(_PLANTED_CENTER, "left", freq=6.0, amplitude=3.5, radius_mm=15.0)
+    planted = Generator(_PLANTED_CENTER, "left", freq=6.0, amplitude=0.8, radius_mm=15.0)
     return simulate_person(rng, DEMO_AGE, duration_s=240.0, extra=(planted,))
 
 
-def cohort(n: int = 80, *, duration_s: float = 90.0, seed: int = COHORT_SEED):
+def cohort(n: int = 80, *, duration_s: float = 120.0, seed: int = COHORT_SEED):
     """Yield ``(participant_id, age, raw)`` for the invented reference cohort (streamed)."""
     rng = np.random.default_rng(seed)
     ages = np.sort(rng.uniform(18, 65, n))
@@ -98,7 +99,7 @@ def demo_norms_path() -> Path:
     return Path(str(files("sourcelab.data") / "demo_norms.tsv"))
 
 
-def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 90.0) -> Path:
+def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 120.0) -> Path:
     """Simulate the invented cohort, analyse every member, and write norms (+ calibration)."""
     from .config import AnalysisConfig
     from .norms import build_norms, write_norms

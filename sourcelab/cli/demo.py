@@ -47,10 +47,10 @@ def run(args) -> int:
                             report=not args.no_report, command=["sourcelab", "demo"])
     t = result.roi_table
     pl = demo.PLANTED
-    row = t[(t.atlas == "brodmann") & (t.roi == pl["roi"]) & (t.hemisphere == pl["hemisphere"])
-            & (t.band == pl["band"]) & (t.measure == "absolute")]
-    if len(row):
-        print(f"sourcelab: planted deviation ({pl['hemisphere']} {pl['roi']}, {pl['band']}): "
-              f"z = {float(row.z.iloc[0]):+.2f}")
+    rows = t[(t.atlas == "brodmann") & t.roi.isin(pl["rois"]) & (t.hemisphere == pl["hemisphere"])
+             & (t.band == pl["band"]) & (t.measure == "absolute")]
+    zs = ", ".join(f"{r.roi} z = {r.z:+.2f}" for r in rows.itertuples())
+    print(f"sourcelab: planted (invented) deviation, {pl['band']} in {pl['hemisphere']} "
+          f"dorsolateral prefrontal cortex: {zs}")
     print_summary(result, out)
     return 0

@@ -16,7 +16,11 @@ COMMANDS = {
     "demo": "sourcelab.cli.demo",
     "atlas": "sourcelab.cli.atlas",
     "norms": "sourcelab.cli.norms",
+    "targets": "sourcelab.cli.targets",
 }
+
+#: ``sourcelab targets RESULT_DIR`` is short for ``sourcelab targets list RESULT_DIR``
+_TARGET_ACTIONS = ("list", "export", "replay")
 
 
 def _get_parser() -> argparse.ArgumentParser:
@@ -51,6 +55,10 @@ class _StderrHandler(logging.StreamHandler):
 def main(argv: list[str] | None = None) -> int:
     """Run the CLI; returns the exit code (0 ok, 2 user error)."""
     parser = _get_parser()
+    argv = list(sys.argv[1:] if argv is None else argv)
+    if (len(argv) >= 2 and argv[0] == "targets" and argv[1] not in _TARGET_ACTIONS
+            and not argv[1].startswith("-")):
+        argv.insert(1, "list")
     try:
         args = parser.parse_args(argv)
     except SystemExit as exc:  # argparse already printed a one-line usage error

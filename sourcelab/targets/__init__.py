@@ -1,0 +1,28 @@
+"""Training targets: ranked candidate regions and networks, portable target definitions, replay.
+
+Public API::
+
+    rank_candidates, candidates_from_folder, write_candidates, candidates_html   # candidates
+    TargetDefinition, make_target, export_target, read_target, write_target      # definitions
+    OnlineTarget, replay_array, replay_recording, expected_ratio                 # replay
+
+A candidate is a statistical deviation, not a recommendation: the choice of any training target
+rests with a licensed practitioner who weighs symptoms and history.  ``SCHEMA.md`` documents the
+``sourcelab-target/1`` JSON layout.
+"""
+
+from .candidates import (CANDIDATE_COLUMNS, candidates_for_table, candidates_from_folder,
+                         candidates_html,
+                         rank_candidates, read_result_folder, write_candidates)
+from .definition import (SCHEMA, TargetDefinition, export_target, make_target, norm_at_age,
+                         read_target, roi_weights, target_from_dict, write_target)
+from .replay import (OnlineTarget, ReplayResult, expected_ratio, plot_replay, replay_array,
+                     replay_recording, welch_band_response)
+
+__all__ = [
+    "CANDIDATE_COLUMNS", "SCHEMA", "OnlineTarget", "ReplayResult", "TargetDefinition",
+    "candidates_for_table", "candidates_from_folder", "candidates_html", "expected_ratio", "export_target",
+    "make_target", "norm_at_age", "plot_replay", "rank_candidates", "read_result_folder",
+    "read_target", "replay_array", "replay_recording", "roi_weights", "target_from_dict",
+    "welch_band_response", "write_candidates", "write_target",
+]

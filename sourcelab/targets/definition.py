@@ -1,0 +1,583 @@
+"""A portable training-target definition: one ROI, one band, its spatial filter and its norm.
+
+The definition is sourcelab's own open JSON layout, ``"sourcelab-target/1"`` (see ``SCHEMA.md``
+beside this module).  It carries everything a real-time program needs to compute the same ROI band
+power that the offline analysis reported, without sourcelab or the head model:
+
+* the 19 channel names in the order the weights expect (any reference: the average-reference
+  projector is folded into the weights);
+* the band edges and a causal Butterworth band-pass (design and second-order sections);
+* the ROI's template vertices and the sensor-space *ROI power matrix*
+  ``M = (1/|r|) Σ_{i∈r} K_iᵀ K_i`` (19 x 19), where ``K_i`` are the standardised sLORETA kernel rows
+  of source ``i`` (1 row for fixed, 3 for free orientation).  ROI mean source power of band-passed
+  data ``x`` (µV) over a window is ``tr(M · cov(x))`` — exactly the offline quantity
+  ``mean_i Σ_rows diag(K_i C K_iᵀ)`` with the Welch cross-spectrum ``C`` replaced by the window
+  covariance of the band-passed signal;
+* for *relative* power, which is a per-source ratio and so not a quadratic form, the kernel rows
+  ``K_r`` themselves (``n_rows x 19``) and the filters of every analysed band;
+* the norm's mean, SD and transform at the participant's age, the direction to train, and the
+  pipeline fingerprint.
+
+Why M and not always the kernel rows: M has 190 free numbers whatever the ROI size, while a network
+holds thousands of sources (e.g. 3,000 x 19 = 57,000 numbers); M gives absolute power exactly
+(``Σ_i k_i C k_iᵀ = tr((Σ_i k_iᵀ k_i) C)``) and costs 361 multiply-adds per window.
+
+References
+----------
+Pascual-Marqui RD (2002) Standardized low-resolution brain electromagnetic tomography (sLORETA):
+technical details. Methods Find Exp Clin Pharmacol 24 Suppl D:5-12.
+Butterworth S (1930) On the theory of filter amplifiers. Experimental Wireless 7:536-541.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import math
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+
+from .. import PIPELINE_VERSION
+from ..cautions import CAUTIONS
+from ..config import SITES_1020
+from ..errors import InputError
+from ..provenance import Fingerprint, atomic_write_text
+
+log = logging.getLogger("sourcelab")
+
+#: Schema identifier written into (and required from) every target file.
+SCHEMA = "sourcelab-target/1"
+#: Butterworth prototype order per band edge: ``butter(4, [lo, hi], "bandpass")`` is an 8th-order
+#: band-pass (4 second-order sections), -3 dB at the band edges, maximally flat (no passband
+#: ripple), 48 dB/octave roll-off beyond the edges (common practice for EEG feedback filters).
+FILTER_ORDER = 4
+#: Sliding window length and step, seconds (common practice for neurofeedback displays).
+WINDOW_S = 1.0
+STEP_S = 0.25
+MEASURES = ("absolute", "relative")
+#: Direction to train: away from the deviation, towards the norm mean.
+DIRECTIONS = {1: "decrease", -1: "increase"}
+POWER_FORMULA = ("ROI power = mean over the ROI's sources i of sum over i's kernel rows k of "
+                 "mean over the window of (k . x_band(t))^2 = tr(M cov(x_band)); x in µV, "
+                 "x_band causally band-passed, cov over the window without mean removal")
+
+
+def butter_sos(lo: float, hi: float, sfreq: float, *, order: int = FILTER_ORDER) -> np.ndarray:
+    """Causal Butterworth band-pass as second-order sections.
+
+    Parameters
+    ----------
+    lo, hi : float
+        Band edges (Hz), the -3 dB points; ``0 < lo < hi < sfreq / 2``.
+    sfreq : float
+        Sampling rate, Hz.
+    order : int
+        Prototype order (the band-pass has order ``2 * order``).
+
+    Returns
+    -------
+    sos : ndarray, shape (order, 6)
+    """
+    from scipy.signal import butter
+
+    if not (0 < lo < hi < sfreq / 2):
+        raise InputError(f"band {lo:g}-{hi:g} Hz: need 0 < low < high < Nyquist "
+                         f"({sfreq / 2:g} Hz) for a causal band-pass")
+    return butter(order, [lo, hi], btype="bandpass", output="sos", fs=sfreq)
+
+
+def group_delay_s(sos: np.ndarray, sfreq: float, freq: float) -> float:
+    """Group delay of ``sos`` at ``freq`` (s): the display latency of a feedback signal there."""
+    from scipy.signal import sosfreqz
+
+    df = 0.01
+    f = np.array([freq - df, freq + df])
+    _, h = sosfreqz(sos, worN=f, fs=sfreq)
+    ph = np.unwrap(np.angle(h))
+    return float(-(ph[1] - ph[0]) / (2 * np.pi * 2 * df))
+
+
+def roi_weights(kernel: np.ndarray, vertices: np.ndarray, *, n_comp: int = 1
+                ) -> tuple[np.ndarray, np.ndarray]:
+    """ROI power matrix and kernel rows of one ROI.
+
+    Parameters
+    ----------
+    kernel : ndarray, shape (n_src * n_comp, n_ch)
+        Standardised source kernel (average reference and whitener included).
+    vertices : ndarray of int, shape (n_v,)
+        The ROI's sources.
+    n_comp : int
+        Rows per source (1 fixed, 3 free).
+
+    Returns
+    -------
+    m : ndarray, shape (n_ch, n_ch)
+        ``(1/n_v) Σ_i K_iᵀ K_i``: ROI mean source power of data with covariance ``C`` is
+        ``tr(M C)``.
+    rows : ndarray, shape (n_v * n_comp, n_ch)
+        The kernel rows, source-major.
+    """
+    vertices = np.asarray(vertices, dtype=np.int64)
+    if vertices.size == 0:
+        raise InputError("ROI has no sources")
+    n_ch = kernel.shape[-1]
+    rows = kernel.reshape(-1, n_comp, n_ch)[vertices].reshape(-1, n_ch)
+    return rows.T @ rows / vertices.size, rows
+
+
+@dataclass(frozen=True, eq=False)
+class TargetDefinition:
+    """One training target (see ``SCHEMA.md`` for the JSON layout).
+
+    Attributes
+    ----------
+    name : str
+        Human-readable label, e.g. ``"brodmann BA17 right alpha absolute"``.
+    channels : tuple of str
+        The 19 sites in weight order.
+    atlas, roi, hemisphere : str
+    vertices : ndarray of int, shape (n_v,)
+        Template source indices (fsaverage5, left hemisphere first).
+    band : str
+        Band trained; ``bands`` holds every analysed band ``(name, lo, hi)`` (Hz).
+    measure : {"absolute", "relative"}
+    matrix : ndarray, shape (19, 19)
+        ROI power matrix ``M`` (symmetric positive semi-definite; per µV²).
+    kernel_rows : ndarray, shape (n_rows, 19) | None
+        Kernel rows of the ROI's sources (needed for relative power only).
+    n_comp : int
+        Kernel rows per source.
+    sfreq : float
+        Sampling rate the stored ``sos`` were designed for (a recording at another rate gets
+        filters re-designed from the same specification).
+    sos : dict of str -> ndarray, shape (FILTER_ORDER, 6)
+        Causal band-pass per band (only the trained band for absolute power).
+    window_s, step_s : float
+    norm : dict | None
+        ``mean``, ``sd``, ``transform`` (log10 / logit), ``age``, ``n``, ``norms_sha256``,
+        ``condition``; ``z = (T(power) - mean) / sd``.
+    offline : dict
+        The analysis's ``value`` and ``z`` for this ROI, and its result folder's recording sha256.
+    direction : {"decrease", "increase", "none"}
+        Towards the norm mean (``"none"`` without a norm).
+    fingerprint : Fingerprint
+    reject_uv : float
+        Peak-to-peak threshold marking a window unclean, µV.
+    created_utc : str
+    """
+
+    name: str
+    channels: tuple[str, ...]
+    atlas: str
+    roi: str
+    hemisphere: str
+    vertices: np.ndarray
+    band: str
+    bands: tuple[tuple[str, float, float], ...]
+    measure: str
+    matrix: np.ndarray
+    kernel_rows: np.ndarray | None
+    n_comp: int
+    sfreq: float
+    sos: dict
+    fingerprint: Fingerprint
+    window_s: float = WINDOW_S
+    step_s: float = STEP_S
+    norm: dict | None = None
+    offline: dict = field(default_factory=dict)
+    direction: str = "none"
+    reject_uv: float = 150.0
+    small: bool = False
+    created_utc: str = ""
+    filter_order: int = FILTER_ORDER
+
+    @property
+    def band_edges(self) -> tuple[float, float]:
+        for name, lo, hi in self.bands:
+            if name == self.band:
+                return lo, hi
+        raise InputError(f"band {self.band!r} is not among {[b[0] for b in self.bands]}")
+
+    def sos_for(self, sfreq: float) -> dict[str, np.ndarray]:
+        """Band-pass sections for a sampling rate (the stored ones when it matches)."""
+        if math.isclose(sfreq, self.sfreq, rel_tol=1e-9):
+            return dict(self.sos)
+        return {b: butter_sos(lo, hi, sfreq, order=self.filter_order)
+                for b, lo, hi in self.bands if b in self.sos}
+
+    def to_dict(self) -> dict:
+        lo, hi = self.band_edges
+        return {
+            "schema": SCHEMA,
+            "name": self.name,
+            "created_utc": self.created_utc,
+            "channels": list(self.channels),
+            "reference": "average (folded into the weights; any reference may be fed)",
+            "data_unit": "µV",
+            "roi": {"atlas": self.atlas, "name": self.roi, "hemisphere": self.hemisphere,
+                    "n_sources": int(self.vertices.size), "small": bool(self.small),
+                    "source_space": "fsaverage5 cortical vertices, left hemisphere first",
+                    "vertices": self.vertices.tolist()},
+            "band": {"name": self.band, "low_hz": lo, "high_hz": hi},
+            "bands": [list(b) for b in self.bands],
+            "measure": self.measure,
+            "filter": {"family": "butterworth", "type": "bandpass", "prototype_order": self.filter_order,
+                       "causal": True, "edges": "-3 dB at low_hz and high_hz",
+                       "sfreq": self.sfreq, "initial_state": "steady state for the first sample",
+                       "sos": {b: np.asarray(s).tolist() for b, s in self.sos.items()},
+                       "group_delay_s": group_delay_s(self.sos[self.band], self.sfreq,
+                                                      (lo + hi) / 2)},
+            "spatial_filter": {"n_comp": int(self.n_comp),
+                               "matrix": np.asarray(self.matrix).tolist(),
+                               "kernel_rows": (None if self.kernel_rows is None
+                                               else np.asarray(self.kernel_rows).tolist())},
+            "power": {"formula": POWER_FORMULA, "window_s": self.window_s, "step_s": self.step_s,
+                      "reject_uv": self.reject_uv,
+                      "relative": "per source: band power / sum over 'bands', then ROI mean"},
+            "norm": self.norm,
+            "offline": self.offline,
+            "direction": self.direction,
+            "fingerprint": self.fingerprint.to_dict(),
+            "cautions": list(CAUTIONS),
+        }
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
+
+
+def write_target(target: TargetDefinition, path: str | Path) -> Path:
+    """Write ``target`` as JSON (atomically)."""
+    path = Path(path)
+    if path.suffix.lower() != ".json":
+        raise InputError("a target file must end in .json", path=path)
+    atomic_write_text(path, target.to_json() + "\n")
+    return path
+
+
+def _current_fingerprint_check(fp: Fingerprint, current: Fingerprint | None, path) -> None:
+    if current is None:
+        from ..headmodel import load_head_model
+
+        sha = load_head_model().sha256
+        diffs = []
+        if fp.headmodel_sha256 != sha:
+            diffs.append(f"headmodel_sha256: {fp.headmodel_sha256[:12]} vs {sha[:12]}")
+        if fp.pipeline_version != PIPELINE_VERSION:
+            diffs.append(f"pipeline_version: {fp.pipeline_version} vs {PIPELINE_VERSION}")
+    else:
+        diffs = fp.differences(current)
+    if diffs:
+        raise InputError("target was made by a different pipeline (" + "; ".join(diffs)
+                         + "); export it again from a current analysis", path=path)
+
+
+def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = None,
+                     check_fingerprint: bool = True) -> TargetDefinition:
+    """Validate a parsed target and build the dataclass.
+
+    Parameters
+    ----------
+    d : dict
+        Parsed JSON.
+    path : str | Path
+        Named in error messages.
+    current : Fingerprint, optional
+        The pipeline to compare with; default the shipped head model's sha256 and this
+        sourcelab's ``PIPELINE_VERSION``.
+    check_fingerprint : bool
+
+    Raises
+    ------
+    InputError
+        Wrong schema, wrong channel set or order, malformed arrays, fingerprint mismatch.
+    """
+    def bad(msg):
+        return InputError(msg, path=path)
+
+    if not isinstance(d, dict) or d.get("schema") != SCHEMA:
+        got = d.get("schema") if isinstance(d, dict) else type(d).__name__
+        raise bad(f"not a sourcelab target: schema {got!r}, expected {SCHEMA!r}")
+    try:
+        channels = tuple(str(c) for c in d["channels"])
+        if channels != SITES_1020:
+            raise bad(f"channels {list(channels)} differ from the 19 sites in sourcelab order "
+                      f"{list(SITES_1020)}")
+        roi, band, sf, flt = d["roi"], d["band"], d["spatial_filter"], d["filter"]
+        bands = tuple((str(b[0]), float(b[1]), float(b[2])) for b in d["bands"])
+        measure = str(d["measure"])
+        if measure not in MEASURES:
+            raise bad(f"measure {measure!r} is not one of {MEASURES}")
+        matrix = np.asarray(sf["matrix"], dtype=float)
+        n = len(channels)
+        if matrix.shape != (n, n) or not np.all(np.isfinite(matrix)):
+            raise bad(f"spatial_filter.matrix must be a finite {n} x {n} array, got shape "
+                      f"{matrix.shape}")
+        if not np.allclose(matrix, matrix.T, rtol=1e-9, atol=1e-12 * np.abs(matrix).max()):
+            raise bad("spatial_filter.matrix must be symmetric")
+        rows = sf.get("kernel_rows")
+        n_comp = int(sf["n_comp"])
+        if rows is not None:
+            rows = np.asarray(rows, dtype=float)
+            if rows.ndim != 2 or rows.shape[1] != n or rows.shape[0] % n_comp:
+                raise bad(f"spatial_filter.kernel_rows must have shape (n_rows, {n})")
+            if not np.allclose(rows.T @ rows * n_comp / rows.shape[0], matrix, rtol=1e-6,
+                               atol=1e-9 * np.abs(matrix).max()):
+                raise bad("spatial_filter.kernel_rows do not reproduce spatial_filter.matrix")
+        if measure == "relative" and rows is None:
+            raise bad("relative power needs spatial_filter.kernel_rows")
+        sfreq = float(flt["sfreq"])
+        sos = {str(b): np.asarray(s, dtype=float) for b, s in flt["sos"].items()}
+        for b, s in sos.items():
+            if s.ndim != 2 or s.shape != (int(flt["prototype_order"]), 6):
+                raise bad(f"filter.sos[{b!r}] must have shape (prototype_order, 6)")
+        need = [b[0] for b in bands] if measure == "relative" else [str(band["name"])]
+        missing = [b for b in need if b not in sos]
+        if missing:
+            raise bad(f"filter.sos lacks bands {missing}")
+        fp = Fingerprint.from_dict(d["fingerprint"])
+        power = d["power"]
+        target = TargetDefinition(
+            name=str(d["name"]), channels=channels, atlas=str(roi["atlas"]),
+            roi=str(roi["name"]), hemisphere=str(roi["hemisphere"]),
+            vertices=np.asarray(roi["vertices"], dtype=np.int64), band=str(band["name"]),
+            bands=bands, measure=measure, matrix=matrix, kernel_rows=rows, n_comp=n_comp,
+            sfreq=sfreq, sos=sos, fingerprint=fp, window_s=float(power["window_s"]),
+            step_s=float(power["step_s"]), norm=d.get("norm"), offline=dict(d.get("offline", {})),
+            direction=str(d.get("direction", "none")), reject_uv=float(power["reject_uv"]),
+            small=bool(roi.get("small", False)), created_utc=str(d.get("created_utc", "")),
+            filter_order=int(flt["prototype_order"]))
+    except InputError:
+        raise
+    except (KeyError, TypeError, ValueError, AttributeError, IndexError) as exc:
+        raise bad(f"malformed {SCHEMA} file ({exc!r})") from None
+    lo, hi = target.band_edges
+    if not np.isclose(float(band.get("low_hz", lo)), lo) or not np.isclose(
+            float(band.get("high_hz", hi)), hi):
+        raise bad("band edges differ from the 'bands' list")
+    if not (0 < target.step_s <= target.window_s):
+        raise bad("power.step_s must satisfy 0 < step_s <= window_s")
+    if target.norm is not None:
+        for k in ("mean", "sd", "transform"):
+            if k not in target.norm:
+                raise bad(f"norm lacks {k!r}")
+        if not float(target.norm["sd"]) > 0:
+            raise bad("norm.sd must be > 0")
+    if target.direction not in (*DIRECTIONS.values(), "none"):
+        raise bad(f"direction {target.direction!r} is not one of increase, decrease, none")
+    if check_fingerprint:
+        _current_fingerprint_check(fp, current, path)
+    return target
+
+
+def read_target(path: str | Path, *, current: Fingerprint | None = None,
+                check_fingerprint: bool = True) -> TargetDefinition:
+    """Read and validate a ``sourcelab-target/1`` JSON file (see :func:`target_from_dict`)."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("target file not found", path=path) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read target file ({exc})", path=path) from None
+    try:
+        d = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise InputError(f"not valid JSON ({exc})", path=path) from None
+    return target_from_dict(d, path=path, current=current, check_fingerprint=check_fingerprint)
+
+
+def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisphere: str,
+                vertices: np.ndarray, band: str, bands, measure: str, fingerprint: Fingerprint,
+                sfreq: float, norm: dict | None = None, offline: dict | None = None,
+                z: float | None = None, reject_uv: float = 150.0, small: bool = False,
+                window_s: float = WINDOW_S, step_s: float = STEP_S,
+                filter_order: int = FILTER_ORDER) -> TargetDefinition:
+    """Assemble a target from a kernel and an ROI (pure: no files, no head model).
+
+    Parameters
+    ----------
+    kernel : ndarray, shape (n_src * n_comp, 19)
+    bands : sequence of (name, lo, hi)
+    z : float, optional
+        The offline z; its sign sets ``direction`` (train towards the norm).
+    sfreq : float
+        Sampling rate the stored filters are designed for.
+    """
+    if measure not in MEASURES:
+        raise InputError(f"measure: {measure!r} is not one of {MEASURES}")
+    bands = tuple((str(b), float(lo), float(hi)) for b, lo, hi in bands)
+    names = [b[0] for b in bands]
+    if band not in names:
+        raise InputError(f"band: {band!r} is not one of {names}")
+    m, rows = roi_weights(kernel, vertices, n_comp=n_comp)
+    need = names if measure == "relative" else [band]
+    if not 1 <= int(filter_order) <= 12:
+        raise InputError(f"filter_order: need 1..12, got {filter_order}")
+    sos = {b: butter_sos(lo, hi, sfreq, order=int(filter_order)) for b, lo, hi in bands
+           if b in need}
+    direction = "none"
+    if z is not None and np.isfinite(z) and z != 0:
+        direction = DIRECTIONS[int(np.sign(z))]
+    return TargetDefinition(
+        name=f"{atlas} {roi} {hemisphere} {band} {measure}", channels=SITES_1020, atlas=atlas,
+        roi=roi, hemisphere=hemisphere, vertices=np.asarray(vertices, dtype=np.int64), band=band,
+        bands=bands, measure=measure, matrix=m,
+        kernel_rows=rows if measure == "relative" else None, n_comp=int(n_comp),
+        sfreq=float(sfreq), sos=sos, fingerprint=fingerprint, window_s=window_s, step_s=step_s,
+        norm=norm, offline=dict(offline or {}), direction=direction, reject_uv=float(reject_uv),
+        small=bool(small), created_utc=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        filter_order=int(filter_order))
+
+
+def norm_at_age(norms, *, atlas: str, roi: str, hemisphere: str, band: str, measure: str,
+                age: float, allow_extrapolation: bool = False) -> dict:
+    """The norm of one ROI quantity at ``age``: mean and SD on the transformed scale.
+
+    Row selection follows :func:`sourcelab.norms.apply_norms`: the age range containing ``age``
+    (the upper one on a shared edge); outside every range the nearest range's model at its edge,
+    only with ``allow_extrapolation``.
+
+    Returns
+    -------
+    dict
+        ``mean, sd, transform, age, n, age_min, age_max, model, extrapolated, norms_sha256,
+        condition``.
+    """
+    from ..norms.io import COEF_COLUMNS
+    from ..norms.models import evaluate
+
+    where = norms.path if norms.path is not None else "norms"
+    t = norms.table
+    sel = t[(t["kind"] == "roi") & (t["atlas"] == atlas) & (t["name"] == roi)
+            & (t["hemisphere"] == hemisphere) & (t["band"] == band) & (t["measure"] == measure)]
+    if sel.empty:
+        raise InputError(f"norms have no row for {atlas} {roi} {hemisphere} {band} {measure}",
+                         path=where)
+    inside = sel[(sel["age_min"] <= age) & (age <= sel["age_max"])]
+    extrap = inside.empty
+    if extrap:
+        if not allow_extrapolation:
+            raise InputError(f"age {age:g} y is outside the norms' age ranges for this ROI",
+                             path=where)
+        gap = np.minimum(np.abs(age - sel["age_min"]), np.abs(age - sel["age_max"]))
+        row = sel.loc[gap.idxmin()]
+        at = float(min(max(age, row["age_min"]), row["age_max"]))
+    else:
+        row = inside.loc[inside["age_min"].idxmax()]
+        at = float(age)
+    mean = float(evaluate(row[list(COEF_COLUMNS)].to_numpy(dtype=float)[None],
+                          np.array([int(row["degree"])]), np.array([at]))[0])
+    return {"mean": mean, "sd": float(row["sd"]), "transform": str(row["transform"]),
+            "age": float(age), "n": int(row["n"]), "age_min": float(row["age_min"]),
+            "age_max": float(row["age_max"]), "model": str(row["model"]),
+            "extrapolated": bool(extrap), "norms_sha256": norms.sha256,
+            "condition": norms.condition}
+
+
+def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "brodmann",
+                  hemisphere: str | None = None, measure: str = "absolute", norms=None,
+                  allow_extrapolation: bool = False,
+                  filter_order: int = FILTER_ORDER) -> TargetDefinition:
+    """Build the target of one ROI from an analysis folder.
+
+    Parameters
+    ----------
+    result_dir : path
+        Folder written by ``sourcelab analyze`` (``roi_table.tsv``, ``provenance.json``).
+    roi, band : str
+    atlas : str
+        A shipped atlas (custom ROI sets are not exportable: their vertices are not shipped).
+    hemisphere : {"left", "right", "both"}, optional
+        Needed when the ROI name exists in several hemispheres.
+    measure : {"absolute", "relative"}
+    norms : path | Norms, optional
+        Default: the norms file recorded in the folder's provenance (its sha256 must match).
+    filter_order : int
+        Butterworth prototype order per edge (default 4: ~200 ms group delay in alpha).  Higher
+        orders leak less power from a strong neighbouring peak (see SCHEMA.md) at more latency.
+
+    Returns
+    -------
+    TargetDefinition
+
+    Raises
+    ------
+    InputError
+        Unknown ROI/band/measure, ambiguous hemisphere, head model or pipeline different from
+        the analysis', norms missing or changed.
+    """
+    from ..norms import read_norms
+    from ..pipeline import inverse_operator
+    from ..rois import load_atlas
+    from .candidates import read_result_folder
+
+    res = read_result_folder(result_dir)
+    fp = res.fingerprint
+    _current_fingerprint_check(fp, None, res.path / "provenance.json")
+    t = res.roi_table
+    sel = t[(t["atlas"] == atlas) & (t["roi"] == roi) & (t["band"] == band)
+            & (t["measure"] == measure)]
+    if hemisphere is not None:
+        sel = sel[sel["hemisphere"] == hemisphere]
+    if sel.empty:
+        have = sorted(set(t.loc[t["atlas"] == atlas, "roi"]))[:40]
+        raise InputError(f"no row for atlas={atlas} roi={roi} hemisphere={hemisphere} "
+                         f"band={band} measure={measure}; ROIs of this atlas: {have}",
+                         path=res.path)
+    if len(sel) > 1:
+        raise InputError(f"ROI {roi} exists in hemispheres {sorted(sel['hemisphere'])}; pass "
+                         "--hemisphere", path=res.path)
+    row = sel.iloc[0]
+    hemisphere = str(row["hemisphere"])
+    at = load_atlas(atlas)
+    match = [r for r in at.rois if r.name == roi and r.hemisphere == hemisphere]
+    if not match:
+        raise InputError(f"atlas {atlas} has no ROI {roi} ({hemisphere})")
+    r = match[0]
+    op = inverse_operator(fp.method, fp.orientation, fp.lambda2)
+    prov = res.provenance
+    rec = prov.get("recording", {})
+    params = prov.get("parameters", {})
+    z = float(row["z"]) if _finite(row.get("z")) else None
+    norm = None
+    norms_info = (prov.get("inputs") or {}).get("norms")
+    if norms is None and norms_info and norms_info.get("path"):
+        norms = Path(norms_info["path"])
+        if not norms.is_file():
+            raise InputError("the norms file recorded in the analysis' provenance is gone; pass "
+                             "--norms", path=norms)
+    if norms is not None:
+        nm = read_norms(norms) if isinstance(norms, (str, Path)) else norms
+        if norms_info and norms_info.get("sha256") and nm.sha256 != norms_info["sha256"]:
+            raise InputError("norms file differs from the one the analysis used (sha256)",
+                             path=nm.path)
+        diffs = nm.fingerprint.differences(fp)
+        if diffs:
+            raise InputError("norms were made by a different pipeline (" + "; ".join(diffs)
+                             + ")", path=nm.path)
+        age = rec.get("age")
+        if age is None:
+            raise InputError("the analysis has no participant age; the norm cannot be set",
+                             path=res.path)
+        norm = norm_at_age(nm, atlas=atlas, roi=roi, hemisphere=hemisphere, band=band,
+                           measure=measure, age=float(age),
+                           allow_extrapolation=allow_extrapolation)
+    offline = {"value": float(row["value"]), "z": z, "result_dir": str(res.path),
+               "recording_sha256": rec.get("sha256")}
+    return make_target(kernel=op.kernel, n_comp=op.n_comp, atlas=atlas, roi=roi,
+                       hemisphere=hemisphere, vertices=r.vertices, band=band, bands=fp.bands,
+                       measure=measure, fingerprint=fp, sfreq=float(rec.get("sfreq") or 256.0),
+                       norm=norm, offline=offline, z=z,
+                       reject_uv=float(params.get("reject_uv", 150.0)), small=bool(r.small),
+                       filter_order=filter_order)
+
+
+def _finite(v) -> bool:
+    try:
+        return v is not None and bool(np.isfinite(float(v)))
+    except (TypeError, ValueError):
+        return False
