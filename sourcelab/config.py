@@ -98,6 +98,12 @@ class AnalysisConfig:
         Mains frequency to notch (50 or 60); None to detect it from the data.
     reliability_threshold : float
         Split-half reliability below this is flagged (common practice: 0.90).
+    n_boot : int
+        Bootstrap resamples over clean epochs for 95 % intervals of every value and z (0: none).
+    boot_seed : int
+        Seed of the bootstrap (results are reproducible).
+    ci : float
+        Confidence level of the intervals.
     """
 
     bands: Bands = field(default_factory=Bands)
@@ -115,6 +121,9 @@ class AnalysisConfig:
     h_freq: float = 45.0
     notch: float | None = None
     reliability_threshold: float = 0.90
+    n_boot: int = 1000
+    boot_seed: int = 0
+    ci: float = 0.95
 
     def __post_init__(self):
         if self.method not in ("sLORETA", "eLORETA", "dSPM"):
@@ -125,6 +134,10 @@ class AnalysisConfig:
             raise InputError(f"snr: must be > 0, got {self.snr}")
         if not self.epoch_s > 0:
             raise InputError(f"epoch_s: must be > 0, got {self.epoch_s}")
+        if self.n_boot < 0 or (0 < self.n_boot < 100):
+            raise InputError(f"n_boot: 0 (no intervals) or at least 100, got {self.n_boot}")
+        if not 0.5 < self.ci < 1:
+            raise InputError(f"ci: must lie between 0.5 and 1, got {self.ci}")
         if self.notch is not None and self.notch not in (50.0, 60.0):
             raise InputError(f"notch: must be 50 or 60 Hz, got {self.notch}")
 

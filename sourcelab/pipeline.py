@@ -164,6 +164,7 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     fp = fingerprint_for(config, model.sha256)
     quality = _quality(clean, csd_epochs, op, atlas_objs[0], config)
     norms_summary = None
+    nm = opts = None
     if norms is not None:
         from .norms import apply_norms, read_norms
 
@@ -176,6 +177,17 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         roi_table = apply_norms(roi_table, nm, kind="roi", **opts)
         sensor_table = apply_norms(sensor_table, nm, kind="sensor", **opts)
         norms_summary = nm.summary()
+    if config.n_boot:
+        from .trust import add_intervals, add_sensor_intervals, norms_z_function
+
+        kw = dict(n_boot=config.n_boot, seed=config.boot_seed, ci=config.ci, band_names=names)
+        roi_table = add_intervals(
+            roi_table, csd_epochs, op, atlas_objs,
+            norms_fn=norms_z_function(nm, kind="roi", **opts) if nm is not None else None, **kw)
+        sensor_table = add_sensor_intervals(
+            sensor_table, csd_epochs, ch_names=clean.ch_names,
+            norms_fn=norms_z_function(nm, kind="sensor", **opts) if nm is not None else None,
+            **kw)
     recording_info = {
         "path": str(rec.path) if rec.path else None, "sha256": rec.sha256,
         "sfreq": float(rec.sfreq), "duration_s": float(rec.duration_s),

@@ -17,6 +17,7 @@ COMMANDS = {
     "atlas": "sourcelab.cli.atlas",
     "norms": "sourcelab.cli.norms",
     "targets": "sourcelab.cli.targets",
+    "leakage": "sourcelab.cli.leakage",
 }
 
 #: ``sourcelab targets RESULT_DIR`` is short for ``sourcelab targets list RESULT_DIR``

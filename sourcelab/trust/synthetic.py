@@ -1,0 +1,78 @@
+"""A small analytic test head: sources on a spherical shell, a dipole leadfield, patch ROIs.
+
+For tests and demonstrations of the trust tools without the 20,484-source template.  The
+leadfield is the potential of a current dipole in an infinite homogeneous conductor,
+``V(r) = p · (r - r0) / (4 π σ |r - r0|³)`` (e.g. Sarvas 1987, Phys Med Biol 32:11-22, eq. for the
+unbounded medium; from memory) - not a head, but smooth, full-rank and local, which is what the
+leakage and bootstrap properties need.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..rois.atlas import ROI, Atlas
+
+
+def fibonacci_sphere(n: int) -> np.ndarray:
+    """``n`` nearly uniform unit vectors, shape (n, 3)."""
+    i = np.arange(n) + 0.5
+    z = 1.0 - 2.0 * i / n
+    phi = np.pi * (1.0 + 5**0.5) * i
+    r = np.sqrt(1.0 - z**2)
+    return np.column_stack([r * np.cos(phi), r * np.sin(phi), z])
+
+
+@dataclass(frozen=True, eq=False)
+class SphereHead:
+    """gain (n_ch, 3 n_src) V/(A·m), src_pos (n_src, 3) m, src_nn (n_src, 3), ch_pos (n_ch, 3) m."""
+
+    gain: np.ndarray
+    src_pos: np.ndarray
+    src_nn: np.ndarray
+    ch_pos: np.ndarray
+
+    @property
+    def n_src(self) -> int:
+        return self.src_pos.shape[0]
+
+    @property
+    def gain_fixed(self) -> np.ndarray:
+        g = self.gain.reshape(self.gain.shape[0], self.n_src, 3)
+        return np.einsum("csk,sk->cs", g, self.src_nn)
+
+
+def sphere_head(n_src: int = 400, n_ch: int = 19, *, r_src: float = 0.07, r_ch: float = 0.09,
+                sigma: float = 0.33) -> SphereHead:
+    """Sources on the upper 80 % of a shell of radius ``r_src``, electrodes on the upper cap."""
+    u = fibonacci_sphere(int(n_src / 0.8))
+    u = u[u[:, 2] > -0.6][:n_src]
+    e = fibonacci_sphere(2 * n_ch + 2)
+    e = e[e[:, 2] > 0.05][:n_ch]
+    src = u * r_src
+    ch = e * r_ch
+    d = ch[:, None, :] - src[None, :, :]                     # (n_ch, n_src, 3)
+    gain = d / (4 * np.pi * sigma * np.linalg.norm(d, axis=-1, keepdims=True) ** 3)
+    return SphereHead(gain=gain.reshape(n_ch, -1), src_pos=src, src_nn=u.copy(), ch_pos=ch)
+
+
+def patch_atlas(head: SphereHead, n_rois: int = 16, *, unlabelled_below: float = -0.4,
+                name: str = "patches") -> Atlas:
+    """ROIs from nearest-seed patches; sources with ``z/r < unlabelled_below`` stay unlabelled."""
+    u = head.src_nn
+    keep = u[:, 2] >= unlabelled_below
+    seeds = fibonacci_sphere(int(n_rois / 0.7) + 1)
+    seeds = seeds[seeds[:, 2] > unlabelled_below + 0.1][:n_rois]
+    lab = np.argmax(u @ seeds.T, axis=1)
+    rois = []
+    for k in range(seeds.shape[0]):
+        v = np.flatnonzero((lab == k) & keep)
+        if v.size == 0:
+            continue
+        c = head.src_pos[v].mean(0) * 1000.0
+        rois.append(ROI(name=f"P{k}", hemisphere="left" if seeds[k, 0] < 0 else "right",
+                        vertices=v, centroid_mni=(float(c[0]), float(c[1]), float(c[2])),
+                        small=False))
+    return Atlas(name=name, description="synthetic patches", citation="none", rois=tuple(rois))
