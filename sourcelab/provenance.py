@@ -131,6 +131,9 @@ def atomic_write_text(path: str | Path, text: str) -> None:
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent or ".")
     try:
+        umask = os.umask(0)
+        os.umask(umask)
+        os.fchmod(fd, 0o666 & ~umask)  # mkstemp creates 0600; give the file ordinary permissions
         with os.fdopen(fd, "w", encoding="utf-8") as f:
             f.write(text)
         os.replace(tmp, path)

@@ -1,0 +1,64 @@
+"""The 19 10-20 electrode sites on the fsaverage scalp, as MNE objects.
+
+The positions come from MNE's fsaverage-fitted 10-20 montage
+(``mne/channels/data/montages/fsaverage_1020.tsv``, built-in name ``"fsaverage_1020"``), not
+from ``standard_1020`` (Colin27 positions, about 11 mm away from the fsaverage scalp).
+"""
+
+from __future__ import annotations
+
+import mne
+
+from ..config import SITES_1020
+from ..errors import InputError
+
+#: Built-in MNE montage whose positions were fitted to the fsaverage scalp.
+MONTAGE_NAME = "fsaverage_1020"
+
+
+def fsaverage_montage() -> mne.channels.DigMontage:
+    """MNE's fsaverage-fitted 10-20 montage restricted to :data:`sourcelab.config.SITES_1020`.
+
+    Returns
+    -------
+    montage : mne.channels.DigMontage
+        19 EEG positions plus the nasion and pre-auricular fiducials (metres).
+    """
+    full = mne.channels.make_standard_montage(MONTAGE_NAME)
+    missing = [s for s in SITES_1020 if s not in full.ch_names]
+    if missing:  # would mean an incompatible MNE version
+        raise RuntimeError(f"MNE montage {MONTAGE_NAME!r} lacks sites {missing}")
+    pos = full.get_positions()
+    return mne.channels.make_dig_montage(
+        ch_pos={s: pos["ch_pos"][s] for s in SITES_1020},
+        nasion=pos["nasion"],
+        lpa=pos["lpa"],
+        rpa=pos["rpa"],
+        coord_frame="unknown",
+    )
+
+
+def make_info(sfreq: float) -> mne.Info:
+    """``mne.Info`` for the 19 sites with the fsaverage-fitted montage set.
+
+    Parameters
+    ----------
+    sfreq : float
+        Sampling frequency, Hz (> 0).
+
+    Returns
+    -------
+    info : mne.Info
+        19 EEG channels named and ordered as :data:`sourcelab.config.SITES_1020`, positions in
+        MNE head coordinates (metres).  No projector is added: callers that invert add the
+        average-reference projector themselves.
+    """
+    try:
+        sfreq = float(sfreq)
+    except (TypeError, ValueError):
+        raise InputError(f"sfreq must be a positive number of Hz, got {sfreq!r}") from None
+    if not sfreq > 0:
+        raise InputError(f"sfreq must be a positive number of Hz, got {sfreq!r}")
+    info = mne.create_info(list(SITES_1020), sfreq, ch_types="eeg")
+    info.set_montage(fsaverage_montage(), verbose="error")
+    return info
