@@ -32,7 +32,7 @@ def _person_generators(rng: np.random.Generator, age: float) -> tuple[Generator,
     """Generators of one invented person: bilateral occipital alpha, frontal-midline theta,
     central beta; strengths log-normal across people, alpha frequency slowing with age."""
     alpha_f = 10.4 - 0.02 * (age - 18) + rng.normal(0, 0.4)
-    a = np.exp(rng.normal(np.log(0.6), 0.3))
+    a = np.exp(rng.normal(np.log(0.45), 0.25))
     gens = [
         Generator((-18, -92, 4), "left", freq=alpha_f, amplitude=a * np.exp(rng.normal(0, 0.1))),
         Generator((20, -92, 4), "right", freq=alpha_f, amplitude=a * np.exp(rng.normal(0, 0.1))),
@@ -49,7 +49,7 @@ def _person_generators(rng: np.random.Generator, age: float) -> tuple[Generator,
 
 
 def _person_background(rng: np.random.Generator, age: float) -> float:
-    return float(np.exp(rng.normal(np.log(11.0) - 0.004 * (age - 18), 0.2)))
+    return float(np.exp(rng.normal(np.log(10.0) - 0.004 * (age - 18), 0.15)))
 
 
 def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
@@ -65,7 +65,7 @@ def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
 def demo_recording():
     """The invented demo participant's recording (deterministic)."""
     rng = np.random.default_rng(DEMO_SEED)
-    planted = Generator(_PLANTED_CENTER, "left", freq=6.0, amplitude=0.8, radius_mm=15.0)
+    planted = Generator(_PLANTED_CENTER, "left", freq=6.0, amplitude=0.35, radius_mm=15.0)
     return simulate_person(rng, DEMO_AGE, duration_s=240.0, extra=(planted,))
 
 
@@ -105,12 +105,22 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 120.0)
     from .norms import build_norms, write_norms
     from .pipeline import analyze, fingerprint_for
 
-    config = AnalysisConfig()
+    from .errors import InputError
+
+    config = AnalysisConfig(n_boot=0)  # intervals do not change the values the norms need
     entries = []
     for pid, age, raw in cohort(n, duration_s=duration_s):
-        res = analyze(raw, config=config)
+        try:
+            res = analyze(raw, config=config)
+        except InputError as exc:  # e.g. too little clean data: left out, as a real lab would
+            log.warning("demo cohort: %s left out: %s", pid, exc)
+            continue
         entries.append((pid, age, res.roi_table, res.sensor_table))
         log.info("demo cohort: %s (age %.1f) done", pid, age)
-    norms = build_norms(entries, fingerprint=fingerprint_for(config), condition=DEMO_CONDITION)
+    norms = build_norms(
+        entries, fingerprint=fingerprint_for(config), condition=DEMO_CONDITION,
+        cohort_info={"source": "INVENTED: simulated by sourcelab.demo (seed %d)" % COHORT_SEED},
+        notes=("INVENTED demo norms: simulated adults, no real person's data. "
+               "Never use them to assess a real person.",))
     write_norms(norms, out)
     return Path(out)

@@ -69,24 +69,63 @@ def write_tables(result: AnalysisResult, folder: Path, *, command=None) -> None:
 
 
 def write_analysis(result: AnalysisResult, out: str | Path, *, figures: bool = True,
-                   report: bool = True, command=None) -> Path:
+                   report: bool = True, exports: bool = True, command=None) -> Path:
     """Write everything for one analysis into ``out`` (replaced atomically)."""
     out = Path(out)
     with atomic_output_dir(out) as tmp:
-        write_analysis_into(result, tmp, figures=figures, report=report, command=command)
+        write_analysis_into(result, tmp, figures=figures, report=report, exports=exports,
+                            command=command)
     return out
 
 
 def write_analysis_into(result: AnalysisResult, folder: Path, *, figures: bool = True,
-                        report: bool = True, command=None) -> None:
-    """Write the analysis into an existing (temporary) folder."""
-    write_tables(result, folder, command=command)
-    figs = {}
-    if figures:
-        from .figures import write_figure_set
+                        report: bool = True, exports: bool = True, command=None) -> dict:
+    """Write the analysis into an existing (temporary) folder.
 
-        figs = write_figure_set(result, folder / "figures")
+    Always: ``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json``, ``leakage_brodmann.tsv``
+    and, with norms, ``candidates.tsv`` and ``leakage_hints.tsv``.  Optional: ``figures/*.png``,
+    ``report.html``, ``maps/`` (MNE SourceEstimate, GIfTI per hemisphere, NIfTI in MNI space).
+    Returns the figures (name → PNG bytes).
+    """
+    from .trust import leakage_for, leakage_hints
+
+    write_tables(result, folder, command=command)
+    cfg = result.config
+    leak = leakage_for("brodmann", method=cfg.method, orientation=cfg.orientation,
+                       lambda2=cfg.lambda2)
+    leak.to_tsv(folder / "leakage_brodmann.tsv")
+    extra = []
+    has_z = bool(result.roi_table["z"].notna().any())
+    if has_z:
+        from .targets import candidates_for_table, write_candidates
+
+        cand = candidates_for_table(result.roi_table)
+        write_candidates(cand, folder / "candidates.tsv")
+        hints = leakage_hints(result.roi_table[result.roi_table.atlas == "brodmann"], leak)
+        hints.to_csv(folder / "leakage_hints.tsv", sep="\t", index=False, float_format="%.4g")
+        extra.append(("Candidate regions and networks (statistical deviations only)",
+                      cand.head(40)))
+        extra.append(("Could a deviation be a neighbour's blur? Strongest leakers of each "
+                      "deviating Brodmann area", hints.head(60)))
+    figs: dict = {}
+    if figures:
+        from .figures import result_figures
+        from .rois import load_atlas
+
+        figs = result_figures(result, outline=load_atlas("lobes"))
+        fig_dir = folder / "figures"
+        fig_dir.mkdir()
+        for name, png in figs.items():
+            (fig_dir / (name.replace("/", "_") + ".png")).write_bytes(png)
     if report:
         from .report import write_report
 
-        write_report(result, folder / "report.html", figures=figs)
+        write_report(result, folder / "report.html", figures=figs, extra_sections=extra)
+    if exports:
+        from .exports import export_gifti, export_nifti, export_stc
+
+        maps = folder / "maps"
+        export_stc(result, maps)
+        export_gifti(result, maps)
+        export_nifti(result, maps)
+    return figs

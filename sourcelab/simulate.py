@@ -10,6 +10,9 @@ Model: sensor data = background + generators + sensor noise, where
 * generators: patches of cortex (all sources within ``radius_mm`` of a centre vertex, same
   hemisphere) carrying one narrow-band oscillation, e.g. alpha at 10 Hz;
 * white sensor noise.
+
+The cortical part is average-referenced (as if recorded against the mean of the 19 sites); the
+white sensor noise is added after referencing.
 """
 
 from __future__ import annotations
@@ -87,7 +90,7 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
                          background_uv: float = 15.0, sensor_noise_uv: float = 1.0,
                          alpha_background: Generator | None = None,
                          rng: np.random.Generator) -> np.ndarray:
-    """Simulated 19-channel data in volts, shape (n_ch, n_times), un-referenced.
+    """Simulated 19-channel data in volts, shape (n_ch, n_times), average reference.
 
     Parameters
     ----------
@@ -115,6 +118,7 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
         topo = gf[:, verts].sum(axis=1)
         data += scale * g.amplitude * np.outer(topo, narrowband(n_t, sfreq, g.freq,
                                                                 g.bandwidth, rng))
+    data = p @ data  # as recorded against the average of the 19 sites
     data += sensor_noise_uv * 1e-6 * rng.standard_normal(data.shape)
     return data
 

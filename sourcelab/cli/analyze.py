@@ -17,6 +17,8 @@ def add_common_options(p) -> None:
     p.add_argument("--snr", type=float, help="amplitude SNR; lambda2 = 1/SNR^2 (default 3)")
     p.add_argument("--no-figures", action="store_true", help="tables and provenance only")
     p.add_argument("--no-report", action="store_true", help="skip the HTML report")
+    p.add_argument("--no-maps", action="store_true",
+                   help="skip the source-map exports (STC, GIfTI, NIfTI)")
 
 
 def config_from_args(args):
@@ -58,7 +60,8 @@ def run(args) -> int:
                      allow_extrapolation=args.allow_extrapolation,
                      allow_condition_mismatch=args.allow_condition_mismatch)
     out = write_analysis(result, args.out, figures=not args.no_figures,
-                         report=not args.no_report, command=["sourcelab", *sys.argv[1:]])
+                         report=not args.no_report, exports=not args.no_maps,
+                         command=["sourcelab", *sys.argv[1:]])
     print_summary(result, out)
     return 0
 

@@ -15,6 +15,8 @@ def add_parser(sub) -> None:
     p.add_argument("--out", default="sourcelab-demo", help="output folder (default: %(default)s)")
     p.add_argument("--no-figures", action="store_true", help="tables and provenance only")
     p.add_argument("--no-report", action="store_true", help="skip the HTML report")
+    p.add_argument("--no-maps", action="store_true",
+                   help="skip the source-map exports (STC, GIfTI, NIfTI)")
     p.add_argument("--rebuild-norms", metavar="TSV",
                    help="instead of the demo, rebuild the invented demo norms into TSV")
     p.set_defaults(func=run)
@@ -43,8 +45,10 @@ def run(args) -> int:
                              description="INVENTED demo recording simulated by sourcelab")
         result = analyze(edf, config=AnalysisConfig(), age=demo.DEMO_AGE,
                          norms=demo.demo_norms_path(), condition=demo.DEMO_CONDITION)
+        result.recording["path"] = str(out / edf.name)  # where it will be after the rename
         write_analysis_into(result, tmp, figures=not args.no_figures,
-                            report=not args.no_report, command=["sourcelab", "demo"])
+                            report=not args.no_report, exports=not args.no_maps,
+                            command=["sourcelab", "demo"])
     t = result.roi_table
     pl = demo.PLANTED
     rows = t[(t.atlas == "brodmann") & t.roi.isin(pl["rois"]) & (t.hemisphere == pl["hemisphere"])

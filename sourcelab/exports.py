@@ -1,0 +1,255 @@
+"""Open-format exports of an :class:`~sourcelab.result.AnalysisResult`.
+
+* :func:`export_stc`: MNE SourceEstimate files (``.stc``, one pair of -lh/-rh files per band and
+  measure; vertices ``[arange(10242)] * 2``, subject ``fsaverage``; the single time point is 0 s);
+* :func:`export_gifti`: GIfTI functional files per hemisphere and measure on fsaverage5, one data
+  array per band;
+* :func:`export_nifti`: MNI152 volumes (2 or 3 mm) per band and measure, by nearest-source fill
+  in grey matter (see :mod:`sourcelab.figures.geometry`);
+* :func:`export_bids_derivatives`: all of the above plus the ROI and sensor tables in a BIDS
+  derivatives folder ``<root>/derivatives/sourcelab/sub-<label>/eeg/``.
+
+Every file is written under a temporary name in the destination folder and renamed into place.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import logging
+import os
+import re
+import shutil
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError
+from .provenance import atomic_output_dir, atomic_write_text, safe_name
+
+logger = logging.getLogger("sourcelab")
+
+N_LEFT = 10242
+MEASURES = ("absolute", "relative")
+HEMI_BIDS = {"left": "L", "right": "R"}
+#: BIDS template label of the volume exports (nilearn's packaged MNI152 2009a symmetric template).
+VOLUME_SPACE = "MNI152NLin2009aSym"
+
+
+@contextlib.contextmanager
+def _staged(out_dir: Path):
+    """Yield a temporary folder inside ``out_dir``; on success its files are renamed into place."""
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=".sourcelab-export-", dir=out_dir))
+    try:
+        yield tmp
+        for f in sorted(tmp.iterdir()):
+            os.replace(f, out_dir / f.name)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+
+
+def _maps(result, measure: str) -> np.ndarray:
+    if measure not in MEASURES:
+        raise ValueError(f"measure: {measure!r} is not one of {MEASURES}")
+    arr = np.asarray(result.source_abs if measure == "absolute" else result.source_rel)
+    if arr.ndim != 2 or arr.shape[1] != 2 * N_LEFT:
+        raise ValueError(f"result: source maps need shape (n_bands, {2 * N_LEFT}), got {arr.shape}")
+    return arr
+
+
+def export_stc(result, out_dir, *, measures=MEASURES) -> list[Path]:
+    """Write one MNE SourceEstimate per band and measure.
+
+    Parameters
+    ----------
+    result : AnalysisResult
+    out_dir : str | Path
+    measures : sequence of {"absolute", "relative"}
+
+    Returns
+    -------
+    paths : list of Path
+        The stem of each estimate (``<measure>_<band>``); MNE writes ``<stem>-lh.stc`` and
+        ``<stem>-rh.stc`` and reads either back with :func:`mne.read_source_estimate`.
+        Values are float32 (the ``.stc`` format), shape (20484, 1).
+    """
+    import mne
+
+    vertices = [np.arange(N_LEFT), np.arange(N_LEFT)]
+    out_dir = Path(out_dir)
+    stems = []
+    with _staged(out_dir) as tmp:
+        for measure in measures:
+            maps = _maps(result, measure)
+            for b, band in enumerate(result.bands.names):
+                stem = f"{measure}_{safe_name(band)}"
+                stc = mne.SourceEstimate(maps[b][:, None].astype(np.float64), vertices, tmin=0.0,
+                                         tstep=1.0, subject="fsaverage")
+                stc.save(tmp / stem, ftype="stc", overwrite=True, verbose="error")
+                stems.append(out_dir / stem)
+    return stems
+
+
+def _gifti(values: np.ndarray, band_names) -> object:
+    import nibabel as nib
+
+    img = nib.gifti.GiftiImage()
+    for v, band in zip(values, band_names):
+        img.add_gifti_data_array(nib.gifti.GiftiDataArray(
+            np.asarray(v, np.float32), intent="NIFTI_INTENT_ESTIMATE", datatype="NIFTI_TYPE_FLOAT32",
+            meta={"Name": str(band)}))
+    return img
+
+
+def export_gifti(result, out_dir, *, measures=MEASURES, prefix: str = "") -> list[Path]:
+    """Write GIfTI functional files, one per hemisphere and measure, one data array per band.
+
+    Files ``<prefix><measure>.<L|R>.func.gii`` on fsaverage5 (10,242 vertices a hemisphere); each
+    data array carries its band name in its ``Name`` metadata.
+
+    Returns
+    -------
+    paths : list of Path
+    """
+    import nibabel as nib
+
+    out_dir = Path(out_dir)
+    paths = []
+    with _staged(out_dir) as tmp:
+        for measure in measures:
+            maps = _maps(result, measure)
+            for h, (hemi, abbr) in enumerate(HEMI_BIDS.items()):
+                name = f"{prefix}{measure}.{abbr}.func.gii"
+                img = _gifti(maps[:, h * N_LEFT:(h + 1) * N_LEFT], result.bands.names)
+                nib.save(img, tmp / name)
+                paths.append(out_dir / name)
+    return paths
+
+
+def export_nifti(result, out_dir, *, measures=MEASURES, resolution: int = 2,
+                 prefix: str = "") -> list[Path]:
+    """Write MNI152 volumes, one per band and measure (``<prefix><measure>_<band>.nii.gz``).
+
+    Each grey-matter voxel within 5 mm of the cortical sheet takes the value of the nearest
+    source (see :func:`sourcelab.figures.sources_to_volume`); other voxels are 0.
+
+    Parameters
+    ----------
+    resolution : {2, 3}
+        Voxel size, mm.
+
+    Returns
+    -------
+    paths : list of Path
+    """
+    import nibabel as nib
+
+    from .figures.geometry import sources_to_volume
+
+    out_dir = Path(out_dir)
+    paths = []
+    with _staged(out_dir) as tmp:
+        for measure in measures:
+            maps = _maps(result, measure)
+            for b, band in enumerate(result.bands.names):
+                name = f"{prefix}{measure}_{safe_name(band)}.nii.gz"
+                nib.save(sources_to_volume(maps[b], resolution=resolution), tmp / name)
+                paths.append(out_dir / name)
+    return paths
+
+
+def bids_label(participant_id: str) -> str:
+    """A BIDS participant label (alphanumeric) from an identifier read from a file."""
+    s = safe_name(participant_id)
+    s = re.sub(r"^sub-", "", s)
+    s = re.sub(r"[^A-Za-z0-9]", "", s)
+    if not s:
+        raise InputError(f"participant_id {participant_id!r}: no letters or digits for a BIDS "
+                         "label")
+    return s
+
+
+def _bids_band(band: str) -> str:
+    return re.sub(r"[^A-Za-z0-9]", "", band) or "band"
+
+
+def export_bids_derivatives(result, root, participant_id: str, *, resolution: int = 2) -> Path:
+    """Write a BIDS derivatives folder for one participant.
+
+    Layout::
+
+        <root>/derivatives/sourcelab/dataset_description.json
+        <root>/derivatives/sourcelab/sub-<label>/eeg/
+            sub-<label>_space-fsaverage5_hemi-<L|R>_desc-<measure>_power.func.gii (+ .json)
+            sub-<label>_space-MNI152NLin2009aSym_res-<r>mm_desc-<measure><band>_power.nii.gz
+            sub-<label>_desc-roi_power.tsv, sub-<label>_desc-sensor_power.tsv
+            sub-<label>_desc-sourcelab_provenance.json
+
+    Parameters
+    ----------
+    result : AnalysisResult
+    root : str | Path
+        BIDS dataset root (or any folder).
+    participant_id : str
+        Made safe with :func:`sourcelab.provenance.safe_name` and reduced to letters and digits.
+
+    Returns
+    -------
+    path : Path
+        The participant folder ``.../sub-<label>``.
+    """
+    from . import __version__
+
+    label = bids_label(participant_id)
+    deriv = Path(root) / "derivatives" / "sourcelab"
+    deriv.mkdir(parents=True, exist_ok=True)
+    desc = {
+        "Name": "sourcelab source-level band power",
+        "BIDSVersion": "1.9.0",
+        "DatasetType": "derivative",
+        "GeneratedBy": [{"Name": "sourcelab", "Version": __version__,
+                         "Description": "sLORETA band power on the fsaverage5 template"}],
+    }
+    atomic_write_text(deriv / "dataset_description.json", json.dumps(desc, indent=2) + "\n")
+    sub = deriv / f"sub-{label}"
+    bands = list(result.bands.names)
+    with atomic_output_dir(sub) as tmp:
+        eeg = tmp / "eeg"
+        eeg.mkdir()
+        base = f"sub-{label}"
+        import nibabel as nib
+
+        from .figures.geometry import sources_to_volume
+        for measure in MEASURES:
+            maps = _maps(result, measure)
+            for h, (hemi, abbr) in enumerate(HEMI_BIDS.items()):
+                stem = f"{base}_space-fsaverage5_hemi-{abbr}_desc-{measure}_power"
+                nib.save(_gifti(maps[:, h * N_LEFT:(h + 1) * N_LEFT], bands),
+                         eeg / f"{stem}.func.gii")
+                (eeg / f"{stem}.json").write_text(json.dumps(
+                    {"Bands": result.bands.as_list(), "Measure": measure,
+                     "Units": _unit(measure)}, indent=2) + "\n", encoding="utf-8")
+            for b, band in enumerate(bands):
+                name = (f"{base}_space-{VOLUME_SPACE}_res-{resolution}mm_desc-{measure}"
+                        f"{_bids_band(band)}_power.nii.gz")
+                nib.save(sources_to_volume(maps[b], resolution=resolution), eeg / name)
+        result.roi_table.to_csv(eeg / f"{base}_desc-roi_power.tsv", sep="\t", index=False,
+                                na_rep="n/a")
+        result.sensor_table.to_csv(eeg / f"{base}_desc-sensor_power.tsv", sep="\t", index=False,
+                                   na_rep="n/a")
+        prov = {"fingerprint": result.fingerprint.to_dict(), "config": result.config.to_dict(),
+                "recording": {k: v for k, v in (result.recording or {}).items()
+                              if isinstance(v, (str, int, float, bool))},
+                "norms": result.norms}
+        (eeg / f"{base}_desc-sourcelab_provenance.json").write_text(
+            json.dumps(prov, indent=2, default=str) + "\n", encoding="utf-8")
+    return sub
+
+
+def _unit(measure: str) -> str:
+    from .result import UNITS
+
+    return UNITS[measure]

@@ -1,0 +1,196 @@
+"""Source maps: glass brains (MNI volume projections) and inflated-surface views."""
+
+from __future__ import annotations
+
+import logging
+
+import matplotlib.pyplot as plt
+import numpy as np
+from matplotlib.figure import Figure
+
+from . import geometry
+from .colours import ColourScale, add_colourbar, masked
+
+logger = logging.getLogger("sourcelab")
+
+_DISPLAY_MODES = ("lyrz", "ortho", "lzry", "xz", "yz", "l", "r")
+#: Surface views drawn by :func:`surface_views`: (hemisphere, view).
+SURFACE_VIEWS = (("left", "lateral"), ("right", "lateral"), ("left", "medial"), ("right", "medial"))
+
+
+def _check_values(values) -> np.ndarray:
+    v = np.asarray(values, dtype=float)
+    if v.shape != (geometry.N_SRC,):
+        raise ValueError(f"values: need shape ({geometry.N_SRC},) (one per template source), "
+                         f"got {v.shape}")
+    return v
+
+
+def _save(fig: Figure, output_file, dpi: int) -> None:
+    if output_file is not None:
+        fig.savefig(output_file, dpi=dpi)
+
+
+def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = None,
+                display_mode: str = "lyrz", resolution: int = 2, figsize=(9.5, 2.6),
+                dpi: int = 90, output_file=None) -> Figure:
+    """Glass-brain projections of a per-source map.
+
+    The map is projected into an MNI152 volume by :func:`geometry.sources_to_volume` (nearest
+    source in grey matter) and drawn with :func:`nilearn.plotting.plot_glass_brain`: for each
+    projection the voxel of largest magnitude along the line of sight is shown.
+
+    Parameters
+    ----------
+    values : ndarray, shape (20484,)
+        Per-source values, left hemisphere first (power or z).
+    scale : ColourScale
+        From :func:`~sourcelab.figures.colours.z_scale` or
+        :func:`~sourcelab.figures.colours.power_scale`; sets map, limits, threshold, label.
+    title : str | None
+    display_mode : {"lyrz", "ortho", "lzry", "xz", "yz", "l", "r"}
+        nilearn projection set; ``"lyrz"`` = left, coronal, right, axial.
+    resolution : {2, 3}
+        Voxel size of the projection, mm.
+    output_file : str | Path | None
+        If given, the figure is also saved there (PNG at ``dpi``).
+
+    Returns
+    -------
+    fig : matplotlib.figure.Figure
+    """
+    from nilearn import plotting
+
+    v = _check_values(values)
+    if display_mode not in _DISPLAY_MODES:
+        raise ValueError(f"display_mode: {display_mode!r} is not one of {_DISPLAY_MODES}")
+    v = masked(v, scale)
+    v = np.where(np.isfinite(v), v, 0.0)
+    img = geometry.sources_to_volume(v, resolution=resolution)
+    fig = plt.figure(figsize=figsize, dpi=dpi)
+    w = figsize[0]
+    ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
+    cax = fig.add_axes((1.0 - 1.45 / w, 0.1, 0.14 / w, 0.74))
+    signed = scale.diverging
+    plotting.plot_glass_brain(
+        img, display_mode=display_mode, figure=fig, axes=ax, cmap=scale.cmap,
+        vmin=scale.vmin, vmax=scale.vmax, plot_abs=not signed, colorbar=False,
+        threshold=scale.threshold if scale.threshold else 1e-12 if not signed else None,
+        black_bg=False, annotate=True, symmetric_cbar=signed)
+    add_colourbar(fig, scale, cax=cax)
+    if title:
+        fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
+    _save(fig, output_file, dpi)
+    return fig
+
+
+def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None = None,
+                  surface: str = "inflated", outline=None,
+                  figsize=(8.0, 6.0), dpi: int = 90, output_file=None) -> Figure:
+    """Lateral and medial views of both hemispheres on the fsaverage5 surface.
+
+    Sulcal depth shades the surface (dark = sulci); values are drawn with
+    :func:`nilearn.plotting.plot_surf_stat_map` (matplotlib engine).
+
+    Parameters
+    ----------
+    values : ndarray, shape (20484,)
+        Per-source values, left hemisphere first.  NaN (and |z| below the scale's threshold) is
+        not coloured.
+    scale : ColourScale
+    title : str | None
+    surface : {"inflated", "pial", "white_matter"}
+    outline : Atlas | ndarray of int, shape (20484,) | None
+        Optional parcellation: an :class:`~sourcelab.rois.atlas.Atlas` or a label per source
+        (-1 = none); parcel borders are drawn as thin black lines.
+    output_file : str | Path | None
+
+    Returns
+    -------
+    fig : matplotlib.figure.Figure
+        Four 3-D axes (left lateral, right lateral, left medial, right medial) and a colour bar.
+    """
+    from nilearn import plotting
+
+    v = masked(_check_values(values), scale)
+    if outline is not None:
+        outline = (geometry.atlas_labels(outline) if hasattr(outline, "rois")
+                   else np.asarray(outline))
+        if outline.shape != (geometry.N_SRC,):
+            raise ValueError(f"outline: need shape ({geometry.N_SRC},), got {outline.shape}")
+    sulc = geometry.sulcal_depth()
+    fig = plt.figure(figsize=figsize, dpi=dpi)
+    top = 0.92 if title else 0.98
+    rects = [(0.0, top / 2, 0.43, top / 2), (0.43, top / 2, 0.43, top / 2),
+             (0.0, 0.0, 0.43, top / 2), (0.43, 0.0, 0.43, top / 2)]
+    for (hemi, view), rect in zip(SURFACE_VIEWS, rects):
+        coords, faces = geometry.mesh(surface, hemi)
+        h = geometry.HEMIS.index(hemi)
+        sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
+        ax = fig.add_axes(rect, projection="3d")
+        data = v[sl]
+        faces = _front_faces(coords, faces, hemi=hemi, view=view)
+        # nilearn hides values below `threshold`; for maps with nothing to show keep the background
+        plotting.plot_surf_stat_map(
+            (coords, faces), stat_map=np.where(np.isfinite(data), data, 0.0),
+            bg_map=sulc[h], hemi=hemi, view=view, engine="matplotlib", axes=ax, figure=fig,
+            cmap=scale.cmap, vmin=scale.vmin, vmax=scale.vmax, colorbar=False,
+            threshold=_surface_threshold(data, scale), symmetric_cbar=scale.diverging,
+            bg_on_data=True)
+        if outline is not None:
+            ax.computed_zorder = False  # borders are drawn over the (culled) surface
+            _draw_outline(ax, coords, faces, outline[sl])
+        ax.set_box_aspect(None, zoom=1.45)
+        ax.set_title(f"{hemi} {view}", fontsize=9, y=0.92)
+    cax = fig.add_axes((0.87, 0.15, 0.02, top * 0.7))
+    add_colourbar(fig, scale, cax=cax)
+    if title:
+        fig.suptitle(title, x=0.43, y=0.995, va="top", fontsize=11)
+    _save(fig, output_file, dpi)
+    return fig
+
+
+def _front_faces(coords: np.ndarray, faces: np.ndarray, *, hemi: str, view: str) -> np.ndarray:
+    """Faces turned towards a lateral/medial camera (back-face culling: halves drawing time).
+
+    The camera looks along x: from -x for left-lateral and right-medial views, from +x otherwise.
+    Faces are kept when their outward normal has a non-negligible component towards the camera
+    (a small margin keeps silhouette faces).
+    """
+    cam = -1.0 if (hemi == "left") == (view == "lateral") else 1.0
+    a, b, c = (coords[faces[:, k]] for k in range(3))
+    n = np.cross(b - a, c - a)
+    # orient normals outward: most faces of a closed surface point away from its centre
+    out = np.sign(np.sum(n * ((a + b + c) / 3.0 - coords.mean(0)), axis=1).sum()) or 1.0
+    nx = out * n[:, 0] / np.maximum(np.linalg.norm(n, axis=1), 1e-12)
+    return faces[cam * nx > -0.2]
+
+
+def _surface_threshold(data: np.ndarray, scale: ColourScale) -> float | None:
+    if scale.threshold:
+        return float(scale.threshold)
+    if scale.diverging:
+        return None
+    # power maps: hide only exact zeros / NaN (unassigned vertices)
+    return 1e-12 if scale.vmin >= 0 else None
+
+
+def _draw_outline(ax, coords: np.ndarray, faces: np.ndarray, labels: np.ndarray) -> None:
+    """Draw edges between vertices with different labels (parcel borders) of the given faces.
+
+    Only faces turned to the camera are passed in, so hidden borders are not drawn.
+    """
+    fl = labels[faces]
+    border = ~((fl[:, 0] == fl[:, 1]) & (fl[:, 1] == fl[:, 2]))
+    segs = []
+    for f in faces[border]:
+        a, b, c = f
+        for p, q in ((a, b), (b, c), (c, a)):
+            if labels[p] != labels[q]:
+                segs.append((coords[p], coords[q]))
+    if not segs:
+        return
+    from mpl_toolkits.mplot3d.art3d import Line3DCollection
+
+    ax.add_collection3d(Line3DCollection(segs, colors="k", linewidths=0.5, alpha=0.8,
+                                         zorder=10))

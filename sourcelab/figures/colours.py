@@ -1,0 +1,145 @@
+"""One colour convention for every sourcelab figure.
+
+* z-scores: a symmetric diverging map (``RdBu_r``) centred on 0, with the **same** limits for every
+  band and measure (default ±3), optionally hiding |z| below a threshold (default 1.96, the two-sided
+  5 % point of the standard normal: common practice).
+* power (absolute or relative): a sequential map (``magma``) over a robust range of the data (1st to
+  99th percentile) unless limits are given.
+
+Every colour bar is labelled with the quantity and its unit through :func:`add_colourbar`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import matplotlib as mpl
+import numpy as np
+
+#: Diverging map for z-scores (standard matplotlib map).
+Z_CMAP = "RdBu_r"
+#: Sequential map for power.
+POWER_CMAP = "magma"
+#: Default symmetric z limit.
+Z_LIMIT = 3.0
+#: Default display threshold for z: |z| below it is hidden when thresholding is asked for.
+Z_THRESHOLD = 1.96
+#: Units shown on colour bars, by measure.
+POWER_LABELS = {
+    "absolute": "sLORETA power (standardised)",
+    "relative": "relative power (fraction)",
+    "sensor_absolute": "absolute power (µV²)",
+    "sensor_relative": "relative power (fraction)",
+}
+Z_LABEL = "z-score (SD units)"
+
+
+@dataclass(frozen=True)
+class ColourScale:
+    """A colour map with its limits and the label of its colour bar.
+
+    Attributes
+    ----------
+    cmap : str
+        Matplotlib colour-map name.
+    vmin, vmax : float
+        Colour limits (for z, ``vmin == -vmax``).
+    label : str
+        Quantity and unit, shown beside the colour bar.
+    threshold : float | None
+        Values with magnitude below it are hidden (z only), or None.
+    diverging : bool
+        True for z scales.
+    """
+
+    cmap: str
+    vmin: float
+    vmax: float
+    label: str
+    threshold: float | None = None
+    diverging: bool = False
+
+    @property
+    def norm(self) -> mpl.colors.Normalize:
+        return mpl.colors.Normalize(vmin=self.vmin, vmax=self.vmax)
+
+    def scalar_mappable(self) -> mpl.cm.ScalarMappable:
+        return mpl.cm.ScalarMappable(norm=self.norm, cmap=mpl.colormaps[self.cmap])
+
+
+def z_scale(*, limit: float = Z_LIMIT, threshold: float | None = None,
+            label: str = Z_LABEL) -> ColourScale:
+    """The z-score colour scale: symmetric about 0, the same for every band.
+
+    Parameters
+    ----------
+    limit : float
+        Colour limit; the scale spans ``[-limit, +limit]``.  Must be > 0.
+    threshold : float | None
+        Hide |z| below this (e.g. :data:`Z_THRESHOLD`); must be in ``[0, limit)``.
+    """
+    if not (np.isfinite(limit) and limit > 0):
+        raise ValueError(f"z limit: must be a positive number, got {limit!r}")
+    if threshold is not None and not (0 <= threshold < limit):
+        raise ValueError(f"z threshold: must be in [0, {limit}), got {threshold!r}")
+    return ColourScale(Z_CMAP, -float(limit), float(limit), label, threshold, True)
+
+
+def power_scale(values: np.ndarray | None = None, *, measure: str = "absolute",
+                vmin: float | None = None, vmax: float | None = None,
+                percentile: float = 99.0, label: str | None = None) -> ColourScale:
+    """A sequential power colour scale.
+
+    Parameters
+    ----------
+    values : ndarray | None
+        Data used to choose limits not given explicitly (NaNs ignored).  Pass all bands at once
+        to share limits across bands.
+    measure : str
+        Key of :data:`POWER_LABELS` (``"absolute"``, ``"relative"``, ``"sensor_absolute"``,
+        ``"sensor_relative"``), which sets the colour-bar label.
+    vmin, vmax : float | None
+        Explicit limits.  Default: the ``100 - percentile``-th and ``percentile``-th
+        percentiles of the data (a robust range: one outlier does not wash out the map, and
+        maximum-intensity projections are not saturated by a floor at 0).
+    """
+    if label is None:
+        if measure not in POWER_LABELS:
+            raise ValueError(f"measure: {measure!r} is not one of {sorted(POWER_LABELS)}")
+        label = POWER_LABELS[measure]
+    finite = np.array([], float)
+    if values is not None:
+        v = np.asarray(values, float).ravel()
+        finite = v[np.isfinite(v)]
+    if vmin is None:
+        vmin = float(np.percentile(finite, 100.0 - percentile)) if finite.size else 0.0
+    if vmax is None:
+        vmax = float(np.percentile(finite, percentile)) if finite.size else 1.0
+    if not vmax > vmin:
+        vmax = vmin + (abs(vmin) if vmin else 1.0)
+    return ColourScale(POWER_CMAP, float(vmin), float(vmax), label)
+
+
+def add_colourbar(fig, scale: ColourScale, *, cax=None, ax=None, orientation: str = "vertical",
+                  **kwargs):
+    """Add a labelled colour bar for ``scale`` to ``fig`` (in ``cax``, or stolen from ``ax``).
+
+    For z scales, dashed ticks mark ±threshold when one is set.
+    """
+    cb = fig.colorbar(scale.scalar_mappable(), cax=cax, ax=ax, orientation=orientation, **kwargs)
+    cb.set_label(scale.label)
+    if scale.diverging and scale.threshold:
+        for t in (-scale.threshold, scale.threshold):
+            if orientation == "vertical":
+                cb.ax.axhline(t, color="k", lw=0.8, ls="--")
+            else:
+                cb.ax.axvline(t, color="k", lw=0.8, ls="--")
+    return cb
+
+
+def masked(values: np.ndarray, scale: ColourScale) -> np.ndarray:
+    """Copy of ``values`` (float) with |value| < threshold set to NaN (no-op without threshold)."""
+    out = np.array(values, dtype=float, copy=True)
+    if scale.threshold:
+        out[np.abs(out) < scale.threshold] = np.nan
+    return out

@@ -1,0 +1,193 @@
+"""The full figure set of one :class:`~sourcelab.result.AnalysisResult`, keyed by name.
+
+Keys (``<band>`` from the result's bands, ``<measure>`` in ``absolute``/``relative``):
+
+* ``glass/<band>/<measure>`` and ``surface/<band>/<measure>``: source power;
+* ``glass-z/<band>/<measure>``: ROI z painted on sources (needs z and an atlas loader);
+* ``topomap/<measure>`` and ``topomap-z/<measure>``: sensor power and z, all bands;
+* ``roi-bars/<band>/<measure>``, ``roi-heatmap/<measure>``, ``networks/<measure>``: ROI charts.
+"""
+
+from __future__ import annotations
+
+import io
+import logging
+
+import matplotlib.pyplot as plt
+import numpy as np
+
+from ..errors import InputError
+from . import brain, roi, sensor
+from .colours import Z_LIMIT, power_scale, z_scale
+from .geometry import atlas_labels  # noqa: F401  (re-exported)
+
+logger = logging.getLogger("sourcelab")
+
+MEASURES = ("absolute", "relative")
+
+
+def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
+    """Render a figure to PNG bytes (and close it)."""
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi)
+    if close:
+        plt.close(fig)
+    return buf.getvalue()
+
+
+def _has_z(table) -> bool:
+    return "z" in table.columns and bool(np.isfinite(table["z"].astype(float)).any())
+
+
+def _pick_network_atlas(table) -> str | None:
+    for name in dict.fromkeys(table["atlas"]):
+        if any(k in str(name).lower() for k in ("network", "yeo")):
+            return str(name)
+    return None
+
+
+def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_LIMIT,
+                   z_threshold: float | None = None, atlas: str | None = None,
+                   network_atlas: str | None = None, z_map_atlas: str | None = "brodmann",
+                   outline=None, display_mode: str = "lyrz", resolution: int = 2,
+                   surfaces: bool = True, dpi: int = 90, as_png: bool = True,
+                   n_jobs: int = 1) -> dict:
+    """Make every figure of a result.
+
+    Parameters
+    ----------
+    result : AnalysisResult
+    measures : sequence of {"absolute", "relative"}
+    bands : sequence of str | None
+        Bands of the per-band figures (default: all); multi-band figures show all bands.
+    z_limit : float
+        Symmetric z colour limit, the same for every band (default 3).
+    z_threshold : float | None
+        Hide |z| below this in z maps (e.g. 1.96); None shows all.
+    atlas : str | None
+        Atlas of the ROI bar charts and heatmap; default: the first atlas in the ROI table that is
+        not a network atlas.
+    network_atlas : str | None
+        Atlas of the network chart; default: the first atlas whose name contains "network" or
+        "yeo"; no network chart when there is none.
+    z_map_atlas : str | None
+        Atlas whose ROI z-scores are painted on sources for ``glass-z`` maps (through
+        :meth:`AnalysisResult.roi_z_map`); skipped when the ROI table has no finite z for that
+        atlas or the atlas cannot be loaded.
+    outline : Atlas | ndarray | None
+        Optional parcel outline on the surface views (an Atlas or a label per source).
+    display_mode : str
+        Glass-brain projections (``"lyrz"`` or ``"ortho"`` ...).
+    resolution : {2, 3}
+        Glass-brain voxel size, mm.
+    surfaces : bool
+        Draw surface views (the slowest figures).
+    dpi : int
+    as_png : bool
+        Return PNG bytes (figures closed as they are made) instead of open Figures.
+    n_jobs : int
+        Worker processes drawing figures (PNG output only; forked, so caches are shared).
+        1 draws in this process.
+
+    Returns
+    -------
+    figures : dict of str → bytes | Figure
+    """
+    bad = [m for m in measures if m not in MEASURES]
+    if bad:
+        raise ValueError(f"measures: {bad} not in {MEASURES}")
+    if not (isinstance(n_jobs, int) and n_jobs >= 1):
+        raise ValueError(f"n_jobs: must be an integer >= 1, got {n_jobs!r}")
+    jobs: list = []
+
+    def keep(key, func, *args, **kwargs):
+        jobs.append((key, func, args, kwargs))
+
+    zs = z_scale(limit=z_limit, threshold=z_threshold)
+    all_bands = list(result.bands.names)
+    per_band = all_bands if bands is None else list(bands)
+    unknown = [b for b in per_band if b not in all_bands]
+    if unknown:
+        raise ValueError(f"bands: {unknown} not in the result's bands {all_bands}")
+    bands = all_bands
+    labels = outline
+    rt = result.roi_table
+    has_roi_z = len(rt) > 0 and _has_z(rt)
+    if z_map_atlas and not (has_roi_z and _has_z(rt[rt["atlas"] == z_map_atlas])):
+        z_map_atlas = None  # no z for that atlas: a z map would be empty
+    for measure in measures:
+        for band in per_band:
+            v = np.asarray(result.source_map(band, measure), float)
+            ps = power_scale(v, measure=measure)
+            title = f"{band} ({_edges(result, band)}) · {measure} source power"
+            keep(f"glass/{band}/{measure}", brain.glass_brain, v, scale=ps, title=title,
+                 display_mode=display_mode, resolution=resolution, dpi=dpi)
+            if surfaces:
+                keep(f"surface/{band}/{measure}", brain.surface_views, v, scale=ps, title=title,
+                     outline=labels, dpi=dpi)
+            if has_roi_z and z_map_atlas:
+                try:
+                    zmap = result.roi_z_map(band, measure, atlas=z_map_atlas)
+                except (ImportError, InputError, KeyError) as exc:
+                    logger.info("no source z map for atlas %r: %s", z_map_atlas, exc)
+                    z_map_atlas = None
+                else:
+                    keep(f"glass-z/{band}/{measure}", brain.glass_brain, zmap, scale=zs,
+                         display_mode=display_mode, resolution=resolution, dpi=dpi,
+                         title=f"{band} · {measure} · ROI z ({z_map_atlas})")
+        sens = np.asarray(result.sensor_abs if measure == "absolute" else result.sensor_rel)
+        keep(f"topomap/{measure}", sensor.sensor_topomaps, sens, band_names=bands,
+             ch_names=result.ch_names, dpi=dpi,
+             scale=power_scale(sens, measure=f"sensor_{measure}"),
+             title=f"sensor {measure} power (average reference)")
+        st = result.sensor_table
+        st = st[st["measure"] == measure]
+        if len(st) and _has_z(st):
+            zgrid = (st.pivot_table(index="band", columns="channel", values="z", aggfunc="first")
+                     .reindex(index=bands, columns=list(result.ch_names)).to_numpy(float))
+            keep(f"topomap-z/{measure}", sensor.sensor_topomaps, zgrid, band_names=bands,
+                 ch_names=result.ch_names, scale=zs, dpi=dpi,
+                 title=f"sensor {measure} power: z")
+        if not has_roi_z or not (rt["measure"] == measure).any():
+            continue
+        net = network_atlas or _pick_network_atlas(rt)
+        area_atlas = atlas or next((a for a in dict.fromkeys(rt["atlas"]) if a != net), None)
+        if area_atlas is not None:
+            for band in per_band:
+                sel = rt[(rt.atlas == area_atlas) & (rt.band == band) & (rt.measure == measure)]
+                if _has_z(sel):
+                    keep(f"roi-bars/{band}/{measure}", roi.roi_bars, rt, band=band,
+                         measure=measure, atlas=area_atlas, scale=zs, dpi=dpi)
+            keep(f"roi-heatmap/{measure}", roi.roi_heatmap, rt, measure=measure,
+                 atlas=area_atlas, bands=bands, scale=zs, dpi=dpi)
+        if net is not None:
+            keep(f"networks/{measure}", roi.network_chart, rt, atlas=net, measure=measure,
+                 bands=bands, scale=zs, dpi=dpi)
+    return _run(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+
+
+def _render(func, args, kwargs, dpi):
+    """Worker: draw one figure and return its PNG bytes."""
+    return figure_png(func(*args, **kwargs), dpi=dpi)
+
+
+def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
+    """Draw the queued figures, in this process or in ``n_jobs`` forked workers."""
+    if n_jobs == 1 or not as_png or len(jobs) < 2:
+        return {key: (_render(f, a, k, dpi) if as_png else f(*a, **k))
+                for key, f, a, k in jobs}
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    from . import geometry
+
+    geometry.sulcal_depth()  # fill caches before forking so every worker shares them
+    geometry.source_positions_mni305()
+    with ProcessPoolExecutor(max_workers=n_jobs, mp_context=mp.get_context("fork")) as pool:
+        futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in jobs}
+        return {key: fut.result() for key, fut in futures.items()}
+
+
+def _edges(result, band: str) -> str:
+    lo, hi = result.bands.edges[result.bands.names.index(band)]
+    return f"{lo:g}-{hi:g} Hz"

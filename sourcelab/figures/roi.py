@@ -1,0 +1,235 @@
+"""ROI charts from the tidy ROI table: ranked z bars, band × ROI heatmap, network summary."""
+
+from __future__ import annotations
+
+import matplotlib.pyplot as plt
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure
+
+from .colours import Z_THRESHOLD, ColourScale, add_colourbar, z_scale
+
+_HEMI_ABBR = {"left": "L", "right": "R", "both": ""}
+
+
+def _label(row) -> str:
+    h = _HEMI_ABBR.get(row.hemisphere, str(row.hemisphere))
+    return f"{row.roi} {h}".strip()
+
+
+def _select(roi_table: pd.DataFrame, *, atlas: str | None, measure: str,
+            band: str | None = None) -> pd.DataFrame:
+    missing = {"atlas", "roi", "hemisphere", "band", "measure", "z"} - set(roi_table.columns)
+    if missing:
+        raise ValueError(f"roi_table: missing columns {sorted(missing)}")
+    t = roi_table[roi_table["measure"] == measure]
+    if atlas is not None:
+        t = t[t["atlas"] == atlas]
+    if band is not None:
+        t = t[t["band"] == band]
+    if t.empty:
+        raise ValueError(f"roi_table: no rows for atlas={atlas!r}, measure={measure!r}, "
+                         f"band={band!r}")
+    return t
+
+
+def _save(fig, output_file, dpi):
+    if output_file is not None:
+        fig.savefig(output_file, dpi=dpi)
+
+
+def roi_bars(roi_table: pd.DataFrame, *, band: str, measure: str = "absolute",
+             atlas: str | None = None, top: int = 30, scale: ColourScale | None = None,
+             guide: float = Z_THRESHOLD, dpi: int = 90, output_file=None) -> Figure:
+    """Horizontal bars of ROI z-scores for one band, sorted by |z| (largest at the top).
+
+    Parameters
+    ----------
+    roi_table : DataFrame
+        Tidy ROI table (:data:`sourcelab.result.ROI_COLUMNS`).
+    band, measure : str
+        Rows to show.
+    atlas : str | None
+        Atlas name; None keeps all atlases.
+    top : int
+        Number of ROIs shown (largest |z|).
+    scale : ColourScale | None
+        z scale colouring the bars (default :func:`z_scale`); the x axis spans its limits
+        (or further when a z exceeds them).
+    guide : float
+        Dashed guides at ±guide (default 1.96, the two-sided 5 % normal point: common practice).
+
+    Returns
+    -------
+    fig : matplotlib.figure.Figure
+    """
+    scale = scale or z_scale()
+    t = _select(roi_table, atlas=atlas, measure=measure, band=band)
+    t = t[np.isfinite(t["z"].astype(float))]
+    if t.empty:
+        raise ValueError(f"roi_table: no finite z for band={band!r}, measure={measure!r}")
+    t = t.assign(_abs=t["z"].abs()).sort_values("_abs", ascending=False).head(top)
+    t = t.iloc[::-1]
+    labels = [_label(r) for r in t.itertuples()]
+    z = t["z"].to_numpy(float)
+    fig = plt.figure(figsize=(6.4, 0.9 + 0.2 * len(z)), dpi=dpi)
+    ax = fig.add_axes((0.25, 0.9 / (0.9 + 0.2 * len(z)) * 0.6, 0.58, 0.2 * len(z) /
+                       (0.9 + 0.2 * len(z))))
+    sm = scale.scalar_mappable()
+    ax.barh(np.arange(len(z)), z, color=sm.to_rgba(z), edgecolor="0.3", linewidth=0.4)
+    ax.set_yticks(np.arange(len(z)), labels, fontsize=8)
+    for g in (-guide, guide):
+        ax.axvline(g, color="0.25", ls="--", lw=0.8)
+    ax.axvline(0, color="k", lw=0.8)
+    lim = max(scale.vmax, float(np.abs(z).max()) * 1.05)
+    ax.set_xlim(-lim, lim)
+    ax.set_ylim(-0.6, len(z) - 0.4)
+    ax.set_xlabel(scale.label)
+    ax.set_title(f"{band} · {measure} · ROIs ranked by |z| (dashed: ±{guide:g})", fontsize=10)
+    cax = fig.add_axes((0.87, ax.get_position().y0, 0.02, ax.get_position().height))
+    add_colourbar(fig, scale, cax=cax)
+    _save(fig, output_file, dpi)
+    return fig
+
+
+def roi_heatmap(roi_table: pd.DataFrame, *, measure: str = "absolute", atlas: str | None = None,
+                bands=None, scale: ColourScale | None = None, max_columns: int = 30,
+                dpi: int = 90, output_file=None) -> Figure:
+    """Band × ROI heatmap of z (rows: bands; columns: ROIs in table order).
+
+    With more than ``max_columns`` ROIs the map is turned: ROIs become rows, split into
+    side-by-side panels of at most 42 rows, so that every label stays readable.
+
+    Parameters
+    ----------
+    roi_table : DataFrame
+    measure : str
+    atlas : str | None
+    bands : sequence of str | None
+        Row order; default: order of first appearance in the table.
+    scale : ColourScale | None
+        z scale (default :func:`z_scale`, symmetric ±3); NaN cells are grey.
+
+    Returns
+    -------
+    fig : matplotlib.figure.Figure
+    """
+    scale = scale or z_scale()
+    t = _select(roi_table, atlas=atlas, measure=measure)
+    t = t.assign(_label=[_label(r) for r in t.itertuples()])
+    rois = list(dict.fromkeys(t["_label"]))
+    bands = list(bands) if bands is not None else list(dict.fromkeys(t["band"]))
+    grid = (t.pivot_table(index="band", columns="_label", values="z", aggfunc="first",
+                          dropna=False)
+            .reindex(index=bands, columns=rois).to_numpy(float))
+    grid_shown = np.where(np.abs(grid) < (scale.threshold or 0), np.nan, grid)
+    cmap = plt.get_cmap(scale.cmap).with_extremes(bad="0.85")
+    title = f"{measure} power: z by band and ROI" + (f" ({atlas})" if atlas else "")
+    if len(rois) > max_columns:
+        fig = _heatmap_tall(grid_shown.T, rois, bands, cmap=cmap, scale=scale, title=title,
+                            dpi=dpi)
+        _save(fig, output_file, dpi)
+        return fig
+    left, right, top_m = 1.0, 1.4, 0.45  # margins, inches
+    bottom = 0.25 + 0.065 * max(len(r) for r in rois)  # room for rotated ROI labels
+    w = max(6.0, 0.2 * len(rois)) + left + right
+    h = bottom + top_m + 0.32 * len(bands)
+    fig = plt.figure(figsize=(w, h), dpi=dpi)
+    ax = fig.add_axes((left / w, bottom / h, 1 - (left + right) / w, 1 - (bottom + top_m) / h))
+    ax.imshow(np.ma.masked_invalid(grid_shown), aspect="auto", cmap=cmap, norm=scale.norm,
+              interpolation="nearest")
+    ax.set_yticks(np.arange(len(bands)), bands, fontsize=9)
+    ax.set_xticks(np.arange(len(rois)), rois, rotation=90, fontsize=7)
+    ax.set_title(title, fontsize=10)
+    pos = ax.get_position()
+    cax = fig.add_axes((pos.x1 + 0.2 / w, pos.y0, 0.15 / w, pos.height))
+    add_colourbar(fig, scale, cax=cax)
+    _save(fig, output_file, dpi)
+    return fig
+
+
+def _heatmap_tall(grid: np.ndarray, rois, bands, *, cmap, scale, title, dpi,
+                  rows_per_panel: int = 42) -> Figure:
+    """ROI x band heatmap with ROIs as rows, in side-by-side panels of ``rows_per_panel``."""
+    n_panels = int(np.ceil(len(rois) / rows_per_panel))
+    rows = int(np.ceil(len(rois) / n_panels))
+    label_w = 0.25 + 0.07 * max(len(r) for r in rois)
+    panel_w = label_w + 0.42 * len(bands)
+    w = n_panels * panel_w + 1.6
+    h = 0.17 * rows + 1.3  # 0.3 in below, 1.0 in above for band labels and title
+    fig = plt.figure(figsize=(w, h), dpi=dpi)
+    for p in range(n_panels):
+        sl = slice(p * rows, min((p + 1) * rows, len(rois)))
+        x0 = (p * panel_w + label_w) / w
+        ax = fig.add_axes((x0, 0.3 / h, 0.42 * len(bands) / w, 0.17 * rows / h))
+        part = np.full((rows, len(bands)), np.nan)
+        part[: sl.stop - sl.start] = grid[sl]
+        ax.imshow(np.ma.masked_invalid(part), aspect="auto", cmap=cmap, norm=scale.norm,
+                  interpolation="nearest")
+        labels = list(rois[sl]) + [""] * (rows - (sl.stop - sl.start))
+        ax.set_yticks(np.arange(rows), labels, fontsize=7)
+        ax.set_xticks(np.arange(len(bands)), bands, rotation=45, ha="right", fontsize=8)
+        ax.xaxis.tick_top()
+        ax.tick_params(axis="x", labelrotation=45)
+    fig.suptitle(title, fontsize=10, y=1 - 0.08 / h, va="top")
+    cax = fig.add_axes((1 - 1.3 / w, 0.3 / h, 0.15 / w, 0.17 * rows / h))
+    add_colourbar(fig, scale, cax=cax)
+    return fig
+
+
+def network_chart(roi_table: pd.DataFrame, *, atlas: str, measure: str = "absolute", bands=None,
+                  scale: ColourScale | None = None, guide: float = Z_THRESHOLD, dpi: int = 90,
+                  output_file=None) -> Figure:
+    """Network summary: z of each network (rows) for every band (markers), with ±guide band.
+
+    Parameters
+    ----------
+    roi_table : DataFrame
+    atlas : str
+        Name of the network atlas in the table (one ROI per network and hemisphere, or "both").
+    measure : str
+    bands : sequence of str | None
+    scale : ColourScale | None
+        z scale; marker colours follow it, the x axis spans its limits.
+    guide : float
+        Shaded region |z| < guide (default 1.96: common practice).
+
+    Returns
+    -------
+    fig : matplotlib.figure.Figure
+    """
+    scale = scale or z_scale()
+    t = _select(roi_table, atlas=atlas, measure=measure)
+    t = t.assign(_label=[_label(r) for r in t.itertuples()])
+    nets = list(dict.fromkeys(t["_label"]))
+    bands = list(bands) if bands is not None else list(dict.fromkeys(t["band"]))
+    height = 1.5 + 0.32 * len(nets)
+    fig = plt.figure(figsize=(7.0, height), dpi=dpi)
+    ax = fig.add_axes((0.3, 0.6 / height, 0.52, 1.0 - 1.0 / height))
+    ax.axvspan(-guide, guide, color="0.92", zorder=0)
+    ax.axvline(0, color="k", lw=0.8)
+    markers = "osD^vP*X"
+    sm = scale.scalar_mappable()
+    zmax = scale.vmax
+    n_b = max(len(bands), 1)
+    for j, band in enumerate(bands):
+        sel = t[t["band"] == band].set_index("_label")["z"].reindex(nets).to_numpy(float)
+        y = np.arange(len(nets)) + (j - (n_b - 1) / 2) * 0.7 / n_b
+        ok = np.isfinite(sel)
+        ax.scatter(sel[ok], y[ok], c=sm.to_rgba(sel[ok]), marker=markers[j % len(markers)],
+                   edgecolors="k", linewidths=0.5, s=36, label=band, zorder=3)
+        if ok.any():
+            zmax = max(zmax, float(np.abs(sel[ok]).max()) * 1.05)
+    ax.set_xlim(-zmax, zmax)
+    ax.set_yticks(np.arange(len(nets)), nets, fontsize=8)
+    ax.set_ylim(-0.6, len(nets) - 0.4)
+    ax.invert_yaxis()
+    ax.set_xlabel(scale.label)
+    ax.set_title(f"networks ({atlas}), {measure} power: z per band (grey: |z| < {guide:g})",
+                 fontsize=10)
+    leg = ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, title="band",
+                    frameon=False)
+    for h in leg.legend_handles:
+        h.set_facecolor("0.6")
+    _save(fig, output_file, dpi)
+    return fig

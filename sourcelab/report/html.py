@@ -1,0 +1,216 @@
+"""One self-contained HTML report per analysis: inline CSS and JS, figures as base64 PNG.
+
+No external resource of any kind is referenced (no URLs, web fonts or scripts), so the file opens
+offline and can be archived as is.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import logging
+import platform
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..cautions import CAUTIONS  # noqa: F401  (re-exported for the report)
+
+logger = logging.getLogger("sourcelab")
+
+#: Section ids and titles, in order.
+SECTIONS = (
+    ("recording", "Recording summary"),
+    ("quality", "Data quality"),
+    ("sensor", "Sensor results"),
+    ("source", "Source results by band"),
+    ("roi", "ROI and network tables"),
+    ("deviations", "Candidate deviations"),
+    ("methods", "Methods and references"),
+    ("cautions", "Cautions"),
+    ("provenance", "Provenance"),
+)
+
+#: Limit of |z| for the candidate-deviation list (two-sided 5 % normal point; common practice).
+DEVIATION_Z = 1.96
+
+REFERENCES = (
+    ("Pascual-Marqui RD (2002). Standardized low-resolution brain electromagnetic tomography "
+    "(sLORETA): technical details. Methods Find Exp Clin Pharmacol 24 Suppl D:5-12."),
+    ("Fischl B, Sereno MI, Tootell RBH, Dale AM (1999). High-resolution intersubject averaging and "
+    "a coordinate system for the cortical surface. Hum Brain Mapp 8:272-284 (fsaverage template)."),
+    "Gramfort A et al. (2013). MEG and EEG data analysis with MNE-Python. Front Neurosci 7:267.",
+    ("Lancaster JL et al. (2000). Automated Talairach atlas labels for functional brain mapping. "
+    "Hum Brain Mapp 10:120-131 (Brodmann-area labels)."),
+    ("Yeo BTT et al. (2011). The organization of the human cerebral cortex estimated by intrinsic "
+    "functional connectivity. J Neurophysiol 106:1125-1165 (functional networks)."),
+    ("Benjamini Y, Hochberg Y (1995). Controlling the false discovery rate. J R Stat Soc B "
+    "57:289-300 (FDR flags, where present)."),
+    ("Fonov V et al. (2011). Unbiased average age-appropriate atlases for pediatric studies. "
+    "NeuroImage 54:313-327 (MNI152 2009 template used for volume figures)."),
+)
+
+_CSS = """
+:root{--ink:#1d2430;--muted:#5b6472;--line:#d5dae1;--band:#eef2f6;--accent:#2f5d62}
+*{box-sizing:border-box}
+body{margin:0;font:14px/1.5 system-ui,-apple-system,"Segoe UI",Roboto,sans-serif;color:var(--ink);
+background:#f7f8fa}
+header{background:var(--accent);color:#fff;padding:18px 28px}
+header h1{margin:0;font-size:22px;font-weight:600}
+header p{margin:4px 0 0;opacity:.85}
+nav{padding:10px 28px;background:#fff;border-bottom:1px solid var(--line);position:sticky;top:0;
+z-index:2}
+nav a{color:var(--accent);margin-right:14px;text-decoration:none;font-size:13px}
+main{max-width:1180px;margin:0 auto;padding:10px 20px 40px}
+section{background:#fff;border:1px solid var(--line);border-radius:6px;margin:18px 0;
+padding:6px 20px 16px}
+h2{font-size:18px;border-bottom:2px solid var(--band);padding-bottom:4px}
+h3{font-size:15px;color:var(--muted);margin-bottom:4px}
+figure{margin:8px 0 14px}
+figure img{max-width:100%;height:auto;border:1px solid var(--band)}
+figcaption{color:var(--muted);font-size:12px}
+table{border-collapse:collapse;font-size:12.5px;margin:6px 0 12px}
+th,td{border-bottom:1px solid var(--line);padding:3px 8px;text-align:left;vertical-align:top}
+th{background:var(--band);position:sticky;top:38px}
+table.sortable th{cursor:pointer}
+table.sortable th:after{content:" \\2195";color:#9aa3ad;font-size:11px}
+td.num{text-align:right;font-variant-numeric:tabular-nums}
+tr.hi td{background:#fbeaea}tr.lo td{background:#e8f0fb}
+.kv th{width:240px;position:static}
+.caution{border-left:4px solid #b5651d;background:#fdf6ee;padding:8px 12px;margin:8px 0}
+.note{color:var(--muted);font-size:12.5px}
+details summary{cursor:pointer;color:var(--accent);margin:6px 0}
+.bandgrid{display:grid;grid-template-columns:1fr;gap:4px}
+"""
+
+_JS = """
+document.querySelectorAll('table.sortable').forEach(function(t){
+ t.querySelectorAll('th').forEach(function(th,i){th.addEventListener('click',function(){
+  var b=t.tBodies[0],rows=Array.prototype.slice.call(b.rows),asc=th.dataset.asc!=='1';
+  th.dataset.asc=asc?'1':'0';
+  rows.sort(function(x,y){var a=x.cells[i].textContent,c=y.cells[i].textContent,
+   p=parseFloat(a),q=parseFloat(c);
+   var r=(!isNaN(p)&&!isNaN(q))?p-q:a.localeCompare(c);return asc?r:-r;});
+  rows.forEach(function(r){b.appendChild(r);});});});});
+"""
+
+
+def _esc(x) -> str:
+    return html.escape(str(x), quote=True)
+
+
+def _fmt(v) -> tuple[str, bool]:
+    """Format one table cell; returns (text, is_number)."""
+    if isinstance(v, (bool, np.bool_)):
+        return ("yes" if v else "no"), False
+    if isinstance(v, (int, np.integer)):
+        return str(int(v)), True
+    if isinstance(v, (float, np.floating)):
+        if not np.isfinite(v):
+            return "–", True
+        return (f"{v:.3g}" if abs(v) < 1e-2 or abs(v) >= 1e4 else f"{v:.3f}"), True
+    return _esc(v), False
+
+
+def table_html(df: pd.DataFrame, *, sortable: bool = True, max_rows: int = 5000,
+               z_column: str | None = "z") -> str:
+    """An HTML table from a DataFrame; rows with |z| > 1.96 get a class for shading."""
+    if len(df) > max_rows:
+        logger.info("table truncated to %d of %d rows in the report", max_rows, len(df))
+        df = df.head(max_rows)
+    cls = ' class="sortable"' if sortable else ""
+    head = "".join(f"<th>{_esc(c)}</th>" for c in df.columns)
+    body = []
+    zi = list(df.columns).index(z_column) if z_column in df.columns else None
+    for row in df.itertuples(index=False):
+        rc = ""
+        if zi is not None:
+            z = row[zi]
+            if isinstance(z, (float, np.floating)) and np.isfinite(z) and abs(z) > DEVIATION_Z:
+                rc = ' class="hi"' if z > 0 else ' class="lo"'
+        cells = []
+        for v in row:
+            txt, num = _fmt(v)
+            cells.append(f'<td class="num">{txt}</td>' if num else f"<td>{txt}</td>")
+        body.append(f"<tr{rc}>{''.join(cells)}</tr>")
+    return f"<table{cls}><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+def kv_table(d: dict) -> str:
+    rows = []
+    for k, v in d.items():
+        if isinstance(v, dict):
+            v = ", ".join(f"{a}: {_fmt(b)[0]}" for a, b in v.items())
+            rows.append(f"<tr><th>{_esc(k)}</th><td>{v}</td></tr>")
+        else:
+            rows.append(f"<tr><th>{_esc(k)}</th><td>{_fmt(v)[0]}</td></tr>")
+    return f'<table class="kv"><tbody>{"".join(rows)}</tbody></table>'
+
+
+def _png_bytes(fig) -> bytes:
+    """PNG bytes from bytes, a path to a PNG, or a matplotlib Figure (closed afterwards)."""
+    if isinstance(fig, (bytes, bytearray)):
+        data = bytes(fig)
+    elif isinstance(fig, (str, Path)):
+        data = Path(fig).read_bytes()
+    elif hasattr(fig, "savefig"):
+        from ..figures.figure_set import figure_png
+
+        data = figure_png(fig, dpi=90)
+    else:
+        raise TypeError(f"figures: values must be PNG bytes, a PNG path or a Figure, "
+                        f"got {type(fig).__name__}")
+    if not data.startswith(b"\x89PNG\r\n\x1a\n"):
+        raise ValueError("figures: image is not a PNG")
+    return data
+
+
+def img_html(fig, *, caption: str = "", alt: str = "") -> str:
+    b64 = base64.b64encode(_png_bytes(fig)).decode("ascii")
+    cap = f"<figcaption>{_esc(caption)}</figcaption>" if caption else ""
+    return (f'<figure><img alt="{_esc(alt or caption)}" src="data:image/png;base64,{b64}">'
+            f"{cap}</figure>")
+
+
+def _versions() -> dict:
+    import importlib.metadata as md
+
+    out = {"python": platform.python_version()}
+    for pkg in ("sourcelab", "mne", "nilearn", "numpy", "scipy", "nibabel", "matplotlib",
+                "pandas"):
+        try:
+            out[pkg] = md.version(pkg)
+        except md.PackageNotFoundError:
+            out[pkg] = "not installed"
+    return out
+
+
+def deviations(roi_table: pd.DataFrame, sensor_table: pd.DataFrame | None = None, *,
+               z_limit: float = DEVIATION_Z) -> pd.DataFrame:
+    """Rows with |z| > z_limit from the ROI (and sensor) tables, sorted by |z| descending.
+
+    FDR columns (any column whose name contains ``fdr``) are kept when present.
+    """
+    parts = []
+    for kind, t in (("ROI", roi_table), ("sensor", sensor_table)):
+        if t is None or "z" not in t.columns or t.empty:
+            continue
+        z = t["z"].astype(float)
+        sel = t[np.isfinite(z) & (z.abs() > z_limit)].copy()
+        if sel.empty:
+            continue
+        if kind == "sensor":
+            sel = sel.rename(columns={"channel": "roi"})
+            sel["atlas"] = "10-20 sites"
+            sel["hemisphere"] = ""
+        sel.insert(0, "level", kind)
+        parts.append(sel)
+    if not parts:
+        return pd.DataFrame(columns=["level", "atlas", "roi", "hemisphere", "band", "measure",
+                                     "value", "z"])
+    d = pd.concat(parts, ignore_index=True)
+    fdr = [c for c in d.columns if "fdr" in str(c).lower()]
+    cols = ["level", "atlas", "roi", "hemisphere", "band", "measure", "value", "unit", "z"] + fdr
+    d = d[[c for c in cols if c in d.columns]]
+    return d.reindex(d["z"].abs().sort_values(ascending=False).index).reset_index(drop=True)

@@ -1,0 +1,86 @@
+"""Open-format exports: STC (MNE), GIfTI (nibabel), NIfTI (MNI152), BIDS derivatives."""
+
+import json
+
+import mne
+import nibabel as nib
+import numpy as np
+import pytest
+
+from sourcelab import exports
+from sourcelab.errors import InputError
+from sourcelab.figures.demo import demo_result
+
+
+@pytest.fixture(scope="module")
+def result():
+    return demo_result(seed=2)
+
+
+def test_stc_reads_back_with_mne(result, tmp_path):
+    stems = exports.export_stc(result, tmp_path)
+    assert len(stems) == 2 * len(result.bands.names)
+    # MNE-Python is the reference reader of its own format
+    stc = mne.read_source_estimate(f"{stems[2]}-lh.stc", subject="fsaverage")
+    assert [len(v) for v in stc.vertices] == [10242, 10242]
+    np.testing.assert_array_equal(stc.vertices[0], np.arange(10242))
+    np.testing.assert_allclose(stc.data[:, 0], result.source_map(result.bands.names[2]),
+                               rtol=1e-6)  # .stc stores float32, our maps are float32
+    stc_rel = mne.read_source_estimate(f"{stems[-1]}-rh.stc", subject="fsaverage")
+    np.testing.assert_allclose(stc_rel.data[:, 0],
+                               result.source_map(result.bands.names[-1], "relative"), rtol=1e-6)
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]  # no temp folder left
+
+
+def test_gifti_round_trip(result, tmp_path):
+    paths = exports.export_gifti(result, tmp_path, measures=("absolute",))
+    assert [p.name for p in paths] == ["absolute.L.func.gii", "absolute.R.func.gii"]
+    for h, p in enumerate(paths):
+        img = nib.load(p)
+        assert [d.meta["Name"] for d in img.darrays] == list(result.bands.names)
+        data = np.stack([d.data for d in img.darrays])
+        np.testing.assert_array_equal(data, result.source_abs[:, h * 10242:(h + 1) * 10242])
+
+
+def test_nifti_occipital_source_peaks_occipital(result, tmp_path):
+    # the invented alpha blob sits on the most posterior left source; the occipital pole lies at
+    # MNI y ~ -100 and BA17's centroid at (-11, -89, 2) (Lancaster et al. 2000, Hum Brain Mapp
+    # 10:120-131, Talairach-atlas Brodmann volume, via DATA-SOURCES.md)
+    band = result.bands.names.index("alpha")
+    for res in (2, 3):
+        path = exports.export_nifti(result, tmp_path / f"r{res}", measures=("absolute",),
+                                    resolution=res)[band]
+        img = nib.load(path)
+        assert np.allclose(np.abs(np.diag(img.affine)[:3]), res)
+        data = np.asarray(img.dataobj)
+        peak = nib.affines.apply_affine(img.affine, np.unravel_index(np.argmax(data), data.shape))
+        assert peak[1] < -60, peak
+        assert peak[0] < 0, peak  # left hemisphere
+        assert (data > 0).sum() > 20000 / res**3  # cortex is filled, not just a few voxels
+        # outside the brain stays empty (corner voxel)
+        assert data[0, 0, 0] == 0
+
+
+def test_bids_derivatives(result, tmp_path):
+    sub = exports.export_bids_derivatives(result, tmp_path, "../../evil id#7")
+    assert sub == tmp_path / "derivatives" / "sourcelab" / "sub-evilid7"
+    desc = json.loads((sub.parent / "dataset_description.json").read_text())
+    # BIDS 1.9 derivatives: DatasetType "derivative" and GeneratedBy are required
+    assert desc["DatasetType"] == "derivative" and desc["GeneratedBy"][0]["Name"] == "sourcelab"
+    files = sorted(p.name for p in (sub / "eeg").iterdir())
+    assert "sub-evilid7_space-fsaverage5_hemi-L_desc-absolute_power.func.gii" in files
+    assert "sub-evilid7_desc-roi_power.tsv" in files
+    assert sum(f.endswith(".nii.gz") for f in files) == 2 * len(result.bands.names)
+    import pandas as pd
+
+    roi = pd.read_csv(sub / "eeg" / "sub-evilid7_desc-roi_power.tsv", sep="\t")
+    assert len(roi) == len(result.roi_table)
+    assert not list(tmp_path.parent.glob("evil*"))  # nothing escaped the root
+    with pytest.raises(InputError):
+        exports.export_bids_derivatives(result, tmp_path, "../..")
+
+
+def test_failed_export_leaves_nothing(result, tmp_path):
+    with pytest.raises(ValueError, match="measure"):
+        exports.export_nifti(result, tmp_path, measures=("absolute", "loudness"), resolution=3)
+    assert list(tmp_path.iterdir()) == []

@@ -1,0 +1,215 @@
+"""Figures: content checks on the Agg backend (axes hold data, z limits symmetric, bars labelled)."""
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt
+import numpy as np
+import pytest
+from matplotlib.figure import Figure
+
+from sourcelab.figures import (
+    MNI305_TO_MNI152,
+    Z_CMAP,
+    glass_brain,
+    network_chart,
+    power_scale,
+    result_figures,
+    roi_bars,
+    roi_heatmap,
+    sensor_info,
+    sensor_topomaps,
+    source_positions_mni305,
+    surface_views,
+    z_scale,
+)
+from sourcelab.figures.demo import DEMO_ATLAS, DEMO_NETWORKS, demo_result
+
+
+@pytest.fixture(scope="module")
+def result():
+    return demo_result(seed=1)
+
+
+@pytest.fixture(autouse=True)
+def _close_figures():
+    yield
+    plt.close("all")
+
+
+def _colourbar_axes(fig):
+    """Axes holding a colour bar (matplotlib marks them with ``_colorbar``)."""
+    return [ax for ax in fig.axes if getattr(ax, "_colorbar", None) is not None]
+
+
+def _has_data(ax) -> bool:
+    return bool(ax.images or ax.collections or ax.patches)
+
+
+def _check_colourbar(fig, expect_label: str, *, symmetric: bool):
+    cbs = _colourbar_axes(fig)
+    assert len(cbs) == 1
+    cb = cbs[0]._colorbar
+    assert expect_label in cb.ax.get_ylabel() + cb.ax.get_xlabel()
+    lo, hi = cb.mappable.norm.vmin, cb.mappable.norm.vmax
+    if symmetric:
+        assert lo == -hi and hi > 0
+    else:
+        assert hi > lo
+
+
+def test_z_scale_is_symmetric_and_shared():
+    # common practice: z maps on a diverging scale centred on 0, same limits for every band
+    s = z_scale(limit=2.5, threshold=1.96)
+    assert (s.vmin, s.vmax, s.cmap) == (-2.5, 2.5, Z_CMAP)
+    assert "z-score" in s.label
+    with pytest.raises(ValueError, match="z limit"):
+        z_scale(limit=0)
+    with pytest.raises(ValueError, match="threshold"):
+        z_scale(limit=2, threshold=3)
+    with pytest.raises(ValueError, match="measure"):
+        power_scale(np.ones(3), measure="loudness")
+
+
+def test_power_scale_uses_robust_maximum():
+    v = np.r_[np.linspace(0, 1, 1000), 1e6]  # one outlier must not set the top of the scale
+    s = power_scale(v, measure="absolute")
+    assert 0 < s.vmin < 0.02 and 0.9 < s.vmax < 1.01
+    assert "power" in s.label
+
+
+def test_mni305_to_mni152_is_a_small_correction():
+    # FreeSurfer wiki "CoordinateSystems": MNI305 and MNI152 differ by ~1-2 mm (from memory)
+    A = MNI305_TO_MNI152
+    assert abs(np.linalg.det(A[:3, :3]) - 1) < 0.02
+    assert np.linalg.norm(A[:3, 3]) < 3
+    pos = source_positions_mni305()
+    assert pos.shape == (20484, 3)
+    # left hemisphere first: left sources have negative x on average
+    assert pos[:10242, 0].mean() < -20 and pos[10242:, 0].mean() > 20
+
+
+def test_glass_brain_z(result):
+    zmap = np.where(np.arange(20484) < 10242, 2.5, -2.5)
+    fig = glass_brain(zmap, scale=z_scale(limit=3), title="z", display_mode="lyrz")
+    assert isinstance(fig, Figure)
+    data_axes = [ax for ax in fig.axes if ax not in _colourbar_axes(fig) and ax.images]
+    assert len(data_axes) == 4  # l, y, r, z projections each hold an image
+    _check_colourbar(fig, "z-score", symmetric=True)
+    for ax in data_axes:
+        clim = ax.images[0].get_clim()
+        assert clim[0] == -clim[1] == -3
+
+
+def test_glass_brain_power_and_bad_input(result, tmp_path):
+    out = tmp_path / "g.png"
+    v = result.source_map("alpha")
+    fig = glass_brain(v, scale=power_scale(v), display_mode="ortho", output_file=out)
+    assert out.stat().st_size > 1000
+    _check_colourbar(fig, "sLORETA power", symmetric=False)
+    with pytest.raises(ValueError, match="20484"):
+        glass_brain(np.ones(100), scale=power_scale())
+    with pytest.raises(ValueError, match="display_mode"):
+        glass_brain(v, scale=power_scale(v), display_mode="sideways")
+
+
+def test_surface_views(result):
+    v = result.source_map("alpha", "relative")
+    labels = np.repeat(np.arange(4), 20484 // 4 + 1)[:20484]
+    fig = surface_views(v, scale=power_scale(v, measure="relative"), outline=labels)
+    axes3d = [ax for ax in fig.axes if ax.name == "3d"]
+    assert len(axes3d) == 4 and all(ax.collections for ax in axes3d)
+    # the outline adds a second collection (parcel borders) to the views that show a border
+    assert any(len(ax.collections) > 1 for ax in axes3d)
+    _check_colourbar(fig, "relative power", symmetric=False)
+    fz = surface_views(v * 0 + 2.5, scale=z_scale(threshold=1.96))
+    _check_colourbar(fz, "z-score", symmetric=True)
+
+
+def test_sensor_topomaps(result):
+    info = sensor_info(result.ch_names)
+    pos = np.array([info["chs"][i]["loc"][:3] for i in range(len(result.ch_names))])
+    # MNE's fsaverage-fitted montage: O1 is posterior of Fp1 (y in metres, head frame)
+    assert pos[result.ch_names.index("O1"), 1] < pos[result.ch_names.index("Fp1"), 1]
+    fig = sensor_topomaps(result.sensor_abs, band_names=result.bands.names,
+                          scale=power_scale(result.sensor_abs, measure="sensor_absolute"))
+    maps = [ax for ax in fig.axes if ax.images]
+    assert len(maps) == len(result.bands.names)
+    _check_colourbar(fig, "µV²", symmetric=False)
+    z = np.zeros((5, 19))
+    fz = sensor_topomaps(z, band_names=result.bands.names, scale=z_scale())
+    _check_colourbar(fz, "z-score", symmetric=True)
+    with pytest.raises(ValueError, match="n_bands"):
+        sensor_topomaps(z[:2], band_names=result.bands.names, scale=z_scale())
+
+
+def test_roi_bars_sorted_by_abs_z(result):
+    fig = roi_bars(result.roi_table, band="alpha", atlas=DEMO_ATLAS, scale=z_scale())
+    ax = next(a for a in fig.axes if a.patches)
+    widths = [p.get_width() for p in ax.patches]
+    # bars are drawn bottom-up, so |z| must be increasing along the list
+    assert np.all(np.diff(np.abs(widths)) >= 0)
+    assert max(widths) == pytest.approx(3.4)  # the invented occipital deviation
+    lo, hi = ax.get_xlim()
+    assert lo == -hi
+    guides = sorted(round(line.get_xdata()[0], 2) for line in ax.lines if line.get_linestyle() == "--")
+    assert guides == [-1.96, 1.96]
+    _check_colourbar(fig, "z-score", symmetric=True)
+
+
+def test_roi_heatmap_and_networks(result):
+    fig = roi_heatmap(result.roi_table, measure="absolute", atlas=DEMO_ATLAS)
+    ax = next(a for a in fig.axes if a.images)
+    assert ax.images[0].get_array().shape == (5, 10)  # 5 bands x 10 ROIs
+    assert ax.images[0].norm.vmin == -ax.images[0].norm.vmax
+    _check_colourbar(fig, "z-score", symmetric=True)
+    fn = network_chart(result.roi_table, atlas=DEMO_NETWORKS, measure="absolute")
+    ax = fn.axes[0]
+    assert len(ax.collections) == 5  # one marker set per band
+    lo, hi = ax.get_xlim()
+    assert lo == -hi
+    with pytest.raises(ValueError, match="no rows"):
+        network_chart(result.roi_table, atlas="nonexistent")
+
+
+def test_roi_heatmap_many_rois_turns_to_rows():
+    import pandas as pd
+
+    rows = [("a", f"R{i}", "left", b, "absolute", 1.0, "u", 10, False, (i % 7) - 3.0)
+            for i in range(60) for b in ("theta", "alpha")]
+    t = pd.DataFrame(rows, columns=["atlas", "roi", "hemisphere", "band", "measure", "value",
+                                    "unit", "n_vertices", "small", "z"])
+    fig = roi_heatmap(t, measure="absolute")
+    panels = [a for a in fig.axes if a.images]
+    assert len(panels) == 2  # 60 ROIs -> two panels of 30 rows, 2 band columns each
+    assert all(a.images[0].get_array().shape == (30, 2) for a in panels)
+    assert panels[1].get_yticklabels()[-1].get_text() == "R59 L"
+    _check_colourbar(fig, "z-score", symmetric=True)
+
+
+def test_result_figures_keys(result):
+    figs = result_figures(result, surfaces=False, measures=("absolute",), resolution=3,
+                          z_map_atlas=None, bands=("theta", "alpha"))
+    names = ("theta", "alpha")
+    expected = ({f"glass/{b}/absolute" for b in names} | {f"roi-bars/{b}/absolute" for b in names}
+                | {"topomap/absolute", "topomap-z/absolute", "roi-heatmap/absolute",
+                   "networks/absolute"})
+    assert set(figs) == expected
+    assert all(v.startswith(b"\x89PNG") for v in figs.values())
+    no_z = result_figures(demo_result(with_z=False), surfaces=False, measures=("relative",),
+                          resolution=3, bands=("alpha",))
+    assert set(no_z) == {"glass/alpha/relative", "topomap/relative"}
+    with pytest.raises(ValueError, match="bands"):
+        result_figures(result, bands=("gamma",))
+
+
+def test_result_figures_in_worker_processes(result):
+    parallel = result_figures(result, n_jobs=2, surfaces=False, measures=("absolute",),
+                              resolution=3, z_map_atlas=None, bands=("alpha",))
+    assert set(parallel) == {"glass/alpha/absolute", "roi-bars/alpha/absolute",
+                             "topomap/absolute", "topomap-z/absolute", "roi-heatmap/absolute",
+                             "networks/absolute"}
+    assert all(v.startswith(b"\x89PNG") for v in parallel.values())
+    with pytest.raises(ValueError, match="n_jobs"):
+        result_figures(result, n_jobs=0)
