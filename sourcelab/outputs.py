@@ -47,6 +47,17 @@ def provenance(result: AnalysisResult, *, command: list[str] | None = None) -> d
     }
 
 
+def _finite(o):
+    """Replace NaN/inf by None (JSON has no NaN) throughout nested dicts and lists."""
+    if isinstance(o, dict):
+        return {k: _finite(v) for k, v in o.items()}
+    if isinstance(o, (list, tuple)):
+        return [_finite(v) for v in o]
+    if isinstance(o, (float, np.floating)) and not np.isfinite(o):
+        return None
+    return o
+
+
 def _json_default(o):
     if isinstance(o, (np.floating, np.integer)):
         return o.item()
@@ -64,8 +75,8 @@ def write_tables(result: AnalysisResult, folder: Path, *, command=None) -> None:
     result.sensor_table.to_csv(folder / "sensor_table.tsv", sep="\t", index=False, na_rep="",
                                float_format="%.6g")
     with open(folder / "provenance.json", "w", encoding="utf-8") as f:
-        json.dump(provenance(result, command=command), f, indent=2, default=_json_default,
-)
+        json.dump(_finite(provenance(result, command=command)), f, indent=2,
+                  default=_json_default, allow_nan=False)
 
 
 def write_analysis(result: AnalysisResult, out: str | Path, *, figures: bool = True,
