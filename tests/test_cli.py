@@ -35,7 +35,7 @@ def test_analyze_writes_tables_and_provenance(sim_edf, tmp_path, capsys):
     prov = json.loads((out / "provenance.json").read_text())
     assert prov["fingerprint"]["method"] == "sLORETA"
     assert len(prov["inputs"]["recording"]["sha256"]) == 64
-    assert "not a diagnostic device" in capsys.readouterr().out
+    assert "not a diagnostic device" in capsys.readouterr().out  # the cautions line
 
 
 def _bad(args, tmp_path, capsys, match):

@@ -18,6 +18,7 @@ COMMANDS = {
     "norms": "sourcelab.cli.norms",
     "targets": "sourcelab.cli.targets",
     "leakage": "sourcelab.cli.leakage",
+    "batch": "sourcelab.cli.batch",
 }
 
 #: ``sourcelab targets RESULT_DIR`` is short for ``sourcelab targets list RESULT_DIR``

@@ -1,0 +1,257 @@
+"""Execution engines: one interface over in-process, process-pool and Dask execution.
+
+Every engine runs a module-level function on one small, picklable task at a time and hands back a
+small result; :func:`run_unordered` keeps a bounded number of tasks in flight and yields results as
+they finish, so the same batch code runs serially, on the cores of one machine, or on a Dask
+cluster.
+
+Engines (dispatch table :data:`ENGINES`):
+
+``serial``
+    In the calling process (no pickling; easiest to debug).
+``processes``
+    :class:`concurrent.futures.ProcessPoolExecutor` with ``spawn`` workers, one BLAS thread each.
+``dask``
+    A ``distributed.Client`` on an existing scheduler (``address``) or on a ``LocalCluster`` of
+    ``workers`` single-threaded worker processes.  Needs the optional ``dask[distributed]``.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import itertools
+import logging
+import multiprocessing
+import os
+from collections.abc import Callable, Iterable, Iterator
+from typing import Any
+
+from ..errors import InputError
+
+log = logging.getLogger("sourcelab")
+
+DASK_MISSING = ("the Dask engine needs dask[distributed], which is not installed; "
+                "install it with: pip install 'sourcelab[dist]'")
+
+
+def _init_worker(log_level: int = logging.ERROR) -> None:
+    """Worker initialiser: one BLAS thread per worker process (workers == cores), and the
+    ``sourcelab`` log level of the parent (per-recording warnings are in each provenance.json)."""
+    logger = logging.getLogger("sourcelab")
+    logger.setLevel(log_level)
+    if not logger.handlers:
+        h = logging.StreamHandler()
+        h.setFormatter(logging.Formatter(f"sourcelab[{os.getpid()}]: %(levelname)s: %(message)s"))
+        logger.addHandler(h)
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - optional; BLAS then picks its own thread count
+        return
+    threadpool_limits(1)
+
+
+class Engine:
+    """Common interface: ``submit(fn, task) -> future``, ``wait_first(futures)``, ``close()``."""
+
+    kind = "base"
+    n_workers = 1
+
+    def submit(self, fn: Callable, task: Any):
+        raise NotImplementedError
+
+    def wait_first(self, futures: set) -> tuple[set, set]:
+        """Block until at least one future is done; return ``(done, not_done)``."""
+        done, pending = cf.wait(futures, return_when=cf.FIRST_COMPLETED)
+        return set(done), set(pending)
+
+    def result(self, future):
+        return future.result()
+
+    def close(self) -> None:
+        pass
+
+    def describe(self) -> str:
+        return f"{self.kind} ({self.n_workers} worker{'s' if self.n_workers != 1 else ''})"
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+class _Deferred:
+    """A task run in the calling process when it is first waited for."""
+
+    _counter = itertools.count()
+
+    def __init__(self, fn, task):
+        self.fn, self.task, self.done, self.value, self.error = fn, task, False, None, None
+        self.order = next(self._counter)
+
+    def run(self):
+        if not self.done:
+            try:
+                self.value = self.fn(self.task)
+            except Exception as exc:  # handed to the caller like a worker's exception
+                self.error = exc
+            self.done = True
+
+
+class SerialEngine(Engine):
+    """Run each task in the calling process."""
+
+    kind = "serial"
+
+    def submit(self, fn, task):
+        return _Deferred(fn, task)
+
+    def wait_first(self, futures):
+        first = min(futures, key=lambda f: f.order)
+        first.run()
+        return {first}, set(futures) - {first}
+
+    def result(self, future):
+        future.run()
+        if future.error is not None:
+            raise future.error
+        return future.value
+
+
+class ProcessEngine(Engine):
+    """``ProcessPoolExecutor`` with ``spawn`` workers (same behaviour on Linux, macOS, Windows)."""
+
+    kind = "processes"
+
+    def __init__(self, n_workers: int, *, log_level: int = logging.ERROR):
+        if n_workers < 1:
+            raise InputError(f"workers: must be >= 1, got {n_workers}")
+        self.n_workers = int(n_workers)
+        self._pool = cf.ProcessPoolExecutor(
+            max_workers=self.n_workers, mp_context=multiprocessing.get_context("spawn"),
+            initializer=_init_worker, initargs=(log_level,))
+
+    def submit(self, fn, task):
+        return self._pool.submit(fn, task)
+
+    def close(self):
+        self._pool.shutdown(wait=True, cancel_futures=True)
+
+
+class DaskEngine(Engine):
+    """A Dask ``distributed`` client on a scheduler address or on a local cluster.
+
+    Parameters
+    ----------
+    address : str, optional
+        Scheduler address (``tcp://host:8786``).  Workers must be able to import the same
+        sourcelab version and to read the input and write the output paths.
+    n_workers : int
+        Local cluster size when no address is given (one thread per worker).
+    processes : bool
+        Local cluster workers as processes (default) or as threads of this process.
+    """
+
+    kind = "dask"
+
+    def __init__(self, address: str | None = None, *, n_workers: int = 1,
+                 processes: bool = True):
+        try:
+            import distributed
+        except ImportError:
+            raise InputError(DASK_MISSING) from None
+        self._dist = distributed
+        self._cluster = None
+        if address:
+            try:
+                self._client = distributed.Client(address, timeout="20s")
+            except (OSError, TimeoutError) as exc:
+                raise InputError(f"cannot reach the Dask scheduler ({exc})", path=address) \
+                    from None
+        else:
+            if n_workers < 1:
+                raise InputError(f"workers: must be >= 1, got {n_workers}")
+            # loopback only; threads (processes=False) talk in-process and take no host
+            where = {"host": "127.0.0.1"} if processes else {}
+            self._cluster = distributed.LocalCluster(
+                n_workers=int(n_workers), threads_per_worker=1, processes=processes,
+                dashboard_address=None, **where)
+            self._client = distributed.Client(self._cluster)
+        self.address = self._client.scheduler.address
+
+    @property
+    def n_workers(self) -> int:
+        """Worker threads on the cluster now (workers may join a remote scheduler later)."""
+        return max(1, sum(self._client.nthreads().values()))
+
+    def submit(self, fn, task):
+        return self._client.submit(fn, task, pure=False)
+
+    def wait_first(self, futures):
+        done, pending = self._dist.wait(list(futures), return_when="FIRST_COMPLETED")
+        return set(done), set(pending)
+
+    def describe(self):
+        where = "local cluster" if self._cluster is not None else self.address
+        return f"dask, {where} ({self.n_workers} worker threads)"
+
+    def close(self):
+        self._client.close()
+        if self._cluster is not None:
+            self._cluster.close()
+
+
+#: engine name -> factory(workers, scheduler, log_level)
+ENGINES: dict[str, Callable[..., Engine]] = {
+    "serial": lambda workers, scheduler, log_level: SerialEngine(),
+    "processes": lambda workers, scheduler, log_level: ProcessEngine(workers,
+                                                                     log_level=log_level),
+    "dask": lambda workers, scheduler, log_level: DaskEngine(scheduler, n_workers=workers),
+}
+
+
+def make_engine(kind: str | None = None, *, workers: int = 1, scheduler: str | None = None,
+                log_level: int = logging.ERROR) -> Engine:
+    """An engine by name; ``None`` picks ``dask`` with a scheduler, ``serial`` for one worker,
+    else ``processes``.  ``log_level`` is the ``sourcelab`` log level in worker processes."""
+    if kind is None:
+        kind = "dask" if scheduler else ("serial" if workers <= 1 else "processes")
+    if kind not in ENGINES:
+        raise InputError(f"engine: {kind!r} is not one of {', '.join(ENGINES)}")
+    if scheduler and kind != "dask":
+        raise InputError(f"--scheduler needs the dask engine, not {kind!r}")
+    if workers < 1:
+        raise InputError(f"workers: must be >= 1, got {workers}")
+    return ENGINES[kind](workers, scheduler, log_level)
+
+
+def run_unordered(engine: Engine, fn: Callable, tasks: Iterable, *,
+                  max_in_flight: int | None = None) -> Iterator[tuple[int, Any, BaseException | None]]:
+    """Run ``fn(task)`` for every task; yield ``(index, result, error)`` as tasks finish.
+
+    At most ``max_in_flight`` tasks (default ``2 * n_workers``) are submitted at once, so
+    memory does not grow with the number of tasks.  A task whose worker raised (or died) yields
+    its exception as ``error`` and the others go on.
+    """
+    it = iter(enumerate(tasks))
+    pending: dict = {}
+    exhausted = False
+    while True:
+        limit = max_in_flight or 2 * engine.n_workers
+        while not exhausted and len(pending) < limit:
+            try:
+                i, task = next(it)
+            except StopIteration:
+                exhausted = True
+                break
+            pending[engine.submit(fn, task)] = i
+        if not pending:
+            return
+        done, _ = engine.wait_first(set(pending))
+        for fut in sorted(done, key=lambda f: pending[f]):
+            i = pending.pop(fut)
+            try:
+                res, err = engine.result(fut), None
+            except Exception as exc:  # worker error, broken pool, lost Dask worker
+                res, err = None, exc
+            yield i, res, err
