@@ -106,6 +106,14 @@ def write_analysis_into(result: AnalysisResult, folder: Path, *, figures: bool =
                        lambda2=cfg.lambda2)
     leak.to_tsv(folder / "leakage_brodmann.tsv")
     extra = []
+    if figures:
+        from .figures import figure_png
+        from .trust import plot_leakage
+
+        png = figure_png(plot_leakage(leak))  # closes the figure
+        (folder / "leakage_brodmann.png").write_bytes(png)
+        extra.append(("Leakage between Brodmann areas (share of each row ROI's expected power "
+                      "coming from each column ROI; sLORETA resolution matrix)", png))
     has_z = bool(result.roi_table["z"].notna().any())
     if has_z:
         from .targets import candidates_for_table, write_candidates

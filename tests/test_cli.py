@@ -93,3 +93,22 @@ def test_failed_rerun_keeps_previous_output(sim_edf, tmp_path, capsys):
     before = (out / "roi_table.tsv").read_bytes()
     assert main(["analyze", str(tmp_path / "missing.edf"), "--out", str(out)]) == 2
     assert (out / "roi_table.tsv").read_bytes() == before
+
+
+def test_analyze_custom_rois_and_bids(sim_edf, tmp_path):
+    # User-defined ROIs are reported under their own atlas name; a BIDS-derivatives copy is written
+    # with the participant label made safe for file names (BIDS derivatives convention).
+    rois = tmp_path / "mine.toml"
+    rois.write_text('name = "mine"\n[[roi]]\nname = "left-dlpfc"\nkind = "sphere"\n'
+                    'center = [-40.0, 30.0, 30.0]\nradius_mm = 12.0\nhemisphere = "left"\n')
+    out = tmp_path / "res"
+    bids = tmp_path / "bids"
+    assert main(["analyze", str(sim_edf), "--out", str(out), "--no-figures", "--no-report",
+                 "--no-maps", "--rois", str(rois), "--bids-root", str(bids),
+                 "--participant-id", "../x 01"]) == 0
+    t = pd.read_csv(out / "roi_table.tsv", sep="\t")
+    mine = t[t.atlas == "mine"]
+    assert set(mine.roi) == {"left-dlpfc"} and len(mine) == 10  # 5 bands x 2 measures
+    assert (bids / "derivatives" / "sourcelab" / "dataset_description.json").is_file()
+    subs = [p.name for p in (bids / "derivatives" / "sourcelab").glob("sub-*")]
+    assert subs == ["sub-x01"]

@@ -116,3 +116,30 @@ def test_whitener_and_errors(rng):
         sloreta_kernel(g, lambda2=0.0)
     with pytest.raises(InputError, match="3 columns"):
         sloreta_kernel(g[:, :29], lambda2=0.1, orientation="free")
+
+
+@pytest.mark.parametrize("method", ["dSPM", "eLORETA"])
+def test_mne_methods_power_matches_apply_inverse_cov(head_model, rng, method):
+    # eLORETA (Pascual-Marqui 2007, arXiv:0710.3341, from memory) and dSPM (Dale et al. 2000,
+    # Neuron 26:55-67) come from MNE-Python; sourcelab turns them into a kernel and computes power
+    # from cross-spectra.  Reference: mne.minimum_norm.apply_inverse_cov on the same covariance.
+    import mne
+
+    from sourcelab.headmodel import to_mne_forward
+    from sourcelab.inverse.methods import info_with_average_reference, make_operator
+
+    info = info_with_average_reference(256.0)
+    fwd = to_mne_forward(head_model, info)
+    n = 19
+    noise = mne.Covariance(np.eye(n) * 1e-12, info["ch_names"], [], info["projs"], nfree=10**6,
+                           verbose="error")
+    inv = mne.minimum_norm.make_inverse_operator(info, fwd, noise, loose=0.0, fixed=True,
+                                                 depth=None, verbose="error")
+    a = rng.standard_normal((n, 2 * n))
+    c_uv2 = a @ a.T / (2 * n)
+    cov = mne.Covariance(c_uv2 * 1e-12, info["ch_names"], [], info["projs"], nfree=1000,
+                         verbose="error")
+    stc = mne.minimum_norm.apply_inverse_cov(cov, info, inv, nave=1, lambda2=1 / 9, method=method,
+                                             verbose="error")
+    op = make_operator(head_model, method=method, orientation="fixed", lambda2=1 / 9)
+    np.testing.assert_allclose(op.power(c_uv2), stc.data[:, 0], rtol=1e-6)

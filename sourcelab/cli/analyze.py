@@ -39,6 +39,13 @@ def add_parser(sub) -> None:
     p.add_argument("--condition", help='recording condition, e.g. "eyes closed"')
     p.add_argument("--select", action="append", metavar="ANNOTATION",
                    help="analyse only segments with this annotation (repeatable)")
+    p.add_argument("--rois", metavar="FILE",
+                   help="user-defined ROIs (TOML or TSV; see atlases/README.md), reported as "
+                        "their own atlas")
+    p.add_argument("--bids-root", metavar="DIR",
+                   help="also write a BIDS-derivatives copy under DIR/derivatives/sourcelab")
+    p.add_argument("--participant-id", metavar="ID",
+                   help="participant label for --bids-root (made safe for file names)")
     p.add_argument("--allow-extrapolation", action="store_true",
                    help="z-score outside the norms' age range (flagged on every row)")
     p.add_argument("--allow-condition-mismatch", action="store_true",
@@ -55,13 +62,25 @@ def run(args) -> int:
     if not path.exists():
         raise InputError("file not found", path=path)
     config = config_from_args(args)
-    result = analyze(path, config=config, age=args.age, norms=args.norms,
+    if args.bids_root and not args.participant_id:
+        raise InputError("--bids-root needs --participant-id")
+    custom = None
+    if args.rois:
+        from ..rois import load_custom_rois
+
+        custom = load_custom_rois(args.rois)
+    result = analyze(path, config=config, age=args.age, norms=args.norms, custom_rois=custom,
                      condition=args.condition, select=args.select,
                      allow_extrapolation=args.allow_extrapolation,
                      allow_condition_mismatch=args.allow_condition_mismatch)
     out = write_analysis(result, args.out, figures=not args.no_figures,
                          report=not args.no_report, exports=not args.no_maps,
                          command=["sourcelab", *sys.argv[1:]])
+    if args.bids_root:
+        from ..exports import export_bids_derivatives
+
+        d = export_bids_derivatives(result, args.bids_root, args.participant_id)
+        print(f"sourcelab: wrote BIDS derivatives {d}")
     print_summary(result, out)
     return 0
 

@@ -119,6 +119,10 @@ def _deviations(result) -> str:
              "across many ROIs and bands some will exceed the limit by chance.")
     if any("fdr" in c.lower() for c in d.columns):
         intro += " FDR columns give the false-discovery-rate flag across all tests."
+    if "robust" in d.columns:
+        intro += (" z_lo-z_hi is the 95 % bootstrap interval over clean epochs; a row is "
+                  "robust when the whole interval lies beyond the same ±1.96 line, and "
+                  "<b>not robust</b> when it crosses it.")
     intro += "</p>"
     if d.empty:
         return intro + "<p>None.</p>"

@@ -211,6 +211,7 @@ def deviations(roi_table: pd.DataFrame, sensor_table: pd.DataFrame | None = None
                                      "value", "z"])
     d = pd.concat(parts, ignore_index=True)
     fdr = [c for c in d.columns if "fdr" in str(c).lower()]
-    cols = ["level", "atlas", "roi", "hemisphere", "band", "measure", "value", "unit", "z"] + fdr
+    cols = (["level", "atlas", "roi", "hemisphere", "band", "measure", "value", "unit", "z"] + fdr
+            + ["z_lo", "z_hi", "robust"])  # bootstrap interval of z, when present
     d = d[[c for c in cols if c in d.columns]]
     return d.reindex(d["z"].abs().sort_values(ascending=False).index).reset_index(drop=True)
