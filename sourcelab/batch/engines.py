@@ -175,7 +175,9 @@ class DaskEngine(Engine):
             where = {"host": "127.0.0.1"} if processes else {}
             self._cluster = distributed.LocalCluster(
                 n_workers=int(n_workers), threads_per_worker=1, processes=processes,
-                dashboard_address=None, **where)
+                # a free loopback port: the default (":8787", also used when None is given)
+                # warns and moves when another cluster holds it
+                dashboard_address="127.0.0.1:0", **where)
             self._client = distributed.Client(self._cluster)
         self.address = self._client.scheduler.address
 
