@@ -112,8 +112,11 @@ def write_analysis_into(result: AnalysisResult, folder: Path, *, figures: bool =
 
         png = figure_png(plot_leakage(leak))  # closes the figure
         (folder / "leakage_brodmann.png").write_bytes(png)
-        extra.append(("Leakage between Brodmann areas (share of each row ROI's expected power "
-                      "coming from each column ROI; sLORETA resolution matrix)", png))
+        extra.append(("Leakage between areas", png,
+                      "Share of each row area's expected sLORETA power that comes from equal, "
+                      "uncorrelated activity in each column area (from the resolution matrix; "
+                      "log colour scale). Large off-diagonal shares mean the two areas cannot "
+                      "be told apart well with a template head and 19 electrodes."))
     has_z = bool(result.roi_table["z"].notna().any())
     if has_z:
         from .targets import candidates_for_table, write_candidates
@@ -122,10 +125,14 @@ def write_analysis_into(result: AnalysisResult, folder: Path, *, figures: bool =
         write_candidates(cand, folder / "candidates.tsv")
         hints = leakage_hints(result.roi_table[result.roi_table.atlas == "brodmann"], leak)
         hints.to_csv(folder / "leakage_hints.tsv", sep="\t", index=False, float_format="%.4g")
-        extra.append(("Candidate regions and networks (statistical deviations only)",
-                      cand.head(40)))
-        extra.append(("Could a deviation be a neighbour's blur? Strongest leakers of each "
-                      "deviating Brodmann area", hints.head(60)))
+        extra.append(("Candidate regions and networks", cand.head(40),
+                      "Statistical deviations only, FDR-significant first, then by |z|. The "
+                      "choice of any training target rests with a licensed practitioner who "
+                      "weighs symptoms and history. Full list: candidates.tsv."))
+        extra.append(("Neighbour blur check", hints.head(60),
+                      "For each deviating Brodmann area, the areas that leak most power into "
+                      "it and whether they deviate the same way: if they do, the deviation may "
+                      "be a neighbour's activity blurred by the inverse."))
     figs: dict = {}
     if figures:
         from .figures import result_figures

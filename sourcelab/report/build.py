@@ -48,7 +48,9 @@ def _quality(result) -> str:
         return '<p class="note">No data-quality figures were recorded.</p>'
     out = kv_table({k: v for k, v in q.items() if not isinstance(v, dict)})
     for k, v in q.items():
-        if isinstance(v, dict):
+        if k == "reliability" and isinstance(v, dict):
+            out += _reliability(v, result.config.reliability_threshold)
+        elif isinstance(v, dict):
             df = pd.DataFrame([list(v.values())], columns=[str(c) for c in v])
             out += f"<h3>{_esc(k)}</h3>" + table_html(df, sortable=False, z_column=None)
     rel = q.get("split_half_reliability", q.get("reliability"))
@@ -57,6 +59,33 @@ def _quality(result) -> str:
         out += (f'<p class="caution">Split-half reliability {rel:.2f} is below {thr:.2f}: '
                 "treat all numbers in this report with extra care.</p>")
     return out
+
+
+def _reliability(rel: dict, threshold: float) -> str:
+    """Reliability per level (sensors, ROIs) and kind (split-half, test-retest) as one table."""
+    rows = []
+    for level, r in rel.items():
+        if not isinstance(r, dict):
+            continue
+        for kind in ("split_half", "split_half_spearman_brown", "test_retest",
+                     "test_retest_spearman_brown"):
+            if isinstance(r.get(kind), dict):
+                rows.append({"level": level, "estimate": kind.replace("_", " "),
+                             **{b: r[kind][b] for b in r[kind]}})
+    if not rows:
+        return ""
+    flagged = sorted({f"{lvl}: {', '.join(r.get('flagged_bands', []))}"
+                      for lvl, r in rel.items()
+                      if isinstance(r, dict) and r.get("flagged_bands")})
+    note = (f'<p class="note">Correlation across items of log10 band power between halves of the '
+            f"clean epochs (odd vs even: split half; first vs second half: test-retest), with the "
+            f"Spearman-Brown full-length value. The uncorrected split-half r is flagged below "
+            f"{threshold:.2f} (common practice).</p>")
+    if flagged:
+        note += ('<p class="caution">Reliability below the threshold: ' + _esc("; ".join(flagged))
+                 + ". Treat these bands with extra care.</p>")
+    return ("<h3>reliability</h3>" + table_html(pd.DataFrame(rows), sortable=False, z_column=None)
+            + note)
 
 
 def _sensor(result, figs: dict) -> str:
@@ -195,18 +224,23 @@ def _provenance(result) -> str:
 
 
 def _extra_section(i: int, item) -> tuple[str, str, str]:
-    """(id, title, html) of one extra section given as (title, content)."""
+    """(id, title, html) of one extra section given as (title, content[, note])."""
     try:
-        title, content = item
+        title, content, *rest = item
     except (TypeError, ValueError):
-        raise ValueError("extra_sections: each item must be (title, content)") from None
+        raise ValueError("extra_sections: each item must be (title, content[, note])") from None
+    if len(rest) > 1:
+        raise ValueError("extra_sections: each item must be (title, content[, note])")
+    note = f'<p class="note">{_esc(rest[0])}</p>' if rest else ""
+    return f"extra-{i}", str(title), note + _extra_body(title, content)
+
+
+def _extra_body(title, content) -> str:
     if isinstance(content, pd.DataFrame):
-        body = table_html(content)
-    elif isinstance(content, (bytes, bytearray, Path)) or hasattr(content, "savefig"):
-        body = img_html(content, caption=str(title))
-    else:
-        body = "".join(f"<p>{_esc(p)}</p>" for p in str(content).split("\n\n"))
-    return f"extra-{i}", str(title), body
+        return table_html(content)
+    if isinstance(content, (bytes, bytearray, Path)) or hasattr(content, "savefig"):
+        return img_html(content, caption=str(title))
+    return "".join(f"<p>{_esc(p)}</p>" for p in str(content).split("\n\n"))
 
 
 def build_html(result, figures: dict, *, extra_sections=None, title: str | None = None) -> str:
