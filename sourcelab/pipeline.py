@@ -14,7 +14,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from . import __version__
 from .config import AnalysisConfig
 from .errors import InputError
 from .provenance import Fingerprint

@@ -112,3 +112,38 @@ def test_analyze_custom_rois_and_bids(sim_edf, tmp_path):
     assert (bids / "derivatives" / "sourcelab" / "dataset_description.json").is_file()
     subs = [p.name for p in (bids / "derivatives" / "sourcelab").glob("sub-*")]
     assert subs == ["sub-x01"]
+
+
+def test_norms_build_check_and_use(tmp_path, capsys):
+    # Issue workflow end to end on an invented cohort: a folder of recordings + participants.tsv
+    # (BIDS convention) → norms + calibration report with one command (two worker processes),
+    # `norms check`, then an analysis z-scored against them.
+    import mne
+
+    from sourcelab.demo import cohort
+
+    root = tmp_path / "cohort"
+    rows = ["participant_id\tage\tcondition"]
+    for pid, age, raw in cohort(20, duration_s=70.0, seed=5):
+        d = root / f"sub-{pid}" / "eeg"
+        d.mkdir(parents=True)
+        mne.export.export_raw(d / f"sub-{pid}_task-rest_eeg.edf", raw, fmt="edf",
+                              verbose="error")
+        rows.append(f"sub-{pid}\t{age:.1f}\teyes closed")
+    (root / "participants.tsv").write_text("\n".join(rows) + "\n")
+    norms = tmp_path / "norms.tsv"
+    assert main(["norms", "build", str(root), "--participants", str(root / "participants.tsv"),
+                 "--out", str(norms), "--workers", "2"]) == 0
+    assert norms.is_file() and (tmp_path / "norms_calibration.tsv").is_file()
+    assert main(["norms", "check", str(norms)]) == 0
+    out = capsys.readouterr().out
+    assert "20" in out
+    edf = next(root.glob("sub-*/eeg/*.edf"))
+    res = tmp_path / "res"
+    assert main(["analyze", str(edf), "--out", str(res), "--norms", str(norms), "--age", "40",
+                 "--condition", "eyes closed", "--no-figures", "--no-report", "--no-maps"]) == 0
+    t = pd.read_csv(res / "roi_table.tsv", sep="\t")
+    # with only 20 controls a few rows lose controls to the outlier rule and fall below the
+    # minimum n: they carry no z and are flagged, never silently zero
+    assert t.z.notna().mean() > 0.95
+    assert t[t.z.isna()].no_norm.all()

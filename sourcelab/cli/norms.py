@@ -14,6 +14,11 @@ def add_parser(sub) -> None:
     b.add_argument("--out", required=True, help="norms TSV to write")
     b.add_argument("--model", choices=("regression", "binned"), default="regression",
                    help="age model (default: %(default)s)")
+    b.add_argument("--workers", type=int, default=1,
+                   help="analyse recordings in parallel worker processes (default 1)")
+    b.add_argument("--engine", choices=("serial", "processes", "dask"),
+                   help="batch engine (default: serial for 1 worker, else processes)")
+    b.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address")
     add_common_options(b)
     b.set_defaults(func=run)
     c = nsub.add_parser("check", help="validate a norms file and print a summary")
@@ -29,8 +34,12 @@ def run(args) -> int:
         return 0
     from .analyze import config_from_args
 
-    built = build_norms_from_cohort(args.cohort, args.participants,
-                                    config=config_from_args(args), out=args.out, model=args.model)
+    from ..batch import make_engine
+
+    with make_engine(args.engine, workers=args.workers, scheduler=args.scheduler) as engine:
+        built = build_norms_from_cohort(args.cohort, args.participants,
+                                        config=config_from_args(args), out=args.out,
+                                        model=args.model, engine=engine)
     for pid, message in built.failures:
         print(f"sourcelab: skipped {pid}: {message}")
     print(f"sourcelab: wrote {args.out} ({built.norms.cohort.get('n', '?')} participants); "

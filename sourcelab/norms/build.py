@@ -366,12 +366,25 @@ class CohortBuild:
     failures: tuple[tuple[str, str], ...]
 
 
+def _cohort_tables(task):
+    """Worker function: analyse one reference recording, return its tables and fingerprint."""
+    from ..pipeline import analyze  # imported here: the pipeline imports the norms package
+
+    path, config, age = task
+    res = analyze(path, config=config, age=age)
+    return res.roi_table, res.sensor_table, res.fingerprint
+
+
 def build_norms_from_cohort(cohort_dir: str | Path, participants_tsv: str | Path, *, config,
                             out: str | Path, condition: str | None = None,
                             model: str = "regression", degree: int | str = "auto",
                             bins: Sequence[float] | None = None, min_n_per_bin: int = 20,
-                            robust: bool = True, notes: Sequence[str] = ()) -> CohortBuild:
+                            robust: bool = True, notes: Sequence[str] = (),
+                            engine=None) -> CohortBuild:
     """Analyse every reference recording in a folder and build, write and calibrate norms.
+
+    ``engine`` (from :func:`sourcelab.batch.make_engine`) runs the analyses on worker processes or
+    a Dask cluster, the same machinery as ``sourcelab batch``; default: serial in this process.
 
     Parameters
     ----------
@@ -399,7 +412,6 @@ def build_norms_from_cohort(cohort_dir: str | Path, participants_tsv: str | Path
     A participant that fails (no recording, bad age, analysis error, different fingerprint) is
     logged on one line and skipped; the failures are returned.
     """
-    from ..pipeline import analyze  # imported here: the pipeline imports the norms package
     from .calibration import calibration_report, plot_calibration
 
     cohort_dir, out = Path(cohort_dir), Path(out)
@@ -428,6 +440,7 @@ def build_norms_from_cohort(cohort_dir: str | Path, participants_tsv: str | Path
                   disable=None)
     except ImportError:  # pragma: no cover - tqdm is a dependency
         it = parts.itertuples(index=False)
+    tasks, pids = [], []
     for row in it:
         pid = str(row.participant_id)
         try:
@@ -440,19 +453,43 @@ def build_norms_from_cohort(cohort_dir: str | Path, participants_tsv: str | Path
             continue
         try:
             rec = find_recording(cohort_dir, pid)
-            res = analyze(rec, config=config, age=age)
-            if fp0 is None:
-                fp0 = res.fingerprint
-            elif fp0.differences(res.fingerprint):
-                raise InputError("pipeline fingerprint differs from the first participant's: "
-                                 + "; ".join(fp0.differences(res.fingerprint)))
-            entry_values(pid, age, res.roi_table, res.sensor_table)
-            entries.append((pid, age, res.roi_table, res.sensor_table))
-            del res
-        except Exception as exc:  # one line per participant, then continue
-            msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        except InputError as exc:
+            failures.append((pid, str(exc)))
+            log.warning("norms: %s skipped: %s", pid, exc)
+            continue
+        tasks.append((rec, config, age))
+        pids.append((pid, age))
+    # analyses run on the batch machinery (serial, processes or Dask); results are collected in
+    # participant order, so the norms do not depend on which worker finished first
+    from ..batch.engines import SerialEngine, run_unordered
+
+    done: dict[int, tuple] = {}
+    for i, res, err in run_unordered(engine or SerialEngine(), _cohort_tables, tasks):
+        pid = pids[i][0]
+        if err is not None:
+            msg = str(err).splitlines()[0] if str(err) else type(err).__name__
             failures.append((pid, msg))
             log.warning("norms: %s skipped: %s", pid, msg)
+        else:
+            done[i] = res
+    for i in sorted(done):
+        pid, age = pids[i]
+        roi_table, sensor_table, fp = done[i]
+        if fp0 is None:
+            fp0 = fp
+        elif fp0.differences(fp):
+            msg = ("pipeline fingerprint differs from the first participant's: "
+                   + "; ".join(fp0.differences(fp)))
+            failures.append((pid, msg))
+            log.warning("norms: %s skipped: %s", pid, msg)
+            continue
+        try:
+            entry_values(pid, age, roi_table, sensor_table)
+        except InputError as exc:
+            failures.append((pid, str(exc)))
+            log.warning("norms: %s skipped: %s", pid, exc)
+            continue
+        entries.append((pid, age, roi_table, sensor_table))
     if fp0 is None:
         raise InputError(f"no participant could be analysed ({len(failures)} failures)",
                          path=cohort_dir)
@@ -498,7 +535,7 @@ def check_norms(path: str | Path) -> str:
     fp = nm.fingerprint
     lines = [f"{nm.path}: valid sourcelab-norms 1 file", f"sha256: {nm.sha256}",
              f"condition: {nm.condition}",
-             f"cohort: " + ", ".join(f"{k}={v}" for k, v in sorted(nm.cohort.items())),
+             "cohort: " + ", ".join(f"{k}={v}" for k, v in sorted(nm.cohort.items())),
              f"fingerprint: method={fp.method} orientation={fp.orientation} "
              f"lambda2={fp.lambda2:g} reference={fp.reference} epoch_s={fp.epoch_s:g} "
              f"pipeline_version={fp.pipeline_version} headmodel={fp.headmodel_sha256[:12]}",
