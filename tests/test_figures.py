@@ -213,3 +213,18 @@ def test_result_figures_in_worker_processes(result):
     assert all(v.startswith(b"\x89PNG") for v in parallel.values())
     with pytest.raises(ValueError, match="n_jobs"):
         result_figures(result, n_jobs=0)
+
+
+def test_power_topomaps_one_scale_per_band():
+    # Absolute band power differs tenfold between bands (e.g. alpha vs high beta in resting EEG,
+    # common practice): each band gets its own labelled sequential colour bar.
+    from sourcelab.figures import power_scale
+    from sourcelab.figures.sensor import sensor_topomaps
+
+    v = np.abs(np.random.default_rng(1).standard_normal((3, 19))) * np.array([[100], [10], [1]])
+    scales = [power_scale(v[i], measure="sensor_absolute") for i in range(3)]
+    fig = sensor_topomaps(v, band_names=["a", "b", "c"], scale=scales)
+    bars = [ax for ax in fig.axes if ax.get_xlabel()]
+    assert len(bars) == 3 and all("µV²" in ax.get_xlabel() for ax in bars)
+    assert scales[0].vmax > 5 * scales[2].vmax
+    plt.close(fig)

@@ -138,7 +138,9 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
         sens = np.asarray(result.sensor_abs if measure == "absolute" else result.sensor_rel)
         keep(f"topomap/{measure}", sensor.sensor_topomaps, sens, band_names=bands,
              ch_names=result.ch_names, dpi=dpi,
-             scale=power_scale(sens, measure=f"sensor_{measure}"),
+             # one scale per band: absolute power differs tenfold between bands
+             scale=[power_scale(sens[i], measure=f"sensor_{measure}")
+                    for i in range(sens.shape[0])],
              title=f"sensor {measure} power (average reference)")
         st = result.sensor_table
         st = st[st["measure"] == measure]

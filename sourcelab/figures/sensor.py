@@ -30,18 +30,19 @@ def sensor_info(ch_names: tuple[str, ...] = SITES_1020):
     return info
 
 
-def sensor_topomaps(values: np.ndarray, *, band_names, scale: ColourScale,
+def sensor_topomaps(values: np.ndarray, *, band_names, scale,
                     ch_names=SITES_1020, title: str | None = None, image_interp: str = "linear",
                     dpi: int = 90, output_file=None) -> Figure:
-    """One scalp map per band, all on one colour scale.
+    """One scalp map per band, on one colour scale or on one scale per band.
 
     Parameters
     ----------
     values : ndarray, shape (n_bands, n_ch)
         Band power (µV² or fraction) or z per electrode, channels in ``ch_names`` order.
     band_names : sequence of str, length n_bands
-    scale : ColourScale
-        The same scale is used for every band (z: symmetric limits).
+    scale : ColourScale | sequence of ColourScale
+        One scale for every band (z: symmetric limits, one colour bar), or one per band (power,
+        whose range differs tenfold between bands: a colour bar under each map).
     ch_names : sequence of str, length n_ch
         Electrode names (10-20, modern T7/T8/P7/P8 names).
     title : str | None
@@ -65,24 +66,37 @@ def sensor_topomaps(values: np.ndarray, *, band_names, scale: ColourScale,
                          f"got {v.shape}")
     info = sensor_info(ch_names)
     n = len(band_names)
-    fig_w = 1.9 * n + 1.6
-    fig = plt.figure(figsize=(fig_w, 2.8 if title else 2.5), dpi=dpi)
-    width = (1.0 - 1.5 / fig_w) / n
+    scales = list(scale) if isinstance(scale, (list, tuple)) else [scale] * n
+    if len(scales) != n:
+        raise ValueError(f"scale: need one ColourScale or {n}, got {len(scales)}")
+    per_band = isinstance(scale, (list, tuple))
+    fig_w = 1.9 * n + (0.3 if per_band else 1.6)
+    fig = plt.figure(figsize=(fig_w, (3.2 if per_band else 2.5) + (0.3 if title else 0.0)),
+                     dpi=dpi)
+    width = (1.0 - (0.3 if per_band else 1.5) / fig_w) / n
     top = 0.80 if title else 0.9
+    bottom = 0.3 if per_band else 0.04
     for i, band in enumerate(band_names):
-        ax = fig.add_axes((0.01 + i * width, 0.04, width * 0.96, top - 0.08))
-        row = masked(v[i], scale)
+        sc = scales[i]
+        ax = fig.add_axes((0.01 + i * width, bottom, width * 0.96, top - bottom - 0.04))
+        row = masked(v[i], sc)
         finite = np.isfinite(row)
-        data = np.where(finite, row, 0.0 if scale.diverging else np.nanmin(v[i]) if
+        data = np.where(finite, row, 0.0 if sc.diverging else np.nanmin(v[i]) if
                         np.isfinite(v[i]).any() else 0.0)
-        mne.viz.plot_topomap(data, info, axes=ax, cmap=scale.cmap, vlim=(scale.vmin, scale.vmax),
+        mne.viz.plot_topomap(data, info, axes=ax, cmap=sc.cmap, vlim=(sc.vmin, sc.vmax),
                              show=False, contours=4, sensors=True, names=None,
                              image_interp=image_interp,
-                             mask=finite if scale.threshold else None,
+                             mask=finite if sc.threshold else None,
                              mask_params={"markersize": 5, "markerfacecolor": "k"})
         ax.set_title(band, fontsize=10)
-    cax = fig.add_axes((1.0 - 1.3 / fig_w, 0.12, 0.12 / fig_w, top - 0.2))
-    add_colourbar(fig, scale, cax=cax)
+        if per_band:
+            cax = fig.add_axes((0.01 + i * width + 0.15 * width, 0.19, width * 0.66, 0.035))
+            cb = add_colourbar(fig, sc, cax=cax, orientation="horizontal")
+            cb.set_label(sc.label, fontsize=8)
+            cb.ax.tick_params(labelsize=7)
+    if not per_band:
+        cax = fig.add_axes((1.0 - 1.3 / fig_w, 0.12, 0.12 / fig_w, top - 0.2))
+        add_colourbar(fig, scale, cax=cax)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
     if output_file is not None:
