@@ -147,3 +147,39 @@ def test_norms_build_check_and_use(tmp_path, capsys):
     # minimum n: they carry no z and are flagged, never silently zero
     assert t.z.notna().mean() > 0.95
     assert t[t.z.isna()].no_norm.all()
+
+
+def _damaged(sim_edf, tmp_path, how):
+    import mne
+
+    p = tmp_path / f"{how}.edf"
+    if how == "truncated":
+        p.write_bytes(sim_edf.read_bytes()[: sim_edf.stat().st_size // 2])
+    elif how == "corrupt-header":
+        data = bytearray(sim_edf.read_bytes())
+        data[252:256] = b"xx!!"  # number of signals (EDF header field, Kemp et al. 1992)
+        p.write_bytes(bytes(data))
+    elif how == "low-rate":
+        raw = mne.io.read_raw_edf(sim_edf, preload=True, verbose="error").resample(80.0)
+        mne.export.export_raw(p, raw, fmt="edf", verbose="error")
+    return p
+
+
+@pytest.mark.parametrize("how, match", [("truncated", "truncated"),
+                                        ("corrupt-header", "corrupt"),
+                                        ("low-rate", "100 Hz")])
+def test_damaged_files(sim_edf, tmp_path, capsys, how, match):
+    p = _damaged(sim_edf, tmp_path, how)
+    _bad(["analyze", str(p)], tmp_path, capsys, match)
+
+
+def test_selection_matching_nothing(sim_edf, tmp_path, capsys):
+    _bad(["analyze", str(sim_edf), "--select", "eyes open"], tmp_path, capsys, "invented.edf")
+
+
+def test_select_time_range(sim_edf, tmp_path):
+    out = tmp_path / "sel"
+    assert main(["analyze", str(sim_edf), "--out", str(out), "--select", "0-70", "--no-figures",
+                 "--no-report", "--no-maps"]) == 0
+    prov = json.loads((out / "provenance.json").read_text())
+    assert prov["quality"]["kept_s"] <= 70

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import sys
 from pathlib import Path
 
@@ -37,8 +38,9 @@ def add_parser(sub) -> None:
     p.add_argument("--age", type=float, help="age in years (needed with --norms)")
     p.add_argument("--norms", help="norms TSV (sourcelab norms format)")
     p.add_argument("--condition", help='recording condition, e.g. "eyes closed"')
-    p.add_argument("--select", action="append", metavar="ANNOTATION",
-                   help="analyse only segments with this annotation (repeatable)")
+    p.add_argument("--select", action="append", metavar="ANNOTATION|T0-T1",
+                   help='analyse only segments with this annotation (e.g. "eyes closed") or '
+                        "this time range in seconds (e.g. 120-300); repeatable, union")
     p.add_argument("--rois", metavar="FILE",
                    help="user-defined ROIs (TOML or TSV; see atlases/README.md), reported as "
                         "their own atlas")
@@ -70,7 +72,8 @@ def run(args) -> int:
 
         custom = load_custom_rois(args.rois)
     result = analyze(path, config=config, age=args.age, norms=args.norms, custom_rois=custom,
-                     condition=args.condition, select=args.select,
+                     select=parse_select(args.select),
+                     condition=args.condition,
                      allow_extrapolation=args.allow_extrapolation,
                      allow_condition_mismatch=args.allow_condition_mismatch)
     out = write_analysis(result, args.out, figures=not args.no_figures,
@@ -83,6 +86,27 @@ def run(args) -> int:
         print(f"sourcelab: wrote BIDS derivatives {d}")
     print_summary(result, out)
     return 0
+
+
+_RANGE = re.compile(r"^\s*(\d+(?:\.\d*)?)\s*-\s*(\d+(?:\.\d*)?)\s*$")
+
+
+def parse_select(values):
+    """``--select`` values: ``"T0-T1"`` (seconds) becomes a time range, anything else is an
+    annotation description."""
+    if not values:
+        return None
+    out = []
+    for v in values:
+        m = _RANGE.match(v)
+        if m:
+            t0, t1 = float(m.group(1)), float(m.group(2))
+            if not t1 > t0:
+                raise InputError(f"--select {v!r}: the end must come after the start")
+            out.append((t0, t1))
+        else:
+            out.append(v)
+    return out
 
 
 def print_summary(result, out) -> None:
