@@ -17,6 +17,15 @@ def _label(row) -> str:
     return f"{row.roi} {h}".strip()
 
 
+def _labelled(roi_table, *, atlas, measure, bands):
+    """Rows of one atlas and measure with a display label; ROI labels and bands in table order."""
+    t = _select(roi_table, atlas=atlas, measure=measure)
+    t = t.assign(_label=[_label(r) for r in t.itertuples()])
+    labels = list(dict.fromkeys(t["_label"]))
+    bands = list(bands) if bands is not None else list(dict.fromkeys(t["band"]))
+    return t, labels, bands
+
+
 def _select(roi_table: pd.DataFrame, *, atlas: str | None, measure: str,
             band: str | None = None) -> pd.DataFrame:
     missing = {"atlas", "roi", "hemisphere", "band", "measure", "z"} - set(roi_table.columns)
@@ -115,10 +124,7 @@ def roi_heatmap(roi_table: pd.DataFrame, *, measure: str = "absolute", atlas: st
     fig : matplotlib.figure.Figure
     """
     scale = scale or z_scale()
-    t = _select(roi_table, atlas=atlas, measure=measure)
-    t = t.assign(_label=[_label(r) for r in t.itertuples()])
-    rois = list(dict.fromkeys(t["_label"]))
-    bands = list(bands) if bands is not None else list(dict.fromkeys(t["band"]))
+    t, rois, bands = _labelled(roi_table, atlas=atlas, measure=measure, bands=bands)
     grid = (t.pivot_table(index="band", columns="_label", values="z", aggfunc="first",
                           dropna=False)
             .reindex(index=bands, columns=rois).to_numpy(float))
@@ -199,10 +205,7 @@ def network_chart(roi_table: pd.DataFrame, *, atlas: str, measure: str = "absolu
     fig : matplotlib.figure.Figure
     """
     scale = scale or z_scale()
-    t = _select(roi_table, atlas=atlas, measure=measure)
-    t = t.assign(_label=[_label(r) for r in t.itertuples()])
-    nets = list(dict.fromkeys(t["_label"]))
-    bands = list(bands) if bands is not None else list(dict.fromkeys(t["band"]))
+    t, nets, bands = _labelled(roi_table, atlas=atlas, measure=measure, bands=bands)
     height = 1.5 + 0.32 * len(nets)
     fig = plt.figure(figsize=(7.0, height), dpi=dpi)
     ax = fig.add_axes((0.3, 0.6 / height, 0.52, 1.0 - 1.0 / height))
