@@ -85,13 +85,6 @@ def _roi_rows(atlas, values_abs: np.ndarray, values_rel: np.ndarray, band_names)
     return rows
 
 
-def source_band_power(csd_mean: np.ndarray, config: AnalysisConfig) -> tuple[np.ndarray, np.ndarray]:
-    """Absolute and relative source power per band, each shape (n_bands, n_src), float32."""
-    op = inverse_operator(config.method, config.orientation, config.lambda2)
-    absolute = op.power(csd_mean)
-    return absolute.astype(np.float32), relative_power(absolute).astype(np.float32)
-
-
 def analyze(recording, *, config: AnalysisConfig | None = None, age: float | None = None,
             norms=None, atlases: tuple[str, ...] | None = None, custom_rois=None,
             select=None, condition: str | None = None,
@@ -121,7 +114,7 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     """
     from .headmodel import load_head_model
     from .intake import Recording, clean_recording, read_recording
-    from .rois import load_atlas
+    from .rois import load_atlas, roi_reduce
 
     t0 = time.perf_counter()
     config = config or AnalysisConfig()
@@ -145,10 +138,7 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     if custom_rois is not None:
         atlas_objs.append(custom_rois)
     for atlas in atlas_objs:
-        idx = [roi.vertices for roi in atlas.rois]
-        roi_abs = np.stack([src_abs[:, v].mean(axis=1) for v in idx], axis=1)
-        roi_rel = np.stack([src_rel[:, v].mean(axis=1) for v in idx], axis=1)
-        rows += _roi_rows(atlas, roi_abs, roi_rel, names)
+        rows += _roi_rows(atlas, roi_reduce(src_abs, atlas), roi_reduce(src_rel, atlas), names)
     roi_table = pd.DataFrame(rows, columns=list(ROI_COLUMNS))
 
     srows = []

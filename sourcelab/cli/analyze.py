@@ -16,6 +16,11 @@ def add_common_options(p) -> None:
     p.add_argument("--method", choices=("sLORETA", "eLORETA", "dSPM"), help="inverse method")
     p.add_argument("--orientation", choices=("fixed", "free"), help="source orientation")
     p.add_argument("--snr", type=float, help="amplitude SNR; lambda2 = 1/SNR^2 (default 3)")
+    add_output_options(p)
+
+
+def add_output_options(p) -> None:
+    """Options that skip the slow outputs (analyze, demo, batch)."""
     p.add_argument("--no-figures", action="store_true", help="tables and provenance only")
     p.add_argument("--no-report", action="store_true", help="skip the HTML report")
     p.add_argument("--no-maps", action="store_true",

@@ -63,7 +63,7 @@ def run(args) -> int:
             summary = run_batch(items, args.out, config=config, norms=args.norms,
                                 condition=args.condition, engine=engine, force=args.force,
                                 figures=not args.no_figures, report=not args.no_report,
-                                exports=not getattr(args, "no_maps", True),
+                                exports=not args.no_maps,
                                 progress=False if args.no_progress else None,
                                 command=["sourcelab", *sys.argv[1:]])
     finally:

@@ -8,15 +8,14 @@ from ..errors import InputError
 
 
 def add_parser(sub) -> None:
+    from .analyze import add_output_options
+
     p = sub.add_parser("demo", help="run the pipeline on an invented demo participant",
                        description="Simulate an invented participant (no real data), analyse it "
                                    "against invented demo norms, and write tables, figures and "
                                    "the report.")
     p.add_argument("--out", default="sourcelab-demo", help="output folder (default: %(default)s)")
-    p.add_argument("--no-figures", action="store_true", help="tables and provenance only")
-    p.add_argument("--no-report", action="store_true", help="skip the HTML report")
-    p.add_argument("--no-maps", action="store_true",
-                   help="skip the source-map exports (STC, GIfTI, NIfTI)")
+    add_output_options(p)
     p.add_argument("--rebuild-norms", metavar="TSV",
                    help="instead of the demo, rebuild the invented demo norms into TSV")
     p.set_defaults(func=run)
