@@ -1,6 +1,7 @@
-"""Shipped per-source atlas labels for the fsaverage5 template (data package ``sourcelab.atlases``).
+"""Scripts that rebuild the shipped atlas labels for the fsaverage5 template (source checkout only).
 
-Data files (read at run time by :mod:`sourcelab.rois`, hash-checked against ``MANIFEST.json``) and
-the scripts that rebuild them (``python -m sourcelab.atlases.build_yeo7``, ``build_brodmann``,
-``build_groupings``); provenance, licences, method and coverage in ``README.md``.
+They write into the package's one data folder, ``sourcelab/data`` (read at run time by
+:mod:`sourcelab.rois`, hash-checked against its ``MANIFEST.json``): run from the repository root
+``python -m atlases.build_yeo7``, then ``build_brodmann`` and ``build_groupings``.  Provenance,
+licences, method and coverage: ``README.md``.
 """

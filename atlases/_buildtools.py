@@ -20,7 +20,8 @@ from pathlib import Path
 
 import numpy as np
 
-HERE = Path(__file__).resolve().parent
+#: Where the built files go: the package's one data folder (``sourcelab/data``, with its manifest).
+HERE = Path(__file__).resolve().parent.parent / "sourcelab" / "data"
 MANIFEST = HERE / "MANIFEST.json"
 
 
@@ -97,7 +98,7 @@ def write_text(path: Path, text: str) -> str:
 
 
 def update_manifest(entries: dict[str, str]) -> None:
-    """Merge ``{file name: sha256}`` into ``atlases/MANIFEST.json``."""
+    """Merge ``{file name: sha256}`` into ``sourcelab/data/MANIFEST.json``."""
     current = json.loads(MANIFEST.read_text()) if MANIFEST.exists() else {"files": {}}
     current["files"].update(entries)
     current["files"] = dict(sorted(current["files"].items()))

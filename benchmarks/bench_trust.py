@@ -34,7 +34,8 @@ def main(argv=None) -> int:
 
     from sourcelab.config import AnalysisConfig
     from sourcelab.headmodel import load_head_model
-    from sourcelab.pipeline import DEFAULT_ATLASES, inverse_operator
+    from sourcelab.analysis import DEFAULT_ATLASES
+    from sourcelab.inverse import inverse_operator
     from sourcelab.rois import load_atlas
     from sourcelab.trust import add_intervals, add_sensor_intervals, leakage_matrix
 

@@ -64,10 +64,10 @@ def p1(tmp: Path) -> dict:
     import mne
 
     from sourcelab.config import AnalysisConfig
-    from sourcelab.headmodel import load_head_model, to_mne_forward
+    from sourcelab.headmodel import load_head_model, make_info, to_mne_forward
     from sourcelab.intake import clean_recording, read_recording
-    from sourcelab.inverse.methods import info_with_average_reference
-    from sourcelab.pipeline import analyze, inverse_operator
+    from sourcelab.analysis import analyze
+    from sourcelab.inverse import inverse_operator
     from sourcelab.rois import load_atlas
     from sourcelab.spectra import epoch_cross_spectra
 
@@ -95,7 +95,7 @@ def p1(tmp: Path) -> dict:
     t_ours = min(_t(ours)[1] for _ in range(reps))
     power_ours, roi_ours = ours()
 
-    info = info_with_average_reference(clean.sfreq)
+    info = make_info(clean.sfreq, average_reference=True)
     fwd = to_mne_forward(model, info)  # built once (forward construction is not timed)
     data_v = np.concatenate(list(epochs_uv), axis=1) * 1e-6
     mraw = mne.io.RawArray(data_v, info, verbose="error")
@@ -130,7 +130,7 @@ def p1(tmp: Path) -> dict:
     no_boot = config.replace(n_boot=0) if getattr(config, "n_boot", 0) else config
     t_file_no_boot = min(_t(analyze, path, config=no_boot)[1] for _ in range(3))
     # peak resident memory of a fresh process analysing the 10-minute file (tables only)
-    code = ("import sys; from sourcelab.pipeline import analyze; "
+    code = ("import sys; from sourcelab.analysis import analyze; "
             "from sourcelab.batch.runner import _peak_rss_mb; "
             "analyze(sys.argv[1]); print(_peak_rss_mb())")
     rss = subprocess.run([sys.executable, "-c", code, str(path)], capture_output=True,
@@ -163,11 +163,11 @@ def p1(tmp: Path) -> dict:
 def p2() -> dict:
     from sourcelab.headmodel import load, load_head_model
 
-    load._load_cached.cache_clear()
+    load._load_shipped.cache_clear()
     _, cold = _t(load_head_model)
     warm = []
     for _ in range(5):
-        load._load_cached.cache_clear()
+        load._load_shipped.cache_clear()
         warm.append(_t(load_head_model)[1])
     _, cached = _t(load_head_model)
     return {"first_in_process_s": cold, "warm_s": min(warm), "warm_median_s": float(
@@ -248,8 +248,8 @@ def p4(tmp: Path, sizes=(100, 200)) -> dict:
     participant (log-normal scaling with an age trend) so that 200 participants are distinct."""
     from sourcelab.config import AnalysisConfig
     from sourcelab.headmodel import load_head_model
-    from sourcelab.norms import build_norms
-    from sourcelab.pipeline import analyze, fingerprint_for
+    from sourcelab.norms import norms_from_tables as build_norms
+    from sourcelab.analysis import analyze, fingerprint_for
 
     config = AnalysisConfig()
     model = load_head_model()

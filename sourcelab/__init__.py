@@ -3,13 +3,49 @@
 A 19-channel 10-20 resting recording becomes sLORETA band power per cortical source,
 Brodmann-style areas and networks, and z-scores against norms the user supplies or builds.
 
+The front door::
+
+    import sourcelab
+    result = sourcelab.analyze("rec.edf", age=34, norms="norms.tsv", condition="eyes closed")
+    result.summary(); result.candidates; result.figures(); result.write("out/")
+    norms = sourcelab.read_norms("norms.tsv")
+    sourcelab.build_norms("cohort/", "participants.tsv", out="norms.tsv", condition="eyes closed")
+    atlas = sourcelab.load_atlas("brodmann")
+
 sourcelab supports assessment and research; it is not a diagnostic device.
 """
 
-__version__ = "0.1.0"
+__version__ = "0.2.0"
 
 #: Bumped whenever a change alters the numbers the pipeline produces.  Norms and results carry it
 #: in their fingerprint, so numbers from different pipelines are never compared.
-PIPELINE_VERSION = 1
+PIPELINE_VERSION = 2
 
-__all__ = ["__version__", "PIPELINE_VERSION"]
+#: name -> (module, attribute) of the front door; imported on first use so that
+#: ``import sourcelab`` stays fast.
+_FRONT_DOOR = {
+    "analyze": ("sourcelab.analysis", "analyze"),
+    "AnalysisConfig": ("sourcelab.config", "AnalysisConfig"),
+    "AnalysisResult": ("sourcelab.result", "AnalysisResult"),
+    "read_norms": ("sourcelab.norms", "read_norms"),
+    "build_norms": ("sourcelab.cohort", "build_norms"),
+    "load_atlas": ("sourcelab.rois", "load_atlas"),
+}
+
+__all__ = ["PIPELINE_VERSION", "__version__", *_FRONT_DOOR]
+
+
+def __getattr__(name):
+    try:
+        module, attr = _FRONT_DOOR[name]
+    except KeyError:
+        raise AttributeError(f"module 'sourcelab' has no attribute {name!r}") from None
+    import importlib
+
+    value = getattr(importlib.import_module(module), attr)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_FRONT_DOOR))

@@ -18,11 +18,7 @@ DEFAULT_BANDS: tuple[tuple[str, float, float], ...] = (
     ("highbeta", 25.0, 30.0),
 )
 
-#: The 19 international 10-20 sites, in sourcelab's canonical order (modern names).
-SITES_1020: tuple[str, ...] = (
-    "Fp1", "Fp2", "F7", "F3", "Fz", "F4", "F8", "T7", "C3", "Cz",
-    "C4", "T8", "P7", "P3", "Pz", "P4", "P8", "O1", "O2",
-)
+from .constants import SITES_1020  # noqa: E402,F401  (re-exported: historical location)
 
 
 @dataclass(frozen=True)

@@ -94,18 +94,37 @@ def write_edf(raw, path: Path, *, description: str) -> Path:
 
 def demo_norms_path() -> Path:
     """The shipped invented demo norms."""
-    from importlib.resources import files
+    from .data import data_path
 
-    return Path(str(files("sourcelab.data") / "demo_norms.tsv"))
+    return data_path("demo_norms.tsv")
+
+
+def demo_result(*, config=None, progress: bool | None = False):
+    """The demo analysis in memory: the invented participant against the invented norms.
+
+    Parameters
+    ----------
+    config : AnalysisConfig, optional
+        Default settings when omitted.
+    progress : bool | None
+        Stage progress on a terminal (None: when stderr is one).
+
+    Returns
+    -------
+    AnalysisResult
+    """
+    from .analysis import analyze
+
+    return analyze(demo_recording(), config=config, age=DEMO_AGE, norms=demo_norms_path(),
+                   condition=DEMO_CONDITION, progress=progress)
 
 
 def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 120.0) -> Path:
     """Simulate the invented cohort, analyse every member, and write norms (+ calibration)."""
+    from .analysis import analyze, fingerprint_for
     from .config import AnalysisConfig
-    from .norms import build_norms, write_norms
-    from .pipeline import analyze, fingerprint_for
-
     from .errors import InputError
+    from .norms import norms_from_tables, write_norms
 
     config = AnalysisConfig(n_boot=0)  # intervals do not change the values the norms need
     entries = []
@@ -117,10 +136,14 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 120.0)
             continue
         entries.append((pid, age, res.roi_table, res.sensor_table))
         log.info("demo cohort: %s (age %.1f) done", pid, age)
-    norms = build_norms(
+    norms = norms_from_tables(
         entries, fingerprint=fingerprint_for(config), condition=DEMO_CONDITION,
         cohort_info={"source": "INVENTED: simulated by sourcelab.demo (seed %d)" % COHORT_SEED},
         notes=("INVENTED demo norms: simulated adults, no real person's data. "
                "Never use them to assess a real person.",))
-    write_norms(norms, out)
+    written = write_norms(norms, out)
+    from .data import DATA_DIR, update_manifest
+
+    if Path(out).resolve().parent == DATA_DIR.resolve():  # the shipped file: record its hash
+        update_manifest({Path(out).name: written.sha256})
     return Path(out)

@@ -1,9 +1,10 @@
 """Open-format exports of an :class:`~sourcelab.result.AnalysisResult`.
 
 * :func:`export_stc`: MNE SourceEstimate files (``.stc``, one pair of -lh/-rh files per band and
-  measure; vertices ``[arange(10242)] * 2``, subject ``fsaverage``; the single time point is 0 s);
-* :func:`export_gifti`: GIfTI functional files per hemisphere and measure on fsaverage5, one data
-  array per band;
+  measure; vertices: the cortical fsaverage5 vertices of each hemisphere, subject ``fsaverage``;
+  the single time point is 0 s);
+* :func:`export_gifti`: GIfTI functional files per hemisphere and measure on fsaverage5 (10,242
+  vertices a hemisphere, NaN on the medial wall, which is not a source), one data array per band;
 * :func:`export_nifti`: MNI152 volumes (2 or 3 mm) per band and measure, by nearest-source fill
   in grey matter (see :mod:`sourcelab.figures.geometry`);
 * :func:`export_bids_derivatives`: all of the above plus the ROI and sensor tables in a BIDS
@@ -54,9 +55,12 @@ def _staged(out_dir: Path):
 def _maps(result, measure: str) -> np.ndarray:
     if measure not in MEASURES:
         raise ValueError(f"measure: {measure!r} is not one of {MEASURES}")
+    from .headmodel import load_head_model
+
     arr = np.asarray(result.source_abs if measure == "absolute" else result.source_rel)
-    if arr.ndim != 2 or arr.shape[1] != 2 * N_LEFT:
-        raise ValueError(f"result: source maps need shape (n_bands, {2 * N_LEFT}), got {arr.shape}")
+    n_src = load_head_model().n_src
+    if arr.ndim != 2 or arr.shape[1] != n_src:
+        raise ValueError(f"result: source maps need shape (n_bands, {n_src}), got {arr.shape}")
     return arr
 
 
@@ -74,11 +78,14 @@ def export_stc(result, out_dir, *, measures=MEASURES) -> list[Path]:
     paths : list of Path
         The stem of each estimate (``<measure>_<band>``); MNE writes ``<stem>-lh.stc`` and
         ``<stem>-rh.stc`` and reads either back with :func:`mne.read_source_estimate`.
-        Values are float32 (the ``.stc`` format), shape (20484, 1).
+        Values are float32 (the ``.stc`` format), shape (n_src, 1).
     """
     import mne
 
-    vertices = [np.arange(N_LEFT), np.arange(N_LEFT)]
+    from .headmodel import load_head_model
+
+    model = load_head_model()
+    vertices = [model.vertno[:model.n_left], model.vertno[model.n_left:] - N_LEFT]
     out_dir = Path(out_dir)
     stems = []
     with _staged(out_dir) as tmp:
@@ -116,11 +123,13 @@ def export_gifti(result, out_dir, *, measures=MEASURES, prefix: str = "") -> lis
     """
     import nibabel as nib
 
+    from .headmodel import load_head_model
+
     out_dir = Path(out_dir)
     paths = []
     with _staged(out_dir) as tmp:
         for measure in measures:
-            maps = _maps(result, measure)
+            maps = load_head_model().to_surface(_maps(result, measure))
             for h, (hemi, abbr) in enumerate(HEMI_BIDS.items()):
                 name = f"{prefix}{measure}.{abbr}.func.gii"
                 img = _gifti(maps[:, h * N_LEFT:(h + 1) * N_LEFT], result.bands.names)
@@ -223,11 +232,14 @@ def export_bids_derivatives(result, root, participant_id: str, *, resolution: in
         import nibabel as nib
 
         from .figures.geometry import sources_to_volume
+        from .headmodel import load_head_model
+
         for measure in MEASURES:
             maps = _maps(result, measure)
+            surf = load_head_model().to_surface(maps)
             for h, (hemi, abbr) in enumerate(HEMI_BIDS.items()):
                 stem = f"{base}_space-fsaverage5_hemi-{abbr}_desc-{measure}_power"
-                nib.save(_gifti(maps[:, h * N_LEFT:(h + 1) * N_LEFT], bands),
+                nib.save(_gifti(surf[:, h * N_LEFT:(h + 1) * N_LEFT], bands),
                          eeg / f"{stem}.func.gii")
                 (eeg / f"{stem}.json").write_text(json.dumps(
                     {"Bands": result.bands.as_list(), "Measure": measure,
@@ -241,15 +253,15 @@ def export_bids_derivatives(result, root, participant_id: str, *, resolution: in
         result.sensor_table.to_csv(eeg / f"{base}_desc-sensor_power.tsv", sep="\t", index=False,
                                    na_rep="n/a")
         prov = {"fingerprint": result.fingerprint.to_dict(), "config": result.config.to_dict(),
-                "recording": {k: v for k, v in (result.recording or {}).items()
+                "recording": {k: v for k, v in result.recording.to_dict().items()
                               if isinstance(v, (str, int, float, bool))},
-                "norms": result.norms}
+                "norms": None if result.norms is None else result.norms.to_dict()}
         (eeg / f"{base}_desc-sourcelab_provenance.json").write_text(
             json.dumps(prov, indent=2, default=str) + "\n", encoding="utf-8")
     return sub
 
 
 def _unit(measure: str) -> str:
-    from .result import UNITS
+    from .constants import UNITS
 
     return UNITS[measure]

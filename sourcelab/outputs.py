@@ -13,7 +13,6 @@ import numpy as np
 from . import __version__
 from .cautions import CAUTIONS
 from .provenance import atomic_output_dir
-from .result import AnalysisResult
 
 log = logging.getLogger("sourcelab")
 
@@ -30,18 +29,19 @@ def software_versions() -> dict:
     return out
 
 
-def provenance(result: AnalysisResult, *, command: list[str] | None = None) -> dict:
+def provenance(result, *, command: list[str] | None = None) -> dict:
     """The provenance record written as ``provenance.json``."""
+    rec = result.recording.to_dict()
     return {
         "sourcelab_provenance": 1,
         "command": command if command is not None else sys.argv,
-        "inputs": {"recording": {"path": result.recording.get("path"),
-                                 "sha256": result.recording.get("sha256")},
-                   "norms": result.norms},
-        "recording": result.recording,
+        "inputs": {"recording": {"path": rec["path"], "sha256": rec["sha256"]},
+                   "norms": None if result.norms is None else result.norms.to_dict()},
+        "recording": rec,
         "parameters": result.config.to_dict(),
         "fingerprint": result.fingerprint.to_dict(),
-        "quality": result.quality,
+        "quality": result.quality.to_dict(),
+        "warnings": list(result.warnings),
         "versions": software_versions(),
         "cautions": list(CAUTIONS),
     }
@@ -68,7 +68,7 @@ def _json_default(o):
     raise TypeError(f"not JSON serialisable: {type(o)}")
 
 
-def write_tables(result: AnalysisResult, folder: Path, *, command=None) -> None:
+def write_tables(result, folder: Path, *, command=None) -> None:
     """``roi_table.tsv``, ``sensor_table.tsv`` and ``provenance.json`` into ``folder``."""
     result.roi_table.to_csv(folder / "roi_table.tsv", sep="\t", index=False, na_rep="",
                             float_format="%.6g")
@@ -79,9 +79,12 @@ def write_tables(result: AnalysisResult, folder: Path, *, command=None) -> None:
                   default=_json_default, allow_nan=False)
 
 
-def write_analysis(result: AnalysisResult, out: str | Path, *, figures: bool = True,
-                   report: bool = True, exports: bool = True, command=None) -> Path:
-    """Write everything for one analysis into ``out`` (replaced atomically)."""
+def write_analysis(result, out: str | Path, *, figures: bool = True, report: bool = True,
+                   exports: bool = True, command=None) -> Path:
+    """Write everything for one analysis into ``out`` (replaced atomically).
+
+    See :func:`write_analysis_into` for the files.
+    """
     out = Path(out)
     with atomic_output_dir(out) as tmp:
         write_analysis_into(result, tmp, figures=figures, report=report, exports=exports,
@@ -89,64 +92,40 @@ def write_analysis(result: AnalysisResult, out: str | Path, *, figures: bool = T
     return out
 
 
-def write_analysis_into(result: AnalysisResult, folder: Path, *, figures: bool = True,
-                        report: bool = True, exports: bool = True, command=None) -> dict:
-    """Write the analysis into an existing (temporary) folder.
+def write_analysis_into(result, folder: Path, *, figures: bool = True, report: bool = True,
+                        exports: bool = True, command=None) -> dict:
+    """Write the analysis into an existing (temporary) folder; nothing is computed here.
 
     Always: ``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json``, ``leakage_brodmann.tsv``
     and, with norms, ``candidates.tsv`` and ``leakage_hints.tsv``.  Optional: ``figures/*.png``,
     ``report.html``, ``maps/`` (MNE SourceEstimate, GIfTI per hemisphere, NIfTI in MNI space).
-    Returns the figures (name → PNG bytes).
+
+    Returns
+    -------
+    dict
+        The figures written (name -> PNG bytes).
     """
-    from .trust import leakage_for, leakage_hints
-
     write_tables(result, folder, command=command)
-    cfg = result.config
-    leak = leakage_for("brodmann", method=cfg.method, orientation=cfg.orientation,
-                       lambda2=cfg.lambda2)
-    leak.to_tsv(folder / "leakage_brodmann.tsv")
-    extra = []
+    if result.leakage is not None:
+        result.leakage.to_tsv(folder / "leakage_brodmann.tsv")
+    if result.candidates is not None:
+        from .targets import write_candidates
+
+        write_candidates(result.candidates, folder / "candidates.tsv")
+    if result.leakage_hints is not None:
+        result.leakage_hints.to_csv(folder / "leakage_hints.tsv", sep="\t", index=False,
+                                    float_format="%.4g")
+    pngs: dict = {}
     if figures:
-        from .figures import figure_png
-        from .trust import plot_leakage
-
-        png = figure_png(plot_leakage(leak))  # closes the figure
-        (folder / "leakage_brodmann.png").write_bytes(png)
-        extra.append(("Leakage between areas", png,
-                      "Share of each row area's expected sLORETA power that comes from equal, "
-                      "uncorrelated activity in each column area (from the resolution matrix; "
-                      "log colour scale). Large off-diagonal shares mean the two areas cannot "
-                      "be told apart well with a template head and 19 electrodes."))
-    has_z = bool(result.roi_table["z"].notna().any())
-    if has_z:
-        from .targets import candidates_for_table, write_candidates
-
-        cand = candidates_for_table(result.roi_table)
-        write_candidates(cand, folder / "candidates.tsv")
-        hints = leakage_hints(result.roi_table[result.roi_table.atlas == "brodmann"], leak)
-        hints.to_csv(folder / "leakage_hints.tsv", sep="\t", index=False, float_format="%.4g")
-        extra.append(("Candidate regions and networks", cand.head(40),
-                      "Statistical deviations only, FDR-significant first, then by |z|. The "
-                      "choice of any training target rests with a licensed practitioner who "
-                      "weighs symptoms and history. Full list: candidates.tsv."))
-        extra.append(("Neighbour blur check", hints.head(60),
-                      "For each deviating Brodmann area, the areas that leak most power into "
-                      "it and whether they deviate the same way: if they do, the deviation may "
-                      "be a neighbour's activity blurred by the inverse."))
-    figs: dict = {}
-    if figures:
-        from .figures import result_figures
-        from .rois import load_atlas
-
-        figs = result_figures(result, outline=load_atlas("lobes"))
         fig_dir = folder / "figures"
         fig_dir.mkdir()
-        for name, png in figs.items():
+        pngs = result.figures(as_png=True)  # each figure closed as soon as it is rendered
+        for name, png in pngs.items():
             (fig_dir / (name.replace("/", "_") + ".png")).write_bytes(png)
     if report:
         from .report import write_report
 
-        write_report(result, folder / "report.html", figures=figs, extra_sections=extra)
+        write_report(result, folder / "report.html", figures=pngs)
     if exports:
         from .exports import export_gifti, export_nifti, export_stc
 
@@ -154,4 +133,4 @@ def write_analysis_into(result: AnalysisResult, folder: Path, *, figures: bool =
         export_stc(result, maps)
         export_gifti(result, maps)
         export_nifti(result, maps)
-    return figs
+    return pngs

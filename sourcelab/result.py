@@ -1,27 +1,133 @@
-"""The analysis result: a frozen dataclass that figures, report, norms and exports read."""
+"""What one analysis produced: :class:`AnalysisResult` and its typed parts.
+
+The result owns everything the analysis computed (tables, maps, candidates, leakage, the atlases
+it used) and knows how to present itself: :meth:`AnalysisResult.write` (the output folder),
+:meth:`AnalysisResult.figures` (matplotlib figures), :meth:`AnalysisResult.summary` (text) and a
+notebook view (``_repr_html_``).
+"""
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 from .config import AnalysisConfig
+from .constants import UNITS  # noqa: F401  (historical import location)
 from .provenance import Fingerprint
 
-#: Columns every ``roi_table`` has, in order (more may follow: p, fdr, CI columns ...).
+#: Columns every ``roi_table`` starts with, in order (more follow: p, fdr, interval columns ...).
 ROI_COLUMNS = ("atlas", "roi", "hemisphere", "band", "measure", "value", "unit", "n_vertices",
                "small", "z")
-#: Columns every ``sensor_table`` has.
+#: Columns every ``sensor_table`` starts with.
 SENSOR_COLUMNS = ("channel", "band", "measure", "value", "unit", "z")
 
-#: Units of the values by measure.
-UNITS = {
-    "absolute": "sLORETA power (standardised, data in µV)",
-    "relative": "fraction of total analysed power",
-    "sensor_absolute": "µV²",
-}
+
+@dataclass(frozen=True)
+class RecordingInfo:
+    """The analysed recording.
+
+    Attributes
+    ----------
+    path : str | None
+        The file read (None for a recording given in memory).
+    sha256 : str | None
+        Hash of every file read for it.
+    sfreq : float
+        Sampling rate, Hz.
+    duration_s : float
+    channel_map : dict of str -> str
+        Canonical 10-20 site -> label in the file.
+    original_reference : str
+        ``"average"``, ``"linked ears"``, ``"single site"`` or ``"unknown"`` (best guess).
+    interpolated : tuple of str
+        Sites replaced by spherical-spline interpolation.
+    annotations : tuple of (str, int, float)
+        (description, count, total duration s) of the file's annotations.
+    age : float | None
+        Participant age in years, as given.
+    condition : str | None
+        Recording condition, as given (e.g. ``"eyes closed"``).
+    """
+
+    path: str | None
+    sha256: str | None
+    sfreq: float
+    duration_s: float
+    channel_map: dict
+    original_reference: str
+    interpolated: tuple[str, ...] = ()
+    annotations: tuple[tuple[str, int, float], ...] = ()
+    age: float | None = None
+    condition: str | None = None
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class QualitySummary:
+    """Data quality of the analysed segment.
+
+    Attributes
+    ----------
+    kept_s : float
+        Clean data analysed, s.
+    rejected_s : dict of str -> float
+        Seconds removed per reason (see :class:`sourcelab.intake.CleanData`).
+    n_epochs : int
+        Clean epochs.
+    channel_kept_fraction : dict of str -> float
+        Per site, the fraction of candidate epochs in which it passed its own checks.
+    mains_hz : float | None
+        Notched mains frequency (None: none found).
+    thresholds : dict
+        Effective value of every threshold and filter edge.
+    reliability : dict of str -> ReliabilitySummary
+        Split-half and test-retest reliability, for ``"sensors"`` and the first atlas' areas.
+    """
+
+    kept_s: float
+    rejected_s: dict
+    n_epochs: int
+    channel_kept_fraction: dict
+    mains_hz: float | None
+    thresholds: dict
+    reliability: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["reliability"] = {k: v.to_dict() for k, v in self.reliability.items()}
+        return d
+
+
+@dataclass(frozen=True)
+class NormsInfo:
+    """The norms an analysis was z-scored against.
+
+    Attributes
+    ----------
+    path : str | None
+    sha256 : str | None
+    condition : str
+    cohort : dict
+        The cohort summary recorded in the norms file.
+    n_rows : int
+    fingerprint : Fingerprint
+    """
+
+    path: str | None
+    sha256: str | None
+    condition: str
+    cohort: dict
+    n_rows: int
+    fingerprint: Fingerprint
+
+    def to_dict(self) -> dict:
+        return {"path": self.path, "sha256": self.sha256, "condition": self.condition,
+                "cohort": dict(self.cohort), "n_rows": self.n_rows,
+                "fingerprint": self.fingerprint.to_dict()}
 
 
 @dataclass(frozen=True, eq=False)
@@ -35,7 +141,7 @@ class AnalysisResult:
     ch_names : tuple of str
         The 19 sites, canonical order.
     source_abs, source_rel : ndarray, shape (n_bands, n_src), float32
-        Absolute (standardised) and relative source band power per template source.
+        Absolute (standardised) and relative source band power per cortical template source.
     sensor_abs, sensor_rel : ndarray, shape (n_bands, n_ch)
         Absolute (µV²) and relative band power per electrode (average reference).
     roi_table : DataFrame
@@ -43,15 +149,21 @@ class AnalysisResult:
         ``z`` is NaN without norms.
     sensor_table : DataFrame
         Tidy, one row per channel x band x measure; columns start with :data:`SENSOR_COLUMNS`.
-    quality : dict
-        Data-quality figures: seconds kept/rejected, epochs, per-channel kept fraction, reliability.
-    recording : dict
-        Input summary: path, sha256, sfreq, duration_s, channel mapping, participant age.
-    norms : dict | None
-        Summary of the norms used (path, sha256, fingerprint), or None.
+    quality : QualitySummary
+    recording : RecordingInfo
+    norms : NormsInfo | None
+    warnings : tuple of str
+        Everything the reading, cleaning and z-scoring warned about, once each.
+    atlases : tuple of Atlas
+        The atlases of the ROI table (custom ROIs included).
+    leakage : Leakage | None
+        Area-to-area leakage of the inverse (Brodmann areas).
+    candidates : DataFrame | None
+        Ranked deviations (with norms), see :mod:`sourcelab.targets.candidates`.
+    leakage_hints : DataFrame | None
+        For each deviating area, the areas leaking most into it.
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch) | None
-        Per-epoch band cross-spectra (µV², as recorded; the kernel applies the average
-        reference), kept for resampling (confidence intervals) and reliability.
+        Per-epoch band cross-spectra (µV², as recorded), kept for resampling and reliability.
     """
 
     config: AnalysisConfig
@@ -61,33 +173,133 @@ class AnalysisResult:
     source_rel: np.ndarray
     sensor_abs: np.ndarray
     sensor_rel: np.ndarray
-    roi_table: pd.DataFrame
-    sensor_table: pd.DataFrame
-    quality: dict = field(default_factory=dict)
-    recording: dict = field(default_factory=dict)
-    norms: dict | None = None
+    roi_table: object
+    sensor_table: object
+    quality: QualitySummary
+    recording: RecordingInfo
+    norms: NormsInfo | None = None
+    warnings: tuple[str, ...] = ()
+    atlases: tuple = ()
+    leakage: object | None = None
+    candidates: object | None = None
+    leakage_hints: object | None = None
     epoch_csd: np.ndarray | None = None
 
+    # ------------------------------------------------------------------ access
     @property
     def bands(self):
+        """The analysis bands (:class:`sourcelab.config.Bands`)."""
         return self.config.bands
+
+    @property
+    def has_z(self) -> bool:
+        """True when the tables were z-scored against norms."""
+        return self.norms is not None
+
+    def atlas(self, name: str):
+        """One of the atlases of the ROI table, by name."""
+        for a in self.atlases:
+            if a.name == name:
+                return a
+        raise KeyError(f"no atlas {name!r} in this result; have "
+                       f"{[a.name for a in self.atlases]}")
 
     def source_map(self, band: str, measure: str = "absolute") -> np.ndarray:
         """Per-source values of one band, shape (n_src,)."""
         i = self.bands.names.index(band)
         return (self.source_abs if measure == "absolute" else self.source_rel)[i]
 
-    def roi_z_map(self, band: str, measure: str = "absolute", atlas: str = "brodmann",
-                  n_src: int | None = None) -> np.ndarray:
+    def roi_z_map(self, band: str, measure: str = "absolute",
+                  atlas: str = "brodmann") -> np.ndarray:
         """Per-source map of ROI z-scores (each source gets its ROI's z; NaN elsewhere)."""
-        from .rois import load_atlas
-
-        at = load_atlas(atlas)
-        n = n_src if n_src is not None else self.source_abs.shape[1]
-        out = np.full(n, np.nan)
+        at = self.atlas(atlas)
+        out = np.full(self.source_abs.shape[1], np.nan)
         t = self.roi_table
         sel = t[(t.atlas == atlas) & (t.band == band) & (t.measure == measure)]
         z = {(r.roi, r.hemisphere): r.z for r in sel.itertuples()}
         for roi in at.rois:
             out[roi.vertices] = z.get((roi.name, roi.hemisphere), np.nan)
         return out
+
+    # ------------------------------------------------------------------ presentation
+    def figures(self, **options) -> dict:
+        """The figure set as open matplotlib figures, by name.
+
+        Parameters
+        ----------
+        **options
+            Passed to :func:`sourcelab.figures.result_figures` (``bands``, ``measures``,
+            ``surfaces``, ``z_threshold`` ...).
+
+        Returns
+        -------
+        dict of str -> matplotlib.figure.Figure
+            Close them (``matplotlib.pyplot.close``) when done.
+        """
+        from .figures import result_figures
+
+        return result_figures(self, **options)
+
+    def write(self, out: str | Path, *, figures: bool = True, report: bool = True,
+              maps: bool = True, command: list[str] | None = None) -> Path:
+        """Write the output folder (tables, provenance, figures, report, maps), atomically.
+
+        Parameters
+        ----------
+        out : str | Path
+            A new folder, or an earlier sourcelab output folder (replaced).
+        figures, report, maps : bool
+            Which of the slower outputs to write.
+        command : list of str, optional
+            The command line to record in ``provenance.json``.
+
+        Returns
+        -------
+        Path
+            ``out``.
+        """
+        from .outputs import write_analysis
+
+        return write_analysis(self, out, figures=figures, report=report, exports=maps,
+                              command=command)
+
+    def summary(self) -> str:
+        """A few lines for a terminal or a log: data kept, deviations, warnings, cautions."""
+        from .cautions import SHORT
+        from .constants import Z_THRESHOLD
+
+        q = self.quality
+        lines = [f"analysed {self.recording.path or 'recording'}: {q.kept_s:.0f} s of clean "
+                 f"data in {q.n_epochs} epochs"]
+        t = self.roi_table
+        if self.has_z:
+            z = t["z"].to_numpy(dtype=float)
+            n = int(np.isfinite(z).sum())
+            big = int(np.sum(np.abs(z[np.isfinite(z)]) > Z_THRESHOLD))
+            lines.append(f"{n} area and network z-scores; {big} with |z| > {Z_THRESHOLD} "
+                         f"({0.05 * n:.0f} expected by chance alone)")
+            if self.candidates is not None and len(self.candidates):
+                c = self.candidates.iloc[0]
+                lines.append(f"largest deviation: {c['roi']} {c['hemisphere']} {c['band']} "
+                             f"{c['measure']} power, z = {c['z']:+.2f}")
+        else:
+            lines.append("no norms given: values only, no z-scores")
+        lines += [f"warning: {w}" for w in self.warnings]
+        lines.append(SHORT)
+        return "\n".join(lines)
+
+    def _repr_html_(self) -> str:
+        import html
+
+        rows = "".join(f"<li>{html.escape(line)}</li>" for line in self.summary().splitlines())
+        table = ""
+        if self.candidates is not None and len(self.candidates):
+            cols = [c for c in ("rank", "roi", "hemisphere", "band", "measure", "z")
+                    if c in self.candidates.columns]
+            table = self.candidates[cols].head(10).to_html(index=False, float_format="%.2f")
+        return f"<div><b>sourcelab analysis</b><ul>{rows}</ul>{table}</div>"
+
+    def __repr__(self) -> str:
+        return (f"<AnalysisResult {self.recording.path or 'recording'}: "
+                f"{self.quality.n_epochs} epochs, {len(self.bands)} bands, "
+                f"{'z-scored' if self.has_z else 'no norms'}>")

@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import numpy as np
 
-from .config import Bands
 from .errors import InputError
 
 
@@ -17,7 +16,7 @@ def _band_bins(n_times: int, sfreq: float, lo: float, hi: float) -> np.ndarray:
     return np.flatnonzero((freqs >= lo) & (freqs < hi))
 
 
-def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.ndarray:
+def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands) -> np.ndarray:
     """Per-epoch band cross-spectral matrices (real part), one Welch segment per epoch.
 
     Each epoch is mean-removed, Hann-windowed and Fourier transformed; the one-sided cross-spectral
@@ -76,15 +75,27 @@ def _hann(n: int) -> np.ndarray:
     return 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(n) / n)
 
 
+def average_reference_projector(n_ch: int) -> np.ndarray:
+    """The average-reference projector ``P = I - 11ᵀ/n``, shape (n_ch, n_ch).
+
+    Re-referencing to the average is a projection: it must be applied to the data model (leadfield
+    and data alike) for inverse modelling, never by subtracting a noisy mean from one of them only.
+    """
+    return np.eye(n_ch) - 1.0 / n_ch
+
+
 def average_reference(csd: np.ndarray) -> np.ndarray:
-    """Apply the average-reference projector ``P = I - 11ᵀ/n`` to cross-spectra ``P C P``.
+    """Apply the average-reference projector to cross-spectra: ``P C P``.
 
     Parameters
     ----------
     csd : ndarray, shape (..., n_ch, n_ch)
+
+    Returns
+    -------
+    ndarray, shape (..., n_ch, n_ch)
     """
-    n = csd.shape[-1]
-    p = np.eye(n) - 1.0 / n
+    p = average_reference_projector(csd.shape[-1])
     return p @ csd @ p
 
 

@@ -23,3 +23,31 @@ def head_model():
     from sourcelab.headmodel import load_head_model
 
     return load_head_model()
+
+
+def pytest_configure(config):
+    # the atlas build scripts live in the top-level atlases/ folder of a source checkout
+    import sys
+    from pathlib import Path
+
+    root = str(Path(__file__).resolve().parent.parent)
+    if root not in sys.path:
+        sys.path.append(root)
+
+
+@pytest.fixture(scope="session")
+def demo_result():
+    """The real demo analysis (invented participant against the invented demo norms), as
+    ``sourcelab demo`` computes it: what figures, report and exports are tested on."""
+    from sourcelab.demo import demo_result as run
+
+    return run()
+
+
+@pytest.fixture(scope="session")
+def plain_result():
+    """The demo recording analysed without norms (no z-scores)."""
+    from sourcelab.analysis import analyze
+    from sourcelab.demo import demo_recording
+
+    return analyze(demo_recording())

@@ -167,7 +167,7 @@ def test_batch_outputs_group_table_and_failure_line(serial_run, cohort):
 
 def test_group_table_matches_a_direct_analysis(serial_run):
     # Two routes to the same numbers: batch (file → worker → TSV → group table) and analyze().
-    from sourcelab.pipeline import analyze
+    from sourcelab.analysis import analyze
 
     items, summary = serial_run
     direct = analyze(items[2].path, config=AnalysisConfig()).roi_table

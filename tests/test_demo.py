@@ -13,7 +13,7 @@ def test_demo_norms_match_pipeline():
     from sourcelab.config import AnalysisConfig
     from sourcelab.demo import demo_norms_path
     from sourcelab.norms import read_norms
-    from sourcelab.pipeline import fingerprint_for
+    from sourcelab.analysis import fingerprint_for
 
     norms = read_norms(demo_norms_path())
     assert norms.fingerprint.differences(fingerprint_for(AnalysisConfig())) == []

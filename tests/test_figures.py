@@ -10,7 +10,6 @@ import pytest
 from matplotlib.figure import Figure
 
 from sourcelab.figures import (
-    MNI305_TO_MNI152,
     Z_CMAP,
     glass_brain,
     network_chart,
@@ -20,16 +19,20 @@ from sourcelab.figures import (
     roi_heatmap,
     sensor_info,
     sensor_topomaps,
-    source_positions_mni305,
     surface_views,
     z_scale,
 )
-from sourcelab.figures.demo import DEMO_ATLAS, DEMO_NETWORKS, demo_result
+from sourcelab.figures.geometry import source_positions_mni305
+from sourcelab.headmodel import load_head_model
+from sourcelab.headmodel.geometry import MNI305_TO_MNI152
+
+N_SRC = load_head_model().n_src
+N_LEFT = load_head_model().n_left
 
 
 @pytest.fixture(scope="module")
-def result():
-    return demo_result(seed=1)
+def result(demo_result):
+    return demo_result
 
 
 @pytest.fixture(autouse=True)
@@ -85,13 +88,13 @@ def test_mni305_to_mni152_is_a_small_correction():
     assert abs(np.linalg.det(A[:3, :3]) - 1) < 0.02
     assert np.linalg.norm(A[:3, 3]) < 3
     pos = source_positions_mni305()
-    assert pos.shape == (20484, 3)
+    assert pos.shape == (N_SRC, 3)
     # left hemisphere first: left sources have negative x on average
-    assert pos[:10242, 0].mean() < -20 and pos[10242:, 0].mean() > 20
+    assert pos[:N_LEFT, 0].mean() < -20 and pos[N_LEFT:, 0].mean() > 20
 
 
 def test_glass_brain_z(result):
-    zmap = np.where(np.arange(20484) < 10242, 2.5, -2.5)
+    zmap = np.where(np.arange(N_SRC) < N_LEFT, 2.5, -2.5)
     fig = glass_brain(zmap, scale=z_scale(limit=3), title="z", display_mode="lyrz")
     assert isinstance(fig, Figure)
     data_axes = [ax for ax in fig.axes if ax not in _colourbar_axes(fig) and ax.images]
@@ -108,7 +111,7 @@ def test_glass_brain_power_and_bad_input(result, tmp_path):
     fig = glass_brain(v, scale=power_scale(v), display_mode="ortho", output_file=out)
     assert out.stat().st_size > 1000
     _check_colourbar(fig, "sLORETA power", symmetric=False)
-    with pytest.raises(ValueError, match="20484"):
+    with pytest.raises(ValueError, match=str(N_SRC)):
         glass_brain(np.ones(100), scale=power_scale())
     with pytest.raises(ValueError, match="display_mode"):
         glass_brain(v, scale=power_scale(v), display_mode="sideways")
@@ -145,12 +148,14 @@ def test_sensor_topomaps(result):
 
 
 def test_roi_bars_sorted_by_abs_z(result):
-    fig = roi_bars(result.roi_table, band="alpha", atlas=DEMO_ATLAS, scale=z_scale())
+    fig = roi_bars(result.roi_table, band="theta", atlas="lobes", scale=z_scale())
     ax = next(a for a in fig.axes if a.patches)
     widths = [p.get_width() for p in ax.patches]
     # bars are drawn bottom-up, so |z| must be increasing along the list
     assert np.all(np.diff(np.abs(widths)) >= 0)
-    assert max(widths) == pytest.approx(3.4)  # the invented occipital deviation
+    t = result.roi_table
+    z = t[(t.atlas == "lobes") & (t.band == "theta") & (t.measure == "absolute")].z
+    assert max(np.abs(widths)) == pytest.approx(np.abs(z).max())
     lo, hi = ax.get_xlim()
     assert lo == -hi
     guides = sorted(round(line.get_xdata()[0], 2) for line in ax.lines if line.get_linestyle() == "--")
@@ -159,12 +164,13 @@ def test_roi_bars_sorted_by_abs_z(result):
 
 
 def test_roi_heatmap_and_networks(result):
-    fig = roi_heatmap(result.roi_table, measure="absolute", atlas=DEMO_ATLAS)
+    fig = roi_heatmap(result.roi_table, measure="absolute", atlas="lobes")
     ax = next(a for a in fig.axes if a.images)
-    assert ax.images[0].get_array().shape == (5, 10)  # 5 bands x 10 ROIs
+    n_lobes = len(result.atlas("lobes").rois)
+    assert ax.images[0].get_array().shape == (5, n_lobes)  # 5 bands x lobes
     assert ax.images[0].norm.vmin == -ax.images[0].norm.vmax
     _check_colourbar(fig, "z-score", symmetric=True)
-    fn = network_chart(result.roi_table, atlas=DEMO_NETWORKS, measure="absolute")
+    fn = network_chart(result.roi_table, atlas="yeo7", measure="absolute")
     ax = fn.axes[0]
     assert len(ax.collections) == 5  # one marker set per band
     lo, hi = ax.get_xlim()
@@ -188,28 +194,31 @@ def test_roi_heatmap_many_rois_turns_to_rows():
     _check_colourbar(fig, "z-score", symmetric=True)
 
 
-def test_result_figures_keys(result):
+def test_result_figures_keys(result, plain_result):
     figs = result_figures(result, surfaces=False, measures=("absolute",), resolution=3,
                           z_map_atlas=None, bands=("theta", "alpha"))
     names = ("theta", "alpha")
     expected = ({f"glass/{b}/absolute" for b in names} | {f"roi-bars/{b}/absolute" for b in names}
                 | {"topomap/absolute", "topomap-z/absolute", "roi-heatmap/absolute",
                    "networks/absolute"})
-    assert set(figs) == expected
-    assert all(v.startswith(b"\x89PNG") for v in figs.values())
-    no_z = result_figures(demo_result(with_z=False), surfaces=False, measures=("relative",),
+    assert set(figs) == expected | {"leakage"}
+    assert all(isinstance(v, Figure) for v in figs.values())  # notebook users see figures
+    png = result_figures(result, surfaces=False, measures=("absolute",), resolution=3,
+                         z_map_atlas=None, bands=("alpha",), as_png=True)
+    assert all(v.startswith(b"\x89PNG") for v in png.values())
+    no_z = result_figures(plain_result, surfaces=False, measures=("relative",),
                           resolution=3, bands=("alpha",))
-    assert set(no_z) == {"glass/alpha/relative", "topomap/relative"}
+    assert set(no_z) == {"glass/alpha/relative", "topomap/relative", "leakage"}
     with pytest.raises(ValueError, match="bands"):
         result_figures(result, bands=("gamma",))
 
 
 def test_result_figures_in_worker_processes(result):
     parallel = result_figures(result, n_jobs=2, surfaces=False, measures=("absolute",),
-                              resolution=3, z_map_atlas=None, bands=("alpha",))
+                              resolution=3, z_map_atlas=None, bands=("alpha",), as_png=True)
     assert set(parallel) == {"glass/alpha/absolute", "roi-bars/alpha/absolute",
                              "topomap/absolute", "topomap-z/absolute", "roi-heatmap/absolute",
-                             "networks/absolute"}
+                             "networks/absolute", "leakage"}
     assert all(v.startswith(b"\x89PNG") for v in parallel.values())
     with pytest.raises(ValueError, match="n_jobs"):
         result_figures(result, n_jobs=0)

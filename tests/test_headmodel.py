@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy.spatial import ConvexHull, cKDTree
 
-from sourcelab.config import SITES_1020
+from sourcelab.constants import SITES_1020
 from sourcelab.errors import InputError
 from sourcelab.headmodel import (
     HeadModel,
@@ -20,17 +20,16 @@ from sourcelab.headmodel import (
     shipped_path,
     to_mne_forward,
 )
-from sourcelab.headmodel.build import (
-    mne_fsaverage_dir,
-    ray_surface_distance,
-    read_trans,
-    sidecar_path,
-    three_layer_meshes,
-)
+from sourcelab.headmodel.build import ray_surface_distance, three_layer_meshes
+from sourcelab.headmodel.ingredients import mne_fsaverage_dir, read_trans
 from sourcelab.headmodel.validate import rdm_mag, sphere_leadfields
 from sourcelab.provenance import sha256_file
 
-N_SRC = 20_484  # 2 x 10,242 fsaverage5 vertices (Fischl et al. 1999, Hum Brain Mapp 8:272-284)
+# 2 x 10,242 fsaverage5 vertices (Fischl et al. 1999, Hum Brain Mapp 8:272-284) minus the 1,769
+# medial-wall vertices of Yeo et al. 2011's fsaverage labels (label 0; DATA-SOURCES.md).
+N_SURFACE = 20_484
+N_MEDIAL_WALL = 1_769
+N_SRC = N_SURFACE - N_MEDIAL_WALL
 
 
 @pytest.fixture(scope="module")
@@ -46,14 +45,14 @@ def _to_mri_m(model, pts_head_m):
 # ----------------------------------------------------------------------------- shipped file
 def test_shipped_file_shapes_and_hash(model):
     path = shipped_path()
-    # size limit and hash recording: project requirement (<= 10 MB, sha256 in the sidecar)
+    # size limit and hash recording: project requirement (<= 10 MB, sha256 in the manifest)
     assert path.stat().st_size <= 10 * 1024**2
-    side = json.loads(sidecar_path(path).read_text())
-    assert side["sha256"] == sha256_file(path) == model.sha256
+    manifest = json.loads((path.parent / "MANIFEST.json").read_text())["files"]
+    assert manifest[path.name] == sha256_file(path) == model.sha256
     assert model.ch_names == SITES_1020
     assert model.gain.shape == (19, 3 * N_SRC) and model.n_src == N_SRC
-    assert model.n_left == 10_242
     assert model.src_pos.shape == model.src_nn.shape == model.src_mni.shape == (N_SRC, 3)
+    assert model.surface.white.shape == (N_SURFACE, 3)
     assert np.isfinite(model.gain).all() and np.abs(model.gain).max() > 0
     with np.load(path) as z:  # stored as float32 (project requirement)
         assert z["gain"].dtype == np.float32
@@ -74,13 +73,38 @@ def test_normals_unit_and_mostly_outward(model):
         assert np.mean(np.einsum("ij,ij->i", n, p - p.mean(0)) > 0) > 0.7
 
 
-def test_src_mni_is_nilearn_fsaverage5_white_and_matches_head_frame(model):
-    # Reference: nilearn's own loader of the packaged fsaverage5 white surfaces.
-    from nilearn.datasets import load_fsaverage
+def test_sources_are_the_cortex_outside_the_medial_wall(model):
+    # The medial wall (FreeSurfer's cut, not cortex) is label 0 of Yeo et al. 2011's fsaverage
+    # parcellation (J Neurophysiol 106:1125-1165), read here from the annotation's own file.
+    with np.load(shipped_path().parent / "yeo7_fsaverage5.npz") as z:
+        yeo = z["labels"]
+    assert (yeo == 0).sum() == N_MEDIAL_WALL
+    np.testing.assert_array_equal(model.vertno, np.flatnonzero(yeo > 0))
+    np.testing.assert_array_equal(model.surface.cortex, yeo > 0)
+    assert model.n_left == int((yeo[:10_242] > 0).sum())
+    # per-source maps go to the surface with the medial wall empty, and back
+    v = np.arange(model.n_src, dtype=float)
+    surf = model.to_surface(v)
+    assert np.isnan(surf[yeo == 0]).all() and np.array_equal(model.from_surface(surf), v)
 
-    mesh = load_fsaverage("fsaverage5")["white_matter"]
-    ref = np.concatenate([mesh.parts["left"].coordinates, mesh.parts["right"].coordinates])
-    np.testing.assert_allclose(model.src_mni, ref, atol=1e-4)
+
+def test_meshes_are_nilearn_fsaverage5_and_match_head_frame(model):
+    # Reference: nilearn's own loader of the packaged fsaverage5 meshes.
+    from nilearn.datasets import load_fsaverage, load_fsaverage_data
+
+    fs = load_fsaverage("fsaverage5")
+    for key, ours in (("white_matter", model.surface.white), ("pial", model.surface.pial),
+                      ("inflated", model.surface.inflated)):
+        ref = np.concatenate([fs[key].parts["left"].coordinates,
+                              fs[key].parts["right"].coordinates])
+        np.testing.assert_allclose(ours, ref, atol=1e-4)
+    faces = fs["white_matter"].parts
+    np.testing.assert_array_equal(model.surface.hemi_faces("right"), faces["right"].faces)
+    sulc = load_fsaverage_data("fsaverage5", data_type="sulcal")
+    np.testing.assert_allclose(model.surface.sulc[:10_242],
+                               np.ravel(sulc.data.parts["left"]), atol=1e-5)
+    ref = np.concatenate([fs["white_matter"].parts[h].coordinates for h in ("left", "right")])
+    np.testing.assert_allclose(model.src_mni, ref[model.vertno], atol=1e-4)
     # Frame convention (model.py): src_pos is head frame; head -> MRI gives src_mni (mm).
     np.testing.assert_allclose(_to_mri_m(model, model.src_pos) * 1e3, model.src_mni, atol=1e-6)
     # Left hemisphere first: x < 0 in MNI305 (Talairach & Tournoux 1988 axis convention).
@@ -172,22 +196,30 @@ def test_gain_close_to_fitted_sphere_model(model):
 
 
 # ----------------------------------------------------------------------------- loader errors
-def test_loader_rejects_missing_and_tampered_files(tmp_path):
+def test_loader_rejects_missing_damaged_and_tampered_files(tmp_path, monkeypatch):
     with pytest.raises(InputError, match="not found"):
         load_head_model(tmp_path / "absent.npz")
     copy = tmp_path / "hm.npz"
     shutil.copy(shipped_path(), copy)
-    with pytest.raises(InputError, match="sidecar"):
-        load_head_model(copy)
-    shutil.copy(sidecar_path(shipped_path()), sidecar_path(copy))
     assert load_head_model(copy).sha256 == load_head_model().sha256
-    data = bytearray(copy.read_bytes())
-    data[len(data) // 2] ^= 0xFF
     bad = tmp_path / "bad.npz"
-    bad.write_bytes(bytes(data))
-    shutil.copy(sidecar_path(shipped_path()), sidecar_path(bad))
-    with pytest.raises(InputError, match="sha256"):
+    bad.write_bytes(copy.read_bytes()[: copy.stat().st_size // 2])  # truncated zip
+    with pytest.raises(InputError, match="unreadable"):
         load_head_model(bad)
+    # the shipped file is checked against the manifest: a changed byte is refused
+    import sourcelab.data as data
+    from sourcelab.headmodel import load as load_mod
+
+    monkeypatch.setattr(data, "manifest", lambda: {shipped_path().name: "0" * 64})
+    data.shipped_bytes.cache_clear()
+    load_mod._load_shipped.cache_clear()
+    try:
+        with pytest.raises(InputError, match="sha256"):
+            load_head_model()
+    finally:
+        monkeypatch.undo()
+        data.shipped_bytes.cache_clear()
+        load_mod._load_shipped.cache_clear()
 
 
 # ----------------------------------------------------------------------------- MNE helpers
@@ -203,8 +235,8 @@ def test_make_info():
 def test_to_mne_forward_carries_the_shipped_gain(model):
     fwd = to_mne_forward(model)
     assert fwd["sol"]["data"].shape == (19, 3 * N_SRC) and not fwd["surf_ori"]
-    assert [len(s["vertno"]) for s in fwd["src"]] == [10_242, 10_242]
-    assert all((s["vertno"] == np.arange(10_242)).all() for s in fwd["src"])
+    got = np.concatenate([s["vertno"] + h * 10_242 for h, s in enumerate(fwd["src"])])
+    np.testing.assert_array_equal(got, model.vertno)
     np.testing.assert_array_equal(fwd["sol"]["data"], model.gain)
     np.testing.assert_array_equal(fwd["source_rr"], model.src_pos)
     # MNE's own conversion to surface-normal orientation must give HeadModel.gain_fixed
@@ -301,6 +333,7 @@ def test_rebuild_reproduces_shipped_file(tmp_path, capsys, model):
     assert "peak memory" in capsys.readouterr().out
     new = load_head_model(out)
     np.testing.assert_array_equal(new.src_pos, model.src_pos)
-    np.testing.assert_array_equal(new.src_mni, model.src_mni)
+    np.testing.assert_array_equal(new.vertno, model.vertno)
+    np.testing.assert_array_equal(new.surface.faces, model.surface.faces)
     np.testing.assert_allclose(new.ch_pos, model.ch_pos, atol=1e-12)
     np.testing.assert_allclose(new.gain, model.gain, rtol=1e-4, atol=1e-4 * np.abs(model.gain).max())

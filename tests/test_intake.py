@@ -10,11 +10,12 @@ import numpy as np
 import pytest
 from scipy.signal import welch
 
-from sourcelab.config import SITES_1020, AnalysisConfig
+from sourcelab.config import AnalysisConfig
+from sourcelab.constants import SITES_1020
 from sourcelab.errors import InputError
 from sourcelab.intake import (
     band_power, canonical_site, clean_recording, detect_mains, epoch_band_power, plot_quality,
-    read_recording, reliability, reliability_summary, spearman_brown, split_half, test_retest,
+    read_recording, pearson_r, reliability_summary, spearman_brown, split_half, test_retest,
 )
 
 matplotlib.use("Agg")
@@ -255,8 +256,8 @@ def test_reliability_properties(rng):
     assert rr.flagged.all() and rr.kind == "test-retest"
     # the flag uses the uncorrected r
     assert np.all(rr.flagged == (rr.r < 0.9))
-    assert reliability([1, 2, 3, 4], [2, 4, 6, 8]) == pytest.approx(1.0)
-    assert reliability([1, 2, 3, 4], [8, 6, 4, 2]) == pytest.approx(-1.0)
+    assert pearson_r([1, 2, 3, 4], [2, 4, 6, 8]) == pytest.approx(1.0)
+    assert pearson_r([1, 2, 3, 4], [8, 6, 4, 2]) == pytest.approx(-1.0)
 
 
 def test_epoch_band_power_feeds_reliability(synth):
@@ -437,7 +438,7 @@ def test_reliability_summary_is_json_ready(rng):
     topo = rng.uniform(1, 100, (2, 19))
     power = topo[None] * rng.lognormal(0, 0.05, (30, 2, 19))
     power[:, 1] = rng.lognormal(0, 1.0, (30, 19))  # an unreliable band
-    s = reliability_summary(power, ["alpha", "beta"], threshold=0.9)
+    s = reliability_summary(power, ["alpha", "beta"], threshold=0.9).to_dict()
     json.dumps(s, allow_nan=False)
     assert s["flagged_bands"] == ["beta"] and s["n_epochs"] == 30
     assert s["split_half"]["alpha"] > 0.95

@@ -9,9 +9,9 @@ from scipy import stats
 
 from sourcelab.config import DEFAULT_BANDS
 from sourcelab.errors import InputError
-from sourcelab.norms import (COLUMNS, TRANSFORMS, Norms, apply_norms, bh_adjust, build_norms,
+from sourcelab.norms import (COLUMNS, TRANSFORMS, Norms, apply_norms, bh_adjust, norms_from_tables,
                              chance_summary, get_transform, read_norms, write_norms)
-from sourcelab.norms.simulate import gaussian_cohort
+from sourcelab.simulate import gaussian_cohort
 from sourcelab.provenance import Fingerprint
 
 FP = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
@@ -25,7 +25,7 @@ def cohort():
 
 @pytest.fixture(scope="module")
 def norms(cohort):
-    return build_norms(cohort.entries, fingerprint=FP, condition="eyes closed", degree=1)
+    return norms_from_tables(cohort.entries, fingerprint=FP, condition="eyes closed", degree=1)
 
 
 @pytest.fixture()
@@ -35,12 +35,25 @@ def norms_file(norms, tmp_path):
 
 # ----------------------------------------------------------------------------- reference facts
 
-def test_normal_reference_values():
-    # scipy.stats normal facts (DATA-SOURCES.md); P(0<Z<1) is also common practice
-    assert stats.norm.cdf(1) - 0.5 == pytest.approx(0.341345, abs=1e-6)
-    assert stats.norm.cdf(2) - stats.norm.cdf(-2) == pytest.approx(0.954500, abs=1e-6)
-    # the two-sided p of apply_norms is 1 - P(|Z|<|z|): at |z| = 2 it must be 0.045500
-    assert 2 * stats.norm.sf(2.0) == pytest.approx(1 - 0.954500, abs=1e-6)
+def test_apply_norms_known_z_and_p():
+    # A hand-made one-quantity norm (degree 0, mean 1, SD 0.5 on log10): a value of 100 is
+    # z = (log10(100) - 1) / 0.5 = +2 and a value of 1 is z = -2; the two-sided p is
+    # 1 - P(|Z| < 2) = 1 - 0.954500 (standard normal table, DATA-SOURCES.md); the chance
+    # summary's expectation beyond 1.96 is 1 - 0.950004 per test.
+    row = {"kind": "roi", "atlas": "brodmann", "name": "BA17", "hemisphere": "left",
+           "band": "alpha", "measure": "absolute", "age_min": 10.0, "age_max": 80.0,
+           "model": "binned", "degree": 0, "transform": "log10", "b0": 1.0, "b1": 0.0,
+           "b2": 0.0, "b3": 0.0, "sd": 0.5, "n": 50}
+    nm = Norms(table=pd.DataFrame([row]), fingerprint=FP, condition="eyes closed")
+    t = pd.DataFrame({"atlas": ["brodmann"] * 2, "roi": ["BA17"] * 2, "hemisphere": ["left"] * 2,
+                      "band": ["alpha"] * 2, "measure": ["absolute"] * 2, "value": [100.0, 1.0]})
+    out = apply_norms(t, nm, age=30.0, fingerprint=FP, condition="eyes closed")
+    np.testing.assert_allclose(out["z"], [2.0, -2.0], rtol=1e-12)
+    np.testing.assert_allclose(out["p"], 1 - 0.954500, atol=1e-6)
+    from sourcelab.norms import chance_summary
+
+    assert chance_summary(out)["expected_beyond_1.96"] == pytest.approx(2 * (1 - 0.950004),
+                                                                        abs=1e-6)
 
 
 # ----------------------------------------------------------------------------- transforms

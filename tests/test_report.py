@@ -12,7 +12,6 @@ import pandas as pd
 import pytest
 
 from sourcelab.figures import result_figures
-from sourcelab.figures.demo import demo_result
 from sourcelab.report import CAUTIONS, MAX_BYTES, SECTIONS, write_report
 
 
@@ -44,14 +43,14 @@ class _Collector(HTMLParser):
 
 
 @pytest.fixture(scope="module")
-def result():
-    return demo_result(seed=3)
+def result(demo_result):
+    return demo_result
 
 
 @pytest.fixture(scope="module")
 def small_figures(result):
     return result_figures(result, surfaces=False, measures=("absolute",), resolution=3,
-                          z_map_atlas=None, bands=("alpha",))
+                          z_map_atlas=None, bands=("alpha",), as_png=True)
 
 
 def _parse(path):
@@ -99,23 +98,27 @@ def test_report_sections_cautions_and_self_contained(result, small_figures, tmp_
 def test_deviation_table_lists_large_z_with_fdr(result, small_figures, tmp_path):
     out = write_report(result, tmp_path / "r.html", figures=small_figures)
     text = out.read_text(encoding="utf-8")
-    section = text[text.index('id="deviations"'):text.index('id="methods"')]
-    # the invented occipital deviation (z = 3.4) is listed, with the FDR column
-    assert "occipital" in section and "3.400" in section and "fdr_significant" in section
+    start = text.index('id="deviations"')
+    section = text[start:text.index("<section", start)]
+    # the largest deviation is listed with its z, and the FDR column is there
+    t = result.roi_table
+    top = t.loc[t["z"].abs().idxmax()]
+    assert top["roi"] in section and f"{top['z']:.3f}" in section and "fdr" in section
     n_rows = section.count("<tr") - 1
     rt, st = result.roi_table, result.sensor_table
     expected = int((rt["z"].abs() > 1.96).sum() + (st["z"].abs() > 1.96).sum())
     assert n_rows == expected
 
 
-def test_report_without_norms(tmp_path):
-    r = demo_result(with_z=False)
+def test_report_without_norms(plain_result, tmp_path):
+    r = plain_result
     figs = result_figures(r, surfaces=False, measures=("relative",), resolution=3,
-                          bands=("alpha",))
+                          bands=("alpha",), as_png=True)
     out = write_report(r, tmp_path / "r.html", figures=figs)
     text = out.read_text(encoding="utf-8")
     assert "No norms were given" in text and "No norms were used" in text
-    section = text[text.index('id="deviations"'):text.index('id="methods"')]
+    start = text.index('id="deviations"')
+    section = text[start:text.index("<section", start)]
     assert "<table" not in section
 
 

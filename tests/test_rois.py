@@ -9,10 +9,22 @@ import numpy as np
 import pytest
 
 from sourcelab.errors import InputError
-from sourcelab.rois import (ROI_MODES, SMALL_MIN_VERTICES, atlas_summary, load_atlas,
-                            load_custom_rois, plot_atlas, roi_reduce)
-from sourcelab.rois._geometry import (N_PER_HEMI, N_SRC, mni152_to_mni305, mni305_to_mni152,
-                                      template_surface)
+from sourcelab.figures.atlas import plot_atlas
+from sourcelab.headmodel import load_head_model
+from sourcelab.headmodel.geometry import mni152_to_mni305, mni305_to_mni152
+from sourcelab.rois import ROI_MODES, SMALL_MIN_VERTICES, atlas_summary, load_atlas, \
+    load_custom_rois, roi_reduce
+
+MODEL = load_head_model()
+N_SRC = MODEL.n_src
+N_PER_HEMI = 10_242  # fsaverage5 surface vertices per hemisphere
+
+
+def _src(surface_vertices) -> np.ndarray:
+    """Source indices of cortical surface vertices (medial-wall vertices are not sources)."""
+    v = np.asarray(surface_vertices)
+    keep = MODEL.surface.cortex[v]
+    return np.searchsorted(MODEL.vertno, v[keep])
 
 matplotlib.use("Agg")
 
@@ -33,10 +45,10 @@ def test_mni305_to_mni152_published_example():
     np.testing.assert_allclose(mni152_to_mni305(mni305_to_mni152(p)), p, atol=1e-10)
 
 
-def test_template_surface_is_nilearn_fsaverage5():
+def test_template_surface_is_fsaverage5():
     # nilearn packages fsaverage5 with 10,242 vertices per hemisphere (ico-5), left first here.
-    s = template_surface()
-    assert s.white.shape == s.pial.shape == (N_SRC, 3)
+    s = MODEL.surface
+    assert s.white.shape == s.pial.shape == (2 * N_PER_HEMI, 3)
     assert np.all(s.white[:N_PER_HEMI, 0].mean() < 0) and s.white[N_PER_HEMI:, 0].mean() > 0
     np.testing.assert_allclose(s.mid, (s.white + s.pial) / 2)
 
@@ -78,7 +90,7 @@ def test_centroid_weighted_favours_the_centre():
     # A map equal to each source's distance from the ROI centroid: the centroid-weighted mean must
     # be smaller than the plain mean (weights fall with distance).
     atlas = load_atlas("lobes")
-    white = template_surface().white
+    white = MODEL.src_mni
     roi = atlas.rois[0]
     values = np.zeros(N_SRC)
     values[roi.vertices] = np.linalg.norm(white[roi.vertices] - roi.centroid_mni, axis=1)
@@ -91,7 +103,7 @@ def test_reduce_rejects_bad_input():
     atlas = load_atlas("lobes")
     with pytest.raises(InputError, match="allowed: mean, median, max, centroid_weighted"):
         roi_reduce(np.zeros(N_SRC), atlas, mode="sum")
-    with pytest.raises(InputError, match="20484 sources"):
+    with pytest.raises(InputError, match=f"{N_SRC} sources"):
         roi_reduce(np.zeros(8196), atlas)
     with pytest.raises(InputError, match="unknown atlas"):
         roi_reduce(np.zeros(N_SRC), "aal")
@@ -121,7 +133,8 @@ def test_custom_rois_toml_all_kinds(tmp_path, caplog):
     verts = [5, 6, 7, 200000 - 36158]
     rows = "\n".join(f"{v} 0.0 0.0 0.0 0.0" for v in verts)
     (tmp_path / "lh.test.label").write_text(f"#!ascii label\n{len(verts)}\n{rows}\n")
-    c305 = template_surface().mid[4321]
+    assert MODEL.surface.cortex[[4321, 5, 6, 7, N_PER_HEMI + 1, N_PER_HEMI + 3]].all()
+    c305 = MODEL.surface.mid[4321]
     c152 = mni305_to_mni152(c305)
     path = _write(tmp_path, "rois.toml", f"""
 name = "pilot"
@@ -159,15 +172,15 @@ hemisphere = "left"
     rois = {(r.name, r.hemisphere): r for r in atlas.rois}
     assert atlas.name == "pilot" and len(atlas.sha256) == 64
     # sphere of ~0 radius around a vertex's mid-thickness point holds exactly that vertex
-    np.testing.assert_array_equal(rois[("dot", "left")].vertices, [4321])
+    np.testing.assert_array_equal(rois[("dot", "left")].vertices, _src([4321]))
     np.testing.assert_array_equal(rois[("ba17-18", "right")].vertices,
                                   np.union1d(ba[("BA17", "right")], ba[("BA18", "right")]))
     assert rois[("dmn-yeo", "both")].vertices.size > 3000
     np.testing.assert_array_equal(rois[("picked", "right")].vertices,
-                                  [N_PER_HEMI + 1, N_PER_HEMI + 3])
-    np.testing.assert_array_equal(rois[("lab", "left")].vertices, [5, 6, 7])
-    np.testing.assert_array_equal(rois[("parc.first", "left")].vertices, np.arange(100))
-    assert rois[("parc.rest", "left")].vertices.size == N_PER_HEMI - 100
+                                  _src([N_PER_HEMI + 1, N_PER_HEMI + 3]))
+    np.testing.assert_array_equal(rois[("lab", "left")].vertices, _src([5, 6, 7]))
+    np.testing.assert_array_equal(rois[("parc.first", "left")].vertices, _src(np.arange(100)))
+    assert rois[("parc.rest", "left")].vertices.size == MODEL.n_left - _src(np.arange(100)).size
     # tiny ROIs: flagged and announced loudly
     assert rois[("dot", "left")].small and rois[("lab", "left")].small
     assert not rois[("dmn-yeo", "both")].small
@@ -181,8 +194,8 @@ def test_custom_sphere_matches_distance_rule(tmp_path):
     path = _write(tmp_path, "s.tsv", "name\tkind\themisphere\tspec\n"
                                      "dlpfc\tsphere\tleft\t-40 30 30 12\n")
     roi = load_custom_rois(path).rois[0]
-    mid152 = mni305_to_mni152(template_surface().mid)
-    expected = np.flatnonzero(np.linalg.norm(mid152[:N_PER_HEMI] - centre, axis=1) <= 12.0)
+    mid152 = mni305_to_mni152(MODEL.surface.mid)
+    expected = _src(np.flatnonzero(np.linalg.norm(mid152[:N_PER_HEMI] - centre, axis=1) <= 12.0))
     assert np.setxor1d(roi.vertices, expected).size == 0
     assert roi.vertices.size >= SMALL_MIN_VERTICES and not roi.small
 

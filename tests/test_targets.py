@@ -6,16 +6,18 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from sourcelab.config import SITES_1020, Bands
+from sourcelab.config import Bands
+from sourcelab.constants import SITES_1020
 from sourcelab.errors import InputError
 from sourcelab.inverse.sloreta import SourceOperator, source_power
 from sourcelab.provenance import Fingerprint
 from sourcelab.simulate import pink_noise
 from sourcelab.spectra import epoch_cross_spectra
 from sourcelab.targets import (OnlineTarget, candidates_html, expected_ratio, make_target,
-                               rank_candidates, read_target, replay_array, roi_weights,
+                               rank_candidates, read_target, replay_array,
                                target_from_dict, write_candidates, write_target)
-from sourcelab.targets.candidates import mesh_edges, network_members, roi_adjacency
+from sourcelab.headmodel.geometry import mesh_edges
+from sourcelab.targets.candidates import network_members, roi_adjacency
 
 SF = 256.0
 BANDS = Bands()
@@ -37,7 +39,8 @@ def pink_data():
 
 def _target(kernel, band="alpha", measure="absolute", verts=np.arange(60), **kw):
     return make_target(kernel=kernel, n_comp=kw.pop("n_comp", 1), atlas="brodmann", roi="BA17",
-                       hemisphere="right", vertices=verts, band=band, bands=FP.bands,
+                       hemisphere="right", sources=verts, vertices=verts, band=band,
+                       bands=FP.bands,
                        measure=measure, fingerprint=FP, sfreq=SF, reject_uv=1e9, **kw)
 
 
@@ -62,14 +65,16 @@ def test_roi_matrix_equals_mean_source_power(rng, n_comp):
     a = rng.standard_normal((19, 50))
     c = a @ a.T
     verts = np.array([1, 5, 7, 30])
-    m, rows = roi_weights(op.kernel, verts, n_comp=n_comp)
+    from sourcelab.inverse import roi_power_matrices, roi_rows
+
+    m = roi_power_matrices(op, [verts])[0]
+    rows = roi_rows(op, verts)
     np.testing.assert_allclose(np.trace(m @ c), source_power(op, c)[verts].mean(), rtol=1e-12)
     assert rows.shape == (verts.size * n_comp, 19)
-    from sourcelab.pipeline import roi_operators
-    from sourcelab.rois.atlas import ROI, Atlas
-
-    atlas = Atlas("t", "", "", (ROI("r", "left", verts, (0.0, 0.0, 0.0)),))
-    np.testing.assert_allclose(roi_operators(op, atlas)[0], m, rtol=1e-12)
+    target = make_target(kernel=op.kernel, n_comp=n_comp, atlas="t", roi="r", hemisphere="left",
+                         sources=verts, vertices=verts, band="alpha", bands=FP.bands,
+                         measure="absolute", fingerprint=FP, sfreq=SF)
+    np.testing.assert_allclose(target.matrix, m, rtol=1e-12)
 
 
 def test_sine_in_band_gives_half_amplitude_squared():
@@ -231,11 +236,12 @@ def test_norm_at_age_reproduces_apply_norms(tmp_path):
     for age in (12.0, 20.0, 47.0):
         z = apply_norms(table, norms, age=age, fingerprint=FP, condition="eyes closed")["z"][0]
         nm = norm_at_age(norms, atlas="brodmann", roi="BA17", hemisphere="right", band="alpha",
-                         measure="absolute", age=age)
+                         measure="absolute", age=age, fingerprint=FP,
+                         condition="eyes closed")
         np.testing.assert_allclose((np.log10(7.3) - nm["mean"]) / nm["sd"], z, rtol=1e-12)
     with pytest.raises(InputError, match="outside"):
         norm_at_age(norms, atlas="brodmann", roi="BA17", hemisphere="right", band="alpha",
-                    measure="absolute", age=95.0)
+                    measure="absolute", age=95.0, fingerprint=FP)
 
 
 # ---------------------------------------------------------------- candidates
@@ -337,10 +343,9 @@ def analysed(tmp_path_factory):
     """An invented recording with a right-occipital alpha patch, analysed and written to disk."""
     import mne
 
+    from sourcelab.analysis import analyze
     from sourcelab.config import AnalysisConfig
     from sourcelab.headmodel import load_head_model
-    from sourcelab.outputs import write_analysis
-    from sourcelab.pipeline import analyze
     from sourcelab.simulate import Generator, simulate_raw
 
     rng = np.random.default_rng(11)
@@ -354,7 +359,7 @@ def analysed(tmp_path_factory):
     # then cover the same data, so the comparison isolates the filters (with the default 150 µV
     # the two rejection rules drop different stretches of strong alpha: measured ratio 1.07)
     res = analyze(edf, config=AnalysisConfig(reject_uv=400.0), atlases=("brodmann",))
-    write_analysis(res, d / "result", figures=False, report=False)
+    res.write(d / "result", figures=False, report=False)
     return d, edf, res
 
 
@@ -364,7 +369,7 @@ def test_export_and_replay_agree_with_offline_analysis(analysed):
     # ratio expected from the filter responses (5 %, as for the pink-noise test above).
     from scipy.signal import welch
 
-    from sourcelab.pipeline import inverse_operator, roi_operators
+    from sourcelab.inverse import inverse_operator, roi_power_matrices
     from sourcelab.rois import load_atlas
     from sourcelab.targets import export_target, replay_recording
 
@@ -375,7 +380,8 @@ def test_export_and_replay_agree_with_offline_analysis(analysed):
     at = load_atlas("brodmann")
     i = [j for j, r in enumerate(at.rois) if (r.name, r.hemisphere) == ("BA17", "right")][0]
     op = inverse_operator("sLORETA", "fixed", 1 / 9)
-    np.testing.assert_allclose(tg.matrix, roi_operators(op, at)[i], rtol=1e-12)
+    np.testing.assert_allclose(tg.matrix, roi_power_matrices(op, at.vertex_sets())[i],
+                               rtol=1e-12)
     s = replay_recording(tg, edf, d / "replay")
     assert (d / "replay" / "replay.tsv").is_file() and (d / "replay" / "replay.png").is_file()
     raw = __import__("mne").io.read_raw_edf(edf, preload=True, verbose="error")

@@ -5,11 +5,11 @@ import pandas as pd
 import pytest
 
 from sourcelab.errors import InputError
-from sourcelab.inverse.sloreta import sloreta_kernel, source_power
+from sourcelab.inverse.sloreta import sloreta_operator, source_power
 from sourcelab.spectra import average_reference, relative_power, sensor_band_power
 from sourcelab.trust import (add_intervals, add_sensor_intervals, bootstrap_weights,
                              percentile_interval, robust_flags, roi_bootstrap, z_interval)
-from sourcelab.trust.synthetic import patch_atlas, sphere_head
+from sourcelab.simulate.sphere import patch_atlas, sphere_head
 
 BANDS = ("delta", "theta", "alpha")
 
@@ -18,7 +18,7 @@ BANDS = ("delta", "theta", "alpha")
 def small():
     head = sphere_head(300)
     atlas = patch_atlas(head, 12)
-    ops = {o: sloreta_kernel(head.gain, lambda2=1 / 9, orientation=o,
+    ops = {o: sloreta_operator(head.gain, lambda2=1 / 9, orientation=o,
                              normals=head.src_nn if o == "fixed" else None)
            for o in ("fixed", "free")}
     return head, atlas, ops
@@ -146,17 +146,22 @@ def test_add_intervals_columns_order_and_z(small, rng):
     mean = {"absolute": float(np.log10(np.median(ab))) - 0.3, "relative": -1.0}
     sd = {"absolute": 0.15, "relative": 0.2}
 
-    def zfn(t):
-        v = t["value"].to_numpy(float)
-        is_abs = (t["measure"] == "absolute").to_numpy()
-        z = np.empty(v.shape)
-        z[is_abs] = (np.log10(v[is_abs]) - mean["absolute"]) / sd["absolute"]
-        r = v[~is_abs]
-        z[~is_abs] = (np.log(r) - np.log1p(-r) - mean["relative"]) / sd["relative"]
-        return z
+    from sourcelab.norms import NormRows
 
-    table["z"] = zfn(table)
-    out = add_intervals(table, csd, op, [atlas], n_boot=401, seed=5, norms_fn=zfn,
+    is_abs = (table["measure"] == "absolute").to_numpy()
+    rows = NormRows(mean=np.where(is_abs, mean["absolute"], mean["relative"]),
+                    sd=np.where(is_abs, sd["absolute"], sd["relative"]),
+                    transform=np.where(is_abs, "log10", "logit").astype(object),
+                    n=np.full(len(table), 50), has=np.ones(len(table), bool),
+                    extrapolated=np.zeros(len(table), bool))
+    v = table["value"].to_numpy(float)
+    r = v[~is_abs]
+    z = np.empty(v.shape)
+    z[is_abs] = (np.log10(v[is_abs]) - mean["absolute"]) / sd["absolute"]  # by hand
+    z[~is_abs] = (np.log(r) - np.log1p(-r) - mean["relative"]) / sd["relative"]
+    np.testing.assert_allclose(rows.z(v), z, rtol=1e-12)
+    table["z"] = z
+    out = add_intervals(table, csd, op, [atlas], n_boot=401, seed=5, norm_rows=rows,
                         band_names=BANDS)
     assert list(out.index) == list(table.index)
     assert list(out.columns[-5:]) == ["value_lo", "value_hi", "z_lo", "z_hi", "robust"]
@@ -233,17 +238,17 @@ def test_input_errors(small, rng):
 def test_real_head_model_intervals(head_model, rng):
     # On the shipped head model (fails if the file is missing): uniform weights reproduce the
     # pipeline's ROI values for the Brodmann atlas, and intervals bracket most values.
-    from sourcelab.pipeline import roi_operators
+    from sourcelab.inverse import roi_power_matrices
     from sourcelab.rois import load_atlas
 
-    op = sloreta_kernel(head_model.gain, lambda2=1 / 9, orientation="fixed",
+    op = sloreta_operator(head_model.gain, lambda2=1 / 9, orientation="fixed",
                         normals=head_model.src_nn)
     atlas = load_atlas("brodmann")
     a = rng.standard_normal((len(BANDS), 19, 19))
     sigma = np.einsum("bij,bkj->bik", a, a) + 0.1 * np.eye(19)
     csd = _epochs(sigma, 40, rng, common_mode=50.0)
     ab, rel = _roi_values(op, csd.mean(0), atlas)
-    m = roi_operators(op, atlas)
+    m = roi_power_matrices(op, atlas.vertex_sets())
     np.testing.assert_allclose(np.einsum("rcd,bdc->br", m, csd.mean(0)), ab, rtol=1e-10)
     s = roi_bootstrap(csd, op, [r.vertices for r in atlas.rois], np.full((1, 40), 1 / 40))
     np.testing.assert_allclose(s["relative"][0], rel, rtol=1e-5)
@@ -252,27 +257,26 @@ def test_real_head_model_intervals(head_model, rng):
     assert inside.mean() > 0.95
 
 
-def test_norms_z_function_uses_the_norms_api():
+def test_matched_norm_rows_give_apply_norms_z():
     # z = (T(value) - mean(age)) / sd with the norms row's transform (the norms module's
-    # definition; Gasser et al. 1982 log/logit transforms, from memory): the callable must give
-    # apply_norms' z, and scaling an absolute value by 10 must shift its z by exactly 1/sd.
+    # definition; Gasser et al. 1982 log/logit transforms, from memory): the matched rows must
+    # give apply_norms' z, and scaling an absolute value by 10 must shift its z by exactly 1/sd.
     from sourcelab.config import DEFAULT_BANDS
-    from sourcelab.norms import apply_norms, build_norms
-    from sourcelab.norms.simulate import gaussian_cohort
+    from sourcelab.norms import apply_norms, match_norms, norms_from_tables
     from sourcelab.provenance import Fingerprint
-    from sourcelab.trust import norms_z_function
+    from sourcelab.simulate import gaussian_cohort
 
     fp = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
                      lambda2=1 / 9, bands=DEFAULT_BANDS)
     coh = gaussian_cohort(40, rng=np.random.default_rng(1))
-    nm = build_norms(coh.entries, fingerprint=fp, condition="eyes closed", degree=1)
+    nm = norms_from_tables(coh.entries, fingerprint=fp, condition="eyes closed", degree=1)
     roi, _ = coh.tables_at(30.0, np.zeros(len(coh.keys)))
     opts = dict(age=30.0, fingerprint=fp, condition="eyes closed")
-    zfn = norms_z_function(nm, kind="roi", **opts)
-    z = zfn(roi)
+    rows = match_norms(roi, nm, kind="roi", **opts)
+    z = rows.z(roi.value)
     np.testing.assert_allclose(z, apply_norms(roi, nm, kind="roi", **opts)["z"], rtol=1e-12)
     ab = (roi.measure == "absolute").to_numpy()
-    z10 = zfn(roi.assign(value=np.where(ab, roi.value * 10, roi.value)))
+    z10 = rows.z(np.where(ab, roi.value * 10, roi.value))
     keys = nm.table[(nm.table.kind == "roi")].set_index(["name", "hemisphere", "band",
                                                          "measure"])["sd"]
     sd = np.array([keys[(r.roi, r.hemisphere, r.band, r.measure)] for r in roi.itertuples()])
@@ -283,12 +287,12 @@ def test_norms_z_function_uses_the_norms_api():
 @pytest.mark.slow
 def test_coverage_real_head_model_full_size(head_model):
     # Full-size version of the coverage check (Efron & Tibshirani 1993, ch. 13, from memory): the
-    # shipped head model, all 84 Brodmann areas, 1,000 replicates, 100 recordings of 100 epochs of
+    # shipped head model, every Brodmann area, 1,000 replicates, 100 recordings of 100 epochs of
     # a stationary process whose band covariances come from smooth cortical source variances
     # through the real leadfield plus sensor noise.
     from sourcelab.rois import load_atlas
 
-    op = sloreta_kernel(head_model.gain, lambda2=1 / 9, orientation="fixed",
+    op = sloreta_operator(head_model.gain, lambda2=1 / 9, orientation="fixed",
                         normals=head_model.src_nn)
     atlas = load_atlas("brodmann")
     g = head_model.gain_fixed

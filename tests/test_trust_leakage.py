@@ -8,17 +8,17 @@ import pytest
 from scipy import stats
 
 from sourcelab.errors import InputError
-from sourcelab.inverse.sloreta import sloreta_kernel
+from sourcelab.inverse.sloreta import sloreta_operator, source_power
 from sourcelab.trust import (activity_gain, leakage_hints, leakage_matrix, plot_leakage,
                              point_spread_power)
-from sourcelab.trust.synthetic import patch_atlas, sphere_head
+from sourcelab.simulate.sphere import patch_atlas, sphere_head
 
 
 @pytest.fixture(scope="module")
 def small():
     head = sphere_head(400)
     atlas = patch_atlas(head, 16)
-    ops = {o: sloreta_kernel(head.gain, lambda2=1 / 9, orientation=o,
+    ops = {o: sloreta_operator(head.gain, lambda2=1 / 9, orientation=o,
                              normals=head.src_nn if o == "fixed" else None)
            for o in ("fixed", "free")}
     return head, atlas, ops
@@ -53,19 +53,22 @@ def test_analytic_leakage_matches_brute_force_simulation(small, orientation):
 
 
 @pytest.mark.parametrize("orientation", ["fixed", "free"])
-def test_shares_partition_and_roi_operators(small, orientation):
+def test_shares_partition_and_roi_power_matrices(small, orientation, rng):
     # Exact algebra: for a non-overlapping atlas, shares over all ROIs plus the unlabelled share
-    # sum to 1; M_a equals the pipeline's roi_operators (ROI mean power = tr(M_a C)).
-    from sourcelab.pipeline import roi_operators
-    from sourcelab.trust.leakage import roi_kernel_outer
+    # sum to 1; tr(M_a C) is the ROI mean of the per-source power diag(K C K^T).
+    from sourcelab.inverse import roi_power_matrices
 
     head, atlas, ops = small
     op = ops[orientation]
     leak = leakage_matrix(op, head.gain, atlas, normals=head.src_nn)
     np.testing.assert_allclose(leak.share.sum(1) + leak.unlabelled, 1.0, rtol=1e-12)
     assert (leak.share > 0).all() and (leak.unlabelled > 0).all()
-    np.testing.assert_allclose(roi_kernel_outer(op, [r.vertices for r in atlas.rois]),
-                               roi_operators(op, atlas), rtol=1e-12)
+    a = rng.standard_normal((op.kernel.shape[1], op.kernel.shape[1]))
+    c = a @ a.T
+    m = roi_power_matrices(op, atlas.vertex_sets())
+    per_source = source_power(op, c)
+    np.testing.assert_allclose(np.einsum("rcd,dc->r", m, c),
+                               [per_source[r.vertices].mean() for r in atlas.rois], rtol=1e-10)
 
 
 def test_leakage_decays_with_distance(small):
@@ -145,7 +148,7 @@ def test_real_head_model_leakage(head_model):
     # (Pascual-Marqui 2002) while most of their power falls outside their own area.
     from sourcelab.rois import load_atlas
 
-    op = sloreta_kernel(head_model.gain, lambda2=1 / 9, orientation="fixed",
+    op = sloreta_operator(head_model.gain, lambda2=1 / 9, orientation="fixed",
                         normals=head_model.src_nn)
     atlas = load_atlas("brodmann")
     leak = leakage_matrix(op, head_model.gain, atlas, normals=head_model.src_nn)

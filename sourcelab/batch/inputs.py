@@ -7,6 +7,7 @@ unique, path-safe output-folder name.  Identifiers read from files only ever rea
 
 from __future__ import annotations
 
+import csv
 import glob
 import logging
 import math
@@ -15,13 +16,12 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
+from ..constants import RECORDING_SUFFIXES, recording_suffix
 from ..errors import InputError
 from ..provenance import safe_name
 
 log = logging.getLogger("sourcelab")
 
-#: File suffixes recognised as recordings (lower case; ``.fif.gz`` is handled as ``.fif``).
-RECORDING_SUFFIXES = (".edf", ".bdf", ".vhdr", ".set", ".fif")
 #: Names used for the batch's own files in the output folder; never given to a recording.
 RESERVED_NAMES = frozenset({"group_roi_table", "group_sensor_table", "batch_status", "failures"})
 _GLOB_CHARS = re.compile(r"[*?\[]")
@@ -49,12 +49,6 @@ class BatchItem:
     name: str
     participant: str
     age: float | None = None
-
-
-def recording_suffix(path: Path) -> str:
-    """Lower-case suffix, with ``.fif.gz`` reported as ``.fif``."""
-    name = path.name.lower()
-    return ".fif" if name.endswith(".fif.gz") else path.suffix.lower()
 
 
 def _without_suffix(path: Path) -> str:
@@ -194,8 +188,6 @@ def discover(inputs: Sequence[str | Path], *, participants: str | Path | None = 
     ids: list[str] = []
     ages: dict[str, object] = {}
     if participants is not None:
-        from ..norms import read_participants
-
         table = read_participants(participants)
         ids = [str(x).strip() for x in table["participant_id"]]
         ages = dict(zip(ids, table["age"]))
@@ -216,3 +208,33 @@ def discover(inputs: Sequence[str | Path], *, participants: str | Path | None = 
         items.append(BatchItem(path=path, name=name, participant=pid or bids_sub or stem,
                                age=age))
     return tuple(items)
+
+
+def read_participants(participants_tsv: str | Path):
+    """Read a BIDS ``participants.tsv`` (participant_id, age, optional sex, condition).
+
+    Returns a DataFrame of strings; ``n/a`` and empty cells stay as text for per-row handling.
+    """
+    import pandas as pd
+
+    path = Path(participants_tsv)
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as f:
+            rows = list(csv.reader(f, delimiter="\t"))
+    except FileNotFoundError:
+        raise InputError("participants file not found", path=path) from None
+    except UnicodeDecodeError:
+        raise InputError("participants file is not UTF-8 text", path=path) from None
+    if not rows:
+        raise InputError("participants file is empty", path=path)
+    head = [h.strip() for h in rows[0]]
+    for col in ("participant_id", "age"):
+        if col not in head:
+            raise InputError(f"participants file lacks column {col!r} (BIDS: participant_id, "
+                             "age, optional sex, condition)", path=path)
+    body = [r + [""] * (len(head) - len(r)) for r in rows[1:] if any(c.strip() for c in r)]
+    df = pd.DataFrame([r[:len(head)] for r in body], columns=head, dtype=object)
+    if df["participant_id"].duplicated().any():
+        dup = df["participant_id"][df["participant_id"].duplicated()].iloc[0]
+        raise InputError(f"participant {dup!r} listed twice", path=path)
+    return df

@@ -136,7 +136,7 @@ def _norms(path: str, mtime_ns: int):
 
 @functools.lru_cache(maxsize=4)
 def _fingerprint(config: AnalysisConfig):
-    from ..pipeline import fingerprint_for
+    from ..analysis import fingerprint_for
 
     return fingerprint_for(config)  # loads the head model once per worker (cached)
 
@@ -182,8 +182,7 @@ def process_one(task: Task) -> Outcome:
     This is the function every engine runs per recording.  The head model, the inverse operator
     and the norms are cached in the worker process, so they are loaded once per worker.
     """
-    from ..outputs import write_analysis
-    from ..pipeline import analyze
+    from ..analysis import analyze
 
     t0 = time.perf_counter()
     base = dict(name=task.name, participant=task.participant, path=task.path,
@@ -200,9 +199,9 @@ def process_one(task: Task) -> Outcome:
             norms = _norms(task.norms, os.stat(task.norms).st_mtime_ns)
         result = analyze(task.path, config=task.config, age=task.age, norms=norms,
                          condition=task.condition)
-        write_analysis(result, task.out_dir, figures=task.figures, report=task.report,
-                       exports=task.exports, command=list(task.command))
-        n_warn = len(result.recording.get("warnings", ()))
+        result.write(task.out_dir, figures=task.figures, report=task.report,
+                     maps=task.exports, command=list(task.command))
+        n_warn = len(result.warnings)
         del result
         if task.figures:
             import matplotlib.pyplot as plt

@@ -6,7 +6,6 @@ import re
 import sys
 from pathlib import Path
 
-from ..cautions import SHORT
 from ..errors import InputError
 
 
@@ -62,8 +61,7 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
-    from ..outputs import write_analysis
-    from ..pipeline import analyze
+    from ..analysis import analyze
 
     path = Path(args.recording)
     if not path.exists():
@@ -80,10 +78,10 @@ def run(args) -> int:
                      select=parse_select(args.select),
                      condition=args.condition,
                      allow_extrapolation=args.allow_extrapolation,
-                     allow_condition_mismatch=args.allow_condition_mismatch)
-    out = write_analysis(result, args.out, figures=not args.no_figures,
-                         report=not args.no_report, exports=not args.no_maps,
-                         command=["sourcelab", *sys.argv[1:]])
+                     allow_condition_mismatch=args.allow_condition_mismatch,
+                     progress=None)
+    out = result.write(args.out, figures=not args.no_figures, report=not args.no_report,
+                       maps=not args.no_maps, command=["sourcelab", *sys.argv[1:]])
     if args.bids_root:
         from ..exports import export_bids_derivatives
 
@@ -115,16 +113,9 @@ def parse_select(values):
 
 
 def print_summary(result, out) -> None:
-    q = result.quality
-    print(f"sourcelab: analysed {result.recording.get('path') or 'recording'}: "
-          f"{q.get('kept_s', 0):.0f} s clean data in {q.get('n_epochs', 0)} epochs")
-    t = result.roi_table
-    if t["z"].notna().any():
-        n = int(t["z"].notna().sum())
-        big = int((t["z"].abs() > 1.96).sum())
-        print(f"sourcelab: {n} ROI z-scores; {big} with |z| > 1.96 "
-              f"({0.05 * n:.0f} expected by chance alone)")
-    for w in result.recording.get("warnings", []):
-        print(f"sourcelab: warning: {w}")
+    """The result's summary on standard output, one ``sourcelab:`` line each."""
+    lines = result.summary().splitlines()
+    for line in lines[:-1]:
+        print(f"sourcelab: {line}")
     print(f"sourcelab: wrote {out}")
-    print(SHORT)
+    print(lines[-1])

@@ -32,7 +32,7 @@ def run(args) -> int:
     if args.atlas_cmd == "show":
         print(atlas_summary(args.name).to_string(index=False))
         return 0
-    from ..rois import plot_atlas
+    from ..figures.atlas import plot_atlas
 
     out = Path(args.out)
     if out.suffix.lower() != ".png":

@@ -22,10 +22,12 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
+    import dataclasses
+
     from .. import demo
+    from ..analysis import analyze
     from ..config import AnalysisConfig
     from ..outputs import write_analysis_into
-    from ..pipeline import analyze
     from ..provenance import atomic_output_dir
     from .analyze import print_summary
 
@@ -43,8 +45,11 @@ def run(args) -> int:
         edf = demo.write_edf(demo.demo_recording(), tmp / "demo-01_invented_eeg.edf",
                              description="INVENTED demo recording simulated by sourcelab")
         result = analyze(edf, config=AnalysisConfig(), age=demo.DEMO_AGE,
-                         norms=demo.demo_norms_path(), condition=demo.DEMO_CONDITION)
-        result.recording["path"] = str(out / edf.name)  # where it will be after the rename
+                         norms=demo.demo_norms_path(), condition=demo.DEMO_CONDITION,
+                         progress=None)
+        # record where the recording will be after the folder is renamed into place
+        result = dataclasses.replace(result, recording=dataclasses.replace(
+            result.recording, path=str(out / edf.name)))
         write_analysis_into(result, tmp, figures=not args.no_figures,
                             report=not args.no_report, exports=not args.no_maps,
                             command=["sourcelab", "demo"])

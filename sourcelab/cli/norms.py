@@ -27,19 +27,18 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
-    from ..norms import build_norms_from_cohort, check_norms
+    from ..norms import check_norms
 
     if args.norms_cmd == "check":
         print(check_norms(args.norms))
         return 0
+    from ..batch import make_engine
+    from ..cohort import build_norms
     from .analyze import config_from_args
 
-    from ..batch import make_engine
-
     with make_engine(args.engine, workers=args.workers, scheduler=args.scheduler) as engine:
-        built = build_norms_from_cohort(args.cohort, args.participants,
-                                        config=config_from_args(args), out=args.out,
-                                        model=args.model, engine=engine)
+        built = build_norms(args.cohort, args.participants, config=config_from_args(args),
+                            out=args.out, model=args.model, engine=engine)
     for pid, message in built.failures:
         print(f"sourcelab: skipped {pid}: {message}")
     print(f"sourcelab: wrote {args.out} ({built.norms.cohort.get('n', '?')} participants); "

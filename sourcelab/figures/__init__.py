@@ -1,47 +1,22 @@
-"""Figures: glass brains, cortical surfaces, ROI charts and scalp maps (matplotlib, no window).
+"""Figures: glass brains, cortical surfaces, ROI charts, scalp maps and atlas views (matplotlib).
 
 Every plotting function takes its data first, options keyword-only, accepts ``output_file`` and
 returns the :class:`matplotlib.figure.Figure`; none calls ``plt.show()``.  The colour convention
 (z: symmetric ``RdBu_r``; power: sequential ``magma``) lives in :mod:`.colours`.
 """
 
+from .atlas import atlas_label_map, plot_atlas
 from .brain import glass_brain, surface_views
-from .colours import (
-                      POWER_CMAP,
-                      Z_CMAP,
-                      Z_LIMIT,
-                      Z_THRESHOLD,
-                      ColourScale,
-                      add_colourbar,
-                      power_scale,
-                      z_scale,
-)
+from .colours import (POWER_CMAP, Z_CMAP, Z_LIMIT, Z_THRESHOLD, ColourScale, add_colourbar,
+                      power_scale, z_scale)
 from .figure_set import atlas_labels, figure_png, result_figures
-from .geometry import MNI305_TO_MNI152, mni305_to_mni152, source_positions_mni305, sources_to_volume
+from .geometry import sources_to_volume
 from .roi import network_chart, roi_bars, roi_heatmap
 from .sensor import sensor_info, sensor_topomaps
 
 __all__ = [
-                      "MNI305_TO_MNI152",
-                      "POWER_CMAP",
-                      "Z_CMAP",
-                      "Z_LIMIT",
-                      "Z_THRESHOLD",
-                      "ColourScale",
-                      "add_colourbar",
-                      "atlas_labels",
-                      "figure_png",
-                      "glass_brain",
-                      "mni305_to_mni152",
-                      "network_chart",
-                      "power_scale",
-                      "result_figures",
-                      "roi_bars",
-                      "roi_heatmap",
-                      "sensor_info",
-                      "sensor_topomaps",
-                      "source_positions_mni305",
-                      "sources_to_volume",
-                      "surface_views",
-                      "z_scale",
+    "POWER_CMAP", "Z_CMAP", "Z_LIMIT", "Z_THRESHOLD", "ColourScale", "add_colourbar",
+    "atlas_label_map", "atlas_labels", "figure_png", "glass_brain", "network_chart",
+    "plot_atlas", "power_scale", "result_figures", "roi_bars", "roi_heatmap", "sensor_info",
+    "sensor_topomaps", "sources_to_volume", "surface_views", "z_scale",
 ]

@@ -19,9 +19,15 @@ SURFACE_VIEWS = (("left", "lateral"), ("right", "lateral"), ("left", "medial"), 
 
 
 def _check_values(values) -> np.ndarray:
+    """Per-source values (n_src,) or per-surface-vertex values (20484,) -> per-source values."""
+    from ..headmodel import load_head_model
+
+    model = load_head_model()
     v = np.asarray(values, dtype=float)
-    if v.shape != (geometry.N_SRC,):
-        raise ValueError(f"values: need shape ({geometry.N_SRC},) (one per template source), "
+    if v.shape == (geometry.N_SURFACE,):
+        return model.from_surface(v)
+    if v.shape != (model.n_src,):
+        raise ValueError(f"values: need shape ({model.n_src},) (one per template source), "
                          f"got {v.shape}")
     return v
 
@@ -42,7 +48,7 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
 
     Parameters
     ----------
-    values : ndarray, shape (20484,)
+    values : ndarray, shape (n_src,)
         Per-source values, left hemisphere first (power or z).
     scale : ColourScale
         From :func:`~sourcelab.figures.colours.z_scale` or
@@ -94,7 +100,7 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
 
     Parameters
     ----------
-    values : ndarray, shape (20484,)
+    values : ndarray, shape (n_src,)
         Per-source values, left hemisphere first.  NaN (and |z| below the scale's threshold) is
         not coloured.
     scale : ColourScale
@@ -112,12 +118,12 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
     """
     from nilearn import plotting
 
-    v = masked(_check_values(values), scale)
+    v = geometry.to_surface(masked(_check_values(values), scale))
     if outline is not None:
         outline = (geometry.atlas_labels(outline) if hasattr(outline, "rois")
                    else np.asarray(outline))
-        if outline.shape != (geometry.N_SRC,):
-            raise ValueError(f"outline: need shape ({geometry.N_SRC},), got {outline.shape}")
+        if outline.shape != (geometry.N_SURFACE,):
+            raise ValueError(f"outline: need shape ({geometry.N_SURFACE},), got {outline.shape}")
     sulc = geometry.sulcal_depth()
     fig = plt.figure(figsize=figsize, dpi=dpi)
     top = 0.92 if title else 0.98

@@ -16,6 +16,8 @@ from dataclasses import dataclass
 import matplotlib as mpl
 import numpy as np
 
+from ..constants import Z_THRESHOLD as _Z_THRESHOLD
+
 #: Diverging map for z-scores (standard matplotlib map).
 Z_CMAP = "RdBu_r"
 #: Sequential map for power.
@@ -23,7 +25,7 @@ POWER_CMAP = "magma"
 #: Default symmetric z limit.
 Z_LIMIT = 3.0
 #: Default display threshold for z: |z| below it is hidden when thresholding is asked for.
-Z_THRESHOLD = 1.96
+Z_THRESHOLD = _Z_THRESHOLD
 #: Units shown on colour bars, by measure.
 POWER_LABELS = {
     "absolute": "sLORETA power (standardised)",

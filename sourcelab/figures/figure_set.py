@@ -50,7 +50,7 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
                    z_threshold: float | None = None, atlas: str | None = None,
                    network_atlas: str | None = None, z_map_atlas: str | None = "brodmann",
                    outline=None, display_mode: str = "lyrz", resolution: int = 2,
-                   surfaces: bool = True, dpi: int = 90, as_png: bool = True,
+                   surfaces: bool = True, dpi: int = 90, as_png: bool = False,
                    n_jobs: int = 1) -> dict:
     """Make every figure of a result.
 
@@ -73,7 +73,7 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
     z_map_atlas : str | None
         Atlas whose ROI z-scores are painted on sources for ``glass-z`` maps (through
         :meth:`AnalysisResult.roi_z_map`); skipped when the ROI table has no finite z for that
-        atlas or the atlas cannot be loaded.
+        atlas or the result lacks it.
     outline : Atlas | ndarray | None
         Optional parcel outline on the surface views (an Atlas or a label per source).
     display_mode : str
@@ -84,7 +84,7 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
         Draw surface views (the slowest figures).
     dpi : int
     as_png : bool
-        Return PNG bytes (figures closed as they are made) instead of open Figures.
+        Return PNG bytes (figures closed as they are made) instead of open Figures (default).
     n_jobs : int
         Worker processes drawing figures (PNG output only; forked, so caches are shared).
         1 draws in this process.
@@ -128,7 +128,7 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
             if has_roi_z and z_map_atlas:
                 try:
                     zmap = result.roi_z_map(band, measure, atlas=z_map_atlas)
-                except (ImportError, InputError, KeyError) as exc:
+                except (InputError, KeyError) as exc:
                     logger.info("no source z map for atlas %r: %s", z_map_atlas, exc)
                     z_map_atlas = None
                 else:
@@ -165,6 +165,11 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
         if net is not None:
             keep(f"networks/{measure}", roi.network_chart, rt, atlas=net, measure=measure,
                  bands=bands, scale=zs, dpi=dpi)
+    leak = getattr(result, "leakage", None)
+    if leak is not None:
+        from ..trust import plot_leakage
+
+        keep("leakage", plot_leakage, leak)
     return _run(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
 
 

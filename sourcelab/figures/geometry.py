@@ -1,8 +1,8 @@
 """Template geometry for figures and exports: fsaverage5 meshes and source → MNI volume projection.
 
-Sources are the 20,484 fsaverage5 cortical vertices, left hemisphere first (source ``i`` < 10,242
-is left vertex ``i``; ``10,242 + v`` is right vertex ``v``).  Meshes come from nilearn's packaged
-fsaverage5 (offline).
+Sources are the cortical fsaverage5 vertices of the shipped head model (the medial wall is not a
+source); per-source maps are drawn on the 20,484-vertex surface with the medial wall left
+uncoloured.  The meshes ship inside the head-model file (from nilearn's packaged fsaverage5).
 
 Volume projection (for glass brains and NIfTI exports): each source is placed at its
 mid-thickness position ((white + pial) / 2) in fsaverage surface RAS, which is MNI305 space,
@@ -19,31 +19,17 @@ from __future__ import annotations
 import functools
 import logging
 
-import nibabel as nib
 import numpy as np
+
+from ..headmodel import load_head_model
+from ..headmodel.geometry import MNI305_TO_MNI152, mni305_to_mni152  # noqa: F401  (re-exported)
+from ..headmodel.model import HEMIS, N_PER_HEMI, N_SURFACE
 
 logger = logging.getLogger("sourcelab")
 
-N_LEFT = 10242
-N_SRC = 2 * N_LEFT
+N_LEFT = N_PER_HEMI
 
-#: MNI305 (fsaverage surface RAS) → MNI152 affine, mm.  FreeSurfer wiki "CoordinateSystems",
-#: section "MNI305 to MNI152" (from memory).
-MNI305_TO_MNI152 = np.array([
-    [0.9975, -0.0073, 0.0176, -0.0429],
-    [0.0146, 1.0009, -0.0024, 1.5496],
-    [-0.0130, -0.0093, 0.9971, 1.1840],
-    [0.0, 0.0, 0.0, 1.0],
-])
-
-HEMIS = ("left", "right")
-
-
-@functools.lru_cache(maxsize=1)
-def _fsaverage5():
-    from nilearn import datasets
-
-    return datasets.load_fsaverage("fsaverage5")
+_SURFACES = {"pial": "pial", "white_matter": "white", "inflated": "inflated"}
 
 
 def mesh(surface: str, hemi: str) -> tuple[np.ndarray, np.ndarray]:
@@ -51,45 +37,43 @@ def mesh(surface: str, hemi: str) -> tuple[np.ndarray, np.ndarray]:
 
     Parameters
     ----------
-    surface : {"pial", "white_matter", "inflated", "sphere"}
+    surface : {"pial", "white_matter", "inflated"}
     hemi : {"left", "right"}
     """
-    fs = _fsaverage5()
-    if surface not in ("pial", "white_matter", "inflated", "sphere"):
-        raise ValueError(f"surface: {surface!r} is not one of pial, white_matter, inflated, sphere")
+    if surface not in _SURFACES:
+        raise ValueError(f"surface: {surface!r} is not one of {', '.join(_SURFACES)}")
     if hemi not in HEMIS:
         raise ValueError(f"hemi: {hemi!r} is not one of left, right")
-    m = fs[surface].parts[hemi]
-    return np.asarray(m.coordinates, float), np.asarray(m.faces, np.int64)
+    surf = load_head_model().surface
+    coords = getattr(surf, _SURFACES[surface])[surf.hemi_slice(hemi)]
+    return np.array(coords, dtype=float), np.array(surf.hemi_faces(hemi), dtype=np.int64)
 
 
-@functools.lru_cache(maxsize=1)
 def sulcal_depth() -> tuple[np.ndarray, np.ndarray]:
     """Sulcal depth per vertex (left, right), each shape (10242,), for surface shading."""
-    from nilearn import datasets
-
-    d = datasets.load_fsaverage_data("fsaverage5", data_type="sulcal")
-    return tuple(np.asarray(d.data.parts[h], float).ravel() for h in HEMIS)
+    surf = load_head_model().surface
+    return tuple(np.asarray(surf.sulc[surf.hemi_slice(h)], float) for h in HEMIS)
 
 
-@functools.lru_cache(maxsize=1)
 def source_positions_mni305() -> np.ndarray:
-    """Mid-thickness positions of the 20,484 sources, shape (20484, 3), MNI305 mm."""
-    parts = []
-    for h in HEMIS:
-        white, _ = mesh("white_matter", h)
-        pial, _ = mesh("pial", h)
-        parts.append((white + pial) / 2.0)
-    return np.concatenate(parts)
+    """Mid-thickness positions of the cortical sources, shape (n_src, 3), MNI305 mm."""
+    model = load_head_model()
+    return model.surface.mid[model.vertno]
 
 
-def mni305_to_mni152(xyz: np.ndarray) -> np.ndarray:
-    """Apply :data:`MNI305_TO_MNI152` to points of shape (n, 3), mm."""
-    xyz = np.asarray(xyz, float)
-    return xyz @ MNI305_TO_MNI152[:3, :3].T + MNI305_TO_MNI152[:3, 3]
+def to_surface(values: np.ndarray) -> np.ndarray:
+    """Per-source values (n_src,) on the 20,484 surface vertices; NaN on the medial wall.
+
+    Values already given per surface vertex (20,484) are returned as float arrays.
+    """
+    v = np.asarray(values, dtype=float)
+    if v.shape == (N_SURFACE,):
+        return v
+    return load_head_model().to_surface(v)
 
 
-def _grey_matter(resolution: int) -> nib.Nifti1Image:
+def _grey_matter(resolution: int):
+    import nibabel as nib
     from nilearn import datasets
 
     img = datasets.load_mni152_gm_template(resolution=resolution)
@@ -102,6 +86,7 @@ def _grey_matter(resolution: int) -> nib.Nifti1Image:
 @functools.lru_cache(maxsize=4)
 def _volume_map(resolution: int, gm_threshold: float, max_dist_mm: float):
     """Cached voxel → nearest-source lookup: (shape, affine, flat voxel indices, source indices)."""
+    import nibabel as nib
     from scipy.spatial import cKDTree
 
     gm = _grey_matter(resolution)
@@ -118,12 +103,12 @@ def _volume_map(resolution: int, gm_threshold: float, max_dist_mm: float):
 
 
 def sources_to_volume(values: np.ndarray, *, resolution: int = 2, gm_threshold: float = 0.2,
-                      max_dist_mm: float = 5.0, fill: float = 0.0) -> nib.Nifti1Image:
+                      max_dist_mm: float = 5.0, fill: float = 0.0):
     """Project per-source values into an MNI152 volume by nearest-source fill in grey matter.
 
     Parameters
     ----------
-    values : ndarray, shape (20484,) or (n_maps, 20484)
+    values : ndarray, shape (n_src,) or (n_maps, n_src)
         Per-source values (left hemisphere first).  NaN propagates to the voxels it fills.
     resolution : {2, 3}
         Voxel size, mm.
@@ -144,12 +129,15 @@ def sources_to_volume(values: np.ndarray, *, resolution: int = 2, gm_threshold: 
     v = np.asarray(values, dtype=np.float32)
     single = v.ndim == 1
     v2 = v[None] if single else v
-    if v2.ndim != 2 or v2.shape[1] != N_SRC:
-        raise ValueError(f"values: need shape ({N_SRC},) or (n_maps, {N_SRC}), got {v.shape}")
+    n_src = load_head_model().n_src
+    if v2.ndim != 2 or v2.shape[1] != n_src:
+        raise ValueError(f"values: need shape ({n_src},) or (n_maps, {n_src}), got {v.shape}")
     shape, affine, flat, src = _volume_map(int(resolution), float(gm_threshold), float(max_dist_mm))
     out = np.full((v2.shape[0], int(np.prod(shape))), fill, dtype=np.float32)
     out[:, flat] = v2[:, src]
     out = out.reshape((v2.shape[0],) + tuple(shape))
+    import nibabel as nib
+
     data = out[0] if single else np.moveaxis(out, 0, -1)
     img = nib.Nifti1Image(data, affine)
     img.header.set_xyzt_units("mm")
@@ -159,11 +147,13 @@ def sources_to_volume(values: np.ndarray, *, resolution: int = 2, gm_threshold: 
 
 
 def atlas_labels(atlas) -> np.ndarray:
-    """Label per source from an :class:`~sourcelab.rois.atlas.Atlas`, shape (20484,), -1 = none.
+    """ROI number per surface vertex from an :class:`~sourcelab.rois.atlas.Atlas`, shape (20484,),
+    -1 = none (the medial wall and unlabelled cortex).
 
     Used for parcel outlines; where ROIs overlap the later ROI wins.
     """
-    lab = np.full(N_SRC, -1, dtype=np.int64)
+    vertno = load_head_model().vertno
+    lab = np.full(N_SURFACE, -1, dtype=np.int64)
     for k, r in enumerate(atlas.rois):
-        lab[np.asarray(r.vertices, dtype=np.int64)] = k
+        lab[vertno[np.asarray(r.vertices, dtype=np.int64)]] = k
     return lab

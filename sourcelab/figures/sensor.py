@@ -8,7 +8,7 @@ import matplotlib.pyplot as plt
 import numpy as np
 from matplotlib.figure import Figure
 
-from ..config import SITES_1020
+from ..constants import SITES_1020
 from .colours import ColourScale, add_colourbar, masked
 
 
@@ -19,15 +19,14 @@ def sensor_info(ch_names: tuple[str, ...] = SITES_1020):
     Positions come from MNE's packaged ``fsaverage_1020`` montage (electrodes fitted to the
     fsaverage scalp), so the maps sit on the same head as the source model.
     """
-    import mne
+    from ..headmodel import make_info
 
-    info = mne.create_info(list(ch_names), sfreq=250.0, ch_types="eeg")
-    montage = mne.channels.make_standard_montage("fsaverage_1020")
-    missing = sorted(set(ch_names) - set(montage.ch_names))
-    if missing:
-        raise ValueError(f"ch_names: no fsaverage_1020 position for {missing}")
-    info.set_montage(montage)
-    return info
+    if tuple(ch_names) != SITES_1020:
+        missing = sorted(set(ch_names) - set(SITES_1020))
+        if missing:
+            raise ValueError(f"ch_names: no fsaverage_1020 position for {missing}")
+        return make_info(250.0).pick(list(ch_names))
+    return make_info(250.0)
 
 
 def sensor_topomaps(values: np.ndarray, *, band_names, scale,

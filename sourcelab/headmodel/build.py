@@ -31,7 +31,6 @@ import argparse
 import json
 import logging
 import os
-import resource
 import sys
 import tempfile
 import time
@@ -42,8 +41,11 @@ import mne
 import nibabel as nib
 import numpy as np
 
-from ..config import SITES_1020
-from ..provenance import atomic_write_text, sha256_file
+from ..constants import SITES_1020
+from ..provenance import sha256_file
+from .ingredients import (fsaverage5_source_space, inner_skull_ico, mne_fsaverage_dir,
+                          read_trans, write_fsaverage5_subject)
+from .model import FILE_FORMAT, N_PER_HEMI
 from .sites import MONTAGE_NAME, make_info
 
 logger = logging.getLogger("sourcelab")
@@ -52,66 +54,10 @@ logger = logging.getLogger("sourcelab")
 CONDUCTIVITY = (0.3, 0.006, 0.3)
 #: Nominal skull thickness, metres; reduced to half the inner-skull-to-scalp gap where thinner.
 SKULL_THICKNESS_M = 0.006
-#: Format version of the shipped file (bump when keys or conventions change).
-FILE_FORMAT = 1
 _SUBJECT = "fsaverage"
 
 
-# ----------------------------------------------------------------------------- ingredients
-def mne_fsaverage_dir() -> Path:
-    """Folder of the fsaverage files shipped inside the MNE wheel."""
-    return Path(mne.__file__).parent / "data" / "fsaverage"
-
-
-def nilearn_fsaverage5_dir() -> Path:
-    """Folder of the fsaverage5 meshes shipped inside the nilearn wheel (located without import
-    side effects)."""
-    import nilearn
-
-    return Path(nilearn.__file__).parent / "datasets" / "data" / "fsaverage5"
-
-
-def read_trans() -> mne.transforms.Transform:
-    """The fsaverage head -> MRI transform shipped with MNE."""
-    return mne.read_trans(mne_fsaverage_dir() / "fsaverage-trans.fif", verbose="error")
-
-
-def read_white_surfaces() -> tuple[tuple[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]]:
-    """fsaverage5 white surfaces (left, right), each ``(rr_mm, tris)``.
-
-    Returns
-    -------
-    left, right : tuple of (ndarray (10242, 3) float64, ndarray (20480, 3) int)
-        Vertex positions in fsaverage surface RAS (MNI305), millimetres, and triangles.
-    """
-    out = []
-    for hemi in ("left", "right"):
-        img = nib.load(nilearn_fsaverage5_dir() / f"white_{hemi}.gii.gz")
-        rr = np.asarray(img.darrays[0].data, dtype=np.float64)
-        tris = np.asarray(img.darrays[1].data, dtype=np.int64)
-        out.append((rr, tris))
-    return out[0], out[1]
-
-
-def inner_skull_ico(ico: int = 4) -> tuple[np.ndarray, np.ndarray]:
-    """The shipped fsaverage inner skull decimated to an ico-``ico`` mesh.
-
-    Returns
-    -------
-    rr : ndarray, shape (10 * 4**ico + 2, 3)
-        Vertices, metres, MRI (surface RAS) frame.
-    tris : ndarray, shape (20 * 4**ico, 3)
-    """
-    from mne.bem import _ico_downsample  # private but pinned (mne < 1.14); checks isomorphism
-
-    surf = mne.read_bem_surfaces(
-        mne_fsaverage_dir() / "fsaverage-inner_skull-bem.fif", verbose="error"
-    )[0]
-    with mne.utils.use_log_level("error"):
-        dec = _ico_downsample(surf, ico)
-    return np.asarray(dec["rr"], float), np.asarray(dec["tris"], np.int64)
-
-
+# ----------------------------------------------------------------------------- meshes
 def ray_surface_distance(origin, dirs, rr, tris) -> np.ndarray:
     """Distance along rays to their farthest intersection with a closed triangle mesh.
 
@@ -235,34 +181,6 @@ def bem_solution_from_layers(
     return mne.make_bem_solution(model, verbose="error")
 
 
-def write_fsaverage5_subject(subjects_dir) -> tuple[np.ndarray, np.ndarray]:
-    """Write nilearn's fsaverage5 white surfaces as ``subjects_dir/fsaverage/surf/?h.white``.
-
-    Returns
-    -------
-    lh_rr, rh_rr : ndarray, shape (10242, 3)
-        White-surface vertices, fsaverage surface RAS (MNI305), millimetres.
-    """
-    surf_dir = Path(subjects_dir) / _SUBJECT / "surf"
-    surf_dir.mkdir(parents=True, exist_ok=True)
-    out = []
-    for hemi, (rr, tris) in zip(("lh", "rh"), read_white_surfaces()):
-        nib.freesurfer.write_geometry(str(surf_dir / f"{hemi}.white"), rr, tris.astype(np.int32))
-        out.append(rr)
-    return out[0], out[1]
-
-
-def fsaverage5_source_space(subjects_dir) -> mne.SourceSpaces:
-    """All 2 x 10,242 fsaverage5 white-surface vertices as an MNE surface source space (MRI frame).
-
-    ``write_fsaverage5_subject(subjects_dir)`` must have been called first.
-    """
-    return mne.setup_source_space(
-        _SUBJECT, spacing="all", surface="white", subjects_dir=subjects_dir, add_dist=False,
-        verbose="error",
-    )
-
-
 # ----------------------------------------------------------------------------- writing
 def write_npz(path, arrays: dict) -> None:
     """Write an uncompressed ``.npz`` with fixed zip timestamps, so equal arrays give equal bytes.
@@ -292,20 +210,46 @@ def _versions() -> dict:
 
 def _peak_rss_mb() -> float:
     """Peak resident set size of this process (Linux ru_maxrss is in KiB), MB."""
+    import resource  # POSIX only: imported here so the package imports on every platform
+
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
+def cortex_mask() -> np.ndarray:
+    """Cortical surface vertices of fsaverage5, shape (20484,) bool.
+
+    False on FreeSurfer's medial wall (label 0 of Yeo et al. 2011's fsaverage parcellation, the
+    shipped ``yeo7_fsaverage5.npz``): the cut through corpus callosum, hippocampus and brainstem,
+    which is not cortex (1,769 vertices).
+
+    References
+    ----------
+    Yeo BTT et al. (2011). J Neurophysiol 106:1125-1165.
+    """
+    import io
+
+    from ..data import shipped_bytes
+
+    with np.load(io.BytesIO(shipped_bytes("yeo7_fsaverage5.npz")[0]), allow_pickle=False) as z:
+        labels = np.asarray(z["labels"])
+    if labels.shape != (2 * N_PER_HEMI,):
+        raise RuntimeError(f"yeo7 labels have shape {labels.shape}")
+    return labels > 0
+
+
 # ----------------------------------------------------------------------------- build
-def build_head_model(out_path, *, ico: int = 4) -> Path:
-    """Rebuild the shipped head model file and its sha256 sidecar.
+def build_head_model(out_path, *, ico: int = 4, update_manifest: bool | None = None) -> Path:
+    """Rebuild the head-model file.
 
     Parameters
     ----------
     out_path : path-like
-        The ``.npz`` to write; ``<stem>.json`` beside it receives its sha256 and the build
-        metadata.  Both are written to a temporary name and renamed.
+        The ``.npz`` to write (temporary name, then rename).
     ico : int
         Icosahedral subdivision of the BEM layers (4: 2,562 vertices per layer; 3: 642).
+    update_manifest : bool, optional
+        Record the file's sha256 in the shipped ``MANIFEST.json``; default: when ``out_path`` is
+        the shipped file.
 
     Returns
     -------
@@ -314,8 +258,13 @@ def build_head_model(out_path, *, ico: int = 4) -> Path:
 
     Notes
     -----
-    The gain is not re-referenced (the inverse applies the average-reference projector).
+    The gain is not re-referenced (the inverse applies the average-reference projector).  Only
+    cortical vertices are sources (:func:`cortex_mask`).
     """
+    from ..data import DATA_DIR
+    from ..data import update_manifest as _update_manifest
+    from .ingredients import read_fsaverage5
+
     out_path = Path(out_path)
     if ico not in (2, 3, 4, 5):
         raise ValueError(f"ico must be one of 2, 3, 4, 5, got {ico!r}")
@@ -325,9 +274,11 @@ def build_head_model(out_path, *, ico: int = 4) -> Path:
                 layers["min_gap_mm"])
     trans = read_trans()
     info = make_info(250.0)
+    cortex = cortex_mask()
+    vertno = np.flatnonzero(cortex)
     with tempfile.TemporaryDirectory(prefix="sourcelab-hm-") as subjects_dir:
-        lh_mm, rh_mm = write_fsaverage5_subject(subjects_dir)
-        src = fsaverage5_source_space(subjects_dir)
+        meshes = write_fsaverage5_subject(subjects_dir)
+        src = fsaverage5_source_space(subjects_dir, vertno=vertno)
         t_bem = time.perf_counter()
         bem = bem_solution_from_layers(
             (layers["inner_skull"], layers["outer_skull"], layers["outer_skin"]),
@@ -339,26 +290,29 @@ def build_head_model(out_path, *, ico: int = 4) -> Path:
             verbose="error",
         )
         del bem
-    n_src = len(lh_mm) + len(rh_mm)
+    n_src = vertno.size
     if fwd["nsource"] != n_src or list(fwd["sol"]["row_names"]) != list(SITES_1020):
         raise RuntimeError(
             f"forward dropped sources or reordered channels ({fwd['nsource']} of {n_src})"
         )
     if fwd["coord_frame"] != mne.io.constants.FIFF.FIFFV_COORD_HEAD:
         raise RuntimeError("forward is not in head coordinates")
+    got = np.concatenate([s["vertno"] + h * N_PER_HEMI for h, s in enumerate(fwd["src"])])
+    if not np.array_equal(got, vertno):
+        raise RuntimeError("forward sources differ from the cortical vertices")
     gain = np.asarray(fwd["sol"]["data"], dtype=np.float32)
     src_pos = np.concatenate([s["rr"][s["vertno"]] for s in fwd["src"]])
     src_nn = np.concatenate([s["nn"][s["vertno"]] for s in fwd["src"]])
-    src_mni = np.concatenate([lh_mm, rh_mm])
     ch_pos = np.array([ch["loc"][:3] for ch in fwd["info"]["chs"]])
     build_s = time.perf_counter() - t0
     meta = {
         "file_format": FILE_FORMAT,
         "description": "fsaverage5 3-layer BEM EEG leadfield, 19 10-20 sites, free orientation, "
-                       "not re-referenced (apply the average-reference projector in the inverse)",
+                       "cortical sources only, not re-referenced (apply the average-reference "
+                       "projector in the inverse)",
         "coord_frame": "MNE head coordinates (metres) for gain, ch_pos, src_pos, src_nn; "
-                       "src_mni in fsaverage surface RAS (MNI305) millimetres",
-        "units": {"gain": "V/(A*m)", "ch_pos": "m", "src_pos": "m", "src_mni": "mm"},
+                       "surface meshes in fsaverage surface RAS (MNI305) millimetres",
+        "units": {"gain": "V/(A*m)", "ch_pos": "m", "src_pos": "m", "surf_*": "mm"},
         "reference": "none (raw electrode potentials)",
         "bem": {
             "layers": ["inner_skull", "outer_skull", "outer_skin"],
@@ -369,22 +323,28 @@ def build_head_model(out_path, *, ico: int = 4) -> Path:
             "min_gap_mm": layers["min_gap_mm"],
             "centre_mri_mm": [round(float(c) * 1e3, 3) for c in layers["centre"]],
         },
-        "sources": {"surface": "fsaverage5 white", "n_left": len(lh_mm), "n_right": len(rh_mm)},
+        "sources": {"surface": "fsaverage5 white", "n_sources": int(n_src),
+                    "n_left": int(np.sum(vertno < N_PER_HEMI)),
+                    "excluded": "medial wall (Yeo 2011 label 0), "
+                                f"{int((~cortex).sum())} vertices"},
         "montage": MONTAGE_NAME,
         "trans": "mne/data/fsaverage/fsaverage-trans.fif",
         "head_to_mri": np.asarray(trans["trans"]).round(10).tolist(),
         "versions": _versions(),
-        "build_seconds": round(build_s, 1),
-        "bem_solution_seconds": round(t_bem, 1),
     }
+    logger.info("head model built in %.1f s (BEM solution %.1f s)", build_s, t_bem)
     arrays = {
         "gain": gain,
         "ch_names": np.array(SITES_1020),
         "ch_pos": ch_pos.astype(np.float64),
         "src_pos": src_pos.astype(np.float64),
         "src_nn": src_nn.astype(np.float64),
-        "src_mni": src_mni.astype(np.float64),
-        "n_left": np.array(len(lh_mm)),
+        "vertno": vertno.astype(np.int32),
+        "surf_white": meshes["white"].astype(np.float32),
+        "surf_pial": meshes["pial"].astype(np.float32),
+        "surf_inflated": meshes["inflated"].astype(np.float32),
+        "surf_faces": meshes["faces"].astype(np.int32),
+        "surf_sulc": meshes["sulc"].astype(np.float32),
         "meta_json": np.array(json.dumps(meta, sort_keys=True)),
     }
     out_path.parent.mkdir(parents=True, exist_ok=True)
@@ -392,22 +352,21 @@ def build_head_model(out_path, *, ico: int = 4) -> Path:
     try:
         write_npz(tmp, arrays)
         digest = sha256_file(tmp)
+        os.chmod(tmp, 0o644)
         os.replace(tmp, out_path)
     finally:
         if tmp.exists():
             tmp.unlink()
-    sidecar = {"file": out_path.name, "sha256": digest, "bytes": out_path.stat().st_size,
-               "meta": meta}
-    atomic_write_text(sidecar_path(out_path), json.dumps(sidecar, indent=2, sort_keys=True) + "\n")
-    os.chmod(sidecar_path(out_path), 0o644)  # mkstemp creates 0600; the file ships in the wheel
-    logger.info("wrote %s (%.1f MB, sha256 %s) in %.1f s", out_path, out_path.stat().st_size / 1e6,
-                digest, build_s)
+    if update_manifest is None:
+        update_manifest = out_path.resolve() == (DATA_DIR / SHIPPED_NAME).resolve()
+    if update_manifest:
+        _update_manifest({out_path.name: digest})
+    logger.info("wrote %s (%.1f MB, sha256 %s)", out_path, out_path.stat().st_size / 1e6, digest)
     return out_path
 
 
-def sidecar_path(npz_path) -> Path:
-    """The ``.json`` beside a head-model ``.npz`` that records its sha256."""
-    return Path(npz_path).with_suffix(".json")
+#: File name of the shipped head model inside ``sourcelab/data``.
+SHIPPED_NAME = "fsaverage5_eeg19.npz"
 
 
 # ----------------------------------------------------------------------------- command line
@@ -416,8 +375,9 @@ def _get_parser() -> argparse.ArgumentParser:
         prog="python -m sourcelab.headmodel.build",
         description="Rebuild the fsaverage5 19-electrode EEG head model from installed packages.",
     )
-    p.add_argument("--out", required=True, help="output .npz path (a .json sidecar is written "
-                                                "beside it)")
+    p.add_argument("--out", default=None,
+                   help="output .npz path (default: the shipped file, whose sha256 is then "
+                        "recorded in sourcelab/data/MANIFEST.json)")
     p.add_argument("--ico", type=int, default=4, choices=(3, 4),
                    help="icosahedral subdivision of the BEM layers (default 4)")
     return p
@@ -425,11 +385,12 @@ def _get_parser() -> argparse.ArgumentParser:
 
 def main(argv=None) -> int:
     """Command-line entry point; returns the exit code."""
+    from ..data import DATA_DIR
+
     args = _get_parser().parse_args(argv)
     t0 = time.perf_counter()
-    path = build_head_model(args.out, ico=args.ico)
-    digest = json.loads(sidecar_path(path).read_text())["sha256"]
-    print(f"wrote {path} ({path.stat().st_size / 1e6:.2f} MB), sha256 {digest}")
+    path = build_head_model(args.out or DATA_DIR / SHIPPED_NAME, ico=args.ico)
+    print(f"wrote {path} ({path.stat().st_size / 1e6:.2f} MB), sha256 {sha256_file(path)}")
     print(f"build time {time.perf_counter() - t0:.1f} s, peak memory {_peak_rss_mb():.0f} MB")
     return 0
 

@@ -9,7 +9,7 @@ import mne
 import numpy as np
 
 from ..errors import InputError
-from .build import fsaverage5_source_space, read_trans, write_fsaverage5_subject
+from .ingredients import fsaverage5_source_space, read_trans, write_fsaverage5_subject
 from .model import HeadModel
 from .sites import make_info
 
@@ -20,8 +20,8 @@ _POS_TOL_M = 1e-6
 def to_mne_forward(model: HeadModel, info: mne.Info | None = None) -> mne.Forward:
     """An ``mne.Forward`` whose gain is exactly ``model.gain``.
 
-    The structure (a two-hemisphere fsaverage5 surface source space with ``vertno`` 0..10241 in
-    each hemisphere, head-frame positions and normals, free orientation, ``surf_ori=False``) is
+    The structure (a two-hemisphere fsaverage5 surface source space whose ``vertno`` are the
+    model's cortical vertices, head-frame positions and normals, free orientation, ``surf_ori=False``) is
     built by :func:`mne.make_forward_solution` with a placeholder sphere conductor; the computed
     gain is then replaced by the shipped one.  ``mne.minimum_norm.make_inverse_operator``,
     ``apply_inverse_cov`` and ``compute_source_psd`` therefore run on sourcelab's leadfield.
@@ -63,7 +63,7 @@ def _template_forward(model: HeadModel) -> mne.Forward:
         raise RuntimeError("make_info channels differ from the head model's")
     with tempfile.TemporaryDirectory(prefix="sourcelab-fwd-") as subjects_dir:
         write_fsaverage5_subject(subjects_dir)
-        src = fsaverage5_source_space(subjects_dir)
+        src = fsaverage5_source_space(subjects_dir, vertno=model.vertno)
     # Placeholder conductor: a sphere large enough to contain every source; its gain is discarded.
     sphere = mne.make_sphere_model(r0=(0.0, 0.0, 0.0), head_radius=0.5, verbose="error")
     fwd = mne.make_forward_solution(info, trans=read_trans(), src=src, bem=sphere, eeg=True,

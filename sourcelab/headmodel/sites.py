@@ -1,4 +1,4 @@
-"""The 19 10-20 electrode sites on the fsaverage scalp, as MNE objects.
+"""The 19 10-20 electrode sites on the fsaverage scalp, as MNE objects (the one Info builder).
 
 The positions come from MNE's fsaverage-fitted 10-20 montage
 (``mne/channels/data/montages/fsaverage_1020.tsv``, built-in name ``"fsaverage_1020"``), not
@@ -7,23 +7,19 @@ from ``standard_1020`` (Colin27 positions, about 11 mm away from the fsaverage s
 
 from __future__ import annotations
 
-import mne
+import functools
 
-from ..config import SITES_1020
+from ..constants import SITES_1020
 from ..errors import InputError
 
 #: Built-in MNE montage whose positions were fitted to the fsaverage scalp.
 MONTAGE_NAME = "fsaverage_1020"
 
 
-def fsaverage_montage() -> mne.channels.DigMontage:
-    """MNE's fsaverage-fitted 10-20 montage restricted to :data:`sourcelab.config.SITES_1020`.
+@functools.lru_cache(maxsize=1)
+def _montage():
+    import mne
 
-    Returns
-    -------
-    montage : mne.channels.DigMontage
-        19 EEG positions plus the nasion and pre-auricular fiducials (metres).
-    """
     full = mne.channels.make_standard_montage(MONTAGE_NAME)
     missing = [s for s in SITES_1020 if s not in full.ch_names]
     if missing:  # would mean an incompatible MNE version
@@ -31,28 +27,38 @@ def fsaverage_montage() -> mne.channels.DigMontage:
     pos = full.get_positions()
     return mne.channels.make_dig_montage(
         ch_pos={s: pos["ch_pos"][s] for s in SITES_1020},
-        nasion=pos["nasion"],
-        lpa=pos["lpa"],
-        rpa=pos["rpa"],
-        coord_frame="unknown",
-    )
+        nasion=pos["nasion"], lpa=pos["lpa"], rpa=pos["rpa"], coord_frame="unknown")
 
 
-def make_info(sfreq: float) -> mne.Info:
+def fsaverage_montage():
+    """MNE's fsaverage-fitted 10-20 montage restricted to :data:`~sourcelab.constants.SITES_1020`.
+
+    Returns
+    -------
+    montage : mne.channels.DigMontage
+        19 EEG positions plus the nasion and pre-auricular fiducials (metres); a copy.
+    """
+    return _montage().copy()
+
+
+def make_info(sfreq: float, *, average_reference: bool = False):
     """``mne.Info`` for the 19 sites with the fsaverage-fitted montage set.
 
     Parameters
     ----------
     sfreq : float
         Sampling frequency, Hz (> 0).
+    average_reference : bool
+        Add the average-reference projector (needed by MNE's inverse routines).
 
     Returns
     -------
     info : mne.Info
-        19 EEG channels named and ordered as :data:`sourcelab.config.SITES_1020`, positions in
-        MNE head coordinates (metres).  No projector is added: callers that invert add the
-        average-reference projector themselves.
+        19 EEG channels named and ordered as :data:`~sourcelab.constants.SITES_1020`, positions
+        in MNE head coordinates (metres).
     """
+    import mne
+
     try:
         sfreq = float(sfreq)
     except (TypeError, ValueError):
@@ -61,4 +67,10 @@ def make_info(sfreq: float) -> mne.Info:
         raise InputError(f"sfreq must be a positive number of Hz, got {sfreq!r}")
     info = mne.create_info(list(SITES_1020), sfreq, ch_types="eeg")
     info.set_montage(fsaverage_montage(), verbose="error")
+    if average_reference:  # through a Raw: the public route to MNE's average-reference projector
+        import numpy as np
+
+        raw = mne.io.RawArray(np.zeros((len(SITES_1020), 1)), info, verbose="error")
+        raw.set_eeg_reference("average", projection=True, verbose="error")
+        info = raw.info
     return info

@@ -13,7 +13,7 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass
 
-from ..config import SITES_1020
+from ..constants import SITES_1020
 
 #: Old 10-20 names -> modern names (common practice).
 OLD_TO_NEW: dict[str, str] = {"t3": "T7", "t4": "T8", "t5": "P7", "t6": "P8"}

@@ -9,7 +9,8 @@ import mne
 import numpy as np
 from scipy.signal import welch
 
-from ..config import SITES_1020, AnalysisConfig
+from ..config import AnalysisConfig
+from ..constants import SITES_1020
 from ..errors import InputError
 from .recording import Recording
 

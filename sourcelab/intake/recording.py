@@ -11,7 +11,7 @@ import numpy as np
 from scipy.ndimage import uniform_filter1d
 from scipy.signal import welch
 
-from ..config import SITES_1020
+from ..constants import SITES_1020
 from ..errors import InputError
 from .channels import match_channels
 from .files import read_file

@@ -47,7 +47,7 @@ class Reliability:
     flagged: np.ndarray
 
 
-def reliability(a: np.ndarray, b: np.ndarray) -> float:
+def pearson_r(a: np.ndarray, b: np.ndarray) -> float:
     """Pearson correlation of two feature vectors (flattened), NaN when undefined.
 
     Parameters
@@ -62,9 +62,9 @@ def reliability(a: np.ndarray, b: np.ndarray) -> float:
     a = np.asarray(a, float).ravel()
     b = np.asarray(b, float).ravel()
     if a.shape != b.shape:
-        raise InputError(f"reliability: shapes differ, {a.shape} vs {b.shape}")
+        raise InputError(f"pearson_r: shapes differ, {a.shape} vs {b.shape}")
     if a.size < 3:
-        raise InputError("reliability: need at least 3 items")
+        raise InputError("pearson_r: need at least 3 items")
     a = a - a.mean()
     b = b - b.mean()
     den = np.sqrt((a @ a) * (b @ b))
@@ -89,7 +89,7 @@ def _halves_reliability(power, first, second, kind, threshold, log):
         if np.any(fa <= 0) or np.any(fb <= 0):
             raise InputError(f"{kind}: band power must be > 0 for log features")
         fa, fb = np.log10(fa), np.log10(fb)
-    r = np.array([reliability(fa[k], fb[k]) for k in range(power.shape[1])])
+    r = np.array([pearson_r(fa[k], fb[k]) for k in range(power.shape[1])])
     flagged = ~(r >= threshold)
     return Reliability(kind, r, spearman_brown(r), (len(first), len(second)), float(threshold),
                        flagged)
@@ -135,8 +135,49 @@ def _num(x) -> float | None:
     return x if np.isfinite(x) else None
 
 
-def reliability_summary(power: np.ndarray, band_names, *, threshold: float = 0.90) -> dict:
-    """Split-half and test-retest reliability as a JSON-ready dict (for result provenance).
+@dataclass(frozen=True)
+class ReliabilitySummary:
+    """Split-half and test-retest reliability of one set of items (sensors or ROIs), per band.
+
+    Attributes
+    ----------
+    n_epochs : int
+    threshold : float
+        ``AnalysisConfig.reliability_threshold``, applied to the uncorrected split-half r.
+    features : str
+        ``"log10 band power"`` or ``"band power"``.
+    split_half, split_half_spearman_brown, test_retest, test_retest_spearman_brown : dict
+        Band -> r (None where undefined: fewer than 2 epochs, constant features).
+    flagged_bands : tuple of str
+        Bands whose split-half r is below the threshold (or undefined).
+    """
+
+    n_epochs: int
+    threshold: float
+    features: str
+    split_half: dict
+    split_half_spearman_brown: dict
+    test_retest: dict
+    test_retest_spearman_brown: dict
+    flagged_bands: tuple[str, ...]
+
+    @property
+    def min_split_half(self) -> float | None:
+        vals = [v for v in self.split_half.values() if v is not None]
+        return min(vals) if vals else None
+
+    def to_dict(self) -> dict:
+        from dataclasses import asdict
+
+        d = asdict(self)
+        d["flagged_bands"] = list(self.flagged_bands)
+        d["min_split_half"] = self.min_split_half
+        return d
+
+
+def reliability_summary(power: np.ndarray, band_names, *,
+                        threshold: float = 0.90) -> ReliabilitySummary:
+    """Split-half and test-retest reliability of per-epoch band power.
 
     Parameters
     ----------
@@ -149,12 +190,7 @@ def reliability_summary(power: np.ndarray, band_names, *, threshold: float = 0.9
 
     Returns
     -------
-    dict
-        ``split_half`` and ``test_retest``: {band: r}; ``split_half_spearman_brown`` and
-        ``test_retest_spearman_brown``: {band: corrected r}; ``flagged_bands``: bands whose
-        split-half r is below the threshold (or undefined); ``min_split_half``; ``n_epochs``;
-        ``threshold``; ``features`` ("log10 band power" or "band power").  Undefined values
-        (fewer than 2 epochs, constant features) are None.
+    ReliabilitySummary
     """
     power = np.asarray(power, float)
     names = [str(b) for b in band_names]
@@ -162,20 +198,18 @@ def reliability_summary(power: np.ndarray, band_names, *, threshold: float = 0.9
         raise InputError(f"power: need shape (n_epochs, {len(names)} bands, n_items), "
                          f"got {power.shape}")
     log = bool(np.all(power > 0))
-    out = {"n_epochs": int(power.shape[0]), "threshold": float(threshold),
-           "features": "log10 band power" if log else "band power"}
+    common = dict(n_epochs=int(power.shape[0]), threshold=float(threshold),
+                  features="log10 band power" if log else "band power")
     if power.shape[0] < 2 or power.shape[2] < 3:
-        for key in ("split_half", "split_half_spearman_brown", "test_retest",
-                    "test_retest_spearman_brown"):
-            out[key] = {b: None for b in names}
-        out.update(flagged_bands=names, min_split_half=None)
-        return out
+        none = {b: None for b in names}
+        return ReliabilitySummary(split_half=none, split_half_spearman_brown=dict(none),
+                                  test_retest=dict(none), test_retest_spearman_brown=dict(none),
+                                  flagged_bands=tuple(names), **common)
     sh = split_half(power, threshold=threshold, log=log)
     tr = test_retest(power, threshold=threshold, log=log)
-    out["split_half"] = {b: _num(r) for b, r in zip(names, sh.r)}
-    out["split_half_spearman_brown"] = {b: _num(r) for b, r in zip(names, sh.r_spearman_brown)}
-    out["test_retest"] = {b: _num(r) for b, r in zip(names, tr.r)}
-    out["test_retest_spearman_brown"] = {b: _num(r) for b, r in zip(names, tr.r_spearman_brown)}
-    out["flagged_bands"] = [b for b, f in zip(names, sh.flagged) if f]
-    out["min_split_half"] = _num(np.nanmin(sh.r)) if np.isfinite(sh.r).any() else None
-    return out
+    return ReliabilitySummary(
+        split_half={b: _num(r) for b, r in zip(names, sh.r)},
+        split_half_spearman_brown={b: _num(r) for b, r in zip(names, sh.r_spearman_brown)},
+        test_retest={b: _num(r) for b, r in zip(names, tr.r)},
+        test_retest_spearman_brown={b: _num(r) for b, r in zip(names, tr.r_spearman_brown)},
+        flagged_bands=tuple(b for b, f in zip(names, sh.flagged) if f), **common)

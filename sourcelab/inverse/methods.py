@@ -10,36 +10,26 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..constants import INVERSE_METHODS, ORIENTATIONS
 from ..errors import InputError
 from ..headmodel.model import HeadModel
-from .sloreta import SourceOperator, sloreta_kernel
+from .sloreta import SourceOperator, sloreta_operator
 
 
 def _sloreta(model: HeadModel, orientation: str, lambda2: float) -> SourceOperator:
     if orientation == "fixed":
-        return sloreta_kernel(model.gain, lambda2=lambda2, orientation="fixed",
-                              normals=model.src_nn)
-    return sloreta_kernel(model.gain, lambda2=lambda2, orientation="free")
-
-
-def info_with_average_reference(sfreq: float = 256.0):
-    """``mne.Info`` of the 19 sites carrying the average-reference projector (MNE needs it for
-    inverse modelling)."""
-    import mne
-
-    from ..headmodel import make_info
-
-    raw = mne.io.RawArray(np.zeros((19, 1)), make_info(sfreq), verbose="error")
-    raw.set_eeg_reference("average", projection=True, verbose="error")
-    return raw.info
+        return sloreta_operator(model.gain, lambda2=lambda2, orientation="fixed",
+                                normals=model.src_nn)
+    return sloreta_operator(model.gain, lambda2=lambda2, orientation="free")
 
 
 def _mne_kernel(model: HeadModel, orientation: str, lambda2: float, method: str) -> SourceOperator:
     import mne
 
-    from ..headmodel import to_mne_forward
+    from ..headmodel.mne_bridge import to_mne_forward
+    from ..headmodel.sites import make_info
 
-    info = info_with_average_reference()
+    info = make_info(256.0, average_reference=True)
     fwd = to_mne_forward(model, info)
     noise_cov = mne.Covariance(np.eye(len(model.ch_names)) * 1e-12, info["ch_names"],
                                info["bads"], info["projs"], nfree=1_000_000, verbose="error")
@@ -55,11 +45,17 @@ def _mne_kernel(model: HeadModel, orientation: str, lambda2: float, method: str)
                           n_src=model.n_src, method=method)
 
 
-METHODS = {
-    "sLORETA": _sloreta,
-    "eLORETA": lambda m, o, l2: _mne_kernel(m, o, l2, "eLORETA"),
-    "dSPM": lambda m, o, l2: _mne_kernel(m, o, l2, "dSPM"),
-}
+def _eloreta(model, orientation, lambda2):
+    return _mne_kernel(model, orientation, lambda2, "eLORETA")
+
+
+def _dspm(model, orientation, lambda2):
+    return _mne_kernel(model, orientation, lambda2, "dSPM")
+
+
+#: Method name -> ``f(model, orientation, lambda2) -> SourceOperator``.
+METHODS = {"sLORETA": _sloreta, "eLORETA": _eloreta, "dSPM": _dspm}
+assert tuple(METHODS) == INVERSE_METHODS  # one list of method names (constants)
 
 
 def make_operator(model: HeadModel, *, method: str = "sLORETA", orientation: str = "fixed",
@@ -73,9 +69,13 @@ def make_operator(model: HeadModel, *, method: str = "sLORETA", orientation: str
     orientation : {"fixed", "free"}
     lambda2 : float
         λ² = 1/SNR².
+
+    Returns
+    -------
+    SourceOperator
     """
     if method not in METHODS:
-        raise InputError(f"method: {method!r} is not one of {sorted(METHODS)}")
-    if orientation not in ("fixed", "free"):
-        raise InputError(f"orientation: {orientation!r} is not one of fixed, free")
+        raise InputError(f"method: {method!r} is not one of {', '.join(METHODS)}")
+    if orientation not in ORIENTATIONS:
+        raise InputError(f"orientation: {orientation!r} is not one of {', '.join(ORIENTATIONS)}")
     return METHODS[method](model, orientation, float(lambda2))

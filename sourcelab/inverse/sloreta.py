@@ -28,15 +28,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..constants import ORIENTATIONS
 from ..errors import InputError
-
-ORIENTATIONS = ("fixed", "free")
-
-
-def average_reference_projector(n_ch: int) -> np.ndarray:
-    """``P = I - 11ᵀ/n``, shape (n_ch, n_ch)."""
-    return np.eye(n_ch) - 1.0 / n_ch
-
+from ..headmodel.model import fixed_gain
+from ..spectra import average_reference_projector
 
 def whitener(noise_cov: np.ndarray | None, n_ch: int, *, rtol: float = 1e-10) -> np.ndarray:
     """Whitener for average-referenced data, shape (rank, n_ch).
@@ -97,10 +92,10 @@ def _svd_whitened(gain: np.ndarray, noise_cov: np.ndarray | None, lambda2: float
     return w, u, s, vt, f, scale2
 
 
-def sloreta_kernel(gain: np.ndarray, *, lambda2: float, orientation: str = "fixed",
+def sloreta_operator(gain: np.ndarray, *, lambda2: float, orientation: str = "fixed",
                    normals: np.ndarray | None = None,
                    noise_cov: np.ndarray | None = None) -> SourceOperator:
-    """Build the standardised sLORETA kernel.
+    """Build the sLORETA source operator (the standardised kernel and its metadata).
 
     Parameters
     ----------
@@ -133,7 +128,7 @@ def sloreta_kernel(gain: np.ndarray, *, lambda2: float, orientation: str = "fixe
         n_src = normals.shape[0]
         if gain.shape[1] != 3 * n_src:
             raise InputError(f"gain: {gain.shape[1]} columns do not match 3 x {n_src} normals")
-        gain = np.einsum("csk,sk->cs", gain.reshape(gain.shape[0], n_src, 3), normals)
+        gain = fixed_gain(gain, normals)
     if orientation == "free" and gain.shape[1] % 3:
         raise InputError("gain: free orientation needs 3 columns per source")
     w, u, s, vt, f, scale2 = _svd_whitened(gain, noise_cov, lambda2)
@@ -183,7 +178,7 @@ def source_power(op: SourceOperator, csd: np.ndarray) -> np.ndarray:
     return out[0] if single else out
 
 
-def resolution_diagonal_peaks(gain: np.ndarray, *, lambda2: float, orientation: str = "fixed",
+def point_source_peaks(gain: np.ndarray, *, lambda2: float, orientation: str = "fixed",
                               normals: np.ndarray | None = None, orientations=None,
                               chunk: int = 512) -> np.ndarray:
     """For each source, where a noise-free unit source there has its sLORETA peak.
@@ -200,12 +195,8 @@ def resolution_diagonal_peaks(gain: np.ndarray, *, lambda2: float, orientation: 
     -------
     peaks : ndarray of int, shape (n_src,)
     """
-    op = sloreta_kernel(gain, lambda2=lambda2, orientation=orientation, normals=normals)
-    if orientation == "fixed" and normals is not None:
-        n_src = normals.shape[0]
-        g = np.einsum("csk,sk->cs", gain.reshape(gain.shape[0], n_src, 3), normals)
-    else:
-        g = gain
+    op = sloreta_operator(gain, lambda2=lambda2, orientation=orientation, normals=normals)
+    g = fixed_gain(gain, normals) if orientation == "fixed" and normals is not None else gain
     n_src = op.n_src
     peaks = np.empty(n_src, dtype=int)
     for start in range(0, n_src, chunk):

@@ -377,3 +377,66 @@ def read_norms(path: str | Path) -> Norms:
     table = validate_table(table, path=path, first_line=first)
     return Norms(table=table, fingerprint=head["fingerprint"], condition=head["condition"],
                  cohort=head["cohort"], notes=head["notes"], path=path, sha256=sha256_file(path))
+
+
+def check_norms(path: str | Path) -> str:
+    """Validate a norms file and summarise it (for ``sourcelab norms check``).
+
+    Returns
+    -------
+    str
+        Multi-line summary: format, sha256, fingerprint, condition, cohort, rows by kind and
+        model, SD range, atlases/ROIs/channels/bands/measures, age coverage and gaps, and
+        quantities whose band set is incomplete.  Raises InputError if the file is invalid.
+    """
+    nm = read_norms(path)
+    t = nm.table
+    fp = nm.fingerprint
+    lines = [f"{nm.path}: valid sourcelab-norms 1 file", f"sha256: {nm.sha256}",
+             f"condition: {nm.condition}",
+             "cohort: " + ", ".join(f"{k}={v}" for k, v in sorted(nm.cohort.items())),
+             f"fingerprint: method={fp.method} orientation={fp.orientation} "
+             f"lambda2={fp.lambda2:g} reference={fp.reference} epoch_s={fp.epoch_s:g} "
+             f"pipeline_version={fp.pipeline_version} headmodel={fp.headmodel_sha256[:12]}",
+             "fingerprint bands: " + ", ".join(f"{b[0]} {b[1]:g}-{b[2]:g} Hz" for b in fp.bands)]
+    lines += [f"note: {n}" for n in nm.notes]
+    lines.append(f"rows: {len(t)} ("
+                 + ", ".join(f"{k} {m}: {c}" for (k, m), c in
+                             t.groupby(["kind", "model"]).size().items()) + ")")
+    lines.append(f"sd (transformed scale): {t['sd'].min():.4g} to {t['sd'].max():.4g}; "
+                 f"n per row: {int(t['n'].min())} to {int(t['n'].max())}")
+    fp_bands = [b[0] for b in fp.bands]
+    problems = 0
+    for kind, g in t.groupby("kind"):
+        bands = sorted(set(g["band"]), key=lambda b: fp_bands.index(b) if b in fp_bands else 99)
+        if kind == "roi":
+            n_roi = g[["atlas", "name", "hemisphere"]].drop_duplicates().groupby("atlas").size()
+            where = ", ".join(f"{a}: {c} ROIs" for a, c in n_roi.items())
+        else:
+            where = f"{g['name'].nunique()} channels"
+        lines.append(f"{kind}: {where}; bands {bands}; measures {sorted(set(g['measure']))}; "
+                     f"ages {g['age_min'].min():g}-{g['age_max'].max():g} y")
+        missing_bands = sorted(set(fp_bands) - set(g["band"]))
+        if missing_bands:
+            problems += 1
+            lines.append(f"  WARNING {kind}: fingerprint bands without norms: {missing_bands}")
+        per_q = g.groupby(["atlas", "name", "hemisphere", "measure"])["band"].nunique()
+        incomplete = int((per_q < len(set(g["band"]))).sum())
+        if incomplete:
+            problems += 1
+            lines.append(f"  WARNING {kind}: {incomplete} ROI/channel x measure lack some bands")
+        gaps = 0
+        for _, h in g.groupby(list(QUANTITY_COLUMNS)):
+            a = h.sort_values("age_min")
+            gaps += int(np.sum(a["age_min"].to_numpy()[1:] > a["age_max"].to_numpy()[:-1]))
+        if gaps:
+            problems += 1
+            lines.append(f"  WARNING {kind}: {gaps} gaps between age ranges")
+        spans = g.groupby(list(QUANTITY_COLUMNS)).agg(lo=("age_min", "min"),
+                                                      hi=("age_max", "max"))
+        if spans["lo"].nunique() > 1 or spans["hi"].nunique() > 1:
+            problems += 1
+            lines.append(f"  WARNING {kind}: quantities cover different age spans")
+    lines.append("coverage: complete" if not problems else f"coverage: {problems} warnings")
+    return "\n".join(lines)
+

@@ -11,11 +11,13 @@ approach to multiple testing.  J R Stat Soc B 57:289-300.
 from __future__ import annotations
 
 import logging
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ..constants import FDR_ALPHA
 from ..errors import InputError
 from ..provenance import Fingerprint
 from .io import COEF_COLUMNS, NA, Norms, normalise_condition
@@ -74,17 +76,74 @@ def _keys(table: pd.DataFrame, kind: str) -> list[tuple]:
                     table["measure"].astype(str).tolist()))
 
 
-def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: Fingerprint,
-                condition: str | None = None, allow_extrapolation: bool = False,
-                allow_condition_mismatch: bool = False, kind: str = "roi",
-                fdr_alpha: float = 0.05) -> pd.DataFrame:
-    """Z-score an analysis table against norms.
+@dataclass(frozen=True, eq=False)
+class NormRows:
+    """The norm of every row of an analysis table, at the participant's age.
+
+    Attributes
+    ----------
+    mean, sd : ndarray, shape (m,)
+        Norm mean and SD on the transformed scale (NaN where the row has no norm).
+    transform : ndarray of str, shape (m,)
+        Each row's normalising transform (``""`` where there is no norm).
+    n : ndarray of int, shape (m,)
+        Controls behind each row's norm (0 where none).
+    has : ndarray of bool, shape (m,)
+        The row has a norm.
+    extrapolated : ndarray of bool, shape (m,)
+        The age lies outside the row's age range (the nearest covered age was used).
+    condition_mismatch : bool
+        The analysis condition differs from the norms' (allowed explicitly).
+    """
+
+    mean: np.ndarray
+    sd: np.ndarray
+    transform: np.ndarray
+    n: np.ndarray
+    has: np.ndarray
+    extrapolated: np.ndarray
+    condition_mismatch: bool = False
+
+    def z(self, values) -> np.ndarray:
+        """z-scores of values (one per row, the table's value unit), see :func:`zscore`."""
+        return zscore(values, self.mean, self.sd, self.transform)
+
+
+def zscore(values, mean, sd, transform) -> np.ndarray:
+    """``z = (T(value) - mean) / sd`` elementwise, with a per-element transform.
 
     Parameters
     ----------
-    roi_table : DataFrame
-        An analysis ``roi_table`` (``kind="roi"``: atlas, roi, hemisphere, band, measure, value)
-        or ``sensor_table`` (``kind="sensor"``: channel, band, measure, value).
+    values : array_like, shape (m,)
+        Values in their own unit (absolute power > 0; relative power in (0, 1)).
+    mean, sd : array_like, shape (m,)
+        Norm mean and SD on the transformed scale; NaN gives NaN.
+    transform : str or array of str, shape (m,)
+        Transform names (:data:`~sourcelab.norms.transforms.TRANSFORMS`); ``""`` gives NaN.
+
+    Returns
+    -------
+    ndarray, shape (m,)
+    """
+    values = np.asarray(values, dtype=float)
+    trans = np.broadcast_to(np.asarray(transform, dtype=object), values.shape)
+    tv = np.full(values.shape, np.nan)
+    for name in set(trans.tolist()) - {""}:
+        sel = trans == name
+        tv[sel] = get_transform(name).forward(values[sel])
+    return (tv - np.asarray(mean, dtype=float)) / np.asarray(sd, dtype=float)
+
+
+def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: Fingerprint,
+                condition: str | None = None, allow_extrapolation: bool = False,
+                allow_condition_mismatch: bool = False, kind: str = "roi") -> NormRows:
+    """Find the norm of every row of an analysis table (no z computed).
+
+    Parameters
+    ----------
+    table : DataFrame
+        An analysis ``roi_table`` (``kind="roi"``: atlas, roi, hemisphere, band, measure) or
+        ``sensor_table`` (``kind="sensor"``: channel, band, measure).
     norms : Norms
     age : float
         Participant's age in years (> 0).
@@ -97,35 +156,28 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
         If the age lies outside a row's age range, use the model at the nearest covered age and
         flag the row ``extrapolated`` instead of raising.
     allow_condition_mismatch : bool
-        Z-score anyway when conditions differ; every row is flagged ``condition_mismatch``.
+        Match anyway when conditions differ; rows are flagged ``condition_mismatch``.
     kind : {"roi", "sensor"}
-    fdr_alpha : float
-        FDR level for the ``fdr`` flag.
 
     Returns
     -------
-    DataFrame
-        A copy with ``z`` filled and columns ``p`` (two-sided normal), ``fdr_q`` (Benjamini-
-        Hochberg over every z in this table), ``fdr`` (``fdr_q <= fdr_alpha``), ``norm_n``,
-        ``no_norm`` (quantity absent from the norms: z NaN), ``extrapolated``,
-        ``condition_mismatch``.  ``attrs["n_no_norm"]`` counts rows without norms.
+    NormRows
 
     Raises
     ------
     InputError
         Fingerprint mismatch (listing the differing fields), condition mismatch, age outside the
-        norms' ranges, a band or measure absent from the norms, no norms rows of this kind, values
-        outside a transform's domain.
+        norms' ranges, a band or measure absent from the norms, no norms rows of this kind.
 
     Notes
     -----
-    A ROI or channel in the analysis with no norms row gets z = NaN, ``no_norm = True`` and is
-    counted (logged as a warning); a *band or measure* with no norms at all is an error, because
-    it means the analysis and the norms were made with different settings.
+    A ROI or channel with no norms row gets ``has = False`` (logged as a warning); a *band or
+    measure* with no norms at all is an error, because it means the analysis and the norms were
+    made with different settings.
     """
     where = norms.path if norms.path is not None else "norms"
     if kind not in _KIND_COLUMNS:
-        raise InputError(f"kind: {kind!r} is not one of {sorted(_KIND_COLUMNS)}")
+        raise InputError(f"kind: {kind!r} is not one of {', '.join(_KIND_COLUMNS)}")
     if not isinstance(fingerprint, Fingerprint):
         raise InputError("fingerprint: need the analysis's sourcelab Fingerprint")
     try:
@@ -134,8 +186,8 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
         raise InputError(f"age: need a number of years, got {age!r}") from None
     if not (np.isfinite(age) and age > 0):
         raise InputError(f"age: need a positive number of years to z-score, got {age!r}")
-    need = set(_KIND_COLUMNS[kind].values()) | {"band", "measure", "value"}
-    missing = sorted(need - set(roi_table.columns))
+    need = set(_KIND_COLUMNS[kind].values()) | {"band", "measure"}
+    missing = sorted(need - set(table.columns))
     if missing:
         raise InputError(f"{kind} table lacks columns {missing}")
     diffs = norms.fingerprint.differences(fingerprint)
@@ -150,8 +202,8 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
     elif normalise_condition(condition) != normalise_condition(norms.condition):
         if not allow_condition_mismatch:
             raise InputError(f"condition {condition!r} differs from the norms' condition "
-                             f"{norms.condition!r}; pass allow_condition_mismatch=True to "
-                             "z-score anyway (rows are flagged)", path=where)
+                             f"{norms.condition!r}; allow the mismatch explicitly to z-score "
+                             "anyway (rows are flagged)", path=where)
         mismatch = True
         log.warning("z-scoring %r against %r norms (flagged)", condition, norms.condition)
 
@@ -159,7 +211,7 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
     if nt.empty:
         raise InputError(f"norms have no {kind} rows", path=where)
     for col in ("band", "measure"):
-        unknown = sorted(set(roi_table[col].astype(str)) - set(nt[col]))
+        unknown = sorted(set(table[col].astype(str)) - set(nt[col]))
         if unknown:
             raise InputError(f"{col}s {unknown} of the analysis are not in the norms "
                              f"({sorted(set(nt[col]))})", path=where)
@@ -170,7 +222,7 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
                                                                           "age_max")))):
         by_q.setdefault(tuple(row[:6]), []).append((row[6], row[7], idx))
 
-    keys = _keys(roi_table, kind)
+    keys = _keys(table, kind)
     m = len(keys)
     row_of = np.full(m, -1, dtype=np.int64)
     age_at = np.full(m, age)
@@ -193,47 +245,86 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
         lo = min(r[0] for r in outside)
         hi = max(r[1] for r in outside)
         raise InputError(f"age {age:g} y is outside the norms' age ranges ({lo:g}-{hi:g} y) for "
-                         f"{len(outside)} rows; pass allow_extrapolation=True to z-score anyway "
+                         f"{len(outside)} rows; allow extrapolation explicitly to z-score anyway "
                          "(rows are flagged)", path=where)
     if extrap.any():
         log.warning("age %g y outside the norms' range for %d rows: extrapolated (flagged)",
                     age, int(extrap.sum()))
-
     has = row_of >= 0
-    out = roi_table.copy()
-    z = np.full(m, np.nan)
-    norm_n = np.zeros(m, dtype=np.int64)
-    values = pd.to_numeric(roi_table["value"], errors="coerce").to_numpy(dtype=float)
+    mean = np.full(m, np.nan)
+    sd = np.full(m, np.nan)
+    trans = np.full(m, "", dtype=object)
+    n = np.zeros(m, dtype=np.int64)
     if has.any():
         rows = nt.loc[row_of[has]]
-        mean = evaluate(rows[list(COEF_COLUMNS)].to_numpy(), rows["degree"].to_numpy(),
-                        age_at[has])
-        tv = np.full(has.sum(), np.nan)
-        trans = rows["transform"].to_numpy()
-        for name in np.unique(trans):
-            sel = trans == name
-            tv[sel] = get_transform(name).forward(values[has][sel])
-        z[has] = (tv - mean) / rows["sd"].to_numpy()
-        norm_n[has] = rows["n"].to_numpy()
+        mean[has] = evaluate(rows[list(COEF_COLUMNS)].to_numpy(), rows["degree"].to_numpy(),
+                             age_at[has])
+        sd[has] = rows["sd"].to_numpy()
+        trans[has] = rows["transform"].to_numpy()
+        n[has] = rows["n"].to_numpy()
     n_no = int((~has).sum())
     if n_no:
         log.warning("%d of %d %s rows have no norms (z left NaN, flagged no_norm)", n_no, m, kind)
+    return NormRows(mean=mean, sd=sd, transform=trans, n=n, has=has, extrapolated=extrap,
+                    condition_mismatch=mismatch)
+
+
+def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: Fingerprint,
+                condition: str | None = None, allow_extrapolation: bool = False,
+                allow_condition_mismatch: bool = False, kind: str = "roi",
+                fdr_alpha: float = FDR_ALPHA, rows: NormRows | None = None) -> pd.DataFrame:
+    """Z-score an analysis table against norms.
+
+    Parameters
+    ----------
+    roi_table : DataFrame
+        An analysis ``roi_table`` or ``sensor_table`` (with a ``value`` column).
+    norms : Norms
+    age, fingerprint, condition, allow_extrapolation, allow_condition_mismatch, kind
+        See :func:`match_norms`.
+    fdr_alpha : float
+        FDR level for the ``fdr`` flag.
+    rows : NormRows, optional
+        Already matched norms (from :func:`match_norms` with the same arguments).
+
+    Returns
+    -------
+    DataFrame
+        A copy with ``z`` filled and columns ``p`` (two-sided normal), ``fdr_q`` (Benjamini-
+        Hochberg over every z in this table), ``fdr`` (``fdr_q <= fdr_alpha``), ``norm_n``,
+        ``no_norm`` (quantity absent from the norms: z NaN), ``extrapolated``,
+        ``condition_mismatch``.  ``attrs["n_no_norm"]`` counts rows without norms.
+
+    Raises
+    ------
+    InputError
+        As :func:`match_norms`, and values outside a transform's domain.
+    """
+    if "value" not in roi_table.columns:
+        raise InputError(f"{kind} table lacks columns ['value']")
+    if rows is None:
+        rows = match_norms(roi_table, norms, age=age, fingerprint=fingerprint,
+                           condition=condition, allow_extrapolation=allow_extrapolation,
+                           allow_condition_mismatch=allow_condition_mismatch, kind=kind)
+    values = pd.to_numeric(roi_table["value"], errors="coerce").to_numpy(dtype=float)
+    z = rows.z(values)
     p = 2.0 * stats.norm.sf(np.abs(z))
     q = bh_adjust(p)
+    out = roi_table.copy()
     out["z"] = z
     out["p"] = p
     out["fdr_q"] = q
     out["fdr"] = np.nan_to_num(q, nan=np.inf) <= fdr_alpha
-    out["norm_n"] = norm_n
-    out["no_norm"] = ~has
-    out["extrapolated"] = extrap
-    out["condition_mismatch"] = mismatch
-    out.attrs = dict(roi_table.attrs, n_no_norm=n_no, norms_sha256=norms.sha256, age=age,
-                     fdr_alpha=fdr_alpha)
+    out["norm_n"] = rows.n
+    out["no_norm"] = ~rows.has
+    out["extrapolated"] = rows.extrapolated
+    out["condition_mismatch"] = rows.condition_mismatch
+    out.attrs = dict(roi_table.attrs, n_no_norm=int((~rows.has).sum()),
+                     norms_sha256=norms.sha256, age=float(age), fdr_alpha=fdr_alpha)
     return out
 
 
-def chance_summary(table: pd.DataFrame, *, alpha: float = 0.05) -> dict:
+def chance_summary(table: pd.DataFrame, *, alpha: float = FDR_ALPHA) -> dict:
     """How many z-scores look unusual compared with chance.
 
     Parameters

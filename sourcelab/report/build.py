@@ -37,13 +37,13 @@ def _fig(figs: dict, key: str, caption: str) -> str:
 
 
 def _recording(result) -> str:
-    rec = dict(result.recording or {})
+    rec = result.recording.to_dict()
     rec.setdefault("electrodes", ", ".join(result.ch_names))
     return kv_table(rec) if rec else '<p class="note">No recording information.</p>'
 
 
 def _quality(result) -> str:
-    q = dict(result.quality or {})
+    q = result.quality.to_dict()
     if not q:
         return '<p class="note">No data-quality figures were recorded.</p>'
     out = kv_table({k: v for k, v in q.items() if not isinstance(v, dict)})
@@ -53,11 +53,6 @@ def _quality(result) -> str:
         elif isinstance(v, dict):
             df = pd.DataFrame([list(v.values())], columns=[str(c) for c in v])
             out += f"<h3>{_esc(k)}</h3>" + table_html(df, sortable=False, z_column=None)
-    rel = q.get("split_half_reliability", q.get("reliability"))
-    thr = result.config.reliability_threshold
-    if isinstance(rel, (int, float)) and rel < thr:
-        out += (f'<p class="caution">Split-half reliability {rel:.2f} is below {thr:.2f}: '
-                "treat all numbers in this report with extra care.</p>")
     return out
 
 
@@ -164,7 +159,7 @@ def _methods(result) -> str:
                       zip(cfg.bands.names, cfg.bands.edges))
     norms = result.norms
     norms_txt = ("No norms were used; no z-scores are reported." if not norms else
-                 "Norms: " + _esc(norms.get("description", norms.get("path", "user-supplied")))
+                 "Norms: " + _esc(norms.path or "user-supplied")
                  + ". z = (value − norm mean) / norm SD after the norms' transform.")
     return (
         "<p>The recording was re-referenced to the common average, cleaned epoch by epoch "
@@ -210,11 +205,11 @@ def _cautions() -> str:
 def _provenance(result) -> str:
     fp = result.fingerprint.to_dict()
     fp["bands"] = "; ".join(f"{b[0]} {b[1]:g}-{b[2]:g}" for b in fp["bands"])
-    inputs = {"recording": (result.recording or {}).get("path", "–"),
-              "recording sha256": (result.recording or {}).get("sha256", "–")}
+    inputs = {"recording": result.recording.path or "–",
+              "recording sha256": result.recording.sha256 or "–"}
     if result.norms:
-        inputs["norms"] = result.norms.get("path", "–")
-        inputs["norms sha256"] = result.norms.get("sha256", "–")
+        inputs["norms"] = result.norms.path or "–"
+        inputs["norms sha256"] = result.norms.sha256 or "–"
     cfg = result.config.to_dict()
     cfg["bands"] = "; ".join(f"{b[0]} {b[1]:g}-{b[2]:g} Hz" for b in cfg["bands"])
     cfg = {k: ("none" if v is None else v) for k, v in sorted(cfg.items())}
@@ -243,9 +238,32 @@ def _extra_body(title, content) -> str:
     return "".join(f"<p>{_esc(p)}</p>" for p in str(content).split("\n\n"))
 
 
+def _answer_sections(result, figs: dict) -> list:
+    """Candidates, neighbour blur check and leakage figure, from what the analysis computed."""
+    out = []
+    if "leakage" in figs:
+        out.append(("Leakage between areas", figs.pop("leakage"),
+                    "Share of each row area's expected sLORETA power that comes from equal, "
+                    "uncorrelated activity in each column area (from the resolution matrix; "
+                    "log colour scale). Large off-diagonal shares mean the two areas cannot "
+                    "be told apart well with a template head and 19 electrodes."))
+    if result.candidates is not None:
+        out.append(("Candidate regions and networks", result.candidates.head(40),
+                    "Statistical deviations only, FDR-significant first, then by |z|. The "
+                    "choice of any training target rests with a licensed practitioner who "
+                    "weighs symptoms and history. Full list: candidates.tsv."))
+    if result.leakage_hints is not None:
+        out.append(("Neighbour blur check", result.leakage_hints.head(60),
+                    "For each deviating Brodmann area, the areas that leak most power into "
+                    "it and whether they deviate the same way: if they do, the deviation may "
+                    "be a neighbour's activity blurred by the inverse."))
+    return out
+
+
 def build_html(result, figures: dict, *, extra_sections=None, title: str | None = None) -> str:
     """The report as one HTML string (see :func:`write_report`)."""
     figs = dict(figures)
+    extra_sections = _answer_sections(result, figs) + list(extra_sections or [])
     bodies = {
         "recording": _recording(result),
         "quality": _quality(result),
@@ -302,9 +320,9 @@ def write_report(result, path, *, figures: dict | None = None,
     if path.exists() and path.is_dir():
         raise ValueError(f"path: {path} is a folder; give an .html file name")
     if figures is None:
-        from ..figures import result_figures
+        from ..figures import figure_png, result_figures
 
-        figures = result_figures(result)
+        figures = {k: figure_png(f) for k, f in result_figures(result).items()}
     text = build_html(result, figures, extra_sections=extra_sections)
     path.parent.mkdir(parents=True, exist_ok=True)
     atomic_write_text(path, text)

@@ -1,4 +1,4 @@
-"""Atlases as collections of ROIs over the 20,484 template sources (contract; see DEVELOPERS.md)."""
+"""Atlases as collections of ROIs over the cortical template sources (contract; see DEVELOPERS.md)."""
 
 from __future__ import annotations
 
@@ -17,7 +17,8 @@ class ROI:
         e.g. ``"BA17"``, ``"default-mode"``, ``"occipital"``.
     hemisphere : {"left", "right", "both"}
     vertices : ndarray of int
-        Indices into the 20,484-source vector (left hemisphere first), sorted, unique.
+        Source indices (``0..n_src-1`` of the shipped head model; left hemisphere first), sorted,
+        unique.
     centroid_mni : tuple of float
         Mean position of the ROI's sources in MNI305 millimetres.
     small : bool
@@ -40,3 +41,12 @@ class Atlas:
     citation: str
     rois: tuple[ROI, ...]
     sha256: str = ""
+
+    def vertex_sets(self) -> list[np.ndarray]:
+        """The source indices of every ROI, in ``rois`` order."""
+        return [r.vertices for r in self.rois]
+
+    def label(self, roi: ROI) -> str:
+        """Display label, e.g. ``"BA17 L"`` (``"both"`` hemisphere: the name alone)."""
+        h = roi.hemisphere
+        return f"{roi.name} {h[:1].upper()}" if h in ("left", "right") else roi.name

@@ -1,4 +1,4 @@
-"""User-defined ROIs on the 20,484 template sources, read from a TOML or TSV file.
+"""User-defined ROIs on the cortical template sources, read from a TOML or TSV file.
 
 File format
 -----------
@@ -24,7 +24,7 @@ File format
     [[roi]]
     name = "hand-picked"
     kind = "vertices"
-    vertices = [0, 1, 2, 10242]      # indices into the 20,484 sources (left first)
+    vertices = [0, 1, 2, 10242]      # fsaverage5 surface vertices, 0..20483 (left first)
 
     [[roi]]
     name = "my-label"
@@ -51,8 +51,8 @@ empty)::
 
 Area names: ``BA<n>`` (Brodmann), lobe names, network names (``sourcelab atlas list``) and
 ``yeo7:<network>``.  fsaverage vertex ``i`` equals fsaverage5 vertex ``i`` for ``i < 10,242``, so
-fsaverage labels keep those vertices (the others are dropped with a warning).  An ROI without
-sources is an error; an ROI with fewer than :data:`SMALL_MIN_VERTICES` sources is logged as a
+fsaverage labels keep those vertices (the others are dropped with a warning).  Surface vertices
+on the medial wall are not sources and are dropped.  An ROI without sources is an error; an ROI with fewer than :data:`SMALL_MIN_VERTICES` sources is logged as a
 warning and flagged ``small``.
 """
 
@@ -66,9 +66,11 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
-from ._geometry import HEMIS, N_PER_HEMI, N_SRC, mni305_to_mni152, template_surface
+from ..headmodel.geometry import mni305_to_mni152
+from ..headmodel.model import HEMIS, N_PER_HEMI, N_SURFACE
 from .atlas import ROI, Atlas
-from .registry import SMALL_MIN_VERTICES, brodmann_labels, groupings, make_roi, yeo7_labels
+from .registry import (SMALL_MIN_VERTICES, brodmann_labels, groupings, hemisphere_mask, make_roi,
+                       surface_to_sources, yeo7_labels)
 
 logger = logging.getLogger("sourcelab")
 
@@ -76,18 +78,14 @@ _HEMI_OPTIONS = ("left", "right", "both")
 _TSV_COLUMNS = ("name", "kind", "hemisphere", "spec")
 
 
-def _hemi_mask(hemi: str) -> np.ndarray:
-    m = np.zeros(N_SRC, dtype=bool)
-    if hemi == "both":
-        m[:] = True
-    else:
-        h = HEMIS.index(hemi)
-        m[h * N_PER_HEMI:(h + 1) * N_PER_HEMI] = True
-    return m
+def _hemisphere_of_sources(sources: np.ndarray) -> np.ndarray:
+    from ..headmodel import load_head_model
+
+    return load_head_model().hemisphere_of(sources)
 
 
 def _area_vertices(area: str, path: Path) -> np.ndarray:
-    """Source mask of one shipped ROI name (both hemispheres)."""
+    """Surface-vertex mask of one shipped ROI name (both hemispheres)."""
     ba = brodmann_labels()
     g = groupings()
     if area.upper().startswith("BA") and area[2:].isdigit():
@@ -120,7 +118,9 @@ def _sphere(center, radius, space: str, path: Path) -> np.ndarray:
     if space not in ("mni152", "mni305"):
         raise InputError(f"unknown space {space!r}; allowed: mni152, mni305", path=path)
     # measure in the user's space (the affine is not an exact isometry)
-    mid = template_surface().mid
+    from ..headmodel import load_head_model
+
+    mid = load_head_model().surface.mid
     pts = mni305_to_mni152(mid) if space == "mni152" else mid
     return np.linalg.norm(pts - c, axis=1) <= r
 
@@ -144,7 +144,7 @@ def _local_to_mask(v: np.ndarray, hemi: str, file: Path) -> np.ndarray:
         logger.warning("%s: %d vertices are not on fsaverage5 (index >= %d) and were dropped",
                        file, dropped, N_PER_HEMI)
     v = v[(v >= 0) & (v < N_PER_HEMI)]
-    m = np.zeros(N_SRC, dtype=bool)
+    m = np.zeros(N_SURFACE, dtype=bool)
     m[v + HEMIS.index(hemi) * N_PER_HEMI] = True
     return m
 
@@ -197,9 +197,10 @@ def _one_roi(spec: dict, base: Path, path: Path) -> list[tuple[str, str | None, 
             v = np.asarray(spec.get("vertices"), dtype=np.int64).ravel()
         except (TypeError, ValueError):
             raise InputError(f"ROI {name!r}: vertices must be integers", path=path) from None
-        if v.size and (v.min() < 0 or v.max() >= N_SRC):
-            raise InputError(f"ROI {name!r}: vertices must be in 0..{N_SRC - 1}", path=path)
-        m = np.zeros(N_SRC, dtype=bool)
+        if v.size and (v.min() < 0 or v.max() >= N_SURFACE):
+            raise InputError(f"ROI {name!r}: vertices must be fsaverage5 surface vertices "
+                             f"0..{N_SURFACE - 1}", path=path)
+        m = np.zeros(N_SURFACE, dtype=bool)
         m[v] = True
         masks = [(name, m)]
     elif kind in ("label", "annot"):
@@ -296,11 +297,11 @@ def load_custom_rois(path: str | Path) -> Atlas:
     for spec in specs:
         for name, hemi, mask in _one_roi(spec, path.parent, path):
             if hemi is not None:
-                mask = mask & _hemi_mask(hemi)
-            v = np.flatnonzero(mask)
+                mask = mask & hemisphere_mask(hemi)
+            v = surface_to_sources(mask)
             if hemi is None:
-                hemi = ("left" if v.size and v.max() < N_PER_HEMI else
-                        "right" if v.size and v.min() >= N_PER_HEMI else "both")
+                hemis = set(np.unique(_hemisphere_of_sources(v)).tolist())
+                hemi = hemis.pop() if len(hemis) == 1 else "both"
             if v.size == 0:
                 raise InputError(f"ROI {name!r} ({hemi}) contains no template sources", path=path)
             if (name, hemi) in seen:

@@ -5,7 +5,6 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import InputError
-from ._geometry import N_SRC
 from .atlas import Atlas
 
 
@@ -34,9 +33,9 @@ CENTROID_SIGMA_MM = 10.0
 
 
 def _centroid_weights(vertices: np.ndarray) -> np.ndarray:
-    from ._geometry import template_surface
+    from ..headmodel import load_head_model
 
-    pos = template_surface().white[vertices]
+    pos = load_head_model().src_mni[vertices]
     d2 = np.sum((pos - pos.mean(axis=0)) ** 2, axis=1)
     w = np.exp(-0.5 * d2 / CENTROID_SIGMA_MM**2)
     return w / w.sum()
@@ -47,8 +46,8 @@ def roi_reduce(values: np.ndarray, atlas: Atlas | str, *, mode: str = "mean") ->
 
     Parameters
     ----------
-    values : array_like, shape (..., 20484)
-        Per-source values (any unit; e.g. band power), left hemisphere first.
+    values : array_like, shape (..., n_src)
+        Per-source values (any unit; e.g. band power) on the shipped head model's sources.
     atlas : Atlas or str
         From :func:`load_atlas` or :func:`load_custom_rois`, or a shipped atlas name.
     mode : {"mean", "median", "max", "centroid_weighted"}
@@ -64,7 +63,7 @@ def roi_reduce(values: np.ndarray, atlas: Atlas | str, *, mode: str = "mean") ->
     Raises
     ------
     InputError
-        Unknown ``mode`` or atlas name, a last axis that is not 20,484 long, or an empty ROI.
+        Unknown ``mode`` or atlas name, a last axis that is not ``n_src`` long, or an empty ROI.
     """
     if isinstance(atlas, str):
         from .registry import load_atlas
@@ -72,9 +71,12 @@ def roi_reduce(values: np.ndarray, atlas: Atlas | str, *, mode: str = "mean") ->
         atlas = load_atlas(atlas)
     if mode not in ROI_MODES:
         raise InputError(f"unknown ROI mode {mode!r}; allowed: {', '.join(ROI_MODES)}")
+    from ..headmodel import load_head_model
+
+    n_src = load_head_model().n_src
     values = np.asarray(values)
-    if values.ndim == 0 or values.shape[-1] != N_SRC:
-        raise InputError(f"values must have {N_SRC} sources on the last axis, got shape "
+    if values.ndim == 0 or values.shape[-1] != n_src:
+        raise InputError(f"values must have {n_src} sources on the last axis, got shape "
                          f"{values.shape}")
     func = ROI_MODES[mode]
     out = np.empty(values.shape[:-1] + (len(atlas.rois),),

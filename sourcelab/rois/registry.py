@@ -1,8 +1,9 @@
 """Shipped atlases on the 20,484 template sources: load, list and summarise.
 
-Run time only reads the files shipped in :mod:`sourcelab.atlases` (``*.npz`` labels,
-``groupings.json``) and checks them against ``MANIFEST.json``; ``atlases/README.md`` gives their
-provenance.
+Run time only reads the files shipped in :mod:`sourcelab.data` (``*.npz`` labels per fsaverage5
+surface vertex, ``groupings.json``), checked against its ``MANIFEST.json``; ``atlases/README.md``
+gives their provenance and the scripts that rebuild them.  ROIs hold *source* indices: surface
+vertices on the medial wall are not sources and belong to no ROI.
 
 References
 ----------
@@ -15,15 +16,16 @@ functional connectivity. J Neurophysiol 106:1125-1165.
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 from functools import cache, lru_cache
-from importlib import resources
 
 import numpy as np
-import pandas as pd
 
+from ..data import shipped_bytes
 from ..errors import InputError
-from ._geometry import HEMIS, N_PER_HEMI, N_SRC, template_surface
+from ..headmodel import load_head_model
+from ..headmodel.model import HEMIS, N_PER_HEMI, N_SURFACE
 from .atlas import ROI, Atlas
 
 #: ROIs with fewer sources are flagged ``small``: 50 fsaverage5 vertices are ~3.3 cm^2 of white
@@ -32,40 +34,8 @@ from .atlas import ROI, Atlas
 #: source in a 19-channel sLORETA map (HEADMODEL-NOTES); their values mostly echo their neighbours.
 SMALL_MIN_VERTICES = 50
 
-_DATA = "sourcelab.atlases"
-
-
-def _read_bytes(name: str) -> bytes:
-    return resources.files(_DATA).joinpath(name).read_bytes()
-
-
-@lru_cache(maxsize=1)
-def _manifest() -> dict[str, str]:
-    return json.loads(_read_bytes("MANIFEST.json"))["files"]
-
-
-@cache
-def shipped_file(name: str) -> tuple[bytes, str]:
-    """Bytes and sha256 of a shipped atlas file, verified against ``MANIFEST.json``.
-
-    Raises
-    ------
-    RuntimeError
-        When the file's hash differs from the manifest (a damaged installation).
-    """
-    data = _read_bytes(name)
-    digest = hashlib.sha256(data).hexdigest()
-    expected = _manifest().get(name)
-    if digest != expected:
-        raise RuntimeError(f"shipped atlas file {name} has sha256 {digest[:12]}, manifest says "
-                           f"{str(expected)[:12]}: reinstall sourcelab or rebuild the atlases")
-    return data, digest
-
-
 def _npz(name: str) -> dict[str, np.ndarray]:
-    import io
-
-    data, _ = shipped_file(name)
+    data, _ = shipped_bytes(name)
     with np.load(io.BytesIO(data), allow_pickle=False) as z:
         return {k: z[k] for k in z.files}
 
@@ -73,12 +43,12 @@ def _npz(name: str) -> dict[str, np.ndarray]:
 @lru_cache(maxsize=1)
 def groupings() -> dict:
     """Lobe and network definitions (Brodmann-area groupings with citations)."""
-    return json.loads(shipped_file("groupings.json")[0])
+    return json.loads(shipped_bytes("groupings.json")[0])
 
 
 @lru_cache(maxsize=1)
 def brodmann_labels() -> np.ndarray:
-    """Brodmann area number per source, shape (20484,), 0 = unlabelled medial wall."""
+    """Brodmann area number per surface vertex, shape (20484,), 0 = unlabelled."""
     lab = _npz("brodmann_fsaverage5.npz")["labels"].astype(np.int16)
     lab.setflags(write=False)
     return lab
@@ -86,31 +56,33 @@ def brodmann_labels() -> np.ndarray:
 
 @lru_cache(maxsize=1)
 def yeo7_labels() -> tuple[np.ndarray, tuple[str, ...]]:
-    """Yeo 2011 7-network label per source (0 = medial wall, k = ``names[k - 1]``) and the names."""
+    """Yeo 2011 7-network label per surface vertex (0 = medial wall, k = ``names[k - 1]``) and the
+    network names."""
     z = _npz("yeo7_fsaverage5.npz")
     lab = z["labels"].astype(np.int16)
     lab.setflags(write=False)
     return lab, tuple(str(n) for n in z["names"])
 
 
-def make_roi(name: str, hemisphere: str, vertices: np.ndarray) -> ROI:
-    """Build an :class:`ROI` (sorted unique vertices, centroid of the source positions, small flag).
+def make_roi(name: str, hemisphere: str, sources: np.ndarray) -> ROI:
+    """Build an :class:`ROI` (sorted unique sources, centroid of their positions, small flag).
 
     Parameters
     ----------
     name, hemisphere : str
-    vertices : array of int
-        Indices into the 20,484 sources.
+    sources : array of int
+        Source indices (``0..n_src-1`` of the shipped head model).
 
     Returns
     -------
     ROI
-        ``centroid_mni`` is the mean white-surface (source) position in MNI305 mm; NaN when empty.
+        ``centroid_mni`` is the mean white-surface position of the sources, MNI305 mm; NaN when
+        empty.
     """
-    v = np.unique(np.asarray(vertices, dtype=np.int64))
+    v = np.unique(np.asarray(sources, dtype=np.int64))
     v.setflags(write=False)
     if v.size:
-        c = template_surface().white[v].mean(axis=0)
+        c = load_head_model().src_mni[v].mean(axis=0)
         centroid = (float(c[0]), float(c[1]), float(c[2]))
     else:
         centroid = (float("nan"),) * 3
@@ -118,24 +90,53 @@ def make_roi(name: str, hemisphere: str, vertices: np.ndarray) -> ROI:
                small=bool(v.size < SMALL_MIN_VERTICES))
 
 
-def _hemi_slice(hemi: str) -> np.ndarray:
+def surface_to_sources(mask: np.ndarray) -> np.ndarray:
+    """Source indices of the cortical surface vertices selected by ``mask``.
+
+    Parameters
+    ----------
+    mask : ndarray of bool, shape (20484,)
+        Selected fsaverage5 surface vertices (left first); medial-wall vertices are ignored.
+
+    Returns
+    -------
+    ndarray of int
+    """
+    mask = np.asarray(mask, dtype=bool)
+    if mask.shape != (N_SURFACE,):
+        raise InputError(f"surface mask: need shape ({N_SURFACE},), got {mask.shape}")
+    return np.flatnonzero(mask[load_head_model().vertno])
+
+
+def hemisphere_mask(hemi: str) -> np.ndarray:
+    """Surface vertices of one hemisphere (``"both"``: all), shape (20484,) bool."""
     if hemi == "both":
-        return np.ones(N_SRC, dtype=bool)
-    m = np.zeros(N_SRC, dtype=bool)
+        return np.ones(N_SURFACE, dtype=bool)
+    m = np.zeros(N_SURFACE, dtype=bool)
     h = HEMIS.index(hemi)
     m[h * N_PER_HEMI:(h + 1) * N_PER_HEMI] = True
     return m
 
 
 def _sha(*names: str) -> str:
-    return hashlib.sha256("".join(shipped_file(n)[1] for n in names).encode()).hexdigest()
+    return hashlib.sha256("".join(shipped_bytes(n)[1] for n in names).encode()).hexdigest()
+
+
+def _rois(specs) -> tuple[ROI, ...]:
+    """ROIs from ``(name, hemisphere, surface mask)``; ROIs without a cortical source are left out
+    (areas lying wholly on the medial wall)."""
+    out = []
+    for name, hemi, mask in specs:
+        src = surface_to_sources(mask & hemisphere_mask(hemi))
+        if src.size:
+            out.append(make_roi(name, hemi, src))
+    return tuple(out)
 
 
 def _brodmann() -> Atlas:
     lab = brodmann_labels()
     areas = np.unique(lab[lab > 0])
-    rois = tuple(make_roi(f"BA{a}", hemi, np.flatnonzero((lab == a) & _hemi_slice(hemi)))
-                 for hemi in HEMIS for a in areas)
+    rois = _rois((f"BA{a}", hemi, lab == a) for hemi in HEMIS for a in areas)
     return Atlas(
         name="brodmann",
         description="Brodmann-style areas of the Talairach atlas (MNI152 version) projected to "
@@ -148,7 +149,7 @@ def _brodmann() -> Atlas:
 def _lobes() -> Atlas:
     lab = brodmann_labels()
     spec = groupings()["lobes"]
-    rois = tuple(make_roi(lobe, hemi, np.flatnonzero(np.isin(lab, areas) & _hemi_slice(hemi)))
+    rois = _rois((lobe, hemi, np.isin(lab, areas))
                  for hemi in HEMIS for lobe, areas in spec["groups"].items())
     return Atlas(name="lobes", description=spec["description"], citation=spec["citation"],
                  rois=rois, sha256=_sha("brodmann_fsaverage5.npz", "groupings.json"))
@@ -157,7 +158,7 @@ def _lobes() -> Atlas:
 def _networks() -> Atlas:
     lab = brodmann_labels()
     spec = groupings()["networks"]
-    rois = tuple(make_roi(net, hemi, np.flatnonzero(np.isin(lab, d["areas"]) & _hemi_slice(hemi)))
+    rois = _rois((net, hemi, np.isin(lab, d["areas"]))
                  for hemi in (*HEMIS, "both") for net, d in spec["groups"].items())
     cites = "; ".join(f"{n}: {d['citation']}" for n, d in spec["groups"].items())
     return Atlas(name="networks", description=spec["description"], citation=cites, rois=rois,
@@ -166,8 +167,7 @@ def _networks() -> Atlas:
 
 def _yeo7() -> Atlas:
     lab, names = yeo7_labels()
-    rois = tuple(make_roi(n, hemi, np.flatnonzero((lab == k + 1) & _hemi_slice(hemi)))
-                 for hemi in HEMIS for k, n in enumerate(names))
+    rois = _rois((n, hemi, lab == k + 1) for hemi in HEMIS for k, n in enumerate(names))
     return Atlas(
         name="yeo7",
         description="Yeo 2011 7-network resting-state parcellation (fsaverage annotation, first "
@@ -198,7 +198,7 @@ def load_atlas(name: str) -> Atlas:
     Returns
     -------
     Atlas
-        ROIs over the 20,484 template sources (left hemisphere first).
+        ROIs over the cortical template sources (source indices of the shipped head model).
     """
     if name not in _BUILDERS:
         raise InputError(f"unknown atlas {name!r}; allowed: {', '.join(_BUILDERS)}")
@@ -209,7 +209,7 @@ def load_atlas(name: str) -> Atlas:
     return atlas
 
 
-def atlas_summary(name_or_atlas: str | Atlas) -> pd.DataFrame:
+def atlas_summary(name_or_atlas: str | Atlas):
     """One row per ROI: ``roi, hemisphere, n_vertices, x_mni305, y_mni305, z_mni305, small``.
 
     Parameters
@@ -222,6 +222,8 @@ def atlas_summary(name_or_atlas: str | Atlas) -> pd.DataFrame:
     DataFrame
         Centroids are mean source positions in MNI305 millimetres.
     """
+    import pandas as pd
+
     atlas = load_atlas(name_or_atlas) if isinstance(name_or_atlas, str) else name_or_atlas
     rows = [{"roi": r.name, "hemisphere": r.hemisphere, "n_vertices": int(r.vertices.size),
              "x_mni305": round(r.centroid_mni[0], 1), "y_mni305": round(r.centroid_mni[1], 1),

@@ -15,7 +15,7 @@ from .candidates import (CANDIDATE_COLUMNS, candidates_for_table, candidates_fro
                          candidates_html,
                          rank_candidates, read_result_folder, write_candidates)
 from .definition import (SCHEMA, TargetDefinition, export_target, make_target, norm_at_age,
-                         read_target, roi_weights, target_from_dict, write_target)
+                         read_target, target_from_dict, write_target)
 from .replay import (OnlineTarget, ReplayResult, expected_ratio, plot_replay, replay_array,
                      replay_recording, welch_band_response)
 
@@ -23,6 +23,6 @@ __all__ = [
     "CANDIDATE_COLUMNS", "SCHEMA", "OnlineTarget", "ReplayResult", "TargetDefinition",
     "candidates_for_table", "candidates_from_folder", "candidates_html", "expected_ratio", "export_target",
     "make_target", "norm_at_age", "plot_replay", "rank_candidates", "read_result_folder",
-    "read_target", "replay_array", "replay_recording", "roi_weights", "target_from_dict",
+    "read_target", "replay_array", "replay_recording", "target_from_dict",
     "welch_band_response", "write_candidates", "write_target",
 ]

@@ -43,6 +43,7 @@ import numpy as np
 import pandas as pd
 
 from ..cautions import CAUTIONS
+from ..constants import Z_THRESHOLD
 from ..errors import InputError
 from ..provenance import Fingerprint, atomic_write_text
 
@@ -51,7 +52,7 @@ log = logging.getLogger("sourcelab")
 #: Centroid distance (mm) within which two ROIs count as neighbours (see module docstring).
 NEIGHBOUR_MM = 35.0
 #: |z| from which an ROI counts as deviating (two-sided p < 0.05; common practice).
-DEVIATION_Z = 1.96
+DEVIATION_Z = Z_THRESHOLD
 #: Atlases whose ROIs are networks (their rows are pooled network power).
 NETWORK_ATLASES = ("networks", "yeo7")
 #: Atlas whose areas are counted as network members.
@@ -112,13 +113,6 @@ def read_result_folder(path: str | Path) -> ResultFolder:
         table[c] = table[c].astype(str)
     return ResultFolder(path=path, roi_table=table, provenance=provenance,
                         fingerprint=Fingerprint.from_dict(provenance["fingerprint"]))
-
-
-def mesh_edges(faces: np.ndarray) -> np.ndarray:
-    """Unique undirected edges of a triangle mesh, shape (n_edges, 2)."""
-    faces = np.asarray(faces, dtype=np.int64)
-    e = np.vstack([faces[:, [0, 1]], faces[:, [1, 2]], faces[:, [2, 0]]])
-    return np.unique(np.sort(e, axis=1), axis=0)
 
 
 def roi_adjacency(vertex_sets, centroids: np.ndarray, *, edges: np.ndarray | None = None,
@@ -201,7 +195,8 @@ def rank_candidates(roi_table: pd.DataFrame, *, atlases: Mapping | None = None,
         Atlas objects by name, for neighbours and network members; atlases missing here get
         NaN neighbour/member counts.
     edges : ndarray, shape (n_edges, 2), optional
-        Template mesh edges (adds shared-edge neighbours to the centroid criterion).
+        Mesh edges between sources (:func:`sourcelab.headmodel.geometry.source_edges`; adds
+        shared-edge neighbours to the centroid criterion).
     include : tuple of str, optional
         Atlases to rank (default: all in the table).
     max_n : int, optional
@@ -311,8 +306,9 @@ def candidates_for_table(roi_table: pd.DataFrame, *, max_n: int | None = None,
 
     For the report: ``candidates_html(candidates_for_table(result.roi_table))``.
     """
+    from ..headmodel import load_head_model
+    from ..headmodel.geometry import source_edges
     from ..rois import load_atlas
-    from ..rois._geometry import template_surface
 
     names = sorted(set(roi_table["atlas"].astype(str)) | {MEMBER_ATLAS})
     atlases = {}
@@ -321,7 +317,7 @@ def candidates_for_table(roi_table: pd.DataFrame, *, max_n: int | None = None,
             atlases[n] = load_atlas(n)
         except InputError:  # a custom ROI set: ranked, but without neighbours
             log.info("atlas %s is not shipped: no neighbour counts for it", n)
-    edges = mesh_edges(template_surface().faces)
+    edges = source_edges(load_head_model())
     return rank_candidates(roi_table, atlases=atlases, edges=edges, include=include,
                            max_n=max_n)
 

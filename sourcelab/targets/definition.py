@@ -42,8 +42,9 @@ import numpy as np
 
 from .. import PIPELINE_VERSION
 from ..cautions import CAUTIONS
-from ..config import SITES_1020
+from ..constants import SITES_1020
 from ..errors import InputError
+from ..inverse import roi_rows
 from ..provenance import Fingerprint, atomic_write_text
 
 log = logging.getLogger("sourcelab")
@@ -100,35 +101,6 @@ def group_delay_s(sos: np.ndarray, sfreq: float, freq: float) -> float:
     return float(-(ph[1] - ph[0]) / (2 * np.pi * 2 * df))
 
 
-def roi_weights(kernel: np.ndarray, vertices: np.ndarray, *, n_comp: int = 1
-                ) -> tuple[np.ndarray, np.ndarray]:
-    """ROI power matrix and kernel rows of one ROI.
-
-    Parameters
-    ----------
-    kernel : ndarray, shape (n_src * n_comp, n_ch)
-        Standardised source kernel (average reference and whitener included).
-    vertices : ndarray of int, shape (n_v,)
-        The ROI's sources.
-    n_comp : int
-        Rows per source (1 fixed, 3 free).
-
-    Returns
-    -------
-    m : ndarray, shape (n_ch, n_ch)
-        ``(1/n_v) Σ_i K_iᵀ K_i``: ROI mean source power of data with covariance ``C`` is
-        ``tr(M C)``.
-    rows : ndarray, shape (n_v * n_comp, n_ch)
-        The kernel rows, source-major.
-    """
-    vertices = np.asarray(vertices, dtype=np.int64)
-    if vertices.size == 0:
-        raise InputError("ROI has no sources")
-    n_ch = kernel.shape[-1]
-    rows = kernel.reshape(-1, n_comp, n_ch)[vertices].reshape(-1, n_ch)
-    return rows.T @ rows / vertices.size, rows
-
-
 @dataclass(frozen=True, eq=False)
 class TargetDefinition:
     """One training target (see ``SCHEMA.md`` for the JSON layout).
@@ -141,7 +113,7 @@ class TargetDefinition:
         The 19 sites in weight order.
     atlas, roi, hemisphere : str
     vertices : ndarray of int, shape (n_v,)
-        Template source indices (fsaverage5, left hemisphere first).
+        fsaverage5 surface vertices (0..20,483, left hemisphere first) of the ROI's sources.
     band : str
         Band trained; ``bands`` holds every analysed band ``(name, lo, hi)`` (Hz).
     measure : {"absolute", "relative"}
@@ -220,7 +192,8 @@ class TargetDefinition:
             "data_unit": "µV",
             "roi": {"atlas": self.atlas, "name": self.roi, "hemisphere": self.hemisphere,
                     "n_sources": int(self.vertices.size), "small": bool(self.small),
-                    "source_space": "fsaverage5 cortical vertices, left hemisphere first",
+                    "source_space": "fsaverage5 surface vertices (0..20483, left hemisphere "
+                                    "first) of the ROI's cortical sources",
                     "vertices": self.vertices.tolist()},
             "band": {"name": self.band, "low_hz": lo, "high_hz": hi},
             "bands": [list(b) for b in self.bands],
@@ -390,8 +363,17 @@ def read_target(path: str | Path, *, current: Fingerprint | None = None,
     return target_from_dict(d, path=path, current=current, check_fingerprint=check_fingerprint)
 
 
+class _KernelView:
+    """A kernel with its rows-per-source, as :func:`sourcelab.inverse.roi_rows` reads it."""
+
+    def __init__(self, kernel, n_comp):
+        self.kernel = np.asarray(kernel)
+        self.n_comp = int(n_comp)
+        self.n_src = self.kernel.shape[0] // self.n_comp
+
+
 def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisphere: str,
-                vertices: np.ndarray, band: str, bands, measure: str, fingerprint: Fingerprint,
+                sources: np.ndarray, vertices: np.ndarray, band: str, bands, measure: str, fingerprint: Fingerprint,
                 sfreq: float, norm: dict | None = None, offline: dict | None = None,
                 z: float | None = None, reject_uv: float = 150.0, small: bool = False,
                 window_s: float = WINDOW_S, step_s: float = STEP_S,
@@ -401,6 +383,10 @@ def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisp
     Parameters
     ----------
     kernel : ndarray, shape (n_src * n_comp, 19)
+    sources : ndarray of int
+        The ROI's source indices (rows of ``kernel``).
+    vertices : ndarray of int
+        The same sources as fsaverage5 surface vertices (stored in the file: portable).
     bands : sequence of (name, lo, hi)
     z : float, optional
         The offline z; its sign sets ``direction`` (train towards the norm).
@@ -413,7 +399,8 @@ def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisp
     names = [b[0] for b in bands]
     if band not in names:
         raise InputError(f"band: {band!r} is not one of {names}")
-    m, rows = roi_weights(kernel, vertices, n_comp=n_comp)
+    rows = roi_rows(_KernelView(kernel, n_comp), sources)
+    m = rows.T @ rows / len(sources)
     need = names if measure == "relative" else [band]
     if not 1 <= int(filter_order) <= 12:
         raise InputError(f"filter_order: need 1..12, got {filter_order}")
@@ -434,47 +421,32 @@ def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisp
 
 
 def norm_at_age(norms, *, atlas: str, roi: str, hemisphere: str, band: str, measure: str,
-                age: float, allow_extrapolation: bool = False) -> dict:
+                age: float, fingerprint: Fingerprint, condition: str | None = None,
+                allow_extrapolation: bool = False) -> dict:
     """The norm of one ROI quantity at ``age``: mean and SD on the transformed scale.
 
-    Row selection follows :func:`sourcelab.norms.apply_norms`: the age range containing ``age``
-    (the upper one on a shared edge); outside every range the nearest range's model at its edge,
-    only with ``allow_extrapolation``.
+    Row selection is :func:`sourcelab.norms.match_norms`'s (fingerprint, condition, age range).
 
     Returns
     -------
     dict
-        ``mean, sd, transform, age, n, age_min, age_max, model, extrapolated, norms_sha256,
-        condition``.
+        ``mean, sd, transform, age, n, extrapolated, norms_sha256, condition``.
     """
-    from ..norms.io import COEF_COLUMNS
-    from ..norms.models import evaluate
+    import pandas as pd
+
+    from ..norms import match_norms
 
     where = norms.path if norms.path is not None else "norms"
-    t = norms.table
-    sel = t[(t["kind"] == "roi") & (t["atlas"] == atlas) & (t["name"] == roi)
-            & (t["hemisphere"] == hemisphere) & (t["band"] == band) & (t["measure"] == measure)]
-    if sel.empty:
+    one = pd.DataFrame({"atlas": [atlas], "roi": [roi], "hemisphere": [hemisphere],
+                        "band": [band], "measure": [measure]})
+    rows = match_norms(one, norms, age=age, fingerprint=fingerprint, condition=condition,
+                       allow_extrapolation=allow_extrapolation, allow_condition_mismatch=True)
+    if not rows.has[0]:
         raise InputError(f"norms have no row for {atlas} {roi} {hemisphere} {band} {measure}",
                          path=where)
-    inside = sel[(sel["age_min"] <= age) & (age <= sel["age_max"])]
-    extrap = inside.empty
-    if extrap:
-        if not allow_extrapolation:
-            raise InputError(f"age {age:g} y is outside the norms' age ranges for this ROI",
-                             path=where)
-        gap = np.minimum(np.abs(age - sel["age_min"]), np.abs(age - sel["age_max"]))
-        row = sel.loc[gap.idxmin()]
-        at = float(min(max(age, row["age_min"]), row["age_max"]))
-    else:
-        row = inside.loc[inside["age_min"].idxmax()]
-        at = float(age)
-    mean = float(evaluate(row[list(COEF_COLUMNS)].to_numpy(dtype=float)[None],
-                          np.array([int(row["degree"])]), np.array([at]))[0])
-    return {"mean": mean, "sd": float(row["sd"]), "transform": str(row["transform"]),
-            "age": float(age), "n": int(row["n"]), "age_min": float(row["age_min"]),
-            "age_max": float(row["age_max"]), "model": str(row["model"]),
-            "extrapolated": bool(extrap), "norms_sha256": norms.sha256,
+    return {"mean": float(rows.mean[0]), "sd": float(rows.sd[0]),
+            "transform": str(rows.transform[0]), "age": float(age), "n": int(rows.n[0]),
+            "extrapolated": bool(rows.extrapolated[0]), "norms_sha256": norms.sha256,
             "condition": norms.condition}
 
 
@@ -510,8 +482,9 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
         Unknown ROI/band/measure, ambiguous hemisphere, head model or pipeline different from
         the analysis', norms missing or changed.
     """
+    from ..headmodel import load_head_model
+    from ..inverse import inverse_operator
     from ..norms import read_norms
-    from ..pipeline import inverse_operator
     from ..rois import load_atlas
     from .candidates import read_result_folder
 
@@ -564,12 +537,14 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
             raise InputError("the analysis has no participant age; the norm cannot be set",
                              path=res.path)
         norm = norm_at_age(nm, atlas=atlas, roi=roi, hemisphere=hemisphere, band=band,
-                           measure=measure, age=float(age),
+                           measure=measure, age=float(age), fingerprint=fp,
+                           condition=rec.get("condition"),
                            allow_extrapolation=allow_extrapolation)
     offline = {"value": float(row["value"]), "z": z, "result_dir": str(res.path),
                "recording_sha256": rec.get("sha256")}
     return make_target(kernel=op.kernel, n_comp=op.n_comp, atlas=atlas, roi=roi,
-                       hemisphere=hemisphere, vertices=r.vertices, band=band, bands=fp.bands,
+                       hemisphere=hemisphere, sources=r.vertices,
+                       vertices=load_head_model().vertno[r.vertices], band=band, bands=fp.bands,
                        measure=measure, fingerprint=fp, sfreq=float(rec.get("sfreq") or 256.0),
                        norm=norm, offline=offline, z=z,
                        reject_uv=float(params.get("reject_uv", 150.0)), small=bool(r.small),

@@ -42,22 +42,19 @@ WARMUP_S = 2.0
 FLAT_UV = 0.5
 
 
-def _transform(name: str):
-    from ..norms.transforms import get_transform
-
-    return get_transform(name).forward
-
-
 def _zscore(power: np.ndarray, norm: dict | None) -> np.ndarray:
+    """z of power values against a target's norm (NaN without a norm or outside the domain)."""
+    from ..norms import zscore
+
+    power = np.asarray(power, dtype=float)
     if norm is None:
-        return np.full(np.shape(power), np.nan)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        tv = np.full(np.shape(power), np.nan)
-        ok = np.isfinite(power) & (power > 0)
-        if norm["transform"] == "logit":
-            ok &= power < 1
-        tv[ok] = _transform(norm["transform"])(power[ok])
-    return (tv - float(norm["mean"])) / float(norm["sd"])
+        return np.full(power.shape, np.nan)
+    ok = np.isfinite(power) & (power > 0)
+    if norm["transform"] == "logit":
+        ok &= power < 1
+    out = np.full(power.shape, np.nan)
+    out[ok] = zscore(power[ok], float(norm["mean"]), float(norm["sd"]), norm["transform"])
+    return out
 
 
 class OnlineTarget:

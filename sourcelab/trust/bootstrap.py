@@ -41,12 +41,13 @@ from __future__ import annotations
 
 import logging
 import weakref
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
 from scipy import sparse
 
+from ..constants import Z_THRESHOLD
 from ..errors import InputError
 from ..spectra import average_reference
 
@@ -54,8 +55,6 @@ log = logging.getLogger("sourcelab")
 
 #: Columns added by :func:`add_intervals` and :func:`add_sensor_intervals`, in order.
 INTERVAL_COLUMNS = ("value_lo", "value_hi", "z_lo", "z_hi", "robust")
-#: Two-sided 5 % point of the standard normal: the deviation threshold (common practice).
-Z_THRESHOLD = 1.96
 #: Below this many epochs the bootstrap distribution is too coarse to trust (logged).
 MIN_EPOCHS_WARN = 20
 #: Replicates x bands x sources held in memory at once in the relative-power path (float32).
@@ -333,13 +332,13 @@ def z_interval(lo, hi, transform: str, mean, sd) -> tuple[np.ndarray, np.ndarray
     z_lo, z_hi : ndarray
         Ordered (``z_lo <= z_hi``) because z increases with the value.
     """
-    from ..norms import get_transform
+    from ..norms import zscore
 
-    t = get_transform(transform)
     sd = np.asarray(sd, dtype=float)
     if np.any(~(sd > 0) & np.isfinite(sd)):
         raise InputError("sd: norm standard deviations must be > 0")
-    return (t.forward(lo) - mean) / sd, (t.forward(hi) - mean) / sd
+    lo, hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
+    return zscore(lo, mean, sd, transform), zscore(hi, mean, sd, transform)
 
 
 def robust_flags(z, z_lo, z_hi, *, threshold: float = Z_THRESHOLD) -> pd.array:
@@ -368,36 +367,6 @@ def robust_flags(z, z_lo, z_hi, *, threshold: float = Z_THRESHOLD) -> pd.array:
 # tables
 
 
-def norms_z_function(norms, *, kind: str = "roi", **apply_options) -> Callable[[pd.DataFrame],
-                                                                               np.ndarray]:
-    """A ``norms_fn`` for :func:`add_intervals`: z of a table's ``value`` column via the norms.
-
-    Parameters
-    ----------
-    norms : sourcelab.norms.Norms
-    kind : {"roi", "sensor"}
-    **apply_options
-        Passed to :func:`sourcelab.norms.apply_norms`: ``age``, ``fingerprint``, ``condition``,
-        ``allow_extrapolation``, ``allow_condition_mismatch`` (the analysis's own settings).
-
-    Returns
-    -------
-    callable
-        ``f(table) -> z`` (ndarray, shape (len(table),)).
-    """
-    from ..norms import apply_norms
-
-    def z_of(table: pd.DataFrame) -> np.ndarray:
-        quiet = log.level
-        log.setLevel(max(quiet, logging.ERROR))  # warnings were already issued for the values
-        try:
-            return apply_norms(table, norms, kind=kind, **apply_options)["z"].to_numpy(float)
-        finally:
-            log.setLevel(quiet)
-
-    return z_of
-
-
 def _band_order(table: pd.DataFrame, band_names, n_bands: int) -> list[str]:
     names = list(dict.fromkeys(table["band"].astype(str))) if band_names is None \
         else [str(b) for b in band_names]
@@ -407,21 +376,17 @@ def _band_order(table: pd.DataFrame, band_names, n_bands: int) -> list[str]:
     return names
 
 
-def _finish(table: pd.DataFrame, lo: np.ndarray, hi: np.ndarray, norms_fn, z_threshold: float,
+def _finish(table: pd.DataFrame, lo: np.ndarray, hi: np.ndarray, norm_rows, z_threshold: float,
             meta: dict) -> pd.DataFrame:
     out = table.copy()
     out["value_lo"] = lo
     out["value_hi"] = hi
     z_lo = np.full(len(out), np.nan)
     z_hi = np.full(len(out), np.nan)
-    if norms_fn is not None:
-        for col, vals in (("lo", lo), ("hi", hi)):
-            t = table.copy()
-            t["value"] = vals
-            zz = np.asarray(norms_fn(t), dtype=float)
-            if zz.shape != (len(out),):
-                raise InputError(f"norms_fn: returned shape {zz.shape}, need ({len(out)},)")
-            (z_lo if col == "lo" else z_hi)[:] = zz
+    if norm_rows is not None:
+        if len(norm_rows.mean) != len(out):
+            raise InputError(f"norm_rows: {len(norm_rows.mean)} rows for a table of {len(out)}")
+        z_lo, z_hi = norm_rows.z(lo), norm_rows.z(hi)
     out["z_lo"] = np.fmin(z_lo, z_hi)
     out["z_hi"] = np.fmax(z_lo, z_hi)
     z = pd.to_numeric(out["z"], errors="coerce").to_numpy(float) if "z" in out else z_lo * np.nan
@@ -441,7 +406,7 @@ def _check_ci(ci: float) -> None:
 
 
 def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *,
-                  n_boot: int = 1000, seed: int = 0, ci: float = 0.95, norms_fn=None,
+                  n_boot: int = 1000, seed: int = 0, ci: float = 0.95, norm_rows=None,
                   band_names: Sequence[str] | None = None,
                   z_threshold: float = Z_THRESHOLD) -> pd.DataFrame:
     """Add bootstrap confidence intervals of the value and of z to an ROI table.
@@ -464,10 +429,9 @@ def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *
         tables.
     ci : float
         Interval coverage (default 0.95).
-    norms_fn : callable, optional
-        ``f(table) -> z``, shape (len(table),): the z of a copy of the table whose ``value``
-        column holds other values; see :func:`norms_z_function`.  Without it ``z_lo``/``z_hi``
-        are NaN and ``robust`` is NA.
+    norm_rows : NormRows, optional
+        The table's matched norms (:func:`sourcelab.norms.match_norms`); gives ``z_lo`` and
+        ``z_hi``.  Without it they are NaN and ``robust`` is NA.
     band_names : sequence of str, optional
         Band names in ``epoch_csd`` order (default: order of first appearance in the table,
         which is the pipeline's order).
@@ -530,12 +494,13 @@ def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *
         sel = meas == m
         v_lo[sel] = a[bi[sel], ci_[sel]]
         v_hi[sel] = b[bi[sel], ci_[sel]]
-    return _finish(roi_table, v_lo, v_hi, norms_fn, z_threshold, _meta(w, seed, ci, c.shape[0]))
+    return _finish(roi_table, v_lo, v_hi, norm_rows, z_threshold,
+                   _meta(w, seed, ci, c.shape[0]))
 
 
 def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
                          ch_names: Sequence[str] | None = None, n_boot: int = 1000,
-                         seed: int = 0, ci: float = 0.95, norms_fn=None,
+                         seed: int = 0, ci: float = 0.95, norm_rows=None,
                          band_names: Sequence[str] | None = None,
                          z_threshold: float = Z_THRESHOLD) -> pd.DataFrame:
     """Add bootstrap confidence intervals to a sensor table (see :func:`add_intervals`).
@@ -547,14 +512,14 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch)
     ch_names : sequence of str, optional
         Channel order of ``epoch_csd`` (default :data:`sourcelab.config.SITES_1020`).
-    n_boot, seed, ci, norms_fn, band_names, z_threshold
+    n_boot, seed, ci, norm_rows, band_names, z_threshold
         As in :func:`add_intervals`; use the same seed to resample the same epochs.
 
     Returns
     -------
     DataFrame
     """
-    from ..config import SITES_1020
+    from ..constants import SITES_1020
 
     _check_ci(ci)
     c = np.asarray(epoch_csd)
@@ -582,56 +547,5 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
         sel = meas == m
         v_lo[sel] = a[bi[sel], ci_[sel]]
         v_hi[sel] = b[bi[sel], ci_[sel]]
-    return _finish(sensor_table, v_lo, v_hi, norms_fn, z_threshold,
+    return _finish(sensor_table, v_lo, v_hi, norm_rows, z_threshold,
                    _meta(w, seed, ci, c.shape[0]))
-
-
-def add_result_intervals(result, *, custom_rois=None, norms=None, norms_options: dict | None = None,
-                         n_boot: int = 1000, seed: int = 0, ci: float = 0.95):
-    """An :class:`~sourcelab.result.AnalysisResult` with intervals in both tables.
-
-    Parameters
-    ----------
-    result : AnalysisResult
-        Needs ``epoch_csd``.
-    custom_rois : Atlas, optional
-        The custom ROIs of the analysis, if its table has any (shipped atlases are loaded by name).
-    norms : Norms, optional
-        The norms the tables were z-scored with; gives ``z_lo``/``z_hi``.
-    norms_options : dict, optional
-        The analysis's :func:`sourcelab.norms.apply_norms` options (``age``, ``fingerprint``,
-        ``condition``, ``allow_extrapolation``, ``allow_condition_mismatch``); ``age`` defaults to
-        ``result.recording["age"]``, ``fingerprint`` to ``result.fingerprint``, ``condition`` to
-        ``result.recording["condition"]``.
-    n_boot, seed, ci
-        As in :func:`add_intervals` (one seed: ROI and sensor intervals use the same replicates).
-
-    Returns
-    -------
-    AnalysisResult
-        A copy with both tables extended by :data:`INTERVAL_COLUMNS`.
-    """
-    import dataclasses
-
-    from ..pipeline import inverse_operator
-
-    if result.epoch_csd is None:
-        raise InputError("result: no per-epoch cross-spectra (epoch_csd) to resample")
-    cfg = result.config
-    op = inverse_operator(cfg.method, cfg.orientation, cfg.lambda2)
-    names = list(dict.fromkeys(result.roi_table["atlas"].astype(str)))
-    custom = {custom_rois.name: custom_rois} if custom_rois is not None else {}
-    atlases = [custom.get(n, n) for n in names]
-    roi_fn = sensor_fn = None
-    if norms is not None:
-        opts = {"age": result.recording.get("age"), "fingerprint": result.fingerprint,
-                "condition": result.recording.get("condition")}
-        opts.update(norms_options or {})
-        roi_fn = norms_z_function(norms, kind="roi", **opts)
-        sensor_fn = norms_z_function(norms, kind="sensor", **opts)
-    common = dict(n_boot=n_boot, seed=seed, ci=ci, band_names=cfg.bands.names)
-    roi = add_intervals(result.roi_table, result.epoch_csd, op, atlases, norms_fn=roi_fn,
-                        **common)
-    sensor = add_sensor_intervals(result.sensor_table, result.epoch_csd, ch_names=result.ch_names,
-                                  norms_fn=sensor_fn, **common)
-    return dataclasses.replace(result, roi_table=roi, sensor_table=sensor)

@@ -9,7 +9,7 @@ expected ROI-mean power of ROI ``a`` due to the sources of a set ``b`` is
 
     E[a, b] = (1/|a|) Σ_{i∈a} Σ_{j∈b} ||K_i g_j||²  =  tr(M_a S_b),
 
-with ``M_a = (1/|a|) Σ_{i∈a} K_iᵀ K_i`` (:func:`sourcelab.pipeline.roi_operators`) and
+with ``M_a = (1/|a|) Σ_{i∈a} K_iᵀ K_i`` (:func:`sourcelab.inverse.roi_power_matrices`) and
 ``S_b = Σ_{j∈b} g_j g_jᵀ`` (19 x 19 each), so the (n_src x n_src) resolution matrix is never
 formed.  The leakage matrix is the share
 
@@ -36,13 +36,17 @@ localisation error of noise-free point sources.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from ..constants import Z_THRESHOLD
 from ..errors import InputError
+from ..headmodel.model import fixed_gain
+from ..inverse import inverse_operator, roi_power_matrices
 
 #: Columns of :meth:`Leakage.to_frame` (the TSV export).
 LEAKAGE_COLUMNS = ("atlas", "target_roi", "target_hemisphere", "source_roi", "source_hemisphere",
@@ -190,7 +194,7 @@ def activity_gain(op, gain: np.ndarray, *, normals: np.ndarray | None = None) ->
             if normals is None:
                 raise InputError("normals: needed to reduce a free-orientation gain to the "
                                  "fixed-orientation operator (pass HeadModel.src_nn)")
-            return np.einsum("csk,sk->cs", gain.reshape(n_ch, op.n_src, 3), normals)
+            return fixed_gain(gain, normals)
     elif n_cols == 3 * op.n_src:
         return gain
     raise InputError(f"gain: {n_cols} columns do not fit a {op.orientation}-orientation "
@@ -215,19 +219,6 @@ def roi_gain_outer(g: np.ndarray, roi_vertices, n_comp: int) -> np.ndarray:
     for r, v in enumerate(roi_vertices):
         gr = g3[:, v].reshape(g.shape[0], -1)
         out[r] = gr @ gr.T
-    return out
-
-
-def roi_kernel_outer(op, roi_vertices) -> np.ndarray:
-    """``M_a = (1/|a|) Σ_{i∈a} K_iᵀ K_i`` per ROI, shape (n_rois, n_ch, n_ch).
-
-    The same matrices as :func:`sourcelab.pipeline.roi_operators`.
-    """
-    k = np.asarray(op.kernel, dtype=float).reshape(op.n_src, op.n_comp, -1)
-    out = np.empty((len(roi_vertices), k.shape[-1], k.shape[-1]))
-    for r, v in enumerate(roi_vertices):
-        kr = k[v].reshape(-1, k.shape[-1])
-        out[r] = kr.T @ kr / len(v)
     return out
 
 
@@ -262,7 +253,7 @@ def leakage_matrix(op, gain: np.ndarray, atlas, *, normals: np.ndarray | None = 
     verts = [np.asarray(r.vertices, dtype=np.int64) for r in at.rois]
     if not verts or any(v.size == 0 for v in verts):
         raise InputError(f"atlas {at.name!r}: every ROI needs at least one source")
-    m = roi_kernel_outer(op, verts)                       # (n_rois, n_ch, n_ch)
+    m = roi_power_matrices(op, verts)                     # (n_rois, n_ch, n_ch)
     s = roi_gain_outer(g, verts, op.n_comp)               # (n_rois, n_ch, n_ch)
     expected = np.einsum("acd,bdc->ab", m, s)
     labelled = np.zeros(op.n_src, dtype=bool)
@@ -307,11 +298,24 @@ def point_spread_power(op, g: np.ndarray, sources) -> np.ndarray:
     return out
 
 
+@functools.lru_cache(maxsize=8)
 def leakage_for(atlas: str = "brodmann", *, method: str = "sLORETA", orientation: str = "fixed",
                 lambda2: float = 1 / 9) -> Leakage:
-    """Leakage matrix of the shipped head model and the cached pipeline operator."""
+    """Leakage matrix of a shipped atlas for the shipped head model and the cached operator.
+
+    Parameters
+    ----------
+    atlas : str
+        Shipped atlas name.
+    method, orientation, lambda2
+        The analysis's inverse settings.
+
+    Returns
+    -------
+    Leakage
+        Cached per arguments (treat as read-only).
+    """
     from ..headmodel import load_head_model
-    from ..pipeline import inverse_operator
 
     model = load_head_model()
     op = inverse_operator(method, orientation, float(lambda2))
@@ -371,7 +375,7 @@ def plot_leakage(leakage: Leakage, *, axes=None, figure=None, output_file=None,
 
 
 def leakage_hints(roi_table: pd.DataFrame, leakage: Leakage, *, top: int = 3,
-                  z_threshold: float = 1.96) -> pd.DataFrame:
+                  z_threshold: float = Z_THRESHOLD) -> pd.DataFrame:
     """For each deviating ROI value, its strongest leakers and whether they deviate alike.
 
     A deviating ROI whose strongest leakers deviate in the same direction may be showing a

@@ -12,8 +12,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..result import UNITS
-from .transforms import get_transform, transform_for_measure
+from ..constants import UNITS
+from ..norms.transforms import get_transform, transform_for_measure
 
 _ROIS = ("BA17", "BA19", "BA9", "BA40")
 _HEMIS = ("left", "right")

@@ -21,8 +21,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import InputError
-from .headmodel.model import HeadModel
+from ..errors import InputError
+from ..headmodel.model import HeadModel
+from ..spectra import average_reference_projector
 
 
 @dataclass(frozen=True)
@@ -110,7 +111,7 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
     evals, evecs = np.linalg.eigh(cov)
     l_mat = evecs * np.sqrt(np.clip(evals, 0, None))
     background = l_mat @ pink_noise(n_ch, n_t, sfreq, rng)
-    p = np.eye(n_ch) - 1.0 / n_ch
+    p = average_reference_projector(n_ch)
     scale = background_uv * 1e-6 / np.median((p @ background).std(axis=1))
     data = scale * background
     for g in generators:
@@ -129,7 +130,7 @@ def simulate_raw(model: HeadModel, *, duration_s: float = 300.0, sfreq: float = 
     """Like :func:`simulate_sensor_data`, wrapped as an ``mne.io.RawArray`` with the 19 sites."""
     import mne
 
-    from .headmodel import make_info
+    from ..headmodel import make_info
 
     data = simulate_sensor_data(model, duration_s=duration_s, sfreq=sfreq,
                                 generators=generators, rng=rng, **kwargs)

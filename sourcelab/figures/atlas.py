@@ -6,24 +6,25 @@ from pathlib import Path
 
 import numpy as np
 
-from ._geometry import HEMIS, N_PER_HEMI, template_surface
-from .atlas import Atlas
-from .registry import load_atlas
+from ..headmodel import load_head_model
+from ..headmodel.model import HEMIS, N_PER_HEMI
+from ..rois import Atlas, load_atlas
 
 
 def atlas_label_map(atlas: Atlas) -> np.ndarray:
-    """Per-source ROI number (1-based, 0 = none), shape (20484,).
+    """ROI number (1-based, 0 = none) per fsaverage5 surface vertex, shape (20484,).
 
     Bilateral (``"both"``) ROIs are painted only when the atlas has no per-hemisphere ROI of the
     same name; where ROIs overlap, the later ROI in ``atlas.rois`` wins (e.g. networks).
     """
     per_hemi = {r.name for r in atlas.rois if r.hemisphere != "both"}
     names = sorted({r.name for r in atlas.rois}, key=[r.name for r in atlas.rois].index)
+    vertno = load_head_model().vertno
     out = np.zeros(2 * N_PER_HEMI, dtype=np.int32)
     for r in atlas.rois:
         if r.hemisphere == "both" and r.name in per_hemi:
             continue
-        out[r.vertices] = names.index(r.name) + 1
+        out[vertno[r.vertices]] = names.index(r.name) + 1
     return out
 
 
@@ -58,7 +59,7 @@ def plot_atlas(name_or_atlas: str | Atlas, *, output_file: str | Path | None = N
 
     atlas = load_atlas(name_or_atlas) if isinstance(name_or_atlas, str) else name_or_atlas
     labels = atlas_label_map(atlas)
-    surf = template_surface()
+    surf = load_head_model().surface
     n_max = max(int(labels.max()), 1)
     cmap = _qualitative_cmap(n_max)
     fig, axes = plt.subplots(1, 4, figsize=(14, 3.6), subplot_kw={"projection": "3d"})

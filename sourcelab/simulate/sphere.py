@@ -1,6 +1,6 @@
 """A small analytic test head: sources on a spherical shell, a dipole leadfield, patch ROIs.
 
-For tests and demonstrations of the trust tools without the 20,484-source template.  The
+For tests and demonstrations of the trust tools without the template head.  The
 leadfield is the potential of a current dipole in an infinite homogeneous conductor,
 ``V(r) = p · (r - r0) / (4 π σ |r - r0|³)`` (e.g. Sarvas 1987, Phys Med Biol 32:11-22, eq. for the
 unbounded medium; from memory) - not a head, but smooth, full-rank and local, which is what the

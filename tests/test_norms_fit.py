@@ -1,9 +1,6 @@
-"""Building norms from a reference cohort, leave-one-out calibration, cohort folders, check."""
+"""Fitting norms to a reference cohort's tables, leave-one-out calibration, checking a file."""
 
 from __future__ import annotations
-
-import sys
-import types
 
 import matplotlib
 import numpy as np
@@ -12,12 +9,10 @@ import pytest
 
 from sourcelab.config import DEFAULT_BANDS
 from sourcelab.errors import InputError
-from sourcelab.norms import (apply_norms, build_norms_from_cohort, calibration_report,
-                             check_norms, find_recording, fit_norms, normalise_condition,
-                             plot_calibration, read_norms,
-                             write_norms)
+from sourcelab.norms import (apply_norms, calibration_report, check_norms, fit_norms,
+                             plot_calibration, write_norms)
 from sourcelab.norms.models import fit_poly
-from sourcelab.norms.simulate import gaussian_cohort
+from sourcelab.simulate import gaussian_cohort
 from sourcelab.provenance import Fingerprint
 
 matplotlib.use("Agg")
@@ -141,63 +136,3 @@ def test_check_norms_summary(fit, tmp_path):
     assert "valid sourcelab-norms 1" in s and "8 ROIs" in s and "3 channels" in s
     # the fingerprint declares delta and highbeta, which these norms lack
     assert "without norms: ['delta', 'highbeta']" in s
-
-
-def _fake_pipeline(cohort, fail_id):
-    by_file = {}
-    for pid, age, roi, sen in cohort.entries:
-        by_file[pid] = (roi, sen)
-
-    def analyze(recording, *, config=None, age=None, norms=None):
-        pid = recording.name.split("_")[0]
-        if pid == fail_id:
-            raise RuntimeError("flat channels: Fz, Cz\nsecond line")
-        roi, sen = by_file[pid]
-        return types.SimpleNamespace(roi_table=roi, sensor_table=sen, fingerprint=FP)
-    return types.SimpleNamespace(analyze=analyze)
-
-
-def test_build_from_cohort_folder(cohort, tmp_path, monkeypatch):
-    root = tmp_path / "cohort"
-    rows = ["participant_id\tage\tsex\tcondition"]
-    for k, (pid, age, _, _) in enumerate(cohort.entries[:40]):
-        (root / pid / "eeg").mkdir(parents=True)
-        (root / pid / "eeg" / f"{pid}_task-rest_eeg.edf").write_bytes(b"")
-        rows.append(f"{pid}\t{age}\t{'FM'[k % 2]}\teyes closed")
-    rows.append("sub-900\tn/a\tF\teyes closed")          # bad age
-    rows.append("../../etc/passwd\t30\tF\teyes closed")  # hostile id: never a path
-    rows.append("sub-901\t30\tM\teyes open")              # other condition: not used
-    (root / "participants.tsv").write_text("\n".join(rows) + "\n")
-    monkeypatch.setitem(sys.modules, "sourcelab.pipeline",
-                        _fake_pipeline(cohort, fail_id="sub-003"))
-    with pytest.raises(InputError, match="conditions"):  # two conditions listed: must choose
-        build_norms_from_cohort(root, root / "participants.tsv", config=None,
-                                out=tmp_path / "out" / "norms.tsv")
-    res = build_norms_from_cohort(root, root / "participants.tsv", config=None,
-                                  out=tmp_path / "out" / "norms.tsv", min_n_per_bin=20,
-                                  condition="Eyes closed")
-    failed = dict(res.failures)
-    assert set(failed) == {"sub-003", "sub-900", "../../etc/passwd"}
-    assert "\n" not in failed["sub-003"] and "no recording" in failed["../../etc/passwd"]
-    nm = read_norms(tmp_path / "out" / "norms.tsv")
-    assert nm.cohort["n"] == 39 and nm.sha256 == res.norms.sha256
-    assert normalise_condition(nm.condition) == "eyes closed"
-    # sub-003 (k = 2, "F") failed: 19 F + 20 M remain
-    assert nm.cohort["sex"] == {"F": 19, "M": 20}
-    rep = pd.read_csv(res.report_path, sep="\t")
-    assert len(rep) == len(nm.table) and "loo_frac_1.96" in rep
-    assert res.figure_path.read_bytes()[:4] == b"\x89PNG"
-
-
-def test_find_recording_flat_folder_and_ambiguity(tmp_path):
-    (tmp_path / "P01.edf").write_bytes(b"")
-    (tmp_path / "P02_rest.vhdr").write_bytes(b"")
-    (tmp_path / "P02_rest.eeg").write_bytes(b"")
-    (tmp_path / "P03.edf").write_bytes(b"")
-    (tmp_path / "P03.bdf").write_bytes(b"")
-    assert find_recording(tmp_path, "P01").name == "P01.edf"
-    assert find_recording(tmp_path, "P02").name == "P02_rest.vhdr"
-    with pytest.raises(InputError, match="several"):
-        find_recording(tmp_path, "P03")
-    with pytest.raises(InputError, match="no recording"):
-        find_recording(tmp_path, "P0")

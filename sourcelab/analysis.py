@@ -1,0 +1,249 @@
+"""The analysis: recording → clean epochs → band cross-spectra → sLORETA → areas → z → answers.
+
+Every stage is a pure function elsewhere in the package; :func:`analyze` wires them, records
+provenance and returns an :class:`~sourcelab.result.AnalysisResult` that owns everything it
+computed (tables, maps, candidates, leakage).  Writing files is :meth:`AnalysisResult.write`.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from pathlib import Path
+
+import numpy as np
+
+from .config import AnalysisConfig
+from .constants import UNITS
+from .errors import InputError
+from .provenance import Fingerprint
+from .result import (ROI_COLUMNS, SENSOR_COLUMNS, AnalysisResult, NormsInfo, QualitySummary,
+                     RecordingInfo)
+
+log = logging.getLogger("sourcelab")
+
+#: Atlases reported by default.
+DEFAULT_ATLASES = ("brodmann", "lobes", "networks", "yeo7")
+#: Stages shown by the progress bar.
+STAGES = ("reading", "cleaning", "cross-spectra", "sources", "areas", "z-scores", "intervals",
+          "candidates")
+
+
+def fingerprint_for(config: AnalysisConfig, headmodel_sha256: str | None = None) -> Fingerprint:
+    """The pipeline fingerprint of an analysis made with ``config`` on the shipped head model.
+
+    Parameters
+    ----------
+    config : AnalysisConfig
+    headmodel_sha256 : str, optional
+        Default: the shipped head model's.
+
+    Returns
+    -------
+    Fingerprint
+    """
+    if headmodel_sha256 is None:
+        from .headmodel import load_head_model
+
+        headmodel_sha256 = load_head_model().sha256
+    return Fingerprint(
+        headmodel_sha256=headmodel_sha256,
+        method=config.method,
+        orientation=config.orientation,
+        lambda2=config.lambda2,
+        bands=tuple((n, float(lo), float(hi)) for n, (lo, hi) in
+                    zip(config.bands.names, config.bands.edges)),
+        reference="average",
+        epoch_s=float(config.epoch_s),
+    )
+
+
+def _roi_table(atlases, src_abs: np.ndarray, src_rel: np.ndarray, band_names):
+    import pandas as pd
+
+    from .rois import roi_reduce
+
+    rows = []
+    for atlas in atlases:
+        for measure, src in (("absolute", src_abs), ("relative", src_rel)):
+            vals = roi_reduce(src, atlas)
+            for b, band in enumerate(band_names):
+                for r, roi in enumerate(atlas.rois):
+                    rows.append((atlas.name, roi.name, roi.hemisphere, band, measure,
+                                 float(vals[b, r]), UNITS[measure], int(len(roi.vertices)),
+                                 bool(roi.small), np.nan))
+    return pd.DataFrame(rows, columns=list(ROI_COLUMNS))
+
+
+def _sensor_table(ch_names, sens_abs: np.ndarray, sens_rel: np.ndarray, band_names):
+    import pandas as pd
+
+    rows = []
+    for measure, vals in (("absolute", sens_abs), ("relative", sens_rel)):
+        unit = UNITS["sensor_absolute"] if measure == "absolute" else UNITS["relative"]
+        for b, band in enumerate(band_names):
+            for c, ch in enumerate(ch_names):
+                rows.append((ch, band, measure, float(vals[b, c]), unit, np.nan))
+    return pd.DataFrame(rows, columns=list(SENSOR_COLUMNS))
+
+
+def analyze(recording, *, config: AnalysisConfig | None = None, age: float | None = None,
+            norms=None, condition: str | None = None, atlases: tuple[str, ...] | None = None,
+            custom_rois=None, select=None, allow_extrapolation: bool = False,
+            allow_condition_mismatch: bool = False,
+            progress: bool | None = False) -> AnalysisResult:
+    """Analyse one recording end to end.
+
+    Parameters
+    ----------
+    recording : str | Path | mne.io.BaseRaw | sourcelab.intake.Recording
+        A file (EDF, BDF, BrainVision, EEGLAB, FIF, BIDS path) or an in-memory recording whose
+        channel names name the 19 10-20 sites (decorations such as ``"EEG T3-REF"`` are
+        recognised).
+    config : AnalysisConfig, optional
+        Default settings when omitted.
+    age : float, optional
+        Participant age in years; needed with ``norms``.
+    norms : str | Path | sourcelab.norms.Norms, optional
+        Norms to z-score against; their fingerprint must equal this analysis'.
+    condition : str, optional
+        Recording condition (e.g. ``"eyes closed"``), compared with the norms'.
+    atlases : tuple of str, optional
+        Atlas names (default :data:`DEFAULT_ATLASES`).
+    custom_rois : Atlas, optional
+        User-defined ROIs (:func:`sourcelab.rois.load_custom_rois`), reported as their own atlas.
+    select : optional
+        Segments to analyse: annotation descriptions and/or (start, stop) ranges in seconds
+        (see :func:`sourcelab.intake.clean.selection_mask`).
+    allow_extrapolation : bool
+        z-score outside the norms' age range (rows flagged).
+    allow_condition_mismatch : bool
+        z-score against norms of another condition (rows flagged).
+    progress : bool | None
+        Stage progress bar (None: only when standard error is a terminal).
+
+    Returns
+    -------
+    AnalysisResult
+
+    Raises
+    ------
+    InputError
+        Unreadable recording, too little clean data, norms that do not fit, ...
+    """
+    from .headmodel import load_head_model
+    from .intake import Recording, clean_recording, read_recording
+    from .inverse import inverse_operator
+    from .progress import Stages
+    from .rois import load_atlas
+    from .spectra import average_reference, epoch_cross_spectra, relative_power, \
+        sensor_band_power
+
+    t0 = time.perf_counter()
+    config = config or AnalysisConfig()
+    names = config.bands.names
+    with Stages(STAGES, desc="analysis", enabled=progress) as stages:
+        stages.step("reading")
+        rec = recording if isinstance(recording, Recording) else read_recording(recording)
+        stages.step("cleaning")
+        clean = clean_recording(rec, config, select=select, muscle_uv=config.muscle_uv,
+                                blink_uv=config.blink_uv)
+        model = load_head_model()
+        if tuple(clean.ch_names) != tuple(model.ch_names):
+            raise InputError(f"channels {clean.ch_names} do not match the head model's "
+                             f"{model.ch_names}")
+        stages.step("cross-spectra")
+        csd_epochs = epoch_cross_spectra(clean.epochs, clean.sfreq, config.bands)
+        csd = csd_epochs.mean(axis=0)
+        sens_abs, sens_rel = sensor_band_power(average_reference(csd))
+        stages.step("sources")
+        op = inverse_operator(config.method, config.orientation, config.lambda2)
+        src_abs = op.power(csd)
+        src_rel = relative_power(src_abs)
+        stages.step("areas")
+        atlas_objs = tuple(load_atlas(a) for a in (atlases or DEFAULT_ATLASES))
+        if custom_rois is not None:
+            atlas_objs += (custom_rois,)
+        roi_table = _roi_table(atlas_objs, src_abs, src_rel, names)
+        sensor_table = _sensor_table(clean.ch_names, sens_abs, sens_rel, names)
+        fp = fingerprint_for(config, model.sha256)
+        quality = _quality(clean, csd_epochs, op, atlas_objs[0], config)
+
+        stages.step("z-scores")
+        norms_info = roi_rows = sensor_rows = nm = None
+        if norms is not None:
+            from .norms import apply_norms, match_norms, read_norms
+
+            nm = norms if not isinstance(norms, (str, Path)) else read_norms(norms)
+            if age is None:
+                raise InputError("the participant's age is needed with norms (z-scores depend "
+                                 "on age)")
+            opts = dict(age=age, fingerprint=fp, condition=condition,
+                        allow_extrapolation=allow_extrapolation,
+                        allow_condition_mismatch=allow_condition_mismatch)
+            roi_rows = match_norms(roi_table, nm, kind="roi", **opts)
+            sensor_rows = match_norms(sensor_table, nm, kind="sensor", **opts)
+            roi_table = apply_norms(roi_table, nm, kind="roi", rows=roi_rows, **opts)
+            sensor_table = apply_norms(sensor_table, nm, kind="sensor", rows=sensor_rows, **opts)
+            norms_info = NormsInfo(path=None if nm.path is None else str(nm.path),
+                                   sha256=nm.sha256, condition=nm.condition,
+                                   cohort=dict(nm.cohort), n_rows=int(len(nm.table)),
+                                   fingerprint=nm.fingerprint)
+        stages.step("intervals")
+        if config.n_boot:
+            from .trust import add_intervals, add_sensor_intervals
+
+            kw = dict(n_boot=config.n_boot, seed=config.boot_seed, ci=config.ci, band_names=names)
+            roi_table = add_intervals(roi_table, csd_epochs, op, atlas_objs, norm_rows=roi_rows,
+                                      **kw)
+            sensor_table = add_sensor_intervals(sensor_table, csd_epochs,
+                                                ch_names=clean.ch_names, norm_rows=sensor_rows,
+                                                **kw)
+        stages.step("candidates")
+        from .trust import leakage_for, leakage_hints
+
+        leak = leakage_for("brodmann", method=config.method, orientation=config.orientation,
+                           lambda2=config.lambda2)
+        candidates = hints = None
+        if nm is not None:
+            from .targets import candidates_for_table
+
+            candidates = candidates_for_table(roi_table)
+            hints = leakage_hints(roi_table[roi_table["atlas"] == "brodmann"], leak)
+    recording_info = RecordingInfo(
+        path=str(rec.path) if rec.path else None, sha256=rec.sha256, sfreq=float(rec.sfreq),
+        duration_s=float(rec.duration_s), channel_map=dict(rec.channel_map),
+        original_reference=rec.original_reference, interpolated=tuple(rec.interpolated),
+        annotations=tuple(rec.annotations), age=None if age is None else float(age),
+        condition=condition)
+    # clean.warnings already holds the recording's warnings: keep each warning once
+    warnings = tuple(dict.fromkeys(tuple(rec.warnings) + tuple(clean.warnings)))
+    log.info("analysis done in %.2f s", time.perf_counter() - t0)
+    return AnalysisResult(config=config, fingerprint=fp, ch_names=tuple(clean.ch_names),
+                          source_abs=src_abs.astype(np.float32),
+                          source_rel=src_rel.astype(np.float32),
+                          sensor_abs=sens_abs, sensor_rel=sens_rel, roi_table=roi_table,
+                          sensor_table=sensor_table, quality=quality, recording=recording_info,
+                          norms=norms_info, warnings=warnings, atlases=atlas_objs, leakage=leak,
+                          candidates=candidates, leakage_hints=hints, epoch_csd=csd_epochs)
+
+
+def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig) -> QualitySummary:
+    """Seconds kept/rejected and split-half / test-retest reliability (sensors and areas)."""
+    from .intake import reliability_summary
+    from .inverse import roi_power_matrices
+    from .spectra import average_reference
+
+    sens = np.einsum("ebcc->ebc", average_reference(csd_epochs))  # (n_ep, n_bands, n_ch)
+    m = roi_power_matrices(op, atlas.vertex_sets())
+    roi = np.einsum("rcd,ebdc->ebr", m, csd_epochs)  # per-epoch ROI mean power
+    names, thr = config.bands.names, config.reliability_threshold
+    return QualitySummary(
+        kept_s=float(clean.kept_s),
+        rejected_s={k: float(v) for k, v in clean.rejected_s.items()},
+        n_epochs=int(csd_epochs.shape[0]),
+        channel_kept_fraction={k: float(v) for k, v in clean.channel_kept_fraction.items()},
+        mains_hz=clean.mains_hz,
+        thresholds=dict(clean.thresholds),
+        reliability={"sensors": reliability_summary(sens, names, threshold=thr),
+                     atlas.name: reliability_summary(roi, names, threshold=thr)})
