@@ -1,0 +1,1 @@
+"""Coupling between electrode pairs and between cortical networks (pure array functions)."""
