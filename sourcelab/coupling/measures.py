@@ -491,19 +491,21 @@ def _gram(x: np.ndarray, idx) -> np.ndarray:
 def _quadratic_quantile(gram: np.ndarray, dvec: np.ndarray, level: float) -> tuple:
     """Mean and ``level`` quantile of ``Σ_f d_f A_f²`` with ``A ~ N(0, gram)``.
 
-    Welch-Satterthwaite: a scaled chi-square with the exact mean ``Σλ`` and variance ``2Σλ²``
-    (``λ`` the eigenvalues of ``D^½ Σ D^½``).
+    Pearson's three-moment approximation: a shifted, scaled chi-square ``a χ²_h + b`` with the
+    exact mean ``Σλ``, variance ``2Σλ²`` and third cumulant ``8Σλ³`` (``λ`` the eigenvalues of
+    ``D^½ Σ D^½``); Pearson ES (1959) Biometrika 46:364 (from memory).
     """
     from scipy import stats
 
     sd = np.sqrt(np.clip(dvec, 0.0, None))
     m = sd[:, :, None] * gram * sd[:, None, :]
     lam = np.clip(np.linalg.eigvalsh(m), 0.0, None)
-    s1, s2 = lam.sum(-1), (lam**2).sum(-1)
+    k1, k2, k3 = lam.sum(-1), 2.0 * (lam**2).sum(-1), 8.0 * (lam**3).sum(-1)
     with np.errstate(invalid="ignore", divide="ignore"):
-        g, h = s2 / s1, s1**2 / s2
-        q = g * stats.chi2.ppf(level, h)
-    return s1, np.where(s1 > 0, q, 0.0)
+        h = 8.0 * k2**3 / k3**2
+        a = k3 / (4.0 * k2)
+        q = a * stats.chi2.ppf(level, h) + (k1 - a * h)
+    return k1, np.where(k1 > 0, q, 0.0)
 
 
 def _analytic_null(ps: PairStatistics, band_idx, level: float) -> dict:
@@ -576,8 +578,8 @@ def conjugation_null(ps: PairStatistics, band_idx, *, method: str = "analytic",
     independent terms, hence close to Gaussian with the exact covariance
     ``Σ_e Im S_e(f) Im S_e(f') / K²`` across a band's bins: ``imcoh`` is then Gaussian (quantile
     of ``|imcoh|``: ``z_{(1+level)/2}`` SDs); ``lagcoh``, ``lps`` and ``wpli2_debiased`` are
-    quadratic forms, summarised by a scaled chi-square with their exact mean and variance
-    (Satterthwaite 1946); ``wpli`` averages ``|Gaussian|`` terms, summarised by a gamma
+    quadratic forms, summarised by a shifted scaled chi-square with their exact first three
+    cumulants (Pearson 1959); ``wpli`` averages ``|Gaussian|`` terms, summarised by a gamma
     distribution with exact mean and variance (``E|X||Y|`` of a bivariate normal, from memory).
     The means are exact; debiased wPLI²'s null mean is 0 by construction.
 
@@ -607,8 +609,8 @@ def conjugation_null(ps: PairStatistics, band_idx, *, method: str = "analytic",
     testing Granger causality.  IEEE Trans Signal Process 64:2746-2760 (from memory).
     Nolte G et al. (2004).  Clin Neurophysiol 115:2292-2307 (the imaginary part of coherency
     vanishes for instantaneous mixing).
-    Satterthwaite FE (1946).  An approximate distribution of estimates of variance components.
-    Biometrics Bull 2:110-114.
+    Pearson ES (1959).  Note on an approximation to the distribution of non-central χ².
+    Biometrika 46:364 (three-moment chi-square approximation; from memory).
     """
     if method == "analytic":
         return _analytic_null(ps, band_idx, level)
