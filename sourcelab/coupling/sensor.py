@@ -240,69 +240,84 @@ def sensor_coupling(spectra: np.ndarray, freqs: np.ndarray, bands: Bands, ch_nam
                           intervals=intervals, n_epochs=int(n_ep), distance_mm=dist)
 
 
-def leakage_columns(measure: str, value: np.ndarray, null: dict, leak_msc) -> tuple:
-    """(expected, q95, explained) arrays for one measure's values, shape as ``value``."""
+def _boolean(x: np.ndarray) -> pd.arrays.BooleanArray:
+    """Float 1/0/NaN -> pandas nullable boolean."""
+    x = np.asarray(x, dtype=float)
+    return pd.arrays.BooleanArray(x == 1.0, ~np.isfinite(x))
+
+
+def leakage_arrays(measure: str, value: np.ndarray, null: dict, leak_msc) -> tuple:
+    """(expected, q95, explained) float arrays shaped like ``value`` (n_bands, n_pairs);
+    ``explained`` is 1/0, NaN where not defined."""
     nan = np.full(value.shape, np.nan)
     if measure in LAGGED_MEASURES and measure in null:
         mean, q95 = null[measure]
         mag = np.abs(value) if measure == "imcoh" else value
-        explained = pd.array(np.where(np.isfinite(mag) & np.isfinite(q95), mag <= q95, None),
-                             dtype="boolean")
-        return mean, q95, explained
+        ok = np.isfinite(mag) & np.isfinite(q95)
+        return mean, q95, np.where(ok, mag <= q95, np.nan)
     if measure == "msc" and leak_msc is not None:
         exp = np.broadcast_to(leak_msc, value.shape)
-        return exp, nan, pd.array(value <= exp, dtype="boolean")
-    return nan, nan, pd.array([None] * value.size, dtype="boolean").reshape(-1)
+        return exp, nan, np.where(np.isfinite(value), value <= exp, np.nan)
+    return nan, nan, nan
 
 
 def pair_table(sc: SensorCoupling) -> pd.DataFrame:
     """Tidy table: one row per pair x band x measure (columns :data:`PAIR_COLUMNS`).
 
     Rows: every measure of :data:`~sourcelab.coupling.measures.BAND_MEASURES` for all
-    ``n(n-1)/2`` pairs, then ``asymmetry`` for the homologous and anterior-posterior pairs.
-    Column meanings: :data:`PAIR_COLUMN_NOTES`.  ``z`` is NaN until norms are applied (norms
-    kind ``"pair"``, keyed by ``pair``, ``band``, ``measure``).
+    ``n(n-1)/2`` pairs (measure, then band, then pair), then ``asymmetry`` for the homologous
+    and anterior-posterior pairs.  Column meanings: :data:`PAIR_COLUMN_NOTES`.  ``z`` is NaN
+    until norms are applied (norms kind ``"pair"``, keyed by ``pair``, ``band``, ``measure``).
     """
     ps = sc.pairs
     names = np.asarray(ps.ch_names)
     flags = ps.membership()
+    n_b = len(sc.band_names)
+    bands = np.asarray(sc.band_names)
+
+    def block(pairs_idx, labels, pa, pb, measures, values, extra, dist, fl):
+        n_p, n_m = len(labels), len(measures)
+        rep = n_m * n_b
+        return pd.DataFrame({
+            "pair": np.tile(labels, rep), "channel_a": np.tile(names[pa], rep),
+            "channel_b": np.tile(names[pb], rep),
+            "band": np.tile(np.repeat(bands, n_p), n_m),
+            "measure": np.repeat(np.asarray(measures), n_b * n_p),
+            "value": np.concatenate([np.asarray(v, float).ravel() for v in values]),
+            "unit": np.repeat(np.asarray([MEASURE_UNITS[m] for m in measures]), n_b * n_p),
+            "value_lo": np.concatenate([e[0].ravel() for e in extra]),
+            "value_hi": np.concatenate([e[1].ravel() for e in extra]),
+            "homologous": np.tile(fl["homologous"], rep),
+            "anterior_posterior": np.tile(fl["anterior_posterior"], rep),
+            "intrahemispheric": np.tile(fl["intrahemispheric"], rep),
+            "distance_mm": np.tile(dist, rep),
+            "leakage_expected": np.concatenate([e[2].ravel() for e in extra]),
+            "leakage_q95": np.concatenate([e[3].ravel() for e in extra]),
+            "leakage_explained": _boolean(np.concatenate([e[4].ravel() for e in extra])),
+            "n_epochs": sc.n_epochs, "z": np.nan})
+
     labels = np.array([ps.label(p) for p in ps.all])
-    frames = []
+    values, extra = [], []
     for m in BAND_MEASURES:
-        for b, band in enumerate(sc.band_names):
-            v = np.asarray(sc.values[m][b], dtype=float)
-            e, q, x = leakage_columns(m, v, {k: (a[b], c[b]) for k, (a, c) in sc.null.items()},
-                                      sc.leakage_msc)
-            lo, hi = sc.intervals.get(m, (None, None))
-            frames.append(pd.DataFrame({
-                "pair": labels, "channel_a": names[ps.all[:, 0]],
-                "channel_b": names[ps.all[:, 1]], "band": band, "measure": m, "value": v,
-                "unit": MEASURE_UNITS[m],
-                "value_lo": lo[b] if lo is not None else np.nan,
-                "value_hi": hi[b] if hi is not None else np.nan,
-                "homologous": flags["homologous"], "anterior_posterior":
-                flags["anterior_posterior"], "intrahemispheric": flags["intrahemispheric"],
-                "distance_mm": sc.distance_mm, "leakage_expected": e, "leakage_q95": q,
-                "leakage_explained": x, "n_epochs": sc.n_epochs, "z": np.nan}))
+        v = np.asarray(sc.values[m], dtype=float)
+        exp, q95, expl = leakage_arrays(m, v, sc.null, sc.leakage_msc)
+        nan = np.full(v.shape, np.nan)
+        lo, hi = sc.intervals.get(m, (nan, nan))
+        values.append(v)
+        extra.append([np.asarray(lo, float), np.asarray(hi, float),
+                      np.broadcast_to(exp, v.shape), np.broadcast_to(q95, v.shape),
+                      np.broadcast_to(expl, v.shape)])
+    frames = [block(None, labels, ps.all[:, 0], ps.all[:, 1], BAND_MEASURES, values, extra,
+                    sc.distance_mm, flags)]
     pos = {tuple(p): i for i, p in enumerate(ps.all.tolist())}
     for key in ("homologous", "anterior_posterior"):
         sub = getattr(ps, key)
         idx = np.array([pos[tuple(sorted(p))] for p in sub.tolist()], dtype=int)
-        lo_hi = sc.intervals.get("asymmetry_" + key)
-        for b, band in enumerate(sc.band_names):
-            v = sc.asymmetry[key][b]
-            frames.append(pd.DataFrame({
-                "pair": [ps.label(p) for p in sub], "channel_a": names[sub[:, 0]],
-                "channel_b": names[sub[:, 1]], "band": band, "measure": "asymmetry",
-                "value": v, "unit": MEASURE_UNITS["asymmetry"],
-                "value_lo": lo_hi[0][b] if lo_hi else np.nan,
-                "value_hi": lo_hi[1][b] if lo_hi else np.nan,
-                "homologous": key == "homologous", "anterior_posterior":
-                key == "anterior_posterior", "intrahemispheric": flags["intrahemispheric"][idx],
-                "distance_mm": sc.distance_mm[idx], "leakage_expected": np.nan,
-                "leakage_q95": np.nan,
-                "leakage_explained": pd.array([None] * len(sub), dtype="boolean"),
-                "n_epochs": sc.n_epochs, "z": np.nan}))
-    out = pd.concat(frames, ignore_index=True)[list(PAIR_COLUMNS)]
-    out["leakage_explained"] = out["leakage_explained"].astype("boolean")
-    return out
+        v = np.asarray(sc.asymmetry[key], dtype=float)
+        nan = np.full(v.shape, np.nan)
+        lo, hi = sc.intervals.get("asymmetry_" + key, (nan, nan))
+        fl = {k: f[idx] for k, f in flags.items()}
+        frames.append(block(None, np.array([ps.label(p) for p in sub]), sub[:, 0], sub[:, 1],
+                            ["asymmetry"], [v], [[lo, hi, nan, nan, nan]],
+                            sc.distance_mm[idx], fl))
+    return pd.concat(frames, ignore_index=True)[list(PAIR_COLUMNS)]

@@ -73,7 +73,7 @@ from ..errors import InputError
 from ..spectra import band_bin_indices
 from .measures import (LAGGED_MEASURES, bootstrap_intervals, bootstrap_weights,
                        conjugation_null, coupling_from_statistics, pair_statistics_from_fourier)
-from .sensor import MEASURE_UNITS, leakage_columns, msc_from_covariance
+from .sensor import MEASURE_UNITS, _boolean, leakage_arrays, msc_from_covariance
 
 #: Atlases coupled by default (partitions; ``networks`` per hemisphere, bilateral ROIs dropped).
 COUPLING_ATLASES = ("lobes", "yeo7", "networks")
@@ -124,13 +124,14 @@ class RoiFilters:
     vertices: tuple
 
     def shared_sources(self) -> np.ndarray:
-        """Sources common to ROI a and ROI b, shape (n_rois, n_rois)."""
-        n = len(self.names)
-        out = np.zeros((n, n), dtype=np.int64)
-        for a in range(n):
-            for b in range(a + 1, n):
-                out[a, b] = out[b, a] = np.intersect1d(self.vertices[a], self.vertices[b]).size
-        return out
+        """Sources common to ROI a and ROI b, shape (n_rois, n_rois) (diagonal: ROI sizes)."""
+        from scipy import sparse
+
+        rows = np.concatenate([np.full(len(v), i) for i, v in enumerate(self.vertices)])
+        cols = np.concatenate(self.vertices)
+        m = sparse.csr_matrix((np.ones(rows.size), (rows, cols)),
+                              shape=(len(self.vertices), int(cols.max()) + 1))
+        return np.asarray((m @ m.T).toarray(), dtype=np.int64)
 
 
 def _fixed_gain(gain: np.ndarray, n_src: int, normals) -> np.ndarray:
@@ -299,16 +300,18 @@ def band_analytic(spec_plain: np.ndarray, band_bins: np.ndarray, *,
 
     Returns
     -------
-    ndarray, shape (n_epochs, n_nodes, M), complex (any constant scale)
+    ndarray, shape (n_epochs, n_nodes, M), complex (any constant scale), single precision
+    for single-precision input
     """
     idx = np.asarray(band_bins, dtype=np.int64)
     nb = idx.size
     m = int(samples_per_epoch) if samples_per_epoch else max(16, 4 * nb)
     if m < nb:
         raise InputError(f"samples_per_epoch: need at least {nb} for this band")
-    x = np.zeros(spec_plain.shape[:2] + (m,), dtype=np.complex128)
+    x = np.zeros(spec_plain.shape[:2] + (m,), dtype=np.result_type(spec_plain.dtype,
+                                                                   np.complex64))
     x[..., :nb] = spec_plain[..., idx]
-    return np.fft.ifft(x, axis=-1) * m
+    return (np.fft.ifft(x, axis=-1) * m).astype(x.dtype, copy=False)
 
 
 def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
@@ -337,11 +340,11 @@ def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
     ar, ai = a.real, a.imag
     for j in range(n):
         o = np.abs(ai * unit[:, j:j + 1].real - ar * unit[:, j:j + 1].imag)  # (n_ep, n, M)
-        so[:, :, j] = o.sum(-1)
-        soo[:, :, j] = (o * o).sum(-1)
+        so[:, :, j] = o.sum(-1, dtype=float)
+        soo[:, :, j] = (o * o).sum(-1, dtype=float)
         soy[:, :, j] = np.matmul(o, mag[:, j, :, None])[..., 0]
-    return {"so": so, "soo": soo, "soy": soy, "sy": mag.sum(-1), "syy": (mag * mag).sum(-1),
-            "m": m}
+    return {"so": so, "soo": soo, "soy": soy, "sy": mag.sum(-1, dtype=float),
+            "syy": (mag * mag).sum(-1, dtype=float), "m": m}
 
 
 def aec_from_moments(mom: dict, weights: np.ndarray | None = None) -> np.ndarray:
@@ -534,40 +537,49 @@ def coupling_table(results) -> pd.DataFrame:
     ``leakage_explained``: lagged measures and ``aec_orth``: ``|value| <= leakage_q95``;
     ``msc``: ``value <= leakage_expected``.  ``z`` is NaN until norms are applied (norms kind
     ``"edge"``, keyed by ``atlas``, ``edge``, ``band``, ``measure``).  Column meanings:
-    :data:`EDGE_COLUMN_NOTES`.
+    :data:`EDGE_COLUMN_NOTES`.  Rows: atlas, then measure (:data:`EDGE_MEASURES` order), band,
+    edge.
     """
     frames = []
     for ec in results:
         f = ec.filters
         a, b = ec.edges[:, 0], ec.edges[:, 1]
         names, hemis = np.asarray(f.names), np.asarray(f.hemispheres)
-        label = [f"{names[i]}.{hemis[i]}|{names[j]}.{hemis[j]}" for i, j in ec.edges]
+        label = np.char.add(np.char.add(np.char.add(np.char.add(names[a], "."), hemis[a]), "|"),
+                            np.char.add(np.char.add(names[b], "."), hemis[b]))
         shared = f.shared_sources()[a, b]
-        for m in EDGE_MEASURES:
-            if m not in ec.values:
-                continue
-            for bi, band in enumerate(ec.band_names):
-                v = np.asarray(ec.values[m][bi], dtype=float)
-                null = {k: (x[bi], y[bi]) for k, (x, y) in ec.null.items()}
-                if m == "aec_orth" and m in null:
-                    exp, q95 = null[m]
-                    expl = pd.array(np.where(np.isfinite(v), np.abs(v) <= q95, None),
-                                    dtype="boolean")
-                else:
-                    exp, q95, expl = leakage_columns(m, v, null, ec.leakage_msc)
-                lo, hi = ec.intervals.get(m, (None, None))
-                frames.append(pd.DataFrame({
-                    "atlas": f.atlas, "edge": label, "roi_a": names[a], "hemisphere_a": hemis[a],
-                    "roi_b": names[b], "hemisphere_b": hemis[b], "band": band, "measure": m,
-                    "value": v, "unit": MEASURE_UNITS[m],
-                    "value_lo": lo[bi] if lo is not None else np.nan,
-                    "value_hi": hi[bi] if hi is not None else np.nan,
-                    "leakage_expected": exp, "leakage_q95": q95, "leakage_explained": expl,
-                    "filter_share_a": f.share[a], "filter_share_b": f.share[b],
-                    "shared_sources": shared, "n_epochs": ec.n_epochs, "z": np.nan}))
-    out = pd.concat(frames, ignore_index=True)[list(EDGE_COLUMNS)]
-    out["leakage_explained"] = out["leakage_explained"].astype("boolean")
-    return out
+        ms = [m for m in EDGE_MEASURES if m in ec.values]
+        n_e, n_b = len(label), len(ec.band_names)
+        block = n_e * n_b
+        cols = {k: [] for k in ("value", "lo", "hi", "exp", "q95", "expl")}
+        for m in ms:
+            v = np.asarray(ec.values[m], dtype=float)                    # (n_bands, n_edges)
+            if m == "aec_orth" and m in ec.null:
+                exp, q95 = ec.null[m]
+                expl = np.where(np.isfinite(v), np.abs(v) <= q95, np.nan)
+            else:
+                exp, q95, expl = leakage_arrays(m, v, ec.null, ec.leakage_msc)
+            lo, hi = ec.intervals.get(m, (np.full_like(v, np.nan), np.full_like(v, np.nan)))
+            for k, x in zip(cols, (v, lo, hi, exp, q95, expl)):
+                cols[k].append(np.broadcast_to(np.asarray(x, dtype=float), v.shape).ravel())
+        n_m = len(ms)
+        frames.append(pd.DataFrame({
+            "atlas": f.atlas, "edge": np.tile(label, n_m * n_b),
+            "roi_a": np.tile(names[a], n_m * n_b), "hemisphere_a": np.tile(hemis[a], n_m * n_b),
+            "roi_b": np.tile(names[b], n_m * n_b), "hemisphere_b": np.tile(hemis[b], n_m * n_b),
+            "band": np.tile(np.repeat(np.asarray(ec.band_names), n_e), n_m),
+            "measure": np.repeat(np.asarray(ms), block),
+            "value": np.concatenate(cols["value"]),
+            "unit": np.repeat(np.asarray([MEASURE_UNITS[m] for m in ms]), block),
+            "value_lo": np.concatenate(cols["lo"]), "value_hi": np.concatenate(cols["hi"]),
+            "leakage_expected": np.concatenate(cols["exp"]),
+            "leakage_q95": np.concatenate(cols["q95"]),
+            "leakage_explained": _boolean(np.concatenate(cols["expl"])),
+            "filter_share_a": np.tile(f.share[a], n_m * n_b),
+            "filter_share_b": np.tile(f.share[b], n_m * n_b),
+            "shared_sources": np.tile(shared, n_m * n_b), "n_epochs": ec.n_epochs,
+            "z": np.nan}))
+    return pd.concat(frames, ignore_index=True)[list(EDGE_COLUMNS)]
 
 
 def network_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.ndarray,
