@@ -18,9 +18,9 @@ replicate is one matrix product of a weight matrix with the per-epoch statistics
 ``imcoh``          imaginary part of coherency ``A_im / sqrt(P_a P_b)`` (signed; Nolte et al. 2004)
 ``lagcoh``         lagged coherence ``A_im² / (P_a P_b - A_re²)`` (Pascual-Marqui 2007): the
                    coherence left after removing the instantaneous (zero-lag) part
-``wpli``           weighted phase-lag index ``|A_im| / A_abs`` (Vinck et al. 2011, eq. 8)
+``wpli``           weighted phase-lag index ``|A_im| / A_abs`` (Vinck et al. 2011)
 ``wpli2_debiased`` debiased squared wPLI ``(A_im² - A_sq/K) / (A_abs² - A_sq/K)`` (Vinck et al.
-                   2011, eq. 33: the sum over pairs of distinct epochs); may be negative
+                   2011: the sum over pairs of distinct epochs); may be negative
 ``lps``            lagged phase synchronisation ``U_im² / (1 - U_re²)`` (Pascual-Marqui 2007,
                    2011), the square of the corrected imaginary PLV (Bruña et al. 2018)
 ``plv``            phase-locking value ``|U|`` (Lachaux et al. 1999), for the phase dispersion
@@ -48,7 +48,8 @@ Nolte G, Bai O, Wheaton L, Mari Z, Vorbach S, Hallett M (2004).  Identifying tru
 interaction from EEG data using the imaginary part of coherency.  Clin Neurophysiol
 115:2292-2307.
 Pascual-Marqui RD (2007).  Coherence and phase synchronization: generalization to pairs of
-multivariate time series, and removal of zero-lag contributions.  arXiv:0706.1776.
+multivariate time series, and removal of zero-lag contributions.  arXiv:0706.1776 (from
+memory).
 Pascual-Marqui RD et al. (2011).  Assessing interactions in the brain with exact low-resolution
 electromagnetic tomography.  Phil Trans R Soc A 369:3768-3784.
 Vinck M, Oostenveld R, van Wingerden M, Battaglia F, Pennartz CMA (2011).  An improved index of
@@ -138,8 +139,8 @@ class PairStatistics:
         k = self.n_epochs
         shape = self.power.shape[1:]
 
-        def mean(a):
-            return a.mean(axis=0, dtype=float)[None]
+        def mean(a):                    # float32 pairwise summation (fast), then float64
+            return (a.sum(axis=0) / np.float32(k)).astype(float)[None]
 
         if weights is None and signs is None:
             return {n: mean(self.stats[n]) for n in names}, mean(self.power)
@@ -230,10 +231,19 @@ def pair_statistics_from_fourier(spec: np.ndarray, freqs: np.ndarray, pairs) -> 
     if np.shape(freqs) != (spec.shape[2],):
         raise InputError(f"freqs: need shape ({spec.shape[2]},), got {np.shape(freqs)}")
     ia, ib = _check_pairs(pairs, spec.shape[1])
-    x = np.ascontiguousarray(spec.transpose(0, 2, 1)).astype(np.complex64, copy=False)
-    s = x[..., ia] * x[..., ib].conj()
-    power = (x.real**2 + x.imag**2)
-    return _statistics(s, power, ia, ib, freqs)
+    xt = spec.transpose(0, 2, 1)                                      # (n_ep, n_bins, n_nodes)
+    xr = np.ascontiguousarray(xt.real, dtype=np.float32)
+    xi = np.ascontiguousarray(xt.imag, dtype=np.float32)
+    power = xr * xr + xi * xi
+    ar, ai, br, bi = xr[..., ia], xi[..., ia], xr[..., ib], xi[..., ib]
+    re = ar * br + ai * bi                                            # Re(X_a conj(X_b))
+    im = ai * br - ar * bi                                            # Im(X_a conj(X_b))
+    mag = np.sqrt(power[..., ia] * power[..., ib])                    # |X_a||X_b| = |S|
+    inv = np.divide(1.0, mag, out=np.zeros_like(mag), where=mag > 0)
+    stats = {"re": re, "im": im, "abs_im": np.abs(im), "sq_im": im * im, "u_re": re * inv,
+             "u_im": im * inv}
+    return PairStatistics(stats=stats, power=power, ia=ia, ib=ib,
+                          freqs=np.asarray(freqs, dtype=float))
 
 
 def bin_measures(acc: dict, power: np.ndarray, ia: np.ndarray, ib: np.ndarray,

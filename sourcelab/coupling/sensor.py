@@ -31,10 +31,14 @@ Int J Neurosci 39:71-89 (asymmetry of homologous sites; from memory).
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
+
+if TYPE_CHECKING:  # pandas is imported where tables are built
+    import pandas as pd
 
 from ..config import Bands
 from ..errors import InputError
@@ -242,6 +246,8 @@ def sensor_coupling(spectra: np.ndarray, freqs: np.ndarray, bands: Bands, ch_nam
 
 def _boolean(x: np.ndarray) -> pd.arrays.BooleanArray:
     """Float 1/0/NaN -> pandas nullable boolean."""
+    import pandas as pd
+
     x = np.asarray(x, dtype=float)
     return pd.arrays.BooleanArray(x == 1.0, ~np.isfinite(x))
 
@@ -269,6 +275,8 @@ def pair_table(sc: SensorCoupling) -> pd.DataFrame:
     and anterior-posterior pairs.  Column meanings: :data:`PAIR_COLUMN_NOTES`.  ``z`` is NaN
     until norms are applied (norms kind ``"pair"``, keyed by ``pair``, ``band``, ``measure``).
     """
+    import pandas as pd
+
     ps = sc.pairs
     names = np.asarray(ps.ch_names)
     flags = ps.membership()

@@ -61,12 +61,16 @@ memory).
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 from dataclasses import dataclass
 
 import weakref
 
 import numpy as np
-import pandas as pd
+
+if TYPE_CHECKING:  # pandas is imported where tables are built
+    import pandas as pd
 
 from ..config import Bands
 from ..errors import InputError
@@ -260,8 +264,9 @@ def roi_cross_spectra(csd: np.ndarray, weights: np.ndarray) -> np.ndarray:
 def roi_fourier(spec: np.ndarray, weights: np.ndarray) -> np.ndarray:
     """ROI Fourier coefficients ``W X``: shape (n_epochs, n_rois, n_bins) from
     (n_epochs, n_ch, n_bins)."""
-    return np.einsum("rc,ecf->erf", np.asarray(weights, dtype=np.float32)
-                     if np.asarray(spec).dtype == np.complex64 else weights, spec)
+    spec = np.asarray(spec)
+    w = np.asarray(weights, dtype=np.float32 if spec.dtype == np.complex64 else float)
+    return np.matmul(w.astype(spec.dtype), spec)
 
 
 def edge_leakage_msc(weights: np.ndarray, null_cov: np.ndarray) -> np.ndarray:
@@ -540,6 +545,8 @@ def coupling_table(results) -> pd.DataFrame:
     :data:`EDGE_COLUMN_NOTES`.  Rows: atlas, then measure (:data:`EDGE_MEASURES` order), band,
     edge.
     """
+    import pandas as pd
+
     frames = []
     for ec in results:
         f = ec.filters
@@ -584,7 +591,8 @@ def coupling_table(results) -> pd.DataFrame:
 
 def network_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.ndarray,
                      bands: Bands, op, atlases, *, gain: np.ndarray | None = None,
-                     normals: np.ndarray | None = None, **options) -> list[EdgeCoupling]:
+                     normals: np.ndarray | None = None, null_cov: np.ndarray | None = None,
+                     **options) -> list[EdgeCoupling]:
     """:func:`edge_coupling` for several atlases with filters built from ``op``.
 
     Parameters
@@ -595,11 +603,13 @@ def network_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.
         Leadfield (free or fixed) for the leakage coherence; with a free gain and a fixed
         operator pass ``normals``.
     normals : ndarray, shape (n_src, 3), optional
+    null_cov : ndarray, shape (n_ch, n_ch), optional
+        :func:`independent_source_covariance`, if already computed (then ``gain`` is not
+        needed).
     **options
         Passed to :func:`edge_coupling`.
     """
-    null_cov = None
-    if gain is not None:
+    if null_cov is None and gain is not None:
         g = _fixed_gain(gain, op.n_src, normals) if op.n_comp == 1 else np.asarray(gain)
         null_cov = independent_source_covariance(g)
     return [edge_coupling(spec, spec_plain, freqs, bands,
