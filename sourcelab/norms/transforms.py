@@ -48,6 +48,46 @@ def _expit(y: np.ndarray) -> np.ndarray:
     return 0.5 * (1.0 + np.tanh(0.5 * y))  # numerically stable logistic
 
 
+def _identity(x: np.ndarray) -> np.ndarray:
+    return np.asarray(x, dtype=float)
+
+
+def _fisher(x: np.ndarray) -> np.ndarray:
+    x = np.asarray(x, dtype=float)
+    bad = np.isfinite(x) & ~(np.abs(x) < 1)
+    if bad.any():
+        raise InputError(f"fisher transform: values must lie in (-1, 1) (a correlation-type "
+                         f"measure); got {x[bad][:3].tolist()}")
+    return np.arctanh(x)
+
+
+def _fisher_sqrt(x: np.ndarray) -> np.ndarray:
+    x = np.asarray(x, dtype=float)
+    bad = np.isfinite(x) & ~((x >= 0) & (x < 1))
+    if bad.any():
+        raise InputError(f"fisher_sqrt transform: values must lie in [0, 1) (a squared "
+                         f"coherence-type measure); got {x[bad][:3].tolist()}")
+    return np.arctanh(np.sqrt(x))
+
+
+def _tanh_sq(y: np.ndarray) -> np.ndarray:
+    return np.tanh(np.asarray(y, dtype=float)) ** 2
+
+
+def _fisher_ssqrt(x: np.ndarray) -> np.ndarray:
+    x = np.asarray(x, dtype=float)
+    bad = np.isfinite(x) & ~(np.abs(x) < 1)
+    if bad.any():
+        raise InputError(f"fisher_ssqrt transform: values must lie in (-1, 1); got "
+                         f"{x[bad][:3].tolist()}")
+    return np.arctanh(np.sign(x) * np.sqrt(np.abs(x)))
+
+
+def _tanh_ssq(y: np.ndarray) -> np.ndarray:
+    t = np.tanh(np.asarray(y, dtype=float))
+    return np.sign(t) * t * t
+
+
 @dataclass(frozen=True)
 class Transform:
     """A normalising transform and its inverse (both elementwise, NaN passes through)."""
@@ -62,6 +102,11 @@ class Transform:
 TRANSFORMS: dict[str, Transform] = {
     "log10": Transform("log10", _log10, _exp10, "(0, inf)"),
     "logit": Transform("logit", _logit, _expit, "(0, 1)"),
+    # coupling measures (sourcelab.norms.coupling explains which measure uses which)
+    "identity": Transform("identity", _identity, _identity, "(-inf, inf)"),
+    "fisher": Transform("fisher", _fisher, np.tanh, "(-1, 1)"),
+    "fisher_sqrt": Transform("fisher_sqrt", _fisher_sqrt, _tanh_sq, "[0, 1)"),
+    "fisher_ssqrt": Transform("fisher_ssqrt", _fisher_ssqrt, _tanh_ssq, "(-1, 1)"),
 }
 
 #: The transform used for each measure when norms are built.

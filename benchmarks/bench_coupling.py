@@ -1,0 +1,154 @@
+"""Benchmark: every pair and network coupling measure of a 10-minute recording.
+
+Run: ``python benchmarks/bench_coupling.py [--minutes 10] [--skip-mne]``.
+
+An invented 10-minute, 19-channel, 256 Hz recording (``run_all.invented_raw``: occipital alpha,
+frontal theta, central beta on pink background) is cleaned by ``sourcelab.intake`` into 2-s
+epochs.  Measured in the same run:
+
+* ``analyze``: today's analysis of the same recording (default configuration, with the 1,000
+  bootstrap replicates of band power), warm caches;
+* ``coupling``: everything this package adds - tapered and untapered Fourier coefficients, the 171
+  pairs x 5 bands x 9 measures + asymmetry with the analytic leakage null and the
+  volume-conduction coherence (its covariance is fixed per head model and computed once, like
+  the inverse operator), and the edges of lobes, yeo7 and networks (12/14/16 ROIs) x 5
+  bands x 6 measures including the orthogonalised envelope correlation, with leakage
+  expectations; both tidy tables.  Also with 1,000 bootstrap replicates for intervals;
+* ``mne``: the same measures with mne-connectivity from source (ROI) time series - ROI time
+  series ``W x`` of the clean epochs (the same filters), ``spectral_connectivity_epochs(mode=
+  "fourier", method=["coh", "imcoh", "ciplv"], faverage=True)`` per band, and
+  ``envelope_correlation(orthogonalize="pairwise")`` of the band-passed (``mne.filter``),
+  Hilbert-transformed ROI signals; plus ``spectral_connectivity_epochs`` for the sensor pairs
+  (coh, imcoh, wpli, wpli2_debiased, ciplv).  MNE has no lagged coherence, phase lag or leakage
+  null, so this route computes less than ours.
+* peak memory (tracemalloc, numpy allocations) of the coupling step and of the full per-bin
+  cross-spectra ``epoch_bin_cross_spectra`` (complex64).
+
+Goals (issue 17): coupling <= 2 s beyond today's analysis; >= 20x faster than the MNE route;
+<= 1 GB peak.  Times on a shared 2-core machine vary with the load; ratios compare this run.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+
+def _coupling(clean, model, op, atlases, bands, c0, *, n_boot=0):
+    from sourcelab.coupling.sensor import pair_table, sensor_coupling
+    from sourcelab.coupling.source import coupling_table, network_coupling
+    from sourcelab.spectra import epoch_fourier
+
+    spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, bands, dtype=np.complex64)
+    plain, _ = epoch_fourier(clean.epochs, clean.sfreq, bands, taper=False, dtype=np.complex64)
+    sc = sensor_coupling(spec, freqs, bands, model.ch_names, model.ch_pos, null_cov=c0,
+                         n_boot=n_boot)
+    ec = network_coupling(spec, plain, freqs, bands, op, atlases, null_cov=c0,
+                          normals=model.src_nn, n_boot=n_boot)
+    return pair_table(sc), coupling_table(ec)
+
+
+def _mne_route(clean, filters, bands):
+    import mne
+    from mne_connectivity import envelope_correlation, spectral_connectivity_epochs
+
+    fmin = tuple(lo for lo, _ in bands.edges)
+    fmax = tuple(hi - 1e-6 for _, hi in bands.edges)
+    x = clean.epochs - clean.epochs.mean(axis=1, keepdims=True)
+    out = []
+    info = mne.create_info(x.shape[1], clean.sfreq, "eeg")
+    ep = mne.EpochsArray(x, info, verbose="error")
+    out.append(spectral_connectivity_epochs(
+        ep, method=["coh", "imcoh", "wpli", "wpli2_debiased", "ciplv"], mode="fourier",
+        fmin=fmin, fmax=fmax, faverage=True, verbose="error"))
+    for f in filters:
+        roi = np.einsum("rc,ect->ert", f.weights, clean.epochs)
+        rinfo = mne.create_info(roi.shape[1], clean.sfreq, "eeg")
+        rep = mne.EpochsArray(roi, rinfo, verbose="error")
+        out.append(spectral_connectivity_epochs(rep, method=["coh", "imcoh", "ciplv"],
+                                                mode="fourier", fmin=fmin, fmax=fmax,
+                                                faverage=True, verbose="error"))
+        for lo, hi in bands.edges:
+            bp = mne.filter.filter_data(roi, clean.sfreq, lo, hi, verbose="error")
+            out.append(envelope_correlation(bp, orthogonalize="pairwise").combine())
+    return out
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__)
+    p.add_argument("--minutes", type=float, default=10.0)
+    p.add_argument("--skip-mne", action="store_true")
+    args = p.parse_args(argv)
+
+    from benchmarks.run_all import invented_raw
+    from sourcelab.config import AnalysisConfig
+    from sourcelab.coupling.source import (COUPLING_ATLASES, independent_source_covariance,
+                                           roi_filters)
+    from sourcelab.headmodel import load_head_model
+    from sourcelab.intake import clean_recording, read_recording
+    from sourcelab.analysis import analyze
+    from sourcelab.inverse import inverse_operator
+    from sourcelab.rois import load_atlas
+    from sourcelab.spectra import epoch_bin_cross_spectra
+
+    cfg = AnalysisConfig()
+    model = load_head_model()
+    raw = invented_raw(model, 2026, 60.0 * args.minutes)
+    rec = read_recording(raw)
+    clean = clean_recording(rec, cfg, muscle_uv=cfg.muscle_uv, blink_uv=cfg.blink_uv)
+    print(f"recording: {args.minutes:g} min, {clean.epochs.shape[0]} clean 2-s epochs")
+    op = inverse_operator(cfg.method, cfg.orientation, cfg.lambda2)
+    atlases = [load_atlas(a) for a in COUPLING_ATLASES]
+    # fixed per head model, cached like the inverse operator: the volume-conduction covariance
+    c0 = independent_source_covariance(model.gain_fixed)
+    analyze(rec, config=cfg)                                   # warm every cache
+    _coupling(clean, model, op, atlases, cfg.bands, c0)
+
+    t = time.perf_counter()
+    analyze(rec, config=cfg)
+    t_an = time.perf_counter() - t
+    t = time.perf_counter()
+    pt, ct = _coupling(clean, model, op, atlases, cfg.bands, c0)
+    t_c = time.perf_counter() - t
+    t = time.perf_counter()
+    _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=1000)
+    t_cb = time.perf_counter() - t
+    print(f"today's analysis (analyze, default config):      {t_an:6.2f} s")
+    print(f"coupling, all measures ({len(pt)} pair rows, {len(ct)} edge rows): {t_c:6.2f} s "
+          f"(goal <= 2 s)")
+    print(f"coupling with 1000 bootstrap replicates:          {t_cb:6.2f} s")
+
+    tracemalloc.start()
+    _coupling(clean, model, op, atlases, cfg.bands, c0)
+    _, peak = tracemalloc.get_traced_memory()
+    tracemalloc.reset_peak()
+    csd, _ = epoch_bin_cross_spectra(clean.epochs, clean.sfreq, cfg.bands)
+    _, peak_csd = tracemalloc.get_traced_memory()
+    tracemalloc.reset_peak()
+    _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=1000)
+    _, peak_boot = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    print(f"peak memory, coupling step: {peak / 1e6:.0f} MB; full per-bin cross-spectra "
+          f"(complex64, {csd.nbytes / 1e6:.0f} MB): {peak_csd / 1e6:.0f} MB; coupling with "
+          f"1000 bootstrap replicates: {peak_boot / 1e6:.0f} MB (goal <= 1000 MB)")
+    del csd
+
+    if not args.skip_mne:
+        filters = [roi_filters(op, a, normals=model.src_nn) for a in atlases]
+        t = time.perf_counter()
+        _mne_route(clean, filters, cfg.bands)
+        t_m = time.perf_counter() - t
+        print(f"mne-connectivity route (sensor pairs + ROI time series): {t_m:6.2f} s")
+        print(f"ratio mne / sourcelab coupling: {t_m / t_c:6.1f}x (goal >= 20x)")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
