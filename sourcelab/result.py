@@ -52,6 +52,8 @@ class AnalysisResult:
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch) | None
         Per-epoch band cross-spectra (µV², as recorded; the kernel applies the average
         reference), kept for resampling (confidence intervals) and reliability.
+    epoch_onsets_s : ndarray, shape (n_epochs,) | None
+        Onset of each clean epoch from the start of the recording, s.
     """
 
     config: AnalysisConfig
@@ -67,6 +69,7 @@ class AnalysisResult:
     recording: dict = field(default_factory=dict)
     norms: dict | None = None
     epoch_csd: np.ndarray | None = None
+    epoch_onsets_s: np.ndarray | None = None
 
     @property
     def bands(self):
