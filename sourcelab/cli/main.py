@@ -22,7 +22,7 @@ COMMANDS = {
 }
 
 #: ``sourcelab targets RESULT_DIR`` is short for ``sourcelab targets list RESULT_DIR``
-_TARGET_ACTIONS = ("list", "export", "replay")
+_TARGET_ACTIONS = ("list", "export", "replay", "stream")
 
 
 def _get_parser() -> argparse.ArgumentParser:
