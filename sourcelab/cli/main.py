@@ -19,6 +19,7 @@ COMMANDS = {
     "targets": "sourcelab.cli.targets",
     "leakage": "sourcelab.cli.leakage",
     "batch": "sourcelab.cli.batch",
+    "compare": "sourcelab.cli.compare",
 }
 
 #: ``sourcelab targets RESULT_DIR`` is short for ``sourcelab targets list RESULT_DIR``
