@@ -350,9 +350,11 @@ def targeted_rows(table: pd.DataFrame, targets=None, *, max_rows: int = 8) -> pd
             raise InputError(f"no compared row matches the targets {keys}")
     else:
         first = table[table["session_b"] == table["session_b"].iloc[0]].reset_index(drop=True)
-        ch = first.index[first["verdict"] != "no change"].tolist()
-        order = np.argsort(-np.nan_to_num(np.abs(first["rci"].to_numpy(float)), nan=-1))
-        idx = (ch + [i for i in order if i not in ch])[:max_rows]
+        order = np.argsort(-np.nan_to_num(np.abs(first["rci"].to_numpy(float)), nan=-1),
+                           kind="stable")
+        changed = first["verdict"].to_numpy() != "no change"
+        ch = [int(i) for i in order if changed[i]]
+        idx = (ch + [int(i) for i in order if not changed[i]])[:max_rows]
     return rows.iloc[idx].assign(_i=idx)
 
 
