@@ -225,7 +225,8 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
                           sensor_abs=sens_abs, sensor_rel=sens_rel, roi_table=roi_table,
                           sensor_table=sensor_table, quality=quality, recording=recording_info,
                           norms=norms_info, warnings=warnings, atlases=atlas_objs, leakage=leak,
-                          candidates=candidates, leakage_hints=hints, epoch_csd=csd_epochs)
+                          candidates=candidates, leakage_hints=hints, epoch_csd=csd_epochs,
+                          epoch_onsets_s=np.asarray(clean.epoch_onsets_s, dtype=float))
 
 
 def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig) -> QualitySummary:

@@ -69,7 +69,8 @@ def _json_default(o):
 
 
 def write_tables(result, folder: Path, *, command=None) -> None:
-    """``roi_table.tsv``, ``sensor_table.tsv`` and ``provenance.json`` into ``folder``."""
+    """``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json`` and (when the result keeps
+    its per-epoch cross-spectra) ``epochs.npz`` into ``folder``."""
     result.roi_table.to_csv(folder / "roi_table.tsv", sep="\t", index=False, na_rep="",
                             float_format="%.6g")
     result.sensor_table.to_csv(folder / "sensor_table.tsv", sep="\t", index=False, na_rep="",
@@ -77,6 +78,14 @@ def write_tables(result, folder: Path, *, command=None) -> None:
     with open(folder / "provenance.json", "w", encoding="utf-8") as f:
         json.dump(_finite(provenance(result, command=command)), f, indent=2,
                   default=_json_default, allow_nan=False)
+    if result.epoch_csd is not None:
+        from .epochfile import FILENAME, write_epochs
+
+        cfg = result.config
+        write_epochs(folder / FILENAME, result.epoch_csd, ch_names=result.ch_names,
+                     band_names=cfg.bands.names, band_edges=cfg.bands.edges,
+                     epoch_s=cfg.epoch_s, sfreq=float(result.recording.sfreq),
+                     fingerprint=result.fingerprint, onsets_s=result.epoch_onsets_s)
 
 
 def write_analysis(result, out: str | Path, *, figures: bool = True, report: bool = True,
@@ -96,7 +105,8 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
                         exports: bool = True, command=None) -> dict:
     """Write the analysis into an existing (temporary) folder; nothing is computed here.
 
-    Always: ``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json``, ``leakage_brodmann.tsv``
+    Always: ``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json``, ``epochs.npz``
+    (per-epoch band cross-spectra, see :mod:`sourcelab.epochfile`), ``leakage_brodmann.tsv``
     and, with norms, ``candidates.tsv`` and ``leakage_hints.tsv``.  Optional: ``figures/*.png``,
     ``report.html``, ``maps/`` (MNE SourceEstimate, GIfTI per hemisphere, NIfTI in MNI space).
 

@@ -163,7 +163,10 @@ class AnalysisResult:
     leakage_hints : DataFrame | None
         For each deviating area, the areas leaking most into it.
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch) | None
-        Per-epoch band cross-spectra (µV², as recorded), kept for resampling and reliability.
+        Per-epoch band cross-spectra (µV², as recorded; the kernel applies the average
+        reference), kept for resampling (confidence intervals) and reliability.
+    epoch_onsets_s : ndarray, shape (n_epochs,) | None
+        Onset of each clean epoch from the start of the recording, s.
     """
 
     config: AnalysisConfig
@@ -184,6 +187,7 @@ class AnalysisResult:
     candidates: object | None = None
     leakage_hints: object | None = None
     epoch_csd: np.ndarray | None = None
+    epoch_onsets_s: np.ndarray | None = None
 
     # ------------------------------------------------------------------ access
     @property

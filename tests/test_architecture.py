@@ -19,7 +19,7 @@ PKG = ROOT / "sourcelab"
 LAYERS = {
     "__init__": 0, "constants": 0, "errors": 0, "checks": 0, "data": 0, "progress": 0,
     "cautions": 0,
-    "config": 1, "provenance": 1,
+    "config": 1, "provenance": 1, "epochfile": 1,
     "intake": 2,
     "spectra": 3,
     "headmodel": 4,

@@ -81,7 +81,8 @@ def test_sine_in_band_gives_half_amplitude_squared():
     # Known answer: a sinusoid of amplitude A has power A²/2 (common practice); at the band
     # centre the Butterworth band-pass has gain 1 (its design), so the replay must return A²/2.
     t = np.arange(int(30 * SF)) / SF
-    x = np.zeros((19, t.size))
+    # the other 18 channels carry invented noise: all-zero channels would be flat (unclean)
+    x = 2.0 * np.random.default_rng(1).standard_normal((19, t.size))
     x[4] = 20.0 * np.sin(2 * np.pi * np.sqrt(8 * 12) * t)  # geometric band centre of 8-12 Hz
     m = np.zeros((19, 19))
     m[4, 4] = 1.0  # a "spatial filter" that reads Fz alone

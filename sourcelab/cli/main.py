@@ -19,10 +19,11 @@ COMMANDS = {
     "targets": "sourcelab.cli.targets",
     "leakage": "sourcelab.cli.leakage",
     "batch": "sourcelab.cli.batch",
+    "compare": "sourcelab.cli.compare",
 }
 
 #: ``sourcelab targets RESULT_DIR`` is short for ``sourcelab targets list RESULT_DIR``
-_TARGET_ACTIONS = ("list", "export", "replay")
+_TARGET_ACTIONS = ("list", "export", "replay", "stream")
 
 
 def _get_parser() -> argparse.ArgumentParser:

@@ -4,6 +4,8 @@
 * ``targets export RESULT_DIR --roi NAME [--hemisphere H] [--atlas A] --band BAND
   [--measure M] [--norms FILE] --out TARGET.json``
 * ``targets replay TARGET.json RECORDING --out DIR``
+* ``targets stream TARGET.json [--name NAME | --type TYPE | --source-id ID] [--duration S]
+  [--updates N] [--log FILE.tsv]``: live feedback over Lab Streaming Layer
 
 The list is a statistical summary; choosing a training target rests with a licensed practitioner.
 """
@@ -42,6 +44,14 @@ def add_parser(sub) -> None:
                     help="use the nearest age range when the age lies outside the norms")
     ex.add_argument("--filter-order", type=int, default=4,
                     help="Butterworth order per band edge (higher: less leakage, more delay)")
+    ex.add_argument("--smoothing", choices=("exponential", "moving", "none"),
+                    default="exponential", help="smoothing of the live value (default exponential)")
+    ex.add_argument("--time-constant", type=float, default=2.0, metavar="S",
+                    help="smoothing time constant in seconds (default 2)")
+    ex.add_argument("--threshold-sd", type=float, default=None, metavar="K",
+                    help="feedback threshold: K smoothed-SDs from the person's own level towards "
+                         "the norm (no threshold by default; the choice rests with the "
+                         "practitioner)")
     ex.add_argument("--out", required=True, help="TARGET.json")
     ex.set_defaults(func=run)
 
@@ -50,6 +60,27 @@ def add_parser(sub) -> None:
     rp.add_argument("recording", help="EEG file (EDF, BDF, BrainVision, EEGLAB, FIF)")
     rp.add_argument("--out", required=True, help="output folder")
     rp.set_defaults(func=run)
+
+    st = tsub.add_parser("stream", help="apply a target live to an LSL EEG stream and publish "
+                                        "the feedback value as an LSL stream")
+    st.add_argument("target", help="TARGET.json")
+    st.add_argument("--name", default=None, help="input LSL stream name")
+    st.add_argument("--type", default=None, dest="stype",
+                    help="input LSL stream type (default EEG when no name or source id is given)")
+    st.add_argument("--source-id", default=None, help="input LSL stream source id")
+    st.add_argument("--out-name", default=None,
+                    help="name of the published stream (default sourcelab-feedback)")
+    st.add_argument("--unit", choices=("auto", "uV", "V"), default="auto",
+                    help="input unit (default: the stream's declared channel units)")
+    st.add_argument("--duration", type=float, default=None, metavar="S",
+                    help="stop after S seconds")
+    st.add_argument("--updates", type=int, default=None, metavar="N",
+                    help="stop after N published values")
+    st.add_argument("--timeout", type=float, default=5.0, metavar="S",
+                    help="seconds allowed to find the input stream (default 5)")
+    st.add_argument("--log", default=None, metavar="FILE.tsv",
+                    help="also write every published value (and its latency) as TSV")
+    st.set_defaults(func=run)
 
 
 def _list(args) -> int:
@@ -82,13 +113,42 @@ def _export(args) -> int:
     t = export_target(args.result_dir, roi=args.roi, band=args.band, atlas=args.atlas,
                       hemisphere=args.hemisphere, measure=args.measure, norms=args.norms,
                       allow_extrapolation=args.allow_extrapolation,
-                      filter_order=args.filter_order)
+                      filter_order=args.filter_order, smoothing=args.smoothing,
+                      time_constant_s=args.time_constant, threshold_sd=args.threshold_sd)
     write_target(t, args.out)
     z = t.offline.get("z")
     zs = f", offline z {z:+.2f}" if z is not None else ", no norm"
     print(f"sourcelab: wrote {args.out} ({t.name}, {t.vertices.size} sources{zs}, "
           f"direction {t.direction})")
+    for line in live_summary(t):
+        print(f"sourcelab: {line}")
     return 0
+
+
+def live_summary(t) -> list[str]:
+    """Lines describing the expected live fluctuation, smoothing and threshold of a target."""
+    live = t.live or {}
+    sm = live.get("smoothing") or {}
+    unit = "log10 units" if live.get("transform", "log10") == "log10" else "logit units"
+    out = []
+    exp = live.get("expected_sd")
+    if exp is None:
+        out.append("expected live SD not available (the analysis folder has no epochs.npz)")
+    else:
+        w, s = exp["window"], exp["smoothed"]
+        wz = f" = {w['z']:.2f} z" if w.get("z") is not None else ""
+        sz = f" = {s['z']:.2f} z" if s.get("z") is not None else ""
+        out.append(f"expected live SD at the person's steady state: {w['transformed']:.3f} "
+                   f"{unit}{wz} per {t.window_s:g}-s window; {s['transformed']:.3f}{sz} after "
+                   f"{sm.get('kind', 'exponential')} smoothing (time constant "
+                   f"{float(sm.get('time_constant_s', 2.0)):g} s)")
+    th = live.get("threshold")
+    if th is not None:
+        zt = f", z {th['z']:+.2f}" if th.get("z") is not None else ""
+        out.append(f"threshold: smoothed value {th['direction']} to {th['level']:.3f} {unit} "
+                   f"({th['k_sd']:g} smoothed SD from the person's level{zt})")
+    out.append("live values are noisy; the threshold and the decision rest with the practitioner")
+    return out
 
 
 def _replay(args) -> int:
@@ -103,8 +163,46 @@ def _replay(args) -> int:
     return 0
 
 
+def _stream(args) -> int:
+    import sys
+
+    from ..targets import read_target
+
+    try:
+        from ..targets.stream import run_stream
+        import mne_lsl  # noqa: F401
+    except ImportError:
+        raise InputError("live streaming needs mne-lsl: pip install 'sourcelab[live]'") from None
+    target = read_target(args.target)
+    if args.log is not None and Path(args.log).suffix.lower() not in (".tsv", ".txt"):
+        raise InputError("--log must end in .tsv", path=args.log)
+    for v, flag in ((args.duration, "--duration"), (args.updates, "--updates")):
+        if v is not None and not v > 0:
+            raise InputError(f"{flag} must be > 0, got {v}")
+    print(SHORT)
+    for line in live_summary(target):
+        print(f"sourcelab: {line}")
+
+    def say(msg):
+        print(f"sourcelab: {msg}", file=sys.stderr, flush=True)
+
+    try:
+        s = run_stream(target, name=args.name, stype=args.stype, source_id=args.source_id,
+                       out_name=args.out_name, duration_s=args.duration,
+                       max_updates=args.updates, unit=args.unit, timeout_s=args.timeout,
+                       log_path=args.log, say=say)
+    except KeyboardInterrupt:
+        print("sourcelab: stopped")
+        return 0
+    flags = ", ".join(f"{k} {v}" for k, v in sorted(s["by_status"].items()))
+    print(f"sourcelab: published {s['rows']} values on {s['output']!r} ({flags}); latency "
+          f"sample arrival to publication median {s['latency_ms_median']:.2f} ms, 95th "
+          f"percentile {s['latency_ms_p95']:.2f} ms")
+    return 0
+
+
 #: action -> handler
-_ACTIONS = {"list": _list, "export": _export, "replay": _replay}
+_ACTIONS = {"list": _list, "export": _export, "replay": _replay, "stream": _stream}
 
 
 def run(args) -> int:

@@ -5,6 +5,9 @@ Public API::
     rank_candidates, candidates_from_folder, write_candidates, candidates_html   # candidates
     TargetDefinition, make_target, export_target, read_target, write_target      # definitions
     OnlineTarget, replay_array, replay_recording, expected_ratio                 # replay
+    LiveValue, live_section, expected_live_sd                                    # live values
+
+``sourcelab.targets.stream`` (needs mne-lsl) applies a target to a Lab Streaming Layer stream.
 
 A candidate is a statistical deviation, not a recommendation: the choice of any training target
 rests with a licensed practitioner who weighs symptoms and history.  ``SCHEMA.md`` documents the
@@ -16,12 +19,14 @@ from .candidates import (CANDIDATE_COLUMNS, candidates_for_table, candidates_fro
                          rank_candidates, read_result_folder, write_candidates)
 from .definition import (SCHEMA, TargetDefinition, export_target, make_target, norm_at_age,
                          read_target, target_from_dict, write_target)
+from .live import LiveValue, expected_live_sd, live_section
 from .replay import (OnlineTarget, ReplayResult, expected_ratio, plot_replay, replay_array,
                      replay_recording, welch_band_response)
 
 __all__ = [
-    "CANDIDATE_COLUMNS", "SCHEMA", "OnlineTarget", "ReplayResult", "TargetDefinition",
-    "candidates_for_table", "candidates_from_folder", "candidates_html", "expected_ratio", "export_target",
+    "CANDIDATE_COLUMNS", "SCHEMA", "LiveValue", "OnlineTarget", "ReplayResult", "TargetDefinition",
+    "candidates_for_table", "candidates_from_folder", "candidates_html", "expected_live_sd",
+    "expected_ratio", "export_target", "live_section",
     "make_target", "norm_at_age", "plot_replay", "rank_candidates", "read_result_folder",
     "read_target", "replay_array", "replay_recording", "target_from_dict",
     "welch_band_response", "write_candidates", "write_target",

@@ -46,6 +46,7 @@ from ..constants import SITES_1020
 from ..errors import InputError
 from ..inverse import roi_rows
 from ..provenance import Fingerprint, atomic_write_text
+from .live import TIME_CONSTANT_S, check_live, live_section
 
 log = logging.getLogger("sourcelab")
 
@@ -140,6 +141,9 @@ class TargetDefinition:
     reject_uv : float
         Peak-to-peak threshold marking a window unclean, µV.
     created_utc : str
+    live : dict | None
+        Expected live fluctuation, smoothing and threshold (:func:`sourcelab.targets.live.
+        live_section`); None in files written before it existed.
     """
 
     name: str
@@ -166,6 +170,7 @@ class TargetDefinition:
     small: bool = False
     created_utc: str = ""
     filter_order: int = FILTER_ORDER
+    live: dict | None = None
 
     @property
     def band_edges(self) -> tuple[float, float]:
@@ -215,6 +220,7 @@ class TargetDefinition:
             "offline": self.offline,
             "direction": self.direction,
             "fingerprint": self.fingerprint.to_dict(),
+            **({"live": self.live} if self.live is not None else {}),
             "cautions": list(CAUTIONS),
         }
 
@@ -322,7 +328,7 @@ def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = No
             step_s=float(power["step_s"]), norm=d.get("norm"), offline=dict(d.get("offline", {})),
             direction=str(d.get("direction", "none")), reject_uv=float(power["reject_uv"]),
             small=bool(roi.get("small", False)), created_utc=str(d.get("created_utc", "")),
-            filter_order=int(flt["prototype_order"]))
+            filter_order=int(flt["prototype_order"]), live=check_live(d.get("live"), path))
     except InputError:
         raise
     except (KeyError, TypeError, ValueError, AttributeError, IndexError) as exc:
@@ -373,7 +379,7 @@ class _KernelView:
 
 
 def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisphere: str,
-                sources: np.ndarray, vertices: np.ndarray, band: str, bands, measure: str, fingerprint: Fingerprint,
+                vertices: np.ndarray, band: str, sources: np.ndarray | None = None, bands, measure: str, fingerprint: Fingerprint,
                 sfreq: float, norm: dict | None = None, offline: dict | None = None,
                 z: float | None = None, reject_uv: float = 150.0, small: bool = False,
                 window_s: float = WINDOW_S, step_s: float = STEP_S,
@@ -383,10 +389,11 @@ def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisp
     Parameters
     ----------
     kernel : ndarray, shape (n_src * n_comp, 19)
-    sources : ndarray of int
-        The ROI's source indices (rows of ``kernel``).
     vertices : ndarray of int
-        The same sources as fsaverage5 surface vertices (stored in the file: portable).
+        The ROI's sources as fsaverage5 surface vertices (stored in the file: portable).
+    sources : ndarray of int, optional
+        The same sources as rows of ``kernel`` (source indices); default ``vertices`` (for a
+        kernel whose rows are the surface vertices themselves).
     bands : sequence of (name, lo, hi)
     z : float, optional
         The offline z; its sign sets ``direction`` (train towards the norm).
@@ -399,6 +406,7 @@ def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisp
     names = [b[0] for b in bands]
     if band not in names:
         raise InputError(f"band: {band!r} is not one of {names}")
+    sources = np.asarray(vertices if sources is None else sources, dtype=np.int64)
     rows = roi_rows(_KernelView(kernel, n_comp), sources)
     m = rows.T @ rows / len(sources)
     need = names if measure == "relative" else [band]
@@ -453,7 +461,9 @@ def norm_at_age(norms, *, atlas: str, roi: str, hemisphere: str, band: str, meas
 def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "brodmann",
                   hemisphere: str | None = None, measure: str = "absolute", norms=None,
                   allow_extrapolation: bool = False,
-                  filter_order: int = FILTER_ORDER) -> TargetDefinition:
+                  filter_order: int = FILTER_ORDER, smoothing: str = "exponential",
+                  time_constant_s: float = TIME_CONSTANT_S,
+                  threshold_sd: float | None = None) -> TargetDefinition:
     """Build the target of one ROI from an analysis folder.
 
     Parameters
@@ -471,6 +481,16 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     filter_order : int
         Butterworth prototype order per edge (default 4: ~200 ms group delay in alpha).  Higher
         orders leak less power from a strong neighbouring peak (see SCHEMA.md) at more latency.
+    smoothing : {"exponential", "moving", "none"}
+        How the live value is smoothed (:class:`sourcelab.targets.live.Smoother`).
+    time_constant_s : float
+        The smoother's time constant, s (default 2).
+    threshold_sd : float, optional
+        Feedback threshold, in smoothed-SD units from the person's own level towards the norm.
+
+    The target's ``live`` section holds the expected window-to-window SD of the live value under
+    the person's steady state, computed from the folder's ``epochs.npz`` (None for folders
+    written before it existed).
 
     Returns
     -------
@@ -542,13 +562,29 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
                            allow_extrapolation=allow_extrapolation)
     offline = {"value": float(row["value"]), "z": z, "result_dir": str(res.path),
                "recording_sha256": rec.get("sha256")}
-    return make_target(kernel=op.kernel, n_comp=op.n_comp, atlas=atlas, roi=roi,
-                       hemisphere=hemisphere, sources=r.vertices,
-                       vertices=load_head_model().vertno[r.vertices], band=band, bands=fp.bands,
-                       measure=measure, fingerprint=fp, sfreq=float(rec.get("sfreq") or 256.0),
-                       norm=norm, offline=offline, z=z,
-                       reject_uv=float(params.get("reject_uv", 150.0)), small=bool(r.small),
-                       filter_order=filter_order)
+    target = make_target(kernel=op.kernel, n_comp=op.n_comp, atlas=atlas, roi=roi,
+                         hemisphere=hemisphere, sources=r.vertices,
+                         vertices=load_head_model().vertno[r.vertices], band=band,
+                         bands=fp.bands,
+                         measure=measure, fingerprint=fp, sfreq=float(rec.get("sfreq") or 256.0),
+                         norm=norm, offline=offline, z=z,
+                         reject_uv=float(params.get("reject_uv", 150.0)), small=bool(r.small),
+                         filter_order=filter_order)
+    from ..epochfile import FILENAME, read_epochs
+
+    epochs = None
+    if (res.path / FILENAME).is_file():
+        epochs = read_epochs(res.path / FILENAME)
+        if epochs.fingerprint.differences(fp):
+            raise InputError("epochs.npz was made by a different pipeline than the tables",
+                             path=res.path / FILENAME)
+    else:
+        log.warning("%s has no %s: the expected live SD is not available", res.path, FILENAME)
+    live = live_section(target, epochs, smoothing=smoothing, time_constant_s=time_constant_s,
+                        threshold_sd=threshold_sd)
+    import dataclasses
+
+    return dataclasses.replace(target, live=live)
 
 
 def _finite(v) -> bool:

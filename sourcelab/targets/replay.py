@@ -38,7 +38,8 @@ log = logging.getLogger("sourcelab")
 #: Windows ending before this time (s) after the start are marked warm-up (IIR transient: an
 #: 8th-order Butterworth band-pass 1 Hz wide settles to <1 % within ~1.5 s; 2 s is conservative).
 WARMUP_S = 2.0
-#: Windows with a channel's band-limited (0.5-45 Hz, causal) peak-to-peak below this are flat (µV).
+#: Windows with a channel's band-limited (0.5-45 Hz, causal, in the recorded reference)
+#: peak-to-peak below this are flat (µV).
 FLAT_UV = 0.5
 
 
@@ -70,7 +71,8 @@ class OnlineTarget:
     Notes
     -----
     Call :meth:`push` with chunks of shape (19, n) in µV, channels in ``target.channels`` order.
-    Each completed step returns one ``(t_end_s, power, z, clean)`` row.  Per step the cost is the
+    Each completed step returns one ``(t_end_s, power, z, clean)`` row; ``power`` and ``z`` are
+    NaN when the window is not clean (warm-up, artefact or flat channel).  Per step the cost is the
     IIR filtering of ``step`` samples plus one 19 x 19 outer-product block and ``tr(M C)``
     (absolute) or ``n_rows x 19 x 19`` per band (relative).
     """
@@ -95,8 +97,12 @@ class OnlineTarget:
         self._hp_zi = None
         n_ch = len(target.channels)
         self._blocks = np.zeros((self.n_blocks, len(self.bands), n_ch, n_ch))
-        self._ptp = np.zeros((self.n_blocks, 2, n_ch))  # (max, min) per block
+        # (max, min) per block of the average-referenced artefact signal, then of the signal in
+        # its recorded reference (a disconnected channel is flat there, not after referencing)
+        self._ptp = np.zeros((self.n_blocks, 4, n_ch))
         self._n_done = 0
+        #: per-channel peak-to-peak (µV, 0.5-45 Hz, recorded reference) of the last full window
+        self.last_ptp = np.full(n_ch, np.nan)
         self._pending = np.zeros((n_ch, 0))
         self._m = target.matrix
         self._rows = target.kernel_rows
@@ -143,28 +149,34 @@ class OnlineTarget:
             y, self._zi[b] = self._filter(self.sos[b], self._zi_unit[b], self._zi[b], x)
             ys.append(y)
         h, self._hp_zi = self._filter(self._hp, self._hp_zi_unit, self._hp_zi, x)
-        h = h - h.mean(axis=0, keepdims=True)  # average reference for the artefact check
+        h_ref = h - h.mean(axis=0, keepdims=True)  # average reference for the artefact check
         out = []
         for j in range(n_full):
             sl = slice(j * self.step, (j + 1) * self.step)
-            out.append(self._step([y[:, sl] for y in ys], h[:, sl]))
+            out.append(self._step([y[:, sl] for y in ys], h_ref[:, sl], h[:, sl]))
         return out
 
-    def _step(self, ys, h) -> tuple[float, float, float, bool]:
+    def _step(self, ys, h, h_own) -> tuple[float, float, float, bool]:
         slot = self._n_done % self.n_blocks
         for b_i, y in enumerate(ys):
             self._blocks[slot, b_i] = y @ y.T
         self._ptp[slot, 0] = h.max(axis=1)
         self._ptp[slot, 1] = h.min(axis=1)
+        self._ptp[slot, 2] = h_own.max(axis=1)
+        self._ptp[slot, 3] = h_own.min(axis=1)
         self._n_done += 1
         t_end = self._n_done * self.step / self.sfreq
         if self._n_done < self.n_blocks:
             return (t_end, np.nan, np.nan, False)
+        ptp = self._ptp[:, 0].max(axis=0) - self._ptp[:, 1].min(axis=0)
+        own = self._ptp[:, 2].max(axis=0) - self._ptp[:, 3].min(axis=0)
+        self.last_ptp = own
+        clean = bool(t_end >= WARMUP_S and ptp.max() <= self.target.reject_uv
+                     and own.min() >= FLAT_UV)
+        if not clean:  # an unclean window (warm-up, artefact, flat channel) carries no value
+            return (t_end, np.nan, np.nan, False)
         cov = self._blocks.sum(axis=0) / (self.n_blocks * self.step)
         power = self._power(cov)
-        ptp = self._ptp[:, 0].max(axis=0) - self._ptp[:, 1].min(axis=0)
-        clean = bool(t_end >= WARMUP_S and ptp.max() <= self.target.reject_uv
-                     and ptp.min() >= FLAT_UV)
         z = self._z(power)
         return (t_end, power, z, clean)
 
@@ -194,13 +206,24 @@ class ReplayResult:
     z : ndarray, shape (n_win,)
         Against the target's norm (NaN without one).
     clean : ndarray of bool, shape (n_win,)
-        Past the warm-up, no peak-to-peak above ``reject_uv``, no flat channel.
+        Past the warm-up, no peak-to-peak above ``reject_uv``, no flat channel.  Unclean windows
+        carry no value: their power and z are NaN.
+    smoothed : ndarray, shape (n_win,) | None
+        Smoothed transformed value (log10 or logit) over clean windows
+        (:class:`sourcelab.targets.live.LiveValue`); NaN on unclean windows.
+    smoothed_z : ndarray, shape (n_win,) | None
+        The smoothed value as z against the target's norm.
+    threshold_met : ndarray, shape (n_win,) | None
+        1/0 when the target's ``live`` section sets a threshold, NaN otherwise.
     """
 
     time_s: np.ndarray
     power: np.ndarray
     z: np.ndarray
     clean: np.ndarray
+    smoothed: np.ndarray | None = None
+    smoothed_z: np.ndarray | None = None
+    threshold_met: np.ndarray | None = None
 
     def clean_mean(self) -> float:
         """Mean power over clean windows (NaN if none)."""
@@ -209,8 +232,11 @@ class ReplayResult:
     def to_frame(self):
         import pandas as pd
 
-        return pd.DataFrame({"time_s": self.time_s, "power": self.power, "z": self.z,
-                             "clean": self.clean})
+        cols = {"time_s": self.time_s, "power": self.power, "z": self.z, "clean": self.clean}
+        for name in ("smoothed", "smoothed_z", "threshold_met"):
+            if getattr(self, name) is not None:
+                cols[name] = getattr(self, name)
+        return pd.DataFrame(cols)
 
 
 def replay_array(data_uv: np.ndarray, sfreq: float, target: TargetDefinition, *,
@@ -238,8 +264,13 @@ def replay_array(data_uv: np.ndarray, sfreq: float, target: TargetDefinition, *,
         rows += tracker.push(data_uv[:, start:start + n])
     if not rows:
         raise InputError(f"recording shorter than one {target.step_s:g}-s step")
+    from .live import LiveValue
+
+    lv = LiveValue(target)
+    extra = np.array([lv.update(r[1], r[3]) for r in rows]).reshape(-1, 3)
     t, p, z, c = (np.array(v) for v in zip(*rows))
-    return ReplayResult(time_s=t, power=p, z=z, clean=c.astype(bool))
+    return ReplayResult(time_s=t, power=p, z=z, clean=c.astype(bool), smoothed=extra[:, 0],
+                        smoothed_z=extra[:, 1], threshold_met=extra[:, 2])
 
 
 def welch_band_response(freqs: np.ndarray, lo: float, hi: float, *, sfreq: float,
@@ -358,7 +389,7 @@ def replay_recording(target: TargetDefinition, recording, out: str | Path) -> di
     summary = {
         "target": target.name, "recording": str(rec.path) if rec.path else None,
         "recording_sha256": rec.sha256, "sfreq": float(rec.sfreq),
-        "n_windows": int(np.isfinite(res.power).sum()), "n_clean": int(res.clean.sum()),
+        "n_windows": int((res.time_s >= target.window_s - 0.5 / rec.sfreq).sum()), "n_clean": int(res.clean.sum()),
         "clean_mean_power": mean,
         "clean_mean_z": float(_zscore(np.array([mean]), target.norm)[0]),
         "offline_value": off,
