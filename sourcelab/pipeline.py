@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .config import AnalysisConfig
+from .config import AnalysisConfig, check_sampling_rate
 from .errors import InputError
 from .provenance import Fingerprint
 from .result import ROI_COLUMNS, SENSOR_COLUMNS, UNITS, AnalysisResult
@@ -119,6 +119,7 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     t0 = time.perf_counter()
     config = config or AnalysisConfig()
     rec = recording if isinstance(recording, Recording) else read_recording(recording)
+    check_sampling_rate(config, rec.sfreq, where=rec.path)
     clean = clean_recording(rec, config, select=select, muscle_uv=config.muscle_uv,
                             blink_uv=config.blink_uv)
     model = load_head_model()
