@@ -509,9 +509,8 @@ def build_norms_from_cohort(cohort_dir: str | Path, participants_tsv: str | Path
     from ..provenance import atomic_write_text
     atomic_write_text(report_path, report.to_csv(sep="\t", index=False, na_rep="n/a"))
     fig = plot_calibration(fit)
-    tmp = figure_path.with_name("." + figure_path.name + ".tmp.png")
-    fig.savefig(tmp, dpi=120)
-    tmp.replace(figure_path)
+    from ..provenance import save_png
+    save_png(fig, figure_path, dpi=120)
     import matplotlib.pyplot as plt
     plt.close(fig)
     return CohortBuild(norms=norms, fit=fit, report=report, report_path=report_path,
