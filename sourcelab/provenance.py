@@ -978,6 +978,33 @@ def recognise_output_file(path: str | Path, kind: str) -> bool:
     return first.startswith("kind\tatlas\tname\themisphere\tband\tmeasure\tage_min\tage_max")
 
 
+_OTHER_OWN_FILES = (
+    ("report", re.compile(r"<title>sourcelab ")),
+    ("status", re.compile(r"^" + re.escape(_BATCH_STATUS_HEADER) + r"$", re.M)),
+    ("bids_description", re.compile(r'"GeneratedBy"\s*:\s*\[\s*\{\s*"Name"\s*:\s*"sourcelab"')),
+    ("headmodel_sidecar", re.compile(r'^\{\s*"bytes"\s*:\s*\d+,\s*"file"\s*:\s*"[^"/]+\.npz"')),
+    ("output_marker", re.compile(r'"(?:' + MARKER_KEY + r'|sourcelab_provenance)"\s*:')),
+)
+
+
+def recognise_any_output_file(path: str | Path) -> bool:
+    """Was this existing regular file written by sourcelab (any kind it writes on its own)?"""
+    try:
+        st = os.lstat(path)
+    except OSError:
+        return False
+    if not stat.S_ISREG(st.st_mode):
+        return False
+    if any(recognise_output_file(path, k) for k in _FILE_KINDS):
+        return True
+    try:
+        with open(path, "rb") as f:
+            head = f.read(65536).decode("utf-8", "replace")
+    except OSError:
+        return False
+    return any(rx.search(head) for _, rx in _OTHER_OWN_FILES)
+
+
 def check_output_file(path, *, kind: str, name: str = "--out", suffixes=None,
                       inputs=()) -> Path:
     """Pre-flight check of an output file, before any computation.
@@ -1030,9 +1057,15 @@ def check_output_file(path, *, kind: str, name: str = "--out", suffixes=None,
 def atomic_write_bytes(path: str | Path, data: bytes) -> None:
     """Write a file through a temporary name in the same folder, then rename.
 
-    Missing parent folders are created (and removed again if the write fails).
+    Missing parent folders are created (and removed again if the write fails).  An existing
+    ``path`` is replaced only when sourcelab wrote it (:func:`recognise_any_output_file`); a
+    symbolic link, a folder or another program's file raises :class:`InputError` and is left
+    untouched.
     """
     path = Path(path)
+    if os.path.lexists(path) and not recognise_any_output_file(path):
+        raise InputError("exists and was not written by sourcelab; it is not overwritten",
+                         path=path)
     parent = path.parent if str(path.parent) else Path(".")
     made = _created_parents(parent)
     try:

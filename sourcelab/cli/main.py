@@ -227,7 +227,10 @@ def _check_bids_root(args, inputs) -> None:
         raise InputError("--bids-root: is a file, not a folder", path=root)
     if not args.participant_id:
         raise InputError("--bids-root needs --participant-id")
-    label = bids_label(args.participant_id)
+    try:
+        label = bids_label(args.participant_id)
+    except InputError as exc:
+        raise InputError(f"--participant-id: {exc.problem}") from None
     deriv = root / "derivatives" / "sourcelab"
     for p in (root / "derivatives", deriv):
         if p.exists() and not p.is_dir():
@@ -295,7 +298,7 @@ def preflight(args) -> None:
         check_output_file(args.out, kind="png", suffixes=(".png",))
     elif cmd == "norms":
         if args.norms_cmd == "check":
-            check_path("norms", args.norms, kind="file", max_bytes=_MAX_BYTES["--norms"])
+            check_path("norms file", args.norms, kind="file", max_bytes=_MAX_BYTES["--norms"])
         else:
             cohort = check_path("cohort", args.cohort, kind="dir")
             inputs.append(cohort)

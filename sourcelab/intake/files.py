@@ -378,7 +378,7 @@ def read_file(source) -> tuple[mne.io.BaseRaw, Path, str, tuple[str, ...], tuple
     if not path.is_file():
         raise InputError(f"not a regular file, not a {fmt} recording", path=path)
     if path.stat().st_size == 0:
-        raise InputError(f"empty file, not a {fmt} recording", path=path)
+        raise InputError(f"empty file (0 bytes), not a {fmt} recording", path=path)
     if fmt in ("EDF", "BDF"):
         check_edf_header(path)
     elif fmt == "BrainVision":

@@ -385,13 +385,15 @@ def _check_values(target: TargetDefinition, d: dict, band: dict, path) -> None:
     if not np.isclose(num("band.low_hz", band.get("low_hz", lo)), lo) or not np.isclose(
             num("band.high_hz", band.get("high_hz", hi)), hi):
         raise InputError("band edges differ from the 'bands' list", path=path)
-    num("filter.sfreq", target.sfreq, low=1.0, high=1e6)
-    num("filter.prototype_order", target.filter_order, kind=int, low=1, high=12)
-    check_option("spatial_filter.n_comp", target.n_comp, (1, 3), where=path)
-    num("power.reject_uv", target.reject_uv, low=0.0, low_open=True)  # huge: no rejection
-    window = num("power.window_s", target.window_s, low=WINDOW_S_RANGE[0],
+    flt, power, sf = d["filter"], d["power"], d["spatial_filter"]  # raw values: no bool
+    num("filter.sfreq", flt["sfreq"], low=1.0, high=1e6)
+    num("filter.prototype_order", flt["prototype_order"], kind=int, low=1, high=12)
+    check_option("spatial_filter.n_comp", num("spatial_filter.n_comp", sf["n_comp"], kind=int),
+                 (1, 3), where=path)
+    num("power.reject_uv", power["reject_uv"], low=0.0, low_open=True)  # huge: no rejection
+    window = num("power.window_s", power["window_s"], low=WINDOW_S_RANGE[0],
                  high=WINDOW_S_RANGE[1])
-    step = num("power.step_s", target.step_s, low=STEP_S_MIN, high=window)
+    step = num("power.step_s", power["step_s"], low=STEP_S_MIN, high=window)
     if window / step > MAX_BLOCKS:
         raise InputError(f"power.step_s: window_s / step_s must be at most {MAX_BLOCKS}, got "
                          f"{window:g} / {step:g}", path=path, field="power.step_s")
