@@ -144,9 +144,9 @@ HIDDEN_MARKER_NAME = ".sourcelab-output.json"
 TMP_MARKER_NAME = ".sourcelab-tmp.json"
 #: Output kinds -> family; a folder is replaced only by an output of the same family.
 KINDS = {"analysis": "analysis", "demo": "analysis", "replay": "replay", "batch": "batch",
-         "bids": "bids"}
+         "bids": "bids", "compare": "compare"}
 _FAMILY_TEXT = {"analysis": "an analysis", "replay": "a target replay", "batch": "a batch",
-                "bids": "a BIDS-derivatives"}
+                "bids": "a BIDS-derivatives", "compare": "a comparison"}
 #: Largest provenance/marker file parsed when recognising a folder.
 _MARKER_MAX_BYTES = 64 * 1024 * 1024
 
@@ -154,7 +154,8 @@ _MARKER_MAX_BYTES = 64 * 1024 * 1024
 # accepted only when every entry is a name those versions wrote.
 _LEGACY_ANALYSIS_FILES = {"roi_table.tsv", "sensor_table.tsv", "provenance.json",
                           "leakage_brodmann.tsv", "leakage_brodmann.png", "candidates.tsv",
-                          "leakage_hints.tsv", "report.html", "demo-01_invented_eeg.edf"}
+                          "leakage_hints.tsv", "report.html", "demo-01_invented_eeg.edf",
+                          "epochs.npz"}
 _LEGACY_ANALYSIS_DIRS = {"figures": (".png",), "maps": (".stc", ".gii", ".nii.gz")}
 _LEGACY_REPLAY_FILES = {"replay.tsv", "replay.png", "replay.json"}
 _BATCH_STATUS_HEADER = "recording\tparticipant\tpath\tstatus\tseconds\tpeak_rss_mb\tmessage"
@@ -405,7 +406,7 @@ def check_output_dir(out, *, kind: str = "analysis", inputs=(), name: str = "--o
     ----------
     out : str | Path
         The folder to write (replaced atomically when it exists).
-    kind : {"analysis", "demo", "replay", "batch", "bids"}
+    kind : {"analysis", "demo", "replay", "batch", "bids", "compare"}
     inputs : iterable of path
         Files the command reads; ``out`` must not be or contain any of them.
     name : str

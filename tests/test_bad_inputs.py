@@ -11,7 +11,6 @@ real stderr, exit codes, SIGKILL during the write phase and concurrent runs on o
 from __future__ import annotations
 
 import hashlib
-import json
 import os
 import re
 import signal
@@ -227,6 +226,34 @@ def test_live_temporary_folder_is_not_cleaned(tmp_path):
         assert tmp.is_dir()
         (tmp / "provenance.json").write_text('{"sourcelab_provenance": 1}')
     assert_complete_output(out)
+
+
+def test_bids_participant_folder_is_marked_and_replaced(tmp_path):
+    sub = tmp_path / "derivatives" / "sourcelab" / "sub-01"
+    for value in ("first", "second"):
+        with provenance.atomic_output_dir(sub, kind="bids") as tmp:
+            (tmp / "eeg").mkdir()
+            (tmp / "eeg" / "sub-01_desc-roi_power.tsv").write_text(value)
+    assert (sub / "eeg" / "sub-01_desc-roi_power.tsv").read_text() == "second"
+    assert (sub / provenance.HIDDEN_MARKER_NAME).is_file()  # BIDS leaves hidden files alone
+    assert not (sub / "provenance.json").exists()
+    assert_complete_output(sub)
+
+
+def test_library_writes_never_overwrite_foreign_files(tmp_path):
+    mine = tmp_path / "norms.tsv"
+    mine.write_text("the user's own table\n")
+    with pytest.raises(InputError, match="not written by sourcelab"):
+        provenance.atomic_write_text(mine, "# sourcelab-norms 1\n")
+    assert mine.read_text() == "the user's own table\n"
+    os.symlink(mine, tmp_path / "link.tsv")
+    with pytest.raises(InputError):
+        provenance.atomic_write_text(tmp_path / "link.tsv", "# sourcelab-norms 1\n")
+    assert (tmp_path / "link.tsv").is_symlink()
+    ours = tmp_path / "n2.tsv"
+    provenance.atomic_write_text(ours, "# sourcelab-norms 1\n")
+    provenance.atomic_write_text(ours, "# sourcelab-norms 1\nagain\n")  # its own: replaced
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["link.tsv", "n2.tsv", "norms.tsv"]
 
 
 def test_batch_folder_is_marked_and_reused(base, tmp_path, monkeypatch, capsys):
