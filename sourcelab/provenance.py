@@ -511,13 +511,18 @@ def _locked_dir(folder: Path):
         os.close(fd)
 
 
-def _write_tmp_marker(folder: Path, name: str) -> int:
-    """Create and lock the temporary-folder marker; returns the descriptor holding the lock."""
+def _write_tmp_marker(folder: Path, name: str, role: str = "build") -> int:
+    """Create and lock the temporary-folder marker; returns the descriptor holding the lock.
+
+    ``role`` is ``"build"`` (a new output being written: removable as a whole) or ``"old"``
+    (a replaced output being removed: only its listed files go).
+    """
     path = folder / TMP_MARKER_NAME
     fd = os.open(path, os.O_RDWR | os.O_CREAT | os.O_EXCL | getattr(os, "O_NOFOLLOW", 0), 0o644)
     if fcntl is not None:
         fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-    doc = {"sourcelab_tmp": 1, "name": name, "pid": os.getpid(), "host": socket.gethostname(),
+    doc = {"sourcelab_tmp": 1, "role": role, "name": name, "pid": os.getpid(),
+           "host": socket.gethostname(),
            "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
            "version": __version__}
     os.write(fd, json.dumps(doc).encode())
@@ -525,8 +530,8 @@ def _write_tmp_marker(folder: Path, name: str) -> int:
 
 
 def _owner_gone(folder: Path) -> bool | None:
-    """For a temporary folder: True when its marker exists and nobody holds its lock; False when
-    a live run holds it; None when there is no valid marker."""
+    """For a temporary folder: ``"build"``/``"old"`` (its role) when its marker exists and nobody
+    holds its lock; False when a live run holds it; None when there is no valid marker."""
     path = folder / TMP_MARKER_NAME
     try:
         fd = os.open(path, os.O_RDWR | getattr(os, "O_NOFOLLOW", 0))
@@ -545,7 +550,7 @@ def _owner_gone(folder: Path) -> bool | None:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except OSError:
             return False
-        return True
+        return "old" if doc.get("role") == "old" else "build"
     except (OSError, ValueError):
         return None
     finally:
@@ -640,19 +645,21 @@ def clean_stale_temporaries(parent: str | Path, name: str | None = None) -> list
         gone = _owner_gone(p)
         if gone is None:
             unmarked.append(p)
-        elif gone:
+        elif gone == "old":  # a replaced output whose removal was interrupted
             info = recognise_output_dir(p)
+            m = re.match(r"^\.(.+)" + _TMP_NAME + r"$", p.name)
+            out = parent / (name or (m.group(1) if m else p.name))
             if info is not None and info.family != "batch":
-                kept = _remove_listed(p, info)
-                if not kept:
-                    with contextlib.suppress(OSError):
-                        os.unlink(p / TMP_MARKER_NAME)
-                        os.rmdir(p)
-            else:
-                shutil.rmtree(p, ignore_errors=True)  # a build folder: sourcelab wrote it all
-            if not os.path.lexists(p):
-                removed.append(p)
-                log.info("removed the temporary folder of an earlier interrupted run: %s", p)
+                _dispose_old(p, out, info, None)
+            elif info is None:  # a replaced empty folder: only the marker inside
+                with contextlib.suppress(OSError):
+                    os.unlink(p / TMP_MARKER_NAME)
+                    os.rmdir(p)
+        elif gone == "build":
+            shutil.rmtree(p, ignore_errors=True)  # a build folder: sourcelab wrote it all
+        if gone and not os.path.lexists(p):
+            removed.append(p)
+            log.info("removed the temporary folder of an earlier interrupted run: %s", p)
     if unmarked:
         with _locked_dir(parent):
             for p in unmarked:
@@ -858,7 +865,7 @@ def _commit(tmp: Path, out: Path, parent: Path, kind: str, inputs):
         # Mark the old folder (under the lock, so no cleaner can see it unmarked) so that a run
         # killed while removing it leaves a folder the next run recognises and removes.
         try:  # nothing after the swap may raise: the caller would remove ``tmp``, now the old
-            fd = _write_tmp_marker(old, out.name)
+            fd = _write_tmp_marker(old, out.name, role="old")
         except OSError:
             fd = None
         return old, info, fd

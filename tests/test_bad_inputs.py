@@ -228,6 +228,28 @@ def test_live_temporary_folder_is_not_cleaned(tmp_path):
     assert_complete_output(out)
 
 
+def test_stale_folders_of_both_roles_are_cleaned(tmp_path, monkeypatch):
+    """A run killed while building (role build: removed whole) and one killed while removing a
+    replaced output (role old: only its listed files go; a user file there is kept, visible)."""
+    monkeypatch.chdir(tmp_path)
+    with provenance.atomic_output_dir("res") as tmp:
+        (tmp / "maps").mkdir()
+        (tmp / "maps" / "absolute_alpha-lh.stc").write_text("x")
+        (tmp / "provenance.json").write_text('{"sourcelab_provenance": 1}')
+    old = tmp_path / ".res.tmp-old00001"
+    os.rename("res", old)
+    (old / "late_user_note.txt").write_text("mine")
+    os.close(provenance._write_tmp_marker(old, "res", role="old"))
+    build = tmp_path / ".res.tmp-bld00001"
+    (build / "maps" / ".sourcelab-export-x").mkdir(parents=True)
+    (build / "maps" / ".sourcelab-export-x" / "part.stc").write_text("partial")
+    os.close(provenance._write_tmp_marker(build, "res"))
+    provenance.clean_stale_temporaries(tmp_path, "res")
+    left = sorted(p.name for p in tmp_path.iterdir())
+    assert len(left) == 1 and left[0].startswith("res.kept-")
+    assert sorted(p.name for p in (tmp_path / left[0]).rglob("*")) == ["late_user_note.txt"]
+
+
 def test_bids_participant_folder_is_marked_and_replaced(tmp_path):
     sub = tmp_path / "derivatives" / "sourcelab" / "sub-01"
     for value in ("first", "second"):
