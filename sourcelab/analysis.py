@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .config import AnalysisConfig
+from .config import AnalysisConfig, check_sampling_rate
 from .constants import UNITS
 from .errors import InputError
 from .provenance import Fingerprint
@@ -145,6 +145,7 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     with Stages(STAGES, desc="analysis", enabled=progress) as stages:
         stages.step("reading")
         rec = recording if isinstance(recording, Recording) else read_recording(recording)
+        check_sampling_rate(config, rec.sfreq, where=rec.path)
         stages.step("cleaning")
         clean = clean_recording(rec, config, select=select, muscle_uv=config.muscle_uv,
                                 blink_uv=config.blink_uv)

@@ -19,7 +19,7 @@ from .batch.inputs import read_participants
 from .constants import RECORDING_SUFFIXES, recording_suffix
 from .errors import InputError
 from .norms import Norms, NormsFit, entry_values, fit_norms, normalise_condition, write_norms
-from .provenance import Fingerprint, atomic_write_text, safe_name
+from .provenance import Fingerprint, atomic_write_text, safe_name, save_png
 
 log = logging.getLogger("sourcelab")
 
@@ -232,9 +232,6 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
     report_path = out.with_name(out.stem + "_calibration.tsv")
     figure_path = out.with_name(out.stem + "_calibration.png")
     atomic_write_text(report_path, report.to_csv(sep="\t", index=False, na_rep="n/a"))
-    fig = plot_calibration(fit)
-    tmp = figure_path.with_name("." + figure_path.name + ".tmp.png")
-    fig.savefig(tmp, dpi=120)
-    tmp.replace(figure_path)
+    save_png(plot_calibration(fit), figure_path, dpi=120)
     return CohortBuild(norms=norms, fit=fit, report=report, report_path=report_path,
                        figure_path=figure_path, failures=tuple(failures))

@@ -436,9 +436,10 @@ def compare_html(table: pd.DataFrame, *, figure_png: bytes | None = None,
             f"<ul class=\"cautions\">{caut}</ul></section>")
 
 
-def write_comparison(table: pd.DataFrame, out, *, targets=None) -> dict:
+def write_comparison(table: pd.DataFrame, out, *, targets=None, inputs=()) -> dict:
     """Write ``compare.tsv``, ``compare.png``, ``compare.html`` (a section) and ``compare.json``
-    into the folder ``out`` (replaced atomically)."""
+    into the folder ``out`` (replaced atomically; ``inputs``: the folders and files read, which
+    ``out`` may not hold)."""
     import json
 
     from .cautions import CAUTIONS
@@ -454,7 +455,7 @@ def write_comparison(table: pd.DataFrame, out, *, targets=None) -> dict:
                "rci_threshold": RCI_THRESHOLD, "fdr_alpha": FDR_ALPHA,
                "sessions": [p["label"] for p in table.attrs["per_session"]],
                "cautions": list(CAUTIONS)}
-    with atomic_output_dir(Path(out)) as tmp:
+    with atomic_output_dir(Path(out), kind="compare", inputs=inputs) as tmp:
         with open(tmp / "compare.tsv", "w", encoding="utf-8") as f:
             for c in CAUTIONS:
                 f.write(f"# {c}\n")

@@ -3,11 +3,22 @@
 from __future__ import annotations
 
 import dataclasses
+import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from .checks import check_number, check_option, check_path, check_text, read_bytes_bounded
 from .errors import InputError
+
+#: Largest configuration file read (a configuration is a few hundred bytes).
+CONFIG_MAX_BYTES = 1024 * 1024
+#: Band names become parts of file names (``maps/absolute_<band>-lh.stc``), so they are plain.
+BAND_NAME = re.compile(r"[A-Za-z][A-Za-z0-9_-]{0,31}")
+#: At most this many bands (each band costs one cross-spectrum per epoch).
+MAX_BANDS = 32
+METHODS = ("sLORETA", "eLORETA", "dSPM")
+ORIENTATIONS = ("fixed", "free")
 
 #: Default frequency bands in Hz, [low, high) (common practice in quantitative EEG).
 DEFAULT_BANDS: tuple[tuple[str, float, float], ...] = (
@@ -28,21 +39,38 @@ class Bands:
     Attributes
     ----------
     names : tuple of str
+        Letters, digits, ``_`` and ``-``, starting with a letter, at most 32 characters (they
+        become parts of output file names).
     edges : tuple of (float, float)
-        Lower (inclusive) and upper (exclusive) edge of each band, Hz.
+        Lower (inclusive) and upper (exclusive) edge of each band, Hz; ``0 <= low < high``.
     """
 
     names: tuple[str, ...] = tuple(b[0] for b in DEFAULT_BANDS)
     edges: tuple[tuple[float, float], ...] = tuple((b[1], b[2]) for b in DEFAULT_BANDS)
 
     def __post_init__(self):
+        if not isinstance(self.names, tuple) or not isinstance(self.edges, tuple):
+            raise InputError("bands: names and edges must be tuples", field="bands")
         if len(self.names) != len(self.edges) or not self.names:
-            raise InputError("bands: need one (low, high) pair per band name")
+            raise InputError("bands: need one (low, high) pair per band name", field="bands")
+        if len(self.names) > MAX_BANDS:
+            raise InputError(f"bands: at most {MAX_BANDS} bands, got {len(self.names)}",
+                             field="bands")
         if len(set(self.names)) != len(self.names):
-            raise InputError(f"bands: duplicate band names in {self.names}")
-        for name, (lo, hi) in zip(self.names, self.edges):
-            if not (0 <= lo < hi):
-                raise InputError(f"band {name!r}: need 0 <= low < high, got ({lo}, {hi})")
+            raise InputError(f"bands: duplicate band names in {self.names}", field="bands")
+        edges = []
+        for name, pair in zip(self.names, self.edges):
+            check_text("bands", name, max_len=32, pattern=BAND_NAME,
+                       allowed_text="a name of letters, digits, _ and - starting with a letter")
+            if not isinstance(pair, (tuple, list)) or len(pair) != 2:
+                raise InputError(f"bands.{name}: needs [low, high] in Hz", field="bands")
+            lo = check_number(f"bands.{name} low edge", pair[0], low=0.0, high=1000.0)
+            hi = check_number(f"bands.{name} high edge", pair[1], low=0.0, high=1000.0)
+            if not lo < hi:
+                raise InputError(f"bands.{name}: need low < high, got [{lo:g}, {hi:g}] Hz",
+                                 field="bands")
+            edges.append((lo, hi))
+        object.__setattr__(self, "edges", tuple(edges))
 
     def __len__(self) -> int:
         return len(self.names)
@@ -53,53 +81,67 @@ class Bands:
     @classmethod
     def from_mapping(cls, mapping: dict) -> "Bands":
         """Build from ``{"alpha": [8, 12], ...}`` (TOML table order is kept)."""
-        try:
-            items = [(str(k), (float(v[0]), float(v[1]))) for k, v in mapping.items()]
-        except (TypeError, ValueError, IndexError) as exc:
-            raise InputError(f"bands: each band needs [low, high] in Hz ({exc})") from None
-        return cls(tuple(k for k, _ in items), tuple(e for _, e in items))
+        if not isinstance(mapping, dict):
+            raise InputError("bands: must be a table of name = [low, high] (Hz), got "
+                             f"{type(mapping).__name__} {mapping!r:.40}", field="bands")
+        names, edges = [], []
+        for k, v in mapping.items():
+            if not isinstance(v, (list, tuple)) or len(v) != 2:
+                raise InputError(f"bands.{k}: needs [low, high] in Hz, got {v!r:.40}",
+                                 field="bands")
+            names.append(str(k))
+            edges.append(tuple(v))
+        return cls(tuple(names), tuple(edges))
 
 
 @dataclass(frozen=True)
 class AnalysisConfig:
     """Every parameter that changes the numbers of an analysis.
 
+    Every field is typed and bounded on construction (:meth:`validate`); a wrong value raises
+    :class:`~sourcelab.errors.InputError` naming the field.
+
     Attributes
     ----------
     bands : Bands
+        Every band must lie inside the band-pass ``[l_freq, h_freq]`` and be at least one Welch
+        bin (``1 / epoch_s`` Hz) wide; below the Nyquist frequency is checked per recording
+        (:func:`check_sampling_rate`).
     method : {"sLORETA", "eLORETA", "dSPM"}
         Inverse method.  sLORETA is computed by sourcelab itself; the others through MNE.
     orientation : {"fixed", "free"}
         Source orientation: surface-normal, or free with Pascual-Marqui's 3x3 standardisation.
     snr : float
-        Amplitude signal-to-noise ratio; the regularisation is ``lambda2 = 1 / snr**2``.
+        Amplitude signal-to-noise ratio, > 0 and <= 1000; ``lambda2 = 1 / snr**2``.
     epoch_s : float
-        Epoch length for cleaning and Welch cross-spectra, seconds.
+        Epoch length for cleaning and Welch cross-spectra, 0.25-60 s.
     reject_uv : float
-        Peak-to-peak amplitude rejection threshold per epoch, microvolts.
+        Peak-to-peak amplitude rejection threshold per epoch, microvolts (> 0).
     flat_uv : float
-        An epoch whose site varies less than this (peak to peak, µV) is rejected as flat.
+        An epoch whose site varies less than this (peak to peak, µV) is rejected as flat
+        (>= 0, below ``reject_uv``; 0 disables).
     muscle_uv : float
-        RMS above this in 25 Hz to ``h_freq`` at any site rejects an epoch as muscle, µV.
+        RMS above this in 25 Hz to ``h_freq`` at any site rejects an epoch as muscle, µV (> 0).
     blink_uv : float
         Deflection of the Fp1/Fp2 mean (low-passed at 3 Hz) above this, and at least twice the
-        O1/O2 deflection, rejects an epoch as an eye blink, µV.
+        O1/O2 deflection, rejects an epoch as an eye blink, µV (> 0).
     min_clean_s : float
-        Minimum clean data; less is refused.
+        Minimum clean data, s; less is refused.  > 0, so that at least one epoch is kept.
     warn_clean_s : float
-        Below this much clean data a warning is issued (common practice: 2 minutes).
+        Below this much clean data a warning is issued (common practice: 2 minutes); >= 0.
     l_freq, h_freq : float
-        Band-pass edges applied before epoching, Hz.
+        Band-pass edges applied before epoching, Hz; ``0 < l_freq < h_freq``.
     notch : float | None
         Mains frequency to notch (50 or 60); None to detect it from the data.
     reliability_threshold : float
-        Split-half reliability below this is flagged (common practice: 0.90).
+        Split-half reliability below this is flagged (common practice: 0.90); in (0, 1].
     n_boot : int
-        Bootstrap resamples over clean epochs for 95 % intervals of every value and z (0: none).
+        Bootstrap resamples over clean epochs for 95 % intervals of every value and z (0: none;
+        else 100-100,000).
     boot_seed : int
-        Seed of the bootstrap (results are reproducible).
+        Seed of the bootstrap (results are reproducible); >= 0.
     ci : float
-        Confidence level of the intervals.
+        Confidence level of the intervals, in (0.5, 1).
     """
 
     bands: Bands = field(default_factory=Bands)
@@ -122,20 +164,8 @@ class AnalysisConfig:
     ci: float = 0.95
 
     def __post_init__(self):
-        if self.method not in ("sLORETA", "eLORETA", "dSPM"):
-            raise InputError(f"method: {self.method!r} is not one of sLORETA, eLORETA, dSPM")
-        if self.orientation not in ("fixed", "free"):
-            raise InputError(f"orientation: {self.orientation!r} is not one of fixed, free")
-        if not self.snr > 0:
-            raise InputError(f"snr: must be > 0, got {self.snr}")
-        if not self.epoch_s > 0:
-            raise InputError(f"epoch_s: must be > 0, got {self.epoch_s}")
-        if self.n_boot < 0 or (0 < self.n_boot < 100):
-            raise InputError(f"n_boot: 0 (no intervals) or at least 100, got {self.n_boot}")
-        if not 0.5 < self.ci < 1:
-            raise InputError(f"ci: must lie between 0.5 and 1, got {self.ci}")
-        if self.notch is not None and self.notch not in (50.0, 60.0):
-            raise InputError(f"notch: must be 50 or 60 Hz, got {self.notch}")
+        for name, value in _validated_fields(self).items():
+            object.__setattr__(self, name, value)
 
     @property
     def lambda2(self) -> float:
@@ -152,30 +182,123 @@ class AnalysisConfig:
         return d
 
 
+#: field -> (kind, low, high, low_open, high_open); bounds are the ranges the pipeline supports:
+#: thresholds positive; epochs long enough for a 4 Hz resolution and short enough to leave
+#: several epochs in a recording; at most 100,000 bootstrap resamples (CPU time grows linearly).
+_NUMBERS = {
+    "snr": (float, 0.0, 1000.0, True, False),
+    "epoch_s": (float, 0.25, 60.0, False, False),
+    "reject_uv": (float, 0.0, None, True, False),
+    "flat_uv": (float, 0.0, None, False, False),
+    "muscle_uv": (float, 0.0, None, True, False),
+    "blink_uv": (float, 0.0, None, True, False),
+    "min_clean_s": (float, 0.0, 86400.0, True, False),
+    "warn_clean_s": (float, 0.0, 86400.0, False, False),
+    "l_freq": (float, 0.0, 1000.0, True, True),
+    "h_freq": (float, 0.0, 1000.0, True, False),
+    "reliability_threshold": (float, 0.0, 1.0, True, False),
+    "n_boot": (int, 0, 100_000, False, False),
+    "boot_seed": (int, 0, 2**63 - 1, False, False),
+    "ci": (float, 0.5, 1.0, True, True),
+}
+
+
+def _validated_fields(cfg: AnalysisConfig) -> dict:
+    """Check every field of ``cfg``; return the canonical values (floats as float, ...)."""
+    bands = cfg.bands
+    if isinstance(bands, dict):
+        bands = Bands.from_mapping(bands)
+    if not isinstance(bands, Bands):
+        raise InputError("bands: must be a table of name = [low, high] (Hz), got "
+                         f"{type(bands).__name__} {bands!r:.40}", field="bands")
+    out = {"bands": bands,
+           "method": check_option("method", cfg.method, METHODS),
+           "orientation": check_option("orientation", cfg.orientation, ORIENTATIONS)}
+    for name, (kind, low, high, low_open, high_open) in _NUMBERS.items():
+        out[name] = check_number(name, getattr(cfg, name), kind=kind, low=low, high=high,
+                                 low_open=low_open, high_open=high_open)
+    notch = cfg.notch
+    if notch is not None:
+        notch = check_number("notch", notch)
+        check_option("notch", notch, (50.0, 60.0))
+    out["notch"] = notch
+    if 0 < out["n_boot"] < 100:
+        raise InputError(f"n_boot: 0 (no intervals) or at least 100, got {out['n_boot']}",
+                         field="n_boot")
+    if not out["l_freq"] < out["h_freq"]:
+        raise InputError(f"l_freq: must be below h_freq, got l_freq {out['l_freq']:g} Hz and "
+                         f"h_freq {out['h_freq']:g} Hz (a high-pass above the low-pass would "
+                         "make a band-stop)", field="l_freq")
+    if not out["flat_uv"] < out["reject_uv"]:
+        raise InputError(f"flat_uv: must be below reject_uv ({out['reject_uv']:g} µV), got "
+                         f"{out['flat_uv']:g}", field="flat_uv")
+    resolution = 1.0 / out["epoch_s"]
+    for name, (lo, hi) in zip(bands.names, bands.edges):
+        if lo < out["l_freq"] or hi > out["h_freq"]:
+            raise InputError(f"bands.{name}: {lo:g}-{hi:g} Hz lies outside the filter pass "
+                             f"band l_freq-h_freq = {out['l_freq']:g}-{out['h_freq']:g} Hz",
+                             field="bands")
+        if hi - lo < resolution:
+            raise InputError(f"bands.{name}: {lo:g}-{hi:g} Hz is narrower than the "
+                             f"{resolution:g}-Hz frequency resolution of {out['epoch_s']:g}-s "
+                             "epochs", field="bands")
+    return out
+
+
+def check_sampling_rate(config: AnalysisConfig, sfreq: float, *, where=None) -> None:
+    """Refuse a configuration whose bands reach the Nyquist frequency of a recording.
+
+    Parameters
+    ----------
+    config : AnalysisConfig
+    sfreq : float
+        Sampling rate of the recording, Hz.
+    where : str | Path | None
+        The recording (named in the message).
+    """
+    nyq = float(sfreq) / 2.0
+    for name, (lo, hi) in zip(config.bands.names, config.bands.edges):
+        if hi > nyq:
+            raise InputError(f"band {name!r} ({lo:g}-{hi:g} Hz) reaches above the Nyquist "
+                             f"frequency {nyq:g} Hz of this {sfreq:g}-Hz recording", path=where)
+    if config.l_freq >= nyq:
+        raise InputError(f"l_freq {config.l_freq:g} Hz is not below the Nyquist frequency "
+                         f"{nyq:g} Hz of this {sfreq:g}-Hz recording", path=where)
+
+
 def load_config(path: str | Path | None = None, **overrides) -> AnalysisConfig:
     """Read an analysis configuration from TOML; keyword overrides (e.g. from the CLI) win.
 
     The file holds top-level keys named like :class:`AnalysisConfig` fields and an optional
     ``[bands]`` table (``alpha = [8, 12]``).  Unknown keys are an error, not silently ignored.
+    Every error names the file and the field (or the command-line option ``--field`` for an
+    override).
     """
     values: dict = {}
     if path is not None:
-        path = Path(path)
+        path = check_path("--config", path, kind="file", max_bytes=CONFIG_MAX_BYTES)
+        data = read_bytes_bounded(path, max_bytes=CONFIG_MAX_BYTES, what="configuration file")
         try:
-            with open(path, "rb") as f:
-                values = tomllib.load(f)
-        except FileNotFoundError:
-            raise InputError("configuration file not found", path=path) from None
-        except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+            values = tomllib.loads(data.decode("utf-8"))
+        except UnicodeDecodeError:
+            raise InputError("configuration file is not UTF-8 text", path=path) from None
+        except tomllib.TOMLDecodeError as exc:
             raise InputError(f"not valid TOML ({exc})", path=path) from None
-    values.update({k: v for k, v in overrides.items() if v is not None})
+        except RecursionError:
+            raise InputError("not valid TOML (nested too deeply)", path=path) from None
+    from_file = set(values)
+    given = {k: v for k, v in overrides.items() if v is not None}
+    values.update(given)
     known = {f.name for f in dataclasses.fields(AnalysisConfig)}
     unknown = sorted(set(values) - known)
     if unknown:
         raise InputError(f"unknown configuration keys {unknown}; known: {sorted(known)}", path=path)
-    if "bands" in values and isinstance(values["bands"], dict):
-        values["bands"] = Bands.from_mapping(values["bands"])
     try:
         return AnalysisConfig(**values)
-    except TypeError as exc:
-        raise InputError(f"bad configuration value ({exc})", path=path) from None
+    except InputError as exc:
+        field_name = (exc.field or "").split(".")[0].split(" ")[0]
+        if field_name in given and field_name not in from_file:
+            raise InputError(f"--{field_name.replace('_', '-')}: "
+                             f"{exc.problem.split(': ', 1)[-1]}") from None
+        raise InputError(exc.problem, path=path if path is not None else exc.path,
+                         field=exc.field) from None

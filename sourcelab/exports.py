@@ -225,7 +225,7 @@ def export_bids_derivatives(result, root, participant_id: str, *, resolution: in
     atomic_write_text(deriv / "dataset_description.json", json.dumps(desc, indent=2) + "\n")
     sub = deriv / f"sub-{label}"
     bands = list(result.bands.names)
-    with atomic_output_dir(sub) as tmp:
+    with atomic_output_dir(sub, kind="bids") as tmp:
         eeg = tmp / "eeg"
         eeg.mkdir()
         base = f"sub-{label}"

@@ -206,8 +206,9 @@ def test_cli_figure_and_report_section(sessions, tmp_path, capsys):
     rc = main(["compare", str(sessions["A"]), str(sessions["B"]), "--out", str(out),
                "--n-boot", "200"])
     assert rc == 0
+    # provenance.json: the marker every sourcelab output folder carries (listing its files)
     assert {p.name for p in out.iterdir()} == {"compare.tsv", "compare.png", "compare.html",
-                                              "compare.json"}
+                                              "compare.json", "provenance.json"}
     back = pd.read_csv(out / "compare.tsv", sep="\t", comment="#")
     assert len(back) == len(t)
     assert "changed" in capsys.readouterr().out

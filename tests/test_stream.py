@@ -238,14 +238,14 @@ def test_dropped_then_restored_input_is_flagged_and_recovers(tmp_path, target_fi
     from sourcelab.targets import read_target
 
     path, _ = target_file
-    fif = _recording(tmp_path / "rec_raw.fif", seconds=12.0, seed=4)
+    fif = _recording(tmp_path / "rec_raw.fif", seconds=16.0, seed=4)
     name = _uid("drop")
     p1 = _player(fif, name)
     p1.start()
     time.sleep(0.3)
-    th, box, msgs = _run_in_thread(read_target(path), name=name, duration_s=8.0,
+    th, box, msgs = _run_in_thread(read_target(path), name=name, duration_s=11.0,
                                    log_path=tmp_path / "s.tsv")
-    time.sleep(3.0)
+    time.sleep(5.0)  # past the 2-s warm-up with room for a slow start on a busy machine
     p1.stop()
     time.sleep(1.5)
     p2 = _player(fif, name)

@@ -28,7 +28,7 @@ from pathlib import Path
 
 from ..config import AnalysisConfig
 from ..errors import InputError
-from ..provenance import atomic_write_text, sha256_file
+from ..provenance import atomic_write_text, prepare_output_root, sha256_file
 from .engines import Engine, SerialEngine, run_unordered
 from .inputs import BatchItem
 
@@ -382,7 +382,7 @@ def run_batch(items: Sequence[BatchItem], out: str | Path, *,
         norms = str(Path(norms).resolve())
         read_norms(norms)  # a bad norms file is an input error, not one failure per recording
     config = config or AnalysisConfig()
-    out.mkdir(parents=True, exist_ok=True)
+    out = prepare_output_root(out, kind="batch")  # new, empty or a sourcelab batch folder
     command = tuple(command if command is not None else sys.argv)
     tasks = [Task(path=str(it.path), out_dir=str((out / it.name).resolve()), name=it.name,
                   participant=it.participant, age=it.age, config=config, norms=norms,

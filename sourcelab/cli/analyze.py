@@ -91,7 +91,9 @@ def run(args) -> int:
     return 0
 
 
-_RANGE = re.compile(r"^\s*(\d+(?:\.\d*)?)\s*-\s*(\d+(?:\.\d*)?)\s*$")
+#: ``T0-T1`` in seconds; a sign is recognised so that ``-5-100`` is refused as a range, not
+#: looked up as an annotation.
+_RANGE = re.compile(r"^\s*([-+]?\d+(?:\.\d*)?)\s*-\s*([-+]?\d+(?:\.\d*)?)\s*$")
 
 
 def parse_select(values):
@@ -104,6 +106,9 @@ def parse_select(values):
         m = _RANGE.match(v)
         if m:
             t0, t1 = float(m.group(1)), float(m.group(2))
+            if t0 < 0 or t1 < 0:
+                raise InputError(f"--select {v!r}: times are counted from the start of the "
+                                 "recording and cannot be negative")
             if not t1 > t0:
                 raise InputError(f"--select {v!r}: the end must come after the start")
             out.append((t0, t1))

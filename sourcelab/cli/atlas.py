@@ -37,9 +37,12 @@ def run(args) -> int:
     out = Path(args.out)
     if out.suffix.lower() != ".png":
         raise InputError("--out must end in .png", path=out)
-    tmp = out.with_name(f".{out.name}.tmp.png")
+    import matplotlib.pyplot as plt
+
+    from ..provenance import save_png
+
     fig = plot_atlas(args.name, output_file=None)
-    fig.savefig(tmp, dpi=100)
-    tmp.replace(out)
+    save_png(fig, out, dpi=100)  # atomic, parent folders created, marked as sourcelab's
+    plt.close(fig)
     print(f"sourcelab: wrote {out}")
     return 0

@@ -36,7 +36,8 @@ def run(args) -> int:
         raise InputError(f"--n-boot: need at least 100, got {args.n_boot}")
     table = compare_sessions(args.results, n_boot=args.n_boot, seed=args.seed,
                              labels=args.label)
-    s = write_comparison(table, args.out, targets=args.target)
+    s = write_comparison(table, args.out, targets=args.target,
+                         inputs=[*args.results, *(args.target or ())])
     print(f"sourcelab: compared {len(args.results)} sessions, {s['n_rows']} rows: "
           f"{s['changed']} changed (FDR q <= 0.05 and |RCI| >= 1.96); wrote {args.out}")
     ch = table[table["verdict"] != "no change"]

@@ -4,8 +4,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from ..errors import InputError
-
 
 def add_parser(sub) -> None:
     from .analyze import add_output_options
@@ -35,13 +33,10 @@ def run(args) -> int:
         out = demo.build_demo_norms(args.rebuild_norms)
         print(f"sourcelab: wrote invented demo norms {out}")
         return 0
-    out = Path(args.out)
-    if out.exists() and any(out.iterdir()) and not (out / "provenance.json").exists():
-        raise InputError("output folder exists and is not a sourcelab output; choose another",
-                         path=out)
+    out = Path(args.out)  # checked by the CLI pre-flight (sourcelab.cli.main.preflight)
     print("sourcelab: demo — an INVENTED participant (demo-01, 41 y, eyes closed, simulated by "
           "sourcelab) against INVENTED norms (80 simulated adults). No real person's data.")
-    with atomic_output_dir(out) as tmp:
+    with atomic_output_dir(out, kind="demo") as tmp:
         edf = demo.write_edf(demo.demo_recording(), tmp / "demo-01_invented_eeg.edf",
                              description="INVENTED demo recording simulated by sourcelab")
         result = analyze(edf, config=AnalysisConfig(), age=demo.DEMO_AGE,

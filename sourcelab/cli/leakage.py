@@ -50,6 +50,18 @@ def run(args) -> int:
     leak = leakage_for(args.atlas, method=args.method, orientation=args.orientation,
                        lambda2=1.0 / args.snr**2)
     table = leak.top(args.roi, args.hemisphere, n=args.top)
+    written = []  # files first: the printing below may meet a closed stdout
+    if args.tsv is not None:
+        written.append(leak.to_tsv(args.tsv))
+    if args.plot is not None:
+        import matplotlib.pyplot as plt
+
+        from ..provenance import save_png
+
+        fig = plot_leakage(leak)
+        save_png(fig, args.plot, dpi=120, bbox_inches="tight")
+        plt.close(fig)
+        written.append(args.plot)
     me = table.iloc[0]
     print(f"{me.roi} ({me.hemisphere}), atlas {args.atlas}, {args.method} {args.orientation}, "
           f"SNR {args.snr:g}: {100 * me.share:.1f} % of its expected power comes from its own "
@@ -58,12 +70,6 @@ def run(args) -> int:
                          distance_mm=table.distance_mm.round(1))
     shown = shown.rename(columns={"share": "share_%"})
     print(shown.to_string(index=False, na_rep="-"))
-    if args.tsv is not None:
-        print(f"sourcelab: wrote {leak.to_tsv(args.tsv)}")
-    if args.plot is not None:
-        import matplotlib.pyplot as plt
-
-        fig = plot_leakage(leak, output_file=args.plot)
-        plt.close(fig)
-        print(f"sourcelab: wrote {args.plot}")
+    for path in written:
+        print(f"sourcelab: wrote {path}")
     return 0

@@ -56,6 +56,11 @@ _FLOAT_COLUMNS = ("age_min", "age_max") + COEF_COLUMNS + ("sd",)
 _INT_COLUMNS = ("degree", "n")
 _HEADER_KEYS = ("fingerprint", "condition", "cohort", "note")
 _HEADER_RE = re.compile(r"^# ([a-z]+): (.*)$")
+#: Largest norms file read (the demo norms are 0.25 MB; a table for every shipped atlas, band,
+#: measure and 20 age bins stays below 100 MB).
+NORMS_MAX_BYTES = 256 * 1024 * 1024
+#: Header JSON (fingerprint, cohort) nests only a few levels.
+_HEADER_MAX_DEPTH = 16
 
 
 def normalise_condition(condition: str) -> str:
@@ -296,18 +301,21 @@ def _parse_header(lines: list[str], path) -> tuple[dict, int]:
     for key in ("fingerprint", "condition"):
         if key not in head:
             raise _bad(f"header has no '# {key}:' line", path)
+    from ..checks import loads_json
+
     fp_text, fp_line = head["fingerprint"]
     try:
-        fp = Fingerprint.from_dict(json.loads(fp_text))
-    except (json.JSONDecodeError, AttributeError, InputError) as exc:
+        fp = Fingerprint.from_dict(loads_json(fp_text, max_depth=_HEADER_MAX_DEPTH,
+                                              what="header fingerprint"))
+    except (AttributeError, InputError) as exc:
         raise _bad(f"header fingerprint is not a valid pipeline fingerprint ({exc})",
                    path, fp_line) from None
     cohort: dict = {}
     if "cohort" in head:
         c_text, c_line = head["cohort"]
         try:
-            cohort = json.loads(c_text)
-        except json.JSONDecodeError as exc:
+            cohort = loads_json(c_text, max_depth=_HEADER_MAX_DEPTH, what="header cohort")
+        except InputError as exc:
             raise _bad(f"header cohort is not JSON ({exc})", path, c_line) from None
         if not isinstance(cohort, dict):
             raise _bad("header cohort must be a JSON object", path, c_line)
@@ -333,13 +341,10 @@ def read_norms(path: str | Path) -> Norms:
         One-line message naming the file (and line) for any problem: bad header, missing columns,
         NaN, SD <= 0, unknown transform, duplicate rows, overlapping age ranges ...
     """
+    from ..checks import read_bytes_bounded
+
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError("norms file not found", path=path) from None
-    except (IsADirectoryError, PermissionError) as exc:
-        raise InputError(f"cannot read norms file ({exc.strerror})", path=path) from None
+    raw = read_bytes_bounded(path, max_bytes=NORMS_MAX_BYTES, what="norms file")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError:

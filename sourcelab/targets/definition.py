@@ -60,6 +60,15 @@ FILTER_ORDER = 4
 WINDOW_S = 1.0
 STEP_S = 0.25
 MEASURES = ("absolute", "relative")
+#: Largest target file read: a relative-power target of the largest network holds ~25 MB of
+#: kernel rows (18,715 sources x 3 rows x 19 numbers).
+TARGET_MAX_BYTES = 64 * 1024 * 1024
+#: Window and step bounds, s: the streaming state holds window_s / step_s blocks of
+#: n_bands x 19 x 19 numbers, so the ratio is capped at 600 (<= 55 MB for 32 bands); a 10-ms
+#: step is already finer than any display refresh; 60-s windows are far beyond feedback use.
+WINDOW_S_RANGE = (0.05, 60.0)
+STEP_S_MIN = 0.01
+MAX_BLOCKS = 600
 #: Direction to train: away from the deviation, towards the norm mean.
 DIRECTIONS = {1: "decrease", -1: "increase"}
 POWER_FORMULA = ("ROI power = mean over the ROI's sources i of sum over i's kernel rows k of "
@@ -333,39 +342,67 @@ def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = No
         raise
     except (KeyError, TypeError, ValueError, AttributeError, IndexError) as exc:
         raise bad(f"malformed {SCHEMA} file ({exc!r})") from None
-    lo, hi = target.band_edges
-    if not np.isclose(float(band.get("low_hz", lo)), lo) or not np.isclose(
-            float(band.get("high_hz", hi)), hi):
-        raise bad("band edges differ from the 'bands' list")
-    if not (0 < target.step_s <= target.window_s):
-        raise bad("power.step_s must satisfy 0 < step_s <= window_s")
-    if target.norm is not None:
-        for k in ("mean", "sd", "transform"):
-            if k not in target.norm:
-                raise bad(f"norm lacks {k!r}")
-        if not float(target.norm["sd"]) > 0:
-            raise bad("norm.sd must be > 0")
-    if target.direction not in (*DIRECTIONS.values(), "none"):
-        raise bad(f"direction {target.direction!r} is not one of increase, decrease, none")
+    _check_values(target, d, band, path)
     if check_fingerprint:
         _current_fingerprint_check(fp, current, path)
     return target
 
 
+def _check_values(target: TargetDefinition, d: dict, band: dict, path) -> None:
+    """Types and bounds of a parsed target's numbers (see :mod:`sourcelab.checks`)."""
+    from ..checks import check_number, check_option
+
+    def num(name, value, **kw):
+        return check_number(name, value, where=path, **kw)
+
+    lo, hi = target.band_edges
+    for b, blo, bhi in target.bands:
+        num(f"bands.{b} low edge", blo, low=0.0, high=1000.0)
+        num(f"bands.{b} high edge", bhi, low=blo, high=1000.0, low_open=True)
+    if not isinstance(band, dict):
+        raise InputError("band: must be an object", path=path, field="band")
+    if not np.isclose(num("band.low_hz", band.get("low_hz", lo)), lo) or not np.isclose(
+            num("band.high_hz", band.get("high_hz", hi)), hi):
+        raise InputError("band edges differ from the 'bands' list", path=path)
+    flt, power, sf = d["filter"], d["power"], d["spatial_filter"]  # raw values: no bool
+    num("filter.sfreq", flt["sfreq"], low=1.0, high=1e6)
+    num("filter.prototype_order", flt["prototype_order"], kind=int, low=1, high=12)
+    check_option("spatial_filter.n_comp", num("spatial_filter.n_comp", sf["n_comp"], kind=int),
+                 (1, 3), where=path)
+    num("power.reject_uv", power["reject_uv"], low=0.0, low_open=True)  # huge: no rejection
+    window = num("power.window_s", power["window_s"], low=WINDOW_S_RANGE[0],
+                 high=WINDOW_S_RANGE[1])
+    step = num("power.step_s", power["step_s"], low=STEP_S_MIN, high=window)
+    if window / step > MAX_BLOCKS:
+        raise InputError(f"power.step_s: window_s / step_s must be at most {MAX_BLOCKS}, got "
+                         f"{window:g} / {step:g}", path=path, field="power.step_s")
+    v = target.vertices
+    if v.ndim != 1 or v.size == 0 or v.min() < 0 or v.max() >= 1_000_000:
+        raise InputError("roi.vertices: must be a non-empty list of source indices", path=path)
+    for b, s in target.sos.items():
+        if not np.all(np.isfinite(s)):
+            raise InputError(f"filter.sos[{b!r}]: must hold finite numbers", path=path)
+    if target.kernel_rows is not None and not np.all(np.isfinite(target.kernel_rows)):
+        raise InputError("spatial_filter.kernel_rows: must hold finite numbers", path=path)
+    if target.norm is not None:
+        if not isinstance(target.norm, dict):
+            raise InputError("norm: must be an object or null", path=path, field="norm")
+        for k in ("mean", "sd", "transform"):
+            if k not in target.norm:
+                raise InputError(f"norm lacks {k!r}", path=path)
+        num("norm.mean", target.norm["mean"])
+        num("norm.sd", target.norm["sd"], low=0.0, low_open=True)
+        check_option("norm.transform", target.norm["transform"], ("log10", "logit"), where=path)
+    check_option("direction", target.direction, (*DIRECTIONS.values(), "none"), where=path)
+
+
 def read_target(path: str | Path, *, current: Fingerprint | None = None,
                 check_fingerprint: bool = True) -> TargetDefinition:
     """Read and validate a ``sourcelab-target/1`` JSON file (see :func:`target_from_dict`)."""
+    from ..checks import load_json
+
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("target file not found", path=path) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read target file ({exc})", path=path) from None
-    try:
-        d = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise InputError(f"not valid JSON ({exc})", path=path) from None
+    d = load_json(path, max_bytes=TARGET_MAX_BYTES, what="target file")  # bounded, finite
     return target_from_dict(d, path=path, current=current, check_fingerprint=check_fingerprint)
 
 

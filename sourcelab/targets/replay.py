@@ -372,10 +372,8 @@ def replay_recording(target: TargetDefinition, recording, out: str | Path) -> di
     dict
         Summary: windows, clean windows, clean mean power and z, offline value, ratio.
     """
-    import json
-
     from ..intake import Recording, read_recording
-    from ..provenance import atomic_output_dir
+    from ..provenance import atomic_output_dir, dumps_json
 
     rec = recording if isinstance(recording, Recording) else read_recording(recording)
     raw = rec.raw
@@ -397,10 +395,11 @@ def replay_recording(target: TargetDefinition, recording, out: str | Path) -> di
         "window_s": target.window_s, "step_s": target.step_s,
     }
     out = Path(out)
-    with atomic_output_dir(out) as tmp:
+    inputs = [p for p in (rec.path, getattr(target, "path", None)) if p is not None]
+    with atomic_output_dir(out, kind="replay", inputs=inputs) as tmp:
         res.to_frame().to_csv(tmp / "replay.tsv", sep="\t", index=False, na_rep="",
                               float_format="%.6g")
         fig = plot_replay(res, target)
         fig.savefig(tmp / "replay.png", dpi=100)
-        (tmp / "replay.json").write_text(json.dumps(summary, indent=2), encoding="utf-8")
+        (tmp / "replay.json").write_text(dumps_json(summary, indent=2), encoding="utf-8")
     return summary

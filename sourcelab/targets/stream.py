@@ -36,6 +36,7 @@ import logging
 import math
 import time
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
@@ -413,6 +414,11 @@ def run_stream(target: TargetDefinition, *, name: str | None = None, stype: str 
         outlet = StreamOutlet(oinfo)
         logf = None
         if log_path is not None:
+            from ..provenance import check_output_file
+
+            check_output_file(log_path, kind="stream-log", name="log file",
+                              suffixes=(".tsv", ".txt"))
+            Path(log_path).parent.mkdir(parents=True, exist_ok=True)
             logf = open(log_path, "w", encoding="utf-8")
             logf.write("\t".join(("lsl_time", *OUTPUT_CHANNELS, "latency_ms", "age_ms")) + "\n")
         t_start = time.perf_counter()

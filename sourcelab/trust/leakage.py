@@ -367,10 +367,9 @@ def plot_leakage(leakage: Leakage, *, axes=None, figure=None, output_file=None,
     cb = fig.colorbar(im, ax=axes, fraction=0.046, pad=0.02)
     cb.set_label("share of the target ROI's expected power")
     if output_file is not None:
-        out = Path(output_file)
-        tmp = out.with_name(f".{out.name}.tmp{out.suffix}")
-        fig.savefig(tmp, dpi=120, bbox_inches="tight")
-        tmp.replace(out)
+        from ..provenance import save_png
+
+        save_png(fig, output_file, dpi=120, bbox_inches="tight")
     return fig
 
 
