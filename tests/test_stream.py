@@ -238,12 +238,12 @@ def test_dropped_then_restored_input_is_flagged_and_recovers(tmp_path, target_fi
     from sourcelab.targets import read_target
 
     path, _ = target_file
-    fif = _recording(tmp_path / "rec_raw.fif", seconds=16.0, seed=4)
+    fif = _recording(tmp_path / "rec_raw.fif", seconds=20.0, seed=4)
     name = _uid("drop")
     p1 = _player(fif, name)
     p1.start()
     time.sleep(0.3)
-    th, box, msgs = _run_in_thread(read_target(path), name=name, duration_s=11.0,
+    th, box, msgs = _run_in_thread(read_target(path), name=name, duration_s=15.0,
                                    log_path=tmp_path / "s.tsv")
     time.sleep(5.0)  # past the 2-s warm-up with room for a slow start on a busy machine
     p1.stop()
