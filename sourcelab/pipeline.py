@@ -18,7 +18,8 @@ from .config import AnalysisConfig
 from .errors import InputError
 from .provenance import Fingerprint
 from .result import ROI_COLUMNS, SENSOR_COLUMNS, UNITS, AnalysisResult
-from .spectra import average_reference, epoch_cross_spectra, relative_power, sensor_band_power
+from .spectra import (average_reference, broadband_cross_spectra, check_bands_within,
+                      epoch_cross_spectra, relative_power, sensor_band_power)
 
 log = logging.getLogger("sourcelab")
 
@@ -125,12 +126,16 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     if tuple(clean.ch_names) != tuple(model.ch_names):
         raise InputError(f"channels {clean.ch_names} do not match the head model's "
                          f"{model.ch_names}")
+    check_bands_within(config.bands)
     csd_epochs = epoch_cross_spectra(clean.epochs, clean.sfreq, config.bands)
     csd = csd_epochs.mean(axis=0)
-    sens_abs, sens_rel = sensor_band_power(average_reference(csd))
+    # relative power: band power / power over the fixed 1-45 Hz range (config.BROADBAND_HZ)
+    total_epochs = broadband_cross_spectra(clean.epochs, clean.sfreq)
+    total = total_epochs.mean(axis=0)
+    sens_abs, sens_rel = sensor_band_power(average_reference(csd), average_reference(total))
     op = inverse_operator(config.method, config.orientation, config.lambda2)
     src_abs = op.power(csd)
-    src_rel = relative_power(src_abs)
+    src_rel = relative_power(src_abs, op.power(total))
     names = config.bands.names
 
     rows: list[dict] = []
@@ -169,7 +174,8 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     if config.n_boot:
         from .trust import add_intervals, add_sensor_intervals, norms_z_function
 
-        kw = dict(n_boot=config.n_boot, seed=config.boot_seed, ci=config.ci, band_names=names)
+        kw = dict(n_boot=config.n_boot, seed=config.boot_seed, ci=config.ci, band_names=names,
+                  epoch_total=total_epochs)
         roi_table = add_intervals(
             roi_table, csd_epochs, op, atlas_objs,
             norms_fn=norms_z_function(nm, kind="roi", **opts) if nm is not None else None, **kw)
@@ -190,7 +196,7 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
                           source_rel=src_rel.astype(np.float32),
                           sensor_abs=sens_abs, sensor_rel=sens_rel, roi_table=roi_table,
                           sensor_table=sensor_table, quality=quality, recording=recording_info,
-                          norms=norms_summary, epoch_csd=csd_epochs)
+                          norms=norms_summary, epoch_csd=csd_epochs, epoch_total=total_epochs)
 
 
 def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig) -> dict:

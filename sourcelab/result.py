@@ -19,7 +19,7 @@ SENSOR_COLUMNS = ("channel", "band", "measure", "value", "unit", "z")
 #: Units of the values by measure.
 UNITS = {
     "absolute": "sLORETA power (standardised, data in µV)",
-    "relative": "fraction of total analysed power",
+    "relative": "fraction of 1-45 Hz power",
     "sensor_absolute": "µV²",
 }
 
@@ -52,6 +52,9 @@ class AnalysisResult:
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch) | None
         Per-epoch band cross-spectra (µV², as recorded; the kernel applies the average
         reference), kept for resampling (confidence intervals) and reliability.
+    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch) | None
+        Per-epoch broadband (:data:`sourcelab.config.BROADBAND_HZ`) cross-spectra, the
+        denominator of relative power.
     """
 
     config: AnalysisConfig
@@ -67,6 +70,7 @@ class AnalysisResult:
     recording: dict = field(default_factory=dict)
     norms: dict | None = None
     epoch_csd: np.ndarray | None = None
+    epoch_total: np.ndarray | None = None
 
     @property
     def bands(self):

@@ -97,6 +97,35 @@ def test_replicates_equal_explicit_resampling(small, rng):
         np.testing.assert_allclose(s["relative"][i], rel, rtol=1e-5)
 
 
+@pytest.mark.parametrize("orientation", ["fixed", "free"])
+def test_broadband_total_replicates_equal_explicit_resampling(small, rng, orientation):
+    # With a broadband total (the pipeline's relative-power denominator), every replicate must
+    # equal recomputing band power / broadband power from the resampled epochs (definition of
+    # the nonparametric bootstrap), for ROIs and sensors.
+    from sourcelab.trust.bootstrap import sensor_bootstrap
+
+    head, atlas, ops = small
+    op = ops[orientation]
+    n_ep = 30
+    csd = _epochs(_true_csd(head, rng, n_bands=4), n_ep, rng, common_mode=50.0)
+    bands, total = csd[:, :3], csd[:, 3]                    # last one plays the 1-45 Hz total
+    w = bootstrap_weights(n_ep, n_boot=10, seed=5)
+    s = roi_bootstrap(bands, op, [r.vertices for r in atlas.rois], w, epoch_total=total)
+    sb = sensor_bootstrap(bands, w, epoch_total=total)
+    for i in range(10):
+        idx = np.repeat(np.arange(n_ep), np.round(w[i] * n_ep).astype(int))
+        p = source_power(op, bands[idx].mean(0))
+        rel = relative_power(p, source_power(op, total[idx].mean(0)))
+        want = np.stack([rel[:, roi.vertices].mean(1) for roi in atlas.rois], 1)
+        np.testing.assert_allclose(s["relative"][i], want, rtol=1e-5)
+        np.testing.assert_allclose(s["absolute"][i],
+                                   np.stack([p[:, r.vertices].mean(1) for r in atlas.rois], 1),
+                                   rtol=1e-10)
+        _, srel = sensor_band_power(average_reference(bands[idx].mean(0)),
+                                    average_reference(total[idx].mean(0)))
+        np.testing.assert_allclose(sb["relative"][i], srel, rtol=1e-10)
+
+
 def test_weights_are_seeded_multinomial():
     # Resampling n epochs with replacement = multinomial counts summing to n (common practice).
     w = bootstrap_weights(50, n_boot=200, seed=7)

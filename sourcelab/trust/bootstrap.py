@@ -222,7 +222,8 @@ def _atoms(avg) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 
 def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
-                  weights: np.ndarray, *, relative: bool = True) -> dict[str, np.ndarray]:
+                  weights: np.ndarray, *, relative: bool = True,
+                  epoch_total: np.ndarray | None = None) -> dict[str, np.ndarray]:
     """Bootstrap replicates of ROI mean absolute and relative source band power.
 
     Parameters
@@ -237,6 +238,9 @@ def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
         pipeline's values.
     relative : bool
         Also bootstrap relative power (the expensive part).
+    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
+        Per-epoch broadband (1-45 Hz) cross-spectra: relative power divides by their source
+        power (as the pipeline).  Without it, by the sum over the bands.
 
     Returns
     -------
@@ -252,33 +256,44 @@ def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
         raise InputError(f"weights: need shape (n_boot, {c.shape[0]}), got {w.shape}")
     if op.kernel.shape[1] != c.shape[-1]:
         raise InputError(f"epoch_csd: {c.shape[-1]} channels, operator has {op.kernel.shape[1]}")
-    n_ep, n_bands = c.shape[:2]
+    n_bands = c.shape[1]
+    if relative and epoch_total is not None:
+        t = np.asarray(epoch_total, dtype=float)
+        if t.shape != (c.shape[0],) + c.shape[2:]:
+            raise InputError(f"epoch_total: need shape {(c.shape[0],) + c.shape[2:]}, got "
+                             f"{t.shape}")
+        c = np.concatenate([c, t[:, None]], axis=1)     # broadband as a last "band"
+    n_ep, n_all = c.shape[:2]
     n_boot = w.shape[0]
     used, avg = roi_average_matrix(roi_vertices, op.n_src)
     basis, q_all = source_quadratic_forms(op)
     cv = vech(basis.T @ c @ basis)                       # (n_ep, n_bands, n_vech)
     q_roi = avg @ q_all[used]                            # (n_rois, n_vech): vech of B'M_rB
     per_epoch = cv @ q_roi.T                             # (n_ep, n_bands, n_rois)
-    out = {"absolute": (w @ per_epoch.reshape(n_ep, -1)).reshape(n_boot, n_bands, -1)}
+    out = {"absolute": (w @ per_epoch.reshape(n_ep, -1)).reshape(n_boot, n_all, -1)[:, :n_bands]}
     if not relative:
         return out
     order, starts, group_w = _atoms(avg)
     q = q_all[used[order]]                               # sources grouped by ROI membership
     n_used, n_vech = q.shape
     c_mean = cv.mean(axis=0)                             # (n_bands, n_vech)
-    p_mean = (q @ c_mean.T).astype(np.float32)[:, :, None]  # (n_used, n_bands, 1)
-    dev = (w @ (cv - c_mean).reshape(n_ep, -1)).reshape(n_boot, n_bands, n_vech)
+    p_mean = (q @ c_mean.T).astype(np.float32)[:, :, None]  # (n_used, n_all, 1)
+    dev = (w @ (cv - c_mean).reshape(n_ep, -1)).reshape(n_boot, n_all, n_vech)
     dev = dev.astype(np.float32)
     q32 = q.astype(np.float32)
     rel = np.empty((n_boot, n_bands, avg.shape[0]))
-    chunk = max(1, _CHUNK_ELEMENTS // (n_bands * n_used))
+    chunk = max(1, _CHUNK_ELEMENTS // (n_all * n_used))
     for s in range(0, n_boot, chunk):
         e = min(s + chunk, n_boot)
         d = np.ascontiguousarray(dev[s:e].transpose(1, 0, 2)).reshape(-1, n_vech)
         # sources-first, band-major layout: contiguous band sums and group sums
-        p = (q32 @ d.T).reshape(n_used, n_bands, e - s)
+        p = (q32 @ d.T).reshape(n_used, n_all, e - s)
         p += p_mean
-        total = p.sum(axis=1, keepdims=True)
+        if n_all > n_bands:                              # broadband total given
+            total = p[:, n_bands:]
+            p = np.ascontiguousarray(p[:, :n_bands])
+        else:
+            total = p.sum(axis=1, keepdims=True)
         with np.errstate(invalid="ignore", divide="ignore"):
             p /= total                                   # 0/0 -> NaN, as relative_power
         g = np.add.reduceat(p.reshape(n_used, -1), starts, axis=0)  # (n_groups, ...)
@@ -288,19 +303,22 @@ def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
     return out
 
 
-def sensor_bootstrap(epoch_csd: np.ndarray, weights: np.ndarray) -> dict[str, np.ndarray]:
+def sensor_bootstrap(epoch_csd: np.ndarray, weights: np.ndarray, *,
+                     epoch_total: np.ndarray | None = None) -> dict[str, np.ndarray]:
     """Bootstrap replicates of average-reference sensor band power.
 
     Parameters
     ----------
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch)
     weights : ndarray, shape (n_boot, n_epochs)
+    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
+        Per-epoch broadband cross-spectra (the relative-power denominator; default: band sum).
 
     Returns
     -------
     dict
-        ``"absolute"`` (squared data unit, e.g. µV²) and ``"relative"`` (fraction of the sum over
-        bands), each ndarray, shape (n_boot, n_bands, n_ch).
+        ``"absolute"`` (squared data unit, e.g. µV²) and ``"relative"`` (fraction of broadband
+        power, or of the band sum), each ndarray, shape (n_boot, n_bands, n_ch).
     """
     c = np.asarray(epoch_csd, dtype=float)
     w = np.asarray(weights, dtype=float)
@@ -310,7 +328,11 @@ def sensor_bootstrap(epoch_csd: np.ndarray, weights: np.ndarray) -> dict[str, np
         raise InputError(f"weights: need shape (n_boot, {c.shape[0]}), got {w.shape}")
     diag = np.einsum("ebcc->ebc", average_reference(c))
     ab = (w @ diag.reshape(c.shape[0], -1)).reshape(w.shape[0], c.shape[1], -1)
-    total = ab.sum(axis=1, keepdims=True)
+    if epoch_total is None:
+        total = ab.sum(axis=1, keepdims=True)
+    else:
+        td = np.einsum("ecc->ec", average_reference(np.asarray(epoch_total, dtype=float)))
+        total = (w @ td)[:, None, :]
     with np.errstate(invalid="ignore", divide="ignore"):
         rel = np.where(total > 0, ab / total, np.nan)
     return {"absolute": ab, "relative": rel}
@@ -443,7 +465,8 @@ def _check_ci(ci: float) -> None:
 def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *,
                   n_boot: int = 1000, seed: int = 0, ci: float = 0.95, norms_fn=None,
                   band_names: Sequence[str] | None = None,
-                  z_threshold: float = Z_THRESHOLD) -> pd.DataFrame:
+                  z_threshold: float = Z_THRESHOLD,
+                  epoch_total: np.ndarray | None = None) -> pd.DataFrame:
     """Add bootstrap confidence intervals of the value and of z to an ROI table.
 
     Parameters
@@ -473,6 +496,9 @@ def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *
         which is the pipeline's order).
     z_threshold : float
         Deviation threshold for ``robust`` (default 1.96).
+    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
+        Per-epoch broadband cross-spectra (``AnalysisResult.epoch_total``), the denominator of
+        relative power.
 
     Returns
     -------
@@ -515,7 +541,8 @@ def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *
     if unknown:
         raise InputError(f"measure: {unknown} not one of ['absolute', 'relative']")
     w = bootstrap_weights(c.shape[0], n_boot=n_boot, seed=seed)
-    samples = roi_bootstrap(c, op, verts, w, relative="relative" in measures)
+    samples = roi_bootstrap(c, op, verts, w, relative="relative" in measures,
+                            epoch_total=epoch_total)
     lo = {m: percentile_interval(s, ci=ci) for m, s in samples.items()}
     band_idx = {b: i for i, b in enumerate(bands)}
     try:
@@ -537,7 +564,8 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
                          ch_names: Sequence[str] | None = None, n_boot: int = 1000,
                          seed: int = 0, ci: float = 0.95, norms_fn=None,
                          band_names: Sequence[str] | None = None,
-                         z_threshold: float = Z_THRESHOLD) -> pd.DataFrame:
+                         z_threshold: float = Z_THRESHOLD,
+                         epoch_total: np.ndarray | None = None) -> pd.DataFrame:
     """Add bootstrap confidence intervals to a sensor table (see :func:`add_intervals`).
 
     Parameters
@@ -547,7 +575,7 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch)
     ch_names : sequence of str, optional
         Channel order of ``epoch_csd`` (default :data:`sourcelab.config.SITES_1020`).
-    n_boot, seed, ci, norms_fn, band_names, z_threshold
+    n_boot, seed, ci, norms_fn, band_names, z_threshold, epoch_total
         As in :func:`add_intervals`; use the same seed to resample the same epochs.
 
     Returns
@@ -565,7 +593,7 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
         raise InputError(f"ch_names: {len(names)} names for {c.shape[-1]} channels")
     bands = _band_order(sensor_table, band_names, c.shape[1])
     w = bootstrap_weights(c.shape[0], n_boot=n_boot, seed=seed)
-    samples = sensor_bootstrap(c, w)
+    samples = sensor_bootstrap(c, w, epoch_total=epoch_total)
     ch_idx = {n: i for i, n in enumerate(names)}
     band_idx = {b: i for i, b in enumerate(bands)}
     try:
@@ -629,7 +657,8 @@ def add_result_intervals(result, *, custom_rois=None, norms=None, norms_options:
         opts.update(norms_options or {})
         roi_fn = norms_z_function(norms, kind="roi", **opts)
         sensor_fn = norms_z_function(norms, kind="sensor", **opts)
-    common = dict(n_boot=n_boot, seed=seed, ci=ci, band_names=cfg.bands.names)
+    common = dict(n_boot=n_boot, seed=seed, ci=ci, band_names=cfg.bands.names,
+                  epoch_total=getattr(result, "epoch_total", None))
     roi = add_intervals(result.roi_table, result.epoch_csd, op, atlases, norms_fn=roi_fn,
                         **common)
     sensor = add_sensor_intervals(result.sensor_table, result.epoch_csd, ch_names=result.ch_names,
