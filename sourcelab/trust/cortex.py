@@ -173,3 +173,35 @@ def cortex_space(lambda2: float = 1 / 9, *, cortex_only: bool = True) -> CortexS
     model = load_head_model()
     verts = cortex_vertices(yeo7_labels()[0]) if cortex_only else np.arange(model.n_src)
     return build_space(model, verts, lambda2=lambda2)
+
+
+def cortex_source_maps(result, space: CortexSpace | None = None) -> dict[str, np.ndarray]:
+    """Cortex-only per-source band power of an analysis, from its cross-spectra.
+
+    The analysis' own maps come from the current (20,484-source) operator; this recomputes them
+    with the cortex-only kernel (medial-wall columns dropped before the kernel).  Relative power
+    divides by the broadband (1-45 Hz) power, as the pipeline.
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        Needs ``epoch_csd`` and ``epoch_total``.
+    space : CortexSpace, optional
+        Default :func:`cortex_space` at the result's λ².
+
+    Returns
+    -------
+    dict
+        ``"absolute"`` and ``"relative"``: ndarray, shape (n_bands, n_src).
+    """
+    from ..errors import InputError
+    from ..spectra import relative_power
+
+    if result.epoch_csd is None or getattr(result, "epoch_total", None) is None:
+        raise InputError("result: no per-epoch cross-spectra (epoch_csd, epoch_total)")
+    if result.config.method != "sLORETA" or result.config.orientation != "fixed":
+        raise InputError("cortex-only maps are prototyped for fixed-orientation sLORETA only")
+    sp = space or cortex_space(result.config.lambda2)
+    ab = sp.op.power(result.epoch_csd.mean(axis=0))
+    tot = sp.op.power(result.epoch_total.mean(axis=0))
+    return {"absolute": ab, "relative": relative_power(ab, tot)}
