@@ -89,6 +89,7 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
                          generators: tuple[Generator, ...] = (),
                          background_uv: float = 15.0, sensor_noise_uv: float = 1.0,
                          alpha_background: Generator | None = None,
+                         background_exponent: float = 1.0,
                          rng: np.random.Generator) -> np.ndarray:
     """Simulated 19-channel data in volts, shape (n_ch, n_times), average reference.
 
@@ -98,6 +99,8 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
         Median RMS of the pink background across channels after average reference, µV.
     sensor_noise_uv : float
         RMS of white noise added at each electrode, µV.
+    background_exponent : float
+        Exponent of the background's ``1/f**exponent`` power spectrum (1: pink).
     generators : tuple of Generator
         Oscillating patches; a generator's ``amplitude`` is relative to one background source, so
         an amplitude of 1 with a 100-source patch adds the same variance as 100 background sources
@@ -109,7 +112,7 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
     cov = gf @ gf.T
     evals, evecs = np.linalg.eigh(cov)
     l_mat = evecs * np.sqrt(np.clip(evals, 0, None))
-    background = l_mat @ pink_noise(n_ch, n_t, sfreq, rng)
+    background = l_mat @ pink_noise(n_ch, n_t, sfreq, rng, exponent=background_exponent)
     p = np.eye(n_ch) - 1.0 / n_ch
     scale = background_uv * 1e-6 / np.median((p @ background).std(axis=1))
     data = scale * background
