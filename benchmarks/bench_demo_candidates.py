@@ -50,8 +50,21 @@ def main(argv=None) -> int:
                              description="INVENTED demo recording")
         res = analyze(edf, config=cfg, age=demo.DEMO_AGE, norms=norms,
                       condition=demo.DEMO_CONDITION)
-    out = {}
+    from sourcelab.norms import read_norms
+    from sourcelab.norms.predictive import approximate_leverage, predictive_t
+
+    nm = read_norms(norms)
+    degree = int(nm.cohort.get("degree", 0))
+    out = {"norms_degree": degree}
     for name, t in (("roi", res.roi_table), ("sensor", res.sensor_table)):
+        # predictive z (normal-equivalent of the Student t; exact leverage 1/n for degree 0)
+        n = t["norm_n"].to_numpy()
+        zeq = predictive_t(t["z"].to_numpy(), np.zeros(len(t)), np.ones(len(t)), n=n,
+                           degree=np.full(len(t), degree),
+                           h0=approximate_leverage(n, degree))["z_equivalent"]
+        rel_sel = (t.measure == "relative").to_numpy()
+        out[f"max_abs_z_equivalent_relative_{name}"] = round(float(np.abs(zeq[rel_sel]).max()),
+                                                             2)
         rel = t[t.measure == "relative"]
         i = rel.z.abs().idxmax()
         out[f"max_abs_z_relative_{name}"] = round(float(rel.z.abs().max()), 2)
