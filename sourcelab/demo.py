@@ -33,9 +33,11 @@ _PLANTED_CENTER = (-40.0, 30.0, 30.0)
 # relative power about 0.3-0.5 (John et al. 1980, Science 210:1255-1258; Gasser, Bächer & Möcks
 # 1982, Electroencephalogr Clin Neurophysiol 53:119-124); SD of the aperiodic (1/f) exponent
 # about 0.2 across adults (Donoghue et al. 2020, Nat Neurosci 23:1655-1665).  Amplitude SDs are
-# in natural log; power SD is twice that (0.35 ln amplitude -> 0.30 log10 power).
-#: ln-SD of the alpha generators' amplitude (shared by the four alpha patches of a person).
-ALPHA_LN_SD = 0.35
+# in natural log; power SD is twice that (0.25 ln amplitude -> 0.22 log10 power).
+#: ln-SD of the alpha generators' amplitude (shared by the four alpha patches of a person);
+#: 0.25 -> 0.22 log10 in power (0.35 produced invented people whose every epoch exceeded the
+#: 150 µV peak-to-peak rejection threshold).
+ALPHA_LN_SD = 0.25
 #: ln-SD of each theta and beta generator's amplitude.
 RHYTHM_LN_SD = 0.3
 #: ln-SD of the background RMS (0.25 -> 0.22 log10 in power).
@@ -47,7 +49,9 @@ EXPONENT_MEAN, EXPONENT_SD = 1.0, 0.2
 #: (measured: relative-power SDs 0.06-0.15 logit for theta and alpha, far below the 0.3-0.5
 #: above); 0.5 was chosen to bring the median theta/alpha relative SD into that range while the
 #: absolute SDs stay within 0.2-0.3 log10 (measured on a rebuilt cohort; see the report).
-BAND_CENTRES_HZ = (2.0, 6.0, 10.0, 20.0, 35.0)
+#: No centre above 20 Hz: a gain there makes 25-45 Hz background look like muscle to the
+#: cleaning rule (measured: whole invented recordings rejected).
+BAND_CENTRES_HZ = (2.0, 6.0, 10.0, 20.0)
 BAND_LN_SD = 0.5
 
 
@@ -85,7 +89,10 @@ def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
     gens = _person_generators(rng, age) + tuple(extra)
     background = _person_background(rng, age)
     exponent = float(np.clip(rng.normal(EXPONENT_MEAN, EXPONENT_SD), 0.4, 1.8))
-    shape = tuple((c, float(rng.normal(0.0, BAND_LN_SD))) for c in BAND_CENTRES_HZ)
+    # shape changes, not scale changes: centred across the centres (the overall scale varies
+    # through the background and generators already), SD BAND_LN_SD at each centre
+    g = rng.normal(0.0, BAND_LN_SD / np.sqrt(1 - 1 / len(BAND_CENTRES_HZ)), len(BAND_CENTRES_HZ))
+    shape = tuple((c, float(x)) for c, x in zip(BAND_CENTRES_HZ, g - g.mean()))
     return simulate_raw(load_head_model(), duration_s=duration_s, sfreq=256.0,
                         generators=gens, background_uv=background,
                         background_exponent=exponent, background_spectral_gain=shape, rng=rng)
