@@ -40,8 +40,9 @@ def main(argv=None) -> int:
                                condition=condition)
     print(result.summary())
     if result.candidates is not None:             # ranked deviations (with norms only)
-        print(result.candidates[["rank", "atlas", "roi", "hemisphere", "band", "measure",
-                                 "z"]].head(5).to_string(index=False))
+        cols = [c for c in ("rank", "band", "measure", "direction", "area", "hemisphere",
+                            "peak_z", "probability") if c in result.candidates.columns]
+        print(result.candidates[cols].head(5).to_string(index=False))
     t = result.roi_table                          # tidy: atlas x area x band x measure
     print(t[(t.atlas == "lobes") & (t.band == "alpha") & (t.measure == "absolute")]
           [["roi", "hemisphere", "value"]].to_string(index=False))

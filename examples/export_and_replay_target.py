@@ -31,10 +31,10 @@ def main(argv=None) -> int:
     result = sourcelab.analyze(edf, age=demo.DEMO_AGE, norms=demo.demo_norms_path(),
                                condition=demo.DEMO_CONDITION)
     result.write(work / "analysis", figures=False, report=False, maps=False)
-    best = result.candidates[result.candidates.atlas == "brodmann"].iloc[0]
-    print(f"largest area deviation: {best['roi']} {best['hemisphere']} {best['band']} "
-          f"z = {best['z']:+.2f}")
-    target = export_target(work / "analysis", roi=best["roi"], hemisphere=best["hemisphere"],
+    best = result.candidates.iloc[0]  # ranked by the peaks of the per-source z-maps
+    print(f"first candidate: {best['area']} {best['hemisphere']} {best['band']} "
+          f"{best['measure']} power, peak z = {best['peak_z']:+.2f}")
+    target = export_target(work / "analysis", roi=best["area"], hemisphere=best["hemisphere"],
                            band=best["band"], measure=best["measure"])
     write_target(target, work / "target.json")
     replayed = replay_recording(read_target(work / "target.json"), edf, work / "replay")

@@ -58,7 +58,7 @@ def fingerprint_for(config: AnalysisConfig, headmodel_sha256: str | None = None)
     )
 
 
-def _roi_table(atlases, src_abs: np.ndarray, src_rel: np.ndarray, band_names):
+def _roi_table(atlases, src_abs: np.ndarray, src_rel: np.ndarray, band_names, resolvable):
     import pandas as pd
 
     from .rois import roi_reduce
@@ -69,9 +69,10 @@ def _roi_table(atlases, src_abs: np.ndarray, src_rel: np.ndarray, band_names):
             vals = roi_reduce(src, atlas)
             for b, band in enumerate(band_names):
                 for r, roi in enumerate(atlas.rois):
+                    ok = resolvable.get(roi.name, True) if atlas.name == "brodmann" else True
                     rows.append((atlas.name, roi.name, roi.hemisphere, band, measure,
                                  float(vals[b, r]), UNITS[measure], int(len(roi.vertices)),
-                                 bool(roi.small), np.nan))
+                                 bool(roi.small), bool(ok), np.nan))
     return pd.DataFrame(rows, columns=list(ROI_COLUMNS))
 
 
@@ -136,8 +137,9 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     from .inverse import inverse_operator
     from .progress import Stages
     from .rois import load_atlas
-    from .spectra import average_reference, epoch_cross_spectra, relative_power, \
-        sensor_band_power
+    from .spectra import (average_reference, broadband_cross_spectra, check_bands_within,
+                          epoch_cross_spectra, relative_power, sensor_band_power)
+    from .trust.resolvability import resolvable_areas
 
     t0 = time.perf_counter()
     config = config or AnalysisConfig()
@@ -154,18 +156,23 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
             raise InputError(f"channels {clean.ch_names} do not match the head model's "
                              f"{model.ch_names}")
         stages.step("cross-spectra")
+        check_bands_within(config.bands)
         csd_epochs = epoch_cross_spectra(clean.epochs, clean.sfreq, config.bands)
         csd = csd_epochs.mean(axis=0)
-        sens_abs, sens_rel = sensor_band_power(average_reference(csd))
+        # relative power: band power / power over the fixed 1-45 Hz range (config.BROADBAND_HZ)
+        total_epochs = broadband_cross_spectra(clean.epochs, clean.sfreq)
+        total = total_epochs.mean(axis=0)
+        sens_abs, sens_rel = sensor_band_power(average_reference(csd), average_reference(total))
         stages.step("sources")
         op = inverse_operator(config.method, config.orientation, config.lambda2)
         src_abs = op.power(csd)
-        src_rel = relative_power(src_abs)
+        src_rel = relative_power(src_abs, op.power(total))
         stages.step("areas")
         atlas_objs = tuple(load_atlas(a) for a in (atlases or DEFAULT_ATLASES))
         if custom_rois is not None:
             atlas_objs += (custom_rois,)
-        roi_table = _roi_table(atlas_objs, src_abs, src_rel, names)
+        roi_table = _roi_table(atlas_objs, src_abs, src_rel, names,
+                               resolvable_areas(config.lambda2))
         sensor_table = _sensor_table(clean.ch_names, sens_abs, sens_rel, names)
         fp = fingerprint_for(config, model.sha256)
         quality = _quality(clean, csd_epochs, op, atlas_objs[0], config)
@@ -194,7 +201,8 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         if config.n_boot:
             from .trust import add_intervals, add_sensor_intervals
 
-            kw = dict(n_boot=config.n_boot, seed=config.boot_seed, ci=config.ci, band_names=names)
+            kw = dict(n_boot=config.n_boot, seed=config.boot_seed, ci=config.ci, band_names=names,
+                      epoch_total=total_epochs)
             roi_table = add_intervals(roi_table, csd_epochs, op, atlas_objs, norm_rows=roi_rows,
                                       **kw)
             sensor_table = add_sensor_intervals(sensor_table, csd_epochs,
@@ -205,11 +213,21 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
 
         leak = leakage_for("brodmann", method=config.method, orientation=config.orientation,
                            lambda2=config.lambda2)
-        candidates = hints = None
+        candidates = hints = source_z = None
         if nm is not None:
-            from .targets import candidates_for_table
+            source_z = _source_z_maps(nm, fp, src_abs, src_rel, age=float(age),
+                                      allow_extrapolation=allow_extrapolation)
+            if source_z is not None:
+                from .targets.peaks import peak_candidates_for
 
-            candidates = candidates_for_table(roi_table)
+                zmaps = {(m, b): source_z[m][i] for m in source_z for i, b in enumerate(names)}
+                candidates = peak_candidates_for(zmaps, lambda2=config.lambda2)
+            else:
+                from .targets import candidates_for_table
+
+                log.warning("%s has no per-source norms beside it: candidates are areas ranked "
+                            "by their mean, not by the peaks of a z-map", nm.path or "norms")
+                candidates = candidates_for_table(roi_table)
             hints = leakage_hints(roi_table[roi_table["atlas"] == "brodmann"], leak)
     recording_info = RecordingInfo(
         path=str(rec.path) if rec.path else None, sha256=rec.sha256, sfreq=float(rec.sfreq),
@@ -227,7 +245,31 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
                           sensor_table=sensor_table, quality=quality, recording=recording_info,
                           norms=norms_info, warnings=warnings, atlases=atlas_objs, leakage=leak,
                           candidates=candidates, leakage_hints=hints, epoch_csd=csd_epochs,
-                          epoch_onsets_s=np.asarray(clean.epoch_onsets_s, dtype=float))
+                          epoch_onsets_s=np.asarray(clean.epoch_onsets_s, dtype=float),
+                          epoch_total=total_epochs, source_z=source_z)
+
+
+def _source_z_maps(norms, fp: Fingerprint, src_abs: np.ndarray, src_rel: np.ndarray, *,
+                   age: float, allow_extrapolation: bool) -> dict | None:
+    """Per-source predictive z-maps against the per-source norms beside ``norms`` (or None when
+    there are none): ``{"absolute": (n_bands, n_src), "relative": (n_bands, n_src)}``."""
+    from .norms.source_norms import read_source_norms, source_norms_path, source_z
+
+    if norms.path is None:
+        return None
+    path = source_norms_path(norms.path)
+    if not path.is_file():
+        return None
+    sn = read_source_norms(path, fingerprint=fp.to_dict())
+    lo, hi = sn.age_range
+    if not lo <= age <= hi:
+        if not allow_extrapolation:
+            raise InputError(f"age {age:g} y is outside the per-source norms' age range "
+                             f"({lo:g}-{hi:g} y); allow extrapolation explicitly to z-score "
+                             "anyway", path=path)
+        age = min(max(age, lo), hi)
+    return {m: source_z(sn, v, age=age, measure=m).astype(np.float32)
+            for m, v in (("absolute", src_abs), ("relative", src_rel)) if m in sn.measures}
 
 
 def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig) -> QualitySummary:

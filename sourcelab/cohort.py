@@ -88,12 +88,92 @@ class CohortBuild:
 
 
 def _cohort_tables(task):
-    """Worker function: analyse one reference recording, return its tables and fingerprint."""
+    """Worker function: analyse one reference recording; return its tables, fingerprint and
+    per-source maps (float32)."""
     from .analysis import analyze
 
     path, config, age = task
     res = analyze(path, config=config, age=age)
-    return res.roi_table, res.sensor_table, res.fingerprint
+    return (res.roi_table, res.sensor_table, res.fingerprint,
+            {"absolute": res.source_abs, "relative": res.source_rel})
+
+
+def fit_cohort(entries, source_maps, *, fingerprint: Fingerprint, condition: str,
+               model: str = "regression", degree: int | str = "auto",
+               bins: Sequence[float] | None = None, min_n_per_bin: int = 20,
+               robust: bool = True, cohort_info: dict | None = None, notes: Sequence[str] = ()):
+    """Fit the table norms and the per-source norms of a cohort's analyses.
+
+    Parameters
+    ----------
+    entries : sequence of (participant_id, age, roi_table, sensor_table)
+    source_maps : sequence of dict
+        Per entry, ``{"absolute": (n_bands, n_src), "relative": (n_bands, n_src)}``.
+    fingerprint : Fingerprint
+    condition : str
+    model, degree, bins, min_n_per_bin, robust, cohort_info, notes
+        See :func:`sourcelab.norms.fit_norms`.
+
+    Returns
+    -------
+    fit : NormsFit
+    source_norms : SourceNorms | None
+        Per-source age models of the same degree (None for age-binned norms, whose bins the
+        per-source file does not model).
+    """
+    import numpy as np
+
+    from .headmodel import load_head_model
+    from .norms.source_norms import fit_source_norms
+
+    fit = fit_norms(entries, fingerprint=fingerprint, condition=condition, model=model,
+                    degree=degree, bins=bins, min_n_per_bin=min_n_per_bin, robust=robust,
+                    cohort_info=cohort_info, notes=notes)
+    if model != "regression":
+        log.warning("norms: age-binned norms have no per-source norms; analyses against them "
+                    "rank areas by their mean instead of by z-map peaks")
+        return fit, None
+    ages = np.array([e[1] for e in entries], dtype=float)
+    maps = {m: np.stack([np.asarray(sm[m], dtype=np.float32) for sm in source_maps])
+            for m in ("absolute", "relative")}
+    sn = fit_source_norms(ages, maps, degree=int(fit.norms.cohort["degree"]),
+                          bands=[b[0] for b in fingerprint.bands],
+                          fingerprint=fingerprint.to_dict(), condition=condition,
+                          vertices=load_head_model().vertno, robust=robust)
+    return fit, sn
+
+
+def write_cohort_norms(fit, source_norms, out: str | Path):
+    """Write norms, per-source norms and the calibration table and figure beside them.
+
+    Parameters
+    ----------
+    fit : NormsFit
+    source_norms : SourceNorms | None
+    out : str | Path
+        The norms TSV; ``<stem>_sources.npz``, ``<stem>_calibration.tsv`` and
+        ``<stem>_calibration.png`` are written beside it.
+
+    Returns
+    -------
+    norms : Norms
+        As written (``path``, ``sha256``).
+    report : DataFrame
+    report_path, figure_path : Path
+    """
+    from .norms.calibration import calibration_report, plot_calibration
+    from .norms.source_norms import source_norms_path, write_source_norms
+
+    out = Path(out)
+    norms = write_norms(fit.norms, out)
+    if source_norms is not None:
+        write_source_norms(source_norms, source_norms_path(out))
+    report = calibration_report(fit)
+    report_path = out.with_name(out.stem + "_calibration.tsv")
+    figure_path = out.with_name(out.stem + "_calibration.png")
+    atomic_write_text(report_path, report.to_csv(sep="\t", index=False, na_rep="n/a"))
+    save_png(plot_calibration(fit), figure_path, dpi=120)
+    return norms, report, report_path, figure_path
 
 
 def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | Path,
@@ -111,7 +191,8 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
         BIDS participants file: ``participant_id``, ``age`` (years), optional ``sex``,
         ``condition``.
     out : str | Path
-        Norms file to write.  Beside it: ``<stem>_calibration.tsv`` and ``<stem>_calibration.png``.
+        Norms file to write.  Beside it: ``<stem>_sources.npz`` (per-source norms, for z-map
+        peaks), ``<stem>_calibration.tsv`` and ``<stem>_calibration.png``.
     config : AnalysisConfig, optional
         Passed to :func:`sourcelab.analysis.analyze` for every recording (default settings when
         omitted).
@@ -137,7 +218,6 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
     """
     from .batch.engines import SerialEngine, run_unordered
     from .config import AnalysisConfig
-    from .norms.calibration import calibration_report, plot_calibration
 
     config = config or AnalysisConfig()
     cohort_dir, out = Path(cohort_dir), Path(out)
@@ -195,11 +275,11 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
                 done[i] = res
     finally:
         bar.close()
-    entries = []
+    entries, maps = [], []
     fp0: Fingerprint | None = None
     for i in sorted(done):
         pid, age = pids[i]
-        roi_table, sensor_table, fp = done[i]
+        roi_table, sensor_table, fp, source_maps = done[i]
         if fp0 is None:
             fp0 = fp
         elif fp0.differences(fp):
@@ -215,6 +295,7 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
             log.warning("norms: %s skipped: %s", pid, exc)
             continue
         entries.append((pid, age, roi_table, sensor_table))
+        maps.append(source_maps)
     if fp0 is None:
         raise InputError(f"no participant could be analysed ({len(failures)} failures)",
                          path=cohort_dir)
@@ -224,14 +305,10 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
         used = set(e[0] for e in entries)
         sex = parts[parts["participant_id"].isin(used)]["sex"].str.strip().value_counts()
         info["sex"] = {str(k): int(v) for k, v in sex.items()}
-    fit = fit_norms(entries, fingerprint=fp0, condition=condition, model=model, degree=degree,
-                    bins=bins, min_n_per_bin=min_n_per_bin, robust=robust, cohort_info=info,
-                    notes=notes)
-    norms = write_norms(fit.norms, out)
-    report = calibration_report(fit)
-    report_path = out.with_name(out.stem + "_calibration.tsv")
-    figure_path = out.with_name(out.stem + "_calibration.png")
-    atomic_write_text(report_path, report.to_csv(sep="\t", index=False, na_rep="n/a"))
-    save_png(plot_calibration(fit), figure_path, dpi=120)
+    fit, source_norms = fit_cohort(entries, maps, fingerprint=fp0, condition=condition,
+                                   model=model, degree=degree, bins=bins,
+                                   min_n_per_bin=min_n_per_bin, robust=robust,
+                                   cohort_info=info, notes=notes)
+    norms, report, report_path, figure_path = write_cohort_norms(fit, source_norms, out)
     return CohortBuild(norms=norms, fit=fit, report=report, report_path=report_path,
                        figure_path=figure_path, failures=tuple(failures))

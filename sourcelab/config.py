@@ -31,6 +31,13 @@ DEFAULT_BANDS: tuple[tuple[str, float, float], ...] = (
 
 from .constants import SITES_1020  # noqa: E402,F401  (re-exported: historical location)
 
+#: Broadband range (Hz, [low, high)) that relative power divides by: the whole analysed range,
+#: fixed and independent of the band list, so a relative value means the same thing whatever
+#: bands are configured.  1-45 Hz: below 1 Hz resting EEG is dominated by drift and sweat, above
+#: 45 Hz by muscle and mains (common practice; the default band-pass ``l_freq``-``h_freq`` is
+#: 0.5-45 Hz).  Every band must lie inside it.
+BROADBAND_HZ: tuple[float, float] = (1.0, 45.0)
+
 
 @dataclass(frozen=True)
 class Bands:
@@ -71,6 +78,13 @@ class Bands:
                                  field="bands")
             edges.append((lo, hi))
         object.__setattr__(self, "edges", tuple(edges))
+        # overlapping bands would count the same power twice (touching edges are fine: [lo, hi))
+        order = sorted(zip(self.edges, self.names))
+        for ((lo1, hi1), n1), ((lo2, hi2), n2) in zip(order, order[1:]):
+            if lo2 < hi1:
+                raise InputError(f"bands {n1!r} ({lo1:g}-{hi1:g} Hz) and {n2!r} "
+                                 f"({lo2:g}-{hi2:g} Hz) overlap; bands must not overlap",
+                                 field="bands")
 
     def __len__(self) -> int:
         return len(self.names)

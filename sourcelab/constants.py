@@ -29,7 +29,7 @@ MEASURES: tuple[str, ...] = ("absolute", "relative")
 #: Units of the values, by measure (column descriptions in the table sidecars).
 UNITS = {
     "absolute": "sLORETA power (standardised, data in µV)",
-    "relative": "fraction of total analysed power",
+    "relative": "fraction of 1-45 Hz power",
     "sensor_absolute": "µV²",
 }
 

@@ -5,7 +5,8 @@ minutes of eyes-closed rest at 256 Hz.  The simulation plants an excess of theta
 a left dorsolateral prefrontal patch (around MNI (-40, 30, 30), Brodmann areas 9/46) on top of the
 normal posterior alpha that every member of the invented cohort has.  The demo norms come from 80
 invented adults aged 18-65 simulated with between-person variability (log-normal generator
-strengths, alpha frequency that slows with age, background power that falls with age).
+strengths, alpha frequency that slows with age, background power that falls with age, a
+person-specific 1/f exponent of the background).
 """
 
 from __future__ import annotations
@@ -27,29 +28,57 @@ COHORT_SEED = 19291
 PLANTED = dict(rois=("BA8", "BA9", "BA46"), hemisphere="left", band="theta")
 _PLANTED_CENTER = (-40.0, 30.0, 30.0)
 
+# Between-person variability of the invented people.  Targets (from memory, not fitted to any
+# data set): adult between-person SD of log10 absolute band power about 0.2-0.3 and of logit
+# relative power about 0.3-0.5 (John et al. 1980, Science 210:1255-1258; Gasser, Bächer & Möcks
+# 1982, Electroencephalogr Clin Neurophysiol 53:119-124); SD of the aperiodic (1/f) exponent
+# about 0.2 across adults (Donoghue et al. 2020, Nat Neurosci 23:1655-1665).  Amplitude SDs are
+# in natural log; power SD is twice that (0.25 ln amplitude -> 0.22 log10 power).
+#: ln-SD of the alpha generators' amplitude (shared by the four alpha patches of a person);
+#: 0.25 -> 0.22 log10 in power (0.35 produced invented people whose every epoch exceeded the
+#: 150 µV peak-to-peak rejection threshold).
+ALPHA_LN_SD = 0.25
+#: ln-SD of each theta and beta generator's amplitude.
+RHYTHM_LN_SD = 0.3
+#: ln-SD of the background RMS (0.25 -> 0.22 log10 in power).
+BACKGROUND_LN_SD = 0.25
+#: Mean and SD of the background's 1/f exponent.
+EXPONENT_MEAN, EXPONENT_SD = 1.0, 0.2
+#: Person-specific smooth changes of the background spectrum: ln-power gain SD at each centre
+#: (Hz).  Without them a band's share of 1-45 Hz power barely differs between invented people
+#: (measured: relative-power SDs 0.06-0.15 logit for theta and alpha, far below the 0.3-0.5
+#: above); 0.5 was chosen to bring the median theta/alpha relative SD into that range while the
+#: absolute SDs stay within 0.2-0.3 log10 (measured on a rebuilt cohort; see the report).
+#: No centre above 20 Hz: a gain there makes 25-45 Hz background look like muscle to the
+#: cleaning rule (measured: whole invented recordings rejected).
+BAND_CENTRES_HZ = (2.0, 6.0, 10.0, 20.0)
+BAND_LN_SD = 0.5
+
 
 def _person_generators(rng: np.random.Generator, age: float) -> tuple[Generator, ...]:
     """Generators of one invented person: bilateral occipital alpha, frontal-midline theta,
     central beta; strengths log-normal across people, alpha frequency slowing with age."""
     alpha_f = 10.4 - 0.02 * (age - 18) + rng.normal(0, 0.4)
-    a = np.exp(rng.normal(np.log(0.45), 0.25))
+    a = np.exp(rng.normal(np.log(0.45), ALPHA_LN_SD))
     gens = [
         Generator((-18, -92, 4), "left", freq=alpha_f, amplitude=a * np.exp(rng.normal(0, 0.1))),
         Generator((20, -92, 4), "right", freq=alpha_f, amplitude=a * np.exp(rng.normal(0, 0.1))),
         Generator((-30, -70, 40), "left", freq=alpha_f, amplitude=0.5 * a),
         Generator((30, -70, 40), "right", freq=alpha_f, amplitude=0.5 * a),
-        Generator((-4, 40, 20), "left", freq=6.0, amplitude=np.exp(rng.normal(np.log(0.3), 0.3))),
-        Generator((4, 40, 20), "right", freq=6.0, amplitude=np.exp(rng.normal(np.log(0.3), 0.3))),
+        Generator((-4, 40, 20), "left", freq=6.0,
+                  amplitude=np.exp(rng.normal(np.log(0.3), RHYTHM_LN_SD))),
+        Generator((4, 40, 20), "right", freq=6.0,
+                  amplitude=np.exp(rng.normal(np.log(0.3), RHYTHM_LN_SD))),
         Generator((-38, -20, 55), "left", freq=18.0, bandwidth=6.0,
-                  amplitude=np.exp(rng.normal(np.log(0.25), 0.3))),
+                  amplitude=np.exp(rng.normal(np.log(0.25), RHYTHM_LN_SD))),
         Generator((38, -20, 55), "right", freq=18.0, bandwidth=6.0,
-                  amplitude=np.exp(rng.normal(np.log(0.25), 0.3))),
+                  amplitude=np.exp(rng.normal(np.log(0.25), RHYTHM_LN_SD))),
     ]
     return tuple(gens)
 
 
 def _person_background(rng: np.random.Generator, age: float) -> float:
-    return float(np.exp(rng.normal(np.log(10.0) - 0.004 * (age - 18), 0.15)))
+    return float(np.exp(rng.normal(np.log(10.0) - 0.004 * (age - 18), BACKGROUND_LN_SD)))
 
 
 def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
@@ -58,8 +87,15 @@ def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
     from .headmodel import load_head_model
 
     gens = _person_generators(rng, age) + tuple(extra)
+    background = _person_background(rng, age)
+    exponent = float(np.clip(rng.normal(EXPONENT_MEAN, EXPONENT_SD), 0.4, 1.8))
+    # shape changes, not scale changes: centred across the centres (the overall scale varies
+    # through the background and generators already), SD BAND_LN_SD at each centre
+    g = rng.normal(0.0, BAND_LN_SD / np.sqrt(1 - 1 / len(BAND_CENTRES_HZ)), len(BAND_CENTRES_HZ))
+    shape = tuple((c, float(x)) for c, x in zip(BAND_CENTRES_HZ, g - g.mean()))
     return simulate_raw(load_head_model(), duration_s=duration_s, sfreq=256.0,
-                        generators=gens, background_uv=_person_background(rng, age), rng=rng)
+                        generators=gens, background_uv=background,
+                        background_exponent=exponent, background_spectral_gain=shape, rng=rng)
 
 
 def demo_recording():
@@ -120,14 +156,18 @@ def demo_result(*, config=None, progress: bool | None = False):
 
 
 def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 120.0) -> Path:
-    """Simulate the invented cohort, analyse every member, and write norms (+ calibration)."""
+    """Simulate the invented cohort, analyse every member, and write norms.
+
+    Beside ``out``: the per-source norms (``<stem>_sources.npz``, same fingerprint) and the
+    calibration table and figure, as :func:`sourcelab.build_norms` writes them.
+    """
     from .analysis import analyze, fingerprint_for
+    from .cohort import fit_cohort, write_cohort_norms
     from .config import AnalysisConfig
     from .errors import InputError
-    from .norms import norms_from_tables, write_norms
 
     config = AnalysisConfig(n_boot=0)  # intervals do not change the values the norms need
-    entries = []
+    entries, maps = [], []
     for pid, age, raw in cohort(n, duration_s=duration_s):
         try:
             res = analyze(raw, config=config)
@@ -135,15 +175,23 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 120.0)
             log.warning("demo cohort: %s left out: %s", pid, exc)
             continue
         entries.append((pid, age, res.roi_table, res.sensor_table))
+        maps.append({"absolute": res.source_abs, "relative": res.source_rel})
         log.info("demo cohort: %s (age %.1f) done", pid, age)
-    norms = norms_from_tables(
-        entries, fingerprint=fingerprint_for(config), condition=DEMO_CONDITION,
+    fit, source_norms = fit_cohort(
+        entries, maps, fingerprint=fingerprint_for(config), condition=DEMO_CONDITION,
         cohort_info={"source": "INVENTED: simulated by sourcelab.demo (seed %d)" % COHORT_SEED},
         notes=("INVENTED demo norms: simulated adults, no real person's data. "
                "Never use them to assess a real person.",))
-    written = write_norms(norms, out)
+    written = write_cohort_norms(fit, source_norms, out)[0]
     from .data import DATA_DIR, update_manifest
+    from .norms.source_norms import source_norms_path
 
-    if Path(out).resolve().parent == DATA_DIR.resolve():  # the shipped file: record its hash
-        update_manifest({Path(out).name: written.sha256})
+    if Path(out).resolve().parent == DATA_DIR.resolve():  # the shipped files: record hashes
+        from .provenance import sha256_file
+
+        beside = [source_norms_path(out)] + [Path(out).with_name(Path(out).stem + suffix)
+                                             for suffix in ("_calibration.tsv",
+                                                            "_calibration.png")]
+        update_manifest({Path(out).name: written.sha256,
+                         **{p.name: sha256_file(p) for p in beside}})
     return Path(out)

@@ -930,7 +930,8 @@ def _pid_alive(pid: int) -> bool:
 #: PNG text written into every PNG sourcelab saves as a file of its own (how it recognises them).
 PNG_METADATA = {"Software": f"sourcelab {__version__}"}
 
-_FILE_KINDS = ("png", "norms", "target", "candidates", "leakage", "calibration", "stream-log")
+_FILE_KINDS = ("png", "norms", "target", "candidates", "leakage", "calibration", "stream-log",
+               "source-norms")
 
 
 def _png_software(head: bytes) -> str | None:
@@ -972,6 +973,8 @@ def recognise_output_file(path: str | Path, kind: str) -> bool:
     if kind == "png":
         sw = _png_software(head)
         return sw is not None and sw.startswith("sourcelab")
+    if kind == "source-norms":
+        return _npz_format(path).startswith("sourcelab-source-norms")
     text = head.decode("utf-8", "replace")
     first = text.split("\n", 1)[0]
     if kind == "norms":
@@ -996,6 +999,45 @@ _OTHER_OWN_FILES = (
     ("headmodel_sidecar", re.compile(r'^\{\s*"bytes"\s*:\s*\d+,\s*"file"\s*:\s*"[^"/]+\.npz"')),
     ("output_marker", re.compile(r'"(?:' + MARKER_KEY + r'|sourcelab_provenance)"\s*:')),
 )
+
+
+def _npz_format(path) -> str:
+    """The ``format`` string array of an ``.npz`` sourcelab wrote (``""`` for anything else)."""
+    import zipfile
+
+    import numpy as np
+
+    try:
+        with np.load(path, allow_pickle=False) as z:
+            return str(z["format"]) if "format" in z.files else ""
+    except (OSError, ValueError, KeyError, zipfile.BadZipFile):
+        return ""
+
+
+def npz_bytes(arrays: dict) -> bytes:
+    """An uncompressed ``.npz`` with fixed zip timestamps (equal arrays give equal bytes).
+
+    Parameters
+    ----------
+    arrays : dict of str -> ndarray
+        No object arrays (readers use ``allow_pickle=False``).
+
+    Returns
+    -------
+    bytes
+    """
+    import io
+    import zipfile
+
+    import numpy as np
+
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
+        for key, arr in arrays.items():
+            info = zipfile.ZipInfo(f"{key}.npy", date_time=(1980, 1, 1, 0, 0, 0))
+            with zf.open(info, "w", force_zip64=True) as f:
+                np.lib.format.write_array(f, np.asanyarray(arr), allow_pickle=False)
+    return buf.getvalue()
 
 
 def recognise_any_output_file(path: str | Path) -> bool:

@@ -19,7 +19,7 @@ from .provenance import Fingerprint
 
 #: Columns every ``roi_table`` starts with, in order (more follow: p, fdr, interval columns ...).
 ROI_COLUMNS = ("atlas", "roi", "hemisphere", "band", "measure", "value", "unit", "n_vertices",
-               "small", "z")
+               "small", "resolvable", "z")
 #: Columns every ``sensor_table`` starts with.
 SENSOR_COLUMNS = ("channel", "band", "measure", "value", "unit", "z")
 
@@ -167,6 +167,12 @@ class AnalysisResult:
         reference), kept for resampling (confidence intervals) and reliability.
     epoch_onsets_s : ndarray, shape (n_epochs,) | None
         Onset of each clean epoch from the start of the recording, s.
+    source_z : dict | None
+        With per-source norms: ``{"absolute": (n_bands, n_src), "relative": ...}`` predictive
+        z (normal-equivalent) per source, float32.
+    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch) | None
+        Per-epoch broadband (:data:`sourcelab.config.BROADBAND_HZ`) cross-spectra, the
+        denominator of relative power.
     """
 
     config: AnalysisConfig
@@ -188,6 +194,8 @@ class AnalysisResult:
     leakage_hints: object | None = None
     epoch_csd: np.ndarray | None = None
     epoch_onsets_s: np.ndarray | None = None
+    epoch_total: np.ndarray | None = None
+    source_z: dict | None = None
 
     # ------------------------------------------------------------------ access
     @property
@@ -277,15 +285,24 @@ class AnalysisResult:
                  f"data in {q.n_epochs} epochs"]
         t = self.roi_table
         if self.has_z:
-            z = t["z"].to_numpy(dtype=float)
+            # the predictive test's normal deviate (what p and FDR use), when present
+            z = t["z_equivalent" if "z_equivalent" in t else "z"].to_numpy(dtype=float)
             n = int(np.isfinite(z).sum())
             big = int(np.sum(np.abs(z[np.isfinite(z)]) > Z_THRESHOLD))
             lines.append(f"{n} area and network z-scores; {big} with |z| > {Z_THRESHOLD} "
                          f"({0.05 * n:.0f} expected by chance alone)")
             if self.candidates is not None and len(self.candidates):
                 c = self.candidates.iloc[0]
-                lines.append(f"largest deviation: {c['roi']} {c['hemisphere']} {c['band']} "
-                             f"{c['measure']} power, z = {c['z']:+.2f}")
+                if "peak_z" in c:  # peak-ranked candidates (per-source norms)
+                    lines.append(
+                        f"first candidate: {c['band']} {c['measure']} power {c['direction']} "
+                        f"in {c['area']} {c['hemisphere']} (peak z {c['peak_z']:+.2f} at MNI "
+                        f"{c['x_mni152']:.0f}, {c['y_mni152']:.0f}, {c['z_mni152']:.0f}; "
+                        f"probability the generator lies in this area "
+                        f"{c['probability']:.0%} under the simulation model)")
+                else:
+                    lines.append(f"largest deviation: {c['roi']} {c['hemisphere']} {c['band']} "
+                                 f"{c['measure']} power, z = {c['z']:+.2f}")
         else:
             lines.append("no norms given: values only, no z-scores")
         lines += [f"warning: {w}" for w in self.warnings]
@@ -298,7 +315,8 @@ class AnalysisResult:
         rows = "".join(f"<li>{html.escape(line)}</li>" for line in self.summary().splitlines())
         table = ""
         if self.candidates is not None and len(self.candidates):
-            cols = [c for c in ("rank", "roi", "hemisphere", "band", "measure", "z")
+            cols = [c for c in ("rank", "area", "roi", "hemisphere", "band", "measure",
+                                "direction", "peak_z", "z", "probability")
                     if c in self.candidates.columns]
             table = self.candidates[cols].head(10).to_html(index=False, float_format="%.2f")
         return f"<div><b>sourcelab analysis</b><ul>{rows}</ul>{table}</div>"

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .config import Bands
+from .config import BROADBAND_HZ, Bands
 from .errors import InputError
 
 
@@ -238,26 +238,74 @@ def average_reference(csd: np.ndarray) -> np.ndarray:
     return p @ csd @ p
 
 
-def sensor_band_power(csd: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def broadband_cross_spectra(epochs: np.ndarray, sfreq: float, *,
+                            total: tuple[float, float] = BROADBAND_HZ) -> np.ndarray:
+    """Per-epoch cross-spectra of the fixed broadband range relative power divides by.
+
+    Parameters
+    ----------
+    epochs : ndarray, shape (n_epochs, n_ch, n_times)
+    sfreq : float
+    total : (float, float)
+        Range in Hz, ``[low, high)``; default :data:`sourcelab.config.BROADBAND_HZ` (1-45 Hz).
+
+    Returns
+    -------
+    ndarray, shape (n_epochs, n_ch, n_ch)
+        Same scaling as :func:`epoch_cross_spectra` (its diagonal is broadband power).
+    """
+    band = Bands(names=("broadband",), edges=(tuple(float(f) for f in total),))
+    return epoch_cross_spectra(epochs, sfreq, band)[:, 0]
+
+
+def check_bands_within(bands: Bands, total: tuple[float, float] = BROADBAND_HZ) -> None:
+    """Refuse bands reaching outside the broadband total (their relative power is undefined)."""
+    lo_t, hi_t = total
+    for name, (lo, hi) in zip(bands.names, bands.edges):
+        if lo < lo_t or hi > hi_t:
+            raise InputError(f"band {name!r} ({lo:g}-{hi:g} Hz) reaches outside the "
+                             f"{lo_t:g}-{hi_t:g} Hz broadband total that relative power "
+                             "divides by")
+
+
+def sensor_band_power(csd: np.ndarray, total_csd: np.ndarray | None = None
+                      ) -> tuple[np.ndarray, np.ndarray]:
     """Absolute and relative sensor band power from average-referenced mean cross-spectra.
 
     Parameters
     ----------
     csd : ndarray, shape (n_bands, n_ch, n_ch)
+    total_csd : ndarray, shape (n_ch, n_ch), optional
+        Average-referenced broadband (1-45 Hz) cross-spectrum; see :func:`relative_power`.
 
     Returns
     -------
     absolute : ndarray, shape (n_bands, n_ch)
         Diagonal (squared data unit, e.g. µV²).
     relative : ndarray, shape (n_bands, n_ch)
-        Absolute divided by the sum over the analysed bands.
+        Absolute divided by the broadband power (or, without ``total_csd``, by the band sum).
     """
     absolute = np.einsum("bcc->bc", csd).copy()
-    return absolute, relative_power(absolute)
+    total = None if total_csd is None else np.einsum("cc->c", total_csd)[None]
+    return absolute, relative_power(absolute, total)
 
 
-def relative_power(absolute: np.ndarray) -> np.ndarray:
-    """Band power divided by its sum over bands (axis 0), per item."""
-    total = absolute.sum(axis=0, keepdims=True)
+def relative_power(absolute: np.ndarray, total: np.ndarray | None = None) -> np.ndarray:
+    """Band power divided by broadband power, per item.
+
+    Parameters
+    ----------
+    absolute : ndarray, shape (n_bands, ...)
+    total : ndarray, shape (1, ...) or (...), optional
+        Power over the fixed broadband range (:data:`sourcelab.config.BROADBAND_HZ`).  The
+        pipeline always passes it.  Without it the sum over the given bands is used (the
+        pre-0.2 definition, which depends on the band list; kept for callers that have no
+        broadband spectrum).
+    """
+    if total is None:
+        total = absolute.sum(axis=0, keepdims=True)
+    total = np.asarray(total)
+    if total.ndim == absolute.ndim - 1:
+        total = total[None]
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(total > 0, absolute / total, np.nan)

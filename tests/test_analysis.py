@@ -5,6 +5,7 @@ import pytest
 
 from sourcelab.config import AnalysisConfig
 from sourcelab.analysis import analyze
+from sourcelab.errors import InputError
 from sourcelab.simulate import Generator, simulate_raw
 
 
@@ -51,8 +52,9 @@ def test_right_occipital_alpha_ranks_right_visual_areas(occipital_alpha_edf):
     assert np.linalg.norm(m.src_mni[i_peak] - np.array([14.0, -95.0, 2.0])) < 20.0
     home = [(r.name, r.hemisphere) for r in res.atlas("brodmann").rois if i_peak in r.vertices]
     assert home and home[0] in visual, home
-    # relative power sums to one over bands at every source
-    np.testing.assert_allclose(res.source_rel.sum(axis=0), 1.0, rtol=1e-5)
+    # relative power is band power over the fixed 1-45 Hz total: the default bands (1-30 Hz)
+    # hold less than all of it at every source
+    assert (res.source_rel.sum(axis=0) < 1.0).all() and (res.source_rel.sum(axis=0) > 0.5).all()
     assert res.fingerprint.headmodel_sha256 == m.sha256
     assert res.quality.kept_s >= 100
 
@@ -65,3 +67,32 @@ def test_same_answer_from_memory_and_file(occipital_alpha_edf):
     a = analyze(occipital_alpha_edf).roi_table
     b = analyze(raw).roi_table
     np.testing.assert_allclose(a.value, b.value, rtol=1e-9)
+
+
+def test_relative_power_uses_the_fixed_broadband_total(occipital_alpha_edf):
+    # Relative power = band power / power over BROADBAND_HZ (1-45 Hz), whatever the band list:
+    # bands that tile 1-45 Hz sum to one at every source and channel (exact identity of the
+    # one-sided spectrum summed over disjoint bins), and a band's relative value does not
+    # change when other bands are added or removed.
+    from sourcelab.config import Bands
+
+    tiled = Bands(names=("a", "b", "c"), edges=((1.0, 8.0), (8.0, 20.0), (20.0, 45.0)))
+    res = analyze(occipital_alpha_edf, config=AnalysisConfig(bands=tiled, n_boot=0))
+    np.testing.assert_allclose(res.source_rel.sum(axis=0), 1.0, rtol=1e-5)
+    np.testing.assert_allclose(res.sensor_rel.sum(axis=0), 1.0, rtol=1e-9)
+    one = Bands(names=("b",), edges=((8.0, 20.0),))
+    res1 = analyze(occipital_alpha_edf, config=AnalysisConfig(bands=one, n_boot=0))
+    np.testing.assert_allclose(res1.source_rel[0], res.source_rel[1], rtol=1e-5)
+
+
+def test_overlapping_or_out_of_range_bands_are_refused(occipital_alpha_edf):
+    from sourcelab.config import Bands
+
+    with pytest.raises(InputError, match="overlap"):
+        Bands(names=("a", "b"), edges=((4.0, 8.0), (7.0, 12.0)))
+    gamma = Bands(names=("gamma",), edges=((30.0, 60.0),))
+    with pytest.raises(InputError, match="outside the filter pass band"):
+        AnalysisConfig(bands=gamma, n_boot=0)
+    slow = Bands(names=("slow",), edges=((0.5, 4.0),))  # inside the pass band, below 1 Hz
+    with pytest.raises(InputError, match="outside the 1-45 Hz"):
+        analyze(occipital_alpha_edf, config=AnalysisConfig(bands=slow, n_boot=0))

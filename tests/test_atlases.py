@@ -56,7 +56,8 @@ def test_shipped_files_match_manifest():
     for name, digest in manifest.items():
         assert hashlib.sha256(DATA.joinpath(name).read_bytes()).hexdigest() == digest, name
     shipped = {p.name for p in DATA.iterdir()
-               if p.name.endswith((".npz", ".json", ".tsv")) and p.name != "MANIFEST.json"}
+               if p.name.endswith((".npz", ".json", ".tsv", ".png"))
+               and p.name != "MANIFEST.json"}
     assert shipped == set(manifest)
 
 

@@ -392,6 +392,9 @@ AUDITED = {
         ("tmp.unlink()", "its own temporary file"),
     ],
     "demo.py": [("tmp.replace(path)", "own temporary EDF inside the demo's temporary folder")],
+    "simulate/mismatch.py": [("os.replace(tmp, path)", "benchmark cache: its own temporary file "
+                                                       "into its own cache folder (outside any "
+                                                       "user folder)")],
     "data/__init__.py": [("tmp.replace(path)", "developer rebuild: the shipped data manifest, "
                                                "written through its own temporary file")],
 }

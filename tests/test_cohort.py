@@ -31,12 +31,20 @@ def _fake_analysis(cohort, fail_id):
     for pid, age, roi, sen in cohort.entries:
         by_file[pid] = (roi, sen)
 
+    from sourcelab.headmodel import load_head_model
+
+    n_src = load_head_model().n_src
+    rng = np.random.default_rng(3)
+
     def analyze(recording, *, config=None, age=None, norms=None, **kw):
         pid = recording.name.split("_")[0]
         if pid == fail_id:
             raise RuntimeError("flat channels: Fz, Cz\nsecond line")
         roi, sen = by_file[pid]
-        return types.SimpleNamespace(roi_table=roi, sensor_table=sen, fingerprint=FP)
+        # invented per-source maps (the cohort builder also fits per-source norms)
+        src = rng.lognormal(0.0, 0.3, (len(FP.bands), n_src)).astype(np.float32)
+        return types.SimpleNamespace(roi_table=roi, sensor_table=sen, fingerprint=FP,
+                                     source_abs=src, source_rel=src / (3 * src.max()))
     return types.SimpleNamespace(analyze=analyze)
 
 

@@ -30,12 +30,18 @@ def test_demo_end_to_end(tmp_path, capsys):
                  "candidates.tsv", "leakage_brodmann.tsv", "demo-01_invented_eeg.edf"):
         assert (out / name).is_file(), name
     t = pd.read_csv(out / "roi_table.tsv", sep="\t")
-    # the planted (invented) left dorsolateral prefrontal theta excess is flagged where it was put
-    theta = t[(t.atlas == "brodmann") & (t.band == "theta") & (t.measure == "absolute")]
-    top = theta.sort_values("z", ascending=False).iloc[0]
-    assert (top.roi, top.hemisphere) in {("BA8", "left"), ("BA9", "left"), ("BA46", "left")}
-    assert 2.5 < top.z < 6
-    assert bool(top.fdr)
+    # issue 14: candidate #1 is the planted (invented) left dorsolateral prefrontal theta excess,
+    # absolute power, named by its z-map peak (sourcelab/demo.py: MNI (-40, 30, 30), BA8/9/46)
+    cand = pd.read_csv(out / "candidates.tsv", sep="\t", comment="#")
+    first = cand.iloc[0]
+    assert (first.band, first.measure, first.direction) == ("theta", "absolute", "above norm")
+    assert (first.area, first.hemisphere) in {("BA8", "left"), ("BA9", "left"),
+                                              ("BA46", "left")}
+    assert first.peak_z > 1.96 and 0 < first.probability < 1
+    # relative power is compositional: no relative row may reach |z| > 6 (issue 14)
+    s = pd.read_csv(out / "sensor_table.tsv", sep="\t")
+    for table in (t, s):
+        assert table.loc[table.measure == "relative", "z"].abs().max() <= 6
     # bootstrap intervals are present and contain the value
     assert ((t.value_lo <= t.value) & (t.value <= t.value_hi)).all()
     prov = json.loads((out / "provenance.json").read_text())

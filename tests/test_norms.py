@@ -35,21 +35,40 @@ def norms_file(norms, tmp_path):
 
 # ----------------------------------------------------------------------------- reference facts
 
-def test_apply_norms_known_z_and_p():
-    # A hand-made one-quantity norm (degree 0, mean 1, SD 0.5 on log10): a value of 100 is
-    # z = (log10(100) - 1) / 0.5 = +2 and a value of 1 is z = -2; the two-sided p is
-    # 1 - P(|Z| < 2) = 1 - 0.954500 (standard normal table, DATA-SOURCES.md); the chance
-    # summary's expectation beyond 1.96 is 1 - 0.950004 per test.
+def _binned_row(n: int) -> dict:
+    # one quantity, degree 0 (an age bin), mean 1 and SD 0.5 on log10, n controls:
+    # (XᵀX)⁻¹ = 1/n, df = n - 1 (FORMAT.md)
     row = {"kind": "roi", "atlas": "brodmann", "name": "BA17", "hemisphere": "left",
            "band": "alpha", "measure": "absolute", "age_min": 10.0, "age_max": 80.0,
            "model": "binned", "degree": 0, "transform": "log10", "b0": 1.0, "b1": 0.0,
-           "b2": 0.0, "b3": 0.0, "sd": 0.5, "n": 50}
-    nm = Norms(table=pd.DataFrame([row]), fingerprint=FP, condition="eyes closed")
+           "b2": 0.0, "b3": 0.0, "sd": 0.5, "n": n, "df": n - 1}
+    from sourcelab.norms.io import V_COLUMNS
+
+    row.update({c: 0.0 for c in V_COLUMNS}, v00=1.0 / n)
+    return row
+
+
+@pytest.mark.parametrize("n", [20, 100_000])
+def test_apply_norms_known_z_and_predictive_p(n):
+    # A value of 100 is z = (log10(100) - 1) / 0.5 = +2 and a value of 1 is z = -2.  The
+    # predictive p of a case against n controls is Student t with n - 1 df at
+    # t = z / sqrt(1 + 1/n) (Crawford & Howell 1998, from memory; scipy.stats.t is the
+    # reference); with n -> infinity it tends to the normal 1 - P(|Z| < 2) = 1 - 0.954500
+    # (standard normal table, DATA-SOURCES.md).
+    from scipy import stats
+
+    nm = Norms(table=pd.DataFrame([_binned_row(n)]), fingerprint=FP, condition="eyes closed")
     t = pd.DataFrame({"atlas": ["brodmann"] * 2, "roi": ["BA17"] * 2, "hemisphere": ["left"] * 2,
                       "band": ["alpha"] * 2, "measure": ["absolute"] * 2, "value": [100.0, 1.0]})
     out = apply_norms(t, nm, age=30.0, fingerprint=FP, condition="eyes closed")
     np.testing.assert_allclose(out["z"], [2.0, -2.0], rtol=1e-12)
-    np.testing.assert_allclose(out["p"], 1 - 0.954500, atol=1e-6)
+    expected = 2 * stats.t.sf(2.0 / np.sqrt(1 + 1 / n), n - 1)
+    np.testing.assert_allclose(out["p"], expected, rtol=1e-10)
+    if n > 1000:
+        np.testing.assert_allclose(out["p"], 1 - 0.954500, atol=1e-5)
+    else:
+        assert (out["p"] > 1 - 0.954500 + 0.01).all()  # small norms: clearly less extreme
+    np.testing.assert_allclose(np.abs(out["z_equivalent"]), stats.norm.isf(expected / 2))
     from sourcelab.norms import chance_summary
 
     assert chance_summary(out)["expected_beyond_1.96"] == pytest.approx(2 * (1 - 0.950004),
@@ -218,8 +237,19 @@ def test_z_known_answer_against_estimated_model(cohort, norms):
                                   for tr, v in zip(t["transform"], tv)]})
     out = apply_norms(roi, norms, age=age, fingerprint=FP, condition="eyes closed")
     np.testing.assert_allclose(out.z, k, rtol=1e-9, atol=1e-9)
-    # two-sided p (scipy.stats normal) and BH over every z of the table
-    np.testing.assert_allclose(out.p, 2 * stats.norm.sf(np.abs(k)), rtol=1e-9)
+    # two-sided predictive p: Student t (scipy.stats) with the row's df at
+    # t = z / sqrt(1 + h0), h0 = x0' (X'X)^-1 x0 from the row's stored (X'X)^-1 (Crawford &
+    # Garthwaite 2006, from memory); BH over every p of the table
+    x0 = np.stack([np.ones_like(k), np.full_like(k, x), np.full_like(k, x**2),
+                   np.full_like(k, x**3)], axis=1) * (np.arange(4) <= t.degree.to_numpy()[:, None])
+    v = t[[f"v{j}{i}" for j in range(4) for i in range(j, 4)]].to_numpy()
+    iu = np.triu_indices(4)
+    m = np.zeros((len(t), 4, 4))
+    m[:, iu[0], iu[1]] = v
+    m[:, iu[1], iu[0]] = v
+    h0 = np.einsum("ri,rij,rj->r", x0, m, x0)
+    np.testing.assert_allclose(out.p, 2 * stats.t.sf(np.abs(k) / np.sqrt(1 + h0), t.df),
+                               rtol=1e-9)
     np.testing.assert_allclose(out.fdr_q, stats.false_discovery_control(out.p), rtol=1e-12)
     assert not out.extrapolated.any() and not out.no_norm.any()
     assert (out.norm_n == t.n).all()

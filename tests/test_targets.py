@@ -221,16 +221,19 @@ def test_load_rejects_wrong_schema_channels_and_fingerprint(tmp_path, pink_data)
 def test_norm_at_age_reproduces_apply_norms(tmp_path):
     # Two routes: the target's z = (log10(value) - mean)/sd must equal apply_norms' z.
     from sourcelab.norms import Norms, apply_norms
+    from sourcelab.norms.predictive import V_COLUMNS, pack_v, xtx_inverse
     from sourcelab.targets import norm_at_age
 
     rows = []
+    ages = np.linspace(5.0, 90.0, 40)
     for i, (lo, hi, model, deg, coef) in enumerate([(5.0, 20.0, "binned", 0, (0.9, 0, 0, 0)),
                                                     (20.0, 90.0, "regression", 2,
                                                      (0.4, 0.8, -0.3, 0))]):
         rows.append(dict(kind="roi", atlas="brodmann", name="BA17", hemisphere="right",
                          band="alpha", measure="absolute", age_min=lo, age_max=hi, model=model,
                          degree=deg, transform="log10", b0=coef[0], b1=coef[1], b2=coef[2],
-                         b3=coef[3], sd=0.25, n=40))
+                         b3=coef[3], sd=0.25, n=40, df=40 - deg - 1,
+                         **dict(zip(V_COLUMNS, pack_v(xtx_inverse(ages, deg))))))
     norms = Norms(table=pd.DataFrame(rows), fingerprint=FP, condition="eyes closed")
     table = pd.DataFrame([dict(atlas="brodmann", roi="BA17", hemisphere="right", band="alpha",
                                measure="absolute", value=7.3, z=np.nan)])

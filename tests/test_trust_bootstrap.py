@@ -97,6 +97,35 @@ def test_replicates_equal_explicit_resampling(small, rng):
         np.testing.assert_allclose(s["relative"][i], rel, rtol=1e-5)
 
 
+@pytest.mark.parametrize("orientation", ["fixed", "free"])
+def test_broadband_total_replicates_equal_explicit_resampling(small, rng, orientation):
+    # With a broadband total (the pipeline's relative-power denominator), every replicate must
+    # equal recomputing band power / broadband power from the resampled epochs (definition of
+    # the nonparametric bootstrap), for ROIs and sensors.
+    from sourcelab.trust.bootstrap import sensor_bootstrap
+
+    head, atlas, ops = small
+    op = ops[orientation]
+    n_ep = 30
+    csd = _epochs(_true_csd(head, rng, n_bands=4), n_ep, rng, common_mode=50.0)
+    bands, total = csd[:, :3], csd[:, 3]                    # last one plays the 1-45 Hz total
+    w = bootstrap_weights(n_ep, n_boot=10, seed=5)
+    s = roi_bootstrap(bands, op, [r.vertices for r in atlas.rois], w, epoch_total=total)
+    sb = sensor_bootstrap(bands, w, epoch_total=total)
+    for i in range(10):
+        idx = np.repeat(np.arange(n_ep), np.round(w[i] * n_ep).astype(int))
+        p = source_power(op, bands[idx].mean(0))
+        rel = relative_power(p, source_power(op, total[idx].mean(0)))
+        want = np.stack([rel[:, roi.vertices].mean(1) for roi in atlas.rois], 1)
+        np.testing.assert_allclose(s["relative"][i], want, rtol=1e-5)
+        np.testing.assert_allclose(s["absolute"][i],
+                                   np.stack([p[:, r.vertices].mean(1) for r in atlas.rois], 1),
+                                   rtol=1e-10)
+        _, srel = sensor_band_power(average_reference(bands[idx].mean(0)),
+                                    average_reference(total[idx].mean(0)))
+        np.testing.assert_allclose(sb["relative"][i], srel, rtol=1e-10)
+
+
 def test_weights_are_seeded_multinomial():
     # Resampling n epochs with replacement = multinomial counts summing to n (common practice).
     w = bootstrap_weights(50, n_boot=200, seed=7)
@@ -191,14 +220,15 @@ def test_add_intervals_columns_order_and_z(small, rng):
 
 
 def test_robust_flags_known_answers():
-    # Classes: below -1.96 / within / above +1.96 (1.96: two-sided 5 % normal point, common
-    # practice); robust = z and both interval ends in the same class.
+    # Issue 14: robust is defined only for deviating rows (|z| > 1.96, the two-sided 5 % normal
+    # point, common practice): True when the whole interval lies beyond the same threshold,
+    # False when it crosses it; empty (NA) for rows that do not deviate and for NaN.
     z = [2.5, 2.5, -3.0, -3.0, 0.5, 0.5, np.nan]
     lo = [2.0, 1.5, -4.0, -4.0, -1.0, -0.5, 0.0]
     hi = [3.0, 3.0, -2.5, -1.0, 1.0, 2.1, 1.0]
     got = robust_flags(z, lo, hi)
-    assert list(got[:6]) == [True, False, True, False, True, False]
-    assert got.isna()[6]
+    assert list(got[:4]) == [True, False, True, False]
+    assert got.isna()[4:].all()
 
 
 def test_sensor_intervals(rng, small):

@@ -85,18 +85,27 @@ def add_parser(sub) -> None:
 
 def _list(args) -> int:
     from ..targets import candidates_from_folder, write_candidates
+    from ..targets.candidates import read_candidates
 
-    table = candidates_from_folder(args.result_dir, max_n=args.max_n,
-                                   include=tuple(args.atlas) if args.atlas else None)
+    # the analysis' own candidates (z-map peaks) unless areas of given atlases are asked for
+    table = None if args.atlas else read_candidates(args.result_dir)
+    if table is None:
+        table = candidates_from_folder(args.result_dir, max_n=args.max_n,
+                                       include=tuple(args.atlas) if args.atlas else None)
+        cols = ["rank", "kind", "atlas", "roi", "hemisphere", "band", "measure", "z",
+                "direction", "fdr", "n_vertices", "small", "neighbours_same", "n_neighbours",
+                "members_deviating", "n_members"]
+    else:
+        table = table.head(args.max_n) if args.max_n else table
+        cols = [c for c in ("rank", "role", "band", "measure", "direction", "area",
+                            "hemisphere", "lobe", "peak_z", "x_mni152", "y_mni152", "z_mni152",
+                            "border_mm", "own_share", "probability") if c in table.columns]
     print(SHORT)
     print("Statistical deviation only; whether to train any of these rests with a licensed "
           "practitioner who weighs symptoms and history.")
     if table.empty:
-        print("no ROI or network deviates beyond |z| = 1.96")
+        print("no area or network deviates beyond |z| = 1.96")
     else:
-        cols = ["rank", "kind", "atlas", "roi", "hemisphere", "band", "measure", "z",
-                "direction", "fdr", "n_vertices", "small", "neighbours_same", "n_neighbours",
-                "members_deviating", "n_members"]
         print(table[cols].to_string(index=False, float_format=lambda v: f"{v:+.2f}"))
     if args.out:
         out = Path(args.out)

@@ -34,7 +34,6 @@ import os
 import sys
 import tempfile
 import time
-import zipfile
 from pathlib import Path
 
 import mne
@@ -183,19 +182,11 @@ def bem_solution_from_layers(
 
 # ----------------------------------------------------------------------------- writing
 def write_npz(path, arrays: dict) -> None:
-    """Write an uncompressed ``.npz`` with fixed zip timestamps, so equal arrays give equal bytes.
+    """Write an uncompressed ``.npz`` with fixed zip timestamps (:func:`~sourcelab.provenance.
+    npz_bytes`), so equal arrays give equal bytes."""
+    from ..provenance import npz_bytes
 
-    Parameters
-    ----------
-    path : path-like
-    arrays : dict of str -> ndarray
-        No object arrays (the loader reads with ``allow_pickle=False``).
-    """
-    with zipfile.ZipFile(path, "w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
-        for key, arr in arrays.items():
-            info = zipfile.ZipInfo(f"{key}.npy", date_time=(1980, 1, 1, 0, 0, 0))
-            with zf.open(info, "w", force_zip64=True) as f:
-                np.lib.format.write_array(f, np.asanyarray(arr), allow_pickle=False)
+    Path(path).write_bytes(npz_bytes(arrays))
 
 
 def _versions() -> dict:

@@ -27,6 +27,7 @@ from ..errors import InputError
 from ..provenance import Fingerprint
 from .io import COLUMNS, MAX_DEGREE, NA, QUANTITY_COLUMNS, Norms
 from .models import fit_poly, select_degree
+from .predictive import pack_v, xtx_inverse
 from .transforms import get_transform, transform_for_measure
 
 log = logging.getLogger("sourcelab")
@@ -235,7 +236,9 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
                 continue
             coef = np.zeros(MAX_DEGREE + 1)
             coef[:deg + 1] = f.coef
-            rows.append((*keys[j], lo, hi, model, deg, qt["transform"][j], *coef, f.sd, f.n))
+            v = pack_v(xtx_inverse(age[inb][f.kept], deg))  # the controls this row kept
+            rows.append((*keys[j], lo, hi, model, deg, qt["transform"][j], *coef, f.sd, f.n,
+                         f.n - deg - 1, *v))
             row_q.append(j)
             members.append(inb)
             resid[inb, j] = f.resid

@@ -37,7 +37,7 @@ from ..provenance import Fingerprint, atomic_write_text, sha256_file
 from .transforms import TRANSFORM_FOR_MEASURE, TRANSFORMS
 
 FORMAT_NAME = "sourcelab-norms"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
 #: Highest polynomial degree a row may use (coefficients b0..b3).
 MAX_DEGREE = 3
 #: Placeholder for "does not apply" (BIDS convention), used for atlas/hemisphere of sensor rows.
@@ -50,10 +50,14 @@ QUANTITY_COLUMNS = ("kind", "atlas", "name", "hemisphere", "band", "measure")
 KEY_COLUMNS = QUANTITY_COLUMNS + ("age_min", "age_max")
 COEF_COLUMNS = tuple(f"b{k}" for k in range(MAX_DEGREE + 1))
 #: All columns of a norms table, in file order.
-COLUMNS = KEY_COLUMNS + ("model", "degree", "transform") + COEF_COLUMNS + ("sd", "n")
+#: Upper triangle of ``(XᵀX)⁻¹`` of a row's kept controls (design ``[1, x, x², x³]``,
+#: ``x = log10 age``): what the predictive p-value's leverage needs (format 2).
+V_COLUMNS = tuple(f"v{j}{k}" for j in range(MAX_DEGREE + 1) for k in range(j, MAX_DEGREE + 1))
+COLUMNS = (KEY_COLUMNS + ("model", "degree", "transform") + COEF_COLUMNS + ("sd", "n", "df")
+           + V_COLUMNS)
 _STR_COLUMNS = QUANTITY_COLUMNS + ("model", "transform")
-_FLOAT_COLUMNS = ("age_min", "age_max") + COEF_COLUMNS + ("sd",)
-_INT_COLUMNS = ("degree", "n")
+_FLOAT_COLUMNS = ("age_min", "age_max") + COEF_COLUMNS + ("sd",) + V_COLUMNS
+_INT_COLUMNS = ("degree", "n", "df")
 _HEADER_KEYS = ("fingerprint", "condition", "cohort", "note")
 _HEADER_RE = re.compile(r"^# ([a-z]+): (.*)$")
 #: Largest norms file read (the demo norms are 0.25 MB; a table for every shipped atlas, band,
@@ -204,6 +208,14 @@ def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None 
     for k, c in enumerate(COEF_COLUMNS):
         checks.append((pd.Series((k > deg) & (t[c].to_numpy() != 0)),
                        f"coefficient {c} must be 0 for rows of degree < {k}"))
+    checks.append((t["df"] != t["n"] - t["degree"] - 1, "df must equal n - degree - 1"))
+    checks.append((~(t["v00"] > 0), "v00 must be > 0"))
+    for c in V_COLUMNS:
+        j, k = int(c[1]), int(c[2])
+        checks.append((pd.Series((np.maximum(j, k) > deg) & (t[c].to_numpy() != 0)),
+                       f"{c} must be 0 for rows of degree < {max(j, k)}"))
+    checks.append((pd.Series(~_leading_blocks_positive(t)),
+                   "the (XᵀX)⁻¹ entries v.. must form a positive-definite matrix"))
     for mask, msg in checks:
         bad = np.flatnonzero(np.asarray(mask))
         if bad.size:
@@ -230,6 +242,24 @@ def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None 
         raise _bad(f"{row_name(i)}overlapping age ranges [{amin[j]}, {amax[j]}] and "
                    f"[{amin[j + 1]}, {amax[j + 1]}] for {_fmt_row(q)}", path, where(i))
     return t
+
+
+def _leading_blocks_positive(t: pd.DataFrame) -> np.ndarray:
+    """Per row: the leading (degree + 1) block of the packed (XᵀX)⁻¹ is positive definite."""
+    iu = np.triu_indices(MAX_DEGREE + 1)
+    v = t[list(V_COLUMNS)].to_numpy(dtype=float)
+    m = np.zeros((len(t), MAX_DEGREE + 1, MAX_DEGREE + 1))
+    m[:, iu[0], iu[1]] = v
+    m[:, iu[1], iu[0]] = v
+    ok = np.zeros(len(t), dtype=bool)
+    deg = t["degree"].to_numpy(dtype=int)
+    for d in np.unique(deg):
+        sel = deg == d
+        if not 0 <= d <= MAX_DEGREE:
+            continue
+        block = m[sel][:, :d + 1, :d + 1]
+        ok[sel] = np.all(np.linalg.eigvalsh(block) > 0, axis=1) if block.size else True
+    return ok
 
 
 def _fmt_row(d: dict) -> str:
@@ -280,7 +310,8 @@ def _parse_header(lines: list[str], path) -> tuple[dict, int]:
         got = lines[0].rstrip()[:60] if lines else "<empty file>"
         if lines and got.startswith(f"# {FORMAT_NAME} "):
             raise _bad(f"unsupported norms format version ({got!r}); this sourcelab reads "
-                       f"version {FORMAT_VERSION}", path, 1)
+                       f"version {FORMAT_VERSION}; rebuild the norms with this sourcelab",
+                       path, 1)
         raise _bad(f"not a sourcelab norms file: first line must be "
                    f"'# {FORMAT_NAME} {FORMAT_VERSION}', got {got!r}", path, 1)
     head: dict = {"note": []}

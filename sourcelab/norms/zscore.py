@@ -17,10 +17,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..constants import FDR_ALPHA
+from ..constants import FDR_ALPHA, Z_THRESHOLD
 from ..errors import InputError
 from ..provenance import Fingerprint
-from .io import COEF_COLUMNS, NA, Norms, normalise_condition
+from .io import COEF_COLUMNS, NA, V_COLUMNS, Norms, normalise_condition
 from .models import evaluate
 from .transforms import get_transform
 
@@ -32,7 +32,8 @@ _KIND_COLUMNS = {
     "sensor": {"name": "channel"},
 }
 #: Columns added by :func:`apply_norms`.
-ADDED_COLUMNS = ("p", "fdr_q", "fdr", "norm_n", "no_norm", "extrapolated", "condition_mismatch")
+ADDED_COLUMNS = ("z_equivalent", "p", "fdr_q", "fdr", "norm_n", "no_norm", "extrapolated",
+                 "condition_mismatch")
 
 
 def bh_adjust(p: np.ndarray) -> np.ndarray:
@@ -94,6 +95,10 @@ class NormRows:
         The age lies outside the row's age range (the nearest covered age was used).
     condition_mismatch : bool
         The analysis condition differs from the norms' (allowed explicitly).
+    df : ndarray, shape (m,)
+        Residual degrees of freedom of each row's model (``n - degree - 1``; NaN where none).
+    leverage : ndarray, shape (m,)
+        The participant's leverage ``h₀`` on each row's age model (NaN where none).
     """
 
     mean: np.ndarray
@@ -103,10 +108,36 @@ class NormRows:
     has: np.ndarray
     extrapolated: np.ndarray
     condition_mismatch: bool = False
+    df: np.ndarray | None = None
+    leverage: np.ndarray | None = None
 
     def z(self, values) -> np.ndarray:
         """z-scores of values (one per row, the table's value unit), see :func:`zscore`."""
         return zscore(values, self.mean, self.sd, self.transform)
+
+    def predictive(self, z) -> dict:
+        """Predictive (Student-t) statistics of plain z-scores, one per row.
+
+        Returns
+        -------
+        dict
+            ``t``, ``p`` (two-sided), ``z_equivalent`` (the normal deviate with the same p);
+            NaN where a row has no norm.  Without stored degrees of freedom (hand-made rows) the
+            normal distribution is used.
+
+        References
+        ----------
+        Crawford JR, Howell DC (1998).  Clin Neuropsychol 12:482-486 (from memory).
+        Crawford JR, Garthwaite PH (2006).  Neuropsychology 20:259-271 (from memory).
+        """
+        z = np.asarray(z, dtype=float)
+        if self.df is None or self.leverage is None:
+            return {"t": z, "p": 2.0 * stats.norm.sf(np.abs(z)), "z_equivalent": z}
+        t = z / np.sqrt(1.0 + self.leverage)
+        with np.errstate(invalid="ignore"):
+            p = 2.0 * stats.t.sf(np.abs(t), self.df)
+        z_eq = np.sign(t) * stats.norm.isf(p / 2.0)
+        return {"t": t, "p": p, "z_equivalent": z_eq}
 
 
 def zscore(values, mean, sd, transform) -> np.ndarray:
@@ -255,18 +286,24 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
     sd = np.full(m, np.nan)
     trans = np.full(m, "", dtype=object)
     n = np.zeros(m, dtype=np.int64)
+    df = np.full(m, np.nan)
+    lev = np.full(m, np.nan)
     if has.any():
+        from .predictive import leverage, unpack_v
+
         rows = nt.loc[row_of[has]]
-        mean[has] = evaluate(rows[list(COEF_COLUMNS)].to_numpy(), rows["degree"].to_numpy(),
-                             age_at[has])
+        deg = rows["degree"].to_numpy()
+        mean[has] = evaluate(rows[list(COEF_COLUMNS)].to_numpy(), deg, age_at[has])
         sd[has] = rows["sd"].to_numpy()
         trans[has] = rows["transform"].to_numpy()
         n[has] = rows["n"].to_numpy()
+        df[has] = rows["df"].to_numpy(dtype=float)
+        lev[has] = leverage(unpack_v(rows[list(V_COLUMNS)].to_numpy()), deg, age_at[has])
     n_no = int((~has).sum())
     if n_no:
         log.warning("%d of %d %s rows have no norms (z left NaN, flagged no_norm)", n_no, m, kind)
     return NormRows(mean=mean, sd=sd, transform=trans, n=n, has=has, extrapolated=extrap,
-                    condition_mismatch=mismatch)
+                    condition_mismatch=mismatch, df=df, leverage=lev)
 
 
 def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: Fingerprint,
@@ -290,8 +327,11 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
     Returns
     -------
     DataFrame
-        A copy with ``z`` filled and columns ``p`` (two-sided normal), ``fdr_q`` (Benjamini-
-        Hochberg over every z in this table), ``fdr`` (``fdr_q <= fdr_alpha``), ``norm_n``,
+        A copy with ``z`` filled (``(T(value) - mean) / sd``) and columns ``z_equivalent`` and
+        ``p`` (the predictive Student-t test, which accounts for the norms' sample size, model
+        degrees of freedom and the participant's leverage on the age model; ``z_equivalent`` is
+        the normal deviate with the same p), ``fdr_q`` (Benjamini-Hochberg over every p in this
+        table), ``fdr`` (``fdr_q <= fdr_alpha``), ``norm_n``,
         ``no_norm`` (quantity absent from the norms: z NaN), ``extrapolated``,
         ``condition_mismatch``.  ``attrs["n_no_norm"]`` counts rows without norms.
 
@@ -308,10 +348,12 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
                            allow_condition_mismatch=allow_condition_mismatch, kind=kind)
     values = pd.to_numeric(roi_table["value"], errors="coerce").to_numpy(dtype=float)
     z = rows.z(values)
-    p = 2.0 * stats.norm.sf(np.abs(z))
+    pred = rows.predictive(z)
+    p = pred["p"]
     q = bh_adjust(p)
     out = roi_table.copy()
     out["z"] = z
+    out["z_equivalent"] = pred["z_equivalent"]
     out["p"] = p
     out["fdr_q"] = q
     out["fdr"] = np.nan_to_num(q, nan=np.inf) <= fdr_alpha
@@ -330,7 +372,8 @@ def chance_summary(table: pd.DataFrame, *, alpha: float = FDR_ALPHA) -> dict:
     Parameters
     ----------
     table : DataFrame
-        Output of :func:`apply_norms` (needs ``z``; uses ``fdr_q`` when present).
+        Output of :func:`apply_norms` (needs ``z``; counts ``z_equivalent`` -- the predictive
+        test's normal deviate -- when present, and uses ``fdr_q`` when present).
 
     Returns
     -------
@@ -340,15 +383,16 @@ def chance_summary(table: pd.DataFrame, *, alpha: float = FDR_ALPHA) -> dict:
         ``n_no_norm``.  The expectation assumes independent tests; neighbouring ROIs and bands
         are correlated, so the observed count varies more than a binomial count would.
     """
-    z = pd.to_numeric(table["z"], errors="coerce").to_numpy(dtype=float)
+    col = "z_equivalent" if "z_equivalent" in table else "z"
+    z = pd.to_numeric(table[col], errors="coerce").to_numpy(dtype=float)
     ok = np.isfinite(z)
     n = int(ok.sum())
     q = (table["fdr_q"].to_numpy(dtype=float) if "fdr_q" in table
          else bh_adjust(2.0 * stats.norm.sf(np.abs(z))))
     return {
         "n_tested": n,
-        "expected_beyond_1.96": float(n * 2.0 * stats.norm.sf(1.96)),
-        "observed_beyond_1.96": int(np.sum(np.abs(z[ok]) > 1.96)),
+        "expected_beyond_1.96": float(n * 2.0 * stats.norm.sf(Z_THRESHOLD)),
+        "observed_beyond_1.96": int(np.sum(np.abs(z[ok]) > Z_THRESHOLD)),
         "expected_beyond_2.58": float(n * 2.0 * stats.norm.sf(2.58)),
         "observed_beyond_2.58": int(np.sum(np.abs(z[ok]) > 2.58)),
         "n_fdr": int(np.sum(np.nan_to_num(q, nan=np.inf) <= alpha)),

@@ -65,15 +65,30 @@ def patch_vertices(model: HeadModel, center_mni, hemisphere: str, radius_mm: flo
 
 
 def pink_noise(n_series: int, n_times: int, sfreq: float, rng: np.random.Generator,
-               *, exponent: float = 1.0, f_min: float = 0.5) -> np.ndarray:
-    """Unit-variance noise with a ``1/f**exponent`` power spectrum, shape (n_series, n_times)."""
+               *, exponent: float = 1.0, f_min: float = 0.5,
+               spectral_gain: tuple[tuple[float, float], ...] = ()) -> np.ndarray:
+    """Unit-variance noise with a ``1/f**exponent`` power spectrum, shape (n_series, n_times).
+
+    ``spectral_gain``: ``(centre_hz, ln_power_gain)`` pairs; each multiplies the power spectrum
+    by ``exp(gain * g(f))`` with ``g`` a Gaussian bump in log10 frequency (SD
+    :data:`GAIN_WIDTH_DECADES`) around the centre: a smooth person-specific spectral shape.
+    """
     spec = rng.standard_normal((n_series, n_times // 2 + 1)) + 1j * rng.standard_normal(
         (n_series, n_times // 2 + 1))
     f = np.fft.rfftfreq(n_times, 1 / sfreq)
     spec *= 1.0 / np.maximum(f, f_min) ** (exponent / 2.0)
+    if spectral_gain:
+        lf = np.log10(np.maximum(f, f_min))
+        ln_pow = sum(g * np.exp(-0.5 * ((lf - np.log10(c)) / GAIN_WIDTH_DECADES) ** 2)
+                     for c, g in spectral_gain)
+        spec *= np.exp(ln_pow / 2.0)
     spec[:, 0] = 0
     x = np.fft.irfft(spec, n=n_times, axis=-1)
     return x / x.std(axis=-1, keepdims=True)
+
+
+#: Width (SD, decades of frequency) of a :func:`pink_noise` spectral-gain bump (a factor of 1.3).
+GAIN_WIDTH_DECADES = 0.12
 
 
 def narrowband(n_times: int, sfreq: float, freq: float, bandwidth: float,
@@ -90,6 +105,8 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
                          generators: tuple[Generator, ...] = (),
                          background_uv: float = 15.0, sensor_noise_uv: float = 1.0,
                          alpha_background: Generator | None = None,
+                         background_exponent: float = 1.0,
+                         background_spectral_gain: tuple[tuple[float, float], ...] = (),
                          rng: np.random.Generator) -> np.ndarray:
     """Simulated 19-channel data in volts, shape (n_ch, n_times), average reference.
 
@@ -99,6 +116,10 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
         Median RMS of the pink background across channels after average reference, µV.
     sensor_noise_uv : float
         RMS of white noise added at each electrode, µV.
+    background_exponent : float
+        Exponent of the background's ``1/f**exponent`` power spectrum (1: pink).
+    background_spectral_gain : tuple of (float, float)
+        Smooth spectral-shape changes of the background (see :func:`pink_noise`).
     generators : tuple of Generator
         Oscillating patches; a generator's ``amplitude`` is relative to one background source, so
         an amplitude of 1 with a 100-source patch adds the same variance as 100 background sources
@@ -110,7 +131,8 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
     cov = gf @ gf.T
     evals, evecs = np.linalg.eigh(cov)
     l_mat = evecs * np.sqrt(np.clip(evals, 0, None))
-    background = l_mat @ pink_noise(n_ch, n_t, sfreq, rng)
+    background = l_mat @ pink_noise(n_ch, n_t, sfreq, rng, exponent=background_exponent,
+                                    spectral_gain=tuple(background_spectral_gain))
     p = average_reference_projector(n_ch)
     scale = background_uv * 1e-6 / np.median((p @ background).std(axis=1))
     data = scale * background

@@ -329,6 +329,28 @@ def candidates_from_folder(result_dir: str | Path, *, max_n: int | None = None,
                                 include=include)
 
 
+def read_candidates(result_dir: str | Path) -> pd.DataFrame | None:
+    """The candidates an analysis wrote (``candidates.tsv``), or None when it wrote none.
+
+    Parameters
+    ----------
+    result_dir : str | Path
+        An analysis folder.
+
+    Returns
+    -------
+    DataFrame | None
+    """
+    path = Path(result_dir) / "candidates.tsv"
+    if not path.is_file():
+        return None
+    try:
+        return pd.read_csv(path, sep="\t", comment="#", keep_default_na=False,
+                           na_values=["", "n/a"])
+    except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
+        raise InputError(f"cannot read the candidate table ({exc})", path=path) from None
+
+
 def write_candidates(candidates: pd.DataFrame, path: str | Path) -> Path:
     """Write the candidate table as TSV (atomically), with the cautions as ``#`` lines first."""
     path = Path(path)

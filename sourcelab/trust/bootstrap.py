@@ -221,7 +221,8 @@ def _atoms(avg) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 
 def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
-                  weights: np.ndarray, *, relative: bool = True) -> dict[str, np.ndarray]:
+                  weights: np.ndarray, *, relative: bool = True,
+                  epoch_total: np.ndarray | None = None) -> dict[str, np.ndarray]:
     """Bootstrap replicates of ROI mean absolute and relative source band power.
 
     Parameters
@@ -236,6 +237,9 @@ def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
         pipeline's values.
     relative : bool
         Also bootstrap relative power (the expensive part).
+    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
+        Per-epoch broadband (1-45 Hz) cross-spectra: relative power divides by their source
+        power (as the pipeline).  Without it, by the sum over the bands.
 
     Returns
     -------
@@ -251,33 +255,44 @@ def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
         raise InputError(f"weights: need shape (n_boot, {c.shape[0]}), got {w.shape}")
     if op.kernel.shape[1] != c.shape[-1]:
         raise InputError(f"epoch_csd: {c.shape[-1]} channels, operator has {op.kernel.shape[1]}")
-    n_ep, n_bands = c.shape[:2]
+    n_bands = c.shape[1]
+    if relative and epoch_total is not None:
+        t = np.asarray(epoch_total, dtype=float)
+        if t.shape != (c.shape[0],) + c.shape[2:]:
+            raise InputError(f"epoch_total: need shape {(c.shape[0],) + c.shape[2:]}, got "
+                             f"{t.shape}")
+        c = np.concatenate([c, t[:, None]], axis=1)     # broadband as a last "band"
+    n_ep, n_all = c.shape[:2]
     n_boot = w.shape[0]
     used, avg = roi_average_matrix(roi_vertices, op.n_src)
     basis, q_all = source_quadratic_forms(op)
     cv = vech(basis.T @ c @ basis)                       # (n_ep, n_bands, n_vech)
     q_roi = avg @ q_all[used]                            # (n_rois, n_vech): vech of B'M_rB
     per_epoch = cv @ q_roi.T                             # (n_ep, n_bands, n_rois)
-    out = {"absolute": (w @ per_epoch.reshape(n_ep, -1)).reshape(n_boot, n_bands, -1)}
+    out = {"absolute": (w @ per_epoch.reshape(n_ep, -1)).reshape(n_boot, n_all, -1)[:, :n_bands]}
     if not relative:
         return out
     order, starts, group_w = _atoms(avg)
     q = q_all[used[order]]                               # sources grouped by ROI membership
     n_used, n_vech = q.shape
     c_mean = cv.mean(axis=0)                             # (n_bands, n_vech)
-    p_mean = (q @ c_mean.T).astype(np.float32)[:, :, None]  # (n_used, n_bands, 1)
-    dev = (w @ (cv - c_mean).reshape(n_ep, -1)).reshape(n_boot, n_bands, n_vech)
+    p_mean = (q @ c_mean.T).astype(np.float32)[:, :, None]  # (n_used, n_all, 1)
+    dev = (w @ (cv - c_mean).reshape(n_ep, -1)).reshape(n_boot, n_all, n_vech)
     dev = dev.astype(np.float32)
     q32 = q.astype(np.float32)
     rel = np.empty((n_boot, n_bands, avg.shape[0]))
-    chunk = max(1, _CHUNK_ELEMENTS // (n_bands * n_used))
+    chunk = max(1, _CHUNK_ELEMENTS // (n_all * n_used))
     for s in range(0, n_boot, chunk):
         e = min(s + chunk, n_boot)
         d = np.ascontiguousarray(dev[s:e].transpose(1, 0, 2)).reshape(-1, n_vech)
         # sources-first, band-major layout: contiguous band sums and group sums
-        p = (q32 @ d.T).reshape(n_used, n_bands, e - s)
+        p = (q32 @ d.T).reshape(n_used, n_all, e - s)
         p += p_mean
-        total = p.sum(axis=1, keepdims=True)
+        if n_all > n_bands:                              # broadband total given
+            total = p[:, n_bands:]
+            p = np.ascontiguousarray(p[:, :n_bands])
+        else:
+            total = p.sum(axis=1, keepdims=True)
         with np.errstate(invalid="ignore", divide="ignore"):
             p /= total                                   # 0/0 -> NaN, as relative_power
         g = np.add.reduceat(p.reshape(n_used, -1), starts, axis=0)  # (n_groups, ...)
@@ -287,19 +302,22 @@ def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
     return out
 
 
-def sensor_bootstrap(epoch_csd: np.ndarray, weights: np.ndarray) -> dict[str, np.ndarray]:
+def sensor_bootstrap(epoch_csd: np.ndarray, weights: np.ndarray, *,
+                     epoch_total: np.ndarray | None = None) -> dict[str, np.ndarray]:
     """Bootstrap replicates of average-reference sensor band power.
 
     Parameters
     ----------
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch)
     weights : ndarray, shape (n_boot, n_epochs)
+    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
+        Per-epoch broadband cross-spectra (the relative-power denominator; default: band sum).
 
     Returns
     -------
     dict
-        ``"absolute"`` (squared data unit, e.g. µV²) and ``"relative"`` (fraction of the sum over
-        bands), each ndarray, shape (n_boot, n_bands, n_ch).
+        ``"absolute"`` (squared data unit, e.g. µV²) and ``"relative"`` (fraction of broadband
+        power, or of the band sum), each ndarray, shape (n_boot, n_bands, n_ch).
     """
     c = np.asarray(epoch_csd, dtype=float)
     w = np.asarray(weights, dtype=float)
@@ -309,7 +327,11 @@ def sensor_bootstrap(epoch_csd: np.ndarray, weights: np.ndarray) -> dict[str, np
         raise InputError(f"weights: need shape (n_boot, {c.shape[0]}), got {w.shape}")
     diag = np.einsum("ebcc->ebc", average_reference(c))
     ab = (w @ diag.reshape(c.shape[0], -1)).reshape(w.shape[0], c.shape[1], -1)
-    total = ab.sum(axis=1, keepdims=True)
+    if epoch_total is None:
+        total = ab.sum(axis=1, keepdims=True)
+    else:
+        td = np.einsum("ecc->ec", average_reference(np.asarray(epoch_total, dtype=float)))
+        total = (w @ td)[:, None, :]
     with np.errstate(invalid="ignore", divide="ignore"):
         rel = np.where(total > 0, ab / total, np.nan)
     return {"absolute": ab, "relative": rel}
@@ -342,25 +364,28 @@ def z_interval(lo, hi, transform: str, mean, sd) -> tuple[np.ndarray, np.ndarray
 
 
 def robust_flags(z, z_lo, z_hi, *, threshold: float = Z_THRESHOLD) -> pd.array:
-    """Whether a row's deviation class holds across its whole z interval.
+    """For deviating rows: does the whole z interval lie beyond the same threshold?
 
-    Classes: below ``-threshold``, within ``[-threshold, threshold]``, above ``threshold``.
-    ``robust`` is True when ``z``, ``z_lo`` and ``z_hi`` fall in the same class: a deviating
-    row (|z| > threshold) is robust when its entire interval lies beyond the same threshold; a
-    non-deviating row is robust when its interval stays within ±threshold.  NA when any is NaN.
+    Defined only for deviating rows (``|z| > threshold``): True when ``z_lo`` and ``z_hi`` lie
+    beyond the same ``±threshold`` as ``z``, False when the interval crosses it.  NA (empty) for
+    rows that do not deviate and where any value is NaN: "robust" answers "would another sample
+    of this person's epochs also deviate?", a question only a deviation raises.
+
+    Parameters
+    ----------
+    z, z_lo, z_hi : array_like, shape (n,)
+        The row's z and the ends of its interval (on the scale ``threshold`` applies to).
+    threshold : float
 
     Returns
     -------
     pandas BooleanArray, shape (n,)
     """
     z, z_lo, z_hi = (np.asarray(a, dtype=float) for a in (z, z_lo, z_hi))
-
-    def cls(x):
-        return np.where(x > threshold, 1, np.where(x < -threshold, -1, 0))
-
-    same = (cls(z) == cls(z_lo)) & (cls(z) == cls(z_hi))
-    na = ~(np.isfinite(z) & np.isfinite(z_lo) & np.isfinite(z_hi))
-    return pd.array(np.where(na, None, same), dtype="boolean")
+    sign = np.sign(z)
+    beyond = (sign * z_lo > threshold) & (sign * z_hi > threshold)
+    na = ~(np.isfinite(z) & np.isfinite(z_lo) & np.isfinite(z_hi)) | ~(np.abs(z) > threshold)
+    return pd.array(np.where(na, None, beyond), dtype="boolean")
 
 
 # --------------------------------------------------------------------------------------------
@@ -383,14 +408,19 @@ def _finish(table: pd.DataFrame, lo: np.ndarray, hi: np.ndarray, norm_rows, z_th
     out["value_hi"] = hi
     z_lo = np.full(len(out), np.nan)
     z_hi = np.full(len(out), np.nan)
+    z = pd.to_numeric(out["z"], errors="coerce").to_numpy(float) if "z" in out else z_lo.copy()
+    zq, zq_lo, zq_hi = z, z_lo, z_hi
     if norm_rows is not None:
         if len(norm_rows.mean) != len(out):
             raise InputError(f"norm_rows: {len(norm_rows.mean)} rows for a table of {len(out)}")
         z_lo, z_hi = norm_rows.z(lo), norm_rows.z(hi)
+        # deviating and robust are judged on the predictive test's normal deviate, which is
+        # monotone in z, so the interval's ends map to the ends
+        zq, zq_lo, zq_hi = (norm_rows.predictive(v)["z_equivalent"] for v in (z, z_lo, z_hi))
     out["z_lo"] = np.fmin(z_lo, z_hi)
     out["z_hi"] = np.fmax(z_lo, z_hi)
-    z = pd.to_numeric(out["z"], errors="coerce").to_numpy(float) if "z" in out else z_lo * np.nan
-    out["robust"] = robust_flags(z, out["z_lo"], out["z_hi"], threshold=z_threshold)
+    out["robust"] = robust_flags(zq, np.fmin(zq_lo, zq_hi), np.fmax(zq_lo, zq_hi),
+                                 threshold=z_threshold)
     out.attrs = dict(table.attrs, bootstrap=meta)
     return out
 
@@ -408,7 +438,8 @@ def _check_ci(ci: float) -> None:
 def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *,
                   n_boot: int = 1000, seed: int = 0, ci: float = 0.95, norm_rows=None,
                   band_names: Sequence[str] | None = None,
-                  z_threshold: float = Z_THRESHOLD) -> pd.DataFrame:
+                  z_threshold: float = Z_THRESHOLD,
+                  epoch_total: np.ndarray | None = None) -> pd.DataFrame:
     """Add bootstrap confidence intervals of the value and of z to an ROI table.
 
     Parameters
@@ -437,6 +468,9 @@ def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *
         which is the pipeline's order).
     z_threshold : float
         Deviation threshold for ``robust`` (default 1.96).
+    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
+        Per-epoch broadband cross-spectra (``AnalysisResult.epoch_total``), the denominator of
+        relative power.
 
     Returns
     -------
@@ -479,7 +513,8 @@ def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *
     if unknown:
         raise InputError(f"measure: {unknown} not one of ['absolute', 'relative']")
     w = bootstrap_weights(c.shape[0], n_boot=n_boot, seed=seed)
-    samples = roi_bootstrap(c, op, verts, w, relative="relative" in measures)
+    samples = roi_bootstrap(c, op, verts, w, relative="relative" in measures,
+                            epoch_total=epoch_total)
     lo = {m: percentile_interval(s, ci=ci) for m, s in samples.items()}
     band_idx = {b: i for i, b in enumerate(bands)}
     try:
@@ -502,7 +537,8 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
                          ch_names: Sequence[str] | None = None, n_boot: int = 1000,
                          seed: int = 0, ci: float = 0.95, norm_rows=None,
                          band_names: Sequence[str] | None = None,
-                         z_threshold: float = Z_THRESHOLD) -> pd.DataFrame:
+                         z_threshold: float = Z_THRESHOLD,
+                         epoch_total: np.ndarray | None = None) -> pd.DataFrame:
     """Add bootstrap confidence intervals to a sensor table (see :func:`add_intervals`).
 
     Parameters
@@ -512,7 +548,7 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch)
     ch_names : sequence of str, optional
         Channel order of ``epoch_csd`` (default :data:`sourcelab.config.SITES_1020`).
-    n_boot, seed, ci, norm_rows, band_names, z_threshold
+    n_boot, seed, ci, norms_fn, band_names, z_threshold, epoch_total
         As in :func:`add_intervals`; use the same seed to resample the same epochs.
 
     Returns
@@ -530,7 +566,7 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
         raise InputError(f"ch_names: {len(names)} names for {c.shape[-1]} channels")
     bands = _band_order(sensor_table, band_names, c.shape[1])
     w = bootstrap_weights(c.shape[0], n_boot=n_boot, seed=seed)
-    samples = sensor_bootstrap(c, w)
+    samples = sensor_bootstrap(c, w, epoch_total=epoch_total)
     ch_idx = {n: i for i, n in enumerate(names)}
     band_idx = {b: i for i, b in enumerate(bands)}
     try:

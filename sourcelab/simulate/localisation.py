@@ -1,0 +1,431 @@
+"""Simulations under model mismatch: fitting and checking the localisation probability model.
+
+The model itself (:mod:`sourcelab.trust.probability`) is what analyses use; this module
+simulates the data it is fitted and checked on and refits it
+(``python -m sourcelab.simulate.localisation --out PATH``).
+
+Simulation model (all invented; :mod:`sourcelab.simulate.mismatch` for the true head):
+
+* **true head**: 3-shell sphere, one electrode-jitter realisation per simulated recording
+  (sets of realisations are split between fitting and checking);
+* **point sources** (power maps, no norms): one cortical source with its true-head topography,
+  plus noise that is half uncorrelated cortical background (true-head ``G Gᵀ``) and half white
+  sensor noise, at an amplitude SNR, sampled over ``n_epochs`` spectral estimates;
+* **people** (for norms and z-maps): background activity at every cortical source with a
+  person-specific global scale (log-normal, SD :data:`GLOBAL_SD_LN`), a smooth regional pattern
+  (:data:`N_BUMPS` Gaussian bumps of width :data:`BUMP_MM`, amplitudes SD
+  :data:`REGIONAL_SD_LN`), an age trend, white sensor noise, finite epochs;
+* **focal deviations**: a coherent patch of radius 10-15 mm around a random cortical source
+  added to a new person; z-scored per source against a simulated cohort's per-source norms.
+
+Probability model.  The area named for a map is the first of :func:`localise.rank_areas`
+(the area holding the highest value, areas not resolvable from 19 electrodes left out).  The
+probability that the generator lies in it is a logistic model
+
+    logit P = c0 + c1 · log1p(border_mm) + c2 · margin + c3 · log(n_sources) + c4 · logit(own)
+
+of four features of the named area: distance along the mesh from its maximum to its border,
+the margin by which its maximum beats every other source (:func:`localise.peak_margin`), its
+size, and its leakage own-share.  One coefficient set per map kind (``"power"`` for maps
+without norms, ``"z"`` for per-source |z| maps), fitted by maximum likelihood on simulations
+and checked on held-out simulations (other electrode jitters, sources and noise).  The
+probability is calibrated *under this simulation model*; a real head can differ more.
+
+References
+----------
+Cox DR (1958).  The regression analysis of binary sequences.  J R Stat Soc B 20:215-242 (from
+memory): logistic regression.
+Niculescu-Mizil A, Caruana R (2005).  Predicting good probabilities with supervised learning.
+Proc ICML (from memory): checking calibration by binned reliability.
+"""
+
+from __future__ import annotations
+
+import argparse
+import functools
+import json
+import sys
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+from ..trust.probability import (FEATURES, MODEL_FILE, area_features, named_area,
+                                 predict_logistic, shipped_model)
+
+#: Between-person SD of the global background scale, natural-log units (≈ 0.2 log10).
+#: Adult between-person SD of log10 absolute band power is about 0.2-0.3 (from memory; cf.
+#: Gasser, Bächer & Möcks 1982; John et al. 1980).
+GLOBAL_SD_LN = 0.45
+#: SD of the regional pattern's bump amplitudes, natural-log units.
+REGIONAL_SD_LN = 0.35
+N_BUMPS = 8
+BUMP_MM = 25.0
+#: Age trend of background power, natural log per year (a slow decline; from memory).
+AGE_SLOPE_LN = -0.008
+#: White sensor noise power relative to mean channel background power.
+SENSOR_NOISE_SHARE = 0.1
+#: Epochs per simulated recording (2-s epochs: 2 minutes).
+N_EPOCHS = 60
+
+
+@dataclass(frozen=True, eq=False)
+class SimSetup:
+    """Inputs shared by every simulation.
+
+    Attributes
+    ----------
+    space : CortexSpace
+        Inverse side (template BEM kernel, labels, mesh).
+    true_gain : ndarray, shape (n_real, n_ch, n_src)
+        True-head topographies of the space's sources.
+    background : ndarray, shape (n_real, n_ch, n_ch)
+        ``G Gᵀ`` of the true head over all sources (uncorrelated unit cortical activity).
+    own : ndarray, shape (n_codes,)
+        Leakage own-share per area code.
+    exclude : ndarray of int
+        Area codes left out of naming (not resolvable).
+    realisations : tuple of int
+        Jitter realisations this setup draws from.
+    """
+
+    space: object
+    true_gain: np.ndarray
+    background: np.ndarray
+    own: np.ndarray
+    exclude: np.ndarray
+    realisations: tuple
+
+    @functools.cached_property
+    def mid_pos(self) -> np.ndarray:
+        return self.space.mesh.pos_mm
+
+    @functools.cached_property
+    def hemi(self) -> np.ndarray:
+        return self.space.vertices >= 10242
+
+
+def make_setup(model, space, *, seed: int = 0, n_jitter: int = 16, realisations=None,
+               exclude_unresolvable: bool = True) -> SimSetup:
+    """Build a :class:`SimSetup` (the mismatch forward is cached on disk).
+
+    Parameters
+    ----------
+    model : HeadModel
+    space : CortexSpace
+    seed, n_jitter : int
+        Of :func:`sourcelab.simulate.mismatch.mismatch_forward`.
+    realisations : sequence of int, optional
+        Realisations to use (default all jittered ones, 1..n_jitter).
+    """
+    from .mismatch import mismatch_forward
+    from ..trust.resolvability import own_shares, resolvability_table, unresolvable_codes
+
+    mf = mismatch_forward(model, n_jitter=n_jitter, seed=seed)
+    gain = mf.gain[:, :, space.sources]
+    real = tuple(range(1, mf.n_real)) if realisations is None else tuple(realisations)
+    bg = np.einsum("rcs,rds->rcd", gain, gain)
+    excl = np.zeros(0, dtype=np.int64)
+    if exclude_unresolvable:
+        table = resolvability_table(space, model.ch_pos, model.src_pos)
+        excl = unresolvable_codes(space, table)
+    return SimSetup(space=space, true_gain=gain, background=bg, own=own_shares(space),
+                    exclude=excl, realisations=real)
+
+
+def power_map(kernel: np.ndarray, csd: np.ndarray) -> np.ndarray:
+    """``diag(K C Kᵀ)``; csd (n_ch, n_ch) or (n, n_ch, n_ch) -> (n_src,) or (n, n_src)."""
+    c = np.asarray(csd)
+    if c.ndim == 2:
+        return np.einsum("rc,rc->r", kernel @ c, kernel)
+    return np.stack([np.einsum("rc,rc->r", kernel @ x, kernel) for x in c])
+
+
+def wishart_csd(cov: np.ndarray, n_epochs: int, rng: np.random.Generator) -> np.ndarray:
+    """Mean of ``n_epochs`` complex-Gaussian cross-spectral estimates with expectation ``cov``."""
+    ev, vec = np.linalg.eigh(cov)
+    ll = vec * np.sqrt(np.clip(ev, 0, None))
+    w = rng.standard_normal((cov.shape[0], n_epochs)) + 1j * rng.standard_normal(
+        (cov.shape[0], n_epochs))
+    x = ll @ w
+    return (x @ x.conj().T).real / (2.0 * n_epochs)
+
+
+# ----------------------------------------------------------------------------- point sources
+def point_source_maps(setup: SimSetup, sources: np.ndarray, *, rng: np.random.Generator,
+                      snr: np.ndarray | float | None, n_epochs: int = N_EPOCHS
+                      ) -> tuple[np.ndarray, np.ndarray]:
+    """Power maps of single cortical sources under the true head.
+
+    Parameters
+    ----------
+    sources : ndarray of int, shape (n,)
+        Source indices of ``setup.space``.
+    snr : float, ndarray (n,), or None
+        Amplitude SNR (noise half brain background, half white); None: noise-free.
+
+    Returns
+    -------
+    maps : ndarray, shape (n, n_src)
+    real : ndarray of int, shape (n,)
+        Jitter realisation used for each.
+    """
+    from .mismatch import noisy_csd
+
+    k = setup.space.op.kernel
+    sources = np.asarray(sources)
+    real = rng.choice(setup.realisations, sources.size)
+    snr_a = None if snr is None else np.broadcast_to(np.asarray(snr, float), sources.shape)
+    maps = np.empty((sources.size, setup.space.n_src))
+    for i, (s, r) in enumerate(zip(sources, real)):
+        g = setup.true_gain[r][:, s]
+        if snr_a is None:
+            maps[i] = (k @ g) ** 2
+        else:
+            c = noisy_csd(g[:, None], snr=float(snr_a[i]), n_epochs=n_epochs, rng=rng,
+                          background=setup.background[r])[0]
+            maps[i] = power_map(k, c)
+    return maps, real
+
+
+# ----------------------------------------------------------------------------- people
+def patch_sources(setup: SimSetup, centre: int, radius_mm: float) -> np.ndarray:
+    """Sources of ``setup.space`` within ``radius_mm`` (mid-thickness, same hemisphere)."""
+    d = np.linalg.norm(setup.mid_pos - setup.mid_pos[centre], axis=1)
+    return np.flatnonzero((d <= radius_mm) & (setup.hemi == setup.hemi[centre]))
+
+
+def person_covariance(setup: SimSetup, rng: np.random.Generator, *, age: float, real: int,
+                      patch: np.ndarray | None = None, patch_ratio: float = 0.0) -> np.ndarray:
+    """Expected band cross-spectrum of one invented person (true head, sensor space).
+
+    Parameters
+    ----------
+    age : float
+        Years (sets the age trend).
+    real : int
+        Electrode-jitter realisation.
+    patch : ndarray of int, optional
+        Sources of a coherent focal excess.
+    patch_ratio : float
+        The patch's mean channel power (average reference) relative to the background's.
+
+    Returns
+    -------
+    ndarray, shape (n_ch, n_ch)
+    """
+    g = setup.true_gain[real]
+    n_src = g.shape[1]
+    ln_w = rng.normal(0.0, GLOBAL_SD_LN) + AGE_SLOPE_LN * (age - 40.0) + np.zeros(n_src)
+    centres = rng.choice(n_src, N_BUMPS, replace=False)
+    amps = rng.normal(0.0, REGIONAL_SD_LN, N_BUMPS)
+    for c, a in zip(centres, amps):
+        d2 = np.sum((setup.mid_pos - setup.mid_pos[c]) ** 2, axis=1)
+        ln_w += a * np.exp(-0.5 * d2 / BUMP_MM**2) * (setup.hemi == setup.hemi[c])
+    cov = (g * np.exp(ln_w)) @ g.T
+    n_ch = g.shape[0]
+    p = np.eye(n_ch) - 1.0 / n_ch
+    bg_pow = np.trace(p @ cov @ p) / n_ch
+    cov = cov + SENSOR_NOISE_SHARE * bg_pow * np.eye(n_ch)
+    if patch is not None and patch_ratio > 0:
+        t = g[:, patch].sum(axis=1)
+        t_pow = float(np.sum((p @ t) ** 2)) / n_ch
+        cov = cov + (patch_ratio * bg_pow / t_pow) * np.outer(t, t)
+    return cov
+
+
+def simulate_people(setup: SimSetup, ages: np.ndarray, rng: np.random.Generator, *,
+                    kernels=(), n_epochs: int = N_EPOCHS, patches=None, ratios=None
+                    ) -> list[np.ndarray]:
+    """Per-source power maps of invented people through each kernel.
+
+    Parameters
+    ----------
+    ages : ndarray, shape (n,)
+    kernels : sequence of ndarray (n_rows, n_ch)
+        Operators to apply (e.g. the cortex-only and the full-space kernel).
+    patches : sequence of (ndarray of int or None), optional
+        Focal excess per person.
+    ratios : ndarray, shape (n,), optional
+
+    Returns
+    -------
+    list of ndarray, one per kernel, shape (n, n_rows)
+    """
+    n = len(ages)
+    out = [np.empty((n, k.shape[0])) for k in kernels]
+    real = rng.choice(setup.realisations, n)
+    for i in range(n):
+        cov = person_covariance(setup, rng, age=float(ages[i]), real=int(real[i]),
+                                patch=None if patches is None else patches[i],
+                                patch_ratio=0.0 if ratios is None else float(ratios[i]))
+        c = wishart_csd(cov, n_epochs, rng)
+        for o, k in zip(out, kernels):
+            o[i] = power_map(k, c)
+    return out
+
+
+# ----------------------------------------------------------------------------- features, model
+def fit_logistic(x: np.ndarray, y: np.ndarray, *, ridge: float = 1e-3, max_iter: int = 50
+                 ) -> np.ndarray:
+    """Maximum-likelihood logistic regression (Newton-Raphson / IRLS, tiny ridge on slopes).
+
+    Parameters
+    ----------
+    x : ndarray, shape (n, k)
+    y : ndarray of {0, 1}, shape (n,)
+
+    Returns
+    -------
+    ndarray, shape (k + 1,)
+        Intercept first.
+    """
+    X = np.column_stack([np.ones(len(x)), x])
+    b = np.zeros(X.shape[1])
+    pen = np.full(X.shape[1], ridge)
+    pen[0] = 0.0
+    for _ in range(max_iter):
+        eta = X @ b
+        p = 0.5 * (1 + np.tanh(0.5 * eta))
+        w = np.clip(p * (1 - p), 1e-9, None)
+        grad = X.T @ (y - p) - pen * b
+        hess = (X * w[:, None]).T @ X + np.diag(pen)
+        step = np.linalg.solve(hess, grad)
+        b = b + step
+        if np.max(np.abs(step)) < 1e-9:
+            break
+    return b
+
+
+def reliability(prob: np.ndarray, hit: np.ndarray, *, edges=(0.0, 0.2, 0.4, 0.6, 0.8, 1.0)):
+    """Binned calibration: per bin of stated probability, count, mean stated, observed rate.
+
+    Returns
+    -------
+    list of dict
+        ``lo, hi, n, stated, observed``.
+    """
+    prob, hit = np.asarray(prob), np.asarray(hit, dtype=float)
+    out = []
+    for lo, hi in zip(edges[:-1], edges[1:]):
+        sel = (prob >= lo) & ((prob < hi) if hi < 1 else (prob <= hi))
+        out.append(dict(lo=lo, hi=hi, n=int(sel.sum()),
+                        stated=float(prob[sel].mean()) if sel.any() else np.nan,
+                        observed=float(hit[sel].mean()) if sel.any() else np.nan))
+    return out
+
+
+# ----------------------------------------------------------------------------- simulation sets
+def point_source_set(setup: SimSetup, n: int, rng: np.random.Generator, *,
+                     snr_range=(1.5, 10.0)):
+    """Features and outcomes of ``n`` point-source power maps (SNR log-uniform in range).
+
+    Returns
+    -------
+    dict
+        ``x`` (n, 4) features, ``hit`` (n,) named area is the true one, ``true``, ``named``,
+        ``sources``.
+    """
+    sp = setup.space
+    src = rng.integers(0, sp.n_src, n)
+    snr = np.exp(rng.uniform(np.log(snr_range[0]), np.log(snr_range[1]), n))
+    maps, _ = point_source_maps(setup, src, rng=rng, snr=snr)
+    return _score_maps(setup, maps, sp.codes[src], src)
+
+
+def _score_maps(setup, maps, true, src):
+    x, named = [], []
+    for v in maps:
+        a = named_area(v, setup.space, setup.exclude)
+        named.append(a)
+        x.append(area_features(v, setup.space, a, setup.own))
+    named = np.asarray(named)
+    return {"x": np.asarray(x), "hit": (named == true).astype(float), "true": true,
+            "named": named, "sources": src}
+
+
+def deviation_set(setup: SimSetup, n: int, rng: np.random.Generator, *, n_controls: int = 80,
+                  ratio_range=(0.1, 1.0), radius_range=(10.0, 15.0)):
+    """Features and outcomes of ``n`` focal deviations z-scored against simulated norms.
+
+    A cohort of ``n_controls`` invented adults (18-65 y) gives per-source norms (degree 1 in
+    log age, robust rule); each deviating person gets a patch at a random source.
+
+    Returns
+    -------
+    dict
+        As :func:`point_source_set`, plus ``z`` is not kept (memory); ``peak_z``.
+    """
+    from ..norms.source_norms import fit_source_models
+    from ..norms.predictive import predictive_t
+
+    sp = setup.space
+    ages = rng.uniform(18, 65, n_controls)
+    (ctrl,) = simulate_people(setup, ages, rng, kernels=(sp.op.kernel,))
+    coef, sd, n_kept, xtx = fit_source_models(ages, np.log10(ctrl), 1)
+    centres = rng.integers(0, sp.n_src, n)
+    radii = rng.uniform(*radius_range, n)
+    ratios = np.exp(rng.uniform(np.log(ratio_range[0]), np.log(ratio_range[1]), n))
+    ages_d = rng.uniform(18, 65, n)
+    patches = [patch_sources(setup, c, r) for c, r in zip(centres, radii)]
+    (dev,) = simulate_people(setup, ages_d, rng, kernels=(sp.op.kernel,), patches=patches,
+                             ratios=ratios)
+    zs = []
+    for i in range(n):
+        x0 = np.array([1.0, np.log10(ages_d[i])])
+        h = float(x0 @ xtx @ x0) * n_controls / n_kept
+        mean = x0 @ coef
+        zs.append(np.abs(predictive_t(np.log10(dev[i]), mean, sd, n=n_kept, degree=1,
+                                      h0=h)["z_equivalent"]))
+    out = _score_maps(setup, np.asarray(zs), sp.codes[centres], centres)
+    out["peak_z"] = np.array([z.max() for z in zs])
+    return out
+
+
+def fit_model(model, space, *, seed: int = 0, n_point: int = 3000, n_dev: int = 3000,
+              sim_seed: int = 1) -> dict:
+    """Fit both coefficient sets on simulations (jitter realisations ``1..8`` of ``seed``)."""
+    setup = make_setup(model, space, seed=seed, realisations=range(1, 9))
+    rng = np.random.default_rng(sim_seed)
+    t0 = time.perf_counter()
+    pts = point_source_set(setup, n_point, rng)
+    dev = deviation_set(setup, n_dev, rng)
+    coefs = {"power": fit_logistic(pts["x"], pts["hit"]).tolist(),
+             "z": fit_logistic(dev["x"], dev["hit"]).tolist()}
+    return {
+        "format": "sourcelab-localisation-probability 1",
+        "description": "logistic model of P(generator in the named area) from features of the "
+                       "named area; fitted on simulations under model mismatch (3-shell sphere "
+                       "true head, 10 mm RMS tangential electrode jitter, noise); see "
+                       "sourcelab/trust/probability.py and sourcelab/simulate/localisation.py",
+        "features": list(FEATURES),
+        "coefficients": coefs,
+        "fit": {"mismatch_seed": seed, "realisations": [1, 8], "sim_seed": sim_seed,
+                "n_point": n_point, "n_deviation": n_dev,
+                "hit_rate_point": float(pts["hit"].mean()),
+                "hit_rate_deviation": float(dev["hit"].mean()),
+                "lambda2": space.op.lambda2, "n_src": int(space.n_src),
+                "seconds": round(time.perf_counter() - t0, 1)},
+    }
+
+
+def main(argv=None) -> int:
+    """``python -m sourcelab.simulate.localisation --out PATH``: refit the shipped coefficients."""
+    p = argparse.ArgumentParser(prog="python -m sourcelab.simulate.localisation")
+    p.add_argument("--out", required=True)
+    p.add_argument("--n", type=int, default=3000, help="simulations per map kind")
+    args = p.parse_args(argv)
+    from ..headmodel import load_head_model
+    from ..provenance import atomic_write_text
+    from ..trust.cortex import cortex_space
+
+    res = fit_model(load_head_model(), cortex_space(), n_point=args.n, n_dev=args.n)
+    atomic_write_text(Path(args.out), json.dumps(res, indent=2) + "\n")
+    print(json.dumps(res["fit"], indent=2))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

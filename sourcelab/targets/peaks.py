@@ -1,0 +1,136 @@
+"""Candidates ranked by the peaks of per-source z-maps.
+
+For every band and measure, the per-source z-map (against per-source norms) is searched for local
+maxima of ``z`` (excess) and of ``-z`` (deficit) beyond the deviation threshold on the cortical
+mesh (:mod:`sourcelab.trust.localise`).  Each peak names the Brodmann area that contains it;
+one candidate per (measure, band, direction, area) keeps the strongest peak.  Order:
+
+1. **absolute-power** candidates, by |peak z|;
+2. then **relative-power** candidates, by |peak z|, labelled ``supporting``: relative power is
+   compositional (one band's excess lowers every other band's share), so a relative deviation
+   is shown as supporting evidence and never above an absolute one.
+
+Areas not resolvable from 19 scalp electrodes (:mod:`sourcelab.trust.resolvability`) are left
+out unless ``include_unresolvable``.  Each candidate carries the area's leakage own-share and the
+calibrated probability that the generator lies in the named area
+(:func:`sourcelab.simulate.localisation.area_probability`; calibrated for the first-named area of a
+map under the simulation model, see that module).  Statistical deviation only: whether an area
+is worth training is for a practitioner to decide.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..constants import Z_THRESHOLD
+
+#: |z| from which a peak is a candidate (two-sided p < 0.05; common practice).
+DEVIATION_Z = Z_THRESHOLD
+
+PEAK_CANDIDATE_COLUMNS = ("rank", "role", "measure", "band", "direction", "area", "hemisphere",
+                          "lobe", "peak_z", "x_mni152", "y_mni152", "z_mni152", "border_mm",
+                          "cluster_size", "cluster_areas", "own_share", "probability",
+                          "resolvable", "source", "vertex")
+
+
+def peak_candidates(zmaps: dict, space, *, own: np.ndarray, exclude=(),
+                    threshold: float = DEVIATION_Z, include_unresolvable: bool = False,
+                    max_peaks: int = 30, probability_model: dict | None = None):
+    """Rank candidate areas by z-map peaks.
+
+    Parameters
+    ----------
+    zmaps : dict
+        ``{(measure, band): ndarray (n_src,)}`` per-source z on ``space``'s sources.
+    space : CortexSpace
+    own : ndarray, shape (n_codes,)
+        Leakage own-share per area code.
+    exclude : sequence of int
+        Area codes not resolvable from 19 electrodes.
+    threshold : float
+        |z| a peak must exceed.
+    include_unresolvable : bool
+        Keep candidates in excluded areas (flagged ``resolvable = False``).
+    max_peaks : int
+        Peaks examined per map and direction.
+    probability_model : dict, optional
+        Coefficients (default: the shipped ones).
+
+    Returns
+    -------
+    DataFrame
+        Columns :data:`PEAK_CANDIDATE_COLUMNS`.
+    """
+    import pandas as pd
+
+    from ..headmodel.geometry import mni305_to_mni152
+    from ..trust.probability import area_probability
+    from ..trust.localise import clusters, local_maxima
+
+    excl = set(int(c) for c in exclude)
+    rows = []
+    for (measure, band), z in zmaps.items():
+        z = np.asarray(z, dtype=float)
+        for sign, direction in ((1.0, "above norm"), (-1.0, "below norm")):
+            v = np.clip(sign * z, 0.0, None)
+            peaks = local_maxima(v, space.mesh, threshold=threshold)[:max_peaks]
+            if not peaks.size:
+                continue
+            cl = clusters(v, space.mesh, threshold)
+            seen = set()
+            for s in peaks:
+                code = int(space.codes[s])
+                if code == 0 or code in seen:
+                    continue
+                seen.add(code)
+                resolvable = code not in excl
+                if not resolvable and not include_unresolvable:
+                    continue
+                members = np.flatnonzero(cl == cl[s])
+                codes, counts = np.unique(space.codes[members], return_counts=True)
+                o = np.argsort(-counts, kind="stable")
+                spans = ";".join(f"{space.label(c)}:{n}" for c, n in zip(codes[o], counts[o]))
+                xyz = mni305_to_mni152(space.mesh.pos_mm[s])
+                rows.append(dict(
+                    role="primary" if measure == "absolute" else "supporting",
+                    measure=measure, band=band, direction=direction,
+                    area=space.names[code], hemisphere=space.hemispheres[code],
+                    lobe=space.lobes[code], peak_z=float(z[s]),
+                    x_mni152=round(float(xyz[0]), 1), y_mni152=round(float(xyz[1]), 1),
+                    z_mni152=round(float(xyz[2]), 1), border_mm=round(float(space.border_mm[s]), 1),
+                    cluster_size=int(members.size), cluster_areas=spans,
+                    own_share=float(own[code]),
+                    probability=area_probability(v, space, code, own, kind="z",
+                                                 model=probability_model),
+                    resolvable=resolvable, source=int(s), vertex=int(space.vertices[s])))
+    out = pd.DataFrame(rows, columns=[c for c in PEAK_CANDIDATE_COLUMNS if c != "rank"])
+    if len(out):
+        out["_m"] = (out["measure"] != "absolute").astype(int)
+        out["_a"] = -out["peak_z"].abs()
+        out = out.sort_values(["_m", "_a"], kind="stable").drop(columns=["_m", "_a"])
+        out = out.reset_index(drop=True)
+    out.insert(0, "rank", np.arange(1, len(out) + 1))
+    return out
+
+
+def peak_candidates_for(zmaps: dict, *, lambda2: float = 1 / 9,
+                        include_unresolvable: bool = False):
+    """:func:`peak_candidates` on the shipped template (cached space, own-shares, resolvability).
+
+    Parameters
+    ----------
+    zmaps : dict
+        ``{(measure, band): ndarray (n_src,)}`` per-source z on the head model's sources.
+    lambda2 : float
+        λ² of the analysis (own-shares and resolvability are those of its operator).
+    include_unresolvable : bool
+
+    Returns
+    -------
+    DataFrame
+    """
+    from ..trust.resolvability import localisation_context
+
+    space, own, exclude, _ = localisation_context(float(lambda2))
+    return peak_candidates(zmaps, space, own=own, exclude=exclude,
+                           include_unresolvable=include_unresolvable)
