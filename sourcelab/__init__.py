@@ -10,6 +10,6 @@ __version__ = "0.1.0"
 
 #: Bumped whenever a change alters the numbers the pipeline produces.  Norms and results carry it
 #: in their fingerprint, so numbers from different pipelines are never compared.
-PIPELINE_VERSION = 1
+PIPELINE_VERSION = 2
 
 __all__ = ["__version__", "PIPELINE_VERSION"]

@@ -119,8 +119,7 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     t0 = time.perf_counter()
     config = config or AnalysisConfig()
     rec = recording if isinstance(recording, Recording) else read_recording(recording)
-    clean = clean_recording(rec, config, select=select, muscle_uv=config.muscle_uv,
-                            blink_uv=config.blink_uv)
+    clean = clean_recording(rec, config, select=select, age=age)
     model = load_head_model()
     if tuple(clean.ch_names) != tuple(model.ch_names):
         raise InputError(f"channels {clean.ch_names} do not match the head model's "
@@ -208,6 +207,9 @@ def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig) -
         "channel_kept_fraction": {k: float(v) for k, v in clean.channel_kept_fraction.items()},
         "mains_hz": clean.mains_hz,
         "thresholds": dict(clean.thresholds),
+        "excluded": [dict(e) for e in clean.excluded],
+        "ocular": dict(clean.ocular),
+        "cleaning_seconds": dict(clean.timings_s),
         "reliability": {
             "sensor": reliability_summary(sens, config.bands.names,
                                           threshold=config.reliability_threshold),
