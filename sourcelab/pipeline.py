@@ -151,6 +151,9 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
 
     fp = fingerprint_for(config, model.sha256)
     quality = _quality(clean, csd_epochs, op, atlas_objs[0], config)
+    slow = _slow_maximum(src_abs, names, model)
+    if slow is not None:
+        quality["ocular"]["slow_maximum"] = slow
     norms_summary = None
     nm = opts = None
     if norms is not None:
@@ -181,7 +184,8 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         "sfreq": float(rec.sfreq), "duration_s": float(rec.duration_s),
         "channel_map": dict(rec.channel_map), "original_reference": rec.original_reference,
         "interpolated": list(rec.interpolated), "age": age, "condition": condition,
-        "warnings": list(rec.warnings) + list(clean.warnings),
+        "warnings": list(rec.warnings) + list(clean.warnings)
+        + ([slow["warning"]] if slow is not None and slow["warning"] else []),
     }
     log.info("analysis done in %.2f s", time.perf_counter() - t0)
     return AnalysisResult(config=config, fingerprint=fp, ch_names=tuple(clean.ch_names),
@@ -190,6 +194,28 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
                           sensor_abs=sens_abs, sensor_rel=sens_rel, roi_table=roi_table,
                           sensor_table=sensor_table, quality=quality, recording=recording_info,
                           norms=norms_summary, epoch_csd=csd_epochs)
+
+
+@functools.lru_cache(maxsize=2)
+def _confusable(model) -> dict:
+    from .intake.clean import DEFAULT_NASION
+    from .rois import load_atlas
+    from .trust.ocular import confusable_rois, source_ocular_cosine
+
+    cos = source_ocular_cosine(model.gain_fixed, model.ch_pos, DEFAULT_NASION)
+    return confusable_rois(cos, load_atlas("brodmann").rois)
+
+
+def _slow_maximum(src_abs: np.ndarray, band_names, model) -> dict | None:
+    """Delta maximum among Brodmann areas, flagged when its area can pass for eye activity."""
+    if "delta" not in band_names:
+        return None
+    from .rois import load_atlas, roi_reduce
+    from .trust.ocular import slow_maximum_check
+
+    atlas = load_atlas("brodmann")
+    values = roi_reduce(src_abs[list(band_names).index("delta")], atlas)
+    return slow_maximum_check(values, atlas.rois, _confusable(model), band="delta")
 
 
 def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig) -> dict:

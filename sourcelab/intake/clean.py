@@ -284,11 +284,16 @@ def band_csd(epochs: np.ndarray, sfreq: float, band: tuple[float, float]) -> np.
     return np.real(np.einsum("eck,edk->cd", x, x.conj())) / max(len(epochs), 1)
 
 
+#: Nasion of MNE's fsaverage_1020 montage in head coordinates, metres (the template positions
+#: every recording gets).
+DEFAULT_NASION = np.array([0.0, 0.1148, 0.0])
+
+
 def _nasion(raw) -> np.ndarray:
     for d in raw.info["dig"] or []:
         if d["kind"] == 1 and d["ident"] == 2:  # FIFFV_POINT_CARDINAL, FIFFV_POINT_NASION
             return np.asarray(d["r"], float)
-    return np.array([0.0, 0.115, 0.0])  # fsaverage_1020 nasion, head coordinates
+    return DEFAULT_NASION
 
 
 def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None,

@@ -285,18 +285,39 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
         return OcularCorrection("none found", data, (), np.zeros((n_ch, 0)), (), eog_scores,
                                 n_comp, len(idx) / sfreq, time.perf_counter() - t0,
                                 tuple(notes))
-    # apply x - A_r S_r in µV: S = W D (x - m) with MNE's pre-whitener D, PCA and unmixing
-    pw = ica.pre_whitener_.ravel()
-    pca = ica.pca_components_[:n_comp]
-    unmix = (ica.unmixing_matrix_ @ pca) / pw[None, :]
-    mix = pw[:, None] * (pca.T @ ica.mixing_matrix_)
+    corrected = remove_components(ica, data, removed)
+    return OcularCorrection("ica", corrected, removed, maps[:, list(removed)],
+                            tuple(float(cos[i]) for i in removed), eog_scores, n_comp,
+                            len(idx) / sfreq, time.perf_counter() - t0, tuple(notes))
+
+
+def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
+    """``x - A_r S_r``: the data without the ``removed`` components of a fitted MNE ICA.
+
+    Parameters
+    ----------
+    ica : mne.preprocessing.ICA
+        Fitted on EEG in volts (all channels of one type, so one pre-whitening scale).
+    data_uv : ndarray, shape (n_ch, n_times)
+        µV.
+    removed : sequence of int
+
+    Returns
+    -------
+    ndarray, shape (n_ch, n_times)
+        µV.  Equal to ``ica.apply`` with ``exclude=removed`` and all PCA components kept when
+        ``n_components`` is the data's rank (checked in the tests).
+    """
     r = list(removed)
-    mean = (ica.pca_mean_ * ica.pre_whitener_.ravel())[:, None] * 1e6
-    sources = unmix[r] @ (data - mean)
-    corrected = data - mix[:, r] @ sources
-    return OcularCorrection("ica", corrected, removed, maps[:, r], tuple(float(cos[i]) for i in r),
-                            eog_scores, n_comp, len(idx) / sfreq, time.perf_counter() - t0,
-                            tuple(notes))
+    if not r:
+        return np.array(data_uv, float)
+    pw = ica.pre_whitener_.ravel()
+    pca = ica.pca_components_[:ica.n_components_]
+    unmix = (ica.unmixing_matrix_ @ pca) / pw[None, :]  # sources from volts
+    mix = pw[:, None] * (pca.T @ ica.mixing_matrix_)
+    mean_uv = (ica.pca_mean_ * pw)[:, None] * 1e6
+    sources = unmix[r] @ (np.asarray(data_uv, float) - mean_uv)
+    return data_uv - mix[:, r] @ sources
 
 
 def _regress(data: np.ndarray, eog: np.ndarray, mask: np.ndarray, t0: float
