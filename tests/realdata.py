@@ -34,6 +34,23 @@ EYES_CLOSED = ((928.5, 938.5), (1197.5, 1213.0), (1651.0, 1663.3))
 EYES_OPEN = ((958.0, 990.0), (1250.0, 1282.0), (1666.0, 1720.0))
 
 
+def _review(spans, codes: str) -> dict:
+    starts = [a + 2.0 * k for a, b in spans for k in range(int((b - a) // 2.0))]
+    assert len(starts) == len(codes), (len(starts), len(codes))
+    return dict(zip(starts, codes))
+
+
+#: By-eye review of every 2-s epoch of the spans above, done before the rejection rule was
+#: written (display: 60 Hz notch, 0.5-45 Hz band-pass, 100 µV between traces, all 19 sites, plus
+#: zoomed views of the frontal and temporal sites).  Codes: "C" no artefact; "O" ocular only
+#: (blinks, eye movements - corrected, not rejected); "M" muscle bursts clearly above the
+#: ongoing EEG, movement or electrode artefact.  Artefact-free time = "C" + "O" epochs.
+#: Epoch start (s) -> code.
+REVIEW_EC = _review(EYES_CLOSED, "MCCCO" + "CMMMCCC" + "OOMOOO")
+REVIEW_EO = _review(EYES_OPEN, "MMMMMMMMMMMOOMMM" + "MMMOCOCCOMOMMOOM"
+                    + "MOCOOOOCOO" + "M" * 17)
+
+
 def cache_dir() -> Path:
     d = Path(os.environ.get("SOURCELAB_TEST_DATA", Path.home() / ".cache" / "sourcelab-test-data"))
     d.mkdir(parents=True, exist_ok=True)

@@ -175,7 +175,7 @@ def procedure_mask(raw) -> tuple[np.ndarray, list]:
     return _to_mask(spans, raw.n_times, sf), spans
 
 
-def selection_mask(raw, select, *, where=None, procedures=None) -> np.ndarray:
+def selection_mask(raw, select, *, where=None) -> np.ndarray:
     """Boolean mask of samples chosen by annotation descriptions and/or time ranges.
 
     Parameters
@@ -186,14 +186,13 @@ def selection_mask(raw, select, *, where=None, procedures=None) -> np.ndarray:
         eyes closed/open match every marker of that state.  A state marker selects until the
         next state-changing marker (:func:`sourcelab.intake.states.state_spans`).  Ranges are
         [t0, t1) seconds from the first sample.  The union is taken.  None selects everything.
-    procedures : list of Span, optional
-        Removed from annotation-selected spans (they never hold resting data).
+        Procedure spans are removed afterwards, by :func:`clean_recording`.
 
     Returns
     -------
     ndarray of bool, shape (n_times,)
     """
-    from .states import Span, canonical_state, state_spans, subtract
+    from .states import Span, canonical_state, state_spans
 
     n, sf = raw.n_times, raw.info["sfreq"]
     if select is None:
@@ -212,7 +211,7 @@ def selection_mask(raw, select, *, where=None, procedures=None) -> np.ndarray:
                 hint = f" (read as {alias!r})" if alias and alias != item.strip().lower() else ""
                 raise InputError(f"select: no annotation {item!r}{hint}; descriptions present: "
                                  f"{present}", path=where)
-            spans += subtract(got, procedures or [])[0]
+            spans += got
         else:
             try:
                 t0, t1 = (float(v) for v in item)
@@ -379,7 +378,7 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
         proc, proc_spans = procedure_mask(raw)
     else:
         proc, proc_spans = np.zeros(raw.n_times, bool), []
-    chosen = selection_mask(raw, select, where=where, procedures=proc_spans)
+    chosen = selection_mask(raw, select, where=where)
     excluded = excluded_procedures(chosen & ~bad, proc_spans, sf)
     usable = ~bad & ~proc
     allowed = chosen & usable
