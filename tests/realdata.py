@@ -76,7 +76,13 @@ def _unavailable(message: str):
 
     if os.environ.get(REQUIRE_ENV, "").strip() not in ("", "0"):
         pytest.fail(f"{message} ({REQUIRE_ENV}=1)", pytrace=False)
-    pytest.skip(f"real recording unavailable offline: {message}")
+    pytest.skip(f"real recording unavailable offline: {message}", allow_module_level=True)
+
+
+def require() -> Path:
+    """Call at the top of a real-data test module: the recording, or one skip line for the
+    module when the registry cannot be reached (a failure with SOURCELAB_REQUIRE_NETWORK=1)."""
+    return h5_path()
 
 
 def fetch_sdist() -> Path:

@@ -23,6 +23,7 @@ from sourcelab.intake import (
 )
 
 pytestmark = pytest.mark.network
+realdata.require()  # one skip line for the module when offline
 
 #: What a user gets: the defaults (learned rejection thresholds, ocular correction).
 CFG = AnalysisConfig()

@@ -14,6 +14,7 @@ from sourcelab.intake import read_recording
 from sourcelab.pipeline import analyze
 
 pytestmark = pytest.mark.network
+realdata.require()  # one skip line for the module when offline
 
 #: Brodmann's occipital and parietal areas (common anatomy).
 POSTERIOR = {"BA17", "BA18", "BA19", "BA7", "BA5", "BA39", "BA40"}

@@ -42,7 +42,7 @@ def add_parser(sub) -> None:
     p.add_argument("--out", required=True, help="output folder (replaced atomically)")
     p.add_argument("--age", type=float, help="age in years (needed with --norms)")
     p.add_argument("--norms", help="norms TSV (sourcelab norms format)")
-    p.add_argument("--condition", help='recording condition, e.g. "eyes closed"')
+    p.add_argument("--condition", help='recording condition, e.g. "eyes closed" (EC/EO accepted)')
     p.add_argument("--select", action="append", metavar="ANNOTATION|T0-T1",
                    help='analyse only segments with this annotation (e.g. "eyes closed") or '
                         "this time range in seconds (e.g. 120-300); repeatable, union")
@@ -118,6 +118,12 @@ def print_summary(result, out) -> None:
     q = result.quality
     print(f"sourcelab: analysed {result.recording.get('path') or 'recording'}: "
           f"{q.get('kept_s', 0):.0f} s clean data in {q.get('n_epochs', 0)} epochs")
+    removed = {k: v for k, v in q.get("rejected_s", {}).items() if v}
+    if removed:
+        print("sourcelab: removed: " + ", ".join(f"{k} {v:.0f} s" for k, v in removed.items()))
+    for e in q.get("excluded", []):
+        print(f"sourcelab: excluded {e['kind']} ({e['label']}, {e['start_s']:.0f}-"
+              f"{e['stop_s']:.0f} s): {e['overlap_s']:.0f} s of the selection")
     t = result.roi_table
     if t["z"].notna().any():
         n = int(t["z"].notna().sum())

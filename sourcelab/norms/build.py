@@ -26,8 +26,8 @@ import pandas as pd
 
 from ..errors import InputError
 from ..provenance import Fingerprint, safe_name
-from .io import (COLUMNS, MAX_DEGREE, NA, QUANTITY_COLUMNS, Norms, read_norms,
-                 write_norms)
+from .io import (COLUMNS, MAX_DEGREE, NA, QUANTITY_COLUMNS, Norms, normalise_condition,
+                 read_norms, write_norms)
 from .models import fit_poly, select_degree
 from .transforms import get_transform, transform_for_measure
 
@@ -197,7 +197,8 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
         per.append({index.setdefault(k, len(index)): v for k, v in vals.items()})
     n, q = len(ids), len(index)
     if n < min_n_per_bin:
-        raise InputError(f"need at least min_n_per_bin={min_n_per_bin} participants, got {n}")
+        raise InputError(f"need at least {min_n_per_bin} analysed participants (the minimum per "
+                         f"norms row), got {n}")
     age = np.asarray(ages)
     Y = np.full((n, q), np.nan)
     for i, d in enumerate(per):
@@ -398,8 +399,9 @@ def build_norms_from_cohort(cohort_dir: str | Path, participants_tsv: str | Path
     out : str | Path
         Norms file to write.  Beside it: ``<stem>_calibration.tsv`` and ``<stem>_calibration.png``.
     condition : str | None
-        Condition of the norms.  If the participants file has a ``condition`` column, only
-        matching participants are used; if None, that column must hold one condition.
+        Condition of the norms (``"EC"``/``"EO"`` mean eyes closed/open).  If the participants
+        file has a ``condition`` column, only matching participants are used; if None, that
+        column must hold one condition.  A plain BIDS file (participant_id, age, sex) needs it.
     model, degree, bins, min_n_per_bin, robust, notes
         See :func:`fit_norms`.
 
@@ -423,14 +425,18 @@ def build_norms_from_cohort(cohort_dir: str | Path, participants_tsv: str | Path
         if condition is None:
             uniq = sorted(set(conds) - {"", "n/a"})
             if len(uniq) != 1:
-                raise InputError(f"participants have conditions {uniq}; pass condition= to "
-                                 "choose one", path=participants_tsv)
+                raise InputError(f"participants have conditions {uniq}; choose one with "
+                                 "--condition", path=participants_tsv)
             condition = uniq[0]
-        from .io import normalise_condition
         parts = parts[conds.map(normalise_condition) == normalise_condition(condition)]
+        if parts.empty:
+            raise InputError(f"no participant has condition {condition!r} (conditions: "
+                             f"{sorted(set(conds) - {'', 'n/a'})})", path=participants_tsv)
     elif condition is None:
-        raise InputError("participants file has no 'condition' column; pass condition= "
-                         "(e.g. 'eyes closed')", path=participants_tsv)
+        raise InputError("participants file has no 'condition' column; give the condition of "
+                         "the recordings with --condition (e.g. --condition \"eyes closed\" or "
+                         "EC / EO)", path=participants_tsv)
+    condition = normalise_condition(condition)
     failures: list[tuple[str, str]] = []
     entries = []
     fp0: Fingerprint | None = None

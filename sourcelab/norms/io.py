@@ -58,9 +58,14 @@ _HEADER_KEYS = ("fingerprint", "condition", "cohort", "note")
 _HEADER_RE = re.compile(r"^# ([a-z]+): (.*)$")
 
 
+#: Common abbreviations of recording conditions (common practice in clinical EEG).
+CONDITION_ALIASES = {"ec": "eyes closed", "eo": "eyes open"}
+
+
 def normalise_condition(condition: str) -> str:
-    """Canonical form for comparing conditions (``"Eyes-closed"`` -> ``"eyes closed"``)."""
-    return " ".join(re.sub(r"[-_]+", " ", str(condition)).lower().split())
+    """Canonical form for comparing conditions (``"Eyes-closed"``, ``"EC"``: ``"eyes closed"``)."""
+    text = " ".join(re.sub(r"[-_]+", " ", str(condition)).lower().split())
+    return CONDITION_ALIASES.get(text, text)
 
 
 @dataclass(frozen=True, eq=False)

@@ -150,7 +150,7 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
     elif normalise_condition(condition) != normalise_condition(norms.condition):
         if not allow_condition_mismatch:
             raise InputError(f"condition {condition!r} differs from the norms' condition "
-                             f"{norms.condition!r}; pass allow_condition_mismatch=True to "
+                             f"{norms.condition!r}; pass --allow-condition-mismatch to "
                              "z-score anyway (rows are flagged)", path=where)
         mismatch = True
         log.warning("z-scoring %r against %r norms (flagged)", condition, norms.condition)
@@ -193,7 +193,7 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
         lo = min(r[0] for r in outside)
         hi = max(r[1] for r in outside)
         raise InputError(f"age {age:g} y is outside the norms' age ranges ({lo:g}-{hi:g} y) for "
-                         f"{len(outside)} rows; pass allow_extrapolation=True to z-score anyway "
+                         f"{len(outside)} rows; pass --allow-extrapolation to z-score anyway "
                          "(rows are flagged)", path=where)
     if extrap.any():
         log.warning("age %g y outside the norms' range for %d rows: extrapolated (flagged)",
