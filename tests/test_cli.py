@@ -74,7 +74,7 @@ def test_missing_sites(tmp_path, capsys):
 def test_too_short(sim_edf, tmp_path, capsys):
     import mne
 
-    raw = mne.io.read_raw_edf(sim_edf, preload=True, verbose="error").crop(0, 40)
+    raw = mne.io.read_raw_edf(sim_edf, preload=True, verbose="error").crop(0, 16)  # < min_clean_s (20 s)
     p = tmp_path / "short.edf"
     mne.export.export_raw(p, raw, fmt="edf", verbose="error")
     _bad(["analyze", str(p)], tmp_path, capsys, "short.edf")
