@@ -248,25 +248,32 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
     import mne
 
     step = max(1, len(idx) // (FIT_SAMPLES_PER_COMPONENT2 * n_comp ** 2))
+    from scipy.signal import butter, sosfiltfilt
+
     usable = data[:, idx]
     veog = usable[[names.index(s) for s in VEOG_SITES]].mean(axis=0)
     heog = usable[names.index(HEOG_SITES[0])] - usable[names.index(HEOG_SITES[1])]
-    info = mne.create_info(names + ["VEOG", "HEOG"], sfreq, ["eeg"] * n_ch + ["eog"] * 2)
-    raw = mne.io.RawArray(np.vstack([usable, veog, heog]) * 1e-6, info, verbose="error")
-    ica = mne.preprocessing.ICA(n_components=n_comp, method="fastica", max_iter=MAX_ITER,
-                                rng=seed, verbose="error")
-    # components are scored on a low-passed, decimated copy (find_bads_eog filters to 1-10 Hz
-    # anyway; this makes its filtering ~20x cheaper)
-    from scipy.signal import butter, sosfiltfilt
-
+    names_all = names + ["VEOG", "HEOG"]
+    types = ["eeg"] * n_ch + ["eog"] * 2
+    # fitted on evenly strided samples (FastICA ignores the order of samples) ...
+    fit_raw = mne.io.RawArray(usable[:, ::step] * 1e-6, mne.create_info(names, sfreq / step,
+                                                                         "eeg"), verbose="error")
+    # ... and scored on a low-passed, decimated copy (find_bads_eog filters to 1-10 Hz anyway;
+    # this makes its filtering ~20x cheaper)
     q = max(1, int(sfreq // SCORE_HZ))
     sos = butter(4, min(12.0, 0.4 * sfreq / q), fs=sfreq, output="sos")
-    low = sosfiltfilt(sos, raw.get_data(), axis=1)[:, ::q]
-    score_info = mne.create_info(info.ch_names, sfreq / q, info.get_channel_types())
-    score_raw = mne.io.RawArray(low, score_info, verbose="error")
-    with warnings.catch_warnings():  # convergence / high-pass advice goes to the log instead
-        warnings.simplefilter("ignore")
-        ica.fit(raw, picks="eeg", decim=step, verbose="error")
+    low = sosfiltfilt(sos, np.vstack([usable, veog, heog]), axis=1)[:, ::q] * 1e-6
+    score_raw = mne.io.RawArray(low, mne.create_info(names_all, sfreq / q, types),
+                                verbose="error")
+    ica = mne.preprocessing.ICA(n_components=n_comp, method="fastica", max_iter=MAX_ITER,
+                                rng=seed, verbose="error")
+    from threadpoolctl import threadpool_limits
+
+    # one BLAS thread: the matrices are small (n_comp x ~15,000) and several threads spin
+    # against each other on a shared machine (measured: 4.4 s -> 0.9 s wall for 100 iterations)
+    with warnings.catch_warnings(), threadpool_limits(1):
+        warnings.simplefilter("ignore")  # convergence / high-pass advice: not for the user
+        ica.fit(fit_raw, picks="eeg", verbose="error")
         flagged, scores = ica.find_bads_eog(score_raw, ch_name=["VEOG", "HEOG"],
                                             threshold=EOG_Z, l_freq=1.0, h_freq=10.0,
                                             verbose="error")
