@@ -79,19 +79,6 @@ class AnalysisConfig:
         Amplitude signal-to-noise ratio; the regularisation is ``lambda2 = 1 / snr**2``.
     epoch_s : float
         Epoch length for cleaning and Welch cross-spectra, seconds.
-    rejection : {"auto", "fixed"}
-        ``"auto"``: per-site thresholds learned from the recording (robust z of log peak-to-peak
-        amplitude and of 25-45 Hz RMS, clipped into age-aware plausibility bounds; see
-        :mod:`sourcelab.intake.artefacts`).  ``"fixed"``: ``reject_uv`` and ``muscle_uv`` at
-        every site.
-    reject_z : float
-        Robust z beyond which ``"auto"`` rejects (FASTER's 3).
-    ocular_correction : {"auto", "ica", "regression", "off"}
-        Remove eye artefacts before rejection: ``"auto"`` regresses real EOG channels when the
-        recording has them, else ICA with Fp1/Fp2 and F7/F8 as EOG proxies.
-    exclude_procedures : bool
-        Leave out hyperventilation, post-hyperventilation, photic stimulation and seizure spans
-        recognised from the annotations (listed in the clean-data summary).
     reject_uv : float
         Peak-to-peak amplitude rejection threshold per epoch with ``rejection = "fixed"``, µV.
     flat_uv : float
@@ -122,6 +109,19 @@ class AnalysisConfig:
         Seed of the bootstrap (results are reproducible).
     ci : float
         Confidence level of the intervals.
+    rejection : {"auto", "fixed"}
+        ``"auto"``: per-site thresholds learned from the recording (robust z of log peak-to-peak
+        amplitude and of 25-45 Hz RMS, clipped into age-aware plausibility bounds; see
+        :mod:`sourcelab.intake.artefacts`).  ``"fixed"``: ``reject_uv`` and ``muscle_uv`` at
+        every site.
+    reject_z : float
+        Robust z beyond which ``"auto"`` rejects (FASTER's 3).
+    ocular_correction : {"auto", "ica", "regression", "off"}
+        Remove eye artefacts before rejection: ``"auto"`` regresses real EOG channels when the
+        recording has them, else ICA with Fp1/Fp2 and F7/F8 as EOG proxies.
+    exclude_procedures : bool
+        Leave out hyperventilation, post-hyperventilation, photic stimulation and seizure spans
+        recognised from the annotations (listed in the clean-data summary).
     """
 
     bands: Bands = field(default_factory=Bands)
@@ -129,10 +129,6 @@ class AnalysisConfig:
     orientation: str = "fixed"
     snr: float = 3.0
     epoch_s: float = 2.0
-    rejection: str = "auto"
-    reject_z: float = 3.0
-    ocular_correction: str = "auto"
-    exclude_procedures: bool = True
     reject_uv: float = 150.0
     flat_uv: float = 0.5
     muscle_uv: float = 8.0
@@ -146,6 +142,10 @@ class AnalysisConfig:
     n_boot: int = 1000
     boot_seed: int = 0
     ci: float = 0.95
+    rejection: str = "auto"
+    reject_z: float = 3.0
+    ocular_correction: str = "auto"
+    exclude_procedures: bool = True
 
     def __post_init__(self):
         if self.method not in ("sLORETA", "eLORETA", "dSPM"):

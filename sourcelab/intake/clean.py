@@ -399,7 +399,8 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     if recording.eog_uv is not None and len(recording.eog_uv):
         eog = band_pass(np.nan_to_num(np.asarray(recording.eog_uv, float)))
     ocular = correct_ocular(data, sf, SITES_1020, _positions(raw), _nasion(raw),
-                            fit_mask=fit_mask, eog_uv=eog, method=config.ocular_correction)
+                            fit_mask=fit_mask, eog_uv=eog, method=config.ocular_correction,
+                            highpass_hz=config.l_freq)
     data = ocular.data
     notes.extend(ocular.notes)
     corrected = ocular.method in ("ica", "regression")

@@ -33,6 +33,7 @@ IEEE Trans Neural Netw 10:626-634.
 from __future__ import annotations
 
 import logging
+import threading
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -40,6 +41,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 logger = logging.getLogger("sourcelab")
+_FIT_LOCK = threading.Lock()
 
 #: Eyeball centres relative to the nasion, metres (head coordinates: x to the right ear, y to
 #: the nasion, z up).  Adult anatomy, from memory: interpupillary distance ~63 mm, the globe
@@ -179,7 +181,7 @@ def _data_rank(x: np.ndarray) -> int:
 def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarray,
                    nasion: np.ndarray, *, fit_mask: np.ndarray | None = None,
                    eog_uv: np.ndarray | None = None, method: str = "auto",
-                   seed: int = 0) -> OcularCorrection:
+                   seed: int = 0, highpass_hz: float | None = None) -> OcularCorrection:
     """Remove ocular artefacts from continuous, band-passed EEG.
 
     Parameters
@@ -201,6 +203,8 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
         ``"auto"``: regression when ``eog_uv`` is given, else ICA.
     seed : int
         ICA random state (results are reproducible).
+    highpass_hz : float, optional
+        High-pass edge already applied to ``data_uv`` (recorded for MNE, which advises >= 1 Hz).
 
     Returns
     -------
@@ -258,6 +262,8 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
     # fitted on evenly strided samples (FastICA ignores the order of samples) ...
     fit_raw = mne.io.RawArray(usable[:, ::step] * 1e-6, mne.create_info(names, sfreq / step,
                                                                          "eeg"), verbose="error")
+    with fit_raw.info._unlock():
+        fit_raw.info["highpass"] = float(highpass_hz or 0.0)
     # ... and scored on a low-passed, decimated copy (find_bads_eog filters to 1-10 Hz anyway;
     # this makes its filtering ~20x cheaper)
     q = max(1, int(sfreq // SCORE_HZ))
@@ -271,7 +277,9 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
 
     # one BLAS thread: the matrices are small (n_comp x ~15,000) and several threads spin
     # against each other on a shared machine (measured: 4.4 s -> 0.9 s wall for 100 iterations)
-    with warnings.catch_warnings(), threadpool_limits(1):
+    # the lock: warning filters are process-wide, so two threads (Dask's threaded workers) must
+    # not interleave their catch_warnings blocks, or one restores "error" inside the other's fit
+    with _FIT_LOCK, warnings.catch_warnings(), threadpool_limits(1):
         warnings.simplefilter("ignore")  # convergence / high-pass advice: not for the user
         ica.fit(fit_raw, picks="eeg", verbose="error")
         flagged, scores = ica.find_bads_eog(score_raw, ch_name=["VEOG", "HEOG"],
