@@ -204,3 +204,23 @@ def test_switched_off_in_the_config():
 
     with pytest.raises(InputError, match="ocular_correction"):
         AnalysisConfig(ocular_correction="sometimes")
+
+
+def test_eog_channels_of_the_file_select_regression(head_model, rng):
+    # A file with real EOG channels ("VEOG" typed eog, "EEG LOC-REF" by name) keeps them beside
+    # the 19 sites, and the default correction regresses them out.
+    from sourcelab.intake import clean_recording, read_recording
+
+    n = int(60 * SF)
+    clean = simulate_raw(head_model, duration_s=60.0, sfreq=SF, rng=rng).get_data()
+    eye = ocular_artefacts(head_model.ch_pos, DEFAULT_NASION, n_times=n, sfreq=SF, rng=rng)
+    tpl = ocular_templates(head_model.ch_pos, DEFAULT_NASION)
+    eog = np.linalg.lstsq(tpl, eye, rcond=None)[0] * 3.0
+    names = list(SITES_1020) + ["VEOG", "EEG LOC-REF", "EEG A1-REF"]
+    info = mne.create_info(names, SF, ["eeg"] * 19 + ["eog", "eeg", "eeg"])
+    data = np.vstack([clean + eye, eog, 1e-6 * rng.standard_normal((1, n))])
+    rec = read_recording(mne.io.RawArray(data, info, verbose="error"))
+    assert rec.eog_names == ("VEOG", "EEG LOC-REF") and rec.eog_uv.shape == (2, n)
+    cl = clean_recording(rec, AnalysisConfig(min_clean_s=10.0))
+    assert cl.ocular["method"] == "regression"
+    assert len(cl.ocular["component_maps_uv"]) == 2  # one weight map per EOG channel
