@@ -232,7 +232,7 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
     if method == "regression" or (method == "auto" and eog_uv is not None and len(eog_uv)):
         if eog_uv is None or not len(eog_uv):
             raise ValueError("method='regression' needs EOG channels (eog_uv)")
-        return _regress(data, np.asarray(eog_uv, float), mask, t0)
+        return _regress(data, np.asarray(eog_uv, float), mask, sfreq, t0)
     names = list(ch_names)
     missing = [s for s in VEOG_SITES + HEOG_SITES if s not in names]
     if missing:
@@ -250,10 +250,10 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
             f"no ocular correction: {len(idx)} samples to learn from, ICA of {n_comp} "
             f"components needs about {min_samples}",))
     import mne
+    from scipy.signal import butter, sosfiltfilt
+    from threadpoolctl import threadpool_limits
 
     step = max(1, len(idx) // (FIT_SAMPLES_PER_COMPONENT2 * n_comp ** 2))
-    from scipy.signal import butter, sosfiltfilt
-
     usable = data[:, idx]
     veog = usable[[names.index(s) for s in VEOG_SITES]].mean(axis=0)
     heog = usable[names.index(HEOG_SITES[0])] - usable[names.index(HEOG_SITES[1])]
@@ -273,8 +273,6 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
                                 verbose="error")
     ica = mne.preprocessing.ICA(n_components=n_comp, method="fastica", max_iter=MAX_ITER,
                                 rng=seed, verbose="error")
-    from threadpoolctl import threadpool_limits
-
     # one BLAS thread: the matrices are small (n_comp x ~15,000) and several threads spin
     # against each other on a shared machine (measured: 4.4 s -> 0.9 s wall for 100 iterations)
     # the lock: warning filters are process-wide, so two threads (Dask's threaded workers) must
@@ -335,13 +333,13 @@ def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
     return data_uv - mix[:, r] @ sources
 
 
-def _regress(data: np.ndarray, eog: np.ndarray, mask: np.ndarray, t0: float
+def _regress(data: np.ndarray, eog: np.ndarray, mask: np.ndarray, sfreq: float, t0: float
              ) -> OcularCorrection:
     e = eog[:, mask] - eog[:, mask].mean(axis=1, keepdims=True)
     x = data[:, mask] - data[:, mask].mean(axis=1, keepdims=True)
     beta = np.linalg.lstsq(e.T, x.T, rcond=None)[0].T  # (n_ch, n_eog)
     corrected = data - beta @ (eog - eog[:, mask].mean(axis=1, keepdims=True))
-    return OcularCorrection("regression", corrected, (), beta, (), {}, 0, mask.sum(),
+    return OcularCorrection("regression", corrected, (), beta, (), {}, 0, mask.sum() / sfreq,
                             time.perf_counter() - t0)
 
 
