@@ -7,6 +7,7 @@ computed (tables, maps, candidates, leakage).  Writing files is :meth:`AnalysisR
 
 from __future__ import annotations
 
+import functools
 import logging
 import time
 from pathlib import Path
@@ -144,13 +145,20 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     t0 = time.perf_counter()
     config = config or AnalysisConfig()
     names = config.bands.names
+    nm = None
+    if norms is not None:  # cheap checks first: a bad norms file fails before the pipeline runs
+        from .norms import read_norms
+
+        nm = norms if not isinstance(norms, (str, Path)) else read_norms(norms)
+        if age is None:
+            raise InputError("the participant's age is needed with norms (z-scores depend "
+                             "on age)")
     with Stages(STAGES, desc="analysis", enabled=progress) as stages:
         stages.step("reading")
         rec = recording if isinstance(recording, Recording) else read_recording(recording)
         check_sampling_rate(config, rec.sfreq, where=rec.path)
         stages.step("cleaning")
-        clean = clean_recording(rec, config, select=select, muscle_uv=config.muscle_uv,
-                                blink_uv=config.blink_uv)
+        clean = clean_recording(rec, config, select=select, age=age)
         model = load_head_model()
         if tuple(clean.ch_names) != tuple(model.ch_names):
             raise InputError(f"channels {clean.ch_names} do not match the head model's "
@@ -175,17 +183,14 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
                                resolvable_areas(config.lambda2))
         sensor_table = _sensor_table(clean.ch_names, sens_abs, sens_rel, names)
         fp = fingerprint_for(config, model.sha256)
-        quality = _quality(clean, csd_epochs, op, atlas_objs[0], config)
+        slow = _slow_maximum(src_abs, names, model)
+        quality = _quality(clean, csd_epochs, op, atlas_objs[0], config, slow)
 
         stages.step("z-scores")
-        norms_info = roi_rows = sensor_rows = nm = None
-        if norms is not None:
-            from .norms import apply_norms, match_norms, read_norms
+        norms_info = roi_rows = sensor_rows = None
+        if nm is not None:
+            from .norms import apply_norms, match_norms
 
-            nm = norms if not isinstance(norms, (str, Path)) else read_norms(norms)
-            if age is None:
-                raise InputError("the participant's age is needed with norms (z-scores depend "
-                                 "on age)")
             opts = dict(age=age, fingerprint=fp, condition=condition,
                         allow_extrapolation=allow_extrapolation,
                         allow_condition_mismatch=allow_condition_mismatch)
@@ -236,7 +241,8 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         annotations=tuple(rec.annotations), age=None if age is None else float(age),
         condition=condition)
     # clean.warnings already holds the recording's warnings: keep each warning once
-    warnings = tuple(dict.fromkeys(tuple(rec.warnings) + tuple(clean.warnings)))
+    slow_warning = (slow["warning"],) if slow is not None and slow["warning"] else ()
+    warnings = tuple(dict.fromkeys(tuple(rec.warnings) + tuple(clean.warnings) + slow_warning))
     log.info("analysis done in %.2f s", time.perf_counter() - t0)
     return AnalysisResult(config=config, fingerprint=fp, ch_names=tuple(clean.ch_names),
                           source_abs=src_abs.astype(np.float32),
@@ -272,7 +278,31 @@ def _source_z_maps(norms, fp: Fingerprint, src_abs: np.ndarray, src_rel: np.ndar
             for m, v in (("absolute", src_abs), ("relative", src_rel)) if m in sn.measures}
 
 
-def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig) -> QualitySummary:
+@functools.lru_cache(maxsize=2)
+def _confusable(model) -> dict:
+    """Brodmann areas whose scalp maps can pass for eye activity (cached per head model)."""
+    from .intake.clean import DEFAULT_NASION
+    from .rois import load_atlas
+    from .trust.ocular import confusable_rois, source_ocular_cosine
+
+    cos = source_ocular_cosine(model.gain_fixed, model.ch_pos, DEFAULT_NASION)
+    return confusable_rois(cos, load_atlas("brodmann").rois)
+
+
+def _slow_maximum(src_abs: np.ndarray, band_names, model) -> dict | None:
+    """Delta maximum among Brodmann areas, flagged when its area can pass for eye activity."""
+    if "delta" not in band_names:
+        return None
+    from .rois import load_atlas, roi_reduce
+    from .trust.ocular import slow_maximum_check
+
+    atlas = load_atlas("brodmann")
+    values = roi_reduce(src_abs[list(band_names).index("delta")], atlas)
+    return slow_maximum_check(values, atlas.rois, _confusable(model), band="delta")
+
+
+def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig,
+             slow: dict | None = None) -> QualitySummary:
     """Seconds kept/rejected and split-half / test-retest reliability (sensors and areas)."""
     from .intake import reliability_summary
     from .inverse import roi_power_matrices
@@ -289,5 +319,8 @@ def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig) -
         channel_kept_fraction={k: float(v) for k, v in clean.channel_kept_fraction.items()},
         mains_hz=clean.mains_hz,
         thresholds=dict(clean.thresholds),
+        excluded=tuple(dict(e) for e in clean.excluded),
+        ocular=dict(clean.ocular, **({"slow_maximum": slow} if slow is not None else {})),
+        cleaning_seconds=dict(clean.timings_s),
         reliability={"sensors": reliability_summary(sens, names, threshold=thr),
                      atlas.name: reliability_summary(roi, names, threshold=thr)})

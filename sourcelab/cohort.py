@@ -197,8 +197,9 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
         Passed to :func:`sourcelab.analysis.analyze` for every recording (default settings when
         omitted).
     condition : str | None
-        Condition of the norms.  If the participants file has a ``condition`` column, only
-        matching participants are used; if None, that column must hold one condition.
+        Condition of the norms (``"EC"``/``"EO"`` mean eyes closed/open).  If the participants
+        file has a ``condition`` column, only matching participants are used; if None, that
+        column must hold one condition.  A plain BIDS file (participant_id, age, sex) needs it.
     model, degree, bins, min_n_per_bin, robust, notes
         See :func:`sourcelab.norms.fit_norms`.
     engine : Engine, optional
@@ -229,13 +230,18 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
         if condition is None:
             uniq = sorted(set(conds) - {"", "n/a"})
             if len(uniq) != 1:
-                raise InputError(f"participants have conditions {uniq}; name the condition of "
-                                 "the norms to choose one", path=participants)
+                raise InputError(f"participants have conditions {uniq}; choose one with "
+                                 "--condition", path=participants)
             condition = uniq[0]
         parts = parts[conds.map(normalise_condition) == normalise_condition(condition)]
+        if parts.empty:
+            raise InputError(f"no participant has condition {condition!r} (conditions: "
+                             f"{sorted(set(conds) - {'', 'n/a'})})", path=participants)
     elif condition is None:
-        raise InputError("participants file has no 'condition' column; name the condition of "
-                         "the norms (e.g. 'eyes closed')", path=participants)
+        raise InputError("participants file has no 'condition' column; give the condition of "
+                         "the recordings with --condition (e.g. --condition \"eyes closed\" or "
+                         "EC / EO)", path=participants)
+    condition = normalise_condition(condition)
     failures: list[tuple[str, str]] = []
     tasks, pids = [], []
     for row in parts.itertuples(index=False):

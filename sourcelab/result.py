@@ -84,6 +84,14 @@ class QualitySummary:
         Notched mains frequency (None: none found).
     thresholds : dict
         Effective value of every threshold and filter edge.
+    excluded : tuple of dict
+        Spans left out of the selection (procedures such as hyperventilation or photic
+        stimulation, other states): description, start and stop (s).
+    ocular : dict
+        Ocular correction: method, removed components (and their scalp maps), the check of the
+        slow-wave maximum against areas that can pass for eye activity.
+    cleaning_seconds : dict
+        Time taken by each cleaning stage, s.
     reliability : dict of str -> ReliabilitySummary
         Split-half and test-retest reliability, for ``"sensors"`` and the first atlas' areas.
     """
@@ -94,10 +102,14 @@ class QualitySummary:
     channel_kept_fraction: dict
     mains_hz: float | None
     thresholds: dict
+    excluded: tuple = ()
+    ocular: dict = field(default_factory=dict)
+    cleaning_seconds: dict = field(default_factory=dict)
     reliability: dict = field(default_factory=dict)
 
     def to_dict(self) -> dict:
         d = asdict(self)
+        d["excluded"] = [dict(e) for e in self.excluded]
         d["reliability"] = {k: v.to_dict() for k, v in self.reliability.items()}
         return d
 

@@ -202,7 +202,8 @@ def test_dask_local_cluster_gives_identical_numbers(serial_run, tmp_path):
         assert engine.n_workers == 2
         summary = run_batch(items, tmp_path / "dask", config=AnalysisConfig(), engine=engine,
                             progress=False)
-    assert [o.status for o in summary.outcomes] == ["done", "done", "done", "failed"]
+    assert [o.status for o in summary.outcomes] == ["done", "done", "done", "failed"], [
+        o.message for o in summary.outcomes]
     for kind in ("roi", "sensor"):
         a = pd.read_csv(serial.tables[kind], sep="\t")
         b = pd.read_csv(summary.tables[kind], sep="\t")

@@ -74,7 +74,7 @@ def test_missing_sites(tmp_path, capsys):
 def test_too_short(sim_edf, tmp_path, capsys):
     import mne
 
-    raw = mne.io.read_raw_edf(sim_edf, preload=True, verbose="error").crop(0, 40)
+    raw = mne.io.read_raw_edf(sim_edf, preload=True, verbose="error").crop(0, 16)  # < min_clean_s (20 s)
     p = tmp_path / "short.edf"
     mne.export.export_raw(p, raw, fmt="edf", verbose="error")
     _bad(["analyze", str(p)], tmp_path, capsys, "short.edf")
@@ -122,21 +122,28 @@ def test_norms_build_check_and_use(tmp_path, capsys):
 
     from sourcelab.demo import cohort
 
+    # A standard BIDS participants.tsv (participant_id, age, sex; no condition column), with
+    # the README's command plus --condition (EC = eyes closed).
     root = tmp_path / "cohort"
-    rows = ["participant_id\tage\tcondition"]
+    rows = ["participant_id\tage\tsex"]
     # 22 invented people: like a real lab, a few may lose too much data to rejection (the
     # builder needs 20)
-    for pid, age, raw in cohort(22, duration_s=75.0, seed=5):
+    for k, (pid, age, raw) in enumerate(cohort(22, duration_s=75.0, seed=5)):
         d = root / f"sub-{pid}" / "eeg"
         d.mkdir(parents=True)
         mne.export.export_raw(d / f"sub-{pid}_task-rest_eeg.edf", raw, fmt="edf",
                               verbose="error")
-        rows.append(f"sub-{pid}\t{age:.1f}\teyes closed")
+        rows.append(f"sub-{pid}\t{age:.1f}\t{'FM'[k % 2]}")
     (root / "participants.tsv").write_text("\n".join(rows) + "\n")
     norms = tmp_path / "norms.tsv"
     assert main(["norms", "build", str(root), "--participants", str(root / "participants.tsv"),
-                 "--out", str(norms), "--workers", "2"]) == 0
+                 "--out", str(norms), "--workers", "2", "--condition", "EC"]) == 0
     assert norms.is_file() and (tmp_path / "norms_calibration.tsv").is_file()
+    from sourcelab.norms import read_norms
+
+    built = read_norms(norms)
+    assert built.condition == "eyes closed" and set(built.cohort["sex"]) == {"F", "M"}
+    assert 20 <= sum(built.cohort["sex"].values()) <= 22  # counts of the people used
     assert main(["norms", "check", str(norms)]) == 0
     out = capsys.readouterr().out
     assert "n_listed=22" in out
@@ -149,6 +156,35 @@ def test_norms_build_check_and_use(tmp_path, capsys):
     # minimum n: they carry no z and are flagged, never silently zero
     assert t.z.notna().mean() > 0.95
     assert t[t.z.isna()].no_norm.all()
+
+
+def test_norms_build_plain_bids_file_needs_condition(tmp_path, capsys):
+    # A plain BIDS participants.tsv without --condition: one line, exit 2, naming the CLI flag
+    # (never a Python keyword such as "condition=").
+    root = tmp_path / "cohort"
+    root.mkdir()
+    tsv = root / "participants.tsv"
+    tsv.write_text("participant_id\tage\tsex\nsub-01\t30\tF\n")
+    assert main(["norms", "build", str(root), "--participants", str(tsv),
+                 "--out", str(tmp_path / "n.tsv")]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "--condition" in err and "condition=" not in err
+    assert not (tmp_path / "n.tsv").exists()
+
+
+def test_cli_errors_name_flags_not_python_keywords(sim_edf, tmp_path, capsys):
+    # Norms of another condition: refused, and the message names --allow-condition-mismatch;
+    # an age outside the norms' range names --allow-extrapolation (not "...=True").
+    from sourcelab.demo import demo_norms_path
+
+    base = ["analyze", str(sim_edf), "--norms", str(demo_norms_path()), "--no-figures",
+            "--no-report", "--no-maps"]
+    assert main(base + ["--out", str(tmp_path / "a"), "--age", "30", "--condition", "EO"]) == 2
+    err = capsys.readouterr().err
+    assert "--allow-condition-mismatch" in err and "=True" not in err
+    assert main(base + ["--out", str(tmp_path / "b"), "--age", "90", "--condition", "EC"]) == 2
+    err = capsys.readouterr().err
+    assert "--allow-extrapolation" in err and "=True" not in err
 
 
 def _damaged(sim_edf, tmp_path, how):

@@ -176,7 +176,7 @@ def test_more_than_two_bad_sites_refused(synth):
 
 
 # --- cleaning ----------------------------------------------------------------------------------
-def test_artefacts_rejected_by_reason(synth, rng):
+def _artefacts(synth, rng):
     x = 0.5 * synth  # quieter background (~5 µV RMS) so that each artefact trips one check
     t = np.arange(x.shape[1]) / SF
     i0 = int(10 * SF)  # epoch [10, 12) s: large amplitude at Cz
@@ -191,7 +191,14 @@ def test_artefacts_rejected_by_reason(synth, rng):
     spec[(f < 30) | (f > 40)] = 0
     hf = np.fft.irfft(spec, 1000)
     x[SITES_1020.index("T7"), i2: i2 + 1000] += 12 * hf / hf.std()
-    clean = clean_recording(read_recording(make_raw(x, SITES_1020)), CFG)
+    return x
+
+
+def test_artefacts_rejected_by_reason_fixed(synth, rng):
+    # Fixed thresholds (rejection = "fixed", no ocular correction): each artefact trips its check
+    x = _artefacts(synth, rng)
+    cfg = CFG.replace(rejection="fixed", ocular_correction="off")
+    clean = clean_recording(read_recording(make_raw(x, SITES_1020)), cfg)
     assert clean.rejected_s["amplitude"] == 2.0
     assert clean.rejected_s["blink"] == 2.0
     assert clean.rejected_s["muscle"] == 4.0
@@ -202,6 +209,25 @@ def test_artefacts_rejected_by_reason(synth, rng):
     assert clean.channel_kept_fraction["Fp1"] == pytest.approx(59 / 60)
     assert clean.channel_kept_fraction["O2"] == 1.0
     assert clean.thresholds["reject_uv"] == CFG.reject_uv
+
+
+def test_artefacts_default_settings(synth, rng):
+    # Defaults: learned thresholds within the bounds (peak-to-peak floor 200 µV without an age:
+    # the 400 µV step at Cz is rejected; muscle floor 8 µV: the 12 µV T7 burst is rejected) and
+    # the frontal bump removed by ICA instead of rejecting its epoch.
+    x = _artefacts(synth, rng)
+    clean = clean_recording(read_recording(make_raw(x, SITES_1020)), CFG)
+    assert clean.rejected_s["amplitude"] == 2.0 and clean.rejected_s["muscle"] == 4.0
+    assert clean.rejected_s["blink"] == 0.0
+    assert clean.ocular["method"] == "ica" and len(clean.ocular["removed_components"]) >= 1
+    assert min(clean.ocular["template_r"]) >= 0.8
+    k = list(clean.epoch_onsets_s).index(20.0)
+    fp = clean.epochs[k, :2].mean(0)
+    assert np.ptp(fp) < 40.0  # the 100 µV bump is gone (background ~5 µV RMS + 2.5 µV sine)
+    per_site = clean.thresholds["per_site"]
+    assert per_site["mode"] == "auto" and per_site["ptp_uv"]["Cz"] == 200.0
+    for onset in (10.0, 30.0, 32.0):
+        assert onset not in clean.epoch_onsets_s
 
 
 def test_flat_epoch_rejected(synth):
@@ -216,10 +242,10 @@ def test_bad_annotations_and_selection(synth):
            (60.0, 10.0, "BAD_movement"), (80.0, 4.0, "bad electrode")]
     rec = read_recording(make_raw(synth, SITES_1020, annotations=ann))
     cl = clean_recording(rec, CFG.replace(min_clean_s=1.0), select="Eyes Closed")
-    # 'eyes closed' marker spans to the next annotation onset (the BAD span at 60 s) and
-    # resumes after none: 50-60 s, then 60-70 BAD, 70-80 not selected (next marker is bad
-    # electrode at 80) -> selection = [50, 60) only
-    assert cl.kept_s == 10.0
+    # the 'eyes closed' state marker lasts until the next state marker ('eyes open' at 100 s);
+    # the bad spans inside it are removed: 50-60, 70-80, 84-100 -> 36 s
+    assert cl.kept_s == 36.0
+    assert np.all((cl.epoch_onsets_s < 60) | (cl.epoch_onsets_s >= 70))
     cl = clean_recording(rec, CFG.replace(min_clean_s=1.0), select=[(50.0, 100.0)])
     assert cl.rejected_s["annotated-bad"] == pytest.approx(14.0)
     assert cl.kept_s == 36.0
@@ -366,9 +392,9 @@ def test_partial_nan_marked_bad(synth):
 
 
 def test_too_little_clean_data(tmp_path, rng):
-    x = _noise(rng, 19, int(40 * SF))
+    x = _noise(rng, 19, int(16 * SF))
     p = _edf(tmp_path, x, name="brief.edf")
-    with pytest.raises(InputError, match="only 40 s of clean data, at least 60 s") as e:
+    with pytest.raises(InputError, match="only 16 s of clean data, at least 20 s") as e:
         clean_recording(read_recording(p), AnalysisConfig())
     _one_line(e, p)
 

@@ -171,8 +171,9 @@ class DaskEngine(Engine):
         else:
             if n_workers < 1:
                 raise InputError(f"workers: must be >= 1, got {n_workers}")
-            # loopback only; threads (processes=False) talk in-process and take no host
-            where = {"host": "127.0.0.1"} if processes else {}
+            # loopback only, also for threads: the in-process transport names itself after the
+            # machine's outward IP address, which fails (with a warning) on an offline machine
+            where = {"host": "127.0.0.1", "protocol": "tcp://"}
             self._cluster = distributed.LocalCluster(
                 n_workers=int(n_workers), threads_per_worker=1, processes=processes,
                 # a free loopback port: the default (":8787", also used when None is given)

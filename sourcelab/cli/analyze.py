@@ -41,7 +41,7 @@ def add_parser(sub) -> None:
     p.add_argument("--out", required=True, help="output folder (replaced atomically)")
     p.add_argument("--age", type=float, help="age in years (needed with --norms)")
     p.add_argument("--norms", help="norms TSV (sourcelab norms format)")
-    p.add_argument("--condition", help='recording condition, e.g. "eyes closed"')
+    p.add_argument("--condition", help='recording condition, e.g. "eyes closed" (EC/EO accepted)')
     p.add_argument("--select", action="append", metavar="ANNOTATION|T0-T1",
                    help='analyse only segments with this annotation (e.g. "eyes closed") or '
                         "this time range in seconds (e.g. 120-300); repeatable, union")
@@ -118,9 +118,18 @@ def parse_select(values):
 
 
 def print_summary(result, out) -> None:
-    """The result's summary on standard output, one ``sourcelab:`` line each."""
+    """The result's summary on standard output, one ``sourcelab:`` line each, with what the
+    cleaning removed and the procedure spans it left out."""
+    q = result.quality
+    removed = {k: v for k, v in q.rejected_s.items() if v}
     lines = result.summary().splitlines()
-    for line in lines[:-1]:
+    print(f"sourcelab: {lines[0]}")
+    if removed:
+        print("sourcelab: removed: " + ", ".join(f"{k} {v:.0f} s" for k, v in removed.items()))
+    for e in q.excluded:
+        print(f"sourcelab: excluded {e['kind']} ({e['label']}, {e['start_s']:.0f}-"
+              f"{e['stop_s']:.0f} s): {e['overlap_s']:.0f} s of the selection")
+    for line in lines[1:-1]:
         print(f"sourcelab: {line}")
     print(f"sourcelab: wrote {out}")
     print(lines[-1])

@@ -12,6 +12,10 @@ def add_parser(sub) -> None:
     b.add_argument("cohort", help="folder of recordings or a BIDS dataset")
     b.add_argument("--participants", required=True, help="participants.tsv (BIDS convention)")
     b.add_argument("--out", required=True, help="norms TSV to write")
+    b.add_argument("--condition", metavar="CONDITION",
+                   help='condition of the reference recordings, e.g. "eyes closed" (EC and EO '
+                        "are accepted); needed when participants.tsv has no condition column, "
+                        "else it selects the participants with that condition")
     b.add_argument("--model", choices=("regression", "binned"), default="regression",
                    help="age model (default: %(default)s)")
     b.add_argument("--workers", type=int, default=1,
@@ -38,7 +42,8 @@ def run(args) -> int:
 
     with make_engine(args.engine, workers=args.workers, scheduler=args.scheduler) as engine:
         built = build_norms(args.cohort, args.participants, config=config_from_args(args),
-                            out=args.out, model=args.model, engine=engine)
+                            out=args.out, condition=args.condition, model=args.model,
+                            engine=engine)
     for pid, message in built.failures:
         print(f"sourcelab: skipped {pid}: {message}")
     print(f"sourcelab: wrote {args.out} ({built.norms.cohort.get('n', '?')} participants); "

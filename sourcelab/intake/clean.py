@@ -1,9 +1,10 @@
-"""Cleaning: mains notch, band-pass, segment selection, epoching and epoch rejection."""
+"""Cleaning: mains notch, band-pass, segment selection, ocular correction, epoching, rejection."""
 
 from __future__ import annotations
 
 import logging
-from dataclasses import dataclass
+import time
+from dataclasses import dataclass, field
 
 import mne
 import numpy as np
@@ -31,7 +32,11 @@ BLINK_GRADIENT = 2.0
 #: Annotations whose description starts with this (case-insensitive) mark bad spans (EDF+/MNE
 #: common practice: "BAD_", "bad ...").
 BAD_PREFIX = "bad"
-REASONS = ("annotated-bad", "flat", "amplitude", "blink", "muscle", "fragments")
+#: Epochs beyond this multiple of the peak-to-peak ceiling (movement, electrode pops) are kept
+#: out of the ocular decomposition, which would otherwise spend components on them (Jas et al.
+#: 2017 advise rejecting such epochs before ICA); blinks (100s of µV) stay in.
+GROSS_FACTOR = 2.0
+REASONS = ("annotated-bad", "procedure", "flat", "amplitude", "blink", "muscle", "fragments")
 
 
 @dataclass(frozen=True)
@@ -49,9 +54,10 @@ class CleanData:
         Onset of each kept epoch from the start of the recording, s.
     kept_s : float
     rejected_s : dict
-        Seconds lost per reason: ``annotated-bad``, ``flat``, ``amplitude``, ``blink``, ``muscle``
-        (an epoch failing several checks counts once, in that order) and ``fragments`` (selected
-        pieces shorter than one epoch).
+        Seconds of the selection removed per reason: ``annotated-bad``, ``procedure``
+        (hyperventilation, photic stimulation ... spans), ``flat``, ``amplitude``, ``blink``,
+        ``muscle`` (an epoch failing several checks counts once, in that order) and
+        ``fragments`` (selected pieces shorter than one epoch).
     channel_kept_fraction : dict
         Site -> fraction of candidate epochs in which that site passed its own checks.
     mains_hz : float | None
@@ -59,6 +65,15 @@ class CleanData:
     thresholds : dict
         Effective values of every threshold and filter edge.
     warnings : tuple of str
+    excluded : tuple of dict
+        Procedure spans that overlapped the selection: ``kind``, ``label``, ``start_s``,
+        ``stop_s``, ``overlap_s``.
+    ocular : dict
+        Ocular correction (:meth:`sourcelab.intake.ocular.OcularCorrection.summary`: method,
+        removed components and their scalp maps) and ``residual_delta`` (the delta-topography
+        check).
+    timings_s : dict
+        Wall time of each cleaning stage, s.
     """
 
     epochs: np.ndarray
@@ -71,6 +86,9 @@ class CleanData:
     mains_hz: float | None
     thresholds: dict
     warnings: tuple[str, ...]
+    excluded: tuple[dict, ...] = ()
+    ocular: dict = field(default_factory=dict)
+    timings_s: dict = field(default_factory=dict)
 
 
 def detect_mains(data_uv: np.ndarray, sfreq: float, *, min_ratio: float = 3.0) -> float | None:
@@ -102,29 +120,60 @@ def detect_mains(data_uv: np.ndarray, sfreq: float, *, min_ratio: float = 3.0) -
     return best
 
 
+def _annotations(raw) -> list[tuple[float, float, str]]:
+    """(onset s from the first sample, duration s, description) of every annotation."""
+    ann = raw.annotations
+    onsets = np.asarray(ann.onset, float) - raw.first_time
+    return [(float(o), float(d), str(t)) for o, d, t in zip(onsets, ann.duration,
+                                                            ann.description)]
+
+
 def _spans(raw, keep) -> list[tuple[float, float, str]]:
     """Annotation spans (start, stop, description) in s from the first sample.
 
-    A zero-duration annotation (a state marker such as "eyes closed") spans until the next
-    annotation onset, or the end of the recording.
+    A zero-duration annotation spans until the next annotation onset, or the end of the
+    recording (used for "bad" markers; states end at the next state marker instead, see
+    :func:`sourcelab.intake.states.state_spans`).
     """
-    ann = raw.annotations
     end = raw.n_times / raw.info["sfreq"]
-    onsets = np.asarray(ann.onset, float) - raw.first_time
-    order = np.argsort(onsets, kind="stable")
+    ann = sorted(_annotations(raw), key=lambda a: a[0])
+    onsets = np.array([a[0] for a in ann])
     out = []
-    for k, i in enumerate(order):
-        start, dur, desc = onsets[i], float(ann.duration[i]), str(ann.description[i])
+    for k, (start, dur, desc) in enumerate(ann):
         if not keep(desc):
             continue
         if dur > 0:
             stop = start + dur
         else:
-            later = onsets[order[k + 1:]]
+            later = onsets[k + 1:]
             later = later[later > start]
             stop = float(later.min()) if later.size else end
         out.append((max(start, 0.0), min(stop, end), desc))
     return out
+
+
+def _to_mask(spans, n: int, sf: float) -> np.ndarray:
+    t = np.arange(n) / sf
+    mask = np.zeros(n, bool)
+    for s in spans:
+        a, b = (s.start, s.stop) if hasattr(s, "start") else (s[0], s[1])
+        mask |= (t >= a) & (t < b)
+    return mask
+
+
+def procedure_mask(raw) -> tuple[np.ndarray, list]:
+    """Samples inside hyperventilation, post-HV, photic stimulation and seizure spans.
+
+    Returns
+    -------
+    mask : ndarray of bool, shape (n_times,)
+    spans : list of :class:`sourcelab.intake.states.Span`
+    """
+    from .states import procedure_spans
+
+    sf = raw.info["sfreq"]
+    spans = procedure_spans(_annotations(raw), raw.n_times / sf)
+    return _to_mask(spans, raw.n_times, sf), spans
 
 
 def selection_mask(raw, select, *, where=None) -> np.ndarray:
@@ -134,29 +183,36 @@ def selection_mask(raw, select, *, where=None) -> np.ndarray:
     ----------
     raw : mne.io.BaseRaw
     select : None | str | (float, float) | sequence of str and (float, float)
-        Descriptions match case-insensitively and exactly; ranges are [t0, t1) seconds from the
-        first sample.  The union is taken.  None selects everything.
+        Descriptions match case-insensitively and exactly; "EC"/"EO" and other spellings of
+        eyes closed/open match every marker of that state.  A state marker selects until the
+        next state-changing marker (:func:`sourcelab.intake.states.state_spans`).  Ranges are
+        [t0, t1) seconds from the first sample.  The union is taken.  None selects everything.
+        Procedure spans are removed afterwards, by :func:`clean_recording`.
 
     Returns
     -------
     ndarray of bool, shape (n_times,)
     """
+    from .states import Span, canonical_state, state_spans
+
     n, sf = raw.n_times, raw.info["sfreq"]
     if select is None:
         return np.ones(n, bool)
     items = [select] if isinstance(select, str) or (
         isinstance(select, tuple) and len(select) == 2
         and all(isinstance(v, (int, float)) for v in select)) else list(select)
-    t = np.arange(n) / sf
-    mask = np.zeros(n, bool)
+    ann = _annotations(raw)
+    spans: list = []
     for item in items:
         if isinstance(item, str):
-            want = item.strip().lower()
-            spans = _spans(raw, lambda d: d.strip().lower() == want)
-            if not spans:
+            got = state_spans(ann, item, n / sf)
+            if not got:
                 present = sorted({str(d) for d in raw.annotations.description})[:20]
-                raise InputError(f"select: no annotation {item!r}; descriptions present: "
+                alias = canonical_state(item)
+                hint = f" (read as {alias!r})" if alias and alias != item.strip().lower() else ""
+                raise InputError(f"select: no annotation {item!r}{hint}; descriptions present: "
                                  f"{present}", path=where)
+            spans += got
         else:
             try:
                 t0, t1 = (float(v) for v in item)
@@ -165,12 +221,23 @@ def selection_mask(raw, select, *, where=None) -> np.ndarray:
                                  "(start, stop) pair in seconds", path=where) from None
             if not t1 > t0:
                 raise InputError(f"select: empty time range {item!r}", path=where)
-            spans = [(t0, t1, "range")]
-        for a, b, _ in spans:
-            mask |= (t >= a) & (t < b)
+            spans.append(Span(t0, t1, "range", "range"))
+    mask = _to_mask(spans, n, sf)
     if not mask.any():
         raise InputError(f"select: {select!r} selects no data", path=where)
     return mask
+
+
+def excluded_procedures(chosen: np.ndarray, spans, sf: float) -> list[dict]:
+    """Procedure spans overlapping the chosen samples, with the seconds they removed."""
+    out = []
+    t = np.arange(len(chosen)) / sf
+    for s in spans:
+        inside = chosen & (t >= s.start) & (t < s.stop)
+        if inside.any():
+            out.append({"kind": s.kind, "label": s.label, "start_s": round(s.start, 3),
+                        "stop_s": round(s.stop, 3), "overlap_s": round(inside.sum() / sf, 3)})
+    return out
 
 
 def bad_mask(raw) -> np.ndarray:
@@ -203,25 +270,56 @@ def _windows(x: np.ndarray, starts: np.ndarray, n_per: int) -> np.ndarray:
     return np.ascontiguousarray(x[:, idx].transpose(1, 0, 2))
 
 
+def _delta_edges(config: AnalysisConfig) -> tuple[float, float]:
+    names = list(config.bands.names)
+    return tuple(config.bands.edges[names.index("delta")]) if "delta" in names else (1.0, 4.0)
+
+
+def band_csd(epochs: np.ndarray, sfreq: float, band: tuple[float, float]) -> np.ndarray:
+    """Mean real cross-spectrum of epochs summed over ``band`` (Hann window), µV²."""
+    n = epochs.shape[-1]
+    f = np.fft.rfftfreq(n, 1 / sfreq)
+    sel = (f >= band[0]) & (f < band[1])
+    x = np.fft.rfft(epochs * np.hanning(n), axis=-1)[..., sel]
+    return np.real(np.einsum("eck,edk->cd", x, x.conj())) / max(len(epochs), 1)
+
+
+#: Nasion of MNE's fsaverage_1020 montage in head coordinates, metres (the template positions
+#: every recording gets).
+DEFAULT_NASION = np.array([0.0, 0.1148, 0.0])
+
+
+def _nasion(raw) -> np.ndarray:
+    for d in raw.info["dig"] or []:
+        if d["kind"] == 1 and d["ident"] == 2:  # FIFFV_POINT_CARDINAL, FIFFV_POINT_NASION
+            return np.asarray(d["r"], float)
+    return DEFAULT_NASION
+
+
 def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None,
-                    muscle_uv: float = MUSCLE_UV, muscle_band=MUSCLE_BAND_HZ,
-                    blink_uv: float = BLINK_UV) -> CleanData:
-    """Filter, select, epoch and reject artefacts.
+                    age: float | None = None, muscle_uv: float | None = None,
+                    muscle_band=MUSCLE_BAND_HZ, blink_uv: float | None = None) -> CleanData:
+    """Filter, select, correct eye artefacts, epoch and reject artefacts.
 
     Parameters
     ----------
     recording : Recording
         From :func:`read_recording`.
     config : AnalysisConfig
-        Uses ``l_freq``, ``h_freq``, ``notch``, ``epoch_s``, ``reject_uv``, ``flat_uv``,
-        ``min_clean_s``, ``warn_clean_s``.
+        Uses ``l_freq``, ``h_freq``, ``notch``, ``epoch_s``, ``rejection``, ``reject_z``,
+        ``reject_uv``, ``muscle_uv``, ``blink_uv``, ``flat_uv``, ``ocular_correction``,
+        ``exclude_procedures``, ``min_clean_s``, ``warn_clean_s``.
     select : None | str | (float, float) | sequence of those
         Segments to analyse (see :func:`selection_mask`).
-    muscle_uv : float
-        RMS threshold in ``muscle_band`` (Hz), µV; ``inf`` disables.
-    blink_uv : float
-        Fp1/Fp2 low-frequency (< 3 Hz) deflection threshold, µV; the deflection must also be at
-        least twice the O1/O2 one.  ``inf`` disables.
+    age : float, optional
+        Years; sets the plausibility bounds of learned thresholds
+        (:func:`sourcelab.intake.artefacts.plausibility_bounds`).
+    muscle_uv : float, optional
+        Overrides ``config.muscle_uv`` (``rejection = "fixed"``); ``inf`` disables muscle checks.
+    blink_uv : float, optional
+        Overrides ``config.blink_uv``: Fp1/Fp2 low-frequency (< 3 Hz) deflection threshold, µV;
+        the deflection must also be at least twice the O1/O2 one.  Applied only when ocular
+        correction removed nothing; ``inf`` disables.
 
     Returns
     -------
@@ -231,7 +329,30 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     ------
     InputError
         Nothing selected, or less clean data than ``config.min_clean_s``.
+
+    Notes
+    -----
+    Order: notch and band-pass; procedure spans (hyperventilation, photic stimulation ...) and
+    "bad" annotations removed; ocular correction learned from all usable data of the recording
+    (:func:`sourcelab.intake.ocular.correct_ocular`); rejection thresholds learned from all
+    usable epochs of the recording (:func:`sourcelab.intake.artefacts.learn_thresholds`) or
+    fixed; the selected epochs are checked; the delta-band topography of the kept epochs is
+    compared with the ocular pattern (:func:`sourcelab.intake.ocular.ocular_residual`).
     """
+    from .artefacts import fixed_thresholds, learn_thresholds, plausibility_bounds
+    from .ocular import correct_ocular, ocular_residual, ocular_templates
+
+    clock = time.perf_counter()
+    timings: dict[str, float] = {}
+
+    def lap(name):
+        nonlocal clock
+        now = time.perf_counter()
+        timings[name] = round(now - clock, 4)
+        clock = now
+
+    muscle_uv = config.muscle_uv if muscle_uv is None else float(muscle_uv)
+    blink_uv = config.blink_uv if blink_uv is None else float(blink_uv)
     raw = recording.raw
     where = recording.path or "recording"
     sf = float(raw.info["sfreq"])
@@ -240,34 +361,84 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     data = raw.get_data() * 1e6
     unfiltered = data  # flatness is judged before filtering (filters smear neighbours in)
     mains = config.notch if config.notch is not None else detect_mains(data, sf)
-    if mains is not None and mains < nyq - 1:
-        freqs = np.arange(mains, nyq - 1, mains)
-        data = mne.filter.notch_filter(data, sf, freqs, verbose="error")
     h_freq = config.h_freq if config.h_freq is not None and config.h_freq < nyq * 0.9 else None
     if config.h_freq is not None and h_freq is None:
         notes.append(f"h_freq {config.h_freq} Hz not below 0.9 x Nyquist ({nyq} Hz); no low-pass")
-    data = mne.filter.filter_data(data, sf, config.l_freq, h_freq, verbose="error")
+
+    def band_pass(x):
+        if mains is not None and mains < nyq - 1:
+            x = mne.filter.notch_filter(x, sf, np.arange(mains, nyq - 1, mains), verbose="error")
+        return mne.filter.filter_data(x, sf, config.l_freq, h_freq, verbose="error")
+
+    data = band_pass(data)
+    lap("filter")
 
     n_per = int(round(config.epoch_s * sf))
+    bad = bad_mask(raw)
+    if config.exclude_procedures:
+        proc, proc_spans = procedure_mask(raw)
+    else:
+        proc, proc_spans = np.zeros(raw.n_times, bool), []
     chosen = selection_mask(raw, select, where=where)
-    bad = bad_mask(raw) & chosen
-    allowed = chosen & ~bad
+    excluded = excluded_procedures(chosen & ~bad, proc_spans, sf)
+    usable = ~bad & ~proc
+    allowed = chosen & usable
+    lap("select")
+
+    # --- ocular correction, learned from all usable data -------------------------------------
+    bounds = plausibility_bounds(age)
+    all_starts, _ = epoch_starts(usable, n_per)
+    if len(all_starts):
+        gross = (np.ptp(_windows(data, all_starts, n_per), axis=-1)
+                 > bounds["ptp_uv"][1] * GROSS_FACTOR).any(1)
+        fit_mask = usable.copy()
+        for st in all_starts[gross]:
+            fit_mask[st:st + n_per] = False
+    else:
+        fit_mask = usable
+    eog = None
+    if recording.eog_uv is not None and len(recording.eog_uv):
+        eog = band_pass(np.nan_to_num(np.asarray(recording.eog_uv, float)))
+    ocular = correct_ocular(data, sf, SITES_1020, _positions(raw), _nasion(raw),
+                            fit_mask=fit_mask, eog_uv=eog, method=config.ocular_correction,
+                            highpass_hz=config.l_freq)
+    data = ocular.data
+    notes.extend(ocular.notes)
+    corrected = ocular.method in ("ica", "regression")
+    lap("ocular")
+
+    # --- features: selected epochs, and all usable epochs for learning ------------------------
     starts, leftover = epoch_starts(allowed, n_per)
     ep = _windows(data, starts, n_per)
-
-    # --- per-epoch, per-site checks ----------------------------------------------------------
     ptp = np.ptp(ep, axis=-1)
     flat = np.ptp(_windows(unfiltered, starts, n_per), axis=-1) < config.flat_uv
-    amp = ptp > config.reject_uv
     hi = min(muscle_band[1], (h_freq or nyq * 0.9))
-    if np.isfinite(muscle_uv) and muscle_band[0] < hi:
-        hf = mne.filter.filter_data(data, sf, muscle_band[0], hi, verbose="error")
-        hf_rms = np.sqrt(np.mean(_windows(hf, starts, n_per) ** 2, axis=-1))
+    muscle_on = np.isfinite(muscle_uv) and muscle_band[0] < hi
+    hf = mne.filter.filter_data(data, sf, muscle_band[0], hi, verbose="error") if muscle_on \
+        else None
+
+    def hf_rms(st):
+        if hf is None:
+            return np.zeros((len(st), len(SITES_1020)))
+        return np.sqrt(np.mean(_windows(hf, st, n_per) ** 2, axis=-1))
+
+    hf_sel = hf_rms(starts)
+    if config.rejection == "auto":
+        ptp_all = np.ptp(_windows(data, all_starts, n_per), axis=-1)
+        thr = learn_thresholds(ptp_all, hf_rms(all_starts), age=age, z=config.reject_z)
+        if thr.n_epochs < 20:
+            notes.append(f"only {thr.n_epochs} usable epochs to learn rejection thresholds "
+                         "from; the plausibility floors are used")
     else:
-        hf_rms = np.zeros_like(ptp)
-    muscle = hf_rms > muscle_uv
+        thr = fixed_thresholds(len(SITES_1020), reject_uv=config.reject_uv,
+                               muscle_uv=muscle_uv)
+    lap("features and thresholds")
+
+    # --- per-epoch, per-site checks ----------------------------------------------------------
+    amp = ptp > thr.ptp_uv[None, :]
+    muscle = (hf_sel > thr.muscle_uv[None, :]) if muscle_on else np.zeros_like(amp)
     fp = [SITES_1020.index("Fp1"), SITES_1020.index("Fp2")]
-    if np.isfinite(blink_uv):
+    if np.isfinite(blink_uv) and not corrected and len(starts):
         occ = [SITES_1020.index("O1"), SITES_1020.index("O2")]
         pair = np.stack([data[fp].mean(0), data[occ].mean(0)])
         lf = mne.filter.filter_data(pair, sf, None, BLINK_LOWPASS_HZ, verbose="error")
@@ -283,7 +454,8 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     reasons = {"flat": flat.any(1), "amplitude": amp.any(1), "blink": blink,
                "muscle": muscle.any(1)}
     taken = np.zeros(len(starts), bool)
-    rejected = {"annotated-bad": float(bad.sum() / sf)}
+    rejected = {"annotated-bad": float((bad & chosen).sum() / sf),
+                "procedure": float((proc & chosen & ~bad).sum() / sf)}
     for name in ("flat", "amplitude", "blink", "muscle"):
         hit = reasons[name] & ~taken
         rejected[name] = float(hit.sum() * epoch_s)
@@ -296,25 +468,48 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     kept_fraction = {s: float(1 - site_fail[:, i].sum() / n_cand) if len(starts) else 0.0
                      for i, s in enumerate(SITES_1020)}
     kept_s = float(keep.sum() * epoch_s)
-    thresholds = {"reject_uv": config.reject_uv, "flat_uv": config.flat_uv,
+    thresholds = {"rejection": config.rejection, "reject_z": config.reject_z,
+                  "reject_uv": config.reject_uv, "flat_uv": config.flat_uv,
                   "muscle_uv": float(muscle_uv), "muscle_band_hz": (muscle_band[0], hi),
-                  "blink_uv": float(blink_uv), "blink_lowpass_hz": BLINK_LOWPASS_HZ,
+                  "blink_uv": float(blink_uv) if not corrected else None,
+                  "blink_lowpass_hz": BLINK_LOWPASS_HZ,
                   "blink_front_back_ratio": BLINK_GRADIENT,
                   "l_freq": config.l_freq, "h_freq": h_freq, "notch": mains,
                   "epoch_s": epoch_s, "min_clean_s": config.min_clean_s,
-                  "warn_clean_s": config.warn_clean_s}
+                  "warn_clean_s": config.warn_clean_s, "age": age,
+                  "per_site": thr.summary(SITES_1020)}
     summary = ", ".join(f"{k} {v:.0f} s" for k, v in rejected.items() if v)
     if kept_s < config.min_clean_s:
         raise InputError(f"only {kept_s:.0f} s of clean data, at least {config.min_clean_s:g} s "
-                         f"needed (rejected: {summary or 'nothing'})", path=where)
+                         f"needed (removed: {summary or 'nothing'})", path=where)
     if kept_s < config.warn_clean_s:
         notes.append(f"only {kept_s:.0f} s of clean data (below {config.warn_clean_s:g} s); "
                      "spectra will be noisier")
+
+    # --- does the slow-wave topography still look ocular? ------------------------------------
+    templates = ocular_templates(_positions(raw), _nasion(raw))
+    residual = ocular_residual(band_csd(ep[keep], sf, _delta_edges(config)), templates)
+    if residual["ocular"]:
+        how = ("after ocular correction" if corrected else
+               "without ocular correction" if ocular.method == "off" else
+               "although no ocular component was found")
+        notes.append(f"the dominant delta-band scalp pattern matches an eye-movement pattern "
+                     f"(r = {residual['r']:.2f}, threshold {residual['threshold']:g}) {how}: "
+                     "frontal slow activity may be eye artefact rather than a cortical "
+                     "generator")
+    ocular_info = ocular.summary()
+    ocular_info["residual_delta"] = residual
+    lap("ocular check")
     for msg in notes:
         logger.warning("%s: %s", where, msg)
-    logger.info("%s: kept %.0f s in %d epochs; rejected %s", where, kept_s, keep.sum(), summary)
+    logger.info("%s: kept %.0f s in %d epochs; removed %s", where, kept_s, keep.sum(), summary)
     return CleanData(
         epochs=ep[keep].astype(np.float64), sfreq=sf, ch_names=tuple(SITES_1020),
         epoch_onsets_s=starts[keep] / sf, kept_s=kept_s, rejected_s=rejected,
         channel_kept_fraction=kept_fraction, mains_hz=mains, thresholds=thresholds,
-        warnings=tuple(recording.warnings) + tuple(notes))
+        warnings=tuple(recording.warnings) + tuple(notes), excluded=tuple(excluded),
+        ocular=ocular_info, timings_s=timings)
+
+
+def _positions(raw) -> np.ndarray:
+    return np.array([ch["loc"][:3] for ch in raw.info["chs"]], float)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import logging
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -59,6 +60,11 @@ class Recording:
     annotations : tuple of (str, int, float)
         Summary: (description, count, total duration in s), sorted by first onset.
     warnings : tuple of str
+    eog_uv : ndarray, shape (n_eog, n_times) | None
+        Real EOG channels of the file (type ``eog`` or named EOG/VEOG/HEOG/LOC/ROC), µV, for
+        ocular regression; None when there are none.
+    eog_names : tuple of str
+        Their original labels.
     """
 
     raw: mne.io.BaseRaw
@@ -71,6 +77,23 @@ class Recording:
     interpolated: tuple[str, ...]
     annotations: tuple[tuple[str, int, float], ...]
     warnings: tuple[str, ...]
+    eog_uv: np.ndarray | None = None
+    eog_names: tuple[str, ...] = ()
+
+
+#: Labels of real EOG channels (after removing a leading "EEG "/"POL " and a reference suffix).
+EOG_LABEL = re.compile(r"^(eog.*|.*[^a-z]eog.*|[vh]eog.*|[lr]oc|eog[lrvh]?)$", re.IGNORECASE)
+
+
+def eog_channels(raw) -> list[str]:
+    """Channels of ``raw`` that are real EOG recordings (by type or by label)."""
+    out = []
+    for name, kind in zip(raw.ch_names, raw.get_channel_types()):
+        label = re.sub(r"^(eeg|pol)\s+", "", name.strip(), flags=re.IGNORECASE)
+        label = re.sub(r"[-_ ]?(ref|avg|le|ar)$", "", label, flags=re.IGNORECASE)
+        if kind == "eog" or EOG_LABEL.match(label):
+            out.append(name)
+    return out
 
 
 def robust_amplitude(data_uv: np.ndarray, sfreq: float) -> np.ndarray:
@@ -218,6 +241,8 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
     old_positions = _positions(raw, match.channel_map) if montage_check else None
     marked_bad = tuple(raw.info["bads"])
     extra = len(raw.ch_names) - len(originals)
+    eog_names = tuple(c for c in eog_channels(raw) if c not in originals)
+    eog_uv = raw.get_data(picks=list(eog_names)) * 1e6 if eog_names else None
     raw.pick(originals)
     raw.rename_channels({o: s for o, s in zip(originals, SITES_1020)})
     raw.set_channel_types({s: "eeg" for s in SITES_1020}, on_unit_change="ignore")
@@ -278,7 +303,8 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
     return Recording(
         raw=raw, path=path, sha256=sha, channel_map=dict(match.channel_map), sfreq=sfreq,
         duration_s=raw.n_times / sfreq, original_reference=reference, interpolated=interpolated,
-        annotations=_annotation_summary(raw), warnings=tuple(notes))
+        annotations=_annotation_summary(raw), warnings=tuple(notes), eog_uv=eog_uv,
+        eog_names=eog_names)
 
 
 def _annotate_runs(raw, mask: np.ndarray, description: str) -> None:

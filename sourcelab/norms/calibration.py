@@ -33,7 +33,7 @@ def _moments(r: np.ndarray) -> tuple[float, float, float]:
 
 
 def calibration_report(fit) -> pd.DataFrame:
-    """Per-row calibration of norms built by :func:`~sourcelab.norms.build.fit_norms`.
+    """Per-row calibration of norms built by :func:`~sourcelab.norms.fit.fit_norms`.
 
     Parameters
     ----------

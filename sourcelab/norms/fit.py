@@ -194,7 +194,8 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
         per.append({index.setdefault(k, len(index)): v for k, v in vals.items()})
     n, q = len(ids), len(index)
     if n < min_n_per_bin:
-        raise InputError(f"need at least min_n_per_bin={min_n_per_bin} participants, got {n}")
+        raise InputError(f"need at least {min_n_per_bin} analysed participants (the minimum per "
+                         f"norms row), got {n}")
     age = np.asarray(ages)
     Y = np.full((n, q), np.nan)
     for i, d in enumerate(per):

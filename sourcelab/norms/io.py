@@ -67,9 +67,14 @@ NORMS_MAX_BYTES = 256 * 1024 * 1024
 _HEADER_MAX_DEPTH = 16
 
 
+#: Common abbreviations of recording conditions (common practice in clinical EEG).
+CONDITION_ALIASES = {"ec": "eyes closed", "eo": "eyes open"}
+
+
 def normalise_condition(condition: str) -> str:
-    """Canonical form for comparing conditions (``"Eyes-closed"`` -> ``"eyes closed"``)."""
-    return " ".join(re.sub(r"[-_]+", " ", str(condition)).lower().split())
+    """Canonical form for comparing conditions (``"Eyes-closed"``, ``"EC"``: ``"eyes closed"``)."""
+    text = " ".join(re.sub(r"[-_]+", " ", str(condition)).lower().split())
+    return CONDITION_ALIASES.get(text, text)
 
 
 @dataclass(frozen=True, eq=False)

@@ -234,7 +234,8 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
         if not allow_condition_mismatch:
             raise InputError(f"condition {condition!r} differs from the norms' condition "
                              f"{norms.condition!r}; allow the mismatch explicitly to z-score "
-                             "anyway (rows are flagged)", path=where)
+                             "anyway (--allow-condition-mismatch; allow_condition_mismatch "
+                             "in Python; rows are flagged)", path=where)
         mismatch = True
         log.warning("z-scoring %r against %r norms (flagged)", condition, norms.condition)
 
@@ -277,7 +278,8 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
         hi = max(r[1] for r in outside)
         raise InputError(f"age {age:g} y is outside the norms' age ranges ({lo:g}-{hi:g} y) for "
                          f"{len(outside)} rows; allow extrapolation explicitly to z-score anyway "
-                         "(rows are flagged)", path=where)
+                         "(--allow-extrapolation; allow_extrapolation in Python; rows are "
+                         "flagged)", path=where)
     if extrap.any():
         log.warning("age %g y outside the norms' range for %d rows: extrapolated (flagged)",
                     age, int(extrap.sum()))

@@ -158,3 +158,58 @@ def simulate_raw(model: HeadModel, *, duration_s: float = 300.0, sfreq: float = 
                                 generators=generators, rng=rng, **kwargs)
     raw = mne.io.RawArray(data, make_info(sfreq), verbose="error")
     return raw
+
+
+def ocular_artefacts(ch_pos: np.ndarray, nasion: np.ndarray, *, n_times: int, sfreq: float,
+                     rng: np.random.Generator, blink_rate_hz: float = 0.25,
+                     blink_uv: float = 150.0, blink_s: float = 0.3,
+                     saccade_rate_hz: float = 0.3, saccade_uv: float = 60.0) -> np.ndarray:
+    """Invented blinks and horizontal eye movements at the electrodes, volts (average reference).
+
+    Each eye is a current dipole in front of the frontal pole
+    (:func:`sourcelab.intake.ocular.ocular_templates`): blinks change it upwards, horizontal
+    movements sideways.
+
+    Parameters
+    ----------
+    ch_pos : ndarray, shape (n_ch, 3)
+        Electrode positions, metres, head coordinates.
+    nasion : ndarray, shape (3,)
+    n_times : int
+    sfreq : float
+    rng : numpy.random.Generator
+    blink_rate_hz : float
+        Mean blink rate (Poisson); resting adults blink ~15-20 times a minute (from memory).
+    blink_uv : float
+        Blink peak at the largest site (Fp1/Fp2), µV (50-200 µV: Croft & Barry 2000 — from
+        memory).
+    blink_s : float
+        Blink duration (raised cosine), s.
+    saccade_rate_hz : float
+        Rate of horizontal gaze changes (Poisson); gaze jumps to a new position and holds.
+    saccade_uv : float
+        Largest gaze deflection at the largest site (F7/F8), µV.
+
+    Returns
+    -------
+    ndarray, shape (n_ch, n_times)
+    """
+    from ..intake.ocular import ocular_templates
+
+    tpl = ocular_templates(ch_pos, nasion)
+    tpl = tpl / np.abs(tpl).max(axis=0)  # 1 at the largest site
+    dur = n_times / sfreq
+    vert = np.zeros(n_times)
+    width = max(int(round(blink_s * sfreq)), 2)
+    pulse = 0.5 * (1 - np.cos(2 * np.pi * np.arange(width) / (width - 1)))
+    for onset in np.sort(rng.uniform(0, dur, rng.poisson(blink_rate_hz * dur))):
+        i = int(onset * sfreq)
+        seg = vert[i:i + width]
+        seg += blink_uv * pulse[:len(seg)] * rng.uniform(0.7, 1.3)
+    horiz = np.zeros(n_times)
+    changes = np.sort(rng.uniform(0, dur, rng.poisson(saccade_rate_hz * dur)))
+    edges = np.r_[0, (changes * sfreq).astype(int), n_times]
+    for a, b in zip(edges[:-1], edges[1:]):
+        horiz[a:b] = saccade_uv * rng.uniform(-1, 1)
+    horiz -= horiz.mean()
+    return 1e-6 * (np.outer(tpl[:, 0], vert) + np.outer(tpl[:, 1], horiz))

@@ -555,8 +555,8 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
         sel = sel[sel["hemisphere"] == hemisphere]
     if sel.empty:
         have = sorted(set(t.loc[t["atlas"] == atlas, "roi"]))[:40]
-        raise InputError(f"no row for atlas={atlas} roi={roi} hemisphere={hemisphere} "
-                         f"band={band} measure={measure}; ROIs of this atlas: {have}",
+        raise InputError(f"no row for --atlas {atlas} --roi {roi} --hemisphere {hemisphere} "
+                         f"--band {band} --measure {measure}; ROIs of this atlas: {have}",
                          path=res.path)
     if len(sel) > 1:
         raise InputError(f"ROI {roi} exists in hemispheres {sorted(sel['hemisphere'])}; pass "
