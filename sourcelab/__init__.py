@@ -19,7 +19,7 @@ __version__ = "0.2.0"
 
 #: Bumped whenever a change alters the numbers the pipeline produces.  Norms and results carry it
 #: in their fingerprint, so numbers from different pipelines are never compared.
-PIPELINE_VERSION = 2  # 2: cortex-only sources; relative power over a fixed 1-45 Hz total
+PIPELINE_VERSION = 2  # 2 (0.2.0): cortex-only sources; relative power over 1-45 Hz; learned rejection, ocular correction
 
 #: name -> (module, attribute) of the front door; imported on first use so that
 #: ``import sourcelab`` stays fast.
