@@ -65,7 +65,23 @@ def epochs_of(data: np.ndarray, n_per: int) -> np.ndarray:
 
 def cohort_values_spectral(model, op, atlas, n_people: int, rng, *, n_epochs: int = 60,
                            freqs=np.arange(8.0, 12.0, 0.5)) -> list[dict]:
-    """Pair and edge values of an invented cohort, simulated as Fourier coefficients (fast).
+    """Pair and edge values of an invented cohort (see :func:`cohort_spectral`), as
+    ``{(kind, measure): array (n_bands, n_items)}`` per person."""
+    out = []
+    for sc, ec in cohort_spectral(model, op, atlas, n_people, rng, n_epochs=n_epochs,
+                                  freqs=freqs):
+        v = {("pair", k): y for k, y in sc.values.items()}
+        v[("pair", "asymmetry")] = np.concatenate([sc.asymmetry["homologous"],
+                                                   sc.asymmetry["anterior_posterior"]], axis=1)
+        v.update({("edge", k): y for k, y in ec.values.items()})
+        out.append(v)
+    return out
+
+
+def cohort_spectral(model, op, atlas, n_people: int, rng, *, n_epochs: int = 60,
+                    freqs=np.arange(8.0, 12.0, 0.5)):
+    """Yield ``(SensorCoupling, EdgeCoupling)`` of each person of an invented cohort,
+    simulated as Fourier coefficients (fast).
 
     Person-level variation is Gaussian on the scales where it is commonly modelled: log
     amplitude of two coupled alpha patches and of the background (log power is close to normal
@@ -98,7 +114,6 @@ def cohort_values_spectral(model, op, atlas, n_people: int, rng, *, n_epochs: in
     def cn(*s):
         return (rng.standard_normal(s) + 1j * rng.standard_normal(s)) / np.sqrt(2.0)
 
-    out = []
     for _ in range(n_people):
         amp = np.exp(rng.normal(np.log(2.0), 0.3, 2))
         lag = rng.normal(0.008, 0.002)
@@ -114,9 +129,4 @@ def cohort_values_spectral(model, op, atlas, n_people: int, rng, *, n_epochs: in
         sc = sensor_coupling(x, f, bands, model.ch_names, model.ch_pos, null_method=None)
         ec = network_coupling(x, x, f, bands, op, [atlas], null_method=None,
                               normals=model.src_nn)[0]
-        v = {("pair", k): y for k, y in sc.values.items()}
-        v[("pair", "asymmetry")] = np.concatenate([sc.asymmetry["homologous"],
-                                                   sc.asymmetry["anterior_posterior"]], axis=1)
-        v.update({("edge", k): y for k, y in ec.values.items()})
-        out.append(v)
-    return out
+        yield sc, ec
