@@ -25,8 +25,8 @@ log = logging.getLogger("sourcelab")
 #: Atlases reported by default.
 DEFAULT_ATLASES = ("brodmann", "lobes", "networks", "yeo7")
 #: Stages shown by the progress bar.
-STAGES = ("reading", "cleaning", "cross-spectra", "sources", "areas", "z-scores", "intervals",
-          "candidates")
+STAGES = ("reading", "cleaning", "cross-spectra", "sources", "areas", "coupling", "z-scores",
+          "intervals", "candidates")
 
 
 def fingerprint_for(config: AnalysisConfig, headmodel_sha256: str | None = None) -> Fingerprint:
@@ -85,6 +85,98 @@ def _sensor_table(ch_names, sens_abs: np.ndarray, sens_rel: np.ndarray, band_nam
             for c, ch in enumerate(ch_names):
                 rows.append((ch, band, measure, float(vals[b, c]), unit, np.nan))
     return pd.DataFrame(rows, columns=list(SENSOR_COLUMNS))
+
+
+def _coupling(clean, model, op, config: AnalysisConfig):
+    """Pair and network/lobe coupling of the clean epochs (see ``sourcelab/coupling/TABLES.md``).
+
+    Cheap path: the epochs' Fourier coefficients at the analysed bins (single precision, Hann
+    taper for the spectral measures, none for the envelopes), no per-bin 19 x 19 matrices; the
+    volume-conduction covariance comes from the template leadfield (fixed orientation: the
+    surface-normal gain; free: all three components).
+
+    Returns
+    -------
+    pair_table, coupling_table : DataFrame
+    """
+    from .coupling import coupling_table, independent_source_covariance, network_coupling, \
+        pair_table, sensor_coupling
+    from .rois import load_atlas
+    from .spectra import epoch_fourier
+
+    bands = config.bands
+    spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, bands, dtype=np.complex64)
+    plain, _ = epoch_fourier(clean.epochs, clean.sfreq, bands, taper=False, dtype=np.complex64)
+    gain = model.gain_fixed if op.n_comp == 1 else model.gain
+    c0 = independent_source_covariance(gain)
+    boot = dict(n_boot=config.coupling_n_boot, seed=config.boot_seed, ci=config.ci)
+    sc = sensor_coupling(spec, freqs, bands, model.ch_names, model.ch_pos, null_cov=c0, **boot)
+    atlases = [load_atlas(a) for a in config.coupling_atlases]
+    ecs = network_coupling(spec, plain, freqs, bands, op, atlases, null_cov=c0,
+                           normals=model.src_nn, **boot)
+    pt, ct = pair_table(sc), coupling_table(ecs)
+    meta = {"method": "percentile", "unit": "clean epoch", "n_boot": int(config.coupling_n_boot),
+            "seed": int(config.boot_seed), "ci": float(config.ci),
+            "n_epochs": int(sc.n_epochs)}
+    for t in (pt, ct):
+        t.attrs["bootstrap"] = meta if config.coupling_n_boot else None
+    return pt, ct
+
+
+def _in_domain(values: np.ndarray, transform) -> np.ndarray:
+    """Which values a transform accepts (NaN counts as accepted: it gives a NaN z)."""
+    try:
+        transform.forward(values)
+        return np.ones(values.shape, dtype=bool)
+    except InputError:
+        def one(v):
+            try:
+                transform.forward(np.array([v]))
+                return True
+            except InputError:
+                return False
+        return np.array([one(v) for v in values], dtype=bool)
+
+
+def _coupling_z(table, nm, kind: str, opts: dict):
+    """z-score a pair or coupling table against norms (with ``z_lo``, ``z_hi``, ``robust`` from
+    the bootstrap interval); None when the norms hold no rows of this kind."""
+    import pandas as pd
+
+    from .norms import apply_norms, get_transform, match_norms
+    from .trust import robust_flags
+
+    if not (nm.table["kind"] == kind).any():
+        return None
+    rows = match_norms(table, nm, kind=kind, **opts)
+    # a value on the edge of its measure's range (coherence 1 between bridged electrodes, a
+    # phase spread of 0) has no transformed value: its z is left empty instead of failing
+    value = table["value"].to_numpy(dtype=float)
+    ok = np.ones(len(table), dtype=bool)
+    for name in set(rows.transform.tolist()) - {""}:
+        sel = np.flatnonzero(rows.transform == name)
+        ok[sel] = _in_domain(value[sel], get_transform(name))
+    if not ok.all():
+        log.warning("%d %s values lie on the edge of their measure's range: z left empty",
+                    int((~ok).sum()), kind)
+    out = apply_norms(table.assign(value=np.where(ok, value, np.nan)), nm, kind=kind,
+                      rows=rows, **opts)
+    out["value"] = table["value"].to_numpy()
+    z = out["z"].to_numpy(dtype=float)
+    value = out["value"].to_numpy(dtype=float)
+    lo, hi = (rows.z(out[c].to_numpy(dtype=float)) for c in ("value_lo", "value_hi"))
+    # circular rows (phase): the interval's ends as angular distances from the estimate, so an
+    # interval that crosses the wrap point keeps its width
+    for name in set(rows.transform.tolist()) - {""}:
+        tr = get_transform(name)
+        if tr.period is not None:
+            sel = rows.transform == name
+            for arr, col in ((lo, "value_lo"), (hi, "value_hi")):
+                arr[sel] = z[sel] + (out[col].to_numpy(dtype=float)[sel] - value[sel]) \
+                    / rows.sd[sel]
+    out["z_lo"], out["z_hi"] = np.fmin(lo, hi), np.fmax(lo, hi)
+    out["robust"] = pd.array(robust_flags(z, out["z_lo"], out["z_hi"]))
+    return out
 
 
 def analyze(recording, *, config: AnalysisConfig | None = None, age: float | None = None,
@@ -168,9 +260,14 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         sensor_table = _sensor_table(clean.ch_names, sens_abs, sens_rel, names)
         fp = fingerprint_for(config, model.sha256)
         quality = _quality(clean, csd_epochs, op, atlas_objs[0], config)
+        stages.step("coupling")
+        pair_table = coupling_table = None
+        if config.coupling:
+            pair_table, coupling_table = _coupling(clean, model, op, config)
 
         stages.step("z-scores")
         norms_info = roi_rows = sensor_rows = nm = None
+        notes: list[str] = []
         if norms is not None:
             from .norms import apply_norms, match_norms, read_norms
 
@@ -185,6 +282,19 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
             sensor_rows = match_norms(sensor_table, nm, kind="sensor", **opts)
             roi_table = apply_norms(roi_table, nm, kind="roi", rows=roi_rows, **opts)
             sensor_table = apply_norms(sensor_table, nm, kind="sensor", rows=sensor_rows, **opts)
+            for kind, what in (("pair", "electrode-pair"), ("edge", "network coupling")):
+                table = pair_table if kind == "pair" else coupling_table
+                if table is None:
+                    continue
+                scored = _coupling_z(table, nm, kind, opts)
+                if scored is None:
+                    notes.append(f"the norms hold no {kind} rows: {what} z-scores are left "
+                                 "empty (norms built by this sourcelab version include them)")
+                    log.warning("%s", notes[-1])
+                elif kind == "pair":
+                    pair_table = scored
+                else:
+                    coupling_table = scored
             norms_info = NormsInfo(path=None if nm.path is None else str(nm.path),
                                    sha256=nm.sha256, condition=nm.condition,
                                    cohort=dict(nm.cohort), n_rows=int(len(nm.table)),
@@ -217,7 +327,7 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         annotations=tuple(rec.annotations), age=None if age is None else float(age),
         condition=condition)
     # clean.warnings already holds the recording's warnings: keep each warning once
-    warnings = tuple(dict.fromkeys(tuple(rec.warnings) + tuple(clean.warnings)))
+    warnings = tuple(dict.fromkeys(tuple(rec.warnings) + tuple(clean.warnings) + tuple(notes)))
     log.info("analysis done in %.2f s", time.perf_counter() - t0)
     return AnalysisResult(config=config, fingerprint=fp, ch_names=tuple(clean.ch_names),
                           source_abs=src_abs.astype(np.float32),
@@ -225,7 +335,8 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
                           sensor_abs=sens_abs, sensor_rel=sens_rel, roi_table=roi_table,
                           sensor_table=sensor_table, quality=quality, recording=recording_info,
                           norms=norms_info, warnings=warnings, atlases=atlas_objs, leakage=leak,
-                          candidates=candidates, leakage_hints=hints, epoch_csd=csd_epochs)
+                          candidates=candidates, leakage_hints=hints, epoch_csd=csd_epochs,
+                          pair_table=pair_table, coupling_table=coupling_table)
 
 
 def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig) -> QualitySummary:

@@ -19,6 +19,7 @@ from .batch.inputs import read_participants
 from .constants import RECORDING_SUFFIXES, recording_suffix
 from .errors import InputError
 from .norms import Norms, NormsFit, entry_values, fit_norms, normalise_condition, write_norms
+from .norms.fit import slim_table
 from .provenance import Fingerprint, atomic_write_text, safe_name
 
 log = logging.getLogger("sourcelab")
@@ -92,8 +93,11 @@ def _cohort_tables(task):
     from .analysis import analyze
 
     path, config, age = task
-    res = analyze(path, config=config, age=age)
-    return res.roi_table, res.sensor_table, res.fingerprint
+    # norms need the values only: no bootstrap intervals (they do not change any value)
+    res = analyze(path, config=config.replace(n_boot=0, coupling_n_boot=0), age=age)
+    return (slim_table(res.roi_table, "roi"), slim_table(res.sensor_table, "sensor"),
+            res.fingerprint, slim_table(getattr(res, "pair_table", None), "pair"),
+            slim_table(getattr(res, "coupling_table", None), "edge"))
 
 
 def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | Path,
@@ -199,7 +203,7 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
     fp0: Fingerprint | None = None
     for i in sorted(done):
         pid, age = pids[i]
-        roi_table, sensor_table, fp = done[i]
+        roi_table, sensor_table, fp, pair_table, coupling_table = done[i]
         if fp0 is None:
             fp0 = fp
         elif fp0.differences(fp):
@@ -209,12 +213,12 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
             log.warning("norms: %s skipped: %s", pid, msg)
             continue
         try:
-            entry_values(pid, age, roi_table, sensor_table)
+            entry_values(pid, age, roi_table, sensor_table, pair_table, coupling_table)
         except InputError as exc:
             failures.append((pid, str(exc)))
             log.warning("norms: %s skipped: %s", pid, exc)
             continue
-        entries.append((pid, age, roi_table, sensor_table))
+        entries.append((pid, age, roi_table, sensor_table, pair_table, coupling_table))
     if fp0 is None:
         raise InputError(f"no participant could be analysed ({len(failures)} failures)",
                          path=cohort_dir)

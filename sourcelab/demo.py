@@ -125,8 +125,10 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 120.0)
     from .config import AnalysisConfig
     from .errors import InputError
     from .norms import norms_from_tables, write_norms
+    from .norms.fit import slim_table
 
-    config = AnalysisConfig(n_boot=0)  # intervals do not change the values the norms need
+    # intervals do not change the values the norms need
+    config = AnalysisConfig(n_boot=0, coupling_n_boot=0)
     entries = []
     for pid, age, raw in cohort(n, duration_s=duration_s):
         try:
@@ -134,7 +136,8 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 120.0)
         except InputError as exc:  # e.g. too little clean data: left out, as a real lab would
             log.warning("demo cohort: %s left out: %s", pid, exc)
             continue
-        entries.append((pid, age, res.roi_table, res.sensor_table))
+        entries.append((pid, age, res.roi_table, res.sensor_table,
+                        slim_table(res.pair_table, "pair"), slim_table(res.coupling_table, "edge")))
         log.info("demo cohort: %s (age %.1f) done", pid, age)
     norms = norms_from_tables(
         entries, fingerprint=fingerprint_for(config), condition=DEMO_CONDITION,

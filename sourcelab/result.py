@@ -164,6 +164,13 @@ class AnalysisResult:
         For each deviating area, the areas leaking most into it.
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch) | None
         Per-epoch band cross-spectra (µV², as recorded), kept for resampling and reliability.
+    pair_table : DataFrame | None
+        Electrode-pair coupling and asymmetry, one row per pair x band x measure (columns
+        :data:`sourcelab.coupling.PAIR_COLUMNS`, then with norms ``p`` ... ``robust``); None when
+        coupling is off (``AnalysisConfig.coupling``).
+    coupling_table : DataFrame | None
+        Network and lobe coupling, one row per atlas x edge x band x measure (columns
+        :data:`sourcelab.coupling.EDGE_COLUMNS`, then with norms ``p`` ... ``robust``).
     """
 
     config: AnalysisConfig
@@ -184,6 +191,8 @@ class AnalysisResult:
     candidates: object | None = None
     leakage_hints: object | None = None
     epoch_csd: np.ndarray | None = None
+    pair_table: object | None = None
+    coupling_table: object | None = None
 
     # ------------------------------------------------------------------ access
     @property

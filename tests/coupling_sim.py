@@ -130,3 +130,38 @@ def cohort_spectral(model, op, atlas, n_people: int, rng, *, n_epochs: int = 60,
         ec = network_coupling(x, x, f, bands, op, [atlas], null_method=None,
                               normals=model.src_nn)[0]
         yield sc, ec
+
+
+def norms_shifted_from(result, *, shift_sd: float, coupling: bool = True, sd: float = 0.2):
+    """Invented norms whose mean sits ``shift_sd`` SDs *below* every transformed value of this
+    very analysis result (so every z must be +shift_sd), for its ROI, sensor and (optionally)
+    pair and coupling tables; SD ``sd`` on the transformed scale, ages 20-60, one age bin."""
+    import pandas as pd
+
+    from sourcelab.errors import InputError
+    from sourcelab.norms import NA, Norms, get_transform
+    from sourcelab.norms.fit import transform_for
+
+    rows = []
+    tables = [("roi", result.roi_table, "atlas", "roi", "hemisphere"),
+              ("sensor", result.sensor_table, None, "channel", None)]
+    if coupling:
+        tables += [("pair", result.pair_table, None, "pair", None),
+                   ("edge", result.coupling_table, "atlas", "edge", None)]
+    for kind, t, ac, nc, hc in tables:
+        for r in t.itertuples(index=False):
+            r = r._asdict()
+            tr = transform_for(kind, r["measure"])
+            try:
+                tv = float(get_transform(tr).forward(np.array([r["value"]]))[0])
+            except InputError:
+                continue
+            if not np.isfinite(tv):
+                continue
+            rows.append(dict(kind=kind, atlas=r[ac] if ac else NA, name=r[nc],
+                             hemisphere=r[hc] if hc else NA, band=r["band"],
+                             measure=r["measure"], age_min=20.0, age_max=60.0, model="binned",
+                             degree=0, transform=tr, b0=tv - shift_sd * sd, b1=0.0, b2=0.0,
+                             b3=0.0, sd=sd, n=40))
+    return Norms(table=pd.DataFrame(rows), fingerprint=result.fingerprint,
+                 condition="eyes closed")
