@@ -5,6 +5,7 @@ Public API::
     rank_candidates, candidates_from_folder, write_candidates, candidates_html   # candidates
     TargetDefinition, make_target, export_target, read_target, write_target      # definitions
     OnlineTarget, replay_array, replay_recording, expected_ratio                 # replay
+    CouplingTarget, export_coupling_target, OnlineCoupling, replay_coupling_array # pairs, edges
 
 A candidate is a statistical deviation, not a recommendation: the choice of any training target
 rests with a licensed practitioner who weighs symptoms and history.  ``SCHEMA.md`` documents the
@@ -14,13 +15,18 @@ rests with a licensed practitioner who weighs symptoms and history.  ``SCHEMA.md
 from .candidates import (CANDIDATE_COLUMNS, candidates_for_table, candidates_from_folder,
                          candidates_html,
                          rank_candidates, read_result_folder, write_candidates)
+from .coupling import (CouplingReplay, CouplingTarget, OnlineCoupling, coupling_norm_at_age,
+                       export_coupling_target, replay_coupling_array,
+                       replay_coupling_recording)
 from .definition import (SCHEMA, TargetDefinition, export_target, make_target, norm_at_age,
                          read_target, target_from_dict, write_target)
 from .replay import (OnlineTarget, ReplayResult, expected_ratio, plot_replay, replay_array,
                      replay_recording, welch_band_response)
 
 __all__ = [
-    "CANDIDATE_COLUMNS", "SCHEMA", "OnlineTarget", "ReplayResult", "TargetDefinition",
+    "CANDIDATE_COLUMNS", "SCHEMA", "CouplingReplay", "CouplingTarget", "OnlineCoupling",
+    "OnlineTarget", "ReplayResult", "TargetDefinition", "coupling_norm_at_age",
+    "export_coupling_target", "replay_coupling_array", "replay_coupling_recording",
     "candidates_for_table", "candidates_from_folder", "candidates_html", "expected_ratio", "export_target",
     "make_target", "norm_at_age", "plot_replay", "rank_candidates", "read_result_folder",
     "read_target", "replay_array", "replay_recording", "target_from_dict",
