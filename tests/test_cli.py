@@ -138,6 +138,7 @@ def test_norms_build_check_and_use(tmp_path, capsys):
     assert main(["norms", "check", str(norms)]) == 0
     out = capsys.readouterr().out
     assert "20" in out
+    assert "pair: 171 pairs" in out and "edge: lobes: 66 edges" in out  # coupling norms too
     edf = next(root.glob("sub-*/eeg/*.edf"))
     res = tmp_path / "res"
     assert main(["analyze", str(edf), "--out", str(res), "--norms", str(norms), "--age", "40",
@@ -147,6 +148,9 @@ def test_norms_build_check_and_use(tmp_path, capsys):
     # minimum n: they carry no z and are flagged, never silently zero
     assert t.z.notna().mean() > 0.95
     assert t[t.z.isna()].no_norm.all()
+    for name in ("pair_table", "coupling_table"):           # coupling rows are z-scored too
+        c = pd.read_csv(res / f"{name}.tsv", sep="\t")
+        assert c.z.notna().mean() > 0.95 and c[c.z.isna()].no_norm.all()
 
 
 def _damaged(sim_edf, tmp_path, how):
