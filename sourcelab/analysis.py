@@ -123,6 +123,27 @@ def _coupling(clean, model, op, config: AnalysisConfig):
     return pt, ct
 
 
+#: Relative difference in clean epochs from the norms cohort's median beyond which coupling
+#: z-scores get a warning.  Magnitude measures (msc, lagcoh, lps, wpli) are biased upwards by
+#: about 1/n_epochs; with the demo norms, twice the cohort's epochs moved the lagged measures'
+#: mean z by about -1.1, so a 25 % difference moves it by about -0.3.
+EPOCHS_TOLERANCE = 0.25
+
+
+def _epochs_note(nm, n_epochs: int) -> str | None:
+    """A warning when the recording's clean epochs differ much from the norms cohort's."""
+    info = (nm.cohort or {}).get("clean_epochs") or {}
+    try:
+        med = float(info["median"])
+    except (KeyError, TypeError, ValueError):
+        return None
+    if not med > 0 or abs(n_epochs / med - 1.0) <= EPOCHS_TOLERANCE:
+        return None
+    return (f"{n_epochs} clean epochs against a median of {med:.0f} in the norms' cohort: "
+            "coherence-type coupling z-scores (msc, lagcoh, lps, wpli) shift with recording "
+            "length; compare recordings of similar clean duration")
+
+
 def _in_domain(values: np.ndarray, transform) -> np.ndarray:
     """Which values a transform accepts (NaN counts as accepted: it gives a NaN z)."""
     try:
@@ -282,6 +303,7 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
             sensor_rows = match_norms(sensor_table, nm, kind="sensor", **opts)
             roi_table = apply_norms(roi_table, nm, kind="roi", rows=roi_rows, **opts)
             sensor_table = apply_norms(sensor_table, nm, kind="sensor", rows=sensor_rows, **opts)
+            scored_any = False
             for kind, what in (("pair", "electrode-pair"), ("edge", "network coupling")):
                 table = pair_table if kind == "pair" else coupling_table
                 if table is None:
@@ -291,10 +313,16 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
                     notes.append(f"the norms hold no {kind} rows: {what} z-scores are left "
                                  "empty (norms built by this sourcelab version include them)")
                     log.warning("%s", notes[-1])
-                elif kind == "pair":
-                    pair_table = scored
                 else:
-                    coupling_table = scored
+                    scored_any = True
+                    if kind == "pair":
+                        pair_table = scored
+                    else:
+                        coupling_table = scored
+            note = _epochs_note(nm, int(csd_epochs.shape[0])) if scored_any else None
+            if note:
+                notes.append(note)
+                log.warning("%s", note)
             norms_info = NormsInfo(path=None if nm.path is None else str(nm.path),
                                    sha256=nm.sha256, condition=nm.condition,
                                    cohort=dict(nm.cohort), n_rows=int(len(nm.table)),

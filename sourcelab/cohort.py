@@ -19,7 +19,7 @@ from .batch.inputs import read_participants
 from .constants import RECORDING_SUFFIXES, recording_suffix
 from .errors import InputError
 from .norms import Norms, NormsFit, entry_values, fit_norms, normalise_condition, write_norms
-from .norms.fit import slim_table
+from .norms.fit import clean_epochs_summary, slim_table
 from .provenance import Fingerprint, atomic_write_text, safe_name
 
 log = logging.getLogger("sourcelab")
@@ -97,7 +97,8 @@ def _cohort_tables(task):
     res = analyze(path, config=config.replace(n_boot=0, coupling_n_boot=0), age=age)
     return (slim_table(res.roi_table, "roi"), slim_table(res.sensor_table, "sensor"),
             res.fingerprint, slim_table(getattr(res, "pair_table", None), "pair"),
-            slim_table(getattr(res, "coupling_table", None), "edge"))
+            slim_table(getattr(res, "coupling_table", None), "edge"),
+            getattr(getattr(res, "quality", None), "n_epochs", None))
 
 
 def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | Path,
@@ -200,10 +201,11 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
     finally:
         bar.close()
     entries = []
+    epochs: list[int] = []
     fp0: Fingerprint | None = None
     for i in sorted(done):
         pid, age = pids[i]
-        roi_table, sensor_table, fp, pair_table, coupling_table = done[i]
+        roi_table, sensor_table, fp, pair_table, coupling_table, n_epochs = done[i]
         if fp0 is None:
             fp0 = fp
         elif fp0.differences(fp):
@@ -219,11 +221,15 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
             log.warning("norms: %s skipped: %s", pid, exc)
             continue
         entries.append((pid, age, roi_table, sensor_table, pair_table, coupling_table))
+        if n_epochs is not None:
+            epochs.append(int(n_epochs))
     if fp0 is None:
         raise InputError(f"no participant could be analysed ({len(failures)} failures)",
                          path=cohort_dir)
     info = {"source": cohort_dir.name, "n_listed": int(len(parts)),
             "n_failed": len(failures)}
+    if epochs:  # coupling magnitudes depend on recording length (sourcelab/coupling/TABLES.md)
+        info["clean_epochs"] = clean_epochs_summary(epochs)
     if "sex" in parts.columns:
         used = set(e[0] for e in entries)
         sex = parts[parts["participant_id"].isin(used)]["sex"].str.strip().value_counts()

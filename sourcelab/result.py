@@ -291,6 +291,16 @@ class AnalysisResult:
                 c = self.candidates.iloc[0]
                 lines.append(f"largest deviation: {c['roi']} {c['hemisphere']} {c['band']} "
                              f"{c['measure']} power, z = {c['z']:+.2f}")
+            zc = [pd_z for t in (self.pair_table, self.coupling_table) if t is not None
+                  for pd_z in [t["z"].to_numpy(dtype=float)]]
+            if zc:
+                zc = np.concatenate(zc)
+                zc = zc[np.isfinite(zc)]
+                if zc.size:
+                    lines.append(f"{zc.size} electrode-pair and network-coupling z-scores; "
+                                 f"{int(np.sum(np.abs(zc) > Z_THRESHOLD))} with |z| > "
+                                 f"{Z_THRESHOLD} ({0.05 * zc.size:.0f} expected by chance "
+                                 "alone)")
         else:
             lines.append("no norms given: values only, no z-scores")
         lines += [f"warning: {w}" for w in self.warnings]

@@ -142,7 +142,22 @@ def test_coupling_z_p_fdr_and_intervals_against_norms(scored):
         want = (np.arctanh(np.sqrt(msc["value_hi"])) - np.arctanh(np.sqrt(msc["value"]))) / 0.2
         np.testing.assert_allclose(msc["z_hi"] - 2.5, want, rtol=1e-6, atol=1e-9)
         assert set(t["robust"].dropna()) <= {True, False}
-    assert not any("norms hold no" in w for w in scored.warnings)
+    assert not any("norms hold no" in w or "clean epochs" in w for w in scored.warnings)
+
+
+def test_recording_length_far_from_the_norms_cohort_warns(result, coupled_raw):
+    # Coherence-type magnitudes are biased by about 1/n_epochs: a recording with half the
+    # clean epochs of the norms' cohort is flagged (EPOCHS_TOLERANCE, 25 %); within it, not.
+    import dataclasses
+
+    nm = norms_shifted_from(result, shift_sd=1.0)
+    n = result.quality.n_epochs
+    for median, warned in ((2.0 * n, True), (1.1 * n, False)):
+        norms = dataclasses.replace(nm, cohort={"clean_epochs": {"median": median}})
+        res = analyze(coupled_raw, config=result.config.replace(coupling_n_boot=0),
+                      norms=norms, age=40.0, condition="eyes closed")
+        assert any(f"{n} clean epochs against a median of {median:.0f}" in w
+                   for w in res.warnings) == warned
 
 
 def test_norms_without_coupling_rows_leave_z_empty_and_warn(result, coupled_raw):

@@ -7,7 +7,6 @@ import pytest
 from coupling_sim import cohort_spectral, cohort_values_spectral
 from scipy import stats
 
-from sourcelab.coupling import EDGE_MEASURES
 from sourcelab.errors import InputError
 from sourcelab.norms import (Norms, apply_norms, check_norms, fit_norms, get_transform,
                              read_norms, write_norms)

@@ -225,7 +225,7 @@ def pair_head_map(pair_table: pd.DataFrame, *, band: str, measure: str,
             near = _near_point(a, b, others, 0.12)
             arcs.append(_arc(a, b, bow=0.14) if near is None else
                         _arc(a, b, bow=0.3, away=near))
-        widths = 1.2 + 1.6 * np.clip(np.abs(z[sel]) - z_threshold, 0.0, 2.5)
+        widths = 1.0 + 1.2 * np.clip(np.abs(z[sel]) - z_threshold, 0.0, 2.5)
         lc = LineCollection(arcs, cmap=scale.cmap, norm=scale.norm, linewidths=widths,
                             capstyle="round", zorder=3)
         lc.set_array(z[sel])

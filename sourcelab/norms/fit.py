@@ -97,6 +97,13 @@ class NormsFit:
     degree_scores: dict
 
 
+def clean_epochs_summary(counts) -> dict:
+    """``{"median", "min", "max"}`` of the cohort's clean epochs per participant (recorded in the
+    norms' cohort header: coupling magnitudes depend on the number of epochs)."""
+    c = np.asarray(list(counts), dtype=float)
+    return {"median": float(np.median(c)), "min": int(c.min()), "max": int(c.max())}
+
+
 def slim_table(table: pd.DataFrame | None, kind: str) -> pd.DataFrame | None:
     """Only the columns norm fitting reads, text as categories (a cohort's coupling tables hold
     thousands of rows per participant; this keeps them ~10 times smaller in memory).
