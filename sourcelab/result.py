@@ -291,10 +291,9 @@ class AnalysisResult:
                 c = self.candidates.iloc[0]
                 lines.append(f"largest deviation: {c['roi']} {c['hemisphere']} {c['band']} "
                              f"{c['measure']} power, z = {c['z']:+.2f}")
-            zc = [pd_z for t in (self.pair_table, self.coupling_table) if t is not None
-                  for pd_z in [t["z"].to_numpy(dtype=float)]]
-            if zc:
-                zc = np.concatenate(zc)
+            tables = [t for t in (self.pair_table, self.coupling_table) if t is not None]
+            if tables:
+                zc = np.concatenate([t["z"].to_numpy(dtype=float) for t in tables])
                 zc = zc[np.isfinite(zc)]
                 if zc.size:
                     lines.append(f"{zc.size} electrode-pair and network-coupling z-scores; "

@@ -143,6 +143,9 @@ def test_coupling_z_p_fdr_and_intervals_against_norms(scored):
         np.testing.assert_allclose(msc["z_hi"] - 2.5, want, rtol=1e-6, atol=1e-9)
         assert set(t["robust"].dropna()) <= {True, False}
     assert not any("norms hold no" in w or "clean epochs" in w for w in scored.warnings)
+    n = sum(int(t["z"].notna().sum()) for t in (scored.pair_table, scored.coupling_table))
+    assert f"{n} electrode-pair and network-coupling z-scores; {n} with |z| > 1.96" in \
+        scored.summary()
 
 
 def test_recording_length_far_from_the_norms_cohort_warns(result, coupled_raw):
