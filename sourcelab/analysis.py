@@ -1,4 +1,5 @@
-"""The analysis: recording → clean epochs → band cross-spectra → sLORETA → areas → z → answers.
+"""The analysis: recording → clean epochs → band cross-spectra → sLORETA → areas, coupling → z →
+answers.
 
 Every stage is a pure function elsewhere in the package; :func:`analyze` wires them, records
 provenance and returns an :class:`~sourcelab.result.AnalysisResult` that owns everything it

@@ -237,3 +237,20 @@ def test_fit_norms_phase_around_180_degrees(rng):
                       "value": [-178.0]})
     z = apply_norms(t, norms, age=30.0, fingerprint=FP, condition="eyes closed", kind="pair")
     assert abs(z["z"][0]) < 1.0
+
+
+def test_coupling_value_on_the_edge_of_its_range_is_missing_not_fatal():
+    # A reference participant whose two electrodes are bridged has a coherence of exactly 1,
+    # outside atanh(sqrt(.))'s domain: that value is left out of the norms (NaN), the participant
+    # and every other value stay in.  The same value in band power is an error.
+    from sourcelab.norms import entry_values
+
+    t = pd.DataFrame({"pair": ["F3-F4", "F3-F4"], "band": ["alpha", "alpha"],
+                      "measure": ["msc", "imcoh"], "value": [1.0, 0.2]})
+    v = entry_values("s1", 30.0, None, None, t)
+    assert np.isnan(v[("pair", "n/a", "F3-F4", "n/a", "alpha", "msc")])
+    assert v[("pair", "n/a", "F3-F4", "n/a", "alpha", "imcoh")] == pytest.approx(np.arctanh(0.2))
+    roi = pd.DataFrame({"atlas": ["brodmann"], "roi": ["BA17"], "hemisphere": ["left"],
+                        "band": ["alpha"], "measure": ["absolute"], "value": [0.0]})
+    with pytest.raises(InputError, match="s1"):
+        entry_values("s1", 30.0, roi, None)

@@ -11,7 +11,7 @@ Rules (documented in FORMAT.md):
   chosen once for all quantities by leave-one-out cross-validation (``degree="auto"``, 0..3) or
   fixed by the caller;
 * ``model="binned"``: mean and SD per age bin (bins given, or equal-count bins);
-* ``robust=True``: except for the phase and lag of pairs and edges
+* ``robust=True``: except for the phase, lag and envelope correlation of pairs and edges
   (:data:`~sourcelab.norms.coupling.UNTRIMMED_MEASURES`), controls more than 3.5 robust SDs
   (1.4826 x MAD) from the fit are excluded from
   that quantity, iteratively (see :func:`sourcelab.norms.models.fit_poly`).
@@ -184,11 +184,26 @@ def entry_values(pid, age, roi_table, sensor_table, pair_table=None,
     vals = np.fromiter(items.values(), dtype=float, count=len(items))
     tv = np.empty(len(items))
     for (kind, measure), idx in groups.items():
+        tr = get_transform(transform_for(kind, measure))
         try:
-            tv[idx] = get_transform(transform_for(kind, measure)).forward(vals[idx])
+            tv[idx] = tr.forward(vals[idx])
         except InputError as exc:
-            raise InputError(f"participant {pid!r}, {kind} {measure}: {exc}") from None
+            if kind not in COUPLING_KINDS:
+                raise InputError(f"participant {pid!r}, {kind} {measure}: {exc}") from None
+            # a coupling value on the edge of its range (coherence 1 between bridged
+            # electrodes) is left out of the norms as missing, not fatal for the participant
+            tv[idx] = [_forward_or_nan(tr, v) for v in vals[idx]]
+            log.warning("participant %s: %d %s %s values on the edge of their range left out",
+                        pid, int(np.isnan(tv[idx]).sum() - np.isnan(vals[idx]).sum()), kind,
+                        measure)
     return dict(zip(keys, tv.tolist()))
+
+
+def _forward_or_nan(transform, v: float) -> float:
+    try:
+        return float(transform.forward(np.array([v]))[0])
+    except InputError:
+        return float("nan")
 
 
 def _default_bins(ages: np.ndarray, min_n: int) -> tuple[float, ...]:
@@ -223,7 +238,7 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
         Minimum kept controls per row (per bin for binned norms); rows with fewer are omitted.
     robust : bool
         Iterative exclusion beyond 3.5 robust SDs (see :func:`~sourcelab.norms.models.fit_poly`),
-        for every quantity but the phase and lag of pairs and edges
+        for every quantity but the phase, lag and envelope correlation of pairs and edges
         (:data:`~sourcelab.norms.coupling.UNTRIMMED_MEASURES`).
     cohort_info : dict | None
         Extra JSON-serialisable cohort description merged into the summary (sex counts, source).
