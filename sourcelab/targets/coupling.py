@@ -48,11 +48,11 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import PIPELINE_VERSION  # noqa: F401  (the fingerprint check uses it)
 from ..cautions import CAUTIONS
 from ..constants import SITES_1020
 from ..errors import InputError
 from ..provenance import Fingerprint
+from .definition import SCHEMA
 
 #: Target kinds of this module.
 KINDS = ("pair", "edge")
@@ -153,7 +153,7 @@ class CouplingTarget:
         if self.kind == "edge":
             node["atlas"] = self.atlas
         return {
-            "schema": "sourcelab-target/1",
+            "schema": SCHEMA,
             "kind": self.kind,
             "name": self.name,
             "created_utc": self.created_utc,
@@ -560,7 +560,9 @@ def replay_coupling_recording(target: CouplingTarget, recording, out: str | Path
         res.to_frame().to_csv(tmp / "replay.tsv", sep="\t", index=False, na_rep="",
                               float_format="%.6g")
         plot_coupling_replay(res, target).savefig(tmp / "replay.png", dpi=100)
-        (tmp / "replay.json").write_text(json.dumps(summary, indent=2, allow_nan=True),
+        clean_summary = {k: (None if isinstance(v, float) and not np.isfinite(v) else v)
+                         for k, v in summary.items()}           # strict JSON: no NaN
+        (tmp / "replay.json").write_text(json.dumps(clean_summary, indent=2, allow_nan=False),
                                          encoding="utf-8")
     return summary
 
