@@ -6,8 +6,11 @@ An invented 10-minute, 19-channel, 256 Hz recording (``run_all.invented_raw``: o
 frontal theta, central beta on pink background) is cleaned by ``sourcelab.intake`` into 2-s
 epochs.  Measured in the same run:
 
-* ``analyze``: today's analysis of the same recording (default configuration, with the 1,000
-  bootstrap replicates of band power), warm caches;
+* ``analyze``: the analysis of the same recording with its default configuration (1,000
+  bootstrap replicates of band power) with coupling off (``coupling=False``) and on (the
+  default: both tables, 199 coupling replicates), and on without coupling intervals
+  (``coupling_n_boot=0``), warm caches, best of 3 each; the difference is what coupling adds to
+  an analysis (wall and CPU time);
 * ``coupling``: everything this package adds - tapered and untapered Fourier coefficients, the 171
   pairs x 5 bands x 9 measures + asymmetry with the analytic leakage null and the
   volume-conduction coherence (its covariance is fixed per head model and computed once, like
@@ -111,18 +114,36 @@ def main(argv=None) -> int:
     analyze(rec, config=cfg)                                   # warm every cache
     _coupling(clean, model, op, atlases, cfg.bands, c0)
 
-    t = time.perf_counter()
-    analyze(rec, config=cfg)
-    t_an = time.perf_counter() - t
+    runs = {"off": cfg.replace(coupling=False), "on": cfg,
+            "on, no coupling intervals": cfg.replace(coupling_n_boot=0)}
+    wall = {k: [] for k in runs}
+    cpu = {k: [] for k in runs}
+    for _ in range(3):
+        for k, c in runs.items():
+            t, tc = time.perf_counter(), time.process_time()
+            analyze(rec, config=c)
+            wall[k].append(time.perf_counter() - t)
+            cpu[k].append(time.process_time() - tc)
+    for k in runs:
+        print(f"analyze, coupling {k:26s} wall {min(wall[k]):5.2f} s, cpu {min(cpu[k]):5.2f} s")
+    added = min(wall["on"]) - min(wall["off"])
+    print(f"added by coupling (default, 199 replicates): wall {added:.2f} s, cpu "
+          f"{min(cpu['on']) - min(cpu['off']):.2f} s (goal <= 2 s); without intervals: "
+          f"wall {min(wall['on, no coupling intervals']) - min(wall['off']):.2f} s")
+    t_an = min(wall["off"])
     t = time.perf_counter()
     pt, ct = _coupling(clean, model, op, atlases, cfg.bands, c0)
     t_c = time.perf_counter() - t
     t = time.perf_counter()
+    _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=cfg.coupling_n_boot)
+    t_cd = time.perf_counter() - t
+    t = time.perf_counter()
     _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=1000)
     t_cb = time.perf_counter() - t
-    print(f"today's analysis (analyze, default config):      {t_an:6.2f} s")
+    print(f"analysis without coupling (default config):      {t_an:6.2f} s")
     print(f"coupling, all measures ({len(pt)} pair rows, {len(ct)} edge rows): {t_c:6.2f} s "
           f"(goal <= 2 s)")
+    print(f"coupling with {cfg.coupling_n_boot} bootstrap replicates (default):  {t_cd:6.2f} s")
     print(f"coupling with 1000 bootstrap replicates:          {t_cb:6.2f} s")
 
     tracemalloc.start()

@@ -1,4 +1,5 @@
-"""The analysis: recording → clean epochs → band cross-spectra → sLORETA → areas → z → answers.
+"""The analysis: recording → clean epochs → band cross-spectra → sLORETA → areas, coupling → z →
+answers.
 
 Every stage is a pure function elsewhere in the package; :func:`analyze` wires them, records
 provenance and returns an :class:`~sourcelab.result.AnalysisResult` that owns everything it
@@ -26,8 +27,8 @@ log = logging.getLogger("sourcelab")
 #: Atlases reported by default.
 DEFAULT_ATLASES = ("brodmann", "lobes", "networks", "yeo7")
 #: Stages shown by the progress bar.
-STAGES = ("reading", "cleaning", "cross-spectra", "sources", "areas", "z-scores", "intervals",
-          "candidates")
+STAGES = ("reading", "cleaning", "cross-spectra", "sources", "areas", "coupling", "z-scores",
+          "intervals", "candidates")
 
 
 def fingerprint_for(config: AnalysisConfig, headmodel_sha256: str | None = None) -> Fingerprint:
@@ -87,6 +88,119 @@ def _sensor_table(ch_names, sens_abs: np.ndarray, sens_rel: np.ndarray, band_nam
             for c, ch in enumerate(ch_names):
                 rows.append((ch, band, measure, float(vals[b, c]), unit, np.nan))
     return pd.DataFrame(rows, columns=list(SENSOR_COLUMNS))
+
+
+def _coupling(clean, model, op, config: AnalysisConfig):
+    """Pair and network/lobe coupling of the clean epochs (see ``sourcelab/coupling/TABLES.md``).
+
+    Cheap path: the epochs' Fourier coefficients at the analysed bins (single precision, Hann
+    taper for the spectral measures, none for the envelopes), no per-bin 19 x 19 matrices; the
+    volume-conduction covariance comes from the template leadfield (fixed orientation: the
+    surface-normal gain; free: all three components).
+
+    Returns
+    -------
+    pair_table, coupling_table : DataFrame
+    """
+    from .coupling import coupling_table, independent_source_covariance, network_coupling, \
+        pair_table, sensor_coupling
+    from .rois import load_atlas
+    from .spectra import epoch_fourier
+
+    bands = config.bands
+    spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, bands, dtype=np.complex64)
+    plain, _ = epoch_fourier(clean.epochs, clean.sfreq, bands, taper=False, dtype=np.complex64)
+    gain = model.gain_fixed if op.n_comp == 1 else model.gain
+    c0 = independent_source_covariance(gain)
+    boot = dict(n_boot=config.coupling_n_boot, seed=config.boot_seed, ci=config.ci)
+    sc = sensor_coupling(spec, freqs, bands, model.ch_names, model.ch_pos, null_cov=c0, **boot)
+    atlases = [load_atlas(a) for a in config.coupling_atlases]
+    ecs = network_coupling(spec, plain, freqs, bands, op, atlases, null_cov=c0,
+                           normals=model.src_nn, **boot)
+    pt, ct = pair_table(sc), coupling_table(ecs)
+    meta = {"method": "percentile", "unit": "clean epoch", "n_boot": int(config.coupling_n_boot),
+            "seed": int(config.boot_seed), "ci": float(config.ci),
+            "n_epochs": int(sc.n_epochs)}
+    for t in (pt, ct):
+        t.attrs["bootstrap"] = meta if config.coupling_n_boot else None
+    return pt, ct
+
+
+#: Relative difference in clean epochs from the norms cohort's median beyond which coupling
+#: z-scores get a warning.  Magnitude measures (msc, lagcoh, lps, wpli) are biased upwards by
+#: about 1/n_epochs; with the demo norms, twice the cohort's epochs moved the lagged measures'
+#: mean z by about -1.1, so a 25 % difference moves it by about -0.3.
+EPOCHS_TOLERANCE = 0.25
+
+
+def _epochs_note(nm, n_epochs: int) -> str | None:
+    """A warning when the recording's clean epochs differ much from the norms cohort's."""
+    info = (nm.cohort or {}).get("clean_epochs") or {}
+    try:
+        med = float(info["median"])
+    except (KeyError, TypeError, ValueError):
+        return None
+    if not med > 0 or abs(n_epochs / med - 1.0) <= EPOCHS_TOLERANCE:
+        return None
+    return (f"{n_epochs} clean epochs against a median of {med:.0f} in the norms' cohort: "
+            "coherence-type coupling z-scores (msc, lagcoh, lps, wpli) shift with recording "
+            "length; compare recordings of similar clean duration")
+
+
+def _in_domain(values: np.ndarray, transform) -> np.ndarray:
+    """Which values a transform accepts (NaN counts as accepted: it gives a NaN z)."""
+    try:
+        transform.forward(values)
+        return np.ones(values.shape, dtype=bool)
+    except InputError:
+        def one(v):
+            try:
+                transform.forward(np.array([v]))
+                return True
+            except InputError:
+                return False
+        return np.array([one(v) for v in values], dtype=bool)
+
+
+def _coupling_z(table, nm, kind: str, opts: dict):
+    """z-score a pair or coupling table against norms (with ``z_lo``, ``z_hi``, ``robust`` from
+    the bootstrap interval); None when the norms hold no rows of this kind."""
+    import pandas as pd
+
+    from .norms import apply_norms, get_transform, match_norms
+    from .trust import robust_flags
+
+    if not (nm.table["kind"] == kind).any():
+        return None
+    rows = match_norms(table, nm, kind=kind, **opts)
+    # a value on the edge of its measure's range (coherence 1 between bridged electrodes, a
+    # phase spread of 0) has no transformed value: its z is left empty instead of failing
+    value = table["value"].to_numpy(dtype=float)
+    ok = np.ones(len(table), dtype=bool)
+    for name in set(rows.transform.tolist()) - {""}:
+        sel = np.flatnonzero(rows.transform == name)
+        ok[sel] = _in_domain(value[sel], get_transform(name))
+    if not ok.all():
+        log.warning("%d %s values lie on the edge of their measure's range: z left empty",
+                    int((~ok).sum()), kind)
+    out = apply_norms(table.assign(value=np.where(ok, value, np.nan)), nm, kind=kind,
+                      rows=rows, **opts)
+    out["value"] = table["value"].to_numpy()
+    z = out["z"].to_numpy(dtype=float)
+    value = out["value"].to_numpy(dtype=float)
+    lo, hi = (rows.z(out[c].to_numpy(dtype=float)) for c in ("value_lo", "value_hi"))
+    # circular rows (phase): the interval's ends as angular distances from the estimate, so an
+    # interval that crosses the wrap point keeps its width
+    for name in set(rows.transform.tolist()) - {""}:
+        tr = get_transform(name)
+        if tr.period is not None:
+            sel = rows.transform == name
+            for arr, col in ((lo, "value_lo"), (hi, "value_hi")):
+                arr[sel] = z[sel] + (out[col].to_numpy(dtype=float)[sel] - value[sel]) \
+                    / rows.sd[sel]
+    out["z_lo"], out["z_hi"] = np.fmin(lo, hi), np.fmax(lo, hi)
+    out["robust"] = pd.array(robust_flags(z, out["z_lo"], out["z_hi"]))
+    return out
 
 
 def analyze(recording, *, config: AnalysisConfig | None = None, age: float | None = None,
@@ -185,9 +299,14 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         fp = fingerprint_for(config, model.sha256)
         slow = _slow_maximum(src_abs, names, model)
         quality = _quality(clean, csd_epochs, op, atlas_objs[0], config, slow)
+        stages.step("coupling")
+        pair_table = coupling_table = None
+        if config.coupling:
+            pair_table, coupling_table = _coupling(clean, model, op, config)
 
         stages.step("z-scores")
         norms_info = roi_rows = sensor_rows = None
+        notes: list[str] = []
         if nm is not None:
             from .norms import apply_norms, match_norms
 
@@ -198,6 +317,26 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
             sensor_rows = match_norms(sensor_table, nm, kind="sensor", **opts)
             roi_table = apply_norms(roi_table, nm, kind="roi", rows=roi_rows, **opts)
             sensor_table = apply_norms(sensor_table, nm, kind="sensor", rows=sensor_rows, **opts)
+            scored_any = False
+            for kind, what in (("pair", "electrode-pair"), ("edge", "network coupling")):
+                table = pair_table if kind == "pair" else coupling_table
+                if table is None:
+                    continue
+                scored = _coupling_z(table, nm, kind, opts)
+                if scored is None:
+                    notes.append(f"the norms hold no {kind} rows: {what} z-scores are left "
+                                 "empty (norms built by this sourcelab version include them)")
+                    log.warning("%s", notes[-1])
+                else:
+                    scored_any = True
+                    if kind == "pair":
+                        pair_table = scored
+                    else:
+                        coupling_table = scored
+            note = _epochs_note(nm, int(csd_epochs.shape[0])) if scored_any else None
+            if note:
+                notes.append(note)
+                log.warning("%s", note)
             norms_info = NormsInfo(path=None if nm.path is None else str(nm.path),
                                    sha256=nm.sha256, condition=nm.condition,
                                    cohort=dict(nm.cohort), n_rows=int(len(nm.table)),
@@ -242,7 +381,8 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         condition=condition)
     # clean.warnings already holds the recording's warnings: keep each warning once
     slow_warning = (slow["warning"],) if slow is not None and slow["warning"] else ()
-    warnings = tuple(dict.fromkeys(tuple(rec.warnings) + tuple(clean.warnings) + slow_warning))
+    warnings = tuple(dict.fromkeys(tuple(rec.warnings) + tuple(clean.warnings) + slow_warning
+                                   + tuple(notes)))
     log.info("analysis done in %.2f s", time.perf_counter() - t0)
     return AnalysisResult(config=config, fingerprint=fp, ch_names=tuple(clean.ch_names),
                           source_abs=src_abs.astype(np.float32),
@@ -252,7 +392,8 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
                           norms=norms_info, warnings=warnings, atlases=atlas_objs, leakage=leak,
                           candidates=candidates, leakage_hints=hints, epoch_csd=csd_epochs,
                           epoch_onsets_s=np.asarray(clean.epoch_onsets_s, dtype=float),
-                          epoch_total=total_epochs, source_z=source_z)
+                          epoch_total=total_epochs, source_z=source_z,
+                          pair_table=pair_table, coupling_table=coupling_table)
 
 
 def _source_z_maps(norms, fp: Fingerprint, src_abs: np.ndarray, src_rel: np.ndarray, *,

@@ -19,6 +19,7 @@ from .batch.inputs import read_participants
 from .constants import RECORDING_SUFFIXES, recording_suffix
 from .errors import InputError
 from .norms import Norms, NormsFit, entry_values, fit_norms, normalise_condition, write_norms
+from .norms.fit import clean_epochs_summary, slim_table
 from .provenance import Fingerprint, atomic_write_text, safe_name, save_png
 
 log = logging.getLogger("sourcelab")
@@ -93,8 +94,11 @@ def _cohort_tables(task):
     from .analysis import analyze
 
     path, config, age = task
-    res = analyze(path, config=config, age=age)
-    return (res.roi_table, res.sensor_table, res.fingerprint,
+    # norms need the values only: no bootstrap intervals (they do not change any value)
+    res = analyze(path, config=config.replace(n_boot=0, coupling_n_boot=0), age=age)
+    return (slim_table(res.roi_table, "roi"), slim_table(res.sensor_table, "sensor"),
+            res.fingerprint, slim_table(res.pair_table, "pair"),
+            slim_table(res.coupling_table, "edge"), res.quality.n_epochs,
             {"absolute": res.source_abs, "relative": res.source_rel})
 
 
@@ -106,7 +110,7 @@ def fit_cohort(entries, source_maps, *, fingerprint: Fingerprint, condition: str
 
     Parameters
     ----------
-    entries : sequence of (participant_id, age, roi_table, sensor_table)
+    entries : sequence of (participant_id, age, roi_table, sensor_table, pair_table, coupling_table)
     source_maps : sequence of dict
         Per entry, ``{"absolute": (n_bands, n_src), "relative": (n_bands, n_src)}``.
     fingerprint : Fingerprint
@@ -282,10 +286,11 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
     finally:
         bar.close()
     entries, maps = [], []
+    epochs: list[int] = []
     fp0: Fingerprint | None = None
     for i in sorted(done):
         pid, age = pids[i]
-        roi_table, sensor_table, fp, source_maps = done[i]
+        roi_table, sensor_table, fp, pair_table, coupling_table, n_epochs, source_maps = done[i]
         if fp0 is None:
             fp0 = fp
         elif fp0.differences(fp):
@@ -295,18 +300,22 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
             log.warning("norms: %s skipped: %s", pid, msg)
             continue
         try:
-            entry_values(pid, age, roi_table, sensor_table)
+            entry_values(pid, age, roi_table, sensor_table, pair_table, coupling_table)
         except InputError as exc:
             failures.append((pid, str(exc)))
             log.warning("norms: %s skipped: %s", pid, exc)
             continue
-        entries.append((pid, age, roi_table, sensor_table))
+        entries.append((pid, age, roi_table, sensor_table, pair_table, coupling_table))
         maps.append(source_maps)
+        if n_epochs is not None:
+            epochs.append(int(n_epochs))
     if fp0 is None:
         raise InputError(f"no participant could be analysed ({len(failures)} failures)",
                          path=cohort_dir)
     info = {"source": cohort_dir.name, "n_listed": int(len(parts)),
             "n_failed": len(failures)}
+    if epochs:  # coupling magnitudes depend on recording length (sourcelab/coupling/TABLES.md)
+        info["clean_epochs"] = clean_epochs_summary(epochs)
     if "sex" in parts.columns:
         used = set(e[0] for e in entries)
         sex = parts[parts["participant_id"].isin(used)]["sex"].str.strip().value_counts()

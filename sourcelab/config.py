@@ -176,6 +176,19 @@ class AnalysisConfig:
     exclude_procedures : bool
         Leave out hyperventilation, post-hyperventilation, photic stimulation and seizure spans
         recognised from the annotations (listed in the clean-data summary).
+    coupling : bool
+        Compute the electrode-pair and network/lobe coupling tables (``pair_table``,
+        ``coupling_table``; see ``sourcelab/coupling/TABLES.md``).
+    coupling_atlases : tuple of str
+        Atlases whose ROIs are coupled (partitions of 12-16 ROIs; see
+        :mod:`sourcelab.coupling.source` for why not the 84 areas).
+    coupling_n_boot : int
+        Bootstrap replicates over clean epochs for the intervals of pair and edge rows (0: none).
+        Fewer than for band power, to keep the analysis fast: the default 199 makes
+        ``(B + 1)(1 - ci)/2`` a whole number at ``ci = 0.95``, so each end of the interval is one
+        replicate (Davison & Hinkley 1997, section 5.2), and intervals from 199 replicates have
+        nearly nominal coverage, with endpoints that vary more from run to run than those from
+        1,000 (measured in ``sourcelab/coupling/TABLES.md``).
     """
 
     bands: Bands = field(default_factory=Bands)
@@ -200,6 +213,9 @@ class AnalysisConfig:
     reject_z: float = 3.0
     ocular_correction: str = "auto"
     exclude_procedures: bool = True
+    coupling: bool = True
+    coupling_atlases: tuple[str, ...] = ("lobes", "yeo7", "networks")
+    coupling_n_boot: int = 199
 
     def __post_init__(self):
         for name, value in _validated_fields(self).items():
@@ -239,6 +255,7 @@ _NUMBERS = {
     "boot_seed": (int, 0, 2**63 - 1, False, False),
     "ci": (float, 0.5, 1.0, True, True),
     "reject_z": (float, 1.0, 20.0, False, False),
+    "coupling_n_boot": (int, 0, 100_000, False, False),
 }
 #: Choices of the option fields.
 _OPTIONS = {"rejection": ("auto", "fixed"), "ocular_correction": ("auto", "ica", "regression", "off")}
@@ -260,13 +277,22 @@ def _validated_fields(cfg: AnalysisConfig) -> dict:
                                  low_open=low_open, high_open=high_open)
     for name, allowed in _OPTIONS.items():
         out[name] = check_option(name, getattr(cfg, name), allowed)
-    out["exclude_procedures"] = check_type("exclude_procedures", cfg.exclude_procedures, bool,
-                                           type_name="true or false")
+    for name in ("exclude_procedures", "coupling"):
+        out[name] = check_type(name, getattr(cfg, name), bool, type_name="true or false")
+    atl = cfg.coupling_atlases
+    if isinstance(atl, str) or not isinstance(atl, (list, tuple)) or not all(
+            isinstance(a, str) for a in atl):
+        raise InputError(f"coupling_atlases: need a list of atlas names, got {atl!r:.60}",
+                         field="coupling_atlases")
+    out["coupling_atlases"] = tuple(atl)
     notch = cfg.notch
     if notch is not None:
         notch = check_number("notch", notch)
         check_option("notch", notch, (50.0, 60.0))
     out["notch"] = notch
+    if 0 < out["coupling_n_boot"] < 99:
+        raise InputError("coupling_n_boot: 0 (no intervals) or at least 99, got "
+                         f"{out['coupling_n_boot']}", field="coupling_n_boot")
     if 0 < out["n_boot"] < 100:
         raise InputError(f"n_boot: 0 (no intervals) or at least 100, got {out['n_boot']}",
                          field="n_boot")

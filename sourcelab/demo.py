@@ -155,31 +155,41 @@ def demo_result(*, config=None, progress: bool | None = False):
                    condition=DEMO_CONDITION, progress=progress)
 
 
-def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 120.0) -> Path:
+def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0) -> Path:
     """Simulate the invented cohort, analyse every member, and write norms.
 
     Beside ``out``: the per-source norms (``<stem>_sources.npz``, same fingerprint) and the
     calibration table and figure, as :func:`sourcelab.build_norms` writes them.
+
+    The invented recordings last as long as the demo participant's (4 minutes): coherence-type
+    coupling measures are biased upwards by about 1/n_epochs, so norms from shorter recordings
+    would make the participant's coupling look low (measured with 2-minute norms: mean z of
+    lagged coherence, lagged phase synchronisation and wPLI about -1.1).
     """
     from .analysis import analyze, fingerprint_for
     from .cohort import fit_cohort, write_cohort_norms
     from .config import AnalysisConfig
     from .errors import InputError
+    from .norms.fit import clean_epochs_summary, slim_table
 
-    config = AnalysisConfig(n_boot=0)  # intervals do not change the values the norms need
-    entries, maps = [], []
+    # intervals do not change the values the norms need
+    config = AnalysisConfig(n_boot=0, coupling_n_boot=0)
+    entries, maps, epochs = [], [], []
     for pid, age, raw in cohort(n, duration_s=duration_s):
         try:
             res = analyze(raw, config=config)
         except InputError as exc:  # e.g. too little clean data: left out, as a real lab would
             log.warning("demo cohort: %s left out: %s", pid, exc)
             continue
-        entries.append((pid, age, res.roi_table, res.sensor_table))
+        entries.append((pid, age, res.roi_table, res.sensor_table,
+                        slim_table(res.pair_table, "pair"), slim_table(res.coupling_table, "edge")))
         maps.append({"absolute": res.source_abs, "relative": res.source_rel})
+        epochs.append(res.quality.n_epochs)
         log.info("demo cohort: %s (age %.1f) done", pid, age)
     fit, source_norms = fit_cohort(
         entries, maps, fingerprint=fingerprint_for(config), condition=DEMO_CONDITION,
-        cohort_info={"source": "INVENTED: simulated by sourcelab.demo (seed %d)" % COHORT_SEED},
+        cohort_info={"source": "INVENTED: simulated by sourcelab.demo (seed %d)" % COHORT_SEED,
+                     "clean_epochs": clean_epochs_summary(epochs)},
         notes=("INVENTED demo norms: simulated adults, no real person's data. "
                "Never use them to assess a real person.",))
     written = write_cohort_norms(fit, source_norms, out)[0]

@@ -12,6 +12,7 @@ import numpy as np
 
 from . import __version__
 from .cautions import CAUTIONS
+from .constants import FDR_ALPHA, Z_THRESHOLD
 from .provenance import atomic_output_dir
 
 log = logging.getLogger("sourcelab")
@@ -68,13 +69,85 @@ def _json_default(o):
     raise TypeError(f"not JSON serialisable: {type(o)}")
 
 
+#: Descriptions of the columns that z-scoring and intervals add to the coupling tables.
+_ADDED_COLUMN_NOTES = {
+    "p": "two-sided p-value of z",
+    "fdr_q": "Benjamini-Hochberg adjusted p-value over every z of this table",
+    "fdr": f"fdr_q at or below the false-discovery level ({FDR_ALPHA:g})",
+    "norm_n": "reference participants behind the norm",
+    "no_norm": "the norms hold no row for this quantity (z left empty)",
+    "extrapolated": "the age lies outside the norm's age range (nearest covered age used)",
+    "condition_mismatch": "the norms' recording condition differs from this recording's",
+    "z_lo": "z of value_lo (lower end of the z interval)",
+    "z_hi": "z of value_hi (upper end of the z interval)",
+    "robust": f"z and both ends of its interval fall on the same side of |z| = {Z_THRESHOLD:g}",
+}
+_COLUMN_UNITS = {"distance_mm": "mm", "z": "standard deviations of the norm",
+                 "z_lo": "standard deviations of the norm",
+                 "z_hi": "standard deviations of the norm"}
+
+
+def table_sidecar(table, notes: dict, *, band_edges: dict | None = None) -> dict:
+    """BIDS-style column descriptions of a tidy table (``Description``, ``Units``, ``Levels``).
+
+    Parameters
+    ----------
+    table : DataFrame
+    notes : dict of str -> str
+        Column descriptions (the table's own notes).
+    band_edges : dict of str -> (float, float), optional
+        Band name -> edges in Hz, for the ``band`` column's levels.
+
+    Returns
+    -------
+    dict
+        One entry per column of ``table``, in order.  ``value`` holds rows of several units: its
+        ``Units`` points to the ``unit`` column.
+    """
+    from .coupling import MEASURE_DESCRIPTIONS, MEASURE_UNITS
+
+    out = {}
+    for col in table.columns:
+        d = {"Description": notes.get(col) or _ADDED_COLUMN_NOTES.get(col, col)}
+        if col in _COLUMN_UNITS:
+            d["Units"] = _COLUMN_UNITS[col]
+        elif col in ("value", "value_lo", "value_hi", "leakage_expected", "leakage_q95"):
+            d["Units"] = "given per row in the column 'unit'"
+        if col == "measure":
+            d["Levels"] = {m: f"{MEASURE_DESCRIPTIONS[m]} ({MEASURE_UNITS[m]})"
+                           for m in dict.fromkeys(table["measure"]) if m in MEASURE_DESCRIPTIONS}
+        elif col == "band" and band_edges:
+            d["Levels"] = {b: f"{lo:g}-{hi:g} Hz (low edge included, high edge excluded)"
+                           for b, (lo, hi) in band_edges.items()}
+        out[col] = d
+    return out
+
+
+def _write_coupling_tables(result, folder: Path) -> None:
+    """``pair_table.tsv`` and ``coupling_table.tsv`` with their JSON column sidecars."""
+    from .coupling import EDGE_COLUMN_NOTES, PAIR_COLUMN_NOTES
+
+    edges = dict(zip(result.bands.names, result.bands.edges))
+    for name, table, notes in (("pair_table", result.pair_table, PAIR_COLUMN_NOTES),
+                               ("coupling_table", result.coupling_table, EDGE_COLUMN_NOTES)):
+        if table is None:
+            continue
+        table.to_csv(folder / f"{name}.tsv", sep="\t", index=False, na_rep="",
+                     float_format="%.6g")
+        with open(folder / f"{name}.json", "w", encoding="utf-8") as f:
+            json.dump(table_sidecar(table, notes, band_edges=edges), f, indent=2,
+                      ensure_ascii=False)
+
+
 def write_tables(result, folder: Path, *, command=None) -> None:
-    """``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json`` and (when the result keeps
-    its per-epoch cross-spectra) ``epochs.npz`` into ``folder``."""
+    """``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json``, ``epochs.npz`` (when the
+    result keeps its per-epoch cross-spectra) and, when coupling was computed, ``pair_table.tsv``
+    / ``coupling_table.tsv`` with ``.json`` column sidecars, into ``folder``."""
     result.roi_table.to_csv(folder / "roi_table.tsv", sep="\t", index=False, na_rep="",
                             float_format="%.6g")
     result.sensor_table.to_csv(folder / "sensor_table.tsv", sep="\t", index=False, na_rep="",
                                float_format="%.6g")
+    _write_coupling_tables(result, folder)
     with open(folder / "provenance.json", "w", encoding="utf-8") as f:
         json.dump(_finite(provenance(result, command=command)), f, indent=2,
                   default=_json_default, allow_nan=False)
@@ -106,9 +179,11 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
     """Write the analysis into an existing (temporary) folder; nothing is computed here.
 
     Always: ``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json``, ``epochs.npz``
-    (per-epoch band cross-spectra, see :mod:`sourcelab.epochfile`), ``leakage_brodmann.tsv``
-    and, with norms, ``candidates.tsv`` and ``leakage_hints.tsv``.  Optional: ``figures/*.png``,
-    ``report.html``, ``maps/`` (MNE SourceEstimate, GIfTI per hemisphere, NIfTI in MNI space).
+    (per-epoch band cross-spectra, see :mod:`sourcelab.epochfile`), ``leakage_brodmann.tsv``,
+    ``pair_table.tsv`` + ``pair_table.json`` and ``coupling_table.tsv`` + ``coupling_table.json``
+    (unless coupling is off) and, with norms, ``candidates.tsv`` and ``leakage_hints.tsv``.
+    Optional: ``figures/*.png``, ``report.html``, ``maps/`` (MNE SourceEstimate, GIfTI per
+    hemisphere, NIfTI in MNI space).
 
     Returns
     -------

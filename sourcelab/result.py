@@ -185,6 +185,13 @@ class AnalysisResult:
     epoch_total : ndarray, shape (n_epochs, n_ch, n_ch) | None
         Per-epoch broadband (:data:`sourcelab.config.BROADBAND_HZ`) cross-spectra, the
         denominator of relative power.
+    pair_table : DataFrame | None
+        Electrode-pair coupling and asymmetry, one row per pair x band x measure (columns
+        :data:`sourcelab.coupling.PAIR_COLUMNS`, then with norms ``p`` ... ``robust``); None when
+        coupling is off (``AnalysisConfig.coupling``).
+    coupling_table : DataFrame | None
+        Network and lobe coupling, one row per atlas x edge x band x measure (columns
+        :data:`sourcelab.coupling.EDGE_COLUMNS`, then with norms ``p`` ... ``robust``).
     """
 
     config: AnalysisConfig
@@ -208,6 +215,8 @@ class AnalysisResult:
     epoch_onsets_s: np.ndarray | None = None
     epoch_total: np.ndarray | None = None
     source_z: dict | None = None
+    pair_table: object | None = None
+    coupling_table: object | None = None
 
     # ------------------------------------------------------------------ access
     @property
@@ -315,6 +324,15 @@ class AnalysisResult:
                 else:
                     lines.append(f"largest deviation: {c['roi']} {c['hemisphere']} {c['band']} "
                                  f"{c['measure']} power, z = {c['z']:+.2f}")
+            tables = [t for t in (self.pair_table, self.coupling_table) if t is not None]
+            if tables:
+                zc = np.concatenate([t["z"].to_numpy(dtype=float) for t in tables])
+                zc = zc[np.isfinite(zc)]
+                if zc.size:
+                    lines.append(f"{zc.size} electrode-pair and network-coupling z-scores; "
+                                 f"{int(np.sum(np.abs(zc) > Z_THRESHOLD))} with |z| > "
+                                 f"{Z_THRESHOLD} ({0.05 * zc.size:.0f} expected by chance "
+                                 "alone)")
         else:
             lines.append("no norms given: values only, no z-scores")
         lines += [f"warning: {w}" for w in self.warnings]

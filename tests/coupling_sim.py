@@ -65,7 +65,23 @@ def epochs_of(data: np.ndarray, n_per: int) -> np.ndarray:
 
 def cohort_values_spectral(model, op, atlas, n_people: int, rng, *, n_epochs: int = 60,
                            freqs=np.arange(8.0, 12.0, 0.5)) -> list[dict]:
-    """Pair and edge values of an invented cohort, simulated as Fourier coefficients (fast).
+    """Pair and edge values of an invented cohort (see :func:`cohort_spectral`), as
+    ``{(kind, measure): array (n_bands, n_items)}`` per person."""
+    out = []
+    for sc, ec in cohort_spectral(model, op, atlas, n_people, rng, n_epochs=n_epochs,
+                                  freqs=freqs):
+        v = {("pair", k): y for k, y in sc.values.items()}
+        v[("pair", "asymmetry")] = np.concatenate([sc.asymmetry["homologous"],
+                                                   sc.asymmetry["anterior_posterior"]], axis=1)
+        v.update({("edge", k): y for k, y in ec.values.items()})
+        out.append(v)
+    return out
+
+
+def cohort_spectral(model, op, atlas, n_people: int, rng, *, n_epochs: int = 60,
+                    freqs=np.arange(8.0, 12.0, 0.5)):
+    """Yield ``(SensorCoupling, EdgeCoupling)`` of each person of an invented cohort,
+    simulated as Fourier coefficients (fast).
 
     Person-level variation is Gaussian on the scales where it is commonly modelled: log
     amplitude of two coupled alpha patches and of the background (log power is close to normal
@@ -98,7 +114,6 @@ def cohort_values_spectral(model, op, atlas, n_people: int, rng, *, n_epochs: in
     def cn(*s):
         return (rng.standard_normal(s) + 1j * rng.standard_normal(s)) / np.sqrt(2.0)
 
-    out = []
     for _ in range(n_people):
         amp = np.exp(rng.normal(np.log(2.0), 0.3, 2))
         lag = rng.normal(0.008, 0.002)
@@ -114,9 +129,41 @@ def cohort_values_spectral(model, op, atlas, n_people: int, rng, *, n_epochs: in
         sc = sensor_coupling(x, f, bands, model.ch_names, model.ch_pos, null_method=None)
         ec = network_coupling(x, x, f, bands, op, [atlas], null_method=None,
                               normals=model.src_nn)[0]
-        v = {("pair", k): y for k, y in sc.values.items()}
-        v[("pair", "asymmetry")] = np.concatenate([sc.asymmetry["homologous"],
-                                                   sc.asymmetry["anterior_posterior"]], axis=1)
-        v.update({("edge", k): y for k, y in ec.values.items()})
-        out.append(v)
-    return out
+        yield sc, ec
+
+
+def norms_shifted_from(result, *, shift_sd: float, coupling: bool = True, sd: float = 0.2):
+    """Invented norms whose mean sits ``shift_sd`` SDs *below* every transformed value of this
+    very analysis result (so every z must be +shift_sd), for its ROI, sensor and (optionally)
+    pair and coupling tables; SD ``sd`` on the transformed scale, ages 20-60, one age bin."""
+    import pandas as pd
+
+    from sourcelab.errors import InputError
+    from sourcelab.norms import NA, Norms, get_transform
+    from sourcelab.norms.fit import transform_for
+    from sourcelab.norms.io import V_COLUMNS
+
+    rows = []
+    tables = [("roi", result.roi_table, "atlas", "roi", "hemisphere"),
+              ("sensor", result.sensor_table, None, "channel", None)]
+    if coupling:
+        tables += [("pair", result.pair_table, None, "pair", None),
+                   ("edge", result.coupling_table, "atlas", "edge", None)]
+    for kind, t, ac, nc, hc in tables:
+        for r in t.itertuples(index=False):
+            r = r._asdict()
+            tr = transform_for(kind, r["measure"])
+            try:
+                tv = float(get_transform(tr).forward(np.array([r["value"]]))[0])
+            except InputError:
+                continue
+            if not np.isfinite(tv):
+                continue
+            rows.append(dict(kind=kind, atlas=r[ac] if ac else NA, name=r[nc],
+                             hemisphere=r[hc] if hc else NA, band=r["band"],
+                             measure=r["measure"], age_min=20.0, age_max=60.0, model="binned",
+                             degree=0, transform=tr, b0=tv - shift_sd * sd, b1=0.0, b2=0.0,
+                             b3=0.0, sd=sd, n=40, df=39,
+                             **{c: 0.0 for c in V_COLUMNS if c != "v00"}, v00=1.0 / 40))
+    return Norms(table=pd.DataFrame(rows), fingerprint=result.fingerprint,
+                 condition="eyes closed")

@@ -147,6 +147,7 @@ def test_norms_build_check_and_use(tmp_path, capsys):
     assert main(["norms", "check", str(norms)]) == 0
     out = capsys.readouterr().out
     assert "n_listed=22" in out
+    assert "pair: 171 pairs" in out and "edge: lobes: 66 edges" in out  # coupling norms too
     edf = next(root.glob("sub-*/eeg/*.edf"))
     res = tmp_path / "res"
     assert main(["analyze", str(edf), "--out", str(res), "--norms", str(norms), "--age", "40",
@@ -156,6 +157,11 @@ def test_norms_build_check_and_use(tmp_path, capsys):
     # minimum n: they carry no z and are flagged, never silently zero
     assert t.z.notna().mean() > 0.95
     assert t[t.z.isna()].no_norm.all()
+    # coupling rows are z-scored too; their wider-tailed cohort spread loses more rows to the
+    # outlier rule at 20 controls (measured: 6 % of pair rows, 4 % of edge rows)
+    for name in ("pair_table", "coupling_table"):
+        c = pd.read_csv(res / f"{name}.tsv", sep="\t")
+        assert c.z.notna().mean() > 0.9 and c[c.z.isna()].no_norm.all()
 
 
 def test_norms_build_plain_bids_file_needs_condition(tmp_path, capsys):

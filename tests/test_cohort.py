@@ -44,7 +44,9 @@ def _fake_analysis(cohort, fail_id):
         # invented per-source maps (the cohort builder also fits per-source norms)
         src = rng.lognormal(0.0, 0.3, (len(FP.bands), n_src)).astype(np.float32)
         return types.SimpleNamespace(roi_table=roi, sensor_table=sen, fingerprint=FP,
-                                     source_abs=src, source_rel=src / (3 * src.max()))
+                                     source_abs=src, source_rel=src / (3 * src.max()),
+                                     pair_table=None, coupling_table=None,
+                                     quality=types.SimpleNamespace(n_epochs=60))
     return types.SimpleNamespace(analyze=analyze)
 
 

@@ -194,6 +194,16 @@ def test_roi_heatmap_many_rois_turns_to_rows():
     _check_colourbar(fig, "z-score", symmetric=True)
 
 
+def _coupling_keys(result, bands) -> set:
+    """Coupling figures of the default set: ROI matrices always, pair head maps with pair z
+    (the demo norms may or may not hold pair rows)."""
+    keys = {"coupling/lagcoh", "coupling/aec_orth"}
+    pt = result.pair_table
+    if pt is not None and np.isfinite(pt["z"].astype(float)).any():
+        keys |= {f"pairs/{b}/{m}" for b in bands for m in ("msc", "lagcoh", "asymmetry")}
+    return keys
+
+
 def test_result_figures_keys(result, plain_result):
     figs = result_figures(result, surfaces=False, measures=("absolute",), resolution=3,
                           z_map_atlas=None, bands=("theta", "alpha"))
@@ -201,14 +211,15 @@ def test_result_figures_keys(result, plain_result):
     expected = ({f"glass/{b}/absolute" for b in names} | {f"roi-bars/{b}/absolute" for b in names}
                 | {"topomap/absolute", "topomap-z/absolute", "roi-heatmap/absolute",
                    "networks/absolute"})
-    assert set(figs) == expected | {"leakage"}
+    assert set(figs) == expected | {"leakage"} | _coupling_keys(result, names)
     assert all(isinstance(v, Figure) for v in figs.values())  # notebook users see figures
     png = result_figures(result, surfaces=False, measures=("absolute",), resolution=3,
                          z_map_atlas=None, bands=("alpha",), as_png=True)
     assert all(v.startswith(b"\x89PNG") for v in png.values())
     no_z = result_figures(plain_result, surfaces=False, measures=("relative",),
                           resolution=3, bands=("alpha",))
-    assert set(no_z) == {"glass/alpha/relative", "topomap/relative", "leakage"}
+    assert set(no_z) == {"glass/alpha/relative", "topomap/relative", "leakage",
+                         "coupling/lagcoh", "coupling/aec_orth"}  # no z: no pair head maps
     with pytest.raises(ValueError, match="bands"):
         result_figures(result, bands=("gamma",))
 
@@ -218,7 +229,7 @@ def test_result_figures_in_worker_processes(result):
                               resolution=3, z_map_atlas=None, bands=("alpha",), as_png=True)
     assert set(parallel) == {"glass/alpha/absolute", "roi-bars/alpha/absolute",
                              "topomap/absolute", "topomap-z/absolute", "roi-heatmap/absolute",
-                             "networks/absolute", "leakage"}
+                             "networks/absolute", "leakage"} | _coupling_keys(result, ["alpha"])
     assert all(v.startswith(b"\x89PNG") for v in parallel.values())
     with pytest.raises(ValueError, match="n_jobs"):
         result_figures(result, n_jobs=0)

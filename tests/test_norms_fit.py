@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import matplotlib
 import numpy as np
-import pandas as pd
 import pytest
 
 from sourcelab.config import DEFAULT_BANDS

@@ -333,8 +333,8 @@ def test_cli_parser_actions():
     cli.add_parser(p.add_subparsers(dest="command"))
     a = p.parse_args(["targets", "export", "res", "--roi", "BA17", "--band", "alpha",
                       "--hemisphere", "right", "--out", "t.json"])
-    assert (a.targets_cmd, a.roi, a.measure, a.atlas) == ("export", "BA17", "absolute",
-                                                          "brodmann")
+    # --measure and --atlas default per target kind (ROI: absolute, brodmann)
+    assert (a.targets_cmd, a.roi, a.measure, a.atlas) == ("export", "BA17", None, None)
     a = p.parse_args(["targets", "list", "res", "--max", "5", "--atlas", "brodmann",
                       "--atlas", "networks"])
     assert a.max_n == 5 and a.atlas == ["brodmann", "networks"]

@@ -142,7 +142,8 @@ def test_sphere_forward_differs_from_bem_but_is_the_same_head(head_model, rng):
 def test_logistic_fit_recovers_known_coefficients(rng):
     # Maximum-likelihood logistic regression (Cox 1958): simulated outcomes from known
     # coefficients are recovered within 4 standard errors (n = 20,000).
-    from sourcelab.simulate.localisation import fit_logistic, predict_logistic
+    from sourcelab.simulate.localisation import fit_logistic
+    from sourcelab.trust.probability import predict_logistic
 
     x = rng.standard_normal((20000, 2))
     true = np.array([-0.5, 1.2, -0.7])

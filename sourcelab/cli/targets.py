@@ -3,6 +3,8 @@
 * ``targets list RESULT_DIR [--max N] [--atlas NAME ...] [--out FILE.tsv]``
 * ``targets export RESULT_DIR --roi NAME [--hemisphere H] [--atlas A] --band BAND
   [--measure M] [--norms FILE] --out TARGET.json``
+* ``targets export RESULT_DIR --pair F3-F4 --band BAND [--measure msc] ...`` or
+  ``--edge "visual.left|visual.right" [--atlas A] --band BAND [--measure lagcoh] ...``
 * ``targets replay TARGET.json RECORDING --out DIR``
 * ``targets stream TARGET.json [--name NAME | --type TYPE | --source-id ID] [--duration S]
   [--updates N] [--log FILE.tsv]``: live feedback over Lab Streaming Layer
@@ -33,11 +35,19 @@ def add_parser(sub) -> None:
 
     ex = tsub.add_parser("export", help="write a portable target definition (JSON)")
     ex.add_argument("result_dir")
-    ex.add_argument("--roi", required=True, help="ROI name, e.g. BA17 or default-mode")
+    what = ex.add_mutually_exclusive_group(required=True)
+    what.add_argument("--roi", help="ROI name, e.g. BA17 or default-mode")
+    what.add_argument("--pair", help="electrode pair, e.g. F3-F4")
+    what.add_argument("--edge", help='network/lobe edge, e.g. "visual.left|visual.right"')
     ex.add_argument("--hemisphere", choices=("left", "right", "both"), default=None)
-    ex.add_argument("--atlas", default="brodmann")
+    ex.add_argument("--atlas", default=None,
+                    help="atlas of the ROI (default brodmann) or of the edge")
     ex.add_argument("--band", required=True)
-    ex.add_argument("--measure", choices=("absolute", "relative"), default="absolute")
+    ex.add_argument("--measure", default=None,
+                    help="ROI: absolute (default) or relative; pair: a pair measure (default "
+                         "msc) or asymmetry; edge: an edge measure (default lagcoh)")
+    ex.add_argument("--window-segments", type=int, default=None,
+                    help="pair/edge: segments in the feedback window (default 15)")
     ex.add_argument("--norms", default=None,
                     help="norms file (default: the one recorded in the analysis)")
     ex.add_argument("--allow-extrapolation", action="store_true",
@@ -117,10 +127,29 @@ def _list(args) -> int:
 
 
 def _export(args) -> int:
-    from ..targets import export_target, write_target
+    from ..targets import export_coupling_target, export_target, write_target
 
-    t = export_target(args.result_dir, roi=args.roi, band=args.band, atlas=args.atlas,
-                      hemisphere=args.hemisphere, measure=args.measure, norms=args.norms,
+    if args.roi is None:
+        from ..targets.coupling import WINDOW_SEGMENTS
+
+        kind = "pair" if args.pair is not None else "edge"
+        t = export_coupling_target(args.result_dir, kind=kind, label=args.pair or args.edge,
+                                   band=args.band, measure=args.measure, atlas=args.atlas,
+                                   norms=args.norms,
+                                   allow_extrapolation=args.allow_extrapolation,
+                                   window_segments=args.window_segments or WINDOW_SEGMENTS)
+        write_target(t, args.out)
+        z = t.offline.get("z")
+        zs = f", offline z {z:+.2f}" if z is not None else ", no norm"
+        print(f"sourcelab: wrote {args.out} ({t.name}, value {t.offline['value']:.4g}{zs}, "
+              f"direction {t.direction})")
+        return 0
+    measure = args.measure or "absolute"
+    if measure not in ("absolute", "relative"):
+        raise InputError(f"--measure {measure!r}: an ROI target is absolute or relative power")
+    t = export_target(args.result_dir, roi=args.roi, band=args.band,
+                      atlas=args.atlas or "brodmann", hemisphere=args.hemisphere,
+                      measure=measure, norms=args.norms,
                       allow_extrapolation=args.allow_extrapolation,
                       filter_order=args.filter_order, smoothing=args.smoothing,
                       time_constant_s=args.time_constant, threshold_sd=args.threshold_sd)
@@ -165,6 +194,12 @@ def _replay(args) -> int:
 
     target = read_target(args.target)
     s = replay_recording(target, args.recording, args.out)
+    if "pooled_value" in s:                 # a pair or edge target
+        diff = s["difference_to_offline"]
+        extra = f", {diff:+.4g} from the offline value" if diff is not None else ""
+        print(f"sourcelab: {s['n_clean']} of {s['n_segments']} segments clean; value over all "
+              f"clean segments {s['pooled_value']:.4g}{extra}; wrote {args.out}")
+        return 0
     ratio = s["ratio_to_offline"]
     extra = f", {ratio:.3f} x the offline value" if ratio is not None else ""
     print(f"sourcelab: {s['n_clean']} of {s['n_windows']} windows clean; mean power "

@@ -63,10 +63,30 @@ MEASURE_UNITS = {
     "asymmetry": "(A-B)/(A+B) of absolute power", "aec_orth": "correlation (-1 to 1)",
 }
 
+#: What each measure is (user-facing; the ``Levels`` of the table sidecars).
+MEASURE_DESCRIPTIONS = {
+    "msc": "magnitude-squared coherence",
+    "imcoh": "imaginary part of coherency (Nolte et al. 2004); positive: the first site or ROI "
+             "leads",
+    "lagcoh": "lagged coherence (Pascual-Marqui 2007): coherence without its zero-lag part",
+    "wpli": "weighted phase-lag index (Vinck et al. 2011)",
+    "wpli2_debiased": "debiased squared weighted phase-lag index (Vinck et al. 2011); can be "
+                      "below 0",
+    "lps": "lagged phase synchronisation (Pascual-Marqui 2011)",
+    "phase_deg": "mean phase difference; positive: the first site or ROI leads",
+    "lag_ms": "time lag from the phase per frequency bin; positive: the first site or ROI leads",
+    "phase_sd_deg": "circular standard deviation of the per-epoch phase differences",
+    "asymmetry": "(A - B)/(A + B) of absolute band power: left - right for homologous pairs, "
+                 "anterior - posterior for anterior-posterior pairs",
+    "aec_orth": "orthogonalised amplitude-envelope correlation (Hipp et al. 2012)",
+}
+
 #: What each column of :func:`pair_table` holds (for the report's and the README's notes).
 PAIR_COLUMN_NOTES = {
     "pair": "'A-B', the two sites in canonical 10-20 order (homologous: left first; "
             "anterior-posterior: anterior first)",
+    "channel_a": "first site (A) of the pair", "channel_b": "second site (B) of the pair",
+    "unit": "unit or range of value",
     "band": "frequency band", "measure": "coupling measure (see unit)",
     "value": "estimate from all clean epochs, average reference",
     "value_lo": "lower end of the bootstrap interval over epochs",
@@ -228,14 +248,14 @@ def sensor_coupling(spectra: np.ndarray, freqs: np.ndarray, bands: Bands, ch_nam
     intervals = {}
     if n_boot:
         intervals = bootstrap_intervals(ps, band_idx, est, n_boot=n_boot, seed=seed, ci=ci)
-        from .measures import bootstrap_weights
+        from .measures import _quantile, bootstrap_weights
 
         w = bootstrap_weights(n_ep, n_boot=n_boot, seed=seed)
         rep = np.einsum("re,ebc->rbc", w, bp)
         q = [(1.0 - ci) / 2.0, (1.0 + ci) / 2.0]
         for key, sub in (("homologous", ps_sets.homologous),
                          ("anterior_posterior", ps_sets.anterior_posterior)):
-            lo, hi = np.quantile(asymmetry(rep, sub), q, axis=0)
+            lo, hi = _quantile(asymmetry(rep, sub), q)
             intervals["asymmetry_" + key] = (lo, hi)
     pos = np.asarray(ch_pos, dtype=float)
     dist = np.linalg.norm(pos[ps_sets.all[:, 0]] - pos[ps_sets.all[:, 1]], axis=1) * 1e3

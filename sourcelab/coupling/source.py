@@ -75,7 +75,7 @@ if TYPE_CHECKING:  # pandas is imported where tables are built
 from ..config import Bands
 from ..errors import InputError
 from ..spectra import band_bin_indices
-from .measures import (LAGGED_MEASURES, bootstrap_intervals, bootstrap_weights,
+from .measures import (LAGGED_MEASURES, _quantile, bootstrap_intervals, bootstrap_weights,
                        conjugation_null, coupling_from_statistics, pair_statistics_from_fourier)
 from .sensor import MEASURE_UNITS, _boolean, leakage_arrays, msc_from_covariance
 
@@ -91,6 +91,9 @@ EDGE_COLUMNS = ("atlas", "edge", "roi_a", "hemisphere_a", "roi_b", "hemisphere_b
 #: What each column of :func:`coupling_table` holds.
 EDGE_COLUMN_NOTES = {
     "atlas": "atlas of the two ROIs", "edge": "'roi_a.hemisphere_a|roi_b.hemisphere_b'",
+    "roi_a": "first ROI (a) of the edge", "hemisphere_a": "hemisphere of ROI a",
+    "roi_b": "second ROI (b) of the edge", "hemisphere_b": "hemisphere of ROI b",
+    "unit": "unit or range of value",
     "band": "frequency band", "measure": "coupling measure (see unit)",
     "value": "estimate from all clean epochs",
     "value_lo": "lower end of the bootstrap interval over epochs",
@@ -342,12 +345,17 @@ def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
     so = np.empty((n_ep, n, n))
     soo = np.empty((n_ep, n, n))
     soy = np.empty((n_ep, n, n))
-    ar, ai = a.real, a.imag
-    for j in range(n):
-        o = np.abs(ai * unit[:, j:j + 1].real - ar * unit[:, j:j + 1].imag)  # (n_ep, n, M)
-        so[:, :, j] = o.sum(-1, dtype=float)
-        soo[:, :, j] = (o * o).sum(-1, dtype=float)
-        soy[:, :, j] = np.matmul(o, mag[:, j, :, None])[..., 0]
+    ar, ai, ur, ui = a.real, a.imag, unit.real, unit.imag
+    # all ordered pairs at once, a block of epochs at a time (the block's (e, i, j, M) array
+    # stays below ~8 MB); per-epoch sums of at most a few hundred samples are exact enough in
+    # the input precision, and epochs are pooled in float64
+    step = max(1, 2_000_000 // max(1, n * n * m))
+    for s in range(0, n_ep, step):
+        e = slice(s, s + step)
+        o = np.abs(ai[e, :, None, :] * ur[e, None, :, :] - ar[e, :, None, :] * ui[e, None, :, :])
+        so[e] = o.sum(-1)
+        soo[e] = np.einsum("eijm,eijm->eij", o, o)
+        soy[e] = np.einsum("eijm,ejm->eij", o, mag[e])
     return {"so": so, "soo": soo, "soy": soy, "sy": mag.sum(-1, dtype=float),
             "syy": (mag * mag).sum(-1, dtype=float), "m": m}
 
@@ -370,14 +378,14 @@ def aec_from_moments(mom: dict, weights: np.ndarray | None = None) -> np.ndarray
     -------
     ndarray, shape (n_rep, n_nodes, n_nodes); diagonal NaN
     """
-    n_ep = mom["so"].shape[0]
+    n_ep, n = mom["so"].shape[:2]
     w = np.full((1, n_ep), 1.0 / n_ep) if weights is None else np.asarray(weights, float)
-
-    def acc(x):
-        return np.tensordot(w, x, axes=(1, 0))
-
-    so, soo, soy = acc(mom["so"]), acc(mom["soo"]), acc(mom["soy"])
-    sy, syy = acc(mom["sy"])[:, None, :], acc(mom["syy"])[:, None, :]
+    # all five weighted sums in one matrix product
+    names = ("so", "soo", "soy", "sy", "syy")
+    stacked = np.concatenate([mom[k].reshape(n_ep, -1) for k in names], axis=1)
+    parts = np.split(w @ stacked, np.cumsum([n * n, n * n, n * n, n])[:4], axis=1)
+    so, soo, soy = (x.reshape(-1, n, n) for x in parts[:3])
+    sy, syy = parts[3][:, None, :], parts[4][:, None, :]
     m = float(mom["m"])
     cov = soy / m - (so / m) * (sy / m)
     vo = soo / m - (so / m) ** 2
@@ -525,7 +533,7 @@ def edge_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.nda
             se[b] = aec_block_se(mom)[iu, ju]
             if wb is not None:
                 reps = aec_from_moments(mom, wb)[:, iu, ju]
-                lo[b], hi[b] = np.quantile(reps, [(1 - ci) / 2, (1 + ci) / 2], axis=0)
+                lo[b], hi[b] = _quantile(reps, [(1 - ci) / 2, (1 + ci) / 2])
         values["aec_orth"] = aec
         null["aec_orth"] = (np.zeros_like(aec), 1.959963984540054 * se)
         if wb is not None:

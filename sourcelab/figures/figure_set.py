@@ -5,7 +5,11 @@ Keys (``<band>`` from the result's bands, ``<measure>`` in ``absolute``/``relati
 * ``glass/<band>/<measure>`` and ``surface/<band>/<measure>``: source power;
 * ``glass-z/<band>/<measure>``: ROI z painted on sources (needs z and an atlas loader);
 * ``topomap/<measure>`` and ``topomap-z/<measure>``: sensor power and z, all bands;
-* ``roi-bars/<band>/<measure>``, ``roi-heatmap/<measure>``, ``networks/<measure>``: ROI charts.
+* ``roi-bars/<band>/<measure>``, ``roi-heatmap/<measure>``, ``networks/<measure>``: ROI charts;
+* ``pairs/<band>/<measure>``: electrode pairs deviating from the norm on a head (needs z;
+  ``<measure>`` from ``pair_measures``);
+* ``coupling/<measure>``: ROI-by-ROI matrices of network coupling, one panel per band (z with
+  norms, values without; ``<measure>`` from ``edge_measures``).
 """
 
 from __future__ import annotations
@@ -17,13 +21,18 @@ import matplotlib.pyplot as plt
 import numpy as np
 
 from ..errors import InputError
-from . import brain, roi, sensor
-from .colours import Z_LIMIT, power_scale, z_scale
+from . import brain, coupling, roi, sensor
+from .colours import Z_LIMIT, Z_THRESHOLD, power_scale, z_scale
 from .geometry import atlas_labels  # noqa: F401  (re-exported)
 
 logger = logging.getLogger("sourcelab")
 
 MEASURES = ("absolute", "relative")
+#: Pair measures drawn on head maps by default: coherence, its lag-only part (blind to volume
+#: conduction), and power asymmetry.
+PAIR_FIGURE_MEASURES = ("msc", "lagcoh", "asymmetry")
+#: Edge measures drawn as ROI matrices by default: the two that zero-lag leakage cannot create.
+EDGE_FIGURE_MEASURES = ("lagcoh", "aec_orth")
 
 
 def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
@@ -51,7 +60,8 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
                    network_atlas: str | None = None, z_map_atlas: str | None = "brodmann",
                    outline=None, display_mode: str = "lyrz", resolution: int = 2,
                    surfaces: bool = True, dpi: int = 90, as_png: bool = False,
-                   n_jobs: int = 1) -> dict:
+                   n_jobs: int = 1, pair_measures=PAIR_FIGURE_MEASURES,
+                   edge_measures=EDGE_FIGURE_MEASURES, coupling_atlas: str | None = None) -> dict:
     """Make every figure of a result.
 
     Parameters
@@ -88,6 +98,12 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
     n_jobs : int
         Worker processes drawing figures (PNG output only; forked, so caches are shared).
         1 draws in this process.
+    pair_measures : sequence of str
+        Pair measures with a head map per band (``pairs/<band>/<measure>``; only with z).
+    edge_measures : sequence of str
+        Edge measures with an ROI matrix (``coupling/<measure>``).
+    coupling_atlas : str | None
+        Atlas of the ROI matrices (default ``networks`` when coupled, else the first).
 
     Returns
     -------
@@ -165,12 +181,41 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
         if net is not None:
             keep(f"networks/{measure}", roi.network_chart, rt, atlas=net, measure=measure,
                  bands=bands, scale=zs, dpi=dpi)
+    _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measures,
+                      coupling_atlas, z_threshold)
     leak = getattr(result, "leakage", None)
     if leak is not None:
         from ..trust import plot_leakage
 
         keep("leakage", plot_leakage, leak)
     return _run(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+
+
+def _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measures, atlas,
+                      z_threshold) -> None:
+    """Queue the pair head maps and the ROI coupling matrices."""
+    labels = {b: f"{b} ({_edges(result, b)})" for b in result.bands.names}
+    pt = getattr(result, "pair_table", None)
+    if pt is not None and len(pt) and _has_z(pt):
+        have = set(pt["measure"])
+        for m in pair_measures:
+            if m not in have:
+                raise ValueError(f"pair_measures: {m!r} not in the pair table ({sorted(have)})")
+            for band in per_band:
+                keep(f"pairs/{band}/{m}", coupling.pair_head_map, pt, band=band, measure=m,
+                     scale=zs, band_label=labels[band], dpi=dpi,
+                     z_threshold=z_threshold or Z_THRESHOLD)
+    ct = getattr(result, "coupling_table", None)
+    if ct is not None and len(ct):
+        have = set(ct["measure"])
+        for m in edge_measures:
+            if m not in have:
+                raise ValueError(f"edge_measures: {m!r} not in the coupling table "
+                                 f"({sorted(have)})")
+            keep(f"coupling/{m}", coupling.coupling_matrix, ct, measure=m, atlas=atlas,
+                 bands=list(result.bands.names), band_labels=labels,
+                 scale=zs if _has_z(ct) else None, dpi=dpi,
+                 z_threshold=z_threshold or Z_THRESHOLD)
 
 
 def _render(func, args, kwargs, dpi):

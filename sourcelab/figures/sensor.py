@@ -9,7 +9,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from ..constants import SITES_1020
-from .colours import ColourScale, add_colourbar, masked
+from .colours import add_colourbar, masked
 
 
 @functools.lru_cache(maxsize=4)

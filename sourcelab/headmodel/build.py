@@ -254,7 +254,6 @@ def build_head_model(out_path, *, ico: int = 4, update_manifest: bool | None = N
     """
     from ..data import DATA_DIR
     from ..data import update_manifest as _update_manifest
-    from .ingredients import read_fsaverage5
 
     out_path = Path(out_path)
     if ico not in (2, 3, 4, 5):

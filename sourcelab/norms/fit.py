@@ -2,13 +2,18 @@
 
 Rules (documented in FORMAT.md):
 
-* every quantity (ROI or channel x band x measure) is transformed (log10 absolute, logit
-  relative) and modelled separately;
+* every quantity (ROI, channel, electrode pair or network edge x band x measure) is transformed
+  (log10 absolute, logit relative; coupling measures: :data:`~sourcelab.norms.coupling.
+  TRANSFORM_FOR_COUPLING`) and modelled separately; circular quantities (phase angles) are
+  modelled as deviations from the cohort's circular mean direction, which is added back to
+  ``b0``;
 * ``model="regression"``: polynomial in log10(age) over the cohort's age range; the degree is
   chosen once for all quantities by leave-one-out cross-validation (``degree="auto"``, 0..3) or
   fixed by the caller;
 * ``model="binned"``: mean and SD per age bin (bins given, or equal-count bins);
-* ``robust=True``: controls more than 3.5 robust SDs (1.4826 x MAD) from the fit are excluded from
+* ``robust=True``: except for the phase, lag and envelope correlation of pairs and edges
+  (:data:`~sourcelab.norms.coupling.UNTRIMMED_MEASURES`), controls more than 3.5 robust SDs
+  (1.4826 x MAD) from the fit are excluded from
   that quantity, iteratively (see :func:`sourcelab.norms.models.fit_poly`).
 """
 
@@ -17,7 +22,6 @@ from __future__ import annotations
 import logging
 import math
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Iterable, Sequence
 
 import numpy as np
@@ -25,6 +29,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..provenance import Fingerprint
+from .coupling import COUPLING_KINDS, UNTRIMMED_MEASURES, transform_for_coupling
 from .io import COLUMNS, MAX_DEGREE, NA, QUANTITY_COLUMNS, Norms
 from .models import fit_poly, select_degree
 from .predictive import pack_v, xtx_inverse
@@ -32,8 +37,22 @@ from .transforms import get_transform, transform_for_measure
 
 log = logging.getLogger("sourcelab")
 
-_ROI_NEED = ("atlas", "roi", "hemisphere", "band", "measure", "value")
-_SENSOR_NEED = ("channel", "band", "measure", "value")
+#: Columns each kind's analysis table needs, and the columns naming its (atlas, name,
+#: hemisphere); None: "n/a".
+_NEED = {"roi": (("atlas", "roi", "hemisphere"), ("atlas", "roi", "hemisphere")),
+         "sensor": (("channel",), (None, "channel", None)),
+         "pair": (("pair",), (None, "pair", None)),
+         "edge": (("atlas", "edge"), ("atlas", "edge", None))}
+#: Order of the tables in a cohort entry after (participant_id, age).
+ENTRY_KINDS = ("roi", "sensor", "pair", "edge")
+
+
+def transform_for(kind: str, measure: str) -> str:
+    """The transform norms use for ``measure`` of a ``kind`` (``roi``/``sensor``: band power;
+    ``pair``/``edge``: coupling measures)."""
+    if kind in ("pair", "edge"):
+        return transform_for_coupling(measure)
+    return transform_for_measure(measure)
 
 
 @dataclass(frozen=True, eq=False)
@@ -49,7 +68,8 @@ class NormsFit:
         One row per modelled quantity (columns kind, atlas, name, hemisphere, band, measure,
         transform); column j of the matrices below.
     values : ndarray, shape (n, q)
-        Transformed values (NaN where missing).
+        Transformed values (NaN where missing); for circular quantities the wrapped deviation
+        from the cohort's circular mean direction.
     resid : ndarray, shape (n, q)
         Residual from the norms row the control belongs to (NaN where missing/not covered).
     loo_z : ndarray, shape (n, q)
@@ -77,17 +97,44 @@ class NormsFit:
     degree_scores: dict
 
 
+def clean_epochs_summary(counts) -> dict:
+    """``{"median", "min", "max"}`` of the cohort's clean epochs per participant (recorded in the
+    norms' cohort header: coupling magnitudes depend on the number of epochs)."""
+    c = np.asarray(list(counts), dtype=float)
+    return {"median": float(np.median(c)), "min": int(c.min()), "max": int(c.max())}
+
+
+def slim_table(table: pd.DataFrame | None, kind: str) -> pd.DataFrame | None:
+    """Only the columns norm fitting reads, text as categories (a cohort's coupling tables hold
+    thousands of rows per participant; this keeps them ~10 times smaller in memory).
+
+    Parameters
+    ----------
+    table : DataFrame or None
+        An analysis table of ``kind`` (``roi``, ``sensor``, ``pair`` or ``edge``).
+    kind : str
+
+    Returns
+    -------
+    DataFrame or None
+    """
+    if table is None:
+        return None
+    need, _ = _NEED[kind]
+    cols = [c for c in need + ("band", "measure", "value") if c in table.columns]
+    out = table.loc[:, cols].copy()
+    for c in cols[:-1]:
+        out[c] = out[c].astype("category")
+    return out
+
+
 def _table_items(table: pd.DataFrame, kind: str, pid: str):
-    need = _ROI_NEED if kind == "roi" else _SENSOR_NEED
-    missing = [c for c in need if c not in table.columns]
+    need, cols = _NEED[kind]
+    missing = [c for c in need + ("band", "measure", "value") if c not in table.columns]
     if missing:
         raise InputError(f"participant {pid!r}: {kind} table lacks columns {missing}")
-    if kind == "roi":
-        atlas, name, hemi = (table[c].astype(str).tolist() for c in ("atlas", "roi",
-                                                                      "hemisphere"))
-    else:
-        name = table["channel"].astype(str).tolist()
-        atlas = hemi = [NA] * len(table)
+    atlas, name, hemi = (table[c].astype(str).tolist() if c else [NA] * len(table)
+                         for c in cols)
     bands = table["band"].astype(str).tolist()
     measures = table["measure"].astype(str).tolist()
     vals = pd.to_numeric(table["value"], errors="coerce").to_numpy(dtype=float)
@@ -99,8 +146,17 @@ def _table_items(table: pd.DataFrame, kind: str, pid: str):
     return out
 
 
-def entry_values(pid, age, roi_table, sensor_table) -> dict:
+def entry_values(pid, age, roi_table, sensor_table, pair_table=None,
+                 coupling_table=None) -> dict:
     """Check one cohort entry and return ``{quantity key: transformed value}``.
+
+    Parameters
+    ----------
+    pid : str
+    age : float
+        Years.
+    roi_table, sensor_table, pair_table, coupling_table : DataFrame or None
+        An analysis's tables (kinds ``roi``, ``sensor``, ``pair``, ``edge``); None skips one.
 
     Raises InputError naming the participant for a bad ID, age, table or value.
     """
@@ -114,18 +170,40 @@ def entry_values(pid, age, roi_table, sensor_table) -> dict:
     if not (math.isfinite(a) and a > 0):
         raise InputError(f"participant {pid!r}: age must be > 0 years, got {age!r}")
     items: dict = {}
-    for kind, t in (("roi", roi_table), ("sensor", sensor_table)):
+    tables = (roi_table, sensor_table, pair_table, coupling_table)
+    for kind, t in zip(ENTRY_KINDS, tables):
         if t is not None:
             items.update(_table_items(t, kind, pid))
     if not items:
-        raise InputError(f"participant {pid!r}: no roi or sensor rows")
-    out = {}
-    for key, v in items.items():
+        raise InputError(f"participant {pid!r}: no roi, sensor, pair or edge rows")
+    # transform per (kind, measure), vectorised: coupling tables hold thousands of rows
+    groups: dict = {}
+    for i, key in enumerate(items):
+        groups.setdefault((key[0], key[5]), []).append(i)
+    keys = list(items)
+    vals = np.fromiter(items.values(), dtype=float, count=len(items))
+    tv = np.empty(len(items))
+    for (kind, measure), idx in groups.items():
+        tr = get_transform(transform_for(kind, measure))
         try:
-            out[key] = float(get_transform(transform_for_measure(key[5])).forward(v))
+            tv[idx] = tr.forward(vals[idx])
         except InputError as exc:
-            raise InputError(f"participant {pid!r}, {key[1:]}: {exc}") from None
-    return out
+            if kind not in COUPLING_KINDS:
+                raise InputError(f"participant {pid!r}, {kind} {measure}: {exc}") from None
+            # a coupling value on the edge of its range (coherence 1 between bridged
+            # electrodes) is left out of the norms as missing, not fatal for the participant
+            tv[idx] = [_forward_or_nan(tr, v) for v in vals[idx]]
+            log.warning("participant %s: %d %s %s values on the edge of their range left out",
+                        pid, int(np.isnan(tv[idx]).sum() - np.isnan(vals[idx]).sum()), kind,
+                        measure)
+    return dict(zip(keys, tv.tolist()))
+
+
+def _forward_or_nan(transform, v: float) -> float:
+    try:
+        return float(transform.forward(np.array([v]))[0])
+    except InputError:
+        return float("nan")
 
 
 def _default_bins(ages: np.ndarray, min_n: int) -> tuple[float, ...]:
@@ -143,8 +221,9 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
 
     Parameters
     ----------
-    entries : iterable of (participant_id, age, roi_table, sensor_table)
-        Streamed once; only the small tables' values are kept.  Either table may be None.
+    entries : iterable of (participant_id, age, roi_table, sensor_table[, pair_table,
+        coupling_table])
+        Streamed once; only the tables' values are kept.  Any table may be None.
     fingerprint : Fingerprint
         The pipeline that produced the tables (stored in the norms).
     condition : str
@@ -158,7 +237,9 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
     min_n_per_bin : int
         Minimum kept controls per row (per bin for binned norms); rows with fewer are omitted.
     robust : bool
-        Iterative exclusion beyond 3.5 robust SDs (see :func:`~sourcelab.norms.models.fit_poly`).
+        Iterative exclusion beyond 3.5 robust SDs (see :func:`~sourcelab.norms.models.fit_poly`),
+        for every quantity but the phase, lag and envelope correlation of pairs and edges
+        (:data:`~sourcelab.norms.coupling.UNTRIMMED_MEASURES`).
     cohort_info : dict | None
         Extra JSON-serialisable cohort description merged into the summary (sex counts, source).
     notes : sequence of str
@@ -179,30 +260,47 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
     index: dict[tuple, int] = {}
     ids: list[str] = []
     ages: list[float] = []
-    per: list[dict[int, float]] = []
+    per: list[tuple[np.ndarray, np.ndarray]] = []   # (quantity indices, values) per person
     for entry in entries:
         try:
-            pid, age, roi_t, sen_t = entry
+            pid, age, *tables = entry
+            if not 2 <= len(tables) <= len(ENTRY_KINDS):
+                raise ValueError
         except (TypeError, ValueError):
             raise InputError("entries: each entry must be (participant_id, age, roi_table, "
-                             "sensor_table)") from None
-        vals = entry_values(pid, age, roi_t, sen_t)
+                             "sensor_table[, pair_table, coupling_table])") from None
+        vals = entry_values(pid, age, *tables)
         if pid in ids:
             raise InputError(f"participant {pid!r} appears twice")
         ids.append(pid)
         ages.append(float(age))
-        per.append({index.setdefault(k, len(index)): v for k, v in vals.items()})
+        per.append((np.fromiter((index.setdefault(k, len(index)) for k in vals),
+                                dtype=np.int64, count=len(vals)),
+                    np.fromiter(vals.values(), dtype=float, count=len(vals))))
     n, q = len(ids), len(index)
     if n < min_n_per_bin:
         raise InputError(f"need at least {min_n_per_bin} analysed participants (the minimum per "
                          f"norms row), got {n}")
     age = np.asarray(ages)
     Y = np.full((n, q), np.nan)
-    for i, d in enumerate(per):
-        Y[i, list(d)] = list(d.values())
+    for i, (cols, v) in enumerate(per):
+        Y[i, cols] = v
     keys = list(index)
     qt = pd.DataFrame(keys, columns=list(QUANTITY_COLUMNS))
-    qt["transform"] = [transform_for_measure(m) for m in qt["measure"]]
+    qt["transform"] = [transform_for(k, m) for k, m in zip(qt["kind"], qt["measure"])]
+    untrimmed = np.array([k in COUPLING_KINDS and m in UNTRIMMED_MEASURES
+                          for k, m in zip(qt["kind"], qt["measure"])], dtype=bool)
+    # circular quantities: model the deviation from the cohort's circular mean direction
+    # (wrapped into one period); the direction is added back to b0 below
+    offset = np.zeros(q)
+    for j, name in enumerate(qt["transform"]):
+        tr = get_transform(name)
+        if tr.period is not None:
+            col = Y[:, j]
+            ang = 2.0 * np.pi * col[np.isfinite(col)] / tr.period
+            if ang.size:
+                offset[j] = tr.period * np.angle(np.mean(np.exp(1j * ang))) / (2.0 * np.pi)
+            Y[:, j] = tr.difference(col, offset[j])
 
     scores: dict = {}
     if model == "regression":
@@ -231,13 +329,15 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
                         int(inb.sum()), min_n_per_bin)
             continue
         for j in range(q):
-            f = fit_poly(age[inb], Y[inb, j], deg, robust=robust)
+            f = fit_poly(age[inb], Y[inb, j], deg, robust=robust and not untrimmed[j])
             if f is None or f.n < min_n_per_bin or not f.sd > 0:
                 skipped += 1
                 continue
             coef = np.zeros(MAX_DEGREE + 1)
             coef[:deg + 1] = f.coef
             v = pack_v(xtx_inverse(age[inb][f.kept], deg))  # the controls this row kept
+            if offset[j]:
+                coef[0] = get_transform(qt["transform"][j]).difference(coef[0] + offset[j], 0.0)
             rows.append((*keys[j], lo, hi, model, deg, qt["transform"][j], *coef, f.sd, f.n,
                          f.n - deg - 1, *v))
             row_q.append(j)

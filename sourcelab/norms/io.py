@@ -34,6 +34,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..provenance import Fingerprint, atomic_write_text, sha256_file
+from .coupling import TRANSFORM_FOR_COUPLING
 from .transforms import TRANSFORM_FOR_MEASURE, TRANSFORMS
 
 FORMAT_NAME = "sourcelab-norms"
@@ -43,7 +44,10 @@ MAX_DEGREE = 3
 #: Placeholder for "does not apply" (BIDS convention), used for atlas/hemisphere of sensor rows.
 NA = "n/a"
 
-KINDS = ("roi", "sensor")
+KINDS = ("roi", "sensor", "pair", "edge")
+#: Measures allowed per kind (band power for ROIs and sensors; coupling for pairs and edges).
+KIND_MEASURES = {"roi": tuple(TRANSFORM_FOR_MEASURE), "sensor": tuple(TRANSFORM_FOR_MEASURE),
+                 "pair": tuple(TRANSFORM_FOR_COUPLING), "edge": tuple(TRANSFORM_FOR_COUPLING)}
 MODELS = ("binned", "regression")
 #: Columns identifying a row's quantity (without the age range).
 QUANTITY_COLUMNS = ("kind", "atlas", "name", "hemisphere", "band", "measure")
@@ -191,10 +195,13 @@ def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None 
             t[c] = arr.astype(np.int64)
         else:
             t[c] = arr
+    kind_ok = t["kind"].isin(KINDS)
+    measure_ok = pd.Series([m in KIND_MEASURES.get(k, ()) for k, m in
+                            zip(t["kind"].tolist(), t["measure"].tolist())], index=t.index)
     checks = [
-        (~t["kind"].isin(KINDS), f"kind must be one of {list(KINDS)}"),
-        (~t["measure"].isin(tuple(TRANSFORM_FOR_MEASURE)),
-         f"measure must be one of {sorted(TRANSFORM_FOR_MEASURE)}"),
+        (~kind_ok, f"kind must be one of {list(KINDS)}"),
+        (~measure_ok, "measure must be one of "
+         + "; ".join(f"{k}: {sorted(set(v))}" for k, v in KIND_MEASURES.items())),
         (~t["transform"].isin(tuple(TRANSFORMS)),
          f"unknown transform; allowed: {sorted(TRANSFORMS)}"),
         (~t["model"].isin(MODELS), f"model must be one of {list(MODELS)}"),
@@ -208,6 +215,10 @@ def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None 
          "regression rows need age_min > 0 (the model uses log10 age)"),
         ((t["kind"] == "sensor") & ((t["atlas"] != NA) | (t["hemisphere"] != NA)),
          f"sensor rows must have atlas and hemisphere {NA!r}"),
+        ((t["kind"] == "pair") & ((t["atlas"] != NA) | (t["hemisphere"] != NA)),
+         f"pair rows must have atlas and hemisphere {NA!r}"),
+        ((t["kind"] == "edge") & ((t["atlas"] == NA) | (t["hemisphere"] != NA)),
+         f"edge rows must name their atlas and have hemisphere {NA!r}"),
     ]
     deg = t["degree"].to_numpy()
     for k, c in enumerate(COEF_COLUMNS):
@@ -450,11 +461,12 @@ def check_norms(path: str | Path) -> str:
     problems = 0
     for kind, g in t.groupby("kind"):
         bands = sorted(set(g["band"]), key=lambda b: fp_bands.index(b) if b in fp_bands else 99)
-        if kind == "roi":
+        if kind in ("roi", "edge"):
             n_roi = g[["atlas", "name", "hemisphere"]].drop_duplicates().groupby("atlas").size()
-            where = ", ".join(f"{a}: {c} ROIs" for a, c in n_roi.items())
+            noun = "ROIs" if kind == "roi" else "edges"
+            where = ", ".join(f"{a}: {c} {noun}" for a, c in n_roi.items())
         else:
-            where = f"{g['name'].nunique()} channels"
+            where = f"{g['name'].nunique()} {'channels' if kind == 'sensor' else 'pairs'}"
         lines.append(f"{kind}: {where}; bands {bands}; measures {sorted(set(g['measure']))}; "
                      f"ages {g['age_min'].min():g}-{g['age_max'].max():g} y")
         missing_bands = sorted(set(fp_bands) - set(g["band"]))

@@ -88,14 +88,33 @@ def _tanh_ssq(y: np.ndarray) -> np.ndarray:
     return np.sign(t) * t * t
 
 
+def _circular_deg(x: np.ndarray) -> np.ndarray:
+    """Angles in degrees, wrapped into [-180, 180)."""
+    x = np.asarray(x, dtype=float)
+    return (x + 180.0) % 360.0 - 180.0
+
+
 @dataclass(frozen=True)
 class Transform:
-    """A normalising transform and its inverse (both elementwise, NaN passes through)."""
+    """A normalising transform and its inverse (both elementwise, NaN passes through).
+
+    ``period`` marks a circular scale (angles): differences from a norm mean are wrapped into
+    ``[-period/2, period/2)`` before dividing by the SD, and norms are fitted to deviations
+    from the cohort's circular mean direction.
+    """
 
     name: str
     forward: Callable[[np.ndarray], np.ndarray]
     inverse: Callable[[np.ndarray], np.ndarray]
     domain: str
+    period: float | None = None
+
+    def difference(self, t, mean) -> np.ndarray:
+        """``t - mean`` on the transformed scale (wrapped for a circular scale)."""
+        d = np.asarray(t, dtype=float) - np.asarray(mean, dtype=float)
+        if self.period is not None:
+            d = (d + self.period / 2.0) % self.period - self.period / 2.0
+        return d
 
 
 #: The transforms a norms file may name.
@@ -107,6 +126,9 @@ TRANSFORMS: dict[str, Transform] = {
     "fisher": Transform("fisher", _fisher, np.tanh, "(-1, 1)"),
     "fisher_sqrt": Transform("fisher_sqrt", _fisher_sqrt, _tanh_sq, "[0, 1)"),
     "fisher_ssqrt": Transform("fisher_ssqrt", _fisher_ssqrt, _tanh_ssq, "(-1, 1)"),
+    # phase angles in degrees: circular differences (period 360)
+    "circular_deg": Transform("circular_deg", _circular_deg, _circular_deg, "angle (degrees)",
+                              period=360.0),
 }
 
 #: The transform used for each measure when norms are built.

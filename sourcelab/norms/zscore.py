@@ -30,6 +30,8 @@ log = logging.getLogger("sourcelab")
 _KIND_COLUMNS = {
     "roi": {"atlas": "atlas", "name": "roi", "hemisphere": "hemisphere"},
     "sensor": {"name": "channel"},
+    "pair": {"name": "pair"},                       # coupling pair_table (sourcelab.coupling)
+    "edge": {"atlas": "atlas", "name": "edge"},     # coupling coupling_table
 }
 #: Columns added by :func:`apply_norms`.
 ADDED_COLUMNS = ("z_equivalent", "p", "fdr_q", "fdr", "norm_n", "no_norm", "extrapolated",
@@ -151,6 +153,7 @@ def zscore(values, mean, sd, transform) -> np.ndarray:
         Norm mean and SD on the transformed scale; NaN gives NaN.
     transform : str or array of str, shape (m,)
         Transform names (:data:`~sourcelab.norms.transforms.TRANSFORMS`); ``""`` gives NaN.
+        For a circular transform (phase angles) the difference is wrapped into one period.
 
     Returns
     -------
@@ -158,11 +161,13 @@ def zscore(values, mean, sd, transform) -> np.ndarray:
     """
     values = np.asarray(values, dtype=float)
     trans = np.broadcast_to(np.asarray(transform, dtype=object), values.shape)
-    tv = np.full(values.shape, np.nan)
+    mean = np.broadcast_to(np.asarray(mean, dtype=float), values.shape)
+    diff = np.full(values.shape, np.nan)
     for name in set(trans.tolist()) - {""}:
         sel = trans == name
-        tv[sel] = get_transform(name).forward(values[sel])
-    return (tv - np.asarray(mean, dtype=float)) / np.asarray(sd, dtype=float)
+        tr = get_transform(name)
+        diff[sel] = tr.difference(tr.forward(values[sel]), mean[sel])
+    return diff / np.asarray(sd, dtype=float)
 
 
 def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: Fingerprint,
@@ -173,8 +178,10 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
     Parameters
     ----------
     table : DataFrame
-        An analysis ``roi_table`` (``kind="roi"``: atlas, roi, hemisphere, band, measure) or
-        ``sensor_table`` (``kind="sensor"``: channel, band, measure).
+        An analysis ``roi_table`` (``kind="roi"``: atlas, roi, hemisphere, band, measure),
+        ``sensor_table`` (``kind="sensor"``: channel, band, measure), ``pair_table``
+        (``kind="pair"``: pair, band, measure) or ``coupling_table`` (``kind="edge"``: atlas,
+        edge, band, measure).
     norms : Norms
     age : float
         Participant's age in years (> 0).
@@ -188,7 +195,7 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
         flag the row ``extrapolated`` instead of raising.
     allow_condition_mismatch : bool
         Match anyway when conditions differ; rows are flagged ``condition_mismatch``.
-    kind : {"roi", "sensor"}
+    kind : {"roi", "sensor", "pair", "edge"}
 
     Returns
     -------

@@ -51,9 +51,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputError
-from ..trust.probability import (FEATURES, MODEL_FILE, area_features, named_area,
-                                 predict_logistic, shipped_model)
+from ..trust.probability import FEATURES, area_features, named_area
 
 #: Between-person SD of the global background scale, natural-log units (≈ 0.2 log10).
 #: Adult between-person SD of log10 absolute band power is about 0.2-0.3 (from memory; cf.

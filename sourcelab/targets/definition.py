@@ -199,6 +199,7 @@ class TargetDefinition:
         lo, hi = self.band_edges
         return {
             "schema": SCHEMA,
+            "kind": "area",
             "name": self.name,
             "created_utc": self.created_utc,
             "channels": list(self.channels),
@@ -237,8 +238,8 @@ class TargetDefinition:
         return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
 
 
-def write_target(target: TargetDefinition, path: str | Path) -> Path:
-    """Write ``target`` as JSON (atomically)."""
+def write_target(target, path: str | Path) -> Path:
+    """Write ``target`` (area, pair or edge) as JSON (atomically)."""
     path = Path(path)
     if path.suffix.lower() != ".json":
         raise InputError("a target file must end in .json", path=path)
@@ -278,6 +279,11 @@ def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = No
         sourcelab's ``PIPELINE_VERSION``.
     check_fingerprint : bool
 
+    Returns
+    -------
+    TargetDefinition | sourcelab.targets.coupling.CouplingTarget
+        ``"kind"`` ``"area"`` (the default when absent) or ``"pair"`` / ``"edge"``.
+
     Raises
     ------
     InputError
@@ -289,6 +295,14 @@ def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = No
     if not isinstance(d, dict) or d.get("schema") != SCHEMA:
         got = d.get("schema") if isinstance(d, dict) else type(d).__name__
         raise bad(f"not a sourcelab target: schema {got!r}, expected {SCHEMA!r}")
+    kind = d.get("kind", "area")  # files written before kinds existed are area targets
+    if kind in ("pair", "edge"):
+        from .coupling import coupling_target_from_dict
+
+        return coupling_target_from_dict(d, path=path, current=current,
+                                         check_fingerprint=check_fingerprint)
+    if kind != "area":
+        raise bad(f"kind {kind!r} is not one of area, pair, edge")
     try:
         channels = tuple(str(c) for c in d["channels"])
         if channels != SITES_1020:
@@ -397,10 +411,15 @@ def _check_values(target: TargetDefinition, d: dict, band: dict, path) -> None:
 
 
 def read_target(path: str | Path, *, current: Fingerprint | None = None,
-                check_fingerprint: bool = True) -> TargetDefinition:
-    """Read and validate a ``sourcelab-target/1`` JSON file (see :func:`target_from_dict`)."""
-    from ..checks import load_json
+                check_fingerprint: bool = True):
+    """Read and validate a ``sourcelab-target/1`` JSON file (see :func:`target_from_dict`).
 
+    Returns
+    -------
+    TargetDefinition | sourcelab.targets.coupling.CouplingTarget
+        An area target, or a pair / edge target (``"kind"`` in the file).
+    """
+    from ..checks import load_json
     path = Path(path)
     d = load_json(path, max_bytes=TARGET_MAX_BYTES, what="target file")  # bounded, finite
     return target_from_dict(d, path=path, current=current, check_fingerprint=check_fingerprint)

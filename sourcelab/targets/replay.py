@@ -374,7 +374,10 @@ def replay_recording(target: TargetDefinition, recording, out: str | Path) -> di
     """
     from ..intake import Recording, read_recording
     from ..provenance import atomic_output_dir, dumps_json
+    from .coupling import CouplingTarget, replay_coupling_recording
 
+    if isinstance(target, CouplingTarget):  # a pair or edge target
+        return replay_coupling_recording(target, recording, out)
     rec = recording if isinstance(recording, Recording) else read_recording(recording)
     raw = rec.raw
     if tuple(raw.ch_names) != tuple(target.channels):
