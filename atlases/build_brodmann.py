@@ -49,7 +49,8 @@ from scipy import sparse
 from scipy.sparse.csgraph import dijkstra
 from scipy.spatial import cKDTree
 
-from sourcelab.rois._geometry import N_PER_HEMI, mni305_to_mni152, template_surface
+from sourcelab.headmodel.geometry import mni305_to_mni152
+from sourcelab.headmodel.model import N_PER_HEMI
 
 from ._buildtools import (HERE, fetch_wheel_members, update_manifest, write_npz_deterministic,
                           write_text)
@@ -64,6 +65,13 @@ MRICRON = Path("/usr/share/mricron/templates/brodmann.nii.gz")
 #: registration mismatch between fsaverage and the Talairach volume (94% of vertices within 5 mm).
 RADIUS_MM = 5.0
 OUT = HERE / "brodmann_fsaverage5.npz"
+
+
+def _template_surface():
+    """The fsaverage5 meshes the shipped head model carries (all 20,484 vertices)."""
+    from sourcelab.headmodel import load_head_model
+
+    return load_head_model().surface
 REPORT = HERE / "brodmann_build_report.json"
 
 
@@ -138,7 +146,7 @@ def map_volume_to_surface(xyz: np.ndarray, area: np.ndarray, medial_wall: np.nda
     dist : ndarray, shape (20484,)
         Distance to the nearest labelled voxel, mm.
     """
-    surf = template_surface()
+    surf = _template_surface()
     p152 = mni305_to_mni152(surf.mid)
     near, dist, inside = _nearest_per_hemi(p152, xyz, area)
     how = np.full(near.shape, 4, dtype=np.int8)
