@@ -179,8 +179,9 @@ def test_gain_physics(model):
 
 def test_gain_close_to_fitted_sphere_model(model):
     # Reference: MNE's 3-shell sphere fitted to the electrodes.  Realistic and spherical head
-    # models differ by RDM ~0.1-0.3 for cortical sources (Vatta et al. 2010, Comput Intell
-    # Neurosci 2010:972060 -- from memory); measured here: median RDM 0.13, MAG 1.10.
+    # models differ by RDM ~0.1-0.3 and by MAG up to ~30 % for cortical sources (Vatta et al.
+    # 2010, Comput Intell Neurosci 2010:972060 -- from memory): the bounds are that range, not
+    # today's values (median RDM 0.13, MAG 1.10).
     info = make_info(250.0)
     sphere = mne.make_sphere_model("auto", "auto", info, verbose="error")
     idx = np.arange(0, model.n_src, 40)
@@ -191,8 +192,8 @@ def test_gain_close_to_fitted_sphere_model(model):
     ref = fwd["sol"]["data"]
     ours = model.gain.reshape(19, -1, 3)[:, idx].reshape(19, -1)
     rdm, mag = rdm_mag(ours - ours.mean(0), ref - ref.mean(0))
-    assert np.median(rdm) < 0.25
-    assert 0.75 < np.median(mag) < 1.35
+    assert np.median(rdm) < 0.3
+    assert 0.7 < np.median(mag) < 1.3
 
 
 # ----------------------------------------------------------------------------- loader errors
