@@ -12,6 +12,15 @@ import numpy as np  # noqa: E402
 import pytest  # noqa: E402
 
 
+@pytest.fixture(autouse=True)
+def _close_figures():
+    """Close every pyplot figure a test opened (figures are returned open, as users get them)."""
+    yield
+    import matplotlib.pyplot as plt
+
+    plt.close("all")
+
+
 @pytest.fixture
 def rng():
     """A seeded random generator (each test gets the same stream)."""

@@ -213,6 +213,7 @@ def test_result_figures_keys(result, plain_result):
                    "networks/absolute"})
     assert set(figs) == expected | {"leakage"} | _coupling_keys(result, names)
     assert all(isinstance(v, Figure) for v in figs.values())  # notebook users see figures
+    plt.close("all")  # open figures are the caller's to close (more than 20 trips a warning)
     png = result_figures(result, surfaces=False, measures=("absolute",), resolution=3,
                          z_map_atlas=None, bands=("alpha",), as_png=True)
     assert all(v.startswith(b"\x89PNG") for v in png.values())
