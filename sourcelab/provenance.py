@@ -44,6 +44,7 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 
 from . import PIPELINE_VERSION, __version__
+from .checks import check_option
 from .errors import InputError
 
 log = logging.getLogger("sourcelab")
@@ -423,8 +424,7 @@ def check_output_dir(out, *, kind: str = "analysis", inputs=(), name: str = "--o
     InputError
         One line naming ``out`` and the problem.
     """
-    if kind not in KINDS:
-        raise ValueError(f"kind: {kind!r} is not one of {sorted(KINDS)}")
+    check_option("kind", kind, sorted(KINDS))
     out = _refuse_special(out, name)
     shown = out
     try:
@@ -962,8 +962,7 @@ def recognise_output_file(path: str | Path, kind: str) -> bool:
     ``calibration``: the calibration report header; ``stream-log``: the header of a
     ``targets stream --log`` file.
     """
-    if kind not in _FILE_KINDS:
-        raise ValueError(f"kind: {kind!r} is not one of {_FILE_KINDS}")
+    check_option("kind", kind, _FILE_KINDS)
     try:
         fd = os.open(path, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0))
     except OSError:

@@ -40,6 +40,7 @@ import mne
 import nibabel as nib
 import numpy as np
 
+from ..checks import check_option
 from ..constants import SITES_1020
 from ..provenance import sha256_file
 from .ingredients import (fsaverage5_source_space, inner_skull_ico, mne_fsaverage_dir,
@@ -256,8 +257,7 @@ def build_head_model(out_path, *, ico: int = 4, update_manifest: bool | None = N
     from ..data import update_manifest as _update_manifest
 
     out_path = Path(out_path)
-    if ico not in (2, 3, 4, 5):
-        raise ValueError(f"ico must be one of 2, 3, 4, 5, got {ico!r}")
+    check_option("ico", ico, (2, 3, 4, 5))
     t0 = time.perf_counter()
     layers = three_layer_meshes(ico=ico)
     logger.info("BEM layers: %d vertices each, min gaps %s", len(layers["tris"]) // 2 + 2,

@@ -40,6 +40,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..checks import check_option
+from ..errors import InputError
+
 logger = logging.getLogger("sourcelab")
 _FIT_LOCK = threading.Lock()
 
@@ -225,13 +228,12 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
     data = np.asarray(data_uv, float)
     n_ch, n_t = data.shape
     mask = np.ones(n_t, bool) if fit_mask is None else np.asarray(fit_mask, bool)
-    if method not in ("auto", "ica", "regression", "off"):
-        raise ValueError(f"method: {method!r} is not one of auto, ica, regression, off")
+    check_option("method", method, ("auto", "ica", "regression", "off"))
     if method == "off":
         return OcularCorrection("off", data)
     if method == "regression" or (method == "auto" and eog_uv is not None and len(eog_uv)):
         if eog_uv is None or not len(eog_uv):
-            raise ValueError("method='regression' needs EOG channels (eog_uv)")
+            raise InputError("method: 'regression' needs EOG channels (eog_uv)", field="method")
         return _regress(data, np.asarray(eog_uv, float), mask, sfreq, t0)
     names = list(ch_names)
     missing = [s for s in VEOG_SITES + HEOG_SITES if s not in names]
