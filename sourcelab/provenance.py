@@ -366,6 +366,19 @@ def _check_parent(out: Path, name: str, shown, *, extra_chars: int) -> None:
                          path=shown) from None
 
 
+def _lstat(out: Path, name: str, shown):
+    """``os.lstat(out)``, ``None`` when nothing is there; unusable paths as one line."""
+    try:
+        return os.lstat(out)
+    except FileNotFoundError:
+        return None
+    except NotADirectoryError:
+        raise InputError(f"{name}: a parent of this path is a file, not a folder",
+                         path=shown) from None
+    except OSError as exc:
+        raise InputError(f"{name}: cannot use this path ({exc.strerror})", path=shown) from None
+
+
 def _refuse_special(out_text: str, name: str) -> Path:
     if not isinstance(out_text, (str, os.PathLike)):
         raise InputError(f"{name}: needs a path, got {out_text!r}")
@@ -427,15 +440,7 @@ def check_output_dir(out, *, kind: str = "analysis", inputs=(), name: str = "--o
     check_option("kind", kind, sorted(KINDS))
     out = _refuse_special(out, name)
     shown = out
-    try:
-        st = os.lstat(out)
-    except FileNotFoundError:
-        st = None
-    except NotADirectoryError:
-        raise InputError(f"{name}: a parent of this path is a file, not a folder",
-                         path=shown) from None
-    except OSError as exc:
-        raise InputError(f"{name}: cannot use this path ({exc.strerror})", path=shown) from None
+    st = _lstat(out, name, shown)
     cwd = _resolved(Path.cwd())
     ro = _resolved(out)
     if ro == cwd or ro in cwd.parents:
@@ -1080,13 +1085,7 @@ def check_output_file(path, *, kind: str, name: str = "--out", suffixes=None,
         suffixes = tuple(suffixes)
         if not out.name.lower().endswith(suffixes):
             raise InputError(f"{name}: must end in {' or '.join(suffixes)}", path=out)
-    try:
-        st = os.lstat(out)
-    except FileNotFoundError:
-        st = None
-    except NotADirectoryError:
-        raise InputError(f"{name}: a parent of this path is a file, not a folder",
-                         path=out) from None
+    st = _lstat(out, name, out)
     if st is not None:
         if stat.S_ISLNK(st.st_mode):
             raise InputError(f"{name}: is a symbolic link; give a new file name", path=out)

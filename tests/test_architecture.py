@@ -140,3 +140,13 @@ def test_runs_without_posix_only_modules():
                 "import sourcelab.analysis, sourcelab.cli.main\n"
                 "print(m.n_src, len(a.rois))")
     assert proc.returncode == 0, proc.stderr[-2000:]
+
+
+def test_every_test_module_has_a_tier():
+    # The tests mirror the package in tiers (conftest.MODULE_TIERS; DEVELOPERS.md, "Tests").
+    from conftest import MODULE_TIERS, TIERS
+
+    modules = {p.stem for p in (ROOT / "tests").glob("test_*.py")}
+    assert not sorted(modules - set(MODULE_TIERS)), "add these to conftest.MODULE_TIERS"
+    assert set(MODULE_TIERS.values()) <= set(TIERS)
+    assert not sorted(set(MODULE_TIERS) - modules), "stale entries in conftest.MODULE_TIERS"

@@ -52,7 +52,7 @@ from ..cautions import CAUTIONS
 from ..constants import SITES_1020
 from ..errors import InputError
 from ..provenance import Fingerprint
-from .definition import SCHEMA
+from .definition import SCHEMA, analysis_norms
 
 #: Target kinds of this module.
 KINDS = ("pair", "edge")
@@ -660,7 +660,6 @@ def export_coupling_target(result_dir: str | Path, *, kind: str, label: str, ban
         Unknown pair, edge, band or measure; pipeline or norms different from the analysis'.
     """
     from ..headmodel import load_head_model
-    from ..norms import read_norms
     from .candidates import read_result_folder
     from .definition import DIRECTIONS, _current_fingerprint_check
 
@@ -718,23 +717,10 @@ def export_coupling_target(result_dir: str | Path, *, kind: str, label: str, ban
     params = prov.get("parameters", {})
     z = float(row["z"]) if _finite(row.get("z")) else None
     norm = None
-    norms_info = (prov.get("inputs") or {}).get("norms")
-    if norms is None and norms_info and norms_info.get("path"):
-        norms = Path(norms_info["path"])
-        if not norms.is_file():
-            raise InputError("the norms file recorded in the analysis' provenance is gone; pass "
-                             "--norms", path=norms)
-    if norms is not None:
-        nm = read_norms(norms) if isinstance(norms, (str, Path)) else norms
-        if norms_info and norms_info.get("sha256") and nm.sha256 != norms_info["sha256"]:
-            raise InputError("norms file differs from the one the analysis used (sha256)",
-                             path=nm.path)
-        age = rec.get("age")
-        if age is None:
-            raise InputError("the analysis has no participant age; the norm cannot be set",
-                             path=res.path)
+    nm, age = analysis_norms(res, norms)
+    if nm is not None:
         norm = coupling_norm_at_age(nm, kind=kind, label=item_label, atlas=at_name, band=band,
-                                    measure=measure, age=float(age), fingerprint=fp,
+                                    measure=measure, age=age, fingerprint=fp,
                                     condition=rec.get("condition"),
                                     allow_extrapolation=allow_extrapolation)
     offline = {"value": float(row["value"]), "z": z,

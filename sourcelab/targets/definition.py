@@ -514,6 +514,48 @@ def norm_at_age(norms, *, atlas: str, roi: str, hemisphere: str, band: str, meas
             "condition": norms.condition}
 
 
+def analysis_norms(res, norms=None):
+    """The norms an analysis was z-scored with, checked, and the participant's age.
+
+    Parameters
+    ----------
+    res : AnalysisFolder
+        The analysis read back from its folder (provenance, tables, fingerprint).
+    norms : str | Path | Norms | None
+        Norms to use instead of the file the analysis' provenance names.
+
+    Returns
+    -------
+    (Norms, float) | (None, None)
+        The norms (the sha256 the analysis used, the same pipeline) and the participant's age in
+        years; ``(None, None)`` when the analysis had no norms and none are given.
+    """
+    from ..norms import read_norms
+
+    prov = res.provenance
+    norms_info = (prov.get("inputs") or {}).get("norms")
+    if norms is None and norms_info and norms_info.get("path"):
+        norms = Path(norms_info["path"])
+        if not norms.is_file():
+            raise InputError("the norms file recorded in the analysis' provenance is gone; pass "
+                             "--norms", path=norms)
+    if norms is None:
+        return None, None
+    nm = read_norms(norms) if isinstance(norms, (str, Path)) else norms
+    if norms_info and norms_info.get("sha256") and nm.sha256 != norms_info["sha256"]:
+        raise InputError("norms file differs from the one the analysis used (sha256)",
+                         path=nm.path)
+    diffs = nm.fingerprint.differences(res.fingerprint)
+    if diffs:
+        raise InputError("norms were made by a different pipeline (" + "; ".join(diffs) + ")",
+                         path=nm.path)
+    age = prov.get("recording", {}).get("age")
+    if age is None:
+        raise InputError("the analysis has no participant age; the norm cannot be set",
+                         path=res.path)
+    return nm, float(age)
+
+
 def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "brodmann",
                   hemisphere: str | None = None, measure: str = "absolute", norms=None,
                   allow_extrapolation: bool = False,
@@ -560,7 +602,6 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     """
     from ..headmodel import load_head_model
     from ..inverse import inverse_operator
-    from ..norms import read_norms
     from ..rois import load_atlas
     from .candidates import read_result_folder
 
@@ -593,27 +634,10 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     params = prov.get("parameters", {})
     z = float(row["z"]) if _finite(row.get("z")) else None
     norm = None
-    norms_info = (prov.get("inputs") or {}).get("norms")
-    if norms is None and norms_info and norms_info.get("path"):
-        norms = Path(norms_info["path"])
-        if not norms.is_file():
-            raise InputError("the norms file recorded in the analysis' provenance is gone; pass "
-                             "--norms", path=norms)
-    if norms is not None:
-        nm = read_norms(norms) if isinstance(norms, (str, Path)) else norms
-        if norms_info and norms_info.get("sha256") and nm.sha256 != norms_info["sha256"]:
-            raise InputError("norms file differs from the one the analysis used (sha256)",
-                             path=nm.path)
-        diffs = nm.fingerprint.differences(fp)
-        if diffs:
-            raise InputError("norms were made by a different pipeline (" + "; ".join(diffs)
-                             + ")", path=nm.path)
-        age = rec.get("age")
-        if age is None:
-            raise InputError("the analysis has no participant age; the norm cannot be set",
-                             path=res.path)
+    nm, age = analysis_norms(res, norms)
+    if nm is not None:
         norm = norm_at_age(nm, atlas=atlas, roi=roi, hemisphere=hemisphere, band=band,
-                           measure=measure, age=float(age), fingerprint=fp,
+                           measure=measure, age=age, fingerprint=fp,
                            condition=rec.get("condition"),
                            allow_extrapolation=allow_extrapolation)
     offline = {"value": float(row["value"]), "z": z, "result_dir": str(res.path),
