@@ -93,9 +93,28 @@ def _describe(value) -> str:
 def check_option(name: str, value, allowed: Iterable, *, where=None):
     """Refuse ``value`` unless it is one of ``allowed``.
 
+    ``True``/``False`` are not accepted for ``1``/``0`` unless ``allowed`` itself holds booleans;
+    dicts and lists are never accepted.
+
+    Parameters
+    ----------
+    name : str
+        Option or field name as the user knows it (``"--method"``, ``"inverse.method"``).
+    value : object
+    allowed : iterable
+        The accepted values; listed in the message.
+    where : str | Path | None
+        File the value came from (prefixed to the message).
+
     Returns
     -------
     value
+        ``value`` unchanged.
+
+    Raises
+    ------
+    InputError
+        ``"<where>: <name>: <value> is not one of <allowed>"``.
     """
     allowed = tuple(allowed)
     try:
@@ -176,10 +195,23 @@ def check_text(name: str, value, *, max_len: int = 200, pattern=None, allowed_te
 
     Parameters
     ----------
+    name : str
+        Option or field name as the user knows it.
+    value : object
+        Must be a non-empty ``str`` without CR, LF, TAB or NUL.
+    max_len : int
+        Largest accepted length, characters.
     pattern : re.Pattern, optional
         Must match the whole text (``fullmatch``).
     allowed_text : str
         How to describe ``pattern`` in the message.
+    where : str | Path | None
+        File the value came from (prefixed to the message).
+
+    Returns
+    -------
+    str
+        ``value`` unchanged.
     """
     if not isinstance(value, str):
         raise _fail(name, f"must be a text, got {_describe(value)}", where)
@@ -257,8 +289,24 @@ def check_path(name: str, value, *, kind: str = "file", must_exist: bool = True,
 
 
 def read_bytes_bounded(path: str | Path, *, max_bytes: int, what: str = "file") -> bytes:
-    """Read a whole file, refusing one larger than ``max_bytes`` (checked before and while
-    reading, so a growing or special file cannot exhaust memory).
+    """Read a whole file, refusing one larger than ``max_bytes``.
+
+    The size is checked before and while reading, so a growing or special file cannot exhaust
+    memory.
+
+    Parameters
+    ----------
+    path : str | Path
+        File to read.
+    max_bytes : int
+        Largest accepted size, bytes.
+    what : str
+        How to call the file in messages (``"target file"``).
+
+    Returns
+    -------
+    bytes
+        The whole file content.
 
     Raises
     ------
@@ -293,9 +341,21 @@ def _refuse_constant(name: str):
 def walk_json(obj, *, max_depth: int = JSON_MAX_DEPTH, where=None, what: str = "JSON") -> None:
     """Check a parsed JSON value iteratively: nesting depth and finite numbers.
 
+    Parameters
+    ----------
+    obj : object
+        Value returned by a JSON parser (dicts, lists, str, numbers, bool, None).
+    max_depth : int
+        Deepest accepted nesting of dicts/lists (the top level is depth 1).
+    where : str | Path | None
+        File named in messages.
+    what : str
+        How to call the value in messages.
+
     Raises
     ------
     InputError
+        If nested deeper than ``max_depth`` or holding a non-finite float.
     """
     stack = [(obj, 1)]
     while stack:
@@ -370,6 +430,29 @@ def _bracket_depth(text: str) -> int:
 
 def load_json(path: str | Path, *, max_bytes: int = JSON_MAX_BYTES,
               max_depth: int = JSON_MAX_DEPTH, what: str = "JSON file"):
-    """Read and parse a JSON file with :func:`read_bytes_bounded` and :func:`loads_json`."""
+    """Read and parse a JSON file with :func:`read_bytes_bounded` and :func:`loads_json`.
+
+    Parameters
+    ----------
+    path : str | Path
+        JSON file.
+    max_bytes : int
+        Largest accepted file size, bytes.
+    max_depth : int
+        Deepest accepted nesting.
+    what : str
+        How to call the file in messages.
+
+    Returns
+    -------
+    object
+        The parsed JSON value (finite numbers only).
+
+    Raises
+    ------
+    InputError
+        Unreadable, too large, not UTF-8, not valid JSON, too deep or non-finite; the message
+        names ``path``.
+    """
     data = read_bytes_bounded(path, max_bytes=max_bytes, what=what)
     return loads_json(data, where=Path(path), max_depth=max_depth, what=what)
