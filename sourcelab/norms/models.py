@@ -57,7 +57,19 @@ class PolyFit:
 
 
 def design(age: np.ndarray, degree: int) -> np.ndarray:
-    """Design matrix ``[1, x, x**2, ...]`` with ``x = log10(age)``, shape (n, degree + 1)."""
+    """Design matrix ``[1, x, x**2, ...]`` with ``x = log10(age)``, shape (n, degree + 1).
+
+    Parameters
+    ----------
+    age : ndarray, shape (n,)
+        Ages in years (> 0 when ``degree > 0``).
+    degree : int
+        Polynomial degree (0 gives a column of ones, ages unused).
+
+    Returns
+    -------
+    ndarray, shape (n, degree + 1)
+    """
     x = np.log10(np.asarray(age, dtype=float)) if degree > 0 else np.zeros(np.shape(age))
     return np.vander(x, degree + 1, increasing=True)
 

@@ -114,18 +114,35 @@ class NormRows:
     leverage: np.ndarray | None = None
 
     def z(self, values) -> np.ndarray:
-        """z-scores of values (one per row, the table's value unit), see :func:`zscore`."""
+        """z-scores of values (one per row, the table's value unit), see :func:`zscore`.
+
+        Parameters
+        ----------
+        values : array-like, shape (m,)
+            One value per table row in its own unit (µV² for absolute power, a fraction for
+            relative power, the coupling measure's unit).
+
+        Returns
+        -------
+        ndarray, shape (m,)
+            ``(T(value) - mean) / sd``; NaN where a row has no norm.
+        """
         return zscore(values, self.mean, self.sd, self.transform)
 
     def predictive(self, z) -> dict:
         """Predictive (Student-t) statistics of plain z-scores, one per row.
 
+        Parameters
+        ----------
+        z : array-like, shape (m,)
+            Plain z-scores of the rows (e.g. from :meth:`z`).
+
         Returns
         -------
         dict
-            ``t``, ``p`` (two-sided), ``z_equivalent`` (the normal deviate with the same p);
-            NaN where a row has no norm.  Without stored degrees of freedom (hand-made rows) the
-            normal distribution is used.
+            ``t``, ``p`` (two-sided), ``z_equivalent`` (the normal deviate with the same p), each an
+            ndarray of shape (m,); NaN where a row has no norm.  Without stored degrees of freedom
+            (hand-made rows) the normal distribution is used.
 
         References
         ----------
