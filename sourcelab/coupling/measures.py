@@ -223,7 +223,15 @@ def pair_statistics_from_fourier(spec: np.ndarray, freqs: np.ndarray, pairs) -> 
         Scaled coefficients (:func:`sourcelab.spectra.epoch_fourier`), or ROI coefficients
         ``W X``.
     freqs : ndarray, shape (n_bins,)
+        Hz.
     pairs : ndarray of int, shape (n_pairs, 2)
+        Node indices ``(a, b)`` of each pair.
+
+    Returns
+    -------
+    PairStatistics
+        Per-epoch statistics as float32, shape (n_epochs, n_bins, n_pairs), and node power
+        ``|X|²``, shape (n_epochs, n_bins, n_nodes) (µV²/Hz for sensor coefficients).
     """
     spec = np.asarray(spec)
     if spec.ndim != 3 or not np.iscomplexobj(spec):
@@ -299,7 +307,25 @@ def bin_measures(acc: dict, power: np.ndarray, ia: np.ndarray, ib: np.ndarray,
 
 
 def band_matrix(freqs: np.ndarray, band_idx) -> np.ndarray:
-    """Averaging matrix, shape (n_bins, n_bands): ``1/n_b`` for the bins of band ``b``."""
+    """Averaging matrix, shape (n_bins, n_bands): ``1/n_b`` for the bins of band ``b``.
+
+    Parameters
+    ----------
+    freqs : ndarray, shape (n_bins,)
+        Bin frequencies, Hz (only their number is used).
+    band_idx : sequence of int arrays, length n_bands
+        Bins of each band (:func:`sourcelab.spectra.band_bin_indices`).
+
+    Returns
+    -------
+    ndarray, shape (n_bins, n_bands)
+        ``per_bin @ A`` averages per-bin values over each band.
+
+    Raises
+    ------
+    InputError
+        If a band has no bin.
+    """
     a = np.zeros((len(freqs), len(band_idx)))
     for b, idx in enumerate(band_idx):
         if len(idx) == 0:
@@ -419,6 +445,15 @@ def coupling_from_statistics(ps: PairStatistics, band_idx, weights: np.ndarray |
 def conjugation_signs(n_epochs: int, *, n_rep: int = 500, seed: int = 0) -> np.ndarray:
     """Random ±1 per epoch and replicate for the conjugation (time-reversal) null.
 
+    Parameters
+    ----------
+    n_epochs : int
+        Number of epochs.
+    n_rep : int
+        Number of null replicates.
+    seed : int
+        Seed of :func:`numpy.random.default_rng`.
+
     Returns
     -------
     ndarray, shape (n_rep, n_epochs), float32
@@ -433,6 +468,25 @@ def bootstrap_weights(n_epochs: int, *, n_boot: int = 1000, seed: int = 0) -> np
     The same draw as :func:`sourcelab.trust.bootstrap.bootstrap_weights` for the same seed, so
     band-power and coupling intervals resample the same epochs (the first ``n_boot`` of them when
     the counts differ).  The array is cached and read-only.
+
+    Parameters
+    ----------
+    n_epochs : int
+        Number of clean epochs, >= 2.
+    n_boot : int
+        Number of bootstrap replicates, >= 10.
+    seed : int
+        Seed of :func:`numpy.random.default_rng`.
+
+    Returns
+    -------
+    ndarray, shape (n_boot, n_epochs)
+        Each row sums to 1.
+
+    Raises
+    ------
+    InputError
+        For fewer than 2 epochs or 10 replicates.
     """
     if int(n_epochs) < 2:
         raise InputError(f"bootstrap: need at least 2 clean epochs, got {n_epochs}")

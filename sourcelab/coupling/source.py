@@ -131,7 +131,13 @@ class RoiFilters:
     vertices: tuple
 
     def shared_sources(self) -> np.ndarray:
-        """Sources common to ROI a and ROI b, shape (n_rois, n_rois) (diagonal: ROI sizes)."""
+        """Sources common to ROI a and ROI b, shape (n_rois, n_rois) (diagonal: ROI sizes).
+
+        Returns
+        -------
+        ndarray of int64, shape (n_rois, n_rois)
+            Symmetric; entry ``(a, b)`` counts the sources in both ROIs.
+        """
         from scipy import sparse
 
         rows = np.concatenate([np.full(len(v), i) for i, v in enumerate(self.vertices)])
@@ -265,16 +271,39 @@ def roi_cross_spectra(csd: np.ndarray, weights: np.ndarray) -> np.ndarray:
 
 
 def roi_fourier(spec: np.ndarray, weights: np.ndarray) -> np.ndarray:
-    """ROI Fourier coefficients ``W X``: shape (n_epochs, n_rois, n_bins) from
-    (n_epochs, n_ch, n_bins)."""
+    """ROI Fourier coefficients ``W X``.
+
+    Parameters
+    ----------
+    spec : ndarray, shape (n_epochs, n_ch, n_bins), complex
+        Scaled sensor coefficients (:func:`sourcelab.spectra.epoch_fourier`).
+    weights : ndarray, shape (n_rois, n_ch), real
+        ROI spatial filters (:attr:`RoiFilters.weights`).
+
+    Returns
+    -------
+    ndarray, shape (n_epochs, n_rois, n_bins), same complex dtype as ``spec``
+    """
     spec = np.asarray(spec)
     w = np.asarray(weights, dtype=np.float32 if spec.dtype == np.complex64 else float)
     return np.matmul(w.astype(spec.dtype), spec)
 
 
 def edge_leakage_msc(weights: np.ndarray, null_cov: np.ndarray) -> np.ndarray:
-    """Coherence expected from leakage alone, ``(w_a C₀ w_bᵀ)² / (w_a C₀ w_aᵀ w_b C₀ w_bᵀ)``,
-    shape (n_rois, n_rois)."""
+    """Coherence expected from leakage alone, ``(w_a C₀ w_bᵀ)² / (w_a C₀ w_aᵀ w_b C₀ w_bᵀ)``.
+
+    Parameters
+    ----------
+    weights : ndarray, shape (n_rois, n_ch)
+        ROI spatial filters.
+    null_cov : ndarray, shape (n_ch, n_ch)
+        Sensor covariance of independent sources (:func:`independent_source_covariance`).
+
+    Returns
+    -------
+    ndarray, shape (n_rois, n_rois)
+        In [0, 1]; the diagonal is 1.
+    """
     c = np.asarray(weights) @ np.asarray(null_cov) @ np.asarray(weights).T
     d = np.diag(c)
     return c * c / np.outer(d, d)
@@ -406,9 +435,15 @@ def aec_block_se(mom: dict) -> np.ndarray:
     (a delta-method, block-wise variance; Bartlett 1935's point that autocorrelated samples
     widen a correlation's spread is honoured because whole epochs are the units).
 
+    Parameters
+    ----------
+    mom : dict
+        Per-epoch sums from :func:`envelope_moments`.
+
     Returns
     -------
     ndarray, shape (n_nodes, n_nodes)
+        Standard error of the correlation (dimensionless), symmetric.
     """
     n_ep = mom["so"].shape[0]
     m = float(mom["m"])
@@ -460,10 +495,32 @@ class EdgeCoupling:
     n_epochs: int
 
     def to_frame(self) -> pd.DataFrame:
+        """The tidy edge table of this atlas (:func:`coupling_table`).
+
+        Returns
+        -------
+        DataFrame
+            Columns :data:`EDGE_COLUMNS`.
+        """
         return coupling_table([self])
 
     def matrix(self, measure: str, band: str) -> np.ndarray:
-        """ROI x ROI matrix of one measure and band (symmetric; NaN diagonal), for figures."""
+        """ROI x ROI matrix of one measure and band (symmetric; NaN diagonal), for figures.
+
+        Directed measures (``imcoh``, ``lag_ms``) are antisymmetric: entry ``(b, a)`` is ``-(a, b)``.
+
+        Parameters
+        ----------
+        measure : str
+            A key of :attr:`values`.
+        band : str
+            One of :attr:`band_names`.
+
+        Returns
+        -------
+        ndarray, shape (n_rois, n_rois)
+            In the measure's unit (:data:`MEASURE_UNITS`).
+        """
         n = len(self.filters.names)
         out = np.full((n, n), np.nan)
         v = self.values[measure][self.band_names.index(band)]
@@ -552,6 +609,16 @@ def coupling_table(results) -> pd.DataFrame:
     ``"edge"``, keyed by ``atlas``, ``edge``, ``band``, ``measure``).  Column meanings:
     :data:`EDGE_COLUMN_NOTES`.  Rows: atlas, then measure (:data:`EDGE_MEASURES` order), band,
     edge.
+
+    Parameters
+    ----------
+    results : sequence of EdgeCoupling
+        One per atlas (non-empty).
+
+    Returns
+    -------
+    DataFrame
+        Columns :data:`EDGE_COLUMNS`; edge labels ``"roi.hemisphere|roi.hemisphere"``.
     """
     import pandas as pd
 
@@ -605,6 +672,8 @@ def network_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.
 
     Parameters
     ----------
+    spec, spec_plain, freqs, bands
+        As for :func:`edge_coupling` (coefficients (n_epochs, n_ch, n_bins); ``freqs`` in Hz).
     op : SourceOperator
     atlases : sequence of Atlas
     gain : ndarray, optional
@@ -616,6 +685,11 @@ def network_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.
         needed).
     **options
         Passed to :func:`edge_coupling`.
+
+    Returns
+    -------
+    list of EdgeCoupling
+        One per atlas, in ``atlases`` order.
     """
     if null_cov is None and gain is not None:
         g = _fixed_gain(gain, op.n_src, normals) if op.n_comp == 1 else np.asarray(gain)
