@@ -507,7 +507,8 @@ class EdgeCoupling:
     def matrix(self, measure: str, band: str) -> np.ndarray:
         """ROI x ROI matrix of one measure and band (symmetric; NaN diagonal), for figures.
 
-        Directed measures (``imcoh``, ``lag_ms``) are antisymmetric: entry ``(b, a)`` is ``-(a, b)``.
+        Directed measures (``imcoh``, ``lag_ms``) are antisymmetric: entry ``(b, a)`` is
+        ``-(a, b)``.
 
         Parameters
         ----------
