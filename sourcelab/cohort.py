@@ -28,10 +28,23 @@ log = logging.getLogger("sourcelab")
 def find_recording(cohort_dir: str | Path, participant_id: str) -> Path:
     """Find one participant's recording among the files that exist in ``cohort_dir``.
 
-    Looks in ``<cohort_dir>/<id>/eeg/`` (BIDS) and in ``cohort_dir`` itself for files with a
-    recording suffix (:data:`sourcelab.constants.RECORDING_SUFFIXES`) whose name is the sanitised ID or starts with
-    it followed by ``_`` or ``.``.  The ID never becomes a path: it is only compared with names
-    listed from the folder.
+    Looks in ``<cohort_dir>/<id>/eeg/`` (BIDS; ``<id>/`` itself when it has no ``eeg`` folder,
+    ``<id>`` with or without the ``sub-`` prefix) and in ``cohort_dir`` itself for files with a
+    recording suffix (:data:`sourcelab.constants.RECORDING_SUFFIXES`) whose name is the sanitised
+    ID or starts with it followed by ``_`` or ``.``.  The ID never becomes a path: it is only
+    compared with names listed from the folder.
+
+    Parameters
+    ----------
+    cohort_dir : str | Path
+        The cohort folder (holding ``participants.tsv``).
+    participant_id : str
+        ID from ``participants.tsv``, e.g. ``"sub-01"`` or ``"01"``.
+
+    Returns
+    -------
+    Path
+        The one matching recording.
 
     Raises
     ------
