@@ -215,7 +215,8 @@ class TargetDefinition:
         -------
         dict of str to ndarray, shape (filter_order, 6)
             One entry per stored band; re-designed from the same specification (Butterworth,
-            :attr:`filter_order`, -3 dB at the band edges) when ``sfreq`` differs from :attr:`sfreq`.
+            :attr:`filter_order`, -3 dB at the band edges) when ``sfreq`` differs from
+            :attr:`sfreq`.
         """
         if math.isclose(sfreq, self.sfreq, rel_tol=1e-9):
             return dict(self.sos)
