@@ -141,6 +141,8 @@ def check_number(name: str, value, *, kind: type = float, low: float | None = No
     kind : {float, int}
     low, high : float, optional
         Bounds, inclusive unless ``low_open`` / ``high_open``.
+    low_open, high_open : bool
+        Make the lower / upper bound exclusive.
     none_ok : bool
         Accept ``None`` (returned as is).
     where : str | Path | None

@@ -544,6 +544,8 @@ def bootstrap_intervals(ps: PairStatistics, band_idx, estimate: dict[str, np.nda
         (1, n_bands, n_pairs) each.
     n_boot, seed, ci
         Replicates, seed (same draw as the band-power bootstrap), coverage.
+    chunk : int
+        Replicates per pass (memory only; see :func:`coupling_from_statistics`).
     measures : sequence of str
         Subset of :data:`BAND_MEASURES`.
 
@@ -685,6 +687,8 @@ def conjugation_null(ps: PairStatistics, band_idx, *, method: str = "analytic",
     seed : int
     level : float
         Quantile reported as the null threshold.
+    chunk : int
+        Monte-Carlo replicates per pass (memory only; see :func:`coupling_from_statistics`).
 
     Returns
     -------

@@ -138,7 +138,11 @@ def reference_statistics(values, measure: str, *, axis: int = 0) -> tuple[np.nda
     Parameters
     ----------
     values : ndarray, shape (n_people, ...) (``axis`` = people)
+        Values in the measure's own unit (not yet transformed).
     measure : str
+        Pair / edge measure name (sets the transform).
+    axis : int
+        Axis of ``values`` holding the people.
 
     Returns
     -------

@@ -104,6 +104,8 @@ def fit_poly(age: np.ndarray, y: np.ndarray, degree: int, *, robust: bool = True
         excluded (the most extreme first).
     threshold : float
         Exclusion threshold in (robust) SDs; 3.5 by default.
+    max_iter : int
+        Most sigma-clipping passes.
 
     Returns
     -------
@@ -172,8 +174,13 @@ def select_degree(age: np.ndarray, Y: np.ndarray, *, degrees=(0, 1, 2, 3), robus
     Parameters
     ----------
     age : ndarray, shape (n,)
+        Ages in years.
     Y : ndarray, shape (n, n_quantities)
         Transformed values.
+    degrees : sequence of int
+        Candidate degrees (each 0..3).
+    robust : bool
+        Use :func:`fit_poly`'s robust exclusion in every fit.
 
     Returns
     -------

@@ -125,7 +125,13 @@ def fit_source_models(age: np.ndarray, y: np.ndarray, degree: int, *, robust: bo
     y : ndarray, shape (n, q)
         Transformed values (finite).
     degree : int
+        Polynomial degree in log10(age), 0..3.
     robust : bool
+        Apply the robust exclusion rule.
+    threshold : float
+        Exclusion threshold in (robust) SDs.
+    max_iter : int
+        Most sigma-clipping passes.
 
     Returns
     -------

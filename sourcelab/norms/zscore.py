@@ -400,6 +400,8 @@ def chance_summary(table: pd.DataFrame, *, alpha: float = FDR_ALPHA) -> dict:
     table : DataFrame
         Output of :func:`apply_norms` (needs ``z``; counts ``z_equivalent`` -- the predictive
         test's normal deviate -- when present, and uses ``fdr_q`` when present).
+    alpha : float
+        False-discovery-rate level for ``n_fdr``.
 
     Returns
     -------

@@ -527,6 +527,7 @@ def replay_coupling_array(data_uv: np.ndarray, sfreq: float, target: CouplingTar
         µV, channels in ``target.channels`` order, any reference.
     sfreq : float
         Hz.
+    target : CouplingTarget
     chunk_s : float
         Processing chunk (affects speed only).
 
@@ -733,6 +734,9 @@ def export_coupling_target(result_dir: str | Path, *, kind: str, label: str, ban
         The edge's atlas (needed when the edge's ROI names exist in several).
     norms : path | Norms, optional
         Default: the norms file recorded in the folder's provenance (its sha256 must match).
+    allow_extrapolation : bool
+        Accept a participant age outside the norms' age range (the nearest covered age is
+        used and the norm is marked ``extrapolated``).
     window_segments : int
         Segments of the feedback window (default 15: 30 s of 2-s segments).
 

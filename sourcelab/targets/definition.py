@@ -662,6 +662,9 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     measure : {"absolute", "relative"}
     norms : path | Norms, optional
         Default: the norms file recorded in the folder's provenance (its sha256 must match).
+    allow_extrapolation : bool
+        Accept a participant age outside the norms' age range (the nearest covered age is
+        used and the norm is marked ``extrapolated``).
     filter_order : int
         Butterworth prototype order per edge (default 4: ~200 ms group delay in alpha).  Higher
         orders leak less power from a strong neighbouring peak (see SCHEMA.md) at more latency.

@@ -282,6 +282,7 @@ def replay_array(data_uv: np.ndarray, sfreq: float, target: TargetDefinition, *,
         Recording in µV, channels in ``target.channels`` order, any reference.
     sfreq : float
         Hz.
+    target : TargetDefinition
     chunk_s : float
         Processing chunk (affects speed only).
 
@@ -317,7 +318,10 @@ def welch_band_response(freqs: np.ndarray, lo: float, hi: float, *, sfreq: float
     ----------
     freqs : ndarray, shape (n_f,)
         Hz.
+    lo, hi : float
+        Band edges, Hz, ``[lo, hi)``.
     sfreq : float
+        Sampling rate, Hz.
     n_times : int
         Samples per Welch segment (epoch).
 
