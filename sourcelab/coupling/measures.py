@@ -542,8 +542,12 @@ def bootstrap_intervals(ps: PairStatistics, band_idx, estimate: dict[str, np.nda
     estimate : dict
         The estimate's band measures (from :func:`coupling_from_statistics`), shape
         (1, n_bands, n_pairs) each.
-    n_boot, seed, ci
-        Replicates, seed (same draw as the band-power bootstrap), coverage.
+    n_boot : int
+        Bootstrap replicates.
+    seed : int
+        Seed (the same draw as the band-power bootstrap).
+    ci : float
+        Coverage of the percentile interval, e.g. 0.95.
     chunk : int
         Replicates per pass (memory only; see :func:`coupling_from_statistics`).
     measures : sequence of str

@@ -551,8 +551,14 @@ def edge_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.nda
         :func:`independent_source_covariance` for the coherence expected from leakage.
     null_method : {"analytic", "monte-carlo"} or None
         The lagged measures' conjugation null (None: none).
-    n_null, n_boot, seed, ci
-        Monte-Carlo null replicates, bootstrap replicates (0: none), seed, coverage.
+    n_null : int
+        Monte-Carlo null replicates.
+    n_boot : int
+        Bootstrap replicates over epochs (0: no intervals).
+    seed : int
+        Seed of the null and the bootstrap.
+    ci : float
+        Coverage of the bootstrap intervals, e.g. 0.95.
     samples_per_epoch : int, optional
         Envelope samples per epoch (:func:`band_analytic`).
 

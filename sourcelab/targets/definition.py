@@ -655,6 +655,7 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     result_dir : path
         Folder written by ``sourcelab analyze`` (``roi_table.tsv``, ``provenance.json``).
     roi, band : str
+        ROI name (e.g. ``"BA17"``) and band name of the analysis.
     atlas : str
         A shipped atlas (custom ROI sets are not exportable: their vertices are not shipped).
     hemisphere : {"left", "right", "both"}, optional
@@ -675,13 +676,12 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     threshold_sd : float, optional
         Feedback threshold, in smoothed-SD units from the person's own level towards the norm.
 
-    The target's ``live`` section holds the expected window-to-window SD of the live value under
-    the person's steady state, computed from the folder's ``epochs.npz`` (None for folders
-    written before it existed).
-
     Returns
     -------
     TargetDefinition
+        Its ``live`` section holds the expected window-to-window SD of the live value under
+        the person's steady state, computed from the folder's ``epochs.npz`` (None for folders
+        written before it existed).
 
     Raises
     ------

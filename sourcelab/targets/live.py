@@ -470,8 +470,10 @@ def expected_live_sd(levels: np.ndarray, *, onsets_s: np.ndarray | None, epoch_s
         Band edges, Hz.
     window_s, step_s : float
         Live window and step.
-    smoothing, time_constant_s
-        See :class:`Smoother`.
+    smoothing : {"exponential", "moving", "none"}
+        Smoother kind (see :class:`Smoother`).
+    time_constant_s : float
+        The smoother's time constant, s.
     ln_scale : float, optional
         Factor turning the transformed scale into natural-log units for the χ² model (ln 10 for
         log10 levels).  Default: ln 10.
@@ -550,8 +552,10 @@ def live_section(target, epochs=None, *, smoothing: str = "exponential",
     target : TargetDefinition
     epochs : sourcelab.epochfile.EpochSpectra, optional
         The analysis' per-epoch spectra; without them the expected SD is not available.
-    smoothing, time_constant_s
-        See :class:`Smoother`.
+    smoothing : {"exponential", "moving", "none"}
+        Smoother kind (see :class:`Smoother`).
+    time_constant_s : float
+        The smoother's time constant, s.
     threshold_sd : float, optional
         Feedback threshold in units of the smoothed SD from the person's own level (the offline
         value), in the training direction: ``level_0 ∓ k · smoothed_sd``.  None: no threshold.
