@@ -65,6 +65,7 @@ def check_type(name: str, value, types, *, where=None, type_name: str | None = N
     Returns
     -------
     value
+        ``value`` unchanged.
     """
     types = types if isinstance(types, tuple) else (types,)
     numeric = any(t in (int, float, numbers.Number, numbers.Real, numbers.Integral)
@@ -150,6 +151,7 @@ def check_number(name: str, value, *, kind: type = float, low: float | None = No
     Returns
     -------
     float | int | None
+        ``value`` converted to ``kind`` (None only with ``none_ok``).
     """
     if value is None and none_ok:
         return None
@@ -249,6 +251,7 @@ def check_path(name: str, value, *, kind: str = "file", must_exist: bool = True,
     Returns
     -------
     Path
+        ``value`` as a Path (not resolved).
     """
     check_option("kind", kind, ("file", "dir", "any"))
     if not isinstance(value, (str, os.PathLike)) or str(value) == "":
@@ -393,6 +396,7 @@ def loads_json(text: str | bytes, *, where=None, max_depth: int = JSON_MAX_DEPTH
     Returns
     -------
     object
+        The parsed value (dicts, lists, str, finite numbers, bool, None).
     """
     if isinstance(text, bytes):
         try:

@@ -134,6 +134,7 @@ def fit_cohort(entries, source_maps, *, fingerprint: Fingerprint, condition: str
     Returns
     -------
     fit : NormsFit
+        Norms and the leave-one-out material for calibration.
     source_norms : SourceNorms | None
         Per-source age models of the same degree (None for age-binned norms, whose bins the
         per-source file does not model).
@@ -176,7 +177,9 @@ def write_cohort_norms(fit, source_norms, out: str | Path):
     norms : Norms
         As written (``path``, ``sha256``).
     report : DataFrame
+        Per-row calibration (:func:`~sourcelab.norms.calibration.calibration_report`).
     report_path, figure_path : Path
+        ``<stem>_calibration.tsv`` and ``<stem>_calibration.png``.
     """
     from .norms.calibration import calibration_report, plot_calibration
     from .norms.source_norms import source_norms_path, write_source_norms
@@ -228,6 +231,7 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
     Returns
     -------
     CohortBuild
+        The written norms, the fit, the calibration and the participants that failed.
 
     Notes
     -----

@@ -103,6 +103,7 @@ def read_session(path, *, label: str | None = None) -> Session:
     Returns
     -------
     Session
+        The folder, its label, the tables and the per-epoch spectra.
 
     Raises
     ------
@@ -418,6 +419,7 @@ def plot_sessions(table: pd.DataFrame, targets=None, *, use_z: bool | None = Non
     Returns
     -------
     matplotlib.figure.Figure
+        One line per selected row, sessions on the x axis.
     """
     from matplotlib.figure import Figure
 

@@ -170,6 +170,7 @@ class Fingerprint:
         Returns
         -------
         str
+            Compact JSON, sorted keys (stored in norms headers and epochs files).
         """
         return json.dumps(self.to_dict(), sort_keys=True)
 
@@ -517,6 +518,7 @@ def check_output_dir(out, *, kind: str = "analysis", inputs=(), name: str = "--o
     Returns
     -------
     Path
+        ``out`` as a Path, after the checks.
 
     Raises
     ------
@@ -1177,6 +1179,7 @@ def npz_bytes(arrays: dict) -> bytes:
     Returns
     -------
     bytes
+        The file's bytes (zip64, one ``<key>.npy`` member per array).
     """
     import io
     import zipfile
@@ -1203,6 +1206,7 @@ def recognise_any_output_file(path: str | Path) -> bool:
     Returns
     -------
     bool
+        True when a sourcelab header, marker or PNG tag is found.
     """
     try:
         st = os.lstat(path)
@@ -1414,5 +1418,6 @@ def dumps_json(obj, **kwargs) -> str:
     Returns
     -------
     str
+        JSON text without NaN/Infinity literals.
     """
     return json.dumps(finite_json(obj), allow_nan=False, **kwargs)

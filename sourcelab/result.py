@@ -263,6 +263,7 @@ class AnalysisResult:
         Returns
         -------
         Atlas
+            The atlas object used for the ROI table.
 
         Raises
         ------

@@ -103,6 +103,7 @@ def epoch_fourier(epochs: np.ndarray, sfreq: float, bands: Bands, *, taper: bool
     Returns
     -------
     spec : ndarray, shape (n_epochs, n_ch, n_bins), complex
+        Scaled so that ``X Xᴴ`` summed over a band's bins is band power (µV² for µV data).
     freqs : ndarray, shape (n_bins,)
         Hz.
     """
@@ -177,6 +178,7 @@ def band_sums(bin_csd: np.ndarray, freqs: np.ndarray, bands: Bands) -> np.ndarra
     Returns
     -------
     ndarray, shape (..., n_bands, n_ch, n_ch), float64
+        Real parts summed over each band's bins: band power (µV² for µV data) on the diagonal.
     """
     idx = band_bin_indices(freqs, bands)
     return np.stack([bin_csd[..., i, :, :].real.sum(axis=-3, dtype=float) for i in idx],
@@ -256,6 +258,7 @@ def average_reference(csd: np.ndarray) -> np.ndarray:
     Returns
     -------
     ndarray, shape (..., n_ch, n_ch)
+        ``P C P``, same unit as ``csd``.
     """
     p = average_reference_projector(csd.shape[-1])
     return p @ csd @ p

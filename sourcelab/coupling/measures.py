@@ -136,6 +136,7 @@ class PairStatistics:
         acc : dict
             name -> ndarray, shape (n_rep or 1, n_bins, n_pairs)
         power : ndarray, shape (n_rep or 1, n_bins, n_nodes)
+            Weighted mean node power ``|X|²`` (µV²/Hz per bin for sensor coefficients).
         """
         k = self.n_epochs
         shape = self.power.shape[1:]
@@ -198,6 +199,7 @@ def pair_statistics(csd: np.ndarray, freqs: np.ndarray, pairs) -> PairStatistics
     Returns
     -------
     PairStatistics
+        Per-epoch pair statistics, shape (n_epochs, n_bins, n_pairs), and node powers.
     """
     csd = np.asarray(csd)
     if csd.ndim != 4 or csd.shape[-1] != csd.shape[-2]:
@@ -457,6 +459,7 @@ def conjugation_signs(n_epochs: int, *, n_rep: int = 500, seed: int = 0) -> np.n
     Returns
     -------
     ndarray, shape (n_rep, n_epochs), float32
+        Each entry -1 or +1 with probability 1/2.
     """
     rng = np.random.default_rng(seed)
     return rng.choice(np.array([-1.0, 1.0], dtype=np.float32), size=(int(n_rep), int(n_epochs)))

@@ -86,6 +86,7 @@ class PairSets:
         Returns
         -------
         ndarray of int, shape (n_h + n_i, 2)
+            Index pairs into ``ch_names``.
         """
         return np.vstack([self.homologous, self.intrahemispheric])
 
@@ -136,6 +137,7 @@ def pair_sets(ch_names, ch_pos) -> PairSets:
     Returns
     -------
     PairSets
+        All, homologous, anterior-posterior and intrahemispheric pairs, and each site's side.
     """
     names = tuple(str(c) for c in ch_names)
     pos = np.asarray(ch_pos, dtype=float)

@@ -181,7 +181,8 @@ def asymmetry(power: np.ndarray, pairs: np.ndarray) -> np.ndarray:
 
     Returns
     -------
-    ndarray, shape (..., n_pairs), in (-1, 1).  ``atanh`` of it is ``ln(P_a / P_b) / 2``.
+    ndarray, shape (..., n_pairs)
+        In (-1, 1), dimensionless; ``atanh`` of it is ``ln(P_a / P_b) / 2``.
     """
     pa, pb = power[..., pairs[:, 0]], power[..., pairs[:, 1]]
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -247,6 +248,8 @@ def sensor_coupling(spectra: np.ndarray, freqs: np.ndarray, bands: Bands, ch_nam
     Returns
     -------
     SensorCoupling
+        Pair measures (n_bands, n_pairs), asymmetries, band power (squared data unit), nulls
+        and intervals.
     """
     spectra = np.asarray(spectra)
     n_ch = len(ch_names)

@@ -177,6 +177,7 @@ def independent_source_covariance(gain: np.ndarray, *, noise: float = 0.0) -> np
     Returns
     -------
     ndarray, shape (n_ch, n_ch), real symmetric
+        ``C₀``, in the trace-normalised units above (not µV²); rank ``n_ch - 1``.
     """
     g = np.asarray(gain, dtype=float)
     n = g.shape[0]
@@ -265,6 +266,7 @@ def roi_cross_spectra(csd: np.ndarray, weights: np.ndarray) -> np.ndarray:
     Returns
     -------
     ndarray, shape (..., n_rois, n_rois), complex
+        ``W C Wᵀ``, in the unit of ``csd`` times the squared filter unit.
     """
     w = np.asarray(weights)
     return np.einsum("rc,...cd,sd->...rs", w, csd, w, optimize=True)
@@ -283,6 +285,7 @@ def roi_fourier(spec: np.ndarray, weights: np.ndarray) -> np.ndarray:
     Returns
     -------
     ndarray, shape (n_epochs, n_rois, n_bins), same complex dtype as ``spec``
+        ROI coefficients for :func:`sourcelab.coupling.pair_statistics_from_fourier`.
     """
     spec = np.asarray(spec)
     w = np.asarray(weights, dtype=np.float32 if spec.dtype == np.complex64 else float)
@@ -337,8 +340,9 @@ def band_analytic(spec_plain: np.ndarray, band_bins: np.ndarray, *,
 
     Returns
     -------
-    ndarray, shape (n_epochs, n_nodes, M), complex (any constant scale), single precision
-    for single-precision input
+    ndarray, shape (n_epochs, n_nodes, M), complex
+        Analytic signals up to a constant scale; single precision for single-precision
+        input.
     """
     idx = np.asarray(band_bins, dtype=np.int64)
     nb = idx.size
@@ -405,7 +409,8 @@ def aec_from_moments(mom: dict, weights: np.ndarray | None = None) -> np.ndarray
 
     Returns
     -------
-    ndarray, shape (n_rep, n_nodes, n_nodes); diagonal NaN
+    ndarray, shape (n_rep, n_nodes, n_nodes)
+        Symmetric correlations in [-1, 1]; diagonal NaN.
     """
     n_ep, n = mom["so"].shape[:2]
     w = np.full((1, n_ep), 1.0 / n_ep) if weights is None else np.asarray(weights, float)
@@ -565,6 +570,7 @@ def edge_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.nda
     Returns
     -------
     EdgeCoupling
+        Edge measures of every ROI pair ``a < b``, shape (n_bands, n_edges) each.
     """
     band_idx = band_bin_indices(freqs, bands)
     w = filters.weights

@@ -172,6 +172,7 @@ def bem_solution_from_layers(
     Returns
     -------
     bem : mne.bem.ConductorModel
+        Linear-collocation BEM solution of the three layers (MRI frame).
 
     References
     ----------

@@ -186,6 +186,7 @@ class HeadModel:
         Returns
         -------
         ndarray of str, same shape as ``sources``
+            ``"left"`` where the index is below :attr:`n_left`, else ``"right"``.
         """
         return np.where(np.asarray(sources) < self.n_left, "left", "right")
 
@@ -202,6 +203,7 @@ class HeadModel:
         Returns
         -------
         ndarray, shape (..., 20484), float
+            ``values`` at :attr:`vertno`, ``fill`` elsewhere; at least float32.
         """
         v = np.asarray(values)
         if v.shape[-1] != self.n_src:

@@ -145,6 +145,8 @@ def sloreta_operator(gain: np.ndarray, *, lambda2: float, orientation: str = "fi
     Returns
     -------
     SourceOperator
+        Standardised kernel (n_src or 3 n_src rows, n_ch columns) with the average-reference
+        projector and the whitener folded in.
 
     References
     ----------

@@ -118,6 +118,7 @@ def plot_calibration(fit, *, figure=None):
     Returns
     -------
     matplotlib.figure.Figure
+        The drawn figure (``figure`` when given).
     """
     from matplotlib.figure import Figure
 

@@ -147,6 +147,7 @@ def reference_statistics(values, measure: str, *, axis: int = 0) -> tuple[np.nda
     Returns
     -------
     mean, sd : ndarray, shape without ``axis``
+        On the measure's transformed scale (for ``phase_deg`` in degrees).
     """
     t = transformed(values, measure)
     if measure in CIRCULAR_PERIOD:

@@ -141,6 +141,7 @@ def slim_table(table: pd.DataFrame | None, kind: str) -> pd.DataFrame | None:
     Returns
     -------
     DataFrame or None
+        The needed columns (key columns as categories, ``value``); None for None.
     """
     if table is None:
         return None
@@ -283,6 +284,7 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
     Returns
     -------
     NormsFit
+        The norms (``.norms``) and the leave-one-out material for calibration.
     """
     fitters = {"regression": None, "binned": None}
     if model not in fitters:

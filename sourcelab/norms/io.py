@@ -427,6 +427,7 @@ def read_norms(path: str | Path) -> Norms:
     Returns
     -------
     Norms
+        Validated, with ``path`` and ``sha256`` of the file.
 
     Raises
     ------

@@ -69,6 +69,7 @@ def design(age: np.ndarray, degree: int) -> np.ndarray:
     Returns
     -------
     ndarray, shape (n, degree + 1)
+        Columns ``x**0 .. x**degree``.
     """
     x = np.log10(np.asarray(age, dtype=float)) if degree > 0 else np.zeros(np.shape(age))
     return np.vander(x, degree + 1, increasing=True)
@@ -185,6 +186,7 @@ def select_degree(age: np.ndarray, Y: np.ndarray, *, degrees=(0, 1, 2, 3), robus
     Returns
     -------
     degree : int
+        The degree with the lowest score (the smallest candidate when no score is finite).
     scores : dict
         Mean log PRESS per degree (lower is better).
     """

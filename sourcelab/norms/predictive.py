@@ -49,6 +49,7 @@ def design_row(age, degree) -> np.ndarray:
     Returns
     -------
     ndarray, shape (m, MAX_DEGREE + 1)
+        One row per age.
     """
     degree = np.atleast_1d(np.asarray(degree, dtype=np.int64))
     x = np.log10(np.broadcast_to(np.asarray(age, dtype=float), degree.shape))
@@ -131,6 +132,7 @@ def leverage(xtx_inv: np.ndarray, degree, age) -> np.ndarray:
     Returns
     -------
     ndarray, shape (m,)
+        Dimensionless leverage ``h₀`` per row.
     """
     x0 = design_row(age, degree)
     c = np.asarray(xtx_inv, dtype=float)
@@ -152,6 +154,7 @@ def approximate_leverage(n, degree) -> np.ndarray:
     Returns
     -------
     ndarray of float, shape (m,) (or () for scalars)
+        Dimensionless leverage ``h₀``.
     """
     return (np.asarray(degree, dtype=float) + 1.0) / np.asarray(n, dtype=float)
 
@@ -207,6 +210,7 @@ def row_xtx_inverse(fit) -> np.ndarray:
     Returns
     -------
     ndarray, shape (n_rows, 4, 4)
+        Symmetric, zero beyond each row's degree; pack with :func:`pack_v`.
     """
     t = fit.norms.table
     out = np.zeros((len(t), MAX_DEGREE + 1, MAX_DEGREE + 1))

@@ -103,6 +103,7 @@ class SourceNorms:
         Returns
         -------
         ndarray, shape (n_meas, n_bands, n_src)
+            Dimensionless leverage ``h₀`` per measure, band and source.
         """
         x = np.log10(float(age)) ** np.arange(self.degree + 1)
         h_all = float(x @ self.xtx_inv @ x)
@@ -136,8 +137,11 @@ def fit_source_models(age: np.ndarray, y: np.ndarray, degree: int, *, robust: bo
     Returns
     -------
     coef : ndarray, shape (degree + 1, q)
+        Coefficients on powers of log10(age), transformed scale.
     sd : ndarray, shape (q,)
+        Residual SD of the kept controls, transformed scale.
     n_kept : ndarray of int, shape (q,)
+        Controls kept per quantity.
     xtx_inv : ndarray, shape (degree + 1, degree + 1)
         Of all ``n`` controls.
     """
@@ -207,6 +211,7 @@ def fit_source_norms(age: np.ndarray, values: dict, *, degree: int, bands, finge
     Returns
     -------
     SourceNorms
+        One age model per measure, band and source (float32 coefficients and SDs).
     """
     from .transforms import get_transform, transform_for_measure
 
@@ -255,6 +260,7 @@ def source_z(norms: SourceNorms, values: np.ndarray, *, age: float, measure: str
     Returns
     -------
     ndarray, shape (n_bands, n_src)
+        Dimensionless z per band and source (NaN where a value is NaN).
     """
     from .predictive import predictive_t
     from .transforms import get_transform
@@ -347,6 +353,7 @@ def read_source_norms(path: str | Path, *, fingerprint: dict | None = None) -> S
     Returns
     -------
     SourceNorms
+        Arrays as stored (float32 coefficients and SDs).
 
     Raises
     ------

@@ -161,6 +161,7 @@ def get_transform(name: str) -> Transform:
     Returns
     -------
     Transform
+        Forward and inverse functions, domain and (for angles) period.
 
     Raises
     ------

@@ -175,6 +175,7 @@ def zscore(values, mean, sd, transform) -> np.ndarray:
     Returns
     -------
     ndarray, shape (m,)
+        Dimensionless z; NaN without a norm (or for a NaN value).
     """
     values = np.asarray(values, dtype=float)
     trans = np.broadcast_to(np.asarray(transform, dtype=object), values.shape)
@@ -217,6 +218,7 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
     Returns
     -------
     NormRows
+        The norm of every table row at ``age`` (NaN / ``has`` False where none).
 
     Raises
     ------

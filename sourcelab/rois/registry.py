@@ -121,6 +121,7 @@ def surface_to_sources(mask: np.ndarray) -> np.ndarray:
     Returns
     -------
     ndarray of int
+        Source indices (``0..n_src-1``) of the selected cortical vertices, increasing.
     """
     mask = np.asarray(mask, dtype=bool)
     if mask.shape != (N_SURFACE,):
@@ -138,6 +139,7 @@ def hemisphere_mask(hemi: str) -> np.ndarray:
     Returns
     -------
     ndarray of bool, shape (20484,)
+        True on the hemisphere's 10,242 vertices (all for ``"both"``).
     """
     if hemi == "both":
         return np.ones(N_SURFACE, dtype=bool)

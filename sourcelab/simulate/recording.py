@@ -281,6 +281,7 @@ def ocular_artefacts(ch_pos: np.ndarray, nasion: np.ndarray, *, n_times: int, sf
     Returns
     -------
     ndarray, shape (n_ch, n_times)
+        Invented ocular signals, volts, average reference, to add to EEG data.
     """
     from ..intake.ocular import ocular_templates
 

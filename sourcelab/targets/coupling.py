@@ -201,6 +201,7 @@ class CouplingTarget:
         Returns
         -------
         str
+            Indented JSON text of the target file.
         """
         return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
 
@@ -224,6 +225,7 @@ def coupling_target_from_dict(d: dict, *, path="target", current: Fingerprint | 
     Returns
     -------
     CouplingTarget
+        The validated pair or edge target.
 
     Raises
     ------
@@ -534,6 +536,7 @@ def replay_coupling_array(data_uv: np.ndarray, sfreq: float, target: CouplingTar
     Returns
     -------
     CouplingReplay
+        One row per completed segment.
     """
     data_uv = np.asarray(data_uv, dtype=float)
     tracker = OnlineCoupling(target, sfreq)
@@ -563,6 +566,7 @@ def plot_coupling_replay(result: CouplingReplay, target: CouplingTarget, *, figu
     Returns
     -------
     matplotlib.figure.Figure
+        Two panels: windowed value and z (the drawn ``figure`` when given).
     """
     from matplotlib.figure import Figure
 
@@ -743,6 +747,8 @@ def export_coupling_target(result_dir: str | Path, *, kind: str, label: str, ban
     Returns
     -------
     CouplingTarget
+        Node weights (2, 19), the offline value and, with norms, the norm at the participant's
+        age.
 
     Raises
     ------

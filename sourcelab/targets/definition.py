@@ -91,6 +91,7 @@ def butter_sos(lo: float, hi: float, sfreq: float, *, order: int = FILTER_ORDER)
     Returns
     -------
     sos : ndarray, shape (order, 6)
+        Second-order sections for :func:`scipy.signal.sosfilt` (band-pass of order ``2 * order``).
     """
     from scipy.signal import butter
 
@@ -275,6 +276,7 @@ class TargetDefinition:
         Returns
         -------
         str
+            Indented JSON text of the target file.
         """
         return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
 

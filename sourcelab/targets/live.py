@@ -414,6 +414,7 @@ class Smoother:
         self.reset()
 
     def reset(self) -> None:
+        """Forget the smoothing state (after a restart the next clean value is taken as it is)."""
         self._s = None
         self._hist: list[float] = []
 
@@ -732,6 +733,7 @@ class LiveValue:
         self.norm = target.norm
 
     def reset(self) -> None:
+        """Restart the smoother (see :meth:`Smoother.reset`)."""
         self.smoother.reset()
 
     def update(self, power: float, clean: bool) -> tuple[float, float, float]:

@@ -289,6 +289,7 @@ def replay_array(data_uv: np.ndarray, sfreq: float, target: TargetDefinition, *,
     Returns
     -------
     ReplayResult
+        One row per step, with the smoothed value and threshold flag.
     """
     data_uv = np.asarray(data_uv, dtype=float)
     tracker = OnlineTarget(target, sfreq)
@@ -328,6 +329,7 @@ def welch_band_response(freqs: np.ndarray, lo: float, hi: float, *, sfreq: float
     Returns
     -------
     ndarray, shape (n_f,)
+        Dimensionless power gain at each frequency.
     """
     n = np.arange(n_times)
     w = 0.5 - 0.5 * np.cos(2 * np.pi * n / n_times)
@@ -387,6 +389,7 @@ def plot_replay(result: ReplayResult, target: TargetDefinition, *, figure=None):
     Returns
     -------
     matplotlib.figure.Figure
+        Two panels: power and z (the drawn ``figure`` when given).
     """
     from matplotlib.figure import Figure
 
