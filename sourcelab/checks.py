@@ -65,6 +65,7 @@ def check_type(name: str, value, types, *, where=None, type_name: str | None = N
     Returns
     -------
     value
+        ``value`` unchanged.
     """
     types = types if isinstance(types, tuple) else (types,)
     numeric = any(t in (int, float, numbers.Number, numbers.Real, numbers.Integral)
@@ -93,9 +94,28 @@ def _describe(value) -> str:
 def check_option(name: str, value, allowed: Iterable, *, where=None):
     """Refuse ``value`` unless it is one of ``allowed``.
 
+    ``True``/``False`` are not accepted for ``1``/``0`` unless ``allowed`` itself holds booleans;
+    dicts and lists are never accepted.
+
+    Parameters
+    ----------
+    name : str
+        Option or field name as the user knows it (``"--method"``, ``"inverse.method"``).
+    value : object
+    allowed : iterable
+        The accepted values; listed in the message.
+    where : str | Path | None
+        File the value came from (prefixed to the message).
+
     Returns
     -------
     value
+        ``value`` unchanged.
+
+    Raises
+    ------
+    InputError
+        ``"<where>: <name>: <value> is not one of <allowed>"``.
     """
     allowed = tuple(allowed)
     try:
@@ -122,6 +142,8 @@ def check_number(name: str, value, *, kind: type = float, low: float | None = No
     kind : {float, int}
     low, high : float, optional
         Bounds, inclusive unless ``low_open`` / ``high_open``.
+    low_open, high_open : bool
+        Make the lower / upper bound exclusive.
     none_ok : bool
         Accept ``None`` (returned as is).
     where : str | Path | None
@@ -129,6 +151,7 @@ def check_number(name: str, value, *, kind: type = float, low: float | None = No
     Returns
     -------
     float | int | None
+        ``value`` converted to ``kind`` (None only with ``none_ok``).
     """
     if value is None and none_ok:
         return None
@@ -176,10 +199,23 @@ def check_text(name: str, value, *, max_len: int = 200, pattern=None, allowed_te
 
     Parameters
     ----------
+    name : str
+        Option or field name as the user knows it.
+    value : object
+        Must be a non-empty ``str`` without CR, LF, TAB or NUL.
+    max_len : int
+        Largest accepted length, characters.
     pattern : re.Pattern, optional
         Must match the whole text (``fullmatch``).
     allowed_text : str
         How to describe ``pattern`` in the message.
+    where : str | Path | None
+        File the value came from (prefixed to the message).
+
+    Returns
+    -------
+    str
+        ``value`` unchanged.
     """
     if not isinstance(value, str):
         raise _fail(name, f"must be a text, got {_describe(value)}", where)
@@ -215,6 +251,7 @@ def check_path(name: str, value, *, kind: str = "file", must_exist: bool = True,
     Returns
     -------
     Path
+        ``value`` as a Path (not resolved).
     """
     check_option("kind", kind, ("file", "dir", "any"))
     if not isinstance(value, (str, os.PathLike)) or str(value) == "":
@@ -257,8 +294,24 @@ def check_path(name: str, value, *, kind: str = "file", must_exist: bool = True,
 
 
 def read_bytes_bounded(path: str | Path, *, max_bytes: int, what: str = "file") -> bytes:
-    """Read a whole file, refusing one larger than ``max_bytes`` (checked before and while
-    reading, so a growing or special file cannot exhaust memory).
+    """Read a whole file, refusing one larger than ``max_bytes``.
+
+    The size is checked before and while reading, so a growing or special file cannot exhaust
+    memory.
+
+    Parameters
+    ----------
+    path : str | Path
+        File to read.
+    max_bytes : int
+        Largest accepted size, bytes.
+    what : str
+        How to call the file in messages (``"target file"``).
+
+    Returns
+    -------
+    bytes
+        The whole file content.
 
     Raises
     ------
@@ -293,9 +346,21 @@ def _refuse_constant(name: str):
 def walk_json(obj, *, max_depth: int = JSON_MAX_DEPTH, where=None, what: str = "JSON") -> None:
     """Check a parsed JSON value iteratively: nesting depth and finite numbers.
 
+    Parameters
+    ----------
+    obj : object
+        Value returned by a JSON parser (dicts, lists, str, numbers, bool, None).
+    max_depth : int
+        Deepest accepted nesting of dicts/lists (the top level is depth 1).
+    where : str | Path | None
+        File named in messages.
+    what : str
+        How to call the value in messages.
+
     Raises
     ------
     InputError
+        If nested deeper than ``max_depth`` or holding a non-finite float.
     """
     stack = [(obj, 1)]
     while stack:
@@ -331,6 +396,7 @@ def loads_json(text: str | bytes, *, where=None, max_depth: int = JSON_MAX_DEPTH
     Returns
     -------
     object
+        The parsed value (dicts, lists, str, finite numbers, bool, None).
     """
     if isinstance(text, bytes):
         try:
@@ -370,6 +436,29 @@ def _bracket_depth(text: str) -> int:
 
 def load_json(path: str | Path, *, max_bytes: int = JSON_MAX_BYTES,
               max_depth: int = JSON_MAX_DEPTH, what: str = "JSON file"):
-    """Read and parse a JSON file with :func:`read_bytes_bounded` and :func:`loads_json`."""
+    """Read and parse a JSON file with :func:`read_bytes_bounded` and :func:`loads_json`.
+
+    Parameters
+    ----------
+    path : str | Path
+        JSON file.
+    max_bytes : int
+        Largest accepted file size, bytes.
+    max_depth : int
+        Deepest accepted nesting.
+    what : str
+        How to call the file in messages.
+
+    Returns
+    -------
+    object
+        The parsed JSON value (finite numbers only).
+
+    Raises
+    ------
+    InputError
+        Unreadable, too large, not UTF-8, not valid JSON, too deep or non-finite; the message
+        names ``path``.
+    """
     data = read_bytes_bounded(path, max_bytes=max_bytes, what=what)
     return loads_json(data, where=Path(path), max_depth=max_depth, what=what)

@@ -28,10 +28,23 @@ log = logging.getLogger("sourcelab")
 def find_recording(cohort_dir: str | Path, participant_id: str) -> Path:
     """Find one participant's recording among the files that exist in ``cohort_dir``.
 
-    Looks in ``<cohort_dir>/<id>/eeg/`` (BIDS) and in ``cohort_dir`` itself for files with a
-    recording suffix (:data:`sourcelab.constants.RECORDING_SUFFIXES`) whose name is the sanitised ID or starts with
-    it followed by ``_`` or ``.``.  The ID never becomes a path: it is only compared with names
-    listed from the folder.
+    Looks in ``<cohort_dir>/<id>/eeg/`` (BIDS; ``<id>/`` itself when it has no ``eeg`` folder,
+    ``<id>`` with or without the ``sub-`` prefix) and in ``cohort_dir`` itself for files with a
+    recording suffix (:data:`sourcelab.constants.RECORDING_SUFFIXES`) whose name is the sanitised
+    ID or starts with it followed by ``_`` or ``.``.  The ID never becomes a path: it is only
+    compared with names listed from the folder.
+
+    Parameters
+    ----------
+    cohort_dir : str | Path
+        The cohort folder (holding ``participants.tsv``).
+    participant_id : str
+        ID from ``participants.tsv``, e.g. ``"sub-01"`` or ``"01"``.
+
+    Returns
+    -------
+    Path
+        The one matching recording.
 
     Raises
     ------
@@ -121,6 +134,7 @@ def fit_cohort(entries, source_maps, *, fingerprint: Fingerprint, condition: str
     Returns
     -------
     fit : NormsFit
+        Norms and the leave-one-out material for calibration.
     source_norms : SourceNorms | None
         Per-source age models of the same degree (None for age-binned norms, whose bins the
         per-source file does not model).
@@ -163,7 +177,9 @@ def write_cohort_norms(fit, source_norms, out: str | Path):
     norms : Norms
         As written (``path``, ``sha256``).
     report : DataFrame
+        Per-row calibration (:func:`~sourcelab.norms.calibration.calibration_report`).
     report_path, figure_path : Path
+        ``<stem>_calibration.tsv`` and ``<stem>_calibration.png``.
     """
     from .norms.calibration import calibration_report, plot_calibration
     from .norms.source_norms import source_norms_path, write_source_norms
@@ -215,6 +231,7 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
     Returns
     -------
     CohortBuild
+        The written norms, the fit, the calibration and the participants that failed.
 
     Notes
     -----

@@ -91,7 +91,26 @@ class Session:
 
 
 def read_session(path, *, label: str | None = None) -> Session:
-    """Read an analysis folder (tables, provenance, ``epochs.npz``)."""
+    """Read an analysis folder (tables, provenance, ``epochs.npz``).
+
+    Parameters
+    ----------
+    path : str | Path
+        An analysis output folder written by ``sourcelab analyze``.
+    label : str, optional
+        Name of the session in tables and figures; default the folder name.
+
+    Returns
+    -------
+    Session
+        The folder, its label, the tables and the per-epoch spectra.
+
+    Raises
+    ------
+    InputError
+        If the folder cannot be read, or ``epochs.npz`` and the tables come from different
+        pipelines.
+    """
     from .epochfile import FILENAME, read_epochs
     from .targets.candidates import read_result_folder
 
@@ -329,9 +348,31 @@ def compare_sessions(sessions, *, n_boot: int = 1000, seed: int = 0, ci: float =
 
 
 def targeted_rows(table: pd.DataFrame, targets=None, *, max_rows: int = 8) -> pd.DataFrame:
-    """The rows to show across sessions: those named by ``targets`` (TargetDefinition, a path
-    to a target file, or ``(atlas, roi, hemisphere, band, measure)``), else changed rows, else
-    the largest |RCI|."""
+    """The rows to show across sessions.
+
+    Those named by ``targets``; without targets the changed rows of the first session pair,
+    then the others, by decreasing |RCI|, at most ``max_rows``.
+
+    Parameters
+    ----------
+    table : DataFrame
+        From :func:`compare_sessions` (its ``attrs["rows"]`` are the compared rows).
+    targets : sequence, optional
+        Each a TargetDefinition, a path to a target file, or
+        ``(atlas, roi, hemisphere, band, measure)``; targets without a compared row are skipped.
+    max_rows : int
+        Rows shown without targets.
+
+    Returns
+    -------
+    DataFrame
+        The selected rows of ``table.attrs["rows"]`` with their position in column ``_i``.
+
+    Raises
+    ------
+    InputError
+        If targets are given and none matches a compared row.
+    """
     from .targets import read_target
 
     rows = table.attrs["rows"]
@@ -361,9 +402,24 @@ def plot_sessions(table: pd.DataFrame, targets=None, *, use_z: bool | None = Non
                   figure=None, max_rows: int = 8):
     """The selected rows across sessions with each session's bootstrap interval.
 
+    Parameters
+    ----------
+    table : DataFrame
+        From :func:`compare_sessions`.
+    targets : sequence, optional
+        Rows to show, see :func:`targeted_rows`.
+    use_z : bool, optional
+        Plot z against the norm rather than the transformed value (log10 µV² or logit);
+        default: z when every session was z-scored.
+    figure : matplotlib.figure.Figure, optional
+        Figure to draw into; default a new one.
+    max_rows : int
+        Rows shown without targets.
+
     Returns
     -------
     matplotlib.figure.Figure
+        One line per selected row, sessions on the x axis.
     """
     from matplotlib.figure import Figure
 
@@ -402,7 +458,22 @@ def plot_sessions(table: pd.DataFrame, targets=None, *, use_z: bool | None = Non
 
 def compare_html(table: pd.DataFrame, *, figure_png: bytes | None = None,
                  max_rows: int = 60) -> str:
-    """A ``<section>`` for a report: changed rows, how change is judged, cautions."""
+    """A ``<section>`` for a report: changed rows, how change is judged, cautions.
+
+    Parameters
+    ----------
+    table : DataFrame
+        From :func:`compare_sessions`.
+    figure_png : bytes, optional
+        PNG embedded in the section (e.g. of :func:`plot_sessions`).
+    max_rows : int
+        Most changed rows listed.
+
+    Returns
+    -------
+    str
+        An HTML fragment (all text escaped).
+    """
     import base64
 
     from .cautions import CAUTIONS
@@ -437,9 +508,28 @@ def compare_html(table: pd.DataFrame, *, figure_png: bytes | None = None,
 
 
 def write_comparison(table: pd.DataFrame, out, *, targets=None, inputs=()) -> dict:
-    """Write ``compare.tsv``, ``compare.png``, ``compare.html`` (a section) and ``compare.json``
-    into the folder ``out`` (replaced atomically; ``inputs``: the folders and files read, which
-    ``out`` may not hold)."""
+    """Write the comparison into the folder ``out``.
+
+    Writes ``compare.tsv``, ``compare.png``, ``compare.html`` (a section) and ``compare.json``;
+    the folder is replaced atomically.
+
+    Parameters
+    ----------
+    table : DataFrame
+        From :func:`compare_sessions`.
+    out : str | Path
+        Output folder.
+    targets : sequence, optional
+        Rows plotted, see :func:`targeted_rows`.
+    inputs : sequence of path
+        The folders and files read, which ``out`` may not hold.
+
+    Returns
+    -------
+    dict
+        The summary written to ``compare.json`` (row counts, bootstrap settings, thresholds,
+        session labels, cautions).
+    """
     import json
 
     from .cautions import CAUTIONS

@@ -78,14 +78,43 @@ class EpochSpectra:
 
 
 def pack_triu(csd: np.ndarray) -> np.ndarray:
-    """Upper triangles of symmetric matrices, shape (..., n (n + 1) / 2), float32."""
+    """Upper triangles of symmetric matrices, shape (..., n (n + 1) / 2), float32.
+
+    Parameters
+    ----------
+    csd : ndarray, shape (..., n, n)
+        Symmetric matrices, e.g. band cross-spectra in µV².
+
+    Returns
+    -------
+    ndarray of float32, shape (..., n * (n + 1) // 2)
+        Row-major upper triangle (``numpy.triu_indices(n)``), diagonal included; same unit.
+    """
     n = csd.shape[-1]
     iu, ju = np.triu_indices(n)
     return np.asarray(csd[..., iu, ju], dtype=np.float32)
 
 
 def unpack_triu(packed: np.ndarray, n: int) -> np.ndarray:
-    """Inverse of :func:`pack_triu`: full symmetric matrices, float64."""
+    """Inverse of :func:`pack_triu`: full symmetric matrices, float64.
+
+    Parameters
+    ----------
+    packed : ndarray, shape (..., n * (n + 1) // 2)
+        Upper triangles as written by :func:`pack_triu`.
+    n : int
+        Matrix size (number of channels).
+
+    Returns
+    -------
+    ndarray of float64, shape (..., n, n)
+        Symmetric matrices, same unit as ``packed``.
+
+    Raises
+    ------
+    InputError
+        If the last axis of ``packed`` does not have ``n (n + 1) / 2`` entries.
+    """
     packed = np.asarray(packed, dtype=float)
     iu, ju = np.triu_indices(n)
     if packed.shape[-1] != iu.size:
@@ -105,12 +134,29 @@ def write_epochs(path: str | Path, epoch_csd: np.ndarray, *, ch_names, band_name
     Parameters
     ----------
     path : path
+        Output file; overwritten.
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch)
+        Real band cross-spectra of each clean epoch, µV² (stored as float32 upper triangles).
     ch_names, band_names : sequence of str
+        Channel order (length n_ch) and band names (length n_bands).
     band_edges : array-like, shape (n_bands, 2)
+        Band limits, Hz, [low, high).
     epoch_s, sfreq : float
+        Epoch length, s, and sampling rate of the recording, Hz.
     fingerprint : Fingerprint
+        Pipeline fingerprint of the analysis.
     onsets_s : ndarray, shape (n_epochs,), optional
+        Onset of each epoch, s; NaN (unknown) when omitted.
+
+    Returns
+    -------
+    Path
+        ``path``.
+
+    Raises
+    ------
+    InputError
+        If ``epoch_csd`` or ``onsets_s`` has the wrong shape.
     """
     c = np.asarray(epoch_csd)
     if c.ndim != 4 or c.shape[-1] != c.shape[-2] or c.shape[-1] != len(ch_names):
@@ -139,6 +185,11 @@ def read_epochs(path: str | Path) -> EpochSpectra:
     ----------
     path : path
         The file, or an analysis folder holding it.
+
+    Returns
+    -------
+    EpochSpectra
+        ``csd`` unpacked to full (n_epochs, n_bands, n_ch, n_ch) float64 matrices, µV².
 
     Raises
     ------

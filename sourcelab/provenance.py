@@ -51,7 +51,20 @@ log = logging.getLogger("sourcelab")
 
 
 def sha256_file(path: str | Path, *, chunk: int = 1 << 20) -> str:
-    """Hex sha256 of a file's bytes."""
+    """Hex sha256 of a file's bytes.
+
+    Parameters
+    ----------
+    path : str | Path
+        File to hash.
+    chunk : int
+        Read size, bytes (memory only; the hash does not depend on it).
+
+    Returns
+    -------
+    str
+        64 lower-case hex digits.
+    """
     h = hashlib.sha256()
     with open(path, "rb") as f:
         for block in iter(lambda: f.read(chunk), b""):
@@ -83,12 +96,39 @@ class Fingerprint:
                 "epoch_s", "pipeline_version")
 
     def to_dict(self) -> dict:
+        """The fingerprint as a JSON-serialisable dict (``bands`` as a list of lists).
+
+        Returns
+        -------
+        dict
+            One key per field, including ``sourcelab_version``.
+        """
         d = asdict(self)
         d["bands"] = [list(b) for b in self.bands]
         return d
 
     @classmethod
     def from_dict(cls, d: dict) -> "Fingerprint":
+        """Rebuild a fingerprint from :meth:`to_dict` output (e.g. read from JSON).
+
+        Unknown keys are ignored; missing ``epoch_s`` defaults to 2.0 s and missing
+        ``pipeline_version`` to -1 (so it never matches a current fingerprint).
+
+        Parameters
+        ----------
+        d : dict
+            Needs ``headmodel_sha256``, ``method``, ``orientation``, ``lambda2`` and ``bands``
+            (``[name, low_hz, high_hz]`` triples).
+
+        Returns
+        -------
+        Fingerprint
+
+        Raises
+        ------
+        InputError
+            If a required key is missing or a value does not convert.
+        """
         try:
             d = dict(d)
             d["bands"] = tuple((str(b[0]), float(b[1]), float(b[2])) for b in d["bands"])
@@ -100,7 +140,20 @@ class Fingerprint:
             raise InputError(f"incomplete pipeline fingerprint ({exc!r})") from None
 
     def differences(self, other: "Fingerprint") -> list[str]:
-        """Names of compared fields that differ, with both values."""
+        """Names of compared fields that differ, with both values.
+
+        Only :attr:`COMPARED` fields count; ``lambda2`` is compared to a relative 1e-9.
+
+        Parameters
+        ----------
+        other : Fingerprint
+
+        Returns
+        -------
+        list of str
+            ``"<field>: <self value> vs <other value>"`` per differing field; empty when the numbers
+            are comparable.
+        """
         out = []
         for name in self.COMPARED:
             a, b = getattr(self, name), getattr(other, name)
@@ -113,6 +166,13 @@ class Fingerprint:
         return out
 
     def to_json(self) -> str:
+        """:meth:`to_dict` as JSON text with sorted keys.
+
+        Returns
+        -------
+        str
+            Compact JSON, sorted keys (stored in norms headers and epochs files).
+        """
         return json.dumps(self.to_dict(), sort_keys=True)
 
 
@@ -124,6 +184,23 @@ def safe_name(identifier: str, *, max_len: int = 64) -> str:
 
     Anything outside ``[A-Za-z0-9._-]`` becomes ``_``; leading dots are removed so that the result
     is never ``.``/``..`` or hidden; an empty result is an error.
+
+    Parameters
+    ----------
+    identifier : str
+        Text from a file or user (converted with ``str``).
+    max_len : int
+        Longest result, characters (the text is cut).
+
+    Returns
+    -------
+    str
+        The safe name.
+
+    Raises
+    ------
+    InputError
+        If nothing but ``_`` would remain.
     """
     s = _SAFE.sub("_", str(identifier)).lstrip(".")[:max_len]
     if not s.strip("_"):
@@ -233,6 +310,16 @@ def recognise_output_dir(folder: str | Path) -> OutputFolder | None:
     ``.sourcelab-output.json``); and, for folders written by sourcelab 0.1, their provenance
     (``"sourcelab_provenance": 1`` with a fingerprint), ``replay.json`` or ``batch_status.tsv``.
     A symbolic link is never recognised.
+
+    Parameters
+    ----------
+    folder : str | Path
+        Folder to inspect (only read).
+
+    Returns
+    -------
+    OutputFolder or None
+        The kind and the files sourcelab wrote there; None when not recognised (or not a folder).
     """
     folder = Path(folder)
     try:
@@ -288,6 +375,20 @@ def foreign_entries(folder: str | Path, info: OutputFolder, *, limit: int = 5) -
 
     Symbolic links, special files and unlisted files count as foreign; a folder counts only
     through its contents (an empty sub-folder is harmless).
+
+    Parameters
+    ----------
+    folder : str | Path
+        The output folder.
+    info : OutputFolder
+        What :func:`recognise_output_dir` found for it.
+    limit : int
+        Stop after this many entries.
+
+    Returns
+    -------
+    list of str
+        Relative POSIX paths, in walk order; empty when everything is sourcelab's.
     """
     folder = Path(folder)
     out: list[str] = []
@@ -431,6 +532,7 @@ def check_output_dir(out, *, kind: str = "analysis", inputs=(), name: str = "--o
     Returns
     -------
     Path
+        ``out`` as a Path, after the checks.
 
     Raises
     ------
@@ -628,6 +730,13 @@ def clean_stale_temporaries(parent: str | Path, name: str | None = None) -> list
     empty one is removed, a recognised sourcelab output is removed file by file, anything else
     is left alone.  ``.NAME.old-PID`` folders of sourcelab 0.1 are removed when recognised.
 
+    Parameters
+    ----------
+    parent : str | Path
+        Folder holding the outputs (``""`` for the current folder).
+    name : str, optional
+        Output name whose temporaries to look for; None: any.
+
     Returns
     -------
     list of Path
@@ -805,6 +914,17 @@ def atomic_output_dir(out: str | Path, *, overwrite: bool = True, kind: str = "a
         Written into the marker; an existing ``out`` must be of the same family.
     inputs : iterable of path
         Files read for this output; ``out`` may not hold them.
+
+    Yields
+    ------
+    Path
+        The temporary folder to write into; committed to ``out`` when the block exits
+        without an exception.
+
+    Raises
+    ------
+    InputError
+        If ``out`` cannot be written or replaced (one line naming it).
     """
     if kind == "batch":
         raise ValueError("a batch folder is updated in place, not replaced")
@@ -890,9 +1010,24 @@ def prepare_output_root(out: str | Path, *, kind: str = "batch", inputs=()) -> P
     ``provenance.json`` (:data:`MARKER_KEY`, kind ``batch``) and cleaned of stale temporary
     folders and group-table files of killed runs.
 
+    Parameters
+    ----------
+    out : str | Path
+        The folder.
+    kind : str
+        Output kind recorded in the marker (default ``"batch"``).
+    inputs : iterable of path
+        Files the command reads; ``out`` must not be or contain any of them.
+
     Returns
     -------
     Path
+        ``out``, existing and marked.
+
+    Raises
+    ------
+    InputError
+        If ``out`` is not new, empty or a sourcelab output of this kind.
     """
     out = check_output_dir(out, kind=kind, inputs=inputs, name="--out", clean=False)
     _created_parents(out)
@@ -965,7 +1100,26 @@ def recognise_output_file(path: str | Path, kind: str) -> bool:
     ``# sourcelab-norms``; ``target``: ``"schema": "sourcelab-target/``; ``candidates``: the
     cautions comment lines and a ``rank`` header; ``leakage``: the leakage table header;
     ``calibration``: the calibration report header; ``stream-log``: the header of a
-    ``targets stream --log`` file.
+    ``targets stream --log`` file; ``source-norms``: the ``format`` array of a per-source norms
+    ``.npz``.
+
+    Parameters
+    ----------
+    path : str | Path
+        The file (a symbolic link is never recognised).
+    kind : str
+        One of ``"png"``, ``"norms"``, ``"target"``, ``"candidates"``, ``"leakage"``,
+        ``"calibration"``, ``"stream-log"``, ``"source-norms"``.
+
+    Returns
+    -------
+    bool
+        False also when the file cannot be opened.
+
+    Raises
+    ------
+    ValueError
+        For an unknown ``kind`` (a programming error, not user input).
     """
     check_option("kind", kind, _FILE_KINDS)
     try:
@@ -1029,6 +1183,7 @@ def npz_bytes(arrays: dict) -> bytes:
     Returns
     -------
     bytes
+        The file's bytes (zip64, one ``<key>.npy`` member per array).
     """
     import io
     import zipfile
@@ -1045,7 +1200,18 @@ def npz_bytes(arrays: dict) -> bytes:
 
 
 def recognise_any_output_file(path: str | Path) -> bool:
-    """Was this existing regular file written by sourcelab (any kind it writes on its own)?"""
+    """Was this existing regular file written by sourcelab (any kind it writes on its own)?
+
+    Parameters
+    ----------
+    path : str | Path
+        The file (symbolic links and special files are never recognised).
+
+    Returns
+    -------
+    bool
+        True when a sourcelab header, marker or PNG tag is found.
+    """
     try:
         st = os.lstat(path)
     except OSError:
@@ -1071,9 +1237,29 @@ def check_output_file(path, *, kind: str, name: str = "--out", suffixes=None,
     folders are allowed (created when the file is written); the nearest existing one must be a
     writable folder.
 
+    Parameters
+    ----------
+    path : str | Path
+        The output file.
+    kind : str
+        What the file is (``"png"``, ``"norms"``, ``"target"``, ...; see
+        :func:`recognise_output_file`); an existing file must be of this kind.
+    name : str
+        The option, for messages.
+    suffixes : iterable of str, optional
+        Allowed endings in lower case (``".tsv"``), compared with the lower-cased name.
+    inputs : iterable of path
+        Files the command reads; ``path`` may not be one of them.
+
     Returns
     -------
     Path
+        ``path`` as a Path.
+
+    Raises
+    ------
+    InputError
+        One line naming the path and the problem.
     """
     if not isinstance(path, (str, os.PathLike)) or os.fspath(path).strip() == "":
         raise InputError(f"{name}: an empty path; give a file name")
@@ -1112,6 +1298,13 @@ def atomic_write_bytes(path: str | Path, data: bytes) -> None:
     ``path`` is replaced only when sourcelab wrote it (:func:`recognise_any_output_file`); a
     symbolic link, a folder or another program's file raises :class:`InputError` and is left
     untouched.
+
+    Parameters
+    ----------
+    path : str | Path
+        Output file.
+    data : bytes
+        The whole content.
     """
     path = Path(path)
     if os.path.lexists(path) and not recognise_any_output_file(path):
@@ -1139,12 +1332,36 @@ def atomic_write_bytes(path: str | Path, data: bytes) -> None:
 
 
 def atomic_write_text(path: str | Path, text: str) -> None:
-    """Write a UTF-8 text file atomically (see :func:`atomic_write_bytes`)."""
+    """Write a UTF-8 text file atomically (see :func:`atomic_write_bytes`).
+
+    Parameters
+    ----------
+    path : str | Path
+        Output file.
+    text : str
+        The whole content, encoded as UTF-8.
+    """
     atomic_write_bytes(path, text.encode("utf-8"))
 
 
 def save_png(fig, path: str | Path, *, dpi: int = 100, **kwargs) -> Path:
-    """Save a Matplotlib figure as a PNG file atomically, marked as written by sourcelab."""
+    """Save a Matplotlib figure as a PNG file atomically, marked as written by sourcelab.
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+    path : str | Path
+        Output file (replaced only when sourcelab wrote it).
+    dpi : int
+        Resolution, dots per inch.
+    **kwargs
+        Passed to :meth:`matplotlib.figure.Figure.savefig`.
+
+    Returns
+    -------
+    Path
+        ``path``.
+    """
     import io
 
     buf = io.BytesIO()
@@ -1154,7 +1371,20 @@ def save_png(fig, path: str | Path, *, dpi: int = 100, **kwargs) -> Path:
 
 
 def finite_json(o):
-    """Replace NaN/inf by None throughout nested dicts and lists (JSON has no NaN)."""
+    """Replace NaN/inf by None throughout nested dicts and lists (JSON has no NaN).
+
+    Parameters
+    ----------
+    o : object
+        Dicts, lists, tuples, floats and NumPy scalars are converted recursively; anything else
+        is returned as is.
+
+    Returns
+    -------
+    object
+        Same structure (tuples become lists), NumPy scalars as Python numbers, non-finite floats
+        as None.
+    """
     if isinstance(o, dict):
         return {k: finite_json(v) for k, v in o.items()}
     if isinstance(o, (list, tuple)):
@@ -1174,5 +1404,18 @@ def finite_json(o):
 
 
 def dumps_json(obj, **kwargs) -> str:
-    """``json.dumps`` that always writes valid JSON: NaN and infinities become ``null``."""
+    """``json.dumps`` that always writes valid JSON: NaN and infinities become ``null``.
+
+    Parameters
+    ----------
+    obj : object
+        JSON-serialisable after :func:`finite_json`.
+    **kwargs
+        Passed to :func:`json.dumps` (``indent``, ``sort_keys``...).
+
+    Returns
+    -------
+    str
+        JSON text without NaN/Infinity literals.
+    """
     return json.dumps(finite_json(obj), allow_nan=False, **kwargs)

@@ -63,6 +63,13 @@ class RecordingInfo:
     condition: str | None = None
 
     def to_dict(self) -> dict:
+        """The fields as a plain dict (for provenance).
+
+        Returns
+        -------
+        dict
+            One key per attribute (:func:`dataclasses.asdict`).
+        """
         return asdict(self)
 
 
@@ -108,6 +115,14 @@ class QualitySummary:
     reliability: dict = field(default_factory=dict)
 
     def to_dict(self) -> dict:
+        """The fields as a plain dict (for provenance).
+
+        Returns
+        -------
+        dict
+            One key per attribute; ``excluded`` as a list of dicts, ``reliability`` as
+            ``{name: ReliabilitySummary.to_dict()}``.
+        """
         d = asdict(self)
         d["excluded"] = [dict(e) for e in self.excluded]
         d["reliability"] = {k: v.to_dict() for k, v in self.reliability.items()}
@@ -137,6 +152,14 @@ class NormsInfo:
     fingerprint: Fingerprint
 
     def to_dict(self) -> dict:
+        """The fields as a plain dict (for provenance).
+
+        Returns
+        -------
+        dict
+            ``path``, ``sha256``, ``condition``, ``cohort`` (a copy), ``n_rows`` and ``fingerprint``
+            (:meth:`Fingerprint.to_dict`).
+        """
         return {"path": self.path, "sha256": self.sha256, "condition": self.condition,
                 "cohort": dict(self.cohort), "n_rows": self.n_rows,
                 "fingerprint": self.fingerprint.to_dict()}
@@ -230,7 +253,23 @@ class AnalysisResult:
         return self.norms is not None
 
     def atlas(self, name: str):
-        """One of the atlases of the ROI table, by name."""
+        """One of the atlases of the ROI table, by name.
+
+        Parameters
+        ----------
+        name : str
+            Atlas name, e.g. ``"brodmann"``.
+
+        Returns
+        -------
+        Atlas
+            The atlas object used for the ROI table.
+
+        Raises
+        ------
+        KeyError
+            If the analysis did not use that atlas.
+        """
         for a in self.atlases:
             if a.name == name:
                 return a
@@ -238,13 +277,41 @@ class AnalysisResult:
                        f"{[a.name for a in self.atlases]}")
 
     def source_map(self, band: str, measure: str = "absolute") -> np.ndarray:
-        """Per-source values of one band, shape (n_src,)."""
+        """Per-source values of one band, shape (n_src,).
+
+        Parameters
+        ----------
+        band : str
+            One of the configured band names.
+        measure : {"absolute", "relative"}
+            Absolute (sLORETA-standardised) or relative source power.
+
+        Returns
+        -------
+        ndarray of float32, shape (n_src,)
+            A row of :attr:`source_abs` or :attr:`source_rel` (not a copy).
+        """
         i = self.bands.names.index(band)
         return (self.source_abs if measure == "absolute" else self.source_rel)[i]
 
     def roi_z_map(self, band: str, measure: str = "absolute",
                   atlas: str = "brodmann") -> np.ndarray:
-        """Per-source map of ROI z-scores (each source gets its ROI's z; NaN elsewhere)."""
+        """Per-source map of ROI z-scores (each source gets its ROI's z; NaN elsewhere).
+
+        Parameters
+        ----------
+        band : str
+            One of the configured band names.
+        measure : {"absolute", "relative"}
+        atlas : str
+            Atlas of the ROI table whose ROIs are painted.
+
+        Returns
+        -------
+        ndarray, shape (n_src,)
+            ROI z per source (a source in overlapping ROIs gets the last one's); NaN outside the
+            ROIs and everywhere without norms.
+        """
         at = self.atlas(atlas)
         out = np.full(self.source_abs.shape[1], np.nan)
         t = self.roi_table
@@ -297,7 +364,13 @@ class AnalysisResult:
                               command=command)
 
     def summary(self) -> str:
-        """A few lines for a terminal or a log: data kept, deviations, warnings, cautions."""
+        """A few lines for a terminal or a log: data kept, deviations, warnings, cautions.
+
+        Returns
+        -------
+        str
+            Newline-separated text.
+        """
         from .cautions import SHORT
         from .constants import Z_THRESHOLD
 

@@ -59,7 +59,20 @@ def analysed_bins(n_times: int, sfreq: float, bands: Bands) -> tuple[np.ndarray,
 
 
 def band_bin_indices(freqs: np.ndarray, bands: Bands) -> list[np.ndarray]:
-    """Positions in ``freqs`` of each band's bins (``lo <= f < hi``), one int array per band."""
+    """Positions in ``freqs`` of each band's bins (``lo <= f < hi``), one int array per band.
+
+    Parameters
+    ----------
+    freqs : ndarray, shape (n_bins,)
+        Bin frequencies, Hz (e.g. from :func:`analysed_bins`).
+    bands : Bands
+        Band names and ``[low, high)`` edges in Hz.
+
+    Returns
+    -------
+    list of ndarray of int, length n_bands
+        Indices into ``freqs``; empty for a band without a bin.
+    """
     freqs = np.asarray(freqs, dtype=float)
     return [np.flatnonzero((freqs >= lo) & (freqs < hi)) for lo, hi in bands.edges]
 
@@ -90,6 +103,7 @@ def epoch_fourier(epochs: np.ndarray, sfreq: float, bands: Bands, *, taper: bool
     Returns
     -------
     spec : ndarray, shape (n_epochs, n_ch, n_bins), complex
+        Scaled so that ``X Xᴴ`` summed over a band's bins is band power (µV² for µV data).
     freqs : ndarray, shape (n_bins,)
         Hz.
     """
@@ -164,6 +178,7 @@ def band_sums(bin_csd: np.ndarray, freqs: np.ndarray, bands: Bands) -> np.ndarra
     Returns
     -------
     ndarray, shape (..., n_bands, n_ch, n_ch), float64
+        Real parts summed over each band's bins: band power (µV² for µV data) on the diagonal.
     """
     idx = band_bin_indices(freqs, bands)
     return np.stack([bin_csd[..., i, :, :].real.sum(axis=-3, dtype=float) for i in idx],
@@ -219,6 +234,16 @@ def average_reference_projector(n_ch: int) -> np.ndarray:
 
     Re-referencing to the average is a projection: it must be applied to the data model (leadfield
     and data alike) for inverse modelling, never by subtracting a noisy mean from one of them only.
+
+    Parameters
+    ----------
+    n_ch : int
+        Number of channels.
+
+    Returns
+    -------
+    ndarray, shape (n_ch, n_ch)
+        Symmetric and idempotent, rank ``n_ch - 1``.
     """
     return np.eye(n_ch) - 1.0 / n_ch
 
@@ -233,6 +258,7 @@ def average_reference(csd: np.ndarray) -> np.ndarray:
     Returns
     -------
     ndarray, shape (..., n_ch, n_ch)
+        ``P C P``, same unit as ``csd``.
     """
     p = average_reference_projector(csd.shape[-1])
     return p @ csd @ p
@@ -259,7 +285,20 @@ def broadband_cross_spectra(epochs: np.ndarray, sfreq: float, *,
 
 
 def check_bands_within(bands: Bands, total: tuple[float, float] = BROADBAND_HZ) -> None:
-    """Refuse bands reaching outside the broadband total (their relative power is undefined)."""
+    """Refuse bands reaching outside the broadband total (their relative power is undefined).
+
+    Parameters
+    ----------
+    bands : Bands
+        Band names and ``[low, high)`` edges in Hz.
+    total : (float, float)
+        Broadband range, Hz; default :data:`sourcelab.config.BROADBAND_HZ` (1-45 Hz).
+
+    Raises
+    ------
+    InputError
+        Naming the first band with ``low < total[0]`` or ``high > total[1]``.
+    """
     lo_t, hi_t = total
     for name, (lo, hi) in zip(bands.names, bands.edges):
         if lo < lo_t or hi > hi_t:
@@ -296,11 +335,17 @@ def relative_power(absolute: np.ndarray, total: np.ndarray | None = None) -> np.
     Parameters
     ----------
     absolute : ndarray, shape (n_bands, ...)
+        Absolute band power, e.g. µV².
     total : ndarray, shape (1, ...) or (...), optional
-        Power over the fixed broadband range (:data:`sourcelab.config.BROADBAND_HZ`).  The
-        pipeline always passes it.  Without it the sum over the given bands is used (the
+        Power over the fixed broadband range (:data:`sourcelab.config.BROADBAND_HZ`), same unit.
+        The pipeline always passes it.  Without it the sum over the given bands is used (the
         pre-0.2 definition, which depends on the band list; kept for callers that have no
         broadband spectrum).
+
+    Returns
+    -------
+    ndarray, shape (n_bands, ...)
+        Dimensionless fraction; NaN where the total is not > 0.
     """
     if total is None:
         total = absolute.sum(axis=0, keepdims=True)

@@ -136,6 +136,7 @@ class PairStatistics:
         acc : dict
             name -> ndarray, shape (n_rep or 1, n_bins, n_pairs)
         power : ndarray, shape (n_rep or 1, n_bins, n_nodes)
+            Weighted mean node power ``|X|²`` (µV²/Hz per bin for sensor coefficients).
         """
         k = self.n_epochs
         shape = self.power.shape[1:]
@@ -198,6 +199,7 @@ def pair_statistics(csd: np.ndarray, freqs: np.ndarray, pairs) -> PairStatistics
     Returns
     -------
     PairStatistics
+        Per-epoch pair statistics, shape (n_epochs, n_bins, n_pairs), and node powers.
     """
     csd = np.asarray(csd)
     if csd.ndim != 4 or csd.shape[-1] != csd.shape[-2]:
@@ -223,7 +225,15 @@ def pair_statistics_from_fourier(spec: np.ndarray, freqs: np.ndarray, pairs) -> 
         Scaled coefficients (:func:`sourcelab.spectra.epoch_fourier`), or ROI coefficients
         ``W X``.
     freqs : ndarray, shape (n_bins,)
+        Hz.
     pairs : ndarray of int, shape (n_pairs, 2)
+        Node indices ``(a, b)`` of each pair.
+
+    Returns
+    -------
+    PairStatistics
+        Per-epoch statistics as float32, shape (n_epochs, n_bins, n_pairs), and node power
+        ``|X|²``, shape (n_epochs, n_bins, n_nodes) (µV²/Hz for sensor coefficients).
     """
     spec = np.asarray(spec)
     if spec.ndim != 3 or not np.iscomplexobj(spec):
@@ -299,7 +309,25 @@ def bin_measures(acc: dict, power: np.ndarray, ia: np.ndarray, ib: np.ndarray,
 
 
 def band_matrix(freqs: np.ndarray, band_idx) -> np.ndarray:
-    """Averaging matrix, shape (n_bins, n_bands): ``1/n_b`` for the bins of band ``b``."""
+    """Averaging matrix, shape (n_bins, n_bands): ``1/n_b`` for the bins of band ``b``.
+
+    Parameters
+    ----------
+    freqs : ndarray, shape (n_bins,)
+        Bin frequencies, Hz (only their number is used).
+    band_idx : sequence of int arrays, length n_bands
+        Bins of each band (:func:`sourcelab.spectra.band_bin_indices`).
+
+    Returns
+    -------
+    ndarray, shape (n_bins, n_bands)
+        ``per_bin @ A`` averages per-bin values over each band.
+
+    Raises
+    ------
+    InputError
+        If a band has no bin.
+    """
     a = np.zeros((len(freqs), len(band_idx)))
     for b, idx in enumerate(band_idx):
         if len(idx) == 0:
@@ -419,9 +447,19 @@ def coupling_from_statistics(ps: PairStatistics, band_idx, weights: np.ndarray |
 def conjugation_signs(n_epochs: int, *, n_rep: int = 500, seed: int = 0) -> np.ndarray:
     """Random ±1 per epoch and replicate for the conjugation (time-reversal) null.
 
+    Parameters
+    ----------
+    n_epochs : int
+        Number of epochs.
+    n_rep : int
+        Number of null replicates.
+    seed : int
+        Seed of :func:`numpy.random.default_rng`.
+
     Returns
     -------
     ndarray, shape (n_rep, n_epochs), float32
+        Each entry -1 or +1 with probability 1/2.
     """
     rng = np.random.default_rng(seed)
     return rng.choice(np.array([-1.0, 1.0], dtype=np.float32), size=(int(n_rep), int(n_epochs)))
@@ -433,6 +471,25 @@ def bootstrap_weights(n_epochs: int, *, n_boot: int = 1000, seed: int = 0) -> np
     The same draw as :func:`sourcelab.trust.bootstrap.bootstrap_weights` for the same seed, so
     band-power and coupling intervals resample the same epochs (the first ``n_boot`` of them when
     the counts differ).  The array is cached and read-only.
+
+    Parameters
+    ----------
+    n_epochs : int
+        Number of clean epochs, >= 2.
+    n_boot : int
+        Number of bootstrap replicates, >= 10.
+    seed : int
+        Seed of :func:`numpy.random.default_rng`.
+
+    Returns
+    -------
+    ndarray, shape (n_boot, n_epochs)
+        Each row sums to 1.
+
+    Raises
+    ------
+    InputError
+        For fewer than 2 epochs or 10 replicates.
     """
     if int(n_epochs) < 2:
         raise InputError(f"bootstrap: need at least 2 clean epochs, got {n_epochs}")
@@ -488,8 +545,14 @@ def bootstrap_intervals(ps: PairStatistics, band_idx, estimate: dict[str, np.nda
     estimate : dict
         The estimate's band measures (from :func:`coupling_from_statistics`), shape
         (1, n_bands, n_pairs) each.
-    n_boot, seed, ci
-        Replicates, seed (same draw as the band-power bootstrap), coverage.
+    n_boot : int
+        Bootstrap replicates.
+    seed : int
+        Seed (the same draw as the band-power bootstrap).
+    ci : float
+        Coverage of the percentile interval, e.g. 0.95.
+    chunk : int
+        Replicates per pass (memory only; see :func:`coupling_from_statistics`).
     measures : sequence of str
         Subset of :data:`BAND_MEASURES`.
 
@@ -631,6 +694,8 @@ def conjugation_null(ps: PairStatistics, band_idx, *, method: str = "analytic",
     seed : int
     level : float
         Quantile reported as the null threshold.
+    chunk : int
+        Monte-Carlo replicates per pass (memory only; see :func:`coupling_from_statistics`).
 
     Returns
     -------

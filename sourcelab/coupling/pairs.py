@@ -65,17 +65,40 @@ class PairSets:
     side: tuple[str, ...]
 
     def label(self, pair) -> str:
-        """``"F3-F4"`` for a pair of indices."""
+        """``"F3-F4"`` for a pair of indices.
+
+        Parameters
+        ----------
+        pair : pair of int
+            Indices into :attr:`ch_names`.
+
+        Returns
+        -------
+        str
+            ``"<name a>-<name b>"``.
+        """
         a, b = (int(v) for v in pair)
         return f"{self.ch_names[a]}-{self.ch_names[b]}"
 
     def figure_pairs(self) -> np.ndarray:
-        """Homologous then intrahemispheric pairs (the pairs drawn on head maps)."""
+        """Homologous then intrahemispheric pairs (the pairs drawn on head maps).
+
+        Returns
+        -------
+        ndarray of int, shape (n_h + n_i, 2)
+            Index pairs into ``ch_names``.
+        """
         return np.vstack([self.homologous, self.intrahemispheric])
 
     def membership(self) -> dict[str, np.ndarray]:
-        """Boolean flags per pair of :attr:`all`: ``homologous``, ``anterior_posterior``,
-        ``intrahemispheric``."""
+        """Boolean flags per pair of :attr:`all`.
+
+        Returns
+        -------
+        dict of str to ndarray of bool, each shape (n (n-1)/2,)
+            ``homologous``, ``anterior_posterior`` and ``intrahemispheric``: whether each pair of
+            :attr:`all` (in either order) belongs to that set.
+        """
         def flags(sub):
             keys = {(int(a), int(b)) for a, b in sub} | {(int(b), int(a)) for a, b in sub}
             return np.array([(int(a), int(b)) in keys for a, b in self.all])
@@ -114,6 +137,7 @@ def pair_sets(ch_names, ch_pos) -> PairSets:
     Returns
     -------
     PairSets
+        All, homologous, anterior-posterior and intrahemispheric pairs, and each site's side.
     """
     names = tuple(str(c) for c in ch_names)
     pos = np.asarray(ch_pos, dtype=float)

@@ -103,7 +103,21 @@ PAIR_COLUMN_NOTES = {
 
 
 def average_reference_bins(csd: np.ndarray) -> np.ndarray:
-    """``P C P`` for complex per-bin cross-spectra, shape (..., n, n) (same dtype)."""
+    """``P C P`` for complex per-bin cross-spectra, shape (..., n, n) (same dtype).
+
+    ``P = I - 11ᵀ/n`` is the average-reference projector; removing row and column means applies
+    it on both sides without forming it.
+
+    Parameters
+    ----------
+    csd : ndarray, shape (..., n, n)
+        Cross-spectra (complex or real), e.g. µV²/Hz per bin.
+
+    Returns
+    -------
+    ndarray, shape (..., n, n)
+        Average-referenced cross-spectra, same unit and dtype.
+    """
     mean_row = csd.mean(axis=-2, keepdims=True)
     c = csd - mean_row
     return c - c.mean(axis=-1, keepdims=True)
@@ -146,7 +160,13 @@ class SensorCoupling:
     distance_mm: np.ndarray
 
     def to_frame(self) -> pd.DataFrame:
-        """The tidy pair table (:func:`pair_table`)."""
+        """The tidy pair table (:func:`pair_table`).
+
+        Returns
+        -------
+        DataFrame
+            Columns :data:`PAIR_COLUMNS`, one row per pair x band x measure.
+        """
         return pair_table(self)
 
 
@@ -161,7 +181,8 @@ def asymmetry(power: np.ndarray, pairs: np.ndarray) -> np.ndarray:
 
     Returns
     -------
-    ndarray, shape (..., n_pairs), in (-1, 1).  ``atanh`` of it is ``ln(P_a / P_b) / 2``.
+    ndarray, shape (..., n_pairs)
+        In (-1, 1), dimensionless; ``atanh`` of it is ``ln(P_a / P_b) / 2``.
     """
     pa, pb = power[..., pairs[:, 0]], power[..., pairs[:, 1]]
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -169,7 +190,19 @@ def asymmetry(power: np.ndarray, pairs: np.ndarray) -> np.ndarray:
 
 
 def msc_from_covariance(cov: np.ndarray, pairs: np.ndarray) -> np.ndarray:
-    """Magnitude-squared coherence implied by a (real) covariance, shape (n_pairs,)."""
+    """Magnitude-squared coherence implied by a (real) covariance, shape (n_pairs,).
+
+    Parameters
+    ----------
+    cov : ndarray, shape (n_ch, n_ch)
+        Real sensor covariance (e.g. of the volume-conduction model), any unit.
+    pairs : ndarray of int, shape (n_pairs, 2)
+
+    Returns
+    -------
+    ndarray, shape (n_pairs,)
+        ``C_ab² / (C_aa C_bb)``, in [0, 1].
+    """
     d = np.diag(cov)
     c = cov[pairs[:, 0], pairs[:, 1]]
     return c * c / (d[pairs[:, 0]] * d[pairs[:, 1]])
@@ -215,6 +248,8 @@ def sensor_coupling(spectra: np.ndarray, freqs: np.ndarray, bands: Bands, ch_nam
     Returns
     -------
     SensorCoupling
+        Pair measures (n_bands, n_pairs), asymmetries, band power (squared data unit), nulls
+        and intervals.
     """
     spectra = np.asarray(spectra)
     n_ch = len(ch_names)
@@ -273,8 +308,26 @@ def _boolean(x: np.ndarray) -> pd.arrays.BooleanArray:
 
 
 def leakage_arrays(measure: str, value: np.ndarray, null: dict, leak_msc) -> tuple:
-    """(expected, q95, explained) float arrays shaped like ``value`` (n_bands, n_pairs);
-    ``explained`` is 1/0, NaN where not defined."""
+    """Volume-conduction reference values of one measure.
+
+    Parameters
+    ----------
+    measure : str
+        Pair measure name.
+    value : ndarray, shape (n_bands, n_pairs)
+        The measure's values.
+    null : dict
+        Lagged measure -> (mean, q95) under volume conduction alone, each (n_bands, n_pairs).
+    leak_msc : ndarray, shape (n_pairs,) or None
+        MSC of the volume-conduction model.
+
+    Returns
+    -------
+    expected, q95, explained : ndarray, each shape (n_bands, n_pairs)
+        Expected value and 95th percentile under volume conduction alone, and whether the value
+        (``|imcoh|`` for imcoh) is explained by it (1/0; NaN where not defined).  Lagged measures
+        use ``null``; ``msc`` uses ``leak_msc`` (no q95); other measures are all NaN.
+    """
     nan = np.full(value.shape, np.nan)
     if measure in LAGGED_MEASURES and measure in null:
         mean, q95 = null[measure]
@@ -294,6 +347,15 @@ def pair_table(sc: SensorCoupling) -> pd.DataFrame:
     ``n(n-1)/2`` pairs (measure, then band, then pair), then ``asymmetry`` for the homologous
     and anterior-posterior pairs.  Column meanings: :data:`PAIR_COLUMN_NOTES`.  ``z`` is NaN
     until norms are applied (norms kind ``"pair"``, keyed by ``pair``, ``band``, ``measure``).
+
+    Parameters
+    ----------
+    sc : SensorCoupling
+
+    Returns
+    -------
+    DataFrame
+        Columns :data:`PAIR_COLUMNS`; units in the ``unit`` column.
     """
     import pandas as pd
 

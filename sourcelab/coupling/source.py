@@ -131,7 +131,13 @@ class RoiFilters:
     vertices: tuple
 
     def shared_sources(self) -> np.ndarray:
-        """Sources common to ROI a and ROI b, shape (n_rois, n_rois) (diagonal: ROI sizes)."""
+        """Sources common to ROI a and ROI b, shape (n_rois, n_rois) (diagonal: ROI sizes).
+
+        Returns
+        -------
+        ndarray of int64, shape (n_rois, n_rois)
+            Symmetric; entry ``(a, b)`` counts the sources in both ROIs.
+        """
         from scipy import sparse
 
         rows = np.concatenate([np.full(len(v), i) for i, v in enumerate(self.vertices)])
@@ -171,6 +177,7 @@ def independent_source_covariance(gain: np.ndarray, *, noise: float = 0.0) -> np
     Returns
     -------
     ndarray, shape (n_ch, n_ch), real symmetric
+        ``C₀``, in the trace-normalised units above (not µV²); rank ``n_ch - 1``.
     """
     g = np.asarray(gain, dtype=float)
     n = g.shape[0]
@@ -259,22 +266,47 @@ def roi_cross_spectra(csd: np.ndarray, weights: np.ndarray) -> np.ndarray:
     Returns
     -------
     ndarray, shape (..., n_rois, n_rois), complex
+        ``W C Wᵀ``, in the unit of ``csd`` times the squared filter unit.
     """
     w = np.asarray(weights)
     return np.einsum("rc,...cd,sd->...rs", w, csd, w, optimize=True)
 
 
 def roi_fourier(spec: np.ndarray, weights: np.ndarray) -> np.ndarray:
-    """ROI Fourier coefficients ``W X``: shape (n_epochs, n_rois, n_bins) from
-    (n_epochs, n_ch, n_bins)."""
+    """ROI Fourier coefficients ``W X``.
+
+    Parameters
+    ----------
+    spec : ndarray, shape (n_epochs, n_ch, n_bins), complex
+        Scaled sensor coefficients (:func:`sourcelab.spectra.epoch_fourier`).
+    weights : ndarray, shape (n_rois, n_ch), real
+        ROI spatial filters (:attr:`RoiFilters.weights`).
+
+    Returns
+    -------
+    ndarray, shape (n_epochs, n_rois, n_bins), same complex dtype as ``spec``
+        ROI coefficients for :func:`sourcelab.coupling.pair_statistics_from_fourier`.
+    """
     spec = np.asarray(spec)
     w = np.asarray(weights, dtype=np.float32 if spec.dtype == np.complex64 else float)
     return np.matmul(w.astype(spec.dtype), spec)
 
 
 def edge_leakage_msc(weights: np.ndarray, null_cov: np.ndarray) -> np.ndarray:
-    """Coherence expected from leakage alone, ``(w_a C₀ w_bᵀ)² / (w_a C₀ w_aᵀ w_b C₀ w_bᵀ)``,
-    shape (n_rois, n_rois)."""
+    """Coherence expected from leakage alone, ``(w_a C₀ w_bᵀ)² / (w_a C₀ w_aᵀ w_b C₀ w_bᵀ)``.
+
+    Parameters
+    ----------
+    weights : ndarray, shape (n_rois, n_ch)
+        ROI spatial filters.
+    null_cov : ndarray, shape (n_ch, n_ch)
+        Sensor covariance of independent sources (:func:`independent_source_covariance`).
+
+    Returns
+    -------
+    ndarray, shape (n_rois, n_rois)
+        In [0, 1]; the diagonal is 1.
+    """
     c = np.asarray(weights) @ np.asarray(null_cov) @ np.asarray(weights).T
     d = np.diag(c)
     return c * c / np.outer(d, d)
@@ -308,8 +340,9 @@ def band_analytic(spec_plain: np.ndarray, band_bins: np.ndarray, *,
 
     Returns
     -------
-    ndarray, shape (n_epochs, n_nodes, M), complex (any constant scale), single precision
-    for single-precision input
+    ndarray, shape (n_epochs, n_nodes, M), complex
+        Analytic signals up to a constant scale; single precision for single-precision
+        input.
     """
     idx = np.asarray(band_bins, dtype=np.int64)
     nb = idx.size
@@ -376,7 +409,8 @@ def aec_from_moments(mom: dict, weights: np.ndarray | None = None) -> np.ndarray
 
     Returns
     -------
-    ndarray, shape (n_rep, n_nodes, n_nodes); diagonal NaN
+    ndarray, shape (n_rep, n_nodes, n_nodes)
+        Symmetric correlations in [-1, 1]; diagonal NaN.
     """
     n_ep, n = mom["so"].shape[:2]
     w = np.full((1, n_ep), 1.0 / n_ep) if weights is None else np.asarray(weights, float)
@@ -406,9 +440,15 @@ def aec_block_se(mom: dict) -> np.ndarray:
     (a delta-method, block-wise variance; Bartlett 1935's point that autocorrelated samples
     widen a correlation's spread is honoured because whole epochs are the units).
 
+    Parameters
+    ----------
+    mom : dict
+        Per-epoch sums from :func:`envelope_moments`.
+
     Returns
     -------
     ndarray, shape (n_nodes, n_nodes)
+        Standard error of the correlation (dimensionless), symmetric.
     """
     n_ep = mom["so"].shape[0]
     m = float(mom["m"])
@@ -460,10 +500,33 @@ class EdgeCoupling:
     n_epochs: int
 
     def to_frame(self) -> pd.DataFrame:
+        """The tidy edge table of this atlas (:func:`coupling_table`).
+
+        Returns
+        -------
+        DataFrame
+            Columns :data:`EDGE_COLUMNS`.
+        """
         return coupling_table([self])
 
     def matrix(self, measure: str, band: str) -> np.ndarray:
-        """ROI x ROI matrix of one measure and band (symmetric; NaN diagonal), for figures."""
+        """ROI x ROI matrix of one measure and band (symmetric; NaN diagonal), for figures.
+
+        Directed measures (``imcoh``, ``lag_ms``) are antisymmetric: entry ``(b, a)`` is
+        ``-(a, b)``.
+
+        Parameters
+        ----------
+        measure : str
+            A key of :attr:`values`.
+        band : str
+            One of :attr:`band_names`.
+
+        Returns
+        -------
+        ndarray, shape (n_rois, n_rois)
+            In the measure's unit (:data:`MEASURE_UNITS`).
+        """
         n = len(self.filters.names)
         out = np.full((n, n), np.nan)
         v = self.values[measure][self.band_names.index(band)]
@@ -493,14 +556,21 @@ def edge_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.nda
         :func:`independent_source_covariance` for the coherence expected from leakage.
     null_method : {"analytic", "monte-carlo"} or None
         The lagged measures' conjugation null (None: none).
-    n_null, n_boot, seed, ci
-        Monte-Carlo null replicates, bootstrap replicates (0: none), seed, coverage.
+    n_null : int
+        Monte-Carlo null replicates.
+    n_boot : int
+        Bootstrap replicates over epochs (0: no intervals).
+    seed : int
+        Seed of the null and the bootstrap.
+    ci : float
+        Coverage of the bootstrap intervals, e.g. 0.95.
     samples_per_epoch : int, optional
         Envelope samples per epoch (:func:`band_analytic`).
 
     Returns
     -------
     EdgeCoupling
+        Edge measures of every ROI pair ``a < b``, shape (n_bands, n_edges) each.
     """
     band_idx = band_bin_indices(freqs, bands)
     w = filters.weights
@@ -552,6 +622,16 @@ def coupling_table(results) -> pd.DataFrame:
     ``"edge"``, keyed by ``atlas``, ``edge``, ``band``, ``measure``).  Column meanings:
     :data:`EDGE_COLUMN_NOTES`.  Rows: atlas, then measure (:data:`EDGE_MEASURES` order), band,
     edge.
+
+    Parameters
+    ----------
+    results : sequence of EdgeCoupling
+        One per atlas (non-empty).
+
+    Returns
+    -------
+    DataFrame
+        Columns :data:`EDGE_COLUMNS`; edge labels ``"roi.hemisphere|roi.hemisphere"``.
     """
     import pandas as pd
 
@@ -605,6 +685,8 @@ def network_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.
 
     Parameters
     ----------
+    spec, spec_plain, freqs, bands
+        As for :func:`edge_coupling` (coefficients (n_epochs, n_ch, n_bins); ``freqs`` in Hz).
     op : SourceOperator
     atlases : sequence of Atlas
     gain : ndarray, optional
@@ -616,6 +698,11 @@ def network_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.
         needed).
     **options
         Passed to :func:`edge_coupling`.
+
+    Returns
+    -------
+    list of EdgeCoupling
+        One per atlas, in ``atlases`` order.
     """
     if null_cov is None and gain is not None:
         g = _fixed_gain(gain, op.n_src, normals) if op.n_comp == 1 else np.asarray(gain)

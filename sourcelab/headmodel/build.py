@@ -108,12 +108,22 @@ def ray_surface_distance(origin, dirs, rr, tris) -> np.ndarray:
 def three_layer_meshes(*, ico: int = 4) -> dict:
     """Inner skull, outer skull and scalp meshes sharing one ico triangulation.
 
+    Parameters
+    ----------
+    ico : int
+        Icosahedral subdivision of fsaverage's inner-skull surface used for all three layers.
+
     Returns
     -------
     layers : dict
         ``inner_skull``, ``outer_skull``, ``outer_skin`` : ndarray (n_vert, 3), metres, MRI frame;
         ``tris`` : ndarray (n_tri, 3); ``centre`` : ndarray (3,), metres;
         ``min_gap_mm`` : dict of the smallest radial gaps between neighbouring layers.
+
+    Raises
+    ------
+    RuntimeError
+        If a ray from the centre misses the scalp or meets it inside the inner skull.
     """
     inner, tris = inner_skull_ico(ico)
     centre = inner.mean(axis=0)
@@ -163,6 +173,7 @@ def bem_solution_from_layers(
     Returns
     -------
     bem : mne.bem.ConductorModel
+        Linear-collocation BEM solution of the three layers (MRI frame).
 
     References
     ----------
@@ -183,8 +194,15 @@ def bem_solution_from_layers(
 
 # ----------------------------------------------------------------------------- writing
 def write_npz(path, arrays: dict) -> None:
-    """Write an uncompressed ``.npz`` with fixed zip timestamps (:func:`~sourcelab.provenance.
-    npz_bytes`), so equal arrays give equal bytes."""
+    """Write an uncompressed ``.npz`` with fixed zip timestamps, so equal arrays give equal bytes.
+
+    Parameters
+    ----------
+    path : path-like
+        Output file; overwritten.
+    arrays : dict of str to ndarray
+        Arrays to store, serialised by :func:`sourcelab.provenance.npz_bytes`.
+    """
     from ..provenance import npz_bytes
 
     Path(path).write_bytes(npz_bytes(arrays))
@@ -213,6 +231,11 @@ def cortex_mask() -> np.ndarray:
     False on FreeSurfer's medial wall (label 0 of Yeo et al. 2011's fsaverage parcellation, the
     shipped ``yeo7_fsaverage5.npz``): the cut through corpus callosum, hippocampus and brainstem,
     which is not cortex (1,769 vertices).
+
+    Returns
+    -------
+    mask : ndarray of bool, shape (20484,)
+        Left hemisphere first (10,242 vertices each); True on cortex.
 
     References
     ----------
@@ -374,7 +397,18 @@ def _get_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
-    """Command-line entry point; returns the exit code."""
+    """Command-line entry point of the head-model builder; returns the exit code.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        Arguments without the program name; default ``sys.argv[1:]``.
+
+    Returns
+    -------
+    int
+        Exit code, 0 on success.
+    """
     from ..data import DATA_DIR
 
     args = _get_parser().parse_args(argv)

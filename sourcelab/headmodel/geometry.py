@@ -50,7 +50,18 @@ def mni305_to_mni152(xyz) -> np.ndarray:
 
 
 def mni152_to_mni305(xyz) -> np.ndarray:
-    """Inverse of :func:`mni305_to_mni152`; shapes as there."""
+    """Inverse of :func:`mni305_to_mni152`: MNI152 mm to MNI305 (fsaverage) mm.
+
+    Parameters
+    ----------
+    xyz : array-like, shape (..., 3)
+        Points in MNI152 mm.
+
+    Returns
+    -------
+    ndarray, shape (..., 3)
+        Points in MNI305 mm.
+    """
     return _apply(np.linalg.inv(MNI305_TO_MNI152), xyz)
 
 

@@ -21,14 +21,31 @@ _SUBJECT = "fsaverage"
 
 
 def mne_fsaverage_dir() -> Path:
-    """Folder of the fsaverage files shipped inside the MNE wheel."""
+    """Folder of the fsaverage files shipped inside the MNE wheel.
+
+    Returns
+    -------
+    pathlib.Path
+        ``<mne package>/data/fsaverage`` (BEM surfaces, head surface, head -> MRI transform).
+    """
     import mne
 
     return Path(mne.__file__).parent / "data" / "fsaverage"
 
 
 def nilearn_fsaverage5_dir() -> Path:
-    """Folder of the fsaverage5 meshes shipped inside the nilearn wheel (nilearn not imported)."""
+    """Folder of the fsaverage5 meshes shipped inside the nilearn wheel (nilearn not imported).
+
+    Returns
+    -------
+    pathlib.Path
+        ``<nilearn package>/datasets/data/fsaverage5``.
+
+    Raises
+    ------
+    RuntimeError
+        If nilearn is not installed.
+    """
     spec = importlib.util.find_spec("nilearn")
     if spec is None or not spec.submodule_search_locations:
         raise RuntimeError("nilearn is not installed: it provides the fsaverage5 meshes")
@@ -36,7 +53,13 @@ def nilearn_fsaverage5_dir() -> Path:
 
 
 def read_trans():
-    """The fsaverage head -> MRI transform shipped with MNE (``mne.transforms.Transform``)."""
+    """The fsaverage head -> MRI transform shipped with MNE.
+
+    Returns
+    -------
+    mne.transforms.Transform
+        Head to MRI (surface RAS) transform, metres.
+    """
     import mne
 
     return mne.read_trans(mne_fsaverage_dir() / "fsaverage-trans.fif", verbose="error")
@@ -77,11 +100,18 @@ def read_fsaverage5() -> dict[str, np.ndarray]:
 def inner_skull_ico(ico: int = 4) -> tuple[np.ndarray, np.ndarray]:
     """The shipped fsaverage inner skull decimated to an ico-``ico`` mesh.
 
+    Parameters
+    ----------
+    ico : int
+        Icosahedral subdivision level (MNE's ``_ico_downsample``; the surface must be isomorphic to
+        an ico-``ico`` sphere).
+
     Returns
     -------
     rr : ndarray, shape (10 * 4**ico + 2, 3)
         Vertices, metres, MRI (surface RAS) frame.
     tris : ndarray, shape (20 * 4**ico, 3)
+        Triangles, int64.
     """
     import mne
     from mne.bem import _ico_downsample  # private but pinned (mne < 1.14); checks isomorphism
@@ -96,6 +126,11 @@ def inner_skull_ico(ico: int = 4) -> tuple[np.ndarray, np.ndarray]:
 
 def write_fsaverage5_subject(subjects_dir) -> dict[str, np.ndarray]:
     """Write nilearn's fsaverage5 white surfaces as ``subjects_dir/fsaverage/surf/?h.white``.
+
+    Parameters
+    ----------
+    subjects_dir : path-like
+        A writable (temporary) FreeSurfer subjects folder; ``fsaverage/surf`` is created in it.
 
     Returns
     -------

@@ -22,7 +22,13 @@ _HINT = "reinstall sourcelab or rebuild with `python -m sourcelab.headmodel.buil
 
 
 def shipped_path() -> Path:
-    """Path of the head model shipped inside the package."""
+    """Path of the head model shipped inside the package.
+
+    Returns
+    -------
+    pathlib.Path
+        ``sourcelab/data/fsaverage5_eeg19.npz``.
+    """
     from ..data import data_path
 
     return data_path(SHIPPED_NAME)

@@ -21,10 +21,11 @@ def to_mne_forward(model: HeadModel, info: mne.Info | None = None) -> mne.Forwar
     """An ``mne.Forward`` whose gain is exactly ``model.gain``.
 
     The structure (a two-hemisphere fsaverage5 surface source space whose ``vertno`` are the
-    model's cortical vertices, head-frame positions and normals, free orientation, ``surf_ori=False``) is
-    built by :func:`mne.make_forward_solution` with a placeholder sphere conductor; the computed
-    gain is then replaced by the shipped one.  ``mne.minimum_norm.make_inverse_operator``,
-    ``apply_inverse_cov`` and ``compute_source_psd`` therefore run on sourcelab's leadfield.
+    model's cortical vertices, head-frame positions and normals, free orientation,
+    ``surf_ori=False``) is built by :func:`mne.make_forward_solution` with a placeholder sphere
+    conductor; the computed gain is then replaced by the shipped one.
+    ``mne.minimum_norm.make_inverse_operator``, ``apply_inverse_cov`` and ``compute_source_psd``
+    therefore run on sourcelab's leadfield.
     Built once per model (about 2 s) and copied on later calls.
 
     Parameters

@@ -84,12 +84,32 @@ class TemplateSurface:
         return out
 
     def hemi_slice(self, hemi: str) -> slice:
-        """Surface indices of one hemisphere."""
+        """Surface indices of one hemisphere.
+
+        Parameters
+        ----------
+        hemi : {"left", "right"}
+
+        Returns
+        -------
+        slice
+            ``0:10242`` for the left, ``10242:20484`` for the right hemisphere.
+        """
         h = HEMIS.index(hemi)
         return slice(h * N_PER_HEMI, (h + 1) * N_PER_HEMI)
 
     def hemi_faces(self, hemi: str) -> np.ndarray:
-        """Triangles of one hemisphere with local (0..10,241) indices, shape (20480, 3)."""
+        """Triangles of one hemisphere with local (0..10,241) indices, shape (20480, 3).
+
+        Parameters
+        ----------
+        hemi : {"left", "right"}
+
+        Returns
+        -------
+        ndarray of int, shape (20480, 3)
+            Triangles indexing the hemisphere's own vertices (``white[hemi_slice(hemi)]``).
+        """
         h = HEMIS.index(hemi)
         half = self.faces.shape[0] // 2
         return self.faces[h * half:(h + 1) * half] - h * N_PER_HEMI
@@ -156,7 +176,18 @@ class HeadModel:
         return out
 
     def hemisphere_of(self, sources) -> np.ndarray:
-        """``"left"``/``"right"`` for each source index, same shape as ``sources``."""
+        """``"left"``/``"right"`` for each source index, same shape as ``sources``.
+
+        Parameters
+        ----------
+        sources : array-like of int
+            Source indices (0..n_src-1; left-hemisphere sources come first).
+
+        Returns
+        -------
+        ndarray of str, same shape as ``sources``
+            ``"left"`` where the index is below :attr:`n_left`, else ``"right"``.
+        """
         return np.where(np.asarray(sources) < self.n_left, "left", "right")
 
     def to_surface(self, values, *, fill: float = np.nan) -> np.ndarray:
@@ -165,10 +196,14 @@ class HeadModel:
         Parameters
         ----------
         values : array_like, shape (..., n_src)
+            Values per source, in any unit.
+        fill : float
+            Value for surface vertices that are not sources.
 
         Returns
         -------
         ndarray, shape (..., 20484), float
+            ``values`` at :attr:`vertno`, ``fill`` elsewhere; at least float32.
         """
         v = np.asarray(values)
         if v.shape[-1] != self.n_src:
@@ -180,7 +215,18 @@ class HeadModel:
         return out
 
     def from_surface(self, values) -> np.ndarray:
-        """Per-surface-vertex values (..., 20484) reduced to the sources (..., n_src)."""
+        """Per-surface-vertex values (..., 20484) reduced to the sources (..., n_src).
+
+        Parameters
+        ----------
+        values : array_like, shape (..., 20484)
+            Values on every fsaverage5 vertex, left hemisphere first.
+
+        Returns
+        -------
+        ndarray, shape (..., n_src)
+            The values at :attr:`vertno`.
+        """
         v = np.asarray(values)
         if v.shape[-1] != N_SURFACE:
             raise ValueError(f"values: need {N_SURFACE} surface vertices on the last axis, got "

@@ -73,6 +73,7 @@ def make_operator(model: HeadModel, *, method: str = "sLORETA", orientation: str
     Returns
     -------
     SourceOperator
+        Kernel of shape (n_src * n_comp, n_ch), source-major rows.
     """
     if method not in METHODS:
         raise InputError(f"method: {method!r} is not one of {', '.join(METHODS)}")

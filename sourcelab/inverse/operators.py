@@ -55,6 +55,7 @@ def roi_rows(op, vertices) -> np.ndarray:
     Returns
     -------
     ndarray, shape (n_v * n_comp, n_ch)
+        The rows of each source in ``vertices`` order (``n_comp`` consecutive rows per source).
     """
     vertices = np.asarray(vertices, dtype=np.int64)
     if vertices.size == 0:

@@ -39,6 +39,26 @@ def whitener(noise_cov: np.ndarray | None, n_ch: int, *, rtol: float = 1e-10) ->
     Rows span the data space left by the average-reference projector, scaled so that the projected
     noise covariance becomes the identity.  ``noise_cov=None`` means white sensor noise of 1 (data
     unit)², e.g. 1 µV².
+
+    Parameters
+    ----------
+    noise_cov : ndarray, shape (n_ch, n_ch), or None
+        Symmetric sensor noise covariance in (data unit)², e.g. µV²; ``None`` for the identity.
+    n_ch : int
+        Number of sensor channels.
+    rtol : float
+        Eigenvalues of the projected covariance below ``rtol`` times the largest are dropped (the
+        average reference removes one dimension, so ``rank <= n_ch - 1``).
+
+    Returns
+    -------
+    w : ndarray, shape (rank, n_ch)
+        Whitening matrix; ``w @ noise_cov @ w.T`` is the identity, in 1/(data unit).
+
+    Raises
+    ------
+    InputError
+        If ``noise_cov`` has the wrong shape or is not symmetric.
     """
     p = average_reference_projector(n_ch)
     c = np.eye(n_ch) if noise_cov is None else np.asarray(noise_cov, dtype=float)
@@ -77,7 +97,18 @@ class SourceOperator:
         return 1 if self.orientation == "fixed" else 3
 
     def power(self, csd: np.ndarray) -> np.ndarray:
-        """Source power from cross-spectra; see :func:`source_power`."""
+        """Source power from cross-spectra; see :func:`source_power`.
+
+        Parameters
+        ----------
+        csd : ndarray, shape (n_ch, n_ch) or (n_bands, n_ch, n_ch)
+            Real sensor cross-spectra in (data unit)², e.g. µV² per band.
+
+        Returns
+        -------
+        power : ndarray, shape (n_src,) or (n_bands, n_src)
+            sLORETA-standardised source power in whitened-data units.
+        """
         return source_power(self, csd)
 
 
@@ -114,6 +145,8 @@ def sloreta_operator(gain: np.ndarray, *, lambda2: float, orientation: str = "fi
     Returns
     -------
     SourceOperator
+        Standardised kernel (n_src or 3 n_src rows, n_ch columns) with the average-reference
+        projector and the whitener folded in.
 
     References
     ----------
@@ -161,12 +194,16 @@ def source_power(op: SourceOperator, csd: np.ndarray) -> np.ndarray:
     Parameters
     ----------
     op : SourceOperator
+        Operator from :func:`sloreta_operator` (or an MNE kernel wrapped in one).
     csd : ndarray, shape (n_ch, n_ch) or (n_bands, n_ch, n_ch)
-        Real sensor cross-spectra (any reference: the kernel projects to the average).
+        Real sensor cross-spectra in (data unit)², e.g. µV² per band (any reference: the kernel
+        projects to the average).
 
     Returns
     -------
     power : ndarray, shape (n_src,) or (n_bands, n_src)
+        Standardised power per source (free orientation: summed over the 3 components), in
+        whitened-data units; the band axis is present only when ``csd`` has one.
     """
     csd = np.asarray(csd, dtype=float)
     single = csd.ndim == 2
@@ -188,12 +225,25 @@ def point_source_peaks(gain: np.ndarray, *, lambda2: float, orientation: str = "
 
     Parameters
     ----------
+    gain : ndarray, shape (n_ch, 3 * n_src) or (n_ch, n_src)
+        Leadfield, as for :func:`sloreta_operator`.
+    lambda2 : float
+        Regularisation λ² = 1/SNR², SNR an amplitude ratio.
+    orientation : {"fixed", "free"}
+        Orientation model of the inverse.
+    normals : ndarray, shape (n_src, 3), optional
+        Unit surface normals, to reduce a free gain to fixed orientation.
     orientations : ndarray, shape (n_src, 3), optional
         Unit orientation of each test source for ``orientation="free"``.
+    chunk : int
+        Number of test sources pushed through at once (memory only; the result does not depend
+        on it).
 
     Returns
     -------
     peaks : ndarray of int, shape (n_src,)
+        ``peaks[j]`` is the source index where the unit source at ``j`` has its maximum; ``j``
+        itself for zero localisation error.
     """
     op = sloreta_operator(gain, lambda2=lambda2, orientation=orientation, normals=normals)
     g = fixed_gain(gain, normals) if orientation == "fixed" and normals is not None else gain

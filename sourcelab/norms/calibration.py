@@ -68,13 +68,21 @@ def calibration_report(fit) -> pd.DataFrame:
 def calibration_summary(fit, report: pd.DataFrame | None = None) -> dict:
     """Overall calibration figures.
 
+    Parameters
+    ----------
+    fit : NormsFit
+        Result of :func:`~sourcelab.norms.fit.fit_norms`.
+    report : DataFrame, optional
+        :func:`calibration_report` of the same fit; adds the residual-shape figures.
+
     Returns
     -------
     dict
         ``n_controls``, ``n_rows``, ``loo_n`` (z values), ``loo_frac_1.96`` / ``loo_frac_2.58``
-        (pooled; expected 0.05 / 0.01), ``loo_sd`` (SD of pooled LOO z; expected ~1),
-        ``median_abs_skewness``, ``median_excess_kurtosis``, ``frac_rows_shapiro_p<0.05``
-        (expected ~0.05 if Gaussian), ``n_excluded_values``.
+        (pooled; expected 0.05 / 0.01, also given as ``expected_frac_1.96`` /
+        ``expected_frac_2.58``), ``loo_sd`` (SD of pooled LOO z; expected ~1),
+        ``n_excluded_values``; with ``report`` also ``median_abs_skewness``,
+        ``median_excess_kurtosis`` and ``frac_rows_shapiro_p<0.05`` (expected ~0.05 if Gaussian).
     """
     members = fit.row_members
     zs = np.concatenate([fit.loo_z[m, j] for j, m in zip(fit.row_quantity, members)]) \
@@ -110,6 +118,7 @@ def plot_calibration(fit, *, figure=None):
     Returns
     -------
     matplotlib.figure.Figure
+        The drawn figure (``figure`` when given).
     """
     from matplotlib.figure import Figure
 

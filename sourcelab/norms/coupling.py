@@ -77,7 +77,23 @@ COUPLING_KINDS = {"pair": {"name": "pair"}, "edge": {"atlas": "atlas", "name": "
 
 
 def transform_for_coupling(measure: str) -> str:
-    """Transform name for a pair / edge measure."""
+    """Transform name for a pair / edge measure.
+
+    Parameters
+    ----------
+    measure : str
+        A key of :data:`TRANSFORM_FOR_COUPLING` (``"msc"``, ``"imcoh"``, ``"phase_deg"``, ...).
+
+    Returns
+    -------
+    str
+        The transform's name (see :mod:`sourcelab.norms.transforms`).
+
+    Raises
+    ------
+    InputError
+        For an unknown measure.
+    """
     try:
         return TRANSFORM_FOR_COUPLING[measure]
     except (KeyError, TypeError):
@@ -86,7 +102,21 @@ def transform_for_coupling(measure: str) -> str:
 
 
 def transformed(values, measure: str) -> np.ndarray:
-    """``T(values)`` for one measure (array-like, any shape)."""
+    """``T(values)`` for one measure (array-like, any shape).
+
+    Parameters
+    ----------
+    values : array-like, any shape
+        Coupling values in the measure's own unit (dimensionless indices; degrees for
+        ``phase_deg`` and ``phase_sd_deg``; ms for ``lag_ms``).
+    measure : str
+        Pair / edge measure name.
+
+    Returns
+    -------
+    ndarray of float, same shape
+        Values on the measure's normalising scale.
+    """
     return get_transform(transform_for_coupling(measure)).forward(values)
 
 
@@ -108,11 +138,16 @@ def reference_statistics(values, measure: str, *, axis: int = 0) -> tuple[np.nda
     Parameters
     ----------
     values : ndarray, shape (n_people, ...) (``axis`` = people)
+        Values in the measure's own unit (not yet transformed).
     measure : str
+        Pair / edge measure name (sets the transform).
+    axis : int
+        Axis of ``values`` holding the people.
 
     Returns
     -------
     mean, sd : ndarray, shape without ``axis``
+        On the measure's transformed scale (for ``phase_deg`` in degrees).
     """
     t = transformed(values, measure)
     if measure in CIRCULAR_PERIOD:

@@ -48,8 +48,20 @@ ENTRY_KINDS = ("roi", "sensor", "pair", "edge")
 
 
 def transform_for(kind: str, measure: str) -> str:
-    """The transform norms use for ``measure`` of a ``kind`` (``roi``/``sensor``: band power;
-    ``pair``/``edge``: coupling measures)."""
+    """The transform norms use for ``measure`` of a ``kind``.
+
+    Parameters
+    ----------
+    kind : {"roi", "sensor", "pair", "edge"}
+        ``roi``/``sensor``: band power; ``pair``/``edge``: coupling measures.
+    measure : str
+        ``"absolute"``/``"relative"`` for band power; a coupling measure name otherwise.
+
+    Returns
+    -------
+    str
+        Transform name (see :mod:`sourcelab.norms.transforms`).
+    """
     if kind in ("pair", "edge"):
         return transform_for_coupling(measure)
     return transform_for_measure(measure)
@@ -98,8 +110,20 @@ class NormsFit:
 
 
 def clean_epochs_summary(counts) -> dict:
-    """``{"median", "min", "max"}`` of the cohort's clean epochs per participant (recorded in the
-    norms' cohort header: coupling magnitudes depend on the number of epochs)."""
+    """Summary of the cohort's clean epochs per participant.
+
+    Recorded in the norms' cohort header: coupling magnitudes depend on the number of epochs.
+
+    Parameters
+    ----------
+    counts : iterable of int
+        Number of clean epochs of each participant (non-empty).
+
+    Returns
+    -------
+    dict
+        ``{"median": float, "min": int, "max": int}``.
+    """
     c = np.asarray(list(counts), dtype=float)
     return {"median": float(np.median(c)), "min": int(c.min()), "max": int(c.max())}
 
@@ -117,6 +141,7 @@ def slim_table(table: pd.DataFrame | None, kind: str) -> pd.DataFrame | None:
     Returns
     -------
     DataFrame or None
+        The needed columns (key columns as categories, ``value``); None for None.
     """
     if table is None:
         return None
@@ -153,12 +178,23 @@ def entry_values(pid, age, roi_table, sensor_table, pair_table=None,
     Parameters
     ----------
     pid : str
+        Participant ID (non-empty).
     age : float
-        Years.
+        Years, > 0.
     roi_table, sensor_table, pair_table, coupling_table : DataFrame or None
         An analysis's tables (kinds ``roi``, ``sensor``, ``pair``, ``edge``); None skips one.
 
-    Raises InputError naming the participant for a bad ID, age, table or value.
+    Returns
+    -------
+    dict
+        Key ``(kind, atlas, name, hemisphere, band, measure)`` (``"n/a"`` where a kind has no
+        atlas or hemisphere) to the value on its normalising scale (e.g. log10 µV² for absolute
+        power); coupling values on the edge of their range become NaN (logged).
+
+    Raises
+    ------
+    InputError
+        Naming the participant, for a bad ID, age, table or value.
     """
     if not isinstance(pid, str) or not pid.strip():
         raise InputError(f"participant id must be a non-empty text, got {pid!r}")
@@ -248,6 +284,7 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
     Returns
     -------
     NormsFit
+        The norms (``.norms``) and the leave-one-out material for calibration.
     """
     fitters = {"regression": None, "binned": None}
     if model not in fitters:
@@ -372,9 +409,22 @@ def norms_from_tables(entries: Iterable, *, fingerprint: Fingerprint, condition:
                 notes: Sequence[str] = ()) -> Norms:
     """Norms from a reference cohort's tables; see :func:`fit_norms` for the parameters.
 
+    Parameters
+    ----------
+    entries : iterable of (participant_id, age, roi_table, sensor_table[, pair_table,
+        coupling_table])
+        As for :func:`fit_norms`.
+    fingerprint : Fingerprint
+        The pipeline that produced the tables.
+    condition : str
+        Recording condition, e.g. ``"eyes closed"``.
+    model, degree, bins, min_n_per_bin, robust, cohort_info, notes
+        As for :func:`fit_norms` (bin edges in years).
+
     Returns
     -------
     Norms
+        ``fit_norms(...).norms``.
     """
     return fit_norms(entries, fingerprint=fingerprint, condition=condition, model=model,
                      degree=degree, bins=bins, min_n_per_bin=min_n_per_bin, robust=robust,

@@ -76,7 +76,19 @@ CONDITION_ALIASES = {"ec": "eyes closed", "eo": "eyes open"}
 
 
 def normalise_condition(condition: str) -> str:
-    """Canonical form for comparing conditions (``"Eyes-closed"``, ``"EC"``: ``"eyes closed"``)."""
+    """Canonical form for comparing conditions (``"Eyes-closed"``, ``"EC"``: ``"eyes closed"``).
+
+    Parameters
+    ----------
+    condition : str
+        A recording condition as written by a user or a file.
+
+    Returns
+    -------
+    str
+        Lower case, ``-``/``_`` and runs of white space replaced by one space, and the
+        abbreviations of :data:`CONDITION_ALIASES` expanded.
+    """
     text = " ".join(re.sub(r"[-_]+", " ", str(condition)).lower().split())
     return CONDITION_ALIASES.get(text, text)
 
@@ -124,7 +136,14 @@ class Norms:
         object.__setattr__(self, "table", validate_table(self.table, path=where))
 
     def summary(self) -> dict:
-        """Short description for result provenance (path, sha256, fingerprint, condition)."""
+        """Short description for result provenance (path, sha256, fingerprint, condition).
+
+        Returns
+        -------
+        dict
+            JSON-serialisable: ``path`` (str or None), ``sha256``, ``fingerprint`` (dict),
+            ``condition``, ``cohort`` (a copy) and ``n_rows``.
+        """
         return {"path": None if self.path is None else str(self.path), "sha256": self.sha256,
                 "fingerprint": self.fingerprint.to_dict(), "condition": self.condition,
                 "cohort": dict(self.cohort), "n_rows": int(len(self.table))}
@@ -146,6 +165,11 @@ def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None 
         Named in error messages.
     first_line : int | None
         File line number of the first data row (for messages), or None for row indices.
+
+    Returns
+    -------
+    DataFrame
+        A copy with columns in :data:`COLUMNS` order and canonical dtypes (text, float, int).
 
     Raises
     ------
@@ -291,7 +315,18 @@ def _fmt_value(v) -> str:
 
 
 def format_norms(norms: Norms) -> str:
-    """The text of a norms file (see FORMAT.md)."""
+    """The text of a norms file (see FORMAT.md).
+
+    Parameters
+    ----------
+    norms : Norms
+
+    Returns
+    -------
+    str
+        Header lines (format, fingerprint, condition, cohort, notes), the column line and one
+        tab-separated line per table row; floats written so they round-trip exactly.
+    """
     lines = [f"# {FORMAT_NAME} {FORMAT_VERSION}",
              f"# fingerprint: {norms.fingerprint.to_json()}",
              f"# condition: {norms.condition.strip()}",
@@ -308,10 +343,21 @@ def format_norms(norms: Norms) -> str:
 def write_norms(norms: Norms, path: str | Path) -> Norms:
     """Write ``norms`` to ``path`` atomically (temporary file + rename).
 
+    Parameters
+    ----------
+    norms : Norms
+    path : str | Path
+        Output file (``.tsv``); parent folders are created; an existing file is replaced.
+
     Returns
     -------
     Norms
         The same norms with ``path`` and ``sha256`` of the written file.
+
+    Raises
+    ------
+    InputError
+        If ``path`` is a folder.
     """
     path = Path(path)
     if path.exists() and path.is_dir():
@@ -381,6 +427,7 @@ def read_norms(path: str | Path) -> Norms:
     Returns
     -------
     Norms
+        Validated, with ``path`` and ``sha256`` of the file.
 
     Raises
     ------
@@ -434,12 +481,22 @@ def read_norms(path: str | Path) -> Norms:
 def check_norms(path: str | Path) -> str:
     """Validate a norms file and summarise it (for ``sourcelab norms check``).
 
+    Parameters
+    ----------
+    path : str | Path
+        A norms file.
+
     Returns
     -------
     str
         Multi-line summary: format, sha256, fingerprint, condition, cohort, rows by kind and
         model, SD range, atlases/ROIs/channels/bands/measures, age coverage and gaps, and
-        quantities whose band set is incomplete.  Raises InputError if the file is invalid.
+        quantities whose band set is incomplete.
+
+    Raises
+    ------
+    InputError
+        If the file is invalid.
     """
     nm = read_norms(path)
     t = nm.table

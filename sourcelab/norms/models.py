@@ -57,7 +57,20 @@ class PolyFit:
 
 
 def design(age: np.ndarray, degree: int) -> np.ndarray:
-    """Design matrix ``[1, x, x**2, ...]`` with ``x = log10(age)``, shape (n, degree + 1)."""
+    """Design matrix ``[1, x, x**2, ...]`` with ``x = log10(age)``, shape (n, degree + 1).
+
+    Parameters
+    ----------
+    age : ndarray, shape (n,)
+        Ages in years (> 0 when ``degree > 0``).
+    degree : int
+        Polynomial degree (0 gives a column of ones, ages unused).
+
+    Returns
+    -------
+    ndarray, shape (n, degree + 1)
+        Columns ``x**0 .. x**degree``.
+    """
     x = np.log10(np.asarray(age, dtype=float)) if degree > 0 else np.zeros(np.shape(age))
     return np.vander(x, degree + 1, increasing=True)
 
@@ -92,6 +105,8 @@ def fit_poly(age: np.ndarray, y: np.ndarray, degree: int, *, robust: bool = True
         excluded (the most extreme first).
     threshold : float
         Exclusion threshold in (robust) SDs; 3.5 by default.
+    max_iter : int
+        Most sigma-clipping passes.
 
     Returns
     -------
@@ -160,12 +175,18 @@ def select_degree(age: np.ndarray, Y: np.ndarray, *, degrees=(0, 1, 2, 3), robus
     Parameters
     ----------
     age : ndarray, shape (n,)
+        Ages in years.
     Y : ndarray, shape (n, n_quantities)
         Transformed values.
+    degrees : sequence of int
+        Candidate degrees (each 0..3).
+    robust : bool
+        Use :func:`fit_poly`'s robust exclusion in every fit.
 
     Returns
     -------
     degree : int
+        The degree with the lowest score (the smallest candidate when no score is finite).
     scores : dict
         Mean log PRESS per degree (lower is better).
     """

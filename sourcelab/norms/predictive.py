@@ -49,6 +49,7 @@ def design_row(age, degree) -> np.ndarray:
     Returns
     -------
     ndarray, shape (m, MAX_DEGREE + 1)
+        One row per age.
     """
     degree = np.atleast_1d(np.asarray(degree, dtype=np.int64))
     x = np.log10(np.broadcast_to(np.asarray(age, dtype=float), degree.shape))
@@ -82,13 +83,35 @@ def xtx_inverse(age: np.ndarray, degree: int) -> np.ndarray:
 
 
 def pack_v(xtx_inv: np.ndarray) -> np.ndarray:
-    """Upper triangle of ``(XᵀX)⁻¹`` matrices as :data:`V_COLUMNS`, shape (..., 10)."""
+    """Upper triangle of ``(XᵀX)⁻¹`` matrices as :data:`V_COLUMNS`, shape (..., 10).
+
+    Parameters
+    ----------
+    xtx_inv : ndarray, shape (..., 4, 4)
+        Symmetric ``(XᵀX)⁻¹`` of the age design (zero-padded beyond the row's degree).
+
+    Returns
+    -------
+    ndarray, shape (..., 10)
+        Row-major upper triangle (``numpy.triu_indices(4)``), diagonal included.
+    """
     iu = np.triu_indices(MAX_DEGREE + 1)
     return np.asarray(xtx_inv)[..., iu[0], iu[1]]
 
 
 def unpack_v(v: np.ndarray) -> np.ndarray:
-    """Inverse of :func:`pack_v`, shape (..., 4, 4), symmetric."""
+    """Inverse of :func:`pack_v`, shape (..., 4, 4), symmetric.
+
+    Parameters
+    ----------
+    v : ndarray, shape (..., 10)
+        Upper triangles as stored in the norms' :data:`V_COLUMNS`.
+
+    Returns
+    -------
+    ndarray, shape (..., 4, 4)
+        Full symmetric matrices.
+    """
     v = np.asarray(v, dtype=float)
     out = np.zeros(v.shape[:-1] + (MAX_DEGREE + 1, MAX_DEGREE + 1))
     iu = np.triu_indices(MAX_DEGREE + 1)
@@ -109,6 +132,7 @@ def leverage(xtx_inv: np.ndarray, degree, age) -> np.ndarray:
     Returns
     -------
     ndarray, shape (m,)
+        Dimensionless leverage ``h₀`` per row.
     """
     x0 = design_row(age, degree)
     c = np.asarray(xtx_inv, dtype=float)
@@ -118,7 +142,20 @@ def leverage(xtx_inv: np.ndarray, degree, age) -> np.ndarray:
 
 
 def approximate_leverage(n, degree) -> np.ndarray:
-    """Mean leverage ``(degree + 1) / n`` for norms that do not store ``(XᵀX)⁻¹`` (format 1)."""
+    """Mean leverage ``(degree + 1) / n`` for norms that do not store ``(XᵀX)⁻¹`` (format 1).
+
+    Parameters
+    ----------
+    n : int or ndarray of int, shape (m,)
+        Controls behind each norms row.
+    degree : int or ndarray of int, shape (m,)
+        Age-polynomial degree of each row.
+
+    Returns
+    -------
+    ndarray of float, shape (m,) (or () for scalars)
+        Dimensionless leverage ``h₀``.
+    """
     return (np.asarray(degree, dtype=float) + 1.0) / np.asarray(n, dtype=float)
 
 
@@ -173,6 +210,7 @@ def row_xtx_inverse(fit) -> np.ndarray:
     Returns
     -------
     ndarray, shape (n_rows, 4, 4)
+        Symmetric, zero beyond each row's degree; pack with :func:`pack_v`.
     """
     t = fit.norms.table
     out = np.zeros((len(t), MAX_DEGREE + 1, MAX_DEGREE + 1))

@@ -74,12 +74,37 @@ class SourceNorms:
         return self.vertices.size
 
     def mean(self, age: float) -> np.ndarray:
-        """Model mean at ``age``, shape (n_meas, n_bands, n_src)."""
+        """Model mean at ``age``, shape (n_meas, n_bands, n_src).
+
+        Parameters
+        ----------
+        age : float
+            Years, > 0.
+
+        Returns
+        -------
+        ndarray, shape (n_meas, n_bands, n_src)
+            Mean on the transformed scale (log10 µV² for absolute, logit for relative power).
+        """
         x = np.log10(float(age)) ** np.arange(self.degree + 1)
         return np.einsum("mbks,k->mbs", self.coef.astype(float), x)
 
     def leverage(self, age: float) -> np.ndarray:
-        """Leverage of a new participant of ``age``, shape (n_meas, n_bands, n_src)."""
+        """Leverage of a new participant of ``age``, shape (n_meas, n_bands, n_src).
+
+        ``x₀ᵀ (XᵀX)⁻¹ x₀`` of all controls, scaled by ``n_all / n_kept`` per source (see the module
+        docstring).
+
+        Parameters
+        ----------
+        age : float
+            Years, > 0.
+
+        Returns
+        -------
+        ndarray, shape (n_meas, n_bands, n_src)
+            Dimensionless leverage ``h₀`` per measure, band and source.
+        """
         x = np.log10(float(age)) ** np.arange(self.degree + 1)
         h_all = float(x @ self.xtx_inv @ x)
         n_all = int(self.n.max())
@@ -101,13 +126,22 @@ def fit_source_models(age: np.ndarray, y: np.ndarray, degree: int, *, robust: bo
     y : ndarray, shape (n, q)
         Transformed values (finite).
     degree : int
+        Polynomial degree in log10(age), 0..3.
     robust : bool
+        Apply the robust exclusion rule.
+    threshold : float
+        Exclusion threshold in (robust) SDs.
+    max_iter : int
+        Most sigma-clipping passes.
 
     Returns
     -------
     coef : ndarray, shape (degree + 1, q)
+        Coefficients on powers of log10(age), transformed scale.
     sd : ndarray, shape (q,)
+        Residual SD of the kept controls, transformed scale.
     n_kept : ndarray of int, shape (q,)
+        Controls kept per quantity.
     xtx_inv : ndarray, shape (degree + 1, degree + 1)
         Of all ``n`` controls.
     """
@@ -177,6 +211,7 @@ def fit_source_norms(age: np.ndarray, values: dict, *, degree: int, bands, finge
     Returns
     -------
     SourceNorms
+        One age model per measure, band and source (float32 coefficients and SDs).
     """
     from .transforms import get_transform, transform_for_measure
 
@@ -225,6 +260,7 @@ def source_z(norms: SourceNorms, values: np.ndarray, *, age: float, measure: str
     Returns
     -------
     ndarray, shape (n_bands, n_src)
+        Dimensionless z per band and source (NaN where a value is NaN).
     """
     from .predictive import predictive_t
     from .transforms import get_transform
@@ -250,7 +286,18 @@ def source_z(norms: SourceNorms, values: np.ndarray, *, age: float, measure: str
 
 
 def source_norms_path(norms_tsv: str | Path) -> Path:
-    """``<stem>_sources.npz`` beside a norms TSV."""
+    """``<stem>_sources.npz`` beside a norms TSV.
+
+    Parameters
+    ----------
+    norms_tsv : str | Path
+        The ROI norms file, e.g. ``norms.tsv``.
+
+    Returns
+    -------
+    Path
+        e.g. ``norms_sources.npz`` in the same folder.
+    """
     p = Path(norms_tsv)
     return p.with_name(p.stem + "_sources.npz")
 
@@ -258,7 +305,24 @@ def source_norms_path(norms_tsv: str | Path) -> Path:
 def write_source_norms(norms: SourceNorms, path: str | Path) -> Path:
     """Write :class:`SourceNorms` as an open ``.npz`` (atomic; fixed zip timestamps).
 
-    An existing ``path`` is replaced only when it is a sourcelab per-source norms file.
+    An existing ``path`` is replaced only when sourcelab wrote it
+    (:func:`sourcelab.provenance.atomic_write_bytes`).
+
+    Parameters
+    ----------
+    norms : SourceNorms
+    path : str | Path
+        Output file, usually :func:`source_norms_path` of the norms TSV.
+
+    Returns
+    -------
+    Path
+        ``path``.
+
+    Raises
+    ------
+    InputError
+        If ``path`` exists and was not written by sourcelab.
     """
     from ..provenance import atomic_write_bytes, npz_bytes
 
@@ -278,6 +342,18 @@ def write_source_norms(norms: SourceNorms, path: str | Path) -> Path:
 
 def read_source_norms(path: str | Path, *, fingerprint: dict | None = None) -> SourceNorms:
     """Read a per-source norms file; with ``fingerprint``, require the same pipeline.
+
+    Parameters
+    ----------
+    path : str | Path
+        A ``*_sources.npz`` written by :func:`write_source_norms` (never unpickled).
+    fingerprint : dict, optional
+        Pipeline fingerprint (:meth:`Fingerprint.to_dict`) the file must match.
+
+    Returns
+    -------
+    SourceNorms
+        Arrays as stored (float32 coefficients and SDs).
 
     Raises
     ------

@@ -110,7 +110,21 @@ class Transform:
     period: float | None = None
 
     def difference(self, t, mean) -> np.ndarray:
-        """``t - mean`` on the transformed scale (wrapped for a circular scale)."""
+        """``t - mean`` on the transformed scale (wrapped for a circular scale).
+
+        Parameters
+        ----------
+        t : array-like
+            Transformed values.
+        mean : array-like
+            Norm means on the same scale, broadcastable against ``t``.
+
+        Returns
+        -------
+        ndarray
+            The broadcast difference; for a circular transform wrapped into
+            ``[-period/2, period/2)`` (degrees for ``circular_deg``).
+        """
         d = np.asarray(t, dtype=float) - np.asarray(mean, dtype=float)
         if self.period is not None:
             d = (d + self.period / 2.0) % self.period - self.period / 2.0
@@ -136,7 +150,24 @@ TRANSFORM_FOR_MEASURE: dict[str, str] = {"absolute": "log10", "relative": "logit
 
 
 def get_transform(name: str) -> Transform:
-    """Look a transform up by name; unknown names raise InputError listing the allowed ones."""
+    """Look a transform up by name.
+
+    Parameters
+    ----------
+    name : str
+        A key of :data:`TRANSFORMS` (``"log10"``, ``"logit"``, ``"identity"``, ``"fisher"``,
+        ``"fisher_sqrt"``, ``"fisher_ssqrt"``, ``"circular_deg"``).
+
+    Returns
+    -------
+    Transform
+        Forward and inverse functions, domain and (for angles) period.
+
+    Raises
+    ------
+    InputError
+        For an unknown name; the message lists the allowed ones.
+    """
     try:
         return TRANSFORMS[name]
     except (KeyError, TypeError):
@@ -144,7 +175,23 @@ def get_transform(name: str) -> Transform:
 
 
 def transform_for_measure(measure: str) -> str:
-    """Name of the transform used for ``measure`` (``"absolute"`` or ``"relative"``)."""
+    """Name of the transform used for a band-power measure.
+
+    Parameters
+    ----------
+    measure : {"absolute", "relative"}
+        Absolute power (µV²) or relative power (a fraction in (0, 1)).
+
+    Returns
+    -------
+    str
+        ``"log10"`` for absolute, ``"logit"`` for relative power.
+
+    Raises
+    ------
+    InputError
+        For any other measure.
+    """
     try:
         return TRANSFORM_FOR_MEASURE[measure]
     except (KeyError, TypeError):
@@ -153,10 +200,41 @@ def transform_for_measure(measure: str) -> str:
 
 
 def forward(values, name: str) -> np.ndarray:
-    """Apply transform ``name`` to ``values`` (array-like, any shape)."""
+    """Apply transform ``name`` to ``values``.
+
+    Parameters
+    ----------
+    values : array-like, any shape
+        Values in the measure's own unit (µV² for absolute power, a fraction for relative power).
+    name : str
+        Transform name (see :func:`get_transform`).
+
+    Returns
+    -------
+    ndarray of float, same shape
+        Transformed values; NaN passes through.
+
+    Raises
+    ------
+    InputError
+        If a finite value lies outside the transform's domain.
+    """
     return get_transform(name).forward(values)
 
 
 def inverse(values, name: str) -> np.ndarray:
-    """Undo transform ``name``."""
+    """Undo transform ``name``.
+
+    Parameters
+    ----------
+    values : array-like, any shape
+        Values on the transformed scale.
+    name : str
+        Transform name (see :func:`get_transform`).
+
+    Returns
+    -------
+    ndarray of float, same shape
+        Values in the measure's own unit.
+    """
     return get_transform(name).inverse(values)

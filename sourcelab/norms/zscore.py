@@ -114,18 +114,35 @@ class NormRows:
     leverage: np.ndarray | None = None
 
     def z(self, values) -> np.ndarray:
-        """z-scores of values (one per row, the table's value unit), see :func:`zscore`."""
+        """z-scores of values (one per row, the table's value unit), see :func:`zscore`.
+
+        Parameters
+        ----------
+        values : array-like, shape (m,)
+            One value per table row in its own unit (µV² for absolute power, a fraction for
+            relative power, the coupling measure's unit).
+
+        Returns
+        -------
+        ndarray, shape (m,)
+            ``(T(value) - mean) / sd``; NaN where a row has no norm.
+        """
         return zscore(values, self.mean, self.sd, self.transform)
 
     def predictive(self, z) -> dict:
         """Predictive (Student-t) statistics of plain z-scores, one per row.
 
+        Parameters
+        ----------
+        z : array-like, shape (m,)
+            Plain z-scores of the rows (e.g. from :meth:`z`).
+
         Returns
         -------
         dict
-            ``t``, ``p`` (two-sided), ``z_equivalent`` (the normal deviate with the same p);
-            NaN where a row has no norm.  Without stored degrees of freedom (hand-made rows) the
-            normal distribution is used.
+            ``t``, ``p`` (two-sided), ``z_equivalent`` (the normal deviate with the same p), each an
+            ndarray of shape (m,); NaN where a row has no norm.  Without stored degrees of freedom
+            (hand-made rows) the normal distribution is used.
 
         References
         ----------
@@ -158,6 +175,7 @@ def zscore(values, mean, sd, transform) -> np.ndarray:
     Returns
     -------
     ndarray, shape (m,)
+        Dimensionless z; NaN without a norm (or for a NaN value).
     """
     values = np.asarray(values, dtype=float)
     trans = np.broadcast_to(np.asarray(transform, dtype=object), values.shape)
@@ -200,6 +218,7 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
     Returns
     -------
     NormRows
+        The norm of every table row at ``age`` (NaN / ``has`` False where none).
 
     Raises
     ------
@@ -383,6 +402,8 @@ def chance_summary(table: pd.DataFrame, *, alpha: float = FDR_ALPHA) -> dict:
     table : DataFrame
         Output of :func:`apply_norms` (needs ``z``; counts ``z_equivalent`` -- the predictive
         test's normal deviate -- when present, and uses ``fdr_q`` when present).
+    alpha : float
+        False-discovery-rate level for ``n_fdr``.
 
     Returns
     -------

@@ -1,4 +1,7 @@
-"""Atlases as collections of ROIs over the cortical template sources (contract; see DEVELOPERS.md)."""
+"""Atlases as collections of ROIs over the cortical template sources.
+
+The contract is described in DEVELOPERS.md.
+"""
 
 from __future__ import annotations
 
@@ -34,7 +37,22 @@ class ROI:
 
 @dataclass(frozen=True, eq=False)
 class Atlas:
-    """A named set of ROIs (ROIs may overlap, e.g. networks sharing areas)."""
+    """A named set of ROIs (ROIs may overlap, e.g. networks sharing areas).
+
+    Attributes
+    ----------
+    name : str
+        Atlas name, e.g. ``"brodmann"``.
+    description : str
+        One-line description for reports.
+    citation : str
+        Reference of the parcellation.
+    rois : tuple of ROI
+        The regions, in display order.
+    sha256 : str
+        sha256 of the file the atlas was read from (empty for atlases built in memory); part of the
+        pipeline fingerprint.
+    """
 
     name: str
     description: str
@@ -43,10 +61,27 @@ class Atlas:
     sha256: str = ""
 
     def vertex_sets(self) -> list[np.ndarray]:
-        """The source indices of every ROI, in ``rois`` order."""
+        """The source indices of every ROI, in ``rois`` order.
+
+        Returns
+        -------
+        list of ndarray of int
+            One array of source indices (``0..n_src-1``) per ROI.
+        """
         return [r.vertices for r in self.rois]
 
     def label(self, roi: ROI) -> str:
-        """Display label, e.g. ``"BA17 L"`` (``"both"`` hemisphere: the name alone)."""
+        """Display label, e.g. ``"BA17 L"`` (``"both"`` hemisphere: the name alone).
+
+        Parameters
+        ----------
+        roi : ROI
+            A region of this atlas.
+
+        Returns
+        -------
+        str
+            The ROI name, followed by ``" L"`` or ``" R"`` for a one-hemisphere ROI.
+        """
         h = roi.hemisphere
         return f"{roi.name} {h[:1].upper()}" if h in ("left", "right") else roi.name

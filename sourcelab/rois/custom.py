@@ -52,8 +52,8 @@ empty)::
 Area names: ``BA<n>`` (Brodmann), lobe names, network names (``sourcelab atlas list``) and
 ``yeo7:<network>``.  fsaverage vertex ``i`` equals fsaverage5 vertex ``i`` for ``i < 10,242``, so
 fsaverage labels keep those vertices (the others are dropped with a warning).  Surface vertices
-on the medial wall are not sources and are dropped.  An ROI without sources is an error; an ROI with fewer than :data:`SMALL_MIN_VERTICES` sources is logged as a
-warning and flagged ``small``.
+on the medial wall are not sources and are dropped.  An ROI without sources is an error; an ROI
+with fewer than :data:`SMALL_MIN_VERTICES` sources is logged as a warning and flagged ``small``.
 """
 
 from __future__ import annotations

@@ -42,13 +42,27 @@ def _npz(name: str) -> dict[str, np.ndarray]:
 
 @lru_cache(maxsize=1)
 def groupings() -> dict:
-    """Lobe and network definitions (Brodmann-area groupings with citations)."""
+    """Lobe and network definitions (Brodmann-area groupings with citations).
+
+    Returns
+    -------
+    dict
+        The shipped ``groupings.json``: ``"lobes"`` and ``"networks"``, each with a
+        ``description``, ``citation`` and ``groups`` (name -> Brodmann areas); cached, do not
+        modify.
+    """
     return json.loads(shipped_bytes("groupings.json")[0])
 
 
 @lru_cache(maxsize=1)
 def brodmann_labels() -> np.ndarray:
-    """Brodmann area number per surface vertex, shape (20484,), 0 = unlabelled."""
+    """Brodmann area number per surface vertex, shape (20484,), 0 = unlabelled.
+
+    Returns
+    -------
+    ndarray of int16, shape (20484,)
+        Read-only; fsaverage5 vertices, left hemisphere first.
+    """
     lab = _npz("brodmann_fsaverage5.npz")["labels"].astype(np.int16)
     lab.setflags(write=False)
     return lab
@@ -56,8 +70,14 @@ def brodmann_labels() -> np.ndarray:
 
 @lru_cache(maxsize=1)
 def yeo7_labels() -> tuple[np.ndarray, tuple[str, ...]]:
-    """Yeo 2011 7-network label per surface vertex (0 = medial wall, k = ``names[k - 1]``) and the
-    network names."""
+    """Yeo 2011 7-network label per surface vertex and the network names.
+
+    Returns
+    -------
+    labels : ndarray of int16, shape (20484,)
+        Read-only; 0 = medial wall, ``k`` = network ``names[k - 1]``; left hemisphere first.
+    names : tuple of str, length 7
+    """
     z = _npz("yeo7_fsaverage5.npz")
     lab = z["labels"].astype(np.int16)
     lab.setflags(write=False)
@@ -101,6 +121,7 @@ def surface_to_sources(mask: np.ndarray) -> np.ndarray:
     Returns
     -------
     ndarray of int
+        Source indices (``0..n_src-1``) of the selected cortical vertices, increasing.
     """
     mask = np.asarray(mask, dtype=bool)
     if mask.shape != (N_SURFACE,):
@@ -109,7 +130,17 @@ def surface_to_sources(mask: np.ndarray) -> np.ndarray:
 
 
 def hemisphere_mask(hemi: str) -> np.ndarray:
-    """Surface vertices of one hemisphere (``"both"``: all), shape (20484,) bool."""
+    """Surface vertices of one hemisphere (``"both"``: all), shape (20484,) bool.
+
+    Parameters
+    ----------
+    hemi : {"left", "right", "both"}
+
+    Returns
+    -------
+    ndarray of bool, shape (20484,)
+        True on the hemisphere's 10,242 vertices (all for ``"both"``).
+    """
     if hemi == "both":
         return np.ones(N_SURFACE, dtype=bool)
     m = np.zeros(N_SURFACE, dtype=bool)
@@ -182,7 +213,13 @@ _BUILDERS = {"brodmann": _brodmann, "lobes": _lobes, "networks": _networks, "yeo
 
 
 def available_atlases() -> tuple[str, ...]:
-    """Names accepted by :func:`load_atlas`."""
+    """Names accepted by :func:`load_atlas`.
+
+    Returns
+    -------
+    tuple of str
+        ``("brodmann", "lobes", "networks", "yeo7")``.
+    """
     return tuple(_BUILDERS)
 
 

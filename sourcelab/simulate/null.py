@@ -63,6 +63,10 @@ def complete_null(*, kind: str = "roi", n_rois: int = 115, n_bands: int = 5,
     kind : {"roi", "sensor"}
         Table kind (ROI-like: ``n_rois`` x bands x 2 measures rows; sensor-like: use
         ``n_rois=19``).
+    n_rois : int
+        Number of ROIs (or channels) per table.
+    n_bands : int
+        Number of bands per ROI.
     n_controls : int
         Reference cohort size per replicate.
     n_reps : int
@@ -71,6 +75,10 @@ def complete_null(*, kind: str = "roi", n_rois: int = 115, n_bands: int = 5,
         Held-out people scored against each cohort's norms.
     rho : float
         Within-group (band x measure) correlation of the quantities.
+    age_range : (float, float)
+        Ages of the invented people, years.
+    seed : int
+        Seed of the random generator.
     degree : int or "auto"
         Regression degree passed to the builder.
 

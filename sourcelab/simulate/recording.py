@@ -54,7 +54,22 @@ class Generator:
 
 
 def patch_vertices(model: HeadModel, center_mni, hemisphere: str, radius_mm: float) -> np.ndarray:
-    """Sources within ``radius_mm`` of the source nearest ``center_mni`` in one hemisphere."""
+    """Sources within ``radius_mm`` of the source nearest ``center_mni`` in one hemisphere.
+
+    Parameters
+    ----------
+    model : HeadModel
+    center_mni : sequence of 3 float
+        Approximate patch centre, MNI305 mm.
+    hemisphere : {"left", "right"}
+    radius_mm : float
+        Patch radius, mm (Euclidean distance between white-surface source positions).
+
+    Returns
+    -------
+    ndarray of int
+        Source indices (``0..n_src-1``), increasing; the nearest source is always included.
+    """
     if hemisphere not in ("left", "right"):
         raise InputError(f"hemisphere: {hemisphere!r} is not one of left, right")
     sl = slice(0, model.n_left) if hemisphere == "left" else slice(model.n_left, model.n_src)
@@ -72,6 +87,28 @@ def pink_noise(n_series: int, n_times: int, sfreq: float, rng: np.random.Generat
     ``spectral_gain``: ``(centre_hz, ln_power_gain)`` pairs; each multiplies the power spectrum
     by ``exp(gain * g(f))`` with ``g`` a Gaussian bump in log10 frequency (SD
     :data:`GAIN_WIDTH_DECADES`) around the centre: a smooth person-specific spectral shape.
+
+    Parameters
+    ----------
+    n_series : int
+        Number of independent series.
+    n_times : int
+        Samples per series.
+    sfreq : float
+        Sampling rate, Hz.
+    rng : numpy.random.Generator
+    exponent : float
+        Spectral exponent (1: pink).
+    f_min : float
+        Below this frequency, Hz, the spectrum is flat (avoids the 1/f pole); the 0 Hz bin is
+        zeroed.
+    spectral_gain : tuple of (float, float)
+        ``(centre_hz, ln_power_gain)`` pairs, see above.
+
+    Returns
+    -------
+    ndarray, shape (n_series, n_times)
+        Zero-mean series, each of standard deviation 1 (dimensionless).
     """
     spec = rng.standard_normal((n_series, n_times // 2 + 1)) + 1j * rng.standard_normal(
         (n_series, n_times // 2 + 1))
@@ -93,7 +130,25 @@ GAIN_WIDTH_DECADES = 0.12
 
 def narrowband(n_times: int, sfreq: float, freq: float, bandwidth: float,
                rng: np.random.Generator) -> np.ndarray:
-    """Unit-variance band-limited Gaussian noise centred on ``freq`` (flat within the band)."""
+    """Unit-variance band-limited Gaussian noise centred on ``freq`` (flat within the band).
+
+    Parameters
+    ----------
+    n_times : int
+        Samples.
+    sfreq : float
+        Sampling rate, Hz.
+    freq : float
+        Centre frequency, Hz.
+    bandwidth : float
+        Full width of the flat band, Hz (bins with ``|f - freq| <= bandwidth / 2`` are kept).
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    ndarray, shape (n_times,)
+        Standard deviation 1 (dimensionless).
+    """
     spec = rng.standard_normal(n_times // 2 + 1) + 1j * rng.standard_normal(n_times // 2 + 1)
     f = np.fft.rfftfreq(n_times, 1 / sfreq)
     spec[np.abs(f - freq) > bandwidth / 2] = 0
@@ -112,18 +167,32 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
 
     Parameters
     ----------
-    background_uv : float
-        Median RMS of the pink background across channels after average reference, µV.
-    sensor_noise_uv : float
-        RMS of white noise added at each electrode, µV.
-    background_exponent : float
-        Exponent of the background's ``1/f**exponent`` power spectrum (1: pink).
-    background_spectral_gain : tuple of (float, float)
-        Smooth spectral-shape changes of the background (see :func:`pink_noise`).
+    model : HeadModel
+        Template head model; its fixed-orientation gain carries background and generators.
+    duration_s : float
+        Length, s.
+    sfreq : float
+        Sampling rate, Hz.
     generators : tuple of Generator
         Oscillating patches; a generator's ``amplitude`` is relative to one background source, so
         an amplitude of 1 with a 100-source patch adds the same variance as 100 background sources
         if they were coherent.
+    background_uv : float
+        Median RMS of the pink background across channels after average reference, µV.
+    sensor_noise_uv : float
+        RMS of white noise added at each electrode, µV.
+    alpha_background : Generator, optional
+        Not used by the simulation (accepted and ignored).
+    background_exponent : float
+        Exponent of the background's ``1/f**exponent`` power spectrum (1: pink).
+    background_spectral_gain : tuple of (float, float)
+        Smooth spectral-shape changes of the background (see :func:`pink_noise`).
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    ndarray, shape (n_ch, n_times)
+        Volts, channels in ``model.ch_names`` order, ``n_times = round(duration_s * sfreq)``.
     """
     n_t = int(round(duration_s * sfreq))
     gf = model.gain_fixed
@@ -149,7 +218,26 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
 def simulate_raw(model: HeadModel, *, duration_s: float = 300.0, sfreq: float = 256.0,
                  generators: tuple[Generator, ...] = (), rng: np.random.Generator,
                  **kwargs):
-    """Like :func:`simulate_sensor_data`, wrapped as an ``mne.io.RawArray`` with the 19 sites."""
+    """Like :func:`simulate_sensor_data`, wrapped as an ``mne.io.RawArray`` with the 19 sites.
+
+    Parameters
+    ----------
+    model : HeadModel
+    duration_s : float
+        Length, s.
+    sfreq : float
+        Sampling rate, Hz.
+    generators : tuple of Generator
+        Oscillating patches.
+    rng : numpy.random.Generator
+    **kwargs
+        Passed to :func:`simulate_sensor_data` (``background_uv``, ``sensor_noise_uv`` ...).
+
+    Returns
+    -------
+    mne.io.RawArray
+        Invented data in volts, EEG channels named after the 19 10-20 sites.
+    """
     import mne
 
     from ..headmodel import make_info
@@ -193,6 +281,7 @@ def ocular_artefacts(ch_pos: np.ndarray, nasion: np.ndarray, *, n_times: int, sf
     Returns
     -------
     ndarray, shape (n_ch, n_times)
+        Invented ocular signals, volts, average reference, to add to EEG data.
     """
     from ..intake.ocular import ocular_templates
 

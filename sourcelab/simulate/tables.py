@@ -43,12 +43,38 @@ class GaussianCohort:
     entries: list
 
     def true_mean(self, age: float) -> np.ndarray:
-        """True transformed mean of every quantity at ``age``, shape (q,)."""
+        """True transformed mean of every quantity at ``age``, shape (q,).
+
+        Parameters
+        ----------
+        age : float
+            Years, > 0.
+
+        Returns
+        -------
+        ndarray, shape (q,)
+            ``a + b x + c x**2`` with ``x = log10(age)``, on the transformed scale (log10 of µV²
+            for absolute, logit for relative power).
+        """
         x = np.log10(age)
         return self.coef @ np.array([1.0, x, x * x])
 
     def tables_at(self, age: float, z: np.ndarray) -> tuple[pd.DataFrame, pd.DataFrame]:
-        """Noise-free tables whose values sit ``z`` true SDs from the true mean, shape (q,)."""
+        """Noise-free tables whose values sit ``z`` true SDs from the true mean.
+
+        Parameters
+        ----------
+        age : float
+            Years, > 0.
+        z : array-like, shape (q,)
+            Deviation of each quantity, in true SDs on the transformed scale.
+
+        Returns
+        -------
+        roi_table, sensor_table : DataFrame
+            Tidy analysis-style tables (``value`` back on the measure's scale: invented µV² for
+            absolute, a fraction for relative power; ``z`` NaN).
+        """
         return _tables(self.keys, self.true_mean(age) + np.asarray(z) * self.sd)
 
 
@@ -79,9 +105,16 @@ def gaussian_cohort(n: int, *, rng: np.random.Generator, age_range=(6.0, 80.0)
     Parameters
     ----------
     n : int
+        Number of invented participants.
     rng : numpy Generator
     age_range : (float, float)
-        Ages are log-uniform over this range, years.
+        Ages are log-uniform over this range, years (rounded to 0.01).
+
+    Returns
+    -------
+    GaussianCohort
+        The true coefficients and SDs, and ``entries`` ready for
+        :func:`sourcelab.norms.fit_norms` (IDs ``sub-001``...).
     """
     rows = [("roi", "brodmann", r, h, b, m) for r in _ROIS for h in _HEMIS for b in _BANDS
             for m in _MEASURES]

@@ -147,6 +147,13 @@ class CouplingTarget:
         return max(2, int(math.ceil(self.window_segments / 2)))
 
     def to_dict(self) -> dict:
+        """The ``sourcelab-target/1`` JSON document of this pair / edge target (see ``SCHEMA.md``).
+
+        Returns
+        -------
+        dict
+            JSON-serialisable; arrays as nested lists; includes the estimator and the cautions.
+        """
         lo, hi = self.band_edges
         node = {"label": self.label, "node_a": self.nodes[0], "node_b": self.nodes[1],
                 **self.details}
@@ -189,12 +196,36 @@ class CouplingTarget:
         }
 
     def to_json(self) -> str:
+        """:meth:`to_dict` as indented JSON text (UTF-8 characters kept).
+
+        Returns
+        -------
+        str
+            Indented JSON text of the target file.
+        """
         return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
 
 
 def coupling_target_from_dict(d: dict, *, path="target", current: Fingerprint | None = None,
                               check_fingerprint: bool = True) -> CouplingTarget:
     """Validate a parsed pair or edge target and build the dataclass.
+
+    Parameters
+    ----------
+    d : dict
+        Parsed JSON with ``"kind"`` ``"pair"`` or ``"edge"``.
+    path : str | Path
+        Named in error messages.
+    current : Fingerprint, optional
+        The pipeline to compare with; default the shipped head model's sha256 and this
+        sourcelab's ``PIPELINE_VERSION``.
+    check_fingerprint : bool
+        False skips the fingerprint comparison.
+
+    Returns
+    -------
+    CouplingTarget
+        The validated pair or edge target.
 
     Raises
     ------
@@ -363,7 +394,27 @@ class OnlineCoupling:
         return spec[0]                                                      # (2, n_bins)
 
     def push(self, chunk: np.ndarray) -> list[tuple[float, float, float, int, bool]]:
-        """Feed samples (19, n) in µV; one row per completed segment."""
+        """Feed samples (19, n) in µV; one row per completed segment.
+
+        Parameters
+        ----------
+        chunk : ndarray, shape (19, n_samples)
+            µV, channels in ``target.channels`` order, any reference; any number of samples.
+
+        Returns
+        -------
+        list of (time_s, value, z, n_clean, clean)
+            Per completed segment: its end time (s), the measure over the trailing window's clean
+            segments (NaN when fewer than ``min_clean_segments``), its z against the target's norm
+            (NaN without one), the number of clean segments used, and whether this segment is clean
+            (after the warm-up, peak-to-peak <= ``reject_uv`` and no channel flatter than
+            :data:`FLAT_UV`).
+
+        Raises
+        ------
+        InputError
+            For a chunk of the wrong shape.
+        """
         from scipy.signal import sosfilt
 
         chunk = np.asarray(chunk, dtype=float)
@@ -416,7 +467,13 @@ class OnlineCoupling:
         return len(self._clean_spec)
 
     def pooled_value(self) -> float:
-        """The measure over every clean segment so far (the offline estimator)."""
+        """The measure over every clean segment so far (the offline estimator).
+
+        Returns
+        -------
+        float
+            In the measure's unit; NaN with fewer than 2 clean segments.
+        """
         if self.n_clean < 2:
             return float("nan")
         return self._value(self._clean_spec, self._clean_plain)
@@ -449,6 +506,13 @@ class CouplingReplay:
     pooled_value: float
 
     def to_frame(self):
+        """The replayed time course as a table.
+
+        Returns
+        -------
+        DataFrame
+            Columns ``time_s, value, z, n_clean, clean``, one row per segment.
+        """
         import pandas as pd
 
         return pd.DataFrame({"time_s": self.time_s, "value": self.value, "z": self.z,
@@ -465,12 +529,14 @@ def replay_coupling_array(data_uv: np.ndarray, sfreq: float, target: CouplingTar
         µV, channels in ``target.channels`` order, any reference.
     sfreq : float
         Hz.
+    target : CouplingTarget
     chunk_s : float
         Processing chunk (affects speed only).
 
     Returns
     -------
     CouplingReplay
+        One row per completed segment.
     """
     data_uv = np.asarray(data_uv, dtype=float)
     tracker = OnlineCoupling(target, sfreq)
@@ -488,9 +554,19 @@ def replay_coupling_array(data_uv: np.ndarray, sfreq: float, target: CouplingTar
 def plot_coupling_replay(result: CouplingReplay, target: CouplingTarget, *, figure=None):
     """Windowed value and z over time; offline value dashed; unclean segments shaded.
 
+    Parameters
+    ----------
+    result : CouplingReplay
+        From :func:`replay_coupling_array`.
+    target : CouplingTarget
+        The replayed target (labels, window, offline value, norm).
+    figure : matplotlib.figure.Figure, optional
+        Figure to draw into; default a new one.
+
     Returns
     -------
     matplotlib.figure.Figure
+        Two panels: windowed value and z (the drawn ``figure`` when given).
     """
     from matplotlib.figure import Figure
 
@@ -524,14 +600,29 @@ def plot_coupling_replay(result: CouplingReplay, target: CouplingTarget, *, figu
 
 
 def replay_coupling_recording(target: CouplingTarget, recording, out: str | Path) -> dict:
-    """Replay a coupling target on a recording; write ``replay.tsv``, ``replay.png``,
-    ``replay.json`` (atomically).
+    """Replay a coupling target on a recording.
+
+    Writes ``replay.tsv``, ``replay.png`` and ``replay.json`` into ``out`` (atomically).
+
+    Parameters
+    ----------
+    target : CouplingTarget
+    recording : Recording or path
+        A read recording or a file for :func:`sourcelab.intake.read_recording`; its channels
+        must be ``target.channels``.
+    out : str | Path
+        Output folder (new, or an earlier sourcelab output, replaced).
 
     Returns
     -------
     dict
         Summary: segments, clean segments, pooled value, offline value and their difference,
         the median windowed value.
+
+    Raises
+    ------
+    InputError
+        For a recording with other channels or shorter than one segment.
     """
     from ..intake import Recording, read_recording
     from ..provenance import atomic_output_dir
@@ -647,12 +738,17 @@ def export_coupling_target(result_dir: str | Path, *, kind: str, label: str, ban
         The edge's atlas (needed when the edge's ROI names exist in several).
     norms : path | Norms, optional
         Default: the norms file recorded in the folder's provenance (its sha256 must match).
+    allow_extrapolation : bool
+        Accept a participant age outside the norms' age range (the nearest covered age is
+        used and the norm is marked ``extrapolated``).
     window_segments : int
         Segments of the feedback window (default 15: 30 s of 2-s segments).
 
     Returns
     -------
     CouplingTarget
+        Node weights (2, 19), the offline value and, with norms, the norm at the participant's
+        age.
 
     Raises
     ------
@@ -744,13 +840,39 @@ def coupling_norm_at_age(norms, *, kind: str, label: str, band: str, measure: st
                          fingerprint: Fingerprint, atlas: str | None = None,
                          condition: str | None = None,
                          allow_extrapolation: bool = False) -> dict:
-    """The norm of one pair / edge quantity at ``age`` (row selection of
-    :func:`sourcelab.norms.match_norms`).
+    """The norm of one pair / edge quantity at ``age``.
+
+    Row selection is :func:`sourcelab.norms.match_norms`'s (fingerprint, condition, age range).
+
+    Parameters
+    ----------
+    norms : Norms
+    kind : {"pair", "edge"}
+    label : str
+        Pair label (``"F3-F4"``) or edge label (``"roi.hemisphere|roi.hemisphere"``).
+    band, measure : str
+        Band name and coupling measure.
+    age : float
+        Participant age, years.
+    fingerprint : Fingerprint
+        Pipeline the norms must match.
+    atlas : str, optional
+        Atlas of an edge.
+    condition : str, optional
+        Recording condition; a mismatch is allowed here (recorded in ``condition``).
+    allow_extrapolation : bool
+        Accept an age outside the norms' age range.
 
     Returns
     -------
     dict
-        ``mean, sd, transform, age, n, extrapolated, norms_sha256, condition``.
+        ``mean, sd`` (on the measure's transformed scale), ``transform``, ``age`` (years),
+        ``n``, ``extrapolated``, ``norms_sha256``, ``condition`` (the norms').
+
+    Raises
+    ------
+    InputError
+        If the norms have no row for the quantity.
     """
     import pandas as pd
 

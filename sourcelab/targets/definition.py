@@ -91,6 +91,7 @@ def butter_sos(lo: float, hi: float, sfreq: float, *, order: int = FILTER_ORDER)
     Returns
     -------
     sos : ndarray, shape (order, 6)
+        Second-order sections for :func:`scipy.signal.sosfilt` (band-pass of order ``2 * order``).
     """
     from scipy.signal import butter
 
@@ -101,7 +102,22 @@ def butter_sos(lo: float, hi: float, sfreq: float, *, order: int = FILTER_ORDER)
 
 
 def group_delay_s(sos: np.ndarray, sfreq: float, freq: float) -> float:
-    """Group delay of ``sos`` at ``freq`` (s): the display latency of a feedback signal there."""
+    """Group delay of ``sos`` at ``freq`` (s): the display latency of a feedback signal there.
+
+    Parameters
+    ----------
+    sos : ndarray, shape (n_sections, 6)
+        Second-order sections (e.g. from :func:`butter_sos`).
+    sfreq : float
+        Sampling rate, Hz.
+    freq : float
+        Frequency, Hz (a central difference of the phase over ±0.01 Hz).
+
+    Returns
+    -------
+    float
+        Group delay, s.
+    """
     from scipy.signal import sosfreqz
 
     df = 0.01
@@ -189,13 +205,33 @@ class TargetDefinition:
         raise InputError(f"band {self.band!r} is not among {[b[0] for b in self.bands]}")
 
     def sos_for(self, sfreq: float) -> dict[str, np.ndarray]:
-        """Band-pass sections for a sampling rate (the stored ones when it matches)."""
+        """Band-pass sections for a sampling rate (the stored ones when it matches).
+
+        Parameters
+        ----------
+        sfreq : float
+            Sampling rate of the data fed, Hz.
+
+        Returns
+        -------
+        dict of str to ndarray, shape (filter_order, 6)
+            One entry per stored band; re-designed from the same specification (Butterworth,
+            :attr:`filter_order`, -3 dB at the band edges) when ``sfreq`` differs from
+            :attr:`sfreq`.
+        """
         if math.isclose(sfreq, self.sfreq, rel_tol=1e-9):
             return dict(self.sos)
         return {b: butter_sos(lo, hi, sfreq, order=self.filter_order)
                 for b, lo, hi in self.bands if b in self.sos}
 
     def to_dict(self) -> dict:
+        """The ``sourcelab-target/1`` JSON document of this area target (see ``SCHEMA.md``).
+
+        Returns
+        -------
+        dict
+            JSON-serialisable; arrays as nested lists; includes the cautions.
+        """
         lo, hi = self.band_edges
         return {
             "schema": SCHEMA,
@@ -235,11 +271,36 @@ class TargetDefinition:
         }
 
     def to_json(self) -> str:
+        """:meth:`to_dict` as indented JSON text (UTF-8 characters kept).
+
+        Returns
+        -------
+        str
+            Indented JSON text of the target file.
+        """
         return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
 
 
 def write_target(target, path: str | Path) -> Path:
-    """Write ``target`` (area, pair or edge) as JSON (atomically)."""
+    """Write ``target`` (area, pair or edge) as JSON (atomically).
+
+    Parameters
+    ----------
+    target : TargetDefinition or CouplingTarget
+        Anything with a ``to_json()`` method.
+    path : str | Path
+        Output file, ending in ``.json``; replaced only when sourcelab wrote it.
+
+    Returns
+    -------
+    Path
+        ``path``.
+
+    Raises
+    ------
+    InputError
+        If ``path`` does not end in ``.json`` or cannot be written.
+    """
     path = Path(path)
     if path.suffix.lower() != ".json":
         raise InputError("a target file must end in .json", path=path)
@@ -414,10 +475,25 @@ def read_target(path: str | Path, *, current: Fingerprint | None = None,
                 check_fingerprint: bool = True):
     """Read and validate a ``sourcelab-target/1`` JSON file (see :func:`target_from_dict`).
 
+    Parameters
+    ----------
+    path : str | Path
+        The target file (at most :data:`TARGET_MAX_BYTES`).
+    current : Fingerprint, optional
+        The pipeline the target must match; default: the shipped head model and this
+        sourcelab's pipeline version.
+    check_fingerprint : bool
+        False skips the fingerprint check (e.g. when only the target's name is needed).
+
     Returns
     -------
     TargetDefinition | sourcelab.targets.coupling.CouplingTarget
         An area target, or a pair / edge target (``"kind"`` in the file).
+
+    Raises
+    ------
+    InputError
+        For an unreadable, malformed or mismatching file; the message names ``path``.
     """
     from ..checks import load_json
     path = Path(path)
@@ -445,16 +521,50 @@ def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisp
     Parameters
     ----------
     kernel : ndarray, shape (n_src * n_comp, 19)
+        Standardised source kernel, source-major rows (per µV).
+    n_comp : int
+        Kernel rows per source (1 fixed, 3 free orientation).
+    atlas, roi, hemisphere : str
+        The ROI's identity.
     vertices : ndarray of int
         The ROI's sources as fsaverage5 surface vertices (stored in the file: portable).
+    band : str
+        Band trained; one of ``bands``.
     sources : ndarray of int, optional
         The same sources as rows of ``kernel`` (source indices); default ``vertices`` (for a
         kernel whose rows are the surface vertices themselves).
     bands : sequence of (name, lo, hi)
+        Every analysed band, edges in Hz.
+    measure : {"absolute", "relative"}
+    fingerprint : Fingerprint
+        Pipeline of the analysis the target comes from.
+    sfreq : float
+        Sampling rate the stored filters are designed for, Hz.
+    norm : dict, optional
+        From :func:`norm_at_age`.
+    offline : dict, optional
+        The analysis's value and z for this ROI.
     z : float, optional
         The offline z; its sign sets ``direction`` (train towards the norm).
-    sfreq : float
-        Sampling rate the stored filters are designed for.
+    reject_uv : float
+        Peak-to-peak threshold marking a live window unclean, µV.
+    small : bool
+        The ROI is flagged small.
+    window_s, step_s : float
+        Live window length and step, s.
+    filter_order : int
+        Butterworth prototype order, 1..12.
+
+    Returns
+    -------
+    TargetDefinition
+        ``matrix`` is the ROI power matrix ``M``, shape (19, 19); ``kernel_rows`` only for
+        relative power; filters for the trained band (absolute) or every band (relative).
+
+    Raises
+    ------
+    InputError
+        For an unknown measure or band, or a filter order outside 1..12.
     """
     if measure not in MEASURES:
         raise InputError(f"measure: {measure!r} is not one of {MEASURES}")
@@ -491,10 +601,30 @@ def norm_at_age(norms, *, atlas: str, roi: str, hemisphere: str, band: str, meas
 
     Row selection is :func:`sourcelab.norms.match_norms`'s (fingerprint, condition, age range).
 
+    Parameters
+    ----------
+    norms : Norms
+    atlas, roi, hemisphere, band, measure : str
+        The ROI quantity.
+    age : float
+        Participant age, years.
+    fingerprint : Fingerprint
+        Pipeline the norms must match.
+    condition : str, optional
+        Recording condition; a mismatch is allowed here (recorded in ``condition``).
+    allow_extrapolation : bool
+        Accept an age outside the norms' age range (the nearest covered age is used).
+
     Returns
     -------
     dict
-        ``mean, sd, transform, age, n, extrapolated, norms_sha256, condition``.
+        ``mean, sd`` (transformed scale: log10 of the power unit, or logit), ``transform``,
+        ``age`` (years), ``n``, ``extrapolated``, ``norms_sha256``, ``condition`` (the norms').
+
+    Raises
+    ------
+    InputError
+        If the norms have no row for the quantity.
     """
     import pandas as pd
 
@@ -569,6 +699,7 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     result_dir : path
         Folder written by ``sourcelab analyze`` (``roi_table.tsv``, ``provenance.json``).
     roi, band : str
+        ROI name (e.g. ``"BA17"``) and band name of the analysis.
     atlas : str
         A shipped atlas (custom ROI sets are not exportable: their vertices are not shipped).
     hemisphere : {"left", "right", "both"}, optional
@@ -576,6 +707,9 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     measure : {"absolute", "relative"}
     norms : path | Norms, optional
         Default: the norms file recorded in the folder's provenance (its sha256 must match).
+    allow_extrapolation : bool
+        Accept a participant age outside the norms' age range (the nearest covered age is
+        used and the norm is marked ``extrapolated``).
     filter_order : int
         Butterworth prototype order per edge (default 4: ~200 ms group delay in alpha).  Higher
         orders leak less power from a strong neighbouring peak (see SCHEMA.md) at more latency.
@@ -586,13 +720,12 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     threshold_sd : float, optional
         Feedback threshold, in smoothed-SD units from the person's own level towards the norm.
 
-    The target's ``live`` section holds the expected window-to-window SD of the live value under
-    the person's steady state, computed from the folder's ``epochs.npz`` (None for folders
-    written before it existed).
-
     Returns
     -------
     TargetDefinition
+        Its ``live`` section holds the expected window-to-window SD of the live value under
+        the person's steady state, computed from the folder's ``epochs.npz`` (None for folders
+        written before it existed).
 
     Raises
     ------

@@ -87,7 +87,22 @@ def _impulse(sos: np.ndarray, n: int) -> np.ndarray:
 
 
 def window_acf(sos: np.ndarray, sfreq: float, *, tail_s: float = 8.0) -> np.ndarray:
-    """Autocorrelation ``R(k)`` of the filter's impulse response, k = 0, 1, ... (samples)."""
+    """Autocorrelation ``R(k)`` of the filter's impulse response, k = 0, 1, ... (samples).
+
+    Parameters
+    ----------
+    sos : ndarray, shape (n_sections, 6)
+        Second-order sections of the causal band-pass filter.
+    sfreq : float
+        Sampling rate, Hz.
+    tail_s : float
+        Length of impulse response used, s (it must have decayed by then).
+
+    Returns
+    -------
+    ndarray, shape (round(tail_s * sfreq),)
+        ``R(k) = Σ_t h(t) h(t + k)`` (unnormalised).
+    """
     h = _impulse(np.asarray(sos, float), int(round(tail_s * sfreq)))
     n = 2 * h.size
     spec = np.abs(np.fft.rfft(h, n)) ** 2
@@ -107,6 +122,20 @@ def live_window_dof(sos: np.ndarray, sfreq: float, window_s: float) -> float:
     """Degrees of freedom of the live mean-square estimate of one channel (white input).
 
     ``ν = (n R(0))² / Σ_t,u R(t-u)²`` for a window of n samples of the causal filter's output.
+
+    Parameters
+    ----------
+    sos : ndarray, shape (n_sections, 6)
+        Second-order sections of the live band-pass filter.
+    sfreq : float
+        Sampling rate, Hz.
+    window_s : float
+        Live window length, s.
+
+    Returns
+    -------
+    float
+        Effective χ² degrees of freedom.
     """
     n = int(round(window_s * sfreq))
     r = window_acf(sos, sfreq)
@@ -114,7 +143,26 @@ def live_window_dof(sos: np.ndarray, sfreq: float, window_s: float) -> float:
 
 
 def window_correlation(sos: np.ndarray, sfreq: float, window_s: float, lags_s) -> np.ndarray:
-    """Correlation of the sampling errors of two live windows ``lag`` seconds apart."""
+    """Correlation of the sampling errors of two live windows ``lag`` seconds apart.
+
+    ``ρ(d) = Σ_t,u R(t-u-d)² / Σ_t,u R(t-u)²`` (module docstring, step 5).
+
+    Parameters
+    ----------
+    sos : ndarray, shape (n_sections, 6)
+        Second-order sections of the live band-pass filter.
+    sfreq : float
+        Sampling rate, Hz.
+    window_s : float
+        Live window length, s.
+    lags_s : sequence of float
+        Lags between window ends, s (rounded to whole samples).
+
+    Returns
+    -------
+    ndarray, shape (len(lags_s),)
+        In [0, 1]; 1 at lag 0.
+    """
     n = int(round(window_s * sfreq))
     r = window_acf(sos, sfreq)
     base = _pair_sum(r, n, 0)
@@ -125,6 +173,25 @@ def welch_epoch_dof(lo: float, hi: float, sfreq: float, epoch_s: float) -> float
     """Degrees of freedom of one epoch's Welch band power (periodic Hann, bins lo <= f < hi).
 
     ``Q = Re Σ_k a_k a_kᴴ`` with ``a_k = w · exp(-2πi f_k t)``; ``ν = tr(Q)² / tr(Q²)``.
+
+    Parameters
+    ----------
+    lo, hi : float
+        Band edges, Hz, ``[lo, hi)``.
+    sfreq : float
+        Sampling rate, Hz.
+    epoch_s : float
+        Epoch length, s.
+
+    Returns
+    -------
+    float
+        Effective χ² degrees of freedom of the band-power estimate.
+
+    Raises
+    ------
+    InputError
+        If the band holds no bin at ``1 / epoch_s`` Hz resolution.
     """
     n = int(round(epoch_s * sfreq))
     t = np.arange(n)
@@ -141,7 +208,19 @@ def welch_epoch_dof(lo: float, hi: float, sfreq: float, epoch_s: float) -> float
 
 
 def log_variance_dof(v_ln: float) -> float:
-    """The ν with ``Var(ln(χ²_ν / ν)) = ψ'(ν/2) = v_ln`` (trigamma; inf when v_ln <= 0)."""
+    """The ν with ``Var(ln(χ²_ν / ν)) = ψ'(ν/2) = v_ln`` (trigamma; inf when v_ln <= 0).
+
+    Parameters
+    ----------
+    v_ln : float
+        Variance of the natural log of a power estimate.
+
+    Returns
+    -------
+    float
+        Degrees of freedom ν; ``inf`` when ``v_ln <= 0`` or below what ν = 2e9 gives, 2e-4 when
+        above what ν = 2e-4 gives.
+    """
     from scipy.optimize import brentq
     from scipy.special import polygamma
 
@@ -173,7 +252,13 @@ def epoch_values(target, epoch_csd: np.ndarray) -> np.ndarray:
     ----------
     target : TargetDefinition
     epoch_csd : ndarray, shape (n_epochs, n_bands, 19, 19)
-        Band order as ``target.bands``.
+        Real band cross-spectra, µV², band order as ``target.bands``.
+
+    Returns
+    -------
+    ndarray, shape (n_epochs,)
+        Absolute: ROI mean power ``tr(M C_e)`` (sLORETA-standardised units); relative: mean over
+        the ROI's sources of band / total-over-bands power (a fraction; NaN where the total is 0).
     """
     c = np.asarray(epoch_csd, float)
     names = [b[0] for b in target.bands]
@@ -192,13 +277,42 @@ def epoch_values(target, epoch_csd: np.ndarray) -> np.ndarray:
 
 
 def transform_name(target) -> str:
+    """Name of the transform of the target's live value.
+
+    Parameters
+    ----------
+    target : TargetDefinition
+
+    Returns
+    -------
+    str
+        The norm's transform when the target has a norm, else ``"log10"`` for absolute and
+        ``"logit"`` for relative power.
+    """
     if target.norm is not None:
         return str(target.norm["transform"])
     return "log10" if target.measure == "absolute" else "logit"
 
 
 def transform(values, name: str) -> np.ndarray:
-    """log10 (absolute) or logit (relative); NaN outside the domain."""
+    """log10 (absolute) or logit (relative); NaN outside the domain.
+
+    Parameters
+    ----------
+    values : array-like, any shape
+        Power (absolute) or a fraction (relative).
+    name : {"log10", "logit"}
+
+    Returns
+    -------
+    ndarray of float, same shape
+        NaN where a value is <= 0 (log10) or outside (0, 1) (logit).
+
+    Raises
+    ------
+    InputError
+        For another transform name.
+    """
     v = np.asarray(values, dtype=float)
     out = np.full(v.shape, np.nan)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -214,6 +328,20 @@ def transform(values, name: str) -> np.ndarray:
 
 
 def inverse_transform(level: float, name: str) -> float:
+    """Undo :func:`transform` for one level.
+
+    Parameters
+    ----------
+    level : float
+        Value on the transformed scale.
+    name : {"log10", "logit"}
+        Any name other than ``"log10"`` is treated as ``"logit"``.
+
+    Returns
+    -------
+    float
+        NaN for a non-finite level.
+    """
     if not np.isfinite(level):
         return float("nan")
     return float(10.0 ** level) if name == "log10" else float(1.0 / (1.0 + math.exp(-level)))
@@ -225,7 +353,28 @@ def inverse_transform(level: float, name: str) -> float:
 
 def smoother_weights(kind: str, time_constant_s: float, step_s: float,
                      *, tol: float = 1e-6) -> np.ndarray:
-    """Steady-state weights of the smoother over the latest clean windows (newest first)."""
+    """Steady-state weights of the smoother over the latest clean windows (newest first).
+
+    Parameters
+    ----------
+    kind : {"exponential", "moving", "none"}
+    time_constant_s : float
+        Exponential: ``tau``, s; moving: the span averaged, s.
+    step_s : float
+        Time between live windows, s.
+    tol : float
+        Exponential weights are cut where the tail left falls below ``tol``.
+
+    Returns
+    -------
+    ndarray, shape (n_weights,)
+        Summing to 1 (to within ``tol`` for the exponential smoother); ``[1.0]`` for ``"none"``.
+
+    Raises
+    ------
+    InputError
+        For an unknown kind or a time constant that is not > 0.
+    """
     if kind not in SMOOTHING:
         raise InputError(f"smoothing: {kind!r} is not one of {sorted(SMOOTHING)}")
     if kind == "none":
@@ -265,10 +414,25 @@ class Smoother:
         self.reset()
 
     def reset(self) -> None:
+        """Forget the smoothing state (after a restart the next clean value is taken as it is)."""
         self._s = None
         self._hist: list[float] = []
 
     def update(self, level: float, clean: bool) -> float:
+        """Feed one window's transformed value; return the smoothed value.
+
+        Parameters
+        ----------
+        level : float
+            The window's value on the transformed scale (log10 or logit).
+        clean : bool
+            Whether the window passed the live artefact checks.
+
+        Returns
+        -------
+        float
+            The smoothed level; NaN (state unchanged) for an unclean or non-finite window.
+        """
         if not clean or not np.isfinite(level):
             return float("nan")
         if self.kind == "none":
@@ -307,8 +471,10 @@ def expected_live_sd(levels: np.ndarray, *, onsets_s: np.ndarray | None, epoch_s
         Band edges, Hz.
     window_s, step_s : float
         Live window and step.
-    smoothing, time_constant_s
-        See :class:`Smoother`.
+    smoothing : {"exponential", "moving", "none"}
+        Smoother kind (see :class:`Smoother`).
+    time_constant_s : float
+        The smoother's time constant, s.
     ln_scale : float, optional
         Factor turning the transformed scale into natural-log units for the χ² model (ln 10 for
         log10 levels).  Default: ln 10.
@@ -387,8 +553,10 @@ def live_section(target, epochs=None, *, smoothing: str = "exponential",
     target : TargetDefinition
     epochs : sourcelab.epochfile.EpochSpectra, optional
         The analysis' per-epoch spectra; without them the expected SD is not available.
-    smoothing, time_constant_s
-        See :class:`Smoother`.
+    smoothing : {"exponential", "moving", "none"}
+        Smoother kind (see :class:`Smoother`).
+    time_constant_s : float
+        The smoother's time constant, s.
     threshold_sd : float, optional
         Feedback threshold in units of the smoothed SD from the person's own level (the offline
         value), in the training direction: ``level_0 ∓ k · smoothed_sd``.  None: no threshold.
@@ -480,7 +648,27 @@ def _json_safe(o):
 
 
 def check_live(d, path="target") -> dict | None:
-    """Validate a parsed ``live`` section (None passes)."""
+    """Validate a parsed ``live`` section (None passes).
+
+    Parameters
+    ----------
+    d : dict or None
+        The ``live`` object of a target file: ``smoothing`` (``kind``, ``time_constant_s``) and
+        an optional ``threshold`` (``direction``, ``level`` on the transformed scale).
+    path : str | Path
+        Named in messages.
+
+    Returns
+    -------
+    dict or None
+        ``d`` unchanged.
+
+    Raises
+    ------
+    InputError
+        For an unknown smoothing kind, a time constant that is not > 0, or an incomplete
+        threshold.
+    """
     if d is None:
         return None
     if not isinstance(d, dict):
@@ -503,7 +691,21 @@ def check_live(d, path="target") -> dict | None:
 
 
 def threshold_met(smoothed_level: float, live: dict | None) -> float:
-    """1.0 when the smoothed value is beyond the threshold, 0.0 when not, NaN without one."""
+    """1.0 when the smoothed value is beyond the threshold, 0.0 when not, NaN without one.
+
+    Parameters
+    ----------
+    smoothed_level : float
+        Smoothed value on the transformed scale.
+    live : dict or None
+        The target's ``live`` section.
+
+    Returns
+    -------
+    float
+        ``"increase"``: ``level >= threshold``; ``"decrease"``: ``level <= threshold``; NaN
+        without a threshold or for a non-finite level.
+    """
     if not live or not live.get("threshold") or not np.isfinite(smoothed_level):
         return float("nan")
     th = live["threshold"]
@@ -531,10 +733,25 @@ class LiveValue:
         self.norm = target.norm
 
     def reset(self) -> None:
+        """Restart the smoother (see :meth:`Smoother.reset`)."""
         self.smoother.reset()
 
     def update(self, power: float, clean: bool) -> tuple[float, float, float]:
-        """``(smoothed_level, smoothed_z, threshold_met)``; NaN for an unclean window."""
+        """Smooth one window's power and score it.
+
+        Parameters
+        ----------
+        power : float
+            The window's ROI power (absolute: sLORETA-standardised units; relative: a fraction).
+        clean : bool
+            Whether the window passed the live artefact checks.
+
+        Returns
+        -------
+        smoothed_level, smoothed_z, threshold_met : float
+            Smoothed transformed value, its z against the target's norm (NaN without a norm) and
+            :func:`threshold_met`; all NaN for an unclean window.
+        """
         level = float(transform(np.array([power]), self.tname)[0]) if clean else float("nan")
         s = self.smoother.update(level, clean)
         z = float("nan")

@@ -132,7 +132,26 @@ class OnlineTarget:
         return float(np.mean(rel))
 
     def push(self, chunk: np.ndarray) -> list[tuple[float, float, float, bool]]:
-        """Feed samples (19, n) in µV; return one ``(t_end_s, power, z, clean)`` per step."""
+        """Feed samples (19, n) in µV; return one ``(t_end_s, power, z, clean)`` per step.
+
+        Parameters
+        ----------
+        chunk : ndarray, shape (19, n_samples)
+            µV, channels in ``target.channels`` order, any reference; any number of samples
+            (the remainder of a step is kept for the next call).
+
+        Returns
+        -------
+        list of (t_end_s, power, z, clean)
+            Per completed step: window end time (s), ROI band power over the trailing window (the
+            offline ``value``'s unit; NaN until the first full window or when unclean), its z
+            against the target's norm (NaN without one) and whether the window is clean.
+
+        Raises
+        ------
+        InputError
+            For a chunk of the wrong shape.
+        """
         chunk = np.asarray(chunk, dtype=float)
         if chunk.ndim != 2 or chunk.shape[0] != len(self.target.channels):
             raise InputError(f"chunk: need shape ({len(self.target.channels)}, n_samples), "
@@ -226,10 +245,24 @@ class ReplayResult:
     threshold_met: np.ndarray | None = None
 
     def clean_mean(self) -> float:
-        """Mean power over clean windows (NaN if none)."""
+        """Mean power over clean windows (NaN if none).
+
+        Returns
+        -------
+        float
+            Same unit as :attr:`power`.
+        """
         return float(np.mean(self.power[self.clean])) if self.clean.any() else float("nan")
 
     def to_frame(self):
+        """The replayed time course as a table.
+
+        Returns
+        -------
+        DataFrame
+            Columns ``time_s, power, z, clean`` and, when present, ``smoothed, smoothed_z,
+            threshold_met``; one row per window.
+        """
         import pandas as pd
 
         cols = {"time_s": self.time_s, "power": self.power, "z": self.z, "clean": self.clean}
@@ -249,12 +282,14 @@ def replay_array(data_uv: np.ndarray, sfreq: float, target: TargetDefinition, *,
         Recording in µV, channels in ``target.channels`` order, any reference.
     sfreq : float
         Hz.
+    target : TargetDefinition
     chunk_s : float
         Processing chunk (affects speed only).
 
     Returns
     -------
     ReplayResult
+        One row per step, with the smoothed value and threshold flag.
     """
     data_uv = np.asarray(data_uv, dtype=float)
     tracker = OnlineTarget(target, sfreq)
@@ -284,13 +319,17 @@ def welch_band_response(freqs: np.ndarray, lo: float, hi: float, *, sfreq: float
     ----------
     freqs : ndarray, shape (n_f,)
         Hz.
+    lo, hi : float
+        Band edges, Hz, ``[lo, hi)``.
     sfreq : float
+        Sampling rate, Hz.
     n_times : int
         Samples per Welch segment (epoch).
 
     Returns
     -------
     ndarray, shape (n_f,)
+        Dimensionless power gain at each frequency.
     """
     n = np.arange(n_times)
     w = 0.5 - 0.5 * np.cos(2 * np.pi * n / n_times)
@@ -311,10 +350,22 @@ def expected_ratio(psd: np.ndarray, freqs: np.ndarray, sos: np.ndarray, lo: floa
     ----------
     psd : ndarray, shape (n_f,)
         Power spectral density on a fine uniform grid ``freqs`` (e.g. ``tr(M S(f))``).
-    sos : ndarray
+    freqs : ndarray, shape (n_f,)
+        Hz.
+    sos : ndarray, shape (n_sections, 6)
         The replay's band-pass.
+    lo, hi : float
+        Offline band edges, Hz, ``[lo, hi)``.
+    sfreq : float
+        Sampling rate, Hz.
     epoch_s : float
         Offline Welch segment length, s.
+
+    Returns
+    -------
+    float
+        ``Σ |H(f)|² psd / Σ E(f) psd`` with ``E`` from :func:`welch_band_response`
+        (dimensionless; 1 when both estimators agree).
     """
     from scipy.signal import sosfreqz
 
@@ -326,9 +377,19 @@ def expected_ratio(psd: np.ndarray, freqs: np.ndarray, sos: np.ndarray, lo: floa
 def plot_replay(result: ReplayResult, target: TargetDefinition, *, figure=None):
     """Power and z time courses; unclean windows shaded; offline value as a dashed line.
 
+    Parameters
+    ----------
+    result : ReplayResult
+        From :func:`replay_array`.
+    target : TargetDefinition
+        The replayed target (labels, offline value, norm, live section).
+    figure : matplotlib.figure.Figure, optional
+        Figure to draw into; default a new one.
+
     Returns
     -------
     matplotlib.figure.Figure
+        Two panels: power and z (the drawn ``figure`` when given).
     """
     from matplotlib.figure import Figure
 

@@ -76,7 +76,18 @@ level = -1
 
 
 def write_loopback_config(path) -> str:
-    """Write :data:`LOOPBACK_CONFIG` to ``path``; set ``LSLAPICFG`` to it before using LSL."""
+    """Write :data:`LOOPBACK_CONFIG` to ``path``; set ``LSLAPICFG`` to it before using LSL.
+
+    Parameters
+    ----------
+    path : str | Path
+        The configuration file to write (overwritten).
+
+    Returns
+    -------
+    str
+        ``path`` as text, for ``os.environ["LSLAPICFG"]``.
+    """
     from pathlib import Path
 
     Path(path).write_text(LOOPBACK_CONFIG, encoding="utf-8")
@@ -84,7 +95,25 @@ def write_loopback_config(path) -> str:
 
 
 def unit_scale(unit_mul: int | None, unit: str) -> float:
-    """Factor to µV for one channel: ``unit`` "uV"/"V" forces, "auto" uses the stream's unit."""
+    """Factor to µV for one channel: ``unit`` "uV"/"V" forces, "auto" uses the stream's unit.
+
+    Parameters
+    ----------
+    unit_mul : int or None
+        Power of ten of the channel's declared unit relative to volts (MNE's ``unit_mul``:
+        0 for V, -6 for µV); only read for ``unit="auto"``.
+    unit : {"auto", "uV", "V"}
+
+    Returns
+    -------
+    float
+        Multiply stream values by this to get µV.
+
+    Raises
+    ------
+    InputError
+        For another ``unit``, or ``"auto"`` when the stream declares no unit.
+    """
     if unit == "uV":
         return 1.0
     if unit == "V":
@@ -116,6 +145,14 @@ class StreamStats:
     messages: list = field(default_factory=list)
 
     def summary(self) -> dict:
+        """Counts and latency percentiles of the run.
+
+        Returns
+        -------
+        dict
+            ``rows``, ``clean``, ``by_status``, ``latency_ms_median`` / ``latency_ms_p95`` and
+            ``age_ms_median`` / ``age_ms_p95`` (ms; NaN without data) and ``messages`` (count).
+        """
         lat = np.asarray(self.latency_ms)
         age = np.asarray(self.age_ms)
 
@@ -215,6 +252,13 @@ class StreamProcessor:
             LSL time stamps of the samples, s.
         arrival : float
             Local LSL clock when the chunk was pulled, s.
+
+        Returns
+        -------
+        list of Row
+            One per completed step: LSL time stamp of its last sample and the values of
+            :data:`OUTPUT_CHANNELS` (power and z NaN unless clean; ``status`` bits of
+            :data:`STATUS`).  A gap in the time stamps restarts the filters first.
         """
         ts = np.asarray(timestamps, dtype=float)
         if ts.size == 0:
@@ -299,8 +343,21 @@ class StreamProcessor:
         return Row(timestamp, np.array([power, z, float(ok), s, sz, met, float(status)]))
 
     def idle(self, now: float) -> list[Row]:
-        """Rows for a time without input: flagged 'dropped' at the step rate after
-        ``drop_after_s`` without a sample (``now`` on the local LSL clock)."""
+        """Rows for a time without input.
+
+        Flagged ``dropped`` at the step rate after ``drop_after_s`` without a sample.
+
+        Parameters
+        ----------
+        now : float
+            Current time on the local LSL clock, s.
+
+        Returns
+        -------
+        list of Row
+            Empty while data is arriving (or within one step of the last dropped row); else one
+            row of NaN values with the ``dropped`` (and ``missing``) status bits.
+        """
         if self._last_arrival is None or now - self._last_arrival < self.drop_after_s:
             return []
         if not self._dropped:
