@@ -239,7 +239,8 @@ def test_to_mne_forward_carries_the_shipped_gain(model):
     got = np.concatenate([s["vertno"] + h * 10_242 for h, s in enumerate(fwd["src"])])
     np.testing.assert_array_equal(got, model.vertno)
     np.testing.assert_array_equal(fwd["sol"]["data"], model.gain)
-    np.testing.assert_array_equal(fwd["source_rr"], model.src_pos)
+    # positions pass through MNE's coordinate transforms: equal to rounding (1e-12 m)
+    np.testing.assert_allclose(fwd["source_rr"], model.src_pos, rtol=0, atol=1e-12)
     # MNE's own conversion to surface-normal orientation must give HeadModel.gain_fixed
     # (reference implementation: mne.convert_forward_solution).
     fixed = mne.convert_forward_solution(fwd, surf_ori=True, force_fixed=True, verbose="error")
