@@ -30,6 +30,7 @@ def area_codes(template_area: np.ndarray, vertices: np.ndarray, n_left: int,
     template_area : ndarray of int, shape (n_template,)
         Brodmann number per template vertex (0 = unlabelled).
     vertices : ndarray of int, shape (n_src,)
+        Template vertex of each source (left hemisphere ``0..n_left-1``, right after).
     n_left : int
         Template vertices of the left hemisphere.
     area_numbers : ndarray of int, shape (n_areas,)
@@ -38,7 +39,8 @@ def area_codes(template_area: np.ndarray, vertices: np.ndarray, n_left: int,
     Returns
     -------
     ndarray of int, shape (n_src,)
-        0 for unlabelled sources.
+        Code per source: ``1..n_areas`` left, ``n_areas+1..2*n_areas`` right; 0 for
+        unlabelled sources.
     """
     lab = np.asarray(template_area)[vertices]
     lut = np.zeros(int(max(lab.max(), np.max(area_numbers))) + 1, dtype=np.int64)
@@ -97,12 +99,30 @@ class CortexSpace:
         return len(self.names) - 1
 
     def label(self, code: int) -> str:
-        """``"BA9 left"``."""
+        """``"BA9 left"``.
+
+        Parameters
+        ----------
+        code : int
+            Area code, ``0..n_codes-1``.
+
+        Returns
+        -------
+        str
+            Area name and hemisphere, e.g. ``"BA9 left"``; ``"(none)"`` for code 0.
+        """
         return f"{self.names[code]} {self.hemispheres[code]}" if code else "(none)"
 
     def atlas(self):
         """The Brodmann atlas as an :class:`~sourcelab.rois.Atlas` over *these* sources
-        (areas without a source are left out), for :func:`~sourcelab.trust.leakage_matrix`."""
+        (areas without a source are left out), for :func:`~sourcelab.trust.leakage_matrix`.
+
+        Returns
+        -------
+        Atlas
+            Named ``"brodmann"``, one ROI per area code with sources (vertices are indices of
+            this space's sources; centroid the mean mesh position, MNI305 mm).
+        """
         from ..rois.atlas import ROI, Atlas
 
         rois = []
@@ -121,12 +141,15 @@ def build_space(model, *, lambda2: float = 1 / 9) -> CortexSpace:
     Parameters
     ----------
     model : HeadModel
+        Provides ``vertno``, ``gain_fixed`` and the cortical ``surface``.
     lambda2 : float
         λ² of the fixed-orientation sLORETA operator.
 
     Returns
     -------
     CortexSpace
+        Sources of ``model`` in its order, with area codes, names, lobes, mesh and border
+        distances (mm).
     """
     from ..inverse.sloreta import sloreta_operator
     from ..rois.registry import brodmann_labels, groupings
@@ -154,7 +177,18 @@ def build_space(model, *, lambda2: float = 1 / 9) -> CortexSpace:
 
 @functools.lru_cache(maxsize=2)
 def cortex_space(lambda2: float = 1 / 9) -> CortexSpace:
-    """The shipped head model's :class:`CortexSpace`, cached."""
+    """The shipped head model's :class:`CortexSpace`, cached.
+
+    Parameters
+    ----------
+    lambda2 : float
+        λ² of the fixed-orientation sLORETA operator (default 1/9, SNR 3).
+
+    Returns
+    -------
+    CortexSpace
+        Cached per ``lambda2`` (treat as read-only).
+    """
     from ..headmodel import load_head_model
 
     return build_space(load_head_model(), lambda2=lambda2)
@@ -164,6 +198,16 @@ def template_area_counts(space: CortexSpace) -> np.ndarray:
     """Surface vertices (cortex and medial wall) labelled with each area code, shape (n_codes,).
 
     The medial-wall share of an area is ``1 - sizes / template_area_counts``.
+
+    Parameters
+    ----------
+    space : CortexSpace
+        Its ``names`` fix the area numbers and the code order.
+
+    Returns
+    -------
+    ndarray of int, shape (n_codes,)
+        fsaverage5 vertices per area code (index 0: vertices in no area of the space).
     """
     from ..rois.registry import brodmann_labels
 

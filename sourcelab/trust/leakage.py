@@ -63,9 +63,11 @@ class Leakage:
     Attributes
     ----------
     atlas : str
+        Atlas name.
     names : tuple of str
         ROI names, atlas order.
     hemispheres : tuple of str
+        ``"left"``, ``"right"`` or ``"both"`` per ROI.
     share : ndarray, shape (n_rois, n_rois)
         ``share[a, b]``: fraction of ROI ``a``'s expected power from ROI ``b``'s sources.
     unlabelled : ndarray, shape (n_rois,)
@@ -75,6 +77,7 @@ class Leakage:
     centroids : ndarray, shape (n_rois, 3)
         ROI centroids, MNI305 mm.
     sizes : ndarray of int, shape (n_rois,)
+        Sources per ROI.
     """
 
     atlas: str
@@ -97,12 +100,36 @@ class Leakage:
         return [_label(n, h) for n, h in zip(self.names, self.hemispheres)]
 
     def distances(self) -> np.ndarray:
-        """Centroid distances, mm, shape (n_rois, n_rois)."""
+        """Centroid distances, mm, shape (n_rois, n_rois).
+
+        Returns
+        -------
+        ndarray, shape (n_rois, n_rois)
+            Euclidean distance between ROI centroids (MNI305), mm; zero on the diagonal.
+        """
         d = self.centroids[:, None, :] - self.centroids[None, :, :]
         return np.sqrt((d**2).sum(-1))
 
     def index(self, name: str, hemisphere: str | None = None) -> int:
-        """Row of ROI ``name`` (``hemisphere`` needed when the name occurs more than once)."""
+        """Row of ROI ``name`` (``hemisphere`` needed when the name occurs more than once).
+
+        Parameters
+        ----------
+        name : str
+            ROI name, matched case-insensitively (e.g. ``"BA17"``).
+        hemisphere : {"left", "right", "both"}, optional
+            Restricts the match; needed when ``name`` exists in more than one hemisphere.
+
+        Returns
+        -------
+        int
+            Index of the ROI in :attr:`names` (row and column of :attr:`share`).
+
+        Raises
+        ------
+        InputError
+            When no ROI matches (the message lists the available ones) or several do.
+        """
         hits = [i for i, (n, h) in enumerate(zip(self.names, self.hemispheres))
                 if n.lower() == str(name).lower()
                 and (hemisphere is None or h == hemisphere)]
@@ -118,6 +145,15 @@ class Leakage:
 
     def top(self, name: str, hemisphere: str | None = None, *, n: int = 10) -> pd.DataFrame:
         """The ROI's self-share and its ``n`` strongest leakers (rows sorted by share).
+
+        Parameters
+        ----------
+        name : str
+            ROI name, as for :meth:`index`.
+        hemisphere : {"left", "right", "both"}, optional
+            As for :meth:`index`.
+        n : int
+            Number of leakers listed (other ROIs, strongest share first).
 
         Returns
         -------
@@ -138,7 +174,15 @@ class Leakage:
         return pd.DataFrame(rows, columns=["rank", "roi", "hemisphere", "share", "distance_mm"])
 
     def to_frame(self) -> pd.DataFrame:
-        """Tidy table, one row per (target ROI, source ROI) plus one per target for unlabelled."""
+        """Tidy table, one row per (target ROI, source ROI) plus one per target for unlabelled.
+
+        Returns
+        -------
+        DataFrame
+            Columns :data:`LEAKAGE_COLUMNS`, ``n_rois ** 2 + n_rois`` rows: ``share`` (fraction,
+            0-1) and centroid ``distance_mm`` (mm; NaN for the ``(unlabelled)`` rows, whose
+            ``source_hemisphere`` is ``"n/a"``).
+        """
         n = len(self.names)
         a, b = np.meshgrid(np.arange(n), np.arange(n), indexing="ij")
         a, b = a.ravel(), b.ravel()
@@ -155,7 +199,24 @@ class Leakage:
         return pd.concat([t, u], ignore_index=True)[list(LEAKAGE_COLUMNS)]
 
     def to_tsv(self, path: str | Path) -> Path:
-        """Write :meth:`to_frame` as TSV (temporary file + rename); returns the path."""
+        """Write :meth:`to_frame` as TSV (temporary file + rename); returns the path.
+
+        Parameters
+        ----------
+        path : str or Path
+            Output file; its name must end in ``.tsv``.  Shares are written with 6 significant
+            digits.
+
+        Returns
+        -------
+        Path
+            ``path`` as a :class:`~pathlib.Path`.
+
+        Raises
+        ------
+        InputError
+            When the file name does not end in ``.tsv``.
+        """
         from ..provenance import atomic_write_text
 
         path = Path(path)
@@ -176,6 +237,7 @@ def activity_gain(op, gain: np.ndarray, *, normals: np.ndarray | None = None) ->
     Parameters
     ----------
     op : SourceOperator
+        Its ``orientation`` and ``n_src`` decide the columns returned.
     gain : ndarray, shape (n_ch, 3 * n_src) or (n_ch, n_src)
         Free-orientation (3 columns per source) or fixed-orientation leadfield.
     normals : ndarray, shape (n_src, 3), optional
@@ -184,6 +246,13 @@ def activity_gain(op, gain: np.ndarray, *, normals: np.ndarray | None = None) ->
     Returns
     -------
     ndarray, shape (n_ch, n_src * n_comp)
+        ``gain`` unchanged when it already fits, or a free gain projected on the normals for a
+        fixed operator (``n_comp`` 1 for fixed, 3 for free).
+
+    Raises
+    ------
+    InputError
+        When the column count fits neither orientation, or ``normals`` is missing.
     """
     gain = np.asarray(gain, dtype=float)
     n_ch, n_cols = gain.shape
@@ -207,12 +276,17 @@ def roi_gain_outer(g: np.ndarray, roi_vertices, n_comp: int) -> np.ndarray:
     Parameters
     ----------
     g : ndarray, shape (n_ch, n_src * n_comp)
+        Leadfield of the unit sources, components of each source adjacent (from
+        :func:`activity_gain`).
     roi_vertices : sequence of int arrays
+        Source indices of each ROI.
     n_comp : int
+        Components per source (1 fixed, 3 free).
 
     Returns
     -------
     ndarray, shape (len(roi_vertices), n_ch, n_ch)
+        ``S_b`` per ROI, in (leadfield unit)² per unit source variance.
     """
     g3 = g.reshape(g.shape[0], -1, n_comp)
     out = np.empty((len(roi_vertices), g.shape[0], g.shape[0]))
@@ -234,12 +308,15 @@ def leakage_matrix(op, gain: np.ndarray, atlas, *, normals: np.ndarray | None = 
     gain : ndarray, shape (n_ch, 3 * n_src) or (n_ch, n_src)
         The leadfield the operator was built from (not re-referenced: the kernel projects).
     atlas : Atlas or str
+        An atlas, or the name of a shipped one; every ROI needs at least one source.
     normals : ndarray, shape (n_src, 3), optional
         Surface normals, for a fixed operator with a free gain.
 
     Returns
     -------
     Leakage
+        Shares ``share`` (n_rois, n_rois), ``unlabelled`` (n_rois,), ``expected`` and the ROI
+        centroids (MNI305 mm) and sizes (sources).
 
     References
     ----------
@@ -278,6 +355,7 @@ def point_spread_power(op, g: np.ndarray, sources) -> np.ndarray:
     Parameters
     ----------
     op : SourceOperator
+        The operator whose standardised ``kernel`` estimates the sources.
     g : ndarray, shape (n_ch, n_src * n_comp)
         From :func:`activity_gain`.
     sources : array of int, shape (n,)
@@ -307,8 +385,12 @@ def leakage_for(atlas: str = "brodmann", *, method: str = "sLORETA", orientation
     ----------
     atlas : str
         Shipped atlas name.
-    method, orientation, lambda2
-        The analysis's inverse settings.
+    method : str
+        Inverse method, e.g. ``"sLORETA"``.
+    orientation : {"fixed", "free"}
+        Source orientation of the operator.
+    lambda2 : float
+        Regularisation λ² = 1/SNR² (SNR an amplitude ratio; default 1/9, SNR 3).
 
     Returns
     -------
@@ -329,17 +411,22 @@ def plot_leakage(leakage: Leakage, *, axes=None, figure=None, output_file=None,
     Parameters
     ----------
     leakage : Leakage
+        From :func:`leakage_matrix` or :func:`leakage_for`.
     axes : matplotlib Axes, optional
+        Draw here; otherwise a new figure sized to the number of ROIs.
     figure : matplotlib Figure, optional
+        Figure to draw a new axes into when ``axes`` is not given.
     output_file : str | Path, optional
         PNG written through a temporary name.
     log_scale : bool
         Logarithmic colour scale from ``vmin`` to 1 (shares span orders of magnitude).
     vmin : float
+        Lowest share of the colour scale (smaller shares are clipped to it on the log scale).
 
     Returns
     -------
     matplotlib.figure.Figure
+        The figure holding the heatmap and its colour bar.
     """
     import matplotlib.pyplot as plt
     from matplotlib.colors import LogNorm, Normalize
@@ -386,6 +473,7 @@ def leakage_hints(roi_table: pd.DataFrame, leakage: Leakage, *, top: int = 3,
         A z-scored ROI table (atlas, roi, hemisphere, band, measure, z); rows of other atlases
         are ignored.
     leakage : Leakage
+        Leakage matrix of the same atlas.
     top : int
         Leakers listed per deviating row.
     z_threshold : float

@@ -30,10 +30,13 @@ def source_ocular_cosine(gain_fixed: np.ndarray, ch_pos: np.ndarray,
     ch_pos : ndarray, shape (n_ch, 3)
         Electrode positions, metres, head coordinates.
     nasion : ndarray, shape (3,)
+        Nasion position, metres, same frame.
 
     Returns
     -------
     ndarray, shape (n_src,)
+        Cosine of each source's average-referenced scalp map with the span of the vertical and
+        horizontal eye templates: 1 in the subspace, 0 orthogonal to it.
     """
     return subspace_cosine(np.asarray(gain_fixed, float), ocular_templates(ch_pos, nasion))
 
@@ -46,11 +49,13 @@ def confusable_rois(cosines: np.ndarray, rois) -> dict:
     cosines : ndarray, shape (n_src,)
         From :func:`source_ocular_cosine`.
     rois : iterable of objects with ``name``, ``hemisphere`` and ``vertices``
+        ``vertices`` index ``cosines``.
 
     Returns
     -------
     dict
-        ``(name, hemisphere) -> median cosine`` for the confusable ROIs.
+        ``(name, hemisphere) -> median cosine`` (rounded to 3 decimals) for the confusable
+        ROIs.
     """
     out = {}
     for roi in rois:
@@ -69,6 +74,7 @@ def slow_maximum_check(roi_values: np.ndarray, rois, confusable: dict, *,
     roi_values : ndarray, shape (n_rois,)
         Absolute band power per ROI (same order as ``rois``).
     rois : sequence of ROI
+        The ROIs of ``roi_values``, with ``name`` and ``hemisphere``.
     confusable : dict
         From :func:`confusable_rois`.
     band : str
@@ -77,8 +83,8 @@ def slow_maximum_check(roi_values: np.ndarray, rois, confusable: dict, *,
     Returns
     -------
     dict
-        ``roi``, ``hemisphere``, ``confusable`` (bool), ``median_cosine`` (or None) and
-        ``warning`` (text or None).
+        ``band``, ``roi``, ``hemisphere`` of the maximum, ``confusable`` (bool),
+        ``median_cosine`` (or None) and ``warning`` (text or None).
     """
     rois = list(rois)
     k = int(np.argmax(roi_values))

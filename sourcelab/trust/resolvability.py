@@ -49,6 +49,12 @@ RESOLVABILITY_COLUMNS = ("area", "n_template", "n_cortex", "medial_wall_fraction
 def own_shares(space) -> np.ndarray:
     """Leakage own-share of every area code of a :class:`~sourcelab.trust.cortex.CortexSpace`.
 
+    Parameters
+    ----------
+    space : CortexSpace
+        Cortical sources, their fixed-orientation gain and sLORETA operator; the leakage is
+        computed on :meth:`CortexSpace.atlas` (areas with at least one source).
+
     Returns
     -------
     ndarray, shape (n_codes,)
@@ -121,7 +127,21 @@ def resolvability_table(space, ch_pos: np.ndarray, src_pos: np.ndarray):
 
 
 def unresolvable_codes(space, table) -> np.ndarray:
-    """Area codes (both hemispheres) of the areas the table marks not resolvable."""
+    """Area codes (both hemispheres) of the areas the table marks not resolvable.
+
+    Parameters
+    ----------
+    space : CortexSpace
+        The space whose ``names`` give the area of each code.
+    table : DataFrame
+        From :func:`resolvability_table` (columns ``area`` and ``resolvable``).
+
+    Returns
+    -------
+    ndarray of int64, shape (n_excluded,)
+        Codes ``1..n_codes-1`` whose area is not resolvable, in increasing order (left and
+        right codes of the same area both included).
+    """
     bad = set(table.loc[~table["resolvable"], "area"])
     return np.array([c for c in range(1, len(space.names)) if space.names[c] in bad],
                     dtype=np.int64)
@@ -139,7 +159,10 @@ def localisation_context(lambda2: float = 1 / 9):
     Returns
     -------
     space : CortexSpace
+        :func:`sourcelab.trust.cortex.cortex_space` for ``lambda2``.
     own : ndarray, shape (n_codes,)
+        Leakage own-share per area code (fraction, 0-1; NaN without sources), from
+        :func:`own_shares`.
     exclude : ndarray of int
         Area codes (both hemispheres) not resolvable from 19 scalp electrodes.
     table : DataFrame
@@ -156,6 +179,17 @@ def localisation_context(lambda2: float = 1 / 9):
 
 def resolvable_areas(lambda2: float = 1 / 9) -> dict[str, bool]:
     """Brodmann area name (``"BA17"``) -> resolvable from 19 scalp electrodes (this module's
-    rule; both hemispheres share the verdict)."""
+    rule; both hemispheres share the verdict).
+
+    Parameters
+    ----------
+    lambda2 : float
+        λ² of the fixed-orientation sLORETA operator (default 1/9, SNR 3).
+
+    Returns
+    -------
+    dict of str to bool
+        One entry per Brodmann area of the template, ``True`` when resolvable.
+    """
     table = localisation_context(lambda2)[3]
     return dict(zip(table["area"], table["resolvable"].astype(bool)))
