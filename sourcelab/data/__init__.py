@@ -29,13 +29,30 @@ MANIFEST_NAME = "MANIFEST.json"
 
 
 def data_path(name: str) -> Path:
-    """Path of a shipped file (not checked; see :func:`shipped_bytes`)."""
+    """Path of a shipped file (not checked; see :func:`shipped_bytes`).
+
+    Parameters
+    ----------
+    name : str
+        File name inside this folder, e.g. ``"groupings.json"``.
+
+    Returns
+    -------
+    Path
+        ``DATA_DIR / name``, absolute; the file may not exist.
+    """
     return DATA_DIR / name
 
 
 @cache
 def manifest() -> dict[str, str]:
-    """``{file name: sha256}`` of every shipped data file."""
+    """``{file name: sha256}`` of every shipped data file.
+
+    Returns
+    -------
+    dict of str to str
+        File name -> hex sha256 digest, read once from ``MANIFEST.json`` (cached).
+    """
     return dict(json.loads((DATA_DIR / MANIFEST_NAME).read_text(encoding="utf-8"))["files"])
 
 
@@ -51,6 +68,7 @@ def shipped_bytes(name: str) -> tuple[bytes, str]:
     Returns
     -------
     data : bytes
+        The file's contents (cached per name).
     sha256 : str
         Hex digest (equal to the manifest entry).
 
@@ -76,7 +94,19 @@ def shipped_bytes(name: str) -> tuple[bytes, str]:
 
 
 def update_manifest(entries: dict[str, str], *, folder: Path | None = None) -> None:
-    """Merge ``{file name: sha256}`` into ``MANIFEST.json`` (used by the rebuild scripts)."""
+    """Merge ``{file name: sha256}`` into ``MANIFEST.json`` (used by the rebuild scripts).
+
+    The manifest is rewritten sorted by file name through a temporary file and a rename, and
+    the caches of :func:`manifest` and :func:`shipped_bytes` are cleared.
+
+    Parameters
+    ----------
+    entries : dict of str to str
+        File name -> hex sha256 digest; existing entries of the same names are replaced.
+    folder : Path, optional
+        Folder holding ``MANIFEST.json`` (default :data:`DATA_DIR`); created as a new manifest
+        when absent.
+    """
     path = (folder or DATA_DIR) / MANIFEST_NAME
     current = json.loads(path.read_text(encoding="utf-8")) if path.exists() else {"files": {}}
     current["files"].update(entries)

@@ -125,6 +125,20 @@ def match_channels(labels) -> ChannelMatch:
 
 
 def canonical_site_is_exact(label: str, site: str) -> bool:
-    """True when ``label`` spells ``site`` with its modern name (any case, any decoration)."""
+    """True when ``label`` spells ``site`` with its modern name (any case, any decoration).
+
+    Parameters
+    ----------
+    label : str
+        Channel label as stored in the file, e.g. ``"EEG T7-REF"``; the prefix and a reference
+        suffix after the last ``-`` are ignored, as are spaces, dots and underscores.
+    site : str
+        Canonical 10-20 site (modern name), e.g. ``"T7"``.
+
+    Returns
+    -------
+    bool
+        False for an old name of the same site (``"T3"`` for ``"T7"``) or another site.
+    """
     s = _PREFIX.sub("", str(label)).strip().rpartition("-")[0] or _PREFIX.sub("", str(label))
     return re.sub(r"[\s._]", "", s).lower() == site.lower()

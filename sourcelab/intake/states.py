@@ -63,6 +63,7 @@ class Span:
     Attributes
     ----------
     start, stop : float
+        Seconds from the first sample; ``stop > start`` for spans this module returns.
     kind : str
         A state (``"eyes open"`` ...), a procedure (:data:`PROCEDURES`) or ``"range"``.
     label : str
@@ -81,6 +82,18 @@ class Span:
 
 def classify(description: str) -> str:
     """Kind of an annotation: a state, a procedure, ``"task"`` or ``"comment"``.
+
+    Parameters
+    ----------
+    description : str
+        Annotation text; surrounding white space is ignored and case does not matter.
+
+    Returns
+    -------
+    str
+        The kind of the first pattern of :data:`PATTERNS` that matches: ``"eyes open"``,
+        ``"eyes closed"``, ``"awake"``, ``"asleep"``, ``"task"``, one of :data:`PROCEDURES`, or
+        ``"comment"`` (also when nothing matches).
 
     Examples
     --------
@@ -114,6 +127,7 @@ def procedure_spans(annotations, end_s: float) -> list[Span]:
     Parameters
     ----------
     annotations : iterable of (onset_s, duration_s, description)
+        Onset and duration in seconds from the first sample, any order.
     end_s : float
         Length of the recording, s.
 
@@ -191,7 +205,19 @@ def _merge(spans: list[Span]) -> list[Span]:
 
 
 def canonical_state(text: str) -> str | None:
-    """The state a selection text names (``"EC"`` -> ``"eyes closed"``), else None."""
+    """The state a selection text names (``"EC"`` -> ``"eyes closed"``), else None.
+
+    Parameters
+    ----------
+    text : str
+        Selection text; case, runs of ``-``/``_`` and extra white space are ignored
+        (``"Eyes_Closed"`` names eyes closed).
+
+    Returns
+    -------
+    str or None
+        ``"eyes closed"`` or ``"eyes open"`` for the spellings in :data:`ALIASES`, else None.
+    """
     t = " ".join(re.sub(r"[-_]+", " ", str(text)).lower().split())
     return ALIASES.get(t)
 
@@ -202,11 +228,13 @@ def state_spans(annotations, wanted: str, end_s: float) -> list[Span]:
     Parameters
     ----------
     annotations : iterable of (onset_s, duration_s, description)
+        Onset and duration in seconds from the first sample, any order.
     wanted : str
         An annotation description (matched case-insensitively and exactly), or ``"EC"``/``"EO"``
         and other spellings of eyes closed/open, which match every marker of that state
         (:func:`classify`).
     end_s : float
+        Length of the recording, s; spans are clipped to ``[0, end_s]``.
 
     Returns
     -------
@@ -239,9 +267,18 @@ def state_spans(annotations, wanted: str, end_s: float) -> list[Span]:
 def subtract(spans: list[Span], remove: list[Span]) -> tuple[list[Span], list[dict]]:
     """Remove ``remove`` spans from ``spans``.
 
+    Parameters
+    ----------
+    spans : list of Span
+        The selection, e.g. from :func:`state_spans`.
+    remove : list of Span
+        Spans to cut out, e.g. from :func:`procedure_spans`.
+
     Returns
     -------
     kept : list of Span
+        What is left of ``spans``, sorted by start; a span cut in the middle becomes two with
+        its kind and label.
     excluded : list of dict
         One entry per removed span that overlapped: ``kind``, ``label``, ``start_s``,
         ``stop_s`` and ``overlap_s`` (seconds of the selection it removed).
