@@ -67,6 +67,17 @@ def amplitude_factor(age: float | None) -> float:
     """EEG amplitude relative to adults: 2 up to 12 y, falling linearly to 1 at 18 y.
 
     ``None`` (age unknown) gives the child factor (widest bounds).
+
+    Parameters
+    ----------
+    age : float or None
+        Age in years; None or NaN when unknown.
+
+    Returns
+    -------
+    float
+        Factor in [1, 2]: :data:`CHILD_FACTOR` at ``age <= 12`` y (and for an unknown age), 1 at
+        ``age >= 18`` y, linear in between.
     """
     if age is None:
         return CHILD_FACTOR
@@ -82,10 +93,17 @@ def amplitude_factor(age: float | None) -> float:
 def plausibility_bounds(age: float | None) -> dict:
     """Floor and ceiling of each learned threshold, µV.
 
+    Parameters
+    ----------
+    age : float or None
+        Age in years (None or NaN: unknown, the child bounds); scales the peak-to-peak bounds
+        by :func:`amplitude_factor`.
+
     Returns
     -------
     dict
-        ``{"ptp_uv": (lo, hi), "muscle_uv": (lo, hi), "age_factor": f}``.
+        ``{"ptp_uv": (lo, hi), "muscle_uv": (lo, hi), "age_factor": f}``; bounds in µV (the
+        muscle bounds do not depend on age).
     """
     f = amplitude_factor(age)
     lo, hi = PTP_BOUNDS_ADULT_UV
@@ -98,12 +116,14 @@ def robust_threshold(values: np.ndarray, *, z: float = REJECT_Z) -> np.ndarray:
     Parameters
     ----------
     values : ndarray, shape (n_epochs, n_ch)
-        Positive epoch features (µV).
+        Positive epoch features (µV); values below 1e-12 are raised to it before the log.
     z : float
+        Robust z (default :data:`REJECT_Z` = 3, FASTER).
 
     Returns
     -------
     ndarray, shape (n_ch,)
+        Threshold per column, in the unit of ``values`` (µV).
     """
     v = np.log(np.maximum(np.asarray(values, float), 1e-12))
     med = np.median(v, axis=0)
@@ -126,6 +146,7 @@ class Thresholds:
     n_epochs : int
         Epochs learned from.
     mode : {"auto", "fixed"}
+        ``rejection`` setting the thresholds come from.
     """
 
     ptp_uv: np.ndarray
@@ -137,7 +158,19 @@ class Thresholds:
     mode: str
 
     def summary(self, ch_names) -> dict:
-        """JSON-serialisable form, site -> value."""
+        """JSON-serialisable form, site -> value.
+
+        Parameters
+        ----------
+        ch_names : sequence of str, length n_ch
+            Site names, in the order of the threshold arrays.
+
+        Returns
+        -------
+        dict
+            ``mode``, ``n_epochs_learned_from``, the four thresholds as site -> µV (rounded to
+            0.01 µV; None where not finite) and ``bounds`` (tuples as lists).
+        """
         def site(a):
             return {s: (None if not np.isfinite(v) else round(float(v), 2))
                     for s, v in zip(ch_names, a)}
@@ -183,7 +216,22 @@ def learn_thresholds(ptp_uv: np.ndarray, muscle_uv: np.ndarray, *, age: float | 
 
 
 def fixed_thresholds(n_ch: int, *, reject_uv: float, muscle_uv: float) -> Thresholds:
-    """The same threshold at every site (``rejection = "fixed"``)."""
+    """The same threshold at every site (``rejection = "fixed"``).
+
+    Parameters
+    ----------
+    n_ch : int
+        Number of sites.
+    reject_uv : float
+        Peak-to-peak threshold, µV.
+    muscle_uv : float
+        25-45 Hz RMS threshold, µV.
+
+    Returns
+    -------
+    Thresholds
+        ``mode`` ``"fixed"``, no learned values (NaN), empty ``bounds`` and ``n_epochs`` 0.
+    """
     nan = np.full(n_ch, np.nan)
     return Thresholds(np.full(n_ch, float(reject_uv)), np.full(n_ch, float(muscle_uv)), nan,
                       nan.copy(), {}, 0, "fixed")

@@ -12,6 +12,8 @@ def plot_quality(clean: CleanData, *, figure=None, fmax: float = 45.0):
     Parameters
     ----------
     clean : CleanData
+        Cleaned recording: kept and rejected seconds by reason, per-site kept fraction and
+        the clean epochs (µV) with their sampling rate.
     figure : matplotlib.figure.Figure | None
         Drawn into (cleared) when given; otherwise a new figure.
     fmax : float
@@ -20,6 +22,8 @@ def plot_quality(clean: CleanData, *, figure=None, fmax: float = 45.0):
     Returns
     -------
     matplotlib.figure.Figure
+        The figure with the three panels (time in s; PSD in µV²/Hz, mean over epochs; the
+        PSD panel stays empty when no epoch was kept).
     """
     import matplotlib.pyplot as plt
 

@@ -35,6 +35,7 @@ class Reliability:
     n_epochs : tuple of (int, int)
         Epochs in each half.
     threshold : float
+        Reliability below which a band is flagged.
     flagged : ndarray of bool, shape (n_bands,)
         ``r < threshold`` (uncorrected r; NaN counts as flagged).
     """
@@ -58,6 +59,12 @@ def pearson_r(a: np.ndarray, b: np.ndarray) -> float:
     Returns
     -------
     float
+        Pearson r in [-1, 1]; NaN when either vector is constant.
+
+    Raises
+    ------
+    InputError
+        When the shapes differ or there are fewer than 3 items.
     """
     a = np.asarray(a, float).ravel()
     b = np.asarray(b, float).ravel()
@@ -72,7 +79,25 @@ def pearson_r(a: np.ndarray, b: np.ndarray) -> float:
 
 
 def spearman_brown(r, factor: float = 2.0):
-    """Spearman-Brown prophecy for k = ``factor`` times the data: k r / (1 + (k-1) r)."""
+    """Spearman-Brown prophecy for k = ``factor`` times the data: k r / (1 + (k-1) r).
+
+    Parameters
+    ----------
+    r : float or array_like
+        Reliability (correlation) of the shorter data, e.g. a half-vs-half r.
+    factor : float
+        Length of the projected data relative to the data ``r`` was measured on (2: from a
+        half to the whole).
+
+    Returns
+    -------
+    ndarray
+        Projected reliability, same shape as ``r`` (a 0-d array for a scalar); NaN stays NaN.
+
+    References
+    ----------
+    Spearman C (1910).  Br J Psychol 3:271-295.  Brown W (1910).  Br J Psychol 3:296-322.
+    """
     r = np.asarray(r, float)
     return factor * r / (1.0 + (factor - 1.0) * r)
 
@@ -110,6 +135,14 @@ def split_half(power: np.ndarray, *, threshold: float = 0.90, log: bool = True) 
     Returns
     -------
     Reliability
+        ``kind`` ``"split-half"``; per-band r between the mean features of the even-indexed
+        and odd-indexed epochs.
+
+    Raises
+    ------
+    InputError
+        When ``power`` is not 3-d, has fewer than 2 epochs or fewer than 3 items, or (with
+        ``log``) a half's mean power is not positive.
     """
     n = np.asarray(power).shape[0]
     return _halves_reliability(power, np.arange(0, n, 2), np.arange(1, n, 2), "split-half",
@@ -120,6 +153,21 @@ def test_retest(power: np.ndarray, *, threshold: float = 0.90, log: bool = True)
     """First half vs second half of the epochs (time order); an odd epoch out is dropped.
 
     Parameters and returns as :func:`split_half`.
+
+    Parameters
+    ----------
+    power : ndarray, shape (n_epochs, n_bands, n_items)
+        Per-epoch band power (µV² or any power unit), epochs in time order.
+    threshold : float
+        Flag bands whose uncorrected r is below this (``AnalysisConfig.reliability_threshold``).
+    log : bool
+        Correlate log10 power (default) rather than power.
+
+    Returns
+    -------
+    Reliability
+        ``kind`` ``"test-retest"``; per-band r between the first ``n_epochs // 2`` and the last
+        ``n_epochs // 2`` epochs (the middle epoch of an odd count is left out).
     """
     n = np.asarray(power).shape[0]
     h = n // 2
@@ -142,6 +190,7 @@ class ReliabilitySummary:
     Attributes
     ----------
     n_epochs : int
+        Epochs the reliability was computed from.
     threshold : float
         ``AnalysisConfig.reliability_threshold``, applied to the uncorrected split-half r.
     features : str
@@ -167,6 +216,14 @@ class ReliabilitySummary:
         return min(vals) if vals else None
 
     def to_dict(self) -> dict:
+        """Plain-JSON form: the fields, ``flagged_bands`` as a list, and ``min_split_half``.
+
+        Returns
+        -------
+        dict
+            Field name -> value (per-band dicts of r or None); ``min_split_half`` is the lowest
+            defined split-half r, or None.
+        """
         from dataclasses import asdict
 
         d = asdict(self)
@@ -185,12 +242,19 @@ def reliability_summary(power: np.ndarray, band_names, *,
         Per-epoch band power (sensors or ROIs), epochs in time order; positive values are
         correlated as log10, otherwise as they are.
     band_names : sequence of str, length n_bands
+        Band names, keys of the per-band dicts.
     threshold : float
         ``AnalysisConfig.reliability_threshold``; applied to the uncorrected split-half r.
 
     Returns
     -------
     ReliabilitySummary
+        With fewer than 2 epochs or 3 items every r is None and every band is flagged.
+
+    Raises
+    ------
+    InputError
+        When ``power`` is not 3-d or its band axis does not match ``band_names``.
     """
     power = np.asarray(power, float)
     names = [str(b) for b in band_names]
