@@ -84,6 +84,8 @@ class OcularCorrection:
     Attributes
     ----------
     method : {"ica", "regression", "off", "none found"}
+        The route taken (``"off"`` also when ICA could not run; ``"none found"``: ICA ran and
+        removed nothing).
     data : ndarray, shape (n_ch, n_times)
         Corrected signals, µV.
     removed : tuple of int
@@ -96,6 +98,7 @@ class OcularCorrection:
     eog_scores : dict
         Proxy -> correlation of every component's time course with it (``find_bads_eog``).
     n_components : int
+        ICA components fitted (0 for regression or no ICA).
     fit_s : float
         Seconds of data the decomposition was fitted on.
     seconds : float
@@ -116,7 +119,15 @@ class OcularCorrection:
     notes: tuple[str, ...] = ()
 
     def summary(self) -> dict:
-        """JSON-serialisable provenance (maps as lists, one per removed component)."""
+        """JSON-serialisable provenance (maps as lists, one per removed component).
+
+        Returns
+        -------
+        dict
+            ``method``, ``removed_components``, ``component_maps_uv`` (one list of n_ch values
+            per column of ``mixing``, µV per unit source), ``template_r`` (4 decimals),
+            ``n_components``, ``fit_s`` and ``seconds`` (s, 3 decimals) and ``notes``.
+        """
         return {"method": self.method, "removed_components": [int(i) for i in self.removed],
                 "component_maps_uv": [[float(v) for v in col] for col in self.mixing.T],
                 "template_r": [round(float(r), 4) for r in self.template_r],
@@ -159,11 +170,15 @@ def subspace_cosine(patterns: np.ndarray, templates: np.ndarray) -> np.ndarray:
     Parameters
     ----------
     patterns : ndarray, shape (n_ch,) or (n_ch, n)
+        Scalp maps (one per column), any unit; the channel mean is removed.
     templates : ndarray, shape (n_ch, k)
+        Columns spanning the subspace, e.g. :func:`ocular_templates`; the channel mean is
+        removed.
 
     Returns
     -------
     float or ndarray, shape (n,)
+        A float for a 1-d ``patterns``; 0 for an all-constant pattern.
         1 when a pattern lies in the template subspace, 0 when orthogonal to it.
     """
     p = np.asarray(patterns, float)
@@ -196,6 +211,7 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
     ch_names : sequence of str
         Must contain Fp1, Fp2, F7 and F8 for the ICA route.
     ch_pos : ndarray, shape (n_ch, 3)
+        Electrode positions, head coordinates, metres.
     nasion : ndarray, shape (3,)
         Head coordinates, metres (for :func:`ocular_templates`).
     fit_mask : ndarray of bool, shape (n_times,), optional
@@ -212,6 +228,14 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
     Returns
     -------
     OcularCorrection
+        The corrected data (µV) and what was done.  ``method="off"``, and an ICA route that
+        cannot run (Fp1/Fp2/F7/F8 missing, data rank below 3, too few samples), return the
+        data unchanged with ``method`` ``"off"`` (the reason in ``notes``).
+
+    Raises
+    ------
+    InputError
+        When ``method`` is unknown, or ``"regression"`` without ``eog_uv``.
 
     Notes
     -----
@@ -316,6 +340,7 @@ def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
     data_uv : ndarray, shape (n_ch, n_times)
         µV.
     removed : sequence of int
+        Component indices to remove (empty: a copy of the data).
 
     Returns
     -------
@@ -358,7 +383,7 @@ def principal_pattern(csd: np.ndarray) -> tuple[np.ndarray, float]:
     pattern : ndarray, shape (n_ch,)
         Unit-norm first eigenvector of the real part, sign chosen so the largest entry is > 0.
     share : float
-        Its fraction of the band's total power.
+        Its fraction of the band's total power (trace of the average-referenced matrix).
     """
     c = np.real(np.asarray(csd))
     n = len(c)
@@ -384,7 +409,8 @@ def ocular_residual(csd_band: np.ndarray, templates: np.ndarray) -> dict:
     -------
     dict
         ``r`` (cosine of the principal pattern with the template subspace), ``share`` (its
-        fraction of band power), ``ocular`` (``r >= OCULAR_R``), ``pattern`` (list).
+        fraction of band power), ``ocular`` (``r >= OCULAR_R``), ``threshold``
+        (:data:`OCULAR_R`), ``pattern`` (list, unit norm).
     """
     pattern, share = principal_pattern(csd_band)
     r = subspace_cosine(pattern, templates)
