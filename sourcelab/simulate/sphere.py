@@ -17,7 +17,18 @@ from ..rois.atlas import ROI, Atlas
 
 
 def fibonacci_sphere(n: int) -> np.ndarray:
-    """``n`` nearly uniform unit vectors, shape (n, 3)."""
+    """``n`` nearly uniform unit vectors, shape (n, 3).
+
+    Parameters
+    ----------
+    n : int
+        Number of points (golden-angle spiral, equal-area steps in z).
+
+    Returns
+    -------
+    ndarray, shape (n, 3)
+        Unit vectors ordered from the north pole (z near 1) to the south pole (z near -1).
+    """
     i = np.arange(n) + 0.5
     z = 1.0 - 2.0 * i / n
     phi = np.pi * (1.0 + 5**0.5) * i
@@ -27,7 +38,19 @@ def fibonacci_sphere(n: int) -> np.ndarray:
 
 @dataclass(frozen=True, eq=False)
 class SphereHead:
-    """gain (n_ch, 3 n_src) V/(A·m), src_pos (n_src, 3) m, src_nn (n_src, 3), ch_pos (n_ch, 3) m."""
+    """gain (n_ch, 3 n_src) V/(A·m), src_pos (n_src, 3) m, src_nn (n_src, 3), ch_pos (n_ch, 3) m.
+
+    Attributes
+    ----------
+    gain : ndarray, shape (n_ch, 3 * n_src)
+        Free-orientation leadfield, V per A·m, the x, y, z columns of each source adjacent.
+    src_pos : ndarray, shape (n_src, 3)
+        Source positions, m.
+    src_nn : ndarray, shape (n_src, 3)
+        Unit source normals (radial).
+    ch_pos : ndarray, shape (n_ch, 3)
+        Electrode positions, m.
+    """
 
     gain: np.ndarray
     src_pos: np.ndarray
@@ -46,7 +69,27 @@ class SphereHead:
 
 def sphere_head(n_src: int = 400, n_ch: int = 19, *, r_src: float = 0.07, r_ch: float = 0.09,
                 sigma: float = 0.33) -> SphereHead:
-    """Sources on the upper 80 % of a shell of radius ``r_src``, electrodes on the upper cap."""
+    """Sources on the upper 80 % of a shell of radius ``r_src``, electrodes on the upper cap.
+
+    Parameters
+    ----------
+    n_src : int
+        Number of sources (nearly uniform over the shell where ``z/r > -0.6``).
+    n_ch : int
+        Number of electrodes (nearly uniform where ``z/r > 0.05``).
+    r_src : float
+        Radius of the source shell, m.
+    r_ch : float
+        Radius of the electrode sphere, m.
+    sigma : float
+        Conductivity of the unbounded medium, S/m.
+
+    Returns
+    -------
+    SphereHead
+        Radial normals; infinite-medium dipole leadfield in V/(A·m) (invented test geometry,
+        not a head).
+    """
     u = fibonacci_sphere(int(n_src / 0.8))
     u = u[u[:, 2] > -0.6][:n_src]
     e = fibonacci_sphere(2 * n_ch + 2)
@@ -60,7 +103,25 @@ def sphere_head(n_src: int = 400, n_ch: int = 19, *, r_src: float = 0.07, r_ch: 
 
 def patch_atlas(head: SphereHead, n_rois: int = 16, *, unlabelled_below: float = -0.4,
                 name: str = "patches") -> Atlas:
-    """ROIs from nearest-seed patches; sources with ``z/r < unlabelled_below`` stay unlabelled."""
+    """ROIs from nearest-seed patches; sources with ``z/r < unlabelled_below`` stay unlabelled.
+
+    Parameters
+    ----------
+    head : SphereHead
+        From :func:`sphere_head`.
+    n_rois : int
+        Number of seeds requested; the ROIs may be fewer (seeds with no source are left out).
+    unlabelled_below : float
+        Sources whose normal has ``z`` below this stay in no ROI; seeds lie above it + 0.1.
+    name : str
+        Atlas name.
+
+    Returns
+    -------
+    Atlas
+        ROIs ``"P0"``, ``"P1"`` ... (hemisphere ``"left"`` for a seed with ``x < 0``, else
+        ``"right"``), centroids in mm of the sphere frame (not MNI).
+    """
     u = head.src_nn
     keep = u[:, 2] >= unlabelled_below
     seeds = fibonacci_sphere(int(n_rois / 0.7) + 1)
