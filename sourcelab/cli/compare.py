@@ -10,6 +10,13 @@ from ..cautions import SHORT
 
 
 def add_parser(sub) -> None:
+    """Register the ``compare`` sub-command.
+
+    Parameters
+    ----------
+    sub : argparse._SubParsersAction
+        The ``sourcelab`` parser's sub-parsers; the new parser's ``func`` is :func:`run`.
+    """
     p = sub.add_parser("compare", help="change across sessions of one person",
                        description=__doc__.split("\n\n")[0] + " " + SHORT)
     p.add_argument("results", nargs="+", metavar="RESULT_DIR",
@@ -25,6 +32,25 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
+    """Compare every later session with the first, write the comparison folder, print a summary.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed ``compare`` arguments (``results``, ``out``, ``label``, ``target``, ``n_boot``,
+        ``seed``).
+
+    Returns
+    -------
+    int
+        0 on success.
+
+    Raises
+    ------
+    InputError
+        Fewer than two folders, a label count that does not match, ``--n-boot`` below 100, or
+        folders that cannot be compared; the CLI turns it into one line and exit code 2.
+    """
     from ..compare import compare_sessions, write_comparison
     from ..errors import InputError
 

@@ -13,6 +13,13 @@ from ..errors import InputError
 
 
 def add_parser(sub) -> None:
+    """Register the ``leakage`` sub-command.
+
+    Parameters
+    ----------
+    sub : argparse._SubParsersAction
+        The ``sourcelab`` parser's sub-parsers; the new parser's ``func`` is :func:`run`.
+    """
     p = sub.add_parser("leakage", help="ROI-to-ROI leakage (cross-talk) of the inverse",
                        description="Share of an ROI's expected power that comes from each other "
                                    "ROI when every cortical source is equally active "
@@ -34,6 +41,25 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
+    """Print an ROI's self-share and strongest leakers; optionally write the TSV and PNG.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed ``leakage`` arguments (``roi``, ``atlas``, ``hemisphere``, ``top``, ``method``,
+        ``orientation``, ``snr`` (amplitude ratio, λ² = 1/SNR²), ``tsv``, ``plot``).
+
+    Returns
+    -------
+    int
+        0 on success (files are written before anything is printed).
+
+    Raises
+    ------
+    InputError
+        For an unknown atlas or ROI, ``--top`` < 1, ``--snr`` <= 0, or output names without
+        ``.png`` / ``.tsv``; the CLI turns it into one line and exit code 2.
+    """
     from ..rois import available_atlases
     from ..trust import leakage_for, plot_leakage
 
