@@ -21,6 +21,13 @@ from ..errors import InputError
 
 
 def add_parser(sub) -> None:
+    """Register the ``targets`` sub-command and its list, export, replay and stream actions.
+
+    Parameters
+    ----------
+    sub : argparse._SubParsersAction
+        The ``sourcelab`` parser's sub-parsers; every action's ``func`` is :func:`run`.
+    """
     p = sub.add_parser("targets", help="deviating regions/networks, target files and replay",
                        description=__doc__.split("\n\n")[0] + " " + SHORT)
     tsub = p.add_subparsers(dest="targets_cmd", metavar="ACTION", required=True)
@@ -164,7 +171,20 @@ def _export(args) -> int:
 
 
 def live_summary(t) -> list[str]:
-    """Lines describing the expected live fluctuation, smoothing and threshold of a target."""
+    """Lines describing the expected live fluctuation, smoothing and threshold of a target.
+
+    Parameters
+    ----------
+    t : TargetDefinition
+        An area target; its ``live`` section (may be None) and ``window_s`` (s) are read.
+
+    Returns
+    -------
+    list of str
+        The expected live SD per window and after smoothing (log10 or logit units, and z when
+        the target has a norm), the threshold when one is set, and a last line saying that live
+        values are noisy and the decision rests with the practitioner.
+    """
     live = t.live or {}
     sm = live.get("smoothing") or {}
     unit = "log10 units" if live.get("transform", "log10") == "log10" else "logit units"
@@ -250,4 +270,22 @@ _ACTIONS = {"list": _list, "export": _export, "replay": _replay, "stream": _stre
 
 
 def run(args) -> int:
+    """Dispatch to the chosen ``targets`` action.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed ``targets`` arguments; ``targets_cmd`` names the action (``"list"``,
+        ``"export"``, ``"replay"`` or ``"stream"``).
+
+    Returns
+    -------
+    int
+        0 on success (also when a live stream is stopped with Ctrl-C).
+
+    Raises
+    ------
+    InputError
+        For bad arguments or input files; the CLI turns it into one line and exit code 2.
+    """
     return _ACTIONS[args.targets_cmd](args)
