@@ -265,6 +265,18 @@ def preflight(args) -> None:
     Runs before the command computes anything.  Raises :class:`InputError` (one line) for the
     first problem found; creates nothing (it may remove stale temporary folders of killed
     sourcelab runs beside an output).
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        The parsed command line; ``command`` (and ``atlas_cmd``, ``norms_cmd`` or
+        ``targets_cmd``) select the checks.  Ages are checked against 0-130 years, ``--snr``
+        against (0, 1000], ``--duration`` and ``--timeout`` (s) against (0, 1e7].
+
+    Raises
+    ------
+    InputError
+        For the first bad input path, numeric option or output, naming it.
     """
     from ..checks import check_number, check_path
     from ..provenance import check_output_dir, check_output_file
@@ -357,7 +369,21 @@ def preflight(args) -> None:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the CLI; returns the exit code (0 ok, 1 internal error or failed batch items, 2 user
-    error)."""
+    error).
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        Arguments without the program name (default ``sys.argv[1:]``).  ``targets RESULT_DIR``
+        is read as ``targets list RESULT_DIR``.
+
+    Returns
+    -------
+    int
+        0 on success (also for ``--help`` and ``--version``), 1 for an internal error or failed
+        batch items, 2 for a user error (one line on stderr, no traceback), 130 when
+        interrupted.  With ``-v`` an internal error is raised with its traceback instead.
+    """
     parser = _get_parser()
     argv = list(sys.argv[1:] if argv is None else argv)
     if (len(argv) >= 2 and argv[0] == "targets" and argv[1] not in _TARGET_ACTIONS
@@ -410,6 +436,7 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def run() -> None:  # console-script entry point
+    """Console-script entry point: exit with :func:`main`'s code."""
     sys.exit(main())
 
 
