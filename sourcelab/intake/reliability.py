@@ -91,8 +91,9 @@ def spearman_brown(r, factor: float = 2.0):
 
     Returns
     -------
-    ndarray
-        Projected reliability, same shape as ``r`` (a 0-d array for a scalar); NaN stays NaN.
+    float or ndarray
+        Projected reliability, same shape as ``r`` (a NumPy float for a scalar); NaN stays
+        NaN.
 
     References
     ----------
