@@ -147,3 +147,8 @@ def test_cli_export_and_replay_pair(analysed, tmp_path, capsys):
     assert main(["targets", "export", str(d / "result"), "--roi", "BA17", "--band", "alpha",
                  "--measure", "msc", "--out", str(tmp_path / "x.json")]) == 2
     assert "absolute or relative" in capsys.readouterr().err
+    # a pair target is not streamed live (area targets only): one line, exit 2, not a traceback
+    pytest.importorskip("mne_lsl")
+    assert main(["targets", "stream", str(out), "--duration", "1"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "not streamed live" in err and str(out) in err

@@ -238,6 +238,10 @@ def _stream(args) -> int:
     except ImportError:
         raise InputError("live streaming needs mne-lsl: pip install 'sourcelab[live]'") from None
     target = read_target(args.target)
+    if getattr(target, "kind", "roi") in ("pair", "edge"):
+        raise InputError(f"a {target.kind} target can be replayed (sourcelab targets replay) but "
+                         "not streamed live: live streaming takes area targets",
+                         path=args.target)
     if args.log is not None and Path(args.log).suffix.lower() not in (".tsv", ".txt"):
         raise InputError("--log must end in .tsv", path=args.log)
     for v, flag in ((args.duration, "--duration"), (args.updates, "--updates")):
