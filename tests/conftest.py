@@ -3,6 +3,11 @@
 import os
 
 os.environ.setdefault("MPLBACKEND", "Agg")
+if os.environ.get("PYTEST_XDIST_WORKER"):
+    # One BLAS/OpenMP thread per test worker: the workers already fill the cores, and idle BLAS
+    # threads spinning against each other make small products seconds slow on a busy machine.
+    for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(_var, "1")
 
 import matplotlib  # noqa: E402
 
