@@ -183,7 +183,7 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
     ``pair_table.tsv`` + ``pair_table.json`` and ``coupling_table.tsv`` + ``coupling_table.json``
     (unless coupling is off) and, with norms, ``candidates.tsv`` and ``leakage_hints.tsv``.
     Optional: ``figures/*.png``, ``report.html`` + ``report.pdf``, ``maps/`` (MNE SourceEstimate,
-    GIfTI per hemisphere, NIfTI in MNI space).
+    GIfTI per hemisphere, NIfTI in MNI space; power and, with per-source norms, z).
 
     Returns
     -------
@@ -213,10 +213,11 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
         write_report(result, folder / "report.html", figures=pngs)
         write_pdf(result, folder / "report.pdf", figures=pngs)
     if exports:
-        from .exports import export_gifti, export_nifti, export_stc
+        from .exports import export_gifti, export_nifti, export_stc, map_measures
 
         maps = folder / "maps"
-        export_stc(result, maps)
-        export_gifti(result, maps)
-        export_nifti(result, maps)
+        measures = map_measures(result)  # power, and per-source z with per-source norms
+        export_stc(result, maps, measures=measures)
+        export_gifti(result, maps, measures=measures)
+        export_nifti(result, maps, measures=measures)
     return pngs

@@ -9,7 +9,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from . import geometry
-from .colours import ColourScale, add_colourbar, masked
+from .colours import ColourScale, add_colourbar, clipped
 
 logger = logging.getLogger("sourcelab")
 
@@ -70,7 +70,8 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
     v = _check_values(values)
     if display_mode not in _DISPLAY_MODES:
         raise ValueError(f"display_mode: {display_mode!r} is not one of {_DISPLAY_MODES}")
-    v = masked(v, scale)
+    raw = v
+    v = clipped(v, scale)  # beyond the limits: end colours (the colour bar's arrows say so)
     v = np.where(np.isfinite(v), v, 0.0)
     img = geometry.sources_to_volume(v, resolution=resolution)
     fig = plt.figure(figsize=figsize, dpi=dpi)
@@ -83,11 +84,43 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
         vmin=scale.vmin, vmax=scale.vmax, plot_abs=not signed, colorbar=False,
         threshold=scale.threshold if scale.threshold else 1e-12 if not signed else None,
         black_bg=False, annotate=True, symmetric_cbar=signed)
-    add_colourbar(fig, scale, cax=cax)
+    add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
     _save(fig, output_file, dpi)
     return fig
+
+
+#: Smallest magnitude drawn on the surface: finite values are lifted to it so that no cortical
+#: vertex falls under the plotting threshold that hides the medial wall.
+_SHOWN = 1e-12
+
+
+def surface_plot_values(values: np.ndarray, scale: ColourScale) -> tuple[np.ndarray, float]:
+    """Values and threshold handed to nilearn for one surface map.
+
+    Values beyond the colour limits are clipped to them (drawn in the end colours, never hidden);
+    |z| below the scale's threshold and NaN (the medial wall) become 0 and fall under the
+    returned threshold, so they are the only uncoloured vertices.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n,)
+        Per-vertex values (NaN: not cortex).
+    scale : ColourScale
+
+    Returns
+    -------
+    data : ndarray, shape (n,)
+    threshold : float
+        nilearn's ``threshold`` (values of smaller magnitude are not coloured).
+    """
+    v = clipped(values, scale)
+    ok = np.isfinite(v)
+    small = ok & (np.abs(v) < _SHOWN)
+    v[small] = np.where(v[small] < 0, -_SHOWN, _SHOWN)
+    v[~ok] = 0.0
+    return v, float(scale.threshold) if scale.threshold else _SHOWN
 
 
 def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None = None,
@@ -118,7 +151,8 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
     """
     from nilearn import plotting
 
-    v = geometry.to_surface(masked(_check_values(values), scale))
+    raw = _check_values(values)
+    v = geometry.to_surface(raw)
     if outline is not None:
         outline = (geometry.atlas_labels(outline) if hasattr(outline, "rois")
                    else np.asarray(outline))
@@ -134,14 +168,13 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
         h = geometry.HEMIS.index(hemi)
         sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
         ax = fig.add_axes(rect, projection="3d")
-        data = v[sl]
+        data, threshold = surface_plot_values(v[sl], scale)
         faces = _front_faces(coords, faces, hemi=hemi, view=view)
-        # nilearn hides values below `threshold`; for maps with nothing to show keep the background
         plotting.plot_surf_stat_map(
-            (coords, faces), stat_map=np.where(np.isfinite(data), data, 0.0),
+            (coords, faces), stat_map=data,
             bg_map=sulc[h], hemi=hemi, view=view, engine="matplotlib", axes=ax, figure=fig,
             cmap=scale.cmap, vmin=scale.vmin, vmax=scale.vmax, colorbar=False,
-            threshold=_surface_threshold(data, scale), symmetric_cbar=scale.diverging,
+            threshold=threshold, symmetric_cbar=scale.diverging,
             bg_on_data=True)
         if outline is not None:
             ax.computed_zorder = False  # borders are drawn over the (culled) surface
@@ -149,7 +182,7 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
         ax.set_box_aspect(None, zoom=1.45)
         ax.set_title(f"{hemi} {view}", fontsize=9, y=0.92)
     cax = fig.add_axes((0.87, 0.15, 0.02, top * 0.7))
-    add_colourbar(fig, scale, cax=cax)
+    add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.43, y=0.995, va="top", fontsize=11)
     _save(fig, output_file, dpi)
@@ -170,15 +203,6 @@ def _front_faces(coords: np.ndarray, faces: np.ndarray, *, hemi: str, view: str)
     out = np.sign(np.sum(n * ((a + b + c) / 3.0 - coords.mean(0)), axis=1).sum()) or 1.0
     nx = out * n[:, 0] / np.maximum(np.linalg.norm(n, axis=1), 1e-12)
     return faces[cam * nx > -0.2]
-
-
-def _surface_threshold(data: np.ndarray, scale: ColourScale) -> float | None:
-    if scale.threshold:
-        return float(scale.threshold)
-    if scale.diverging:
-        return None
-    # power maps: hide only exact zeros / NaN (unassigned vertices)
-    return 1e-12 if scale.vmin >= 0 else None
 
 
 def _draw_outline(ax, coords: np.ndarray, faces: np.ndarray, labels: np.ndarray) -> None:
