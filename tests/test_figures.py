@@ -249,3 +249,99 @@ def test_power_topomaps_one_scale_per_band():
     assert len(bars) == 3 and all("µV²" in ax.get_xlabel() for ax in bars)
     assert scales[0].vmax > 5 * scales[2].vmax
     plt.close(fig)
+
+
+# ---------------------------------------------------------------- issue 16: ranges, masks, holes
+def _coloured_faces(fig):
+    """Per 3-D view: (faces drawn, faces coloured by data).  The background is sulcal shading in
+    grey (r = g = b); data colours of RdBu_r/magma ends are not grey."""
+    out = []
+    for ax in [a for a in fig.axes if a.name == "3d"]:
+        fc = ax.collections[0].get_facecolor()
+        sat = fc[:, :3].max(1) - fc[:, :3].min(1)
+        out.append((len(fc), int((sat > 0.02).sum())))
+    return out
+
+
+def _expected_coloured(values, scale):
+    """Faces nilearn colours: |mean of its vertices' plotted values| >= the threshold."""
+    from sourcelab.figures import brain, geometry
+
+    surf = geometry.to_surface(values)
+    out = []
+    for hemi, view in brain.SURFACE_VIEWS:
+        coords, faces = geometry.mesh("inflated", hemi)
+        faces = brain._front_faces(coords, faces, hemi=hemi, view=view)
+        h = geometry.HEMIS.index(hemi)
+        sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
+        vals, thr = brain.surface_plot_values(surf[sl], scale)
+        in_cortex = np.isfinite(surf[sl])[faces].all(1)
+        out.append((len(faces), int((np.abs(vals[faces].mean(1)) >= thr).sum()),
+                    int(in_cortex.sum())))
+    return out
+
+
+def test_surface_masks_the_configured_fraction_and_leaves_no_holes():
+    from sourcelab.constants import Z_THRESHOLD
+    from sourcelab.figures.geometry import source_positions_mni305
+
+    pos = source_positions_mni305()
+    # half the sources (front) at |z| = 4, beyond the ±3 range; the back half at 0.5, masked
+    front = pos[:, 1] > np.median(pos[:, 1])
+    z = np.where(front, 4.0, 0.5) * np.where(pos[:, 0] < 0, 1.0, -1.0)
+    scale = z_scale(threshold=Z_THRESHOLD)
+    fig = surface_views(z, scale=scale)
+    got, want = _coloured_faces(fig), _expected_coloured(z, scale)
+    assert [g[0] for g in got] == [w[0] for w in want]
+    # coloured faces are exactly those at or beyond the mask (values beyond the range included)
+    assert [g[1] for g in got] == [w[1] for w in want]
+    # about half of the cortex is masked, as constructed (faces straddling the border aside)
+    frac = sum(g[1] for g in got) / sum(w[2] for w in want)
+    assert 0.35 < frac < 0.65
+    cb = _colourbar_axes(fig)[0]._colorbar
+    assert cb.extend == "both" and "4" in cb.ax.get_ylabel()
+    # without a mask, every face inside cortex is coloured even though all values exceed ±3
+    plain = z_scale()
+    fig2 = surface_views(np.where(front, 5.0, -5.0), scale=plain)
+    for g, w in zip(_coloured_faces(fig2), _expected_coloured(np.full(N_SRC, 5.0), plain)):
+        assert g[1] >= w[2]  # no uncoloured (NaN/grey) face inside cortex
+
+
+def test_power_below_range_is_not_a_hole(rng):
+    v = rng.uniform(0.0, 10.0, N_SRC)
+    scale = power_scale(v, vmin=2.0, vmax=8.0)
+    fig = surface_views(v, scale=scale)
+    for g, w in zip(_coloured_faces(fig), _expected_coloured(v, scale)):
+        assert g[1] >= w[2]
+    cb = _colourbar_axes(fig)[0]._colorbar
+    assert cb.extend == "both"
+
+
+def test_colourbar_arrows_only_when_data_exceed_range(result):
+    from sourcelab.figures.colours import extend_for
+
+    s = z_scale(limit=3)
+    assert extend_for([-1, 2], s) == "neither" and extend_for([-4, 2], s) == "min"
+    assert extend_for([1, 12], s) == "max" and extend_for([np.nan, -5, 5], s) == "both"
+    n_ch = len(result.ch_names)
+    inside = np.tile(np.linspace(-2.5, 2.5, n_ch), (2, 1))
+    fig = sensor_topomaps(inside, band_names=["a", "b"], ch_names=result.ch_names, scale=s)
+    cb = _colourbar_axes(fig)[0]._colorbar
+    assert cb.extend == "neither" and cb.mappable.norm.vmin == -cb.mappable.norm.vmax == -3
+    beyond = inside.copy()
+    beyond[0, 0] = 12.0
+    fig = sensor_topomaps(beyond, band_names=["a", "b"], ch_names=result.ch_names, scale=s)
+    cb = _colourbar_axes(fig)[0]._colorbar
+    assert cb.extend == "max" and "12" in cb.ax.get_ylabel()  # true range stated
+    # electrode names on the maps
+    texts = {t.get_text() for ax in fig.axes for t in ax.texts}
+    assert set(result.ch_names) <= texts
+
+
+def test_roi_charts_name_and_sort_brodmann_areas(result):
+    fig = roi_heatmap(result.roi_table, measure="absolute", atlas="brodmann")
+    labels = [t.get_text() for ax in fig.axes for t in ax.get_yticklabels() if t.get_text()]
+    assert any("BA17 L primary visual" == lab for lab in labels)
+    left = [lab.split()[0] for lab in labels if " L " in lab]
+    nums = [int(x[2:]) for x in left]
+    assert nums == sorted(nums)  # BA1, BA2, ..., BA10 (natural order)

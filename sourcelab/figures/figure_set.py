@@ -193,8 +193,9 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
                 if _has_z(sel):
                     keep(f"roi-bars/{band}/{measure}", roi.roi_bars, rt, band=band,
                          measure=measure, atlas=area_atlas, scale=zs, dpi=dpi)
+            # the heatmap keeps every cell coloured: its near-white cells already read as small z
             keep(f"roi-heatmap/{measure}", roi.roi_heatmap, rt, measure=measure,
-                 atlas=area_atlas, bands=bands, scale=zs, dpi=dpi)
+                 atlas=area_atlas, bands=bands, scale=z_scale(limit=z_limit), dpi=dpi)
         if net is not None:
             keep(f"networks/{measure}", roi.network_chart, rt, atlas=net, measure=measure,
                  bands=bands, scale=zs, dpi=dpi)

@@ -93,9 +93,10 @@ def roi_bars(roi_table: pd.DataFrame, *, band: str, measure: str = "absolute",
     t = t.iloc[::-1]
     labels = [_label(r) for r in t.itertuples()]
     z = t["z"].to_numpy(float)
-    fig = plt.figure(figsize=(7.4, 0.9 + 0.2 * len(z)), dpi=dpi)
-    ax = fig.add_axes((0.36, 0.9 / (0.9 + 0.2 * len(z)) * 0.6, 0.45, 0.2 * len(z) /
-                       (0.9 + 0.2 * len(z))))
+    label_w = 0.25 + 0.062 * max(len(s) for s in labels)  # inches for the area labels
+    w, h = label_w + 5.2, 0.9 + 0.2 * len(z)
+    fig = plt.figure(figsize=(w, h), dpi=dpi)
+    ax = fig.add_axes((label_w / w, 0.54 / h, 3.8 / w, 0.2 * len(z) / h))
     sm = scale.scalar_mappable()
     ax.barh(np.arange(len(z)), z, color=sm.to_rgba(np.clip(z, scale.vmin, scale.vmax)),
             edgecolor="0.3", linewidth=0.4)
@@ -108,7 +109,8 @@ def roi_bars(roi_table: pd.DataFrame, *, band: str, measure: str = "absolute",
     ax.set_ylim(-0.6, len(z) - 0.4)
     ax.set_xlabel(scale.label)
     ax.set_title(f"{band} · {measure} · ROIs ranked by |z| (dashed: ±{guide:g})", fontsize=10)
-    cax = fig.add_axes((0.84, ax.get_position().y0, 0.02, ax.get_position().height))
+    cax = fig.add_axes(((label_w + 4.0) / w, ax.get_position().y0, 0.14 / w,
+                        ax.get_position().height))
     add_colourbar(fig, scale, cax=cax, data=z)
     _save(fig, output_file, dpi)
     return fig

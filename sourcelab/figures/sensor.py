@@ -89,7 +89,11 @@ def sensor_topomaps(values: np.ndarray, *, band_names, scale,
                              names=list(ch_names) if names else None,
                              image_interp=image_interp,
                              mask=finite if sc.threshold else None,
-                             mask_params={"markersize": 5, "markerfacecolor": "k"})
+                             mask_params={"marker": "o", "markersize": 10,
+                                          "markerfacecolor": "none", "markeredgecolor": "k",
+                                          "markeredgewidth": 0.8})
+        for txt in ax.texts:  # electrode names: small, over the map
+            txt.set_fontsize(6)
         ax.set_title(band, fontsize=10)
         if per_band:
             cax = fig.add_axes((0.01 + i * width + 0.15 * width, 0.19, width * 0.66, 0.035))
