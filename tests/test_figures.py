@@ -308,8 +308,12 @@ def test_surface_masks_the_configured_fraction_and_leaves_no_holes():
 
 
 def test_power_below_range_is_not_a_hole(rng):
+    from sourcelab.figures import ColourScale
+
     v = rng.uniform(0.0, 10.0, N_SRC)
-    scale = power_scale(v, vmin=2.0, vmax=8.0)
+    # viridis: both ends saturated, so a coloured face is told from the grey background (the
+    # power map's magma starts near black)
+    scale = ColourScale("viridis", 2.0, 8.0, "power")
     fig = surface_views(v, scale=scale)
     for g, w in zip(_coloured_faces(fig), _expected_coloured(v, scale)):
         assert g[1] >= w[2]
