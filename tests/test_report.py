@@ -248,3 +248,21 @@ def test_area_names_and_natural_sort():
     assert area_name("BA17") == "primary visual" and area_name("BA4") == "primary motor"
     assert area_name("frontal") == ""
     assert natural_sorted(["BA10", "BA2", "BA1", "BA11"]) == ["BA1", "BA2", "BA10", "BA11"]
+
+
+def test_z_maps_exported_like_power(result, plain_result, tmp_path):
+    # issue 16: per-source z written to maps/ like power (GIfTI here; STC/NIfTI share _maps)
+    import nibabel as nib
+
+    from sourcelab.exports import export_gifti, map_measures
+    from sourcelab.headmodel import load_head_model
+
+    assert map_measures(plain_result) == ("absolute", "relative")
+    assert {"z_absolute", "z_relative"} <= set(map_measures(result))
+    paths = export_gifti(result, tmp_path, measures=("z_absolute",))
+    img = nib.load(paths[0])  # left hemisphere first
+    assert [d.meta["Name"] for d in img.darrays] == list(result.bands.names)
+    m = load_head_model()
+    got = np.stack([d.data for d in img.darrays])[:, m.vertno[:m.n_left]]
+    want = np.asarray(result.source_z["absolute"])[:, :m.n_left]
+    np.testing.assert_allclose(got, want, rtol=1e-6)
