@@ -349,3 +349,29 @@ def test_roi_charts_name_and_sort_brodmann_areas(result):
     left = [lab.split()[0] for lab in labels if " L " in lab]
     nums = [int(x[2:]) for x in left]
     assert nums == sorted(nums)  # BA1, BA2, ..., BA10 (natural order)
+
+
+def test_glass_brain_outline_as_one_collection_draws_what_nilearn_draws():
+    # reference: nilearn's own outline (one patch per path) against the single collection
+    import contextlib
+    import io
+
+    import matplotlib.image as mpimg
+
+    from sourcelab.figures import brain, figure_png
+
+    z = np.where(np.arange(N_SRC) < N_LEFT, 2.5, -2.5)
+    fast = brain.glass_brain(z, scale=z_scale())
+    views = [ax for ax in fast.axes if ax not in _colourbar_axes(fast) and ax.images]
+    assert all(len(ax.patches) == 0 and len(ax.collections) >= 1 for ax in views)
+    a = mpimg.imread(io.BytesIO(figure_png(fast)), format="png")
+    original = brain._fast_outline
+    try:
+        brain._fast_outline = contextlib.nullcontext
+        slow = brain.glass_brain(z, scale=z_scale())
+        assert sum(len(ax.patches) for ax in slow.axes) > 200
+        b = mpimg.imread(io.BytesIO(figure_png(slow)), format="png")
+    finally:
+        brain._fast_outline = original
+    assert a.shape == b.shape
+    assert (np.abs(a - b).max(-1) > 0.05).mean() < 1e-3  # antialiasing of overlaps aside

@@ -2,7 +2,11 @@
 
 from __future__ import annotations
 
+import contextlib
+import functools
+import json
 import logging
+from pathlib import Path
 
 import matplotlib.pyplot as plt
 import numpy as np
@@ -30,6 +34,63 @@ def _check_values(values) -> np.ndarray:
         raise ValueError(f"values: need shape ({model.n_src},) (one per template source), "
                          f"got {v.shape}")
     return v
+
+
+@functools.lru_cache(maxsize=8)
+def _schematic(direction: str, black_bg: bool):
+    """nilearn's glass-brain outline of one view, read once: (paths, edge colours, line widths,
+    data transform, bounds)."""
+    from nilearn.plotting import glass_brain as gb
+
+    json_file, transform = gb._get_json_and_transform(direction)
+    content = json.loads(Path(json_file).read_text(encoding="utf-8"))
+    patches = gb._get_mpl_patches(content, invert_color=black_bg)
+    return ([pa.get_path() for pa in patches], [pa.get_edgecolor() for pa in patches],
+            [pa.get_linewidth() for pa in patches], transform,
+            gb._get_object_bounds(content, transform))
+
+
+def _outline_as_one_collection(ax, direction, **kwargs):
+    """Stand-in for nilearn's ``plot_brain_schematics``: the same outline (same paths, colours,
+    widths and bounds) drawn as one collection instead of ~240 patches a view, which nilearn adds
+    one by one (each recomputing the data limits: most of a glass brain's drawing time)."""
+    from matplotlib.collections import PathCollection
+    from matplotlib.colors import to_rgba
+    from nilearn.plotting import glass_brain as gb
+
+    if set(kwargs) - {"alpha"}:  # options this stand-in does not know: nilearn's own drawing
+        return gb.plot_brain_schematics(ax, direction, **kwargs)
+    black_bg = to_rgba(ax.get_facecolor()) == to_rgba("k")
+    paths, edges, widths, transform, bounds = _schematic(direction, black_bg)
+    ax.add_collection(PathCollection(paths, facecolors="none", edgecolors=edges,
+                                     linewidths=widths, transform=transform + ax.transData,
+                                     alpha=kwargs.get("alpha")),
+                      autolim=False)
+    return bounds
+
+
+@contextlib.contextmanager
+def _fast_outline():
+    """Swap in :func:`_outline_as_one_collection` while a glass brain is drawn (nilearn's
+    function is used unchanged when its module layout differs from the one this was written
+    for, nilearn 0.10-0.14)."""
+    try:
+        from nilearn.plotting.displays import _axes
+        from nilearn.plotting import glass_brain as gb
+
+        ok = (getattr(_axes, "plot_brain_schematics", None) is gb.plot_brain_schematics
+              and all(hasattr(gb, n) for n in ("_get_json_and_transform", "_get_mpl_patches",
+                                              "_get_object_bounds")))
+    except ImportError:
+        ok = False
+    if not ok:
+        yield
+        return
+    _axes.plot_brain_schematics = _outline_as_one_collection
+    try:
+        yield
+    finally:
+        _axes.plot_brain_schematics = gb.plot_brain_schematics
 
 
 def _save(fig: Figure, output_file, dpi: int) -> None:
@@ -79,11 +140,14 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
     ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
     cax = fig.add_axes((1.0 - 1.45 / w, 0.1, 0.14 / w, 0.74))
     signed = scale.diverging
-    plotting.plot_glass_brain(
-        img, display_mode=display_mode, figure=fig, axes=ax, cmap=scale.cmap,
-        vmin=scale.vmin, vmax=scale.vmax, plot_abs=not signed, colorbar=False,
-        threshold=scale.threshold if scale.threshold else 1e-12 if not signed else None,
-        black_bg=False, annotate=True, symmetric_cbar=signed)
+    with _fast_outline():
+        plotting.plot_glass_brain(
+            img, display_mode=display_mode, figure=fig, axes=ax, cmap=scale.cmap,
+            vmin=scale.vmin, vmax=scale.vmax, plot_abs=not signed, colorbar=False,
+            # voxels left empty (0: no source within reach) stay clear, also for z maps
+            # without a mask (else they show as boxes in the map's centre colour)
+            threshold=scale.threshold if scale.threshold else _SHOWN,
+            black_bg=False, annotate=True, symmetric_cbar=signed)
     add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
