@@ -134,11 +134,18 @@ def _reliability(rel: dict, threshold: float) -> str:
 
 
 def _summary(summary) -> str:
-    """The first section: who/what/when, data quality in words, top candidates, cautions."""
+    """The first section: who/what/when, data quality in words, top candidates, cautions.
+
+    Laid out so that a 1400 x 900 screen shows the short caution, the top candidates and the
+    cautions' first lines: facts and quality side by side, the table below.
+    """
+    from ..cautions import SHORT
+
     facts = "".join(f"<tr><th>{_esc(k)}</th><td>{_esc(v)}</td></tr>" for k, v in summary.facts)
     quality = "".join(f"<li>{_esc(q)}</li>" for q in summary.quality)
-    out = (f'<div class="summary"><table class="kv facts"><tbody>{facts}</tbody></table>'
-           f"<h3>Data quality</h3><ul class=\"quality\">{quality}</ul>"
+    out = (f'<div class="summary"><p class="caution short">{_esc(SHORT)}</p>'
+           f'<div class="top"><div><table class="kv facts"><tbody>{facts}</tbody></table></div>'
+           f"<div><h3>Data quality</h3><ul class=\"quality\">{quality}</ul></div></div>"
            f'<h3>Top candidates</h3><p class="headline">{_esc(summary.headline)}</p>')
     if len(summary.candidates):
         out += table_html(summary.candidates, sortable=False, z_column=None, human=False)

@@ -87,10 +87,16 @@ details summary{cursor:pointer;color:var(--accent);margin:6px 0}
 .tablewrap{max-width:100%;overflow-x:auto}
 .pager{font-size:12px;color:var(--muted);margin:-6px 0 10px}
 .pager button{font:inherit;margin-right:6px;cursor:pointer}
-.summary .facts th{width:170px}
+.summary .facts th{width:150px}
+.summary .top{display:grid;grid-template-columns:minmax(0,1.1fr) minmax(0,1fr);gap:18px}
+.summary .top h3{margin-top:4px}
+.caution.short{font-size:12.5px;margin:4px 0 6px}
+td.num{white-space:nowrap}
+p.unit{margin:-8px 0 12px}
 .summary .headline{font-size:15px;font-weight:600}
 .summary ul.quality{margin:4px 0 8px 18px;padding:0}
-.summary table td,.summary table th{white-space:nowrap}
+.summary .tablewrap td,.summary .tablewrap th{white-space:nowrap}
+.summary .facts td{word-break:break-word}
 @media print{nav,.pager{display:none}th{position:static}section{break-inside:auto;border:none}
 table.paged tr{display:table-row!important}.tablewrap{overflow:visible}
 table{font-size:10px}figure{break-inside:avoid}}
@@ -150,6 +156,11 @@ def table_html(df: pd.DataFrame, *, sortable: bool = True, max_rows: int = 5000,
     if len(df) > max_rows:
         logger.info("table truncated to %d of %d rows in the report", max_rows, len(df))
         df = df.head(max_rows)
+    unit_note = ""
+    if human and "unit" in df.columns and df["unit"].nunique(dropna=True) == 1 and len(df) > 1:
+        # one unit for every row: said once under the table, not repeated per row
+        unit_note = f'<p class="note unit">value unit: {_esc(df["unit"].dropna().iloc[0])}</p>'
+        df = df.drop(columns="unit")
     zi = list(df.columns).index(z_column) if z_column in df.columns else None
     if human:
         shown = human_table(df)
@@ -174,7 +185,7 @@ def table_html(df: pd.DataFrame, *, sortable: bool = True, max_rows: int = 5000,
             cells.append(f'<td class="num">{txt}</td>' if num else f"<td>{txt}</td>")
         body.append(f"<tr{rc}>{''.join(cells)}</tr>")
     return (f'<div class="tablewrap"><table{cls}{page}><thead><tr>{head}</tr></thead>'
-            f"<tbody>{''.join(body)}</tbody></table></div>")
+            f"<tbody>{''.join(body)}</tbody></table></div>{unit_note}")
 
 
 def kv_table(d: dict) -> str:
