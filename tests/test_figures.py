@@ -375,3 +375,9 @@ def test_glass_brain_outline_as_one_collection_draws_what_nilearn_draws():
         brain._fast_outline = original
     assert a.shape == b.shape
     assert (np.abs(a - b).max(-1) > 0.05).mean() < 1e-3  # antialiasing of overlaps aside
+
+
+def test_fully_masked_z_map_draws_quietly():
+    # nothing beyond the mask is a valid map (warnings are errors in this suite)
+    fig = glass_brain(np.full(N_SRC, 0.5), scale=z_scale(threshold=1.96))
+    assert _colourbar_axes(fig)[0]._colorbar.extend == "neither"

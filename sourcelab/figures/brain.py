@@ -6,6 +6,7 @@ import contextlib
 import functools
 import json
 import logging
+import warnings
 from pathlib import Path
 
 import matplotlib.pyplot as plt
@@ -140,7 +141,9 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
     ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
     cax = fig.add_axes((1.0 - 1.45 / w, 0.1, 0.14 / w, 0.74))
     signed = scale.diverging
-    with _fast_outline():
+    with _fast_outline(), warnings.catch_warnings():
+        # a z map with nothing beyond the mask is a valid answer, not a problem to warn about
+        warnings.filterwarnings("ignore", message="empty mask", category=UserWarning)
         plotting.plot_glass_brain(
             img, display_mode=display_mode, figure=fig, axes=ax, cmap=scale.cmap,
             vmin=scale.vmin, vmax=scale.vmax, plot_abs=not signed, colorbar=False,
