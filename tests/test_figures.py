@@ -381,3 +381,26 @@ def test_fully_masked_z_map_draws_quietly():
     # nothing beyond the mask is a valid map (warnings are errors in this suite)
     fig = glass_brain(np.full(N_SRC, 0.5), scale=z_scale(threshold=1.96))
     assert _colourbar_axes(fig)[0]._colorbar.extend == "neither"
+
+
+def test_ocular_component_maps_drawn_and_reported(result, rng):
+    import dataclasses
+
+    from sourcelab.figures.figure_set import _ocular_figure
+    from sourcelab.report import build_html
+
+    maps = rng.standard_normal((2, len(result.ch_names)))
+    oc = {**result.quality.ocular, "method": "ica", "removed_components": [0, 3],
+          "component_maps_uv": maps.tolist(), "template_r": [0.93, 0.88]}
+    r2 = dataclasses.replace(result, quality=dataclasses.replace(result.quality, ocular=oc))
+    jobs = []
+    _ocular_figure(r2, lambda key, f, *a, **k: jobs.append((key, f, a, k)), 60)
+    assert [j[0] for j in jobs] == ["ocular"]
+    key, f, a, k = jobs[0]
+    fig = f(*a, **k)
+    titles = [ax.get_title() for ax in fig.axes if ax.get_title()]
+    assert titles == ["component 0 (r = 0.93)", "component 3 (r = 0.88)"]
+    html = build_html(r2, {"ocular": fig})
+    start = html.index('id="quality"')
+    assert "2 of 19 independent components were removed" in html[start:]
+    assert "removed eye-movement components" in html[start:html.index("<section", start)]

@@ -250,6 +250,9 @@ def _ocular_figure(result, keep, dpi) -> None:
         return
     names = [f"component {c}" for c in comps] if len(comps) == len(m) else [
         f"component {i + 1}" for i in range(len(m))]
+    r = oc.get("template_r") or []
+    if len(r) == len(m):  # correlation with the eye-activity template
+        names = [f"{n} (r = {float(x):.2f})" for n, x in zip(names, r)]
     scales = []
     for row in m:
         lim = float(np.nanmax(np.abs(row))) or 1.0

@@ -182,6 +182,8 @@ def _source(result, figs: dict) -> str:
             out.append(_fig(figs, f"glass/{band}/{m}", f"{band}: {m} power, glass brain"))
             out.append(_fig(figs, f"surface/{band}/{m}", f"{band}: {m} power, cortical surface"))
             out.append(_fig(figs, f"glass-z/{band}/{m}", f"{band}: {m} power, ROI z on sources"))
+            out.append(_fig(figs, f"surface-z/{band}/{m}",
+                            f"{band}: {m} power, z per source on the cortical surface"))
     return "".join(out)
 
 
@@ -217,7 +219,7 @@ def _deviations(result) -> str:
     if any("fdr" in c.lower() for c in d.columns):
         intro += " FDR columns give the false-discovery-rate flag across all tests."
     if "robust" in d.columns:
-        intro += (" z_lo-z_hi is the 95 % bootstrap interval over clean epochs; a row is "
+        intro += (" 'z low' to 'z high' is the 95 % bootstrap interval over clean epochs; a row is "
                   "robust when the whole interval lies beyond the same ±1.96 line, and "
                   "<b>not robust</b> when it crosses it.")
     intro += "</p>"
@@ -374,7 +376,12 @@ def top_coupling_rows(table, *, n: int = N_COUPLING_ROWS):
                         "measure", "value", "unit", "z", "fdr", "robust", "leakage_explained")
             if c in sel.columns]
     sel = sel.reindex(sel["z"].abs().sort_values(ascending=False).index)[keep]
-    return sel.head(n).reset_index(drop=True)
+    sel = sel.head(n).reset_index(drop=True)
+    if "measure" in sel.columns:
+        from ..figures.coupling import MEASURE_TITLES
+
+        sel["measure"] = [MEASURE_TITLES.get(m, m) for m in sel["measure"]]
+    return sel
 
 
 def _coupling(result, figs: dict) -> str:

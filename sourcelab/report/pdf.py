@@ -273,7 +273,7 @@ def _figure_pages(lay: _Layout, result, figs: dict, summary) -> None:
         ("Sensor maps", _pick(figs, ["topomap-z/absolute", "topomap-z/relative"])
          or _pick(figs, ["topomap/absolute", "topomap/relative"]), 4.2),
         ("Source z maps (per-source z, surface)",
-         _pick(figs, [f"surface-z/{top_band}/absolute", f"surface-z/{top_band}/relative"]), 5.0),
+         _pick(figs, [f"surface-z/{top_band}/absolute", f"surface-z/{top_band}/relative"]), 4.3),
         ("Source z maps (area z, glass brain)",
          _pick(figs, [f"glass-z/{b}/absolute" for b in bands]), 1.7),
         ("Source power", _pick(figs, [f"glass/{b}/absolute" for b in bands])
