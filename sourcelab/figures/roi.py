@@ -235,7 +235,8 @@ def network_chart(roi_table: pd.DataFrame, *, atlas: str, measure: str = "absolu
         sel = t[t["band"] == band].set_index("_label")["z"].reindex(nets).to_numpy(float)
         y = np.arange(len(nets)) + (j - (n_b - 1) / 2) * 0.7 / n_b
         ok = np.isfinite(sel)
-        ax.scatter(sel[ok], y[ok], c=sm.to_rgba(np.clip(sel[ok], scale.vmin, scale.vmax)), marker=markers[j % len(markers)],
+        ax.scatter(sel[ok], y[ok], c=sm.to_rgba(np.clip(sel[ok], scale.vmin, scale.vmax)),
+                   marker=markers[j % len(markers)],
                    edgecolors="k", linewidths=0.5, s=36, label=band, zorder=3)
         if ok.any():
             zmax = max(zmax, float(np.abs(sel[ok]).max()) * 1.05)

@@ -105,6 +105,12 @@ def _ocular(result) -> str:
     return f"<h3>Eye-movement correction</h3><p>{_esc(txt)}</p>"
 
 
+_RELIABILITY_KINDS = {"split_half": "split half (odd vs even epochs)",
+                      "split_half_spearman_brown": "split half, Spearman-Brown",
+                      "test_retest": "first vs second half",
+                      "test_retest_spearman_brown": "first vs second half, Spearman-Brown"}
+
+
 def _reliability(rel: dict, threshold: float) -> str:
     """Reliability per level (sensors, ROIs) and kind (split-half, test-retest) as one table."""
     rows = []
@@ -114,7 +120,7 @@ def _reliability(rel: dict, threshold: float) -> str:
         for kind in ("split_half", "split_half_spearman_brown", "test_retest",
                      "test_retest_spearman_brown"):
             if isinstance(r.get(kind), dict):
-                rows.append({"level": level, "estimate": kind.replace("_", " "),
+                rows.append({"level": level, "estimate": _RELIABILITY_KINDS[kind],
                              **{b: r[kind][b] for b in r[kind]}})
     if not rows:
         return ""

@@ -65,6 +65,17 @@ FIELD_LABELS = {
     "h_freq": "low-pass edge (Hz)", "lambda2": "λ² (1/SNR²)", "method": "inverse method",
     "orientation": "source orientation", "bands": "bands", "pipeline_version": "pipeline version",
     "notch": "notch (Hz)", "reliability_threshold": "reliability threshold",
+    "rejection": "rejection mode", "reject_z": "rejection limit (robust z)",
+    "flat_uv": "flat-line limit (µV)", "muscle_uv": "muscle limit (µV)",
+    "muscle_band_hz": "muscle band (Hz)", "blink_uv": "blink limit (µV)",
+    "blink_lowpass_hz": "blink low-pass (Hz)", "blink_front_back_ratio": "blink front/back ratio",
+    "min_clean_s": "least clean data accepted (s)",
+    "warn_clean_s": "warning below (s) of clean data",
+    "n_boot": "bootstrap resamples", "boot_seed": "bootstrap seed", "ci": "interval level",
+    "snr": "SNR (amplitude)", "coupling": "coupling computed",
+    "coupling_atlases": "coupling atlases", "coupling_n_boot": "coupling bootstrap resamples",
+    "ocular_correction": "eye-artefact correction", "exclude_procedures": "procedures left out",
+    "z_mask": "z maps: uncoloured below |z|",
 }
 
 

@@ -310,7 +310,8 @@ def _detail_pages(lay: _Layout, result) -> None:
         lay.paragraph("No z-scores (no norms given)." if not result.has_z else "None.")
     else:
         n = 40
-        lay.paragraph(f"{len(d)} area, network and sensor values lie beyond ±1.96; the {min(n, len(d))} "
+        lay.paragraph(f"{len(d)} area, network and sensor values lie beyond ±1.96; the "
+                      f"{min(n, len(d))} "
                       "with the largest |z| are listed (full list in the HTML report and "
                       "roi_table.tsv).", size=8.5)
         keep = [c for c in ("level", "atlas", "roi", "hemisphere", "band", "measure", "z",

@@ -134,19 +134,23 @@ def _quality(result) -> tuple:
     if rd.get("ocular"):
         out.append("The slow-wave maximum looks like remaining eye activity: read frontal delta "
                    "with care.")
-    rel = (q.reliability or {}).get("sensors")
-    if rel is not None:
-        rel = rel if isinstance(rel, dict) else rel.to_dict()
-        sh = rel.get("split_half") or {}
-        if sh:
-            lo_band = min(sh, key=lambda b: sh[b])
-            flagged = rel.get("flagged_bands") or []
-            txt = (f"Split-half reliability of sensor band power: lowest {sh[lo_band]:.2f} "
-                   f"({lo_band})")
-            txt += (f"; below {rel.get('threshold', 0.9):.2f} in {', '.join(flagged)}: read "
-                    "those bands with care." if flagged else "; every band above "
-                    f"{rel.get('threshold', 0.9):.2f}.")
-            out.append(txt)
+    rel = {k: (v if isinstance(v, dict) else v.to_dict())
+           for k, v in (q.reliability or {}).items()}
+    sens = rel.get("sensors") or {}
+    sh = sens.get("split_half") or {}
+    if sh:
+        lo_band = min(sh, key=lambda b: sh[b])
+        out.append(f"Split-half reliability of sensor band power: lowest {sh[lo_band]:.2f} "
+                   f"({lo_band}).")
+    flagged = [f"{'sensors' if lvl == 'sensors' else lvl + ' areas'} in "
+               f"{', '.join(r['flagged_bands'])}" for lvl, r in rel.items()
+               if r.get("flagged_bands")]
+    if flagged:
+        thr = next(iter(rel.values())).get("threshold", 0.9)
+        out.append(f"Reliability below {thr:.2f} at " + "; ".join(flagged)
+                   + ": read those bands with care.")
+    elif rel:
+        out.append("Reliability above the threshold in every band.")
     if result.warnings:
         out.append(f"{len(result.warnings)} warning(s) from reading and cleaning: see Data "
                    "quality.")
