@@ -220,6 +220,8 @@ def test_pdf_report_fits_pages(result, small_figures, tmp_path):
     first = " ".join(t.get_text() for t in pages[0].texts)
     assert "Summary" in first and "Top candidates" in first and "Cautions" in first
     assert result.candidates.iloc[0]["area"] in first
+    # the whole summary, down to the last caution, is on page 1
+    assert all(c[:30] in first for c in CAUTIONS)
     for i, page in enumerate(pages):
         assert not _outside(page), (i + 1, _outside(page)[:5])
         words = " ".join(t.get_text() for t in page.texts)

@@ -243,21 +243,23 @@ def _hline(fig, x, y, w):
 
 
 # ---------------------------------------------------------------------- content
-def _summary_page(lay: _Layout, result, summary) -> None:
-    lay.heading("Summary", size=15)
-    lay.kv(summary.facts)
-    lay.heading("Data quality", size=11, keep=0.3)
+def _summary_page(lay: _Layout, result, summary, *, scale: float = 1.0) -> None:
+    """The summary, type sizes times ``scale``."""
+    k = scale
+    lay.heading("Summary", size=15 * k)
+    lay.kv(summary.facts, size=8.5 * k)
+    lay.heading("Data quality", size=11 * k, keep=0.3)
     for q in summary.quality:
-        lay.paragraph(q, size=8.5, indent=0.2, bullet="•")
-    lay.heading("Top candidates", size=11, keep=1.2)
-    lay.paragraph(summary.headline, size=9, color=_ACCENT)
+        lay.paragraph(q, size=8.5 * k, indent=0.2, bullet="•")
+    lay.heading("Top candidates", size=11 * k, keep=1.2)
+    lay.paragraph(summary.headline, size=9 * k, color=_ACCENT)
     if len(summary.candidates):
-        lay.table(summary.candidates, size=7)
+        lay.table(summary.candidates, size=7 * k)
     if summary.candidate_note:
-        lay.paragraph(summary.candidate_note, size=7.5, color="0.3")
-    lay.heading("Cautions", size=11, keep=0.5)
+        lay.paragraph(summary.candidate_note, size=7.5 * k, color="0.3")
+    lay.heading("Cautions", size=11 * k, keep=0.5)
     for c in summary.cautions:
-        lay.paragraph(c, size=8, color=_CAUTION, indent=0.2, bullet="!")
+        lay.paragraph(c, size=8 * k, color=_CAUTION, indent=0.2, bullet="!")
 
 
 def _pick(figs: dict, keys) -> list:
@@ -372,14 +374,18 @@ def pdf_pages(result, figures: dict | None = None, *, title: str | None = None) 
     list of Figure
         At most :data:`MAX_PAGES`.
     """
-    summary = report_summary(result)
-    when = dict(summary.facts).get("Analysed", "")
     title = title or "sourcelab source-level EEG report"
-    lay = _Layout(title, f"{title} · {when} · not a diagnostic device")
-    lay.fig.text(MARGIN / PAGE_SIZE[0], 1 - 0.35 / PAGE_SIZE[1], title, fontsize=9,
-                 color=_ACCENT, va="top")
-    lay.y -= 0.1
-    _summary_page(lay, result, summary)
+    # the summary must fit page 1: fewer candidate rows (then smaller type) until it does
+    for n_top, size in ((8, 1.0), (6, 1.0), (5, 0.92), (4, 0.85), (3, 0.8)):
+        summary = report_summary(result, n_top=n_top)
+        when = dict(summary.facts).get("Analysed", "")
+        lay = _Layout(title, f"{title} · {when} · not a diagnostic device")
+        lay.fig.text(MARGIN / PAGE_SIZE[0], 1 - 0.35 / PAGE_SIZE[1], title, fontsize=9,
+                     color=_ACCENT, va="top")
+        lay.y -= 0.1
+        _summary_page(lay, result, summary, scale=size)
+        if len(lay.pages) == 1:
+            break
     _figure_pages(lay, result, dict(figures or {}), summary)
     _detail_pages(lay, result)
     pages = lay.pages
