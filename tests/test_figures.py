@@ -404,3 +404,28 @@ def test_ocular_component_maps_drawn_and_reported(result, rng):
     start = html.index('id="quality"')
     assert "2 of 19 independent components were removed" in html[start:]
     assert "removed eye-movement components" in html[start:html.index("<section", start)]
+
+
+def test_z_mask_is_a_config_option(result):
+    import dataclasses
+
+    from sourcelab.config import AnalysisConfig
+    from sourcelab.constants import Z_THRESHOLD
+    from sourcelab.errors import InputError
+
+    assert AnalysisConfig().z_mask == Z_THRESHOLD  # default: the shared deviation threshold
+    with pytest.raises(InputError, match="z_mask"):
+        AnalysisConfig(z_mask=12)
+
+    def dashed(fig):  # ±threshold marks on the z colour bar
+        cb = _colourbar_axes(fig)[0]._colorbar
+        return sorted(round(float(ln.get_ydata()[0]), 2) for ln in cb.ax.lines)
+
+    kw = dict(measures=("absolute",), bands=("alpha",), surfaces=False, resolution=3,
+              pair_measures=(), edge_measures=())
+    figs = result_figures(result, **kw)
+    assert dashed(figs["topomap-z/absolute"]) == [-Z_THRESHOLD, Z_THRESHOLD]
+    plt.close("all")
+    off = dataclasses.replace(result, config=result.config.replace(z_mask=None))
+    figs = result_figures(off, **kw)
+    assert dashed(figs["topomap-z/absolute"]) == []
