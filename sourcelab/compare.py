@@ -478,39 +478,65 @@ def compare_html(table: pd.DataFrame, *, figure_png: bytes | None = None,
 
     from .cautions import CAUTIONS
 
+    from .report.html import table_html
+
     changed = table[table["verdict"] != "no change"]
-    cols = ["session_a", "session_b", "atlas", "roi", "hemisphere", "band", "measure", "change_t",
-            "change_t_lo", "change_t_hi", "change_z", "rci", "q", "verdict"]
-
-    def cell(v):
-        if isinstance(v, (float, np.floating)):
-            return "" if not np.isfinite(v) else f"{v:+.3f}"
-        return html.escape(str(v))
-
-    head = "".join(f"<th>{html.escape(c)}</th>" for c in cols)
-    body = "".join("<tr>" + "".join(f"<td>{cell(r[c])}</td>" for c in cols) + "</tr>"
-                   for _, r in changed.head(max_rows).iterrows())
+    cols = [c for c in ("session_a", "session_b", "atlas", "roi", "hemisphere", "band",
+                        "measure", "change_t", "change_t_lo", "change_t_hi", "change_z", "rci",
+                        "q", "verdict") if c in table.columns]
     n = len(table)
     img = ""
     if figure_png is not None:
-        img = (f'<img alt="targeted rows across sessions" src="data:image/png;base64,'
-               f'{base64.b64encode(figure_png).decode()}">')
+        img = (f'<figure><img alt="targeted rows across sessions" src="data:image/png;base64,'
+               f'{base64.b64encode(figure_png).decode()}"><figcaption>Targeted rows across '
+               "sessions with their bootstrap intervals.</figcaption></figure>")
     note = (f"{len(changed)} of {n} rows changed: Benjamini-Hochberg q &le; {FDR_ALPHA:g} for the "
             "bootstrap change and a reliable-change index |RCI| &ge; 1.96 (Jacobson &amp; Truax "
             "1991, with the analysis' test-retest reliability). A change between sessions is a "
             "statistical statement about these recordings, not evidence that training caused "
             "it: state, time of day, drowsiness, medication and recording conditions change "
             "band power too.")
-    caut = "".join(f"<li>{html.escape(c)}</li>" for c in CAUTIONS)
-    return (f"<section class=\"compare\"><h2>Change across sessions</h2><p>{note}</p>{img}"
-            f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
-            f"<ul class=\"cautions\">{caut}</ul></section>")
+    rows = (table_html(changed[cols].head(max_rows), z_column=None) if len(changed)
+            else "<p>No row changed.</p>")
+    if len(changed) > max_rows:
+        rows += (f'<p class="note">The first {max_rows} of {len(changed)} changed rows; all rows: '
+                 "compare.tsv.</p>")
+    caut = "".join(f'<p class="caution">{html.escape(c)}</p>' for c in CAUTIONS)
+    return (f"<section class=\"compare\" id=\"compare\"><h2>Change across sessions</h2>"
+            f"<p>{note}</p>{img}{rows}<h3>Cautions</h3>{caut}</section>")
+
+
+def compare_page(table: pd.DataFrame, *, figure_png: bytes | None = None) -> str:
+    """The comparison as a self-contained HTML page (the report's style, no external resources).
+
+    Parameters
+    ----------
+    table : DataFrame
+        From :func:`compare_sessions`.
+    figure_png : bytes, optional
+        The :func:`plot_sessions` figure as PNG.
+
+    Returns
+    -------
+    str
+    """
+    from .report.html import _CSS, _JS
+
+    sessions = ", ".join(str(p["label"]) for p in table.attrs.get("per_session", []))
+    title = "sourcelab session comparison"
+    return ("<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">"
+            f"<title>{title}</title><style>{_CSS}</style></head><body>"
+            f"<header><h1>{title}</h1><p>Sessions: {html.escape(sessions) or 'not given'} · "
+            "not a diagnostic device</p></header><main>"
+            f"{compare_html(table, figure_png=figure_png)}</main><script>{_JS}</script>"
+            "</body></html>")
 
 
 def write_comparison(table: pd.DataFrame, out, *, targets=None, inputs=()) -> dict:
     """Write the comparison into the folder ``out``.
 
-    Writes ``compare.tsv``, ``compare.png``, ``compare.html`` (a section) and ``compare.json``;
+    Writes ``compare.tsv``, ``compare.png``, ``compare.html`` (a page in the report's style) and
+    ``compare.json``;
     the folder is replaced atomically.
 
     Parameters
@@ -551,6 +577,6 @@ def write_comparison(table: pd.DataFrame, out, *, targets=None, inputs=()) -> di
                 f.write(f"# {c}\n")
             table.to_csv(f, sep="\t", index=False, na_rep="", float_format="%.6g")
         (tmp / "compare.png").write_bytes(png)
-        (tmp / "compare.html").write_text(compare_html(table, figure_png=png), encoding="utf-8")
+        (tmp / "compare.html").write_text(compare_page(table, figure_png=png), encoding="utf-8")
         (tmp / "compare.json").write_text(json.dumps(summary, indent=2), encoding="utf-8")
     return summary

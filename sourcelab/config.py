@@ -10,6 +10,7 @@ from pathlib import Path
 
 from .checks import (check_number, check_option, check_path, check_text, check_type,
                      read_bytes_bounded)
+from .constants import Z_THRESHOLD
 from .errors import InputError
 
 #: Largest configuration file read (a configuration is a few hundred bytes).
@@ -189,6 +190,10 @@ class AnalysisConfig:
         replicate (Davison & Hinkley 1997, section 5.2), and intervals from 199 replicates have
         nearly nominal coverage, with endpoints that vary more from run to run than those from
         1,000 (measured in ``sourcelab/coupling/TABLES.md``).
+    z_mask : float | None
+        Figures only (no number changes): z maps leave |z| below this uncoloured (default
+        :data:`sourcelab.constants.Z_THRESHOLD`, the two-sided 5 % point); 0 or None colours every
+        value.  In [0, 10).
     """
 
     bands: Bands = field(default_factory=Bands)
@@ -216,6 +221,7 @@ class AnalysisConfig:
     coupling: bool = True
     coupling_atlases: tuple[str, ...] = ("lobes", "yeo7", "networks")
     coupling_n_boot: int = 199
+    z_mask: float | None = Z_THRESHOLD
 
     def __post_init__(self):
         for name, value in _validated_fields(self).items():
@@ -290,6 +296,10 @@ def _validated_fields(cfg: AnalysisConfig) -> dict:
         notch = check_number("notch", notch)
         check_option("notch", notch, (50.0, 60.0))
     out["notch"] = notch
+    z_mask = cfg.z_mask
+    if z_mask is not None:
+        z_mask = check_number("z_mask", z_mask, low=0.0, high=10.0, high_open=True)
+    out["z_mask"] = z_mask
     if 0 < out["coupling_n_boot"] < 99:
         raise InputError("coupling_n_boot: 0 (no intervals) or at least 99, got "
                          f"{out['coupling_n_boot']}", field="coupling_n_boot")

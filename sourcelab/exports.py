@@ -52,12 +52,28 @@ def _staged(out_dir: Path):
         shutil.rmtree(tmp, ignore_errors=True)
 
 
+#: Per-source z maps exported like power, under these measure names (need ``result.source_z``).
+Z_MEASURES = ("z_absolute", "z_relative")
+
+
+def map_measures(result) -> tuple[str, ...]:
+    """The measures a result can export: power always, per-source z when it has them."""
+    z = getattr(result, "source_z", None) or {}
+    return MEASURES + tuple(f"z_{m}" for m in MEASURES if m in z)
+
+
 def _maps(result, measure: str) -> np.ndarray:
-    if measure not in MEASURES:
-        raise ValueError(f"measure: {measure!r} is not one of {MEASURES}")
+    if measure not in MEASURES + Z_MEASURES:
+        raise ValueError(f"measure: {measure!r} is not one of {MEASURES + Z_MEASURES}")
     from .headmodel import load_head_model
 
-    arr = np.asarray(result.source_abs if measure == "absolute" else result.source_rel)
+    if measure in Z_MEASURES:
+        z = getattr(result, "source_z", None) or {}
+        if measure[2:] not in z:
+            raise ValueError(f"measure: {measure!r} needs per-source norms (result.source_z)")
+        arr = np.asarray(z[measure[2:]])
+    else:
+        arr = np.asarray(result.source_abs if measure == "absolute" else result.source_rel)
     n_src = load_head_model().n_src
     if arr.ndim != 2 or arr.shape[1] != n_src:
         raise ValueError(f"result: source maps need shape (n_bands, {n_src}), got {arr.shape}")
@@ -71,7 +87,7 @@ def export_stc(result, out_dir, *, measures=MEASURES) -> list[Path]:
     ----------
     result : AnalysisResult
     out_dir : str | Path
-    measures : sequence of {"absolute", "relative"}
+    measures : sequence of {"absolute", "relative", "z_absolute", "z_relative"}
 
     Returns
     -------

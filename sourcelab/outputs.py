@@ -182,8 +182,8 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
     (per-epoch band cross-spectra, see :mod:`sourcelab.epochfile`), ``leakage_brodmann.tsv``,
     ``pair_table.tsv`` + ``pair_table.json`` and ``coupling_table.tsv`` + ``coupling_table.json``
     (unless coupling is off) and, with norms, ``candidates.tsv`` and ``leakage_hints.tsv``.
-    Optional: ``figures/*.png``, ``report.html``, ``maps/`` (MNE SourceEstimate, GIfTI per
-    hemisphere, NIfTI in MNI space).
+    Optional: ``figures/*.png``, ``report.html`` + ``report.pdf``, ``maps/`` (MNE SourceEstimate,
+    GIfTI per hemisphere, NIfTI in MNI space; power and, with per-source norms, z).
 
     Returns
     -------
@@ -208,14 +208,16 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
         for name, png in pngs.items():
             (fig_dir / (name.replace("/", "_") + ".png")).write_bytes(png)
     if report:
-        from .report import write_report
+        from .report import write_pdf, write_report
 
         write_report(result, folder / "report.html", figures=pngs)
+        write_pdf(result, folder / "report.pdf", figures=pngs)
     if exports:
-        from .exports import export_gifti, export_nifti, export_stc
+        from .exports import export_gifti, export_nifti, export_stc, map_measures
 
         maps = folder / "maps"
-        export_stc(result, maps)
-        export_gifti(result, maps)
-        export_nifti(result, maps)
+        measures = map_measures(result)  # power, and per-source z with per-source norms
+        export_stc(result, maps, measures=measures)
+        export_gifti(result, maps, measures=measures)
+        export_nifti(result, maps, measures=measures)
     return pngs

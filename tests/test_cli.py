@@ -227,3 +227,31 @@ def test_select_time_range(sim_edf, tmp_path):
                  "--no-report", "--no-maps"]) == 0
     prov = json.loads((out / "provenance.json").read_text())
     assert prov["quality"]["kept_s"] <= 70
+
+
+def test_atlas_show_names_and_natural_order(capsys):
+    assert main(["atlas", "show", "brodmann"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert "name" in lines[0].split()
+    # Brodmann (1909): area 17 = striate, primary visual cortex
+    ba17 = [ln for ln in lines if ln.split()[0] == "BA17"]
+    assert ba17 and "primary visual" in ba17[0]
+    left = [ln.split()[0] for ln in lines[1:] if " left " in ln]
+    nums = [int(x[2:]) for x in left]
+    assert nums == sorted(nums) and nums[:2] == [1, 2]  # BA1, BA2, ..., not BA1, BA10
+
+
+def test_atlas_plot_has_a_legend(tmp_path, capsys):
+    import matplotlib.pyplot as plt
+
+    from sourcelab.figures import plot_atlas
+
+    fig = plot_atlas("lobes")
+    legends = fig.legends
+    assert len(legends) == 1
+    names = {t.get_text() for t in legends[0].get_texts()}
+    assert {"frontal", "occipital"} <= names
+    plt.close(fig)
+    out = tmp_path / "a.png"
+    assert main(["atlas", "plot", "yeo7", "--out", str(out)]) == 0
+    assert out.read_bytes().startswith(b"\x89PNG")

@@ -47,6 +47,8 @@ def test_demo_end_to_end(tmp_path, capsys):
     prov = json.loads((out / "provenance.json").read_text())
     assert prov["inputs"]["norms"]["condition"] == "eyes closed"
     assert len(list((out / "figures").glob("*.png"))) >= 40
-    assert len(list((out / "maps").glob("*.nii.gz"))) == 10
+    # power and, with the per-source demo norms, z: 5 bands x (2 power + 2 z) volumes
+    assert len(list((out / "maps").glob("*.nii.gz"))) == 20
+    assert (out / "report.pdf").read_bytes().startswith(b"%PDF")
     html = (out / "report.html").read_text()
     assert "Cautions" in html and "http://" not in html and "https://" not in html

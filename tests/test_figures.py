@@ -249,3 +249,183 @@ def test_power_topomaps_one_scale_per_band():
     assert len(bars) == 3 and all("µV²" in ax.get_xlabel() for ax in bars)
     assert scales[0].vmax > 5 * scales[2].vmax
     plt.close(fig)
+
+
+# ---------------------------------------------------------------- issue 16: ranges, masks, holes
+def _coloured_faces(fig):
+    """Per 3-D view: (faces drawn, faces coloured by data).  The background is sulcal shading in
+    grey (r = g = b); data colours of RdBu_r/magma ends are not grey."""
+    out = []
+    for ax in [a for a in fig.axes if a.name == "3d"]:
+        fc = ax.collections[0].get_facecolor()
+        sat = fc[:, :3].max(1) - fc[:, :3].min(1)
+        out.append((len(fc), int((sat > 0.02).sum())))
+    return out
+
+
+def _expected_coloured(values, scale):
+    """Faces nilearn colours: |mean of its vertices' plotted values| >= the threshold."""
+    from sourcelab.figures import brain, geometry
+
+    surf = geometry.to_surface(values)
+    out = []
+    for hemi, view in brain.SURFACE_VIEWS:
+        coords, faces = geometry.mesh("inflated", hemi)
+        faces = brain._front_faces(coords, faces, hemi=hemi, view=view)
+        h = geometry.HEMIS.index(hemi)
+        sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
+        vals, thr = brain.surface_plot_values(surf[sl], scale)
+        in_cortex = np.isfinite(surf[sl])[faces].all(1)
+        out.append((len(faces), int((np.abs(vals[faces].mean(1)) >= thr).sum()),
+                    int(in_cortex.sum())))
+    return out
+
+
+def test_surface_masks_the_configured_fraction_and_leaves_no_holes():
+    from sourcelab.constants import Z_THRESHOLD
+    from sourcelab.figures.geometry import source_positions_mni305
+
+    pos = source_positions_mni305()
+    # half the sources (front) at |z| = 4, beyond the ±3 range; the back half at 0.5, masked
+    front = pos[:, 1] > np.median(pos[:, 1])
+    z = np.where(front, 4.0, 0.5) * np.where(pos[:, 0] < 0, 1.0, -1.0)
+    scale = z_scale(threshold=Z_THRESHOLD)
+    fig = surface_views(z, scale=scale)
+    got, want = _coloured_faces(fig), _expected_coloured(z, scale)
+    assert [g[0] for g in got] == [w[0] for w in want]
+    # coloured faces are exactly those at or beyond the mask (values beyond the range included)
+    assert [g[1] for g in got] == [w[1] for w in want]
+    # about half of the cortex is masked, as constructed (faces straddling the border aside)
+    frac = sum(g[1] for g in got) / sum(w[2] for w in want)
+    assert 0.35 < frac < 0.65
+    cb = _colourbar_axes(fig)[0]._colorbar
+    assert cb.extend == "both" and "4" in cb.ax.get_ylabel()
+    # without a mask, every face inside cortex is coloured even though all values exceed ±3
+    plain = z_scale()
+    fig2 = surface_views(np.where(front, 5.0, -5.0), scale=plain)
+    for g, w in zip(_coloured_faces(fig2), _expected_coloured(np.full(N_SRC, 5.0), plain)):
+        assert g[1] >= w[2]  # no uncoloured (NaN/grey) face inside cortex
+
+
+def test_power_below_range_is_not_a_hole(rng):
+    from sourcelab.figures import ColourScale
+
+    v = rng.uniform(0.0, 10.0, N_SRC)
+    # viridis: both ends saturated, so a coloured face is told from the grey background (the
+    # power map's magma starts near black)
+    scale = ColourScale("viridis", 2.0, 8.0, "power")
+    fig = surface_views(v, scale=scale)
+    for g, w in zip(_coloured_faces(fig), _expected_coloured(v, scale)):
+        assert g[1] >= w[2]
+    cb = _colourbar_axes(fig)[0]._colorbar
+    assert cb.extend == "both"
+
+
+def test_colourbar_arrows_only_when_data_exceed_range(result):
+    from sourcelab.figures.colours import extend_for
+
+    s = z_scale(limit=3)
+    assert extend_for([-1, 2], s) == "neither" and extend_for([-4, 2], s) == "min"
+    assert extend_for([1, 12], s) == "max" and extend_for([np.nan, -5, 5], s) == "both"
+    n_ch = len(result.ch_names)
+    inside = np.tile(np.linspace(-2.5, 2.5, n_ch), (2, 1))
+    fig = sensor_topomaps(inside, band_names=["a", "b"], ch_names=result.ch_names, scale=s)
+    cb = _colourbar_axes(fig)[0]._colorbar
+    assert cb.extend == "neither" and cb.mappable.norm.vmin == -cb.mappable.norm.vmax == -3
+    beyond = inside.copy()
+    beyond[0, 0] = 12.0
+    fig = sensor_topomaps(beyond, band_names=["a", "b"], ch_names=result.ch_names, scale=s)
+    cb = _colourbar_axes(fig)[0]._colorbar
+    assert cb.extend == "max" and "12" in cb.ax.get_ylabel()  # true range stated
+    # electrode names on the maps
+    texts = {t.get_text() for ax in fig.axes for t in ax.texts}
+    assert set(result.ch_names) <= texts
+
+
+def test_roi_charts_name_and_sort_brodmann_areas(result):
+    fig = roi_heatmap(result.roi_table, measure="absolute", atlas="brodmann")
+    labels = [t.get_text() for ax in fig.axes for t in ax.get_yticklabels() if t.get_text()]
+    assert any("BA17 L primary visual" == lab for lab in labels)
+    left = [lab.split()[0] for lab in labels if " L " in lab]
+    nums = [int(x[2:]) for x in left]
+    assert nums == sorted(nums)  # BA1, BA2, ..., BA10 (natural order)
+
+
+def test_glass_brain_outline_as_one_collection_draws_what_nilearn_draws():
+    # reference: nilearn's own outline (one patch per path) against the single collection
+    import contextlib
+    import io
+
+    import matplotlib.image as mpimg
+
+    from sourcelab.figures import brain, figure_png
+
+    z = np.where(np.arange(N_SRC) < N_LEFT, 2.5, -2.5)
+    fast = brain.glass_brain(z, scale=z_scale())
+    views = [ax for ax in fast.axes if ax not in _colourbar_axes(fast) and ax.images]
+    assert all(len(ax.patches) == 0 and len(ax.collections) >= 1 for ax in views)
+    a = mpimg.imread(io.BytesIO(figure_png(fast)), format="png")
+    original = brain._fast_outline
+    try:
+        brain._fast_outline = contextlib.nullcontext
+        slow = brain.glass_brain(z, scale=z_scale())
+        assert sum(len(ax.patches) for ax in slow.axes) > 200
+        b = mpimg.imread(io.BytesIO(figure_png(slow)), format="png")
+    finally:
+        brain._fast_outline = original
+    assert a.shape == b.shape
+    assert (np.abs(a - b).max(-1) > 0.05).mean() < 1e-3  # antialiasing of overlaps aside
+
+
+def test_fully_masked_z_map_draws_quietly():
+    # nothing beyond the mask is a valid map (warnings are errors in this suite)
+    fig = glass_brain(np.full(N_SRC, 0.5), scale=z_scale(threshold=1.96))
+    assert _colourbar_axes(fig)[0]._colorbar.extend == "neither"
+
+
+def test_ocular_component_maps_drawn_and_reported(result, rng):
+    import dataclasses
+
+    from sourcelab.figures.figure_set import _ocular_figure
+    from sourcelab.report import build_html
+
+    maps = rng.standard_normal((2, len(result.ch_names)))
+    oc = {**result.quality.ocular, "method": "ica", "removed_components": [0, 3],
+          "component_maps_uv": maps.tolist(), "template_r": [0.93, 0.88]}
+    r2 = dataclasses.replace(result, quality=dataclasses.replace(result.quality, ocular=oc))
+    jobs = []
+    _ocular_figure(r2, lambda key, f, *a, **k: jobs.append((key, f, a, k)), 60)
+    assert [j[0] for j in jobs] == ["ocular"]
+    key, f, a, k = jobs[0]
+    fig = f(*a, **k)
+    titles = [ax.get_title() for ax in fig.axes if ax.get_title()]
+    assert titles == ["component 0 (r = 0.93)", "component 3 (r = 0.88)"]
+    html = build_html(r2, {"ocular": fig})
+    start = html.index('id="quality"')
+    assert "2 of 19 independent components were removed" in html[start:]
+    assert "removed eye-movement components" in html[start:html.index("<section", start)]
+
+
+def test_z_mask_is_a_config_option(result):
+    import dataclasses
+
+    from sourcelab.config import AnalysisConfig
+    from sourcelab.constants import Z_THRESHOLD
+    from sourcelab.errors import InputError
+
+    assert AnalysisConfig().z_mask == Z_THRESHOLD  # default: the shared deviation threshold
+    with pytest.raises(InputError, match="z_mask"):
+        AnalysisConfig(z_mask=12)
+
+    def dashed(fig):  # ±threshold marks on the z colour bar
+        cb = _colourbar_axes(fig)[0]._colorbar
+        return sorted(round(float(ln.get_ydata()[0]), 2) for ln in cb.ax.lines)
+
+    kw = dict(measures=("absolute",), bands=("alpha",), surfaces=False, resolution=3,
+              pair_measures=(), edge_measures=())
+    figs = result_figures(result, **kw)
+    assert dashed(figs["topomap-z/absolute"]) == [-Z_THRESHOLD, Z_THRESHOLD]
+    plt.close("all")
+    off = dataclasses.replace(result, config=result.config.replace(z_mask=None))
+    figs = result_figures(off, **kw)
+    assert dashed(figs["topomap-z/absolute"]) == []

@@ -30,7 +30,17 @@ def run(args) -> int:
             print(f"{name:<12} {len(at.rois):>4} ROIs ({n_small} small)  {at.description}")
         return 0
     if args.atlas_cmd == "show":
-        print(atlas_summary(args.name).to_string(index=False))
+        from ..rois.names import area_name, natural_key
+
+        t = atlas_summary(args.name)
+        names = [area_name(r) for r in t["roi"]]
+        if any(names):
+            t.insert(1, "name", names)
+            hemi = {"left": 0, "right": 1, "both": 2}
+            order = sorted(range(len(t)), key=lambda i: (hemi.get(t["hemisphere"].iloc[i], 3),
+                                                         natural_key(t["roi"].iloc[i])))
+            t = t.iloc[order]
+        print(t.to_string(index=False))
         return 0
     from ..figures.atlas import plot_atlas
 

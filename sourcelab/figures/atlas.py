@@ -9,6 +9,7 @@ import numpy as np
 from ..headmodel import load_head_model
 from ..headmodel.model import HEMIS, N_PER_HEMI
 from ..rois import Atlas, load_atlas
+from ..rois.names import area_name, natural_key
 
 
 def atlas_label_map(atlas: Atlas) -> np.ndarray:
@@ -50,7 +51,8 @@ def plot_atlas(name_or_atlas: str | Atlas, *, output_file: str | Path | None = N
     Returns
     -------
     matplotlib.figure.Figure
-        Four 3-D axes: left lateral, left medial, right lateral, right medial.  Colours come from
+        Four 3-D axes: left lateral, left medial, right lateral, right medial, and a legend
+        naming each ROI (Brodmann areas with their descriptive names).  Colours come from
         matplotlib's qualitative tab20/tab20b/tab20c maps; the same ROI name has the same colour
         in every view; sources in no ROI (medial wall) are left grey.
     """
@@ -62,8 +64,12 @@ def plot_atlas(name_or_atlas: str | Atlas, *, output_file: str | Path | None = N
     surf = load_head_model().surface
     n_max = max(int(labels.max()), 1)
     cmap = _qualitative_cmap(n_max)
-    fig, axes = plt.subplots(1, 4, figsize=(14, 3.6), subplot_kw={"projection": "3d"})
-    fig.subplots_adjust(left=0.0, right=1.0, bottom=0.0, top=0.88, wspace=0.0)
+    names = sorted({r.name for r in atlas.rois}, key=[r.name for r in atlas.rois].index)
+    n_cols = 1 if len(names) <= 16 else 2 if len(names) <= 48 else 3
+    legend_w = 3.3 * n_cols
+    fig = plt.figure(figsize=(14 + legend_w, 3.8))
+    frac = 14 / (14 + legend_w)
+    axes = [fig.add_axes((frac * k / 4, 0.0, frac / 4, 0.86), projection="3d") for k in range(4)]
     for h, hemi in enumerate(HEMIS):
         sl = slice(h * N_PER_HEMI, (h + 1) * N_PER_HEMI)
         mesh = (surf.inflated[sl].copy(), surf.hemi_faces(hemi).copy())  # nilearn edits in place
@@ -75,7 +81,16 @@ def plot_atlas(name_or_atlas: str | Atlas, *, output_file: str | Path | None = N
                                    axes=ax,
                                    figure=fig, colorbar=False, bg_on_data=False)
             ax.set_title(f"{hemi} {view}", fontsize=9)
-    fig.suptitle(f"{atlas.name}: {len({r.name for r in atlas.rois})} ROIs", fontsize=11)
+    from matplotlib.patches import Patch
+
+    handles = [Patch(facecolor=cmap(i), edgecolor="0.3", lw=0.4,
+                     label=(f"{n} {area_name(n)}".strip()))
+               for i, n in sorted(enumerate(names), key=lambda kn: natural_key(kn[1]))]
+    fig.legend(handles=handles, loc="center left", bbox_to_anchor=(frac + 0.005, 0.45),
+               ncol=n_cols, fontsize=6.5 if len(names) > 30 else 8, frameon=False,
+               handlelength=1.2, columnspacing=0.8, borderaxespad=0.0)
+    fig.suptitle(f"{atlas.name}: {len(names)} ROIs (grey: not in any ROI)", x=frac / 2,
+                 fontsize=11)
     if output_file is not None:
         fig.savefig(output_file, dpi=120)
     return fig

@@ -2,14 +2,19 @@
 
 from __future__ import annotations
 
+import contextlib
+import functools
+import json
 import logging
+import warnings
+from pathlib import Path
 
 import matplotlib.pyplot as plt
 import numpy as np
 from matplotlib.figure import Figure
 
 from . import geometry
-from .colours import ColourScale, add_colourbar, masked
+from .colours import ColourScale, add_colourbar, clipped
 
 logger = logging.getLogger("sourcelab")
 
@@ -30,6 +35,63 @@ def _check_values(values) -> np.ndarray:
         raise ValueError(f"values: need shape ({model.n_src},) (one per template source), "
                          f"got {v.shape}")
     return v
+
+
+@functools.lru_cache(maxsize=8)
+def _schematic(direction: str, black_bg: bool):
+    """nilearn's glass-brain outline of one view, read once: (paths, edge colours, line widths,
+    data transform, bounds)."""
+    from nilearn.plotting import glass_brain as gb
+
+    json_file, transform = gb._get_json_and_transform(direction)
+    content = json.loads(Path(json_file).read_text(encoding="utf-8"))
+    patches = gb._get_mpl_patches(content, invert_color=black_bg)
+    return ([pa.get_path() for pa in patches], [pa.get_edgecolor() for pa in patches],
+            [pa.get_linewidth() for pa in patches], transform,
+            gb._get_object_bounds(content, transform))
+
+
+def _outline_as_one_collection(ax, direction, **kwargs):
+    """Stand-in for nilearn's ``plot_brain_schematics``: the same outline (same paths, colours,
+    widths and bounds) drawn as one collection instead of ~240 patches a view, which nilearn adds
+    one by one (each recomputing the data limits: most of a glass brain's drawing time)."""
+    from matplotlib.collections import PathCollection
+    from matplotlib.colors import to_rgba
+    from nilearn.plotting import glass_brain as gb
+
+    if set(kwargs) - {"alpha"}:  # options this stand-in does not know: nilearn's own drawing
+        return gb.plot_brain_schematics(ax, direction, **kwargs)
+    black_bg = to_rgba(ax.get_facecolor()) == to_rgba("k")
+    paths, edges, widths, transform, bounds = _schematic(direction, black_bg)
+    ax.add_collection(PathCollection(paths, facecolors="none", edgecolors=edges,
+                                     linewidths=widths, transform=transform + ax.transData,
+                                     alpha=kwargs.get("alpha")),
+                      autolim=False)
+    return bounds
+
+
+@contextlib.contextmanager
+def _fast_outline():
+    """Swap in :func:`_outline_as_one_collection` while a glass brain is drawn (nilearn's
+    function is used unchanged when its module layout differs from the one this was written
+    for, nilearn 0.10-0.14)."""
+    try:
+        from nilearn.plotting.displays import _axes
+        from nilearn.plotting import glass_brain as gb
+
+        ok = (getattr(_axes, "plot_brain_schematics", None) is gb.plot_brain_schematics
+              and all(hasattr(gb, n) for n in ("_get_json_and_transform", "_get_mpl_patches",
+                                              "_get_object_bounds")))
+    except ImportError:
+        ok = False
+    if not ok:
+        yield
+        return
+    _axes.plot_brain_schematics = _outline_as_one_collection
+    try:
+        yield
+    finally:
+        _axes.plot_brain_schematics = gb.plot_brain_schematics
 
 
 def _save(fig: Figure, output_file, dpi: int) -> None:
@@ -70,7 +132,8 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
     v = _check_values(values)
     if display_mode not in _DISPLAY_MODES:
         raise ValueError(f"display_mode: {display_mode!r} is not one of {_DISPLAY_MODES}")
-    v = masked(v, scale)
+    raw = v
+    v = clipped(v, scale)  # beyond the limits: end colours (the colour bar's arrows say so)
     v = np.where(np.isfinite(v), v, 0.0)
     img = geometry.sources_to_volume(v, resolution=resolution)
     fig = plt.figure(figsize=figsize, dpi=dpi)
@@ -78,16 +141,53 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
     ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
     cax = fig.add_axes((1.0 - 1.45 / w, 0.1, 0.14 / w, 0.74))
     signed = scale.diverging
-    plotting.plot_glass_brain(
-        img, display_mode=display_mode, figure=fig, axes=ax, cmap=scale.cmap,
-        vmin=scale.vmin, vmax=scale.vmax, plot_abs=not signed, colorbar=False,
-        threshold=scale.threshold if scale.threshold else 1e-12 if not signed else None,
-        black_bg=False, annotate=True, symmetric_cbar=signed)
-    add_colourbar(fig, scale, cax=cax)
+    with _fast_outline(), warnings.catch_warnings():
+        # a z map with nothing beyond the mask is a valid answer, not a problem to warn about
+        warnings.filterwarnings("ignore", message="empty mask", category=UserWarning)
+        plotting.plot_glass_brain(
+            img, display_mode=display_mode, figure=fig, axes=ax, cmap=scale.cmap,
+            vmin=scale.vmin, vmax=scale.vmax, plot_abs=not signed, colorbar=False,
+            # voxels left empty (0: no source within reach) stay clear, also for z maps
+            # without a mask (else they show as boxes in the map's centre colour)
+            threshold=scale.threshold if scale.threshold else _SHOWN,
+            black_bg=False, annotate=True, symmetric_cbar=signed)
+    add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
     _save(fig, output_file, dpi)
     return fig
+
+
+#: Smallest magnitude drawn on the surface: finite values are lifted to it so that no cortical
+#: vertex falls under the plotting threshold that hides the medial wall.
+_SHOWN = 1e-12
+
+
+def surface_plot_values(values: np.ndarray, scale: ColourScale) -> tuple[np.ndarray, float]:
+    """Values and threshold handed to nilearn for one surface map.
+
+    Values beyond the colour limits are clipped to them (drawn in the end colours, never hidden);
+    |z| below the scale's threshold and NaN (the medial wall) become 0 and fall under the
+    returned threshold, so they are the only uncoloured vertices.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n,)
+        Per-vertex values (NaN: not cortex).
+    scale : ColourScale
+
+    Returns
+    -------
+    data : ndarray, shape (n,)
+    threshold : float
+        nilearn's ``threshold`` (values of smaller magnitude are not coloured).
+    """
+    v = clipped(values, scale)
+    ok = np.isfinite(v)
+    small = ok & (np.abs(v) < _SHOWN)
+    v[small] = np.where(v[small] < 0, -_SHOWN, _SHOWN)
+    v[~ok] = 0.0
+    return v, float(scale.threshold) if scale.threshold else _SHOWN
 
 
 def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None = None,
@@ -118,7 +218,8 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
     """
     from nilearn import plotting
 
-    v = geometry.to_surface(masked(_check_values(values), scale))
+    raw = _check_values(values)
+    v = geometry.to_surface(raw)
     if outline is not None:
         outline = (geometry.atlas_labels(outline) if hasattr(outline, "rois")
                    else np.asarray(outline))
@@ -134,14 +235,13 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
         h = geometry.HEMIS.index(hemi)
         sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
         ax = fig.add_axes(rect, projection="3d")
-        data = v[sl]
+        data, threshold = surface_plot_values(v[sl], scale)
         faces = _front_faces(coords, faces, hemi=hemi, view=view)
-        # nilearn hides values below `threshold`; for maps with nothing to show keep the background
         plotting.plot_surf_stat_map(
-            (coords, faces), stat_map=np.where(np.isfinite(data), data, 0.0),
+            (coords, faces), stat_map=data,
             bg_map=sulc[h], hemi=hemi, view=view, engine="matplotlib", axes=ax, figure=fig,
             cmap=scale.cmap, vmin=scale.vmin, vmax=scale.vmax, colorbar=False,
-            threshold=_surface_threshold(data, scale), symmetric_cbar=scale.diverging,
+            threshold=threshold, symmetric_cbar=scale.diverging,
             bg_on_data=True)
         if outline is not None:
             ax.computed_zorder = False  # borders are drawn over the (culled) surface
@@ -149,7 +249,7 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
         ax.set_box_aspect(None, zoom=1.45)
         ax.set_title(f"{hemi} {view}", fontsize=9, y=0.92)
     cax = fig.add_axes((0.87, 0.15, 0.02, top * 0.7))
-    add_colourbar(fig, scale, cax=cax)
+    add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.43, y=0.995, va="top", fontsize=11)
     _save(fig, output_file, dpi)
@@ -170,15 +270,6 @@ def _front_faces(coords: np.ndarray, faces: np.ndarray, *, hemi: str, view: str)
     out = np.sign(np.sum(n * ((a + b + c) / 3.0 - coords.mean(0)), axis=1).sum()) or 1.0
     nx = out * n[:, 0] / np.maximum(np.linalg.norm(n, axis=1), 1e-12)
     return faces[cam * nx > -0.2]
-
-
-def _surface_threshold(data: np.ndarray, scale: ColourScale) -> float | None:
-    if scale.threshold:
-        return float(scale.threshold)
-    if scale.diverging:
-        return None
-    # power maps: hide only exact zeros / NaN (unassigned vertices)
-    return 1e-12 if scale.vmin >= 0 else None
 
 
 def _draw_outline(ax, coords: np.ndarray, faces: np.ndarray, labels: np.ndarray) -> None:

@@ -122,14 +122,52 @@ def power_scale(values: np.ndarray | None = None, *, measure: str = "absolute",
     return ColourScale(POWER_CMAP, float(vmin), float(vmax), label)
 
 
+def extend_for(data, scale: ColourScale) -> str:
+    """Colour-bar extension for ``data`` on ``scale``: ``"neither"``, ``"min"``, ``"max"`` or
+    ``"both"`` (arrows mark that some values lie beyond the colour limits and are drawn in the end
+    colours)."""
+    v = np.asarray(data, dtype=float)
+    v = v[np.isfinite(v)]
+    if not v.size:
+        return "neither"
+    lo, hi = bool(v.min() < scale.vmin), bool(v.max() > scale.vmax)
+    return {(False, False): "neither", (True, False): "min", (False, True): "max",
+            (True, True): "both"}[(lo, hi)]
+
+
+def data_range_text(data) -> str:
+    """``"data -1.8 to 12.3"``: the true range of the finite values (empty without any)."""
+    v = np.asarray(data, dtype=float)
+    v = v[np.isfinite(v)]
+    if not v.size:
+        return ""
+    return f"data {v.min():.3g} to {v.max():.3g}"
+
+
 def add_colourbar(fig, scale: ColourScale, *, cax=None, ax=None, orientation: str = "vertical",
-                  **kwargs):
+                  data=None, **kwargs):
     """Add a labelled colour bar for ``scale`` to ``fig`` (in ``cax``, or stolen from ``ax``).
+
+    Parameters
+    ----------
+    fig : Figure
+    scale : ColourScale
+    cax, ax : Axes, optional
+    orientation : {"vertical", "horizontal"}
+    data : array-like, optional
+        The values drawn.  When given, the bar gets extension arrows at the ends the data pass
+        (those values are drawn in the end colours) and its label states the true data range.
 
     For z scales, dashed ticks mark ±threshold when one is set.
     """
+    label = scale.label
+    if data is not None:
+        kwargs.setdefault("extend", extend_for(data, scale))
+        rng = data_range_text(data)
+        if rng:
+            label = f"{label}\n({rng})"
     cb = fig.colorbar(scale.scalar_mappable(), cax=cax, ax=ax, orientation=orientation, **kwargs)
-    cb.set_label(scale.label)
+    cb.set_label(label)
     if scale.diverging and scale.threshold:
         for t in (-scale.threshold, scale.threshold):
             if orientation == "vertical":
@@ -144,4 +182,16 @@ def masked(values: np.ndarray, scale: ColourScale) -> np.ndarray:
     out = np.array(values, dtype=float, copy=True)
     if scale.threshold:
         out[np.abs(out) < scale.threshold] = np.nan
+    return out
+
+
+def clipped(values: np.ndarray, scale: ColourScale) -> np.ndarray:
+    """:func:`masked` values clipped into the colour limits (NaN stays NaN).
+
+    Values beyond the limits are drawn in the end colours (the colour bar's arrows say so)
+    instead of being dropped by plotting functions that hide out-of-range values.
+    """
+    out = masked(values, scale)
+    ok = np.isfinite(out)
+    out[ok] = np.clip(out[ok], scale.vmin, scale.vmax)
     return out

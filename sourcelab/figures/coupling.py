@@ -243,7 +243,7 @@ def pair_head_map(pair_table: pd.DataFrame, *, band: str, measure: str,
     ax.set_aspect("equal")
     ax.axis("off")
     cax = fig.add_axes((0.84, 0.25, 0.035, 0.55))
-    add_colourbar(fig, scale, cax=cax)
+    add_colourbar(fig, scale, cax=cax, data=z[sel] if sel else None)
     what = _measure_text(measure)
     fig.suptitle(f"{band_label or band} · {what}", fontsize=11, y=0.975)
     subset = ("homologous and anterior-posterior pairs" if measure == "asymmetry" else
@@ -388,7 +388,7 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
         ax.set_xlabel((band_labels or {}).get(band, band), fontsize=10, fontweight="bold")
     top = 1 - (title_h + lab) / h
     cax = fig.add_axes((1 - 0.95 / w, top - 0.8 * side / h, 0.16 / w, 0.8 * side / h))
-    add_colourbar(fig, scale, cax=cax)
+    add_colourbar(fig, scale, cax=cax, data=np.concatenate([np.ravel(m) for m in mats]))
     what = _measure_text(measure)
     fig.suptitle(f"{atlas}: {what}" + (" · z against the norm" if has_z else " · values"),
                  fontsize=11, y=1 - 0.12 / h, va="top")

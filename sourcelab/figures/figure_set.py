@@ -4,6 +4,9 @@ Keys (``<band>`` from the result's bands, ``<measure>`` in ``absolute``/``relati
 
 * ``glass/<band>/<measure>`` and ``surface/<band>/<measure>``: source power;
 * ``glass-z/<band>/<measure>``: ROI z painted on sources (needs z and an atlas loader);
+* ``surface-z/<band>/<measure>``: per-source z on the cortical surface (needs per-source norms,
+  ``result.source_z``);
+* ``ocular``: scalp maps of the independent components removed as eye activity (when any);
 * ``topomap/<measure>`` and ``topomap-z/<measure>``: sensor power and z, all bands;
 * ``roi-bars/<band>/<measure>``, ``roi-heatmap/<measure>``, ``networks/<measure>``: ROI charts;
 * ``pairs/<band>/<measure>``: electrode pairs deviating from the norm on a head (needs z;
@@ -56,7 +59,7 @@ def _pick_network_atlas(table) -> str | None:
 
 
 def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_LIMIT,
-                   z_threshold: float | None = None, atlas: str | None = None,
+                   z_threshold: float | None | str = "config", atlas: str | None = None,
                    network_atlas: str | None = None, z_map_atlas: str | None = "brodmann",
                    outline=None, display_mode: str = "lyrz", resolution: int = 2,
                    surfaces: bool = True, dpi: int = 90, as_png: bool = False,
@@ -72,8 +75,9 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
         Bands of the per-band figures (default: all); multi-band figures show all bands.
     z_limit : float
         Symmetric z colour limit, the same for every band (default 3).
-    z_threshold : float | None
-        Hide |z| below this in z maps (e.g. 1.96); None shows all.
+    z_threshold : float | None | "config"
+        Leave |z| below this uncoloured in z maps; None (or 0) colours every value.  Default: the
+        result's ``config.z_mask`` (1.96, :data:`sourcelab.constants.Z_THRESHOLD`).
     atlas : str | None
         Atlas of the ROI bar charts and heatmap; default: the first atlas in the ROI table that is
         not a network atlas.
@@ -119,7 +123,15 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
     def keep(key, func, *args, **kwargs):
         jobs.append((key, func, args, kwargs))
 
+    if isinstance(z_threshold, str):
+        if z_threshold != "config":
+            raise ValueError(f"z_threshold: a number, None or 'config', got {z_threshold!r}")
+        z_threshold = getattr(result.config, "z_mask", None)
+    z_threshold = z_threshold or None
+    if z_threshold is not None and z_threshold >= z_limit:
+        raise ValueError(f"z_threshold: {z_threshold:g} must be below z_limit {z_limit:g}")
     zs = z_scale(limit=z_limit, threshold=z_threshold)
+    source_z = getattr(result, "source_z", None) or {}
     all_bands = list(result.bands.names)
     per_band = all_bands if bands is None else list(bands)
     unknown = [b for b in per_band if b not in all_bands]
@@ -141,6 +153,11 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
             if surfaces:
                 keep(f"surface/{band}/{measure}", brain.surface_views, v, scale=ps, title=title,
                      outline=labels, dpi=dpi)
+            if surfaces and measure in source_z:
+                zi = np.asarray(source_z[measure][all_bands.index(band)], float)
+                keep(f"surface-z/{band}/{measure}", brain.surface_views, zi, scale=zs,
+                     dpi=dpi, title=f"{band} ({_edges(result, band)}) · {measure} power: "
+                                    "z per source")
             if has_roi_z and z_map_atlas:
                 try:
                     zmap = result.roi_z_map(band, measure, atlas=z_map_atlas)
@@ -176,13 +193,15 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
                 if _has_z(sel):
                     keep(f"roi-bars/{band}/{measure}", roi.roi_bars, rt, band=band,
                          measure=measure, atlas=area_atlas, scale=zs, dpi=dpi)
+            # the heatmap keeps every cell coloured: its near-white cells already read as small z
             keep(f"roi-heatmap/{measure}", roi.roi_heatmap, rt, measure=measure,
-                 atlas=area_atlas, bands=bands, scale=zs, dpi=dpi)
+                 atlas=area_atlas, bands=bands, scale=z_scale(limit=z_limit), dpi=dpi)
         if net is not None:
             keep(f"networks/{measure}", roi.network_chart, rt, atlas=net, measure=measure,
                  bands=bands, scale=zs, dpi=dpi)
     _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measures,
                       coupling_atlas, z_threshold)
+    _ocular_figure(result, keep, dpi)
     leak = getattr(result, "leakage", None)
     if leak is not None:
         from ..trust import plot_leakage
@@ -216,6 +235,30 @@ def _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measu
                  bands=list(result.bands.names), band_labels=labels,
                  scale=zs if _has_z(ct) else None, dpi=dpi,
                  z_threshold=z_threshold or Z_THRESHOLD)
+
+
+def _ocular_figure(result, keep, dpi) -> None:
+    """Queue the scalp maps of the components removed as eye activity (when any were)."""
+    oc = getattr(result.quality, "ocular", None) or {}
+    maps = oc.get("component_maps_uv") or []
+    comps = oc.get("removed_components") or []
+    if not maps:
+        return
+    m = np.asarray(maps, dtype=float)
+    if m.ndim != 2 or m.shape[1] != len(result.ch_names):
+        logger.info("ocular component maps of shape %s not drawn", m.shape)
+        return
+    names = [f"component {c}" for c in comps] if len(comps) == len(m) else [
+        f"component {i + 1}" for i in range(len(m))]
+    r = oc.get("template_r") or []
+    if len(r) == len(m):  # correlation with the eye-activity template
+        names = [f"{n} (r = {float(x):.2f})" for n, x in zip(names, r)]
+    scales = []
+    for row in m:
+        lim = float(np.nanmax(np.abs(row))) or 1.0
+        scales.append(z_scale(limit=lim, label="weight (µV)"))
+    keep("ocular", sensor.sensor_topomaps, m, band_names=names, ch_names=result.ch_names,
+         scale=scales, dpi=dpi, title="components removed as eye activity")
 
 
 def _render(func, args, kwargs, dpi):

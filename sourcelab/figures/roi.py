@@ -7,20 +7,32 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
+from ..rois.names import area_name, brodmann_number, natural_key
 from .colours import Z_THRESHOLD, ColourScale, add_colourbar, z_scale
 
 _HEMI_ABBR = {"left": "L", "right": "R", "both": ""}
+_HEMI_ORDER = {"left": 0, "right": 1, "both": 2}
 
 
-def _label(row) -> str:
+def _label(row, *, names: bool = True) -> str:
+    """``"BA17 L primary visual"`` (Brodmann areas get their names), ``"visual L"``."""
     h = _HEMI_ABBR.get(row.hemisphere, str(row.hemisphere))
-    return f"{row.roi} {h}".strip()
+    name = area_name(row.roi) if names else ""
+    return f"{row.roi} {h} {name}".strip().replace("  ", " ")
 
 
-def _labelled(roi_table, *, atlas, measure, bands):
-    """Rows of one atlas and measure with a display label; ROI labels and bands in table order."""
+def _labelled(roi_table, *, atlas, measure, bands, names: bool = True):
+    """Rows of one atlas and measure with a display label; bands in table order, ROIs in table
+    order except Brodmann areas, which are sorted by hemisphere and then by number (BA1, BA2,
+    ..., BA10)."""
     t = _select(roi_table, atlas=atlas, measure=measure)
-    t = t.assign(_label=[_label(r) for r in t.itertuples()])
+    if all(brodmann_number(r) is not None for r in t["roi"]):
+        order = sorted({(r.hemisphere, r.roi) for r in t.itertuples()},
+                       key=lambda hr: (_HEMI_ORDER.get(hr[0], 3), natural_key(hr[1])))
+        rank = {k: i for i, k in enumerate(order)}
+        t = t.iloc[np.argsort([rank[(r.hemisphere, r.roi)] for r in t.itertuples()],
+                              kind="stable")]
+    t = t.assign(_label=[_label(r, names=names) for r in t.itertuples()])
     labels = list(dict.fromkeys(t["_label"]))
     bands = list(bands) if bands is not None else list(dict.fromkeys(t["band"]))
     return t, labels, bands
@@ -81,11 +93,13 @@ def roi_bars(roi_table: pd.DataFrame, *, band: str, measure: str = "absolute",
     t = t.iloc[::-1]
     labels = [_label(r) for r in t.itertuples()]
     z = t["z"].to_numpy(float)
-    fig = plt.figure(figsize=(6.4, 0.9 + 0.2 * len(z)), dpi=dpi)
-    ax = fig.add_axes((0.25, 0.9 / (0.9 + 0.2 * len(z)) * 0.6, 0.58, 0.2 * len(z) /
-                       (0.9 + 0.2 * len(z))))
+    label_w = 0.25 + 0.062 * max(len(s) for s in labels)  # inches for the area labels
+    w, h = label_w + 5.2, 0.9 + 0.2 * len(z)
+    fig = plt.figure(figsize=(w, h), dpi=dpi)
+    ax = fig.add_axes((label_w / w, 0.54 / h, 3.8 / w, 0.2 * len(z) / h))
     sm = scale.scalar_mappable()
-    ax.barh(np.arange(len(z)), z, color=sm.to_rgba(z), edgecolor="0.3", linewidth=0.4)
+    ax.barh(np.arange(len(z)), z, color=sm.to_rgba(np.clip(z, scale.vmin, scale.vmax)),
+            edgecolor="0.3", linewidth=0.4)
     ax.set_yticks(np.arange(len(z)), labels, fontsize=8)
     for g in (-guide, guide):
         ax.axvline(g, color="0.25", ls="--", lw=0.8)
@@ -95,8 +109,9 @@ def roi_bars(roi_table: pd.DataFrame, *, band: str, measure: str = "absolute",
     ax.set_ylim(-0.6, len(z) - 0.4)
     ax.set_xlabel(scale.label)
     ax.set_title(f"{band} · {measure} · ROIs ranked by |z| (dashed: ±{guide:g})", fontsize=10)
-    cax = fig.add_axes((0.87, ax.get_position().y0, 0.02, ax.get_position().height))
-    add_colourbar(fig, scale, cax=cax)
+    cax = fig.add_axes(((label_w + 4.0) / w, ax.get_position().y0, 0.14 / w,
+                        ax.get_position().height))
+    add_colourbar(fig, scale, cax=cax, data=z)
     _save(fig, output_file, dpi)
     return fig
 
@@ -125,6 +140,7 @@ def roi_heatmap(roi_table: pd.DataFrame, *, measure: str = "absolute", atlas: st
     """
     scale = scale or z_scale()
     t, rois, bands = _labelled(roi_table, atlas=atlas, measure=measure, bands=bands)
+    raw_z = t["z"].to_numpy(float)
     grid = (t.pivot_table(index="band", columns="_label", values="z", aggfunc="first",
                           dropna=False)
             .reindex(index=bands, columns=rois).to_numpy(float))
@@ -133,7 +149,7 @@ def roi_heatmap(roi_table: pd.DataFrame, *, measure: str = "absolute", atlas: st
     title = f"{measure} power: z by band and ROI" + (f" ({atlas})" if atlas else "")
     if len(rois) > max_columns:
         fig = _heatmap_tall(grid_shown.T, rois, bands, cmap=cmap, scale=scale, title=title,
-                            dpi=dpi)
+                            dpi=dpi, data=raw_z)
         _save(fig, output_file, dpi)
         return fig
     left, right, top_m = 1.0, 1.4, 0.45  # margins, inches
@@ -149,13 +165,13 @@ def roi_heatmap(roi_table: pd.DataFrame, *, measure: str = "absolute", atlas: st
     ax.set_title(title, fontsize=10)
     pos = ax.get_position()
     cax = fig.add_axes((pos.x1 + 0.2 / w, pos.y0, 0.15 / w, pos.height))
-    add_colourbar(fig, scale, cax=cax)
+    add_colourbar(fig, scale, cax=cax, data=raw_z)
     _save(fig, output_file, dpi)
     return fig
 
 
 def _heatmap_tall(grid: np.ndarray, rois, bands, *, cmap, scale, title, dpi,
-                  rows_per_panel: int = 42) -> Figure:
+                  rows_per_panel: int = 42, data=None) -> Figure:
     """ROI x band heatmap with ROIs as rows, in side-by-side panels of ``rows_per_panel``."""
     n_panels = int(np.ceil(len(rois) / rows_per_panel))
     rows = int(np.ceil(len(rois) / n_panels))
@@ -179,7 +195,7 @@ def _heatmap_tall(grid: np.ndarray, rois, bands, *, cmap, scale, title, dpi,
         ax.tick_params(axis="x", labelrotation=45)
     fig.suptitle(title, fontsize=10, y=1 - 0.08 / h, va="top")
     cax = fig.add_axes((1 - 1.3 / w, 0.3 / h, 0.15 / w, 0.17 * rows / h))
-    add_colourbar(fig, scale, cax=cax)
+    add_colourbar(fig, scale, cax=cax, data=data)
     return fig
 
 
@@ -219,7 +235,8 @@ def network_chart(roi_table: pd.DataFrame, *, atlas: str, measure: str = "absolu
         sel = t[t["band"] == band].set_index("_label")["z"].reindex(nets).to_numpy(float)
         y = np.arange(len(nets)) + (j - (n_b - 1) / 2) * 0.7 / n_b
         ok = np.isfinite(sel)
-        ax.scatter(sel[ok], y[ok], c=sm.to_rgba(sel[ok]), marker=markers[j % len(markers)],
+        ax.scatter(sel[ok], y[ok], c=sm.to_rgba(np.clip(sel[ok], scale.vmin, scale.vmax)),
+                   marker=markers[j % len(markers)],
                    edgecolors="k", linewidths=0.5, s=36, label=band, zorder=3)
         if ok.any():
             zmax = max(zmax, float(np.abs(sel[ok]).max()) * 1.05)
@@ -228,7 +245,7 @@ def network_chart(roi_table: pd.DataFrame, *, atlas: str, measure: str = "absolu
     ax.set_ylim(-0.6, len(nets) - 0.4)
     ax.invert_yaxis()
     ax.set_xlabel(scale.label)
-    ax.set_title(f"networks ({atlas}), {measure} power: z per band (grey: |z| < {guide:g})",
+    ax.set_title(f"{atlas} atlas, {measure} power: z per band (grey: |z| < {guide:g})",
                  fontsize=10)
     leg = ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, title="band",
                     frameon=False)

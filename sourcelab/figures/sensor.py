@@ -9,7 +9,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from ..constants import SITES_1020
-from .colours import add_colourbar, masked
+from .colours import add_colourbar, clipped
 
 
 @functools.lru_cache(maxsize=4)
@@ -31,7 +31,7 @@ def sensor_info(ch_names: tuple[str, ...] = SITES_1020):
 
 def sensor_topomaps(values: np.ndarray, *, band_names, scale,
                     ch_names=SITES_1020, title: str | None = None, image_interp: str = "linear",
-                    dpi: int = 90, output_file=None) -> Figure:
+                    names: bool = True, dpi: int = 90, output_file=None) -> Figure:
     """One scalp map per band, on one colour scale or on one scale per band.
 
     Parameters
@@ -48,6 +48,8 @@ def sensor_topomaps(values: np.ndarray, *, band_names, scale,
     image_interp : {"linear", "cubic", "nearest"}
         Interpolation between electrodes (MNE's ``image_interp``); "linear" draws ten times
         faster than "cubic" and invents no extrema between electrodes.
+    names : bool
+        Write the electrode names on the maps (default).
     output_file : str | Path | None
 
     Returns
@@ -78,24 +80,29 @@ def sensor_topomaps(values: np.ndarray, *, band_names, scale,
     for i, band in enumerate(band_names):
         sc = scales[i]
         ax = fig.add_axes((0.01 + i * width, bottom, width * 0.96, top - bottom - 0.04))
-        row = masked(v[i], sc)
+        row = clipped(v[i], sc)  # beyond the limits: end colours (the bar's arrows say so)
         finite = np.isfinite(row)
         data = np.where(finite, row, 0.0 if sc.diverging else np.nanmin(v[i]) if
                         np.isfinite(v[i]).any() else 0.0)
         mne.viz.plot_topomap(data, info, axes=ax, cmap=sc.cmap, vlim=(sc.vmin, sc.vmax),
-                             show=False, contours=4, sensors=True, names=None,
+                             show=False, contours=4, sensors=True,
+                             names=list(ch_names) if names else None,
                              image_interp=image_interp,
                              mask=finite if sc.threshold else None,
-                             mask_params={"markersize": 5, "markerfacecolor": "k"})
+                             mask_params={"marker": "o", "markersize": 10,
+                                          "markerfacecolor": "none", "markeredgecolor": "k",
+                                          "markeredgewidth": 0.8})
+        for txt in ax.texts:  # electrode names: small, over the map
+            txt.set_fontsize(6)
         ax.set_title(band, fontsize=10)
         if per_band:
             cax = fig.add_axes((0.01 + i * width + 0.15 * width, 0.19, width * 0.66, 0.035))
-            cb = add_colourbar(fig, sc, cax=cax, orientation="horizontal")
-            cb.set_label(sc.label, fontsize=8)
+            cb = add_colourbar(fig, sc, cax=cax, orientation="horizontal", data=v[i])
+            cb.set_label(cb.ax.get_xlabel(), fontsize=7)
             cb.ax.tick_params(labelsize=7)
     if not per_band:
         cax = fig.add_axes((1.0 - 1.3 / fig_w, 0.12, 0.12 / fig_w, top - 0.2))
-        add_colourbar(fig, scale, cax=cax)
+        add_colourbar(fig, scale, cax=cax, data=v)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
     if output_file is not None:

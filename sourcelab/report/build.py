@@ -11,6 +11,8 @@ import pandas as pd
 
 from ..errors import InputError
 from ..provenance import atomic_write_text
+from .labels import file_name, value_text
+from .summary import report_summary
 from .html import (
     _CSS,
     _JS,
@@ -38,22 +40,75 @@ def _fig(figs: dict, key: str, caption: str) -> str:
 
 def _recording(result) -> str:
     rec = result.recording.to_dict()
+    rec["path"] = file_name(rec.get("path")) if rec.get("path") else "given in memory"
+    cmap = rec.pop("channel_map", {}) or {}
+    renamed = {k: v for k, v in cmap.items() if k != v}
+    rec["channel_map"] = (", ".join(f"{k} read from {v}" for k, v in renamed.items())
+                          if renamed else "the file uses the 10-20 names")
+    rec["annotations"] = ([f"{d} ({n}x, {t:g} s)" for d, n, t in rec.get("annotations") or ()]
+                          or "none")
     rec.setdefault("electrodes", ", ".join(result.ch_names))
-    return kv_table(rec) if rec else '<p class="note">No recording information.</p>'
+    return kv_table(rec)
 
 
 def _quality(result) -> str:
     q = result.quality.to_dict()
     if not q:
         return '<p class="note">No data-quality figures were recorded.</p>'
-    out = kv_table({k: v for k, v in q.items() if not isinstance(v, dict)})
-    for k, v in q.items():
-        if k == "reliability" and isinstance(v, dict):
-            out += _reliability(v, result.config.reliability_threshold)
-        elif isinstance(v, dict):
-            df = pd.DataFrame([list(v.values())], columns=[str(c) for c in v])
-            out += f"<h3>{_esc(k)}</h3>" + table_html(df, sortable=False, z_column=None)
+    plain = {k: v for k, v in q.items()
+             if k not in ("thresholds", "ocular", "reliability", "excluded")
+             and not isinstance(v, dict)}
+    plain["rejected_s"] = {k: v for k, v in (q.get("rejected_s") or {}).items() if v} or "nothing"
+    plain["excluded"] = ([f"{e.get('description', 'span')} {value_text(e.get('start'))}-"
+                          f"{value_text(e.get('stop'))} s" for e in q.get("excluded") or ()]
+                         or "none")
+    weak = {k: v for k, v in (q.get("channel_kept_fraction") or {}).items() if v < 1.0}
+    plain["channel_kept_fraction"] = weak or "every site passed in every epoch"
+    if q.get("mains_hz") is None:
+        plain["mains_hz"] = "none found"
+    out = kv_table(plain)
+    if result.warnings:
+        out += ("<h3>Warnings</h3><ul>" + "".join(f"<li>{_esc(w)}</li>" for w in result.warnings)
+                + "</ul>")
+    rel = q.get("reliability")
+    if isinstance(rel, dict) and rel:
+        out += _reliability(rel, result.config.reliability_threshold)
+    out += _ocular(result)
+    th = q.get("thresholds")
+    if isinstance(th, dict) and th:
+        flat = {k: v for k, v in th.items() if not isinstance(v, dict)}
+        out += ("<details><summary>Thresholds and filter edges used</summary>" + kv_table(flat)
+                + "</details>")
     return out
+
+
+def _ocular(result) -> str:
+    """Eye-movement correction: method, removed components and their scalp maps (when drawn)."""
+    oc = result.quality.ocular or {}
+    if not oc:
+        return ""
+    removed = oc.get("removed_components") or []
+    txt = (f"{len(removed)} of {value_text(oc.get('n_components'))} independent components were "
+           f"removed as eye activity (method: {value_text(oc.get('method'))})."
+           if removed else "No independent component was removed as eye activity "
+           f"(method: {value_text(oc.get('method'))}).")
+    rd = oc.get("residual_delta") or {}
+    if rd:
+        txt += (f" Check of the slow-wave maximum after correction: correlation with the eye "
+                f"pattern r = {value_text(rd.get('r'))} (threshold "
+                f"{value_text(rd.get('threshold'))}): "
+                + ("it looks like remaining eye activity." if rd.get("ocular")
+                   else "it does not look like eye activity."))
+    notes = oc.get("notes") or []
+    if notes:
+        txt += " " + " ".join(str(n) for n in notes)
+    return f"<h3>Eye-movement correction</h3><p>{_esc(txt)}</p>"
+
+
+_RELIABILITY_KINDS = {"split_half": "split half (odd vs even epochs)",
+                      "split_half_spearman_brown": "split half, Spearman-Brown",
+                      "test_retest": "first vs second half",
+                      "test_retest_spearman_brown": "first vs second half, Spearman-Brown"}
 
 
 def _reliability(rel: dict, threshold: float) -> str:
@@ -65,10 +120,11 @@ def _reliability(rel: dict, threshold: float) -> str:
         for kind in ("split_half", "split_half_spearman_brown", "test_retest",
                      "test_retest_spearman_brown"):
             if isinstance(r.get(kind), dict):
-                rows.append({"level": level, "estimate": kind.replace("_", " "),
+                rows.append({"level": level, "estimate": _RELIABILITY_KINDS[kind],
                              **{b: r[kind][b] for b in r[kind]}})
     if not rows:
         return ""
+    rows = [{k: v for k, v in r.items()} for r in rows]
     flagged = sorted({f"{lvl}: {', '.join(r.get('flagged_bands', []))}"
                       for lvl, r in rel.items()
                       if isinstance(r, dict) and r.get("flagged_bands")})
@@ -79,8 +135,31 @@ def _reliability(rel: dict, threshold: float) -> str:
     if flagged:
         note += ('<p class="caution">Reliability below the threshold: ' + _esc("; ".join(flagged))
                  + ". Treat these bands with extra care.</p>")
-    return ("<h3>reliability</h3>" + table_html(pd.DataFrame(rows), sortable=False, z_column=None)
+    return ("<h3>Reliability</h3>" + table_html(pd.DataFrame(rows), sortable=False, z_column=None)
             + note)
+
+
+def _summary(summary) -> str:
+    """The first section: who/what/when, data quality in words, top candidates, cautions.
+
+    Laid out so that a 1400 x 900 screen shows the short caution, the top candidates and the
+    cautions' first lines: facts and quality side by side, the table below.
+    """
+    from ..cautions import SHORT
+
+    facts = "".join(f"<tr><th>{_esc(k)}</th><td>{_esc(v)}</td></tr>" for k, v in summary.facts)
+    quality = "".join(f"<li>{_esc(q)}</li>" for q in summary.quality)
+    out = (f'<div class="summary"><p class="caution short">{_esc(SHORT)}</p>'
+           f'<div class="top"><div><table class="kv facts"><tbody>{facts}</tbody></table></div>'
+           f"<div><h3>Data quality</h3><ul class=\"quality\">{quality}</ul></div></div>"
+           f'<h3>Top candidates</h3><p class="headline">{_esc(summary.headline)}</p>')
+    if len(summary.candidates):
+        out += table_html(summary.candidates, sortable=False, z_column=None, human=False)
+    if summary.candidate_note:
+        out += f'<p class="note">{_esc(summary.candidate_note)}</p>'
+    out += "<h3>Cautions</h3>" + "".join(f'<p class="caution">{_esc(c)}</p>'
+                                         for c in summary.cautions)
+    return out + "</div>"
 
 
 def _sensor(result, figs: dict) -> str:
@@ -109,6 +188,8 @@ def _source(result, figs: dict) -> str:
             out.append(_fig(figs, f"glass/{band}/{m}", f"{band}: {m} power, glass brain"))
             out.append(_fig(figs, f"surface/{band}/{m}", f"{band}: {m} power, cortical surface"))
             out.append(_fig(figs, f"glass-z/{band}/{m}", f"{band}: {m} power, ROI z on sources"))
+            out.append(_fig(figs, f"surface-z/{band}/{m}",
+                            f"{band}: {m} power, z per source on the cortical surface"))
     return "".join(out)
 
 
@@ -144,7 +225,7 @@ def _deviations(result) -> str:
     if any("fdr" in c.lower() for c in d.columns):
         intro += " FDR columns give the false-discovery-rate flag across all tests."
     if "robust" in d.columns:
-        intro += (" z_lo-z_hi is the 95 % bootstrap interval over clean epochs; a row is "
+        intro += (" 'z low' to 'z high' is the 95 % bootstrap interval over clean epochs; a row is "
                   "robust when the whole interval lies beyond the same ±1.96 line, and "
                   "<b>not robust</b> when it crosses it.")
     intro += "</p>"
@@ -159,7 +240,7 @@ def _methods(result) -> str:
                       zip(cfg.bands.names, cfg.bands.edges))
     norms = result.norms
     norms_txt = ("No norms were used; no z-scores are reported." if not norms else
-                 "Norms: " + _esc(norms.path or "user-supplied")
+                 "Norms: " + _esc(file_name(norms.path) if norms.path else "given in memory")
                  + ". z = (value − norm mean) / norm SD after the norms' transform.")
     return (
         "<p>The recording was re-referenced to the common average, cleaned epoch by epoch "
@@ -193,9 +274,18 @@ def _atlas_sources(result) -> str:
             logger.debug("atlas %r not described in the report: %s", name, exc)
             items.append(f"<li><b>{_esc(name)}</b>: no description available.</li>")
             continue
-        items.append(f"<li><b>{_esc(name)}</b>: {_esc(at.description)} "
-                     f"<i>{_esc(at.citation)}</i></li>")
+        items.append(f"<li><b>{_esc(name)}</b>: {_esc(_reader_text(at.description))} "
+                     f"<i>{_esc(_reader_text(at.citation))}</i></li>")
     return ("<h3>Atlases</h3><ul>" + "".join(items) + "</ul>") if items else ""
+
+
+def _reader_text(text) -> str:
+    """Text for readers: notes meant for developers ("from memory") removed."""
+    import re
+
+    t = re.sub(r"\s*\(\s*from memory\s*\)", "", str(text), flags=re.IGNORECASE)
+    t = re.sub(r"\s*[;,]\s*from memory", "", t, flags=re.IGNORECASE)
+    return re.sub(r"\s*from memory", "", t, flags=re.IGNORECASE).strip()
 
 
 def _cautions() -> str:
@@ -205,11 +295,11 @@ def _cautions() -> str:
 def _provenance(result) -> str:
     fp = result.fingerprint.to_dict()
     fp["bands"] = "; ".join(f"{b[0]} {b[1]:g}-{b[2]:g}" for b in fp["bands"])
-    inputs = {"recording": result.recording.path or "–",
-              "recording sha256": result.recording.sha256 or "–"}
+    inputs = {"recording": file_name(result.recording.path),
+              "recording sha256": result.recording.sha256 or "not given"}
     if result.norms:
-        inputs["norms"] = result.norms.path or "–"
-        inputs["norms sha256"] = result.norms.sha256 or "–"
+        inputs["norms"] = file_name(result.norms.path)
+        inputs["norms sha256"] = result.norms.sha256 or "not given"
     cfg = result.config.to_dict()
     cfg["bands"] = "; ".join(f"{b[0]} {b[1]:g}-{b[2]:g} Hz" for b in cfg["bands"])
     cfg = {k: ("none" if v is None else v) for k, v in sorted(cfg.items())}
@@ -238,35 +328,120 @@ def _extra_body(title, content) -> str:
     return "".join(f"<p>{_esc(p)}</p>" for p in str(content).split("\n\n"))
 
 
+#: Candidate columns that index internal arrays (not for readers).
+_INTERNAL_COLUMNS = ("source", "vertex")
+#: Rows of each coupling table listed in the report.
+N_COUPLING_ROWS = 15
+
+
 def _answer_sections(result, figs: dict) -> list:
     """Candidates, neighbour blur check and leakage figure, from what the analysis computed."""
     out = []
+    if result.candidates is not None:
+        c = result.candidates.drop(columns=[k for k in _INTERNAL_COLUMNS
+                                            if k in result.candidates.columns])
+        out.append(("Candidates in detail", c.head(40),
+                    "Every column of the first 40 candidates (full list: candidates.tsv). "
+                    "Statistical deviations only; the choice of any training target rests with "
+                    "a licensed practitioner who weighs symptoms and history."))
+    if result.leakage_hints is not None:
+        out.append(("Neighbour blur check", result.leakage_hints.head(60),
+                    "For each deviating Brodmann area, the areas that leak most power into "
+                    "it and whether they deviate the same way: if they do, the deviation may "
+                    "be a neighbour's activity blurred by the inverse."))
     if "leakage" in figs:
         out.append(("Leakage between areas", figs.pop("leakage"),
                     "Share of each row area's expected sLORETA power that comes from equal, "
                     "uncorrelated activity in each column area (from the resolution matrix; "
                     "log colour scale). Large off-diagonal shares mean the two areas cannot "
                     "be told apart well with a template head and 19 electrodes."))
-    if result.candidates is not None:
-        out.append(("Candidate regions and networks", result.candidates.head(40),
-                    "Statistical deviations only, FDR-significant first, then by |z|. The "
-                    "choice of any training target rests with a licensed practitioner who "
-                    "weighs symptoms and history. Full list: candidates.tsv."))
-    if result.leakage_hints is not None:
-        out.append(("Neighbour blur check", result.leakage_hints.head(60),
-                    "For each deviating Brodmann area, the areas that leak most power into "
-                    "it and whether they deviate the same way: if they do, the deviation may "
-                    "be a neighbour's activity blurred by the inverse."))
     return out
+
+
+def top_coupling_rows(table, *, n: int = N_COUPLING_ROWS):
+    """The rows of a pair or coupling table with the largest |z| beyond the limit (or None).
+
+    Parameters
+    ----------
+    table : DataFrame | None
+        ``pair_table`` or ``coupling_table`` of a result.
+    n : int
+        Rows kept.
+
+    Returns
+    -------
+    DataFrame | None
+        Identifying columns, value, z, FDR and robustness columns, largest |z| first; None
+        without z.
+    """
+    if table is None or "z" not in table.columns or not len(table):
+        return None
+    z = table["z"].astype(float)
+    sel = table[np.isfinite(z) & (z.abs() > DEVIATION_Z)]
+    keep = [c for c in ("pair", "roi_a", "hemisphere_a", "roi_b", "hemisphere_b", "band",
+                        "measure", "value", "unit", "z", "fdr", "robust", "leakage_explained")
+            if c in sel.columns]
+    sel = sel.reindex(sel["z"].abs().sort_values(ascending=False).index)[keep]
+    sel = sel.head(n).reset_index(drop=True)
+    if "measure" in sel.columns:
+        from ..figures.coupling import MEASURE_TITLES
+
+        sel["measure"] = [MEASURE_TITLES.get(m, m) for m in sel["measure"]]
+    return sel
+
+
+def _coupling(result, figs: dict) -> str:
+    """Pair and network coupling: head maps, ROI matrices and the largest deviations."""
+    from ..figures.coupling import MEASURE_TITLES
+
+    pt, ct = result.pair_table, result.coupling_table
+    if pt is None and ct is None:
+        return ""
+    out = ['<p class="note">Coupling between electrode pairs (coherence, lagged coherence, '
+           "power asymmetry ...) and between networks and lobes at source level. Zero-lag "
+           "measures between nearby sites are inflated by volume conduction and by the "
+           "inverse's blur; lagged measures and orthogonalised envelope correlation are not. "
+           "'explained by blur' marks a value the inverse's leakage alone can produce.</p>"]
+    pair_keys = [k for k in list(figs) if k.startswith("pairs/")]
+    if pair_keys:
+        out.append("<details open><summary>Electrode pairs beyond the limit on the head"
+                   "</summary>")
+        for k in pair_keys:
+            _, band, m = k.split("/")
+            out.append(_fig(figs, k, f"{band}: {MEASURE_TITLES.get(m, m)}, pairs with "
+                                      f"|z| > {DEVIATION_Z:g}"))
+        out.append("</details>")
+    for k in [k for k in list(figs) if k.startswith("coupling/")]:
+        m = k.split("/")[1]
+        out.append(_fig(figs, k, f"Network coupling: {MEASURE_TITLES.get(m, m)}, per band"))
+    for name, t in (("electrode pairs", pt), ("networks and lobes", ct)):
+        top = top_coupling_rows(t)
+        if top is None:
+            continue
+        n_tot = int(np.isfinite(t["z"].astype(float)).sum())
+        n_big = int((t["z"].astype(float).abs() > DEVIATION_Z).sum())
+        out.append(f"<h3>Largest deviations: {_esc(name)}</h3><p class=\"note\">{n_big} of "
+                   f"{n_tot} z-scores beyond ±{DEVIATION_Z:g} (about {0.05 * n_tot:.0f} by "
+                   "chance alone); the first "
+                   f"{len(top)} by |z|. Full tables: pair_table.tsv, coupling_table.tsv.</p>")
+        out.append(table_html(top, sortable=True) if len(top) else "<p>None.</p>")
+    return "".join(out)
+
+
+def _ocular_figures(figs: dict) -> str:
+    return "".join(_fig(figs, k, "Scalp maps of the removed eye-movement components")
+                   for k in [k for k in list(figs) if k.startswith("ocular")])
 
 
 def build_html(result, figures: dict, *, extra_sections=None, title: str | None = None) -> str:
     """The report as one HTML string (see :func:`write_report`)."""
     figs = dict(figures)
-    extra_sections = _answer_sections(result, figs) + list(extra_sections or [])
+    when = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
+    answers = [_extra_section(i, it) for i, it in enumerate(_answer_sections(result, figs))]
     bodies = {
+        "summary": _summary(report_summary(result, when=when)),
         "recording": _recording(result),
-        "quality": _quality(result),
+        "quality": _quality(result) + _ocular_figures(figs),
         "sensor": _sensor(result, figs),
         "source": _source(result, figs),
         "roi": _roi(result, figs),
@@ -275,13 +450,17 @@ def build_html(result, figures: dict, *, extra_sections=None, title: str | None 
         "cautions": _cautions(),
         "provenance": _provenance(result),
     }
+    coupling = _coupling(result, figs)
     sections = [(sid, t, bodies[sid]) for sid, t in SECTIONS]
-    extras = [_extra_section(i, it) for i, it in enumerate(extra_sections or [])]
+    user = [_extra_section(i + len(answers), it) for i, it in enumerate(extra_sections or [])]
+    extras = ([("coupling", "Coupling between sites and networks", coupling)] if coupling
+              else [])
+    cut = [sid for sid, _, _ in sections].index("roi") + 1
+    middle = extras + sections[cut:cut + 1] + answers + user  # coupling, deviations, answers
     if figs:  # figures no section claimed
-        extras.append(("extra-figures", "Additional figures",
+        middle.append(("extra-figures", "Additional figures",
                        "".join(img_html(v, caption=k, alt=k) for k, v in figs.items())))
-    sections = sections[:6] + extras + sections[6:]
-    when = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
+    sections = sections[:cut] + middle + sections[cut + 1:]
     title = title or "sourcelab source-level EEG report"
     nav = "".join(f'<a href="#{sid}">{_esc(t)}</a>' for sid, t, _ in sections)
     body = "".join(f'<section id="{sid}"><h2>{_esc(t)}</h2>{b}</section>'

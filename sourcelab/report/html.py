@@ -16,17 +16,19 @@ import numpy as np
 import pandas as pd
 
 from ..cautions import CAUTIONS  # noqa: F401  (re-exported for the report)
+from .labels import MISSING_NUMBER, column_label, field_label, human_table, value_text
 
 logger = logging.getLogger("sourcelab")
 
 #: Section ids and titles, in order.
 SECTIONS = (
-    ("recording", "Recording summary"),
+    ("summary", "Summary"),
+    ("recording", "Recording"),
     ("quality", "Data quality"),
     ("sensor", "Sensor results"),
     ("source", "Source results by band"),
     ("roi", "ROI and network tables"),
-    ("deviations", "Candidate deviations"),
+    ("deviations", "All deviations beyond the limit"),
     ("methods", "Methods and references"),
     ("cautions", "Cautions"),
     ("provenance", "Provenance"),
@@ -82,6 +84,22 @@ tr.hi td{background:#fbeaea}tr.lo td{background:#e8f0fb}
 .note{color:var(--muted);font-size:12.5px}
 details summary{cursor:pointer;color:var(--accent);margin:6px 0}
 .bandgrid{display:grid;grid-template-columns:1fr;gap:4px}
+.tablewrap{max-width:100%;overflow-x:auto}
+.pager{font-size:12px;color:var(--muted);margin:-6px 0 10px}
+.pager button{font:inherit;margin-right:6px;cursor:pointer}
+.summary .facts th{width:150px}
+.summary .top{display:grid;grid-template-columns:minmax(0,1.1fr) minmax(0,1fr);gap:18px}
+.summary .top h3{margin-top:4px}
+.caution.short{font-size:12.5px;margin:4px 0 6px}
+td.num{white-space:nowrap}
+p.unit{margin:-8px 0 12px}
+.summary .headline{font-size:15px;font-weight:600}
+.summary ul.quality{margin:4px 0 8px 18px;padding:0}
+.summary .tablewrap td,.summary .tablewrap th{white-space:nowrap}
+.summary .facts td{word-break:break-word}
+@media print{nav,.pager{display:none}th{position:static}section{break-inside:auto;border:none}
+table.paged tr{display:table-row!important}.tablewrap{overflow:visible}
+table{font-size:10px}figure{break-inside:avoid}}
 """
 
 _JS = """
@@ -92,7 +110,20 @@ document.querySelectorAll('table.sortable').forEach(function(t){
   rows.sort(function(x,y){var a=x.cells[i].textContent,c=y.cells[i].textContent,
    p=parseFloat(a),q=parseFloat(c);
    var r=(!isNaN(p)&&!isNaN(q))?p-q:a.localeCompare(c);return asc?r:-r;});
-  rows.forEach(function(r){b.appendChild(r);});});});});
+  rows.forEach(function(r){b.appendChild(r);});
+  if(t.classList.contains('paged')){t._show(0);}});});});
+document.querySelectorAll('table.paged').forEach(function(t){
+ var n=parseInt(t.dataset.page,10),p=0,bar=document.createElement('div');bar.className='pager';
+ var prev=document.createElement('button'),next=document.createElement('button'),
+  info=document.createElement('span');prev.textContent='previous';next.textContent='next';
+ bar.appendChild(prev);bar.appendChild(next);bar.appendChild(info);
+ (t.parentNode.parentNode||t.parentNode).insertBefore(bar,t.parentNode.nextSibling);
+ t._show=function(q){var rows=t.tBodies[0].rows,m=Math.ceil(rows.length/n);
+  p=Math.max(0,Math.min(q,m-1));for(var i=0;i<rows.length;i++){
+   rows[i].style.display=(i>=p*n&&i<(p+1)*n)?'':'none';}
+  info.textContent='rows '+(p*n+1)+'-'+Math.min((p+1)*n,rows.length)+' of '+rows.length;};
+ prev.addEventListener('click',function(){t._show(p-1);});
+ next.addEventListener('click',function(){t._show(p+1);});t._show(0);});
 """
 
 
@@ -101,29 +132,48 @@ def _esc(x) -> str:
 
 
 def _fmt(v) -> tuple[str, bool]:
-    """Format one table cell; returns (text, is_number)."""
+    """Format one table cell; returns (text, is_number).  Missing values read as a dash."""
     if isinstance(v, (bool, np.bool_)):
         return ("yes" if v else "no"), False
     if isinstance(v, (int, np.integer)):
         return str(int(v)), True
     if isinstance(v, (float, np.floating)):
         if not np.isfinite(v):
-            return "–", True
+            return MISSING_NUMBER, True
         return (f"{v:.3g}" if abs(v) < 1e-2 or abs(v) >= 1e4 else f"{v:.3f}"), True
-    return _esc(v), False
+    txt = value_text(v, missing=MISSING_NUMBER)
+    return _esc(txt), False
 
 
 def table_html(df: pd.DataFrame, *, sortable: bool = True, max_rows: int = 5000,
-               z_column: str | None = "z") -> str:
-    """An HTML table from a DataFrame; rows with |z| > 1.96 get a class for shading."""
+               z_column: str | None = "z", page_rows: int = 25, human: bool = True) -> str:
+    """An HTML table from a DataFrame; rows with |z| > 1.96 get a class for shading.
+
+    Headers are put in words and Brodmann areas get their names (``human``); tables longer than
+    ``page_rows`` are shown a page at a time (the report's script adds the page buttons; every
+    row is in the file and prints).  The table scrolls sideways inside its card when wider.
+    """
     if len(df) > max_rows:
         logger.info("table truncated to %d of %d rows in the report", max_rows, len(df))
         df = df.head(max_rows)
-    cls = ' class="sortable"' if sortable else ""
-    head = "".join(f"<th>{_esc(c)}</th>" for c in df.columns)
-    body = []
+    unit_note = ""
+    if human and "unit" in df.columns and df["unit"].nunique(dropna=True) == 1 and len(df) > 1:
+        # one unit for every row: said once under the table, not repeated per row
+        unit_note = f'<p class="note unit">value unit: {_esc(df["unit"].dropna().iloc[0])}</p>'
+        df = df.drop(columns="unit")
     zi = list(df.columns).index(z_column) if z_column in df.columns else None
-    for row in df.itertuples(index=False):
+    if human:
+        shown = human_table(df)
+        if zi is not None:
+            zi = list(shown.columns).index(column_label(z_column))
+    else:
+        shown = df
+    classes = (["sortable"] if sortable else []) + (["paged"] if len(df) > page_rows else [])
+    cls = f' class="{" ".join(classes)}"' if classes else ""
+    page = f' data-page="{int(page_rows)}"' if len(df) > page_rows else ""
+    head = "".join(f"<th>{_esc(c)}</th>" for c in shown.columns)
+    body = []
+    for row in shown.itertuples(index=False):
         rc = ""
         if zi is not None:
             z = row[zi]
@@ -134,17 +184,14 @@ def table_html(df: pd.DataFrame, *, sortable: bool = True, max_rows: int = 5000,
             txt, num = _fmt(v)
             cells.append(f'<td class="num">{txt}</td>' if num else f"<td>{txt}</td>")
         body.append(f"<tr{rc}>{''.join(cells)}</tr>")
-    return f"<table{cls}><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+    return (f'<div class="tablewrap"><table{cls}{page}><thead><tr>{head}</tr></thead>'
+            f"<tbody>{''.join(body)}</tbody></table></div>{unit_note}")
 
 
 def kv_table(d: dict) -> str:
-    rows = []
-    for k, v in d.items():
-        if isinstance(v, dict):
-            v = ", ".join(f"{a}: {_fmt(b)[0]}" for a, b in v.items())
-            rows.append(f"<tr><th>{_esc(k)}</th><td>{v}</td></tr>")
-        else:
-            rows.append(f"<tr><th>{_esc(k)}</th><td>{_fmt(v)[0]}</td></tr>")
+    """Two-column table of labelled fields; values in words (never a Python repr)."""
+    rows = [f"<tr><th>{_esc(field_label(k))}</th><td>{_esc(value_text(v))}</td></tr>"
+            for k, v in d.items()]
     return f'<table class="kv"><tbody>{"".join(rows)}</tbody></table>'
 
 
