@@ -1,8 +1,13 @@
 """Benchmark: naming the generating Brodmann area under model mismatch, ROI means vs peaks.
 
-Run: ``python benchmarks/bench_localisation.py [--n 600] [--jitter 0,5,10] [--lambda2 0.111]
-[--out FILE.json]`` (about 3-5 min on one core; the true-head forwards are cached in
-``~/.cache/sourcelab-bench``).
+Run: ``python benchmarks/bench_localisation.py [--n 600] [--jitter 10] [--lambda2 0.111]
+[--ceiling] [--out FILE.json]`` (about 5-10 min on one core at the default; the true-head
+forwards are cached in ``~/.cache/sourcelab-bench``).  Results: ``localisation_results.json``.
+
+Held out: everything evaluated uses the true head's electrode-jitter realisations of seed 1 and
+simulation seed ``--seed`` (2024); everything *fitted* (the probability coefficients, the
+choice of the naming parameters in ``sourcelab/trust/naming.py``) used seed 0's realisations
+and other simulation seeds.
 
 True head (``sourcelab.simulate.mismatch``): MNE's analytic 3-shell sphere (centre fitted to the
 19 fsaverage electrodes, radii containing every source, conductivities 0.33/0.0042/0.33 S/m),
@@ -25,10 +30,23 @@ centre):
 * ``roi_mean_cortex``: the same on the cortex-only space;
 * ``peak_all``: areas by the highest value they contain (cortex-only), all areas;
 * ``peak_default``: the same without the areas not resolvable from 19 electrodes (the default
-  candidate list).
+  candidate list);
+* ``match_all`` / ``match_default`` (point sources): areas by the best template match of the
+  whole map (``sourcelab.trust.naming``: correlation of the map's amplitude with the template
+  resolution-matrix columns of candidates within 25 mm of the peak).
 
+``headline`` (10 mm jitter) collects the three numbers of the issue's targets: point sources
+named first and in the top 3 (all truths, all areas eligible; noise-free and SNR 3), focal
+deviations named first (|z| map, and the excess map ``max(z, 0)`` the candidate list names).
+
+``--ceiling`` adds, for noise-free sources at *every* cortical source (18,715 x one jitter
+realisation each, seed 1): how often the peak vertex lies in the true area (the bound of every
+rule that names the peak's area), and the rule that names, for a peak at vertex ``p``, the true
+area seen most often for peaks near ``p`` (within 6 mm) on the *training* true head (seed 0's
+realisations).  That rule learns this particular sphere-versus-BEM bias, which a real head does
+not share: it is measured as a bound, not shipped.
 Targets (issue 14): first >= 65 % and top 3 >= 85 % for point sources; first >= 55 % for
-deviations.
+deviations.  Binomial SE of a rate near 0.5 with n = 600: 0.02.
 """
 
 from __future__ import annotations
@@ -58,6 +76,7 @@ def _summary(name, first, top3, **extra):
 def bench_points(setup, full, *, n, snr, rng, jitter_label):
     from sourcelab.simulate import localisation as cal
     from sourcelab.trust.localise import rank_areas, rank_areas_by_mean
+    from sourcelab.trust.probability import area_probability
 
     sp = setup.space
     src = rng.integers(0, sp.n_src, n)
@@ -95,13 +114,25 @@ def bench_points(setup, full, *, n, snr, rng, jitter_label):
     prob = []
     for v in maps:
         a = cal.named_area(v, sp, setup.exclude)
-        prob.append(cal.area_probability(v, sp, a, setup.own, kind="power"))
+        prob.append(area_probability(v, sp, a, setup.own, kind="power"))
     hit = np.array([cal.named_area(v, sp, setup.exclude) for v in maps]) == true
     rows.append(_summary("peak_default", f, t3, first_resolvable_truth=round(f_r, 3),
                          top3_resolvable_truth=round(t3_r, 3),
                          n_resolvable_truth=int(ok.sum()),
                          mean_stated_probability=round(float(np.mean(prob)), 3),
                          observed_hit_rate=round(float(hit.mean()), 3)))
+    from sourcelab.trust.naming import match_scores
+
+    t0 = time.perf_counter()
+    match = [match_scores(v, sp, int(np.argmax(v))) for v in maps]
+    sec = (time.perf_counter() - t0) / n
+    rows.append(_summary("match_all", *_ranks(lambda mr: mr.order(), match, true),
+                         seconds_per_map=round(sec, 4)))
+    rows.append(_summary("match_default", *_ranks(lambda mr: mr.order(setup.exclude), match,
+                                                  true),
+                         first_resolvable_truth=round(_ranks(
+                             lambda mr: mr.order(setup.exclude),
+                             [m for m, k in zip(match, ok) if k], true[ok])[0], 3)))
     for r in rows:
         r.update(kind="point", jitter_mm=jitter_label, snr="noise-free" if snr is None else snr,
                  n=n)
@@ -113,6 +144,7 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80):
     from sourcelab.norms.source_norms import fit_source_models
     from sourcelab.simulate import localisation as cal
     from sourcelab.trust.localise import rank_areas
+    from sourcelab.trust.probability import area_probability
 
     sp = setup.space
     ages = rng.uniform(18, 65, n_controls)
@@ -173,7 +205,7 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80):
     f_s, _ = _ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude),
                     z_src[strong & ok], true[strong & ok])
     named = np.array([cal.named_area(v, sp, setup.exclude) for v in z_src])
-    prob = [cal.area_probability(v, sp, a, setup.own, kind="z") for v, a in zip(z_src, named)]
+    prob = [area_probability(v, sp, a, setup.own, kind="z") for v, a in zip(z_src, named)]
     rows.append(_summary("peak_default", f, t3, first_resolvable_truth=round(f_r, 3),
                          top3_resolvable_truth=round(t3_r, 3),
                          first_resolvable_truth_peak_z_ge_4=round(f_s, 3),
@@ -181,9 +213,27 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80):
                          peak_z_median=round(float(np.median(peak)), 2),
                          mean_stated_probability=round(float(np.mean(prob)), 3),
                          observed_hit_rate=round(float(np.mean(named == true)), 3)))
+    ex = np.clip(zs_src, 0.0, None)
+    rows.append(_summary("peak_default_excess", *_ranks(
+        lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude), ex, true)))
+    # a patch of 10-15 mm radius often straddles a border: the same rankings judged against
+    # the area holding most of the patch's sources (ties: the centre's area)
+    major = np.array([_majority(sp.codes[pt], c) for pt, c in zip(patches, true)])
+    straddle = float(np.mean([np.mean(sp.codes[pt] == c) < 1 for pt, c in zip(patches, true)]))
+    rows.append(_summary("peak_all_excess_majority_truth", *_ranks(
+        lambda v: rank_areas(v, sp.codes, sp.n_areas), ex, major),
+        patches_straddling_a_border=round(straddle, 3),
+        centre_area_is_majority=round(float(np.mean(major == true)), 3)))
     for r in rows:
         r.update(kind="deviation", jitter_mm=jitter_label, n=n, n_controls=n_controls)
     return rows
+
+
+def _majority(codes, centre_code):
+    """Most frequent area code of a patch (the centre's on a tie)."""
+    c, n = np.unique(codes, return_counts=True)
+    best = c[n == n.max()]
+    return int(centre_code) if centre_code in best else int(best[0])
 
 
 def _roi_means(maps, space):
@@ -199,7 +249,9 @@ def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__,
                                 formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("--n", type=int, default=600)
-    p.add_argument("--jitter", default="0,5,10", help="RMS electrode jitter values, mm")
+    p.add_argument("--jitter", default="10", help="RMS electrode jitter values, mm (e.g. 0,5,10)")
+    p.add_argument("--ceiling", action="store_true",
+                   help="also measure the peak-in-true-area rate at every source (slow)")
     p.add_argument("--lambda2", type=float, default=1 / 9)
     p.add_argument("--seed", type=int, default=2024)
     p.add_argument("--out", help="write the rows as JSON here")
@@ -226,14 +278,81 @@ def main(argv=None) -> int:
             rows += bench_points(setup, full, n=args.n, snr=snr, rng=rng,
                                  jitter_label=jit)
         rows += bench_deviations(setup, full, n=args.n, rng=rng, jitter_label=jit)
-        _print(rows[-14:])
-    out = {"rows": rows, "lambda2": args.lambda2, "n": args.n,
-           "seconds": round(time.perf_counter() - t0, 1)}
+        _print([r for r in rows if r["jitter_mm"] == jit])
+    out = {"rows": rows, "lambda2": args.lambda2, "n": args.n, "seed": args.seed,
+           "mismatch_seed": 1, "headline": _headline(rows)}
+    if args.ceiling:
+        out["ceiling"] = ceiling(model, sp)
+        print(json.dumps(out["ceiling"], indent=1))
+    out["seconds"] = round(time.perf_counter() - t0, 1)
+    print(json.dumps(out["headline"], indent=1))
     if args.out:
         with open(args.out, "w", encoding="utf-8") as f:
             json.dump(out, f, indent=1)
     print(f"total {out['seconds']} s")
     return 0
+
+
+def _headline(rows):
+    """The issue's three numbers at 10 mm jitter (all truths, all areas eligible)."""
+    out = {}
+    for r in rows:
+        if r["jitter_mm"] != 10.0:
+            continue
+        if r["kind"] == "point" and r["ranking"] in ("peak_all", "match_all"):
+            key = f"point_{r['ranking']}_{'noise_free' if r['snr'] == 'noise-free' else 'snr3'}"
+            out[key] = {"first": r["first"], "top3": r["top3"], "n": r["n"]}
+        if r["kind"] == "deviation" and r["ranking"] in ("peak_all", "peak_all_excess",
+                                                         "peak_default_excess",
+                                                         "peak_all_excess_majority_truth"):
+            out[f"deviation_{r['ranking']}"] = {"first": r["first"], "top3": r["top3"],
+                                                "n": r["n"]}
+    out["targets"] = {"point_first": 0.65, "point_top3": 0.85, "deviation_first": 0.55}
+    return out
+
+
+def _peaks_all_sources(model, sp, seed):
+    """Peak source of the noise-free map of every cortical source (one jitter each)."""
+    from sourcelab.simulate.mismatch import mismatch_forward
+
+    mf = mismatch_forward(model, n_jitter=16, seed=seed)
+    real = 1 + np.arange(sp.n_src) % 16
+    peak = np.empty(sp.n_src, dtype=np.int64)
+    for r in range(1, 17):
+        cols = np.flatnonzero(real == r)
+        for c in np.array_split(cols, max(1, cols.size // 400)):
+            peak[c] = np.argmax(np.abs(sp.op.kernel @ mf.gain[r][:, sp.sources[c]]), axis=0)
+    return peak
+
+
+def ceiling(model, sp, *, radius_mm=6.0):
+    """Peak-in-true-area rate at every source, and the learned-bias bound (see docstring)."""
+    from scipy.spatial import cKDTree
+
+    codes = sp.codes
+    pos = sp.mesh.pos_mm
+    right = sp.vertices >= 10_242
+    ev = _peaks_all_sources(model, sp, 1)
+    tr = _peaks_all_sources(model, sp, 0)
+    err = np.linalg.norm(pos[ev] - pos, axis=1)
+    # learned rule: per vertex, the true areas of training sources whose peak fell within
+    # radius_mm (same hemisphere); vote
+    tree = cKDTree(pos[tr])
+    named = np.zeros(sp.n_src, dtype=np.int64)
+    for i, p in enumerate(ev):
+        near = np.asarray(tree.query_ball_point(pos[p], radius_mm), dtype=np.int64)
+        near = near[right[tr[near]] == right[p]] if near.size else near
+        if near.size == 0:
+            named[i] = codes[p]
+            continue
+        named[i] = np.bincount(codes[near]).argmax()
+    return {"n": int(sp.n_src), "jitter_mm": 10.0, "mismatch_seed_eval": 1,
+            "mismatch_seed_train": 0,
+            "peak_in_true_area": round(float(np.mean(codes[ev] == codes)), 3),
+            "peak_error_median_mm": round(float(np.median(err)), 1),
+            "peak_error_p90_mm": round(float(np.percentile(err, 90)), 1),
+            "learned_bias_rule_first": round(float(np.mean(named == codes)), 3),
+            "learned_bias_radius_mm": radius_mm}
 
 
 def _setup_jitter(model, sp, jit):

@@ -160,13 +160,14 @@ def test_area_probability_is_calibrated_on_held_out_simulations(head_model, kind
     # exceeds 0.07).
     from sourcelab.simulate import localisation as cal
     from sourcelab.trust.cortex import cortex_space
+    from sourcelab.trust.probability import predict_logistic, shipped_model
 
     setup = cal.make_setup(head_model, cortex_space(), seed=1, realisations=range(1, 17))
     rng = np.random.default_rng(4242)
     data = (cal.point_source_set(setup, 1200, rng) if kind == "power"
             else cal.deviation_set(setup, 800, rng))
-    coef = np.asarray(cal.shipped_model()["coefficients"][kind])
-    prob = cal.predict_logistic(coef, data["x"])
+    coef = np.asarray(shipped_model()["coefficients"][kind])
+    prob = predict_logistic(coef, data["x"])
     judged = [b for b in cal.reliability(prob, data["hit"]) if b["n"] >= 50]
     assert len(judged) >= 2
     for b in judged:
