@@ -36,7 +36,7 @@ MODULE_TIERS = {
     "test_coupling_norms": "property", "test_coupling_targets": "property",
     "test_norms_fit": "property", "test_norms_predictive": "property",
     "test_trust_bootstrap": "property", "test_trust_leakage": "property",
-    "test_trust_localise": "property",
+    "test_trust_localise": "property", "test_trust_naming": "property",
     "test_atlas_second_opinion": "reference", "test_atlases": "reference",
     "test_coupling_sensor": "reference", "test_coupling_source": "reference",
     "test_exports": "reference", "test_headmodel": "reference", "test_intake_realdata": "reference",
