@@ -35,9 +35,11 @@ LOBES = {
 }
 
 NETWORKS = {
-    "description": "Functional networks as published groupings of Brodmann areas (coarse: a whole "
-                   "area joins a network when the cited work places its core there). Per "
-                   "hemisphere and bilateral; networks overlap.",
+    "description": "Brodmann-area networks: published networks as groupings of whole Brodmann "
+                   "areas (coarse: an area joins a network when the cited work places its core "
+                   "there), each named as its source names it or by its anatomy. Per "
+                   "hemisphere and bilateral; networks overlap. For networks defined by resting "
+                   "connectivity use the yeo7 atlas (Yeo et al. 2011).",
     "citation": "See each network.",
     "groups": {
         "default-mode": {
@@ -78,17 +80,20 @@ NETWORKS = {
             "citation": "Striate 17 (V1), parastriate 18 (V2), peristriate 19 (V3+): Brodmann 1909 "
                         "- common practice.",
         },
-        "auditory-language": {
+        "perisylvian": {
             "areas": [22, 41, 42, 44, 45],
-            "citation": "Auditory cortex 41/42 and superior temporal 22 (incl. Wernicke's area), "
-                        "Broca's area 44/45: Hickok & Poeppel 2007, Nat Rev Neurosci 8:393-402 - "
-                        "from memory; common practice.",
+            "citation": "Cortex around the Sylvian fissure: transverse temporal 41/42, superior "
+                        "temporal 22, inferior frontal opercular and triangular 44/45 (Catani, "
+                        "Jones & ffytche 2005, Ann Neurol 57:8-16, 'perisylvian' networks; Hickok "
+                        "& Poeppel 2007, Nat Rev Neurosci 8:393-402) - from memory.",
         },
-        "limbic-affective": {
+        "temporo-amygdala-orbitofrontal": {
             "areas": [11, 25, 28, 34, 35, 36, 38],
             "citation": "Orbitofrontal 11, subgenual cingulate 25, entorhinal/parahippocampal "
-                        "28/34/35/36, temporal pole 38: Catani, Dell'Acqua & Thiebaut de Schotten "
-                        "2013, Neurosci Biobehav Rev 37:1724-1737 - from memory.",
+                        "28/34/35/36, temporal pole 38: the temporo-amygdala-orbitofrontal "
+                        "network of Catani, Dell'Acqua & Thiebaut de Schotten 2013, Neurosci "
+                        "Biobehav Rev 37:1724-1737, with the parahippocampal areas of its "
+                        "parahippocampal-retrosplenial network - from memory.",
         },
     },
 }

@@ -114,7 +114,7 @@ def test_written_tables_read_back_with_plain_pandas(result, tmp_path):
         assert list(side) == list(table.columns)
         assert all(side[c]["Description"] and side[c]["Description"] != c for c in side)
         assert set(side["measure"]["Levels"]) == set(table["measure"])
-        assert side["band"]["Levels"]["alpha"].startswith("8-12 Hz")
+        assert side["band"]["Levels"]["alpha"].startswith("8-13 Hz")  # IFCN alpha
         assert "unit" in side["value"]["Units"]
     assert json.loads((out / "pair_table.json").read_text())["distance_mm"]["Units"] == "mm"
 
