@@ -82,9 +82,6 @@ _ADDED_COLUMN_NOTES = {
     "z_hi": "z of value_hi (upper end of the z interval)",
     "robust": f"z and both ends of its interval fall on the same side of |z| = {Z_THRESHOLD:g}",
 }
-_COLUMN_UNITS = {"distance_mm": "mm", "z": "standard deviations of the norm",
-                 "z_lo": "standard deviations of the norm",
-                 "z_hi": "standard deviations of the norm"}
 
 
 def table_sidecar(table, notes: dict, *, band_edges: dict | None = None) -> dict:

@@ -224,7 +224,7 @@ def test_result_figures_keys(result, plain_result):
     assert set(no_z) == {"glass/alpha/relative", "topomap/relative", "leakage",
                          "coupling/lagcoh", "coupling/aec_orth"}  # no z: no pair head maps
     with pytest.raises(ValueError, match="bands"):
-        result_figures(result, bands=("gamma",))
+        result_figures(result, bands=("beta2",))  # not a default band
 
 
 def test_result_figures_in_worker_processes(result):

@@ -247,6 +247,10 @@ class _GroupTable:
                 self.sidecar = {**{c: {"Description": _IDENT_NOTES[c]} for c in ident},
                                 **{c: d for c, d in sidecar.items() if c in self._header}}
                 self.sidecar["age"]["Units"] = "years"
+                from .. import __version__
+
+                # marks the file as sourcelab's (a rerun may replace it)
+                self.sidecar["GeneratedBy"] = [{"Name": "sourcelab", "Version": __version__}]
             self._f.write("\t".join(self._header) + "\n")
         table = table.reindex(columns=self._header)
         table.to_csv(self._f, sep="\t", index=False, header=False, na_rep="",

@@ -392,11 +392,7 @@ def _parse_sidecar(path: Path) -> dict:
         raise InputError(f"no sidecar {side.name} beside the norms table (it holds the "
                          "pipeline fingerprint and condition; copy it with the table)", path=path)
     raw = read_bytes_bounded(side, max_bytes=NORMS_MAX_BYTES, what="norms sidecar")
-    try:
-        data = loads_json(raw.decode("utf-8"), max_depth=_HEADER_MAX_DEPTH + 2,
-                          what="norms sidecar")
-    except UnicodeDecodeError:
-        raise InputError("norms sidecar is not UTF-8 text", path=side) from None
+    data = loads_json(raw, where=side, max_depth=_HEADER_MAX_DEPTH + 2, what="norms sidecar")
     meta = data.get(FORMAT_NAME) if isinstance(data, dict) else None
     if not isinstance(meta, dict):
         raise InputError(f"not a sourcelab norms sidecar (no {FORMAT_NAME!r} object)", path=side)
