@@ -155,9 +155,6 @@ def test_planted_change_is_found_and_untouched_rows_show_none(sessions):
     untouched = np.abs(exp) < 0.1
     assert untouched.sum() > 0.5 * len(table)
     no_change = (table.loc[untouched, "verdict"] == "no change").mean()
-    _dbg = table.loc[untouched & (table["verdict"] != "no change")]
-    print("DEBUG", _dbg.groupby(["band", "measure", "atlas"]).size().to_string())
-    print("DEBUG total", table.loc[untouched].groupby(["band", "measure"]).size().to_string())
     assert no_change >= 0.95, no_change
     print(f"compare: planted row z change {row['change_z']:+.2f} "
           f"[{row['change_z_lo']:+.2f}, {row['change_z_hi']:+.2f}], RCI {row['rci']:.1f}; "
