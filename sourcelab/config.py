@@ -175,7 +175,8 @@ class AnalysisConfig:
     ----------
     bands : Bands | None
         None (the default): the IFCN bands of :func:`standard_bands` for this ``h_freq`` (gamma
-        capped by the low-pass) and ``sub_bands``.  Every band must lie inside the band-pass ``[l_freq, h_freq]`` and be at least one Welch
+        capped by the low-pass) and ``sub_bands``.  Every band must lie inside the band-pass
+        ``[l_freq, h_freq]`` and be at least one Welch
         bin (``1 / epoch_s`` Hz) wide; below the Nyquist frequency is checked per recording
         (:func:`check_sampling_rate`).
     sub_bands : bool

@@ -395,7 +395,8 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
     what = _measure_text(measure)
     from ..rois import atlas_title
 
-    fig.suptitle(f"{atlas_title(atlas)}: {what}" + (" · z against the norm" if has_z else " · values"),
+    fig.suptitle(f"{atlas_title(atlas)}: {what}"
+                 + (" · z against the norm" if has_z else " · values"),
                  fontsize=11, y=1 - 0.12 / h, va="top")
     notes = []
     if has_z:
