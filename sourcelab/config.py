@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 import re
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 from .checks import (check_number, check_option, check_path, check_text, check_type,
