@@ -572,10 +572,8 @@ def write_comparison(table: pd.DataFrame, out, *, targets=None, inputs=()) -> di
                "sessions": [p["label"] for p in table.attrs["per_session"]],
                "cautions": list(CAUTIONS)}
     with atomic_output_dir(Path(out), kind="compare", inputs=inputs) as tmp:
-        with open(tmp / "compare.tsv", "w", encoding="utf-8") as f:
-            for c in CAUTIONS:
-                f.write(f"# {c}\n")
-            table.to_csv(f, sep="\t", index=False, na_rep="", float_format="%.6g")
+        # a plain table (reads with pandas.read_csv(sep="\t")); the cautions are in compare.json
+        table.to_csv(tmp / "compare.tsv", sep="\t", index=False, na_rep="", float_format="%.6g")
         (tmp / "compare.png").write_bytes(png)
         (tmp / "compare.html").write_text(compare_page(table, figure_png=png), encoding="utf-8")
         (tmp / "compare.json").write_text(json.dumps(summary, indent=2), encoding="utf-8")

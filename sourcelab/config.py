@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 import re
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 from .checks import (check_number, check_option, check_path, check_text, check_type,
@@ -22,14 +22,63 @@ MAX_BANDS = 32
 METHODS = ("sLORETA", "eLORETA", "dSPM")
 ORIENTATIONS = ("fixed", "free")
 
-#: Default frequency bands in Hz, [low, high) (common practice in quantitative EEG).
-DEFAULT_BANDS: tuple[tuple[str, float, float], ...] = (
+#: Default frequency bands in Hz, [low, high): the fixed bands of the IFCN recommendation
+#: (Babiloni et al. 2020, "International Federation of Clinical Neurophysiology (IFCN) - EEG
+#: research workgroup: Recommendations on frequency and topographic analysis of resting state EEG
+#: rhythms. Part 1: Applications in clinical research studies", Clin Neurophysiol 131:285-307):
+#: delta < 4, theta 4-8, alpha 8-13, beta 13-30, gamma > 30 Hz; names written as the paper
+#: writes them (lower-case Greek-letter names).  Band edges from memory (the search tool found
+#: the paper's abstract, not its band table).  Delta starts at the 1-Hz lower edge of the
+#: broadband range (:data:`BROADBAND_HZ`); gamma ends at the analysis low-pass ``h_freq``
+#: (default 45 Hz), and is left out when ``h_freq`` is at or below 30 Hz.
+IFCN_BANDS: tuple[tuple[str, float, float], ...] = (
     ("delta", 1.0, 4.0),
     ("theta", 4.0, 8.0),
-    ("alpha", 8.0, 12.0),
-    ("beta", 12.0, 25.0),
-    ("highbeta", 25.0, 30.0),
+    ("alpha", 8.0, 13.0),
+    ("beta", 13.0, 30.0),
+    ("gamma", 30.0, 45.0),
 )
+#: The optional sub-bands of the same recommendation (``sub_bands = true`` in the configuration):
+#: alpha1 8-10.5, alpha2 10.5-13, beta1 13-20, beta2 20-30 Hz replace alpha and beta (from
+#: memory, as above).
+IFCN_SUB_BANDS: dict[str, tuple[tuple[str, float, float], ...]] = {
+    "alpha": (("alpha1", 8.0, 10.5), ("alpha2", 10.5, 13.0)),
+    "beta": (("beta1", 13.0, 20.0), ("beta2", 20.0, 30.0)),
+}
+#: Lower edge of gamma (Hz); gamma runs from here to the analysis low-pass.
+GAMMA_LOW_HZ = 30.0
+
+
+def standard_bands(*, h_freq: float = 45.0, sub_bands: bool = False
+                   ) -> tuple[tuple[str, float, float], ...]:
+    """The IFCN bands (Babiloni et al. 2020) for an analysis low-passed at ``h_freq``.
+
+    Parameters
+    ----------
+    h_freq : float
+        Analysis low-pass, Hz.  Gamma runs from 30 Hz to ``min(h_freq, 45)`` Hz, and is left
+        out when ``h_freq <= 30`` Hz (no gamma band without gamma-frequency data).
+    sub_bands : bool
+        Replace alpha and beta by alpha1/alpha2 and beta1/beta2.
+
+    Returns
+    -------
+    tuple of (name, low, high)
+    """
+    out = []
+    top = min(float(h_freq), IFCN_BANDS[-1][2])
+    for name, lo, hi in IFCN_BANDS:
+        if name == "gamma":
+            if top > GAMMA_LOW_HZ:
+                out.append((name, lo, top))
+            continue
+        out.extend(IFCN_SUB_BANDS[name] if sub_bands and name in IFCN_SUB_BANDS
+                   else ((name, lo, hi),))
+    return tuple(out)
+
+
+#: The default bands at the default low-pass (45 Hz).
+DEFAULT_BANDS: tuple[tuple[str, float, float], ...] = standard_bands()
 
 from .constants import SITES_1020  # noqa: E402,F401  (re-exported: historical location)
 
@@ -91,6 +140,12 @@ class Bands:
     def __len__(self) -> int:
         return len(self.names)
 
+    @classmethod
+    def standard(cls, *, h_freq: float = 45.0, sub_bands: bool = False) -> "Bands":
+        """The IFCN bands of :func:`standard_bands`."""
+        b = standard_bands(h_freq=h_freq, sub_bands=sub_bands)
+        return cls(tuple(n for n, _, _ in b), tuple((lo, hi) for _, lo, hi in b))
+
     def as_list(self) -> list[list]:
         return [[n, float(lo), float(hi)] for n, (lo, hi) in zip(self.names, self.edges)]
 
@@ -119,10 +174,15 @@ class AnalysisConfig:
 
     Attributes
     ----------
-    bands : Bands
-        Every band must lie inside the band-pass ``[l_freq, h_freq]`` and be at least one Welch
+    bands : Bands | None
+        None (the default): the IFCN bands of :func:`standard_bands` for this ``h_freq`` (gamma
+        capped by the low-pass) and ``sub_bands``.  Every band must lie inside the band-pass
+        ``[l_freq, h_freq]`` and be at least one Welch
         bin (``1 / epoch_s`` Hz) wide; below the Nyquist frequency is checked per recording
         (:func:`check_sampling_rate`).
+    sub_bands : bool
+        With the default bands: alpha1/alpha2 and beta1/beta2 in place of alpha and beta
+        (Babiloni et al. 2020).  Not allowed together with an explicit ``bands`` table.
     method : {"sLORETA", "eLORETA", "dSPM"}
         Inverse method.  sLORETA is computed by sourcelab itself; the others through MNE.
     orientation : {"fixed", "free"}
@@ -196,7 +256,8 @@ class AnalysisConfig:
         value.  In [0, 10).
     """
 
-    bands: Bands = field(default_factory=Bands)
+    bands: Bands | None = None
+    sub_bands: bool = False
     method: str = "sLORETA"
     orientation: str = "fixed"
     snr: float = 3.0
@@ -233,6 +294,9 @@ class AnalysisConfig:
         return 1.0 / self.snr**2
 
     def replace(self, **changes) -> "AnalysisConfig":
+        if "bands" not in changes and self.bands == Bands.standard(h_freq=self.h_freq,
+                                                                   sub_bands=self.sub_bands):
+            changes["bands"] = None  # default bands follow a changed h_freq / sub_bands
         return dataclasses.replace(self, **changes)
 
     def to_dict(self) -> dict:
@@ -269,21 +333,14 @@ _OPTIONS = {"rejection": ("auto", "fixed"), "ocular_correction": ("auto", "ica",
 
 def _validated_fields(cfg: AnalysisConfig) -> dict:
     """Check every field of ``cfg``; return the canonical values (floats as float, ...)."""
-    bands = cfg.bands
-    if isinstance(bands, dict):
-        bands = Bands.from_mapping(bands)
-    if not isinstance(bands, Bands):
-        raise InputError("bands: must be a table of name = [low, high] (Hz), got "
-                         f"{type(bands).__name__} {bands!r:.40}", field="bands")
-    out = {"bands": bands,
-           "method": check_option("method", cfg.method, METHODS),
+    out = {"method": check_option("method", cfg.method, METHODS),
            "orientation": check_option("orientation", cfg.orientation, ORIENTATIONS)}
     for name, (kind, low, high, low_open, high_open) in _NUMBERS.items():
         out[name] = check_number(name, getattr(cfg, name), kind=kind, low=low, high=high,
                                  low_open=low_open, high_open=high_open)
     for name, allowed in _OPTIONS.items():
         out[name] = check_option(name, getattr(cfg, name), allowed)
-    for name in ("exclude_procedures", "coupling"):
+    for name in ("exclude_procedures", "coupling", "sub_bands"):
         out[name] = check_type(name, getattr(cfg, name), bool, type_name="true or false")
     atl = cfg.coupling_atlases
     if isinstance(atl, str) or not isinstance(atl, (list, tuple)) or not all(
@@ -313,6 +370,18 @@ def _validated_fields(cfg: AnalysisConfig) -> dict:
     if not out["flat_uv"] < out["reject_uv"]:
         raise InputError(f"flat_uv: must be below reject_uv ({out['reject_uv']:g} µV), got "
                          f"{out['flat_uv']:g}", field="flat_uv")
+    bands = cfg.bands
+    if bands is None:
+        bands = Bands.standard(h_freq=out["h_freq"], sub_bands=out["sub_bands"])
+    elif out["sub_bands"]:
+        raise InputError("sub_bands: applies to the default (IFCN) bands only; with a [bands] "
+                         "table list the sub-bands there", field="sub_bands")
+    if isinstance(bands, dict):
+        bands = Bands.from_mapping(bands)
+    if not isinstance(bands, Bands):
+        raise InputError("bands: must be a table of name = [low, high] (Hz), got "
+                         f"{type(bands).__name__} {bands!r:.40}", field="bands")
+    out["bands"] = bands
     resolution = 1.0 / out["epoch_s"]
     for name, (lo, hi) in zip(bands.names, bands.edges):
         if lo < out["l_freq"] or hi > out["h_freq"]:

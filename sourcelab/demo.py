@@ -163,7 +163,8 @@ def demo_result(*, config=None, progress: bool | None = False):
                    condition=DEMO_CONDITION, progress=progress)
 
 
-def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0) -> Path:
+def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0,
+                     progress: bool | None = False) -> Path:
     """Simulate the invented cohort, analyse every member, and write norms.
 
     Beside ``out``: the per-source norms (``<stem>_sources.npz``, same fingerprint) and the
@@ -173,7 +174,12 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0)
     coupling measures are biased upwards by about 1/n_epochs, so norms from shorter recordings
     would make the participant's coupling look low (measured with 2-minute norms: mean z of
     lagged coherence, lagged phase synchronisation and wPLI about -1.1).
+
+    ``progress``: a bar over the simulated participants (each simulated and analysed) on
+    standard error (None: only when it is a terminal).
     """
+    from tqdm import tqdm
+
     from .analysis import analyze, fingerprint_for
     from .cohort import fit_cohort, write_cohort_norms
     from .config import AnalysisConfig
@@ -183,7 +189,10 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0)
     # intervals do not change the values the norms need
     config = AnalysisConfig(n_boot=0, coupling_n_boot=0)
     entries, maps, epochs = [], [], []
-    for pid, age, raw in cohort(n, duration_s=duration_s):
+    bar = tqdm(cohort(n, duration_s=duration_s), total=n, unit="participant",
+               desc="simulating and analysing the invented cohort", leave=False,
+               disable=None if progress is None else not progress)
+    for pid, age, raw in bar:
         try:
             res = analyze(raw, config=config)
         except InputError as exc:  # e.g. too little clean data: left out, as a real lab would
@@ -207,9 +216,9 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0)
     if Path(out).resolve().parent == DATA_DIR.resolve():  # the shipped files: record hashes
         from .provenance import sha256_file
 
-        beside = [source_norms_path(out)] + [Path(out).with_name(Path(out).stem + suffix)
-                                             for suffix in ("_calibration.tsv",
-                                                            "_calibration.png")]
+        beside = [source_norms_path(out), Path(out).with_suffix(".json")] + [
+            Path(out).with_name(Path(out).stem + suffix)
+            for suffix in ("_calibration.tsv", "_calibration.png")]
         update_manifest({Path(out).name: written.sha256,
                          **{p.name: sha256_file(p) for p in beside}})
     return Path(out)

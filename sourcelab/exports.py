@@ -38,6 +38,120 @@ HEMI_BIDS = {"left": "L", "right": "R"}
 VOLUME_SPACE = "MNI152NLin2009aSym"
 
 
+#: Descriptions of the band-power table columns (``roi_table``, ``sensor_table``) for their JSON
+#: column sidecars (BIDS tabular-file convention: ``{"column": {"Description", "Units",
+#: "Levels"}}``).
+POWER_COLUMN_NOTES = {
+    "atlas": "atlas of the region (brodmann, lobes, networks: Brodmann-area networks, yeo7: Yeo "
+             "2011 7 networks, or your own ROI set)",
+    "roi": "region of interest",
+    "hemisphere": "left, right or both",
+    "channel": "10-20 electrode site",
+    "band": "frequency band",
+    "measure": "absolute or relative band power",
+    "value": "band power of the region (mean over its sources) or electrode",
+    "n_vertices": "cortical sources in the region",
+    "small": "the region has fewer sources than sourcelab's minimum for a stable mean",
+    "resolvable": "the template head model can tell this area from its neighbours "
+                  "(see the leakage table)",
+    "z": "z-score against the norms (empty without norms)",
+    "z_equivalent": "z of the norm's predictive distribution (empty without norms)",
+    "p": "two-sided p-value of z",
+    "fdr_q": "Benjamini-Hochberg adjusted p-value over every z of this table",
+    "fdr": "fdr_q at or below the false-discovery level",
+    "norm_n": "reference participants behind the norm",
+    "no_norm": "the norms hold no row for this quantity (z left empty)",
+    "extrapolated": "the age lies outside the norm's age range (nearest covered age used)",
+    "condition_mismatch": "the norms' recording condition differs from this recording's",
+    "value_lo": "lower end of the bootstrap interval of value",
+    "value_hi": "upper end of the bootstrap interval of value",
+    "z_lo": "z of value_lo (lower end of the z interval)",
+    "z_hi": "z of value_hi (upper end of the z interval)",
+    "robust": "z and both ends of its interval fall on the same side of the deviation threshold",
+}
+_Z_UNITS = "standard deviations of the norm"
+#: Units of columns other than ``value`` (whose unit follows the measure).
+_FIXED_UNITS = {"z": _Z_UNITS, "z_lo": _Z_UNITS, "z_hi": _Z_UNITS, "z_equivalent": _Z_UNITS,
+                "distance_mm": "mm", "n_vertices": "sources"}
+#: Columns whose unit is the unit of ``value`` (the row's measure).
+_VALUE_LIKE = ("value", "value_lo", "value_hi", "leakage_expected", "leakage_q95")
+VALUE_UNITS_NOTE = "unit of the row's measure (see the Levels of the column 'measure')"
+
+
+def units_by_measure(table) -> dict | None:
+    """Measure -> unit when the table's ``unit`` column follows from ``measure``, else None."""
+    if "unit" not in table.columns or "measure" not in table.columns:
+        return None
+    pairs = table[["measure", "unit"]].drop_duplicates()
+    if pairs["measure"].duplicated().any():
+        return None
+    return {str(m): str(u) for m, u in zip(pairs["measure"], pairs["unit"])}
+
+
+def file_table(table):
+    """The table as written to a TSV: without the ``unit`` column when the unit follows from the
+    measure (it is given once, in the column sidecar, instead of on every row)."""
+    return table.drop(columns="unit") if units_by_measure(table) is not None else table
+
+
+def column_sidecar(table, notes: dict | None = None, *, band_edges: dict | None = None,
+                   measure_descriptions: dict | None = None) -> dict:
+    """BIDS-style column descriptions of a tidy table as written by :func:`file_table`.
+
+    Parameters
+    ----------
+    table : DataFrame
+        The in-memory table (with its ``unit`` column, if any).
+    notes : dict of str -> str, optional
+        Column descriptions (the table's own notes; :data:`POWER_COLUMN_NOTES` fill the rest).
+    band_edges : dict of str -> (float, float), optional
+        Band name -> edges in Hz, for the ``band`` column's levels.
+    measure_descriptions : dict of str -> str, optional
+        Measure -> words, for the ``measure`` column's levels.
+
+    Returns
+    -------
+    dict
+        One entry per column of the written table, in order: ``Description``, and ``Units`` /
+        ``Levels`` where they apply.
+    """
+    notes = dict(notes or {})
+    units = units_by_measure(table)
+    written = file_table(table)
+    out = {}
+    for col in written.columns:
+        d = {"Description": notes.get(col) or POWER_COLUMN_NOTES.get(col)
+             or col.replace("_", " ")}
+        if col in _FIXED_UNITS:
+            d["Units"] = _FIXED_UNITS[col]
+        elif col in _VALUE_LIKE:
+            d["Units"] = VALUE_UNITS_NOTE if units is not None else \
+                "given per row in the column 'unit'"
+        if col == "measure":
+            levels = {}
+            for m in dict.fromkeys(table["measure"]):
+                words = (measure_descriptions or {}).get(m, f"{m} band power")
+                levels[str(m)] = f"{words} ({units[m]})" if units else words
+            d["Levels"] = levels
+        elif col == "band" and band_edges:
+            d["Levels"] = {b: f"{lo:g}-{hi:g} Hz (low edge included, high edge excluded)"
+                           for b, (lo, hi) in band_edges.items()}
+        out[col] = d
+    return out
+
+
+def write_table(table, path, sidecar: dict, *, na_rep: str = "",
+                float_format: str | None = "%.6g") -> Path:
+    """Write ``table`` as a plain TSV (header row first: reads with ``pandas.read_csv(path,
+    sep="\t")``) and its column sidecar as ``<stem>.json`` beside it."""
+    path = Path(path)
+    file_table(table).to_csv(path, sep="\t", index=False, na_rep=na_rep,
+                             float_format=float_format)
+    path.with_suffix(".json").write_text(json.dumps(sidecar, indent=2, ensure_ascii=False)
+                                         + "\n", encoding="utf-8")
+    return path
+
+
 @contextlib.contextmanager
 def _staged(out_dir: Path):
     """Yield a temporary folder inside ``out_dir``; on success its files are renamed into place."""
@@ -208,10 +322,15 @@ def export_bids_derivatives(result, root, participant_id: str, *, resolution: in
 
         <root>/derivatives/sourcelab/dataset_description.json
         <root>/derivatives/sourcelab/sub-<label>/eeg/
-            sub-<label>_space-fsaverage5_hemi-<L|R>_desc-<measure>_power.func.gii (+ .json)
-            sub-<label>_space-MNI152NLin2009aSym_res-<r>mm_desc-<measure><band>_power.nii.gz
-            sub-<label>_desc-roi_power.tsv, sub-<label>_desc-sensor_power.tsv
+            sub-<label>_hemi-<L|R>_space-fsaverage_den-10k_desc-<measure>_power.func.gii (+ .json)
+            sub-<label>_space-MNI152NLin2009aSym_res-<r>_desc-<measure><band>_power.nii.gz (+ .json)
+            sub-<label>_desc-roi_power.tsv (+ .json), sub-<label>_desc-sensor_power.tsv (+ .json)
             sub-<label>_desc-sourcelab_provenance.json
+
+    Names follow the BIDS derivatives conventions: fsaverage5 is the ``fsaverage`` space at the
+    ``den-10k`` density (10,242 vertices a hemisphere); ``res-<r>`` is a label whose meaning
+    (``<r>`` mm voxels) the image sidecar states; every table has a sidecar describing its
+    columns and units.
 
     Parameters
     ----------
@@ -254,20 +373,28 @@ def export_bids_derivatives(result, root, participant_id: str, *, resolution: in
             maps = _maps(result, measure)
             surf = load_head_model().to_surface(maps)
             for h, (hemi, abbr) in enumerate(HEMI_BIDS.items()):
-                stem = f"{base}_space-fsaverage5_hemi-{abbr}_desc-{measure}_power"
+                stem = f"{base}_hemi-{abbr}_space-fsaverage_den-10k_desc-{measure}_power"
                 nib.save(_gifti(surf[:, h * N_LEFT:(h + 1) * N_LEFT], bands),
                          eeg / f"{stem}.func.gii")
                 (eeg / f"{stem}.json").write_text(json.dumps(
                     {"Bands": result.bands.as_list(), "Measure": measure,
-                     "Units": _unit(measure)}, indent=2) + "\n", encoding="utf-8")
+                     "Units": _unit(measure), "Density": "10k: 10,242 vertices a hemisphere "
+                     "(fsaverage5)"}, indent=2) + "\n", encoding="utf-8")
             for b, band in enumerate(bands):
-                name = (f"{base}_space-{VOLUME_SPACE}_res-{resolution}mm_desc-{measure}"
-                        f"{_bids_band(band)}_power.nii.gz")
-                nib.save(sources_to_volume(maps[b], resolution=resolution), eeg / name)
-        result.roi_table.to_csv(eeg / f"{base}_desc-roi_power.tsv", sep="\t", index=False,
-                                na_rep="n/a")
-        result.sensor_table.to_csv(eeg / f"{base}_desc-sensor_power.tsv", sep="\t", index=False,
-                                   na_rep="n/a")
+                stem = (f"{base}_space-{VOLUME_SPACE}_res-{resolution}_desc-{measure}"
+                        f"{_bids_band(band)}_power")
+                nib.save(sources_to_volume(maps[b], resolution=resolution),
+                         eeg / f"{stem}.nii.gz")
+                lo, hi = result.bands.edges[b]
+                (eeg / f"{stem}.json").write_text(json.dumps(
+                    {"Band": [band, lo, hi], "Measure": measure, "Units": _unit(measure),
+                     "Resolution": f"{resolution} mm isotropic voxels"}, indent=2) + "\n",
+                    encoding="utf-8")
+        edges = dict(zip(result.bands.names, result.bands.edges))
+        for kind, table in (("roi", result.roi_table), ("sensor", result.sensor_table)):
+            write_table(table, eeg / f"{base}_desc-{kind}_power.tsv",
+                        column_sidecar(table, band_edges=edges), na_rep="n/a",
+                        float_format=None)
         prov = {"fingerprint": result.fingerprint.to_dict(), "config": result.config.to_dict(),
                 "recording": {k: v for k, v in result.recording.to_dict().items()
                               if isinstance(v, (str, int, float, bool))},

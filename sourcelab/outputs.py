@@ -82,71 +82,49 @@ _ADDED_COLUMN_NOTES = {
     "z_hi": "z of value_hi (upper end of the z interval)",
     "robust": f"z and both ends of its interval fall on the same side of |z| = {Z_THRESHOLD:g}",
 }
-_COLUMN_UNITS = {"distance_mm": "mm", "z": "standard deviations of the norm",
-                 "z_lo": "standard deviations of the norm",
-                 "z_hi": "standard deviations of the norm"}
 
 
 def table_sidecar(table, notes: dict, *, band_edges: dict | None = None) -> dict:
-    """BIDS-style column descriptions of a tidy table (``Description``, ``Units``, ``Levels``).
+    """BIDS-style column descriptions of a coupling table as written (see
+    :func:`sourcelab.exports.column_sidecar`): ``Description``, ``Units``, ``Levels``; the unit
+    of ``value`` is given once per measure (``measure`` levels), not on every row."""
+    from .coupling import MEASURE_DESCRIPTIONS
+    from .exports import column_sidecar
 
-    Parameters
-    ----------
-    table : DataFrame
-    notes : dict of str -> str
-        Column descriptions (the table's own notes).
-    band_edges : dict of str -> (float, float), optional
-        Band name -> edges in Hz, for the ``band`` column's levels.
+    return column_sidecar(table, {**_ADDED_COLUMN_NOTES, **notes}, band_edges=band_edges,
+                          measure_descriptions=MEASURE_DESCRIPTIONS)
 
-    Returns
-    -------
-    dict
-        One entry per column of ``table``, in order.  ``value`` holds rows of several units: its
-        ``Units`` points to the ``unit`` column.
-    """
-    from .coupling import MEASURE_DESCRIPTIONS, MEASURE_UNITS
 
-    out = {}
-    for col in table.columns:
-        d = {"Description": notes.get(col) or _ADDED_COLUMN_NOTES.get(col, col)}
-        if col in _COLUMN_UNITS:
-            d["Units"] = _COLUMN_UNITS[col]
-        elif col in ("value", "value_lo", "value_hi", "leakage_expected", "leakage_q95"):
-            d["Units"] = "given per row in the column 'unit'"
-        if col == "measure":
-            d["Levels"] = {m: f"{MEASURE_DESCRIPTIONS[m]} ({MEASURE_UNITS[m]})"
-                           for m in dict.fromkeys(table["measure"]) if m in MEASURE_DESCRIPTIONS}
-        elif col == "band" and band_edges:
-            d["Levels"] = {b: f"{lo:g}-{hi:g} Hz (low edge included, high edge excluded)"
-                           for b, (lo, hi) in band_edges.items()}
-        out[col] = d
-    return out
+#: Measure -> words, for the ``measure`` levels of the band-power table sidecars.
+_POWER_MEASURES = {"absolute": "absolute band power",
+                   "relative": "relative band power"}
 
 
 def _write_coupling_tables(result, folder: Path) -> None:
     """``pair_table.tsv`` and ``coupling_table.tsv`` with their JSON column sidecars."""
     from .coupling import EDGE_COLUMN_NOTES, PAIR_COLUMN_NOTES
+    from .exports import write_table
 
     edges = dict(zip(result.bands.names, result.bands.edges))
     for name, table, notes in (("pair_table", result.pair_table, PAIR_COLUMN_NOTES),
                                ("coupling_table", result.coupling_table, EDGE_COLUMN_NOTES)):
         if table is None:
             continue
-        table.to_csv(folder / f"{name}.tsv", sep="\t", index=False, na_rep="",
-                     float_format="%.6g")
-        with open(folder / f"{name}.json", "w", encoding="utf-8") as f:
-            json.dump(table_sidecar(table, notes, band_edges=edges), f, indent=2,
-                      ensure_ascii=False)
+        write_table(table, folder / f"{name}.tsv",
+                    table_sidecar(table, notes, band_edges=edges))
 
 
 def write_tables(result, folder: Path, *, command=None) -> None:
     """``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json``, ``epochs.npz`` (when the
     result keeps its per-epoch cross-spectra) and, when coupling was computed, ``pair_table.tsv``
-    / ``coupling_table.tsv`` with ``.json`` column sidecars, into ``folder``."""
-    result.roi_table.to_csv(folder / "roi_table.tsv", sep="\t", index=False, na_rep="",
-                            float_format="%.6g")
-    result.sensor_table.to_csv(folder / "sensor_table.tsv", sep="\t", index=False, na_rep="",
-                               float_format="%.6g")
+    / ``coupling_table.tsv``, each with a ``.json`` column sidecar, into ``folder``."""
+    from .exports import column_sidecar, write_table
+
+    edges = dict(zip(result.bands.names, result.bands.edges))
+    for name, table in (("roi_table", result.roi_table), ("sensor_table", result.sensor_table)):
+        write_table(table, folder / f"{name}.tsv",
+                    column_sidecar(table, _ADDED_COLUMN_NOTES, band_edges=edges,
+                                   measure_descriptions=_POWER_MEASURES))
     _write_coupling_tables(result, folder)
     with open(folder / "provenance.json", "w", encoding="utf-8") as f:
         json.dump(_finite(provenance(result, command=command)), f, indent=2,
@@ -162,7 +140,7 @@ def write_tables(result, folder: Path, *, command=None) -> None:
 
 
 def write_analysis(result, out: str | Path, *, figures: bool = True, report: bool = True,
-                   exports: bool = True, command=None) -> Path:
+                   exports: bool = True, command=None, progress: bool | None = False) -> Path:
     """Write everything for one analysis into ``out`` (replaced atomically).
 
     See :func:`write_analysis_into` for the files.
@@ -170,12 +148,13 @@ def write_analysis(result, out: str | Path, *, figures: bool = True, report: boo
     out = Path(out)
     with atomic_output_dir(out) as tmp:
         write_analysis_into(result, tmp, figures=figures, report=report, exports=exports,
-                            command=command)
+                            command=command, progress=progress)
     return out
 
 
 def write_analysis_into(result, folder: Path, *, figures: bool = True, report: bool = True,
-                        exports: bool = True, command=None) -> dict:
+                        exports: bool = True, command=None,
+                        progress: bool | None = False) -> dict:
     """Write the analysis into an existing (temporary) folder; nothing is computed here.
 
     Always: ``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json``, ``epochs.npz``
@@ -185,11 +164,23 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
     Optional: ``figures/*.png``, ``report.html`` + ``report.pdf``, ``maps/`` (MNE SourceEstimate,
     GIfTI per hemisphere, NIfTI in MNI space; power and, with per-source norms, z).
 
+    ``progress``: stage progress on standard error (None: only when it is a terminal).
+
     Returns
     -------
     dict
         The figures written (name -> PNG bytes).
     """
+    from .progress import Stages
+
+    stages = ["tables"] + ["figures"] * figures + ["report"] * report + ["maps"] * exports
+    with Stages(stages, desc="writing", enabled=progress) as st:
+        st.step("tables")
+        return _write_into(result, folder, figures=figures, report=report, exports=exports,
+                           command=command, step=st.step)
+
+
+def _write_into(result, folder: Path, *, figures, report, exports, command, step) -> dict:
     write_tables(result, folder, command=command)
     if result.leakage is not None:
         result.leakage.to_tsv(folder / "leakage_brodmann.tsv")
@@ -202,17 +193,20 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
                                     float_format="%.4g")
     pngs: dict = {}
     if figures:
+        step("figures")
         fig_dir = folder / "figures"
         fig_dir.mkdir()
         pngs = result.figures(as_png=True)  # each figure closed as soon as it is rendered
         for name, png in pngs.items():
             (fig_dir / (name.replace("/", "_") + ".png")).write_bytes(png)
     if report:
+        step("report")
         from .report import write_pdf, write_report
 
         write_report(result, folder / "report.html", figures=pngs)
         write_pdf(result, folder / "report.pdf", figures=pngs)
     if exports:
+        step("maps")
         from .exports import export_gifti, export_nifti, export_stc, map_measures
 
         maps = folder / "maps"

@@ -1071,7 +1071,12 @@ def _pid_alive(pid: int) -> bool:
 PNG_METADATA = {"Software": f"sourcelab {__version__}"}
 
 _FILE_KINDS = ("png", "norms", "target", "candidates", "leakage", "calibration", "stream-log",
-               "source-norms")
+               "source-norms", "sidecar")
+#: First columns of a norms table (format 3) and of a calibration report.
+_NORMS_HEAD = "kind\tatlas\tname\themisphere\tband\tmeasure\tage_min\tage_max\tmodel\t"
+_CALIBRATION_HEAD = "kind\tatlas\tname\themisphere\tband\tmeasure\tage_min\tage_max\tn\t"
+#: The JSON sidecars sourcelab writes beside its own tables (norms, candidates).
+_SIDECAR_RE = re.compile(r'"GeneratedBy"\s*:\s*\[\s*\{\s*"Name"\s*:\s*"sourcelab"')
 
 
 def _png_software(head: bytes) -> str | None:
@@ -1136,18 +1141,22 @@ def recognise_output_file(path: str | Path, kind: str) -> bool:
     text = head.decode("utf-8", "replace")
     first = text.split("\n", 1)[0]
     if kind == "norms":
-        return first.startswith("# sourcelab-norms")
+        return first.startswith("# sourcelab-norms") or first.startswith(_NORMS_HEAD)
+    if kind == "sidecar":
+        return text.lstrip().startswith("{") and _SIDECAR_RE.search(text) is not None
     if kind == "target":
         return re.search(r'"schema"\s*:\s*"sourcelab-target/', text[:4096]) is not None
     if kind == "candidates":
         from .cautions import CAUTIONS
 
-        return first == f"# {CAUTIONS[0]}" and re.search(r"^rank\t", text, re.M) is not None
+        return (first == f"# {CAUTIONS[0]}" and re.search(r"^rank\t", text, re.M) is not None
+                or (first.startswith("rank\t")
+                    and recognise_output_file(Path(path).with_suffix(".json"), "sidecar")))
     if kind == "leakage":
         return first.startswith("atlas\ttarget_roi\ttarget_hemisphere\tsource_roi")
     if kind == "stream-log":
         return first.startswith("lsl_time\tpower\t")
-    return first.startswith("kind\tatlas\tname\themisphere\tband\tmeasure\tage_min\tage_max")
+    return first.startswith(_CALIBRATION_HEAD)
 
 
 _OTHER_OWN_FILES = (

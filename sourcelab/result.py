@@ -341,7 +341,8 @@ class AnalysisResult:
         return result_figures(self, **options)
 
     def write(self, out: str | Path, *, figures: bool = True, report: bool = True,
-              maps: bool = True, command: list[str] | None = None) -> Path:
+              maps: bool = True, command: list[str] | None = None,
+              progress: bool | None = False) -> Path:
         """Write the output folder (tables, provenance, figures, report, maps), atomically.
 
         Parameters
@@ -352,6 +353,8 @@ class AnalysisResult:
             Which of the slower outputs to write.
         command : list of str, optional
             The command line to record in ``provenance.json``.
+        progress : bool | None
+            Stage progress on standard error (None: only when it is a terminal).
 
         Returns
         -------
@@ -361,7 +364,7 @@ class AnalysisResult:
         from .outputs import write_analysis
 
         return write_analysis(self, out, figures=figures, report=report, exports=maps,
-                              command=command)
+                              command=command, progress=progress)
 
     def summary(self) -> str:
         """A few lines for a terminal or a log: data kept, deviations, warnings, cautions.

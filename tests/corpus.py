@@ -135,6 +135,7 @@ def build_base(root: Path, main) -> Base:
     assert main(["targets", "replay", str(target), str(edf), "--out", str(replay_prev)]) == 0
     norms = root / "norms.tsv"
     shutil.copy(demo.demo_norms_path(), norms)
+    shutil.copy(demo.demo_norms_path().with_suffix(".json"), norms.with_suffix(".json"))
     return Base(root=root, edf=edf, prev=prev, replay_prev=replay_prev, target=target,
                 norms=norms, raw=raw, config=cfg)
 
@@ -1028,13 +1029,44 @@ def _(d, base):
 
 # --- norms files ----------------------------------------------------------------------------
 
-def _norms_case(cid: str, mutate, names=("norms.tsv",)):
+def _norms_case(cid: str, mutate, names=("norms.tsv",), v3: bool = False):
+    # mutations of the format-2 text (commented header; still read) and, with v3, of the
+    # format-3 table beside an intact sidecar
     @case(cid)
     def _(d, base):
-        text = base.norms.read_text(encoding="utf-8")
+        from sourcelab.norms.io import _format_legacy, read_norms
+
+        text = _format_legacy(read_norms(base.norms))
         out = mutate(text)
         (d / "norms.tsv").write_bytes(out if isinstance(out, bytes) else out.encode())
         return Case(cid, ["norms", "check", "norms.tsv"], names, out=None)
+
+    if v3:
+        @case(cid + "-v3")
+        def _(d, base):
+            out = mutate(base.norms.read_text(encoding="utf-8"))
+            (d / "norms.tsv").write_bytes(out if isinstance(out, bytes) else out.encode())
+            shutil.copy(base.norms.with_suffix(".json"), d / "norms.json")
+            return Case(cid + "-v3", ["norms", "check", "norms.tsv"], names, out=None)
+
+
+def _sidecar_case(cid: str, mutate, names=("norms.tsv", "norms.json")):
+    # the format-3 table intact, its JSON sidecar broken (mutate: text -> text, None: absent)
+    @case(cid)
+    def _(d, base):
+        shutil.copy(base.norms, d / "norms.tsv")
+        out = mutate(base.norms.with_suffix(".json").read_text(encoding="utf-8"))
+        if out is not None:
+            (d / "norms.json").write_text(out, encoding="utf-8")
+        return Case(cid, ["norms", "check", "norms.tsv"], names, out=None)
+
+
+_sidecar_case("norms-sidecar-missing", lambda t: None)
+_sidecar_case("norms-sidecar-not-json", lambda t: t[: len(t) // 2])
+_sidecar_case("norms-sidecar-nested-deep", lambda t: "[" * 100_000 + "]" * 100_000)
+_sidecar_case("norms-sidecar-no-fingerprint", lambda t: t.replace('"fingerprint"', '"fp"'))
+_sidecar_case("norms-sidecar-version-9", lambda t: t.replace('"FormatVersion": 3',
+                                                             '"FormatVersion": 9'))
 
 
 def _header(text: str, key: str, new: str) -> str:
@@ -1059,17 +1091,17 @@ _norms_case("norms-fingerprint-nested-deep",
 _norms_case("norms-cohort-nested-deep",
             lambda t: _header(t, "cohort", '{"a": ' * 100_000 + "1" + "}" * 100_000))
 _norms_case("norms-cohort-nan", lambda t: _header(t, "cohort", '{"n": NaN}'))
-_norms_case("norms-sd-text", lambda t: _cell(t, "sd", "abc"))
-_norms_case("norms-sd-nan", lambda t: _cell(t, "sd", "nan"))
-_norms_case("norms-sd-negative", lambda t: _cell(t, "sd", "-0.1"))
-_norms_case("norms-b0-inf", lambda t: _cell(t, "b0", "inf"))
-_norms_case("norms-degree-fraction", lambda t: _cell(t, "degree", "1.5"))
+_norms_case("norms-sd-text", lambda t: _cell(t, "sd", "abc"), v3=True)
+_norms_case("norms-sd-nan", lambda t: _cell(t, "sd", "nan"), v3=True)
+_norms_case("norms-sd-negative", lambda t: _cell(t, "sd", "-0.1"), v3=True)
+_norms_case("norms-b0-inf", lambda t: _cell(t, "b0", "inf"), v3=True)
+_norms_case("norms-degree-fraction", lambda t: _cell(t, "degree", "1.5"), v3=True)
 _norms_case("norms-empty", lambda t: "")
 _norms_case("norms-binary", lambda t: bytes(range(256)) * 10)
 _norms_case("norms-first-line-wrong", lambda t: "# other-format 1\n" + t)
 _norms_case("norms-header-only", lambda t: "\n".join(x for x in t.split("\n")
                                                     if x.startswith("#")))
-_norms_case("norms-ragged-row", lambda t: _cell(t, "sd", "0.1\textra"))
+_norms_case("norms-ragged-row", lambda t: _cell(t, "sd", "0.1\textra"), v3=True)
 
 
 @case("norms-is-folder")

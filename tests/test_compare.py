@@ -209,7 +209,8 @@ def test_cli_figure_and_report_section(sessions, tmp_path, capsys):
     # provenance.json: the marker every sourcelab output folder carries (listing its files)
     assert {p.name for p in out.iterdir()} == {"compare.tsv", "compare.png", "compare.html",
                                               "compare.json", "provenance.json"}
-    back = pd.read_csv(out / "compare.tsv", sep="\t", comment="#")
+    assert not (out / "compare.tsv").read_text(encoding="utf-8").startswith("#")
+    back = pd.read_csv(out / "compare.tsv", sep="\t")  # plain read (issue 16)
     assert len(back) == len(t)
     assert "changed" in capsys.readouterr().out
     rc = main(["compare", str(sessions["A"]), "--out", str(tmp_path / "x")])

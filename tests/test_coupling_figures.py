@@ -78,16 +78,18 @@ def test_pair_head_map_asymmetry_all_pairs_and_errors(tables):
         pair_head_map(ptz, band="alpha", measure="msc",
                       scale=dataclasses.replace(z_scale(), vmin=-2.0))
     with pytest.raises(ValueError, match="no rows"):
-        pair_head_map(ptz, band="gamma", measure="msc")
+        pair_head_map(ptz, band="beta2", measure="msc")  # not a default band
 
 
 def test_coupling_matrix_z_panels(tables):
     ctz = tables[1]
-    bands = ["delta", "theta", "alpha", "beta", "highbeta"]
+    bands = ["delta", "theta", "alpha", "beta", "gamma"]
     fig = coupling_matrix(ctz, measure="lagcoh", bands=bands)
     panels = [a for a in fig.axes if a.images]
     assert len(panels) == 5
-    sel = ctz[(ctz.atlas == "networks") & (ctz.measure == "lagcoh")]
+    # the default network atlas is Yeo et al. 2011 (sourcelab.rois.DEFAULT_NETWORK_ATLAS)
+    assert fig._suptitle.get_text().startswith("Yeo 2011 7 networks: ")
+    sel = ctz[(ctz.atlas == "yeo7") & (ctz.measure == "lagcoh")]
     n = len(set(zip(sel.roi_a, sel.hemisphere_a)) | set(zip(sel.roi_b, sel.hemisphere_b)))
     for ax, band in zip(panels, bands):
         m = np.ma.filled(ax.images[0].get_array(), np.nan)

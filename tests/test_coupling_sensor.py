@@ -17,6 +17,8 @@ from coupling_sim import coupled_recording, delayed_narrowband, epochs_of  # noq
 
 FS = 256.0
 N = 512
+#: Lowest and highest Welch bin inside the default bands ([low, high) edges, bins FS / N apart).
+FIRST_BIN, LAST_BIN = Bands().edges[0][0], Bands().edges[-1][1] - FS / N
 
 
 @pytest.fixture(scope="module")
@@ -43,7 +45,7 @@ def test_bin_cross_spectra_sum_to_band_power_and_match_scipy(rng):
     idx = band_bin_indices(freqs, bands)
     sums = np.stack([csd[:, i].real.sum(axis=1) for i in idx], axis=1)
     np.testing.assert_allclose(sums, ref, rtol=1e-12, atol=1e-15)
-    assert freqs[0] == 1.0 and freqs[-1] == 29.5          # only bins inside the bands
+    assert freqs[0] == FIRST_BIN and freqs[-1] == LAST_BIN  # only bins inside the bands
     f, pxy = scipy.signal.csd(x[0, 0], x[0, 1], FS, window="hann", nperseg=N, noverlap=0,
                               detrend="constant")
     sel = np.isin(f, freqs)
@@ -83,7 +85,7 @@ def _mne_spectrum(epochs):
     info = mne.create_info(epochs.shape[1], FS, "eeg")
     ep = mne.EpochsArray(epochs, info, verbose="error")
     spec = ep.compute_psd(method="welch", n_fft=N, n_per_seg=N, n_overlap=0, window="hann",
-                          output="complex", average=False, fmin=1.0, fmax=29.5,
+                          output="complex", average=False, fmin=FIRST_BIN, fmax=LAST_BIN,
                           remove_dc=True, verbose="error")
     return mne.time_frequency.EpochsSpectrumArray(spec.get_data()[..., 0], info, spec.freqs,
                                                   verbose="error")
@@ -127,10 +129,12 @@ def test_reference_agreement_with_mne_connectivity(lagged_epochs, head_model):
         assert bin_err < 1e-3 and band_err < 1e-3, (method, bin_err, band_err)
     # with faverage=True (MNE's band average) for the measures MNE does not square
     for method in ("imcoh", "wpli", "wpli2_debiased"):
-        con = spectral_connectivity_epochs(mne_spec, method=method, fmin=(8.0,), fmax=(11.9,),
-                                           faverage=True, indices=(ps.all[:, 0], ps.all[:, 1]),
-                                           verbose="error")
         b = bands.names.index("alpha")
+        lo, hi = bands.edges[b]  # [lo, hi): the last bin below hi
+        con = spectral_connectivity_epochs(mne_spec, method=method, fmin=(lo,),
+                                           fmax=(hi - 0.1,), faverage=True,
+                                           indices=(ps.all[:, 0], ps.all[:, 1]),
+                                           verbose="error")
         assert np.abs(sc.values[method][b] - con.get_data()[:, 0]).max() < 1e-3
     print("max |ours - mne_connectivity| per bin, per band:", errs)
 

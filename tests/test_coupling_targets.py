@@ -113,7 +113,8 @@ def test_export_errors_and_file_checks(analysed, tmp_path):
         export_coupling_target(d / "result", kind="pair", label="F3-F4", band="alpha",
                                measure="aec_orth")
     with pytest.raises(InputError, match="band"):
-        export_coupling_target(d / "result", kind="pair", label="F3-F4", band="gamma")
+        # beta2 is not one of the default bands
+        export_coupling_target(d / "result", kind="pair", label="F3-F4", band="beta2")
     with pytest.raises(InputError, match="several|--atlas"):
         export_coupling_target(d / "result", kind="edge", label="visual.left|visual.right",
                                band="alpha")

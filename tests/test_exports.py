@@ -73,13 +73,22 @@ def test_bids_derivatives(result, tmp_path):
     # BIDS 1.9 derivatives: DatasetType "derivative" and GeneratedBy are required
     assert desc["DatasetType"] == "derivative" and desc["GeneratedBy"][0]["Name"] == "sourcelab"
     files = sorted(p.name for p in (sub / "eeg").iterdir())
-    assert "sub-evilid7_space-fsaverage5_hemi-L_desc-absolute_power.func.gii" in files
+    # BIDS entity order (hemi before space, res/den after it) and the templateflow names of
+    # fsaverage5 (space-fsaverage, den-10k); res is a label (no unit), explained in the sidecar
+    assert "sub-evilid7_hemi-L_space-fsaverage_den-10k_desc-absolute_power.func.gii" in files
+    vol = "sub-evilid7_space-MNI152NLin2009aSym_res-2_desc-absolutealpha_power"
+    assert f"{vol}.nii.gz" in files
+    assert json.loads((sub / "eeg" / f"{vol}.json").read_text())["Resolution"].startswith("2 mm")
     assert "sub-evilid7_desc-roi_power.tsv" in files
     assert sum(f.endswith(".nii.gz") for f in files) == 2 * len(result.bands.names)
     import pandas as pd
 
     roi = pd.read_csv(sub / "eeg" / "sub-evilid7_desc-roi_power.tsv", sep="\t")
     assert len(roi) == len(result.roi_table)
+    # units once, in the column sidecar, not on every row
+    side = json.loads((sub / "eeg" / "sub-evilid7_desc-roi_power.json").read_text())
+    assert list(side) == list(roi.columns) and "unit" not in roi.columns
+    assert "µV" in side["measure"]["Levels"]["absolute"] and side["z"]["Units"]
     assert not list(tmp_path.parent.glob("evil*"))  # nothing escaped the root
     with pytest.raises(InputError):
         exports.export_bids_derivatives(result, tmp_path, "../..")

@@ -172,6 +172,8 @@ def test_roi_heatmap_and_networks(result):
     _check_colourbar(fig, "z-score", symmetric=True)
     fn = network_chart(result.roi_table, atlas="yeo7", measure="absolute")
     ax = fn.axes[0]
+    # titled by the atlas's name for people, not its key twice ("networks (networks)")
+    assert ax.get_title().startswith("Yeo 2011 7 networks, absolute power")
     assert len(ax.collections) == 5  # one marker set per band
     lo, hi = ax.get_xlim()
     assert lo == -hi
@@ -222,7 +224,7 @@ def test_result_figures_keys(result, plain_result):
     assert set(no_z) == {"glass/alpha/relative", "topomap/relative", "leakage",
                          "coupling/lagcoh", "coupling/aec_orth"}  # no z: no pair head maps
     with pytest.raises(ValueError, match="bands"):
-        result_figures(result, bands=("gamma",))
+        result_figures(result, bands=("beta2",))  # not a default band
 
 
 def test_result_figures_in_worker_processes(result):

@@ -52,7 +52,7 @@ def test_epochs_file_round_trip_and_refusals(tmp_path, rng):
         read_epochs(tmp_path / "nowhere")
 
 
-@pytest.mark.parametrize("lo,hi", [(4.0, 8.0), (8.0, 12.0), (12.0, 25.0)])
+@pytest.mark.parametrize("lo,hi", [(4.0, 8.0), (8.0, 13.0), (13.0, 30.0)])
 def test_quadratic_form_dof_matches_monte_carlo(lo, hi):
     # Known answer: a band-power estimate of Gaussian noise is ~ scaled χ²_ν with
     # ν = tr(Q)²/tr(Q²) (Satterthwaite 1946; Box 1954); then Var(ln P̂) = ψ'(ν/2) (trigamma).
@@ -63,7 +63,7 @@ def test_quadratic_form_dof_matches_monte_carlo(lo, hi):
     rng = np.random.default_rng(7)
     x = rng.standard_normal((1, int(600 * SF)))
     csd, _ = _epochs(x)
-    b = BANDS.names.index({4.0: "theta", 8.0: "alpha", 12.0: "beta"}[lo])
+    b = BANDS.names.index({4.0: "theta", 8.0: "alpha", 13.0: "beta"}[lo])
     v_epoch = np.var(np.log(csd[:, b, 0, 0]), ddof=1)
     nu_e = welch_epoch_dof(lo, hi, SF, 2.0)
     assert abs(v_epoch / polygamma(1, nu_e / 2) - 1) < 0.25

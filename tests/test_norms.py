@@ -138,6 +138,37 @@ def test_write_read_round_trip_exact(norms, tmp_path):
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]  # no temp left
 
 
+def test_table_reads_with_plain_pandas_and_sidecar_describes_columns(norms, tmp_path):
+    # issue 16: every TSV reads with pandas.read_csv(sep="\t"); metadata in the JSON sidecar
+    import json
+
+    w = write_norms(norms, tmp_path / "n.tsv")
+    plain = pd.read_csv(w.path, sep="\t")
+    assert tuple(plain.columns) == COLUMNS and len(plain) == len(norms.table)
+    side = json.loads((tmp_path / "n.json").read_text(encoding="utf-8"))
+    assert set(COLUMNS) <= set(side) and all(side[c]["Description"] for c in COLUMNS)
+    assert side["age_min"]["Units"] == "years"
+    meta = side["sourcelab-norms"]
+    assert meta["FormatVersion"] == 3 and meta["condition"] == "eyes closed"
+    assert meta["fingerprint"] == norms.fingerprint.to_dict()
+    # without its sidecar the table is refused in one line naming the file
+    (tmp_path / "n.json").unlink()
+    with pytest.raises(InputError, match="no sidecar n.json") as exc:
+        read_norms(w.path)
+    assert str(w.path) in str(exc.value) and "\n" not in str(exc.value)
+
+
+def test_format_2_files_still_read(norms, tmp_path):
+    # norms written by sourcelab 0.2 (commented header, no sidecar) read to the same table
+    from sourcelab.norms.io import _format_legacy
+
+    p = tmp_path / "old.tsv"
+    p.write_text(_format_legacy(norms), encoding="utf-8")
+    r = read_norms(p)
+    pd.testing.assert_frame_equal(r.table, norms.table, check_exact=True)
+    assert r.fingerprint == norms.fingerprint and r.condition == norms.condition
+
+
 def _edit(path, fn):
     lines = path.read_text().splitlines()
     lines = fn(lines)
@@ -184,6 +215,35 @@ def _overlap(lines):
     return lines + ["\t".join(cells)]
 
 
+@pytest.fixture
+def legacy_file(norms, tmp_path):
+    from sourcelab.norms.io import _format_legacy
+
+    p = tmp_path / "legacy.tsv"
+    p.write_text(_format_legacy(norms), encoding="utf-8")
+    return p
+
+
+_HEADER_EDITS = [
+    (lambda ls: ["# sourcelab-norms 9"] + ls[1:], "unsupported norms format version"),
+    (lambda ls: ["kind\tatlas"] + ls[1:], "no sidecar"),
+    (lambda ls: ["colour\tatlas"] + ls[1:], "not a sourcelab norms file"),
+    (lambda ls: [ls[0], "# colour: red"] + ls[1:], "bad header line"),
+    (lambda ls: [ln for ln in ls if not ln.startswith("# fingerprint")], "fingerprint"),
+    (lambda ls: [ln if not ln.startswith("# fingerprint") else "# fingerprint: {}"
+                 for ln in ls], "fingerprint"),
+    (lambda ls: [ln for ln in ls if not ln.startswith("# condition")], "condition"),
+]
+
+
+@pytest.mark.parametrize("edit, message", _HEADER_EDITS)
+def test_bad_format_2_headers_raise_input_error_naming_file(legacy_file, edit, message):
+    _edit(legacy_file, edit)
+    with pytest.raises(InputError, match=message) as exc:
+        read_norms(legacy_file)
+    assert str(legacy_file) in str(exc.value) and "\n" not in str(exc.value)
+
+
 @pytest.mark.parametrize("edit, message", [
     (_drop_col("sd"), "missing columns"),
     (_set_cell("sd", "0.0"), "sd must be > 0"),
@@ -195,13 +255,7 @@ def _overlap(lines):
     (_set_cell("b3", "0.5"), "must be 0"),
     (_dup_row, "duplicate row"),
     (_overlap, "overlapping age ranges"),
-    (lambda ls: ["# sourcelab-norms 9"] + ls[1:], "unsupported norms format version"),
-    (lambda ls: ["kind\tatlas"] + ls[1:], "not a sourcelab norms file"),
-    (lambda ls: [ls[0], "# colour: red"] + ls[1:], "bad header line"),
-    (lambda ls: [ln for ln in ls if not ln.startswith("# fingerprint")], "fingerprint"),
-    (lambda ls: [ln if not ln.startswith("# fingerprint") else "# fingerprint: {}"
-                 for ln in ls], "fingerprint"),
-    (lambda ls: [ln for ln in ls if not ln.startswith("# condition")], "condition"),
+    (lambda ls: ["colour\tatlas"] + ls[1:], "not a sourcelab norms file"),
 ])
 def test_bad_norms_files_raise_input_error_naming_file(norms_file, edit, message):
     _edit(norms_file, edit)

@@ -132,6 +132,7 @@ def test_plot_calibration_content(fit):
 def test_check_norms_summary(fit, tmp_path):
     p = write_norms(fit.norms, tmp_path / "n.tsv").path
     s = check_norms(p)
-    assert "valid sourcelab-norms 1" in s and "8 ROIs" in s and "3 channels" in s
-    # the fingerprint declares delta and highbeta, which these norms lack
-    assert "without norms: ['delta', 'highbeta']" in s
+    assert "valid sourcelab norms file" in s and "8 ROIs" in s and "3 channels" in s
+    # the fingerprint declares the IFCN delta and gamma (Babiloni et al. 2020), which these
+    # norms (theta, alpha, beta: sourcelab.simulate.tables) lack
+    assert "without norms: ['delta', 'gamma']" in s

@@ -236,12 +236,21 @@ class _GroupTable:
         self.pq_path = out / f"{stem}.parquet" if parquet else None
         self.pq_tmp = out / f".{stem}.parquet.tmp-{os.getpid()}" if parquet else None
         self.n_rows = 0
+        self.sidecar: dict | None = None
 
-    def append(self, table, ident: dict) -> None:
+    def append(self, table, ident: dict, *, sidecar: dict | None = None) -> None:
         for k, v in reversed(list(ident.items())):
             table.insert(0, k, v)
         if self._header is None:
             self._header = list(table.columns)
+            if sidecar is not None:  # the first recording's column descriptions, and ours
+                self.sidecar = {**{c: {"Description": _IDENT_NOTES[c]} for c in ident},
+                                **{c: d for c, d in sidecar.items() if c in self._header}}
+                self.sidecar["age"]["Units"] = "years"
+                from .. import __version__
+
+                # marks the file as sourcelab's (a rerun may replace it)
+                self.sidecar["GeneratedBy"] = [{"Name": "sourcelab", "Version": __version__}]
             self._f.write("\t".join(self._header) + "\n")
         table = table.reindex(columns=self._header)
         table.to_csv(self._f, sep="\t", index=False, header=False, na_rep="",
@@ -274,6 +283,9 @@ class _GroupTable:
             self._pq.close()
         if keep and self._header is not None:
             os.replace(self.tmp, self.path)
+            if self.sidecar is not None:
+                atomic_write_text(self.path.with_suffix(".json"),
+                                  json.dumps(self.sidecar, indent=2, ensure_ascii=False) + "\n")
             if self._pq is not None and self.pq_path is not None:
                 os.replace(self.pq_tmp, self.pq_path)
         for p in (self.tmp, self.pq_tmp):
@@ -431,6 +443,12 @@ def run_batch(items: Sequence[BatchItem], out: str | Path, *,
                         seconds=time.perf_counter() - t0, engine=engine.describe())
 
 
+#: Descriptions of the columns the group tables add in front of each recording's rows.
+_IDENT_NOTES = {"recording": "recording (file name without its suffix)",
+                "participant": "participant identifier (participants.tsv), if given",
+                "age": "participant age, if given"}
+
+
 def _append_group(groups: dict, outcome: Outcome, item: BatchItem, task: Task) -> None:
     import pandas as pd
 
@@ -446,4 +464,8 @@ def _append_group(groups: dict, outcome: Outcome, item: BatchItem, task: Task) -
             log.warning("batch: %s: cannot read %s for the group table (%s)", item.name,
                         path.name, exc)
             continue
-        g.append(table, ident)
+        sidecar = None
+        if g.sidecar is None and path.with_suffix(".json").is_file():
+            with contextlib.suppress(OSError, ValueError):
+                sidecar = json.loads(path.with_suffix(".json").read_text(encoding="utf-8"))
+        g.append(table, ident, sidecar=sidecar if isinstance(sidecar, dict) else None)

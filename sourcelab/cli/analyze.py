@@ -33,6 +33,11 @@ def config_from_args(args):
                        snr=args.snr)
 
 
+def progress_flag(args) -> bool | None:
+    """Progress bars: off with ``-q``, else only when standard error is a terminal (None)."""
+    return False if getattr(args, "quiet", False) else None
+
+
 def add_parser(sub) -> None:
     p = sub.add_parser("analyze", help="analyse one recording",
                        description="Analyse one 19-channel 10-20 recording: source band power, "
@@ -79,9 +84,10 @@ def run(args) -> int:
                      condition=args.condition,
                      allow_extrapolation=args.allow_extrapolation,
                      allow_condition_mismatch=args.allow_condition_mismatch,
-                     progress=None)
+                     progress=progress_flag(args))
     out = result.write(args.out, figures=not args.no_figures, report=not args.no_report,
-                       maps=not args.no_maps, command=["sourcelab", *sys.argv[1:]])
+                       maps=not args.no_maps, command=["sourcelab", *sys.argv[1:]],
+                       progress=progress_flag(args))
     if args.bids_root:
         from ..exports import export_bids_derivatives
 

@@ -64,7 +64,8 @@ def run(args) -> int:
                                 condition=args.condition, engine=engine, force=args.force,
                                 figures=not args.no_figures, report=not args.no_report,
                                 exports=not args.no_maps,
-                                progress=False if args.no_progress else None,
+                                progress=(False if args.no_progress or args.quiet
+                                          else None),
                                 command=["sourcelab", *sys.argv[1:]])
     finally:
         logger.setLevel(level)

@@ -27,27 +27,32 @@ def run(args) -> int:
     from ..config import AnalysisConfig
     from ..outputs import write_analysis_into
     from ..provenance import atomic_output_dir
-    from .analyze import print_summary
+    from ..progress import Stages
+    from .analyze import print_summary, progress_flag
 
+    progress = progress_flag(args)
     if args.rebuild_norms:
-        out = demo.build_demo_norms(args.rebuild_norms)
+        out = demo.build_demo_norms(args.rebuild_norms, progress=progress)
         print(f"sourcelab: wrote invented demo norms {out}")
         return 0
     out = Path(args.out)  # checked by the CLI pre-flight (sourcelab.cli.main.preflight)
     print("sourcelab: demo — an INVENTED participant (demo-01, 41 y, eyes closed, simulated by "
           "sourcelab) against INVENTED norms (80 simulated adults). No real person's data.")
     with atomic_output_dir(out, kind="demo") as tmp:
-        edf = demo.write_edf(demo.demo_recording(), tmp / "demo-01_invented_eeg.edf",
-                             description="INVENTED demo recording simulated by sourcelab")
+        with Stages(["simulating the invented recording"], desc="demo",
+                    enabled=progress) as st:
+            st.step("simulating the invented recording")
+            edf = demo.write_edf(demo.demo_recording(), tmp / "demo-01_invented_eeg.edf",
+                                 description="INVENTED demo recording simulated by sourcelab")
         result = analyze(edf, config=AnalysisConfig(), age=demo.DEMO_AGE,
                          norms=demo.demo_norms_path(), condition=demo.DEMO_CONDITION,
-                         progress=None)
+                         progress=progress)
         # record where the recording will be after the folder is renamed into place
         result = dataclasses.replace(result, recording=dataclasses.replace(
             result.recording, path=str(out / edf.name)))
         write_analysis_into(result, tmp, figures=not args.no_figures,
                             report=not args.no_report, exports=not args.no_maps,
-                            command=["sourcelab", "demo"])
+                            command=["sourcelab", "demo"], progress=progress)
     t = result.roi_table
     pl = demo.PLANTED
     rows = t[(t.atlas == "brodmann") & t.roi.isin(pl["rois"]) & (t.hemisphere == pl["hemisphere"])

@@ -76,6 +76,9 @@ def _get_parser() -> argparse.ArgumentParser:
                     "research; not a diagnostic device.")
     p.add_argument("--version", action="version", version=f"sourcelab {__version__}")
     p.add_argument("-v", "--verbose", action="count", default=0, help="more log output")
+    p.add_argument("-q", "--quiet", action="store_true",
+                   help="no progress bars and no warnings on the terminal (errors still show; "
+                        "warnings are kept in provenance.json)")
     sub = p.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for name, modname in COMMANDS.items():
         importlib.import_module(modname).add_parser(sub)
@@ -303,8 +306,9 @@ def preflight(args) -> None:
             _check_bids_root(args, inputs)
     elif cmd == "demo":
         if args.rebuild_norms:
-            check_output_file(args.rebuild_norms, kind="norms", name="--rebuild-norms",
-                              suffixes=(".tsv",))
+            out = check_output_file(args.rebuild_norms, kind="norms", name="--rebuild-norms",
+                                    suffixes=(".tsv",))
+            check_output_file(out.with_suffix(".json"), kind="sidecar", name="--rebuild-norms")
         else:
             check_output_dir(args.out, kind="demo")
     elif cmd == "atlas" and args.atlas_cmd == "plot":
@@ -316,6 +320,7 @@ def preflight(args) -> None:
             cohort = check_path("cohort", args.cohort, kind="dir")
             inputs.append(cohort)
             out = check_output_file(args.out, kind="norms", suffixes=(".tsv",), inputs=inputs)
+            check_output_file(out.with_suffix(".json"), kind="sidecar", inputs=inputs)
             for suffix, kind in (("_calibration.tsv", "calibration"), ("_calibration.png", "png")):
                 check_output_file(out.with_name(out.stem + suffix), kind=kind, inputs=inputs)
             if Path(args.out).resolve().is_relative_to(cohort.resolve()):
@@ -325,7 +330,8 @@ def preflight(args) -> None:
         if args.targets_cmd in ("list", "export"):
             check_path("result folder", args.result_dir, kind="dir")
         if args.targets_cmd == "list" and args.out is not None:
-            check_output_file(args.out, kind="candidates", suffixes=(".tsv", ".txt"))
+            out = check_output_file(args.out, kind="candidates", suffixes=(".tsv", ".txt"))
+            check_output_file(out.with_suffix(".json"), kind="sidecar", name="--out")
         elif args.targets_cmd == "export":
             check_output_file(args.out, kind="target", suffixes=(".json",), inputs=inputs)
         elif args.targets_cmd == "replay":
@@ -398,7 +404,7 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     except SystemExit as exc:  # --help, --version
         return int(exc.code or 0)
-    level = logging.WARNING - 10 * min(args.verbose, 2)
+    level = logging.ERROR if args.quiet else logging.WARNING - 10 * min(args.verbose, 2)
     logger = logging.getLogger("sourcelab")
     if not any(isinstance(h, _StderrHandler) for h in logger.handlers):
         h = _StderrHandler()

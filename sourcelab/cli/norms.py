@@ -38,12 +38,12 @@ def run(args) -> int:
         return 0
     from ..batch import make_engine
     from ..cohort import build_norms
-    from .analyze import config_from_args
+    from .analyze import config_from_args, progress_flag
 
     with make_engine(args.engine, workers=args.workers, scheduler=args.scheduler) as engine:
         built = build_norms(args.cohort, args.participants, config=config_from_args(args),
                             out=args.out, condition=args.condition, model=args.model,
-                            engine=engine)
+                            engine=engine, progress=progress_flag(args))
     for pid, message in built.failures:
         print(f"sourcelab: skipped {pid}: {message}")
     print(f"sourcelab: wrote {args.out} ({built.norms.cohort.get('n', '?')} participants); "

@@ -307,7 +307,10 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
         raise ValueError(f"coupling_table: missing columns {missing}")
     atlases = list(dict.fromkeys(coupling_table["atlas"]))
     if atlas is None:
-        atlas = "networks" if "networks" in atlases else (atlases[0] if atlases else None)
+        from ..rois import DEFAULT_NETWORK_ATLAS
+
+        atlas = (DEFAULT_NETWORK_ATLAS if DEFAULT_NETWORK_ATLAS in atlases
+                 else (atlases[0] if atlases else None))
     t = coupling_table[(coupling_table["atlas"] == atlas)
                        & (coupling_table["measure"] == measure)]
     if t.empty:
@@ -390,7 +393,10 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
     cax = fig.add_axes((1 - 0.95 / w, top - 0.8 * side / h, 0.16 / w, 0.8 * side / h))
     add_colourbar(fig, scale, cax=cax, data=np.concatenate([np.ravel(m) for m in mats]))
     what = _measure_text(measure)
-    fig.suptitle(f"{atlas}: {what}" + (" · z against the norm" if has_z else " · values"),
+    from ..rois import atlas_title
+
+    fig.suptitle(f"{atlas_title(atlas)}: {what}"
+                 + (" · z against the norm" if has_z else " · values"),
                  fontsize=11, y=1 - 0.12 / h, va="top")
     notes = []
     if has_z:

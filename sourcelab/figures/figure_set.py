@@ -52,7 +52,12 @@ def _has_z(table) -> bool:
 
 
 def _pick_network_atlas(table) -> str | None:
-    for name in dict.fromkeys(table["atlas"]):
+    from ..rois import DEFAULT_NETWORK_ATLAS
+
+    names = list(dict.fromkeys(table["atlas"]))
+    if DEFAULT_NETWORK_ATLAS in names:
+        return DEFAULT_NETWORK_ATLAS
+    for name in names:
         if any(k in str(name).lower() for k in ("network", "yeo")):
             return str(name)
     return None

@@ -245,7 +245,9 @@ def network_chart(roi_table: pd.DataFrame, *, atlas: str, measure: str = "absolu
     ax.set_ylim(-0.6, len(nets) - 0.4)
     ax.invert_yaxis()
     ax.set_xlabel(scale.label)
-    ax.set_title(f"{atlas} atlas, {measure} power: z per band (grey: |z| < {guide:g})",
+    from ..rois import atlas_title
+
+    ax.set_title(f"{atlas_title(atlas)}, {measure} power: z per band (grey: |z| < {guide:g})",
                  fontsize=10)
     leg = ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, title="band",
                     frameon=False)

@@ -1,13 +1,19 @@
-"""The sourcelab norms file: a documented TSV with a commented header (see FORMAT.md).
+"""The sourcelab norms file: a plain TSV with a JSON sidecar (see FORMAT.md).
+
+Format 3 (sourcelab 0.3): ``norms.tsv`` is a plain tab-separated table (header row first; reads
+with ``pandas.read_csv(path, sep="\t")``), and ``norms.json`` beside it holds the column
+descriptions (BIDS style) and, under ``"sourcelab-norms"``, the format version, pipeline
+fingerprint, condition, cohort summary and notes.  Format 2 files (the commented header below,
+written by sourcelab 0.2) are still read.
 
 One row per (kind, atlas, name, hemisphere, band, measure, age range) gives a model of the
 *transformed* value (``log10`` for absolute power, ``logit`` for relative power) as a polynomial in
 ``log10(age in years)`` with a constant residual standard deviation.  Age-binned norms are the
 degree-0 case (``b0`` is the bin mean); age-regression norms have degree 1-3.
 
-Example::
+Format 2 example::
 
-    # sourcelab-norms 1
+    # sourcelab-norms 2
     # fingerprint: {"bands": [["delta", 1.0, 4.0], ...], "headmodel_sha256": "...", ...}
     # condition: eyes closed
     # cohort: {"n": 100, "age_min": 18.2, "age_max": 79.5, ...}
@@ -38,7 +44,9 @@ from .coupling import TRANSFORM_FOR_COUPLING
 from .transforms import TRANSFORM_FOR_MEASURE, TRANSFORMS
 
 FORMAT_NAME = "sourcelab-norms"
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3
+#: Format versions read: 3 (TSV + JSON sidecar), 2 (commented header, sourcelab 0.2).
+LEGACY_FORMAT_VERSION = 2
 #: Highest polynomial degree a row may use (coefficients b0..b3).
 MAX_DEGREE = 3
 #: Placeholder for "does not apply" (BIDS convention), used for atlas/hemisphere of sensor rows.
@@ -314,8 +322,39 @@ def _fmt_value(v) -> str:
     return str(v)
 
 
+#: Column descriptions of a norms table (the JSON sidecar, BIDS style).
+COLUMN_NOTES = {
+    "kind": {"Description": "roi, sensor, pair (electrode pair) or edge (ROI pair of a network "
+                            "or lobe atlas)"},
+    "atlas": {"Description": "atlas of roi and edge rows; n/a for sensor and pair rows"},
+    "name": {"Description": "ROI, channel, electrode pair or edge"},
+    "hemisphere": {"Description": "left, right or both (roi rows); n/a for the other kinds"},
+    "band": {"Description": "frequency band, as in the fingerprint"},
+    "measure": {"Description": "band-power or coupling measure"},
+    "age_min": {"Description": "youngest age the row applies to", "Units": "years"},
+    "age_max": {"Description": "oldest age the row applies to", "Units": "years"},
+    "model": {"Description": "binned (mean and SD of an age bin) or regression (polynomial in "
+                             "log10 age)"},
+    "degree": {"Description": "polynomial degree, 0-3"},
+    "transform": {"Description": "transform of the value the model describes (log10, logit, "
+                                 "fisher_sqrt, ...; see FORMAT.md)"},
+    **{f"b{k}": {"Description": f"coefficient of x^{k} of the mean, x = log10(age in years)",
+                 "Units": "transformed scale"} for k in range(MAX_DEGREE + 1)},
+    "sd": {"Description": "residual standard deviation", "Units": "transformed scale"},
+    "n": {"Description": "reference participants behind the row"},
+    "df": {"Description": "residual degrees of freedom"},
+    **{c: {"Description": f"element {c[1]},{c[2]} of (X'X)^-1 of the row's design [1, x, x^2, "
+                          "x^3]"} for c in V_COLUMNS},
+}
+
+
+def sidecar_path(path: str | Path) -> Path:
+    """The JSON sidecar of a norms table (``norms.tsv`` -> ``norms.json``)."""
+    return Path(path).with_suffix(".json")
+
+
 def format_norms(norms: Norms) -> str:
-    """The text of a norms file (see FORMAT.md).
+    """The text of a norms table (format 3: plain TSV, header row first; see FORMAT.md).
 
     Parameters
     ----------
@@ -324,15 +363,10 @@ def format_norms(norms: Norms) -> str:
     Returns
     -------
     str
-        Header lines (format, fingerprint, condition, cohort, notes), the column line and one
-        tab-separated line per table row; floats written so they round-trip exactly.
+        The column line and one tab-separated line per table row; floats written so they
+        round-trip exactly.  Fingerprint, condition, cohort and notes go to the JSON sidecar.
     """
-    lines = [f"# {FORMAT_NAME} {FORMAT_VERSION}",
-             f"# fingerprint: {norms.fingerprint.to_json()}",
-             f"# condition: {norms.condition.strip()}",
-             f"# cohort: {json.dumps(norms.cohort, sort_keys=True)}"]
-    lines += [f"# note: {n}" for n in norms.notes]
-    lines.append("\t".join(COLUMNS))
+    lines = ["\t".join(COLUMNS)]
     t = norms.table
     cols = [t[c].tolist() for c in COLUMNS]
     for row in zip(*cols):
@@ -340,8 +374,32 @@ def format_norms(norms: Norms) -> str:
     return "\n".join(lines) + "\n"
 
 
+def format_norms_sidecar(norms: Norms) -> str:
+    """The JSON sidecar of a norms table: column descriptions and the ``"sourcelab-norms"``
+    metadata (format version, fingerprint, condition, cohort, notes)."""
+    from .. import __version__
+
+    meta = {"FormatVersion": FORMAT_VERSION,
+            "GeneratedBy": [{"Name": "sourcelab", "Version": __version__}],
+            "fingerprint": norms.fingerprint.to_dict(), "condition": norms.condition.strip(),
+            "cohort": norms.cohort, "notes": list(norms.notes)}
+    return json.dumps({**COLUMN_NOTES, FORMAT_NAME: meta}, indent=2, sort_keys=False,
+                      ensure_ascii=False) + "\n"
+
+
+def _format_legacy(norms: Norms) -> str:
+    """Format 2 text (commented header), as sourcelab 0.2 wrote it; for reading tests."""
+    lines = [f"# {FORMAT_NAME} {LEGACY_FORMAT_VERSION}",
+             f"# fingerprint: {norms.fingerprint.to_json()}",
+             f"# condition: {norms.condition.strip()}",
+             f"# cohort: {json.dumps(norms.cohort, sort_keys=True)}"]
+    lines += [f"# note: {n}" for n in norms.notes]
+    return "\n".join(lines) + "\n" + format_norms(norms)
+
+
 def write_norms(norms: Norms, path: str | Path) -> Norms:
-    """Write ``norms`` to ``path`` atomically (temporary file + rename).
+    """Write ``norms`` to ``path`` and its sidecar ``<stem>.json``, each atomically (temporary
+    file + rename; the sidecar first).
 
     Parameters
     ----------
@@ -352,30 +410,72 @@ def write_norms(norms: Norms, path: str | Path) -> Norms:
     Returns
     -------
     Norms
-        The same norms with ``path`` and ``sha256`` of the written file.
+        The same norms with ``path`` and ``sha256`` of the written table.
 
     Raises
     ------
     InputError
-        If ``path`` is a folder.
+        If ``path`` is a folder or ends in ``.json``.
     """
     path = Path(path)
     if path.exists() and path.is_dir():
         raise InputError("norms output path is a folder", path=path)
+    if path.suffix.lower() == ".json":
+        raise InputError("norms output path: the table needs a suffix other than .json (its "
+                         "sidecar is <name>.json)", path=path)
     path.parent.mkdir(parents=True, exist_ok=True)
+    atomic_write_text(sidecar_path(path), format_norms_sidecar(norms))
     atomic_write_text(path, format_norms(norms))
     return replace(norms, path=path, sha256=sha256_file(path))
 
 
+def _parse_sidecar(path: Path) -> dict:
+    """Metadata of a format-3 table from its JSON sidecar (one-line errors naming the file)."""
+    from ..checks import loads_json, read_bytes_bounded
+
+    side = sidecar_path(path)
+    if not side.is_file():
+        raise InputError(f"no sidecar {side.name} beside the norms table (it holds the "
+                         "pipeline fingerprint and condition; copy it with the table)", path=path)
+    raw = read_bytes_bounded(side, max_bytes=NORMS_MAX_BYTES, what="norms sidecar")
+    data = loads_json(raw, where=side, max_depth=_HEADER_MAX_DEPTH + 2, what="norms sidecar")
+    meta = data.get(FORMAT_NAME) if isinstance(data, dict) else None
+    if not isinstance(meta, dict):
+        raise InputError(f"not a sourcelab norms sidecar (no {FORMAT_NAME!r} object)", path=side)
+    if meta.get("FormatVersion") != FORMAT_VERSION:
+        raise InputError(f"unsupported norms format version ({meta.get('FormatVersion')!r}); "
+                         f"this sourcelab reads versions {LEGACY_FORMAT_VERSION} and "
+                         f"{FORMAT_VERSION}; rebuild the norms with this sourcelab", path=side)
+    for key in ("fingerprint", "condition"):
+        if key not in meta:
+            raise InputError(f"sidecar has no {key!r}", path=side)
+    try:
+        fp = Fingerprint.from_dict(meta["fingerprint"])
+    except (AttributeError, InputError, TypeError, ValueError) as exc:
+        raise InputError(f"sidecar fingerprint is not a valid pipeline fingerprint ({exc})",
+                         path=side) from None
+    cohort = meta.get("cohort", {})
+    if not isinstance(cohort, dict):
+        raise InputError("sidecar cohort must be a JSON object", path=side)
+    notes = meta.get("notes", [])
+    if not isinstance(notes, list) or not all(isinstance(n, str) for n in notes):
+        raise InputError("sidecar notes must be a list of texts", path=side)
+    if not isinstance(meta["condition"], str):
+        raise InputError("sidecar condition must be a text", path=side)
+    return {"fingerprint": fp, "condition": meta["condition"], "cohort": cohort,
+            "notes": tuple(notes)}
+
+
 def _parse_header(lines: list[str], path) -> tuple[dict, int]:
-    if not lines or lines[0].rstrip() != f"# {FORMAT_NAME} {FORMAT_VERSION}":
+    if not lines or lines[0].rstrip() != f"# {FORMAT_NAME} {LEGACY_FORMAT_VERSION}":
         got = lines[0].rstrip()[:60] if lines else "<empty file>"
         if lines and got.startswith(f"# {FORMAT_NAME} "):
             raise _bad(f"unsupported norms format version ({got!r}); this sourcelab reads "
-                       f"version {FORMAT_VERSION}; rebuild the norms with this sourcelab",
-                       path, 1)
-        raise _bad(f"not a sourcelab norms file: first line must be "
-                   f"'# {FORMAT_NAME} {FORMAT_VERSION}', got {got!r}", path, 1)
+                       f"versions {LEGACY_FORMAT_VERSION} and {FORMAT_VERSION}; rebuild the "
+                       "norms with this sourcelab", path, 1)
+        raise _bad(f"not a sourcelab norms file: first line must be the column names "
+                   f"({COLUMNS[0]}, {COLUMNS[1]}, ...) or '# {FORMAT_NAME} "
+                   f"{LEGACY_FORMAT_VERSION}', got {got!r}", path, 1)
     head: dict = {"note": []}
     i = 1
     while i < len(lines) and lines[i].startswith("#"):
@@ -422,7 +522,8 @@ def read_norms(path: str | Path) -> Norms:
     Parameters
     ----------
     path : str | Path
-        A ``sourcelab-norms 1`` TSV file (see FORMAT.md).
+        A norms table (format 3, with its ``.json`` sidecar beside it) or a format-2 file with
+        a commented header (see FORMAT.md).
 
     Returns
     -------
@@ -444,7 +545,10 @@ def read_norms(path: str | Path) -> Norms:
     except UnicodeDecodeError:
         raise InputError("norms file is not UTF-8 text", path=path) from None
     lines = text.splitlines()
-    head, i = _parse_header(lines, path)
+    if lines and lines[0].split("\t")[0] == COLUMNS[0] and not lines[0].startswith("#"):
+        head, i = _parse_sidecar(path), 0        # format 3: plain table + JSON sidecar
+    else:
+        head, i = _parse_header(lines, path)     # format 2: commented header
     if i >= len(lines):
         raise _bad("no column header line after the comments", path)
     names = lines[i].split("\t")
@@ -501,7 +605,7 @@ def check_norms(path: str | Path) -> str:
     nm = read_norms(path)
     t = nm.table
     fp = nm.fingerprint
-    lines = [f"{nm.path}: valid sourcelab-norms 1 file", f"sha256: {nm.sha256}",
+    lines = [f"{nm.path}: valid sourcelab norms file", f"sha256: {nm.sha256}",
              f"condition: {nm.condition}",
              "cohort: " + ", ".join(f"{k}={v}" for k, v in sorted(nm.cohort.items())),
              f"fingerprint: method={fp.method} orientation={fp.orientation} "

@@ -208,6 +208,21 @@ def _yeo7() -> Atlas:
         rois=rois, sha256=_sha("yeo7_fsaverage5.npz"))
 
 
+#: Atlas name -> title for people (figure titles, report headings), as the cited sources name them.
+ATLAS_TITLES = {"brodmann": "Brodmann areas", "lobes": "lobes",
+                "networks": "Brodmann-area networks", "yeo7": "Yeo 2011 7 networks"}
+#: The network atlas figures and coupling matrices use unless told otherwise: the 7 resting-state
+#: networks of Yeo et al. 2011 (J Neurophysiol 106:1125-1165), defined on the cortical surface
+#: by intrinsic connectivity rather than as groupings of whole Brodmann areas.
+DEFAULT_NETWORK_ATLAS = "yeo7"
+
+
+def atlas_title(name: str) -> str:
+    """Title of an atlas for people (``"yeo7"`` -> ``"Yeo 2011 7 networks"``); other names as
+    given (user ROI sets)."""
+    return ATLAS_TITLES.get(str(name), str(name))
+
+
 #: Atlas name -> builder.
 _BUILDERS = {"brodmann": _brodmann, "lobes": _lobes, "networks": _networks, "yeo7": _yeo7}
 

@@ -345,18 +345,75 @@ def read_candidates(result_dir: str | Path) -> pd.DataFrame | None:
     if not path.is_file():
         return None
     try:
-        return pd.read_csv(path, sep="\t", comment="#", keep_default_na=False,
+        with open(path, encoding="utf-8") as f:  # tables of sourcelab <= 0.2 began with '#' lines
+            skip = 0
+            for line in f:
+                if not line.startswith("#"):
+                    break
+                skip += 1
+        return pd.read_csv(path, sep="\t", skiprows=skip, keep_default_na=False,
                            na_values=["", "n/a"])
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
         raise InputError(f"cannot read the candidate table ({exc})", path=path) from None
 
 
+#: Descriptions of the candidate-table columns (its JSON sidecar).
+CANDIDATE_COLUMN_NOTES = {
+    "rank": "rank of the candidate (1: largest |z| after the ranking rules)",
+    "kind": "area, or network (pooled power of a network's areas)",
+    "atlas": "atlas of the region",
+    "roi": "region of interest",
+    "hemisphere": "left, right or both",
+    "band": "frequency band",
+    "measure": "absolute or relative band power",
+    "z": "z-score against the norms",
+    "direction": "above or below the norm",
+    "fdr": "survives the false-discovery-rate correction over the table",
+    "n_vertices": "cortical sources in the region",
+    "small": "the region has fewer sources than sourcelab's minimum for a stable mean",
+    "neighbours_same": "neighbouring areas deviating in the same direction",
+    "n_neighbours": "neighbouring areas",
+    "members_deviating": "member areas deviating in the same direction (networks)",
+    "n_members": "member areas (networks)",
+    "role": "what the row is (a peak, or a network summary)",
+    "area": "Brodmann area at the peak",
+    "lobe": "lobe of that area",
+    "peak_z": "z-score at the peak",
+    "x_mni152": "x of the peak, MNI152",
+    "y_mni152": "y of the peak, MNI152",
+    "z_mni152": "z of the peak, MNI152",
+    "border_mm": "distance from the peak to the area's border",
+    "own_share": "share of the peak's deviation that arises in the area itself",
+    "probability": "probability that the deviation lies in this area",
+}
+
+
+def candidates_sidecar(candidates: pd.DataFrame) -> dict:
+    """The JSON sidecar of ``candidates.tsv``: column descriptions (BIDS style) and, under
+    ``Cautions``, what the table can and cannot say."""
+    out = {c: {"Description": CANDIDATE_COLUMN_NOTES.get(c, c.replace("_", " "))}
+           for c in candidates.columns}
+    from .. import __version__
+
+    for c in ("z", "peak_z"):
+        if c in out:
+            out[c]["Units"] = "standard deviations of the norm"
+    for c in ("x_mni152", "y_mni152", "z_mni152", "border_mm"):
+        if c in out:
+            out[c]["Units"] = "mm"
+    return {**out, "Cautions": list(CAUTIONS),
+            "GeneratedBy": [{"Name": "sourcelab", "Version": __version__}]}
+
+
 def write_candidates(candidates: pd.DataFrame, path: str | Path) -> Path:
-    """Write the candidate table as TSV (atomically), with the cautions as ``#`` lines first."""
+    """Write the candidate table as a plain TSV (atomically; header row first) and its sidecar
+    ``<stem>.json`` (column descriptions and the cautions)."""
     path = Path(path)
-    head = "".join(f"# {c}\n" for c in CAUTIONS)
     body = candidates.to_csv(sep="\t", index=False, na_rep="n/a", float_format="%.4g")
-    atomic_write_text(path, head + body)
+    atomic_write_text(path.with_suffix(".json"),
+                      json.dumps(candidates_sidecar(candidates), indent=2, ensure_ascii=False)
+                      + "\n")
+    atomic_write_text(path, body)
     return path
 
 
