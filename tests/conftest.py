@@ -32,6 +32,7 @@ MODULE_TIERS = {
     "test_figures": "known_answer", "test_intake": "known_answer", "test_live": "known_answer",
     "test_norms": "known_answer", "test_ocular": "known_answer", "test_rois": "known_answer",
     "test_spectra": "known_answer", "test_states": "known_answer",
+    "test_config_bands": "known_answer", "test_progress": "contract",
     "test_targets_peaks": "known_answer",
     "test_coupling_norms": "property", "test_coupling_targets": "property",
     "test_norms_fit": "property", "test_norms_predictive": "property",

@@ -145,11 +145,7 @@ def test_tables_and_messages_have_no_python_values_or_install_paths(demo_run):
     assert not bad, "\n".join(bad[:30])
 
 
-# The report's first card and detail tables still print raw keys and Python values (mains_hz
-# None, excluded [], <NA> cells) and the norms path; the report rework of issue 16 (part 1,
-# sourcelab/report/) removes them.  strict: this fails as soon as the report is clean, so the
-# mark is removed then and the check guards the report from that day on.
-@pytest.mark.xfail(strict=True, reason="report still shows Python values (issue 16, part 1)")
+# The report (HTML and what a reader sees) carries no raw keys, Python values or install paths.
 def test_report_text_has_no_python_values_or_install_paths(demo_run):
     out, _ = demo_run
     parser = _Text()

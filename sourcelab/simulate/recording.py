@@ -108,7 +108,8 @@ def pink_noise(n_series: int, n_times: int, sfreq: float, rng: np.random.Generat
     Returns
     -------
     ndarray, shape (n_series, n_times)
-        Zero-mean series, each of standard deviation 1 (dimensionless).
+        Zero-mean series of expected standard deviation 1 (dimensionless; the realised SD
+        scatters around 1).
     """
     spec = rng.standard_normal((n_series, n_times // 2 + 1)) + 1j * rng.standard_normal(
         (n_series, n_times // 2 + 1))
@@ -121,7 +122,20 @@ def pink_noise(n_series: int, n_times: int, sfreq: float, rng: np.random.Generat
         spec *= np.exp(ln_pow / 2.0)
     spec[:, 0] = 0
     x = np.fft.irfft(spec, n=n_times, axis=-1)
-    return x / x.std(axis=-1, keepdims=True)
+    # Scaled by the *expected* standard deviation, not the realised one: dividing by each
+    # realisation's own SD would give every simulated person a random overall gain (the slow
+    # bins, few and strong, dominate the realised SD), i.e. two sessions of one invented person
+    # would differ in every band.  Parseval with E|X_k|² = 2 a_k² (a_k the amplitude profile;
+    # real and imaginary parts unit normal; the Nyquist bin keeps its real part only).
+    a2 = 1.0 / np.maximum(f, f_min) ** exponent
+    if spectral_gain:
+        a2 = a2 * np.exp(ln_pow)
+    a2[0] = 0.0
+    w = np.full(f.shape, 4.0)          # 2 (both signs of k) x 2 (E|X_k|² = 2 a_k²)
+    if n_times % 2 == 0:
+        w[-1] = 1.0
+    expected_sd = np.sqrt((w * a2).sum()) / n_times
+    return x / expected_sd
 
 
 #: Width (SD, decades of frequency) of a :func:`pink_noise` spectral-gain bump (a factor of 1.3).
@@ -203,7 +217,9 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
     background = l_mat @ pink_noise(n_ch, n_t, sfreq, rng, exponent=background_exponent,
                                     spectral_gain=tuple(background_spectral_gain))
     p = average_reference_projector(n_ch)
-    scale = background_uv * 1e-6 / np.median((p @ background).std(axis=1))
+    # expected (not realised) background SD per channel after the average reference: the unit-
+    # variance series mixed by L give covariance L Lᵀ = G Gᵀ (see pink_noise for why expected)
+    scale = background_uv * 1e-6 / np.median(np.sqrt(np.clip(np.diag(p @ cov @ p), 0, None)))
     data = scale * background
     for g in generators:
         verts = patch_vertices(model, g.center_mni, g.hemisphere, g.radius_mm)
