@@ -109,6 +109,17 @@ class MismatchForward:
         ----------
         sources : array of int
             Template source indices, each present in ``self.sources``.
+
+        Returns
+        -------
+        forward : MismatchForward
+            Gains of those sources, shape (n_real, n_ch, len(sources)), in the order given;
+            everything else unchanged.
+
+        Raises
+        ------
+        sourcelab.errors.InputError
+            When a source is not in this forward.
         """
         sources = np.asarray(sources, dtype=np.int64)
         pos = np.full(int(max(self.sources.max(), sources.max())) + 1, -1)
@@ -132,6 +143,10 @@ def sphere_radii(src_pos: np.ndarray, r0: np.ndarray, *, margin_mm: float = BRAI
         Source positions, metres.
     r0 : ndarray, shape (3,)
         Sphere centre, metres.
+    margin_mm : float
+        Gap between the outermost source and the brain sphere, mm.
+    skull_mm, scalp_mm : float
+        Shell thicknesses, mm.
 
     Returns
     -------
@@ -142,7 +157,22 @@ def sphere_radii(src_pos: np.ndarray, r0: np.ndarray, *, margin_mm: float = BRAI
 
 
 def project_to_sphere(pos: np.ndarray, r0: np.ndarray, radius: float) -> np.ndarray:
-    """Move points radially (from ``r0``) onto the sphere of ``radius``; shapes (..., 3)."""
+    """Move points radially (from ``r0``) onto the sphere of ``radius``; shapes (..., 3).
+
+    Parameters
+    ----------
+    pos : ndarray, shape (..., 3)
+        Points, metres (none at ``r0``).
+    r0 : ndarray, shape (3,)
+        Sphere centre, metres.
+    radius : float
+        Sphere radius, metres.
+
+    Returns
+    -------
+    ndarray, shape (..., 3)
+        The points on the sphere, metres.
+    """
     d = np.asarray(pos, dtype=float) - r0
     return r0 + d * (radius / np.linalg.norm(d, axis=-1, keepdims=True))
 
@@ -188,7 +218,21 @@ def jitter_tangential(pos: np.ndarray, r0: np.ndarray, radius: float, *, rms_mm:
 
 # ----------------------------------------------------------------------------- MNE forward
 def fit_sphere_centre(ch_pos: np.ndarray, ch_names) -> np.ndarray:
-    """MNE's least-squares sphere fit to electrode positions (head frame), centre in metres."""
+    """MNE's least-squares sphere fit to electrode positions (head frame), centre in metres.
+
+    Parameters
+    ----------
+    ch_pos : ndarray, shape (n_ch, 3)
+        Electrode positions, metres, head frame.
+    ch_names : sequence of str
+        Channel names, one per row of ``ch_pos``.
+
+    Returns
+    -------
+    r0 : ndarray, shape (3,)
+        Sphere centre, metres, head frame (:func:`mne.bem.fit_sphere_to_headshape` with
+        ``dig_kinds=("eeg",)``).
+    """
     import mne
 
     info = mne.create_info(list(ch_names), 250.0, ch_types="eeg")
@@ -258,7 +302,15 @@ def sphere_gain(ch_pos_sets: np.ndarray, src_pos: np.ndarray, src_nn: np.ndarray
 
 
 def cache_dir() -> Path:
-    """Folder for cached simulation inputs (outside the repository)."""
+    """Folder for cached simulation inputs (outside the repository).
+
+    Returns
+    -------
+    folder : pathlib.Path
+        ``SOURCELAB_BENCH_CACHE`` when set, else ``~/.cache/sourcelab-bench``; not created
+        here.
+    """
+
     env = os.environ.get("SOURCELAB_BENCH_CACHE")
     return Path(env) if env else Path.home() / ".cache" / "sourcelab-bench"
 
