@@ -133,6 +133,14 @@ def local_maxima(values: np.ndarray, mesh: CorticalMesh, *, threshold: float = -
 def clusters(values: np.ndarray, mesh: CorticalMesh, threshold: float) -> np.ndarray:
     """Connected supra-threshold clusters along mesh edges.
 
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        Map (``|z|`` or power); non-finite values count as below threshold.
+    mesh : CorticalMesh
+    threshold : float
+        Sources need ``value > threshold``.
+
     Returns
     -------
     ndarray of int, shape (n_src,)
@@ -245,7 +253,21 @@ def rank_areas(values: np.ndarray, labels: np.ndarray, n_areas: int, *,
 
 
 def rank_areas_by_mean(values: np.ndarray, labels: np.ndarray, n_areas: int) -> np.ndarray:
-    """Area codes ordered by their mean value (the ROI-mean ranking, for comparison)."""
+    """Area codes ordered by their mean value (the ROI-mean ranking, for comparison).
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        E.g. ``|z|`` or power.
+    labels : ndarray of int, shape (n_src,)
+        Area code per source (0 = none, ignored).
+    n_areas : int
+
+    Returns
+    -------
+    ndarray of int
+        Area codes, highest mean first; areas without sources are dropped.
+    """
     lab = np.asarray(labels, dtype=np.int64)
     s = np.bincount(lab, weights=np.asarray(values, float), minlength=n_areas + 1)
     c = np.bincount(lab, minlength=n_areas + 1)
@@ -261,7 +283,24 @@ def peak_margin(values: np.ndarray, labels: np.ndarray, area: int, peak_value: f
 
     0 means another area reaches the same height; values near 1 a peak far above everything
     outside the named area.  For non-negative maps (|z|, power).
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        Non-negative map.
+    labels : ndarray of int, shape (n_src,)
+        Area code per source.
+    area : int
+        The named area's code.
+    peak_value : float
+        The highest value inside ``area``.
+
+    Returns
+    -------
+    margin : float
+        In [0, 1]; 0 when ``peak_value`` is not positive.
     """
+
     v = np.asarray(values, dtype=float)
     outside = v[np.asarray(labels) != area]
     other = float(np.nanmax(outside)) if outside.size else 0.0
