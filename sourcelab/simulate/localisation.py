@@ -377,7 +377,8 @@ def reliability(prob: np.ndarray, hit: np.ndarray, *, edges=(0.0, 0.2, 0.4, 0.6,
     hit : ndarray of {0, 1} or bool, shape (n,)
         Outcomes (named area is the true one).
     edges : sequence of float
-        Bin edges; bins are ``[lo, hi)``, the last one ``[lo, hi]``.
+        Bin edges; bins are ``[lo, hi)``, closed (``[lo, hi]``) when ``hi >= 1``.
+
 
     Returns
     -------

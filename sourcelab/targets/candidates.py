@@ -11,7 +11,9 @@ fsaverage5 white surface is ~133,000 mm² (20,484 sources x ~6.5 mm² each, meas
 builder), so 3 % is ~4,000 mm², a disc of radius ~36 mm.  Two ROIs are therefore *neighbours* when
 they share a mesh edge, or when their centroids lie within :data:`NEIGHBOUR_MM` = 35 mm of each
 other: a focal generator in one inflates the other.  A candidate whose neighbours deviate the same
-way is more likely a blurred (or broad) pattern than a focal source; ``neighbours_same`` counts them.
+way is more likely a blurred (or broad) pattern than a focal source; ``neighbours_same`` counts
+them.
+
 
 Networks
 --------
@@ -501,7 +503,8 @@ def candidates_html(candidates: pd.DataFrame, *, max_rows: int = 20) -> str:
     candidates : DataFrame
         Ranked candidates (:data:`CANDIDATE_COLUMNS`).
     max_rows : int
-        Rows shown at most (the first, in rank order).
+        Rows shown at most (the first ``max_rows`` rows of ``candidates``).
+
 
     Returns
     -------

@@ -99,7 +99,9 @@ class MatchResult:
         Returns
         -------
         margin : float
-            Difference of correlations, in [-2, 2]; positive when ``area`` matches best.
+            Difference of correlations, in [-2, 2] for an area with candidates (``-inf``
+            without); positive when ``area`` matches best.
+
         """
         other = np.delete(self.area_score, area)
         other = other[np.isfinite(other)]
