@@ -501,7 +501,6 @@ def load_config(path: str | Path | None = None, **overrides) -> AnalysisConfig:
         When the file is missing, too large, not UTF-8 TOML, has unknown keys, or a value is
         out of range.
     """
-
     values: dict = {}
     if path is not None:
         path = check_path("--config", path, kind="file", max_bytes=CONFIG_MAX_BYTES)

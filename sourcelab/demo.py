@@ -263,7 +263,6 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0,
     path : pathlib.Path
         ``out``.
     """
-
     from tqdm import tqdm
 
     from .analysis import analyze, fingerprint_for

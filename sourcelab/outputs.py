@@ -249,7 +249,6 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
         Stage progress on standard error; None: only when it is a terminal.
 
     Returns
-
     -------
     dict
         The figures written (name -> PNG bytes).

@@ -46,7 +46,6 @@ class Stages:
         name : str
             The stage, shown after the bar.
         """
-
         if self._bar is not None:
             if self._done:
                 self._bar.update(1)

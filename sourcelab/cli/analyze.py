@@ -213,7 +213,6 @@ def print_summary(result, out) -> None:
     out : str or pathlib.Path
         The output folder written, named on the ``wrote`` line.
     """
-
     q = result.quality
     removed = {k: v for k, v in q.rejected_s.items() if v}
     lines = result.summary().splitlines()

@@ -44,7 +44,6 @@ def run(args) -> int:
     """
     from ..rois import atlas_summary, available_atlases, load_atlas
 
-
     if args.atlas_cmd == "list":
         for name in available_atlases():
             at = load_atlas(name)

@@ -64,7 +64,6 @@ def run(args) -> int:
         :class:`sourcelab.errors.InputError` (exit code 2).
     """
     from ..batch import discover, make_engine, run_batch
-
     from ..errors import InputError
     from .analyze import config_from_args
 

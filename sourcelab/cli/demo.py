@@ -44,7 +44,6 @@ def run(args) -> int:
     """
     import dataclasses
 
-
     from .. import demo
     from ..analysis import analyze
     from ..config import AnalysisConfig

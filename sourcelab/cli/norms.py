@@ -55,7 +55,6 @@ def run(args) -> int:
     """
     from ..norms import check_norms
 
-
     if args.norms_cmd == "check":
         print(check_norms(args.norms))
         return 0

@@ -379,7 +379,6 @@ def reliability(prob: np.ndarray, hit: np.ndarray, *, edges=(0.0, 0.2, 0.4, 0.6,
     edges : sequence of float
         Bin edges; bins are ``[lo, hi)``, closed (``[lo, hi]``) when ``hi >= 1``.
 
-
     Returns
     -------
     list of dict
@@ -505,8 +504,7 @@ def fit_model(model, space, *, seed: int = 0, n_point: int = 3000, n_dev: int = 
     Returns
     -------
     record : dict
-        The content of
- ``localisation_probability.json``: ``format``, ``description``,
+        The content of ``localisation_probability.json``: ``format``, ``description``,
         ``features`` (:data:`~sourcelab.trust.probability.FEATURES`), ``coefficients``
         (``"power"`` and ``"z"``, intercept first) and ``fit`` (seeds, counts, hit rates,
         λ², number of sources, seconds taken).
@@ -549,7 +547,6 @@ def main(argv=None) -> int:
         Exit code 0; the coefficients are written atomically to ``--out`` and the fit summary
         printed.
     """
-
     p = argparse.ArgumentParser(prog="python -m sourcelab.simulate.localisation")
     p.add_argument("--out", required=True)
     p.add_argument("--n", type=int, default=3000, help="simulations per map kind")

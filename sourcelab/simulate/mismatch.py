@@ -310,7 +310,6 @@ def cache_dir() -> Path:
         ``SOURCELAB_BENCH_CACHE`` when set, else ``~/.cache/sourcelab-bench``; not created
         here.
     """
-
     env = os.environ.get("SOURCELAB_BENCH_CACHE")
     return Path(env) if env else Path.home() / ".cache" / "sourcelab-bench"
 

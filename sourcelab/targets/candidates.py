@@ -14,7 +14,6 @@ other: a focal generator in one inflates the other.  A candidate whose neighbour
 way is more likely a blurred (or broad) pattern than a focal source; ``neighbours_same`` counts
 them.
 
-
 Networks
 --------
 A network ROI's value is the mean power over *all* its sources, so its z is the pooled network
@@ -505,13 +504,11 @@ def candidates_html(candidates: pd.DataFrame, *, max_rows: int = 20) -> str:
     max_rows : int
         Rows shown at most (the first ``max_rows`` rows of ``candidates``).
 
-
     Returns
     -------
     html : str
         The ``<section class="sourcelab-candidates">`` fragment, text escaped.
     """
-
     e = html.escape
     cols = ("rank", "kind", "atlas", "roi", "hemisphere", "band", "measure", "z", "direction",
             "fdr", "n_vertices", "small", "neighbours_same", "members_deviating")

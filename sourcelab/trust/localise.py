@@ -300,7 +300,6 @@ def peak_margin(values: np.ndarray, labels: np.ndarray, area: int, peak_value: f
     margin : float
         In [0, 1]; 0 when ``peak_value`` is not positive.
     """
-
     v = np.asarray(values, dtype=float)
     outside = v[np.asarray(labels) != area]
     other = float(np.nanmax(outside)) if outside.size else 0.0

@@ -101,7 +101,6 @@ class MatchResult:
         margin : float
             Difference of correlations, in [-2, 2] for an area with candidates (``-inf``
             without); positive when ``area`` matches best.
-
         """
         other = np.delete(self.area_score, area)
         other = other[np.isfinite(other)]
@@ -178,6 +177,5 @@ def name_area(values: np.ndarray, space, peak: int, *, exclude=None, **kw) -> in
     code : int
         The named area's code, or 0.
     """
-
     o = match_scores(values, space, peak, **kw).order(exclude)
     return int(o[0]) if o.size else 0

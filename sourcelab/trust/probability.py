@@ -151,7 +151,6 @@ def area_probability(values: np.ndarray, space, area: int, own: np.ndarray, *, k
     sourcelab.errors.InputError
         When ``kind`` has no coefficients in ``model`` or ``area`` has no sources.
     """
-
     model = model or shipped_model()
     if kind not in model["coefficients"]:
         raise InputError(f"kind: {kind!r} is not one of {sorted(model['coefficients'])}")
