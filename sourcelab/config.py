@@ -64,6 +64,7 @@ def standard_bands(*, h_freq: float = 45.0, sub_bands: bool = False
     Returns
     -------
     tuple of (name, low, high)
+        Band name and edges in Hz, in increasing frequency.
     """
     out = []
     top = min(float(h_freq), IFCN_BANDS[-1][2])
@@ -343,6 +344,7 @@ class AnalysisConfig:
         Returns
         -------
         config : AnalysisConfig
+            A new configuration; this one is unchanged (frozen).
         """
         if "bands" not in changes and self.bands == Bands.standard(h_freq=self.h_freq,
                                                                    sub_bands=self.sub_bands):
@@ -459,6 +461,7 @@ def check_sampling_rate(config: AnalysisConfig, sfreq: float, *, where=None) -> 
     Parameters
     ----------
     config : AnalysisConfig
+        Its band edges and ``l_freq`` are checked.
     sfreq : float
         Sampling rate of the recording, Hz.
     where : str | Path | None

@@ -223,6 +223,8 @@ def demo_result(*, config=None, progress: bool | None = False):
     Returns
     -------
     AnalysisResult
+        The invented demo participant (41 y, eyes closed) z-scored against the invented demo
+        norms.
     """
     from .analysis import analyze
 

@@ -112,7 +112,9 @@ def make_setup(model, space, *, seed: int = 0, n_jitter: int = 16, realisations=
     Parameters
     ----------
     model : HeadModel
+        The template head model (electrodes, sources, normals).
     space : CortexSpace
+        Inverse side (template kernel, area codes, mesh) whose sources are simulated.
     seed, n_jitter : int
         Of :func:`sourcelab.simulate.mismatch.mismatch_forward`.
     realisations : sequence of int, optional
@@ -173,6 +175,7 @@ def wishart_csd(cov: np.ndarray, n_epochs: int, rng: np.random.Generator) -> np.
     n_epochs : int
         Independent spectral estimates averaged (sets the sampling error).
     rng : numpy.random.Generator
+        Draws the complex Gaussian Fourier coefficients.
 
     Returns
     -------
@@ -196,6 +199,7 @@ def point_source_maps(setup: SimSetup, sources: np.ndarray, *, rng: np.random.Ge
     Parameters
     ----------
     setup : SimSetup
+        True-head gains and backgrounds (:func:`make_setup`).
     sources : ndarray of int, shape (n,)
         Source indices of ``setup.space``.
     rng : numpy.random.Generator
@@ -208,6 +212,7 @@ def point_source_maps(setup: SimSetup, sources: np.ndarray, *, rng: np.random.Ge
     Returns
     -------
     maps : ndarray, shape (n, n_src)
+        Source power through the template kernel (arbitrary unit).
     real : ndarray of int, shape (n,)
         Jitter realisation used for each.
     """
@@ -236,6 +241,7 @@ def patch_sources(setup: SimSetup, centre: int, radius_mm: float) -> np.ndarray:
     Parameters
     ----------
     setup : SimSetup
+        Supplies mid-thickness positions (mm) and hemispheres.
     centre : int
         Source index of the patch centre.
     radius_mm : float
@@ -257,6 +263,7 @@ def person_covariance(setup: SimSetup, rng: np.random.Generator, *, age: float, 
     Parameters
     ----------
     setup : SimSetup
+        True-head gains (:func:`make_setup`).
     rng : numpy.random.Generator
         Draws the person's global scale and regional pattern.
     age : float
@@ -271,6 +278,8 @@ def person_covariance(setup: SimSetup, rng: np.random.Generator, *, age: float, 
     Returns
     -------
     ndarray, shape (n_ch, n_ch)
+        Expected cross-spectrum (unit cortical source variance; arbitrary unit), not
+        re-referenced; background, white sensor noise and the patch.
     """
     g = setup.true_gain[real]
     n_src = g.shape[1]
@@ -300,6 +309,7 @@ def simulate_people(setup: SimSetup, ages: np.ndarray, rng: np.random.Generator,
     Parameters
     ----------
     setup : SimSetup
+        True-head gains (:func:`make_setup`).
     ages : ndarray, shape (n,)
         Ages, years.
     rng : numpy.random.Generator
@@ -317,6 +327,8 @@ def simulate_people(setup: SimSetup, ages: np.ndarray, rng: np.random.Generator,
     Returns
     -------
     list of ndarray, one per kernel, shape (n, n_rows)
+        Power per person and kernel row, from one sampled cross-spectrum per person (arbitrary
+        unit).
     """
     n = len(ages)
     out = [np.empty((n, k.shape[0])) for k in kernels]
@@ -339,7 +351,9 @@ def fit_logistic(x: np.ndarray, y: np.ndarray, *, ridge: float = 1e-3, max_iter:
     Parameters
     ----------
     x : ndarray, shape (n, k)
+        Features, one row per observation (no intercept column).
     y : ndarray of {0, 1}, shape (n,)
+        Outcomes.
     ridge : float
         L2 penalty on the slopes (not the intercept).
     max_iter : int
@@ -402,9 +416,11 @@ def point_source_set(setup: SimSetup, n: int, rng: np.random.Generator, *,
     Parameters
     ----------
     setup : SimSetup
+        True head and inverse side (:func:`make_setup`).
     n : int
         Number of maps; sources drawn uniformly from ``setup.space``.
     rng : numpy.random.Generator
+        Draws sources, SNRs, jitter realisations and noise.
     snr_range : (float, float)
         Range of the amplitude SNR, drawn log-uniformly.
 
@@ -442,9 +458,11 @@ def deviation_set(setup: SimSetup, n: int, rng: np.random.Generator, *, n_contro
     Parameters
     ----------
     setup : SimSetup
+        True head and inverse side (:func:`make_setup`).
     n : int
         Number of deviating people.
     rng : numpy.random.Generator
+        Draws the cohort, the patches and every person's data.
     n_controls : int
         Invented reference people behind the per-source norms.
     ratio_range : (float, float)

@@ -151,6 +151,7 @@ def sphere_radii(src_pos: np.ndarray, r0: np.ndarray, *, margin_mm: float = BRAI
     Returns
     -------
     ndarray, shape (3,)
+        Brain, skull and scalp outer radii, metres.
     """
     r_brain = float(np.linalg.norm(np.asarray(src_pos) - r0, axis=1).max()) + margin_mm * 1e-3
     return np.array([r_brain, r_brain + skull_mm * 1e-3, r_brain + (skull_mm + scalp_mm) * 1e-3])
@@ -190,10 +191,13 @@ def jitter_tangential(pos: np.ndarray, r0: np.ndarray, radius: float, *, rms_mm:
     pos : ndarray, shape (n, 3)
         Points on the sphere, metres.
     r0 : ndarray, shape (3,)
+        Sphere centre, metres.
     radius : float
         Metres.
     rms_mm : float
+        Total RMS of the displacement (arc length), mm.
     rng : numpy Generator
+        Draws the displacements.
 
     Returns
     -------
@@ -257,6 +261,7 @@ def sphere_gain(ch_pos_sets: np.ndarray, src_pos: np.ndarray, src_nn: np.ndarray
     src_pos, src_nn : ndarray, shape (n_src, 3)
         Source positions (metres, head frame) and unit normals.
     r0 : ndarray, shape (3,)
+        Sphere centre, metres, head frame.
     radii : ndarray, shape (3,)
         Brain, skull, scalp radii, metres.
     sigmas : tuple of 3 float
@@ -399,6 +404,7 @@ def noisy_csd(topographies: np.ndarray, *, snr: float, n_epochs: int,
     n_epochs : int
         Epochs (independent spectral estimates) averaged.
     rng : numpy Generator
+        Draws the Fourier coefficients of signal and noise.
     background : ndarray, shape (n_ch, n_ch), optional
         Brain-noise covariance; default: white noise only.
     background_share : float

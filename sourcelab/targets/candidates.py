@@ -146,6 +146,7 @@ def roi_adjacency(vertex_sets, centroids: np.ndarray, *, edges: np.ndarray | Non
     edges : ndarray, shape (n_edges, 2), optional
         Mesh edges over the sources (see :func:`mesh_edges`).
     max_centroid_mm : float
+        ROIs whose centroids lie within this distance, mm, are neighbours.
 
     Returns
     -------
@@ -186,6 +187,7 @@ def network_members(networks, members, *, min_overlap: float = MEMBER_OVERLAP) -
     Returns
     -------
     list of list of int
+        Per network, in order, the indices into ``members`` of the member ROIs.
     """
     out = []
     for net in networks:
@@ -390,6 +392,8 @@ def read_candidates(result_dir: str | Path) -> pd.DataFrame | None:
     Returns
     -------
     DataFrame | None
+        The table as written (``n/a`` read as missing), or None when the folder has no
+        ``candidates.tsv``.
     """
     path = Path(result_dir) / "candidates.tsv"
     if not path.is_file():

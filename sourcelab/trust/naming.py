@@ -130,6 +130,7 @@ def match_scores(values: np.ndarray, space, peak: int, *, cand_mm: float = CAND_
     Returns
     -------
     MatchResult
+        Candidate sources, their correlations and the best correlation per area code.
     """
     v = np.asarray(values, dtype=float)
     if v.shape != (space.n_src,):

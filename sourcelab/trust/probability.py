@@ -90,6 +90,9 @@ def area_features(values: np.ndarray, space, area: int, own: np.ndarray) -> np.n
     Returns
     -------
     ndarray, shape (4,)
+        ``log1p`` of the border distance (mm) at the area's maximum, the peak margin
+        (:func:`~sourcelab.trust.localise.peak_margin`), log of the area's number of sources,
+        logit of its own-share (the order of :data:`FEATURES`).
     """
     from .localise import peak_margin
 
@@ -132,6 +135,7 @@ def area_probability(values: np.ndarray, space, area: int, own: np.ndarray, *, k
     values : ndarray, shape (n_src,)
         Non-negative map (``|z|`` for ``kind="z"``, power for ``kind="power"``).
     space : CortexSpace
+        Supplies area codes and border distances (mm).
     area : int
         Area code named for the map (first of the peak ranking).
     own : ndarray
