@@ -64,6 +64,7 @@ def standard_bands(*, h_freq: float = 45.0, sub_bands: bool = False
     Returns
     -------
     tuple of (name, low, high)
+        Band name and edges in Hz, in increasing frequency.
     """
     out = []
     top = min(float(h_freq), IFCN_BANDS[-1][2])
@@ -142,16 +143,52 @@ class Bands:
 
     @classmethod
     def standard(cls, *, h_freq: float = 45.0, sub_bands: bool = False) -> "Bands":
-        """The IFCN bands of :func:`standard_bands`."""
+        """The IFCN bands of :func:`standard_bands`.
+
+        Parameters
+        ----------
+        h_freq : float
+            Analysis low-pass, Hz; gamma is capped at ``min(h_freq, 45)`` Hz and left out when
+            ``h_freq <= 30`` Hz.
+        sub_bands : bool
+            Alpha1/alpha2 and beta1/beta2 in place of alpha and beta.
+
+        Returns
+        -------
+        bands : Bands
+        """
         b = standard_bands(h_freq=h_freq, sub_bands=sub_bands)
         return cls(tuple(n for n, _, _ in b), tuple((lo, hi) for _, lo, hi in b))
 
     def as_list(self) -> list[list]:
+        """The bands as plain lists, in order (for JSON provenance).
+
+        Returns
+        -------
+        bands : list of [str, float, float]
+            ``[name, low, high]`` per band, edges in Hz.
+        """
         return [[n, float(lo), float(hi)] for n, (lo, hi) in zip(self.names, self.edges)]
 
     @classmethod
     def from_mapping(cls, mapping: dict) -> "Bands":
-        """Build from ``{"alpha": [8, 12], ...}`` (TOML table order is kept)."""
+        """Build from ``{"alpha": [8, 12], ...}`` (TOML table order is kept).
+
+        Parameters
+        ----------
+        mapping : dict of str to [float, float]
+            Band name to ``[low, high]`` edges, Hz.
+
+        Returns
+        -------
+        bands : Bands
+            Validated on construction (names, edges, no overlaps).
+
+        Raises
+        ------
+        sourcelab.errors.InputError
+            When ``mapping`` is not a table, or a value is not a pair, naming the band.
+        """
         if not isinstance(mapping, dict):
             raise InputError("bands: must be a table of name = [low, high] (Hz), got "
                              f"{type(mapping).__name__} {mapping!r:.40}", field="bands")
@@ -294,12 +331,35 @@ class AnalysisConfig:
         return 1.0 / self.snr**2
 
     def replace(self, **changes) -> "AnalysisConfig":
+        """A copy with some fields changed, validated again.
+
+        Default bands (those of :meth:`Bands.standard` for this ``h_freq`` and ``sub_bands``)
+        follow a changed ``h_freq`` or ``sub_bands`` unless ``bands`` is given too.
+
+        Parameters
+        ----------
+        **changes
+            Field names of :class:`AnalysisConfig` and their new values.
+
+        Returns
+        -------
+        config : AnalysisConfig
+            A new configuration; this one is unchanged (frozen).
+        """
         if "bands" not in changes and self.bands == Bands.standard(h_freq=self.h_freq,
                                                                    sub_bands=self.sub_bands):
             changes["bands"] = None  # default bands follow a changed h_freq / sub_bands
         return dataclasses.replace(self, **changes)
 
     def to_dict(self) -> dict:
+        """Every field as plain JSON-ready values, for provenance.
+
+        Returns
+        -------
+        config : dict
+            The fields of :class:`AnalysisConfig`, ``bands`` as ``[[name, low_hz, high_hz],
+            ...]`` (:meth:`Bands.as_list`), plus the derived ``lambda2`` (1/SNR²).
+        """
         d = dataclasses.asdict(self)
         d["bands"] = self.bands.as_list()
         d["lambda2"] = self.lambda2
@@ -401,6 +461,7 @@ def check_sampling_rate(config: AnalysisConfig, sfreq: float, *, where=None) -> 
     Parameters
     ----------
     config : AnalysisConfig
+        Its band edges and ``l_freq`` are checked.
     sfreq : float
         Sampling rate of the recording, Hz.
     where : str | Path | None
@@ -423,6 +484,25 @@ def load_config(path: str | Path | None = None, **overrides) -> AnalysisConfig:
     ``[bands]`` table (``alpha = [8, 12]``).  Unknown keys are an error, not silently ignored.
     Every error names the file and the field (or the command-line option ``--field`` for an
     override).
+
+    Parameters
+    ----------
+    path : str or pathlib.Path or None
+        TOML configuration file; None: defaults plus ``overrides``.
+    **overrides
+        Field values that replace those of the file; None values are ignored (an option not
+        given on the command line).
+
+    Returns
+    -------
+    config : AnalysisConfig
+        Validated.
+
+    Raises
+    ------
+    sourcelab.errors.InputError
+        When the file is missing, too large, not UTF-8 TOML, has unknown keys, or a value is
+        out of range.
     """
     values: dict = {}
     if path is not None:

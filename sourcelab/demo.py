@@ -85,7 +85,25 @@ def _person_background(rng: np.random.Generator, age: float) -> float:
 
 def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
                     extra: tuple[Generator, ...] = ()):
-    """One invented person's recording as an ``mne.io.RawArray``."""
+    """One invented person's recording as an ``mne.io.RawArray``.
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator
+        Source of the person's variability (generator strengths, alpha frequency, background
+        level, 1/f exponent and spectral shape) and of the simulated signals; advanced in place.
+    age : float
+        Age of the invented person, years (alpha slows and background power falls with age).
+    duration_s : float
+        Length of the recording, s.
+    extra : tuple of sourcelab.simulate.Generator
+        Generators added to the person's own (e.g. the planted theta patch).
+
+    Returns
+    -------
+    raw : mne.io.RawArray
+        The 19 10-20 sites at 256 Hz.
+    """
     from .headmodel import load_head_model
 
     gens = _person_generators(rng, age) + tuple(extra)
@@ -101,7 +119,15 @@ def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
 
 
 def demo_recording():
-    """The invented demo participant's recording (deterministic)."""
+    """The invented demo participant's recording (deterministic).
+
+    Returns
+    -------
+    raw : mne.io.RawArray
+        240 s of invented eyes-closed rest at 256 Hz (19 sites) of the 41-year-old demo
+        participant, with the planted left dorsolateral prefrontal theta patch
+        (:data:`PLANTED`), seeded by :data:`DEMO_SEED`.
+    """
     rng = np.random.default_rng(DEMO_SEED)
     # A moderate excess: area-mean absolute theta z about 2 in BA8/9/46 against the invented
     # norms, the size of deviation practitioners follow up (|z| 2-3, common practice).  With
@@ -114,7 +140,27 @@ def demo_recording():
 
 
 def cohort(n: int = 80, *, duration_s: float = 120.0, seed: int = COHORT_SEED):
-    """Yield ``(participant_id, age, raw)`` for the invented reference cohort (streamed)."""
+    """Yield ``(participant_id, age, raw)`` for the invented reference cohort (streamed).
+
+    Parameters
+    ----------
+    n : int
+        Number of invented people; ages drawn uniformly in 18-65 years and yielded in
+        ascending order.
+    duration_s : float
+        Length of each recording, s.
+    seed : int
+        Seed of the cohort (the same seed gives the same people).
+
+    Yields
+    ------
+    participant_id : str
+        ``"inv001"``, ``"inv002"``, ...
+    age : float
+        Age, years.
+    raw : mne.io.RawArray
+        The person's recording (see :func:`simulate_person`).
+    """
     rng = np.random.default_rng(seed)
     ages = np.sort(rng.uniform(18, 65, n))
     for i, age in enumerate(ages):
@@ -123,7 +169,22 @@ def cohort(n: int = 80, *, duration_s: float = 120.0, seed: int = COHORT_SEED):
 
 
 def write_edf(raw, path: Path, *, description: str) -> Path:
-    """Write a recording to EDF (atomic), labelled as invented in the header."""
+    """Write a recording to EDF (atomic), labelled as invented in the header.
+
+    Parameters
+    ----------
+    raw : mne.io.BaseRaw
+        The recording (not changed; a copy is written).
+    path : pathlib.Path
+        EDF file to write; its folder must exist.  Replaced atomically when it exists.
+    description : str
+        Text of a zero-length annotation at 0 s (the invented-data label).
+
+    Returns
+    -------
+    path : pathlib.Path
+        ``path``.
+    """
     import mne
 
     raw = raw.copy()
@@ -137,7 +198,13 @@ def write_edf(raw, path: Path, *, description: str) -> Path:
 
 
 def demo_norms_path() -> Path:
-    """The shipped invented demo norms."""
+    """The shipped invented demo norms.
+
+    Returns
+    -------
+    path : pathlib.Path
+        ``demo_norms.tsv`` in the package data folder.
+    """
     from .data import data_path
 
     return data_path("demo_norms.tsv")
@@ -156,6 +223,8 @@ def demo_result(*, config=None, progress: bool | None = False):
     Returns
     -------
     AnalysisResult
+        The invented demo participant (41 y, eyes closed) z-scored against the invented demo
+        norms.
     """
     from .analysis import analyze
 
@@ -177,6 +246,24 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0,
 
     ``progress``: a bar over the simulated participants (each simulated and analysed) on
     standard error (None: only when it is a terminal).
+
+    Parameters
+    ----------
+    out : str or pathlib.Path
+        Norms TSV to write; the sidecar files are written beside it.  When it lies in the
+        package data folder the data manifest's hashes are updated too.
+    n : int
+        Number of invented people (those with too little clean data are left out, with a
+        warning).
+    duration_s : float
+        Length of each invented recording, s.
+    progress : bool or None
+        Progress bar on standard error; None: only when it is a terminal.
+
+    Returns
+    -------
+    path : pathlib.Path
+        ``out``.
     """
     from tqdm import tqdm
 

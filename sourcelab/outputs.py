@@ -19,6 +19,14 @@ log = logging.getLogger("sourcelab")
 
 
 def software_versions() -> dict:
+    """Versions of sourcelab, Python and the libraries that shape the numbers and figures.
+
+    Returns
+    -------
+    versions : dict of str to str or None
+        ``sourcelab``, ``python``, ``mne``, ``numpy``, ``scipy``, ``nilearn``, ``nibabel``,
+        ``matplotlib`` and ``pandas``; None for a library that is not installed.
+    """
     import importlib.metadata as md
 
     out = {"sourcelab": __version__, "python": platform.python_version()}
@@ -31,7 +39,24 @@ def software_versions() -> dict:
 
 
 def provenance(result, *, command: list[str] | None = None) -> dict:
-    """The provenance record written as ``provenance.json``."""
+    """The provenance record written as ``provenance.json``.
+
+    Parameters
+    ----------
+    result : sourcelab.result.AnalysisResult
+        The analysis.
+    command : list of str or None
+        The command line to record; None: ``sys.argv``.
+
+    Returns
+    -------
+    record : dict
+        ``sourcelab_provenance`` (format version), ``command``, ``inputs`` (recording path and
+        SHA-256, norms), ``recording``, ``parameters`` (the effective configuration),
+        ``fingerprint``, ``quality``, ``warnings``, ``versions``
+        (:func:`software_versions`) and ``cautions``.  May hold NaN; the writer replaces them
+        by null.
+    """
     rec = result.recording.to_dict()
     return {
         "sourcelab_provenance": 1,
@@ -87,7 +112,23 @@ _ADDED_COLUMN_NOTES = {
 def table_sidecar(table, notes: dict, *, band_edges: dict | None = None) -> dict:
     """BIDS-style column descriptions of a coupling table as written (see
     :func:`sourcelab.exports.column_sidecar`): ``Description``, ``Units``, ``Levels``; the unit
-    of ``value`` is given once per measure (``measure`` levels), not on every row."""
+    of ``value`` is given once per measure (``measure`` levels), not on every row.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        The pair or edge coupling table, one row per quantity.
+    notes : dict of str to str
+        Column name to description; added to (and overriding) the descriptions of the columns
+        that z-scoring and intervals add.
+    band_edges : dict of str to (float, float) or None
+        Band name to its edges, Hz, for the ``band`` levels.
+
+    Returns
+    -------
+    sidecar : dict
+        Column name to its BIDS-style description entry.
+    """
     from .coupling import MEASURE_DESCRIPTIONS
     from .exports import column_sidecar
 
@@ -117,7 +158,17 @@ def _write_coupling_tables(result, folder: Path) -> None:
 def write_tables(result, folder: Path, *, command=None) -> None:
     """``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json``, ``epochs.npz`` (when the
     result keeps its per-epoch cross-spectra) and, when coupling was computed, ``pair_table.tsv``
-    / ``coupling_table.tsv``, each with a ``.json`` column sidecar, into ``folder``."""
+    / ``coupling_table.tsv``, each with a ``.json`` column sidecar, into ``folder``.
+
+    Parameters
+    ----------
+    result : sourcelab.result.AnalysisResult
+        The analysis.
+    folder : pathlib.Path
+        Existing folder to write into.
+    command : list of str or None
+        The command line recorded in ``provenance.json``; None: ``sys.argv``.
+    """
     from .exports import column_sidecar, write_table
 
     edges = dict(zip(result.bands.names, result.bands.edges))
@@ -144,6 +195,24 @@ def write_analysis(result, out: str | Path, *, figures: bool = True, report: boo
     """Write everything for one analysis into ``out`` (replaced atomically).
 
     See :func:`write_analysis_into` for the files.
+
+    Parameters
+    ----------
+    result : sourcelab.result.AnalysisResult
+        The analysis.
+    out : str or pathlib.Path
+        Output folder; written in a temporary folder beside it and renamed into place.
+    figures, report, exports : bool
+        Write the figures, the HTML/PDF report, the source-map exports (``maps/``).
+    command : list of str or None
+        The command line recorded in ``provenance.json``; None: ``sys.argv``.
+    progress : bool or None
+        Stage progress on standard error; None: only when it is a terminal.
+
+    Returns
+    -------
+    out : pathlib.Path
+        The output folder.
     """
     out = Path(out)
     with atomic_output_dir(out) as tmp:
@@ -165,6 +234,19 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
     GIfTI per hemisphere, NIfTI in MNI space; power and, with per-source norms, z).
 
     ``progress``: stage progress on standard error (None: only when it is a terminal).
+
+    Parameters
+    ----------
+    result : sourcelab.result.AnalysisResult
+        The analysis.
+    folder : pathlib.Path
+        Existing (temporary) folder to write into.
+    figures, report, exports : bool
+        Write the figures, the HTML/PDF report, the source-map exports (``maps/``).
+    command : list of str or None
+        The command line recorded in ``provenance.json``; None: ``sys.argv``.
+    progress : bool or None
+        Stage progress on standard error; None: only when it is a terminal.
 
     Returns
     -------

@@ -39,7 +39,13 @@ class Stages:
         return self
 
     def step(self, name: str) -> None:
-        """Start stage ``name`` (the previous one is counted as done)."""
+        """Start stage ``name`` (the previous one is counted as done).
+
+        Parameters
+        ----------
+        name : str
+            The stage, shown after the bar.
+        """
         if self._bar is not None:
             if self._done:
                 self._bar.update(1)

@@ -10,7 +10,15 @@ from ..errors import InputError
 
 
 def add_common_options(p) -> None:
-    """Options shared by analyze, demo and batch."""
+    """Options shared by analyze, demo and batch.
+
+    Parameters
+    ----------
+    p : argparse.ArgumentParser
+        Sub-command parser to extend in place with ``--config``, ``--method``, ``--orientation``,
+        ``--snr`` (amplitude SNR, λ² = 1/SNR²) and the output options of
+        :func:`add_output_options`.
+    """
     p.add_argument("--config", metavar="TOML", help="analysis configuration file")
     p.add_argument("--method", choices=("sLORETA", "eLORETA", "dSPM"), help="inverse method")
     p.add_argument("--orientation", choices=("fixed", "free"), help="source orientation")
@@ -19,7 +27,14 @@ def add_common_options(p) -> None:
 
 
 def add_output_options(p) -> None:
-    """Options that skip the slow outputs (analyze, demo, batch)."""
+    """Options that skip the slow outputs (analyze, demo, batch).
+
+    Parameters
+    ----------
+    p : argparse.ArgumentParser
+        Sub-command parser to extend in place with ``--no-figures``, ``--no-report`` and
+        ``--no-maps``.
+    """
     p.add_argument("--no-figures", action="store_true", help="tables and provenance only")
     p.add_argument("--no-report", action="store_true", help="skip the HTML report")
     p.add_argument("--no-maps", action="store_true",
@@ -27,6 +42,20 @@ def add_output_options(p) -> None:
 
 
 def config_from_args(args):
+    """The analysis configuration from ``--config`` with the command-line overrides applied.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed arguments with ``config`` (TOML path or None), ``method``, ``orientation`` and
+        ``snr`` (each None when not given on the command line).
+
+    Returns
+    -------
+    config : sourcelab.config.AnalysisConfig
+        The configuration read by :func:`sourcelab.config.load_config`; flags override the
+        file.
+    """
     from ..config import load_config
 
     return load_config(args.config, method=args.method, orientation=args.orientation,
@@ -34,11 +63,30 @@ def config_from_args(args):
 
 
 def progress_flag(args) -> bool | None:
-    """Progress bars: off with ``-q``, else only when standard error is a terminal (None)."""
+    """Progress bars: off with ``-q``, else only when standard error is a terminal (None).
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed arguments; ``quiet`` is read when present.
+
+    Returns
+    -------
+    enabled : bool or None
+        False with ``-q``; None (decide from whether standard error is a terminal) otherwise.
+    """
     return False if getattr(args, "quiet", False) else None
 
 
 def add_parser(sub) -> None:
+    """Register the ``analyze`` sub-command.
+
+    Parameters
+    ----------
+    sub : argparse._SubParsersAction
+        The sub-parsers object of the ``sourcelab`` parser; the new parser dispatches to
+        :func:`run`.
+    """
     p = sub.add_parser("analyze", help="analyse one recording",
                        description="Analyse one 19-channel 10-20 recording: source band power, "
                                    "ROI tables, z-scores (with --norms), figures and report.")
@@ -66,6 +114,19 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
+    """Analyse one recording and write its output folder (``sourcelab analyze``).
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed ``analyze`` arguments (see :func:`add_parser`).
+
+    Returns
+    -------
+    code : int
+        Exit code 0. Bad input raises :class:`sourcelab.errors.InputError`, which the
+        command line turns into one line and exit code 2.
+    """
     from ..analysis import analyze
 
     path = Path(args.recording)
@@ -104,7 +165,24 @@ _RANGE = re.compile(r"^\s*([-+]?\d+(?:\.\d*)?)\s*-\s*([-+]?\d+(?:\.\d*)?)\s*$")
 
 def parse_select(values):
     """``--select`` values: ``"T0-T1"`` (seconds) becomes a time range, anything else is an
-    annotation description."""
+    annotation description.
+
+    Parameters
+    ----------
+    values : list of str or None
+        The repeated ``--select`` values as given.
+
+    Returns
+    -------
+    select : list of (tuple of (float, float) or str) or None
+        One entry per value, in order: ``(t0, t1)`` in seconds from the start of the recording,
+        or the annotation description unchanged; None when ``values`` is empty or None.
+
+    Raises
+    ------
+    sourcelab.errors.InputError
+        When a range has a negative time or its end does not come after its start.
+    """
     if not values:
         return None
     out = []
@@ -125,7 +203,16 @@ def parse_select(values):
 
 def print_summary(result, out) -> None:
     """The result's summary on standard output, one ``sourcelab:`` line each, with what the
-    cleaning removed and the procedure spans it left out."""
+    cleaning removed and the procedure spans it left out.
+
+    Parameters
+    ----------
+    result : sourcelab.result.AnalysisResult
+        The analysis result; its ``summary()`` and ``quality`` (rejected seconds per reason,
+        excluded procedure spans) are printed.
+    out : str or pathlib.Path
+        The output folder written, named on the ``wrote`` line.
+    """
     q = result.quality
     removed = {k: v for k, v in q.rejected_s.items() if v}
     lines = result.summary().splitlines()

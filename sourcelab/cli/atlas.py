@@ -8,6 +8,14 @@ from ..errors import InputError
 
 
 def add_parser(sub) -> None:
+    """Register the ``atlas`` sub-command with its ``list``, ``show`` and ``plot`` actions.
+
+    Parameters
+    ----------
+    sub : argparse._SubParsersAction
+        The sub-parsers object of the ``sourcelab`` parser; every action dispatches to
+        :func:`run`.
+    """
     p = sub.add_parser("atlas", help="list, show or plot the shipped atlases")
     asub = p.add_subparsers(dest="atlas_cmd", metavar="ACTION", required=True)
     asub.add_parser("list", help="available atlases and their ROI counts").set_defaults(func=run)
@@ -21,6 +29,19 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
+    """List the shipped atlases, print one atlas's ROIs, or render one atlas to a PNG.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed ``atlas`` arguments: ``atlas_cmd`` (``"list"``, ``"show"`` or ``"plot"``),
+        ``name`` (show, plot) and ``out`` (plot; must end in ``.png``).
+
+    Returns
+    -------
+    code : int
+        Exit code 0. Bad input raises :class:`sourcelab.errors.InputError` (exit code 2).
+    """
     from ..rois import atlas_summary, available_atlases, load_atlas
 
     if args.atlas_cmd == "list":

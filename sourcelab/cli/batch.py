@@ -12,6 +12,14 @@ import sys
 
 
 def add_parser(sub) -> None:
+    """Register the ``batch`` sub-command.
+
+    Parameters
+    ----------
+    sub : argparse._SubParsersAction
+        The sub-parsers object of the ``sourcelab`` parser; the new parser dispatches to
+        :func:`run`.
+    """
     from .analyze import add_common_options
 
     p = sub.add_parser(
@@ -41,6 +49,20 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
+    """Analyse every recording found in the inputs into one folder each (``sourcelab batch``).
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed ``batch`` arguments (see :func:`add_parser`).
+
+    Returns
+    -------
+    code : int
+        0 when every recording is done or already up to date, 1 when at least one failed (the
+        others are written; see ``failures.tsv``). Wrong input raises
+        :class:`sourcelab.errors.InputError` (exit code 2).
+    """
     from ..batch import discover, make_engine, run_batch
     from ..errors import InputError
     from .analyze import config_from_args

@@ -6,6 +6,14 @@ from pathlib import Path
 
 
 def add_parser(sub) -> None:
+    """Register the ``demo`` sub-command.
+
+    Parameters
+    ----------
+    sub : argparse._SubParsersAction
+        The sub-parsers object of the ``sourcelab`` parser; the new parser dispatches to
+        :func:`run`.
+    """
     from .analyze import add_output_options
 
     p = sub.add_parser("demo", help="run the pipeline on an invented demo participant",
@@ -20,6 +28,20 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
+    """Analyse the invented demo participant against the invented demo norms, or rebuild them.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed ``demo`` arguments: ``out`` (output folder, replaced atomically),
+        ``rebuild_norms`` (write the invented demo norms to this TSV instead), the output
+        options and ``quiet``.
+
+    Returns
+    -------
+    code : int
+        Exit code 0.
+    """
     import dataclasses
 
     from .. import demo

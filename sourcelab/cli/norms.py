@@ -4,6 +4,14 @@ from __future__ import annotations
 
 
 def add_parser(sub) -> None:
+    """Register the ``norms`` sub-command with its ``build`` and ``check`` actions.
+
+    Parameters
+    ----------
+    sub : argparse._SubParsersAction
+        The sub-parsers object of the ``sourcelab`` parser; both actions dispatch to
+        :func:`run`.
+    """
     from .analyze import add_common_options
 
     p = sub.add_parser("norms", help="build norms from reference recordings, or check a file")
@@ -31,6 +39,20 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
+    """Build a norms TSV from reference recordings, or validate and summarise a norms file.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed ``norms`` arguments: ``norms_cmd`` (``"build"`` or ``"check"``) and that
+        action's options (see :func:`add_parser`).
+
+    Returns
+    -------
+    code : int
+        Exit code 0; recordings that fail during ``build`` are skipped and named on standard
+        output. Bad input raises :class:`sourcelab.errors.InputError` (exit code 2).
+    """
     from ..norms import check_norms
 
     if args.norms_cmd == "check":

@@ -112,11 +112,22 @@ def make_setup(model, space, *, seed: int = 0, n_jitter: int = 16, realisations=
     Parameters
     ----------
     model : HeadModel
+        The template head model (electrodes, sources, normals).
     space : CortexSpace
+        Inverse side (template kernel, area codes, mesh) whose sources are simulated.
     seed, n_jitter : int
         Of :func:`sourcelab.simulate.mismatch.mismatch_forward`.
     realisations : sequence of int, optional
         Realisations to use (default all jittered ones, 1..n_jitter).
+    exclude_unresolvable : bool
+        Leave the areas not resolvable from 19 electrodes out of naming
+        (:func:`sourcelab.trust.resolvability.unresolvable_codes`); False: none left out.
+
+    Returns
+    -------
+    setup : SimSetup
+        True-head gains and backgrounds of ``space``'s sources for every realisation
+        (``n_real = n_jitter + 1``), leakage own-shares and the excluded area codes.
     """
     from .mismatch import mismatch_forward
     from ..trust.resolvability import own_shares, resolvability_table, unresolvable_codes
@@ -134,7 +145,20 @@ def make_setup(model, space, *, seed: int = 0, n_jitter: int = 16, realisations=
 
 
 def power_map(kernel: np.ndarray, csd: np.ndarray) -> np.ndarray:
-    """``diag(K C Kᵀ)``; csd (n_ch, n_ch) or (n, n_ch, n_ch) -> (n_src,) or (n, n_src)."""
+    """``diag(K C Kᵀ)``; csd (n_ch, n_ch) or (n, n_ch, n_ch) -> (n_src,) or (n, n_src).
+
+    Parameters
+    ----------
+    kernel : ndarray, shape (n_src, n_ch)
+        Inverse operator (rows: sources).
+    csd : ndarray, shape (n_ch, n_ch) or (n, n_ch, n_ch)
+        Real band cross-spectrum (or covariance) of the sensors, one or a stack.
+
+    Returns
+    -------
+    power : ndarray, shape (n_src,) or (n, n_src)
+        Source power, in the unit of ``csd`` times the kernel's unit squared.
+    """
     c = np.asarray(csd)
     if c.ndim == 2:
         return np.einsum("rc,rc->r", kernel @ c, kernel)
@@ -142,7 +166,22 @@ def power_map(kernel: np.ndarray, csd: np.ndarray) -> np.ndarray:
 
 
 def wishart_csd(cov: np.ndarray, n_epochs: int, rng: np.random.Generator) -> np.ndarray:
-    """Mean of ``n_epochs`` complex-Gaussian cross-spectral estimates with expectation ``cov``."""
+    """Mean of ``n_epochs`` complex-Gaussian cross-spectral estimates with expectation ``cov``.
+
+    Parameters
+    ----------
+    cov : ndarray, shape (n_ch, n_ch)
+        Expected (real, symmetric positive semi-definite) cross-spectrum.
+    n_epochs : int
+        Independent spectral estimates averaged (sets the sampling error).
+    rng : numpy.random.Generator
+        Draws the complex Gaussian Fourier coefficients.
+
+    Returns
+    -------
+    csd : ndarray, shape (n_ch, n_ch)
+        Real part of the averaged sample cross-spectrum, same unit as ``cov``.
+    """
     ev, vec = np.linalg.eigh(cov)
     ll = vec * np.sqrt(np.clip(ev, 0, None))
     w = rng.standard_normal((cov.shape[0], n_epochs)) + 1j * rng.standard_normal(
@@ -159,14 +198,21 @@ def point_source_maps(setup: SimSetup, sources: np.ndarray, *, rng: np.random.Ge
 
     Parameters
     ----------
+    setup : SimSetup
+        True-head gains and backgrounds (:func:`make_setup`).
     sources : ndarray of int, shape (n,)
         Source indices of ``setup.space``.
+    rng : numpy.random.Generator
+        Draws the jitter realisation of each map and the noise.
     snr : float, ndarray (n,), or None
         Amplitude SNR (noise half brain background, half white); None: noise-free.
+    n_epochs : int
+        Epochs averaged in each noisy cross-spectrum (not used when ``snr`` is None).
 
     Returns
     -------
     maps : ndarray, shape (n, n_src)
+        Source power through the template kernel (arbitrary unit).
     real : ndarray of int, shape (n,)
         Jitter realisation used for each.
     """
@@ -190,7 +236,22 @@ def point_source_maps(setup: SimSetup, sources: np.ndarray, *, rng: np.random.Ge
 
 # ----------------------------------------------------------------------------- people
 def patch_sources(setup: SimSetup, centre: int, radius_mm: float) -> np.ndarray:
-    """Sources of ``setup.space`` within ``radius_mm`` (mid-thickness, same hemisphere)."""
+    """Sources of ``setup.space`` within ``radius_mm`` (mid-thickness, same hemisphere).
+
+    Parameters
+    ----------
+    setup : SimSetup
+        Supplies mid-thickness positions (mm) and hemispheres.
+    centre : int
+        Source index of the patch centre.
+    radius_mm : float
+        Straight-line radius around the centre, mm.
+
+    Returns
+    -------
+    sources : ndarray of int, shape (n_patch,)
+        Source indices, ascending (the centre included).
+    """
     d = np.linalg.norm(setup.mid_pos - setup.mid_pos[centre], axis=1)
     return np.flatnonzero((d <= radius_mm) & (setup.hemi == setup.hemi[centre]))
 
@@ -201,6 +262,10 @@ def person_covariance(setup: SimSetup, rng: np.random.Generator, *, age: float, 
 
     Parameters
     ----------
+    setup : SimSetup
+        True-head gains (:func:`make_setup`).
+    rng : numpy.random.Generator
+        Draws the person's global scale and regional pattern.
     age : float
         Years (sets the age trend).
     real : int
@@ -213,6 +278,8 @@ def person_covariance(setup: SimSetup, rng: np.random.Generator, *, age: float, 
     Returns
     -------
     ndarray, shape (n_ch, n_ch)
+        Expected cross-spectrum (unit cortical source variance; arbitrary unit), not
+        re-referenced; background, white sensor noise and the patch.
     """
     g = setup.true_gain[real]
     n_src = g.shape[1]
@@ -241,16 +308,27 @@ def simulate_people(setup: SimSetup, ages: np.ndarray, rng: np.random.Generator,
 
     Parameters
     ----------
+    setup : SimSetup
+        True-head gains (:func:`make_setup`).
     ages : ndarray, shape (n,)
+        Ages, years.
+    rng : numpy.random.Generator
+        Draws each person's realisation, pattern and sampled cross-spectrum.
     kernels : sequence of ndarray (n_rows, n_ch)
         Operators to apply (e.g. the cortex-only and the full-space kernel).
+    n_epochs : int
+        Epochs averaged in each person's sampled cross-spectrum.
     patches : sequence of (ndarray of int or None), optional
         Focal excess per person.
     ratios : ndarray, shape (n,), optional
+        Patch-to-background mean channel power ratio per person
+        (:func:`person_covariance`'s ``patch_ratio``); default 0.
 
     Returns
     -------
     list of ndarray, one per kernel, shape (n, n_rows)
+        Power per person and kernel row, from one sampled cross-spectrum per person (arbitrary
+        unit).
     """
     n = len(ages)
     out = [np.empty((n, k.shape[0])) for k in kernels]
@@ -273,7 +351,13 @@ def fit_logistic(x: np.ndarray, y: np.ndarray, *, ridge: float = 1e-3, max_iter:
     Parameters
     ----------
     x : ndarray, shape (n, k)
+        Features, one row per observation (no intercept column).
     y : ndarray of {0, 1}, shape (n,)
+        Outcomes.
+    ridge : float
+        L2 penalty on the slopes (not the intercept).
+    max_iter : int
+        Newton steps at most (stops earlier when every coefficient moves less than 1e-9).
 
     Returns
     -------
@@ -300,6 +384,15 @@ def fit_logistic(x: np.ndarray, y: np.ndarray, *, ridge: float = 1e-3, max_iter:
 def reliability(prob: np.ndarray, hit: np.ndarray, *, edges=(0.0, 0.2, 0.4, 0.6, 0.8, 1.0)):
     """Binned calibration: per bin of stated probability, count, mean stated, observed rate.
 
+    Parameters
+    ----------
+    prob : ndarray, shape (n,)
+        Stated probabilities, 0..1.
+    hit : ndarray of {0, 1} or bool, shape (n,)
+        Outcomes (named area is the true one).
+    edges : sequence of float
+        Bin edges; bins are ``[lo, hi)``, closed (``[lo, hi]``) when ``hi >= 1``.
+
     Returns
     -------
     list of dict
@@ -319,6 +412,17 @@ def reliability(prob: np.ndarray, hit: np.ndarray, *, edges=(0.0, 0.2, 0.4, 0.6,
 def point_source_set(setup: SimSetup, n: int, rng: np.random.Generator, *,
                      snr_range=(1.5, 10.0)):
     """Features and outcomes of ``n`` point-source power maps (SNR log-uniform in range).
+
+    Parameters
+    ----------
+    setup : SimSetup
+        True head and inverse side (:func:`make_setup`).
+    n : int
+        Number of maps; sources drawn uniformly from ``setup.space``.
+    rng : numpy.random.Generator
+        Draws sources, SNRs, jitter realisations and noise.
+    snr_range : (float, float)
+        Range of the amplitude SNR, drawn log-uniformly.
 
     Returns
     -------
@@ -350,6 +454,21 @@ def deviation_set(setup: SimSetup, n: int, rng: np.random.Generator, *, n_contro
 
     A cohort of ``n_controls`` invented adults (18-65 y) gives per-source norms (degree 1 in
     log age, robust rule); each deviating person gets a patch at a random source.
+
+    Parameters
+    ----------
+    setup : SimSetup
+        True head and inverse side (:func:`make_setup`).
+    n : int
+        Number of deviating people.
+    rng : numpy.random.Generator
+        Draws the cohort, the patches and every person's data.
+    n_controls : int
+        Invented reference people behind the per-source norms.
+    ratio_range : (float, float)
+        Range of the patch-to-background mean channel power ratio, drawn log-uniformly.
+    radius_range : (float, float)
+        Range of the patch radius, mm, drawn uniformly.
 
     Returns
     -------
@@ -384,7 +503,30 @@ def deviation_set(setup: SimSetup, n: int, rng: np.random.Generator, *, n_contro
 
 def fit_model(model, space, *, seed: int = 0, n_point: int = 3000, n_dev: int = 3000,
               sim_seed: int = 1) -> dict:
-    """Fit both coefficient sets on simulations (jitter realisations ``1..8`` of ``seed``)."""
+    """Fit both coefficient sets on simulations (jitter realisations ``1..8`` of ``seed``).
+
+    Parameters
+    ----------
+    model : HeadModel
+        The template head model (electrodes, sources).
+    space : CortexSpace
+        Inverse side whose maps are named.
+    seed : int
+        Seed of the electrode jitter (:func:`sourcelab.simulate.mismatch.mismatch_forward`).
+    n_point, n_dev : int
+        Simulated point-source power maps (``"power"`` coefficients) and focal deviations
+        (``"z"`` coefficients).
+    sim_seed : int
+        Seed of the simulations.
+
+    Returns
+    -------
+    record : dict
+        The content of ``localisation_probability.json``: ``format``, ``description``,
+        ``features`` (:data:`~sourcelab.trust.probability.FEATURES`), ``coefficients``
+        (``"power"`` and ``"z"``, intercept first) and ``fit`` (seeds, counts, hit rates,
+        λ², number of sources, seconds taken).
+    """
     setup = make_setup(model, space, seed=seed, realisations=range(1, 9))
     rng = np.random.default_rng(sim_seed)
     t0 = time.perf_counter()
@@ -410,7 +552,19 @@ def fit_model(model, space, *, seed: int = 0, n_point: int = 3000, n_dev: int = 
 
 
 def main(argv=None) -> int:
-    """``python -m sourcelab.simulate.localisation --out PATH``: refit the shipped coefficients."""
+    """``python -m sourcelab.simulate.localisation --out PATH``: refit the shipped coefficients.
+
+    Parameters
+    ----------
+    argv : list of str or None
+        Arguments (``--out PATH``, ``--n`` simulations per map kind); None: ``sys.argv[1:]``.
+
+    Returns
+    -------
+    code : int
+        Exit code 0; the coefficients are written atomically to ``--out`` and the fit summary
+        printed.
+    """
     p = argparse.ArgumentParser(prog="python -m sourcelab.simulate.localisation")
     p.add_argument("--out", required=True)
     p.add_argument("--n", type=int, default=3000, help="simulations per map kind")

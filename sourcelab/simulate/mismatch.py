@@ -109,6 +109,17 @@ class MismatchForward:
         ----------
         sources : array of int
             Template source indices, each present in ``self.sources``.
+
+        Returns
+        -------
+        forward : MismatchForward
+            Gains of those sources, shape (n_real, n_ch, len(sources)), in the order given;
+            everything else unchanged.
+
+        Raises
+        ------
+        sourcelab.errors.InputError
+            When a source is not in this forward.
         """
         sources = np.asarray(sources, dtype=np.int64)
         pos = np.full(int(max(self.sources.max(), sources.max())) + 1, -1)
@@ -132,17 +143,37 @@ def sphere_radii(src_pos: np.ndarray, r0: np.ndarray, *, margin_mm: float = BRAI
         Source positions, metres.
     r0 : ndarray, shape (3,)
         Sphere centre, metres.
+    margin_mm : float
+        Gap between the outermost source and the brain sphere, mm.
+    skull_mm, scalp_mm : float
+        Shell thicknesses, mm.
 
     Returns
     -------
     ndarray, shape (3,)
+        Brain, skull and scalp outer radii, metres.
     """
     r_brain = float(np.linalg.norm(np.asarray(src_pos) - r0, axis=1).max()) + margin_mm * 1e-3
     return np.array([r_brain, r_brain + skull_mm * 1e-3, r_brain + (skull_mm + scalp_mm) * 1e-3])
 
 
 def project_to_sphere(pos: np.ndarray, r0: np.ndarray, radius: float) -> np.ndarray:
-    """Move points radially (from ``r0``) onto the sphere of ``radius``; shapes (..., 3)."""
+    """Move points radially (from ``r0``) onto the sphere of ``radius``; shapes (..., 3).
+
+    Parameters
+    ----------
+    pos : ndarray, shape (..., 3)
+        Points, metres (none at ``r0``).
+    r0 : ndarray, shape (3,)
+        Sphere centre, metres.
+    radius : float
+        Sphere radius, metres.
+
+    Returns
+    -------
+    ndarray, shape (..., 3)
+        The points on the sphere, metres.
+    """
     d = np.asarray(pos, dtype=float) - r0
     return r0 + d * (radius / np.linalg.norm(d, axis=-1, keepdims=True))
 
@@ -160,10 +191,13 @@ def jitter_tangential(pos: np.ndarray, r0: np.ndarray, radius: float, *, rms_mm:
     pos : ndarray, shape (n, 3)
         Points on the sphere, metres.
     r0 : ndarray, shape (3,)
+        Sphere centre, metres.
     radius : float
         Metres.
     rms_mm : float
+        Total RMS of the displacement (arc length), mm.
     rng : numpy Generator
+        Draws the displacements.
 
     Returns
     -------
@@ -188,7 +222,21 @@ def jitter_tangential(pos: np.ndarray, r0: np.ndarray, radius: float, *, rms_mm:
 
 # ----------------------------------------------------------------------------- MNE forward
 def fit_sphere_centre(ch_pos: np.ndarray, ch_names) -> np.ndarray:
-    """MNE's least-squares sphere fit to electrode positions (head frame), centre in metres."""
+    """MNE's least-squares sphere fit to electrode positions (head frame), centre in metres.
+
+    Parameters
+    ----------
+    ch_pos : ndarray, shape (n_ch, 3)
+        Electrode positions, metres, head frame.
+    ch_names : sequence of str
+        Channel names, one per row of ``ch_pos``.
+
+    Returns
+    -------
+    r0 : ndarray, shape (3,)
+        Sphere centre, metres, head frame (:func:`mne.bem.fit_sphere_to_headshape` with
+        ``dig_kinds=("eeg",)``).
+    """
     import mne
 
     info = mne.create_info(list(ch_names), 250.0, ch_types="eeg")
@@ -213,6 +261,7 @@ def sphere_gain(ch_pos_sets: np.ndarray, src_pos: np.ndarray, src_nn: np.ndarray
     src_pos, src_nn : ndarray, shape (n_src, 3)
         Source positions (metres, head frame) and unit normals.
     r0 : ndarray, shape (3,)
+        Sphere centre, metres, head frame.
     radii : ndarray, shape (3,)
         Brain, skull, scalp radii, metres.
     sigmas : tuple of 3 float
@@ -258,7 +307,14 @@ def sphere_gain(ch_pos_sets: np.ndarray, src_pos: np.ndarray, src_nn: np.ndarray
 
 
 def cache_dir() -> Path:
-    """Folder for cached simulation inputs (outside the repository)."""
+    """Folder for cached simulation inputs (outside the repository).
+
+    Returns
+    -------
+    folder : pathlib.Path
+        ``SOURCELAB_BENCH_CACHE`` when set, else ``~/.cache/sourcelab-bench``; not created
+        here.
+    """
     env = os.environ.get("SOURCELAB_BENCH_CACHE")
     return Path(env) if env else Path.home() / ".cache" / "sourcelab-bench"
 
@@ -348,6 +404,7 @@ def noisy_csd(topographies: np.ndarray, *, snr: float, n_epochs: int,
     n_epochs : int
         Epochs (independent spectral estimates) averaged.
     rng : numpy Generator
+        Draws the Fourier coefficients of signal and noise.
     background : ndarray, shape (n_ch, n_ch), optional
         Brain-noise covariance; default: white noise only.
     background_share : float

@@ -11,7 +11,8 @@ fsaverage5 white surface is ~133,000 mm² (20,484 sources x ~6.5 mm² each, meas
 builder), so 3 % is ~4,000 mm², a disc of radius ~36 mm.  Two ROIs are therefore *neighbours* when
 they share a mesh edge, or when their centroids lie within :data:`NEIGHBOUR_MM` = 35 mm of each
 other: a focal generator in one inflates the other.  A candidate whose neighbours deviate the same
-way is more likely a blurred (or broad) pattern than a focal source; ``neighbours_same`` counts them.
+way is more likely a blurred (or broad) pattern than a focal source; ``neighbours_same`` counts
+them.
 
 Networks
 --------
@@ -87,7 +88,24 @@ class ResultFolder:
 
 
 def read_result_folder(path: str | Path) -> ResultFolder:
-    """Read ``roi_table.tsv`` and ``provenance.json`` of an analysis folder."""
+    """Read ``roi_table.tsv`` and ``provenance.json`` of an analysis folder.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        An analysis folder written by sourcelab.
+
+    Returns
+    -------
+    folder : ResultFolder
+        The ROI table (label columns as str) with the provenance and its pipeline fingerprint.
+
+    Raises
+    ------
+    sourcelab.errors.InputError
+        When the folder or one of the two files is missing or unreadable, the provenance has no
+        fingerprint, or the table lacks a needed column.
+    """
     path = Path(path)
     if not path.is_dir():
         raise InputError("not an analysis folder (no such directory)", path=path)
@@ -128,6 +146,7 @@ def roi_adjacency(vertex_sets, centroids: np.ndarray, *, edges: np.ndarray | Non
     edges : ndarray, shape (n_edges, 2), optional
         Mesh edges over the sources (see :func:`mesh_edges`).
     max_centroid_mm : float
+        ROIs whose centroids lie within this distance, mm, are neighbours.
 
     Returns
     -------
@@ -162,10 +181,13 @@ def network_members(networks, members, *, min_overlap: float = MEMBER_OVERLAP) -
     ----------
     networks, members : sequence of ndarray of int
         Vertex sets.
+    min_overlap : float
+        A member needs more than this fraction of its sources inside the network (0..1).
 
     Returns
     -------
     list of list of int
+        Per network, in order, the indices into ``members`` of the member ROIs.
     """
     out = []
     for net in networks:
@@ -305,6 +327,21 @@ def candidates_for_table(roi_table: pd.DataFrame, *, max_n: int | None = None,
     """Candidates of a z-scored ROI table with the shipped atlases and template mesh edges.
 
     For the report: ``candidates_html(candidates_for_table(result.roi_table))``.
+
+    Parameters
+    ----------
+    roi_table : DataFrame
+        An analysis ROI table z-scored against norms (see :func:`rank_candidates`).
+    max_n : int, optional
+        Keep the first ``max_n`` rows.
+    include : tuple of str, optional
+        Atlases to rank (default: all in the table).
+
+    Returns
+    -------
+    DataFrame
+        Columns :data:`CANDIDATE_COLUMNS`, as :func:`rank_candidates`; ROIs of atlases that
+        are not shipped (custom ROI sets) get no neighbour counts.
     """
     from ..headmodel import load_head_model
     from ..headmodel.geometry import source_edges
@@ -324,7 +361,22 @@ def candidates_for_table(roi_table: pd.DataFrame, *, max_n: int | None = None,
 
 def candidates_from_folder(result_dir: str | Path, *, max_n: int | None = None,
                            include: tuple[str, ...] | None = None) -> pd.DataFrame:
-    """Candidates of an analysis folder (``roi_table.tsv``); see :func:`candidates_for_table`."""
+    """Candidates of an analysis folder (``roi_table.tsv``); see :func:`candidates_for_table`.
+
+    Parameters
+    ----------
+    result_dir : str or pathlib.Path
+        An analysis folder (analysed with norms).
+    max_n : int, optional
+        Keep the first ``max_n`` rows.
+    include : tuple of str, optional
+        Atlases to rank (default: all in the table).
+
+    Returns
+    -------
+    DataFrame
+        Columns :data:`CANDIDATE_COLUMNS`.
+    """
     return candidates_for_table(read_result_folder(result_dir).roi_table, max_n=max_n,
                                 include=include)
 
@@ -340,6 +392,8 @@ def read_candidates(result_dir: str | Path) -> pd.DataFrame | None:
     Returns
     -------
     DataFrame | None
+        The table as written (``n/a`` read as missing), or None when the folder has no
+        ``candidates.tsv``.
     """
     path = Path(result_dir) / "candidates.tsv"
     if not path.is_file():
@@ -390,7 +444,20 @@ CANDIDATE_COLUMN_NOTES = {
 
 def candidates_sidecar(candidates: pd.DataFrame) -> dict:
     """The JSON sidecar of ``candidates.tsv``: column descriptions (BIDS style) and, under
-    ``Cautions``, what the table can and cannot say."""
+    ``Cautions``, what the table can and cannot say.
+
+    Parameters
+    ----------
+    candidates : DataFrame
+        The candidate table as written (its columns are described).
+
+    Returns
+    -------
+    sidecar : dict
+        ``{column: {"Description": ..., "Units": ...}}`` (units for z in standard deviations
+        of the norm and for MNI coordinates and border distances in mm), plus ``Cautions``
+        and ``GeneratedBy``.
+    """
     out = {c: {"Description": CANDIDATE_COLUMN_NOTES.get(c, c.replace("_", " "))}
            for c in candidates.columns}
     from .. import __version__
@@ -407,7 +474,21 @@ def candidates_sidecar(candidates: pd.DataFrame) -> dict:
 
 def write_candidates(candidates: pd.DataFrame, path: str | Path) -> Path:
     """Write the candidate table as a plain TSV (atomically; header row first) and its sidecar
-    ``<stem>.json`` (column descriptions and the cautions)."""
+    ``<stem>.json`` (column descriptions and the cautions).
+
+    Parameters
+    ----------
+    candidates : DataFrame
+        The candidate table; missing values are written as ``n/a``, floats with 4 significant
+        digits.
+    path : str or pathlib.Path
+        TSV file to write; the sidecar goes beside it with the suffix ``.json``.
+
+    Returns
+    -------
+    path : pathlib.Path
+        The TSV written.
+    """
     path = Path(path)
     body = candidates.to_csv(sep="\t", index=False, na_rep="n/a", float_format="%.4g")
     atomic_write_text(path.with_suffix(".json"),
@@ -418,7 +499,20 @@ def write_candidates(candidates: pd.DataFrame, path: str | Path) -> Path:
 
 
 def candidates_html(candidates: pd.DataFrame, *, max_rows: int = 20) -> str:
-    """An HTML fragment (a ``<section>``) for the report: the ranked table and the cautions."""
+    """An HTML fragment (a ``<section>``) for the report: the ranked table and the cautions.
+
+    Parameters
+    ----------
+    candidates : DataFrame
+        Ranked candidates (:data:`CANDIDATE_COLUMNS`).
+    max_rows : int
+        Rows shown at most (the first ``max_rows`` rows of ``candidates``).
+
+    Returns
+    -------
+    html : str
+        The ``<section class="sourcelab-candidates">`` fragment, text escaped.
+    """
     e = html.escape
     cols = ("rank", "kind", "atlas", "roi", "hemisphere", "band", "measure", "z", "direction",
             "fdr", "n_vertices", "small", "neighbours_same", "members_deviating")

@@ -43,6 +43,7 @@ def peak_candidates(zmaps: dict, space, *, own: np.ndarray, exclude=(),
     zmaps : dict
         ``{(measure, band): ndarray (n_src,)}`` per-source z on ``space``'s sources.
     space : CortexSpace
+        Localisation space: area codes, names, lobes, mesh (MNI305 mm) and border distances.
     own : ndarray, shape (n_codes,)
         Leakage own-share per area code.
     exclude : sequence of int
@@ -124,10 +125,13 @@ def peak_candidates_for(zmaps: dict, *, lambda2: float = 1 / 9,
     lambda2 : float
         λ² of the analysis (own-shares and resolvability are those of its operator).
     include_unresolvable : bool
+        Keep candidates in areas not resolvable from 19 electrodes (flagged
+        ``resolvable = False``).
 
     Returns
     -------
     DataFrame
+        Columns :data:`PEAK_CANDIDATE_COLUMNS`, as :func:`peak_candidates`.
     """
     from ..trust.resolvability import localisation_context
 

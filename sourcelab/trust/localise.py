@@ -77,6 +77,7 @@ def cortical_mesh(faces: np.ndarray, pos_mm: np.ndarray, vertices: np.ndarray | 
     Returns
     -------
     CorticalMesh
+        Edge lengths in mm between the kept vertices, positions ``pos_mm[vertices]``.
     """
     from scipy import sparse
 
@@ -109,8 +110,11 @@ def local_maxima(values: np.ndarray, mesh: CorticalMesh, *, threshold: float = -
     Parameters
     ----------
     values : ndarray, shape (n_src,)
+        Map over the mesh's sources (e.g. ``|z|`` or power); non-finite values are never peaks.
     mesh : CorticalMesh
+        Supplies the neighbours.
     threshold : float
+        Peaks need ``value > threshold``.
 
     Returns
     -------
@@ -132,6 +136,15 @@ def local_maxima(values: np.ndarray, mesh: CorticalMesh, *, threshold: float = -
 
 def clusters(values: np.ndarray, mesh: CorticalMesh, threshold: float) -> np.ndarray:
     """Connected supra-threshold clusters along mesh edges.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        Map (``|z|`` or power); non-finite values count as below threshold.
+    mesh : CorticalMesh
+        Supplies the edges along which sources connect.
+    threshold : float
+        Sources need ``value > threshold``.
 
     Returns
     -------
@@ -171,10 +184,13 @@ def border_distance(labels: np.ndarray, mesh: CorticalMesh) -> np.ndarray:
     labels : ndarray of int, shape (n_src,)
         Area code per source (0 = none).
     mesh : CorticalMesh
+        Edge lengths in mm.
 
     Returns
     -------
     ndarray, shape (n_src,)
+        Distance along mesh edges to the own area's border, mm (0 on the border, ``inf``
+        for an area without a border).
     """
     from scipy.sparse.csgraph import dijkstra
 
@@ -194,9 +210,11 @@ def area_maxima(values: np.ndarray, labels: np.ndarray, n_areas: int) -> tuple[n
     Parameters
     ----------
     values : ndarray, shape (n_src,)
+        Map over the sources (e.g. ``|z|`` or power).
     labels : ndarray of int, shape (n_src,)
         Area code 1..n_areas per source (0 = none, ignored).
     n_areas : int
+        Highest area code.
 
     Returns
     -------
@@ -229,6 +247,7 @@ def rank_areas(values: np.ndarray, labels: np.ndarray, n_areas: int, *,
     labels : ndarray of int, shape (n_src,)
         Area code per source (0 = none).
     n_areas : int
+        Highest area code.
     exclude : array of int, optional
         Area codes left out (e.g. areas not resolvable from 19 electrodes).
 
@@ -245,7 +264,22 @@ def rank_areas(values: np.ndarray, labels: np.ndarray, n_areas: int, *,
 
 
 def rank_areas_by_mean(values: np.ndarray, labels: np.ndarray, n_areas: int) -> np.ndarray:
-    """Area codes ordered by their mean value (the ROI-mean ranking, for comparison)."""
+    """Area codes ordered by their mean value (the ROI-mean ranking, for comparison).
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        E.g. ``|z|`` or power.
+    labels : ndarray of int, shape (n_src,)
+        Area code per source (0 = none, ignored).
+    n_areas : int
+        Highest area code.
+
+    Returns
+    -------
+    ndarray of int
+        Area codes, highest mean first; areas without sources are dropped.
+    """
     lab = np.asarray(labels, dtype=np.int64)
     s = np.bincount(lab, weights=np.asarray(values, float), minlength=n_areas + 1)
     c = np.bincount(lab, minlength=n_areas + 1)
@@ -261,6 +295,22 @@ def peak_margin(values: np.ndarray, labels: np.ndarray, area: int, peak_value: f
 
     0 means another area reaches the same height; values near 1 a peak far above everything
     outside the named area.  For non-negative maps (|z|, power).
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        Non-negative map.
+    labels : ndarray of int, shape (n_src,)
+        Area code per source.
+    area : int
+        The named area's code.
+    peak_value : float
+        The highest value inside ``area``.
+
+    Returns
+    -------
+    margin : float
+        In [0, 1]; 0 when ``peak_value`` is not positive.
     """
     v = np.asarray(values, dtype=float)
     outside = v[np.asarray(labels) != area]
@@ -292,6 +342,7 @@ def peak_table(values: np.ndarray, mesh: CorticalMesh, labels: np.ndarray, area_
     signs : ndarray, shape (n_src,), optional
         Sign of the underlying signed map (z), reported per peak.
     max_peaks : int
+        Peaks reported at most (the highest).
     border_mm : ndarray, shape (n_src,), optional
         Precomputed :func:`border_distance`.
 

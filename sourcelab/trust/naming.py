@@ -70,7 +70,18 @@ class MatchResult:
     area_score: np.ndarray
 
     def order(self, exclude=None) -> np.ndarray:
-        """Area codes by decreasing score (codes without candidates dropped)."""
+        """Area codes by decreasing score (codes without candidates dropped).
+
+        Parameters
+        ----------
+        exclude : array of int, optional
+            Area codes left out (e.g. not resolvable from 19 electrodes).
+
+        Returns
+        -------
+        ndarray of int
+            Area codes, best template match first.
+        """
         s = self.area_score.copy()
         if exclude is not None and len(exclude):
             s[np.asarray(exclude, dtype=np.int64)] = -np.inf
@@ -78,7 +89,19 @@ class MatchResult:
         return o[np.isfinite(s[o])]
 
     def margin(self, area: int) -> float:
-        """Score of ``area`` minus the best score of any other area (0 when alone)."""
+        """Score of ``area`` minus the best score of any other area (0 when alone).
+
+        Parameters
+        ----------
+        area : int
+            Area code.
+
+        Returns
+        -------
+        margin : float
+            Difference of correlations, in [-2, 2] for an area with candidates (``-inf``
+            without); positive when ``area`` matches best.
+        """
         other = np.delete(self.area_score, area)
         other = other[np.isfinite(other)]
         best = float(other.max()) if other.size else self.area_score[area]
@@ -107,6 +130,7 @@ def match_scores(values: np.ndarray, space, peak: int, *, cand_mm: float = CAND_
     Returns
     -------
     MatchResult
+        Candidate sources, their correlations and the best correlation per area code.
     """
     v = np.asarray(values, dtype=float)
     if v.shape != (space.n_src,):
@@ -134,6 +158,25 @@ def match_scores(values: np.ndarray, space, peak: int, *, cand_mm: float = CAND_
 
 
 def name_area(values: np.ndarray, space, peak: int, *, exclude=None, **kw) -> int:
-    """Area code named for ``peak`` (best template match; 0 when no candidate is eligible)."""
+    """Area code named for ``peak`` (best template match; 0 when no candidate is eligible).
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        Non-negative map (power or |z|).
+    space : CortexSpace
+        Supplies the kernel, gain, mesh positions, hemispheres and area codes.
+    peak : int
+        Source index of the peak.
+    exclude : array of int, optional
+        Area codes that cannot be named (e.g. not resolvable from 19 electrodes).
+    **kw
+        ``cand_mm``, ``row_step`` and ``power`` of :func:`match_scores`.
+
+    Returns
+    -------
+    code : int
+        The named area's code, or 0.
+    """
     o = match_scores(values, space, peak, **kw).order(exclude)
     return int(o[0]) if o.size else 0

@@ -36,14 +36,37 @@ MODEL_FILE = "localisation_probability.json"
 
 @functools.lru_cache(maxsize=1)
 def shipped_model() -> dict:
-    """The shipped coefficients (``sourcelab/data/localisation_probability.json``)."""
+    """The shipped coefficients (``sourcelab/data/localisation_probability.json``).
+
+    Returns
+    -------
+    model : dict
+        ``format``, ``description``, ``features`` (:data:`FEATURES`), ``coefficients`` (one
+        list of ``1 + len(FEATURES)`` numbers per map kind, ``"power"`` and ``"z"``, intercept
+        first) and ``fit`` (how they were fitted).  Cached: the same dict on every call.
+    """
     from ..data import shipped_bytes
 
     return json.loads(shipped_bytes(MODEL_FILE)[0].decode("utf-8"))
 
 
 def named_area(values: np.ndarray, space, exclude=None) -> int:
-    """Code of the first area of :func:`~sourcelab.trust.localise.rank_areas`."""
+    """Code of the first area of :func:`~sourcelab.trust.localise.rank_areas`.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        Map over ``space``'s sources (``|z|`` or power).
+    space : CortexSpace
+        Supplies the area code per source and the number of areas.
+    exclude : array of int, optional
+        Area codes left out (e.g. not resolvable from 19 electrodes).
+
+    Returns
+    -------
+    code : int
+        Area code holding the highest value; 0 when no area is left.
+    """
     from .localise import rank_areas
 
     order = rank_areas(values, space.codes, space.n_areas, exclude=exclude)
@@ -53,9 +76,23 @@ def named_area(values: np.ndarray, space, exclude=None) -> int:
 def area_features(values: np.ndarray, space, area: int, own: np.ndarray) -> np.ndarray:
     """The model's features (:data:`FEATURES`) for ``area`` of a non-negative map.
 
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        Non-negative map over ``space``'s sources (``|z|`` or power).
+    space : CortexSpace
+        Supplies area codes and each source's distance to its area's border, mm.
+    area : int
+        Area code (must have sources).
+    own : ndarray, shape (n_codes,)
+        Leakage own-share per area code, 0..1 (clipped to [1e-4, 1 - 1e-4]).
+
     Returns
     -------
     ndarray, shape (4,)
+        ``log1p`` of the border distance (mm) at the area's maximum, the peak margin
+        (:func:`~sourcelab.trust.localise.peak_margin`), log of the area's number of sources,
+        logit of its own-share (the order of :data:`FEATURES`).
     """
     from .localise import peak_margin
 
@@ -71,7 +108,20 @@ def area_features(values: np.ndarray, space, area: int, own: np.ndarray) -> np.n
 
 
 def predict_logistic(coef: np.ndarray, x: np.ndarray) -> np.ndarray:
-    """Probabilities of :func:`fit_logistic`'s model, shape (n,)."""
+    """Probabilities of :func:`fit_logistic`'s model, shape (n,).
+
+    Parameters
+    ----------
+    coef : ndarray, shape (k + 1,)
+        Intercept first, then one slope per feature.
+    x : ndarray, shape (n, k) or (k,)
+        Features, one row per map.
+
+    Returns
+    -------
+    prob : ndarray, shape (n,)
+        Logistic probabilities, 0..1 (``n = 1`` for a single feature vector).
+    """
     eta = np.asarray(coef)[0] + np.atleast_2d(x) @ np.asarray(coef)[1:]
     return 0.5 * (1 + np.tanh(0.5 * eta))
 
@@ -85,6 +135,7 @@ def area_probability(values: np.ndarray, space, area: int, own: np.ndarray, *, k
     values : ndarray, shape (n_src,)
         Non-negative map (``|z|`` for ``kind="z"``, power for ``kind="power"``).
     space : CortexSpace
+        Supplies area codes and border distances (mm).
     area : int
         Area code named for the map (first of the peak ranking).
     own : ndarray
@@ -92,6 +143,17 @@ def area_probability(values: np.ndarray, space, area: int, own: np.ndarray, *, k
     kind : {"power", "z"}
     model : dict, optional
         Default :func:`shipped_model`.
+
+    Returns
+    -------
+    prob : float
+        Probability, 0..1, calibrated under the simulation model of
+        :mod:`sourcelab.simulate.localisation` (a real head can differ more).
+
+    Raises
+    ------
+    sourcelab.errors.InputError
+        When ``kind`` has no coefficients in ``model`` or ``area`` has no sources.
     """
     model = model or shipped_model()
     if kind not in model["coefficients"]:
