@@ -266,8 +266,42 @@ def _render(func, args, kwargs, dpi):
     return figure_png(func(*args, **kwargs), dpi=dpi)
 
 
+def figure_jobs() -> int:
+    """Worker processes for drawing a figure set on this machine: the cores this process may
+    use (at most 4), or 1 inside a worker process (a batch worker must not fork its own pool).
+
+    Returns
+    -------
+    int
+        >= 1.
+    """
+    import multiprocessing as mp
+    import os
+
+    if mp.parent_process() is not None:
+        return 1
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        cores = os.cpu_count() or 1
+    return max(1, min(4, cores))
+
+
 def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
-    """Draw the queued figures, in this process or in ``n_jobs`` forked workers."""
+    """Draw the queued figures, in this process or in ``n_jobs`` forked workers.
+
+    Drawing runs with one BLAS thread: the small linear-algebra calls of plotting (scipy's
+    Delaunay transforms behind MNE's topomap interpolation, 19 points) otherwise wake a
+    BLAS thread pool each time, which costs ~0.4 CPU-s per map on a busy machine instead of
+    ~0.1 ms.
+    """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(1):
+        return _run_limited(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+
+
+def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
     if n_jobs == 1 or not as_png or len(jobs) < 2:
         return {key: (_render(f, a, k, dpi) if as_png else f(*a, **k))
                 for key, f, a, k in jobs}

@@ -57,6 +57,16 @@ def sensor_topomaps(values: np.ndarray, *, band_names, scale,
     fig : matplotlib.figure.Figure
         One axes per band (with the interpolated map as an image) and a colour bar.
     """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(1):  # see figure_set._run: BLAS threads spin on 19-point transforms
+        return _sensor_topomaps(values, band_names=band_names, scale=scale, ch_names=ch_names,
+                                title=title, image_interp=image_interp, names=names, dpi=dpi,
+                                output_file=output_file)
+
+
+def _sensor_topomaps(values, *, band_names, scale, ch_names, title, image_interp, names, dpi,
+                     output_file) -> Figure:
     import mne
 
     v = np.asarray(values, dtype=float)
