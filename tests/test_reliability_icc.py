@@ -101,3 +101,25 @@ def test_reliability_summary_reports_icc_of_the_halves(rng):
     assert set(d["split_half_icc"]) == set(names)
     short = reliability_summary(power[:1], names)
     assert short.split_half_icc["alpha"] == {"icc": None, "low": None, "high": None}
+
+
+def test_report_shows_icc_with_interval(rng):
+    import re
+
+    from sourcelab.report.build import _reliability
+    from sourcelab.report.labels import reliability_table
+
+    power = np.exp(rng.normal(size=(40, 2, 19)) * 0.3 + rng.normal(size=(1, 2, 19)))
+    rel = {"sensors": reliability_summary(power, ["theta", "alpha"]).to_dict()}
+    t = reliability_table(rel)
+    assert list(t.columns) == ["level", "halves", "theta", "alpha"]
+    assert len(t) == 2
+    for cell in t[["theta", "alpha"]].to_numpy().ravel():
+        v, lo, hi = map(float, re.fullmatch(r"(-?[\d.]+) \((-?[\d.]+) to (-?[\d.]+)\)",
+                                            cell).groups())
+        assert lo <= v <= hi
+    html = _reliability(rel, 0.9)
+    assert "ICC(2,1)" in html and "95 % interval" in html
+    # results written before ICCs were stored still show their correlations
+    old = {"sensors": {k: v for k, v in rel["sensors"].items() if not k.endswith("_icc")}}
+    assert reliability_table(old)["alpha"].str.startswith("r ").all()

@@ -51,6 +51,10 @@ REFERENCES = (
     "57:289-300 (FDR flags, where present)."),
     ("Fonov V et al. (2011). Unbiased average age-appropriate atlases for pediatric studies. "
     "NeuroImage 54:313-327 (MNI152 2009 template used for volume figures)."),
+    ("Shrout PE, Fleiss JL (1979). Intraclass correlations: uses in assessing rater reliability. "
+     "Psychol Bull 86:420-428 (agreement between halves of the recording)."),
+    ("McGraw KO, Wong SP (1996). Forming inferences about some intraclass correlation "
+     "coefficients. Psychol Methods 1:30-46 (intervals of the intraclass correlation)."),
 )
 
 _CSS = """
