@@ -13,6 +13,7 @@ import matplotlib.pyplot as plt
 import numpy as np
 from matplotlib.figure import Figure
 
+from ..checks import check_option
 from . import geometry
 from .colours import ColourScale, add_colourbar, clipped
 
@@ -130,8 +131,7 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
     from nilearn import plotting
 
     v = _check_values(values)
-    if display_mode not in _DISPLAY_MODES:
-        raise ValueError(f"display_mode: {display_mode!r} is not one of {_DISPLAY_MODES}")
+    check_option("display_mode", display_mode, _DISPLAY_MODES)
     raw = v
     v = clipped(v, scale)  # beyond the limits: end colours (the colour bar's arrows say so)
     v = np.where(np.isfinite(v), v, 0.0)

@@ -23,6 +23,7 @@ import logging
 import matplotlib.pyplot as plt
 import numpy as np
 
+from ..checks import check_number, check_option
 from ..errors import InputError
 from . import brain, coupling, roi, sensor
 from .colours import Z_LIMIT, Z_THRESHOLD, power_scale, z_scale
@@ -113,30 +114,29 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
     -------
     figures : dict of str → bytes | Figure
     """
-    bad = [m for m in measures if m not in MEASURES]
-    if bad:
-        raise ValueError(f"measures: {bad} not in {MEASURES}")
-    if not (isinstance(n_jobs, int) and n_jobs >= 1):
-        raise ValueError(f"n_jobs: must be an integer >= 1, got {n_jobs!r}")
+    for m in measures:
+        check_option("measures", m, MEASURES)
+    n_jobs = check_number("n_jobs", n_jobs, kind=int, low=1)
     jobs: list = []
 
     def keep(key, func, *args, **kwargs):
         jobs.append((key, func, args, kwargs))
 
     if isinstance(z_threshold, str):
-        if z_threshold != "config":
-            raise ValueError(f"z_threshold: a number, None or 'config', got {z_threshold!r}")
+        check_option("z_threshold", z_threshold, ("config",))
         z_threshold = getattr(result.config, "z_mask", None)
+    z_limit = check_number("z_limit", z_limit, low=0.0, low_open=True)
+    z_threshold = check_number("z_threshold", z_threshold or None, low=0.0, none_ok=True)
     z_threshold = z_threshold or None
     if z_threshold is not None and z_threshold >= z_limit:
-        raise ValueError(f"z_threshold: {z_threshold:g} must be below z_limit {z_limit:g}")
+        raise InputError(f"z_threshold: {z_threshold:g} must be below z_limit {z_limit:g}",
+                         field="z_threshold")
     zs = z_scale(limit=z_limit, threshold=z_threshold)
     source_z = getattr(result, "source_z", None) or {}
     all_bands = list(result.bands.names)
     per_band = all_bands if bands is None else list(bands)
-    unknown = [b for b in per_band if b not in all_bands]
-    if unknown:
-        raise ValueError(f"bands: {unknown} not in the result's bands {all_bands}")
+    for b in per_band:
+        check_option("bands", b, all_bands)
     bands = all_bands
     labels = outline
     rt = result.roi_table
@@ -218,8 +218,7 @@ def _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measu
     if pt is not None and len(pt) and _has_z(pt):
         have = set(pt["measure"])
         for m in pair_measures:
-            if m not in have:
-                raise ValueError(f"pair_measures: {m!r} not in the pair table ({sorted(have)})")
+            check_option("pair_measures", m, sorted(have))
             for band in per_band:
                 keep(f"pairs/{band}/{m}", coupling.pair_head_map, pt, band=band, measure=m,
                      scale=zs, band_label=labels[band], dpi=dpi,
@@ -228,9 +227,7 @@ def _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measu
     if ct is not None and len(ct):
         have = set(ct["measure"])
         for m in edge_measures:
-            if m not in have:
-                raise ValueError(f"edge_measures: {m!r} not in the coupling table "
-                                 f"({sorted(have)})")
+            check_option("edge_measures", m, sorted(have))
             keep(f"coupling/{m}", coupling.coupling_matrix, ct, measure=m, atlas=atlas,
                  bands=list(result.bands.names), band_labels=labels,
                  scale=zs if _has_z(ct) else None, dpi=dpi,

@@ -9,6 +9,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from ..constants import SITES_1020
+from ..errors import InputError
 from .colours import add_colourbar, clipped
 
 
@@ -24,7 +25,8 @@ def sensor_info(ch_names: tuple[str, ...] = SITES_1020):
     if tuple(ch_names) != SITES_1020:
         missing = sorted(set(ch_names) - set(SITES_1020))
         if missing:
-            raise ValueError(f"ch_names: no fsaverage_1020 position for {missing}")
+            raise InputError(f"ch_names: no fsaverage_1020 position for {missing}",
+                             field="ch_names")
         return make_info(250.0).pick(list(ch_names))
     return make_info(250.0)
 

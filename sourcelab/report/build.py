@@ -303,9 +303,11 @@ def _extra_section(i: int, item) -> tuple[str, str, str]:
     try:
         title, content, *rest = item
     except (TypeError, ValueError):
-        raise ValueError("extra_sections: each item must be (title, content[, note])") from None
+        raise InputError("extra_sections: each item must be (title, content[, note])",
+                         field="extra_sections") from None
     if len(rest) > 1:
-        raise ValueError("extra_sections: each item must be (title, content[, note])")
+        raise InputError("extra_sections: each item must be (title, content[, note])",
+                         field="extra_sections")
     note = f'<p class="note">{_esc(rest[0])}</p>' if rest else ""
     return f"extra-{i}", str(title), note + _extra_body(title, content)
 
@@ -487,7 +489,7 @@ def write_report(result, path, *, figures: dict | None = None,
     """
     path = Path(path)
     if path.exists() and path.is_dir():
-        raise ValueError(f"path: {path} is a folder; give an .html file name")
+        raise InputError("is a folder; give an .html file name", path=path)
     if figures is None:
         from ..figures import figure_png, result_figures
 

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from ..cautions import CAUTIONS  # noqa: F401  (re-exported for the report)
+from ..errors import InputError
 from .labels import MISSING_NUMBER, column_label, field_label, human_table, value_text
 
 logger = logging.getLogger("sourcelab")
@@ -213,7 +214,7 @@ def _png_bytes(fig) -> bytes:
         raise TypeError(f"figures: values must be PNG bytes, a PNG path or a Figure, "
                         f"got {type(fig).__name__}")
     if not data.startswith(b"\x89PNG\r\n\x1a\n"):
-        raise ValueError("figures: image is not a PNG")
+        raise InputError("figures: image is not a PNG", field="figures")
     return data
 
 

@@ -23,7 +23,8 @@ MISSING_NUMBER = "–"
 
 #: Table column -> header.
 COLUMN_LABELS = {
-    "level": "level", "halves": "halves compared", "atlas": "atlas", "roi": "area", "area": "area", "name": "area name",
+    "level": "level", "halves": "halves compared", "atlas": "atlas", "roi": "area",
+    "area": "area", "name": "area name",
     "hemisphere": "side", "band": "band", "measure": "measure", "value": "value",
     "unit": "unit", "n_vertices": "sources", "small": "small area", "resolvable": "resolvable",
     "z": "z", "z_equivalent": "z (normal equivalent)", "p": "p", "fdr_q": "FDR q",
