@@ -8,6 +8,9 @@ if os.environ.get("PYTEST_XDIST_WORKER"):
     # threads spinning against each other make small products seconds slow on a busy machine.
     for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ.setdefault(_var, "1")
+    # ... and the output writer draws figures in the worker itself (no pool per worker); the
+    # parallel drawing is tested explicitly (result_figures(n_jobs=2)).
+    os.environ.setdefault("SOURCELAB_FIGURE_JOBS", "1")
 
 import matplotlib  # noqa: E402
 

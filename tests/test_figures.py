@@ -460,3 +460,22 @@ def test_surface_raster_draws_the_same_pixels_as_matplotlib_3d():
         r = np.corrcoef(ref.ravel(), new.ravel())[0, 1]
         differ = (np.abs(ref - new).max(2) > 10 / 255).mean()
         assert r > 0.999 and differ < 0.02, (r, differ)
+
+
+def test_figure_jobs_follows_cores_workers_and_environment(monkeypatch):
+    import multiprocessing as mp
+    import os
+
+    from sourcelab.errors import InputError
+    from sourcelab.figures.figure_set import figure_jobs
+
+    monkeypatch.delenv("SOURCELAB_FIGURE_JOBS", raising=False)
+    n = figure_jobs()
+    assert 1 <= n <= min(4, len(os.sched_getaffinity(0)))
+    with mp.get_context("fork").Pool(1) as pool:  # inside a worker: never a pool of its own
+        assert pool.apply(figure_jobs) == 1
+    monkeypatch.setenv("SOURCELAB_FIGURE_JOBS", "3")
+    assert figure_jobs() == 3
+    monkeypatch.setenv("SOURCELAB_FIGURE_JOBS", "0")
+    with pytest.raises(InputError, match="SOURCELAB_FIGURE_JOBS"):
+        figure_jobs()

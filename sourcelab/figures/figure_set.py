@@ -267,6 +267,8 @@ def figure_jobs() -> int:
     """Worker processes for drawing a figure set on this machine: the cores this process may
     use (at most 4), or 1 inside a worker process (a batch worker must not fork its own pool).
 
+    The environment variable ``SOURCELAB_FIGURE_JOBS`` (an integer >= 1) overrides it.
+
     Returns
     -------
     int
@@ -275,6 +277,10 @@ def figure_jobs() -> int:
     import multiprocessing as mp
     import os
 
+    env = os.environ.get("SOURCELAB_FIGURE_JOBS")
+    if env:
+        return check_number("SOURCELAB_FIGURE_JOBS", int(env) if env.strip().isdigit() else env,
+                            kind=int, low=1)
     if mp.parent_process() is not None:
         return 1
     try:
