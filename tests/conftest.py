@@ -32,7 +32,8 @@ TIERS = ("known_answer", "property", "reference", "contract")
 MODULE_TIERS = {
     "test_analysis": "known_answer", "test_artefacts": "known_answer",
     "test_compare": "known_answer", "test_coupling_figures": "known_answer",
-    "test_figures": "known_answer", "test_intake": "known_answer", "test_live": "known_answer",
+    "test_figures": "known_answer", "test_intake": "known_answer",
+    "test_reliability_icc": "known_answer", "test_live": "known_answer",
     "test_norms": "known_answer", "test_ocular": "known_answer", "test_rois": "known_answer",
     "test_spectra": "known_answer", "test_states": "known_answer",
     "test_targets_peaks": "known_answer",

@@ -242,6 +242,31 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
     return fig
 
 
+def warm_caches(func, kwargs) -> None:
+    """Fill the caches a queued glass-brain or surface figure will use (the volume lookup, the
+    face-index raster of its layout), so that forked drawing workers share them instead of
+    each building its own.
+
+    Parameters
+    ----------
+    func : callable
+        :func:`glass_brain` or :func:`surface_views` (anything else is ignored).
+    kwargs : dict
+        The keyword arguments the figure will be drawn with.
+    """
+    if func is glass_brain:
+        n_src = geometry.load_head_model().n_src
+        geometry.sources_to_volume(np.zeros(n_src), resolution=kwargs.get("resolution", 2))
+    elif func is surface_views and kwargs.get("raster", True):
+        outline = kwargs.get("outline")
+        if outline is not None:
+            outline = (geometry.atlas_labels(outline) if hasattr(outline, "rois")
+                       else np.asarray(outline))
+        key = None if outline is None else np.asarray(outline, np.int64).tobytes()
+        _face_raster(kwargs.get("surface", "inflated"), 0.92 if kwargs.get("title") else 0.98,
+                     tuple(kwargs.get("figsize", (8.0, 6.0))), int(kwargs.get("dpi", 90)), key)
+
+
 def _view_rects(top: float) -> list[tuple[float, float, float, float]]:
     return [(0.0, top / 2, 0.43, top / 2), (0.43, top / 2, 0.43, top / 2),
             (0.0, 0.0, 0.43, top / 2), (0.43, 0.0, 0.43, top / 2)]

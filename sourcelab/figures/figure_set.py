@@ -315,6 +315,13 @@ def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
 
     geometry.sulcal_depth()  # fill caches before forking so every worker shares them
     geometry.source_positions_mni305()
+    warmed = set()
+    for _, f, _, k in jobs:
+        layout = (f, k.get("resolution"), id(k.get("outline")), bool(k.get("title")),
+                  k.get("dpi"))
+        if f in (brain.glass_brain, brain.surface_views) and layout not in warmed:
+            warmed.add(layout)
+            brain.warm_caches(f, k)
     with ProcessPoolExecutor(max_workers=n_jobs, mp_context=mp.get_context("fork")) as pool:
         futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in jobs}
         return {key: fut.result() for key, fut in futures.items()}
