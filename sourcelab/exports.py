@@ -26,6 +26,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .checks import check_option
 from .errors import InputError
 from .provenance import atomic_output_dir, atomic_write_text, safe_name
 
@@ -177,14 +178,14 @@ def map_measures(result) -> tuple[str, ...]:
 
 
 def _maps(result, measure: str) -> np.ndarray:
-    if measure not in MEASURES + Z_MEASURES:
-        raise ValueError(f"measure: {measure!r} is not one of {MEASURES + Z_MEASURES}")
+    check_option("measure", measure, MEASURES + Z_MEASURES)
     from .headmodel import load_head_model
 
     if measure in Z_MEASURES:
         z = getattr(result, "source_z", None) or {}
         if measure[2:] not in z:
-            raise ValueError(f"measure: {measure!r} needs per-source norms (result.source_z)")
+            raise InputError(f"measure: {measure!r} needs per-source norms (result.source_z)",
+                             field="measure")
         arr = np.asarray(z[measure[2:]])
     else:
         arr = np.asarray(result.source_abs if measure == "absolute" else result.source_rel)

@@ -278,7 +278,10 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         step("figures")
         fig_dir = folder / "figures"
         fig_dir.mkdir()
-        pngs = result.figures(as_png=True)  # each figure closed as soon as it is rendered
+        from .figures.figure_set import figure_jobs
+
+        # each figure closed as soon as it is rendered; drawn in parallel when cores allow
+        pngs = result.figures(as_png=True, n_jobs=figure_jobs())
         for name, png in pngs.items():
             (fig_dir / (name.replace("/", "_") + ".png")).write_bytes(png)
     if report:

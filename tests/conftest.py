@@ -8,6 +8,9 @@ if os.environ.get("PYTEST_XDIST_WORKER"):
     # threads spinning against each other make small products seconds slow on a busy machine.
     for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ.setdefault(_var, "1")
+    # ... and the output writer draws figures in the worker itself (no pool per worker); the
+    # parallel drawing is tested explicitly (result_figures(n_jobs=2)).
+    os.environ.setdefault("SOURCELAB_FIGURE_JOBS", "1")
 
 import matplotlib  # noqa: E402
 
@@ -29,7 +32,8 @@ TIERS = ("known_answer", "property", "reference", "contract")
 MODULE_TIERS = {
     "test_analysis": "known_answer", "test_artefacts": "known_answer",
     "test_compare": "known_answer", "test_coupling_figures": "known_answer",
-    "test_figures": "known_answer", "test_intake": "known_answer", "test_live": "known_answer",
+    "test_figures": "known_answer", "test_intake": "known_answer",
+    "test_reliability_icc": "known_answer", "test_live": "known_answer",
     "test_norms": "known_answer", "test_ocular": "known_answer", "test_rois": "known_answer",
     "test_spectra": "known_answer", "test_states": "known_answer",
     "test_config_bands": "known_answer", "test_progress": "contract",

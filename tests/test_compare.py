@@ -215,3 +215,61 @@ def test_cli_figure_and_report_section(sessions, tmp_path, capsys):
     assert "changed" in capsys.readouterr().out
     rc = main(["compare", str(sessions["A"]), "--out", str(tmp_path / "x")])
     assert rc == 2
+
+
+def _visible_text(page: str) -> tuple[list[str], list[tuple[str, dict]]]:
+    """Text nodes outside <style>/<script>, and every start tag with its attributes."""
+    from html.parser import HTMLParser
+
+    class P(HTMLParser):
+        def __init__(self):
+            super().__init__()
+            self.skip, self.text, self.tags = 0, [], []
+
+        def handle_starttag(self, tag, attrs):
+            self.tags.append((tag, dict(attrs)))
+            self.skip += tag in ("style", "script")
+
+        def handle_endtag(self, tag):
+            self.skip -= tag in ("style", "script")
+
+        def handle_data(self, data):
+            if not self.skip and data.strip():
+                self.text.append(data.strip())
+
+    p = P()
+    p.feed(page)
+    return p.text, p.tags
+
+
+def test_compare_page_self_contained_with_cautions_and_human_labels(sessions):
+    # Issue 16 (user text): a page that opens offline (no external resources), shows the
+    # cautions, and names columns and values in words (no None, <NA>, [] or raw column keys).
+    import html as _html
+
+    from sourcelab.cautions import CAUTIONS
+    from sourcelab.compare import compare_page, compare_sessions, plot_sessions
+    from sourcelab.figures import figure_png
+
+    t = compare_sessions([sessions["A"], sessions["B"]], n_boot=100)
+    page = compare_page(t, figure_png=figure_png(plot_sessions(t, [PLANT])))
+    assert page.startswith("<!DOCTYPE html>") and page.rstrip().endswith("</html>")
+    text, tags = _visible_text(page)
+    # self-contained: no link/script/img pointing anywhere but into the page itself
+    assert not [tg for tg, a in tags if tg == "link" or (tg == "script" and "src" in a)]
+    srcs = [a.get("src", "") for tg, a in tags if tg == "img"]
+    assert srcs and all(s.startswith("data:image/png;base64,") for s in srcs)
+    assert "http://" not in page and "https://" not in page
+    # the cautions, each in full
+    joined = " ".join(text)
+    for c in CAUTIONS:
+        assert _html.escape(c) in page or c in joined, c[:60]
+    assert "not a diagnostic device" in joined
+    # human labels: the sessions are named; no Python or pandas reprs in any cell or header
+    assert "session_A" in joined and "session_B" in joined
+    bad = {"None", "<NA>", "[]", "nan", "NaN", "True", "False"}
+    assert not [s for s in text if s in bad], [s for s in text if s in bad]
+    headers = [s for s in text if s in set(t.columns)]
+    raw = [h for h in headers if "_" in h]  # e.g. change_z, session_a: keys, not words
+    assert not raw, raw
+    assert "change in z" in text or not len(t[t["verdict"] != "no change"])

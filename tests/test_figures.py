@@ -431,3 +431,53 @@ def test_z_mask_is_a_config_option(result):
     off = dataclasses.replace(result, config=result.config.replace(z_mask=None))
     figs = result_figures(off, **kw)
     assert dashed(figs["topomap-z/absolute"]) == []
+
+
+def _png_pixels(fig) -> np.ndarray:
+    import io
+
+    import matplotlib.image as mpimg
+
+    from sourcelab.figures import figure_png
+
+    return mpimg.imread(io.BytesIO(figure_png(fig)))[..., :3].astype(float)
+
+
+def test_surface_raster_draws_the_same_pixels_as_matplotlib_3d():
+    # Reference: matplotlib's own 3-D drawing of nilearn's collections (raster=False).  The
+    # cached face-index raster must give the same picture: same faces at the same pixels in
+    # nilearn's colours, parcel borders blended over them.
+    from sourcelab.figures.geometry import source_positions_mni305
+
+    from sourcelab.rois import load_atlas
+
+    pos = source_positions_mni305()
+    z = 4.0 * np.sin(pos[:, 1] / 15.0) * np.where(pos[:, 0] < 0, 1.0, -1.0)
+    for kw in ({"scale": z_scale(threshold=1.96), "outline": load_atlas("lobes")},
+               {"scale": power_scale(np.abs(z)), "title": "power"}):
+        vals = z if "outline" in kw else np.abs(z)
+        ref = _png_pixels(surface_views(vals, raster=False, **kw))
+        new = _png_pixels(surface_views(vals, **kw))
+        assert ref.shape == new.shape
+        r = np.corrcoef(ref.ravel(), new.ravel())[0, 1]
+        differ = (np.abs(ref - new).max(2) > 10 / 255).mean()
+        assert r > 0.999 and differ < 0.02, (r, differ)
+
+
+def test_figure_jobs_follows_cores_workers_and_environment(monkeypatch):
+    import multiprocessing as mp
+    import os
+
+    from sourcelab.errors import InputError
+    from sourcelab.figures.figure_set import figure_jobs
+
+    monkeypatch.delenv("SOURCELAB_FIGURE_JOBS", raising=False)
+    n = figure_jobs()
+    assert 1 <= n <= min(4, len(os.sched_getaffinity(0)))
+    with mp.get_context("fork").Pool(1) as pool:  # inside a worker: never a pool of its own
+        assert pool.apply(figure_jobs) == 1
+    monkeypatch.setenv("SOURCELAB_FIGURE_JOBS", "3")
+    assert figure_jobs() == 3
+    monkeypatch.setenv("SOURCELAB_FIGURE_JOBS", "0")
+    with pytest.raises(InputError, match="SOURCELAB_FIGURE_JOBS"):
+        figure_jobs()

@@ -13,6 +13,7 @@ import matplotlib.pyplot as plt
 import numpy as np
 from matplotlib.figure import Figure
 
+from ..checks import check_option
 from . import geometry
 from .colours import ColourScale, add_colourbar, clipped
 
@@ -130,8 +131,7 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
     from nilearn import plotting
 
     v = _check_values(values)
-    if display_mode not in _DISPLAY_MODES:
-        raise ValueError(f"display_mode: {display_mode!r} is not one of {_DISPLAY_MODES}")
+    check_option("display_mode", display_mode, _DISPLAY_MODES)
     raw = v
     v = clipped(v, scale)  # beyond the limits: end colours (the colour bar's arrows say so)
     v = np.where(np.isfinite(v), v, 0.0)
@@ -192,7 +192,8 @@ def surface_plot_values(values: np.ndarray, scale: ColourScale) -> tuple[np.ndar
 
 def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None = None,
                   surface: str = "inflated", outline=None,
-                  figsize=(8.0, 6.0), dpi: int = 90, output_file=None) -> Figure:
+                  figsize=(8.0, 6.0), dpi: int = 90, raster: bool = True,
+                  output_file=None) -> Figure:
     """Lateral and medial views of both hemispheres on the fsaverage5 surface.
 
     Sulcal depth shades the surface (dark = sulci); values are drawn with
@@ -209,6 +210,10 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
     outline : Atlas | ndarray of int, shape (20484,) | None
         Optional parcellation: an :class:`~sourcelab.rois.atlas.Atlas` or a label per source
         (-1 = none); parcel borders are drawn as thin black lines.
+    raster : bool
+        Paint the views from a cached face-index raster of the layout (default; the same
+        pixels as matplotlib's 3-D drawing, several times faster for a set of maps); False
+        draws the 3-D collections themselves.
     output_file : str | Path | None
 
     Returns
@@ -216,8 +221,6 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
     fig : matplotlib.figure.Figure
         Four 3-D axes (left lateral, right lateral, left medial, right medial) and a colour bar.
     """
-    from nilearn import plotting
-
     raw = _check_values(values)
     v = geometry.to_surface(raw)
     if outline is not None:
@@ -225,12 +228,58 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
                    else np.asarray(outline))
         if outline.shape != (geometry.N_SURFACE,):
             raise ValueError(f"outline: need shape ({geometry.N_SURFACE},), got {outline.shape}")
-    sulc = geometry.sulcal_depth()
     fig = plt.figure(figsize=figsize, dpi=dpi)
     top = 0.92 if title else 0.98
-    rects = [(0.0, top / 2, 0.43, top / 2), (0.43, top / 2, 0.43, top / 2),
-             (0.0, 0.0, 0.43, top / 2), (0.43, 0.0, 0.43, top / 2)]
-    for (hemi, view), rect in zip(SURFACE_VIEWS, rects):
+    views = _draw_views(fig, v, scale, surface, outline, top)
+    if raster:
+        _rasterise_views(fig, views, surface=surface, outline=outline, top=top,
+                         figsize=figsize, dpi=dpi)
+    cax = fig.add_axes((0.87, 0.15, 0.02, top * 0.7))
+    add_colourbar(fig, scale, cax=cax, data=raw)
+    if title:
+        fig.suptitle(title, x=0.43, y=0.995, va="top", fontsize=11)
+    _save(fig, output_file, dpi)
+    return fig
+
+
+def warm_caches(func, kwargs) -> None:
+    """Fill the caches a queued glass-brain or surface figure will use (the volume lookup, the
+    face-index raster of its layout), so that forked drawing workers share them instead of
+    each building its own.
+
+    Parameters
+    ----------
+    func : callable
+        :func:`glass_brain` or :func:`surface_views` (anything else is ignored).
+    kwargs : dict
+        The keyword arguments the figure will be drawn with.
+    """
+    if func is glass_brain:
+        n_src = geometry.load_head_model().n_src
+        geometry.sources_to_volume(np.zeros(n_src), resolution=kwargs.get("resolution", 2))
+    elif func is surface_views and kwargs.get("raster", True):
+        outline = kwargs.get("outline")
+        if outline is not None:
+            outline = (geometry.atlas_labels(outline) if hasattr(outline, "rois")
+                       else np.asarray(outline))
+        key = None if outline is None else np.asarray(outline, np.int64).tobytes()
+        _face_raster(kwargs.get("surface", "inflated"), 0.92 if kwargs.get("title") else 0.98,
+                     tuple(kwargs.get("figsize", (8.0, 6.0))), int(kwargs.get("dpi", 90)), key)
+
+
+def _view_rects(top: float) -> list[tuple[float, float, float, float]]:
+    return [(0.0, top / 2, 0.43, top / 2), (0.43, top / 2, 0.43, top / 2),
+            (0.0, 0.0, 0.43, top / 2), (0.43, 0.0, 0.43, top / 2)]
+
+
+def _draw_views(fig, v, scale, surface, outline, top) -> list:
+    """The four views with nilearn (matplotlib engine); returns per view (axes, surface
+    collection, outline collection or None)."""
+    from nilearn import plotting
+
+    sulc = geometry.sulcal_depth()
+    views = []
+    for (hemi, view), rect in zip(SURFACE_VIEWS, _view_rects(top)):
         coords, faces = geometry.mesh(surface, hemi)
         h = geometry.HEMIS.index(hemi)
         sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
@@ -243,17 +292,111 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
             cmap=scale.cmap, vmin=scale.vmin, vmax=scale.vmax, colorbar=False,
             threshold=threshold, symmetric_cbar=scale.diverging,
             bg_on_data=True)
+        surf_coll = ax.collections[0]
+        lines = None
         if outline is not None:
             ax.computed_zorder = False  # borders are drawn over the (culled) surface
+            n = len(ax.collections)
             _draw_outline(ax, coords, faces, outline[sl])
+            lines = ax.collections[n] if len(ax.collections) > n else None
         ax.set_box_aspect(None, zoom=1.45)
         ax.set_title(f"{hemi} {view}", fontsize=9, y=0.92)
-    cax = fig.add_axes((0.87, 0.15, 0.02, top * 0.7))
-    add_colourbar(fig, scale, cax=cax, data=raw)
-    if title:
-        fig.suptitle(title, x=0.43, y=0.995, va="top", fontsize=11)
-    _save(fig, output_file, dpi)
-    return fig
+        views.append((ax, surf_coll, lines))
+    return views
+
+
+def _rasterise_views(fig, views, *, surface, outline, top, figsize, dpi) -> None:
+    """Replace the 3-D drawing of the views by one image painted from a cached face-index
+    raster (the projection, depth order and parcel borders of a layout are computed once).
+
+    The face colours stay nilearn's (read from its collections); only the rasterisation moves:
+    pixel ``p`` shows the colour of the face drawn last at ``p`` in the same 3-D drawing,
+    parcel borders are blended over it with their drawn coverage.  The 3-D axes keep their
+    collections (hidden) and their titles.
+    """
+    key = None if outline is None else np.asarray(outline, np.int64).tobytes()
+    ids, cover = _face_raster(surface, float(top), tuple(figsize), int(dpi), key)
+    colours = np.concatenate([_face_colours(c) for _, c, _ in views])
+    if ids.max() >= len(colours):  # layout differs from the cached one: keep the 3-D drawing
+        return
+    img = np.zeros(ids.shape + (4,), dtype=float)
+    inside = ids >= 0
+    img[inside] = colours[ids[inside]]
+    img[inside, 3] = 1.0
+    if cover is not None:
+        a = _OUTLINE_ALPHA * cover
+        img[..., :3] *= (1.0 - a)[..., None]
+        img[..., 3] = np.where(inside, img[..., 3], a)
+    for ax, coll, lines in views:
+        coll.set_visible(False)
+        ax.patch.set_visible(False)  # the image lies under the (now empty) 3-D axes
+        if lines is not None:
+            lines.set_visible(False)
+    over = fig.add_axes((0.0, 0.0, 1.0, 1.0), zorder=-1)
+    over.imshow(img, interpolation="nearest", aspect="auto", extent=(0, 1, 0, 1),
+                origin="upper")
+    over.set_axis_off()
+
+
+def _face_colours(coll) -> np.ndarray:
+    """RGBA per face of a 3-D surface collection, in face order (matplotlib keeps the colours
+    as set in ``_facecolor3d`` and reorders a copy by depth when drawing)."""
+    c = getattr(coll, "_facecolor3d", None)
+    return np.asarray(coll.get_facecolor() if c is None else c, float)
+
+
+#: Opacity of parcel borders (see :func:`_draw_outline`).
+_OUTLINE_ALPHA = 0.8
+
+
+@functools.lru_cache(maxsize=8)
+def _face_raster(surface: str, top: float, figsize: tuple, dpi: int, outline_key):
+    """Face index per figure pixel of the four views (-1: no face), faces numbered view by
+    view in drawing order, and the parcel borders' coverage per pixel (0-1; None without an
+    outline), from one drawing of the layout with colours that encode face indices."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    outline = None if outline_key is None else np.frombuffer(outline_key, np.int64)
+    n_src = geometry.load_head_model().n_src
+    fig = Figure(figsize=figsize, dpi=dpi)
+    FigureCanvasAgg(fig)
+    fig.patch.set_alpha(0.0)
+    views = _draw_views(fig, geometry.to_surface(np.zeros(n_src)), _id_scale(), surface,
+                        outline, top)
+    offset = 0
+    for ax, coll, lines in views:
+        n = len(_face_colours(coll))
+        k = np.arange(offset + 1, offset + n + 1)  # 0 = background
+        rgb = np.c_[(k >> 16) & 255, (k >> 8) & 255, k & 255] / 255.0
+        ids = np.c_[rgb, np.ones(n)]
+        coll.set_facecolor(ids)
+        coll.set_edgecolor(ids)
+        ax.title.set_visible(False)
+        ax.patch.set_visible(False)
+        if lines is not None:
+            lines.set_visible(False)
+        offset += n
+    fig.canvas.draw()
+    buf = np.asarray(fig.canvas.buffer_rgba()).astype(np.int64)
+    ids = ((buf[..., 0] << 16) | (buf[..., 1] << 8) | buf[..., 2]) - 1
+    ids[buf[..., 3] < 255] = -1
+    cover = None
+    if outline is not None:
+        for _, coll, lines in views:
+            coll.set_visible(False)
+            if lines is not None:
+                lines.set_visible(True)
+                lines.set_color("k")
+                lines.set_alpha(1.0)
+        fig.canvas.draw()
+        cover = np.asarray(fig.canvas.buffer_rgba())[..., 3] / 255.0
+    return ids, cover
+
+
+def _id_scale():
+    from .colours import ColourScale
+
+    return ColourScale("gray", -1.0, 1.0, "index")
 
 
 def _front_faces(coords: np.ndarray, faces: np.ndarray, *, hemi: str, view: str) -> np.ndarray:

@@ -16,6 +16,7 @@ from dataclasses import dataclass
 import matplotlib as mpl
 import numpy as np
 
+from ..checks import check_number, check_option
 from ..constants import Z_THRESHOLD as _Z_THRESHOLD
 
 #: Diverging map for z-scores (standard matplotlib map).
@@ -80,10 +81,9 @@ def z_scale(*, limit: float = Z_LIMIT, threshold: float | None = None,
     threshold : float | None
         Hide |z| below this (e.g. :data:`Z_THRESHOLD`); must be in ``[0, limit)``.
     """
-    if not (np.isfinite(limit) and limit > 0):
-        raise ValueError(f"z limit: must be a positive number, got {limit!r}")
-    if threshold is not None and not (0 <= threshold < limit):
-        raise ValueError(f"z threshold: must be in [0, {limit}), got {threshold!r}")
+    limit = check_number("z limit", limit, low=0.0, low_open=True)
+    threshold = check_number("z threshold", threshold, low=0.0, high=limit, high_open=True,
+                             none_ok=True)
     return ColourScale(Z_CMAP, -float(limit), float(limit), label, threshold, True)
 
 
@@ -106,8 +106,7 @@ def power_scale(values: np.ndarray | None = None, *, measure: str = "absolute",
         maximum-intensity projections are not saturated by a floor at 0).
     """
     if label is None:
-        if measure not in POWER_LABELS:
-            raise ValueError(f"measure: {measure!r} is not one of {sorted(POWER_LABELS)}")
+        check_option("measure", measure, sorted(POWER_LABELS))
         label = POWER_LABELS[measure]
     finite = np.array([], float)
     if values is not None:

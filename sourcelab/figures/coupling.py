@@ -29,7 +29,9 @@ import pandas as pd
 from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 
+from ..checks import check_option
 from ..constants import Z_THRESHOLD
+from ..errors import InputError
 from .colours import ColourScale, add_colourbar, power_scale, z_scale
 
 _HEMI = {"left": "L", "right": "R", "both": ""}
@@ -139,11 +141,10 @@ def _pair_rows(pair_table: pd.DataFrame, band: str, measure: str, pairs: str) ->
     missing = sorted(need - set(pair_table.columns))
     if missing:
         raise ValueError(f"pair_table: missing columns {missing}")
-    if pairs not in ("figure", "all"):
-        raise ValueError(f"pairs: {pairs!r} is not one of figure, all")
+    check_option("pairs", pairs, ("figure", "all"))
     t = pair_table[(pair_table["band"] == band) & (pair_table["measure"] == measure)]
     if t.empty:
-        raise ValueError(f"pair_table: no rows for band={band!r}, measure={measure!r}")
+        raise InputError(f"pair_table: no rows for band={band!r}, measure={measure!r}")
     if pairs == "figure" and measure != "asymmetry":
         keep = (t["homologous"].fillna(False).astype(bool)
                 | t["intrahemispheric"].fillna(False).astype(bool))
@@ -190,7 +191,7 @@ def pair_head_map(pair_table: pd.DataFrame, *, band: str, measure: str,
     """
     scale = scale or z_scale()
     if not scale.diverging or scale.vmin != -scale.vmax:
-        raise ValueError("scale: need a symmetric z scale (z_scale)")
+        raise InputError("scale: need a symmetric z scale (z_scale)")
     t = _pair_rows(pair_table, band, measure, pairs)
     if ch_pos is None:
         from ..headmodel import load_head_model
@@ -202,7 +203,7 @@ def pair_head_map(pair_table: pd.DataFrame, *, band: str, measure: str,
     where = {n: xy[i] for i, n in enumerate(names)}
     unknown = sorted((set(t["channel_a"]) | set(t["channel_b"])) - set(where))
     if unknown:
-        raise ValueError(f"pair_table: no position for sites {unknown}")
+        raise InputError(f"pair_table: no position for sites {unknown}")
     z = t["z"].to_numpy(dtype=float)
     has_z = bool(np.isfinite(z).any())
     dev = np.isfinite(z) & (np.abs(z) >= z_threshold)
@@ -314,7 +315,7 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
     t = coupling_table[(coupling_table["atlas"] == atlas)
                        & (coupling_table["measure"] == measure)]
     if t.empty:
-        raise ValueError(f"coupling_table: no rows for atlas={atlas!r}, measure={measure!r}")
+        raise InputError(f"coupling_table: no rows for atlas={atlas!r}, measure={measure!r}")
     bands = list(bands) if bands is not None else list(dict.fromkeys(t["band"]))
     rois = _roi_order(t)
     idx = {r: i for i, r in enumerate(rois)}
@@ -354,7 +355,7 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
             else:
                 scale = power_scale(allv, label=unit)
     elif has_z and (not scale.diverging or scale.vmin != -scale.vmax):
-        raise ValueError("scale: need a symmetric z scale (z_scale) for z")
+        raise InputError("scale: need a symmetric z scale (z_scale) for z")
     labels = [f"{r} {_HEMI.get(h, h)}".strip() for r, h in rois]
     n_b = len(bands)
     ncol = min(3, n_b)

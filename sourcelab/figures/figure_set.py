@@ -23,6 +23,7 @@ import logging
 import matplotlib.pyplot as plt
 import numpy as np
 
+from ..checks import check_number, check_option
 from ..errors import InputError
 from . import brain, coupling, roi, sensor
 from .colours import Z_LIMIT, Z_THRESHOLD, power_scale, z_scale
@@ -118,30 +119,29 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
     -------
     figures : dict of str → bytes | Figure
     """
-    bad = [m for m in measures if m not in MEASURES]
-    if bad:
-        raise ValueError(f"measures: {bad} not in {MEASURES}")
-    if not (isinstance(n_jobs, int) and n_jobs >= 1):
-        raise ValueError(f"n_jobs: must be an integer >= 1, got {n_jobs!r}")
+    for m in measures:
+        check_option("measures", m, MEASURES)
+    n_jobs = check_number("n_jobs", n_jobs, kind=int, low=1)
     jobs: list = []
 
     def keep(key, func, *args, **kwargs):
         jobs.append((key, func, args, kwargs))
 
     if isinstance(z_threshold, str):
-        if z_threshold != "config":
-            raise ValueError(f"z_threshold: a number, None or 'config', got {z_threshold!r}")
+        check_option("z_threshold", z_threshold, ("config",))
         z_threshold = getattr(result.config, "z_mask", None)
+    z_limit = check_number("z_limit", z_limit, low=0.0, low_open=True)
+    z_threshold = check_number("z_threshold", z_threshold or None, low=0.0, none_ok=True)
     z_threshold = z_threshold or None
     if z_threshold is not None and z_threshold >= z_limit:
-        raise ValueError(f"z_threshold: {z_threshold:g} must be below z_limit {z_limit:g}")
+        raise InputError(f"z_threshold: {z_threshold:g} must be below z_limit {z_limit:g}",
+                         field="z_threshold")
     zs = z_scale(limit=z_limit, threshold=z_threshold)
     source_z = getattr(result, "source_z", None) or {}
     all_bands = list(result.bands.names)
     per_band = all_bands if bands is None else list(bands)
-    unknown = [b for b in per_band if b not in all_bands]
-    if unknown:
-        raise ValueError(f"bands: {unknown} not in the result's bands {all_bands}")
+    for b in per_band:
+        check_option("bands", b, all_bands)
     bands = all_bands
     labels = outline
     rt = result.roi_table
@@ -223,8 +223,7 @@ def _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measu
     if pt is not None and len(pt) and _has_z(pt):
         have = set(pt["measure"])
         for m in pair_measures:
-            if m not in have:
-                raise ValueError(f"pair_measures: {m!r} not in the pair table ({sorted(have)})")
+            check_option("pair_measures", m, sorted(have))
             for band in per_band:
                 keep(f"pairs/{band}/{m}", coupling.pair_head_map, pt, band=band, measure=m,
                      scale=zs, band_label=labels[band], dpi=dpi,
@@ -233,9 +232,7 @@ def _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measu
     if ct is not None and len(ct):
         have = set(ct["measure"])
         for m in edge_measures:
-            if m not in have:
-                raise ValueError(f"edge_measures: {m!r} not in the coupling table "
-                                 f"({sorted(have)})")
+            check_option("edge_measures", m, sorted(have))
             keep(f"coupling/{m}", coupling.coupling_matrix, ct, measure=m, atlas=atlas,
                  bands=list(result.bands.names), band_labels=labels,
                  scale=zs if _has_z(ct) else None, dpi=dpi,
@@ -271,8 +268,48 @@ def _render(func, args, kwargs, dpi):
     return figure_png(func(*args, **kwargs), dpi=dpi)
 
 
+def figure_jobs() -> int:
+    """Worker processes for drawing a figure set on this machine: the cores this process may
+    use (at most 4), or 1 inside a worker process (a batch worker must not fork its own pool).
+
+    The environment variable ``SOURCELAB_FIGURE_JOBS`` (an integer >= 1) overrides it.
+
+    Returns
+    -------
+    int
+        >= 1.
+    """
+    import multiprocessing as mp
+    import os
+
+    env = os.environ.get("SOURCELAB_FIGURE_JOBS")
+    if env:
+        return check_number("SOURCELAB_FIGURE_JOBS", int(env) if env.strip().isdigit() else env,
+                            kind=int, low=1)
+    if mp.parent_process() is not None:
+        return 1
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        cores = os.cpu_count() or 1
+    return max(1, min(4, cores))
+
+
 def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
-    """Draw the queued figures, in this process or in ``n_jobs`` forked workers."""
+    """Draw the queued figures, in this process or in ``n_jobs`` forked workers.
+
+    Drawing runs with one BLAS thread: the small linear-algebra calls of plotting (scipy's
+    Delaunay transforms behind MNE's topomap interpolation, 19 points) otherwise wake a
+    BLAS thread pool each time, which costs ~0.4 CPU-s per map on a busy machine instead of
+    ~0.1 ms.
+    """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(1):
+        return _run_limited(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+
+
+def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
     if n_jobs == 1 or not as_png or len(jobs) < 2:
         return {key: (_render(f, a, k, dpi) if as_png else f(*a, **k))
                 for key, f, a, k in jobs}
@@ -283,6 +320,13 @@ def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
 
     geometry.sulcal_depth()  # fill caches before forking so every worker shares them
     geometry.source_positions_mni305()
+    warmed = set()
+    for _, f, _, k in jobs:
+        layout = (f, k.get("resolution"), id(k.get("outline")), bool(k.get("title")),
+                  k.get("dpi"))
+        if f in (brain.glass_brain, brain.surface_views) and layout not in warmed:
+            warmed.add(layout)
+            brain.warm_caches(f, k)
     with ProcessPoolExecutor(max_workers=n_jobs, mp_context=mp.get_context("fork")) as pool:
         futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in jobs}
         return {key: fut.result() for key, fut in futures.items()}

@@ -21,6 +21,7 @@ import logging
 
 import numpy as np
 
+from ..checks import check_option
 from ..headmodel import load_head_model
 from ..headmodel.geometry import MNI305_TO_MNI152, mni305_to_mni152  # noqa: F401  (re-exported)
 from ..headmodel.model import HEMIS, N_PER_HEMI, N_SURFACE
@@ -40,10 +41,8 @@ def mesh(surface: str, hemi: str) -> tuple[np.ndarray, np.ndarray]:
     surface : {"pial", "white_matter", "inflated"}
     hemi : {"left", "right"}
     """
-    if surface not in _SURFACES:
-        raise ValueError(f"surface: {surface!r} is not one of {', '.join(_SURFACES)}")
-    if hemi not in HEMIS:
-        raise ValueError(f"hemi: {hemi!r} is not one of left, right")
+    check_option("surface", surface, _SURFACES)
+    check_option("hemi", hemi, HEMIS)
     surf = load_head_model().surface
     coords = getattr(surf, _SURFACES[surface])[surf.hemi_slice(hemi)]
     return np.array(coords, dtype=float), np.array(surf.hemi_faces(hemi), dtype=np.int64)
@@ -124,8 +123,7 @@ def sources_to_volume(values: np.ndarray, *, resolution: int = 2, gm_threshold: 
     img : Nifti1Image, float32, shape (nx, ny, nz) or (nx, ny, nz, n_maps)
         MNI152 space, ``resolution`` mm voxels.
     """
-    if resolution not in (2, 3):
-        raise ValueError(f"resolution: {resolution!r} is not one of 2, 3 (mm)")
+    check_option("resolution", resolution, (2, 3))
     v = np.asarray(values, dtype=np.float32)
     single = v.ndim == 1
     v2 = v[None] if single else v

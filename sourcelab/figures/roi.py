@@ -7,6 +7,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
+from ..errors import InputError
 from ..rois.names import area_name, brodmann_number, natural_key
 from .colours import Z_THRESHOLD, ColourScale, add_colourbar, z_scale
 
@@ -49,7 +50,7 @@ def _select(roi_table: pd.DataFrame, *, atlas: str | None, measure: str,
     if band is not None:
         t = t[t["band"] == band]
     if t.empty:
-        raise ValueError(f"roi_table: no rows for atlas={atlas!r}, measure={measure!r}, "
+        raise InputError(f"roi_table: no rows for atlas={atlas!r}, measure={measure!r}, "
                          f"band={band!r}")
     return t
 
@@ -88,7 +89,7 @@ def roi_bars(roi_table: pd.DataFrame, *, band: str, measure: str = "absolute",
     t = _select(roi_table, atlas=atlas, measure=measure, band=band)
     t = t[np.isfinite(t["z"].astype(float))]
     if t.empty:
-        raise ValueError(f"roi_table: no finite z for band={band!r}, measure={measure!r}")
+        raise InputError(f"roi_table: no finite z for band={band!r}, measure={measure!r}")
     t = t.assign(_abs=t["z"].abs()).sort_values("_abs", ascending=False).head(top)
     t = t.iloc[::-1]
     labels = [_label(r) for r in t.itertuples()]

@@ -9,6 +9,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from ..constants import SITES_1020
+from ..errors import InputError
 from .colours import add_colourbar, clipped
 
 
@@ -24,7 +25,8 @@ def sensor_info(ch_names: tuple[str, ...] = SITES_1020):
     if tuple(ch_names) != SITES_1020:
         missing = sorted(set(ch_names) - set(SITES_1020))
         if missing:
-            raise ValueError(f"ch_names: no fsaverage_1020 position for {missing}")
+            raise InputError(f"ch_names: no fsaverage_1020 position for {missing}",
+                             field="ch_names")
         return make_info(250.0).pick(list(ch_names))
     return make_info(250.0)
 
@@ -57,6 +59,16 @@ def sensor_topomaps(values: np.ndarray, *, band_names, scale,
     fig : matplotlib.figure.Figure
         One axes per band (with the interpolated map as an image) and a colour bar.
     """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(1):  # see figure_set._run: BLAS threads spin on 19-point transforms
+        return _sensor_topomaps(values, band_names=band_names, scale=scale, ch_names=ch_names,
+                                title=title, image_interp=image_interp, names=names, dpi=dpi,
+                                output_file=output_file)
+
+
+def _sensor_topomaps(values, *, band_names, scale, ch_names, title, image_interp, names, dpi,
+                     output_file) -> Figure:
     import mne
 
     v = np.asarray(values, dtype=float)

@@ -9,11 +9,17 @@ to the full length of data: r_full = 2 r / (1 + r).
 Which value is flagged: the *uncorrected* half-vs-half r is compared with the threshold — the
 stricter choice; the corrected value is reported beside it.  (A split-half threshold of 0.90 is
 common practice in quantitative EEG.)
+
+The same two halves also give an intraclass correlation (:func:`icc`): items are the targets,
+the two halves the "raters", ICC(2,1) (two-way random effects, absolute agreement, one
+measurement; Shrout & Fleiss 1979) with its confidence interval from McGraw & Wong (1996).
+Unlike r it falls when one half is shifted against the other (power drifting over the
+recording), and its interval says how far 19 sensors or 84 areas pin it down.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -38,6 +44,9 @@ class Reliability:
         Reliability below which a band is flagged.
     flagged : ndarray of bool, shape (n_bands,)
         ``r < threshold`` (uncorrected r; NaN counts as flagged).
+    icc : tuple of ICC
+        Per band, ICC(2,1) of the two halves' features across items with its 95 % interval
+        (:func:`icc`).
     """
 
     kind: str
@@ -46,6 +55,7 @@ class Reliability:
     n_epochs: tuple[int, int]
     threshold: float
     flagged: np.ndarray
+    icc: tuple = ()
 
 
 def pearson_r(a: np.ndarray, b: np.ndarray) -> float:
@@ -103,6 +113,125 @@ def spearman_brown(r, factor: float = 2.0):
     return factor * r / (1.0 + (factor - 1.0) * r)
 
 
+ICC_KINDS = ("2,1", "3,1")
+
+
+@dataclass(frozen=True)
+class ICC:
+    """One intraclass correlation with its confidence interval.
+
+    Attributes
+    ----------
+    kind : {"2,1", "3,1"}
+        Shrout & Fleiss form: ``"2,1"`` absolute agreement (two-way random effects),
+        ``"3,1"`` consistency (two-way mixed effects); one measurement each.
+    value : float
+        The ICC (may be negative; NaN when undefined).
+    low, high : float
+        Confidence interval (McGraw & Wong 1996).
+    confidence : float
+        Coverage of the interval, e.g. 0.95.
+    n_items, n_measurements : int
+        Targets (rows) and measurements per target (columns).
+    """
+
+    kind: str
+    value: float
+    low: float
+    high: float
+    confidence: float
+    n_items: int
+    n_measurements: int
+
+
+def icc(ratings: np.ndarray, *, kind: str = "2,1", confidence: float = 0.95) -> ICC:
+    """Intraclass correlation ICC(2,1) or ICC(3,1) of an items x measurements table.
+
+    From the two-way ANOVA mean squares of ``ratings`` (n items, k measurements): rows MSR,
+    columns MSC, residual MSE,
+
+    * ICC(3,1) = (MSR - MSE) / (MSR + (k-1) MSE)                      (consistency)
+    * ICC(2,1) = (MSR - MSE) / (MSR + (k-1) MSE + k (MSC - MSE) / n)  (absolute agreement)
+
+    with intervals from the F distribution (McGraw & Wong 1996, Table 7, cases 3 and 2A; the
+    2A interval uses Satterthwaite's degrees of freedom).
+
+    Parameters
+    ----------
+    ratings : ndarray, shape (n_items, k)
+        One row per target (a sensor or an area), one column per measurement (a half of the
+        data); n_items >= 3, k >= 2, all finite.
+    kind : {"2,1", "3,1"}
+    confidence : float
+        Interval coverage, in (0, 1).
+
+    Returns
+    -------
+    ICC
+        NaN value and interval when the rows do not vary (MSR = MSE = 0).
+
+    Raises
+    ------
+    InputError
+        On a bad ``kind`` or ``confidence``, a table that is not 2-d, too small or not finite.
+
+    References
+    ----------
+    Shrout PE, Fleiss JL (1979).  Intraclass correlations: uses in assessing rater reliability.
+    Psychol Bull 86:420-428.
+    McGraw KO, Wong SP (1996).  Forming inferences about some intraclass correlation
+    coefficients.  Psychol Methods 1:30-46 (correction: Psychol Methods 1:390).
+    """
+    from scipy import stats
+
+    from ..checks import check_number, check_option
+
+    check_option("kind", kind, ICC_KINDS)
+    confidence = check_number("confidence", confidence, low=0.0, high=1.0, low_open=True,
+                              high_open=True)
+    x = np.asarray(ratings, float)
+    if x.ndim != 2 or x.shape[0] < 3 or x.shape[1] < 2:
+        raise InputError(f"ratings: need shape (n_items >= 3, k >= 2), got {x.shape}")
+    if not np.all(np.isfinite(x)):
+        raise InputError("ratings: every value must be finite")
+    n, k = x.shape
+    grand = x.mean()
+    ssr = k * np.sum((x.mean(1) - grand) ** 2)
+    ssc = n * np.sum((x.mean(0) - grand) ** 2)
+    sse = np.sum((x - grand) ** 2) - ssr - ssc
+    df_r, df_c, df_e = n - 1, k - 1, (n - 1) * (k - 1)
+    msr, msc, mse = ssr / df_r, ssc / df_c, max(sse, 0.0) / df_e
+    nan = ICC(kind, float("nan"), float("nan"), float("nan"), float(confidence), n, k)
+    alpha = 1.0 - confidence
+    if kind == "3,1":
+        den = msr + (k - 1) * mse
+        if den <= 0:
+            return nan
+        value = (msr - mse) / den
+        if mse == 0:
+            return ICC(kind, float(value), float(value), float(value), float(confidence), n, k)
+        f_obs = msr / mse
+        f_lo = f_obs / stats.f.ppf(1 - alpha / 2, df_r, df_e)
+        f_hi = f_obs * stats.f.ppf(1 - alpha / 2, df_e, df_r)
+        low, high = (f_lo - 1) / (f_lo + k - 1), (f_hi - 1) / (f_hi + k - 1)
+    else:
+        den = msr + (k - 1) * mse + k * (msc - mse) / n
+        if den <= 0:
+            return nan
+        value = (msr - mse) / den
+        if value >= 1.0 or mse == 0:
+            return ICC(kind, float(value), float(value), float(value), float(confidence), n, k)
+        a = k * value / (n * (1 - value))
+        b = 1 + k * value * (n - 1) / (n * (1 - value))
+        v = (a * msc + b * mse) ** 2 / ((a * msc) ** 2 / df_c + (b * mse) ** 2 / df_e)
+        fl = stats.f.ppf(1 - alpha / 2, df_r, v)
+        fu = stats.f.ppf(1 - alpha / 2, v, df_r)
+        c = k * msc + (k * n - k - n) * mse
+        low = n * (msr - fl * mse) / (fl * c + n * msr)
+        high = n * (fu * msr - mse) / (c + n * fu * msr)
+    return ICC(kind, float(value), float(low), float(high), float(confidence), n, k)
+
+
 def _halves_reliability(power, first, second, kind, threshold, log):
     power = np.asarray(power, float)
     if power.ndim != 3:
@@ -117,8 +246,11 @@ def _halves_reliability(power, first, second, kind, threshold, log):
         fa, fb = np.log10(fa), np.log10(fb)
     r = np.array([pearson_r(fa[k], fb[k]) for k in range(power.shape[1])])
     flagged = ~(r >= threshold)
+    iccs = tuple(icc(np.c_[fa[k], fb[k]]) if np.all(np.isfinite(fa[k]) & np.isfinite(fb[k]))
+                 else ICC("2,1", np.nan, np.nan, np.nan, 0.95, fa.shape[1], 2)
+                 for k in range(power.shape[1]))
     return Reliability(kind, r, spearman_brown(r), (len(first), len(second)), float(threshold),
-                       flagged)
+                       flagged, iccs)
 
 
 def split_half(power: np.ndarray, *, threshold: float = 0.90, log: bool = True) -> Reliability:
@@ -200,6 +332,10 @@ class ReliabilitySummary:
         Band -> r (None where undefined: fewer than 2 epochs, constant features).
     flagged_bands : tuple of str
         Bands whose split-half r is below the threshold (or undefined).
+    split_half_icc, test_retest_icc : dict
+        Band -> ``{"icc", "low", "high"}`` (ICC(2,1) of the two halves across items and its
+        95 % interval, :func:`icc`; values None where undefined).  Empty in results written
+        before these were computed.
     """
 
     n_epochs: int
@@ -210,6 +346,8 @@ class ReliabilitySummary:
     test_retest: dict
     test_retest_spearman_brown: dict
     flagged_bands: tuple[str, ...]
+    split_half_icc: dict = field(default_factory=dict)
+    test_retest_icc: dict = field(default_factory=dict)
 
     @property
     def min_split_half(self) -> float | None:
@@ -267,9 +405,12 @@ def reliability_summary(power: np.ndarray, band_names, *,
                   features="log10 band power" if log else "band power")
     if power.shape[0] < 2 or power.shape[2] < 3:
         none = {b: None for b in names}
+        empty = {b: {"icc": None, "low": None, "high": None} for b in names}
         return ReliabilitySummary(split_half=none, split_half_spearman_brown=dict(none),
                                   test_retest=dict(none), test_retest_spearman_brown=dict(none),
-                                  flagged_bands=tuple(names), **common)
+                                  flagged_bands=tuple(names), split_half_icc=empty,
+                                  test_retest_icc={b: dict(v) for b, v in empty.items()},
+                                  **common)
     sh = split_half(power, threshold=threshold, log=log)
     tr = test_retest(power, threshold=threshold, log=log)
     return ReliabilitySummary(
@@ -277,4 +418,10 @@ def reliability_summary(power: np.ndarray, band_names, *,
         split_half_spearman_brown={b: _num(r) for b, r in zip(names, sh.r_spearman_brown)},
         test_retest={b: _num(r) for b, r in zip(names, tr.r)},
         test_retest_spearman_brown={b: _num(r) for b, r in zip(names, tr.r_spearman_brown)},
-        flagged_bands=tuple(b for b, f in zip(names, sh.flagged) if f), **common)
+        flagged_bands=tuple(b for b, f in zip(names, sh.flagged) if f),
+        split_half_icc={b: _icc_dict(c) for b, c in zip(names, sh.icc)},
+        test_retest_icc={b: _icc_dict(c) for b, c in zip(names, tr.icc)}, **common)
+
+
+def _icc_dict(c: ICC) -> dict:
+    return {"icc": _num(c.value), "low": _num(c.low), "high": _num(c.high)}

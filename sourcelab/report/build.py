@@ -105,38 +105,28 @@ def _ocular(result) -> str:
     return f"<h3>Eye-movement correction</h3><p>{_esc(txt)}</p>"
 
 
-_RELIABILITY_KINDS = {"split_half": "split half (odd vs even epochs)",
-                      "split_half_spearman_brown": "split half, Spearman-Brown",
-                      "test_retest": "first vs second half",
-                      "test_retest_spearman_brown": "first vs second half, Spearman-Brown"}
-
-
 def _reliability(rel: dict, threshold: float) -> str:
-    """Reliability per level (sensors, ROIs) and kind (split-half, test-retest) as one table."""
-    rows = []
-    for level, r in rel.items():
-        if not isinstance(r, dict):
-            continue
-        for kind in ("split_half", "split_half_spearman_brown", "test_retest",
-                     "test_retest_spearman_brown"):
-            if isinstance(r.get(kind), dict):
-                rows.append({"level": level, "estimate": _RELIABILITY_KINDS[kind],
-                             **{b: r[kind][b] for b in r[kind]}})
-    if not rows:
+    """Agreement between halves of the recording: ICC(2,1) with its 95 % interval per level,
+    split and band (:func:`~sourcelab.report.labels.reliability_table`)."""
+    from .labels import reliability_table
+
+    table = reliability_table(rel)
+    if not len(table):
         return ""
-    rows = [{k: v for k, v in r.items()} for r in rows]
-    flagged = sorted({f"{lvl}: {', '.join(r.get('flagged_bands', []))}"
+    flagged = sorted({f"{'sensors' if lvl == 'sensors' else lvl + ' areas'}: "
+                      f"{', '.join(r.get('flagged_bands', []))}"
                       for lvl, r in rel.items()
                       if isinstance(r, dict) and r.get("flagged_bands")})
-    note = (f'<p class="note">Correlation across items of log10 band power between halves of the '
-            f"clean epochs (odd vs even: split half; first vs second half: test-retest), with the "
-            f"Spearman-Brown full-length value. The uncorrected split-half r is flagged below "
-            f"{threshold:.2f} (common practice).</p>")
+    note = ('<p class="note">How well two halves of the clean epochs agree on the pattern of '
+            "log10 band power across sensors or areas: intraclass correlation ICC(2,1) "
+            "(absolute agreement, Shrout &amp; Fleiss 1979) with its 95 % interval (McGraw "
+            "&amp; Wong 1996) in brackets. 1 is perfect agreement; a shift of power between the "
+            "halves lowers it as much as a change of pattern. A band is flagged when the "
+            f"correlation of odd and even epochs is below {threshold:.2f}.</p>")
     if flagged:
         note += ('<p class="caution">Reliability below the threshold: ' + _esc("; ".join(flagged))
                  + ". Treat these bands with extra care.</p>")
-    return ("<h3>Reliability</h3>" + table_html(pd.DataFrame(rows), sortable=False, z_column=None)
-            + note)
+    return ("<h3>Reliability</h3>" + table_html(table, sortable=False, z_column=None) + note)
 
 
 def _summary(summary) -> str:
@@ -313,9 +303,11 @@ def _extra_section(i: int, item) -> tuple[str, str, str]:
     try:
         title, content, *rest = item
     except (TypeError, ValueError):
-        raise ValueError("extra_sections: each item must be (title, content[, note])") from None
+        raise InputError("extra_sections: each item must be (title, content[, note])",
+                         field="extra_sections") from None
     if len(rest) > 1:
-        raise ValueError("extra_sections: each item must be (title, content[, note])")
+        raise InputError("extra_sections: each item must be (title, content[, note])",
+                         field="extra_sections")
     note = f'<p class="note">{_esc(rest[0])}</p>' if rest else ""
     return f"extra-{i}", str(title), note + _extra_body(title, content)
 
@@ -497,7 +489,7 @@ def write_report(result, path, *, figures: dict | None = None,
     """
     path = Path(path)
     if path.exists() and path.is_dir():
-        raise ValueError(f"path: {path} is a folder; give an .html file name")
+        raise InputError("is a folder; give an .html file name", path=path)
     if figures is None:
         from ..figures import figure_png, result_figures
 

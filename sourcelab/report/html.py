@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from ..cautions import CAUTIONS  # noqa: F401  (re-exported for the report)
+from ..errors import InputError
 from .labels import MISSING_NUMBER, column_label, field_label, human_table, value_text
 
 logger = logging.getLogger("sourcelab")
@@ -51,6 +52,10 @@ REFERENCES = (
     "57:289-300 (FDR flags, where present)."),
     ("Fonov V et al. (2011). Unbiased average age-appropriate atlases for pediatric studies. "
     "NeuroImage 54:313-327 (MNI152 2009 template used for volume figures)."),
+    ("Shrout PE, Fleiss JL (1979). Intraclass correlations: uses in assessing rater reliability. "
+     "Psychol Bull 86:420-428 (agreement between halves of the recording)."),
+    ("McGraw KO, Wong SP (1996). Forming inferences about some intraclass correlation "
+     "coefficients. Psychol Methods 1:30-46 (intervals of the intraclass correlation)."),
 )
 
 _CSS = """
@@ -209,7 +214,7 @@ def _png_bytes(fig) -> bytes:
         raise TypeError(f"figures: values must be PNG bytes, a PNG path or a Figure, "
                         f"got {type(fig).__name__}")
     if not data.startswith(b"\x89PNG\r\n\x1a\n"):
-        raise ValueError("figures: image is not a PNG")
+        raise InputError("figures: image is not a PNG", field="figures")
     return data
 
 

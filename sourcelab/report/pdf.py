@@ -327,17 +327,14 @@ def _detail_pages(lay: _Layout, result) -> None:
             ("electrodes", ", ".join(result.ch_names)),
             ("interpolated", value_text(list(rec.interpolated))),
             ("warnings", "; ".join(result.warnings) or "none")])
-    rel = (result.quality.reliability or {})
-    rows = []
-    for level, r in rel.items():
-        r = r if isinstance(r, dict) else r.to_dict()
-        for kind in ("split_half", "test_retest"):
-            if isinstance(r.get(kind), dict):
-                rows.append({"level": level, "estimate": kind.replace("_", " "),
-                             **{b: v for b, v in r[kind].items()}})
-    if rows:
+    from .labels import reliability_table
+
+    rel_table = reliability_table(result.quality.reliability or {})
+    if len(rel_table):
         lay.heading("Reliability of band power", size=11, keep=0.8)
-        lay.table(pd.DataFrame(rows), size=7.5)
+        lay.paragraph("Agreement of two halves of the clean epochs on log10 band power across "
+                      "sensors or areas: ICC(2,1) with its 95 % interval in brackets.", size=8)
+        lay.table(rel_table.rename(columns={"halves": "halves compared"}), size=7)
     lay.heading("Methods", size=11, keep=0.8)
     cfg = result.config
     lay.paragraph(

@@ -136,9 +136,18 @@ def _quality(result) -> tuple:
                    "with care.")
     rel = {k: (v if isinstance(v, dict) else v.to_dict())
            for k, v in (q.reliability or {}).items()}
+    from .labels import lowest_agreement
+
     sens = rel.get("sensors") or {}
-    sh = sens.get("split_half") or {}
-    if sh:
+    sh = {b: v for b, v in (sens.get("split_half") or {}).items() if v is not None}
+    low = lowest_agreement(rel)
+    if low is not None:
+        band, c = low
+        ci = ("" if c.get("low") is None or c.get("high") is None
+              else f", 95 % interval {c['low']:.2f} to {c['high']:.2f}")
+        out.append(f"Agreement of two halves of the recording on sensor band power (ICC): "
+                   f"lowest {c['icc']:.2f} in {band}{ci}.")
+    elif sh:
         lo_band = min(sh, key=lambda b: sh[b])
         out.append(f"Split-half reliability of sensor band power: lowest {sh[lo_band]:.2f} "
                    f"({lo_band}).")
