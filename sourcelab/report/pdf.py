@@ -409,20 +409,20 @@ def write_pdf(result, path, *, figures: dict | None = None, title: str | None = 
     -------
     Path
     """
+    import io
+
     from matplotlib.backends.backend_pdf import PdfPages
 
+    from ..provenance import atomic_write_bytes
+
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.tmp")
     pages = pdf_pages(result, figures, title=title)
-    try:
-        with PdfPages(tmp, metadata={"Title": title or "sourcelab report",
-                                     "Creator": "sourcelab"}) as pdf:
-            for fig in pages:
-                pdf.savefig(fig)
-        tmp.replace(path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    buf = io.BytesIO()
+    with PdfPages(buf, metadata={"Title": title or "sourcelab report",
+                                 "Creator": "sourcelab"}) as pdf:
+        for fig in pages:
+            pdf.savefig(fig)
+    # temporary name + rename; an existing file is replaced only when sourcelab wrote it
+    atomic_write_bytes(path, buf.getvalue())
     logger.info("PDF report written: %s (%d pages)", path, len(pages))
     return path
