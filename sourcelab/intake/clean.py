@@ -8,11 +8,11 @@ from dataclasses import dataclass, field
 
 import mne
 import numpy as np
-from scipy.signal import welch
 
 from ..config import AnalysisConfig
 from ..constants import SITES_1020
 from ..errors import InputError
+from .power import welch_psd
 from .recording import Recording
 
 logger = logging.getLogger("sourcelab")
@@ -107,7 +107,7 @@ def detect_mains(data_uv: np.ndarray, sfreq: float, *, min_ratio: float = 3.0) -
     float | None
     """
     nper = int(min(data_uv.shape[1], round(2 * sfreq)))
-    f, p = welch(data_uv, fs=sfreq, nperseg=nper, axis=1)
+    f, p = welch_psd(data_uv, sfreq, nper)
     best, best_ratio = None, min_ratio
     for mains in (50.0, 60.0):
         if mains + 5 >= sfreq / 2:
