@@ -19,11 +19,12 @@ analyze_10    tables-only ``sourcelab analyze`` of a 10-min recording vs a floor
               reader + one Hann-windowed FFT pass + band cross-spectra), both fresh processes;
               peak resident memory of the analysis process
 analyze_60    the same for a 60-min recording (peak memory)
-exponent      time of ``analyze(path)`` (warm, in one process) over recording lengths, log-log slope
+exponent      time of ``analyze(path)`` (warm, in one process) over 1-10 min (quick) or 1-60 min
+              (full) recordings, log-log slope
 core_vs_mne   sourcelab's cross-spectral core vs MNE's ``csd_array_fourier`` -> ``apply_inverse_cov``
               and vs ``compute_source_psd`` (sLORETA), same clean epochs; map correlation
 batch         ``run_batch`` with 2 worker processes vs 1 (and a 2-worker Dask local cluster if
-              ``distributed`` is installed) on >= 20 recordings
+              ``distributed`` is installed) on 20 30-s (quick) or 40 70-s (full) recordings
 headmodel, norms (``--full`` only) the template head-model load and ``build_norms`` growth
 
 All recordings are invented (simulated through the shipped template head model) and cached in
@@ -280,7 +281,7 @@ print(json.dumps(out))
 
 
 def step_exponent(opts) -> dict:
-    minutes = (1, 5, 10, 30, 60) if opts.full else (2, 10, 60)
+    minutes = (1, 5, 10, 30, 60) if opts.full else (1, 3, 10)
     paths = [str(_recording_path(3000 + m, 60.0 * m)) for m in minutes]
     with tempfile.TemporaryDirectory() as d:
         p = subprocess.run([sys.executable, "-I", "-c", _EXPONENT_CHILD, json.dumps(paths),
@@ -298,7 +299,6 @@ def step_exponent(opts) -> dict:
 def step_core_vs_mne(opts) -> dict:
     import mne
 
-    from sourcelab.analysis import analyze
     from sourcelab.config import AnalysisConfig
     from sourcelab.headmodel import load_head_model, make_info, to_mne_forward
     from sourcelab.intake import clean_recording, read_recording
@@ -314,7 +314,6 @@ def step_core_vs_mne(opts) -> dict:
         path = _recording_path(2026 if minutes == 10 else 2028, 60.0 * minutes)
         atlas = load_atlas("brodmann")
         idx = [roi.vertices for roi in atlas.rois]
-        analyze(path, config=config)  # warm every cache
         clean = clean_recording(read_recording(path), config)
         epochs_uv = clean.epochs
         n_ep, n_ch, n_t = epochs_uv.shape
@@ -379,10 +378,13 @@ def step_core_vs_mne(opts) -> dict:
             t0 = time.perf_counter()
             power_mne = theirs()
             t_mne.append(time.perf_counter() - t0)
-        inv = make_inv()
-        t0 = time.perf_counter()
-        theirs(inv)
-        t_mne_no_inv = time.perf_counter() - t0
+        if route == "cov" or opts.full:
+            inv = make_inv()
+            t0 = time.perf_counter()
+            theirs(inv)
+            t_mne_no_inv = time.perf_counter() - t0
+        else:
+            t_mne_no_inv = float("nan")
         r = [float(np.corrcoef(power_ours[i], power_mne[i])[0, 1])
              for i in range(len(config.bands.names))]
         res[route] = {"minutes": minutes, "n_epochs": n_ep, "core_s": t_ours,
@@ -404,7 +406,7 @@ def step_core_vs_mne(opts) -> dict:
 def step_batch(opts) -> dict:
     from sourcelab.batch import discover, make_engine, run_batch
 
-    n, dur = (40, 70.0) if opts.full else (20, 60.0)
+    n, dur = (40, 70.0) if opts.full else (20, 30.0)
     folder = _cohort(n, dur)
     items = discover([folder])
     res = {"n_recordings": n, "duration_s": dur}
