@@ -8,6 +8,7 @@ computed (tables, maps, candidates, leakage).  Writing files is :meth:`AnalysisR
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import logging
 import time
@@ -273,6 +274,10 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         check_sampling_rate(config, rec.sfreq, where=rec.path)
         stages.step("cleaning")
         clean = clean_recording(rec, config, select=select, age=age)
+        if rec is not recording:
+            # read here: only its metadata is needed from now on; the continuous data (as large
+            # as the clean epochs) is released for the rest of the analysis (memory)
+            rec = dataclasses.replace(rec, raw=None, eog_uv=None)
         model = load_head_model()
         if tuple(clean.ch_names) != tuple(model.ch_names):
             raise InputError(f"channels {clean.ch_names} do not match the head model's "
