@@ -57,7 +57,8 @@ GOALS = {
     "analyze10_over_floor": ("tables-only analyze 10 min / floor process", 3.0, "×", "<="),
     "peak_mb_10": ("peak memory, 10-min analyze", 500.0, "MiB", "<="),
     "peak_mb_60": ("peak memory, 60-min analyze", 800.0, "MiB", "<="),
-    "length_exponent": ("time ∝ length^k over the lengths run", 1.1, "", "<="),
+    "length_exponent": ("time ∝ length^k (between the two longest lengths run)", 1.1, "",
+                        "<="),
     "core_over_mne_cov": ("core vs csd_array_fourier → apply_inverse_cov", 10.0, "×", ">="),
     "core_over_mne_psd": ("core vs compute_source_psd (sLORETA)", 500.0, "×", ">="),
     "core_min_r": ("map correlation core vs MNE (min over bands and routes)", 0.999999, "",
@@ -290,10 +291,14 @@ def step_exponent(opts) -> dict:
     if p.returncode != 0:
         raise RuntimeError(p.stderr[-800:])
     times = json.loads(p.stdout.strip().splitlines()[-1])
-    k = float(np.polyfit(np.log(minutes), np.log(times), 1)[0])
-    return {"values": {"length_exponent": k}, "minutes": list(minutes), "analyze_s": times,
-            "note": "analyze(EDF path) in one warm process, median per length; slope of "
-                    "log(time) on log(length)"}
+    k_fit = float(np.polyfit(np.log(minutes), np.log(times), 1)[0])
+    # the slope between the two longest recordings: fixed per-analysis costs flatten the fit
+    # over short ones, the marginal slope shows any super-linear part
+    k_last = float(np.log(times[-1] / times[-2]) / np.log(minutes[-1] / minutes[-2]))
+    return {"values": {"length_exponent": k_last}, "minutes": list(minutes),
+            "analyze_s": times, "fit_exponent_all_lengths": k_fit,
+            "note": "analyze(EDF path) in one warm process, median per length; goal value = "
+                    "slope of log(time) on log(length) between the two longest recordings"}
 
 
 def step_core_vs_mne(opts) -> dict:
