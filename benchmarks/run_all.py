@@ -421,14 +421,15 @@ def step_core_vs_mne(opts) -> dict:
             theirs(inv)
             t_mne_no_inv = time.perf_counter() - t0
         else:
-            t_mne_no_inv = float("nan")
+            t_mne_no_inv = None   # not measured in quick mode (a second multi-second run)
         r = [float(np.corrcoef(power_ours[i], power_mne[i])[0, 1])
              for i in range(len(config.bands.names))]
         res[route] = {"minutes": minutes, "n_epochs": n_ep, "core_s": t_ours,
                       "mne_s": _median(t_mne), "mne_runs_s": t_mne,
                       "ratio": _median(t_mne) / t_ours,
                       "mne_without_make_inverse_s": t_mne_no_inv,
-                      "ratio_without_make_inverse": t_mne_no_inv / t_ours,
+                      "ratio_without_make_inverse": (None if t_mne_no_inv is None
+                                                     else t_mne_no_inv / t_ours),
                       "r_per_band": dict(zip(config.bands.names, r))}
     return {"values": {"core_over_mne_cov": res["cov"]["ratio"],
                        "core_over_mne_psd": res["psd"]["ratio"],
@@ -545,7 +546,7 @@ def _fmt_value(key: str, value: float) -> str:
         return f"{value:.0f} MiB"
     if unit == "×":
         return f"{value:.2f}×" if value < 100 else f"{value:.0f}×"
-    return f"{value:.2f}"
+    return f"{value:.3f}"
 
 
 def goal_line(key: str, value: float, load: float) -> str:
@@ -561,6 +562,7 @@ def render(doc: dict) -> str:
          f"{doc['sourcelab']} from `{doc['sourcelab_path']}`.", "",
          "Ratios compare numbers measured in the same run.  The machine is shared: the "
          "1-minute load average when each step finished is beside each value (2 cores).", "",
+         *([f"Note: {doc['notes']}", ""] if doc.get("notes") else []),
          "| goal | target | today | | load |", "|---|---|---|---|---|"]
     for name, step in doc["steps"].items():
         for key, value in step.get("values", {}).items():
@@ -617,12 +619,16 @@ def main(argv=None) -> int:
                            "head-model and norms steps")
     ap.add_argument("--only", help="comma-separated steps: " + ", ".join(STEPS))
     ap.add_argument("--out", default=str(HERE / "results"), help="results path stem")
+    ap.add_argument("--note", help="a remark about the run, printed in results.md")
     ap.add_argument("--render-only", action="store_true",
                     help="rewrite OUT.md from OUT.json (no measurement)")
     args = ap.parse_args(argv)
     if args.render_only:
         out = Path(args.out)
         doc = json.loads(out.with_suffix(".json").read_text(encoding="utf-8"))
+        if args.note:
+            doc["notes"] = args.note
+            out.with_suffix(".json").write_text(json.dumps(doc, indent=2), encoding="utf-8")
         out.with_suffix(".md").write_text(render(doc) + "\n", encoding="utf-8")
         return 0
     args.reps = 5 if args.full else 3
@@ -642,7 +648,7 @@ def main(argv=None) -> int:
                       f"{platform.python_version()}, load average at start {_load():.1f}",
            "sourcelab": sourcelab.__version__,
            "sourcelab_path": str(Path(sourcelab.__file__).parent),
-           "steps": {}}
+           "notes": args.note or "", "steps": {}}
     out = Path(args.out)
     print("| goal | target | today | | load |\n|---|---|---|---|---|", flush=True)
     t_all = time.perf_counter()
