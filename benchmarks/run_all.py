@@ -546,7 +546,7 @@ def _fmt_value(key: str, value: float) -> str:
         return f"{value:.0f} MiB"
     if unit == "×":
         return f"{value:.2f}×" if value < 100 else f"{value:.0f}×"
-    return f"{value:.3f}"
+    return f"{value:.4f}"
 
 
 def goal_line(key: str, value: float, load: float) -> str:
