@@ -6,6 +6,7 @@ same numbers as the serial run.  Recordings are invented (simulated through the 
 """
 
 import json
+import os
 import sys
 
 import numpy as np
@@ -21,7 +22,8 @@ from sourcelab.batch import (
     make_engine,
     run_batch,
 )
-from sourcelab.batch.engines import run_unordered
+from sourcelab.batch.engines import (
+    THREAD_ENV, one_thread_environment, run_unordered, worker_threads)
 from sourcelab.config import AnalysisConfig
 from sourcelab.errors import InputError
 
@@ -221,6 +223,29 @@ def test_process_pool_gives_identical_numbers(serial_run, tmp_path):
     pd.testing.assert_frame_equal(pd.read_csv(serial.tables["roi"], sep="\t"),
                                   pd.read_csv(summary.tables["roi"], sep="\t"),
                                   check_exact=True)
+
+
+def test_process_workers_start_with_one_blas_thread(monkeypatch):
+    # Each worker must run one BLAS/OpenMP thread (workers == cores; oversubscribed threads slow
+    # a batch down, common practice).  The libraries read their thread variables when they load,
+    # which in a spawned worker is before any initialiser runs, so the variables must be in the
+    # worker's environment from its start; threadpoolctl reports what the libraries use.
+    for k in THREAD_ENV:
+        monkeypatch.delenv(k, raising=False)
+    with ProcessEngine(1) as engine:
+        info = engine.result(engine.submit(worker_threads, None))
+    assert info["env"] == {k: "1" for k in THREAD_ENV}
+    assert info["pools"] and set(info["pools"].values()) == {1}, info
+    assert not any(k in os.environ for k in THREAD_ENV)  # the parent's environment is restored
+
+
+def test_one_thread_environment_keeps_the_users_setting(monkeypatch):
+    monkeypatch.setenv("OMP_NUM_THREADS", "3")
+    monkeypatch.delenv("OPENBLAS_NUM_THREADS", raising=False)
+    with one_thread_environment():
+        assert os.environ["OMP_NUM_THREADS"] == "3"
+        assert os.environ["OPENBLAS_NUM_THREADS"] == "1"
+    assert os.environ["OMP_NUM_THREADS"] == "3" and "OPENBLAS_NUM_THREADS" not in os.environ
 
 
 # ------------------------------------------------------------------ command line

@@ -69,20 +69,27 @@ def test_tables_equal_the_coupling_functions_on_the_clean_epochs(result, coupled
     from sourcelab.rois import load_atlas
     from sourcelab.spectra import epoch_fourier
 
+    from threadpoolctl import threadpool_limits
+
+    from sourcelab.analysis import BLAS_THREADS
+
     cfg = result.config
-    clean = clean_recording(read_recording(coupled_raw), cfg, muscle_uv=cfg.muscle_uv,
-                            blink_uv=cfg.blink_uv)
-    spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, cfg.bands, dtype=np.complex64)
-    plain, _ = epoch_fourier(clean.epochs, clean.sfreq, cfg.bands, taper=False,
-                             dtype=np.complex64)
-    c0 = independent_source_covariance(head_model.gain_fixed)
-    kw = dict(n_boot=199, seed=cfg.boot_seed, ci=cfg.ci)
-    pt = pair_table(sensor_coupling(spec, freqs, cfg.bands, head_model.ch_names,
-                                    head_model.ch_pos, null_cov=c0, **kw))
-    op = inverse_operator(cfg.method, cfg.orientation, cfg.lambda2)
-    ct = coupling_table(network_coupling(spec, plain, freqs, cfg.bands, op,
-                                         [load_atlas(a) for a in cfg.coupling_atlases],
-                                         null_cov=c0, normals=head_model.src_nn, **kw))
+    # the same BLAS thread count as the analysis: float32 bootstrap sums round differently
+    # with another one (interval ends then differ in the 7th digit)
+    with threadpool_limits(BLAS_THREADS):
+        clean = clean_recording(read_recording(coupled_raw), cfg, muscle_uv=cfg.muscle_uv,
+                                blink_uv=cfg.blink_uv)
+        spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, cfg.bands, dtype=np.complex64)
+        plain, _ = epoch_fourier(clean.epochs, clean.sfreq, cfg.bands, taper=False,
+                                 dtype=np.complex64)
+        c0 = independent_source_covariance(head_model.gain_fixed)
+        kw = dict(n_boot=199, seed=cfg.boot_seed, ci=cfg.ci)
+        pt = pair_table(sensor_coupling(spec, freqs, cfg.bands, head_model.ch_names,
+                                        head_model.ch_pos, null_cov=c0, **kw))
+        op = inverse_operator(cfg.method, cfg.orientation, cfg.lambda2)
+        ct = coupling_table(network_coupling(spec, plain, freqs, cfg.bands, op,
+                                             [load_atlas(a) for a in cfg.coupling_atlases],
+                                             null_cov=c0, normals=head_model.src_nn, **kw))
     pd.testing.assert_frame_equal(result.pair_table, pt, check_exact=False, rtol=1e-9)
     pd.testing.assert_frame_equal(result.coupling_table, ct, check_exact=False, rtol=1e-9)
 

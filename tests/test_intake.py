@@ -473,3 +473,33 @@ def test_reliability_summary_is_json_ready(rng):
     assert s["min_split_half"] == pytest.approx(s["split_half"]["beta"])
     with pytest.raises(InputError, match="bands"):
         reliability_summary(power, ["alpha"])
+
+
+@pytest.mark.parametrize("n_times, nperseg", [(153_600, 512), (5_000, 511), (600, 600),
+                                              (2_000, 1_999)])
+def test_welch_psd_matches_scipy(rng, n_times, nperseg, monkeypatch):
+    # Reference: scipy.signal.welch with its defaults (periodic Hann, 50 % overlap, constant
+    # detrend, one-sided density); a small block size forces several blocks of segments.
+    from sourcelab.intake import power
+
+    monkeypatch.setattr(power, "_WELCH_BLOCK_BYTES", 1 << 16)
+    x = rng.normal(size=(19, n_times)) * 20 + rng.normal(size=(19, 1)) * 100
+    f_ref, p_ref = welch(x, fs=256.0, nperseg=nperseg, axis=1)
+    f, p = power.welch_psd(x, 256.0, nperseg)
+    np.testing.assert_allclose(f, f_ref, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(p, p_ref, rtol=1e-10, atol=0)
+
+
+def test_robust_amplitude_is_the_normal_scaled_mad_and_leaves_its_input(rng):
+    # Known answer: 1.4826 x median absolute deviation of the signal minus its 1-s moving mean
+    # (Rousseeuw & Croux 1993, from memory); reference computed with scipy.ndimage directly.
+    from scipy.ndimage import uniform_filter1d
+
+    from sourcelab.intake.recording import robust_amplitude
+
+    x = rng.normal(size=(19, 25_600)) * np.linspace(1, 40, 19)[:, None]
+    before = x.copy()
+    d = x - uniform_filter1d(x, 256, axis=1, mode="nearest")
+    ref = 1.4826 * np.median(np.abs(d - np.median(d, axis=1, keepdims=True)), axis=1)
+    np.testing.assert_allclose(robust_amplitude(x, 256.0), ref, rtol=1e-12)
+    np.testing.assert_array_equal(x, before)

@@ -19,10 +19,12 @@ Engines (dispatch table :data:`ENGINES`):
 from __future__ import annotations
 
 import concurrent.futures as cf
+import contextlib
 import itertools
 import logging
 import multiprocessing
 import os
+import threading
 from collections.abc import Callable, Iterable, Iterator
 from typing import Any
 
@@ -34,6 +36,50 @@ DASK_MISSING = ("the Dask engine needs dask[distributed], which is not installed
                 "install it with: pip install 'sourcelab[dist]'")
 
 
+#: Thread-count variables of the BLAS and OpenMP libraries.  Each library reads its variable once,
+#: when it is loaded, so a worker must have them in its environment from the start: a spawned
+#: worker imports numpy (with the parent's main module) before its initialiser runs.
+THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
+              "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+_ENV_LOCK = threading.Lock()
+
+
+@contextlib.contextmanager
+def one_thread_environment():
+    """One BLAS/OpenMP thread in the processes started inside the block.
+
+    Sets each variable of :data:`THREAD_ENV` that the user has not set to ``"1"`` while the block
+    runs (processes started meanwhile inherit it) and restores the environment afterwards; a
+    value the user set is kept.
+    """
+    with _ENV_LOCK:
+        added = [k for k in THREAD_ENV if k not in os.environ]
+        for k in added:
+            os.environ[k] = "1"
+        try:
+            yield
+        finally:
+            for k in added:
+                os.environ.pop(k, None)
+
+
+def worker_threads(_task=None) -> dict:
+    """Thread counts of this process's BLAS/OpenMP libraries (``threadpoolctl``, after loading
+    numpy) and the variables of :data:`THREAD_ENV` (a diagnostic for the worker set-up; the
+    argument is ignored, so that an engine can run it as a task)."""
+    import numpy  # noqa: F401 - loads BLAS
+
+    info = {}
+    try:
+        from threadpoolctl import threadpool_info
+    except ImportError:  # pragma: no cover - optional
+        pass
+    else:
+        for lib in threadpool_info():
+            info[f"{lib['user_api']}:{lib['internal_api']}"] = int(lib["num_threads"])
+    return {"pools": info, "env": {k: os.environ.get(k) for k in THREAD_ENV}}
+
+
 def _init_worker(log_level: int = logging.ERROR) -> None:
     """Worker initialiser: one BLAS thread per worker process (workers == cores), and the
     ``sourcelab`` log level of the parent (per-recording warnings are in each provenance.json)."""
@@ -43,9 +89,11 @@ def _init_worker(log_level: int = logging.ERROR) -> None:
         h = logging.StreamHandler()
         h.setFormatter(logging.Formatter(f"sourcelab[{os.getpid()}]: %(levelname)s: %(message)s"))
         logger.addHandler(h)
+    # the environment (see one_thread_environment) limits every library loaded later; this
+    # limits the ones already loaded in case the user's environment asked for more
     try:
         from threadpoolctl import threadpool_limits
-    except ImportError:  # pragma: no cover - optional; BLAS then picks its own thread count
+    except ImportError:  # pragma: no cover - optional
         return
     threadpool_limits(1)
 
@@ -132,7 +180,9 @@ class ProcessEngine(Engine):
             initializer=_init_worker, initargs=(log_level,))
 
     def submit(self, fn, task):
-        return self._pool.submit(fn, task)
+        # the pool starts its worker processes inside submit (spawn: on demand)
+        with one_thread_environment():
+            return self._pool.submit(fn, task)
 
     def close(self):
         self._pool.shutdown(wait=True, cancel_futures=True)

@@ -252,10 +252,13 @@ def pair_statistics_from_fourier(spec: np.ndarray, freqs: np.ndarray, pairs) -> 
                                                            (xi, ib)))
     re = ar * br + ai * bi                                            # Re(X_a conj(X_b))
     im = ai * br - ar * bi                                            # Im(X_a conj(X_b))
+    del ar, ai, br, bi  # each the size of a statistic: released before the others are made
     mag = np.sqrt(np.take(power, ia, axis=-1) * np.take(power, ib, axis=-1))  # |S|
     inv = np.divide(1.0, mag, out=np.zeros_like(mag), where=mag > 0)
+    del mag
     stats = {"re": re, "im": im, "abs_im": np.abs(im), "sq_im": im * im, "u_re": re * inv,
              "u_im": im * inv}
+    del inv
     return PairStatistics(stats=stats, power=power, ia=ia, ib=ib,
                           freqs=np.asarray(freqs, dtype=float))
 

@@ -8,11 +8,11 @@ from dataclasses import dataclass, field
 
 import mne
 import numpy as np
-from scipy.signal import welch
 
 from ..config import AnalysisConfig
 from ..constants import SITES_1020
 from ..errors import InputError
+from .power import welch_psd
 from .recording import Recording
 
 logger = logging.getLogger("sourcelab")
@@ -107,7 +107,7 @@ def detect_mains(data_uv: np.ndarray, sfreq: float, *, min_ratio: float = 3.0) -
     float | None
     """
     nper = int(min(data_uv.shape[1], round(2 * sfreq)))
-    f, p = welch(data_uv, fs=sfreq, nperseg=nper, axis=1)
+    f, p = welch_psd(data_uv, sfreq, nper)
     best, best_ratio = None, min_ratio
     for mains in (50.0, 60.0):
         if mains + 5 >= sfreq / 2:
@@ -266,8 +266,32 @@ def epoch_starts(allowed: np.ndarray, n_per: int) -> tuple[np.ndarray, int]:
 
 
 def _windows(x: np.ndarray, starts: np.ndarray, n_per: int) -> np.ndarray:
-    idx = starts[:, None] + np.arange(n_per)[None, :]
-    return np.ascontiguousarray(x[:, idx].transpose(1, 0, 2))
+    """Epochs ``x[:, st:st + n_per]`` stacked, shape (n_epochs, n_channels, n_per) (one copy)."""
+    out = np.empty((len(starts), x.shape[0], n_per), dtype=x.dtype)
+    for i, st in enumerate(starts):
+        out[i] = x[:, st:st + n_per]
+    return out
+
+
+#: Epochs reduced at once by :func:`_window_reduce` (bounds the working memory of the features).
+_REDUCE_BLOCK = 256
+
+
+def _window_reduce(x: np.ndarray, starts: np.ndarray, n_per: int, fn) -> np.ndarray:
+    """``fn(_windows(x, starts, n_per))`` a block of epochs at a time (``fn`` reduces the last
+    axis), without holding every epoch's copy at once."""
+    if not len(starts):
+        return fn(_windows(x, starts, n_per))
+    return np.concatenate([fn(_windows(x, starts[s:s + _REDUCE_BLOCK], n_per))
+                           for s in range(0, len(starts), _REDUCE_BLOCK)])
+
+
+def _ptp(w: np.ndarray) -> np.ndarray:
+    return np.ptp(w, axis=-1)
+
+
+def _rms(w: np.ndarray) -> np.ndarray:
+    return np.sqrt(np.mean(w ** 2, axis=-1))
 
 
 def _delta_edges(config: AnalysisConfig) -> tuple[float, float]:
@@ -280,8 +304,12 @@ def band_csd(epochs: np.ndarray, sfreq: float, band: tuple[float, float]) -> np.
     n = epochs.shape[-1]
     f = np.fft.rfftfreq(n, 1 / sfreq)
     sel = (f >= band[0]) & (f < band[1])
-    x = np.fft.rfft(epochs * np.hanning(n), axis=-1)[..., sel]
-    return np.real(np.einsum("eck,edk->cd", x, x.conj())) / max(len(epochs), 1)
+    win = np.hanning(n)
+    out = np.zeros((epochs.shape[1], epochs.shape[1]))
+    for s in range(0, len(epochs), _REDUCE_BLOCK):   # a block of epochs at a time (memory)
+        x = np.fft.rfft(epochs[s:s + _REDUCE_BLOCK] * win, axis=-1)[..., sel]
+        out += np.real(np.einsum("eck,edk->cd", x, x.conj()))
+    return out / max(len(epochs), 1)
 
 
 #: Nasion of MNE's fsaverage_1020 montage in head coordinates, metres (the template positions
@@ -358,20 +386,19 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     sf = float(raw.info["sfreq"])
     nyq = sf / 2
     notes: list[str] = []
-    data = raw.get_data() * 1e6
-    unfiltered = data  # flatness is judged before filtering (filters smear neighbours in)
+    data = raw.get_data() * 1e6  # µV; this function's own array (filtered in place below)
     mains = config.notch if config.notch is not None else detect_mains(data, sf)
     h_freq = config.h_freq if config.h_freq is not None and config.h_freq < nyq * 0.9 else None
     if config.h_freq is not None and h_freq is None:
         notes.append(f"h_freq {config.h_freq} Hz not below 0.9 x Nyquist ({nyq} Hz); no low-pass")
 
     def band_pass(x):
+        """Notch and band-pass, in place (``x`` is this function's own array)."""
         if mains is not None and mains < nyq - 1:
-            x = mne.filter.notch_filter(x, sf, np.arange(mains, nyq - 1, mains), verbose="error")
-        return mne.filter.filter_data(x, sf, config.l_freq, h_freq, verbose="error")
-
-    data = band_pass(data)
-    lap("filter")
+            x = mne.filter.notch_filter(x, sf, np.arange(mains, nyq - 1, mains), copy=False,
+                                        verbose="error")
+        return mne.filter.filter_data(x, sf, config.l_freq, h_freq, copy=False,
+                                      verbose="error")
 
     n_per = int(round(config.epoch_s * sf))
     bad = bad_mask(raw)
@@ -383,13 +410,19 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     excluded = excluded_procedures(chosen & ~bad, proc_spans, sf)
     usable = ~bad & ~proc
     allowed = chosen & usable
+    starts, leftover = epoch_starts(allowed, n_per)
+    # flatness is judged before filtering (filters smear neighbours in)
+    flat = _window_reduce(data, starts, n_per, _ptp) < config.flat_uv
     lap("select")
+
+    data = band_pass(data)
+    lap("filter")
 
     # --- ocular correction, learned from all usable data -------------------------------------
     bounds = plausibility_bounds(age)
     all_starts, _ = epoch_starts(usable, n_per)
     if len(all_starts):
-        gross = (np.ptp(_windows(data, all_starts, n_per), axis=-1)
+        gross = (_window_reduce(data, all_starts, n_per, _ptp)
                  > bounds["ptp_uv"][1] * GROSS_FACTOR).any(1)
         fit_mask = usable.copy()
         for st in all_starts[gross]:
@@ -408,10 +441,8 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     lap("ocular")
 
     # --- features: selected epochs, and all usable epochs for learning ------------------------
-    starts, leftover = epoch_starts(allowed, n_per)
     ep = _windows(data, starts, n_per)
     ptp = np.ptp(ep, axis=-1)
-    flat = np.ptp(_windows(unfiltered, starts, n_per), axis=-1) < config.flat_uv
     hi = min(muscle_band[1], (h_freq or nyq * 0.9))
     muscle_on = np.isfinite(muscle_uv) and muscle_band[0] < hi
     hf = mne.filter.filter_data(data, sf, muscle_band[0], hi, verbose="error") if muscle_on \
@@ -420,11 +451,11 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     def hf_rms(st):
         if hf is None:
             return np.zeros((len(st), len(SITES_1020)))
-        return np.sqrt(np.mean(_windows(hf, st, n_per) ** 2, axis=-1))
+        return _window_reduce(hf, st, n_per, _rms)
 
     hf_sel = hf_rms(starts)
     if config.rejection == "auto":
-        ptp_all = np.ptp(_windows(data, all_starts, n_per), axis=-1)
+        ptp_all = _window_reduce(data, all_starts, n_per, _ptp)
         thr = learn_thresholds(ptp_all, hf_rms(all_starts), age=age, z=config.reject_z)
         if thr.n_epochs < 20:
             notes.append(f"only {thr.n_epochs} usable epochs to learn rejection thresholds "
@@ -432,6 +463,7 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     else:
         thr = fixed_thresholds(len(SITES_1020), reject_uv=config.reject_uv,
                                muscle_uv=muscle_uv)
+    hf = None  # the high-frequency copy is no longer needed (memory)
     lap("features and thresholds")
 
     # --- per-epoch, per-site checks ----------------------------------------------------------
@@ -488,23 +520,25 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
 
     # --- does the slow-wave topography still look ocular? ------------------------------------
     templates = ocular_templates(_positions(raw), _nasion(raw))
-    residual = ocular_residual(band_csd(ep[keep], sf, _delta_edges(config)), templates)
+    kept_ep = ep if keep.all() else ep[keep]
+    ocular_info, ocular_method = ocular.summary(), ocular.method
+    del ep, data, ocular  # the continuous copies are no longer needed (memory)
+    residual = ocular_residual(band_csd(kept_ep, sf, _delta_edges(config)), templates)
     if residual["ocular"]:
         how = ("after ocular correction" if corrected else
-               "without ocular correction" if ocular.method == "off" else
+               "without ocular correction" if ocular_method == "off" else
                "although no ocular component was found")
         notes.append(f"the dominant delta-band scalp pattern matches an eye-movement pattern "
                      f"(r = {residual['r']:.2f}, threshold {residual['threshold']:g}) {how}: "
                      "frontal slow activity may be eye artefact rather than a cortical "
                      "generator")
-    ocular_info = ocular.summary()
     ocular_info["residual_delta"] = residual
     lap("ocular check")
     for msg in notes:
         logger.warning("%s: %s", where, msg)
     logger.info("%s: kept %.0f s in %d epochs; removed %s", where, kept_s, keep.sum(), summary)
     return CleanData(
-        epochs=ep[keep].astype(np.float64), sfreq=sf, ch_names=tuple(SITES_1020),
+        epochs=np.asarray(kept_ep, dtype=np.float64), sfreq=sf, ch_names=tuple(SITES_1020),
         epoch_onsets_s=starts[keep] / sf, kept_s=kept_s, rejected_s=rejected,
         channel_kept_fraction=kept_fraction, mains_hz=mains, thresholds=thresholds,
         warnings=tuple(recording.warnings) + tuple(notes), excluded=tuple(excluded),

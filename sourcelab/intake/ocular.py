@@ -294,7 +294,9 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
     # this makes its filtering ~20x cheaper)
     q = max(1, int(sfreq // SCORE_HZ))
     sos = butter(4, min(12.0, 0.4 * sfreq / q), fs=sfreq, output="sos")
-    low = sosfiltfilt(sos, np.vstack([usable, veog, heog]), axis=1)[:, ::q] * 1e-6
+    # row by row (each row is filtered independently: the same numbers, without holding the
+    # filter's padded copies of every row at once)
+    low = np.stack([sosfiltfilt(sos, row)[::q] for row in (*usable, veog, heog)]) * 1e-6
     score_raw = mne.io.RawArray(low, mne.create_info(names_all, sfreq / q, types),
                                 verbose="error")
     ica = mne.preprocessing.ICA(n_components=n_comp, method="fastica", max_iter=MAX_ITER,

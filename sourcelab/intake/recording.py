@@ -10,12 +10,12 @@ from pathlib import Path
 import mne
 import numpy as np
 from scipy.ndimage import uniform_filter1d
-from scipy.signal import welch
 
 from ..constants import SITES_1020
 from ..errors import InputError
 from .channels import match_channels
 from .files import read_file
+from .power import welch_psd
 
 logger = logging.getLogger("sourcelab")
 
@@ -113,9 +113,14 @@ def robust_amplitude(data_uv: np.ndarray, sfreq: float) -> np.ndarray:
         J Am Stat Assoc 88:1273-1283 — from memory).
     """
     width = max(int(round(sfreq)), 1)
-    x = data_uv - uniform_filter1d(data_uv, width, axis=1, mode="nearest")
-    med = np.median(x, axis=1, keepdims=True)
-    return 1.4826 * np.median(np.abs(x - med), axis=1)
+    data_uv = np.asarray(data_uv, dtype=float)
+    # one working copy (the medians only reorder it in place; the values they need are kept)
+    x = uniform_filter1d(data_uv, width, axis=1, mode="nearest")
+    np.subtract(data_uv, x, out=x)
+    med = np.median(x, axis=1, keepdims=True, overwrite_input=True)
+    x -= med
+    np.abs(x, out=x)
+    return 1.4826 * np.median(x, axis=1, overwrite_input=True)
 
 
 def line_noise_ratio(data_uv: np.ndarray, sfreq: float) -> np.ndarray:
@@ -132,7 +137,7 @@ def line_noise_ratio(data_uv: np.ndarray, sfreq: float) -> np.ndarray:
         0 when the sampling rate cannot represent 50 Hz.
     """
     nper = int(min(data_uv.shape[1], round(2 * sfreq)))
-    f, p = welch(data_uv, fs=sfreq, nperseg=nper, axis=1)
+    f, p = welch_psd(data_uv, sfreq, nper)
     line = np.zeros(len(f), bool)
     for mains in (50.0, 60.0):
         if mains + 1 < sfreq / 2:
@@ -143,7 +148,8 @@ def line_noise_ratio(data_uv: np.ndarray, sfreq: float) -> np.ndarray:
     return p[:, line].sum(1) / np.maximum(p[:, rest].sum(1), 1e-30)
 
 
-def detect_bad_sites(data_uv: np.ndarray, sfreq: float, names) -> dict[str, str]:
+def detect_bad_sites(data_uv: np.ndarray, sfreq: float, names, *,
+                     amplitude: np.ndarray | None = None) -> dict[str, str]:
     """Flat, wildly noisy and line-noise-dominated (disconnected) sites.
 
     Parameters
@@ -152,6 +158,8 @@ def detect_bad_sites(data_uv: np.ndarray, sfreq: float, names) -> dict[str, str]
         µV.
     sfreq : float
     names : sequence of str
+    amplitude : ndarray, shape (n_channels,), optional
+        :func:`robust_amplitude` of ``data_uv`` if already computed.
 
     Returns
     -------
@@ -161,7 +169,7 @@ def detect_bad_sites(data_uv: np.ndarray, sfreq: float, names) -> dict[str, str]
         ``LINE_DOMINATED_RATIO`` (common practice, in the spirit of Bigdely-Shamlo et al. 2015,
         Front Neuroinform 9:16 — from memory).
     """
-    amp = robust_amplitude(data_uv, sfreq)
+    amp = robust_amplitude(data_uv, sfreq) if amplitude is None else np.asarray(amplitude)
     ratio = line_noise_ratio(data_uv, sfreq)
     live = amp > FLAT_SITE_UV
     med = float(np.median(amp[live])) if live.any() else 0.0
@@ -276,7 +284,7 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
             path=where)
 
     # --- bad sites ---------------------------------------------------------------------------
-    bad = detect_bad_sites(data, sfreq, SITES_1020)
+    bad = detect_bad_sites(data, sfreq, SITES_1020, amplitude=amp)
     for orig in file_bads + marked_bad:
         site = next((s for s, o in match.channel_map.items() if o == orig), None)
         if site and site not in bad:

@@ -58,7 +58,7 @@ INTERVAL_COLUMNS = ("value_lo", "value_hi", "z_lo", "z_hi", "robust")
 #: Below this many epochs the bootstrap distribution is too coarse to trust (logged).
 MIN_EPOCHS_WARN = 20
 #: Replicates x bands x sources held in memory at once in the relative-power path (float32).
-_CHUNK_ELEMENTS = 24_000_000
+_CHUNK_ELEMENTS = 6_000_000
 
 
 # --------------------------------------------------------------------------------------------

@@ -70,7 +70,8 @@ def own_shares(space) -> np.ndarray:
     return out
 
 
-def resolvability_table(space, ch_pos: np.ndarray, src_pos: np.ndarray):
+def resolvability_table(space, ch_pos: np.ndarray, src_pos: np.ndarray, *,
+                        own: np.ndarray | None = None):
     """Apply the module's rule to every Brodmann area.
 
     Parameters
@@ -81,6 +82,8 @@ def resolvability_table(space, ch_pos: np.ndarray, src_pos: np.ndarray):
         Electrode positions, metres (head frame).
     src_pos : ndarray, shape (n_src, 3)
         Source positions, metres (head frame), in the space's source order.
+    own : ndarray, shape (n_codes,), optional
+        :func:`own_shares` of ``space`` if already computed.
 
     Returns
     -------
@@ -92,7 +95,7 @@ def resolvability_table(space, ch_pos: np.ndarray, src_pos: np.ndarray):
     from ..rois.registry import SMALL_MIN_VERTICES
     from .cortex import template_area_counts
 
-    own = own_shares(space)
+    own = own_shares(space) if own is None else np.asarray(own)
     template = template_area_counts(space)
     far = np.linalg.norm(src_pos[space.sources][:, None] - ch_pos[None], axis=-1).min(1)
     far = far * 1e3 > COVER_MM
@@ -173,8 +176,9 @@ def localisation_context(lambda2: float = 1 / 9):
 
     model = load_head_model()
     space = cortex_space(float(lambda2))
-    table = resolvability_table(space, model.ch_pos, model.src_pos)
-    return space, own_shares(space), unresolvable_codes(space, table), table
+    own = own_shares(space)
+    table = resolvability_table(space, model.ch_pos, model.src_pos, own=own)
+    return space, own, unresolvable_codes(space, table), table
 
 
 def resolvable_areas(lambda2: float = 1 / 9) -> dict[str, bool]:
