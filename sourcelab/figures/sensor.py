@@ -19,6 +19,22 @@ def sensor_info(ch_names: tuple[str, ...] = SITES_1020):
 
     Positions come from MNE's packaged ``fsaverage_1020`` montage (electrodes fitted to the
     fsaverage scalp), so the maps sit on the same head as the source model.
+
+    Parameters
+    ----------
+    ch_names : tuple of str
+        10-20 sites (any subset of the 19 canonical sites); default all 19 in canonical order.
+
+    Returns
+    -------
+    mne.Info
+        EEG channels of these sites with positions (sampling rate 250 Hz, a placeholder);
+        cached, so callers must not modify it.
+
+    Raises
+    ------
+    InputError
+        A name that is not one of the 19 sites.
     """
     from ..headmodel import make_info
 
