@@ -176,6 +176,13 @@ _Q_CACHE: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 def roi_average_matrix(roi_vertices: Sequence[np.ndarray], n_src: int):
     """Sparse matrix averaging source values over ROIs.
 
+    Parameters
+    ----------
+    roi_vertices : sequence of array-like of int
+        Source indices of each ROI (ROIs may overlap; none may be empty).
+    n_src : int
+        Number of sources; indices must lie in ``0 .. n_src - 1``.
+
     Returns
     -------
     used : ndarray of int, shape (n_used,)
