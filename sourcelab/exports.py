@@ -349,12 +349,22 @@ def export_nifti(result, out_dir, *, measures=MEASURES, resolution: int = 2,
 
     Parameters
     ----------
+    result : AnalysisResult
+        An analysed recording; maps of shape (n_bands, n_src).
+    out_dir : str | Path
+        Output folder (created; files are staged in a temporary folder inside it, then renamed).
+    measures : sequence of {"absolute", "relative", "z_absolute", "z_relative"}
+        Absolute (standardised sLORETA) source power, relative power (fraction of total) or
+        per-source z.
     resolution : {2, 3}
         Voxel size, mm.
+    prefix : str
+        Prepended to every file name.
 
     Returns
     -------
     paths : list of Path
+        One float32 MNI152 volume per measure and band, in that order.
     """
     import nibabel as nib
 
@@ -427,6 +437,8 @@ def export_bids_derivatives(result, root, participant_id: str, *, resolution: in
         BIDS dataset root (or any folder).
     participant_id : str
         Made safe with :func:`sourcelab.provenance.safe_name` and reduced to letters and digits.
+    resolution : {2, 3}
+        Voxel size of the NIfTI volumes, mm.
 
     Returns
     -------

@@ -419,6 +419,8 @@ def run_batch(items: Sequence[BatchItem], out: str | Path, *,
         NIfTI); slower and larger, off by default.
     progress : bool | None
         tqdm progress bar on stderr; None shows it only on a terminal.
+    command : sequence of str, optional
+        Command line recorded in each recording's provenance; default ``sys.argv``.
 
     Returns
     -------

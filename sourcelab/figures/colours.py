@@ -205,6 +205,8 @@ def add_colourbar(fig, scale: ColourScale, *, cax=None, ax=None, orientation: st
     data : array-like, optional
         The values drawn.  When given, the bar gets extension arrows at the ends the data pass
         (those values are drawn in the end colours) and its label states the true data range.
+    **kwargs
+        Passed to :meth:`matplotlib.figure.Figure.colorbar`.
 
     For z scales, dashed ticks mark ±threshold when one is set.
 

@@ -68,7 +68,10 @@ def sensor_topomaps(values: np.ndarray, *, band_names, scale,
         faster than "cubic" and invents no extrema between electrodes.
     names : bool
         Write the electrode names on the maps (default).
+    dpi : int
+        Resolution of the figure and of ``output_file``, dots per inch.
     output_file : str | Path | None
+        If given, the figure is also saved there (format from the extension).
 
     Returns
     -------

@@ -195,10 +195,18 @@ def selection_mask(raw, select, *, where=None) -> np.ndarray:
         next state-changing marker (:func:`sourcelab.intake.states.state_spans`).  Ranges are
         [t0, t1) seconds from the first sample.  The union is taken.  None selects everything.
         Procedure spans are removed afterwards, by :func:`clean_recording`.
+    where : str | Path, optional
+        File named in error messages.
 
     Returns
     -------
     ndarray of bool, shape (n_times,)
+        True for selected samples.
+
+    Raises
+    ------
+    InputError
+        An unknown description, a malformed or empty range, or a selection with no data.
     """
     from .states import Span, canonical_state, state_spans
 
@@ -402,6 +410,9 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
         (:func:`sourcelab.intake.artefacts.plausibility_bounds`).
     muscle_uv : float, optional
         Overrides ``config.muscle_uv`` (``rejection = "fixed"``); ``inf`` disables muscle checks.
+    muscle_band : (float, float)
+        Band-pass of the muscle check, Hz (default 25-45 Hz); the upper edge is lowered to the
+        low-pass edge (or 0.9 × Nyquist) when that is lower.
     blink_uv : float, optional
         Overrides ``config.blink_uv``: Fp1/Fp2 low-frequency (< 3 Hz) deflection threshold, µV;
         the deflection must also be at least twice the O1/O2 one.  Applied only when ocular
