@@ -80,7 +80,19 @@ VALUE_UNITS_NOTE = "unit of the row's measure (see the Levels of the column 'mea
 
 
 def units_by_measure(table) -> dict | None:
-    """Measure -> unit when the table's ``unit`` column follows from ``measure``, else None."""
+    """Measure -> unit when the table's ``unit`` column follows from ``measure``, else None.
+
+    Parameters
+    ----------
+    table : DataFrame
+        Tidy table, possibly with ``measure`` and ``unit`` columns.
+
+    Returns
+    -------
+    dict of str -> str or None
+        Measure -> unit (e.g. ``"µV²"``); ``None`` when either column is missing or a measure
+        has more than one unit.
+    """
     if "unit" not in table.columns or "measure" not in table.columns:
         return None
     pairs = table[["measure", "unit"]].drop_duplicates()
@@ -90,8 +102,21 @@ def units_by_measure(table) -> dict | None:
 
 
 def file_table(table):
-    """The table as written to a TSV: without the ``unit`` column when the unit follows from the
-    measure (it is given once, in the column sidecar, instead of on every row)."""
+    """The table as written to a TSV.
+
+    Without the ``unit`` column when the unit follows from the measure (it is given once, in the
+    column sidecar, instead of on every row).
+
+    Parameters
+    ----------
+    table : DataFrame
+        The in-memory tidy table.
+
+    Returns
+    -------
+    DataFrame
+        ``table`` itself, or a copy without ``unit``.
+    """
     return table.drop(columns="unit") if units_by_measure(table) is not None else table
 
 
@@ -143,8 +168,28 @@ def column_sidecar(table, notes: dict | None = None, *, band_edges: dict | None 
 
 def write_table(table, path, sidecar: dict, *, na_rep: str = "",
                 float_format: str | None = "%.6g") -> Path:
-    """Write ``table`` as a plain TSV (header row first: reads with ``pandas.read_csv(path,
-    sep="\t")``) and its column sidecar as ``<stem>.json`` beside it."""
+    """Write ``table`` as a plain TSV and its column sidecar as ``<stem>.json`` beside it.
+
+    The header row comes first: the file reads with ``pandas.read_csv(path, sep="\t")``.
+
+    Parameters
+    ----------
+    table : DataFrame
+        The in-memory table; written through :func:`file_table`.
+    path : str | Path
+        The ``.tsv`` file to write (overwritten).
+    sidecar : dict
+        Column descriptions (see :func:`column_sidecar`), written as UTF-8 JSON.
+    na_rep : str
+        Text for missing values.
+    float_format : str, optional
+        ``printf``-style format of floats; ``None`` writes full precision.
+
+    Returns
+    -------
+    Path
+        ``path``.
+    """
     path = Path(path)
     file_table(table).to_csv(path, sep="\t", index=False, na_rep=na_rep,
                              float_format=float_format)
@@ -172,7 +217,19 @@ Z_MEASURES = ("z_absolute", "z_relative")
 
 
 def map_measures(result) -> tuple[str, ...]:
-    """The measures a result can export: power always, per-source z when it has them."""
+    """The measures a result can export: power always, per-source z when it has them.
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        An analysed recording.
+
+    Returns
+    -------
+    tuple of str
+        ``("absolute", "relative")`` followed by ``"z_absolute"``/``"z_relative"`` for each
+        measure in ``result.source_z``.
+    """
     z = getattr(result, "source_z", None) or {}
     return MEASURES + tuple(f"z_{m}" for m in MEASURES if m in z)
 
@@ -248,9 +305,23 @@ def export_gifti(result, out_dir, *, measures=MEASURES, prefix: str = "") -> lis
     Files ``<prefix><measure>.<L|R>.func.gii`` on fsaverage5 (10,242 vertices a hemisphere); each
     data array carries its band name in its ``Name`` metadata.
 
+    Parameters
+    ----------
+    result : AnalysisResult
+        An analysed recording; maps of shape (n_bands, n_src) are put on the surface.
+    out_dir : str | Path
+        Output folder (created; files are written to a temporary folder inside it and renamed
+        into place).
+    measures : sequence of {"absolute", "relative", "z_absolute", "z_relative"}
+        Absolute (standardised sLORETA) source power, relative power (fraction of total) or
+        per-source z.
+    prefix : str
+        Prepended to every file name.
+
     Returns
     -------
     paths : list of Path
+        Two files (left, right) per measure, in measure order; float32 values.
     """
     import nibabel as nib
 
@@ -278,12 +349,22 @@ def export_nifti(result, out_dir, *, measures=MEASURES, resolution: int = 2,
 
     Parameters
     ----------
+    result : AnalysisResult
+        An analysed recording; maps of shape (n_bands, n_src).
+    out_dir : str | Path
+        Output folder (created; files are staged in a temporary folder inside it, then renamed).
+    measures : sequence of {"absolute", "relative", "z_absolute", "z_relative"}
+        Absolute (standardised sLORETA) source power, relative power (fraction of total) or
+        per-source z.
     resolution : {2, 3}
         Voxel size, mm.
+    prefix : str
+        Prepended to every file name.
 
     Returns
     -------
     paths : list of Path
+        One float32 MNI152 volume per measure and band, in that order.
     """
     import nibabel as nib
 
@@ -302,7 +383,23 @@ def export_nifti(result, out_dir, *, measures=MEASURES, resolution: int = 2,
 
 
 def bids_label(participant_id: str) -> str:
-    """A BIDS participant label (alphanumeric) from an identifier read from a file."""
+    """A BIDS participant label (alphanumeric) from an identifier read from a file.
+
+    Parameters
+    ----------
+    participant_id : str
+        Identifier, with or without a ``sub-`` prefix.
+
+    Returns
+    -------
+    str
+        Its letters and digits only, without ``sub-``.
+
+    Raises
+    ------
+    InputError
+        No letters or digits are left.
+    """
     s = safe_name(participant_id)
     s = re.sub(r"^sub-", "", s)
     s = re.sub(r"[^A-Za-z0-9]", "", s)
@@ -340,6 +437,8 @@ def export_bids_derivatives(result, root, participant_id: str, *, resolution: in
         BIDS dataset root (or any folder).
     participant_id : str
         Made safe with :func:`sourcelab.provenance.safe_name` and reduced to letters and digits.
+    resolution : {2, 3}
+        Voxel size of the NIfTI volumes, mm.
 
     Returns
     -------

@@ -51,6 +51,11 @@ def one_thread_environment():
     Sets each variable of :data:`THREAD_ENV` that the user has not set to ``"1"`` while the block
     runs (processes started meanwhile inherit it) and restores the environment afterwards; a
     value the user set is kept.
+
+    Yields
+    ------
+    None
+        Control returns to the ``with`` block while the variables are set.
     """
     with _ENV_LOCK:
         added = [k for k in THREAD_ENV if k not in os.environ]
@@ -64,9 +69,23 @@ def one_thread_environment():
 
 
 def worker_threads(_task=None) -> dict:
-    """Thread counts of this process's BLAS/OpenMP libraries (``threadpoolctl``, after loading
-    numpy) and the variables of :data:`THREAD_ENV` (a diagnostic for the worker set-up; the
-    argument is ignored, so that an engine can run it as a task)."""
+    """Thread counts of this process's BLAS/OpenMP libraries and its thread variables.
+
+    Counts come from ``threadpoolctl`` after loading numpy, with the variables of
+    :data:`THREAD_ENV` (a diagnostic for the worker set-up; the argument is ignored, so that an
+    engine can run it as a task).
+
+    Parameters
+    ----------
+    _task : object, optional
+        Ignored.
+
+    Returns
+    -------
+    dict
+        ``{"pools": {"<user_api>:<internal_api>": n_threads}, "env": {name: value or None}}``;
+        ``pools`` is empty when ``threadpoolctl`` is not installed.
+    """
     import numpy  # noqa: F401 - loads BLAS
 
     info = {}
@@ -105,20 +124,64 @@ class Engine:
     n_workers = 1
 
     def submit(self, fn: Callable, task: Any):
+        """Start ``fn(task)``; return a future-like handle (subclasses implement this).
+
+        Parameters
+        ----------
+        fn : callable
+            Module-level function of one argument (picklable for process and Dask engines).
+        task : object
+            Its argument (small and picklable).
+
+        Returns
+        -------
+        future
+            Handle passed to :meth:`wait_first` and :meth:`result`.
+        """
         raise NotImplementedError
 
     def wait_first(self, futures: set) -> tuple[set, set]:
-        """Block until at least one future is done; return ``(done, not_done)``."""
+        """Block until at least one future is done; return ``(done, not_done)``.
+
+        Parameters
+        ----------
+        futures : set
+            Handles returned by :meth:`submit`.
+
+        Returns
+        -------
+        done, not_done : set
+            The finished handles (at least one) and the others.
+        """
         done, pending = cf.wait(futures, return_when=cf.FIRST_COMPLETED)
         return set(done), set(pending)
 
     def result(self, future):
+        """The value of a finished task; re-raises the task's exception.
+
+        Parameters
+        ----------
+        future : future
+            A handle from :meth:`submit` that :meth:`wait_first` reported done.
+
+        Returns
+        -------
+        object
+            What ``fn(task)`` returned.
+        """
         return future.result()
 
     def close(self) -> None:
         pass
 
     def describe(self) -> str:
+        """One-line description of the engine for logs.
+
+        Returns
+        -------
+        str
+            Engine kind and number of workers, e.g. ``"processes (4 workers)"``.
+        """
         return f"{self.kind} ({self.n_workers} worker{'s' if self.n_workers != 1 else ''})"
 
     def __enter__(self):
@@ -152,14 +215,52 @@ class SerialEngine(Engine):
     kind = "serial"
 
     def submit(self, fn, task):
+        """Defer ``fn(task)`` until it is first waited for (no pickling).
+
+        Parameters
+        ----------
+        fn : callable
+            Function of one argument.
+        task : object
+            Its argument.
+
+        Returns
+        -------
+        _Deferred
+            Handle that runs the task in this process when waited for.
+        """
         return _Deferred(fn, task)
 
     def wait_first(self, futures):
+        """Run the earliest-submitted task; return ``({it}, the others)``.
+
+        Parameters
+        ----------
+        futures : set of _Deferred
+            Handles from :meth:`submit`.
+
+        Returns
+        -------
+        done, not_done : set
+            The one task just run and the remaining handles.
+        """
         first = min(futures, key=lambda f: f.order)
         first.run()
         return {first}, set(futures) - {first}
 
     def result(self, future):
+        """The value of a task (running it now if needed); re-raises its exception.
+
+        Parameters
+        ----------
+        future : _Deferred
+            A handle from :meth:`submit`.
+
+        Returns
+        -------
+        object
+            What ``fn(task)`` returned.
+        """
         future.run()
         if future.error is not None:
             raise future.error
@@ -180,6 +281,20 @@ class ProcessEngine(Engine):
             initializer=_init_worker, initargs=(log_level,))
 
     def submit(self, fn, task):
+        """Submit ``fn(task)`` to the pool, starting workers with one BLAS thread each.
+
+        Parameters
+        ----------
+        fn : callable
+            Module-level (picklable) function of one argument.
+        task : object
+            Its picklable argument.
+
+        Returns
+        -------
+        concurrent.futures.Future
+            The pool's future.
+        """
         # the pool starts its worker processes inside submit (spawn: on demand)
         with one_thread_environment():
             return self._pool.submit(fn, task)
@@ -238,13 +353,46 @@ class DaskEngine(Engine):
         return max(1, sum(self._client.nthreads().values()))
 
     def submit(self, fn, task):
+        """Submit ``fn(task)`` to the cluster (``pure=False``: never deduplicated).
+
+        Parameters
+        ----------
+        fn : callable
+            Module-level function of one argument, importable on the workers.
+        task : object
+            Its picklable argument.
+
+        Returns
+        -------
+        distributed.Future
+            The client's future.
+        """
         return self._client.submit(fn, task, pure=False)
 
     def wait_first(self, futures):
+        """Block until at least one future is done; return ``(done, not_done)``.
+
+        Parameters
+        ----------
+        futures : set of distributed.Future
+            Handles from :meth:`submit`.
+
+        Returns
+        -------
+        done, not_done : set
+            The finished futures (at least one) and the others.
+        """
         done, pending = self._dist.wait(list(futures), return_when="FIRST_COMPLETED")
         return set(done), set(pending)
 
     def describe(self):
+        """One-line description: local cluster or scheduler address, and worker threads.
+
+        Returns
+        -------
+        str
+            E.g. ``"dask, local cluster (2 worker threads)"``.
+        """
         where = "local cluster" if self._cluster is not None else self.address
         return f"dask, {where} ({self.n_workers} worker threads)"
 
@@ -265,8 +413,32 @@ ENGINES: dict[str, Callable[..., Engine]] = {
 
 def make_engine(kind: str | None = None, *, workers: int = 1, scheduler: str | None = None,
                 log_level: int = logging.ERROR) -> Engine:
-    """An engine by name; ``None`` picks ``dask`` with a scheduler, ``serial`` for one worker,
-    else ``processes``.  ``log_level`` is the ``sourcelab`` log level in worker processes."""
+    """An engine by name.
+
+    ``None`` picks ``dask`` with a scheduler, ``serial`` for one worker, else ``processes``.
+
+    Parameters
+    ----------
+    kind : {"serial", "processes", "dask"}, optional
+        Engine name (a key of :data:`ENGINES`); ``None`` chooses as above.
+    workers : int
+        Number of worker processes (``processes``) or local-cluster workers (``dask`` without a
+        scheduler); must be >= 1.
+    scheduler : str, optional
+        Dask scheduler address (``tcp://host:8786``); only with the ``dask`` engine.
+    log_level : int
+        The ``sourcelab`` log level in worker processes (``logging`` constant).
+
+    Returns
+    -------
+    Engine
+        The engine; use it as a context manager so that it is closed.
+
+    Raises
+    ------
+    InputError
+        Unknown ``kind``, a scheduler with another engine, or ``workers < 1``.
+    """
     if kind is None:
         kind = "dask" if scheduler else ("serial" if workers <= 1 else "processes")
     if kind not in ENGINES:
@@ -285,6 +457,26 @@ def run_unordered(engine: Engine, fn: Callable, tasks: Iterable, *,
     At most ``max_in_flight`` tasks (default ``2 * n_workers``) are submitted at once, so
     memory does not grow with the number of tasks.  A task whose worker raised (or died) yields
     its exception as ``error`` and the others go on.
+
+    Parameters
+    ----------
+    engine : Engine
+        Where to run the tasks.
+    fn : callable
+        Module-level function of one argument.
+    tasks : iterable
+        The arguments; consumed lazily.
+    max_in_flight : int, optional
+        Most tasks submitted and not yet collected; default ``2 * engine.n_workers``.
+
+    Yields
+    ------
+    index : int
+        Position of the task in ``tasks``.
+    result : object
+        What ``fn(task)`` returned, or ``None`` when it failed.
+    error : BaseException or None
+        The task's exception, or ``None`` on success.
     """
     it = iter(enumerate(tasks))
     pending: dict = {}

@@ -60,7 +60,18 @@ def _without_suffix(path: Path) -> str:
 
 
 def recording_stem(path: Path) -> str:
-    """File name without its recording suffix(es) and without a trailing BIDS ``_eeg``."""
+    """File name without its recording suffix(es) and without a trailing BIDS ``_eeg``.
+
+    Parameters
+    ----------
+    path : Path
+        Recording file (``.fif.gz`` counts as one suffix).
+
+    Returns
+    -------
+    str
+        E.g. ``sub-01_task-rest`` for ``sub-01_task-rest_eeg.edf``.
+    """
     name = _without_suffix(path)
     return name.removesuffix("_eeg")
 
@@ -89,6 +100,18 @@ def _folder_recordings(folder: Path) -> list[Path]:
 
 def expand_inputs(inputs: Sequence[str | Path]) -> list[Path]:
     """Files, glob patterns and folders → sorted-as-given list of distinct recording files.
+
+    Parameters
+    ----------
+    inputs : str | Path | sequence of str | Path
+        Recording files, glob patterns (``**`` allowed) and folders (searched recursively,
+        skipping hidden folders, ``derivatives/`` and ``sourcedata/``; in a BIDS dataset only
+        ``*_eeg.<ext>`` files), in any mix.
+
+    Returns
+    -------
+    list of Path
+        Resolved paths in input order (folders and glob matches sorted), duplicates removed.
 
     Raises
     ------
@@ -150,7 +173,18 @@ def _match_participant(stem: str, bids_sub: str | None, ids: Sequence[str]) -> s
 
 
 def unique_names(stems: Sequence[str]) -> list[str]:
-    """Path-safe, case-insensitively unique names: repeats get ``-2``, ``-3`` ... in order."""
+    """Path-safe, case-insensitively unique names: repeats get ``-2``, ``-3`` ... in order.
+
+    Parameters
+    ----------
+    stems : sequence of str
+        Recording stems (see :func:`recording_stem`).
+
+    Returns
+    -------
+    list of str
+        One name per stem, same order; reserved names get ``-rec`` appended.
+    """
     used: set[str] = set()
     out = []
     for stem in stems:
@@ -213,7 +247,22 @@ def discover(inputs: Sequence[str | Path], *, participants: str | Path | None = 
 def read_participants(participants_tsv: str | Path):
     """Read a BIDS ``participants.tsv`` (participant_id, age, optional sex, condition).
 
-    Returns a DataFrame of strings; ``n/a`` and empty cells stay as text for per-row handling.
+    Parameters
+    ----------
+    participants_tsv : str | Path
+        Tab-separated UTF-8 file (a BOM is allowed) with columns ``participant_id`` and ``age``
+        (years).
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per non-blank line, all cells as strings (object dtype); ``n/a`` and empty cells
+        stay as text for per-row handling.
+
+    Raises
+    ------
+    InputError
+        File missing, not UTF-8, empty, lacking a required column, or an ID listed twice.
     """
     import pandas as pd
 

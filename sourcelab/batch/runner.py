@@ -108,8 +108,20 @@ def _peak_rss_mb() -> float:
 
 
 def input_sha256(path: str | Path) -> str:
-    """sha256 of a recording as :func:`sourcelab.intake.read_recording` records it (header and
-    data files combined for BrainVision/EEGLAB)."""
+    """sha256 of a recording as :func:`sourcelab.intake.read_recording` records it.
+
+    Header and data files are combined for BrainVision/EEGLAB.
+
+    Parameters
+    ----------
+    path : str | Path
+        Recording file, or a BIDS folder resolved to its one recording.
+
+    Returns
+    -------
+    str
+        Hexadecimal sha256 digest (64 characters).
+    """
     from ..intake import files
 
     p = Path(path)
@@ -145,8 +157,18 @@ def is_up_to_date(task: Task) -> bool:
     """True when ``task.out_dir`` holds this recording's outputs from the same pipeline.
 
     Compared: the recording's sha256, the pipeline fingerprint, the effective parameters, the
-    norms file's sha256, age and condition; and the presence of the tables (and of figures and
-    report when asked for).
+    norms file's sha256, age and condition; and the presence of the tables (and of figures,
+    report and maps when asked for).
+
+    Parameters
+    ----------
+    task : Task
+        One recording's batch task.
+
+    Returns
+    -------
+    bool
+        ``False`` also when the stored provenance cannot be read or parsed.
     """
     out = Path(task.out_dir)
     need = ["roi_table.tsv", "sensor_table.tsv", "provenance.json"]
@@ -181,6 +203,17 @@ def process_one(task: Task) -> Outcome:
 
     This is the function every engine runs per recording.  The head model, the inverse operator
     and the norms are cached in the worker process, so they are loaded once per worker.
+
+    Parameters
+    ----------
+    task : Task
+        One recording's batch task (input path, output folder, config, age, norms, options).
+
+    Returns
+    -------
+    Outcome
+        Status ``"done"``, ``"skipped"`` (outputs up to date) or ``"failed"`` (with a one-line
+        message), wall time in s and peak resident memory in MB.
     """
     from ..analysis import analyze
 
@@ -326,6 +359,18 @@ class BatchSummary:
     engine: str = ""
 
     def count(self, status: str) -> int:
+        """Number of recordings with this status.
+
+        Parameters
+        ----------
+        status : {"done", "skipped", "failed"}
+            Outcome status.
+
+        Returns
+        -------
+        int
+            How many outcomes have it.
+        """
         return sum(o.status == status for o in self.outcomes)
 
     @property
@@ -374,6 +419,8 @@ def run_batch(items: Sequence[BatchItem], out: str | Path, *,
         NIfTI); slower and larger, off by default.
     progress : bool | None
         tqdm progress bar on stderr; None shows it only on a terminal.
+    command : sequence of str, optional
+        Command line recorded in each recording's provenance; default ``sys.argv``.
 
     Returns
     -------

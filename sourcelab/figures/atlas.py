@@ -17,6 +17,17 @@ def atlas_label_map(atlas: Atlas) -> np.ndarray:
 
     Bilateral (``"both"``) ROIs are painted only when the atlas has no per-hemisphere ROI of the
     same name; where ROIs overlap, the later ROI in ``atlas.rois`` wins (e.g. networks).
+
+    Parameters
+    ----------
+    atlas : Atlas
+        ROIs whose ``vertices`` are source indices.
+
+    Returns
+    -------
+    ndarray of int32, shape (20484,)
+        1 + index of the ROI's name among the atlas's distinct ROI names (in first-seen order)
+        per vertex, left hemisphere first; 0 = none (medial wall, unlabelled cortex).
     """
     per_hemi = {r.name for r in atlas.rois if r.hemisphere != "both"}
     names = sorted({r.name for r in atlas.rois}, key=[r.name for r in atlas.rois].index)

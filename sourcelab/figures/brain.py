@@ -121,6 +121,10 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
         nilearn projection set; ``"lyrz"`` = left, coronal, right, axial.
     resolution : {2, 3}
         Voxel size of the projection, mm.
+    figsize : (float, float)
+        Figure width and height, inches.
+    dpi : int
+        Resolution of the figure and of ``output_file``, dots per inch.
     output_file : str | Path | None
         If given, the figure is also saved there (PNG at ``dpi``).
 
@@ -210,11 +214,16 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
     outline : Atlas | ndarray of int, shape (20484,) | None
         Optional parcellation: an :class:`~sourcelab.rois.atlas.Atlas` or a label per source
         (-1 = none); parcel borders are drawn as thin black lines.
+    figsize : (float, float)
+        Figure width and height, inches.
+    dpi : int
+        Resolution of the figure and of ``output_file``, dots per inch.
     raster : bool
         Paint the views from a cached face-index raster of the layout (default; the same
         pixels as matplotlib's 3-D drawing, several times faster for a set of maps); False
         draws the 3-D collections themselves.
     output_file : str | Path | None
+        If given, the figure is also saved there (format from the extension).
 
     Returns
     -------

@@ -67,6 +67,13 @@ class ColourScale:
         return mpl.colors.Normalize(vmin=self.vmin, vmax=self.vmax)
 
     def scalar_mappable(self) -> mpl.cm.ScalarMappable:
+        """A mappable with this scale's map and limits, for a colour bar.
+
+        Returns
+        -------
+        matplotlib.cm.ScalarMappable
+            Normalised to ``[vmin, vmax]`` with :attr:`cmap`.
+        """
         return mpl.cm.ScalarMappable(norm=self.norm, cmap=mpl.colormaps[self.cmap])
 
 
@@ -80,6 +87,13 @@ def z_scale(*, limit: float = Z_LIMIT, threshold: float | None = None,
         Colour limit; the scale spans ``[-limit, +limit]``.  Must be > 0.
     threshold : float | None
         Hide |z| below this (e.g. :data:`Z_THRESHOLD`); must be in ``[0, limit)``.
+    label : str
+        Colour-bar label (quantity and unit).
+
+    Returns
+    -------
+    ColourScale
+        Diverging :data:`Z_CMAP` scale from ``-limit`` to ``+limit`` (SD units).
     """
     limit = check_number("z limit", limit, low=0.0, low_open=True)
     threshold = check_number("z threshold", threshold, low=0.0, high=limit, high_open=True,
@@ -104,6 +118,17 @@ def power_scale(values: np.ndarray | None = None, *, measure: str = "absolute",
         Explicit limits.  Default: the ``100 - percentile``-th and ``percentile``-th
         percentiles of the data (a robust range: one outlier does not wash out the map, and
         maximum-intensity projections are not saturated by a floor at 0).
+    percentile : float
+        Upper percentile of the robust range (the lower one is ``100 - percentile``).
+    label : str | None
+        Colour-bar label; default from ``measure``.
+
+    Returns
+    -------
+    ColourScale
+        Sequential :data:`POWER_CMAP` scale in the measure's unit (standardised sLORETA power,
+        µV² at sensors, or a fraction); without data and limits it spans 0 to 1, and
+        ``vmax > vmin`` always.
     """
     if label is None:
         check_option("measure", measure, sorted(POWER_LABELS))
@@ -122,9 +147,22 @@ def power_scale(values: np.ndarray | None = None, *, measure: str = "absolute",
 
 
 def extend_for(data, scale: ColourScale) -> str:
-    """Colour-bar extension for ``data`` on ``scale``: ``"neither"``, ``"min"``, ``"max"`` or
-    ``"both"`` (arrows mark that some values lie beyond the colour limits and are drawn in the end
-    colours)."""
+    """Colour-bar extension for ``data`` on ``scale``.
+
+    Arrows mark that some values lie beyond the colour limits and are drawn in the end colours.
+
+    Parameters
+    ----------
+    data : array-like
+        The values drawn (NaNs ignored).
+    scale : ColourScale
+        The scale they are drawn on.
+
+    Returns
+    -------
+    {"neither", "min", "max", "both"}
+        Which ends the finite data pass; ``"neither"`` without finite values.
+    """
     v = np.asarray(data, dtype=float)
     v = v[np.isfinite(v)]
     if not v.size:
@@ -135,7 +173,18 @@ def extend_for(data, scale: ColourScale) -> str:
 
 
 def data_range_text(data) -> str:
-    """``"data -1.8 to 12.3"``: the true range of the finite values (empty without any)."""
+    """``"data -1.8 to 12.3"``: the true range of the finite values (empty without any).
+
+    Parameters
+    ----------
+    data : array-like
+        The values drawn.
+
+    Returns
+    -------
+    str
+        Minimum and maximum to 3 significant digits, or ``""``.
+    """
     v = np.asarray(data, dtype=float)
     v = v[np.isfinite(v)]
     if not v.size:
@@ -156,8 +205,15 @@ def add_colourbar(fig, scale: ColourScale, *, cax=None, ax=None, orientation: st
     data : array-like, optional
         The values drawn.  When given, the bar gets extension arrows at the ends the data pass
         (those values are drawn in the end colours) and its label states the true data range.
+    **kwargs
+        Passed to :meth:`matplotlib.figure.Figure.colorbar`.
 
     For z scales, dashed ticks mark ±threshold when one is set.
+
+    Returns
+    -------
+    matplotlib.colorbar.Colorbar
+        The colour bar; other keyword arguments go to :meth:`Figure.colorbar`.
     """
     label = scale.label
     if data is not None:
@@ -177,7 +233,20 @@ def add_colourbar(fig, scale: ColourScale, *, cax=None, ax=None, orientation: st
 
 
 def masked(values: np.ndarray, scale: ColourScale) -> np.ndarray:
-    """Copy of ``values`` (float) with |value| < threshold set to NaN (no-op without threshold)."""
+    """Copy of ``values`` (float) with |value| < threshold set to NaN (no-op without threshold).
+
+    Parameters
+    ----------
+    values : array-like
+        Values of any shape.
+    scale : ColourScale
+        Its ``threshold`` (if any) is applied.
+
+    Returns
+    -------
+    ndarray of float
+        Same shape as ``values``; a new array.
+    """
     out = np.array(values, dtype=float, copy=True)
     if scale.threshold:
         out[np.abs(out) < scale.threshold] = np.nan
@@ -189,6 +258,18 @@ def clipped(values: np.ndarray, scale: ColourScale) -> np.ndarray:
 
     Values beyond the limits are drawn in the end colours (the colour bar's arrows say so)
     instead of being dropped by plotting functions that hide out-of-range values.
+
+    Parameters
+    ----------
+    values : array-like
+        Values of any shape.
+    scale : ColourScale
+        Threshold and colour limits.
+
+    Returns
+    -------
+    ndarray of float
+        Same shape as ``values``; hidden values NaN, the rest in ``[vmin, vmax]``.
     """
     out = masked(values, scale)
     ok = np.isfinite(out)

@@ -293,6 +293,10 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
     scale : ColourScale, optional
         With z: a symmetric z scale (default :func:`~sourcelab.figures.colours.z_scale`).
         Without z: default a value scale over all bands (symmetric for signed measures).
+    dpi : int
+        Resolution of the figure and of ``output_file``, dots per inch.
+    output_file : str | Path | None
+        If given, the figure is also saved there (format from the extension).
 
     Returns
     -------

@@ -40,7 +40,22 @@ EDGE_FIGURE_MEASURES = ("lagcoh", "aec_orth")
 
 
 def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
-    """Render a figure to PNG bytes (and close it)."""
+    """Render a figure to PNG bytes (and close it).
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+        The figure.
+    dpi : int
+        Resolution, dots per inch.
+    close : bool
+        Close the figure afterwards (frees its memory in pyplot).
+
+    Returns
+    -------
+    bytes
+        The PNG file's content.
+    """
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi)
     if close:

@@ -39,7 +39,16 @@ def mesh(surface: str, hemi: str) -> tuple[np.ndarray, np.ndarray]:
     Parameters
     ----------
     surface : {"pial", "white_matter", "inflated"}
+        Which surface.
     hemi : {"left", "right"}
+        Which hemisphere.
+
+    Returns
+    -------
+    coords : ndarray of float, shape (10242, 3)
+        Vertex positions, mm (fsaverage surface RAS).
+    faces : ndarray of int64, shape (20480, 3)
+        Vertex indices (0-based, within the hemisphere) of each triangle.
     """
     check_option("surface", surface, _SURFACES)
     check_option("hemi", hemi, HEMIS)
@@ -49,13 +58,25 @@ def mesh(surface: str, hemi: str) -> tuple[np.ndarray, np.ndarray]:
 
 
 def sulcal_depth() -> tuple[np.ndarray, np.ndarray]:
-    """Sulcal depth per vertex (left, right), each shape (10242,), for surface shading."""
+    """Sulcal depth per vertex (left, right), each shape (10242,), for surface shading.
+
+    Returns
+    -------
+    left, right : ndarray of float, shape (10242,)
+        FreeSurfer ``sulc`` values of each hemisphere's vertices.
+    """
     surf = load_head_model().surface
     return tuple(np.asarray(surf.sulc[surf.hemi_slice(h)], float) for h in HEMIS)
 
 
 def source_positions_mni305() -> np.ndarray:
-    """Mid-thickness positions of the cortical sources, shape (n_src, 3), MNI305 mm."""
+    """Mid-thickness positions of the cortical sources, shape (n_src, 3), MNI305 mm.
+
+    Returns
+    -------
+    ndarray, shape (n_src, 3)
+        ``(white + pial) / 2`` at each source vertex, left hemisphere first, mm.
+    """
     model = load_head_model()
     return model.surface.mid[model.vertno]
 
@@ -64,6 +85,16 @@ def to_surface(values: np.ndarray) -> np.ndarray:
     """Per-source values (n_src,) on the 20,484 surface vertices; NaN on the medial wall.
 
     Values already given per surface vertex (20,484) are returned as float arrays.
+
+    Parameters
+    ----------
+    values : array-like, shape (n_src,) or (20484,)
+        Per-source (left hemisphere first) or per-surface-vertex values.
+
+    Returns
+    -------
+    ndarray of float, shape (20484,)
+        Values per fsaverage5 vertex (left then right hemisphere).
     """
     v = np.asarray(values, dtype=float)
     if v.shape == (N_SURFACE,):
@@ -145,10 +176,20 @@ def sources_to_volume(values: np.ndarray, *, resolution: int = 2, gm_threshold: 
 
 
 def atlas_labels(atlas) -> np.ndarray:
-    """ROI number per surface vertex from an :class:`~sourcelab.rois.atlas.Atlas`, shape (20484,),
-    -1 = none (the medial wall and unlabelled cortex).
+    """ROI number per surface vertex from an :class:`~sourcelab.rois.atlas.Atlas`.
 
     Used for parcel outlines; where ROIs overlap the later ROI wins.
+
+    Parameters
+    ----------
+    atlas : Atlas
+        ROIs whose ``vertices`` are source indices.
+
+    Returns
+    -------
+    ndarray of int64, shape (20484,)
+        Index into ``atlas.rois`` per surface vertex; -1 = none (the medial wall and unlabelled
+        cortex).
     """
     vertno = load_head_model().vertno
     lab = np.full(N_SURFACE, -1, dtype=np.int64)

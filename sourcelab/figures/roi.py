@@ -80,6 +80,10 @@ def roi_bars(roi_table: pd.DataFrame, *, band: str, measure: str = "absolute",
         (or further when a z exceeds them).
     guide : float
         Dashed guides at ±guide (default 1.96, the two-sided 5 % normal point: common practice).
+    dpi : int
+        Resolution of the figure and of ``output_file``, dots per inch.
+    output_file : str | Path | None
+        If given, the figure is also saved there (format from the extension).
 
     Returns
     -------
@@ -134,6 +138,12 @@ def roi_heatmap(roi_table: pd.DataFrame, *, measure: str = "absolute", atlas: st
         Row order; default: order of first appearance in the table.
     scale : ColourScale | None
         z scale (default :func:`z_scale`, symmetric ±3); NaN cells are grey.
+    max_columns : int
+        Most ROIs drawn as columns; more turn the map (see above).
+    dpi : int
+        Resolution of the figure and of ``output_file``, dots per inch.
+    output_file : str | Path | None
+        If given, the figure is also saved there (format from the extension).
 
     Returns
     -------
@@ -216,6 +226,10 @@ def network_chart(roi_table: pd.DataFrame, *, atlas: str, measure: str = "absolu
         z scale; marker colours follow it, the x axis spans its limits.
     guide : float
         Shaded region |z| < guide (default 1.96: common practice).
+    dpi : int
+        Resolution of the figure and of ``output_file``, dots per inch.
+    output_file : str | Path | None
+        If given, the figure is also saved there (format from the extension).
 
     Returns
     -------

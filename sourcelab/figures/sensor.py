@@ -19,6 +19,22 @@ def sensor_info(ch_names: tuple[str, ...] = SITES_1020):
 
     Positions come from MNE's packaged ``fsaverage_1020`` montage (electrodes fitted to the
     fsaverage scalp), so the maps sit on the same head as the source model.
+
+    Parameters
+    ----------
+    ch_names : tuple of str
+        10-20 sites (any subset of the 19 canonical sites); default all 19 in canonical order.
+
+    Returns
+    -------
+    mne.Info
+        EEG channels of these sites with positions (sampling rate 250 Hz, a placeholder);
+        cached, so callers must not modify it.
+
+    Raises
+    ------
+    InputError
+        A name that is not one of the 19 sites.
     """
     from ..headmodel import make_info
 
@@ -52,7 +68,10 @@ def sensor_topomaps(values: np.ndarray, *, band_names, scale,
         faster than "cubic" and invents no extrema between electrodes.
     names : bool
         Write the electrode names on the maps (default).
+    dpi : int
+        Resolution of the figure and of ``output_file``, dots per inch.
     output_file : str | Path | None
+        If given, the figure is also saved there (format from the extension).
 
     Returns
     -------

@@ -164,10 +164,17 @@ def _to_mask(spans, n: int, sf: float) -> np.ndarray:
 def procedure_mask(raw) -> tuple[np.ndarray, list]:
     """Samples inside hyperventilation, post-HV, photic stimulation and seizure spans.
 
+    Parameters
+    ----------
+    raw : mne.io.BaseRaw
+        The recording, with its annotations (onsets taken from the first sample).
+
     Returns
     -------
     mask : ndarray of bool, shape (n_times,)
+        True inside a procedure span.
     spans : list of :class:`sourcelab.intake.states.Span`
+        The spans, start/stop in s from the first sample.
     """
     from .states import procedure_spans
 
@@ -188,10 +195,18 @@ def selection_mask(raw, select, *, where=None) -> np.ndarray:
         next state-changing marker (:func:`sourcelab.intake.states.state_spans`).  Ranges are
         [t0, t1) seconds from the first sample.  The union is taken.  None selects everything.
         Procedure spans are removed afterwards, by :func:`clean_recording`.
+    where : str | Path, optional
+        File named in error messages.
 
     Returns
     -------
     ndarray of bool, shape (n_times,)
+        True for selected samples.
+
+    Raises
+    ------
+    InputError
+        An unknown description, a malformed or empty range, or a selection with no data.
     """
     from .states import Span, canonical_state, state_spans
 
@@ -229,7 +244,23 @@ def selection_mask(raw, select, *, where=None) -> np.ndarray:
 
 
 def excluded_procedures(chosen: np.ndarray, spans, sf: float) -> list[dict]:
-    """Procedure spans overlapping the chosen samples, with the seconds they removed."""
+    """Procedure spans overlapping the chosen samples, with the seconds they removed.
+
+    Parameters
+    ----------
+    chosen : ndarray of bool, shape (n_times,)
+        Samples selected before procedure spans are removed.
+    spans : sequence of :class:`sourcelab.intake.states.Span`
+        Procedure spans (see :func:`procedure_mask`), s from the first sample.
+    sf : float
+        Sampling rate, Hz.
+
+    Returns
+    -------
+    list of dict
+        Per overlapping span: ``kind``, ``label``, ``start_s``, ``stop_s`` and ``overlap_s``
+        (chosen seconds inside the span), rounded to ms.
+    """
     out = []
     t = np.arange(len(chosen)) / sf
     for s in spans:
@@ -241,7 +272,18 @@ def excluded_procedures(chosen: np.ndarray, spans, sf: float) -> list[dict]:
 
 
 def bad_mask(raw) -> np.ndarray:
-    """Samples inside annotations whose description starts with "bad" (any case)."""
+    """Samples inside annotations whose description starts with "bad" (any case).
+
+    Parameters
+    ----------
+    raw : mne.io.BaseRaw
+        The recording with its annotations.
+
+    Returns
+    -------
+    ndarray of bool, shape (n_times,)
+        True inside a ``bad`` annotation.
+    """
     n, sf = raw.n_times, raw.info["sfreq"]
     t = np.arange(n) / sf
     mask = np.zeros(n, bool)
@@ -253,9 +295,17 @@ def bad_mask(raw) -> np.ndarray:
 def epoch_starts(allowed: np.ndarray, n_per: int) -> tuple[np.ndarray, int]:
     """Non-overlapping epoch start samples inside each run of allowed samples.
 
+    Parameters
+    ----------
+    allowed : ndarray of bool, shape (n_times,)
+        Samples an epoch may cover.
+    n_per : int
+        Epoch length, samples.
+
     Returns
     -------
-    starts : ndarray of int
+    starts : ndarray of int, shape (n_epochs,)
+        First sample of each epoch, increasing; each run starts an epoch at its first sample.
     leftover : int
         Allowed samples not covered by an epoch.
     """
@@ -300,7 +350,23 @@ def _delta_edges(config: AnalysisConfig) -> tuple[float, float]:
 
 
 def band_csd(epochs: np.ndarray, sfreq: float, band: tuple[float, float]) -> np.ndarray:
-    """Mean real cross-spectrum of epochs summed over ``band`` (Hann window), µV²."""
+    """Mean real cross-spectrum of epochs summed over ``band`` (Hann window), µV².
+
+    Parameters
+    ----------
+    epochs : ndarray, shape (n_epochs, n_channels, n_times)
+        Epochs, µV.
+    sfreq : float
+        Sampling rate, Hz.
+    band : (float, float)
+        Band edges, Hz; frequency bins with ``lo <= f < hi`` are summed.
+
+    Returns
+    -------
+    ndarray, shape (n_channels, n_channels)
+        Real part of the Hann-windowed, unnormalised ``rfft`` cross-products summed over the band
+        and averaged over epochs (zeros when there are no epochs).
+    """
     n = epochs.shape[-1]
     f = np.fft.rfftfreq(n, 1 / sfreq)
     sel = (f >= band[0]) & (f < band[1])
@@ -344,6 +410,9 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
         (:func:`sourcelab.intake.artefacts.plausibility_bounds`).
     muscle_uv : float, optional
         Overrides ``config.muscle_uv`` (``rejection = "fixed"``); ``inf`` disables muscle checks.
+    muscle_band : (float, float)
+        Band-pass of the muscle check, Hz (default 25-45 Hz); the upper edge is lowered to the
+        low-pass edge (or 0.9 × Nyquist) when that is lower.
     blink_uv : float, optional
         Overrides ``config.blink_uv``: Fp1/Fp2 low-frequency (< 3 Hz) deflection threshold, µV;
         the deflection must also be at least twice the O1/O2 one.  Applied only when ocular

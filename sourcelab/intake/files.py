@@ -183,8 +183,20 @@ def check_edf_header(path: Path) -> dict:
 def bids_resolve(path: Path) -> Path:
     """Find the EEG recording in a BIDS folder (subject, session or ``eeg`` folder).
 
-    Returns the single ``*_eeg.<ext>`` file found; raises InputError when there is none or more
-    than one (the message lists them so the user can pass one).
+    Parameters
+    ----------
+    path : Path
+        A BIDS subject, session or ``eeg`` folder (searched recursively).
+
+    Returns
+    -------
+    Path
+        The single ``*_eeg.<ext>`` file with a readable suffix.
+
+    Raises
+    ------
+    InputError
+        When there is none or more than one (the message lists them so the user can pass one).
     """
     found = sorted(p for p in path.rglob("*_eeg.*") if _suffix(p) in READERS)
     if not found:
@@ -198,7 +210,25 @@ def bids_resolve(path: Path) -> Path:
 def bids_bad_channels(path: Path) -> tuple[str, ...]:
     """Channel names marked ``status=bad`` in the BIDS ``*_channels.tsv`` beside a recording.
 
-    Reference: BIDS EEG extension (Pernet et al. 2019, Sci Data 6:103).
+    Parameters
+    ----------
+    path : Path
+        A BIDS recording ``<stem>_eeg.<ext>``; other names have no channels file.
+
+    Returns
+    -------
+    tuple of str
+        Names from the ``name`` column whose ``status`` is ``bad`` (any case), in file order;
+        empty when there is no ``<stem>_channels.tsv``.
+
+    Raises
+    ------
+    InputError
+        The channels file is unreadable or has no ``name`` column.
+
+    References
+    ----------
+    BIDS EEG extension (Pernet et al. 2019, Sci Data 6:103).
     """
     stem = path.name
     for ext in (".fif.gz",) + tuple(READERS):
@@ -221,7 +251,19 @@ def bids_bad_channels(path: Path) -> tuple[str, ...]:
 
 
 def hash_files(paths) -> str:
-    """sha256 of one file, or of the concatenated per-file hashes of several (header + data)."""
+    """sha256 of one file, or of the concatenated per-file hashes of several (header + data).
+
+    Parameters
+    ----------
+    paths : sequence of str | Path
+        The files, in order (order matters for several files).
+
+    Returns
+    -------
+    str
+        Hexadecimal sha256 digest: of the file itself for one file, else of the concatenated
+        hexadecimal digests of each file.
+    """
     from ..provenance import sha256_file
 
     paths = [Path(p) for p in paths]
@@ -243,10 +285,17 @@ def brainvision_files(vhdr: Path) -> tuple[Path, Path | None]:
     elsewhere that a header points to.  A missing marker file falls back to ``<stem>.vmrk``
     as MNE-Python does (or none).
 
+    Parameters
+    ----------
+    vhdr : Path
+        The BrainVision header (``.vhdr``); its first MiB is read as Latin-1 text.
+
     Returns
     -------
     data : Path
+        The data file (exists).
     marker : Path | None
+        The marker file, or None when neither the named one nor ``<stem>.vmrk`` exists.
 
     Raises
     ------
@@ -304,8 +353,24 @@ def _companions(path: Path, fmt: str) -> list[Path]:
 
 
 def eeglab_data_file(set_path: Path) -> Path | None:
-    """The separate data file (``.fdt``) an EEGLAB set names, resolved as MNE-Python does
-    (the named file beside the set, else ``<stem>.fdt``); None when the data are embedded."""
+    """The separate data file (``.fdt``) an EEGLAB set names, resolved as MNE-Python does.
+
+    Parameters
+    ----------
+    set_path : Path
+        The EEGLAB ``.set`` file.
+
+    Returns
+    -------
+    Path | None
+        The named file beside the set, else ``<stem>.fdt``; None when the data are embedded in
+        the set or neither file exists.
+
+    Raises
+    ------
+    InputError
+        The set cannot be read, or names a data file that is not a plain name beside it.
+    """
     try:
         from mne.io.eeglab.eeglab import _check_load_mat  # MNE's own reader of the header
 

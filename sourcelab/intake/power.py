@@ -155,10 +155,22 @@ def peak_frequency(epochs: np.ndarray, sfreq: float, *, fmin: float = 7.0,
     Parameters
     ----------
     epochs : ndarray, shape (n_epochs, n_channels, n_times)
+        µV.
+    sfreq : float
+        Sampling rate, Hz.
+    fmin, fmax : float
+        Search range, Hz (``fmin`` included, ``fmax`` excluded); default 7-14 Hz.
 
     Returns
     -------
     ndarray, shape (n_channels,)
+        Peak frequency per channel, Hz, on the epoch's frequency grid (resolution 1/epoch s),
+        from the Hann-window PSD of :func:`epoch_spectra` averaged over epochs.
+
+    Raises
+    ------
+    InputError
+        No frequency bin in the range.
     """
     freqs, psd = epoch_spectra(epochs, sfreq)
     sel = (freqs >= fmin) & (freqs < fmax)

@@ -86,7 +86,19 @@ EOG_LABEL = re.compile(r"^(eog.*|.*[^a-z]eog.*|[vh]eog.*|[lr]oc|eog[lrvh]?)$", r
 
 
 def eog_channels(raw) -> list[str]:
-    """Channels of ``raw`` that are real EOG recordings (by type or by label)."""
+    """Channels of ``raw`` that are real EOG recordings (by type or by label).
+
+    Parameters
+    ----------
+    raw : mne.io.BaseRaw
+        The recording as read (all its channels).
+
+    Returns
+    -------
+    list of str
+        Channel names of type ``eog`` or whose label (without an ``EEG``/``POL`` prefix and a
+        reference suffix) matches :data:`EOG_LABEL`, in channel order.
+    """
     out = []
     for name, kind in zip(raw.ch_names, raw.get_channel_types()):
         label = re.sub(r"^(eeg|pol)\s+", "", name.strip(), flags=re.IGNORECASE)
@@ -185,7 +197,21 @@ def detect_bad_sites(data_uv: np.ndarray, sfreq: float, names, *,
 
 
 def guess_reference(hint: str, data_uv: np.ndarray) -> str:
-    """Original reference: an average reference makes the across-site sum vanish."""
+    """Original reference: an average reference makes the across-site sum vanish.
+
+    Parameters
+    ----------
+    hint : str
+        Reference read from the file; anything but ``"unknown"`` is returned as it is.
+    data_uv : ndarray, shape (n_channels, n_times)
+        Signals in µV.
+
+    Returns
+    -------
+    str
+        ``hint``; else ``"average"`` when the standard deviation of the across-channel sum is
+        below 1e-3 of the median per-channel standard deviation, else ``"unknown"``.
+    """
     if hint != "unknown":
         return hint
     total = np.std(data_uv.sum(axis=0))

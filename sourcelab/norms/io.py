@@ -349,7 +349,18 @@ COLUMN_NOTES = {
 
 
 def sidecar_path(path: str | Path) -> Path:
-    """The JSON sidecar of a norms table (``norms.tsv`` -> ``norms.json``)."""
+    """The JSON sidecar of a norms table (``norms.tsv`` -> ``norms.json``).
+
+    Parameters
+    ----------
+    path : str | Path
+        The norms table.
+
+    Returns
+    -------
+    Path
+        The same path with its last suffix replaced by ``.json``.
+    """
     return Path(path).with_suffix(".json")
 
 
@@ -375,8 +386,21 @@ def format_norms(norms: Norms) -> str:
 
 
 def format_norms_sidecar(norms: Norms) -> str:
-    """The JSON sidecar of a norms table: column descriptions and the ``"sourcelab-norms"``
-    metadata (format version, fingerprint, condition, cohort, notes)."""
+    """The JSON sidecar of a norms table.
+
+    Column descriptions and the ``"sourcelab-norms"`` metadata (format version, fingerprint,
+    condition, cohort, notes).
+
+    Parameters
+    ----------
+    norms : Norms
+        The norms whose metadata is written.
+
+    Returns
+    -------
+    str
+        Indented UTF-8 JSON text ending in a newline.
+    """
     from .. import __version__
 
     meta = {"FormatVersion": FORMAT_VERSION,

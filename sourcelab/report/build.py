@@ -426,7 +426,26 @@ def _ocular_figures(figs: dict) -> str:
 
 
 def build_html(result, figures: dict, *, extra_sections=None, title: str | None = None) -> str:
-    """The report as one HTML string (see :func:`write_report`)."""
+    """The report as one HTML string (see :func:`write_report`).
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        The analysed recording.
+    figures : dict
+        Name -> PNG bytes, PNG path or matplotlib Figure; names no section claims go to
+        "Additional figures".
+    extra_sections : list of (title, content[, note]), optional
+        Sections added after the deviations (content: text, a DataFrame or an image).
+    title : str, optional
+        Page title and heading; default "sourcelab source-level EEG report".
+
+    Returns
+    -------
+    str
+        A self-contained HTML document (styles, script and images inline), stamped with the
+        current UTC time.
+    """
     figs = dict(figures)
     when = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
     answers = [_extra_section(i, it) for i, it in enumerate(_answer_sections(result, figs))]

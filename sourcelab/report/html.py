@@ -157,6 +157,27 @@ def table_html(df: pd.DataFrame, *, sortable: bool = True, max_rows: int = 5000,
     Headers are put in words and Brodmann areas get their names (``human``); tables longer than
     ``page_rows`` are shown a page at a time (the report's script adds the page buttons; every
     row is in the file and prints).  The table scrolls sideways inside its card when wider.
+
+    Parameters
+    ----------
+    df : DataFrame
+        The table; a ``unit`` column with one value for every row is said once, under the table.
+    sortable : bool
+        Add the ``sortable`` class (the report's script sorts by a header click).
+    max_rows : int
+        Rows beyond this are left out (logged).
+    z_column : str | None
+        Column whose |z| > 1.96 shades the row (``hi`` above 0, ``lo`` below); None for none.
+    page_rows : int
+        Rows per page for longer tables.
+    human : bool
+        Headers in words and area names (see :func:`human_table`).
+
+    Returns
+    -------
+    str
+        HTML: the table inside a ``tablewrap`` div, and the unit note when there is one; every
+        cell escaped.
     """
     if len(df) > max_rows:
         logger.info("table truncated to %d of %d rows in the report", max_rows, len(df))
@@ -194,7 +215,18 @@ def table_html(df: pd.DataFrame, *, sortable: bool = True, max_rows: int = 5000,
 
 
 def kv_table(d: dict) -> str:
-    """Two-column table of labelled fields; values in words (never a Python repr)."""
+    """Two-column table of labelled fields; values in words (never a Python repr).
+
+    Parameters
+    ----------
+    d : dict
+        Field name -> value (labels from :func:`field_label`, values from :func:`value_text`).
+
+    Returns
+    -------
+    str
+        HTML ``<table class="kv">``, escaped.
+    """
     rows = [f"<tr><th>{_esc(field_label(k))}</th><td>{_esc(value_text(v))}</td></tr>"
             for k, v in d.items()]
     return f'<table class="kv"><tbody>{"".join(rows)}</tbody></table>'
@@ -219,6 +251,27 @@ def _png_bytes(fig) -> bytes:
 
 
 def img_html(fig, *, caption: str = "", alt: str = "") -> str:
+    """A figure embedded as a base64 PNG ``<figure>`` with an optional caption.
+
+    Parameters
+    ----------
+    fig : bytes | str | Path | matplotlib.figure.Figure
+        PNG bytes, a PNG file, or a Figure (rendered at 90 dpi and closed).
+    caption : str
+        Caption text (escaped); none when empty.
+    alt : str
+        Alternative text; default the caption.
+
+    Returns
+    -------
+    str
+        HTML ``<figure>`` element.
+
+    Raises
+    ------
+    InputError
+        The image is not a PNG.
+    """
     b64 = base64.b64encode(_png_bytes(fig)).decode("ascii")
     cap = f"<figcaption>{_esc(caption)}</figcaption>" if caption else ""
     return (f'<figure><img alt="{_esc(alt or caption)}" src="data:image/png;base64,{b64}">'
@@ -243,6 +296,22 @@ def deviations(roi_table: pd.DataFrame, sensor_table: pd.DataFrame | None = None
     """Rows with |z| > z_limit from the ROI (and sensor) tables, sorted by |z| descending.
 
     FDR columns (any column whose name contains ``fdr``) are kept when present.
+
+    Parameters
+    ----------
+    roi_table : DataFrame
+        Tidy ROI table with a ``z`` column (tables without one contribute nothing).
+    sensor_table : DataFrame, optional
+        Tidy sensor table; its ``channel`` becomes ``roi`` with atlas "10-20 sites".
+    z_limit : float
+        Rows with |z| strictly above it are kept (SD units; default 1.96).
+
+    Returns
+    -------
+    DataFrame
+        Columns ``level`` ("ROI"/"sensor"), ``atlas``, ``roi``, ``hemisphere``, ``band``,
+        ``measure``, ``value``, ``unit``, ``z``, FDR columns, ``z_lo``, ``z_hi``, ``robust``
+        (those present); empty with the core columns when nothing deviates.
     """
     parts = []
     for kind, t in (("ROI", roi_table), ("sensor", sensor_table)):

@@ -81,13 +81,34 @@ FIELD_LABELS = {
 
 
 def column_label(col) -> str:
-    """Header of a table column (``"peak_z"`` -> ``"peak z"``; unknown names: underscores to
-    spaces)."""
+    """Header of a table column (``"peak_z"`` -> ``"peak z"``).
+
+    Parameters
+    ----------
+    col : object
+        Column name (converted to ``str``).
+
+    Returns
+    -------
+    str
+        Its entry in :data:`COLUMN_LABELS`; unknown names with underscores turned into spaces.
+    """
     return COLUMN_LABELS.get(str(col), str(col).replace("_", " "))
 
 
 def field_label(key) -> str:
-    """Label of a record field (``"sfreq"`` -> ``"sampling rate (Hz)"``)."""
+    """Label of a record field (``"sfreq"`` -> ``"sampling rate (Hz)"``).
+
+    Parameters
+    ----------
+    key : object
+        Field name (converted to ``str``).
+
+    Returns
+    -------
+    str
+        Its entry in :data:`FIELD_LABELS`; unknown names with underscores turned into spaces.
+    """
     return FIELD_LABELS.get(str(key), str(key).replace("_", " "))
 
 
@@ -101,7 +122,19 @@ def _is_missing(v) -> bool:
 
 
 def number_text(v: float) -> str:
-    """A number in at most about four significant figures, without a trailing ``.0``."""
+    """A number in at most about four significant figures, without a trailing ``.0``.
+
+    Parameters
+    ----------
+    v : float
+        Any real number.
+
+    Returns
+    -------
+    str
+        Whole numbers below 1e6 as integers; below 0.01 or from 1e4 in magnitude 3 significant
+        figures; else 3, 2 or 1 decimals (below 10, 100, else); NaN/inf as a dash.
+    """
     v = float(v)
     if not np.isfinite(v):
         return MISSING_NUMBER
@@ -117,6 +150,19 @@ def value_text(v, *, missing: str = NOT_GIVEN) -> str:
 
     ``None``/NaN/``<NA>`` -> ``missing`` ("not given"); booleans -> yes/no; empty lists ->
     "none"; lists -> comma-separated; dicts -> ``key: value; ...``; paths -> the file name.
+
+    Parameters
+    ----------
+    v : object
+        The value; numbers go through :func:`number_text`, dict keys through
+        :func:`field_label`, containers element by element.
+    missing : str
+        Text for a missing value.
+
+    Returns
+    -------
+    str
+        The text.
     """
     if isinstance(v, (bool, np.bool_)):
         return "yes" if v else "no"
@@ -142,7 +188,18 @@ def value_text(v, *, missing: str = NOT_GIVEN) -> str:
 
 
 def file_name(path) -> str:
-    """The file name of a path (no folders: a site-packages path is not for readers)."""
+    """The file name of a path (no folders: a site-packages path is not for readers).
+
+    Parameters
+    ----------
+    path : str | Path | None
+        A path.
+
+    Returns
+    -------
+    str
+        Its last component; "not given" for None or an empty string.
+    """
     if path is None or path == "":
         return NOT_GIVEN
     return Path(str(path)).name
@@ -153,6 +210,19 @@ def human_table(df: pd.DataFrame, *, area_names: bool = True) -> pd.DataFrame:
 
     Values stay typed (numbers keep their type so cells align); missing values are left for the
     cell formatter.
+
+    Parameters
+    ----------
+    df : DataFrame
+        A tidy table (ROI, sensor, deviation ... table).
+    area_names : bool
+        Insert a ``name`` column after the first of ``roi``/``area`` when any of its values is
+        a Brodmann area.
+
+    Returns
+    -------
+    DataFrame
+        The copy, with headers from :func:`column_label`.
     """
     out = df.copy()
     if area_names:
@@ -218,10 +288,18 @@ def reliability_table(rel: dict) -> pd.DataFrame:
 def lowest_agreement(rel: dict, level: str = "sensors") -> tuple[str, dict] | None:
     """The band with the lowest split-half ICC at one level: (band, {"icc", "low", "high"}).
 
+    Parameters
+    ----------
+    rel : dict
+        ``result.quality.reliability``: level -> ReliabilitySummary or its ``to_dict()``.
+    level : str
+        ``"sensors"`` or an atlas name.
+
     Returns
     -------
     tuple or None
-        None when no intraclass correlation was stored for the level.
+        ``(band, {"icc", "low", "high"})``, ICC(2,1) with its 95 % interval; None when no
+        intraclass correlation was stored for the level.
     """
     r = (rel or {}).get(level)
     if r is None:

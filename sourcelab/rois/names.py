@@ -66,7 +66,18 @@ _PARTS = re.compile(r"(\d+)")
 
 
 def brodmann_number(name: str) -> int | None:
-    """The area number of ``"BA17"`` (or ``"Brodmann area 17"``), else None."""
+    """The area number of ``"BA17"`` (or ``"Brodmann area 17"``), else None.
+
+    Parameters
+    ----------
+    name : str
+        An ROI name (case-insensitive; surrounding spaces allowed).
+
+    Returns
+    -------
+    int or None
+        The number, or None for names that are not Brodmann areas.
+    """
     m = _BA.match(str(name))
     return int(m.group(1)) if m else None
 
@@ -78,13 +89,29 @@ def area_name(roi: str) -> str:
     ----------
     roi : str
         An ROI name; names that are not Brodmann areas give the empty string.
+
+    Returns
+    -------
+    str
+        Entry of :data:`BRODMANN_NAMES`, or ``""`` (also for numbers it lacks).
     """
     n = brodmann_number(roi)
     return BRODMANN_NAMES.get(n, "") if n is not None else ""
 
 
 def area_label(roi: str) -> str:
-    """``"BA17 primary visual"`` for a Brodmann area; other names unchanged."""
+    """``"BA17 primary visual"`` for a Brodmann area; other names unchanged.
+
+    Parameters
+    ----------
+    roi : str
+        An ROI name.
+
+    Returns
+    -------
+    str
+        ``roi`` followed by its :func:`area_name`, or ``str(roi)`` when it has none.
+    """
     name = area_name(roi)
     return f"{roi} {name}" if name else str(roi)
 
@@ -94,18 +121,51 @@ def natural_key(name) -> tuple:
 
     Use as ``sorted(names, key=natural_key)`` or ``df.sort_values("roi", key=...)`` through
     :func:`natural_sort_series`.
+
+    Parameters
+    ----------
+    name : object
+        A name (converted to ``str``).
+
+    Returns
+    -------
+    tuple of (int, int, str)
+        One element per run of digits ``(0, value, "")`` or of other text
+        ``(1, 0, lowercased)``; numbers sort before text at the same position.
     """
     parts = _PARTS.split(str(name))
     return tuple((0, int(p), "") if p.isdigit() else (1, 0, p.lower()) for p in parts if p != "")
 
 
 def natural_sorted(names) -> list:
-    """``names`` sorted with :func:`natural_key`."""
+    """``names`` sorted with :func:`natural_key`.
+
+    Parameters
+    ----------
+    names : iterable
+        Names (any values; compared as strings).
+
+    Returns
+    -------
+    list
+        A new sorted list of the same values.
+    """
     return sorted(names, key=natural_key)
 
 
 def natural_sort_series(series):
-    """Key function for :meth:`pandas.DataFrame.sort_values` (``key=natural_sort_series``)."""
+    """Key function for :meth:`pandas.DataFrame.sort_values` (``key=natural_sort_series``).
+
+    Parameters
+    ----------
+    series : pandas.Series
+        The column being sorted.
+
+    Returns
+    -------
+    pandas.Series of int
+        Rank of each value in the natural order of the distinct values, same index.
+    """
     import pandas as pd
 
     order = {v: i for i, v in enumerate(natural_sorted(dict.fromkeys(series)))}

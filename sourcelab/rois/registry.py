@@ -218,8 +218,18 @@ DEFAULT_NETWORK_ATLAS = "yeo7"
 
 
 def atlas_title(name: str) -> str:
-    """Title of an atlas for people (``"yeo7"`` -> ``"Yeo 2011 7 networks"``); other names as
-    given (user ROI sets)."""
+    """Title of an atlas for people (``"yeo7"`` -> ``"Yeo 2011 7 networks"``).
+
+    Parameters
+    ----------
+    name : str
+        Atlas name.
+
+    Returns
+    -------
+    str
+        Entry of :data:`ATLAS_TITLES`; other names as given (user ROI sets).
+    """
     return ATLAS_TITLES.get(str(name), str(name))
 
 

@@ -176,6 +176,13 @@ _Q_CACHE: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 def roi_average_matrix(roi_vertices: Sequence[np.ndarray], n_src: int):
     """Sparse matrix averaging source values over ROIs.
 
+    Parameters
+    ----------
+    roi_vertices : sequence of array-like of int
+        Source indices of each ROI (ROIs may overlap; none may be empty).
+    n_src : int
+        Number of sources; indices must lie in ``0 .. n_src - 1``.
+
     Returns
     -------
     used : ndarray of int, shape (n_used,)
@@ -548,7 +555,7 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch)
     ch_names : sequence of str, optional
         Channel order of ``epoch_csd`` (default :data:`sourcelab.config.SITES_1020`).
-    n_boot, seed, ci, norms_fn, band_names, z_threshold, epoch_total
+    n_boot, seed, ci, norm_rows, band_names, z_threshold, epoch_total
         As in :func:`add_intervals`; use the same seed to resample the same epochs.
 
     Returns
