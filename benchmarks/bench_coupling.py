@@ -51,10 +51,12 @@ def _coupling(clean, model, op, atlases, bands, c0, *, n_boot=0):
 
     spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, bands, dtype=np.complex64)
     plain, _ = epoch_fourier(clean.epochs, clean.sfreq, bands, taper=False, dtype=np.complex64)
-    sc = sensor_coupling(spec, freqs, bands, model.ch_names, model.ch_pos, null_cov=c0,
-                         n_boot=n_boot)
-    ec = network_coupling(spec, plain, freqs, bands, op, atlases, null_cov=c0,
-                          normals=model.src_nn, n_boot=n_boot)
+    sc = sensor_coupling(
+        spec, freqs, bands, model.ch_names, model.ch_pos, null_cov=c0, n_boot=n_boot
+    )
+    ec = network_coupling(
+        spec, plain, freqs, bands, op, atlases, null_cov=c0, normals=model.src_nn, n_boot=n_boot
+    )
     return pair_table(sc), coupling_table(ec)
 
 
@@ -68,16 +70,32 @@ def _mne_route(clean, filters, bands):
     out = []
     info = mne.create_info(x.shape[1], clean.sfreq, "eeg")
     ep = mne.EpochsArray(x, info, verbose="error")
-    out.append(spectral_connectivity_epochs(
-        ep, method=["coh", "imcoh", "wpli", "wpli2_debiased", "ciplv"], mode="fourier",
-        fmin=fmin, fmax=fmax, faverage=True, verbose="error"))
+    out.append(
+        spectral_connectivity_epochs(
+            ep,
+            method=["coh", "imcoh", "wpli", "wpli2_debiased", "ciplv"],
+            mode="fourier",
+            fmin=fmin,
+            fmax=fmax,
+            faverage=True,
+            verbose="error",
+        )
+    )
     for f in filters:
         roi = np.einsum("rc,ect->ert", f.weights, clean.epochs)
         rinfo = mne.create_info(roi.shape[1], clean.sfreq, "eeg")
         rep = mne.EpochsArray(roi, rinfo, verbose="error")
-        out.append(spectral_connectivity_epochs(rep, method=["coh", "imcoh", "ciplv"],
-                                                mode="fourier", fmin=fmin, fmax=fmax,
-                                                faverage=True, verbose="error"))
+        out.append(
+            spectral_connectivity_epochs(
+                rep,
+                method=["coh", "imcoh", "ciplv"],
+                mode="fourier",
+                fmin=fmin,
+                fmax=fmax,
+                faverage=True,
+                verbose="error",
+            )
+        )
         for lo, hi in bands.edges:
             bp = mne.filter.filter_data(roi, clean.sfreq, lo, hi, verbose="error")
             out.append(envelope_correlation(bp, orthogonalize="pairwise").combine())
@@ -92,8 +110,11 @@ def main(argv=None) -> int:
 
     from benchmarks.run_all import invented_raw
     from sourcelab.config import AnalysisConfig
-    from sourcelab.coupling.source import (COUPLING_ATLASES, independent_source_covariance,
-                                           roi_filters)
+    from sourcelab.coupling.source import (
+        COUPLING_ATLASES,
+        independent_source_covariance,
+        roi_filters,
+    )
     from sourcelab.headmodel import load_head_model
     from sourcelab.intake import clean_recording, read_recording
     from sourcelab.analysis import analyze
@@ -111,11 +132,14 @@ def main(argv=None) -> int:
     atlases = [load_atlas(a) for a in COUPLING_ATLASES]
     # fixed per head model, cached like the inverse operator: the volume-conduction covariance
     c0 = independent_source_covariance(model.gain_fixed)
-    analyze(rec, config=cfg)                                   # warm every cache
+    analyze(rec, config=cfg)  # warm every cache
     _coupling(clean, model, op, atlases, cfg.bands, c0)
 
-    runs = {"off": cfg.replace(coupling=False), "on": cfg,
-            "on, no coupling intervals": cfg.replace(coupling_n_boot=0)}
+    runs = {
+        "off": cfg.replace(coupling=False),
+        "on": cfg,
+        "on, no coupling intervals": cfg.replace(coupling_n_boot=0),
+    }
     wall = {k: [] for k in runs}
     cpu = {k: [] for k in runs}
     for _ in range(3):
@@ -127,9 +151,11 @@ def main(argv=None) -> int:
     for k in runs:
         print(f"analyze, coupling {k:26s} wall {min(wall[k]):5.2f} s, cpu {min(cpu[k]):5.2f} s")
     added = min(wall["on"]) - min(wall["off"])
-    print(f"added by coupling (default, 199 replicates): wall {added:.2f} s, cpu "
-          f"{min(cpu['on']) - min(cpu['off']):.2f} s (goal <= 2 s); without intervals: "
-          f"wall {min(wall['on, no coupling intervals']) - min(wall['off']):.2f} s")
+    print(
+        f"added by coupling (default, 199 replicates): wall {added:.2f} s, cpu "
+        f"{min(cpu['on']) - min(cpu['off']):.2f} s (goal <= 2 s); without intervals: "
+        f"wall {min(wall['on, no coupling intervals']) - min(wall['off']):.2f} s"
+    )
     t_an = min(wall["off"])
     t = time.perf_counter()
     pt, ct = _coupling(clean, model, op, atlases, cfg.bands, c0)
@@ -141,8 +167,10 @@ def main(argv=None) -> int:
     _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=1000)
     t_cb = time.perf_counter() - t
     print(f"analysis without coupling (default config):      {t_an:6.2f} s")
-    print(f"coupling, all measures ({len(pt)} pair rows, {len(ct)} edge rows): {t_c:6.2f} s "
-          f"(goal <= 2 s)")
+    print(
+        f"coupling, all measures ({len(pt)} pair rows, {len(ct)} edge rows): {t_c:6.2f} s "
+        f"(goal <= 2 s)"
+    )
     print(f"coupling with {cfg.coupling_n_boot} bootstrap replicates (default):  {t_cd:6.2f} s")
     print(f"coupling with 1000 bootstrap replicates:          {t_cb:6.2f} s")
 
@@ -156,9 +184,11 @@ def main(argv=None) -> int:
     _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=1000)
     _, peak_boot = tracemalloc.get_traced_memory()
     tracemalloc.stop()
-    print(f"peak memory, coupling step: {peak / 1e6:.0f} MB; full per-bin cross-spectra "
-          f"(complex64, {csd.nbytes / 1e6:.0f} MB): {peak_csd / 1e6:.0f} MB; coupling with "
-          f"1000 bootstrap replicates: {peak_boot / 1e6:.0f} MB (goal <= 1000 MB)")
+    print(
+        f"peak memory, coupling step: {peak / 1e6:.0f} MB; full per-bin cross-spectra "
+        f"(complex64, {csd.nbytes / 1e6:.0f} MB): {peak_csd / 1e6:.0f} MB; coupling with "
+        f"1000 bootstrap replicates: {peak_boot / 1e6:.0f} MB (goal <= 1000 MB)"
+    )
     del csd
 
     if not args.skip_mne:

@@ -45,36 +45,67 @@ def measure(result) -> dict:
                 out[f"max_abs_{col}_relative_{name}"] = round(float(rel[col].abs().max()), 2)
                 out[f"max_abs_{col}_absolute_{name}"] = round(float(ab[col].abs().max()), 2)
     if result.source_z is not None and "relative" in result.source_z:
-        out["max_abs_z_relative_source"] = round(float(np.abs(result.source_z["relative"]).max()),
-                                                 2)
+        out["max_abs_z_relative_source"] = round(
+            float(np.abs(result.source_z["relative"]).max()), 2
+        )
     cands = result.candidates
     if cands is None or not len(cands):
         out["planted_is_first"] = False
         return out
-    cols = [c for c in ("rank", "role", "measure", "band", "direction", "area", "hemisphere",
-                        "peak_z", "x_mni152", "y_mni152", "z_mni152", "border_mm", "own_share",
-                        "probability") if c in cands]
+    cols = [
+        c
+        for c in (
+            "rank",
+            "role",
+            "measure",
+            "band",
+            "direction",
+            "area",
+            "hemisphere",
+            "peak_z",
+            "x_mni152",
+            "y_mni152",
+            "z_mni152",
+            "border_mm",
+            "own_share",
+            "probability",
+        )
+        if c in cands
+    ]
     first = cands.iloc[0]
     out["peak_first"] = {c: _plain(first[c]) for c in cols}
-    out["first_5"] = [{c: _plain(r[c]) for c in ("measure", "band", "direction", "area",
-                                                    "hemisphere", "peak_z", "probability")
-                       if c in cands} for _, r in cands.head(5).iterrows()]
-    out["planted_is_first"] = bool(first.get("measure") == "absolute"
-                                   and first.get("band") == demo.PLANTED["band"]
-                                   and first.get("hemisphere") == demo.PLANTED["hemisphere"]
-                                   and first.get("area") in demo.PLANTED["rois"])
+    out["first_5"] = [
+        {
+            c: _plain(r[c])
+            for c in ("measure", "band", "direction", "area", "hemisphere", "peak_z", "probability")
+            if c in cands
+        }
+        for _, r in cands.head(5).iterrows()
+    ]
+    out["planted_is_first"] = bool(
+        first.get("measure") == "absolute"
+        and first.get("band") == demo.PLANTED["band"]
+        and first.get("hemisphere") == demo.PLANTED["hemisphere"]
+        and first.get("area") in demo.PLANTED["rois"]
+    )
     out["relative_max_abs_z_le_6"] = all(
-        v <= 6 for k, v in out.items() if k.startswith("max_abs_z") and "relative" in k
-        and "source" not in k)
+        v <= 6
+        for k, v in out.items()
+        if k.startswith("max_abs_z") and "relative" in k and "source" not in k
+    )
     return out
 
 
 def main(argv=None) -> int:
-    p = argparse.ArgumentParser(description=__doc__,
-                                formatter_class=argparse.RawDescriptionHelpFormatter)
+    p = argparse.ArgumentParser(
+        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
     p.add_argument("--norms", help="norms TSV (default: the shipped invented demo norms)")
-    p.add_argument("--rebuild", action="store_true",
-                   help="simulate the invented cohort and write --norms first")
+    p.add_argument(
+        "--rebuild",
+        action="store_true",
+        help="simulate the invented cohort and write --norms first",
+    )
     p.add_argument("--out", help="write the measured figures as JSON here")
     args = p.parse_args(argv)
     if args.rebuild and not args.norms:
@@ -90,8 +121,9 @@ def main(argv=None) -> int:
     norms = Path(args.norms) if args.norms else demo.demo_norms_path()
     if args.rebuild:
         demo.build_demo_norms(norms)
-    result = sourcelab.analyze(demo.demo_recording(), age=demo.DEMO_AGE, norms=norms,
-                               condition=demo.DEMO_CONDITION)
+    result = sourcelab.analyze(
+        demo.demo_recording(), age=demo.DEMO_AGE, norms=norms, condition=demo.DEMO_CONDITION
+    )
     out = {"norms": str(norms), "pipeline_version": sourcelab.PIPELINE_VERSION}
     out.update(measure(result))
     out["seconds"] = round(time.perf_counter() - t0, 1)
@@ -100,8 +132,7 @@ def main(argv=None) -> int:
         print(result.candidates.head(10).to_string(index=False))
     print(json.dumps(out, indent=1, default=str))
     if args.out:
-        Path(args.out).write_text(json.dumps(out, indent=1, default=str) + "\n",
-                                  encoding="utf-8")
+        Path(args.out).write_text(json.dumps(out, indent=1, default=str) + "\n", encoding="utf-8")
     return 0
 
 

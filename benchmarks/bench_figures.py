@@ -59,11 +59,14 @@ def main(argv=None) -> int:
     print(f"load average before (1, 5, 15 min): {_load()}   cores: {os.cpu_count()}")
     clock = _Clock()
     from sourcelab.demo import demo_result
+
     try:
         from sourcelab.figures.figure_set import figure_jobs
     except ImportError:  # a version before parallel figures (for before/after runs)
+
         def figure_jobs():
             return 1
+
     from sourcelab.figures.geometry import sources_to_volume
     from sourcelab.report import write_pdf, write_report
 
@@ -88,24 +91,41 @@ def main(argv=None) -> int:
     for k in pngs:
         kinds[k.split("/")[0]] = kinds.get(k.split("/")[0], 0) + 1
     size = sum(len(p) for p in pngs.values()) / 1e6
-    print(f"setup (imports, demo result, volume lookup): {setup[0]:6.1f} s wall {setup[1]:6.1f} "
-          "s CPU")
+    print(
+        f"setup (imports, demo result, volume lookup): {setup[0]:6.1f} s wall {setup[1]:6.1f} s CPU"
+    )
     print(f"figure set, n_jobs={n_jobs} ({len(pngs)} PNG, {size:.1f} MB: {kinds}):")
     print(f"    {figs[0]:6.1f} s wall {figs[1]:6.1f} s CPU")
-    print(f"report HTML: {html[0]:6.1f} s wall {html[1]:6.1f} s CPU "
-          f"({(out / 'report.html').stat().st_size / 1e6:.1f} MB)")
-    print(f"report PDF:  {pdf[0]:6.1f} s wall {pdf[1]:6.1f} s CPU "
-          f"({(out / 'report.pdf').stat().st_size / 1e6:.1f} MB)")
+    print(
+        f"report HTML: {html[0]:6.1f} s wall {html[1]:6.1f} s CPU "
+        f"({(out / 'report.html').stat().st_size / 1e6:.1f} MB)"
+    )
+    print(
+        f"report PDF:  {pdf[0]:6.1f} s wall {pdf[1]:6.1f} s CPU "
+        f"({(out / 'report.pdf').stat().st_size / 1e6:.1f} MB)"
+    )
     print(f"maps:        {maps[0]:6.1f} s wall {maps[1]:6.1f} s CPU")
     total = figs[0] + html[0] + pdf[0] + maps[0]
-    print(f"all outputs (figures + reports + maps): {total:6.1f} s wall "
-          f"{figs[1] + html[1] + pdf[1] + maps[1]:6.1f} s CPU   (goal <= 8 s on 2 quiet cores)")
+    print(
+        f"all outputs (figures + reports + maps): {total:6.1f} s wall "
+        f"{figs[1] + html[1] + pdf[1] + maps[1]:6.1f} s CPU   (goal <= 8 s on 2 quiet cores)"
+    )
     print(f"load average after outputs: {_load()}")
     if demo:
         t = time.perf_counter()
         c = _cpu()
-        run = subprocess.run([sys.executable, "-c", "from sourcelab.cli.main import run; run()",
-                              "demo", "--out", str(out / "demo")], capture_output=True, text=True)
+        run = subprocess.run(
+            [
+                sys.executable,
+                "-c",
+                "from sourcelab.cli.main import run; run()",
+                "demo",
+                "--out",
+                str(out / "demo"),
+            ],
+            capture_output=True,
+            text=True,
+        )
         wall, cpu = time.perf_counter() - t, _cpu() - c
         ok = "ok" if run.returncode == 0 else f"FAILED ({run.returncode}): {run.stderr[-300:]}"
         print(f"sourcelab demo: {wall:6.1f} s wall {cpu:6.1f} s CPU, {ok}   (goal <= 12 s wall)")

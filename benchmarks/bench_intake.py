@@ -33,13 +33,22 @@ def _invented(duration_s: float = 600.0, sfreq: float = 256.0, seed: int = 2026)
 
     model = load_head_model()
     rng = np.random.default_rng(seed)
-    gens = (Generator((14.0, -95.0, 2.0), "right", freq=10.0, amplitude=1.5),
-            Generator((-14.0, -95.0, 2.0), "left", freq=10.0, amplitude=1.5),
-            Generator((-40.0, -60.0, 40.0), "left", freq=2.0, bandwidth=2.0, amplitude=0.7),
-            Generator((-5.0, 35.0, 30.0), "left", freq=6.0, bandwidth=2.0, amplitude=1.0))
+    gens = (
+        Generator((14.0, -95.0, 2.0), "right", freq=10.0, amplitude=1.5),
+        Generator((-14.0, -95.0, 2.0), "left", freq=10.0, amplitude=1.5),
+        Generator((-40.0, -60.0, 40.0), "left", freq=2.0, bandwidth=2.0, amplitude=0.7),
+        Generator((-5.0, 35.0, 30.0), "left", freq=6.0, bandwidth=2.0, amplitude=1.0),
+    )
     raw = simulate_raw(model, duration_s=duration_s, sfreq=sfreq, generators=gens, rng=rng)
-    eye = ocular_artefacts(model.ch_pos, DEFAULT_NASION, n_times=raw.n_times, sfreq=sfreq,
-                           rng=rng, saccade_rate_hz=1.0, saccade_uv=80.0)
+    eye = ocular_artefacts(
+        model.ch_pos,
+        DEFAULT_NASION,
+        n_times=raw.n_times,
+        sfreq=sfreq,
+        rng=rng,
+        saccade_rate_hz=1.0,
+        saccade_uv=80.0,
+    )
     return mne.io.RawArray(raw.get_data() + eye, raw.info, verbose="error")
 
 
@@ -68,8 +77,10 @@ def _compare(name: str, rec, config) -> None:
     total = time.perf_counter() - t0
     print(f"[{name}] clean_recording {total:.2f} s; stages (s): {clean.timings_s}")
     oc = clean.ocular
-    print(f"[{name}] ocular: {oc['method']}, removed {oc['removed_components']} "
-          f"(template r {oc['template_r']}), fitted on {oc['fit_s']:.0f} s in {oc['seconds']:.2f} s")
+    print(
+        f"[{name}] ocular: {oc['method']}, removed {oc['removed_components']} "
+        f"(template r {oc['template_r']}), fitted on {oc['fit_s']:.0f} s in {oc['seconds']:.2f} s"
+    )
     # the rule alone on the corrected, usable epochs (all sites)
     starts, _ = epoch_starts(np.ones(rec.raw.n_times, bool), int(config.epoch_s * rec.sfreq))
     data = rec.raw.get_data() * 1e6
@@ -82,9 +93,11 @@ def _compare(name: str, rec, config) -> None:
     thr = learn_thresholds(ptp, ptp * 0 + 1.0)
     t_rule = time.perf_counter() - t0
     learned = thr.learned_ptp_uv
-    print(f"[{name}] robust rule: {t_rule * 1e3:.2f} ms; learned peak-to-peak per site "
-          f"{np.nanmin(learned):.0f}-{np.nanmax(learned):.0f} µV (median "
-          f"{np.nanmedian(learned):.0f}); effective {thr.ptp_uv.min():.0f}-{thr.ptp_uv.max():.0f}")
+    print(
+        f"[{name}] robust rule: {t_rule * 1e3:.2f} ms; learned peak-to-peak per site "
+        f"{np.nanmin(learned):.0f}-{np.nanmax(learned):.0f} µV (median "
+        f"{np.nanmedian(learned):.0f}); effective {thr.ptp_uv.min():.0f}-{thr.ptp_uv.max():.0f}"
+    )
     try:
         ar, t_ar = _autoreject(ep, rec.sfreq)
     except ImportError:
@@ -92,9 +105,11 @@ def _compare(name: str, rec, config) -> None:
         return
     rej_ours = float(np.mean((ptp > thr.ptp_uv[None, :]).any(1)))
     rej_ar = float(np.mean((ptp > ar).any(1)))
-    print(f"[{name}] autoreject global threshold {ar:.0f} µV in {t_ar:.2f} s "
-          f"({t_ar / max(t_rule, 1e-9):.0f}x the robust rule); epochs rejected: robust rule "
-          f"{rej_ours:.1%}, autoreject {rej_ar:.1%}")
+    print(
+        f"[{name}] autoreject global threshold {ar:.0f} µV in {t_ar:.2f} s "
+        f"({t_ar / max(t_rule, 1e-9):.0f}x the robust rule); epochs rejected: robust rule "
+        f"{rej_ours:.1%}, autoreject {rej_ar:.1%}"
+    )
 
 
 def main(argv=None) -> int:
@@ -111,8 +126,10 @@ def main(argv=None) -> int:
     for n_boot in (config.n_boot, 0):
         t0 = time.perf_counter()
         analyze(rec, config=config.replace(n_boot=n_boot))
-        print(f"[invented 10 min 256 Hz] analyze (tables only, n_boot={n_boot}) "
-              f"{time.perf_counter() - t0:.2f} s")
+        print(
+            f"[invented 10 min 256 Hz] analyze (tables only, n_boot={n_boot}) "
+            f"{time.perf_counter() - t0:.2f} s"
+        )
     if "--real" in argv:
         sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
         import realdata

@@ -80,8 +80,9 @@ def bench_points(setup, full, *, n, snr, rng, jitter_label):
 
     sp = setup.space
     src = rng.integers(0, sp.n_src, n)
-    maps, real = cal.point_source_maps(setup, src, rng=np.random.default_rng(rng.integers(1e9)),
-                                       snr=snr)
+    maps, real = cal.point_source_maps(
+        setup, src, rng=np.random.default_rng(rng.integers(1e9)), snr=snr
+    )
     true = sp.codes[src]
     # today's full-space maps from the same sensor data: recompute with the full kernel
     from sourcelab.simulate.mismatch import noisy_csd
@@ -93,49 +94,82 @@ def bench_points(setup, full, *, n, snr, rng, jitter_label):
         if snr is None:
             maps_full[i] = (full.op.kernel @ g) ** 2
         else:
-            c = noisy_csd(g[:, None], snr=snr, n_epochs=cal.N_EPOCHS, rng=rng2,
-                          background=setup.background[r])[0]
+            c = noisy_csd(
+                g[:, None], snr=snr, n_epochs=cal.N_EPOCHS, rng=rng2, background=setup.background[r]
+            )[0]
             maps_full[i] = cal.power_map(full.op.kernel, c)
     err = np.linalg.norm(sp.mesh.pos_mm[maps.argmax(1)] - sp.mesh.pos_mm[src], axis=1)
     rows = []
-    rows.append(_summary("roi_mean_today", *_ranks(
-        lambda v: rank_areas_by_mean(v, full.codes, full.n_areas), maps_full, true)))
-    rows.append(_summary("roi_mean_cortex", *_ranks(
-        lambda v: rank_areas_by_mean(v, sp.codes, sp.n_areas), maps, true)))
-    rows.append(_summary("peak_all", *_ranks(
-        lambda v: rank_areas(v, sp.codes, sp.n_areas), maps, true),
-        peak_error_median_mm=round(float(np.median(err)), 1),
-        peak_error_p90_mm=round(float(np.percentile(err, 90)), 1)))
-    f, t3 = _ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude),
-                   maps, true)
+    rows.append(
+        _summary(
+            "roi_mean_today",
+            *_ranks(lambda v: rank_areas_by_mean(v, full.codes, full.n_areas), maps_full, true),
+        )
+    )
+    rows.append(
+        _summary(
+            "roi_mean_cortex",
+            *_ranks(lambda v: rank_areas_by_mean(v, sp.codes, sp.n_areas), maps, true),
+        )
+    )
+    rows.append(
+        _summary(
+            "peak_all",
+            *_ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas), maps, true),
+            peak_error_median_mm=round(float(np.median(err)), 1),
+            peak_error_p90_mm=round(float(np.percentile(err, 90)), 1),
+        )
+    )
+    f, t3 = _ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude), maps, true)
     ok = ~np.isin(true, setup.exclude)
-    f_r, t3_r = _ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude),
-                       maps[ok], true[ok])
+    f_r, t3_r = _ranks(
+        lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude), maps[ok], true[ok]
+    )
     prob = []
     for v in maps:
         a = cal.named_area(v, sp, setup.exclude)
         prob.append(area_probability(v, sp, a, setup.own, kind="power"))
     hit = np.array([cal.named_area(v, sp, setup.exclude) for v in maps]) == true
-    rows.append(_summary("peak_default", f, t3, first_resolvable_truth=round(f_r, 3),
-                         top3_resolvable_truth=round(t3_r, 3),
-                         n_resolvable_truth=int(ok.sum()),
-                         mean_stated_probability=round(float(np.mean(prob)), 3),
-                         observed_hit_rate=round(float(hit.mean()), 3)))
+    rows.append(
+        _summary(
+            "peak_default",
+            f,
+            t3,
+            first_resolvable_truth=round(f_r, 3),
+            top3_resolvable_truth=round(t3_r, 3),
+            n_resolvable_truth=int(ok.sum()),
+            mean_stated_probability=round(float(np.mean(prob)), 3),
+            observed_hit_rate=round(float(hit.mean()), 3),
+        )
+    )
     from sourcelab.trust.naming import match_scores
 
     t0 = time.perf_counter()
     match = [match_scores(v, sp, int(np.argmax(v))) for v in maps]
     sec = (time.perf_counter() - t0) / n
-    rows.append(_summary("match_all", *_ranks(lambda mr: mr.order(), match, true),
-                         seconds_per_map=round(sec, 4)))
-    rows.append(_summary("match_default", *_ranks(lambda mr: mr.order(setup.exclude), match,
-                                                  true),
-                         first_resolvable_truth=round(_ranks(
-                             lambda mr: mr.order(setup.exclude),
-                             [m for m, k in zip(match, ok) if k], true[ok])[0], 3)))
+    rows.append(
+        _summary(
+            "match_all", *_ranks(lambda mr: mr.order(), match, true), seconds_per_map=round(sec, 4)
+        )
+    )
+    rows.append(
+        _summary(
+            "match_default",
+            *_ranks(lambda mr: mr.order(setup.exclude), match, true),
+            first_resolvable_truth=round(
+                _ranks(
+                    lambda mr: mr.order(setup.exclude),
+                    [m for m, k in zip(match, ok) if k],
+                    true[ok],
+                )[0],
+                3,
+            ),
+        )
+    )
     for r in rows:
-        r.update(kind="point", jitter_mm=jitter_label, snr="noise-free" if snr is None else snr,
-                 n=n)
+        r.update(
+            kind="point", jitter_mm=jitter_label, snr="noise-free" if snr is None else snr, n=n
+        )
     return rows
 
 
@@ -148,36 +182,40 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80):
 
     sp = setup.space
     ages = rng.uniform(18, 65, n_controls)
-    ctrl_cx, ctrl_full = cal.simulate_people(setup, ages, rng,
-                                             kernels=(sp.op.kernel, full.op.kernel))
+    ctrl_cx, ctrl_full = cal.simulate_people(
+        setup, ages, rng, kernels=(sp.op.kernel, full.op.kernel)
+    )
     # per-source norms (cortex) and ROI-mean norms (today's full space, and cortex)
     roi_full = _roi_means(ctrl_full, full)
     roi_cx = _roi_means(ctrl_cx, sp)
-    fits = {"src": fit_source_models(ages, np.log10(ctrl_cx), 1),
-            "roi_full": fit_source_models(ages, np.log10(roi_full), 1),
-            "roi_cx": fit_source_models(ages, np.log10(roi_cx), 1)}
+    fits = {
+        "src": fit_source_models(ages, np.log10(ctrl_cx), 1),
+        "roi_full": fit_source_models(ages, np.log10(roi_full), 1),
+        "roi_cx": fit_source_models(ages, np.log10(roi_cx), 1),
+    }
     centres = rng.integers(0, sp.n_src, n)
     radii = rng.uniform(10.0, 15.0, n)
     ratios = np.exp(rng.uniform(np.log(0.1), np.log(1.0), n))
     ages_d = rng.uniform(18, 65, n)
     patches = [cal.patch_sources(setup, c, r) for c, r in zip(centres, radii)]
-    dev_cx, dev_full = cal.simulate_people(setup, ages_d, rng,
-                                           kernels=(sp.op.kernel, full.op.kernel),
-                                           patches=patches, ratios=ratios)
+    dev_cx, dev_full = cal.simulate_people(
+        setup, ages_d, rng, kernels=(sp.op.kernel, full.op.kernel), patches=patches, ratios=ratios
+    )
     true = sp.codes[centres]
 
     def zmap(key, values, age):
         coef, sd, nk, xtx = fits[key]
         x0 = np.array([1.0, np.log10(age)])
         h = float(x0 @ xtx @ x0) * n_controls / nk
-        return predictive_t(np.log10(values), x0 @ coef, sd, n=nk, degree=1,
-                            h0=h)["z_equivalent"]
+        return predictive_t(np.log10(values), x0 @ coef, sd, n=nk, degree=1, h0=h)["z_equivalent"]
 
     zs_src = np.array([zmap("src", dev_cx[i], ages_d[i]) for i in range(n)])
-    zs_rf = np.array([zmap("roi_full", _roi_means(dev_full[i:i + 1], full)[0], ages_d[i])
-                      for i in range(n)])
-    zs_rc = np.array([zmap("roi_cx", _roi_means(dev_cx[i:i + 1], sp)[0], ages_d[i])
-                      for i in range(n)])
+    zs_rf = np.array(
+        [zmap("roi_full", _roi_means(dev_full[i : i + 1], full)[0], ages_d[i]) for i in range(n)]
+    )
+    zs_rc = np.array(
+        [zmap("roi_cx", _roi_means(dev_cx[i : i + 1], sp)[0], ages_d[i]) for i in range(n)]
+    )
     z_src, z_rf, z_rc = np.abs(zs_src), np.abs(zs_rf), np.abs(zs_rc)
 
     def by_roi(space):
@@ -185,45 +223,68 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80):
 
         def order(v):
             return present[np.argsort(-v, kind="stable")]
+
         return order
 
-    rows = [_summary("roi_mean_today", *_ranks(by_roi(full), z_rf, true)),
-            _summary("roi_mean_cortex", *_ranks(by_roi(sp), z_rc, true)),
-            _summary("peak_all", *_ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas),
-                                         z_src, true)),
-            # direction known (excess): rank by signed z, ROI means and peaks alike
-            _summary("roi_mean_today_excess", *_ranks(by_roi(full), zs_rf, true)),
-            _summary("peak_all_excess", *_ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas),
-                                                zs_src, true))]
-    f, t3 = _ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude),
-                   z_src, true)
+    rows = [
+        _summary("roi_mean_today", *_ranks(by_roi(full), z_rf, true)),
+        _summary("roi_mean_cortex", *_ranks(by_roi(sp), z_rc, true)),
+        _summary("peak_all", *_ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas), z_src, true)),
+        # direction known (excess): rank by signed z, ROI means and peaks alike
+        _summary("roi_mean_today_excess", *_ranks(by_roi(full), zs_rf, true)),
+        _summary(
+            "peak_all_excess", *_ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas), zs_src, true)
+        ),
+    ]
+    f, t3 = _ranks(
+        lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude), z_src, true
+    )
     ok = ~np.isin(true, setup.exclude)
-    f_r, t3_r = _ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude),
-                       z_src[ok], true[ok])
+    f_r, t3_r = _ranks(
+        lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude), z_src[ok], true[ok]
+    )
     peak = z_src.max(1)
     strong = peak >= 4
-    f_s, _ = _ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude),
-                    z_src[strong & ok], true[strong & ok])
+    f_s, _ = _ranks(
+        lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude),
+        z_src[strong & ok],
+        true[strong & ok],
+    )
     named = np.array([cal.named_area(v, sp, setup.exclude) for v in z_src])
     prob = [area_probability(v, sp, a, setup.own, kind="z") for v, a in zip(z_src, named)]
-    rows.append(_summary("peak_default", f, t3, first_resolvable_truth=round(f_r, 3),
-                         top3_resolvable_truth=round(t3_r, 3),
-                         first_resolvable_truth_peak_z_ge_4=round(f_s, 3),
-                         n_peak_z_ge_4=int((strong & ok).sum()),
-                         peak_z_median=round(float(np.median(peak)), 2),
-                         mean_stated_probability=round(float(np.mean(prob)), 3),
-                         observed_hit_rate=round(float(np.mean(named == true)), 3)))
+    rows.append(
+        _summary(
+            "peak_default",
+            f,
+            t3,
+            first_resolvable_truth=round(f_r, 3),
+            top3_resolvable_truth=round(t3_r, 3),
+            first_resolvable_truth_peak_z_ge_4=round(f_s, 3),
+            n_peak_z_ge_4=int((strong & ok).sum()),
+            peak_z_median=round(float(np.median(peak)), 2),
+            mean_stated_probability=round(float(np.mean(prob)), 3),
+            observed_hit_rate=round(float(np.mean(named == true)), 3),
+        )
+    )
     ex = np.clip(zs_src, 0.0, None)
-    rows.append(_summary("peak_default_excess", *_ranks(
-        lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude), ex, true)))
+    rows.append(
+        _summary(
+            "peak_default_excess",
+            *_ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude), ex, true),
+        )
+    )
     # a patch of 10-15 mm radius often straddles a border: the same rankings judged against
     # the area holding most of the patch's sources (ties: the centre's area)
     major = np.array([_majority(sp.codes[pt], c) for pt, c in zip(patches, true)])
     straddle = float(np.mean([np.mean(sp.codes[pt] == c) < 1 for pt, c in zip(patches, true)]))
-    rows.append(_summary("peak_all_excess_majority_truth", *_ranks(
-        lambda v: rank_areas(v, sp.codes, sp.n_areas), ex, major),
-        patches_straddling_a_border=round(straddle, 3),
-        centre_area_is_majority=round(float(np.mean(major == true)), 3)))
+    rows.append(
+        _summary(
+            "peak_all_excess_majority_truth",
+            *_ranks(lambda v: rank_areas(v, sp.codes, sp.n_areas), ex, major),
+            patches_straddling_a_border=round(straddle, 3),
+            centre_area_is_majority=round(float(np.mean(major == true)), 3),
+        )
+    )
     for r in rows:
         r.update(kind="deviation", jitter_mm=jitter_label, n=n, n_controls=n_controls)
     return rows
@@ -246,12 +307,16 @@ def _roi_means(maps, space):
 
 
 def main(argv=None) -> int:
-    p = argparse.ArgumentParser(description=__doc__,
-                                formatter_class=argparse.RawDescriptionHelpFormatter)
+    p = argparse.ArgumentParser(
+        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
     p.add_argument("--n", type=int, default=600)
     p.add_argument("--jitter", default="10", help="RMS electrode jitter values, mm (e.g. 0,5,10)")
-    p.add_argument("--ceiling", action="store_true",
-                   help="also measure the peak-in-true-area rate at every source (slow)")
+    p.add_argument(
+        "--ceiling",
+        action="store_true",
+        help="also measure the peak-in-true-area rate at every source (slow)",
+    )
     p.add_argument("--lambda2", type=float, default=1 / 9)
     p.add_argument("--seed", type=int, default=2024)
     p.add_argument("--out", help="write the rows as JSON here")
@@ -275,12 +340,17 @@ def main(argv=None) -> int:
         else:
             setup = _setup_jitter(model, sp, jit)
         for snr in (None, 3.0):
-            rows += bench_points(setup, full, n=args.n, snr=snr, rng=rng,
-                                 jitter_label=jit)
+            rows += bench_points(setup, full, n=args.n, snr=snr, rng=rng, jitter_label=jit)
         rows += bench_deviations(setup, full, n=args.n, rng=rng, jitter_label=jit)
         _print([r for r in rows if r["jitter_mm"] == jit])
-    out = {"rows": rows, "lambda2": args.lambda2, "n": args.n, "seed": args.seed,
-           "mismatch_seed": 1, "headline": _headline(rows)}
+    out = {
+        "rows": rows,
+        "lambda2": args.lambda2,
+        "n": args.n,
+        "seed": args.seed,
+        "mismatch_seed": 1,
+        "headline": _headline(rows),
+    }
     if args.ceiling:
         out["ceiling"] = ceiling(model, sp)
         print(json.dumps(out["ceiling"], indent=1))
@@ -302,11 +372,13 @@ def _headline(rows):
         if r["kind"] == "point" and r["ranking"] in ("peak_all", "match_all"):
             key = f"point_{r['ranking']}_{'noise_free' if r['snr'] == 'noise-free' else 'snr3'}"
             out[key] = {"first": r["first"], "top3": r["top3"], "n": r["n"]}
-        if r["kind"] == "deviation" and r["ranking"] in ("peak_all", "peak_all_excess",
-                                                         "peak_default_excess",
-                                                         "peak_all_excess_majority_truth"):
-            out[f"deviation_{r['ranking']}"] = {"first": r["first"], "top3": r["top3"],
-                                                "n": r["n"]}
+        if r["kind"] == "deviation" and r["ranking"] in (
+            "peak_all",
+            "peak_all_excess",
+            "peak_default_excess",
+            "peak_all_excess_majority_truth",
+        ):
+            out[f"deviation_{r['ranking']}"] = {"first": r["first"], "top3": r["top3"], "n": r["n"]}
     out["targets"] = {"point_first": 0.65, "point_top3": 0.85, "deviation_first": 0.55}
     return out
 
@@ -346,13 +418,17 @@ def ceiling(model, sp, *, radius_mm=6.0):
             named[i] = codes[p]
             continue
         named[i] = np.bincount(codes[near]).argmax()
-    return {"n": int(sp.n_src), "jitter_mm": 10.0, "mismatch_seed_eval": 1,
-            "mismatch_seed_train": 0,
-            "peak_in_true_area": round(float(np.mean(codes[ev] == codes)), 3),
-            "peak_error_median_mm": round(float(np.median(err)), 1),
-            "peak_error_p90_mm": round(float(np.percentile(err, 90)), 1),
-            "learned_bias_rule_first": round(float(np.mean(named == codes)), 3),
-            "learned_bias_radius_mm": radius_mm}
+    return {
+        "n": int(sp.n_src),
+        "jitter_mm": 10.0,
+        "mismatch_seed_eval": 1,
+        "mismatch_seed_train": 0,
+        "peak_in_true_area": round(float(np.mean(codes[ev] == codes)), 3),
+        "peak_error_median_mm": round(float(np.median(err)), 1),
+        "peak_error_p90_mm": round(float(np.percentile(err, 90)), 1),
+        "learned_bias_rule_first": round(float(np.mean(named == codes)), 3),
+        "learned_bias_radius_mm": radius_mm,
+    }
 
 
 def _setup_jitter(model, sp, jit):
@@ -365,18 +441,27 @@ def _setup_jitter(model, sp, jit):
         return base
     mf = mismatch_forward(model, n_jitter=16, seed=1, jitter_mm=jit)
     gain = mf.gain[:, :, sp.sources]
-    return cal.SimSetup(space=sp, true_gain=gain,
-                        background=np.einsum("rcs,rds->rcd", gain, gain), own=base.own,
-                        exclude=base.exclude, realisations=tuple(range(1, 17)))
+    return cal.SimSetup(
+        space=sp,
+        true_gain=gain,
+        background=np.einsum("rcs,rds->rcd", gain, gain),
+        own=base.own,
+        exclude=base.exclude,
+        realisations=tuple(range(1, 17)),
+    )
 
 
 def _print(rows):
     for r in rows:
-        extra = {k: v for k, v in r.items()
-                 if k not in ("ranking", "first", "top3", "kind", "jitter_mm", "snr", "n",
-                              "n_controls")}
-        print(f"{r['kind']:9s} jitter {r['jitter_mm']:>4} mm snr {str(r.get('snr', '-')):>10}  "
-              f"{r['ranking']:16s} first {r['first']:.3f} top3 {r['top3']:.3f}  {extra}")
+        extra = {
+            k: v
+            for k, v in r.items()
+            if k not in ("ranking", "first", "top3", "kind", "jitter_mm", "snr", "n", "n_controls")
+        }
+        print(
+            f"{r['kind']:9s} jitter {r['jitter_mm']:>4} mm snr {str(r.get('snr', '-')):>10}  "
+            f"{r['ranking']:16s} first {r['first']:.3f} top3 {r['top3']:.3f}  {extra}"
+        )
 
 
 if __name__ == "__main__":

@@ -45,14 +45,25 @@ def _target(measure: str):
     else:
         atlas, name, hemi = "yeo7", None, None
     rois = load_atlas(atlas).rois
-    roi = [r for r in rois if (r.name, r.hemisphere) == (name, hemi)][0] if name else \
-        max(rois, key=lambda r: len(r.vertices))
-    return make_target(kernel=op.kernel, n_comp=op.n_comp, atlas=atlas, roi=roi.name,
-                       hemisphere=roi.hemisphere, vertices=roi.vertices, band="alpha",
-                       bands=fingerprint_for(cfg).bands, measure=measure,
-                       fingerprint=fingerprint_for(cfg), sfreq=256.0,
-                       norm={"mean": 0.5, "sd": 0.13,
-                             "transform": "log10" if measure == "absolute" else "logit"})
+    roi = (
+        [r for r in rois if (r.name, r.hemisphere) == (name, hemi)][0]
+        if name
+        else max(rois, key=lambda r: len(r.vertices))
+    )
+    return make_target(
+        kernel=op.kernel,
+        n_comp=op.n_comp,
+        atlas=atlas,
+        roi=roi.name,
+        hemisphere=roi.hemisphere,
+        vertices=roi.vertices,
+        band="alpha",
+        bands=fingerprint_for(cfg).bands,
+        measure=measure,
+        fingerprint=fingerprint_for(cfg),
+        sfreq=256.0,
+        norm={"mean": 0.5, "sd": 0.13, "transform": "log10" if measure == "absolute" else "logit"},
+    )
 
 
 def bench(measure: str, seconds: float) -> dict:
@@ -66,8 +77,7 @@ def bench(measure: str, seconds: float) -> dict:
     sf = 256.0
     rng = np.random.default_rng(0)
     x = 3.0 * rng.standard_normal((19, 19)) @ pink_noise(19, int((seconds + 6) * sf), sf, rng)
-    raw = mne.io.RawArray(x * 1e-6, mne.create_info(list(SITES_1020), sf, "eeg"),
-                          verbose="error")
+    raw = mne.io.RawArray(x * 1e-6, mne.create_info(list(SITES_1020), sf, "eeg"), verbose="error")
     tg = _target(measure)
     name = f"sourcelab-bench-{os.getpid()}-{measure}"
     player = PlayerLSL(raw, chunk_size=16, n_repeat=1, name=name, source_id=name)
@@ -89,10 +99,12 @@ def main() -> None:
     a = p.parse_args()
     for measure in ("absolute", "relative"):
         r = bench(measure, a.seconds)
-        print(f"{r['measure']:<9} {r['n_sources']:>5} sources, {r['rows']} updates: latency "
-              f"median {r['latency_ms_median']:.2f} ms, p95 {r['latency_ms_p95']:.2f} ms; age "
-              f"of the newest sample at publication median {r['age_ms_median']:.1f} ms, p95 "
-              f"{r['age_ms_p95']:.1f} ms")
+        print(
+            f"{r['measure']:<9} {r['n_sources']:>5} sources, {r['rows']} updates: latency "
+            f"median {r['latency_ms_median']:.2f} ms, p95 {r['latency_ms_p95']:.2f} ms; age "
+            f"of the newest sample at publication median {r['age_ms_median']:.1f} ms, p95 "
+            f"{r['age_ms_p95']:.1f} ms"
+        )
 
 
 if __name__ == "__main__":

@@ -20,8 +20,17 @@ def _table(atlases, bands):
         for measure in ("absolute", "relative"):
             for band in bands:
                 for roi in at.rois:
-                    rows.append(dict(atlas=at.name, roi=roi.name, hemisphere=roi.hemisphere,
-                                     band=band, measure=measure, value=np.nan, z=np.nan))
+                    rows.append(
+                        dict(
+                            atlas=at.name,
+                            roi=roi.name,
+                            hemisphere=roi.hemisphere,
+                            band=band,
+                            measure=measure,
+                            value=np.nan,
+                            z=np.nan,
+                        )
+                    )
     return pd.DataFrame(rows)
 
 
@@ -63,17 +72,24 @@ def main(argv=None) -> int:
         t, c = time.perf_counter(), time.process_time()
         out = add_intervals(table, csd, op, atlases, n_boot=args.n_boot, seed=rep)
         t_roi, c_roi = time.perf_counter() - t, time.process_time() - c
-        print(f"ROI intervals: {len(out)} rows ({n_rois} ROIs x {len(bands)} bands x 2 "
-              f"measures), {args.n_epochs} epochs, {args.n_boot} replicates, {args.orientation}: "
-              f"wall {t_roi:.2f} s, CPU {c_roi:.2f} s (all threads)")
+        print(
+            f"ROI intervals: {len(out)} rows ({n_rois} ROIs x {len(bands)} bands x 2 "
+            f"measures), {args.n_epochs} epochs, {args.n_boot} replicates, {args.orientation}: "
+            f"wall {t_roi:.2f} s, CPU {c_roi:.2f} s (all threads)"
+        )
     stable = table[table.measure == "absolute"]
     t = time.perf_counter()
     add_intervals(stable, csd, op, atlases, n_boot=args.n_boot, seed=0)
     print(f"  absolute rows only: {time.perf_counter() - t:.2f} s")
 
-    srows = pd.DataFrame([dict(channel=c, band=b, measure=m, value=np.nan, z=np.nan)
-                          for m in ("absolute", "relative") for b in bands
-                          for c in model.ch_names])
+    srows = pd.DataFrame(
+        [
+            dict(channel=c, band=b, measure=m, value=np.nan, z=np.nan)
+            for m in ("absolute", "relative")
+            for b in bands
+            for c in model.ch_names
+        ]
+    )
     t = time.perf_counter()
     add_sensor_intervals(srows, csd, ch_names=model.ch_names, n_boot=args.n_boot, seed=0)
     print(f"sensor intervals: {time.perf_counter() - t:.2f} s")

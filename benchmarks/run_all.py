@@ -1,7 +1,7 @@
-"""sourcelab speed goals (issue 19) in one run: prints each goal with today's value, saves as it goes.
+"""sourcelab speed goals (issue 19) in one run: each goal with today's value, saved as it goes.
 
     python benchmarks/run_all.py                 # quick mode (the default): every goal, < ~5 min
-    python -m benchmarks.run_all --full          # longer recordings, more repeats, 40-recording batch
+    python -m benchmarks.run_all --full          # longer recordings, more repeats, 40 in the batch
     python -m benchmarks.run_all --only startup,atlas_list
     python benchmarks/run_all.py --out /tmp/res  # writes /tmp/res.json and /tmp/res.md
 
@@ -21,7 +21,8 @@ analyze_10    tables-only ``sourcelab analyze`` of a 10-min recording vs a floor
 analyze_60    the same for a 60-min recording (peak memory)
 exponent      time of ``analyze(path)`` (warm, in one process) over 1-10 min (quick) or 1-60 min
               (full) recordings, log-log slope
-core_vs_mne   sourcelab's cross-spectral core vs MNE's ``csd_array_fourier`` -> ``apply_inverse_cov``
+core_vs_mne   sourcelab's cross-spectral core vs MNE's ``csd_array_fourier`` ->
+              ``apply_inverse_cov``
               and vs ``compute_source_psd`` (sLORETA), same clean epochs; map correlation
 batch         ``run_batch`` with 2 worker processes vs 1 (and a 2-worker Dask local cluster if
               ``distributed`` is installed) on 20 30-s (quick) or 40 70-s (full) recordings
@@ -57,12 +58,10 @@ GOALS = {
     "analyze10_over_floor": ("tables-only analyze 10 min / floor process", 3.0, "×", "<="),
     "peak_mb_10": ("peak memory, 10-min analyze", 500.0, "MiB", "<="),
     "peak_mb_60": ("peak memory, 60-min analyze", 800.0, "MiB", "<="),
-    "length_exponent": ("time ∝ length^k (between the two longest lengths run)", 1.1, "",
-                        "<="),
+    "length_exponent": ("time ∝ length^k (between the two longest lengths run)", 1.1, "", "<="),
     "core_over_mne_cov": ("core vs csd_array_fourier → apply_inverse_cov", 10.0, "×", ">="),
     "core_over_mne_psd": ("core vs compute_source_psd (sLORETA)", 500.0, "×", ">="),
-    "core_min_r": ("map correlation core vs MNE (min over bands and routes)", 0.999999, "",
-                   ">="),
+    "core_min_r": ("map correlation core vs MNE (min over bands and routes)", 0.999999, "", ">="),
     "batch_speedup_2": ("batch 2 worker processes vs 1", 1.7, "×", ">="),
     "dask_over_pool": ("Dask local cluster (2) / process pool (2) throughput", 0.85, "", ">="),
 }
@@ -77,26 +76,36 @@ WHY = {
         "ocular correction (MNE + scikit-learn FastICA, also their import), leakage and "
         "resolvability tables, and 1-3 s of imports (scipy.signal/stats, pandas, sklearn) that "
         "the floor does not pay; under a load far above the core count the longer process is "
-        "interrupted more, which inflates the ratio."),
-    "peak_mb_10": ("The peak is in the coupling statistics (per epoch, bin and pair, six float32 "
-                   "arrays) or in cleaning."),
+        "interrupted more, which inflates the ratio."
+    ),
+    "peak_mb_10": (
+        "The peak is in the coupling statistics (per epoch, bin and pair, six float32 "
+        "arrays) or in cleaning."
+    ),
     "peak_mb_60": (
         "The pair statistics of the coupling bootstrap are held per epoch x bin x pair (six "
         "float32 arrays, ~70 MB each for an hour), and cleaning holds the band-passed and the "
         "muscle-band copies of the recording at once; both need a bin- or time-blocked "
-        "design to fit."),
+        "design to fit."
+    ),
     "core_over_mne_psd": (
         "In quick mode compute_source_psd runs on 1 minute (30 epochs), where the core's "
         "fixed cost (operator products, ROI means) dominates its time; use --full for the "
-        "10-minute comparison; a heavy load also slows the short core more."),
+        "10-minute comparison; a heavy load also slows the short core more."
+    ),
     "batch_speedup_2": (
         "With the load average far above the 2 cores a second worker gains little (most "
-        "likely the scheduler shares the CPU between sessions, not processes); the goal can only be judged on a quiet "
-        "machine; each worker now starts with one BLAS/OpenMP thread."),
-    "dask_over_pool": ("Dask workers start a scheduler and nanny processes; measured under "
-                       "the same heavy load as the pool."),
-    "core_over_mne_cov": ("The core's time is short (tens of ms) and suffers most from a "
-                          "heavy load."),
+        "likely the scheduler shares the CPU between sessions, not processes); the goal can only "
+        "be judged on a quiet "
+        "machine; each worker now starts with one BLAS/OpenMP thread."
+    ),
+    "dask_over_pool": (
+        "Dask workers start a scheduler and nanny processes; measured under "
+        "the same heavy load as the pool."
+    ),
+    "core_over_mne_cov": (
+        "The core's time is short (tens of ms) and suffers most from a heavy load."
+    ),
 }
 
 
@@ -110,19 +119,24 @@ def _median(x) -> float:
 
 # ------------------------------------------------------------------------------ invented data
 
+
 def invented_raw(model, seed: int, duration_s: float):
     """An invented resting recording: bilateral occipital alpha, frontal theta, central beta."""
     from sourcelab.simulate import Generator, simulate_raw
 
     rng = np.random.default_rng(seed)
     a = rng.uniform(0.2, 0.45)
-    gens = (Generator((-18, -92, 4), "left", amplitude=a),
-            Generator((20, -92, 4), "right", amplitude=a),
-            Generator((4, 40, 20), "right", freq=6.0, amplitude=rng.uniform(0.1, 0.4)),
-            Generator((-38, -20, 55), "left", freq=18.0, bandwidth=6.0,
-                      amplitude=rng.uniform(0.1, 0.3)))
-    return simulate_raw(model, duration_s=duration_s, sfreq=256.0, generators=gens,
-                        background_uv=10.0, rng=rng)
+    gens = (
+        Generator((-18, -92, 4), "left", amplitude=a),
+        Generator((20, -92, 4), "right", amplitude=a),
+        Generator((4, 40, 20), "right", freq=6.0, amplitude=rng.uniform(0.1, 0.4)),
+        Generator(
+            (-38, -20, 55), "left", freq=18.0, bandwidth=6.0, amplitude=rng.uniform(0.1, 0.3)
+        ),
+    )
+    return simulate_raw(
+        model, duration_s=duration_s, sfreq=256.0, generators=gens, background_uv=10.0, rng=rng
+    )
 
 
 def _recording_path(seed: int, duration_s: float, folder: Path | None = None) -> Path:
@@ -215,18 +229,21 @@ def _process(mode: str, *args: str, extra_flags: tuple[str, ...] = ()) -> dict:
         p = subprocess.run(cmd, cwd=d, capture_output=True, text=True)
         wall = time.perf_counter() - t0
         if p.returncode != 0 or not report.exists():
-            raise RuntimeError(f"{mode} {' '.join(args)} failed (exit {p.returncode}): "
-                               f"{p.stderr.strip()[-800:]}")
+            raise RuntimeError(
+                f"{mode} {' '.join(args)} failed (exit {p.returncode}): {p.stderr.strip()[-800:]}"
+            )
         rep = json.loads(report.read_text(encoding="utf-8"))
         if rep["rc"] not in (0, None):
-            raise RuntimeError(f"{mode} {' '.join(args)}: exit code {rep['rc']}: "
-                               f"{p.stderr.strip()[-800:]}")
+            raise RuntimeError(
+                f"{mode} {' '.join(args)}: exit code {rep['rc']}: {p.stderr.strip()[-800:]}"
+            )
         return {"wall_s": wall, "peak_mb": rep["peak_mb"], "stderr": p.stderr}
 
 
 def _analyze_cli(path: Path, out: Path) -> dict:
-    return _process("cli", "analyze", str(path), "--out", str(out), "--no-figures",
-                    "--no-report", "--no-maps")
+    return _process(
+        "cli", "analyze", str(path), "--out", str(out), "--no-figures", "--no-report", "--no-maps"
+    )
 
 
 def _floor(path: Path) -> dict:
@@ -239,13 +256,20 @@ def _floor(path: Path) -> dict:
 
 # ------------------------------------------------------------------------------ steps
 
+
 def step_startup(opts) -> dict:
     python = [_process("pass")["wall_s"] for _ in range(opts.reps)]
     helps = [_process("cli", "--help")["wall_s"] for _ in range(opts.reps)]
+
     def top_level(code):
         with tempfile.TemporaryDirectory() as d:
-            p = subprocess.run([sys.executable, "-I", "-X", "importtime", "-c", code], cwd=d,
-                               capture_output=True, text=True, check=True)
+            p = subprocess.run(
+                [sys.executable, "-I", "-X", "importtime", "-c", code],
+                cwd=d,
+                capture_output=True,
+                text=True,
+                check=True,
+            )
         out = {}
         for line in p.stderr.splitlines():
             parts = line.split("|")
@@ -257,13 +281,19 @@ def step_startup(opts) -> dict:
                     pass
         return out
 
-    bare = set(top_level("pass"))   # what the interpreter itself imports at start-up
-    imports = [sum(v for k, v in top_level("import sourcelab.cli.main").items()
-                   if k not in bare) for _ in range(opts.reps)]
-    return {"values": {"startup_s": _median(helps), "import_cli_s": _median(imports)},
-            "python_bare_s": _median(python), "help_runs_s": helps, "import_runs_s": imports,
-            "note": "`python -I -c <wrapper> cli --help`: the wall includes the interpreter "
-                    "itself (python_bare_s)"}
+    bare = set(top_level("pass"))  # what the interpreter itself imports at start-up
+    imports = [
+        sum(v for k, v in top_level("import sourcelab.cli.main").items() if k not in bare)
+        for _ in range(opts.reps)
+    ]
+    return {
+        "values": {"startup_s": _median(helps), "import_cli_s": _median(imports)},
+        "python_bare_s": _median(python),
+        "help_runs_s": helps,
+        "import_runs_s": imports,
+        "note": "`python -I -c <wrapper> cli --help`: the wall includes the interpreter "
+        "itself (python_bare_s)",
+    }
 
 
 def step_atlas_list(opts) -> dict:
@@ -280,12 +310,18 @@ def step_analyze_10(opts) -> dict:
             r = _analyze_cli(path, Path(d) / f"out{i}")
             walls.append(r["wall_s"])
             peaks.append(r["peak_mb"])
-    return {"values": {"analyze10_over_floor": _median(walls) / _median(floors),
-                       "peak_mb_10": max(peaks)},
-            "floor_s": floors, "analyze_s": walls, "peak_mb": peaks,
-            "note": "fresh processes, alternating floor and analyze; `sourcelab analyze REC --out "
-                    "D --no-figures --no-report --no-maps` with the default configuration "
-                    "(bootstrap intervals, coupling, ocular correction on)"}
+    return {
+        "values": {
+            "analyze10_over_floor": _median(walls) / _median(floors),
+            "peak_mb_10": max(peaks),
+        },
+        "floor_s": floors,
+        "analyze_s": walls,
+        "peak_mb": peaks,
+        "note": "fresh processes, alternating floor and analyze; `sourcelab analyze REC --out "
+        "D --no-figures --no-report --no-maps` with the default configuration "
+        "(bootstrap intervals, coupling, ocular correction on)",
+    }
 
 
 def step_analyze_60(opts) -> dict:
@@ -293,8 +329,12 @@ def step_analyze_60(opts) -> dict:
     with tempfile.TemporaryDirectory(prefix="sourcelab-bench-") as d:
         fl = _floor(path)
         r = _analyze_cli(path, Path(d) / "out")
-    return {"values": {"peak_mb_60": r["peak_mb"]}, "analyze_s": r["wall_s"],
-            "floor_s": fl["wall_s"], "analyze_over_floor": r["wall_s"] / fl["wall_s"]}
+    return {
+        "values": {"peak_mb_60": r["peak_mb"]},
+        "analyze_s": r["wall_s"],
+        "floor_s": fl["wall_s"],
+        "analyze_over_floor": r["wall_s"] / fl["wall_s"],
+    }
 
 
 _EXPONENT_CHILD = r"""
@@ -317,9 +357,19 @@ def step_exponent(opts) -> dict:
     minutes = (1, 5, 10, 30, 60) if opts.full else (1, 3, 10)
     paths = [str(_recording_path(3000 + m, 60.0 * m)) for m in minutes]
     with tempfile.TemporaryDirectory() as d:
-        p = subprocess.run([sys.executable, "-I", "-c", _EXPONENT_CHILD, json.dumps(paths),
-                            str(3 if opts.full else 1)], cwd=d, capture_output=True,
-                           text=True)
+        p = subprocess.run(
+            [
+                sys.executable,
+                "-I",
+                "-c",
+                _EXPONENT_CHILD,
+                json.dumps(paths),
+                str(3 if opts.full else 1),
+            ],
+            cwd=d,
+            capture_output=True,
+            text=True,
+        )
     if p.returncode != 0:
         raise RuntimeError(p.stderr[-800:])
     times = json.loads(p.stdout.strip().splitlines()[-1])
@@ -327,10 +377,14 @@ def step_exponent(opts) -> dict:
     # the slope between the two longest recordings: fixed per-analysis costs flatten the fit
     # over short ones, the marginal slope shows any super-linear part
     k_last = float(np.log(times[-1] / times[-2]) / np.log(minutes[-1] / minutes[-2]))
-    return {"values": {"length_exponent": k_last}, "minutes": list(minutes),
-            "analyze_s": times, "fit_exponent_all_lengths": k_fit,
-            "note": "analyze(EDF path) in one warm process, median per length; goal value = "
-                    "slope of log(time) on log(length) between the two longest recordings"}
+    return {
+        "values": {"length_exponent": k_last},
+        "minutes": list(minutes),
+        "analyze_s": times,
+        "fit_exponent_all_lengths": k_fit,
+        "note": "analyze(EDF path) in one warm process, median per length; goal value = "
+        "slope of log(time) on log(length) between the two longest recordings",
+    }
 
 
 def step_core_vs_mne(opts) -> dict:
@@ -369,33 +423,44 @@ def step_core_vs_mne(opts) -> dict:
         t_ours = _median(np.diff(t_ours))
         power_ours, _ = ours()
         info = make_info(clean.sfreq, average_reference=True)
-        fwd = to_mne_forward(model, info)   # built once, not timed
-        noise = mne.Covariance(np.eye(n_ch) * 1e-12, info["ch_names"], [], info["projs"],
-                               nfree=10**6, verbose="error")
+        fwd = to_mne_forward(model, info)  # built once, not timed
+        noise = mne.Covariance(
+            np.eye(n_ch) * 1e-12, info["ch_names"], [], info["projs"], nfree=10**6, verbose="error"
+        )
         data_v = epochs_uv * 1e-6
 
         def make_inv():
-            return mne.minimum_norm.make_inverse_operator(info, fwd, noise, loose=0.0,
-                                                          fixed=True, depth=None,
-                                                          verbose="error")
+            return mne.minimum_norm.make_inverse_operator(
+                info, fwd, noise, loose=0.0, fixed=True, depth=None, verbose="error"
+            )
 
         if route == "cov":
+
             def theirs(inv=None):
                 inv = inv if inv is not None else make_inv()
                 csd = mne.time_frequency.csd_array_fourier(
-                    data_v, clean.sfreq, fmin=0.5, fmax=45.5, n_fft=n_t, verbose="error")
+                    data_v, clean.sfreq, fmin=0.5, fmax=45.5, n_fft=n_t, verbose="error"
+                )
                 f = np.asarray(csd.frequencies)
                 out = []
                 for lo, hi in config.bands.edges:
                     sel = np.flatnonzero((f >= lo) & (f < hi))
                     c = np.sum([csd.get_data(index=int(i)) for i in sel], axis=0).real
-                    cov = mne.Covariance(c, info["ch_names"], [], info["projs"], nfree=n_ep,
-                                         verbose="error")
+                    cov = mne.Covariance(
+                        c, info["ch_names"], [], info["projs"], nfree=n_ep, verbose="error"
+                    )
                     stc = mne.minimum_norm.apply_inverse_cov(
-                        cov, info, inv, nave=1, lambda2=config.lambda2, method="sLORETA",
-                        verbose="error")
+                        cov,
+                        info,
+                        inv,
+                        nave=1,
+                        lambda2=config.lambda2,
+                        method="sLORETA",
+                        verbose="error",
+                    )
                     out.append(stc.data[:, 0])
                 return np.stack(out)
+
             reps = 5 if opts.full else 3
         else:
             mraw = mne.io.RawArray(np.concatenate(list(data_v), axis=1), info, verbose="error")
@@ -403,12 +468,23 @@ def step_core_vs_mne(opts) -> dict:
             def theirs(inv=None):
                 inv = inv if inv is not None else make_inv()
                 stc = mne.minimum_norm.compute_source_psd(
-                    mraw, inv, lambda2=config.lambda2, method="sLORETA", n_fft=n_t,
-                    overlap=0.0, fmin=0.0, fmax=clean.sfreq / 2, bandwidth="hann", pca=True,
-                    verbose="error")
+                    mraw,
+                    inv,
+                    lambda2=config.lambda2,
+                    method="sLORETA",
+                    n_fft=n_t,
+                    overlap=0.0,
+                    fmin=0.0,
+                    fmax=clean.sfreq / 2,
+                    bandwidth="hann",
+                    pca=True,
+                    verbose="error",
+                )
                 f = stc.times
-                return np.stack([stc.data[:, (f >= lo) & (f < hi)].sum(axis=1)
-                                 for lo, hi in config.bands.edges])
+                return np.stack(
+                    [stc.data[:, (f >= lo) & (f < hi)].sum(axis=1) for lo, hi in config.bands.edges]
+                )
+
             reps = 1
         t_mne = []
         for _ in range(reps):
@@ -421,24 +497,34 @@ def step_core_vs_mne(opts) -> dict:
             theirs(inv)
             t_mne_no_inv = time.perf_counter() - t0
         else:
-            t_mne_no_inv = None   # not measured in quick mode (a second multi-second run)
-        r = [float(np.corrcoef(power_ours[i], power_mne[i])[0, 1])
-             for i in range(len(config.bands.names))]
-        res[route] = {"minutes": minutes, "n_epochs": n_ep, "core_s": t_ours,
-                      "mne_s": _median(t_mne), "mne_runs_s": t_mne,
-                      "ratio": _median(t_mne) / t_ours,
-                      "mne_without_make_inverse_s": t_mne_no_inv,
-                      "ratio_without_make_inverse": (None if t_mne_no_inv is None
-                                                     else t_mne_no_inv / t_ours),
-                      "r_per_band": dict(zip(config.bands.names, r))}
-    return {"values": {"core_over_mne_cov": res["cov"]["ratio"],
-                       "core_over_mne_psd": res["psd"]["ratio"],
-                       "core_min_r": min(min(v["r_per_band"].values()) for v in res.values())},
-            **res,
-            "note": "same clean epochs; core = band cross-spectra + sLORETA power + Brodmann ROI "
-                    "means (median of 10, operator cached); MNE = make_inverse_operator (same "
-                    "forward via to_mne_forward, identity noise covariance, fixed orientation) "
-                    "+ its route, ROI means not counted; 'without make_inverse' beside it"}
+            t_mne_no_inv = None  # not measured in quick mode (a second multi-second run)
+        r = [
+            float(np.corrcoef(power_ours[i], power_mne[i])[0, 1])
+            for i in range(len(config.bands.names))
+        ]
+        res[route] = {
+            "minutes": minutes,
+            "n_epochs": n_ep,
+            "core_s": t_ours,
+            "mne_s": _median(t_mne),
+            "mne_runs_s": t_mne,
+            "ratio": _median(t_mne) / t_ours,
+            "mne_without_make_inverse_s": t_mne_no_inv,
+            "ratio_without_make_inverse": (None if t_mne_no_inv is None else t_mne_no_inv / t_ours),
+            "r_per_band": dict(zip(config.bands.names, r)),
+        }
+    return {
+        "values": {
+            "core_over_mne_cov": res["cov"]["ratio"],
+            "core_over_mne_psd": res["psd"]["ratio"],
+            "core_min_r": min(min(v["r_per_band"].values()) for v in res.values()),
+        },
+        **res,
+        "note": "same clean epochs; core = band cross-spectra + sLORETA power + Brodmann ROI "
+        "means (median of 10, operator cached); MNE = make_inverse_operator (same "
+        "forward via to_mne_forward, identity noise covariance, fixed orientation) "
+        "+ its route, ROI means not counted; 'without make_inverse' beside it",
+    }
 
 
 def step_batch(opts) -> dict:
@@ -459,22 +545,31 @@ def step_batch(opts) -> dict:
         for kind, w in runs:
             t0 = time.perf_counter()
             with make_engine(kind, workers=w) as engine:
-                summary = run_batch(items, Path(d) / f"out_{kind}{w}", engine=engine,
-                                    progress=False)
+                summary = run_batch(
+                    items, Path(d) / f"out_{kind}{w}", engine=engine, progress=False
+                )
             wall = time.perf_counter() - t0
             res[f"{kind}_{w}"] = {
-                "wall_s": wall, "recordings_per_min": 60.0 * n / wall,
+                "wall_s": wall,
+                "recordings_per_min": 60.0 * n / wall,
                 "failed": summary.count("failed"),
                 "max_peak_rss_mb": max(o.peak_rss_mb for o in summary.outcomes),
-                "load": _load()}
-    values = {"batch_speedup_2": res["processes_2"]["recordings_per_min"]
-              / res["processes_1"]["recordings_per_min"]}
+                "load": _load(),
+            }
+    values = {
+        "batch_speedup_2": res["processes_2"]["recordings_per_min"]
+        / res["processes_1"]["recordings_per_min"]
+    }
     if "dask_2" in res:
-        values["dask_over_pool"] = (res["dask_2"]["recordings_per_min"]
-                                    / res["processes_2"]["recordings_per_min"])
-    return {"values": values, **res,
-            "note": "run_batch as `sourcelab batch` (tables only, default configuration); wall "
-                    "includes starting the workers"}
+        values["dask_over_pool"] = (
+            res["dask_2"]["recordings_per_min"] / res["processes_2"]["recordings_per_min"]
+        )
+    return {
+        "values": values,
+        **res,
+        "note": "run_batch as `sourcelab batch` (tables only, default configuration); wall "
+        "includes starting the workers",
+    }
 
 
 def step_headmodel(opts) -> dict:
@@ -522,14 +617,22 @@ def step_norms(opts) -> dict:
     return {"values": {}, **res, "growth_200_over_100": res["n200_s"] / res["n100_s"]}
 
 
-STEPS = {"startup": step_startup, "atlas_list": step_atlas_list, "analyze_10": step_analyze_10,
-         "analyze_60": step_analyze_60, "exponent": step_exponent,
-         "core_vs_mne": step_core_vs_mne, "batch": step_batch,
-         "headmodel": step_headmodel, "norms": step_norms}
+STEPS = {
+    "startup": step_startup,
+    "atlas_list": step_atlas_list,
+    "analyze_10": step_analyze_10,
+    "analyze_60": step_analyze_60,
+    "exponent": step_exponent,
+    "core_vs_mne": step_core_vs_mne,
+    "batch": step_batch,
+    "headmodel": step_headmodel,
+    "norms": step_norms,
+}
 FULL_ONLY = ("headmodel", "norms")
 
 
 # ------------------------------------------------------------------------------ reporting
+
 
 def _met(key: str, value: float) -> bool:
     _, target, _, cmp = GOALS[key]
@@ -552,31 +655,45 @@ def _fmt_value(key: str, value: float) -> str:
 def goal_line(key: str, value: float, load: float) -> str:
     desc, target, unit, cmp = GOALS[key]
     tgt = f"{cmp} {_fmt_value(key, target)}".replace("<=", "≤").replace(">=", "≥")
-    return (f"| {desc} | {tgt} | **{_fmt_value(key, value)}** | "
-            f"{'met' if _met(key, value) else 'NOT met'} | {load:.1f} |")
+    return (
+        f"| {desc} | {tgt} | **{_fmt_value(key, value)}** | "
+        f"{'met' if _met(key, value) else 'NOT met'} | {load:.1f} |"
+    )
 
 
 def render(doc: dict) -> str:
-    L = ["# sourcelab benchmark results (issue 19 goals)", "",
-         f"Run {doc['started']} ({doc['mode']} mode); {doc['machine']}; sourcelab "
-         f"{doc['sourcelab']} from `{doc['sourcelab_path']}`.", "",
-         "Ratios compare numbers measured in the same run.  The machine is shared: the "
-         "1-minute load average when each step finished is beside each value (2 cores).", "",
-         *([f"Note: {doc['notes']}", ""] if doc.get("notes") else []),
-         "| goal | target | today | | load |", "|---|---|---|---|---|"]
+    L = [
+        "# sourcelab benchmark results (issue 19 goals)",
+        "",
+        f"Run {doc['started']} ({doc['mode']} mode); {doc['machine']}; sourcelab "
+        f"{doc['sourcelab']} from `{doc['sourcelab_path']}`.",
+        "",
+        "Ratios compare numbers measured in the same run.  The machine is shared: the "
+        "1-minute load average when each step finished is beside each value (2 cores).",
+        "",
+        *([f"Note: {doc['notes']}", ""] if doc.get("notes") else []),
+        "| goal | target | today | | load |",
+        "|---|---|---|---|---|",
+    ]
     for name, step in doc["steps"].items():
         for key, value in step.get("values", {}).items():
             L.append(goal_line(key, value, step["load_end"]))
     L += [""]
-    missed = [(k, v) for step in doc["steps"].values()
-              for k, v in step.get("values", {}).items() if not _met(k, v)]
+    missed = [
+        (k, v)
+        for step in doc["steps"].values()
+        for k, v in step.get("values", {}).items()
+        if not _met(k, v)
+    ]
     if missed:
         L += ["Goals not met, by how much and why:", ""]
         for k, v in missed:
             target = GOALS[k][1]
             by = v / target if GOALS[k][3] == "<=" else target / v if v else float("inf")
-            L.append(f"- {GOALS[k][0]}: {_fmt_value(k, v)} against {_fmt_value(k, target)}, "
-                     f"missed by a factor {by:.2f}. {WHY.get(k, '')}".rstrip())
+            L.append(
+                f"- {GOALS[k][0]}: {_fmt_value(k, v)} against {_fmt_value(k, target)}, "
+                f"missed by a factor {by:.2f}. {WHY.get(k, '')}".rstrip()
+            )
         L.append("")
     for name, step in doc["steps"].items():
         L.append(f"## {name}")
@@ -602,8 +719,10 @@ def _short(v) -> str:
 
 
 def _write(doc: dict, out: Path) -> None:
-    for suffix, text in ((".json", json.dumps(doc, indent=2, default=float)),
-                         (".md", render(doc) + "\n")):
+    for suffix, text in (
+        (".json", json.dumps(doc, indent=2, default=float)),
+        (".md", render(doc) + "\n"),
+    ):
         p = out.with_suffix(suffix)
         tmp = p.with_name(p.name + ".part")
         tmp.write_text(text, encoding="utf-8")
@@ -614,14 +733,18 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     mode = ap.add_mutually_exclusive_group()
     mode.add_argument("--quick", action="store_true", help="quick mode (the default)")
-    mode.add_argument("--full", action="store_true",
-                      help="10-min compute_source_psd, more repeats, 40-recording batch, "
-                           "head-model and norms steps")
+    mode.add_argument(
+        "--full",
+        action="store_true",
+        help="10-min compute_source_psd, more repeats, 40-recording batch, "
+        "head-model and norms steps",
+    )
     ap.add_argument("--only", help="comma-separated steps: " + ", ".join(STEPS))
     ap.add_argument("--out", default=str(HERE / "results"), help="results path stem")
     ap.add_argument("--note", help="a remark about the run, printed in results.md")
-    ap.add_argument("--render-only", action="store_true",
-                    help="rewrite OUT.md from OUT.json (no measurement)")
+    ap.add_argument(
+        "--render-only", action="store_true", help="rewrite OUT.md from OUT.json (no measurement)"
+    )
     args = ap.parse_args(argv)
     if args.render_only:
         out = Path(args.out)
@@ -632,8 +755,11 @@ def main(argv=None) -> int:
         out.with_suffix(".md").write_text(render(doc) + "\n", encoding="utf-8")
         return 0
     args.reps = 5 if args.full else 3
-    names = [s.strip() for s in args.only.split(",")] if args.only else [
-        s for s in STEPS if args.full or s not in FULL_ONLY]
+    names = (
+        [s.strip() for s in args.only.split(",")]
+        if args.only
+        else [s for s in STEPS if args.full or s not in FULL_ONLY]
+    )
     unknown = [s for s in names if s not in STEPS]
     if unknown:
         ap.error(f"--only: unknown step(s) {', '.join(unknown)}; choose from {', '.join(STEPS)}")
@@ -642,13 +768,16 @@ def main(argv=None) -> int:
     import sourcelab
 
     logging.getLogger("sourcelab").setLevel(logging.ERROR)
-    doc = {"started": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-           "mode": "full" if args.full else "quick",
-           "machine": f"{platform.machine()}, {os.cpu_count()} cores, Python "
-                      f"{platform.python_version()}, load average at start {_load():.1f}",
-           "sourcelab": sourcelab.__version__,
-           "sourcelab_path": str(Path(sourcelab.__file__).parent),
-           "notes": args.note or "", "steps": {}}
+    doc = {
+        "started": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+        "mode": "full" if args.full else "quick",
+        "machine": f"{platform.machine()}, {os.cpu_count()} cores, Python "
+        f"{platform.python_version()}, load average at start {_load():.1f}",
+        "sourcelab": sourcelab.__version__,
+        "sourcelab_path": str(Path(sourcelab.__file__).parent),
+        "notes": args.note or "",
+        "steps": {},
+    }
     out = Path(args.out)
     print("| goal | target | today | | load |\n|---|---|---|---|---|", flush=True)
     t_all = time.perf_counter()
@@ -664,14 +793,16 @@ def main(argv=None) -> int:
         step["seconds"] = time.perf_counter() - t0
         step["load_end"] = _load()
         doc["steps"][name] = step
-        _write(doc, out)                     # saved as each step completes
+        _write(doc, out)  # saved as each step completes
         for key, value in step["values"].items():
             print(goal_line(key, value, step["load_end"]), flush=True)
     doc["total_s"] = time.perf_counter() - t_all
     doc["machine"] += f", at end {_load():.1f}"
     _write(doc, out)
-    print(f"{doc['total_s']:.0f} s; wrote {out.with_suffix('.json')} and {out.with_suffix('.md')}",
-          file=sys.stderr)
+    print(
+        f"{doc['total_s']:.0f} s; wrote {out.with_suffix('.json')} and {out.with_suffix('.md')}",
+        file=sys.stderr,
+    )
     return 1 if failed else 0
 
 

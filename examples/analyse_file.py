@@ -29,23 +29,40 @@ def main(argv=None) -> int:
         from sourcelab import demo
 
         folder = Path(tempfile.mkdtemp(prefix="sourcelab-example-"))
-        recording = demo.write_edf(demo.demo_recording(), folder / "demo-01_invented_eeg.edf",
-                                   description="INVENTED demo recording")
+        recording = demo.write_edf(
+            demo.demo_recording(),
+            folder / "demo-01_invented_eeg.edf",
+            description="INVENTED demo recording",
+        )
         age, norms, condition = demo.DEMO_AGE, demo.demo_norms_path(), demo.DEMO_CONDITION
     else:
         recording, age, norms, condition = args.recording, args.age, args.norms, args.condition
 
-    config = sourcelab.AnalysisConfig()          # every parameter that changes the numbers
-    result = sourcelab.analyze(recording, config=config, age=age, norms=norms,
-                               condition=condition)
+    config = sourcelab.AnalysisConfig()  # every parameter that changes the numbers
+    result = sourcelab.analyze(recording, config=config, age=age, norms=norms, condition=condition)
     print(result.summary())
-    if result.candidates is not None:             # ranked deviations (with norms only)
-        cols = [c for c in ("rank", "band", "measure", "direction", "area", "hemisphere",
-                            "peak_z", "probability") if c in result.candidates.columns]
+    if result.candidates is not None:  # ranked deviations (with norms only)
+        cols = [
+            c
+            for c in (
+                "rank",
+                "band",
+                "measure",
+                "direction",
+                "area",
+                "hemisphere",
+                "peak_z",
+                "probability",
+            )
+            if c in result.candidates.columns
+        ]
         print(result.candidates[cols].head(5).to_string(index=False))
-    t = result.roi_table                          # tidy: atlas x area x band x measure
-    print(t[(t.atlas == "lobes") & (t.band == "alpha") & (t.measure == "absolute")]
-          [["roi", "hemisphere", "value"]].to_string(index=False))
+    t = result.roi_table  # tidy: atlas x area x band x measure
+    print(
+        t[(t.atlas == "lobes") & (t.band == "alpha") & (t.measure == "absolute")][
+            ["roi", "hemisphere", "value"]
+        ].to_string(index=False)
+    )
     out = Path(args.out or tempfile.mkdtemp(prefix="sourcelab-result-")) / "result"
     result.write(out, figures=False, report=False, maps=False)  # tables + provenance
     print(f"wrote {out}")

@@ -31,11 +31,19 @@ def main(argv=None) -> int:
 
     items = discover([data])
     with make_engine(args.engine, workers=2) as engine:
-        summary = run_batch(items, work / "results", engine=engine,
-                            config=AnalysisConfig(n_boot=0), figures=False, report=False,
-                            exports=False)
-    print(f"{summary.count('done')} done, {len(summary.failures)} failed; group table "
-          f"{summary.tables['roi']}")
+        summary = run_batch(
+            items,
+            work / "results",
+            engine=engine,
+            config=AnalysisConfig(n_boot=0),
+            figures=False,
+            report=False,
+            exports=False,
+        )
+    print(
+        f"{summary.count('done')} done, {len(summary.failures)} failed; group table "
+        f"{summary.tables['roi']}"
+    )
     return summary.exit_code
 
 

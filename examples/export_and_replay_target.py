@@ -26,20 +26,33 @@ def main(argv=None) -> int:
     work = Path(args.out or tempfile.mkdtemp(prefix="sourcelab-target-"))
     work.mkdir(parents=True, exist_ok=True)
 
-    edf = demo.write_edf(demo.demo_recording(), work / "demo-01_invented_eeg.edf",
-                         description="INVENTED demo recording")
-    result = sourcelab.analyze(edf, age=demo.DEMO_AGE, norms=demo.demo_norms_path(),
-                               condition=demo.DEMO_CONDITION)
+    edf = demo.write_edf(
+        demo.demo_recording(),
+        work / "demo-01_invented_eeg.edf",
+        description="INVENTED demo recording",
+    )
+    result = sourcelab.analyze(
+        edf, age=demo.DEMO_AGE, norms=demo.demo_norms_path(), condition=demo.DEMO_CONDITION
+    )
     result.write(work / "analysis", figures=False, report=False, maps=False)
     best = result.candidates.iloc[0]  # ranked by the peaks of the per-source z-maps
-    print(f"first candidate: {best['area']} {best['hemisphere']} {best['band']} "
-          f"{best['measure']} power, peak z = {best['peak_z']:+.2f}")
-    target = export_target(work / "analysis", roi=best["area"], hemisphere=best["hemisphere"],
-                           band=best["band"], measure=best["measure"])
+    print(
+        f"first candidate: {best['area']} {best['hemisphere']} {best['band']} "
+        f"{best['measure']} power, peak z = {best['peak_z']:+.2f}"
+    )
+    target = export_target(
+        work / "analysis",
+        roi=best["area"],
+        hemisphere=best["hemisphere"],
+        band=best["band"],
+        measure=best["measure"],
+    )
     write_target(target, work / "target.json")
     replayed = replay_recording(read_target(work / "target.json"), edf, work / "replay")
-    print(f"replayed {replayed['n_clean']} clean windows; mean power "
-          f"{replayed['clean_mean_power']:.4g} vs offline {replayed['offline_value']:.4g}")
+    print(
+        f"replayed {replayed['n_clean']} clean windows; mean power "
+        f"{replayed['clean_mean_power']:.4g} vs offline {replayed['offline_value']:.4g}"
+    )
     return 0
 
 

@@ -20,8 +20,14 @@ from .config import AnalysisConfig, check_sampling_rate
 from .constants import UNITS
 from .errors import InputError
 from .provenance import Fingerprint
-from .result import (ROI_COLUMNS, SENSOR_COLUMNS, AnalysisResult, NormsInfo, QualitySummary,
-                     RecordingInfo)
+from .result import (
+    ROI_COLUMNS,
+    SENSOR_COLUMNS,
+    AnalysisResult,
+    NormsInfo,
+    QualitySummary,
+    RecordingInfo,
+)
 
 log = logging.getLogger("sourcelab")
 
@@ -34,8 +40,17 @@ BLAS_THREADS = 1
 #: Atlases reported by default.
 DEFAULT_ATLASES = ("brodmann", "lobes", "networks", "yeo7")
 #: Stages shown by the progress bar.
-STAGES = ("reading", "cleaning", "cross-spectra", "sources", "areas", "coupling", "z-scores",
-          "intervals", "candidates")
+STAGES = (
+    "reading",
+    "cleaning",
+    "cross-spectra",
+    "sources",
+    "areas",
+    "coupling",
+    "z-scores",
+    "intervals",
+    "candidates",
+)
 
 
 def fingerprint_for(config: AnalysisConfig, headmodel_sha256: str | None = None) -> Fingerprint:
@@ -60,8 +75,9 @@ def fingerprint_for(config: AnalysisConfig, headmodel_sha256: str | None = None)
         method=config.method,
         orientation=config.orientation,
         lambda2=config.lambda2,
-        bands=tuple((n, float(lo), float(hi)) for n, (lo, hi) in
-                    zip(config.bands.names, config.bands.edges)),
+        bands=tuple(
+            (n, float(lo), float(hi)) for n, (lo, hi) in zip(config.bands.names, config.bands.edges)
+        ),
         reference="average",
         epoch_s=float(config.epoch_s),
     )
@@ -79,9 +95,21 @@ def _roi_table(atlases, src_abs: np.ndarray, src_rel: np.ndarray, band_names, re
             for b, band in enumerate(band_names):
                 for r, roi in enumerate(atlas.rois):
                     ok = resolvable.get(roi.name, True) if atlas.name == "brodmann" else True
-                    rows.append((atlas.name, roi.name, roi.hemisphere, band, measure,
-                                 float(vals[b, r]), UNITS[measure], int(len(roi.vertices)),
-                                 bool(roi.small), bool(ok), np.nan))
+                    rows.append(
+                        (
+                            atlas.name,
+                            roi.name,
+                            roi.hemisphere,
+                            band,
+                            measure,
+                            float(vals[b, r]),
+                            UNITS[measure],
+                            int(len(roi.vertices)),
+                            bool(roi.small),
+                            bool(ok),
+                            np.nan,
+                        )
+                    )
     return pd.DataFrame(rows, columns=list(ROI_COLUMNS))
 
 
@@ -109,8 +137,13 @@ def _coupling(clean, model, op, config: AnalysisConfig):
     -------
     pair_table, coupling_table : DataFrame
     """
-    from .coupling import coupling_table, independent_source_covariance, network_coupling, \
-        pair_table, sensor_coupling
+    from .coupling import (
+        coupling_table,
+        independent_source_covariance,
+        network_coupling,
+        pair_table,
+        sensor_coupling,
+    )
     from .rois import load_atlas
     from .spectra import epoch_fourier
 
@@ -122,12 +155,18 @@ def _coupling(clean, model, op, config: AnalysisConfig):
     boot = dict(n_boot=config.coupling_n_boot, seed=config.boot_seed, ci=config.ci)
     sc = sensor_coupling(spec, freqs, bands, model.ch_names, model.ch_pos, null_cov=c0, **boot)
     atlases = [load_atlas(a) for a in config.coupling_atlases]
-    ecs = network_coupling(spec, plain, freqs, bands, op, atlases, null_cov=c0,
-                           normals=model.src_nn, **boot)
+    ecs = network_coupling(
+        spec, plain, freqs, bands, op, atlases, null_cov=c0, normals=model.src_nn, **boot
+    )
     pt, ct = pair_table(sc), coupling_table(ecs)
-    meta = {"method": "percentile", "unit": "clean epoch", "n_boot": int(config.coupling_n_boot),
-            "seed": int(config.boot_seed), "ci": float(config.ci),
-            "n_epochs": int(sc.n_epochs)}
+    meta = {
+        "method": "percentile",
+        "unit": "clean epoch",
+        "n_boot": int(config.coupling_n_boot),
+        "seed": int(config.boot_seed),
+        "ci": float(config.ci),
+        "n_epochs": int(sc.n_epochs),
+    }
     for t in (pt, ct):
         t.attrs["bootstrap"] = meta if config.coupling_n_boot else None
     return pt, ct
@@ -149,9 +188,11 @@ def _epochs_note(nm, n_epochs: int) -> str | None:
         return None
     if not med > 0 or abs(n_epochs / med - 1.0) <= EPOCHS_TOLERANCE:
         return None
-    return (f"{n_epochs} clean epochs against a median of {med:.0f} in the norms' cohort: "
-            "coherence-type coupling z-scores (msc, lagcoh, lps, wpli) shift with recording "
-            "length; compare recordings of similar clean duration")
+    return (
+        f"{n_epochs} clean epochs against a median of {med:.0f} in the norms' cohort: "
+        "coherence-type coupling z-scores (msc, lagcoh, lps, wpli) shift with recording "
+        "length; compare recordings of similar clean duration"
+    )
 
 
 def _in_domain(values: np.ndarray, transform) -> np.ndarray:
@@ -160,12 +201,14 @@ def _in_domain(values: np.ndarray, transform) -> np.ndarray:
         transform.forward(values)
         return np.ones(values.shape, dtype=bool)
     except InputError:
+
         def one(v):
             try:
                 transform.forward(np.array([v]))
                 return True
             except InputError:
                 return False
+
         return np.array([one(v) for v in values], dtype=bool)
 
 
@@ -188,10 +231,14 @@ def _coupling_z(table, nm, kind: str, opts: dict):
         sel = np.flatnonzero(rows.transform == name)
         ok[sel] = _in_domain(value[sel], get_transform(name))
     if not ok.all():
-        log.warning("%d %s values lie on the edge of their measure's range: z left empty",
-                    int((~ok).sum()), kind)
-    out = apply_norms(table.assign(value=np.where(ok, value, np.nan)), nm, kind=kind,
-                      rows=rows, **opts)
+        log.warning(
+            "%d %s values lie on the edge of their measure's range: z left empty",
+            int((~ok).sum()),
+            kind,
+        )
+    out = apply_norms(
+        table.assign(value=np.where(ok, value, np.nan)), nm, kind=kind, rows=rows, **opts
+    )
     out["value"] = table["value"].to_numpy()
     z = out["z"].to_numpy(dtype=float)
     value = out["value"].to_numpy(dtype=float)
@@ -203,18 +250,28 @@ def _coupling_z(table, nm, kind: str, opts: dict):
         if tr.period is not None:
             sel = rows.transform == name
             for arr, col in ((lo, "value_lo"), (hi, "value_hi")):
-                arr[sel] = z[sel] + (out[col].to_numpy(dtype=float)[sel] - value[sel]) \
-                    / rows.sd[sel]
+                arr[sel] = (
+                    z[sel] + (out[col].to_numpy(dtype=float)[sel] - value[sel]) / rows.sd[sel]
+                )
     out["z_lo"], out["z_hi"] = np.fmin(lo, hi), np.fmax(lo, hi)
     out["robust"] = pd.array(robust_flags(z, out["z_lo"], out["z_hi"]))
     return out
 
 
-def analyze(recording, *, config: AnalysisConfig | None = None, age: float | None = None,
-            norms=None, condition: str | None = None, atlases: tuple[str, ...] | None = None,
-            custom_rois=None, select=None, allow_extrapolation: bool = False,
-            allow_condition_mismatch: bool = False,
-            progress: bool | None = False) -> AnalysisResult:
+def analyze(
+    recording,
+    *,
+    config: AnalysisConfig | None = None,
+    age: float | None = None,
+    norms=None,
+    condition: str | None = None,
+    atlases: tuple[str, ...] | None = None,
+    custom_rois=None,
+    select=None,
+    allow_extrapolation: bool = False,
+    allow_condition_mismatch: bool = False,
+    progress: bool | None = False,
+) -> AnalysisResult:
     """Analyse one recording end to end.
 
     Parameters
@@ -259,8 +316,14 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
     from .inverse import inverse_operator
     from .progress import Stages
     from .rois import load_atlas
-    from .spectra import (average_reference, broadband_cross_spectra, check_bands_within,
-                          epoch_cross_spectra, relative_power, sensor_band_power)
+    from .spectra import (
+        average_reference,
+        broadband_cross_spectra,
+        check_bands_within,
+        epoch_cross_spectra,
+        relative_power,
+        sensor_band_power,
+    )
     from .trust.resolvability import resolvable_areas
 
     t0 = time.perf_counter()
@@ -272,12 +335,13 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
 
         nm = norms if not isinstance(norms, (str, Path)) else read_norms(norms)
         if age is None:
-            raise InputError("the participant's age is needed with norms (z-scores depend "
-                             "on age)")
+            raise InputError("the participant's age is needed with norms (z-scores depend on age)")
     from threadpoolctl import threadpool_limits
 
-    with threadpool_limits(BLAS_THREADS), Stages(STAGES, desc="analysis",
-                                                  enabled=progress) as stages:
+    with (
+        threadpool_limits(BLAS_THREADS),
+        Stages(STAGES, desc="analysis", enabled=progress) as stages,
+    ):
         stages.step("reading")
         rec = recording if isinstance(recording, Recording) else read_recording(recording)
         check_sampling_rate(config, rec.sfreq, where=rec.path)
@@ -289,8 +353,9 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
             rec = dataclasses.replace(rec, raw=None, eog_uv=None)
         model = load_head_model()
         if tuple(clean.ch_names) != tuple(model.ch_names):
-            raise InputError(f"channels {clean.ch_names} do not match the head model's "
-                             f"{model.ch_names}")
+            raise InputError(
+                f"channels {clean.ch_names} do not match the head model's {model.ch_names}"
+            )
         stages.step("cross-spectra")
         check_bands_within(config.bands)
         csd_epochs = epoch_cross_spectra(clean.epochs, clean.sfreq, config.bands)
@@ -307,8 +372,9 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         atlas_objs = tuple(load_atlas(a) for a in (atlases or DEFAULT_ATLASES))
         if custom_rois is not None:
             atlas_objs += (custom_rois,)
-        roi_table = _roi_table(atlas_objs, src_abs, src_rel, names,
-                               resolvable_areas(config.lambda2))
+        roi_table = _roi_table(
+            atlas_objs, src_abs, src_rel, names, resolvable_areas(config.lambda2)
+        )
         sensor_table = _sensor_table(clean.ch_names, sens_abs, sens_rel, names)
         fp = fingerprint_for(config, model.sha256)
         slow = _slow_maximum(src_abs, names, model)
@@ -324,9 +390,13 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
         if nm is not None:
             from .norms import apply_norms, match_norms
 
-            opts = dict(age=age, fingerprint=fp, condition=condition,
-                        allow_extrapolation=allow_extrapolation,
-                        allow_condition_mismatch=allow_condition_mismatch)
+            opts = dict(
+                age=age,
+                fingerprint=fp,
+                condition=condition,
+                allow_extrapolation=allow_extrapolation,
+                allow_condition_mismatch=allow_condition_mismatch,
+            )
             roi_rows = match_norms(roi_table, nm, kind="roi", **opts)
             sensor_rows = match_norms(sensor_table, nm, kind="sensor", **opts)
             roi_table = apply_norms(roi_table, nm, kind="roi", rows=roi_rows, **opts)
@@ -338,8 +408,10 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
                     continue
                 scored = _coupling_z(table, nm, kind, opts)
                 if scored is None:
-                    notes.append(f"the norms hold no {kind} rows: {what} z-scores are left "
-                                 "empty (norms built by this sourcelab version include them)")
+                    notes.append(
+                        f"the norms hold no {kind} rows: {what} z-scores are left "
+                        "empty (norms built by this sourcelab version include them)"
+                    )
                     log.warning("%s", notes[-1])
                 else:
                     scored_any = True
@@ -351,30 +423,42 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
             if note:
                 notes.append(note)
                 log.warning("%s", note)
-            norms_info = NormsInfo(path=None if nm.path is None else str(nm.path),
-                                   sha256=nm.sha256, condition=nm.condition,
-                                   cohort=dict(nm.cohort), n_rows=int(len(nm.table)),
-                                   fingerprint=nm.fingerprint)
+            norms_info = NormsInfo(
+                path=None if nm.path is None else str(nm.path),
+                sha256=nm.sha256,
+                condition=nm.condition,
+                cohort=dict(nm.cohort),
+                n_rows=int(len(nm.table)),
+                fingerprint=nm.fingerprint,
+            )
         stages.step("intervals")
         if config.n_boot:
             from .trust import add_intervals, add_sensor_intervals
 
-            kw = dict(n_boot=config.n_boot, seed=config.boot_seed, ci=config.ci, band_names=names,
-                      epoch_total=total_epochs)
-            roi_table = add_intervals(roi_table, csd_epochs, op, atlas_objs, norm_rows=roi_rows,
-                                      **kw)
-            sensor_table = add_sensor_intervals(sensor_table, csd_epochs,
-                                                ch_names=clean.ch_names, norm_rows=sensor_rows,
-                                                **kw)
+            kw = dict(
+                n_boot=config.n_boot,
+                seed=config.boot_seed,
+                ci=config.ci,
+                band_names=names,
+                epoch_total=total_epochs,
+            )
+            roi_table = add_intervals(
+                roi_table, csd_epochs, op, atlas_objs, norm_rows=roi_rows, **kw
+            )
+            sensor_table = add_sensor_intervals(
+                sensor_table, csd_epochs, ch_names=clean.ch_names, norm_rows=sensor_rows, **kw
+            )
         stages.step("candidates")
         from .trust import leakage_for, leakage_hints
 
-        leak = leakage_for("brodmann", method=config.method, orientation=config.orientation,
-                           lambda2=config.lambda2)
+        leak = leakage_for(
+            "brodmann", method=config.method, orientation=config.orientation, lambda2=config.lambda2
+        )
         candidates = hints = source_z = None
         if nm is not None:
-            source_z = _source_z_maps(nm, fp, src_abs, src_rel, age=float(age),
-                                      allow_extrapolation=allow_extrapolation)
+            source_z = _source_z_maps(
+                nm, fp, src_abs, src_rel, age=float(age), allow_extrapolation=allow_extrapolation
+            )
             if source_z is not None:
                 from .targets.peaks import peak_candidates_for
 
@@ -383,35 +467,67 @@ def analyze(recording, *, config: AnalysisConfig | None = None, age: float | Non
             else:
                 from .targets import candidates_for_table
 
-                log.warning("%s has no per-source norms beside it: candidates are areas ranked "
-                            "by their mean, not by the peaks of a z-map", nm.path or "norms")
+                log.warning(
+                    "%s has no per-source norms beside it: candidates are areas ranked "
+                    "by their mean, not by the peaks of a z-map",
+                    nm.path or "norms",
+                )
                 candidates = candidates_for_table(roi_table)
             hints = leakage_hints(roi_table[roi_table["atlas"] == "brodmann"], leak)
     recording_info = RecordingInfo(
-        path=str(rec.path) if rec.path else None, sha256=rec.sha256, sfreq=float(rec.sfreq),
-        duration_s=float(rec.duration_s), channel_map=dict(rec.channel_map),
-        original_reference=rec.original_reference, interpolated=tuple(rec.interpolated),
-        annotations=tuple(rec.annotations), age=None if age is None else float(age),
-        condition=condition)
+        path=str(rec.path) if rec.path else None,
+        sha256=rec.sha256,
+        sfreq=float(rec.sfreq),
+        duration_s=float(rec.duration_s),
+        channel_map=dict(rec.channel_map),
+        original_reference=rec.original_reference,
+        interpolated=tuple(rec.interpolated),
+        annotations=tuple(rec.annotations),
+        age=None if age is None else float(age),
+        condition=condition,
+    )
     # clean.warnings already holds the recording's warnings: keep each warning once
     slow_warning = (slow["warning"],) if slow is not None and slow["warning"] else ()
-    warnings = tuple(dict.fromkeys(tuple(rec.warnings) + tuple(clean.warnings) + slow_warning
-                                   + tuple(notes)))
+    warnings = tuple(
+        dict.fromkeys(tuple(rec.warnings) + tuple(clean.warnings) + slow_warning + tuple(notes))
+    )
     log.info("analysis done in %.2f s", time.perf_counter() - t0)
-    return AnalysisResult(config=config, fingerprint=fp, ch_names=tuple(clean.ch_names),
-                          source_abs=src_abs.astype(np.float32),
-                          source_rel=src_rel.astype(np.float32),
-                          sensor_abs=sens_abs, sensor_rel=sens_rel, roi_table=roi_table,
-                          sensor_table=sensor_table, quality=quality, recording=recording_info,
-                          norms=norms_info, warnings=warnings, atlases=atlas_objs, leakage=leak,
-                          candidates=candidates, leakage_hints=hints, epoch_csd=csd_epochs,
-                          epoch_onsets_s=np.asarray(clean.epoch_onsets_s, dtype=float),
-                          epoch_total=total_epochs, source_z=source_z,
-                          pair_table=pair_table, coupling_table=coupling_table)
+    return AnalysisResult(
+        config=config,
+        fingerprint=fp,
+        ch_names=tuple(clean.ch_names),
+        source_abs=src_abs.astype(np.float32),
+        source_rel=src_rel.astype(np.float32),
+        sensor_abs=sens_abs,
+        sensor_rel=sens_rel,
+        roi_table=roi_table,
+        sensor_table=sensor_table,
+        quality=quality,
+        recording=recording_info,
+        norms=norms_info,
+        warnings=warnings,
+        atlases=atlas_objs,
+        leakage=leak,
+        candidates=candidates,
+        leakage_hints=hints,
+        epoch_csd=csd_epochs,
+        epoch_onsets_s=np.asarray(clean.epoch_onsets_s, dtype=float),
+        epoch_total=total_epochs,
+        source_z=source_z,
+        pair_table=pair_table,
+        coupling_table=coupling_table,
+    )
 
 
-def _source_z_maps(norms, fp: Fingerprint, src_abs: np.ndarray, src_rel: np.ndarray, *,
-                   age: float, allow_extrapolation: bool) -> dict | None:
+def _source_z_maps(
+    norms,
+    fp: Fingerprint,
+    src_abs: np.ndarray,
+    src_rel: np.ndarray,
+    *,
+    age: float,
+    allow_extrapolation: bool,
+) -> dict | None:
     """Per-source predictive z-maps against the per-source norms beside ``norms`` (or None when
     there are none): ``{"absolute": (n_bands, n_src), "relative": (n_bands, n_src)}``."""
     from .norms.source_norms import read_source_norms, source_norms_path, source_z
@@ -425,12 +541,18 @@ def _source_z_maps(norms, fp: Fingerprint, src_abs: np.ndarray, src_rel: np.ndar
     lo, hi = sn.age_range
     if not lo <= age <= hi:
         if not allow_extrapolation:
-            raise InputError(f"age {age:g} y is outside the per-source norms' age range "
-                             f"({lo:g}-{hi:g} y); allow extrapolation explicitly to z-score "
-                             "anyway", path=path)
+            raise InputError(
+                f"age {age:g} y is outside the per-source norms' age range "
+                f"({lo:g}-{hi:g} y); allow extrapolation explicitly to z-score "
+                "anyway",
+                path=path,
+            )
         age = min(max(age, lo), hi)
-    return {m: source_z(sn, v, age=age, measure=m).astype(np.float32)
-            for m, v in (("absolute", src_abs), ("relative", src_rel)) if m in sn.measures}
+    return {
+        m: source_z(sn, v, age=age, measure=m).astype(np.float32)
+        for m, v in (("absolute", src_abs), ("relative", src_rel))
+        if m in sn.measures
+    }
 
 
 @functools.lru_cache(maxsize=2)
@@ -456,8 +578,9 @@ def _slow_maximum(src_abs: np.ndarray, band_names, model) -> dict | None:
     return slow_maximum_check(values, atlas.rois, _confusable(model), band="delta")
 
 
-def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig,
-             slow: dict | None = None) -> QualitySummary:
+def _quality(
+    clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig, slow: dict | None = None
+) -> QualitySummary:
     """Seconds kept/rejected and split-half / test-retest reliability (sensors and areas)."""
     from .intake import reliability_summary
     from .inverse import roi_power_matrices
@@ -477,5 +600,8 @@ def _quality(clean, csd_epochs: np.ndarray, op, atlas, config: AnalysisConfig,
         excluded=tuple(dict(e) for e in clean.excluded),
         ocular=dict(clean.ocular, **({"slow_maximum": slow} if slow is not None else {})),
         cleaning_seconds=dict(clean.timings_s),
-        reliability={"sensors": reliability_summary(sens, names, threshold=thr),
-                     atlas.name: reliability_summary(roi, names, threshold=thr)})
+        reliability={
+            "sensors": reliability_summary(sens, names, threshold=thr),
+            atlas.name: reliability_summary(roi, names, threshold=thr),
+        },
+    )

@@ -29,8 +29,17 @@ from pathlib import Path
 
 from .errors import InputError
 
-__all__ = ["check_option", "check_type", "check_number", "check_path", "check_text",
-           "read_bytes_bounded", "load_json", "loads_json", "walk_json"]
+__all__ = [
+    "check_option",
+    "check_type",
+    "check_number",
+    "check_path",
+    "check_text",
+    "read_bytes_bounded",
+    "load_json",
+    "loads_json",
+    "walk_json",
+]
 
 #: Default size limit of a JSON file a user gives (target definitions with network kernel rows
 #: reach ~25 MB: 18,715 sources x 3 rows x 19 numbers x ~22 characters).
@@ -68,10 +77,8 @@ def check_type(name: str, value, types, *, where=None, type_name: str | None = N
         ``value`` unchanged.
     """
     types = types if isinstance(types, tuple) else (types,)
-    numeric = any(t in (int, float, numbers.Number, numbers.Real, numbers.Integral)
-                  for t in types)
-    if isinstance(value, types) and not (numeric and isinstance(value, bool)
-                                         and bool not in types):
+    numeric = any(t in (int, float, numbers.Number, numbers.Real, numbers.Integral) for t in types)
+    if isinstance(value, types) and not (numeric and isinstance(value, bool) and bool not in types):
         return value
     want = type_name or " or ".join(t.__name__ for t in types)
     raise _fail(name, f"must be {want}, got {_describe(value)}", where)
@@ -128,9 +135,18 @@ def check_option(name: str, value, allowed: Iterable, *, where=None):
     raise _fail(name, f"{_fmt(value)} is not one of {shown}", where)
 
 
-def check_number(name: str, value, *, kind: type = float, low: float | None = None,
-                 high: float | None = None, low_open: bool = False, high_open: bool = False,
-                 none_ok: bool = False, where=None):
+def check_number(
+    name: str,
+    value,
+    *,
+    kind: type = float,
+    low: float | None = None,
+    high: float | None = None,
+    low_open: bool = False,
+    high_open: bool = False,
+    none_ok: bool = False,
+    where=None,
+):
     """A finite real number (or integer) within bounds.
 
     Parameters
@@ -176,8 +192,9 @@ def check_number(name: str, value, *, kind: type = float, low: float | None = No
     below = low is not None and (out <= low if low_open else out < low)
     above = high is not None and (out >= high if high_open else out > high)
     if below or above:
-        raise _fail(name, f"must be {_range_text(low, high, low_open, high_open)}, "
-                          f"got {_fmt(value)}", where)
+        raise _fail(
+            name, f"must be {_range_text(low, high, low_open, high_open)}, got {_fmt(value)}", where
+        )
     return out
 
 
@@ -186,15 +203,15 @@ def _range_text(low, high, low_open, high_open) -> str:
         return f"{v:g}" if isinstance(v, float) else str(v)
 
     if low is not None and high is not None:
-        return (f"{'>' if low_open else '>='} {g(low)} and {'<' if high_open else '<='} "
-                f"{g(high)}")
+        return f"{'>' if low_open else '>='} {g(low)} and {'<' if high_open else '<='} {g(high)}"
     if low is not None:
         return f"{'>' if low_open else '>='} {g(low)}"
     return f"{'<' if high_open else '<='} {g(high)}"
 
 
-def check_text(name: str, value, *, max_len: int = 200, pattern=None, allowed_text: str = "",
-               where=None) -> str:
+def check_text(
+    name: str, value, *, max_len: int = 200, pattern=None, allowed_text: str = "", where=None
+) -> str:
     """A single-line text, at most ``max_len`` characters, optionally matching ``pattern``.
 
     Parameters
@@ -220,17 +237,29 @@ def check_text(name: str, value, *, max_len: int = 200, pattern=None, allowed_te
     if not isinstance(value, str):
         raise _fail(name, f"must be a text, got {_describe(value)}", where)
     if not value.strip() or len(value) > max_len or any(c in value for c in "\r\n\t\0"):
-        raise _fail(name, f"must be a non-empty single-line text of at most {max_len} "
-                          f"characters, got {_fmt(value)}", where)
+        raise _fail(
+            name,
+            f"must be a non-empty single-line text of at most {max_len} "
+            f"characters, got {_fmt(value)}",
+            where,
+        )
     if pattern is not None and not pattern.fullmatch(value):
-        raise _fail(name, f"{_fmt(value)} is not allowed; use {allowed_text or pattern.pattern}",
-                    where)
+        raise _fail(
+            name, f"{_fmt(value)} is not allowed; use {allowed_text or pattern.pattern}", where
+        )
     return value
 
 
-def check_path(name: str, value, *, kind: str = "file", must_exist: bool = True,
-               suffixes: Iterable[str] | None = None, max_bytes: int | None = None,
-               where=None) -> Path:
+def check_path(
+    name: str,
+    value,
+    *,
+    kind: str = "file",
+    must_exist: bool = True,
+    suffixes: Iterable[str] | None = None,
+    max_bytes: int | None = None,
+    where=None,
+) -> Path:
     """An input path: exists, is a file / folder, has an allowed suffix, is not too large.
 
     Parameters
@@ -263,8 +292,9 @@ def check_path(name: str, value, *, kind: str = "file", must_exist: bool = True,
     if suffixes is not None:
         suffixes = tuple(s.lower() for s in suffixes)
         if not text.lower().endswith(suffixes):
-            raise InputError(f"{name}: the name must end in {' or '.join(suffixes)}", path=path,
-                             field=name)
+            raise InputError(
+                f"{name}: the name must end in {' or '.join(suffixes)}", path=path, field=name
+            )
     try:
         st = os.stat(path)
     except FileNotFoundError:
@@ -273,11 +303,11 @@ def check_path(name: str, value, *, kind: str = "file", must_exist: bool = True,
         what = {"file": "file", "dir": "folder", "any": "file or folder"}[kind]
         raise InputError(f"{name}: {what} not found", path=path, field=name) from None
     except NotADirectoryError:
-        raise InputError(f"{name}: a parent of this path is a file, not a folder", path=path,
-                         field=name) from None
+        raise InputError(
+            f"{name}: a parent of this path is a file, not a folder", path=path, field=name
+        ) from None
     except OSError as exc:
-        raise InputError(f"{name}: cannot access ({exc.strerror})", path=path,
-                         field=name) from None
+        raise InputError(f"{name}: cannot access ({exc.strerror})", path=path, field=name) from None
     is_dir = stat.S_ISDIR(st.st_mode)
     if kind == "file" and is_dir:
         raise InputError(f"{name}: is a folder, not a file", path=path, field=name)
@@ -288,8 +318,11 @@ def check_path(name: str, value, *, kind: str = "file", must_exist: bool = True,
     if not os.access(path, os.R_OK | (os.X_OK if is_dir else 0)):
         raise InputError(f"{name}: not readable (permission denied)", path=path, field=name)
     if max_bytes is not None and not is_dir and st.st_size > max_bytes:
-        raise InputError(f"{name}: file of {st.st_size:,} bytes is larger than the "
-                         f"{max_bytes:,}-byte limit", path=path, field=name)
+        raise InputError(
+            f"{name}: file of {st.st_size:,} bytes is larger than the {max_bytes:,}-byte limit",
+            path=path,
+            field=name,
+        )
     return path
 
 
@@ -325,8 +358,10 @@ def read_bytes_bounded(path: str | Path, *, max_bytes: int, what: str = "file") 
             if stat.S_ISDIR(st.st_mode):
                 raise InputError(f"{what} is a folder, not a file", path=path)
             if st.st_size > max_bytes:
-                raise InputError(f"{what} of {st.st_size:,} bytes is larger than the "
-                                 f"{max_bytes:,}-byte limit", path=path)
+                raise InputError(
+                    f"{what} of {st.st_size:,} bytes is larger than the {max_bytes:,}-byte limit",
+                    path=path,
+                )
             data = f.read(max_bytes + 1)
     except FileNotFoundError:
         raise InputError(f"{what} not found", path=path) from None
@@ -367,21 +402,21 @@ def walk_json(obj, *, max_depth: int = JSON_MAX_DEPTH, where=None, what: str = "
         o, depth = stack.pop()
         if isinstance(o, dict):
             if depth > max_depth:
-                raise InputError(f"{what} is nested more than {max_depth} levels deep",
-                                 path=where)
+                raise InputError(f"{what} is nested more than {max_depth} levels deep", path=where)
             stack.extend((v, depth + 1) for v in o.values())
         elif isinstance(o, list):
             if depth > max_depth:
-                raise InputError(f"{what} is nested more than {max_depth} levels deep",
-                                 path=where)
+                raise InputError(f"{what} is nested more than {max_depth} levels deep", path=where)
             stack.extend((v, depth + 1) for v in o)
         elif isinstance(o, float) and not math.isfinite(o):
-            raise InputError(f"{what} holds a number outside the double-precision range",
-                             path=where)
+            raise InputError(
+                f"{what} holds a number outside the double-precision range", path=where
+            )
 
 
-def loads_json(text: str | bytes, *, where=None, max_depth: int = JSON_MAX_DEPTH,
-               what: str = "JSON"):
+def loads_json(
+    text: str | bytes, *, where=None, max_depth: int = JSON_MAX_DEPTH, what: str = "JSON"
+):
     """Parse JSON text strictly: no ``NaN``/``Infinity``, bounded depth, finite numbers.
 
     Parameters
@@ -434,8 +469,13 @@ def _bracket_depth(text: str) -> int:
     return int(np.cumsum(step).max()) if step.size else 0
 
 
-def load_json(path: str | Path, *, max_bytes: int = JSON_MAX_BYTES,
-              max_depth: int = JSON_MAX_DEPTH, what: str = "JSON file"):
+def load_json(
+    path: str | Path,
+    *,
+    max_bytes: int = JSON_MAX_BYTES,
+    max_depth: int = JSON_MAX_DEPTH,
+    what: str = "JSON file",
+):
     """Read and parse a JSON file with :func:`read_bytes_bounded` and :func:`loads_json`.
 
     Parameters

@@ -65,16 +65,22 @@ def find_recording(cohort_dir: str | Path, participant_id: str) -> Path:
             suffix = recording_suffix(f.name)
             if not f.is_file() or suffix is None:
                 continue
-            if any(f.name.lower() == (c + suffix).lower() or f.name.startswith((c + "_", c + "."))
-                   for c in cands):
+            if any(
+                f.name.lower() == (c + suffix).lower() or f.name.startswith((c + "_", c + "."))
+                for c in cands
+            ):
                 found.append(f)
     if not found:
-        raise InputError(f"no recording found for participant {participant_id!r} "
-                         f"(looked for {cands[0]}* with suffix {list(RECORDING_SUFFIXES)})",
-                         path=root)
+        raise InputError(
+            f"no recording found for participant {participant_id!r} "
+            f"(looked for {cands[0]}* with suffix {list(RECORDING_SUFFIXES)})",
+            path=root,
+        )
     if len(found) > 1:
-        raise InputError(f"several recordings for participant {participant_id!r}: "
-                         f"{[f.name for f in found]}", path=root)
+        raise InputError(
+            f"several recordings for participant {participant_id!r}: {[f.name for f in found]}",
+            path=root,
+        )
     return found[0]
 
 
@@ -109,16 +115,31 @@ def _cohort_tables(task):
     path, config, age = task
     # norms need the values only: no bootstrap intervals (they do not change any value)
     res = analyze(path, config=config.replace(n_boot=0, coupling_n_boot=0), age=age)
-    return (slim_table(res.roi_table, "roi"), slim_table(res.sensor_table, "sensor"),
-            res.fingerprint, slim_table(res.pair_table, "pair"),
-            slim_table(res.coupling_table, "edge"), res.quality.n_epochs,
-            {"absolute": res.source_abs, "relative": res.source_rel})
+    return (
+        slim_table(res.roi_table, "roi"),
+        slim_table(res.sensor_table, "sensor"),
+        res.fingerprint,
+        slim_table(res.pair_table, "pair"),
+        slim_table(res.coupling_table, "edge"),
+        res.quality.n_epochs,
+        {"absolute": res.source_abs, "relative": res.source_rel},
+    )
 
 
-def fit_cohort(entries, source_maps, *, fingerprint: Fingerprint, condition: str,
-               model: str = "regression", degree: int | str = "auto",
-               bins: Sequence[float] | None = None, min_n_per_bin: int = 20,
-               robust: bool = True, cohort_info: dict | None = None, notes: Sequence[str] = ()):
+def fit_cohort(
+    entries,
+    source_maps,
+    *,
+    fingerprint: Fingerprint,
+    condition: str,
+    model: str = "regression",
+    degree: int | str = "auto",
+    bins: Sequence[float] | None = None,
+    min_n_per_bin: int = 20,
+    robust: bool = True,
+    cohort_info: dict | None = None,
+    notes: Sequence[str] = (),
+):
     """Fit the table norms and the per-source norms of a cohort's analyses.
 
     Parameters
@@ -144,20 +165,39 @@ def fit_cohort(entries, source_maps, *, fingerprint: Fingerprint, condition: str
     from .headmodel import load_head_model
     from .norms.source_norms import fit_source_norms
 
-    fit = fit_norms(entries, fingerprint=fingerprint, condition=condition, model=model,
-                    degree=degree, bins=bins, min_n_per_bin=min_n_per_bin, robust=robust,
-                    cohort_info=cohort_info, notes=notes)
+    fit = fit_norms(
+        entries,
+        fingerprint=fingerprint,
+        condition=condition,
+        model=model,
+        degree=degree,
+        bins=bins,
+        min_n_per_bin=min_n_per_bin,
+        robust=robust,
+        cohort_info=cohort_info,
+        notes=notes,
+    )
     if model != "regression":
-        log.warning("norms: age-binned norms have no per-source norms; analyses against them "
-                    "rank areas by their mean instead of by z-map peaks")
+        log.warning(
+            "norms: age-binned norms have no per-source norms; analyses against them "
+            "rank areas by their mean instead of by z-map peaks"
+        )
         return fit, None
     ages = np.array([e[1] for e in entries], dtype=float)
-    maps = {m: np.stack([np.asarray(sm[m], dtype=np.float32) for sm in source_maps])
-            for m in ("absolute", "relative")}
-    sn = fit_source_norms(ages, maps, degree=int(fit.norms.cohort["degree"]),
-                          bands=[b[0] for b in fingerprint.bands],
-                          fingerprint=fingerprint.to_dict(), condition=condition,
-                          vertices=load_head_model().vertno, robust=robust)
+    maps = {
+        m: np.stack([np.asarray(sm[m], dtype=np.float32) for sm in source_maps])
+        for m in ("absolute", "relative")
+    }
+    sn = fit_source_norms(
+        ages,
+        maps,
+        degree=int(fit.norms.cohort["degree"]),
+        bands=[b[0] for b in fingerprint.bands],
+        fingerprint=fingerprint.to_dict(),
+        condition=condition,
+        vertices=load_head_model().vertno,
+        robust=robust,
+    )
     return fit, sn
 
 
@@ -196,11 +236,22 @@ def write_cohort_norms(fit, source_norms, out: str | Path):
     return norms, report, report_path, figure_path
 
 
-def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | Path,
-                config=None, condition: str | None = None, model: str = "regression",
-                degree: int | str = "auto", bins: Sequence[float] | None = None,
-                min_n_per_bin: int = 20, robust: bool = True, notes: Sequence[str] = (),
-                engine=None, progress: bool | None = None) -> CohortBuild:
+def build_norms(
+    cohort_dir: str | Path,
+    participants: str | Path,
+    *,
+    out: str | Path,
+    config=None,
+    condition: str | None = None,
+    model: str = "regression",
+    degree: int | str = "auto",
+    bins: Sequence[float] | None = None,
+    min_n_per_bin: int = 20,
+    robust: bool = True,
+    notes: Sequence[str] = (),
+    engine=None,
+    progress: bool | None = None,
+) -> CohortBuild:
     """Analyse every reference recording in a folder and build, write and calibrate norms.
 
     Parameters
@@ -251,17 +302,25 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
         if condition is None:
             uniq = sorted(set(conds) - {"", "n/a"})
             if len(uniq) != 1:
-                raise InputError(f"participants have conditions {uniq}; choose one with "
-                                 "--condition", path=participants)
+                raise InputError(
+                    f"participants have conditions {uniq}; choose one with --condition",
+                    path=participants,
+                )
             condition = uniq[0]
         parts = parts[conds.map(normalise_condition) == normalise_condition(condition)]
         if parts.empty:
-            raise InputError(f"no participant has condition {condition!r} (conditions: "
-                             f"{sorted(set(conds) - {'', 'n/a'})})", path=participants)
+            raise InputError(
+                f"no participant has condition {condition!r} (conditions: "
+                f"{sorted(set(conds) - {'', 'n/a'})})",
+                path=participants,
+            )
     elif condition is None:
-        raise InputError("participants file has no 'condition' column; give the condition of "
-                         "the recordings with --condition (e.g. --condition \"eyes closed\" or "
-                         "EC / EO)", path=participants)
+        raise InputError(
+            "participants file has no 'condition' column; give the condition of "
+            'the recordings with --condition (e.g. --condition "eyes closed" or '
+            "EC / EO)",
+            path=participants,
+        )
     condition = normalise_condition(condition)
     failures: list[tuple[str, str]] = []
     tasks, pids = [], []
@@ -288,8 +347,12 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
     from tqdm import tqdm
 
     done: dict[int, tuple] = {}
-    bar = tqdm(total=len(tasks), desc="analysing reference recordings", unit="rec",
-               disable=None if progress is None else not progress)
+    bar = tqdm(
+        total=len(tasks),
+        desc="analysing reference recordings",
+        unit="rec",
+        disable=None if progress is None else not progress,
+    )
     try:
         for i, res, err in run_unordered(engine or SerialEngine(), _cohort_tables, tasks):
             bar.update(1)
@@ -311,8 +374,9 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
         if fp0 is None:
             fp0 = fp
         elif fp0.differences(fp):
-            msg = ("pipeline fingerprint differs from the first participant's: "
-                   + "; ".join(fp0.differences(fp)))
+            msg = "pipeline fingerprint differs from the first participant's: " + "; ".join(
+                fp0.differences(fp)
+            )
             failures.append((pid, msg))
             log.warning("norms: %s skipped: %s", pid, msg)
             continue
@@ -327,20 +391,35 @@ def build_norms(cohort_dir: str | Path, participants: str | Path, *, out: str | 
         if n_epochs is not None:
             epochs.append(int(n_epochs))
     if fp0 is None:
-        raise InputError(f"no participant could be analysed ({len(failures)} failures)",
-                         path=cohort_dir)
-    info = {"source": cohort_dir.name, "n_listed": int(len(parts)),
-            "n_failed": len(failures)}
+        raise InputError(
+            f"no participant could be analysed ({len(failures)} failures)", path=cohort_dir
+        )
+    info = {"source": cohort_dir.name, "n_listed": int(len(parts)), "n_failed": len(failures)}
     if epochs:  # coupling magnitudes depend on recording length (sourcelab/coupling/TABLES.md)
         info["clean_epochs"] = clean_epochs_summary(epochs)
     if "sex" in parts.columns:
         used = set(e[0] for e in entries)
         sex = parts[parts["participant_id"].isin(used)]["sex"].str.strip().value_counts()
         info["sex"] = {str(k): int(v) for k, v in sex.items()}
-    fit, source_norms = fit_cohort(entries, maps, fingerprint=fp0, condition=condition,
-                                   model=model, degree=degree, bins=bins,
-                                   min_n_per_bin=min_n_per_bin, robust=robust,
-                                   cohort_info=info, notes=notes)
+    fit, source_norms = fit_cohort(
+        entries,
+        maps,
+        fingerprint=fp0,
+        condition=condition,
+        model=model,
+        degree=degree,
+        bins=bins,
+        min_n_per_bin=min_n_per_bin,
+        robust=robust,
+        cohort_info=info,
+        notes=notes,
+    )
     norms, report, report_path, figure_path = write_cohort_norms(fit, source_norms, out)
-    return CohortBuild(norms=norms, fit=fit, report=report, report_path=report_path,
-                       figure_path=figure_path, failures=tuple(failures))
+    return CohortBuild(
+        norms=norms,
+        fit=fit,
+        report=report,
+        report_path=report_path,
+        figure_path=figure_path,
+        failures=tuple(failures),
+    )

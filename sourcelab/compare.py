@@ -66,10 +66,35 @@ RCI_THRESHOLD = Z_THRESHOLD
 RELIABILITY_ATLAS = "brodmann"
 #: Columns of the comparison table, in order.
 COMPARE_COLUMNS = (
-    "session_a", "session_b", "atlas", "roi", "hemisphere", "band", "measure", "value_a",
-    "value_b", "change", "change_lo", "change_hi", "change_t", "change_t_lo", "change_t_hi",
-    "z_a", "z_b", "change_z", "change_z_lo", "change_z_hi", "p", "q", "excludes_zero", "s_e_a",
-    "s_e_b", "rci", "reliable", "verdict")
+    "session_a",
+    "session_b",
+    "atlas",
+    "roi",
+    "hemisphere",
+    "band",
+    "measure",
+    "value_a",
+    "value_b",
+    "change",
+    "change_lo",
+    "change_hi",
+    "change_t",
+    "change_t_lo",
+    "change_t_hi",
+    "z_a",
+    "z_b",
+    "change_z",
+    "change_z_lo",
+    "change_z_hi",
+    "p",
+    "q",
+    "excludes_zero",
+    "s_e_a",
+    "s_e_b",
+    "rci",
+    "reliable",
+    "verdict",
+)
 
 
 @dataclass(frozen=True, eq=False)
@@ -118,8 +143,10 @@ def read_session(path, *, label: str | None = None) -> Session:
     ep = read_epochs(Path(path) / FILENAME)
     diffs = ep.fingerprint.differences(folder.fingerprint)
     if diffs:
-        raise InputError("epochs.npz and the tables come from different pipelines ("
-                         + "; ".join(diffs) + ")", path=path)
+        raise InputError(
+            "epochs.npz and the tables come from different pipelines (" + "; ".join(diffs) + ")",
+            path=path,
+        )
     return Session(Path(path), label or Path(path).name, folder, ep)
 
 
@@ -149,29 +176,34 @@ def _norm_affine(session: Session, rows: pd.DataFrame) -> tuple[np.ndarray, np.n
         return None
     p = Path(info["path"])
     if not p.is_file():
-        log.warning("%s: norms file %s is gone; z-change intervals not available",
-                    session.path, p)
+        log.warning("%s: norms file %s is gone; z-change intervals not available", session.path, p)
         return None
     nm = read_norms(p)
     if info.get("sha256") and nm.sha256 != info["sha256"]:
-        log.warning("%s: norms file %s changed since the analysis; z-change intervals not "
-                    "available", session.path, p)
+        log.warning(
+            "%s: norms file %s changed since the analysis; z-change intervals not available",
+            session.path,
+            p,
+        )
         return None
     rec = prov.get("recording", {})
-    opts = dict(age=rec.get("age"), fingerprint=session.fingerprint,
-                condition=rec.get("condition"), allow_extrapolation=True,
-                allow_condition_mismatch=True)
+    opts = dict(
+        age=rec.get("age"),
+        fingerprint=session.fingerprint,
+        condition=rec.get("condition"),
+        allow_extrapolation=True,
+        allow_condition_mismatch=True,
+    )
     if opts["age"] is None:
         return None
     t = rows[["atlas", "roi", "hemisphere", "band", "measure"]].copy()
     zs = []
     for level in (0.0, 1.0):
-        v = np.where(t["measure"] == "absolute", 10.0 ** level, 1 / (1 + math.exp(-level)))
+        v = np.where(t["measure"] == "absolute", 10.0**level, 1 / (1 + math.exp(-level)))
         quiet = log.level
         log.setLevel(logging.ERROR)
         try:
-            zs.append(apply_norms(t.assign(value=v), nm, kind="roi", **opts)["z"]
-                      .to_numpy(float))
+            zs.append(apply_norms(t.assign(value=v), nm, kind="roi", **opts)["z"].to_numpy(float))
         finally:
             log.setLevel(quiet)
     sd = 1.0 / (zs[1] - zs[0])
@@ -180,8 +212,12 @@ def _norm_affine(session: Session, rows: pd.DataFrame) -> tuple[np.ndarray, np.n
 
 def _error_sd(session: Session, table: pd.DataFrame) -> dict:
     """S_E per (band, measure) for the RCI: s_1 sqrt(1 - r_SB) (see the module docstring)."""
-    rel = (session.folder.provenance.get("quality", {}).get("reliability", {})
-           .get(RELIABILITY_ATLAS, {}).get("test_retest_spearman_brown", {}))
+    rel = (
+        session.folder.provenance.get("quality", {})
+        .get("reliability", {})
+        .get(RELIABILITY_ATLAS, {})
+        .get("test_retest_spearman_brown", {})
+    )
     out = {}
     b = table[table["atlas"] == RELIABILITY_ATLAS]
     for (band, measure), g in b.groupby(["band", "measure"]):
@@ -195,8 +231,9 @@ def _error_sd(session: Session, table: pd.DataFrame) -> dict:
     return out
 
 
-def _replicates(session: Session, rows: pd.DataFrame, atlases: dict, *, n_boot: int,
-                seed: int) -> np.ndarray:
+def _replicates(
+    session: Session, rows: pd.DataFrame, atlases: dict, *, n_boot: int, seed: int
+) -> np.ndarray:
     """Bootstrap replicates of each row's value, shape (n_boot, n_rows)."""
     from .inverse import inverse_operator
     from .trust.bootstrap import bootstrap_weights, roi_bootstrap
@@ -221,8 +258,9 @@ def _replicates(session: Session, rows: pd.DataFrame, atlases: dict, *, n_boot: 
     return out
 
 
-def compare_sessions(sessions, *, n_boot: int = 1000, seed: int = 0, ci: float = 0.95,
-                     labels=None) -> pd.DataFrame:
+def compare_sessions(
+    sessions, *, n_boot: int = 1000, seed: int = 0, ci: float = 0.95, labels=None
+) -> pd.DataFrame:
     """Change of every ROI row between the first session and each later one.
 
     Parameters
@@ -256,14 +294,17 @@ def compare_sessions(sessions, *, n_boot: int = 1000, seed: int = 0, ci: float =
     if len(sessions) < 2:
         raise InputError("compare: need at least two analysis folders")
     labels = list(labels) if labels is not None else [None] * len(sessions)
-    ss = [s if isinstance(s, Session) else read_session(s, label=lab)
-          for s, lab in zip(sessions, labels)]
+    ss = [
+        s if isinstance(s, Session) else read_session(s, label=lab)
+        for s, lab in zip(sessions, labels)
+    ]
     base = ss[0]
     for s in ss[1:]:
         diffs = base.fingerprint.differences(s.fingerprint)
         if diffs:
-            raise InputError(f"different pipelines, not comparable ({'; '.join(diffs)})",
-                             path=s.path)
+            raise InputError(
+                f"different pipelines, not comparable ({'; '.join(diffs)})", path=s.path
+            )
     key = ["atlas", "roi", "hemisphere", "band", "measure"]
     common = base.table[key]
     for s in ss[1:]:
@@ -284,12 +325,17 @@ def compare_sessions(sessions, *, n_boot: int = 1000, seed: int = 0, ci: float =
     for i, s in enumerate(ss):
         t = rows.merge(s.table, on=key, how="left")
         reps = _replicates(s, rows, atlases, n_boot=n_boot, seed=seed + i)
-        per.append(dict(value=t["value"].to_numpy(float),
-                        z=pd.to_numeric(t["z"], errors="coerce").to_numpy(float),
-                        reps=reps, t_reps=_transform(reps, np.broadcast_to(meas, reps.shape)),
-                        affine=_norm_affine(s, rows), s_e=_error_sd(s, s.table),
-                        norms=((s.folder.provenance.get("inputs") or {}).get("norms") or {})
-                        .get("sha256")))
+        per.append(
+            dict(
+                value=t["value"].to_numpy(float),
+                z=pd.to_numeric(t["z"], errors="coerce").to_numpy(float),
+                reps=reps,
+                t_reps=_transform(reps, np.broadcast_to(meas, reps.shape)),
+                affine=_norm_affine(s, rows),
+                s_e=_error_sd(s, s.table),
+                norms=((s.folder.provenance.get("inputs") or {}).get("norms") or {}).get("sha256"),
+            )
+        )
     out = []
     for i in range(1, len(ss)):
         a, b = per[0], per[i]
@@ -315,8 +361,11 @@ def compare_sessions(sessions, *, n_boot: int = 1000, seed: int = 0, ci: float =
         else:
             lo = hi = np.full(len(rows), np.nan)
             if not same_norms and (np.isfinite(a["z"]).any() or np.isfinite(b["z"]).any()):
-                log.warning("%s and %s were not z-scored against the same norms: no z change",
-                            base.label, ss[i].label)
+                log.warning(
+                    "%s and %s were not z-scored against the same norms: no z change",
+                    base.label,
+                    ss[i].label,
+                )
         d["change_z_lo"], d["change_z_hi"] = lo, hi
         se = np.nanstd(dt, axis=0, ddof=1)
         from scipy.stats import norm as _norm
@@ -333,17 +382,31 @@ def compare_sessions(sessions, *, n_boot: int = 1000, seed: int = 0, ci: float =
             d["rci"] = d["change_t"] / np.sqrt(sea**2 + seb**2)
         d["reliable"] = np.abs(d["rci"]) >= RCI_THRESHOLD
         changed = (d["q"] <= FDR_ALPHA) & d["reliable"]
-        d["verdict"] = np.where(~changed, "no change",
-                                np.where(d["change_t"] > 0, "increase", "decrease"))
+        d["verdict"] = np.where(
+            ~changed, "no change", np.where(d["change_t"] > 0, "increase", "decrease")
+        )
         out.append(d)
     table = pd.concat(out, ignore_index=True)[list(COMPARE_COLUMNS)]
     sess_ci = []
     for s, pp in zip(ss, per):
         lo, hi = percentile_interval(pp["t_reps"], ci=ci)
-        sess_ci.append({"label": s.label, "t": _transform(pp["value"], meas), "t_lo": lo,
-                        "t_hi": hi, "z": pp["z"], "affine": pp["affine"]})
-    table.attrs = {"rows": rows, "per_session": sess_ci, "n_boot": int(n_boot), "ci": ci,
-                   "seed": int(seed)}
+        sess_ci.append(
+            {
+                "label": s.label,
+                "t": _transform(pp["value"], meas),
+                "t_lo": lo,
+                "t_hi": hi,
+                "z": pp["z"],
+                "affine": pp["affine"],
+            }
+        )
+    table.attrs = {
+        "rows": rows,
+        "per_session": sess_ci,
+        "n_boot": int(n_boot),
+        "ci": ci,
+        "seed": int(seed),
+    }
     return table
 
 
@@ -390,16 +453,18 @@ def targeted_rows(table: pd.DataFrame, targets=None, *, max_rows: int = 8) -> pd
             raise InputError(f"no compared row matches the targets {keys}")
     else:
         first = table[table["session_b"] == table["session_b"].iloc[0]].reset_index(drop=True)
-        order = np.argsort(-np.nan_to_num(np.abs(first["rci"].to_numpy(float)), nan=-1),
-                           kind="stable")
+        order = np.argsort(
+            -np.nan_to_num(np.abs(first["rci"].to_numpy(float)), nan=-1), kind="stable"
+        )
         changed = first["verdict"].to_numpy() != "no change"
         ch = [int(i) for i in order if changed[i]]
         idx = (ch + [int(i) for i in order if not changed[i]])[:max_rows]
     return rows.iloc[idx].assign(_i=idx)
 
 
-def plot_sessions(table: pd.DataFrame, targets=None, *, use_z: bool | None = None,
-                  figure=None, max_rows: int = 8):
+def plot_sessions(
+    table: pd.DataFrame, targets=None, *, use_z: bool | None = None, figure=None, max_rows: int = 8
+):
     """The selected rows across sessions with each session's bootstrap interval.
 
     Parameters
@@ -427,8 +492,11 @@ def plot_sessions(table: pd.DataFrame, targets=None, *, use_z: bool | None = Non
     per = table.attrs["per_session"]
     if use_z is None:
         use_z = all(p["affine"] is not None for p in per)
-    fig = figure if figure is not None else Figure(figsize=(8, 1.0 + 0.9 * len(sel) + 1.5),
-                                                  layout="constrained")
+    fig = (
+        figure
+        if figure is not None
+        else Figure(figsize=(8, 1.0 + 0.9 * len(sel) + 1.5), layout="constrained")
+    )
     ax = fig.subplots()
     x = np.arange(len(per))
     for j, (_, r) in enumerate(sel.iterrows()):
@@ -450,14 +518,18 @@ def plot_sessions(table: pd.DataFrame, targets=None, *, use_z: bool | None = Non
             ax.axhline(lim, color="0.6", lw=0.6, ls=":")
     ax.set_ylabel("z against the norm" if use_z else "log10 / logit of the value")
     ax.set_xlabel("session")
-    ax.set_title(f"Across sessions ({int(100 * table.attrs['ci'])} % bootstrap intervals over "
-                 "each session's clean epochs)", fontsize=9)
+    ax.set_title(
+        f"Across sessions ({int(100 * table.attrs['ci'])} % bootstrap intervals over "
+        "each session's clean epochs)",
+        fontsize=9,
+    )
     ax.legend(fontsize=7, loc="best")
     return fig
 
 
-def compare_html(table: pd.DataFrame, *, figure_png: bytes | None = None,
-                 max_rows: int = 60) -> str:
+def compare_html(
+    table: pd.DataFrame, *, figure_png: bytes | None = None, max_rows: int = 60
+) -> str:
     """A ``<section>`` for a report: changed rows, how change is judged, cautions.
 
     Parameters
@@ -481,29 +553,57 @@ def compare_html(table: pd.DataFrame, *, figure_png: bytes | None = None,
     from .report.html import table_html
 
     changed = table[table["verdict"] != "no change"]
-    cols = [c for c in ("session_a", "session_b", "atlas", "roi", "hemisphere", "band",
-                        "measure", "change_t", "change_t_lo", "change_t_hi", "change_z", "rci",
-                        "q", "verdict") if c in table.columns]
+    cols = [
+        c
+        for c in (
+            "session_a",
+            "session_b",
+            "atlas",
+            "roi",
+            "hemisphere",
+            "band",
+            "measure",
+            "change_t",
+            "change_t_lo",
+            "change_t_hi",
+            "change_z",
+            "rci",
+            "q",
+            "verdict",
+        )
+        if c in table.columns
+    ]
     n = len(table)
     img = ""
     if figure_png is not None:
-        img = (f'<figure><img alt="targeted rows across sessions" src="data:image/png;base64,'
-               f'{base64.b64encode(figure_png).decode()}"><figcaption>Targeted rows across '
-               "sessions with their bootstrap intervals.</figcaption></figure>")
-    note = (f"{len(changed)} of {n} rows changed: Benjamini-Hochberg q &le; {FDR_ALPHA:g} for the "
-            "bootstrap change and a reliable-change index |RCI| &ge; 1.96 (Jacobson &amp; Truax "
-            "1991, with the analysis' test-retest reliability). A change between sessions is a "
-            "statistical statement about these recordings, not evidence that training caused "
-            "it: state, time of day, drowsiness, medication and recording conditions change "
-            "band power too.")
-    rows = (table_html(changed[cols].head(max_rows), z_column=None) if len(changed)
-            else "<p>No row changed.</p>")
+        img = (
+            f'<figure><img alt="targeted rows across sessions" src="data:image/png;base64,'
+            f'{base64.b64encode(figure_png).decode()}"><figcaption>Targeted rows across '
+            "sessions with their bootstrap intervals.</figcaption></figure>"
+        )
+    note = (
+        f"{len(changed)} of {n} rows changed: Benjamini-Hochberg q &le; {FDR_ALPHA:g} for the "
+        "bootstrap change and a reliable-change index |RCI| &ge; 1.96 (Jacobson &amp; Truax "
+        "1991, with the analysis' test-retest reliability). A change between sessions is a "
+        "statistical statement about these recordings, not evidence that training caused "
+        "it: state, time of day, drowsiness, medication and recording conditions change "
+        "band power too."
+    )
+    rows = (
+        table_html(changed[cols].head(max_rows), z_column=None)
+        if len(changed)
+        else "<p>No row changed.</p>"
+    )
     if len(changed) > max_rows:
-        rows += (f'<p class="note">The first {max_rows} of {len(changed)} changed rows; all rows: '
-                 "compare.tsv.</p>")
+        rows += (
+            f'<p class="note">The first {max_rows} of {len(changed)} changed rows; all rows: '
+            "compare.tsv.</p>"
+        )
     caut = "".join(f'<p class="caution">{html.escape(c)}</p>' for c in CAUTIONS)
-    return (f"<section class=\"compare\" id=\"compare\"><h2>Change across sessions</h2>"
-            f"<p>{note}</p>{img}{rows}<h3>Cautions</h3>{caut}</section>")
+    return (
+        f'<section class="compare" id="compare"><h2>Change across sessions</h2>'
+        f"<p>{note}</p>{img}{rows}<h3>Cautions</h3>{caut}</section>"
+    )
 
 
 def compare_page(table: pd.DataFrame, *, figure_png: bytes | None = None) -> str:
@@ -524,12 +624,14 @@ def compare_page(table: pd.DataFrame, *, figure_png: bytes | None = None) -> str
 
     sessions = ", ".join(str(p["label"]) for p in table.attrs.get("per_session", []))
     title = "sourcelab session comparison"
-    return ("<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">"
-            f"<title>{title}</title><style>{_CSS}</style></head><body>"
-            f"<header><h1>{title}</h1><p>Sessions: {html.escape(sessions) or 'not given'} · "
-            "not a diagnostic device</p></header><main>"
-            f"{compare_html(table, figure_png=figure_png)}</main><script>{_JS}</script>"
-            "</body></html>")
+    return (
+        '<!DOCTYPE html><html lang="en"><head><meta charset="utf-8">'
+        f"<title>{title}</title><style>{_CSS}</style></head><body>"
+        f"<header><h1>{title}</h1><p>Sessions: {html.escape(sessions) or 'not given'} · "
+        "not a diagnostic device</p></header><main>"
+        f"{compare_html(table, figure_png=figure_png)}</main><script>{_JS}</script>"
+        "</body></html>"
+    )
 
 
 def write_comparison(table: pd.DataFrame, out, *, targets=None, inputs=()) -> dict:
@@ -564,13 +666,17 @@ def write_comparison(table: pd.DataFrame, out, *, targets=None, inputs=()) -> di
 
     fig = plot_sessions(table, targets)
     png = figure_png(fig)
-    summary = {"n_rows": int(len(table)),
-               "changed": int((table["verdict"] != "no change").sum()),
-               "excludes_zero": int(table["excludes_zero"].sum()),
-               "n_boot": table.attrs.get("n_boot"), "ci": table.attrs.get("ci"),
-               "rci_threshold": RCI_THRESHOLD, "fdr_alpha": FDR_ALPHA,
-               "sessions": [p["label"] for p in table.attrs["per_session"]],
-               "cautions": list(CAUTIONS)}
+    summary = {
+        "n_rows": int(len(table)),
+        "changed": int((table["verdict"] != "no change").sum()),
+        "excludes_zero": int(table["excludes_zero"].sum()),
+        "n_boot": table.attrs.get("n_boot"),
+        "ci": table.attrs.get("ci"),
+        "rci_threshold": RCI_THRESHOLD,
+        "fdr_alpha": FDR_ALPHA,
+        "sessions": [p["label"] for p in table.attrs["per_session"]],
+        "cautions": list(CAUTIONS),
+    }
     with atomic_output_dir(Path(out), kind="compare", inputs=inputs) as tmp:
         # a plain table (reads with pandas.read_csv(sep="\t")); the cautions are in compare.json
         table.to_csv(tmp / "compare.tsv", sep="\t", index=False, na_rep="", float_format="%.6g")

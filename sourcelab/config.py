@@ -8,8 +8,14 @@ import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
-from .checks import (check_number, check_option, check_path, check_text, check_type,
-                     read_bytes_bounded)
+from .checks import (
+    check_number,
+    check_option,
+    check_path,
+    check_text,
+    check_type,
+    read_bytes_bounded,
+)
 from .constants import Z_THRESHOLD
 from .errors import InputError
 
@@ -49,8 +55,9 @@ IFCN_SUB_BANDS: dict[str, tuple[tuple[str, float, float], ...]] = {
 GAMMA_LOW_HZ = 30.0
 
 
-def standard_bands(*, h_freq: float = 45.0, sub_bands: bool = False
-                   ) -> tuple[tuple[str, float, float], ...]:
+def standard_bands(
+    *, h_freq: float = 45.0, sub_bands: bool = False
+) -> tuple[tuple[str, float, float], ...]:
     """The IFCN bands (Babiloni et al. 2020) for an analysis low-passed at ``h_freq``.
 
     Parameters
@@ -73,8 +80,9 @@ def standard_bands(*, h_freq: float = 45.0, sub_bands: bool = False
             if top > GAMMA_LOW_HZ:
                 out.append((name, lo, top))
             continue
-        out.extend(IFCN_SUB_BANDS[name] if sub_bands and name in IFCN_SUB_BANDS
-                   else ((name, lo, hi),))
+        out.extend(
+            IFCN_SUB_BANDS[name] if sub_bands and name in IFCN_SUB_BANDS else ((name, lo, hi),)
+        )
     return tuple(out)
 
 
@@ -113,30 +121,39 @@ class Bands:
         if len(self.names) != len(self.edges) or not self.names:
             raise InputError("bands: need one (low, high) pair per band name", field="bands")
         if len(self.names) > MAX_BANDS:
-            raise InputError(f"bands: at most {MAX_BANDS} bands, got {len(self.names)}",
-                             field="bands")
+            raise InputError(
+                f"bands: at most {MAX_BANDS} bands, got {len(self.names)}", field="bands"
+            )
         if len(set(self.names)) != len(self.names):
             raise InputError(f"bands: duplicate band names in {self.names}", field="bands")
         edges = []
         for name, pair in zip(self.names, self.edges):
-            check_text("bands", name, max_len=32, pattern=BAND_NAME,
-                       allowed_text="a name of letters, digits, _ and - starting with a letter")
+            check_text(
+                "bands",
+                name,
+                max_len=32,
+                pattern=BAND_NAME,
+                allowed_text="a name of letters, digits, _ and - starting with a letter",
+            )
             if not isinstance(pair, (tuple, list)) or len(pair) != 2:
                 raise InputError(f"bands.{name}: needs [low, high] in Hz", field="bands")
             lo = check_number(f"bands.{name} low edge", pair[0], low=0.0, high=1000.0)
             hi = check_number(f"bands.{name} high edge", pair[1], low=0.0, high=1000.0)
             if not lo < hi:
-                raise InputError(f"bands.{name}: need low < high, got [{lo:g}, {hi:g}] Hz",
-                                 field="bands")
+                raise InputError(
+                    f"bands.{name}: need low < high, got [{lo:g}, {hi:g}] Hz", field="bands"
+                )
             edges.append((lo, hi))
         object.__setattr__(self, "edges", tuple(edges))
         # overlapping bands would count the same power twice (touching edges are fine: [lo, hi))
         order = sorted(zip(self.edges, self.names))
         for ((lo1, hi1), n1), ((lo2, hi2), n2) in zip(order, order[1:]):
             if lo2 < hi1:
-                raise InputError(f"bands {n1!r} ({lo1:g}-{hi1:g} Hz) and {n2!r} "
-                                 f"({lo2:g}-{hi2:g} Hz) overlap; bands must not overlap",
-                                 field="bands")
+                raise InputError(
+                    f"bands {n1!r} ({lo1:g}-{hi1:g} Hz) and {n2!r} "
+                    f"({lo2:g}-{hi2:g} Hz) overlap; bands must not overlap",
+                    field="bands",
+                )
 
     def __len__(self) -> int:
         return len(self.names)
@@ -190,13 +207,17 @@ class Bands:
             When ``mapping`` is not a table, or a value is not a pair, naming the band.
         """
         if not isinstance(mapping, dict):
-            raise InputError("bands: must be a table of name = [low, high] (Hz), got "
-                             f"{type(mapping).__name__} {mapping!r:.40}", field="bands")
+            raise InputError(
+                "bands: must be a table of name = [low, high] (Hz), got "
+                f"{type(mapping).__name__} {mapping!r:.40}",
+                field="bands",
+            )
         names, edges = [], []
         for k, v in mapping.items():
             if not isinstance(v, (list, tuple)) or len(v) != 2:
-                raise InputError(f"bands.{k}: needs [low, high] in Hz, got {v!r:.40}",
-                                 field="bands")
+                raise InputError(
+                    f"bands.{k}: needs [low, high] in Hz, got {v!r:.40}", field="bands"
+                )
             names.append(str(k))
             edges.append(tuple(v))
         return cls(tuple(names), tuple(edges))
@@ -346,8 +367,9 @@ class AnalysisConfig:
         config : AnalysisConfig
             A new configuration; this one is unchanged (frozen).
         """
-        if "bands" not in changes and self.bands == Bands.standard(h_freq=self.h_freq,
-                                                                   sub_bands=self.sub_bands):
+        if "bands" not in changes and self.bands == Bands.standard(
+            h_freq=self.h_freq, sub_bands=self.sub_bands
+        ):
             changes["bands"] = None  # default bands follow a changed h_freq / sub_bands
         return dataclasses.replace(self, **changes)
 
@@ -388,25 +410,42 @@ _NUMBERS = {
     "coupling_n_boot": (int, 0, 100_000, False, False),
 }
 #: Choices of the option fields.
-_OPTIONS = {"rejection": ("auto", "fixed"), "ocular_correction": ("auto", "ica", "regression", "off")}
+_OPTIONS = {
+    "rejection": ("auto", "fixed"),
+    "ocular_correction": ("auto", "ica", "regression", "off"),
+}
 
 
 def _validated_fields(cfg: AnalysisConfig) -> dict:
     """Check every field of ``cfg``; return the canonical values (floats as float, ...)."""
-    out = {"method": check_option("method", cfg.method, METHODS),
-           "orientation": check_option("orientation", cfg.orientation, ORIENTATIONS)}
+    out = {
+        "method": check_option("method", cfg.method, METHODS),
+        "orientation": check_option("orientation", cfg.orientation, ORIENTATIONS),
+    }
     for name, (kind, low, high, low_open, high_open) in _NUMBERS.items():
-        out[name] = check_number(name, getattr(cfg, name), kind=kind, low=low, high=high,
-                                 low_open=low_open, high_open=high_open)
+        out[name] = check_number(
+            name,
+            getattr(cfg, name),
+            kind=kind,
+            low=low,
+            high=high,
+            low_open=low_open,
+            high_open=high_open,
+        )
     for name, allowed in _OPTIONS.items():
         out[name] = check_option(name, getattr(cfg, name), allowed)
     for name in ("exclude_procedures", "coupling", "sub_bands"):
         out[name] = check_type(name, getattr(cfg, name), bool, type_name="true or false")
     atl = cfg.coupling_atlases
-    if isinstance(atl, str) or not isinstance(atl, (list, tuple)) or not all(
-            isinstance(a, str) for a in atl):
-        raise InputError(f"coupling_atlases: need a list of atlas names, got {atl!r:.60}",
-                         field="coupling_atlases")
+    if (
+        isinstance(atl, str)
+        or not isinstance(atl, (list, tuple))
+        or not all(isinstance(a, str) for a in atl)
+    ):
+        raise InputError(
+            f"coupling_atlases: need a list of atlas names, got {atl!r:.60}",
+            field="coupling_atlases",
+        )
     out["coupling_atlases"] = tuple(atl)
     notch = cfg.notch
     if notch is not None:
@@ -418,40 +457,59 @@ def _validated_fields(cfg: AnalysisConfig) -> dict:
         z_mask = check_number("z_mask", z_mask, low=0.0, high=10.0, high_open=True)
     out["z_mask"] = z_mask
     if 0 < out["coupling_n_boot"] < 99:
-        raise InputError("coupling_n_boot: 0 (no intervals) or at least 99, got "
-                         f"{out['coupling_n_boot']}", field="coupling_n_boot")
+        raise InputError(
+            f"coupling_n_boot: 0 (no intervals) or at least 99, got {out['coupling_n_boot']}",
+            field="coupling_n_boot",
+        )
     if 0 < out["n_boot"] < 100:
-        raise InputError(f"n_boot: 0 (no intervals) or at least 100, got {out['n_boot']}",
-                         field="n_boot")
+        raise InputError(
+            f"n_boot: 0 (no intervals) or at least 100, got {out['n_boot']}", field="n_boot"
+        )
     if not out["l_freq"] < out["h_freq"]:
-        raise InputError(f"l_freq: must be below h_freq, got l_freq {out['l_freq']:g} Hz and "
-                         f"h_freq {out['h_freq']:g} Hz (a high-pass above the low-pass would "
-                         "make a band-stop)", field="l_freq")
+        raise InputError(
+            f"l_freq: must be below h_freq, got l_freq {out['l_freq']:g} Hz and "
+            f"h_freq {out['h_freq']:g} Hz (a high-pass above the low-pass would "
+            "make a band-stop)",
+            field="l_freq",
+        )
     if not out["flat_uv"] < out["reject_uv"]:
-        raise InputError(f"flat_uv: must be below reject_uv ({out['reject_uv']:g} µV), got "
-                         f"{out['flat_uv']:g}", field="flat_uv")
+        raise InputError(
+            f"flat_uv: must be below reject_uv ({out['reject_uv']:g} µV), got {out['flat_uv']:g}",
+            field="flat_uv",
+        )
     bands = cfg.bands
     if bands is None:
         bands = Bands.standard(h_freq=out["h_freq"], sub_bands=out["sub_bands"])
     elif out["sub_bands"]:
-        raise InputError("sub_bands: applies to the default (IFCN) bands only; with a [bands] "
-                         "table list the sub-bands there", field="sub_bands")
+        raise InputError(
+            "sub_bands: applies to the default (IFCN) bands only; with a [bands] "
+            "table list the sub-bands there",
+            field="sub_bands",
+        )
     if isinstance(bands, dict):
         bands = Bands.from_mapping(bands)
     if not isinstance(bands, Bands):
-        raise InputError("bands: must be a table of name = [low, high] (Hz), got "
-                         f"{type(bands).__name__} {bands!r:.40}", field="bands")
+        raise InputError(
+            "bands: must be a table of name = [low, high] (Hz), got "
+            f"{type(bands).__name__} {bands!r:.40}",
+            field="bands",
+        )
     out["bands"] = bands
     resolution = 1.0 / out["epoch_s"]
     for name, (lo, hi) in zip(bands.names, bands.edges):
         if lo < out["l_freq"] or hi > out["h_freq"]:
-            raise InputError(f"bands.{name}: {lo:g}-{hi:g} Hz lies outside the filter pass "
-                             f"band l_freq-h_freq = {out['l_freq']:g}-{out['h_freq']:g} Hz",
-                             field="bands")
+            raise InputError(
+                f"bands.{name}: {lo:g}-{hi:g} Hz lies outside the filter pass "
+                f"band l_freq-h_freq = {out['l_freq']:g}-{out['h_freq']:g} Hz",
+                field="bands",
+            )
         if hi - lo < resolution:
-            raise InputError(f"bands.{name}: {lo:g}-{hi:g} Hz is narrower than the "
-                             f"{resolution:g}-Hz frequency resolution of {out['epoch_s']:g}-s "
-                             "epochs", field="bands")
+            raise InputError(
+                f"bands.{name}: {lo:g}-{hi:g} Hz is narrower than the "
+                f"{resolution:g}-Hz frequency resolution of {out['epoch_s']:g}-s "
+                "epochs",
+                field="bands",
+            )
     return out
 
 
@@ -470,11 +528,17 @@ def check_sampling_rate(config: AnalysisConfig, sfreq: float, *, where=None) -> 
     nyq = float(sfreq) / 2.0
     for name, (lo, hi) in zip(config.bands.names, config.bands.edges):
         if hi > nyq:
-            raise InputError(f"band {name!r} ({lo:g}-{hi:g} Hz) reaches above the Nyquist "
-                             f"frequency {nyq:g} Hz of this {sfreq:g}-Hz recording", path=where)
+            raise InputError(
+                f"band {name!r} ({lo:g}-{hi:g} Hz) reaches above the Nyquist "
+                f"frequency {nyq:g} Hz of this {sfreq:g}-Hz recording",
+                path=where,
+            )
     if config.l_freq >= nyq:
-        raise InputError(f"l_freq {config.l_freq:g} Hz is not below the Nyquist frequency "
-                         f"{nyq:g} Hz of this {sfreq:g}-Hz recording", path=where)
+        raise InputError(
+            f"l_freq {config.l_freq:g} Hz is not below the Nyquist frequency "
+            f"{nyq:g} Hz of this {sfreq:g}-Hz recording",
+            path=where,
+        )
 
 
 def load_config(path: str | Path | None = None, **overrides) -> AnalysisConfig:
@@ -528,7 +592,9 @@ def load_config(path: str | Path | None = None, **overrides) -> AnalysisConfig:
     except InputError as exc:
         field_name = (exc.field or "").split(".")[0].split(" ")[0]
         if field_name in given and field_name not in from_file:
-            raise InputError(f"--{field_name.replace('_', '-')}: "
-                             f"{exc.problem.split(': ', 1)[-1]}") from None
-        raise InputError(exc.problem, path=path if path is not None else exc.path,
-                         field=exc.field) from None
+            raise InputError(
+                f"--{field_name.replace('_', '-')}: {exc.problem.split(': ', 1)[-1]}"
+            ) from None
+        raise InputError(
+            exc.problem, path=path if path is not None else exc.path, field=exc.field
+        ) from None

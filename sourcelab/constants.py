@@ -9,8 +9,25 @@ from __future__ import annotations
 #: are the old T3/T4/T5/T6 — American Clinical Neurophysiology Society guideline 2006, from
 #: memory).
 SITES_1020: tuple[str, ...] = (
-    "Fp1", "Fp2", "F7", "F3", "Fz", "F4", "F8", "T7", "C3", "Cz",
-    "C4", "T8", "P7", "P3", "Pz", "P4", "P8", "O1", "O2",
+    "Fp1",
+    "Fp2",
+    "F7",
+    "F3",
+    "Fz",
+    "F4",
+    "F8",
+    "T7",
+    "C3",
+    "Cz",
+    "C4",
+    "T8",
+    "P7",
+    "P3",
+    "Pz",
+    "P4",
+    "P8",
+    "O1",
+    "O2",
 )
 
 #: |z| beyond which a value is called deviating: the two-sided 5 % point of the standard normal
@@ -34,12 +51,19 @@ UNITS = {
 }
 
 #: Recording file suffixes sourcelab reads -> format name (one list for intake, cohorts, batches).
-RECORDING_FORMATS = {".edf": "EDF", ".bdf": "BDF", ".vhdr": "BrainVision", ".set": "EEGLAB",
-                     ".fif": "FIF", ".fif.gz": "FIF"}
+RECORDING_FORMATS = {
+    ".edf": "EDF",
+    ".bdf": "BDF",
+    ".vhdr": "BrainVision",
+    ".set": "EEGLAB",
+    ".fif": "FIF",
+    ".fif.gz": "FIF",
+}
 RECORDING_SUFFIXES: tuple[str, ...] = tuple(RECORDING_FORMATS)
 #: The formats in words, for messages.
-ALLOWED_FORMATS = ("EDF/EDF+ (.edf), BDF (.bdf), BrainVision (.vhdr), EEGLAB (.set), "
-                   "FIF (.fif, .fif.gz)")
+ALLOWED_FORMATS = (
+    "EDF/EDF+ (.edf), BDF (.bdf), BrainVision (.vhdr), EEGLAB (.set), FIF (.fif, .fif.gz)"
+)
 
 
 def recording_suffix(name) -> str | None:

@@ -67,14 +67,26 @@ def _person_generators(rng: np.random.Generator, age: float) -> tuple[Generator,
         Generator((20, -92, 4), "right", freq=alpha_f, amplitude=a * np.exp(rng.normal(0, 0.1))),
         Generator((-30, -70, 40), "left", freq=alpha_f, amplitude=0.5 * a),
         Generator((30, -70, 40), "right", freq=alpha_f, amplitude=0.5 * a),
-        Generator((-4, 40, 20), "left", freq=6.0,
-                  amplitude=np.exp(rng.normal(np.log(0.3), RHYTHM_LN_SD))),
-        Generator((4, 40, 20), "right", freq=6.0,
-                  amplitude=np.exp(rng.normal(np.log(0.3), RHYTHM_LN_SD))),
-        Generator((-38, -20, 55), "left", freq=18.0, bandwidth=6.0,
-                  amplitude=np.exp(rng.normal(np.log(0.25), RHYTHM_LN_SD))),
-        Generator((38, -20, 55), "right", freq=18.0, bandwidth=6.0,
-                  amplitude=np.exp(rng.normal(np.log(0.25), RHYTHM_LN_SD))),
+        Generator(
+            (-4, 40, 20), "left", freq=6.0, amplitude=np.exp(rng.normal(np.log(0.3), RHYTHM_LN_SD))
+        ),
+        Generator(
+            (4, 40, 20), "right", freq=6.0, amplitude=np.exp(rng.normal(np.log(0.3), RHYTHM_LN_SD))
+        ),
+        Generator(
+            (-38, -20, 55),
+            "left",
+            freq=18.0,
+            bandwidth=6.0,
+            amplitude=np.exp(rng.normal(np.log(0.25), RHYTHM_LN_SD)),
+        ),
+        Generator(
+            (38, -20, 55),
+            "right",
+            freq=18.0,
+            bandwidth=6.0,
+            amplitude=np.exp(rng.normal(np.log(0.25), RHYTHM_LN_SD)),
+        ),
     ]
     return tuple(gens)
 
@@ -83,8 +95,9 @@ def _person_background(rng: np.random.Generator, age: float) -> float:
     return float(np.exp(rng.normal(np.log(10.0) - 0.004 * (age - 18), BACKGROUND_LN_SD)))
 
 
-def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
-                    extra: tuple[Generator, ...] = ()):
+def simulate_person(
+    rng: np.random.Generator, age: float, *, duration_s: float, extra: tuple[Generator, ...] = ()
+):
     """One invented person's recording as an ``mne.io.RawArray``.
 
     Parameters
@@ -113,9 +126,16 @@ def simulate_person(rng: np.random.Generator, age: float, *, duration_s: float,
     # through the background and generators already), SD BAND_LN_SD at each centre
     g = rng.normal(0.0, BAND_LN_SD / np.sqrt(1 - 1 / len(BAND_CENTRES_HZ)), len(BAND_CENTRES_HZ))
     shape = tuple((c, float(x)) for c, x in zip(BAND_CENTRES_HZ, g - g.mean()))
-    return simulate_raw(load_head_model(), duration_s=duration_s, sfreq=256.0,
-                        generators=gens, background_uv=background,
-                        background_exponent=exponent, background_spectral_gain=shape, rng=rng)
+    return simulate_raw(
+        load_head_model(),
+        duration_s=duration_s,
+        sfreq=256.0,
+        generators=gens,
+        background_uv=background,
+        background_exponent=exponent,
+        background_spectral_gain=shape,
+        rng=rng,
+    )
 
 
 def demo_recording():
@@ -134,8 +154,9 @@ def demo_recording():
     # 0.35 the planted theta share of 1-45 Hz power reached 0.68 (relative z 6.2 in BA8): a
     # focal band-specific excess moves relative power about 2.4 times as many SDs as absolute
     # power in these norms, whose absolute SD also holds the between-person scale.
-    planted = Generator(_PLANTED_CENTER, "left", freq=6.0, amplitude=PLANTED_AMPLITUDE,
-                        radius_mm=15.0)
+    planted = Generator(
+        _PLANTED_CENTER, "left", freq=6.0, amplitude=PLANTED_AMPLITUDE, radius_mm=15.0
+    )
     return simulate_person(rng, DEMO_AGE, duration_s=240.0, extra=(planted,))
 
 
@@ -164,8 +185,7 @@ def cohort(n: int = 80, *, duration_s: float = 120.0, seed: int = COHORT_SEED):
     rng = np.random.default_rng(seed)
     ages = np.sort(rng.uniform(18, 65, n))
     for i, age in enumerate(ages):
-        yield f"inv{i + 1:03d}", float(age), simulate_person(rng, float(age),
-                                                             duration_s=duration_s)
+        yield f"inv{i + 1:03d}", float(age), simulate_person(rng, float(age), duration_s=duration_s)
 
 
 def write_edf(raw, path: Path, *, description: str) -> Path:
@@ -228,12 +248,19 @@ def demo_result(*, config=None, progress: bool | None = False):
     """
     from .analysis import analyze
 
-    return analyze(demo_recording(), config=config, age=DEMO_AGE, norms=demo_norms_path(),
-                   condition=DEMO_CONDITION, progress=progress)
+    return analyze(
+        demo_recording(),
+        config=config,
+        age=DEMO_AGE,
+        norms=demo_norms_path(),
+        condition=DEMO_CONDITION,
+        progress=progress,
+    )
 
 
-def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0,
-                     progress: bool | None = False) -> Path:
+def build_demo_norms(
+    out: str | Path, *, n: int = 80, duration_s: float = 240.0, progress: bool | None = False
+) -> Path:
     """Simulate the invented cohort, analyse every member, and write norms.
 
     Beside ``out``: the per-source norms (``<stem>_sources.npz``, same fingerprint) and the
@@ -276,26 +303,47 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0,
     # intervals do not change the values the norms need
     config = AnalysisConfig(n_boot=0, coupling_n_boot=0)
     entries, maps, epochs = [], [], []
-    bar = tqdm(cohort(n, duration_s=duration_s), total=n, unit="participant",
-               desc="simulating and analysing the invented cohort", leave=False,
-               disable=None if progress is None else not progress)
+    bar = tqdm(
+        cohort(n, duration_s=duration_s),
+        total=n,
+        unit="participant",
+        desc="simulating and analysing the invented cohort",
+        leave=False,
+        disable=None if progress is None else not progress,
+    )
     for pid, age, raw in bar:
         try:
             res = analyze(raw, config=config)
         except InputError as exc:  # e.g. too little clean data: left out, as a real lab would
             log.warning("demo cohort: %s left out: %s", pid, exc)
             continue
-        entries.append((pid, age, res.roi_table, res.sensor_table,
-                        slim_table(res.pair_table, "pair"), slim_table(res.coupling_table, "edge")))
+        entries.append(
+            (
+                pid,
+                age,
+                res.roi_table,
+                res.sensor_table,
+                slim_table(res.pair_table, "pair"),
+                slim_table(res.coupling_table, "edge"),
+            )
+        )
         maps.append({"absolute": res.source_abs, "relative": res.source_rel})
         epochs.append(res.quality.n_epochs)
         log.info("demo cohort: %s (age %.1f) done", pid, age)
     fit, source_norms = fit_cohort(
-        entries, maps, fingerprint=fingerprint_for(config), condition=DEMO_CONDITION,
-        cohort_info={"source": "INVENTED: simulated by sourcelab.demo (seed %d)" % COHORT_SEED,
-                     "clean_epochs": clean_epochs_summary(epochs)},
-        notes=("INVENTED demo norms: simulated adults, no real person's data. "
-               "Never use them to assess a real person.",))
+        entries,
+        maps,
+        fingerprint=fingerprint_for(config),
+        condition=DEMO_CONDITION,
+        cohort_info={
+            "source": "INVENTED: simulated by sourcelab.demo (seed %d)" % COHORT_SEED,
+            "clean_epochs": clean_epochs_summary(epochs),
+        },
+        notes=(
+            "INVENTED demo norms: simulated adults, no real person's data. "
+            "Never use them to assess a real person.",
+        ),
+    )
     written = write_cohort_norms(fit, source_norms, out)[0]
     from .data import DATA_DIR, update_manifest
     from .norms.source_norms import source_norms_path
@@ -305,7 +353,9 @@ def build_demo_norms(out: str | Path, *, n: int = 80, duration_s: float = 240.0,
 
         beside = [source_norms_path(out), Path(out).with_suffix(".json")] + [
             Path(out).with_name(Path(out).stem + suffix)
-            for suffix in ("_calibration.tsv", "_calibration.png")]
-        update_manifest({Path(out).name: written.sha256,
-                         **{p.name: sha256_file(p) for p in beside}})
+            for suffix in ("_calibration.tsv", "_calibration.png")
+        ]
+        update_manifest(
+            {Path(out).name: written.sha256, **{p.name: sha256_file(p) for p in beside}}
+        )
     return Path(out)

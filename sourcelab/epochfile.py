@@ -118,17 +118,28 @@ def unpack_triu(packed: np.ndarray, n: int) -> np.ndarray:
     packed = np.asarray(packed, dtype=float)
     iu, ju = np.triu_indices(n)
     if packed.shape[-1] != iu.size:
-        raise InputError(f"csd_triu: last axis {packed.shape[-1]} does not hold the upper "
-                         f"triangle of a {n} x {n} matrix ({iu.size} entries)")
+        raise InputError(
+            f"csd_triu: last axis {packed.shape[-1]} does not hold the upper "
+            f"triangle of a {n} x {n} matrix ({iu.size} entries)"
+        )
     out = np.zeros(packed.shape[:-1] + (n, n))
     out[..., iu, ju] = packed
     out[..., ju, iu] = packed
     return out
 
 
-def write_epochs(path: str | Path, epoch_csd: np.ndarray, *, ch_names, band_names, band_edges,
-                 epoch_s: float, sfreq: float, fingerprint: Fingerprint,
-                 onsets_s: np.ndarray | None = None) -> Path:
+def write_epochs(
+    path: str | Path,
+    epoch_csd: np.ndarray,
+    *,
+    ch_names,
+    band_names,
+    band_edges,
+    epoch_s: float,
+    sfreq: float,
+    fingerprint: Fingerprint,
+    onsets_s: np.ndarray | None = None,
+) -> Path:
     """Write ``epochs.npz`` (see the module docstring for the layout).
 
     Parameters
@@ -160,21 +171,31 @@ def write_epochs(path: str | Path, epoch_csd: np.ndarray, *, ch_names, band_name
     """
     c = np.asarray(epoch_csd)
     if c.ndim != 4 or c.shape[-1] != c.shape[-2] or c.shape[-1] != len(ch_names):
-        raise InputError(f"epoch_csd: need shape (n_epochs, n_bands, {len(ch_names)}, "
-                         f"{len(ch_names)}), got {c.shape}")
-    on = (np.full(c.shape[0], np.nan) if onsets_s is None
-          else np.asarray(onsets_s, dtype=float).reshape(-1))
+        raise InputError(
+            f"epoch_csd: need shape (n_epochs, n_bands, {len(ch_names)}, "
+            f"{len(ch_names)}), got {c.shape}"
+        )
+    on = (
+        np.full(c.shape[0], np.nan)
+        if onsets_s is None
+        else np.asarray(onsets_s, dtype=float).reshape(-1)
+    )
     if on.shape != (c.shape[0],):
         raise InputError(f"onsets_s: need {c.shape[0]} values, got {on.shape}")
     path = Path(path)
     with open(path, "wb") as f:
         np.savez_compressed(
-            f, format=np.array(FORMAT), fingerprint=np.array(fingerprint.to_json()),
+            f,
+            format=np.array(FORMAT),
+            fingerprint=np.array(fingerprint.to_json()),
             ch_names=np.array([str(x) for x in ch_names]),
             band_names=np.array([str(x) for x in band_names]),
             band_edges=np.asarray(band_edges, dtype=float).reshape(-1, 2),
-            epoch_s=np.array(float(epoch_s)), sfreq=np.array(float(sfreq)), onsets_s=on,
-            csd_triu=pack_triu(c))
+            epoch_s=np.array(float(epoch_s)),
+            sfreq=np.array(float(sfreq)),
+            onsets_s=on,
+            csd_triu=pack_triu(c),
+        )
     return path
 
 
@@ -200,16 +221,21 @@ def read_epochs(path: str | Path) -> EpochSpectra:
     if path.is_dir():
         path = path / FILENAME
     if not path.is_file():
-        raise InputError(f"no {FILENAME} (per-epoch spectra); analyse the recording again with "
-                         "this sourcelab version", path=path)
+        raise InputError(
+            f"no {FILENAME} (per-epoch spectra); analyse the recording again with "
+            "this sourcelab version",
+            path=path,
+        )
     try:
         with np.load(path, allow_pickle=False) as z:
             d = {k: z[k] for k in z.files}
     except (OSError, ValueError, zipfile.BadZipFile) as exc:
         raise InputError(f"cannot read per-epoch spectra ({exc})", path=path) from None
     if str(d.get("format", "")) != FORMAT:
-        raise InputError(f"not a sourcelab epochs file (format {str(d.get('format'))!r}, "
-                         f"expected {FORMAT!r})", path=path)
+        raise InputError(
+            f"not a sourcelab epochs file (format {str(d.get('format'))!r}, expected {FORMAT!r})",
+            path=path,
+        )
     try:
         ch = tuple(str(x) for x in d["ch_names"])
         bands = tuple(str(x) for x in d["band_names"])
@@ -217,14 +243,23 @@ def read_epochs(path: str | Path) -> EpochSpectra:
         csd = unpack_triu(d["csd_triu"], len(ch))
         onsets = np.asarray(d["onsets_s"], dtype=float)
         fp = Fingerprint.from_dict(json.loads(str(d["fingerprint"])))
-        out = EpochSpectra(csd=csd, ch_names=ch, band_names=bands, band_edges=edges,
-                           epoch_s=float(d["epoch_s"]), sfreq=float(d["sfreq"]),
-                           onsets_s=onsets, fingerprint=fp)
+        out = EpochSpectra(
+            csd=csd,
+            ch_names=ch,
+            band_names=bands,
+            band_edges=edges,
+            epoch_s=float(d["epoch_s"]),
+            sfreq=float(d["sfreq"]),
+            onsets_s=onsets,
+            fingerprint=fp,
+        )
     except InputError as exc:
         raise InputError(exc.problem, path=path) from None
     except (KeyError, ValueError, TypeError, json.JSONDecodeError) as exc:
         raise InputError(f"malformed {FORMAT} file ({exc!r})", path=path) from None
     if csd.ndim != 4 or csd.shape[1] != len(bands) or onsets.shape != (csd.shape[0],):
-        raise InputError(f"inconsistent shapes: csd {csd.shape}, {len(bands)} bands, "
-                         f"{onsets.shape[0]} onsets", path=path)
+        raise InputError(
+            f"inconsistent shapes: csd {csd.shape}, {len(bands)} bands, {onsets.shape[0]} onsets",
+            path=path,
+        )
     return out

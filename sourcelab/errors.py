@@ -20,8 +20,7 @@ class InputError(ValueError):
         :func:`sourcelab.config.load_config`).
     """
 
-    def __init__(self, message: str, *, path: str | Path | None = None,
-                 field: str | None = None):
+    def __init__(self, message: str, *, path: str | Path | None = None, field: str | None = None):
         self.path = None if path is None else Path(path)
         self.problem = message
         self.field = field

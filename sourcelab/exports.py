@@ -44,7 +44,7 @@ VOLUME_SPACE = "MNI152NLin2009aSym"
 #: "Levels"}}``).
 POWER_COLUMN_NOTES = {
     "atlas": "atlas of the region (brodmann, lobes, networks: Brodmann-area networks, yeo7: Yeo "
-             "2011 7 networks, or your own ROI set)",
+    "2011 7 networks, or your own ROI set)",
     "roi": "region of interest",
     "hemisphere": "left, right or both",
     "channel": "10-20 electrode site",
@@ -54,7 +54,7 @@ POWER_COLUMN_NOTES = {
     "n_vertices": "cortical sources in the region",
     "small": "the region has fewer sources than sourcelab's minimum for a stable mean",
     "resolvable": "the template head model can tell this area from its neighbours "
-                  "(see the leakage table)",
+    "(see the leakage table)",
     "z": "z-score against the norms (empty without norms)",
     "z_equivalent": "z of the norm's predictive distribution (empty without norms)",
     "p": "two-sided p-value of z",
@@ -72,8 +72,14 @@ POWER_COLUMN_NOTES = {
 }
 _Z_UNITS = "standard deviations of the norm"
 #: Units of columns other than ``value`` (whose unit follows the measure).
-_FIXED_UNITS = {"z": _Z_UNITS, "z_lo": _Z_UNITS, "z_hi": _Z_UNITS, "z_equivalent": _Z_UNITS,
-                "distance_mm": "mm", "n_vertices": "sources"}
+_FIXED_UNITS = {
+    "z": _Z_UNITS,
+    "z_lo": _Z_UNITS,
+    "z_hi": _Z_UNITS,
+    "z_equivalent": _Z_UNITS,
+    "distance_mm": "mm",
+    "n_vertices": "sources",
+}
 #: Columns whose unit is the unit of ``value`` (the row's measure).
 _VALUE_LIKE = ("value", "value_lo", "value_hi", "leakage_expected", "leakage_q95")
 VALUE_UNITS_NOTE = "unit of the row's measure (see the Levels of the column 'measure')"
@@ -120,8 +126,13 @@ def file_table(table):
     return table.drop(columns="unit") if units_by_measure(table) is not None else table
 
 
-def column_sidecar(table, notes: dict | None = None, *, band_edges: dict | None = None,
-                   measure_descriptions: dict | None = None) -> dict:
+def column_sidecar(
+    table,
+    notes: dict | None = None,
+    *,
+    band_edges: dict | None = None,
+    measure_descriptions: dict | None = None,
+) -> dict:
     """BIDS-style column descriptions of a tidy table as written by :func:`file_table`.
 
     Parameters
@@ -146,13 +157,13 @@ def column_sidecar(table, notes: dict | None = None, *, band_edges: dict | None 
     written = file_table(table)
     out = {}
     for col in written.columns:
-        d = {"Description": notes.get(col) or POWER_COLUMN_NOTES.get(col)
-             or col.replace("_", " ")}
+        d = {"Description": notes.get(col) or POWER_COLUMN_NOTES.get(col) or col.replace("_", " ")}
         if col in _FIXED_UNITS:
             d["Units"] = _FIXED_UNITS[col]
         elif col in _VALUE_LIKE:
-            d["Units"] = VALUE_UNITS_NOTE if units is not None else \
-                "given per row in the column 'unit'"
+            d["Units"] = (
+                VALUE_UNITS_NOTE if units is not None else "given per row in the column 'unit'"
+            )
         if col == "measure":
             levels = {}
             for m in dict.fromkeys(table["measure"]):
@@ -160,14 +171,17 @@ def column_sidecar(table, notes: dict | None = None, *, band_edges: dict | None 
                 levels[str(m)] = f"{words} ({units[m]})" if units else words
             d["Levels"] = levels
         elif col == "band" and band_edges:
-            d["Levels"] = {b: f"{lo:g}-{hi:g} Hz (low edge included, high edge excluded)"
-                           for b, (lo, hi) in band_edges.items()}
+            d["Levels"] = {
+                b: f"{lo:g}-{hi:g} Hz (low edge included, high edge excluded)"
+                for b, (lo, hi) in band_edges.items()
+            }
         out[col] = d
     return out
 
 
-def write_table(table, path, sidecar: dict, *, na_rep: str = "",
-                float_format: str | None = "%.6g") -> Path:
+def write_table(
+    table, path, sidecar: dict, *, na_rep: str = "", float_format: str | None = "%.6g"
+) -> Path:
     """Write ``table`` as a plain TSV and its column sidecar as ``<stem>.json`` beside it.
 
     The header row comes first: the file reads with ``pandas.read_csv(path, sep="\t")``.
@@ -191,10 +205,10 @@ def write_table(table, path, sidecar: dict, *, na_rep: str = "",
         ``path``.
     """
     path = Path(path)
-    file_table(table).to_csv(path, sep="\t", index=False, na_rep=na_rep,
-                             float_format=float_format)
-    path.with_suffix(".json").write_text(json.dumps(sidecar, indent=2, ensure_ascii=False)
-                                         + "\n", encoding="utf-8")
+    file_table(table).to_csv(path, sep="\t", index=False, na_rep=na_rep, float_format=float_format)
+    path.with_suffix(".json").write_text(
+        json.dumps(sidecar, indent=2, ensure_ascii=False) + "\n", encoding="utf-8"
+    )
     return path
 
 
@@ -241,8 +255,9 @@ def _maps(result, measure: str) -> np.ndarray:
     if measure in Z_MEASURES:
         z = getattr(result, "source_z", None) or {}
         if measure[2:] not in z:
-            raise InputError(f"measure: {measure!r} needs per-source norms (result.source_z)",
-                             field="measure")
+            raise InputError(
+                f"measure: {measure!r} needs per-source norms (result.source_z)", field="measure"
+            )
         arr = np.asarray(z[measure[2:]])
     else:
         arr = np.asarray(result.source_abs if measure == "absolute" else result.source_rel)
@@ -273,7 +288,7 @@ def export_stc(result, out_dir, *, measures=MEASURES) -> list[Path]:
     from .headmodel import load_head_model
 
     model = load_head_model()
-    vertices = [model.vertno[:model.n_left], model.vertno[model.n_left:] - N_LEFT]
+    vertices = [model.vertno[: model.n_left], model.vertno[model.n_left :] - N_LEFT]
     out_dir = Path(out_dir)
     stems = []
     with _staged(out_dir) as tmp:
@@ -281,8 +296,13 @@ def export_stc(result, out_dir, *, measures=MEASURES) -> list[Path]:
             maps = _maps(result, measure)
             for b, band in enumerate(result.bands.names):
                 stem = f"{measure}_{safe_name(band)}"
-                stc = mne.SourceEstimate(maps[b][:, None].astype(np.float64), vertices, tmin=0.0,
-                                         tstep=1.0, subject="fsaverage")
+                stc = mne.SourceEstimate(
+                    maps[b][:, None].astype(np.float64),
+                    vertices,
+                    tmin=0.0,
+                    tstep=1.0,
+                    subject="fsaverage",
+                )
                 stc.save(tmp / stem, ftype="stc", overwrite=True, verbose="error")
                 stems.append(out_dir / stem)
     return stems
@@ -293,9 +313,14 @@ def _gifti(values: np.ndarray, band_names) -> object:
 
     img = nib.gifti.GiftiImage()
     for v, band in zip(values, band_names):
-        img.add_gifti_data_array(nib.gifti.GiftiDataArray(
-            np.asarray(v, np.float32), intent="NIFTI_INTENT_ESTIMATE", datatype="NIFTI_TYPE_FLOAT32",
-            meta={"Name": str(band)}))
+        img.add_gifti_data_array(
+            nib.gifti.GiftiDataArray(
+                np.asarray(v, np.float32),
+                intent="NIFTI_INTENT_ESTIMATE",
+                datatype="NIFTI_TYPE_FLOAT32",
+                meta={"Name": str(band)},
+            )
+        )
     return img
 
 
@@ -334,14 +359,15 @@ def export_gifti(result, out_dir, *, measures=MEASURES, prefix: str = "") -> lis
             maps = load_head_model().to_surface(_maps(result, measure))
             for h, (hemi, abbr) in enumerate(HEMI_BIDS.items()):
                 name = f"{prefix}{measure}.{abbr}.func.gii"
-                img = _gifti(maps[:, h * N_LEFT:(h + 1) * N_LEFT], result.bands.names)
+                img = _gifti(maps[:, h * N_LEFT : (h + 1) * N_LEFT], result.bands.names)
                 nib.save(img, tmp / name)
                 paths.append(out_dir / name)
     return paths
 
 
-def export_nifti(result, out_dir, *, measures=MEASURES, resolution: int = 2,
-                 prefix: str = "") -> list[Path]:
+def export_nifti(
+    result, out_dir, *, measures=MEASURES, resolution: int = 2, prefix: str = ""
+) -> list[Path]:
     """Write MNI152 volumes, one per band and measure (``<prefix><measure>_<band>.nii.gz``).
 
     Each grey-matter voxel within 5 mm of the cortical sheet takes the value of the nearest
@@ -404,8 +430,9 @@ def bids_label(participant_id: str) -> str:
     s = re.sub(r"^sub-", "", s)
     s = re.sub(r"[^A-Za-z0-9]", "", s)
     if not s:
-        raise InputError(f"participant_id {participant_id!r}: no letters or digits for a BIDS "
-                         "label")
+        raise InputError(
+            f"participant_id {participant_id!r}: no letters or digits for a BIDS label"
+        )
     return s
 
 
@@ -454,8 +481,13 @@ def export_bids_derivatives(result, root, participant_id: str, *, resolution: in
         "Name": "sourcelab source-level band power",
         "BIDSVersion": "1.9.0",
         "DatasetType": "derivative",
-        "GeneratedBy": [{"Name": "sourcelab", "Version": __version__,
-                         "Description": "sLORETA band power on the fsaverage5 template"}],
+        "GeneratedBy": [
+            {
+                "Name": "sourcelab",
+                "Version": __version__,
+                "Description": "sLORETA band power on the fsaverage5 template",
+            }
+        ],
     }
     atomic_write_text(deriv / "dataset_description.json", json.dumps(desc, indent=2) + "\n")
     sub = deriv / f"sub-{label}"
@@ -474,33 +506,64 @@ def export_bids_derivatives(result, root, participant_id: str, *, resolution: in
             surf = load_head_model().to_surface(maps)
             for h, (hemi, abbr) in enumerate(HEMI_BIDS.items()):
                 stem = f"{base}_hemi-{abbr}_space-fsaverage_den-10k_desc-{measure}_power"
-                nib.save(_gifti(surf[:, h * N_LEFT:(h + 1) * N_LEFT], bands),
-                         eeg / f"{stem}.func.gii")
-                (eeg / f"{stem}.json").write_text(json.dumps(
-                    {"Bands": result.bands.as_list(), "Measure": measure,
-                     "Units": _unit(measure), "Density": "10k: 10,242 vertices a hemisphere "
-                     "(fsaverage5)"}, indent=2) + "\n", encoding="utf-8")
+                nib.save(
+                    _gifti(surf[:, h * N_LEFT : (h + 1) * N_LEFT], bands), eeg / f"{stem}.func.gii"
+                )
+                (eeg / f"{stem}.json").write_text(
+                    json.dumps(
+                        {
+                            "Bands": result.bands.as_list(),
+                            "Measure": measure,
+                            "Units": _unit(measure),
+                            "Density": "10k: 10,242 vertices a hemisphere (fsaverage5)",
+                        },
+                        indent=2,
+                    )
+                    + "\n",
+                    encoding="utf-8",
+                )
             for b, band in enumerate(bands):
-                stem = (f"{base}_space-{VOLUME_SPACE}_res-{resolution}_desc-{measure}"
-                        f"{_bids_band(band)}_power")
-                nib.save(sources_to_volume(maps[b], resolution=resolution),
-                         eeg / f"{stem}.nii.gz")
+                stem = (
+                    f"{base}_space-{VOLUME_SPACE}_res-{resolution}_desc-{measure}"
+                    f"{_bids_band(band)}_power"
+                )
+                nib.save(sources_to_volume(maps[b], resolution=resolution), eeg / f"{stem}.nii.gz")
                 lo, hi = result.bands.edges[b]
-                (eeg / f"{stem}.json").write_text(json.dumps(
-                    {"Band": [band, lo, hi], "Measure": measure, "Units": _unit(measure),
-                     "Resolution": f"{resolution} mm isotropic voxels"}, indent=2) + "\n",
-                    encoding="utf-8")
+                (eeg / f"{stem}.json").write_text(
+                    json.dumps(
+                        {
+                            "Band": [band, lo, hi],
+                            "Measure": measure,
+                            "Units": _unit(measure),
+                            "Resolution": f"{resolution} mm isotropic voxels",
+                        },
+                        indent=2,
+                    )
+                    + "\n",
+                    encoding="utf-8",
+                )
         edges = dict(zip(result.bands.names, result.bands.edges))
         for kind, table in (("roi", result.roi_table), ("sensor", result.sensor_table)):
-            write_table(table, eeg / f"{base}_desc-{kind}_power.tsv",
-                        column_sidecar(table, band_edges=edges), na_rep="n/a",
-                        float_format=None)
-        prov = {"fingerprint": result.fingerprint.to_dict(), "config": result.config.to_dict(),
-                "recording": {k: v for k, v in result.recording.to_dict().items()
-                              if isinstance(v, (str, int, float, bool))},
-                "norms": None if result.norms is None else result.norms.to_dict()}
+            write_table(
+                table,
+                eeg / f"{base}_desc-{kind}_power.tsv",
+                column_sidecar(table, band_edges=edges),
+                na_rep="n/a",
+                float_format=None,
+            )
+        prov = {
+            "fingerprint": result.fingerprint.to_dict(),
+            "config": result.config.to_dict(),
+            "recording": {
+                k: v
+                for k, v in result.recording.to_dict().items()
+                if isinstance(v, (str, int, float, bool))
+            },
+            "norms": None if result.norms is None else result.norms.to_dict(),
+        }
         (eeg / f"{base}_desc-sourcelab_provenance.json").write_text(
-            json.dumps(prov, indent=2, default=str) + "\n", encoding="utf-8")
+            json.dumps(prov, indent=2, default=str) + "\n", encoding="utf-8"
+        )
     return sub
 
 

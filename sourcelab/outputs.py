@@ -61,8 +61,10 @@ def provenance(result, *, command: list[str] | None = None) -> dict:
     return {
         "sourcelab_provenance": 1,
         "command": command if command is not None else sys.argv,
-        "inputs": {"recording": {"path": rec["path"], "sha256": rec["sha256"]},
-                   "norms": None if result.norms is None else result.norms.to_dict()},
+        "inputs": {
+            "recording": {"path": rec["path"], "sha256": rec["sha256"]},
+            "norms": None if result.norms is None else result.norms.to_dict(),
+        },
         "recording": rec,
         "parameters": result.config.to_dict(),
         "fingerprint": result.fingerprint.to_dict(),
@@ -132,13 +134,16 @@ def table_sidecar(table, notes: dict, *, band_edges: dict | None = None) -> dict
     from .coupling import MEASURE_DESCRIPTIONS
     from .exports import column_sidecar
 
-    return column_sidecar(table, {**_ADDED_COLUMN_NOTES, **notes}, band_edges=band_edges,
-                          measure_descriptions=MEASURE_DESCRIPTIONS)
+    return column_sidecar(
+        table,
+        {**_ADDED_COLUMN_NOTES, **notes},
+        band_edges=band_edges,
+        measure_descriptions=MEASURE_DESCRIPTIONS,
+    )
 
 
 #: Measure -> words, for the ``measure`` levels of the band-power table sidecars.
-_POWER_MEASURES = {"absolute": "absolute band power",
-                   "relative": "relative band power"}
+_POWER_MEASURES = {"absolute": "absolute band power", "relative": "relative band power"}
 
 
 def _write_coupling_tables(result, folder: Path) -> None:
@@ -147,12 +152,13 @@ def _write_coupling_tables(result, folder: Path) -> None:
     from .exports import write_table
 
     edges = dict(zip(result.bands.names, result.bands.edges))
-    for name, table, notes in (("pair_table", result.pair_table, PAIR_COLUMN_NOTES),
-                               ("coupling_table", result.coupling_table, EDGE_COLUMN_NOTES)):
+    for name, table, notes in (
+        ("pair_table", result.pair_table, PAIR_COLUMN_NOTES),
+        ("coupling_table", result.coupling_table, EDGE_COLUMN_NOTES),
+    ):
         if table is None:
             continue
-        write_table(table, folder / f"{name}.tsv",
-                    table_sidecar(table, notes, band_edges=edges))
+        write_table(table, folder / f"{name}.tsv", table_sidecar(table, notes, band_edges=edges))
 
 
 def write_tables(result, folder: Path, *, command=None) -> None:
@@ -173,25 +179,49 @@ def write_tables(result, folder: Path, *, command=None) -> None:
 
     edges = dict(zip(result.bands.names, result.bands.edges))
     for name, table in (("roi_table", result.roi_table), ("sensor_table", result.sensor_table)):
-        write_table(table, folder / f"{name}.tsv",
-                    column_sidecar(table, _ADDED_COLUMN_NOTES, band_edges=edges,
-                                   measure_descriptions=_POWER_MEASURES))
+        write_table(
+            table,
+            folder / f"{name}.tsv",
+            column_sidecar(
+                table, _ADDED_COLUMN_NOTES, band_edges=edges, measure_descriptions=_POWER_MEASURES
+            ),
+        )
     _write_coupling_tables(result, folder)
     with open(folder / "provenance.json", "w", encoding="utf-8") as f:
-        json.dump(_finite(provenance(result, command=command)), f, indent=2,
-                  default=_json_default, allow_nan=False)
+        json.dump(
+            _finite(provenance(result, command=command)),
+            f,
+            indent=2,
+            default=_json_default,
+            allow_nan=False,
+        )
     if result.epoch_csd is not None:
         from .epochfile import FILENAME, write_epochs
 
         cfg = result.config
-        write_epochs(folder / FILENAME, result.epoch_csd, ch_names=result.ch_names,
-                     band_names=cfg.bands.names, band_edges=cfg.bands.edges,
-                     epoch_s=cfg.epoch_s, sfreq=float(result.recording.sfreq),
-                     fingerprint=result.fingerprint, onsets_s=result.epoch_onsets_s)
+        write_epochs(
+            folder / FILENAME,
+            result.epoch_csd,
+            ch_names=result.ch_names,
+            band_names=cfg.bands.names,
+            band_edges=cfg.bands.edges,
+            epoch_s=cfg.epoch_s,
+            sfreq=float(result.recording.sfreq),
+            fingerprint=result.fingerprint,
+            onsets_s=result.epoch_onsets_s,
+        )
 
 
-def write_analysis(result, out: str | Path, *, figures: bool = True, report: bool = True,
-                   exports: bool = True, command=None, progress: bool | None = False) -> Path:
+def write_analysis(
+    result,
+    out: str | Path,
+    *,
+    figures: bool = True,
+    report: bool = True,
+    exports: bool = True,
+    command=None,
+    progress: bool | None = False,
+) -> Path:
     """Write everything for one analysis into ``out`` (replaced atomically).
 
     See :func:`write_analysis_into` for the files.
@@ -216,14 +246,28 @@ def write_analysis(result, out: str | Path, *, figures: bool = True, report: boo
     """
     out = Path(out)
     with atomic_output_dir(out) as tmp:
-        write_analysis_into(result, tmp, figures=figures, report=report, exports=exports,
-                            command=command, progress=progress)
+        write_analysis_into(
+            result,
+            tmp,
+            figures=figures,
+            report=report,
+            exports=exports,
+            command=command,
+            progress=progress,
+        )
     return out
 
 
-def write_analysis_into(result, folder: Path, *, figures: bool = True, report: bool = True,
-                        exports: bool = True, command=None,
-                        progress: bool | None = False) -> dict:
+def write_analysis_into(
+    result,
+    folder: Path,
+    *,
+    figures: bool = True,
+    report: bool = True,
+    exports: bool = True,
+    command=None,
+    progress: bool | None = False,
+) -> dict:
     """Write the analysis into an existing (temporary) folder; nothing is computed here.
 
     Always: ``roi_table.tsv``, ``sensor_table.tsv``, ``provenance.json``, ``epochs.npz``
@@ -258,8 +302,15 @@ def write_analysis_into(result, folder: Path, *, figures: bool = True, report: b
     stages = ["tables"] + ["figures"] * figures + ["report"] * report + ["maps"] * exports
     with Stages(stages, desc="writing", enabled=progress) as st:
         st.step("tables")
-        return _write_into(result, folder, figures=figures, report=report, exports=exports,
-                           command=command, step=st.step)
+        return _write_into(
+            result,
+            folder,
+            figures=figures,
+            report=report,
+            exports=exports,
+            command=command,
+            step=st.step,
+        )
 
 
 def _write_into(result, folder: Path, *, figures, report, exports, command, step) -> dict:
@@ -271,8 +322,9 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
 
         write_candidates(result.candidates, folder / "candidates.tsv")
     if result.leakage_hints is not None:
-        result.leakage_hints.to_csv(folder / "leakage_hints.tsv", sep="\t", index=False,
-                                    float_format="%.4g")
+        result.leakage_hints.to_csv(
+            folder / "leakage_hints.tsv", sep="\t", index=False, float_format="%.4g"
+        )
     pngs: dict = {}
     if figures:
         step("figures")

@@ -33,9 +33,14 @@ class Stages:
         if self.enabled is not False:
             from tqdm import tqdm
 
-            self._bar = tqdm(total=len(self.names), desc=self.desc, unit="stage", leave=False,
-                             disable=None if self.enabled is None else False,
-                             bar_format="{desc}: {n_fmt}/{total_fmt} {postfix} [{elapsed}]")
+            self._bar = tqdm(
+                total=len(self.names),
+                desc=self.desc,
+                unit="stage",
+                leave=False,
+                disable=None if self.enabled is None else False,
+                bar_format="{desc}: {n_fmt}/{total_fmt} {postfix} [{elapsed}]",
+            )
         return self
 
     def step(self, name: str) -> None:

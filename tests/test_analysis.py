@@ -20,8 +20,15 @@ def occipital_alpha_edf(tmp_path_factory):
     rng = np.random.default_rng(7)
     model = load_head_model()
     gen = Generator((14.0, -95.0, 2.0), "right", freq=10.0, amplitude=1.5, radius_mm=12.0)
-    raw = simulate_raw(model, duration_s=120.0, sfreq=256.0, generators=(gen,), rng=rng,
-                       background_uv=10.0, sensor_noise_uv=1.0)
+    raw = simulate_raw(
+        model,
+        duration_s=120.0,
+        sfreq=256.0,
+        generators=(gen,),
+        rng=rng,
+        background_uv=10.0,
+        sensor_noise_uv=1.0,
+    )
     path = tmp_path_factory.mktemp("sim") / "right_occipital_alpha.edf"
     mne.export.export_raw(path, raw, fmt="edf", verbose="error")
     return path

@@ -17,9 +17,16 @@ PKG = ROOT / "sourcelab"
 
 #: top-level module or sub-package of sourcelab -> layer (DEVELOPERS.md)
 LAYERS = {
-    "__init__": 0, "constants": 0, "errors": 0, "checks": 0, "data": 0, "progress": 0,
+    "__init__": 0,
+    "constants": 0,
+    "errors": 0,
+    "checks": 0,
+    "data": 0,
+    "progress": 0,
     "cautions": 0,
-    "config": 1, "provenance": 1, "epochfile": 1,
+    "config": 1,
+    "provenance": 1,
+    "epochfile": 1,
     "intake": 2,
     "spectra": 3,
     "headmodel": 4,
@@ -33,10 +40,12 @@ LAYERS = {
     "report": 12,
     "exports": 13,
     "outputs": 14,
-    "result": 15, "analysis": 15,
+    "result": 15,
+    "analysis": 15,
     "simulate": 16,
     "batch": 17,
-    "cohort": 18, "compare": 18,
+    "cohort": 18,
+    "compare": 18,
     "demo": 19,
     "cli": 20,
 }
@@ -51,7 +60,8 @@ def _modules():
 def _is_type_checking(node) -> bool:
     test = node.test
     return (isinstance(test, ast.Name) and test.id == "TYPE_CHECKING") or (
-        isinstance(test, ast.Attribute) and test.attr == "TYPE_CHECKING")
+        isinstance(test, ast.Attribute) and test.attr == "TYPE_CHECKING"
+    )
 
 
 def _imports(path, parts):
@@ -92,8 +102,9 @@ def _layer(name: str):
 
 
 def test_every_module_has_a_layer():
-    missing = sorted({parts[1] for _, parts in _modules() if len(parts) > 1
-                      and parts[1] not in LAYERS})
+    missing = sorted(
+        {parts[1] for _, parts in _modules() if len(parts) > 1 and parts[1] not in LAYERS}
+    )
     assert not missing, f"add {missing} to LAYERS (and to DEVELOPERS.md)"
 
 
@@ -111,20 +122,30 @@ def test_no_import_runs_back_up_the_data_path():
 
 
 def _run(code: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                          timeout=300, cwd=ROOT)
+    return subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, timeout=300, cwd=ROOT
+    )
 
 
 def test_front_door_is_small_and_lazy():
     import sourcelab
 
-    assert set(sourcelab.__all__) == {"PIPELINE_VERSION", "__version__", "analyze",
-                                      "AnalysisConfig", "AnalysisResult", "read_norms",
-                                      "build_norms", "load_atlas"}
+    assert set(sourcelab.__all__) == {
+        "PIPELINE_VERSION",
+        "__version__",
+        "analyze",
+        "AnalysisConfig",
+        "AnalysisResult",
+        "read_norms",
+        "build_norms",
+        "load_atlas",
+    }
     assert callable(sourcelab.analyze) and callable(sourcelab.build_norms)
     # importing the package alone loads no heavy library (start-up time of the CLI)
-    proc = _run("import sys, sourcelab; heavy = [m for m in ('mne', 'scipy', 'pandas', "
-                "'matplotlib', 'nilearn', 'sklearn') if m in sys.modules]; print(heavy)")
+    proc = _run(
+        "import sys, sourcelab; heavy = [m for m in ('mne', 'scipy', 'pandas', "
+        "'matplotlib', 'nilearn', 'sklearn') if m in sys.modules]; print(heavy)"
+    )
     assert proc.returncode == 0 and proc.stdout.strip() == "[]", proc.stdout + proc.stderr
     with pytest.raises(AttributeError):
         sourcelab.no_such_name  # noqa: B018
@@ -133,12 +154,14 @@ def test_front_door_is_small_and_lazy():
 def test_runs_without_posix_only_modules():
     # The build helpers use the POSIX-only `resource` module; the analysis path must not need it
     # (Windows has no `resource`): block it and load the head model and an atlas.
-    proc = _run("import sys; sys.modules['resource'] = None\n"
-                "import sourcelab\n"
-                "from sourcelab.headmodel import load_head_model\n"
-                "m = load_head_model(); a = sourcelab.load_atlas('lobes')\n"
-                "import sourcelab.analysis, sourcelab.cli.main\n"
-                "print(m.n_src, len(a.rois))")
+    proc = _run(
+        "import sys; sys.modules['resource'] = None\n"
+        "import sourcelab\n"
+        "from sourcelab.headmodel import load_head_model\n"
+        "m = load_head_model(); a = sourcelab.load_atlas('lobes')\n"
+        "import sourcelab.analysis, sourcelab.cli.main\n"
+        "print(m.n_src, len(a.rois))"
+    )
     assert proc.returncode == 0, proc.stderr[-2000:]
 
 

@@ -6,7 +6,11 @@ import numpy as np
 import pytest
 
 from sourcelab.intake.artefacts import (
-    MIN_LEARN_EPOCHS, amplitude_factor, learn_thresholds, plausibility_bounds, robust_threshold,
+    MIN_LEARN_EPOCHS,
+    amplitude_factor,
+    learn_thresholds,
+    plausibility_bounds,
+    robust_threshold,
 )
 
 
@@ -39,8 +43,9 @@ def test_false_rejection_rate_is_the_normal_tail(rng):
     assert abs(frac - p) < 3 * np.sqrt(p * (1 - p) / 200000) + 2e-4
 
 
-@pytest.mark.parametrize("age, factor", [(None, 2.0), (6, 2.0), (12, 2.0), (15, 1.5), (18, 1.0),
-                                         (40, 1.0), (80, 1.0)])
+@pytest.mark.parametrize(
+    "age, factor", [(None, 2.0), (6, 2.0), (12, 2.0), (15, 1.5), (18, 1.0), (40, 1.0), (80, 1.0)]
+)
 def test_amplitude_factor(age, factor):
     assert amplitude_factor(age) == pytest.approx(factor)
 
@@ -62,7 +67,7 @@ def test_bounds_and_clipping(rng):
     t = learn_thresholds(mid, mid / 10, age=30)
     assert np.all((t.ptp_uv > 100.0) & (t.ptp_uv < 250.0))
     np.testing.assert_array_equal(t.ptp_uv, t.learned_ptp_uv)  # inside the bounds: learned
-    few = learn_thresholds(mid[:MIN_LEARN_EPOCHS - 1], mid[:MIN_LEARN_EPOCHS - 1], age=30)
+    few = learn_thresholds(mid[: MIN_LEARN_EPOCHS - 1], mid[: MIN_LEARN_EPOCHS - 1], age=30)
     assert np.all(few.ptp_uv == 100.0) and np.isnan(few.learned_ptp_uv).all()
 
 

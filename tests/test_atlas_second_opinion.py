@@ -46,7 +46,7 @@ def _spun(labels, spheres, rot):
         n = sph.shape[0]
         r = rot if h == 0 else MIRROR @ rot @ MIRROR  # mirror image for the right hemisphere
         idx = cKDTree(sph).query(sph @ r.T)[1]
-        out[start:start + n] = labels[start:start + n][idx]
+        out[start : start + n] = labels[start : start + n][idx]
         start += n
     return out
 

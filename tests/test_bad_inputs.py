@@ -106,8 +106,10 @@ def test_corpus_size_and_summary(capsys):
     ran = len(RESULTS)
     clean = sum(RESULTS.values())
     with capsys.disabled():
-        print(f"\nbad-input corpus: {ran} cases run / {clean} clean (of {n} defined; "
-              f"{corpus.N_FUZZ} seeded EDF-header mutants, seed {corpus.FUZZ_SEED})")
+        print(
+            f"\nbad-input corpus: {ran} cases run / {clean} clean (of {n} defined; "
+            f"{corpus.N_FUZZ} seeded EDF-header mutants, seed {corpus.FUZZ_SEED})"
+        )
     if ran == n:  # the whole corpus ran in this session
         assert clean == n, sorted(k for k, v in RESULTS.items() if not v)
 
@@ -116,28 +118,32 @@ def test_corpus_size_and_summary(capsys):
 # Specific messages (the issue's misleading-message cases)
 # --------------------------------------------------------------------------------------------
 
-@pytest.mark.parametrize("cid, words", [
-    ("edf-record-duration-zero", "data-record duration is 0 s"),
-    ("edf-record-duration-negative", "data-record duration is -0.5 s"),
-    ("edf-record-duration-nan", "not a finite number"),
-    ("edf-samples-per-record-zero", "0 samples per data record"),
-    ("edf-samples-per-record-negative", "-128 samples per data record"),
-    ("edf-ten-samples", "too short"),
-    ("vhdr-ten-samples", "too short"),
-    ("fif-ten-samples", "too short"),
-    ("config-band-above-lowpass", "outside the filter pass band"),
-    ("config-lfreq-above-hfreq", "must be below h_freq"),
-    ("config-nboot-fraction", "n_boot: must be an integer"),
-    ("config-min-clean-negative", "min_clean_s"),
-    ("config-hfreq-above-nyquist", "Nyquist"),
-    ("target-norm-sd-text", "norm.sd: must be a number"),
-    ("target-step-tiny", "power.step_s"),
-    ("target-nested-deep", "nested"),
-    ("norms-fingerprint-nested-deep", "nested"),
-    ("cli-select-negative-range", "cannot be negative"),
-    ("vhdr-datafile-outside-folder", "outside the header's folder"),
-    ("out-user-folder", "not a sourcelab output folder"),
-])
+
+@pytest.mark.parametrize(
+    "cid, words",
+    [
+        ("edf-record-duration-zero", "data-record duration is 0 s"),
+        ("edf-record-duration-negative", "data-record duration is -0.5 s"),
+        ("edf-record-duration-nan", "not a finite number"),
+        ("edf-samples-per-record-zero", "0 samples per data record"),
+        ("edf-samples-per-record-negative", "-128 samples per data record"),
+        ("edf-ten-samples", "too short"),
+        ("vhdr-ten-samples", "too short"),
+        ("fif-ten-samples", "too short"),
+        ("config-band-above-lowpass", "outside the filter pass band"),
+        ("config-lfreq-above-hfreq", "must be below h_freq"),
+        ("config-nboot-fraction", "n_boot: must be an integer"),
+        ("config-min-clean-negative", "min_clean_s"),
+        ("config-hfreq-above-nyquist", "Nyquist"),
+        ("target-norm-sd-text", "norm.sd: must be a number"),
+        ("target-step-tiny", "power.step_s"),
+        ("target-nested-deep", "nested"),
+        ("norms-fingerprint-nested-deep", "nested"),
+        ("cli-select-negative-range", "cannot be negative"),
+        ("vhdr-datafile-outside-folder", "outside the header's folder"),
+        ("out-user-folder", "not a sourcelab output folder"),
+    ],
+)
 def test_messages_say_what_is_wrong(cid, words, base, tmp_path, monkeypatch, capsys):
     d = tmp_path / "case"
     case = corpus.build(cid, d, base)
@@ -168,6 +174,7 @@ def test_argparse_error_is_one_line_with_help_hint(capsys):
 # --------------------------------------------------------------------------------------------
 # Output folders: replaced only when sourcelab's, removed file by file
 # --------------------------------------------------------------------------------------------
+
 
 def test_sourcelab_output_is_replaced_atomically(base, tmp_path, monkeypatch, capsys):
     monkeypatch.chdir(tmp_path)
@@ -211,9 +218,9 @@ def test_removal_touches_only_listed_files(tmp_path):
         (folder / rel).write_text(rel)
     (tmp_path / "precious").write_text("x")
     os.symlink(tmp_path / "precious", folder / "roi_link.tsv")
-    info = provenance.OutputFolder(kind="analysis",
-                                   files=frozenset({"roi_table.tsv", "figures/a.png",
-                                                    "roi_link.tsv"}))
+    info = provenance.OutputFolder(
+        kind="analysis", files=frozenset({"roi_table.tsv", "figures/a.png", "roi_link.tsv"})
+    )
     kept = provenance._remove_listed(folder, info)
     assert sorted(kept) == ["figures/mine.png", "mine.txt", "roi_link.tsv"]
     assert (tmp_path / "precious").read_text() == "x"
@@ -283,20 +290,30 @@ def test_batch_folder_is_marked_and_reused(base, tmp_path, monkeypatch, capsys):
     monkeypatch.chdir(tmp_path)
     corpus._fast(tmp_path)
     corpus.rec_copy(base, tmp_path)
-    argv = ["batch", "rec.edf", "--out", "b", "--config", "fast.toml", "--no-progress",
-            *corpus.FAST]
+    argv = [
+        "batch",
+        "rec.edf",
+        "--out",
+        "b",
+        "--config",
+        "fast.toml",
+        "--no-progress",
+        *corpus.FAST,
+    ]
     assert main(argv) == 0
     info = provenance.recognise_output_dir(tmp_path / "b")
     assert info is not None and info.kind == "batch"
     assert main(argv) == 0  # up to date: reused, not refused
-    assert main(["analyze", "rec.edf", "--out", "b", "--config", "fast.toml",
-                 *corpus.FAST]) == 2  # an analysis may not replace a batch folder
+    assert (
+        main(["analyze", "rec.edf", "--out", "b", "--config", "fast.toml", *corpus.FAST]) == 2
+    )  # an analysis may not replace a batch folder
     assert "batch output" in capsys.readouterr().err
 
 
 # --------------------------------------------------------------------------------------------
 # Provenance hashes what is actually read
 # --------------------------------------------------------------------------------------------
+
 
 def _sha(*paths) -> str:
     from sourcelab.intake.files import hash_files
@@ -310,8 +327,7 @@ def test_brainvision_hash_covers_the_named_data_file(base, tmp_path):
 
     v = corpus._brainvision(tmp_path, base)
     os.replace(tmp_path / "rec.eeg", tmp_path / "data_renamed.eeg")
-    text = v.read_text(encoding="latin-1").replace("DataFile=rec.eeg",
-                                                  "DataFile=data_renamed.eeg")
+    text = v.read_text(encoding="latin-1").replace("DataFile=rec.eeg", "DataFile=data_renamed.eeg")
     v.write_text(text, encoding="latin-1")
     (tmp_path / "other.eeg").write_bytes(b"decoy")  # a file named like the header is NOT read
     _, _, sha, _, _ = read_file(v)
@@ -347,21 +363,29 @@ def test_eeglab_hash_covers_the_fdt(base, tmp_path):
 AUDITED = {
     "provenance.py": [
         ("os.rmdir(probe)", "the pre-flight's own mkdtemp probe, removed at once"),
-        ("os.unlink(p)", "_remove_listed: a regular file listed in the marker of a recognised "
-                         "sourcelab folder (or a sourcelab-0.1 name); links/unlisted are kept"),
+        (
+            "os.unlink(p)",
+            "_remove_listed: a regular file listed in the marker of a recognised "
+            "sourcelab folder (or a sourcelab-0.1 name); links/unlisted are kept",
+        ),
         ("os.rmdir(root)", "_remove_listed: a sub-folder, only when empty"),
         ("os.unlink(old / TMP_MARKER_NAME)", "_dispose_old: the marker sourcelab wrote"),
         ("os.unlink(old / TMP_MARKER_NAME)", "_dispose_old: the marker sourcelab wrote"),
         ("os.unlink(old / TMP_MARKER_NAME)", "_dispose_old: the marker sourcelab wrote"),
         ("os.rmdir(old)", "_dispose_old: the replaced folder, only when empty"),
         ("os.rmdir(old)", "_dispose_old: the replaced folder, only when empty"),
-        ("os.rename(old, keep)", "_dispose_old: a replaced folder that still holds unlisted "
-                                 "files (they appeared after the last check) is made visible "
-                                 "as NAME.kept-<time>, never deleted"),
+        (
+            "os.rename(old, keep)",
+            "_dispose_old: a replaced folder that still holds unlisted "
+            "files (they appeared after the last check) is made visible "
+            "as NAME.kept-<time>, never deleted",
+        ),
         ("os.unlink(p / TMP_MARKER_NAME)", "cleaner: sourcelab's marker in a stale folder"),
         ("os.rmdir(p)", "cleaner: stale folder, only when empty"),
-        ("shutil.rmtree(p, ignore_errors=True)", "cleaner: a stale build folder: created by "
-                                                 "sourcelab's mkdtemp, marked, lock free"),
+        (
+            "shutil.rmtree(p, ignore_errors=True)",
+            "cleaner: a stale build folder: created by sourcelab's mkdtemp, marked, lock free",
+        ),
         ("os.rmdir(p)", "cleaner: unmarked stale folder, only when empty"),
         ("os.rmdir(p)", "cleaner: recognised old output after its listed files went"),
         ("os.rmdir(d)", "parent folders this call created, only when still empty"),
@@ -371,15 +395,22 @@ AUDITED = {
         ("os.rename(out, old)", "fallback swap: a recognised, checked sourcelab output"),
         ("os.rename(tmp, out)", "fallback swap: own folder into place"),
         ("os.rename(old, out)", "fallback swap undone"),
-        ("os.unlink(e.path)", "pid-named group-table temporaries of a dead batch, in a "
-                              "recognised batch folder"),
-        ("os.replace(tmp, path)", "own mkstemp file onto a path that is new or recognised as "
-                                  "sourcelab's (atomic_write_bytes checks first)"),
+        (
+            "os.unlink(e.path)",
+            "pid-named group-table temporaries of a dead batch, in a recognised batch folder",
+        ),
+        (
+            "os.replace(tmp, path)",
+            "own mkstemp file onto a path that is new or recognised as "
+            "sourcelab's (atomic_write_bytes checks first)",
+        ),
         ("os.unlink(tmp)", "own mkstemp file on failure"),
     ],
     "exports.py": [
-        ("os.replace(f, out_dir / f.name)", "own staged export files into a maps folder inside "
-                                            "an output being built"),
+        (
+            "os.replace(f, out_dir / f.name)",
+            "own staged export files into a maps folder inside an output being built",
+        ),
         ("shutil.rmtree(tmp, ignore_errors=True)", "own mkdtemp staging folder"),
     ],
     "batch/runner.py": [
@@ -392,15 +423,26 @@ AUDITED = {
         ("tmp.unlink()", "its own temporary file"),
     ],
     "demo.py": [("tmp.replace(path)", "own temporary EDF inside the demo's temporary folder")],
-    "simulate/mismatch.py": [("os.replace(tmp, path)", "benchmark cache: its own temporary file "
-                                                       "into its own cache folder (outside any "
-                                                       "user folder)")],
-    "data/__init__.py": [("tmp.replace(path)", "developer rebuild: the shipped data manifest, "
-                                               "written through its own temporary file")],
+    "simulate/mismatch.py": [
+        (
+            "os.replace(tmp, path)",
+            "benchmark cache: its own temporary file "
+            "into its own cache folder (outside any "
+            "user folder)",
+        )
+    ],
+    "data/__init__.py": [
+        (
+            "tmp.replace(path)",
+            "developer rebuild: the shipped data manifest, written through its own temporary file",
+        )
+    ],
 }
-_CALL = re.compile(r"\b(?:shutil\.(?:rmtree|move)|os\.(?:remove|unlink|rmdir|removedirs|replace|"
-                   r"rename|renames))\(|\.(?:unlink|rmdir|rename)\((?!['\"]|columns=)|"
-                   r"\btmp\w*\.replace\(")
+_CALL = re.compile(
+    r"\b(?:shutil\.(?:rmtree|move)|os\.(?:remove|unlink|rmdir|removedirs|replace|"
+    r"rename|renames))\(|\.(?:unlink|rmdir|rename)\((?!['\"]|columns=)|"
+    r"\btmp\w*\.replace\("
+)
 
 
 def test_every_deleting_call_is_audited():
@@ -422,16 +464,25 @@ def test_every_deleting_call_is_audited():
 # Real processes: stderr, exit codes, closed stdout, SIGKILL, concurrency
 # --------------------------------------------------------------------------------------------
 
+
 def _cli(*args, cwd, **kw):
     env = dict(os.environ, MPLBACKEND="Agg")
-    return subprocess.run([sys.executable, "-m", "sourcelab.cli.main", *args], cwd=cwd,
-                          capture_output=True, text=True, env=env, timeout=300, **kw)
+    return subprocess.run(
+        [sys.executable, "-m", "sourcelab.cli.main", *args],
+        cwd=cwd,
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=300,
+        **kw,
+    )
 
 
 def _popen(*args, cwd, **kw):
     env = dict(os.environ, MPLBACKEND="Agg")
-    return subprocess.Popen([sys.executable, "-m", "sourcelab.cli.main", *args], cwd=cwd,
-                            env=env, **kw)
+    return subprocess.Popen(
+        [sys.executable, "-m", "sourcelab.cli.main", *args], cwd=cwd, env=env, **kw
+    )
 
 
 def test_subprocess_refusals_are_one_line(base, tmp_path):
@@ -446,14 +497,26 @@ def test_subprocess_refusals_are_one_line(base, tmp_path):
 
 
 def test_closed_stdout_is_quiet_and_files_are_written(tmp_path):
-    p = _popen("atlas", "show", "brodmann", cwd=tmp_path, stdout=subprocess.PIPE,
-               stderr=subprocess.PIPE)
+    p = _popen(
+        "atlas", "show", "brodmann", cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE
+    )
     p.stdout.close()  # the reader is gone before anything is printed (like `| head -0`)
     err = p.stderr.read().decode()
     p.stderr.close()
     assert p.wait(timeout=300) == 0 and err == "", err
-    p = _popen("leakage", "BA17", "--hemisphere", "left", "--plot", "l.png", "--tsv", "l.tsv",
-               cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    p = _popen(
+        "leakage",
+        "BA17",
+        "--hemisphere",
+        "left",
+        "--plot",
+        "l.png",
+        "--tsv",
+        "l.tsv",
+        cwd=tmp_path,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+    )
     p.stdout.close()
     err = p.stderr.read().decode()
     p.stderr.close()
@@ -482,8 +545,19 @@ def test_kill_during_write_then_rerun_cleans_up(base, tmp_path, monkeypatch, cap
     prev = corpus.prev_copy(base, d)
     before = snapshot(prev)
     # source maps on: the write phase lasts long enough for the kill to land inside it
-    p = _popen("analyze", "rec.edf", "--out", "prev", "--config", "fast.toml", "--no-figures",
-               "--no-report", cwd=d, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    p = _popen(
+        "analyze",
+        "rec.edf",
+        "--out",
+        "prev",
+        "--config",
+        "fast.toml",
+        "--no-figures",
+        "--no-report",
+        cwd=d,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
     hits = _wait_for(d, ".prev.tmp-*/provenance.json", p)
     os.kill(p.pid, signal.SIGKILL)
     p.wait()
@@ -504,8 +578,16 @@ def test_concurrent_runs_on_one_out(base, tmp_path):
     d = tmp_path
     corpus._fast(d)
     corpus.rec_copy(base, d)
-    args = ("analyze", "rec.edf", "--out", "res", "--config", "fast.toml", "--no-figures",
-            "--no-report")
+    args = (
+        "analyze",
+        "rec.edf",
+        "--out",
+        "res",
+        "--config",
+        "fast.toml",
+        "--no-figures",
+        "--no-report",
+    )
     a = _popen(*args, cwd=d, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     assert _wait_for(d, ".res.tmp-*/provenance.json", a), "A never reached its write phase"
     b = _popen(*args, "--no-maps", cwd=d, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)

@@ -23,7 +23,11 @@ from sourcelab.batch import (
     run_batch,
 )
 from sourcelab.batch.engines import (
-    THREAD_ENV, one_thread_environment, run_unordered, worker_threads)
+    THREAD_ENV,
+    one_thread_environment,
+    run_unordered,
+    worker_threads,
+)
 from sourcelab.config import AnalysisConfig
 from sourcelab.errors import InputError
 
@@ -36,11 +40,14 @@ def _simulate(model, seed):
 
     rng = np.random.default_rng(seed)
     a = rng.uniform(0.2, 0.45)
-    gens = (Generator((-18, -92, 4), "left", amplitude=a),
-            Generator((20, -92, 4), "right", amplitude=a),
-            Generator((4, 40, 20), "right", freq=6.0, amplitude=rng.uniform(0.1, 0.4)))
-    return simulate_raw(model, duration_s=DURATION_S, sfreq=256.0, generators=gens,
-                        background_uv=10.0, rng=rng)
+    gens = (
+        Generator((-18, -92, 4), "left", amplitude=a),
+        Generator((20, -92, 4), "right", amplitude=a),
+        Generator((4, 40, 20), "right", freq=6.0, amplitude=rng.uniform(0.1, 0.4)),
+    )
+    return simulate_raw(
+        model, duration_s=DURATION_S, sfreq=256.0, generators=gens, background_uv=10.0, rng=rng
+    )
 
 
 @pytest.fixture(scope="module")
@@ -52,10 +59,12 @@ def cohort(tmp_path_factory):
 
     model = load_head_model()
     d = tmp_path_factory.mktemp("cohort")
-    mne.export.export_raw(d / "sub-01_task-rest_eeg.edf", _simulate(model, 1), fmt="edf",
-                          verbose="error")
-    mne.export.export_raw(d / "sub-02_task-rest_eeg.edf", _simulate(model, 2), fmt="edf",
-                          verbose="error")
+    mne.export.export_raw(
+        d / "sub-01_task-rest_eeg.edf", _simulate(model, 1), fmt="edf", verbose="error"
+    )
+    mne.export.export_raw(
+        d / "sub-02_task-rest_eeg.edf", _simulate(model, 2), fmt="edf", verbose="error"
+    )
     _simulate(model, 3).save(d / "sub-03_task-rest_eeg.fif", verbose="error")
     (d / "sub-04_task-rest_eeg.edf").write_bytes(b"0       not an EDF header" * 4)
     parts = d / "participants.tsv"
@@ -73,6 +82,7 @@ def serial_run(cohort, tmp_path_factory):
 
 # ------------------------------------------------------------------ discovery (no analysis)
 
+
 def test_discover_names_participants_and_ages(cohort):
     items = discover([cohort], participants=cohort / "participants.tsv")
     assert [i.name for i in items] == [f"sub-0{k}_task-rest" for k in (1, 2, 3, 4)]
@@ -86,8 +96,14 @@ def test_discover_deduplicates_and_sanitises(tmp_path):
         (tmp_path / sub / "rest.edf").write_bytes(b"x")
     odd = tmp_path / "a" / "..weird name;rm -rf.fif"
     odd.write_bytes(b"x")
-    items = discover([tmp_path / "a" / "rest.edf", str(tmp_path / "b" / "*.edf"), odd,
-                      tmp_path / "a" / "rest.edf"])  # the repeat is dropped
+    items = discover(
+        [
+            tmp_path / "a" / "rest.edf",
+            str(tmp_path / "b" / "*.edf"),
+            odd,
+            tmp_path / "a" / "rest.edf",
+        ]
+    )  # the repeat is dropped
     assert [i.name for i in items] == ["rest", "rest-2", "weird_name_rm_-rf"]
     assert all(isinstance(i, BatchItem) and i.path.is_absolute() for i in items)
 
@@ -130,14 +146,14 @@ def test_run_unordered_bounds_in_flight_and_keeps_errors():
             raise RuntimeError("boom")
         return x * x
 
-    got = {i: (r, e) for i, r, e in run_unordered(SerialEngine(), f, range(6),
-                                                  max_in_flight=2)}
+    got = {i: (r, e) for i, r, e in run_unordered(SerialEngine(), f, range(6), max_in_flight=2)}
     assert sorted(got) == list(range(6))
     assert isinstance(got[3][1], RuntimeError)
     assert [got[i][0] for i in (0, 1, 2, 4, 5)] == [0, 1, 4, 16, 25]
 
 
 # ------------------------------------------------------------------ running
+
 
 def test_batch_outputs_group_table_and_failure_line(serial_run, cohort):
     items, summary = serial_run
@@ -188,8 +204,11 @@ def test_rerun_skips_finished_work_and_force_recomputes(serial_run, tmp_path):
     again = run_batch(items, out, config=AnalysisConfig(), progress=False)
     assert [o.status for o in again.outcomes] == ["skipped", "skipped", "skipped", "failed"]
     assert all((out / n / "provenance.json").stat().st_mtime_ns == t for n, t in stamp.items())
-    pd.testing.assert_frame_equal(pd.read_csv(again.tables["roi"], sep="\t"),
-                                  pd.read_csv(first.tables["roi"], sep="\t"), check_exact=True)
+    pd.testing.assert_frame_equal(
+        pd.read_csv(again.tables["roi"], sep="\t"),
+        pd.read_csv(first.tables["roi"], sep="\t"),
+        check_exact=True,
+    )
     # another λ² is another pipeline fingerprint: recomputed, not skipped
     other = run_batch(items[:1], out, config=AnalysisConfig(snr=5.0), progress=False)
     assert [o.status for o in other.outcomes] == ["done"]
@@ -202,10 +221,12 @@ def test_dask_local_cluster_gives_identical_numbers(serial_run, tmp_path):
     items, serial = serial_run
     with DaskEngine(n_workers=2, processes=False) as engine:
         assert engine.n_workers == 2
-        summary = run_batch(items, tmp_path / "dask", config=AnalysisConfig(), engine=engine,
-                            progress=False)
+        summary = run_batch(
+            items, tmp_path / "dask", config=AnalysisConfig(), engine=engine, progress=False
+        )
     assert [o.status for o in summary.outcomes] == ["done", "done", "done", "failed"], [
-        o.message for o in summary.outcomes]
+        o.message for o in summary.outcomes
+    ]
     for kind in ("roi", "sensor"):
         a = pd.read_csv(serial.tables[kind], sep="\t")
         b = pd.read_csv(summary.tables[kind], sep="\t")
@@ -216,13 +237,16 @@ def test_dask_local_cluster_gives_identical_numbers(serial_run, tmp_path):
 def test_process_pool_gives_identical_numbers(serial_run, tmp_path):
     items, serial = serial_run
     with ProcessEngine(2) as engine:
-        summary = run_batch(items, tmp_path / "procs", config=AnalysisConfig(), engine=engine,
-                            progress=False)
+        summary = run_batch(
+            items, tmp_path / "procs", config=AnalysisConfig(), engine=engine, progress=False
+        )
     assert [o.status for o in summary.outcomes] == ["done", "done", "done", "failed"]
     assert len({o.worker for o in summary.outcomes}) >= 1
-    pd.testing.assert_frame_equal(pd.read_csv(serial.tables["roi"], sep="\t"),
-                                  pd.read_csv(summary.tables["roi"], sep="\t"),
-                                  check_exact=True)
+    pd.testing.assert_frame_equal(
+        pd.read_csv(serial.tables["roi"], sep="\t"),
+        pd.read_csv(summary.tables["roi"], sep="\t"),
+        check_exact=True,
+    )
 
 
 def test_process_workers_start_with_one_blas_thread(monkeypatch):
@@ -250,6 +274,7 @@ def test_one_thread_environment_keeps_the_users_setting(monkeypatch):
 
 # ------------------------------------------------------------------ command line
 
+
 @pytest.fixture
 def cli(monkeypatch):
     from sourcelab.cli import main as cli_main
@@ -262,12 +287,25 @@ def test_cli_exit_codes(cli, cohort, serial_run, tmp_path, capsys):
     _, first = serial_run
     base = ["--no-figures", "--no-report", "--no-maps", "--no-progress"]
     # 1: one recording failed (the others are up to date and skipped)
-    assert cli(["batch", str(cohort), "--out", str(first.out),
-                "--participants", str(cohort / "participants.tsv"), *base]) == 1
+    assert (
+        cli(
+            [
+                "batch",
+                str(cohort),
+                "--out",
+                str(first.out),
+                "--participants",
+                str(cohort / "participants.tsv"),
+                *base,
+            ]
+        )
+        == 1
+    )
     captured = capsys.readouterr()
     assert "3 up to date, 1 failed of 4" in captured.out
-    assert [ln for ln in captured.err.splitlines() if ln.startswith("sourcelab: failed:")] == \
-        [ln for ln in captured.err.splitlines() if "sub-04_task-rest" in ln and "failed:" in ln]
+    assert [ln for ln in captured.err.splitlines() if ln.startswith("sourcelab: failed:")] == [
+        ln for ln in captured.err.splitlines() if "sub-04_task-rest" in ln and "failed:" in ln
+    ]
     # 0: only good recordings
     assert cli(["batch", str(cohort / "*_eeg.fif"), "--out", str(tmp_path / "fif"), *base]) == 0
     assert (tmp_path / "fif" / "sub-03_task-rest" / "roi_table.tsv").is_file()
@@ -281,8 +319,19 @@ def test_cli_exit_codes(cli, cohort, serial_run, tmp_path, capsys):
 
 def test_cli_without_dask_says_so_in_one_line(cli, cohort, tmp_path, capsys, monkeypatch):
     monkeypatch.setitem(sys.modules, "distributed", None)  # import distributed → ImportError
-    code = cli(["batch", str(cohort), "--out", str(tmp_path / "o"), "--engine", "dask",
-                "--workers", "2", "--no-progress"])
+    code = cli(
+        [
+            "batch",
+            str(cohort),
+            "--out",
+            str(tmp_path / "o"),
+            "--engine",
+            "dask",
+            "--workers",
+            "2",
+            "--no-progress",
+        ]
+    )
     err = capsys.readouterr().err.strip()
     assert code == 2 and err.count("\n") == 0 and "dask[distributed]" in err
 

@@ -16,9 +16,13 @@ def sim_edf(tmp_path_factory):
     from sourcelab.headmodel import load_head_model
     from sourcelab.simulate import Generator, simulate_raw
 
-    raw = simulate_raw(load_head_model(), duration_s=90.0, sfreq=256.0,
-                       generators=(Generator((-20, -90, 5), "left", amplitude=0.5),),
-                       rng=np.random.default_rng(3))
+    raw = simulate_raw(
+        load_head_model(),
+        duration_s=90.0,
+        sfreq=256.0,
+        generators=(Generator((-20, -90, 5), "left", amplitude=0.5),),
+        rng=np.random.default_rng(3),
+    )
     path = tmp_path_factory.mktemp("cli") / "invented.edf"
     mne.export.export_raw(path, raw, fmt="edf", verbose="error")
     return path
@@ -64,8 +68,9 @@ def test_missing_sites(tmp_path, capsys):
     import mne
 
     info = mne.create_info(["Fp1", "Fp2", "O1", "O2"], 256.0, "eeg")
-    raw = mne.io.RawArray(np.random.default_rng(0).standard_normal((4, 256 * 90)) * 1e-5, info,
-                          verbose="error")
+    raw = mne.io.RawArray(
+        np.random.default_rng(0).standard_normal((4, 256 * 90)) * 1e-5, info, verbose="error"
+    )
     p = tmp_path / "four.edf"
     mne.export.export_raw(p, raw, fmt="edf", verbose="error")
     _bad(["analyze", str(p)], tmp_path, capsys, "F7")
@@ -74,7 +79,9 @@ def test_missing_sites(tmp_path, capsys):
 def test_too_short(sim_edf, tmp_path, capsys):
     import mne
 
-    raw = mne.io.read_raw_edf(sim_edf, preload=True, verbose="error").crop(0, 16)  # < min_clean_s (20 s)
+    raw = mne.io.read_raw_edf(sim_edf, preload=True, verbose="error").crop(
+        0, 16
+    )  # < min_clean_s (20 s)
     p = tmp_path / "short.edf"
     mne.export.export_raw(p, raw, fmt="edf", verbose="error")
     _bad(["analyze", str(p)], tmp_path, capsys, "short.edf")
@@ -83,8 +90,7 @@ def test_too_short(sim_edf, tmp_path, capsys):
 def test_bad_norms(sim_edf, tmp_path, capsys):
     n = tmp_path / "norms.tsv"
     n.write_text("garbage\tcolumns\n1\t2\n")
-    _bad(["analyze", str(sim_edf), "--norms", str(n), "--age", "30"], tmp_path, capsys,
-         "norms.tsv")
+    _bad(["analyze", str(sim_edf), "--norms", str(n), "--age", "30"], tmp_path, capsys, "norms.tsv")
 
 
 def test_failed_rerun_keeps_previous_output(sim_edf, tmp_path, capsys):
@@ -99,13 +105,32 @@ def test_analyze_custom_rois_and_bids(sim_edf, tmp_path):
     # User-defined ROIs are reported under their own atlas name; a BIDS-derivatives copy is written
     # with the participant label made safe for file names (BIDS derivatives convention).
     rois = tmp_path / "mine.toml"
-    rois.write_text('name = "mine"\n[[roi]]\nname = "left-dlpfc"\nkind = "sphere"\n'
-                    'center = [-40.0, 30.0, 30.0]\nradius_mm = 12.0\nhemisphere = "left"\n')
+    rois.write_text(
+        'name = "mine"\n[[roi]]\nname = "left-dlpfc"\nkind = "sphere"\n'
+        'center = [-40.0, 30.0, 30.0]\nradius_mm = 12.0\nhemisphere = "left"\n'
+    )
     out = tmp_path / "res"
     bids = tmp_path / "bids"
-    assert main(["analyze", str(sim_edf), "--out", str(out), "--no-figures", "--no-report",
-                 "--no-maps", "--rois", str(rois), "--bids-root", str(bids),
-                 "--participant-id", "../x 01"]) == 0
+    assert (
+        main(
+            [
+                "analyze",
+                str(sim_edf),
+                "--out",
+                str(out),
+                "--no-figures",
+                "--no-report",
+                "--no-maps",
+                "--rois",
+                str(rois),
+                "--bids-root",
+                str(bids),
+                "--participant-id",
+                "../x 01",
+            ]
+        )
+        == 0
+    )
     t = pd.read_csv(out / "roi_table.tsv", sep="\t")
     mine = t[t.atlas == "mine"]
     assert set(mine.roi) == {"left-dlpfc"} and len(mine) == 10  # 5 bands x 2 measures
@@ -131,13 +156,28 @@ def test_norms_build_check_and_use(tmp_path, capsys):
     for k, (pid, age, raw) in enumerate(cohort(22, duration_s=75.0, seed=5)):
         d = root / f"sub-{pid}" / "eeg"
         d.mkdir(parents=True)
-        mne.export.export_raw(d / f"sub-{pid}_task-rest_eeg.edf", raw, fmt="edf",
-                              verbose="error")
+        mne.export.export_raw(d / f"sub-{pid}_task-rest_eeg.edf", raw, fmt="edf", verbose="error")
         rows.append(f"sub-{pid}\t{age:.1f}\t{'FM'[k % 2]}")
     (root / "participants.tsv").write_text("\n".join(rows) + "\n")
     norms = tmp_path / "norms.tsv"
-    assert main(["norms", "build", str(root), "--participants", str(root / "participants.tsv"),
-                 "--out", str(norms), "--workers", "2", "--condition", "EC"]) == 0
+    assert (
+        main(
+            [
+                "norms",
+                "build",
+                str(root),
+                "--participants",
+                str(root / "participants.tsv"),
+                "--out",
+                str(norms),
+                "--workers",
+                "2",
+                "--condition",
+                "EC",
+            ]
+        )
+        == 0
+    )
     assert norms.is_file() and (tmp_path / "norms_calibration.tsv").is_file()
     from sourcelab.norms import read_norms
 
@@ -150,8 +190,26 @@ def test_norms_build_check_and_use(tmp_path, capsys):
     assert "pair: 171 pairs" in out and "edge: lobes: 66 edges" in out  # coupling norms too
     edf = next(root.glob("sub-*/eeg/*.edf"))
     res = tmp_path / "res"
-    assert main(["analyze", str(edf), "--out", str(res), "--norms", str(norms), "--age", "40",
-                 "--condition", "eyes closed", "--no-figures", "--no-report", "--no-maps"]) == 0
+    assert (
+        main(
+            [
+                "analyze",
+                str(edf),
+                "--out",
+                str(res),
+                "--norms",
+                str(norms),
+                "--age",
+                "40",
+                "--condition",
+                "eyes closed",
+                "--no-figures",
+                "--no-report",
+                "--no-maps",
+            ]
+        )
+        == 0
+    )
     t = pd.read_csv(res / "roi_table.tsv", sep="\t")
     # with only 20 controls a few rows lose controls to the outlier rule and fall below the
     # minimum n: they carry no z and are flagged, never silently zero
@@ -171,8 +229,20 @@ def test_norms_build_plain_bids_file_needs_condition(tmp_path, capsys):
     root.mkdir()
     tsv = root / "participants.tsv"
     tsv.write_text("participant_id\tage\tsex\nsub-01\t30\tF\n")
-    assert main(["norms", "build", str(root), "--participants", str(tsv),
-                 "--out", str(tmp_path / "n.tsv")]) == 2
+    assert (
+        main(
+            [
+                "norms",
+                "build",
+                str(root),
+                "--participants",
+                str(tsv),
+                "--out",
+                str(tmp_path / "n.tsv"),
+            ]
+        )
+        == 2
+    )
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and "--condition" in err and "condition=" not in err
     assert not (tmp_path / "n.tsv").exists()
@@ -183,8 +253,15 @@ def test_cli_errors_name_flags_not_python_keywords(sim_edf, tmp_path, capsys):
     # an age outside the norms' range names --allow-extrapolation (not "...=True").
     from sourcelab.demo import demo_norms_path
 
-    base = ["analyze", str(sim_edf), "--norms", str(demo_norms_path()), "--no-figures",
-            "--no-report", "--no-maps"]
+    base = [
+        "analyze",
+        str(sim_edf),
+        "--norms",
+        str(demo_norms_path()),
+        "--no-figures",
+        "--no-report",
+        "--no-maps",
+    ]
     assert main(base + ["--out", str(tmp_path / "a"), "--age", "30", "--condition", "EO"]) == 2
     err = capsys.readouterr().err
     assert "--allow-condition-mismatch" in err and "=True" not in err
@@ -209,9 +286,10 @@ def _damaged(sim_edf, tmp_path, how):
     return p
 
 
-@pytest.mark.parametrize("how, match", [("truncated", "truncated"),
-                                        ("corrupt-header", "corrupt"),
-                                        ("low-rate", "100 Hz")])
+@pytest.mark.parametrize(
+    "how, match",
+    [("truncated", "truncated"), ("corrupt-header", "corrupt"), ("low-rate", "100 Hz")],
+)
 def test_damaged_files(sim_edf, tmp_path, capsys, how, match):
     p = _damaged(sim_edf, tmp_path, how)
     _bad(["analyze", str(p)], tmp_path, capsys, match)
@@ -223,8 +301,22 @@ def test_selection_matching_nothing(sim_edf, tmp_path, capsys):
 
 def test_select_time_range(sim_edf, tmp_path):
     out = tmp_path / "sel"
-    assert main(["analyze", str(sim_edf), "--out", str(out), "--select", "0-70", "--no-figures",
-                 "--no-report", "--no-maps"]) == 0
+    assert (
+        main(
+            [
+                "analyze",
+                str(sim_edf),
+                "--out",
+                str(out),
+                "--select",
+                "0-70",
+                "--no-figures",
+                "--no-report",
+                "--no-maps",
+            ]
+        )
+        == 0
+    )
     prov = json.loads((out / "provenance.json").read_text())
     assert prov["quality"]["kept_s"] <= 70
 

@@ -16,8 +16,13 @@ from sourcelab.norms import normalise_condition, read_norms
 from sourcelab.provenance import Fingerprint
 from sourcelab.simulate import gaussian_cohort
 
-FP = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
-                 lambda2=1 / 9, bands=DEFAULT_BANDS)
+FP = Fingerprint(
+    headmodel_sha256="0" * 64,
+    method="sLORETA",
+    orientation="fixed",
+    lambda2=1 / 9,
+    bands=DEFAULT_BANDS,
+)
 
 
 @pytest.fixture(scope="module")
@@ -43,10 +48,17 @@ def _fake_analysis(cohort, fail_id):
         roi, sen = by_file[pid]
         # invented per-source maps (the cohort builder also fits per-source norms)
         src = rng.lognormal(0.0, 0.3, (len(FP.bands), n_src)).astype(np.float32)
-        return types.SimpleNamespace(roi_table=roi, sensor_table=sen, fingerprint=FP,
-                                     source_abs=src, source_rel=src / (3 * src.max()),
-                                     pair_table=None, coupling_table=None,
-                                     quality=types.SimpleNamespace(n_epochs=60))
+        return types.SimpleNamespace(
+            roi_table=roi,
+            sensor_table=sen,
+            fingerprint=FP,
+            source_abs=src,
+            source_rel=src / (3 * src.max()),
+            pair_table=None,
+            coupling_table=None,
+            quality=types.SimpleNamespace(n_epochs=60),
+        )
+
     return types.SimpleNamespace(analyze=analyze)
 
 
@@ -57,16 +69,22 @@ def test_build_from_cohort_folder(cohort, tmp_path, monkeypatch):
         (root / pid / "eeg").mkdir(parents=True)
         (root / pid / "eeg" / f"{pid}_task-rest_eeg.edf").write_bytes(b"")
         rows.append(f"{pid}\t{age}\t{'FM'[k % 2]}\teyes closed")
-    rows.append("sub-900\tn/a\tF\teyes closed")          # bad age
+    rows.append("sub-900\tn/a\tF\teyes closed")  # bad age
     rows.append("../../etc/passwd\t30\tF\teyes closed")  # hostile id: never a path
-    rows.append("sub-901\t30\tM\teyes open")              # other condition: not used
+    rows.append("sub-901\t30\tM\teyes open")  # other condition: not used
     (root / "participants.tsv").write_text("\n".join(rows) + "\n")
-    monkeypatch.setitem(sys.modules, "sourcelab.analysis",
-                        _fake_analysis(cohort, fail_id="sub-003"))
+    monkeypatch.setitem(
+        sys.modules, "sourcelab.analysis", _fake_analysis(cohort, fail_id="sub-003")
+    )
     with pytest.raises(InputError, match="conditions"):  # two conditions listed: must choose
         build_norms(root, root / "participants.tsv", out=tmp_path / "out" / "norms.tsv")
-    res = build_norms(root, root / "participants.tsv", out=tmp_path / "out" / "norms.tsv",
-                      min_n_per_bin=20, condition="Eyes closed")
+    res = build_norms(
+        root,
+        root / "participants.tsv",
+        out=tmp_path / "out" / "norms.tsv",
+        min_n_per_bin=20,
+        condition="Eyes closed",
+    )
     failed = dict(res.failures)
     assert set(failed) == {"sub-003", "sub-900", "../../etc/passwd"}
     assert "\n" not in failed["sub-003"] and "no recording" in failed["../../etc/passwd"]

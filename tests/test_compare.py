@@ -18,12 +18,15 @@ def _person(model, rng, duration_s, extra=None):
     """One invented person (fixed generators), fresh noise from ``rng``; µV-scaled volts."""
     from sourcelab.simulate import Generator, simulate_sensor_data
 
-    gens = (Generator((-18, -92, 4), "left", freq=10.0, amplitude=0.45),
-            Generator((20, -92, 4), "right", freq=10.0, amplitude=0.45),
-            Generator((-4, 40, 20), "left", freq=6.0, amplitude=0.3),
-            Generator((38, -20, 55), "right", freq=18.0, bandwidth=6.0, amplitude=0.25))
-    x = simulate_sensor_data(model, duration_s=duration_s, sfreq=SF, generators=gens,
-                             background_uv=10.0, rng=rng)
+    gens = (
+        Generator((-18, -92, 4), "left", freq=10.0, amplitude=0.45),
+        Generator((20, -92, 4), "right", freq=10.0, amplitude=0.45),
+        Generator((-4, 40, 20), "left", freq=6.0, amplitude=0.3),
+        Generator((38, -20, 55), "right", freq=18.0, bandwidth=6.0, amplitude=0.25),
+    )
+    x = simulate_sensor_data(
+        model, duration_s=duration_s, sfreq=SF, generators=gens, background_uv=10.0, rng=rng
+    )
     if extra is not None:
         x = x + extra
     return x
@@ -71,21 +74,30 @@ def sessions(tmp_path_factory):
     n = int(2 * SF)
 
     def roi_theta(x):
-        ep = x[:, :x.shape[1] // n * n].reshape(19, -1, n).transpose(1, 0, 2) * 1e6
-        return float(np.einsum("cd,dc->", m, epoch_cross_spectra(ep, SF, cfg.bands)
-                               .mean(0)[1]))
+        ep = x[:, : x.shape[1] // n * n].reshape(19, -1, n).transpose(1, 0, 2) * 1e6
+        return float(np.einsum("cd,dc->", m, epoch_cross_spectra(ep, SF, cfg.bands).mean(0)[1]))
 
-    sd = norm_at_age(norms, atlas=PLANT[0], roi=PLANT[1], hemisphere=PLANT[2], band=PLANT[3],
-                     measure=PLANT[4], age=AGE, fingerprint=norms.fingerprint)["sd"]
+    sd = norm_at_age(
+        norms,
+        atlas=PLANT[0],
+        roi=PLANT[1],
+        hemisphere=PLANT[2],
+        band=PLANT[3],
+        measure=PLANT[4],
+        age=AGE,
+        fingerprint=norms.fingerprint,
+    )["sd"]
     # ROI power adds (independent components): a² E_unit = (10^sd - 1) P_baseline
     amp = np.sqrt((10**sd - 1) * roi_theta(xa) / roi_theta(unit))
     xb = _person(model, np.random.default_rng(202), dur, extra=amp * unit)
     out = {}
     for name, x in (("A", xa), ("B", xb)):
-        res = analyze(_raw(x), config=cfg, age=AGE, norms=demo_norms_path(),
-                      condition="eyes closed")
-        out[name] = write_analysis(res, d / f"session_{name}", figures=False, report=False,
-                                   exports=False)
+        res = analyze(
+            _raw(x), config=cfg, age=AGE, norms=demo_norms_path(), condition="eyes closed"
+        )
+        out[name] = write_analysis(
+            res, d / f"session_{name}", figures=False, report=False, exports=False
+        )
     out["planted"] = amp * unit
     out["sd"] = sd
     out["dir"] = d
@@ -104,7 +116,7 @@ def _expected_z_change(sessions, table):
     ep = read_epochs(sessions["A"])
     n = int(2 * SF)
     x = sessions["planted"]
-    e = x[:, :x.shape[1] // n * n].reshape(19, -1, n).transpose(1, 0, 2) * 1e6
+    e = x[:, : x.shape[1] // n * n].reshape(19, -1, n).transpose(1, 0, 2) * 1e6
     from sourcelab.config import Bands
 
     c_extra = epoch_cross_spectra(e, SF, Bands()).mean(0)
@@ -148,18 +160,27 @@ def test_planted_change_is_found_and_untouched_rows_show_none(sessions):
     # the measured z change is about one SD (sampling noise of both sessions: ±0.3 z)
     assert 0.6 < row["change_z"] < 1.4, row["change_z"]
     exp = _expected_z_change(sessions, table)
-    np.testing.assert_allclose(exp[(table["atlas"] == PLANT[0]) & (table["roi"] == PLANT[1])
-                                   & (table["hemisphere"] == PLANT[2])
-                                   & (table["band"] == PLANT[3])
-                                   & (table["measure"] == PLANT[4])].item(), 1.0, atol=0.15)
+    np.testing.assert_allclose(
+        exp[
+            (table["atlas"] == PLANT[0])
+            & (table["roi"] == PLANT[1])
+            & (table["hemisphere"] == PLANT[2])
+            & (table["band"] == PLANT[3])
+            & (table["measure"] == PLANT[4])
+        ].item(),
+        1.0,
+        atol=0.15,
+    )
     untouched = np.abs(exp) < 0.1
     assert untouched.sum() > 0.5 * len(table)
     no_change = (table.loc[untouched, "verdict"] == "no change").mean()
     assert no_change >= 0.95, no_change
-    print(f"compare: planted row z change {row['change_z']:+.2f} "
-          f"[{row['change_z_lo']:+.2f}, {row['change_z_hi']:+.2f}], RCI {row['rci']:.1f}; "
-          f"untouched rows {int(untouched.sum())}: no change {no_change:.3f}, uncorrected "
-          f"interval excludes 0 {table.loc[untouched, 'excludes_zero'].mean():.3f}")
+    print(
+        f"compare: planted row z change {row['change_z']:+.2f} "
+        f"[{row['change_z_lo']:+.2f}, {row['change_z_hi']:+.2f}], RCI {row['rci']:.1f}; "
+        f"untouched rows {int(untouched.sum())}: no change {no_change:.3f}, uncorrected "
+        f"interval excludes 0 {table.loc[untouched, 'excludes_zero'].mean():.3f}"
+    )
 
 
 def test_same_recording_twice_shows_no_change(sessions):
@@ -198,17 +219,25 @@ def test_cli_figure_and_report_section(sessions, tmp_path, capsys):
     fig = plot_sessions(t, [PLANT])
     ax = fig.axes[0]
     assert len(ax.lines) >= 1 and [x.get_text() for x in ax.get_xticklabels()] == [
-        "session_A", "session_B"]
+        "session_A",
+        "session_B",
+    ]
     assert "z" in ax.get_ylabel()
     sec = compare_html(t)
     assert sec.startswith("<section") and "BA19" in sec and "not a diagnostic device" in sec
     out = tmp_path / "cmp"
-    rc = main(["compare", str(sessions["A"]), str(sessions["B"]), "--out", str(out),
-               "--n-boot", "200"])
+    rc = main(
+        ["compare", str(sessions["A"]), str(sessions["B"]), "--out", str(out), "--n-boot", "200"]
+    )
     assert rc == 0
     # provenance.json: the marker every sourcelab output folder carries (listing its files)
-    assert {p.name for p in out.iterdir()} == {"compare.tsv", "compare.png", "compare.html",
-                                              "compare.json", "provenance.json"}
+    assert {p.name for p in out.iterdir()} == {
+        "compare.tsv",
+        "compare.png",
+        "compare.html",
+        "compare.json",
+        "provenance.json",
+    }
     assert not (out / "compare.tsv").read_text(encoding="utf-8").startswith("#")
     back = pd.read_csv(out / "compare.tsv", sep="\t")  # plain read (issue 16)
     assert len(back) == len(t)

@@ -30,8 +30,14 @@ def test_sub_bands_from_the_same_recommendation(tmp_path):
     p.write_text("sub_bands = true\n")
     cfg = load_config(p)
     assert cfg.bands.as_list() == [
-        ["delta", 1.0, 4.0], ["theta", 4.0, 8.0], ["alpha1", 8.0, 10.5], ["alpha2", 10.5, 13.0],
-        ["beta1", 13.0, 20.0], ["beta2", 20.0, 30.0], ["gamma", 30.0, 45.0]]
+        ["delta", 1.0, 4.0],
+        ["theta", 4.0, 8.0],
+        ["alpha1", 8.0, 10.5],
+        ["alpha2", 10.5, 13.0],
+        ["beta1", 13.0, 20.0],
+        ["beta2", 20.0, 30.0],
+        ["gamma", 30.0, 45.0],
+    ]
     assert cfg.to_dict()["sub_bands"] is True
     # sub-bands apply to the standard set only; your own [bands] table says what it says
     p.write_text("sub_bands = true\n[bands]\nalpha = [8, 12]\n")

@@ -27,9 +27,16 @@ def coupled_raw(head_model):
     from sourcelab.headmodel import make_info
 
     rng = np.random.default_rng(3)
-    d = coupled_recording(head_model, duration_s=120.0, sfreq=FS, rng=rng,
-                          patches=[((-30, 40, 30), "left", 0.6, 0.0, 15.0),
-                                   ((25, -90, 5), "right", 0.6, 0.010, 15.0)])
+    d = coupled_recording(
+        head_model,
+        duration_s=120.0,
+        sfreq=FS,
+        rng=rng,
+        patches=[
+            ((-30, 40, 30), "left", 0.6, 0.0, 15.0),
+            ((25, -90, 5), "right", 0.6, 0.010, 15.0),
+        ],
+    )
     return mne.io.RawArray(d * 1e-6, make_info(FS), verbose="error")
 
 
@@ -55,15 +62,19 @@ def test_default_analysis_has_both_tables_with_intervals(result):
         ok = t[["value_lo", "value_hi"]].notna().all(axis=1)
         assert ok.mean() > 0.99
         assert (t.loc[ok, "value_lo"] <= t.loc[ok, "value_hi"]).all()
-        assert t["z"].isna().all()                      # no norms: no z
+        assert t["z"].isna().all()  # no norms: no z
 
 
-def test_tables_equal_the_coupling_functions_on_the_clean_epochs(result, coupled_raw,
-                                                                 head_model):
+def test_tables_equal_the_coupling_functions_on_the_clean_epochs(result, coupled_raw, head_model):
     # Two routes must agree: the analysis' tables and the coupling functions applied by hand to
     # the same clean epochs (sourcelab.intake.clean_recording) and the same inverse operator.
-    from sourcelab.coupling import (coupling_table, independent_source_covariance,
-                                    network_coupling, pair_table, sensor_coupling)
+    from sourcelab.coupling import (
+        coupling_table,
+        independent_source_covariance,
+        network_coupling,
+        pair_table,
+        sensor_coupling,
+    )
     from sourcelab.intake import clean_recording, read_recording
     from sourcelab.inverse import inverse_operator
     from sourcelab.rois import load_atlas
@@ -77,19 +88,34 @@ def test_tables_equal_the_coupling_functions_on_the_clean_epochs(result, coupled
     # the same BLAS thread count as the analysis: float32 bootstrap sums round differently
     # with another one (interval ends then differ in the 7th digit)
     with threadpool_limits(BLAS_THREADS):
-        clean = clean_recording(read_recording(coupled_raw), cfg, muscle_uv=cfg.muscle_uv,
-                                blink_uv=cfg.blink_uv)
+        clean = clean_recording(
+            read_recording(coupled_raw), cfg, muscle_uv=cfg.muscle_uv, blink_uv=cfg.blink_uv
+        )
         spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, cfg.bands, dtype=np.complex64)
-        plain, _ = epoch_fourier(clean.epochs, clean.sfreq, cfg.bands, taper=False,
-                                 dtype=np.complex64)
+        plain, _ = epoch_fourier(
+            clean.epochs, clean.sfreq, cfg.bands, taper=False, dtype=np.complex64
+        )
         c0 = independent_source_covariance(head_model.gain_fixed)
         kw = dict(n_boot=199, seed=cfg.boot_seed, ci=cfg.ci)
-        pt = pair_table(sensor_coupling(spec, freqs, cfg.bands, head_model.ch_names,
-                                        head_model.ch_pos, null_cov=c0, **kw))
+        pt = pair_table(
+            sensor_coupling(
+                spec, freqs, cfg.bands, head_model.ch_names, head_model.ch_pos, null_cov=c0, **kw
+            )
+        )
         op = inverse_operator(cfg.method, cfg.orientation, cfg.lambda2)
-        ct = coupling_table(network_coupling(spec, plain, freqs, cfg.bands, op,
-                                             [load_atlas(a) for a in cfg.coupling_atlases],
-                                             null_cov=c0, normals=head_model.src_nn, **kw))
+        ct = coupling_table(
+            network_coupling(
+                spec,
+                plain,
+                freqs,
+                cfg.bands,
+                op,
+                [load_atlas(a) for a in cfg.coupling_atlases],
+                null_cov=c0,
+                normals=head_model.src_nn,
+                **kw,
+            )
+        )
     pd.testing.assert_frame_equal(result.pair_table, pt, check_exact=False, rtol=1e-9)
     pd.testing.assert_frame_equal(result.coupling_table, ct, check_exact=False, rtol=1e-9)
 
@@ -99,9 +125,14 @@ def test_planted_lag_is_beyond_leakage_in_the_analysis(result):
     # patches are coupled with a 10-ms lag in alpha: lagged coherence beyond the leakage null,
     # and the left-frontal lobe leads (positive lag for the edge frontal.left|occipital.right).
     ct = result.coupling_table
-    row = ct[(ct.atlas == "lobes") & (ct.band == "alpha") & (ct.roi_a == "frontal")
-             & (ct.hemisphere_a == "left") & (ct.roi_b == "occipital")
-             & (ct.hemisphere_b == "right")].set_index("measure")
+    row = ct[
+        (ct.atlas == "lobes")
+        & (ct.band == "alpha")
+        & (ct.roi_a == "frontal")
+        & (ct.hemisphere_a == "left")
+        & (ct.roi_b == "occipital")
+        & (ct.hemisphere_b == "right")
+    ].set_index("measure")
     assert row.loc["lagcoh", "leakage_explained"] == False  # noqa: E712
     assert row.loc["lagcoh", "value"] > row.loc["lagcoh", "leakage_q95"]
     assert row.loc["lag_ms", "value"] > 0
@@ -109,8 +140,10 @@ def test_planted_lag_is_beyond_leakage_in_the_analysis(result):
 
 def test_written_tables_read_back_with_plain_pandas(result, tmp_path):
     out = result.write(tmp_path / "res", figures=False, report=False, maps=False)
-    for name, table in (("pair_table", result.pair_table),
-                        ("coupling_table", result.coupling_table)):
+    for name, table in (
+        ("pair_table", result.pair_table),
+        ("coupling_table", result.coupling_table),
+    ):
         text = (out / f"{name}.tsv").read_text(encoding="utf-8")
         assert not any(line.startswith("#") for line in text.splitlines())
         back = pd.read_csv(out / f"{name}.tsv", sep="\t")
@@ -131,8 +164,7 @@ def test_written_tables_read_back_with_plain_pandas(result, tmp_path):
 @pytest.fixture(scope="module")
 def scored(result, coupled_raw):
     nm = norms_shifted_from(result, shift_sd=2.5)
-    return analyze(coupled_raw, config=result.config, norms=nm, age=40.0,
-                   condition="eyes closed")
+    return analyze(coupled_raw, config=result.config, norms=nm, age=40.0, condition="eyes closed")
 
 
 def test_coupling_z_p_fdr_and_intervals_against_norms(scored):
@@ -145,8 +177,9 @@ def test_coupling_z_p_fdr_and_intervals_against_norms(scored):
         assert ok.mean() > 0.99
         np.testing.assert_allclose(z[ok], 2.5, rtol=1e-9)
         # predictive Student-t p (norms format 2, n = 40, one age bin): t = z / sqrt(1 + 1/40)
-        np.testing.assert_allclose(t["p"][ok], 2 * stats.t.sf(2.5 / np.sqrt(1 + 1 / 40), 39),
-                                   rtol=1e-9)
+        np.testing.assert_allclose(
+            t["p"][ok], 2 * stats.t.sf(2.5 / np.sqrt(1 + 1 / 40), 39), rtol=1e-9
+        )
         assert t["fdr"][ok].all() and not t["no_norm"].any()
         assert (t["z_lo"][ok] <= t["z_hi"][ok] + 1e-12).all()
         msc = t[(t.measure == "msc") & ok]
@@ -155,8 +188,9 @@ def test_coupling_z_p_fdr_and_intervals_against_norms(scored):
         assert set(t["robust"].dropna()) <= {True, False}
     assert not any("norms hold no" in w or "clean epochs" in w for w in scored.warnings)
     n = sum(int(t["z"].notna().sum()) for t in (scored.pair_table, scored.coupling_table))
-    assert f"{n} electrode-pair and network-coupling z-scores; {n} with |z| > 1.96" in \
-        scored.summary()
+    assert (
+        f"{n} electrode-pair and network-coupling z-scores; {n} with |z| > 1.96" in scored.summary()
+    )
 
 
 def test_recording_length_far_from_the_norms_cohort_warns(result, coupled_raw):
@@ -168,16 +202,28 @@ def test_recording_length_far_from_the_norms_cohort_warns(result, coupled_raw):
     n = result.quality.n_epochs
     for median, warned in ((2.0 * n, True), (1.1 * n, False)):
         norms = dataclasses.replace(nm, cohort={"clean_epochs": {"median": median}})
-        res = analyze(coupled_raw, config=result.config.replace(coupling_n_boot=0),
-                      norms=norms, age=40.0, condition="eyes closed")
-        assert any(f"{n} clean epochs against a median of {median:.0f}" in w
-                   for w in res.warnings) == warned
+        res = analyze(
+            coupled_raw,
+            config=result.config.replace(coupling_n_boot=0),
+            norms=norms,
+            age=40.0,
+            condition="eyes closed",
+        )
+        assert (
+            any(f"{n} clean epochs against a median of {median:.0f}" in w for w in res.warnings)
+            == warned
+        )
 
 
 def test_norms_without_coupling_rows_leave_z_empty_and_warn(result, coupled_raw):
     nm = norms_shifted_from(result, shift_sd=1.0, coupling=False)
-    res = analyze(coupled_raw, config=result.config.replace(coupling_n_boot=0), norms=nm,
-                  age=40.0, condition="eyes closed")
+    res = analyze(
+        coupled_raw,
+        config=result.config.replace(coupling_n_boot=0),
+        norms=nm,
+        age=40.0,
+        condition="eyes closed",
+    )
     assert res.pair_table["z"].isna().all() and res.coupling_table["z"].isna().all()
     assert sum("norms hold no" in w for w in res.warnings) == 2
     np.testing.assert_allclose(res.roi_table["z"].dropna(), 1.0, rtol=1e-9)
@@ -205,8 +251,11 @@ def test_199_replicate_intervals_cover_at_the_nominal_rate():
     # percentile intervals from the analysis' default 199 replicates must contain 0 in 95 % of
     # 600 invented data sets: binomial SD 0.9 %, tolerance 3 SD (92.3-97.7 %).  (Measured with
     # 2,000 data sets: 95.2 % at 199 replicates, 94.9 % at 999; sourcelab/coupling/TABLES.md.)
-    from sourcelab.coupling.measures import (bootstrap_intervals, coupling_from_statistics,
-                                             pair_statistics_from_fourier)
+    from sourcelab.coupling.measures import (
+        bootstrap_intervals,
+        coupling_from_statistics,
+        pair_statistics_from_fourier,
+    )
 
     n_boot = AnalysisConfig().coupling_n_boot
     rng = np.random.default_rng(0)
@@ -223,7 +272,8 @@ def test_199_replicate_intervals_cover_at_the_nominal_rate():
         x = np.stack([s + cn(k, f), 0.8 * s + cn(k, f)], axis=1).astype(np.complex64)
         ps = pair_statistics_from_fourier(x, freqs, [[0, 1]])
         est = coupling_from_statistics(ps, idx, measures=("imcoh",))
-        lo, hi = bootstrap_intervals(ps, idx, est, n_boot=n_boot, seed=it,
-                                     measures=("imcoh",))["imcoh"]
+        lo, hi = bootstrap_intervals(ps, idx, est, n_boot=n_boot, seed=it, measures=("imcoh",))[
+            "imcoh"
+        ]
         hits += int(lo[0, 0] <= 0.0 <= hi[0, 0])
     assert 0.923 <= hits / 600 <= 0.977, hits / 600

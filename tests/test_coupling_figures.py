@@ -24,8 +24,12 @@ def tables(plain_result):
     seeded N(0, 1.3²) values so that some rows pass 1.96 (figures need z to colour pairs)."""
     rng = np.random.default_rng(4)
     pt, ct = plain_result.pair_table, plain_result.coupling_table
-    return (pt.assign(z=1.3 * rng.standard_normal(len(pt))),
-            ct.assign(z=1.3 * rng.standard_normal(len(ct))), pt, ct)
+    return (
+        pt.assign(z=1.3 * rng.standard_normal(len(pt))),
+        ct.assign(z=1.3 * rng.standard_normal(len(ct))),
+        pt,
+        ct,
+    )
 
 
 def test_electrode_layout_follows_1020_geometry(head_model):
@@ -45,14 +49,15 @@ def test_pair_head_map_draws_each_deviating_pair_once(tables):
     ptz = tables[0]
     fig = pair_head_map(ptz, band="alpha", measure="lagcoh", band_label="alpha (8-12 Hz)")
     ax = fig.axes[0]
-    sel = ptz[(ptz.band == "alpha") & (ptz.measure == "lagcoh")
-              & (ptz.homologous | ptz.intrahemispheric)]
+    sel = ptz[
+        (ptz.band == "alpha") & (ptz.measure == "lagcoh") & (ptz.homologous | ptz.intrahemispheric)
+    ]
     dev = sel[np.abs(sel.z) >= 1.96]
     grey, arcs = [c for c in ax.collections if isinstance(c, LineCollection)]
-    assert len(grey.get_segments()) == len(sel) == 64         # 8 homologous + 56 within
+    assert len(grey.get_segments()) == len(sel) == 64  # 8 homologous + 56 within
     assert len(arcs.get_segments()) == len(dev) > 0
     np.testing.assert_allclose(np.sort(arcs.get_array()), np.sort(dev.z.to_numpy()))
-    assert arcs.norm.vmin == -arcs.norm.vmax == -3.0          # symmetric, shared z limits
+    assert arcs.norm.vmin == -arcs.norm.vmax == -3.0  # symmetric, shared z limits
     texts = {t.get_text() for t in ax.texts}
     assert set(SITES_1020) <= texts
     cb = [a for a in fig.axes if getattr(a, "_colorbar", None) is not None]
@@ -66,17 +71,18 @@ def test_pair_head_map_asymmetry_all_pairs_and_errors(tables):
     ptz, _, pt, _ = tables
     fig = pair_head_map(ptz, band="theta", measure="asymmetry")
     grey = [c for c in fig.axes[0].collections if isinstance(c, LineCollection)][0]
-    assert len(grey.get_segments()) == 15                      # 8 homologous + 7 A-P
+    assert len(grey.get_segments()) == 15  # 8 homologous + 7 A-P
     assert "left" in " ".join(t.get_text() for t in fig.texts)
     fig = pair_head_map(ptz, band="alpha", measure="msc", pairs="all")
     grey = [c for c in fig.axes[0].collections if isinstance(c, LineCollection)][0]
     assert len(grey.get_segments()) == 171
-    fig = pair_head_map(pt, band="alpha", measure="msc")       # no norms: nothing coloured
+    fig = pair_head_map(pt, band="alpha", measure="msc")  # no norms: nothing coloured
     assert len([c for c in fig.axes[0].collections if isinstance(c, LineCollection)]) == 1
     assert "no norms" in " ".join(t.get_text() for t in fig.texts)
     with pytest.raises(ValueError, match="symmetric"):
-        pair_head_map(ptz, band="alpha", measure="msc",
-                      scale=dataclasses.replace(z_scale(), vmin=-2.0))
+        pair_head_map(
+            ptz, band="alpha", measure="msc", scale=dataclasses.replace(z_scale(), vmin=-2.0)
+        )
     with pytest.raises(ValueError, match="no rows"):
         pair_head_map(ptz, band="beta2", measure="msc")  # not a default band
 
@@ -98,7 +104,7 @@ def test_coupling_matrix_z_panels(tables):
         g = sel[sel.band == band]
         np.testing.assert_allclose(np.sort(m[np.triu_indices(n, 1)]), np.sort(g.z.to_numpy()))
         frames = [p for p in ax.patches if p.get_fill() is False]
-        assert len(frames) == 2 * int((np.abs(g.z) >= 1.96).sum())    # both triangles
+        assert len(frames) == 2 * int((np.abs(g.z) >= 1.96).sum())  # both triangles
         norm = ax.images[0].norm
         assert norm.vmin == -norm.vmax == -3.0
         assert ax.get_xlabel() == band
@@ -126,11 +132,21 @@ def test_coupling_matrix_values_without_norms(tables):
 def test_result_figures_coupling_keys(plain_result, tables):
     # (without norms, the figure set holds the matrices but no head maps: test_figures.py)
     scored = dataclasses.replace(plain_result, pair_table=tables[0], coupling_table=tables[1])
-    figs = result_figures(scored, surfaces=False, measures=("relative",), resolution=3,
-                          bands=("alpha",), z_map_atlas=None,
-                          pair_measures=("lagcoh", "asymmetry"), edge_measures=("lps",))
+    figs = result_figures(
+        scored,
+        surfaces=False,
+        measures=("relative",),
+        resolution=3,
+        bands=("alpha",),
+        z_map_atlas=None,
+        pair_measures=("lagcoh", "asymmetry"),
+        edge_measures=("lps",),
+    )
     assert {k for k in figs if k.startswith(("pairs/", "coupling/"))} == {
-        "pairs/alpha/lagcoh", "pairs/alpha/asymmetry", "coupling/lps"}
+        "pairs/alpha/lagcoh",
+        "pairs/alpha/asymmetry",
+        "coupling/lps",
+    }
     assert "z against the norm" in figs["coupling/lps"]._suptitle.get_text()
     with pytest.raises(ValueError, match="pair_measures"):
         result_figures(scored, surfaces=False, pair_measures=("gamma",))

@@ -8,12 +8,23 @@ from coupling_sim import cohort_spectral, cohort_values_spectral
 from scipy import stats
 
 from sourcelab.errors import InputError
-from sourcelab.norms import (Norms, apply_norms, check_norms, fit_norms, get_transform,
-                             read_norms, write_norms)
+from sourcelab.norms import (
+    Norms,
+    apply_norms,
+    check_norms,
+    fit_norms,
+    get_transform,
+    read_norms,
+    write_norms,
+)
 from sourcelab.norms.io import V_COLUMNS
 from sourcelab.provenance import Fingerprint
-from sourcelab.norms.coupling import (TRANSFORM_FOR_COUPLING, coupling_z,
-                                      reference_statistics, transformed)
+from sourcelab.norms.coupling import (
+    TRANSFORM_FOR_COUPLING,
+    coupling_z,
+    reference_statistics,
+    transformed,
+)
 
 
 def test_transforms_invert_and_asymmetry_is_half_log_ratio():
@@ -29,9 +40,19 @@ def test_transforms_invert_and_asymmetry_is_half_log_ratio():
         transformed(1.2, "msc")
     with pytest.raises(InputError, match="measure"):
         transformed(0.1, "nope")
-    assert set(TRANSFORM_FOR_COUPLING) >= {"msc", "imcoh", "lagcoh", "wpli", "wpli2_debiased",
-                                           "lps", "phase_deg", "lag_ms", "phase_sd_deg",
-                                           "asymmetry", "aec_orth"}
+    assert set(TRANSFORM_FOR_COUPLING) >= {
+        "msc",
+        "imcoh",
+        "lagcoh",
+        "wpli",
+        "wpli2_debiased",
+        "lps",
+        "phase_deg",
+        "lag_ms",
+        "phase_sd_deg",
+        "asymmetry",
+        "aec_orth",
+    }
 
 
 def test_phase_z_wraps():
@@ -95,36 +116,46 @@ def test_held_out_calibration_every_measure(model_op_lobes):
 # --------------------------------------------------------------------------------------------
 # through the norms machinery: the file, fit_norms, apply_norms
 
-FP = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
-                 lambda2=1 / 9, bands=(("alpha", 8.0, 12.0),))
+FP = Fingerprint(
+    headmodel_sha256="0" * 64,
+    method="sLORETA",
+    orientation="fixed",
+    lambda2=1 / 9,
+    bands=(("alpha", 8.0, 12.0),),
+)
 
 
 def _entries(cohort, ages):
     """(pid, age, None, None, pair_table, coupling_table) per invented person."""
     from sourcelab.coupling import coupling_table, pair_table
 
-    return [(f"sub-{i:04d}", float(a), None, None, pair_table(sc), coupling_table([ec]))
-            for i, ((sc, ec), a) in enumerate(zip(cohort, ages))]
+    return [
+        (f"sub-{i:04d}", float(a), None, None, pair_table(sc), coupling_table([ec]))
+        for i, ((sc, ec), a) in enumerate(zip(cohort, ages))
+    ]
 
 
 def _held_out_rates(model_op_lobes, n_ref, n_new, seed):
     model, op, lobes = model_op_lobes
     rng = np.random.default_rng(seed)
     ages = rng.uniform(18.0, 65.0, n_ref)
-    ages = np.r_[ages, rng.uniform(ages.min(), ages.max(), n_new)]   # inside the norms' range
+    ages = np.r_[ages, rng.uniform(ages.min(), ages.max(), n_new)]  # inside the norms' range
     people = _entries(cohort_spectral(model, op, lobes, n_ref + n_new, rng), ages)
     fit = fit_norms(people[:n_ref], fingerprint=FP, condition="eyes closed")
     hits: dict = {}
     for pid, age, _, _, pt, ct in people[n_ref:]:
         for kind, t in (("pair", pt), ("edge", ct)):
-            z = apply_norms(t, fit.norms, age=age, fingerprint=FP, condition="eyes closed",
-                            kind=kind)
+            z = apply_norms(
+                t, fit.norms, age=age, fingerprint=FP, condition="eyes closed", kind=kind
+            )
             assert not z["no_norm"].any()
             for m, g in z.groupby("measure"):
                 k, n = hits.get((kind, m), (0, 0))
                 zz = g["z"].to_numpy(dtype=float)
-                hits[(kind, m)] = (k + int(np.sum(np.abs(zz) > 1.96)),
-                                   n + int(np.isfinite(zz).sum()))
+                hits[(kind, m)] = (
+                    k + int(np.sum(np.abs(zz) > 1.96)),
+                    n + int(np.isfinite(zz).sum()),
+                )
     return fit, hits
 
 
@@ -140,27 +171,50 @@ def test_fit_and_apply_norms_reproduce_the_reference_statistics(model_op_lobes):
     sims = list(cohort_spectral(model, op, lobes, 45, rng))
     ages = rng.uniform(20.0, 60.0, len(sims))
     tables = [(pair_table(sc), coupling_table([ec])) for sc, ec in sims]
-    ref = [(f"s{i}", float(a), None, None, p, c)
-           for i, (a, (p, c)) in enumerate(zip(ages[:40], tables[:40]))]
-    fit = fit_norms(ref, fingerprint=FP, condition="eyes closed", model="binned",
-                    bins=(0.0, 100.0), min_n_per_bin=20, robust=False)
+    ref = [
+        (f"s{i}", float(a), None, None, p, c)
+        for i, (a, (p, c)) in enumerate(zip(ages[:40], tables[:40]))
+    ]
+    fit = fit_norms(
+        ref,
+        fingerprint=FP,
+        condition="eyes closed",
+        model="binned",
+        bins=(0.0, 100.0),
+        min_n_per_bin=20,
+        robust=False,
+    )
     assert set(fit.norms.table["kind"]) == {"pair", "edge"}
     assert set(fit.norms.table.loc[fit.norms.table.measure == "phase_deg", "transform"]) == {
-        "circular_deg"}
+        "circular_deg"
+    }
     for k, kind in enumerate(("pair", "edge")):
         keys = ["atlas", "edge", "band"] if kind == "edge" else ["pair", "band"]
-        scored = [apply_norms(tables[40 + j][k], fit.norms, age=ages[40 + j], fingerprint=FP,
-                              condition="eyes closed", kind=kind).set_index(keys + ["measure"])
-                  for j in range(5)]
+        scored = [
+            apply_norms(
+                tables[40 + j][k],
+                fit.norms,
+                age=ages[40 + j],
+                fingerprint=FP,
+                condition="eyes closed",
+                kind=kind,
+            ).set_index(keys + ["measure"])
+            for j in range(5)
+        ]
         stack = pd.concat([t[k].assign(person=i) for i, t in enumerate(tables)])
         for m, g in stack.groupby("measure", sort=False):
-            vals = g.pivot_table(index="person", columns=keys, values="value", aggfunc="first",
-                                 sort=False)
+            vals = g.pivot_table(
+                index="person", columns=keys, values="value", aggfunc="first", sort=False
+            )
             v = vals.to_numpy(dtype=float)
             mean, sd = reference_statistics(v[:40], m)
             want = coupling_z(v[40:], m, mean, sd)
-            got = np.stack([z.xs(m, level="measure")["z"].reindex(vals.columns).to_numpy(float)
-                            for z in scored])
+            got = np.stack(
+                [
+                    z.xs(m, level="measure")["z"].reindex(vals.columns).to_numpy(float)
+                    for z in scored
+                ]
+            )
             np.testing.assert_allclose(got, want, rtol=1e-9, atol=1e-9, err_msg=f"{kind} {m}")
 
 
@@ -175,10 +229,33 @@ def test_held_out_calibration_through_fit_and_apply_norms(model_op_lobes):
 
 
 def _norm_rows(kind, names, measure, *, mean, sd, transform, atlas="n/a"):
-    return pd.DataFrame([dict(kind=kind, atlas=atlas, name=n, hemisphere="n/a", band="alpha",
-                              measure=measure, age_min=18.0, age_max=65.0, model="binned",
-                              degree=0, transform=transform, b0=mean, b1=0.0, b2=0.0, b3=0.0,
-                              sd=sd, n=50, df=49, **V_ZERO, v00=1.0 / 50) for n in names])
+    return pd.DataFrame(
+        [
+            dict(
+                kind=kind,
+                atlas=atlas,
+                name=n,
+                hemisphere="n/a",
+                band="alpha",
+                measure=measure,
+                age_min=18.0,
+                age_max=65.0,
+                model="binned",
+                degree=0,
+                transform=transform,
+                b0=mean,
+                b1=0.0,
+                b2=0.0,
+                b3=0.0,
+                sd=sd,
+                n=50,
+                df=49,
+                **V_ZERO,
+                v00=1.0 / 50,
+            )
+            for n in names
+        ]
+    )
 
 
 # format-2 rows of one age bin: (X'X)^-1 = 1/n for the intercept-only model
@@ -188,20 +265,35 @@ V_ZERO = {c: 0.0 for c in V_COLUMNS if c != "v00"}
 def test_pair_and_edge_rows_in_the_norms_file(tmp_path):
     # The file keeps pair and edge rows exactly; rows that break the kind's rules are refused
     # with one line naming the file.
-    rows = pd.concat([
-        _norm_rows("pair", ["F3-F4", "O1-O2"], "msc", mean=0.4, sd=0.1, transform="fisher_sqrt"),
-        _norm_rows("pair", ["F3-F4"], "phase_deg", mean=179.0, sd=8.0,
-                   transform="circular_deg"),
-        _norm_rows("edge", ["visual.left|visual.right"], "lagcoh", mean=0.1, sd=0.05,
-                   transform="fisher_sqrt", atlas="lobes")], ignore_index=True)
-    nm = write_norms(Norms(table=rows, fingerprint=FP, condition="eyes closed"),
-                     tmp_path / "n.tsv")
+    rows = pd.concat(
+        [
+            _norm_rows(
+                "pair", ["F3-F4", "O1-O2"], "msc", mean=0.4, sd=0.1, transform="fisher_sqrt"
+            ),
+            _norm_rows(
+                "pair", ["F3-F4"], "phase_deg", mean=179.0, sd=8.0, transform="circular_deg"
+            ),
+            _norm_rows(
+                "edge",
+                ["visual.left|visual.right"],
+                "lagcoh",
+                mean=0.1,
+                sd=0.05,
+                transform="fisher_sqrt",
+                atlas="lobes",
+            ),
+        ],
+        ignore_index=True,
+    )
+    nm = write_norms(Norms(table=rows, fingerprint=FP, condition="eyes closed"), tmp_path / "n.tsv")
     back = read_norms(nm.path)
     pd.testing.assert_frame_equal(back.table, nm.table)
     assert "pair: 2 pairs" in check_norms(nm.path) and "lobes: 1 edges" in check_norms(nm.path)
-    for bad, word in ((rows.assign(atlas="lobes"), "pair rows must have atlas"),
-                      (rows.assign(measure="absolute"), "measure must be one of"),
-                      (rows.assign(kind=["pair", "pair", "pair", "sensor"]), "measure must")):
+    for bad, word in (
+        (rows.assign(atlas="lobes"), "pair rows must have atlas"),
+        (rows.assign(measure="absolute"), "measure must be one of"),
+        (rows.assign(kind=["pair", "pair", "pair", "sensor"]), "measure must"),
+    ):
         with pytest.raises(InputError, match=word):
             Norms(table=bad, fingerprint=FP, condition="eyes closed")
     edge_na = rows.copy()
@@ -213,18 +305,33 @@ def test_pair_and_edge_rows_in_the_norms_file(tmp_path):
 def test_apply_norms_to_pairs_known_z_and_circular_phase():
     # Known answers: msc 0.49 -> atanh(0.7) = 0.8673; z = (0.8673 - 0.4)/0.1.  Phase -177° against
     # a norm of 179° ± 8°: the circular difference is +4°, z = +0.5 (not -44.5).
-    nm = Norms(table=pd.concat([
-        _norm_rows("pair", ["F3-F4"], "msc", mean=0.4, sd=0.1, transform="fisher_sqrt"),
-        _norm_rows("pair", ["F3-F4"], "phase_deg", mean=179.0, sd=8.0,
-                   transform="circular_deg")], ignore_index=True),
-        fingerprint=FP, condition="eyes closed")
-    t = pd.DataFrame({"pair": ["F3-F4", "F3-F4"], "band": ["alpha", "alpha"],
-                      "measure": ["msc", "phase_deg"], "value": [0.49, -177.0]})
+    nm = Norms(
+        table=pd.concat(
+            [
+                _norm_rows("pair", ["F3-F4"], "msc", mean=0.4, sd=0.1, transform="fisher_sqrt"),
+                _norm_rows(
+                    "pair", ["F3-F4"], "phase_deg", mean=179.0, sd=8.0, transform="circular_deg"
+                ),
+            ],
+            ignore_index=True,
+        ),
+        fingerprint=FP,
+        condition="eyes closed",
+    )
+    t = pd.DataFrame(
+        {
+            "pair": ["F3-F4", "F3-F4"],
+            "band": ["alpha", "alpha"],
+            "measure": ["msc", "phase_deg"],
+            "value": [0.49, -177.0],
+        }
+    )
     z = apply_norms(t, nm, age=30.0, fingerprint=FP, condition="eyes closed", kind="pair")
     np.testing.assert_allclose(z["z"], [(np.arctanh(0.7) - 0.4) / 0.1, 0.5], rtol=1e-12)
     # predictive Student-t p (norms format 2): t = z / sqrt(1 + 1/n) on n - 1 df
-    np.testing.assert_allclose(z["p"], 2 * stats.t.sf(np.abs(z["z"]) / np.sqrt(1 + 1 / 50), 49),
-                               rtol=1e-9)
+    np.testing.assert_allclose(
+        z["p"], 2 * stats.t.sf(np.abs(z["z"]) / np.sqrt(1 + 1 / 50), 49), rtol=1e-9
+    )
 
 
 def test_fit_norms_phase_around_180_degrees(rng):
@@ -232,16 +339,25 @@ def test_fit_norms_phase_around_180_degrees(rng):
     # ~180° and its SD that of the wrapped deviations (here 6°), not ~180° of a linear fit.
     n = 120
     phase = (180.0 + rng.normal(0.0, 6.0, n) + 180.0) % 360.0 - 180.0
-    entries = [(f"s{i}", float(a), None, None,
-                pd.DataFrame({"pair": ["O1-O2"], "band": ["alpha"], "measure": ["phase_deg"],
-                              "value": [p]}))
-               for i, (a, p) in enumerate(zip(rng.uniform(20, 60, n), phase))]
+    entries = [
+        (
+            f"s{i}",
+            float(a),
+            None,
+            None,
+            pd.DataFrame(
+                {"pair": ["O1-O2"], "band": ["alpha"], "measure": ["phase_deg"], "value": [p]}
+            ),
+        )
+        for i, (a, p) in enumerate(zip(rng.uniform(20, 60, n), phase))
+    ]
     norms = fit_norms(entries, fingerprint=FP, condition="eyes closed", degree=0).norms
     row = norms.table.iloc[0]
     assert row["transform"] == "circular_deg"
     assert abs(abs(row["b0"]) - 180.0) < 2.0 and 4.5 < row["sd"] < 7.5
-    t = pd.DataFrame({"pair": ["O1-O2"], "band": ["alpha"], "measure": ["phase_deg"],
-                      "value": [-178.0]})
+    t = pd.DataFrame(
+        {"pair": ["O1-O2"], "band": ["alpha"], "measure": ["phase_deg"], "value": [-178.0]}
+    )
     z = apply_norms(t, norms, age=30.0, fingerprint=FP, condition="eyes closed", kind="pair")
     assert abs(z["z"][0]) < 1.0
 
@@ -252,12 +368,26 @@ def test_coupling_value_on_the_edge_of_its_range_is_missing_not_fatal():
     # and every other value stay in.  The same value in band power is an error.
     from sourcelab.norms import entry_values
 
-    t = pd.DataFrame({"pair": ["F3-F4", "F3-F4"], "band": ["alpha", "alpha"],
-                      "measure": ["msc", "imcoh"], "value": [1.0, 0.2]})
+    t = pd.DataFrame(
+        {
+            "pair": ["F3-F4", "F3-F4"],
+            "band": ["alpha", "alpha"],
+            "measure": ["msc", "imcoh"],
+            "value": [1.0, 0.2],
+        }
+    )
     v = entry_values("s1", 30.0, None, None, t)
     assert np.isnan(v[("pair", "n/a", "F3-F4", "n/a", "alpha", "msc")])
     assert v[("pair", "n/a", "F3-F4", "n/a", "alpha", "imcoh")] == pytest.approx(np.arctanh(0.2))
-    roi = pd.DataFrame({"atlas": ["brodmann"], "roi": ["BA17"], "hemisphere": ["left"],
-                        "band": ["alpha"], "measure": ["absolute"], "value": [0.0]})
+    roi = pd.DataFrame(
+        {
+            "atlas": ["brodmann"],
+            "roi": ["BA17"],
+            "hemisphere": ["left"],
+            "band": ["alpha"],
+            "measure": ["absolute"],
+            "value": [0.0],
+        }
+    )
     with pytest.raises(InputError, match="s1"):
         entry_values("s1", 30.0, roi, None)

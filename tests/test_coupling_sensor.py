@@ -5,13 +5,22 @@ import numpy as np
 import pytest
 
 from sourcelab.config import Bands
-from sourcelab.coupling.measures import (band_measures, bin_measures, conjugation_null,
-                                         coupling_from_statistics, pair_statistics,
-                                         pair_statistics_from_fourier)
+from sourcelab.coupling.measures import (
+    band_measures,
+    bin_measures,
+    conjugation_null,
+    coupling_from_statistics,
+    pair_statistics,
+    pair_statistics_from_fourier,
+)
 from sourcelab.coupling.pairs import pair_sets
 from sourcelab.coupling.sensor import PAIR_COLUMNS, sensor_coupling
-from sourcelab.spectra import (band_bin_indices, epoch_bin_cross_spectra, epoch_cross_spectra,
-                               epoch_fourier)
+from sourcelab.spectra import (
+    band_bin_indices,
+    epoch_bin_cross_spectra,
+    epoch_cross_spectra,
+    epoch_fourier,
+)
 
 from coupling_sim import coupled_recording, delayed_narrowband, epochs_of  # noqa: I001
 
@@ -26,9 +35,17 @@ def lagged_epochs(head_model):
     """Invented: left-frontal and right-occipital alpha patches sharing a signal, the second
     10 ms later, on pink background; 150 two-second epochs."""
     rng = np.random.default_rng(5)
-    d = coupled_recording(head_model, duration_s=300.0, sfreq=FS, rng=rng, coupling=0.7,
-                          patches=[((-30, 40, 30), "left", 2.0, 0.0, 15.0),
-                                   ((25, -90, 5), "right", 2.0, 0.010, 15.0)])
+    d = coupled_recording(
+        head_model,
+        duration_s=300.0,
+        sfreq=FS,
+        rng=rng,
+        coupling=0.7,
+        patches=[
+            ((-30, 40, 30), "left", 2.0, 0.0, 15.0),
+            ((25, -90, 5), "right", 2.0, 0.010, 15.0),
+        ],
+    )
     return epochs_of(d, N)
 
 
@@ -46,8 +63,9 @@ def test_bin_cross_spectra_sum_to_band_power_and_match_scipy(rng):
     sums = np.stack([csd[:, i].real.sum(axis=1) for i in idx], axis=1)
     np.testing.assert_allclose(sums, ref, rtol=1e-12, atol=1e-15)
     assert freqs[0] == FIRST_BIN and freqs[-1] == LAST_BIN  # only bins inside the bands
-    f, pxy = scipy.signal.csd(x[0, 0], x[0, 1], FS, window="hann", nperseg=N, noverlap=0,
-                              detrend="constant")
+    f, pxy = scipy.signal.csd(
+        x[0, 0], x[0, 1], FS, window="hann", nperseg=N, noverlap=0, detrend="constant"
+    )
     sel = np.isin(f, freqs)
     # scipy's csd(x, y) is conj(X) Y; ours is X conj(Y) (positive phase: the first site leads)
     np.testing.assert_allclose(csd[0, :, 0, 1], np.conj(pxy[sel]) * (f[1] - f[0]), rtol=1e-10)
@@ -69,9 +87,24 @@ def test_pair_sets_follow_1020_geometry(head_model):
     ps = pair_sets(head_model.ch_names, head_model.ch_pos)
     assert len(ps.all) == 171
     assert [ps.label(p) for p in ps.homologous] == [
-        "Fp1-Fp2", "F7-F8", "F3-F4", "T7-T8", "C3-C4", "P7-P8", "P3-P4", "O1-O2"]
+        "Fp1-Fp2",
+        "F7-F8",
+        "F3-F4",
+        "T7-T8",
+        "C3-C4",
+        "P7-P8",
+        "P3-P4",
+        "O1-O2",
+    ]
     assert [ps.label(p) for p in ps.anterior_posterior] == [
-        "Fp1-O1", "Fp2-O2", "F7-P7", "F3-P3", "Fz-Pz", "F4-P4", "F8-P8"]
+        "Fp1-O1",
+        "Fp2-O2",
+        "F7-P7",
+        "F3-P3",
+        "Fz-Pz",
+        "F4-P4",
+        "F8-P8",
+    ]
     assert ps.midline == ("Fz", "Cz", "Pz")
     assert len(ps.intrahemispheric) == 2 * 28
     assert len(ps.figure_pairs()) == 64
@@ -84,11 +117,22 @@ def _mne_spectrum(epochs):
 
     info = mne.create_info(epochs.shape[1], FS, "eeg")
     ep = mne.EpochsArray(epochs, info, verbose="error")
-    spec = ep.compute_psd(method="welch", n_fft=N, n_per_seg=N, n_overlap=0, window="hann",
-                          output="complex", average=False, fmin=FIRST_BIN, fmax=LAST_BIN,
-                          remove_dc=True, verbose="error")
-    return mne.time_frequency.EpochsSpectrumArray(spec.get_data()[..., 0], info, spec.freqs,
-                                                  verbose="error")
+    spec = ep.compute_psd(
+        method="welch",
+        n_fft=N,
+        n_per_seg=N,
+        n_overlap=0,
+        window="hann",
+        output="complex",
+        average=False,
+        fmin=FIRST_BIN,
+        fmax=LAST_BIN,
+        remove_dc=True,
+        verbose="error",
+    )
+    return mne.time_frequency.EpochsSpectrumArray(
+        spec.get_data()[..., 0], info, spec.freqs, verbose="error"
+    )
 
 
 def test_reference_agreement_with_mne_connectivity(lagged_epochs, head_model):
@@ -104,8 +148,9 @@ def test_reference_agreement_with_mne_connectivity(lagged_epochs, head_model):
     x = lagged_epochs - lagged_epochs.mean(axis=1, keepdims=True)
     bands = Bands()
     spec, freqs = epoch_fourier(x, FS, bands)
-    sc = sensor_coupling(spec, freqs, bands, head_model.ch_names, head_model.ch_pos,
-                         null_method=None)
+    sc = sensor_coupling(
+        spec, freqs, bands, head_model.ch_names, head_model.ch_pos, null_method=None
+    )
     ps = pair_sets(head_model.ch_names, head_model.ch_pos)
     st = pair_statistics_from_fourier(spec, freqs, ps.all)
     acc, pw = st.accumulate()
@@ -114,13 +159,17 @@ def test_reference_agreement_with_mne_connectivity(lagged_epochs, head_model):
     np.testing.assert_allclose(mne_spec.freqs, freqs)
     idx = band_bin_indices(freqs, bands)
     errs = {}
-    for method, ours, fn in (("coh", "msc", np.square), ("imcoh", "imcoh", None),
-                             ("wpli", "wpli", None), ("wpli2_debiased", "wpli2_debiased", None),
-                             ("ciplv", "lps", np.square)):
-        con = spectral_connectivity_epochs(mne_spec, method=method,
-                                           indices=(ps.all[:, 0], ps.all[:, 1]),
-                                           verbose="error")
-        ref = con.get_data()                                     # (n_pairs, n_bins)
+    for method, ours, fn in (
+        ("coh", "msc", np.square),
+        ("imcoh", "imcoh", None),
+        ("wpli", "wpli", None),
+        ("wpli2_debiased", "wpli2_debiased", None),
+        ("ciplv", "lps", np.square),
+    ):
+        con = spectral_connectivity_epochs(
+            mne_spec, method=method, indices=(ps.all[:, 0], ps.all[:, 1]), verbose="error"
+        )
+        ref = con.get_data()  # (n_pairs, n_bins)
         ref = fn(ref) if fn else ref
         bin_err = np.abs(per_bin[ours][0].T - ref).max()
         band_ref = np.stack([ref[:, i].mean(axis=1) for i in idx])
@@ -131,10 +180,15 @@ def test_reference_agreement_with_mne_connectivity(lagged_epochs, head_model):
     for method in ("imcoh", "wpli", "wpli2_debiased"):
         b = bands.names.index("alpha")
         lo, hi = bands.edges[b]  # [lo, hi): the last bin below hi
-        con = spectral_connectivity_epochs(mne_spec, method=method, fmin=(lo,),
-                                           fmax=(hi - 0.1,), faverage=True,
-                                           indices=(ps.all[:, 0], ps.all[:, 1]),
-                                           verbose="error")
+        con = spectral_connectivity_epochs(
+            mne_spec,
+            method=method,
+            fmin=(lo,),
+            fmax=(hi - 0.1,),
+            faverage=True,
+            indices=(ps.all[:, 0], ps.all[:, 1]),
+            verbose="error",
+        )
         assert np.abs(sc.values[method][b] - con.get_data()[:, 0]).max() < 1e-3
     print("max |ours - mne_connectivity| per bin, per band:", errs)
 
@@ -157,11 +211,17 @@ def test_planted_10ms_lag_at_10hz():
     null = conjugation_null(ps, idx)
     lag = est["lag_ms"][0, 0, 0]
     assert abs(lag - 10.0) <= 2.0, lag
-    assert 25.0 < est["phase_deg"][0, 0, 0] < 47.0          # 2π f τ: 28.8°-43.2° over 8-12 Hz
+    assert 25.0 < est["phase_deg"][0, 0, 0] < 47.0  # 2π f τ: 28.8°-43.2° over 8-12 Hz
     for m in ("lagcoh", "lps", "wpli2_debiased"):
         assert est[m][0, 0, 0] > 3 * null[m][1][0, 0], m
-    print("planted lag: lag_ms", lag, "lagcoh", est["lagcoh"][0, 0, 0], "null q95",
-          null["lagcoh"][1][0, 0])
+    print(
+        "planted lag: lag_ms",
+        lag,
+        "lagcoh",
+        est["lagcoh"][0, 0, 0],
+        "null q95",
+        null["lagcoh"][1][0, 0],
+    )
 
 
 def test_single_source_seen_at_two_sites_has_no_lagged_coupling(head_model):
@@ -171,21 +231,30 @@ def test_single_source_seen_at_two_sites_has_no_lagged_coupling(head_model):
     # (unbiased) contain 0, and lagged coherence / lagged phase synchronisation stay within
     # the conjugation null (leakage_explained), while the zero-lag coherence is large.
     rng = np.random.default_rng(8)
-    d = coupled_recording(head_model, duration_s=240.0, sfreq=FS, rng=rng,
-                          patches=[((-30, 40, 30), "left", 3.0, 0.0, 15.0)])
+    d = coupled_recording(
+        head_model,
+        duration_s=240.0,
+        sfreq=FS,
+        rng=rng,
+        patches=[((-30, 40, 30), "left", 3.0, 0.0, 15.0)],
+    )
     ep = epochs_of(d, N)
     bands = Bands(("alpha",), ((8.0, 12.0),))
     spec, freqs = epoch_fourier(ep, FS, bands)
-    sc = sensor_coupling(spec, freqs, bands, head_model.ch_names, head_model.ch_pos,
-                         n_boot=500, seed=1)
+    sc = sensor_coupling(
+        spec, freqs, bands, head_model.ch_names, head_model.ch_pos, n_boot=500, seed=1
+    )
     t = sc.to_frame()
     row = t[(t.pair == "F7-F3") & (t.band == "alpha")].set_index("measure")
     assert row.loc["msc", "value"] > 0.5
     for m in ("imcoh", "wpli2_debiased"):
         assert row.loc[m, "value_lo"] <= 0.0 <= row.loc[m, "value_hi"], m
     for m in ("imcoh", "lagcoh", "lps"):
-        assert bool(row.loc[m, "leakage_explained"]), (m, row.loc[m, "value"],
-                                                       row.loc[m, "leakage_q95"])
+        assert bool(row.loc[m, "leakage_explained"]), (
+            m,
+            row.loc[m, "value"],
+            row.loc[m, "leakage_q95"],
+        )
 
 
 def test_lagged_coherence_null_mean_and_size():
@@ -201,7 +270,7 @@ def test_lagged_coherence_null_mean_and_size():
     exceed, total, means = 0, 0, []
     for rep in range(10):
         x = rng.standard_normal((100, 19, N))
-        x = x + 0.8 * x[:, [0]]                                 # instantaneous mixing
+        x = x + 0.8 * x[:, [0]]  # instantaneous mixing
         spec, freqs = epoch_fourier(x, FS, bands)
         ps = pair_statistics_from_fourier(spec, freqs, ps0.all)
         idx = band_bin_indices(freqs, bands)
@@ -228,8 +297,9 @@ def test_analytic_null_matches_monte_carlo(lagged_epochs, head_model):
     bands = Bands(("theta", "alpha"), ((4.0, 8.0), (8.0, 12.0)))
     x = lagged_epochs[:80] - lagged_epochs[:80].mean(axis=1, keepdims=True)
     spec, freqs = epoch_fourier(x, FS, bands)
-    ps = pair_statistics_from_fourier(spec, freqs, pair_sets(head_model.ch_names,
-                                                             head_model.ch_pos).all[:60])
+    ps = pair_statistics_from_fourier(
+        spec, freqs, pair_sets(head_model.ch_names, head_model.ch_pos).all[:60]
+    )
     idx = band_bin_indices(freqs, bands)
     an = conjugation_null(ps, idx)
     mc = conjugation_null(ps, idx, method="monte-carlo", n_rep=2000, seed=3)

@@ -6,10 +6,19 @@ import pytest
 from coupling_sim import coupled_recording, epochs_of
 
 from sourcelab.config import Bands
-from sourcelab.coupling.source import (EDGE_COLUMNS, aec_from_moments, band_analytic,
-                                       coupling_table, edge_leakage_msc, envelope_moments,
-                                       independent_source_covariance, network_coupling,
-                                       roi_cross_spectra, roi_filters, roi_fourier)
+from sourcelab.coupling.source import (
+    EDGE_COLUMNS,
+    aec_from_moments,
+    band_analytic,
+    coupling_table,
+    edge_leakage_msc,
+    envelope_moments,
+    independent_source_covariance,
+    network_coupling,
+    roi_cross_spectra,
+    roi_filters,
+    roi_fourier,
+)
 from sourcelab.spectra import band_bin_indices, epoch_bin_cross_spectra, epoch_fourier
 
 FS = 256.0
@@ -36,9 +45,16 @@ def two_source_epochs(head_model):
     """Invented: left-frontal patch leads a right-occipital patch by 10 ms (shared 8-12 Hz
     signal), pink background; 120 two-second epochs."""
     rng = np.random.default_rng(3)
-    d = coupled_recording(head_model, duration_s=240.0, sfreq=FS, rng=rng,
-                          patches=[((-30, 40, 30), "left", 3.0, 0.0, 15.0),
-                                   ((25, -90, 5), "right", 3.0, 0.010, 15.0)])
+    d = coupled_recording(
+        head_model,
+        duration_s=240.0,
+        sfreq=FS,
+        rng=rng,
+        patches=[
+            ((-30, 40, 30), "left", 3.0, 0.0, 15.0),
+            ((25, -90, 5), "right", 3.0, 0.010, 15.0),
+        ],
+    )
     return epochs_of(d, N)
 
 
@@ -54,19 +70,23 @@ def test_roi_filters_are_the_leading_direction_of_roi_power(op, lobes, head_mode
         np.testing.assert_allclose(abs(vec[:, -1] @ f.weights[r]) ** 2, ev[-1], rtol=1e-8)
         assert f.share[r] == pytest.approx(ev[-1] / ev.sum(), rel=1e-8)
     assert np.all((f.share > 0) & (f.share <= 1))
-    assert roi_filters(op, lobes, normals=head_model.src_nn) is f          # cached
+    assert roi_filters(op, lobes, normals=head_model.src_nn) is f  # cached
     rng = np.random.default_rng(0)
     x = rng.standard_normal((6, 19, N))
     csd, freqs = epoch_bin_cross_spectra(x, FS, ALPHA, dtype=np.complex128)
     spec, _ = epoch_fourier(x, FS, ALPHA)
     y = roi_fourier(spec, f.weights)
-    np.testing.assert_allclose(roi_cross_spectra(csd, f.weights),
-                               np.einsum("erf,esf->efrs", y, y.conj()), rtol=1e-10,
-                               atol=1e-12)
+    np.testing.assert_allclose(
+        roi_cross_spectra(csd, f.weights),
+        np.einsum("erf,esf->efrs", y, y.conj()),
+        rtol=1e-10,
+        atol=1e-12,
+    )
 
 
-def test_lps_matches_mne_connectivity_from_roi_time_series(two_source_epochs, op, lobes,
-                                                          head_model):
+def test_lps_matches_mne_connectivity_from_roi_time_series(
+    two_source_epochs, op, lobes, head_model
+):
     # Reference: mne_connectivity.spectral_connectivity_epochs(method="ciplv") on the ROI time
     # series W x of the same epochs (MNE's Welch Fourier coefficients,
     # mne.time_frequency.EpochsSpectrumArray); lagged phase synchronisation = ciPLV² per bin
@@ -76,22 +96,38 @@ def test_lps_matches_mne_connectivity_from_roi_time_series(two_source_epochs, op
 
     f = roi_filters(op, lobes, normals=head_model.src_nn)
     spec, freqs = epoch_fourier(two_source_epochs, FS, ALPHA)
-    res = network_coupling(spec, None, freqs, ALPHA, op, [lobes], normals=head_model.src_nn,
-                           null_method=None)[0]
+    res = network_coupling(
+        spec, None, freqs, ALPHA, op, [lobes], normals=head_model.src_nn, null_method=None
+    )[0]
     roi_ts = np.einsum("rc,ect->ert", f.weights, two_source_epochs)
     info = mne.create_info(roi_ts.shape[1], FS, "eeg")
     ep = mne.EpochsArray(roi_ts, info, verbose="error")
-    s = ep.compute_psd(method="welch", n_fft=N, n_per_seg=N, n_overlap=0, window="hann",
-                       output="complex", average=False, fmin=8.0, fmax=11.5,
-                       remove_dc=True, verbose="error")
-    sa = mne.time_frequency.EpochsSpectrumArray(s.get_data()[..., 0], info, s.freqs,
-                                                verbose="error")
+    s = ep.compute_psd(
+        method="welch",
+        n_fft=N,
+        n_per_seg=N,
+        n_overlap=0,
+        window="hann",
+        output="complex",
+        average=False,
+        fmin=8.0,
+        fmax=11.5,
+        remove_dc=True,
+        verbose="error",
+    )
+    sa = mne.time_frequency.EpochsSpectrumArray(
+        s.get_data()[..., 0], info, s.freqs, verbose="error"
+    )
     idx = (res.edges[:, 0], res.edges[:, 1])
     errs = {}
-    for method, ours, fn in (("ciplv", "lps", np.square), ("coh", "msc", np.square),
-                             ("imcoh", "imcoh", None)):
-        ref = spectral_connectivity_epochs(sa, method=method, indices=idx,
-                                           verbose="error").get_data()
+    for method, ours, fn in (
+        ("ciplv", "lps", np.square),
+        ("coh", "msc", np.square),
+        ("imcoh", "imcoh", None),
+    ):
+        ref = spectral_connectivity_epochs(
+            sa, method=method, indices=idx, verbose="error"
+        ).get_data()
         ref = fn(ref) if fn else ref
         errs[method] = np.abs(res.values[ours][0] - ref.mean(axis=1)).max()
         assert errs[method] < 1e-3, (method, errs[method])
@@ -132,8 +168,9 @@ def test_planted_lag_between_networks(two_source_epochs, op, lobes, head_model):
     bands = ALPHA
     spec, freqs = epoch_fourier(two_source_epochs, FS, bands)
     plain, _ = epoch_fourier(two_source_epochs, FS, bands, taper=False)
-    res = network_coupling(spec, plain, freqs, bands, op, [lobes], gain=head_model.gain,
-                           normals=head_model.src_nn)
+    res = network_coupling(
+        spec, plain, freqs, bands, op, [lobes], gain=head_model.gain, normals=head_model.src_nn
+    )
     t = coupling_table(res)
     e = t[t.edge == "frontal.left|occipital.right"].set_index("measure")
     assert abs(e.loc["lag_ms", "value"] - 10.0) <= 2.0, e.loc["lag_ms", "value"]
@@ -149,12 +186,27 @@ def test_single_source_gives_no_lagged_edge(head_model, op, lobes):
     # zero lag: the frontal-temporal (left) edge has zero imaginary coherency (bootstrap interval
     # contains 0) and lagged coherence / lagged phase synchronisation within the leakage null.
     rng = np.random.default_rng(8)
-    d = coupled_recording(head_model, duration_s=240.0, sfreq=FS, rng=rng,
-                          patches=[((-30, 40, 30), "left", 3.0, 0.0, 15.0)])
+    d = coupled_recording(
+        head_model,
+        duration_s=240.0,
+        sfreq=FS,
+        rng=rng,
+        patches=[((-30, 40, 30), "left", 3.0, 0.0, 15.0)],
+    )
     ep = epochs_of(d, N)
     spec, freqs = epoch_fourier(ep, FS, ALPHA)
-    res = network_coupling(spec, None, freqs, ALPHA, op, [lobes], gain=head_model.gain,
-                           normals=head_model.src_nn, n_boot=500, seed=2)
+    res = network_coupling(
+        spec,
+        None,
+        freqs,
+        ALPHA,
+        op,
+        [lobes],
+        gain=head_model.gain,
+        normals=head_model.src_nn,
+        n_boot=500,
+        seed=2,
+    )
     t = coupling_table(res)
     for edge in ("frontal.left|temporal.left", "frontal.left|parietal.left"):
         e = t[t.edge == edge].set_index("measure")
@@ -174,8 +226,11 @@ def test_leakage_coherence_model(op, lobes, head_model):
     np.testing.assert_allclose(leak, leak.T)
     np.testing.assert_allclose(np.diag(leak), 1.0)
     n = list(zip(f.names, f.hemispheres))
-    fl, pl, orr = n.index(("frontal", "left")), n.index(("parietal", "left")), \
-        n.index(("occipital", "right"))
+    fl, pl, orr = (
+        n.index(("frontal", "left")),
+        n.index(("parietal", "left")),
+        n.index(("occipital", "right")),
+    )
     assert leak[fl, pl] > leak[fl, orr]
 
 
@@ -185,12 +240,13 @@ def test_coupling_table_layout(two_source_epochs, op, head_model):
     ats = [load_atlas(a) for a in ("lobes", "yeo7", "networks")]
     spec, freqs = epoch_fourier(two_source_epochs[:30], FS, ALPHA)
     plain, _ = epoch_fourier(two_source_epochs[:30], FS, ALPHA, taper=False)
-    res = network_coupling(spec, plain, freqs, ALPHA, op, ats, gain=head_model.gain,
-                           normals=head_model.src_nn)
+    res = network_coupling(
+        spec, plain, freqs, ALPHA, op, ats, gain=head_model.gain, normals=head_model.src_nn
+    )
     t = coupling_table(res)
     assert tuple(t.columns) == EDGE_COLUMNS
     sizes = [len(r.filters.names) for r in res]
-    assert sizes == [12, 14, 16]                  # networks: per hemisphere, bilateral dropped
+    assert sizes == [12, 14, 16]  # networks: per hemisphere, bilateral dropped
     assert len(t) == sum(k * (k - 1) // 2 for k in sizes) * 6
     assert res[0].matrix("lagcoh", "alpha").shape == (12, 12)
     assert t[t.measure == "lag_ms"].leakage_explained.isna().all()

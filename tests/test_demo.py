@@ -40,8 +40,15 @@ def demo_run(tmp_path_factory):
 def test_demo_end_to_end(demo_run):
     out, text = demo_run
     assert "INVENTED" in text and "not a diagnostic device" in text
-    for name in ("roi_table.tsv", "sensor_table.tsv", "provenance.json", "report.html",
-                 "candidates.tsv", "leakage_brodmann.tsv", "demo-01_invented_eeg.edf"):
+    for name in (
+        "roi_table.tsv",
+        "sensor_table.tsv",
+        "provenance.json",
+        "report.html",
+        "candidates.tsv",
+        "leakage_brodmann.tsv",
+        "demo-01_invented_eeg.edf",
+    ):
         assert (out / name).is_file(), name
     t = pd.read_csv(out / "roi_table.tsv", sep="\t")
     # issue 14: candidate #1 is the planted (invented) left dorsolateral prefrontal theta excess,
@@ -49,8 +56,7 @@ def test_demo_end_to_end(demo_run):
     cand = pd.read_csv(out / "candidates.tsv", sep="\t")  # a plain table (issue 16)
     first = cand.iloc[0]
     assert (first.band, first.measure, first.direction) == ("theta", "absolute", "above norm")
-    assert (first.area, first.hemisphere) in {("BA8", "left"), ("BA9", "left"),
-                                              ("BA46", "left")}
+    assert (first.area, first.hemisphere) in {("BA8", "left"), ("BA9", "left"), ("BA46", "left")}
     assert first.peak_z > 1.96 and 0 < first.probability < 1
     # relative power is compositional: no relative row may reach |z| > 6 (issue 14)
     s = pd.read_csv(out / "sensor_table.tsv", sep="\t")
@@ -139,7 +145,7 @@ def test_tables_and_messages_have_no_python_values_or_install_paths(demo_run):
                 bad.append(f"{js.name}{where}: install path {s[:60]!r}")
     # what the command printed
     for m in _PY_WORDS.finditer(printed):
-        bad.append(f"demo output: {printed[max(0, m.start() - 40):m.end() + 20]!r}")
+        bad.append(f"demo output: {printed[max(0, m.start() - 40) : m.end() + 20]!r}")
     if pkg in printed:
         bad.append("demo output: shows the install path of sourcelab")
     assert not bad, "\n".join(bad[:30])
@@ -151,8 +157,10 @@ def test_report_text_has_no_python_values_or_install_paths(demo_run):
     parser = _Text()
     parser.feed((out / "report.html").read_text(encoding="utf-8"))
     visible = " ".join(parser.parts)
-    bad = [f"report.html: {visible[max(0, m.start() - 40):m.end() + 20]!r}"
-           for m in _PY_WORDS.finditer(visible)]
+    bad = [
+        f"report.html: {visible[max(0, m.start() - 40) : m.end() + 20]!r}"
+        for m in _PY_WORDS.finditer(visible)
+    ]
     if _package_dir() in visible:
         bad.append("report.html: shows the install path of sourcelab")
     assert not bad, "\n".join(bad[:30])
@@ -176,5 +184,5 @@ def test_cli_help_has_no_python_values():
     assert len(helps) > 10  # every command and action
     for prog, text in helps:
         for m in _PY_WORDS.finditer(text):
-            bad.append(f"{prog} --help: {text[max(0, m.start() - 40):m.end() + 20]!r}")
+            bad.append(f"{prog} --help: {text[max(0, m.start() - 40) : m.end() + 20]!r}")
     assert not bad, "\n".join(bad[:30])

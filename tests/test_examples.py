@@ -22,8 +22,11 @@ def _run(name, argv, capsys):
 
 def test_examples_folder_lists_the_scripts_tested_here():
     assert {p.name for p in EXAMPLES.glob("*.py")} == {
-        "analyse_file.py", "build_norms_from_folder.py", "export_and_replay_target.py",
-        "batch_on_dask.py"}
+        "analyse_file.py",
+        "build_norms_from_folder.py",
+        "export_and_replay_target.py",
+        "batch_on_dask.py",
+    }
 
 
 def test_analyse_file(tmp_path, capsys):
@@ -33,8 +36,11 @@ def test_analyse_file(tmp_path, capsys):
 
 
 def test_build_norms_from_folder(tmp_path, capsys):
-    code, out = _run("build_norms_from_folder.py",
-                     ["--n", "23", "--seconds", "60", "--out", str(tmp_path)], capsys)
+    code, out = _run(
+        "build_norms_from_folder.py",
+        ["--n", "23", "--seconds", "60", "--out", str(tmp_path)],
+        capsys,
+    )
     assert code == 0 and "invented adults" in out
     assert (tmp_path / "norms.tsv").is_file() and (tmp_path / "norms_calibration.tsv").is_file()
 
@@ -48,6 +54,7 @@ def test_export_and_replay_target(tmp_path, capsys):
 @pytest.mark.parametrize("engine", ["dask"])
 def test_batch_on_dask(tmp_path, capsys, engine):
     pytest.importorskip("distributed")
-    code, out = _run("batch_on_dask.py", ["--n", "2", "--engine", engine, "--out",
-                                          str(tmp_path)], capsys)
+    code, out = _run(
+        "batch_on_dask.py", ["--n", "2", "--engine", engine, "--out", str(tmp_path)], capsys
+    )
     assert code == 0 and "2 done, 0 failed" in out

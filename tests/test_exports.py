@@ -25,13 +25,16 @@ def test_stc_reads_back_with_mne(result, tmp_path):
     # MNE-Python is the reference reader of its own format
     stc = mne.read_source_estimate(f"{stems[2]}-lh.stc", subject="fsaverage")
     # only cortical vertices are sources: the medial wall is absent from the estimate
-    np.testing.assert_array_equal(np.concatenate([stc.vertices[0], stc.vertices[1] + 10242]),
-                                  MODEL.vertno)
-    np.testing.assert_allclose(stc.data[:, 0], result.source_map(result.bands.names[2]),
-                               rtol=1e-6)  # .stc stores float32, our maps are float32
+    np.testing.assert_array_equal(
+        np.concatenate([stc.vertices[0], stc.vertices[1] + 10242]), MODEL.vertno
+    )
+    np.testing.assert_allclose(
+        stc.data[:, 0], result.source_map(result.bands.names[2]), rtol=1e-6
+    )  # .stc stores float32, our maps are float32
     stc_rel = mne.read_source_estimate(f"{stems[-1]}-rh.stc", subject="fsaverage")
-    np.testing.assert_allclose(stc_rel.data[:, 0],
-                               result.source_map(result.bands.names[-1], "relative"), rtol=1e-6)
+    np.testing.assert_allclose(
+        stc_rel.data[:, 0], result.source_map(result.bands.names[-1], "relative"), rtol=1e-6
+    )
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]  # no temp folder left
 
 
@@ -42,10 +45,10 @@ def test_gifti_round_trip(result, tmp_path):
         img = nib.load(p)
         assert [d.meta["Name"] for d in img.darrays] == list(result.bands.names)
         data = np.stack([d.data for d in img.darrays])
-        surf = MODEL.to_surface(result.source_abs)[:, h * 10242:(h + 1) * 10242]
+        surf = MODEL.to_surface(result.source_abs)[:, h * 10242 : (h + 1) * 10242]
         np.testing.assert_array_equal(data, surf)
         # no value on the medial wall (not cortex, not a source)
-        assert np.isnan(data[:, ~MODEL.surface.cortex[h * 10242:(h + 1) * 10242]]).all()
+        assert np.isnan(data[:, ~MODEL.surface.cortex[h * 10242 : (h + 1) * 10242]]).all()
 
 
 def test_nifti_alpha_peaks_occipital(result, tmp_path):
@@ -54,8 +57,9 @@ def test_nifti_alpha_peaks_occipital(result, tmp_path):
     # al. 2000, Hum Brain Mapp 10:120-131, Talairach-atlas Brodmann volume, via DATA-SOURCES.md)
     band = result.bands.names.index("alpha")
     for res in (2, 3):
-        path = exports.export_nifti(result, tmp_path / f"r{res}", measures=("absolute",),
-                                    resolution=res)[band]
+        path = exports.export_nifti(
+            result, tmp_path / f"r{res}", measures=("absolute",), resolution=res
+        )[band]
         img = nib.load(path)
         assert np.allclose(np.abs(np.diag(img.affine)[:3]), res)
         data = np.asarray(img.dataobj)

@@ -1,4 +1,4 @@
-"""Figures: content checks on the Agg backend (axes hold data, z limits symmetric, bars labelled)."""
+"""Figures: content checks on Agg (axes hold data, z limits symmetric, bars labelled)."""
 
 import matplotlib
 
@@ -135,8 +135,11 @@ def test_sensor_topomaps(result):
     pos = np.array([info["chs"][i]["loc"][:3] for i in range(len(result.ch_names))])
     # MNE's fsaverage-fitted montage: O1 is posterior of Fp1 (y in metres, head frame)
     assert pos[result.ch_names.index("O1"), 1] < pos[result.ch_names.index("Fp1"), 1]
-    fig = sensor_topomaps(result.sensor_abs, band_names=result.bands.names,
-                          scale=power_scale(result.sensor_abs, measure="sensor_absolute"))
+    fig = sensor_topomaps(
+        result.sensor_abs,
+        band_names=result.bands.names,
+        scale=power_scale(result.sensor_abs, measure="sensor_absolute"),
+    )
     maps = [ax for ax in fig.axes if ax.images]
     assert len(maps) == len(result.bands.names)
     _check_colourbar(fig, "µV²", symmetric=False)
@@ -158,7 +161,9 @@ def test_roi_bars_sorted_by_abs_z(result):
     assert max(np.abs(widths)) == pytest.approx(np.abs(z).max())
     lo, hi = ax.get_xlim()
     assert lo == -hi
-    guides = sorted(round(line.get_xdata()[0], 2) for line in ax.lines if line.get_linestyle() == "--")
+    guides = sorted(
+        round(line.get_xdata()[0], 2) for line in ax.lines if line.get_linestyle() == "--"
+    )
     assert guides == [-1.96, 1.96]
     _check_colourbar(fig, "z-score", symmetric=True)
 
@@ -184,10 +189,26 @@ def test_roi_heatmap_and_networks(result):
 def test_roi_heatmap_many_rois_turns_to_rows():
     import pandas as pd
 
-    rows = [("a", f"R{i}", "left", b, "absolute", 1.0, "u", 10, False, (i % 7) - 3.0)
-            for i in range(60) for b in ("theta", "alpha")]
-    t = pd.DataFrame(rows, columns=["atlas", "roi", "hemisphere", "band", "measure", "value",
-                                    "unit", "n_vertices", "small", "z"])
+    rows = [
+        ("a", f"R{i}", "left", b, "absolute", 1.0, "u", 10, False, (i % 7) - 3.0)
+        for i in range(60)
+        for b in ("theta", "alpha")
+    ]
+    t = pd.DataFrame(
+        rows,
+        columns=[
+            "atlas",
+            "roi",
+            "hemisphere",
+            "band",
+            "measure",
+            "value",
+            "unit",
+            "n_vertices",
+            "small",
+            "z",
+        ],
+    )
     fig = roi_heatmap(t, measure="absolute")
     panels = [a for a in fig.axes if a.images]
     assert len(panels) == 2  # 60 ROIs -> two panels of 30 rows, 2 band columns each
@@ -207,32 +228,67 @@ def _coupling_keys(result, bands) -> set:
 
 
 def test_result_figures_keys(result, plain_result):
-    figs = result_figures(result, surfaces=False, measures=("absolute",), resolution=3,
-                          z_map_atlas=None, bands=("theta", "alpha"))
+    figs = result_figures(
+        result,
+        surfaces=False,
+        measures=("absolute",),
+        resolution=3,
+        z_map_atlas=None,
+        bands=("theta", "alpha"),
+    )
     names = ("theta", "alpha")
-    expected = ({f"glass/{b}/absolute" for b in names} | {f"roi-bars/{b}/absolute" for b in names}
-                | {"topomap/absolute", "topomap-z/absolute", "roi-heatmap/absolute",
-                   "networks/absolute"})
+    expected = (
+        {f"glass/{b}/absolute" for b in names}
+        | {f"roi-bars/{b}/absolute" for b in names}
+        | {"topomap/absolute", "topomap-z/absolute", "roi-heatmap/absolute", "networks/absolute"}
+    )
     assert set(figs) == expected | {"leakage"} | _coupling_keys(result, names)
     assert all(isinstance(v, Figure) for v in figs.values())  # notebook users see figures
     plt.close("all")  # open figures are the caller's to close (more than 20 trips a warning)
-    png = result_figures(result, surfaces=False, measures=("absolute",), resolution=3,
-                         z_map_atlas=None, bands=("alpha",), as_png=True)
+    png = result_figures(
+        result,
+        surfaces=False,
+        measures=("absolute",),
+        resolution=3,
+        z_map_atlas=None,
+        bands=("alpha",),
+        as_png=True,
+    )
     assert all(v.startswith(b"\x89PNG") for v in png.values())
-    no_z = result_figures(plain_result, surfaces=False, measures=("relative",),
-                          resolution=3, bands=("alpha",))
-    assert set(no_z) == {"glass/alpha/relative", "topomap/relative", "leakage",
-                         "coupling/lagcoh", "coupling/aec_orth"}  # no z: no pair head maps
+    no_z = result_figures(
+        plain_result, surfaces=False, measures=("relative",), resolution=3, bands=("alpha",)
+    )
+    assert set(no_z) == {
+        "glass/alpha/relative",
+        "topomap/relative",
+        "leakage",
+        "coupling/lagcoh",
+        "coupling/aec_orth",
+    }  # no z: no pair head maps
     with pytest.raises(ValueError, match="bands"):
         result_figures(result, bands=("beta2",))  # not a default band
 
 
 def test_result_figures_in_worker_processes(result):
-    parallel = result_figures(result, n_jobs=2, surfaces=False, measures=("absolute",),
-                              resolution=3, z_map_atlas=None, bands=("alpha",), as_png=True)
-    assert set(parallel) == {"glass/alpha/absolute", "roi-bars/alpha/absolute",
-                             "topomap/absolute", "topomap-z/absolute", "roi-heatmap/absolute",
-                             "networks/absolute", "leakage"} | _coupling_keys(result, ["alpha"])
+    parallel = result_figures(
+        result,
+        n_jobs=2,
+        surfaces=False,
+        measures=("absolute",),
+        resolution=3,
+        z_map_atlas=None,
+        bands=("alpha",),
+        as_png=True,
+    )
+    assert set(parallel) == {
+        "glass/alpha/absolute",
+        "roi-bars/alpha/absolute",
+        "topomap/absolute",
+        "topomap-z/absolute",
+        "roi-heatmap/absolute",
+        "networks/absolute",
+        "leakage",
+    } | _coupling_keys(result, ["alpha"])
     assert all(v.startswith(b"\x89PNG") for v in parallel.values())
     with pytest.raises(ValueError, match="n_jobs"):
         result_figures(result, n_jobs=0)
@@ -278,8 +334,9 @@ def _expected_coloured(values, scale):
         sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
         vals, thr = brain.surface_plot_values(surf[sl], scale)
         in_cortex = np.isfinite(surf[sl])[faces].all(1)
-        out.append((len(faces), int((np.abs(vals[faces].mean(1)) >= thr).sum()),
-                    int(in_cortex.sum())))
+        out.append(
+            (len(faces), int((np.abs(vals[faces].mean(1)) >= thr).sum()), int(in_cortex.sum()))
+        )
     return out
 
 
@@ -392,8 +449,13 @@ def test_ocular_component_maps_drawn_and_reported(result, rng):
     from sourcelab.report import build_html
 
     maps = rng.standard_normal((2, len(result.ch_names)))
-    oc = {**result.quality.ocular, "method": "ica", "removed_components": [0, 3],
-          "component_maps_uv": maps.tolist(), "template_r": [0.93, 0.88]}
+    oc = {
+        **result.quality.ocular,
+        "method": "ica",
+        "removed_components": [0, 3],
+        "component_maps_uv": maps.tolist(),
+        "template_r": [0.93, 0.88],
+    }
     r2 = dataclasses.replace(result, quality=dataclasses.replace(result.quality, ocular=oc))
     jobs = []
     _ocular_figure(r2, lambda key, f, *a, **k: jobs.append((key, f, a, k)), 60)
@@ -405,7 +467,7 @@ def test_ocular_component_maps_drawn_and_reported(result, rng):
     html = build_html(r2, {"ocular": fig})
     start = html.index('id="quality"')
     assert "2 of 19 independent components were removed" in html[start:]
-    assert "removed eye-movement components" in html[start:html.index("<section", start)]
+    assert "removed eye-movement components" in html[start : html.index("<section", start)]
 
 
 def test_z_mask_is_a_config_option(result):
@@ -423,8 +485,14 @@ def test_z_mask_is_a_config_option(result):
         cb = _colourbar_axes(fig)[0]._colorbar
         return sorted(round(float(ln.get_ydata()[0]), 2) for ln in cb.ax.lines)
 
-    kw = dict(measures=("absolute",), bands=("alpha",), surfaces=False, resolution=3,
-              pair_measures=(), edge_measures=())
+    kw = dict(
+        measures=("absolute",),
+        bands=("alpha",),
+        surfaces=False,
+        resolution=3,
+        pair_measures=(),
+        edge_measures=(),
+    )
     figs = result_figures(result, **kw)
     assert dashed(figs["topomap-z/absolute"]) == [-Z_THRESHOLD, Z_THRESHOLD]
     plt.close("all")
@@ -453,8 +521,10 @@ def test_surface_raster_draws_the_same_pixels_as_matplotlib_3d():
 
     pos = source_positions_mni305()
     z = 4.0 * np.sin(pos[:, 1] / 15.0) * np.where(pos[:, 0] < 0, 1.0, -1.0)
-    for kw in ({"scale": z_scale(threshold=1.96), "outline": load_atlas("lobes")},
-               {"scale": power_scale(np.abs(z)), "title": "power"}):
+    for kw in (
+        {"scale": z_scale(threshold=1.96), "outline": load_atlas("lobes")},
+        {"scale": power_scale(np.abs(z)), "title": "power"},
+    ):
         vals = z if "outline" in kw else np.abs(z)
         ref = _png_pixels(surface_views(vals, raster=False, **kw))
         new = _png_pixels(surface_views(vals, **kw))

@@ -93,23 +93,28 @@ def test_meshes_are_nilearn_fsaverage5_and_match_head_frame(model):
     from nilearn.datasets import load_fsaverage, load_fsaverage_data
 
     fs = load_fsaverage("fsaverage5")
-    for key, ours in (("white_matter", model.surface.white), ("pial", model.surface.pial),
-                      ("inflated", model.surface.inflated)):
-        ref = np.concatenate([fs[key].parts["left"].coordinates,
-                              fs[key].parts["right"].coordinates])
+    for key, ours in (
+        ("white_matter", model.surface.white),
+        ("pial", model.surface.pial),
+        ("inflated", model.surface.inflated),
+    ):
+        ref = np.concatenate(
+            [fs[key].parts["left"].coordinates, fs[key].parts["right"].coordinates]
+        )
         np.testing.assert_allclose(ours, ref, atol=1e-4)
     faces = fs["white_matter"].parts
     np.testing.assert_array_equal(model.surface.hemi_faces("right"), faces["right"].faces)
     sulc = load_fsaverage_data("fsaverage5", data_type="sulcal")
-    np.testing.assert_allclose(model.surface.sulc[:10_242],
-                               np.ravel(sulc.data.parts["left"]), atol=1e-5)
+    np.testing.assert_allclose(
+        model.surface.sulc[:10_242], np.ravel(sulc.data.parts["left"]), atol=1e-5
+    )
     ref = np.concatenate([fs["white_matter"].parts[h].coordinates for h in ("left", "right")])
     np.testing.assert_allclose(model.src_mni, ref[model.vertno], atol=1e-4)
     # Frame convention (model.py): src_pos is head frame; head -> MRI gives src_mni (mm).
     np.testing.assert_allclose(_to_mri_m(model, model.src_pos) * 1e3, model.src_mni, atol=1e-6)
     # Left hemisphere first: x < 0 in MNI305 (Talairach & Tournoux 1988 axis convention).
     assert np.mean(model.src_mni[: model.n_left, 0] < 0) > 0.99
-    assert np.mean(model.src_mni[model.n_left:, 0] > 0) > 0.99
+    assert np.mean(model.src_mni[model.n_left :, 0] > 0) > 0.99
     # Brain extent in MNI space, roughly x +-75, y -110..75, z -50..85 mm (from memory).
     lo, hi = model.src_mni.min(0), model.src_mni.max(0)
     assert (lo > [-80, -115, -55]).all() and (hi < [80, 80, 90]).all()
@@ -123,12 +128,16 @@ def _solid_angle_sum(pts, rr, tris):
     """
     out = np.empty(len(pts))
     for s in range(0, len(pts), 100):
-        a, b, c = (rr[tris[:, k]][None] - pts[s:s + 100, None] for k in range(3))
+        a, b, c = (rr[tris[:, k]][None] - pts[s : s + 100, None] for k in range(3))
         la, lb, lc = (np.linalg.norm(x, axis=-1) for x in (a, b, c))
         num = np.einsum("ptk,ptk->pt", a, np.cross(b, c))
-        den = (la * lb * lc + np.einsum("ptk,ptk->pt", a, b) * lc
-               + np.einsum("ptk,ptk->pt", a, c) * lb + np.einsum("ptk,ptk->pt", b, c) * la)
-        out[s:s + 100] = 2 * np.arctan2(num, den).sum(axis=1)
+        den = (
+            la * lb * lc
+            + np.einsum("ptk,ptk->pt", a, b) * lc
+            + np.einsum("ptk,ptk->pt", a, c) * lb
+            + np.einsum("ptk,ptk->pt", b, c) * la
+        )
+        out[s : s + 100] = 2 * np.arctan2(num, den).sum(axis=1)
     return out
 
 
@@ -136,8 +145,9 @@ def test_sources_inside_inner_skull(model):
     # Sources must lie inside the innermost BEM compartment (MNE omits those outside; common
     # practice).  Exact inside test (solid angle 4 pi) against the full-resolution shipped inner
     # skull for the 500 sources closest to it plus 100 random others; all >= 3 mm inside.
-    inner = mne.read_bem_surfaces(mne_fsaverage_dir() / "fsaverage-inner_skull-bem.fif",
-                                  verbose="error")[0]
+    inner = mne.read_bem_surfaces(
+        mne_fsaverage_dir() / "fsaverage-inner_skull-bem.fif", verbose="error"
+    )[0]
     pts = model.src_mni / 1e3
     dist, _ = cKDTree(inner["rr"]).query(pts)
     assert dist.min() > 3e-3
@@ -150,7 +160,8 @@ def test_sources_inside_inner_skull(model):
 
 
 def test_electrodes_are_mne_fsaverage_montage_on_scalp(model):
-    # Positions: MNE's fsaverage-fitted 10-20 montage (mne/channels/data/montages/fsaverage_1020.tsv).
+    # Positions: MNE's fsaverage-fitted 10-20 montage
+    # (mne/channels/data/montages/fsaverage_1020.tsv).
     info = mne.create_info(list(SITES_1020), 250.0, "eeg")
     info.set_montage("fsaverage_1020")
     ref = np.array([ch["loc"][:3] for ch in info["chs"]])
@@ -173,7 +184,7 @@ def test_gain_physics(model):
     for k, e in enumerate(model.ch_pos):
         i = np.argmin(np.linalg.norm(model.src_pos - e, axis=1))
         u = (e - centre) / np.linalg.norm(e - centre)
-        v = g[:, 3 * i: 3 * i + 3] @ u
+        v = g[:, 3 * i : 3 * i + 3] @ u
         assert np.argmax(v - v.mean()) == k, SITES_1020[k]
 
 
@@ -186,9 +197,11 @@ def test_gain_close_to_fitted_sphere_model(model):
     sphere = mne.make_sphere_model("auto", "auto", info, verbose="error")
     idx = np.arange(0, model.n_src, 40)
     src = mne.setup_volume_source_space(
-        pos={"rr": model.src_pos[idx], "nn": model.src_nn[idx]}, verbose="error")
-    fwd = mne.make_forward_solution(info, trans=None, src=src, bem=sphere, eeg=True, meg=False,
-                                    mindist=0.0, verbose="error")
+        pos={"rr": model.src_pos[idx], "nn": model.src_nn[idx]}, verbose="error"
+    )
+    fwd = mne.make_forward_solution(
+        info, trans=None, src=src, bem=sphere, eeg=True, meg=False, mindist=0.0, verbose="error"
+    )
     ref = fwd["sol"]["data"]
     ours = model.gain.reshape(19, -1, 3)[:, idx].reshape(19, -1)
     rdm, mag = rdm_mag(ours - ours.mean(0), ref - ref.mean(0))
@@ -257,8 +270,9 @@ def test_to_mne_forward_carries_the_shipped_gain(model):
     raw = mne.io.RawArray(np.zeros((19, 10)), make_info(100.0), verbose="error")
     raw.set_eeg_reference(projection=True, verbose="error")
     cov = mne.make_ad_hoc_cov(raw.info, verbose="error")
-    inv = mne.minimum_norm.make_inverse_operator(raw.info, fwd, cov, loose=1.0, depth=None,
-                                                 verbose="error")
+    inv = mne.minimum_norm.make_inverse_operator(
+        raw.info, fwd, cov, loose=1.0, depth=None, verbose="error"
+    )
     assert inv["nsource"] == N_SRC
 
 
@@ -277,7 +291,9 @@ def test_ray_surface_distance_known_answers():
 def test_three_layers_nested_and_on_scalp():
     layers = three_layer_meshes(ico=3)
     c = layers["centre"]
-    r = [np.linalg.norm(layers[k] - c, axis=1) for k in ("inner_skull", "outer_skull", "outer_skin")]
+    r = [
+        np.linalg.norm(layers[k] - c, axis=1) for k in ("inner_skull", "outer_skull", "outer_skin")
+    ]
     assert (r[0] < r[1]).all() and (r[1] < r[2]).all()
     assert (r[1] - r[0] <= 6e-3 + 1e-12).all()  # skull thickness min(6 mm, gap/2)
     assert min(layers["min_gap_mm"].values()) > 1.0
@@ -338,4 +354,6 @@ def test_rebuild_reproduces_shipped_file(tmp_path, capsys, model):
     np.testing.assert_array_equal(new.vertno, model.vertno)
     np.testing.assert_array_equal(new.surface.faces, model.surface.faces)
     np.testing.assert_allclose(new.ch_pos, model.ch_pos, atol=1e-12)
-    np.testing.assert_allclose(new.gain, model.gain, rtol=1e-4, atol=1e-4 * np.abs(model.gain).max())
+    np.testing.assert_allclose(
+        new.gain, model.gain, rtol=1e-4, atol=1e-4 * np.abs(model.gain).max()
+    )

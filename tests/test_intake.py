@@ -14,16 +14,45 @@ from sourcelab.config import AnalysisConfig
 from sourcelab.constants import SITES_1020
 from sourcelab.errors import InputError
 from sourcelab.intake import (
-    band_power, canonical_site, clean_recording, detect_mains, epoch_band_power, plot_quality,
-    read_recording, pearson_r, reliability_summary, spearman_brown, split_half, test_retest,
+    band_power,
+    canonical_site,
+    clean_recording,
+    detect_mains,
+    epoch_band_power,
+    plot_quality,
+    read_recording,
+    pearson_r,
+    reliability_summary,
+    spearman_brown,
+    split_half,
+    test_retest,
 )
 
 matplotlib.use("Agg")
 
 SF = 250.0
 #: Old names and decorations on purpose (T3/T4/T5/T6 = T7/T8/P7/P8).
-LABELS = ["EEG FP1-REF", "EEG FP2-REF", "F7-Ref", "F3", "FZ", "F4", "F8", "T3", "C3", "Cz",
-          "C4", "T4", "T5", "P3", "Pz", "P4", "T6", "O1", "O2"]
+LABELS = [
+    "EEG FP1-REF",
+    "EEG FP2-REF",
+    "F7-Ref",
+    "F3",
+    "FZ",
+    "F4",
+    "F8",
+    "T3",
+    "C3",
+    "Cz",
+    "C4",
+    "T4",
+    "T5",
+    "P3",
+    "Pz",
+    "P4",
+    "T6",
+    "O1",
+    "O2",
+]
 CFG = AnalysisConfig(min_clean_s=30.0, warn_clean_s=60.0)
 
 
@@ -66,12 +95,28 @@ def _one_line(exc, name):
 # --- channel recognition -----------------------------------------------------------------------
 # Old/new names: T3=T7, T4=T8, T5=P7, T6=P8 (American Clinical Neurophysiology Society 2006
 # guideline, J Clin Neurophysiol 23:107-110 — from memory); decorations are common practice.
-@pytest.mark.parametrize("label, site", [
-    ("EEG Fp1", "Fp1"), ("EEG T3", "T7"), ("FP1-REF", "Fp1"), ("EEG FP2-LE", "Fp2"),
-    ("Fp1.", "Fp1"), ("FP 1", "Fp1"), ("T5-AV", "P7"), ("t6-M2", "P8"), ("O2-A1A2", "O2"),
-    ("C3-Ref", "C3"), ("EEG T4-A1", "T8"), ("cz", "Cz"), ("Fp1-F7", None), ("EEG A1", None),
-    ("ECG X1", None), ("Fpz", None), ("T9", None),
-])
+@pytest.mark.parametrize(
+    "label, site",
+    [
+        ("EEG Fp1", "Fp1"),
+        ("EEG T3", "T7"),
+        ("FP1-REF", "Fp1"),
+        ("EEG FP2-LE", "Fp2"),
+        ("Fp1.", "Fp1"),
+        ("FP 1", "Fp1"),
+        ("T5-AV", "P7"),
+        ("t6-M2", "P8"),
+        ("O2-A1A2", "O2"),
+        ("C3-Ref", "C3"),
+        ("EEG T4-A1", "T8"),
+        ("cz", "Cz"),
+        ("Fp1-F7", None),
+        ("EEG A1", None),
+        ("ECG X1", None),
+        ("Fpz", None),
+        ("T9", None),
+    ],
+)
 def test_channel_names(label, site):
     assert canonical_site(label)[0] == site
 
@@ -125,8 +170,9 @@ def test_band_power_matches_scipy_and_mne(synth):
     bands = [(1.0, 4.0), (8.0, 12.0), (12.0, 25.0)]
     ours = band_power(ep, SF, bands)
     f, p = welch(ep, fs=SF, window="hann", nperseg=n, noverlap=0, axis=-1)
-    pm, fm = mne.time_frequency.psd_array_welch(ep, SF, fmin=0, fmax=SF / 2, n_fft=n,
-                                                window="hann", verbose="error")
+    pm, fm = mne.time_frequency.psd_array_welch(
+        ep, SF, fmin=0, fmax=SF / 2, n_fft=n, window="hann", verbose="error"
+    )
     for k, (lo, hi) in enumerate(bands):
         ref = p[..., (f >= lo) & (f < hi)].sum(-1).mean(0) * (f[1] - f[0])
         ref_mne = pm[..., (fm >= lo) & (fm < hi)].sum(-1).mean(0) * (fm[1] - fm[0])
@@ -159,7 +205,8 @@ def test_noisy_and_line_noise_sites_detected(synth):
     t = np.arange(x.shape[1]) / SF
     x[SITES_1020.index("T8")] *= 20  # wildly noisy
     x[SITES_1020.index("O1")] = 0.5 * synth[SITES_1020.index("O1")] + 200 * np.sin(
-        2 * np.pi * 50 * t)  # disconnected: mains dominated
+        2 * np.pi * 50 * t
+    )  # disconnected: mains dominated
     rec = read_recording(make_raw(x, SITES_1020))
     assert set(rec.interpolated) == {"T8", "O1"}
     text = " ".join(rec.warnings)
@@ -180,17 +227,17 @@ def _artefacts(synth, rng):
     x = 0.5 * synth  # quieter background (~5 µV RMS) so that each artefact trips one check
     t = np.arange(x.shape[1]) / SF
     i0 = int(10 * SF)  # epoch [10, 12) s: large amplitude at Cz
-    x[SITES_1020.index("Cz"), i0 + 100: i0 + 110] += 400.0
+    x[SITES_1020.index("Cz"), i0 + 100 : i0 + 110] += 400.0
     i1 = int(20 * SF)  # epoch [20, 22) s: blink-like 100 µV, ~0.5 s frontal bump
-    bump = 100.0 * np.exp(-0.5 * ((t[i1: i1 + 500] - 21.0) / 0.2) ** 2)
-    x[[0, 1], i1: i1 + 500] += bump
+    bump = 100.0 * np.exp(-0.5 * ((t[i1 : i1 + 500] - 21.0) / 0.2) ** 2)
+    x[[0, 1], i1 : i1 + 500] += bump
     i2 = int(30 * SF)  # epochs [30, 34) s: 30-40 Hz bursts, 12 µV RMS, at T7
     hf = rng.standard_normal(1000)
     f = np.fft.rfftfreq(1000, 1 / SF)
     spec = np.fft.rfft(hf)
     spec[(f < 30) | (f > 40)] = 0
     hf = np.fft.irfft(spec, 1000)
-    x[SITES_1020.index("T7"), i2: i2 + 1000] += 12 * hf / hf.std()
+    x[SITES_1020.index("T7"), i2 : i2 + 1000] += 12 * hf / hf.std()
     return x
 
 
@@ -232,14 +279,19 @@ def test_artefacts_default_settings(synth, rng):
 
 def test_flat_epoch_rejected(synth):
     x = synth.copy()
-    x[SITES_1020.index("Pz"), int(40 * SF): int(42 * SF)] = 0.0
+    x[SITES_1020.index("Pz"), int(40 * SF) : int(42 * SF)] = 0.0
     clean = clean_recording(read_recording(make_raw(x, SITES_1020)), CFG)
     assert clean.rejected_s["flat"] == 2.0 and 40.0 not in clean.epoch_onsets_s
 
 
 def test_bad_annotations_and_selection(synth):
-    ann = [(5.0, 0.0, "eyes open"), (50.0, 0.0, "eyes closed"), (100.0, 0.0, "eyes open"),
-           (60.0, 10.0, "BAD_movement"), (80.0, 4.0, "bad electrode")]
+    ann = [
+        (5.0, 0.0, "eyes open"),
+        (50.0, 0.0, "eyes closed"),
+        (100.0, 0.0, "eyes open"),
+        (60.0, 10.0, "BAD_movement"),
+        (80.0, 4.0, "bad electrode"),
+    ]
     rec = read_recording(make_raw(synth, SITES_1020, annotations=ann))
     cl = clean_recording(rec, CFG.replace(min_clean_s=1.0), select="Eyes Closed")
     # the 'eyes closed' state marker lasts until the next state marker ('eyes open' at 100 s);
@@ -303,6 +355,7 @@ def test_quality_figure(synth):
     assert len(axes[1].patches) == 19 and len(axes[2].lines) == 19
     assert axes[2].get_xlabel() == "frequency (Hz)"
     import matplotlib.pyplot as plt
+
     plt.close(fig)
 
 
@@ -414,7 +467,8 @@ def test_bids_folder(tmp_path, synth):
     eeg.mkdir(parents=True)
     _edf(eeg, synth, LABELS, name="sub-01_task-rest_eeg.edf")
     rows = ["name\ttype\tunits\tstatus"] + [
-        f"{lab}\tEEG\tuV\t{'bad' if lab == 'C4' else 'good'}" for lab in LABELS]
+        f"{lab}\tEEG\tuV\t{'bad' if lab == 'C4' else 'good'}" for lab in LABELS
+    ]
     (eeg / "sub-01_task-rest_channels.tsv").write_text("\n".join(rows) + "\n")
     rec = read_recording(tmp_path / "sub-01")
     assert rec.interpolated == ("C4",)
@@ -444,8 +498,10 @@ def test_montage_check(synth):
     assert not any("positions" in w for w in read_recording(raw, montage_check=False).warnings)
     # the template positions are used in every case
     plain = read_recording(make_raw(synth, SITES_1020))
-    np.testing.assert_allclose(rec.raw.get_montage().get_positions()["ch_pos"]["Fp1"],
-                               plain.raw.get_montage().get_positions()["ch_pos"]["Fp1"])
+    np.testing.assert_allclose(
+        rec.raw.get_montage().get_positions()["ch_pos"]["Fp1"],
+        plain.raw.get_montage().get_positions()["ch_pos"]["Fp1"],
+    )
 
 
 def test_given_notch_and_low_pass_limit(synth):
@@ -469,14 +525,16 @@ def test_reliability_summary_is_json_ready(rng):
     assert s["flagged_bands"] == ["beta"] and s["n_epochs"] == 30
     assert s["split_half"]["alpha"] > 0.95
     assert s["split_half_spearman_brown"]["alpha"] == pytest.approx(
-        spearman_brown(s["split_half"]["alpha"]))
+        spearman_brown(s["split_half"]["alpha"])
+    )
     assert s["min_split_half"] == pytest.approx(s["split_half"]["beta"])
     with pytest.raises(InputError, match="bands"):
         reliability_summary(power, ["alpha"])
 
 
-@pytest.mark.parametrize("n_times, nperseg", [(153_600, 512), (5_000, 511), (600, 600),
-                                              (2_000, 1_999)])
+@pytest.mark.parametrize(
+    "n_times, nperseg", [(153_600, 512), (5_000, 511), (600, 600), (2_000, 1_999)]
+)
 def test_welch_psd_matches_scipy(rng, n_times, nperseg, monkeypatch):
     # Reference: scipy.signal.welch with its defaults (periodic Hann, 50 % overlap, constant
     # detrend, one-sided density); a small block size forces several blocks of segments.

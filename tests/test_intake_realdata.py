@@ -18,7 +18,12 @@ import realdata
 from sourcelab.config import SITES_1020, AnalysisConfig
 from sourcelab.errors import InputError
 from sourcelab.intake import (
-    band_power, clean_recording, epoch_band_power, epoch_spectra, read_recording, split_half,
+    band_power,
+    clean_recording,
+    epoch_band_power,
+    epoch_spectra,
+    read_recording,
+    split_half,
     test_retest,
 )
 
@@ -29,8 +34,7 @@ realdata.require()  # one skip line for the module when offline
 CFG = AnalysisConfig()
 #: The former hand-relaxed variant, kept beside the defaults: fixed thresholds raised to 250 µV
 #: for a child's EEG (Niedermeyer's Electroencephalography 2011 — from memory), a small minimum.
-RELAXED = AnalysisConfig(rejection="fixed", reject_uv=250.0, min_clean_s=10.0,
-                         warn_clean_s=10.0)
+RELAXED = AnalysisConfig(rejection="fixed", reject_uv=250.0, min_clean_s=10.0, warn_clean_s=10.0)
 OCC = [SITES_1020.index("O1"), SITES_1020.index("O2")]
 FRONT = [SITES_1020.index("F3"), SITES_1020.index("F4")]
 ALPHA = list(CFG.bands.names).index("alpha")
@@ -71,17 +75,22 @@ def test_defaults_keep_the_artefact_free_time(closed, opened):
         assert kept >= 0.8 * n, (kept, n)
     # ... and the rule still rejects: at most 20 % of the epochs judged artefactual by eye
     # (muscle, movement) survive, the same tolerance the other way round.
-    kept_bad = sum(_kept(c, r, "M")[0] for c, r in ((closed, realdata.REVIEW_EC),
-                                                   (opened, realdata.REVIEW_EO)))
-    n_bad = sum(_kept(c, r, "M")[1] for c, r in ((closed, realdata.REVIEW_EC),
-                                                (opened, realdata.REVIEW_EO)))
+    kept_bad = sum(
+        _kept(c, r, "M")[0] for c, r in ((closed, realdata.REVIEW_EC), (opened, realdata.REVIEW_EO))
+    )
+    n_bad = sum(
+        _kept(c, r, "M")[1] for c, r in ((closed, realdata.REVIEW_EC), (opened, realdata.REVIEW_EO))
+    )
     assert kept_bad <= 0.2 * n_bad, (kept_bad, n_bad)
     for clean in (closed, opened):
         assert clean.ocular["method"] == "ica"
         assert clean.thresholds["per_site"]["mode"] == "auto"
         assert sum(clean.rejected_s.values()) + clean.kept_s == pytest.approx(
-            sum(b - a for a, b in (realdata.EYES_CLOSED if clean is closed
-                                   else realdata.EYES_OPEN)), abs=0.02)
+            sum(
+                b - a for a, b in (realdata.EYES_CLOSED if clean is closed else realdata.EYES_OPEN)
+            ),
+            abs=0.02,
+        )
 
 
 def test_fixed_thresholds_refuse_the_child_recording(rec):
@@ -120,16 +129,21 @@ def test_procedures_found_in_the_real_annotations(raw_orig):
     # near 1380, 1417, 1477 s).
     from sourcelab.intake.states import procedure_spans
 
-    ann = list(zip(raw_orig.annotations.onset, raw_orig.annotations.duration,
-                   raw_orig.annotations.description))
+    ann = list(
+        zip(
+            raw_orig.annotations.onset,
+            raw_orig.annotations.duration,
+            raw_orig.annotations.description,
+        )
+    )
     spans = {s.kind: [] for s in procedure_spans(ann, 1811.0)}
     for s in procedure_spans(ann, 1811.0):
         spans[s.kind].append((s.start, s.stop))
-    (p0, p1), = spans["photic stimulation"]
+    ((p0, p1),) = spans["photic stimulation"]
     assert 1057 < p0 < 1058.5 and 1147.8 < p1 <= 1198
-    (h0, h1), = spans["hyperventilation"]
+    ((h0, h1),) = spans["hyperventilation"]
     assert 1288 < h0 < 1289 and 1490 < h1 < 1491
-    (q0, q1), = spans["post-hyperventilation"]
+    ((q0, q1),) = spans["post-hyperventilation"]
     assert q0 == h1 and q1 >= 1610.7
     assert len(spans["seizure"]) == 3
     assert all(h0 < a < b < h1 for a, b in spans["seizure"])
@@ -145,9 +159,14 @@ def test_sites_found_despite_old_names(raw_orig, rec):
     assert len(raw_orig.ch_names) == 33
     assert rec.raw.ch_names == list(SITES_1020)
     assert {rec.channel_map[s] for s in ("T7", "T8", "P7", "P8")} == {
-        "EEG T3", "EEG T4", "EEG T5", "EEG T6"}
-    np.testing.assert_array_equal(rec.raw.get_data(picks=["P8"])[0],
-                                  raw_orig.get_data(picks=["EEG T6"])[0])
+        "EEG T3",
+        "EEG T4",
+        "EEG T5",
+        "EEG T6",
+    }
+    np.testing.assert_array_equal(
+        rec.raw.get_data(picks=["P8"])[0], raw_orig.get_data(picks=["EEG T6"])[0]
+    )
     assert rec.sfreq == 200.0 and rec.duration_s == pytest.approx(1811.0)
     assert ("eyes closed", 7, 0.0) in rec.annotations  # 7 markers in the file
 
@@ -200,8 +219,9 @@ def test_band_power_matches_scipy_and_mne_on_real_epochs(closed):
     n = ep.shape[-1]
     ours = band_power(ep, closed.sfreq, CFG.bands)
     f, p = welch(ep, fs=closed.sfreq, window="hann", nperseg=n, noverlap=0, axis=-1)
-    pm, fm = mne.time_frequency.psd_array_welch(ep, closed.sfreq, fmin=0, fmax=closed.sfreq / 2,
-                                                n_fft=n, window="hann", verbose="error")
+    pm, fm = mne.time_frequency.psd_array_welch(
+        ep, closed.sfreq, fmin=0, fmax=closed.sfreq / 2, n_fft=n, window="hann", verbose="error"
+    )
     for k, (lo, hi) in enumerate(CFG.bands.edges):
         ref = p[..., (f >= lo) & (f < hi)].sum(-1).mean(0) * (f[1] - f[0])
         ref_mne = pm[..., (fm >= lo) & (fm < hi)].sum(-1).mean(0) * (fm[1] - fm[0])
@@ -238,8 +258,9 @@ def test_flat_site_found_in_real_recording(raw_orig):
     assert np.std(rec.raw.get_data(picks=["Pz"])) > 1e-6
 
 
-@pytest.mark.parametrize("fmt, suffix", [("edf", ".edf"), ("brainvision", ".vhdr"),
-                                         ("eeglab", ".set")])
+@pytest.mark.parametrize(
+    "fmt, suffix", [("edf", ".edf"), ("brainvision", ".vhdr"), ("eeglab", ".set")]
+)
 def test_format_round_trip(raw_orig, tmp_path, fmt, suffix):
     # Export a 2-minute window with MNE (edfio / pybv / eeglabio), read it back: the same band
     # power within 0.1 % (EDF stores 16-bit integers: quantisation noise only).
@@ -258,9 +279,11 @@ def test_format_round_trip(raw_orig, tmp_path, fmt, suffix):
         direct = clean_recording(read_recording(window), cfg)
         again = clean_recording(back, cfg)
         np.testing.assert_array_equal(again.epoch_onsets_s, direct.epoch_onsets_s)
-        np.testing.assert_allclose(band_power(again.epochs, again.sfreq, CFG.bands),
-                                   band_power(direct.epochs, direct.sfreq, CFG.bands),
-                                   rtol=rtol)
+        np.testing.assert_allclose(
+            band_power(again.epochs, again.sfreq, CFG.bands),
+            band_power(direct.epochs, direct.sfreq, CFG.bands),
+            rtol=rtol,
+        )
 
 
 def test_selection_by_annotation_markers(rec):

@@ -14,29 +14,48 @@ from sourcelab.simulate import pink_noise
 from sourcelab.spectra import epoch_cross_spectra
 from sourcelab.targets import make_target, read_target, replay_array, write_target
 from sourcelab.targets.definition import butter_sos
-from sourcelab.targets.live import (Smoother, expected_live_sd, live_section, live_window_dof,
-                                    log_variance_dof, smoother_weights, welch_epoch_dof)
+from sourcelab.targets.live import (
+    Smoother,
+    expected_live_sd,
+    live_section,
+    live_window_dof,
+    log_variance_dof,
+    smoother_weights,
+    welch_epoch_dof,
+)
 
 SF = 256.0
 BANDS = Bands()
-FP = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
-                 lambda2=1 / 9, bands=tuple((n, lo, hi) for n, (lo, hi) in
-                                            zip(BANDS.names, BANDS.edges)))
+FP = Fingerprint(
+    headmodel_sha256="0" * 64,
+    method="sLORETA",
+    orientation="fixed",
+    lambda2=1 / 9,
+    bands=tuple((n, lo, hi) for n, (lo, hi) in zip(BANDS.names, BANDS.edges)),
+)
 
 
 def _epochs(x, epoch_s=2.0):
     n = int(epoch_s * SF)
     k = x.shape[1] // n
-    ep = x[:, :k * n].reshape(x.shape[0], k, n).transpose(1, 0, 2)
+    ep = x[:, : k * n].reshape(x.shape[0], k, n).transpose(1, 0, 2)
     return epoch_cross_spectra(ep, SF, BANDS), np.arange(k) * epoch_s
 
 
 def test_epochs_file_round_trip_and_refusals(tmp_path, rng):
     a = rng.standard_normal((7, 5, 19, 30))
     csd = a @ a.transpose(0, 1, 3, 2)
-    p = write_epochs(tmp_path / "epochs.npz", csd, ch_names=[f"c{i}" for i in range(19)],
-                     band_names=BANDS.names, band_edges=BANDS.edges, epoch_s=2.0, sfreq=SF,
-                     fingerprint=FP, onsets_s=np.arange(7) * 2.0)
+    p = write_epochs(
+        tmp_path / "epochs.npz",
+        csd,
+        ch_names=[f"c{i}" for i in range(19)],
+        band_names=BANDS.names,
+        band_edges=BANDS.edges,
+        epoch_s=2.0,
+        sfreq=SF,
+        fingerprint=FP,
+        onsets_s=np.arange(7) * 2.0,
+    )
     back = read_epochs(tmp_path)
     # float32 storage: 24-bit mantissa, relative rounding <= 2^-24 ~ 6e-8
     np.testing.assert_allclose(back.csd, csd, rtol=1e-7)
@@ -70,9 +89,9 @@ def test_quadratic_form_dof_matches_monte_carlo(lo, hi):
     from scipy.signal import sosfilt
 
     sos = butter_sos(lo, hi, SF)
-    y = sosfilt(sos, x[0])[int(4 * SF):]
+    y = sosfilt(sos, x[0])[int(4 * SF) :]
     n = int(SF)
-    w = (y[:y.size // n * n].reshape(-1, n) ** 2).mean(axis=1)
+    w = (y[: y.size // n * n].reshape(-1, n) ** 2).mean(axis=1)
     nu_w = live_window_dof(sos, SF, 1.0)
     assert abs(np.var(np.log(w), ddof=1) / polygamma(1, nu_w / 2) - 1) < 0.25
     # the trigamma inversion is exact
@@ -88,9 +107,21 @@ def steady():
 
 
 def _target(kernel, band="theta", **kw):
-    return make_target(kernel=kernel, n_comp=1, atlas="brodmann", roi="BA9", hemisphere="left",
-                       vertices=np.arange(40), band=band, bands=FP.bands, measure="absolute",
-                       fingerprint=FP, sfreq=SF, reject_uv=1e9, **kw)
+    return make_target(
+        kernel=kernel,
+        n_comp=1,
+        atlas="brodmann",
+        roi="BA9",
+        hemisphere="left",
+        vertices=np.arange(40),
+        band=band,
+        bands=FP.bands,
+        measure="absolute",
+        fingerprint=FP,
+        sfreq=SF,
+        reject_uv=1e9,
+        **kw,
+    )
 
 
 @pytest.mark.parametrize("band", ["theta", "alpha"])
@@ -107,8 +138,17 @@ def test_expected_live_sd_matches_replayed_spread(steady, band):
 
     levels = np.log10(epoch_values(tg, csd))
     lo, hi = tg.band_edges
-    st = expected_live_sd(levels, onsets_s=onsets, epoch_s=2.0, sfreq=SF, sos=tg.sos[band],
-                          lo=lo, hi=hi, window_s=1.0, step_s=0.25)
+    st = expected_live_sd(
+        levels,
+        onsets_s=onsets,
+        epoch_s=2.0,
+        sfreq=SF,
+        sos=tg.sos[band],
+        lo=lo,
+        hi=hi,
+        window_s=1.0,
+        step_s=0.25,
+    )
     res = replay_array(x, SF, tg)
     obs = np.nanstd(np.log10(res.power[res.clean]), ddof=1)
     assert abs(st["window_sd"] / obs - 1) < 0.15, (st, obs)
@@ -120,8 +160,8 @@ def test_expected_live_sd_matches_replayed_spread(steady, band):
 def test_unclean_windows_carry_no_value(steady):
     x, k = steady
     tg = _target(k)
-    y = x[:, :int(20 * SF)].copy()
-    y[3, int(10 * SF):int(15 * SF)] = 0.0  # five flat seconds on one channel
+    y = x[:, : int(20 * SF)].copy()
+    y[3, int(10 * SF) : int(15 * SF)] = 0.0  # five flat seconds on one channel
     res = replay_array(y, SF, tg)
     warm = res.time_s < 2.0
     assert warm.any() and not res.clean[warm].any()
@@ -152,7 +192,7 @@ def test_live_section_threshold_and_file(tmp_path, steady):
     x, k = steady
     norm = {"mean": 1.0, "sd": 0.13, "transform": "log10", "age": 40.0}
     tg = _target(k, norm=norm, z=2.0, offline={"value": 30.0, "z": 2.0})
-    csd, onsets = _epochs(x[:, :int(120 * SF)])
+    csd, onsets = _epochs(x[:, : int(120 * SF)])
 
     class E:  # the fields live_section reads from an EpochSpectra
         pass
@@ -173,7 +213,7 @@ def test_live_section_threshold_and_file(tmp_path, steady):
     assert d["schema"] == "sourcelab-target/1" and d["live"]["threshold"]["k_sd"] == 1.0
     back = read_target(p, current=FP)
     assert back.live == tg2.live
-    res = replay_array(x[:, :int(30 * SF)], SF, back)
+    res = replay_array(x[:, : int(30 * SF)], SF, back)
     met = res.threshold_met[res.clean]
     assert set(np.unique(met)) <= {0.0, 1.0}
     np.testing.assert_array_equal(met == 1.0, res.smoothed[res.clean] <= th["level"])

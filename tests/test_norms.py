@@ -9,13 +9,28 @@ from scipy import stats
 
 from sourcelab.config import DEFAULT_BANDS
 from sourcelab.errors import InputError
-from sourcelab.norms import (COLUMNS, TRANSFORMS, Norms, apply_norms, bh_adjust, norms_from_tables,
-                             chance_summary, get_transform, read_norms, write_norms)
+from sourcelab.norms import (
+    COLUMNS,
+    TRANSFORMS,
+    Norms,
+    apply_norms,
+    bh_adjust,
+    norms_from_tables,
+    chance_summary,
+    get_transform,
+    read_norms,
+    write_norms,
+)
 from sourcelab.simulate import gaussian_cohort
 from sourcelab.provenance import Fingerprint
 
-FP = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
-                 lambda2=1 / 9, bands=DEFAULT_BANDS)
+FP = Fingerprint(
+    headmodel_sha256="0" * 64,
+    method="sLORETA",
+    orientation="fixed",
+    lambda2=1 / 9,
+    bands=DEFAULT_BANDS,
+)
 
 
 @pytest.fixture(scope="module")
@@ -35,13 +50,30 @@ def norms_file(norms, tmp_path):
 
 # ----------------------------------------------------------------------------- reference facts
 
+
 def _binned_row(n: int) -> dict:
     # one quantity, degree 0 (an age bin), mean 1 and SD 0.5 on log10, n controls:
     # (XᵀX)⁻¹ = 1/n, df = n - 1 (FORMAT.md)
-    row = {"kind": "roi", "atlas": "brodmann", "name": "BA17", "hemisphere": "left",
-           "band": "alpha", "measure": "absolute", "age_min": 10.0, "age_max": 80.0,
-           "model": "binned", "degree": 0, "transform": "log10", "b0": 1.0, "b1": 0.0,
-           "b2": 0.0, "b3": 0.0, "sd": 0.5, "n": n, "df": n - 1}
+    row = {
+        "kind": "roi",
+        "atlas": "brodmann",
+        "name": "BA17",
+        "hemisphere": "left",
+        "band": "alpha",
+        "measure": "absolute",
+        "age_min": 10.0,
+        "age_max": 80.0,
+        "model": "binned",
+        "degree": 0,
+        "transform": "log10",
+        "b0": 1.0,
+        "b1": 0.0,
+        "b2": 0.0,
+        "b3": 0.0,
+        "sd": 0.5,
+        "n": n,
+        "df": n - 1,
+    }
     from sourcelab.norms.io import V_COLUMNS
 
     row.update({c: 0.0 for c in V_COLUMNS}, v00=1.0 / n)
@@ -58,8 +90,16 @@ def test_apply_norms_known_z_and_predictive_p(n):
     from scipy import stats
 
     nm = Norms(table=pd.DataFrame([_binned_row(n)]), fingerprint=FP, condition="eyes closed")
-    t = pd.DataFrame({"atlas": ["brodmann"] * 2, "roi": ["BA17"] * 2, "hemisphere": ["left"] * 2,
-                      "band": ["alpha"] * 2, "measure": ["absolute"] * 2, "value": [100.0, 1.0]})
+    t = pd.DataFrame(
+        {
+            "atlas": ["brodmann"] * 2,
+            "roi": ["BA17"] * 2,
+            "hemisphere": ["left"] * 2,
+            "band": ["alpha"] * 2,
+            "measure": ["absolute"] * 2,
+            "value": [100.0, 1.0],
+        }
+    )
     out = apply_norms(t, nm, age=30.0, fingerprint=FP, condition="eyes closed")
     np.testing.assert_allclose(out["z"], [2.0, -2.0], rtol=1e-12)
     expected = 2 * stats.t.sf(2.0 / np.sqrt(1 + 1 / n), n - 1)
@@ -71,14 +111,21 @@ def test_apply_norms_known_z_and_predictive_p(n):
     np.testing.assert_allclose(np.abs(out["z_equivalent"]), stats.norm.isf(expected / 2))
     from sourcelab.norms import chance_summary
 
-    assert chance_summary(out)["expected_beyond_1.96"] == pytest.approx(2 * (1 - 0.950004),
-                                                                        abs=1e-6)
+    assert chance_summary(out)["expected_beyond_1.96"] == pytest.approx(
+        2 * (1 - 0.950004), abs=1e-6
+    )
 
 
 # ----------------------------------------------------------------------------- transforms
 
-@pytest.mark.parametrize("name, x", [("log10", np.array([1e-6, 0.3, 1.0, 57.0, 1e6])),
-                                     ("logit", np.array([1e-6, 0.01, 0.5, 0.9, 1 - 1e-9]))])
+
+@pytest.mark.parametrize(
+    "name, x",
+    [
+        ("log10", np.array([1e-6, 0.3, 1.0, 57.0, 1e6])),
+        ("logit", np.array([1e-6, 0.01, 0.5, 0.9, 1 - 1e-9])),
+    ],
+)
 def test_transform_round_trip(name, x):
     # Gasser, Bächer & Möcks 1982 (from memory): log for absolute, logit for relative power
     t = get_transform(name)
@@ -109,6 +156,7 @@ def test_log10_refuses_non_positive_and_unknown_transform():
 
 # ----------------------------------------------------------------------------- FDR
 
+
 def test_bh_agrees_with_scipy():
     # Benjamini & Hochberg 1995, J R Stat Soc B 57:289-300; scipy.stats.false_discovery_control
     rng = np.random.default_rng(3)
@@ -124,6 +172,7 @@ def test_bh_agrees_with_scipy():
 
 
 # ----------------------------------------------------------------------------- file format
+
 
 def test_write_read_round_trip_exact(norms, tmp_path):
     w = write_norms(norms, tmp_path / "n.tsv")
@@ -188,6 +237,7 @@ def _set_cell(col, value, row=0):
         cells[names.index(col)] = value
         lines[h + 1 + row] = "\t".join(cells)
         return lines
+
     return fn
 
 
@@ -195,8 +245,10 @@ def _drop_col(col):
     def fn(lines):
         h = _table_start(lines)
         k = lines[h].split("\t").index(col)
-        return lines[:h] + ["\t".join(c for i, c in enumerate(ln.split("\t")) if i != k)
-                            for ln in lines[h:]]
+        return lines[:h] + [
+            "\t".join(c for i, c in enumerate(ln.split("\t")) if i != k) for ln in lines[h:]
+        ]
+
     return fn
 
 
@@ -230,8 +282,10 @@ _HEADER_EDITS = [
     (lambda ls: ["colour\tatlas"] + ls[1:], "not a sourcelab norms file"),
     (lambda ls: [ls[0], "# colour: red"] + ls[1:], "bad header line"),
     (lambda ls: [ln for ln in ls if not ln.startswith("# fingerprint")], "fingerprint"),
-    (lambda ls: [ln if not ln.startswith("# fingerprint") else "# fingerprint: {}"
-                 for ln in ls], "fingerprint"),
+    (
+        lambda ls: [ln if not ln.startswith("# fingerprint") else "# fingerprint: {}" for ln in ls],
+        "fingerprint",
+    ),
     (lambda ls: [ln for ln in ls if not ln.startswith("# condition")], "condition"),
 ]
 
@@ -244,19 +298,22 @@ def test_bad_format_2_headers_raise_input_error_naming_file(legacy_file, edit, m
     assert str(legacy_file) in str(exc.value) and "\n" not in str(exc.value)
 
 
-@pytest.mark.parametrize("edit, message", [
-    (_drop_col("sd"), "missing columns"),
-    (_set_cell("sd", "0.0"), "sd must be > 0"),
-    (_set_cell("sd", "-0.2"), "sd must be > 0"),
-    (_set_cell("b0", "nan"), "NaN"),
-    (_set_cell("b0", "n/a"), "NaN"),
-    (_set_cell("transform", "sqrt"), "unknown transform"),
-    (_set_cell("kind", "voxel"), "kind must be"),
-    (_set_cell("b3", "0.5"), "must be 0"),
-    (_dup_row, "duplicate row"),
-    (_overlap, "overlapping age ranges"),
-    (lambda ls: ["colour\tatlas"] + ls[1:], "not a sourcelab norms file"),
-])
+@pytest.mark.parametrize(
+    "edit, message",
+    [
+        (_drop_col("sd"), "missing columns"),
+        (_set_cell("sd", "0.0"), "sd must be > 0"),
+        (_set_cell("sd", "-0.2"), "sd must be > 0"),
+        (_set_cell("b0", "nan"), "NaN"),
+        (_set_cell("b0", "n/a"), "NaN"),
+        (_set_cell("transform", "sqrt"), "unknown transform"),
+        (_set_cell("kind", "voxel"), "kind must be"),
+        (_set_cell("b3", "0.5"), "must be 0"),
+        (_dup_row, "duplicate row"),
+        (_overlap, "overlapping age ranges"),
+        (lambda ls: ["colour\tatlas"] + ls[1:], "not a sourcelab norms file"),
+    ],
+)
 def test_bad_norms_files_raise_input_error_naming_file(norms_file, edit, message):
     _edit(norms_file, edit)
     with pytest.raises(InputError, match=message) as exc:
@@ -276,6 +333,7 @@ def test_missing_file_and_dataclass_validation(tmp_path, norms):
 
 # ----------------------------------------------------------------------------- z-scoring
 
+
 def test_z_known_answer_against_estimated_model(cohort, norms):
     # values placed exactly k estimated SDs from the estimated mean must give z = k
     age = 33.0
@@ -285,25 +343,31 @@ def test_z_known_answer_against_estimated_model(cohort, norms):
     mean = t.b0 + t.b1 * x + t.b2 * x**2 + t.b3 * x**3
     k = np.linspace(-3, 3, len(t))
     tv = mean + k * t.sd
-    roi = pd.DataFrame({"atlas": t.atlas, "roi": t.name, "hemisphere": t.hemisphere,
-                        "band": t.band, "measure": t.measure,
-                        "value": [get_transform(tr).inverse(v)
-                                  for tr, v in zip(t["transform"], tv)]})
+    roi = pd.DataFrame(
+        {
+            "atlas": t.atlas,
+            "roi": t.name,
+            "hemisphere": t.hemisphere,
+            "band": t.band,
+            "measure": t.measure,
+            "value": [get_transform(tr).inverse(v) for tr, v in zip(t["transform"], tv)],
+        }
+    )
     out = apply_norms(roi, norms, age=age, fingerprint=FP, condition="eyes closed")
     np.testing.assert_allclose(out.z, k, rtol=1e-9, atol=1e-9)
     # two-sided predictive p: Student t (scipy.stats) with the row's df at
     # t = z / sqrt(1 + h0), h0 = x0' (X'X)^-1 x0 from the row's stored (X'X)^-1 (Crawford &
     # Garthwaite 2006, from memory); BH over every p of the table
-    x0 = np.stack([np.ones_like(k), np.full_like(k, x), np.full_like(k, x**2),
-                   np.full_like(k, x**3)], axis=1) * (np.arange(4) <= t.degree.to_numpy()[:, None])
+    x0 = np.stack(
+        [np.ones_like(k), np.full_like(k, x), np.full_like(k, x**2), np.full_like(k, x**3)], axis=1
+    ) * (np.arange(4) <= t.degree.to_numpy()[:, None])
     v = t[[f"v{j}{i}" for j in range(4) for i in range(j, 4)]].to_numpy()
     iu = np.triu_indices(4)
     m = np.zeros((len(t), 4, 4))
     m[:, iu[0], iu[1]] = v
     m[:, iu[1], iu[0]] = v
     h0 = np.einsum("ri,rij,rj->r", x0, m, x0)
-    np.testing.assert_allclose(out.p, 2 * stats.t.sf(np.abs(k) / np.sqrt(1 + h0), t.df),
-                               rtol=1e-9)
+    np.testing.assert_allclose(out.p, 2 * stats.t.sf(np.abs(k) / np.sqrt(1 + h0), t.df), rtol=1e-9)
     np.testing.assert_allclose(out.fdr_q, stats.false_discovery_control(out.p), rtol=1e-12)
     assert not out.extrapolated.any() and not out.no_norm.any()
     assert (out.norm_n == t.n).all()
@@ -313,8 +377,13 @@ def test_z_known_answer_against_estimated_model(cohort, norms):
 def test_fingerprint_mismatch_lists_fields(cohort, norms_file):
     nm = read_norms(norms_file)
     roi, _ = cohort.tables_at(30.0, np.zeros(len(cohort.keys)))
-    other = Fingerprint(headmodel_sha256="1" * 64, method="eLORETA", orientation="fixed",
-                        lambda2=1 / 9, bands=DEFAULT_BANDS)
+    other = Fingerprint(
+        headmodel_sha256="1" * 64,
+        method="eLORETA",
+        orientation="fixed",
+        lambda2=1 / 9,
+        bands=DEFAULT_BANDS,
+    )
     with pytest.raises(InputError, match="headmodel_sha256.*method") as exc:
         apply_norms(roi, nm, age=30.0, fingerprint=other)
     assert str(norms_file) in str(exc.value)
@@ -326,8 +395,9 @@ def test_condition_mismatch_error_or_flag(cohort, norms_file):
     with pytest.raises(InputError, match="condition") as exc:
         apply_norms(roi, nm, age=30.0, fingerprint=FP, condition="eyes open")
     assert str(norms_file) in str(exc.value)
-    out = apply_norms(roi, nm, age=30.0, fingerprint=FP, condition="eyes open",
-                      allow_condition_mismatch=True)
+    out = apply_norms(
+        roi, nm, age=30.0, fingerprint=FP, condition="eyes open", allow_condition_mismatch=True
+    )
     assert out.condition_mismatch.all() and np.isfinite(out.z).all()
     same = apply_norms(roi, nm, age=30.0, fingerprint=FP, condition="Eyes-Closed")
     assert not same.condition_mismatch.any()
@@ -360,8 +430,9 @@ def test_unknown_roi_is_flagged_unknown_band_is_error(cohort, norms_file):
     part = apply_norms(roi.iloc[:5], nm, age=30.0, fingerprint=FP)
     assert len(part) == 5 and np.isfinite(part.z).all()
     with pytest.raises(InputError, match="bands.*gamma") as exc:
-        apply_norms(pd.concat([roi, roi.iloc[:1].assign(band="gamma")]), nm, age=30.0,
-                    fingerprint=FP)
+        apply_norms(
+            pd.concat([roi, roi.iloc[:1].assign(band="gamma")]), nm, age=30.0, fingerprint=FP
+        )
     assert str(norms_file) in str(exc.value)
     zs = apply_norms(sen, nm, age=30.0, fingerprint=FP, kind="sensor")
     assert np.isfinite(zs.z).all() and len(zs) == len(sen)

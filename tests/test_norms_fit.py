@@ -8,16 +8,27 @@ import pytest
 
 from sourcelab.config import DEFAULT_BANDS
 from sourcelab.errors import InputError
-from sourcelab.norms import (apply_norms, calibration_report, check_norms, fit_norms,
-                             plot_calibration, write_norms)
+from sourcelab.norms import (
+    apply_norms,
+    calibration_report,
+    check_norms,
+    fit_norms,
+    plot_calibration,
+    write_norms,
+)
 from sourcelab.norms.models import fit_poly
 from sourcelab.simulate import gaussian_cohort
 from sourcelab.provenance import Fingerprint
 
 matplotlib.use("Agg")
 
-FP = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
-                 lambda2=1 / 9, bands=DEFAULT_BANDS)
+FP = Fingerprint(
+    headmodel_sha256="0" * 64,
+    method="sLORETA",
+    orientation="fixed",
+    lambda2=1 / 9,
+    bands=DEFAULT_BANDS,
+)
 N = 100
 
 
@@ -103,8 +114,14 @@ def test_binned_model_and_degree_selection(cohort, fit):
     # the truth is quadratic in log age: LOO cross-validation must prefer degree >= 1 to 0
     sc = fit.degree_scores
     assert min(sc, key=sc.get) == fit.norms.cohort["degree"] >= 1 and sc[0] > sc[1]
-    b = fit_norms(cohort.entries, fingerprint=FP, condition="eyes closed", model="binned",
-                  bins=(5, 15, 30, 81), min_n_per_bin=15)
+    b = fit_norms(
+        cohort.entries,
+        fingerprint=FP,
+        condition="eyes closed",
+        model="binned",
+        bins=(5, 15, 30, 81),
+        min_n_per_bin=15,
+    )
     t = b.norms.table
     assert set(t.model) == {"binned"} and (t.degree == 0).all()
     assert len(t) == 3 * 66 and (t.n >= 15).all()
@@ -112,9 +129,14 @@ def test_binned_model_and_degree_selection(cohort, fit):
     j = 0
     mem = (b.ages >= 5) & (b.ages < 15)
     kept = mem & ~b.excluded[:, j]
-    row = t[(t.age_min == 5) & (t.name == b.quantities.name[j]) &
-            (t.band == b.quantities.band[j]) & (t.measure == b.quantities.measure[j]) &
-            (t.hemisphere == b.quantities.hemisphere[j]) & (t.kind == b.quantities.kind[j])]
+    row = t[
+        (t.age_min == 5)
+        & (t.name == b.quantities.name[j])
+        & (t.band == b.quantities.band[j])
+        & (t.measure == b.quantities.measure[j])
+        & (t.hemisphere == b.quantities.hemisphere[j])
+        & (t.kind == b.quantities.kind[j])
+    ]
     assert row.b0.iloc[0] == pytest.approx(np.mean(b.values[kept, j]), rel=1e-12)
     assert row.sd.iloc[0] == pytest.approx(np.std(b.values[kept, j], ddof=1), rel=1e-12)
     with pytest.raises(InputError, match="model"):

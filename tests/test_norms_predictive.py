@@ -7,8 +7,7 @@ from scipy import stats
 
 from sourcelab.errors import InputError
 from sourcelab.norms.models import fit_poly
-from sourcelab.norms.predictive import (leverage, pack_v, predictive_t, unpack_v,
-                                        xtx_inverse)
+from sourcelab.norms.predictive import leverage, pack_v, predictive_t, unpack_v, xtx_inverse
 
 
 def test_binned_case_is_crawford_howell():
@@ -58,7 +57,7 @@ def test_predictive_t_is_student_t_under_the_null(rng, degree):
         z_plain.append(r["z_plain"][0])
     assert stats.kstest(t_all, stats.t(n - degree - 1).cdf).pvalue > 1e-3
     assert abs(np.mean(np.abs(z_eq) > 1.96) - 0.05) < 0.012
-    assert np.mean(np.abs(z_plain) > 1.96) > 0.065       # the plain z is anti-conservative
+    assert np.mean(np.abs(z_plain) > 1.96) > 0.065  # the plain z is anti-conservative
 
 
 def test_source_models_equal_fit_poly(rng):
@@ -68,7 +67,7 @@ def test_source_models_equal_fit_poly(rng):
 
     ages = rng.uniform(18, 65, 50)
     y = 0.5 + 0.2 * np.log10(ages)[:, None] + 0.1 * rng.standard_normal((50, 30))
-    y[3, 4] += 2.0                                          # an outlying control
+    y[3, 4] += 2.0  # an outlying control
     y[7, 9] -= 1.5
     coef, sd, n_kept, _ = fit_source_models(ages, y, 1, robust=True)
     for j in range(30):
@@ -80,17 +79,33 @@ def test_source_models_equal_fit_poly(rng):
 
 
 def test_source_norms_file_round_trip(tmp_path, rng):
-    from sourcelab.norms.source_norms import (fit_source_norms, read_source_norms, source_z,
-                                              source_norms_path, write_source_norms)
+    from sourcelab.norms.source_norms import (
+        fit_source_norms,
+        read_source_norms,
+        source_z,
+        source_norms_path,
+        write_source_norms,
+    )
     from sourcelab.provenance import Fingerprint
 
-    fp = Fingerprint(headmodel_sha256="a" * 64, method="sLORETA", orientation="fixed",
-                     lambda2=1 / 9, bands=(("theta", 4.0, 8.0), ("alpha", 8.0, 12.0)))
+    fp = Fingerprint(
+        headmodel_sha256="a" * 64,
+        method="sLORETA",
+        orientation="fixed",
+        lambda2=1 / 9,
+        bands=(("theta", 4.0, 8.0), ("alpha", 8.0, 12.0)),
+    )
     ages = rng.uniform(18, 65, 40)
     power = 10 ** (1 + 0.1 * rng.standard_normal((40, 2, 25)))
-    sn = fit_source_norms(ages, {"absolute": power}, degree=1, bands=("theta", "alpha"),
-                          fingerprint=fp.to_dict(), condition="eyes closed",
-                          vertices=np.arange(25) * 3)
+    sn = fit_source_norms(
+        ages,
+        {"absolute": power},
+        degree=1,
+        bands=("theta", "alpha"),
+        fingerprint=fp.to_dict(),
+        condition="eyes closed",
+        vertices=np.arange(25) * 3,
+    )
     path = write_source_norms(sn, source_norms_path(tmp_path / "norms.tsv"))
     assert path.name == "norms_sources.npz"
     back = read_source_norms(path, fingerprint=fp.to_dict())
@@ -99,7 +114,7 @@ def test_source_norms_file_round_trip(tmp_path, rng):
     z = source_z(back, power[0], age=float(ages[0]), predictive=False)
     assert z.shape == (2, 25) and np.isfinite(z).all()
     zp = source_z(back, power[0], age=float(ages[0]))
-    assert (np.abs(zp) <= np.abs(z) + 1e-12).all()          # predictive z is never larger
+    assert (np.abs(zp) <= np.abs(z) + 1e-12).all()  # predictive z is never larger
     other = Fingerprint(**{**fp.to_dict(), "lambda2": 0.05, "bands": fp.bands})
     with pytest.raises(InputError, match="fingerprint"):
         read_source_norms(path, fingerprint=other.to_dict())

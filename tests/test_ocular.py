@@ -16,7 +16,11 @@ import pytest
 from sourcelab.config import SITES_1020, AnalysisConfig
 from sourcelab.intake.clean import DEFAULT_NASION
 from sourcelab.intake.ocular import (
-    OCULAR_R, correct_ocular, ocular_residual, ocular_templates, remove_components,
+    OCULAR_R,
+    correct_ocular,
+    ocular_residual,
+    ocular_templates,
+    remove_components,
     subspace_cosine,
 )
 from sourcelab.analysis import analyze
@@ -38,13 +42,23 @@ def sim(head_model):
     """Clean invented recording (occipital alpha, parietal delta, frontal-midline theta) and
     the same with blinks (0.25/s, 150 µV) and horizontal gaze shifts (1/s, up to 80 µV)."""
     rng = np.random.default_rng(3)
-    gens = (Generator((14.0, -95.0, 2.0), "right", freq=10.0, amplitude=1.5),
-            Generator((-40.0, -60.0, 40.0), "left", freq=2.0, bandwidth=2.0, amplitude=0.7),
-            Generator((-5.0, 35.0, 30.0), "left", freq=6.0, bandwidth=2.0, amplitude=1.0))
-    raw = simulate_raw(head_model, duration_s=120.0, sfreq=SF, generators=gens, rng=rng,
-                       background_uv=15.0)
-    eye = ocular_artefacts(head_model.ch_pos, DEFAULT_NASION, n_times=raw.n_times, sfreq=SF,
-                           rng=rng, saccade_rate_hz=1.0, saccade_uv=80.0)
+    gens = (
+        Generator((14.0, -95.0, 2.0), "right", freq=10.0, amplitude=1.5),
+        Generator((-40.0, -60.0, 40.0), "left", freq=2.0, bandwidth=2.0, amplitude=0.7),
+        Generator((-5.0, 35.0, 30.0), "left", freq=6.0, bandwidth=2.0, amplitude=1.0),
+    )
+    raw = simulate_raw(
+        head_model, duration_s=120.0, sfreq=SF, generators=gens, rng=rng, background_uv=15.0
+    )
+    eye = ocular_artefacts(
+        head_model.ch_pos,
+        DEFAULT_NASION,
+        n_times=raw.n_times,
+        sfreq=SF,
+        rng=rng,
+        saccade_rate_hz=1.0,
+        saccade_uv=80.0,
+    )
     dirty = mne.io.RawArray(raw.get_data() + eye, raw.info, verbose="error")
     return raw, dirty, eye
 
@@ -160,8 +174,18 @@ def test_regression_on_real_eog_channels_matches_mne(head_model, rng):
     # the known eye signal is removed.
     n = int(60 * SF)
     clean = simulate_raw(head_model, duration_s=60.0, sfreq=SF, rng=rng).get_data() * 1e6
-    eye = ocular_artefacts(head_model.ch_pos, DEFAULT_NASION, n_times=n, sfreq=SF, rng=rng,
-                           saccade_rate_hz=1.0, saccade_uv=80.0) * 1e6
+    eye = (
+        ocular_artefacts(
+            head_model.ch_pos,
+            DEFAULT_NASION,
+            n_times=n,
+            sfreq=SF,
+            rng=rng,
+            saccade_rate_hz=1.0,
+            saccade_uv=80.0,
+        )
+        * 1e6
+    )
     tpl = ocular_templates(head_model.ch_pos, DEFAULT_NASION)
     eog = np.linalg.lstsq(tpl, eye, rcond=None)[0] * 3.0  # vertical, horizontal channels
     eog = eog + 2.0 * rng.standard_normal(eog.shape)  # electrode noise, µV
@@ -173,8 +197,9 @@ def test_regression_on_real_eog_channels_matches_mne(head_model, rng):
     assert np.std(resid) < 0.1 * np.std(eye)
     # MNE regresses average-referenced EEG only; so do we for the comparison
     data_ar = data - data.mean(axis=0)
-    ours = correct_ocular(data_ar, SF, SITES_1020, head_model.ch_pos, DEFAULT_NASION,
-                          eog_uv=eog).mixing
+    ours = correct_ocular(
+        data_ar, SF, SITES_1020, head_model.ch_pos, DEFAULT_NASION, eog_uv=eog
+    ).mixing
     info = mne.create_info(list(SITES_1020) + ["VEOG", "HEOG"], SF, ["eeg"] * 19 + ["eog"] * 2)
     raw = mne.io.RawArray(np.vstack([data_ar, eog]) * 1e-6, info, verbose="error")
     raw.set_eeg_reference("average", projection=True, verbose="error").apply_proj()

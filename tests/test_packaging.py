@@ -17,8 +17,10 @@ def test_every_subpackage_is_listed():
     # checkout but be missing from a wheel.
     conf = tomllib.loads((ROOT / "pyproject.toml").read_text())["tool"]["setuptools"]
     listed = set(conf["packages"])
-    found = {".".join(p.parent.relative_to(ROOT).parts)
-             for p in (ROOT / "sourcelab").rglob("__init__.py")}
+    found = {
+        ".".join(p.parent.relative_to(ROOT).parts)
+        for p in (ROOT / "sourcelab").rglob("__init__.py")
+    }
     assert found == listed, (sorted(found - listed), sorted(listed - found))
 
 
@@ -27,9 +29,23 @@ def wheel(tmp_path_factory):
     # Common practice: build the wheel as pip would for a user (setuptools and wheel come with
     # the test extra, so no build isolation is needed) and read what it holds.
     out = tmp_path_factory.mktemp("wheel")
-    proc = subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps",
-                           "--no-build-isolation", "-q", "-w", str(out), str(ROOT)],
-                          capture_output=True, text=True, timeout=600)
+    proc = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "pip",
+            "wheel",
+            "--no-deps",
+            "--no-build-isolation",
+            "-q",
+            "-w",
+            str(out),
+            str(ROOT),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
     assert proc.returncode == 0, proc.stderr[-2000:]
     (whl,) = out.glob("sourcelab-*.whl")
     with zipfile.ZipFile(whl) as zf:

@@ -26,14 +26,21 @@ def _run(args, *, tty: bool, cwd) -> tuple[int, str]:
     """Run the CLI; return (exit code, everything written to standard error)."""
     env = {**os.environ, "COLUMNS": "100"}
     if not tty:
-        r = subprocess.run(_CLI + args, cwd=cwd, capture_output=True, text=True, env=env,
-                           timeout=600)
+        r = subprocess.run(
+            _CLI + args, cwd=cwd, capture_output=True, text=True, env=env, timeout=600
+        )
         return r.returncode, r.stderr
     master, slave = pty.openpty()
     # a real terminal has a size; a fresh pseudo-terminal reports 0 x 0 (tqdm then draws nothing)
     fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 24, 100, 0, 0))
-    p = subprocess.Popen(_CLI + args, cwd=cwd, stdout=subprocess.DEVNULL, stderr=slave,
-                         stdin=subprocess.DEVNULL, env=env)
+    p = subprocess.Popen(
+        _CLI + args,
+        cwd=cwd,
+        stdout=subprocess.DEVNULL,
+        stderr=slave,
+        stdin=subprocess.DEVNULL,
+        env=env,
+    )
     os.close(slave)
     chunks = []
     while True:

@@ -7,8 +7,9 @@ from sourcelab.errors import InputError
 from sourcelab.intake.reliability import icc, reliability_summary, split_half, test_retest
 
 # Shrout & Fleiss (1979), Psychol Bull 86:420-428, Table 2: 6 targets rated by 4 judges.
-SHROUT_FLEISS = np.array([[9, 2, 5, 8], [6, 1, 3, 2], [8, 4, 6, 8], [7, 1, 2, 6],
-                          [10, 5, 6, 9], [6, 2, 4, 7]], float)
+SHROUT_FLEISS = np.array(
+    [[9, 2, 5, 8], [6, 1, 3, 2], [8, 4, 6, 8], [7, 1, 2, 6], [10, 5, 6, 9], [6, 2, 4, 7]], float
+)
 
 
 def test_icc_shrout_fleiss_table():
@@ -39,8 +40,9 @@ def test_icc_two_measurements_matches_moment_formulas(rng):
     vd = np.var(a - b, ddof=1)
     x = np.c_[a, b]
     assert icc(x, kind="3,1").value == pytest.approx(2 * s_ab / (va + vb), rel=1e-12)
-    assert icc(x, kind="2,1").value == pytest.approx(2 * s_ab / (va + vb + d * d - vd / n),
-                                                     rel=1e-12)
+    assert icc(x, kind="2,1").value == pytest.approx(
+        2 * s_ab / (va + vb + d * d - vd / n), rel=1e-12
+    )
 
 
 def test_icc_agreement_falls_with_a_shift_consistency_does_not(rng):
@@ -115,8 +117,9 @@ def test_report_shows_icc_with_interval(rng):
     assert list(t.columns) == ["level", "halves", "theta", "alpha"]
     assert len(t) == 2
     for cell in t[["theta", "alpha"]].to_numpy().ravel():
-        v, lo, hi = map(float, re.fullmatch(r"(-?[\d.]+) \((-?[\d.]+) to (-?[\d.]+)\)",
-                                            cell).groups())
+        v, lo, hi = map(
+            float, re.fullmatch(r"(-?[\d.]+) \((-?[\d.]+) to (-?[\d.]+)\)", cell).groups()
+        )
         assert lo <= v <= hi
     html = _reliability(rel, 0.9)
     assert "ICC(2,1)" in html and "95 % interval" in html

@@ -15,8 +15,16 @@ import pytest
 from matplotlib.image import AxesImage
 
 from sourcelab.figures import result_figures
-from sourcelab.report import (CAUTIONS, MAX_BYTES, MAX_PAGES, SECTIONS, pdf_pages,
-                              report_summary, write_pdf, write_report)
+from sourcelab.report import (
+    CAUTIONS,
+    MAX_BYTES,
+    MAX_PAGES,
+    SECTIONS,
+    pdf_pages,
+    report_summary,
+    write_pdf,
+    write_report,
+)
 from sourcelab.rois.names import area_name, natural_sorted
 
 
@@ -54,8 +62,15 @@ def result(demo_result):
 
 @pytest.fixture(scope="module")
 def small_figures(result):
-    return result_figures(result, surfaces=False, measures=("absolute",), resolution=3,
-                          z_map_atlas=None, bands=("alpha",), as_png=True)
+    return result_figures(
+        result,
+        surfaces=False,
+        measures=("absolute",),
+        resolution=3,
+        z_map_atlas=None,
+        bands=("alpha",),
+        as_png=True,
+    )
 
 
 def _parse(path):
@@ -78,9 +93,15 @@ def _assert_self_contained(p, text):
 
 
 def test_report_sections_cautions_and_self_contained(result, small_figures, tmp_path):
-    out = write_report(result, tmp_path / "sub" / "report.html", figures=small_figures,
-                       extra_sections=[("Clinician notes", "<script>alert(1)</script>\n\nsecond"),
-                                       ("Extra table", pd.DataFrame({"a": [1.5]}))])
+    out = write_report(
+        result,
+        tmp_path / "sub" / "report.html",
+        figures=small_figures,
+        extra_sections=[
+            ("Clinician notes", "<script>alert(1)</script>\n\nsecond"),
+            ("Extra table", pd.DataFrame({"a": [1.5]})),
+        ],
+    )
     assert out.exists() and not [f for f in out.parent.iterdir() if f.name.startswith(".")]
     p, text = _parse(out)
     for sid, title in SECTIONS:
@@ -104,7 +125,7 @@ def test_deviation_table_lists_large_z_with_fdr(result, small_figures, tmp_path)
     out = write_report(result, tmp_path / "r.html", figures=small_figures)
     text = out.read_text(encoding="utf-8")
     start = text.index('id="deviations"')
-    section = text[start:text.index("<section", start)]
+    section = text[start : text.index("<section", start)]
     # the largest deviation is listed with its z, and the FDR column is there
     t = result.roi_table
     top = t.loc[t["z"].abs().idxmax()]
@@ -117,13 +138,14 @@ def test_deviation_table_lists_large_z_with_fdr(result, small_figures, tmp_path)
 
 def test_report_without_norms(plain_result, tmp_path):
     r = plain_result
-    figs = result_figures(r, surfaces=False, measures=("relative",), resolution=3,
-                          bands=("alpha",), as_png=True)
+    figs = result_figures(
+        r, surfaces=False, measures=("relative",), resolution=3, bands=("alpha",), as_png=True
+    )
     out = write_report(r, tmp_path / "r.html", figures=figs)
     text = out.read_text(encoding="utf-8")
     assert "No norms were given" in text and "No norms were used" in text
     start = text.index('id="deviations"')
-    section = text[start:text.index("<section", start)]
+    section = text[start : text.index("<section", start)]
     assert "<table" not in section
 
 
@@ -154,8 +176,7 @@ def _visible_text(text: str) -> str:
 
 # issue 16 "done when": no user-visible string contains these (Python/pandas reprs, developer
 # notes, install paths)
-_FORBIDDEN = ("None", "<NA>", "[]", "from memory", "site-packages", "nan ", "NaN", "True",
-              "False")
+_FORBIDDEN = ("None", "<NA>", "[]", "from memory", "site-packages", "nan ", "NaN", "True", "False")
 
 
 def test_summary_is_first_and_in_words(result, small_figures, tmp_path):
@@ -164,7 +185,7 @@ def test_summary_is_first_and_in_words(result, small_figures, tmp_path):
     sections = re.findall(r'<section id="([^"]+)"', text)
     assert sections[0] == "summary"
     start = text.index('id="summary"')
-    summary = text[start:text.index("<section", start)]
+    summary = text[start : text.index("<section", start)]
     # the top candidate (peak-based localisation) with its area name, MNI position and how sure
     c = result.candidates.iloc[0]
     assert f"{c['area']} {area_name(c['area'])}" in summary
@@ -207,8 +228,7 @@ def _outside(fig):
             continue
         if e.width <= 0 or e.height <= 0:
             continue
-        if e.x0 < box.x0 - 0.5 or e.x1 > box.x1 + 0.5 or e.y0 < box.y0 - 0.5 or \
-                e.y1 > box.y1 + 0.5:
+        if e.x0 < box.x0 - 0.5 or e.x1 > box.x1 + 0.5 or e.y0 < box.y0 - 0.5 or e.y1 > box.y1 + 0.5:
             bad.append((type(a).__name__, getattr(a, "get_text", lambda: "")()[:40]))
     return bad
 
@@ -265,6 +285,6 @@ def test_z_maps_exported_like_power(result, plain_result, tmp_path):
     img = nib.load(paths[0])  # left hemisphere first
     assert [d.meta["Name"] for d in img.darrays] == list(result.bands.names)
     m = load_head_model()
-    got = np.stack([d.data for d in img.darrays])[:, m.vertno[:m.n_left]]
-    want = np.asarray(result.source_z["absolute"])[:, :m.n_left]
+    got = np.stack([d.data for d in img.darrays])[:, m.vertno[: m.n_left]]
+    want = np.asarray(result.source_z["absolute"])[:, : m.n_left]
     np.testing.assert_allclose(got, want, rtol=1e-6)

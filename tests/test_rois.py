@@ -12,8 +12,14 @@ from sourcelab.errors import InputError
 from sourcelab.figures.atlas import plot_atlas
 from sourcelab.headmodel import load_head_model
 from sourcelab.headmodel.geometry import mni152_to_mni305, mni305_to_mni152
-from sourcelab.rois import ROI_MODES, SMALL_MIN_VERTICES, atlas_summary, load_atlas, \
-    load_custom_rois, roi_reduce
+from sourcelab.rois import (
+    ROI_MODES,
+    SMALL_MIN_VERTICES,
+    atlas_summary,
+    load_atlas,
+    load_custom_rois,
+    roi_reduce,
+)
 
 MODEL = load_head_model()
 N_SRC = MODEL.n_src
@@ -26,6 +32,7 @@ def _src(surface_vertices) -> np.ndarray:
     keep = MODEL.surface.cortex[v]
     return np.searchsorted(MODEL.vertno, v[keep])
 
+
 matplotlib.use("Agg")
 
 
@@ -36,11 +43,13 @@ def rng():
 
 # --- geometry ---------------------------------------------------------------------------------
 
+
 def test_mni305_to_mni152_published_example():
     # FreeSurfer wiki "CoordinateSystems" (8): MNI305 (10, -20, 35) -> MNI152 (10.695, -18.409,
     # 36.137); the wiki's rounded matrix reproduces it to ~3e-3 mm.
-    np.testing.assert_allclose(mni305_to_mni152([10, -20, 35]), [10.695, -18.409, 36.137],
-                               atol=5e-3)
+    np.testing.assert_allclose(
+        mni305_to_mni152([10, -20, 35]), [10.695, -18.409, 36.137], atol=5e-3
+    )
     p = np.array([[-40.0, 30.0, 30.0], [12.0, -80.0, 5.0]])
     np.testing.assert_allclose(mni152_to_mni305(mni305_to_mni152(p)), p, atol=1e-10)
 
@@ -55,6 +64,7 @@ def test_template_surface_is_fsaverage5():
 
 # --- roi_reduce -------------------------------------------------------------------------------
 
+
 @pytest.mark.parametrize("name", ["brodmann", "lobes", "yeo7"])
 @pytest.mark.parametrize("mode", list(ROI_MODES))
 def test_constant_per_roi_gives_the_constants_back(name, mode, rng):
@@ -64,7 +74,7 @@ def test_constant_per_roi_gives_the_constants_back(name, mode, rng):
     consts = rng.integers(1, 1000, size=(3, len(atlas.rois))).astype(float)  # exact in float64
     values = rng.normal(size=(3, N_SRC)) * 1e6  # sources outside every ROI must not matter
     for k, roi in enumerate(atlas.rois):
-        values[:, roi.vertices] = consts[:, k:k + 1]
+        values[:, roi.vertices] = consts[:, k : k + 1]
     out = roi_reduce(values, atlas, mode=mode)
     assert out.shape == (3, len(atlas.rois))
     if mode == "centroid_weighted":  # weights sum to 1 in floating point: a few ulp
@@ -81,9 +91,9 @@ def test_reduce_modes_agree_with_numpy(rng):
         out = roi_reduce(values, atlas, mode=mode)
         assert out.shape == (2, 4, len(atlas.rois))
         for k in (0, 5, len(atlas.rois) - 1):
-            np.testing.assert_allclose(out[..., k],
-                                       func(values[..., atlas.rois[k].vertices], axis=-1),
-                                       rtol=1e-12)
+            np.testing.assert_allclose(
+                out[..., k], func(values[..., atlas.rois[k].vertices], axis=-1), rtol=1e-12
+            )
 
 
 def test_centroid_weighted_favours_the_centre():
@@ -112,6 +122,7 @@ def test_reduce_rejects_bad_input():
 
 # --- user-defined ROIs ------------------------------------------------------------------------
 
+
 def _write(tmp_path, name, text):
     p = tmp_path / name
     p.write_text(text, encoding="utf-8")
@@ -126,8 +137,9 @@ def test_custom_rois_toml_all_kinds(tmp_path, caplog):
     lab = np.zeros(N_PER_HEMI, dtype=np.int32)
     lab[:100] = 1
     ctab = np.array([[10, 10, 10, 0, 0], [200, 20, 20, 0, 0]], dtype=np.int32)
-    nib.freesurfer.write_annot(str(tmp_path / "lh.test.annot"), lab, ctab, [b"rest", b"first"],
-                               fill_ctab=True)
+    nib.freesurfer.write_annot(
+        str(tmp_path / "lh.test.annot"), lab, ctab, [b"rest", b"first"], fill_ctab=True
+    )
     # a FreeSurfer .label (ASCII format: header, count, "vertex x y z value" rows) on fsaverage,
     # with one vertex beyond fsaverage5 that must be dropped
     verts = [5, 6, 7, 200000 - 36158]
@@ -136,7 +148,10 @@ def test_custom_rois_toml_all_kinds(tmp_path, caplog):
     assert MODEL.surface.cortex[[4321, 5, 6, 7, N_PER_HEMI + 1, N_PER_HEMI + 3]].all()
     c305 = MODEL.surface.mid[4321]
     c152 = mni305_to_mni152(c305)
-    path = _write(tmp_path, "rois.toml", f"""
+    path = _write(
+        tmp_path,
+        "rois.toml",
+        f"""
 name = "pilot"
 [[roi]]
 name = "dot"
@@ -166,18 +181,22 @@ name = "parc"
 kind = "annot"
 file = "lh.test.annot"
 hemisphere = "left"
-""")
+""",
+    )
     with caplog.at_level(logging.WARNING, logger="sourcelab"):
         atlas = load_custom_rois(path)
     rois = {(r.name, r.hemisphere): r for r in atlas.rois}
     assert atlas.name == "pilot" and len(atlas.sha256) == 64
     # sphere of ~0 radius around a vertex's mid-thickness point holds exactly that vertex
     np.testing.assert_array_equal(rois[("dot", "left")].vertices, _src([4321]))
-    np.testing.assert_array_equal(rois[("ba17-18", "right")].vertices,
-                                  np.union1d(ba[("BA17", "right")], ba[("BA18", "right")]))
+    np.testing.assert_array_equal(
+        rois[("ba17-18", "right")].vertices,
+        np.union1d(ba[("BA17", "right")], ba[("BA18", "right")]),
+    )
     assert rois[("dmn-yeo", "both")].vertices.size > 3000
-    np.testing.assert_array_equal(rois[("picked", "right")].vertices,
-                                  _src([N_PER_HEMI + 1, N_PER_HEMI + 3]))
+    np.testing.assert_array_equal(
+        rois[("picked", "right")].vertices, _src([N_PER_HEMI + 1, N_PER_HEMI + 3])
+    )
     np.testing.assert_array_equal(rois[("lab", "left")].vertices, _src([5, 6, 7]))
     np.testing.assert_array_equal(rois[("parc.first", "left")].vertices, _src(np.arange(100)))
     assert rois[("parc.rest", "left")].vertices.size == MODEL.n_left - _src(np.arange(100)).size
@@ -191,8 +210,9 @@ hemisphere = "left"
 def test_custom_sphere_matches_distance_rule(tmp_path):
     # Reference: a brute-force distance computation in MNI152 mm over the mid-thickness points.
     centre = np.array([-40.0, 30.0, 30.0])  # dorsolateral prefrontal, MNI152
-    path = _write(tmp_path, "s.tsv", "name\tkind\themisphere\tspec\n"
-                                     "dlpfc\tsphere\tleft\t-40 30 30 12\n")
+    path = _write(
+        tmp_path, "s.tsv", "name\tkind\themisphere\tspec\ndlpfc\tsphere\tleft\t-40 30 30 12\n"
+    )
     roi = load_custom_rois(path).rois[0]
     mid152 = mni305_to_mni152(MODEL.surface.mid)
     expected = _src(np.flatnonzero(np.linalg.norm(mid152[:N_PER_HEMI] - centre, axis=1) <= 12.0))
@@ -201,32 +221,50 @@ def test_custom_sphere_matches_distance_rule(tmp_path):
 
 
 def test_custom_tsv_all_kinds(tmp_path):
-    path = _write(tmp_path, "r.tsv",
-                  "name\tkind\themisphere\tspec\n"
-                  "net\tareas\tboth\tBA23,default-mode,occipital\n"
-                  "v\tvertices\t\t1 2 3\n"
-                  "s\tsphere\tright\t40 30 30 10 mni305\n")
+    path = _write(
+        tmp_path,
+        "r.tsv",
+        "name\tkind\themisphere\tspec\n"
+        "net\tareas\tboth\tBA23,default-mode,occipital\n"
+        "v\tvertices\t\t1 2 3\n"
+        "s\tsphere\tright\t40 30 30 10 mni305\n",
+    )
     atlas = load_custom_rois(path)
-    assert [(r.name, r.hemisphere) for r in atlas.rois] == [("net", "both"), ("v", "left"),
-                                                            ("s", "right")]
+    assert [(r.name, r.hemisphere) for r in atlas.rois] == [
+        ("net", "both"),
+        ("v", "left"),
+        ("s", "right"),
+    ]
 
 
-@pytest.mark.parametrize("body,match", [
-    ('[[roi]]\nname = "x"\nkind = "sphere"\ncenter = [0, 0, 200]\nradius_mm = 5\n',
-     "contains no template sources"),
-    ('[[roi]]\nname = "x"\nkind = "areas"\nareas = ["BA99"]\n', "unknown Brodmann area"),
-    ('[[roi]]\nname = "x"\nkind = "areas"\nareas = ["motor"]\n', "allowed: BA<n>"),
-    ('[[roi]]\nname = "x"\nkind = "cube"\n', "allowed: sphere, areas, vertices, label, annot"),
-    ('[[roi]]\nname = "x"\nkind = "vertices"\nvertices = [20484]\n', "0..20483"),
-    ('[[roi]]\nname = "x"\nkind = "label"\nfile = "missing.label"\nhemisphere = "left"\n',
-     "file not found"),
-    ('[[roi]]\nname = "x"\nkind = "vertices"\nvertices = [1]\nhemisphere = "top"\n',
-     "allowed: left, right, both"),
-    ('[[roi]]\nname = "x"\nkind = "vertices"\nvertices = [1]\n'
-     '[[roi]]\nname = "x"\nkind = "vertices"\nvertices = [2]\n', "defined twice"),
-    ('name = "empty"\n', "no ROIs defined"),
-    ('[[roi]\n', "invalid TOML"),
-])
+@pytest.mark.parametrize(
+    "body,match",
+    [
+        (
+            '[[roi]]\nname = "x"\nkind = "sphere"\ncenter = [0, 0, 200]\nradius_mm = 5\n',
+            "contains no template sources",
+        ),
+        ('[[roi]]\nname = "x"\nkind = "areas"\nareas = ["BA99"]\n', "unknown Brodmann area"),
+        ('[[roi]]\nname = "x"\nkind = "areas"\nareas = ["motor"]\n', "allowed: BA<n>"),
+        ('[[roi]]\nname = "x"\nkind = "cube"\n', "allowed: sphere, areas, vertices, label, annot"),
+        ('[[roi]]\nname = "x"\nkind = "vertices"\nvertices = [20484]\n', "0..20483"),
+        (
+            '[[roi]]\nname = "x"\nkind = "label"\nfile = "missing.label"\nhemisphere = "left"\n',
+            "file not found",
+        ),
+        (
+            '[[roi]]\nname = "x"\nkind = "vertices"\nvertices = [1]\nhemisphere = "top"\n',
+            "allowed: left, right, both",
+        ),
+        (
+            '[[roi]]\nname = "x"\nkind = "vertices"\nvertices = [1]\n'
+            '[[roi]]\nname = "x"\nkind = "vertices"\nvertices = [2]\n',
+            "defined twice",
+        ),
+        ('name = "empty"\n', "no ROIs defined"),
+        ("[[roi]\n", "invalid TOML"),
+    ],
+)
 def test_custom_rois_bad_input(tmp_path, body, match):
     with pytest.raises(InputError, match=match):
         load_custom_rois(_write(tmp_path, "bad.toml", body))
@@ -241,6 +279,7 @@ def test_custom_rois_bad_file_type(tmp_path):
 
 # --- figure -----------------------------------------------------------------------------------
 
+
 def test_plot_atlas_returns_figure_with_four_views(tmp_path):
     import matplotlib.pyplot as plt
 
@@ -250,9 +289,12 @@ def test_plot_atlas_returns_figure_with_four_views(tmp_path):
         axes = [ax for ax in fig.axes if ax.name == "3d"]
         assert len(axes) == 4
         assert all(ax.collections for ax in axes)  # each view has a painted mesh
-        assert [ax.get_title() for ax in axes] == ["left lateral", "left medial",
-                                                   "right lateral", "right medial"]
+        assert [ax.get_title() for ax in axes] == [
+            "left lateral",
+            "left medial",
+            "right lateral",
+            "right medial",
+        ]
         assert out.stat().st_size > 10_000
     finally:
         plt.close(fig)
-

@@ -6,8 +6,12 @@ import scipy.signal
 
 from sourcelab.config import Bands
 from sourcelab.errors import InputError
-from sourcelab.spectra import (average_reference, epoch_cross_spectra, relative_power,
-                               sensor_band_power)
+from sourcelab.spectra import (
+    average_reference,
+    epoch_cross_spectra,
+    relative_power,
+    sensor_band_power,
+)
 
 FS = 256.0
 N = 512  # 2-s epochs

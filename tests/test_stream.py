@@ -24,8 +24,10 @@ from sourcelab.targets.stream import LOOPBACK_CONFIG, STATUS, write_loopback_con
 
 write_loopback_config(LSL_CFG)
 
-mne_lsl = pytest.importorskip("mne_lsl", reason="mne-lsl is not installed: LSL streaming tests "
-                              "skipped (pip install 'sourcelab[live]')")
+mne_lsl = pytest.importorskip(
+    "mne_lsl",
+    reason="mne-lsl is not installed: LSL streaming tests skipped (pip install 'sourcelab[live]')",
+)
 
 from sourcelab.config import SITES_1020  # noqa: E402
 from sourcelab.simulate import pink_noise  # noqa: E402
@@ -53,12 +55,22 @@ def target_file(tmp_path_factory):
     cfg = AnalysisConfig()
     op = inverse_operator(cfg.method, cfg.orientation, cfg.lambda2)
     roi = [r for r in load_atlas("brodmann").rois if (r.name, r.hemisphere) == ("BA17", "right")][0]
-    tg = make_target(kernel=op.kernel, n_comp=op.n_comp, atlas="brodmann", roi="BA17",
-                     hemisphere="right", vertices=roi.vertices, band="alpha",
-                     bands=fingerprint_for(cfg).bands, measure="absolute",
-                     fingerprint=fingerprint_for(cfg), sfreq=SF,
-                     norm={"mean": 0.5, "sd": 0.13, "transform": "log10"}, z=1.0,
-                     offline={"value": 3.0, "z": 1.0})
+    tg = make_target(
+        kernel=op.kernel,
+        n_comp=op.n_comp,
+        atlas="brodmann",
+        roi="BA17",
+        hemisphere="right",
+        vertices=roi.vertices,
+        band="alpha",
+        bands=fingerprint_for(cfg).bands,
+        measure="absolute",
+        fingerprint=fingerprint_for(cfg),
+        sfreq=SF,
+        norm={"mean": 0.5, "sd": 0.13, "transform": "log10"},
+        z=1.0,
+        offline={"value": 3.0, "z": 1.0},
+    )
     d = tmp_path_factory.mktemp("stream")
     return write_target(tg, d / "ba17_alpha.json"), tg
 
@@ -78,8 +90,9 @@ def _recording(path, *, seconds=14.0, seed=0, flat=None, drop=None):
         x = np.delete(x, i, axis=0)
         del labels[i]
     order = np.random.default_rng(1).permutation(len(labels))  # file order != sourcelab order
-    raw = mne.io.RawArray(x[order] * 1e-6, mne.create_info([labels[i] for i in order], SF, "eeg"),
-                          verbose="error")
+    raw = mne.io.RawArray(
+        x[order] * 1e-6, mne.create_info([labels[i] for i in order], SF, "eeg"), verbose="error"
+    )
     raw.save(path, overwrite=True, verbose="error")
     return path
 
@@ -87,8 +100,7 @@ def _recording(path, *, seconds=14.0, seed=0, flat=None, drop=None):
 def _player(fname, name, source_id=None):
     from mne_lsl.player import PlayerLSL
 
-    return PlayerLSL(fname, chunk_size=16, n_repeat=1, name=name,
-                     source_id=source_id or name)
+    return PlayerLSL(fname, chunk_size=16, n_repeat=1, name=name, source_id=source_id or name)
 
 
 def _read_log(path):
@@ -98,6 +110,7 @@ def _read_log(path):
 
 
 # ------------------------------------------------------------------------------ configuration
+
 
 def test_loopback_configuration_is_loaded_and_streams_resolve(tmp_path):
     # The keys are those liblsl's api_config.cpp reads (checked against the liblsl source and
@@ -112,14 +125,17 @@ def test_loopback_configuration_is_loaded_and_streams_resolve(tmp_path):
         assert key in LOOPBACK_CONFIG
     verbose = tmp_path / "lsl_verbose.cfg"
     verbose.write_text(LOOPBACK_CONFIG.replace("level = -1", "level = 0"))
-    code = ("import numpy as np\n"
-            "from mne_lsl.lsl import StreamInfo, StreamOutlet, resolve_streams\n"
-            "o = StreamOutlet(StreamInfo('cfgcheck', 'EEG', 2, 100.0, 'float32', 'cfgcheck'))\n"
-            "s = resolve_streams(timeout=5, name='cfgcheck')\n"
-            "print('RESOLVED', len(s))\n")
+    code = (
+        "import numpy as np\n"
+        "from mne_lsl.lsl import StreamInfo, StreamOutlet, resolve_streams\n"
+        "o = StreamOutlet(StreamInfo('cfgcheck', 'EEG', 2, 100.0, 'float32', 'cfgcheck'))\n"
+        "s = resolve_streams(timeout=5, name='cfgcheck')\n"
+        "print('RESOLVED', len(s))\n"
+    )
     env = dict(os.environ, LSLAPICFG=str(verbose))
-    p = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True,
-                       timeout=60)
+    p = subprocess.run(
+        [sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=60
+    )
     assert "RESOLVED 1" in p.stdout, p.stderr[-2000:]
     assert f"Configuration loaded from {verbose}" in p.stderr
     assert "rolling back to defaults" not in p.stderr
@@ -134,6 +150,7 @@ def test_loopback_configuration_is_loaded_and_streams_resolve(tmp_path):
 
 
 # ------------------------------------------------------------------------------ equality
+
 
 def test_streamed_values_equal_replay_of_the_same_file(tmp_path, target_file, capsys):
     # A file played over LSL (mne-lsl PlayerLSL) through `sourcelab targets stream`: every
@@ -156,8 +173,19 @@ def test_streamed_values_equal_replay_of_the_same_file(tmp_path, target_file, ca
     t0b = local_clock()
     try:
         t = time.perf_counter()
-        rc = main(["targets", "stream", str(path), "--name", name, "--duration", "7",
-                   "--log", str(tmp_path / "stream.tsv")])
+        rc = main(
+            [
+                "targets",
+                "stream",
+                str(path),
+                "--name",
+                name,
+                "--duration",
+                "7",
+                "--log",
+                str(tmp_path / "stream.tsv"),
+            ]
+        )
         took = time.perf_counter() - t
     finally:
         player.stop()
@@ -185,8 +213,9 @@ def test_streamed_values_equal_replay_of_the_same_file(tmp_path, target_file, ca
         b = log[["power", "z", "clean", "smoothed", "smoothed_z"]].to_numpy()[:n]
         same_nan = np.array_equal(np.isnan(a), np.isnan(b))
         ok = np.isfinite(a)
-        err = np.max(np.abs(a[ok] - b[ok]) / np.maximum(np.abs(a[ok]), 1e-12)) if ok.any() \
-            else np.inf
+        err = (
+            np.max(np.abs(a[ok] - b[ok]) / np.maximum(np.abs(a[ok]), 1e-12)) if ok.any() else np.inf
+        )
         if same_nan and (best is None or err < best[1]):
             best = (k, err, int(ref.clean[:n].sum()))
     assert best is not None, "no alignment found"
@@ -205,8 +234,13 @@ def test_bounded_run_by_updates_stops_by_itself(tmp_path, target_file):
     player = _player(fif, name)
     player.start()
     try:
-        s = run_stream(read_target(path), name=name, max_updates=10,
-                       log_path=tmp_path / "s.tsv", say=lambda m: None)
+        s = run_stream(
+            read_target(path),
+            name=name,
+            max_updates=10,
+            log_path=tmp_path / "s.tsv",
+            say=lambda m: None,
+        )
     finally:
         player.stop()
     assert s["rows"] == 10 and len(_read_log(tmp_path / "s.tsv")) == 10
@@ -214,6 +248,7 @@ def test_bounded_run_by_updates_stops_by_itself(tmp_path, target_file):
 
 
 # ------------------------------------------------------------------------------ faults
+
 
 def _run_in_thread(target, **kw):
     from sourcelab.targets.stream import run_stream
@@ -245,8 +280,9 @@ def test_dropped_then_restored_input_is_flagged_and_recovers(tmp_path, target_fi
     time.sleep(0.3)
     # 25 s: liblsl's reconnection of the inlet after the outlet returns took up to ~8 s on a busy
     # machine (measured), then the 2-s warm-up; a shorter run ended before clean values returned
-    th, box, msgs = _run_in_thread(read_target(path), name=name, duration_s=25.0,
-                                   log_path=tmp_path / "s.tsv")
+    th, box, msgs = _run_in_thread(
+        read_target(path), name=name, duration_s=25.0, log_path=tmp_path / "s.tsv"
+    )
     time.sleep(5.0)  # past the 2-s warm-up with room for a slow start on a busy machine
     p1.stop()
     time.sleep(1.5)
@@ -261,7 +297,7 @@ def test_dropped_then_restored_input_is_flagged_and_recovers(tmp_path, target_fi
     assert dropped.any() and log.loc[dropped, "power"].isna().all()
     assert (log.loc[dropped, "clean"] == 0).all()
     first_drop = np.flatnonzero(dropped)[0]
-    after = log.iloc[np.flatnonzero(dropped)[-1] + 1:]
+    after = log.iloc[np.flatnonzero(dropped)[-1] + 1 :]
     assert (after["clean"] == 1).any(), "no clean value after the stream came back"
     assert (log.iloc[:first_drop]["clean"] == 1).any()
     assert any("dropped" in m for m in msgs) and any("back after" in m for m in msgs)
@@ -279,8 +315,13 @@ def test_flat_channel_is_flagged_with_a_one_line_message(tmp_path, target_file):
     player.start()
     msgs = []
     try:
-        s = run_stream(read_target(path), name=name, max_updates=14, say=msgs.append,
-                       log_path=tmp_path / "s.tsv")
+        s = run_stream(
+            read_target(path),
+            name=name,
+            max_updates=14,
+            say=msgs.append,
+            log_path=tmp_path / "s.tsv",
+        )
     finally:
         player.stop()
     log = _read_log(tmp_path / "s.tsv")
@@ -333,15 +374,20 @@ def test_wrong_rate_is_flagged(tmp_path, target_file):
     def push():
         i = 0
         while not stop.is_set() and i + 10 <= x.shape[1]:
-            outlet.push_chunk(np.ascontiguousarray(x[:, i:i + 10].T))
+            outlet.push_chunk(np.ascontiguousarray(x[:, i : i + 10].T))
             i += 10
             time.sleep(0.05)
 
     pusher = threading.Thread(target=push, daemon=True)
     pusher.start()
     try:
-        th, box, msgs = _run_in_thread(read_target(path), name=name, duration_s=7.0,
-                                       drop_after_s=1.0, log_path=tmp_path / "s.tsv")
+        th, box, msgs = _run_in_thread(
+            read_target(path),
+            name=name,
+            duration_s=7.0,
+            drop_after_s=1.0,
+            log_path=tmp_path / "s.tsv",
+        )
         th.join(timeout=20)
     finally:
         stop.set()

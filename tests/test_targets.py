@@ -13,17 +13,30 @@ from sourcelab.inverse.sloreta import SourceOperator, source_power
 from sourcelab.provenance import Fingerprint
 from sourcelab.simulate import pink_noise
 from sourcelab.spectra import epoch_cross_spectra
-from sourcelab.targets import (OnlineTarget, candidates_html, expected_ratio, make_target,
-                               rank_candidates, read_target, replay_array,
-                               target_from_dict, write_candidates, write_target)
+from sourcelab.targets import (
+    OnlineTarget,
+    candidates_html,
+    expected_ratio,
+    make_target,
+    rank_candidates,
+    read_target,
+    replay_array,
+    target_from_dict,
+    write_candidates,
+    write_target,
+)
 from sourcelab.headmodel.geometry import mesh_edges
 from sourcelab.targets.candidates import network_members, roi_adjacency
 
 SF = 256.0
 BANDS = Bands()
-FP = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
-                 lambda2=1 / 9, bands=tuple((n, lo, hi) for n, (lo, hi) in
-                                            zip(BANDS.names, BANDS.edges)))
+FP = Fingerprint(
+    headmodel_sha256="0" * 64,
+    method="sLORETA",
+    orientation="fixed",
+    lambda2=1 / 9,
+    bands=tuple((n, lo, hi) for n, (lo, hi) in zip(BANDS.names, BANDS.edges)),
+)
 
 
 @pytest.fixture(scope="module")
@@ -52,10 +65,22 @@ def sampling_tolerance(lo: float, hi: float, seconds: float, *, psd=None, f=None
 
 
 def _target(kernel, band="alpha", measure="absolute", verts=np.arange(60), **kw):
-    return make_target(kernel=kernel, n_comp=kw.pop("n_comp", 1), atlas="brodmann", roi="BA17",
-                       hemisphere="right", sources=verts, vertices=verts, band=band,
-                       bands=FP.bands,
-                       measure=measure, fingerprint=FP, sfreq=SF, reject_uv=1e9, **kw)
+    return make_target(
+        kernel=kernel,
+        n_comp=kw.pop("n_comp", 1),
+        atlas="brodmann",
+        roi="BA17",
+        hemisphere="right",
+        sources=verts,
+        vertices=verts,
+        band=band,
+        bands=FP.bands,
+        measure=measure,
+        fingerprint=FP,
+        sfreq=SF,
+        reject_uv=1e9,
+        **kw,
+    )
 
 
 def _offline(x, target):
@@ -68,14 +93,18 @@ def _offline(x, target):
 
 # ---------------------------------------------------------------- spatial filter (known answer)
 
+
 @pytest.mark.parametrize("n_comp", [1, 3])
 def test_roi_matrix_equals_mean_source_power(rng, n_comp):
     # Two routes must agree (as MNE's test_apply_inverse_cov): tr(M C) vs the mean over the ROI of
     # sourcelab's per-source power Σ_rows diag(K C Kᵀ).
     n_src = 40
-    op = SourceOperator(kernel=rng.standard_normal((n_src * n_comp, 19)),
-                        orientation="fixed" if n_comp == 1 else "free", lambda2=1 / 9,
-                        n_src=n_src)
+    op = SourceOperator(
+        kernel=rng.standard_normal((n_src * n_comp, 19)),
+        orientation="fixed" if n_comp == 1 else "free",
+        lambda2=1 / 9,
+        n_src=n_src,
+    )
     a = rng.standard_normal((19, 50))
     c = a @ a.T
     verts = np.array([1, 5, 7, 30])
@@ -85,9 +114,20 @@ def test_roi_matrix_equals_mean_source_power(rng, n_comp):
     rows = roi_rows(op, verts)
     np.testing.assert_allclose(np.trace(m @ c), source_power(op, c)[verts].mean(), rtol=1e-12)
     assert rows.shape == (verts.size * n_comp, 19)
-    target = make_target(kernel=op.kernel, n_comp=n_comp, atlas="t", roi="r", hemisphere="left",
-                         sources=verts, vertices=verts, band="alpha", bands=FP.bands,
-                         measure="absolute", fingerprint=FP, sfreq=SF)
+    target = make_target(
+        kernel=op.kernel,
+        n_comp=n_comp,
+        atlas="t",
+        roi="r",
+        hemisphere="left",
+        sources=verts,
+        vertices=verts,
+        band="alpha",
+        bands=FP.bands,
+        measure="absolute",
+        fingerprint=FP,
+        sfreq=SF,
+    )
     np.testing.assert_allclose(target.matrix, m, rtol=1e-12)
 
 
@@ -112,10 +152,11 @@ def test_sine_in_band_gives_half_amplitude_squared():
 
 # ---------------------------------------------------------------- replay: causality, streaming
 
+
 def test_replay_is_causal(pink_data):
     # Changing the future must not change any window that ends before the change.
     x, k = pink_data
-    x = x[:, :int(20 * SF)]
+    x = x[:, : int(20 * SF)]
     tg = _target(k)
     a = replay_array(x, SF, tg)
     y = x.copy()
@@ -130,14 +171,14 @@ def test_replay_is_causal(pink_data):
 def test_streaming_equals_batch(pink_data, rng):
     # Feeding irregular chunks (as an amplifier would) gives the same numbers as one array.
     x, k = pink_data
-    x = x[:, :int(15 * SF)]
+    x = x[:, : int(15 * SF)]
     tg = _target(k, measure="relative")
     ref = replay_array(x, SF, tg)
     online = OnlineTarget(tg, SF)
     rows, start = [], 0
     while start < x.shape[1]:
         n = int(rng.integers(1, 200))
-        rows += online.push(x[:, start:start + n])
+        rows += online.push(x[:, start : start + n])
         start += n
     power = np.array([r[1] for r in rows])
     np.testing.assert_allclose(power, ref.power, rtol=1e-10, equal_nan=True)
@@ -147,15 +188,17 @@ def test_relative_replay_equals_ratio_of_absolute_replays(pink_data):
     # For a one-source ROI, relative power is absolute band power over the sum across bands:
     # the relative replay must equal that ratio of absolute replays, window by window.
     x, k = pink_data
-    x = x[:, :int(20 * SF)]
+    x = x[:, : int(20 * SF)]
     v = np.array([17])
     rel = replay_array(x, SF, _target(k, band="theta", measure="relative", verts=v))
-    absolute = np.array([replay_array(x, SF, _target(k, band=b, verts=v)).power
-                         for b in BANDS.names])
+    absolute = np.array(
+        [replay_array(x, SF, _target(k, band=b, verts=v)).power for b in BANDS.names]
+    )
     np.testing.assert_allclose(rel.power, absolute[1] / absolute.sum(axis=0), rtol=1e-10)
 
 
 # ---------------------------------------------------------------- replay vs offline analysis
+
 
 @pytest.mark.parametrize("band", BANDS.names)
 def test_replay_mean_agrees_with_offline_welch(pink_data, band):
@@ -182,6 +225,7 @@ def test_replay_mean_agrees_with_offline_welch(pink_data, band):
 
 
 # ---------------------------------------------------------------- the file
+
 
 def test_json_round_trip_is_exact(tmp_path, pink_data):
     x, k = pink_data
@@ -211,8 +255,7 @@ def test_load_rejects_wrong_schema_channels_and_fingerprint(tmp_path, pink_data)
     cases = {
         "schema": ({**d, "schema": "other/1"}, "schema"),
         "channels": ({**d, "channels": list(reversed(SITES_1020))}, "channels"),
-        "matrix": ({**d, "spatial_filter": {**d["spatial_filter"], "matrix": [[1.0]]}},
-                   "matrix"),
+        "matrix": ({**d, "spatial_filter": {**d["spatial_filter"], "matrix": [[1.0]]}}, "matrix"),
     }
     for name, (bad, word) in cases.items():
         p = tmp_path / f"{name}.json"
@@ -238,36 +281,87 @@ def test_norm_at_age_reproduces_apply_norms(tmp_path):
 
     rows = []
     ages = np.linspace(5.0, 90.0, 40)
-    for i, (lo, hi, model, deg, coef) in enumerate([(5.0, 20.0, "binned", 0, (0.9, 0, 0, 0)),
-                                                    (20.0, 90.0, "regression", 2,
-                                                     (0.4, 0.8, -0.3, 0))]):
-        rows.append(dict(kind="roi", atlas="brodmann", name="BA17", hemisphere="right",
-                         band="alpha", measure="absolute", age_min=lo, age_max=hi, model=model,
-                         degree=deg, transform="log10", b0=coef[0], b1=coef[1], b2=coef[2],
-                         b3=coef[3], sd=0.25, n=40, df=40 - deg - 1,
-                         **dict(zip(V_COLUMNS, pack_v(xtx_inverse(ages, deg))))))
+    for i, (lo, hi, model, deg, coef) in enumerate(
+        [
+            (5.0, 20.0, "binned", 0, (0.9, 0, 0, 0)),
+            (20.0, 90.0, "regression", 2, (0.4, 0.8, -0.3, 0)),
+        ]
+    ):
+        rows.append(
+            dict(
+                kind="roi",
+                atlas="brodmann",
+                name="BA17",
+                hemisphere="right",
+                band="alpha",
+                measure="absolute",
+                age_min=lo,
+                age_max=hi,
+                model=model,
+                degree=deg,
+                transform="log10",
+                b0=coef[0],
+                b1=coef[1],
+                b2=coef[2],
+                b3=coef[3],
+                sd=0.25,
+                n=40,
+                df=40 - deg - 1,
+                **dict(zip(V_COLUMNS, pack_v(xtx_inverse(ages, deg)))),
+            )
+        )
     norms = Norms(table=pd.DataFrame(rows), fingerprint=FP, condition="eyes closed")
-    table = pd.DataFrame([dict(atlas="brodmann", roi="BA17", hemisphere="right", band="alpha",
-                               measure="absolute", value=7.3, z=np.nan)])
+    table = pd.DataFrame(
+        [
+            dict(
+                atlas="brodmann",
+                roi="BA17",
+                hemisphere="right",
+                band="alpha",
+                measure="absolute",
+                value=7.3,
+                z=np.nan,
+            )
+        ]
+    )
     for age in (12.0, 20.0, 47.0):
         z = apply_norms(table, norms, age=age, fingerprint=FP, condition="eyes closed")["z"][0]
-        nm = norm_at_age(norms, atlas="brodmann", roi="BA17", hemisphere="right", band="alpha",
-                         measure="absolute", age=age, fingerprint=FP,
-                         condition="eyes closed")
+        nm = norm_at_age(
+            norms,
+            atlas="brodmann",
+            roi="BA17",
+            hemisphere="right",
+            band="alpha",
+            measure="absolute",
+            age=age,
+            fingerprint=FP,
+            condition="eyes closed",
+        )
         np.testing.assert_allclose((np.log10(7.3) - nm["mean"]) / nm["sd"], z, rtol=1e-12)
     with pytest.raises(InputError, match="outside"):
-        norm_at_age(norms, atlas="brodmann", roi="BA17", hemisphere="right", band="alpha",
-                    measure="absolute", age=95.0, fingerprint=FP)
+        norm_at_age(
+            norms,
+            atlas="brodmann",
+            roi="BA17",
+            hemisphere="right",
+            band="alpha",
+            measure="absolute",
+            age=95.0,
+            fingerprint=FP,
+        )
 
 
 # ---------------------------------------------------------------- candidates
+
 
 def _toy_atlases():
     """Four ROIs on a line of 'sources' 0..39, 20 mm apart, and one network over ROIs 0-1."""
     from sourcelab.rois.atlas import ROI, Atlas
 
-    rois = tuple(ROI(f"A{i}", "left", np.arange(10 * i, 10 * i + 10), (20.0 * i, 0.0, 0.0),
-                     small=i == 3) for i in range(4))
+    rois = tuple(
+        ROI(f"A{i}", "left", np.arange(10 * i, 10 * i + 10), (20.0 * i, 0.0, 0.0), small=i == 3)
+        for i in range(4)
+    )
     net = Atlas("networks", "", "", (ROI("net", "left", np.arange(0, 20), (10.0, 0, 0)),))
     return {"brodmann": Atlas("brodmann", "", "", rois), "networks": net}
 
@@ -276,25 +370,55 @@ def _toy_table():
     rows = []
     zs = {"A0": 3.1, "A1": 2.2, "A2": -0.3, "A3": -4.0}
     for name, z in zs.items():
-        rows.append(dict(atlas="brodmann", roi=name, hemisphere="left", band="alpha",
-                         measure="absolute", value=1.0, z=z, fdr=abs(z) > 3, n_vertices=10,
-                         small=name == "A3"))
-    rows.append(dict(atlas="networks", roi="net", hemisphere="left", band="alpha",
-                     measure="absolute", value=1.0, z=2.5, fdr=False, n_vertices=20,
-                     small=False))
+        rows.append(
+            dict(
+                atlas="brodmann",
+                roi=name,
+                hemisphere="left",
+                band="alpha",
+                measure="absolute",
+                value=1.0,
+                z=z,
+                fdr=abs(z) > 3,
+                n_vertices=10,
+                small=name == "A3",
+            )
+        )
+    rows.append(
+        dict(
+            atlas="networks",
+            roi="net",
+            hemisphere="left",
+            band="alpha",
+            measure="absolute",
+            value=1.0,
+            z=2.5,
+            fdr=False,
+            n_vertices=20,
+            small=False,
+        )
+    )
     return pd.DataFrame(rows)
 
 
 def test_candidates_rank_neighbours_and_members(tmp_path):
     # Constructed answer: FDR rows first by |z| (A3 -4.0, A0 3.1), then the rest by |z|.
     c = rank_candidates(_toy_table(), atlases=_toy_atlases())
-    assert list(zip(c.roi, c.kind)) == [("A3", "roi"), ("A0", "roi"), ("net", "network"),
-                                        ("A1", "roi")]
+    assert list(zip(c.roi, c.kind)) == [
+        ("A3", "roi"),
+        ("A0", "roi"),
+        ("net", "network"),
+        ("A1", "roi"),
+    ]
     assert list(c["rank"]) == [1, 2, 3, 4]
     a0 = c[c.roi == "A0"].iloc[0]
     # A0's neighbours within 35 mm: A1 (20 mm) deviating the same way; A2 (40 mm) is not one.
     assert (a0.direction, a0.neighbours_same, a0.n_neighbours, a0.neighbours) == (
-        "above norm", 1, 1, "A1-left")
+        "above norm",
+        1,
+        1,
+        "A1-left",
+    )
     a3 = c[c.roi == "A3"].iloc[0]
     assert a3.direction == "below norm" and a3.neighbours_same == 0 and a3.small
     net = c[c.kind == "network"].iloc[0]
@@ -346,6 +470,7 @@ def test_candidates_html_escapes_and_cautions():
 
 # ---------------------------------------------------------------- CLI parser
 
+
 def test_cli_parser_actions():
     import argparse
 
@@ -353,16 +478,31 @@ def test_cli_parser_actions():
 
     p = argparse.ArgumentParser()
     cli.add_parser(p.add_subparsers(dest="command"))
-    a = p.parse_args(["targets", "export", "res", "--roi", "BA17", "--band", "alpha",
-                      "--hemisphere", "right", "--out", "t.json"])
+    a = p.parse_args(
+        [
+            "targets",
+            "export",
+            "res",
+            "--roi",
+            "BA17",
+            "--band",
+            "alpha",
+            "--hemisphere",
+            "right",
+            "--out",
+            "t.json",
+        ]
+    )
     # --measure and --atlas default per target kind (ROI: absolute, brodmann)
     assert (a.targets_cmd, a.roi, a.measure, a.atlas) == ("export", "BA17", None, None)
-    a = p.parse_args(["targets", "list", "res", "--max", "5", "--atlas", "brodmann",
-                      "--atlas", "networks"])
+    a = p.parse_args(
+        ["targets", "list", "res", "--max", "5", "--atlas", "brodmann", "--atlas", "networks"]
+    )
     assert a.max_n == 5 and a.atlas == ["brodmann", "networks"]
 
 
 # ---------------------------------------------------------------- integration (head model, atlases)
+
 
 @pytest.fixture(scope="module")
 def analysed(tmp_path_factory):
@@ -376,8 +516,15 @@ def analysed(tmp_path_factory):
 
     rng = np.random.default_rng(11)
     gen = Generator((14.0, -95.0, 2.0), "right", freq=10.0, amplitude=1.5, radius_mm=12.0)
-    raw = simulate_raw(load_head_model(), duration_s=120.0, sfreq=SF, generators=(gen,),
-                       rng=rng, background_uv=10.0, sensor_noise_uv=1.0)
+    raw = simulate_raw(
+        load_head_model(),
+        duration_s=120.0,
+        sfreq=SF,
+        generators=(gen,),
+        rng=rng,
+        background_uv=10.0,
+        sensor_noise_uv=1.0,
+    )
     d = tmp_path_factory.mktemp("targets")
     edf = d / "occipital_alpha.edf"
     mne.export.export_raw(edf, raw, fmt="edf", verbose="error")
@@ -403,15 +550,18 @@ def test_export_and_replay_agree_with_offline_analysis(analysed):
     at = load_atlas("brodmann")
     i = [j for j, r in enumerate(at.rois) if (r.name, r.hemisphere) == ("BA17", "right")][0]
     op = inverse_operator("sLORETA", "fixed", 1 / 9)
-    np.testing.assert_allclose(tg.matrix, roi_power_matrices(op, at.vertex_sets())[i],
-                               rtol=1e-12)
+    np.testing.assert_allclose(tg.matrix, roi_power_matrices(op, at.vertex_sets())[i], rtol=1e-12)
     s = replay_recording(tg, edf, d / "replay")
     assert (d / "replay" / "replay.tsv").is_file() and (d / "replay" / "replay.png").is_file()
     raw = __import__("mne").io.read_raw_edf(edf, preload=True, verbose="error")
     x = raw.get_data() * 1e6
     dd, v = np.linalg.eigh(tg.matrix)
-    f, p = welch((np.sqrt(np.clip(dd, 0, None))[:, None] * v.T) @ x, fs=SF,
-                 nperseg=int(16 * SF), detrend=False)
+    f, p = welch(
+        (np.sqrt(np.clip(dd, 0, None))[:, None] * v.T) @ x,
+        fs=SF,
+        nperseg=int(16 * SF),
+        detrend=False,
+    )
     lo, hi = tg.band_edges
     exp = expected_ratio(p.sum(axis=0), f, tg.sos["alpha"], lo, hi, sfreq=SF, epoch_s=2.0)
     ratio = s["ratio_to_offline"]
@@ -431,16 +581,50 @@ def test_cli_export_replay_and_list_without_norms(analysed, capsys):
     p = argparse.ArgumentParser()
     cli.add_parser(p.add_subparsers(dest="command"))
     out = d / "cli_t.json"
-    assert cli.run(p.parse_args(["targets", "export", str(d / "result"), "--roi", "BA17",
-                                 "--hemisphere", "right", "--band", "alpha", "--out",
-                                 str(out)])) == 0
+    assert (
+        cli.run(
+            p.parse_args(
+                [
+                    "targets",
+                    "export",
+                    str(d / "result"),
+                    "--roi",
+                    "BA17",
+                    "--hemisphere",
+                    "right",
+                    "--band",
+                    "alpha",
+                    "--out",
+                    str(out),
+                ]
+            )
+        )
+        == 0
+    )
     assert json.loads(out.read_text())["schema"] == "sourcelab-target/1"
-    assert cli.run(p.parse_args(["targets", "replay", str(out), str(edf), "--out",
-                                 str(d / "cli_replay")])) == 0
+    assert (
+        cli.run(
+            p.parse_args(["targets", "replay", str(out), str(edf), "--out", str(d / "cli_replay")])
+        )
+        == 0
+    )
     assert "windows clean" in capsys.readouterr().out
     # an analysis without norms has no z: listing candidates is a user error naming the fix
     with pytest.raises(InputError, match="norms"):
         cli.run(p.parse_args(["targets", "list", str(d / "result")]))
     with pytest.raises(InputError, match="hemisphere"):
-        cli.run(p.parse_args(["targets", "export", str(d / "result"), "--roi", "BA17",
-                              "--band", "alpha", "--out", str(out)]))
+        cli.run(
+            p.parse_args(
+                [
+                    "targets",
+                    "export",
+                    str(d / "result"),
+                    "--roi",
+                    "BA17",
+                    "--band",
+                    "alpha",
+                    "--out",
+                    str(out),
+                ]
+            )
+        )

@@ -20,23 +20,31 @@ def test_absolute_before_relative_and_unresolvable_left_out():
     sp = cortex_space()
     code = {sp.label(c): c for c in range(1, len(sp.names))}
     ba9 = np.flatnonzero(sp.codes == code["BA9 left"])
-    src = ba9[np.argmax(sp.border_mm[ba9])]                   # deep inside BA9 left
+    src = ba9[np.argmax(sp.border_mm[ba9])]  # deep inside BA9 left
     ba24 = np.flatnonzero(sp.codes == code["BA24 right"])
     deep = ba24[np.argmax(sp.border_mm[ba24])]
     zero = np.zeros(sp.n_src)
-    zmaps = {("absolute", "theta"): _bump(sp, src, 4.0) + _bump(sp, deep, 6.0, 4.0),
-             ("relative", "theta"): -_bump(sp, src, 9.0), ("absolute", "alpha"): zero}
+    zmaps = {
+        ("absolute", "theta"): _bump(sp, src, 4.0) + _bump(sp, deep, 6.0, 4.0),
+        ("relative", "theta"): -_bump(sp, src, 9.0),
+        ("absolute", "alpha"): zero,
+    }
     own = own_shares(sp)
     c = peak_candidates(zmaps, sp, own=own, exclude=[code["BA24 right"], code["BA24 left"]])
-    assert (c.iloc[0].measure, c.iloc[0].band, c.iloc[0].area, c.iloc[0].hemisphere) == \
-        ("absolute", "theta", "BA9", "left")
+    assert (c.iloc[0].measure, c.iloc[0].band, c.iloc[0].area, c.iloc[0].hemisphere) == (
+        "absolute",
+        "theta",
+        "BA9",
+        "left",
+    )
     assert c.iloc[0].source == src and c.iloc[0].direction == "above norm"
-    assert (c["measure"] == "absolute").to_numpy().argmin() > 0          # absolute block first
+    assert (c["measure"] == "absolute").to_numpy().argmin() > 0  # absolute block first
     rel = c[c.measure == "relative"]
     assert len(rel) and (rel.role == "supporting").all() and (rel.peak_z < 0).all()
     assert "BA24" not in set(c.area)
     assert 0 < c.iloc[0].probability < 1 and c.iloc[0].own_share == own[code["BA9 left"]]
-    c2 = peak_candidates(zmaps, sp, own=own, exclude=[code["BA24 right"]],
-                         include_unresolvable=True)
+    c2 = peak_candidates(
+        zmaps, sp, own=own, exclude=[code["BA24 right"]], include_unresolvable=True
+    )
     row = c2[(c2.area == "BA24") & (c2.hemisphere == "right")]
     assert len(row) == 1 and not row.iloc[0].resolvable and row.iloc[0]["rank"] == 1

@@ -7,8 +7,15 @@ import pytest
 from sourcelab.errors import InputError
 from sourcelab.inverse.sloreta import sloreta_operator, source_power
 from sourcelab.spectra import average_reference, relative_power, sensor_band_power
-from sourcelab.trust import (add_intervals, add_sensor_intervals, bootstrap_weights,
-                             percentile_interval, robust_flags, roi_bootstrap, z_interval)
+from sourcelab.trust import (
+    add_intervals,
+    add_sensor_intervals,
+    bootstrap_weights,
+    percentile_interval,
+    robust_flags,
+    roi_bootstrap,
+    z_interval,
+)
 from sourcelab.simulate.sphere import patch_atlas, sphere_head
 
 BANDS = ("delta", "theta", "alpha")
@@ -18,9 +25,12 @@ BANDS = ("delta", "theta", "alpha")
 def small():
     head = sphere_head(300)
     atlas = patch_atlas(head, 12)
-    ops = {o: sloreta_operator(head.gain, lambda2=1 / 9, orientation=o,
-                             normals=head.src_nn if o == "fixed" else None)
-           for o in ("fixed", "free")}
+    ops = {
+        o: sloreta_operator(
+            head.gain, lambda2=1 / 9, orientation=o, normals=head.src_nn if o == "fixed" else None
+        )
+        for o in ("fixed", "free")
+    }
     return head, atlas, ops
 
 
@@ -40,7 +50,7 @@ def _true_csd(head, rng, n_bands=len(BANDS)):
 
 def _epochs(sigma, n_ep, rng, dof=6, common_mode=0.0):
     """Per-epoch real Wishart cross-spectra with mean ``sigma`` (dof = 2 x frequency bins)."""
-    chol = np.linalg.cholesky(sigma)                             # (n_bands, n_ch, n_ch)
+    chol = np.linalg.cholesky(sigma)  # (n_bands, n_ch, n_ch)
     z = rng.standard_normal((n_ep, sigma.shape[0], sigma.shape[1], dof))
     x = np.einsum("bcd,ebdt->ebct", chol, z)
     if common_mode:
@@ -51,8 +61,10 @@ def _epochs(sigma, n_ep, rng, dof=6, common_mode=0.0):
 def _roi_values(op, csd, atlas):
     p = source_power(op, csd)
     r = relative_power(p)
-    return (np.stack([p[:, roi.vertices].mean(1) for roi in atlas.rois], 1),
-            np.stack([r[:, roi.vertices].mean(1) for roi in atlas.rois], 1))
+    return (
+        np.stack([p[:, roi.vertices].mean(1) for roi in atlas.rois], 1),
+        np.stack([r[:, roi.vertices].mean(1) for roi in atlas.rois], 1),
+    )
 
 
 def _table(atlas, absolute, relative):
@@ -60,8 +72,17 @@ def _table(atlas, absolute, relative):
     for measure, vals in (("absolute", absolute), ("relative", relative)):
         for b, band in enumerate(BANDS):
             for r, roi in enumerate(atlas.rois):
-                rows.append(dict(atlas=atlas.name, roi=roi.name, hemisphere=roi.hemisphere,
-                                 band=band, measure=measure, value=vals[b, r], z=np.nan))
+                rows.append(
+                    dict(
+                        atlas=atlas.name,
+                        roi=roi.name,
+                        hemisphere=roi.hemisphere,
+                        band=band,
+                        measure=measure,
+                        value=vals[b, r],
+                        z=np.nan,
+                    )
+                )
     return pd.DataFrame(rows)
 
 
@@ -108,7 +129,7 @@ def test_broadband_total_replicates_equal_explicit_resampling(small, rng, orient
     op = ops[orientation]
     n_ep = 30
     csd = _epochs(_true_csd(head, rng, n_bands=4), n_ep, rng, common_mode=50.0)
-    bands, total = csd[:, :3], csd[:, 3]                    # last one plays the 1-45 Hz total
+    bands, total = csd[:, :3], csd[:, 3]  # last one plays the 1-45 Hz total
     w = bootstrap_weights(n_ep, n_boot=10, seed=5)
     s = roi_bootstrap(bands, op, [r.vertices for r in atlas.rois], w, epoch_total=total)
     sb = sensor_bootstrap(bands, w, epoch_total=total)
@@ -118,11 +139,14 @@ def test_broadband_total_replicates_equal_explicit_resampling(small, rng, orient
         rel = relative_power(p, source_power(op, total[idx].mean(0)))
         want = np.stack([rel[:, roi.vertices].mean(1) for roi in atlas.rois], 1)
         np.testing.assert_allclose(s["relative"][i], want, rtol=1e-5)
-        np.testing.assert_allclose(s["absolute"][i],
-                                   np.stack([p[:, r.vertices].mean(1) for r in atlas.rois], 1),
-                                   rtol=1e-10)
-        _, srel = sensor_band_power(average_reference(bands[idx].mean(0)),
-                                    average_reference(total[idx].mean(0)))
+        np.testing.assert_allclose(
+            s["absolute"][i],
+            np.stack([p[:, r.vertices].mean(1) for r in atlas.rois], 1),
+            rtol=1e-10,
+        )
+        _, srel = sensor_band_power(
+            average_reference(bands[idx].mean(0)), average_reference(total[idx].mean(0))
+        )
         np.testing.assert_allclose(sb["relative"][i], srel, rtol=1e-10)
 
 
@@ -159,7 +183,7 @@ def test_coverage_of_95_percent_intervals(small):
             lo, hi = percentile_interval(s[m], ci=0.95)
             hits[m].append((lo <= truth) & (truth <= hi))
     for m, h in hits.items():
-        h = np.array(h)                                  # (n_rec, n_bands, n_rois)
+        h = np.array(h)  # (n_rec, n_bands, n_rois)
         cov = h.mean()
         print(f"coverage {m}: {cov:.3f} (per ROI/band {h.mean(0).min():.3f}-{h.mean(0).max():.3f})")
         assert 0.90 <= cov <= 0.99, (m, cov)
@@ -178,11 +202,14 @@ def test_add_intervals_columns_order_and_z(small, rng):
     from sourcelab.norms import NormRows
 
     is_abs = (table["measure"] == "absolute").to_numpy()
-    rows = NormRows(mean=np.where(is_abs, mean["absolute"], mean["relative"]),
-                    sd=np.where(is_abs, sd["absolute"], sd["relative"]),
-                    transform=np.where(is_abs, "log10", "logit").astype(object),
-                    n=np.full(len(table), 50), has=np.ones(len(table), bool),
-                    extrapolated=np.zeros(len(table), bool))
+    rows = NormRows(
+        mean=np.where(is_abs, mean["absolute"], mean["relative"]),
+        sd=np.where(is_abs, sd["absolute"], sd["relative"]),
+        transform=np.where(is_abs, "log10", "logit").astype(object),
+        n=np.full(len(table), 50),
+        has=np.ones(len(table), bool),
+        extrapolated=np.zeros(len(table), bool),
+    )
     v = table["value"].to_numpy(float)
     r = v[~is_abs]
     z = np.empty(v.shape)
@@ -190,8 +217,9 @@ def test_add_intervals_columns_order_and_z(small, rng):
     z[~is_abs] = (np.log(r) - np.log1p(-r) - mean["relative"]) / sd["relative"]
     np.testing.assert_allclose(rows.z(v), z, rtol=1e-12)
     table["z"] = z
-    out = add_intervals(table, csd, op, [atlas], n_boot=401, seed=5, norm_rows=rows,
-                        band_names=BANDS)
+    out = add_intervals(
+        table, csd, op, [atlas], n_boot=401, seed=5, norm_rows=rows, band_names=BANDS
+    )
     assert list(out.index) == list(table.index)
     assert list(out.columns[-5:]) == ["value_lo", "value_hi", "z_lo", "z_hi", "robust"]
     assert (out.value_lo < out.value_hi).all() and (out.z_lo < out.z_hi).all()
@@ -207,8 +235,9 @@ def test_add_intervals_columns_order_and_z(small, rng):
     np.testing.assert_allclose(a.z_hi, zh, rtol=1e-12)
     # ...and equals the percentile interval of the bootstrapped z itself: with 401 replicates the
     # 2.5 / 97.5 % quantiles are order statistics, so the equality is exact.
-    s = roi_bootstrap(csd, op, [r.vertices for r in atlas.rois],
-                      bootstrap_weights(50, n_boot=401, seed=5))
+    s = roi_bootstrap(
+        csd, op, [r.vertices for r in atlas.rois], bootstrap_weights(50, n_boot=401, seed=5)
+    )
     zs = (np.log10(s["absolute"]) - mean["absolute"]) / sd["absolute"]
     lo, hi = percentile_interval(zs)
     first = a.iloc[0]
@@ -237,14 +266,17 @@ def test_sensor_intervals(rng, small):
     csd = _epochs(sigma, 80, rng, common_mode=20.0)
     ch = [f"E{i}" for i in range(19)]
     ab, rel = sensor_band_power(average_reference(csd.mean(0)))
-    rows = [dict(channel=c, band=b, measure=m, value=v[i, j], z=np.nan)
-            for m, v in (("absolute", ab), ("relative", rel))
-            for i, b in enumerate(BANDS) for j, c in enumerate(ch)]
+    rows = [
+        dict(channel=c, band=b, measure=m, value=v[i, j], z=np.nan)
+        for m, v in (("absolute", ab), ("relative", rel))
+        for i, b in enumerate(BANDS)
+        for j, c in enumerate(ch)
+    ]
     table = pd.DataFrame(rows)
     out = add_sensor_intervals(table, csd, ch_names=ch, n_boot=300, seed=0)
     inside = (out.value_lo <= out.value) & (out.value <= out.value_hi)
     assert inside.all()
-    assert out.z_lo.isna().all() and out.robust.isna().all()   # no norms: no z interval
+    assert out.z_lo.isna().all() and out.robust.isna().all()  # no norms: no z interval
     # relative width is about 2 x 1.96 x SD/sqrt(n) of a chi-square mean (common practice)
     width = (out.value_hi - out.value_lo) / out.value
     assert 0.1 < width[out.measure == "absolute"].median() < 0.8
@@ -271,8 +303,9 @@ def test_real_head_model_intervals(head_model, rng):
     from sourcelab.inverse import roi_power_matrices
     from sourcelab.rois import load_atlas
 
-    op = sloreta_operator(head_model.gain, lambda2=1 / 9, orientation="fixed",
-                        normals=head_model.src_nn)
+    op = sloreta_operator(
+        head_model.gain, lambda2=1 / 9, orientation="fixed", normals=head_model.src_nn
+    )
     atlas = load_atlas("brodmann")
     a = rng.standard_normal((len(BANDS), 19, 19))
     sigma = np.einsum("bij,bkj->bik", a, a) + 0.1 * np.eye(19)
@@ -296,8 +329,13 @@ def test_matched_norm_rows_give_apply_norms_z():
     from sourcelab.provenance import Fingerprint
     from sourcelab.simulate import gaussian_cohort
 
-    fp = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
-                     lambda2=1 / 9, bands=DEFAULT_BANDS)
+    fp = Fingerprint(
+        headmodel_sha256="0" * 64,
+        method="sLORETA",
+        orientation="fixed",
+        lambda2=1 / 9,
+        bands=DEFAULT_BANDS,
+    )
     coh = gaussian_cohort(40, rng=np.random.default_rng(1))
     nm = norms_from_tables(coh.entries, fingerprint=fp, condition="eyes closed", degree=1)
     roi, _ = coh.tables_at(30.0, np.zeros(len(coh.keys)))
@@ -307,8 +345,9 @@ def test_matched_norm_rows_give_apply_norms_z():
     np.testing.assert_allclose(z, apply_norms(roi, nm, kind="roi", **opts)["z"], rtol=1e-12)
     ab = (roi.measure == "absolute").to_numpy()
     z10 = rows.z(np.where(ab, roi.value * 10, roi.value))
-    keys = nm.table[(nm.table.kind == "roi")].set_index(["name", "hemisphere", "band",
-                                                         "measure"])["sd"]
+    keys = nm.table[(nm.table.kind == "roi")].set_index(["name", "hemisphere", "band", "measure"])[
+        "sd"
+    ]
     sd = np.array([keys[(r.roi, r.hemisphere, r.band, r.measure)] for r in roi.itertuples()])
     np.testing.assert_allclose((z10 - z)[ab], 1.0 / sd[ab], rtol=1e-10)
     np.testing.assert_allclose((z10 - z)[~ab], 0.0, atol=1e-12)
@@ -322,8 +361,9 @@ def test_coverage_real_head_model_full_size(head_model):
     # through the real leadfield plus sensor noise.
     from sourcelab.rois import load_atlas
 
-    op = sloreta_operator(head_model.gain, lambda2=1 / 9, orientation="fixed",
-                        normals=head_model.src_nn)
+    op = sloreta_operator(
+        head_model.gain, lambda2=1 / 9, orientation="fixed", normals=head_model.src_nn
+    )
     atlas = load_atlas("brodmann")
     g = head_model.gain_fixed
     pos = head_model.src_mni / np.linalg.norm(head_model.src_mni, axis=1, keepdims=True)
@@ -338,8 +378,9 @@ def test_coverage_real_head_model_full_size(head_model):
     verts = [r.vertices for r in atlas.rois]
     hits = {"absolute": [], "relative": []}
     for k in range(100):
-        s = roi_bootstrap(_epochs(sigma, 100, rng), op, verts,
-                          bootstrap_weights(100, n_boot=1000, seed=k))
+        s = roi_bootstrap(
+            _epochs(sigma, 100, rng), op, verts, bootstrap_weights(100, n_boot=1000, seed=k)
+        )
         for m, truth in (("absolute", t_abs), ("relative", t_rel)):
             lo, hi = percentile_interval(s[m])
             hits[m].append((lo <= truth) & (truth <= hi))

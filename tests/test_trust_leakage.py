@@ -9,8 +9,13 @@ from scipy import stats
 
 from sourcelab.errors import InputError
 from sourcelab.inverse.sloreta import sloreta_operator, source_power
-from sourcelab.trust import (activity_gain, leakage_hints, leakage_matrix, plot_leakage,
-                             point_spread_power)
+from sourcelab.trust import (
+    activity_gain,
+    leakage_hints,
+    leakage_matrix,
+    plot_leakage,
+    point_spread_power,
+)
 from sourcelab.simulate.sphere import patch_atlas, sphere_head
 
 
@@ -18,9 +23,12 @@ from sourcelab.simulate.sphere import patch_atlas, sphere_head
 def small():
     head = sphere_head(400)
     atlas = patch_atlas(head, 16)
-    ops = {o: sloreta_operator(head.gain, lambda2=1 / 9, orientation=o,
-                             normals=head.src_nn if o == "fixed" else None)
-           for o in ("fixed", "free")}
+    ops = {
+        o: sloreta_operator(
+            head.gain, lambda2=1 / 9, orientation=o, normals=head.src_nn if o == "fixed" else None
+        )
+        for o in ("fixed", "free")
+    }
     return head, atlas, ops
 
 
@@ -67,8 +75,11 @@ def test_shares_partition_and_roi_power_matrices(small, orientation, rng):
     c = a @ a.T
     m = roi_power_matrices(op, atlas.vertex_sets())
     per_source = source_power(op, c)
-    np.testing.assert_allclose(np.einsum("rcd,dc->r", m, c),
-                               [per_source[r.vertices].mean() for r in atlas.rois], rtol=1e-10)
+    np.testing.assert_allclose(
+        np.einsum("rcd,dc->r", m, c),
+        [per_source[r.vertices].mean() for r in atlas.rois],
+        rtol=1e-10,
+    )
 
 
 def test_leakage_decays_with_distance(small):
@@ -92,8 +103,10 @@ def test_point_sources_peak_exactly_but_spread(small):
     own = np.full(op.n_src, -1)
     for k, r in enumerate(atlas.rois):
         own[r.vertices] = k
-    outside = [1 - maps[j, atlas.rois[own[j]].vertices].sum() / maps[j].sum()
-               for j in np.flatnonzero(own >= 0)]
+    outside = [
+        1 - maps[j, atlas.rois[own[j]].vertices].sum() / maps[j].sum()
+        for j in np.flatnonzero(own >= 0)
+    ]
     assert np.median(outside) > 0.5
 
 
@@ -109,13 +122,22 @@ def test_top_hints_and_exports(small, tmp_path):
         leak.top("BA99")
     # hints: a deviating ROI whose strongest leaker deviates the same way is flagged
     b = leak.index(top.iloc[1].roi, top.iloc[1].hemisphere)
-    rows = [dict(atlas=atlas.name, roi=r.name, hemisphere=r.hemisphere, band="alpha",
-                 measure="absolute", z=0.0) for r in atlas.rois]
+    rows = [
+        dict(
+            atlas=atlas.name,
+            roi=r.name,
+            hemisphere=r.hemisphere,
+            band="alpha",
+            measure="absolute",
+            z=0.0,
+        )
+        for r in atlas.rois
+    ]
     table = pd.DataFrame(rows)
     table.loc[a, "z"] = 2.8
     table.loc[b, "z"] = 2.2
     hints = leakage_hints(table, leak, top=2)
-    assert len(hints) == 2 + 2   # both ROIs deviate; two leakers each
+    assert len(hints) == 2 + 2  # both ROIs deviate; two leakers each
     first = hints[(hints.roi == leak.names[a]) & (hints["rank"] == 1)].iloc[0]
     assert first.leaker == leak.names[b] and first.same_direction
     # TSV export round trip
@@ -123,7 +145,7 @@ def test_top_hints_and_exports(small, tmp_path):
     back = pd.read_csv(path, sep="\t")
     n = len(leak.names)
     assert len(back) == n * n + n
-    np.testing.assert_allclose(back.share[:n * n].to_numpy().reshape(n, n), leak.share, rtol=1e-5)
+    np.testing.assert_allclose(back.share[: n * n].to_numpy().reshape(n, n), leak.share, rtol=1e-5)
     with pytest.raises(InputError, match="tsv"):
         leak.to_tsv(tmp_path / "leak.csv")
 
@@ -148,14 +170,17 @@ def test_real_head_model_leakage(head_model):
     # (Pascual-Marqui 2002) while most of their power falls outside their own area.
     from sourcelab.rois import load_atlas
 
-    op = sloreta_operator(head_model.gain, lambda2=1 / 9, orientation="fixed",
-                        normals=head_model.src_nn)
+    op = sloreta_operator(
+        head_model.gain, lambda2=1 / 9, orientation="fixed", normals=head_model.src_nn
+    )
     atlas = load_atlas("brodmann")
     leak = leakage_matrix(op, head_model.gain, atlas, normals=head_model.src_nn)
     np.testing.assert_allclose(leak.share.sum(1) + leak.unlabelled, 1.0, rtol=1e-10)
     rho = _offdiag_spearman(leak)
-    print(f"brodmann: Spearman(distance, share) = {rho:.2f}; median self-share "
-          f"{np.median(leak.self_share):.3f}")
+    print(
+        f"brodmann: Spearman(distance, share) = {rho:.2f}; median self-share "
+        f"{np.median(leak.self_share):.3f}"
+    )
     assert rho < -0.3
     rng = np.random.default_rng(0)
     idx = rng.choice(op.n_src, 500, replace=False)
@@ -164,8 +189,11 @@ def test_real_head_model_leakage(head_model):
     own = np.full(op.n_src, -1)
     for k, r in enumerate(atlas.rois):
         own[r.vertices] = k
-    outside = [1 - maps[i, atlas.rois[own[j]].vertices].sum() / maps[i].sum()
-               for i, j in enumerate(idx) if own[j] >= 0]
+    outside = [
+        1 - maps[i, atlas.rois[own[j]].vertices].sum() / maps[i].sum()
+        for i, j in enumerate(idx)
+        if own[j] >= 0
+    ]
     assert np.median(outside) > 0.5
 
 
@@ -176,8 +204,9 @@ def test_real_head_model_cli(head_model, capsys, tmp_path):
     p = argparse.ArgumentParser()
     cli.add_parser(p.add_subparsers(dest="command"))
     png = tmp_path / "leak.png"
-    args = p.parse_args(["leakage", "BA17", "--hemisphere", "left", "--top", "5",
-                         "--plot", str(png)])
+    args = p.parse_args(
+        ["leakage", "BA17", "--hemisphere", "left", "--top", "5", "--plot", str(png)]
+    )
     assert args.func(args) == 0
     out = capsys.readouterr().out
     assert "BA17 (left)" in out and "BA18" in out and "(unlabelled)" in out

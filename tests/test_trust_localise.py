@@ -5,9 +5,17 @@ mismatch / calibrate)."""
 import numpy as np
 import pytest
 
-from sourcelab.trust.localise import (area_maxima, border_distance, clusters, cortical_mesh,
-                                      local_maxima, peak_margin, peak_table, rank_areas,
-                                      rank_areas_by_mean)
+from sourcelab.trust.localise import (
+    area_maxima,
+    border_distance,
+    clusters,
+    cortical_mesh,
+    local_maxima,
+    peak_margin,
+    peak_table,
+    rank_areas,
+    rank_areas_by_mean,
+)
 
 
 def _strip(n=10):
@@ -25,11 +33,11 @@ def test_local_maxima_clusters_and_borders_known_answer():
     mesh = cortical_mesh(faces, pos)
     x = pos[:, 0]
     v = np.exp(-0.5 * (x - 2) ** 2) + 0.6 * np.exp(-0.5 * (x - 7) ** 2)
-    v[10:] *= 0.9                                     # the y=1 row is lower
+    v[10:] *= 0.9  # the y=1 row is lower
     peaks = local_maxima(v, mesh, threshold=0.1)
     np.testing.assert_array_equal(peaks, [2, 7])
     cl = clusters(v, mesh, 0.3)
-    assert cl[2] == 0 and cl[7] == 1 and cl[5] == -1   # ordered by maximum; the dip is below
+    assert cl[2] == 0 and cl[7] == 1 and cl[5] == -1  # ordered by maximum; the dip is below
     lab = np.where(x < 5, 1, 2)
     d = border_distance(lab, mesh)
     # border sources (a neighbour with another label) are x = 4 and x = 5 (both rows)
@@ -47,7 +55,7 @@ def test_peak_and_mean_rankings_differ_as_designed():
     faces, pos = _strip(10)
     x = pos[:, 0]
     v = np.exp(-0.5 * ((x - 3) / 2.0) ** 2)
-    lab = np.where((x >= 4) & (x <= 4), 2, 1)         # area 2: the x = 4 column only
+    lab = np.where((x >= 4) & (x <= 4), 2, 1)  # area 2: the x = 4 column only
     assert rank_areas(v, lab, 2)[0] == 1
     assert rank_areas_by_mean(v, lab, 2)[0] == 2
 
@@ -78,13 +86,25 @@ def test_noise_free_sources_peak_in_their_own_area(rng):
     src = rng.choice(cx.n_src, 200, replace=False)
     maps = (cx.op.kernel @ cx.gain[:, src]) ** 2
     np.testing.assert_array_equal(maps.argmax(0), src)
-    assert all(rank_areas(maps[:, k], cx.codes, cx.n_areas)[0] == cx.codes[s]
-               for k, s in enumerate(src) if cx.codes[s] > 0)
-    t = peak_table(maps[:, 0], cx.mesh, cx.codes, cx.names, cx.lobes,
-                   threshold=0.5 * maps[:, 0].max(), border_mm=cx.border_mm)
+    assert all(
+        rank_areas(maps[:, k], cx.codes, cx.n_areas)[0] == cx.codes[s]
+        for k, s in enumerate(src)
+        if cx.codes[s] > 0
+    )
+    t = peak_table(
+        maps[:, 0],
+        cx.mesh,
+        cx.codes,
+        cx.names,
+        cx.lobes,
+        threshold=0.5 * maps[:, 0].max(),
+        border_mm=cx.border_mm,
+    )
     assert t.iloc[0]["source"] == src[0] and t.iloc[0]["area"] == cx.names[cx.codes[src[0]]]
-    assert t.iloc[0]["cluster_size"] >= 1 and str(cx.names[cx.codes[src[0]]]) in \
-        t.iloc[0]["cluster_areas"]
+    assert (
+        t.iloc[0]["cluster_size"] >= 1
+        and str(cx.names[cx.codes[src[0]]]) in t.iloc[0]["cluster_areas"]
+    )
 
 
 def test_resolvability_rule(head_model):
@@ -94,8 +114,7 @@ def test_resolvability_rule(head_model):
     from sourcelab.trust.cortex import cortex_space
     from sourcelab.trust.resolvability import resolvability_table
 
-    t = resolvability_table(cortex_space(), head_model.ch_pos,
-                            head_model.src_pos).set_index("area")
+    t = resolvability_table(cortex_space(), head_model.ch_pos, head_model.src_pos).set_index("area")
     for a in ("BA27", "BA33", "BA34"):
         assert not t.loc[a, "resolvable"]
     for a in ("BA6", "BA7", "BA10", "BA18"):
@@ -123,15 +142,20 @@ def test_sphere_forward_differs_from_bem_but_is_the_same_head(head_model, rng):
     # The true head (MNE's analytic 3-shell sphere) must differ from sourcelab's BEM without
     # being another head: topography RDM between 0.05 and 0.4 (sphere vs realistic models:
     # typically 0.1-0.3; from memory) and no source without gain.
-    from sourcelab.simulate.mismatch import (fit_sphere_centre, project_to_sphere, sphere_gain,
-                                          sphere_radii)
+    from sourcelab.simulate.mismatch import (
+        fit_sphere_centre,
+        project_to_sphere,
+        sphere_gain,
+        sphere_radii,
+    )
 
     src = rng.choice(head_model.n_src, 300, replace=False)
     r0 = fit_sphere_centre(head_model.ch_pos, head_model.ch_names)
     radii = sphere_radii(head_model.src_pos, r0)
     ch = project_to_sphere(head_model.ch_pos, r0, radii[-1])
-    g = sphere_gain(ch[None], head_model.src_pos[src], head_model.src_nn[src], r0=r0,
-                    radii=radii)[0]
+    g = sphere_gain(ch[None], head_model.src_pos[src], head_model.src_nn[src], r0=r0, radii=radii)[
+        0
+    ]
     p = np.eye(19) - 1 / 19
     a, b = p @ g, p @ head_model.gain_fixed[:, src]
     assert (np.linalg.norm(a, axis=0) > 0).all()
@@ -164,8 +188,11 @@ def test_area_probability_is_calibrated_on_held_out_simulations(head_model, kind
 
     setup = cal.make_setup(head_model, cortex_space(), seed=1, realisations=range(1, 17))
     rng = np.random.default_rng(4242)
-    data = (cal.point_source_set(setup, 1200, rng) if kind == "power"
-            else cal.deviation_set(setup, 800, rng))
+    data = (
+        cal.point_source_set(setup, 1200, rng)
+        if kind == "power"
+        else cal.deviation_set(setup, 800, rng)
+    )
     coef = np.asarray(shipped_model()["coefficients"][kind])
     prob = predict_logistic(coef, data["x"])
     judged = [b for b in cal.reliability(prob, data["hit"]) if b["n"] >= 50]

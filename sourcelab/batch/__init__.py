@@ -16,7 +16,20 @@ from .inputs import BatchItem, discover, expand_inputs
 from .runner import BatchSummary, Outcome, Task, input_sha256, is_up_to_date, process_one, run_batch
 
 __all__ = [
-    "ENGINES", "BatchItem", "BatchSummary", "DaskEngine", "Engine", "Outcome", "ProcessEngine",
-    "SerialEngine", "Task", "discover", "expand_inputs", "input_sha256", "is_up_to_date",
-    "make_engine", "process_one", "run_batch",
+    "ENGINES",
+    "BatchItem",
+    "BatchSummary",
+    "DaskEngine",
+    "Engine",
+    "Outcome",
+    "ProcessEngine",
+    "SerialEngine",
+    "Task",
+    "discover",
+    "expand_inputs",
+    "input_sha256",
+    "is_up_to_date",
+    "make_engine",
+    "process_one",
+    "run_batch",
 ]

@@ -32,15 +32,23 @@ from ..errors import InputError
 
 log = logging.getLogger("sourcelab")
 
-DASK_MISSING = ("the Dask engine needs dask[distributed], which is not installed; "
-                "install it with: pip install 'sourcelab[dist]'")
+DASK_MISSING = (
+    "the Dask engine needs dask[distributed], which is not installed; "
+    "install it with: pip install 'sourcelab[dist]'"
+)
 
 
 #: Thread-count variables of the BLAS and OpenMP libraries.  Each library reads its variable once,
 #: when it is loaded, so a worker must have them in its environment from the start: a spawned
 #: worker imports numpy (with the parent's main module) before its initialiser runs.
-THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
-              "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+THREAD_ENV = (
+    "OMP_NUM_THREADS",
+    "OPENBLAS_NUM_THREADS",
+    "MKL_NUM_THREADS",
+    "BLIS_NUM_THREADS",
+    "VECLIB_MAXIMUM_THREADS",
+    "NUMEXPR_NUM_THREADS",
+)
 _ENV_LOCK = threading.Lock()
 
 
@@ -277,8 +285,11 @@ class ProcessEngine(Engine):
             raise InputError(f"workers: must be >= 1, got {n_workers}")
         self.n_workers = int(n_workers)
         self._pool = cf.ProcessPoolExecutor(
-            max_workers=self.n_workers, mp_context=multiprocessing.get_context("spawn"),
-            initializer=_init_worker, initargs=(log_level,))
+            max_workers=self.n_workers,
+            mp_context=multiprocessing.get_context("spawn"),
+            initializer=_init_worker,
+            initargs=(log_level,),
+        )
 
     def submit(self, fn, task):
         """Submit ``fn(task)`` to the pool, starting workers with one BLAS thread each.
@@ -319,8 +330,7 @@ class DaskEngine(Engine):
 
     kind = "dask"
 
-    def __init__(self, address: str | None = None, *, n_workers: int = 1,
-                 processes: bool = True):
+    def __init__(self, address: str | None = None, *, n_workers: int = 1, processes: bool = True):
         try:
             import distributed
         except ImportError:
@@ -331,8 +341,7 @@ class DaskEngine(Engine):
             try:
                 self._client = distributed.Client(address, timeout="20s")
             except (OSError, TimeoutError) as exc:
-                raise InputError(f"cannot reach the Dask scheduler ({exc})", path=address) \
-                    from None
+                raise InputError(f"cannot reach the Dask scheduler ({exc})", path=address) from None
         else:
             if n_workers < 1:
                 raise InputError(f"workers: must be >= 1, got {n_workers}")
@@ -340,10 +349,14 @@ class DaskEngine(Engine):
             # machine's outward IP address, which fails (with a warning) on an offline machine
             where = {"host": "127.0.0.1", "protocol": "tcp://"}
             self._cluster = distributed.LocalCluster(
-                n_workers=int(n_workers), threads_per_worker=1, processes=processes,
+                n_workers=int(n_workers),
+                threads_per_worker=1,
+                processes=processes,
                 # a free loopback port: the default (":8787", also used when None is given)
                 # warns and moves when another cluster holds it
-                dashboard_address="127.0.0.1:0", **where)
+                dashboard_address="127.0.0.1:0",
+                **where,
+            )
             self._client = distributed.Client(self._cluster)
         self.address = self._client.scheduler.address
 
@@ -405,14 +418,18 @@ class DaskEngine(Engine):
 #: engine name -> factory(workers, scheduler, log_level)
 ENGINES: dict[str, Callable[..., Engine]] = {
     "serial": lambda workers, scheduler, log_level: SerialEngine(),
-    "processes": lambda workers, scheduler, log_level: ProcessEngine(workers,
-                                                                     log_level=log_level),
+    "processes": lambda workers, scheduler, log_level: ProcessEngine(workers, log_level=log_level),
     "dask": lambda workers, scheduler, log_level: DaskEngine(scheduler, n_workers=workers),
 }
 
 
-def make_engine(kind: str | None = None, *, workers: int = 1, scheduler: str | None = None,
-                log_level: int = logging.ERROR) -> Engine:
+def make_engine(
+    kind: str | None = None,
+    *,
+    workers: int = 1,
+    scheduler: str | None = None,
+    log_level: int = logging.ERROR,
+) -> Engine:
     """An engine by name.
 
     ``None`` picks ``dask`` with a scheduler, ``serial`` for one worker, else ``processes``.
@@ -450,8 +467,9 @@ def make_engine(kind: str | None = None, *, workers: int = 1, scheduler: str | N
     return ENGINES[kind](workers, scheduler, log_level)
 
 
-def run_unordered(engine: Engine, fn: Callable, tasks: Iterable, *,
-                  max_in_flight: int | None = None) -> Iterator[tuple[int, Any, BaseException | None]]:
+def run_unordered(
+    engine: Engine, fn: Callable, tasks: Iterable, *, max_in_flight: int | None = None
+) -> Iterator[tuple[int, Any, BaseException | None]]:
     """Run ``fn(task)`` for every task; yield ``(index, result, error)`` as tasks finish.
 
     At most ``max_in_flight`` tasks (default ``2 * n_workers``) are submitted at once, so

@@ -78,14 +78,16 @@ def recording_stem(path: Path) -> str:
 
 def _is_hidden_or_derived(path: Path, root: Path) -> bool:
     parts = path.relative_to(root).parts
-    return any(p.startswith(".") or p in ("derivatives", "sourcedata") for p in parts[:-1]) \
-        or parts[-1].startswith(".")
+    return any(
+        p.startswith(".") or p in ("derivatives", "sourcedata") for p in parts[:-1]
+    ) or parts[-1].startswith(".")
 
 
 def _folder_recordings(folder: Path) -> list[Path]:
     """Recordings in a folder tree; in a BIDS dataset only ``*_eeg.<ext>`` files."""
     bids = (folder / "dataset_description.json").is_file() or any(
-        p.is_dir() and p.name.startswith("sub-") for p in folder.iterdir())
+        p.is_dir() and p.name.startswith("sub-") for p in folder.iterdir()
+    )
     found = []
     for p in sorted(folder.rglob("*")):
         if not p.is_file() or _is_hidden_or_derived(p, folder):
@@ -126,17 +128,22 @@ def expand_inputs(inputs: Sequence[str | Path]) -> list[Path]:
         if p.is_dir():
             found = _folder_recordings(p)
             if not found:
-                raise InputError(f"no recordings ({', '.join(RECORDING_SUFFIXES)}) in this folder",
-                                 path=p)
+                raise InputError(
+                    f"no recordings ({', '.join(RECORDING_SUFFIXES)}) in this folder", path=p
+                )
             out += found
         elif p.is_file():
             out.append(p)
         elif _GLOB_CHARS.search(str(raw)):
-            found = sorted(Path(m) for m in glob.glob(str(p), recursive=True)
-                           if Path(m).is_file() and recording_suffix(Path(m)) in RECORDING_SUFFIXES)
+            found = sorted(
+                Path(m)
+                for m in glob.glob(str(p), recursive=True)
+                if Path(m).is_file() and recording_suffix(Path(m)) in RECORDING_SUFFIXES
+            )
             if not found:
-                raise InputError(f"pattern matches no recording ({', '.join(RECORDING_SUFFIXES)})",
-                                 path=raw)
+                raise InputError(
+                    f"pattern matches no recording ({', '.join(RECORDING_SUFFIXES)})", path=raw
+                )
             out += found
         else:
             raise InputError("file, folder or pattern not found", path=p)
@@ -165,8 +172,11 @@ def _match_participant(stem: str, bids_sub: str | None, ids: Sequence[str]) -> s
         if not sid:
             continue
         bare = sid.removeprefix("sub-")
-        hit = (bids_sub is not None and bids_sub[4:] == bare) or stem == sid \
+        hit = (
+            (bids_sub is not None and bids_sub[4:] == bare)
+            or stem == sid
             or stem.startswith((sid + "_", sid + "."))
+        )
         if hit and (best is None or len(sid) > len(best)):
             best = sid
     return best
@@ -199,8 +209,9 @@ def unique_names(stems: Sequence[str]) -> list[str]:
     return out
 
 
-def discover(inputs: Sequence[str | Path], *, participants: str | Path | None = None
-             ) -> tuple[BatchItem, ...]:
+def discover(
+    inputs: Sequence[str | Path], *, participants: str | Path | None = None
+) -> tuple[BatchItem, ...]:
     """The recordings of a batch with their names, participant IDs and ages.
 
     Parameters
@@ -235,12 +246,15 @@ def discover(inputs: Sequence[str | Path], *, participants: str | Path | None = 
         if pid is not None:
             age = _parse_age(ages[pid])
             if age is None:
-                log.warning("batch: %s: age %r of participant %s is not a positive number",
-                            path.name, ages[pid], pid)
+                log.warning(
+                    "batch: %s: age %r of participant %s is not a positive number",
+                    path.name,
+                    ages[pid],
+                    pid,
+                )
         elif ids:
             log.warning("batch: %s: not listed in %s", path.name, Path(participants).name)
-        items.append(BatchItem(path=path, name=name, participant=pid or bids_sub or stem,
-                               age=age))
+        items.append(BatchItem(path=path, name=name, participant=pid or bids_sub or stem, age=age))
     return tuple(items)
 
 
@@ -279,10 +293,13 @@ def read_participants(participants_tsv: str | Path):
     head = [h.strip() for h in rows[0]]
     for col in ("participant_id", "age"):
         if col not in head:
-            raise InputError(f"participants file lacks column {col!r} (BIDS: participant_id, "
-                             "age, optional sex, condition)", path=path)
+            raise InputError(
+                f"participants file lacks column {col!r} (BIDS: participant_id, "
+                "age, optional sex, condition)",
+                path=path,
+            )
     body = [r + [""] * (len(head) - len(r)) for r in rows[1:] if any(c.strip() for c in r)]
-    df = pd.DataFrame([r[:len(head)] for r in body], columns=head, dtype=object)
+    df = pd.DataFrame([r[: len(head)] for r in body], columns=head, dtype=object)
     if df["participant_id"].duplicated().any():
         dup = df["participant_id"][df["participant_id"].duplicated()].iloc[0]
         raise InputError(f"participant {dup!r} listed twice", path=path)

@@ -36,8 +36,7 @@ log = logging.getLogger("sourcelab")
 
 #: Columns put in front of every group table.
 ID_COLUMNS = ("recording", "participant", "age")
-STATUS_COLUMNS = ("recording", "participant", "path", "status", "seconds", "peak_rss_mb",
-                  "message")
+STATUS_COLUMNS = ("recording", "participant", "path", "status", "seconds", "peak_rss_mb", "message")
 DONE, SKIPPED, FAILED = "done", "skipped", "failed"
 
 
@@ -104,7 +103,7 @@ def _peak_rss_mb() -> float:
     except ImportError:  # pragma: no cover - Windows
         return float("nan")
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-    return peak / (1024.0 ** 2 if sys.platform == "darwin" else 1024.0)
+    return peak / (1024.0**2 if sys.platform == "darwin" else 1024.0)
 
 
 def input_sha256(path: str | Path) -> str:
@@ -218,40 +217,64 @@ def process_one(task: Task) -> Outcome:
     from ..analysis import analyze
 
     t0 = time.perf_counter()
-    base = dict(name=task.name, participant=task.participant, path=task.path,
-                worker=f"{os.uname().nodename}:{os.getpid()}" if hasattr(os, "uname") else "")
+    base = dict(
+        name=task.name,
+        participant=task.participant,
+        path=task.path,
+        worker=f"{os.uname().nodename}:{os.getpid()}" if hasattr(os, "uname") else "",
+    )
     try:
         if not task.force and is_up_to_date(task):
-            return Outcome(status=SKIPPED, seconds=time.perf_counter() - t0,
-                           peak_rss_mb=_peak_rss_mb(), **base)
+            return Outcome(
+                status=SKIPPED, seconds=time.perf_counter() - t0, peak_rss_mb=_peak_rss_mb(), **base
+            )
         norms = None
         if task.norms:
             if task.age is None:
-                raise InputError(f"no age for participant {task.participant!r} "
-                                 "(z-scores need one: give --participants with an age column)")
+                raise InputError(
+                    f"no age for participant {task.participant!r} "
+                    "(z-scores need one: give --participants with an age column)"
+                )
             norms = _norms(task.norms, os.stat(task.norms).st_mtime_ns)
-        result = analyze(task.path, config=task.config, age=task.age, norms=norms,
-                         condition=task.condition)
-        result.write(task.out_dir, figures=task.figures, report=task.report,
-                     maps=task.exports, command=list(task.command))
+        result = analyze(
+            task.path, config=task.config, age=task.age, norms=norms, condition=task.condition
+        )
+        result.write(
+            task.out_dir,
+            figures=task.figures,
+            report=task.report,
+            maps=task.exports,
+            command=list(task.command),
+        )
         n_warn = len(result.warnings)
         del result
         if task.figures:
             import matplotlib.pyplot as plt
 
             plt.close("all")
-        note = f"{n_warn} warning{'s' if n_warn != 1 else ''} (see provenance.json)" \
-            if n_warn else ""
-        return Outcome(status=DONE, seconds=time.perf_counter() - t0,
-                       peak_rss_mb=_peak_rss_mb(), message=note, **base)
+        note = (
+            f"{n_warn} warning{'s' if n_warn != 1 else ''} (see provenance.json)" if n_warn else ""
+        )
+        return Outcome(
+            status=DONE,
+            seconds=time.perf_counter() - t0,
+            peak_rss_mb=_peak_rss_mb(),
+            message=note,
+            **base,
+        )
     except Exception as exc:  # one bad recording never stops the batch
         text = str(exc).strip().splitlines()
         msg = " ".join(text[0].split()) if text else type(exc).__name__
         if not isinstance(exc, InputError):
             msg = f"{type(exc).__name__}: {msg}"
             log.debug("batch: %s failed", task.path, exc_info=True)
-        return Outcome(status=FAILED, seconds=time.perf_counter() - t0,
-                       peak_rss_mb=_peak_rss_mb(), message=msg, **base)
+        return Outcome(
+            status=FAILED,
+            seconds=time.perf_counter() - t0,
+            peak_rss_mb=_peak_rss_mb(),
+            message=msg,
+            **base,
+        )
 
 
 class _GroupTable:
@@ -277,8 +300,10 @@ class _GroupTable:
         if self._header is None:
             self._header = list(table.columns)
             if sidecar is not None:  # the first recording's column descriptions, and ours
-                self.sidecar = {**{c: {"Description": _IDENT_NOTES[c]} for c in ident},
-                                **{c: d for c, d in sidecar.items() if c in self._header}}
+                self.sidecar = {
+                    **{c: {"Description": _IDENT_NOTES[c]} for c in ident},
+                    **{c: d for c, d in sidecar.items() if c in self._header},
+                }
                 self.sidecar["age"]["Units"] = "years"
                 from .. import __version__
 
@@ -286,14 +311,16 @@ class _GroupTable:
                 self.sidecar["GeneratedBy"] = [{"Name": "sourcelab", "Version": __version__}]
             self._f.write("\t".join(self._header) + "\n")
         table = table.reindex(columns=self._header)
-        table.to_csv(self._f, sep="\t", index=False, header=False, na_rep="",
-                     float_format="%.6g")
+        table.to_csv(self._f, sep="\t", index=False, header=False, na_rep="", float_format="%.6g")
         if self.pq_path is not None:
             try:
                 self._append_parquet(table.astype({"age": "float64"}))
             except (ImportError, TypeError, ValueError) as exc:  # pyarrow's errors subclass these
-                log.warning("batch: %s: Parquet copy dropped (%s); the TSV is complete",
-                            self.pq_path.name, " ".join(str(exc).split())[:200])
+                log.warning(
+                    "batch: %s: Parquet copy dropped (%s); the TSV is complete",
+                    self.pq_path.name,
+                    " ".join(str(exc).split())[:200],
+                )
                 if self._pq is not None:
                     self._pq.close()
                     self._pq = None
@@ -307,8 +334,7 @@ class _GroupTable:
         if self._pq is None:
             self._schema = pa.Table.from_pandas(table, preserve_index=False).schema
             self._pq = pq.ParquetWriter(self.pq_tmp, self._schema)
-        self._pq.write_table(pa.Table.from_pandas(table, schema=self._schema,
-                                                  preserve_index=False))
+        self._pq.write_table(pa.Table.from_pandas(table, schema=self._schema, preserve_index=False))
 
     def close(self, *, keep: bool) -> None:
         self._f.close()
@@ -317,8 +343,10 @@ class _GroupTable:
         if keep and self._header is not None:
             os.replace(self.tmp, self.path)
             if self.sidecar is not None:
-                atomic_write_text(self.path.with_suffix(".json"),
-                                  json.dumps(self.sidecar, indent=2, ensure_ascii=False) + "\n")
+                atomic_write_text(
+                    self.path.with_suffix(".json"),
+                    json.dumps(self.sidecar, indent=2, ensure_ascii=False) + "\n",
+                )
             if self._pq is not None and self.pq_path is not None:
                 os.replace(self.pq_tmp, self.pq_path)
         for p in (self.tmp, self.pq_tmp):
@@ -386,17 +414,37 @@ class BatchSummary:
 def _status_tsv(outcomes: Sequence[Outcome]) -> str:
     lines = ["\t".join(STATUS_COLUMNS)]
     for o in outcomes:
-        lines.append("\t".join([o.name, o.participant, o.path, o.status, f"{o.seconds:.3f}",
-                                f"{o.peak_rss_mb:.0f}", " ".join(o.message.split())]))
+        lines.append(
+            "\t".join(
+                [
+                    o.name,
+                    o.participant,
+                    o.path,
+                    o.status,
+                    f"{o.seconds:.3f}",
+                    f"{o.peak_rss_mb:.0f}",
+                    " ".join(o.message.split()),
+                ]
+            )
+        )
     return "\n".join(lines) + "\n"
 
 
-def run_batch(items: Sequence[BatchItem], out: str | Path, *,
-              config: AnalysisConfig | None = None, norms: str | Path | None = None,
-              condition: str | None = None, engine: Engine | None = None,
-              force: bool = False, figures: bool = False, report: bool = False,
-              exports: bool = False, progress: bool | None = None,
-              command: Sequence[str] | None = None) -> BatchSummary:
+def run_batch(
+    items: Sequence[BatchItem],
+    out: str | Path,
+    *,
+    config: AnalysisConfig | None = None,
+    norms: str | Path | None = None,
+    condition: str | None = None,
+    engine: Engine | None = None,
+    force: bool = False,
+    figures: bool = False,
+    report: bool = False,
+    exports: bool = False,
+    progress: bool | None = None,
+    command: Sequence[str] | None = None,
+) -> BatchSummary:
     """Analyse every recording; one folder each, group tables, status and failures files.
 
     Parameters
@@ -443,31 +491,55 @@ def run_batch(items: Sequence[BatchItem], out: str | Path, *,
     config = config or AnalysisConfig()
     out = prepare_output_root(out, kind="batch")  # new, empty or a sourcelab batch folder
     command = tuple(command if command is not None else sys.argv)
-    tasks = [Task(path=str(it.path), out_dir=str((out / it.name).resolve()), name=it.name,
-                  participant=it.participant, age=it.age, config=config, norms=norms,
-                  condition=condition, figures=figures, report=report, exports=exports,
-                  force=force, command=command) for it in items]
+    tasks = [
+        Task(
+            path=str(it.path),
+            out_dir=str((out / it.name).resolve()),
+            name=it.name,
+            participant=it.participant,
+            age=it.age,
+            config=config,
+            norms=norms,
+            condition=condition,
+            figures=figures,
+            report=report,
+            exports=exports,
+            force=force,
+            command=command,
+        )
+        for it in items
+    ]
     engine = engine or SerialEngine()
     parquet = _has_pyarrow()
     groups = {k: _GroupTable(out, f"group_{k}_table", parquet=parquet) for k in ("roi", "sensor")}
     results: dict[int, Outcome] = {}
     next_i = 0
     ok = False
-    bar = tqdm(total=len(tasks), desc="sourcelab batch", unit="rec", file=sys.stderr,
-               disable=(not progress) if progress is not None else None, dynamic_ncols=True)
+    bar = tqdm(
+        total=len(tasks),
+        desc="sourcelab batch",
+        unit="rec",
+        file=sys.stderr,
+        disable=(not progress) if progress is not None else None,
+        dynamic_ncols=True,
+    )
     try:
         for i, res, err in run_unordered(engine, process_one, tasks):
             if err is not None:  # the worker itself died or the engine failed
                 t = tasks[i]
-                res = Outcome(name=t.name, participant=t.participant, path=t.path,
-                              status=FAILED, message=f"worker error: {type(err).__name__}: "
-                              f"{' '.join(str(err).split())[:200]}")
+                res = Outcome(
+                    name=t.name,
+                    participant=t.participant,
+                    path=t.path,
+                    status=FAILED,
+                    message=f"worker error: {type(err).__name__}: "
+                    f"{' '.join(str(err).split())[:200]}",
+                )
             results[i] = res
             if res.status == FAILED:
                 log.info("batch: %s failed: %s", res.name, res.message)
             bar.update(1)
-            bar.set_postfix(failed=sum(r.status == FAILED for r in results.values()),
-                            refresh=False)
+            bar.set_postfix(failed=sum(r.status == FAILED for r in results.values()), refresh=False)
             while next_i in results:  # group tables in input order, streamed from disk
                 _append_group(groups, results[next_i], items[next_i], tasks[next_i])
                 next_i += 1
@@ -478,22 +550,30 @@ def run_batch(items: Sequence[BatchItem], out: str | Path, *,
             g.close(keep=ok)
     outcomes = tuple(results[i] for i in range(len(tasks)))
     atomic_write_text(out / "batch_status.tsv", _status_tsv(outcomes))
-    atomic_write_text(out / "failures.tsv", _status_tsv([o for o in outcomes
-                                                          if o.status == FAILED]))
+    atomic_write_text(
+        out / "failures.tsv", _status_tsv([o for o in outcomes if o.status == FAILED])
+    )
     tables = {}
     for k, g in groups.items():
         if g.path.exists() and g.n_rows:
             tables[k] = g.path
             if g.pq_path is not None and g.pq_path.exists():
                 tables[k + "_parquet"] = g.pq_path
-    return BatchSummary(out=out, outcomes=outcomes, tables=tables,
-                        seconds=time.perf_counter() - t0, engine=engine.describe())
+    return BatchSummary(
+        out=out,
+        outcomes=outcomes,
+        tables=tables,
+        seconds=time.perf_counter() - t0,
+        engine=engine.describe(),
+    )
 
 
 #: Descriptions of the columns the group tables add in front of each recording's rows.
-_IDENT_NOTES = {"recording": "recording (file name without its suffix)",
-                "participant": "participant identifier (participants.tsv), if given",
-                "age": "participant age, if given"}
+_IDENT_NOTES = {
+    "recording": "recording (file name without its suffix)",
+    "participant": "participant identifier (participants.tsv), if given",
+    "age": "participant age, if given",
+}
 
 
 def _append_group(groups: dict, outcome: Outcome, item: BatchItem, task: Task) -> None:
@@ -501,15 +581,19 @@ def _append_group(groups: dict, outcome: Outcome, item: BatchItem, task: Task) -
 
     if outcome.status == FAILED:
         return
-    ident = {"recording": item.name, "participant": item.participant,
-             "age": float("nan") if item.age is None else item.age}
+    ident = {
+        "recording": item.name,
+        "participant": item.participant,
+        "age": float("nan") if item.age is None else item.age,
+    }
     for kind, g in groups.items():
         path = Path(task.out_dir) / f"{kind}_table.tsv"
         try:
             table = pd.read_csv(path, sep="\t", keep_default_na=False, na_values=[""])
         except (OSError, ValueError) as exc:
-            log.warning("batch: %s: cannot read %s for the group table (%s)", item.name,
-                        path.name, exc)
+            log.warning(
+                "batch: %s: cannot read %s for the group table (%s)", item.name, path.name, exc
+            )
             continue
         sidecar = None
         if g.sidecar is None and path.with_suffix(".json").is_file():

@@ -37,8 +37,9 @@ def add_output_options(p) -> None:
     """
     p.add_argument("--no-figures", action="store_true", help="tables and provenance only")
     p.add_argument("--no-report", action="store_true", help="skip the HTML report")
-    p.add_argument("--no-maps", action="store_true",
-                   help="skip the source-map exports (STC, GIfTI, NIfTI)")
+    p.add_argument(
+        "--no-maps", action="store_true", help="skip the source-map exports (STC, GIfTI, NIfTI)"
+    )
 
 
 def config_from_args(args):
@@ -58,8 +59,7 @@ def config_from_args(args):
     """
     from ..config import load_config
 
-    return load_config(args.config, method=args.method, orientation=args.orientation,
-                       snr=args.snr)
+    return load_config(args.config, method=args.method, orientation=args.orientation, snr=args.snr)
 
 
 def progress_flag(args) -> bool | None:
@@ -87,28 +87,49 @@ def add_parser(sub) -> None:
         The sub-parsers object of the ``sourcelab`` parser; the new parser dispatches to
         :func:`run`.
     """
-    p = sub.add_parser("analyze", help="analyse one recording",
-                       description="Analyse one 19-channel 10-20 recording: source band power, "
-                                   "ROI tables, z-scores (with --norms), figures and report.")
+    p = sub.add_parser(
+        "analyze",
+        help="analyse one recording",
+        description="Analyse one 19-channel 10-20 recording: source band power, "
+        "ROI tables, z-scores (with --norms), figures and report.",
+    )
     p.add_argument("recording", help="EDF/BDF/BrainVision/EEGLAB/FIF file or BIDS EEG path")
     p.add_argument("--out", required=True, help="output folder (replaced atomically)")
     p.add_argument("--age", type=float, help="age in years (needed with --norms)")
     p.add_argument("--norms", help="norms TSV (sourcelab norms format)")
     p.add_argument("--condition", help='recording condition, e.g. "eyes closed" (EC/EO accepted)')
-    p.add_argument("--select", action="append", metavar="ANNOTATION|T0-T1",
-                   help='analyse only segments with this annotation (e.g. "eyes closed") or '
-                        "this time range in seconds (e.g. 120-300); repeatable, union")
-    p.add_argument("--rois", metavar="FILE",
-                   help="user-defined ROIs (TOML or TSV; see atlases/README.md), reported as "
-                        "their own atlas")
-    p.add_argument("--bids-root", metavar="DIR",
-                   help="also write a BIDS-derivatives copy under DIR/derivatives/sourcelab")
-    p.add_argument("--participant-id", metavar="ID",
-                   help="participant label for --bids-root (made safe for file names)")
-    p.add_argument("--allow-extrapolation", action="store_true",
-                   help="z-score outside the norms' age range (flagged on every row)")
-    p.add_argument("--allow-condition-mismatch", action="store_true",
-                   help="z-score against norms of another condition (flagged)")
+    p.add_argument(
+        "--select",
+        action="append",
+        metavar="ANNOTATION|T0-T1",
+        help='analyse only segments with this annotation (e.g. "eyes closed") or '
+        "this time range in seconds (e.g. 120-300); repeatable, union",
+    )
+    p.add_argument(
+        "--rois",
+        metavar="FILE",
+        help="user-defined ROIs (TOML or TSV; see atlases/README.md), reported as their own atlas",
+    )
+    p.add_argument(
+        "--bids-root",
+        metavar="DIR",
+        help="also write a BIDS-derivatives copy under DIR/derivatives/sourcelab",
+    )
+    p.add_argument(
+        "--participant-id",
+        metavar="ID",
+        help="participant label for --bids-root (made safe for file names)",
+    )
+    p.add_argument(
+        "--allow-extrapolation",
+        action="store_true",
+        help="z-score outside the norms' age range (flagged on every row)",
+    )
+    p.add_argument(
+        "--allow-condition-mismatch",
+        action="store_true",
+        help="z-score against norms of another condition (flagged)",
+    )
     add_common_options(p)
     p.set_defaults(func=run)
 
@@ -140,15 +161,26 @@ def run(args) -> int:
         from ..rois import load_custom_rois
 
         custom = load_custom_rois(args.rois)
-    result = analyze(path, config=config, age=args.age, norms=args.norms, custom_rois=custom,
-                     select=parse_select(args.select),
-                     condition=args.condition,
-                     allow_extrapolation=args.allow_extrapolation,
-                     allow_condition_mismatch=args.allow_condition_mismatch,
-                     progress=progress_flag(args))
-    out = result.write(args.out, figures=not args.no_figures, report=not args.no_report,
-                       maps=not args.no_maps, command=["sourcelab", *sys.argv[1:]],
-                       progress=progress_flag(args))
+    result = analyze(
+        path,
+        config=config,
+        age=args.age,
+        norms=args.norms,
+        custom_rois=custom,
+        select=parse_select(args.select),
+        condition=args.condition,
+        allow_extrapolation=args.allow_extrapolation,
+        allow_condition_mismatch=args.allow_condition_mismatch,
+        progress=progress_flag(args),
+    )
+    out = result.write(
+        args.out,
+        figures=not args.no_figures,
+        report=not args.no_report,
+        maps=not args.no_maps,
+        command=["sourcelab", *sys.argv[1:]],
+        progress=progress_flag(args),
+    )
     if args.bids_root:
         from ..exports import export_bids_derivatives
 
@@ -191,8 +223,10 @@ def parse_select(values):
         if m:
             t0, t1 = float(m.group(1)), float(m.group(2))
             if t0 < 0 or t1 < 0:
-                raise InputError(f"--select {v!r}: times are counted from the start of the "
-                                 "recording and cannot be negative")
+                raise InputError(
+                    f"--select {v!r}: times are counted from the start of the "
+                    "recording and cannot be negative"
+                )
             if not t1 > t0:
                 raise InputError(f"--select {v!r}: the end must come after the start")
             out.append((t0, t1))
@@ -220,8 +254,10 @@ def print_summary(result, out) -> None:
     if removed:
         print("sourcelab: removed: " + ", ".join(f"{k} {v:.0f} s" for k, v in removed.items()))
     for e in q.excluded:
-        print(f"sourcelab: excluded {e['kind']} ({e['label']}, {e['start_s']:.0f}-"
-              f"{e['stop_s']:.0f} s): {e['overlap_s']:.0f} s of the selection")
+        print(
+            f"sourcelab: excluded {e['kind']} ({e['label']}, {e['start_s']:.0f}-"
+            f"{e['stop_s']:.0f} s): {e['overlap_s']:.0f} s of the selection"
+        )
     for line in lines[1:-1]:
         print(f"sourcelab: {line}")
     print(f"sourcelab: wrote {out}")

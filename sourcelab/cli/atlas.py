@@ -58,8 +58,10 @@ def run(args) -> int:
         if any(names):
             t.insert(1, "name", names)
             hemi = {"left": 0, "right": 1, "both": 2}
-            order = sorted(range(len(t)), key=lambda i: (hemi.get(t["hemisphere"].iloc[i], 3),
-                                                         natural_key(t["roi"].iloc[i])))
+            order = sorted(
+                range(len(t)),
+                key=lambda i: (hemi.get(t["hemisphere"].iloc[i], 3), natural_key(t["roi"].iloc[i])),
+            )
             t = t.iloc[order]
         print(t.to_string(index=False))
         return 0

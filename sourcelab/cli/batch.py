@@ -23,25 +23,44 @@ def add_parser(sub) -> None:
     from .analyze import add_common_options
 
     p = sub.add_parser(
-        "batch", help="analyse many recordings (resumable; processes or Dask)",
+        "batch",
+        help="analyse many recordings (resumable; processes or Dask)",
         description="Analyse every recording given (files, glob patterns, folders, a BIDS "
-                    "dataset): one output folder per recording, group ROI and sensor tables, "
-                    "a status and a failures file. Recordings whose outputs are up to date are "
-                    "skipped. Exit code 0 all done, 1 some failed, 2 wrong input.")
-    p.add_argument("inputs", nargs="+", metavar="INPUT",
-                   help="recording file, glob pattern (quote it), folder or BIDS dataset")
+        "dataset): one output folder per recording, group ROI and sensor tables, "
+        "a status and a failures file. Recordings whose outputs are up to date are "
+        "skipped. Exit code 0 all done, 1 some failed, 2 wrong input.",
+    )
+    p.add_argument(
+        "inputs",
+        nargs="+",
+        metavar="INPUT",
+        help="recording file, glob pattern (quote it), folder or BIDS dataset",
+    )
     p.add_argument("--out", required=True, help="batch output folder")
-    p.add_argument("--participants", metavar="TSV",
-                   help="participants.tsv with participant_id and age (BIDS convention)")
+    p.add_argument(
+        "--participants",
+        metavar="TSV",
+        help="participants.tsv with participant_id and age (BIDS convention)",
+    )
     p.add_argument("--norms", help="norms TSV for z-scores (every recording then needs an age)")
     p.add_argument("--condition", help='recording condition, e.g. "eyes closed"')
-    p.add_argument("--workers", type=int, default=1,
-                   help="parallel workers on this machine (default: %(default)s)")
-    p.add_argument("--engine", choices=("serial", "processes", "dask"),
-                   help="execution engine (default: serial for 1 worker, processes for more, "
-                        "dask with --scheduler)")
-    p.add_argument("--scheduler", metavar="ADDRESS",
-                   help="Dask scheduler address, e.g. tcp://10.0.0.5:8786 (needs sourcelab[dist])")
+    p.add_argument(
+        "--workers",
+        type=int,
+        default=1,
+        help="parallel workers on this machine (default: %(default)s)",
+    )
+    p.add_argument(
+        "--engine",
+        choices=("serial", "processes", "dask"),
+        help="execution engine (default: serial for 1 worker, processes for more, "
+        "dask with --scheduler)",
+    )
+    p.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help="Dask scheduler address, e.g. tcp://10.0.0.5:8786 (needs sourcelab[dist])",
+    )
     p.add_argument("--force", action="store_true", help="recompute up-to-date recordings")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     add_common_options(p)
@@ -79,21 +98,31 @@ def run(args) -> int:
     worker_level = logging.ERROR if quiet else logger.getEffectiveLevel()
     try:
         logger.setLevel(worker_level)
-        with make_engine(args.engine, workers=args.workers, scheduler=args.scheduler,
-                         log_level=worker_level) as engine:
+        with make_engine(
+            args.engine, workers=args.workers, scheduler=args.scheduler, log_level=worker_level
+        ) as engine:
             print(f"sourcelab: {len(items)} recordings, engine {engine.describe()}")
-            summary = run_batch(items, args.out, config=config, norms=args.norms,
-                                condition=args.condition, engine=engine, force=args.force,
-                                figures=not args.no_figures, report=not args.no_report,
-                                exports=not args.no_maps,
-                                progress=(False if args.no_progress or args.quiet
-                                          else None),
-                                command=["sourcelab", *sys.argv[1:]])
+            summary = run_batch(
+                items,
+                args.out,
+                config=config,
+                norms=args.norms,
+                condition=args.condition,
+                engine=engine,
+                force=args.force,
+                figures=not args.no_figures,
+                report=not args.no_report,
+                exports=not args.no_maps,
+                progress=(False if args.no_progress or args.quiet else None),
+                command=["sourcelab", *sys.argv[1:]],
+            )
     finally:
         logger.setLevel(level)
     n = len(summary.outcomes)
-    print(f"sourcelab: {summary.count('done')} analysed, {summary.count('skipped')} up to date, "
-          f"{summary.count('failed')} failed of {n} in {summary.seconds:.1f} s")
+    print(
+        f"sourcelab: {summary.count('done')} analysed, {summary.count('skipped')} up to date, "
+        f"{summary.count('failed')} failed of {n} in {summary.seconds:.1f} s"
+    )
     for o in summary.failures:
         print(f"sourcelab: failed: {o.name}: {o.message}", file=sys.stderr)
     for path in summary.tables.values():

@@ -17,15 +17,31 @@ def add_parser(sub) -> None:
     sub : argparse._SubParsersAction
         The ``sourcelab`` parser's sub-parsers; the new parser's ``func`` is :func:`run`.
     """
-    p = sub.add_parser("compare", help="change across sessions of one person",
-                       description=__doc__.split("\n\n")[0] + " " + SHORT)
-    p.add_argument("results", nargs="+", metavar="RESULT_DIR",
-                   help="analysis folders (first = baseline), at least two")
+    p = sub.add_parser(
+        "compare",
+        help="change across sessions of one person",
+        description=__doc__.split("\n\n")[0] + " " + SHORT,
+    )
+    p.add_argument(
+        "results",
+        nargs="+",
+        metavar="RESULT_DIR",
+        help="analysis folders (first = baseline), at least two",
+    )
     p.add_argument("--out", required=True, help="output folder (replaced atomically)")
-    p.add_argument("--label", action="append", default=None,
-                   help="session label, one per folder in order (default: folder names)")
-    p.add_argument("--target", action="append", default=None, metavar="TARGET.json",
-                   help="show this target's row in the figure (repeatable)")
+    p.add_argument(
+        "--label",
+        action="append",
+        default=None,
+        help="session label, one per folder in order (default: folder names)",
+    )
+    p.add_argument(
+        "--target",
+        action="append",
+        default=None,
+        metavar="TARGET.json",
+        help="show this target's row in the figure (repeatable)",
+    )
     p.add_argument("--n-boot", type=int, default=1000, help="bootstrap replicates per session")
     p.add_argument("--seed", type=int, default=0)
     p.set_defaults(func=run)
@@ -60,18 +76,32 @@ def run(args) -> int:
         raise InputError(f"--label: {len(args.label)} labels for {len(args.results)} folders")
     if args.n_boot < 100:
         raise InputError(f"--n-boot: need at least 100, got {args.n_boot}")
-    table = compare_sessions(args.results, n_boot=args.n_boot, seed=args.seed,
-                             labels=args.label)
-    s = write_comparison(table, args.out, targets=args.target,
-                         inputs=[*args.results, *(args.target or ())])
-    print(f"sourcelab: compared {len(args.results)} sessions, {s['n_rows']} rows: "
-          f"{s['changed']} changed (FDR q <= 0.05 and |RCI| >= 1.96); wrote {args.out}")
+    table = compare_sessions(args.results, n_boot=args.n_boot, seed=args.seed, labels=args.label)
+    s = write_comparison(
+        table, args.out, targets=args.target, inputs=[*args.results, *(args.target or ())]
+    )
+    print(
+        f"sourcelab: compared {len(args.results)} sessions, {s['n_rows']} rows: "
+        f"{s['changed']} changed (FDR q <= 0.05 and |RCI| >= 1.96); wrote {args.out}"
+    )
     ch = table[table["verdict"] != "no change"]
     if len(ch):
-        cols = ["session_b", "atlas", "roi", "hemisphere", "band", "measure", "change_t",
-                "change_z", "rci", "verdict"]
+        cols = [
+            "session_b",
+            "atlas",
+            "roi",
+            "hemisphere",
+            "band",
+            "measure",
+            "change_t",
+            "change_z",
+            "rci",
+            "verdict",
+        ]
         print(ch[cols].head(20).to_string(index=False, float_format=lambda v: f"{v:+.2f}"))
-    print("A change between sessions is a statistical statement about these recordings; "
-          "whether it matters, and why it happened, rests with the practitioner.")
+    print(
+        "A change between sessions is a statistical statement about these recordings; "
+        "whether it matters, and why it happened, rests with the practitioner."
+    )
     print(SHORT)
     return 0

@@ -16,14 +16,20 @@ def add_parser(sub) -> None:
     """
     from .analyze import add_output_options
 
-    p = sub.add_parser("demo", help="run the pipeline on an invented demo participant",
-                       description="Simulate an invented participant (no real data), analyse it "
-                                   "against invented demo norms, and write tables, figures and "
-                                   "the report.")
+    p = sub.add_parser(
+        "demo",
+        help="run the pipeline on an invented demo participant",
+        description="Simulate an invented participant (no real data), analyse it "
+        "against invented demo norms, and write tables, figures and "
+        "the report.",
+    )
     p.add_argument("--out", default="sourcelab-demo", help="output folder (default: %(default)s)")
     add_output_options(p)
-    p.add_argument("--rebuild-norms", metavar="TSV",
-                   help="instead of the demo, rebuild the invented demo norms into TSV")
+    p.add_argument(
+        "--rebuild-norms",
+        metavar="TSV",
+        help="instead of the demo, rebuild the invented demo norms into TSV",
+    )
     p.set_defaults(func=run)
 
 
@@ -58,29 +64,52 @@ def run(args) -> int:
         print(f"sourcelab: wrote invented demo norms {out}")
         return 0
     out = Path(args.out)  # checked by the CLI pre-flight (sourcelab.cli.main.preflight)
-    print("sourcelab: demo — an INVENTED participant (demo-01, 41 y, eyes closed, simulated by "
-          "sourcelab) against INVENTED norms (80 simulated adults). No real person's data.")
+    print(
+        "sourcelab: demo — an INVENTED participant (demo-01, 41 y, eyes closed, simulated by "
+        "sourcelab) against INVENTED norms (80 simulated adults). No real person's data."
+    )
     with atomic_output_dir(out, kind="demo") as tmp:
-        with Stages(["simulating the invented recording"], desc="demo",
-                    enabled=progress) as st:
+        with Stages(["simulating the invented recording"], desc="demo", enabled=progress) as st:
             st.step("simulating the invented recording")
-            edf = demo.write_edf(demo.demo_recording(), tmp / "demo-01_invented_eeg.edf",
-                                 description="INVENTED demo recording simulated by sourcelab")
-        result = analyze(edf, config=AnalysisConfig(), age=demo.DEMO_AGE,
-                         norms=demo.demo_norms_path(), condition=demo.DEMO_CONDITION,
-                         progress=progress)
+            edf = demo.write_edf(
+                demo.demo_recording(),
+                tmp / "demo-01_invented_eeg.edf",
+                description="INVENTED demo recording simulated by sourcelab",
+            )
+        result = analyze(
+            edf,
+            config=AnalysisConfig(),
+            age=demo.DEMO_AGE,
+            norms=demo.demo_norms_path(),
+            condition=demo.DEMO_CONDITION,
+            progress=progress,
+        )
         # record where the recording will be after the folder is renamed into place
-        result = dataclasses.replace(result, recording=dataclasses.replace(
-            result.recording, path=str(out / edf.name)))
-        write_analysis_into(result, tmp, figures=not args.no_figures,
-                            report=not args.no_report, exports=not args.no_maps,
-                            command=["sourcelab", "demo"], progress=progress)
+        result = dataclasses.replace(
+            result, recording=dataclasses.replace(result.recording, path=str(out / edf.name))
+        )
+        write_analysis_into(
+            result,
+            tmp,
+            figures=not args.no_figures,
+            report=not args.no_report,
+            exports=not args.no_maps,
+            command=["sourcelab", "demo"],
+            progress=progress,
+        )
     t = result.roi_table
     pl = demo.PLANTED
-    rows = t[(t.atlas == "brodmann") & t.roi.isin(pl["rois"]) & (t.hemisphere == pl["hemisphere"])
-             & (t.band == pl["band"]) & (t.measure == "absolute")]
+    rows = t[
+        (t.atlas == "brodmann")
+        & t.roi.isin(pl["rois"])
+        & (t.hemisphere == pl["hemisphere"])
+        & (t.band == pl["band"])
+        & (t.measure == "absolute")
+    ]
     zs = ", ".join(f"{r.roi} z = {r.z:+.2f}" for r in rows.itertuples())
-    print(f"sourcelab: planted (invented) deviation, {pl['band']} in {pl['hemisphere']} "
-          f"dorsolateral prefrontal cortex: {zs}")
+    print(
+        f"sourcelab: planted (invented) deviation, {pl['band']} in {pl['hemisphere']} "
+        f"dorsolateral prefrontal cortex: {zs}"
+    )
     print_summary(result, out)
     return 0

@@ -20,21 +20,36 @@ def add_parser(sub) -> None:
     sub : argparse._SubParsersAction
         The ``sourcelab`` parser's sub-parsers; the new parser's ``func`` is :func:`run`.
     """
-    p = sub.add_parser("leakage", help="ROI-to-ROI leakage (cross-talk) of the inverse",
-                       description="Share of an ROI's expected power that comes from each other "
-                                   "ROI when every cortical source is equally active "
-                                   "(uncorrelated, noise-free), for the chosen inverse.")
+    p = sub.add_parser(
+        "leakage",
+        help="ROI-to-ROI leakage (cross-talk) of the inverse",
+        description="Share of an ROI's expected power that comes from each other "
+        "ROI when every cortical source is equally active "
+        "(uncorrelated, noise-free), for the chosen inverse.",
+    )
     p.add_argument("roi", help="ROI name, e.g. BA17 or default-mode (case-insensitive)")
     p.add_argument("--atlas", default="brodmann", help="atlas name (default brodmann)")
-    p.add_argument("--hemisphere", choices=("left", "right", "both"),
-                   help="hemisphere, needed when the name exists in several")
+    p.add_argument(
+        "--hemisphere",
+        choices=("left", "right", "both"),
+        help="hemisphere, needed when the name exists in several",
+    )
     p.add_argument("--top", type=int, default=10, help="number of leakers to list (default 10)")
-    p.add_argument("--method", choices=("sLORETA", "eLORETA", "dSPM"), default="sLORETA",
-                   help="inverse method (default sLORETA)")
-    p.add_argument("--orientation", choices=("fixed", "free"), default="fixed",
-                   help="source orientation (default fixed)")
-    p.add_argument("--snr", type=float, default=3.0,
-                   help="amplitude SNR; lambda2 = 1/SNR^2 (default 3)")
+    p.add_argument(
+        "--method",
+        choices=("sLORETA", "eLORETA", "dSPM"),
+        default="sLORETA",
+        help="inverse method (default sLORETA)",
+    )
+    p.add_argument(
+        "--orientation",
+        choices=("fixed", "free"),
+        default="fixed",
+        help="source orientation (default fixed)",
+    )
+    p.add_argument(
+        "--snr", type=float, default=3.0, help="amplitude SNR; lambda2 = 1/SNR^2 (default 3)"
+    )
     p.add_argument("--tsv", metavar="FILE", help="also write the whole matrix as TSV")
     p.add_argument("--plot", metavar="PNG", help="also write the matrix heatmap as PNG")
     p.set_defaults(func=run)
@@ -73,8 +88,9 @@ def run(args) -> int:
         raise InputError("--plot must end in .png", path=args.plot)
     if args.tsv is not None and Path(args.tsv).suffix.lower() != ".tsv":
         raise InputError("--tsv must end in .tsv", path=args.tsv)
-    leak = leakage_for(args.atlas, method=args.method, orientation=args.orientation,
-                       lambda2=1.0 / args.snr**2)
+    leak = leakage_for(
+        args.atlas, method=args.method, orientation=args.orientation, lambda2=1.0 / args.snr**2
+    )
     table = leak.top(args.roi, args.hemisphere, n=args.top)
     written = []  # files first: the printing below may meet a closed stdout
     if args.tsv is not None:
@@ -89,11 +105,12 @@ def run(args) -> int:
         plt.close(fig)
         written.append(args.plot)
     me = table.iloc[0]
-    print(f"{me.roi} ({me.hemisphere}), atlas {args.atlas}, {args.method} {args.orientation}, "
-          f"SNR {args.snr:g}: {100 * me.share:.1f} % of its expected power comes from its own "
-          "sources (spatially white, noise-free activity).")
-    shown = table.assign(share=(100 * table.share).round(2),
-                         distance_mm=table.distance_mm.round(1))
+    print(
+        f"{me.roi} ({me.hemisphere}), atlas {args.atlas}, {args.method} {args.orientation}, "
+        f"SNR {args.snr:g}: {100 * me.share:.1f} % of its expected power comes from its own "
+        "sources (spatially white, noise-free activity)."
+    )
+    shown = table.assign(share=(100 * table.share).round(2), distance_mm=table.distance_mm.round(1))
     shown = shown.rename(columns={"share": "share_%"})
     print(shown.to_string(index=False, na_rep="-"))
     for path in written:

@@ -49,8 +49,13 @@ _TARGET_ACTIONS = ("list", "export", "replay", "stream")
 #: Largest input files accepted by the pre-flight (beyond them the readers would only exhaust
 #: memory): configuration and ROI files are text of a few KB; norms tables a few MB;
 #: participants tables a few hundred KB.
-_MAX_BYTES = {"--config": 1 << 20, "--rois": 16 << 20, "--norms": 256 << 20,
-              "--participants": 64 << 20, "target": 64 << 20}
+_MAX_BYTES = {
+    "--config": 1 << 20,
+    "--rois": 16 << 20,
+    "--norms": 256 << 20,
+    "--participants": 64 << 20,
+    "target": 64 << 20,
+}
 #: Plausible ages, years (the norms' own ranges are checked when z-scores are computed).
 _AGE_RANGE = (0.0, 130.0)
 
@@ -72,13 +77,18 @@ def _get_parser() -> argparse.ArgumentParser:
     p = _Parser(
         prog="sourcelab",
         description="Source-level quantitative EEG: sLORETA band power on the fsaverage template, "
-                    "Brodmann areas and networks, z-scores against norms. Supports assessment and "
-                    "research; not a diagnostic device.")
+        "Brodmann areas and networks, z-scores against norms. Supports assessment and "
+        "research; not a diagnostic device.",
+    )
     p.add_argument("--version", action="version", version=f"sourcelab {__version__}")
     p.add_argument("-v", "--verbose", action="count", default=0, help="more log output")
-    p.add_argument("-q", "--quiet", action="store_true",
-                   help="no progress bars and no warnings on the terminal (errors still show; "
-                        "warnings are kept in provenance.json)")
+    p.add_argument(
+        "-q",
+        "--quiet",
+        action="store_true",
+        help="no progress bars and no warnings on the terminal (errors still show; "
+        "warnings are kept in provenance.json)",
+    )
     sub = p.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for name, modname in COMMANDS.items():
         importlib.import_module(modname).add_parser(sub)
@@ -163,10 +173,21 @@ def _value_options(parser: argparse.ArgumentParser) -> tuple[set, set]:
                 stack.extend(a.choices.values())
                 continue
             every.update(a.option_strings)
-            if a.option_strings and a.nargs is None and a.const is None and \
-                    not isinstance(a, (argparse._StoreTrueAction, argparse._StoreFalseAction,
-                                       argparse._CountAction, argparse._VersionAction,
-                                       argparse._HelpAction)):
+            if (
+                a.option_strings
+                and a.nargs is None
+                and a.const is None
+                and not isinstance(
+                    a,
+                    (
+                        argparse._StoreTrueAction,
+                        argparse._StoreFalseAction,
+                        argparse._CountAction,
+                        argparse._VersionAction,
+                        argparse._HelpAction,
+                    ),
+                )
+            ):
                 takes.update(a.option_strings)
     return takes, every
 
@@ -185,8 +206,7 @@ def _join_negative_values(argv: list[str], parser) -> list[str]:
             out.extend(argv[i:])
             break
         nxt = argv[i + 1] if i + 1 < len(argv) else None
-        if tok in takes and nxt is not None and _NEGATIVE_LOOKING.match(nxt) \
-                and nxt not in every:
+        if tok in takes and nxt is not None and _NEGATIVE_LOOKING.match(nxt) and nxt not in every:
             out.append(f"{tok}={nxt}")
             i += 2
             continue
@@ -198,6 +218,7 @@ def _join_negative_values(argv: list[str], parser) -> list[str]:
 # --------------------------------------------------------------------------------------------
 # Pre-flight: every input, option and output checked before any computation
 # --------------------------------------------------------------------------------------------
+
 
 def _opt(args, name):
     return getattr(args, name, None)
@@ -247,8 +268,11 @@ def _check_bids_root(args, inputs) -> None:
         except (InputError, KeyError, IndexError, TypeError):
             ours = False
         if desc.is_symlink() or not ours:
-            raise InputError("--bids-root: exists and was not written by sourcelab; sourcelab "
-                             "does not overwrite it", path=desc)
+            raise InputError(
+                "--bids-root: exists and was not written by sourcelab; sourcelab "
+                "does not overwrite it",
+                path=desc,
+            )
     check_output_dir(deriv / f"sub-{label}", kind="bids", inputs=inputs, name="--bids-root")
 
 
@@ -288,11 +312,20 @@ def preflight(args) -> None:
     inputs: list[Path] = []
     if _opt(args, "age") is not None:
         check_number("--age", args.age, low=_AGE_RANGE[0], high=_AGE_RANGE[1])
-    for opt, low, high in (("workers", 1, 1024), ("top", 1, 100_000), ("max_n", 1, 10**9),
-                           ("filter_order", 1, 12)):
+    for opt, low, high in (
+        ("workers", 1, 1024),
+        ("top", 1, 100_000),
+        ("max_n", 1, 10**9),
+        ("filter_order", 1, 12),
+    ):
         if _opt(args, opt) is not None:
-            check_number("--" + {"max_n": "max"}.get(opt, opt).replace("_", "-"),
-                         getattr(args, opt), kind=int, low=low, high=high)
+            check_number(
+                "--" + {"max_n": "max"}.get(opt, opt).replace("_", "-"),
+                getattr(args, opt),
+                kind=int,
+                low=low,
+                high=high,
+            )
     if cmd == "leakage":
         check_number("--snr", args.snr, low=0.0, high=1000.0, low_open=True)
     _check_config_inputs(args, inputs)
@@ -306,8 +339,9 @@ def preflight(args) -> None:
             _check_bids_root(args, inputs)
     elif cmd == "demo":
         if args.rebuild_norms:
-            out = check_output_file(args.rebuild_norms, kind="norms", name="--rebuild-norms",
-                                    suffixes=(".tsv",))
+            out = check_output_file(
+                args.rebuild_norms, kind="norms", name="--rebuild-norms", suffixes=(".tsv",)
+            )
             check_output_file(out.with_suffix(".json"), kind="sidecar", name="--rebuild-norms")
         else:
             check_output_dir(args.out, kind="demo")
@@ -324,8 +358,9 @@ def preflight(args) -> None:
             for suffix, kind in (("_calibration.tsv", "calibration"), ("_calibration.png", "png")):
                 check_output_file(out.with_name(out.stem + suffix), kind=kind, inputs=inputs)
             if Path(args.out).resolve().is_relative_to(cohort.resolve()):
-                raise InputError("--out: lies inside the cohort folder; write the norms "
-                                 "elsewhere", path=args.out)
+                raise InputError(
+                    "--out: lies inside the cohort folder; write the norms elsewhere", path=args.out
+                )
     elif cmd == "targets":
         if args.targets_cmd in ("list", "export"):
             check_path("result folder", args.result_dir, kind="dir")
@@ -335,27 +370,27 @@ def preflight(args) -> None:
         elif args.targets_cmd == "export":
             check_output_file(args.out, kind="target", suffixes=(".json",), inputs=inputs)
         elif args.targets_cmd == "replay":
-            inputs.append(check_path("target", args.target, kind="file",
-                                     max_bytes=_MAX_BYTES["target"]))
+            inputs.append(
+                check_path("target", args.target, kind="file", max_bytes=_MAX_BYTES["target"])
+            )
             inputs.extend(_recording_inputs(args.recording))
             check_output_dir(args.out, kind="replay", inputs=inputs)
         elif args.targets_cmd == "stream":
             check_path("target", args.target, kind="file", max_bytes=_MAX_BYTES["target"])
             for opt in ("duration", "timeout"):
                 if getattr(args, opt) is not None:
-                    check_number(f"--{opt}", getattr(args, opt), low=0.0, high=1e7,
-                                 low_open=True)
+                    check_number(f"--{opt}", getattr(args, opt), low=0.0, high=1e7, low_open=True)
             if args.updates is not None:
                 check_number("--updates", args.updates, kind=int, low=1, high=10**9)
             if args.log is not None:
-                check_output_file(args.log, kind="stream-log", name="--log",
-                                  suffixes=(".tsv", ".txt"))
+                check_output_file(
+                    args.log, kind="stream-log", name="--log", suffixes=(".tsv", ".txt")
+                )
     elif cmd == "compare":
         for folder in args.results:
             inputs.append(check_path("result folder", folder, kind="dir"))
         for target in args.target or ():
-            inputs.append(check_path("target", target, kind="file",
-                                     max_bytes=_MAX_BYTES["target"]))
+            inputs.append(check_path("target", target, kind="file", max_bytes=_MAX_BYTES["target"]))
         check_number("--n-boot", args.n_boot, kind=int, low=100, high=100_000)
         check_output_dir(args.out, kind="compare", inputs=inputs)
     elif cmd == "leakage":
@@ -363,8 +398,11 @@ def preflight(args) -> None:
             check_output_file(args.tsv, kind="leakage", name="--tsv", suffixes=(".tsv",))
         if args.plot is not None:
             check_output_file(args.plot, kind="png", name="--plot", suffixes=(".png",))
-        if args.tsv is not None and args.plot is not None and \
-                Path(args.tsv).resolve() == Path(args.plot).resolve():
+        if (
+            args.tsv is not None
+            and args.plot is not None
+            and Path(args.tsv).resolve() == Path(args.plot).resolve()
+        ):
             raise InputError("--tsv and --plot name the same file", path=args.tsv)
     elif cmd == "batch":
         for text in args.inputs:
@@ -392,8 +430,12 @@ def main(argv: list[str] | None = None) -> int:
     """
     parser = _get_parser()
     argv = list(sys.argv[1:] if argv is None else argv)
-    if (len(argv) >= 2 and argv[0] == "targets" and argv[1] not in _TARGET_ACTIONS
-            and not argv[1].startswith("-")):
+    if (
+        len(argv) >= 2
+        and argv[0] == "targets"
+        and argv[1] not in _TARGET_ACTIONS
+        and not argv[1].startswith("-")
+    ):
         argv.insert(1, "list")
     argv = _join_negative_values(argv, parser)
     try:
@@ -433,8 +475,11 @@ def main(argv: list[str] | None = None) -> int:
         if args.verbose:
             raise
         msg = " ".join(str(exc).split())[:300]
-        print(f"sourcelab: internal error: {type(exc).__name__}: {msg} (please report it; run "
-              "with -v for details)", file=sys.stderr)
+        print(
+            f"sourcelab: internal error: {type(exc).__name__}: {msg} (please report it; run "
+            "with -v for details)",
+            file=sys.stderr,
+        )
         return 1
     finally:
         guard.flush()

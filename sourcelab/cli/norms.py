@@ -20,16 +20,30 @@ def add_parser(sub) -> None:
     b.add_argument("cohort", help="folder of recordings or a BIDS dataset")
     b.add_argument("--participants", required=True, help="participants.tsv (BIDS convention)")
     b.add_argument("--out", required=True, help="norms TSV to write")
-    b.add_argument("--condition", metavar="CONDITION",
-                   help='condition of the reference recordings, e.g. "eyes closed" (EC and EO '
-                        "are accepted); needed when participants.tsv has no condition column, "
-                        "else it selects the participants with that condition")
-    b.add_argument("--model", choices=("regression", "binned"), default="regression",
-                   help="age model (default: %(default)s)")
-    b.add_argument("--workers", type=int, default=1,
-                   help="analyse recordings in parallel worker processes (default 1)")
-    b.add_argument("--engine", choices=("serial", "processes", "dask"),
-                   help="batch engine (default: serial for 1 worker, else processes)")
+    b.add_argument(
+        "--condition",
+        metavar="CONDITION",
+        help='condition of the reference recordings, e.g. "eyes closed" (EC and EO '
+        "are accepted); needed when participants.tsv has no condition column, "
+        "else it selects the participants with that condition",
+    )
+    b.add_argument(
+        "--model",
+        choices=("regression", "binned"),
+        default="regression",
+        help="age model (default: %(default)s)",
+    )
+    b.add_argument(
+        "--workers",
+        type=int,
+        default=1,
+        help="analyse recordings in parallel worker processes (default 1)",
+    )
+    b.add_argument(
+        "--engine",
+        choices=("serial", "processes", "dask"),
+        help="batch engine (default: serial for 1 worker, else processes)",
+    )
     b.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address")
     add_common_options(b)
     b.set_defaults(func=run)
@@ -63,11 +77,20 @@ def run(args) -> int:
     from .analyze import config_from_args, progress_flag
 
     with make_engine(args.engine, workers=args.workers, scheduler=args.scheduler) as engine:
-        built = build_norms(args.cohort, args.participants, config=config_from_args(args),
-                            out=args.out, condition=args.condition, model=args.model,
-                            engine=engine, progress=progress_flag(args))
+        built = build_norms(
+            args.cohort,
+            args.participants,
+            config=config_from_args(args),
+            out=args.out,
+            condition=args.condition,
+            model=args.model,
+            engine=engine,
+            progress=progress_flag(args),
+        )
     for pid, message in built.failures:
         print(f"sourcelab: skipped {pid}: {message}")
-    print(f"sourcelab: wrote {args.out} ({built.norms.cohort.get('n', '?')} participants); "
-          f"calibration report {built.report_path}")
+    print(
+        f"sourcelab: wrote {args.out} ({built.norms.cohort.get('n', '?')} participants); "
+        f"calibration report {built.report_path}"
+    )
     return 0

@@ -28,15 +28,19 @@ def add_parser(sub) -> None:
     sub : argparse._SubParsersAction
         The ``sourcelab`` parser's sub-parsers; every action's ``func`` is :func:`run`.
     """
-    p = sub.add_parser("targets", help="deviating regions/networks, target files and replay",
-                       description=__doc__.split("\n\n")[0] + " " + SHORT)
+    p = sub.add_parser(
+        "targets",
+        help="deviating regions/networks, target files and replay",
+        description=__doc__.split("\n\n")[0] + " " + SHORT,
+    )
     tsub = p.add_subparsers(dest="targets_cmd", metavar="ACTION", required=True)
 
     ls = tsub.add_parser("list", help="rank ROIs and networks that deviate from the norm")
     ls.add_argument("result_dir", help="analysis folder made with norms")
     ls.add_argument("--max", type=int, default=None, dest="max_n", help="show the first N rows")
-    ls.add_argument("--atlas", action="append", default=None,
-                    help="restrict to this atlas (repeatable)")
+    ls.add_argument(
+        "--atlas", action="append", default=None, help="restrict to this atlas (repeatable)"
+    )
     ls.add_argument("--out", default=None, help="also write the table as TSV")
     ls.set_defaults(func=run)
 
@@ -47,28 +51,58 @@ def add_parser(sub) -> None:
     what.add_argument("--pair", help="electrode pair, e.g. F3-F4")
     what.add_argument("--edge", help='network/lobe edge, e.g. "visual.left|visual.right"')
     ex.add_argument("--hemisphere", choices=("left", "right", "both"), default=None)
-    ex.add_argument("--atlas", default=None,
-                    help="atlas of the ROI (default brodmann) or of the edge")
+    ex.add_argument(
+        "--atlas", default=None, help="atlas of the ROI (default brodmann) or of the edge"
+    )
     ex.add_argument("--band", required=True)
-    ex.add_argument("--measure", default=None,
-                    help="ROI: absolute (default) or relative; pair: a pair measure (default "
-                         "msc) or asymmetry; edge: an edge measure (default lagcoh)")
-    ex.add_argument("--window-segments", type=int, default=None,
-                    help="pair/edge: segments in the feedback window (default 15)")
-    ex.add_argument("--norms", default=None,
-                    help="norms file (default: the one recorded in the analysis)")
-    ex.add_argument("--allow-extrapolation", action="store_true",
-                    help="use the nearest age range when the age lies outside the norms")
-    ex.add_argument("--filter-order", type=int, default=4,
-                    help="Butterworth order per band edge (higher: less leakage, more delay)")
-    ex.add_argument("--smoothing", choices=("exponential", "moving", "none"),
-                    default="exponential", help="smoothing of the live value (default exponential)")
-    ex.add_argument("--time-constant", type=float, default=2.0, metavar="S",
-                    help="smoothing time constant in seconds (default 2)")
-    ex.add_argument("--threshold-sd", type=float, default=None, metavar="K",
-                    help="feedback threshold: K smoothed-SDs from the person's own level towards "
-                         "the norm (no threshold by default; the choice rests with the "
-                         "practitioner)")
+    ex.add_argument(
+        "--measure",
+        default=None,
+        help="ROI: absolute (default) or relative; pair: a pair measure (default "
+        "msc) or asymmetry; edge: an edge measure (default lagcoh)",
+    )
+    ex.add_argument(
+        "--window-segments",
+        type=int,
+        default=None,
+        help="pair/edge: segments in the feedback window (default 15)",
+    )
+    ex.add_argument(
+        "--norms", default=None, help="norms file (default: the one recorded in the analysis)"
+    )
+    ex.add_argument(
+        "--allow-extrapolation",
+        action="store_true",
+        help="use the nearest age range when the age lies outside the norms",
+    )
+    ex.add_argument(
+        "--filter-order",
+        type=int,
+        default=4,
+        help="Butterworth order per band edge (higher: less leakage, more delay)",
+    )
+    ex.add_argument(
+        "--smoothing",
+        choices=("exponential", "moving", "none"),
+        default="exponential",
+        help="smoothing of the live value (default exponential)",
+    )
+    ex.add_argument(
+        "--time-constant",
+        type=float,
+        default=2.0,
+        metavar="S",
+        help="smoothing time constant in seconds (default 2)",
+    )
+    ex.add_argument(
+        "--threshold-sd",
+        type=float,
+        default=None,
+        metavar="K",
+        help="feedback threshold: K smoothed-SDs from the person's own level towards "
+        "the norm (no threshold by default; the choice rests with the "
+        "practitioner)",
+    )
     ex.add_argument("--out", required=True, help="TARGET.json")
     ex.set_defaults(func=run)
 
@@ -78,25 +112,48 @@ def add_parser(sub) -> None:
     rp.add_argument("--out", required=True, help="output folder")
     rp.set_defaults(func=run)
 
-    st = tsub.add_parser("stream", help="apply a target live to an LSL EEG stream and publish "
-                                        "the feedback value as an LSL stream")
+    st = tsub.add_parser(
+        "stream",
+        help="apply a target live to an LSL EEG stream and publish "
+        "the feedback value as an LSL stream",
+    )
     st.add_argument("target", help="TARGET.json")
     st.add_argument("--name", default=None, help="input LSL stream name")
-    st.add_argument("--type", default=None, dest="stype",
-                    help="input LSL stream type (default EEG when no name or source id is given)")
+    st.add_argument(
+        "--type",
+        default=None,
+        dest="stype",
+        help="input LSL stream type (default EEG when no name or source id is given)",
+    )
     st.add_argument("--source-id", default=None, help="input LSL stream source id")
-    st.add_argument("--out-name", default=None,
-                    help="name of the published stream (default sourcelab-feedback)")
-    st.add_argument("--unit", choices=("auto", "uV", "V"), default="auto",
-                    help="input unit (default: the stream's declared channel units)")
-    st.add_argument("--duration", type=float, default=None, metavar="S",
-                    help="stop after S seconds")
-    st.add_argument("--updates", type=int, default=None, metavar="N",
-                    help="stop after N published values")
-    st.add_argument("--timeout", type=float, default=5.0, metavar="S",
-                    help="seconds allowed to find the input stream (default 5)")
-    st.add_argument("--log", default=None, metavar="FILE.tsv",
-                    help="also write every published value (and its latency) as TSV")
+    st.add_argument(
+        "--out-name", default=None, help="name of the published stream (default sourcelab-feedback)"
+    )
+    st.add_argument(
+        "--unit",
+        choices=("auto", "uV", "V"),
+        default="auto",
+        help="input unit (default: the stream's declared channel units)",
+    )
+    st.add_argument(
+        "--duration", type=float, default=None, metavar="S", help="stop after S seconds"
+    )
+    st.add_argument(
+        "--updates", type=int, default=None, metavar="N", help="stop after N published values"
+    )
+    st.add_argument(
+        "--timeout",
+        type=float,
+        default=5.0,
+        metavar="S",
+        help="seconds allowed to find the input stream (default 5)",
+    )
+    st.add_argument(
+        "--log",
+        default=None,
+        metavar="FILE.tsv",
+        help="also write every published value (and its latency) as TSV",
+    )
     st.set_defaults(func=run)
 
 
@@ -107,19 +164,55 @@ def _list(args) -> int:
     # the analysis' own candidates (z-map peaks) unless areas of given atlases are asked for
     table = None if args.atlas else read_candidates(args.result_dir)
     if table is None:
-        table = candidates_from_folder(args.result_dir, max_n=args.max_n,
-                                       include=tuple(args.atlas) if args.atlas else None)
-        cols = ["rank", "kind", "atlas", "roi", "hemisphere", "band", "measure", "z",
-                "direction", "fdr", "n_vertices", "small", "neighbours_same", "n_neighbours",
-                "members_deviating", "n_members"]
+        table = candidates_from_folder(
+            args.result_dir, max_n=args.max_n, include=tuple(args.atlas) if args.atlas else None
+        )
+        cols = [
+            "rank",
+            "kind",
+            "atlas",
+            "roi",
+            "hemisphere",
+            "band",
+            "measure",
+            "z",
+            "direction",
+            "fdr",
+            "n_vertices",
+            "small",
+            "neighbours_same",
+            "n_neighbours",
+            "members_deviating",
+            "n_members",
+        ]
     else:
         table = table.head(args.max_n) if args.max_n else table
-        cols = [c for c in ("rank", "role", "band", "measure", "direction", "area",
-                            "hemisphere", "lobe", "peak_z", "x_mni152", "y_mni152", "z_mni152",
-                            "border_mm", "own_share", "probability") if c in table.columns]
+        cols = [
+            c
+            for c in (
+                "rank",
+                "role",
+                "band",
+                "measure",
+                "direction",
+                "area",
+                "hemisphere",
+                "lobe",
+                "peak_z",
+                "x_mni152",
+                "y_mni152",
+                "z_mni152",
+                "border_mm",
+                "own_share",
+                "probability",
+            )
+            if c in table.columns
+        ]
     print(SHORT)
-    print("Statistical deviation only; whether to train any of these rests with a licensed "
-          "practitioner who weighs symptoms and history.")
+    print(
+        "Statistical deviation only; whether to train any of these rests with a licensed "
+        "practitioner who weighs symptoms and history."
+    )
     if table.empty:
         print("no area or network deviates beyond |z| = 1.96")
     else:
@@ -140,31 +233,49 @@ def _export(args) -> int:
         from ..targets.coupling import WINDOW_SEGMENTS
 
         kind = "pair" if args.pair is not None else "edge"
-        t = export_coupling_target(args.result_dir, kind=kind, label=args.pair or args.edge,
-                                   band=args.band, measure=args.measure, atlas=args.atlas,
-                                   norms=args.norms,
-                                   allow_extrapolation=args.allow_extrapolation,
-                                   window_segments=args.window_segments or WINDOW_SEGMENTS)
+        t = export_coupling_target(
+            args.result_dir,
+            kind=kind,
+            label=args.pair or args.edge,
+            band=args.band,
+            measure=args.measure,
+            atlas=args.atlas,
+            norms=args.norms,
+            allow_extrapolation=args.allow_extrapolation,
+            window_segments=args.window_segments or WINDOW_SEGMENTS,
+        )
         write_target(t, args.out)
         z = t.offline.get("z")
         zs = f", offline z {z:+.2f}" if z is not None else ", no norm"
-        print(f"sourcelab: wrote {args.out} ({t.name}, value {t.offline['value']:.4g}{zs}, "
-              f"direction {t.direction})")
+        print(
+            f"sourcelab: wrote {args.out} ({t.name}, value {t.offline['value']:.4g}{zs}, "
+            f"direction {t.direction})"
+        )
         return 0
     measure = args.measure or "absolute"
     if measure not in ("absolute", "relative"):
         raise InputError(f"--measure {measure!r}: an ROI target is absolute or relative power")
-    t = export_target(args.result_dir, roi=args.roi, band=args.band,
-                      atlas=args.atlas or "brodmann", hemisphere=args.hemisphere,
-                      measure=measure, norms=args.norms,
-                      allow_extrapolation=args.allow_extrapolation,
-                      filter_order=args.filter_order, smoothing=args.smoothing,
-                      time_constant_s=args.time_constant, threshold_sd=args.threshold_sd)
+    t = export_target(
+        args.result_dir,
+        roi=args.roi,
+        band=args.band,
+        atlas=args.atlas or "brodmann",
+        hemisphere=args.hemisphere,
+        measure=measure,
+        norms=args.norms,
+        allow_extrapolation=args.allow_extrapolation,
+        filter_order=args.filter_order,
+        smoothing=args.smoothing,
+        time_constant_s=args.time_constant,
+        threshold_sd=args.threshold_sd,
+    )
     write_target(t, args.out)
     z = t.offline.get("z")
     zs = f", offline z {z:+.2f}" if z is not None else ", no norm"
-    print(f"sourcelab: wrote {args.out} ({t.name}, {t.vertices.size} sources{zs}, "
-          f"direction {t.direction})")
+    print(
+        f"sourcelab: wrote {args.out} ({t.name}, {t.vertices.size} sources{zs}, "
+        f"direction {t.direction})"
+    )
     for line in live_summary(t):
         print(f"sourcelab: {line}")
     return 0
@@ -196,15 +307,19 @@ def live_summary(t) -> list[str]:
         w, s = exp["window"], exp["smoothed"]
         wz = f" = {w['z']:.2f} z" if w.get("z") is not None else ""
         sz = f" = {s['z']:.2f} z" if s.get("z") is not None else ""
-        out.append(f"expected live SD at the person's steady state: {w['transformed']:.3f} "
-                   f"{unit}{wz} per {t.window_s:g}-s window; {s['transformed']:.3f}{sz} after "
-                   f"{sm.get('kind', 'exponential')} smoothing (time constant "
-                   f"{float(sm.get('time_constant_s', 2.0)):g} s)")
+        out.append(
+            f"expected live SD at the person's steady state: {w['transformed']:.3f} "
+            f"{unit}{wz} per {t.window_s:g}-s window; {s['transformed']:.3f}{sz} after "
+            f"{sm.get('kind', 'exponential')} smoothing (time constant "
+            f"{float(sm.get('time_constant_s', 2.0)):g} s)"
+        )
     th = live.get("threshold")
     if th is not None:
         zt = f", z {th['z']:+.2f}" if th.get("z") is not None else ""
-        out.append(f"threshold: smoothed value {th['direction']} to {th['level']:.3f} {unit} "
-                   f"({th['k_sd']:g} smoothed SD from the person's level{zt})")
+        out.append(
+            f"threshold: smoothed value {th['direction']} to {th['level']:.3f} {unit} "
+            f"({th['k_sd']:g} smoothed SD from the person's level{zt})"
+        )
     out.append("live values are noisy; the threshold and the decision rest with the practitioner")
     return out
 
@@ -214,16 +329,20 @@ def _replay(args) -> int:
 
     target = read_target(args.target)
     s = replay_recording(target, args.recording, args.out)
-    if "pooled_value" in s:                 # a pair or edge target
+    if "pooled_value" in s:  # a pair or edge target
         diff = s["difference_to_offline"]
         extra = f", {diff:+.4g} from the offline value" if diff is not None else ""
-        print(f"sourcelab: {s['n_clean']} of {s['n_segments']} segments clean; value over all "
-              f"clean segments {s['pooled_value']:.4g}{extra}; wrote {args.out}")
+        print(
+            f"sourcelab: {s['n_clean']} of {s['n_segments']} segments clean; value over all "
+            f"clean segments {s['pooled_value']:.4g}{extra}; wrote {args.out}"
+        )
         return 0
     ratio = s["ratio_to_offline"]
     extra = f", {ratio:.3f} x the offline value" if ratio is not None else ""
-    print(f"sourcelab: {s['n_clean']} of {s['n_windows']} windows clean; mean power "
-          f"{s['clean_mean_power']:.4g}{extra}; wrote {args.out}")
+    print(
+        f"sourcelab: {s['n_clean']} of {s['n_windows']} windows clean; mean power "
+        f"{s['clean_mean_power']:.4g}{extra}; wrote {args.out}"
+    )
     return 0
 
 
@@ -239,9 +358,11 @@ def _stream(args) -> int:
         raise InputError("live streaming needs mne-lsl: pip install 'sourcelab[live]'") from None
     target = read_target(args.target)
     if getattr(target, "kind", "roi") in ("pair", "edge"):
-        raise InputError(f"a {target.kind} target can be replayed (sourcelab targets replay) but "
-                         "not streamed live: live streaming takes area targets",
-                         path=args.target)
+        raise InputError(
+            f"a {target.kind} target can be replayed (sourcelab targets replay) but "
+            "not streamed live: live streaming takes area targets",
+            path=args.target,
+        )
     if args.log is not None and Path(args.log).suffix.lower() not in (".tsv", ".txt"):
         raise InputError("--log must end in .tsv", path=args.log)
     for v, flag in ((args.duration, "--duration"), (args.updates, "--updates")):
@@ -255,17 +376,28 @@ def _stream(args) -> int:
         print(f"sourcelab: {msg}", file=sys.stderr, flush=True)
 
     try:
-        s = run_stream(target, name=args.name, stype=args.stype, source_id=args.source_id,
-                       out_name=args.out_name, duration_s=args.duration,
-                       max_updates=args.updates, unit=args.unit, timeout_s=args.timeout,
-                       log_path=args.log, say=say)
+        s = run_stream(
+            target,
+            name=args.name,
+            stype=args.stype,
+            source_id=args.source_id,
+            out_name=args.out_name,
+            duration_s=args.duration,
+            max_updates=args.updates,
+            unit=args.unit,
+            timeout_s=args.timeout,
+            log_path=args.log,
+            say=say,
+        )
     except KeyboardInterrupt:
         print("sourcelab: stopped")
         return 0
     flags = ", ".join(f"{k} {v}" for k, v in sorted(s["by_status"].items()))
-    print(f"sourcelab: published {s['rows']} values on {s['output']!r} ({flags}); latency "
-          f"sample arrival to publication median {s['latency_ms_median']:.2f} ms, 95th "
-          f"percentile {s['latency_ms_p95']:.2f} ms")
+    print(
+        f"sourcelab: published {s['rows']} values on {s['output']!r} ({flags}); latency "
+        f"sample arrival to publication median {s['latency_ms_median']:.2f} ms, 95th "
+        f"percentile {s['latency_ms_p95']:.2f} ms"
+    )
     return 0
 
 

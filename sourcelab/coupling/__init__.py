@@ -29,15 +29,50 @@ Norms for these measures: :mod:`sourcelab.norms.coupling` (transforms and z).  T
 
 from .measures import BAND_MEASURES, LAGGED_MEASURES, conjugation_null, pair_statistics
 from .pairs import PairSets, pair_sets
-from .sensor import (MEASURE_DESCRIPTIONS, MEASURE_UNITS, PAIR_COLUMN_NOTES, PAIR_COLUMNS,
-                     SensorCoupling, pair_table, sensor_coupling)
-from .source import (COUPLING_ATLASES, EDGE_COLUMN_NOTES, EDGE_COLUMNS, EDGE_MEASURES,
-                     EdgeCoupling, RoiFilters, coupling_table, independent_source_covariance,
-                     network_coupling, roi_filters)
+from .sensor import (
+    MEASURE_DESCRIPTIONS,
+    MEASURE_UNITS,
+    PAIR_COLUMN_NOTES,
+    PAIR_COLUMNS,
+    SensorCoupling,
+    pair_table,
+    sensor_coupling,
+)
+from .source import (
+    COUPLING_ATLASES,
+    EDGE_COLUMN_NOTES,
+    EDGE_COLUMNS,
+    EDGE_MEASURES,
+    EdgeCoupling,
+    RoiFilters,
+    coupling_table,
+    independent_source_covariance,
+    network_coupling,
+    roi_filters,
+)
 
-__all__ = ["BAND_MEASURES", "COUPLING_ATLASES", "EDGE_COLUMN_NOTES", "EDGE_COLUMNS",
-           "EDGE_MEASURES", "LAGGED_MEASURES", "MEASURE_DESCRIPTIONS", "MEASURE_UNITS",
-           "PAIR_COLUMN_NOTES", "PAIR_COLUMNS", "EdgeCoupling", "PairSets", "RoiFilters",
-           "SensorCoupling", "conjugation_null", "coupling_table",
-           "independent_source_covariance", "network_coupling", "pair_sets", "pair_statistics",
-           "pair_table", "roi_filters", "sensor_coupling"]
+__all__ = [
+    "BAND_MEASURES",
+    "COUPLING_ATLASES",
+    "EDGE_COLUMN_NOTES",
+    "EDGE_COLUMNS",
+    "EDGE_MEASURES",
+    "LAGGED_MEASURES",
+    "MEASURE_DESCRIPTIONS",
+    "MEASURE_UNITS",
+    "PAIR_COLUMN_NOTES",
+    "PAIR_COLUMNS",
+    "EdgeCoupling",
+    "PairSets",
+    "RoiFilters",
+    "SensorCoupling",
+    "conjugation_null",
+    "coupling_table",
+    "independent_source_covariance",
+    "network_coupling",
+    "pair_sets",
+    "pair_statistics",
+    "pair_table",
+    "roi_filters",
+    "sensor_coupling",
+]

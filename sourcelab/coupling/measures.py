@@ -76,17 +76,34 @@ STAT_NAMES = ("re", "im", "abs_im", "sq_im", "u_re", "u_im")
 #: Per-bin measures of :func:`bin_measures`.
 BIN_MEASURES = ("msc", "imcoh", "lagcoh", "wpli", "wpli2_debiased", "lps", "plv")
 #: Band measures of :func:`band_measures`, in table order.
-BAND_MEASURES = ("msc", "imcoh", "lagcoh", "wpli", "wpli2_debiased", "lps", "phase_deg",
-                 "lag_ms", "phase_sd_deg")
+BAND_MEASURES = (
+    "msc",
+    "imcoh",
+    "lagcoh",
+    "wpli",
+    "wpli2_debiased",
+    "lps",
+    "phase_deg",
+    "lag_ms",
+    "phase_sd_deg",
+)
 #: Measures whose expectation is zero for instantaneous (zero-lag) mixing of independent sources.
 LAGGED_MEASURES = ("imcoh", "lagcoh", "wpli", "wpli2_debiased", "lps")
 #: Statistics whose sign flips when an epoch's cross-spectrum is conjugated.
 _ODD = ("im", "u_im")
 #: The statistics each band measure needs.
-_NEEDS = {"msc": ("re", "im"), "imcoh": ("im",), "lagcoh": ("re", "im"),
-          "wpli": ("im", "abs_im"), "wpli2_debiased": ("im", "abs_im", "sq_im"),
-          "lps": ("u_re", "u_im"), "plv": ("u_re", "u_im"), "phase_deg": ("re", "im"),
-          "lag_ms": ("re", "im"), "phase_sd_deg": ("u_re", "u_im")}
+_NEEDS = {
+    "msc": ("re", "im"),
+    "imcoh": ("im",),
+    "lagcoh": ("re", "im"),
+    "wpli": ("im", "abs_im"),
+    "wpli2_debiased": ("im", "abs_im", "sq_im"),
+    "lps": ("u_re", "u_im"),
+    "plv": ("u_re", "u_im"),
+    "phase_deg": ("re", "im"),
+    "lag_ms": ("re", "im"),
+    "phase_sd_deg": ("u_re", "u_im"),
+}
 
 
 @dataclass(frozen=True, eq=False)
@@ -115,8 +132,13 @@ class PairStatistics:
     def n_epochs(self) -> int:
         return self.power.shape[0]
 
-    def accumulate(self, weights: np.ndarray | None = None, *, signs: np.ndarray | None = None,
-                   names=STAT_NAMES) -> tuple[dict, np.ndarray]:
+    def accumulate(
+        self,
+        weights: np.ndarray | None = None,
+        *,
+        signs: np.ndarray | None = None,
+        names=STAT_NAMES,
+    ) -> tuple[dict, np.ndarray]:
         """Weighted epoch averages of the statistics.
 
         Parameters
@@ -141,7 +163,7 @@ class PairStatistics:
         k = self.n_epochs
         shape = self.power.shape[1:]
 
-        def mean(a):                    # float32 pairwise summation (fast), then float64
+        def mean(a):  # float32 pairwise summation (fast), then float64
             return (a.sum(axis=0) / np.float32(k)).astype(float)[None]
 
         if weights is None and signs is None:
@@ -151,15 +173,19 @@ class PairStatistics:
             acc = {}
             for n in names:
                 a = self.stats[n]
-                acc[n] = ((s @ a.reshape(k, -1)).reshape((s.shape[0],) + a.shape[1:])
-                          if n in _ODD else mean(a))
+                acc[n] = (
+                    (s @ a.reshape(k, -1)).reshape((s.shape[0],) + a.shape[1:])
+                    if n in _ODD
+                    else mean(a)
+                )
             return acc, mean(self.power)
         w = np.asarray(weights, dtype=np.float32)
         if w.ndim != 2 or w.shape[1] != k:
             raise InputError(f"weights: need shape (n_rep, {k}), got {w.shape}")
-        acc = {n: (w @ self.stats[n].reshape(k, -1)).reshape((w.shape[0],)
-                                                              + self.stats[n].shape[1:])
-               for n in names}
+        acc = {
+            n: (w @ self.stats[n].reshape(k, -1)).reshape((w.shape[0],) + self.stats[n].shape[1:])
+            for n in names
+        }
         pw = (w @ self.power.reshape(k, -1)).reshape((w.shape[0],) + shape)
         return acc, pw
 
@@ -169,11 +195,21 @@ def _statistics(s: np.ndarray, power: np.ndarray, ia, ib, freqs) -> PairStatisti
     mag = np.abs(s)
     u = np.divide(s, mag, out=np.zeros_like(s), where=mag > 0)
     im = np.ascontiguousarray(s.imag)
-    stats = {"re": np.ascontiguousarray(s.real), "im": im, "abs_im": np.abs(im),
-             "sq_im": im * im, "u_re": np.ascontiguousarray(u.real),
-             "u_im": np.ascontiguousarray(u.imag)}
-    return PairStatistics(stats=stats, power=np.ascontiguousarray(power, dtype=np.float32),
-                          ia=ia, ib=ib, freqs=np.asarray(freqs, dtype=float))
+    stats = {
+        "re": np.ascontiguousarray(s.real),
+        "im": im,
+        "abs_im": np.abs(im),
+        "sq_im": im * im,
+        "u_re": np.ascontiguousarray(u.real),
+        "u_im": np.ascontiguousarray(u.imag),
+    }
+    return PairStatistics(
+        stats=stats,
+        power=np.ascontiguousarray(power, dtype=np.float32),
+        ia=ia,
+        ib=ib,
+        freqs=np.asarray(freqs, dtype=float),
+    )
 
 
 def _check_pairs(pairs, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -237,34 +273,45 @@ def pair_statistics_from_fourier(spec: np.ndarray, freqs: np.ndarray, pairs) -> 
     """
     spec = np.asarray(spec)
     if spec.ndim != 3 or not np.iscomplexobj(spec):
-        raise InputError(f"spec: need complex shape (n_epochs, n_nodes, n_bins), got "
-                         f"{spec.shape}")
+        raise InputError(f"spec: need complex shape (n_epochs, n_nodes, n_bins), got {spec.shape}")
     if np.shape(freqs) != (spec.shape[2],):
         raise InputError(f"freqs: need shape ({spec.shape[2]},), got {np.shape(freqs)}")
     ia, ib = _check_pairs(pairs, spec.shape[1])
-    xt = spec.transpose(0, 2, 1)                                      # (n_ep, n_bins, n_nodes)
+    xt = spec.transpose(0, 2, 1)  # (n_ep, n_bins, n_nodes)
     xr = np.ascontiguousarray(xt.real, dtype=np.float32)
     xi = np.ascontiguousarray(xt.imag, dtype=np.float32)
     power = xr * xr + xi * xi
     # np.take (unlike x[..., ia], which is laid out pair-major) returns C-contiguous arrays, so
     # every statistic derived from them is C-contiguous and accumulations need no copies
-    ar, ai, br, bi = (np.take(a, i, axis=-1) for a, i in ((xr, ia), (xi, ia), (xr, ib),
-                                                           (xi, ib)))
-    re = ar * br + ai * bi                                            # Re(X_a conj(X_b))
-    im = ai * br - ar * bi                                            # Im(X_a conj(X_b))
+    ar, ai, br, bi = (np.take(a, i, axis=-1) for a, i in ((xr, ia), (xi, ia), (xr, ib), (xi, ib)))
+    re = ar * br + ai * bi  # Re(X_a conj(X_b))
+    im = ai * br - ar * bi  # Im(X_a conj(X_b))
     del ar, ai, br, bi  # each the size of a statistic: released before the others are made
     mag = np.sqrt(np.take(power, ia, axis=-1) * np.take(power, ib, axis=-1))  # |S|
     inv = np.divide(1.0, mag, out=np.zeros_like(mag), where=mag > 0)
     del mag
-    stats = {"re": re, "im": im, "abs_im": np.abs(im), "sq_im": im * im, "u_re": re * inv,
-             "u_im": im * inv}
+    stats = {
+        "re": re,
+        "im": im,
+        "abs_im": np.abs(im),
+        "sq_im": im * im,
+        "u_re": re * inv,
+        "u_im": im * inv,
+    }
     del inv
-    return PairStatistics(stats=stats, power=power, ia=ia, ib=ib,
-                          freqs=np.asarray(freqs, dtype=float))
+    return PairStatistics(
+        stats=stats, power=power, ia=ia, ib=ib, freqs=np.asarray(freqs, dtype=float)
+    )
 
 
-def bin_measures(acc: dict, power: np.ndarray, ia: np.ndarray, ib: np.ndarray,
-                 n_epochs: int, measures=BIN_MEASURES) -> dict[str, np.ndarray]:
+def bin_measures(
+    acc: dict,
+    power: np.ndarray,
+    ia: np.ndarray,
+    ib: np.ndarray,
+    n_epochs: int,
+    measures=BIN_MEASURES,
+) -> dict[str, np.ndarray]:
     """Per-bin coupling measures from accumulated statistics.
 
     Parameters
@@ -285,8 +332,11 @@ def bin_measures(acc: dict, power: np.ndarray, ia: np.ndarray, ib: np.ndarray,
     """
     out = {}
     k = float(n_epochs)
-    pp = (np.take(power, ia, axis=-1) * np.take(power, ib, axis=-1)
-          if {"msc", "imcoh", "lagcoh"} & set(measures) else None)
+    pp = (
+        np.take(power, ia, axis=-1) * np.take(power, ib, axis=-1)
+        if {"msc", "imcoh", "lagcoh"} & set(measures)
+        else None
+    )
     with np.errstate(invalid="ignore", divide="ignore"):
         for m in measures:
             if m == "msc":
@@ -339,8 +389,9 @@ def band_matrix(freqs: np.ndarray, band_idx) -> np.ndarray:
     return a
 
 
-def band_measures(per_bin: dict[str, np.ndarray], freqs: np.ndarray, band_idx,
-                  measures=BAND_MEASURES) -> dict[str, np.ndarray]:
+def band_measures(
+    per_bin: dict[str, np.ndarray], freqs: np.ndarray, band_idx, measures=BAND_MEASURES
+) -> dict[str, np.ndarray]:
     """Band values: per-bin measures averaged over each band's bins, plus phase and lag.
 
     Parameters
@@ -360,14 +411,16 @@ def band_measures(per_bin: dict[str, np.ndarray], freqs: np.ndarray, band_idx,
         measure -> ndarray, shape (n_rep, n_bands, n_pairs).
     """
     f = np.asarray(freqs, dtype=float)
-    band_matrix(f, band_idx)                                # validates: no empty band
+    band_matrix(f, band_idx)  # validates: no empty band
     # a band's bins as a slice where they are contiguous (the usual case): summing a slice of
     # the (r, f, p) array reads memory in order, several times faster than a matrix product
-    sel = [slice(int(i[0]), int(i[-1]) + 1) if np.all(np.diff(i) == 1) else np.asarray(i)
-           for i in band_idx]
+    sel = [
+        slice(int(i[0]), int(i[-1]) + 1) if np.all(np.diff(i) == 1) else np.asarray(i)
+        for i in band_idx
+    ]
     avg, sums = True, False
 
-    def over_bins(x, mean):                                 # (r, f, p) -> (r, b, p)
+    def over_bins(x, mean):  # (r, f, p) -> (r, b, p)
         out = np.empty((x.shape[0], len(sel), x.shape[2]), dtype=x.dtype)
         for b, s in enumerate(sel):
             out[:, b] = x[:, s].sum(axis=1)
@@ -409,9 +462,15 @@ def _bin_names(measures) -> tuple[tuple[str, ...], tuple[str, ...]]:
     return tuple(sorted(bins)), tuple(stats)
 
 
-def coupling_from_statistics(ps: PairStatistics, band_idx, weights: np.ndarray | None = None,
-                             *, signs: np.ndarray | None = None, chunk: int = 100,
-                             measures=BAND_MEASURES) -> dict[str, np.ndarray]:
+def coupling_from_statistics(
+    ps: PairStatistics,
+    band_idx,
+    weights: np.ndarray | None = None,
+    *,
+    signs: np.ndarray | None = None,
+    chunk: int = 100,
+    measures=BAND_MEASURES,
+) -> dict[str, np.ndarray]:
     """Band measures of the estimate, or of bootstrap / randomisation replicates (chunked).
 
     Parameters
@@ -442,8 +501,10 @@ def coupling_from_statistics(ps: PairStatistics, band_idx, weights: np.ndarray |
 
     if rows is None:
         return one()
-    parts = [one(weights[s:s + chunk]) if weights is not None else one(s=signs[s:s + chunk])
-             for s in range(0, rows.shape[0], chunk)]
+    parts = [
+        one(weights[s : s + chunk]) if weights is not None else one(s=signs[s : s + chunk])
+        for s in range(0, rows.shape[0], chunk)
+    ]
     return {m: np.concatenate([p[m] for p in parts], axis=0) for m in measures}
 
 
@@ -531,9 +592,17 @@ def _wrap_deg(x: np.ndarray) -> np.ndarray:
     return (np.asarray(x) + 180.0) % 360.0 - 180.0
 
 
-def bootstrap_intervals(ps: PairStatistics, band_idx, estimate: dict[str, np.ndarray], *,
-                        n_boot: int = 1000, seed: int = 0, ci: float = 0.95, chunk: int = 100,
-                        measures=BAND_MEASURES) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+def bootstrap_intervals(
+    ps: PairStatistics,
+    band_idx,
+    estimate: dict[str, np.ndarray],
+    *,
+    n_boot: int = 1000,
+    seed: int = 0,
+    ci: float = 0.95,
+    chunk: int = 100,
+    measures=BAND_MEASURES,
+) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """Percentile bootstrap intervals over epochs for every band measure.
 
     Each replicate resamples the clean epochs with replacement (:func:`bootstrap_weights`) and
@@ -588,7 +657,7 @@ def bootstrap_intervals(ps: PairStatistics, band_idx, estimate: dict[str, np.nda
 
 def _gram(x: np.ndarray, idx) -> np.ndarray:
     """``Σ_e x_e(f) x_e(f')`` over a band's bins, shape (n_pairs, n_b, n_b), float64."""
-    xb = np.ascontiguousarray(x[:, idx, :].transpose(2, 1, 0))          # (P, n_b, K)
+    xb = np.ascontiguousarray(x[:, idx, :].transpose(2, 1, 0))  # (P, n_b, K)
     return np.matmul(xb, xb.transpose(0, 2, 1)).astype(float)
 
 
@@ -617,17 +686,17 @@ def _analytic_null(ps: PairStatistics, band_idx, level: float) -> dict:
 
     k = float(ps.n_epochs)
     acc, pw = ps.accumulate(names=STAT_NAMES)
-    a = {n: v[0] for n, v in acc.items()}                                 # (n_bins, P)
+    a = {n: v[0] for n, v in acc.items()}  # (n_bins, P)
     pp = pw[0][:, ps.ia] * pw[0][:, ps.ib]
     z = stats.norm.ppf(0.5 + level / 2.0)
     out = {m: ([], []) for m in LAGGED_MEASURES}
     for idx in band_idx:
         nb = len(idx)
-        gx = _gram(ps.stats["im"], idx) / k**2                            # cov of A_im
-        gu = _gram(ps.stats["u_im"], idx) / k**2                          # cov of U_im
+        gx = _gram(ps.stats["im"], idx) / k**2  # cov of A_im
+        gu = _gram(ps.stats["u_im"], idx) / k**2  # cov of U_im
         with np.errstate(invalid="ignore", divide="ignore"):
             # imcoh: linear in A_im
-            c = (1.0 / np.sqrt(pp[idx])).T / nb                            # (P, n_b)
+            c = (1.0 / np.sqrt(pp[idx])).T / nb  # (P, n_b)
             var = np.einsum("pf,pfg,pg->p", c, gx, c)
             out["imcoh"][0].append(np.zeros_like(var))
             out["imcoh"][1].append(z * np.sqrt(var))
@@ -641,7 +710,7 @@ def _analytic_null(ps: PairStatistics, band_idx, level: float) -> dict:
             out["lps"][0].append(mq[0])
             out["lps"][1].append(mq[1])
             # debiased wPLI²: quadratic form minus its exact mean
-            den = (a["abs_im"][idx] ** 2 - a["sq_im"][idx] / k).T            # (P, n_b)
+            den = (a["abs_im"][idx] ** 2 - a["sq_im"][idx] / k).T  # (P, n_b)
             d = 1.0 / den / nb
             mq = _quadratic_quantile(gx, d, level)
             shift = np.sum(a["sq_im"][idx].T / k * d, axis=1)
@@ -650,8 +719,12 @@ def _analytic_null(ps: PairStatistics, band_idx, level: float) -> dict:
             # wPLI: mean of |Gaussian| / A_abs; gamma with the exact mean and variance
             sig = np.sqrt(np.einsum("pff->pf", gx))
             rho = np.clip(gx / (sig[:, :, None] * sig[:, None, :]), -1.0, 1.0)
-            cab = (2.0 / np.pi) * sig[:, :, None] * sig[:, None, :] * (
-                np.sqrt(1.0 - rho**2) + rho * np.arcsin(rho) - 1.0)
+            cab = (
+                (2.0 / np.pi)
+                * sig[:, :, None]
+                * sig[:, None, :]
+                * (np.sqrt(1.0 - rho**2) + rho * np.arcsin(rho) - 1.0)
+            )
             wgt = (1.0 / a["abs_im"][idx]).T / nb
             mean = np.sqrt(2.0 / np.pi) * np.sum(wgt * sig, axis=1)
             var = np.einsum("pf,pfg,pg->p", wgt, cab, wgt)
@@ -661,9 +734,16 @@ def _analytic_null(ps: PairStatistics, band_idx, level: float) -> dict:
     return {m: (np.stack(v[0]), np.stack(v[1])) for m, v in out.items()}
 
 
-def conjugation_null(ps: PairStatistics, band_idx, *, method: str = "analytic",
-                     n_rep: int = 500, seed: int = 0, level: float = 0.95,
-                     chunk: int = 100) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+def conjugation_null(
+    ps: PairStatistics,
+    band_idx,
+    *,
+    method: str = "analytic",
+    n_rep: int = 500,
+    seed: int = 0,
+    level: float = 0.95,
+    chunk: int = 100,
+) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """Null distribution of the lagged measures under instantaneous mixing only.
 
     Instantaneous (zero-lag) linear mixing of independent, stationary sources - volume
@@ -723,8 +803,9 @@ def conjugation_null(ps: PairStatistics, band_idx, *, method: str = "analytic",
     if method != "monte-carlo":
         raise InputError(f"method: {method!r} is not one of analytic, monte-carlo")
     signs = conjugation_signs(ps.n_epochs, n_rep=n_rep, seed=seed)
-    reps = coupling_from_statistics(ps, band_idx, signs=signs, chunk=chunk,
-                                    measures=LAGGED_MEASURES)
+    reps = coupling_from_statistics(
+        ps, band_idx, signs=signs, chunk=chunk, measures=LAGGED_MEASURES
+    )
     out = {}
     for m in LAGGED_MEASURES:
         r = reps[m]

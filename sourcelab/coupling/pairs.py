@@ -99,17 +99,21 @@ class PairSets:
             ``homologous``, ``anterior_posterior`` and ``intrahemispheric``: whether each pair of
             :attr:`all` (in either order) belongs to that set.
         """
+
         def flags(sub):
             keys = {(int(a), int(b)) for a, b in sub} | {(int(b), int(a)) for a, b in sub}
             return np.array([(int(a), int(b)) in keys for a, b in self.all])
 
-        return {"homologous": flags(self.homologous),
-                "anterior_posterior": flags(self.anterior_posterior),
-                "intrahemispheric": flags(self.intrahemispheric)}
+        return {
+            "homologous": flags(self.homologous),
+            "anterior_posterior": flags(self.anterior_posterior),
+            "intrahemispheric": flags(self.intrahemispheric),
+        }
 
 
-def _mirror_pairs(pos: np.ndarray, axis: int, centre: float, tol: float,
-                  first: np.ndarray, second: np.ndarray) -> list[tuple[int, int]]:
+def _mirror_pairs(
+    pos: np.ndarray, axis: int, centre: float, tol: float, first: np.ndarray, second: np.ndarray
+) -> list[tuple[int, int]]:
     out = []
     f_idx, s_idx = np.flatnonzero(first), np.flatnonzero(second)
     if not f_idx.size or not s_idx.size:
@@ -161,12 +165,17 @@ def pair_sets(ch_names, ch_pos) -> PairSets:
     iu, ju = np.triu_indices(n, 1)
     allp = np.column_stack([iu, ju])
     intra = allp[(left[iu] & left[ju]) | (right[iu] & right[ju])]
-    side = tuple("midline" if m else ("left" if lft else "right")
-                 for m, lft in zip(mid, left))
+    side = tuple("midline" if m else ("left" if lft else "right") for m, lft in zip(mid, left))
 
     def arr(p):
         return np.asarray(sorted(p, key=lambda t: (min(t), max(t))), dtype=np.int64).reshape(-1, 2)
 
-    return PairSets(ch_names=names, all=allp, homologous=arr(homol),
-                    anterior_posterior=arr(ap), intrahemispheric=intra,
-                    midline=tuple(np.asarray(names)[mid].tolist()), side=side)
+    return PairSets(
+        ch_names=names,
+        all=allp,
+        homologous=arr(homol),
+        anterior_posterior=arr(ap),
+        intrahemispheric=intra,
+        midline=tuple(np.asarray(names)[mid].tolist()),
+        side=side,
+    )

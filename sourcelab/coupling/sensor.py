@@ -43,51 +43,81 @@ if TYPE_CHECKING:  # pandas is imported where tables are built
 from ..config import Bands
 from ..errors import InputError
 from ..spectra import band_bin_indices
-from .measures import (BAND_MEASURES, LAGGED_MEASURES, bootstrap_intervals, conjugation_null,
-                       coupling_from_statistics, pair_statistics,
-                       pair_statistics_from_fourier)
+from .measures import (
+    BAND_MEASURES,
+    LAGGED_MEASURES,
+    bootstrap_intervals,
+    conjugation_null,
+    coupling_from_statistics,
+    pair_statistics,
+    pair_statistics_from_fourier,
+)
 from .pairs import PairSets, pair_sets
 
 #: Columns of :func:`pair_table`, in order.
-PAIR_COLUMNS = ("pair", "channel_a", "channel_b", "band", "measure", "value", "unit",
-                "value_lo", "value_hi", "homologous", "anterior_posterior", "intrahemispheric",
-                "distance_mm", "leakage_expected", "leakage_q95", "leakage_explained",
-                "n_epochs", "z")
+PAIR_COLUMNS = (
+    "pair",
+    "channel_a",
+    "channel_b",
+    "band",
+    "measure",
+    "value",
+    "unit",
+    "value_lo",
+    "value_hi",
+    "homologous",
+    "anterior_posterior",
+    "intrahemispheric",
+    "distance_mm",
+    "leakage_expected",
+    "leakage_q95",
+    "leakage_explained",
+    "n_epochs",
+    "z",
+)
 
 #: Unit of each pair / edge measure (user-facing).
 MEASURE_UNITS = {
-    "msc": "coherence (0-1)", "imcoh": "imaginary coherency (-1 to 1)",
-    "lagcoh": "lagged coherence (0-1)", "wpli": "wPLI (0-1)",
-    "wpli2_debiased": "debiased wPLI squared", "lps": "lagged phase synchronisation (0-1)",
-    "phase_deg": "degree", "lag_ms": "ms", "phase_sd_deg": "degree",
-    "asymmetry": "(A-B)/(A+B) of absolute power", "aec_orth": "correlation (-1 to 1)",
+    "msc": "coherence (0-1)",
+    "imcoh": "imaginary coherency (-1 to 1)",
+    "lagcoh": "lagged coherence (0-1)",
+    "wpli": "wPLI (0-1)",
+    "wpli2_debiased": "debiased wPLI squared",
+    "lps": "lagged phase synchronisation (0-1)",
+    "phase_deg": "degree",
+    "lag_ms": "ms",
+    "phase_sd_deg": "degree",
+    "asymmetry": "(A-B)/(A+B) of absolute power",
+    "aec_orth": "correlation (-1 to 1)",
 }
 
 #: What each measure is (user-facing; the ``Levels`` of the table sidecars).
 MEASURE_DESCRIPTIONS = {
     "msc": "magnitude-squared coherence",
     "imcoh": "imaginary part of coherency (Nolte et al. 2004); positive: the first site or ROI "
-             "leads",
+    "leads",
     "lagcoh": "lagged coherence (Pascual-Marqui 2007): coherence without its zero-lag part",
     "wpli": "weighted phase-lag index (Vinck et al. 2011)",
     "wpli2_debiased": "debiased squared weighted phase-lag index (Vinck et al. 2011); can be "
-                      "below 0",
+    "below 0",
     "lps": "lagged phase synchronisation (Pascual-Marqui 2011)",
     "phase_deg": "mean phase difference; positive: the first site or ROI leads",
     "lag_ms": "time lag from the phase per frequency bin; positive: the first site or ROI leads",
     "phase_sd_deg": "circular standard deviation of the per-epoch phase differences",
     "asymmetry": "(A - B)/(A + B) of absolute band power: left - right for homologous pairs, "
-                 "anterior - posterior for anterior-posterior pairs",
+    "anterior - posterior for anterior-posterior pairs",
     "aec_orth": "orthogonalised amplitude-envelope correlation (Hipp et al. 2012)",
 }
 
 #: What each column of :func:`pair_table` holds (for the report's and the README's notes).
 PAIR_COLUMN_NOTES = {
     "pair": "'A-B', the two sites in canonical 10-20 order (homologous: left first; "
-            "anterior-posterior: anterior first)",
-    "channel_a": "first site (A) of the pair", "channel_b": "second site (B) of the pair",
+    "anterior-posterior: anterior first)",
+    "channel_a": "first site (A) of the pair",
+    "channel_b": "second site (B) of the pair",
     "unit": "unit or range of value",
-    "band": "frequency band", "measure": "coupling measure (see unit)",
+    "band": "frequency band",
+    "measure": "coupling measure (see unit)",
     "value": "estimate from all clean epochs, average reference",
     "value_lo": "lower end of the bootstrap interval over epochs",
     "value_hi": "upper end of the bootstrap interval over epochs",
@@ -98,7 +128,8 @@ PAIR_COLUMN_NOTES = {
     "leakage_expected": "value expected from volume conduction alone",
     "leakage_q95": "95th percentile of the value under volume conduction alone",
     "leakage_explained": "volume conduction alone can explain the value",
-    "n_epochs": "clean epochs behind the estimate", "z": "z-score against norms",
+    "n_epochs": "clean epochs behind the estimate",
+    "z": "z-score against norms",
 }
 
 
@@ -208,10 +239,20 @@ def msc_from_covariance(cov: np.ndarray, pairs: np.ndarray) -> np.ndarray:
     return c * c / (d[pairs[:, 0]] * d[pairs[:, 1]])
 
 
-def sensor_coupling(spectra: np.ndarray, freqs: np.ndarray, bands: Bands, ch_names, ch_pos,
-                    *, null_cov: np.ndarray | None = None, null_method: str | None = "analytic",
-                    n_null: int = 500,
-                    n_boot: int = 0, seed: int = 0, ci: float = 0.95) -> SensorCoupling:
+def sensor_coupling(
+    spectra: np.ndarray,
+    freqs: np.ndarray,
+    bands: Bands,
+    ch_names,
+    ch_pos,
+    *,
+    null_cov: np.ndarray | None = None,
+    null_method: str | None = "analytic",
+    n_null: int = 500,
+    n_boot: int = 0,
+    seed: int = 0,
+    ci: float = 0.95,
+) -> SensorCoupling:
     """Coupling of every electrode pair and the asymmetry of homologous and A-P pairs.
 
     Parameters
@@ -260,21 +301,29 @@ def sensor_coupling(spectra: np.ndarray, freqs: np.ndarray, bands: Bands, ch_nam
     if spectra.ndim == 4 and spectra.shape[-2:] == (n_ch, n_ch):
         ps = pair_statistics(average_reference_bins(spectra), freqs, ps_sets.all)
     elif spectra.ndim == 3 and spectra.shape[1] == n_ch:
-        ps = pair_statistics_from_fourier(spectra - spectra.mean(axis=1, keepdims=True), freqs,
-                                          ps_sets.all)
+        ps = pair_statistics_from_fourier(
+            spectra - spectra.mean(axis=1, keepdims=True), freqs, ps_sets.all
+        )
     else:
-        raise InputError(f"spectra: need shape (n_epochs, n_bins, {n_ch}, {n_ch}) or "
-                         f"(n_epochs, {n_ch}, n_bins), got {spectra.shape}")
+        raise InputError(
+            f"spectra: need shape (n_epochs, n_bins, {n_ch}, {n_ch}) or "
+            f"(n_epochs, {n_ch}, n_bins), got {spectra.shape}"
+        )
     n_ep = ps.n_epochs
     est = coupling_from_statistics(ps, band_idx)
     values = {m: v[0] for m, v in est.items()}
-    pe = ps.power.astype(float)                                      # (n_ep, n_bins, n_ch)
+    pe = ps.power.astype(float)  # (n_ep, n_bins, n_ch)
     bp = np.stack([pe[:, i].sum(axis=1) for i in band_idx], axis=1)  # (n_ep, n_bands, n_ch)
     band_power = bp.mean(axis=0)
-    asym = {"homologous": asymmetry(band_power, ps_sets.homologous),
-            "anterior_posterior": asymmetry(band_power, ps_sets.anterior_posterior)}
-    null = (conjugation_null(ps, band_idx, method=null_method, n_rep=n_null, seed=seed)
-            if null_method else {})
+    asym = {
+        "homologous": asymmetry(band_power, ps_sets.homologous),
+        "anterior_posterior": asymmetry(band_power, ps_sets.anterior_posterior),
+    }
+    null = (
+        conjugation_null(ps, band_idx, method=null_method, n_rep=n_null, seed=seed)
+        if null_method
+        else {}
+    )
     leak = None
     if null_cov is not None:
         cov = np.asarray(null_cov, dtype=float)
@@ -288,15 +337,26 @@ def sensor_coupling(spectra: np.ndarray, freqs: np.ndarray, bands: Bands, ch_nam
         w = bootstrap_weights(n_ep, n_boot=n_boot, seed=seed)
         rep = np.einsum("re,ebc->rbc", w, bp)
         q = [(1.0 - ci) / 2.0, (1.0 + ci) / 2.0]
-        for key, sub in (("homologous", ps_sets.homologous),
-                         ("anterior_posterior", ps_sets.anterior_posterior)):
+        for key, sub in (
+            ("homologous", ps_sets.homologous),
+            ("anterior_posterior", ps_sets.anterior_posterior),
+        ):
             lo, hi = _quantile(asymmetry(rep, sub), q)
             intervals["asymmetry_" + key] = (lo, hi)
     pos = np.asarray(ch_pos, dtype=float)
     dist = np.linalg.norm(pos[ps_sets.all[:, 0]] - pos[ps_sets.all[:, 1]], axis=1) * 1e3
-    return SensorCoupling(pairs=ps_sets, band_names=tuple(bands.names), values=values,
-                          asymmetry=asym, band_power=band_power, null=null, leakage_msc=leak,
-                          intervals=intervals, n_epochs=int(n_ep), distance_mm=dist)
+    return SensorCoupling(
+        pairs=ps_sets,
+        band_names=tuple(bands.names),
+        values=values,
+        asymmetry=asym,
+        band_power=band_power,
+        null=null,
+        leakage_msc=leak,
+        intervals=intervals,
+        n_epochs=int(n_ep),
+        distance_mm=dist,
+    )
 
 
 def _boolean(x: np.ndarray) -> pd.arrays.BooleanArray:
@@ -368,23 +428,28 @@ def pair_table(sc: SensorCoupling) -> pd.DataFrame:
     def block(pairs_idx, labels, pa, pb, measures, values, extra, dist, fl):
         n_p, n_m = len(labels), len(measures)
         rep = n_m * n_b
-        return pd.DataFrame({
-            "pair": np.tile(labels, rep), "channel_a": np.tile(names[pa], rep),
-            "channel_b": np.tile(names[pb], rep),
-            "band": np.tile(np.repeat(bands, n_p), n_m),
-            "measure": np.repeat(np.asarray(measures), n_b * n_p),
-            "value": np.concatenate([np.asarray(v, float).ravel() for v in values]),
-            "unit": np.repeat(np.asarray([MEASURE_UNITS[m] for m in measures]), n_b * n_p),
-            "value_lo": np.concatenate([e[0].ravel() for e in extra]),
-            "value_hi": np.concatenate([e[1].ravel() for e in extra]),
-            "homologous": np.tile(fl["homologous"], rep),
-            "anterior_posterior": np.tile(fl["anterior_posterior"], rep),
-            "intrahemispheric": np.tile(fl["intrahemispheric"], rep),
-            "distance_mm": np.tile(dist, rep),
-            "leakage_expected": np.concatenate([e[2].ravel() for e in extra]),
-            "leakage_q95": np.concatenate([e[3].ravel() for e in extra]),
-            "leakage_explained": _boolean(np.concatenate([e[4].ravel() for e in extra])),
-            "n_epochs": sc.n_epochs, "z": np.nan})
+        return pd.DataFrame(
+            {
+                "pair": np.tile(labels, rep),
+                "channel_a": np.tile(names[pa], rep),
+                "channel_b": np.tile(names[pb], rep),
+                "band": np.tile(np.repeat(bands, n_p), n_m),
+                "measure": np.repeat(np.asarray(measures), n_b * n_p),
+                "value": np.concatenate([np.asarray(v, float).ravel() for v in values]),
+                "unit": np.repeat(np.asarray([MEASURE_UNITS[m] for m in measures]), n_b * n_p),
+                "value_lo": np.concatenate([e[0].ravel() for e in extra]),
+                "value_hi": np.concatenate([e[1].ravel() for e in extra]),
+                "homologous": np.tile(fl["homologous"], rep),
+                "anterior_posterior": np.tile(fl["anterior_posterior"], rep),
+                "intrahemispheric": np.tile(fl["intrahemispheric"], rep),
+                "distance_mm": np.tile(dist, rep),
+                "leakage_expected": np.concatenate([e[2].ravel() for e in extra]),
+                "leakage_q95": np.concatenate([e[3].ravel() for e in extra]),
+                "leakage_explained": _boolean(np.concatenate([e[4].ravel() for e in extra])),
+                "n_epochs": sc.n_epochs,
+                "z": np.nan,
+            }
+        )
 
     labels = np.array([ps.label(p) for p in ps.all])
     values, extra = [], []
@@ -394,11 +459,28 @@ def pair_table(sc: SensorCoupling) -> pd.DataFrame:
         nan = np.full(v.shape, np.nan)
         lo, hi = sc.intervals.get(m, (nan, nan))
         values.append(v)
-        extra.append([np.asarray(lo, float), np.asarray(hi, float),
-                      np.broadcast_to(exp, v.shape), np.broadcast_to(q95, v.shape),
-                      np.broadcast_to(expl, v.shape)])
-    frames = [block(None, labels, ps.all[:, 0], ps.all[:, 1], BAND_MEASURES, values, extra,
-                    sc.distance_mm, flags)]
+        extra.append(
+            [
+                np.asarray(lo, float),
+                np.asarray(hi, float),
+                np.broadcast_to(exp, v.shape),
+                np.broadcast_to(q95, v.shape),
+                np.broadcast_to(expl, v.shape),
+            ]
+        )
+    frames = [
+        block(
+            None,
+            labels,
+            ps.all[:, 0],
+            ps.all[:, 1],
+            BAND_MEASURES,
+            values,
+            extra,
+            sc.distance_mm,
+            flags,
+        )
+    ]
     pos = {tuple(p): i for i, p in enumerate(ps.all.tolist())}
     for key in ("homologous", "anterior_posterior"):
         sub = getattr(ps, key)
@@ -407,7 +489,17 @@ def pair_table(sc: SensorCoupling) -> pd.DataFrame:
         nan = np.full(v.shape, np.nan)
         lo, hi = sc.intervals.get("asymmetry_" + key, (nan, nan))
         fl = {k: f[idx] for k, f in flags.items()}
-        frames.append(block(None, np.array([ps.label(p) for p in sub]), sub[:, 0], sub[:, 1],
-                            ["asymmetry"], [v], [[lo, hi, nan, nan, nan]],
-                            sc.distance_mm[idx], fl))
+        frames.append(
+            block(
+                None,
+                np.array([ps.label(p) for p in sub]),
+                sub[:, 0],
+                sub[:, 1],
+                ["asymmetry"],
+                [v],
+                [[lo, hi, nan, nan, nan]],
+                sc.distance_mm[idx],
+                fl,
+            )
+        )
     return pd.concat(frames, ignore_index=True)[list(PAIR_COLUMNS)]

@@ -75,8 +75,15 @@ if TYPE_CHECKING:  # pandas is imported where tables are built
 from ..config import Bands
 from ..errors import InputError
 from ..spectra import band_bin_indices
-from .measures import (LAGGED_MEASURES, _quantile, bootstrap_intervals, bootstrap_weights,
-                       conjugation_null, coupling_from_statistics, pair_statistics_from_fourier)
+from .measures import (
+    LAGGED_MEASURES,
+    _quantile,
+    bootstrap_intervals,
+    bootstrap_weights,
+    conjugation_null,
+    coupling_from_statistics,
+    pair_statistics_from_fourier,
+)
 from .sensor import MEASURE_UNITS, _boolean, leakage_arrays, msc_from_covariance
 
 #: Atlases coupled by default (partitions; ``networks`` per hemisphere, bilateral ROIs dropped).
@@ -84,17 +91,39 @@ COUPLING_ATLASES = ("lobes", "yeo7", "networks")
 #: Edge measures, in table order.
 EDGE_MEASURES = ("msc", "imcoh", "lagcoh", "lps", "lag_ms", "aec_orth")
 #: Columns of :func:`coupling_table`, in order.
-EDGE_COLUMNS = ("atlas", "edge", "roi_a", "hemisphere_a", "roi_b", "hemisphere_b", "band",
-                "measure", "value", "unit", "value_lo", "value_hi", "leakage_expected",
-                "leakage_q95", "leakage_explained", "filter_share_a", "filter_share_b",
-                "shared_sources", "n_epochs", "z")
+EDGE_COLUMNS = (
+    "atlas",
+    "edge",
+    "roi_a",
+    "hemisphere_a",
+    "roi_b",
+    "hemisphere_b",
+    "band",
+    "measure",
+    "value",
+    "unit",
+    "value_lo",
+    "value_hi",
+    "leakage_expected",
+    "leakage_q95",
+    "leakage_explained",
+    "filter_share_a",
+    "filter_share_b",
+    "shared_sources",
+    "n_epochs",
+    "z",
+)
 #: What each column of :func:`coupling_table` holds.
 EDGE_COLUMN_NOTES = {
-    "atlas": "atlas of the two ROIs", "edge": "'roi_a.hemisphere_a|roi_b.hemisphere_b'",
-    "roi_a": "first ROI (a) of the edge", "hemisphere_a": "hemisphere of ROI a",
-    "roi_b": "second ROI (b) of the edge", "hemisphere_b": "hemisphere of ROI b",
+    "atlas": "atlas of the two ROIs",
+    "edge": "'roi_a.hemisphere_a|roi_b.hemisphere_b'",
+    "roi_a": "first ROI (a) of the edge",
+    "hemisphere_a": "hemisphere of ROI a",
+    "roi_b": "second ROI (b) of the edge",
+    "hemisphere_b": "hemisphere of ROI b",
     "unit": "unit or range of value",
-    "band": "frequency band", "measure": "coupling measure (see unit)",
+    "band": "frequency band",
+    "measure": "coupling measure (see unit)",
     "value": "estimate from all clean epochs",
     "value_lo": "lower end of the bootstrap interval over epochs",
     "value_hi": "upper end of the bootstrap interval over epochs",
@@ -104,7 +133,8 @@ EDGE_COLUMN_NOTES = {
     "filter_share_a": "share of ROI a's power captured by its spatial filter",
     "filter_share_b": "share of ROI b's power captured by its spatial filter",
     "shared_sources": "number of sources belonging to both ROIs",
-    "n_epochs": "clean epochs behind the estimate", "z": "z-score against norms",
+    "n_epochs": "clean epochs behind the estimate",
+    "z": "z-score against norms",
 }
 
 
@@ -142,8 +172,9 @@ class RoiFilters:
 
         rows = np.concatenate([np.full(len(v), i) for i, v in enumerate(self.vertices)])
         cols = np.concatenate(self.vertices)
-        m = sparse.csr_matrix((np.ones(rows.size), (rows, cols)),
-                              shape=(len(self.vertices), int(cols.max()) + 1))
+        m = sparse.csr_matrix(
+            (np.ones(rows.size), (rows, cols)), shape=(len(self.vertices), int(cols.max()) + 1)
+        )
         return np.asarray((m @ m.T).toarray(), dtype=np.int64)
 
 
@@ -153,8 +184,10 @@ def _fixed_gain(gain: np.ndarray, n_src: int, normals) -> np.ndarray:
         return gain
     if gain.shape[1] == 3 * n_src and normals is not None:
         return np.einsum("csk,sk->cs", gain.reshape(gain.shape[0], n_src, 3), normals)
-    raise InputError(f"gain: {gain.shape[1]} columns do not fit {n_src} fixed sources "
-                     "(pass normals with a free-orientation gain)")
+    raise InputError(
+        f"gain: {gain.shape[1]} columns do not fit {n_src} fixed sources "
+        "(pass normals with a free-orientation gain)"
+    )
 
 
 def independent_source_covariance(gain: np.ndarray, *, noise: float = 0.0) -> np.ndarray:
@@ -191,8 +224,9 @@ def independent_source_covariance(gain: np.ndarray, *, noise: float = 0.0) -> np
 _FILTER_CACHE: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 
 
-def roi_filters(op, atlas, *, normals: np.ndarray | None = None,
-                drop_bilateral: bool = True) -> RoiFilters:
+def roi_filters(
+    op, atlas, *, normals: np.ndarray | None = None, drop_bilateral: bool = True
+) -> RoiFilters:
     """Leading-singular-vector spatial filters of an atlas's ROIs (see the module docstring).
 
     Parameters
@@ -230,7 +264,7 @@ def roi_filters(op, atlas, *, normals: np.ndarray | None = None,
         if v.size == 0 or v.max() >= op.n_src:
             raise InputError(f"ROI {roi.name!r}: vertices outside the operator's sources")
         kr = k[v].reshape(-1, k.shape[-1])
-        ev, vec = np.linalg.eigh(kr.T @ kr)             # right singular vectors of K_r
+        ev, vec = np.linalg.eigh(kr.T @ kr)  # right singular vectors of K_r
         sv2 = np.clip(ev[::-1], 0.0, None)
         wi = vec[:, -1] * np.sqrt(sv2[0] / v.size)
         if normals is not None:
@@ -245,9 +279,14 @@ def roi_filters(op, atlas, *, normals: np.ndarray | None = None,
         w[i] = wi if score >= 0 else -wi
         share[i] = sv2[0] / np.sum(sv2)
     w.setflags(write=False)
-    out = RoiFilters(atlas=atlas.name, names=tuple(r.name for r in rois),
-                     hemispheres=tuple(r.hemisphere for r in rois), weights=w, share=share,
-                     vertices=tuple(np.asarray(r.vertices) for r in rois))
+    out = RoiFilters(
+        atlas=atlas.name,
+        names=tuple(r.name for r in rois),
+        hemispheres=tuple(r.hemisphere for r in rois),
+        weights=w,
+        share=share,
+        vertices=tuple(np.asarray(r.vertices) for r in rois),
+    )
     try:
         _FILTER_CACHE.setdefault(op, {})[key] = (atlas, out)
     except TypeError:  # an operator that cannot be weakly referenced: no caching
@@ -316,8 +355,9 @@ def edge_leakage_msc(weights: np.ndarray, null_cov: np.ndarray) -> np.ndarray:
 # orthogonalised amplitude-envelope correlation
 
 
-def band_analytic(spec_plain: np.ndarray, band_bins: np.ndarray, *,
-                  samples_per_epoch: int | None = None) -> np.ndarray:
+def band_analytic(
+    spec_plain: np.ndarray, band_bins: np.ndarray, *, samples_per_epoch: int | None = None
+) -> np.ndarray:
     """Band-limited analytic signals of each epoch from its (untapered) Fourier coefficients.
 
     The analytic signal of the epoch band-passed to the band's bins (an FFT brick-wall filter,
@@ -349,8 +389,7 @@ def band_analytic(spec_plain: np.ndarray, band_bins: np.ndarray, *,
     m = int(samples_per_epoch) if samples_per_epoch else max(16, 4 * nb)
     if m < nb:
         raise InputError(f"samples_per_epoch: need at least {nb} for this band")
-    x = np.zeros(spec_plain.shape[:2] + (m,), dtype=np.result_type(spec_plain.dtype,
-                                                                   np.complex64))
+    x = np.zeros(spec_plain.shape[:2] + (m,), dtype=np.result_type(spec_plain.dtype, np.complex64))
     x[..., :nb] = spec_plain[..., idx]
     return (np.fft.ifft(x, axis=-1) * m).astype(x.dtype, copy=False)
 
@@ -389,8 +428,14 @@ def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
         so[e] = o.sum(-1)
         soo[e] = np.einsum("eijm,eijm->eij", o, o)
         soy[e] = np.einsum("eijm,ejm->eij", o, mag[e])
-    return {"so": so, "soo": soo, "soy": soy, "sy": mag.sum(-1, dtype=float),
-            "syy": (mag * mag).sum(-1, dtype=float), "m": m}
+    return {
+        "so": so,
+        "soo": soo,
+        "soy": soy,
+        "sy": mag.sum(-1, dtype=float),
+        "syy": (mag * mag).sum(-1, dtype=float),
+        "m": m,
+    }
 
 
 def aec_from_moments(mom: dict, weights: np.ndarray | None = None) -> np.ndarray:
@@ -459,8 +504,12 @@ def aec_block_se(mom: dict) -> np.ndarray:
     vo = soo_t / tot - mo**2
     vy = syy_t / tot - my**2
     # c_e = [soy_e - mo sy_e - my so_e + m mo my] / (tot sqrt(vo vy))
-    ce = (mom["soy"] - mo[None] * mom["sy"][:, None, :] - my[None] * mom["so"]
-          + m * mo[None] * my[None]) / (tot * np.sqrt(vo * vy))[None]
+    ce = (
+        mom["soy"]
+        - mo[None] * mom["sy"][:, None, :]
+        - my[None] * mom["so"]
+        + m * mo[None] * my[None]
+    ) / (tot * np.sqrt(vo * vy))[None]
     ce = (ce + ce.transpose(0, 2, 1)) / 2.0
     r = ce.sum(0)
     return np.sqrt(np.sum((ce - r[None] / n_ep) ** 2, axis=0))
@@ -535,11 +584,21 @@ class EdgeCoupling:
         return out
 
 
-def edge_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.ndarray,
-                  bands: Bands, filters: RoiFilters, *, null_cov: np.ndarray | None = None,
-                  null_method: str | None = "analytic", n_null: int = 500, n_boot: int = 0,
-                  seed: int = 0, ci: float = 0.95,
-                  samples_per_epoch: int | None = None) -> EdgeCoupling:
+def edge_coupling(
+    spec: np.ndarray,
+    spec_plain: np.ndarray | None,
+    freqs: np.ndarray,
+    bands: Bands,
+    filters: RoiFilters,
+    *,
+    null_cov: np.ndarray | None = None,
+    null_method: str | None = "analytic",
+    n_null: int = 500,
+    n_boot: int = 0,
+    seed: int = 0,
+    ci: float = 0.95,
+    samples_per_epoch: int | None = None,
+) -> EdgeCoupling:
     """All edge measures of one atlas (see the module docstring).
 
     Parameters
@@ -587,8 +646,9 @@ def edge_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.nda
         null = {m: cn[m] for m in ("imcoh", "lagcoh", "lps")}
     intervals = {}
     if n_boot:
-        intervals = bootstrap_intervals(ps, band_idx, est, n_boot=n_boot, seed=seed, ci=ci,
-                                        measures=spectral)
+        intervals = bootstrap_intervals(
+            ps, band_idx, est, n_boot=n_boot, seed=seed, ci=ci, measures=spectral
+        )
     if spec_plain is not None:
         roi_plain = roi_fourier(spec_plain, w)
         aec = np.empty((len(band_idx), edges.shape[0]))
@@ -597,8 +657,9 @@ def edge_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.nda
         hi = np.empty_like(aec)
         wb = bootstrap_weights(ps.n_epochs, n_boot=n_boot, seed=seed) if n_boot else None
         for b, idx in enumerate(band_idx):
-            mom = envelope_moments(band_analytic(roi_plain, idx,
-                                                 samples_per_epoch=samples_per_epoch))
+            mom = envelope_moments(
+                band_analytic(roi_plain, idx, samples_per_epoch=samples_per_epoch)
+            )
             aec[b] = aec_from_moments(mom)[0][iu, ju]
             se[b] = aec_block_se(mom)[iu, ju]
             if wb is not None:
@@ -609,9 +670,16 @@ def edge_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.nda
         if wb is not None:
             intervals["aec_orth"] = (lo, hi)
     leak = edge_leakage_msc(w, null_cov)[iu, ju] if null_cov is not None else None
-    return EdgeCoupling(filters=filters, band_names=tuple(bands.names), edges=edges,
-                        values=values, null=null, leakage_msc=leak, intervals=intervals,
-                        n_epochs=ps.n_epochs)
+    return EdgeCoupling(
+        filters=filters,
+        band_names=tuple(bands.names),
+        edges=edges,
+        values=values,
+        null=null,
+        leakage_msc=leak,
+        intervals=intervals,
+        n_epochs=ps.n_epochs,
+    )
 
 
 def coupling_table(results) -> pd.DataFrame:
@@ -640,15 +708,17 @@ def coupling_table(results) -> pd.DataFrame:
         f = ec.filters
         a, b = ec.edges[:, 0], ec.edges[:, 1]
         names, hemis = np.asarray(f.names), np.asarray(f.hemispheres)
-        label = np.char.add(np.char.add(np.char.add(np.char.add(names[a], "."), hemis[a]), "|"),
-                            np.char.add(np.char.add(names[b], "."), hemis[b]))
+        label = np.char.add(
+            np.char.add(np.char.add(np.char.add(names[a], "."), hemis[a]), "|"),
+            np.char.add(np.char.add(names[b], "."), hemis[b]),
+        )
         shared = f.shared_sources()[a, b]
         ms = [m for m in EDGE_MEASURES if m in ec.values]
         n_e, n_b = len(label), len(ec.band_names)
         block = n_e * n_b
         cols = {k: [] for k in ("value", "lo", "hi", "exp", "q95", "expl")}
         for m in ms:
-            v = np.asarray(ec.values[m], dtype=float)                    # (n_bands, n_edges)
+            v = np.asarray(ec.values[m], dtype=float)  # (n_bands, n_edges)
             if m == "aec_orth" and m in ec.null:
                 exp, q95 = ec.null[m]
                 expl = np.where(np.isfinite(v), np.abs(v) <= q95, np.nan)
@@ -658,29 +728,48 @@ def coupling_table(results) -> pd.DataFrame:
             for k, x in zip(cols, (v, lo, hi, exp, q95, expl)):
                 cols[k].append(np.broadcast_to(np.asarray(x, dtype=float), v.shape).ravel())
         n_m = len(ms)
-        frames.append(pd.DataFrame({
-            "atlas": f.atlas, "edge": np.tile(label, n_m * n_b),
-            "roi_a": np.tile(names[a], n_m * n_b), "hemisphere_a": np.tile(hemis[a], n_m * n_b),
-            "roi_b": np.tile(names[b], n_m * n_b), "hemisphere_b": np.tile(hemis[b], n_m * n_b),
-            "band": np.tile(np.repeat(np.asarray(ec.band_names), n_e), n_m),
-            "measure": np.repeat(np.asarray(ms), block),
-            "value": np.concatenate(cols["value"]),
-            "unit": np.repeat(np.asarray([MEASURE_UNITS[m] for m in ms]), block),
-            "value_lo": np.concatenate(cols["lo"]), "value_hi": np.concatenate(cols["hi"]),
-            "leakage_expected": np.concatenate(cols["exp"]),
-            "leakage_q95": np.concatenate(cols["q95"]),
-            "leakage_explained": _boolean(np.concatenate(cols["expl"])),
-            "filter_share_a": np.tile(f.share[a], n_m * n_b),
-            "filter_share_b": np.tile(f.share[b], n_m * n_b),
-            "shared_sources": np.tile(shared, n_m * n_b), "n_epochs": ec.n_epochs,
-            "z": np.nan}))
+        frames.append(
+            pd.DataFrame(
+                {
+                    "atlas": f.atlas,
+                    "edge": np.tile(label, n_m * n_b),
+                    "roi_a": np.tile(names[a], n_m * n_b),
+                    "hemisphere_a": np.tile(hemis[a], n_m * n_b),
+                    "roi_b": np.tile(names[b], n_m * n_b),
+                    "hemisphere_b": np.tile(hemis[b], n_m * n_b),
+                    "band": np.tile(np.repeat(np.asarray(ec.band_names), n_e), n_m),
+                    "measure": np.repeat(np.asarray(ms), block),
+                    "value": np.concatenate(cols["value"]),
+                    "unit": np.repeat(np.asarray([MEASURE_UNITS[m] for m in ms]), block),
+                    "value_lo": np.concatenate(cols["lo"]),
+                    "value_hi": np.concatenate(cols["hi"]),
+                    "leakage_expected": np.concatenate(cols["exp"]),
+                    "leakage_q95": np.concatenate(cols["q95"]),
+                    "leakage_explained": _boolean(np.concatenate(cols["expl"])),
+                    "filter_share_a": np.tile(f.share[a], n_m * n_b),
+                    "filter_share_b": np.tile(f.share[b], n_m * n_b),
+                    "shared_sources": np.tile(shared, n_m * n_b),
+                    "n_epochs": ec.n_epochs,
+                    "z": np.nan,
+                }
+            )
+        )
     return pd.concat(frames, ignore_index=True)[list(EDGE_COLUMNS)]
 
 
-def network_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.ndarray,
-                     bands: Bands, op, atlases, *, gain: np.ndarray | None = None,
-                     normals: np.ndarray | None = None, null_cov: np.ndarray | None = None,
-                     **options) -> list[EdgeCoupling]:
+def network_coupling(
+    spec: np.ndarray,
+    spec_plain: np.ndarray | None,
+    freqs: np.ndarray,
+    bands: Bands,
+    op,
+    atlases,
+    *,
+    gain: np.ndarray | None = None,
+    normals: np.ndarray | None = None,
+    null_cov: np.ndarray | None = None,
+    **options,
+) -> list[EdgeCoupling]:
     """:func:`edge_coupling` for several atlases with filters built from ``op``.
 
     Parameters
@@ -707,13 +796,39 @@ def network_coupling(spec: np.ndarray, spec_plain: np.ndarray | None, freqs: np.
     if null_cov is None and gain is not None:
         g = _fixed_gain(gain, op.n_src, normals) if op.n_comp == 1 else np.asarray(gain)
         null_cov = independent_source_covariance(g)
-    return [edge_coupling(spec, spec_plain, freqs, bands,
-                          roi_filters(op, at, normals=normals), null_cov=null_cov, **options)
-            for at in atlases]
+    return [
+        edge_coupling(
+            spec,
+            spec_plain,
+            freqs,
+            bands,
+            roi_filters(op, at, normals=normals),
+            null_cov=null_cov,
+            **options,
+        )
+        for at in atlases
+    ]
 
 
-__all__ = ["COUPLING_ATLASES", "EDGE_COLUMNS", "EDGE_COLUMN_NOTES", "EDGE_MEASURES",
-           "EdgeCoupling", "LAGGED_MEASURES", "RoiFilters", "aec_block_se", "aec_from_moments",
-           "band_analytic", "coupling_table", "edge_coupling", "edge_leakage_msc",
-           "envelope_moments", "independent_source_covariance", "msc_from_covariance",
-           "network_coupling", "roi_cross_spectra", "roi_filters", "roi_fourier"]
+__all__ = [
+    "COUPLING_ATLASES",
+    "EDGE_COLUMNS",
+    "EDGE_COLUMN_NOTES",
+    "EDGE_MEASURES",
+    "EdgeCoupling",
+    "LAGGED_MEASURES",
+    "RoiFilters",
+    "aec_block_se",
+    "aec_from_moments",
+    "band_analytic",
+    "coupling_table",
+    "edge_coupling",
+    "edge_leakage_msc",
+    "envelope_moments",
+    "independent_source_covariance",
+    "msc_from_covariance",
+    "network_coupling",
+    "roi_cross_spectra",
+    "roi_filters",
+    "roi_fourier",
+]

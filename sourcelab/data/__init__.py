@@ -84,12 +84,15 @@ def shipped_bytes(name: str) -> tuple[bytes, str]:
     try:
         data = (DATA_DIR / name).read_bytes()
     except OSError as exc:
-        raise RuntimeError(f"shipped data file {name} unreadable ({exc.strerror}); reinstall "
-                           "sourcelab") from None
+        raise RuntimeError(
+            f"shipped data file {name} unreadable ({exc.strerror}); reinstall sourcelab"
+        ) from None
     digest = hashlib.sha256(data).hexdigest()
     if digest != expected:
-        raise RuntimeError(f"shipped data file {name} has sha256 {digest[:12]}, the manifest "
-                           f"says {expected[:12]}: reinstall sourcelab or rebuild the file")
+        raise RuntimeError(
+            f"shipped data file {name} has sha256 {digest[:12]}, the manifest "
+            f"says {expected[:12]}: reinstall sourcelab or rebuild the file"
+        )
     return data, digest
 
 

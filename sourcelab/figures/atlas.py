@@ -87,21 +87,39 @@ def plot_atlas(name_or_atlas: str | Atlas, *, output_file: str | Path | None = N
         for j, view in enumerate(("lateral", "medial")):
             ax = axes[2 * h + j]
             roi_map = np.where(labels[sl] > 0, labels[sl], np.nan)  # NaN: not painted
-            plotting.plot_surf_roi(mesh, roi_map=roi_map, hemi=hemi, view=view,
-                                   cmap=cmap, vmin=0.5, vmax=n_max + 0.5, engine="matplotlib",
-                                   axes=ax,
-                                   figure=fig, colorbar=False, bg_on_data=False)
+            plotting.plot_surf_roi(
+                mesh,
+                roi_map=roi_map,
+                hemi=hemi,
+                view=view,
+                cmap=cmap,
+                vmin=0.5,
+                vmax=n_max + 0.5,
+                engine="matplotlib",
+                axes=ax,
+                figure=fig,
+                colorbar=False,
+                bg_on_data=False,
+            )
             ax.set_title(f"{hemi} {view}", fontsize=9)
     from matplotlib.patches import Patch
 
-    handles = [Patch(facecolor=cmap(i), edgecolor="0.3", lw=0.4,
-                     label=(f"{n} {area_name(n)}".strip()))
-               for i, n in sorted(enumerate(names), key=lambda kn: natural_key(kn[1]))]
-    fig.legend(handles=handles, loc="center left", bbox_to_anchor=(frac + 0.005, 0.45),
-               ncol=n_cols, fontsize=6.5 if len(names) > 30 else 8, frameon=False,
-               handlelength=1.2, columnspacing=0.8, borderaxespad=0.0)
-    fig.suptitle(f"{atlas.name}: {len(names)} ROIs (grey: not in any ROI)", x=frac / 2,
-                 fontsize=11)
+    handles = [
+        Patch(facecolor=cmap(i), edgecolor="0.3", lw=0.4, label=(f"{n} {area_name(n)}".strip()))
+        for i, n in sorted(enumerate(names), key=lambda kn: natural_key(kn[1]))
+    ]
+    fig.legend(
+        handles=handles,
+        loc="center left",
+        bbox_to_anchor=(frac + 0.005, 0.45),
+        ncol=n_cols,
+        fontsize=6.5 if len(names) > 30 else 8,
+        frameon=False,
+        handlelength=1.2,
+        columnspacing=0.8,
+        borderaxespad=0.0,
+    )
+    fig.suptitle(f"{atlas.name}: {len(names)} ROIs (grey: not in any ROI)", x=frac / 2, fontsize=11)
     if output_file is not None:
         fig.savefig(output_file, dpi=120)
     return fig

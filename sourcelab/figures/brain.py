@@ -33,8 +33,9 @@ def _check_values(values) -> np.ndarray:
     if v.shape == (geometry.N_SURFACE,):
         return model.from_surface(v)
     if v.shape != (model.n_src,):
-        raise ValueError(f"values: need shape ({model.n_src},) (one per template source), "
-                         f"got {v.shape}")
+        raise ValueError(
+            f"values: need shape ({model.n_src},) (one per template source), got {v.shape}"
+        )
     return v
 
 
@@ -47,9 +48,13 @@ def _schematic(direction: str, black_bg: bool):
     json_file, transform = gb._get_json_and_transform(direction)
     content = json.loads(Path(json_file).read_text(encoding="utf-8"))
     patches = gb._get_mpl_patches(content, invert_color=black_bg)
-    return ([pa.get_path() for pa in patches], [pa.get_edgecolor() for pa in patches],
-            [pa.get_linewidth() for pa in patches], transform,
-            gb._get_object_bounds(content, transform))
+    return (
+        [pa.get_path() for pa in patches],
+        [pa.get_edgecolor() for pa in patches],
+        [pa.get_linewidth() for pa in patches],
+        transform,
+        gb._get_object_bounds(content, transform),
+    )
 
 
 def _outline_as_one_collection(ax, direction, **kwargs):
@@ -64,10 +69,17 @@ def _outline_as_one_collection(ax, direction, **kwargs):
         return gb.plot_brain_schematics(ax, direction, **kwargs)
     black_bg = to_rgba(ax.get_facecolor()) == to_rgba("k")
     paths, edges, widths, transform, bounds = _schematic(direction, black_bg)
-    ax.add_collection(PathCollection(paths, facecolors="none", edgecolors=edges,
-                                     linewidths=widths, transform=transform + ax.transData,
-                                     alpha=kwargs.get("alpha")),
-                      autolim=False)
+    ax.add_collection(
+        PathCollection(
+            paths,
+            facecolors="none",
+            edgecolors=edges,
+            linewidths=widths,
+            transform=transform + ax.transData,
+            alpha=kwargs.get("alpha"),
+        ),
+        autolim=False,
+    )
     return bounds
 
 
@@ -80,9 +92,10 @@ def _fast_outline():
         from nilearn.plotting.displays import _axes
         from nilearn.plotting import glass_brain as gb
 
-        ok = (getattr(_axes, "plot_brain_schematics", None) is gb.plot_brain_schematics
-              and all(hasattr(gb, n) for n in ("_get_json_and_transform", "_get_mpl_patches",
-                                              "_get_object_bounds")))
+        ok = getattr(_axes, "plot_brain_schematics", None) is gb.plot_brain_schematics and all(
+            hasattr(gb, n)
+            for n in ("_get_json_and_transform", "_get_mpl_patches", "_get_object_bounds")
+        )
     except ImportError:
         ok = False
     if not ok:
@@ -100,9 +113,17 @@ def _save(fig: Figure, output_file, dpi: int) -> None:
         fig.savefig(output_file, dpi=dpi)
 
 
-def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = None,
-                display_mode: str = "lyrz", resolution: int = 2, figsize=(9.5, 2.6),
-                dpi: int = 90, output_file=None) -> Figure:
+def glass_brain(
+    values: np.ndarray,
+    *,
+    scale: ColourScale,
+    title: str | None = None,
+    display_mode: str = "lyrz",
+    resolution: int = 2,
+    figsize=(9.5, 2.6),
+    dpi: int = 90,
+    output_file=None,
+) -> Figure:
     """Glass-brain projections of a per-source map.
 
     The map is projected into an MNI152 volume by :func:`geometry.sources_to_volume` (nearest
@@ -149,12 +170,22 @@ def glass_brain(values: np.ndarray, *, scale: ColourScale, title: str | None = N
         # a z map with nothing beyond the mask is a valid answer, not a problem to warn about
         warnings.filterwarnings("ignore", message="empty mask", category=UserWarning)
         plotting.plot_glass_brain(
-            img, display_mode=display_mode, figure=fig, axes=ax, cmap=scale.cmap,
-            vmin=scale.vmin, vmax=scale.vmax, plot_abs=not signed, colorbar=False,
+            img,
+            display_mode=display_mode,
+            figure=fig,
+            axes=ax,
+            cmap=scale.cmap,
+            vmin=scale.vmin,
+            vmax=scale.vmax,
+            plot_abs=not signed,
+            colorbar=False,
             # voxels left empty (0: no source within reach) stay clear, also for z maps
             # without a mask (else they show as boxes in the map's centre colour)
             threshold=scale.threshold if scale.threshold else _SHOWN,
-            black_bg=False, annotate=True, symmetric_cbar=signed)
+            black_bg=False,
+            annotate=True,
+            symmetric_cbar=signed,
+        )
     add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
@@ -194,10 +225,18 @@ def surface_plot_values(values: np.ndarray, scale: ColourScale) -> tuple[np.ndar
     return v, float(scale.threshold) if scale.threshold else _SHOWN
 
 
-def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None = None,
-                  surface: str = "inflated", outline=None,
-                  figsize=(8.0, 6.0), dpi: int = 90, raster: bool = True,
-                  output_file=None) -> Figure:
+def surface_views(
+    values: np.ndarray,
+    *,
+    scale: ColourScale,
+    title: str | None = None,
+    surface: str = "inflated",
+    outline=None,
+    figsize=(8.0, 6.0),
+    dpi: int = 90,
+    raster: bool = True,
+    output_file=None,
+) -> Figure:
     """Lateral and medial views of both hemispheres on the fsaverage5 surface.
 
     Sulcal depth shades the surface (dark = sulci); values are drawn with
@@ -233,16 +272,18 @@ def surface_views(values: np.ndarray, *, scale: ColourScale, title: str | None =
     raw = _check_values(values)
     v = geometry.to_surface(raw)
     if outline is not None:
-        outline = (geometry.atlas_labels(outline) if hasattr(outline, "rois")
-                   else np.asarray(outline))
+        outline = (
+            geometry.atlas_labels(outline) if hasattr(outline, "rois") else np.asarray(outline)
+        )
         if outline.shape != (geometry.N_SURFACE,):
             raise ValueError(f"outline: need shape ({geometry.N_SURFACE},), got {outline.shape}")
     fig = plt.figure(figsize=figsize, dpi=dpi)
     top = 0.92 if title else 0.98
     views = _draw_views(fig, v, scale, surface, outline, top)
     if raster:
-        _rasterise_views(fig, views, surface=surface, outline=outline, top=top,
-                         figsize=figsize, dpi=dpi)
+        _rasterise_views(
+            fig, views, surface=surface, outline=outline, top=top, figsize=figsize, dpi=dpi
+        )
     cax = fig.add_axes((0.87, 0.15, 0.02, top * 0.7))
     add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
@@ -269,16 +310,26 @@ def warm_caches(func, kwargs) -> None:
     elif func is surface_views and kwargs.get("raster", True):
         outline = kwargs.get("outline")
         if outline is not None:
-            outline = (geometry.atlas_labels(outline) if hasattr(outline, "rois")
-                       else np.asarray(outline))
+            outline = (
+                geometry.atlas_labels(outline) if hasattr(outline, "rois") else np.asarray(outline)
+            )
         key = None if outline is None else np.asarray(outline, np.int64).tobytes()
-        _face_raster(kwargs.get("surface", "inflated"), 0.92 if kwargs.get("title") else 0.98,
-                     tuple(kwargs.get("figsize", (8.0, 6.0))), int(kwargs.get("dpi", 90)), key)
+        _face_raster(
+            kwargs.get("surface", "inflated"),
+            0.92 if kwargs.get("title") else 0.98,
+            tuple(kwargs.get("figsize", (8.0, 6.0))),
+            int(kwargs.get("dpi", 90)),
+            key,
+        )
 
 
 def _view_rects(top: float) -> list[tuple[float, float, float, float]]:
-    return [(0.0, top / 2, 0.43, top / 2), (0.43, top / 2, 0.43, top / 2),
-            (0.0, 0.0, 0.43, top / 2), (0.43, 0.0, 0.43, top / 2)]
+    return [
+        (0.0, top / 2, 0.43, top / 2),
+        (0.43, top / 2, 0.43, top / 2),
+        (0.0, 0.0, 0.43, top / 2),
+        (0.43, 0.0, 0.43, top / 2),
+    ]
 
 
 def _draw_views(fig, v, scale, surface, outline, top) -> list:
@@ -296,11 +347,22 @@ def _draw_views(fig, v, scale, surface, outline, top) -> list:
         data, threshold = surface_plot_values(v[sl], scale)
         faces = _front_faces(coords, faces, hemi=hemi, view=view)
         plotting.plot_surf_stat_map(
-            (coords, faces), stat_map=data,
-            bg_map=sulc[h], hemi=hemi, view=view, engine="matplotlib", axes=ax, figure=fig,
-            cmap=scale.cmap, vmin=scale.vmin, vmax=scale.vmax, colorbar=False,
-            threshold=threshold, symmetric_cbar=scale.diverging,
-            bg_on_data=True)
+            (coords, faces),
+            stat_map=data,
+            bg_map=sulc[h],
+            hemi=hemi,
+            view=view,
+            engine="matplotlib",
+            axes=ax,
+            figure=fig,
+            cmap=scale.cmap,
+            vmin=scale.vmin,
+            vmax=scale.vmax,
+            colorbar=False,
+            threshold=threshold,
+            symmetric_cbar=scale.diverging,
+            bg_on_data=True,
+        )
         surf_coll = ax.collections[0]
         lines = None
         if outline is not None:
@@ -342,8 +404,7 @@ def _rasterise_views(fig, views, *, surface, outline, top, figsize, dpi) -> None
         if lines is not None:
             lines.set_visible(False)
     over = fig.add_axes((0.0, 0.0, 1.0, 1.0), zorder=-1)
-    over.imshow(img, interpolation="nearest", aspect="auto", extent=(0, 1, 0, 1),
-                origin="upper")
+    over.imshow(img, interpolation="nearest", aspect="auto", extent=(0, 1, 0, 1), origin="upper")
     over.set_axis_off()
 
 
@@ -370,8 +431,9 @@ def _face_raster(surface: str, top: float, figsize: tuple, dpi: int, outline_key
     fig = Figure(figsize=figsize, dpi=dpi)
     FigureCanvasAgg(fig)
     fig.patch.set_alpha(0.0)
-    views = _draw_views(fig, geometry.to_surface(np.zeros(n_src)), _id_scale(), surface,
-                        outline, top)
+    views = _draw_views(
+        fig, geometry.to_surface(np.zeros(n_src)), _id_scale(), surface, outline, top
+    )
     offset = 0
     for ax, coll, lines in views:
         n = len(_face_colours(coll))
@@ -441,5 +503,4 @@ def _draw_outline(ax, coords: np.ndarray, faces: np.ndarray, labels: np.ndarray)
         return
     from mpl_toolkits.mplot3d.art3d import Line3DCollection
 
-    ax.add_collection3d(Line3DCollection(segs, colors="k", linewidths=0.5, alpha=0.8,
-                                         zorder=10))
+    ax.add_collection3d(Line3DCollection(segs, colors="k", linewidths=0.5, alpha=0.8, zorder=10))

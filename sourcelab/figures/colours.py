@@ -1,8 +1,8 @@
 """One colour convention for every sourcelab figure.
 
 * z-scores: a symmetric diverging map (``RdBu_r``) centred on 0, with the **same** limits for every
-  band and measure (default ±3), optionally hiding |z| below a threshold (default 1.96, the two-sided
-  5 % point of the standard normal: common practice).
+  band and measure (default ±3), optionally hiding |z| below a threshold (default 1.96, the
+  two-sided 5 % point of the standard normal: common practice).
 * power (absolute or relative): a sequential map (``magma``) over a robust range of the data (1st to
   99th percentile) unless limits are given.
 
@@ -77,8 +77,9 @@ class ColourScale:
         return mpl.cm.ScalarMappable(norm=self.norm, cmap=mpl.colormaps[self.cmap])
 
 
-def z_scale(*, limit: float = Z_LIMIT, threshold: float | None = None,
-            label: str = Z_LABEL) -> ColourScale:
+def z_scale(
+    *, limit: float = Z_LIMIT, threshold: float | None = None, label: str = Z_LABEL
+) -> ColourScale:
     """The z-score colour scale: symmetric about 0, the same for every band.
 
     Parameters
@@ -96,14 +97,21 @@ def z_scale(*, limit: float = Z_LIMIT, threshold: float | None = None,
         Diverging :data:`Z_CMAP` scale from ``-limit`` to ``+limit`` (SD units).
     """
     limit = check_number("z limit", limit, low=0.0, low_open=True)
-    threshold = check_number("z threshold", threshold, low=0.0, high=limit, high_open=True,
-                             none_ok=True)
+    threshold = check_number(
+        "z threshold", threshold, low=0.0, high=limit, high_open=True, none_ok=True
+    )
     return ColourScale(Z_CMAP, -float(limit), float(limit), label, threshold, True)
 
 
-def power_scale(values: np.ndarray | None = None, *, measure: str = "absolute",
-                vmin: float | None = None, vmax: float | None = None,
-                percentile: float = 99.0, label: str | None = None) -> ColourScale:
+def power_scale(
+    values: np.ndarray | None = None,
+    *,
+    measure: str = "absolute",
+    vmin: float | None = None,
+    vmax: float | None = None,
+    percentile: float = 99.0,
+    label: str | None = None,
+) -> ColourScale:
     """A sequential power colour scale.
 
     Parameters
@@ -168,8 +176,12 @@ def extend_for(data, scale: ColourScale) -> str:
     if not v.size:
         return "neither"
     lo, hi = bool(v.min() < scale.vmin), bool(v.max() > scale.vmax)
-    return {(False, False): "neither", (True, False): "min", (False, True): "max",
-            (True, True): "both"}[(lo, hi)]
+    return {
+        (False, False): "neither",
+        (True, False): "min",
+        (False, True): "max",
+        (True, True): "both",
+    }[(lo, hi)]
 
 
 def data_range_text(data) -> str:
@@ -192,8 +204,16 @@ def data_range_text(data) -> str:
     return f"data {v.min():.3g} to {v.max():.3g}"
 
 
-def add_colourbar(fig, scale: ColourScale, *, cax=None, ax=None, orientation: str = "vertical",
-                  data=None, **kwargs):
+def add_colourbar(
+    fig,
+    scale: ColourScale,
+    *,
+    cax=None,
+    ax=None,
+    orientation: str = "vertical",
+    data=None,
+    **kwargs,
+):
     """Add a labelled colour bar for ``scale`` to ``fig`` (in ``cax``, or stolen from ``ax``).
 
     Parameters

@@ -52,11 +52,17 @@ def _save(fig, output_file, dpi):
 
 #: Short measure names for titles.
 MEASURE_TITLES = {
-    "msc": "coherence (magnitude squared)", "imcoh": "imaginary coherency",
-    "lagcoh": "lagged coherence", "wpli": "weighted phase-lag index",
-    "wpli2_debiased": "debiased wPLI²", "lps": "lagged phase synchronisation",
-    "phase_deg": "phase difference", "lag_ms": "time lag", "phase_sd_deg": "phase spread",
-    "asymmetry": "power asymmetry", "aec_orth": "orthogonalised envelope correlation",
+    "msc": "coherence (magnitude squared)",
+    "imcoh": "imaginary coherency",
+    "lagcoh": "lagged coherence",
+    "wpli": "weighted phase-lag index",
+    "wpli2_debiased": "debiased wPLI²",
+    "lps": "lagged phase synchronisation",
+    "phase_deg": "phase difference",
+    "lag_ms": "time lag",
+    "phase_sd_deg": "phase spread",
+    "asymmetry": "power asymmetry",
+    "aec_orth": "orthogonalised envelope correlation",
 }
 
 
@@ -101,8 +107,13 @@ def _draw_head(ax, radius: float) -> None:
     ax.plot(nose[:, 0], nose[:, 1], color="0.35", lw=1.2, zorder=1)
     for side in (-1, 1):
         ear_t = np.linspace(-0.5 * np.pi, 0.5 * np.pi, 40)
-        ax.plot(side * (radius + 0.05 * np.cos(ear_t)), 0.16 * np.sin(ear_t),
-                color="0.35", lw=1.2, zorder=1)
+        ax.plot(
+            side * (radius + 0.05 * np.cos(ear_t)),
+            0.16 * np.sin(ear_t),
+            color="0.35",
+            lw=1.2,
+            zorder=1,
+        )
 
 
 def _arc(p0, p1, *, bow: float = 0.14, away=None, n: int = 24) -> np.ndarray:
@@ -118,11 +129,11 @@ def _arc(p0, p1, *, bow: float = 0.14, away=None, n: int = 24) -> np.ndarray:
     ref = np.zeros(2) if away is None else np.asarray(away, float)
     if np.dot(normal, mid - ref) < 0:
         normal = -normal
-    if away is None and np.linalg.norm(mid) < 0.05:   # a chord through the centre: forwards
+    if away is None and np.linalg.norm(mid) < 0.05:  # a chord through the centre: forwards
         normal = np.array([0.0, 1.0]) if abs(d[0]) >= abs(d[1]) else np.array([1.0, 0.0])
     ctrl = mid + bow * np.linalg.norm(d) * normal
     t = np.linspace(0, 1, n)[:, None]
-    return (1 - t) ** 2 * p0 + 2 * (1 - t) * t * ctrl + t ** 2 * p1
+    return (1 - t) ** 2 * p0 + 2 * (1 - t) * t * ctrl + t**2 * p1
 
 
 def _near_point(p0, p1, points: np.ndarray, tol: float):
@@ -136,8 +147,16 @@ def _near_point(p0, p1, points: np.ndarray, tol: float):
 
 
 def _pair_rows(pair_table: pd.DataFrame, band: str, measure: str, pairs: str) -> pd.DataFrame:
-    need = {"pair", "channel_a", "channel_b", "band", "measure", "z", "homologous",
-            "intrahemispheric"}
+    need = {
+        "pair",
+        "channel_a",
+        "channel_b",
+        "band",
+        "measure",
+        "z",
+        "homologous",
+        "intrahemispheric",
+    }
     missing = sorted(need - set(pair_table.columns))
     if missing:
         raise ValueError(f"pair_table: missing columns {missing}")
@@ -146,17 +165,27 @@ def _pair_rows(pair_table: pd.DataFrame, band: str, measure: str, pairs: str) ->
     if t.empty:
         raise InputError(f"pair_table: no rows for band={band!r}, measure={measure!r}")
     if pairs == "figure" and measure != "asymmetry":
-        keep = (t["homologous"].fillna(False).astype(bool)
-                | t["intrahemispheric"].fillna(False).astype(bool))
+        keep = t["homologous"].fillna(False).astype(bool) | t["intrahemispheric"].fillna(
+            False
+        ).astype(bool)
         t = t[keep.to_numpy()]
     return t
 
 
-def pair_head_map(pair_table: pd.DataFrame, *, band: str, measure: str,
-                  ch_pos: np.ndarray | None = None, ch_names=None,
-                  z_threshold: float = Z_THRESHOLD, scale: ColourScale | None = None,
-                  pairs: str = "figure", band_label: str | None = None, dpi: int = 90,
-                  output_file=None) -> Figure:
+def pair_head_map(
+    pair_table: pd.DataFrame,
+    *,
+    band: str,
+    measure: str,
+    ch_pos: np.ndarray | None = None,
+    ch_names=None,
+    z_threshold: float = Z_THRESHOLD,
+    scale: ColourScale | None = None,
+    pairs: str = "figure",
+    band_label: str | None = None,
+    dpi: int = 90,
+    output_file=None,
+) -> Figure:
     """Electrode pairs deviating from the norm, drawn as coloured arcs on a head.
 
     Parameters
@@ -214,30 +243,51 @@ def pair_head_map(pair_table: pd.DataFrame, *, band: str, measure: str,
     _draw_head(ax, radius)
     chords = [np.vstack([where[a], where[b]]) for a, b in zip(t["channel_a"], t["channel_b"])]
     ax.add_collection(LineCollection(chords, colors="0.82", linewidths=0.6, zorder=2))
-    order = np.argsort(np.abs(np.where(dev, z, 0.0)))           # strongest drawn on top
+    order = np.argsort(np.abs(np.where(dev, z, 0.0)))  # strongest drawn on top
     sel = [i for i in order if dev[i]]
     if sel:
         arcs = []
         for i in sel:
             a, b = where[t["channel_a"].iloc[i]], where[t["channel_b"].iloc[i]]
             # a chord running through another electrode (F3-P3 through C3) bows further
-            others = np.array([p for q, p in where.items()
-                               if q not in (t["channel_a"].iloc[i], t["channel_b"].iloc[i])])
+            others = np.array(
+                [
+                    p
+                    for q, p in where.items()
+                    if q not in (t["channel_a"].iloc[i], t["channel_b"].iloc[i])
+                ]
+            )
             near = _near_point(a, b, others, 0.12)
-            arcs.append(_arc(a, b, bow=0.14) if near is None else
-                        _arc(a, b, bow=0.3, away=near))
+            arcs.append(_arc(a, b, bow=0.14) if near is None else _arc(a, b, bow=0.3, away=near))
         widths = 1.0 + 1.2 * np.clip(np.abs(z[sel]) - z_threshold, 0.0, 2.5)
-        lc = LineCollection(arcs, cmap=scale.cmap, norm=scale.norm, linewidths=widths,
-                            capstyle="round", zorder=3)
+        lc = LineCollection(
+            arcs, cmap=scale.cmap, norm=scale.norm, linewidths=widths, capstyle="round", zorder=3
+        )
         lc.set_array(z[sel])
         ax.add_collection(lc)
     involved = set(t["channel_a"].to_numpy()[dev]) | set(t["channel_b"].to_numpy()[dev])
     for n, (x, y) in where.items():
         bold = n in involved
-        ax.scatter([x], [y], s=290, facecolor="white", edgecolor="0.1" if bold else "0.55",
-                   linewidths=1.4 if bold else 0.7, zorder=4)
-        ax.text(x, y, n, ha="center", va="center", fontsize=7, zorder=5,
-                color="0.05" if bold else "0.35", fontweight="bold" if bold else "normal")
+        ax.scatter(
+            [x],
+            [y],
+            s=290,
+            facecolor="white",
+            edgecolor="0.1" if bold else "0.55",
+            linewidths=1.4 if bold else 0.7,
+            zorder=4,
+        )
+        ax.text(
+            x,
+            y,
+            n,
+            ha="center",
+            va="center",
+            fontsize=7,
+            zorder=5,
+            color="0.05" if bold else "0.35",
+            fontweight="bold" if bold else "normal",
+        )
     lim = radius * 1.14
     ax.set_xlim(-lim, lim)
     ax.set_ylim(-lim, lim)
@@ -247,13 +297,20 @@ def pair_head_map(pair_table: pd.DataFrame, *, band: str, measure: str,
     add_colourbar(fig, scale, cax=cax, data=z[sel] if sel else None)
     what = _measure_text(measure)
     fig.suptitle(f"{band_label or band} · {what}", fontsize=11, y=0.975)
-    subset = ("homologous and anterior-posterior pairs" if measure == "asymmetry" else
-              "homologous and within-hemisphere pairs" if pairs == "figure" else "all pairs")
+    subset = (
+        "homologous and anterior-posterior pairs"
+        if measure == "asymmetry"
+        else "homologous and within-hemisphere pairs"
+        if pairs == "figure"
+        else "all pairs"
+    )
     fig.text(0.43, 0.915, subset, ha="center", fontsize=8.5, color="0.3")
     n = len(t)
     if has_z:
-        lines = [f"{int(dev.sum())} of {n} pairs with |z| ≥ {z_threshold:g} in colour "
-                 f"(about {0.05 * n:.0f} expected by chance alone)"]
+        lines = [
+            f"{int(dev.sum())} of {n} pairs with |z| ≥ {z_threshold:g} in colour "
+            f"(about {0.05 * n:.0f} expected by chance alone)"
+        ]
     else:
         lines = ["no norms: nothing to compare with, no pair is coloured"]
     lines.append(_Z_MEANING.get(measure, "z > 0: above the norm (red); z < 0: below (blue)"))
@@ -264,16 +321,27 @@ def pair_head_map(pair_table: pd.DataFrame, *, band: str, measure: str,
 
 
 def _roi_order(t: pd.DataFrame) -> list[tuple[str, str]]:
-    rois = list(dict.fromkeys(list(zip(t["roi_a"], t["hemisphere_a"]))
-                              + list(zip(t["roi_b"], t["hemisphere_b"]))))
+    rois = list(
+        dict.fromkeys(
+            list(zip(t["roi_a"], t["hemisphere_a"])) + list(zip(t["roi_b"], t["hemisphere_b"]))
+        )
+    )
     rank = {"left": 0, "both": 1, "right": 2}
     return sorted(rois, key=lambda r: (rank.get(r[1], 1), rois.index(r)))
 
 
-def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | None = None,
-                    bands=None, band_labels: dict | None = None,
-                    z_threshold: float = Z_THRESHOLD, scale: ColourScale | None = None,
-                    dpi: int = 90, output_file=None) -> Figure:
+def coupling_matrix(
+    coupling_table: pd.DataFrame,
+    *,
+    measure: str,
+    atlas: str | None = None,
+    bands=None,
+    band_labels: dict | None = None,
+    z_threshold: float = Z_THRESHOLD,
+    scale: ColourScale | None = None,
+    dpi: int = 90,
+    output_file=None,
+) -> Figure:
     """ROI-by-ROI matrices of one coupling measure, one panel per band.
 
     Parameters
@@ -305,8 +373,17 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
         the symmetric matrix (NaN diagonal); for ``imcoh`` and ``lag_ms`` the lower triangle is
         the upper one negated (b leading a).
     """
-    need = {"atlas", "roi_a", "hemisphere_a", "roi_b", "hemisphere_b", "band", "measure",
-            "value", "z"}
+    need = {
+        "atlas",
+        "roi_a",
+        "hemisphere_a",
+        "roi_b",
+        "hemisphere_b",
+        "band",
+        "measure",
+        "value",
+        "z",
+    }
     missing = sorted(need - set(coupling_table.columns))
     if missing:
         raise ValueError(f"coupling_table: missing columns {missing}")
@@ -314,10 +391,12 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
     if atlas is None:
         from ..rois import DEFAULT_NETWORK_ATLAS
 
-        atlas = (DEFAULT_NETWORK_ATLAS if DEFAULT_NETWORK_ATLAS in atlases
-                 else (atlases[0] if atlases else None))
-    t = coupling_table[(coupling_table["atlas"] == atlas)
-                       & (coupling_table["measure"] == measure)]
+        atlas = (
+            DEFAULT_NETWORK_ATLAS
+            if DEFAULT_NETWORK_ATLAS in atlases
+            else (atlases[0] if atlases else None)
+        )
+    t = coupling_table[(coupling_table["atlas"] == atlas) & (coupling_table["measure"] == measure)]
     if t.empty:
         raise InputError(f"coupling_table: no rows for atlas={atlas!r}, measure={measure!r}")
     bands = list(bands) if bands is not None else list(dict.fromkeys(t["band"]))
@@ -364,7 +443,7 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
     n_b = len(bands)
     ncol = min(3, n_b)
     nrow = int(np.ceil(n_b / ncol))
-    side = max(2.4, 0.22 * n)                         # panel size, inches
+    side = max(2.4, 0.22 * n)  # panel size, inches
     lab = 0.25 + 0.062 * max(len(s) for s in labels)  # room for ROI labels
     gap, title_h, row_h, notes_h, cbar_w = 0.3, 0.55, side + 0.4, 0.55, 1.3
     w = lab + ncol * side + (ncol - 1) * gap + cbar_w
@@ -377,15 +456,16 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
         x0 = (lab + c_ * (side + gap)) / w
         y0 = 1 - (title_h + lab + r_ * row_h + side) / h
         ax = fig.add_axes((x0, y0, side / w, side / h))
-        ax.imshow(np.ma.masked_invalid(mats[k]), cmap=cmap, norm=scale.norm,
-                  interpolation="nearest")
+        ax.imshow(
+            np.ma.masked_invalid(mats[k]), cmap=cmap, norm=scale.norm, interpolation="nearest"
+        )
         yy, xx = np.nonzero(flags[k])
         if yy.size:
-            ax.scatter(xx, yy, s=9, c="k", marker="o", edgecolors="white", linewidths=0.5,
-                       zorder=3)
+            ax.scatter(xx, yy, s=9, c="k", marker="o", edgecolors="white", linewidths=0.5, zorder=3)
         for yv, xv in zip(*np.nonzero(frames[k])):
-            ax.add_patch(plt.Rectangle((xv - 0.5, yv - 0.5), 1, 1, fill=False, ec="k",
-                                       lw=1.1, zorder=4))
+            ax.add_patch(
+                plt.Rectangle((xv - 0.5, yv - 0.5), 1, 1, fill=False, ec="k", lw=1.1, zorder=4)
+            )
         if 0 < n_left < n:
             for f in (ax.axhline, ax.axvline):
                 f(n_left - 0.5, color="0.2", lw=0.8)
@@ -400,16 +480,27 @@ def coupling_matrix(coupling_table: pd.DataFrame, *, measure: str, atlas: str | 
     what = _measure_text(measure)
     from ..rois import atlas_title
 
-    fig.suptitle(f"{atlas_title(atlas)}: {what}"
-                 + (" · z against the norm" if has_z else " · values"),
-                 fontsize=11, y=1 - 0.12 / h, va="top")
+    fig.suptitle(
+        f"{atlas_title(atlas)}: {what}" + (" · z against the norm" if has_z else " · values"),
+        fontsize=11,
+        y=1 - 0.12 / h,
+        va="top",
+    )
     notes = []
     if has_z:
         notes.append(f"framed: |z| ≥ {z_threshold:g}")
     notes.append("dot: more coupling than the inverse's blur alone explains")
-    notes.append("lines separate left- from right-hemisphere ROIs; template head, "
-                 "19 electrodes: ROI coupling is blurred")
-    fig.text(0.01, 0.01, "; ".join(notes[:-1]) + "\n" + notes[-1], fontsize=7.5,
-             color="0.15", va="bottom")
+    notes.append(
+        "lines separate left- from right-hemisphere ROIs; template head, "
+        "19 electrodes: ROI coupling is blurred"
+    )
+    fig.text(
+        0.01,
+        0.01,
+        "; ".join(notes[:-1]) + "\n" + notes[-1],
+        fontsize=7.5,
+        color="0.15",
+        va="bottom",
+    )
     _save(fig, output_file, dpi)
     return fig

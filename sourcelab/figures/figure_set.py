@@ -79,13 +79,27 @@ def _pick_network_atlas(table) -> str | None:
     return None
 
 
-def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_LIMIT,
-                   z_threshold: float | None | str = "config", atlas: str | None = None,
-                   network_atlas: str | None = None, z_map_atlas: str | None = "brodmann",
-                   outline=None, display_mode: str = "lyrz", resolution: int = 2,
-                   surfaces: bool = True, dpi: int = 90, as_png: bool = False,
-                   n_jobs: int = 1, pair_measures=PAIR_FIGURE_MEASURES,
-                   edge_measures=EDGE_FIGURE_MEASURES, coupling_atlas: str | None = None) -> dict:
+def result_figures(
+    result,
+    *,
+    measures=MEASURES,
+    bands=None,
+    z_limit: float = Z_LIMIT,
+    z_threshold: float | None | str = "config",
+    atlas: str | None = None,
+    network_atlas: str | None = None,
+    z_map_atlas: str | None = "brodmann",
+    outline=None,
+    display_mode: str = "lyrz",
+    resolution: int = 2,
+    surfaces: bool = True,
+    dpi: int = 90,
+    as_png: bool = False,
+    n_jobs: int = 1,
+    pair_measures=PAIR_FIGURE_MEASURES,
+    edge_measures=EDGE_FIGURE_MEASURES,
+    coupling_atlas: str | None = None,
+) -> dict:
     """Make every figure of a result.
 
     Parameters
@@ -149,8 +163,9 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
     z_threshold = check_number("z_threshold", z_threshold or None, low=0.0, none_ok=True)
     z_threshold = z_threshold or None
     if z_threshold is not None and z_threshold >= z_limit:
-        raise InputError(f"z_threshold: {z_threshold:g} must be below z_limit {z_limit:g}",
-                         field="z_threshold")
+        raise InputError(
+            f"z_threshold: {z_threshold:g} must be below z_limit {z_limit:g}", field="z_threshold"
+        )
     zs = z_scale(limit=z_limit, threshold=z_threshold)
     source_z = getattr(result, "source_z", None) or {}
     all_bands = list(result.bands.names)
@@ -168,16 +183,36 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
             v = np.asarray(result.source_map(band, measure), float)
             ps = power_scale(v, measure=measure)
             title = f"{band} ({_edges(result, band)}) · {measure} source power"
-            keep(f"glass/{band}/{measure}", brain.glass_brain, v, scale=ps, title=title,
-                 display_mode=display_mode, resolution=resolution, dpi=dpi)
+            keep(
+                f"glass/{band}/{measure}",
+                brain.glass_brain,
+                v,
+                scale=ps,
+                title=title,
+                display_mode=display_mode,
+                resolution=resolution,
+                dpi=dpi,
+            )
             if surfaces:
-                keep(f"surface/{band}/{measure}", brain.surface_views, v, scale=ps, title=title,
-                     outline=labels, dpi=dpi)
+                keep(
+                    f"surface/{band}/{measure}",
+                    brain.surface_views,
+                    v,
+                    scale=ps,
+                    title=title,
+                    outline=labels,
+                    dpi=dpi,
+                )
             if surfaces and measure in source_z:
                 zi = np.asarray(source_z[measure][all_bands.index(band)], float)
-                keep(f"surface-z/{band}/{measure}", brain.surface_views, zi, scale=zs,
-                     dpi=dpi, title=f"{band} ({_edges(result, band)}) · {measure} power: "
-                                    "z per source")
+                keep(
+                    f"surface-z/{band}/{measure}",
+                    brain.surface_views,
+                    zi,
+                    scale=zs,
+                    dpi=dpi,
+                    title=f"{band} ({_edges(result, band)}) · {measure} power: z per source",
+                )
             if has_roi_z and z_map_atlas:
                 try:
                     zmap = result.roi_z_map(band, measure, atlas=z_map_atlas)
@@ -185,24 +220,46 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
                     logger.info("no source z map for atlas %r: %s", z_map_atlas, exc)
                     z_map_atlas = None
                 else:
-                    keep(f"glass-z/{band}/{measure}", brain.glass_brain, zmap, scale=zs,
-                         display_mode=display_mode, resolution=resolution, dpi=dpi,
-                         title=f"{band} · {measure} · ROI z ({z_map_atlas})")
+                    keep(
+                        f"glass-z/{band}/{measure}",
+                        brain.glass_brain,
+                        zmap,
+                        scale=zs,
+                        display_mode=display_mode,
+                        resolution=resolution,
+                        dpi=dpi,
+                        title=f"{band} · {measure} · ROI z ({z_map_atlas})",
+                    )
         sens = np.asarray(result.sensor_abs if measure == "absolute" else result.sensor_rel)
-        keep(f"topomap/{measure}", sensor.sensor_topomaps, sens, band_names=bands,
-             ch_names=result.ch_names, dpi=dpi,
-             # one scale per band: absolute power differs tenfold between bands
-             scale=[power_scale(sens[i], measure=f"sensor_{measure}")
-                    for i in range(sens.shape[0])],
-             title=f"sensor {measure} power (average reference)")
+        keep(
+            f"topomap/{measure}",
+            sensor.sensor_topomaps,
+            sens,
+            band_names=bands,
+            ch_names=result.ch_names,
+            dpi=dpi,
+            # one scale per band: absolute power differs tenfold between bands
+            scale=[power_scale(sens[i], measure=f"sensor_{measure}") for i in range(sens.shape[0])],
+            title=f"sensor {measure} power (average reference)",
+        )
         st = result.sensor_table
         st = st[st["measure"] == measure]
         if len(st) and _has_z(st):
-            zgrid = (st.pivot_table(index="band", columns="channel", values="z", aggfunc="first")
-                     .reindex(index=bands, columns=list(result.ch_names)).to_numpy(float))
-            keep(f"topomap-z/{measure}", sensor.sensor_topomaps, zgrid, band_names=bands,
-                 ch_names=result.ch_names, scale=zs, dpi=dpi,
-                 title=f"sensor {measure} power: z")
+            zgrid = (
+                st.pivot_table(index="band", columns="channel", values="z", aggfunc="first")
+                .reindex(index=bands, columns=list(result.ch_names))
+                .to_numpy(float)
+            )
+            keep(
+                f"topomap-z/{measure}",
+                sensor.sensor_topomaps,
+                zgrid,
+                band_names=bands,
+                ch_names=result.ch_names,
+                scale=zs,
+                dpi=dpi,
+                title=f"sensor {measure} power: z",
+            )
         if not has_roi_z or not (rt["measure"] == measure).any():
             continue
         net = network_atlas or _pick_network_atlas(rt)
@@ -211,16 +268,41 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
             for band in per_band:
                 sel = rt[(rt.atlas == area_atlas) & (rt.band == band) & (rt.measure == measure)]
                 if _has_z(sel):
-                    keep(f"roi-bars/{band}/{measure}", roi.roi_bars, rt, band=band,
-                         measure=measure, atlas=area_atlas, scale=zs, dpi=dpi)
+                    keep(
+                        f"roi-bars/{band}/{measure}",
+                        roi.roi_bars,
+                        rt,
+                        band=band,
+                        measure=measure,
+                        atlas=area_atlas,
+                        scale=zs,
+                        dpi=dpi,
+                    )
             # the heatmap keeps every cell coloured: its near-white cells already read as small z
-            keep(f"roi-heatmap/{measure}", roi.roi_heatmap, rt, measure=measure,
-                 atlas=area_atlas, bands=bands, scale=z_scale(limit=z_limit), dpi=dpi)
+            keep(
+                f"roi-heatmap/{measure}",
+                roi.roi_heatmap,
+                rt,
+                measure=measure,
+                atlas=area_atlas,
+                bands=bands,
+                scale=z_scale(limit=z_limit),
+                dpi=dpi,
+            )
         if net is not None:
-            keep(f"networks/{measure}", roi.network_chart, rt, atlas=net, measure=measure,
-                 bands=bands, scale=zs, dpi=dpi)
-    _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measures,
-                      coupling_atlas, z_threshold)
+            keep(
+                f"networks/{measure}",
+                roi.network_chart,
+                rt,
+                atlas=net,
+                measure=measure,
+                bands=bands,
+                scale=zs,
+                dpi=dpi,
+            )
+    _coupling_figures(
+        result, keep, per_band, zs, dpi, pair_measures, edge_measures, coupling_atlas, z_threshold
+    )
     _ocular_figure(result, keep, dpi)
     leak = getattr(result, "leakage", None)
     if leak is not None:
@@ -230,8 +312,9 @@ def result_figures(result, *, measures=MEASURES, bands=None, z_limit: float = Z_
     return _run(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
 
 
-def _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measures, atlas,
-                      z_threshold) -> None:
+def _coupling_figures(
+    result, keep, per_band, zs, dpi, pair_measures, edge_measures, atlas, z_threshold
+) -> None:
     """Queue the pair head maps and the ROI coupling matrices."""
     labels = {b: f"{b} ({_edges(result, b)})" for b in result.bands.names}
     pt = getattr(result, "pair_table", None)
@@ -240,18 +323,34 @@ def _coupling_figures(result, keep, per_band, zs, dpi, pair_measures, edge_measu
         for m in pair_measures:
             check_option("pair_measures", m, sorted(have))
             for band in per_band:
-                keep(f"pairs/{band}/{m}", coupling.pair_head_map, pt, band=band, measure=m,
-                     scale=zs, band_label=labels[band], dpi=dpi,
-                     z_threshold=z_threshold or Z_THRESHOLD)
+                keep(
+                    f"pairs/{band}/{m}",
+                    coupling.pair_head_map,
+                    pt,
+                    band=band,
+                    measure=m,
+                    scale=zs,
+                    band_label=labels[band],
+                    dpi=dpi,
+                    z_threshold=z_threshold or Z_THRESHOLD,
+                )
     ct = getattr(result, "coupling_table", None)
     if ct is not None and len(ct):
         have = set(ct["measure"])
         for m in edge_measures:
             check_option("edge_measures", m, sorted(have))
-            keep(f"coupling/{m}", coupling.coupling_matrix, ct, measure=m, atlas=atlas,
-                 bands=list(result.bands.names), band_labels=labels,
-                 scale=zs if _has_z(ct) else None, dpi=dpi,
-                 z_threshold=z_threshold or Z_THRESHOLD)
+            keep(
+                f"coupling/{m}",
+                coupling.coupling_matrix,
+                ct,
+                measure=m,
+                atlas=atlas,
+                bands=list(result.bands.names),
+                band_labels=labels,
+                scale=zs if _has_z(ct) else None,
+                dpi=dpi,
+                z_threshold=z_threshold or Z_THRESHOLD,
+            )
 
 
 def _ocular_figure(result, keep, dpi) -> None:
@@ -265,8 +364,11 @@ def _ocular_figure(result, keep, dpi) -> None:
     if m.ndim != 2 or m.shape[1] != len(result.ch_names):
         logger.info("ocular component maps of shape %s not drawn", m.shape)
         return
-    names = [f"component {c}" for c in comps] if len(comps) == len(m) else [
-        f"component {i + 1}" for i in range(len(m))]
+    names = (
+        [f"component {c}" for c in comps]
+        if len(comps) == len(m)
+        else [f"component {i + 1}" for i in range(len(m))]
+    )
     r = oc.get("template_r") or []
     if len(r) == len(m):  # correlation with the eye-activity template
         names = [f"{n} (r = {float(x):.2f})" for n, x in zip(names, r)]
@@ -274,8 +376,16 @@ def _ocular_figure(result, keep, dpi) -> None:
     for row in m:
         lim = float(np.nanmax(np.abs(row))) or 1.0
         scales.append(z_scale(limit=lim, label="weight (µV)"))
-    keep("ocular", sensor.sensor_topomaps, m, band_names=names, ch_names=result.ch_names,
-         scale=scales, dpi=dpi, title="components removed as eye activity")
+    keep(
+        "ocular",
+        sensor.sensor_topomaps,
+        m,
+        band_names=names,
+        ch_names=result.ch_names,
+        scale=scales,
+        dpi=dpi,
+        title="components removed as eye activity",
+    )
 
 
 def _render(func, args, kwargs, dpi):
@@ -299,8 +409,9 @@ def figure_jobs() -> int:
 
     env = os.environ.get("SOURCELAB_FIGURE_JOBS")
     if env:
-        return check_number("SOURCELAB_FIGURE_JOBS", int(env) if env.strip().isdigit() else env,
-                            kind=int, low=1)
+        return check_number(
+            "SOURCELAB_FIGURE_JOBS", int(env) if env.strip().isdigit() else env, kind=int, low=1
+        )
     if mp.parent_process() is not None:
         return 1
     try:
@@ -326,8 +437,7 @@ def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
 
 def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
     if n_jobs == 1 or not as_png or len(jobs) < 2:
-        return {key: (_render(f, a, k, dpi) if as_png else f(*a, **k))
-                for key, f, a, k in jobs}
+        return {key: (_render(f, a, k, dpi) if as_png else f(*a, **k)) for key, f, a, k in jobs}
     import multiprocessing as mp
     from concurrent.futures import ProcessPoolExecutor
 
@@ -337,8 +447,7 @@ def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
     geometry.source_positions_mni305()
     warmed = set()
     for _, f, _, k in jobs:
-        layout = (f, k.get("resolution"), id(k.get("outline")), bool(k.get("title")),
-                  k.get("dpi"))
+        layout = (f, k.get("resolution"), id(k.get("outline")), bool(k.get("title")), k.get("dpi"))
         if f in (brain.glass_brain, brain.surface_views) and layout not in warmed:
             warmed.add(layout)
             brain.warm_caches(f, k)

@@ -127,13 +127,20 @@ def _volume_map(resolution: int, gm_threshold: float, max_dist_mm: float):
     dist, src = tree.query(xyz, k=1, distance_upper_bound=max_dist_mm)
     keep = np.isfinite(dist)
     flat = np.ravel_multi_index(ijk[keep].T, data.shape)
-    logger.debug("volume map %d mm: %d of %d grey-matter voxels filled", resolution, keep.sum(),
-                 len(keep))
+    logger.debug(
+        "volume map %d mm: %d of %d grey-matter voxels filled", resolution, keep.sum(), len(keep)
+    )
     return data.shape, gm.affine, flat, src[keep]
 
 
-def sources_to_volume(values: np.ndarray, *, resolution: int = 2, gm_threshold: float = 0.2,
-                      max_dist_mm: float = 5.0, fill: float = 0.0):
+def sources_to_volume(
+    values: np.ndarray,
+    *,
+    resolution: int = 2,
+    gm_threshold: float = 0.2,
+    max_dist_mm: float = 5.0,
+    fill: float = 0.0,
+):
     """Project per-source values into an MNI152 volume by nearest-source fill in grey matter.
 
     Parameters

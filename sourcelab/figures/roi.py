@@ -28,19 +28,21 @@ def _labelled(roi_table, *, atlas, measure, bands, names: bool = True):
     ..., BA10)."""
     t = _select(roi_table, atlas=atlas, measure=measure)
     if all(brodmann_number(r) is not None for r in t["roi"]):
-        order = sorted({(r.hemisphere, r.roi) for r in t.itertuples()},
-                       key=lambda hr: (_HEMI_ORDER.get(hr[0], 3), natural_key(hr[1])))
+        order = sorted(
+            {(r.hemisphere, r.roi) for r in t.itertuples()},
+            key=lambda hr: (_HEMI_ORDER.get(hr[0], 3), natural_key(hr[1])),
+        )
         rank = {k: i for i, k in enumerate(order)}
-        t = t.iloc[np.argsort([rank[(r.hemisphere, r.roi)] for r in t.itertuples()],
-                              kind="stable")]
+        t = t.iloc[np.argsort([rank[(r.hemisphere, r.roi)] for r in t.itertuples()], kind="stable")]
     t = t.assign(_label=[_label(r, names=names) for r in t.itertuples()])
     labels = list(dict.fromkeys(t["_label"]))
     bands = list(bands) if bands is not None else list(dict.fromkeys(t["band"]))
     return t, labels, bands
 
 
-def _select(roi_table: pd.DataFrame, *, atlas: str | None, measure: str,
-            band: str | None = None) -> pd.DataFrame:
+def _select(
+    roi_table: pd.DataFrame, *, atlas: str | None, measure: str, band: str | None = None
+) -> pd.DataFrame:
     missing = {"atlas", "roi", "hemisphere", "band", "measure", "z"} - set(roi_table.columns)
     if missing:
         raise ValueError(f"roi_table: missing columns {sorted(missing)}")
@@ -50,8 +52,9 @@ def _select(roi_table: pd.DataFrame, *, atlas: str | None, measure: str,
     if band is not None:
         t = t[t["band"] == band]
     if t.empty:
-        raise InputError(f"roi_table: no rows for atlas={atlas!r}, measure={measure!r}, "
-                         f"band={band!r}")
+        raise InputError(
+            f"roi_table: no rows for atlas={atlas!r}, measure={measure!r}, band={band!r}"
+        )
     return t
 
 
@@ -60,9 +63,18 @@ def _save(fig, output_file, dpi):
         fig.savefig(output_file, dpi=dpi)
 
 
-def roi_bars(roi_table: pd.DataFrame, *, band: str, measure: str = "absolute",
-             atlas: str | None = None, top: int = 30, scale: ColourScale | None = None,
-             guide: float = Z_THRESHOLD, dpi: int = 90, output_file=None) -> Figure:
+def roi_bars(
+    roi_table: pd.DataFrame,
+    *,
+    band: str,
+    measure: str = "absolute",
+    atlas: str | None = None,
+    top: int = 30,
+    scale: ColourScale | None = None,
+    guide: float = Z_THRESHOLD,
+    dpi: int = 90,
+    output_file=None,
+) -> Figure:
     """Horizontal bars of ROI z-scores for one band, sorted by |z| (largest at the top).
 
     Parameters
@@ -103,8 +115,13 @@ def roi_bars(roi_table: pd.DataFrame, *, band: str, measure: str = "absolute",
     fig = plt.figure(figsize=(w, h), dpi=dpi)
     ax = fig.add_axes((label_w / w, 0.54 / h, 3.8 / w, 0.2 * len(z) / h))
     sm = scale.scalar_mappable()
-    ax.barh(np.arange(len(z)), z, color=sm.to_rgba(np.clip(z, scale.vmin, scale.vmax)),
-            edgecolor="0.3", linewidth=0.4)
+    ax.barh(
+        np.arange(len(z)),
+        z,
+        color=sm.to_rgba(np.clip(z, scale.vmin, scale.vmax)),
+        edgecolor="0.3",
+        linewidth=0.4,
+    )
     ax.set_yticks(np.arange(len(z)), labels, fontsize=8)
     for g in (-guide, guide):
         ax.axvline(g, color="0.25", ls="--", lw=0.8)
@@ -114,16 +131,25 @@ def roi_bars(roi_table: pd.DataFrame, *, band: str, measure: str = "absolute",
     ax.set_ylim(-0.6, len(z) - 0.4)
     ax.set_xlabel(scale.label)
     ax.set_title(f"{band} · {measure} · ROIs ranked by |z| (dashed: ±{guide:g})", fontsize=10)
-    cax = fig.add_axes(((label_w + 4.0) / w, ax.get_position().y0, 0.14 / w,
-                        ax.get_position().height))
+    cax = fig.add_axes(
+        ((label_w + 4.0) / w, ax.get_position().y0, 0.14 / w, ax.get_position().height)
+    )
     add_colourbar(fig, scale, cax=cax, data=z)
     _save(fig, output_file, dpi)
     return fig
 
 
-def roi_heatmap(roi_table: pd.DataFrame, *, measure: str = "absolute", atlas: str | None = None,
-                bands=None, scale: ColourScale | None = None, max_columns: int = 30,
-                dpi: int = 90, output_file=None) -> Figure:
+def roi_heatmap(
+    roi_table: pd.DataFrame,
+    *,
+    measure: str = "absolute",
+    atlas: str | None = None,
+    bands=None,
+    scale: ColourScale | None = None,
+    max_columns: int = 30,
+    dpi: int = 90,
+    output_file=None,
+) -> Figure:
     """Band × ROI heatmap of z (rows: bands; columns: ROIs in table order).
 
     With more than ``max_columns`` ROIs the map is turned: ROIs become rows, split into
@@ -152,15 +178,18 @@ def roi_heatmap(roi_table: pd.DataFrame, *, measure: str = "absolute", atlas: st
     scale = scale or z_scale()
     t, rois, bands = _labelled(roi_table, atlas=atlas, measure=measure, bands=bands)
     raw_z = t["z"].to_numpy(float)
-    grid = (t.pivot_table(index="band", columns="_label", values="z", aggfunc="first",
-                          dropna=False)
-            .reindex(index=bands, columns=rois).to_numpy(float))
+    grid = (
+        t.pivot_table(index="band", columns="_label", values="z", aggfunc="first", dropna=False)
+        .reindex(index=bands, columns=rois)
+        .to_numpy(float)
+    )
     grid_shown = np.where(np.abs(grid) < (scale.threshold or 0), np.nan, grid)
     cmap = plt.get_cmap(scale.cmap).with_extremes(bad="0.85")
     title = f"{measure} power: z by band and ROI" + (f" ({atlas})" if atlas else "")
     if len(rois) > max_columns:
-        fig = _heatmap_tall(grid_shown.T, rois, bands, cmap=cmap, scale=scale, title=title,
-                            dpi=dpi, data=raw_z)
+        fig = _heatmap_tall(
+            grid_shown.T, rois, bands, cmap=cmap, scale=scale, title=title, dpi=dpi, data=raw_z
+        )
         _save(fig, output_file, dpi)
         return fig
     left, right, top_m = 1.0, 1.4, 0.45  # margins, inches
@@ -169,8 +198,13 @@ def roi_heatmap(roi_table: pd.DataFrame, *, measure: str = "absolute", atlas: st
     h = bottom + top_m + 0.32 * len(bands)
     fig = plt.figure(figsize=(w, h), dpi=dpi)
     ax = fig.add_axes((left / w, bottom / h, 1 - (left + right) / w, 1 - (bottom + top_m) / h))
-    ax.imshow(np.ma.masked_invalid(grid_shown), aspect="auto", cmap=cmap, norm=scale.norm,
-              interpolation="nearest")
+    ax.imshow(
+        np.ma.masked_invalid(grid_shown),
+        aspect="auto",
+        cmap=cmap,
+        norm=scale.norm,
+        interpolation="nearest",
+    )
     ax.set_yticks(np.arange(len(bands)), bands, fontsize=9)
     ax.set_xticks(np.arange(len(rois)), rois, rotation=90, fontsize=7)
     ax.set_title(title, fontsize=10)
@@ -181,8 +215,9 @@ def roi_heatmap(roi_table: pd.DataFrame, *, measure: str = "absolute", atlas: st
     return fig
 
 
-def _heatmap_tall(grid: np.ndarray, rois, bands, *, cmap, scale, title, dpi,
-                  rows_per_panel: int = 42, data=None) -> Figure:
+def _heatmap_tall(
+    grid: np.ndarray, rois, bands, *, cmap, scale, title, dpi, rows_per_panel: int = 42, data=None
+) -> Figure:
     """ROI x band heatmap with ROIs as rows, in side-by-side panels of ``rows_per_panel``."""
     n_panels = int(np.ceil(len(rois) / rows_per_panel))
     rows = int(np.ceil(len(rois) / n_panels))
@@ -197,8 +232,13 @@ def _heatmap_tall(grid: np.ndarray, rois, bands, *, cmap, scale, title, dpi,
         ax = fig.add_axes((x0, 0.3 / h, 0.42 * len(bands) / w, 0.17 * rows / h))
         part = np.full((rows, len(bands)), np.nan)
         part[: sl.stop - sl.start] = grid[sl]
-        ax.imshow(np.ma.masked_invalid(part), aspect="auto", cmap=cmap, norm=scale.norm,
-                  interpolation="nearest")
+        ax.imshow(
+            np.ma.masked_invalid(part),
+            aspect="auto",
+            cmap=cmap,
+            norm=scale.norm,
+            interpolation="nearest",
+        )
         labels = list(rois[sl]) + [""] * (rows - (sl.stop - sl.start))
         ax.set_yticks(np.arange(rows), labels, fontsize=7)
         ax.set_xticks(np.arange(len(bands)), bands, rotation=45, ha="right", fontsize=8)
@@ -210,9 +250,17 @@ def _heatmap_tall(grid: np.ndarray, rois, bands, *, cmap, scale, title, dpi,
     return fig
 
 
-def network_chart(roi_table: pd.DataFrame, *, atlas: str, measure: str = "absolute", bands=None,
-                  scale: ColourScale | None = None, guide: float = Z_THRESHOLD, dpi: int = 90,
-                  output_file=None) -> Figure:
+def network_chart(
+    roi_table: pd.DataFrame,
+    *,
+    atlas: str,
+    measure: str = "absolute",
+    bands=None,
+    scale: ColourScale | None = None,
+    guide: float = Z_THRESHOLD,
+    dpi: int = 90,
+    output_file=None,
+) -> Figure:
     """Network summary: z of each network (rows) for every band (markers), with ±guide band.
 
     Parameters
@@ -250,9 +298,17 @@ def network_chart(roi_table: pd.DataFrame, *, atlas: str, measure: str = "absolu
         sel = t[t["band"] == band].set_index("_label")["z"].reindex(nets).to_numpy(float)
         y = np.arange(len(nets)) + (j - (n_b - 1) / 2) * 0.7 / n_b
         ok = np.isfinite(sel)
-        ax.scatter(sel[ok], y[ok], c=sm.to_rgba(np.clip(sel[ok], scale.vmin, scale.vmax)),
-                   marker=markers[j % len(markers)],
-                   edgecolors="k", linewidths=0.5, s=36, label=band, zorder=3)
+        ax.scatter(
+            sel[ok],
+            y[ok],
+            c=sm.to_rgba(np.clip(sel[ok], scale.vmin, scale.vmax)),
+            marker=markers[j % len(markers)],
+            edgecolors="k",
+            linewidths=0.5,
+            s=36,
+            label=band,
+            zorder=3,
+        )
         if ok.any():
             zmax = max(zmax, float(np.abs(sel[ok]).max()) * 1.05)
     ax.set_xlim(-zmax, zmax)
@@ -262,10 +318,12 @@ def network_chart(roi_table: pd.DataFrame, *, atlas: str, measure: str = "absolu
     ax.set_xlabel(scale.label)
     from ..rois import atlas_title
 
-    ax.set_title(f"{atlas_title(atlas)}, {measure} power: z per band (grey: |z| < {guide:g})",
-                 fontsize=10)
-    leg = ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, title="band",
-                    frameon=False)
+    ax.set_title(
+        f"{atlas_title(atlas)}, {measure} power: z per band (grey: |z| < {guide:g})", fontsize=10
+    )
+    leg = ax.legend(
+        loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=8, title="band", frameon=False
+    )
     for h in leg.legend_handles:
         h.set_facecolor("0.6")
     _save(fig, output_file, dpi)

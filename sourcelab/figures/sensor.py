@@ -41,15 +41,25 @@ def sensor_info(ch_names: tuple[str, ...] = SITES_1020):
     if tuple(ch_names) != SITES_1020:
         missing = sorted(set(ch_names) - set(SITES_1020))
         if missing:
-            raise InputError(f"ch_names: no fsaverage_1020 position for {missing}",
-                             field="ch_names")
+            raise InputError(
+                f"ch_names: no fsaverage_1020 position for {missing}", field="ch_names"
+            )
         return make_info(250.0).pick(list(ch_names))
     return make_info(250.0)
 
 
-def sensor_topomaps(values: np.ndarray, *, band_names, scale,
-                    ch_names=SITES_1020, title: str | None = None, image_interp: str = "linear",
-                    names: bool = True, dpi: int = 90, output_file=None) -> Figure:
+def sensor_topomaps(
+    values: np.ndarray,
+    *,
+    band_names,
+    scale,
+    ch_names=SITES_1020,
+    title: str | None = None,
+    image_interp: str = "linear",
+    names: bool = True,
+    dpi: int = 90,
+    output_file=None,
+) -> Figure:
     """One scalp map per band, on one colour scale or on one scale per band.
 
     Parameters
@@ -81,21 +91,31 @@ def sensor_topomaps(values: np.ndarray, *, band_names, scale,
     from threadpoolctl import threadpool_limits
 
     with threadpool_limits(1):  # see figure_set._run: BLAS threads spin on 19-point transforms
-        return _sensor_topomaps(values, band_names=band_names, scale=scale, ch_names=ch_names,
-                                title=title, image_interp=image_interp, names=names, dpi=dpi,
-                                output_file=output_file)
+        return _sensor_topomaps(
+            values,
+            band_names=band_names,
+            scale=scale,
+            ch_names=ch_names,
+            title=title,
+            image_interp=image_interp,
+            names=names,
+            dpi=dpi,
+            output_file=output_file,
+        )
 
 
-def _sensor_topomaps(values, *, band_names, scale, ch_names, title, image_interp, names, dpi,
-                     output_file) -> Figure:
+def _sensor_topomaps(
+    values, *, band_names, scale, ch_names, title, image_interp, names, dpi, output_file
+) -> Figure:
     import mne
 
     v = np.asarray(values, dtype=float)
     band_names = list(band_names)
     ch_names = tuple(ch_names)
     if v.ndim != 2 or v.shape != (len(band_names), len(ch_names)):
-        raise ValueError(f"values: need shape (n_bands={len(band_names)}, n_ch={len(ch_names)}), "
-                         f"got {v.shape}")
+        raise ValueError(
+            f"values: need shape (n_bands={len(band_names)}, n_ch={len(ch_names)}), got {v.shape}"
+        )
     info = sensor_info(ch_names)
     n = len(band_names)
     scales = list(scale) if isinstance(scale, (list, tuple)) else [scale] * n
@@ -103,8 +123,7 @@ def _sensor_topomaps(values, *, band_names, scale, ch_names, title, image_interp
         raise ValueError(f"scale: need one ColourScale or {n}, got {len(scales)}")
     per_band = isinstance(scale, (list, tuple))
     fig_w = 1.9 * n + (0.3 if per_band else 1.6)
-    fig = plt.figure(figsize=(fig_w, (3.2 if per_band else 2.5) + (0.3 if title else 0.0)),
-                     dpi=dpi)
+    fig = plt.figure(figsize=(fig_w, (3.2 if per_band else 2.5) + (0.3 if title else 0.0)), dpi=dpi)
     width = (1.0 - (0.3 if per_band else 1.5) / fig_w) / n
     top = 0.80 if title else 0.9
     bottom = 0.3 if per_band else 0.04
@@ -113,16 +132,31 @@ def _sensor_topomaps(values, *, band_names, scale, ch_names, title, image_interp
         ax = fig.add_axes((0.01 + i * width, bottom, width * 0.96, top - bottom - 0.04))
         row = clipped(v[i], sc)  # beyond the limits: end colours (the bar's arrows say so)
         finite = np.isfinite(row)
-        data = np.where(finite, row, 0.0 if sc.diverging else np.nanmin(v[i]) if
-                        np.isfinite(v[i]).any() else 0.0)
-        mne.viz.plot_topomap(data, info, axes=ax, cmap=sc.cmap, vlim=(sc.vmin, sc.vmax),
-                             show=False, contours=4, sensors=True,
-                             names=list(ch_names) if names else None,
-                             image_interp=image_interp,
-                             mask=finite if sc.threshold else None,
-                             mask_params={"marker": "o", "markersize": 10,
-                                          "markerfacecolor": "none", "markeredgecolor": "k",
-                                          "markeredgewidth": 0.8})
+        data = np.where(
+            finite,
+            row,
+            0.0 if sc.diverging else np.nanmin(v[i]) if np.isfinite(v[i]).any() else 0.0,
+        )
+        mne.viz.plot_topomap(
+            data,
+            info,
+            axes=ax,
+            cmap=sc.cmap,
+            vlim=(sc.vmin, sc.vmax),
+            show=False,
+            contours=4,
+            sensors=True,
+            names=list(ch_names) if names else None,
+            image_interp=image_interp,
+            mask=finite if sc.threshold else None,
+            mask_params={
+                "marker": "o",
+                "markersize": 10,
+                "markerfacecolor": "none",
+                "markeredgecolor": "k",
+                "markeredgewidth": 0.8,
+            },
+        )
         for txt in ax.texts:  # electrode names: small, over the map
             txt.set_fontsize(6)
         ax.set_title(band, fontsize=10)

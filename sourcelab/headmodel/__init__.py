@@ -15,8 +15,17 @@ from .load import load_head_model, shipped_path
 from .model import HeadModel, TemplateSurface, fixed_gain
 from .sites import fsaverage_montage, make_info
 
-__all__ = ["HeadModel", "TemplateSurface", "build_head_model", "fixed_gain", "fsaverage_montage",
-           "load_head_model", "make_info", "shipped_path", "to_mne_forward"]
+__all__ = [
+    "HeadModel",
+    "TemplateSurface",
+    "build_head_model",
+    "fixed_gain",
+    "fsaverage_montage",
+    "load_head_model",
+    "make_info",
+    "shipped_path",
+    "to_mne_forward",
+]
 
 
 def __getattr__(name):  # the MNE-heavy parts are imported only when used

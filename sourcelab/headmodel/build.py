@@ -43,8 +43,13 @@ import numpy as np
 from ..checks import check_option
 from ..constants import SITES_1020
 from ..provenance import sha256_file
-from .ingredients import (fsaverage5_source_space, inner_skull_ico, mne_fsaverage_dir,
-                          read_trans, write_fsaverage5_subject)
+from .ingredients import (
+    fsaverage5_source_space,
+    inner_skull_ico,
+    mne_fsaverage_dir,
+    read_trans,
+    write_fsaverage5_subject,
+)
 from .model import FILE_FORMAT, N_PER_HEMI
 from .sites import MONTAGE_NAME, make_info
 
@@ -91,7 +96,7 @@ def ray_surface_distance(origin, dirs, rr, tris) -> np.ndarray:
     out = np.full(len(dirs), np.nan)
     eps = 1e-12
     for start in range(0, len(dirs), 256):
-        d = dirs[start:start + 256]  # (n, 3)
+        d = dirs[start : start + 256]  # (n, 3)
         p = np.cross(d[:, None, :], e2[None])  # (n, n_tri, 3)
         det = np.einsum("ntk,tk->nt", p, e1)
         parallel = np.abs(det) <= eps  # ray parallel to the triangle plane: no hit
@@ -101,7 +106,7 @@ def ray_surface_distance(origin, dirs, rr, tris) -> np.ndarray:
         t = np.einsum("tk,tk->t", e2, q)[None] * inv
         ok = ~parallel & (u >= -1e-9) & (v >= -1e-9) & (u + v <= 1 + 1e-9) & (t > 0)
         t = np.where(ok, t, -np.inf).max(axis=1)
-        out[start:start + len(d)] = np.where(np.isfinite(t), t, np.nan)
+        out[start : start + len(d)] = np.where(np.isfinite(t), t, np.nan)
     return out
 
 
@@ -186,7 +191,10 @@ def bem_solution_from_layers(
             str(bem_dir / f"{name}.surf"), np.asarray(rr, float) * 1e3, np.asarray(tris, np.int32)
         )
     model = mne.make_bem_model(
-        subject, ico=None, conductivity=tuple(conductivity), subjects_dir=subjects_dir,
+        subject,
+        ico=None,
+        conductivity=tuple(conductivity),
+        subjects_dir=subjects_dir,
         verbose="error",
     )
     return mne.make_bem_solution(model, verbose="error")
@@ -213,8 +221,12 @@ def _versions() -> dict:
     import scipy
 
     return {
-        "mne": mne.__version__, "nilearn": nilearn.__version__, "nibabel": nib.__version__,
-        "numpy": np.__version__, "scipy": scipy.__version__, "python": sys.version.split()[0],
+        "mne": mne.__version__,
+        "nilearn": nilearn.__version__,
+        "nibabel": nib.__version__,
+        "numpy": np.__version__,
+        "scipy": scipy.__version__,
+        "python": sys.version.split()[0],
     }
 
 
@@ -283,8 +295,11 @@ def build_head_model(out_path, *, ico: int = 4, update_manifest: bool | None = N
     check_option("ico", ico, (2, 3, 4, 5))
     t0 = time.perf_counter()
     layers = three_layer_meshes(ico=ico)
-    logger.info("BEM layers: %d vertices each, min gaps %s", len(layers["tris"]) // 2 + 2,
-                layers["min_gap_mm"])
+    logger.info(
+        "BEM layers: %d vertices each, min gaps %s",
+        len(layers["tris"]) // 2 + 2,
+        layers["min_gap_mm"],
+    )
     trans = read_trans()
     info = make_info(250.0)
     cortex = cortex_mask()
@@ -295,11 +310,19 @@ def build_head_model(out_path, *, ico: int = 4, update_manifest: bool | None = N
         t_bem = time.perf_counter()
         bem = bem_solution_from_layers(
             (layers["inner_skull"], layers["outer_skull"], layers["outer_skin"]),
-            layers["tris"], subjects_dir=subjects_dir,
+            layers["tris"],
+            subjects_dir=subjects_dir,
         )
         t_bem = time.perf_counter() - t_bem
         fwd = mne.make_forward_solution(
-            info, trans=trans, src=src, bem=bem, eeg=True, meg=False, mindist=0.0, n_jobs=1,
+            info,
+            trans=trans,
+            src=src,
+            bem=bem,
+            eeg=True,
+            meg=False,
+            mindist=0.0,
+            n_jobs=1,
             verbose="error",
         )
         del bem
@@ -321,10 +344,10 @@ def build_head_model(out_path, *, ico: int = 4, update_manifest: bool | None = N
     meta = {
         "file_format": FILE_FORMAT,
         "description": "fsaverage5 3-layer BEM EEG leadfield, 19 10-20 sites, free orientation, "
-                       "cortical sources only, not re-referenced (apply the average-reference "
-                       "projector in the inverse)",
+        "cortical sources only, not re-referenced (apply the average-reference "
+        "projector in the inverse)",
         "coord_frame": "MNE head coordinates (metres) for gain, ch_pos, src_pos, src_nn; "
-                       "surface meshes in fsaverage surface RAS (MNI305) millimetres",
+        "surface meshes in fsaverage surface RAS (MNI305) millimetres",
         "units": {"gain": "V/(A*m)", "ch_pos": "m", "src_pos": "m", "surf_*": "mm"},
         "reference": "none (raw electrode potentials)",
         "bem": {
@@ -336,10 +359,12 @@ def build_head_model(out_path, *, ico: int = 4, update_manifest: bool | None = N
             "min_gap_mm": layers["min_gap_mm"],
             "centre_mri_mm": [round(float(c) * 1e3, 3) for c in layers["centre"]],
         },
-        "sources": {"surface": "fsaverage5 white", "n_sources": int(n_src),
-                    "n_left": int(np.sum(vertno < N_PER_HEMI)),
-                    "excluded": "medial wall (Yeo 2011 label 0), "
-                                f"{int((~cortex).sum())} vertices"},
+        "sources": {
+            "surface": "fsaverage5 white",
+            "n_sources": int(n_src),
+            "n_left": int(np.sum(vertno < N_PER_HEMI)),
+            "excluded": f"medial wall (Yeo 2011 label 0), {int((~cortex).sum())} vertices",
+        },
         "montage": MONTAGE_NAME,
         "trans": "mne/data/fsaverage/fsaverage-trans.fif",
         "head_to_mri": np.asarray(trans["trans"]).round(10).tolist(),
@@ -388,11 +413,19 @@ def _get_parser() -> argparse.ArgumentParser:
         prog="python -m sourcelab.headmodel.build",
         description="Rebuild the fsaverage5 19-electrode EEG head model from installed packages.",
     )
-    p.add_argument("--out", default=None,
-                   help="output .npz path (default: the shipped file, whose sha256 is then "
-                        "recorded in sourcelab/data/MANIFEST.json)")
-    p.add_argument("--ico", type=int, default=4, choices=(3, 4),
-                   help="icosahedral subdivision of the BEM layers (default 4)")
+    p.add_argument(
+        "--out",
+        default=None,
+        help="output .npz path (default: the shipped file, whose sha256 is then "
+        "recorded in sourcelab/data/MANIFEST.json)",
+    )
+    p.add_argument(
+        "--ico",
+        type=int,
+        default=4,
+        choices=(3, 4),
+        help="icosahedral subdivision of the BEM layers (default 4)",
+    )
     return p
 
 

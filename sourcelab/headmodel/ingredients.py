@@ -89,8 +89,11 @@ def read_fsaverage5() -> dict[str, np.ndarray]:
                 raise RuntimeError(f"nilearn fsaverage5 {stem}_{hemi}: triangles differ")
             tris = t
         out["faces"].append(tris + h * N_PER_HEMI)
-        out["sulc"].append(np.asarray(nib.load(d / f"sulc_{hemi}.gii.gz").darrays[0].data,
-                                      dtype=np.float64).ravel())
+        out["sulc"].append(
+            np.asarray(
+                nib.load(d / f"sulc_{hemi}.gii.gz").darrays[0].data, dtype=np.float64
+            ).ravel()
+        )
     res = {k: np.concatenate(v) for k, v in out.items()}
     if res["white"].shape != (2 * N_PER_HEMI, 3):
         raise RuntimeError(f"nilearn fsaverage5 has {res['white'].shape[0]} vertices")
@@ -145,9 +148,10 @@ def write_fsaverage5_subject(subjects_dir) -> dict[str, np.ndarray]:
     for h, hemi in enumerate(("lh", "rh")):
         sl = slice(h * N_PER_HEMI, (h + 1) * N_PER_HEMI)
         half = meshes["faces"].shape[0] // 2
-        tris = meshes["faces"][h * half:(h + 1) * half] - h * N_PER_HEMI
-        nib.freesurfer.write_geometry(str(surf_dir / f"{hemi}.white"), meshes["white"][sl],
-                                      tris.astype(np.int32))
+        tris = meshes["faces"][h * half : (h + 1) * half] - h * N_PER_HEMI
+        nib.freesurfer.write_geometry(
+            str(surf_dir / f"{hemi}.white"), meshes["white"][sl], tris.astype(np.int32)
+        )
     return meshes
 
 
@@ -169,8 +173,14 @@ def fsaverage5_source_space(subjects_dir, vertno=None):
     """
     import mne
 
-    src = mne.setup_source_space(_SUBJECT, spacing="all", surface="white",
-                                 subjects_dir=subjects_dir, add_dist=False, verbose="error")
+    src = mne.setup_source_space(
+        _SUBJECT,
+        spacing="all",
+        surface="white",
+        subjects_dir=subjects_dir,
+        add_dist=False,
+        verbose="error",
+    )
     if vertno is not None:
         vertno = np.asarray(vertno, dtype=np.int64)
         for h, s in enumerate(src):

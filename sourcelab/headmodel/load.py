@@ -16,8 +16,20 @@ from .model import FILE_FORMAT, N_SURFACE, HeadModel, TemplateSurface
 #: File name of the shipped head model inside ``sourcelab/data``.
 SHIPPED_NAME = "fsaverage5_eeg19.npz"
 
-_KEYS = ("gain", "ch_names", "ch_pos", "src_pos", "src_nn", "vertno", "surf_white", "surf_pial",
-         "surf_inflated", "surf_faces", "surf_sulc", "meta_json")
+_KEYS = (
+    "gain",
+    "ch_names",
+    "ch_pos",
+    "src_pos",
+    "src_nn",
+    "vertno",
+    "surf_white",
+    "surf_pial",
+    "surf_inflated",
+    "surf_faces",
+    "surf_sulc",
+    "meta_json",
+)
 _HINT = "reinstall sourcelab or rebuild with `python -m sourcelab.headmodel.build`"
 
 
@@ -98,27 +110,39 @@ def _parse(data: bytes, digest: str, where: Path) -> HeadModel:
     except (OSError, ValueError, zipfile.BadZipFile) as exc:
         raise InputError(f"head model file unreadable ({exc}); {_HINT}", path=where) from None
     if meta.get("file_format") != FILE_FORMAT:
-        raise InputError(f"head model file format {meta.get('file_format')!r}, this sourcelab "
-                         f"reads {FILE_FORMAT}; {_HINT}", path=where)
+        raise InputError(
+            f"head model file format {meta.get('file_format')!r}, this sourcelab "
+            f"reads {FILE_FORMAT}; {_HINT}",
+            path=where,
+        )
     ch_names = tuple(str(c) for c in arr["ch_names"])
     if ch_names != SITES_1020:
         raise InputError(f"head model channels {ch_names} differ from SITES_1020", path=where)
-    fields = {k: np.ascontiguousarray(arr[k], dtype=np.float64)
-              for k in ("gain", "ch_pos", "src_pos", "src_nn")}
+    fields = {
+        k: np.ascontiguousarray(arr[k], dtype=np.float64)
+        for k in ("gain", "ch_pos", "src_pos", "src_nn")
+    }
     vertno = np.asarray(arr["vertno"], dtype=np.int64)
     n_src = fields["src_pos"].shape[0]
     if fields["gain"].shape != (len(ch_names), 3 * n_src) or vertno.shape != (n_src,):
-        raise InputError(f"head model gain shape {fields['gain'].shape} does not match "
-                         f"{len(ch_names)} channels x 3 x {n_src} sources", path=where)
+        raise InputError(
+            f"head model gain shape {fields['gain'].shape} does not match "
+            f"{len(ch_names)} channels x 3 x {n_src} sources",
+            path=where,
+        )
     if np.any(np.diff(vertno) <= 0) or vertno[0] < 0 or vertno[-1] >= N_SURFACE:
         raise InputError("head model vertno must increase within 0..20483", path=where)
     cortex = np.zeros(N_SURFACE, dtype=bool)
     cortex[vertno] = True
-    surf = {k: np.ascontiguousarray(arr[f"surf_{k}"], dtype=np.float64)
-            for k in ("white", "pial", "inflated", "sulc")}
-    surface = TemplateSurface(faces=np.asarray(arr["surf_faces"], dtype=np.int64),
-                              cortex=cortex, **surf)
+    surf = {
+        k: np.ascontiguousarray(arr[f"surf_{k}"], dtype=np.float64)
+        for k in ("white", "pial", "inflated", "sulc")
+    }
+    surface = TemplateSurface(
+        faces=np.asarray(arr["surf_faces"], dtype=np.int64), cortex=cortex, **surf
+    )
     for a in (*fields.values(), vertno, *surf.values(), surface.faces, cortex):
         a.flags.writeable = False
-    return HeadModel(ch_names=ch_names, vertno=vertno, surface=surface, sha256=digest,
-                     meta=meta, **fields)
+    return HeadModel(
+        ch_names=ch_names, vertno=vertno, surface=surface, sha256=digest, meta=meta, **fields
+    )

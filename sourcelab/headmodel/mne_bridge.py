@@ -52,8 +52,10 @@ def to_mne_forward(model: HeadModel, info: mne.Info | None = None) -> mne.Forwar
     names = [info["ch_names"][i] for i in mne.pick_types(info, eeg=True, exclude=())]
     unknown = [n for n in names if n not in model.ch_names]
     if unknown or not names:
-        raise InputError(f"info EEG channels {unknown or names} are not head-model sites; "
-                         f"allowed: {', '.join(model.ch_names)}")
+        raise InputError(
+            f"info EEG channels {unknown or names} are not head-model sites; "
+            f"allowed: {', '.join(model.ch_names)}"
+        )
     return mne.pick_channels_forward(fwd, include=names, ordered=True, verbose="error")
 
 
@@ -67,8 +69,17 @@ def _template_forward(model: HeadModel) -> mne.Forward:
         src = fsaverage5_source_space(subjects_dir, vertno=model.vertno)
     # Placeholder conductor: a sphere large enough to contain every source; its gain is discarded.
     sphere = mne.make_sphere_model(r0=(0.0, 0.0, 0.0), head_radius=0.5, verbose="error")
-    fwd = mne.make_forward_solution(info, trans=read_trans(), src=src, bem=sphere, eeg=True,
-                                    meg=False, mindist=0.0, n_jobs=1, verbose="error")
+    fwd = mne.make_forward_solution(
+        info,
+        trans=read_trans(),
+        src=src,
+        bem=sphere,
+        eeg=True,
+        meg=False,
+        mindist=0.0,
+        n_jobs=1,
+        verbose="error",
+    )
     if fwd["nsource"] != model.n_src or fwd["sol"]["data"].shape != model.gain.shape:
         raise RuntimeError("MNE forward structure does not match the head model")
     rr = np.concatenate([s["rr"][s["vertno"]] for s in fwd["src"]])

@@ -112,7 +112,7 @@ class TemplateSurface:
         """
         h = HEMIS.index(hemi)
         half = self.faces.shape[0] // 2
-        return self.faces[h * half:(h + 1) * half] - h * N_PER_HEMI
+        return self.faces[h * half : (h + 1) * half] - h * N_PER_HEMI
 
 
 @dataclass(frozen=True, eq=False)
@@ -207,10 +207,10 @@ class HeadModel:
         """
         v = np.asarray(values)
         if v.shape[-1] != self.n_src:
-            raise ValueError(f"values: need {self.n_src} sources on the last axis, got "
-                             f"shape {v.shape}")
-        out = np.full(v.shape[:-1] + (N_SURFACE,), fill,
-                      dtype=np.result_type(v.dtype, np.float32))
+            raise ValueError(
+                f"values: need {self.n_src} sources on the last axis, got shape {v.shape}"
+            )
+        out = np.full(v.shape[:-1] + (N_SURFACE,), fill, dtype=np.result_type(v.dtype, np.float32))
         out[..., self.vertno] = v
         return out
 
@@ -229,6 +229,7 @@ class HeadModel:
         """
         v = np.asarray(values)
         if v.shape[-1] != N_SURFACE:
-            raise ValueError(f"values: need {N_SURFACE} surface vertices on the last axis, got "
-                             f"shape {v.shape}")
+            raise ValueError(
+                f"values: need {N_SURFACE} surface vertices on the last axis, got shape {v.shape}"
+            )
         return v[..., self.vertno]

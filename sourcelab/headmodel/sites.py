@@ -27,7 +27,11 @@ def _montage():
     pos = full.get_positions()
     return mne.channels.make_dig_montage(
         ch_pos={s: pos["ch_pos"][s] for s in SITES_1020},
-        nasion=pos["nasion"], lpa=pos["lpa"], rpa=pos["rpa"], coord_frame="unknown")
+        nasion=pos["nasion"],
+        lpa=pos["lpa"],
+        rpa=pos["rpa"],
+        coord_frame="unknown",
+    )
 
 
 def fsaverage_montage():

@@ -53,8 +53,14 @@ def rdm_mag(test: np.ndarray, ref: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def sphere_leadfields(
-    *, ico: int = 3, radii_mm=(90.0, 96.0, 102.0), src_radius_mm=(10.0, 80.0), n_src: int = 200,
-    n_el: int = 64, seed: int = 0, conductivity=CONDUCTIVITY,
+    *,
+    ico: int = 3,
+    radii_mm=(90.0, 96.0, 102.0),
+    src_radius_mm=(10.0, 80.0),
+    n_src: int = 200,
+    n_el: int = 64,
+    seed: int = 0,
+    conductivity=CONDUCTIVITY,
 ) -> dict:
     """EEG leadfields of the BEM path on concentric sphere meshes and of MNE's analytic sphere.
 
@@ -100,16 +106,25 @@ def sphere_leadfields(
     pos = {"rr": d * r[:, None], "nn": d}
     src = mne.setup_volume_source_space(pos=pos, verbose="error")
     sphere = mne.make_sphere_model(
-        r0=(0.0, 0.0, 0.0), head_radius=radii[2], relative_radii=tuple(radii / radii[2]),
-        sigmas=tuple(conductivity), verbose="error",
+        r0=(0.0, 0.0, 0.0),
+        head_radius=radii[2],
+        relative_radii=tuple(radii / radii[2]),
+        sigmas=tuple(conductivity),
+        verbose="error",
     )
     with tempfile.TemporaryDirectory(prefix="sourcelab-sph-") as subjects_dir:
-        bem = bem_solution_from_layers(layers, ico_surf["tris"], subjects_dir=subjects_dir,
-                                       subject="sphere", conductivity=conductivity)
+        bem = bem_solution_from_layers(
+            layers,
+            ico_surf["tris"],
+            subjects_dir=subjects_dir,
+            subject="sphere",
+            conductivity=conductivity,
+        )
     out = {}
     for key, cond in (("bem", bem), ("sphere", sphere)):
-        fwd = mne.make_forward_solution(info, trans=None, src=src, bem=cond, eeg=True, meg=False,
-                                        mindist=0.0, verbose="error")
+        fwd = mne.make_forward_solution(
+            info, trans=None, src=src, bem=cond, eeg=True, meg=False, mindist=0.0, verbose="error"
+        )
         if fwd["nsource"] != n_src:
             raise RuntimeError(f"{key} forward dropped sources")
         g = fwd["sol"]["data"]

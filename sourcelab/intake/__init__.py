@@ -11,14 +11,34 @@ from .power import band_power, epoch_band_power, epoch_spectra, peak_frequency
 from .quality import plot_quality
 from .recording import Recording, detect_bad_sites, read_recording
 from .reliability import (
-    Reliability, ReliabilitySummary, pearson_r, reliability_summary, spearman_brown, split_half,
+    Reliability,
+    ReliabilitySummary,
+    pearson_r,
+    reliability_summary,
+    spearman_brown,
+    split_half,
     test_retest,
 )
 
 __all__ = [
-    "read_recording", "Recording", "clean_recording", "CleanData", "band_power",
-    "epoch_band_power", "epoch_spectra", "peak_frequency", "pearson_r", "spearman_brown",
-    "split_half", "test_retest", "reliability_summary", "Reliability", "ReliabilitySummary",
+    "read_recording",
+    "Recording",
+    "clean_recording",
+    "CleanData",
+    "band_power",
+    "epoch_band_power",
+    "epoch_spectra",
+    "peak_frequency",
+    "pearson_r",
+    "spearman_brown",
+    "split_half",
+    "test_retest",
+    "reliability_summary",
+    "Reliability",
+    "ReliabilitySummary",
     "plot_quality",
-    "canonical_site", "match_channels", "detect_bad_sites", "detect_mains",
+    "canonical_site",
+    "match_channels",
+    "detect_bad_sites",
+    "detect_mains",
 ]

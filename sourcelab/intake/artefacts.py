@@ -86,8 +86,9 @@ def amplitude_factor(age: float | None) -> float:
         return CHILD_FACTOR
     if a >= ADULT_FROM_Y:
         return 1.0
-    return CHILD_FACTOR + (1.0 - CHILD_FACTOR) * (a - CHILD_UNTIL_Y) / (ADULT_FROM_Y
-                                                                        - CHILD_UNTIL_Y)
+    return CHILD_FACTOR + (1.0 - CHILD_FACTOR) * (a - CHILD_UNTIL_Y) / (
+        ADULT_FROM_Y - CHILD_UNTIL_Y
+    )
 
 
 def plausibility_bounds(age: float | None) -> dict:
@@ -171,19 +172,26 @@ class Thresholds:
             ``mode``, ``n_epochs_learned_from``, the four thresholds as site -> µV (rounded to
             0.01 µV; None where not finite) and ``bounds`` (tuples as lists).
         """
+
         def site(a):
-            return {s: (None if not np.isfinite(v) else round(float(v), 2))
-                    for s, v in zip(ch_names, a)}
-        return {"mode": self.mode, "n_epochs_learned_from": int(self.n_epochs),
-                "ptp_uv": site(self.ptp_uv), "muscle_uv": site(self.muscle_uv),
-                "learned_ptp_uv": site(self.learned_ptp_uv),
-                "learned_muscle_uv": site(self.learned_muscle_uv),
-                "bounds": {k: (list(v) if isinstance(v, tuple) else v)
-                           for k, v in self.bounds.items()}}
+            return {
+                s: (None if not np.isfinite(v) else round(float(v), 2)) for s, v in zip(ch_names, a)
+            }
+
+        return {
+            "mode": self.mode,
+            "n_epochs_learned_from": int(self.n_epochs),
+            "ptp_uv": site(self.ptp_uv),
+            "muscle_uv": site(self.muscle_uv),
+            "learned_ptp_uv": site(self.learned_ptp_uv),
+            "learned_muscle_uv": site(self.learned_muscle_uv),
+            "bounds": {k: (list(v) if isinstance(v, tuple) else v) for k, v in self.bounds.items()},
+        }
 
 
-def learn_thresholds(ptp_uv: np.ndarray, muscle_uv: np.ndarray, *, age: float | None = None,
-                     z: float = REJECT_Z) -> Thresholds:
+def learn_thresholds(
+    ptp_uv: np.ndarray, muscle_uv: np.ndarray, *, age: float | None = None, z: float = REJECT_Z
+) -> Thresholds:
     """Thresholds from the usable epochs of a recording.
 
     Parameters
@@ -207,12 +215,18 @@ def learn_thresholds(ptp_uv: np.ndarray, muscle_uv: np.ndarray, *, age: float | 
     n = int(np.asarray(ptp_uv).shape[0])
     if n < MIN_LEARN_EPOCHS:
         nan = np.full(n_ch, np.nan)
-        return Thresholds(np.full(n_ch, b["ptp_uv"][0]), np.full(n_ch, b["muscle_uv"][0]),
-                          nan, nan.copy(), b, n, "auto")
+        return Thresholds(
+            np.full(n_ch, b["ptp_uv"][0]),
+            np.full(n_ch, b["muscle_uv"][0]),
+            nan,
+            nan.copy(),
+            b,
+            n,
+            "auto",
+        )
     lp = robust_threshold(ptp_uv, z=z)
     lm = robust_threshold(muscle_uv, z=z)
-    return Thresholds(np.clip(lp, *b["ptp_uv"]), np.clip(lm, *b["muscle_uv"]), lp, lm, b, n,
-                      "auto")
+    return Thresholds(np.clip(lp, *b["ptp_uv"]), np.clip(lm, *b["muscle_uv"]), lp, lm, b, n, "auto")
 
 
 def fixed_thresholds(n_ch: int, *, reject_uv: float, muscle_uv: float) -> Thresholds:
@@ -233,9 +247,23 @@ def fixed_thresholds(n_ch: int, *, reject_uv: float, muscle_uv: float) -> Thresh
         ``mode`` ``"fixed"``, no learned values (NaN), empty ``bounds`` and ``n_epochs`` 0.
     """
     nan = np.full(n_ch, np.nan)
-    return Thresholds(np.full(n_ch, float(reject_uv)), np.full(n_ch, float(muscle_uv)), nan,
-                      nan.copy(), {}, 0, "fixed")
+    return Thresholds(
+        np.full(n_ch, float(reject_uv)),
+        np.full(n_ch, float(muscle_uv)),
+        nan,
+        nan.copy(),
+        {},
+        0,
+        "fixed",
+    )
 
 
-__all__ = ["Thresholds", "learn_thresholds", "fixed_thresholds", "robust_threshold",
-           "plausibility_bounds", "amplitude_factor", "REJECT_Z"]
+__all__ = [
+    "Thresholds",
+    "learn_thresholds",
+    "fixed_thresholds",
+    "robust_threshold",
+    "plausibility_bounds",
+    "amplitude_factor",
+    "REJECT_Z",
+]

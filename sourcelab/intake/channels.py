@@ -20,11 +20,22 @@ OLD_TO_NEW: dict[str, str] = {"t3": "T7", "t4": "T8", "t5": "P7", "t6": "P8"}
 
 #: Reference suffix token (lower case, after the last '-') -> reference family.
 REFERENCE_SUFFIXES: dict[str, str] = {
-    "ref": "single site", "a1": "single site", "a2": "single site", "m1": "single site",
-    "m2": "single site", "cz": "single site",
-    "le": "linked ears", "a1a2": "linked ears", "a12": "linked ears", "m1m2": "linked ears",
-    "lm": "linked ears", "linked": "linked ears",
-    "av": "average", "avg": "average", "ave": "average", "car": "average",
+    "ref": "single site",
+    "a1": "single site",
+    "a2": "single site",
+    "m1": "single site",
+    "m2": "single site",
+    "cz": "single site",
+    "le": "linked ears",
+    "a1a2": "linked ears",
+    "a12": "linked ears",
+    "m1m2": "linked ears",
+    "lm": "linked ears",
+    "linked": "linked ears",
+    "av": "average",
+    "avg": "average",
+    "ave": "average",
+    "car": "average",
 }
 
 _CANONICAL_LOWER = {s.lower(): s for s in SITES_1020}

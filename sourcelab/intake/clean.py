@@ -124,8 +124,7 @@ def _annotations(raw) -> list[tuple[float, float, str]]:
     """(onset s from the first sample, duration s, description) of every annotation."""
     ann = raw.annotations
     onsets = np.asarray(ann.onset, float) - raw.first_time
-    return [(float(o), float(d), str(t)) for o, d, t in zip(onsets, ann.duration,
-                                                            ann.description)]
+    return [(float(o), float(d), str(t)) for o, d, t in zip(onsets, ann.duration, ann.description)]
 
 
 def _spans(raw, keep) -> list[tuple[float, float, str]]:
@@ -145,7 +144,7 @@ def _spans(raw, keep) -> list[tuple[float, float, str]]:
         if dur > 0:
             stop = start + dur
         else:
-            later = onsets[k + 1:]
+            later = onsets[k + 1 :]
             later = later[later > start]
             stop = float(later.min()) if later.size else end
         out.append((max(start, 0.0), min(stop, end), desc))
@@ -213,9 +212,16 @@ def selection_mask(raw, select, *, where=None) -> np.ndarray:
     n, sf = raw.n_times, raw.info["sfreq"]
     if select is None:
         return np.ones(n, bool)
-    items = [select] if isinstance(select, str) or (
-        isinstance(select, tuple) and len(select) == 2
-        and all(isinstance(v, (int, float)) for v in select)) else list(select)
+    items = (
+        [select]
+        if isinstance(select, str)
+        or (
+            isinstance(select, tuple)
+            and len(select) == 2
+            and all(isinstance(v, (int, float)) for v in select)
+        )
+        else list(select)
+    )
     ann = _annotations(raw)
     spans: list = []
     for item in items:
@@ -225,15 +231,20 @@ def selection_mask(raw, select, *, where=None) -> np.ndarray:
                 present = sorted({str(d) for d in raw.annotations.description})[:20]
                 alias = canonical_state(item)
                 hint = f" (read as {alias!r})" if alias and alias != item.strip().lower() else ""
-                raise InputError(f"select: no annotation {item!r}{hint}; descriptions present: "
-                                 f"{present}", path=where)
+                raise InputError(
+                    f"select: no annotation {item!r}{hint}; descriptions present: {present}",
+                    path=where,
+                )
             spans += got
         else:
             try:
                 t0, t1 = (float(v) for v in item)
             except (TypeError, ValueError):
-                raise InputError(f"select: {item!r} is neither an annotation description nor a "
-                                 "(start, stop) pair in seconds", path=where) from None
+                raise InputError(
+                    f"select: {item!r} is neither an annotation description nor a "
+                    "(start, stop) pair in seconds",
+                    path=where,
+                ) from None
             if not t1 > t0:
                 raise InputError(f"select: empty time range {item!r}", path=where)
             spans.append(Span(t0, t1, "range", "range"))
@@ -266,8 +277,15 @@ def excluded_procedures(chosen: np.ndarray, spans, sf: float) -> list[dict]:
     for s in spans:
         inside = chosen & (t >= s.start) & (t < s.stop)
         if inside.any():
-            out.append({"kind": s.kind, "label": s.label, "start_s": round(s.start, 3),
-                        "stop_s": round(s.stop, 3), "overlap_s": round(inside.sum() / sf, 3)})
+            out.append(
+                {
+                    "kind": s.kind,
+                    "label": s.label,
+                    "start_s": round(s.start, 3),
+                    "stop_s": round(s.stop, 3),
+                    "overlap_s": round(inside.sum() / sf, 3),
+                }
+            )
     return out
 
 
@@ -319,7 +337,7 @@ def _windows(x: np.ndarray, starts: np.ndarray, n_per: int) -> np.ndarray:
     """Epochs ``x[:, st:st + n_per]`` stacked, shape (n_epochs, n_channels, n_per) (one copy)."""
     out = np.empty((len(starts), x.shape[0], n_per), dtype=x.dtype)
     for i, st in enumerate(starts):
-        out[i] = x[:, st:st + n_per]
+        out[i] = x[:, st : st + n_per]
     return out
 
 
@@ -332,8 +350,12 @@ def _window_reduce(x: np.ndarray, starts: np.ndarray, n_per: int, fn) -> np.ndar
     axis), without holding every epoch's copy at once."""
     if not len(starts):
         return fn(_windows(x, starts, n_per))
-    return np.concatenate([fn(_windows(x, starts[s:s + _REDUCE_BLOCK], n_per))
-                           for s in range(0, len(starts), _REDUCE_BLOCK)])
+    return np.concatenate(
+        [
+            fn(_windows(x, starts[s : s + _REDUCE_BLOCK], n_per))
+            for s in range(0, len(starts), _REDUCE_BLOCK)
+        ]
+    )
 
 
 def _ptp(w: np.ndarray) -> np.ndarray:
@@ -341,7 +363,7 @@ def _ptp(w: np.ndarray) -> np.ndarray:
 
 
 def _rms(w: np.ndarray) -> np.ndarray:
-    return np.sqrt(np.mean(w ** 2, axis=-1))
+    return np.sqrt(np.mean(w**2, axis=-1))
 
 
 def _delta_edges(config: AnalysisConfig) -> tuple[float, float]:
@@ -372,8 +394,8 @@ def band_csd(epochs: np.ndarray, sfreq: float, band: tuple[float, float]) -> np.
     sel = (f >= band[0]) & (f < band[1])
     win = np.hanning(n)
     out = np.zeros((epochs.shape[1], epochs.shape[1]))
-    for s in range(0, len(epochs), _REDUCE_BLOCK):   # a block of epochs at a time (memory)
-        x = np.fft.rfft(epochs[s:s + _REDUCE_BLOCK] * win, axis=-1)[..., sel]
+    for s in range(0, len(epochs), _REDUCE_BLOCK):  # a block of epochs at a time (memory)
+        x = np.fft.rfft(epochs[s : s + _REDUCE_BLOCK] * win, axis=-1)[..., sel]
         out += np.real(np.einsum("eck,edk->cd", x, x.conj()))
     return out / max(len(epochs), 1)
 
@@ -390,9 +412,16 @@ def _nasion(raw) -> np.ndarray:
     return DEFAULT_NASION
 
 
-def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None,
-                    age: float | None = None, muscle_uv: float | None = None,
-                    muscle_band=MUSCLE_BAND_HZ, blink_uv: float | None = None) -> CleanData:
+def clean_recording(
+    recording: Recording,
+    config: AnalysisConfig,
+    *,
+    select=None,
+    age: float | None = None,
+    muscle_uv: float | None = None,
+    muscle_band=MUSCLE_BAND_HZ,
+    blink_uv: float | None = None,
+) -> CleanData:
     """Filter, select, correct eye artefacts, epoch and reject artefacts.
 
     Parameters
@@ -464,10 +493,10 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     def band_pass(x):
         """Notch and band-pass, in place (``x`` is this function's own array)."""
         if mains is not None and mains < nyq - 1:
-            x = mne.filter.notch_filter(x, sf, np.arange(mains, nyq - 1, mains), copy=False,
-                                        verbose="error")
-        return mne.filter.filter_data(x, sf, config.l_freq, h_freq, copy=False,
-                                      verbose="error")
+            x = mne.filter.notch_filter(
+                x, sf, np.arange(mains, nyq - 1, mains), copy=False, verbose="error"
+            )
+        return mne.filter.filter_data(x, sf, config.l_freq, h_freq, copy=False, verbose="error")
 
     n_per = int(round(config.epoch_s * sf))
     bad = bad_mask(raw)
@@ -491,19 +520,28 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     bounds = plausibility_bounds(age)
     all_starts, _ = epoch_starts(usable, n_per)
     if len(all_starts):
-        gross = (_window_reduce(data, all_starts, n_per, _ptp)
-                 > bounds["ptp_uv"][1] * GROSS_FACTOR).any(1)
+        gross = (
+            _window_reduce(data, all_starts, n_per, _ptp) > bounds["ptp_uv"][1] * GROSS_FACTOR
+        ).any(1)
         fit_mask = usable.copy()
         for st in all_starts[gross]:
-            fit_mask[st:st + n_per] = False
+            fit_mask[st : st + n_per] = False
     else:
         fit_mask = usable
     eog = None
     if recording.eog_uv is not None and len(recording.eog_uv):
         eog = band_pass(np.nan_to_num(np.asarray(recording.eog_uv, float)))
-    ocular = correct_ocular(data, sf, SITES_1020, _positions(raw), _nasion(raw),
-                            fit_mask=fit_mask, eog_uv=eog, method=config.ocular_correction,
-                            highpass_hz=config.l_freq)
+    ocular = correct_ocular(
+        data,
+        sf,
+        SITES_1020,
+        _positions(raw),
+        _nasion(raw),
+        fit_mask=fit_mask,
+        eog_uv=eog,
+        method=config.ocular_correction,
+        highpass_hz=config.l_freq,
+    )
     data = ocular.data
     notes.extend(ocular.notes)
     corrected = ocular.method in ("ica", "regression")
@@ -514,8 +552,9 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     ptp = np.ptp(ep, axis=-1)
     hi = min(muscle_band[1], (h_freq or nyq * 0.9))
     muscle_on = np.isfinite(muscle_uv) and muscle_band[0] < hi
-    hf = mne.filter.filter_data(data, sf, muscle_band[0], hi, verbose="error") if muscle_on \
-        else None
+    hf = (
+        mne.filter.filter_data(data, sf, muscle_band[0], hi, verbose="error") if muscle_on else None
+    )
 
     def hf_rms(st):
         if hf is None:
@@ -527,11 +566,12 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
         ptp_all = _window_reduce(data, all_starts, n_per, _ptp)
         thr = learn_thresholds(ptp_all, hf_rms(all_starts), age=age, z=config.reject_z)
         if thr.n_epochs < 20:
-            notes.append(f"only {thr.n_epochs} usable epochs to learn rejection thresholds "
-                         "from; the plausibility floors are used")
+            notes.append(
+                f"only {thr.n_epochs} usable epochs to learn rejection thresholds "
+                "from; the plausibility floors are used"
+            )
     else:
-        thr = fixed_thresholds(len(SITES_1020), reject_uv=config.reject_uv,
-                               muscle_uv=muscle_uv)
+        thr = fixed_thresholds(len(SITES_1020), reject_uv=config.reject_uv, muscle_uv=muscle_uv)
     hf = None  # the high-frequency copy is no longer needed (memory)
     lap("features and thresholds")
 
@@ -552,11 +592,17 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
         blink = np.zeros(len(starts), bool)
 
     epoch_s = n_per / sf
-    reasons = {"flat": flat.any(1), "amplitude": amp.any(1), "blink": blink,
-               "muscle": muscle.any(1)}
+    reasons = {
+        "flat": flat.any(1),
+        "amplitude": amp.any(1),
+        "blink": blink,
+        "muscle": muscle.any(1),
+    }
     taken = np.zeros(len(starts), bool)
-    rejected = {"annotated-bad": float((bad & chosen).sum() / sf),
-                "procedure": float((proc & chosen & ~bad).sum() / sf)}
+    rejected = {
+        "annotated-bad": float((bad & chosen).sum() / sf),
+        "procedure": float((proc & chosen & ~bad).sum() / sf),
+    }
     for name in ("flat", "amplitude", "blink", "muscle"):
         hit = reasons[name] & ~taken
         rejected[name] = float(hit.sum() * epoch_s)
@@ -566,26 +612,42 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     site_fail = flat | amp | muscle
     site_fail[:, fp] |= blink[:, None]
     n_cand = max(len(starts), 1)
-    kept_fraction = {s: float(1 - site_fail[:, i].sum() / n_cand) if len(starts) else 0.0
-                     for i, s in enumerate(SITES_1020)}
+    kept_fraction = {
+        s: float(1 - site_fail[:, i].sum() / n_cand) if len(starts) else 0.0
+        for i, s in enumerate(SITES_1020)
+    }
     kept_s = float(keep.sum() * epoch_s)
-    thresholds = {"rejection": config.rejection, "reject_z": config.reject_z,
-                  "reject_uv": config.reject_uv, "flat_uv": config.flat_uv,
-                  "muscle_uv": float(muscle_uv), "muscle_band_hz": (muscle_band[0], hi),
-                  "blink_uv": float(blink_uv) if not corrected else None,
-                  "blink_lowpass_hz": BLINK_LOWPASS_HZ,
-                  "blink_front_back_ratio": BLINK_GRADIENT,
-                  "l_freq": config.l_freq, "h_freq": h_freq, "notch": mains,
-                  "epoch_s": epoch_s, "min_clean_s": config.min_clean_s,
-                  "warn_clean_s": config.warn_clean_s, "age": age,
-                  "per_site": thr.summary(SITES_1020)}
+    thresholds = {
+        "rejection": config.rejection,
+        "reject_z": config.reject_z,
+        "reject_uv": config.reject_uv,
+        "flat_uv": config.flat_uv,
+        "muscle_uv": float(muscle_uv),
+        "muscle_band_hz": (muscle_band[0], hi),
+        "blink_uv": float(blink_uv) if not corrected else None,
+        "blink_lowpass_hz": BLINK_LOWPASS_HZ,
+        "blink_front_back_ratio": BLINK_GRADIENT,
+        "l_freq": config.l_freq,
+        "h_freq": h_freq,
+        "notch": mains,
+        "epoch_s": epoch_s,
+        "min_clean_s": config.min_clean_s,
+        "warn_clean_s": config.warn_clean_s,
+        "age": age,
+        "per_site": thr.summary(SITES_1020),
+    }
     summary = ", ".join(f"{k} {v:.0f} s" for k, v in rejected.items() if v)
     if kept_s < config.min_clean_s:
-        raise InputError(f"only {kept_s:.0f} s of clean data, at least {config.min_clean_s:g} s "
-                         f"needed (removed: {summary or 'nothing'})", path=where)
+        raise InputError(
+            f"only {kept_s:.0f} s of clean data, at least {config.min_clean_s:g} s "
+            f"needed (removed: {summary or 'nothing'})",
+            path=where,
+        )
     if kept_s < config.warn_clean_s:
-        notes.append(f"only {kept_s:.0f} s of clean data (below {config.warn_clean_s:g} s); "
-                     "spectra will be noisier")
+        notes.append(
+            f"only {kept_s:.0f} s of clean data (below {config.warn_clean_s:g} s); "
+            "spectra will be noisier"
+        )
 
     # --- does the slow-wave topography still look ocular? ------------------------------------
     templates = ocular_templates(_positions(raw), _nasion(raw))
@@ -594,24 +656,39 @@ def clean_recording(recording: Recording, config: AnalysisConfig, *, select=None
     del ep, data, ocular  # the continuous copies are no longer needed (memory)
     residual = ocular_residual(band_csd(kept_ep, sf, _delta_edges(config)), templates)
     if residual["ocular"]:
-        how = ("after ocular correction" if corrected else
-               "without ocular correction" if ocular_method == "off" else
-               "although no ocular component was found")
-        notes.append(f"the dominant delta-band scalp pattern matches an eye-movement pattern "
-                     f"(r = {residual['r']:.2f}, threshold {residual['threshold']:g}) {how}: "
-                     "frontal slow activity may be eye artefact rather than a cortical "
-                     "generator")
+        how = (
+            "after ocular correction"
+            if corrected
+            else "without ocular correction"
+            if ocular_method == "off"
+            else "although no ocular component was found"
+        )
+        notes.append(
+            f"the dominant delta-band scalp pattern matches an eye-movement pattern "
+            f"(r = {residual['r']:.2f}, threshold {residual['threshold']:g}) {how}: "
+            "frontal slow activity may be eye artefact rather than a cortical "
+            "generator"
+        )
     ocular_info["residual_delta"] = residual
     lap("ocular check")
     for msg in notes:
         logger.warning("%s: %s", where, msg)
     logger.info("%s: kept %.0f s in %d epochs; removed %s", where, kept_s, keep.sum(), summary)
     return CleanData(
-        epochs=np.asarray(kept_ep, dtype=np.float64), sfreq=sf, ch_names=tuple(SITES_1020),
-        epoch_onsets_s=starts[keep] / sf, kept_s=kept_s, rejected_s=rejected,
-        channel_kept_fraction=kept_fraction, mains_hz=mains, thresholds=thresholds,
-        warnings=tuple(recording.warnings) + tuple(notes), excluded=tuple(excluded),
-        ocular=ocular_info, timings_s=timings)
+        epochs=np.asarray(kept_ep, dtype=np.float64),
+        sfreq=sf,
+        ch_names=tuple(SITES_1020),
+        epoch_onsets_s=starts[keep] / sf,
+        kept_s=kept_s,
+        rejected_s=rejected,
+        channel_kept_fraction=kept_fraction,
+        mains_hz=mains,
+        thresholds=thresholds,
+        warnings=tuple(recording.warnings) + tuple(notes),
+        excluded=tuple(excluded),
+        ocular=ocular_info,
+        timings_s=timings,
+    )
 
 
 def _positions(raw) -> np.ndarray:

@@ -60,8 +60,9 @@ def _edf_number(raw: bytes, what: str, path: Path, *, integer: bool = False):
         value = int(text) if integer else float(text)
     except ValueError:
         kind = "an integer" if integer else "a number"
-        raise InputError(f"corrupt EDF/BDF header: {what} field {text[:12]!r} is not {kind}",
-                         path=path) from None
+        raise InputError(
+            f"corrupt EDF/BDF header: {what} field {text[:12]!r} is not {kind}", path=path
+        ) from None
     return value
 
 
@@ -97,41 +98,58 @@ def check_edf_header(path: Path) -> dict:
     with open(path, "rb") as f:
         head = f.read(256)
         if len(head) < 256:
-            raise InputError(f"not an EDF/BDF file: {len(head)} bytes, shorter than the 256-byte "
-                             "header", path=path)
+            raise InputError(
+                f"not an EDF/BDF file: {len(head)} bytes, shorter than the 256-byte header",
+                path=path,
+            )
         version = head[:8]
         if not (version == b"0       " or (bdf and version[:1] == b"\xff")):
-            raise InputError("corrupt EDF/BDF header: bad version field "
-                             f"{version.decode('latin-1')!r}", path=path)
+            raise InputError(
+                f"corrupt EDF/BDF header: bad version field {version.decode('latin-1')!r}",
+                path=path,
+            )
         n_signals = _edf_number(head[252:256], "number-of-signals", path, integer=True)
         if n_signals < 1:
-            raise InputError(f"corrupt EDF/BDF header: {n_signals} signals; need at least 1",
-                             path=path)
+            raise InputError(
+                f"corrupt EDF/BDF header: {n_signals} signals; need at least 1", path=path
+            )
         header_bytes = _edf_number(head[184:192], "header-size", path, integer=True)
         if header_bytes != 256 * (n_signals + 1):
-            raise InputError(f"corrupt EDF/BDF header: header-size field says {header_bytes} "
-                             f"bytes, but {n_signals} signals need 256 x {n_signals + 1} = "
-                             f"{256 * (n_signals + 1)}", path=path)
+            raise InputError(
+                f"corrupt EDF/BDF header: header-size field says {header_bytes} "
+                f"bytes, but {n_signals} signals need 256 x {n_signals + 1} = "
+                f"{256 * (n_signals + 1)}",
+                path=path,
+            )
         n_records = _edf_number(head[236:244], "number-of-data-records", path, integer=True)
         record_s = _edf_number(head[244:252], "data-record-duration", path)
         if not math.isfinite(record_s):
-            raise InputError(f"corrupt EDF/BDF header: data-record duration {record_s!r} is not "
-                             "a finite number of seconds", path=path)
+            raise InputError(
+                f"corrupt EDF/BDF header: data-record duration {record_s!r} is not "
+                "a finite number of seconds",
+                path=path,
+            )
         if record_s <= 0:
-            raise InputError(f"corrupt EDF/BDF header: data-record duration is {record_s:g} s; "
-                             "it must be > 0 (the sampling rate is samples per record divided "
-                             "by it)", path=path)
+            raise InputError(
+                f"corrupt EDF/BDF header: data-record duration is {record_s:g} s; "
+                "it must be > 0 (the sampling rate is samples per record divided "
+                "by it)",
+                path=path,
+            )
         rest = f.read(256 * n_signals)
     if len(rest) < 256 * n_signals:
-        raise InputError(f"truncated EDF/BDF file: {size} bytes, the {n_signals} signal headers "
-                         f"need {header_bytes}", path=path)
+        raise InputError(
+            f"truncated EDF/BDF file: {size} bytes, the {n_signals} signal headers "
+            f"need {header_bytes}",
+            path=path,
+        )
     offsets = [0]
     for w in _SIGNAL_FIELDS:
         offsets.append(offsets[-1] + w * n_signals)
 
     def field(k: int, i: int) -> bytes:
         w = _SIGNAL_FIELDS[k]
-        return rest[offsets[k] + w * i: offsets[k] + w * (i + 1)]
+        return rest[offsets[k] + w * i : offsets[k] + w * (i + 1)]
 
     labels = [field(0, i).decode("latin-1").strip() for i in range(n_signals)]
     lo_d, hi_d = (-8388608, 8388607) if bdf else (-32768, 32767)
@@ -140,44 +158,73 @@ def check_edf_header(path: Path) -> dict:
         name = f"signal {i + 1} ({label[:16]!r})"
         spr = _edf_number(field(8, i), f"{name} samples-per-record", path, integer=True)
         if spr < 1:
-            raise InputError(f"corrupt EDF/BDF header: {name} has {spr} samples per data "
-                             "record; it must be at least 1", path=path)
+            raise InputError(
+                f"corrupt EDF/BDF header: {name} has {spr} samples per data "
+                "record; it must be at least 1",
+                path=path,
+            )
         per_record.append(spr)
         pmin = _edf_number(field(3, i), f"{name} physical-minimum", path)
         pmax = _edf_number(field(4, i), f"{name} physical-maximum", path)
         dmin = _edf_number(field(5, i), f"{name} digital-minimum", path, integer=True)
         dmax = _edf_number(field(6, i), f"{name} digital-maximum", path, integer=True)
         if not (math.isfinite(pmin) and math.isfinite(pmax)) or pmin == pmax:
-            raise InputError(f"corrupt EDF/BDF header: {name} physical minimum and maximum "
-                             f"({pmin:g}, {pmax:g}) must be finite and differ", path=path)
+            raise InputError(
+                f"corrupt EDF/BDF header: {name} physical minimum and maximum "
+                f"({pmin:g}, {pmax:g}) must be finite and differ",
+                path=path,
+            )
         if not lo_d <= dmin < dmax <= hi_d:
-            raise InputError(f"corrupt EDF/BDF header: {name} digital range ({dmin}, {dmax}) "
-                             f"must satisfy {lo_d} <= minimum < maximum <= {hi_d}", path=path)
+            raise InputError(
+                f"corrupt EDF/BDF header: {name} digital range ({dmin}, {dmax}) "
+                f"must satisfy {lo_d} <= minimum < maximum <= {hi_d}",
+                path=path,
+            )
     record_bytes = sum(per_record) * (3 if bdf else 2)
     data_bytes = size - header_bytes
     whole = data_bytes // record_bytes
     if n_records == -1:  # allowed while recording; the reader infers it from the file size
         if whole < 1:
-            raise InputError("EDF/BDF file holds no complete data record (record count -1, "
-                             f"{max(data_bytes, 0)} data bytes, {record_bytes} per record)",
-                             path=path)
+            raise InputError(
+                "EDF/BDF file holds no complete data record (record count -1, "
+                f"{max(data_bytes, 0)} data bytes, {record_bytes} per record)",
+                path=path,
+            )
         n_records = whole
     elif n_records < 1:
-        raise InputError(f"corrupt EDF/BDF header: {n_records} data records; need at least 1 "
-                         "(or -1 while recording)", path=path)
+        raise InputError(
+            f"corrupt EDF/BDF header: {n_records} data records; need at least 1 "
+            "(or -1 while recording)",
+            path=path,
+        )
     elif whole < n_records:
         expected = header_bytes + n_records * record_bytes
-        raise InputError(f"truncated EDF/BDF file: {size} bytes, the header promises {expected} "
-                         f"({n_records} data records of {record_bytes} bytes)", path=path)
+        raise InputError(
+            f"truncated EDF/BDF file: {size} bytes, the header promises {expected} "
+            f"({n_records} data records of {record_bytes} bytes)",
+            path=path,
+        )
     elif whole > n_records:
-        raise InputError(f"EDF/BDF header says {n_records} data records but the file holds "
-                         f"{whole}; the header's record count is wrong", path=path)
+        raise InputError(
+            f"EDF/BDF header says {n_records} data records but the file holds "
+            f"{whole}; the header's record count is wrong",
+            path=path,
+        )
     duration = n_records * record_s
     if duration < MIN_RECORDING_S:
-        raise InputError(f"recording too short: {duration:g} s ({n_records} data records of "
-                         f"{record_s:g} s); at least {MIN_RECORDING_S:g} s are needed", path=path)
-    return {"n_signals": n_signals, "n_records": n_records, "record_s": record_s,
-            "samples_per_record": per_record, "duration_s": duration, "labels": labels}
+        raise InputError(
+            f"recording too short: {duration:g} s ({n_records} data records of "
+            f"{record_s:g} s); at least {MIN_RECORDING_S:g} s are needed",
+            path=path,
+        )
+    return {
+        "n_signals": n_signals,
+        "n_records": n_records,
+        "record_s": record_s,
+        "samples_per_record": per_record,
+        "duration_s": duration,
+        "labels": labels,
+    }
 
 
 def bids_resolve(path: Path) -> Path:
@@ -303,7 +350,7 @@ def brainvision_files(vhdr: Path) -> tuple[Path, Path | None]:
         No ``DataFile=``, a name pointing outside the folder, or a data file that is missing.
     """
     try:
-        raw = vhdr.read_bytes()[:1 << 20]
+        raw = vhdr.read_bytes()[: 1 << 20]
     except OSError as exc:
         raise InputError(f"cannot read BrainVision header ({exc.strerror})", path=vhdr) from None
     found: dict[str, str] = {}
@@ -324,16 +371,25 @@ def brainvision_files(vhdr: Path) -> tuple[Path, Path | None]:
         if not name:
             out.append(None)
             continue
-        if ("/" in name or "\\" in name or name in (".", "..") or Path(name).is_absolute()
-                or re.match(r"^[A-Za-z]:", name)):
+        if (
+            "/" in name
+            or "\\" in name
+            or name in (".", "..")
+            or Path(name).is_absolute()
+            or re.match(r"^[A-Za-z]:", name)
+        ):
             label = "DataFile" if key == "datafile" else "MarkerFile"
-            raise InputError(f"BrainVision {label}={name!r} points outside the header's folder; "
-                             "sourcelab reads only files beside the header", path=vhdr)
+            raise InputError(
+                f"BrainVision {label}={name!r} points outside the header's folder; "
+                "sourcelab reads only files beside the header",
+                path=vhdr,
+            )
         out.append(vhdr.parent / name)
     data, marker = out
     if not data.is_file():
-        raise InputError(f"BrainVision data file {data.name!r} named in the header is missing",
-                         path=vhdr)
+        raise InputError(
+            f"BrainVision data file {data.name!r} named in the header is missing", path=vhdr
+        )
     if marker is None or not marker.is_file():
         sibling = vhdr.with_suffix(".vmrk")
         marker = sibling if sibling.is_file() else None
@@ -382,8 +438,11 @@ def eeglab_data_file(set_path: Path) -> Path | None:
     if Path(name).name == set_path.name or Path(name).resolve() == set_path.resolve():
         return None
     if "/" in name or "\\" in name or name in (".", ".."):
-        raise InputError(f"EEGLAB data file {name!r} named in the set is not a plain file name "
-                         "beside it; sourcelab reads only files beside the set", path=set_path)
+        raise InputError(
+            f"EEGLAB data file {name!r} named in the set is not a plain file name "
+            "beside it; sourcelab reads only files beside the set",
+            path=set_path,
+        )
     data = set_path.parent / name
     if not data.is_file():
         data = set_path.with_suffix(".fdt")
@@ -400,8 +459,11 @@ def _read_files(path: Path, fmt: str, raw) -> list[Path]:
             continue
         f = Path(f)
         if f.resolve() != path.resolve() and f.resolve().parent != path.resolve().parent:
-            raise InputError(f"{fmt} data file {str(f)!r} lies outside the folder of the file "
-                             "given; sourcelab reads only files beside it", path=path)
+            raise InputError(
+                f"{fmt} data file {str(f)!r} lies outside the folder of the file "
+                "given; sourcelab reads only files beside it",
+                path=path,
+            )
         if all(f.resolve() != g.resolve() for g in files):
             files.append(f)
     if fmt == "BrainVision":
@@ -465,8 +527,10 @@ def read_file(source) -> tuple[mne.io.BaseRaw, Path, str, tuple[str, ...], tuple
     if not (math.isfinite(sfreq) and sfreq > 0):
         raise InputError(f"sampling rate {sfreq!r} Hz is not a positive number", path=path)
     if raw.n_times < MIN_RECORDING_S * sfreq:
-        raise InputError(f"recording too short: {raw.n_times} samples ({raw.n_times / sfreq:.3g} "
-                         f"s at {sfreq:g} Hz); at least {MIN_RECORDING_S:g} s are needed",
-                         path=path)
+        raise InputError(
+            f"recording too short: {raw.n_times} samples ({raw.n_times / sfreq:.3g} "
+            f"s at {sfreq:g} Hz); at least {MIN_RECORDING_S:g} s are needed",
+            path=path,
+        )
     sha = hash_files(_read_files(path, fmt, raw))
     return raw, path, sha, bids_bad_channels(path), notes

@@ -128,11 +128,16 @@ class OcularCorrection:
             per column of ``mixing``, µV per unit source), ``template_r`` (4 decimals),
             ``n_components``, ``fit_s`` and ``seconds`` (s, 3 decimals) and ``notes``.
         """
-        return {"method": self.method, "removed_components": [int(i) for i in self.removed],
-                "component_maps_uv": [[float(v) for v in col] for col in self.mixing.T],
-                "template_r": [round(float(r), 4) for r in self.template_r],
-                "n_components": int(self.n_components), "fit_s": round(float(self.fit_s), 3),
-                "seconds": round(float(self.seconds), 3), "notes": list(self.notes)}
+        return {
+            "method": self.method,
+            "removed_components": [int(i) for i in self.removed],
+            "component_maps_uv": [[float(v) for v in col] for col in self.mixing.T],
+            "template_r": [round(float(r), 4) for r in self.template_r],
+            "n_components": int(self.n_components),
+            "fit_s": round(float(self.fit_s), 3),
+            "seconds": round(float(self.seconds), 3),
+            "notes": list(self.notes),
+        }
 
 
 def ocular_templates(ch_pos: np.ndarray, nasion: np.ndarray) -> np.ndarray:
@@ -196,10 +201,19 @@ def _data_rank(x: np.ndarray) -> int:
     return int(np.sum(s > s[0] * 1e-6))
 
 
-def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarray,
-                   nasion: np.ndarray, *, fit_mask: np.ndarray | None = None,
-                   eog_uv: np.ndarray | None = None, method: str = "auto",
-                   seed: int = 0, highpass_hz: float | None = None) -> OcularCorrection:
+def correct_ocular(
+    data_uv: np.ndarray,
+    sfreq: float,
+    ch_names,
+    ch_pos: np.ndarray,
+    nasion: np.ndarray,
+    *,
+    fit_mask: np.ndarray | None = None,
+    eog_uv: np.ndarray | None = None,
+    method: str = "auto",
+    seed: int = 0,
+    highpass_hz: float | None = None,
+) -> OcularCorrection:
     """Remove ocular artefacts from continuous, band-passed EEG.
 
     Parameters
@@ -262,32 +276,44 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
     names = list(ch_names)
     missing = [s for s in VEOG_SITES + HEOG_SITES if s not in names]
     if missing:
-        return OcularCorrection("off", data, notes=(f"no ocular correction: sites {missing} "
-                                                    "missing for the EOG proxies",))
+        return OcularCorrection(
+            "off",
+            data,
+            notes=(f"no ocular correction: sites {missing} missing for the EOG proxies",),
+        )
     templates = ocular_templates(ch_pos, nasion)
     idx = np.flatnonzero(mask)
-    n_comp = min(_data_rank(data[:, idx[::max(1, len(idx) // 20000)]]), n_ch)
-    min_samples = MIN_SAMPLES_PER_COMPONENT2 * n_comp ** 2
+    n_comp = min(_data_rank(data[:, idx[:: max(1, len(idx) // 20000)]]), n_ch)
+    min_samples = MIN_SAMPLES_PER_COMPONENT2 * n_comp**2
     if n_comp < 3:
-        return OcularCorrection("off", data, notes=(
-            f"no ocular correction: the data have rank {n_comp}, too low for ICA",))
+        return OcularCorrection(
+            "off",
+            data,
+            notes=(f"no ocular correction: the data have rank {n_comp}, too low for ICA",),
+        )
     if len(idx) < min_samples:
-        return OcularCorrection("off", data, notes=(
-            f"no ocular correction: {len(idx)} samples to learn from, ICA of {n_comp} "
-            f"components needs about {min_samples}",))
+        return OcularCorrection(
+            "off",
+            data,
+            notes=(
+                f"no ocular correction: {len(idx)} samples to learn from, ICA of {n_comp} "
+                f"components needs about {min_samples}",
+            ),
+        )
     import mne
     from scipy.signal import butter, sosfiltfilt
     from threadpoolctl import threadpool_limits
 
-    step = max(1, len(idx) // (FIT_SAMPLES_PER_COMPONENT2 * n_comp ** 2))
+    step = max(1, len(idx) // (FIT_SAMPLES_PER_COMPONENT2 * n_comp**2))
     usable = data[:, idx]
     veog = usable[[names.index(s) for s in VEOG_SITES]].mean(axis=0)
     heog = usable[names.index(HEOG_SITES[0])] - usable[names.index(HEOG_SITES[1])]
     names_all = names + ["VEOG", "HEOG"]
     types = ["eeg"] * n_ch + ["eog"] * 2
     # fitted on evenly strided samples (FastICA ignores the order of samples) ...
-    fit_raw = mne.io.RawArray(usable[:, ::step] * 1e-6, mne.create_info(names, sfreq / step,
-                                                                         "eeg"), verbose="error")
+    fit_raw = mne.io.RawArray(
+        usable[:, ::step] * 1e-6, mne.create_info(names, sfreq / step, "eeg"), verbose="error"
+    )
     with fit_raw.info._unlock():
         fit_raw.info["highpass"] = float(highpass_hz or 0.0)
     # ... and scored on a low-passed, decimated copy (find_bads_eog filters to 1-10 Hz anyway;
@@ -297,10 +323,10 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
     # row by row (each row is filtered independently: the same numbers, without holding the
     # filter's padded copies of every row at once)
     low = np.stack([sosfiltfilt(sos, row)[::q] for row in (*usable, veog, heog)]) * 1e-6
-    score_raw = mne.io.RawArray(low, mne.create_info(names_all, sfreq / q, types),
-                                verbose="error")
-    ica = mne.preprocessing.ICA(n_components=n_comp, method="fastica", max_iter=MAX_ITER,
-                                rng=seed, verbose="error")
+    score_raw = mne.io.RawArray(low, mne.create_info(names_all, sfreq / q, types), verbose="error")
+    ica = mne.preprocessing.ICA(
+        n_components=n_comp, method="fastica", max_iter=MAX_ITER, rng=seed, verbose="error"
+    )
     # one BLAS thread: the matrices are small (n_comp x ~15,000) and several threads spin
     # against each other on a shared machine (measured: 4.4 s -> 0.9 s wall for 100 iterations)
     # the lock: warning filters are process-wide, so two threads (Dask's threaded workers) must
@@ -308,28 +334,57 @@ def correct_ocular(data_uv: np.ndarray, sfreq: float, ch_names, ch_pos: np.ndarr
     with _FIT_LOCK, warnings.catch_warnings(), threadpool_limits(1):
         warnings.simplefilter("ignore")  # convergence / high-pass advice: not for the user
         ica.fit(fit_raw, picks="eeg", verbose="error")
-        flagged, scores = ica.find_bads_eog(score_raw, ch_name=["VEOG", "HEOG"],
-                                            threshold=EOG_Z, l_freq=1.0, h_freq=10.0,
-                                            verbose="error")
+        flagged, scores = ica.find_bads_eog(
+            score_raw,
+            ch_name=["VEOG", "HEOG"],
+            threshold=EOG_Z,
+            l_freq=1.0,
+            h_freq=10.0,
+            verbose="error",
+        )
     maps = ica.get_components() * 1e6  # (n_ch, n_comp), µV per unit source
     cos = subspace_cosine(maps, templates)
     removed = tuple(sorted(int(i) for i in flagged if cos[int(i)] >= OCULAR_R))
     notes: list[str] = []
     kept_flagged = sorted(int(i) for i in flagged if cos[int(i)] < OCULAR_R)
     if kept_flagged:
-        logger.info("ICA components %s correlate with the frontal EOG proxies but their scalp "
-                    "maps are not ocular (cosine < %g); kept", kept_flagged, OCULAR_R)
+        logger.info(
+            "ICA components %s correlate with the frontal EOG proxies but their scalp "
+            "maps are not ocular (cosine < %g); kept",
+            kept_flagged,
+            OCULAR_R,
+        )
     scores = np.atleast_2d(scores)
-    eog_scores = {"VEOG": [round(float(v), 4) for v in scores[0]],
-                  "HEOG": [round(float(v), 4) for v in scores[-1]]}
+    eog_scores = {
+        "VEOG": [round(float(v), 4) for v in scores[0]],
+        "HEOG": [round(float(v), 4) for v in scores[-1]],
+    }
     if not removed:
-        return OcularCorrection("none found", data, (), np.zeros((n_ch, 0)), (), eog_scores,
-                                n_comp, len(idx) / sfreq, time.perf_counter() - t0,
-                                tuple(notes))
+        return OcularCorrection(
+            "none found",
+            data,
+            (),
+            np.zeros((n_ch, 0)),
+            (),
+            eog_scores,
+            n_comp,
+            len(idx) / sfreq,
+            time.perf_counter() - t0,
+            tuple(notes),
+        )
     corrected = remove_components(ica, data, removed)
-    return OcularCorrection("ica", corrected, removed, maps[:, list(removed)],
-                            tuple(float(cos[i]) for i in removed), eog_scores, n_comp,
-                            len(idx) / sfreq, time.perf_counter() - t0, tuple(notes))
+    return OcularCorrection(
+        "ica",
+        corrected,
+        removed,
+        maps[:, list(removed)],
+        tuple(float(cos[i]) for i in removed),
+        eog_scores,
+        n_comp,
+        len(idx) / sfreq,
+        time.perf_counter() - t0,
+        tuple(notes),
+    )
 
 
 def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
@@ -354,7 +409,7 @@ def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
     if not r:
         return np.array(data_uv, float)
     pw = ica.pre_whitener_.ravel()
-    pca = ica.pca_components_[:ica.n_components_]
+    pca = ica.pca_components_[: ica.n_components_]
     unmix = (ica.unmixing_matrix_ @ pca) / pw[None, :]  # sources from volts
     mix = pw[:, None] * (pca.T @ ica.mixing_matrix_)
     mean_uv = (ica.pca_mean_ * pw)[:, None] * 1e6
@@ -362,14 +417,16 @@ def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
     return data_uv - mix[:, r] @ sources
 
 
-def _regress(data: np.ndarray, eog: np.ndarray, mask: np.ndarray, sfreq: float, t0: float
-             ) -> OcularCorrection:
+def _regress(
+    data: np.ndarray, eog: np.ndarray, mask: np.ndarray, sfreq: float, t0: float
+) -> OcularCorrection:
     e = eog[:, mask] - eog[:, mask].mean(axis=1, keepdims=True)
     x = data[:, mask] - data[:, mask].mean(axis=1, keepdims=True)
     beta = np.linalg.lstsq(e.T, x.T, rcond=None)[0].T  # (n_ch, n_eog)
     corrected = data - beta @ (eog - eog[:, mask].mean(axis=1, keepdims=True))
-    return OcularCorrection("regression", corrected, (), beta, (), {}, 0, mask.sum() / sfreq,
-                            time.perf_counter() - t0)
+    return OcularCorrection(
+        "regression", corrected, (), beta, (), {}, 0, mask.sum() / sfreq, time.perf_counter() - t0
+    )
 
 
 def principal_pattern(csd: np.ndarray) -> tuple[np.ndarray, float]:
@@ -416,9 +473,21 @@ def ocular_residual(csd_band: np.ndarray, templates: np.ndarray) -> dict:
     """
     pattern, share = principal_pattern(csd_band)
     r = subspace_cosine(pattern, templates)
-    return {"r": round(float(r), 4), "share": round(share, 4), "ocular": bool(r >= OCULAR_R),
-            "threshold": OCULAR_R, "pattern": [round(float(v), 5) for v in pattern]}
+    return {
+        "r": round(float(r), 4),
+        "share": round(share, 4),
+        "ocular": bool(r >= OCULAR_R),
+        "threshold": OCULAR_R,
+        "pattern": [round(float(v), 5) for v in pattern],
+    }
 
 
-__all__ = ["OcularCorrection", "ocular_templates", "subspace_cosine", "correct_ocular",
-           "principal_pattern", "ocular_residual", "OCULAR_R"]
+__all__ = [
+    "OcularCorrection",
+    "ocular_templates",
+    "subspace_cosine",
+    "correct_ocular",
+    "principal_pattern",
+    "ocular_residual",
+    "OCULAR_R",
+]

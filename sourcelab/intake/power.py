@@ -60,17 +60,17 @@ def welch_psd(data: np.ndarray, sfreq: float, nperseg: int) -> tuple[np.ndarray,
         raise InputError(f"data: need shape (n_channels, n_times >= {n}), got {x.shape}")
     step = n - n // 2
     n_seg = (x.shape[1] - n) // step + 1
-    win = 0.5 - 0.5 * np.cos(2 * np.pi * np.arange(n) / n)   # periodic Hann
+    win = 0.5 - 0.5 * np.cos(2 * np.pi * np.arange(n) / n)  # periodic Hann
     segs = np.lib.stride_tricks.sliding_window_view(x, n, axis=1)[:, ::step]
     block = max(1, _WELCH_BLOCK_BYTES // (16 * n * x.shape[0]))
     acc = np.zeros((x.shape[0], n // 2 + 1))
     for s in range(0, n_seg, block):
-        seg = segs[:, s:s + block]
+        seg = segs[:, s : s + block]
         seg = seg - seg.mean(axis=-1, keepdims=True)
         spec = np.fft.rfft(seg * win, axis=-1)
-        acc += (spec.real ** 2 + spec.imag ** 2).sum(axis=1)
+        acc += (spec.real**2 + spec.imag**2).sum(axis=1)
     psd = acc / (n_seg * sfreq * np.sum(win * win))
-    psd[:, 1:-1 if n % 2 == 0 else None] *= 2
+    psd[:, 1 : -1 if n % 2 == 0 else None] *= 2
     return np.fft.rfftfreq(n, 1 / sfreq), psd
 
 
@@ -97,8 +97,16 @@ def epoch_spectra(epochs: np.ndarray, sfreq: float) -> tuple[np.ndarray, np.ndar
     from scipy.signal import welch
 
     n = epochs.shape[-1]
-    return welch(epochs, fs=sfreq, window="hann", nperseg=n, noverlap=0, detrend="constant",
-                 scaling="density", axis=-1)
+    return welch(
+        epochs,
+        fs=sfreq,
+        window="hann",
+        nperseg=n,
+        noverlap=0,
+        detrend="constant",
+        scaling="density",
+        axis=-1,
+    )
 
 
 def epoch_band_power(epochs: np.ndarray, sfreq: float, bands) -> np.ndarray:
@@ -148,8 +156,9 @@ def band_power(epochs: np.ndarray, sfreq: float, bands) -> np.ndarray:
     return epoch_band_power(epochs, sfreq, bands).mean(axis=0)
 
 
-def peak_frequency(epochs: np.ndarray, sfreq: float, *, fmin: float = 7.0,
-                   fmax: float = 14.0) -> np.ndarray:
+def peak_frequency(
+    epochs: np.ndarray, sfreq: float, *, fmin: float = 7.0, fmax: float = 14.0
+) -> np.ndarray:
     """Frequency of the largest mean-PSD bin in [fmin, fmax) per channel, Hz.
 
     Parameters

@@ -50,8 +50,9 @@ def plot_quality(clean: CleanData, *, figure=None, fmax: float = 45.0):
         sel = (freqs > 0) & (freqs <= fmax)
         cmap = plt.get_cmap("viridis")
         for i, s in enumerate(sites):
-            ax3.semilogy(freqs[sel], psd.mean(0)[i, sel], lw=0.8, color=cmap(i / (len(sites) - 1)),
-                         label=s)
+            ax3.semilogy(
+                freqs[sel], psd.mean(0)[i, sel], lw=0.8, color=cmap(i / (len(sites) - 1)), label=s
+            )
         ax3.legend(fontsize=5, ncol=4, frameon=False)
     ax3.set_xlabel("frequency (Hz)")
     ax3.set_ylabel("PSD (µV²/Hz)")

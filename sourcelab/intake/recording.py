@@ -160,8 +160,9 @@ def line_noise_ratio(data_uv: np.ndarray, sfreq: float) -> np.ndarray:
     return p[:, line].sum(1) / np.maximum(p[:, rest].sum(1), 1e-30)
 
 
-def detect_bad_sites(data_uv: np.ndarray, sfreq: float, names, *,
-                     amplitude: np.ndarray | None = None) -> dict[str, str]:
+def detect_bad_sites(
+    data_uv: np.ndarray, sfreq: float, names, *, amplitude: np.ndarray | None = None
+) -> dict[str, str]:
     """Flat, wildly noisy and line-noise-dominated (disconnected) sites.
 
     Parameters
@@ -267,9 +268,11 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
         raise InputError(f"sampling rate {sfreq:g} Hz is below the 100 Hz minimum", path=where)
     match = match_channels(raw.ch_names)
     if match.missing:
-        raise InputError(f"missing 10-20 sites {list(match.missing)} (found "
-                         f"{len(match.channel_map)} of 19; channels: {raw.ch_names[:40]})",
-                         path=where)
+        raise InputError(
+            f"missing 10-20 sites {list(match.missing)} (found "
+            f"{len(match.channel_map)} of 19; channels: {raw.ch_names[:40]})",
+            path=where,
+        )
     notes.extend(f"duplicate label: {d}" for d in match.duplicates)
     originals = [match.channel_map[s] for s in SITES_1020]
     old_positions = _positions(raw, match.channel_map) if montage_check else None
@@ -295,8 +298,9 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
         data[~finite] = 0.0
         _annotate_runs(raw, bad_t, "BAD_nonfinite")
         notes.append(f"{int(bad_t.sum())} samples with NaN/inf set to 0 and marked BAD_nonfinite")
-        raw.apply_function(lambda x: np.where(np.isfinite(x), x, 0.0), picks="all",
-                           channel_wise=False)
+        raw.apply_function(
+            lambda x: np.where(np.isfinite(x), x, 0.0), picks="all", channel_wise=False
+        )
 
     # --- unit plausibility (never rescale) ----------------------------------------------------
     amp = robust_amplitude(data, sfreq)
@@ -307,7 +311,8 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
         raise InputError(
             f"implausible amplitude scale: typical site amplitude {typical:.3g} µV (expected "
             f"{lo:g}-{hi:g} µV); check the units in the file (volts vs µV), it is not rescaled",
-            path=where)
+            path=where,
+        )
 
     # --- bad sites ---------------------------------------------------------------------------
     bad = detect_bad_sites(data, sfreq, SITES_1020, amplitude=amp)
@@ -318,8 +323,9 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
     raw.info["bads"] = []
     if len(bad) > MAX_BAD_SITES:
         desc = ", ".join(f"{s} ({r})" for s, r in bad.items())
-        raise InputError(f"{len(bad)} bad sites, at most {MAX_BAD_SITES} can be interpolated: "
-                         f"{desc}", path=where)
+        raise InputError(
+            f"{len(bad)} bad sites, at most {MAX_BAD_SITES} can be interpolated: {desc}", path=where
+        )
     montage = mne.channels.make_standard_montage("fsaverage_1020")
     raw.set_montage(montage, on_missing="raise", verbose="error")
     if old_positions is not None:
@@ -327,18 +333,29 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
     interpolated = tuple(s for s in SITES_1020 if s in bad)
     if interpolated:
         raw.info["bads"] = list(interpolated)
-        raw.interpolate_bads(reset_bads=True, origin="auto", method={"eeg": "spline"},
-                             verbose="error")
+        raw.interpolate_bads(
+            reset_bads=True, origin="auto", method={"eeg": "spline"}, verbose="error"
+        )
         msg = "interpolated (spherical spline): " + ", ".join(
-            f"{s} ({bad[s]})" for s in interpolated)
+            f"{s} ({bad[s]})" for s in interpolated
+        )
         notes.append(msg)
         logger.warning("%s: %s", where, msg)
     reference = guess_reference(match.reference_hint, data)
     return Recording(
-        raw=raw, path=path, sha256=sha, channel_map=dict(match.channel_map), sfreq=sfreq,
-        duration_s=raw.n_times / sfreq, original_reference=reference, interpolated=interpolated,
-        annotations=_annotation_summary(raw), warnings=tuple(notes), eog_uv=eog_uv,
-        eog_names=eog_names)
+        raw=raw,
+        path=path,
+        sha256=sha,
+        channel_map=dict(match.channel_map),
+        sfreq=sfreq,
+        duration_s=raw.n_times / sfreq,
+        original_reference=reference,
+        interpolated=interpolated,
+        annotations=_annotation_summary(raw),
+        warnings=tuple(notes),
+        eog_uv=eog_uv,
+        eog_names=eog_names,
+    )
 
 
 def _annotate_runs(raw, mask: np.ndarray, description: str) -> None:
@@ -370,6 +387,8 @@ def _compare_positions(old: dict, raw) -> list[str]:
     cos = np.sum(olds * news, 1) / (np.linalg.norm(olds, axis=1) * np.linalg.norm(news, axis=1))
     off = [s for s, c in zip(sites, cos) if c < np.cos(np.radians(30))]
     if off:
-        return [f"stored electrode positions differ from the 10-20 template by >30° at {off}; "
-                "template positions used"]
+        return [
+            f"stored electrode positions differ from the 10-20 template by >30° at {off}; "
+            "template positions used"
+        ]
     return []

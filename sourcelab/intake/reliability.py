@@ -187,8 +187,9 @@ def icc(ratings: np.ndarray, *, kind: str = "2,1", confidence: float = 0.95) -> 
     from ..checks import check_number, check_option
 
     check_option("kind", kind, ICC_KINDS)
-    confidence = check_number("confidence", confidence, low=0.0, high=1.0, low_open=True,
-                              high_open=True)
+    confidence = check_number(
+        "confidence", confidence, low=0.0, high=1.0, low_open=True, high_open=True
+    )
     x = np.asarray(ratings, float)
     if x.ndim != 2 or x.shape[0] < 3 or x.shape[1] < 2:
         raise InputError(f"ratings: need shape (n_items >= 3, k >= 2), got {x.shape}")
@@ -246,11 +247,15 @@ def _halves_reliability(power, first, second, kind, threshold, log):
         fa, fb = np.log10(fa), np.log10(fb)
     r = np.array([pearson_r(fa[k], fb[k]) for k in range(power.shape[1])])
     flagged = ~(r >= threshold)
-    iccs = tuple(icc(np.c_[fa[k], fb[k]]) if np.all(np.isfinite(fa[k]) & np.isfinite(fb[k]))
-                 else ICC("2,1", np.nan, np.nan, np.nan, 0.95, fa.shape[1], 2)
-                 for k in range(power.shape[1]))
-    return Reliability(kind, r, spearman_brown(r), (len(first), len(second)), float(threshold),
-                       flagged, iccs)
+    iccs = tuple(
+        icc(np.c_[fa[k], fb[k]])
+        if np.all(np.isfinite(fa[k]) & np.isfinite(fb[k]))
+        else ICC("2,1", np.nan, np.nan, np.nan, 0.95, fa.shape[1], 2)
+        for k in range(power.shape[1])
+    )
+    return Reliability(
+        kind, r, spearman_brown(r), (len(first), len(second)), float(threshold), flagged, iccs
+    )
 
 
 def split_half(power: np.ndarray, *, threshold: float = 0.90, log: bool = True) -> Reliability:
@@ -278,8 +283,9 @@ def split_half(power: np.ndarray, *, threshold: float = 0.90, log: bool = True) 
         ``log``) a half's mean power is not positive.
     """
     n = np.asarray(power).shape[0]
-    return _halves_reliability(power, np.arange(0, n, 2), np.arange(1, n, 2), "split-half",
-                               threshold, log)
+    return _halves_reliability(
+        power, np.arange(0, n, 2), np.arange(1, n, 2), "split-half", threshold, log
+    )
 
 
 def test_retest(power: np.ndarray, *, threshold: float = 0.90, log: bool = True) -> Reliability:
@@ -304,8 +310,9 @@ def test_retest(power: np.ndarray, *, threshold: float = 0.90, log: bool = True)
     """
     n = np.asarray(power).shape[0]
     h = n // 2
-    return _halves_reliability(power, np.arange(0, h), np.arange(n - h, n), "test-retest",
-                               threshold, log)
+    return _halves_reliability(
+        power, np.arange(0, h), np.arange(n - h, n), "test-retest", threshold, log
+    )
 
 
 test_retest.__test__ = False  # not a pytest test when imported into a test module
@@ -371,8 +378,9 @@ class ReliabilitySummary:
         return d
 
 
-def reliability_summary(power: np.ndarray, band_names, *,
-                        threshold: float = 0.90) -> ReliabilitySummary:
+def reliability_summary(
+    power: np.ndarray, band_names, *, threshold: float = 0.90
+) -> ReliabilitySummary:
     """Split-half and test-retest reliability of per-epoch band power.
 
     Parameters
@@ -398,19 +406,28 @@ def reliability_summary(power: np.ndarray, band_names, *,
     power = np.asarray(power, float)
     names = [str(b) for b in band_names]
     if power.ndim != 3 or power.shape[1] != len(names):
-        raise InputError(f"power: need shape (n_epochs, {len(names)} bands, n_items), "
-                         f"got {power.shape}")
+        raise InputError(
+            f"power: need shape (n_epochs, {len(names)} bands, n_items), got {power.shape}"
+        )
     log = bool(np.all(power > 0))
-    common = dict(n_epochs=int(power.shape[0]), threshold=float(threshold),
-                  features="log10 band power" if log else "band power")
+    common = dict(
+        n_epochs=int(power.shape[0]),
+        threshold=float(threshold),
+        features="log10 band power" if log else "band power",
+    )
     if power.shape[0] < 2 or power.shape[2] < 3:
         none = {b: None for b in names}
         empty = {b: {"icc": None, "low": None, "high": None} for b in names}
-        return ReliabilitySummary(split_half=none, split_half_spearman_brown=dict(none),
-                                  test_retest=dict(none), test_retest_spearman_brown=dict(none),
-                                  flagged_bands=tuple(names), split_half_icc=empty,
-                                  test_retest_icc={b: dict(v) for b, v in empty.items()},
-                                  **common)
+        return ReliabilitySummary(
+            split_half=none,
+            split_half_spearman_brown=dict(none),
+            test_retest=dict(none),
+            test_retest_spearman_brown=dict(none),
+            flagged_bands=tuple(names),
+            split_half_icc=empty,
+            test_retest_icc={b: dict(v) for b, v in empty.items()},
+            **common,
+        )
     sh = split_half(power, threshold=threshold, log=log)
     tr = test_retest(power, threshold=threshold, log=log)
     return ReliabilitySummary(
@@ -420,7 +437,9 @@ def reliability_summary(power: np.ndarray, band_names, *,
         test_retest_spearman_brown={b: _num(r) for b, r in zip(names, tr.r_spearman_brown)},
         flagged_bands=tuple(b for b, f in zip(names, sh.flagged) if f),
         split_half_icc={b: _icc_dict(c) for b, c in zip(names, sh.icc)},
-        test_retest_icc={b: _icc_dict(c) for b, c in zip(names, tr.icc)}, **common)
+        test_retest_icc={b: _icc_dict(c) for b, c in zip(names, tr.icc)},
+        **common,
+    )
 
 
 def _icc_dict(c: ICC) -> dict:

@@ -25,24 +25,37 @@ PROCEDURES = ("hyperventilation", "post-hyperventilation", "photic stimulation",
 
 #: (kind, pattern).  Order matters: the first match wins (post-HV before HV; "sleep spindles" is
 #: an EEG feature, not a state).
-PATTERNS: tuple[tuple[str, re.Pattern], ...] = tuple((k, re.compile(p, re.IGNORECASE)) for k, p in (
-    ("comment", r"spindle|vertex|k[\s-]?complex"),
-    ("post-hyperventilation", r"post[\s_-]*(hv|hyperv|hpv)|after[\s_-]*(hv|hyperv)|"
-                              r"(hv|hyperventilation)[\s_-]*recovery"),
-    ("hyperventilation", r"(^|[^a-z])hv([^a-z]|$)|hyperv|(^|[^a-z])hpv([^a-z]|$)|overbreath"),
-    ("photic stimulation", r"photic|(^|[^a-z])photo|(^|[^a-z])ips([^a-z]|$)|flash|strobe|"
-                           r"light[\s_-]*stim|(^|[^a-z])ls\s*\d+\s*hz|^\s*\d+(\.\d+)?\s*hz\s*$"),
-    ("seizure", r"(^|[^a-z])sz([^a-z]|$)|seizure|(^|[^a-z])ictal"),
-    ("eyes open", r"eyes?[\s_-]*(are[\s_-]*)?open|(^|[^a-z])eo([^a-z]|$)"),
-    ("eyes closed", r"eyes?[\s_-]*(are[\s_-]*)?(closed?|closing|shut)|(^|[^a-z])ec([^a-z]|$)"),
-    ("awake", r"awake|awaken|(^|[^a-z])wake|arous"),
-    ("asleep", r"asleep|sleep|drows|(^|[^a-z])nap([^a-z]|$)|(^|[^a-z])stage\s*(n?[1-4]|rem)"),
-    ("task", r"count|arithmetic|calculat|reading|(^|[^a-z])read([^a-z]|$)|talk|speak|recit|"
-             r"(^|[^a-z])task"),
-))
+PATTERNS: tuple[tuple[str, re.Pattern], ...] = tuple(
+    (k, re.compile(p, re.IGNORECASE))
+    for k, p in (
+        ("comment", r"spindle|vertex|k[\s-]?complex"),
+        (
+            "post-hyperventilation",
+            r"post[\s_-]*(hv|hyperv|hpv)|after[\s_-]*(hv|hyperv)|"
+            r"(hv|hyperventilation)[\s_-]*recovery",
+        ),
+        ("hyperventilation", r"(^|[^a-z])hv([^a-z]|$)|hyperv|(^|[^a-z])hpv([^a-z]|$)|overbreath"),
+        (
+            "photic stimulation",
+            r"photic|(^|[^a-z])photo|(^|[^a-z])ips([^a-z]|$)|flash|strobe|"
+            r"light[\s_-]*stim|(^|[^a-z])ls\s*\d+\s*hz|^\s*\d+(\.\d+)?\s*hz\s*$",
+        ),
+        ("seizure", r"(^|[^a-z])sz([^a-z]|$)|seizure|(^|[^a-z])ictal"),
+        ("eyes open", r"eyes?[\s_-]*(are[\s_-]*)?open|(^|[^a-z])eo([^a-z]|$)"),
+        ("eyes closed", r"eyes?[\s_-]*(are[\s_-]*)?(closed?|closing|shut)|(^|[^a-z])ec([^a-z]|$)"),
+        ("awake", r"awake|awaken|(^|[^a-z])wake|arous"),
+        ("asleep", r"asleep|sleep|drows|(^|[^a-z])nap([^a-z]|$)|(^|[^a-z])stage\s*(n?[1-4]|rem)"),
+        (
+            "task",
+            r"count|arithmetic|calculat|reading|(^|[^a-z])read([^a-z]|$)|talk|speak|recit|"
+            r"(^|[^a-z])task",
+        ),
+    )
+)
 #: The end of a marked run ("HV END", "photic off", "SZ END").
-END_PATTERN = re.compile(r"(^|[^a-z])(end|ende|stop|off|over|finish(ed)?|done)([^a-z]|$)",
-                         re.IGNORECASE)
+END_PATTERN = re.compile(
+    r"(^|[^a-z])(end|ende|stop|off|over|finish(ed)?|done)([^a-z]|$)", re.IGNORECASE
+)
 #: The start of a marked run ("HV START", "photic on").
 START_PATTERN = re.compile(r"(^|[^a-z])(start|begin|beginning|on)([^a-z]|$)", re.IGNORECASE)
 #: Kinds whose markers end a state span.
@@ -52,8 +65,12 @@ BOUNDARY_KINDS = ("eyes open", "eyes closed", "awake", "asleep", "task") + PROCE
 #: post-hyperventilation, longer when post-HV markers say so.
 POST_HV_MIN_S = 60.0
 #: Alias -> canonical state (selection by "EC"/"EO" means eyes closed/open).
-ALIASES = {"ec": "eyes closed", "eo": "eyes open", "eyes closed": "eyes closed",
-           "eyes open": "eyes open"}
+ALIASES = {
+    "ec": "eyes closed",
+    "eo": "eyes open",
+    "eyes closed": "eyes closed",
+    "eyes open": "eyes open",
+}
 
 
 @dataclass(frozen=True)
@@ -168,23 +185,33 @@ def procedure_spans(annotations, end_s: float) -> list[Span]:
     hv = [s for s in spans if s.kind == "hyperventilation"]
     post = [s for s in spans if s.kind == "post-hyperventilation"]
     for h in hv:
-        after = [p for p in post if p.start >= h.stop - 1e-9 and not any(
-            h.stop < h2.start <= p.start for h2 in hv)]
+        after = [
+            p
+            for p in post
+            if p.start >= h.stop - 1e-9 and not any(h.stop < h2.start <= p.start for h2 in hv)
+        ]
         if after:
             p = min(after, key=lambda s: s.start)
             post.remove(p)
-            post.append(Span(h.stop, max(p.stop, min(h.stop + POST_HV_MIN_S, end_s)),
-                             p.kind, p.label))
+            post.append(
+                Span(h.stop, max(p.stop, min(h.stop + POST_HV_MIN_S, end_s)), p.kind, p.label)
+            )
         else:
-            post.append(Span(h.stop, min(h.stop + POST_HV_MIN_S, end_s),
-                             "post-hyperventilation", f"after {h.label}"))
+            post.append(
+                Span(
+                    h.stop,
+                    min(h.stop + POST_HV_MIN_S, end_s),
+                    "post-hyperventilation",
+                    f"after {h.label}",
+                )
+            )
     spans = [s for s in spans if s.kind != "post-hyperventilation"] + post
     return _merge([s for s in spans if s.stop > s.start])
 
 
 def _ended_later(ann, j: int, kind: str) -> bool:
     """True when an explicit end marker of ``kind`` follows index ``j`` before a new start."""
-    for _, _, t, k in ann[j + 1:]:
+    for _, _, t, k in ann[j + 1 :]:
         if k == kind:
             if END_PATTERN.search(t):
                 return True
@@ -255,10 +282,10 @@ def state_spans(annotations, wanted: str, end_s: float) -> list[Span]:
         if dur > 0:
             stop = onset + dur
         elif kind in BOUNDARY_KINDS:
-            later = [o for o, _, _, k in ann[i + 1:] if k in BOUNDARY_KINDS and o > onset]
+            later = [o for o, _, _, k in ann[i + 1 :] if k in BOUNDARY_KINDS and o > onset]
             stop = later[0] if later else end_s
         else:
-            later = [o for o, _, _, _ in ann[i + 1:] if o > onset]
+            later = [o for o, _, _, _ in ann[i + 1 :] if o > onset]
             stop = later[0] if later else end_s
         out.append(Span(max(onset, 0.0), min(stop, end_s), kind, text))
     return out
@@ -300,10 +327,27 @@ def subtract(spans: list[Span], remove: list[Span]) -> tuple[list[Span], list[di
                 nxt.append(Span(b, s.stop, s.kind, s.label))
         kept = nxt
         if overlap > 0:
-            excluded.append({"kind": r.kind, "label": r.label, "start_s": round(r.start, 3),
-                             "stop_s": round(r.stop, 3), "overlap_s": round(overlap, 3)})
+            excluded.append(
+                {
+                    "kind": r.kind,
+                    "label": r.label,
+                    "start_s": round(r.start, 3),
+                    "stop_s": round(r.stop, 3),
+                    "overlap_s": round(overlap, 3),
+                }
+            )
     return sorted(kept, key=lambda s: s.start), excluded
 
 
-__all__ = ["Span", "classify", "procedure_spans", "state_spans", "subtract", "canonical_state",
-           "PROCEDURES", "PATTERNS", "BOUNDARY_KINDS", "POST_HV_MIN_S"]
+__all__ = [
+    "Span",
+    "classify",
+    "procedure_spans",
+    "state_spans",
+    "subtract",
+    "canonical_state",
+    "PROCEDURES",
+    "PATTERNS",
+    "BOUNDARY_KINDS",
+    "POST_HV_MIN_S",
+]

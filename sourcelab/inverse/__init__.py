@@ -9,5 +9,12 @@
 from .operators import inverse_operator, roi_power_matrices, roi_rows
 from .sloreta import SourceOperator, point_source_peaks, sloreta_operator, source_power
 
-__all__ = ["SourceOperator", "inverse_operator", "point_source_peaks", "roi_power_matrices",
-           "roi_rows", "sloreta_operator", "source_power"]
+__all__ = [
+    "SourceOperator",
+    "inverse_operator",
+    "point_source_peaks",
+    "roi_power_matrices",
+    "roi_rows",
+    "sloreta_operator",
+    "source_power",
+]

@@ -18,8 +18,9 @@ from .sloreta import SourceOperator, sloreta_operator
 
 def _sloreta(model: HeadModel, orientation: str, lambda2: float) -> SourceOperator:
     if orientation == "fixed":
-        return sloreta_operator(model.gain, lambda2=lambda2, orientation="fixed",
-                                normals=model.src_nn)
+        return sloreta_operator(
+            model.gain, lambda2=lambda2, orientation="fixed", normals=model.src_nn
+        )
     return sloreta_operator(model.gain, lambda2=lambda2, orientation="free")
 
 
@@ -31,18 +32,33 @@ def _mne_kernel(model: HeadModel, orientation: str, lambda2: float, method: str)
 
     info = make_info(256.0, average_reference=True)
     fwd = to_mne_forward(model, info)
-    noise_cov = mne.Covariance(np.eye(len(model.ch_names)) * 1e-12, info["ch_names"],
-                               info["bads"], info["projs"], nfree=1_000_000, verbose="error")
+    noise_cov = mne.Covariance(
+        np.eye(len(model.ch_names)) * 1e-12,
+        info["ch_names"],
+        info["bads"],
+        info["projs"],
+        nfree=1_000_000,
+        verbose="error",
+    )
     fixed = orientation == "fixed"
-    inv = mne.minimum_norm.make_inverse_operator(info, fwd, noise_cov, loose=0.0 if fixed else 1.0,
-                                                 depth=None, fixed=fixed, verbose="error")
-    evoked = mne.EvokedArray(np.eye(len(model.ch_names)) * 1e-6, info, tmin=0.0,
-                             verbose="error")  # one µV per electrode: the kernel per µV
-    stc = mne.minimum_norm.apply_inverse(evoked, inv, lambda2=lambda2, method=method,
-                                         pick_ori=None if fixed else "vector", verbose="error")
+    inv = mne.minimum_norm.make_inverse_operator(
+        info, fwd, noise_cov, loose=0.0 if fixed else 1.0, depth=None, fixed=fixed, verbose="error"
+    )
+    evoked = mne.EvokedArray(
+        np.eye(len(model.ch_names)) * 1e-6, info, tmin=0.0, verbose="error"
+    )  # one µV per electrode: the kernel per µV
+    stc = mne.minimum_norm.apply_inverse(
+        evoked,
+        inv,
+        lambda2=lambda2,
+        method=method,
+        pick_ori=None if fixed else "vector",
+        verbose="error",
+    )
     k = stc.data.reshape(-1, len(model.ch_names))
-    return SourceOperator(kernel=k, orientation=orientation, lambda2=lambda2,
-                          n_src=model.n_src, method=method)
+    return SourceOperator(
+        kernel=k, orientation=orientation, lambda2=lambda2, n_src=model.n_src, method=method
+    )
 
 
 def _eloreta(model, orientation, lambda2):
@@ -58,8 +74,9 @@ METHODS = {"sLORETA": _sloreta, "eLORETA": _eloreta, "dSPM": _dspm}
 assert tuple(METHODS) == INVERSE_METHODS  # one list of method names (constants)
 
 
-def make_operator(model: HeadModel, *, method: str = "sLORETA", orientation: str = "fixed",
-                  lambda2: float = 1 / 9) -> SourceOperator:
+def make_operator(
+    model: HeadModel, *, method: str = "sLORETA", orientation: str = "fixed", lambda2: float = 1 / 9
+) -> SourceOperator:
     """Build the source operator for ``method`` on ``model``.
 
     Parameters

@@ -39,8 +39,9 @@ def inverse_operator(method: str, orientation: str, lambda2: float):
     from ..headmodel import load_head_model
     from .methods import make_operator
 
-    return make_operator(load_head_model(), method=method, orientation=orientation,
-                         lambda2=float(lambda2))
+    return make_operator(
+        load_head_model(), method=method, orientation=orientation, lambda2=float(lambda2)
+    )
 
 
 def roi_rows(op, vertices) -> np.ndarray:

@@ -33,6 +33,7 @@ from ..errors import InputError
 from ..headmodel.model import fixed_gain
 from ..spectra import average_reference_projector
 
+
 def whitener(noise_cov: np.ndarray | None, n_ch: int, *, rtol: float = 1e-10) -> np.ndarray:
     """Whitener for average-referenced data, shape (rank, n_ch).
 
@@ -123,9 +124,14 @@ def _svd_whitened(gain: np.ndarray, noise_cov: np.ndarray | None, lambda2: float
     return w, u, s, vt, f, scale2
 
 
-def sloreta_operator(gain: np.ndarray, *, lambda2: float, orientation: str = "fixed",
-                   normals: np.ndarray | None = None,
-                   noise_cov: np.ndarray | None = None) -> SourceOperator:
+def sloreta_operator(
+    gain: np.ndarray,
+    *,
+    lambda2: float,
+    orientation: str = "fixed",
+    normals: np.ndarray | None = None,
+    noise_cov: np.ndarray | None = None,
+) -> SourceOperator:
     """Build the sLORETA source operator (the standardised kernel and its metadata).
 
     Parameters
@@ -182,8 +188,9 @@ def sloreta_operator(gain: np.ndarray, *, lambda2: float, orientation: str = "fi
         inv_sqrt = np.einsum("sak,sk,sbk->sab", vec, 1.0 / np.sqrt(eig), vec)
         kernel = np.einsum("sab,sbc->sac", inv_sqrt, kernel.reshape(n_src, 3, -1))
         kernel = kernel.reshape(3 * n_src, -1)
-    return SourceOperator(kernel=kernel, orientation=orientation, lambda2=float(lambda2),
-                         n_src=n_src)
+    return SourceOperator(
+        kernel=kernel, orientation=orientation, lambda2=float(lambda2), n_src=n_src
+    )
 
 
 def source_power(op: SourceOperator, csd: np.ndarray) -> np.ndarray:
@@ -215,9 +222,15 @@ def source_power(op: SourceOperator, csd: np.ndarray) -> np.ndarray:
     return out[0] if single else out
 
 
-def point_source_peaks(gain: np.ndarray, *, lambda2: float, orientation: str = "fixed",
-                              normals: np.ndarray | None = None, orientations=None,
-                              chunk: int = 512) -> np.ndarray:
+def point_source_peaks(
+    gain: np.ndarray,
+    *,
+    lambda2: float,
+    orientation: str = "fixed",
+    normals: np.ndarray | None = None,
+    orientations=None,
+    chunk: int = 512,
+) -> np.ndarray:
     """For each source, where a noise-free unit source there has its sLORETA peak.
 
     Pushes a unit source at every location through forward and inverse (column ``j`` of the
@@ -254,8 +267,9 @@ def point_source_peaks(gain: np.ndarray, *, lambda2: float, orientation: str = "
         if orientation == "fixed":
             data = g[:, idx]
         else:
-            data = np.einsum("cjk,jk->cj", g.reshape(g.shape[0], n_src, 3)[:, idx],
-                             orientations[idx])
+            data = np.einsum(
+                "cjk,jk->cj", g.reshape(g.shape[0], n_src, 3)[:, idx], orientations[idx]
+            )
         est = op.kernel @ data
         if op.n_comp == 3:
             power = (est**2).reshape(n_src, 3, -1).sum(1)

@@ -19,15 +19,42 @@ Benjamini Y, Hochberg Y (1995).  J R Stat Soc B 57:289-300.
 
 from .calibration import calibration_report, calibration_summary, plot_calibration
 from .fit import NormsFit, entry_values, fit_norms, norms_from_tables
-from .io import (COLUMNS, FORMAT_VERSION, NA, Norms, check_norms, normalise_condition, read_norms,
-                 write_norms)
+from .io import (
+    COLUMNS,
+    FORMAT_VERSION,
+    NA,
+    Norms,
+    check_norms,
+    normalise_condition,
+    read_norms,
+    write_norms,
+)
 from .transforms import TRANSFORMS, get_transform, transform_for_measure
 from .zscore import NormRows, apply_norms, bh_adjust, chance_summary, match_norms, zscore
 
 __all__ = [
-    "COLUMNS", "FORMAT_VERSION", "NA", "TRANSFORMS", "NormRows", "Norms", "NormsFit",
-    "apply_norms", "bh_adjust", "calibration_report", "calibration_summary", "chance_summary",
-    "check_norms", "entry_values", "fit_norms", "get_transform", "match_norms",
-    "normalise_condition", "norms_from_tables", "plot_calibration", "read_norms",
-    "transform_for_measure", "write_norms", "zscore",
+    "COLUMNS",
+    "FORMAT_VERSION",
+    "NA",
+    "TRANSFORMS",
+    "NormRows",
+    "Norms",
+    "NormsFit",
+    "apply_norms",
+    "bh_adjust",
+    "calibration_report",
+    "calibration_summary",
+    "chance_summary",
+    "check_norms",
+    "entry_values",
+    "fit_norms",
+    "get_transform",
+    "match_norms",
+    "normalise_condition",
+    "norms_from_tables",
+    "plot_calibration",
+    "read_norms",
+    "transform_for_measure",
+    "write_norms",
+    "zscore",
 ]

@@ -28,8 +28,11 @@ def _moments(r: np.ndarray) -> tuple[float, float, float]:
         # scipy warns when n > 5000 (p less accurate); irrelevant at cohort sizes
         warnings.simplefilter("ignore", UserWarning)
         p = stats.shapiro(r).pvalue
-    return (float(stats.skew(r, bias=False)), float(stats.kurtosis(r, fisher=True, bias=False)),
-            float(p))
+    return (
+        float(stats.skew(r, bias=False)),
+        float(stats.kurtosis(r, fisher=True, bias=False)),
+        float(p),
+    )
 
 
 def calibration_report(fit) -> pd.DataFrame:
@@ -55,11 +58,18 @@ def calibration_report(fit) -> pd.DataFrame:
         z = fit.loo_z[mem, j]
         z = z[np.isfinite(z)]
         sk, ku, p = _moments(fit.resid[kept, j])
-        recs.append({"n": int(kept.sum()), "n_excluded": int(fit.excluded[mem, j].sum()),
-                     "skewness": sk, "excess_kurtosis": ku, "shapiro_p": p,
-                     "loo_n": int(z.size),
-                     "loo_frac_1.96": float(np.mean(np.abs(z) > 1.96)) if z.size else np.nan,
-                     "loo_frac_2.58": float(np.mean(np.abs(z) > 2.58)) if z.size else np.nan})
+        recs.append(
+            {
+                "n": int(kept.sum()),
+                "n_excluded": int(fit.excluded[mem, j].sum()),
+                "skewness": sk,
+                "excess_kurtosis": ku,
+                "shapiro_p": p,
+                "loo_n": int(z.size),
+                "loo_frac_1.96": float(np.mean(np.abs(z) > 1.96)) if z.size else np.nan,
+                "loo_frac_2.58": float(np.mean(np.abs(z) > 2.58)) if z.size else np.nan,
+            }
+        )
     rep = pd.concat([t[list(KEY_COLUMNS)].reset_index(drop=True), pd.DataFrame(recs)], axis=1)
     rep.attrs["overall"] = calibration_summary(fit, rep)
     return rep
@@ -85,23 +95,30 @@ def calibration_summary(fit, report: pd.DataFrame | None = None) -> dict:
         ``median_excess_kurtosis`` and ``frac_rows_shapiro_p<0.05`` (expected ~0.05 if Gaussian).
     """
     members = fit.row_members
-    zs = np.concatenate([fit.loo_z[m, j] for j, m in zip(fit.row_quantity, members)]) \
-        if len(members) else np.array([])
+    zs = (
+        np.concatenate([fit.loo_z[m, j] for j, m in zip(fit.row_quantity, members)])
+        if len(members)
+        else np.array([])
+    )
     zs = zs[np.isfinite(zs)]
-    out = {"n_controls": len(fit.participants), "n_rows": int(len(fit.norms.table)),
-           "loo_n": int(zs.size),
-           "loo_frac_1.96": float(np.mean(np.abs(zs) > 1.96)) if zs.size else np.nan,
-           "loo_frac_2.58": float(np.mean(np.abs(zs) > 2.58)) if zs.size else np.nan,
-           "expected_frac_1.96": float(THRESHOLDS[1.96]),
-           "expected_frac_2.58": float(THRESHOLDS[2.58]),
-           "loo_sd": float(np.std(zs, ddof=1)) if zs.size > 1 else np.nan,
-           "n_excluded_values": int(fit.excluded.sum())}
+    out = {
+        "n_controls": len(fit.participants),
+        "n_rows": int(len(fit.norms.table)),
+        "loo_n": int(zs.size),
+        "loo_frac_1.96": float(np.mean(np.abs(zs) > 1.96)) if zs.size else np.nan,
+        "loo_frac_2.58": float(np.mean(np.abs(zs) > 2.58)) if zs.size else np.nan,
+        "expected_frac_1.96": float(THRESHOLDS[1.96]),
+        "expected_frac_2.58": float(THRESHOLDS[2.58]),
+        "loo_sd": float(np.std(zs, ddof=1)) if zs.size > 1 else np.nan,
+        "n_excluded_values": int(fit.excluded.sum()),
+    }
     if report is not None and len(report):
         out["median_abs_skewness"] = float(np.nanmedian(np.abs(report["skewness"])))
         out["median_excess_kurtosis"] = float(np.nanmedian(report["excess_kurtosis"]))
         p = report["shapiro_p"].to_numpy(dtype=float)
-        out["frac_rows_shapiro_p<0.05"] = float(np.mean(p[np.isfinite(p)] < 0.05)) \
-            if np.isfinite(p).any() else np.nan
+        out["frac_rows_shapiro_p<0.05"] = (
+            float(np.mean(p[np.isfinite(p)] < 0.05)) if np.isfinite(p).any() else np.nan
+        )
     return out
 
 
@@ -130,14 +147,22 @@ def plot_calibration(fit, *, figure=None):
     zs = np.concatenate([fit.loo_z[m, j] for j, m in zip(fit.row_quantity, fit.row_members)])
     zs = zs[np.isfinite(zs)]
     grid = np.linspace(-4.5, 4.5, 301)
-    ax[0, 0].hist(np.clip(zs, -4.5, 4.5), bins=60, density=True, color="0.6",
-                  label=f"controls, leave-one-out (n={zs.size})")
+    ax[0, 0].hist(
+        np.clip(zs, -4.5, 4.5),
+        bins=60,
+        density=True,
+        color="0.6",
+        label=f"controls, leave-one-out (n={zs.size})",
+    )
     ax[0, 0].plot(grid, stats.norm.pdf(grid), color="k", lw=1.5, label="N(0, 1)")
     for s in (-1.96, 1.96):
         ax[0, 0].axvline(s, color="k", ls=":", lw=1)
-    ax[0, 0].set(xlabel="z", ylabel="density",
-                 title=f"|z|>1.96: {100 * ov['loo_frac_1.96']:.1f} % (expected 5.0 %), "
-                       f"|z|>2.58: {100 * ov['loo_frac_2.58']:.1f} % (1.0 %)")
+    ax[0, 0].set(
+        xlabel="z",
+        ylabel="density",
+        title=f"|z|>1.96: {100 * ov['loo_frac_1.96']:.1f} % (expected 5.0 %), "
+        f"|z|>2.58: {100 * ov['loo_frac_2.58']:.1f} % (1.0 %)",
+    )
     ax[0, 0].title.set_fontsize(9)
     ax[0, 0].legend(fontsize=8, loc="upper left")
     srt = np.sort(zs)
@@ -145,20 +170,32 @@ def plot_calibration(fit, *, figure=None):
     ax[0, 1].plot(theo, srt, ".", ms=2, color="0.3")
     lim = [min(-4, theo.min(initial=0)), max(4, theo.max(initial=0))]
     ax[0, 1].plot(lim, lim, color="k", lw=1)
-    ax[0, 1].set(xlabel="standard normal quantile", ylabel="leave-one-out z quantile",
-                 title="normal Q-Q plot")
+    ax[0, 1].set(
+        xlabel="standard normal quantile",
+        ylabel="leave-one-out z quantile",
+        title="normal Q-Q plot",
+    )
     f196 = rep["loo_frac_1.96"].to_numpy(dtype=float)
     ax[1, 0].hist(100 * f196[np.isfinite(f196)], bins=20, color="0.6")
     ax[1, 0].axvline(5.0, color="k", lw=1.5, label="expected 5 %")
-    ax[1, 0].set(xlabel="controls with leave-one-out |z| > 1.96 (%)", ylabel="norms rows",
-                 title="per-row false-positive rate")
+    ax[1, 0].set(
+        xlabel="controls with leave-one-out |z| > 1.96 (%)",
+        ylabel="norms rows",
+        title="per-row false-positive rate",
+    )
     ax[1, 0].legend(fontsize=8)
     ax[1, 1].scatter(rep["skewness"], rep["excess_kurtosis"], s=8, color="0.3")
     ax[1, 1].axhline(0, color="k", lw=1)
     ax[1, 1].axvline(0, color="k", lw=1)
-    ax[1, 1].set(xlabel="skewness (transformed, age-adjusted)", ylabel="excess kurtosis",
-                 title="shape of each row's residuals")
-    fig.suptitle(f"Norms calibration: {ov['n_controls']} controls, {ov['n_rows']} rows, "
-                 f"condition {fit.norms.condition}", fontsize=11)
+    ax[1, 1].set(
+        xlabel="skewness (transformed, age-adjusted)",
+        ylabel="excess kurtosis",
+        title="shape of each row's residuals",
+    )
+    fig.suptitle(
+        f"Norms calibration: {ov['n_controls']} controls, {ov['n_rows']} rows, "
+        f"condition {fit.norms.condition}",
+        fontsize=11,
+    )
     fig.tight_layout()
     return fig

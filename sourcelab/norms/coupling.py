@@ -54,9 +54,16 @@ from .transforms import get_transform
 
 #: Transform per pair / edge measure (see the module docstring).
 TRANSFORM_FOR_COUPLING: dict[str, str] = {
-    "msc": "fisher_sqrt", "lagcoh": "fisher_sqrt", "lps": "fisher_sqrt",
-    "imcoh": "fisher", "wpli": "fisher", "aec_orth": "fisher", "asymmetry": "fisher",
-    "wpli2_debiased": "identity", "phase_sd_deg": "log10", "lag_ms": "identity",
+    "msc": "fisher_sqrt",
+    "lagcoh": "fisher_sqrt",
+    "lps": "fisher_sqrt",
+    "imcoh": "fisher",
+    "wpli": "fisher",
+    "aec_orth": "fisher",
+    "asymmetry": "fisher",
+    "wpli2_debiased": "identity",
+    "phase_sd_deg": "log10",
+    "lag_ms": "identity",
     "phase_deg": "circular_deg",
 }
 #: Measures fitted without the robust exclusion of outlying controls.  The exclusion rule
@@ -70,8 +77,10 @@ TRANSFORM_FOR_COUPLING: dict[str, str] = {
 UNTRIMMED_MEASURES = ("phase_deg", "lag_ms", "aec_orth")
 #: Measures whose values are angles in degrees (differences wrap with this period).
 CIRCULAR_PERIOD: dict[str, float] = {
-    m: get_transform(t).period for m, t in TRANSFORM_FOR_COUPLING.items()
-    if get_transform(t).period is not None}
+    m: get_transform(t).period
+    for m, t in TRANSFORM_FOR_COUPLING.items()
+    if get_transform(t).period is not None
+}
 #: Norms kinds of the coupling tables and the table column that names the quantity.
 COUPLING_KINDS = {"pair": {"name": "pair"}, "edge": {"atlas": "atlas", "name": "edge"}}
 
@@ -97,8 +106,9 @@ def transform_for_coupling(measure: str) -> str:
     try:
         return TRANSFORM_FOR_COUPLING[measure]
     except (KeyError, TypeError):
-        raise InputError(f"measure: {measure!r} is not one of "
-                         f"{sorted(TRANSFORM_FOR_COUPLING)}") from None
+        raise InputError(
+            f"measure: {measure!r} is not one of {sorted(TRANSFORM_FOR_COUPLING)}"
+        ) from None
 
 
 def transformed(values, measure: str) -> np.ndarray:

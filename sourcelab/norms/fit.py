@@ -39,10 +39,12 @@ log = logging.getLogger("sourcelab")
 
 #: Columns each kind's analysis table needs, and the columns naming its (atlas, name,
 #: hemisphere); None: "n/a".
-_NEED = {"roi": (("atlas", "roi", "hemisphere"), ("atlas", "roi", "hemisphere")),
-         "sensor": (("channel",), (None, "channel", None)),
-         "pair": (("pair",), (None, "pair", None)),
-         "edge": (("atlas", "edge"), ("atlas", "edge", None))}
+_NEED = {
+    "roi": (("atlas", "roi", "hemisphere"), ("atlas", "roi", "hemisphere")),
+    "sensor": (("channel",), (None, "channel", None)),
+    "pair": (("pair",), (None, "pair", None)),
+    "edge": (("atlas", "edge"), ("atlas", "edge", None)),
+}
 #: Order of the tables in a cohort entry after (participant_id, age).
 ENTRY_KINDS = ("roi", "sensor", "pair", "edge")
 
@@ -158,8 +160,7 @@ def _table_items(table: pd.DataFrame, kind: str, pid: str):
     missing = [c for c in need + ("band", "measure", "value") if c not in table.columns]
     if missing:
         raise InputError(f"participant {pid!r}: {kind} table lacks columns {missing}")
-    atlas, name, hemi = (table[c].astype(str).tolist() if c else [NA] * len(table)
-                         for c in cols)
+    atlas, name, hemi = (table[c].astype(str).tolist() if c else [NA] * len(table) for c in cols)
     bands = table["band"].astype(str).tolist()
     measures = table["measure"].astype(str).tolist()
     vals = pd.to_numeric(table["value"], errors="coerce").to_numpy(dtype=float)
@@ -171,8 +172,7 @@ def _table_items(table: pd.DataFrame, kind: str, pid: str):
     return out
 
 
-def entry_values(pid, age, roi_table, sensor_table, pair_table=None,
-                 coupling_table=None) -> dict:
+def entry_values(pid, age, roi_table, sensor_table, pair_table=None, coupling_table=None) -> dict:
     """Check one cohort entry and return ``{quantity key: transformed value}``.
 
     Parameters
@@ -201,8 +201,9 @@ def entry_values(pid, age, roi_table, sensor_table, pair_table=None,
     try:
         a = float(age)
     except (TypeError, ValueError):
-        raise InputError(f"participant {pid!r}: age must be a number of years, got {age!r}"
-                         ) from None
+        raise InputError(
+            f"participant {pid!r}: age must be a number of years, got {age!r}"
+        ) from None
     if not (math.isfinite(a) and a > 0):
         raise InputError(f"participant {pid!r}: age must be > 0 years, got {age!r}")
     items: dict = {}
@@ -229,9 +230,13 @@ def entry_values(pid, age, roi_table, sensor_table, pair_table=None,
             # a coupling value on the edge of its range (coherence 1 between bridged
             # electrodes) is left out of the norms as missing, not fatal for the participant
             tv[idx] = [_forward_or_nan(tr, v) for v in vals[idx]]
-            log.warning("participant %s: %d %s %s values on the edge of their range left out",
-                        pid, int(np.isnan(tv[idx]).sum() - np.isnan(vals[idx]).sum()), kind,
-                        measure)
+            log.warning(
+                "participant %s: %d %s %s values on the edge of their range left out",
+                pid,
+                int(np.isnan(tv[idx]).sum() - np.isnan(vals[idx]).sum()),
+                kind,
+                measure,
+            )
     return dict(zip(keys, tv.tolist()))
 
 
@@ -248,11 +253,19 @@ def _default_bins(ages: np.ndarray, min_n: int) -> tuple[float, ...]:
     return (float(ages.min()), *[float(np.round(e, 1)) for e in inner], float(ages.max()))
 
 
-def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
-              model: str = "regression", degree: int | str = "auto",
-              bins: Sequence[float] | None = None, min_n_per_bin: int = 20,
-              robust: bool = True, cohort_info: dict | None = None,
-              notes: Sequence[str] = ()) -> NormsFit:
+def fit_norms(
+    entries: Iterable,
+    *,
+    fingerprint: Fingerprint,
+    condition: str,
+    model: str = "regression",
+    degree: int | str = "auto",
+    bins: Sequence[float] | None = None,
+    min_n_per_bin: int = 20,
+    robust: bool = True,
+    cohort_info: dict | None = None,
+    notes: Sequence[str] = (),
+) -> NormsFit:
     """Build norms and keep the leave-one-out material for calibration.
 
     Parameters
@@ -289,35 +302,45 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
     fitters = {"regression": None, "binned": None}
     if model not in fitters:
         raise InputError(f"model: {model!r} is not one of {sorted(fitters)}")
-    if not (degree == "auto" or (isinstance(degree, (int, np.integer))
-                                 and 0 <= degree <= MAX_DEGREE)):
+    if not (
+        degree == "auto" or (isinstance(degree, (int, np.integer)) and 0 <= degree <= MAX_DEGREE)
+    ):
         raise InputError(f"degree: need 'auto' or an integer 0..{MAX_DEGREE}, got {degree!r}")
     if not (isinstance(min_n_per_bin, (int, np.integer)) and min_n_per_bin >= 3):
         raise InputError(f"min_n_per_bin: need an integer >= 3, got {min_n_per_bin!r}")
     index: dict[tuple, int] = {}
     ids: list[str] = []
     ages: list[float] = []
-    per: list[tuple[np.ndarray, np.ndarray]] = []   # (quantity indices, values) per person
+    per: list[tuple[np.ndarray, np.ndarray]] = []  # (quantity indices, values) per person
     for entry in entries:
         try:
             pid, age, *tables = entry
             if not 2 <= len(tables) <= len(ENTRY_KINDS):
                 raise ValueError
         except (TypeError, ValueError):
-            raise InputError("entries: each entry must be (participant_id, age, roi_table, "
-                             "sensor_table[, pair_table, coupling_table])") from None
+            raise InputError(
+                "entries: each entry must be (participant_id, age, roi_table, "
+                "sensor_table[, pair_table, coupling_table])"
+            ) from None
         vals = entry_values(pid, age, *tables)
         if pid in ids:
             raise InputError(f"participant {pid!r} appears twice")
         ids.append(pid)
         ages.append(float(age))
-        per.append((np.fromiter((index.setdefault(k, len(index)) for k in vals),
-                                dtype=np.int64, count=len(vals)),
-                    np.fromiter(vals.values(), dtype=float, count=len(vals))))
+        per.append(
+            (
+                np.fromiter(
+                    (index.setdefault(k, len(index)) for k in vals), dtype=np.int64, count=len(vals)
+                ),
+                np.fromiter(vals.values(), dtype=float, count=len(vals)),
+            )
+        )
     n, q = len(ids), len(index)
     if n < min_n_per_bin:
-        raise InputError(f"need at least {min_n_per_bin} analysed participants (the minimum per "
-                         f"norms row), got {n}")
+        raise InputError(
+            f"need at least {min_n_per_bin} analysed participants (the minimum per "
+            f"norms row), got {n}"
+        )
     age = np.asarray(ages)
     Y = np.full((n, q), np.nan)
     for i, (cols, v) in enumerate(per):
@@ -325,8 +348,13 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
     keys = list(index)
     qt = pd.DataFrame(keys, columns=list(QUANTITY_COLUMNS))
     qt["transform"] = [transform_for(k, m) for k, m in zip(qt["kind"], qt["measure"])]
-    untrimmed = np.array([k in COUPLING_KINDS and m in UNTRIMMED_MEASURES
-                          for k, m in zip(qt["kind"], qt["measure"])], dtype=bool)
+    untrimmed = np.array(
+        [
+            k in COUPLING_KINDS and m in UNTRIMMED_MEASURES
+            for k, m in zip(qt["kind"], qt["measure"])
+        ],
+        dtype=bool,
+    )
     # circular quantities: model the deviation from the cohort's circular mean direction
     # (wrapped into one period); the direction is added back to b0 below
     offset = np.zeros(q)
@@ -343,12 +371,16 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
     if model == "regression":
         if degree == "auto":
             degree, scores = select_degree(age, Y, robust=robust)
-            log.info("norms: regression degree %d chosen by leave-one-out CV (%s)", degree,
-                     {k: round(v, 4) for k, v in scores.items()})
+            log.info(
+                "norms: regression degree %d chosen by leave-one-out CV (%s)",
+                degree,
+                {k: round(v, 4) for k, v in scores.items()},
+            )
         ranges = [(float(age.min()), float(age.max()), int(degree))]
     else:
-        edges = tuple(float(e) for e in (bins if bins is not None
-                                         else _default_bins(age, min_n_per_bin)))
+        edges = tuple(
+            float(e) for e in (bins if bins is not None else _default_bins(age, min_n_per_bin))
+        )
         if len(edges) < 2 or any(b <= a for a, b in zip(edges, edges[1:])) or edges[0] < 0:
             raise InputError(f"bins: need increasing edges >= 0 in years, got {edges}")
         ranges = [(lo, hi, 0) for lo, hi in zip(edges, edges[1:])]
@@ -362,8 +394,13 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
         last = r_i == len(ranges) - 1
         inb = (age >= lo) & ((age <= hi) if last else (age < hi))
         if model == "binned" and inb.sum() < min_n_per_bin:
-            log.warning("norms: bin %g-%g y has %d controls (< %d): omitted", lo, hi,
-                        int(inb.sum()), min_n_per_bin)
+            log.warning(
+                "norms: bin %g-%g y has %d controls (< %d): omitted",
+                lo,
+                hi,
+                int(inb.sum()),
+                min_n_per_bin,
+            )
             continue
         for j in range(q):
             f = fit_poly(age[inb], Y[inb, j], deg, robust=robust and not untrimmed[j])
@@ -371,42 +408,80 @@ def fit_norms(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
                 skipped += 1
                 continue
             coef = np.zeros(MAX_DEGREE + 1)
-            coef[:deg + 1] = f.coef
+            coef[: deg + 1] = f.coef
             v = pack_v(xtx_inverse(age[inb][f.kept], deg))  # the controls this row kept
             if offset[j]:
                 coef[0] = get_transform(qt["transform"][j]).difference(coef[0] + offset[j], 0.0)
-            rows.append((*keys[j], lo, hi, model, deg, qt["transform"][j], *coef, f.sd, f.n,
-                         f.n - deg - 1, *v))
+            rows.append(
+                (
+                    *keys[j],
+                    lo,
+                    hi,
+                    model,
+                    deg,
+                    qt["transform"][j],
+                    *coef,
+                    f.sd,
+                    f.n,
+                    f.n - deg - 1,
+                    *v,
+                )
+            )
             row_q.append(j)
             members.append(inb)
             resid[inb, j] = f.resid
             loo[inb, j] = f.loo_z
             excl[inb, j] = np.isfinite(Y[inb, j]) & ~f.kept
     if skipped:
-        log.warning("norms: %d rows omitted (fewer than %d usable controls)", skipped,
-                    min_n_per_bin)
+        log.warning(
+            "norms: %d rows omitted (fewer than %d usable controls)", skipped, min_n_per_bin
+        )
     if not rows:
         raise InputError("no norms rows could be built (too few controls per row)")
     table = pd.DataFrame(rows, columns=list(COLUMNS))
-    cohort = {"n": n, "age_min": float(age.min()), "age_max": float(age.max()),
-              "age_median": float(np.median(age)), "model": model,
-              "robust": bool(robust), "n_excluded_values": int(excl.sum())}
+    cohort = {
+        "n": n,
+        "age_min": float(age.min()),
+        "age_max": float(age.max()),
+        "age_median": float(np.median(age)),
+        "model": model,
+        "robust": bool(robust),
+        "n_excluded_values": int(excl.sum()),
+    }
     if model == "regression":
         cohort["degree"] = int(degree)
     cohort.update(cohort_info or {})
-    norms = Norms(table=table, fingerprint=fingerprint, condition=condition, cohort=cohort,
-                  notes=tuple(notes))
-    return NormsFit(norms=norms, participants=tuple(ids), ages=age, quantities=qt, values=Y,
-                    resid=resid, loo_z=loo, excluded=excl, row_quantity=np.asarray(row_q),
-                    row_members=np.asarray(members, dtype=bool).reshape(len(members), n),
-                    degree_scores=scores)
+    norms = Norms(
+        table=table, fingerprint=fingerprint, condition=condition, cohort=cohort, notes=tuple(notes)
+    )
+    return NormsFit(
+        norms=norms,
+        participants=tuple(ids),
+        ages=age,
+        quantities=qt,
+        values=Y,
+        resid=resid,
+        loo_z=loo,
+        excluded=excl,
+        row_quantity=np.asarray(row_q),
+        row_members=np.asarray(members, dtype=bool).reshape(len(members), n),
+        degree_scores=scores,
+    )
 
 
-def norms_from_tables(entries: Iterable, *, fingerprint: Fingerprint, condition: str,
-                model: str = "regression", degree: int | str = "auto",
-                bins: Sequence[float] | None = None, min_n_per_bin: int = 20,
-                robust: bool = True, cohort_info: dict | None = None,
-                notes: Sequence[str] = ()) -> Norms:
+def norms_from_tables(
+    entries: Iterable,
+    *,
+    fingerprint: Fingerprint,
+    condition: str,
+    model: str = "regression",
+    degree: int | str = "auto",
+    bins: Sequence[float] | None = None,
+    min_n_per_bin: int = 20,
+    robust: bool = True,
+    cohort_info: dict | None = None,
+    notes: Sequence[str] = (),
+) -> Norms:
     """Norms from a reference cohort's tables; see :func:`fit_norms` for the parameters.
 
     Parameters
@@ -426,6 +501,15 @@ def norms_from_tables(entries: Iterable, *, fingerprint: Fingerprint, condition:
     Norms
         ``fit_norms(...).norms``.
     """
-    return fit_norms(entries, fingerprint=fingerprint, condition=condition, model=model,
-                     degree=degree, bins=bins, min_n_per_bin=min_n_per_bin, robust=robust,
-                     cohort_info=cohort_info, notes=notes).norms
+    return fit_norms(
+        entries,
+        fingerprint=fingerprint,
+        condition=condition,
+        model=model,
+        degree=degree,
+        bins=bins,
+        min_n_per_bin=min_n_per_bin,
+        robust=robust,
+        cohort_info=cohort_info,
+        notes=notes,
+    ).norms

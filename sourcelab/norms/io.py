@@ -54,8 +54,12 @@ NA = "n/a"
 
 KINDS = ("roi", "sensor", "pair", "edge")
 #: Measures allowed per kind (band power for ROIs and sensors; coupling for pairs and edges).
-KIND_MEASURES = {"roi": tuple(TRANSFORM_FOR_MEASURE), "sensor": tuple(TRANSFORM_FOR_MEASURE),
-                 "pair": tuple(TRANSFORM_FOR_COUPLING), "edge": tuple(TRANSFORM_FOR_COUPLING)}
+KIND_MEASURES = {
+    "roi": tuple(TRANSFORM_FOR_MEASURE),
+    "sensor": tuple(TRANSFORM_FOR_MEASURE),
+    "pair": tuple(TRANSFORM_FOR_COUPLING),
+    "edge": tuple(TRANSFORM_FOR_COUPLING),
+}
 MODELS = ("binned", "regression")
 #: Columns identifying a row's quantity (without the age range).
 QUANTITY_COLUMNS = ("kind", "atlas", "name", "hemisphere", "band", "measure")
@@ -65,8 +69,9 @@ COEF_COLUMNS = tuple(f"b{k}" for k in range(MAX_DEGREE + 1))
 #: Upper triangle of ``(XᵀX)⁻¹`` of a row's kept controls (design ``[1, x, x², x³]``,
 #: ``x = log10 age``): what the predictive p-value's leverage needs (format 2).
 V_COLUMNS = tuple(f"v{j}{k}" for j in range(MAX_DEGREE + 1) for k in range(j, MAX_DEGREE + 1))
-COLUMNS = (KEY_COLUMNS + ("model", "degree", "transform") + COEF_COLUMNS + ("sd", "n", "df")
-           + V_COLUMNS)
+COLUMNS = (
+    KEY_COLUMNS + ("model", "degree", "transform") + COEF_COLUMNS + ("sd", "n", "df") + V_COLUMNS
+)
 _STR_COLUMNS = QUANTITY_COLUMNS + ("model", "transform")
 _FLOAT_COLUMNS = ("age_min", "age_max") + COEF_COLUMNS + ("sd",) + V_COLUMNS
 _INT_COLUMNS = ("degree", "n", "df")
@@ -135,8 +140,11 @@ class Norms:
         where = self.path if self.path is not None else "norms"
         if not isinstance(self.fingerprint, Fingerprint):
             raise InputError("norms fingerprint must be a sourcelab Fingerprint", path=where)
-        if not isinstance(self.condition, str) or not self.condition.strip() \
-                or "\n" in self.condition:
+        if (
+            not isinstance(self.condition, str)
+            or not self.condition.strip()
+            or "\n" in self.condition
+        ):
             raise InputError("norms condition must be a non-empty single line", path=where)
         for note in self.notes:
             if "\n" in note:
@@ -152,17 +160,23 @@ class Norms:
             JSON-serialisable: ``path`` (str or None), ``sha256``, ``fingerprint`` (dict),
             ``condition``, ``cohort`` (a copy) and ``n_rows``.
         """
-        return {"path": None if self.path is None else str(self.path), "sha256": self.sha256,
-                "fingerprint": self.fingerprint.to_dict(), "condition": self.condition,
-                "cohort": dict(self.cohort), "n_rows": int(len(self.table))}
+        return {
+            "path": None if self.path is None else str(self.path),
+            "sha256": self.sha256,
+            "fingerprint": self.fingerprint.to_dict(),
+            "condition": self.condition,
+            "cohort": dict(self.cohort),
+            "n_rows": int(len(self.table)),
+        }
 
 
 def _bad(msg: str, path, line: int | None = None):
     return InputError(msg if line is None else f"line {line}: {msg}", path=path)
 
 
-def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None = None
-                   ) -> pd.DataFrame:
+def validate_table(
+    table: pd.DataFrame, *, path="norms", first_line: int | None = None
+) -> pd.DataFrame:
     """Check a norms table and return a clean copy with canonical dtypes and column order.
 
     Parameters
@@ -207,8 +221,11 @@ def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None 
         vals = t[c].tolist()
         for i, v in enumerate(vals):
             if not isinstance(v, str) or not v.strip() or any(ch in v for ch in "\t\r\n"):
-                raise _bad(f"{row_name(i)}column {c!r} must be a non-empty text without tabs, "
-                           f"got {v!r}", path, where(i))
+                raise _bad(
+                    f"{row_name(i)}column {c!r} must be a non-empty text without tabs, got {v!r}",
+                    path,
+                    where(i),
+                )
         t[c] = t[c].astype(object)
     for c in _FLOAT_COLUMNS + _INT_COLUMNS:
         try:
@@ -218,8 +235,9 @@ def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None 
         bad = np.flatnonzero(~np.isfinite(arr))
         if bad.size:
             i = int(bad[0])
-            raise _bad(f"{row_name(i)}column {c!r} is NaN or not finite ({t[c].iloc[i]!r})",
-                       path, where(i))
+            raise _bad(
+                f"{row_name(i)}column {c!r} is NaN or not finite ({t[c].iloc[i]!r})", path, where(i)
+            )
         if c in _INT_COLUMNS:
             if np.any(arr != np.round(arr)):
                 i = int(np.flatnonzero(arr != np.round(arr))[0])
@@ -228,14 +246,21 @@ def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None 
         else:
             t[c] = arr
     kind_ok = t["kind"].isin(KINDS)
-    measure_ok = pd.Series([m in KIND_MEASURES.get(k, ()) for k, m in
-                            zip(t["kind"].tolist(), t["measure"].tolist())], index=t.index)
+    measure_ok = pd.Series(
+        [m in KIND_MEASURES.get(k, ()) for k, m in zip(t["kind"].tolist(), t["measure"].tolist())],
+        index=t.index,
+    )
     checks = [
         (~kind_ok, f"kind must be one of {list(KINDS)}"),
-        (~measure_ok, "measure must be one of "
-         + "; ".join(f"{k}: {sorted(set(v))}" for k, v in KIND_MEASURES.items())),
-        (~t["transform"].isin(tuple(TRANSFORMS)),
-         f"unknown transform; allowed: {sorted(TRANSFORMS)}"),
+        (
+            ~measure_ok,
+            "measure must be one of "
+            + "; ".join(f"{k}: {sorted(set(v))}" for k, v in KIND_MEASURES.items()),
+        ),
+        (
+            ~t["transform"].isin(tuple(TRANSFORMS)),
+            f"unknown transform; allowed: {sorted(TRANSFORMS)}",
+        ),
         (~t["model"].isin(MODELS), f"model must be one of {list(MODELS)}"),
         (~(t["sd"] > 0), "sd must be > 0"),
         (t["n"] < 2, "n must be >= 2"),
@@ -243,39 +268,64 @@ def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None 
         (~(t["age_max"] > t["age_min"]), "age_max must be > age_min"),
         ((t["degree"] < 0) | (t["degree"] > MAX_DEGREE), f"degree must be 0..{MAX_DEGREE}"),
         ((t["model"] == "binned") & (t["degree"] != 0), "binned rows must have degree 0"),
-        ((t["model"] == "regression") & ~(t["age_min"] > 0),
-         "regression rows need age_min > 0 (the model uses log10 age)"),
-        ((t["kind"] == "sensor") & ((t["atlas"] != NA) | (t["hemisphere"] != NA)),
-         f"sensor rows must have atlas and hemisphere {NA!r}"),
-        ((t["kind"] == "pair") & ((t["atlas"] != NA) | (t["hemisphere"] != NA)),
-         f"pair rows must have atlas and hemisphere {NA!r}"),
-        ((t["kind"] == "edge") & ((t["atlas"] == NA) | (t["hemisphere"] != NA)),
-         f"edge rows must name their atlas and have hemisphere {NA!r}"),
+        (
+            (t["model"] == "regression") & ~(t["age_min"] > 0),
+            "regression rows need age_min > 0 (the model uses log10 age)",
+        ),
+        (
+            (t["kind"] == "sensor") & ((t["atlas"] != NA) | (t["hemisphere"] != NA)),
+            f"sensor rows must have atlas and hemisphere {NA!r}",
+        ),
+        (
+            (t["kind"] == "pair") & ((t["atlas"] != NA) | (t["hemisphere"] != NA)),
+            f"pair rows must have atlas and hemisphere {NA!r}",
+        ),
+        (
+            (t["kind"] == "edge") & ((t["atlas"] == NA) | (t["hemisphere"] != NA)),
+            f"edge rows must name their atlas and have hemisphere {NA!r}",
+        ),
     ]
     deg = t["degree"].to_numpy()
     for k, c in enumerate(COEF_COLUMNS):
-        checks.append((pd.Series((k > deg) & (t[c].to_numpy() != 0)),
-                       f"coefficient {c} must be 0 for rows of degree < {k}"))
+        checks.append(
+            (
+                pd.Series((k > deg) & (t[c].to_numpy() != 0)),
+                f"coefficient {c} must be 0 for rows of degree < {k}",
+            )
+        )
     checks.append((t["df"] != t["n"] - t["degree"] - 1, "df must equal n - degree - 1"))
     checks.append((~(t["v00"] > 0), "v00 must be > 0"))
     for c in V_COLUMNS:
         j, k = int(c[1]), int(c[2])
-        checks.append((pd.Series((np.maximum(j, k) > deg) & (t[c].to_numpy() != 0)),
-                       f"{c} must be 0 for rows of degree < {max(j, k)}"))
-    checks.append((pd.Series(~_leading_blocks_positive(t)),
-                   "the (XᵀX)⁻¹ entries v.. must form a positive-definite matrix"))
+        checks.append(
+            (
+                pd.Series((np.maximum(j, k) > deg) & (t[c].to_numpy() != 0)),
+                f"{c} must be 0 for rows of degree < {max(j, k)}",
+            )
+        )
+    checks.append(
+        (
+            pd.Series(~_leading_blocks_positive(t)),
+            "the (XᵀX)⁻¹ entries v.. must form a positive-definite matrix",
+        )
+    )
     for mask, msg in checks:
         bad = np.flatnonzero(np.asarray(mask))
         if bad.size:
             i = int(bad[0])
-            shown = {c: t[c].iloc[i] for c in ("kind", "name", "band", "measure", "transform",
-                                                "sd", "degree", "model")}
+            shown = {
+                c: t[c].iloc[i]
+                for c in ("kind", "name", "band", "measure", "transform", "sd", "degree", "model")
+            }
             raise _bad(f"{row_name(i)}{msg} ({_fmt_row(shown)})", path, where(i))
     dup = t.duplicated(list(KEY_COLUMNS), keep="first")
     if dup.any():
         i = int(np.flatnonzero(dup.to_numpy())[0])
-        raise _bad(f"{row_name(i)}duplicate row for "
-                   f"{_fmt_row({c: t[c].iloc[i] for c in KEY_COLUMNS})}", path, where(i))
+        raise _bad(
+            f"{row_name(i)}duplicate row for {_fmt_row({c: t[c].iloc[i] for c in KEY_COLUMNS})}",
+            path,
+            where(i),
+        )
     s = t.sort_values(list(QUANTITY_COLUMNS) + ["age_min"], kind="stable")
     same = np.ones(len(s) - 1, dtype=bool)
     for c in QUANTITY_COLUMNS:
@@ -287,8 +337,12 @@ def validate_table(table: pd.DataFrame, *, path="norms", first_line: int | None 
         j = int(overlap[0])
         i = int(s.index[j + 1])
         q = {c: s[c].iloc[j] for c in QUANTITY_COLUMNS}
-        raise _bad(f"{row_name(i)}overlapping age ranges [{amin[j]}, {amax[j]}] and "
-                   f"[{amin[j + 1]}, {amax[j + 1]}] for {_fmt_row(q)}", path, where(i))
+        raise _bad(
+            f"{row_name(i)}overlapping age ranges [{amin[j]}, {amax[j]}] and "
+            f"[{amin[j + 1]}, {amax[j + 1]}] for {_fmt_row(q)}",
+            path,
+            where(i),
+        )
     return t
 
 
@@ -305,7 +359,7 @@ def _leading_blocks_positive(t: pd.DataFrame) -> np.ndarray:
         sel = deg == d
         if not 0 <= d <= MAX_DEGREE:
             continue
-        block = m[sel][:, :d + 1, :d + 1]
+        block = m[sel][:, : d + 1, : d + 1]
         ok[sel] = np.all(np.linalg.eigvalsh(block) > 0, axis=1) if block.size else True
     return ok
 
@@ -324,8 +378,10 @@ def _fmt_value(v) -> str:
 
 #: Column descriptions of a norms table (the JSON sidecar, BIDS style).
 COLUMN_NOTES = {
-    "kind": {"Description": "roi, sensor, pair (electrode pair) or edge (ROI pair of a network "
-                            "or lobe atlas)"},
+    "kind": {
+        "Description": "roi, sensor, pair (electrode pair) or edge (ROI pair of a network "
+        "or lobe atlas)"
+    },
     "atlas": {"Description": "atlas of roi and edge rows; n/a for sensor and pair rows"},
     "name": {"Description": "ROI, channel, electrode pair or edge"},
     "hemisphere": {"Description": "left, right or both (roi rows); n/a for the other kinds"},
@@ -333,18 +389,30 @@ COLUMN_NOTES = {
     "measure": {"Description": "band-power or coupling measure"},
     "age_min": {"Description": "youngest age the row applies to", "Units": "years"},
     "age_max": {"Description": "oldest age the row applies to", "Units": "years"},
-    "model": {"Description": "binned (mean and SD of an age bin) or regression (polynomial in "
-                             "log10 age)"},
+    "model": {
+        "Description": "binned (mean and SD of an age bin) or regression (polynomial in log10 age)"
+    },
     "degree": {"Description": "polynomial degree, 0-3"},
-    "transform": {"Description": "transform of the value the model describes (log10, logit, "
-                                 "fisher_sqrt, ...; see FORMAT.md)"},
-    **{f"b{k}": {"Description": f"coefficient of x^{k} of the mean, x = log10(age in years)",
-                 "Units": "transformed scale"} for k in range(MAX_DEGREE + 1)},
+    "transform": {
+        "Description": "transform of the value the model describes (log10, logit, "
+        "fisher_sqrt, ...; see FORMAT.md)"
+    },
+    **{
+        f"b{k}": {
+            "Description": f"coefficient of x^{k} of the mean, x = log10(age in years)",
+            "Units": "transformed scale",
+        }
+        for k in range(MAX_DEGREE + 1)
+    },
     "sd": {"Description": "residual standard deviation", "Units": "transformed scale"},
     "n": {"Description": "reference participants behind the row"},
     "df": {"Description": "residual degrees of freedom"},
-    **{c: {"Description": f"element {c[1]},{c[2]} of (X'X)^-1 of the row's design [1, x, x^2, "
-                          "x^3]"} for c in V_COLUMNS},
+    **{
+        c: {
+            "Description": f"element {c[1]},{c[2]} of (X'X)^-1 of the row's design [1, x, x^2, x^3]"
+        }
+        for c in V_COLUMNS
+    },
 }
 
 
@@ -403,20 +471,30 @@ def format_norms_sidecar(norms: Norms) -> str:
     """
     from .. import __version__
 
-    meta = {"FormatVersion": FORMAT_VERSION,
-            "GeneratedBy": [{"Name": "sourcelab", "Version": __version__}],
-            "fingerprint": norms.fingerprint.to_dict(), "condition": norms.condition.strip(),
-            "cohort": norms.cohort, "notes": list(norms.notes)}
-    return json.dumps({**COLUMN_NOTES, FORMAT_NAME: meta}, indent=2, sort_keys=False,
-                      ensure_ascii=False) + "\n"
+    meta = {
+        "FormatVersion": FORMAT_VERSION,
+        "GeneratedBy": [{"Name": "sourcelab", "Version": __version__}],
+        "fingerprint": norms.fingerprint.to_dict(),
+        "condition": norms.condition.strip(),
+        "cohort": norms.cohort,
+        "notes": list(norms.notes),
+    }
+    return (
+        json.dumps(
+            {**COLUMN_NOTES, FORMAT_NAME: meta}, indent=2, sort_keys=False, ensure_ascii=False
+        )
+        + "\n"
+    )
 
 
 def _format_legacy(norms: Norms) -> str:
     """Format 2 text (commented header), as sourcelab 0.2 wrote it; for reading tests."""
-    lines = [f"# {FORMAT_NAME} {LEGACY_FORMAT_VERSION}",
-             f"# fingerprint: {norms.fingerprint.to_json()}",
-             f"# condition: {norms.condition.strip()}",
-             f"# cohort: {json.dumps(norms.cohort, sort_keys=True)}"]
+    lines = [
+        f"# {FORMAT_NAME} {LEGACY_FORMAT_VERSION}",
+        f"# fingerprint: {norms.fingerprint.to_json()}",
+        f"# condition: {norms.condition.strip()}",
+        f"# cohort: {json.dumps(norms.cohort, sort_keys=True)}",
+    ]
     lines += [f"# note: {n}" for n in norms.notes]
     return "\n".join(lines) + "\n" + format_norms(norms)
 
@@ -445,8 +523,11 @@ def write_norms(norms: Norms, path: str | Path) -> Norms:
     if path.exists() and path.is_dir():
         raise InputError("norms output path is a folder", path=path)
     if path.suffix.lower() == ".json":
-        raise InputError("norms output path: the table needs a suffix other than .json (its "
-                         "sidecar is <name>.json)", path=path)
+        raise InputError(
+            "norms output path: the table needs a suffix other than .json (its "
+            "sidecar is <name>.json)",
+            path=path,
+        )
     path.parent.mkdir(parents=True, exist_ok=True)
     atomic_write_text(sidecar_path(path), format_norms_sidecar(norms))
     atomic_write_text(path, format_norms(norms))
@@ -459,25 +540,32 @@ def _parse_sidecar(path: Path) -> dict:
 
     side = sidecar_path(path)
     if not side.is_file():
-        raise InputError(f"no sidecar {side.name} beside the norms table (it holds the "
-                         "pipeline fingerprint and condition; copy it with the table)", path=path)
+        raise InputError(
+            f"no sidecar {side.name} beside the norms table (it holds the "
+            "pipeline fingerprint and condition; copy it with the table)",
+            path=path,
+        )
     raw = read_bytes_bounded(side, max_bytes=NORMS_MAX_BYTES, what="norms sidecar")
     data = loads_json(raw, where=side, max_depth=_HEADER_MAX_DEPTH + 2, what="norms sidecar")
     meta = data.get(FORMAT_NAME) if isinstance(data, dict) else None
     if not isinstance(meta, dict):
         raise InputError(f"not a sourcelab norms sidecar (no {FORMAT_NAME!r} object)", path=side)
     if meta.get("FormatVersion") != FORMAT_VERSION:
-        raise InputError(f"unsupported norms format version ({meta.get('FormatVersion')!r}); "
-                         f"this sourcelab reads versions {LEGACY_FORMAT_VERSION} and "
-                         f"{FORMAT_VERSION}; rebuild the norms with this sourcelab", path=side)
+        raise InputError(
+            f"unsupported norms format version ({meta.get('FormatVersion')!r}); "
+            f"this sourcelab reads versions {LEGACY_FORMAT_VERSION} and "
+            f"{FORMAT_VERSION}; rebuild the norms with this sourcelab",
+            path=side,
+        )
     for key in ("fingerprint", "condition"):
         if key not in meta:
             raise InputError(f"sidecar has no {key!r}", path=side)
     try:
         fp = Fingerprint.from_dict(meta["fingerprint"])
     except (AttributeError, InputError, TypeError, ValueError) as exc:
-        raise InputError(f"sidecar fingerprint is not a valid pipeline fingerprint ({exc})",
-                         path=side) from None
+        raise InputError(
+            f"sidecar fingerprint is not a valid pipeline fingerprint ({exc})", path=side
+        ) from None
     cohort = meta.get("cohort", {})
     if not isinstance(cohort, dict):
         raise InputError("sidecar cohort must be a JSON object", path=side)
@@ -486,27 +574,43 @@ def _parse_sidecar(path: Path) -> dict:
         raise InputError("sidecar notes must be a list of texts", path=side)
     if not isinstance(meta["condition"], str):
         raise InputError("sidecar condition must be a text", path=side)
-    return {"fingerprint": fp, "condition": meta["condition"], "cohort": cohort,
-            "notes": tuple(notes)}
+    return {
+        "fingerprint": fp,
+        "condition": meta["condition"],
+        "cohort": cohort,
+        "notes": tuple(notes),
+    }
 
 
 def _parse_header(lines: list[str], path) -> tuple[dict, int]:
     if not lines or lines[0].rstrip() != f"# {FORMAT_NAME} {LEGACY_FORMAT_VERSION}":
         got = lines[0].rstrip()[:60] if lines else "<empty file>"
         if lines and got.startswith(f"# {FORMAT_NAME} "):
-            raise _bad(f"unsupported norms format version ({got!r}); this sourcelab reads "
-                       f"versions {LEGACY_FORMAT_VERSION} and {FORMAT_VERSION}; rebuild the "
-                       "norms with this sourcelab", path, 1)
-        raise _bad(f"not a sourcelab norms file: first line must be the column names "
-                   f"({COLUMNS[0]}, {COLUMNS[1]}, ...) or '# {FORMAT_NAME} "
-                   f"{LEGACY_FORMAT_VERSION}', got {got!r}", path, 1)
+            raise _bad(
+                f"unsupported norms format version ({got!r}); this sourcelab reads "
+                f"versions {LEGACY_FORMAT_VERSION} and {FORMAT_VERSION}; rebuild the "
+                "norms with this sourcelab",
+                path,
+                1,
+            )
+        raise _bad(
+            f"not a sourcelab norms file: first line must be the column names "
+            f"({COLUMNS[0]}, {COLUMNS[1]}, ...) or '# {FORMAT_NAME} "
+            f"{LEGACY_FORMAT_VERSION}', got {got!r}",
+            path,
+            1,
+        )
     head: dict = {"note": []}
     i = 1
     while i < len(lines) and lines[i].startswith("#"):
         m = _HEADER_RE.match(lines[i])
         if not m or m.group(1) not in _HEADER_KEYS:
-            raise _bad(f"bad header line {lines[i][:60]!r}; expected '# key: value' with key "
-                       f"one of {list(_HEADER_KEYS)}", path, i + 1)
+            raise _bad(
+                f"bad header line {lines[i][:60]!r}; expected '# key: value' with key "
+                f"one of {list(_HEADER_KEYS)}",
+                path,
+                i + 1,
+            )
         key, value = m.group(1), m.group(2).strip()
         if key == "note":
             head["note"].append(value)
@@ -522,11 +626,13 @@ def _parse_header(lines: list[str], path) -> tuple[dict, int]:
 
     fp_text, fp_line = head["fingerprint"]
     try:
-        fp = Fingerprint.from_dict(loads_json(fp_text, max_depth=_HEADER_MAX_DEPTH,
-                                              what="header fingerprint"))
+        fp = Fingerprint.from_dict(
+            loads_json(fp_text, max_depth=_HEADER_MAX_DEPTH, what="header fingerprint")
+        )
     except (AttributeError, InputError) as exc:
-        raise _bad(f"header fingerprint is not a valid pipeline fingerprint ({exc})",
-                   path, fp_line) from None
+        raise _bad(
+            f"header fingerprint is not a valid pipeline fingerprint ({exc})", path, fp_line
+        ) from None
     cohort: dict = {}
     if "cohort" in head:
         c_text, c_line = head["cohort"]
@@ -536,8 +642,12 @@ def _parse_header(lines: list[str], path) -> tuple[dict, int]:
             raise _bad(f"header cohort is not JSON ({exc})", path, c_line) from None
         if not isinstance(cohort, dict):
             raise _bad("header cohort must be a JSON object", path, c_line)
-    return {"fingerprint": fp, "condition": head["condition"][0], "cohort": cohort,
-            "notes": tuple(head["note"])}, i
+    return {
+        "fingerprint": fp,
+        "condition": head["condition"][0],
+        "cohort": cohort,
+        "notes": tuple(head["note"]),
+    }, i
 
 
 def read_norms(path: str | Path) -> Norms:
@@ -570,9 +680,9 @@ def read_norms(path: str | Path) -> Norms:
         raise InputError("norms file is not UTF-8 text", path=path) from None
     lines = text.splitlines()
     if lines and lines[0].split("\t")[0] == COLUMNS[0] and not lines[0].startswith("#"):
-        head, i = _parse_sidecar(path), 0        # format 3: plain table + JSON sidecar
+        head, i = _parse_sidecar(path), 0  # format 3: plain table + JSON sidecar
     else:
-        head, i = _parse_header(lines, path)     # format 2: commented header
+        head, i = _parse_header(lines, path)  # format 2: commented header
     if i >= len(lines):
         raise _bad("no column header line after the comments", path)
     names = lines[i].split("\t")
@@ -581,11 +691,12 @@ def read_norms(path: str | Path) -> Norms:
         raise _bad(f"missing columns {missing}; required: {list(COLUMNS)}", path, i + 1)
     extra = [c for c in names if c not in COLUMNS]
     if extra or len(set(names)) != len(names):
-        raise _bad(f"unknown or repeated columns {extra or names}; allowed: {list(COLUMNS)}",
-                   path, i + 1)
+        raise _bad(
+            f"unknown or repeated columns {extra or names}; allowed: {list(COLUMNS)}", path, i + 1
+        )
     rows = []
     first = i + 2
-    for k, line in enumerate(lines[i + 1:]):
+    for k, line in enumerate(lines[i + 1 :]):
         if not line.strip():
             raise _bad("blank line in the table", path, first + k)
         cells = line.split("\t")
@@ -602,8 +713,15 @@ def read_norms(path: str | Path) -> Norms:
                 raise _bad(f"column {c!r} is not a number ({v!r})", path, first + k) from None
         table[c] = vals
     table = validate_table(table, path=path, first_line=first)
-    return Norms(table=table, fingerprint=head["fingerprint"], condition=head["condition"],
-                 cohort=head["cohort"], notes=head["notes"], path=path, sha256=sha256_file(path))
+    return Norms(
+        table=table,
+        fingerprint=head["fingerprint"],
+        condition=head["condition"],
+        cohort=head["cohort"],
+        notes=head["notes"],
+        path=path,
+        sha256=sha256_file(path),
+    )
 
 
 def check_norms(path: str | Path) -> str:
@@ -629,19 +747,26 @@ def check_norms(path: str | Path) -> str:
     nm = read_norms(path)
     t = nm.table
     fp = nm.fingerprint
-    lines = [f"{nm.path}: valid sourcelab norms file", f"sha256: {nm.sha256}",
-             f"condition: {nm.condition}",
-             "cohort: " + ", ".join(f"{k}={v}" for k, v in sorted(nm.cohort.items())),
-             f"fingerprint: method={fp.method} orientation={fp.orientation} "
-             f"lambda2={fp.lambda2:g} reference={fp.reference} epoch_s={fp.epoch_s:g} "
-             f"pipeline_version={fp.pipeline_version} headmodel={fp.headmodel_sha256[:12]}",
-             "fingerprint bands: " + ", ".join(f"{b[0]} {b[1]:g}-{b[2]:g} Hz" for b in fp.bands)]
+    lines = [
+        f"{nm.path}: valid sourcelab norms file",
+        f"sha256: {nm.sha256}",
+        f"condition: {nm.condition}",
+        "cohort: " + ", ".join(f"{k}={v}" for k, v in sorted(nm.cohort.items())),
+        f"fingerprint: method={fp.method} orientation={fp.orientation} "
+        f"lambda2={fp.lambda2:g} reference={fp.reference} epoch_s={fp.epoch_s:g} "
+        f"pipeline_version={fp.pipeline_version} headmodel={fp.headmodel_sha256[:12]}",
+        "fingerprint bands: " + ", ".join(f"{b[0]} {b[1]:g}-{b[2]:g} Hz" for b in fp.bands),
+    ]
     lines += [f"note: {n}" for n in nm.notes]
-    lines.append(f"rows: {len(t)} ("
-                 + ", ".join(f"{k} {m}: {c}" for (k, m), c in
-                             t.groupby(["kind", "model"]).size().items()) + ")")
-    lines.append(f"sd (transformed scale): {t['sd'].min():.4g} to {t['sd'].max():.4g}; "
-                 f"n per row: {int(t['n'].min())} to {int(t['n'].max())}")
+    lines.append(
+        f"rows: {len(t)} ("
+        + ", ".join(f"{k} {m}: {c}" for (k, m), c in t.groupby(["kind", "model"]).size().items())
+        + ")"
+    )
+    lines.append(
+        f"sd (transformed scale): {t['sd'].min():.4g} to {t['sd'].max():.4g}; "
+        f"n per row: {int(t['n'].min())} to {int(t['n'].max())}"
+    )
     fp_bands = [b[0] for b in fp.bands]
     problems = 0
     for kind, g in t.groupby("kind"):
@@ -652,8 +777,10 @@ def check_norms(path: str | Path) -> str:
             where = ", ".join(f"{a}: {c} {noun}" for a, c in n_roi.items())
         else:
             where = f"{g['name'].nunique()} {'channels' if kind == 'sensor' else 'pairs'}"
-        lines.append(f"{kind}: {where}; bands {bands}; measures {sorted(set(g['measure']))}; "
-                     f"ages {g['age_min'].min():g}-{g['age_max'].max():g} y")
+        lines.append(
+            f"{kind}: {where}; bands {bands}; measures {sorted(set(g['measure']))}; "
+            f"ages {g['age_min'].min():g}-{g['age_max'].max():g} y"
+        )
         missing_bands = sorted(set(fp_bands) - set(g["band"]))
         if missing_bands:
             problems += 1
@@ -670,11 +797,9 @@ def check_norms(path: str | Path) -> str:
         if gaps:
             problems += 1
             lines.append(f"  WARNING {kind}: {gaps} gaps between age ranges")
-        spans = g.groupby(list(QUANTITY_COLUMNS)).agg(lo=("age_min", "min"),
-                                                      hi=("age_max", "max"))
+        spans = g.groupby(list(QUANTITY_COLUMNS)).agg(lo=("age_min", "min"), hi=("age_max", "max"))
         if spans["lo"].nunique() > 1 or spans["hi"].nunique() > 1:
             problems += 1
             lines.append(f"  WARNING {kind}: quantities cover different age spans")
     lines.append("coverage: complete" if not problems else f"coverage: {problems} warnings")
     return "\n".join(lines)
-

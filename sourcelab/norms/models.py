@@ -83,8 +83,15 @@ def _ols(X: np.ndarray, y: np.ndarray):
     return coef, X @ coef, h
 
 
-def fit_poly(age: np.ndarray, y: np.ndarray, degree: int, *, robust: bool = True,
-             threshold: float = 3.5, max_iter: int = 10) -> PolyFit | None:
+def fit_poly(
+    age: np.ndarray,
+    y: np.ndarray,
+    degree: int,
+    *,
+    robust: bool = True,
+    threshold: float = 3.5,
+    max_iter: int = 10,
+) -> PolyFit | None:
     """Fit ``y ~ poly(log10(age), degree)`` with optional robust exclusion of outlying controls.
 
     Parameters
@@ -157,16 +164,16 @@ def fit_poly(age: np.ndarray, y: np.ndarray, degree: int, *, robust: bool = True
     loo_z = np.full(y.shape, np.nan)
     with np.errstate(divide="ignore", invalid="ignore"):
         e_loo = e / (1.0 - h)
-        s2_loo = (rss - e * e_loo) / (n - p - 1)   # deleted residual variance
+        s2_loo = (rss - e * e_loo) / (n - p - 1)  # deleted residual variance
         loo_z[kept] = e_loo / np.sqrt(s2_loo)
     loo_z[finite & ~kept] = resid[finite & ~kept] / sd
     press = float(np.mean(e_loo**2))
-    return PolyFit(coef=coef, sd=float(sd), n=n, kept=kept, resid=resid, loo_z=loo_z,
-                   press=press)
+    return PolyFit(coef=coef, sd=float(sd), n=n, kept=kept, resid=resid, loo_z=loo_z, press=press)
 
 
-def select_degree(age: np.ndarray, Y: np.ndarray, *, degrees=(0, 1, 2, 3), robust: bool = True
-                  ) -> tuple[int, dict[int, float]]:
+def select_degree(
+    age: np.ndarray, Y: np.ndarray, *, degrees=(0, 1, 2, 3), robust: bool = True
+) -> tuple[int, dict[int, float]]:
     """Choose one polynomial degree for all quantities by leave-one-out cross-validation.
 
     The score of a degree is the mean over quantities of ``log(PRESS / PRESS_min)``, where

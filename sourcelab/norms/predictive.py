@@ -78,7 +78,7 @@ def xtx_inverse(age: np.ndarray, degree: int) -> np.ndarray:
     x = design_row(age, np.full(age.size, degree))[:, :p]
     out = np.zeros((MAX_DEGREE + 1, MAX_DEGREE + 1))
     inv = np.linalg.inv(x.T @ x)
-    out[:p, :p] = (inv + inv.T) / 2.0   # exactly symmetric (packed as an upper triangle)
+    out[:p, :p] = (inv + inv.T) / 2.0  # exactly symmetric (packed as an upper triangle)
     return out
 
 

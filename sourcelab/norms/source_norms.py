@@ -111,8 +111,15 @@ class SourceNorms:
         return h_all * n_all / np.maximum(self.n.astype(float), 1.0)
 
 
-def fit_source_models(age: np.ndarray, y: np.ndarray, degree: int, *, robust: bool = True,
-                      threshold: float = 3.5, max_iter: int = 10):
+def fit_source_models(
+    age: np.ndarray,
+    y: np.ndarray,
+    degree: int,
+    *,
+    robust: bool = True,
+    threshold: float = 3.5,
+    max_iter: int = 10,
+):
     """Vectorised polynomial fits in log10(age) for many quantities sharing the controls.
 
     The robust rule is :func:`sourcelab.norms.models.fit_poly`'s (first a MAD screen, then
@@ -156,7 +163,7 @@ def fit_source_models(age: np.ndarray, y: np.ndarray, degree: int, *, robust: bo
     x = np.log10(age) if degree > 0 else np.zeros(n)
     X = np.vander(x, p, increasing=True)
     xtx_inv = np.linalg.inv(X.T @ X)
-    coef = xtx_inv @ X.T @ y                                    # (p, q)
+    coef = xtx_inv @ X.T @ y  # (p, q)
     w = np.ones((n, q))
     if robust:
         cap = n // 4
@@ -188,8 +195,17 @@ def fit_source_models(age: np.ndarray, y: np.ndarray, degree: int, *, robust: bo
     return coef, sd, n_kept.astype(np.int64), xtx_inv
 
 
-def fit_source_norms(age: np.ndarray, values: dict, *, degree: int, bands, fingerprint: dict,
-                     condition: str, vertices: np.ndarray, robust: bool = True) -> SourceNorms:
+def fit_source_norms(
+    age: np.ndarray,
+    values: dict,
+    *,
+    degree: int,
+    bands,
+    fingerprint: dict,
+    condition: str,
+    vertices: np.ndarray,
+    robust: bool = True,
+) -> SourceNorms:
     """Fit per-source norms from a cohort's per-source band power.
 
     Parameters
@@ -224,24 +240,39 @@ def fit_source_norms(age: np.ndarray, values: dict, *, degree: int, bands, finge
         v = np.asarray(values[m], dtype=float)
         n, n_b, n_s = v.shape
         if n_s != len(vertices) or n_b != len(bands):
-            raise InputError(f"source norms: {m} values shape {v.shape} does not match "
-                             f"{len(bands)} bands x {len(vertices)} sources")
+            raise InputError(
+                f"source norms: {m} values shape {v.shape} does not match "
+                f"{len(bands)} bands x {len(vertices)} sources"
+            )
         y = get_transform(transform_for_measure(m)).forward(v).reshape(n, -1)
         c, s, k, xtx_inv = fit_source_models(age, y, degree, robust=robust)
         coefs.append(c.reshape(degree + 1, n_b, n_s).transpose(1, 0, 2))
         sds.append(s.reshape(n_b, n_s))
         ns.append(k.reshape(n_b, n_s))
-    return SourceNorms(vertices=np.asarray(vertices, dtype=np.int32), bands=tuple(bands),
-                       measures=measures,
-                       transforms=tuple(transform_for_measure(m) for m in measures),
-                       degree=int(degree), coef=np.stack(coefs).astype(np.float32),
-                       sd=np.stack(sds).astype(np.float32), n=np.stack(ns).astype(np.int16),
-                       xtx_inv=xtx_inv, age_range=(float(np.min(age)), float(np.max(age))),
-                       fingerprint=dict(fingerprint), condition=str(condition))
+    return SourceNorms(
+        vertices=np.asarray(vertices, dtype=np.int32),
+        bands=tuple(bands),
+        measures=measures,
+        transforms=tuple(transform_for_measure(m) for m in measures),
+        degree=int(degree),
+        coef=np.stack(coefs).astype(np.float32),
+        sd=np.stack(sds).astype(np.float32),
+        n=np.stack(ns).astype(np.int16),
+        xtx_inv=xtx_inv,
+        age_range=(float(np.min(age)), float(np.max(age))),
+        fingerprint=dict(fingerprint),
+        condition=str(condition),
+    )
 
 
-def source_z(norms: SourceNorms, values: np.ndarray, *, age: float, measure: str = "absolute",
-             predictive: bool = True) -> np.ndarray:
+def source_z(
+    norms: SourceNorms,
+    values: np.ndarray,
+    *,
+    age: float,
+    measure: str = "absolute",
+    predictive: bool = True,
+) -> np.ndarray:
     """Per-source z-map of one participant.
 
     Parameters
@@ -279,9 +310,14 @@ def source_z(norms: SourceNorms, values: np.ndarray, *, age: float, measure: str
     sd = norms.sd[k].astype(float)
     if not predictive:
         return (y - mean) / sd
-    out = predictive_t(y.ravel(), mean.ravel(), sd.ravel(), n=norms.n[k].ravel(),
-                       degree=np.full(y.size, norms.degree),
-                       h0=norms.leverage(age)[k].ravel())
+    out = predictive_t(
+        y.ravel(),
+        mean.ravel(),
+        sd.ravel(),
+        n=norms.n[k].ravel(),
+        degree=np.full(y.size, norms.degree),
+        h0=norms.leverage(age)[k].ravel(),
+    )
     return out["z_equivalent"].reshape(y.shape)
 
 
@@ -328,12 +364,18 @@ def write_source_norms(norms: SourceNorms, path: str | Path) -> Path:
 
     path = Path(path)
     arrays = {
-        "format": np.array(FORMAT), "fingerprint": np.array(json.dumps(norms.fingerprint,
-                                                                     sort_keys=True)),
-        "condition": np.array(norms.condition), "vertices": norms.vertices,
-        "bands": np.array(norms.bands), "measures": np.array(norms.measures),
-        "transforms": np.array(norms.transforms), "degree": np.array(norms.degree),
-        "coef": norms.coef, "sd": norms.sd, "n": norms.n, "xtx_inv": norms.xtx_inv,
+        "format": np.array(FORMAT),
+        "fingerprint": np.array(json.dumps(norms.fingerprint, sort_keys=True)),
+        "condition": np.array(norms.condition),
+        "vertices": norms.vertices,
+        "bands": np.array(norms.bands),
+        "measures": np.array(norms.measures),
+        "transforms": np.array(norms.transforms),
+        "degree": np.array(norms.degree),
+        "coef": norms.coef,
+        "sd": norms.sd,
+        "n": norms.n,
+        "xtx_inv": norms.xtx_inv,
         "age_range": np.array(norms.age_range),
     }
     atomic_write_bytes(path, npz_bytes(arrays))
@@ -363,8 +405,21 @@ def read_source_norms(path: str | Path, *, fingerprint: dict | None = None) -> S
     from ..provenance import Fingerprint
 
     path = Path(path)
-    need = ("format", "fingerprint", "condition", "vertices", "bands", "measures",
-            "transforms", "degree", "coef", "sd", "n", "xtx_inv", "age_range")
+    need = (
+        "format",
+        "fingerprint",
+        "condition",
+        "vertices",
+        "bands",
+        "measures",
+        "transforms",
+        "degree",
+        "coef",
+        "sd",
+        "n",
+        "xtx_inv",
+        "age_range",
+    )
     try:
         with np.load(path, allow_pickle=False) as z:
             missing = [k for k in need if k not in z.files]
@@ -381,19 +436,33 @@ def read_source_norms(path: str | Path, *, fingerprint: dict | None = None) -> S
     if fingerprint is not None:
         diffs = Fingerprint.from_dict(fp).differences(Fingerprint.from_dict(fingerprint))
         if diffs:
-            raise InputError("pipeline fingerprint of the source norms differs ("
-                             + "; ".join(diffs) + ")", path=path)
+            raise InputError(
+                "pipeline fingerprint of the source norms differs (" + "; ".join(diffs) + ")",
+                path=path,
+            )
     deg = int(a["degree"])
     n_m, n_b = len(a["measures"]), len(a["bands"])
     n_s = a["vertices"].size
-    if (a["coef"].shape != (n_m, n_b, deg + 1, n_s) or a["sd"].shape != (n_m, n_b, n_s)
-            or a["n"].shape != (n_m, n_b, n_s) or a["xtx_inv"].shape != (deg + 1, deg + 1)):
+    if (
+        a["coef"].shape != (n_m, n_b, deg + 1, n_s)
+        or a["sd"].shape != (n_m, n_b, n_s)
+        or a["n"].shape != (n_m, n_b, n_s)
+        or a["xtx_inv"].shape != (deg + 1, deg + 1)
+    ):
         raise InputError("source norms arrays have inconsistent shapes", path=path)
     if not (np.isfinite(a["sd"]).all() and (a["sd"] > 0).all()):
         raise InputError("source norms: every sd must be finite and > 0", path=path)
-    return SourceNorms(vertices=a["vertices"], bands=tuple(str(b) for b in a["bands"]),
-                       measures=tuple(str(m) for m in a["measures"]),
-                       transforms=tuple(str(t) for t in a["transforms"]), degree=deg,
-                       coef=a["coef"], sd=a["sd"], n=a["n"], xtx_inv=a["xtx_inv"],
-                       age_range=(float(a["age_range"][0]), float(a["age_range"][1])),
-                       fingerprint=fp, condition=str(a["condition"]))
+    return SourceNorms(
+        vertices=a["vertices"],
+        bands=tuple(str(b) for b in a["bands"]),
+        measures=tuple(str(m) for m in a["measures"]),
+        transforms=tuple(str(t) for t in a["transforms"]),
+        degree=deg,
+        coef=a["coef"],
+        sd=a["sd"],
+        n=a["n"],
+        xtx_inv=a["xtx_inv"],
+        age_range=(float(a["age_range"][0]), float(a["age_range"][1])),
+        fingerprint=fp,
+        condition=str(a["condition"]),
+    )

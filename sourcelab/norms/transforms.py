@@ -25,8 +25,9 @@ def _log10(x: np.ndarray) -> np.ndarray:
     x = np.asarray(x, dtype=float)
     bad = np.isfinite(x) & ~(x > 0)
     if bad.any():
-        raise InputError(f"log10 transform: values must be > 0 (absolute power); got "
-                         f"{x[bad][:3].tolist()}")
+        raise InputError(
+            f"log10 transform: values must be > 0 (absolute power); got {x[bad][:3].tolist()}"
+        )
     return np.log10(x)
 
 
@@ -38,8 +39,10 @@ def _logit(x: np.ndarray) -> np.ndarray:
     x = np.asarray(x, dtype=float)
     bad = np.isfinite(x) & ~((x > 0) & (x < 1))
     if bad.any():
-        raise InputError(f"logit transform: values must lie in the open interval (0, 1) "
-                         f"(relative power); got {x[bad][:3].tolist()}")
+        raise InputError(
+            f"logit transform: values must lie in the open interval (0, 1) "
+            f"(relative power); got {x[bad][:3].tolist()}"
+        )
     return np.log(x) - np.log1p(-x)
 
 
@@ -56,8 +59,10 @@ def _fisher(x: np.ndarray) -> np.ndarray:
     x = np.asarray(x, dtype=float)
     bad = np.isfinite(x) & ~(np.abs(x) < 1)
     if bad.any():
-        raise InputError(f"fisher transform: values must lie in (-1, 1) (a correlation-type "
-                         f"measure); got {x[bad][:3].tolist()}")
+        raise InputError(
+            f"fisher transform: values must lie in (-1, 1) (a correlation-type "
+            f"measure); got {x[bad][:3].tolist()}"
+        )
     return np.arctanh(x)
 
 
@@ -65,8 +70,10 @@ def _fisher_sqrt(x: np.ndarray) -> np.ndarray:
     x = np.asarray(x, dtype=float)
     bad = np.isfinite(x) & ~((x >= 0) & (x < 1))
     if bad.any():
-        raise InputError(f"fisher_sqrt transform: values must lie in [0, 1) (a squared "
-                         f"coherence-type measure); got {x[bad][:3].tolist()}")
+        raise InputError(
+            f"fisher_sqrt transform: values must lie in [0, 1) (a squared "
+            f"coherence-type measure); got {x[bad][:3].tolist()}"
+        )
     return np.arctanh(np.sqrt(x))
 
 
@@ -78,8 +85,9 @@ def _fisher_ssqrt(x: np.ndarray) -> np.ndarray:
     x = np.asarray(x, dtype=float)
     bad = np.isfinite(x) & ~(np.abs(x) < 1)
     if bad.any():
-        raise InputError(f"fisher_ssqrt transform: values must lie in (-1, 1); got "
-                         f"{x[bad][:3].tolist()}")
+        raise InputError(
+            f"fisher_ssqrt transform: values must lie in (-1, 1); got {x[bad][:3].tolist()}"
+        )
     return np.arctanh(np.sign(x) * np.sqrt(np.abs(x)))
 
 
@@ -141,8 +149,9 @@ TRANSFORMS: dict[str, Transform] = {
     "fisher_sqrt": Transform("fisher_sqrt", _fisher_sqrt, _tanh_sq, "[0, 1)"),
     "fisher_ssqrt": Transform("fisher_ssqrt", _fisher_ssqrt, _tanh_ssq, "(-1, 1)"),
     # phase angles in degrees: circular differences (period 360)
-    "circular_deg": Transform("circular_deg", _circular_deg, _circular_deg, "angle (degrees)",
-                              period=360.0),
+    "circular_deg": Transform(
+        "circular_deg", _circular_deg, _circular_deg, "angle (degrees)", period=360.0
+    ),
 }
 
 #: The transform used for each measure when norms are built.
@@ -195,8 +204,9 @@ def transform_for_measure(measure: str) -> str:
     try:
         return TRANSFORM_FOR_MEASURE[measure]
     except (KeyError, TypeError):
-        raise InputError(f"measure: {measure!r} is not one of "
-                         f"{sorted(TRANSFORM_FOR_MEASURE)}") from None
+        raise InputError(
+            f"measure: {measure!r} is not one of {sorted(TRANSFORM_FOR_MEASURE)}"
+        ) from None
 
 
 def forward(values, name: str) -> np.ndarray:

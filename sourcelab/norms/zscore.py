@@ -30,12 +30,20 @@ log = logging.getLogger("sourcelab")
 _KIND_COLUMNS = {
     "roi": {"atlas": "atlas", "name": "roi", "hemisphere": "hemisphere"},
     "sensor": {"name": "channel"},
-    "pair": {"name": "pair"},                       # coupling pair_table (sourcelab.coupling)
-    "edge": {"atlas": "atlas", "name": "edge"},     # coupling coupling_table
+    "pair": {"name": "pair"},  # coupling pair_table (sourcelab.coupling)
+    "edge": {"atlas": "atlas", "name": "edge"},  # coupling coupling_table
 }
 #: Columns added by :func:`apply_norms`.
-ADDED_COLUMNS = ("z_equivalent", "p", "fdr_q", "fdr", "norm_n", "no_norm", "extrapolated",
-                 "condition_mismatch")
+ADDED_COLUMNS = (
+    "z_equivalent",
+    "p",
+    "fdr_q",
+    "fdr",
+    "norm_n",
+    "no_norm",
+    "extrapolated",
+    "condition_mismatch",
+)
 
 
 def bh_adjust(p: np.ndarray) -> np.ndarray:
@@ -75,8 +83,14 @@ def _keys(table: pd.DataFrame, kind: str) -> list[tuple]:
     parts = []
     for c in ("atlas", "name", "hemisphere"):
         parts.append(table[cols[c]].astype(str).tolist() if c in cols else [NA] * len(table))
-    return list(zip([kind] * len(table), *parts, table["band"].astype(str).tolist(),
-                    table["measure"].astype(str).tolist()))
+    return list(
+        zip(
+            [kind] * len(table),
+            *parts,
+            table["band"].astype(str).tolist(),
+            table["measure"].astype(str).tolist(),
+        )
+    )
 
 
 @dataclass(frozen=True, eq=False)
@@ -188,9 +202,17 @@ def zscore(values, mean, sd, transform) -> np.ndarray:
     return diff / np.asarray(sd, dtype=float)
 
 
-def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: Fingerprint,
-                condition: str | None = None, allow_extrapolation: bool = False,
-                allow_condition_mismatch: bool = False, kind: str = "roi") -> NormRows:
+def match_norms(
+    table: pd.DataFrame,
+    norms: Norms,
+    *,
+    age: float,
+    fingerprint: Fingerprint,
+    condition: str | None = None,
+    allow_extrapolation: bool = False,
+    allow_condition_mismatch: bool = False,
+    kind: str = "roi",
+) -> NormRows:
     """Find the norm of every row of an analysis table (no z computed).
 
     Parameters
@@ -249,19 +271,26 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
         raise InputError(f"{kind} table lacks columns {missing}")
     diffs = norms.fingerprint.differences(fingerprint)
     if diffs:
-        raise InputError("pipeline fingerprint of the norms differs from the analysis ("
-                         + "; ".join(diffs) + "); rebuild the norms with this pipeline",
-                         path=where)
+        raise InputError(
+            "pipeline fingerprint of the norms differs from the analysis ("
+            + "; ".join(diffs)
+            + "); rebuild the norms with this pipeline",
+            path=where,
+        )
     mismatch = False
     if condition is None:
-        log.warning("analysis condition not stated; assuming it matches the norms (%s)",
-                    norms.condition)
+        log.warning(
+            "analysis condition not stated; assuming it matches the norms (%s)", norms.condition
+        )
     elif normalise_condition(condition) != normalise_condition(norms.condition):
         if not allow_condition_mismatch:
-            raise InputError(f"condition {condition!r} differs from the norms' condition "
-                             f"{norms.condition!r}; allow the mismatch explicitly to z-score "
-                             "anyway (--allow-condition-mismatch; allow_condition_mismatch "
-                             "in Python; rows are flagged)", path=where)
+            raise InputError(
+                f"condition {condition!r} differs from the norms' condition "
+                f"{norms.condition!r}; allow the mismatch explicitly to z-score "
+                "anyway (--allow-condition-mismatch; allow_condition_mismatch "
+                "in Python; rows are flagged)",
+                path=where,
+            )
         mismatch = True
         log.warning("z-scoring %r against %r norms (flagged)", condition, norms.condition)
 
@@ -271,13 +300,14 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
     for col in ("band", "measure"):
         unknown = sorted(set(table[col].astype(str)) - set(nt[col]))
         if unknown:
-            raise InputError(f"{col}s {unknown} of the analysis are not in the norms "
-                             f"({sorted(set(nt[col]))})", path=where)
+            raise InputError(
+                f"{col}s {unknown} of the analysis are not in the norms ({sorted(set(nt[col]))})",
+                path=where,
+            )
 
     by_q: dict[tuple, list[tuple[float, float, int]]] = {}
     qcols = ("kind", "atlas", "name", "hemisphere", "band", "measure")
-    for idx, row in zip(nt.index, zip(*(nt[c].tolist() for c in qcols + ("age_min",
-                                                                          "age_max")))):
+    for idx, row in zip(nt.index, zip(*(nt[c].tolist() for c in qcols + ("age_min", "age_max")))):
         by_q.setdefault(tuple(row[:6]), []).append((row[6], row[7], idx))
 
     keys = _keys(table, kind)
@@ -302,13 +332,19 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
     if outside and not allow_extrapolation:
         lo = min(r[0] for r in outside)
         hi = max(r[1] for r in outside)
-        raise InputError(f"age {age:g} y is outside the norms' age ranges ({lo:g}-{hi:g} y) for "
-                         f"{len(outside)} rows; allow extrapolation explicitly to z-score anyway "
-                         "(--allow-extrapolation; allow_extrapolation in Python; rows are "
-                         "flagged)", path=where)
+        raise InputError(
+            f"age {age:g} y is outside the norms' age ranges ({lo:g}-{hi:g} y) for "
+            f"{len(outside)} rows; allow extrapolation explicitly to z-score anyway "
+            "(--allow-extrapolation; allow_extrapolation in Python; rows are "
+            "flagged)",
+            path=where,
+        )
     if extrap.any():
-        log.warning("age %g y outside the norms' range for %d rows: extrapolated (flagged)",
-                    age, int(extrap.sum()))
+        log.warning(
+            "age %g y outside the norms' range for %d rows: extrapolated (flagged)",
+            age,
+            int(extrap.sum()),
+        )
     has = row_of >= 0
     mean = np.full(m, np.nan)
     sd = np.full(m, np.nan)
@@ -330,14 +366,32 @@ def match_norms(table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: F
     n_no = int((~has).sum())
     if n_no:
         log.warning("%d of %d %s rows have no norms (z left NaN, flagged no_norm)", n_no, m, kind)
-    return NormRows(mean=mean, sd=sd, transform=trans, n=n, has=has, extrapolated=extrap,
-                    condition_mismatch=mismatch, df=df, leverage=lev)
+    return NormRows(
+        mean=mean,
+        sd=sd,
+        transform=trans,
+        n=n,
+        has=has,
+        extrapolated=extrap,
+        condition_mismatch=mismatch,
+        df=df,
+        leverage=lev,
+    )
 
 
-def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprint: Fingerprint,
-                condition: str | None = None, allow_extrapolation: bool = False,
-                allow_condition_mismatch: bool = False, kind: str = "roi",
-                fdr_alpha: float = FDR_ALPHA, rows: NormRows | None = None) -> pd.DataFrame:
+def apply_norms(
+    roi_table: pd.DataFrame,
+    norms: Norms,
+    *,
+    age: float,
+    fingerprint: Fingerprint,
+    condition: str | None = None,
+    allow_extrapolation: bool = False,
+    allow_condition_mismatch: bool = False,
+    kind: str = "roi",
+    fdr_alpha: float = FDR_ALPHA,
+    rows: NormRows | None = None,
+) -> pd.DataFrame:
     """Z-score an analysis table against norms.
 
     Parameters
@@ -371,9 +425,16 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
     if "value" not in roi_table.columns:
         raise InputError(f"{kind} table lacks columns ['value']")
     if rows is None:
-        rows = match_norms(roi_table, norms, age=age, fingerprint=fingerprint,
-                           condition=condition, allow_extrapolation=allow_extrapolation,
-                           allow_condition_mismatch=allow_condition_mismatch, kind=kind)
+        rows = match_norms(
+            roi_table,
+            norms,
+            age=age,
+            fingerprint=fingerprint,
+            condition=condition,
+            allow_extrapolation=allow_extrapolation,
+            allow_condition_mismatch=allow_condition_mismatch,
+            kind=kind,
+        )
     values = pd.to_numeric(roi_table["value"], errors="coerce").to_numpy(dtype=float)
     z = rows.z(values)
     pred = rows.predictive(z)
@@ -389,8 +450,13 @@ def apply_norms(roi_table: pd.DataFrame, norms: Norms, *, age: float, fingerprin
     out["no_norm"] = ~rows.has
     out["extrapolated"] = rows.extrapolated
     out["condition_mismatch"] = rows.condition_mismatch
-    out.attrs = dict(roi_table.attrs, n_no_norm=int((~rows.has).sum()),
-                     norms_sha256=norms.sha256, age=float(age), fdr_alpha=fdr_alpha)
+    out.attrs = dict(
+        roi_table.attrs,
+        n_no_norm=int((~rows.has).sum()),
+        norms_sha256=norms.sha256,
+        age=float(age),
+        fdr_alpha=fdr_alpha,
+    )
     return out
 
 
@@ -417,8 +483,11 @@ def chance_summary(table: pd.DataFrame, *, alpha: float = FDR_ALPHA) -> dict:
     z = pd.to_numeric(table[col], errors="coerce").to_numpy(dtype=float)
     ok = np.isfinite(z)
     n = int(ok.sum())
-    q = (table["fdr_q"].to_numpy(dtype=float) if "fdr_q" in table
-         else bh_adjust(2.0 * stats.norm.sf(np.abs(z))))
+    q = (
+        table["fdr_q"].to_numpy(dtype=float)
+        if "fdr_q" in table
+        else bh_adjust(2.0 * stats.norm.sf(np.abs(z)))
+    )
     return {
         "n_tested": n,
         "expected_beyond_1.96": float(n * 2.0 * stats.norm.sf(Z_THRESHOLD)),

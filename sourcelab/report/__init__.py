@@ -7,5 +7,16 @@ from .html import CAUTIONS, SECTIONS, deviations
 from .pdf import MAX_PAGES, pdf_pages, write_pdf
 from .summary import Summary, report_summary
 
-__all__ = ["CAUTIONS", "MAX_BYTES", "MAX_PAGES", "SECTIONS", "Summary", "build_html",
-           "deviations", "pdf_pages", "report_summary", "write_pdf", "write_report"]
+__all__ = [
+    "CAUTIONS",
+    "MAX_BYTES",
+    "MAX_PAGES",
+    "SECTIONS",
+    "Summary",
+    "build_html",
+    "deviations",
+    "pdf_pages",
+    "report_summary",
+    "write_pdf",
+    "write_report",
+]

@@ -43,10 +43,14 @@ def _recording(result) -> str:
     rec["path"] = file_name(rec.get("path")) if rec.get("path") else "given in memory"
     cmap = rec.pop("channel_map", {}) or {}
     renamed = {k: v for k, v in cmap.items() if k != v}
-    rec["channel_map"] = (", ".join(f"{k} read from {v}" for k, v in renamed.items())
-                          if renamed else "the file uses the 10-20 names")
-    rec["annotations"] = ([f"{d} ({n}x, {t:g} s)" for d, n, t in rec.get("annotations") or ()]
-                          or "none")
+    rec["channel_map"] = (
+        ", ".join(f"{k} read from {v}" for k, v in renamed.items())
+        if renamed
+        else "the file uses the 10-20 names"
+    )
+    rec["annotations"] = [
+        f"{d} ({n}x, {t:g} s)" for d, n, t in rec.get("annotations") or ()
+    ] or "none"
     rec.setdefault("electrodes", ", ".join(result.ch_names))
     return kv_table(rec)
 
@@ -55,21 +59,27 @@ def _quality(result) -> str:
     q = result.quality.to_dict()
     if not q:
         return '<p class="note">No data-quality figures were recorded.</p>'
-    plain = {k: v for k, v in q.items()
-             if k not in ("thresholds", "ocular", "reliability", "excluded")
-             and not isinstance(v, dict)}
+    plain = {
+        k: v
+        for k, v in q.items()
+        if k not in ("thresholds", "ocular", "reliability", "excluded") and not isinstance(v, dict)
+    }
     plain["rejected_s"] = {k: v for k, v in (q.get("rejected_s") or {}).items() if v} or "nothing"
-    plain["excluded"] = ([f"{e.get('description', 'span')} {value_text(e.get('start'))}-"
-                          f"{value_text(e.get('stop'))} s" for e in q.get("excluded") or ()]
-                         or "none")
+    plain["excluded"] = [
+        f"{e.get('description', 'span')} {value_text(e.get('start'))}-{value_text(e.get('stop'))} s"
+        for e in q.get("excluded") or ()
+    ] or "none"
     weak = {k: v for k, v in (q.get("channel_kept_fraction") or {}).items() if v < 1.0}
     plain["channel_kept_fraction"] = weak or "every site passed in every epoch"
     if q.get("mains_hz") is None:
         plain["mains_hz"] = "none found"
     out = kv_table(plain)
     if result.warnings:
-        out += ("<h3>Warnings</h3><ul>" + "".join(f"<li>{_esc(w)}</li>" for w in result.warnings)
-                + "</ul>")
+        out += (
+            "<h3>Warnings</h3><ul>"
+            + "".join(f"<li>{_esc(w)}</li>" for w in result.warnings)
+            + "</ul>"
+        )
     rel = q.get("reliability")
     if isinstance(rel, dict) and rel:
         out += _reliability(rel, result.config.reliability_threshold)
@@ -77,8 +87,11 @@ def _quality(result) -> str:
     th = q.get("thresholds")
     if isinstance(th, dict) and th:
         flat = {k: v for k, v in th.items() if not isinstance(v, dict)}
-        out += ("<details><summary>Thresholds and filter edges used</summary>" + kv_table(flat)
-                + "</details>")
+        out += (
+            "<details><summary>Thresholds and filter edges used</summary>"
+            + kv_table(flat)
+            + "</details>"
+        )
     return out
 
 
@@ -88,17 +101,25 @@ def _ocular(result) -> str:
     if not oc:
         return ""
     removed = oc.get("removed_components") or []
-    txt = (f"{len(removed)} of {value_text(oc.get('n_components'))} independent components were "
-           f"removed as eye activity (method: {value_text(oc.get('method'))})."
-           if removed else "No independent component was removed as eye activity "
-           f"(method: {value_text(oc.get('method'))}).")
+    txt = (
+        f"{len(removed)} of {value_text(oc.get('n_components'))} independent components were "
+        f"removed as eye activity (method: {value_text(oc.get('method'))})."
+        if removed
+        else "No independent component was removed as eye activity "
+        f"(method: {value_text(oc.get('method'))})."
+    )
     rd = oc.get("residual_delta") or {}
     if rd:
-        txt += (f" Check of the slow-wave maximum after correction: correlation with the eye "
-                f"pattern r = {value_text(rd.get('r'))} (threshold "
-                f"{value_text(rd.get('threshold'))}): "
-                + ("it looks like remaining eye activity." if rd.get("ocular")
-                   else "it does not look like eye activity."))
+        txt += (
+            f" Check of the slow-wave maximum after correction: correlation with the eye "
+            f"pattern r = {value_text(rd.get('r'))} (threshold "
+            f"{value_text(rd.get('threshold'))}): "
+            + (
+                "it looks like remaining eye activity."
+                if rd.get("ocular")
+                else "it does not look like eye activity."
+            )
+        )
     notes = oc.get("notes") or []
     if notes:
         txt += " " + " ".join(str(n) for n in notes)
@@ -113,20 +134,29 @@ def _reliability(rel: dict, threshold: float) -> str:
     table = reliability_table(rel)
     if not len(table):
         return ""
-    flagged = sorted({f"{'sensors' if lvl == 'sensors' else lvl + ' areas'}: "
-                      f"{', '.join(r.get('flagged_bands', []))}"
-                      for lvl, r in rel.items()
-                      if isinstance(r, dict) and r.get("flagged_bands")})
-    note = ('<p class="note">How well two halves of the clean epochs agree on the pattern of '
-            "log10 band power across sensors or areas: intraclass correlation ICC(2,1) "
-            "(absolute agreement, Shrout &amp; Fleiss 1979) with its 95 % interval (McGraw "
-            "&amp; Wong 1996) in brackets. 1 is perfect agreement; a shift of power between the "
-            "halves lowers it as much as a change of pattern. A band is flagged when the "
-            f"correlation of odd and even epochs is below {threshold:.2f}.</p>")
+    flagged = sorted(
+        {
+            f"{'sensors' if lvl == 'sensors' else lvl + ' areas'}: "
+            f"{', '.join(r.get('flagged_bands', []))}"
+            for lvl, r in rel.items()
+            if isinstance(r, dict) and r.get("flagged_bands")
+        }
+    )
+    note = (
+        '<p class="note">How well two halves of the clean epochs agree on the pattern of '
+        "log10 band power across sensors or areas: intraclass correlation ICC(2,1) "
+        "(absolute agreement, Shrout &amp; Fleiss 1979) with its 95 % interval (McGraw "
+        "&amp; Wong 1996) in brackets. 1 is perfect agreement; a shift of power between the "
+        "halves lowers it as much as a change of pattern. A band is flagged when the "
+        f"correlation of odd and even epochs is below {threshold:.2f}.</p>"
+    )
     if flagged:
-        note += ('<p class="caution">Reliability below the threshold: ' + _esc("; ".join(flagged))
-                 + ". Treat these bands with extra care.</p>")
-    return ("<h3>Reliability</h3>" + table_html(table, sortable=False, z_column=None) + note)
+        note += (
+            '<p class="caution">Reliability below the threshold: '
+            + _esc("; ".join(flagged))
+            + ". Treat these bands with extra care.</p>"
+        )
+    return "<h3>Reliability</h3>" + table_html(table, sortable=False, z_column=None) + note
 
 
 def _summary(summary) -> str:
@@ -139,38 +169,52 @@ def _summary(summary) -> str:
 
     facts = "".join(f"<tr><th>{_esc(k)}</th><td>{_esc(v)}</td></tr>" for k, v in summary.facts)
     quality = "".join(f"<li>{_esc(q)}</li>" for q in summary.quality)
-    out = (f'<div class="summary"><p class="caution short">{_esc(SHORT)}</p>'
-           f'<div class="top"><div><table class="kv facts"><tbody>{facts}</tbody></table></div>'
-           f"<div><h3>Data quality</h3><ul class=\"quality\">{quality}</ul></div></div>"
-           f'<h3>Top candidates</h3><p class="headline">{_esc(summary.headline)}</p>')
+    out = (
+        f'<div class="summary"><p class="caution short">{_esc(SHORT)}</p>'
+        f'<div class="top"><div><table class="kv facts"><tbody>{facts}</tbody></table></div>'
+        f'<div><h3>Data quality</h3><ul class="quality">{quality}</ul></div></div>'
+        f'<h3>Top candidates</h3><p class="headline">{_esc(summary.headline)}</p>'
+    )
     if len(summary.candidates):
         out += table_html(summary.candidates, sortable=False, z_column=None, human=False)
     if summary.candidate_note:
         out += f'<p class="note">{_esc(summary.candidate_note)}</p>'
-    out += "<h3>Cautions</h3>" + "".join(f'<p class="caution">{_esc(c)}</p>'
-                                         for c in summary.cautions)
+    out += "<h3>Cautions</h3>" + "".join(
+        f'<p class="caution">{_esc(c)}</p>' for c in summary.cautions
+    )
     return out + "</div>"
 
 
 def _sensor(result, figs: dict) -> str:
-    out = [('<p class="note">Band power at the 19 10-20 sites, average reference. '
-           "Maps are interpolated between electrodes; z maps share one symmetric scale.</p>")]
+    out = [
+        (
+            '<p class="note">Band power at the 19 10-20 sites, average reference. '
+            "Maps are interpolated between electrodes; z maps share one symmetric scale.</p>"
+        )
+    ]
     for m in ("absolute", "relative"):
         out.append(_fig(figs, f"topomap/{m}", f"Sensor {m} power by band"))
         out.append(_fig(figs, f"topomap-z/{m}", f"Sensor {m} power: z by band"))
     st = result.sensor_table
     if st is not None and len(st):
-        out.append("<details><summary>Sensor table (click a column to sort)</summary>"
-                   + table_html(st) + "</details>")
+        out.append(
+            "<details><summary>Sensor table (click a column to sort)</summary>"
+            + table_html(st)
+            + "</details>"
+        )
     return "".join(out)
 
 
 def _source(result, figs: dict) -> str:
-    out = [('<p class="note">sLORETA source power on the 20,484 fsaverage5 cortical sources. '
-           "Glass brains show, along each line of sight, the strongest value of the map "
-           "projected into MNI152 grey matter; surface views show the inflated cortex "
-           "(dark shading = sulci). Power scales are per band; z scales are the same "
-           "for every band.</p>")]
+    out = [
+        (
+            '<p class="note">sLORETA source power on the 20,484 fsaverage5 cortical sources. '
+            "Glass brains show, along each line of sight, the strongest value of the map "
+            "projected into MNI152 grey matter; surface views show the inflated cortex "
+            "(dark shading = sulci). Power scales are per band; z scales are the same "
+            "for every band.</p>"
+        )
+    ]
     for band in result.bands.names:
         lo, hi = result.bands.edges[result.bands.names.index(band)]
         out.append(f'<h3 id="band-{_esc(band)}">{_esc(band)} ({lo:g}-{hi:g} Hz)</h3>')
@@ -178,8 +222,13 @@ def _source(result, figs: dict) -> str:
             out.append(_fig(figs, f"glass/{band}/{m}", f"{band}: {m} power, glass brain"))
             out.append(_fig(figs, f"surface/{band}/{m}", f"{band}: {m} power, cortical surface"))
             out.append(_fig(figs, f"glass-z/{band}/{m}", f"{band}: {m} power, ROI z on sources"))
-            out.append(_fig(figs, f"surface-z/{band}/{m}",
-                            f"{band}: {m} power, z per source on the cortical surface"))
+            out.append(
+                _fig(
+                    figs,
+                    f"surface-z/{band}/{m}",
+                    f"{band}: {m} power, z per source on the cortical surface",
+                )
+            )
     return "".join(out)
 
 
@@ -199,25 +248,32 @@ def _roi(result, figs: dict) -> str:
         out.append('<p class="note">No ROI table.</p>')
     else:
         if not ("z" in rt.columns and np.isfinite(rt["z"].astype(float)).any()):
-            out.append('<p class="note">No norms were given: the table has values but no '
-                       "z-scores.</p>")
+            out.append(
+                '<p class="note">No norms were given: the table has values but no z-scores.</p>'
+            )
         for atlas, t in rt.groupby("atlas", sort=False):
-            out.append(f"<details><summary>{_esc(atlas)}: {len(t)} rows "
-                       "(click a column to sort)</summary>" + table_html(t) + "</details>")
+            out.append(
+                f"<details><summary>{_esc(atlas)}: {len(t)} rows "
+                "(click a column to sort)</summary>" + table_html(t) + "</details>"
+            )
     return "".join(out)
 
 
 def _deviations(result) -> str:
     d = deviations(result.roi_table, result.sensor_table)
-    intro = (f'<p class="note">Rows with |z| &gt; {DEVIATION_Z} (two-sided 5 % of a normal '
-             "distribution), largest first. These are candidates to look at, not findings: "
-             "across many ROIs and bands some will exceed the limit by chance.")
+    intro = (
+        f'<p class="note">Rows with |z| &gt; {DEVIATION_Z} (two-sided 5 % of a normal '
+        "distribution), largest first. These are candidates to look at, not findings: "
+        "across many ROIs and bands some will exceed the limit by chance."
+    )
     if any("fdr" in c.lower() for c in d.columns):
         intro += " FDR columns give the false-discovery-rate flag across all tests."
     if "robust" in d.columns:
-        intro += (" 'z low' to 'z high' is the 95 % bootstrap interval over clean epochs; a row is "
-                  "robust when the whole interval lies beyond the same ±1.96 line, and "
-                  "<b>not robust</b> when it crosses it.")
+        intro += (
+            " 'z low' to 'z high' is the 95 % bootstrap interval over clean epochs; a row is "
+            "robust when the whole interval lies beyond the same ±1.96 line, and "
+            "<b>not robust</b> when it crosses it."
+        )
     intro += "</p>"
     if d.empty:
         return intro + "<p>None.</p>"
@@ -226,12 +282,17 @@ def _deviations(result) -> str:
 
 def _methods(result) -> str:
     cfg = result.config
-    bands = ", ".join(f"{n} {lo:g}-{hi:g} Hz" for n, (lo, hi) in
-                      zip(cfg.bands.names, cfg.bands.edges))
+    bands = ", ".join(
+        f"{n} {lo:g}-{hi:g} Hz" for n, (lo, hi) in zip(cfg.bands.names, cfg.bands.edges)
+    )
     norms = result.norms
-    norms_txt = ("No norms were used; no z-scores are reported." if not norms else
-                 "Norms: " + _esc(file_name(norms.path) if norms.path else "given in memory")
-                 + ". z = (value − norm mean) / norm SD after the norms' transform.")
+    norms_txt = (
+        "No norms were used; no z-scores are reported."
+        if not norms
+        else "Norms: "
+        + _esc(file_name(norms.path) if norms.path else "given in memory")
+        + ". z = (value − norm mean) / norm SD after the norms' transform."
+    )
     return (
         "<p>The recording was re-referenced to the common average, cleaned epoch by epoch "
         f"({cfg.epoch_s:g} s epochs, peak-to-peak limit {cfg.reject_uv:g} µV) and band-passed "
@@ -246,8 +307,11 @@ def _methods(result) -> str:
         "source at its mid-thickness position, map fsaverage (MNI305) to MNI152 with "
         "FreeSurfer's published affine, and fill grey-matter voxels within 5 mm of a source "
         f"with the nearest source's value.</p><p>{norms_txt}</p>"
-        "<h3>References</h3><ol>" + "".join(f"<li>{_esc(r)}</li>" for r in REFERENCES)
-        + "</ol>" + _atlas_sources(result))
+        "<h3>References</h3><ol>"
+        + "".join(f"<li>{_esc(r)}</li>" for r in REFERENCES)
+        + "</ol>"
+        + _atlas_sources(result)
+    )
 
 
 def _atlas_sources(result) -> str:
@@ -264,8 +328,10 @@ def _atlas_sources(result) -> str:
             logger.debug("atlas %r not described in the report: %s", name, exc)
             items.append(f"<li><b>{_esc(name)}</b>: no description available.</li>")
             continue
-        items.append(f"<li><b>{_esc(name)}</b>: {_esc(_reader_text(at.description))} "
-                     f"<i>{_esc(_reader_text(at.citation))}</i></li>")
+        items.append(
+            f"<li><b>{_esc(name)}</b>: {_esc(_reader_text(at.description))} "
+            f"<i>{_esc(_reader_text(at.citation))}</i></li>"
+        )
     return ("<h3>Atlases</h3><ul>" + "".join(items) + "</ul>") if items else ""
 
 
@@ -285,17 +351,26 @@ def _cautions() -> str:
 def _provenance(result) -> str:
     fp = result.fingerprint.to_dict()
     fp["bands"] = "; ".join(f"{b[0]} {b[1]:g}-{b[2]:g}" for b in fp["bands"])
-    inputs = {"recording": file_name(result.recording.path),
-              "recording sha256": result.recording.sha256 or "not given"}
+    inputs = {
+        "recording": file_name(result.recording.path),
+        "recording sha256": result.recording.sha256 or "not given",
+    }
     if result.norms:
         inputs["norms"] = file_name(result.norms.path)
         inputs["norms sha256"] = result.norms.sha256 or "not given"
     cfg = result.config.to_dict()
     cfg["bands"] = "; ".join(f"{b[0]} {b[1]:g}-{b[2]:g} Hz" for b in cfg["bands"])
     cfg = {k: ("none" if v is None else v) for k, v in sorted(cfg.items())}
-    return ("<h3>Pipeline fingerprint</h3>" + kv_table(fp) + "<h3>Inputs</h3>" + kv_table(inputs)
-            + "<h3>Software</h3>" + kv_table(_versions())
-            + "<h3>Effective configuration</h3>" + kv_table(cfg))
+    return (
+        "<h3>Pipeline fingerprint</h3>"
+        + kv_table(fp)
+        + "<h3>Inputs</h3>"
+        + kv_table(inputs)
+        + "<h3>Software</h3>"
+        + kv_table(_versions())
+        + "<h3>Effective configuration</h3>"
+        + kv_table(cfg)
+    )
 
 
 def _extra_section(i: int, item) -> tuple[str, str, str]:
@@ -303,11 +378,13 @@ def _extra_section(i: int, item) -> tuple[str, str, str]:
     try:
         title, content, *rest = item
     except (TypeError, ValueError):
-        raise InputError("extra_sections: each item must be (title, content[, note])",
-                         field="extra_sections") from None
+        raise InputError(
+            "extra_sections: each item must be (title, content[, note])", field="extra_sections"
+        ) from None
     if len(rest) > 1:
-        raise InputError("extra_sections: each item must be (title, content[, note])",
-                         field="extra_sections")
+        raise InputError(
+            "extra_sections: each item must be (title, content[, note])", field="extra_sections"
+        )
     note = f'<p class="note">{_esc(rest[0])}</p>' if rest else ""
     return f"extra-{i}", str(title), note + _extra_body(title, content)
 
@@ -330,23 +407,39 @@ def _answer_sections(result, figs: dict) -> list:
     """Candidates, neighbour blur check and leakage figure, from what the analysis computed."""
     out = []
     if result.candidates is not None:
-        c = result.candidates.drop(columns=[k for k in _INTERNAL_COLUMNS
-                                            if k in result.candidates.columns])
-        out.append(("Candidates in detail", c.head(40),
-                    "Every column of the first 40 candidates (full list: candidates.tsv). "
-                    "Statistical deviations only; the choice of any training target rests with "
-                    "a licensed practitioner who weighs symptoms and history."))
+        c = result.candidates.drop(
+            columns=[k for k in _INTERNAL_COLUMNS if k in result.candidates.columns]
+        )
+        out.append(
+            (
+                "Candidates in detail",
+                c.head(40),
+                "Every column of the first 40 candidates (full list: candidates.tsv). "
+                "Statistical deviations only; the choice of any training target rests with "
+                "a licensed practitioner who weighs symptoms and history.",
+            )
+        )
     if result.leakage_hints is not None:
-        out.append(("Neighbour blur check", result.leakage_hints.head(60),
-                    "For each deviating Brodmann area, the areas that leak most power into "
-                    "it and whether they deviate the same way: if they do, the deviation may "
-                    "be a neighbour's activity blurred by the inverse."))
+        out.append(
+            (
+                "Neighbour blur check",
+                result.leakage_hints.head(60),
+                "For each deviating Brodmann area, the areas that leak most power into "
+                "it and whether they deviate the same way: if they do, the deviation may "
+                "be a neighbour's activity blurred by the inverse.",
+            )
+        )
     if "leakage" in figs:
-        out.append(("Leakage between areas", figs.pop("leakage"),
-                    "Share of each row area's expected sLORETA power that comes from equal, "
-                    "uncorrelated activity in each column area (from the resolution matrix; "
-                    "log colour scale). Large off-diagonal shares mean the two areas cannot "
-                    "be told apart well with a template head and 19 electrodes."))
+        out.append(
+            (
+                "Leakage between areas",
+                figs.pop("leakage"),
+                "Share of each row area's expected sLORETA power that comes from equal, "
+                "uncorrelated activity in each column area (from the resolution matrix; "
+                "log colour scale). Large off-diagonal shares mean the two areas cannot "
+                "be told apart well with a template head and 19 electrodes.",
+            )
+        )
     return out
 
 
@@ -370,9 +463,25 @@ def top_coupling_rows(table, *, n: int = N_COUPLING_ROWS):
         return None
     z = table["z"].astype(float)
     sel = table[np.isfinite(z) & (z.abs() > DEVIATION_Z)]
-    keep = [c for c in ("pair", "roi_a", "hemisphere_a", "roi_b", "hemisphere_b", "band",
-                        "measure", "value", "unit", "z", "fdr", "robust", "leakage_explained")
-            if c in sel.columns]
+    keep = [
+        c
+        for c in (
+            "pair",
+            "roi_a",
+            "hemisphere_a",
+            "roi_b",
+            "hemisphere_b",
+            "band",
+            "measure",
+            "value",
+            "unit",
+            "z",
+            "fdr",
+            "robust",
+            "leakage_explained",
+        )
+        if c in sel.columns
+    ]
     sel = sel.reindex(sel["z"].abs().sort_values(ascending=False).index)[keep]
     sel = sel.head(n).reset_index(drop=True)
     if "measure" in sel.columns:
@@ -389,19 +498,23 @@ def _coupling(result, figs: dict) -> str:
     pt, ct = result.pair_table, result.coupling_table
     if pt is None and ct is None:
         return ""
-    out = ['<p class="note">Coupling between electrode pairs (coherence, lagged coherence, '
-           "power asymmetry ...) and between networks and lobes at source level. Zero-lag "
-           "measures between nearby sites are inflated by volume conduction and by the "
-           "inverse's blur; lagged measures and orthogonalised envelope correlation are not. "
-           "'explained by blur' marks a value the inverse's leakage alone can produce.</p>"]
+    out = [
+        '<p class="note">Coupling between electrode pairs (coherence, lagged coherence, '
+        "power asymmetry ...) and between networks and lobes at source level. Zero-lag "
+        "measures between nearby sites are inflated by volume conduction and by the "
+        "inverse's blur; lagged measures and orthogonalised envelope correlation are not. "
+        "'explained by blur' marks a value the inverse's leakage alone can produce.</p>"
+    ]
     pair_keys = [k for k in list(figs) if k.startswith("pairs/")]
     if pair_keys:
-        out.append("<details open><summary>Electrode pairs beyond the limit on the head"
-                   "</summary>")
+        out.append("<details open><summary>Electrode pairs beyond the limit on the head</summary>")
         for k in pair_keys:
             _, band, m = k.split("/")
-            out.append(_fig(figs, k, f"{band}: {MEASURE_TITLES.get(m, m)}, pairs with "
-                                      f"|z| > {DEVIATION_Z:g}"))
+            out.append(
+                _fig(
+                    figs, k, f"{band}: {MEASURE_TITLES.get(m, m)}, pairs with |z| > {DEVIATION_Z:g}"
+                )
+            )
         out.append("</details>")
     for k in [k for k in list(figs) if k.startswith("coupling/")]:
         m = k.split("/")[1]
@@ -412,17 +525,21 @@ def _coupling(result, figs: dict) -> str:
             continue
         n_tot = int(np.isfinite(t["z"].astype(float)).sum())
         n_big = int((t["z"].astype(float).abs() > DEVIATION_Z).sum())
-        out.append(f"<h3>Largest deviations: {_esc(name)}</h3><p class=\"note\">{n_big} of "
-                   f"{n_tot} z-scores beyond ±{DEVIATION_Z:g} (about {0.05 * n_tot:.0f} by "
-                   "chance alone); the first "
-                   f"{len(top)} by |z|. Full tables: pair_table.tsv, coupling_table.tsv.</p>")
+        out.append(
+            f'<h3>Largest deviations: {_esc(name)}</h3><p class="note">{n_big} of '
+            f"{n_tot} z-scores beyond ±{DEVIATION_Z:g} (about {0.05 * n_tot:.0f} by "
+            "chance alone); the first "
+            f"{len(top)} by |z|. Full tables: pair_table.tsv, coupling_table.tsv.</p>"
+        )
         out.append(table_html(top, sortable=True) if len(top) else "<p>None.</p>")
     return "".join(out)
 
 
 def _ocular_figures(figs: dict) -> str:
-    return "".join(_fig(figs, k, "Scalp maps of the removed eye-movement components")
-                   for k in [k for k in list(figs) if k.startswith("ocular")])
+    return "".join(
+        _fig(figs, k, "Scalp maps of the removed eye-movement components")
+        for k in [k for k in list(figs) if k.startswith("ocular")]
+    )
 
 
 def build_html(result, figures: dict, *, extra_sections=None, title: str | None = None) -> str:
@@ -464,29 +581,35 @@ def build_html(result, figures: dict, *, extra_sections=None, title: str | None 
     coupling = _coupling(result, figs)
     sections = [(sid, t, bodies[sid]) for sid, t in SECTIONS]
     user = [_extra_section(i + len(answers), it) for i, it in enumerate(extra_sections or [])]
-    extras = ([("coupling", "Coupling between sites and networks", coupling)] if coupling
-              else [])
+    extras = [("coupling", "Coupling between sites and networks", coupling)] if coupling else []
     cut = [sid for sid, _, _ in sections].index("roi") + 1
-    middle = extras + sections[cut:cut + 1] + answers + user  # coupling, deviations, answers
+    middle = extras + sections[cut : cut + 1] + answers + user  # coupling, deviations, answers
     if figs:  # figures no section claimed
-        middle.append(("extra-figures", "Additional figures",
-                       "".join(img_html(v, caption=k, alt=k) for k, v in figs.items())))
-    sections = sections[:cut] + middle + sections[cut + 1:]
+        middle.append(
+            (
+                "extra-figures",
+                "Additional figures",
+                "".join(img_html(v, caption=k, alt=k) for k, v in figs.items()),
+            )
+        )
+    sections = sections[:cut] + middle + sections[cut + 1 :]
     title = title or "sourcelab source-level EEG report"
     nav = "".join(f'<a href="#{sid}">{_esc(t)}</a>' for sid, t, _ in sections)
-    body = "".join(f'<section id="{sid}"><h2>{_esc(t)}</h2>{b}</section>'
-                   for sid, t, b in sections)
-    return ("<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">"
-            f"<title>{_esc(title)}</title><meta name=\"viewport\" "
-            "content=\"width=device-width, initial-scale=1\">"
-            f"<style>{_CSS}</style></head><body>"
-            f"<header><h1>{_esc(title)}</h1><p>Generated {when} · not a diagnostic device"
-            "</p></header>"
-            f"<nav>{nav}</nav><main>{body}</main><script>{_JS}</script></body></html>")
+    body = "".join(f'<section id="{sid}"><h2>{_esc(t)}</h2>{b}</section>' for sid, t, b in sections)
+    return (
+        '<!DOCTYPE html><html lang="en"><head><meta charset="utf-8">'
+        f'<title>{_esc(title)}</title><meta name="viewport" '
+        'content="width=device-width, initial-scale=1">'
+        f"<style>{_CSS}</style></head><body>"
+        f"<header><h1>{_esc(title)}</h1><p>Generated {when} · not a diagnostic device"
+        "</p></header>"
+        f"<nav>{nav}</nav><main>{body}</main><script>{_JS}</script></body></html>"
+    )
 
 
-def write_report(result, path, *, figures: dict | None = None,
-                 extra_sections: list | None = None) -> Path:
+def write_report(
+    result, path, *, figures: dict | None = None, extra_sections: list | None = None
+) -> Path:
     """Write the self-contained HTML report of one analysis.
 
     Parameters

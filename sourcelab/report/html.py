@@ -39,23 +39,44 @@ SECTIONS = (
 DEVIATION_Z = 1.96
 
 REFERENCES = (
-    ("Pascual-Marqui RD (2002). Standardized low-resolution brain electromagnetic tomography "
-    "(sLORETA): technical details. Methods Find Exp Clin Pharmacol 24 Suppl D:5-12."),
-    ("Fischl B, Sereno MI, Tootell RBH, Dale AM (1999). High-resolution intersubject averaging and "
-    "a coordinate system for the cortical surface. Hum Brain Mapp 8:272-284 (fsaverage template)."),
+    (
+        "Pascual-Marqui RD (2002). Standardized low-resolution brain electromagnetic tomography "
+        "(sLORETA): technical details. Methods Find Exp Clin Pharmacol 24 Suppl D:5-12."
+    ),
+    (
+        "Fischl B, Sereno MI, Tootell RBH, Dale AM (1999). High-resolution intersubject averaging "
+        "and "
+        "a coordinate system for the cortical surface. Hum Brain Mapp 8:272-284 (fsaverage "
+        "template)."
+    ),
     "Gramfort A et al. (2013). MEG and EEG data analysis with MNE-Python. Front Neurosci 7:267.",
-    ("Lancaster JL et al. (2000). Automated Talairach atlas labels for functional brain mapping. "
-    "Hum Brain Mapp 10:120-131 (Brodmann-area labels)."),
-    ("Yeo BTT et al. (2011). The organization of the human cerebral cortex estimated by intrinsic "
-    "functional connectivity. J Neurophysiol 106:1125-1165 (functional networks)."),
-    ("Benjamini Y, Hochberg Y (1995). Controlling the false discovery rate. J R Stat Soc B "
-    "57:289-300 (FDR flags, where present)."),
-    ("Fonov V et al. (2011). Unbiased average age-appropriate atlases for pediatric studies. "
-    "NeuroImage 54:313-327 (MNI152 2009 template used for volume figures)."),
-    ("Shrout PE, Fleiss JL (1979). Intraclass correlations: uses in assessing rater reliability. "
-     "Psychol Bull 86:420-428 (agreement between halves of the recording)."),
-    ("McGraw KO, Wong SP (1996). Forming inferences about some intraclass correlation "
-     "coefficients. Psychol Methods 1:30-46 (intervals of the intraclass correlation)."),
+    (
+        "Lancaster JL et al. (2000). Automated Talairach atlas labels for functional brain "
+        "mapping. "
+        "Hum Brain Mapp 10:120-131 (Brodmann-area labels)."
+    ),
+    (
+        "Yeo BTT et al. (2011). The organization of the human cerebral cortex estimated by "
+        "intrinsic "
+        "functional connectivity. J Neurophysiol 106:1125-1165 (functional networks)."
+    ),
+    (
+        "Benjamini Y, Hochberg Y (1995). Controlling the false discovery rate. J R Stat Soc B "
+        "57:289-300 (FDR flags, where present)."
+    ),
+    (
+        "Fonov V et al. (2011). Unbiased average age-appropriate atlases for pediatric studies. "
+        "NeuroImage 54:313-327 (MNI152 2009 template used for volume figures)."
+    ),
+    (
+        "Shrout PE, Fleiss JL (1979). Intraclass correlations: uses in assessing rater "
+        "reliability. "
+        "Psychol Bull 86:420-428 (agreement between halves of the recording)."
+    ),
+    (
+        "McGraw KO, Wong SP (1996). Forming inferences about some intraclass correlation "
+        "coefficients. Psychol Methods 1:30-46 (intervals of the intraclass correlation)."
+    ),
 )
 
 _CSS = """
@@ -150,8 +171,15 @@ def _fmt(v) -> tuple[str, bool]:
     return _esc(txt), False
 
 
-def table_html(df: pd.DataFrame, *, sortable: bool = True, max_rows: int = 5000,
-               z_column: str | None = "z", page_rows: int = 25, human: bool = True) -> str:
+def table_html(
+    df: pd.DataFrame,
+    *,
+    sortable: bool = True,
+    max_rows: int = 5000,
+    z_column: str | None = "z",
+    page_rows: int = 25,
+    human: bool = True,
+) -> str:
     """An HTML table from a DataFrame; rows with |z| > 1.96 get a class for shading.
 
     Headers are put in words and Brodmann areas get their names (``human``); tables longer than
@@ -210,8 +238,10 @@ def table_html(df: pd.DataFrame, *, sortable: bool = True, max_rows: int = 5000,
             txt, num = _fmt(v)
             cells.append(f'<td class="num">{txt}</td>' if num else f"<td>{txt}</td>")
         body.append(f"<tr{rc}>{''.join(cells)}</tr>")
-    return (f'<div class="tablewrap"><table{cls}{page}><thead><tr>{head}</tr></thead>'
-            f"<tbody>{''.join(body)}</tbody></table></div>{unit_note}")
+    return (
+        f'<div class="tablewrap"><table{cls}{page}><thead><tr>{head}</tr></thead>'
+        f"<tbody>{''.join(body)}</tbody></table></div>{unit_note}"
+    )
 
 
 def kv_table(d: dict) -> str:
@@ -227,8 +257,10 @@ def kv_table(d: dict) -> str:
     str
         HTML ``<table class="kv">``, escaped.
     """
-    rows = [f"<tr><th>{_esc(field_label(k))}</th><td>{_esc(value_text(v))}</td></tr>"
-            for k, v in d.items()]
+    rows = [
+        f"<tr><th>{_esc(field_label(k))}</th><td>{_esc(value_text(v))}</td></tr>"
+        for k, v in d.items()
+    ]
     return f'<table class="kv"><tbody>{"".join(rows)}</tbody></table>'
 
 
@@ -243,8 +275,9 @@ def _png_bytes(fig) -> bytes:
 
         data = figure_png(fig, dpi=90)
     else:
-        raise TypeError(f"figures: values must be PNG bytes, a PNG path or a Figure, "
-                        f"got {type(fig).__name__}")
+        raise TypeError(
+            f"figures: values must be PNG bytes, a PNG path or a Figure, got {type(fig).__name__}"
+        )
     if not data.startswith(b"\x89PNG\r\n\x1a\n"):
         raise InputError("figures: image is not a PNG", field="figures")
     return data
@@ -274,16 +307,17 @@ def img_html(fig, *, caption: str = "", alt: str = "") -> str:
     """
     b64 = base64.b64encode(_png_bytes(fig)).decode("ascii")
     cap = f"<figcaption>{_esc(caption)}</figcaption>" if caption else ""
-    return (f'<figure><img alt="{_esc(alt or caption)}" src="data:image/png;base64,{b64}">'
-            f"{cap}</figure>")
+    return (
+        f'<figure><img alt="{_esc(alt or caption)}" src="data:image/png;base64,{b64}">'
+        f"{cap}</figure>"
+    )
 
 
 def _versions() -> dict:
     import importlib.metadata as md
 
     out = {"python": platform.python_version()}
-    for pkg in ("sourcelab", "mne", "nilearn", "numpy", "scipy", "nibabel", "matplotlib",
-                "pandas"):
+    for pkg in ("sourcelab", "mne", "nilearn", "numpy", "scipy", "nibabel", "matplotlib", "pandas"):
         try:
             out[pkg] = md.version(pkg)
         except md.PackageNotFoundError:
@@ -291,8 +325,12 @@ def _versions() -> dict:
     return out
 
 
-def deviations(roi_table: pd.DataFrame, sensor_table: pd.DataFrame | None = None, *,
-               z_limit: float = DEVIATION_Z) -> pd.DataFrame:
+def deviations(
+    roi_table: pd.DataFrame,
+    sensor_table: pd.DataFrame | None = None,
+    *,
+    z_limit: float = DEVIATION_Z,
+) -> pd.DataFrame:
     """Rows with |z| > z_limit from the ROI (and sensor) tables, sorted by |z| descending.
 
     FDR columns (any column whose name contains ``fdr``) are kept when present.
@@ -328,11 +366,15 @@ def deviations(roi_table: pd.DataFrame, sensor_table: pd.DataFrame | None = None
         sel.insert(0, "level", kind)
         parts.append(sel)
     if not parts:
-        return pd.DataFrame(columns=["level", "atlas", "roi", "hemisphere", "band", "measure",
-                                     "value", "z"])
+        return pd.DataFrame(
+            columns=["level", "atlas", "roi", "hemisphere", "band", "measure", "value", "z"]
+        )
     d = pd.concat(parts, ignore_index=True)
     fdr = [c for c in d.columns if "fdr" in str(c).lower()]
-    cols = (["level", "atlas", "roi", "hemisphere", "band", "measure", "value", "unit", "z"] + fdr
-            + ["z_lo", "z_hi", "robust"])  # bootstrap interval of z, when present
+    cols = (
+        ["level", "atlas", "roi", "hemisphere", "band", "measure", "value", "unit", "z"]
+        + fdr
+        + ["z_lo", "z_hi", "robust"]
+    )  # bootstrap interval of z, when present
     d = d[[c for c in cols if c in d.columns]]
     return d.reindex(d["z"].abs().sort_values(ascending=False).index).reset_index(drop=True)

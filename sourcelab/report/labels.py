@@ -23,59 +23,136 @@ MISSING_NUMBER = "–"
 
 #: Table column -> header.
 COLUMN_LABELS = {
-    "level": "level", "halves": "halves compared", "atlas": "atlas", "roi": "area",
-    "area": "area", "name": "area name",
-    "hemisphere": "side", "band": "band", "measure": "measure", "value": "value",
-    "unit": "unit", "n_vertices": "sources", "small": "small area", "resolvable": "resolvable",
-    "z": "z", "z_equivalent": "z (normal equivalent)", "p": "p", "fdr_q": "FDR q",
-    "fdr": "FDR significant", "z_lo": "z low", "z_hi": "z high", "robust": "robust",
-    "norm_n": "norm size", "no_norm": "no norm", "extrapolated": "age outside norms",
-    "condition_mismatch": "condition differs", "rank": "rank", "role": "role",
-    "direction": "direction", "lobe": "lobe", "peak_z": "peak z", "x_mni152": "MNI x",
-    "y_mni152": "MNI y", "z_mni152": "MNI z", "mni": "MNI x, y, z (mm)",
-    "border_mm": "to area border (mm)", "cluster_size": "sources above threshold",
-    "cluster_areas": "areas the cluster spans", "own_share": "own share",
-    "probability": "probability in area", "source": "source", "vertex": "vertex",
-    "kind": "kind", "channel": "site", "pair": "pair", "channel_a": "site A",
-    "channel_b": "site B", "edge": "edge", "roi_a": "area A", "roi_b": "area B",
-    "hemisphere_a": "side A", "hemisphere_b": "side B", "distance_mm": "distance (mm)",
-    "leakage_expected": "expected from blur", "leakage_explained": "explained by blur",
-    "leaker": "leaking area", "leaker_hemisphere": "leaking side", "share": "share",
-    "leaker_z": "leaking area z", "same_direction": "same direction",
-    "neighbours_same": "neighbours same way", "n_neighbours": "neighbours",
-    "neighbours": "neighbour areas", "members_deviating": "members deviating",
-    "n_members": "members", "value_lo": "value low", "value_hi": "value high",
-    "n_epochs": "epochs", "estimate": "estimate", "session_a": "session A",
-    "session_b": "session B", "change_t": "change", "change_t_lo": "change low",
-    "change_t_hi": "change high", "change_z": "change in z", "rci": "reliable-change index",
-    "q": "FDR q", "verdict": "verdict",
+    "level": "level",
+    "halves": "halves compared",
+    "atlas": "atlas",
+    "roi": "area",
+    "area": "area",
+    "name": "area name",
+    "hemisphere": "side",
+    "band": "band",
+    "measure": "measure",
+    "value": "value",
+    "unit": "unit",
+    "n_vertices": "sources",
+    "small": "small area",
+    "resolvable": "resolvable",
+    "z": "z",
+    "z_equivalent": "z (normal equivalent)",
+    "p": "p",
+    "fdr_q": "FDR q",
+    "fdr": "FDR significant",
+    "z_lo": "z low",
+    "z_hi": "z high",
+    "robust": "robust",
+    "norm_n": "norm size",
+    "no_norm": "no norm",
+    "extrapolated": "age outside norms",
+    "condition_mismatch": "condition differs",
+    "rank": "rank",
+    "role": "role",
+    "direction": "direction",
+    "lobe": "lobe",
+    "peak_z": "peak z",
+    "x_mni152": "MNI x",
+    "y_mni152": "MNI y",
+    "z_mni152": "MNI z",
+    "mni": "MNI x, y, z (mm)",
+    "border_mm": "to area border (mm)",
+    "cluster_size": "sources above threshold",
+    "cluster_areas": "areas the cluster spans",
+    "own_share": "own share",
+    "probability": "probability in area",
+    "source": "source",
+    "vertex": "vertex",
+    "kind": "kind",
+    "channel": "site",
+    "pair": "pair",
+    "channel_a": "site A",
+    "channel_b": "site B",
+    "edge": "edge",
+    "roi_a": "area A",
+    "roi_b": "area B",
+    "hemisphere_a": "side A",
+    "hemisphere_b": "side B",
+    "distance_mm": "distance (mm)",
+    "leakage_expected": "expected from blur",
+    "leakage_explained": "explained by blur",
+    "leaker": "leaking area",
+    "leaker_hemisphere": "leaking side",
+    "share": "share",
+    "leaker_z": "leaking area z",
+    "same_direction": "same direction",
+    "neighbours_same": "neighbours same way",
+    "n_neighbours": "neighbours",
+    "neighbours": "neighbour areas",
+    "members_deviating": "members deviating",
+    "n_members": "members",
+    "value_lo": "value low",
+    "value_hi": "value high",
+    "n_epochs": "epochs",
+    "estimate": "estimate",
+    "session_a": "session A",
+    "session_b": "session B",
+    "change_t": "change",
+    "change_t_lo": "change low",
+    "change_t_hi": "change high",
+    "change_z": "change in z",
+    "rci": "reliable-change index",
+    "q": "FDR q",
+    "verdict": "verdict",
 }
 
 #: Record field -> label (recording, quality, configuration, fingerprint).
 FIELD_LABELS = {
-    "path": "file", "sha256": "SHA-256", "sfreq": "sampling rate (Hz)",
-    "duration_s": "duration (s)", "channel_map": "electrode labels in the file",
-    "original_reference": "reference as recorded", "interpolated": "interpolated sites",
-    "annotations": "annotations in the file", "age": "age (years)", "condition": "condition",
-    "electrodes": "electrodes", "kept_s": "clean data analysed (s)",
-    "rejected_s": "removed (s) by reason", "n_epochs": "clean epochs",
+    "path": "file",
+    "sha256": "SHA-256",
+    "sfreq": "sampling rate (Hz)",
+    "duration_s": "duration (s)",
+    "channel_map": "electrode labels in the file",
+    "original_reference": "reference as recorded",
+    "interpolated": "interpolated sites",
+    "annotations": "annotations in the file",
+    "age": "age (years)",
+    "condition": "condition",
+    "electrodes": "electrodes",
+    "kept_s": "clean data analysed (s)",
+    "rejected_s": "removed (s) by reason",
+    "n_epochs": "clean epochs",
     "channel_kept_fraction": "share of epochs each site passed",
-    "mains_hz": "mains frequency notched (Hz)", "excluded": "spans left out",
-    "cleaning_seconds": "cleaning time (s) by stage", "epoch_s": "epoch length (s)",
-    "reject_uv": "peak-to-peak limit (µV)", "l_freq": "high-pass edge (Hz)",
-    "h_freq": "low-pass edge (Hz)", "lambda2": "λ² (1/SNR²)", "method": "inverse method",
-    "orientation": "source orientation", "bands": "bands", "pipeline_version": "pipeline version",
-    "notch": "notch (Hz)", "reliability_threshold": "reliability threshold",
-    "rejection": "rejection mode", "reject_z": "rejection limit (robust z)",
-    "flat_uv": "flat-line limit (µV)", "muscle_uv": "muscle limit (µV)",
-    "muscle_band_hz": "muscle band (Hz)", "blink_uv": "blink limit (µV)",
-    "blink_lowpass_hz": "blink low-pass (Hz)", "blink_front_back_ratio": "blink front/back ratio",
+    "mains_hz": "mains frequency notched (Hz)",
+    "excluded": "spans left out",
+    "cleaning_seconds": "cleaning time (s) by stage",
+    "epoch_s": "epoch length (s)",
+    "reject_uv": "peak-to-peak limit (µV)",
+    "l_freq": "high-pass edge (Hz)",
+    "h_freq": "low-pass edge (Hz)",
+    "lambda2": "λ² (1/SNR²)",
+    "method": "inverse method",
+    "orientation": "source orientation",
+    "bands": "bands",
+    "pipeline_version": "pipeline version",
+    "notch": "notch (Hz)",
+    "reliability_threshold": "reliability threshold",
+    "rejection": "rejection mode",
+    "reject_z": "rejection limit (robust z)",
+    "flat_uv": "flat-line limit (µV)",
+    "muscle_uv": "muscle limit (µV)",
+    "muscle_band_hz": "muscle band (Hz)",
+    "blink_uv": "blink limit (µV)",
+    "blink_lowpass_hz": "blink low-pass (Hz)",
+    "blink_front_back_ratio": "blink front/back ratio",
     "min_clean_s": "least clean data accepted (s)",
     "warn_clean_s": "warning below (s) of clean data",
-    "n_boot": "bootstrap resamples", "boot_seed": "bootstrap seed", "ci": "interval level",
-    "snr": "SNR (amplitude)", "coupling": "coupling computed",
-    "coupling_atlases": "coupling atlases", "coupling_n_boot": "coupling bootstrap resamples",
-    "ocular_correction": "eye-artefact correction", "exclude_procedures": "procedures left out",
+    "n_boot": "bootstrap resamples",
+    "boot_seed": "bootstrap seed",
+    "ci": "interval level",
+    "snr": "SNR (amplitude)",
+    "coupling": "coupling computed",
+    "coupling_atlases": "coupling atlases",
+    "coupling_n_boot": "coupling bootstrap resamples",
+    "ocular_correction": "eye-artefact correction",
+    "exclude_procedures": "procedures left out",
     "z_mask": "z maps: uncoloured below |z|",
 }
 
@@ -177,8 +254,9 @@ def value_text(v, *, missing: str = NOT_GIVEN) -> str:
     if isinstance(v, dict):
         if not v:
             return NONE_TEXT
-        return "; ".join(f"{field_label(k)}: {value_text(x, missing=missing)}"
-                         for k, x in v.items())
+        return "; ".join(
+            f"{field_label(k)}: {value_text(x, missing=missing)}" for k, x in v.items()
+        )
     if isinstance(v, (list, tuple, set, np.ndarray)):
         items = list(v)
         if not items:
@@ -237,8 +315,10 @@ def human_table(df: pd.DataFrame, *, area_names: bool = True) -> pd.DataFrame:
 
 
 #: How each split of the epochs reads in the reliability table.
-RELIABILITY_SPLITS = (("split_half", "odd vs even epochs"),
-                      ("test_retest", "first vs second half of the recording"))
+RELIABILITY_SPLITS = (
+    ("split_half", "odd vs even epochs"),
+    ("test_retest", "first vs second half of the recording"),
+)
 
 
 def _interval_text(c: dict) -> str:
@@ -276,12 +356,18 @@ def reliability_table(rel: dict) -> pd.DataFrame:
             if iccs:
                 cells = {b: _interval_text(c) for b, c in iccs.items()}
             elif isinstance(r.get(key), dict):
-                cells = {b: MISSING_NUMBER if _is_missing(v) else f"r {v:.2f}"
-                         for b, v in r[key].items()}
+                cells = {
+                    b: MISSING_NUMBER if _is_missing(v) else f"r {v:.2f}" for b, v in r[key].items()
+                }
             else:
                 continue
-            rows.append({"level": "sensors" if level == "sensors" else f"{level} areas",
-                         "halves": words, **cells})
+            rows.append(
+                {
+                    "level": "sensors" if level == "sensors" else f"{level} areas",
+                    "halves": words,
+                    **cells,
+                }
+            )
     return pd.DataFrame(rows)
 
 
@@ -305,8 +391,9 @@ def lowest_agreement(rel: dict, level: str = "sensors") -> tuple[str, dict] | No
     if r is None:
         return None
     r = r if isinstance(r, dict) else r.to_dict()
-    iccs = {b: c for b, c in (r.get("split_half_icc") or {}).items()
-            if not _is_missing(c.get("icc"))}
+    iccs = {
+        b: c for b, c in (r.get("split_half_icc") or {}).items() if not _is_missing(c.get("icc"))
+    }
     if not iccs:
         return None
     band = min(iccs, key=lambda b: iccs[b]["icc"])

@@ -54,10 +54,23 @@ class _Layout:
     def _new_page(self) -> None:
         fig = Figure(figsize=PAGE_SIZE)
         n = len(self.pages) + 1
-        fig.text(MARGIN / PAGE_SIZE[0], 0.35 / PAGE_SIZE[1], self.footer, fontsize=7,
-                 color="0.35", va="bottom")
-        fig.text(1 - MARGIN / PAGE_SIZE[0], 0.35 / PAGE_SIZE[1], f"page {n}", fontsize=7,
-                 color="0.35", ha="right", va="bottom")
+        fig.text(
+            MARGIN / PAGE_SIZE[0],
+            0.35 / PAGE_SIZE[1],
+            self.footer,
+            fontsize=7,
+            color="0.35",
+            va="bottom",
+        )
+        fig.text(
+            1 - MARGIN / PAGE_SIZE[0],
+            0.35 / PAGE_SIZE[1],
+            f"page {n}",
+            fontsize=7,
+            color="0.35",
+            ha="right",
+            va="bottom",
+        )
         self.pages.append(fig)
         self.y = PAGE_SIZE[1] - MARGIN  # cursor, inches from the bottom
         self.bottom = 0.75
@@ -88,8 +101,9 @@ class _Layout:
         self._text(MARGIN, self.y, s, fontsize=size, fontweight="bold", color=_ACCENT)
         self.y -= h
 
-    def paragraph(self, s: str, *, size: float = 9, color: str = "k", indent: float = 0.0,
-                  bullet: str = "") -> None:
+    def paragraph(
+        self, s: str, *, size: float = 9, color: str = "k", indent: float = 0.0, bullet: str = ""
+    ) -> None:
         width_chars = max(20, int((self.width - indent - 0.1) * 72 / (size * _EM_TEXT)))
         lines = textwrap.wrap(s, width_chars) or [""]
         line_h = size / 72 * 1.35
@@ -112,15 +126,21 @@ class _Layout:
             vlines = textwrap.wrap(str(v), val_chars) or [""]
             h = line_h * max(len(klines), len(vlines))
             self._need(h)
-            self._text(MARGIN, self.y, "\n".join(klines), fontsize=size, fontweight="bold",
-                       linespacing=1.2)
-            self._text(MARGIN + key_w, self.y, "\n".join(vlines), fontsize=size,
-                       linespacing=1.2)
+            self._text(
+                MARGIN, self.y, "\n".join(klines), fontsize=size, fontweight="bold", linespacing=1.2
+            )
+            self._text(MARGIN + key_w, self.y, "\n".join(vlines), fontsize=size, linespacing=1.2)
             self.y -= h + 0.02
         self.y -= 0.08
 
-    def table(self, df: pd.DataFrame, *, size: float = 7.5, max_rows: int | None = None,
-              shade_z: str | None = None) -> int:
+    def table(
+        self,
+        df: pd.DataFrame,
+        *,
+        size: float = 7.5,
+        max_rows: int | None = None,
+        shade_z: str | None = None,
+    ) -> int:
         """A table that fits the text width: columns sized by content, cells wrapped.
 
         Returns the number of rows drawn (rows continue on new pages with the header repeated).
@@ -137,8 +157,9 @@ class _Layout:
         for j, h in enumerate(header):
             col = [r[j] for r in cells]
             # numbers (and coordinate triples) are never broken
-            words = [w for t in col + [h]
-                     for w in ([t] if _NUMERIC.fullmatch(t) else t.split())] or [""]
+            words = [
+                w for t in col + [h] for w in ([t] if _NUMERIC.fullmatch(t) else t.split())
+            ] or [""]
             least.append(min(max(max(len(w) for w in words), 2), 24))
             nat.append(max(min(max([len(t) for t in col] + [least[-1]]), 44), least[-1]))
         nat_w = (np.array(nat) + 1) * char_w + pad
@@ -155,8 +176,7 @@ class _Layout:
         xs = np.concatenate([[0.0], np.cumsum(widths)])
 
         def wrapped(row):
-            return [textwrap.wrap(t, c, break_long_words=True) or [""] for t, c in
-                    zip(row, chars)]
+            return [textwrap.wrap(t, c, break_long_words=True) or [""] for t, c in zip(row, chars)]
 
         head = wrapped(header)
         head_h = line_h * max(len(h) for h in head) + 0.04
@@ -164,11 +184,16 @@ class _Layout:
         def draw_header():
             self._need(head_h + line_h * 2)
             top = self.y
-            self.fig.add_artist(_rect(self.fig, MARGIN, top - head_h, xs[-1], head_h,
-                                          "#eef2f6"))
+            self.fig.add_artist(_rect(self.fig, MARGIN, top - head_h, xs[-1], head_h, "#eef2f6"))
             for j, lines in enumerate(head):
-                self._text(MARGIN + xs[j] + 0.04, top - 0.02, "\n".join(lines), fontsize=size,
-                           fontweight="bold", linespacing=1.1)
+                self._text(
+                    MARGIN + xs[j] + 0.04,
+                    top - 0.02,
+                    "\n".join(lines),
+                    fontsize=size,
+                    fontweight="bold",
+                    linespacing=1.1,
+                )
             self.y -= head_h
 
         draw_header()
@@ -182,11 +207,24 @@ class _Layout:
             if zi is not None:
                 z = r[zi]
                 if isinstance(z, (float, np.floating)) and np.isfinite(z) and abs(z) > 1.96:
-                    self.fig.add_artist(_rect(self.fig, MARGIN, self.y - h, xs[-1], h,
-                                                  "#fbeaea" if z > 0 else "#e8f0fb"))
+                    self.fig.add_artist(
+                        _rect(
+                            self.fig,
+                            MARGIN,
+                            self.y - h,
+                            xs[-1],
+                            h,
+                            "#fbeaea" if z > 0 else "#e8f0fb",
+                        )
+                    )
             for j, c in enumerate(lines):
-                self._text(MARGIN + xs[j] + 0.04, self.y - 0.015, "\n".join(c), fontsize=size,
-                           linespacing=1.1)
+                self._text(
+                    MARGIN + xs[j] + 0.04,
+                    self.y - 0.015,
+                    "\n".join(c),
+                    fontsize=size,
+                    linespacing=1.1,
+                )
             self.y -= h
             self.fig.add_artist(_hline(self.fig, MARGIN, self.y, xs[-1]))
         self.y -= 0.12
@@ -206,8 +244,9 @@ class _Layout:
             h, w = limit, limit * iw / ih
         if h + cap_h > self.room():
             self._new_page()
-        ax = self.fig.add_axes((MARGIN / PAGE_SIZE[0], (self.y - h) / PAGE_SIZE[1],
-                                w / PAGE_SIZE[0], h / PAGE_SIZE[1]))
+        ax = self.fig.add_axes(
+            (MARGIN / PAGE_SIZE[0], (self.y - h) / PAGE_SIZE[1], w / PAGE_SIZE[0], h / PAGE_SIZE[1])
+        )
         ax.imshow(img, interpolation="antialiased")
         ax.set_axis_off()
         self.y -= h
@@ -230,16 +269,24 @@ def _rect(fig, x, y, w, h, colour):
     from matplotlib.patches import Rectangle
 
     W, H = PAGE_SIZE
-    return Rectangle((x / W, y / H), w / W, h / H, transform=fig.transFigure, facecolor=colour,
-                     edgecolor="none", zorder=-1)
+    return Rectangle(
+        (x / W, y / H),
+        w / W,
+        h / H,
+        transform=fig.transFigure,
+        facecolor=colour,
+        edgecolor="none",
+        zorder=-1,
+    )
 
 
 def _hline(fig, x, y, w):
     from matplotlib.lines import Line2D
 
     W, H = PAGE_SIZE
-    return Line2D([x / W, (x + w) / W], [y / H, y / H], transform=fig.transFigure,
-                  color="#d5dae1", lw=0.5)
+    return Line2D(
+        [x / W, (x + w) / W], [y / H, y / H], transform=fig.transFigure, color="#d5dae1", lw=0.5
+    )
 
 
 # ---------------------------------------------------------------------- content
@@ -269,17 +316,35 @@ def _pick(figs: dict, keys) -> list:
 def _figure_pages(lay: _Layout, result, figs: dict, summary) -> None:
     bands = list(result.bands.names)
     c = result.candidates
-    top_band = (str(c.iloc[0]["band"]) if c is not None and len(c) and "band" in c.columns
-                else (bands[0] if bands else None))
+    top_band = (
+        str(c.iloc[0]["band"])
+        if c is not None and len(c) and "band" in c.columns
+        else (bands[0] if bands else None)
+    )
     groups = [
-        ("Sensor maps", _pick(figs, ["topomap-z/absolute", "topomap-z/relative"])
-         or _pick(figs, ["topomap/absolute", "topomap/relative"]), 4.2),
-        ("Source z maps (per-source z, surface)",
-         _pick(figs, [f"surface-z/{top_band}/absolute", f"surface-z/{top_band}/relative"]), 4.3),
-        ("Source z maps (area z, glass brain)",
-         _pick(figs, [f"glass-z/{b}/absolute" for b in bands]), 1.7),
-        ("Source power", _pick(figs, [f"glass/{b}/absolute" for b in bands])
-         if not any(k.startswith("glass-z/") for k in figs) else [], 1.95),
+        (
+            "Sensor maps",
+            _pick(figs, ["topomap-z/absolute", "topomap-z/relative"])
+            or _pick(figs, ["topomap/absolute", "topomap/relative"]),
+            4.2,
+        ),
+        (
+            "Source z maps (per-source z, surface)",
+            _pick(figs, [f"surface-z/{top_band}/absolute", f"surface-z/{top_band}/relative"]),
+            4.3,
+        ),
+        (
+            "Source z maps (area z, glass brain)",
+            _pick(figs, [f"glass-z/{b}/absolute" for b in bands]),
+            1.7,
+        ),
+        (
+            "Source power",
+            _pick(figs, [f"glass/{b}/absolute" for b in bands])
+            if not any(k.startswith("glass-z/") for k in figs)
+            else [],
+            1.95,
+        ),
         ("Areas and networks", _pick(figs, ["roi-heatmap/absolute", "networks/absolute"]), 5.0),
         ("Coupling", _pick(figs, [f"pairs/{top_band}/lagcoh", "coupling/lagcoh"]), 4.6),
     ]
@@ -294,11 +359,17 @@ def _figure_pages(lay: _Layout, result, figs: dict, summary) -> None:
 
 def _caption(key: str, result) -> str:
     parts = key.split("/")
-    what = {"topomap-z": "sensor z by band", "topomap": "sensor power by band",
-            "surface-z": "per-source z on the cortical surface",
-            "glass-z": "area z painted on the sources", "glass": "source power",
-            "roi-heatmap": "area z by band", "networks": "network z per band",
-            "pairs": "electrode pairs beyond the limit", "coupling": "network coupling"}
+    what = {
+        "topomap-z": "sensor z by band",
+        "topomap": "sensor power by band",
+        "surface-z": "per-source z on the cortical surface",
+        "glass-z": "area z painted on the sources",
+        "glass": "source power",
+        "roi-heatmap": "area z by band",
+        "networks": "network z per band",
+        "pairs": "electrode pairs beyond the limit",
+        "coupling": "network coupling",
+    }
     kind = what.get(parts[0], parts[0])
     rest = ", ".join(p for p in parts[1:])
     return f"{kind} ({rest})" if rest else kind
@@ -312,28 +383,51 @@ def _detail_pages(lay: _Layout, result) -> None:
         lay.paragraph("No z-scores (no norms given)." if not result.has_z else "None.")
     else:
         n = 40
-        lay.paragraph(f"{len(d)} area, network and sensor values lie beyond ±1.96; the "
-                      f"{min(n, len(d))} "
-                      "with the largest |z| are listed (full list in the HTML report and "
-                      "roi_table.tsv).", size=8.5)
-        keep = [c for c in ("level", "atlas", "roi", "hemisphere", "band", "measure", "z",
-                            "fdr", "robust") if c in d.columns]
+        lay.paragraph(
+            f"{len(d)} area, network and sensor values lie beyond ±1.96; the "
+            f"{min(n, len(d))} "
+            "with the largest |z| are listed (full list in the HTML report and "
+            "roi_table.tsv).",
+            size=8.5,
+        )
+        keep = [
+            c
+            for c in (
+                "level",
+                "atlas",
+                "roi",
+                "hemisphere",
+                "band",
+                "measure",
+                "z",
+                "fdr",
+                "robust",
+            )
+            if c in d.columns
+        ]
         lay.table(human_table(d[keep].head(n)), size=7, shade_z="z")
     lay.page_break()
     lay.heading("Recording and data quality")
     rec = result.recording
-    lay.kv([("file", file_name(rec.path) if rec.path else "given in memory"),
+    lay.kv(
+        [
+            ("file", file_name(rec.path) if rec.path else "given in memory"),
             ("SHA-256", rec.sha256 or "not given"),
             ("electrodes", ", ".join(result.ch_names)),
             ("interpolated", value_text(list(rec.interpolated))),
-            ("warnings", "; ".join(result.warnings) or "none")])
+            ("warnings", "; ".join(result.warnings) or "none"),
+        ]
+    )
     from .labels import reliability_table
 
     rel_table = reliability_table(result.quality.reliability or {})
     if len(rel_table):
         lay.heading("Reliability of band power", size=11, keep=0.8)
-        lay.paragraph("Agreement of two halves of the clean epochs on log10 band power across "
-                      "sensors or areas: ICC(2,1) with its 95 % interval in brackets.", size=8)
+        lay.paragraph(
+            "Agreement of two halves of the clean epochs on log10 band power across "
+            "sensors or areas: ICC(2,1) with its 95 % interval in brackets.",
+            size=8,
+        )
         lay.table(rel_table.rename(columns={"halves": "halves compared"}), size=7)
     lay.heading("Methods", size=11, keep=0.8)
     cfg = result.config
@@ -343,7 +437,9 @@ def _detail_pages(lay: _Layout, result) -> None:
         f"{cfg.method} ({cfg.orientation} orientation, λ² = {cfg.lambda2:.4g}) on a "
         "three-layer boundary-element model of the fsaverage template with 19 template "
         "electrode positions; areas and networks average their sources; z = (value - norm "
-        "mean) / norm SD after the norms' transform.", size=8.5)
+        "mean) / norm SD after the norms' transform.",
+        size=8.5,
+    )
     lay.heading("References", size=11, keep=0.6)
     for i, r in enumerate(REFERENCES, 1):
         lay.paragraph(f"{i}. {r}", size=7.5)
@@ -352,8 +448,18 @@ def _detail_pages(lay: _Layout, result) -> None:
         lay.paragraph(c, size=8, color=_CAUTION)
     fp = result.fingerprint.to_dict()
     lay.heading("Pipeline fingerprint", size=11, keep=0.6)
-    lay.kv([(k, "; ".join(f"{b[0]} {b[1]:g}-{b[2]:g} Hz" for b in v) if k == "bands"
-             else value_text(v)) for k, v in fp.items()], size=7.5)
+    lay.kv(
+        [
+            (
+                k,
+                "; ".join(f"{b[0]} {b[1]:g}-{b[2]:g} Hz" for b in v)
+                if k == "bands"
+                else value_text(v),
+            )
+            for k, v in fp.items()
+        ],
+        size=7.5,
+    )
 
 
 def pdf_pages(result, figures: dict | None = None, *, title: str | None = None) -> list[Figure]:
@@ -377,8 +483,14 @@ def pdf_pages(result, figures: dict | None = None, *, title: str | None = None) 
         summary = report_summary(result, n_top=n_top)
         when = dict(summary.facts).get("Analysed", "")
         lay = _Layout(title, f"{title} · {when} · not a diagnostic device")
-        lay.fig.text(MARGIN / PAGE_SIZE[0], 1 - 0.35 / PAGE_SIZE[1], title, fontsize=9,
-                     color=_ACCENT, va="top")
+        lay.fig.text(
+            MARGIN / PAGE_SIZE[0],
+            1 - 0.35 / PAGE_SIZE[1],
+            title,
+            fontsize=9,
+            color=_ACCENT,
+            va="top",
+        )
         lay.y -= 0.1
         _summary_page(lay, result, summary, scale=size)
         if len(lay.pages) == 1:
@@ -387,8 +499,9 @@ def pdf_pages(result, figures: dict | None = None, *, title: str | None = None) 
     _detail_pages(lay, result)
     pages = lay.pages
     if len(pages) > MAX_PAGES:
-        logger.info("PDF report: %d pages drawn, the last %d left out", len(pages),
-                    len(pages) - MAX_PAGES)
+        logger.info(
+            "PDF report: %d pages drawn, the last %d left out", len(pages), len(pages) - MAX_PAGES
+        )
         pages = pages[:MAX_PAGES]
     return pages
 
@@ -418,8 +531,9 @@ def write_pdf(result, path, *, figures: dict | None = None, title: str | None = 
     path = Path(path)
     pages = pdf_pages(result, figures, title=title)
     buf = io.BytesIO()
-    with PdfPages(buf, metadata={"Title": title or "sourcelab report",
-                                 "Creator": "sourcelab"}) as pdf:
+    with PdfPages(
+        buf, metadata={"Title": title or "sourcelab report", "Creator": "sourcelab"}
+    ) as pdf:
         for fig in pages:
             pdf.savefig(fig)
     # temporary name + rename; an existing file is replaced only when sourcelab wrote it

@@ -90,9 +90,14 @@ def _facts(result, when: str) -> tuple:
             bits.append(str(src))
         facts.append(("Norms", ", ".join(bits)))
     cfg = result.config
-    facts.append(("Method", f"{cfg.method} on the fsaverage template, "
-                            f"{len(result.bands.names)} bands "
-                            f"({', '.join(_band_text(result, b) for b in result.bands.names)})"))
+    facts.append(
+        (
+            "Method",
+            f"{cfg.method} on the fsaverage template, "
+            f"{len(result.bands.names)} bands "
+            f"({', '.join(_band_text(result, b) for b in result.bands.names)})",
+        )
+    )
     facts.append(("Analysed", when))
     return tuple(facts)
 
@@ -103,39 +108,58 @@ def _quality(result) -> tuple:
     out = []
     share = q.kept_s / rec.duration_s if rec.duration_s else np.nan
     epoch = result.config.epoch_s
-    txt = (f"{q.kept_s:.0f} s of clean data in {q.n_epochs} epochs of {epoch:g} s"
-           + (f" ({share:.0%} of the recording)." if np.isfinite(share) else "."))
+    txt = f"{q.kept_s:.0f} s of clean data in {q.n_epochs} epochs of {epoch:g} s" + (
+        f" ({share:.0%} of the recording)." if np.isfinite(share) else "."
+    )
     out.append(txt)
-    removed = {k: float(v) for k, v in (q.rejected_s or {}).items()
-               if isinstance(v, (int, float, np.floating)) and v > 0}
+    removed = {
+        k: float(v)
+        for k, v in (q.rejected_s or {}).items()
+        if isinstance(v, (int, float, np.floating)) and v > 0
+    }
     if removed:
-        out.append("Removed: " + ", ".join(f"{v:.0f} s {k.replace('-', ' ')}"
-                                           for k, v in sorted(removed.items(),
-                                                              key=lambda kv: -kv[1])) + ".")
+        out.append(
+            "Removed: "
+            + ", ".join(
+                f"{v:.0f} s {k.replace('-', ' ')}"
+                for k, v in sorted(removed.items(), key=lambda kv: -kv[1])
+            )
+            + "."
+        )
     else:
         out.append("Nothing had to be removed for artefacts.")
-    weak = {ch: f for ch, f in (q.channel_kept_fraction or {}).items()
-            if isinstance(f, (int, float, np.floating)) and f < 0.8}
+    weak = {
+        ch: f
+        for ch, f in (q.channel_kept_fraction or {}).items()
+        if isinstance(f, (int, float, np.floating)) and f < 0.8
+    }
     if weak:
-        out.append("Sites that failed their own checks in more than 20 % of epochs: "
-                   + ", ".join(f"{ch} ({f:.0%} kept)" for ch, f in weak.items()) + ".")
+        out.append(
+            "Sites that failed their own checks in more than 20 % of epochs: "
+            + ", ".join(f"{ch} ({f:.0%} kept)" for ch, f in weak.items())
+            + "."
+        )
     if rec.interpolated:
         out.append(f"Interpolated from their neighbours: {', '.join(rec.interpolated)}.")
-    out.append(f"Mains interference at {q.mains_hz:g} Hz was notched out." if q.mains_hz
-               else "No mains interference was found.")
+    out.append(
+        f"Mains interference at {q.mains_hz:g} Hz was notched out."
+        if q.mains_hz
+        else "No mains interference was found."
+    )
     oc = q.ocular or {}
     removed_c = oc.get("removed_components") or []
     if removed_c:
-        out.append(f"{len(removed_c)} eye-movement component(s) removed "
-                   f"({value_text(oc.get('method'))}).")
+        out.append(
+            f"{len(removed_c)} eye-movement component(s) removed ({value_text(oc.get('method'))})."
+        )
     elif oc:
         out.append("No eye-movement components needed removing.")
     rd = oc.get("residual_delta") or {}
     if rd.get("ocular"):
-        out.append("The slow-wave maximum looks like remaining eye activity: read frontal delta "
-                   "with care.")
-    rel = {k: (v if isinstance(v, dict) else v.to_dict())
-           for k, v in (q.reliability or {}).items()}
+        out.append(
+            "The slow-wave maximum looks like remaining eye activity: read frontal delta with care."
+        )
+    rel = {k: (v if isinstance(v, dict) else v.to_dict()) for k, v in (q.reliability or {}).items()}
     from .labels import lowest_agreement
 
     sens = rel.get("sensors") or {}
@@ -143,46 +167,61 @@ def _quality(result) -> tuple:
     low = lowest_agreement(rel)
     if low is not None:
         band, c = low
-        ci = ("" if c.get("low") is None or c.get("high") is None
-              else f", 95 % interval {c['low']:.2f} to {c['high']:.2f}")
-        out.append(f"Agreement of two halves of the recording on sensor band power (ICC): "
-                   f"lowest {c['icc']:.2f} in {band}{ci}.")
+        ci = (
+            ""
+            if c.get("low") is None or c.get("high") is None
+            else f", 95 % interval {c['low']:.2f} to {c['high']:.2f}"
+        )
+        out.append(
+            f"Agreement of two halves of the recording on sensor band power (ICC): "
+            f"lowest {c['icc']:.2f} in {band}{ci}."
+        )
     elif sh:
         lo_band = min(sh, key=lambda b: sh[b])
-        out.append(f"Split-half reliability of sensor band power: lowest {sh[lo_band]:.2f} "
-                   f"({lo_band}).")
-    flagged = [f"{'sensors' if lvl == 'sensors' else lvl + ' areas'} in "
-               f"{', '.join(r['flagged_bands'])}" for lvl, r in rel.items()
-               if r.get("flagged_bands")]
+        out.append(
+            f"Split-half reliability of sensor band power: lowest {sh[lo_band]:.2f} ({lo_band})."
+        )
+    flagged = [
+        f"{'sensors' if lvl == 'sensors' else lvl + ' areas'} in {', '.join(r['flagged_bands'])}"
+        for lvl, r in rel.items()
+        if r.get("flagged_bands")
+    ]
     if flagged:
         thr = next(iter(rel.values())).get("threshold", 0.9)
-        out.append(f"Reliability below {thr:.2f} at " + "; ".join(flagged)
-                   + ": read those bands with care.")
+        out.append(
+            f"Reliability below {thr:.2f} at "
+            + "; ".join(flagged)
+            + ": read those bands with care."
+        )
     elif rel:
         out.append("Reliability above the threshold in every band.")
     if result.warnings:
-        out.append(f"{len(result.warnings)} warning(s) from reading and cleaning: see Data "
-                   "quality.")
+        out.append(
+            f"{len(result.warnings)} warning(s) from reading and cleaning: see Data quality."
+        )
     return tuple(out)
 
 
 def _peak_candidates(result, c: pd.DataFrame) -> pd.DataFrame:
     rows = []
     for r in c.itertuples(index=False):
-        rows.append({
-            "rank": int(r.rank),
-            "band": _band_text(result, r.band),
-            "measure": str(r.measure),
-            "direction": str(r.direction),
-            "area": f"{r.area} {area_name(r.area)}".strip(),
-            "side": str(r.hemisphere),
-            "peak z": f"{r.peak_z:+.1f}",
-            "MNI x, y, z (mm)": f"{r.x_mni152:.0f}, {r.y_mni152:.0f}, {r.z_mni152:.0f}",
-            "probability in area": (f"{r.probability:.0%}" if np.isfinite(r.probability)
-                                    else NOT_GIVEN),
-            "own share": f"{r.own_share:.0%}" if np.isfinite(r.own_share) else NOT_GIVEN,
-            "spread over": _spans(r.cluster_areas),
-        })
+        rows.append(
+            {
+                "rank": int(r.rank),
+                "band": _band_text(result, r.band),
+                "measure": str(r.measure),
+                "direction": str(r.direction),
+                "area": f"{r.area} {area_name(r.area)}".strip(),
+                "side": str(r.hemisphere),
+                "peak z": f"{r.peak_z:+.1f}",
+                "MNI x, y, z (mm)": f"{r.x_mni152:.0f}, {r.y_mni152:.0f}, {r.z_mni152:.0f}",
+                "probability in area": (
+                    f"{r.probability:.0%}" if np.isfinite(r.probability) else NOT_GIVEN
+                ),
+                "own share": f"{r.own_share:.0%}" if np.isfinite(r.own_share) else NOT_GIVEN,
+                "spread over": _spans(r.cluster_areas),
+            }
+        )
     return pd.DataFrame(rows)
 
 
@@ -190,8 +229,9 @@ def _spans(text) -> str:
     """``"BA9 left:45;BA8 left:42;..."`` -> ``"BA9, BA8, BA46 (+2)"`` (areas the cluster spans)."""
     if not isinstance(text, str) or not text:
         return NOT_GIVEN
-    areas = [p.split(":")[0].replace(" left", " L").replace(" right", " R")
-             for p in text.split(";") if p]
+    areas = [
+        p.split(":")[0].replace(" left", " L").replace(" right", " R") for p in text.split(";") if p
+    ]
     more = f" (+{len(areas) - 3})" if len(areas) > 3 else ""
     return ", ".join(areas[:3]) + more
 
@@ -199,11 +239,18 @@ def _spans(text) -> str:
 def _roi_candidates(result, c: pd.DataFrame) -> pd.DataFrame:
     rows = []
     for r in c.itertuples(index=False):
-        rows.append({"rank": int(r.rank), "band": _band_text(result, r.band),
-                     "measure": str(r.measure), "direction": str(getattr(r, "direction", "")),
-                     "area": f"{r.roi} {area_name(r.roi)}".strip(), "side": str(r.hemisphere),
-                     "z": f"{r.z:+.1f}",
-                     "FDR significant": value_text(getattr(r, "fdr", None))})
+        rows.append(
+            {
+                "rank": int(r.rank),
+                "band": _band_text(result, r.band),
+                "measure": str(r.measure),
+                "direction": str(getattr(r, "direction", "")),
+                "area": f"{r.roi} {area_name(r.roi)}".strip(),
+                "side": str(r.hemisphere),
+                "z": f"{r.z:+.1f}",
+                "FDR significant": value_text(getattr(r, "fdr", None)),
+            }
+        )
     return pd.DataFrame(rows)
 
 
@@ -239,27 +286,33 @@ def report_summary(result, *, when: str | None = None, n_top: int = N_TOP) -> Su
         z = t["z_equivalent" if "z_equivalent" in t else "z"].to_numpy(dtype=float)
         n = int(np.isfinite(z).sum())
         big = int(np.sum(np.abs(z[np.isfinite(z)]) > Z_THRESHOLD))
-        headline = (f"{big} of {n} area and network z-scores lie beyond ±{Z_THRESHOLD:g} "
-                    f"(about {0.05 * n:.0f} would by chance alone).")
+        headline = (
+            f"{big} of {n} area and network z-scores lie beyond ±{Z_THRESHOLD:g} "
+            f"(about {0.05 * n:.0f} would by chance alone)."
+        )
         if c is not None and len(c):
             headline += f" {len(c)} candidate(s); the first {min(n_top, len(c))} are listed."
         else:
             headline += " No candidate area."
         if peak:
-            note = ("Candidates are peaks of the per-source z map, named after the Brodmann "
-                    "area holding the peak, absolute power first. How sure: 'probability in "
-                    "area' is the calibrated chance that the generator lies in the named area "
-                    "under a simulated head (a real head can differ more). How blurred: 'own "
-                    "share' is the part of the area's estimated power that comes from the area "
-                    "itself rather than from its neighbours, and 'spread over' lists the areas "
-                    "the deviating cluster covers. MNI coordinates mark a region of about a "
-                    "centimetre or more, not a point. Statistical deviations only: choosing a "
-                    "training target rests with a licensed practitioner.")
+            note = (
+                "Candidates are peaks of the per-source z map, named after the Brodmann "
+                "area holding the peak, absolute power first. How sure: 'probability in "
+                "area' is the calibrated chance that the generator lies in the named area "
+                "under a simulated head (a real head can differ more). How blurred: 'own "
+                "share' is the part of the area's estimated power that comes from the area "
+                "itself rather than from its neighbours, and 'spread over' lists the areas "
+                "the deviating cluster covers. MNI coordinates mark a region of about a "
+                "centimetre or more, not a point. Statistical deviations only: choosing a "
+                "training target rests with a licensed practitioner."
+            )
         else:
-            note = ("Candidates are areas whose mean z lies beyond the limit, FDR-significant "
-                    "first. Areas next to each other share much of their signal (see the "
-                    "neighbour blur check). Statistical deviations only: choosing a training "
-                    "target rests with a licensed practitioner.")
+            note = (
+                "Candidates are areas whose mean z lies beyond the limit, FDR-significant "
+                "first. Areas next to each other share much of their signal (see the "
+                "neighbour blur check). Statistical deviations only: choosing a training "
+                "target rests with a licensed practitioner."
+            )
     return Summary(_facts(result, when), _quality(result), table, note, headline)
 
 

@@ -69,8 +69,15 @@ from ..errors import InputError
 from ..headmodel.geometry import mni305_to_mni152
 from ..headmodel.model import HEMIS, N_PER_HEMI, N_SURFACE
 from .atlas import ROI, Atlas
-from .registry import (SMALL_MIN_VERTICES, brodmann_labels, groupings, hemisphere_mask, make_roi,
-                       surface_to_sources, yeo7_labels)
+from .registry import (
+    SMALL_MIN_VERTICES,
+    brodmann_labels,
+    groupings,
+    hemisphere_mask,
+    make_roi,
+    surface_to_sources,
+    yeo7_labels,
+)
 
 logger = logging.getLogger("sourcelab")
 
@@ -101,8 +108,12 @@ def _area_vertices(area: str, path: Path) -> np.ndarray:
         lab, names = yeo7_labels()
         if area[5:] in names:
             return lab == names.index(area[5:]) + 1
-    allowed = ("BA<n>", *g["lobes"]["groups"], *g["networks"]["groups"],
-               *(f"yeo7:{n}" for n in yeo7_labels()[1]))
+    allowed = (
+        "BA<n>",
+        *g["lobes"]["groups"],
+        *g["networks"]["groups"],
+        *(f"yeo7:{n}" for n in yeo7_labels()[1]),
+    )
     raise InputError(f"unknown area {area!r}; allowed: {', '.join(allowed)}", path=path)
 
 
@@ -111,8 +122,9 @@ def _sphere(center, radius, space: str, path: Path) -> np.ndarray:
         c = np.asarray(center, dtype=float).reshape(3)
         r = float(radius)
     except (TypeError, ValueError):
-        raise InputError(f"sphere needs center = [x, y, z] and radius_mm, got {center!r}, "
-                         f"{radius!r}", path=path) from None
+        raise InputError(
+            f"sphere needs center = [x, y, z] and radius_mm, got {center!r}, {radius!r}", path=path
+        ) from None
     if not np.all(np.isfinite(c)) or not (np.isfinite(r) and r > 0):
         raise InputError(f"sphere center must be finite and radius_mm > 0, got {r!r}", path=path)
     if space not in ("mni152", "mni305"):
@@ -137,12 +149,17 @@ def _read_label(file: Path, hemi: str, path: Path) -> np.ndarray:
 
 def _local_to_mask(v: np.ndarray, hemi: str, file: Path) -> np.ndarray:
     if hemi not in HEMIS:
-        raise InputError(f"hemisphere must be left or right for {file.name}, got {hemi!r}",
-                         path=file)
+        raise InputError(
+            f"hemisphere must be left or right for {file.name}, got {hemi!r}", path=file
+        )
     dropped = int(np.sum(v >= N_PER_HEMI))
     if dropped:
-        logger.warning("%s: %d vertices are not on fsaverage5 (index >= %d) and were dropped",
-                       file, dropped, N_PER_HEMI)
+        logger.warning(
+            "%s: %d vertices are not on fsaverage5 (index >= %d) and were dropped",
+            file,
+            dropped,
+            N_PER_HEMI,
+        )
     v = v[(v >= 0) & (v < N_PER_HEMI)]
     m = np.zeros(N_SURFACE, dtype=bool)
     m[v + HEMIS.index(hemi) * N_PER_HEMI] = True
@@ -157,17 +174,20 @@ def _read_annot(file: Path, hemi: str, entries, name: str) -> list[tuple[str, np
     except (OSError, ValueError, IndexError) as exc:
         raise InputError(f"cannot read FreeSurfer annotation ({exc})", path=file) from None
     if lab.shape[0] not in (N_PER_HEMI, 163842):
-        raise InputError(f"annotation has {lab.shape[0]} vertices; expected fsaverage5 "
-                         f"({N_PER_HEMI}) or fsaverage (163842)", path=file)
+        raise InputError(
+            f"annotation has {lab.shape[0]} vertices; expected fsaverage5 "
+            f"({N_PER_HEMI}) or fsaverage (163842)",
+            path=file,
+        )
     lab = np.asarray(lab[:N_PER_HEMI])
     names = [n.decode() if isinstance(n, bytes) else str(n) for n in names]
     wanted = names if entries is None else list(entries)
     unknown = [e for e in wanted if e not in names]
     if unknown:
-        raise InputError(f"entries {unknown} not in the annotation; allowed: {', '.join(names)}",
-                         path=file)
-    masks = [(e, _local_to_mask(np.flatnonzero(lab == names.index(e)), hemi, file))
-             for e in wanted]
+        raise InputError(
+            f"entries {unknown} not in the annotation; allowed: {', '.join(names)}", path=file
+        )
+    masks = [(e, _local_to_mask(np.flatnonzero(lab == names.index(e)), hemi, file)) for e in wanted]
     if entries is not None:
         return [(name, np.logical_or.reduce([m for _, m in masks]))]
     return [(f"{name}.{e}", m) for e, m in masks if m.any()]
@@ -177,16 +197,27 @@ def _one_roi(spec: dict, base: Path, path: Path) -> list[tuple[str, str | None, 
     """(name, hemisphere or None, mask) triples from one ROI definition."""
     name = str(spec.get("name", "")).strip()
     if not name or len(name) > 64 or not name.isprintable():
-        raise InputError(f"every ROI needs a printable name of 1-64 characters, got {name!r}",
-                         path=path)
+        raise InputError(
+            f"every ROI needs a printable name of 1-64 characters, got {name!r}", path=path
+        )
     kind = spec.get("kind")
     hemi = spec.get("hemisphere") or None
     if hemi is not None and hemi not in _HEMI_OPTIONS:
-        raise InputError(f"ROI {name!r}: hemisphere {hemi!r}; allowed: {', '.join(_HEMI_OPTIONS)}",
-                         path=path)
+        raise InputError(
+            f"ROI {name!r}: hemisphere {hemi!r}; allowed: {', '.join(_HEMI_OPTIONS)}", path=path
+        )
     if kind == "sphere":
-        masks = [(name, _sphere(spec.get("center"), spec.get("radius_mm"),
-                                str(spec.get("space", "mni152")), path))]
+        masks = [
+            (
+                name,
+                _sphere(
+                    spec.get("center"),
+                    spec.get("radius_mm"),
+                    str(spec.get("space", "mni152")),
+                    path,
+                ),
+            )
+        ]
     elif kind == "areas":
         areas = spec.get("areas")
         if not isinstance(areas, list) or not areas:
@@ -198,8 +229,10 @@ def _one_roi(spec: dict, base: Path, path: Path) -> list[tuple[str, str | None, 
         except (TypeError, ValueError):
             raise InputError(f"ROI {name!r}: vertices must be integers", path=path) from None
         if v.size and (v.min() < 0 or v.max() >= N_SURFACE):
-            raise InputError(f"ROI {name!r}: vertices must be fsaverage5 surface vertices "
-                             f"0..{N_SURFACE - 1}", path=path)
+            raise InputError(
+                f"ROI {name!r}: vertices must be fsaverage5 surface vertices 0..{N_SURFACE - 1}",
+                path=path,
+            )
         m = np.zeros(N_SURFACE, dtype=bool)
         m[v] = True
         masks = [(name, m)]
@@ -215,8 +248,10 @@ def _one_roi(spec: dict, base: Path, path: Path) -> list[tuple[str, str | None, 
         else:
             masks = _read_annot(file, hemi or "", spec.get("entries"), name)
     else:
-        raise InputError(f"ROI {name!r}: unknown kind {kind!r}; allowed: sphere, areas, "
-                         "vertices, label, annot", path=path)
+        raise InputError(
+            f"ROI {name!r}: unknown kind {kind!r}; allowed: sphere, areas, vertices, label, annot",
+            path=path,
+        )
     return [(n, hemi, m) for n, m in masks]
 
 
@@ -232,18 +267,23 @@ def _read_tsv(path: Path) -> list[dict]:
         parts = text.replace(",", " ").split()
         if row["kind"] == "sphere":
             if len(parts) not in (4, 5):
-                raise InputError(f"ROI {row['name']!r}: sphere spec is 'x y z radius [space]'",
-                                 path=path)
-            spec.update(center=parts[:3], radius_mm=parts[3],
-                        space=parts[4] if len(parts) == 5 else "mni152")
+                raise InputError(
+                    f"ROI {row['name']!r}: sphere spec is 'x y z radius [space]'", path=path
+                )
+            spec.update(
+                center=parts[:3],
+                radius_mm=parts[3],
+                space=parts[4] if len(parts) == 5 else "mni152",
+            )
         elif row["kind"] == "areas":
             spec["areas"] = parts
         elif row["kind"] == "vertices":
             try:
                 spec["vertices"] = [int(p) for p in parts]
             except ValueError:
-                raise InputError(f"ROI {row['name']!r}: vertices must be integers",
-                                 path=path) from None
+                raise InputError(
+                    f"ROI {row['name']!r}: vertices must be integers", path=path
+                ) from None
         else:
             spec["file"] = text
         out.append(spec)
@@ -309,9 +349,20 @@ def load_custom_rois(path: str | Path) -> Atlas:
             seen.add((name, hemi))
             roi = make_roi(name, hemi, v)
             if roi.small:
-                logger.warning("ROI %r (%s) in %s has only %d sources (< %d): too small to trust "
-                               "at this resolution; flagged small", name, hemi, path, v.size,
-                               SMALL_MIN_VERTICES)
+                logger.warning(
+                    "ROI %r (%s) in %s has only %d sources (< %d): too small to trust "
+                    "at this resolution; flagged small",
+                    name,
+                    hemi,
+                    path,
+                    v.size,
+                    SMALL_MIN_VERTICES,
+                )
             rois.append(roi)
-    return Atlas(name=atlas_name, description=description, citation="user-defined",
-                 rois=tuple(rois), sha256=sha256_file(path))
+    return Atlas(
+        name=atlas_name,
+        description=description,
+        citation="user-defined",
+        rois=tuple(rois),
+        sha256=sha256_file(path),
+    )

@@ -76,15 +76,18 @@ def roi_reduce(values: np.ndarray, atlas: Atlas | str, *, mode: str = "mean") ->
     n_src = load_head_model().n_src
     values = np.asarray(values)
     if values.ndim == 0 or values.shape[-1] != n_src:
-        raise InputError(f"values must have {n_src} sources on the last axis, got shape "
-                         f"{values.shape}")
+        raise InputError(
+            f"values must have {n_src} sources on the last axis, got shape {values.shape}"
+        )
     func = ROI_MODES[mode]
-    out = np.empty(values.shape[:-1] + (len(atlas.rois),),
-                   dtype=np.result_type(values.dtype, np.float64))
+    out = np.empty(
+        values.shape[:-1] + (len(atlas.rois),), dtype=np.result_type(values.dtype, np.float64)
+    )
     for k, roi in enumerate(atlas.rois):
         if roi.vertices.size == 0:
-            raise InputError(f"ROI {roi.name!r} ({roi.hemisphere}) of atlas {atlas.name!r} has no "
-                             "sources")
+            raise InputError(
+                f"ROI {roi.name!r} ({roi.hemisphere}) of atlas {atlas.name!r} has no sources"
+            )
         w = _centroid_weights(roi.vertices) if mode == "centroid_weighted" else None
         out[..., k] = func(values[..., roi.vertices], w)
     return out

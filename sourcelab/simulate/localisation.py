@@ -105,8 +105,15 @@ class SimSetup:
         return self.space.vertices >= 10242
 
 
-def make_setup(model, space, *, seed: int = 0, n_jitter: int = 16, realisations=None,
-               exclude_unresolvable: bool = True) -> SimSetup:
+def make_setup(
+    model,
+    space,
+    *,
+    seed: int = 0,
+    n_jitter: int = 16,
+    realisations=None,
+    exclude_unresolvable: bool = True,
+) -> SimSetup:
     """Build a :class:`SimSetup` (the mismatch forward is cached on disk).
 
     Parameters
@@ -140,8 +147,14 @@ def make_setup(model, space, *, seed: int = 0, n_jitter: int = 16, realisations=
     if exclude_unresolvable:
         table = resolvability_table(space, model.ch_pos, model.src_pos)
         excl = unresolvable_codes(space, table)
-    return SimSetup(space=space, true_gain=gain, background=bg, own=own_shares(space),
-                    exclude=excl, realisations=real)
+    return SimSetup(
+        space=space,
+        true_gain=gain,
+        background=bg,
+        own=own_shares(space),
+        exclude=excl,
+        realisations=real,
+    )
 
 
 def power_map(kernel: np.ndarray, csd: np.ndarray) -> np.ndarray:
@@ -185,15 +198,21 @@ def wishart_csd(cov: np.ndarray, n_epochs: int, rng: np.random.Generator) -> np.
     ev, vec = np.linalg.eigh(cov)
     ll = vec * np.sqrt(np.clip(ev, 0, None))
     w = rng.standard_normal((cov.shape[0], n_epochs)) + 1j * rng.standard_normal(
-        (cov.shape[0], n_epochs))
+        (cov.shape[0], n_epochs)
+    )
     x = ll @ w
     return (x @ x.conj().T).real / (2.0 * n_epochs)
 
 
 # ----------------------------------------------------------------------------- point sources
-def point_source_maps(setup: SimSetup, sources: np.ndarray, *, rng: np.random.Generator,
-                      snr: np.ndarray | float | None, n_epochs: int = N_EPOCHS
-                      ) -> tuple[np.ndarray, np.ndarray]:
+def point_source_maps(
+    setup: SimSetup,
+    sources: np.ndarray,
+    *,
+    rng: np.random.Generator,
+    snr: np.ndarray | float | None,
+    n_epochs: int = N_EPOCHS,
+) -> tuple[np.ndarray, np.ndarray]:
     """Power maps of single cortical sources under the true head.
 
     Parameters
@@ -228,8 +247,13 @@ def point_source_maps(setup: SimSetup, sources: np.ndarray, *, rng: np.random.Ge
         if snr_a is None:
             maps[i] = (k @ g) ** 2
         else:
-            c = noisy_csd(g[:, None], snr=float(snr_a[i]), n_epochs=n_epochs, rng=rng,
-                          background=setup.background[r])[0]
+            c = noisy_csd(
+                g[:, None],
+                snr=float(snr_a[i]),
+                n_epochs=n_epochs,
+                rng=rng,
+                background=setup.background[r],
+            )[0]
             maps[i] = power_map(k, c)
     return maps, real
 
@@ -256,8 +280,15 @@ def patch_sources(setup: SimSetup, centre: int, radius_mm: float) -> np.ndarray:
     return np.flatnonzero((d <= radius_mm) & (setup.hemi == setup.hemi[centre]))
 
 
-def person_covariance(setup: SimSetup, rng: np.random.Generator, *, age: float, real: int,
-                      patch: np.ndarray | None = None, patch_ratio: float = 0.0) -> np.ndarray:
+def person_covariance(
+    setup: SimSetup,
+    rng: np.random.Generator,
+    *,
+    age: float,
+    real: int,
+    patch: np.ndarray | None = None,
+    patch_ratio: float = 0.0,
+) -> np.ndarray:
     """Expected band cross-spectrum of one invented person (true head, sensor space).
 
     Parameters
@@ -301,9 +332,16 @@ def person_covariance(setup: SimSetup, rng: np.random.Generator, *, age: float, 
     return cov
 
 
-def simulate_people(setup: SimSetup, ages: np.ndarray, rng: np.random.Generator, *,
-                    kernels=(), n_epochs: int = N_EPOCHS, patches=None, ratios=None
-                    ) -> list[np.ndarray]:
+def simulate_people(
+    setup: SimSetup,
+    ages: np.ndarray,
+    rng: np.random.Generator,
+    *,
+    kernels=(),
+    n_epochs: int = N_EPOCHS,
+    patches=None,
+    ratios=None,
+) -> list[np.ndarray]:
     """Per-source power maps of invented people through each kernel.
 
     Parameters
@@ -334,9 +372,14 @@ def simulate_people(setup: SimSetup, ages: np.ndarray, rng: np.random.Generator,
     out = [np.empty((n, k.shape[0])) for k in kernels]
     real = rng.choice(setup.realisations, n)
     for i in range(n):
-        cov = person_covariance(setup, rng, age=float(ages[i]), real=int(real[i]),
-                                patch=None if patches is None else patches[i],
-                                patch_ratio=0.0 if ratios is None else float(ratios[i]))
+        cov = person_covariance(
+            setup,
+            rng,
+            age=float(ages[i]),
+            real=int(real[i]),
+            patch=None if patches is None else patches[i],
+            patch_ratio=0.0 if ratios is None else float(ratios[i]),
+        )
         c = wishart_csd(cov, n_epochs, rng)
         for o, k in zip(out, kernels):
             o[i] = power_map(k, c)
@@ -344,8 +387,9 @@ def simulate_people(setup: SimSetup, ages: np.ndarray, rng: np.random.Generator,
 
 
 # ----------------------------------------------------------------------------- features, model
-def fit_logistic(x: np.ndarray, y: np.ndarray, *, ridge: float = 1e-3, max_iter: int = 50
-                 ) -> np.ndarray:
+def fit_logistic(
+    x: np.ndarray, y: np.ndarray, *, ridge: float = 1e-3, max_iter: int = 50
+) -> np.ndarray:
     """Maximum-likelihood logistic regression (Newton-Raphson / IRLS, tiny ridge on slopes).
 
     Parameters
@@ -402,15 +446,20 @@ def reliability(prob: np.ndarray, hit: np.ndarray, *, edges=(0.0, 0.2, 0.4, 0.6,
     out = []
     for lo, hi in zip(edges[:-1], edges[1:]):
         sel = (prob >= lo) & ((prob < hi) if hi < 1 else (prob <= hi))
-        out.append(dict(lo=lo, hi=hi, n=int(sel.sum()),
-                        stated=float(prob[sel].mean()) if sel.any() else np.nan,
-                        observed=float(hit[sel].mean()) if sel.any() else np.nan))
+        out.append(
+            dict(
+                lo=lo,
+                hi=hi,
+                n=int(sel.sum()),
+                stated=float(prob[sel].mean()) if sel.any() else np.nan,
+                observed=float(hit[sel].mean()) if sel.any() else np.nan,
+            )
+        )
     return out
 
 
 # ----------------------------------------------------------------------------- simulation sets
-def point_source_set(setup: SimSetup, n: int, rng: np.random.Generator, *,
-                     snr_range=(1.5, 10.0)):
+def point_source_set(setup: SimSetup, n: int, rng: np.random.Generator, *, snr_range=(1.5, 10.0)):
     """Features and outcomes of ``n`` point-source power maps (SNR log-uniform in range).
 
     Parameters
@@ -444,12 +493,24 @@ def _score_maps(setup, maps, true, src):
         named.append(a)
         x.append(area_features(v, setup.space, a, setup.own))
     named = np.asarray(named)
-    return {"x": np.asarray(x), "hit": (named == true).astype(float), "true": true,
-            "named": named, "sources": src}
+    return {
+        "x": np.asarray(x),
+        "hit": (named == true).astype(float),
+        "true": true,
+        "named": named,
+        "sources": src,
+    }
 
 
-def deviation_set(setup: SimSetup, n: int, rng: np.random.Generator, *, n_controls: int = 80,
-                  ratio_range=(0.1, 1.0), radius_range=(10.0, 15.0)):
+def deviation_set(
+    setup: SimSetup,
+    n: int,
+    rng: np.random.Generator,
+    *,
+    n_controls: int = 80,
+    ratio_range=(0.1, 1.0),
+    radius_range=(10.0, 15.0),
+):
     """Features and outcomes of ``n`` focal deviations z-scored against simulated norms.
 
     A cohort of ``n_controls`` invented adults (18-65 y) gives per-source norms (degree 1 in
@@ -487,22 +548,27 @@ def deviation_set(setup: SimSetup, n: int, rng: np.random.Generator, *, n_contro
     ratios = np.exp(rng.uniform(np.log(ratio_range[0]), np.log(ratio_range[1]), n))
     ages_d = rng.uniform(18, 65, n)
     patches = [patch_sources(setup, c, r) for c, r in zip(centres, radii)]
-    (dev,) = simulate_people(setup, ages_d, rng, kernels=(sp.op.kernel,), patches=patches,
-                             ratios=ratios)
+    (dev,) = simulate_people(
+        setup, ages_d, rng, kernels=(sp.op.kernel,), patches=patches, ratios=ratios
+    )
     zs = []
     for i in range(n):
         x0 = np.array([1.0, np.log10(ages_d[i])])
         h = float(x0 @ xtx @ x0) * n_controls / n_kept
         mean = x0 @ coef
-        zs.append(np.abs(predictive_t(np.log10(dev[i]), mean, sd, n=n_kept, degree=1,
-                                      h0=h)["z_equivalent"]))
+        zs.append(
+            np.abs(
+                predictive_t(np.log10(dev[i]), mean, sd, n=n_kept, degree=1, h0=h)["z_equivalent"]
+            )
+        )
     out = _score_maps(setup, np.asarray(zs), sp.codes[centres], centres)
     out["peak_z"] = np.array([z.max() for z in zs])
     return out
 
 
-def fit_model(model, space, *, seed: int = 0, n_point: int = 3000, n_dev: int = 3000,
-              sim_seed: int = 1) -> dict:
+def fit_model(
+    model, space, *, seed: int = 0, n_point: int = 3000, n_dev: int = 3000, sim_seed: int = 1
+) -> dict:
     """Fit both coefficient sets on simulations (jitter realisations ``1..8`` of ``seed``).
 
     Parameters
@@ -532,22 +598,30 @@ def fit_model(model, space, *, seed: int = 0, n_point: int = 3000, n_dev: int = 
     t0 = time.perf_counter()
     pts = point_source_set(setup, n_point, rng)
     dev = deviation_set(setup, n_dev, rng)
-    coefs = {"power": fit_logistic(pts["x"], pts["hit"]).tolist(),
-             "z": fit_logistic(dev["x"], dev["hit"]).tolist()}
+    coefs = {
+        "power": fit_logistic(pts["x"], pts["hit"]).tolist(),
+        "z": fit_logistic(dev["x"], dev["hit"]).tolist(),
+    }
     return {
         "format": "sourcelab-localisation-probability 1",
         "description": "logistic model of P(generator in the named area) from features of the "
-                       "named area; fitted on simulations under model mismatch (3-shell sphere "
-                       "true head, 10 mm RMS tangential electrode jitter, noise); see "
-                       "sourcelab/trust/probability.py and sourcelab/simulate/localisation.py",
+        "named area; fitted on simulations under model mismatch (3-shell sphere "
+        "true head, 10 mm RMS tangential electrode jitter, noise); see "
+        "sourcelab/trust/probability.py and sourcelab/simulate/localisation.py",
         "features": list(FEATURES),
         "coefficients": coefs,
-        "fit": {"mismatch_seed": seed, "realisations": [1, 8], "sim_seed": sim_seed,
-                "n_point": n_point, "n_deviation": n_dev,
-                "hit_rate_point": float(pts["hit"].mean()),
-                "hit_rate_deviation": float(dev["hit"].mean()),
-                "lambda2": space.op.lambda2, "n_src": int(space.n_src),
-                "seconds": round(time.perf_counter() - t0, 1)},
+        "fit": {
+            "mismatch_seed": seed,
+            "realisations": [1, 8],
+            "sim_seed": sim_seed,
+            "n_point": n_point,
+            "n_deviation": n_dev,
+            "hit_rate_point": float(pts["hit"].mean()),
+            "hit_rate_deviation": float(dev["hit"].mean()),
+            "lambda2": space.op.lambda2,
+            "n_src": int(space.n_src),
+            "seconds": round(time.perf_counter() - t0, 1),
+        },
     }
 
 

@@ -127,14 +127,27 @@ class MismatchForward:
         cols = pos[sources]
         if (cols < 0).any():
             raise InputError("sources: some are not in this mismatch forward")
-        return MismatchForward(gain=self.gain[:, :, cols], ch_pos=self.ch_pos, sources=sources,
-                               r0=self.r0, radii=self.radii, sigmas=self.sigmas,
-                               jitter_mm=self.jitter_mm, seed=self.seed)
+        return MismatchForward(
+            gain=self.gain[:, :, cols],
+            ch_pos=self.ch_pos,
+            sources=sources,
+            r0=self.r0,
+            radii=self.radii,
+            sigmas=self.sigmas,
+            jitter_mm=self.jitter_mm,
+            seed=self.seed,
+        )
 
 
 # ----------------------------------------------------------------------------- pure geometry
-def sphere_radii(src_pos: np.ndarray, r0: np.ndarray, *, margin_mm: float = BRAIN_MARGIN_MM,
-                 skull_mm: float = SKULL_MM, scalp_mm: float = SCALP_MM) -> np.ndarray:
+def sphere_radii(
+    src_pos: np.ndarray,
+    r0: np.ndarray,
+    *,
+    margin_mm: float = BRAIN_MARGIN_MM,
+    skull_mm: float = SKULL_MM,
+    scalp_mm: float = SCALP_MM,
+) -> np.ndarray:
     """Outer radii (brain, skull, scalp) of the shells, metres, so every source is inside.
 
     Parameters
@@ -178,8 +191,9 @@ def project_to_sphere(pos: np.ndarray, r0: np.ndarray, radius: float) -> np.ndar
     return r0 + d * (radius / np.linalg.norm(d, axis=-1, keepdims=True))
 
 
-def jitter_tangential(pos: np.ndarray, r0: np.ndarray, radius: float, *, rms_mm: float,
-                      rng: np.random.Generator) -> np.ndarray:
+def jitter_tangential(
+    pos: np.ndarray, r0: np.ndarray, radius: float, *, rms_mm: float, rng: np.random.Generator
+) -> np.ndarray:
     """Displace points on a sphere along great circles, in random tangential directions.
 
     The displacement (arc length) is a 2-D isotropic Gaussian in the tangent plane with total RMS
@@ -240,17 +254,26 @@ def fit_sphere_centre(ch_pos: np.ndarray, ch_names) -> np.ndarray:
     import mne
 
     info = mne.create_info(list(ch_names), 250.0, ch_types="eeg")
-    mont = mne.channels.make_dig_montage(ch_pos=dict(zip(ch_names, np.asarray(ch_pos))),
-                                         coord_frame="head")
+    mont = mne.channels.make_dig_montage(
+        ch_pos=dict(zip(ch_names, np.asarray(ch_pos))), coord_frame="head"
+    )
     info.set_montage(mont, verbose="error")
-    _, origin, _ = mne.bem.fit_sphere_to_headshape(info, dig_kinds=("eeg",), units="m",
-                                                   verbose="error")
+    _, origin, _ = mne.bem.fit_sphere_to_headshape(
+        info, dig_kinds=("eeg",), units="m", verbose="error"
+    )
     return np.asarray(origin, dtype=float)
 
 
-def sphere_gain(ch_pos_sets: np.ndarray, src_pos: np.ndarray, src_nn: np.ndarray, *,
-                r0: np.ndarray, radii: np.ndarray, sigmas=SPHERE_SIGMAS,
-                chunk: int = 4096) -> np.ndarray:
+def sphere_gain(
+    ch_pos_sets: np.ndarray,
+    src_pos: np.ndarray,
+    src_nn: np.ndarray,
+    *,
+    r0: np.ndarray,
+    radii: np.ndarray,
+    sigmas=SPHERE_SIGMAS,
+    chunk: int = 4096,
+) -> np.ndarray:
     """Fixed-orientation EEG gain of a 3-shell sphere by :func:`mne.make_forward_solution`.
 
     Parameters
@@ -281,12 +304,17 @@ def sphere_gain(ch_pos_sets: np.ndarray, src_pos: np.ndarray, src_nn: np.ndarray
     names = [f"e{s:03d}_{c:02d}" for s in range(n_sets) for c in range(n_ch)]
     info = mne.create_info(names, 250.0, ch_types="eeg")
     mont = mne.channels.make_dig_montage(
-        ch_pos=dict(zip(names, ch_pos_sets.reshape(-1, 3))), coord_frame="head")
+        ch_pos=dict(zip(names, ch_pos_sets.reshape(-1, 3))), coord_frame="head"
+    )
     info.set_montage(mont, verbose="error")
     radii = np.asarray(radii, dtype=float)
-    sphere = mne.make_sphere_model(r0=tuple(r0), head_radius=float(radii[-1]),
-                                   relative_radii=tuple(radii / radii[-1]),
-                                   sigmas=tuple(sigmas), verbose="error")
+    sphere = mne.make_sphere_model(
+        r0=tuple(r0),
+        head_radius=float(radii[-1]),
+        relative_radii=tuple(radii / radii[-1]),
+        sigmas=tuple(sigmas),
+        verbose="error",
+    )
     trans = mne.transforms.Transform("head", "mri")  # identity: sources given in head frame
     src_pos = np.asarray(src_pos, dtype=float)
     src_nn = np.asarray(src_nn, dtype=float)
@@ -296,9 +324,19 @@ def sphere_gain(ch_pos_sets: np.ndarray, src_pos: np.ndarray, src_nn: np.ndarray
     for start in range(0, src_pos.shape[0], chunk):
         sl = slice(start, min(start + chunk, src_pos.shape[0]))
         src = mne.setup_volume_source_space(
-            pos={"rr": src_pos[sl], "nn": src_nn[sl]}, mindist=0.0, verbose="error")
-        fwd = mne.make_forward_solution(info, trans=trans, src=src, bem=sphere, eeg=True,
-                                        meg=False, mindist=0.0, n_jobs=1, verbose="error")
+            pos={"rr": src_pos[sl], "nn": src_nn[sl]}, mindist=0.0, verbose="error"
+        )
+        fwd = mne.make_forward_solution(
+            info,
+            trans=trans,
+            src=src,
+            bem=sphere,
+            eeg=True,
+            meg=False,
+            mindist=0.0,
+            n_jobs=1,
+            verbose="error",
+        )
         if fwd["nsource"] != sl.stop - sl.start:
             raise RuntimeError("sphere forward dropped sources")
         g = fwd["sol"]["data"].reshape(n_sets * n_ch, -1, 3)
@@ -319,9 +357,15 @@ def cache_dir() -> Path:
     return Path(env) if env else Path.home() / ".cache" / "sourcelab-bench"
 
 
-def mismatch_forward(model, *, sources: np.ndarray | None = None, n_jitter: int = 16,
-                     jitter_mm: float = JITTER_MM, seed: int = 0, use_cache: bool = True
-                     ) -> MismatchForward:
+def mismatch_forward(
+    model,
+    *,
+    sources: np.ndarray | None = None,
+    n_jitter: int = 16,
+    jitter_mm: float = JITTER_MM,
+    seed: int = 0,
+    use_cache: bool = True,
+) -> MismatchForward:
     """The true-head forward model for ``model``'s sources (see the module docstring).
 
     Parameters
@@ -346,45 +390,79 @@ def mismatch_forward(model, *, sources: np.ndarray | None = None, n_jitter: int 
     """
     import mne
 
-    src_idx = (np.arange(model.n_src) if sources is None
-               else np.asarray(sources, dtype=np.int64))
+    src_idx = np.arange(model.n_src) if sources is None else np.asarray(sources, dtype=np.int64)
     r0 = fit_sphere_centre(model.ch_pos, model.ch_names)
     # radii from *all* template sources, so a subset gets the same conductor
     radii = sphere_radii(model.src_pos, r0)
-    key = json.dumps({"format": _CACHE_FORMAT, "headmodel": model.sha256, "n_jitter": n_jitter,
-                      "jitter_mm": jitter_mm, "seed": seed, "sigmas": SPHERE_SIGMAS,
-                      "radii": np.round(radii, 9).tolist(), "mne": mne.__version__,
-                      "sources": hashlib.sha256(src_idx.tobytes()).hexdigest()},
-                     sort_keys=True)
+    key = json.dumps(
+        {
+            "format": _CACHE_FORMAT,
+            "headmodel": model.sha256,
+            "n_jitter": n_jitter,
+            "jitter_mm": jitter_mm,
+            "seed": seed,
+            "sigmas": SPHERE_SIGMAS,
+            "radii": np.round(radii, 9).tolist(),
+            "mne": mne.__version__,
+            "sources": hashlib.sha256(src_idx.tobytes()).hexdigest(),
+        },
+        sort_keys=True,
+    )
     path = cache_dir() / f"mismatch-{hashlib.sha256(key.encode()).hexdigest()[:16]}.npz"
     if use_cache and path.is_file():
         with np.load(path, allow_pickle=False) as z:
             if str(z["key"]) == key:
-                return MismatchForward(gain=z["gain"].astype(np.float64), ch_pos=z["ch_pos"],
-                                       sources=src_idx, r0=r0, radii=radii,
-                                       sigmas=SPHERE_SIGMAS, jitter_mm=jitter_mm, seed=seed)
+                return MismatchForward(
+                    gain=z["gain"].astype(np.float64),
+                    ch_pos=z["ch_pos"],
+                    sources=src_idx,
+                    r0=r0,
+                    radii=radii,
+                    sigmas=SPHERE_SIGMAS,
+                    jitter_mm=jitter_mm,
+                    seed=seed,
+                )
     rng = np.random.default_rng(seed)
     on = project_to_sphere(model.ch_pos, r0, radii[-1])
-    sets = [on] + [jitter_tangential(on, r0, radii[-1], rms_mm=jitter_mm, rng=rng)
-                   for _ in range(n_jitter)]
+    sets = [on] + [
+        jitter_tangential(on, r0, radii[-1], rms_mm=jitter_mm, rng=rng) for _ in range(n_jitter)
+    ]
     ch_pos = np.stack(sets)
-    log.info("mismatch forward: sphere r0 %s mm, radii %s mm, %d realisations x %d sources",
-             np.round(r0 * 1e3, 1), np.round(radii * 1e3, 1), len(sets), src_idx.size)
-    gain = sphere_gain(ch_pos, model.src_pos[src_idx], model.src_nn[src_idx], r0=r0,
-                       radii=radii)
+    log.info(
+        "mismatch forward: sphere r0 %s mm, radii %s mm, %d realisations x %d sources",
+        np.round(r0 * 1e3, 1),
+        np.round(radii * 1e3, 1),
+        len(sets),
+        src_idx.size,
+    )
+    gain = sphere_gain(ch_pos, model.src_pos[src_idx], model.src_nn[src_idx], r0=r0, radii=radii)
     if use_cache:
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp.npz")
         np.savez(tmp, gain=gain.astype(np.float32), ch_pos=ch_pos, key=np.array(key))
         os.replace(tmp, path)
-    return MismatchForward(gain=gain, ch_pos=ch_pos, sources=src_idx, r0=r0, radii=radii,
-                           sigmas=SPHERE_SIGMAS, jitter_mm=jitter_mm, seed=seed)
+    return MismatchForward(
+        gain=gain,
+        ch_pos=ch_pos,
+        sources=src_idx,
+        r0=r0,
+        radii=radii,
+        sigmas=SPHERE_SIGMAS,
+        jitter_mm=jitter_mm,
+        seed=seed,
+    )
 
 
 # ----------------------------------------------------------------------------- sensor data
-def noisy_csd(topographies: np.ndarray, *, snr: float, n_epochs: int,
-              rng: np.random.Generator, background: np.ndarray | None = None,
-              background_share: float = 0.5) -> np.ndarray:
+def noisy_csd(
+    topographies: np.ndarray,
+    *,
+    snr: float,
+    n_epochs: int,
+    rng: np.random.Generator,
+    background: np.ndarray | None = None,
+    background_share: float = 0.5,
+) -> np.ndarray:
     """Sample band cross-spectra of point sources plus brain background and sensor noise.
 
     The signal of item ``k`` is one source with topography ``topographies[:, k]`` (unit source
@@ -419,7 +497,7 @@ def noisy_csd(topographies: np.ndarray, *, snr: float, n_epochs: int,
     n_ch, n = g.shape
     p = np.eye(n_ch) - 1.0 / n_ch
     g = p @ g
-    sig_pow = (g**2).mean(axis=0)                                   # (n,)
+    sig_pow = (g**2).mean(axis=0)  # (n,)
     noise = np.eye(n_ch)
     if background is not None:
         b = p @ background @ p
@@ -429,7 +507,7 @@ def noisy_csd(topographies: np.ndarray, *, snr: float, n_epochs: int,
         noise = p
     noise = noise / (np.trace(noise) / n_ch)
     ev, evec = np.linalg.eigh(noise)
-    l_noise = evec * np.sqrt(np.clip(ev, 0, None))                 # (n_ch, n_ch)
+    l_noise = evec * np.sqrt(np.clip(ev, 0, None))  # (n_ch, n_ch)
     out = np.empty((n, n_ch, n_ch))
     for k in range(n):
         s = rng.standard_normal(n_epochs) + 1j * rng.standard_normal(n_epochs)

@@ -34,8 +34,7 @@ def _keys(n_rois: int, n_bands: int, kind: str) -> pd.DataFrame:
                     rows.append(("roi", "sim", f"R{r}", "left", f"b{b}", m))
                 else:
                     rows.append(("sensor", "n/a", f"C{r}", "n/a", f"b{b}", m))
-    return pd.DataFrame(rows, columns=["kind", "atlas", "name", "hemisphere", "band",
-                                       "measure"])
+    return pd.DataFrame(rows, columns=["kind", "atlas", "name", "hemisphere", "band", "measure"])
 
 
 def _table(keys: pd.DataFrame, tvals: np.ndarray, kind: str) -> pd.DataFrame:
@@ -46,16 +45,34 @@ def _table(keys: pd.DataFrame, tvals: np.ndarray, kind: str) -> pd.DataFrame:
         sel = (keys["measure"] == m).to_numpy()
         vals[sel] = get_transform(transform_for_measure(m)).inverse(tvals[sel])
     if kind == "roi":
-        return pd.DataFrame({"atlas": keys["atlas"], "roi": keys["name"],
-                             "hemisphere": keys["hemisphere"], "band": keys["band"],
-                             "measure": keys["measure"], "value": vals})
-    return pd.DataFrame({"channel": keys["name"], "band": keys["band"],
-                         "measure": keys["measure"], "value": vals})
+        return pd.DataFrame(
+            {
+                "atlas": keys["atlas"],
+                "roi": keys["name"],
+                "hemisphere": keys["hemisphere"],
+                "band": keys["band"],
+                "measure": keys["measure"],
+                "value": vals,
+            }
+        )
+    return pd.DataFrame(
+        {"channel": keys["name"], "band": keys["band"], "measure": keys["measure"], "value": vals}
+    )
 
 
-def complete_null(*, kind: str = "roi", n_rois: int = 115, n_bands: int = 5,
-                  n_controls: int = 60, n_reps: int = 50, n_heldout: int = 20, rho: float = 0.5,
-                  age_range=(18.0, 65.0), seed: int = 0, degree="auto") -> dict:
+def complete_null(
+    *,
+    kind: str = "roi",
+    n_rois: int = 115,
+    n_bands: int = 5,
+    n_controls: int = 60,
+    n_reps: int = 50,
+    n_heldout: int = 20,
+    rho: float = 0.5,
+    age_range=(18.0, 65.0),
+    seed: int = 0,
+    degree="auto",
+) -> dict:
     """Run the complete-null simulation.
 
     Parameters
@@ -99,10 +116,14 @@ def complete_null(*, kind: str = "roi", n_rois: int = 115, n_bands: int = 5,
     group = (keys["band"] + keys["measure"]).factorize()[0]
     n_g = group.max() + 1
     rel = (keys["measure"] == "relative").to_numpy()
-    fp = Fingerprint(headmodel_sha256="0" * 64, method="sLORETA", orientation="fixed",
-                     lambda2=1 / 9, bands=tuple((f"b{b}", float(b), b + 1.0)
-                                                for b in range(n_bands)))
-    counts = {"plain": [0, 0, 0], "predictive": [0, 0, 0]}   # people flagged, beyond, rows
+    fp = Fingerprint(
+        headmodel_sha256="0" * 64,
+        method="sLORETA",
+        orientation="fixed",
+        lambda2=1 / 9,
+        bands=tuple((f"b{b}", float(b), b + 1.0) for b in range(n_bands)),
+    )
+    counts = {"plain": [0, 0, 0], "predictive": [0, 0, 0]}  # people flagged, beyond, rows
     lo, hi = np.log10(age_range[0]), np.log10(age_range[1])
     for rep in range(n_reps):
         a = np.where(rel, rng.uniform(-2.0, -0.5, q), rng.uniform(0.5, 2.0, q))
@@ -121,21 +142,33 @@ def complete_null(*, kind: str = "roi", n_rois: int = 115, n_bands: int = 5,
         entries = []
         for i in range(n_controls):
             t = _table(keys, y[i], kind)
-            entries.append((f"s{i}", float(ages[i]), t if kind == "roi" else None,
-                            t if kind == "sensor" else None))
+            entries.append(
+                (
+                    f"s{i}",
+                    float(ages[i]),
+                    t if kind == "roi" else None,
+                    t if kind == "sensor" else None,
+                )
+            )
         fit = fit_norms(entries, fingerprint=fp, condition="sim", degree=degree)
         nt = fit.norms.table
         v = row_xtx_inverse(fit)
         h_ages = rng.uniform(ages.min(), ages.max(), n_heldout)
         yh = draw(h_ages)
-        row_of = {k: i for i, k in enumerate(zip(*(nt[col] for col in
-                                                    ("kind", "atlas", "name", "hemisphere",
-                                                     "band", "measure"))))}
+        row_of = {
+            k: i
+            for i, k in enumerate(
+                zip(
+                    *(nt[col] for col in ("kind", "atlas", "name", "hemisphere", "band", "measure"))
+                )
+            )
+        }
         idx = np.array([row_of[tuple(k)] for k in keys.itertuples(index=False)])
         for i in range(n_heldout):
             t = _table(keys, yh[i], kind)
-            z = apply_norms(t, fit.norms, age=float(h_ages[i]), fingerprint=fp,
-                            condition="sim", kind=kind)
+            z = apply_norms(
+                t, fit.norms, age=float(h_ages[i]), fingerprint=fp, condition="sim", kind=kind
+            )
             counts["plain"][0] += int(z["fdr"].any())
             counts["plain"][1] += int((np.abs(z["z"]) > 1.96).sum())
             counts["plain"][2] += len(z)
@@ -143,15 +176,15 @@ def complete_null(*, kind: str = "roi", n_rois: int = 115, n_bands: int = 5,
             deg = rows["degree"].to_numpy()
             h0 = leverage(v[idx], deg, np.full(q, h_ages[i]))
             zp = z["z"].to_numpy()
-            mean = yh[i] - zp * rows["sd"].to_numpy()        # model mean recovered from z
-            res = predictive_t(yh[i], mean, rows["sd"].to_numpy(), n=rows["n"].to_numpy(),
-                               degree=deg, h0=h0)
+            mean = yh[i] - zp * rows["sd"].to_numpy()  # model mean recovered from z
+            res = predictive_t(
+                yh[i], mean, rows["sd"].to_numpy(), n=rows["n"].to_numpy(), degree=deg, h0=h0
+            )
             counts["predictive"][0] += int((bh_adjust(res["p"]) <= 0.05).any())
             counts["predictive"][1] += int((np.abs(res["z_equivalent"]) > 1.96).sum())
             counts["predictive"][2] += q
     n_people = n_reps * n_heldout
-    out = {"kind": kind, "n_rows": q, "n_people": n_people, "n_controls": n_controls,
-           "rho": rho}
+    out = {"kind": kind, "n_rows": q, "n_people": n_people, "n_controls": n_controls, "rho": rho}
     for k, (flag, beyond, rows) in counts.items():
         out[k] = {"any_fdr": flag / n_people, "beyond_1_96": beyond / rows}
     return out

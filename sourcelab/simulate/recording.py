@@ -79,9 +79,16 @@ def patch_vertices(model: HeadModel, center_mni, hemisphere: str, radius_mm: flo
     return idx + sl.start
 
 
-def pink_noise(n_series: int, n_times: int, sfreq: float, rng: np.random.Generator,
-               *, exponent: float = 1.0, f_min: float = 0.5,
-               spectral_gain: tuple[tuple[float, float], ...] = ()) -> np.ndarray:
+def pink_noise(
+    n_series: int,
+    n_times: int,
+    sfreq: float,
+    rng: np.random.Generator,
+    *,
+    exponent: float = 1.0,
+    f_min: float = 0.5,
+    spectral_gain: tuple[tuple[float, float], ...] = (),
+) -> np.ndarray:
     """Unit-variance noise with a ``1/f**exponent`` power spectrum, shape (n_series, n_times).
 
     ``spectral_gain``: ``(centre_hz, ln_power_gain)`` pairs; each multiplies the power spectrum
@@ -112,13 +119,16 @@ def pink_noise(n_series: int, n_times: int, sfreq: float, rng: np.random.Generat
         scatters around 1).
     """
     spec = rng.standard_normal((n_series, n_times // 2 + 1)) + 1j * rng.standard_normal(
-        (n_series, n_times // 2 + 1))
+        (n_series, n_times // 2 + 1)
+    )
     f = np.fft.rfftfreq(n_times, 1 / sfreq)
     spec *= 1.0 / np.maximum(f, f_min) ** (exponent / 2.0)
     if spectral_gain:
         lf = np.log10(np.maximum(f, f_min))
-        ln_pow = sum(g * np.exp(-0.5 * ((lf - np.log10(c)) / GAIN_WIDTH_DECADES) ** 2)
-                     for c, g in spectral_gain)
+        ln_pow = sum(
+            g * np.exp(-0.5 * ((lf - np.log10(c)) / GAIN_WIDTH_DECADES) ** 2)
+            for c, g in spectral_gain
+        )
         spec *= np.exp(ln_pow / 2.0)
     spec[:, 0] = 0
     x = np.fft.irfft(spec, n=n_times, axis=-1)
@@ -131,7 +141,7 @@ def pink_noise(n_series: int, n_times: int, sfreq: float, rng: np.random.Generat
     if spectral_gain:
         a2 = a2 * np.exp(ln_pow)
     a2[0] = 0.0
-    w = np.full(f.shape, 4.0)          # 2 (both signs of k) x 2 (E|X_k|² = 2 a_k²)
+    w = np.full(f.shape, 4.0)  # 2 (both signs of k) x 2 (E|X_k|² = 2 a_k²)
     if n_times % 2 == 0:
         w[-1] = 1.0
     expected_sd = np.sqrt((w * a2).sum()) / n_times
@@ -142,8 +152,9 @@ def pink_noise(n_series: int, n_times: int, sfreq: float, rng: np.random.Generat
 GAIN_WIDTH_DECADES = 0.12
 
 
-def narrowband(n_times: int, sfreq: float, freq: float, bandwidth: float,
-               rng: np.random.Generator) -> np.ndarray:
+def narrowband(
+    n_times: int, sfreq: float, freq: float, bandwidth: float, rng: np.random.Generator
+) -> np.ndarray:
     """Unit-variance band-limited Gaussian noise centred on ``freq`` (flat within the band).
 
     Parameters
@@ -170,13 +181,19 @@ def narrowband(n_times: int, sfreq: float, freq: float, bandwidth: float,
     return x / x.std()
 
 
-def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
-                         generators: tuple[Generator, ...] = (),
-                         background_uv: float = 15.0, sensor_noise_uv: float = 1.0,
-                         alpha_background: Generator | None = None,
-                         background_exponent: float = 1.0,
-                         background_spectral_gain: tuple[tuple[float, float], ...] = (),
-                         rng: np.random.Generator) -> np.ndarray:
+def simulate_sensor_data(
+    model: HeadModel,
+    *,
+    duration_s: float,
+    sfreq: float,
+    generators: tuple[Generator, ...] = (),
+    background_uv: float = 15.0,
+    sensor_noise_uv: float = 1.0,
+    alpha_background: Generator | None = None,
+    background_exponent: float = 1.0,
+    background_spectral_gain: tuple[tuple[float, float], ...] = (),
+    rng: np.random.Generator,
+) -> np.ndarray:
     """Simulated 19-channel data in volts, shape (n_ch, n_times), average reference.
 
     Parameters
@@ -214,8 +231,14 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
     cov = gf @ gf.T
     evals, evecs = np.linalg.eigh(cov)
     l_mat = evecs * np.sqrt(np.clip(evals, 0, None))
-    background = l_mat @ pink_noise(n_ch, n_t, sfreq, rng, exponent=background_exponent,
-                                    spectral_gain=tuple(background_spectral_gain))
+    background = l_mat @ pink_noise(
+        n_ch,
+        n_t,
+        sfreq,
+        rng,
+        exponent=background_exponent,
+        spectral_gain=tuple(background_spectral_gain),
+    )
     p = average_reference_projector(n_ch)
     # expected (not realised) background SD per channel after the average reference: the unit-
     # variance series mixed by L give covariance L Lᵀ = G Gᵀ (see pink_noise for why expected)
@@ -224,16 +247,23 @@ def simulate_sensor_data(model: HeadModel, *, duration_s: float, sfreq: float,
     for g in generators:
         verts = patch_vertices(model, g.center_mni, g.hemisphere, g.radius_mm)
         topo = gf[:, verts].sum(axis=1)
-        data += scale * g.amplitude * np.outer(topo, narrowband(n_t, sfreq, g.freq,
-                                                                g.bandwidth, rng))
+        data += (
+            scale * g.amplitude * np.outer(topo, narrowband(n_t, sfreq, g.freq, g.bandwidth, rng))
+        )
     data = p @ data  # as recorded against the average of the 19 sites
     data += sensor_noise_uv * 1e-6 * rng.standard_normal(data.shape)
     return data
 
 
-def simulate_raw(model: HeadModel, *, duration_s: float = 300.0, sfreq: float = 256.0,
-                 generators: tuple[Generator, ...] = (), rng: np.random.Generator,
-                 **kwargs):
+def simulate_raw(
+    model: HeadModel,
+    *,
+    duration_s: float = 300.0,
+    sfreq: float = 256.0,
+    generators: tuple[Generator, ...] = (),
+    rng: np.random.Generator,
+    **kwargs,
+):
     """Like :func:`simulate_sensor_data`, wrapped as an ``mne.io.RawArray`` with the 19 sites.
 
     Parameters
@@ -258,16 +288,26 @@ def simulate_raw(model: HeadModel, *, duration_s: float = 300.0, sfreq: float = 
 
     from ..headmodel import make_info
 
-    data = simulate_sensor_data(model, duration_s=duration_s, sfreq=sfreq,
-                                generators=generators, rng=rng, **kwargs)
+    data = simulate_sensor_data(
+        model, duration_s=duration_s, sfreq=sfreq, generators=generators, rng=rng, **kwargs
+    )
     raw = mne.io.RawArray(data, make_info(sfreq), verbose="error")
     return raw
 
 
-def ocular_artefacts(ch_pos: np.ndarray, nasion: np.ndarray, *, n_times: int, sfreq: float,
-                     rng: np.random.Generator, blink_rate_hz: float = 0.25,
-                     blink_uv: float = 150.0, blink_s: float = 0.3,
-                     saccade_rate_hz: float = 0.3, saccade_uv: float = 60.0) -> np.ndarray:
+def ocular_artefacts(
+    ch_pos: np.ndarray,
+    nasion: np.ndarray,
+    *,
+    n_times: int,
+    sfreq: float,
+    rng: np.random.Generator,
+    blink_rate_hz: float = 0.25,
+    blink_uv: float = 150.0,
+    blink_s: float = 0.3,
+    saccade_rate_hz: float = 0.3,
+    saccade_uv: float = 60.0,
+) -> np.ndarray:
     """Invented blinks and horizontal eye movements at the electrodes, volts (average reference).
 
     Each eye is a current dipole in front of the frontal pole
@@ -309,8 +349,8 @@ def ocular_artefacts(ch_pos: np.ndarray, nasion: np.ndarray, *, n_times: int, sf
     pulse = 0.5 * (1 - np.cos(2 * np.pi * np.arange(width) / (width - 1)))
     for onset in np.sort(rng.uniform(0, dur, rng.poisson(blink_rate_hz * dur))):
         i = int(onset * sfreq)
-        seg = vert[i:i + width]
-        seg += blink_uv * pulse[:len(seg)] * rng.uniform(0.7, 1.3)
+        seg = vert[i : i + width]
+        seg += blink_uv * pulse[: len(seg)] * rng.uniform(0.7, 1.3)
     horiz = np.zeros(n_times)
     changes = np.sort(rng.uniform(0, dur, rng.poisson(saccade_rate_hz * dur)))
     edges = np.r_[0, (changes * sfreq).astype(int), n_times]

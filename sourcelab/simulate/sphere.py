@@ -67,8 +67,14 @@ class SphereHead:
         return np.einsum("csk,sk->cs", g, self.src_nn)
 
 
-def sphere_head(n_src: int = 400, n_ch: int = 19, *, r_src: float = 0.07, r_ch: float = 0.09,
-                sigma: float = 0.33) -> SphereHead:
+def sphere_head(
+    n_src: int = 400,
+    n_ch: int = 19,
+    *,
+    r_src: float = 0.07,
+    r_ch: float = 0.09,
+    sigma: float = 0.33,
+) -> SphereHead:
     """Sources on the upper 80 % of a shell of radius ``r_src``, electrodes on the upper cap.
 
     Parameters
@@ -96,13 +102,14 @@ def sphere_head(n_src: int = 400, n_ch: int = 19, *, r_src: float = 0.07, r_ch: 
     e = e[e[:, 2] > 0.05][:n_ch]
     src = u * r_src
     ch = e * r_ch
-    d = ch[:, None, :] - src[None, :, :]                     # (n_ch, n_src, 3)
+    d = ch[:, None, :] - src[None, :, :]  # (n_ch, n_src, 3)
     gain = d / (4 * np.pi * sigma * np.linalg.norm(d, axis=-1, keepdims=True) ** 3)
     return SphereHead(gain=gain.reshape(n_ch, -1), src_pos=src, src_nn=u.copy(), ch_pos=ch)
 
 
-def patch_atlas(head: SphereHead, n_rois: int = 16, *, unlabelled_below: float = -0.4,
-                name: str = "patches") -> Atlas:
+def patch_atlas(
+    head: SphereHead, n_rois: int = 16, *, unlabelled_below: float = -0.4, name: str = "patches"
+) -> Atlas:
     """ROIs from nearest-seed patches; sources with ``z/r < unlabelled_below`` stay unlabelled.
 
     Parameters
@@ -133,7 +140,13 @@ def patch_atlas(head: SphereHead, n_rois: int = 16, *, unlabelled_below: float =
         if v.size == 0:
             continue
         c = head.src_pos[v].mean(0) * 1000.0
-        rois.append(ROI(name=f"P{k}", hemisphere="left" if seeds[k, 0] < 0 else "right",
-                        vertices=v, centroid_mni=(float(c[0]), float(c[1]), float(c[2])),
-                        small=False))
+        rois.append(
+            ROI(
+                name=f"P{k}",
+                hemisphere="left" if seeds[k, 0] < 0 else "right",
+                vertices=v,
+                centroid_mni=(float(c[0]), float(c[1]), float(c[2])),
+                small=False,
+            )
+        )
     return Atlas(name=name, description="synthetic patches", citation="none", rois=tuple(rois))

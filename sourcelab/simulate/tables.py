@@ -86,20 +86,34 @@ def _tables(keys: pd.DataFrame, tvals: np.ndarray) -> tuple[pd.DataFrame, pd.Dat
     k = keys.assign(value=vals)
     roi = k[k["kind"] == "roi"]
     sen = k[k["kind"] == "sensor"]
-    roi_t = pd.DataFrame({"atlas": roi["atlas"], "roi": roi["name"],
-                          "hemisphere": roi["hemisphere"], "band": roi["band"],
-                          "measure": roi["measure"], "value": roi["value"],
-                          "unit": [UNITS[m] for m in roi["measure"]], "n_vertices": 100,
-                          "small": False, "z": np.nan}).reset_index(drop=True)
-    sen_t = pd.DataFrame({"channel": sen["name"], "band": sen["band"],
-                          "measure": sen["measure"], "value": sen["value"],
-                          "unit": ["µV²" if m == "absolute" else UNITS[m]
-                                   for m in sen["measure"]], "z": np.nan}).reset_index(drop=True)
+    roi_t = pd.DataFrame(
+        {
+            "atlas": roi["atlas"],
+            "roi": roi["name"],
+            "hemisphere": roi["hemisphere"],
+            "band": roi["band"],
+            "measure": roi["measure"],
+            "value": roi["value"],
+            "unit": [UNITS[m] for m in roi["measure"]],
+            "n_vertices": 100,
+            "small": False,
+            "z": np.nan,
+        }
+    ).reset_index(drop=True)
+    sen_t = pd.DataFrame(
+        {
+            "channel": sen["name"],
+            "band": sen["band"],
+            "measure": sen["measure"],
+            "value": sen["value"],
+            "unit": ["µV²" if m == "absolute" else UNITS[m] for m in sen["measure"]],
+            "z": np.nan,
+        }
+    ).reset_index(drop=True)
     return roi_t, sen_t
 
 
-def gaussian_cohort(n: int, *, rng: np.random.Generator, age_range=(6.0, 80.0)
-                    ) -> GaussianCohort:
+def gaussian_cohort(n: int, *, rng: np.random.Generator, age_range=(6.0, 80.0)) -> GaussianCohort:
     """Simulate ``n`` participants x 66 quantities (48 ROI, 18 sensor), Gaussian after transform.
 
     Parameters
@@ -116,10 +130,16 @@ def gaussian_cohort(n: int, *, rng: np.random.Generator, age_range=(6.0, 80.0)
         The true coefficients and SDs, and ``entries`` ready for
         :func:`sourcelab.norms.fit_norms` (IDs ``sub-001``...).
     """
-    rows = [("roi", "brodmann", r, h, b, m) for r in _ROIS for h in _HEMIS for b in _BANDS
-            for m in _MEASURES]
-    rows += [("sensor", "n/a", c, "n/a", b, m) for c in _CHANNELS for b in _BANDS
-             for m in _MEASURES]
+    rows = [
+        ("roi", "brodmann", r, h, b, m)
+        for r in _ROIS
+        for h in _HEMIS
+        for b in _BANDS
+        for m in _MEASURES
+    ]
+    rows += [
+        ("sensor", "n/a", c, "n/a", b, m) for c in _CHANNELS for b in _BANDS for m in _MEASURES
+    ]
     keys = pd.DataFrame(rows, columns=["kind", "atlas", "name", "hemisphere", "band", "measure"])
     q = len(keys)
     rel = (keys["measure"] == "relative").to_numpy()

@@ -61,10 +61,28 @@ MEMBER_ATLAS = "brodmann"
 #: A member area must have more than this fraction of its sources inside the network.
 MEMBER_OVERLAP = 0.5
 
-CANDIDATE_COLUMNS = ("rank", "kind", "atlas", "roi", "hemisphere", "band", "measure", "value",
-                     "z", "direction", "p", "fdr_q", "fdr", "n_vertices", "small",
-                     "neighbours_same", "n_neighbours", "neighbours", "members_deviating",
-                     "n_members")
+CANDIDATE_COLUMNS = (
+    "rank",
+    "kind",
+    "atlas",
+    "roi",
+    "hemisphere",
+    "band",
+    "measure",
+    "value",
+    "z",
+    "direction",
+    "p",
+    "fdr_q",
+    "fdr",
+    "n_vertices",
+    "small",
+    "neighbours_same",
+    "n_neighbours",
+    "neighbours",
+    "members_deviating",
+    "n_members",
+)
 
 
 @dataclass(frozen=True, eq=False)
@@ -123,18 +141,28 @@ def read_result_folder(path: str | Path) -> ResultFolder:
         table = pd.read_csv(tsv, sep="\t", keep_default_na=False, na_values=[""])
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
         raise InputError(f"cannot read the ROI table ({exc})", path=tsv) from None
-    missing = sorted({"atlas", "roi", "hemisphere", "band", "measure", "value", "z"}
-                     - set(table.columns))
+    missing = sorted(
+        {"atlas", "roi", "hemisphere", "band", "measure", "value", "z"} - set(table.columns)
+    )
     if missing:
         raise InputError(f"ROI table lacks columns {missing}", path=tsv)
     for c in ("atlas", "roi", "hemisphere", "band", "measure"):
         table[c] = table[c].astype(str)
-    return ResultFolder(path=path, roi_table=table, provenance=provenance,
-                        fingerprint=Fingerprint.from_dict(provenance["fingerprint"]))
+    return ResultFolder(
+        path=path,
+        roi_table=table,
+        provenance=provenance,
+        fingerprint=Fingerprint.from_dict(provenance["fingerprint"]),
+    )
 
 
-def roi_adjacency(vertex_sets, centroids: np.ndarray, *, edges: np.ndarray | None = None,
-                  max_centroid_mm: float = NEIGHBOUR_MM) -> np.ndarray:
+def roi_adjacency(
+    vertex_sets,
+    centroids: np.ndarray,
+    *,
+    edges: np.ndarray | None = None,
+    max_centroid_mm: float = NEIGHBOUR_MM,
+) -> np.ndarray:
     """Which ROIs are neighbours: a shared mesh edge or centroids within ``max_centroid_mm``.
 
     Parameters
@@ -191,8 +219,11 @@ def network_members(networks, members, *, min_overlap: float = MEMBER_OVERLAP) -
     """
     out = []
     for net in networks:
-        inside = [j for j, m in enumerate(members)
-                  if m.size and np.isin(m, net, assume_unique=True).mean() > min_overlap]
+        inside = [
+            j
+            for j, m in enumerate(members)
+            if m.size and np.isin(m, net, assume_unique=True).mean() > min_overlap
+        ]
         out.append(inside)
     return out
 
@@ -201,10 +232,16 @@ def _direction(z: float) -> str:
     return "above norm" if z > 0 else "below norm"
 
 
-def rank_candidates(roi_table: pd.DataFrame, *, atlases: Mapping | None = None,
-                    edges: np.ndarray | None = None, include: tuple[str, ...] | None = None,
-                    max_n: int | None = None, deviation_z: float = DEVIATION_Z,
-                    min_abs_z: float = DEVIATION_Z) -> pd.DataFrame:
+def rank_candidates(
+    roi_table: pd.DataFrame,
+    *,
+    atlases: Mapping | None = None,
+    edges: np.ndarray | None = None,
+    include: tuple[str, ...] | None = None,
+    max_n: int | None = None,
+    deviation_z: float = DEVIATION_Z,
+    min_abs_z: float = DEVIATION_Z,
+) -> pd.DataFrame:
     """Rank deviating ROIs and networks: FDR-significant first, then by |z|.
 
     Parameters
@@ -236,11 +273,17 @@ def rank_candidates(roi_table: pd.DataFrame, *, atlases: Mapping | None = None,
     """
     t = roi_table.copy()
     if "z" not in t or not np.isfinite(pd.to_numeric(t["z"], errors="coerce")).any():
-        raise InputError("the ROI table has no z-scores: analyse with norms (--norms, --age) "
-                         "to list candidates")
+        raise InputError(
+            "the ROI table has no z-scores: analyse with norms (--norms, --age) to list candidates"
+        )
     t["z"] = pd.to_numeric(t["z"], errors="coerce")
-    for c, default in (("p", np.nan), ("fdr_q", np.nan), ("fdr", False), ("n_vertices", -1),
-                       ("small", False)):
+    for c, default in (
+        ("p", np.nan),
+        ("fdr_q", np.nan),
+        ("fdr", False),
+        ("n_vertices", -1),
+        ("small", False),
+    ):
         if c not in t:
             t[c] = default
     t["fdr"] = t["fdr"].astype(str).str.lower().isin(("true", "1"))
@@ -248,19 +291,26 @@ def rank_candidates(roi_table: pd.DataFrame, *, atlases: Mapping | None = None,
     if include is not None:
         unknown = sorted(set(include) - set(t["atlas"]))
         if unknown:
-            raise InputError(f"atlases {unknown} are not in the ROI table "
-                             f"({sorted(set(t['atlas']))})")
+            raise InputError(
+                f"atlases {unknown} are not in the ROI table ({sorted(set(t['atlas']))})"
+            )
         t = t[t["atlas"].isin(include)]
     atlases = dict(atlases or {})
     full = roi_table[["atlas", "roi", "hemisphere", "band", "measure", "z"]]
     zs = pd.to_numeric(full["z"], errors="coerce")
-    zlook = {(str(a), str(n), str(h), str(b), str(m)): float(z) for a, n, h, b, m, z in
-             zip(full["atlas"], full["roi"], full["hemisphere"], full["band"], full["measure"],
-                 zs)}
+    zlook = {
+        (str(a), str(n), str(h), str(b), str(m)): float(z)
+        for a, n, h, b, m, z in zip(
+            full["atlas"], full["roi"], full["hemisphere"], full["band"], full["measure"], zs
+        )
+    }
 
     keep = t[np.isfinite(t["z"]) & ((t["z"].abs() >= min_abs_z) | t["fdr"])].copy()
-    ctx = {name: _atlas_context(atlases[name], atlases.get(MEMBER_ATLAS), edges)
-           for name in set(keep["atlas"]) if name in atlases}
+    ctx = {
+        name: _atlas_context(atlases[name], atlases.get(MEMBER_ATLAS), edges)
+        for name in set(keep["atlas"])
+        if name in atlases
+    }
     rows = []
     for r in keep.itertuples(index=False):
         z = float(r.z)
@@ -274,23 +324,45 @@ def rank_candidates(roi_table: pd.DataFrame, *, atlases: Mapping | None = None,
             i = c["index"][key]
             if kind == "roi" or r.hemisphere != "both":
                 # two-hemisphere ROIs duplicate their one-hemisphere parts: not counted
-                nbrs = [c["names"][j] for j in np.flatnonzero(c["adj"][i])
-                        if c["names"][j][1] != "both"]
-                same = [f"{n}-{h}" for n, h in nbrs
-                        if _deviates(zlook.get((r.atlas, n, h, r.band, r.measure)), sign,
-                                     deviation_z)]
+                nbrs = [
+                    c["names"][j] for j in np.flatnonzero(c["adj"][i]) if c["names"][j][1] != "both"
+                ]
+                same = [
+                    f"{n}-{h}"
+                    for n, h in nbrs
+                    if _deviates(zlook.get((r.atlas, n, h, r.band, r.measure)), sign, deviation_z)
+                ]
                 nb_same, n_nb, nb_names = len(same), len(nbrs), ";".join(same)
             if kind == "network" and c["members"] is not None:
                 mem = [c["member_names"][j] for j in c["members"][i]]
                 n_mem = len(mem)
-                m_dev = sum(_deviates(zlook.get((MEMBER_ATLAS, n, h, r.band, r.measure)), sign,
-                                      deviation_z) for n, h in mem)
-        rows.append(dict(kind=kind, atlas=r.atlas, roi=r.roi, hemisphere=r.hemisphere,
-                         band=r.band, measure=r.measure, value=float(r.value), z=z,
-                         direction=_direction(z), p=float(r.p), fdr_q=float(r.fdr_q),
-                         fdr=bool(r.fdr), n_vertices=int(r.n_vertices), small=bool(r.small),
-                         neighbours_same=nb_same, n_neighbours=n_nb, neighbours=nb_names,
-                         members_deviating=m_dev, n_members=n_mem))
+                m_dev = sum(
+                    _deviates(zlook.get((MEMBER_ATLAS, n, h, r.band, r.measure)), sign, deviation_z)
+                    for n, h in mem
+                )
+        rows.append(
+            dict(
+                kind=kind,
+                atlas=r.atlas,
+                roi=r.roi,
+                hemisphere=r.hemisphere,
+                band=r.band,
+                measure=r.measure,
+                value=float(r.value),
+                z=z,
+                direction=_direction(z),
+                p=float(r.p),
+                fdr_q=float(r.fdr_q),
+                fdr=bool(r.fdr),
+                n_vertices=int(r.n_vertices),
+                small=bool(r.small),
+                neighbours_same=nb_same,
+                n_neighbours=n_nb,
+                neighbours=nb_names,
+                members_deviating=m_dev,
+                n_members=n_mem,
+            )
+        )
     out = pd.DataFrame(rows, columns=[c for c in CANDIDATE_COLUMNS if c != "rank"])
     if len(out):
         out["_absz"] = out["z"].abs()
@@ -314,16 +386,21 @@ def _atlas_context(atlas, member_atlas, edges) -> dict:
     sets = [r.vertices for r in atlas.rois]
     names = [(r.name, r.hemisphere) for r in atlas.rois]
     cent = np.array([r.centroid_mni for r in atlas.rois], dtype=float)
-    ctx = {"names": names, "index": {k: i for i, k in enumerate(names)},
-           "adj": roi_adjacency(sets, cent, edges=edges), "members": None}
+    ctx = {
+        "names": names,
+        "index": {k: i for i, k in enumerate(names)},
+        "adj": roi_adjacency(sets, cent, edges=edges),
+        "members": None,
+    }
     if atlas.name in NETWORK_ATLASES and member_atlas is not None:
         ctx["members"] = network_members(sets, [r.vertices for r in member_atlas.rois])
         ctx["member_names"] = [(r.name, r.hemisphere) for r in member_atlas.rois]
     return ctx
 
 
-def candidates_for_table(roi_table: pd.DataFrame, *, max_n: int | None = None,
-                         include: tuple[str, ...] | None = None) -> pd.DataFrame:
+def candidates_for_table(
+    roi_table: pd.DataFrame, *, max_n: int | None = None, include: tuple[str, ...] | None = None
+) -> pd.DataFrame:
     """Candidates of a z-scored ROI table with the shipped atlases and template mesh edges.
 
     For the report: ``candidates_html(candidates_for_table(result.roi_table))``.
@@ -355,12 +432,12 @@ def candidates_for_table(roi_table: pd.DataFrame, *, max_n: int | None = None,
         except InputError:  # a custom ROI set: ranked, but without neighbours
             log.info("atlas %s is not shipped: no neighbour counts for it", n)
     edges = source_edges(load_head_model())
-    return rank_candidates(roi_table, atlases=atlases, edges=edges, include=include,
-                           max_n=max_n)
+    return rank_candidates(roi_table, atlases=atlases, edges=edges, include=include, max_n=max_n)
 
 
-def candidates_from_folder(result_dir: str | Path, *, max_n: int | None = None,
-                           include: tuple[str, ...] | None = None) -> pd.DataFrame:
+def candidates_from_folder(
+    result_dir: str | Path, *, max_n: int | None = None, include: tuple[str, ...] | None = None
+) -> pd.DataFrame:
     """Candidates of an analysis folder (``roi_table.tsv``); see :func:`candidates_for_table`.
 
     Parameters
@@ -377,8 +454,9 @@ def candidates_from_folder(result_dir: str | Path, *, max_n: int | None = None,
     DataFrame
         Columns :data:`CANDIDATE_COLUMNS`.
     """
-    return candidates_for_table(read_result_folder(result_dir).roi_table, max_n=max_n,
-                                include=include)
+    return candidates_for_table(
+        read_result_folder(result_dir).roi_table, max_n=max_n, include=include
+    )
 
 
 def read_candidates(result_dir: str | Path) -> pd.DataFrame | None:
@@ -405,8 +483,9 @@ def read_candidates(result_dir: str | Path) -> pd.DataFrame | None:
                 if not line.startswith("#"):
                     break
                 skip += 1
-        return pd.read_csv(path, sep="\t", skiprows=skip, keep_default_na=False,
-                           na_values=["", "n/a"])
+        return pd.read_csv(
+            path, sep="\t", skiprows=skip, keep_default_na=False, na_values=["", "n/a"]
+        )
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
         raise InputError(f"cannot read the candidate table ({exc})", path=path) from None
 
@@ -458,8 +537,10 @@ def candidates_sidecar(candidates: pd.DataFrame) -> dict:
         of the norm and for MNI coordinates and border distances in mm), plus ``Cautions``
         and ``GeneratedBy``.
     """
-    out = {c: {"Description": CANDIDATE_COLUMN_NOTES.get(c, c.replace("_", " "))}
-           for c in candidates.columns}
+    out = {
+        c: {"Description": CANDIDATE_COLUMN_NOTES.get(c, c.replace("_", " "))}
+        for c in candidates.columns
+    }
     from .. import __version__
 
     for c in ("z", "peak_z"):
@@ -468,8 +549,11 @@ def candidates_sidecar(candidates: pd.DataFrame) -> dict:
     for c in ("x_mni152", "y_mni152", "z_mni152", "border_mm"):
         if c in out:
             out[c]["Units"] = "mm"
-    return {**out, "Cautions": list(CAUTIONS),
-            "GeneratedBy": [{"Name": "sourcelab", "Version": __version__}]}
+    return {
+        **out,
+        "Cautions": list(CAUTIONS),
+        "GeneratedBy": [{"Name": "sourcelab", "Version": __version__}],
+    }
 
 
 def write_candidates(candidates: pd.DataFrame, path: str | Path) -> Path:
@@ -491,9 +575,10 @@ def write_candidates(candidates: pd.DataFrame, path: str | Path) -> Path:
     """
     path = Path(path)
     body = candidates.to_csv(sep="\t", index=False, na_rep="n/a", float_format="%.4g")
-    atomic_write_text(path.with_suffix(".json"),
-                      json.dumps(candidates_sidecar(candidates), indent=2, ensure_ascii=False)
-                      + "\n")
+    atomic_write_text(
+        path.with_suffix(".json"),
+        json.dumps(candidates_sidecar(candidates), indent=2, ensure_ascii=False) + "\n",
+    )
     atomic_write_text(path, body)
     return path
 
@@ -514,8 +599,22 @@ def candidates_html(candidates: pd.DataFrame, *, max_rows: int = 20) -> str:
         The ``<section class="sourcelab-candidates">`` fragment, text escaped.
     """
     e = html.escape
-    cols = ("rank", "kind", "atlas", "roi", "hemisphere", "band", "measure", "z", "direction",
-            "fdr", "n_vertices", "small", "neighbours_same", "members_deviating")
+    cols = (
+        "rank",
+        "kind",
+        "atlas",
+        "roi",
+        "hemisphere",
+        "band",
+        "measure",
+        "z",
+        "direction",
+        "fdr",
+        "n_vertices",
+        "small",
+        "neighbours_same",
+        "members_deviating",
+    )
     heads = "".join(f"<th>{e(c.replace('_', ' '))}</th>" for c in cols)
     body = []
     for r in candidates.head(max_rows).to_dict("records"):
@@ -537,8 +636,10 @@ def candidates_html(candidates: pd.DataFrame, *, max_rows: int = 20) -> str:
             cells.append(f"<td>{e(s)}</td>")
         body.append("<tr>" + "".join(cells) + "</tr>")
     if not body:
-        body = [f'<tr><td colspan="{len(cols)}">No ROI or network deviates beyond '
-                f"|z| = {DEVIATION_Z}.</td></tr>"]
+        body = [
+            f'<tr><td colspan="{len(cols)}">No ROI or network deviates beyond '
+            f"|z| = {DEVIATION_Z}.</td></tr>"
+        ]
     cautions = "".join(f"<li>{e(c)}</li>" for c in CAUTIONS)
     return (
         '<section class="sourcelab-candidates">\n'
@@ -548,5 +649,7 @@ def candidates_html(candidates: pd.DataFrame, *, max_rows: int = 20) -> str:
         "them is worth training is for a licensed practitioner to decide, correlating with the "
         "person's symptoms and history. Neighbours deviating the same way suggest sLORETA blur "
         "or a broad pattern rather than a focal source; small regions are unreliable.</p>\n"
-        f"<table>\n<thead><tr>{heads}</tr></thead>\n<tbody>\n" + "\n".join(body)
-        + f"\n</tbody>\n</table>\n<ul class=\"cautions\">{cautions}</ul>\n</section>\n")
+        f"<table>\n<thead><tr>{heads}</tr></thead>\n<tbody>\n"
+        + "\n".join(body)
+        + f'\n</tbody>\n</table>\n<ul class="cautions">{cautions}</ul>\n</section>\n'
+    )

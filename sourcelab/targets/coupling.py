@@ -74,11 +74,13 @@ FORMULAS = {
     "phase_sd_deg": "mean over bins of sqrt(-2 ln |<u>|), degrees",
     "asymmetry": "(Σ_f <Pa> - Σ_f <Pb>) / (Σ_f <Pa> + Σ_f <Pb>)",
     "aec_orth": "Pearson correlation, pooled over segments, of |y_b| and |Im(y_a conj(y_b)) / "
-                "|y_b||| and vice versa, averaged; y: band-limited analytic signals of the "
-                "untapered segments",
+    "|y_b||| and vice versa, averaged; y: band-limited analytic signals of the "
+    "untapered segments",
 }
-FORMULA_NOTE = ("S = Ya conj(Yb) per segment and bin, Pa = |Ya|², Pb = |Yb|²; <.> = mean over "
-                "the window's clean segments; Y: scaled DFT coefficients of the node signals")
+FORMULA_NOTE = (
+    "S = Ya conj(Yb) per segment and bin, Pa = |Ya|², Pb = |Yb|²; <.> = mean over "
+    "the window's clean segments; Y: scaled DFT coefficients of the node signals"
+)
 
 
 @dataclass(frozen=True, eq=False)
@@ -155,8 +157,12 @@ class CouplingTarget:
             JSON-serialisable; arrays as nested lists; includes the estimator and the cautions.
         """
         lo, hi = self.band_edges
-        node = {"label": self.label, "node_a": self.nodes[0], "node_b": self.nodes[1],
-                **self.details}
+        node = {
+            "label": self.label,
+            "node_a": self.nodes[0],
+            "node_b": self.nodes[1],
+            **self.details,
+        }
         if self.kind == "edge":
             node["atlas"] = self.atlas
         return {
@@ -166,7 +172,7 @@ class CouplingTarget:
             "created_utc": self.created_utc,
             "channels": list(self.channels),
             "reference": "any: the node weights sum to zero (average reference for pairs, "
-                         "ROI filters from the average-referenced inverse for edges)",
+            "ROI filters from the average-referenced inverse for edges)",
             "data_unit": "µV",
             self.kind: node,
             "band": {"name": self.band, "low_hz": lo, "high_hz": hi},
@@ -179,14 +185,16 @@ class CouplingTarget:
                 "taper": "periodic Hann (mean removed first); none for aec_orth",
                 "bins": "k / segment_s for low_hz <= f < high_hz",
                 "scaling": "sqrt(w_k / (sfreq · Σ taper²) · sfreq / n) · DFT, w_k = 2 "
-                           "(1 at 0 Hz and Nyquist): |Y|² summed over a band is band power "
-                           "(µV²)",
-                "prefilter": "causal Butterworth band-pass 0.5-45 Hz (order 2), every "
-                             "channel",
+                "(1 at 0 Hz and Nyquist): |Y|² summed over a band is band power "
+                "(µV²)",
+                "prefilter": "causal Butterworth band-pass 0.5-45 Hz (order 2), every channel",
                 "window_segments": self.window_segments,
                 "min_clean_segments": self.min_clean_segments,
-                "reject_uv": self.reject_uv, "flat_uv": FLAT_UV, "warmup_s": WARMUP_S,
-                "formula": FORMULAS[self.measure], "formula_terms": FORMULA_NOTE,
+                "reject_uv": self.reject_uv,
+                "flat_uv": FLAT_UV,
+                "warmup_s": WARMUP_S,
+                "formula": FORMULAS[self.measure],
+                "formula_terms": FORMULA_NOTE,
             },
             "norm": self.norm,
             "offline": self.offline,
@@ -206,8 +214,9 @@ class CouplingTarget:
         return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
 
 
-def coupling_target_from_dict(d: dict, *, path="target", current: Fingerprint | None = None,
-                              check_fingerprint: bool = True) -> CouplingTarget:
+def coupling_target_from_dict(
+    d: dict, *, path="target", current: Fingerprint | None = None, check_fingerprint: bool = True
+) -> CouplingTarget:
     """Validate a parsed pair or edge target and build the dataclass.
 
     Parameters
@@ -242,8 +251,10 @@ def coupling_target_from_dict(d: dict, *, path="target", current: Fingerprint | 
     try:
         channels = tuple(str(c) for c in d["channels"])
         if channels != SITES_1020:
-            raise bad(f"channels {list(channels)} differ from the 19 sites in sourcelab order "
-                      f"{list(SITES_1020)}")
+            raise bad(
+                f"channels {list(channels)} differ from the 19 sites in sourcelab order "
+                f"{list(SITES_1020)}"
+            )
         node, cp, band = d[kind], d["coupling"], d["band"]
         measure = str(d["measure"])
         allowed = set(BAND_MEASURES) | ({"asymmetry"} if kind == "pair" else {"aec_orth"})
@@ -251,31 +262,44 @@ def coupling_target_from_dict(d: dict, *, path="target", current: Fingerprint | 
             raise bad(f"measure {measure!r} is not one of {sorted(allowed)} for a {kind}")
         w = np.asarray(cp["node_weights"], dtype=float)
         if w.shape != (2, len(channels)) or not np.all(np.isfinite(w)):
-            raise bad(f"coupling.node_weights must be a finite 2 x {len(channels)} array, got "
-                      f"shape {w.shape}")
+            raise bad(
+                f"coupling.node_weights must be a finite 2 x {len(channels)} array, got "
+                f"shape {w.shape}"
+            )
         if not np.allclose(w.sum(axis=1), 0.0, atol=1e-9 * max(1.0, np.abs(w).max())):
             raise bad("coupling.node_weights rows must sum to 0 (reference-free)")
         target = CouplingTarget(
-            kind=kind, name=str(d["name"]), channels=channels, label=str(node["label"]),
+            kind=kind,
+            name=str(d["name"]),
+            channels=channels,
+            label=str(node["label"]),
             nodes=(str(node["node_a"]), str(node["node_b"])),
-            atlas=str(node["atlas"]) if kind == "edge" else None, node_weights=w,
+            atlas=str(node["atlas"]) if kind == "edge" else None,
+            node_weights=w,
             band=str(band["name"]),
             bands=tuple((str(b[0]), float(b[1]), float(b[2])) for b in d["bands"]),
-            measure=measure, segment_s=float(cp["segment_s"]),
+            measure=measure,
+            segment_s=float(cp["segment_s"]),
             window_segments=int(cp["window_segments"]),
-            fingerprint=Fingerprint.from_dict(d["fingerprint"]), norm=d.get("norm"),
-            offline=dict(d.get("offline") or {}), direction=str(d.get("direction", "none")),
+            fingerprint=Fingerprint.from_dict(d["fingerprint"]),
+            norm=d.get("norm"),
+            offline=dict(d.get("offline") or {}),
+            direction=str(d.get("direction", "none")),
             reject_uv=float(cp["reject_uv"]),
-            details={k: v for k, v in node.items()
-                     if k not in ("label", "node_a", "node_b", "atlas")},
-            created_utc=str(d.get("created_utc", "")))
+            details={
+                k: v for k, v in node.items() if k not in ("label", "node_a", "node_b", "atlas")
+            },
+            created_utc=str(d.get("created_utc", "")),
+        )
     except InputError:
         raise
     except (KeyError, TypeError, ValueError, AttributeError, IndexError) as exc:
         raise bad(f"malformed {kind} target ({exc!r})") from None
     lo, hi = target.band_edges
-    if not (np.isclose(float(band.get("low_hz", lo)), lo)
-            and np.isclose(float(band.get("high_hz", hi)), hi)):
+    if not (
+        np.isclose(float(band.get("low_hz", lo)), lo)
+        and np.isclose(float(band.get("high_hz", hi)), hi)
+    ):
         raise bad("band edges differ from the 'bands' list")
     if not target.segment_s > 0 or target.window_segments < 2:
         raise bad("coupling.segment_s must be > 0 and window_segments >= 2")
@@ -296,8 +320,9 @@ def coupling_target_from_dict(d: dict, *, path="target", current: Fingerprint | 
 # the measure from node coefficients (the offline estimator)
 
 
-def segment_value(measure: str, spec: np.ndarray, plain: np.ndarray | None,
-                  freqs: np.ndarray) -> float:
+def segment_value(
+    measure: str, spec: np.ndarray, plain: np.ndarray | None, freqs: np.ndarray
+) -> float:
     """One pair / edge measure from the node coefficients of ``K`` segments.
 
     Parameters
@@ -337,8 +362,9 @@ def _z(value: float, norm: dict | None) -> float:
     if norm is None or not np.isfinite(value):
         return float("nan")
     try:
-        return float(zscore(np.array([value]), float(norm["mean"]), float(norm["sd"]),
-                            norm["transform"])[0])
+        return float(
+            zscore(np.array([value]), float(norm["mean"]), float(norm["sd"]), norm["transform"])[0]
+        )
     except InputError:  # on the edge of the measure's range (e.g. coherence 1)
         return float("nan")
 
@@ -374,8 +400,9 @@ class OnlineCoupling:
         self._bands = Bands((target.band,), ((lo, hi),))
         _, self.freqs = analysed_bins(self.n_seg, self.sfreq, self._bands)
         nyq = self.sfreq / 2
-        self._hp = butter(2, [0.5, min(45.0, 0.9 * nyq)], btype="bandpass", output="sos",
-                          fs=self.sfreq)
+        self._hp = butter(
+            2, [0.5, min(45.0, 0.9 * nyq)], btype="bandpass", output="sos", fs=self.sfreq
+        )
         self._zi_unit = sosfilt_zi(self._hp)
         self._zi = None
         self._pending = np.zeros((len(target.channels), 0))
@@ -389,9 +416,9 @@ class OnlineCoupling:
     def _coefficients(self, seg: np.ndarray, taper: bool) -> np.ndarray:
         from ..spectra import epoch_fourier
 
-        y = self.target.node_weights @ seg                                  # (2, n_seg)
+        y = self.target.node_weights @ seg  # (2, n_seg)
         spec, _ = epoch_fourier(y[None], self.sfreq, self._bands, taper=taper)
-        return spec[0]                                                      # (2, n_bins)
+        return spec[0]  # (2, n_bins)
 
     def push(self, chunk: np.ndarray) -> list[tuple[float, float, float, int, bool]]:
         """Feed samples (19, n) in µV; one row per completed segment.
@@ -419,8 +446,9 @@ class OnlineCoupling:
 
         chunk = np.asarray(chunk, dtype=float)
         if chunk.ndim != 2 or chunk.shape[0] != len(self.target.channels):
-            raise InputError(f"chunk: need shape ({len(self.target.channels)}, n_samples), "
-                             f"got {chunk.shape}")
+            raise InputError(
+                f"chunk: need shape ({len(self.target.channels)}, n_samples), got {chunk.shape}"
+            )
         if chunk.shape[1] == 0:
             return []
         if self._zi is None:
@@ -439,9 +467,11 @@ class OnlineCoupling:
         self._n_done += 1
         t_end = self._n_done * self.n_seg / self.sfreq
         ref = seg - seg.mean(axis=0, keepdims=True)
-        clean = bool(t_end >= WARMUP_S + self.target.segment_s - 1e-9
-                     and np.ptp(ref, axis=1).max() <= self.target.reject_uv
-                     and np.ptp(raw, axis=1).min() >= FLAT_UV)
+        clean = bool(
+            t_end >= WARMUP_S + self.target.segment_s - 1e-9
+            and np.ptp(ref, axis=1).max() <= self.target.reject_uv
+            and np.ptp(raw, axis=1).min() >= FLAT_UV
+        )
         spec = self._coefficients(seg, True)
         plain = self._coefficients(seg, False) if self._plain else None
         self._window.append((spec, plain, clean))
@@ -515,12 +545,20 @@ class CouplingReplay:
         """
         import pandas as pd
 
-        return pd.DataFrame({"time_s": self.time_s, "value": self.value, "z": self.z,
-                             "n_clean": self.n_clean, "clean": self.clean})
+        return pd.DataFrame(
+            {
+                "time_s": self.time_s,
+                "value": self.value,
+                "z": self.z,
+                "n_clean": self.n_clean,
+                "clean": self.clean,
+            }
+        )
 
 
-def replay_coupling_array(data_uv: np.ndarray, sfreq: float, target: CouplingTarget, *,
-                          chunk_s: float = 10.0) -> CouplingReplay:
+def replay_coupling_array(
+    data_uv: np.ndarray, sfreq: float, target: CouplingTarget, *, chunk_s: float = 10.0
+) -> CouplingReplay:
     """Replay a coupling target over a whole array, causally (same numbers as streaming).
 
     Parameters
@@ -543,12 +581,18 @@ def replay_coupling_array(data_uv: np.ndarray, sfreq: float, target: CouplingTar
     n = max(1, int(round(chunk_s * sfreq)))
     rows = []
     for start in range(0, data_uv.shape[1], n):
-        rows += tracker.push(data_uv[:, start:start + n])
+        rows += tracker.push(data_uv[:, start : start + n])
     if not rows:
         raise InputError(f"recording shorter than one {target.segment_s:g}-s segment")
     t, v, z, k, c = (np.array(x) for x in zip(*rows))
-    return CouplingReplay(time_s=t, value=v, z=z, n_clean=k.astype(int), clean=c.astype(bool),
-                          pooled_value=tracker.pooled_value())
+    return CouplingReplay(
+        time_s=t,
+        value=v,
+        z=z,
+        n_clean=k.astype(int),
+        clean=c.astype(bool),
+        pooled_value=tracker.pooled_value(),
+    )
 
 
 def plot_coupling_replay(result: CouplingReplay, target: CouplingTarget, *, figure=None):
@@ -572,30 +616,53 @@ def plot_coupling_replay(result: CouplingReplay, target: CouplingTarget, *, figu
 
     fig = figure if figure is not None else Figure(figsize=(9, 5), layout="constrained")
     ax_v, ax_z = fig.subplots(2, 1, sharex=True)
-    ax_v.plot(result.time_s, result.value, lw=0.9, color="0.2", marker=".", ms=3,
-              label=f"replayed (last {target.window_segments} segments)")
+    ax_v.plot(
+        result.time_s,
+        result.value,
+        lw=0.9,
+        color="0.2",
+        marker=".",
+        ms=3,
+        label=f"replayed (last {target.window_segments} segments)",
+    )
     off = target.offline.get("value")
     if off is not None and np.isfinite(off):
         ax_v.axhline(off, ls="--", color="tab:blue", label="offline analysis")
     if np.isfinite(result.pooled_value):
-        ax_v.axhline(result.pooled_value, ls=":", color="tab:orange",
-                     label="replay, all clean segments")
+        ax_v.axhline(
+            result.pooled_value, ls=":", color="tab:orange", label="replay, all clean segments"
+        )
     ax_v.set_ylabel(target.measure)
-    ax_v.set_title(f"{target.name}: {target.segment_s:g}-s segments, window of "
-                   f"{target.window_segments}")
+    ax_v.set_title(
+        f"{target.name}: {target.segment_s:g}-s segments, window of {target.window_segments}"
+    )
     ax_v.legend(loc="upper right", fontsize=8)
     ax_z.plot(result.time_s, result.z, lw=0.9, color="0.2", marker=".", ms=3)
     ax_z.axhline(0, color="0.5", lw=0.5)
     for lim in (-1.96, 1.96):
         ax_z.axhline(lim, ls=":", color="0.5", lw=0.8)
     if target.norm is None:
-        ax_z.text(0.5, 0.5, "no norm in this target: z not available", ha="center",
-                  va="center", transform=ax_z.transAxes, color="0.4")
+        ax_z.text(
+            0.5,
+            0.5,
+            "no norm in this target: z not available",
+            ha="center",
+            va="center",
+            transform=ax_z.transAxes,
+            color="0.4",
+        )
     ax_z.set_ylabel("z (window)")
     ax_z.set_xlabel("time (s, segment end)")
     for ax in (ax_v, ax_z):
-        ax.fill_between(result.time_s, 0, 1, where=~result.clean, color="0.85", step="pre",
-                        transform=ax.get_xaxis_transform())
+        ax.fill_between(
+            result.time_s,
+            0,
+            1,
+            where=~result.clean,
+            color="0.85",
+            step="pre",
+            transform=ax.get_xaxis_transform(),
+        )
     return fig
 
 
@@ -630,31 +697,43 @@ def replay_coupling_recording(target: CouplingTarget, recording, out: str | Path
     rec = recording if isinstance(recording, Recording) else read_recording(recording)
     raw = rec.raw
     if tuple(raw.ch_names) != tuple(target.channels):
-        raise InputError(f"recording channels {raw.ch_names} differ from the target's "
-                         f"{list(target.channels)}", path=rec.path)
+        raise InputError(
+            f"recording channels {raw.ch_names} differ from the target's {list(target.channels)}",
+            path=rec.path,
+        )
     res = replay_coupling_array(raw.get_data() * 1e6, rec.sfreq, target)
     off = target.offline.get("value")
     finite = np.isfinite(res.value)
     summary = {
-        "target": target.name, "kind": target.kind, "measure": target.measure,
-        "recording": str(rec.path) if rec.path else None, "recording_sha256": rec.sha256,
-        "sfreq": float(rec.sfreq), "n_segments": int(res.time_s.size),
+        "target": target.name,
+        "kind": target.kind,
+        "measure": target.measure,
+        "recording": str(rec.path) if rec.path else None,
+        "recording_sha256": rec.sha256,
+        "sfreq": float(rec.sfreq),
+        "n_segments": int(res.time_s.size),
         "n_clean": int(res.clean.sum()),
-        "pooled_value": res.pooled_value, "pooled_z": _z(res.pooled_value, target.norm),
+        "pooled_value": res.pooled_value,
+        "pooled_z": _z(res.pooled_value, target.norm),
         "offline_value": off,
         "difference_to_offline": (res.pooled_value - off) if off is not None else None,
         "median_window_value": float(np.median(res.value[finite])) if finite.any() else None,
-        "window_segments": target.window_segments, "segment_s": target.segment_s,
+        "window_segments": target.window_segments,
+        "segment_s": target.segment_s,
     }
     out = Path(out)
     with atomic_output_dir(out) as tmp:
-        res.to_frame().to_csv(tmp / "replay.tsv", sep="\t", index=False, na_rep="",
-                              float_format="%.6g")
+        res.to_frame().to_csv(
+            tmp / "replay.tsv", sep="\t", index=False, na_rep="", float_format="%.6g"
+        )
         plot_coupling_replay(res, target).savefig(tmp / "replay.png", dpi=100)
-        clean_summary = {k: (None if isinstance(v, float) and not np.isfinite(v) else v)
-                         for k, v in summary.items()}           # strict JSON: no NaN
-        (tmp / "replay.json").write_text(json.dumps(clean_summary, indent=2, allow_nan=False),
-                                         encoding="utf-8")
+        clean_summary = {
+            k: (None if isinstance(v, float) and not np.isfinite(v) else v)
+            for k, v in summary.items()
+        }  # strict JSON: no NaN
+        (tmp / "replay.json").write_text(
+            json.dumps(clean_summary, indent=2, allow_nan=False), encoding="utf-8"
+        )
     return summary
 
 
@@ -667,8 +746,11 @@ def _read_table(folder: Path, name: str):
 
     path = folder / f"{name}.tsv"
     if not path.is_file():
-        raise InputError(f"analysis folder lacks {name}.tsv (analysed with coupling off, or "
-                         "by an older sourcelab)", path=folder)
+        raise InputError(
+            f"analysis folder lacks {name}.tsv (analysed with coupling off, or "
+            "by an older sourcelab)",
+            path=folder,
+        )
     try:
         return pd.read_csv(path, sep="\t", keep_default_na=False, na_values=[""])
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
@@ -684,24 +766,30 @@ def _select_pair(t, label: str):
     rev = f"{b}-{a}"
     hit = t[t["pair"].isin([fwd, rev])]
     if hit.empty:
-        raise InputError(f"no pair {label!r} in the pair table (sites: "
-                         f"{sorted(set(t['channel_a']) | set(t['channel_b']))})")
+        raise InputError(
+            f"no pair {label!r} in the pair table (sites: "
+            f"{sorted(set(t['channel_a']) | set(t['channel_b']))})"
+        )
     return hit
 
 
 def _select_edge(t, label: str, atlas: str | None):
     parts = [p.strip() for p in str(label).split("|")]
     if len(parts) != 2 or not all(parts):
-        raise InputError(f"--edge: need two ROIs joined by '|', e.g. "
-                         f"'visual.left|visual.right', got {label!r}")
+        raise InputError(
+            f"--edge: need two ROIs joined by '|', e.g. 'visual.left|visual.right', got {label!r}"
+        )
     a, b = parts
     hit = t[t["edge"].isin([f"{a}|{b}", f"{b}|{a}"])]
     if atlas is not None:
         hit = hit[hit["atlas"] == atlas]
     if hit.empty:
         have = sorted(set(t["atlas"]))
-        raise InputError(f"no edge {label!r}" + (f" in atlas {atlas}" if atlas else "")
-                         + f" (atlases: {have}; ROIs as roi.hemisphere)")
+        raise InputError(
+            f"no edge {label!r}"
+            + (f" in atlas {atlas}" if atlas else "")
+            + f" (atlases: {have}; ROIs as roi.hemisphere)"
+        )
     atlases = sorted(set(hit["atlas"]))
     if len(atlases) > 1:
         raise InputError(f"edge {label!r} exists in atlases {atlases}; pass --atlas")
@@ -715,10 +803,18 @@ def _finite(v) -> bool:
         return False
 
 
-def export_coupling_target(result_dir: str | Path, *, kind: str, label: str, band: str,
-                           measure: str | None = None, atlas: str | None = None, norms=None,
-                           allow_extrapolation: bool = False,
-                           window_segments: int = WINDOW_SEGMENTS) -> CouplingTarget:
+def export_coupling_target(
+    result_dir: str | Path,
+    *,
+    kind: str,
+    label: str,
+    band: str,
+    measure: str | None = None,
+    atlas: str | None = None,
+    norms=None,
+    allow_extrapolation: bool = False,
+    window_segments: int = WINDOW_SEGMENTS,
+) -> CouplingTarget:
     """Build the target of one electrode pair or one network/lobe edge from an analysis folder.
 
     Parameters
@@ -784,8 +880,11 @@ def export_coupling_target(result_dir: str | Path, *, kind: str, label: str, ban
         w = np.full((2, n), -1.0 / n)
         for i, c in enumerate(nodes):
             w[i, names.index(c)] += 1.0
-        details = {k: bool(row[k]) for k in ("homologous", "anterior_posterior",
-                                             "intrahemispheric") if k in row}
+        details = {
+            k: bool(row[k])
+            for k in ("homologous", "anterior_posterior", "intrahemispheric")
+            if k in row
+        }
         item_label, at_name = str(row["pair"]), None
     else:
         from ..coupling import roi_filters
@@ -800,13 +899,18 @@ def export_coupling_target(result_dir: str | Path, *, kind: str, label: str, ban
         ib = keys.index((str(row["roi_b"]), str(row["hemisphere_b"])))
         w = f.weights[[ia, ib]].copy()
         nodes = (f"{row['roi_a']}.{row['hemisphere_a']}", f"{row['roi_b']}.{row['hemisphere_b']}")
-        details = {"roi_a": str(row["roi_a"]), "hemisphere_a": str(row["hemisphere_a"]),
-                   "roi_b": str(row["roi_b"]), "hemisphere_b": str(row["hemisphere_b"]),
-                   "filter_share_a": float(f.share[ia]), "filter_share_b": float(f.share[ib]),
-                   "source_space": "fsaverage5 surface vertices (0..20483, left hemisphere "
-                                   "first) of each ROI's cortical sources",
-                   "vertices_a": model.vertno[f.vertices[ia]].tolist(),
-                   "vertices_b": model.vertno[f.vertices[ib]].tolist()}
+        details = {
+            "roi_a": str(row["roi_a"]),
+            "hemisphere_a": str(row["hemisphere_a"]),
+            "roi_b": str(row["roi_b"]),
+            "hemisphere_b": str(row["hemisphere_b"]),
+            "filter_share_a": float(f.share[ia]),
+            "filter_share_b": float(f.share[ib]),
+            "source_space": "fsaverage5 surface vertices (0..20483, left hemisphere "
+            "first) of each ROI's cortical sources",
+            "vertices_a": model.vertno[f.vertices[ia]].tolist(),
+            "vertices_b": model.vertno[f.vertices[ib]].tolist(),
+        }
         item_label = str(row["edge"])
     prov = res.provenance
     rec = prov.get("recording", {})
@@ -815,31 +919,69 @@ def export_coupling_target(result_dir: str | Path, *, kind: str, label: str, ban
     norm = None
     nm, age = analysis_norms(res, norms)
     if nm is not None:
-        norm = coupling_norm_at_age(nm, kind=kind, label=item_label, atlas=at_name, band=band,
-                                    measure=measure, age=age, fingerprint=fp,
-                                    condition=rec.get("condition"),
-                                    allow_extrapolation=allow_extrapolation)
-    offline = {"value": float(row["value"]), "z": z,
-               "value_lo": float(row["value_lo"]) if _finite(row.get("value_lo")) else None,
-               "value_hi": float(row["value_hi"]) if _finite(row.get("value_hi")) else None,
-               "n_epochs": int(row["n_epochs"]), "result_dir": str(res.path),
-               "recording_sha256": rec.get("sha256")}
+        norm = coupling_norm_at_age(
+            nm,
+            kind=kind,
+            label=item_label,
+            atlas=at_name,
+            band=band,
+            measure=measure,
+            age=age,
+            fingerprint=fp,
+            condition=rec.get("condition"),
+            allow_extrapolation=allow_extrapolation,
+        )
+    offline = {
+        "value": float(row["value"]),
+        "z": z,
+        "value_lo": float(row["value_lo"]) if _finite(row.get("value_lo")) else None,
+        "value_hi": float(row["value_hi"]) if _finite(row.get("value_hi")) else None,
+        "n_epochs": int(row["n_epochs"]),
+        "result_dir": str(res.path),
+        "recording_sha256": rec.get("sha256"),
+    }
     direction = "none" if z is None or z == 0 else DIRECTIONS[int(np.sign(z))]
-    name = (f"pair {item_label} {band} {measure}" if kind == "pair"
-            else f"{at_name} {item_label} {band} {measure}")
+    name = (
+        f"pair {item_label} {band} {measure}"
+        if kind == "pair"
+        else f"{at_name} {item_label} {band} {measure}"
+    )
     return CouplingTarget(
-        kind=kind, name=name, channels=tuple(names), label=item_label, nodes=nodes,
-        atlas=at_name, node_weights=w, band=band, bands=fp.bands, measure=measure,
-        segment_s=float(fp.epoch_s), window_segments=int(window_segments), fingerprint=fp,
-        norm=norm, offline=offline, direction=direction,
-        reject_uv=float(params.get("reject_uv", 150.0)), details=details,
-        created_utc=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"))
+        kind=kind,
+        name=name,
+        channels=tuple(names),
+        label=item_label,
+        nodes=nodes,
+        atlas=at_name,
+        node_weights=w,
+        band=band,
+        bands=fp.bands,
+        measure=measure,
+        segment_s=float(fp.epoch_s),
+        window_segments=int(window_segments),
+        fingerprint=fp,
+        norm=norm,
+        offline=offline,
+        direction=direction,
+        reject_uv=float(params.get("reject_uv", 150.0)),
+        details=details,
+        created_utc=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+    )
 
 
-def coupling_norm_at_age(norms, *, kind: str, label: str, band: str, measure: str, age: float,
-                         fingerprint: Fingerprint, atlas: str | None = None,
-                         condition: str | None = None,
-                         allow_extrapolation: bool = False) -> dict:
+def coupling_norm_at_age(
+    norms,
+    *,
+    kind: str,
+    label: str,
+    band: str,
+    measure: str,
+    age: float,
+    fingerprint: Fingerprint,
+    atlas: str | None = None,
+    condition: str | None = None,
+    allow_extrapolation: bool = False,
+) -> dict:
     """The norm of one pair / edge quantity at ``age``.
 
     Row selection is :func:`sourcelab.norms.match_norms`'s (fingerprint, condition, age range).
@@ -881,12 +1023,25 @@ def coupling_norm_at_age(norms, *, kind: str, label: str, band: str, measure: st
     where = norms.path if norms.path is not None else "norms"
     one = {"band": [band], "measure": [measure]}
     one.update({"pair": [label]} if kind == "pair" else {"atlas": [atlas], "edge": [label]})
-    rows = match_norms(pd.DataFrame(one), norms, age=age, fingerprint=fingerprint,
-                       condition=condition, allow_extrapolation=allow_extrapolation,
-                       allow_condition_mismatch=True, kind=kind)
+    rows = match_norms(
+        pd.DataFrame(one),
+        norms,
+        age=age,
+        fingerprint=fingerprint,
+        condition=condition,
+        allow_extrapolation=allow_extrapolation,
+        allow_condition_mismatch=True,
+        kind=kind,
+    )
     if not rows.has[0]:
         raise InputError(f"norms have no {kind} row for {label} {band} {measure}", path=where)
-    return {"mean": float(rows.mean[0]), "sd": float(rows.sd[0]),
-            "transform": str(rows.transform[0]), "age": float(age), "n": int(rows.n[0]),
-            "extrapolated": bool(rows.extrapolated[0]), "norms_sha256": norms.sha256,
-            "condition": norms.condition}
+    return {
+        "mean": float(rows.mean[0]),
+        "sd": float(rows.sd[0]),
+        "transform": str(rows.transform[0]),
+        "age": float(age),
+        "n": int(rows.n[0]),
+        "extrapolated": bool(rows.extrapolated[0]),
+        "norms_sha256": norms.sha256,
+        "condition": norms.condition,
+    }

@@ -71,9 +71,11 @@ STEP_S_MIN = 0.01
 MAX_BLOCKS = 600
 #: Direction to train: away from the deviation, towards the norm mean.
 DIRECTIONS = {1: "decrease", -1: "increase"}
-POWER_FORMULA = ("ROI power = mean over the ROI's sources i of sum over i's kernel rows k of "
-                 "mean over the window of (k . x_band(t))^2 = tr(M cov(x_band)); x in µV, "
-                 "x_band causally band-passed, cov over the window without mean removal")
+POWER_FORMULA = (
+    "ROI power = mean over the ROI's sources i of sum over i's kernel rows k of "
+    "mean over the window of (k . x_band(t))^2 = tr(M cov(x_band)); x in µV, "
+    "x_band causally band-passed, cov over the window without mean removal"
+)
 
 
 def butter_sos(lo: float, hi: float, sfreq: float, *, order: int = FILTER_ORDER) -> np.ndarray:
@@ -96,8 +98,10 @@ def butter_sos(lo: float, hi: float, sfreq: float, *, order: int = FILTER_ORDER)
     from scipy.signal import butter
 
     if not (0 < lo < hi < sfreq / 2):
-        raise InputError(f"band {lo:g}-{hi:g} Hz: need 0 < low < high < Nyquist "
-                         f"({sfreq / 2:g} Hz) for a causal band-pass")
+        raise InputError(
+            f"band {lo:g}-{hi:g} Hz: need 0 < low < high < Nyquist "
+            f"({sfreq / 2:g} Hz) for a causal band-pass"
+        )
     return butter(order, [lo, hi], btype="bandpass", output="sos", fs=sfreq)
 
 
@@ -221,8 +225,11 @@ class TargetDefinition:
         """
         if math.isclose(sfreq, self.sfreq, rel_tol=1e-9):
             return dict(self.sos)
-        return {b: butter_sos(lo, hi, sfreq, order=self.filter_order)
-                for b, lo, hi in self.bands if b in self.sos}
+        return {
+            b: butter_sos(lo, hi, sfreq, order=self.filter_order)
+            for b, lo, hi in self.bands
+            if b in self.sos
+        }
 
     def to_dict(self) -> dict:
         """The ``sourcelab-target/1`` JSON document of this area target (see ``SCHEMA.md``).
@@ -241,27 +248,44 @@ class TargetDefinition:
             "channels": list(self.channels),
             "reference": "average (folded into the weights; any reference may be fed)",
             "data_unit": "µV",
-            "roi": {"atlas": self.atlas, "name": self.roi, "hemisphere": self.hemisphere,
-                    "n_sources": int(self.vertices.size), "small": bool(self.small),
-                    "source_space": "fsaverage5 surface vertices (0..20483, left hemisphere "
-                                    "first) of the ROI's cortical sources",
-                    "vertices": self.vertices.tolist()},
+            "roi": {
+                "atlas": self.atlas,
+                "name": self.roi,
+                "hemisphere": self.hemisphere,
+                "n_sources": int(self.vertices.size),
+                "small": bool(self.small),
+                "source_space": "fsaverage5 surface vertices (0..20483, left hemisphere "
+                "first) of the ROI's cortical sources",
+                "vertices": self.vertices.tolist(),
+            },
             "band": {"name": self.band, "low_hz": lo, "high_hz": hi},
             "bands": [list(b) for b in self.bands],
             "measure": self.measure,
-            "filter": {"family": "butterworth", "type": "bandpass", "prototype_order": self.filter_order,
-                       "causal": True, "edges": "-3 dB at low_hz and high_hz",
-                       "sfreq": self.sfreq, "initial_state": "steady state for the first sample",
-                       "sos": {b: np.asarray(s).tolist() for b, s in self.sos.items()},
-                       "group_delay_s": group_delay_s(self.sos[self.band], self.sfreq,
-                                                      (lo + hi) / 2)},
-            "spatial_filter": {"n_comp": int(self.n_comp),
-                               "matrix": np.asarray(self.matrix).tolist(),
-                               "kernel_rows": (None if self.kernel_rows is None
-                                               else np.asarray(self.kernel_rows).tolist())},
-            "power": {"formula": POWER_FORMULA, "window_s": self.window_s, "step_s": self.step_s,
-                      "reject_uv": self.reject_uv,
-                      "relative": "per source: band power / sum over 'bands', then ROI mean"},
+            "filter": {
+                "family": "butterworth",
+                "type": "bandpass",
+                "prototype_order": self.filter_order,
+                "causal": True,
+                "edges": "-3 dB at low_hz and high_hz",
+                "sfreq": self.sfreq,
+                "initial_state": "steady state for the first sample",
+                "sos": {b: np.asarray(s).tolist() for b, s in self.sos.items()},
+                "group_delay_s": group_delay_s(self.sos[self.band], self.sfreq, (lo + hi) / 2),
+            },
+            "spatial_filter": {
+                "n_comp": int(self.n_comp),
+                "matrix": np.asarray(self.matrix).tolist(),
+                "kernel_rows": (
+                    None if self.kernel_rows is None else np.asarray(self.kernel_rows).tolist()
+                ),
+            },
+            "power": {
+                "formula": POWER_FORMULA,
+                "window_s": self.window_s,
+                "step_s": self.step_s,
+                "reject_uv": self.reject_uv,
+                "relative": "per source: band power / sum over 'bands', then ROI mean",
+            },
             "norm": self.norm,
             "offline": self.offline,
             "direction": self.direction,
@@ -321,12 +345,17 @@ def _current_fingerprint_check(fp: Fingerprint, current: Fingerprint | None, pat
     else:
         diffs = fp.differences(current)
     if diffs:
-        raise InputError("target was made by a different pipeline (" + "; ".join(diffs)
-                         + "); export it again from a current analysis", path=path)
+        raise InputError(
+            "target was made by a different pipeline ("
+            + "; ".join(diffs)
+            + "); export it again from a current analysis",
+            path=path,
+        )
 
 
-def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = None,
-                     check_fingerprint: bool = True) -> TargetDefinition:
+def target_from_dict(
+    d: dict, *, path="target", current: Fingerprint | None = None, check_fingerprint: bool = True
+) -> TargetDefinition:
     """Validate a parsed target and build the dataclass.
 
     Parameters
@@ -350,6 +379,7 @@ def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = No
     InputError
         Wrong schema, wrong channel set or order, malformed arrays, fingerprint mismatch.
     """
+
     def bad(msg):
         return InputError(msg, path=path)
 
@@ -360,15 +390,18 @@ def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = No
     if kind in ("pair", "edge"):
         from .coupling import coupling_target_from_dict
 
-        return coupling_target_from_dict(d, path=path, current=current,
-                                         check_fingerprint=check_fingerprint)
+        return coupling_target_from_dict(
+            d, path=path, current=current, check_fingerprint=check_fingerprint
+        )
     if kind != "area":
         raise bad(f"kind {kind!r} is not one of area, pair, edge")
     try:
         channels = tuple(str(c) for c in d["channels"])
         if channels != SITES_1020:
-            raise bad(f"channels {list(channels)} differ from the 19 sites in sourcelab order "
-                      f"{list(SITES_1020)}")
+            raise bad(
+                f"channels {list(channels)} differ from the 19 sites in sourcelab order "
+                f"{list(SITES_1020)}"
+            )
         roi, band, sf, flt = d["roi"], d["band"], d["spatial_filter"], d["filter"]
         bands = tuple((str(b[0]), float(b[1]), float(b[2])) for b in d["bands"])
         measure = str(d["measure"])
@@ -377,8 +410,9 @@ def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = No
         matrix = np.asarray(sf["matrix"], dtype=float)
         n = len(channels)
         if matrix.shape != (n, n) or not np.all(np.isfinite(matrix)):
-            raise bad(f"spatial_filter.matrix must be a finite {n} x {n} array, got shape "
-                      f"{matrix.shape}")
+            raise bad(
+                f"spatial_filter.matrix must be a finite {n} x {n} array, got shape {matrix.shape}"
+            )
         if not np.allclose(matrix, matrix.T, rtol=1e-9, atol=1e-12 * np.abs(matrix).max()):
             raise bad("spatial_filter.matrix must be symmetric")
         rows = sf.get("kernel_rows")
@@ -387,8 +421,12 @@ def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = No
             rows = np.asarray(rows, dtype=float)
             if rows.ndim != 2 or rows.shape[1] != n or rows.shape[0] % n_comp:
                 raise bad(f"spatial_filter.kernel_rows must have shape (n_rows, {n})")
-            if not np.allclose(rows.T @ rows * n_comp / rows.shape[0], matrix, rtol=1e-6,
-                               atol=1e-9 * np.abs(matrix).max()):
+            if not np.allclose(
+                rows.T @ rows * n_comp / rows.shape[0],
+                matrix,
+                rtol=1e-6,
+                atol=1e-9 * np.abs(matrix).max(),
+            ):
                 raise bad("spatial_filter.kernel_rows do not reproduce spatial_filter.matrix")
         if measure == "relative" and rows is None:
             raise bad("relative power needs spatial_filter.kernel_rows")
@@ -404,15 +442,32 @@ def target_from_dict(d: dict, *, path="target", current: Fingerprint | None = No
         fp = Fingerprint.from_dict(d["fingerprint"])
         power = d["power"]
         target = TargetDefinition(
-            name=str(d["name"]), channels=channels, atlas=str(roi["atlas"]),
-            roi=str(roi["name"]), hemisphere=str(roi["hemisphere"]),
-            vertices=np.asarray(roi["vertices"], dtype=np.int64), band=str(band["name"]),
-            bands=bands, measure=measure, matrix=matrix, kernel_rows=rows, n_comp=n_comp,
-            sfreq=sfreq, sos=sos, fingerprint=fp, window_s=float(power["window_s"]),
-            step_s=float(power["step_s"]), norm=d.get("norm"), offline=dict(d.get("offline", {})),
-            direction=str(d.get("direction", "none")), reject_uv=float(power["reject_uv"]),
-            small=bool(roi.get("small", False)), created_utc=str(d.get("created_utc", "")),
-            filter_order=int(flt["prototype_order"]), live=check_live(d.get("live"), path))
+            name=str(d["name"]),
+            channels=channels,
+            atlas=str(roi["atlas"]),
+            roi=str(roi["name"]),
+            hemisphere=str(roi["hemisphere"]),
+            vertices=np.asarray(roi["vertices"], dtype=np.int64),
+            band=str(band["name"]),
+            bands=bands,
+            measure=measure,
+            matrix=matrix,
+            kernel_rows=rows,
+            n_comp=n_comp,
+            sfreq=sfreq,
+            sos=sos,
+            fingerprint=fp,
+            window_s=float(power["window_s"]),
+            step_s=float(power["step_s"]),
+            norm=d.get("norm"),
+            offline=dict(d.get("offline", {})),
+            direction=str(d.get("direction", "none")),
+            reject_uv=float(power["reject_uv"]),
+            small=bool(roi.get("small", False)),
+            created_utc=str(d.get("created_utc", "")),
+            filter_order=int(flt["prototype_order"]),
+            live=check_live(d.get("live"), path),
+        )
     except InputError:
         raise
     except (KeyError, TypeError, ValueError, AttributeError, IndexError) as exc:
@@ -437,20 +492,28 @@ def _check_values(target: TargetDefinition, d: dict, band: dict, path) -> None:
     if not isinstance(band, dict):
         raise InputError("band: must be an object", path=path, field="band")
     if not np.isclose(num("band.low_hz", band.get("low_hz", lo)), lo) or not np.isclose(
-            num("band.high_hz", band.get("high_hz", hi)), hi):
+        num("band.high_hz", band.get("high_hz", hi)), hi
+    ):
         raise InputError("band edges differ from the 'bands' list", path=path)
     flt, power, sf = d["filter"], d["power"], d["spatial_filter"]  # raw values: no bool
     num("filter.sfreq", flt["sfreq"], low=1.0, high=1e6)
     num("filter.prototype_order", flt["prototype_order"], kind=int, low=1, high=12)
-    check_option("spatial_filter.n_comp", num("spatial_filter.n_comp", sf["n_comp"], kind=int),
-                 (1, 3), where=path)
+    check_option(
+        "spatial_filter.n_comp",
+        num("spatial_filter.n_comp", sf["n_comp"], kind=int),
+        (1, 3),
+        where=path,
+    )
     num("power.reject_uv", power["reject_uv"], low=0.0, low_open=True)  # huge: no rejection
-    window = num("power.window_s", power["window_s"], low=WINDOW_S_RANGE[0],
-                 high=WINDOW_S_RANGE[1])
+    window = num("power.window_s", power["window_s"], low=WINDOW_S_RANGE[0], high=WINDOW_S_RANGE[1])
     step = num("power.step_s", power["step_s"], low=STEP_S_MIN, high=window)
     if window / step > MAX_BLOCKS:
-        raise InputError(f"power.step_s: window_s / step_s must be at most {MAX_BLOCKS}, got "
-                         f"{window:g} / {step:g}", path=path, field="power.step_s")
+        raise InputError(
+            f"power.step_s: window_s / step_s must be at most {MAX_BLOCKS}, got "
+            f"{window:g} / {step:g}",
+            path=path,
+            field="power.step_s",
+        )
     v = target.vertices
     if v.ndim != 1 or v.size == 0 or v.min() < 0 or v.max() >= 1_000_000:
         raise InputError("roi.vertices: must be a non-empty list of source indices", path=path)
@@ -471,8 +534,9 @@ def _check_values(target: TargetDefinition, d: dict, band: dict, path) -> None:
     check_option("direction", target.direction, (*DIRECTIONS.values(), "none"), where=path)
 
 
-def read_target(path: str | Path, *, current: Fingerprint | None = None,
-                check_fingerprint: bool = True):
+def read_target(
+    path: str | Path, *, current: Fingerprint | None = None, check_fingerprint: bool = True
+):
     """Read and validate a ``sourcelab-target/1`` JSON file (see :func:`target_from_dict`).
 
     Parameters
@@ -496,6 +560,7 @@ def read_target(path: str | Path, *, current: Fingerprint | None = None,
         For an unreadable, malformed or mismatching file; the message names ``path``.
     """
     from ..checks import load_json
+
     path = Path(path)
     d = load_json(path, max_bytes=TARGET_MAX_BYTES, what="target file")  # bounded, finite
     return target_from_dict(d, path=path, current=current, check_fingerprint=check_fingerprint)
@@ -510,12 +575,29 @@ class _KernelView:
         self.n_src = self.kernel.shape[0] // self.n_comp
 
 
-def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisphere: str,
-                vertices: np.ndarray, band: str, sources: np.ndarray | None = None, bands, measure: str, fingerprint: Fingerprint,
-                sfreq: float, norm: dict | None = None, offline: dict | None = None,
-                z: float | None = None, reject_uv: float = 150.0, small: bool = False,
-                window_s: float = WINDOW_S, step_s: float = STEP_S,
-                filter_order: int = FILTER_ORDER) -> TargetDefinition:
+def make_target(
+    *,
+    kernel: np.ndarray,
+    n_comp: int,
+    atlas: str,
+    roi: str,
+    hemisphere: str,
+    vertices: np.ndarray,
+    band: str,
+    sources: np.ndarray | None = None,
+    bands,
+    measure: str,
+    fingerprint: Fingerprint,
+    sfreq: float,
+    norm: dict | None = None,
+    offline: dict | None = None,
+    z: float | None = None,
+    reject_uv: float = 150.0,
+    small: bool = False,
+    window_s: float = WINDOW_S,
+    step_s: float = STEP_S,
+    filter_order: int = FILTER_ORDER,
+) -> TargetDefinition:
     """Assemble a target from a kernel and an ROI (pure: no files, no head model).
 
     Parameters
@@ -578,25 +660,53 @@ def make_target(*, kernel: np.ndarray, n_comp: int, atlas: str, roi: str, hemisp
     need = names if measure == "relative" else [band]
     if not 1 <= int(filter_order) <= 12:
         raise InputError(f"filter_order: need 1..12, got {filter_order}")
-    sos = {b: butter_sos(lo, hi, sfreq, order=int(filter_order)) for b, lo, hi in bands
-           if b in need}
+    sos = {
+        b: butter_sos(lo, hi, sfreq, order=int(filter_order)) for b, lo, hi in bands if b in need
+    }
     direction = "none"
     if z is not None and np.isfinite(z) and z != 0:
         direction = DIRECTIONS[int(np.sign(z))]
     return TargetDefinition(
-        name=f"{atlas} {roi} {hemisphere} {band} {measure}", channels=SITES_1020, atlas=atlas,
-        roi=roi, hemisphere=hemisphere, vertices=np.asarray(vertices, dtype=np.int64), band=band,
-        bands=bands, measure=measure, matrix=m,
-        kernel_rows=rows if measure == "relative" else None, n_comp=int(n_comp),
-        sfreq=float(sfreq), sos=sos, fingerprint=fingerprint, window_s=window_s, step_s=step_s,
-        norm=norm, offline=dict(offline or {}), direction=direction, reject_uv=float(reject_uv),
-        small=bool(small), created_utc=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        filter_order=int(filter_order))
+        name=f"{atlas} {roi} {hemisphere} {band} {measure}",
+        channels=SITES_1020,
+        atlas=atlas,
+        roi=roi,
+        hemisphere=hemisphere,
+        vertices=np.asarray(vertices, dtype=np.int64),
+        band=band,
+        bands=bands,
+        measure=measure,
+        matrix=m,
+        kernel_rows=rows if measure == "relative" else None,
+        n_comp=int(n_comp),
+        sfreq=float(sfreq),
+        sos=sos,
+        fingerprint=fingerprint,
+        window_s=window_s,
+        step_s=step_s,
+        norm=norm,
+        offline=dict(offline or {}),
+        direction=direction,
+        reject_uv=float(reject_uv),
+        small=bool(small),
+        created_utc=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        filter_order=int(filter_order),
+    )
 
 
-def norm_at_age(norms, *, atlas: str, roi: str, hemisphere: str, band: str, measure: str,
-                age: float, fingerprint: Fingerprint, condition: str | None = None,
-                allow_extrapolation: bool = False) -> dict:
+def norm_at_age(
+    norms,
+    *,
+    atlas: str,
+    roi: str,
+    hemisphere: str,
+    band: str,
+    measure: str,
+    age: float,
+    fingerprint: Fingerprint,
+    condition: str | None = None,
+    allow_extrapolation: bool = False,
+) -> dict:
     """The norm of one ROI quantity at ``age``: mean and SD on the transformed scale.
 
     Row selection is :func:`sourcelab.norms.match_norms`'s (fingerprint, condition, age range).
@@ -631,17 +741,38 @@ def norm_at_age(norms, *, atlas: str, roi: str, hemisphere: str, band: str, meas
     from ..norms import match_norms
 
     where = norms.path if norms.path is not None else "norms"
-    one = pd.DataFrame({"atlas": [atlas], "roi": [roi], "hemisphere": [hemisphere],
-                        "band": [band], "measure": [measure]})
-    rows = match_norms(one, norms, age=age, fingerprint=fingerprint, condition=condition,
-                       allow_extrapolation=allow_extrapolation, allow_condition_mismatch=True)
+    one = pd.DataFrame(
+        {
+            "atlas": [atlas],
+            "roi": [roi],
+            "hemisphere": [hemisphere],
+            "band": [band],
+            "measure": [measure],
+        }
+    )
+    rows = match_norms(
+        one,
+        norms,
+        age=age,
+        fingerprint=fingerprint,
+        condition=condition,
+        allow_extrapolation=allow_extrapolation,
+        allow_condition_mismatch=True,
+    )
     if not rows.has[0]:
-        raise InputError(f"norms have no row for {atlas} {roi} {hemisphere} {band} {measure}",
-                         path=where)
-    return {"mean": float(rows.mean[0]), "sd": float(rows.sd[0]),
-            "transform": str(rows.transform[0]), "age": float(age), "n": int(rows.n[0]),
-            "extrapolated": bool(rows.extrapolated[0]), "norms_sha256": norms.sha256,
-            "condition": norms.condition}
+        raise InputError(
+            f"norms have no row for {atlas} {roi} {hemisphere} {band} {measure}", path=where
+        )
+    return {
+        "mean": float(rows.mean[0]),
+        "sd": float(rows.sd[0]),
+        "transform": str(rows.transform[0]),
+        "age": float(age),
+        "n": int(rows.n[0]),
+        "extrapolated": bool(rows.extrapolated[0]),
+        "norms_sha256": norms.sha256,
+        "condition": norms.condition,
+    }
 
 
 def analysis_norms(res, norms=None):
@@ -667,31 +798,43 @@ def analysis_norms(res, norms=None):
     if norms is None and norms_info and norms_info.get("path"):
         norms = Path(norms_info["path"])
         if not norms.is_file():
-            raise InputError("the norms file recorded in the analysis' provenance is gone; pass "
-                             "--norms", path=norms)
+            raise InputError(
+                "the norms file recorded in the analysis' provenance is gone; pass --norms",
+                path=norms,
+            )
     if norms is None:
         return None, None
     nm = read_norms(norms) if isinstance(norms, (str, Path)) else norms
     if norms_info and norms_info.get("sha256") and nm.sha256 != norms_info["sha256"]:
-        raise InputError("norms file differs from the one the analysis used (sha256)",
-                         path=nm.path)
+        raise InputError("norms file differs from the one the analysis used (sha256)", path=nm.path)
     diffs = nm.fingerprint.differences(res.fingerprint)
     if diffs:
-        raise InputError("norms were made by a different pipeline (" + "; ".join(diffs) + ")",
-                         path=nm.path)
+        raise InputError(
+            "norms were made by a different pipeline (" + "; ".join(diffs) + ")", path=nm.path
+        )
     age = prov.get("recording", {}).get("age")
     if age is None:
-        raise InputError("the analysis has no participant age; the norm cannot be set",
-                         path=res.path)
+        raise InputError(
+            "the analysis has no participant age; the norm cannot be set", path=res.path
+        )
     return nm, float(age)
 
 
-def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "brodmann",
-                  hemisphere: str | None = None, measure: str = "absolute", norms=None,
-                  allow_extrapolation: bool = False,
-                  filter_order: int = FILTER_ORDER, smoothing: str = "exponential",
-                  time_constant_s: float = TIME_CONSTANT_S,
-                  threshold_sd: float | None = None) -> TargetDefinition:
+def export_target(
+    result_dir: str | Path,
+    *,
+    roi: str,
+    band: str,
+    atlas: str = "brodmann",
+    hemisphere: str | None = None,
+    measure: str = "absolute",
+    norms=None,
+    allow_extrapolation: bool = False,
+    filter_order: int = FILTER_ORDER,
+    smoothing: str = "exponential",
+    time_constant_s: float = TIME_CONSTANT_S,
+    threshold_sd: float | None = None,
+) -> TargetDefinition:
     """Build the target of one ROI from an analysis folder.
 
     Parameters
@@ -742,18 +885,23 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     fp = res.fingerprint
     _current_fingerprint_check(fp, None, res.path / "provenance.json")
     t = res.roi_table
-    sel = t[(t["atlas"] == atlas) & (t["roi"] == roi) & (t["band"] == band)
-            & (t["measure"] == measure)]
+    sel = t[
+        (t["atlas"] == atlas) & (t["roi"] == roi) & (t["band"] == band) & (t["measure"] == measure)
+    ]
     if hemisphere is not None:
         sel = sel[sel["hemisphere"] == hemisphere]
     if sel.empty:
         have = sorted(set(t.loc[t["atlas"] == atlas, "roi"]))[:40]
-        raise InputError(f"no row for --atlas {atlas} --roi {roi} --hemisphere {hemisphere} "
-                         f"--band {band} --measure {measure}; ROIs of this atlas: {have}",
-                         path=res.path)
+        raise InputError(
+            f"no row for --atlas {atlas} --roi {roi} --hemisphere {hemisphere} "
+            f"--band {band} --measure {measure}; ROIs of this atlas: {have}",
+            path=res.path,
+        )
     if len(sel) > 1:
-        raise InputError(f"ROI {roi} exists in hemispheres {sorted(sel['hemisphere'])}; pass "
-                         "--hemisphere", path=res.path)
+        raise InputError(
+            f"ROI {roi} exists in hemispheres {sorted(sel['hemisphere'])}; pass --hemisphere",
+            path=res.path,
+        )
     row = sel.iloc[0]
     hemisphere = str(row["hemisphere"])
     at = load_atlas(atlas)
@@ -769,32 +917,63 @@ def export_target(result_dir: str | Path, *, roi: str, band: str, atlas: str = "
     norm = None
     nm, age = analysis_norms(res, norms)
     if nm is not None:
-        norm = norm_at_age(nm, atlas=atlas, roi=roi, hemisphere=hemisphere, band=band,
-                           measure=measure, age=age, fingerprint=fp,
-                           condition=rec.get("condition"),
-                           allow_extrapolation=allow_extrapolation)
-    offline = {"value": float(row["value"]), "z": z, "result_dir": str(res.path),
-               "recording_sha256": rec.get("sha256")}
-    target = make_target(kernel=op.kernel, n_comp=op.n_comp, atlas=atlas, roi=roi,
-                         hemisphere=hemisphere, sources=r.vertices,
-                         vertices=load_head_model().vertno[r.vertices], band=band,
-                         bands=fp.bands,
-                         measure=measure, fingerprint=fp, sfreq=float(rec.get("sfreq") or 256.0),
-                         norm=norm, offline=offline, z=z,
-                         reject_uv=float(params.get("reject_uv", 150.0)), small=bool(r.small),
-                         filter_order=filter_order)
+        norm = norm_at_age(
+            nm,
+            atlas=atlas,
+            roi=roi,
+            hemisphere=hemisphere,
+            band=band,
+            measure=measure,
+            age=age,
+            fingerprint=fp,
+            condition=rec.get("condition"),
+            allow_extrapolation=allow_extrapolation,
+        )
+    offline = {
+        "value": float(row["value"]),
+        "z": z,
+        "result_dir": str(res.path),
+        "recording_sha256": rec.get("sha256"),
+    }
+    target = make_target(
+        kernel=op.kernel,
+        n_comp=op.n_comp,
+        atlas=atlas,
+        roi=roi,
+        hemisphere=hemisphere,
+        sources=r.vertices,
+        vertices=load_head_model().vertno[r.vertices],
+        band=band,
+        bands=fp.bands,
+        measure=measure,
+        fingerprint=fp,
+        sfreq=float(rec.get("sfreq") or 256.0),
+        norm=norm,
+        offline=offline,
+        z=z,
+        reject_uv=float(params.get("reject_uv", 150.0)),
+        small=bool(r.small),
+        filter_order=filter_order,
+    )
     from ..epochfile import FILENAME, read_epochs
 
     epochs = None
     if (res.path / FILENAME).is_file():
         epochs = read_epochs(res.path / FILENAME)
         if epochs.fingerprint.differences(fp):
-            raise InputError("epochs.npz was made by a different pipeline than the tables",
-                             path=res.path / FILENAME)
+            raise InputError(
+                "epochs.npz was made by a different pipeline than the tables",
+                path=res.path / FILENAME,
+            )
     else:
         log.warning("%s has no %s: the expected live SD is not available", res.path, FILENAME)
-    live = live_section(target, epochs, smoothing=smoothing, time_constant_s=time_constant_s,
-                        threshold_sd=threshold_sd)
+    live = live_section(
+        target,
+        epochs,
+        smoothing=smoothing,
+        time_constant_s=time_constant_s,
+        threshold_sd=threshold_sd,
+    )
     import dataclasses
 
     return dataclasses.replace(target, live=live)

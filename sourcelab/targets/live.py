@@ -64,7 +64,7 @@ from ..errors import InputError
 #: Smoothing kinds: name -> description of the time constant.
 SMOOTHING = {
     "exponential": "exponential moving average over clean windows, weight 1 - exp(-step/tau); "
-                   "mean delay tau",
+    "mean delay tau",
     "moving": "mean of the clean windows of the last tau seconds; mean delay tau/2",
     "none": "no smoothing",
 }
@@ -106,7 +106,7 @@ def window_acf(sos: np.ndarray, sfreq: float, *, tail_s: float = 8.0) -> np.ndar
     h = _impulse(np.asarray(sos, float), int(round(tail_s * sfreq)))
     n = 2 * h.size
     spec = np.abs(np.fft.rfft(h, n)) ** 2
-    return np.fft.irfft(spec, n)[:h.size]
+    return np.fft.irfft(spec, n)[: h.size]
 
 
 def _pair_sum(r: np.ndarray, n_win: int, shift: int) -> float:
@@ -344,15 +344,16 @@ def inverse_transform(level: float, name: str) -> float:
     """
     if not np.isfinite(level):
         return float("nan")
-    return float(10.0 ** level) if name == "log10" else float(1.0 / (1.0 + math.exp(-level)))
+    return float(10.0**level) if name == "log10" else float(1.0 / (1.0 + math.exp(-level)))
 
 
 # --------------------------------------------------------------------------------------------
 # smoothing
 
 
-def smoother_weights(kind: str, time_constant_s: float, step_s: float,
-                     *, tol: float = 1e-6) -> np.ndarray:
+def smoother_weights(
+    kind: str, time_constant_s: float, step_s: float, *, tol: float = 1e-6
+) -> np.ndarray:
     """Steady-state weights of the smoother over the latest clean windows (newest first).
 
     Parameters
@@ -406,8 +407,12 @@ class Smoother:
     by :func:`expected_live_sd`.  An unclean window leaves the state unchanged and yields NaN.
     """
 
-    def __init__(self, kind: str = "exponential", time_constant_s: float = TIME_CONSTANT_S,
-                 step_s: float = 0.25):
+    def __init__(
+        self,
+        kind: str = "exponential",
+        time_constant_s: float = TIME_CONSTANT_S,
+        step_s: float = 0.25,
+    ):
         self.kind = kind
         self.w = smoother_weights(kind, time_constant_s, step_s)
         self.alpha = (1.0 - math.exp(-step_s / time_constant_s)) if kind == "exponential" else None
@@ -441,7 +446,7 @@ class Smoother:
             self._s = level if self._s is None else self._s + self.alpha * (level - self._s)
             return float(self._s)
         self._hist.append(float(level))
-        del self._hist[:-self.w.size]
+        del self._hist[: -self.w.size]
         return float(np.mean(self._hist))
 
 
@@ -449,11 +454,22 @@ class Smoother:
 # the expected live SD
 
 
-def expected_live_sd(levels: np.ndarray, *, onsets_s: np.ndarray | None, epoch_s: float,
-                     sfreq: float, sos: np.ndarray, lo: float, hi: float, window_s: float,
-                     step_s: float, smoothing: str = "exponential",
-                     time_constant_s: float = TIME_CONSTANT_S, ln_scale: float | None = None,
-                     abs_levels_ln: np.ndarray | None = None) -> dict:
+def expected_live_sd(
+    levels: np.ndarray,
+    *,
+    onsets_s: np.ndarray | None,
+    epoch_s: float,
+    sfreq: float,
+    sos: np.ndarray,
+    lo: float,
+    hi: float,
+    window_s: float,
+    step_s: float,
+    smoothing: str = "exponential",
+    time_constant_s: float = TIME_CONSTANT_S,
+    ln_scale: float | None = None,
+    abs_levels_ln: np.ndarray | None = None,
+) -> dict:
     """Expected window-to-window SD of a live value under the person's steady state.
 
     Parameters
@@ -537,15 +553,24 @@ def expected_live_sd(levels: np.ndarray, *, onsets_s: np.ndarray | None, epoch_s
         "smoothed_sd": math.sqrt(v_state + v_win_samp * factor),
         "epoch_sd": math.sqrt(var_obs),
         "state_sd": math.sqrt(v_state),
-        "nu_epoch": nu_e, "nu_window": nu_w, "dof_ratio": ratio,
+        "nu_epoch": nu_e,
+        "nu_window": nu_w,
+        "dof_ratio": ratio,
         "smoothing_variance_factor": factor,
-        "n_epochs": int(ok.sum()), "n_adjacent_pairs": int(adj.sum()),
+        "n_epochs": int(ok.sum()),
+        "n_adjacent_pairs": int(adj.sum()),
     }
 
 
-def live_section(target, epochs=None, *, smoothing: str = "exponential",
-                 time_constant_s: float = TIME_CONSTANT_S, threshold_sd: float | None = None,
-                 direction: str | None = None) -> dict:
+def live_section(
+    target,
+    epochs=None,
+    *,
+    smoothing: str = "exponential",
+    time_constant_s: float = TIME_CONSTANT_S,
+    threshold_sd: float | None = None,
+    direction: str | None = None,
+) -> dict:
     """The ``live`` section of a target file.
 
     Parameters
@@ -571,19 +596,28 @@ def live_section(target, epochs=None, *, smoothing: str = "exponential",
     """
     tname = transform_name(target)
     smoother_weights(smoothing, time_constant_s, target.step_s)  # validates
-    out = {"transform": tname,
-           "smoothing": {"kind": smoothing, "time_constant_s": float(time_constant_s),
-                         "description": SMOOTHING[smoothing]},
-           "expected_sd": None, "threshold": None,
-           "note": ("Expected window-to-window SD of the live value under the person's own "
-                    "steady state, from the analysis' clean epochs (see sourcelab.targets.live)."
-                    " Live values are noisy: judge trends over minutes, not single windows.")}
+    out = {
+        "transform": tname,
+        "smoothing": {
+            "kind": smoothing,
+            "time_constant_s": float(time_constant_s),
+            "description": SMOOTHING[smoothing],
+        },
+        "expected_sd": None,
+        "threshold": None,
+        "note": (
+            "Expected window-to-window SD of the live value under the person's own "
+            "steady state, from the analysis' clean epochs (see sourcelab.targets.live)."
+            " Live values are noisy: judge trends over minutes, not single windows."
+        ),
+    }
     sd_norm = float(target.norm["sd"]) if target.norm is not None else None
     if epochs is not None:
         names = [b[0] for b in target.bands]
         if list(epochs.band_names) != names:
-            raise InputError(f"epochs bands {list(epochs.band_names)} differ from the target's "
-                             f"{names}")
+            raise InputError(
+                f"epochs bands {list(epochs.band_names)} differ from the target's {names}"
+            )
         vals = epoch_values(target, epochs.csd)
         levels = transform(vals, tname)
         lo, hi = target.band_edges
@@ -594,45 +628,75 @@ def live_section(target, epochs=None, *, smoothing: str = "exponential",
             with np.errstate(divide="ignore", invalid="ignore"):
                 abs_ln = np.log(np.einsum("cd,edc->e", m, epochs.csd[:, b]))
         sos = target.sos[target.band]
-        st = expected_live_sd(levels, onsets_s=epochs.onsets_s, epoch_s=epochs.epoch_s,
-                              sfreq=target.sfreq, sos=sos, lo=lo, hi=hi,
-                              window_s=target.window_s, step_s=target.step_s,
-                              smoothing=smoothing, time_constant_s=time_constant_s,
-                              abs_levels_ln=abs_ln)
-        exp = {"window": {"transformed": st["window_sd"],
-                          "z": st["window_sd"] / sd_norm if sd_norm else None},
-               "smoothed": {"transformed": st["smoothed_sd"],
-                            "z": st["smoothed_sd"] / sd_norm if sd_norm else None},
-               "epoch_sd": st["epoch_sd"], "state_sd": st["state_sd"],
-               "nu_epoch": st["nu_epoch"], "nu_window": st["nu_window"],
-               "dof_ratio": st["dof_ratio"],
-               "smoothing_variance_factor": st["smoothing_variance_factor"],
-               "n_epochs": st["n_epochs"], "n_adjacent_pairs": st["n_adjacent_pairs"],
-               "person_level": float(np.nanmean(levels))}
+        st = expected_live_sd(
+            levels,
+            onsets_s=epochs.onsets_s,
+            epoch_s=epochs.epoch_s,
+            sfreq=target.sfreq,
+            sos=sos,
+            lo=lo,
+            hi=hi,
+            window_s=target.window_s,
+            step_s=target.step_s,
+            smoothing=smoothing,
+            time_constant_s=time_constant_s,
+            abs_levels_ln=abs_ln,
+        )
+        exp = {
+            "window": {
+                "transformed": st["window_sd"],
+                "z": st["window_sd"] / sd_norm if sd_norm else None,
+            },
+            "smoothed": {
+                "transformed": st["smoothed_sd"],
+                "z": st["smoothed_sd"] / sd_norm if sd_norm else None,
+            },
+            "epoch_sd": st["epoch_sd"],
+            "state_sd": st["state_sd"],
+            "nu_epoch": st["nu_epoch"],
+            "nu_window": st["nu_window"],
+            "dof_ratio": st["dof_ratio"],
+            "smoothing_variance_factor": st["smoothing_variance_factor"],
+            "n_epochs": st["n_epochs"],
+            "n_adjacent_pairs": st["n_adjacent_pairs"],
+            "person_level": float(np.nanmean(levels)),
+        }
         out["expected_sd"] = exp
     if threshold_sd is not None:
         d = direction or target.direction
         if d not in ("increase", "decrease"):
-            raise InputError("a threshold needs a training direction: the target has none (no "
-                             "norm); pass the direction")
+            raise InputError(
+                "a threshold needs a training direction: the target has none (no "
+                "norm); pass the direction"
+            )
         if out["expected_sd"] is None:
-            raise InputError("a threshold in SD units needs the expected SD, which needs the "
-                             "analysis' epochs.npz")
+            raise InputError(
+                "a threshold in SD units needs the expected SD, which needs the "
+                "analysis' epochs.npz"
+            )
         k = float(threshold_sd)
         if not (np.isfinite(k) and k >= 0):
             raise InputError(f"threshold: need a finite k >= 0 SD, got {threshold_sd}")
         off = target.offline.get("value")
-        base = float(transform(np.array([off]), tname)[0]) if off else \
-            out["expected_sd"]["person_level"]
+        base = (
+            float(transform(np.array([off]), tname)[0])
+            if off
+            else out["expected_sd"]["person_level"]
+        )
         sd = out["expected_sd"]["smoothed"]["transformed"]
         sign = 1.0 if d == "increase" else -1.0
         level = base + sign * k * sd
         out["threshold"] = {
-            "k_sd": k, "direction": d, "reference_level": base, "level": level,
+            "k_sd": k,
+            "direction": d,
+            "reference_level": base,
+            "level": level,
             "power": inverse_transform(level, tname),
             "z": ((level - float(target.norm["mean"])) / sd_norm) if sd_norm else None,
-            "rule": ("feedback when the smoothed value is "
-                     f"{'at or above' if sign > 0 else 'at or below'} the threshold"),
+            "rule": (
+                "feedback when the smoothed value is "
+                f"{'at or above' if sign > 0 else 'at or below'} the threshold"
+            ),
         }
     return _json_safe(out)
 
@@ -676,17 +740,20 @@ def check_live(d, path="target") -> dict | None:
     sm = d.get("smoothing") or {}
     kind = sm.get("kind", "exponential")
     if kind not in SMOOTHING:
-        raise InputError(f"live.smoothing.kind {kind!r} is not one of {sorted(SMOOTHING)}",
-                         path=path)
+        raise InputError(
+            f"live.smoothing.kind {kind!r} is not one of {sorted(SMOOTHING)}", path=path
+        )
     tc = sm.get("time_constant_s", TIME_CONSTANT_S)
     if not (isinstance(tc, (int, float)) and tc > 0):
         raise InputError(f"live.smoothing.time_constant_s must be > 0, got {tc!r}", path=path)
     th = d.get("threshold")
     if th is not None:
         if th.get("direction") not in ("increase", "decrease") or not isinstance(
-                th.get("level"), (int, float)):
-            raise InputError("live.threshold needs direction (increase/decrease) and level",
-                             path=path)
+            th.get("level"), (int, float)
+        ):
+            raise InputError(
+                "live.threshold needs direction (increase/decrease) and level", path=path
+            )
     return d
 
 
@@ -727,8 +794,11 @@ class LiveValue:
         live = target.live or {}
         sm = live.get("smoothing") or {}
         self.live = live
-        self.smoother = Smoother(sm.get("kind", "exponential"),
-                                 float(sm.get("time_constant_s", TIME_CONSTANT_S)), target.step_s)
+        self.smoother = Smoother(
+            sm.get("kind", "exponential"),
+            float(sm.get("time_constant_s", TIME_CONSTANT_S)),
+            target.step_s,
+        )
         self.tname = transform_name(target)
         self.norm = target.norm
 

@@ -27,15 +27,41 @@ from ..constants import Z_THRESHOLD
 #: |z| from which a peak is a candidate (two-sided p < 0.05; common practice).
 DEVIATION_Z = Z_THRESHOLD
 
-PEAK_CANDIDATE_COLUMNS = ("rank", "role", "measure", "band", "direction", "area", "hemisphere",
-                          "lobe", "peak_z", "x_mni152", "y_mni152", "z_mni152", "border_mm",
-                          "cluster_size", "cluster_areas", "own_share", "probability",
-                          "resolvable", "source", "vertex")
+PEAK_CANDIDATE_COLUMNS = (
+    "rank",
+    "role",
+    "measure",
+    "band",
+    "direction",
+    "area",
+    "hemisphere",
+    "lobe",
+    "peak_z",
+    "x_mni152",
+    "y_mni152",
+    "z_mni152",
+    "border_mm",
+    "cluster_size",
+    "cluster_areas",
+    "own_share",
+    "probability",
+    "resolvable",
+    "source",
+    "vertex",
+)
 
 
-def peak_candidates(zmaps: dict, space, *, own: np.ndarray, exclude=(),
-                    threshold: float = DEVIATION_Z, include_unresolvable: bool = False,
-                    max_peaks: int = 30, probability_model: dict | None = None):
+def peak_candidates(
+    zmaps: dict,
+    space,
+    *,
+    own: np.ndarray,
+    exclude=(),
+    threshold: float = DEVIATION_Z,
+    include_unresolvable: bool = False,
+    max_peaks: int = 30,
+    probability_model: dict | None = None,
+):
     """Rank candidate areas by z-map peaks.
 
     Parameters
@@ -92,18 +118,31 @@ def peak_candidates(zmaps: dict, space, *, own: np.ndarray, exclude=(),
                 o = np.argsort(-counts, kind="stable")
                 spans = ";".join(f"{space.label(c)}:{n}" for c, n in zip(codes[o], counts[o]))
                 xyz = mni305_to_mni152(space.mesh.pos_mm[s])
-                rows.append(dict(
-                    role="primary" if measure == "absolute" else "supporting",
-                    measure=measure, band=band, direction=direction,
-                    area=space.names[code], hemisphere=space.hemispheres[code],
-                    lobe=space.lobes[code], peak_z=float(z[s]),
-                    x_mni152=round(float(xyz[0]), 1), y_mni152=round(float(xyz[1]), 1),
-                    z_mni152=round(float(xyz[2]), 1), border_mm=round(float(space.border_mm[s]), 1),
-                    cluster_size=int(members.size), cluster_areas=spans,
-                    own_share=float(own[code]),
-                    probability=area_probability(v, space, code, own, kind="z",
-                                                 model=probability_model),
-                    resolvable=resolvable, source=int(s), vertex=int(space.vertices[s])))
+                rows.append(
+                    dict(
+                        role="primary" if measure == "absolute" else "supporting",
+                        measure=measure,
+                        band=band,
+                        direction=direction,
+                        area=space.names[code],
+                        hemisphere=space.hemispheres[code],
+                        lobe=space.lobes[code],
+                        peak_z=float(z[s]),
+                        x_mni152=round(float(xyz[0]), 1),
+                        y_mni152=round(float(xyz[1]), 1),
+                        z_mni152=round(float(xyz[2]), 1),
+                        border_mm=round(float(space.border_mm[s]), 1),
+                        cluster_size=int(members.size),
+                        cluster_areas=spans,
+                        own_share=float(own[code]),
+                        probability=area_probability(
+                            v, space, code, own, kind="z", model=probability_model
+                        ),
+                        resolvable=resolvable,
+                        source=int(s),
+                        vertex=int(space.vertices[s]),
+                    )
+                )
     out = pd.DataFrame(rows, columns=[c for c in PEAK_CANDIDATE_COLUMNS if c != "rank"])
     if len(out):
         out["_m"] = (out["measure"] != "absolute").astype(int)
@@ -114,8 +153,7 @@ def peak_candidates(zmaps: dict, space, *, own: np.ndarray, exclude=(),
     return out
 
 
-def peak_candidates_for(zmaps: dict, *, lambda2: float = 1 / 9,
-                        include_unresolvable: bool = False):
+def peak_candidates_for(zmaps: dict, *, lambda2: float = 1 / 9, include_unresolvable: bool = False):
     """:func:`peak_candidates` on the shipped template (cached space, own-shares, resolvability).
 
     Parameters
@@ -136,5 +174,6 @@ def peak_candidates_for(zmaps: dict, *, lambda2: float = 1 / 9,
     from ..trust.resolvability import localisation_context
 
     space, own, exclude, _ = localisation_context(float(lambda2))
-    return peak_candidates(zmaps, space, own=own, exclude=exclude,
-                           include_unresolvable=include_unresolvable)
+    return peak_candidates(
+        zmaps, space, own=own, exclude=exclude, include_unresolvable=include_unresolvable
+    )

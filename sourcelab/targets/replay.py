@@ -85,14 +85,14 @@ class OnlineTarget:
         self.step = max(1, int(round(target.step_s * sfreq)))
         self.n_blocks = max(1, int(round(target.window_s / target.step_s)))
         self.sos = target.sos_for(self.sfreq)
-        self.bands = ([target.band] if target.measure == "absolute"
-                      else [b[0] for b in target.bands])
+        self.bands = [target.band] if target.measure == "absolute" else [b[0] for b in target.bands]
         self.band_index = self.bands.index(target.band)
         self._zi = {b: None for b in self.bands}
         self._zi_unit = {b: sosfilt_zi(self.sos[b]) for b in self.bands}
         nyq = self.sfreq / 2
-        self._hp = butter(2, [0.5, min(45.0, 0.9 * nyq)], btype="bandpass", output="sos",
-                          fs=self.sfreq)
+        self._hp = butter(
+            2, [0.5, min(45.0, 0.9 * nyq)], btype="bandpass", output="sos", fs=self.sfreq
+        )
         self._hp_zi_unit = sosfilt_zi(self._hp)
         self._hp_zi = None
         n_ch = len(target.channels)
@@ -154,14 +154,15 @@ class OnlineTarget:
         """
         chunk = np.asarray(chunk, dtype=float)
         if chunk.ndim != 2 or chunk.shape[0] != len(self.target.channels):
-            raise InputError(f"chunk: need shape ({len(self.target.channels)}, n_samples), "
-                             f"got {chunk.shape}")
+            raise InputError(
+                f"chunk: need shape ({len(self.target.channels)}, n_samples), got {chunk.shape}"
+            )
         data = np.concatenate([self._pending, chunk], axis=1)
         n_full = data.shape[1] // self.step
-        self._pending = data[:, n_full * self.step:]
+        self._pending = data[:, n_full * self.step :]
         if n_full == 0:
             return []
-        x = data[:, :n_full * self.step]
+        x = data[:, : n_full * self.step]
         # filtering a block of steps at once equals step-by-step filtering (state carried)
         ys = []
         for b in self.bands:
@@ -190,8 +191,9 @@ class OnlineTarget:
         ptp = self._ptp[:, 0].max(axis=0) - self._ptp[:, 1].min(axis=0)
         own = self._ptp[:, 2].max(axis=0) - self._ptp[:, 3].min(axis=0)
         self.last_ptp = own
-        clean = bool(t_end >= WARMUP_S and ptp.max() <= self.target.reject_uv
-                     and own.min() >= FLAT_UV)
+        clean = bool(
+            t_end >= WARMUP_S and ptp.max() <= self.target.reject_uv and own.min() >= FLAT_UV
+        )
         if not clean:  # an unclean window (warm-up, artefact, flat channel) carries no value
             return (t_end, np.nan, np.nan, False)
         cov = self._blocks.sum(axis=0) / (self.n_blocks * self.step)
@@ -272,8 +274,9 @@ class ReplayResult:
         return pd.DataFrame(cols)
 
 
-def replay_array(data_uv: np.ndarray, sfreq: float, target: TargetDefinition, *,
-                 chunk_s: float = 10.0) -> ReplayResult:
+def replay_array(
+    data_uv: np.ndarray, sfreq: float, target: TargetDefinition, *, chunk_s: float = 10.0
+) -> ReplayResult:
     """Replay ``target`` over a whole array, causally (same numbers as streaming).
 
     Parameters
@@ -296,7 +299,7 @@ def replay_array(data_uv: np.ndarray, sfreq: float, target: TargetDefinition, *,
     rows = []
     n = max(tracker.step, int(round(chunk_s * sfreq)) // tracker.step * tracker.step)
     for start in range(0, data_uv.shape[1], n):
-        rows += tracker.push(data_uv[:, start:start + n])
+        rows += tracker.push(data_uv[:, start : start + n])
     if not rows:
         raise InputError(f"recording shorter than one {target.step_s:g}-s step")
     from .live import LiveValue
@@ -304,12 +307,20 @@ def replay_array(data_uv: np.ndarray, sfreq: float, target: TargetDefinition, *,
     lv = LiveValue(target)
     extra = np.array([lv.update(r[1], r[3]) for r in rows]).reshape(-1, 3)
     t, p, z, c = (np.array(v) for v in zip(*rows))
-    return ReplayResult(time_s=t, power=p, z=z, clean=c.astype(bool), smoothed=extra[:, 0],
-                        smoothed_z=extra[:, 1], threshold_met=extra[:, 2])
+    return ReplayResult(
+        time_s=t,
+        power=p,
+        z=z,
+        clean=c.astype(bool),
+        smoothed=extra[:, 0],
+        smoothed_z=extra[:, 1],
+        threshold_met=extra[:, 2],
+    )
 
 
-def welch_band_response(freqs: np.ndarray, lo: float, hi: float, *, sfreq: float,
-                        n_times: int) -> np.ndarray:
+def welch_band_response(
+    freqs: np.ndarray, lo: float, hi: float, *, sfreq: float, n_times: int
+) -> np.ndarray:
     """Effective power response of Welch band power (periodic Hann, bins ``lo <= f < hi``).
 
     ``E(f) = Σ_k |W(f - f_k)|² / (N Σ w²)`` summed over the band's bins ``f_k``: a sinusoid at
@@ -342,8 +353,16 @@ def welch_band_response(freqs: np.ndarray, lo: float, hi: float, *, sfreq: float
     return out / (n_times * np.sum(w**2))
 
 
-def expected_ratio(psd: np.ndarray, freqs: np.ndarray, sos: np.ndarray, lo: float, hi: float, *,
-                   sfreq: float, epoch_s: float) -> float:
+def expected_ratio(
+    psd: np.ndarray,
+    freqs: np.ndarray,
+    sos: np.ndarray,
+    lo: float,
+    hi: float,
+    *,
+    sfreq: float,
+    epoch_s: float,
+) -> float:
     """Expected replayed / offline band power for a spectrum ``psd`` (any unit per Hz).
 
     Parameters
@@ -407,19 +426,34 @@ def plot_replay(result: ReplayResult, target: TargetDefinition, *, figure=None):
     for lim in (-1.96, 1.96):
         ax_z.axhline(lim, ls=":", color="0.5", lw=0.8)
     if target.norm is None:
-        ax_z.text(0.5, 0.5, "no norm in this target: z not available", ha="center",
-                  va="center", transform=ax_z.transAxes, color="0.4")
+        ax_z.text(
+            0.5,
+            0.5,
+            "no norm in this target: z not available",
+            ha="center",
+            va="center",
+            transform=ax_z.transAxes,
+            color="0.4",
+        )
     ax_z.set_ylabel("z")
     ax_z.set_xlabel("time (s, window end)")
     bad = ~result.clean
     for ax in (ax_p, ax_z):
-        ax.fill_between(result.time_s, 0, 1, where=bad, color="0.85", step="pre",
-                        transform=ax.get_xaxis_transform(), label=None)
+        ax.fill_between(
+            result.time_s,
+            0,
+            1,
+            where=bad,
+            color="0.85",
+            step="pre",
+            transform=ax.get_xaxis_transform(),
+            label=None,
+        )
     return fig
 
 
 def replay_recording(target: TargetDefinition, recording, out: str | Path) -> dict:
-    """Replay ``target`` on a recording file and write ``replay.tsv``, ``replay.png``, ``replay.json``.
+    """Replay ``target`` on a recording file; write ``replay.tsv``, ``.png`` and ``.json``.
 
     Parameters
     ----------
@@ -442,27 +476,34 @@ def replay_recording(target: TargetDefinition, recording, out: str | Path) -> di
     rec = recording if isinstance(recording, Recording) else read_recording(recording)
     raw = rec.raw
     if tuple(raw.ch_names) != tuple(target.channels):
-        raise InputError(f"recording channels {raw.ch_names} differ from the target's "
-                         f"{list(target.channels)}", path=rec.path)
+        raise InputError(
+            f"recording channels {raw.ch_names} differ from the target's {list(target.channels)}",
+            path=rec.path,
+        )
     data = raw.get_data() * 1e6
     res = replay_array(data, rec.sfreq, target)
     mean = res.clean_mean()
     off = target.offline.get("value")
     summary = {
-        "target": target.name, "recording": str(rec.path) if rec.path else None,
-        "recording_sha256": rec.sha256, "sfreq": float(rec.sfreq),
-        "n_windows": int((res.time_s >= target.window_s - 0.5 / rec.sfreq).sum()), "n_clean": int(res.clean.sum()),
+        "target": target.name,
+        "recording": str(rec.path) if rec.path else None,
+        "recording_sha256": rec.sha256,
+        "sfreq": float(rec.sfreq),
+        "n_windows": int((res.time_s >= target.window_s - 0.5 / rec.sfreq).sum()),
+        "n_clean": int(res.clean.sum()),
         "clean_mean_power": mean,
         "clean_mean_z": float(_zscore(np.array([mean]), target.norm)[0]),
         "offline_value": off,
         "ratio_to_offline": (mean / off) if off else None,
-        "window_s": target.window_s, "step_s": target.step_s,
+        "window_s": target.window_s,
+        "step_s": target.step_s,
     }
     out = Path(out)
     inputs = [p for p in (rec.path, getattr(target, "path", None)) if p is not None]
     with atomic_output_dir(out, kind="replay", inputs=inputs) as tmp:
-        res.to_frame().to_csv(tmp / "replay.tsv", sep="\t", index=False, na_rep="",
-                              float_format="%.6g")
+        res.to_frame().to_csv(
+            tmp / "replay.tsv", sep="\t", index=False, na_rep="", float_format="%.6g"
+        )
         fig = plot_replay(res, target)
         fig.savefig(tmp / "replay.png", dpi=100)
         (tmp / "replay.json").write_text(dumps_json(summary, indent=2), encoding="utf-8")

@@ -159,10 +159,16 @@ class StreamStats:
         def q(a, p):
             return float(np.percentile(a, p)) if a.size else float("nan")
 
-        return {"rows": self.rows, "clean": self.clean, "by_status": dict(self.by_status),
-                "latency_ms_median": q(lat, 50), "latency_ms_p95": q(lat, 95),
-                "age_ms_median": q(age, 50), "age_ms_p95": q(age, 95),
-                "messages": len(self.messages)}
+        return {
+            "rows": self.rows,
+            "clean": self.clean,
+            "by_status": dict(self.by_status),
+            "latency_ms_median": q(lat, 50),
+            "latency_ms_p95": q(lat, 95),
+            "age_ms_median": q(age, 50),
+            "age_ms_p95": q(age, 95),
+            "messages": len(self.messages),
+        }
 
 
 class StreamProcessor:
@@ -185,36 +191,53 @@ class StreamProcessor:
         Stream name used in messages.
     """
 
-    def __init__(self, target: TargetDefinition, ch_names, sfreq: float, *, scale=1.0,
-                 drop_after_s: float | None = None, say=None, name: str = "input"):
+    def __init__(
+        self,
+        target: TargetDefinition,
+        ch_names,
+        sfreq: float,
+        *,
+        scale=1.0,
+        drop_after_s: float | None = None,
+        say=None,
+        name: str = "input",
+    ):
         from ..intake.channels import match_channels
 
         if not sfreq > 0:
-            raise InputError(f"stream {name!r} has an irregular sampling rate; a regular EEG "
-                             "stream is needed")
+            raise InputError(
+                f"stream {name!r} has an irregular sampling rate; a regular EEG stream is needed"
+            )
         self.target = target
         self.sfreq = float(sfreq)
         self.name = name
         self.say = say or (lambda msg: None)
         m = match_channels(list(ch_names))
         index = {lab: i for i, lab in enumerate(ch_names)}
-        self.picks = np.array([index[m.channel_map[s]] if s in m.channel_map else -1
-                               for s in target.channels])
+        self.picks = np.array(
+            [index[m.channel_map[s]] if s in m.channel_map else -1 for s in target.channels]
+        )
         self.missing = tuple(m.missing)
         self.scale = np.broadcast_to(np.asarray(scale, dtype=float), (len(ch_names),))
-        self.drop_after_s = float(drop_after_s if drop_after_s is not None
-                                  else 2 * target.step_s)
-        hi = (max(b[2] for b in target.bands) if target.measure == "relative"
-              else target.band_edges[1])
+        self.drop_after_s = float(drop_after_s if drop_after_s is not None else 2 * target.step_s)
+        hi = (
+            max(b[2] for b in target.bands)
+            if target.measure == "relative"
+            else target.band_edges[1]
+        )
         self.rate_tolerance = (1.0 / (2.0 * target.fingerprint.epoch_s)) / hi
         if not math.isclose(self.sfreq, target.sfreq, rel_tol=1e-9):
-            self.say(f"stream {name!r} runs at {self.sfreq:g} Hz, the target was designed at "
-                     f"{target.sfreq:g} Hz: band-pass re-designed for {self.sfreq:g} Hz")
+            self.say(
+                f"stream {name!r} runs at {self.sfreq:g} Hz, the target was designed at "
+                f"{target.sfreq:g} Hz: band-pass re-designed for {self.sfreq:g} Hz"
+            )
         self.online = OnlineTarget(target, self.sfreq)
         self.live = LiveValue(target)
         if self.missing:
-            self.say(f"stream {name!r} lacks {', '.join(self.missing)}: values withheld "
-                     "(flagged 'missing') until a stream with all 19 sites is connected")
+            self.say(
+                f"stream {name!r} lacks {', '.join(self.missing)}: values withheld "
+                "(flagged 'missing') until a stream with all 19 sites is connected"
+            )
         self._restart(first=True)
 
     # -- state
@@ -271,8 +294,10 @@ class StreamProcessor:
                 gap = d
         if self._dropped or gap is not None:
             since = (arrival - self._last_arrival) if self._last_arrival is not None else 0.0
-            self.say(f"stream {self.name!r}: data back after {max(since, gap or 0):.1f} s; "
-                     f"filters restarted ({WARMUP_S:g}-s warm-up)")
+            self.say(
+                f"stream {self.name!r}: data back after {max(since, gap or 0):.1f} s; "
+                f"filters restarted ({WARMUP_S:g}-s warm-up)"
+            )
             self._restart()
         self._last_ts = float(ts[-1])
         self._last_arrival = float(arrival)
@@ -280,8 +305,9 @@ class StreamProcessor:
         if self._n_in == 0:
             self._rate_hist.insert(0, (0, float(ts[0])))
         self._n_in += ts.size
-        while len(self._rate_hist) > 2 and (self._rate_hist[-1][1] - self._rate_hist[1][1]
-                                            >= RATE_SPAN_S):
+        while len(self._rate_hist) > 2 and (
+            self._rate_hist[-1][1] - self._rate_hist[1][1] >= RATE_SPAN_S
+        ):
             self._rate_hist.pop(0)
         x = np.zeros((len(self.target.channels), ts.size))
         have = self.picks >= 0
@@ -296,8 +322,11 @@ class StreamProcessor:
             status = 0
             if t_end < WARMUP_S:
                 status |= STATUS["warmup"]
-            flat = tuple(s for s, p in zip(self.target.channels, self.online.last_ptp)
-                         if p < FLAT_UV and s not in self.missing)
+            flat = tuple(
+                s
+                for s, p in zip(self.target.channels, self.online.last_ptp)
+                if p < FLAT_UV and s not in self.missing
+            )
             self._note_flat(flat)
             if flat:
                 status |= STATUS["flat"]
@@ -310,28 +339,34 @@ class StreamProcessor:
             if self._rate_bad:
                 status |= STATUS["rate"]
             ok = clean and status == 0
-            out.append(self._row(float(all_ts[(j + 1) * self.online.step - 1]), power, z, ok,
-                                 status))
+            out.append(
+                self._row(float(all_ts[(j + 1) * self.online.step - 1]), power, z, ok, status)
+            )
         return out
 
     def _note_flat(self, flat) -> None:
         if flat != self._flat:
             if flat:
-                self.say(f"stream {self.name!r}: channel {', '.join(flat)} flat (peak-to-peak < "
-                         f"{FLAT_UV:g} µV over the last {self.target.window_s:g} s); values "
-                         "withheld")
+                self.say(
+                    f"stream {self.name!r}: channel {', '.join(flat)} flat (peak-to-peak < "
+                    f"{FLAT_UV:g} µV over the last {self.target.window_s:g} s); values "
+                    "withheld"
+                )
             else:
-                self.say(f"stream {self.name!r}: channel {', '.join(self._flat)} carries signal "
-                         "again")
+                self.say(
+                    f"stream {self.name!r}: channel {', '.join(self._flat)} carries signal again"
+                )
             self._flat = flat
 
     def _note_rate(self, rate: float) -> None:
         bad = abs(rate / self.sfreq - 1.0) > self.rate_tolerance
         if bad != self._rate_bad:
             if bad:
-                self.say(f"stream {self.name!r}: samples arrive at {rate:.1f} Hz but the stream "
-                         f"declares {self.sfreq:g} Hz; values withheld (check the amplifier's "
-                         "rate setting)")
+                self.say(
+                    f"stream {self.name!r}: samples arrive at {rate:.1f} Hz but the stream "
+                    f"declares {self.sfreq:g} Hz; values withheld (check the amplifier's "
+                    "rate setting)"
+                )
             else:
                 self.say(f"stream {self.name!r}: sampling rate back to {rate:.1f} Hz")
             self._rate_bad = bad
@@ -362,10 +397,14 @@ class StreamProcessor:
             return []
         if not self._dropped:
             self._dropped = True
-            self.say(f"stream {self.name!r} dropped: no data for {self.drop_after_s:g} s; "
-                     "publishing flagged values until it returns")
-        if (self._last_dropped_emit is not None
-                and now - self._last_dropped_emit < self.target.step_s):
+            self.say(
+                f"stream {self.name!r} dropped: no data for {self.drop_after_s:g} s; "
+                "publishing flagged values until it returns"
+            )
+        if (
+            self._last_dropped_emit is not None
+            and now - self._last_dropped_emit < self.target.step_s
+        ):
             return []
         self._last_dropped_emit = now
         status = STATUS["dropped"] | (STATUS["missing"] if self.missing else 0)
@@ -377,12 +416,23 @@ def _decode_status(status: int) -> list[str]:
     return [k for k, v in STATUS.items() if int(status) & v]
 
 
-def run_stream(target: TargetDefinition, *, name: str | None = None, stype: str | None = None,
-               source_id: str | None = None, out_name: str | None = None,
-               duration_s: float | None = None, max_updates: int | None = None,
-               unit: str = "auto", timeout_s: float = 5.0, poll_s: float = 0.005,
-               drop_after_s: float | None = None, log_path=None, say=None,
-               on_row=None) -> dict:
+def run_stream(
+    target: TargetDefinition,
+    *,
+    name: str | None = None,
+    stype: str | None = None,
+    source_id: str | None = None,
+    out_name: str | None = None,
+    duration_s: float | None = None,
+    max_updates: int | None = None,
+    unit: str = "auto",
+    timeout_s: float = 5.0,
+    poll_s: float = 0.005,
+    drop_after_s: float | None = None,
+    log_path=None,
+    say=None,
+    on_row=None,
+) -> dict:
     """Read an EEG stream over LSL, apply ``target``, publish the feedback stream.
 
     Parameters
@@ -429,24 +479,31 @@ def run_stream(target: TargetDefinition, *, name: str | None = None, stype: str 
     if duration_s is None and max_updates is None:
         log.info("no --duration or --updates: running until interrupted")
     if not os.environ.get("LSLAPICFG"):
-        _say("LSL discovery uses multicast/broadcast on your network; set LSLAPICFG to a "
-             "configuration file to keep it on this machine (see the README)")
+        _say(
+            "LSL discovery uses multicast/broadcast on your network; set LSLAPICFG to a "
+            "configuration file to keep it on this machine (see the README)"
+        )
     if name is None and source_id is None and stype is None:
         stype = "EEG"
     stream = StreamLSL(bufsize=2.0, name=name, stype=stype, source_id=source_id)
     try:
-        stream.connect(acquisition_delay=None, processing_flags=["clocksync"],
-                       timeout=timeout_s)
+        stream.connect(acquisition_delay=None, processing_flags=["clocksync"], timeout=timeout_s)
     except RuntimeError as exc:
-        what = ", ".join(f"{k}={v!r}" for k, v in (("name", name), ("type", stype),
-                                                   ("source_id", source_id)) if v)
-        raise InputError(f"no unique LSL stream with {what} within {timeout_s:g} s "
-                         f"({' '.join(str(exc).split())[:160]})") from None
+        what = ", ".join(
+            f"{k}={v!r}"
+            for k, v in (("name", name), ("type", stype), ("source_id", source_id))
+            if v
+        )
+        raise InputError(
+            f"no unique LSL stream with {what} within {timeout_s:g} s "
+            f"({' '.join(str(exc).split())[:160]})"
+        ) from None
     chunks: list = []
 
     def _collect(data, timestamps, info):
-        chunks.append((np.array(data, copy=True), np.array(timestamps, copy=True),
-                       time.perf_counter()))
+        chunks.append(
+            (np.array(data, copy=True), np.array(timestamps, copy=True), time.perf_counter())
+        )
         return data, timestamps
 
     try:
@@ -456,15 +513,32 @@ def run_stream(target: TargetDefinition, *, name: str | None = None, stype: str 
         declared = sinfo.get_channel_units() if sinfo is not None else None
         ch_names = list(stream.ch_names)
         if unit == "auto" and declared is None:
-            raise InputError(f"stream {stream.name!r} declares no channel units; pass --unit uV "
-                             "or --unit V")
-        scale = np.array([unit_scale(ch["unit_mul"] if unit == "auto" else 0, unit)
-                          for ch in units]) if units else unit_scale(None, unit)
-        proc = StreamProcessor(target, ch_names, float(stream.info["sfreq"]), scale=scale,
-                               drop_after_s=drop_after_s, say=_say, name=stream.name)
+            raise InputError(
+                f"stream {stream.name!r} declares no channel units; pass --unit uV or --unit V"
+            )
+        scale = (
+            np.array([unit_scale(ch["unit_mul"] if unit == "auto" else 0, unit) for ch in units])
+            if units
+            else unit_scale(None, unit)
+        )
+        proc = StreamProcessor(
+            target,
+            ch_names,
+            float(stream.info["sfreq"]),
+            scale=scale,
+            drop_after_s=drop_after_s,
+            say=_say,
+            name=stream.name,
+        )
         oname = out_name or "sourcelab-feedback"
-        oinfo = StreamInfo(oname, "Feedback", len(OUTPUT_CHANNELS), 1.0 / target.step_s,
-                           "float64", f"sourcelab-{oname}")
+        oinfo = StreamInfo(
+            oname,
+            "Feedback",
+            len(OUTPUT_CHANNELS),
+            1.0 / target.step_s,
+            "float64",
+            f"sourcelab-{oname}",
+        )
         oinfo.set_channel_names(list(OUTPUT_CHANNELS))
         oinfo.set_channel_types("misc")
         oinfo.set_channel_units("none")
@@ -473,8 +547,9 @@ def run_stream(target: TargetDefinition, *, name: str | None = None, stype: str 
         if log_path is not None:
             from ..provenance import check_output_file
 
-            check_output_file(log_path, kind="stream-log", name="log file",
-                              suffixes=(".tsv", ".txt"))
+            check_output_file(
+                log_path, kind="stream-log", name="log file", suffixes=(".tsv", ".txt")
+            )
             Path(log_path).parent.mkdir(parents=True, exist_ok=True)
             logf = open(log_path, "w", encoding="utf-8")
             logf.write("\t".join(("lsl_time", *OUTPUT_CHANNELS, "latency_ms", "age_ms")) + "\n")
@@ -507,9 +582,17 @@ def run_stream(target: TargetDefinition, *, name: str | None = None, stype: str 
                         stats.latency_ms.append(lat)
                         stats.age_ms.append(age)
                     if logf is not None:
-                        logf.write("\t".join([f"{r.timestamp:.6f}",
-                                              *(f"{v:.17g}" for v in r.values),
-                                              f"{lat:.3f}", f"{age:.3f}"]) + "\n")
+                        logf.write(
+                            "\t".join(
+                                [
+                                    f"{r.timestamp:.6f}",
+                                    *(f"{v:.17g}" for v in r.values),
+                                    f"{lat:.3f}",
+                                    f"{age:.3f}",
+                                ]
+                            )
+                            + "\n"
+                        )
                     if on_row is not None:
                         on_row(r)
                 time.sleep(poll_s)
@@ -523,7 +606,14 @@ def run_stream(target: TargetDefinition, *, name: str | None = None, stype: str 
         except Exception:  # noqa: BLE001 - disconnecting a lost stream must not mask the result
             pass
     out = stats.summary()
-    out.update(input={"name": proc.name, "sfreq": proc.sfreq, "channels": len(ch_names),
-                      "missing": list(proc.missing)}, output=oname,
-               message_lines=list(stats.messages))
+    out.update(
+        input={
+            "name": proc.name,
+            "sfreq": proc.sfreq,
+            "channels": len(ch_names),
+            "missing": list(proc.missing),
+        },
+        output=oname,
+        message_lines=list(stats.messages),
+    )
     return out

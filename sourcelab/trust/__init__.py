@@ -8,15 +8,46 @@ Public API::
     leakage_hints                                            # deviating ROIs and their leakers
 """
 
-from .bootstrap import (INTERVAL_COLUMNS, add_intervals, add_sensor_intervals, bootstrap_weights,
-                        percentile_interval, robust_flags, roi_bootstrap, sensor_bootstrap,
-                        z_interval)
-from .leakage import (HINT_COLUMNS, LEAKAGE_COLUMNS, Leakage, activity_gain, leakage_for,
-                      leakage_hints, leakage_matrix, plot_leakage, point_spread_power)
+from .bootstrap import (
+    INTERVAL_COLUMNS,
+    add_intervals,
+    add_sensor_intervals,
+    bootstrap_weights,
+    percentile_interval,
+    robust_flags,
+    roi_bootstrap,
+    sensor_bootstrap,
+    z_interval,
+)
+from .leakage import (
+    HINT_COLUMNS,
+    LEAKAGE_COLUMNS,
+    Leakage,
+    activity_gain,
+    leakage_for,
+    leakage_hints,
+    leakage_matrix,
+    plot_leakage,
+    point_spread_power,
+)
 
 __all__ = [
-    "HINT_COLUMNS", "INTERVAL_COLUMNS", "LEAKAGE_COLUMNS", "Leakage", "activity_gain",
-    "add_intervals", "add_sensor_intervals", "bootstrap_weights", "leakage_for", "leakage_hints",
-    "leakage_matrix", "percentile_interval", "plot_leakage", "point_spread_power",
-    "robust_flags", "roi_bootstrap", "sensor_bootstrap", "z_interval",
+    "HINT_COLUMNS",
+    "INTERVAL_COLUMNS",
+    "LEAKAGE_COLUMNS",
+    "Leakage",
+    "activity_gain",
+    "add_intervals",
+    "add_sensor_intervals",
+    "bootstrap_weights",
+    "leakage_for",
+    "leakage_hints",
+    "leakage_matrix",
+    "percentile_interval",
+    "plot_leakage",
+    "point_spread_power",
+    "robust_flags",
+    "roi_bootstrap",
+    "sensor_bootstrap",
+    "z_interval",
 ]

@@ -85,8 +85,9 @@ def bootstrap_weights(n_epochs: int, *, n_boot: int = 1000, seed: int = 0) -> np
     if int(n_boot) < 10:
         raise InputError(f"n_boot: need at least 10 bootstrap replicates, got {n_boot}")
     rng = np.random.default_rng(seed)
-    counts = rng.multinomial(int(n_epochs), np.full(int(n_epochs), 1.0 / n_epochs),
-                             size=int(n_boot))
+    counts = rng.multinomial(
+        int(n_epochs), np.full(int(n_epochs), 1.0 / n_epochs), size=int(n_boot)
+    )
     return counts / float(n_epochs)
 
 
@@ -218,18 +219,24 @@ def _atoms(avg) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     sig: dict[bytes, int] = {}
     gid = np.empty(col.shape[0], dtype=np.int64)
     for u in range(col.shape[0]):
-        key = col.indices[col.indptr[u]:col.indptr[u + 1]].tobytes()
+        key = col.indices[col.indptr[u] : col.indptr[u + 1]].tobytes()
         gid[u] = sig.setdefault(key, len(sig))
     order = np.argsort(gid, kind="stable")
     starts = np.flatnonzero(np.r_[True, np.diff(gid[order]) != 0])
     first = order[starts]
-    weights = col[first].T.toarray()                       # (n_rois, n_groups): 1/|r| or 0
+    weights = col[first].T.toarray()  # (n_rois, n_groups): 1/|r| or 0
     return order, starts, weights
 
 
-def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
-                  weights: np.ndarray, *, relative: bool = True,
-                  epoch_total: np.ndarray | None = None) -> dict[str, np.ndarray]:
+def roi_bootstrap(
+    epoch_csd: np.ndarray,
+    op,
+    roi_vertices: Sequence[np.ndarray],
+    weights: np.ndarray,
+    *,
+    relative: bool = True,
+    epoch_total: np.ndarray | None = None,
+) -> dict[str, np.ndarray]:
     """Bootstrap replicates of ROI mean absolute and relative source band power.
 
     Parameters
@@ -266,23 +273,24 @@ def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
     if relative and epoch_total is not None:
         t = np.asarray(epoch_total, dtype=float)
         if t.shape != (c.shape[0],) + c.shape[2:]:
-            raise InputError(f"epoch_total: need shape {(c.shape[0],) + c.shape[2:]}, got "
-                             f"{t.shape}")
-        c = np.concatenate([c, t[:, None]], axis=1)     # broadband as a last "band"
+            raise InputError(
+                f"epoch_total: need shape {(c.shape[0],) + c.shape[2:]}, got {t.shape}"
+            )
+        c = np.concatenate([c, t[:, None]], axis=1)  # broadband as a last "band"
     n_ep, n_all = c.shape[:2]
     n_boot = w.shape[0]
     used, avg = roi_average_matrix(roi_vertices, op.n_src)
     basis, q_all = source_quadratic_forms(op)
-    cv = vech(basis.T @ c @ basis)                       # (n_ep, n_bands, n_vech)
-    q_roi = avg @ q_all[used]                            # (n_rois, n_vech): vech of B'M_rB
-    per_epoch = cv @ q_roi.T                             # (n_ep, n_bands, n_rois)
+    cv = vech(basis.T @ c @ basis)  # (n_ep, n_bands, n_vech)
+    q_roi = avg @ q_all[used]  # (n_rois, n_vech): vech of B'M_rB
+    per_epoch = cv @ q_roi.T  # (n_ep, n_bands, n_rois)
     out = {"absolute": (w @ per_epoch.reshape(n_ep, -1)).reshape(n_boot, n_all, -1)[:, :n_bands]}
     if not relative:
         return out
     order, starts, group_w = _atoms(avg)
-    q = q_all[used[order]]                               # sources grouped by ROI membership
+    q = q_all[used[order]]  # sources grouped by ROI membership
     n_used, n_vech = q.shape
-    c_mean = cv.mean(axis=0)                             # (n_bands, n_vech)
+    c_mean = cv.mean(axis=0)  # (n_bands, n_vech)
     p_mean = (q @ c_mean.T).astype(np.float32)[:, :, None]  # (n_used, n_all, 1)
     dev = (w @ (cv - c_mean).reshape(n_ep, -1)).reshape(n_boot, n_all, n_vech)
     dev = dev.astype(np.float32)
@@ -295,22 +303,23 @@ def roi_bootstrap(epoch_csd: np.ndarray, op, roi_vertices: Sequence[np.ndarray],
         # sources-first, band-major layout: contiguous band sums and group sums
         p = (q32 @ d.T).reshape(n_used, n_all, e - s)
         p += p_mean
-        if n_all > n_bands:                              # broadband total given
+        if n_all > n_bands:  # broadband total given
             total = p[:, n_bands:]
             p = np.ascontiguousarray(p[:, :n_bands])
         else:
             total = p.sum(axis=1, keepdims=True)
         with np.errstate(invalid="ignore", divide="ignore"):
-            p /= total                                   # 0/0 -> NaN, as relative_power
+            p /= total  # 0/0 -> NaN, as relative_power
         g = np.add.reduceat(p.reshape(n_used, -1), starts, axis=0)  # (n_groups, ...)
-        r = (group_w @ g).reshape(-1, n_bands, e - s)   # (n_rois, n_bands, chunk)
+        r = (group_w @ g).reshape(-1, n_bands, e - s)  # (n_rois, n_bands, chunk)
         rel[s:e] = r.transpose(2, 1, 0)
     out["relative"] = rel
     return out
 
 
-def sensor_bootstrap(epoch_csd: np.ndarray, weights: np.ndarray, *,
-                     epoch_total: np.ndarray | None = None) -> dict[str, np.ndarray]:
+def sensor_bootstrap(
+    epoch_csd: np.ndarray, weights: np.ndarray, *, epoch_total: np.ndarray | None = None
+) -> dict[str, np.ndarray]:
     """Bootstrap replicates of average-reference sensor band power.
 
     Parameters
@@ -400,16 +409,22 @@ def robust_flags(z, z_lo, z_hi, *, threshold: float = Z_THRESHOLD) -> pd.array:
 
 
 def _band_order(table: pd.DataFrame, band_names, n_bands: int) -> list[str]:
-    names = list(dict.fromkeys(table["band"].astype(str))) if band_names is None \
+    names = (
+        list(dict.fromkeys(table["band"].astype(str)))
+        if band_names is None
         else [str(b) for b in band_names]
+    )
     if len(names) != n_bands:
-        raise InputError(f"band_names: {len(names)} bands {names} but epoch_csd has {n_bands}; "
-                         "pass band_names in the cross-spectra's order")
+        raise InputError(
+            f"band_names: {len(names)} bands {names} but epoch_csd has {n_bands}; "
+            "pass band_names in the cross-spectra's order"
+        )
     return names
 
 
-def _finish(table: pd.DataFrame, lo: np.ndarray, hi: np.ndarray, norm_rows, z_threshold: float,
-            meta: dict) -> pd.DataFrame:
+def _finish(
+    table: pd.DataFrame, lo: np.ndarray, hi: np.ndarray, norm_rows, z_threshold: float, meta: dict
+) -> pd.DataFrame:
     out = table.copy()
     out["value_lo"] = lo
     out["value_hi"] = hi
@@ -426,15 +441,22 @@ def _finish(table: pd.DataFrame, lo: np.ndarray, hi: np.ndarray, norm_rows, z_th
         zq, zq_lo, zq_hi = (norm_rows.predictive(v)["z_equivalent"] for v in (z, z_lo, z_hi))
     out["z_lo"] = np.fmin(z_lo, z_hi)
     out["z_hi"] = np.fmax(z_lo, z_hi)
-    out["robust"] = robust_flags(zq, np.fmin(zq_lo, zq_hi), np.fmax(zq_lo, zq_hi),
-                                 threshold=z_threshold)
+    out["robust"] = robust_flags(
+        zq, np.fmin(zq_lo, zq_hi), np.fmax(zq_lo, zq_hi), threshold=z_threshold
+    )
     out.attrs = dict(table.attrs, bootstrap=meta)
     return out
 
 
 def _meta(weights, seed, ci, n_ep) -> dict:
-    return {"method": "percentile", "unit": "clean epoch", "n_boot": int(weights.shape[0]),
-            "seed": int(seed), "ci": float(ci), "n_epochs": int(n_ep)}
+    return {
+        "method": "percentile",
+        "unit": "clean epoch",
+        "n_boot": int(weights.shape[0]),
+        "seed": int(seed),
+        "ci": float(ci),
+        "n_epochs": int(n_ep),
+    }
 
 
 def _check_ci(ci: float) -> None:
@@ -442,11 +464,20 @@ def _check_ci(ci: float) -> None:
         raise InputError(f"ci: need a coverage in (0, 1), e.g. 0.95, got {ci!r}")
 
 
-def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *,
-                  n_boot: int = 1000, seed: int = 0, ci: float = 0.95, norm_rows=None,
-                  band_names: Sequence[str] | None = None,
-                  z_threshold: float = Z_THRESHOLD,
-                  epoch_total: np.ndarray | None = None) -> pd.DataFrame:
+def add_intervals(
+    roi_table: pd.DataFrame,
+    epoch_csd: np.ndarray,
+    op,
+    atlases,
+    *,
+    n_boot: int = 1000,
+    seed: int = 0,
+    ci: float = 0.95,
+    norm_rows=None,
+    band_names: Sequence[str] | None = None,
+    z_threshold: float = Z_THRESHOLD,
+    epoch_total: np.ndarray | None = None,
+) -> pd.DataFrame:
     """Add bootstrap confidence intervals of the value and of z to an ROI table.
 
     Parameters
@@ -509,19 +540,27 @@ def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *
         for roi in at.rois:
             col_of[(at.name, roi.name, roi.hemisphere)] = len(verts)
             verts.append(roi.vertices)
-    keys = list(zip(roi_table["atlas"].astype(str), roi_table["roi"].astype(str),
-                    roi_table["hemisphere"].astype(str)))
+    keys = list(
+        zip(
+            roi_table["atlas"].astype(str),
+            roi_table["roi"].astype(str),
+            roi_table["hemisphere"].astype(str),
+        )
+    )
     missing = sorted({k for k in keys if k not in col_of})
     if missing:
-        raise InputError(f"roi_table has ROIs not in the given atlases, e.g. {missing[:3]}; "
-                         f"pass every atlas named in the table ({sorted({k[0] for k in keys})})")
+        raise InputError(
+            f"roi_table has ROIs not in the given atlases, e.g. {missing[:3]}; "
+            f"pass every atlas named in the table ({sorted({k[0] for k in keys})})"
+        )
     measures = set(roi_table["measure"].astype(str))
     unknown = sorted(measures - {"absolute", "relative"})
     if unknown:
         raise InputError(f"measure: {unknown} not one of ['absolute', 'relative']")
     w = bootstrap_weights(c.shape[0], n_boot=n_boot, seed=seed)
-    samples = roi_bootstrap(c, op, verts, w, relative="relative" in measures,
-                            epoch_total=epoch_total)
+    samples = roi_bootstrap(
+        c, op, verts, w, relative="relative" in measures, epoch_total=epoch_total
+    )
     lo = {m: percentile_interval(s, ci=ci) for m, s in samples.items()}
     band_idx = {b: i for i, b in enumerate(bands)}
     try:
@@ -536,16 +575,22 @@ def add_intervals(roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, *
         sel = meas == m
         v_lo[sel] = a[bi[sel], ci_[sel]]
         v_hi[sel] = b[bi[sel], ci_[sel]]
-    return _finish(roi_table, v_lo, v_hi, norm_rows, z_threshold,
-                   _meta(w, seed, ci, c.shape[0]))
+    return _finish(roi_table, v_lo, v_hi, norm_rows, z_threshold, _meta(w, seed, ci, c.shape[0]))
 
 
-def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
-                         ch_names: Sequence[str] | None = None, n_boot: int = 1000,
-                         seed: int = 0, ci: float = 0.95, norm_rows=None,
-                         band_names: Sequence[str] | None = None,
-                         z_threshold: float = Z_THRESHOLD,
-                         epoch_total: np.ndarray | None = None) -> pd.DataFrame:
+def add_sensor_intervals(
+    sensor_table: pd.DataFrame,
+    epoch_csd: np.ndarray,
+    *,
+    ch_names: Sequence[str] | None = None,
+    n_boot: int = 1000,
+    seed: int = 0,
+    ci: float = 0.95,
+    norm_rows=None,
+    band_names: Sequence[str] | None = None,
+    z_threshold: float = Z_THRESHOLD,
+    epoch_total: np.ndarray | None = None,
+) -> pd.DataFrame:
     """Add bootstrap confidence intervals to a sensor table (see :func:`add_intervals`).
 
     Parameters
@@ -580,8 +625,9 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
         ci_ = np.array([ch_idx[n] for n in sensor_table["channel"].astype(str)])
         bi = np.array([band_idx[b] for b in sensor_table["band"].astype(str)])
     except KeyError as exc:
-        raise InputError(f"sensor_table: {exc.args[0]!r} is not a known channel or band "
-                         f"({names}; {bands})") from None
+        raise InputError(
+            f"sensor_table: {exc.args[0]!r} is not a known channel or band ({names}; {bands})"
+        ) from None
     meas = sensor_table["measure"].astype(str).to_numpy()
     v_lo = np.full(len(sensor_table), np.nan)
     v_hi = np.full(len(sensor_table), np.nan)
@@ -590,5 +636,4 @@ def add_sensor_intervals(sensor_table: pd.DataFrame, epoch_csd: np.ndarray, *,
         sel = meas == m
         v_lo[sel] = a[bi[sel], ci_[sel]]
         v_hi[sel] = b[bi[sel], ci_[sel]]
-    return _finish(sensor_table, v_lo, v_hi, norm_rows, z_threshold,
-                   _meta(w, seed, ci, c.shape[0]))
+    return _finish(sensor_table, v_lo, v_hi, norm_rows, z_threshold, _meta(w, seed, ci, c.shape[0]))

@@ -21,8 +21,9 @@ from dataclasses import dataclass
 import numpy as np
 
 
-def area_codes(template_area: np.ndarray, vertices: np.ndarray, n_left: int,
-               area_numbers: np.ndarray) -> np.ndarray:
+def area_codes(
+    template_area: np.ndarray, vertices: np.ndarray, n_left: int, area_numbers: np.ndarray
+) -> np.ndarray:
     """Per-source area code ``1 + h * n_areas + k`` (hemisphere ``h``, area ``area_numbers[k]``).
 
     Parameters
@@ -130,8 +131,14 @@ class CortexSpace:
             v = np.flatnonzero(self.codes == c)
             if v.size:
                 cen = self.mesh.pos_mm[v].mean(0)
-                rois.append(ROI(self.names[c], self.hemispheres[c], v,
-                                (float(cen[0]), float(cen[1]), float(cen[2]))))
+                rois.append(
+                    ROI(
+                        self.names[c],
+                        self.hemispheres[c],
+                        v,
+                        (float(cen[0]), float(cen[1]), float(cen[2])),
+                    )
+                )
         return Atlas("brodmann", "Brodmann areas on the source subset", "", tuple(rois))
 
 
@@ -169,10 +176,18 @@ def build_space(model, *, lambda2: float = 1 / 9) -> CortexSpace:
     op = sloreta_operator(gain, lambda2=lambda2)
     surf = model.surface
     mesh = cortical_mesh(surf.faces, surf.mid, vertices)
-    return CortexSpace(vertices=vertices, gain=gain, op=op, codes=codes, names=names,
-                       hemispheres=hemis, lobes=lobes, mesh=mesh,
-                       border_mm=border_distance(codes, mesh),
-                       sizes=np.bincount(codes, minlength=len(names)))
+    return CortexSpace(
+        vertices=vertices,
+        gain=gain,
+        op=op,
+        codes=codes,
+        names=names,
+        hemispheres=hemis,
+        lobes=lobes,
+        mesh=mesh,
+        border_mm=border_distance(codes, mesh),
+        sizes=np.bincount(codes, minlength=len(names)),
+    )
 
 
 @functools.lru_cache(maxsize=2)
@@ -212,7 +227,8 @@ def template_area_counts(space: CortexSpace) -> np.ndarray:
     from ..rois.registry import brodmann_labels
 
     ba = brodmann_labels()
-    numbers = [int(n[2:]) for n in space.names[1:len(space.names) // 2 + 1]]
+    numbers = [int(n[2:]) for n in space.names[1 : len(space.names) // 2 + 1]]
     all_vertices = np.arange(ba.size)
-    return np.bincount(area_codes(ba, all_vertices, 10_242, np.array(numbers)),
-                       minlength=len(space.names))
+    return np.bincount(
+        area_codes(ba, all_vertices, 10_242, np.array(numbers)), minlength=len(space.names)
+    )

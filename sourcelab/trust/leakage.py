@@ -49,11 +49,30 @@ from ..headmodel.model import fixed_gain
 from ..inverse import inverse_operator, roi_power_matrices
 
 #: Columns of :meth:`Leakage.to_frame` (the TSV export).
-LEAKAGE_COLUMNS = ("atlas", "target_roi", "target_hemisphere", "source_roi", "source_hemisphere",
-                   "share", "distance_mm")
+LEAKAGE_COLUMNS = (
+    "atlas",
+    "target_roi",
+    "target_hemisphere",
+    "source_roi",
+    "source_hemisphere",
+    "share",
+    "distance_mm",
+)
 #: Columns of :func:`leakage_hints`.
-HINT_COLUMNS = ("atlas", "roi", "hemisphere", "band", "measure", "z", "rank", "leaker",
-                "leaker_hemisphere", "share", "leaker_z", "same_direction")
+HINT_COLUMNS = (
+    "atlas",
+    "roi",
+    "hemisphere",
+    "band",
+    "measure",
+    "z",
+    "rank",
+    "leaker",
+    "leaker_hemisphere",
+    "share",
+    "leaker_z",
+    "same_direction",
+)
 
 
 @dataclass(frozen=True, eq=False)
@@ -130,18 +149,23 @@ class Leakage:
         InputError
             When no ROI matches (the message lists the available ones) or several do.
         """
-        hits = [i for i, (n, h) in enumerate(zip(self.names, self.hemispheres))
-                if n.lower() == str(name).lower()
-                and (hemisphere is None or h == hemisphere)]
+        hits = [
+            i
+            for i, (n, h) in enumerate(zip(self.names, self.hemispheres))
+            if n.lower() == str(name).lower() and (hemisphere is None or h == hemisphere)
+        ]
         if len(hits) == 1:
             return hits[0]
         if not hits:
             have = sorted({f"{n} ({h})" for n, h in zip(self.names, self.hemispheres)})
-            raise InputError(f"ROI {name!r}{'' if hemisphere is None else f' ({hemisphere})'} "
-                             f"is not in atlas {self.atlas!r}; available: {', '.join(have)}")
+            raise InputError(
+                f"ROI {name!r}{'' if hemisphere is None else f' ({hemisphere})'} "
+                f"is not in atlas {self.atlas!r}; available: {', '.join(have)}"
+            )
         hemis = sorted(self.hemispheres[i] for i in hits)
-        raise InputError(f"ROI {name!r} exists in hemispheres {hemis}; choose one with "
-                         "hemisphere / --hemisphere")
+        raise InputError(
+            f"ROI {name!r} exists in hemispheres {hemis}; choose one with hemisphere / --hemisphere"
+        )
 
     def top(self, name: str, hemisphere: str | None = None, *, n: int = 10) -> pd.DataFrame:
         """The ROI's self-share and its ``n`` strongest leakers (rows sorted by share).
@@ -162,15 +186,36 @@ class Leakage:
             a last row ``(unlabelled)`` gives the share from sources in no ROI.
         """
         a = self.index(name, hemisphere)
-        order = [b for b in np.argsort(-self.share[a], kind="stable") if b != a][:int(n)]
+        order = [b for b in np.argsort(-self.share[a], kind="stable") if b != a][: int(n)]
         dist = self.distances()[a]
-        rows = [dict(rank=0, roi=self.names[a], hemisphere=self.hemispheres[a],
-                     share=float(self.share[a, a]), distance_mm=0.0)]
-        rows += [dict(rank=k + 1, roi=self.names[b], hemisphere=self.hemispheres[b],
-                      share=float(self.share[a, b]), distance_mm=float(dist[b]))
-                 for k, b in enumerate(order)]
-        rows.append(dict(rank=len(rows), roi="(unlabelled)", hemisphere="n/a",
-                         share=float(self.unlabelled[a]), distance_mm=np.nan))
+        rows = [
+            dict(
+                rank=0,
+                roi=self.names[a],
+                hemisphere=self.hemispheres[a],
+                share=float(self.share[a, a]),
+                distance_mm=0.0,
+            )
+        ]
+        rows += [
+            dict(
+                rank=k + 1,
+                roi=self.names[b],
+                hemisphere=self.hemispheres[b],
+                share=float(self.share[a, b]),
+                distance_mm=float(dist[b]),
+            )
+            for k, b in enumerate(order)
+        ]
+        rows.append(
+            dict(
+                rank=len(rows),
+                roi="(unlabelled)",
+                hemisphere="n/a",
+                share=float(self.unlabelled[a]),
+                distance_mm=np.nan,
+            )
+        )
         return pd.DataFrame(rows, columns=["rank", "roi", "hemisphere", "share", "distance_mm"])
 
     def to_frame(self) -> pd.DataFrame:
@@ -186,16 +231,28 @@ class Leakage:
         n = len(self.names)
         a, b = np.meshgrid(np.arange(n), np.arange(n), indexing="ij")
         a, b = a.ravel(), b.ravel()
-        t = pd.DataFrame({
-            "atlas": self.atlas, "target_roi": np.asarray(self.names)[a],
-            "target_hemisphere": np.asarray(self.hemispheres)[a],
-            "source_roi": np.asarray(self.names)[b],
-            "source_hemisphere": np.asarray(self.hemispheres)[b],
-            "share": self.share[a, b], "distance_mm": self.distances()[a, b]})
-        u = pd.DataFrame({"atlas": self.atlas, "target_roi": list(self.names),
-                          "target_hemisphere": list(self.hemispheres),
-                          "source_roi": "(unlabelled)", "source_hemisphere": "n/a",
-                          "share": self.unlabelled, "distance_mm": np.nan})
+        t = pd.DataFrame(
+            {
+                "atlas": self.atlas,
+                "target_roi": np.asarray(self.names)[a],
+                "target_hemisphere": np.asarray(self.hemispheres)[a],
+                "source_roi": np.asarray(self.names)[b],
+                "source_hemisphere": np.asarray(self.hemispheres)[b],
+                "share": self.share[a, b],
+                "distance_mm": self.distances()[a, b],
+            }
+        )
+        u = pd.DataFrame(
+            {
+                "atlas": self.atlas,
+                "target_roi": list(self.names),
+                "target_hemisphere": list(self.hemispheres),
+                "source_roi": "(unlabelled)",
+                "source_hemisphere": "n/a",
+                "share": self.unlabelled,
+                "distance_mm": np.nan,
+            }
+        )
         return pd.concat([t, u], ignore_index=True)[list(LEAKAGE_COLUMNS)]
 
     def to_tsv(self, path: str | Path) -> Path:
@@ -222,8 +279,7 @@ class Leakage:
         path = Path(path)
         if path.suffix.lower() != ".tsv":
             raise InputError("leakage table: file name must end in .tsv", path=path)
-        atomic_write_text(path, self.to_frame().to_csv(sep="\t", index=False,
-                                                       float_format="%.6g"))
+        atomic_write_text(path, self.to_frame().to_csv(sep="\t", index=False, float_format="%.6g"))
         return path
 
 
@@ -261,13 +317,17 @@ def activity_gain(op, gain: np.ndarray, *, normals: np.ndarray | None = None) ->
             return gain
         if n_cols == 3 * op.n_src:
             if normals is None:
-                raise InputError("normals: needed to reduce a free-orientation gain to the "
-                                 "fixed-orientation operator (pass HeadModel.src_nn)")
+                raise InputError(
+                    "normals: needed to reduce a free-orientation gain to the "
+                    "fixed-orientation operator (pass HeadModel.src_nn)"
+                )
             return fixed_gain(gain, normals)
     elif n_cols == 3 * op.n_src:
         return gain
-    raise InputError(f"gain: {n_cols} columns do not fit a {op.orientation}-orientation "
-                     f"operator on {op.n_src} sources")
+    raise InputError(
+        f"gain: {n_cols} columns do not fit a {op.orientation}-orientation "
+        f"operator on {op.n_src} sources"
+    )
 
 
 def roi_gain_outer(g: np.ndarray, roi_vertices, n_comp: int) -> np.ndarray:
@@ -296,8 +356,7 @@ def roi_gain_outer(g: np.ndarray, roi_vertices, n_comp: int) -> np.ndarray:
     return out
 
 
-def leakage_matrix(op, gain: np.ndarray, atlas, *, normals: np.ndarray | None = None
-                   ) -> Leakage:
+def leakage_matrix(op, gain: np.ndarray, atlas, *, normals: np.ndarray | None = None) -> Leakage:
     """ROI-to-ROI leakage of ``op`` on ``atlas`` (see the module docstring for the definition).
 
     Parameters
@@ -330,8 +389,8 @@ def leakage_matrix(op, gain: np.ndarray, atlas, *, normals: np.ndarray | None = 
     verts = [np.asarray(r.vertices, dtype=np.int64) for r in at.rois]
     if not verts or any(v.size == 0 for v in verts):
         raise InputError(f"atlas {at.name!r}: every ROI needs at least one source")
-    m = roi_power_matrices(op, verts)                     # (n_rois, n_ch, n_ch)
-    s = roi_gain_outer(g, verts, op.n_comp)               # (n_rois, n_ch, n_ch)
+    m = roi_power_matrices(op, verts)  # (n_rois, n_ch, n_ch)
+    s = roi_gain_outer(g, verts, op.n_comp)  # (n_rois, n_ch, n_ch)
     expected = np.einsum("acd,bdc->ab", m, s)
     labelled = np.zeros(op.n_src, dtype=bool)
     labelled[np.concatenate(verts)] = True
@@ -341,12 +400,16 @@ def leakage_matrix(op, gain: np.ndarray, atlas, *, normals: np.ndarray | None = 
     s_un = g_un @ g_un.T
     total = np.einsum("acd,dc->a", m, s_all)
     unl = np.einsum("acd,dc->a", m, s_un)
-    return Leakage(atlas=at.name, names=tuple(r.name for r in at.rois),
-                   hemispheres=tuple(r.hemisphere for r in at.rois),
-                   share=expected / total[:, None], unlabelled=unl / total,
-                   expected=expected,
-                   centroids=np.array([r.centroid_mni for r in at.rois], dtype=float),
-                   sizes=np.array([v.size for v in verts]))
+    return Leakage(
+        atlas=at.name,
+        names=tuple(r.name for r in at.rois),
+        hemispheres=tuple(r.hemisphere for r in at.rois),
+        share=expected / total[:, None],
+        unlabelled=unl / total,
+        expected=expected,
+        centroids=np.array([r.centroid_mni for r in at.rois], dtype=float),
+        sizes=np.array([v.size for v in verts]),
+    )
 
 
 def point_spread_power(op, g: np.ndarray, sources) -> np.ndarray:
@@ -370,15 +433,20 @@ def point_spread_power(op, g: np.ndarray, sources) -> np.ndarray:
     g3 = g.reshape(g.shape[0], op.n_src, op.n_comp)
     out = np.empty((sources.size, op.n_src))
     for c in range(op.n_comp):
-        est = op.kernel @ g3[:, sources, c]                   # (n_rows, n)
+        est = op.kernel @ g3[:, sources, c]  # (n_rows, n)
         pw = (est**2).reshape(op.n_src, op.n_comp, -1).sum(1).T
         out = pw if c == 0 else out + pw
     return out
 
 
 @functools.lru_cache(maxsize=8)
-def leakage_for(atlas: str = "brodmann", *, method: str = "sLORETA", orientation: str = "fixed",
-                lambda2: float = 1 / 9) -> Leakage:
+def leakage_for(
+    atlas: str = "brodmann",
+    *,
+    method: str = "sLORETA",
+    orientation: str = "fixed",
+    lambda2: float = 1 / 9,
+) -> Leakage:
     """Leakage matrix of a shipped atlas for the shipped head model and the cached operator.
 
     Parameters
@@ -404,8 +472,15 @@ def leakage_for(atlas: str = "brodmann", *, method: str = "sLORETA", orientation
     return leakage_matrix(op, model.gain, atlas, normals=model.src_nn)
 
 
-def plot_leakage(leakage: Leakage, *, axes=None, figure=None, output_file=None,
-                 log_scale: bool = True, vmin: float = 1e-3):
+def plot_leakage(
+    leakage: Leakage,
+    *,
+    axes=None,
+    figure=None,
+    output_file=None,
+    log_scale: bool = True,
+    vmin: float = 1e-3,
+):
     """Heatmap of the leakage shares (target ROI rows, source ROI columns).
 
     Parameters
@@ -449,8 +524,11 @@ def plot_leakage(leakage: Leakage, *, axes=None, figure=None, output_file=None,
     axes.set_yticklabels(labels[::step], fontsize=6)
     axes.set_xlabel("source ROI (where the power comes from)")
     axes.set_ylabel("target ROI (the reported value)")
-    axes.set_title(f"Leakage shares, atlas {leakage.atlas} (rows: fraction of power; "
-                   "spatially white activity)", fontsize=9)
+    axes.set_title(
+        f"Leakage shares, atlas {leakage.atlas} (rows: fraction of power; "
+        "spatially white activity)",
+        fontsize=9,
+    )
     cb = fig.colorbar(im, ax=axes, fraction=0.046, pad=0.02)
     cb.set_label("share of the target ROI's expected power")
     if output_file is not None:
@@ -460,8 +538,9 @@ def plot_leakage(leakage: Leakage, *, axes=None, figure=None, output_file=None,
     return fig
 
 
-def leakage_hints(roi_table: pd.DataFrame, leakage: Leakage, *, top: int = 3,
-                  z_threshold: float = Z_THRESHOLD) -> pd.DataFrame:
+def leakage_hints(
+    roi_table: pd.DataFrame, leakage: Leakage, *, top: int = 3, z_threshold: float = Z_THRESHOLD
+) -> pd.DataFrame:
     """For each deviating ROI value, its strongest leakers and whether they deviate alike.
 
     A deviating ROI whose strongest leakers deviate in the same direction may be showing a
@@ -492,8 +571,10 @@ def leakage_hints(roi_table: pd.DataFrame, leakage: Leakage, *, top: int = 3,
         raise InputError(f"roi_table lacks columns {sorted(need)}")
     t = roi_table[roi_table["atlas"].astype(str) == leakage.atlas]
     z = pd.to_numeric(t["z"], errors="coerce")
-    zmap = {(r, h, b, m): v for r, h, b, m, v in
-            zip(t["roi"], t["hemisphere"], t["band"], t["measure"], z)}
+    zmap = {
+        (r, h, b, m): v
+        for r, h, b, m, v in zip(t["roi"], t["hemisphere"], t["band"], t["measure"], z)
+    }
     pos = {(n, h): i for i, (n, h) in enumerate(zip(leakage.names, leakage.hemispheres))}
     rows = []
     dev = t[np.abs(z) > z_threshold]
@@ -502,14 +583,26 @@ def leakage_hints(roi_table: pd.DataFrame, leakage: Leakage, *, top: int = 3,
         if a is None:
             continue
         zr = float(r.z)
-        order = [b for b in np.argsort(-leakage.share[a], kind="stable") if b != a][:int(top)]
+        order = [b for b in np.argsort(-leakage.share[a], kind="stable") if b != a][: int(top)]
         for k, b in enumerate(order):
             lz = zmap.get((leakage.names[b], leakage.hemispheres[b], r.band, r.measure), np.nan)
             lz = float(lz) if lz is not None else np.nan
-            rows.append(dict(atlas=leakage.atlas, roi=r.roi, hemisphere=r.hemisphere,
-                             band=r.band, measure=r.measure, z=zr, rank=k + 1,
-                             leaker=leakage.names[b], leaker_hemisphere=leakage.hemispheres[b],
-                             share=float(leakage.share[a, b]), leaker_z=lz,
-                             same_direction=bool(np.isfinite(lz) and abs(lz) > z_threshold
-                                                 and np.sign(lz) == np.sign(zr))))
+            rows.append(
+                dict(
+                    atlas=leakage.atlas,
+                    roi=r.roi,
+                    hemisphere=r.hemisphere,
+                    band=r.band,
+                    measure=r.measure,
+                    z=zr,
+                    rank=k + 1,
+                    leaker=leakage.names[b],
+                    leaker_hemisphere=leakage.hemispheres[b],
+                    share=float(leakage.share[a, b]),
+                    leaker_z=lz,
+                    same_direction=bool(
+                        np.isfinite(lz) and abs(lz) > z_threshold and np.sign(lz) == np.sign(zr)
+                    ),
+                )
+            )
     return pd.DataFrame(rows, columns=list(HINT_COLUMNS))

@@ -31,9 +31,22 @@ import numpy as np
 from ..errors import InputError
 
 #: Columns of :func:`peak_table`.
-PEAK_COLUMNS = ("peak", "source", "vertex", "value", "sign", "x_mni152", "y_mni152",
-                "z_mni152", "area", "lobe", "border_mm", "cluster", "cluster_size",
-                "cluster_areas")
+PEAK_COLUMNS = (
+    "peak",
+    "source",
+    "vertex",
+    "value",
+    "sign",
+    "x_mni152",
+    "y_mni152",
+    "z_mni152",
+    "area",
+    "lobe",
+    "border_mm",
+    "cluster",
+    "cluster_size",
+    "cluster_areas",
+)
 
 
 @dataclass(frozen=True, eq=False)
@@ -59,8 +72,9 @@ class CorticalMesh:
         return self.pos_mm.shape[0]
 
 
-def cortical_mesh(faces: np.ndarray, pos_mm: np.ndarray, vertices: np.ndarray | None = None
-                  ) -> CorticalMesh:
+def cortical_mesh(
+    faces: np.ndarray, pos_mm: np.ndarray, vertices: np.ndarray | None = None
+) -> CorticalMesh:
     """Mesh graph restricted to ``vertices``.
 
     Parameters
@@ -100,8 +114,9 @@ def cortical_mesh(faces: np.ndarray, pos_mm: np.ndarray, vertices: np.ndarray | 
     return CorticalMesh(graph=g, pos_mm=pos_mm[vertices], vertices=vertices)
 
 
-def local_maxima(values: np.ndarray, mesh: CorticalMesh, *, threshold: float = -np.inf
-                 ) -> np.ndarray:
+def local_maxima(
+    values: np.ndarray, mesh: CorticalMesh, *, threshold: float = -np.inf
+) -> np.ndarray:
     """Sources whose value is >= every mesh neighbour's and > ``threshold``.
 
     Ties between neighbours go to the lower source index (so a plateau gives one peak per
@@ -203,8 +218,9 @@ def border_distance(labels: np.ndarray, mesh: CorticalMesh) -> np.ndarray:
     return dijkstra(mesh.graph, directed=False, indices=np.flatnonzero(border), min_only=True)
 
 
-def area_maxima(values: np.ndarray, labels: np.ndarray, n_areas: int) -> tuple[np.ndarray,
-                                                                               np.ndarray]:
+def area_maxima(
+    values: np.ndarray, labels: np.ndarray, n_areas: int
+) -> tuple[np.ndarray, np.ndarray]:
     """Highest value in each area and the source where it is reached.
 
     Parameters
@@ -225,7 +241,7 @@ def area_maxima(values: np.ndarray, labels: np.ndarray, n_areas: int) -> tuple[n
     """
     v = np.asarray(values, dtype=float)
     lab = np.asarray(labels, dtype=np.int64)
-    order = np.lexsort((-v, lab))          # by label, then decreasing value
+    order = np.lexsort((-v, lab))  # by label, then decreasing value
     first = np.r_[True, lab[order][1:] != lab[order][:-1]]
     vmax = np.full(n_areas + 1, -np.inf)
     arg = np.full(n_areas + 1, -1)
@@ -236,8 +252,9 @@ def area_maxima(values: np.ndarray, labels: np.ndarray, n_areas: int) -> tuple[n
     return vmax, arg
 
 
-def rank_areas(values: np.ndarray, labels: np.ndarray, n_areas: int, *,
-               exclude: np.ndarray | None = None) -> np.ndarray:
+def rank_areas(
+    values: np.ndarray, labels: np.ndarray, n_areas: int, *, exclude: np.ndarray | None = None
+) -> np.ndarray:
     """Area codes ordered by the highest map value they contain (the peak ranking).
 
     Parameters
@@ -320,9 +337,18 @@ def peak_margin(values: np.ndarray, labels: np.ndarray, area: int, peak_value: f
     return float(np.clip(1.0 - max(other, 0.0) / peak_value, 0.0, 1.0))
 
 
-def peak_table(values: np.ndarray, mesh: CorticalMesh, labels: np.ndarray, area_names,
-               lobe_names, *, threshold: float, signs: np.ndarray | None = None,
-               max_peaks: int = 20, border_mm: np.ndarray | None = None):
+def peak_table(
+    values: np.ndarray,
+    mesh: CorticalMesh,
+    labels: np.ndarray,
+    area_names,
+    lobe_names,
+    *,
+    threshold: float,
+    signs: np.ndarray | None = None,
+    max_peaks: int = 20,
+    border_mm: np.ndarray | None = None,
+):
     """Peaks of a map with their location, area, lobe, border distance and cluster extent.
 
     Parameters
@@ -358,7 +384,7 @@ def peak_table(values: np.ndarray, mesh: CorticalMesh, labels: np.ndarray, area_
 
     v = np.asarray(values, dtype=float)
     lab = np.asarray(labels, dtype=np.int64)
-    peaks = local_maxima(v, mesh, threshold=threshold)[:int(max_peaks)]
+    peaks = local_maxima(v, mesh, threshold=threshold)[: int(max_peaks)]
     cl = clusters(v, mesh, threshold)
     bd = border_distance(lab, mesh) if border_mm is None else border_mm
     xyz = mni305_to_mni152(mesh.pos_mm[peaks]) if peaks.size else np.zeros((0, 3))
@@ -368,12 +394,22 @@ def peak_table(values: np.ndarray, mesh: CorticalMesh, labels: np.ndarray, area_
         codes, counts = np.unique(lab[members], return_counts=True)
         o = np.argsort(-counts, kind="stable")
         spans = ";".join(f"{area_names[c]}:{n}" for c, n in zip(codes[o], counts[o]))
-        rows.append(dict(peak=k + 1, source=int(s), vertex=int(mesh.vertices[s]),
-                         value=float(v[s]),
-                         sign=int(np.sign(signs[s])) if signs is not None else 1,
-                         x_mni152=round(float(xyz[k, 0]), 1), y_mni152=round(float(xyz[k, 1]), 1),
-                         z_mni152=round(float(xyz[k, 2]), 1), area=area_names[lab[s]],
-                         lobe=lobe_names[lab[s]], border_mm=round(float(bd[s]), 1),
-                         cluster=int(cl[s]), cluster_size=int(members.size),
-                         cluster_areas=spans))
+        rows.append(
+            dict(
+                peak=k + 1,
+                source=int(s),
+                vertex=int(mesh.vertices[s]),
+                value=float(v[s]),
+                sign=int(np.sign(signs[s])) if signs is not None else 1,
+                x_mni152=round(float(xyz[k, 0]), 1),
+                y_mni152=round(float(xyz[k, 1]), 1),
+                z_mni152=round(float(xyz[k, 2]), 1),
+                area=area_names[lab[s]],
+                lobe=lobe_names[lab[s]],
+                border_mm=round(float(bd[s]), 1),
+                cluster=int(cl[s]),
+                cluster_size=int(members.size),
+                cluster_areas=spans,
+            )
+        )
     return pd.DataFrame(rows, columns=list(PEAK_COLUMNS))

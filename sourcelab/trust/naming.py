@@ -108,8 +108,15 @@ class MatchResult:
         return float(self.area_score[area] - best)
 
 
-def match_scores(values: np.ndarray, space, peak: int, *, cand_mm: float = CAND_MM,
-                 row_step: int = ROW_STEP, power: float = POWER) -> MatchResult:
+def match_scores(
+    values: np.ndarray,
+    space,
+    peak: int,
+    *,
+    cand_mm: float = CAND_MM,
+    row_step: int = ROW_STEP,
+    power: float = POWER,
+) -> MatchResult:
     """Template-match the map around ``peak`` (see the module docstring).
 
     Parameters

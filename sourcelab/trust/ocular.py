@@ -19,8 +19,9 @@ import numpy as np
 from ..intake.ocular import OCULAR_R, ocular_templates, subspace_cosine
 
 
-def source_ocular_cosine(gain_fixed: np.ndarray, ch_pos: np.ndarray,
-                         nasion: np.ndarray) -> np.ndarray:
+def source_ocular_cosine(
+    gain_fixed: np.ndarray, ch_pos: np.ndarray, nasion: np.ndarray
+) -> np.ndarray:
     """Cosine of every source's scalp map with the ocular template subspace.
 
     Parameters
@@ -65,8 +66,9 @@ def confusable_rois(cosines: np.ndarray, rois) -> dict:
     return out
 
 
-def slow_maximum_check(roi_values: np.ndarray, rois, confusable: dict, *,
-                       band: str = "delta") -> dict:
+def slow_maximum_check(
+    roi_values: np.ndarray, rois, confusable: dict, *, band: str = "delta"
+) -> dict:
     """Where the slow-wave maximum lies and whether it is in an ocular-confusable ROI.
 
     Parameters
@@ -92,12 +94,20 @@ def slow_maximum_check(roi_values: np.ndarray, rois, confusable: dict, *,
     hit = key in confusable
     warning = None
     if hit:
-        warning = (f"the {band} maximum lies in {key[0]} ({key[1]}), an area whose scalp "
-                   f"pattern resembles eye activity at 19 electrodes (median r = "
-                   f"{confusable[key]:.2f}): it may be residual eye artefact rather than a "
-                   "cortical generator")
-    return {"band": band, "roi": key[0], "hemisphere": key[1], "confusable": hit,
-            "median_cosine": confusable.get(key), "warning": warning}
+        warning = (
+            f"the {band} maximum lies in {key[0]} ({key[1]}), an area whose scalp "
+            f"pattern resembles eye activity at 19 electrodes (median r = "
+            f"{confusable[key]:.2f}): it may be residual eye artefact rather than a "
+            "cortical generator"
+        )
+    return {
+        "band": band,
+        "roi": key[0],
+        "hemisphere": key[1],
+        "confusable": hit,
+        "median_cosine": confusable.get(key),
+        "warning": warning,
+    }
 
 
 __all__ = ["source_ocular_cosine", "confusable_rois", "slow_maximum_check"]

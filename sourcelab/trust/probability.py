@@ -103,8 +103,9 @@ def area_features(values: np.ndarray, space, area: int, own: np.ndarray) -> np.n
     best = sel[np.argmax(v[sel])]
     margin = peak_margin(v, space.codes, area, float(v[best]))
     o = float(np.clip(own[area], 1e-4, 1 - 1e-4))
-    return np.array([np.log1p(float(space.border_mm[best])), margin, np.log(sel.size),
-                     np.log(o / (1 - o))])
+    return np.array(
+        [np.log1p(float(space.border_mm[best])), margin, np.log(sel.size), np.log(o / (1 - o))]
+    )
 
 
 def predict_logistic(coef: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -126,8 +127,9 @@ def predict_logistic(coef: np.ndarray, x: np.ndarray) -> np.ndarray:
     return 0.5 * (1 + np.tanh(0.5 * eta))
 
 
-def area_probability(values: np.ndarray, space, area: int, own: np.ndarray, *, kind: str,
-                     model: dict | None = None) -> float:
+def area_probability(
+    values: np.ndarray, space, area: int, own: np.ndarray, *, kind: str, model: dict | None = None
+) -> float:
     """Calibrated probability that the generator lies in ``area`` (the named area).
 
     Parameters

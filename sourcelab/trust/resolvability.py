@@ -41,9 +41,19 @@ COVER_MM = 45.0
 #: Fraction of an area that makes it "mostly" (medial wall, far from the electrodes).
 MOSTLY = 0.5
 
-RESOLVABILITY_COLUMNS = ("area", "n_template", "n_cortex", "medial_wall_fraction",
-                         "own_share_left", "own_share_right", "own_share", "far_fraction",
-                         "min_hemisphere_sources", "resolvable", "reason")
+RESOLVABILITY_COLUMNS = (
+    "area",
+    "n_template",
+    "n_cortex",
+    "medial_wall_fraction",
+    "own_share_left",
+    "own_share_right",
+    "own_share",
+    "far_fraction",
+    "min_hemisphere_sources",
+    "resolvable",
+    "reason",
+)
 
 
 def own_shares(space) -> np.ndarray:
@@ -70,8 +80,9 @@ def own_shares(space) -> np.ndarray:
     return out
 
 
-def resolvability_table(space, ch_pos: np.ndarray, src_pos: np.ndarray, *,
-                        own: np.ndarray | None = None):
+def resolvability_table(
+    space, ch_pos: np.ndarray, src_pos: np.ndarray, *, own: np.ndarray | None = None
+):
     """Apply the module's rule to every Brodmann area.
 
     Parameters
@@ -116,16 +127,29 @@ def resolvability_table(space, ch_pos: np.ndarray, src_pos: np.ndarray, *,
         if wall > MOSTLY:
             reason.append(f"medial wall {wall:.0%}")
         if low and far_frac > MOSTLY:
-            reason.append(f"own-share {o_mean:.1%} < 5 % and {far_frac:.0%} of sources "
-                          f"> {COVER_MM:g} mm from every electrode")
+            reason.append(
+                f"own-share {o_mean:.1%} < 5 % and {far_frac:.0%} of sources "
+                f"> {COVER_MM:g} mm from every electrode"
+            )
         if low and min(per_h) < SMALL_MIN_VERTICES and wall <= MOSTLY:
-            reason.append(f"own-share {o_mean:.1%} < 5 % and {min(per_h)} sources in a "
-                          "hemisphere (< 50)")
-        rows.append(dict(area=space.names[k], n_template=n_t, n_cortex=n_c,
-                         medial_wall_fraction=round(wall, 3), own_share_left=o[0],
-                         own_share_right=o[1], own_share=o_mean,
-                         far_fraction=far_frac, min_hemisphere_sources=min(per_h),
-                         resolvable=not reason, reason="; ".join(reason)))
+            reason.append(
+                f"own-share {o_mean:.1%} < 5 % and {min(per_h)} sources in a hemisphere (< 50)"
+            )
+        rows.append(
+            dict(
+                area=space.names[k],
+                n_template=n_t,
+                n_cortex=n_c,
+                medial_wall_fraction=round(wall, 3),
+                own_share_left=o[0],
+                own_share_right=o[1],
+                own_share=o_mean,
+                far_fraction=far_frac,
+                min_hemisphere_sources=min(per_h),
+                resolvable=not reason,
+                reason="; ".join(reason),
+            )
+        )
     return pd.DataFrame(rows, columns=list(RESOLVABILITY_COLUMNS))
 
 
@@ -146,8 +170,9 @@ def unresolvable_codes(space, table) -> np.ndarray:
         right codes of the same area both included).
     """
     bad = set(table.loc[~table["resolvable"], "area"])
-    return np.array([c for c in range(1, len(space.names)) if space.names[c] in bad],
-                    dtype=np.int64)
+    return np.array(
+        [c for c in range(1, len(space.names)) if space.names[c] in bad], dtype=np.int64
+    )
 
 
 @functools.lru_cache(maxsize=4)
