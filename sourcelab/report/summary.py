@@ -182,7 +182,8 @@ def _quality(result) -> tuple:
             f"Split-half reliability of sensor band power: lowest {sh[lo_band]:.2f} ({lo_band})."
         )
     flagged = [
-        f"{'sensors' if lvl == 'sensors' else lvl + ' areas'} in {', '.join(r['flagged_bands'])}"
+        f"{'sensors' if lvl == 'sensors' else lvl.capitalize() + ' areas'} in "
+        f"{', '.join(r['flagged_bands'])}"
         for lvl, r in rel.items()
         if r.get("flagged_bands")
     ]
