@@ -6,7 +6,10 @@ os.environ.setdefault("MPLBACKEND", "Agg")
 if os.environ.get("PYTEST_XDIST_WORKER"):
     # One BLAS/OpenMP thread per test worker: the workers already fill the cores, and idle BLAS
     # threads spinning against each other make small products seconds slow on a busy machine.
-    for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    # (The batch engines' list of thread variables; importing it loads no numpy.)
+    from sourcelab.batch.engines import THREAD_ENV
+
+    for _var in THREAD_ENV:
         os.environ.setdefault(_var, "1")
     # ... and the output writer draws figures in the worker itself (no pool per worker); the
     # parallel drawing is tested explicitly (result_figures(n_jobs=2)).
