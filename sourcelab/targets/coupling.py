@@ -40,19 +40,35 @@ Pascual-Marqui RD (2007).  arXiv:0706.1776 (lagged coherence; from memory).
 
 from __future__ import annotations
 
-import json
 import math
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
 
 from ..cautions import CAUTIONS
-from ..constants import SITES_1020
 from ..errors import InputError
 from ..provenance import Fingerprint
-from .definition import SCHEMA, analysis_norms
+from .definition import (
+    SCHEMA,
+    TargetFile,
+    analysis_reject_uv,
+    checked_channels,
+    direction_of,
+    finite_or_none,
+    norm_row,
+    offline_section,
+    target_norm,
+    utc_stamp,
+)
+from .replay import (
+    chunk_array,
+    draw_z_panel,
+    push_in_chunks,
+    replay_input,
+    shade_unclean,
+    write_replay,
+)
 
 #: Target kinds of this module.
 KINDS = ("pair", "edge")
@@ -84,7 +100,7 @@ FORMULA_NOTE = (
 
 
 @dataclass(frozen=True, eq=False)
-class CouplingTarget:
+class CouplingTarget(TargetFile):
     """One pair or edge target (``SCHEMA.md``).
 
     Attributes
@@ -135,13 +151,6 @@ class CouplingTarget:
     reject_uv: float = 150.0
     details: dict = field(default_factory=dict)
     created_utc: str = ""
-
-    @property
-    def band_edges(self) -> tuple[float, float]:
-        for name, lo, hi in self.bands:
-            if name == self.band:
-                return lo, hi
-        raise InputError(f"band {self.band!r} is not among {[b[0] for b in self.bands]}")
 
     @property
     def min_clean_segments(self) -> int:
@@ -203,16 +212,6 @@ class CouplingTarget:
             "cautions": list(CAUTIONS),
         }
 
-    def to_json(self) -> str:
-        """:meth:`to_dict` as indented JSON text (UTF-8 characters kept).
-
-        Returns
-        -------
-        str
-            Indented JSON text of the target file.
-        """
-        return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
-
 
 def coupling_target_from_dict(
     d: dict, *, path="target", current: Fingerprint | None = None, check_fingerprint: bool = True
@@ -249,12 +248,7 @@ def coupling_target_from_dict(
 
     kind = d.get("kind")
     try:
-        channels = tuple(str(c) for c in d["channels"])
-        if channels != SITES_1020:
-            raise bad(
-                f"channels {list(channels)} differ from the 19 sites in sourcelab order "
-                f"{list(SITES_1020)}"
-            )
+        channels = checked_channels(d, bad)
         node, cp, band = d[kind], d["coupling"], d["band"]
         measure = str(d["measure"])
         allowed = set(BAND_MEASURES) | ({"asymmetry"} if kind == "pair" else {"aec_orth"})
@@ -444,11 +438,7 @@ class OnlineCoupling:
         """
         from scipy.signal import sosfilt
 
-        chunk = np.asarray(chunk, dtype=float)
-        if chunk.ndim != 2 or chunk.shape[0] != len(self.target.channels):
-            raise InputError(
-                f"chunk: need shape ({len(self.target.channels)}, n_samples), got {chunk.shape}"
-            )
+        chunk = chunk_array(chunk, len(self.target.channels))
         if chunk.shape[1] == 0:
             return []
         if self._zi is None:
@@ -563,13 +553,9 @@ def replay_coupling_array(
 
     Parameters
     ----------
-    data_uv : ndarray, shape (19, n_times)
-        µV, channels in ``target.channels`` order, any reference.
-    sfreq : float
-        Hz.
+    data_uv, sfreq, chunk_s
+        As in :func:`sourcelab.targets.replay.replay_array`: µV (19, n_times), Hz, s.
     target : CouplingTarget
-    chunk_s : float
-        Processing chunk (affects speed only).
 
     Returns
     -------
@@ -578,10 +564,7 @@ def replay_coupling_array(
     """
     data_uv = np.asarray(data_uv, dtype=float)
     tracker = OnlineCoupling(target, sfreq)
-    n = max(1, int(round(chunk_s * sfreq)))
-    rows = []
-    for start in range(0, data_uv.shape[1], n):
-        rows += tracker.push(data_uv[:, start : start + n])
+    rows = push_in_chunks(tracker, data_uv, max(1, int(round(chunk_s * sfreq))))
     if not rows:
         raise InputError(f"recording shorter than one {target.segment_s:g}-s segment")
     t, v, z, k, c = (np.array(x) for x in zip(*rows))
@@ -637,32 +620,18 @@ def plot_coupling_replay(result: CouplingReplay, target: CouplingTarget, *, figu
         f"{target.name}: {target.segment_s:g}-s segments, window of {target.window_segments}"
     )
     ax_v.legend(loc="upper right", fontsize=8)
-    ax_z.plot(result.time_s, result.z, lw=0.9, color="0.2", marker=".", ms=3)
-    ax_z.axhline(0, color="0.5", lw=0.5)
-    for lim in (-1.96, 1.96):
-        ax_z.axhline(lim, ls=":", color="0.5", lw=0.8)
-    if target.norm is None:
-        ax_z.text(
-            0.5,
-            0.5,
-            "no norm in this target: z not available",
-            ha="center",
-            va="center",
-            transform=ax_z.transAxes,
-            color="0.4",
-        )
-    ax_z.set_ylabel("z (window)")
-    ax_z.set_xlabel("time (s, segment end)")
-    for ax in (ax_v, ax_z):
-        ax.fill_between(
-            result.time_s,
-            0,
-            1,
-            where=~result.clean,
-            color="0.85",
-            step="pre",
-            transform=ax.get_xaxis_transform(),
-        )
+    draw_z_panel(
+        ax_z,
+        result.time_s,
+        result.z,
+        target.norm,
+        ylabel="z (window)",
+        xlabel="time (s, segment end)",
+        lw=0.9,
+        marker=".",
+        ms=3,
+    )
+    shade_unclean((ax_v, ax_z), result.time_s, result.clean)
     return fig
 
 
@@ -691,17 +660,8 @@ def replay_coupling_recording(target: CouplingTarget, recording, out: str | Path
     InputError
         For a recording with other channels or shorter than one segment.
     """
-    from ..intake import Recording, read_recording
-    from ..provenance import atomic_output_dir
-
-    rec = recording if isinstance(recording, Recording) else read_recording(recording)
-    raw = rec.raw
-    if tuple(raw.ch_names) != tuple(target.channels):
-        raise InputError(
-            f"recording channels {raw.ch_names} differ from the target's {list(target.channels)}",
-            path=rec.path,
-        )
-    res = replay_coupling_array(raw.get_data() * 1e6, rec.sfreq, target)
+    rec = replay_input(target, recording)
+    res = replay_coupling_array(rec.raw.get_data() * 1e6, rec.sfreq, target)
     off = target.offline.get("value")
     finite = np.isfinite(res.value)
     summary = {
@@ -721,19 +681,7 @@ def replay_coupling_recording(target: CouplingTarget, recording, out: str | Path
         "window_segments": target.window_segments,
         "segment_s": target.segment_s,
     }
-    out = Path(out)
-    with atomic_output_dir(out) as tmp:
-        res.to_frame().to_csv(
-            tmp / "replay.tsv", sep="\t", index=False, na_rep="", float_format="%.6g"
-        )
-        plot_coupling_replay(res, target).savefig(tmp / "replay.png", dpi=100)
-        clean_summary = {
-            k: (None if isinstance(v, float) and not np.isfinite(v) else v)
-            for k, v in summary.items()
-        }  # strict JSON: no NaN
-        (tmp / "replay.json").write_text(
-            json.dumps(clean_summary, indent=2, allow_nan=False), encoding="utf-8"
-        )
+    write_replay(out, res.to_frame(), plot_coupling_replay(res, target), summary)
     return summary
 
 
@@ -796,13 +744,6 @@ def _select_edge(t, label: str, atlas: str | None):
     return hit
 
 
-def _finite(v) -> bool:
-    try:
-        return v is not None and bool(np.isfinite(float(v)))
-    except (TypeError, ValueError):
-        return False
-
-
 def export_coupling_target(
     result_dir: str | Path,
     *,
@@ -832,11 +773,8 @@ def export_coupling_target(
         Default ``msc`` for pairs, ``lagcoh`` for edges.
     atlas : str, optional
         The edge's atlas (needed when the edge's ROI names exist in several).
-    norms : path | Norms, optional
-        Default: the norms file recorded in the folder's provenance (its sha256 must match).
-    allow_extrapolation : bool
-        Accept a participant age outside the norms' age range (the nearest covered age is
-        used and the norm is marked ``extrapolated``).
+    norms, allow_extrapolation
+        As in :func:`sourcelab.targets.definition.export_target`.
     window_segments : int
         Segments of the feedback window (default 15: 30 s of 2-s segments).
 
@@ -853,7 +791,7 @@ def export_coupling_target(
     """
     from ..headmodel import load_head_model
     from .candidates import read_result_folder
-    from .definition import DIRECTIONS, _current_fingerprint_check
+    from .definition import _current_fingerprint_check
 
     if kind not in KINDS:
         raise InputError(f"kind: {kind!r} is not one of {KINDS}")
@@ -912,35 +850,19 @@ def export_coupling_target(
             "vertices_b": model.vertno[f.vertices[ib]].tolist(),
         }
         item_label = str(row["edge"])
-    prov = res.provenance
-    rec = prov.get("recording", {})
-    params = prov.get("parameters", {})
-    z = float(row["z"]) if _finite(row.get("z")) else None
-    norm = None
-    nm, age = analysis_norms(res, norms)
-    if nm is not None:
-        norm = coupling_norm_at_age(
-            nm,
-            kind=kind,
-            label=item_label,
-            atlas=at_name,
-            band=band,
-            measure=measure,
-            age=age,
-            fingerprint=fp,
-            condition=rec.get("condition"),
-            allow_extrapolation=allow_extrapolation,
-        )
-    offline = {
-        "value": float(row["value"]),
-        "z": z,
-        "value_lo": float(row["value_lo"]) if _finite(row.get("value_lo")) else None,
-        "value_hi": float(row["value_hi"]) if _finite(row.get("value_hi")) else None,
-        "n_epochs": int(row["n_epochs"]),
-        "result_dir": str(res.path),
-        "recording_sha256": rec.get("sha256"),
-    }
-    direction = "none" if z is None or z == 0 else DIRECTIONS[int(np.sign(z))]
+    norm = target_norm(
+        res,
+        norms,
+        coupling_norm_at_age,
+        kind=kind,
+        label=item_label,
+        atlas=at_name,
+        band=band,
+        measure=measure,
+        allow_extrapolation=allow_extrapolation,
+    )
+    interval = {k: finite_or_none(row.get(k)) for k in ("value_lo", "value_hi")}
+    offline = offline_section(res, row, {**interval, "n_epochs": int(row["n_epochs"])})
     name = (
         f"pair {item_label} {band} {measure}"
         if kind == "pair"
@@ -962,10 +884,10 @@ def export_coupling_target(
         fingerprint=fp,
         norm=norm,
         offline=offline,
-        direction=direction,
-        reject_uv=float(params.get("reject_uv", 150.0)),
+        direction=direction_of(offline["z"]),
+        reject_uv=analysis_reject_uv(res),
         details=details,
-        created_utc=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        created_utc=utc_stamp(),
     )
 
 
@@ -984,7 +906,8 @@ def coupling_norm_at_age(
 ) -> dict:
     """The norm of one pair / edge quantity at ``age``.
 
-    Row selection is :func:`sourcelab.norms.match_norms`'s (fingerprint, condition, age range).
+    The pair / edge counterpart of :func:`sourcelab.targets.definition.norm_at_age` (the same
+    row selection).
 
     Parameters
     ----------
@@ -1016,32 +939,15 @@ def coupling_norm_at_age(
     InputError
         If the norms have no row for the quantity.
     """
-    import pandas as pd
-
-    from ..norms import match_norms
-
-    where = norms.path if norms.path is not None else "norms"
-    one = {"band": [band], "measure": [measure]}
-    one.update({"pair": [label]} if kind == "pair" else {"atlas": [atlas], "edge": [label]})
-    rows = match_norms(
-        pd.DataFrame(one),
+    one = {"band": band, "measure": measure}
+    one.update({"pair": label} if kind == "pair" else {"atlas": atlas, "edge": label})
+    return norm_row(
         norms,
+        one,
+        what=f"{kind} row for {label} {band} {measure}",
         age=age,
         fingerprint=fingerprint,
         condition=condition,
         allow_extrapolation=allow_extrapolation,
-        allow_condition_mismatch=True,
         kind=kind,
     )
-    if not rows.has[0]:
-        raise InputError(f"norms have no {kind} row for {label} {band} {measure}", path=where)
-    return {
-        "mean": float(rows.mean[0]),
-        "sd": float(rows.sd[0]),
-        "transform": str(rows.transform[0]),
-        "age": float(age),
-        "n": int(rows.n[0]),
-        "extrapolated": bool(rows.extrapolated[0]),
-        "norms_sha256": norms.sha256,
-        "condition": norms.condition,
-    }

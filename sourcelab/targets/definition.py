@@ -131,8 +131,114 @@ def group_delay_s(sos: np.ndarray, sfreq: float, freq: float) -> float:
     return float(-(ph[1] - ph[0]) / (2 * np.pi * 2 * df))
 
 
+def band_edges(bands, band: str) -> tuple[float, float]:
+    """Edges of one band in a target's band list.
+
+    Parameters
+    ----------
+    bands : sequence of (str, float, float)
+        Every analysed band ``(name, lo, hi)``, Hz.
+    band : str
+        The band looked up.
+
+    Returns
+    -------
+    (float, float)
+        Its low and high edge, Hz.
+
+    Raises
+    ------
+    InputError
+        If ``band`` is not in ``bands``.
+    """
+    for name, lo, hi in bands:
+        if name == band:
+            return lo, hi
+    raise InputError(f"band {band!r} is not among {[b[0] for b in bands]}")
+
+
+def utc_stamp() -> str:
+    """The current time as a target file's ``created_utc`` (ISO 8601, seconds, ``Z``).
+
+    Returns
+    -------
+    str
+        E.g. ``"2026-01-31T12:00:00Z"``.
+    """
+    return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def direction_of(z: float | None) -> str:
+    """The direction to train for an offline z: towards the norm mean.
+
+    Parameters
+    ----------
+    z : float or None
+        The offline z-score.
+
+    Returns
+    -------
+    {"decrease", "increase", "none"}
+        ``"none"`` without a finite, non-zero z.
+    """
+    if z is None or not np.isfinite(z) or z == 0:
+        return "none"
+    return DIRECTIONS[int(np.sign(z))]
+
+
+class TargetFile:
+    """What every target kind (area, pair, edge) shares: band edges and the JSON text.
+
+    Subclasses are dataclasses with ``band``, ``bands`` and a ``to_dict()`` method.
+    """
+
+    @property
+    def band_edges(self) -> tuple[float, float]:
+        """Edges of the trained band, Hz (:func:`band_edges`)."""
+        return band_edges(self.bands, self.band)
+
+    def to_json(self) -> str:
+        """:meth:`to_dict` as indented JSON text (UTF-8 characters kept).
+
+        Returns
+        -------
+        str
+            Indented JSON text of the target file.
+        """
+        return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
+
+
+def checked_channels(d: dict, bad) -> tuple[str, ...]:
+    """The ``channels`` of a parsed target, which must be the 19 sites in sourcelab order.
+
+    Parameters
+    ----------
+    d : dict
+        Parsed target JSON.
+    bad : callable
+        ``bad(message)`` returns the exception to raise (naming the file).
+
+    Returns
+    -------
+    tuple of str
+        :data:`sourcelab.constants.SITES_1020`.
+
+    Raises
+    ------
+    InputError
+        (from ``bad``) for any other channel list; KeyError without ``channels``.
+    """
+    channels = tuple(str(c) for c in d["channels"])
+    if channels != SITES_1020:
+        raise bad(
+            f"channels {list(channels)} differ from the 19 sites in sourcelab order "
+            f"{list(SITES_1020)}"
+        )
+    return channels
+
+
 @dataclass(frozen=True, eq=False)
-class TargetDefinition:
+class TargetDefinition(TargetFile):
     """One training target (see ``SCHEMA.md`` for the JSON layout).
 
     Attributes
@@ -200,13 +306,6 @@ class TargetDefinition:
     created_utc: str = ""
     filter_order: int = FILTER_ORDER
     live: dict | None = None
-
-    @property
-    def band_edges(self) -> tuple[float, float]:
-        for name, lo, hi in self.bands:
-            if name == self.band:
-                return lo, hi
-        raise InputError(f"band {self.band!r} is not among {[b[0] for b in self.bands]}")
 
     def sos_for(self, sfreq: float) -> dict[str, np.ndarray]:
         """Band-pass sections for a sampling rate (the stored ones when it matches).
@@ -293,16 +392,6 @@ class TargetDefinition:
             **({"live": self.live} if self.live is not None else {}),
             "cautions": list(CAUTIONS),
         }
-
-    def to_json(self) -> str:
-        """:meth:`to_dict` as indented JSON text (UTF-8 characters kept).
-
-        Returns
-        -------
-        str
-            Indented JSON text of the target file.
-        """
-        return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
 
 
 def write_target(target, path: str | Path) -> Path:
@@ -396,12 +485,7 @@ def target_from_dict(
     if kind != "area":
         raise bad(f"kind {kind!r} is not one of area, pair, edge")
     try:
-        channels = tuple(str(c) for c in d["channels"])
-        if channels != SITES_1020:
-            raise bad(
-                f"channels {list(channels)} differ from the 19 sites in sourcelab order "
-                f"{list(SITES_1020)}"
-            )
+        channels = checked_channels(d, bad)
         roi, band, sf, flt = d["roi"], d["band"], d["spatial_filter"], d["filter"]
         bands = tuple((str(b[0]), float(b[1]), float(b[2])) for b in d["bands"])
         measure = str(d["measure"])
@@ -663,9 +747,7 @@ def make_target(
     sos = {
         b: butter_sos(lo, hi, sfreq, order=int(filter_order)) for b, lo, hi in bands if b in need
     }
-    direction = "none"
-    if z is not None and np.isfinite(z) and z != 0:
-        direction = DIRECTIONS[int(np.sign(z))]
+    direction = direction_of(z)
     return TargetDefinition(
         name=f"{atlas} {roi} {hemisphere} {band} {measure}",
         channels=SITES_1020,
@@ -689,7 +771,7 @@ def make_target(
         direction=direction,
         reject_uv=float(reject_uv),
         small=bool(small),
-        created_utc=datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        created_utc=utc_stamp(),
         filter_order=int(filter_order),
     )
 
@@ -736,38 +818,57 @@ def norm_at_age(
     InputError
         If the norms have no row for the quantity.
     """
+    return norm_row(
+        norms,
+        {"atlas": atlas, "roi": roi, "hemisphere": hemisphere, "band": band, "measure": measure},
+        what=f"row for {atlas} {roi} {hemisphere} {band} {measure}",
+        age=age,
+        fingerprint=fingerprint,
+        condition=condition,
+        allow_extrapolation=allow_extrapolation,
+    )
+
+
+def norm_row(norms, quantity: dict, *, what: str, kind: str = "roi", **match) -> dict:
+    """The norm of one table row at ``age`` (:func:`sourcelab.norms.match_norms`'s selection).
+
+    Parameters
+    ----------
+    norms : Norms
+    quantity : dict of str to str
+        The row's key columns (e.g. ``atlas, roi, hemisphere, band, measure``).
+    what : str
+        The row as named in the error message (``"norms have no " + what``).
+    kind : {"roi", "pair", "edge"}
+        The norms table kind of ``quantity``.
+    **match
+        ``age`` (years, required), ``fingerprint`` (required), ``condition`` and
+        ``allow_extrapolation``, as in :func:`norm_at_age`.
+
+    Returns
+    -------
+    dict
+        As :func:`norm_at_age`.
+
+    Raises
+    ------
+    InputError
+        If the norms have no row for the quantity.
+    """
     import pandas as pd
 
     from ..norms import match_norms
 
     where = norms.path if norms.path is not None else "norms"
-    one = pd.DataFrame(
-        {
-            "atlas": [atlas],
-            "roi": [roi],
-            "hemisphere": [hemisphere],
-            "band": [band],
-            "measure": [measure],
-        }
-    )
-    rows = match_norms(
-        one,
-        norms,
-        age=age,
-        fingerprint=fingerprint,
-        condition=condition,
-        allow_extrapolation=allow_extrapolation,
-        allow_condition_mismatch=True,
-    )
+    table = pd.DataFrame({k: [v] for k, v in quantity.items()})
+    rows = match_norms(table, norms, allow_condition_mismatch=True, kind=kind, **match)
     if not rows.has[0]:
-        raise InputError(
-            f"norms have no row for {atlas} {roi} {hemisphere} {band} {measure}", path=where
-        )
+        raise InputError(f"norms have no {what}", path=where)
     return {
         "mean": float(rows.mean[0]),
         "sd": float(rows.sd[0]),
         "transform": str(rows.transform[0]),
-        "age": float(age),
+        "age": float(match["age"]),
         "n": int(rows.n[0]),
         "extrapolated": bool(rows.extrapolated[0]),
         "norms_sha256": norms.sha256,
@@ -818,6 +919,84 @@ def analysis_norms(res, norms=None):
             "the analysis has no participant age; the norm cannot be set", path=res.path
         )
     return nm, float(age)
+
+
+def target_norm(res, norms, norm_of, *, allow_extrapolation: bool = False, **quantity):
+    """The norm of one quantity at the participant's age, from the analysis' norms.
+
+    Parameters
+    ----------
+    res : AnalysisFolder
+        The analysis read back from its folder.
+    norms : str | Path | Norms | None
+        As in :func:`analysis_norms`.
+    norm_of : callable
+        :func:`norm_at_age` or :func:`sourcelab.targets.coupling.coupling_norm_at_age`.
+    allow_extrapolation : bool
+        Accept a participant age outside the norms' age range.
+    **quantity
+        The quantity's keywords for ``norm_of`` (atlas, roi, band, measure...).
+
+    Returns
+    -------
+    dict | None
+        From ``norm_of`` at the recorded age and condition; None when the analysis had no norms
+        and none are given.
+    """
+    nm, age = analysis_norms(res, norms)
+    if nm is None:
+        return None
+    return norm_of(
+        nm,
+        age=age,
+        fingerprint=res.fingerprint,
+        condition=res.provenance.get("recording", {}).get("condition"),
+        allow_extrapolation=allow_extrapolation,
+        **quantity,
+    )
+
+
+def offline_section(res, row, extra: dict | None = None) -> dict:
+    """The ``offline`` section of a target: the analysed row's value and z, and where it came from.
+
+    Parameters
+    ----------
+    res : AnalysisFolder
+        The analysis read back from its folder.
+    row : pandas.Series
+        The table row of the target's quantity (``value``, ``z``).
+    extra : dict, optional
+        Further entries, placed after ``z``.
+
+    Returns
+    -------
+    dict
+        ``value``, ``z`` (None when missing or not finite), ``extra``, ``result_dir`` and
+        ``recording_sha256``.
+    """
+    return {
+        "value": float(row["value"]),
+        "z": finite_or_none(row.get("z")),
+        **(extra or {}),
+        "result_dir": str(res.path),
+        "recording_sha256": res.provenance.get("recording", {}).get("sha256"),
+    }
+
+
+def analysis_reject_uv(res) -> float:
+    """The analysis' peak-to-peak rejection threshold, µV (150 when not recorded).
+
+    Parameters
+    ----------
+    res : AnalysisFolder
+        The analysis read back from its folder.
+
+    Returns
+    -------
+    float
+        ``parameters.reject_uv`` of its provenance.
+    """
+    return float(res.provenance.get("parameters", {}).get("reject_uv", 150.0))
 
 
 def export_target(
@@ -910,31 +1089,19 @@ def export_target(
         raise InputError(f"atlas {atlas} has no ROI {roi} ({hemisphere})")
     r = match[0]
     op = inverse_operator(fp.method, fp.orientation, fp.lambda2)
-    prov = res.provenance
-    rec = prov.get("recording", {})
-    params = prov.get("parameters", {})
-    z = float(row["z"]) if _finite(row.get("z")) else None
-    norm = None
-    nm, age = analysis_norms(res, norms)
-    if nm is not None:
-        norm = norm_at_age(
-            nm,
-            atlas=atlas,
-            roi=roi,
-            hemisphere=hemisphere,
-            band=band,
-            measure=measure,
-            age=age,
-            fingerprint=fp,
-            condition=rec.get("condition"),
-            allow_extrapolation=allow_extrapolation,
-        )
-    offline = {
-        "value": float(row["value"]),
-        "z": z,
-        "result_dir": str(res.path),
-        "recording_sha256": rec.get("sha256"),
-    }
+    rec = res.provenance.get("recording", {})
+    norm = target_norm(
+        res,
+        norms,
+        norm_at_age,
+        atlas=atlas,
+        roi=roi,
+        hemisphere=hemisphere,
+        band=band,
+        measure=measure,
+        allow_extrapolation=allow_extrapolation,
+    )
+    offline = offline_section(res, row)
     target = make_target(
         kernel=op.kernel,
         n_comp=op.n_comp,
@@ -950,8 +1117,8 @@ def export_target(
         sfreq=float(rec.get("sfreq") or 256.0),
         norm=norm,
         offline=offline,
-        z=z,
-        reject_uv=float(params.get("reject_uv", 150.0)),
+        z=offline["z"],
+        reject_uv=analysis_reject_uv(res),
         small=bool(r.small),
         filter_order=filter_order,
     )
@@ -979,8 +1146,20 @@ def export_target(
     return dataclasses.replace(target, live=live)
 
 
-def _finite(v) -> bool:
+def finite_or_none(v) -> float | None:
+    """``float(v)`` when ``v`` is a finite number, else None.
+
+    Parameters
+    ----------
+    v : object
+        A table cell (number, NaN, None, text).
+
+    Returns
+    -------
+    float or None
+    """
     try:
-        return v is not None and bool(np.isfinite(float(v)))
+        f = None if v is None else float(v)
     except (TypeError, ValueError):
-        return False
+        return None
+    return f if f is not None and math.isfinite(f) else None

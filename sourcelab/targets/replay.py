@@ -58,6 +58,168 @@ def _zscore(power: np.ndarray, norm: dict | None) -> np.ndarray:
     return out
 
 
+# --------------------------------------------------------------------------------------------
+# plumbing shared by the area replay (here) and the pair / edge replay (coupling.py)
+
+
+def chunk_array(chunk, n_channels: int) -> np.ndarray:
+    """A chunk pushed into an online target, checked.
+
+    Parameters
+    ----------
+    chunk : array-like, shape (n_channels, n_samples)
+        µV, channels in the target's order.
+    n_channels : int
+        Channels of the target.
+
+    Returns
+    -------
+    ndarray of float, shape (n_channels, n_samples)
+
+    Raises
+    ------
+    InputError
+        For a chunk of another shape.
+    """
+    chunk = np.asarray(chunk, dtype=float)
+    if chunk.ndim != 2 or chunk.shape[0] != n_channels:
+        raise InputError(f"chunk: need shape ({n_channels}, n_samples), got {chunk.shape}")
+    return chunk
+
+
+def push_in_chunks(tracker, data_uv: np.ndarray, n: int) -> list:
+    """Feed a whole array to an online target in chunks of ``n`` samples.
+
+    Parameters
+    ----------
+    tracker : OnlineTarget | sourcelab.targets.coupling.OnlineCoupling
+        Anything with ``push(chunk) -> list of rows``.
+    data_uv : ndarray, shape (19, n_times)
+        µV, channels in the target's order.
+    n : int
+        Samples per chunk.
+
+    Returns
+    -------
+    list
+        Every row ``push`` returned, in order.
+    """
+    rows = []
+    for start in range(0, data_uv.shape[1], n):
+        rows += tracker.push(data_uv[:, start : start + n])
+    return rows
+
+
+def replay_input(target, recording):
+    """The recording a target is replayed on, with the target's channels.
+
+    Parameters
+    ----------
+    target : TargetDefinition | sourcelab.targets.coupling.CouplingTarget
+    recording : str | Path | sourcelab.intake.Recording
+        A read recording or a file for :func:`sourcelab.intake.read_recording`.
+
+    Returns
+    -------
+    sourcelab.intake.Recording
+
+    Raises
+    ------
+    InputError
+        For a recording whose channels are not ``target.channels`` (in order).
+    """
+    from ..intake import Recording, read_recording
+
+    rec = recording if isinstance(recording, Recording) else read_recording(recording)
+    raw = rec.raw
+    if tuple(raw.ch_names) != tuple(target.channels):
+        raise InputError(
+            f"recording channels {raw.ch_names} differ from the target's {list(target.channels)}",
+            path=rec.path,
+        )
+    return rec
+
+
+def draw_z_panel(ax, time_s, z, norm, *, ylabel: str, xlabel: str, **line) -> None:
+    """The z panel of a replay figure: z over time, 0 and ±1.96, a note without a norm.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        Axes to draw into.
+    time_s, z : ndarray, shape (n_rows,)
+        Row end times (s) and z-scores.
+    norm : dict | None
+        The target's norm (None: the panel says z is not available).
+    ylabel, xlabel : str
+        Axis labels.
+    **line
+        Style of the z line (``lw``, ``marker``...), in gray.
+    """
+    ax.plot(time_s, z, color="0.2", **line)
+    ax.axhline(0, color="0.5", lw=0.5)
+    for lim in (-1.96, 1.96):
+        ax.axhline(lim, ls=":", color="0.5", lw=0.8)
+    if norm is None:
+        ax.text(
+            0.5,
+            0.5,
+            "no norm in this target: z not available",
+            ha="center",
+            va="center",
+            transform=ax.transAxes,
+            color="0.4",
+        )
+    ax.set_ylabel(ylabel)
+    ax.set_xlabel(xlabel)
+
+
+def shade_unclean(axes, time_s, clean) -> None:
+    """Shade the unclean rows of a replay on every panel (full height, gray).
+
+    Parameters
+    ----------
+    axes : iterable of matplotlib.axes.Axes
+    time_s : ndarray, shape (n_rows,)
+        Row end times, s.
+    clean : ndarray of bool, shape (n_rows,)
+    """
+    for ax in axes:
+        ax.fill_between(
+            time_s,
+            0,
+            1,
+            where=~np.asarray(clean, dtype=bool),
+            color="0.85",
+            step="pre",
+            transform=ax.get_xaxis_transform(),
+        )
+
+
+def write_replay(out, frame, fig, summary: dict, **folder) -> None:
+    """Write a replay's ``replay.tsv``, ``replay.png`` and ``replay.json`` into ``out``, atomically.
+
+    Parameters
+    ----------
+    out : str | Path
+        Output folder (new, or an earlier sourcelab output, replaced).
+    frame : DataFrame
+        One row per replay step or segment.
+    fig : matplotlib.figure.Figure
+        The replay figure.
+    summary : dict
+        Written as JSON (NaN as null).
+    **folder
+        Passed to :func:`sourcelab.provenance.atomic_output_dir` (``kind``, ``inputs``).
+    """
+    from ..provenance import atomic_output_dir, dumps_json
+
+    with atomic_output_dir(Path(out), **folder) as tmp:
+        frame.to_csv(tmp / "replay.tsv", sep="\t", index=False, na_rep="", float_format="%.6g")
+        fig.savefig(tmp / "replay.png", dpi=100)
+        (tmp / "replay.json").write_text(dumps_json(summary, indent=2), encoding="utf-8")
+
+
 class OnlineTarget:
     """Streaming, causal ROI band power of one target.
 
@@ -152,11 +314,7 @@ class OnlineTarget:
         InputError
             For a chunk of the wrong shape.
         """
-        chunk = np.asarray(chunk, dtype=float)
-        if chunk.ndim != 2 or chunk.shape[0] != len(self.target.channels):
-            raise InputError(
-                f"chunk: need shape ({len(self.target.channels)}, n_samples), got {chunk.shape}"
-            )
+        chunk = chunk_array(chunk, len(self.target.channels))
         data = np.concatenate([self._pending, chunk], axis=1)
         n_full = data.shape[1] // self.step
         self._pending = data[:, n_full * self.step :]
@@ -296,10 +454,8 @@ def replay_array(
     """
     data_uv = np.asarray(data_uv, dtype=float)
     tracker = OnlineTarget(target, sfreq)
-    rows = []
     n = max(tracker.step, int(round(chunk_s * sfreq)) // tracker.step * tracker.step)
-    for start in range(0, data_uv.shape[1], n):
-        rows += tracker.push(data_uv[:, start : start + n])
+    rows = push_in_chunks(tracker, data_uv, n)
     if not rows:
         raise InputError(f"recording shorter than one {target.step_s:g}-s step")
     from .live import LiveValue
@@ -421,34 +577,16 @@ def plot_replay(result: ReplayResult, target: TargetDefinition, *, figure=None):
     ax_p.set_ylabel(f"{target.measure} power")
     ax_p.set_title(f"{target.name}: {target.window_s:g}-s windows every {target.step_s:g} s")
     ax_p.legend(loc="upper right", fontsize=8)
-    ax_z.plot(result.time_s, result.z, lw=0.8, color="0.2")
-    ax_z.axhline(0, color="0.5", lw=0.5)
-    for lim in (-1.96, 1.96):
-        ax_z.axhline(lim, ls=":", color="0.5", lw=0.8)
-    if target.norm is None:
-        ax_z.text(
-            0.5,
-            0.5,
-            "no norm in this target: z not available",
-            ha="center",
-            va="center",
-            transform=ax_z.transAxes,
-            color="0.4",
-        )
-    ax_z.set_ylabel("z")
-    ax_z.set_xlabel("time (s, window end)")
-    bad = ~result.clean
-    for ax in (ax_p, ax_z):
-        ax.fill_between(
-            result.time_s,
-            0,
-            1,
-            where=bad,
-            color="0.85",
-            step="pre",
-            transform=ax.get_xaxis_transform(),
-            label=None,
-        )
+    draw_z_panel(
+        ax_z,
+        result.time_s,
+        result.z,
+        target.norm,
+        ylabel="z",
+        xlabel="time (s, window end)",
+        lw=0.8,
+    )
+    shade_unclean((ax_p, ax_z), result.time_s, result.clean)
     return fig
 
 
@@ -467,21 +605,12 @@ def replay_recording(target: TargetDefinition, recording, out: str | Path) -> di
     dict
         Summary: windows, clean windows, clean mean power and z, offline value, ratio.
     """
-    from ..intake import Recording, read_recording
-    from ..provenance import atomic_output_dir, dumps_json
     from .coupling import CouplingTarget, replay_coupling_recording
 
     if isinstance(target, CouplingTarget):  # a pair or edge target
         return replay_coupling_recording(target, recording, out)
-    rec = recording if isinstance(recording, Recording) else read_recording(recording)
-    raw = rec.raw
-    if tuple(raw.ch_names) != tuple(target.channels):
-        raise InputError(
-            f"recording channels {raw.ch_names} differ from the target's {list(target.channels)}",
-            path=rec.path,
-        )
-    data = raw.get_data() * 1e6
-    res = replay_array(data, rec.sfreq, target)
+    rec = replay_input(target, recording)
+    res = replay_array(rec.raw.get_data() * 1e6, rec.sfreq, target)
     mean = res.clean_mean()
     off = target.offline.get("value")
     summary = {
@@ -498,13 +627,8 @@ def replay_recording(target: TargetDefinition, recording, out: str | Path) -> di
         "window_s": target.window_s,
         "step_s": target.step_s,
     }
-    out = Path(out)
     inputs = [p for p in (rec.path, getattr(target, "path", None)) if p is not None]
-    with atomic_output_dir(out, kind="replay", inputs=inputs) as tmp:
-        res.to_frame().to_csv(
-            tmp / "replay.tsv", sep="\t", index=False, na_rep="", float_format="%.6g"
-        )
-        fig = plot_replay(res, target)
-        fig.savefig(tmp / "replay.png", dpi=100)
-        (tmp / "replay.json").write_text(dumps_json(summary, indent=2), encoding="utf-8")
+    write_replay(
+        out, res.to_frame(), plot_replay(res, target), summary, kind="replay", inputs=inputs
+    )
     return summary
