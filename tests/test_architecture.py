@@ -18,6 +18,7 @@ PKG = ROOT / "sourcelab"
 #: top-level module or sub-package of sourcelab -> layer (DEVELOPERS.md)
 LAYERS = {
     "__init__": 0,
+    "_docs": 0,
     "constants": 0,
     "errors": 0,
     "checks": 0,

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .._docs import fill_doc
 from ..errors import InputError
 
 
@@ -74,15 +75,13 @@ def welch_psd(data: np.ndarray, sfreq: float, nperseg: int) -> tuple[np.ndarray,
     return np.fft.rfftfreq(n, 1 / sfreq), psd
 
 
+@fill_doc
 def epoch_spectra(epochs: np.ndarray, sfreq: float) -> tuple[np.ndarray, np.ndarray]:
     """One-sided PSD of each epoch with a single Hann window over the epoch.
 
     Parameters
     ----------
-    epochs : ndarray, shape (n_epochs, n_channels, n_times)
-        µV.
-    sfreq : float
-        Hz.
+    %(epochs_sfreq)s
 
     Returns
     -------
@@ -109,16 +108,11 @@ def epoch_spectra(epochs: np.ndarray, sfreq: float) -> tuple[np.ndarray, np.ndar
     )
 
 
+@fill_doc
 def epoch_band_power(epochs: np.ndarray, sfreq: float, bands) -> np.ndarray:
     """Band power of every epoch.
 
-    Parameters
-    ----------
-    epochs : ndarray, shape (n_epochs, n_channels, n_times)
-        µV.
-    sfreq : float
-    bands : Bands | dict | sequence of (low, high)
-        Hz, [low, high).
+    %(band_power_parameters)s
 
     Returns
     -------
@@ -134,15 +128,11 @@ def epoch_band_power(epochs: np.ndarray, sfreq: float, bands) -> np.ndarray:
     return out
 
 
+@fill_doc
 def band_power(epochs: np.ndarray, sfreq: float, bands) -> np.ndarray:
     """Band power averaged over epochs (Welch's method, one Hann segment per epoch).
 
-    Parameters
-    ----------
-    epochs : ndarray, shape (n_epochs, n_channels, n_times)
-        µV.
-    sfreq : float
-    bands : Bands | dict | sequence of (low, high)
+    %(band_power_parameters)s
 
     Returns
     -------
@@ -156,6 +146,7 @@ def band_power(epochs: np.ndarray, sfreq: float, bands) -> np.ndarray:
     return epoch_band_power(epochs, sfreq, bands).mean(axis=0)
 
 
+@fill_doc
 def peak_frequency(
     epochs: np.ndarray, sfreq: float, *, fmin: float = 7.0, fmax: float = 14.0
 ) -> np.ndarray:
@@ -163,10 +154,7 @@ def peak_frequency(
 
     Parameters
     ----------
-    epochs : ndarray, shape (n_epochs, n_channels, n_times)
-        µV.
-    sfreq : float
-        Sampling rate, Hz.
+    %(epochs_sfreq)s
     fmin, fmax : float
         Search range, Hz (``fmin`` included, ``fmax`` excluded); default 7-14 Hz.
 

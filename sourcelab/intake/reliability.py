@@ -23,6 +23,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .._docs import fill_doc
 from ..errors import InputError
 
 
@@ -258,17 +259,11 @@ def _halves_reliability(power, first, second, kind, threshold, log):
     )
 
 
+@fill_doc
 def split_half(power: np.ndarray, *, threshold: float = 0.90, log: bool = True) -> Reliability:
     """Odd vs even epochs.
 
-    Parameters
-    ----------
-    power : ndarray, shape (n_epochs, n_bands, n_items)
-        Per-epoch band power (µV² or any power unit), epochs in time order.
-    threshold : float
-        Flag bands whose uncorrected r is below this (``AnalysisConfig.reliability_threshold``).
-    log : bool
-        Correlate log10 power (default) rather than power.
+    %(reliability_parameters)s
 
     Returns
     -------
@@ -288,25 +283,22 @@ def split_half(power: np.ndarray, *, threshold: float = 0.90, log: bool = True) 
     )
 
 
+@fill_doc
 def test_retest(power: np.ndarray, *, threshold: float = 0.90, log: bool = True) -> Reliability:
     """First half vs second half of the epochs (time order); an odd epoch out is dropped.
 
-    Parameters and returns as :func:`split_half`.
-
-    Parameters
-    ----------
-    power : ndarray, shape (n_epochs, n_bands, n_items)
-        Per-epoch band power (µV² or any power unit), epochs in time order.
-    threshold : float
-        Flag bands whose uncorrected r is below this (``AnalysisConfig.reliability_threshold``).
-    log : bool
-        Correlate log10 power (default) rather than power.
+    %(reliability_parameters)s
 
     Returns
     -------
     Reliability
         ``kind`` ``"test-retest"``; per-band r between the first ``n_epochs // 2`` and the last
         ``n_epochs // 2`` epochs (the middle epoch of an odd count is left out).
+
+    Raises
+    ------
+    InputError
+        As :func:`split_half`.
     """
     n = np.asarray(power).shape[0]
     h = n // 2

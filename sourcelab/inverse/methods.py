@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..constants import INVERSE_METHODS, ORIENTATIONS
+from .._docs import fill_doc
 from ..errors import InputError
 from ..headmodel.model import HeadModel
 from .sloreta import SourceOperator, sloreta_operator
@@ -74,6 +75,7 @@ METHODS = {"sLORETA": _sloreta, "eLORETA": _eloreta, "dSPM": _dspm}
 assert tuple(METHODS) == INVERSE_METHODS  # one list of method names (constants)
 
 
+@fill_doc
 def make_operator(
     model: HeadModel, *, method: str = "sLORETA", orientation: str = "fixed", lambda2: float = 1 / 9
 ) -> SourceOperator:
@@ -82,10 +84,7 @@ def make_operator(
     Parameters
     ----------
     model : HeadModel
-    method : {"sLORETA", "eLORETA", "dSPM"}
-    orientation : {"fixed", "free"}
-    lambda2 : float
-        λ² = 1/SNR².
+    %(method_orientation_lambda2)s
 
     Returns
     -------

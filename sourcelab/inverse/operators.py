@@ -16,19 +16,18 @@ import functools
 
 import numpy as np
 
+from .._docs import fill_doc
 from ..errors import InputError
 
 
 @functools.lru_cache(maxsize=8)
+@fill_doc
 def inverse_operator(method: str, orientation: str, lambda2: float):
     """The source operator for the shipped head model (cached per parameters).
 
     Parameters
     ----------
-    method : {"sLORETA", "eLORETA", "dSPM"}
-    orientation : {"fixed", "free"}
-    lambda2 : float
-        λ² = 1/SNR².
+    %(method_orientation_lambda2)s
 
     Returns
     -------

@@ -83,14 +83,20 @@ def _ols(X: np.ndarray, y: np.ndarray):
     return coef, X @ coef, h
 
 
+#: The robust rule's exclusion threshold, in (robust) SDs (common practice), and its most
+#: sigma-clipping passes; shared by the per-quantity and the per-source fits.
+ROBUST_SD = 3.5
+ROBUST_MAX_ITER = 10
+
+
 def fit_poly(
     age: np.ndarray,
     y: np.ndarray,
     degree: int,
     *,
     robust: bool = True,
-    threshold: float = 3.5,
-    max_iter: int = 10,
+    threshold: float = ROBUST_SD,
+    max_iter: int = ROBUST_MAX_ITER,
 ) -> PolyFit | None:
     """Fit ``y ~ poly(log10(age), degree)`` with optional robust exclusion of outlying controls.
 
@@ -111,9 +117,9 @@ def fit_poly(
         dropped by an unluckily small MAD return.  At most a quarter of the controls is ever
         excluded (the most extreme first).
     threshold : float
-        Exclusion threshold in (robust) SDs; 3.5 by default.
+        Exclusion threshold in (robust) SDs (:data:`ROBUST_SD`).
     max_iter : int
-        Most sigma-clipping passes.
+        Most sigma-clipping passes (:data:`ROBUST_MAX_ITER`).
 
     Returns
     -------

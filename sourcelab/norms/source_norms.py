@@ -46,8 +46,9 @@ from pathlib import Path
 
 import numpy as np
 
+from .._docs import fill_doc
 from ..errors import InputError
-from .models import MAD_TO_SD
+from .models import MAD_TO_SD, ROBUST_MAX_ITER, ROBUST_SD
 
 FORMAT = "sourcelab-source-norms 1"
 
@@ -73,39 +74,38 @@ class SourceNorms:
     def n_src(self) -> int:
         return self.vertices.size
 
+    def _age_powers(self, age: float) -> np.ndarray:
+        """``[1, x, x**2, ...]`` with ``x = log10(age)``, shape (degree + 1,)."""
+        return np.log10(float(age)) ** np.arange(self.degree + 1)
+
+    @fill_doc
     def mean(self, age: float) -> np.ndarray:
         """Model mean at ``age``, shape (n_meas, n_bands, n_src).
 
-        Parameters
-        ----------
-        age : float
-            Years, > 0.
+        %(age_parameters)s
 
         Returns
         -------
         ndarray, shape (n_meas, n_bands, n_src)
             Mean on the transformed scale (log10 µV² for absolute, logit for relative power).
         """
-        x = np.log10(float(age)) ** np.arange(self.degree + 1)
-        return np.einsum("mbks,k->mbs", self.coef.astype(float), x)
+        return np.einsum("mbks,k->mbs", self.coef.astype(float), self._age_powers(age))
 
+    @fill_doc
     def leverage(self, age: float) -> np.ndarray:
         """Leverage of a new participant of ``age``, shape (n_meas, n_bands, n_src).
 
         ``x₀ᵀ (XᵀX)⁻¹ x₀`` of all controls, scaled by ``n_all / n_kept`` per source (see the module
         docstring).
 
-        Parameters
-        ----------
-        age : float
-            Years, > 0.
+        %(age_parameters)s
 
         Returns
         -------
         ndarray, shape (n_meas, n_bands, n_src)
             Dimensionless leverage ``h₀`` per measure, band and source.
         """
-        x = np.log10(float(age)) ** np.arange(self.degree + 1)
+        x = self._age_powers(age)
         h_all = float(x @ self.xtx_inv @ x)
         n_all = int(self.n.max())
         return h_all * n_all / np.maximum(self.n.astype(float), 1.0)
@@ -117,14 +117,14 @@ def fit_source_models(
     degree: int,
     *,
     robust: bool = True,
-    threshold: float = 3.5,
-    max_iter: int = 10,
 ):
     """Vectorised polynomial fits in log10(age) for many quantities sharing the controls.
 
-    The robust rule is :func:`sourcelab.norms.models.fit_poly`'s (first a MAD screen, then
-    sigma clipping against the retained controls' SD until stable; at most a quarter excluded),
-    applied to every column at once.
+    The robust rule is :func:`sourcelab.norms.models.fit_poly`'s with its defaults (first a MAD
+    screen, then sigma clipping against the retained controls' SD until stable, beyond
+    :data:`~sourcelab.norms.models.ROBUST_SD` SDs in at most
+    :data:`~sourcelab.norms.models.ROBUST_MAX_ITER` passes; at most a quarter excluded), applied
+    to every column at once.
 
     Parameters
     ----------
@@ -136,10 +136,6 @@ def fit_source_models(
         Polynomial degree in log10(age), 0..3.
     robust : bool
         Apply the robust exclusion rule.
-    threshold : float
-        Exclusion threshold in (robust) SDs.
-    max_iter : int
-        Most sigma-clipping passes.
 
     Returns
     -------
@@ -167,7 +163,7 @@ def fit_source_models(
     w = np.ones((n, q))
     if robust:
         cap = n // 4
-        for it in range(max_iter):
+        for it in range(ROBUST_MAX_ITER):
             r = y - X @ coef
             if it == 0:
                 centre = np.median(r, axis=0)
@@ -176,7 +172,7 @@ def fit_source_models(
                 centre = 0.0
                 s = np.sqrt(np.sum(w * r**2, axis=0) / (w.sum(0) - p))
             dev = np.abs(r - centre) / np.where(s > 0, s, np.inf)
-            out = dev > threshold
+            out = dev > ROBUST_SD
             # cap: only the most extreme quarter
             too_many = out.sum(0) > cap
             if too_many.any():

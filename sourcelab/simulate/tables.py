@@ -12,6 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .._docs import fill_doc
 from ..constants import UNITS
 from ..norms.transforms import get_transform, transform_for_measure
 
@@ -42,13 +43,11 @@ class GaussianCohort:
     sd: np.ndarray
     entries: list
 
+    @fill_doc
     def true_mean(self, age: float) -> np.ndarray:
         """True transformed mean of every quantity at ``age``, shape (q,).
 
-        Parameters
-        ----------
-        age : float
-            Years, > 0.
+        %(age_parameters)s
 
         Returns
         -------
@@ -59,13 +58,13 @@ class GaussianCohort:
         x = np.log10(age)
         return self.coef @ np.array([1.0, x, x * x])
 
+    @fill_doc
     def tables_at(self, age: float, z: np.ndarray) -> tuple[pd.DataFrame, pd.DataFrame]:
         """Noise-free tables whose values sit ``z`` true SDs from the true mean.
 
         Parameters
         ----------
-        age : float
-            Years, > 0.
+        %(age_years)s
         z : array-like, shape (q,)
             Deviation of each quantity, in true SDs on the transformed scale.
 

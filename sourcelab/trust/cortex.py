@@ -20,6 +20,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .._docs import fill_doc
+
 
 def area_codes(
     template_area: np.ndarray, vertices: np.ndarray, n_left: int, area_numbers: np.ndarray
@@ -191,13 +193,13 @@ def build_space(model, *, lambda2: float = 1 / 9) -> CortexSpace:
 
 
 @functools.lru_cache(maxsize=2)
+@fill_doc
 def cortex_space(lambda2: float = 1 / 9) -> CortexSpace:
     """The shipped head model's :class:`CortexSpace`, cached.
 
     Parameters
     ----------
-    lambda2 : float
-        λ² of the fixed-orientation sLORETA operator (default 1/9, SNR 3).
+    %(lambda2_fixed_sloreta)s
 
     Returns
     -------

@@ -41,6 +41,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .._docs import fill_doc
 from ..errors import InputError
 
 #: Candidates within this distance (mm, same hemisphere) of the peak are matched.
@@ -108,6 +109,7 @@ class MatchResult:
         return float(self.area_score[area] - best)
 
 
+@fill_doc
 def match_scores(
     values: np.ndarray,
     space,
@@ -121,12 +123,7 @@ def match_scores(
 
     Parameters
     ----------
-    values : ndarray, shape (n_src,)
-        Non-negative map (power or |z|).
-    space : CortexSpace
-        Supplies the kernel, gain, mesh positions, hemispheres and area codes.
-    peak : int
-        Source index of the peak.
+    %(match_map_space_peak)s
     cand_mm : float
         Candidate radius, mm.
     row_step : int
@@ -164,17 +161,13 @@ def match_scores(
     return MatchResult(candidates=cand, corr=corr, area_score=score)
 
 
+@fill_doc
 def name_area(values: np.ndarray, space, peak: int, *, exclude=None, **kw) -> int:
     """Area code named for ``peak`` (best template match; 0 when no candidate is eligible).
 
     Parameters
     ----------
-    values : ndarray, shape (n_src,)
-        Non-negative map (power or |z|).
-    space : CortexSpace
-        Supplies the kernel, gain, mesh positions, hemispheres and area codes.
-    peak : int
-        Source index of the peak.
+    %(match_map_space_peak)s
     exclude : array of int, optional
         Area codes that cannot be named (e.g. not resolvable from 19 electrodes).
     **kw

@@ -34,6 +34,8 @@ import functools
 
 import numpy as np
 
+from .._docs import fill_doc
+
 #: Leakage own-share below which an area's value is mostly other areas' activity.
 OWN_SHARE_MIN = 0.05
 #: Distance (mm) from every electrode beyond which a source is outside the montage's cover.
@@ -206,14 +208,14 @@ def localisation_context(lambda2: float = 1 / 9):
     return space, own, unresolvable_codes(space, table), table
 
 
+@fill_doc
 def resolvable_areas(lambda2: float = 1 / 9) -> dict[str, bool]:
     """Brodmann area name (``"BA17"``) -> resolvable from 19 scalp electrodes (this module's
     rule; both hemispheres share the verdict).
 
     Parameters
     ----------
-    lambda2 : float
-        λ² of the fixed-orientation sLORETA operator (default 1/9, SNR 3).
+    %(lambda2_fixed_sloreta)s
 
     Returns
     -------

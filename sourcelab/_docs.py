@@ -1,0 +1,116 @@
+"""Shared numpydoc fragments: one home for a parameter's description used by several functions.
+
+In the style of MNE-Python's ``mne.utils.docs`` (``docdict`` and ``fill_doc``): a docstring
+names a fragment as ``%(name)s`` on a line of its own, and :func:`fill_doc` replaces it with
+:data:`docdict`'s text, indented to the docstring's own indentation.  A literal percent sign in a
+docstring filled this way is written ``%%``.
+
+This module imports nothing (bottom layer).
+"""
+
+from __future__ import annotations
+
+#: Fragment name -> numpydoc text (first line unindented, the rest indented by four spaces).
+docdict: dict[str, str] = {}
+
+# ---------------------------------------------------------------------------- ages and power
+docdict["age_years"] = """\
+age : float
+    Years, > 0."""
+
+#: The whole Parameters section of a model evaluated at one age.
+docdict["age_parameters"] = """\
+Parameters
+----------
+age : float
+    Years, > 0."""
+
+docdict["epochs_sfreq"] = """\
+epochs : ndarray, shape (n_epochs, n_channels, n_times)
+    µV.
+sfreq : float
+    Sampling rate, Hz."""
+
+#: The whole Parameters section of a band-power function of epochs.
+docdict["band_power_parameters"] = """\
+Parameters
+----------
+epochs : ndarray, shape (n_epochs, n_channels, n_times)
+    µV.
+sfreq : float
+    Sampling rate, Hz.
+bands : Bands | dict | sequence of (low, high)
+    Hz, [low, high)."""
+
+# --------------------------------------------------------------------------- inverse methods
+docdict["method_orientation_lambda2"] = """\
+method : {"sLORETA", "eLORETA", "dSPM"}
+orientation : {"fixed", "free"}
+lambda2 : float
+    λ² = 1/SNR²."""
+
+docdict["lambda2_fixed_sloreta"] = """\
+lambda2 : float
+    λ² of the fixed-orientation sLORETA operator (default 1/9, SNR 3)."""
+
+# ------------------------------------------------------------------------------- reliability
+#: The whole Parameters section of the two halves' reliabilities.
+docdict["reliability_parameters"] = """\
+Parameters
+----------
+power : ndarray, shape (n_epochs, n_bands, n_items)
+    Per-epoch band power (µV² or any power unit), epochs in time order.
+threshold : float
+    Flag bands whose uncorrected r is below this (``AnalysisConfig.reliability_threshold``).
+log : bool
+    Correlate log10 power (default) rather than power."""
+
+# ------------------------------------------------------------------------- template matching
+docdict["match_map_space_peak"] = """\
+values : ndarray, shape (n_src,)
+    Non-negative map (power or |z|).
+space : CortexSpace
+    Supplies the kernel, gain, mesh positions, hemispheres and area codes.
+peak : int
+    Source index of the peak."""
+
+
+def _indent(text: str, indent: str) -> str:
+    first, *rest = text.splitlines()
+    return "\n".join([first] + [indent + line if line else line for line in rest])
+
+
+def _indentation(doc: str) -> int:
+    """Smallest indentation of the docstring's non-blank lines after the first."""
+    widths = [len(line) - len(line.lstrip()) for line in doc.splitlines()[1:] if line.strip()]
+    return min(widths, default=0)
+
+
+def fill_doc(obj):
+    """Fill the ``%(name)s`` fragments of ``obj.__doc__`` from :data:`docdict`.
+
+    Parameters
+    ----------
+    obj : function or class
+        Its docstring names fragments as ``%(name)s``, each at the start of a line.
+
+    Returns
+    -------
+    obj
+        The same object, its ``__doc__`` filled (unchanged when Python runs without
+        docstrings, ``-OO``).
+
+    Raises
+    ------
+    RuntimeError
+        When the docstring names an unknown fragment or holds a lone ``%`` (at import time).
+    """
+    doc = obj.__doc__
+    if not doc:
+        return obj
+    indent = " " * _indentation(doc)
+    try:
+        obj.__doc__ = doc % {name: _indent(text, indent) for name, text in docdict.items()}
+    except (KeyError, TypeError, ValueError) as exc:
+        raise RuntimeError(f"docstring of {obj.__qualname__}: cannot fill {exc}") from None
+    return obj
