@@ -18,12 +18,10 @@ docdict["age_years"] = """\
 age : float
     Years, > 0."""
 
+_SECTION = "Parameters\n----------\n"
+
 #: The whole Parameters section of a model evaluated at one age.
-docdict["age_parameters"] = """\
-Parameters
-----------
-age : float
-    Years, > 0."""
+docdict["age_parameters"] = _SECTION + docdict["age_years"]
 
 docdict["epochs_sfreq"] = """\
 epochs : ndarray, shape (n_epochs, n_channels, n_times)
@@ -32,15 +30,13 @@ sfreq : float
     Sampling rate, Hz."""
 
 #: The whole Parameters section of a band-power function of epochs.
-docdict["band_power_parameters"] = """\
-Parameters
-----------
-epochs : ndarray, shape (n_epochs, n_channels, n_times)
-    µV.
-sfreq : float
-    Sampling rate, Hz.
+docdict["band_power_parameters"] = (
+    _SECTION
+    + docdict["epochs_sfreq"]
+    + """
 bands : Bands | dict | sequence of (low, high)
     Hz, [low, high)."""
+)
 
 # --------------------------------------------------------------------------- inverse methods
 docdict["method_orientation_lambda2"] = """\
@@ -55,15 +51,16 @@ lambda2 : float
 
 # ------------------------------------------------------------------------------- reliability
 #: The whole Parameters section of the two halves' reliabilities.
-docdict["reliability_parameters"] = """\
-Parameters
-----------
+docdict["reliability_parameters"] = (
+    _SECTION
+    + """\
 power : ndarray, shape (n_epochs, n_bands, n_items)
     Per-epoch band power (µV² or any power unit), epochs in time order.
 threshold : float
     Flag bands whose uncorrected r is below this (``AnalysisConfig.reliability_threshold``).
 log : bool
     Correlate log10 power (default) rather than power."""
+)
 
 # ------------------------------------------------------------------------- template matching
 docdict["match_map_space_peak"] = """\

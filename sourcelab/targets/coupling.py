@@ -47,6 +47,7 @@ from pathlib import Path
 import numpy as np
 
 from ..cautions import CAUTIONS
+from ..config import AnalysisConfig
 from ..errors import InputError
 from ..provenance import Fingerprint
 from .definition import (
@@ -148,7 +149,7 @@ class CouplingTarget(TargetFile):
     norm: dict | None = None
     offline: dict = field(default_factory=dict)
     direction: str = "none"
-    reject_uv: float = 150.0
+    reject_uv: float = AnalysisConfig.reject_uv
     details: dict = field(default_factory=dict)
     created_utc: str = ""
 

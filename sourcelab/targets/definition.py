@@ -42,6 +42,7 @@ import numpy as np
 
 from .. import PIPELINE_VERSION
 from ..cautions import CAUTIONS
+from ..config import AnalysisConfig
 from ..constants import SITES_1020
 from ..errors import InputError
 from ..inverse import roi_rows
@@ -301,7 +302,7 @@ class TargetDefinition(TargetFile):
     norm: dict | None = None
     offline: dict = field(default_factory=dict)
     direction: str = "none"
-    reject_uv: float = 150.0
+    reject_uv: float = AnalysisConfig.reject_uv
     small: bool = False
     created_utc: str = ""
     filter_order: int = FILTER_ORDER
@@ -676,7 +677,7 @@ def make_target(
     norm: dict | None = None,
     offline: dict | None = None,
     z: float | None = None,
-    reject_uv: float = 150.0,
+    reject_uv: float = AnalysisConfig.reject_uv,
     small: bool = False,
     window_s: float = WINDOW_S,
     step_s: float = STEP_S,
@@ -984,7 +985,8 @@ def offline_section(res, row, extra: dict | None = None) -> dict:
 
 
 def analysis_reject_uv(res) -> float:
-    """The analysis' peak-to-peak rejection threshold, µV (150 when not recorded).
+    """The analysis' peak-to-peak rejection threshold, µV (the configuration's default when
+    not recorded).
 
     Parameters
     ----------
@@ -996,7 +998,7 @@ def analysis_reject_uv(res) -> float:
     float
         ``parameters.reject_uv`` of its provenance.
     """
-    return float(res.provenance.get("parameters", {}).get("reject_uv", 150.0))
+    return float(res.provenance.get("parameters", {}).get("reject_uv", AnalysisConfig.reject_uv))
 
 
 def export_target(

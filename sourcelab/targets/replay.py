@@ -30,6 +30,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..constants import Z_THRESHOLD
 from ..errors import InputError
 from .definition import TargetDefinition
 
@@ -141,7 +142,7 @@ def replay_input(target, recording):
 
 
 def draw_z_panel(ax, time_s, z, norm, *, ylabel: str, xlabel: str, **line) -> None:
-    """The z panel of a replay figure: z over time, 0 and ±1.96, a note without a norm.
+    """The z panel of a replay figure: z over time, 0 and ±Z_THRESHOLD, a note without a norm.
 
     Parameters
     ----------
@@ -158,7 +159,7 @@ def draw_z_panel(ax, time_s, z, norm, *, ylabel: str, xlabel: str, **line) -> No
     """
     ax.plot(time_s, z, color="0.2", **line)
     ax.axhline(0, color="0.5", lw=0.5)
-    for lim in (-1.96, 1.96):
+    for lim in (-Z_THRESHOLD, Z_THRESHOLD):
         ax.axhline(lim, ls=":", color="0.5", lw=0.8)
     if norm is None:
         ax.text(
