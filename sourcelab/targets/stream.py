@@ -432,6 +432,7 @@ def run_stream(
     log_path=None,
     say=None,
     on_row=None,
+    stop=None,
 ) -> dict:
     """Read an EEG stream over LSL, apply ``target``, publish the feedback stream.
 
@@ -459,6 +460,9 @@ def run_stream(
         Receives the one-line messages (default: log at WARNING).
     on_row : callable, optional
         Called with each :class:`Row` after it is published.
+    stop : threading.Event, optional
+        The run ends at the next pull once this is set (from another thread, e.g. a user
+        interface); ``duration_s`` and ``max_updates`` still apply.
 
     Returns
     -------
@@ -559,6 +563,8 @@ def run_stream(
                 if duration_s is not None and time.perf_counter() - t_start >= duration_s:
                     break
                 if max_updates is not None and stats.rows >= max_updates:
+                    break
+                if stop is not None and stop.is_set():
                     break
                 stream.acquire()
                 rows_t = []
