@@ -97,6 +97,11 @@ def test_replay_agrees_with_the_offline_analysis(analysed, kind, label, measure,
         "replay.json",
         "provenance.json",
     }
+    # the folder says what wrote it: a replay, as for area targets (so it is never taken for
+    # an analysis folder, and a later replay may replace it)
+    from sourcelab.provenance import recognise_output_dir
+
+    assert recognise_output_dir(tmp_path / "replay").kind == "replay"
     off = t.offline
     se = (off["value_hi"] - off["value_lo"]) / 3.92
     assert abs(s["pooled_value"] - off["value"]) <= 3 * se / np.sqrt(off["n_epochs"]), s
