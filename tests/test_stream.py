@@ -279,7 +279,8 @@ def test_dropped_then_restored_input_is_flagged_and_recovers(tmp_path, target_fi
     name = _uid("drop")
     # The run waits for the event it tests, not for a fixed time: liblsl reconnects the inlet
     # within about 2 s when the broken connection is noticed at once, but only at its watchdog
-    # check (15-s interval and threshold by default, from memory) when it is not, which a loaded machine hits.
+    # check (15-s interval and threshold by default, from memory) when it is not, which a
+    # loaded machine hits.
     # The run stops after three clean rows past the last dropped one, or after 120 s.
     seen = {"dropped": False, "clean_after": 0}
     done = threading.Event()
