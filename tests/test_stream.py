@@ -117,13 +117,19 @@ def _read_log(path):
 def test_loopback_configuration_is_loaded_and_streams_resolve(tmp_path):
     # The keys are those liblsl's api_config.cpp reads (checked against the liblsl source and
     # the strings of the bundled liblsl 1.17.7): ports.IPv6, multicast.ResolveScope,
-    # multicast.MachineAddresses, lab.KnownPeers.  A child process with the same file and
+    # multicast.MachineAddresses, lab.KnownPeers, tuning.WatchdogCheckInterval,
+    # tuning.WatchdogTimeThreshold.  A child process with the same file and
     # log level 0 must report "Configuration loaded from <file>" (liblsl falls back to defaults
     # and logs an error on a bad key value) and must resolve an outlet of its own.
     import subprocess
     import sys
 
-    for key in ("ResolveScope = machine", "KnownPeers = {127.0.0.1}", "IPv6 = disable"):
+    for key in (
+        "ResolveScope = machine",
+        "KnownPeers = {127.0.0.1}",
+        "IPv6 = disable",
+        "WatchdogTimeThreshold = 2.0",
+    ):
         assert key in LOOPBACK_CONFIG
     verbose = tmp_path / "lsl_verbose.cfg"
     verbose.write_text(LOOPBACK_CONFIG.replace("level = -1", "level = 0"))
