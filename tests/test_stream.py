@@ -430,3 +430,11 @@ def test_wrong_rate_is_flagged(tmp_path, target_file):
 
     measured = float(re.search(r"arrive at ([0-9.]+) Hz", rmsg[0]).group(1))
     assert 180 < measured < 205  # 200/s pushed; the pusher's sleeps only lengthen the period
+
+
+def test_readme_shows_the_configuration_that_sourcelab_writes():
+    # The README's configuration block is what users copy; it must be the file
+    # write_loopback_config writes (comment line aside).
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    body = "\n".join(ln for ln in LOOPBACK_CONFIG.splitlines() if not ln.startswith(";"))
+    assert body.strip() in readme
