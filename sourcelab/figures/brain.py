@@ -15,6 +15,7 @@ from matplotlib.figure import Figure
 
 from ..checks import check_option
 from . import geometry
+from ._shared import save_if_asked
 from .colours import ColourScale, add_colourbar, clipped
 
 logger = logging.getLogger("sourcelab")
@@ -108,11 +109,6 @@ def _fast_outline():
         _axes.plot_brain_schematics = gb.plot_brain_schematics
 
 
-def _save(fig: Figure, output_file, dpi: int) -> None:
-    if output_file is not None:
-        fig.savefig(output_file, dpi=dpi)
-
-
 def glass_brain(
     values: np.ndarray,
     *,
@@ -189,7 +185,7 @@ def glass_brain(
     add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
-    _save(fig, output_file, dpi)
+    save_if_asked(fig, output_file, dpi)
     return fig
 
 
@@ -288,7 +284,7 @@ def surface_views(
     add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.43, y=0.995, va="top", fontsize=11)
-    _save(fig, output_file, dpi)
+    save_if_asked(fig, output_file, dpi)
     return fig
 
 

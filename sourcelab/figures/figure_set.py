@@ -39,8 +39,16 @@ PAIR_FIGURE_MEASURES = ("msc", "lagcoh", "asymmetry")
 EDGE_FIGURE_MEASURES = ("lagcoh", "aec_orth")
 
 
+#: zlib level of figure PNGs: 1 encodes about twice as fast as PIL's default 6 and, for
+#: these flat-coloured figures, gives files no larger (measured on the demo's figure set).
+PNG_COMPRESS_LEVEL = 1
+
+
 def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
     """Render a figure to PNG bytes (and close it).
+
+    An opaque figure is written as RGB (lossless: its alpha is 255 everywhere) at zlib level
+    :data:`PNG_COMPRESS_LEVEL`; a figure with transparent pixels keeps its alpha channel.
 
     Parameters
     ----------
@@ -56,8 +64,24 @@ def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
     bytes
         The PNG file's content.
     """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi)
+    if isinstance(fig.canvas, FigureCanvasAgg) and fig.dpi == dpi:
+        import matplotlib
+        from PIL import Image, PngImagePlugin
+
+        fig.canvas.draw()
+        rgba = np.asarray(fig.canvas.buffer_rgba())
+        opaque = bool((rgba[..., 3] == 255).all())
+        img = Image.fromarray(np.ascontiguousarray(rgba[..., :3]) if opaque else rgba)
+        info = PngImagePlugin.PngInfo()
+        info.add_text(
+            "Software", f"Matplotlib version{matplotlib.__version__}, https://matplotlib.org/"
+        )
+        img.save(buf, format="png", compress_level=PNG_COMPRESS_LEVEL, pnginfo=info, dpi=(dpi, dpi))
+    else:  # another canvas or resolution: matplotlib's own writer
+        fig.savefig(buf, format="png", dpi=dpi, pil_kwargs={"compress_level": PNG_COMPRESS_LEVEL})
     if close:
         plt.close(fig)
     return buf.getvalue()

@@ -10,6 +10,7 @@ from matplotlib.figure import Figure
 
 from ..constants import SITES_1020
 from ..errors import InputError
+from ._shared import save_if_asked
 from .colours import add_colourbar, clipped
 
 
@@ -170,6 +171,5 @@ def _sensor_topomaps(
         add_colourbar(fig, scale, cax=cax, data=v)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
-    if output_file is not None:
-        fig.savefig(output_file, dpi=dpi)
+    save_if_asked(fig, output_file, dpi)
     return fig
