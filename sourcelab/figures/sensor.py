@@ -160,7 +160,7 @@ def _sensor_topomaps(
         )
         for txt in ax.texts:  # electrode names: small, over the map
             txt.set_fontsize(6)
-        ax.set_title(band, fontsize=10)
+        ax.set_title(band, fontsize=10, y=1.0)  # the map has no ticks: no search above it
         if per_band:
             cax = fig.add_axes((0.01 + i * width + 0.15 * width, 0.19, width * 0.66, 0.035))
             cb = add_colourbar(fig, sc, cax=cax, orientation="horizontal", data=v[i])
