@@ -475,9 +475,13 @@ def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
         if f in (brain.glass_brain, brain.surface_views) and layout not in warmed:
             warmed.add(layout)
             brain.warm_caches(f, k)
+    # the slowest kinds (many axes or tick labels, ~0.5-1 s each) first, so that no worker is
+    # left drawing one of them alone at the end; the answer keeps the queued order
+    slow = ("coupling", "leakage", "roi-heatmap", "topomap", "topomap-z", "ocular")
+    order = sorted(jobs, key=lambda job: job[0].split("/")[0] not in slow)
     with ProcessPoolExecutor(max_workers=n_jobs, mp_context=mp.get_context("fork")) as pool:
-        futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in jobs}
-        return {key: fut.result() for key, fut in futures.items()}
+        futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in order}
+        return {key: futures[key].result() for key, _, _, _ in jobs}
 
 
 def _edges(result, band: str) -> str:
