@@ -47,27 +47,12 @@ _Z_MEANING = {
 
 
 #: Columns of the pair table that :func:`pair_head_map` reads.
-PAIR_FIGURE_COLUMNS = (
-    "pair",
-    "channel_a",
-    "channel_b",
-    "band",
-    "measure",
-    "z",
-    "homologous",
-    "intrahemispheric",
+PAIR_FIGURE_COLUMNS = tuple(
+    "pair channel_a channel_b band measure z homologous intrahemispheric".split()
 )
 #: Columns of the coupling table that :func:`coupling_matrix` reads.
-EDGE_FIGURE_COLUMNS = (
-    "atlas",
-    "roi_a",
-    "hemisphere_a",
-    "roi_b",
-    "hemisphere_b",
-    "band",
-    "measure",
-    "value",
-    "z",
+EDGE_FIGURE_COLUMNS = tuple(
+    "atlas roi_a hemisphere_a roi_b hemisphere_b band measure value z".split()
 )
 
 #: Short measure names for titles.
