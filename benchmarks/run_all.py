@@ -24,6 +24,9 @@ exponent      time of ``analyze(path)`` (warm, in one process) over 1-10 min (qu
 core_vs_mne   sourcelab's cross-spectral core vs MNE's ``csd_array_fourier`` ->
               ``apply_inverse_cov``
               and vs ``compute_source_psd`` (sLORETA), same clean epochs; map correlation
+outputs       ``sourcelab demo`` wall (simulate, analyse, all outputs) and, by difference with
+              ``sourcelab demo --no-figures --no-report --no-maps``, the time of all outputs
+              (figures, report, maps); whole fresh processes, alternated
 batch         ``run_batch`` with 2 worker processes vs 1 (and a 2-worker Dask local cluster if
               ``distributed`` is installed) on 20 30-s (quick) or 40 70-s (full) recordings
 headmodel, norms (``--full`` only) the template head-model load and ``build_norms`` growth
@@ -67,6 +70,13 @@ GOALS = {
         "",
         ">=",
     ),
+    "all_outputs_s": (
+        "all outputs (figures, report, maps): demo minus tables-only demo",
+        8.0,
+        "s",
+        "<=",
+    ),
+    "demo_wall_s": ("`sourcelab demo` wall", 12.0, "s", "<="),
     "batch_speedup_2": ("batch 2 worker processes vs 1", 1.7, "×", ">="),
     "dask_over_pool": ("Dask local cluster (2) / process pool (2) throughput", 0.85, "", ">="),
 }
@@ -107,6 +117,16 @@ WHY = {
     "dask_over_pool": (
         "Dask workers start a scheduler and nanny processes; measured under "
         "the same heavy load as the pool."
+    ),
+    "all_outputs_s": (
+        "About 76 figures (glass brains, surfaces, ROI charts, coupling, scalp maps), each a "
+        "matplotlib figure of 1-10 axes whose text (matplotlib 3.11's shaped text layout) and "
+        "axes set-up dominate; two worker processes draw them, the HTML and PDF reports and the "
+        "maps follow in one process; a load above the core count stretches every wall time."
+    ),
+    "demo_wall_s": (
+        "The demo is the whole pipeline (simulation, default analysis with bootstrap intervals, "
+        "coupling and ocular correction) plus all outputs; see the row above."
     ),
     "core_over_mne_cov": (
         "The core's time is short (tens of ms) and suffers most from a heavy load."
@@ -536,6 +556,31 @@ def step_core_vs_mne(opts) -> dict:
     }
 
 
+def step_outputs(opts) -> dict:
+    reps = opts.reps if opts.full else 1
+    full, tables, loads = [], [], []
+    tables_only = ("--no-figures", "--no-report", "--no-maps")
+    with tempfile.TemporaryDirectory(prefix="sourcelab-bench-") as d:
+        for i in range(reps):
+            full.append(_process("cli", "demo", "--out", str(Path(d) / f"all{i}"))["wall_s"])
+            loads.append(_load())
+            out = str(Path(d) / f"tables{i}")
+            tables.append(_process("cli", "demo", "--out", out, *tables_only)["wall_s"])
+            loads.append(_load())
+    return {
+        "values": {
+            "all_outputs_s": max(0.0, _median(full) - _median(tables)),
+            "demo_wall_s": _median(full),
+        },
+        "demo_s": full,
+        "demo_tables_only_s": tables,
+        "load_after_each": loads,
+        "note": "fresh processes, alternating `sourcelab demo --out D` and `sourcelab demo --out "
+        "D --no-figures --no-report --no-maps`; all outputs = the difference of their medians "
+        f"({reps} run{'s' if reps > 1 else ''} each)",
+    }
+
+
 def step_batch(opts) -> dict:
     from sourcelab.batch import discover, make_engine, run_batch
 
@@ -633,6 +678,7 @@ STEPS = {
     "analyze_60": step_analyze_60,
     "exponent": step_exponent,
     "core_vs_mne": step_core_vs_mne,
+    "outputs": step_outputs,
     "batch": step_batch,
     "headmodel": step_headmodel,
     "norms": step_norms,

@@ -121,11 +121,17 @@ def test_surface_views(result):
     v = result.source_map("alpha", "relative")
     labels = np.repeat(np.arange(4), 20484 // 4 + 1)[:20484]
     fig = surface_views(v, scale=power_scale(v, measure="relative"), outline=labels)
-    axes3d = [ax for ax in fig.axes if ax.name == "3d"]
+    # default: the four views painted as one image over the figure, each view titled
+    images = [ax for ax in fig.axes if ax.images and ax not in _colourbar_axes(fig)]
+    assert len(images) == 1 and images[0].get_position().bounds == (0.0, 0.0, 1.0, 1.0)
+    titles = {t.get_text() for t in fig.texts}
+    assert {f"{h} {w}" for h, w in (("left", "lateral"), ("right", "medial"))} <= titles
+    _check_colourbar(fig, "relative power", symmetric=False)
+    fig3d = surface_views(v, scale=power_scale(v, measure="relative"), outline=labels, raster=False)
+    axes3d = [ax for ax in fig3d.axes if ax.name == "3d"]
     assert len(axes3d) == 4 and all(ax.collections for ax in axes3d)
     # the outline adds a second collection (parcel borders) to the views that show a border
     assert any(len(ax.collections) > 1 for ax in axes3d)
-    _check_colourbar(fig, "relative power", symmetric=False)
     fz = surface_views(v * 0 + 2.5, scale=z_scale(threshold=1.96))
     _check_colourbar(fz, "z-score", symmetric=True)
 
@@ -312,9 +318,13 @@ def test_power_topomaps_one_scale_per_band():
 # ---------------------------------------------------------------- issue 16: ranges, masks, holes
 def _coloured_faces(fig):
     """Per 3-D view: (faces drawn, faces coloured by data).  The background is sulcal shading in
-    grey (r = g = b); data colours of RdBu_r/magma ends are not grey."""
+    grey (r = g = b); data colours of RdBu_r/magma ends are not grey.  ``fig`` is drawn with
+    ``raster=False``: the default raster path paints these same face colours (nilearn's), held
+    to the 3-D drawing's pixels by test_surface_raster_draws_the_same_pixels_as_matplotlib_3d."""
     out = []
-    for ax in [a for a in fig.axes if a.name == "3d"]:
+    views = [a for a in fig.axes if a.name == "3d"]
+    assert len(views) == 4
+    for ax in views:
         fc = ax.collections[0].get_facecolor()
         sat = fc[:, :3].max(1) - fc[:, :3].min(1)
         out.append((len(fc), int((sat > 0.02).sum())))
@@ -349,7 +359,7 @@ def test_surface_masks_the_configured_fraction_and_leaves_no_holes():
     front = pos[:, 1] > np.median(pos[:, 1])
     z = np.where(front, 4.0, 0.5) * np.where(pos[:, 0] < 0, 1.0, -1.0)
     scale = z_scale(threshold=Z_THRESHOLD)
-    fig = surface_views(z, scale=scale)
+    fig = surface_views(z, scale=scale, raster=False)
     got, want = _coloured_faces(fig), _expected_coloured(z, scale)
     assert [g[0] for g in got] == [w[0] for w in want]
     # coloured faces are exactly those at or beyond the mask (values beyond the range included)
@@ -361,7 +371,7 @@ def test_surface_masks_the_configured_fraction_and_leaves_no_holes():
     assert cb.extend == "both" and "4" in cb.ax.get_ylabel()
     # without a mask, every face inside cortex is coloured even though all values exceed ±3
     plain = z_scale()
-    fig2 = surface_views(np.where(front, 5.0, -5.0), scale=plain)
+    fig2 = surface_views(np.where(front, 5.0, -5.0), scale=plain, raster=False)
     for g, w in zip(_coloured_faces(fig2), _expected_coloured(np.full(N_SRC, 5.0), plain)):
         assert g[1] >= w[2]  # no uncoloured (NaN/grey) face inside cortex
 
@@ -373,7 +383,7 @@ def test_power_below_range_is_not_a_hole(rng):
     # viridis: both ends saturated, so a coloured face is told from the grey background (the
     # power map's magma starts near black)
     scale = ColourScale("viridis", 2.0, 8.0, "power")
-    fig = surface_views(v, scale=scale)
+    fig = surface_views(v, scale=scale, raster=False)
     for g, w in zip(_coloured_faces(fig), _expected_coloured(v, scale)):
         assert g[1] >= w[2]
     cb = _colourbar_axes(fig)[0]._colorbar

@@ -10,6 +10,7 @@ from ..headmodel import load_head_model
 from ..headmodel.model import HEMIS, N_PER_HEMI
 from ..rois import Atlas, load_atlas
 from ..rois.names import area_name, natural_key
+from .geometry import paint_rois
 
 
 def atlas_label_map(atlas: Atlas) -> np.ndarray:
@@ -31,13 +32,11 @@ def atlas_label_map(atlas: Atlas) -> np.ndarray:
     """
     per_hemi = {r.name for r in atlas.rois if r.hemisphere != "both"}
     names = sorted({r.name for r in atlas.rois}, key=[r.name for r in atlas.rois].index)
-    vertno = load_head_model().vertno
-    out = np.zeros(2 * N_PER_HEMI, dtype=np.int32)
-    for r in atlas.rois:
-        if r.hemisphere == "both" and r.name in per_hemi:
-            continue
-        out[vertno[r.vertices]] = names.index(r.name) + 1
-    return out
+    codes = [
+        None if r.hemisphere == "both" and r.name in per_hemi else names.index(r.name) + 1
+        for r in atlas.rois
+    ]
+    return paint_rois(atlas, codes, fill=0, dtype=np.int32)
 
 
 def _qualitative_cmap(n: int):

@@ -15,6 +15,7 @@ from matplotlib.figure import Figure
 
 from ..checks import check_option
 from . import geometry
+from ._shared import save_if_asked
 from .colours import ColourScale, add_colourbar, clipped
 
 logger = logging.getLogger("sourcelab")
@@ -108,11 +109,6 @@ def _fast_outline():
         _axes.plot_brain_schematics = gb.plot_brain_schematics
 
 
-def _save(fig: Figure, output_file, dpi: int) -> None:
-    if output_file is not None:
-        fig.savefig(output_file, dpi=dpi)
-
-
 def glass_brain(
     values: np.ndarray,
     *,
@@ -189,7 +185,7 @@ def glass_brain(
     add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
-    _save(fig, output_file, dpi)
+    save_if_asked(fig, output_file, dpi)
     return fig
 
 
@@ -258,16 +254,18 @@ def surface_views(
     dpi : int
         Resolution of the figure and of ``output_file``, dots per inch.
     raster : bool
-        Paint the views from a cached face-index raster of the layout (default; the same
-        pixels as matplotlib's 3-D drawing, several times faster for a set of maps); False
-        draws the 3-D collections themselves.
+        Paint the views as one image from a cached face-index raster of the layout (default;
+        the same pixels as matplotlib's 3-D drawing in nilearn's face colours, several times
+        faster for a set of maps); False draws the 3-D collections themselves.
     output_file : str | Path | None
         If given, the figure is also saved there (format from the extension).
 
     Returns
     -------
     fig : matplotlib.figure.Figure
-        Four 3-D axes (left lateral, right lateral, left medial, right medial) and a colour bar.
+        One image axes holding the four views (left lateral, right lateral, left medial, right
+        medial; each titled) and a colour bar; with ``raster=False`` four 3-D axes instead of
+        the image.
     """
     raw = _check_values(values)
     v = geometry.to_surface(raw)
@@ -277,18 +275,20 @@ def surface_views(
         )
         if outline.shape != (geometry.N_SURFACE,):
             raise ValueError(f"outline: need shape ({geometry.N_SURFACE},), got {outline.shape}")
-    fig = plt.figure(figsize=figsize, dpi=dpi)
     top = 0.92 if title else 0.98
-    views = _draw_views(fig, v, scale, surface, outline, top)
-    if raster:
-        _rasterise_views(
-            fig, views, surface=surface, outline=outline, top=top, figsize=figsize, dpi=dpi
-        )
+    img, anchors = (
+        _raster_image(v, scale, surface, outline, top, figsize, dpi) if raster else (None, None)
+    )
+    fig = plt.figure(figsize=figsize, dpi=dpi)
+    if img is None:
+        _draw_views(fig, v, scale, surface, outline, top)
+    else:
+        _paint_views(fig, img, anchors)
     cax = fig.add_axes((0.87, 0.15, 0.02, top * 0.7))
     add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.43, y=0.995, va="top", fontsize=11)
-    _save(fig, output_file, dpi)
+    save_if_asked(fig, output_file, dpi)
     return fig
 
 
@@ -308,6 +308,7 @@ def warm_caches(func, kwargs) -> None:
         n_src = geometry.load_head_model().n_src
         geometry.sources_to_volume(np.zeros(n_src), resolution=kwargs.get("resolution", 2))
     elif func is surface_views and kwargs.get("raster", True):
+        _scratch_axes()
         outline = kwargs.get("outline")
         if outline is not None:
             outline = (
@@ -332,18 +333,18 @@ def _view_rects(top: float) -> list[tuple[float, float, float, float]]:
     ]
 
 
-def _draw_views(fig, v, scale, surface, outline, top) -> list:
-    """The four views with nilearn (matplotlib engine); returns per view (axes, surface
-    collection, outline collection or None)."""
+def _draw_views(fig, v, scale, surface, outline, top, axes=None) -> list:
+    """The four views with nilearn (matplotlib engine), in new 3-D axes of ``fig`` or in the
+    given ``axes``; returns per view (axes, surface collection, outline collection or None)."""
     from nilearn import plotting
 
     sulc = geometry.sulcal_depth()
     views = []
-    for (hemi, view), rect in zip(SURFACE_VIEWS, _view_rects(top)):
+    for k, ((hemi, view), rect) in enumerate(zip(SURFACE_VIEWS, _view_rects(top))):
         coords, faces = geometry.mesh(surface, hemi)
         h = geometry.HEMIS.index(hemi)
         sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
-        ax = fig.add_axes(rect, projection="3d")
+        ax = fig.add_axes(rect, projection="3d") if axes is None else axes[k]
         data, threshold = surface_plot_values(v[sl], scale)
         faces = _front_faces(coords, faces, hemi=hemi, view=view)
         plotting.plot_surf_stat_map(
@@ -363,7 +364,7 @@ def _draw_views(fig, v, scale, surface, outline, top) -> list:
             symmetric_cbar=scale.diverging,
             bg_on_data=True,
         )
-        surf_coll = ax.collections[0]
+        surf_coll = ax.collections[-1]
         lines = None
         if outline is not None:
             ax.computed_zorder = False  # borders are drawn over the (culled) surface
@@ -376,20 +377,24 @@ def _draw_views(fig, v, scale, surface, outline, top) -> list:
     return views
 
 
-def _rasterise_views(fig, views, *, surface, outline, top, figsize, dpi) -> None:
-    """Replace the 3-D drawing of the views by one image painted from a cached face-index
-    raster (the projection, depth order and parcel borders of a layout are computed once).
+def _raster_image(v, scale, surface, outline, top, figsize, dpi):
+    """The four views as one RGBA image of the figure (None: the cached layout does not fit),
+    and where each view's title stands (figure fractions, title baseline centre).
 
-    The face colours stay nilearn's (read from its collections); only the rasterisation moves:
-    pixel ``p`` shows the colour of the face drawn last at ``p`` in the same 3-D drawing,
-    parcel borders are blended over it with their drawn coverage.  The 3-D axes keep their
-    collections (hidden) and their titles.
+    The face colours are nilearn's (computed by :func:`plotting.plot_surf_stat_map` in the
+    never-drawn axes of :func:`_scratch_axes`); only the rasterisation moves: pixel ``p`` shows
+    the colour of the face drawn last at ``p`` in the same 3-D drawing, parcel borders are
+    blended over it with their drawn coverage.
     """
     key = None if outline is None else np.asarray(outline, np.int64).tobytes()
-    ids, cover = _face_raster(surface, float(top), tuple(figsize), int(dpi), key)
+    ids, cover, anchors = _face_raster(surface, float(top), tuple(figsize), int(dpi), key)
+    fig, axes = _scratch_axes()
+    views = _draw_views(fig, v, scale, surface, None, top, axes=axes)
     colours = np.concatenate([_face_colours(c) for _, c, _ in views])
+    for _, coll, _ in views:
+        coll.remove()
     if ids.max() >= len(colours):  # layout differs from the cached one: keep the 3-D drawing
-        return
+        return None, anchors
     img = np.zeros(ids.shape + (4,), dtype=float)
     inside = ids >= 0
     img[inside] = colours[ids[inside]]
@@ -398,14 +403,27 @@ def _rasterise_views(fig, views, *, surface, outline, top, figsize, dpi) -> None
         a = _OUTLINE_ALPHA * cover
         img[..., :3] *= (1.0 - a)[..., None]
         img[..., 3] = np.where(inside, img[..., 3], a)
-    for ax, coll, lines in views:
-        coll.set_visible(False)
-        ax.patch.set_visible(False)  # the image lies under the (now empty) 3-D axes
-        if lines is not None:
-            lines.set_visible(False)
-    over = fig.add_axes((0.0, 0.0, 1.0, 1.0), zorder=-1)
+    return img, anchors
+
+
+@functools.lru_cache(maxsize=1)
+def _scratch_axes():
+    """A figure that is never drawn with four 3-D axes, in which nilearn computes the face
+    colours of each map (this process's own; creating 3-D axes is most of a view's cost)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    fig = Figure()
+    FigureCanvasAgg(fig)
+    return fig, [fig.add_axes(rect, projection="3d") for rect in _view_rects(0.98)]
+
+
+def _paint_views(fig, img: np.ndarray, anchors) -> None:
+    """``img`` over the whole figure, and each view's title where its 3-D axes put it."""
+    over = fig.add_axes((0.0, 0.0, 1.0, 1.0))
     over.imshow(img, interpolation="nearest", aspect="auto", extent=(0, 1, 0, 1), origin="upper")
     over.set_axis_off()
+    for (hemi, view), (x, y) in zip(SURFACE_VIEWS, anchors):
+        fig.text(x, y, f"{hemi} {view}", fontsize=9, ha="center", va="baseline")
 
 
 def _face_colours(coll) -> np.ndarray:
@@ -422,8 +440,9 @@ _OUTLINE_ALPHA = 0.8
 @functools.lru_cache(maxsize=8)
 def _face_raster(surface: str, top: float, figsize: tuple, dpi: int, outline_key):
     """Face index per figure pixel of the four views (-1: no face), faces numbered view by
-    view in drawing order, and the parcel borders' coverage per pixel (0-1; None without an
-    outline), from one drawing of the layout with colours that encode face indices."""
+    view in drawing order, the parcel borders' coverage per pixel (0-1; None without an
+    outline), from one drawing of the layout with colours that encode face indices, and where
+    each view's title stands in that drawing (figure fractions)."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
     outline = None if outline_key is None else np.frombuffer(outline_key, np.int64)
@@ -448,6 +467,11 @@ def _face_raster(surface: str, top: float, figsize: tuple, dpi: int, outline_key
             lines.set_visible(False)
         offset += n
     fig.canvas.draw()
+    size = fig.bbox.size
+    anchors = tuple(
+        tuple(ax.title.get_transform().transform(ax.title.get_position()) / size)
+        for ax, _, _ in views
+    )
     buf = np.asarray(fig.canvas.buffer_rgba()).astype(np.int64)
     ids = ((buf[..., 0] << 16) | (buf[..., 1] << 8) | buf[..., 2]) - 1
     ids[buf[..., 3] < 255] = -1
@@ -461,7 +485,7 @@ def _face_raster(surface: str, top: float, figsize: tuple, dpi: int, outline_key
                 lines.set_alpha(1.0)
         fig.canvas.draw()
         cover = np.asarray(fig.canvas.buffer_rgba())[..., 3] / 255.0
-    return ids, cover
+    return ids, cover, anchors
 
 
 def _id_scale():

@@ -32,6 +32,7 @@ from matplotlib.figure import Figure
 from ..checks import check_option
 from ..constants import Z_THRESHOLD
 from ..errors import InputError
+from ._shared import check_columns, heatmap_cells, save_if_asked
 from .colours import ColourScale, add_colourbar, power_scale, z_scale
 
 _HEMI = {"left": "L", "right": "R", "both": ""}
@@ -45,10 +46,14 @@ _Z_MEANING = {
 }
 
 
-def _save(fig, output_file, dpi):
-    if output_file is not None:
-        fig.savefig(output_file, dpi=dpi)
-
+#: Columns of the pair table that :func:`pair_head_map` reads.
+PAIR_FIGURE_COLUMNS = tuple(
+    "pair channel_a channel_b band measure z homologous intrahemispheric".split()
+)
+#: Columns of the coupling table that :func:`coupling_matrix` reads.
+EDGE_FIGURE_COLUMNS = tuple(
+    "atlas roi_a hemisphere_a roi_b hemisphere_b band measure value z".split()
+)
 
 #: Short measure names for titles.
 MEASURE_TITLES = {
@@ -147,19 +152,7 @@ def _near_point(p0, p1, points: np.ndarray, tol: float):
 
 
 def _pair_rows(pair_table: pd.DataFrame, band: str, measure: str, pairs: str) -> pd.DataFrame:
-    need = {
-        "pair",
-        "channel_a",
-        "channel_b",
-        "band",
-        "measure",
-        "z",
-        "homologous",
-        "intrahemispheric",
-    }
-    missing = sorted(need - set(pair_table.columns))
-    if missing:
-        raise ValueError(f"pair_table: missing columns {missing}")
+    check_columns(pair_table, "pair_table", PAIR_FIGURE_COLUMNS)
     check_option("pairs", pairs, ("figure", "all"))
     t = pair_table[(pair_table["band"] == band) & (pair_table["measure"] == measure)]
     if t.empty:
@@ -266,17 +259,19 @@ def pair_head_map(
         lc.set_array(z[sel])
         ax.add_collection(lc)
     involved = set(t["channel_a"].to_numpy()[dev]) | set(t["channel_b"].to_numpy()[dev])
+    bold = np.array([n in involved for n in where])
+    pts = np.array(list(where.values()))
+    ax.scatter(  # one collection for all electrodes (one per electrode: ~0.1 s a figure more)
+        pts[:, 0],
+        pts[:, 1],
+        s=290,
+        facecolor="white",
+        edgecolor=np.where(bold, "0.1", "0.55").tolist(),
+        linewidths=np.where(bold, 1.4, 0.7),
+        zorder=4,
+    )
     for n, (x, y) in where.items():
         bold = n in involved
-        ax.scatter(
-            [x],
-            [y],
-            s=290,
-            facecolor="white",
-            edgecolor="0.1" if bold else "0.55",
-            linewidths=1.4 if bold else 0.7,
-            zorder=4,
-        )
         ax.text(
             x,
             y,
@@ -316,7 +311,7 @@ def pair_head_map(
     lines.append(_Z_MEANING.get(measure, "z > 0: above the norm (red); z < 0: below (blue)"))
     lines.append("grey: pairs considered; average reference; template head, 19 electrodes")
     fig.text(0.04, 0.02, "\n".join(lines), fontsize=7.5, va="bottom", color="0.15")
-    _save(fig, output_file, dpi)
+    save_if_asked(fig, output_file, dpi)
     return fig
 
 
@@ -373,20 +368,7 @@ def coupling_matrix(
         the symmetric matrix (NaN diagonal); for ``imcoh`` and ``lag_ms`` the lower triangle is
         the upper one negated (b leading a).
     """
-    need = {
-        "atlas",
-        "roi_a",
-        "hemisphere_a",
-        "roi_b",
-        "hemisphere_b",
-        "band",
-        "measure",
-        "value",
-        "z",
-    }
-    missing = sorted(need - set(coupling_table.columns))
-    if missing:
-        raise ValueError(f"coupling_table: missing columns {missing}")
+    check_columns(coupling_table, "coupling_table", EDGE_FIGURE_COLUMNS)
     atlases = list(dict.fromkeys(coupling_table["atlas"]))
     if atlas is None:
         from ..rois import DEFAULT_NETWORK_ATLAS
@@ -456,9 +438,7 @@ def coupling_matrix(
         x0 = (lab + c_ * (side + gap)) / w
         y0 = 1 - (title_h + lab + r_ * row_h + side) / h
         ax = fig.add_axes((x0, y0, side / w, side / h))
-        ax.imshow(
-            np.ma.masked_invalid(mats[k]), cmap=cmap, norm=scale.norm, interpolation="nearest"
-        )
+        heatmap_cells(ax, mats[k], cmap=cmap, norm=scale.norm)
         yy, xx = np.nonzero(flags[k])
         if yy.size:
             ax.scatter(xx, yy, s=9, c="k", marker="o", edgecolors="white", linewidths=0.5, zorder=3)
@@ -502,5 +482,5 @@ def coupling_matrix(
         color="0.15",
         va="bottom",
     )
-    _save(fig, output_file, dpi)
+    save_if_asked(fig, output_file, dpi)
     return fig

@@ -39,8 +39,16 @@ PAIR_FIGURE_MEASURES = ("msc", "lagcoh", "asymmetry")
 EDGE_FIGURE_MEASURES = ("lagcoh", "aec_orth")
 
 
+#: zlib level of figure PNGs: 1 encodes about twice as fast as PIL's default 6 and, for
+#: these flat-coloured figures, gives files no larger (measured on the demo's figure set).
+PNG_COMPRESS_LEVEL = 1
+
+
 def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
     """Render a figure to PNG bytes (and close it).
+
+    An opaque figure is written as RGB (lossless: its alpha is 255 everywhere) at zlib level
+    :data:`PNG_COMPRESS_LEVEL`; a figure with transparent pixels keeps its alpha channel.
 
     Parameters
     ----------
@@ -56,8 +64,24 @@ def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
     bytes
         The PNG file's content.
     """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi)
+    if isinstance(fig.canvas, FigureCanvasAgg) and fig.dpi == dpi:
+        import matplotlib
+        from PIL import Image, PngImagePlugin
+
+        fig.canvas.draw()
+        rgba = np.asarray(fig.canvas.buffer_rgba())
+        opaque = bool((rgba[..., 3] == 255).all())
+        img = Image.fromarray(np.ascontiguousarray(rgba[..., :3]) if opaque else rgba)
+        info = PngImagePlugin.PngInfo()
+        info.add_text(
+            "Software", f"Matplotlib version{matplotlib.__version__}, https://matplotlib.org/"
+        )
+        img.save(buf, format="png", compress_level=PNG_COMPRESS_LEVEL, pnginfo=info, dpi=(dpi, dpi))
+    else:  # another canvas or resolution: matplotlib's own writer
+        fig.savefig(buf, format="png", dpi=dpi, pil_kwargs={"compress_level": PNG_COMPRESS_LEVEL})
     if close:
         plt.close(fig)
     return buf.getvalue()
@@ -451,9 +475,13 @@ def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
         if f in (brain.glass_brain, brain.surface_views) and layout not in warmed:
             warmed.add(layout)
             brain.warm_caches(f, k)
+    # the slowest kinds (many axes or tick labels, ~0.5-1 s each) first, so that no worker is
+    # left drawing one of them alone at the end; the answer keeps the queued order
+    slow = ("coupling", "leakage", "roi-heatmap", "topomap", "topomap-z", "ocular")
+    order = sorted(jobs, key=lambda job: job[0].split("/")[0] not in slow)
     with ProcessPoolExecutor(max_workers=n_jobs, mp_context=mp.get_context("fork")) as pool:
-        futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in jobs}
-        return {key: fut.result() for key, fut in futures.items()}
+        futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in order}
+        return {key: futures[key].result() for key, _, _, _ in jobs}
 
 
 def _edges(result, band: str) -> str:

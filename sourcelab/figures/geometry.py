@@ -198,8 +198,31 @@ def atlas_labels(atlas) -> np.ndarray:
         Index into ``atlas.rois`` per surface vertex; -1 = none (the medial wall and unlabelled
         cortex).
     """
+    return paint_rois(atlas, range(len(atlas.rois)), fill=-1, dtype=np.int64)
+
+
+def paint_rois(atlas, codes, *, fill: int, dtype) -> np.ndarray:
+    """A code per surface vertex: each ROI's vertices take its code, in ROI order (the later
+    ROI wins where ROIs overlap).
+
+    Parameters
+    ----------
+    atlas : Atlas
+        ROIs whose ``vertices`` are source indices.
+    codes : iterable of int | None, one per ROI of ``atlas.rois``
+        The ROI's code; None leaves its vertices as they are.
+    fill : int
+        Code of vertices in no painted ROI.
+    dtype : numpy dtype
+
+    Returns
+    -------
+    ndarray, shape (20484,)
+        Left hemisphere first.
+    """
     vertno = load_head_model().vertno
-    lab = np.full(N_SURFACE, -1, dtype=np.int64)
-    for k, r in enumerate(atlas.rois):
-        lab[vertno[np.asarray(r.vertices, dtype=np.int64)]] = k
+    lab = np.full(N_SURFACE, fill, dtype=dtype)
+    for r, code in zip(atlas.rois, codes):
+        if code is not None:
+            lab[vertno[np.asarray(r.vertices, dtype=np.int64)]] = code
     return lab

@@ -10,6 +10,7 @@ from matplotlib.figure import Figure
 
 from ..constants import SITES_1020
 from ..errors import InputError
+from ._shared import save_if_asked
 from .colours import add_colourbar, clipped
 
 
@@ -159,7 +160,7 @@ def _sensor_topomaps(
         )
         for txt in ax.texts:  # electrode names: small, over the map
             txt.set_fontsize(6)
-        ax.set_title(band, fontsize=10)
+        ax.set_title(band, fontsize=10, y=1.0)  # the map has no ticks: no search above it
         if per_band:
             cax = fig.add_axes((0.01 + i * width + 0.15 * width, 0.19, width * 0.66, 0.035))
             cb = add_colourbar(fig, sc, cax=cax, orientation="horizontal", data=v[i])
@@ -170,6 +171,5 @@ def _sensor_topomaps(
         add_colourbar(fig, scale, cax=cax, data=v)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
-    if output_file is not None:
-        fig.savefig(output_file, dpi=dpi)
+    save_if_asked(fig, output_file, dpi)
     return fig
