@@ -21,6 +21,7 @@ import mne
 import numpy as np
 
 from .build import CONDUCTIVITY, bem_solution_from_layers
+from .mne_bridge import eeg_forward
 
 
 def rdm_mag(test: np.ndarray, ref: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -122,9 +123,7 @@ def sphere_leadfields(
         )
     out = {}
     for key, cond in (("bem", bem), ("sphere", sphere)):
-        fwd = mne.make_forward_solution(
-            info, trans=None, src=src, bem=cond, eeg=True, meg=False, mindist=0.0, verbose="error"
-        )
+        fwd = eeg_forward(info, src=src, bem=cond)
         if fwd["nsource"] != n_src:
             raise RuntimeError(f"{key} forward dropped sources")
         g = fwd["sol"]["data"]
