@@ -22,6 +22,7 @@ import numpy as np
 
 from .build import CONDUCTIVITY, bem_solution_from_layers
 from .mne_bridge import eeg_forward
+from .sites import positions_info
 
 
 def rdm_mag(test: np.ndarray, ref: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -98,8 +99,7 @@ def sphere_leadfields(
     phi = np.pi * (1 + 5**0.5) * k
     el = np.c_[np.sqrt(1 - z**2) * np.cos(phi), np.sqrt(1 - z**2) * np.sin(phi), z] * radii[2]
     names = [f"E{i:03d}" for i in range(n_el)]
-    info = mne.create_info(names, 250.0, "eeg")
-    info.set_montage(mne.channels.make_dig_montage(dict(zip(names, el)), coord_frame="head"))
+    info = positions_info(names, el)
     # sources
     d = rng.standard_normal((n_src, 3))
     d /= np.linalg.norm(d, axis=1, keepdims=True)

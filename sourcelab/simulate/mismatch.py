@@ -50,6 +50,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
+from ..spectra import average_reference_projector
 
 log = logging.getLogger("sourcelab")
 
@@ -245,11 +246,9 @@ def fit_sphere_centre(ch_pos: np.ndarray, ch_names) -> np.ndarray:
     """
     import mne
 
-    info = mne.create_info(list(ch_names), 250.0, ch_types="eeg")
-    mont = mne.channels.make_dig_montage(
-        ch_pos=dict(zip(ch_names, np.asarray(ch_pos))), coord_frame="head"
-    )
-    info.set_montage(mont, verbose="error")
+    from ..headmodel.sites import positions_info
+
+    info = positions_info(ch_names, ch_pos)
     _, origin, _ = mne.bem.fit_sphere_to_headshape(
         info, dig_kinds=("eeg",), units="m", verbose="error"
     )
@@ -292,15 +291,13 @@ def sphere_gain(
     import mne
 
     from ..headmodel.mne_bridge import eeg_forward
+    from ..headmodel.model import fixed_gain
+    from ..headmodel.sites import positions_info
 
     ch_pos_sets = np.asarray(ch_pos_sets, dtype=float)
     n_sets, n_ch, _ = ch_pos_sets.shape
     names = [f"e{s:03d}_{c:02d}" for s in range(n_sets) for c in range(n_ch)]
-    info = mne.create_info(names, 250.0, ch_types="eeg")
-    mont = mne.channels.make_dig_montage(
-        ch_pos=dict(zip(names, ch_pos_sets.reshape(-1, 3))), coord_frame="head"
-    )
-    info.set_montage(mont, verbose="error")
+    info = positions_info(names, ch_pos_sets.reshape(-1, 3))
     radii = np.asarray(radii, dtype=float)
     sphere = mne.make_sphere_model(
         r0=tuple(r0),
@@ -323,8 +320,7 @@ def sphere_gain(
         fwd = eeg_forward(info, src=src, bem=sphere, trans=trans)
         if fwd["nsource"] != sl.stop - sl.start:
             raise RuntimeError("sphere forward dropped sources")
-        g = fwd["sol"]["data"].reshape(n_sets * n_ch, -1, 3)
-        out[:, sl] = np.einsum("csk,sk->cs", g, src_nn[sl])
+        out[:, sl] = fixed_gain(fwd["sol"]["data"], src_nn[sl])
     return out.reshape(n_sets, n_ch, -1)
 
 
@@ -471,7 +467,7 @@ def noisy_csd(
     """
     g = np.asarray(topographies, dtype=float)
     n_ch, n = g.shape
-    p = np.eye(n_ch) - 1.0 / n_ch
+    p = average_reference_projector(n_ch)
     g = p @ g
     sig_pow = (g**2).mean(axis=0)  # (n,)
     noise = np.eye(n_ch)
