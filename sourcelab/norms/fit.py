@@ -27,6 +27,7 @@ from typing import Iterable, Sequence
 import numpy as np
 import pandas as pd
 
+from ..checks import check_option
 from ..errors import InputError
 from ..provenance import Fingerprint
 from .coupling import COUPLING_KINDS, UNTRIMMED_MEASURES, transform_for_coupling
@@ -299,9 +300,7 @@ def fit_norms(
     NormsFit
         The norms (``.norms``) and the leave-one-out material for calibration.
     """
-    fitters = {"regression": None, "binned": None}
-    if model not in fitters:
-        raise InputError(f"model: {model!r} is not one of {sorted(fitters)}")
+    check_option("model", model, ("binned", "regression"))
     if not (
         degree == "auto" or (isinstance(degree, (int, np.integer)) and 0 <= degree <= MAX_DEGREE)
     ):
