@@ -132,13 +132,7 @@ def fit_cohort(
     *,
     fingerprint: Fingerprint,
     condition: str,
-    model: str = "regression",
-    degree: int | str = "auto",
-    bins: Sequence[float] | None = None,
-    min_n_per_bin: int = 20,
-    robust: bool = True,
-    cohort_info: dict | None = None,
-    notes: Sequence[str] = (),
+    **fit_options,
 ):
     """Fit the table norms and the per-source norms of a cohort's analyses.
 
@@ -149,8 +143,9 @@ def fit_cohort(
         Per entry, ``{"absolute": (n_bands, n_src), "relative": (n_bands, n_src)}``.
     fingerprint : Fingerprint
     condition : str
-    model, degree, bins, min_n_per_bin, robust, cohort_info, notes
-        See :func:`sourcelab.norms.fit_norms`.
+    **fit_options
+        ``model``, ``degree``, ``bins``, ``min_n_per_bin``, ``robust``, ``cohort_info``,
+        ``notes``: passed to :func:`sourcelab.norms.fit_norms` (same defaults).
 
     Returns
     -------
@@ -165,19 +160,8 @@ def fit_cohort(
     from .headmodel import load_head_model
     from .norms.source_norms import fit_source_norms
 
-    fit = fit_norms(
-        entries,
-        fingerprint=fingerprint,
-        condition=condition,
-        model=model,
-        degree=degree,
-        bins=bins,
-        min_n_per_bin=min_n_per_bin,
-        robust=robust,
-        cohort_info=cohort_info,
-        notes=notes,
-    )
-    if model != "regression":
+    fit = fit_norms(entries, fingerprint=fingerprint, condition=condition, **fit_options)
+    if fit.norms.cohort["model"] != "regression":
         log.warning(
             "norms: age-binned norms have no per-source norms; analyses against them "
             "rank areas by their mean instead of by z-map peaks"
@@ -196,7 +180,7 @@ def fit_cohort(
         fingerprint=fingerprint.to_dict(),
         condition=condition,
         vertices=load_head_model().vertno,
-        robust=robust,
+        robust=fit.norms.cohort["robust"],
     )
     return fit, sn
 

@@ -50,6 +50,7 @@ from .ingredients import (
     read_trans,
     write_fsaverage5_subject,
 )
+from .mne_bridge import eeg_forward
 from .model import FILE_FORMAT, N_PER_HEMI
 from .sites import MONTAGE_NAME, make_info
 
@@ -314,17 +315,7 @@ def build_head_model(out_path, *, ico: int = 4, update_manifest: bool | None = N
             subjects_dir=subjects_dir,
         )
         t_bem = time.perf_counter() - t_bem
-        fwd = mne.make_forward_solution(
-            info,
-            trans=trans,
-            src=src,
-            bem=bem,
-            eeg=True,
-            meg=False,
-            mindist=0.0,
-            n_jobs=1,
-            verbose="error",
-        )
+        fwd = eeg_forward(info, src=src, bem=bem, trans=trans)
         del bem
     n_src = vertno.size
     if fwd["nsource"] != n_src or list(fwd["sol"]["row_names"]) != list(SITES_1020):

@@ -1,4 +1,8 @@
-"""MNE objects carrying exactly the shipped leadfield (for MNE's inverse and simulation tools)."""
+"""MNE objects carrying exactly the shipped leadfield (for MNE's inverse and simulation tools).
+
+Also the one call of MNE's forward solver (:func:`eeg_forward`) that the head-model build, its
+validation, this bridge and the simulations' independent sphere head share.
+"""
 
 from __future__ import annotations
 
@@ -15,6 +19,41 @@ from .sites import make_info
 
 #: Largest allowed distance (m) between the model's and the rebuilt source-space positions.
 _POS_TOL_M = 1e-6
+
+
+def eeg_forward(info: mne.Info, *, src, bem, trans=None) -> mne.Forward:
+    """EEG-only forward solution keeping every source, on one job, with MNE's messages off.
+
+    Parameters
+    ----------
+    info : mne.Info
+        EEG channels with positions (head frame).
+    src : mne.SourceSpaces
+        Source space (surface in MRI frame, or discrete positions in the head frame with
+        ``trans=None``).
+    bem : mne.bem.ConductorModel | str
+        BEM solution or sphere model.
+    trans : mne.transforms.Transform | None
+        Head -> MRI transform; None for the identity.
+
+    Returns
+    -------
+    mne.Forward
+        Free-orientation forward; ``fwd["sol"]["data"]`` has shape ``(n_eeg, 3 * n_src)``,
+        V/(A·m), not re-referenced.  ``mindist=0``: no source is dropped for lying near the
+        inner skull.
+    """
+    return mne.make_forward_solution(
+        info,
+        trans=trans,
+        src=src,
+        bem=bem,
+        eeg=True,
+        meg=False,
+        mindist=0.0,
+        n_jobs=1,
+        verbose="error",
+    )
 
 
 def to_mne_forward(model: HeadModel, info: mne.Info | None = None) -> mne.Forward:
@@ -69,17 +108,7 @@ def _template_forward(model: HeadModel) -> mne.Forward:
         src = fsaverage5_source_space(subjects_dir, vertno=model.vertno)
     # Placeholder conductor: a sphere large enough to contain every source; its gain is discarded.
     sphere = mne.make_sphere_model(r0=(0.0, 0.0, 0.0), head_radius=0.5, verbose="error")
-    fwd = mne.make_forward_solution(
-        info,
-        trans=read_trans(),
-        src=src,
-        bem=sphere,
-        eeg=True,
-        meg=False,
-        mindist=0.0,
-        n_jobs=1,
-        verbose="error",
-    )
+    fwd = eeg_forward(info, src=src, bem=sphere, trans=read_trans())
     if fwd["nsource"] != model.n_src or fwd["sol"]["data"].shape != model.gain.shape:
         raise RuntimeError("MNE forward structure does not match the head model")
     rr = np.concatenate([s["rr"][s["vertno"]] for s in fwd["src"]])

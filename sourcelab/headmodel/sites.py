@@ -78,3 +78,32 @@ def make_info(sfreq: float, *, average_reference: bool = False):
         raw.set_eeg_reference("average", projection=True, verbose="error")
         info = raw.info
     return info
+
+
+def positions_info(ch_names, ch_pos, *, sfreq: float = 250.0):
+    """``mne.Info`` for EEG electrodes at given head-frame positions (simulated heads).
+
+    Parameters
+    ----------
+    ch_names : sequence of str
+        Channel names, one per row of ``ch_pos``.
+    ch_pos : array-like, shape (n_ch, 3)
+        Electrode positions, metres, MNE head coordinates.
+    sfreq : float
+        Sampling frequency, Hz (only stored; forward models do not depend on it).
+
+    Returns
+    -------
+    info : mne.Info
+        ``n_ch`` EEG channels with a head-frame montage of those positions (no fiducials).
+    """
+    import mne
+    import numpy as np
+
+    names = list(ch_names)
+    info = mne.create_info(names, float(sfreq), ch_types="eeg")
+    mont = mne.channels.make_dig_montage(
+        ch_pos=dict(zip(names, np.asarray(ch_pos, dtype=float))), coord_frame="head"
+    )
+    info.set_montage(mont, verbose="error")
+    return info

@@ -21,6 +21,8 @@ import mne
 import numpy as np
 
 from .build import CONDUCTIVITY, bem_solution_from_layers
+from .mne_bridge import eeg_forward
+from .sites import positions_info
 
 
 def rdm_mag(test: np.ndarray, ref: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -97,8 +99,7 @@ def sphere_leadfields(
     phi = np.pi * (1 + 5**0.5) * k
     el = np.c_[np.sqrt(1 - z**2) * np.cos(phi), np.sqrt(1 - z**2) * np.sin(phi), z] * radii[2]
     names = [f"E{i:03d}" for i in range(n_el)]
-    info = mne.create_info(names, 250.0, "eeg")
-    info.set_montage(mne.channels.make_dig_montage(dict(zip(names, el)), coord_frame="head"))
+    info = positions_info(names, el)
     # sources
     d = rng.standard_normal((n_src, 3))
     d /= np.linalg.norm(d, axis=1, keepdims=True)
@@ -122,9 +123,7 @@ def sphere_leadfields(
         )
     out = {}
     for key, cond in (("bem", bem), ("sphere", sphere)):
-        fwd = mne.make_forward_solution(
-            info, trans=None, src=src, bem=cond, eeg=True, meg=False, mindist=0.0, verbose="error"
-        )
+        fwd = eeg_forward(info, src=src, bem=cond)
         if fwd["nsource"] != n_src:
             raise RuntimeError(f"{key} forward dropped sources")
         g = fwd["sol"]["data"]

@@ -10,9 +10,9 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..checks import check_option
 from ..constants import INVERSE_METHODS, ORIENTATIONS
 from .._docs import fill_doc
-from ..errors import InputError
 from ..headmodel.model import HeadModel
 from .sloreta import SourceOperator, sloreta_operator
 
@@ -91,8 +91,6 @@ def make_operator(
     SourceOperator
         Kernel of shape (n_src * n_comp, n_ch), source-major rows.
     """
-    if method not in METHODS:
-        raise InputError(f"method: {method!r} is not one of {', '.join(METHODS)}")
-    if orientation not in ORIENTATIONS:
-        raise InputError(f"orientation: {orientation!r} is not one of {', '.join(ORIENTATIONS)}")
+    check_option("method", method, METHODS)
+    check_option("orientation", orientation, ORIENTATIONS)
     return METHODS[method](model, orientation, float(lambda2))

@@ -28,6 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..checks import check_option
 from ..constants import ORIENTATIONS
 from ..errors import InputError
 from ..headmodel.model import fixed_gain
@@ -158,8 +159,7 @@ def sloreta_operator(
     ----------
     Pascual-Marqui RD (2002) Methods Find Exp Clin Pharmacol 24 Suppl D:5-12.
     """
-    if orientation not in ORIENTATIONS:
-        raise InputError(f"orientation: {orientation!r} is not one of {ORIENTATIONS}")
+    check_option("orientation", orientation, ORIENTATIONS)
     if not lambda2 > 0:
         raise InputError(f"lambda2: must be > 0, got {lambda2}")
     gain = np.asarray(gain, dtype=float)

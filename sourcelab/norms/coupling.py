@@ -49,6 +49,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..checks import check_option
 from ..errors import InputError
 from .transforms import get_transform
 
@@ -103,12 +104,7 @@ def transform_for_coupling(measure: str) -> str:
     InputError
         For an unknown measure.
     """
-    try:
-        return TRANSFORM_FOR_COUPLING[measure]
-    except (KeyError, TypeError):
-        raise InputError(
-            f"measure: {measure!r} is not one of {sorted(TRANSFORM_FOR_COUPLING)}"
-        ) from None
+    return TRANSFORM_FOR_COUPLING[check_option("measure", measure, sorted(TRANSFORM_FOR_COUPLING))]
 
 
 def transformed(values, measure: str) -> np.ndarray:

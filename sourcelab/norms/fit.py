@@ -27,6 +27,7 @@ from typing import Iterable, Sequence
 import numpy as np
 import pandas as pd
 
+from ..checks import check_option
 from ..errors import InputError
 from ..provenance import Fingerprint
 from .coupling import COUPLING_KINDS, UNTRIMMED_MEASURES, transform_for_coupling
@@ -299,9 +300,7 @@ def fit_norms(
     NormsFit
         The norms (``.norms``) and the leave-one-out material for calibration.
     """
-    fitters = {"regression": None, "binned": None}
-    if model not in fitters:
-        raise InputError(f"model: {model!r} is not one of {sorted(fitters)}")
+    check_option("model", model, ("binned", "regression"))
     if not (
         degree == "auto" or (isinstance(degree, (int, np.integer)) and 0 <= degree <= MAX_DEGREE)
     ):
@@ -470,17 +469,7 @@ def fit_norms(
 
 
 def norms_from_tables(
-    entries: Iterable,
-    *,
-    fingerprint: Fingerprint,
-    condition: str,
-    model: str = "regression",
-    degree: int | str = "auto",
-    bins: Sequence[float] | None = None,
-    min_n_per_bin: int = 20,
-    robust: bool = True,
-    cohort_info: dict | None = None,
-    notes: Sequence[str] = (),
+    entries: Iterable, *, fingerprint: Fingerprint, condition: str, **fit_options
 ) -> Norms:
     """Norms from a reference cohort's tables; see :func:`fit_norms` for the parameters.
 
@@ -493,23 +482,13 @@ def norms_from_tables(
         The pipeline that produced the tables.
     condition : str
         Recording condition, e.g. ``"eyes closed"``.
-    model, degree, bins, min_n_per_bin, robust, cohort_info, notes
-        As for :func:`fit_norms` (bin edges in years).
+    **fit_options
+        ``model``, ``degree``, ``bins`` (years), ``min_n_per_bin``, ``robust``, ``cohort_info``,
+        ``notes``: passed to :func:`fit_norms` (same defaults).
 
     Returns
     -------
     Norms
         ``fit_norms(...).norms``.
     """
-    return fit_norms(
-        entries,
-        fingerprint=fingerprint,
-        condition=condition,
-        model=model,
-        degree=degree,
-        bins=bins,
-        min_n_per_bin=min_n_per_bin,
-        robust=robust,
-        cohort_info=cohort_info,
-        notes=notes,
-    ).norms
+    return fit_norms(entries, fingerprint=fingerprint, condition=condition, **fit_options).norms

@@ -18,16 +18,21 @@ from typing import Callable
 
 import numpy as np
 
+from ..checks import check_option
 from ..errors import InputError
 
 
-def _log10(x: np.ndarray) -> np.ndarray:
+def _in_domain(x, inside: Callable[[np.ndarray], np.ndarray], problem: str) -> np.ndarray:
+    """``x`` as floats, or an InputError naming ``problem`` and the first finite values outside."""
     x = np.asarray(x, dtype=float)
-    bad = np.isfinite(x) & ~(x > 0)
+    bad = np.isfinite(x) & ~inside(x)
     if bad.any():
-        raise InputError(
-            f"log10 transform: values must be > 0 (absolute power); got {x[bad][:3].tolist()}"
-        )
+        raise InputError(f"{problem}; got {x[bad][:3].tolist()}")
+    return x
+
+
+def _log10(x: np.ndarray) -> np.ndarray:
+    x = _in_domain(x, lambda v: v > 0, "log10 transform: values must be > 0 (absolute power)")
     return np.log10(x)
 
 
@@ -36,13 +41,11 @@ def _exp10(y: np.ndarray) -> np.ndarray:
 
 
 def _logit(x: np.ndarray) -> np.ndarray:
-    x = np.asarray(x, dtype=float)
-    bad = np.isfinite(x) & ~((x > 0) & (x < 1))
-    if bad.any():
-        raise InputError(
-            f"logit transform: values must lie in the open interval (0, 1) "
-            f"(relative power); got {x[bad][:3].tolist()}"
-        )
+    x = _in_domain(
+        x,
+        lambda v: (v > 0) & (v < 1),
+        "logit transform: values must lie in the open interval (0, 1) (relative power)",
+    )
     return np.log(x) - np.log1p(-x)
 
 
@@ -56,24 +59,20 @@ def _identity(x: np.ndarray) -> np.ndarray:
 
 
 def _fisher(x: np.ndarray) -> np.ndarray:
-    x = np.asarray(x, dtype=float)
-    bad = np.isfinite(x) & ~(np.abs(x) < 1)
-    if bad.any():
-        raise InputError(
-            f"fisher transform: values must lie in (-1, 1) (a correlation-type "
-            f"measure); got {x[bad][:3].tolist()}"
-        )
+    x = _in_domain(
+        x,
+        lambda v: np.abs(v) < 1,
+        "fisher transform: values must lie in (-1, 1) (a correlation-type measure)",
+    )
     return np.arctanh(x)
 
 
 def _fisher_sqrt(x: np.ndarray) -> np.ndarray:
-    x = np.asarray(x, dtype=float)
-    bad = np.isfinite(x) & ~((x >= 0) & (x < 1))
-    if bad.any():
-        raise InputError(
-            f"fisher_sqrt transform: values must lie in [0, 1) (a squared "
-            f"coherence-type measure); got {x[bad][:3].tolist()}"
-        )
+    x = _in_domain(
+        x,
+        lambda v: (v >= 0) & (v < 1),
+        "fisher_sqrt transform: values must lie in [0, 1) (a squared coherence-type measure)",
+    )
     return np.arctanh(np.sqrt(x))
 
 
@@ -82,12 +81,7 @@ def _tanh_sq(y: np.ndarray) -> np.ndarray:
 
 
 def _fisher_ssqrt(x: np.ndarray) -> np.ndarray:
-    x = np.asarray(x, dtype=float)
-    bad = np.isfinite(x) & ~(np.abs(x) < 1)
-    if bad.any():
-        raise InputError(
-            f"fisher_ssqrt transform: values must lie in (-1, 1); got {x[bad][:3].tolist()}"
-        )
+    x = _in_domain(x, lambda v: np.abs(v) < 1, "fisher_ssqrt transform: values must lie in (-1, 1)")
     return np.arctanh(np.sign(x) * np.sqrt(np.abs(x)))
 
 
@@ -177,10 +171,7 @@ def get_transform(name: str) -> Transform:
     InputError
         For an unknown name; the message lists the allowed ones.
     """
-    try:
-        return TRANSFORMS[name]
-    except (KeyError, TypeError):
-        raise InputError(f"transform: {name!r} is not one of {sorted(TRANSFORMS)}") from None
+    return TRANSFORMS[check_option("transform", name, sorted(TRANSFORMS))]
 
 
 def transform_for_measure(measure: str) -> str:
@@ -201,12 +192,7 @@ def transform_for_measure(measure: str) -> str:
     InputError
         For any other measure.
     """
-    try:
-        return TRANSFORM_FOR_MEASURE[measure]
-    except (KeyError, TypeError):
-        raise InputError(
-            f"measure: {measure!r} is not one of {sorted(TRANSFORM_FOR_MEASURE)}"
-        ) from None
+    return TRANSFORM_FOR_MEASURE[check_option("measure", measure, sorted(TRANSFORM_FOR_MEASURE))]
 
 
 def forward(values, name: str) -> np.ndarray:

@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ..checks import check_option
 from ..constants import FDR_ALPHA, Z_THRESHOLD
 from ..errors import InputError
 from ..provenance import Fingerprint
@@ -255,8 +256,7 @@ def match_norms(
     made with different settings.
     """
     where = norms.path if norms.path is not None else "norms"
-    if kind not in _KIND_COLUMNS:
-        raise InputError(f"kind: {kind!r} is not one of {', '.join(_KIND_COLUMNS)}")
+    check_option("kind", kind, _KIND_COLUMNS)
     if not isinstance(fingerprint, Fingerprint):
         raise InputError("fingerprint: need the analysis's sourcelab Fingerprint")
     try:
@@ -384,13 +384,10 @@ def apply_norms(
     norms: Norms,
     *,
     age: float,
-    fingerprint: Fingerprint,
-    condition: str | None = None,
-    allow_extrapolation: bool = False,
-    allow_condition_mismatch: bool = False,
     kind: str = "roi",
     fdr_alpha: float = FDR_ALPHA,
     rows: NormRows | None = None,
+    **match_options,
 ) -> pd.DataFrame:
     """Z-score an analysis table against norms.
 
@@ -399,12 +396,17 @@ def apply_norms(
     roi_table : DataFrame
         An analysis ``roi_table`` or ``sensor_table`` (with a ``value`` column).
     norms : Norms
-    age, fingerprint, condition, allow_extrapolation, allow_condition_mismatch, kind
+    age : float
+        Participant's age in years (> 0).
+    kind : {"roi", "sensor", "pair", "edge"}
         See :func:`match_norms`.
     fdr_alpha : float
         FDR level for the ``fdr`` flag.
     rows : NormRows, optional
         Already matched norms (from :func:`match_norms` with the same arguments).
+    **match_options
+        ``fingerprint`` (required unless ``rows`` is given), ``condition``,
+        ``allow_extrapolation``, ``allow_condition_mismatch``: passed to :func:`match_norms`.
 
     Returns
     -------
@@ -425,16 +427,7 @@ def apply_norms(
     if "value" not in roi_table.columns:
         raise InputError(f"{kind} table lacks columns ['value']")
     if rows is None:
-        rows = match_norms(
-            roi_table,
-            norms,
-            age=age,
-            fingerprint=fingerprint,
-            condition=condition,
-            allow_extrapolation=allow_extrapolation,
-            allow_condition_mismatch=allow_condition_mismatch,
-            kind=kind,
-        )
+        rows = match_norms(roi_table, norms, age=age, kind=kind, **match_options)
     values = pd.to_numeric(roi_table["value"], errors="coerce").to_numpy(dtype=float)
     z = rows.z(values)
     pred = rows.predictive(z)

@@ -51,6 +51,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..spectra import average_reference_projector
 from ..trust.probability import FEATURES, area_features, named_area
 
 #: Between-person SD of the global background scale, natural-log units (≈ 0.2 log10).
@@ -322,7 +323,7 @@ def person_covariance(
         ln_w += a * np.exp(-0.5 * d2 / BUMP_MM**2) * (setup.hemi == setup.hemi[c])
     cov = (g * np.exp(ln_w)) @ g.T
     n_ch = g.shape[0]
-    p = np.eye(n_ch) - 1.0 / n_ch
+    p = average_reference_projector(n_ch)
     bg_pow = np.trace(p @ cov @ p) / n_ch
     cov = cov + SENSOR_NOISE_SHARE * bg_pow * np.eye(n_ch)
     if patch is not None and patch_ratio > 0:

@@ -39,16 +39,18 @@ Pascual-Marqui RD (2002).  Methods Find Exp Clin Pharmacol 24 Suppl D:5-12.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import logging
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import InputError
+from ..spectra import average_reference_projector
 
 log = logging.getLogger("sourcelab")
 
@@ -127,16 +129,7 @@ class MismatchForward:
         cols = pos[sources]
         if (cols < 0).any():
             raise InputError("sources: some are not in this mismatch forward")
-        return MismatchForward(
-            gain=self.gain[:, :, cols],
-            ch_pos=self.ch_pos,
-            sources=sources,
-            r0=self.r0,
-            radii=self.radii,
-            sigmas=self.sigmas,
-            jitter_mm=self.jitter_mm,
-            seed=self.seed,
-        )
+        return replace(self, gain=self.gain[:, :, cols], sources=sources)
 
 
 # ----------------------------------------------------------------------------- pure geometry
@@ -253,11 +246,9 @@ def fit_sphere_centre(ch_pos: np.ndarray, ch_names) -> np.ndarray:
     """
     import mne
 
-    info = mne.create_info(list(ch_names), 250.0, ch_types="eeg")
-    mont = mne.channels.make_dig_montage(
-        ch_pos=dict(zip(ch_names, np.asarray(ch_pos))), coord_frame="head"
-    )
-    info.set_montage(mont, verbose="error")
+    from ..headmodel.sites import positions_info
+
+    info = positions_info(ch_names, ch_pos)
     _, origin, _ = mne.bem.fit_sphere_to_headshape(
         info, dig_kinds=("eeg",), units="m", verbose="error"
     )
@@ -299,14 +290,14 @@ def sphere_gain(
     """
     import mne
 
+    from ..headmodel.mne_bridge import eeg_forward
+    from ..headmodel.model import fixed_gain
+    from ..headmodel.sites import positions_info
+
     ch_pos_sets = np.asarray(ch_pos_sets, dtype=float)
     n_sets, n_ch, _ = ch_pos_sets.shape
     names = [f"e{s:03d}_{c:02d}" for s in range(n_sets) for c in range(n_ch)]
-    info = mne.create_info(names, 250.0, ch_types="eeg")
-    mont = mne.channels.make_dig_montage(
-        ch_pos=dict(zip(names, ch_pos_sets.reshape(-1, 3))), coord_frame="head"
-    )
-    info.set_montage(mont, verbose="error")
+    info = positions_info(names, ch_pos_sets.reshape(-1, 3))
     radii = np.asarray(radii, dtype=float)
     sphere = mne.make_sphere_model(
         r0=tuple(r0),
@@ -326,21 +317,10 @@ def sphere_gain(
         src = mne.setup_volume_source_space(
             pos={"rr": src_pos[sl], "nn": src_nn[sl]}, mindist=0.0, verbose="error"
         )
-        fwd = mne.make_forward_solution(
-            info,
-            trans=trans,
-            src=src,
-            bem=sphere,
-            eeg=True,
-            meg=False,
-            mindist=0.0,
-            n_jobs=1,
-            verbose="error",
-        )
+        fwd = eeg_forward(info, src=src, bem=sphere, trans=trans)
         if fwd["nsource"] != sl.stop - sl.start:
             raise RuntimeError("sphere forward dropped sources")
-        g = fwd["sol"]["data"].reshape(n_sets * n_ch, -1, 3)
-        out[:, sl] = np.einsum("csk,sk->cs", g, src_nn[sl])
+        out[:, sl] = fixed_gain(fwd["sol"]["data"], src_nn[sl])
     return out.reshape(n_sets, n_ch, -1)
 
 
@@ -409,19 +389,20 @@ def mismatch_forward(
         sort_keys=True,
     )
     path = cache_dir() / f"mismatch-{hashlib.sha256(key.encode()).hexdigest()[:16]}.npz"
+    # everything but the gains and electrode positions is known before they are read or computed
+    made = functools.partial(
+        MismatchForward,
+        sources=src_idx,
+        r0=r0,
+        radii=radii,
+        sigmas=SPHERE_SIGMAS,
+        jitter_mm=jitter_mm,
+        seed=seed,
+    )
     if use_cache and path.is_file():
         with np.load(path, allow_pickle=False) as z:
             if str(z["key"]) == key:
-                return MismatchForward(
-                    gain=z["gain"].astype(np.float64),
-                    ch_pos=z["ch_pos"],
-                    sources=src_idx,
-                    r0=r0,
-                    radii=radii,
-                    sigmas=SPHERE_SIGMAS,
-                    jitter_mm=jitter_mm,
-                    seed=seed,
-                )
+                return made(gain=z["gain"].astype(np.float64), ch_pos=z["ch_pos"])
     rng = np.random.default_rng(seed)
     on = project_to_sphere(model.ch_pos, r0, radii[-1])
     sets = [on] + [
@@ -441,16 +422,7 @@ def mismatch_forward(
         tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp.npz")
         np.savez(tmp, gain=gain.astype(np.float32), ch_pos=ch_pos, key=np.array(key))
         os.replace(tmp, path)
-    return MismatchForward(
-        gain=gain,
-        ch_pos=ch_pos,
-        sources=src_idx,
-        r0=r0,
-        radii=radii,
-        sigmas=SPHERE_SIGMAS,
-        jitter_mm=jitter_mm,
-        seed=seed,
-    )
+    return made(gain=gain, ch_pos=ch_pos)
 
 
 # ----------------------------------------------------------------------------- sensor data
@@ -495,7 +467,7 @@ def noisy_csd(
     """
     g = np.asarray(topographies, dtype=float)
     n_ch, n = g.shape
-    p = np.eye(n_ch) - 1.0 / n_ch
+    p = average_reference_projector(n_ch)
     g = p @ g
     sig_pow = (g**2).mean(axis=0)  # (n,)
     noise = np.eye(n_ch)

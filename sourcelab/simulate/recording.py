@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import InputError
+from ..checks import check_option
 from ..headmodel.model import HeadModel
 from ..spectra import average_reference_projector
 
@@ -70,8 +70,7 @@ def patch_vertices(model: HeadModel, center_mni, hemisphere: str, radius_mm: flo
     ndarray of int
         Source indices (``0..n_src-1``), increasing; the nearest source is always included.
     """
-    if hemisphere not in ("left", "right"):
-        raise InputError(f"hemisphere: {hemisphere!r} is not one of left, right")
+    check_option("hemisphere", hemisphere, ("left", "right"))
     sl = slice(0, model.n_left) if hemisphere == "left" else slice(model.n_left, model.n_src)
     pos = model.src_mni[sl]
     c = pos[np.argmin(np.linalg.norm(pos - np.asarray(center_mni), axis=1))]

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..headmodel.model import fixed_gain
 from ..rois.atlas import ROI, Atlas
 
 
@@ -63,8 +64,7 @@ class SphereHead:
 
     @property
     def gain_fixed(self) -> np.ndarray:
-        g = self.gain.reshape(self.gain.shape[0], self.n_src, 3)
-        return np.einsum("csk,sk->cs", g, self.src_nn)
+        return fixed_gain(self.gain, self.src_nn)
 
 
 def sphere_head(

@@ -28,6 +28,7 @@ import json
 
 import numpy as np
 
+from ..checks import check_option
 from ..errors import InputError
 
 FEATURES = ("log1p_border_mm", "margin", "log_n_sources", "logit_own_share")
@@ -158,7 +159,6 @@ def area_probability(
         When ``kind`` has no coefficients in ``model`` or ``area`` has no sources.
     """
     model = model or shipped_model()
-    if kind not in model["coefficients"]:
-        raise InputError(f"kind: {kind!r} is not one of {sorted(model['coefficients'])}")
+    check_option("kind", kind, sorted(model["coefficients"]))
     coef = np.asarray(model["coefficients"][kind], dtype=float)
     return float(predict_logistic(coef, area_features(values, space, area, own))[0])
