@@ -50,6 +50,12 @@ CAND_MM = 25.0
 ROW_STEP = 4
 #: Exponent: maps compared as ``|m| ** POWER`` (0.5: amplitudes of power maps).
 POWER = 0.5
+#: Area evidence (:func:`area_evidence`): candidates within this radius of the peak, mm ...
+EVIDENCE_MM = 35.0
+#: ... weighted by ``exp(EVIDENCE_BETA * corr)`` ...
+EVIDENCE_BETA = 50.0
+#: ... and by a Gaussian prior of this SD (mm) on their distance from the peak (None: flat).
+EVIDENCE_SIGMA_MM: float | None = None
 
 
 @dataclass(frozen=True)
@@ -88,6 +94,23 @@ class MatchResult:
             s[np.asarray(exclude, dtype=np.int64)] = -np.inf
         o = np.argsort(-s, kind="stable")
         return o[np.isfinite(s[o])]
+
+    def posterior(self) -> np.ndarray:
+        """Scores turned into weights that sum to 1 over the areas with candidates.
+
+        Returns
+        -------
+        ndarray, shape (n_codes,)
+            ``exp(score)`` normalised (0 where the score is ``-inf``); for
+            :func:`area_evidence` the uncalibrated area posterior of the module docstring.
+        """
+        s = self.area_score
+        ok = np.isfinite(s)
+        w = np.zeros(s.size)
+        if ok.any():
+            w[ok] = np.exp(s[ok] - s[ok].max())
+            w /= w.sum()
+        return w
 
     def margin(self, area: int) -> float:
         """Score of ``area`` minus the best score of any other area (0 when alone).
@@ -136,6 +159,45 @@ def match_scores(
     MatchResult
         Candidate sources, their correlations and the best correlation per area code.
     """
+    cand, corr = candidate_correlations(
+        values, space, peak, cand_mm=cand_mm, row_step=row_step, power=power
+    )
+    score = np.full(len(space.names), -np.inf)
+    np.maximum.at(score, space.codes[cand], corr)
+    score[0] = -np.inf
+    return MatchResult(candidates=cand, corr=corr, area_score=score)
+
+
+@fill_doc
+def candidate_correlations(
+    values: np.ndarray,
+    space,
+    peak: int,
+    *,
+    cand_mm: float = CAND_MM,
+    row_step: int = ROW_STEP,
+    power: float = POWER,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Candidates within ``cand_mm`` of ``peak`` (same hemisphere) and their correlations.
+
+    Parameters
+    ----------
+    %(match_map_space_peak)s
+    cand_mm : float
+        Candidate radius, mm.
+    row_step : int
+        Row subsampling of the correlation.
+    power : float
+        Exponent of the compared maps.
+
+    Returns
+    -------
+    candidates : ndarray of int, shape (n_cand,)
+        Source indices, ascending.
+    corr : ndarray, shape (n_cand,)
+        Pearson correlation of ``|values| ** power`` with each candidate's template map
+        ``|R[:, s]| ** (2 power)`` over every ``row_step``-th source.
+    """
     v = np.asarray(values, dtype=float)
     if v.shape != (space.n_src,):
         raise InputError(f"values: need shape ({space.n_src},), got {v.shape}")
@@ -155,9 +217,109 @@ def match_scores(
     x = x - x.mean()
     nx = np.linalg.norm(x)
     corr = t.T @ (x / nx) if nx > 0 else np.zeros(cand.size)
-    score = np.full(len(space.names), -np.inf)
-    np.maximum.at(score, space.codes[cand], corr)
-    score[0] = -np.inf
+    return cand, corr
+
+
+def evidence_from_corr(
+    corr: np.ndarray,
+    area_codes: np.ndarray,
+    dist_mm: np.ndarray,
+    n_codes: int,
+    *,
+    beta: float = EVIDENCE_BETA,
+    radius_mm: float = EVIDENCE_MM,
+    sigma_mm: float | None = EVIDENCE_SIGMA_MM,
+) -> np.ndarray:
+    """Log evidence per area from candidate correlations (the area posterior's numerator).
+
+    ``log sum over candidates s in the area within radius_mm of exp(beta * corr_s -
+    dist_s**2 / (2 sigma_mm**2))``: a uniform prior over candidate sources, the Gaussian misfit
+    likelihood of unit-normalised maps (module docstring), and, when ``sigma_mm`` is given, a
+    Gaussian prior on the distance between the generator and the map's peak.
+
+    Parameters
+    ----------
+    corr : ndarray, shape (n_cand,)
+        Correlation of each candidate's template map with the observed map.
+    area_codes : ndarray of int, shape (n_cand,)
+        Area code of each candidate (0 = none: never named).
+    dist_mm : ndarray, shape (n_cand,)
+        Distance of each candidate from the peak, mm.
+    n_codes : int
+        Number of area codes (including 0).
+    beta : float
+        Inverse temperature ``1 / tau**2`` of the likelihood (>= 0; 0: candidates counted).
+    radius_mm : float
+        Candidates farther than this from the peak are left out, mm.
+    sigma_mm : float or None
+        SD of the distance prior, mm; None: flat.
+
+    Returns
+    -------
+    ndarray, shape (n_codes,)
+        Log evidence per area code (``-inf`` for code 0 and for areas without a candidate).
+    """
+    corr = np.asarray(corr, dtype=float)
+    dist_mm = np.asarray(dist_mm, dtype=float)
+    sel = dist_mm <= radius_mm
+    e = beta * corr[sel]
+    if sigma_mm is not None:
+        e = e - 0.5 * (dist_mm[sel] / sigma_mm) ** 2
+    out = np.full(int(n_codes), -np.inf)
+    if not e.size:
+        return out
+    top = e.max()
+    acc = np.zeros(int(n_codes))
+    np.add.at(acc, np.asarray(area_codes, dtype=np.int64)[sel], np.exp(e - top))
+    with np.errstate(divide="ignore"):
+        out = np.log(acc) + top
+    out[0] = -np.inf
+    return out
+
+
+@fill_doc
+def area_evidence(
+    values: np.ndarray,
+    space,
+    peak: int,
+    *,
+    beta: float = EVIDENCE_BETA,
+    radius_mm: float = EVIDENCE_MM,
+    sigma_mm: float | None = EVIDENCE_SIGMA_MM,
+    row_step: int = ROW_STEP,
+    power: float = POWER,
+) -> MatchResult:
+    """Area posterior of the generator of the map around ``peak`` (see the module docstring).
+
+    Parameters
+    ----------
+    %(match_map_space_peak)s
+    beta, radius_mm, sigma_mm
+        Of :func:`evidence_from_corr`.
+    row_step : int
+        Row subsampling of the correlation.
+    power : float
+        Exponent of the compared maps.
+
+    Returns
+    -------
+    MatchResult
+        Candidate sources, their correlations, and the log evidence per area code as
+        ``area_score`` (:meth:`MatchResult.posterior` normalises it).
+    """
+    cand, corr = candidate_correlations(
+        values, space, peak, cand_mm=radius_mm, row_step=row_step, power=power
+    )
+    dist = np.linalg.norm(space.mesh.pos_mm[cand] - space.mesh.pos_mm[peak], axis=1)
+    score = evidence_from_corr(
+        corr,
+        space.codes[cand],
+        dist,
+        len(space.names),
+        beta=beta,
+        radius_mm=radius_mm,
+        sigma_mm=sigma_mm,
+    )
     return MatchResult(candidates=cand, corr=corr, area_score=score)
 
 
@@ -180,3 +342,37 @@ def name_area(values: np.ndarray, space, peak: int, *, exclude=None, **kw) -> in
     """
     o = match_scores(values, space, peak, **kw).order(exclude)
     return int(o[0]) if o.size else 0
+
+
+#: Whether candidate lists name an area by its evidence (:func:`area_evidence`) instead of the
+#: area holding the peak.  Off in this pipeline version: switching it on changes which area
+#: (and so which own-share and probability) some candidates carry, so it goes with a
+#: PIPELINE_VERSION bump, a refit of the probability model on evidence-named areas and a demo
+#: norms rebuild (see ``benchmarks/bench_localisation.py`` for the measured effect).
+EVIDENCE_NAMING = False
+
+
+@fill_doc
+def candidate_area_code(values: np.ndarray, space, peak: int, *, exclude=()) -> int:
+    """Area code a candidate list names for ``peak`` (the one switch of the naming rule).
+
+    With :data:`EVIDENCE_NAMING` off (the default of this pipeline version): the area holding
+    the peak.  On: the area of highest evidence (:func:`area_evidence`), areas in ``exclude``
+    left out; the peak's own area when no candidate is eligible.
+
+    Parameters
+    ----------
+    %(match_map_space_peak)s
+    exclude : sequence of int
+        Area codes that cannot be named (e.g. not resolvable from 19 electrodes).
+
+    Returns
+    -------
+    code : int
+        Area code (0 only where the peak lies outside every area and evidence naming is off).
+    """
+    own_code = int(space.codes[int(peak)])
+    if not EVIDENCE_NAMING:
+        return own_code
+    o = area_evidence(values, space, peak).order(np.asarray(tuple(exclude), dtype=np.int64))
+    return int(o[0]) if o.size else own_code
