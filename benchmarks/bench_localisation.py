@@ -445,9 +445,9 @@ def main(argv=None) -> int:
 
 
 #: The area-evidence grid of ``--sweep`` (beta, radius mm, distance-prior SD mm or None).
-SWEEP_BETA = (0.0, 20.0, 40.0, 50.0, 60.0, 100.0, 1e4)
-SWEEP_RADIUS_MM = (25.0, 35.0, 50.0)
-SWEEP_SIGMA_MM = (None, 10.0, 20.0)
+SWEEP_BETA = (0.0, 20.0, 40.0, 60.0, 100.0, 1e4)
+SWEEP_RADIUS_MM = (25.0, 35.0)
+SWEEP_SIGMA_MM = (None, 20.0)
 
 
 def sweep(stored, sp):
