@@ -57,6 +57,7 @@ MODULE_TIERS = {
     "test_trust_leakage": "property",
     "test_trust_localise": "property",
     "test_trust_naming": "property",
+    "test_naming_evidence": "property",
     "test_atlas_second_opinion": "reference",
     "test_atlases": "reference",
     "test_coupling_sensor": "reference",

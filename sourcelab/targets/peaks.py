@@ -93,6 +93,7 @@ def peak_candidates(
     from ..headmodel.geometry import mni305_to_mni152
     from ..trust.probability import area_probability
     from ..trust.localise import clusters, local_maxima
+    from ..trust.naming import candidate_area_code
 
     excl = set(int(c) for c in exclude)
     rows = []
@@ -106,7 +107,9 @@ def peak_candidates(
             cl = clusters(v, space.mesh, threshold)
             seen = set()
             for s in peaks:
-                code = int(space.codes[s])
+                code = candidate_area_code(
+                    v, space, s, exclude=() if include_unresolvable else excl
+                )
                 if code == 0 or code in seen:
                     continue
                 seen.add(code)
