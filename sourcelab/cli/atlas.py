@@ -2,19 +2,18 @@
 
 from __future__ import annotations
 
+from .._docs import fill_doc
 from pathlib import Path
 
 from ..errors import InputError
+from .options import add_out
 
 
+@fill_doc
 def add_parser(sub) -> None:
     """Register the ``atlas`` sub-command with its ``list``, ``show`` and ``plot`` actions.
 
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The sub-parsers object of the ``sourcelab`` parser; every action dispatches to
-        :func:`run`.
+    %(cli_add_parser)s
     """
     p = sub.add_parser("atlas", help="list, show or plot the shipped atlases")
     asub = p.add_subparsers(dest="atlas_cmd", metavar="ACTION", required=True)
@@ -24,7 +23,7 @@ def add_parser(sub) -> None:
     s.set_defaults(func=run)
     pl = asub.add_parser("plot", help="render an atlas on the inflated surface")
     pl.add_argument("name")
-    pl.add_argument("--out", required=True, help="PNG file")
+    add_out(pl, "PNG file")
     pl.set_defaults(func=run)
 
 

@@ -6,16 +6,16 @@ Every later session is compared with the first.  Sessions must come from the sam
 
 from __future__ import annotations
 
+from .._docs import fill_doc
+from .options import add_out
 from ..cautions import SHORT
 
 
+@fill_doc
 def add_parser(sub) -> None:
     """Register the ``compare`` sub-command.
 
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The ``sourcelab`` parser's sub-parsers; the new parser's ``func`` is :func:`run`.
+    %(cli_add_parser)s
     """
     p = sub.add_parser(
         "compare",
@@ -28,7 +28,7 @@ def add_parser(sub) -> None:
         metavar="RESULT_DIR",
         help="analysis folders (first = baseline), at least two",
     )
-    p.add_argument("--out", required=True, help="output folder (replaced atomically)")
+    add_out(p)
     p.add_argument(
         "--label",
         action="append",

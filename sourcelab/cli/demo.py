@@ -2,20 +2,17 @@
 
 from __future__ import annotations
 
+from .._docs import fill_doc
+from .options import add_out, add_output_options, progress_flag
 from pathlib import Path
 
 
+@fill_doc
 def add_parser(sub) -> None:
     """Register the ``demo`` sub-command.
 
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The sub-parsers object of the ``sourcelab`` parser; the new parser dispatches to
-        :func:`run`.
+    %(cli_add_parser)s
     """
-    from .analyze import add_output_options
-
     p = sub.add_parser(
         "demo",
         help="run the pipeline on an invented demo participant",
@@ -23,7 +20,7 @@ def add_parser(sub) -> None:
         "against invented demo norms, and write tables, figures and "
         "the report.",
     )
-    p.add_argument("--out", default="sourcelab-demo", help="output folder (default: %(default)s)")
+    add_out(p, "output folder (default: %(default)s)", default="sourcelab-demo")
     add_output_options(p)
     p.add_argument(
         "--rebuild-norms",
@@ -56,7 +53,7 @@ def run(args) -> int:
     from ..outputs import write_analysis_into
     from ..provenance import atomic_output_dir
     from ..progress import Stages
-    from .analyze import print_summary, progress_flag
+    from .analyze import print_summary
 
     progress = progress_flag(args)
     if args.rebuild_norms:
