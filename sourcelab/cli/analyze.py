@@ -8,21 +8,10 @@ from pathlib import Path
 
 from .._docs import fill_doc
 from ..errors import InputError
-from .options import add_common_options, add_out, config_from_args, progress_flag
+from .options import add_common_options, add_out, config_from_args, progress_flag, subcommand
 
 
-@fill_doc
-def add_parser(sub) -> None:
-    """Register the ``analyze`` sub-command.
-
-    %(cli_add_parser)s
-    """
-    p = sub.add_parser(
-        "analyze",
-        help="analyse one recording",
-        description="Analyse one 19-channel 10-20 recording: source band power, "
-        "ROI tables, z-scores (with --norms), figures and report.",
-    )
+def _arguments(p) -> None:
     p.add_argument("recording", help="EDF/BDF/BrainVision/EEGLAB/FIF file or BIDS EEG path")
     add_out(p)
     p.add_argument("--age", type=float, help="age in years (needed with --norms)")
@@ -61,7 +50,6 @@ def add_parser(sub) -> None:
         help="z-score against norms of another condition (flagged)",
     )
     add_common_options(p)
-    p.set_defaults(func=run)
 
 
 @fill_doc
@@ -190,3 +178,14 @@ def print_summary(result, out) -> None:
         print(f"sourcelab: {line}")
     print(f"sourcelab: wrote {out}")
     print(lines[-1])
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "analyze",
+    run,
+    arguments=_arguments,
+    help="analyse one recording",
+    description="Analyse one 19-channel 10-20 recording: source band power, "
+    "ROI tables, z-scores (with --norms), figures and report.",
+)

@@ -2,20 +2,13 @@
 
 from __future__ import annotations
 
-from .._docs import fill_doc
 from pathlib import Path
 
 from ..errors import InputError
-from .options import add_out
+from .options import add_out, subcommand
 
 
-@fill_doc
-def add_parser(sub) -> None:
-    """Register the ``atlas`` sub-command with its ``list``, ``show`` and ``plot`` actions.
-
-    %(cli_add_parser)s
-    """
-    p = sub.add_parser("atlas", help="list, show or plot the shipped atlases")
+def _arguments(p) -> None:
     asub = p.add_subparsers(dest="atlas_cmd", metavar="ACTION", required=True)
     asub.add_parser("list", help="available atlases and their ROI counts").set_defaults(func=run)
     s = asub.add_parser("show", help="ROIs of one atlas with sizes and centroids")
@@ -78,3 +71,9 @@ def run(args) -> int:
     plt.close(fig)
     print(f"sourcelab: wrote {out}")
     return 0
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "atlas", run, arguments=_arguments, help="list, show or plot the shipped atlases"
+)

@@ -17,23 +17,11 @@ from .options import (
     add_out,
     config_from_args,
     progress_flag,
+    subcommand,
 )
 
 
-@fill_doc
-def add_parser(sub) -> None:
-    """Register the ``batch`` sub-command.
-
-    %(cli_add_parser)s
-    """
-    p = sub.add_parser(
-        "batch",
-        help="analyse many recordings (resumable; processes or Dask)",
-        description="Analyse every recording given (files, glob patterns, folders, a BIDS "
-        "dataset): one output folder per recording, group ROI and sensor tables, "
-        "a status and a failures file. Recordings whose outputs are up to date are "
-        "skipped. Exit code 0 all done, 1 some failed, 2 wrong input.",
-    )
+def _arguments(p) -> None:
     p.add_argument(
         "inputs",
         nargs="+",
@@ -58,7 +46,6 @@ def add_parser(sub) -> None:
     p.add_argument("--force", action="store_true", help="recompute up-to-date recordings")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     add_common_options(p)
-    p.set_defaults(func=run)
 
 
 @fill_doc
@@ -120,3 +107,16 @@ def run(args) -> int:
         print(f"sourcelab: wrote {path}")
     print(f"sourcelab: status of every recording in {summary.out / 'batch_status.tsv'}")
     return summary.exit_code
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "batch",
+    run,
+    arguments=_arguments,
+    help="analyse many recordings (resumable; processes or Dask)",
+    description="Analyse every recording given (files, glob patterns, folders, a BIDS "
+    "dataset): one output folder per recording, group ROI and sensor tables, "
+    "a status and a failures file. Recordings whose outputs are up to date are "
+    "skipped. Exit code 0 all done, 1 some failed, 2 wrong input.",
+)

@@ -6,22 +6,15 @@ Every later session is compared with the first.  Sessions must come from the sam
 
 from __future__ import annotations
 
-from .._docs import fill_doc
-from .options import add_out
 from ..cautions import SHORT
+from ..constants import ROI_KEY
+from .options import add_out, subcommand
+
+#: Columns of the changed rows printed on the terminal.
+SHOWN_COLUMNS = ("session_b", *ROI_KEY, "change_t", "change_z", "rci", "verdict")
 
 
-@fill_doc
-def add_parser(sub) -> None:
-    """Register the ``compare`` sub-command.
-
-    %(cli_add_parser)s
-    """
-    p = sub.add_parser(
-        "compare",
-        help="change across sessions of one person",
-        description=__doc__.split("\n\n")[0] + " " + SHORT,
-    )
+def _arguments(p) -> None:
     p.add_argument(
         "results",
         nargs="+",
@@ -44,7 +37,6 @@ def add_parser(sub) -> None:
     )
     p.add_argument("--n-boot", type=int, default=1000, help="bootstrap replicates per session")
     p.add_argument("--seed", type=int, default=0)
-    p.set_defaults(func=run)
 
 
 def run(args) -> int:
@@ -86,18 +78,7 @@ def run(args) -> int:
     )
     ch = table[table["verdict"] != "no change"]
     if len(ch):
-        cols = [
-            "session_b",
-            "atlas",
-            "roi",
-            "hemisphere",
-            "band",
-            "measure",
-            "change_t",
-            "change_z",
-            "rci",
-            "verdict",
-        ]
+        cols = list(SHOWN_COLUMNS)
         print(ch[cols].head(20).to_string(index=False, float_format=lambda v: f"{v:+.2f}"))
     print(
         "A change between sessions is a statistical statement about these recordings; "
@@ -105,3 +86,13 @@ def run(args) -> int:
     )
     print(SHORT)
     return 0
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "compare",
+    run,
+    arguments=_arguments,
+    help="change across sessions of one person",
+    description=__doc__.split("\n\n")[0] + " " + SHORT,
+)

@@ -2,24 +2,12 @@
 
 from __future__ import annotations
 
-from .._docs import fill_doc
-from .options import add_out, add_output_options, progress_flag
 from pathlib import Path
 
+from .options import add_out, add_output_options, progress_flag, subcommand
 
-@fill_doc
-def add_parser(sub) -> None:
-    """Register the ``demo`` sub-command.
 
-    %(cli_add_parser)s
-    """
-    p = sub.add_parser(
-        "demo",
-        help="run the pipeline on an invented demo participant",
-        description="Simulate an invented participant (no real data), analyse it "
-        "against invented demo norms, and write tables, figures and "
-        "the report.",
-    )
+def _arguments(p) -> None:
     add_out(p, "output folder (default: %(default)s)", default="sourcelab-demo")
     add_output_options(p)
     p.add_argument(
@@ -27,7 +15,6 @@ def add_parser(sub) -> None:
         metavar="TSV",
         help="instead of the demo, rebuild the invented demo norms into TSV",
     )
-    p.set_defaults(func=run)
 
 
 def run(args) -> int:
@@ -51,8 +38,8 @@ def run(args) -> int:
     from ..analysis import analyze
     from ..config import AnalysisConfig
     from ..outputs import write_analysis_into
-    from ..provenance import atomic_output_dir
     from ..progress import Stages
+    from ..provenance import atomic_output_dir
     from .analyze import print_summary
 
     progress = progress_flag(args)
@@ -110,3 +97,15 @@ def run(args) -> int:
     )
     print_summary(result, out)
     return 0
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "demo",
+    run,
+    arguments=_arguments,
+    help="run the pipeline on an invented demo participant",
+    description="Simulate an invented participant (no real data), analyse it "
+    "against invented demo norms, and write tables, figures and "
+    "the report.",
+)

@@ -7,26 +7,13 @@ matrix, ``--plot`` its heatmap.
 
 from __future__ import annotations
 
-from .._docs import fill_doc
 from pathlib import Path
 
 from ..errors import InputError
-from .options import add_hemisphere, add_inverse_options
+from .options import add_hemisphere, add_inverse_options, subcommand
 
 
-@fill_doc
-def add_parser(sub) -> None:
-    """Register the ``leakage`` sub-command.
-
-    %(cli_add_parser)s
-    """
-    p = sub.add_parser(
-        "leakage",
-        help="ROI-to-ROI leakage (cross-talk) of the inverse",
-        description="Share of an ROI's expected power that comes from each other "
-        "ROI when every cortical source is equally active "
-        "(uncorrelated, noise-free), for the chosen inverse.",
-    )
+def _arguments(p) -> None:
     p.add_argument("roi", help="ROI name, e.g. BA17 or default-mode (case-insensitive)")
     p.add_argument("--atlas", default="brodmann", help="atlas name (default brodmann)")
     add_hemisphere(p, "hemisphere, needed when the name exists in several")
@@ -34,7 +21,6 @@ def add_parser(sub) -> None:
     add_inverse_options(p, defaults=True)
     p.add_argument("--tsv", metavar="FILE", help="also write the whole matrix as TSV")
     p.add_argument("--plot", metavar="PNG", help="also write the matrix heatmap as PNG")
-    p.set_defaults(func=run)
 
 
 def run(args) -> int:
@@ -98,3 +84,15 @@ def run(args) -> int:
     for path in written:
         print(f"sourcelab: wrote {path}")
     return 0
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "leakage",
+    run,
+    arguments=_arguments,
+    help="ROI-to-ROI leakage (cross-talk) of the inverse",
+    description="Share of an ROI's expected power that comes from each other "
+    "ROI when every cortical source is equally active "
+    "(uncorrelated, noise-free), for the chosen inverse.",
+)

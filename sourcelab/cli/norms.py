@@ -2,18 +2,12 @@
 
 from __future__ import annotations
 
-from .._docs import fill_doc
+from .options import subcommand
 
 
-@fill_doc
-def add_parser(sub) -> None:
-    """Register the ``norms`` sub-command with its ``build`` and ``check`` actions.
-
-    %(cli_add_parser)s
-    """
+def _arguments(p) -> None:
     from .options import add_common_options, add_engine_options, add_out
 
-    p = sub.add_parser("norms", help="build norms from reference recordings, or check a file")
     nsub = p.add_subparsers(dest="norms_cmd", metavar="ACTION", required=True)
     b = nsub.add_parser("build", help="build norms from a folder of reference recordings")
     b.add_argument("cohort", help="folder of recordings or a BIDS dataset")
@@ -87,3 +81,12 @@ def run(args) -> int:
         f"calibration report {built.report_path}"
     )
     return 0
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "norms",
+    run,
+    arguments=_arguments,
+    help="build norms from reference recordings, or check a file",
+)

@@ -7,6 +7,7 @@ something narrower passes its own ``help`` (and, where it differs, its own defau
 
 from __future__ import annotations
 
+from .._docs import docdict
 from ..constants import INVERSE_METHODS, ORIENTATIONS
 
 #: Usual help of ``--out`` when it names an output folder.
@@ -17,6 +18,38 @@ HEMISPHERES = ("left", "right", "both")
 ENGINES = ("serial", "processes", "dask")
 #: Help of ``--snr`` (amplitude ratio; the default is AnalysisConfig's).
 SNR_HELP = "amplitude SNR; lambda2 = 1/SNR^2 (default 3)"
+
+
+def subcommand(name: str, run, *, arguments, help: str, description: str | None = None):
+    """Make a sub-command module's ``add_parser(sub)`` (one home for the registration).
+
+    Parameters
+    ----------
+    name : str
+        The sub-command (``sourcelab NAME``).
+    run : callable
+        ``run(args) -> int``, the parser's ``func``.
+    arguments : callable
+        ``arguments(p)`` adds the sub-command's arguments (and actions) to its parser ``p``.
+    help : str
+        Its line in ``sourcelab --help``.
+    description : str, optional
+        The text of ``sourcelab NAME --help``.
+
+    Returns
+    -------
+    add_parser : callable
+        ``add_parser(sub)``: adds the sub-command to the ``sourcelab`` parser's sub-parsers
+        ``sub``, as every module of :data:`sourcelab.cli.main.COMMANDS` provides.
+    """
+
+    def add_parser(sub) -> None:
+        p = sub.add_parser(name, help=help, description=description)
+        arguments(p)
+        p.set_defaults(func=run)
+
+    add_parser.__doc__ = f"Register the ``{name}`` sub-command.\n\n" + docdict["cli_add_parser"]
+    return add_parser
 
 
 def add_out(p, help: str = OUT_HELP, **kwargs) -> None:

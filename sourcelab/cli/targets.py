@@ -14,26 +14,15 @@ The list is a statistical summary; choosing a training target rests with a licen
 
 from __future__ import annotations
 
-from .._docs import fill_doc
 from pathlib import Path
 
 from ..cautions import SHORT
 from ..constants import Z_THRESHOLD
 from ..errors import InputError
-from .options import add_hemisphere, add_out
+from .options import add_hemisphere, add_out, subcommand
 
 
-@fill_doc
-def add_parser(sub) -> None:
-    """Register the ``targets`` sub-command and its list, export, replay and stream actions.
-
-    %(cli_add_parser)s
-    """
-    p = sub.add_parser(
-        "targets",
-        help="deviating regions/networks, target files and replay",
-        description=__doc__.split("\n\n")[0] + " " + SHORT,
-    )
+def _arguments(p) -> None:
     tsub = p.add_subparsers(dest="targets_cmd", metavar="ACTION", required=True)
 
     ls = tsub.add_parser("list", help="rank ROIs and networks that deviate from the norm")
@@ -317,8 +306,9 @@ def _stream(args) -> int:
     from ..targets import read_target
 
     try:
-        from ..targets.stream import run_stream
         import mne_lsl  # noqa: F401
+
+        from ..targets.stream import run_stream
     except ImportError:
         raise InputError("live streaming needs mne-lsl: pip install 'sourcelab[live]'") from None
     target = read_target(args.target)
@@ -390,3 +380,13 @@ def run(args) -> int:
         For bad arguments or input files; the CLI turns it into one line and exit code 2.
     """
     return _ACTIONS[args.targets_cmd](args)
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "targets",
+    run,
+    arguments=_arguments,
+    help="deviating regions/networks, target files and replay",
+    description=__doc__.split("\n\n")[0] + " " + SHORT,
+)
