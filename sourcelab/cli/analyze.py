@@ -184,7 +184,7 @@ def print_summary(result, out) -> None:
 add_parser = subcommand(
     "analyze",
     run,
-    arguments=_arguments,
+    _arguments,
     help="analyse one recording",
     description="Analyse one 19-channel 10-20 recording: source band power, "
     "ROI tables, z-scores (with --norms), figures and report.",

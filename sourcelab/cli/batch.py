@@ -113,7 +113,7 @@ def run(args) -> int:
 add_parser = subcommand(
     "batch",
     run,
-    arguments=_arguments,
+    _arguments,
     help="analyse many recordings (resumable; processes or Dask)",
     description="Analyse every recording given (files, glob patterns, folders, a BIDS "
     "dataset): one output folder per recording, group ROI and sensor tables, "

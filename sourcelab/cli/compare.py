@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from ..cautions import SHORT
 from ..constants import ROI_KEY
-from .options import add_out, subcommand
+from .options import add_out, subcommand, with_cautions
 
 #: Columns of the changed rows printed on the terminal.
 SHOWN_COLUMNS = ("session_b", *ROI_KEY, "change_t", "change_z", "rci", "verdict")
@@ -92,7 +92,7 @@ def run(args) -> int:
 add_parser = subcommand(
     "compare",
     run,
-    arguments=_arguments,
+    _arguments,
     help="change across sessions of one person",
-    description=__doc__.split("\n\n")[0] + " " + SHORT,
+    description=with_cautions(__doc__),
 )

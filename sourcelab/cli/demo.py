@@ -103,7 +103,7 @@ def run(args) -> int:
 add_parser = subcommand(
     "demo",
     run,
-    arguments=_arguments,
+    _arguments,
     help="run the pipeline on an invented demo participant",
     description="Simulate an invented participant (no real data), analyse it "
     "against invented demo norms, and write tables, figures and "

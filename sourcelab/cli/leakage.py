@@ -90,7 +90,7 @@ def run(args) -> int:
 add_parser = subcommand(
     "leakage",
     run,
-    arguments=_arguments,
+    _arguments,
     help="ROI-to-ROI leakage (cross-talk) of the inverse",
     description="Share of an ROI's expected power that comes from each other "
     "ROI when every cortical source is equally active "

@@ -85,8 +85,5 @@ def run(args) -> int:
 
 #: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
 add_parser = subcommand(
-    "norms",
-    run,
-    arguments=_arguments,
-    help="build norms from reference recordings, or check a file",
+    "norms", run, _arguments, help="build norms from reference recordings, or check a file"
 )

@@ -8,6 +8,7 @@ something narrower passes its own ``help`` (and, where it differs, its own defau
 from __future__ import annotations
 
 from .._docs import docdict
+from ..cautions import SHORT
 from ..constants import INVERSE_METHODS, ORIENTATIONS
 
 #: Usual help of ``--out`` when it names an output folder.
@@ -20,7 +21,7 @@ ENGINES = ("serial", "processes", "dask")
 SNR_HELP = "amplitude SNR; lambda2 = 1/SNR^2 (default 3)"
 
 
-def subcommand(name: str, run, *, arguments, help: str, description: str | None = None):
+def subcommand(name: str, run, arguments, *, help: str, description: str | None = None):
     """Make a sub-command module's ``add_parser(sub)`` (one home for the registration).
 
     Parameters
@@ -50,6 +51,23 @@ def subcommand(name: str, run, *, arguments, help: str, description: str | None 
 
     add_parser.__doc__ = f"Register the ``{name}`` sub-command.\n\n" + docdict["cli_add_parser"]
     return add_parser
+
+
+def with_cautions(doc: str) -> str:
+    """A sub-command's description: its module docstring's first paragraph, then the short
+    cautions (:data:`sourcelab.cautions.SHORT`).
+
+    Parameters
+    ----------
+    doc : str
+        The module docstring.
+
+    Returns
+    -------
+    str
+        One paragraph of text.
+    """
+    return doc.split("\n\n")[0] + " " + SHORT
 
 
 def add_out(p, help: str = OUT_HELP, **kwargs) -> None:

@@ -19,7 +19,7 @@ from pathlib import Path
 from ..cautions import SHORT
 from ..constants import Z_THRESHOLD
 from ..errors import InputError
-from .options import add_hemisphere, add_out, subcommand
+from .options import add_hemisphere, add_out, subcommand, with_cautions
 
 
 def _arguments(p) -> None:
@@ -386,7 +386,7 @@ def run(args) -> int:
 add_parser = subcommand(
     "targets",
     run,
-    arguments=_arguments,
+    _arguments,
     help="deviating regions/networks, target files and replay",
-    description=__doc__.split("\n\n")[0] + " " + SHORT,
+    description=with_cautions(__doc__),
 )
