@@ -71,6 +71,40 @@ space : CortexSpace
 peak : int
     Source index of the peak."""
 
+# ------------------------------------------------------------------------------ command line
+#: The whole Parameters section of a sub-command's ``add_parser(sub)``.
+docdict["cli_add_parser"] = (
+    _SECTION
+    + """\
+sub : argparse._SubParsersAction
+    The ``sourcelab`` parser's sub-parsers; every parser added dispatches to :func:`run`."""
+)
+
+#: The Parameters section of a sub-command's ``run(args)``.
+docdict["cli_run_args"] = (
+    _SECTION
+    + """\
+args : argparse.Namespace
+    The parsed command line (see :func:`add_parser` for this sub-command's options)."""
+)
+
+# ---------------------------------------------------------------------- candidate selection
+docdict["max_n_include"] = """\
+max_n : int, optional
+    Keep the first ``max_n`` rows.
+include : tuple of str, optional
+    Atlases to rank (default: all in the table)."""
+
+# ------------------------------------------------------------------------- source-map exports
+docdict["source_map_measures"] = """\
+measures : sequence of {"absolute", "relative", "z_absolute", "z_relative"}
+    Absolute (standardised sLORETA) source power, relative power (fraction of total) or
+    per-source z."""
+
+docdict["file_prefix"] = """\
+prefix : str
+    Prepended to every file name."""
+
 
 def _indent(text: str, indent: str) -> str:
     first, *rest = text.splitlines()

@@ -42,6 +42,9 @@ INVERSE_METHODS: tuple[str, ...] = ("sLORETA", "eLORETA", "dSPM")
 ORIENTATIONS: tuple[str, ...] = ("fixed", "free")
 #: Band-power measures.
 MEASURES: tuple[str, ...] = ("absolute", "relative")
+#: Columns that name one row of an ROI table (atlas, region, side, band, measure), in the order
+#: every ROI-level table (ROI table, candidates, deviations, leakage hints) starts them.
+ROI_KEY: tuple[str, ...] = ("atlas", "roi", "hemisphere", "band", "measure")
 
 #: Units of the values, by measure (column descriptions in the table sidecars).
 UNITS = {

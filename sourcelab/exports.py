@@ -26,6 +26,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ._docs import fill_doc
 from .checks import check_option
 from .errors import InputError
 from .provenance import atomic_output_dir, atomic_write_text, safe_name
@@ -267,6 +268,15 @@ def _maps(result, measure: str) -> np.ndarray:
     return arr
 
 
+def _band_maps(result, measures):
+    """``(measure, band, values)`` for every measure, then band: values of shape (n_src,)."""
+    for measure in measures:
+        maps = _maps(result, measure)
+        for b, band in enumerate(result.bands.names):
+            yield measure, band, maps[b]
+
+
+@fill_doc
 def export_stc(result, out_dir, *, measures=MEASURES) -> list[Path]:
     """Write one MNE SourceEstimate per band and measure.
 
@@ -274,7 +284,7 @@ def export_stc(result, out_dir, *, measures=MEASURES) -> list[Path]:
     ----------
     result : AnalysisResult
     out_dir : str | Path
-    measures : sequence of {"absolute", "relative", "z_absolute", "z_relative"}
+    %(source_map_measures)s
 
     Returns
     -------
@@ -292,19 +302,17 @@ def export_stc(result, out_dir, *, measures=MEASURES) -> list[Path]:
     out_dir = Path(out_dir)
     stems = []
     with _staged(out_dir) as tmp:
-        for measure in measures:
-            maps = _maps(result, measure)
-            for b, band in enumerate(result.bands.names):
-                stem = f"{measure}_{safe_name(band)}"
-                stc = mne.SourceEstimate(
-                    maps[b][:, None].astype(np.float64),
-                    vertices,
-                    tmin=0.0,
-                    tstep=1.0,
-                    subject="fsaverage",
-                )
-                stc.save(tmp / stem, ftype="stc", overwrite=True, verbose="error")
-                stems.append(out_dir / stem)
+        for measure, band, values in _band_maps(result, measures):
+            stem = f"{measure}_{safe_name(band)}"
+            stc = mne.SourceEstimate(
+                values[:, None].astype(np.float64),
+                vertices,
+                tmin=0.0,
+                tstep=1.0,
+                subject="fsaverage",
+            )
+            stc.save(tmp / stem, ftype="stc", overwrite=True, verbose="error")
+            stems.append(out_dir / stem)
     return stems
 
 
@@ -324,6 +332,7 @@ def _gifti(values: np.ndarray, band_names) -> object:
     return img
 
 
+@fill_doc
 def export_gifti(result, out_dir, *, measures=MEASURES, prefix: str = "") -> list[Path]:
     """Write GIfTI functional files, one per hemisphere and measure, one data array per band.
 
@@ -337,11 +346,8 @@ def export_gifti(result, out_dir, *, measures=MEASURES, prefix: str = "") -> lis
     out_dir : str | Path
         Output folder (created; files are written to a temporary folder inside it and renamed
         into place).
-    measures : sequence of {"absolute", "relative", "z_absolute", "z_relative"}
-        Absolute (standardised sLORETA) source power, relative power (fraction of total) or
-        per-source z.
-    prefix : str
-        Prepended to every file name.
+    %(source_map_measures)s
+    %(file_prefix)s
 
     Returns
     -------
@@ -365,6 +371,7 @@ def export_gifti(result, out_dir, *, measures=MEASURES, prefix: str = "") -> lis
     return paths
 
 
+@fill_doc
 def export_nifti(
     result, out_dir, *, measures=MEASURES, resolution: int = 2, prefix: str = ""
 ) -> list[Path]:
@@ -379,13 +386,10 @@ def export_nifti(
         An analysed recording; maps of shape (n_bands, n_src).
     out_dir : str | Path
         Output folder (created; files are staged in a temporary folder inside it, then renamed).
-    measures : sequence of {"absolute", "relative", "z_absolute", "z_relative"}
-        Absolute (standardised sLORETA) source power, relative power (fraction of total) or
-        per-source z.
+    %(source_map_measures)s
     resolution : {2, 3}
         Voxel size, mm.
-    prefix : str
-        Prepended to every file name.
+    %(file_prefix)s
 
     Returns
     -------
@@ -399,12 +403,10 @@ def export_nifti(
     out_dir = Path(out_dir)
     paths = []
     with _staged(out_dir) as tmp:
-        for measure in measures:
-            maps = _maps(result, measure)
-            for b, band in enumerate(result.bands.names):
-                name = f"{prefix}{measure}_{safe_name(band)}.nii.gz"
-                nib.save(sources_to_volume(maps[b], resolution=resolution), tmp / name)
-                paths.append(out_dir / name)
+        for measure, band, values in _band_maps(result, measures):
+            name = f"{prefix}{measure}_{safe_name(band)}.nii.gz"
+            nib.save(sources_to_volume(values, resolution=resolution), tmp / name)
+            paths.append(out_dir / name)
     return paths
 
 

@@ -6,95 +6,14 @@ import re
 import sys
 from pathlib import Path
 
+from .._docs import fill_doc
 from ..errors import InputError
+from .options import add_common_options, add_out, config_from_args, progress_flag, subcommand
 
 
-def add_common_options(p) -> None:
-    """Options shared by analyze, demo and batch.
-
-    Parameters
-    ----------
-    p : argparse.ArgumentParser
-        Sub-command parser to extend in place with ``--config``, ``--method``, ``--orientation``,
-        ``--snr`` (amplitude SNR, λ² = 1/SNR²) and the output options of
-        :func:`add_output_options`.
-    """
-    p.add_argument("--config", metavar="TOML", help="analysis configuration file")
-    p.add_argument("--method", choices=("sLORETA", "eLORETA", "dSPM"), help="inverse method")
-    p.add_argument("--orientation", choices=("fixed", "free"), help="source orientation")
-    p.add_argument("--snr", type=float, help="amplitude SNR; lambda2 = 1/SNR^2 (default 3)")
-    add_output_options(p)
-
-
-def add_output_options(p) -> None:
-    """Options that skip the slow outputs (analyze, demo, batch).
-
-    Parameters
-    ----------
-    p : argparse.ArgumentParser
-        Sub-command parser to extend in place with ``--no-figures``, ``--no-report`` and
-        ``--no-maps``.
-    """
-    p.add_argument("--no-figures", action="store_true", help="tables and provenance only")
-    p.add_argument("--no-report", action="store_true", help="skip the HTML report")
-    p.add_argument(
-        "--no-maps", action="store_true", help="skip the source-map exports (STC, GIfTI, NIfTI)"
-    )
-
-
-def config_from_args(args):
-    """The analysis configuration from ``--config`` with the command-line overrides applied.
-
-    Parameters
-    ----------
-    args : argparse.Namespace
-        Parsed arguments with ``config`` (TOML path or None), ``method``, ``orientation`` and
-        ``snr`` (each None when not given on the command line).
-
-    Returns
-    -------
-    config : sourcelab.config.AnalysisConfig
-        The configuration read by :func:`sourcelab.config.load_config`; flags override the
-        file.
-    """
-    from ..config import load_config
-
-    return load_config(args.config, method=args.method, orientation=args.orientation, snr=args.snr)
-
-
-def progress_flag(args) -> bool | None:
-    """Progress bars: off with ``-q``, else only when standard error is a terminal (None).
-
-    Parameters
-    ----------
-    args : argparse.Namespace
-        Parsed arguments; ``quiet`` is read when present.
-
-    Returns
-    -------
-    enabled : bool or None
-        False with ``-q``; None (decide from whether standard error is a terminal) otherwise.
-    """
-    return False if getattr(args, "quiet", False) else None
-
-
-def add_parser(sub) -> None:
-    """Register the ``analyze`` sub-command.
-
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The sub-parsers object of the ``sourcelab`` parser; the new parser dispatches to
-        :func:`run`.
-    """
-    p = sub.add_parser(
-        "analyze",
-        help="analyse one recording",
-        description="Analyse one 19-channel 10-20 recording: source band power, "
-        "ROI tables, z-scores (with --norms), figures and report.",
-    )
+def _arguments(p) -> None:
     p.add_argument("recording", help="EDF/BDF/BrainVision/EEGLAB/FIF file or BIDS EEG path")
-    p.add_argument("--out", required=True, help="output folder (replaced atomically)")
+    add_out(p)
     p.add_argument("--age", type=float, help="age in years (needed with --norms)")
     p.add_argument("--norms", help="norms TSV (sourcelab norms format)")
     p.add_argument("--condition", help='recording condition, e.g. "eyes closed" (EC/EO accepted)')
@@ -131,16 +50,13 @@ def add_parser(sub) -> None:
         help="z-score against norms of another condition (flagged)",
     )
     add_common_options(p)
-    p.set_defaults(func=run)
 
 
+@fill_doc
 def run(args) -> int:
     """Analyse one recording and write its output folder (``sourcelab analyze``).
 
-    Parameters
-    ----------
-    args : argparse.Namespace
-        Parsed ``analyze`` arguments (see :func:`add_parser`).
+    %(cli_run_args)s
 
     Returns
     -------
@@ -262,3 +178,14 @@ def print_summary(result, out) -> None:
         print(f"sourcelab: {line}")
     print(f"sourcelab: wrote {out}")
     print(lines[-1])
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "analyze",
+    run,
+    _arguments,
+    help="analyse one recording",
+    description="Analyse one 19-channel 10-20 recording: source band power, "
+    "ROI tables, z-scores (with --norms), figures and report.",
+)

@@ -5,18 +5,10 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..errors import InputError
+from .options import add_out, subcommand
 
 
-def add_parser(sub) -> None:
-    """Register the ``atlas`` sub-command with its ``list``, ``show`` and ``plot`` actions.
-
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The sub-parsers object of the ``sourcelab`` parser; every action dispatches to
-        :func:`run`.
-    """
-    p = sub.add_parser("atlas", help="list, show or plot the shipped atlases")
+def _arguments(p) -> None:
     asub = p.add_subparsers(dest="atlas_cmd", metavar="ACTION", required=True)
     asub.add_parser("list", help="available atlases and their ROI counts").set_defaults(func=run)
     s = asub.add_parser("show", help="ROIs of one atlas with sizes and centroids")
@@ -24,7 +16,7 @@ def add_parser(sub) -> None:
     s.set_defaults(func=run)
     pl = asub.add_parser("plot", help="render an atlas on the inflated surface")
     pl.add_argument("name")
-    pl.add_argument("--out", required=True, help="PNG file")
+    add_out(pl, "PNG file")
     pl.set_defaults(func=run)
 
 
@@ -79,3 +71,9 @@ def run(args) -> int:
     plt.close(fig)
     print(f"sourcelab: wrote {out}")
     return 0
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "atlas", run, arguments=_arguments, help="list, show or plot the shipped atlases"
+)

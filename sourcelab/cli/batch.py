@@ -10,33 +10,25 @@ from __future__ import annotations
 import logging
 import sys
 
+from .._docs import fill_doc
+from .options import (
+    add_common_options,
+    add_engine_options,
+    add_out,
+    config_from_args,
+    progress_flag,
+    subcommand,
+)
 
-def add_parser(sub) -> None:
-    """Register the ``batch`` sub-command.
 
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The sub-parsers object of the ``sourcelab`` parser; the new parser dispatches to
-        :func:`run`.
-    """
-    from .analyze import add_common_options
-
-    p = sub.add_parser(
-        "batch",
-        help="analyse many recordings (resumable; processes or Dask)",
-        description="Analyse every recording given (files, glob patterns, folders, a BIDS "
-        "dataset): one output folder per recording, group ROI and sensor tables, "
-        "a status and a failures file. Recordings whose outputs are up to date are "
-        "skipped. Exit code 0 all done, 1 some failed, 2 wrong input.",
-    )
+def _arguments(p) -> None:
     p.add_argument(
         "inputs",
         nargs="+",
         metavar="INPUT",
         help="recording file, glob pattern (quote it), folder or BIDS dataset",
     )
-    p.add_argument("--out", required=True, help="batch output folder")
+    add_out(p, "batch output folder")
     p.add_argument(
         "--participants",
         metavar="TSV",
@@ -44,36 +36,23 @@ def add_parser(sub) -> None:
     )
     p.add_argument("--norms", help="norms TSV for z-scores (every recording then needs an age)")
     p.add_argument("--condition", help='recording condition, e.g. "eyes closed"')
-    p.add_argument(
-        "--workers",
-        type=int,
-        default=1,
-        help="parallel workers on this machine (default: %(default)s)",
-    )
-    p.add_argument(
-        "--engine",
-        choices=("serial", "processes", "dask"),
-        help="execution engine (default: serial for 1 worker, processes for more, "
+    add_engine_options(
+        p,
+        workers_help="parallel workers on this machine (default: %(default)s)",
+        engine_help="execution engine (default: serial for 1 worker, processes for more, "
         "dask with --scheduler)",
-    )
-    p.add_argument(
-        "--scheduler",
-        metavar="ADDRESS",
-        help="Dask scheduler address, e.g. tcp://10.0.0.5:8786 (needs sourcelab[dist])",
+        scheduler_help="Dask scheduler address, e.g. tcp://10.0.0.5:8786 (needs sourcelab[dist])",
     )
     p.add_argument("--force", action="store_true", help="recompute up-to-date recordings")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     add_common_options(p)
-    p.set_defaults(func=run)
 
 
+@fill_doc
 def run(args) -> int:
     """Analyse every recording found in the inputs into one folder each (``sourcelab batch``).
 
-    Parameters
-    ----------
-    args : argparse.Namespace
-        Parsed ``batch`` arguments (see :func:`add_parser`).
+    %(cli_run_args)s
 
     Returns
     -------
@@ -84,7 +63,6 @@ def run(args) -> int:
     """
     from ..batch import discover, make_engine, run_batch
     from ..errors import InputError
-    from .analyze import config_from_args
 
     if args.workers < 1:
         raise InputError(f"--workers: must be >= 1, got {args.workers}")
@@ -113,7 +91,7 @@ def run(args) -> int:
                 figures=not args.no_figures,
                 report=not args.no_report,
                 exports=not args.no_maps,
-                progress=(False if args.no_progress or args.quiet else None),
+                progress=progress_flag(args),
                 command=["sourcelab", *sys.argv[1:]],
             )
     finally:
@@ -129,3 +107,16 @@ def run(args) -> int:
         print(f"sourcelab: wrote {path}")
     print(f"sourcelab: status of every recording in {summary.out / 'batch_status.tsv'}")
     return summary.exit_code
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "batch",
+    run,
+    _arguments,
+    help="analyse many recordings (resumable; processes or Dask)",
+    description="Analyse every recording given (files, glob patterns, folders, a BIDS "
+    "dataset): one output folder per recording, group ROI and sensor tables, "
+    "a status and a failures file. Recordings whose outputs are up to date are "
+    "skipped. Exit code 0 all done, 1 some failed, 2 wrong input.",
+)

@@ -7,28 +7,21 @@ Every later session is compared with the first.  Sessions must come from the sam
 from __future__ import annotations
 
 from ..cautions import SHORT
+from ..constants import ROI_KEY
+from .options import add_out, subcommand, with_cautions
+
+#: Columns of the changed rows printed on the terminal.
+SHOWN_COLUMNS = ("session_b", *ROI_KEY, "change_t", "change_z", "rci", "verdict")
 
 
-def add_parser(sub) -> None:
-    """Register the ``compare`` sub-command.
-
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The ``sourcelab`` parser's sub-parsers; the new parser's ``func`` is :func:`run`.
-    """
-    p = sub.add_parser(
-        "compare",
-        help="change across sessions of one person",
-        description=__doc__.split("\n\n")[0] + " " + SHORT,
-    )
+def _arguments(p) -> None:
     p.add_argument(
         "results",
         nargs="+",
         metavar="RESULT_DIR",
         help="analysis folders (first = baseline), at least two",
     )
-    p.add_argument("--out", required=True, help="output folder (replaced atomically)")
+    add_out(p)
     p.add_argument(
         "--label",
         action="append",
@@ -44,7 +37,6 @@ def add_parser(sub) -> None:
     )
     p.add_argument("--n-boot", type=int, default=1000, help="bootstrap replicates per session")
     p.add_argument("--seed", type=int, default=0)
-    p.set_defaults(func=run)
 
 
 def run(args) -> int:
@@ -86,18 +78,7 @@ def run(args) -> int:
     )
     ch = table[table["verdict"] != "no change"]
     if len(ch):
-        cols = [
-            "session_b",
-            "atlas",
-            "roi",
-            "hemisphere",
-            "band",
-            "measure",
-            "change_t",
-            "change_z",
-            "rci",
-            "verdict",
-        ]
+        cols = list(SHOWN_COLUMNS)
         print(ch[cols].head(20).to_string(index=False, float_format=lambda v: f"{v:+.2f}"))
     print(
         "A change between sessions is a statistical statement about these recordings; "
@@ -105,3 +86,13 @@ def run(args) -> int:
     )
     print(SHORT)
     return 0
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "compare",
+    run,
+    _arguments,
+    help="change across sessions of one person",
+    description=with_cautions(__doc__),
+)

@@ -4,33 +4,17 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from .options import add_out, add_output_options, progress_flag, subcommand
 
-def add_parser(sub) -> None:
-    """Register the ``demo`` sub-command.
 
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The sub-parsers object of the ``sourcelab`` parser; the new parser dispatches to
-        :func:`run`.
-    """
-    from .analyze import add_output_options
-
-    p = sub.add_parser(
-        "demo",
-        help="run the pipeline on an invented demo participant",
-        description="Simulate an invented participant (no real data), analyse it "
-        "against invented demo norms, and write tables, figures and "
-        "the report.",
-    )
-    p.add_argument("--out", default="sourcelab-demo", help="output folder (default: %(default)s)")
+def _arguments(p) -> None:
+    add_out(p, "output folder (default: %(default)s)", default="sourcelab-demo")
     add_output_options(p)
     p.add_argument(
         "--rebuild-norms",
         metavar="TSV",
         help="instead of the demo, rebuild the invented demo norms into TSV",
     )
-    p.set_defaults(func=run)
 
 
 def run(args) -> int:
@@ -54,9 +38,9 @@ def run(args) -> int:
     from ..analysis import analyze
     from ..config import AnalysisConfig
     from ..outputs import write_analysis_into
-    from ..provenance import atomic_output_dir
     from ..progress import Stages
-    from .analyze import print_summary, progress_flag
+    from ..provenance import atomic_output_dir
+    from .analyze import print_summary
 
     progress = progress_flag(args)
     if args.rebuild_norms:
@@ -113,3 +97,15 @@ def run(args) -> int:
     )
     print_summary(result, out)
     return 0
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "demo",
+    run,
+    _arguments,
+    help="run the pipeline on an invented demo participant",
+    description="Simulate an invented participant (no real data), analyse it "
+    "against invented demo norms, and write tables, figures and "
+    "the report.",
+)

@@ -10,49 +10,17 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..errors import InputError
+from .options import add_hemisphere, add_inverse_options, subcommand
 
 
-def add_parser(sub) -> None:
-    """Register the ``leakage`` sub-command.
-
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The ``sourcelab`` parser's sub-parsers; the new parser's ``func`` is :func:`run`.
-    """
-    p = sub.add_parser(
-        "leakage",
-        help="ROI-to-ROI leakage (cross-talk) of the inverse",
-        description="Share of an ROI's expected power that comes from each other "
-        "ROI when every cortical source is equally active "
-        "(uncorrelated, noise-free), for the chosen inverse.",
-    )
+def _arguments(p) -> None:
     p.add_argument("roi", help="ROI name, e.g. BA17 or default-mode (case-insensitive)")
     p.add_argument("--atlas", default="brodmann", help="atlas name (default brodmann)")
-    p.add_argument(
-        "--hemisphere",
-        choices=("left", "right", "both"),
-        help="hemisphere, needed when the name exists in several",
-    )
+    add_hemisphere(p, "hemisphere, needed when the name exists in several")
     p.add_argument("--top", type=int, default=10, help="number of leakers to list (default 10)")
-    p.add_argument(
-        "--method",
-        choices=("sLORETA", "eLORETA", "dSPM"),
-        default="sLORETA",
-        help="inverse method (default sLORETA)",
-    )
-    p.add_argument(
-        "--orientation",
-        choices=("fixed", "free"),
-        default="fixed",
-        help="source orientation (default fixed)",
-    )
-    p.add_argument(
-        "--snr", type=float, default=3.0, help="amplitude SNR; lambda2 = 1/SNR^2 (default 3)"
-    )
+    add_inverse_options(p, defaults=True)
     p.add_argument("--tsv", metavar="FILE", help="also write the whole matrix as TSV")
     p.add_argument("--plot", metavar="PNG", help="also write the matrix heatmap as PNG")
-    p.set_defaults(func=run)
 
 
 def run(args) -> int:
@@ -116,3 +84,15 @@ def run(args) -> int:
     for path in written:
         print(f"sourcelab: wrote {path}")
     return 0
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "leakage",
+    run,
+    _arguments,
+    help="ROI-to-ROI leakage (cross-talk) of the inverse",
+    description="Share of an ROI's expected power that comes from each other "
+    "ROI when every cortical source is equally active "
+    "(uncorrelated, noise-free), for the chosen inverse.",
+)

@@ -2,24 +2,17 @@
 
 from __future__ import annotations
 
+from .options import subcommand
 
-def add_parser(sub) -> None:
-    """Register the ``norms`` sub-command with its ``build`` and ``check`` actions.
 
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The sub-parsers object of the ``sourcelab`` parser; both actions dispatch to
-        :func:`run`.
-    """
-    from .analyze import add_common_options
+def _arguments(p) -> None:
+    from .options import add_common_options, add_engine_options, add_out
 
-    p = sub.add_parser("norms", help="build norms from reference recordings, or check a file")
     nsub = p.add_subparsers(dest="norms_cmd", metavar="ACTION", required=True)
     b = nsub.add_parser("build", help="build norms from a folder of reference recordings")
     b.add_argument("cohort", help="folder of recordings or a BIDS dataset")
     b.add_argument("--participants", required=True, help="participants.tsv (BIDS convention)")
-    b.add_argument("--out", required=True, help="norms TSV to write")
+    add_out(b, "norms TSV to write")
     b.add_argument(
         "--condition",
         metavar="CONDITION",
@@ -33,18 +26,12 @@ def add_parser(sub) -> None:
         default="regression",
         help="age model (default: %(default)s)",
     )
-    b.add_argument(
-        "--workers",
-        type=int,
-        default=1,
-        help="analyse recordings in parallel worker processes (default 1)",
+    add_engine_options(
+        b,
+        workers_help="analyse recordings in parallel worker processes (default 1)",
+        engine_help="batch engine (default: serial for 1 worker, else processes)",
+        scheduler_help="Dask scheduler address",
     )
-    b.add_argument(
-        "--engine",
-        choices=("serial", "processes", "dask"),
-        help="batch engine (default: serial for 1 worker, else processes)",
-    )
-    b.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address")
     add_common_options(b)
     b.set_defaults(func=run)
     c = nsub.add_parser("check", help="validate a norms file and print a summary")
@@ -74,7 +61,7 @@ def run(args) -> int:
         return 0
     from ..batch import make_engine
     from ..cohort import build_norms
-    from .analyze import config_from_args, progress_flag
+    from .options import config_from_args, progress_flag
 
     with make_engine(args.engine, workers=args.workers, scheduler=args.scheduler) as engine:
         built = build_norms(
@@ -94,3 +81,9 @@ def run(args) -> int:
         f"calibration report {built.report_path}"
     )
     return 0
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "norms", run, _arguments, help="build norms from reference recordings, or check a file"
+)

@@ -17,22 +17,12 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..cautions import SHORT
+from ..constants import Z_THRESHOLD
 from ..errors import InputError
+from .options import add_hemisphere, add_out, subcommand, with_cautions
 
 
-def add_parser(sub) -> None:
-    """Register the ``targets`` sub-command and its list, export, replay and stream actions.
-
-    Parameters
-    ----------
-    sub : argparse._SubParsersAction
-        The ``sourcelab`` parser's sub-parsers; every action's ``func`` is :func:`run`.
-    """
-    p = sub.add_parser(
-        "targets",
-        help="deviating regions/networks, target files and replay",
-        description=__doc__.split("\n\n")[0] + " " + SHORT,
-    )
+def _arguments(p) -> None:
     tsub = p.add_subparsers(dest="targets_cmd", metavar="ACTION", required=True)
 
     ls = tsub.add_parser("list", help="rank ROIs and networks that deviate from the norm")
@@ -41,7 +31,7 @@ def add_parser(sub) -> None:
     ls.add_argument(
         "--atlas", action="append", default=None, help="restrict to this atlas (repeatable)"
     )
-    ls.add_argument("--out", default=None, help="also write the table as TSV")
+    add_out(ls, "also write the table as TSV", default=None)
     ls.set_defaults(func=run)
 
     ex = tsub.add_parser("export", help="write a portable target definition (JSON)")
@@ -50,7 +40,7 @@ def add_parser(sub) -> None:
     what.add_argument("--roi", help="ROI name, e.g. BA17 or default-mode")
     what.add_argument("--pair", help="electrode pair, e.g. F3-F4")
     what.add_argument("--edge", help='network/lobe edge, e.g. "visual.left|visual.right"')
-    ex.add_argument("--hemisphere", choices=("left", "right", "both"), default=None)
+    add_hemisphere(ex)
     ex.add_argument(
         "--atlas", default=None, help="atlas of the ROI (default brodmann) or of the edge"
     )
@@ -103,13 +93,13 @@ def add_parser(sub) -> None:
         "the norm (no threshold by default; the choice rests with the "
         "practitioner)",
     )
-    ex.add_argument("--out", required=True, help="TARGET.json")
+    add_out(ex, "TARGET.json")
     ex.set_defaults(func=run)
 
     rp = tsub.add_parser("replay", help="apply a target causally to a recording")
     rp.add_argument("target", help="TARGET.json")
     rp.add_argument("recording", help="EEG file (EDF, BDF, BrainVision, EEGLAB, FIF)")
-    rp.add_argument("--out", required=True, help="output folder")
+    add_out(rp, "output folder")
     rp.set_defaults(func=run)
 
     st = tsub.add_parser(
@@ -159,7 +149,8 @@ def add_parser(sub) -> None:
 
 def _list(args) -> int:
     from ..targets import candidates_from_folder, write_candidates
-    from ..targets.candidates import read_candidates
+    from ..targets.candidates import CANDIDATE_LIST_COLUMNS, read_candidates
+    from ..targets.peaks import PEAK_LIST_COLUMNS
 
     # the analysis' own candidates (z-map peaks) unless areas of given atlases are asked for
     table = None if args.atlas else read_candidates(args.result_dir)
@@ -167,54 +158,17 @@ def _list(args) -> int:
         table = candidates_from_folder(
             args.result_dir, max_n=args.max_n, include=tuple(args.atlas) if args.atlas else None
         )
-        cols = [
-            "rank",
-            "kind",
-            "atlas",
-            "roi",
-            "hemisphere",
-            "band",
-            "measure",
-            "z",
-            "direction",
-            "fdr",
-            "n_vertices",
-            "small",
-            "neighbours_same",
-            "n_neighbours",
-            "members_deviating",
-            "n_members",
-        ]
+        cols = list(CANDIDATE_LIST_COLUMNS)
     else:
         table = table.head(args.max_n) if args.max_n else table
-        cols = [
-            c
-            for c in (
-                "rank",
-                "role",
-                "band",
-                "measure",
-                "direction",
-                "area",
-                "hemisphere",
-                "lobe",
-                "peak_z",
-                "x_mni152",
-                "y_mni152",
-                "z_mni152",
-                "border_mm",
-                "own_share",
-                "probability",
-            )
-            if c in table.columns
-        ]
+        cols = [c for c in PEAK_LIST_COLUMNS if c in table.columns]
     print(SHORT)
     print(
         "Statistical deviation only; whether to train any of these rests with a licensed "
         "practitioner who weighs symptoms and history."
     )
     if table.empty:
-        print("no area or network deviates beyond |z| = 1.96")
+        print(f"no area or network deviates beyond |z| = {Z_THRESHOLD}")
     else:
         print(table[cols].to_string(index=False, float_format=lambda v: f"{v:+.2f}"))
     if args.out:
@@ -352,8 +306,9 @@ def _stream(args) -> int:
     from ..targets import read_target
 
     try:
-        from ..targets.stream import run_stream
         import mne_lsl  # noqa: F401
+
+        from ..targets.stream import run_stream
     except ImportError:
         raise InputError("live streaming needs mne-lsl: pip install 'sourcelab[live]'") from None
     target = read_target(args.target)
@@ -425,3 +380,13 @@ def run(args) -> int:
         For bad arguments or input files; the CLI turns it into one line and exit code 2.
     """
     return _ACTIONS[args.targets_cmd](args)
+
+
+#: ``add_parser(sub)``, called by :mod:`sourcelab.cli.main`
+add_parser = subcommand(
+    "targets",
+    run,
+    _arguments,
+    help="deviating regions/networks, target files and replay",
+    description=with_cautions(__doc__),
+)

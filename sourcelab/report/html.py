@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from ..cautions import CAUTIONS  # noqa: F401  (re-exported for the report)
+from ..constants import ROI_KEY, Z_THRESHOLD
 from ..errors import InputError
 from .labels import MISSING_NUMBER, column_label, field_label, human_table, value_text
 
@@ -36,7 +37,7 @@ SECTIONS = (
 )
 
 #: Limit of |z| for the candidate-deviation list (two-sided 5 % normal point; common practice).
-DEVIATION_Z = 1.96
+DEVIATION_Z = Z_THRESHOLD
 
 REFERENCES = (
     (
@@ -366,15 +367,11 @@ def deviations(
         sel.insert(0, "level", kind)
         parts.append(sel)
     if not parts:
-        return pd.DataFrame(
-            columns=["level", "atlas", "roi", "hemisphere", "band", "measure", "value", "z"]
-        )
+        return pd.DataFrame(columns=["level", *ROI_KEY, "value", "z"])
     d = pd.concat(parts, ignore_index=True)
     fdr = [c for c in d.columns if "fdr" in str(c).lower()]
     cols = (
-        ["level", "atlas", "roi", "hemisphere", "band", "measure", "value", "unit", "z"]
-        + fdr
-        + ["z_lo", "z_hi", "robust"]
+        ["level", *ROI_KEY, "value", "unit", "z"] + fdr + ["z_lo", "z_hi", "robust"]
     )  # bootstrap interval of z, when present
     d = d[[c for c in cols if c in d.columns]]
     return d.reindex(d["z"].abs().sort_values(ascending=False).index).reset_index(drop=True)

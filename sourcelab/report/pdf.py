@@ -18,12 +18,15 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from ..cautions import CAUTIONS
+from ..constants import ROI_KEY
 from .html import REFERENCES, deviations
 from .labels import file_name, human_table, value_text
 from .summary import report_summary
 
 logger = logging.getLogger("sourcelab")
 
+#: Columns of the PDF's largest-deviations table (those present in :func:`deviations`).
+DEVIATION_PDF_COLUMNS = ("level", *ROI_KEY, "z", "fdr", "robust")
 #: Largest number of pages of the PDF report.
 MAX_PAGES = 12
 #: A4 portrait, inches (ISO 216: 210 x 297 mm).
@@ -390,21 +393,7 @@ def _detail_pages(lay: _Layout, result) -> None:
             "roi_table.tsv).",
             size=8.5,
         )
-        keep = [
-            c
-            for c in (
-                "level",
-                "atlas",
-                "roi",
-                "hemisphere",
-                "band",
-                "measure",
-                "z",
-                "fdr",
-                "robust",
-            )
-            if c in d.columns
-        ]
+        keep = [c for c in DEVIATION_PDF_COLUMNS if c in d.columns]
         lay.table(human_table(d[keep].head(n)), size=7, shade_z="z")
     lay.page_break()
     lay.heading("Recording and data quality")

@@ -203,17 +203,25 @@ def _quality(result) -> tuple:
     return tuple(out)
 
 
+def _candidate_head(result, r, area: str) -> dict:
+    """The columns every summary candidate row starts with (rank, band, measure, direction,
+    area with its name, side)."""
+    return {
+        "rank": int(r.rank),
+        "band": _band_text(result, r.band),
+        "measure": str(r.measure),
+        "direction": str(getattr(r, "direction", "")),
+        "area": f"{area} {area_name(area)}".strip(),
+        "side": str(r.hemisphere),
+    }
+
+
 def _peak_candidates(result, c: pd.DataFrame) -> pd.DataFrame:
     rows = []
     for r in c.itertuples(index=False):
         rows.append(
             {
-                "rank": int(r.rank),
-                "band": _band_text(result, r.band),
-                "measure": str(r.measure),
-                "direction": str(r.direction),
-                "area": f"{r.area} {area_name(r.area)}".strip(),
-                "side": str(r.hemisphere),
+                **_candidate_head(result, r, r.area),
                 "peak z": f"{r.peak_z:+.1f}",
                 "MNI x, y, z (mm)": f"{r.x_mni152:.0f}, {r.y_mni152:.0f}, {r.z_mni152:.0f}",
                 "probability in area": (
@@ -242,12 +250,7 @@ def _roi_candidates(result, c: pd.DataFrame) -> pd.DataFrame:
     for r in c.itertuples(index=False):
         rows.append(
             {
-                "rank": int(r.rank),
-                "band": _band_text(result, r.band),
-                "measure": str(r.measure),
-                "direction": str(getattr(r, "direction", "")),
-                "area": f"{r.roi} {area_name(r.roi)}".strip(),
-                "side": str(r.hemisphere),
+                **_candidate_head(result, r, r.roi),
                 "z": f"{r.z:+.1f}",
                 "FDR significant": value_text(getattr(r, "fdr", None)),
             }

@@ -43,8 +43,9 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
+from .._docs import fill_doc
 from ..cautions import CAUTIONS
-from ..constants import Z_THRESHOLD
+from ..constants import ROI_KEY, Z_THRESHOLD
 from ..errors import InputError
 from ..provenance import Fingerprint, atomic_write_text
 
@@ -64,11 +65,7 @@ MEMBER_OVERLAP = 0.5
 CANDIDATE_COLUMNS = (
     "rank",
     "kind",
-    "atlas",
-    "roi",
-    "hemisphere",
-    "band",
-    "measure",
+    *ROI_KEY,
     "value",
     "z",
     "direction",
@@ -82,6 +79,15 @@ CANDIDATE_COLUMNS = (
     "neighbours",
     "members_deviating",
     "n_members",
+)
+#: Columns ``sourcelab targets list`` prints (the numbers behind the rank, not p, q or names).
+CANDIDATE_LIST_COLUMNS = tuple(
+    c for c in CANDIDATE_COLUMNS if c not in ("value", "p", "fdr_q", "neighbours")
+)
+#: Columns of the report's candidate table: the listed ones, with each count shown as
+#: "k of n" in its deviating-count column.
+CANDIDATE_HTML_COLUMNS = tuple(
+    c for c in CANDIDATE_LIST_COLUMNS if c not in ("n_neighbours", "n_members")
 )
 
 
@@ -398,6 +404,7 @@ def _atlas_context(atlas, member_atlas, edges) -> dict:
     return ctx
 
 
+@fill_doc
 def candidates_for_table(
     roi_table: pd.DataFrame, *, max_n: int | None = None, include: tuple[str, ...] | None = None
 ) -> pd.DataFrame:
@@ -409,10 +416,7 @@ def candidates_for_table(
     ----------
     roi_table : DataFrame
         An analysis ROI table z-scored against norms (see :func:`rank_candidates`).
-    max_n : int, optional
-        Keep the first ``max_n`` rows.
-    include : tuple of str, optional
-        Atlases to rank (default: all in the table).
+    %(max_n_include)s
 
     Returns
     -------
@@ -435,6 +439,7 @@ def candidates_for_table(
     return rank_candidates(roi_table, atlases=atlases, edges=edges, include=include, max_n=max_n)
 
 
+@fill_doc
 def candidates_from_folder(
     result_dir: str | Path, *, max_n: int | None = None, include: tuple[str, ...] | None = None
 ) -> pd.DataFrame:
@@ -444,10 +449,7 @@ def candidates_from_folder(
     ----------
     result_dir : str or pathlib.Path
         An analysis folder (analysed with norms).
-    max_n : int, optional
-        Keep the first ``max_n`` rows.
-    include : tuple of str, optional
-        Atlases to rank (default: all in the table).
+    %(max_n_include)s
 
     Returns
     -------
@@ -599,22 +601,7 @@ def candidates_html(candidates: pd.DataFrame, *, max_rows: int = 20) -> str:
         The ``<section class="sourcelab-candidates">`` fragment, text escaped.
     """
     e = html.escape
-    cols = (
-        "rank",
-        "kind",
-        "atlas",
-        "roi",
-        "hemisphere",
-        "band",
-        "measure",
-        "z",
-        "direction",
-        "fdr",
-        "n_vertices",
-        "small",
-        "neighbours_same",
-        "members_deviating",
-    )
+    cols = CANDIDATE_HTML_COLUMNS
     heads = "".join(f"<th>{e(c.replace('_', ' '))}</th>" for c in cols)
     body = []
     for r in candidates.head(max_rows).to_dict("records"):

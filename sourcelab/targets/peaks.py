@@ -27,11 +27,8 @@ from ..constants import Z_THRESHOLD
 #: |z| from which a peak is a candidate (two-sided p < 0.05; common practice).
 DEVIATION_Z = Z_THRESHOLD
 
-PEAK_CANDIDATE_COLUMNS = (
-    "rank",
-    "role",
-    "measure",
-    "band",
+#: Where a peak candidate lies and how far it deviates (shared by the table and its listing).
+_PEAK_PLACE = (
     "direction",
     "area",
     "hemisphere",
@@ -41,6 +38,13 @@ PEAK_CANDIDATE_COLUMNS = (
     "y_mni152",
     "z_mni152",
     "border_mm",
+)
+PEAK_CANDIDATE_COLUMNS = (
+    "rank",
+    "role",
+    "measure",
+    "band",
+    *_PEAK_PLACE,
     "cluster_size",
     "cluster_areas",
     "own_share",
@@ -49,6 +53,8 @@ PEAK_CANDIDATE_COLUMNS = (
     "source",
     "vertex",
 )
+#: Columns ``sourcelab targets list`` prints of peak candidates (band before measure).
+PEAK_LIST_COLUMNS = ("rank", "role", "band", "measure", *_PEAK_PLACE, "own_share", "probability")
 
 
 def peak_candidates(
