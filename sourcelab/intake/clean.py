@@ -550,6 +550,7 @@ def clean_recording(
         eog_uv=eog,
         method=config.ocular_correction,
         highpass_hz=config.l_freq,
+        overwrite=True,  # data is this function's own array (memory)
     )
     data = ocular.data
     notes.extend(ocular.notes)

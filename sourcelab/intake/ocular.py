@@ -213,6 +213,7 @@ def correct_ocular(
     method: str = "auto",
     seed: int = 0,
     highpass_hz: float | None = None,
+    overwrite: bool = False,
 ) -> OcularCorrection:
     """Remove ocular artefacts from continuous, band-passed EEG.
 
@@ -238,6 +239,9 @@ def correct_ocular(
         ICA random state (results are reproducible).
     highpass_hz : float, optional
         High-pass edge already applied to ``data_uv`` (recorded for MNE, which advises >= 1 Hz).
+    overwrite : bool
+        Remove ICA components from ``data_uv`` in place (the caller's own float64 array: no
+        second copy of the recording); by default ``data_uv`` is left unchanged.
 
     Returns
     -------
@@ -374,7 +378,7 @@ def correct_ocular(
             time.perf_counter() - t0,
             tuple(notes),
         )
-    corrected = remove_components(ica, data, removed)
+    corrected = remove_components(ica, data, removed, out=data if overwrite else None)
     return OcularCorrection(
         "ica",
         corrected,
@@ -389,7 +393,7 @@ def correct_ocular(
     )
 
 
-def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
+def remove_components(ica, data_uv: np.ndarray, removed, *, out=None) -> np.ndarray:
     """``x - A_r S_r``: the data without the ``removed`` components of a fitted MNE ICA.
 
     Parameters
@@ -400,6 +404,8 @@ def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
         µV.
     removed : sequence of int
         Component indices to remove (empty: a copy of the data).
+    out : ndarray, shape (n_ch, n_times), optional
+        Where to write the result (may be ``data_uv`` itself: corrected in place).
 
     Returns
     -------
@@ -409,14 +415,17 @@ def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
     """
     r = list(removed)
     if not r:
-        return np.array(data_uv, float)
+        if out is None:
+            return np.array(data_uv, float)
+        out[...] = data_uv
+        return out
     pw = ica.pre_whitener_.ravel()
     pca = ica.pca_components_[: ica.n_components_]
     unmix = (ica.unmixing_matrix_ @ pca) / pw[None, :]  # sources from volts
     mix = pw[:, None] * (pca.T @ ica.mixing_matrix_)
     mean_uv = (ica.pca_mean_ * pw)[:, None] * 1e6
     data_uv = np.asarray(data_uv, float)
-    out = np.empty_like(data_uv)
+    out = np.empty_like(data_uv) if out is None else out
     # a block of samples at a time (each column is transformed on its own: the same numbers,
     # without three full-length working copies)
     for s in range(0, data_uv.shape[1], _REMOVE_BLOCK):
