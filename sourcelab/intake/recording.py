@@ -131,13 +131,16 @@ def robust_amplitude(data_uv: np.ndarray, sfreq: float) -> np.ndarray:
     """
     width = max(int(round(sfreq)), 1)
     data_uv = np.asarray(data_uv, dtype=float)
-    # one working copy (the medians only reorder it in place; the values they need are kept)
-    x = uniform_filter1d(data_uv, width, axis=1, mode="nearest")
-    np.subtract(data_uv, x, out=x)
-    med = np.median(x, axis=1, keepdims=True, overwrite_input=True)
-    x -= med
-    np.abs(x, out=x)
-    return 1.4826 * np.median(x, axis=1, overwrite_input=True)
+    out = np.empty(data_uv.shape[0])
+    # one working row at a time (the filter and the medians treat each row on its own; the
+    # medians only reorder it in place, the values they need are kept)
+    for c, row in enumerate(data_uv):
+        x = uniform_filter1d(row, width, mode="nearest")
+        np.subtract(row, x, out=x)
+        x -= np.median(x, overwrite_input=True)
+        np.abs(x, out=x)
+        out[c] = 1.4826 * np.median(x, overwrite_input=True)
+    return out
 
 
 def line_noise_ratio(data_uv: np.ndarray, sfreq: float, *, psd=None) -> np.ndarray:
@@ -226,7 +229,7 @@ def guess_reference(hint: str, data_uv: np.ndarray) -> str:
     if hint != "unknown":
         return hint
     total = np.std(data_uv.sum(axis=0))
-    typical = np.median(np.std(data_uv, axis=1))
+    typical = np.median([np.std(row) for row in data_uv])  # row by row (memory)
     if typical > 0 and total < 1e-3 * typical:
         return "average"
     return "unknown"
