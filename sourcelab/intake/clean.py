@@ -12,7 +12,7 @@ import numpy as np
 from ..config import AnalysisConfig
 from ..constants import SITES_1020
 from ..errors import InputError
-from .power import welch_psd
+from .power import long_welch
 from .recording import Recording
 
 logger = logging.getLogger("sourcelab")
@@ -91,7 +91,9 @@ class CleanData:
     timings_s: dict = field(default_factory=dict)
 
 
-def detect_mains(data_uv: np.ndarray, sfreq: float, *, min_ratio: float = 3.0) -> float | None:
+def detect_mains(
+    data_uv: np.ndarray, sfreq: float, *, min_ratio: float = 3.0, psd=None
+) -> float | None:
     """Mains frequency (50 or 60 Hz) from the spectrum, or None.
 
     Parameters
@@ -101,13 +103,15 @@ def detect_mains(data_uv: np.ndarray, sfreq: float, *, min_ratio: float = 3.0) -
     min_ratio : float
         The peak (max PSD within ±0.5 Hz) must exceed the median PSD 2-5 Hz either side by this
         factor, in the median channel.
+    psd : (ndarray, ndarray), optional
+        ``(freqs, psd)`` of ``data_uv`` from :func:`sourcelab.intake.power.long_welch`, if
+        already computed (it is then not recomputed).
 
     Returns
     -------
     float | None
     """
-    nper = int(min(data_uv.shape[1], round(2 * sfreq)))
-    f, p = welch_psd(data_uv, sfreq, nper)
+    f, p = long_welch(data_uv, sfreq) if psd is None else psd
     best, best_ratio = None, min_ratio
     for mains in (50.0, 60.0):
         if mains + 5 >= sfreq / 2:
@@ -358,6 +362,11 @@ def _window_reduce(x: np.ndarray, starts: np.ndarray, n_per: int, fn) -> np.ndar
     )
 
 
+#: Samples (sites x times) of the muscle band filtered at once: a 10-minute recording at 256 Hz
+#: in one pass (one filter design), longer ones a few sites at a time (memory).
+_HF_BLOCK_SAMPLES = 4 << 20
+
+
 def _ptp(w: np.ndarray) -> np.ndarray:
     return np.ptp(w, axis=-1)
 
@@ -484,8 +493,13 @@ def clean_recording(
     sf = float(raw.info["sfreq"])
     nyq = sf / 2
     notes: list[str] = []
-    data = raw.get_data() * 1e6  # µV; this function's own array (filtered in place below)
-    mains = config.notch if config.notch is not None else detect_mains(data, sf)
+    data = raw.get_data()  # this function's own array (scaled and filtered in place below)
+    data *= 1e6  # µV
+    mains = (
+        config.notch
+        if config.notch is not None
+        else detect_mains(data, sf, psd=recording.mains_psd)
+    )
     h_freq = config.h_freq if config.h_freq is not None and config.h_freq < nyq * 0.9 else None
     if config.h_freq is not None and h_freq is None:
         notes.append(f"h_freq {config.h_freq} Hz not below 0.9 x Nyquist ({nyq} Hz); no low-pass")
@@ -541,6 +555,7 @@ def clean_recording(
         eog_uv=eog,
         method=config.ocular_correction,
         highpass_hz=config.l_freq,
+        overwrite=True,  # data is this function's own array (memory)
     )
     data = ocular.data
     notes.extend(ocular.notes)
@@ -548,23 +563,26 @@ def clean_recording(
     lap("ocular")
 
     # --- features: selected epochs, and all usable epochs for learning ------------------------
-    ep = _windows(data, starts, n_per)
-    ptp = np.ptp(ep, axis=-1)
+    # the selected epochs are copied out only once they are known (memory)
+    ptp = _window_reduce(data, starts, n_per, _ptp)
     hi = min(muscle_band[1], (h_freq or nyq * 0.9))
     muscle_on = np.isfinite(muscle_uv) and muscle_band[0] < hi
-    hf = (
-        mne.filter.filter_data(data, sf, muscle_band[0], hi, verbose="error") if muscle_on else None
-    )
-
-    def hf_rms(st):
-        if hf is None:
-            return np.zeros((len(st), len(SITES_1020)))
-        return _window_reduce(hf, st, n_per, _rms)
-
-    hf_sel = hf_rms(starts)
-    if config.rejection == "auto":
+    learn = config.rejection == "auto"
+    hf_sel = np.zeros((len(starts), len(SITES_1020)))
+    hf_all = np.zeros((len(all_starts), len(SITES_1020))) if learn else None
+    if muscle_on:
+        # the muscle band a few sites at a time (MNE filters each row on its own: the same
+        # numbers, without a band-passed copy of the whole recording)
+        rows = max(1, _HF_BLOCK_SAMPLES // data.shape[1])
+        for c in range(0, data.shape[0], rows):
+            hf = mne.filter.filter_data(data[c : c + rows], sf, muscle_band[0], hi, verbose="error")
+            hf_sel[:, c : c + rows] = _window_reduce(hf, starts, n_per, _rms)
+            if learn:
+                hf_all[:, c : c + rows] = _window_reduce(hf, all_starts, n_per, _rms)
+        del hf
+    if learn:
         ptp_all = _window_reduce(data, all_starts, n_per, _ptp)
-        thr = learn_thresholds(ptp_all, hf_rms(all_starts), age=age, z=config.reject_z)
+        thr = learn_thresholds(ptp_all, hf_all, age=age, z=config.reject_z)
         if thr.n_epochs < 20:
             notes.append(
                 f"only {thr.n_epochs} usable epochs to learn rejection thresholds "
@@ -572,7 +590,6 @@ def clean_recording(
             )
     else:
         thr = fixed_thresholds(len(SITES_1020), reject_uv=config.reject_uv, muscle_uv=muscle_uv)
-    hf = None  # the high-frequency copy is no longer needed (memory)
     lap("features and thresholds")
 
     # --- per-epoch, per-site checks ----------------------------------------------------------
@@ -651,9 +668,9 @@ def clean_recording(
 
     # --- does the slow-wave topography still look ocular? ------------------------------------
     templates = ocular_templates(_positions(raw), _nasion(raw))
-    kept_ep = ep if keep.all() else ep[keep]
+    kept_ep = _windows(data, starts[keep], n_per)
     ocular_info, ocular_method = ocular.summary(), ocular.method
-    del ep, data, ocular  # the continuous copies are no longer needed (memory)
+    del data, ocular  # the continuous copies are no longer needed (memory)
     residual = ocular_residual(band_csd(kept_ep, sf, _delta_edges(config)), templates)
     if residual["ocular"]:
         how = (
@@ -675,7 +692,7 @@ def clean_recording(
         logger.warning("%s: %s", where, msg)
     logger.info("%s: kept %.0f s in %d epochs; removed %s", where, kept_s, keep.sum(), summary)
     return CleanData(
-        epochs=np.asarray(kept_ep, dtype=np.float64),
+        epochs=kept_ep,
         sfreq=sf,
         ch_names=tuple(SITES_1020),
         epoch_onsets_s=starts[keep] / sf,

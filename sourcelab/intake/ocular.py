@@ -213,6 +213,7 @@ def correct_ocular(
     method: str = "auto",
     seed: int = 0,
     highpass_hz: float | None = None,
+    overwrite: bool = False,
 ) -> OcularCorrection:
     """Remove ocular artefacts from continuous, band-passed EEG.
 
@@ -238,6 +239,9 @@ def correct_ocular(
         ICA random state (results are reproducible).
     highpass_hz : float, optional
         High-pass edge already applied to ``data_uv`` (recorded for MNE, which advises >= 1 Hz).
+    overwrite : bool
+        Remove ICA components from ``data_uv`` in place (the caller's own float64 array: no
+        second copy of the recording); by default ``data_uv`` is left unchanged.
 
     Returns
     -------
@@ -305,14 +309,14 @@ def correct_ocular(
     from threadpoolctl import threadpool_limits
 
     step = max(1, len(idx) // (FIT_SAMPLES_PER_COMPONENT2 * n_comp**2))
-    usable = data[:, idx]
-    veog = usable[[names.index(s) for s in VEOG_SITES]].mean(axis=0)
-    heog = usable[names.index(HEOG_SITES[0])] - usable[names.index(HEOG_SITES[1])]
+    # the usable samples are taken row by row, never as a copy of every row at once (memory)
+    veog = data[[names.index(s) for s in VEOG_SITES]][:, idx].mean(axis=0)
+    heog = data[names.index(HEOG_SITES[0]), idx] - data[names.index(HEOG_SITES[1]), idx]
     names_all = names + ["VEOG", "HEOG"]
     types = ["eeg"] * n_ch + ["eog"] * 2
     # fitted on evenly strided samples (FastICA ignores the order of samples) ...
     fit_raw = mne.io.RawArray(
-        usable[:, ::step] * 1e-6, mne.create_info(names, sfreq / step, "eeg"), verbose="error"
+        data[:, idx[::step]] * 1e-6, mne.create_info(names, sfreq / step, "eeg"), verbose="error"
     )
     with fit_raw.info._unlock():
         fit_raw.info["highpass"] = float(highpass_hz or 0.0)
@@ -322,7 +326,9 @@ def correct_ocular(
     sos = butter(4, min(12.0, 0.4 * sfreq / q), fs=sfreq, output="sos")
     # row by row (each row is filtered independently: the same numbers, without holding the
     # filter's padded copies of every row at once)
-    low = np.stack([sosfiltfilt(sos, row)[::q] for row in (*usable, veog, heog)]) * 1e-6
+    rows = (*(data[c, idx] for c in range(n_ch)), veog, heog)
+    low = np.stack([sosfiltfilt(sos, row)[::q] for row in rows]) * 1e-6
+    del veog, heog
     score_raw = mne.io.RawArray(low, mne.create_info(names_all, sfreq / q, types), verbose="error")
     ica = mne.preprocessing.ICA(
         n_components=n_comp, method="fastica", max_iter=MAX_ITER, rng=seed, verbose="error"
@@ -372,7 +378,7 @@ def correct_ocular(
             time.perf_counter() - t0,
             tuple(notes),
         )
-    corrected = remove_components(ica, data, removed)
+    corrected = remove_components(ica, data, removed, out=data if overwrite else None)
     return OcularCorrection(
         "ica",
         corrected,
@@ -387,7 +393,7 @@ def correct_ocular(
     )
 
 
-def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
+def remove_components(ica, data_uv: np.ndarray, removed, *, out=None) -> np.ndarray:
     """``x - A_r S_r``: the data without the ``removed`` components of a fitted MNE ICA.
 
     Parameters
@@ -398,6 +404,8 @@ def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
         µV.
     removed : sequence of int
         Component indices to remove (empty: a copy of the data).
+    out : ndarray, shape (n_ch, n_times), optional
+        Where to write the result (may be ``data_uv`` itself: corrected in place).
 
     Returns
     -------
@@ -407,14 +415,27 @@ def remove_components(ica, data_uv: np.ndarray, removed) -> np.ndarray:
     """
     r = list(removed)
     if not r:
-        return np.array(data_uv, float)
+        if out is None:
+            return np.array(data_uv, float)
+        out[...] = data_uv
+        return out
     pw = ica.pre_whitener_.ravel()
     pca = ica.pca_components_[: ica.n_components_]
     unmix = (ica.unmixing_matrix_ @ pca) / pw[None, :]  # sources from volts
     mix = pw[:, None] * (pca.T @ ica.mixing_matrix_)
     mean_uv = (ica.pca_mean_ * pw)[:, None] * 1e6
-    sources = unmix[r] @ (np.asarray(data_uv, float) - mean_uv)
-    return data_uv - mix[:, r] @ sources
+    data_uv = np.asarray(data_uv, float)
+    out = np.empty_like(data_uv) if out is None else out
+    # a block of samples at a time (each column is transformed on its own: the same numbers,
+    # without three full-length working copies)
+    for s in range(0, data_uv.shape[1], _REMOVE_BLOCK):
+        x = data_uv[:, s : s + _REMOVE_BLOCK]
+        out[:, s : s + _REMOVE_BLOCK] = x - mix[:, r] @ (unmix[r] @ (x - mean_uv))
+    return out
+
+
+#: Samples transformed at once by :func:`remove_components` (bounds its working memory).
+_REMOVE_BLOCK = 65536
 
 
 def _regress(

@@ -75,6 +75,27 @@ def welch_psd(data: np.ndarray, sfreq: float, nperseg: int) -> tuple[np.ndarray,
     return np.fft.rfftfreq(n, 1 / sfreq), psd
 
 
+def long_welch(data: np.ndarray, sfreq: float) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`welch_psd` with 2-s segments (or the whole signal when shorter): the spectrum the
+    intake's mains checks use (line-noise sites when reading, mains detection when cleaning).
+
+    Parameters
+    ----------
+    data : ndarray, shape (n_channels, n_times)
+        Signals, e.g. µV.
+    sfreq : float
+        Hz.
+
+    Returns
+    -------
+    freqs : ndarray, shape (n_freqs,)
+        Hz, resolution 0.5 Hz for signals of at least 2 s.
+    psd : ndarray, shape (n_channels, n_freqs)
+        Unit² / Hz.
+    """
+    return welch_psd(data, sfreq, int(min(np.shape(data)[1], round(2 * sfreq))))
+
+
 @fill_doc
 def epoch_spectra(epochs: np.ndarray, sfreq: float) -> tuple[np.ndarray, np.ndarray]:
     """One-sided PSD of each epoch with a single Hann window over the epoch.

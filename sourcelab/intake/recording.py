@@ -15,7 +15,7 @@ from ..constants import SITES_1020
 from ..errors import InputError
 from .channels import match_channels
 from .files import read_file
-from .power import welch_psd
+from .power import long_welch
 
 logger = logging.getLogger("sourcelab")
 
@@ -65,6 +65,10 @@ class Recording:
         ocular regression; None when there are none.
     eog_names : tuple of str
         Their original labels.
+    mains_psd : (ndarray, ndarray) | None
+        ``(freqs, psd)`` of the 19 sites' data as stored in ``raw``, µV²/Hz
+        (:func:`sourcelab.intake.power.long_welch`), computed once for the line-noise check and
+        reused by mains detection; None when a site was interpolated (the data changed since).
     """
 
     raw: mne.io.BaseRaw
@@ -79,6 +83,7 @@ class Recording:
     warnings: tuple[str, ...]
     eog_uv: np.ndarray | None = None
     eog_names: tuple[str, ...] = ()
+    mains_psd: tuple[np.ndarray, np.ndarray] | None = None
 
 
 #: Labels of real EOG channels (after removing a leading "EEG "/"POL " and a reference suffix).
@@ -126,30 +131,35 @@ def robust_amplitude(data_uv: np.ndarray, sfreq: float) -> np.ndarray:
     """
     width = max(int(round(sfreq)), 1)
     data_uv = np.asarray(data_uv, dtype=float)
-    # one working copy (the medians only reorder it in place; the values they need are kept)
-    x = uniform_filter1d(data_uv, width, axis=1, mode="nearest")
-    np.subtract(data_uv, x, out=x)
-    med = np.median(x, axis=1, keepdims=True, overwrite_input=True)
-    x -= med
-    np.abs(x, out=x)
-    return 1.4826 * np.median(x, axis=1, overwrite_input=True)
+    out = np.empty(data_uv.shape[0])
+    # one working row at a time (the filter and the medians treat each row on its own; the
+    # medians only reorder it in place, the values they need are kept)
+    for c, row in enumerate(data_uv):
+        x = uniform_filter1d(row, width, mode="nearest")
+        np.subtract(row, x, out=x)
+        x -= np.median(x, overwrite_input=True)
+        np.abs(x, out=x)
+        out[c] = 1.4826 * np.median(x, overwrite_input=True)
+    return out
 
 
-def line_noise_ratio(data_uv: np.ndarray, sfreq: float) -> np.ndarray:
+def line_noise_ratio(data_uv: np.ndarray, sfreq: float, *, psd=None) -> np.ndarray:
     """Mains-band power (50 and 60 Hz, ±1 Hz) over the power in the rest of 1-45 Hz, per channel.
 
     Parameters
     ----------
     data_uv : ndarray, shape (n_channels, n_times)
     sfreq : float
+    psd : (ndarray, ndarray), optional
+        ``(freqs, psd)`` of ``data_uv`` from :func:`sourcelab.intake.power.long_welch`, if
+        already computed.
 
     Returns
     -------
     ndarray, shape (n_channels,)
         0 when the sampling rate cannot represent 50 Hz.
     """
-    nper = int(min(data_uv.shape[1], round(2 * sfreq)))
-    f, p = welch_psd(data_uv, sfreq, nper)
+    f, p = long_welch(data_uv, sfreq) if psd is None else psd
     line = np.zeros(len(f), bool)
     for mains in (50.0, 60.0):
         if mains + 1 < sfreq / 2:
@@ -161,7 +171,7 @@ def line_noise_ratio(data_uv: np.ndarray, sfreq: float) -> np.ndarray:
 
 
 def detect_bad_sites(
-    data_uv: np.ndarray, sfreq: float, names, *, amplitude: np.ndarray | None = None
+    data_uv: np.ndarray, sfreq: float, names, *, amplitude: np.ndarray | None = None, psd=None
 ) -> dict[str, str]:
     """Flat, wildly noisy and line-noise-dominated (disconnected) sites.
 
@@ -173,6 +183,9 @@ def detect_bad_sites(
     names : sequence of str
     amplitude : ndarray, shape (n_channels,), optional
         :func:`robust_amplitude` of ``data_uv`` if already computed.
+    psd : (ndarray, ndarray), optional
+        ``(freqs, psd)`` of ``data_uv`` (:func:`sourcelab.intake.power.long_welch`) if already
+        computed.
 
     Returns
     -------
@@ -183,7 +196,7 @@ def detect_bad_sites(
         Front Neuroinform 9:16 — from memory).
     """
     amp = robust_amplitude(data_uv, sfreq) if amplitude is None else np.asarray(amplitude)
-    ratio = line_noise_ratio(data_uv, sfreq)
+    ratio = line_noise_ratio(data_uv, sfreq, psd=psd)
     live = amp > FLAT_SITE_UV
     med = float(np.median(amp[live])) if live.any() else 0.0
     bad: dict[str, str] = {}
@@ -216,7 +229,7 @@ def guess_reference(hint: str, data_uv: np.ndarray) -> str:
     if hint != "unknown":
         return hint
     total = np.std(data_uv.sum(axis=0))
-    typical = np.median(np.std(data_uv, axis=1))
+    typical = np.median([np.std(row) for row in data_uv])  # row by row (memory)
     if typical > 0 and total < 1e-3 * typical:
         return "average"
     return "unknown"
@@ -286,7 +299,8 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
     raw.reorder_channels(list(SITES_1020))
     if extra:
         logger.info("%s: ignored %d non-10-20 channels", where, extra)
-    data = raw.get_data() * 1e6  # µV
+    data = raw.get_data()  # a copy of the data, scaled in place (memory)
+    data *= 1e6  # µV
 
     # --- non-finite samples --------------------------------------------------------------------
     finite = np.isfinite(data)
@@ -315,7 +329,8 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
         )
 
     # --- bad sites ---------------------------------------------------------------------------
-    bad = detect_bad_sites(data, sfreq, SITES_1020, amplitude=amp)
+    psd = long_welch(data, sfreq)  # shared by the line-noise check and mains detection
+    bad = detect_bad_sites(data, sfreq, SITES_1020, amplitude=amp, psd=psd)
     for orig in file_bads + marked_bad:
         site = next((s for s, o in match.channel_map.items() if o == orig), None)
         if site and site not in bad:
@@ -355,6 +370,7 @@ def read_recording(source, *, montage_check: bool = True) -> Recording:
         warnings=tuple(notes),
         eog_uv=eog_uv,
         eog_names=eog_names,
+        mains_psd=None if interpolated else psd,
     )
 
 

@@ -291,7 +291,7 @@ def roi_bootstrap(
     q = q_all[used[order]]  # sources grouped by ROI membership
     n_used, n_vech = q.shape
     c_mean = cv.mean(axis=0)  # (n_bands, n_vech)
-    p_mean = (q @ c_mean.T).astype(np.float32)[:, :, None]  # (n_used, n_all, 1)
+    p_mean = (c_mean @ q.T).astype(np.float32)[:, None, :]  # (n_all, 1, n_used)
     dev = (w @ (cv - c_mean).reshape(n_ep, -1)).reshape(n_boot, n_all, n_vech)
     dev = dev.astype(np.float32)
     q32 = q.astype(np.float32)
@@ -300,19 +300,21 @@ def roi_bootstrap(
     for s in range(0, n_boot, chunk):
         e = min(s + chunk, n_boot)
         d = np.ascontiguousarray(dev[s:e].transpose(1, 0, 2)).reshape(-1, n_vech)
-        # sources-first, band-major layout: contiguous band sums and group sums
-        p = (q32 @ d.T).reshape(n_used, n_all, e - s)
+        # band-major, sources-last layout: each source group is a contiguous run of a row, so
+        # the group sums read memory in order (summed across rows, np.add.reduceat strided over
+        # the whole array and took most of this loop's time)
+        p = (d @ q32.T).reshape(n_all, e - s, n_used)
         p += p_mean
         if n_all > n_bands:  # broadband total given
-            total = p[:, n_bands:]
-            p = np.ascontiguousarray(p[:, :n_bands])
+            total = p[n_bands:]
+            p = p[:n_bands]
         else:
-            total = p.sum(axis=1, keepdims=True)
+            total = p.sum(axis=0, keepdims=True)
         with np.errstate(invalid="ignore", divide="ignore"):
             p /= total  # 0/0 -> NaN, as relative_power
-        g = np.add.reduceat(p.reshape(n_used, -1), starts, axis=0)  # (n_groups, ...)
-        r = (group_w @ g).reshape(-1, n_bands, e - s)  # (n_rois, n_bands, chunk)
-        rel[s:e] = r.transpose(2, 1, 0)
+        g = np.add.reduceat(p.reshape(-1, n_used), starts, axis=1)  # (n_bands * chunk, n_groups)
+        r = (g @ group_w.T).reshape(n_bands, e - s, -1)  # (n_bands, chunk, n_rois)
+        rel[s:e] = r.transpose(1, 0, 2)
     out["relative"] = rel
     return out
 
