@@ -417,14 +417,17 @@ def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
     so = np.empty((n_ep, n, n))
     soo = np.empty((n_ep, n, n))
     soy = np.empty((n_ep, n, n))
-    ar, ai, ur, ui = a.real, a.imag, unit.real, unit.imag
+    # contiguous parts: the products below read them in order (same numbers, ~1.3x faster)
+    ar, ai, ur, ui = (np.ascontiguousarray(x) for x in (a.real, a.imag, unit.real, unit.imag))
     # all ordered pairs at once, a block of epochs at a time (the block's (e, i, j, M) array
     # stays below ~8 MB); per-epoch sums of at most a few hundred samples are exact enough in
     # the input precision, and epochs are pooled in float64
     step = max(1, 2_000_000 // max(1, n * n * m))
     for s in range(0, n_ep, step):
         e = slice(s, s + step)
-        o = np.abs(ai[e, :, None, :] * ur[e, None, :, :] - ar[e, :, None, :] * ui[e, None, :, :])
+        o = ai[e, :, None, :] * ur[e, None, :, :]
+        o -= ar[e, :, None, :] * ui[e, None, :, :]
+        np.abs(o, out=o)
         so[e] = o.sum(-1)
         soo[e] = np.einsum("eijm,eijm->eij", o, o)
         soy[e] = np.einsum("eijm,ejm->eij", o, mag[e])
