@@ -106,33 +106,52 @@ _NEEDS = {
 }
 
 
-#: Statistics derived from the stored ones when asked for: name -> (stored inputs, function).
+#: Statistics derived from ``re``, ``im`` and ``inv = 1/|S|``: name -> (inputs, function).
 _DERIVED = {
     "abs_im": (("im",), np.abs),
     "sq_im": (("im",), lambda im: im * im),
     "u_re": (("re", "inv"), np.multiply),
     "u_im": (("im", "inv"), np.multiply),
 }
-#: A derived statistic up to this size is kept once made (a 10-minute recording's are ~18 MB);
-#: larger ones (long recordings) are made again for each use, so at most one is held at a time.
-_KEEP_BYTES = 48 * 2**20
-#: Elements of one block's temporaries in :func:`pair_statistics_from_fourier` (~4 MB).
-_BLOCK_ELEMENTS = 1_000_000
+#: Largest size of one statistic of one epoch block (a 10-minute recording's 300 epochs of 171
+#: pairs x 88 bins, 18 MB, are one block; an hour's are five).
+_BLOCK_BYTES = 24 * 2**20
+#: Elements of the gathered coefficients held at once while a block is made (~4 MB each).
+_GATHER_ELEMENTS = 1_000_000
+
+
+def _derive(base: dict, name: str, bins=None) -> np.ndarray:
+    if name in base:
+        x = base[name]
+        return x if bins is None else x[:, bins]
+    if name not in _DERIVED:
+        raise InputError(f"statistic: {name!r} is not one of {STAT_NAMES}")
+    needs, fn = _DERIVED[name]
+    if bins is None:
+        return fn(*(base[k] for k in needs))
+    return fn(*(base[k][:, bins] for k in needs))
 
 
 @dataclass(frozen=True, eq=False)
 class PairStatistics:
     """Per-epoch, per-bin statistics of node pairs (the input of every estimate and resample).
 
-    Only ``Re S``, ``Im S`` and ``1/|S|`` are stored (from Fourier coefficients); ``|Im S|``,
-    ``(Im S)²`` and the phase factor ``u = S/|S|`` are elementwise functions of them, made when
-    asked for (:meth:`stat`), so a long recording holds three arrays of this size, not six.
+    From Fourier coefficients the statistics are not held for all epochs at once: they are made
+    for one block of epochs at a time (at most :data:`_BLOCK_BYTES` per statistic) whenever they
+    are accumulated, and only ``Re S``, ``Im S`` and ``1/|S|`` are made per block (``|Im S|``,
+    ``(Im S)²`` and the phase factor ``u = S/|S|`` are elementwise functions of them).  A
+    recording whose epochs fit one block (10 minutes) keeps them, so it makes them once; the
+    numbers are those of accumulating all epochs at once.  Every accumulation is a sum over
+    epochs, so a long recording's blocks add up (memory flat in recording length).
 
     Attributes
     ----------
-    stored : dict
-        ``"re"``, ``"im"`` and ``"inv"`` (or any of :data:`STAT_NAMES`) -> ndarray, shape
-        (n_epochs, n_bins, n_pairs), float32, C-contiguous.
+    stored : dict or None
+        All of :data:`STAT_NAMES` -> ndarray, shape (n_epochs, n_bins, n_pairs), float32, when
+        built from cross-spectra (:func:`pair_statistics`); None when built from coefficients.
+    coef : tuple of ndarray or None
+        ``(Re X, Im X)``, each shape (n_epochs, n_bins, n_nodes), float32
+        (:func:`pair_statistics_from_fourier`).
     power : ndarray, shape (n_epochs, n_bins, n_nodes), float32
         Auto-spectra (real diagonal) per epoch.
     ia, ib : ndarray of int, shape (n_pairs,)
@@ -141,45 +160,88 @@ class PairStatistics:
         Hz.
     """
 
-    stored: dict
+    stored: dict | None
     power: np.ndarray
     ia: np.ndarray
     ib: np.ndarray
     freqs: np.ndarray
+    coef: tuple | None = None
     _kept: dict = field(default_factory=dict, repr=False)
 
     @property
     def n_epochs(self) -> int:
         return self.power.shape[0]
 
+    def blocks(self) -> list[slice]:
+        """Epoch blocks of at most :data:`_BLOCK_BYTES` per statistic (one when stored).
+
+        Returns
+        -------
+        list of slice
+            Consecutive epoch ranges covering all epochs.
+        """
+        k = self.n_epochs
+        if self.stored is not None:
+            return [slice(0, k)]
+        per_epoch = max(1, self.power.shape[1] * self.ia.size * 4)
+        step = max(1, _BLOCK_BYTES // per_epoch)
+        return [slice(s, min(s + step, k)) for s in range(0, k, step)]
+
+    def _base(self, e: slice) -> dict:
+        """``re``, ``im``, ``inv`` (or the stored statistics) of the epochs ``e``."""
+        if self.stored is not None:
+            return self.stored
+        whole = e.start == 0 and e.stop >= self.n_epochs
+        if whole and self._kept:
+            return self._kept
+        xr, xi = (c[e] for c in self.coef)
+        power = self.power[e]
+        ia, ib = self.ia, self.ib
+        n_ep, n_bins = xr.shape[:2]
+        re, im, inv = (np.empty((n_ep, n_bins, ia.size), dtype=np.float32) for _ in range(3))
+        # a few epochs at a time, so the gathered coefficients are small temporaries
+        # (elementwise arithmetic: the same numbers as all at once)
+        step = max(1, _GATHER_ELEMENTS // max(1, n_bins * ia.size))
+        for s in range(0, n_ep, step):
+            g = slice(s, s + step)
+            # np.take (unlike x[..., ia], laid out pair-major) returns C-contiguous arrays
+            ar, ai, br, bi = (
+                np.take(x[g], i, axis=-1) for x, i in ((xr, ia), (xi, ia), (xr, ib), (xi, ib))
+            )
+            re[g] = ar * br + ai * bi  # Re(X_a conj(X_b))
+            im[g] = ai * br - ar * bi  # Im(X_a conj(X_b))
+            mag = np.sqrt(np.take(power[g], ia, axis=-1) * np.take(power[g], ib, axis=-1))
+            np.divide(1.0, mag, out=inv[g], where=mag > 0)  # 1/|S|, 0 where S = 0
+            inv[g][~(mag > 0)] = 0.0
+        base = {"re": re, "im": im, "inv": inv}
+        if whole:
+            self._kept.update(base)
+            return self._kept
+        return base
+
+    def _stat(self, base: dict, name: str) -> np.ndarray:
+        if base is self._kept:  # the whole recording in one block: derived statistics kept
+            if name not in base:
+                base[name] = _derive(base, name)
+            return base[name]
+        return _derive(base, name)
+
     def stat(self, name: str, bins=None) -> np.ndarray:
-        """One statistic of :data:`STAT_NAMES`, shape (n_epochs, n_bins, n_pairs), float32.
+        """One statistic of :data:`STAT_NAMES` for all epochs (tests and small inputs).
 
         Parameters
         ----------
         name : str
             One of :data:`STAT_NAMES`.
         bins : int array or slice, optional
-            Only these bins (then shape (n_epochs, n_sel, n_pairs)).
+            Only these bins.
 
         Returns
         -------
-        ndarray
-            Read-only where it is a stored or kept array.
+        ndarray, shape (n_epochs, n_bins or n_sel, n_pairs), float32
         """
-        if name in self.stored:
-            x = self.stored[name]
-        elif name in self._kept:
-            x = self._kept[name]
-        elif name in _DERIVED:
-            needs, fn = _DERIVED[name]
-            if bins is not None:
-                return fn(*(self.stored[k][:, bins] for k in needs))
-            x = fn(*(self.stored[k] for k in needs))
-            if x.nbytes <= _KEEP_BYTES:
-                self._kept[name] = x
-        else:
-            raise InputError(f"statistic: {name!r} is not one of {STAT_NAMES}")
+        parts = [self._stat(self._base(e), name) for e in self.blocks()]
+        x = parts[0] if len(parts) == 1 else np.concatenate(parts)
         return x if bins is None else x[:, bins]
 
     @property
@@ -216,24 +278,69 @@ class PairStatistics:
             Weighted mean node power ``|X|²`` (µV²/Hz per bin for sensor coefficients).
         """
         k = self.n_epochs
-
-        def mean(a):  # float32 pairwise summation (fast), then float64
-            return (a.sum(axis=0) / np.float32(k)).astype(float)[None]
-
-        def product(rows, a):  # (n_rep, K) @ (K, n_bins, n_pairs)
-            return (rows @ a.reshape(k, -1)).reshape((rows.shape[0],) + a.shape[1:])
-
-        if weights is None and signs is None:
-            return {n: mean(self.stat(n)) for n in names}, mean(self.power)
+        rows = None
         if signs is not None:
-            s = np.asarray(signs, dtype=np.float32) / np.float32(k)
-            acc = {n: product(s, self.stat(n)) if n in _ODD else mean(self.stat(n)) for n in names}
-            return acc, mean(self.power)
-        w = np.asarray(weights, dtype=np.float32)
-        if w.ndim != 2 or w.shape[1] != k:
-            raise InputError(f"weights: need shape (n_rep, {k}), got {w.shape}")
-        acc = {n: product(w, self.stat(n)) for n in names}
-        return acc, product(w, self.power)
+            rows = np.asarray(signs, dtype=np.float32) / np.float32(k)
+        elif weights is not None:
+            rows = np.asarray(weights, dtype=np.float32)
+            if rows.ndim != 2 or rows.shape[1] != k:
+                raise InputError(f"weights: need shape (n_rep, {k}), got {rows.shape}")
+
+        def product(r, a):  # (n_rep, K_block) @ (K_block, n_bins, n_pairs)
+            return (r @ a.reshape(a.shape[0], -1)).reshape((r.shape[0],) + a.shape[1:])
+
+        def summed(parts):  # blocks' float32 sums (one block: the sum itself)
+            tot = parts[0]
+            for p in parts[1:]:
+                tot = tot + p
+            return tot
+
+        parts: dict = {n: [] for n in names}
+        for e in self.blocks():
+            base = self._base(e)
+            for n in names:
+                x = self._stat(base, n)
+                if rows is None or (signs is not None and n not in _ODD):
+                    parts[n].append(x.sum(axis=0))  # float32 sum (fast)
+                else:
+                    parts[n].append(product(rows[:, e], x))
+            del base
+        acc = {}
+        for n in names:
+            tot = summed(parts[n])
+            acc[n] = (tot / np.float32(k)).astype(float)[None] if tot.ndim == 2 else tot
+
+        if rows is None or signs is not None:
+            power = (self.power.sum(axis=0) / np.float32(k)).astype(float)[None]
+        else:
+            power = product(rows, self.power)
+        return acc, power
+
+    def grams(self, names, band_idx) -> dict[str, list[np.ndarray]]:
+        """``Σ_e x_e(f) x_e(f')`` of statistics over each band's bins, in one pass over epochs.
+
+        Parameters
+        ----------
+        names : sequence of str
+            Statistics of :data:`STAT_NAMES`.
+        band_idx : sequence of int arrays
+            Bins of each band.
+
+        Returns
+        -------
+        dict
+            name -> list (per band) of ndarray, shape (n_pairs, n_b, n_b), float64.
+        """
+        out = {n: [None] * len(band_idx) for n in names}
+        for e in self.blocks():
+            base = self._base(e)
+            for n in names:
+                x = self._stat(base, n)
+                for b, idx in enumerate(band_idx):
+                    g = _gram(x[:, idx])
+                    out[n][b] = g if out[n][b] is None else out[n][b] + g
+            del base
+        return out
 
 
 def _statistics(s: np.ndarray, power: np.ndarray, ia, ib, freqs) -> PairStatistics:
@@ -327,24 +434,9 @@ def pair_statistics_from_fourier(spec: np.ndarray, freqs: np.ndarray, pairs) -> 
     xr = np.ascontiguousarray(xt.real, dtype=np.float32)
     xi = np.ascontiguousarray(xt.imag, dtype=np.float32)
     power = xr * xr + xi * xi
-    n_ep, n_bins = xr.shape[:2]
-    re, im, inv = (np.empty((n_ep, n_bins, ia.size), dtype=np.float32) for _ in range(3))
-    # a block of epochs at a time, so the gathered coefficients are temporaries of a block's
-    # size (elementwise arithmetic: the same numbers as all at once)
-    step = max(1, _BLOCK_ELEMENTS // max(1, n_bins * ia.size))
-    for s in range(0, n_ep, step):
-        e = slice(s, s + step)
-        # np.take (unlike x[..., ia], which is laid out pair-major) returns C-contiguous arrays
-        ar, ai, br, bi = (
-            np.take(x[e], i, axis=-1) for x, i in ((xr, ia), (xi, ia), (xr, ib), (xi, ib))
-        )
-        re[e] = ar * br + ai * bi  # Re(X_a conj(X_b))
-        im[e] = ai * br - ar * bi  # Im(X_a conj(X_b))
-        mag = np.sqrt(np.take(power[e], ia, axis=-1) * np.take(power[e], ib, axis=-1))  # |S|
-        np.divide(1.0, mag, out=inv[e], where=mag > 0)
-        inv[e][~(mag > 0)] = 0.0
     return PairStatistics(
-        stored={"re": re, "im": im, "inv": inv},
+        stored=None,
+        coef=(xr, xi),
         power=power,
         ia=ia,
         ib=ib,
@@ -744,10 +836,11 @@ def _analytic_null(ps: PairStatistics, band_idx, level: float) -> dict:
     pp = pw[0][:, ps.ia] * pw[0][:, ps.ib]
     z = stats.norm.ppf(0.5 + level / 2.0)
     out = {m: ([], []) for m in LAGGED_MEASURES}
-    for idx in band_idx:
+    grams = ps.grams(("im", "u_im"), band_idx)
+    for b, idx in enumerate(band_idx):
         nb = len(idx)
-        gx = _gram(ps.stat("im", idx)) / k**2  # cov of A_im
-        gu = _gram(ps.stat("u_im", idx)) / k**2  # cov of U_im
+        gx = grams["im"][b] / k**2  # cov of A_im
+        gu = grams["u_im"][b] / k**2  # cov of U_im
         with np.errstate(invalid="ignore", divide="ignore"):
             # imcoh: linear in A_im
             c = (1.0 / np.sqrt(pp[idx])).T / nb  # (P, n_b)
