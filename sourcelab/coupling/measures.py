@@ -113,9 +113,11 @@ _DERIVED = {
     "u_re": (("re", "inv"), np.multiply),
     "u_im": (("im", "inv"), np.multiply),
 }
-#: Largest size of one statistic of one epoch block (a 10-minute recording's 300 epochs of 171
-#: pairs x 88 bins, 18 MB, are one block; an hour's are five).
-_BLOCK_BYTES = 24 * 2**20
+#: Statistics up to this size (per statistic) are made for all epochs at once and kept (a
+#: 10-minute recording's 300 epochs x 88 bins x 171 pairs, 18 MB) ...
+_WHOLE_BYTES = 24 * 2**20
+#: ... larger ones (longer recordings) in epoch blocks of at most this size per statistic.
+_BLOCK_BYTES = 8 * 2**20
 #: Elements of the gathered coefficients held at once while a block is made (~4 MB each).
 _GATHER_ELEMENTS = 1_000_000
 
@@ -136,13 +138,14 @@ def _derive(base: dict, name: str, bins=None) -> np.ndarray:
 class PairStatistics:
     """Per-epoch, per-bin statistics of node pairs (the input of every estimate and resample).
 
-    From Fourier coefficients the statistics are not held for all epochs at once: they are made
-    for one block of epochs at a time (at most :data:`_BLOCK_BYTES` per statistic) whenever they
-    are accumulated, and only ``Re S``, ``Im S`` and ``1/|S|`` are made per block (``|Im S|``,
-    ``(Im S)²`` and the phase factor ``u = S/|S|`` are elementwise functions of them).  A
-    recording whose epochs fit one block (10 minutes) keeps them, so it makes them once; the
-    numbers are those of accumulating all epochs at once.  Every accumulation is a sum over
-    epochs, so a long recording's blocks add up (memory flat in recording length).
+    From Fourier coefficients of a long recording the statistics are not held for all epochs at
+    once: they are made for one block of epochs at a time (at most :data:`_BLOCK_BYTES` per
+    statistic) whenever they are accumulated, and only ``Re S``, ``Im S`` and ``1/|S|`` are
+    made per block (``|Im S|``, ``(Im S)²`` and the phase factor ``u = S/|S|`` are elementwise
+    functions of them).  A recording whose statistics fit :data:`_WHOLE_BYTES` (10 minutes) is
+    one block, made once and kept.  Every accumulation is a sum over epochs, so blocks add up
+    (memory flat in recording length; float32 sums in another order, so the last digits of
+    single precision differ from one block).
 
     Attributes
     ----------
@@ -173,7 +176,8 @@ class PairStatistics:
         return self.power.shape[0]
 
     def blocks(self) -> list[slice]:
-        """Epoch blocks of at most :data:`_BLOCK_BYTES` per statistic (one when stored).
+        """Epoch blocks: one up to :data:`_WHOLE_BYTES` per statistic (or when stored), else
+        blocks of at most :data:`_BLOCK_BYTES`.
 
         Returns
         -------
@@ -184,6 +188,8 @@ class PairStatistics:
         if self.stored is not None:
             return [slice(0, k)]
         per_epoch = max(1, self.power.shape[1] * self.ia.size * 4)
+        if k * per_epoch <= _WHOLE_BYTES:
+            return [slice(0, k)]
         step = max(1, _BLOCK_BYTES // per_epoch)
         return [slice(s, min(s + step, k)) for s in range(0, k, step)]
 
@@ -289,26 +295,24 @@ class PairStatistics:
         def product(r, a):  # (n_rep, K_block) @ (K_block, n_bins, n_pairs)
             return (r @ a.reshape(a.shape[0], -1)).reshape((r.shape[0],) + a.shape[1:])
 
-        def summed(parts):  # blocks' float32 sums (one block: the sum itself)
-            tot = parts[0]
-            for p in parts[1:]:
-                tot = tot + p
-            return tot
-
-        parts: dict = {n: [] for n in names}
+        tot: dict = {}  # running float32 sums over blocks (one block: the sum itself)
         for e in self.blocks():
             base = self._base(e)
             for n in names:
                 x = self._stat(base, n)
                 if rows is None or (signs is not None and n not in _ODD):
-                    parts[n].append(x.sum(axis=0))  # float32 sum (fast)
+                    part = x.sum(axis=0)  # float32 sum (fast)
                 else:
-                    parts[n].append(product(rows[:, e], x))
+                    part = product(rows[:, e], x)
+                del x
+                if n in tot:
+                    tot[n] += part
+                else:
+                    tot[n] = part
             del base
-        acc = {}
-        for n in names:
-            tot = summed(parts[n])
-            acc[n] = (tot / np.float32(k)).astype(float)[None] if tot.ndim == 2 else tot
+        acc = {
+            n: (t / np.float32(k)).astype(float)[None] if t.ndim == 2 else t for n, t in tot.items()
+        }
 
         if rows is None or signs is not None:
             power = (self.power.sum(axis=0) / np.float32(k)).astype(float)[None]
