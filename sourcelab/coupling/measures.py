@@ -963,3 +963,59 @@ def conjugation_null(
         mag = np.abs(r) if m == "imcoh" else r
         out[m] = (np.mean(r, axis=0), _quantile(mag, level))
     return out
+
+
+def band_coupling(
+    ps: PairStatistics,
+    band_idx,
+    *,
+    measures=BAND_MEASURES,
+    null_method: str | None = "analytic",
+    n_null: int = 500,
+    n_boot: int = 0,
+    seed: int = 0,
+    ci: float = 0.95,
+) -> tuple[dict, dict, dict]:
+    """Band measures of all epochs with their conjugation null and bootstrap intervals.
+
+    The shared step of electrode pairs (:func:`sourcelab.coupling.sensor.sensor_coupling`) and
+    ROI edges (:func:`sourcelab.coupling.source.edge_coupling`).
+
+    Parameters
+    ----------
+    ps : PairStatistics
+    band_idx : sequence of int arrays
+        Bins of each band (:func:`sourcelab.spectra.band_bin_indices`).
+    measures : sequence of str
+        Subset of :data:`BAND_MEASURES`.
+    null_method : {"analytic", "monte-carlo"} or None
+        :func:`conjugation_null` of the lagged measures among ``measures``; None: no null.
+    n_null : int
+        Monte-Carlo null replicates.
+    n_boot : int
+        Bootstrap replicates over epochs (0: no intervals).
+    seed : int
+        Seed of the null and the bootstrap.
+    ci : float
+        Coverage of the bootstrap intervals.
+
+    Returns
+    -------
+    values : dict
+        measure -> ndarray, shape (n_bands, n_pairs).
+    null : dict
+        lagged measure -> (mean, q95), each shape (n_bands, n_pairs); empty without a null.
+    intervals : dict
+        measure -> (lo, hi), each shape (n_bands, n_pairs); empty without a bootstrap.
+    """
+    est = coupling_from_statistics(ps, band_idx, measures=measures)
+    null = {}
+    if null_method:
+        cn = conjugation_null(ps, band_idx, method=null_method, n_rep=n_null, seed=seed)
+        null = {m: v for m, v in cn.items() if m in measures}
+    intervals = {}
+    if n_boot:
+        intervals = bootstrap_intervals(
+            ps, band_idx, est, n_boot=n_boot, seed=seed, ci=ci, measures=measures
+        )
+    return {m: v[0] for m, v in est.items()}, null, intervals

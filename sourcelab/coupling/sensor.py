@@ -46,9 +46,7 @@ from ..spectra import band_bin_indices
 from .measures import (
     BAND_MEASURES,
     LAGGED_MEASURES,
-    bootstrap_intervals,
-    conjugation_null,
-    coupling_from_statistics,
+    band_coupling,
     pair_statistics,
     pair_statistics_from_fourier,
 )
@@ -310,8 +308,15 @@ def sensor_coupling(
             f"(n_epochs, {n_ch}, n_bins), got {spectra.shape}"
         )
     n_ep = ps.n_epochs
-    est = coupling_from_statistics(ps, band_idx)
-    values = {m: v[0] for m, v in est.items()}
+    values, null, intervals = band_coupling(
+        ps,
+        band_idx,
+        null_method=null_method,
+        n_null=n_null,
+        n_boot=n_boot,
+        seed=seed,
+        ci=ci,
+    )
     pe = ps.power.astype(float)  # (n_ep, n_bins, n_ch)
     bp = np.stack([pe[:, i].sum(axis=1) for i in band_idx], axis=1)  # (n_ep, n_bands, n_ch)
     band_power = bp.mean(axis=0)
@@ -319,19 +324,12 @@ def sensor_coupling(
         "homologous": asymmetry(band_power, ps_sets.homologous),
         "anterior_posterior": asymmetry(band_power, ps_sets.anterior_posterior),
     }
-    null = (
-        conjugation_null(ps, band_idx, method=null_method, n_rep=n_null, seed=seed)
-        if null_method
-        else {}
-    )
     leak = None
     if null_cov is not None:
         cov = np.asarray(null_cov, dtype=float)
         p = np.eye(cov.shape[0]) - 1.0 / cov.shape[0]
         leak = msc_from_covariance(p @ cov @ p, ps_sets.all)
-    intervals = {}
     if n_boot:
-        intervals = bootstrap_intervals(ps, band_idx, est, n_boot=n_boot, seed=seed, ci=ci)
         from .measures import _quantile, bootstrap_weights
 
         w = bootstrap_weights(n_ep, n_boot=n_boot, seed=seed)

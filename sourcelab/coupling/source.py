@@ -78,10 +78,8 @@ from ..spectra import band_bin_indices
 from .measures import (
     LAGGED_MEASURES,
     _quantile,
-    bootstrap_intervals,
+    band_coupling,
     bootstrap_weights,
-    conjugation_null,
-    coupling_from_statistics,
     pair_statistics_from_fourier,
 )
 from .sensor import MEASURE_UNITS, _boolean, leakage_arrays, msc_from_covariance
@@ -90,14 +88,13 @@ from .sensor import MEASURE_UNITS, _boolean, leakage_arrays, msc_from_covariance
 COUPLING_ATLASES = ("lobes", "yeo7", "networks")
 #: Edge measures, in table order.
 EDGE_MEASURES = ("msc", "imcoh", "lagcoh", "lps", "lag_ms", "aec_orth")
+#: The columns naming an edge's two ROIs.
+EDGE_ROI_COLUMNS = ("roi_a", "hemisphere_a", "roi_b", "hemisphere_b")
 #: Columns of :func:`coupling_table`, in order.
 EDGE_COLUMNS = (
     "atlas",
     "edge",
-    "roi_a",
-    "hemisphere_a",
-    "roi_b",
-    "hemisphere_b",
+    *EDGE_ROI_COLUMNS,
     "band",
     "measure",
     "value",
@@ -641,17 +638,16 @@ def edge_coupling(
     edges = np.column_stack([iu, ju])
     ps = pair_statistics_from_fourier(roi_fourier(spec, w), freqs, edges)
     spectral = tuple(m for m in EDGE_MEASURES if m != "aec_orth")
-    est = coupling_from_statistics(ps, band_idx, measures=spectral)
-    values = {m: est[m][0] for m in spectral}
-    null = {}
-    if null_method:
-        cn = conjugation_null(ps, band_idx, method=null_method, n_rep=n_null, seed=seed)
-        null = {m: cn[m] for m in ("imcoh", "lagcoh", "lps")}
-    intervals = {}
-    if n_boot:
-        intervals = bootstrap_intervals(
-            ps, band_idx, est, n_boot=n_boot, seed=seed, ci=ci, measures=spectral
-        )
+    values, null, intervals = band_coupling(
+        ps,
+        band_idx,
+        measures=spectral,
+        null_method=null_method,
+        n_null=n_null,
+        n_boot=n_boot,
+        seed=seed,
+        ci=ci,
+    )
     if spec_plain is not None:
         roi_plain = roi_fourier(spec_plain, w)
         aec = np.empty((len(band_idx), edges.shape[0]))
@@ -818,6 +814,7 @@ __all__ = [
     "EDGE_COLUMNS",
     "EDGE_COLUMN_NOTES",
     "EDGE_MEASURES",
+    "EDGE_ROI_COLUMNS",
     "EdgeCoupling",
     "LAGGED_MEASURES",
     "RoiFilters",
