@@ -69,7 +69,26 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .._docs import docdict, fill_doc
 from ..errors import InputError
+
+# numpydoc fragments shared by the coupling modules (:func:`sourcelab._docs.fill_doc`)
+docdict["coupling_uncertainty"] = """\
+null_method : {"analytic", "monte-carlo"} or None
+    How the lagged measures' conjugation null is computed
+    (:func:`sourcelab.coupling.measures.conjugation_null`); None: no null.
+n_null : int
+    Replicates of the Monte-Carlo null.
+n_boot : int
+    Bootstrap replicates over epochs for intervals (0: none).
+seed : int
+    Seed of the bootstrap (the band-power bootstrap's seed resamples the same epochs) and of
+    the randomisation.
+ci : float
+    Coverage of the bootstrap intervals, e.g. 0.95."""
+docdict["band_measures_subset"] = """\
+measures : sequence of str
+    Subset of :data:`sourcelab.coupling.measures.BAND_MEASURES`."""
 
 #: Per-epoch statistics kept by :class:`PairStatistics`.
 STAT_NAMES = ("re", "im", "abs_im", "sq_im", "u_re", "u_im")
@@ -533,6 +552,7 @@ def band_matrix(freqs: np.ndarray, band_idx) -> np.ndarray:
     return a
 
 
+@fill_doc
 def band_measures(
     per_bin: dict[str, np.ndarray], freqs: np.ndarray, band_idx, measures=BAND_MEASURES
 ) -> dict[str, np.ndarray]:
@@ -546,8 +566,7 @@ def band_measures(
         Hz.
     band_idx : sequence of int arrays
         Bins of each band (:func:`sourcelab.spectra.band_bin_indices`).
-    measures : sequence of str
-        Subset of :data:`BAND_MEASURES`.
+    %(band_measures_subset)s
 
     Returns
     -------
@@ -606,6 +625,7 @@ def _bin_names(measures) -> tuple[tuple[str, ...], tuple[str, ...]]:
     return tuple(sorted(bins)), tuple(stats)
 
 
+@fill_doc
 def coupling_from_statistics(
     ps: PairStatistics,
     band_idx,
@@ -627,8 +647,7 @@ def coupling_from_statistics(
         Conjugation signs (see :meth:`PairStatistics.accumulate`).
     chunk : int
         Replicates per pass (bounds memory: chunk x n_stats x n_bins x n_pairs floats).
-    measures : sequence of str
-        Subset of :data:`BAND_MEASURES`.
+    %(band_measures_subset)s
 
     Returns
     -------
@@ -965,6 +984,7 @@ def conjugation_null(
     return out
 
 
+@fill_doc
 def band_coupling(
     ps: PairStatistics,
     band_idx,
@@ -988,16 +1008,7 @@ def band_coupling(
         Bins of each band (:func:`sourcelab.spectra.band_bin_indices`).
     measures : sequence of str
         Subset of :data:`BAND_MEASURES`.
-    null_method : {"analytic", "monte-carlo"} or None
-        :func:`conjugation_null` of the lagged measures among ``measures``; None: no null.
-    n_null : int
-        Monte-Carlo null replicates.
-    n_boot : int
-        Bootstrap replicates over epochs (0: no intervals).
-    seed : int
-        Seed of the null and the bootstrap.
-    ci : float
-        Coverage of the bootstrap intervals.
+    %(coupling_uncertainty)s
 
     Returns
     -------

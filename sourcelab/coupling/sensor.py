@@ -41,11 +41,13 @@ if TYPE_CHECKING:  # pandas is imported where tables are built
     import pandas as pd
 
 from ..config import Bands
+from .._docs import fill_doc
 from ..errors import InputError
 from ..spectra import band_bin_indices
 from .measures import (
     BAND_MEASURES,
     LAGGED_MEASURES,
+    CouplingResult,
     band_coupling,
     pair_statistics,
     pair_statistics_from_fourier,
@@ -153,39 +155,25 @@ def average_reference_bins(csd: np.ndarray) -> np.ndarray:
 
 
 @dataclass(frozen=True, eq=False)
-class SensorCoupling:
-    """Pair measures of one recording.
+class SensorCoupling(CouplingResult):
+    """Pair measures of one recording (with the attributes of :class:`CouplingResult`).
+
+    ``values``, ``null``, ``leakage_msc`` and ``intervals`` run over ``pairs.all``;
+    ``intervals`` also holds ``"asymmetry_homologous"`` and ``"asymmetry_anterior_posterior"``.
 
     Attributes
     ----------
     pairs : PairSets
-    band_names : tuple of str
-    values : dict
-        measure -> ndarray, shape (n_bands, n_pairs) over ``pairs.all``.
     asymmetry : dict
         ``"homologous"`` / ``"anterior_posterior"`` -> ndarray, shape (n_bands, n_set).
     band_power : ndarray, shape (n_bands, n_ch)
         Average-reference absolute band power (squared data unit).
-    null : dict
-        lagged measure -> (mean, q95), each shape (n_bands, n_pairs).
-    leakage_msc : ndarray, shape (n_pairs,) or None
-        MSC of the volume-conduction model (frequency-independent).
-    intervals : dict
-        measure -> (lo, hi), each shape (n_bands, n_pairs); also ``"asymmetry_homologous"``,
-        ``"asymmetry_anterior_posterior"``; empty without a bootstrap.
-    n_epochs : int
     distance_mm : ndarray, shape (n_pairs,)
     """
 
     pairs: PairSets
-    band_names: tuple[str, ...]
-    values: dict
     asymmetry: dict
     band_power: np.ndarray
-    null: dict
-    leakage_msc: np.ndarray | None
-    intervals: dict
-    n_epochs: int
     distance_mm: np.ndarray
 
     def to_frame(self) -> pd.DataFrame:
@@ -237,6 +225,7 @@ def msc_from_covariance(cov: np.ndarray, pairs: np.ndarray) -> np.ndarray:
     return c * c / (d[pairs[:, 0]] * d[pairs[:, 1]])
 
 
+@fill_doc
 def sensor_coupling(
     spectra: np.ndarray,
     freqs: np.ndarray,
@@ -271,18 +260,7 @@ def sensor_coupling(
     null_cov : ndarray, shape (n_ch, n_ch), optional
         Sensor covariance of independent cortical sources (volume-conduction model) for the
         ``msc`` leakage expectation.
-    null_method : {"analytic", "monte-carlo"} or None
-        How the lagged measures' conjugation null is computed
-        (:func:`sourcelab.coupling.measures.conjugation_null`); None: no null.
-    n_null : int
-        Replicates of the Monte-Carlo null.
-    n_boot : int
-        Bootstrap replicates over epochs for intervals (0: none).
-    seed : int
-        Seed of the bootstrap (the band-power bootstrap's seed resamples the same epochs) and of
-        the randomisation.
-    ci : float
-        Interval coverage.
+    %(coupling_uncertainty)s
 
     Returns
     -------

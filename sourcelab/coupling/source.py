@@ -73,10 +73,12 @@ if TYPE_CHECKING:  # pandas is imported where tables are built
     import pandas as pd
 
 from ..config import Bands
+from .._docs import fill_doc
 from ..errors import InputError
 from ..spectra import band_bin_indices
 from .measures import (
     LAGGED_MEASURES,
+    CouplingResult,
     _quantile,
     band_coupling,
     bootstrap_weights,
@@ -520,33 +522,21 @@ def aec_block_se(mom: dict) -> np.ndarray:
 
 
 @dataclass(frozen=True, eq=False)
-class EdgeCoupling:
-    """Network/lobe coupling of one recording on one atlas.
+class EdgeCoupling(CouplingResult):
+    """Network/lobe coupling of one recording on one atlas (see :class:`CouplingResult`).
+
+    ``values`` holds :data:`EDGE_MEASURES`; ``values``, ``null``, ``leakage_msc`` and
+    ``intervals`` run over ``edges``.
 
     Attributes
     ----------
     filters : RoiFilters
-    band_names : tuple of str
     edges : ndarray of int, shape (n_edges, 2)
         ROI index pairs ``a < b``.
-    values : dict
-        :data:`EDGE_MEASURES` -> ndarray, shape (n_bands, n_edges).
-    null : dict
-        lagged measure or ``"aec_orth"`` -> (expected, q95), shape (n_bands, n_edges).
-    leakage_msc : ndarray, shape (n_edges,)
-    intervals : dict
-        measure -> (lo, hi), shape (n_bands, n_edges); empty without a bootstrap.
-    n_epochs : int
     """
 
     filters: RoiFilters
-    band_names: tuple[str, ...]
     edges: np.ndarray
-    values: dict
-    null: dict
-    leakage_msc: np.ndarray | None
-    intervals: dict
-    n_epochs: int
 
     def to_frame(self) -> pd.DataFrame:
         """The tidy edge table of this atlas (:func:`coupling_table`).
@@ -584,6 +574,7 @@ class EdgeCoupling:
         return out
 
 
+@fill_doc
 def edge_coupling(
     spec: np.ndarray,
     spec_plain: np.ndarray | None,
@@ -613,16 +604,7 @@ def edge_coupling(
     filters : RoiFilters
     null_cov : ndarray, shape (n_ch, n_ch), optional
         :func:`independent_source_covariance` for the coherence expected from leakage.
-    null_method : {"analytic", "monte-carlo"} or None
-        The lagged measures' conjugation null (None: none).
-    n_null : int
-        Monte-Carlo null replicates.
-    n_boot : int
-        Bootstrap replicates over epochs (0: no intervals).
-    seed : int
-        Seed of the null and the bootstrap.
-    ci : float
-        Coverage of the bootstrap intervals, e.g. 0.95.
+    %(coupling_uncertainty)s
     samples_per_epoch : int, optional
         Envelope samples per epoch (:func:`band_analytic`).
 
