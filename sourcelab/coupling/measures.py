@@ -984,6 +984,34 @@ def conjugation_null(
     return out
 
 
+@dataclass(frozen=True, eq=False)
+class CouplingResult:
+    """What pair and edge coupling share: band values, their null and intervals.
+
+    Attributes
+    ----------
+    band_names : tuple of str
+    values : dict
+        measure -> ndarray, shape (n_bands, n_pairs) (electrode pairs or ROI edges).
+    null : dict
+        lagged measure (edges: also ``"aec_orth"``) -> (expected, q95) under leakage or
+        volume conduction alone, each shape (n_bands, n_pairs).
+    leakage_msc : ndarray, shape (n_pairs,) or None
+        Magnitude-squared coherence of the volume-conduction model (frequency-independent).
+    intervals : dict
+        measure -> (lo, hi), each shape (n_bands, n_pairs); empty without a bootstrap.
+    n_epochs : int
+        Clean epochs behind the values.
+    """
+
+    band_names: tuple[str, ...]
+    values: dict
+    null: dict
+    leakage_msc: np.ndarray | None
+    intervals: dict
+    n_epochs: int
+
+
 @fill_doc
 def band_coupling(
     ps: PairStatistics,
