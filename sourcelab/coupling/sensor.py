@@ -286,15 +286,8 @@ def sensor_coupling(
             f"(n_epochs, {n_ch}, n_bins), got {spectra.shape}"
         )
     n_ep = ps.n_epochs
-    values, null, intervals = band_coupling(
-        ps,
-        band_idx,
-        null_method=null_method,
-        n_null=n_null,
-        n_boot=n_boot,
-        seed=seed,
-        ci=ci,
-    )
+    unc = {"null_method": null_method, "n_null": n_null, "n_boot": n_boot, "seed": seed, "ci": ci}
+    values, null, intervals = band_coupling(ps, band_idx, **unc)
     pe = ps.power.astype(float)  # (n_ep, n_bins, n_ch)
     bp = np.stack([pe[:, i].sum(axis=1) for i in band_idx], axis=1)  # (n_ep, n_bands, n_ch)
     band_power = bp.mean(axis=0)

@@ -620,16 +620,8 @@ def edge_coupling(
     edges = np.column_stack([iu, ju])
     ps = pair_statistics_from_fourier(roi_fourier(spec, w), freqs, edges)
     spectral = tuple(m for m in EDGE_MEASURES if m != "aec_orth")
-    values, null, intervals = band_coupling(
-        ps,
-        band_idx,
-        measures=spectral,
-        null_method=null_method,
-        n_null=n_null,
-        n_boot=n_boot,
-        seed=seed,
-        ci=ci,
-    )
+    unc = {"null_method": null_method, "n_null": n_null, "n_boot": n_boot, "seed": seed, "ci": ci}
+    values, null, intervals = band_coupling(ps, band_idx, measures=spectral, **unc)
     if spec_plain is not None:
         roi_plain = roi_fourier(spec_plain, w)
         aec = np.empty((len(band_idx), edges.shape[0]))
