@@ -41,14 +41,14 @@ if TYPE_CHECKING:  # pandas is imported where tables are built
     import pandas as pd
 
 from ..config import Bands
+from .._docs import fill_doc
 from ..errors import InputError
 from ..spectra import band_bin_indices
 from .measures import (
     BAND_MEASURES,
     LAGGED_MEASURES,
-    bootstrap_intervals,
-    conjugation_null,
-    coupling_from_statistics,
+    CouplingResult,
+    band_coupling,
     pair_statistics,
     pair_statistics_from_fourier,
 )
@@ -155,39 +155,25 @@ def average_reference_bins(csd: np.ndarray) -> np.ndarray:
 
 
 @dataclass(frozen=True, eq=False)
-class SensorCoupling:
-    """Pair measures of one recording.
+class SensorCoupling(CouplingResult):
+    """Pair measures of one recording (with the attributes of :class:`CouplingResult`).
+
+    ``values``, ``null``, ``leakage_msc`` and ``intervals`` run over ``pairs.all``;
+    ``intervals`` also holds ``"asymmetry_homologous"`` and ``"asymmetry_anterior_posterior"``.
 
     Attributes
     ----------
     pairs : PairSets
-    band_names : tuple of str
-    values : dict
-        measure -> ndarray, shape (n_bands, n_pairs) over ``pairs.all``.
     asymmetry : dict
         ``"homologous"`` / ``"anterior_posterior"`` -> ndarray, shape (n_bands, n_set).
     band_power : ndarray, shape (n_bands, n_ch)
         Average-reference absolute band power (squared data unit).
-    null : dict
-        lagged measure -> (mean, q95), each shape (n_bands, n_pairs).
-    leakage_msc : ndarray, shape (n_pairs,) or None
-        MSC of the volume-conduction model (frequency-independent).
-    intervals : dict
-        measure -> (lo, hi), each shape (n_bands, n_pairs); also ``"asymmetry_homologous"``,
-        ``"asymmetry_anterior_posterior"``; empty without a bootstrap.
-    n_epochs : int
     distance_mm : ndarray, shape (n_pairs,)
     """
 
     pairs: PairSets
-    band_names: tuple[str, ...]
-    values: dict
     asymmetry: dict
     band_power: np.ndarray
-    null: dict
-    leakage_msc: np.ndarray | None
-    intervals: dict
-    n_epochs: int
     distance_mm: np.ndarray
 
     def to_frame(self) -> pd.DataFrame:
@@ -239,6 +225,7 @@ def msc_from_covariance(cov: np.ndarray, pairs: np.ndarray) -> np.ndarray:
     return c * c / (d[pairs[:, 0]] * d[pairs[:, 1]])
 
 
+@fill_doc
 def sensor_coupling(
     spectra: np.ndarray,
     freqs: np.ndarray,
@@ -273,18 +260,7 @@ def sensor_coupling(
     null_cov : ndarray, shape (n_ch, n_ch), optional
         Sensor covariance of independent cortical sources (volume-conduction model) for the
         ``msc`` leakage expectation.
-    null_method : {"analytic", "monte-carlo"} or None
-        How the lagged measures' conjugation null is computed
-        (:func:`sourcelab.coupling.measures.conjugation_null`); None: no null.
-    n_null : int
-        Replicates of the Monte-Carlo null.
-    n_boot : int
-        Bootstrap replicates over epochs for intervals (0: none).
-    seed : int
-        Seed of the bootstrap (the band-power bootstrap's seed resamples the same epochs) and of
-        the randomisation.
-    ci : float
-        Interval coverage.
+    %(coupling_uncertainty)s
 
     Returns
     -------
@@ -310,8 +286,8 @@ def sensor_coupling(
             f"(n_epochs, {n_ch}, n_bins), got {spectra.shape}"
         )
     n_ep = ps.n_epochs
-    est = coupling_from_statistics(ps, band_idx)
-    values = {m: v[0] for m, v in est.items()}
+    unc = {"null_method": null_method, "n_null": n_null, "n_boot": n_boot, "seed": seed, "ci": ci}
+    values, null, intervals = band_coupling(ps, band_idx, **unc)
     pe = ps.power.astype(float)  # (n_ep, n_bins, n_ch)
     bp = np.stack([pe[:, i].sum(axis=1) for i in band_idx], axis=1)  # (n_ep, n_bands, n_ch)
     band_power = bp.mean(axis=0)
@@ -319,19 +295,12 @@ def sensor_coupling(
         "homologous": asymmetry(band_power, ps_sets.homologous),
         "anterior_posterior": asymmetry(band_power, ps_sets.anterior_posterior),
     }
-    null = (
-        conjugation_null(ps, band_idx, method=null_method, n_rep=n_null, seed=seed)
-        if null_method
-        else {}
-    )
     leak = None
     if null_cov is not None:
         cov = np.asarray(null_cov, dtype=float)
         p = np.eye(cov.shape[0]) - 1.0 / cov.shape[0]
         leak = msc_from_covariance(p @ cov @ p, ps_sets.all)
-    intervals = {}
     if n_boot:
-        intervals = bootstrap_intervals(ps, band_idx, est, n_boot=n_boot, seed=seed, ci=ci)
         from .measures import _quantile, bootstrap_weights
 
         w = bootstrap_weights(n_ep, n_boot=n_boot, seed=seed)

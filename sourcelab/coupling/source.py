@@ -73,15 +73,15 @@ if TYPE_CHECKING:  # pandas is imported where tables are built
     import pandas as pd
 
 from ..config import Bands
+from .._docs import fill_doc
 from ..errors import InputError
 from ..spectra import band_bin_indices
 from .measures import (
     LAGGED_MEASURES,
+    CouplingResult,
     _quantile,
-    bootstrap_intervals,
+    band_coupling,
     bootstrap_weights,
-    conjugation_null,
-    coupling_from_statistics,
     pair_statistics_from_fourier,
 )
 from .sensor import MEASURE_UNITS, _boolean, leakage_arrays, msc_from_covariance
@@ -90,14 +90,13 @@ from .sensor import MEASURE_UNITS, _boolean, leakage_arrays, msc_from_covariance
 COUPLING_ATLASES = ("lobes", "yeo7", "networks")
 #: Edge measures, in table order.
 EDGE_MEASURES = ("msc", "imcoh", "lagcoh", "lps", "lag_ms", "aec_orth")
+#: The columns naming an edge's two ROIs.
+EDGE_ROI_COLUMNS = ("roi_a", "hemisphere_a", "roi_b", "hemisphere_b")
 #: Columns of :func:`coupling_table`, in order.
 EDGE_COLUMNS = (
     "atlas",
     "edge",
-    "roi_a",
-    "hemisphere_a",
-    "roi_b",
-    "hemisphere_b",
+    *EDGE_ROI_COLUMNS,
     "band",
     "measure",
     "value",
@@ -417,14 +416,17 @@ def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
     so = np.empty((n_ep, n, n))
     soo = np.empty((n_ep, n, n))
     soy = np.empty((n_ep, n, n))
-    ar, ai, ur, ui = a.real, a.imag, unit.real, unit.imag
+    # contiguous parts: the products below read them in order (same numbers, ~1.3x faster)
+    ar, ai, ur, ui = (np.ascontiguousarray(x) for x in (a.real, a.imag, unit.real, unit.imag))
     # all ordered pairs at once, a block of epochs at a time (the block's (e, i, j, M) array
     # stays below ~8 MB); per-epoch sums of at most a few hundred samples are exact enough in
     # the input precision, and epochs are pooled in float64
     step = max(1, 2_000_000 // max(1, n * n * m))
     for s in range(0, n_ep, step):
         e = slice(s, s + step)
-        o = np.abs(ai[e, :, None, :] * ur[e, None, :, :] - ar[e, :, None, :] * ui[e, None, :, :])
+        o = ai[e, :, None, :] * ur[e, None, :, :]
+        o -= ar[e, :, None, :] * ui[e, None, :, :]
+        np.abs(o, out=o)
         so[e] = o.sum(-1)
         soo[e] = np.einsum("eijm,eijm->eij", o, o)
         soy[e] = np.einsum("eijm,ejm->eij", o, mag[e])
@@ -520,33 +522,21 @@ def aec_block_se(mom: dict) -> np.ndarray:
 
 
 @dataclass(frozen=True, eq=False)
-class EdgeCoupling:
-    """Network/lobe coupling of one recording on one atlas.
+class EdgeCoupling(CouplingResult):
+    """Network/lobe coupling of one recording on one atlas (see :class:`CouplingResult`).
+
+    ``values`` holds :data:`EDGE_MEASURES`; ``values``, ``null``, ``leakage_msc`` and
+    ``intervals`` run over ``edges``.
 
     Attributes
     ----------
     filters : RoiFilters
-    band_names : tuple of str
     edges : ndarray of int, shape (n_edges, 2)
         ROI index pairs ``a < b``.
-    values : dict
-        :data:`EDGE_MEASURES` -> ndarray, shape (n_bands, n_edges).
-    null : dict
-        lagged measure or ``"aec_orth"`` -> (expected, q95), shape (n_bands, n_edges).
-    leakage_msc : ndarray, shape (n_edges,)
-    intervals : dict
-        measure -> (lo, hi), shape (n_bands, n_edges); empty without a bootstrap.
-    n_epochs : int
     """
 
     filters: RoiFilters
-    band_names: tuple[str, ...]
     edges: np.ndarray
-    values: dict
-    null: dict
-    leakage_msc: np.ndarray | None
-    intervals: dict
-    n_epochs: int
 
     def to_frame(self) -> pd.DataFrame:
         """The tidy edge table of this atlas (:func:`coupling_table`).
@@ -584,6 +574,7 @@ class EdgeCoupling:
         return out
 
 
+@fill_doc
 def edge_coupling(
     spec: np.ndarray,
     spec_plain: np.ndarray | None,
@@ -613,16 +604,7 @@ def edge_coupling(
     filters : RoiFilters
     null_cov : ndarray, shape (n_ch, n_ch), optional
         :func:`independent_source_covariance` for the coherence expected from leakage.
-    null_method : {"analytic", "monte-carlo"} or None
-        The lagged measures' conjugation null (None: none).
-    n_null : int
-        Monte-Carlo null replicates.
-    n_boot : int
-        Bootstrap replicates over epochs (0: no intervals).
-    seed : int
-        Seed of the null and the bootstrap.
-    ci : float
-        Coverage of the bootstrap intervals, e.g. 0.95.
+    %(coupling_uncertainty)s
     samples_per_epoch : int, optional
         Envelope samples per epoch (:func:`band_analytic`).
 
@@ -638,17 +620,8 @@ def edge_coupling(
     edges = np.column_stack([iu, ju])
     ps = pair_statistics_from_fourier(roi_fourier(spec, w), freqs, edges)
     spectral = tuple(m for m in EDGE_MEASURES if m != "aec_orth")
-    est = coupling_from_statistics(ps, band_idx, measures=spectral)
-    values = {m: est[m][0] for m in spectral}
-    null = {}
-    if null_method:
-        cn = conjugation_null(ps, band_idx, method=null_method, n_rep=n_null, seed=seed)
-        null = {m: cn[m] for m in ("imcoh", "lagcoh", "lps")}
-    intervals = {}
-    if n_boot:
-        intervals = bootstrap_intervals(
-            ps, band_idx, est, n_boot=n_boot, seed=seed, ci=ci, measures=spectral
-        )
+    unc = {"null_method": null_method, "n_null": n_null, "n_boot": n_boot, "seed": seed, "ci": ci}
+    values, null, intervals = band_coupling(ps, band_idx, measures=spectral, **unc)
     if spec_plain is not None:
         roi_plain = roi_fourier(spec_plain, w)
         aec = np.empty((len(band_idx), edges.shape[0]))
@@ -815,6 +788,7 @@ __all__ = [
     "EDGE_COLUMNS",
     "EDGE_COLUMN_NOTES",
     "EDGE_MEASURES",
+    "EDGE_ROI_COLUMNS",
     "EdgeCoupling",
     "LAGGED_MEASURES",
     "RoiFilters",
