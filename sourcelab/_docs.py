@@ -13,6 +13,41 @@ from __future__ import annotations
 #: Fragment name -> numpydoc text (first line unindented, the rest indented by four spaces).
 docdict: dict[str, str] = {}
 
+# ---------------------------------------------------------------------------------- outputs
+docdict["write_options"] = """\
+figures, report, exports : bool
+    Write the figures, the HTML/PDF report, the source-map exports (``maps/``).
+command : list of str or None
+    The command line recorded in ``provenance.json``; None: ``sys.argv``.
+progress : bool or None
+    Stage progress on standard error; None: only when it is a terminal."""
+
+# ---------------------------------------------------------------------------------- targets
+docdict["live_filter_window"] = """\
+sos : ndarray, shape (n_sections, 6)
+    Second-order sections of the live band-pass filter.
+sfreq : float
+    Sampling rate, Hz.
+window_s : float
+    Live window length, s."""
+
+# ---------------------------------------------------------------------------------- figures
+docdict["figure_output"] = """\
+dpi : int
+    Resolution of the figure and of ``output_file``, dots per inch.
+output_file : str | Path | None
+    If given, the figure is also saved there (format from the extension)."""
+
+#: The end of a figure function's Parameters section and its whole Returns section.
+docdict["figure_output_returns"] = (
+    docdict["figure_output"]
+    + """
+
+Returns
+-------
+fig : matplotlib.figure.Figure"""
+)
+
 # ---------------------------------------------------------------------------- ages and power
 docdict["age_years"] = """\
 age : float

@@ -55,7 +55,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .constants import FDR_ALPHA, Z_THRESHOLD
+from .constants import FDR_ALPHA, ROI_KEY, Z_THRESHOLD
 from .errors import InputError
 
 log = logging.getLogger("sourcelab")
@@ -65,14 +65,10 @@ RCI_THRESHOLD = Z_THRESHOLD
 #: Atlas whose test-retest reliability the analysis measures.
 RELIABILITY_ATLAS = "brodmann"
 #: Columns of the comparison table, in order.
+#: The two sessions' labels and the row key.
+SESSION_KEY = ("session_a", "session_b", *ROI_KEY)
 COMPARE_COLUMNS = (
-    "session_a",
-    "session_b",
-    "atlas",
-    "roi",
-    "hemisphere",
-    "band",
-    "measure",
+    *SESSION_KEY,
     "value_a",
     "value_b",
     "change",
@@ -556,13 +552,7 @@ def compare_html(
     cols = [
         c
         for c in (
-            "session_a",
-            "session_b",
-            "atlas",
-            "roi",
-            "hemisphere",
-            "band",
-            "measure",
+            *SESSION_KEY,
             "change_t",
             "change_t_lo",
             "change_t_hi",

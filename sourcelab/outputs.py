@@ -11,6 +11,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
+from ._docs import fill_doc
 from .cautions import CAUTIONS
 from .constants import FDR_ALPHA, Z_THRESHOLD
 from .provenance import atomic_output_dir
@@ -212,6 +213,7 @@ def write_tables(result, folder: Path, *, command=None) -> None:
         )
 
 
+@fill_doc
 def write_analysis(
     result,
     out: str | Path,
@@ -232,12 +234,7 @@ def write_analysis(
         The analysis.
     out : str or pathlib.Path
         Output folder; written in a temporary folder beside it and renamed into place.
-    figures, report, exports : bool
-        Write the figures, the HTML/PDF report, the source-map exports (``maps/``).
-    command : list of str or None
-        The command line recorded in ``provenance.json``; None: ``sys.argv``.
-    progress : bool or None
-        Stage progress on standard error; None: only when it is a terminal.
+    %(write_options)s
 
     Returns
     -------
@@ -258,6 +255,7 @@ def write_analysis(
     return out
 
 
+@fill_doc
 def write_analysis_into(
     result,
     folder: Path,
@@ -285,12 +283,7 @@ def write_analysis_into(
         The analysis.
     folder : pathlib.Path
         Existing (temporary) folder to write into.
-    figures, report, exports : bool
-        Write the figures, the HTML/PDF report, the source-map exports (``maps/``).
-    command : list of str or None
-        The command line recorded in ``provenance.json``; None: ``sys.argv``.
-    progress : bool or None
-        Stage progress on standard error; None: only when it is a terminal.
+    %(write_options)s
 
     Returns
     -------

@@ -34,6 +34,7 @@ from ..constants import Z_THRESHOLD
 from ..errors import InputError
 from ._shared import check_columns, heatmap_cells, save_if_asked
 from .colours import ColourScale, add_colourbar, power_scale, z_scale
+from .._docs import fill_doc
 
 _HEMI = {"left": "L", "right": "R", "both": ""}
 #: What z > 0 means for each measure (user-facing captions).
@@ -325,6 +326,7 @@ def _roi_order(t: pd.DataFrame) -> list[tuple[str, str]]:
     return sorted(rois, key=lambda r: (rank.get(r[1], 1), rois.index(r)))
 
 
+@fill_doc
 def coupling_matrix(
     coupling_table: pd.DataFrame,
     *,
@@ -356,10 +358,7 @@ def coupling_matrix(
     scale : ColourScale, optional
         With z: a symmetric z scale (default :func:`~sourcelab.figures.colours.z_scale`).
         Without z: default a value scale over all bands (symmetric for signed measures).
-    dpi : int
-        Resolution of the figure and of ``output_file``, dots per inch.
-    output_file : str | Path | None
-        If given, the figure is also saved there (format from the extension).
+    %(figure_output)s
 
     Returns
     -------

@@ -11,6 +11,7 @@ from ..errors import InputError
 from ..rois.names import area_name, brodmann_number, natural_key
 from ._shared import check_columns, heatmap_cells, save_if_asked
 from .colours import Z_THRESHOLD, ColourScale, add_colourbar, z_scale
+from .._docs import fill_doc
 
 _HEMI_ABBR = {"left": "L", "right": "R", "both": ""}
 _HEMI_ORDER = {"left": 0, "right": 1, "both": 2}
@@ -57,6 +58,7 @@ def _select(
     return t
 
 
+@fill_doc
 def roi_bars(
     roi_table: pd.DataFrame,
     *,
@@ -85,15 +87,8 @@ def roi_bars(
         z scale colouring the bars (default :func:`z_scale`); the x axis spans its limits
         (or further when a z exceeds them).
     guide : float
-        Dashed guides at ±guide (default 1.96, the two-sided 5 % normal point: common practice).
-    dpi : int
-        Resolution of the figure and of ``output_file``, dots per inch.
-    output_file : str | Path | None
-        If given, the figure is also saved there (format from the extension).
-
-    Returns
-    -------
-    fig : matplotlib.figure.Figure
+        Dashed guides at ±guide (default 1.96, the two-sided 5 %% normal point: common practice).
+    %(figure_output_returns)s
     """
     scale = scale or z_scale()
     t = _select(roi_table, atlas=atlas, measure=measure, band=band)
@@ -135,6 +130,7 @@ def roi_bars(
     return fig
 
 
+@fill_doc
 def roi_heatmap(
     roi_table: pd.DataFrame,
     *,
@@ -162,14 +158,7 @@ def roi_heatmap(
         z scale (default :func:`z_scale`, symmetric ±3); NaN cells are grey.
     max_columns : int
         Most ROIs drawn as columns; more turn the map (see above).
-    dpi : int
-        Resolution of the figure and of ``output_file``, dots per inch.
-    output_file : str | Path | None
-        If given, the figure is also saved there (format from the extension).
-
-    Returns
-    -------
-    fig : matplotlib.figure.Figure
+    %(figure_output_returns)s
     """
     scale = scale or z_scale()
     t, rois, bands = _labelled(roi_table, atlas=atlas, measure=measure, bands=bands)
@@ -234,6 +223,7 @@ def _heatmap_tall(
     return fig
 
 
+@fill_doc
 def network_chart(
     roi_table: pd.DataFrame,
     *,
@@ -258,14 +248,7 @@ def network_chart(
         z scale; marker colours follow it, the x axis spans its limits.
     guide : float
         Shaded region |z| < guide (default 1.96: common practice).
-    dpi : int
-        Resolution of the figure and of ``output_file``, dots per inch.
-    output_file : str | Path | None
-        If given, the figure is also saved there (format from the extension).
-
-    Returns
-    -------
-    fig : matplotlib.figure.Figure
+    %(figure_output_returns)s
     """
     scale = scale or z_scale()
     t, nets, bands = _labelled(roi_table, atlas=atlas, measure=measure, bands=bands)

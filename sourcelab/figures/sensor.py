@@ -12,6 +12,7 @@ from ..constants import SITES_1020
 from ..errors import InputError
 from ._shared import save_if_asked
 from .colours import add_colourbar, clipped
+from .._docs import fill_doc
 
 
 @functools.lru_cache(maxsize=4)
@@ -49,6 +50,7 @@ def sensor_info(ch_names: tuple[str, ...] = SITES_1020):
     return make_info(250.0)
 
 
+@fill_doc
 def sensor_topomaps(
     values: np.ndarray,
     *,
@@ -79,10 +81,7 @@ def sensor_topomaps(
         faster than "cubic" and invents no extrema between electrodes.
     names : bool
         Write the electrode names on the maps (default).
-    dpi : int
-        Resolution of the figure and of ``output_file``, dots per inch.
-    output_file : str | Path | None
-        If given, the figure is also saved there (format from the extension).
+    %(figure_output)s
 
     Returns
     -------

@@ -59,6 +59,7 @@ import math
 
 import numpy as np
 
+from .._docs import fill_doc
 from ..errors import InputError
 
 #: Smoothing kinds: name -> description of the time constant.
@@ -118,6 +119,7 @@ def _pair_sum(r: np.ndarray, n_win: int, shift: int) -> float:
     return float(np.sum(counts * vals**2))
 
 
+@fill_doc
 def live_window_dof(sos: np.ndarray, sfreq: float, window_s: float) -> float:
     """Degrees of freedom of the live mean-square estimate of one channel (white input).
 
@@ -125,12 +127,7 @@ def live_window_dof(sos: np.ndarray, sfreq: float, window_s: float) -> float:
 
     Parameters
     ----------
-    sos : ndarray, shape (n_sections, 6)
-        Second-order sections of the live band-pass filter.
-    sfreq : float
-        Sampling rate, Hz.
-    window_s : float
-        Live window length, s.
+    %(live_filter_window)s
 
     Returns
     -------
@@ -142,6 +139,7 @@ def live_window_dof(sos: np.ndarray, sfreq: float, window_s: float) -> float:
     return float((n * r[0]) ** 2 / _pair_sum(r, n, 0))
 
 
+@fill_doc
 def window_correlation(sos: np.ndarray, sfreq: float, window_s: float, lags_s) -> np.ndarray:
     """Correlation of the sampling errors of two live windows ``lag`` seconds apart.
 
@@ -149,12 +147,7 @@ def window_correlation(sos: np.ndarray, sfreq: float, window_s: float, lags_s) -
 
     Parameters
     ----------
-    sos : ndarray, shape (n_sections, 6)
-        Second-order sections of the live band-pass filter.
-    sfreq : float
-        Sampling rate, Hz.
-    window_s : float
-        Live window length, s.
+    %(live_filter_window)s
     lags_s : sequence of float
         Lags between window ends, s (rounded to whole samples).
 
