@@ -195,8 +195,10 @@ def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.nd
     Each epoch is mean-removed, Hann-windowed and Fourier transformed; the one-sided cross-spectral
     density is summed over the band's bins ``lo <= f < hi`` and multiplied by the bin width, so the
     diagonal is band power in the data's squared unit (µV² for µV input).  Averaging over epochs
-    gives Welch's estimate (non-overlapping segments, Hann window).  Computed as the band sums of
-    :func:`epoch_bin_cross_spectra` (in double precision, a chunk of epochs at a time).
+    gives Welch's estimate (non-overlapping segments, Hann window).  Equal to the band sums of
+    :func:`epoch_bin_cross_spectra` (to rounding), computed without the per-bin matrices: the
+    real part of a band's sum of ``X_a conj(X_b)`` is ``A Aᵀ`` with ``A = [Re X, Im X]`` over the
+    band's bins, one real matrix product per epoch and band (a chunk of epochs at a time).
 
     Parameters
     ----------
@@ -222,10 +224,13 @@ def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.nd
     _check_bands(n_t, sfreq, bands)
     out = np.empty((n_ep, len(bands), n_ch, n_ch))
     for s in range(0, n_ep, _EPOCH_CHUNK):
-        c, freqs = epoch_bin_cross_spectra(
-            epochs[s : s + _EPOCH_CHUNK], sfreq, bands, dtype=np.complex128
-        )
-        out[s : s + _EPOCH_CHUNK] = band_sums(c, freqs, bands)
+        spec, freqs = epoch_fourier(epochs[s : s + _EPOCH_CHUNK], sfreq, bands)
+        for b, idx in enumerate(band_bin_indices(freqs, bands)):
+            a = np.concatenate([spec[..., idx].real, spec[..., idx].imag], axis=-1)
+            m = a @ a.transpose(0, 2, 1)
+            # exactly symmetric, as the per-bin products were (a blocked product may round
+            # the two triangles differently)
+            out[s : s + _EPOCH_CHUNK, b] = 0.5 * (m + m.transpose(0, 2, 1))
     return out
 
 
