@@ -171,34 +171,16 @@ def epoch_bin_cross_spectra(
     return spec[..., :, None] * spec[..., None, :].conj(), freqs
 
 
-def band_sums(bin_csd: np.ndarray, freqs: np.ndarray, bands: Bands) -> np.ndarray:
-    """Real band cross-spectra from per-bin cross-spectra (sum over each band's bins).
-
-    Parameters
-    ----------
-    bin_csd : ndarray, shape (..., n_bins, n_ch, n_ch), complex
-    freqs : ndarray, shape (n_bins,)
-    bands : Bands
-
-    Returns
-    -------
-    ndarray, shape (..., n_bands, n_ch, n_ch), float64
-        Real parts summed over each band's bins: band power (µV² for µV data) on the diagonal.
-    """
-    idx = band_bin_indices(freqs, bands)
-    return np.stack([bin_csd[..., i, :, :].real.sum(axis=-3, dtype=float) for i in idx], axis=-3)
-
-
 def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.ndarray:
     """Per-epoch band cross-spectral matrices (real part), one Welch segment per epoch.
 
     Each epoch is mean-removed, Hann-windowed and Fourier transformed; the one-sided cross-spectral
     density is summed over the band's bins ``lo <= f < hi`` and multiplied by the bin width, so the
     diagonal is band power in the data's squared unit (µV² for µV input).  Averaging over epochs
-    gives Welch's estimate (non-overlapping segments, Hann window).  Equal to the band sums of
-    :func:`epoch_bin_cross_spectra` (to rounding), computed without the per-bin matrices: the
-    real part of a band's sum of ``X_a conj(X_b)`` is ``A Aᵀ`` with ``A = [Re X, Im X]`` over the
-    band's bins, one real matrix product per epoch and band (a chunk of epochs at a time).
+    gives Welch's estimate (non-overlapping segments, Hann window).  Equal to the real part of
+    :func:`epoch_bin_cross_spectra` summed over each band's bins (to rounding), computed without
+    the per-bin matrices: that sum of ``X_a conj(X_b)`` is ``A Aᵀ`` with ``A = [Re X, Im X]`` over
+    the band's bins, one real matrix product per epoch and band (a chunk of epochs at a time).
 
     Parameters
     ----------
@@ -226,7 +208,8 @@ def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.nd
     for s in range(0, n_ep, _EPOCH_CHUNK):
         spec, freqs = epoch_fourier(epochs[s : s + _EPOCH_CHUNK], sfreq, bands)
         for b, idx in enumerate(band_bin_indices(freqs, bands)):
-            a = np.concatenate([spec[..., idx].real, spec[..., idx].imag], axis=-1)
+            x = spec[..., idx]
+            a = np.concatenate([x.real, x.imag], axis=-1)
             m = a @ a.transpose(0, 2, 1)
             # exactly symmetric, as the per-bin products were (a blocked product may round
             # the two triangles differently)

@@ -682,14 +682,13 @@ def replay_coupling_recording(target: CouplingTarget, recording, out: str | Path
         "window_segments": target.window_segments,
         "segment_s": target.segment_s,
     }
-    inputs = [p for p in (rec.path, getattr(target, "path", None)) if p is not None]
     write_replay(
         out,
         res.to_frame(),
         plot_coupling_replay(res, target),
         summary,
-        kind="replay",
-        inputs=inputs,
+        recording=rec,
+        target=target,
     )
     return summary
 

@@ -197,25 +197,30 @@ def shade_unclean(axes, time_s, clean) -> None:
         )
 
 
-def write_replay(out, frame, fig, summary: dict, **folder) -> None:
+def write_replay(out, frame, fig, summary: dict, *, recording, target) -> None:
     """Write a replay's ``replay.tsv``, ``replay.png`` and ``replay.json`` into ``out``, atomically.
+
+    The folder is marked as a replay whose inputs are the recording's and the target's files.
 
     Parameters
     ----------
     out : str | Path
-        Output folder (new, or an earlier sourcelab output, replaced).
+        Output folder (new, or an earlier sourcelab replay, replaced).
     frame : DataFrame
         One row per replay step or segment.
     fig : matplotlib.figure.Figure
         The replay figure.
     summary : dict
         Written as JSON (NaN as null).
-    **folder
-        Passed to :func:`sourcelab.provenance.atomic_output_dir` (``kind``, ``inputs``).
+    recording : Recording
+        The replayed recording (its ``path`` may be None for one made in memory).
+    target : TargetDefinition | CouplingTarget
+        The replayed target (its ``path``, when read from a file, is an input).
     """
     from ..provenance import atomic_output_dir, dumps_json
 
-    with atomic_output_dir(Path(out), **folder) as tmp:
+    inputs = [p for p in (recording.path, getattr(target, "path", None)) if p is not None]
+    with atomic_output_dir(Path(out), kind="replay", inputs=inputs) as tmp:
         frame.to_csv(tmp / "replay.tsv", sep="\t", index=False, na_rep="", float_format="%.6g")
         fig.savefig(tmp / "replay.png", dpi=100)
         (tmp / "replay.json").write_text(dumps_json(summary, indent=2), encoding="utf-8")
@@ -628,8 +633,7 @@ def replay_recording(target: TargetDefinition, recording, out: str | Path) -> di
         "window_s": target.window_s,
         "step_s": target.step_s,
     }
-    inputs = [p for p in (rec.path, getattr(target, "path", None)) if p is not None]
     write_replay(
-        out, res.to_frame(), plot_replay(res, target), summary, kind="replay", inputs=inputs
+        out, res.to_frame(), plot_replay(res, target), summary, recording=rec, target=target
     )
     return summary

@@ -60,8 +60,8 @@ RATE_SPAN_S = 4.0
 #: liblsl's console output to warnings and errors).  The watchdog keys shorten the reconnection
 #: of an inlet whose outlet went away unnoticed: liblsl re-resolves the stream once no data has
 #: come for ``WatchdogTimeThreshold`` s, checked every ``WatchdogCheckInterval`` s (15 s and
-#: 15 s by default, from memory; with them a restarted amplifier came back after 16-30 s here,
-#: measured).
+#: 15 s by default, from memory; with the defaults a restarted amplifier came back after
+#: 16-30 s in 3 of 5 runs here, measured).
 LOOPBACK_CONFIG = """\
 ; sourcelab: keep Lab Streaming Layer on this machine (loopback only)
 [ports]
