@@ -22,7 +22,25 @@ command : list of str or None
 progress : bool or None
     Stage progress on standard error; None: only when it is a terminal."""
 
+# ------------------------------------------------------------------------------ file writers
+#: The Returns section of a writer that returns the file it wrote.
+docdict["returns_path"] = """\
+Returns
+-------
+Path
+    ``path``."""
+
 # ---------------------------------------------------------------------------------- targets
+#: The checks of a parsed target file (``target_from_dict``, ``coupling_target_from_dict``).
+docdict["target_check"] = """\
+path : str | Path
+    Named in error messages.
+current : Fingerprint, optional
+    The pipeline to compare with; default the shipped head model's sha256 and this
+    sourcelab's ``PIPELINE_VERSION``.
+check_fingerprint : bool
+    False skips the fingerprint comparison."""
+
 docdict["live_filter_window"] = """\
 sos : ndarray, shape (n_sections, 6)
     Second-order sections of the live band-pass filter.
@@ -61,6 +79,13 @@ docdict["age_parameters"] = _SECTION + docdict["age_years"]
 docdict["epochs_sfreq"] = """\
 epochs : ndarray, shape (n_epochs, n_channels, n_times)
     µV.
+sfreq : float
+    Sampling rate, Hz."""
+
+#: Epochs and rate of the cross-spectral core (:mod:`sourcelab.spectra`, any data unit).
+docdict["spectra_epochs_sfreq"] = """\
+epochs : ndarray, shape (n_epochs, n_ch, n_times)
+    Clean epochs, e.g. in µV (spectra come out in its square, e.g. µV²).
 sfreq : float
     Sampling rate, Hz."""
 
@@ -122,6 +147,14 @@ docdict["cli_run_args"] = (
 args : argparse.Namespace
     The parsed command line (see :func:`add_parser` for this sub-command's options)."""
 )
+
+#: The Returns section of a sub-command's ``run(args)``.
+docdict["cli_run_returns"] = """\
+Returns
+-------
+code : int
+    Exit code 0 on success.  Bad input raises :class:`sourcelab.errors.InputError`, which the
+    command line turns into one line and exit code 2."""
 
 # ---------------------------------------------------------------------- candidate selection
 docdict["max_n_include"] = """\

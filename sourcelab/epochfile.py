@@ -37,6 +37,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ._docs import fill_doc
 from .errors import InputError
 from .provenance import Fingerprint
 
@@ -128,6 +129,7 @@ def unpack_triu(packed: np.ndarray, n: int) -> np.ndarray:
     return out
 
 
+@fill_doc
 def write_epochs(
     path: str | Path,
     epoch_csd: np.ndarray,
@@ -159,10 +161,7 @@ def write_epochs(
     onsets_s : ndarray, shape (n_epochs,), optional
         Onset of each epoch, s; NaN (unknown) when omitted.
 
-    Returns
-    -------
-    Path
-        ``path``.
+    %(returns_path)s
 
     Raises
     ------

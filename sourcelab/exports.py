@@ -180,6 +180,7 @@ def column_sidecar(
     return out
 
 
+@fill_doc
 def write_table(
     table, path, sidecar: dict, *, na_rep: str = "", float_format: str | None = "%.6g"
 ) -> Path:
@@ -200,10 +201,7 @@ def write_table(
     float_format : str, optional
         ``printf``-style format of floats; ``None`` writes full precision.
 
-    Returns
-    -------
-    Path
-        ``path``.
+    %(returns_path)s
     """
     path = Path(path)
     file_table(table).to_csv(path, sep="\t", index=False, na_rep=na_rep, float_format=float_format)

@@ -43,6 +43,7 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 
 from . import PIPELINE_VERSION, __version__
+from ._docs import fill_doc
 from .checks import check_option
 from .errors import InputError
 
@@ -1460,6 +1461,7 @@ def atomic_write_text(path: str | Path, text: str) -> None:
     atomic_write_bytes(path, text.encode("utf-8"))
 
 
+@fill_doc
 def save_png(fig, path: str | Path, *, dpi: int = 100, **kwargs) -> Path:
     """Save a Matplotlib figure as a PNG file atomically, marked as written by sourcelab.
 
@@ -1473,10 +1475,7 @@ def save_png(fig, path: str | Path, *, dpi: int = 100, **kwargs) -> Path:
     **kwargs
         Passed to :meth:`matplotlib.figure.Figure.savefig`.
 
-    Returns
-    -------
-    Path
-        ``path``.
+    %(returns_path)s
     """
     import io
 

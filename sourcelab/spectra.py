@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ._docs import fill_doc
 from .config import BROADBAND_HZ, Bands
 from .errors import InputError
 
@@ -80,6 +81,7 @@ def band_bin_indices(freqs: np.ndarray, bands: Bands) -> list[np.ndarray]:
     return [np.flatnonzero((freqs >= lo) & (freqs < hi)) for lo, hi in bands.edges]
 
 
+@fill_doc
 def epoch_fourier(
     epochs: np.ndarray, sfreq: float, bands: Bands, *, taper: bool = True, dtype=np.complex128
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -94,9 +96,7 @@ def epoch_fourier(
 
     Parameters
     ----------
-    epochs : ndarray, shape (n_epochs, n_ch, n_times)
-    sfreq : float
-        Sampling rate, Hz.
+    %(spectra_epochs_sfreq)s
     bands : Bands
     taper : bool
         Hann window (True, for spectra) or none (False: the plain DFT, e.g. to band-pass epochs
@@ -129,6 +129,7 @@ def epoch_fourier(
     return out, freqs
 
 
+@fill_doc
 def epoch_bin_cross_spectra(
     epochs: np.ndarray, sfreq: float, bands: Bands, *, dtype=np.complex64
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -142,10 +143,7 @@ def epoch_bin_cross_spectra(
 
     Parameters
     ----------
-    epochs : ndarray, shape (n_epochs, n_ch, n_times)
-        Clean epochs, e.g. in µV.
-    sfreq : float
-        Sampling rate, Hz.
+    %(spectra_epochs_sfreq)s
     bands : Bands
         Only bins inside a band (``lo <= f < hi``) are kept, so memory grows with the top band
         edge, not the Nyquist frequency.
@@ -171,6 +169,7 @@ def epoch_bin_cross_spectra(
     return spec[..., :, None] * spec[..., None, :].conj(), freqs
 
 
+@fill_doc
 def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.ndarray:
     """Per-epoch band cross-spectral matrices (real part), one Welch segment per epoch.
 
@@ -184,10 +183,7 @@ def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.nd
 
     Parameters
     ----------
-    epochs : ndarray, shape (n_epochs, n_ch, n_times)
-        Clean epochs, e.g. in µV.
-    sfreq : float
-        Sampling rate, Hz.
+    %(spectra_epochs_sfreq)s
     bands : Bands
 
     Returns
@@ -257,6 +253,7 @@ def average_reference(csd: np.ndarray) -> np.ndarray:
     return p @ csd @ p
 
 
+@fill_doc
 def broadband_cross_spectra(
     epochs: np.ndarray, sfreq: float, *, total: tuple[float, float] = BROADBAND_HZ
 ) -> np.ndarray:
@@ -264,8 +261,7 @@ def broadband_cross_spectra(
 
     Parameters
     ----------
-    epochs : ndarray, shape (n_epochs, n_ch, n_times)
-    sfreq : float
+    %(spectra_epochs_sfreq)s
     total : (float, float)
         Range in Hz, ``[low, high)``; default :data:`sourcelab.config.BROADBAND_HZ` (1-45 Hz).
 

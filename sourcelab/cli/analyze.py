@@ -58,11 +58,7 @@ def run(args) -> int:
 
     %(cli_run_args)s
 
-    Returns
-    -------
-    code : int
-        Exit code 0. Bad input raises :class:`sourcelab.errors.InputError`, which the
-        command line turns into one line and exit code 2.
+    %(cli_run_returns)s
     """
     from ..analysis import analyze
 

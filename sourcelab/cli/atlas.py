@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from .._docs import fill_doc
 from ..errors import InputError
 from .options import add_out, subcommand
 
@@ -20,6 +21,7 @@ def _arguments(p) -> None:
     pl.set_defaults(func=run)
 
 
+@fill_doc
 def run(args) -> int:
     """List the shipped atlases, print one atlas's ROIs, or render one atlas to a PNG.
 
@@ -29,10 +31,7 @@ def run(args) -> int:
         Parsed ``atlas`` arguments: ``atlas_cmd`` (``"list"``, ``"show"`` or ``"plot"``),
         ``name`` (show, plot) and ``out`` (plot; must end in ``.png``).
 
-    Returns
-    -------
-    code : int
-        Exit code 0. Bad input raises :class:`sourcelab.errors.InputError` (exit code 2).
+    %(cli_run_returns)s
     """
     from ..rois import atlas_summary, available_atlases, load_atlas
 

@@ -52,14 +52,12 @@ def _arguments(p) -> None:
 def run(args) -> int:
     """Analyse every recording found in the inputs into one folder each (``sourcelab batch``).
 
+    Success (0) means every recording is done or already up to date; 1 is returned when at least
+    one failed (the others are written; see ``failures.tsv``).
+
     %(cli_run_args)s
 
-    Returns
-    -------
-    code : int
-        0 when every recording is done or already up to date, 1 when at least one failed (the
-        others are written; see ``failures.tsv``). Wrong input raises
-        :class:`sourcelab.errors.InputError` (exit code 2).
+    %(cli_run_returns)s
     """
     from ..batch import discover, make_engine, run_batch
     from ..errors import InputError

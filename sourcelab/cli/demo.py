@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from .._docs import fill_doc
 from .options import add_out, add_output_options, progress_flag, subcommand
 
 
@@ -17,6 +18,7 @@ def _arguments(p) -> None:
     )
 
 
+@fill_doc
 def run(args) -> int:
     """Analyse the invented demo participant against the invented demo norms, or rebuild them.
 
@@ -27,10 +29,7 @@ def run(args) -> int:
         ``rebuild_norms`` (write the invented demo norms to this TSV instead), the output
         options and ``quiet``.
 
-    Returns
-    -------
-    code : int
-        Exit code 0.
+    %(cli_run_returns)s
     """
     import dataclasses
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from .._docs import fill_doc
 from .options import subcommand
 
 
@@ -39,8 +40,11 @@ def _arguments(p) -> None:
     c.set_defaults(func=run)
 
 
+@fill_doc
 def run(args) -> int:
     """Build a norms TSV from reference recordings, or validate and summarise a norms file.
+
+    Recordings that fail during ``build`` are skipped and named on standard output.
 
     Parameters
     ----------
@@ -48,11 +52,7 @@ def run(args) -> int:
         Parsed ``norms`` arguments: ``norms_cmd`` (``"build"`` or ``"check"``) and that
         action's options (see :func:`add_parser`).
 
-    Returns
-    -------
-    code : int
-        Exit code 0; recordings that fail during ``build`` are skipped and named on standard
-        output. Bad input raises :class:`sourcelab.errors.InputError` (exit code 2).
+    %(cli_run_returns)s
     """
     from ..norms import check_norms
 

@@ -334,6 +334,7 @@ def source_norms_path(norms_tsv: str | Path) -> Path:
     return p.with_name(p.stem + "_sources.npz")
 
 
+@fill_doc
 def write_source_norms(norms: SourceNorms, path: str | Path) -> Path:
     """Write :class:`SourceNorms` as an open ``.npz`` (atomic; fixed zip timestamps).
 
@@ -346,10 +347,7 @@ def write_source_norms(norms: SourceNorms, path: str | Path) -> Path:
     path : str | Path
         Output file, usually :func:`source_norms_path` of the norms TSV.
 
-    Returns
-    -------
-    Path
-        ``path``.
+    %(returns_path)s
 
     Raises
     ------

@@ -46,6 +46,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._docs import fill_doc
 from ..cautions import CAUTIONS
 from ..config import AnalysisConfig
 from ..errors import InputError
@@ -214,6 +215,7 @@ class CouplingTarget(TargetFile):
         }
 
 
+@fill_doc
 def coupling_target_from_dict(
     d: dict, *, path="target", current: Fingerprint | None = None, check_fingerprint: bool = True
 ) -> CouplingTarget:
@@ -223,13 +225,7 @@ def coupling_target_from_dict(
     ----------
     d : dict
         Parsed JSON with ``"kind"`` ``"pair"`` or ``"edge"``.
-    path : str | Path
-        Named in error messages.
-    current : Fingerprint, optional
-        The pipeline to compare with; default the shipped head model's sha256 and this
-        sourcelab's ``PIPELINE_VERSION``.
-    check_fingerprint : bool
-        False skips the fingerprint comparison.
+    %(target_check)s
 
     Returns
     -------

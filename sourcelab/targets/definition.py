@@ -41,6 +41,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import PIPELINE_VERSION
+from .._docs import fill_doc
 from ..cautions import CAUTIONS
 from ..config import AnalysisConfig
 from ..constants import SITES_1020
@@ -395,6 +396,7 @@ class TargetDefinition(TargetFile):
         }
 
 
+@fill_doc
 def write_target(target, path: str | Path) -> Path:
     """Write ``target`` (area, pair or edge) as JSON (atomically).
 
@@ -405,10 +407,7 @@ def write_target(target, path: str | Path) -> Path:
     path : str | Path
         Output file, ending in ``.json``; replaced only when sourcelab wrote it.
 
-    Returns
-    -------
-    Path
-        ``path``.
+    %(returns_path)s
 
     Raises
     ------
@@ -443,6 +442,7 @@ def _current_fingerprint_check(fp: Fingerprint, current: Fingerprint | None, pat
         )
 
 
+@fill_doc
 def target_from_dict(
     d: dict, *, path="target", current: Fingerprint | None = None, check_fingerprint: bool = True
 ) -> TargetDefinition:
@@ -452,12 +452,7 @@ def target_from_dict(
     ----------
     d : dict
         Parsed JSON.
-    path : str | Path
-        Named in error messages.
-    current : Fingerprint, optional
-        The pipeline to compare with; default the shipped head model's sha256 and this
-        sourcelab's ``PIPELINE_VERSION``.
-    check_fingerprint : bool
+    %(target_check)s
 
     Returns
     -------

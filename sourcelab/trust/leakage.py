@@ -43,7 +43,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..constants import Z_THRESHOLD
+from ..constants import ROI_KEY, Z_THRESHOLD
 from ..errors import InputError
 from ..headmodel.model import fixed_gain
 from ..inverse import inverse_operator, roi_power_matrices
@@ -60,11 +60,7 @@ LEAKAGE_COLUMNS = (
 )
 #: Columns of :func:`leakage_hints`.
 HINT_COLUMNS = (
-    "atlas",
-    "roi",
-    "hemisphere",
-    "band",
-    "measure",
+    *ROI_KEY,
     "z",
     "rank",
     "leaker",
