@@ -35,6 +35,7 @@ def _plain(v):
 def measure(result) -> dict:
     """The issue-14 figures of one demo :class:`~sourcelab.AnalysisResult`."""
     from sourcelab import demo
+    from sourcelab.targets.peaks import PEAK_LIST_COLUMNS
 
     out: dict = {}
     for name, t in (("roi", result.roi_table), ("sensor", result.sensor_table)):
@@ -52,26 +53,7 @@ def measure(result) -> dict:
     if cands is None or not len(cands):
         out["planted_is_first"] = False
         return out
-    cols = [
-        c
-        for c in (
-            "rank",
-            "role",
-            "measure",
-            "band",
-            "direction",
-            "area",
-            "hemisphere",
-            "peak_z",
-            "x_mni152",
-            "y_mni152",
-            "z_mni152",
-            "border_mm",
-            "own_share",
-            "probability",
-        )
-        if c in cands
-    ]
+    cols = [c for c in PEAK_LIST_COLUMNS if c in cands]
     first = cands.iloc[0]
     out["peak_first"] = {c: _plain(first[c]) for c in cols}
     out["first_5"] = [

@@ -9,6 +9,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..coupling.source import EDGE_ROI_COLUMNS
 from ..errors import InputError
 from ..provenance import atomic_write_text
 from .labels import file_name, value_text
@@ -467,10 +468,7 @@ def top_coupling_rows(table, *, n: int = N_COUPLING_ROWS):
         c
         for c in (
             "pair",
-            "roi_a",
-            "hemisphere_a",
-            "roi_b",
-            "hemisphere_b",
+            *EDGE_ROI_COLUMNS,
             "band",
             "measure",
             "value",

@@ -207,10 +207,7 @@ class CouplingTarget(TargetFile):
                 "formula": FORMULAS[self.measure],
                 "formula_terms": FORMULA_NOTE,
             },
-            "norm": self.norm,
-            "offline": self.offline,
-            "direction": self.direction,
-            "fingerprint": self.fingerprint.to_dict(),
+            **self._norm_sections(),
             "cautions": list(CAUTIONS),
         }
 

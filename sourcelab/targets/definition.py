@@ -191,7 +191,8 @@ def direction_of(z: float | None) -> str:
 class TargetFile:
     """What every target kind (area, pair, edge) shares: band edges and the JSON text.
 
-    Subclasses are dataclasses with ``band``, ``bands`` and a ``to_dict()`` method.
+    Subclasses are dataclasses with ``band``, ``bands``, ``norm``, ``offline``, ``direction``,
+    ``fingerprint`` and a ``to_dict()`` method.
     """
 
     @property
@@ -208,6 +209,21 @@ class TargetFile:
             Indented JSON text of the target file.
         """
         return json.dumps(self.to_dict(), indent=1, ensure_ascii=False)
+
+    def _norm_sections(self) -> dict:
+        """The norm, offline, direction and fingerprint sections (after each kind's estimator).
+
+        Returns
+        -------
+        dict
+            ``norm``, ``offline``, ``direction`` and ``fingerprint`` (as a dict).
+        """
+        return {
+            "norm": self.norm,
+            "offline": self.offline,
+            "direction": self.direction,
+            "fingerprint": self.fingerprint.to_dict(),
+        }
 
 
 def checked_channels(d: dict, bad) -> tuple[str, ...]:
@@ -387,10 +403,7 @@ class TargetDefinition(TargetFile):
                 "reject_uv": self.reject_uv,
                 "relative": "per source: band power / sum over 'bands', then ROI mean",
             },
-            "norm": self.norm,
-            "offline": self.offline,
-            "direction": self.direction,
-            "fingerprint": self.fingerprint.to_dict(),
+            **self._norm_sections(),
             **({"live": self.live} if self.live is not None else {}),
             "cautions": list(CAUTIONS),
         }
