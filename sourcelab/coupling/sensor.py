@@ -54,24 +54,21 @@ from .measures import (
 )
 from .pairs import PairSets, pair_sets
 
+#: Columns of a pair or edge row that hold its estimate (:func:`pair_table`, ``coupling_table``).
+ESTIMATE_COLUMNS = ("band", "measure", "value", "unit", "value_lo", "value_hi")
+#: Columns of a pair or edge row that compare its value with leakage alone.
+LEAKAGE_COLUMNS = ("leakage_expected", "leakage_q95", "leakage_explained")
 #: Columns of :func:`pair_table`, in order.
 PAIR_COLUMNS = (
     "pair",
     "channel_a",
     "channel_b",
-    "band",
-    "measure",
-    "value",
-    "unit",
-    "value_lo",
-    "value_hi",
+    *ESTIMATE_COLUMNS,
     "homologous",
     "anterior_posterior",
     "intrahemispheric",
     "distance_mm",
-    "leakage_expected",
-    "leakage_q95",
-    "leakage_explained",
+    *LEAKAGE_COLUMNS,
     "n_epochs",
     "z",
 )

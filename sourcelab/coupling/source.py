@@ -84,7 +84,14 @@ from .measures import (
     bootstrap_weights,
     pair_statistics_from_fourier,
 )
-from .sensor import MEASURE_UNITS, _boolean, leakage_arrays, msc_from_covariance
+from .sensor import (
+    ESTIMATE_COLUMNS,
+    LEAKAGE_COLUMNS,
+    MEASURE_UNITS,
+    _boolean,
+    leakage_arrays,
+    msc_from_covariance,
+)
 
 #: Atlases coupled by default (partitions; ``networks`` per hemisphere, bilateral ROIs dropped).
 COUPLING_ATLASES = ("lobes", "yeo7", "networks")
@@ -97,15 +104,8 @@ EDGE_COLUMNS = (
     "atlas",
     "edge",
     *EDGE_ROI_COLUMNS,
-    "band",
-    "measure",
-    "value",
-    "unit",
-    "value_lo",
-    "value_hi",
-    "leakage_expected",
-    "leakage_q95",
-    "leakage_explained",
+    *ESTIMATE_COLUMNS,
+    *LEAKAGE_COLUMNS,
     "filter_share_a",
     "filter_share_b",
     "shared_sources",
