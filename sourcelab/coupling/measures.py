@@ -339,6 +339,36 @@ class PairStatistics:
             power = product(rows, self.power)
         return acc, power
 
+    def select_bins(self, bins) -> PairStatistics:
+        """The same statistics restricted to some frequency bins (e.g. one band's).
+
+        Every statistic and measure is per bin, so a band's values, null and intervals computed
+        from its own bins are those of the whole spectrum; the restricted statistics hold only
+        those bins, so the per-epoch statistics made from them are that much smaller.
+
+        Parameters
+        ----------
+        bins : int array or slice
+            Positions in the bin axis.
+
+        Returns
+        -------
+        PairStatistics
+            With ``n_bins`` = the selected bins (a new, empty cache of derived statistics).
+        """
+
+        def sel(x):
+            return np.ascontiguousarray(x[:, bins])
+
+        return PairStatistics(
+            stored=None if self.stored is None else {k: sel(v) for k, v in self.stored.items()},
+            power=sel(self.power),
+            ia=self.ia,
+            ib=self.ib,
+            freqs=np.asarray(self.freqs[bins]),
+            coef=None if self.coef is None else tuple(sel(c) for c in self.coef),
+        )
+
     def grams(self, names, band_idx) -> dict[str, list[np.ndarray]]:
         """``Σ_e x_e(f) x_e(f')`` of statistics over each band's bins, in one pass over epochs.
 
@@ -660,6 +690,7 @@ def coupling_from_statistics(
     def one(w=None, s=None):
         acc, pw = ps.accumulate(w, signs=s, names=stat_names)
         pb = bin_measures(acc, pw, ps.ia, ps.ib, ps.n_epochs, measures=bin_names)
+        del acc, pw  # free the sums before the band averages' temporaries
         return band_measures(pb, ps.freqs, band_idx, measures=measures)
 
     if rows is None:
@@ -1047,14 +1078,42 @@ def band_coupling(
     intervals : dict
         measure -> (lo, hi), each shape (n_bands, n_pairs); empty without a bootstrap.
     """
-    est = coupling_from_statistics(ps, band_idx, measures=measures)
-    null = {}
-    if null_method:
-        cn = conjugation_null(ps, band_idx, method=null_method, n_rep=n_null, seed=seed)
-        null = {m: v for m, v in cn.items() if m in measures}
-    intervals = {}
-    if n_boot:
-        intervals = bootstrap_intervals(
-            ps, band_idx, est, n_boot=n_boot, seed=seed, ci=ci, measures=measures
-        )
-    return {m: v[0] for m, v in est.items()}, null, intervals
+    # one band at a time: every measure is per bin, so a band needs only its own bins' statistics
+    # (the same numbers; the largest band's statistics, not all bins', are held at once)
+    parts = []
+    for idx in band_idx:
+        sub = ps.select_bins(_bin_selection(idx))
+        one = [np.arange(len(idx))]
+        est = coupling_from_statistics(sub, one, measures=measures)
+        null = {}
+        if null_method:
+            cn = conjugation_null(sub, one, method=null_method, n_rep=n_null, seed=seed)
+            null = {m: v for m, v in cn.items() if m in measures}
+        intervals = {}
+        if n_boot:
+            # as many replicates per pass as fit _BLOCK_BYTES per statistic (usually all)
+            chunk = max(1, _BLOCK_BYTES // (4 * len(idx) * max(1, ps.ia.size)))
+            intervals = bootstrap_intervals(
+                sub, one, est, n_boot=n_boot, seed=seed, ci=ci, measures=measures, chunk=chunk
+            )
+        parts.append(({m: v[0] for m, v in est.items()}, null, intervals))
+        del sub
+
+    def stack(k, pair=False):
+        keys = parts[0][k].keys()
+        if pair:
+            return {
+                m: tuple(np.concatenate([p[k][m][i] for p in parts]) for i in range(2))
+                for m in keys
+            }
+        return {m: np.concatenate([p[k][m] for p in parts]) for m in keys}
+
+    return stack(0), stack(1, pair=True), stack(2, pair=True)
+
+
+def _bin_selection(idx):
+    """A band's bins as a slice where they are contiguous (the usual case), else the indices."""
+    i = np.asarray(idx, dtype=np.int64)
+    if i.size and np.all(np.diff(i) == 1):
+        return slice(int(i[0]), int(i[-1]) + 1)
+    return i
