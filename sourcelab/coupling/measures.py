@@ -189,6 +189,7 @@ class PairStatistics:
     freqs: np.ndarray
     coef: tuple | None = None
     _kept: dict = field(default_factory=dict, repr=False)
+    _means: dict = field(default_factory=dict, repr=False)
 
     @property
     def n_epochs(self) -> int:
@@ -302,6 +303,16 @@ class PairStatistics:
         power : ndarray, shape (n_rep or 1, n_bins, n_nodes)
             Weighted mean node power ``|X|²`` (µV²/Hz per bin for sensor coefficients).
         """
+        if weights is None and signs is None:
+            # the plain means (estimate and analytic null alike): made once per statistic
+            todo = [n for n in names if n not in self._means]
+            if todo or "power" not in self._means:
+                acc, power = self._accumulate(None, None, todo)
+                self._means.update(acc, power=power)
+            return {n: self._means[n] for n in names}, self._means["power"]
+        return self._accumulate(weights, signs, names)
+
+    def _accumulate(self, weights, signs, names) -> tuple[dict, np.ndarray]:
         k = self.n_epochs
         rows = None
         if signs is not None:
@@ -881,57 +892,61 @@ def _quadratic_quantile(gram: np.ndarray, dvec: np.ndarray, level: float) -> tup
     return k1, np.where(k1 > 0, q, 0.0)
 
 
-def _analytic_null(ps: PairStatistics, band_idx, level: float) -> dict:
+def _analytic_null(ps: PairStatistics, band_idx, level: float, measures) -> dict:
     from scipy import stats
 
     k = float(ps.n_epochs)
-    acc, pw = ps.accumulate(names=STAT_NAMES)
+    want = set(measures)
+    names = sorted({s for m in want for s in _NEEDS[m]} | {"re", "u_re"}, key=STAT_NAMES.index)
+    acc, pw = ps.accumulate(names=names)
     a = {n: v[0] for n, v in acc.items()}  # (n_bins, P)
     pp = pw[0][:, ps.ia] * pw[0][:, ps.ib]
     z = stats.norm.ppf(0.5 + level / 2.0)
-    out = {m: ([], []) for m in LAGGED_MEASURES}
-    grams = ps.grams(("im", "u_im"), band_idx)
+    out = {m: ([], []) for m in LAGGED_MEASURES if m in want}
+    grams = ps.grams(("im", "u_im") if "lps" in want else ("im",), band_idx)
     for b, idx in enumerate(band_idx):
         nb = len(idx)
         gx = grams["im"][b] / k**2  # cov of A_im
-        gu = grams["u_im"][b] / k**2  # cov of U_im
+        gu = grams["u_im"][b] / k**2 if "u_im" in grams else None  # cov of U_im
         with np.errstate(invalid="ignore", divide="ignore"):
-            # imcoh: linear in A_im
-            c = (1.0 / np.sqrt(pp[idx])).T / nb  # (P, n_b)
-            var = np.einsum("pf,pfg,pg->p", c, gx, c)
-            out["imcoh"][0].append(np.zeros_like(var))
-            out["imcoh"][1].append(z * np.sqrt(var))
+            if "imcoh" in want:  # linear in A_im
+                c = (1.0 / np.sqrt(pp[idx])).T / nb  # (P, n_b)
+                var = np.einsum("pf,pfg,pg->p", c, gx, c)
+                out["imcoh"][0].append(np.zeros_like(var))
+                out["imcoh"][1].append(z * np.sqrt(var))
             # lagcoh and lps: quadratic forms
-            d = (1.0 / (pp[idx] - a["re"][idx] ** 2)).T / nb
-            mq = _quadratic_quantile(gx, d, level)
-            out["lagcoh"][0].append(mq[0])
-            out["lagcoh"][1].append(mq[1])
-            d = (1.0 / (1.0 - a["u_re"][idx] ** 2)).T / nb
-            mq = _quadratic_quantile(gu, d, level)
-            out["lps"][0].append(mq[0])
-            out["lps"][1].append(mq[1])
-            # debiased wPLI²: quadratic form minus its exact mean
-            den = (a["abs_im"][idx] ** 2 - a["sq_im"][idx] / k).T  # (P, n_b)
-            d = 1.0 / den / nb
-            mq = _quadratic_quantile(gx, d, level)
-            shift = np.sum(a["sq_im"][idx].T / k * d, axis=1)
-            out["wpli2_debiased"][0].append(mq[0] - shift)
-            out["wpli2_debiased"][1].append(mq[1] - shift)
-            # wPLI: mean of |Gaussian| / A_abs; gamma with the exact mean and variance
-            sig = np.sqrt(np.einsum("pff->pf", gx))
-            rho = np.clip(gx / (sig[:, :, None] * sig[:, None, :]), -1.0, 1.0)
-            cab = (
-                (2.0 / np.pi)
-                * sig[:, :, None]
-                * sig[:, None, :]
-                * (np.sqrt(1.0 - rho**2) + rho * np.arcsin(rho) - 1.0)
-            )
-            wgt = (1.0 / a["abs_im"][idx]).T / nb
-            mean = np.sqrt(2.0 / np.pi) * np.sum(wgt * sig, axis=1)
-            var = np.einsum("pf,pfg,pg->p", wgt, cab, wgt)
-            shape, scale = mean**2 / var, var / mean
-            out["wpli"][0].append(mean)
-            out["wpli"][1].append(stats.gamma.ppf(level, shape, scale=scale))
+            if "lagcoh" in want:
+                d = (1.0 / (pp[idx] - a["re"][idx] ** 2)).T / nb
+                mq = _quadratic_quantile(gx, d, level)
+                out["lagcoh"][0].append(mq[0])
+                out["lagcoh"][1].append(mq[1])
+            if "lps" in want:
+                d = (1.0 / (1.0 - a["u_re"][idx] ** 2)).T / nb
+                mq = _quadratic_quantile(gu, d, level)
+                out["lps"][0].append(mq[0])
+                out["lps"][1].append(mq[1])
+            if "wpli2_debiased" in want:  # quadratic form minus its exact mean
+                den = (a["abs_im"][idx] ** 2 - a["sq_im"][idx] / k).T  # (P, n_b)
+                d = 1.0 / den / nb
+                mq = _quadratic_quantile(gx, d, level)
+                shift = np.sum(a["sq_im"][idx].T / k * d, axis=1)
+                out["wpli2_debiased"][0].append(mq[0] - shift)
+                out["wpli2_debiased"][1].append(mq[1] - shift)
+            if "wpli" in want:  # mean of |Gaussian| / A_abs; gamma with exact mean and variance
+                sig = np.sqrt(np.einsum("pff->pf", gx))
+                rho = np.clip(gx / (sig[:, :, None] * sig[:, None, :]), -1.0, 1.0)
+                cab = (
+                    (2.0 / np.pi)
+                    * sig[:, :, None]
+                    * sig[:, None, :]
+                    * (np.sqrt(1.0 - rho**2) + rho * np.arcsin(rho) - 1.0)
+                )
+                wgt = (1.0 / a["abs_im"][idx]).T / nb
+                mean = np.sqrt(2.0 / np.pi) * np.sum(wgt * sig, axis=1)
+                var = np.einsum("pf,pfg,pg->p", wgt, cab, wgt)
+                shape, scale = mean**2 / var, var / mean
+                out["wpli"][0].append(mean)
+                out["wpli"][1].append(stats.gamma.ppf(level, shape, scale=scale))
     return {m: (np.stack(v[0]), np.stack(v[1])) for m, v in out.items()}
 
 
@@ -944,6 +959,7 @@ def conjugation_null(
     seed: int = 0,
     level: float = 0.95,
     chunk: int = 100,
+    measures=LAGGED_MEASURES,
 ) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """Null distribution of the lagged measures under instantaneous mixing only.
 
@@ -980,11 +996,13 @@ def conjugation_null(
         Quantile reported as the null threshold.
     chunk : int
         Monte-Carlo replicates per pass (memory only; see :func:`coupling_from_statistics`).
+    measures : sequence of str
+        The lagged measures wanted (others of the sequence are ignored).
 
     Returns
     -------
     dict
-        For each of :data:`LAGGED_MEASURES`: (mean, quantile), each ndarray, shape
+        For each wanted measure of :data:`LAGGED_MEASURES`: (mean, quantile), each ndarray, shape
         (n_bands, n_pairs).  For the signed ``imcoh`` the quantile is of ``|imcoh|``.
 
     References
@@ -999,16 +1017,15 @@ def conjugation_null(
     Pearson ES (1959).  Note on an approximation to the distribution of non-central χ².
     Biometrika 46:364 (three-moment chi-square approximation; from memory).
     """
+    lagged = tuple(m for m in LAGGED_MEASURES if m in measures)
     if method == "analytic":
-        return _analytic_null(ps, band_idx, level)
+        return _analytic_null(ps, band_idx, level, lagged)
     if method != "monte-carlo":
         raise InputError(f"method: {method!r} is not one of analytic, monte-carlo")
     signs = conjugation_signs(ps.n_epochs, n_rep=n_rep, seed=seed)
-    reps = coupling_from_statistics(
-        ps, band_idx, signs=signs, chunk=chunk, measures=LAGGED_MEASURES
-    )
+    reps = coupling_from_statistics(ps, band_idx, signs=signs, chunk=chunk, measures=lagged)
     out = {}
-    for m in LAGGED_MEASURES:
+    for m in lagged:
         r = reps[m]
         mag = np.abs(r) if m == "imcoh" else r
         out[m] = (np.mean(r, axis=0), _quantile(mag, level))
@@ -1087,8 +1104,9 @@ def band_coupling(
         est = coupling_from_statistics(sub, one, measures=measures)
         null = {}
         if null_method:
-            cn = conjugation_null(sub, one, method=null_method, n_rep=n_null, seed=seed)
-            null = {m: v for m, v in cn.items() if m in measures}
+            null = conjugation_null(
+                sub, one, method=null_method, n_rep=n_null, seed=seed, measures=measures
+            )
         intervals = {}
         if n_boot:
             # as many replicates per pass as fit _BLOCK_BYTES per statistic (usually all)
