@@ -90,6 +90,25 @@ docdict["band_measures_subset"] = """\
 measures : sequence of str
     Subset of :data:`sourcelab.coupling.measures.BAND_MEASURES`."""
 
+def one_blas_thread(fn):
+    """Run ``fn`` with BLAS on one thread (decorator).
+
+    The coupling step's matrix products are many and mid-sized (epochs x replicates x bins x
+    pairs, 300 epochs deep): a second BLAS thread barely shortens them, and on a busy machine its
+    spinning costs more CPU time than it saves (measured in ``benchmarks/bench_coupling.py``).
+    One thread gives the same numbers (each sum runs in the same order).
+    """
+
+    @functools.wraps(fn)
+    def limited(*args, **kwargs):
+        from threadpoolctl import threadpool_limits
+
+        with threadpool_limits(1, user_api="blas"):
+            return fn(*args, **kwargs)
+
+    return limited
+
+
 #: Per-epoch statistics kept by :class:`PairStatistics`.
 STAT_NAMES = ("re", "im", "abs_im", "sq_im", "u_re", "u_im")
 #: Per-bin measures of :func:`bin_measures`.

@@ -82,6 +82,7 @@ from .measures import (
     _quantile,
     band_coupling,
     bootstrap_weights,
+    one_blas_thread,
     pair_statistics_from_fourier,
 )
 from .sensor import MEASURE_UNITS, _boolean, leakage_arrays, msc_from_covariance
@@ -589,6 +590,7 @@ class EdgeCoupling(CouplingResult):
 
 
 @fill_doc
+@one_blas_thread
 def edge_coupling(
     spec: np.ndarray,
     spec_plain: np.ndarray | None,
