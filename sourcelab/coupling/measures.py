@@ -90,6 +90,7 @@ docdict["band_measures_subset"] = """\
 measures : sequence of str
     Subset of :data:`sourcelab.coupling.measures.BAND_MEASURES`."""
 
+
 def one_blas_thread(fn):
     """Run ``fn`` with BLAS on one thread (decorator).
 
@@ -253,11 +254,17 @@ class PairStatistics:
             ar, ai, br, bi = (
                 np.take(x[g], i, axis=-1) for x, i in ((xr, ia), (xi, ia), (xr, ib), (xi, ib))
             )
-            re[g] = ar * br + ai * bi  # Re(X_a conj(X_b))
-            im[g] = ai * br - ar * bi  # Im(X_a conj(X_b))
-            mag = np.sqrt(np.take(power[g], ia, axis=-1) * np.take(power[g], ib, axis=-1))
-            np.divide(1.0, mag, out=inv[g], where=mag > 0)  # 1/|S|, 0 where S = 0
-            inv[g][~(mag > 0)] = 0.0
+            # in place, into the outputs (the same operations as ar * br + ai * bi etc.)
+            tmp = np.multiply(ai, bi)
+            np.add(np.multiply(ar, br, out=re[g]), tmp, out=re[g])  # Re(X_a conj(X_b))
+            np.multiply(ar, bi, out=tmp)
+            np.subtract(np.multiply(ai, br, out=im[g]), tmp, out=im[g])  # Im(X_a conj(X_b))
+            mag = np.take(power[g], ia, axis=-1)
+            mag *= np.take(power[g], ib, axis=-1)
+            np.sqrt(mag, out=mag)
+            pos = mag > 0
+            inv[g] = 0.0
+            np.divide(1.0, mag, out=inv[g], where=pos)  # 1/|S|, 0 where S = 0
         base = {"re": re, "im": im, "inv": inv}
         if whole:
             self._kept.update(base)

@@ -210,14 +210,28 @@ def independent_source_covariance(gain: np.ndarray, *, noise: float = 0.0) -> np
     Returns
     -------
     ndarray, shape (n_ch, n_ch), real symmetric
-        ``C₀``, in the trace-normalised units above (not µV²); rank ``n_ch - 1``.
+        ``C₀``, in the trace-normalised units above (not µV²); rank ``n_ch - 1``.  For a
+        read-only gain (the head model's) it is computed once and returned read-only, like the
+        inverse operator: it is fixed per head model.
     """
+    key = (id(gain), float(noise))
+    hit = _C0_CACHE.get(key)
+    if hit is not None and hit[0]() is gain:
+        return hit[1]
     g = np.asarray(gain, dtype=float)
     n = g.shape[0]
     p = np.eye(n) - 1.0 / n
     pg = p @ g
     c = pg @ pg.T
-    return c * ((n - 1) / np.trace(c)) + float(noise) * p
+    c0 = c * ((n - 1) / np.trace(c)) + float(noise) * p
+    if isinstance(gain, np.ndarray) and not gain.flags.writeable:
+        c0.setflags(write=False)
+        _C0_CACHE[key] = (weakref.ref(gain), c0)
+    return c0
+
+
+#: Volume-conduction covariances of read-only leadfields: (id, noise) -> (weakref, C₀).
+_C0_CACHE: dict = {}
 
 
 #: Per-operator cache of ROI filters (operators are immutable; filters depend only on them).
