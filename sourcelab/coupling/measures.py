@@ -152,8 +152,9 @@ _DERIVED = {
     "u_re": (("re", "inv"), np.multiply),
     "u_im": (("im", "inv"), np.multiply),
 }
-#: Statistics up to this size (per statistic) are made for all epochs at once and kept (a
-#: 10-minute recording's 300 epochs x 88 bins x 171 pairs, 18 MB) ...
+#: Statistics up to this size (per statistic) are made for all epochs at once and kept
+#: (:func:`band_coupling` takes one band at a time: a 10-minute recording's widest band is 300
+#: epochs x 34 bins x 171 pairs, 7 MB; 88 bins of all bands would be 18 MB) ...
 _WHOLE_BYTES = 24 * 2**20
 #: ... larger ones (longer recordings) in epoch blocks of at most this size per statistic.
 _BLOCK_BYTES = 8 * 2**20
@@ -181,8 +182,9 @@ class PairStatistics:
     once: they are made for one block of epochs at a time (at most :data:`_BLOCK_BYTES` per
     statistic) whenever they are accumulated, and only ``Re S``, ``Im S`` and ``1/|S|`` are
     made per block (``|Im S|``, ``(Im S)²`` and the phase factor ``u = S/|S|`` are elementwise
-    functions of them).  A recording whose statistics fit :data:`_WHOLE_BYTES` (10 minutes) is
-    one block, made once and kept.  Every accumulation is a sum over epochs, so blocks add up
+    functions of them).  A recording whose statistics fit :data:`_WHOLE_BYTES` (one band of
+    up to ~30 minutes, :meth:`select_bins`) is one block, made once and kept.  Every
+    accumulation is a sum over epochs, so blocks add up
     (memory flat in recording length; float32 sums in another order, so the last digits of
     single precision differ from one block).
 
@@ -1099,6 +1101,11 @@ def band_coupling(
     ci: float = 0.95,
 ) -> tuple[dict, dict, dict]:
     """Band measures of all epochs with their conjugation null and bootstrap intervals.
+
+    One band at a time, from that band's bins only (:meth:`PairStatistics.select_bins`): the
+    same numbers as all bins at once, with the per-epoch statistics of the widest band, not of
+    all bins, held at once (this step is the peak memory of a tables-only analysis).  The
+    bootstrap takes as many replicates per pass as fit :data:`_BLOCK_BYTES` per statistic.
 
     The shared step of electrode pairs (:func:`sourcelab.coupling.sensor.sensor_coupling`) and
     ROI edges (:func:`sourcelab.coupling.source.edge_coupling`).
