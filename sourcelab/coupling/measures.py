@@ -429,7 +429,7 @@ class PairStatistics:
             for n in names:
                 x = self._stat(base, n)
                 for b, idx in enumerate(band_idx):
-                    g = _gram(x[:, idx])
+                    g = _gram(x[:, _bin_selection(idx)])  # a view where the bins are contiguous
                     out[n][b] = g if out[n][b] is None else out[n][b] + g
             del base
         return out
@@ -569,23 +569,30 @@ def bin_measures(
         if {"msc", "imcoh", "lagcoh"} & set(measures)
         else None
     )
+    squares: dict = {}
+
+    def sq2(name):  # each statistic's square made once (the same numbers as acc[name] ** 2)
+        if name not in squares:
+            squares[name] = acc[name] ** 2
+        return squares[name]
+
     with np.errstate(invalid="ignore", divide="ignore"):
         for m in measures:
             if m == "msc":
-                out[m] = (acc["re"] ** 2 + acc["im"] ** 2) / pp
+                out[m] = (sq2("re") + sq2("im")) / pp
             elif m == "imcoh":
                 out[m] = acc["im"] / np.sqrt(pp)
             elif m == "lagcoh":
-                out[m] = acc["im"] ** 2 / (pp - acc["re"] ** 2)
+                out[m] = sq2("im") / (pp - sq2("re"))
             elif m == "wpli":
                 out[m] = np.abs(acc["im"]) / acc["abs_im"]
             elif m == "wpli2_debiased":
                 sq = acc["sq_im"] / k
-                out[m] = (acc["im"] ** 2 - sq) / (acc["abs_im"] ** 2 - sq)
+                out[m] = (sq2("im") - sq) / (sq2("abs_im") - sq)
             elif m == "lps":
-                out[m] = acc["u_im"] ** 2 / (1.0 - acc["u_re"] ** 2)
+                out[m] = sq2("u_im") / (1.0 - sq2("u_re"))
             elif m == "plv":
-                out[m] = np.sqrt(acc["u_re"] ** 2 + acc["u_im"] ** 2)
+                out[m] = np.sqrt(sq2("u_re") + sq2("u_im"))
             elif m == "cross":
                 out[m] = acc["re"] + 1j * acc["im"]
             else:
