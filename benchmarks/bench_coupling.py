@@ -211,14 +211,23 @@ def main(argv=None) -> int:
 
     if not args.skip_mne:
         filters = [roi_filters(op, a, normals=model.src_nn) for a in atlases]
-        t_ms = []
+        t_ms, cpu_ms = [], []
         for _ in range(max(1, args.mne_reps)):
-            t = time.perf_counter()
+            t, tc = time.perf_counter(), time.process_time()
             _mne_route(clean, filters, cfg.bands)
             t_ms.append(time.perf_counter() - t)
-        t_m = med(t_ms)
-        print(f"mne-connectivity route (sensor pairs + ROI time series): {t_m:6.2f} s")
-        print(f"ratio mne / sourcelab coupling: {t_m / t_c:6.1f}x (goal >= 20x)")
+            cpu_ms.append(time.process_time() - tc)
+        t_m, cpu_m = med(t_ms), med(cpu_ms)
+        print(
+            f"mne-connectivity route (sensor pairs + ROI time series): {t_m:6.2f} s "
+            f"(cpu {cpu_m:.2f} s)"
+        )
+        # wall time is the goal's measure; on a machine loaded far above its cores a process
+        # waits for a core much of the time, so the CPU-time ratio is printed beside it
+        print(
+            f"ratio mne / sourcelab coupling: {t_m / t_c:6.1f}x wall, {cpu_m / cpu_c:.1f}x cpu "
+            f"(goal >= 20x)"
+        )
     print(f"load average at end {os.getloadavg()[0]:.1f}")
     return 0
 
