@@ -336,6 +336,8 @@ class PairStatistics:
             todo = [n for n in names if n not in self._means]
             if todo or "power" not in self._means:
                 acc, power = self._accumulate(None, None, todo)
+                for x in (*acc.values(), power):
+                    x.setflags(write=False)  # shared by every caller
                 self._means.update(acc, power=power)
             return {n: self._means[n] for n in names}, self._means["power"]
         return self._accumulate(weights, signs, names)
