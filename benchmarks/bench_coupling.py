@@ -1,6 +1,6 @@
 """Benchmark: every pair and network coupling measure of a 10-minute recording.
 
-Run: ``python benchmarks/bench_coupling.py [--minutes 10] [--skip-mne]``.
+Run: ``python benchmarks/bench_coupling.py [--minutes 10] [--reps 3] [--mne-reps 1] [--skip-mne]``.
 
 An invented 10-minute, 19-channel, 256 Hz recording (``run_all.invented_raw``: occipital alpha,
 frontal theta, central beta on pink background) is cleaned by ``sourcelab.intake`` into 2-s
@@ -9,31 +9,35 @@ epochs.  Measured in the same run:
 * ``analyze``: the analysis of the same recording with its default configuration (1,000
   bootstrap replicates of band power) with coupling off (``coupling=False``) and on (the
   default: both tables, 199 coupling replicates), and on without coupling intervals
-  (``coupling_n_boot=0``), warm caches, best of 3 each; the difference is what coupling adds to
-  an analysis (wall and CPU time);
+  (``coupling_n_boot=0``), warm caches, medians of ``--reps`` each, interleaved; the difference
+  is what coupling adds to an analysis (wall and CPU time);
 * ``coupling``: everything this package adds - tapered and untapered Fourier coefficients, the 171
   pairs x 5 bands x 9 measures + asymmetry with the analytic leakage null and the
   volume-conduction coherence (its covariance is fixed per head model and computed once, like
   the inverse operator), and the edges of lobes, yeo7 and networks (12/14/16 ROIs) x 5
   bands x 6 measures including the orthogonalised envelope correlation, with leakage
-  expectations; both tidy tables.  Also with 1,000 bootstrap replicates for intervals;
+  expectations; both tidy tables (median of ``--reps``).  Also with the default 199 (median)
+  and 1,000 (once) bootstrap replicates for intervals;
 * ``mne``: the same measures with mne-connectivity from source (ROI) time series - ROI time
   series ``W x`` of the clean epochs (the same filters), ``spectral_connectivity_epochs(mode=
   "fourier", method=["coh", "imcoh", "ciplv"], faverage=True)`` per band, and
   ``envelope_correlation(orthogonalize="pairwise")`` of the band-passed (``mne.filter``),
   Hilbert-transformed ROI signals; plus ``spectral_connectivity_epochs`` for the sensor pairs
   (coh, imcoh, wpli, wpli2_debiased, ciplv).  MNE has no lagged coherence, phase lag or leakage
-  null, so this route computes less than ours.
+  null, so this route computes less than ours (``--mne-reps`` runs, median; about 30x ours).
 * peak memory (tracemalloc, numpy allocations) of the coupling step and of the full per-bin
   cross-spectra ``epoch_bin_cross_spectra`` (complex64).
 
 Goals (issue 17): coupling <= 2 s beyond today's analysis; >= 20x faster than the MNE route;
-<= 1 GB peak.  Times on a shared 2-core machine vary with the load; ratios compare this run.
+<= 1 GB peak.  Times on a shared 2-core machine vary with the load (printed at start and end);
+ratios compare this run.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
+import statistics
 import sys
 import time
 import tracemalloc
@@ -105,8 +109,11 @@ def _mne_route(clean, filters, bands):
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__)
     p.add_argument("--minutes", type=float, default=10.0)
+    p.add_argument("--reps", type=int, default=3, help="repetitions per timing (median)")
+    p.add_argument("--mne-reps", type=int, default=1, help="runs of the mne-connectivity route")
     p.add_argument("--skip-mne", action="store_true")
     args = p.parse_args(argv)
+    print(f"load average at start {os.getloadavg()[0]:.1f}", flush=True)
 
     from benchmarks.run_all import invented_raw
     from sourcelab.config import AnalysisConfig
@@ -142,36 +149,47 @@ def main(argv=None) -> int:
     }
     wall = {k: [] for k in runs}
     cpu = {k: [] for k in runs}
-    for _ in range(3):
+    for _ in range(args.reps):
         for k, c in runs.items():
             t, tc = time.perf_counter(), time.process_time()
             analyze(rec, config=c)
             wall[k].append(time.perf_counter() - t)
             cpu[k].append(time.process_time() - tc)
+    med = statistics.median
     for k in runs:
-        print(f"analyze, coupling {k:26s} wall {min(wall[k]):5.2f} s, cpu {min(cpu[k]):5.2f} s")
-    added = min(wall["on"]) - min(wall["off"])
+        print(f"analyze, coupling {k:26s} wall {med(wall[k]):5.2f} s, cpu {med(cpu[k]):5.2f} s")
+    added = med(wall["on"]) - med(wall["off"])
     print(
         f"added by coupling (default, 199 replicates): wall {added:.2f} s, cpu "
-        f"{min(cpu['on']) - min(cpu['off']):.2f} s (goal <= 2 s); without intervals: "
-        f"wall {min(wall['on, no coupling intervals']) - min(wall['off']):.2f} s"
+        f"{med(cpu['on']) - med(cpu['off']):.2f} s (goal <= 2 s); without intervals: "
+        f"wall {med(wall['on, no coupling intervals']) - med(wall['off']):.2f} s, cpu "
+        f"{med(cpu['on, no coupling intervals']) - med(cpu['off']):.2f} s"
     )
-    t_an = min(wall["off"])
-    t = time.perf_counter()
-    pt, ct = _coupling(clean, model, op, atlases, cfg.bands, c0)
-    t_c = time.perf_counter() - t
-    t = time.perf_counter()
-    _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=cfg.coupling_n_boot)
-    t_cd = time.perf_counter() - t
+    t_an = med(wall["off"])
+
+    def timed(n_boot):
+        t, tc = time.perf_counter(), time.process_time()
+        out = _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=n_boot)
+        return out, time.perf_counter() - t, time.process_time() - tc
+
+    reps = [timed(0) for _ in range(args.reps)]
+    pt, ct = reps[0][0]
+    t_c, cpu_c = med(r[1] for r in reps), med(r[2] for r in reps)
+    reps = [timed(cfg.coupling_n_boot) for _ in range(args.reps)]
+    t_cd, cpu_cd = med(r[1] for r in reps), med(r[2] for r in reps)
+    del reps
     t = time.perf_counter()
     _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=1000)
     t_cb = time.perf_counter() - t
     print(f"analysis without coupling (default config):      {t_an:6.2f} s")
     print(
         f"coupling, all measures ({len(pt)} pair rows, {len(ct)} edge rows): {t_c:6.2f} s "
-        f"(goal <= 2 s)"
+        f"(cpu {cpu_c:.2f} s; goal <= 2 s)"
     )
-    print(f"coupling with {cfg.coupling_n_boot} bootstrap replicates (default):  {t_cd:6.2f} s")
+    print(
+        f"coupling with {cfg.coupling_n_boot} bootstrap replicates (default):  {t_cd:6.2f} s "
+        f"(cpu {cpu_cd:.2f} s)"
+    )
     print(f"coupling with 1000 bootstrap replicates:          {t_cb:6.2f} s")
 
     tracemalloc.start()
@@ -193,11 +211,24 @@ def main(argv=None) -> int:
 
     if not args.skip_mne:
         filters = [roi_filters(op, a, normals=model.src_nn) for a in atlases]
-        t = time.perf_counter()
-        _mne_route(clean, filters, cfg.bands)
-        t_m = time.perf_counter() - t
-        print(f"mne-connectivity route (sensor pairs + ROI time series): {t_m:6.2f} s")
-        print(f"ratio mne / sourcelab coupling: {t_m / t_c:6.1f}x (goal >= 20x)")
+        t_ms, cpu_ms = [], []
+        for _ in range(max(1, args.mne_reps)):
+            t, tc = time.perf_counter(), time.process_time()
+            _mne_route(clean, filters, cfg.bands)
+            t_ms.append(time.perf_counter() - t)
+            cpu_ms.append(time.process_time() - tc)
+        t_m, cpu_m = med(t_ms), med(cpu_ms)
+        print(
+            f"mne-connectivity route (sensor pairs + ROI time series): {t_m:6.2f} s "
+            f"(cpu {cpu_m:.2f} s)"
+        )
+        # wall time is the goal's measure; on a machine loaded far above its cores a process
+        # waits for a core much of the time, so the CPU-time ratio is printed beside it
+        print(
+            f"ratio mne / sourcelab coupling: {t_m / t_c:6.1f}x wall, {cpu_m / cpu_c:.1f}x cpu "
+            f"(goal >= 20x)"
+        )
+    print(f"load average at end {os.getloadavg()[0]:.1f}")
     return 0
 
 

@@ -311,6 +311,34 @@ def test_analytic_null_matches_monte_carlo(lagged_epochs, head_model):
         print(m, "analytic / Monte-Carlo q95:", ratio.min(), np.median(ratio), ratio.max())
 
 
+def test_one_band_at_a_time_and_null_subsets_change_nothing(lagged_epochs, head_model):
+    # Property, from the definitions (module docstring of sourcelab.coupling.measures): every
+    # measure is per bin and then averaged over the band, so a band computed from its own
+    # bins' statistics (what band_coupling does, to hold one band at a time) equals that band
+    # computed among all bins; and the conjugation null of a subset of the lagged measures is
+    # those measures of the full null.  Same float32 sums in the same order: equal to 1e-6.
+    bands = Bands(("theta", "alpha"), ((4.0, 8.0), (8.0, 12.0)))
+    x = lagged_epochs[:60] - lagged_epochs[:60].mean(axis=1, keepdims=True)
+    spec, freqs = epoch_fourier(x, FS, bands)
+    ps = pair_statistics_from_fourier(
+        spec, freqs, pair_sets(head_model.ch_names, head_model.ch_pos).all[:40]
+    )
+    idx = band_bin_indices(freqs, bands)
+    est = coupling_from_statistics(ps, idx)
+    null = conjugation_null(ps, idx)
+    for b, i in enumerate(idx):
+        sub = ps.select_bins(i)
+        one = [np.arange(len(i))]
+        sub_est = coupling_from_statistics(sub, one)
+        for m, v in est.items():
+            np.testing.assert_allclose(sub_est[m][:, 0], v[:, b], rtol=1e-6, err_msg=m)
+        part = conjugation_null(sub, one, measures=("lps", "imcoh", "msc"))
+        assert set(part) == {"imcoh", "lps"}
+        for m, (mean, q95) in part.items():
+            np.testing.assert_allclose(mean[0], null[m][0][b], rtol=1e-6, atol=1e-12)
+            np.testing.assert_allclose(q95[0], null[m][1][b], rtol=1e-6)
+
+
 def test_pair_table_layout(lagged_epochs, head_model):
     bands = Bands(("alpha",), ((8.0, 12.0),))
     spec, freqs = epoch_fourier(lagged_epochs[:40], FS, bands)

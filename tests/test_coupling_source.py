@@ -234,6 +234,19 @@ def test_leakage_coherence_model(op, lobes, head_model):
     assert leak[fl, pl] > leak[fl, orr]
 
 
+def test_volume_conduction_covariance_is_computed_once_per_head_model(head_model):
+    # The volume-conduction covariance depends only on the (read-only) template leadfield, so
+    # it is cached like the inverse operator: the same read-only array on a second call, equal
+    # to a fresh computation from a writable copy (which is not cached).
+    a = independent_source_covariance(head_model.gain_fixed)
+    assert independent_source_covariance(head_model.gain_fixed) is a
+    assert not a.flags.writeable
+    fresh = independent_source_covariance(np.array(head_model.gain_fixed))
+    assert fresh is not a and fresh.flags.writeable
+    np.testing.assert_array_equal(fresh, a)
+    assert independent_source_covariance(head_model.gain_fixed, noise=1 / 9) is not a
+
+
 def test_coupling_table_layout(two_source_epochs, op, head_model):
     from sourcelab.rois import load_atlas
 

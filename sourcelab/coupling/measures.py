@@ -90,6 +90,26 @@ docdict["band_measures_subset"] = """\
 measures : sequence of str
     Subset of :data:`sourcelab.coupling.measures.BAND_MEASURES`."""
 
+
+def one_blas_thread(fn):
+    """Run ``fn`` with BLAS on one thread (decorator).
+
+    The coupling step's matrix products are many and mid-sized (epochs x replicates x bins x
+    pairs, 300 epochs deep): a second BLAS thread barely shortens them, and on a busy machine its
+    spinning costs more CPU time than it saves (measured in ``benchmarks/bench_coupling.py``).
+    One thread gives the same numbers (each sum runs in the same order).
+    """
+
+    @functools.wraps(fn)
+    def limited(*args, **kwargs):
+        from threadpoolctl import threadpool_limits
+
+        with threadpool_limits(1, user_api="blas"):
+            return fn(*args, **kwargs)
+
+    return limited
+
+
 #: Per-epoch statistics kept by :class:`PairStatistics`.
 STAT_NAMES = ("re", "im", "abs_im", "sq_im", "u_re", "u_im")
 #: Per-bin measures of :func:`bin_measures`.
@@ -132,8 +152,9 @@ _DERIVED = {
     "u_re": (("re", "inv"), np.multiply),
     "u_im": (("im", "inv"), np.multiply),
 }
-#: Statistics up to this size (per statistic) are made for all epochs at once and kept (a
-#: 10-minute recording's 300 epochs x 88 bins x 171 pairs, 18 MB) ...
+#: Statistics up to this size (per statistic) are made for all epochs at once and kept
+#: (:func:`band_coupling` takes one band at a time: a 10-minute recording's widest band is 300
+#: epochs x 34 bins x 171 pairs, 7 MB; 88 bins of all bands would be 18 MB) ...
 _WHOLE_BYTES = 24 * 2**20
 #: ... larger ones (longer recordings) in epoch blocks of at most this size per statistic.
 _BLOCK_BYTES = 8 * 2**20
@@ -161,8 +182,9 @@ class PairStatistics:
     once: they are made for one block of epochs at a time (at most :data:`_BLOCK_BYTES` per
     statistic) whenever they are accumulated, and only ``Re S``, ``Im S`` and ``1/|S|`` are
     made per block (``|Im S|``, ``(Im S)²`` and the phase factor ``u = S/|S|`` are elementwise
-    functions of them).  A recording whose statistics fit :data:`_WHOLE_BYTES` (10 minutes) is
-    one block, made once and kept.  Every accumulation is a sum over epochs, so blocks add up
+    functions of them).  A recording whose statistics fit :data:`_WHOLE_BYTES` (one band of
+    up to ~30 minutes, :meth:`select_bins`) is one block, made once and kept.  Every
+    accumulation is a sum over epochs, so blocks add up
     (memory flat in recording length; float32 sums in another order, so the last digits of
     single precision differ from one block).
 
@@ -189,6 +211,7 @@ class PairStatistics:
     freqs: np.ndarray
     coef: tuple | None = None
     _kept: dict = field(default_factory=dict, repr=False)
+    _means: dict = field(default_factory=dict, repr=False)
 
     @property
     def n_epochs(self) -> int:
@@ -233,11 +256,17 @@ class PairStatistics:
             ar, ai, br, bi = (
                 np.take(x[g], i, axis=-1) for x, i in ((xr, ia), (xi, ia), (xr, ib), (xi, ib))
             )
-            re[g] = ar * br + ai * bi  # Re(X_a conj(X_b))
-            im[g] = ai * br - ar * bi  # Im(X_a conj(X_b))
-            mag = np.sqrt(np.take(power[g], ia, axis=-1) * np.take(power[g], ib, axis=-1))
-            np.divide(1.0, mag, out=inv[g], where=mag > 0)  # 1/|S|, 0 where S = 0
-            inv[g][~(mag > 0)] = 0.0
+            # in place, into the outputs (the same operations as ar * br + ai * bi etc.)
+            tmp = np.multiply(ai, bi)
+            np.add(np.multiply(ar, br, out=re[g]), tmp, out=re[g])  # Re(X_a conj(X_b))
+            np.multiply(ar, bi, out=tmp)
+            np.subtract(np.multiply(ai, br, out=im[g]), tmp, out=im[g])  # Im(X_a conj(X_b))
+            mag = np.take(power[g], ia, axis=-1)
+            mag *= np.take(power[g], ib, axis=-1)
+            np.sqrt(mag, out=mag)
+            pos = mag > 0
+            inv[g] = 0.0
+            np.divide(1.0, mag, out=inv[g], where=pos)  # 1/|S|, 0 where S = 0
         base = {"re": re, "im": im, "inv": inv}
         if whole:
             self._kept.update(base)
@@ -302,6 +331,18 @@ class PairStatistics:
         power : ndarray, shape (n_rep or 1, n_bins, n_nodes)
             Weighted mean node power ``|X|²`` (µV²/Hz per bin for sensor coefficients).
         """
+        if weights is None and signs is None:
+            # the plain means (estimate and analytic null alike): made once per statistic
+            todo = [n for n in names if n not in self._means]
+            if todo or "power" not in self._means:
+                acc, power = self._accumulate(None, None, todo)
+                for x in (*acc.values(), power):
+                    x.setflags(write=False)  # shared by every caller
+                self._means.update(acc, power=power)
+            return {n: self._means[n] for n in names}, self._means["power"]
+        return self._accumulate(weights, signs, names)
+
+    def _accumulate(self, weights, signs, names) -> tuple[dict, np.ndarray]:
         k = self.n_epochs
         rows = None
         if signs is not None:
@@ -339,6 +380,36 @@ class PairStatistics:
             power = product(rows, self.power)
         return acc, power
 
+    def select_bins(self, bins) -> PairStatistics:
+        """The same statistics restricted to some frequency bins (e.g. one band's).
+
+        Every statistic and measure is per bin, so a band's values, null and intervals computed
+        from its own bins are those of the whole spectrum; the restricted statistics hold only
+        those bins, so the per-epoch statistics made from them are that much smaller.
+
+        Parameters
+        ----------
+        bins : int array or slice
+            Positions in the bin axis.
+
+        Returns
+        -------
+        PairStatistics
+            With ``n_bins`` = the selected bins (a new, empty cache of derived statistics).
+        """
+
+        def sel(x):
+            return np.ascontiguousarray(x[:, bins])
+
+        return PairStatistics(
+            stored=None if self.stored is None else {k: sel(v) for k, v in self.stored.items()},
+            power=sel(self.power),
+            ia=self.ia,
+            ib=self.ib,
+            freqs=np.asarray(self.freqs[bins]),
+            coef=None if self.coef is None else tuple(sel(c) for c in self.coef),
+        )
+
     def grams(self, names, band_idx) -> dict[str, list[np.ndarray]]:
         """``Σ_e x_e(f) x_e(f')`` of statistics over each band's bins, in one pass over epochs.
 
@@ -360,7 +431,7 @@ class PairStatistics:
             for n in names:
                 x = self._stat(base, n)
                 for b, idx in enumerate(band_idx):
-                    g = _gram(x[:, idx])
+                    g = _gram(x[:, _bin_selection(idx)])  # a view where the bins are contiguous
                     out[n][b] = g if out[n][b] is None else out[n][b] + g
             del base
         return out
@@ -500,23 +571,30 @@ def bin_measures(
         if {"msc", "imcoh", "lagcoh"} & set(measures)
         else None
     )
+    squares: dict = {}
+
+    def sq2(name):  # each statistic's square made once (the same numbers as acc[name] ** 2)
+        if name not in squares:
+            squares[name] = acc[name] ** 2
+        return squares[name]
+
     with np.errstate(invalid="ignore", divide="ignore"):
         for m in measures:
             if m == "msc":
-                out[m] = (acc["re"] ** 2 + acc["im"] ** 2) / pp
+                out[m] = (sq2("re") + sq2("im")) / pp
             elif m == "imcoh":
                 out[m] = acc["im"] / np.sqrt(pp)
             elif m == "lagcoh":
-                out[m] = acc["im"] ** 2 / (pp - acc["re"] ** 2)
+                out[m] = sq2("im") / (pp - sq2("re"))
             elif m == "wpli":
                 out[m] = np.abs(acc["im"]) / acc["abs_im"]
             elif m == "wpli2_debiased":
                 sq = acc["sq_im"] / k
-                out[m] = (acc["im"] ** 2 - sq) / (acc["abs_im"] ** 2 - sq)
+                out[m] = (sq2("im") - sq) / (sq2("abs_im") - sq)
             elif m == "lps":
-                out[m] = acc["u_im"] ** 2 / (1.0 - acc["u_re"] ** 2)
+                out[m] = sq2("u_im") / (1.0 - sq2("u_re"))
             elif m == "plv":
-                out[m] = np.sqrt(acc["u_re"] ** 2 + acc["u_im"] ** 2)
+                out[m] = np.sqrt(sq2("u_re") + sq2("u_im"))
             elif m == "cross":
                 out[m] = acc["re"] + 1j * acc["im"]
             else:
@@ -660,6 +738,7 @@ def coupling_from_statistics(
     def one(w=None, s=None):
         acc, pw = ps.accumulate(w, signs=s, names=stat_names)
         pb = bin_measures(acc, pw, ps.ia, ps.ib, ps.n_epochs, measures=bin_names)
+        del acc, pw  # free the sums before the band averages' temporaries
         return band_measures(pb, ps.freqs, band_idx, measures=measures)
 
     if rows is None:
@@ -850,57 +929,61 @@ def _quadratic_quantile(gram: np.ndarray, dvec: np.ndarray, level: float) -> tup
     return k1, np.where(k1 > 0, q, 0.0)
 
 
-def _analytic_null(ps: PairStatistics, band_idx, level: float) -> dict:
+def _analytic_null(ps: PairStatistics, band_idx, level: float, measures) -> dict:
     from scipy import stats
 
     k = float(ps.n_epochs)
-    acc, pw = ps.accumulate(names=STAT_NAMES)
+    want = set(measures)
+    names = sorted({s for m in want for s in _NEEDS[m]} | {"re", "u_re"}, key=STAT_NAMES.index)
+    acc, pw = ps.accumulate(names=names)
     a = {n: v[0] for n, v in acc.items()}  # (n_bins, P)
     pp = pw[0][:, ps.ia] * pw[0][:, ps.ib]
     z = stats.norm.ppf(0.5 + level / 2.0)
-    out = {m: ([], []) for m in LAGGED_MEASURES}
-    grams = ps.grams(("im", "u_im"), band_idx)
+    out = {m: ([], []) for m in LAGGED_MEASURES if m in want}
+    grams = ps.grams(("im", "u_im") if "lps" in want else ("im",), band_idx)
     for b, idx in enumerate(band_idx):
         nb = len(idx)
         gx = grams["im"][b] / k**2  # cov of A_im
-        gu = grams["u_im"][b] / k**2  # cov of U_im
+        gu = grams["u_im"][b] / k**2 if "u_im" in grams else None  # cov of U_im
         with np.errstate(invalid="ignore", divide="ignore"):
-            # imcoh: linear in A_im
-            c = (1.0 / np.sqrt(pp[idx])).T / nb  # (P, n_b)
-            var = np.einsum("pf,pfg,pg->p", c, gx, c)
-            out["imcoh"][0].append(np.zeros_like(var))
-            out["imcoh"][1].append(z * np.sqrt(var))
+            if "imcoh" in want:  # linear in A_im
+                c = (1.0 / np.sqrt(pp[idx])).T / nb  # (P, n_b)
+                var = np.einsum("pf,pfg,pg->p", c, gx, c)
+                out["imcoh"][0].append(np.zeros_like(var))
+                out["imcoh"][1].append(z * np.sqrt(var))
             # lagcoh and lps: quadratic forms
-            d = (1.0 / (pp[idx] - a["re"][idx] ** 2)).T / nb
-            mq = _quadratic_quantile(gx, d, level)
-            out["lagcoh"][0].append(mq[0])
-            out["lagcoh"][1].append(mq[1])
-            d = (1.0 / (1.0 - a["u_re"][idx] ** 2)).T / nb
-            mq = _quadratic_quantile(gu, d, level)
-            out["lps"][0].append(mq[0])
-            out["lps"][1].append(mq[1])
-            # debiased wPLI²: quadratic form minus its exact mean
-            den = (a["abs_im"][idx] ** 2 - a["sq_im"][idx] / k).T  # (P, n_b)
-            d = 1.0 / den / nb
-            mq = _quadratic_quantile(gx, d, level)
-            shift = np.sum(a["sq_im"][idx].T / k * d, axis=1)
-            out["wpli2_debiased"][0].append(mq[0] - shift)
-            out["wpli2_debiased"][1].append(mq[1] - shift)
-            # wPLI: mean of |Gaussian| / A_abs; gamma with the exact mean and variance
-            sig = np.sqrt(np.einsum("pff->pf", gx))
-            rho = np.clip(gx / (sig[:, :, None] * sig[:, None, :]), -1.0, 1.0)
-            cab = (
-                (2.0 / np.pi)
-                * sig[:, :, None]
-                * sig[:, None, :]
-                * (np.sqrt(1.0 - rho**2) + rho * np.arcsin(rho) - 1.0)
-            )
-            wgt = (1.0 / a["abs_im"][idx]).T / nb
-            mean = np.sqrt(2.0 / np.pi) * np.sum(wgt * sig, axis=1)
-            var = np.einsum("pf,pfg,pg->p", wgt, cab, wgt)
-            shape, scale = mean**2 / var, var / mean
-            out["wpli"][0].append(mean)
-            out["wpli"][1].append(stats.gamma.ppf(level, shape, scale=scale))
+            if "lagcoh" in want:
+                d = (1.0 / (pp[idx] - a["re"][idx] ** 2)).T / nb
+                mq = _quadratic_quantile(gx, d, level)
+                out["lagcoh"][0].append(mq[0])
+                out["lagcoh"][1].append(mq[1])
+            if "lps" in want:
+                d = (1.0 / (1.0 - a["u_re"][idx] ** 2)).T / nb
+                mq = _quadratic_quantile(gu, d, level)
+                out["lps"][0].append(mq[0])
+                out["lps"][1].append(mq[1])
+            if "wpli2_debiased" in want:  # quadratic form minus its exact mean
+                den = (a["abs_im"][idx] ** 2 - a["sq_im"][idx] / k).T  # (P, n_b)
+                d = 1.0 / den / nb
+                mq = _quadratic_quantile(gx, d, level)
+                shift = np.sum(a["sq_im"][idx].T / k * d, axis=1)
+                out["wpli2_debiased"][0].append(mq[0] - shift)
+                out["wpli2_debiased"][1].append(mq[1] - shift)
+            if "wpli" in want:  # mean of |Gaussian| / A_abs; gamma with exact mean and variance
+                sig = np.sqrt(np.einsum("pff->pf", gx))
+                rho = np.clip(gx / (sig[:, :, None] * sig[:, None, :]), -1.0, 1.0)
+                cab = (
+                    (2.0 / np.pi)
+                    * sig[:, :, None]
+                    * sig[:, None, :]
+                    * (np.sqrt(1.0 - rho**2) + rho * np.arcsin(rho) - 1.0)
+                )
+                wgt = (1.0 / a["abs_im"][idx]).T / nb
+                mean = np.sqrt(2.0 / np.pi) * np.sum(wgt * sig, axis=1)
+                var = np.einsum("pf,pfg,pg->p", wgt, cab, wgt)
+                shape, scale = mean**2 / var, var / mean
+                out["wpli"][0].append(mean)
+                out["wpli"][1].append(stats.gamma.ppf(level, shape, scale=scale))
     return {m: (np.stack(v[0]), np.stack(v[1])) for m, v in out.items()}
 
 
@@ -913,6 +996,7 @@ def conjugation_null(
     seed: int = 0,
     level: float = 0.95,
     chunk: int = 100,
+    measures=LAGGED_MEASURES,
 ) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """Null distribution of the lagged measures under instantaneous mixing only.
 
@@ -949,11 +1033,13 @@ def conjugation_null(
         Quantile reported as the null threshold.
     chunk : int
         Monte-Carlo replicates per pass (memory only; see :func:`coupling_from_statistics`).
+    measures : sequence of str
+        The lagged measures wanted (others of the sequence are ignored).
 
     Returns
     -------
     dict
-        For each of :data:`LAGGED_MEASURES`: (mean, quantile), each ndarray, shape
+        For each wanted measure of :data:`LAGGED_MEASURES`: (mean, quantile), each ndarray, shape
         (n_bands, n_pairs).  For the signed ``imcoh`` the quantile is of ``|imcoh|``.
 
     References
@@ -968,16 +1054,15 @@ def conjugation_null(
     Pearson ES (1959).  Note on an approximation to the distribution of non-central χ².
     Biometrika 46:364 (three-moment chi-square approximation; from memory).
     """
+    lagged = tuple(m for m in LAGGED_MEASURES if m in measures)
     if method == "analytic":
-        return _analytic_null(ps, band_idx, level)
+        return _analytic_null(ps, band_idx, level, lagged)
     if method != "monte-carlo":
         raise InputError(f"method: {method!r} is not one of analytic, monte-carlo")
     signs = conjugation_signs(ps.n_epochs, n_rep=n_rep, seed=seed)
-    reps = coupling_from_statistics(
-        ps, band_idx, signs=signs, chunk=chunk, measures=LAGGED_MEASURES
-    )
+    reps = coupling_from_statistics(ps, band_idx, signs=signs, chunk=chunk, measures=lagged)
     out = {}
-    for m in LAGGED_MEASURES:
+    for m in lagged:
         r = reps[m]
         mag = np.abs(r) if m == "imcoh" else r
         out[m] = (np.mean(r, axis=0), _quantile(mag, level))
@@ -1026,6 +1111,11 @@ def band_coupling(
 ) -> tuple[dict, dict, dict]:
     """Band measures of all epochs with their conjugation null and bootstrap intervals.
 
+    One band at a time, from that band's bins only (:meth:`PairStatistics.select_bins`): the
+    same numbers as all bins at once, with the per-epoch statistics of the widest band, not of
+    all bins, held at once (this step is the peak memory of a tables-only analysis).  The
+    bootstrap takes as many replicates per pass as fit :data:`_BLOCK_BYTES` per statistic.
+
     The shared step of electrode pairs (:func:`sourcelab.coupling.sensor.sensor_coupling`) and
     ROI edges (:func:`sourcelab.coupling.source.edge_coupling`).
 
@@ -1047,14 +1137,43 @@ def band_coupling(
     intervals : dict
         measure -> (lo, hi), each shape (n_bands, n_pairs); empty without a bootstrap.
     """
-    est = coupling_from_statistics(ps, band_idx, measures=measures)
-    null = {}
-    if null_method:
-        cn = conjugation_null(ps, band_idx, method=null_method, n_rep=n_null, seed=seed)
-        null = {m: v for m, v in cn.items() if m in measures}
-    intervals = {}
-    if n_boot:
-        intervals = bootstrap_intervals(
-            ps, band_idx, est, n_boot=n_boot, seed=seed, ci=ci, measures=measures
-        )
-    return {m: v[0] for m, v in est.items()}, null, intervals
+    # one band at a time: every measure is per bin, so a band needs only its own bins' statistics
+    # (the same numbers; the largest band's statistics, not all bins', are held at once)
+    parts = []
+    for idx in band_idx:
+        sub = ps.select_bins(_bin_selection(idx))
+        one = [np.arange(len(idx))]
+        est = coupling_from_statistics(sub, one, measures=measures)
+        null = {}
+        if null_method:
+            null = conjugation_null(
+                sub, one, method=null_method, n_rep=n_null, seed=seed, measures=measures
+            )
+        intervals = {}
+        if n_boot:
+            # as many replicates per pass as fit _BLOCK_BYTES per statistic (usually all)
+            chunk = max(1, _BLOCK_BYTES // (4 * len(idx) * max(1, ps.ia.size)))
+            intervals = bootstrap_intervals(
+                sub, one, est, n_boot=n_boot, seed=seed, ci=ci, measures=measures, chunk=chunk
+            )
+        parts.append(({m: v[0] for m, v in est.items()}, null, intervals))
+        del sub
+
+    def stack(k, pair=False):
+        keys = parts[0][k].keys()
+        if pair:
+            return {
+                m: tuple(np.concatenate([p[k][m][i] for p in parts]) for i in range(2))
+                for m in keys
+            }
+        return {m: np.concatenate([p[k][m] for p in parts]) for m in keys}
+
+    return stack(0), stack(1, pair=True), stack(2, pair=True)
+
+
+def _bin_selection(idx):
+    """A band's bins as a slice where they are contiguous (the usual case), else the indices."""
+    i = np.asarray(idx, dtype=np.int64)
+    if i.size and np.all(np.diff(i) == 1):
+        return slice(int(i[0]), int(i[-1]) + 1)
+    return i

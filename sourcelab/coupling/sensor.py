@@ -49,6 +49,7 @@ from .measures import (
     LAGGED_MEASURES,
     CouplingResult,
     band_coupling,
+    one_blas_thread,
     pair_statistics,
     pair_statistics_from_fourier,
 )
@@ -223,6 +224,7 @@ def msc_from_covariance(cov: np.ndarray, pairs: np.ndarray) -> np.ndarray:
 
 
 @fill_doc
+@one_blas_thread
 def sensor_coupling(
     spectra: np.ndarray,
     freqs: np.ndarray,
