@@ -47,8 +47,10 @@ PNG_COMPRESS_LEVEL = 1
 def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
     """Render a figure to PNG bytes (and close it).
 
-    An opaque figure is written as RGB (lossless: its alpha is 255 everywhere) at zlib level
-    :data:`PNG_COMPRESS_LEVEL`; a figure with transparent pixels keeps its alpha channel.
+    Drawn on :class:`~sourcelab.figures._agg.TextCacheCanvas` (strings rasterised once per
+    process) when the figure has a plain Agg canvas.  An opaque figure is written as RGB
+    (lossless: its alpha is 255 everywhere) at zlib level :data:`PNG_COMPRESS_LEVEL`; a
+    figure with transparent pixels keeps its alpha channel.
 
     Parameters
     ----------
@@ -71,8 +73,13 @@ def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
         import matplotlib
         from PIL import Image, PngImagePlugin
 
-        fig.canvas.draw()
-        rgba = np.asarray(fig.canvas.buffer_rgba())
+        from . import _agg
+
+        canvas = fig.canvas
+        if type(canvas) is FigureCanvasAgg and _agg.supported():
+            canvas = _agg.TextCacheCanvas(fig)  # each distinct string rasterised once
+        canvas.draw()
+        rgba = np.asarray(canvas.buffer_rgba())
         opaque = bool((rgba[..., 3] == 255).all())
         img = Image.fromarray(np.ascontiguousarray(rgba[..., :3]) if opaque else rgba)
         info = PngImagePlugin.PngInfo()
