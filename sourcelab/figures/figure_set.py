@@ -69,7 +69,7 @@ def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
     buf = io.BytesIO()
-    if isinstance(fig.canvas, FigureCanvasAgg) and fig.dpi == dpi:
+    if isinstance(fig.canvas, FigureCanvasAgg):
         import matplotlib
         from PIL import Image, PngImagePlugin
 
@@ -78,8 +78,13 @@ def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
         canvas = fig.canvas
         if type(canvas) is FigureCanvasAgg and _agg.supported():
             canvas = _agg.TextCacheCanvas(fig)  # each distinct string rasterised once
-        canvas.draw()
-        rgba = np.asarray(canvas.buffer_rgba())
+        own_dpi = fig.dpi
+        fig.set_dpi(dpi)  # what savefig(dpi=...) does while it draws
+        try:
+            canvas.draw()
+            rgba = np.array(canvas.buffer_rgba())
+        finally:
+            fig.set_dpi(own_dpi)
         opaque = bool((rgba[..., 3] == 255).all())
         img = Image.fromarray(np.ascontiguousarray(rgba[..., :3]) if opaque else rgba)
         info = PngImagePlugin.PngInfo()
@@ -87,7 +92,7 @@ def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
             "Software", f"Matplotlib version{matplotlib.__version__}, https://matplotlib.org/"
         )
         img.save(buf, format="png", compress_level=PNG_COMPRESS_LEVEL, pnginfo=info, dpi=(dpi, dpi))
-    else:  # another canvas or resolution: matplotlib's own writer
+    else:  # another canvas: matplotlib's own writer
         fig.savefig(buf, format="png", dpi=dpi, pil_kwargs={"compress_level": PNG_COMPRESS_LEVEL})
     if close:
         plt.close(fig)
