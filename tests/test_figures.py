@@ -446,6 +446,33 @@ def test_glass_brain_outline_as_one_collection_draws_what_nilearn_draws():
     assert (np.abs(a - b).max(-1) > 0.05).mean() < 1e-3  # antialiasing of overlaps aside
 
 
+def test_glass_brain_png_on_a_kept_figure_matches_a_fresh_figure(result):
+    # reference: nilearn's plot_glass_brain on a new figure for every map (figure_png of
+    # glass_brain); the kept figure must give the same pixels whatever was drawn on it before
+    import io
+
+    import matplotlib.image as mpimg
+
+    from sourcelab.figures import brain, figure_png
+
+    z = np.where(np.arange(N_SRC) < N_LEFT, 2.5, -2.5)
+    power = np.asarray(result.source_map("alpha"), float)
+    maps = [
+        (power, power_scale(power), "alpha power"),
+        (z, z_scale(threshold=1.96), "z"),
+        (np.full(N_SRC, 0.5), z_scale(threshold=1.96), "z"),  # nothing beyond the mask
+        (-z, z_scale(), "z"),
+        (power[::-1].copy(), power_scale(power), "alpha power"),
+    ]
+    for values, scale, title in maps:
+        for mode in ("lyrz", "ortho"):
+            kept = brain.glass_brain_png(values, scale=scale, title=title, display_mode=mode)
+            fresh = figure_png(glass_brain(values, scale=scale, title=title, display_mode=mode))
+            a = mpimg.imread(io.BytesIO(kept), format="png")
+            b = mpimg.imread(io.BytesIO(fresh), format="png")
+            assert a.shape == b.shape and np.array_equal(a, b), (title, mode)
+
+
 def test_fully_masked_z_map_draws_quietly():
     # nothing beyond the mask is a valid map (warnings are errors in this suite)
     fig = glass_brain(np.full(N_SRC, 0.5), scale=z_scale(threshold=1.96))

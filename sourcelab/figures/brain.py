@@ -149,18 +149,29 @@ def glass_brain(
     -------
     fig : matplotlib.figure.Figure
     """
-    from nilearn import plotting
-
     v = _check_values(values)
     check_option("display_mode", display_mode, _DISPLAY_MODES)
+    fig = plt.figure(figsize=figsize, dpi=dpi)
+    w = figsize[0]
+    ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
+    cax = fig.add_axes(_glass_cax_rect(w))
+    _draw_glass(fig, ax, cax, v, scale, title, display_mode, resolution)
+    save_if_asked(fig, output_file, dpi)
+    return fig
+
+
+def _glass_cax_rect(width: float) -> tuple:
+    return (1.0 - 1.45 / width, 0.1, 0.14 / width, 0.74)
+
+
+def _draw_glass(fig, ax, cax, v, scale, title, display_mode, resolution) -> None:
+    """The projections of per-source values ``v`` into ``ax``, the colour bar into ``cax``."""
+    from nilearn import plotting
+
     raw = v
     v = clipped(v, scale)  # beyond the limits: end colours (the colour bar's arrows say so)
     v = np.where(np.isfinite(v), v, 0.0)
     img = geometry.sources_to_volume(v, resolution=resolution)
-    fig = plt.figure(figsize=figsize, dpi=dpi)
-    w = figsize[0]
-    ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
-    cax = fig.add_axes((1.0 - 1.45 / w, 0.1, 0.14 / w, 0.74))
     signed = scale.diverging
     with _fast_outline(), warnings.catch_warnings():
         # a z map with nothing beyond the mask is a valid answer, not a problem to warn about
@@ -185,8 +196,135 @@ def glass_brain(
     add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
-    save_if_asked(fig, output_file, dpi)
-    return fig
+
+
+#: Glass-brain figures kept for reuse by :func:`glass_brain_png`, by layout (this process's).
+_GLASS_LAYOUTS: dict = {}
+
+
+def glass_brain_png(
+    values: np.ndarray,
+    *,
+    scale: ColourScale,
+    title: str | None = None,
+    display_mode: str = "lyrz",
+    resolution: int = 2,
+    figsize=(9.5, 2.6),
+    dpi: int = 90,
+) -> bytes:
+    """PNG of :func:`glass_brain`, drawn on a figure kept for its layout.
+
+    nilearn builds a glass brain's projection axes and outlines for every map (most of its
+    time); here they are built once per layout (projections, size, resolution, signed or not,
+    titled or not) and each map replaces only the overlay images, annotations, colour bar and
+    title, through nilearn's own :func:`~nilearn.plotting.plot_glass_brain`.  The pixels are
+    those of ``figure_png(glass_brain(...))`` (see the tests).  Without the nilearn layout
+    this relies on (0.10-0.14), the figure is drawn afresh.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        Per-source values, left hemisphere first (power or z).
+    scale : ColourScale
+    title : str | None
+    display_mode : {"lyrz", "ortho", "lzry", "xz", "yz", "l", "r"}
+    resolution : {2, 3}
+        Voxel size of the projection, mm.
+    figsize : (float, float)
+        Figure width and height, inches.
+    dpi : int
+        Resolution, dots per inch.
+
+    Returns
+    -------
+    bytes
+        The PNG file's content.
+    """
+    from .figure_set import figure_png
+
+    v = _check_values(values)
+    check_option("display_mode", display_mode, _DISPLAY_MODES)
+    key = (display_mode, int(resolution), tuple(figsize), int(dpi), bool(title), scale.diverging)
+    try:
+        from nilearn.plotting.image import img_plotting
+    except ImportError:  # another nilearn layout: drawn afresh
+        img_plotting = None
+    if img_plotting is None or not hasattr(img_plotting, "get_projector"):
+        fig = glass_brain(
+            v,
+            scale=scale,
+            title=title,
+            display_mode=display_mode,
+            resolution=resolution,
+            figsize=figsize,
+            dpi=dpi,
+        )
+        return figure_png(fig, dpi=dpi)
+    kept = _GLASS_LAYOUTS.get(key)
+    if kept is None:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+        fig = Figure(figsize=figsize, dpi=dpi)
+        FigureCanvasAgg(fig)
+        w = figsize[0]
+        ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
+        kept = _GLASS_LAYOUTS[key] = {"fig": fig, "ax": ax, "display": None}
+    fig = kept["fig"]
+    for a in fig.axes:
+        if a is not kept["ax"] and (kept["display"] is None or a not in kept["axes"]):
+            a.remove()  # the previous colour bar
+    cax = fig.add_axes(_glass_cax_rect(figsize[0]))
+    original = img_plotting.get_projector
+
+    def projector(mode):
+        make = original(mode)
+
+        def reuse(*args, **kwargs):
+            if kept["display"] is None:
+                display = make(*args, **kwargs)
+                _keep_glass_state(kept, display)
+                return display
+            _restore_glass_state(kept)
+            return kept["display"]
+
+        return reuse
+
+    img_plotting.get_projector = projector
+    try:
+        _draw_glass(fig, kept["ax"], cax, v, scale, title, display_mode, resolution)
+    finally:
+        img_plotting.get_projector = original
+    return figure_png(fig, dpi=dpi, close=False)
+
+
+def _keep_glass_state(kept: dict, display) -> None:
+    """Remember a new display's artists, limits and object bounds (before any overlay)."""
+    axes = [d.ax for d in display.axes.values()]
+    kept["display"] = display
+    kept["axes"] = axes
+    kept["state"] = [
+        (
+            d,
+            list(d.ax.get_children()),
+            d.ax.get_xlim(),
+            d.ax.get_ylim(),
+            list(getattr(d, "_object_bounds", [])),
+        )
+        for d in display.axes.values()
+    ]
+
+
+def _restore_glass_state(kept: dict) -> None:
+    """Back to the state :func:`_keep_glass_state` saw: overlays and annotations removed."""
+    for d, children, xlim, ylim, bounds in kept["state"]:
+        own = {id(a) for a in children}
+        for a in d.ax.get_children():
+            if id(a) not in own:
+                a.remove()
+        d.ax.set_xlim(xlim)
+        d.ax.set_ylim(ylim)
+        if hasattr(d, "_object_bounds"):
+            d._object_bounds = list(bounds)
 
 
 #: Smallest magnitude drawn on the surface: finite values are lifted to it so that no cortical
@@ -307,6 +445,9 @@ def warm_caches(func, kwargs) -> None:
     if func is glass_brain:
         n_src = geometry.load_head_model().n_src
         geometry.sources_to_volume(np.zeros(n_src), resolution=kwargs.get("resolution", 2))
+        mode = kwargs.get("display_mode", "lyrz")
+        for direction in "xyz" if mode == "ortho" else mode:  # the outlines, read once
+            _schematic(direction, False)
     elif func is surface_views and kwargs.get("raster", True):
         _scratch_axes()
         outline = kwargs.get("outline")

@@ -425,7 +425,10 @@ def _ocular_figure(result, keep, dpi) -> None:
 
 
 def _render(func, args, kwargs, dpi):
-    """Worker: draw one figure and return its PNG bytes."""
+    """Worker: draw one figure and return its PNG bytes (glass brains on a figure kept for
+    their layout, :func:`~sourcelab.figures.brain.glass_brain_png`)."""
+    if func is brain.glass_brain and "output_file" not in kwargs:
+        return brain.glass_brain_png(*args, **kwargs)
     return figure_png(func(*args, **kwargs), dpi=dpi)
 
 
