@@ -477,34 +477,10 @@ def _view_rects(top: float) -> list[tuple[float, float, float, float]]:
 def _draw_views(fig, v, scale, surface, outline, top, axes=None) -> list:
     """The four views with nilearn (matplotlib engine), in new 3-D axes of ``fig`` or in the
     given ``axes``; returns per view (axes, surface collection, outline collection or None)."""
-    from nilearn import plotting
-
-    sulc = geometry.sulcal_depth()
     views = []
     for k, ((hemi, view), rect) in enumerate(zip(SURFACE_VIEWS, _view_rects(top))):
-        coords, faces = geometry.mesh(surface, hemi)
-        faces = _culled_faces(surface, hemi, view)
-        h = geometry.HEMIS.index(hemi)
-        sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
         ax = fig.add_axes(rect, projection="3d") if axes is None else axes[k]
-        data, threshold = surface_plot_values(v[sl], scale)
-        plotting.plot_surf_stat_map(
-            (coords, faces),
-            stat_map=data,
-            bg_map=sulc[h],
-            hemi=hemi,
-            view=view,
-            engine="matplotlib",
-            axes=ax,
-            figure=fig,
-            cmap=scale.cmap,
-            vmin=scale.vmin,
-            vmax=scale.vmax,
-            colorbar=False,
-            threshold=threshold,
-            symmetric_cbar=scale.diverging,
-            bg_on_data=True,
-        )
+        coords, faces, sl = _plot_view(ax, fig, v, scale, surface, hemi, view)
         surf_coll = ax.collections[-1]
         lines = None
         if outline is not None:
@@ -518,6 +494,102 @@ def _draw_views(fig, v, scale, surface, outline, top, axes=None) -> list:
     return views
 
 
+def _plot_view(ax, fig, v, scale, surface, hemi, view):
+    """One view of per-surface-vertex values ``v`` through nilearn's ``plot_surf_stat_map``;
+    returns the mesh's coordinates, its culled faces and the hemisphere's slice of ``v``."""
+    from nilearn import plotting
+
+    coords, _ = geometry.mesh(surface, hemi)
+    faces = _culled_faces(surface, hemi, view)
+    h = geometry.HEMIS.index(hemi)
+    sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
+    data, threshold = surface_plot_values(v[sl], scale)
+    plotting.plot_surf_stat_map(
+        (coords, faces),
+        stat_map=data,
+        bg_map=geometry.sulcal_depth()[h],
+        hemi=hemi,
+        view=view,
+        engine="matplotlib",
+        axes=ax,
+        figure=fig,
+        cmap=scale.cmap,
+        vmin=scale.vmin,
+        vmax=scale.vmax,
+        colorbar=False,
+        threshold=threshold,
+        symmetric_cbar=scale.diverging,
+        bg_on_data=True,
+    )
+    return coords, faces, sl
+
+
+#: What nilearn's matplotlib surface backend must offer for :func:`_view_colours` (0.12-0.14).
+_SURF_BACKEND_NAMES = (
+    "_plot_surf",
+    "_compute_facecolors",
+    "_compute_surf_map_faces",
+    "_threshold_and_rescale",
+    "mix_colormaps",
+    "load_surf_mesh",
+)
+
+
+def _view_colours(v, scale, surface) -> np.ndarray | None:
+    """RGBA per culled face of the four views, view after view, as nilearn colours them, without
+    drawing: ``plot_surf_stat_map`` runs as for a drawing (same inputs, limits, threshold) and
+    only its backend's last step, which builds the 3-D collection and sets these colours on
+    it, is replaced by the same colour computation alone (None: another nilearn layout)."""
+    try:
+        import nilearn.plotting.surface._matplotlib_backend as mb
+    except ImportError:
+        return None
+    if not all(hasattr(mb, n) for n in _SURF_BACKEND_NAMES):
+        return None
+    got = []
+
+    def colours_only(
+        surf_mesh,
+        surf_map=None,
+        bg_map=None,
+        cmap=None,
+        avg_method=None,
+        threshold=None,
+        alpha=None,
+        bg_on_data=False,
+        vmin=None,
+        vmax=None,
+        **_,
+    ):
+        # nilearn's _plot_surf (matplotlib engine), its colour lines only
+        if cmap is None or isinstance(cmap, str):
+            cmap = plt.get_cmap(cmap or plt.rcParamsDefault["image.cmap"])
+        coords, faces = mb.load_surf_mesh(surf_mesh)
+        bg = mb._compute_facecolors(
+            bg_map, faces, coords.shape[0], "auto" if alpha is None else alpha
+        )
+        values = mb._compute_surf_map_faces(
+            surf_map, faces, avg_method or "mean", coords.shape[0], bg.shape[0]
+        )
+        values, kept, vmin, vmax = mb._threshold_and_rescale(values, threshold, vmin, vmax)
+        colours = cmap(values)
+        colours[~kept, 3] = 0
+        if bg_on_data:
+            colours[kept, 3] = 0.7
+        colours = mb.mix_colormaps(colours, bg)
+        colours[colours > 1] = 1
+        got.append(colours)
+
+    original = mb._plot_surf
+    mb._plot_surf = colours_only
+    try:
+        for hemi, view in SURFACE_VIEWS:
+            _plot_view(None, None, v, scale, surface, hemi, view)
+    finally:
+        mb._plot_surf = original
+    return np.concatenate(got)
+
+
 def _raster_image(v, scale, surface, outline, top, figsize, dpi):
     """The four views as one RGBA image of the figure (None: the cached layout does not fit),
     and where each view's title stands (figure fractions, title baseline centre).
@@ -529,13 +601,20 @@ def _raster_image(v, scale, surface, outline, top, figsize, dpi):
     """
     key = None if outline is None else np.asarray(outline, np.int64).tobytes()
     ids, cover, anchors = _face_raster(surface, float(top), tuple(figsize), int(dpi), key)
-    fig, axes = _scratch_axes()
-    views = _draw_views(fig, v, scale, surface, None, top, axes=axes)
-    colours = np.concatenate([_face_colours(c) for _, c, _ in views])
-    for _, coll, _ in views:
-        coll.remove()
+    colours = _view_colours(v, scale, surface)
+    if colours is None:  # nilearn draws the views in never-drawn axes, the colours are read
+        fig, axes = _scratch_axes()
+        views = _draw_views(fig, v, scale, surface, None, top, axes=axes)
+        colours = np.concatenate([_face_colours(c) for _, c, _ in views])
+        for _, coll, _ in views:
+            coll.remove()
     if ids.max() >= len(colours):  # layout differs from the cached one: keep the 3-D drawing
         return None, anchors
+    if cover is None:  # one look-up per pixel in a table of 8-bit face colours (0: none)
+        table = np.zeros((len(colours) + 1, 4), dtype=np.uint8)
+        table[1:, :3] = colours[:, :3] * 255.0 + 0.5
+        table[1:, 3] = 255
+        return table[ids + 1], anchors
     img = np.zeros(ids.shape + (4,), dtype=float)
     inside = ids >= 0
     img[inside] = colours[ids[inside]]
