@@ -202,16 +202,7 @@ def _draw_glass(fig, ax, cax, v, scale, title, display_mode, resolution) -> None
 _GLASS_LAYOUTS: dict = {}
 
 
-def glass_brain_png(
-    values: np.ndarray,
-    *,
-    scale: ColourScale,
-    title: str | None = None,
-    display_mode: str = "lyrz",
-    resolution: int = 2,
-    figsize=(9.5, 2.6),
-    dpi: int = 90,
-) -> bytes:
+def glass_brain_png(values: np.ndarray, **options) -> bytes:
     """PNG of :func:`glass_brain`, drawn on a figure kept for its layout.
 
     nilearn builds a glass brain's projection axes and outlines for every map (most of its
@@ -225,41 +216,35 @@ def glass_brain_png(
     ----------
     values : ndarray, shape (n_src,)
         Per-source values, left hemisphere first (power or z).
-    scale : ColourScale
-    title : str | None
-    display_mode : {"lyrz", "ortho", "lzry", "xz", "yz", "l", "r"}
-    resolution : {2, 3}
-        Voxel size of the projection, mm.
-    figsize : (float, float)
-        Figure width and height, inches.
-    dpi : int
-        Resolution, dots per inch.
+    **options
+        The keywords of :func:`glass_brain` but ``output_file``: ``scale`` (required),
+        ``title``, ``display_mode``, ``resolution``, ``figsize`` (inches), ``dpi``.
 
     Returns
     -------
     bytes
         The PNG file's content.
     """
+    import inspect
+
     from .figure_set import figure_png
 
-    v = _check_values(values)
-    check_option("display_mode", display_mode, _DISPLAY_MODES)
-    key = (display_mode, int(resolution), tuple(figsize), int(dpi), bool(title), scale.diverging)
+    bound = inspect.signature(glass_brain).bind(values, **options)
+    bound.apply_defaults()
+    opts = dict(bound.arguments)
+    if opts.pop("output_file") is not None:
+        raise TypeError("glass_brain_png: no output_file (it returns the PNG)")
+    v = _check_values(opts.pop("values"))
+    check_option("display_mode", opts["display_mode"], _DISPLAY_MODES)
+    scale, title, figsize, dpi = opts["scale"], opts["title"], opts["figsize"], opts["dpi"]
+    key = (opts["display_mode"], int(opts["resolution"]), tuple(figsize), int(dpi), bool(title))
+    key += (scale.diverging,)
     try:
         from nilearn.plotting.image import img_plotting
     except ImportError:  # another nilearn layout: drawn afresh
         img_plotting = None
     if img_plotting is None or not hasattr(img_plotting, "get_projector"):
-        fig = glass_brain(
-            v,
-            scale=scale,
-            title=title,
-            display_mode=display_mode,
-            resolution=resolution,
-            figsize=figsize,
-            dpi=dpi,
-        )
-        return figure_png(fig, dpi=dpi)
+        return figure_png(glass_brain(v, **opts), dpi=dpi)
     kept = _GLASS_LAYOUTS.get(key)
     if kept is None:
         from matplotlib.backends.backend_agg import FigureCanvasAgg
@@ -291,7 +276,7 @@ def glass_brain_png(
 
     img_plotting.get_projector = projector
     try:
-        _draw_glass(fig, kept["ax"], cax, v, scale, title, display_mode, resolution)
+        _draw_glass(fig, kept["ax"], cax, v, scale, title, opts["display_mode"], opts["resolution"])
     finally:
         img_plotting.get_projector = original
     return figure_png(fig, dpi=dpi, close=False)
