@@ -484,10 +484,29 @@ def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
 
     geometry.sulcal_depth()  # fill caches before forking so every worker shares them
     geometry.source_positions_mni305()
-    warmed = set()
+    # the glass brains' volume lookups (~1.5 CPU-s each) built in a forked helper while this
+    # process draws the surface layout's face raster (~1 CPU-s)
+    volumes = {
+        (int(k.get("resolution", 2)), 0.2, 5.0) for _, f, _, k in jobs if f is brain.glass_brain
+    } - set(geometry.VOLUME_MAPS)
+    helper = (
+        ProcessPoolExecutor(max_workers=1, mp_context=mp.get_context("fork")) if volumes else None
+    )
+    try:
+        built = {key: helper.submit(geometry._volume_map, *key) for key in volumes}
+        warmed = set()
+        for _, f, _, k in jobs:
+            layout = (f, k.get("resolution"), id(k.get("outline")), bool(k.get("title")))
+            if f is brain.surface_views and layout + (k.get("dpi"),) not in warmed:
+                warmed.add(layout + (k.get("dpi"),))
+                brain.warm_caches(f, k)
+        geometry.VOLUME_MAPS.update({key: job.result() for key, job in built.items()})
+    finally:
+        if helper is not None:
+            helper.shutdown()
     for _, f, _, k in jobs:
-        layout = (f, k.get("resolution"), id(k.get("outline")), bool(k.get("title")), k.get("dpi"))
-        if f in (brain.glass_brain, brain.surface_views) and layout not in warmed:
+        layout = (f, k.get("resolution"), k.get("display_mode"))
+        if f is brain.glass_brain and layout not in warmed:
             warmed.add(layout)
             brain.warm_caches(f, k)
     # the slowest kinds (many axes or tick labels, ~0.5-1 s each) first, so that no worker is
