@@ -276,9 +276,11 @@ def test_result_figures_keys(result, plain_result):
 
 
 def test_result_figures_in_worker_processes(result):
-    parallel = result_figures(
-        result,
-        n_jobs=2,
+    import io
+
+    import matplotlib.image as mpimg
+
+    options = dict(
         surfaces=False,
         measures=("absolute",),
         resolution=3,
@@ -286,6 +288,18 @@ def test_result_figures_in_worker_processes(result):
         bands=("alpha",),
         as_png=True,
     )
+    from sourcelab.figures import geometry
+
+    key = (3, 0.2, 5.0)  # the glass brains' volume lookup at 3 mm
+    geometry.VOLUME_MAPS.pop(key, None)  # built by a helper process for the workers
+    parallel = result_figures(result, n_jobs=2, **options)
+    assert key in geometry.VOLUME_MAPS
+    # reference: the same figures drawn in this process, the volume lookup built here
+    geometry.VOLUME_MAPS.pop(key)
+    serial = result_figures(result, n_jobs=1, **options)
+    for name in ("glass/alpha/absolute", "roi-bars/alpha/absolute"):
+        a, b = (mpimg.imread(io.BytesIO(f[name]), format="png") for f in (parallel, serial))
+        assert np.array_equal(a, b), name
     assert set(parallel) == {
         "glass/alpha/absolute",
         "roi-bars/alpha/absolute",
