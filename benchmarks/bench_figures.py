@@ -2,10 +2,13 @@
 
 Run: ``python benchmarks/bench_figures.py [out_dir [n_jobs]]`` (``n_jobs`` default: what the
 output writer uses, :func:`sourcelab.figures.figure_set.figure_jobs`; ``--no-demo`` skips the demo
-run).  Prints the figure-set time (as PNG, as the output writer draws it), the report time (HTML
-and PDF from those PNGs), the maps time, the ``sourcelab demo`` wall time in a fresh process, CPU
-seconds beside each, and the machine's load average before and after: on a shared machine the
-wall times scale with the load, the CPU seconds much less.
+run; ``--repeat N`` writes the whole output folder N times, default 3).  Prints the figure-set
+time (as PNG, as the output writer draws it), the report time (HTML and PDF from those PNGs), the
+maps time, then the median time of :func:`sourcelab.outputs.write_analysis_into` (figures,
+reports and maps as ``sourcelab analyze`` writes them: the PDF in a forked process beside the
+HTML report and the maps), the ``sourcelab demo`` wall time in a fresh process, CPU seconds
+beside each, and the machine's load average before and after: on a shared machine the wall times
+scale with the load, the CPU seconds much less.
 
 Goals (issue 19, not tests): all outputs (figures + report + maps) of a 10-minute recording
 <= 8 s; ``sourcelab demo`` <= 12 s wall on 2 cores.
@@ -54,6 +57,11 @@ def main(argv=None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     demo = "--no-demo" not in argv
     argv = [a for a in argv if a != "--no-demo"]
+    repeat = 3
+    if "--repeat" in argv:
+        i = argv.index("--repeat")
+        repeat = int(argv[i + 1])
+        del argv[i : i + 2]
     out = Path(argv[0]) if argv else Path(tempfile.mkdtemp(prefix="sourcelab-bench-"))
     out.mkdir(parents=True, exist_ok=True)
     print(f"load average before (1, 5, 15 min): {_load()}   cores: {os.cpu_count()}")
@@ -111,6 +119,30 @@ def main(argv=None) -> int:
         f"{figs[1] + html[1] + pdf[1] + maps[1]:6.1f} s CPU   (goal <= 8 s on 2 quiet cores)"
     )
     print(f"load average after outputs: {_load()}")
+    if repeat > 0:
+        import shutil
+        import statistics
+
+        from sourcelab.outputs import write_analysis_into
+
+        walls, cpus = [], []
+        for i in range(repeat):
+            folder = out / f"written{i}"
+            shutil.rmtree(folder, ignore_errors=True)
+            folder.mkdir()
+            clock.lap()
+            write_analysis_into(result, folder, command=["bench"])
+            w, c = clock.lap()
+            walls.append(w)
+            cpus.append(c)
+            print(
+                f"    write_analysis_into #{i + 1}: {w:6.1f} s wall {c:6.1f} s CPU  load {_load()}"
+            )
+        print(
+            f"all outputs as written by the output writer (tables too), median of {repeat}: "
+            f"{statistics.median(walls):6.1f} s wall {statistics.median(cpus):6.1f} s CPU   "
+            "(goal <= 8 s on 2 quiet cores)"
+        )
     if demo:
         t = time.perf_counter()
         c = _cpu()

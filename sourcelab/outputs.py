@@ -319,29 +319,54 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
             folder / "leakage_hints.tsv", sep="\t", index=False, float_format="%.4g"
         )
     pngs: dict = {}
+    n_jobs = 1
     if figures:
         step("figures")
-        fig_dir = folder / "figures"
-        fig_dir.mkdir()
         from .figures.figure_set import figure_jobs
 
+        fig_dir = folder / "figures"
+        fig_dir.mkdir()
+        n_jobs = figure_jobs()
         # each figure closed as soon as it is rendered; drawn in parallel when cores allow
-        pngs = result.figures(as_png=True, n_jobs=figure_jobs())
+        pngs = result.figures(as_png=True, n_jobs=n_jobs)
         for name, png in pngs.items():
             (fig_dir / (name.replace("/", "_") + ".png")).write_bytes(png)
+    pdf_job = side = None
     if report:
         step("report")
         from .report import write_pdf, write_report
 
-        write_report(result, folder / "report.html", figures=pngs)
-        write_pdf(result, folder / "report.pdf", figures=pngs)
-    if exports:
-        step("maps")
-        from .exports import export_gifti, export_nifti, export_stc, map_measures
+        pdf = folder / "report.pdf"
+        if n_jobs > 1:  # the PDF (the longest) in a forked process, the HTML and maps here
+            import multiprocessing as mp
+            from concurrent.futures import ProcessPoolExecutor
 
-        maps = folder / "maps"
-        measures = map_measures(result)  # power, and per-source z with per-source norms
-        export_stc(result, maps, measures=measures)
-        export_gifti(result, maps, measures=measures)
-        export_nifti(result, maps, measures=measures)
+            side = ProcessPoolExecutor(max_workers=1, mp_context=mp.get_context("fork"))
+            pdf_job = side.submit(write_pdf, result, pdf, figures=pngs)
+        try:
+            write_report(result, folder / "report.html", figures=pngs)
+            if pdf_job is None:
+                write_pdf(result, pdf, figures=pngs)
+            if exports:
+                step("maps")
+                _write_maps(result, folder)
+            if pdf_job is not None:
+                pdf_job.result()
+        finally:
+            if side is not None:
+                side.shutdown(wait=True, cancel_futures=True)
+    elif exports:
+        step("maps")
+        _write_maps(result, folder)
     return pngs
+
+
+def _write_maps(result, folder: Path) -> None:
+    """``maps/``: power (and per-source z with per-source norms) as STC, GIfTI and NIfTI."""
+    from .exports import export_gifti, export_nifti, export_stc, map_measures
+
+    maps = folder / "maps"
+    measures = map_measures(result)  # power, and per-source z with per-source norms
+    export_stc(result, maps, measures=measures)
+    export_gifti(result, maps, measures=measures)
+    export_nifti(result, maps, measures=measures)

@@ -276,9 +276,11 @@ def test_result_figures_keys(result, plain_result):
 
 
 def test_result_figures_in_worker_processes(result):
-    parallel = result_figures(
-        result,
-        n_jobs=2,
+    import io
+
+    import matplotlib.image as mpimg
+
+    options = dict(
         surfaces=False,
         measures=("absolute",),
         resolution=3,
@@ -286,6 +288,18 @@ def test_result_figures_in_worker_processes(result):
         bands=("alpha",),
         as_png=True,
     )
+    from sourcelab.figures import geometry
+
+    key = (3, 0.2, 5.0)  # the glass brains' volume lookup at 3 mm
+    geometry.VOLUME_MAPS.pop(key, None)  # built by a helper process for the workers
+    parallel = result_figures(result, n_jobs=2, **options)
+    assert key in geometry.VOLUME_MAPS
+    # reference: the same figures drawn in this process, the volume lookup built here
+    geometry.VOLUME_MAPS.pop(key)
+    serial = result_figures(result, n_jobs=1, **options)
+    for name in ("glass/alpha/absolute", "roi-bars/alpha/absolute"):
+        a, b = (mpimg.imread(io.BytesIO(f[name]), format="png") for f in (parallel, serial))
+        assert np.array_equal(a, b), name
     assert set(parallel) == {
         "glass/alpha/absolute",
         "roi-bars/alpha/absolute",
@@ -446,6 +460,33 @@ def test_glass_brain_outline_as_one_collection_draws_what_nilearn_draws():
     assert (np.abs(a - b).max(-1) > 0.05).mean() < 1e-3  # antialiasing of overlaps aside
 
 
+def test_glass_brain_png_on_a_kept_figure_matches_a_fresh_figure(result):
+    # reference: nilearn's plot_glass_brain on a new figure for every map (figure_png of
+    # glass_brain); the kept figure must give the same pixels whatever was drawn on it before
+    import io
+
+    import matplotlib.image as mpimg
+
+    from sourcelab.figures import brain, figure_png
+
+    z = np.where(np.arange(N_SRC) < N_LEFT, 2.5, -2.5)
+    power = np.asarray(result.source_map("alpha"), float)
+    maps = [
+        (power, power_scale(power), "alpha power"),
+        (z, z_scale(threshold=1.96), "z"),
+        (np.full(N_SRC, 0.5), z_scale(threshold=1.96), "z"),  # nothing beyond the mask
+        (-z, z_scale(), "z"),
+        (power[::-1].copy(), power_scale(power), "alpha power"),
+    ]
+    for values, scale, title in maps:
+        for mode in ("lyrz", "ortho"):
+            kept = brain.glass_brain_png(values, scale=scale, title=title, display_mode=mode)
+            fresh = figure_png(glass_brain(values, scale=scale, title=title, display_mode=mode))
+            a = mpimg.imread(io.BytesIO(kept), format="png")
+            b = mpimg.imread(io.BytesIO(fresh), format="png")
+            assert a.shape == b.shape and np.array_equal(a, b), (title, mode)
+
+
 def test_fully_masked_z_map_draws_quietly():
     # nothing beyond the mask is a valid map (warnings are errors in this suite)
     fig = glass_brain(np.full(N_SRC, 0.5), scale=z_scale(threshold=1.96))
@@ -561,3 +602,41 @@ def test_figure_jobs_follows_cores_workers_and_environment(monkeypatch):
     monkeypatch.setenv("SOURCELAB_FIGURE_JOBS", "0")
     with pytest.raises(InputError, match="SOURCELAB_FIGURE_JOBS"):
         figure_jobs()
+
+
+def test_text_cache_canvas_draws_what_matplotlib_draws():
+    # reference: matplotlib's own Agg canvas; the cached text is placed at whole pixels (as
+    # matplotlib <= 3.10 did), so a string may move by up to half a pixel, no more
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    from sourcelab.figures import _agg
+
+    def page():
+        fig = Figure(figsize=(5, 3.5), dpi=90)
+        ax = fig.add_axes((0.3, 0.3, 0.6, 0.55))
+        ax.set_yticks(range(6), [f"BA{k} L area {k}" for k in range(6)], fontsize=7)
+        ax.set_xticks([0, 0.5, 1], ["0", "½", "1 µV²"], rotation=45)
+        ax.set_xlabel("z-score (SD units)", fontweight="bold")
+        ax.set_ylabel("rotated label")
+        fig.text(0.5, 0.93, "title · with—dashes", ha="center", color="tab:red", alpha=0.6)
+        return fig
+
+    def ink(canvas):
+        return 255.0 - np.asarray(canvas.buffer_rgba())[..., :3].mean(-1)
+
+    if not _agg.supported():
+        pytest.skip("this matplotlib draws text in one piece already (<= 3.10)")
+    ref = FigureCanvasAgg(page())
+    ref.draw()
+    canvas = _agg.TextCacheCanvas(page())
+    canvas.draw()
+    n_cached = len(_agg._bitmaps)
+    canvas.draw()  # the second drawing reuses every bitmap
+    assert len(_agg._bitmaps) == n_cached
+    a, b = ink(ref), ink(canvas)
+    assert abs(a.sum() - b.sum()) < 0.01 * a.sum()  # the same ink
+    for axis in (0, 1):  # ink profiles along columns and rows agree, centres < 0.35 px apart
+        pa, pb = a.sum(axis), b.sum(axis)
+        i = np.arange(len(pa))
+        assert np.corrcoef(pa, pb)[0, 1] > 0.98
+        assert abs(pa @ i / pa.sum() - pb @ i / pb.sum()) < 0.35

@@ -288,3 +288,24 @@ def test_z_maps_exported_like_power(result, plain_result, tmp_path):
     got = np.stack([d.data for d in img.darrays])[:, m.vertno[: m.n_left]]
     want = np.asarray(result.source_z["absolute"])[:, : m.n_left]
     np.testing.assert_allclose(got, want, rtol=1e-6)
+
+
+def test_reports_and_maps_written_alike_in_parallel(result, small_figures, tmp_path, monkeypatch):
+    # contract: with two drawing processes the PDF is written by a forked process beside the
+    # HTML report and the maps; the folder must hold what the one-process writer writes
+    from sourcelab.outputs import write_analysis_into
+
+    monkeypatch.setattr(type(result), "figures", lambda self, **kw: dict(small_figures))
+    names = {}
+    for jobs in ("1", "2"):
+        monkeypatch.setenv("SOURCELAB_FIGURE_JOBS", jobs)
+        folder = tmp_path / f"jobs{jobs}"
+        folder.mkdir()
+        pngs = write_analysis_into(result, folder, command=["test"])
+        assert pngs == small_figures
+        data = (folder / "report.pdf").read_bytes()
+        assert data.startswith(b"%PDF")
+        assert len(re.findall(rb"/Type\s*/Page\b", data)) == len(pdf_pages(result, small_figures))
+        assert (folder / "report.html").stat().st_size > 10_000
+        names[jobs] = sorted(str(p.relative_to(folder)) for p in folder.rglob("*"))
+    assert names["1"] == names["2"] and any(n.startswith("maps/") for n in names["2"])

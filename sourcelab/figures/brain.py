@@ -149,18 +149,29 @@ def glass_brain(
     -------
     fig : matplotlib.figure.Figure
     """
-    from nilearn import plotting
-
     v = _check_values(values)
     check_option("display_mode", display_mode, _DISPLAY_MODES)
+    fig = plt.figure(figsize=figsize, dpi=dpi)
+    w = figsize[0]
+    ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
+    cax = fig.add_axes(_glass_cax_rect(w))
+    _draw_glass(fig, ax, cax, v, scale, title, display_mode, resolution)
+    save_if_asked(fig, output_file, dpi)
+    return fig
+
+
+def _glass_cax_rect(width: float) -> tuple:
+    return (1.0 - 1.45 / width, 0.1, 0.14 / width, 0.74)
+
+
+def _draw_glass(fig, ax, cax, v, scale, title, display_mode, resolution) -> None:
+    """The projections of per-source values ``v`` into ``ax``, the colour bar into ``cax``."""
+    from nilearn import plotting
+
     raw = v
     v = clipped(v, scale)  # beyond the limits: end colours (the colour bar's arrows say so)
     v = np.where(np.isfinite(v), v, 0.0)
     img = geometry.sources_to_volume(v, resolution=resolution)
-    fig = plt.figure(figsize=figsize, dpi=dpi)
-    w = figsize[0]
-    ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
-    cax = fig.add_axes((1.0 - 1.45 / w, 0.1, 0.14 / w, 0.74))
     signed = scale.diverging
     with _fast_outline(), warnings.catch_warnings():
         # a z map with nothing beyond the mask is a valid answer, not a problem to warn about
@@ -185,8 +196,120 @@ def glass_brain(
     add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
-    save_if_asked(fig, output_file, dpi)
-    return fig
+
+
+#: Glass-brain figures kept for reuse by :func:`glass_brain_png`, by layout (this process's).
+_GLASS_LAYOUTS: dict = {}
+
+
+def glass_brain_png(values: np.ndarray, **options) -> bytes:
+    """PNG of :func:`glass_brain`, drawn on a figure kept for its layout.
+
+    nilearn builds a glass brain's projection axes and outlines for every map (most of its
+    time); here they are built once per layout (projections, size, resolution, signed or not,
+    titled or not) and each map replaces only the overlay images, annotations, colour bar and
+    title, through nilearn's own :func:`~nilearn.plotting.plot_glass_brain`.  The pixels are
+    those of ``figure_png(glass_brain(...))`` (see the tests).  Without the nilearn layout
+    this relies on (0.10-0.14), the figure is drawn afresh.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+        Per-source values, left hemisphere first (power or z).
+    **options
+        The keywords of :func:`glass_brain` but ``output_file``: ``scale`` (required),
+        ``title``, ``display_mode``, ``resolution``, ``figsize`` (inches), ``dpi``.
+
+    Returns
+    -------
+    bytes
+        The PNG file's content.
+    """
+    import inspect
+
+    from .figure_set import figure_png
+
+    bound = inspect.signature(glass_brain).bind(values, **options)
+    bound.apply_defaults()
+    opts = dict(bound.arguments)
+    if opts.pop("output_file") is not None:
+        raise TypeError("glass_brain_png: no output_file (it returns the PNG)")
+    v = _check_values(opts.pop("values"))
+    check_option("display_mode", opts["display_mode"], _DISPLAY_MODES)
+    scale, title, figsize, dpi = opts["scale"], opts["title"], opts["figsize"], opts["dpi"]
+    key = (opts["display_mode"], int(opts["resolution"]), tuple(figsize), int(dpi), bool(title))
+    key += (scale.diverging,)
+    try:
+        from nilearn.plotting.image import img_plotting
+    except ImportError:  # another nilearn layout: drawn afresh
+        img_plotting = None
+    if img_plotting is None or not hasattr(img_plotting, "get_projector"):
+        return figure_png(glass_brain(v, **opts), dpi=dpi)
+    kept = _GLASS_LAYOUTS.get(key)
+    if kept is None:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+        fig = Figure(figsize=figsize, dpi=dpi)
+        FigureCanvasAgg(fig)
+        w = figsize[0]
+        ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
+        kept = _GLASS_LAYOUTS[key] = {"fig": fig, "ax": ax, "display": None}
+    fig = kept["fig"]
+    for a in fig.axes:
+        if a is not kept["ax"] and (kept["display"] is None or a not in kept["axes"]):
+            a.remove()  # the previous colour bar
+    cax = fig.add_axes(_glass_cax_rect(figsize[0]))
+    original = img_plotting.get_projector
+
+    def projector(mode):
+        make = original(mode)
+
+        def reuse(*args, **kwargs):
+            if kept["display"] is None:
+                display = make(*args, **kwargs)
+                _keep_glass_state(kept, display)
+                return display
+            _restore_glass_state(kept)
+            return kept["display"]
+
+        return reuse
+
+    img_plotting.get_projector = projector
+    try:
+        _draw_glass(fig, kept["ax"], cax, v, scale, title, opts["display_mode"], opts["resolution"])
+    finally:
+        img_plotting.get_projector = original
+    return figure_png(fig, dpi=dpi, close=False)
+
+
+def _keep_glass_state(kept: dict, display) -> None:
+    """Remember a new display's artists, limits and object bounds (before any overlay)."""
+    axes = [d.ax for d in display.axes.values()]
+    kept["display"] = display
+    kept["axes"] = axes
+    kept["state"] = [
+        (
+            d,
+            list(d.ax.get_children()),
+            d.ax.get_xlim(),
+            d.ax.get_ylim(),
+            list(getattr(d, "_object_bounds", [])),
+        )
+        for d in display.axes.values()
+    ]
+
+
+def _restore_glass_state(kept: dict) -> None:
+    """Back to the state :func:`_keep_glass_state` saw: overlays and annotations removed."""
+    for d, children, xlim, ylim, bounds in kept["state"]:
+        own = {id(a) for a in children}
+        for a in d.ax.get_children():
+            if id(a) not in own:
+                a.remove()
+        d.ax.set_xlim(xlim)
+        d.ax.set_ylim(ylim)
+        if hasattr(d, "_object_bounds"):
+            d._object_bounds = list(bounds)
 
 
 #: Smallest magnitude drawn on the surface: finite values are lifted to it so that no cortical
@@ -307,6 +430,9 @@ def warm_caches(func, kwargs) -> None:
     if func is glass_brain:
         n_src = geometry.load_head_model().n_src
         geometry.sources_to_volume(np.zeros(n_src), resolution=kwargs.get("resolution", 2))
+        mode = kwargs.get("display_mode", "lyrz")
+        for direction in "xyz" if mode == "ortho" else mode:  # the outlines, read once
+            _schematic(direction, False)
     elif func is surface_views and kwargs.get("raster", True):
         _scratch_axes()
         outline = kwargs.get("outline")
@@ -336,34 +462,10 @@ def _view_rects(top: float) -> list[tuple[float, float, float, float]]:
 def _draw_views(fig, v, scale, surface, outline, top, axes=None) -> list:
     """The four views with nilearn (matplotlib engine), in new 3-D axes of ``fig`` or in the
     given ``axes``; returns per view (axes, surface collection, outline collection or None)."""
-    from nilearn import plotting
-
-    sulc = geometry.sulcal_depth()
     views = []
     for k, ((hemi, view), rect) in enumerate(zip(SURFACE_VIEWS, _view_rects(top))):
-        coords, faces = geometry.mesh(surface, hemi)
-        h = geometry.HEMIS.index(hemi)
-        sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
         ax = fig.add_axes(rect, projection="3d") if axes is None else axes[k]
-        data, threshold = surface_plot_values(v[sl], scale)
-        faces = _front_faces(coords, faces, hemi=hemi, view=view)
-        plotting.plot_surf_stat_map(
-            (coords, faces),
-            stat_map=data,
-            bg_map=sulc[h],
-            hemi=hemi,
-            view=view,
-            engine="matplotlib",
-            axes=ax,
-            figure=fig,
-            cmap=scale.cmap,
-            vmin=scale.vmin,
-            vmax=scale.vmax,
-            colorbar=False,
-            threshold=threshold,
-            symmetric_cbar=scale.diverging,
-            bg_on_data=True,
-        )
+        coords, faces, sl = _plot_view(ax, fig, v, scale, surface, hemi, view)
         surf_coll = ax.collections[-1]
         lines = None
         if outline is not None:
@@ -377,6 +479,102 @@ def _draw_views(fig, v, scale, surface, outline, top, axes=None) -> list:
     return views
 
 
+def _plot_view(ax, fig, v, scale, surface, hemi, view):
+    """One view of per-surface-vertex values ``v`` through nilearn's ``plot_surf_stat_map``;
+    returns the mesh's coordinates, its culled faces and the hemisphere's slice of ``v``."""
+    from nilearn import plotting
+
+    coords, _ = geometry.mesh(surface, hemi)
+    faces = _culled_faces(surface, hemi, view)
+    h = geometry.HEMIS.index(hemi)
+    sl = slice(h * geometry.N_LEFT, (h + 1) * geometry.N_LEFT)
+    data, threshold = surface_plot_values(v[sl], scale)
+    plotting.plot_surf_stat_map(
+        (coords, faces),
+        stat_map=data,
+        bg_map=geometry.sulcal_depth()[h],
+        hemi=hemi,
+        view=view,
+        engine="matplotlib",
+        axes=ax,
+        figure=fig,
+        cmap=scale.cmap,
+        vmin=scale.vmin,
+        vmax=scale.vmax,
+        colorbar=False,
+        threshold=threshold,
+        symmetric_cbar=scale.diverging,
+        bg_on_data=True,
+    )
+    return coords, faces, sl
+
+
+#: What nilearn's matplotlib surface backend must offer for :func:`_view_colours` (0.12-0.14).
+_SURF_BACKEND_NAMES = (
+    "_plot_surf",
+    "_compute_facecolors",
+    "_compute_surf_map_faces",
+    "_threshold_and_rescale",
+    "mix_colormaps",
+    "load_surf_mesh",
+)
+
+
+def _view_colours(v, scale, surface) -> np.ndarray | None:
+    """RGBA per culled face of the four views, view after view, as nilearn colours them, without
+    drawing: ``plot_surf_stat_map`` runs as for a drawing (same inputs, limits, threshold) and
+    only its backend's last step, which builds the 3-D collection and sets these colours on
+    it, is replaced by the same colour computation alone (None: another nilearn layout)."""
+    try:
+        import nilearn.plotting.surface._matplotlib_backend as mb
+    except ImportError:
+        return None
+    if not all(hasattr(mb, n) for n in _SURF_BACKEND_NAMES):
+        return None
+    got = []
+
+    def colours_only(
+        surf_mesh,
+        surf_map=None,
+        bg_map=None,
+        cmap=None,
+        avg_method=None,
+        threshold=None,
+        alpha=None,
+        bg_on_data=False,
+        vmin=None,
+        vmax=None,
+        **_,
+    ):
+        # nilearn's _plot_surf (matplotlib engine), its colour lines only
+        if cmap is None or isinstance(cmap, str):
+            cmap = plt.get_cmap(cmap or plt.rcParamsDefault["image.cmap"])
+        coords, faces = mb.load_surf_mesh(surf_mesh)
+        bg = mb._compute_facecolors(
+            bg_map, faces, coords.shape[0], "auto" if alpha is None else alpha
+        )
+        values = mb._compute_surf_map_faces(
+            surf_map, faces, avg_method or "mean", coords.shape[0], bg.shape[0]
+        )
+        values, kept, vmin, vmax = mb._threshold_and_rescale(values, threshold, vmin, vmax)
+        colours = cmap(values)
+        colours[~kept, 3] = 0
+        if bg_on_data:
+            colours[kept, 3] = 0.7
+        colours = mb.mix_colormaps(colours, bg)
+        colours[colours > 1] = 1
+        got.append(colours)
+
+    original = mb._plot_surf
+    mb._plot_surf = colours_only
+    try:
+        for hemi, view in SURFACE_VIEWS:
+            _plot_view(None, None, v, scale, surface, hemi, view)
+    finally:
+        mb._plot_surf = original
+    return np.concatenate(got)
+
+
 def _raster_image(v, scale, surface, outline, top, figsize, dpi):
     """The four views as one RGBA image of the figure (None: the cached layout does not fit),
     and where each view's title stands (figure fractions, title baseline centre).
@@ -388,13 +586,20 @@ def _raster_image(v, scale, surface, outline, top, figsize, dpi):
     """
     key = None if outline is None else np.asarray(outline, np.int64).tobytes()
     ids, cover, anchors = _face_raster(surface, float(top), tuple(figsize), int(dpi), key)
-    fig, axes = _scratch_axes()
-    views = _draw_views(fig, v, scale, surface, None, top, axes=axes)
-    colours = np.concatenate([_face_colours(c) for _, c, _ in views])
-    for _, coll, _ in views:
-        coll.remove()
+    colours = _view_colours(v, scale, surface)
+    if colours is None:  # nilearn draws the views in never-drawn axes, the colours are read
+        fig, axes = _scratch_axes()
+        views = _draw_views(fig, v, scale, surface, None, top, axes=axes)
+        colours = np.concatenate([_face_colours(c) for _, c, _ in views])
+        for _, coll, _ in views:
+            coll.remove()
     if ids.max() >= len(colours):  # layout differs from the cached one: keep the 3-D drawing
         return None, anchors
+    if cover is None:  # one look-up per pixel in a table of 8-bit face colours (0: none)
+        table = np.zeros((len(colours) + 1, 4), dtype=np.uint8)
+        table[1:, :3] = colours[:, :3] * 255.0 + 0.5
+        table[1:, 3] = 255
+        return table[ids + 1], anchors
     img = np.zeros(ids.shape + (4,), dtype=float)
     inside = ids >= 0
     img[inside] = colours[ids[inside]]
@@ -403,7 +608,8 @@ def _raster_image(v, scale, surface, outline, top, figsize, dpi):
         a = _OUTLINE_ALPHA * cover
         img[..., :3] *= (1.0 - a)[..., None]
         img[..., 3] = np.where(inside, img[..., 3], a)
-    return img, anchors
+    # as 8-bit RGBA, what Agg draws anyway: resampled 8x faster than float64
+    return (img * 255.0 + 0.5).astype(np.uint8), anchors
 
 
 @functools.lru_cache(maxsize=1)
@@ -492,6 +698,15 @@ def _id_scale():
     from .colours import ColourScale
 
     return ColourScale("gray", -1.0, 1.0, "index")
+
+
+@functools.lru_cache(maxsize=16)
+def _culled_faces(surface: str, hemi: str, view: str) -> np.ndarray:
+    """:func:`_front_faces` of one template mesh and view, computed once (read-only)."""
+    coords, faces = geometry.mesh(surface, hemi)
+    out = _front_faces(coords, faces, hemi=hemi, view=view)
+    out.flags.writeable = False
+    return out
 
 
 def _front_faces(coords: np.ndarray, faces: np.ndarray, *, hemi: str, view: str) -> np.ndarray:

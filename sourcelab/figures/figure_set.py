@@ -47,8 +47,10 @@ PNG_COMPRESS_LEVEL = 1
 def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
     """Render a figure to PNG bytes (and close it).
 
-    An opaque figure is written as RGB (lossless: its alpha is 255 everywhere) at zlib level
-    :data:`PNG_COMPRESS_LEVEL`; a figure with transparent pixels keeps its alpha channel.
+    Drawn on :class:`~sourcelab.figures._agg.TextCacheCanvas` (strings rasterised once per
+    process) when the figure has a plain Agg canvas.  An opaque figure is written as RGB
+    (lossless: its alpha is 255 everywhere) at zlib level :data:`PNG_COMPRESS_LEVEL`; a
+    figure with transparent pixels keeps its alpha channel.
 
     Parameters
     ----------
@@ -67,12 +69,22 @@ def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
     buf = io.BytesIO()
-    if isinstance(fig.canvas, FigureCanvasAgg) and fig.dpi == dpi:
+    if isinstance(fig.canvas, FigureCanvasAgg):
         import matplotlib
         from PIL import Image, PngImagePlugin
 
-        fig.canvas.draw()
-        rgba = np.asarray(fig.canvas.buffer_rgba())
+        from . import _agg
+
+        canvas = fig.canvas
+        if type(canvas) is FigureCanvasAgg and _agg.supported():
+            canvas = _agg.TextCacheCanvas(fig)  # each distinct string rasterised once
+        own_dpi = fig.dpi
+        fig.set_dpi(dpi)  # what savefig(dpi=...) does while it draws
+        try:
+            canvas.draw()
+            rgba = np.array(canvas.buffer_rgba())
+        finally:
+            fig.set_dpi(own_dpi)
         opaque = bool((rgba[..., 3] == 255).all())
         img = Image.fromarray(np.ascontiguousarray(rgba[..., :3]) if opaque else rgba)
         info = PngImagePlugin.PngInfo()
@@ -80,7 +92,7 @@ def figure_png(fig, *, dpi: int = 90, close: bool = True) -> bytes:
             "Software", f"Matplotlib version{matplotlib.__version__}, https://matplotlib.org/"
         )
         img.save(buf, format="png", compress_level=PNG_COMPRESS_LEVEL, pnginfo=info, dpi=(dpi, dpi))
-    else:  # another canvas or resolution: matplotlib's own writer
+    else:  # another canvas: matplotlib's own writer
         fig.savefig(buf, format="png", dpi=dpi, pil_kwargs={"compress_level": PNG_COMPRESS_LEVEL})
     if close:
         plt.close(fig)
@@ -413,7 +425,10 @@ def _ocular_figure(result, keep, dpi) -> None:
 
 
 def _render(func, args, kwargs, dpi):
-    """Worker: draw one figure and return its PNG bytes."""
+    """Worker: draw one figure and return its PNG bytes (glass brains on a figure kept for
+    their layout, :func:`~sourcelab.figures.brain.glass_brain_png`)."""
+    if func is brain.glass_brain and "output_file" not in kwargs:
+        return brain.glass_brain_png(*args, **kwargs)
     return figure_png(func(*args, **kwargs), dpi=dpi)
 
 
@@ -469,10 +484,29 @@ def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
 
     geometry.sulcal_depth()  # fill caches before forking so every worker shares them
     geometry.source_positions_mni305()
-    warmed = set()
+    # the glass brains' volume lookups (~1.5 CPU-s each) built in a forked helper while this
+    # process draws the surface layout's face raster (~1 CPU-s)
+    volumes = {
+        (int(k.get("resolution", 2)), 0.2, 5.0) for _, f, _, k in jobs if f is brain.glass_brain
+    } - set(geometry.VOLUME_MAPS)
+    helper = (
+        ProcessPoolExecutor(max_workers=1, mp_context=mp.get_context("fork")) if volumes else None
+    )
+    try:
+        built = {key: helper.submit(geometry._volume_map, *key) for key in volumes}
+        warmed = set()
+        for _, f, _, k in jobs:
+            layout = (f, k.get("resolution"), id(k.get("outline")), bool(k.get("title")))
+            if f is brain.surface_views and layout + (k.get("dpi"),) not in warmed:
+                warmed.add(layout + (k.get("dpi"),))
+                brain.warm_caches(f, k)
+        geometry.VOLUME_MAPS.update({key: job.result() for key, job in built.items()})
+    finally:
+        if helper is not None:
+            helper.shutdown()
     for _, f, _, k in jobs:
-        layout = (f, k.get("resolution"), id(k.get("outline")), bool(k.get("title")), k.get("dpi"))
-        if f in (brain.glass_brain, brain.surface_views) and layout not in warmed:
+        layout = (f, k.get("resolution"), k.get("display_mode"))
+        if f is brain.glass_brain and layout not in warmed:
             warmed.add(layout)
             brain.warm_caches(f, k)
     # the slowest kinds (many axes or tick labels, ~0.5-1 s each) first, so that no worker is

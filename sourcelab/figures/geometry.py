@@ -16,7 +16,6 @@ to 0-1 here.
 
 from __future__ import annotations
 
-import functools
 import logging
 
 import numpy as np
@@ -113,9 +112,20 @@ def _grey_matter(resolution: int):
     return nib.Nifti1Image(data, img.affine)
 
 
-@functools.lru_cache(maxsize=4)
+#: Voxel -> nearest-source lookups by (resolution, gm_threshold, max_dist_mm), this process's
+#: (filled by :func:`_volume_map`, or by a figure set's helper process before drawing).
+VOLUME_MAPS: dict = {}
+
+
 def _volume_map(resolution: int, gm_threshold: float, max_dist_mm: float):
     """Cached voxel → nearest-source lookup: (shape, affine, flat voxel indices, source indices)."""
+    key = (int(resolution), float(gm_threshold), float(max_dist_mm))
+    if key not in VOLUME_MAPS:
+        VOLUME_MAPS[key] = _build_volume_map(*key)
+    return VOLUME_MAPS[key]
+
+
+def _build_volume_map(resolution: int, gm_threshold: float, max_dist_mm: float):
     import nibabel as nib
     from scipy.spatial import cKDTree
 

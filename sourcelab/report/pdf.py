@@ -250,7 +250,8 @@ class _Layout:
         ax = self.fig.add_axes(
             (MARGIN / PAGE_SIZE[0], (self.y - h) / PAGE_SIZE[1], w / PAGE_SIZE[0], h / PAGE_SIZE[1])
         )
-        ax.imshow(img, interpolation="antialiased")
+        # unsampled: the PNG goes into the PDF as it is (no resampling), scaled by the viewer
+        ax.imshow(img, interpolation="none")
         ax.set_axis_off()
         self.y -= h
         if caption:
