@@ -434,7 +434,8 @@ def _render(func, args, kwargs, dpi):
 
 def figure_jobs() -> int:
     """Worker processes for drawing a figure set on this machine: the cores this process may
-    use (at most 4), or 1 inside a worker process (a batch worker must not fork its own pool).
+    use (at most 4), or 1 inside a worker process (a batch worker must not fork its own pool)
+    and where processes cannot be forked.
 
     The environment variable ``SOURCELAB_FIGURE_JOBS`` (an integer >= 1) overrides it.
 
@@ -451,8 +452,8 @@ def figure_jobs() -> int:
         return check_number(
             "SOURCELAB_FIGURE_JOBS", int(env) if env.strip().isdigit() else env, kind=int, low=1
         )
-    if mp.parent_process() is not None:
-        return 1
+    if mp.parent_process() is not None or "fork" not in mp.get_all_start_methods():
+        return 1  # workers share the parent's caches by forking (not on Windows)
     try:
         cores = len(os.sched_getaffinity(0))
     except AttributeError:  # not on Linux
