@@ -624,8 +624,10 @@ def clean_recording(
     hi = min(muscle_band[1], (h_freq or nyq * 0.9))
     muscle_on = np.isfinite(muscle_uv) and muscle_band[0] < hi
     learn = config.rejection == "auto"
+    # without a selection the selected epochs are all usable epochs: their features once
+    same = learn and np.array_equal(starts, all_starts)
     hf_sel = np.zeros((len(starts), len(SITES_1020)))
-    hf_all = np.zeros((len(all_starts), len(SITES_1020))) if learn else None
+    hf_all = hf_sel if same else np.zeros((len(all_starts), len(SITES_1020))) if learn else None
     if muscle_on:
         # the muscle band a few sites at a time (MNE filters each row on its own: the same
         # numbers, without a band-passed copy of the whole recording)
@@ -633,11 +635,11 @@ def clean_recording(
         for c in range(0, data.shape[0], rows):
             hf = mne.filter.filter_data(data[c : c + rows], sf, muscle_band[0], hi, verbose="error")
             hf_sel[:, c : c + rows] = _window_reduce(hf, starts, n_per, _rms)
-            if learn:
+            if learn and not same:
                 hf_all[:, c : c + rows] = _window_reduce(hf, all_starts, n_per, _rms)
         del hf
     if learn:
-        ptp_all = _window_reduce(data, all_starts, n_per, _ptp)
+        ptp_all = ptp if same else _window_reduce(data, all_starts, n_per, _ptp)
         thr = learn_thresholds(ptp_all, hf_all, age=age, z=config.reject_z)
         if thr.n_epochs < 20:
             notes.append(
