@@ -98,10 +98,9 @@ WHY = {
         "arrays) or in cleaning."
     ),
     "peak_mb_60": (
-        "The pair statistics of the coupling bootstrap are held per epoch x bin x pair (six "
-        "float32 arrays, ~70 MB each for an hour), and cleaning holds the band-passed and the "
-        "muscle-band copies of the recording at once; both need a bin- or time-blocked "
-        "design to fit."
+        "The peak is in the coupling statistics (the envelope moments of network coupling, "
+        "per epoch x bin x pair): cleaning now works inside the recording's own buffer and "
+        "builds the epochs there (one float64 copy of the hour, ~140 MB, instead of three)."
     ),
     "core_over_mne_psd": (
         "In quick mode compute_source_psd runs on 1 minute (30 epochs), where the core's "
@@ -115,8 +114,10 @@ WHY = {
         "machine; each worker now starts with one BLAS/OpenMP thread."
     ),
     "dask_over_pool": (
-        "Dask workers start a scheduler and nanny processes; measured under "
-        "the same heavy load as the pool."
+        "Dask starts a scheduler, two nannies and their workers (2-6 s of the wall on a busy "
+        "machine) and its runs come last, when the load is usually highest; its workers now run "
+        "as the pool's (no MALLOC_TRIM_THRESHOLD_ from the nanny, which cost ~18 % CPU in page "
+        "faults, no profiler, one BLAS thread)."
     ),
     "all_outputs_s": (
         "About 76 figures (glass brains, surfaces, ROI charts, coupling, scalp maps), each a "

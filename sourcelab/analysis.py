@@ -346,10 +346,11 @@ def analyze(
         rec = recording if isinstance(recording, Recording) else read_recording(recording)
         check_sampling_rate(config, rec.sfreq, where=rec.path)
         stages.step("cleaning")
-        clean = clean_recording(rec, config, select=select, age=age)
-        if rec is not recording:
-            # read here: only its metadata is needed from now on; the continuous data (as large
-            # as the clean epochs) is released for the rest of the analysis (memory)
+        # a recording read here is cleaned inside its own buffer (memory: one copy of the
+        # continuous data, not three); only its metadata is needed from now on
+        own = rec is not recording
+        clean = clean_recording(rec, config, select=select, age=age, overwrite=own)
+        if own:
             rec = dataclasses.replace(rec, raw=None, eog_uv=None)
         model = load_head_model()
         if tuple(clean.ch_names) != tuple(model.ch_names):

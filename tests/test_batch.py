@@ -263,6 +263,32 @@ def test_process_workers_start_with_one_blas_thread(monkeypatch):
     assert not any(k in os.environ for k in THREAD_ENV)  # the parent's environment is restored
 
 
+def _dask_worker_setup(_task=None) -> dict:
+    import dask
+
+    return {
+        "malloc_trim": os.environ.get("MALLOC_TRIM_THRESHOLD_"),
+        "profiler": dask.config.get("distributed.worker.profile.enabled"),
+        **worker_threads(),
+    }
+
+
+def test_dask_local_workers_are_set_up_as_the_pool_workers(monkeypatch):
+    # A local cluster's worker processes run as the process pool's: one BLAS/OpenMP thread each
+    # (common practice, as above), the caller's allocator settings (Dask's nanny would export
+    # MALLOC_TRIM_THRESHOLD_=65536, which fixes glibc's mmap threshold: Dask's documentation on
+    # pre-spawn-environ and glibc's mallopt manual, from memory) and no statistical profiler.
+    pytest.importorskip("distributed")
+    for k in (*THREAD_ENV, "MALLOC_TRIM_THRESHOLD_"):
+        monkeypatch.delenv(k, raising=False)
+    with DaskEngine(n_workers=1) as engine:
+        info = engine.result(engine.submit(_dask_worker_setup, None))
+    assert info["malloc_trim"] is None and info["profiler"] is False, info
+    assert info["env"] == {k: "1" for k in THREAD_ENV}
+    assert info["pools"] and set(info["pools"].values()) == {1}, info
+    assert not any(k in os.environ for k in THREAD_ENV)  # the parent's environment is restored
+
+
 def test_one_thread_environment_keeps_the_users_setting(monkeypatch):
     monkeypatch.setenv("OMP_NUM_THREADS", "3")
     monkeypatch.delenv("OPENBLAS_NUM_THREADS", raising=False)

@@ -162,6 +162,36 @@ def test_sine_through_read_and_clean():
     assert clean.epochs.dtype == np.float64 and clean.epochs.shape[1:] == (19, int(2 * SF))
 
 
+def test_epochs_built_in_place_equal_the_copied_epochs():
+    # Known answer: the epochs packed and transposed inside the recording's buffer are exactly
+    # the stacked copies x[:, st:st + n] (the copy route), for any channels, lengths and starts.
+    from sourcelab.intake.clean import _epochs_in_place, _windows, epoch_starts
+
+    rng = np.random.default_rng(19)
+    for _ in range(200):
+        n_ch, n, n_t = int(rng.integers(1, 6)), int(rng.integers(1, 9)), int(rng.integers(0, 90))
+        starts, _ = epoch_starts(rng.random(n_t) > 0.3, n)
+        starts = starts[rng.random(len(starts)) > 0.3]  # rejected epochs leave gaps
+        x = rng.standard_normal((n_ch, n_t))
+        got = _epochs_in_place(x.copy(), starts, n)
+        want = _windows(x, starts, n)
+        assert got.shape == want.shape and np.array_equal(got, want)
+        assert got.flags.c_contiguous
+
+
+def test_cleaning_in_the_recordings_own_buffer_gives_the_same_epochs(synth):
+    # overwrite=True (what analyze does with a recording it read) must change nothing but memory
+    rec = read_recording(make_raw(synth))
+    want = clean_recording(rec, CFG)
+    own = read_recording(make_raw(synth))
+    got = clean_recording(own, CFG, overwrite=True)
+    assert np.shares_memory(got.epochs, own.raw._data)  # built inside the recording's buffer
+    assert not np.shares_memory(want.epochs, rec.raw._data)
+    assert np.array_equal(got.epochs, want.epochs)
+    assert np.array_equal(got.epoch_onsets_s, want.epoch_onsets_s)
+    assert got.rejected_s == want.rejected_s and got.thresholds == want.thresholds
+
+
 def test_band_power_matches_scipy_and_mne(synth):
     # Reference implementations: scipy.signal.welch and mne.time_frequency.psd_array_welch
     # (Hann window over the whole epoch, one-sided density), band = sum of bins x df.

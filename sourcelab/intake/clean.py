@@ -345,6 +345,49 @@ def _windows(x: np.ndarray, starts: np.ndarray, n_per: int) -> np.ndarray:
     return out
 
 
+def _epochs_in_place(x: np.ndarray, starts: np.ndarray, n_per: int) -> np.ndarray:
+    """The epochs of :func:`_windows`, built inside ``x``'s own buffer (``x`` is overwritten).
+
+    The same values in the same (n_epochs, n_channels, n_per) C-ordered layout, without a
+    second copy of the recording: each row's epochs are packed to the front of the buffer
+    (every block moves towards the start, never over data still to be moved), then the
+    (n_channels, n_epochs) grid of n_per-sample blocks is transposed in place by following the
+    permutation's cycles.  ``x`` must be C-contiguous and writeable (its own array).
+
+    Returns
+    -------
+    ndarray, shape (n_epochs, n_channels, n_per)
+        A view of the front of ``x``'s buffer.
+    """
+    n_ch, n_t = x.shape
+    k = len(starts)
+    flat = x.reshape(-1)  # a view: x is C-contiguous
+    if k == 0:
+        return flat[:0].reshape(0, n_ch, n_per)
+    take = np.asarray(starts)[:, None] + np.arange(n_per)
+    for c in range(n_ch):  # row c's epochs (a one-row copy) to [c k n_per, (c + 1) k n_per)
+        flat[c * k * n_per : (c + 1) * k * n_per] = x[c][take].reshape(-1)
+    blocks = flat[: n_ch * k * n_per].reshape(n_ch * k, n_per)
+    # block p = c k + e goes to e n_ch + c; positions 0 and n_ch k - 1 stay
+    size = n_ch * k
+    done = np.zeros(size, bool)
+    tmp = np.empty(n_per, x.dtype)
+    for p0 in range(1, size - 1):
+        if done[p0]:
+            continue
+        tmp[:] = blocks[p0]
+        p = p0
+        while True:  # pull into p the block that belongs there
+            src = (p % n_ch) * k + p // n_ch
+            done[p] = True
+            if src == p0:
+                blocks[p] = tmp
+                break
+            blocks[p] = blocks[src]
+            p = src
+    return blocks.reshape(k, n_ch, n_per)
+
+
 #: Epochs reduced at once by :func:`_window_reduce` (bounds the working memory of the features).
 _REDUCE_BLOCK = 256
 
@@ -430,6 +473,7 @@ def clean_recording(
     muscle_uv: float | None = None,
     muscle_band=MUSCLE_BAND_HZ,
     blink_uv: float | None = None,
+    overwrite: bool = False,
 ) -> CleanData:
     """Filter, select, correct eye artefacts, epoch and reject artefacts.
 
@@ -455,6 +499,12 @@ def clean_recording(
         Overrides ``config.blink_uv``: Fp1/Fp2 low-frequency (< 3 Hz) deflection threshold, µV;
         the deflection must also be at least twice the O1/O2 one.  Applied only when ocular
         correction removed nothing; ``inf`` disables.
+    overwrite : bool
+        Work inside ``recording.raw``'s own data buffer instead of a copy, and build the
+        epochs inside it (memory: one copy of the recording instead of three).  The raw is left
+        holding meaningless data: for callers that discard the recording afterwards (as
+        :func:`sourcelab.analysis.analyze` does with a recording it read itself).  Without a
+        preloaded float64 buffer a copy is made as usual.  The results are the same.
 
     Returns
     -------
@@ -493,7 +543,13 @@ def clean_recording(
     sf = float(raw.info["sfreq"])
     nyq = sf / 2
     notes: list[str] = []
-    data = raw.get_data()  # this function's own array (scaled and filtered in place below)
+    buf = getattr(raw, "_data", None) if overwrite else None
+    if _own_buffer(buf, (len(raw.ch_names), raw.n_times)):
+        data = buf  # the recording's own buffer (the caller gave it up)
+    else:
+        data = raw.get_data()  # this function's own array (scaled and filtered in place below)
+    work = data  # the buffer that filtering and ocular correction work inside
+    del buf
     data *= 1e6  # µV
     mains = (
         config.notch
@@ -568,8 +624,10 @@ def clean_recording(
     hi = min(muscle_band[1], (h_freq or nyq * 0.9))
     muscle_on = np.isfinite(muscle_uv) and muscle_band[0] < hi
     learn = config.rejection == "auto"
+    # without a selection the selected epochs are all usable epochs: their features once
+    same = learn and np.array_equal(starts, all_starts)
     hf_sel = np.zeros((len(starts), len(SITES_1020)))
-    hf_all = np.zeros((len(all_starts), len(SITES_1020))) if learn else None
+    hf_all = hf_sel if same else np.zeros((len(all_starts), len(SITES_1020))) if learn else None
     if muscle_on:
         # the muscle band a few sites at a time (MNE filters each row on its own: the same
         # numbers, without a band-passed copy of the whole recording)
@@ -577,11 +635,11 @@ def clean_recording(
         for c in range(0, data.shape[0], rows):
             hf = mne.filter.filter_data(data[c : c + rows], sf, muscle_band[0], hi, verbose="error")
             hf_sel[:, c : c + rows] = _window_reduce(hf, starts, n_per, _rms)
-            if learn:
+            if learn and not same:
                 hf_all[:, c : c + rows] = _window_reduce(hf, all_starts, n_per, _rms)
         del hf
     if learn:
-        ptp_all = _window_reduce(data, all_starts, n_per, _ptp)
+        ptp_all = ptp if same else _window_reduce(data, all_starts, n_per, _ptp)
         thr = learn_thresholds(ptp_all, hf_all, age=age, z=config.reject_z)
         if thr.n_epochs < 20:
             notes.append(
@@ -668,9 +726,19 @@ def clean_recording(
 
     # --- does the slow-wave topography still look ocular? ------------------------------------
     templates = ocular_templates(_positions(raw), _nasion(raw))
-    kept_ep = _windows(data, starts[keep], n_per)
     ocular_info, ocular_method = ocular.summary(), ocular.method
-    del data, ocular  # the continuous copies are no longer needed (memory)
+    del ocular
+    n_kept = int(keep.sum())
+    in_place = (
+        _own_buffer(work, data.shape)
+        and _same_view(data, work)
+        and n_kept * n_per >= KEEP_IN_PLACE * data.shape[1]
+    )
+    if in_place:  # the epochs inside the continuous array's buffer: no second copy
+        kept_ep = _epochs_in_place(work, starts[keep], n_per)
+    else:  # a copy (most of the recording rejected: what is kept, and the rest is freed)
+        kept_ep = _windows(data, starts[keep], n_per)
+    del data, work  # the continuous array is no longer needed (memory)
     residual = ocular_residual(band_csd(kept_ep, sf, _delta_edges(config)), templates)
     if residual["ocular"]:
         how = (
@@ -705,6 +773,33 @@ def clean_recording(
         excluded=tuple(excluded),
         ocular=ocular_info,
         timings_s=timings,
+    )
+
+
+#: Kept fraction of the samples from which the epochs are built inside the filtered
+#: recording's buffer (which then stays allocated) rather than copied out of it.
+KEEP_IN_PLACE = 0.75
+
+
+def _own_buffer(x, shape) -> bool:
+    """Whether ``x`` is a writeable, C-contiguous float64 array of ``shape`` owning its data."""
+    return (
+        isinstance(x, np.ndarray)
+        and x.shape == tuple(shape)
+        and x.dtype == np.float64
+        and x.flags.c_contiguous
+        and x.flags.writeable
+        and x.base is None
+    )
+
+
+def _same_view(a: np.ndarray, b: np.ndarray) -> bool:
+    """Whether ``a`` and ``b`` are the same array (the same memory, shape and strides)."""
+    return (
+        a.__array_interface__["data"][0] == b.__array_interface__["data"][0]
+        and a.shape == b.shape
+        and a.strides == b.strides
+        and a.dtype == b.dtype
     )
 
 

@@ -326,8 +326,13 @@ def correct_ocular(
     sos = butter(4, min(12.0, 0.4 * sfreq / q), fs=sfreq, output="sos")
     # row by row (each row is filtered independently: the same numbers, without holding the
     # filter's padded copies of every row at once)
+    # filtered and decimated into one preallocated array (a decimated view of each filtered
+    # row would keep the whole filtered row alive: 21 full-length rows at once, memory)
     rows = (*(data[c, idx] for c in range(n_ch)), veog, heog)
-    low = np.stack([sosfiltfilt(sos, row)[::q] for row in rows]) * 1e-6
+    low = np.empty((n_ch + 2, -(-len(idx) // q)))
+    for i, row in enumerate(rows):
+        low[i] = sosfiltfilt(sos, row)[::q]
+    low *= 1e-6
     del veog, heog
     score_raw = mne.io.RawArray(low, mne.create_info(names_all, sfreq / q, types), verbose="error")
     ica = mne.preprocessing.ICA(
