@@ -76,6 +76,14 @@ _SECTION = "Parameters\n----------\n"
 #: The whole Parameters section of a model evaluated at one age.
 docdict["age_parameters"] = _SECTION + docdict["age_years"]
 
+#: The Parameters section of a function painting an atlas's ROIs on the source space.
+docdict["atlas_parameters"] = (
+    _SECTION
+    + """\
+atlas : Atlas
+    ROIs whose ``vertices`` are source indices."""
+)
+
 docdict["epochs_sfreq"] = """\
 epochs : ndarray, shape (n_epochs, n_channels, n_times)
     µV.

@@ -6,6 +6,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .._docs import fill_doc
 from ..headmodel import load_head_model
 from ..headmodel.model import HEMIS, N_PER_HEMI
 from ..rois import Atlas, load_atlas
@@ -13,16 +14,14 @@ from ..rois.names import area_name, natural_key
 from .geometry import paint_rois
 
 
+@fill_doc
 def atlas_label_map(atlas: Atlas) -> np.ndarray:
     """ROI number (1-based, 0 = none) per fsaverage5 surface vertex, shape (20484,).
 
     Bilateral (``"both"``) ROIs are painted only when the atlas has no per-hemisphere ROI of the
     same name; where ROIs overlap, the later ROI in ``atlas.rois`` wins (e.g. networks).
 
-    Parameters
-    ----------
-    atlas : Atlas
-        ROIs whose ``vertices`` are source indices.
+    %(atlas_parameters)s
 
     Returns
     -------

@@ -20,6 +20,7 @@ import logging
 
 import numpy as np
 
+from .._docs import fill_doc
 from ..checks import check_option
 from ..headmodel import load_head_model
 from ..headmodel.geometry import MNI305_TO_MNI152, mni305_to_mni152  # noqa: F401  (re-exported)
@@ -192,15 +193,13 @@ def sources_to_volume(
     return img
 
 
+@fill_doc
 def atlas_labels(atlas) -> np.ndarray:
     """ROI number per surface vertex from an :class:`~sourcelab.rois.atlas.Atlas`.
 
     Used for parcel outlines; where ROIs overlap the later ROI wins.
 
-    Parameters
-    ----------
-    atlas : Atlas
-        ROIs whose ``vertices`` are source indices.
+    %(atlas_parameters)s
 
     Returns
     -------
@@ -211,14 +210,12 @@ def atlas_labels(atlas) -> np.ndarray:
     return paint_rois(atlas, range(len(atlas.rois)), fill=-1, dtype=np.int64)
 
 
+@fill_doc
 def paint_rois(atlas, codes, *, fill: int, dtype) -> np.ndarray:
     """A code per surface vertex: each ROI's vertices take its code, in ROI order (the later
     ROI wins where ROIs overlap).
 
-    Parameters
-    ----------
-    atlas : Atlas
-        ROIs whose ``vertices`` are source indices.
+    %(atlas_parameters)s
     codes : iterable of int | None, one per ROI of ``atlas.rois``
         The ROI's code; None leaves its vertices as they are.
     fill : int
