@@ -119,7 +119,7 @@ def _stated(maps, orders, true, setup, *, kind):
     """The shipped probability model applied to the first area of each order, against hits.
 
     ``calibration_max_gap``: the largest |stated - observed| over the reliability bins holding
-    at least 30 maps (the probability model was fitted for the peak's area, not this one).
+    at least 30 maps (the model is fitted for the evidence-named area on mismatch seed 0).
     """
     from sourcelab.simulate.localisation import reliability
     from sourcelab.trust.probability import area_probability
@@ -155,7 +155,6 @@ def _rank_orders(orders, true):
 def bench_points(setup, full, *, n, snr, rng, jitter_label, store=None):
     from sourcelab.simulate import localisation as cal
     from sourcelab.trust.localise import rank_areas, rank_areas_by_mean
-    from sourcelab.trust.probability import area_probability
 
     sp = setup.space
     src = rng.integers(0, sp.n_src, n)
@@ -204,11 +203,6 @@ def bench_points(setup, full, *, n, snr, rng, jitter_label, store=None):
     f_r, t3_r = _ranks(
         lambda v: rank_areas(v, sp.codes, sp.n_areas, exclude=setup.exclude), maps[ok], true[ok]
     )
-    prob = []
-    for v in maps:
-        a = cal.named_area(v, sp, setup.exclude)
-        prob.append(area_probability(v, sp, a, setup.own, kind="power"))
-    hit = np.array([cal.named_area(v, sp, setup.exclude) for v in maps]) == true
     rows.append(
         _summary(
             "peak_default",
@@ -217,8 +211,6 @@ def bench_points(setup, full, *, n, snr, rng, jitter_label, store=None):
             first_resolvable_truth=round(f_r, 3),
             top3_resolvable_truth=round(t3_r, 3),
             n_resolvable_truth=int(ok.sum()),
-            mean_stated_probability=round(float(np.mean(prob)), 3),
-            observed_hit_rate=round(float(hit.mean()), 3),
         )
     )
 
@@ -252,7 +244,6 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80, store=
     from sourcelab.norms.source_norms import fit_source_models
     from sourcelab.simulate import localisation as cal
     from sourcelab.trust.localise import rank_areas
-    from sourcelab.trust.probability import area_probability
 
     sp = setup.space
     ages = rng.uniform(18, 65, n_controls)
@@ -324,8 +315,6 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80, store=
         z_src[strong & ok],
         true[strong & ok],
     )
-    named = np.array([cal.named_area(v, sp, setup.exclude) for v in z_src])
-    prob = [area_probability(v, sp, a, setup.own, kind="z") for v, a in zip(z_src, named)]
     rows.append(
         _summary(
             "peak_default",
@@ -336,8 +325,6 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80, store=
             first_resolvable_truth_peak_z_ge_4=round(f_s, 3),
             n_peak_z_ge_4=int((strong & ok).sum()),
             peak_z_median=round(float(np.median(peak)), 2),
-            mean_stated_probability=round(float(np.mean(prob)), 3),
-            observed_hit_rate=round(float(np.mean(named == true)), 3),
         )
     )
     ex = np.clip(zs_src, 0.0, None)

@@ -61,9 +61,9 @@ def test_bad_parameters_are_refused():
             evidence_from_corr(np.ones(2), np.ones(2, int), np.zeros(2), 3, **kw)
 
 
-def test_naming_switch_off_names_the_peak_area_and_on_names_the_evidence(rng, monkeypatch):
-    # The shipped default (this pipeline version) names the area that holds the peak; switched
-    # on, the area of highest evidence, never an excluded one.
+def test_candidates_name_the_area_of_highest_evidence(rng):
+    # Issue 14 (pipeline version 4): a candidate list names the area of highest evidence
+    # (area_evidence), never an excluded one; the evidence it read is returned beside the name.
     from sourcelab.trust import naming
     from sourcelab.trust.cortex import cortex_space
 
@@ -71,12 +71,11 @@ def test_naming_switch_off_names_the_peak_area_and_on_names_the_evidence(rng, mo
     s = int(rng.choice(np.flatnonzero(sp.codes > 0)))
     v = (sp.op.kernel @ sp.gain[:, s]) ** 2
     p = int(np.argmax(v))
-    assert naming.EVIDENCE_NAMING is False
-    assert naming.candidate_area_code(v, sp, p) == sp.codes[p]
-    monkeypatch.setattr(naming, "EVIDENCE_NAMING", True)
     ev = naming.area_evidence(v, sp, p)
     first = int(ev.order()[0])
-    assert naming.candidate_area_code(v, sp, p) == first
+    code, used = naming.candidate_naming(v, sp, p)
+    assert code == first == naming.candidate_area_code(v, sp, p)
+    np.testing.assert_array_equal(used.area_score, ev.area_score)
     other = naming.candidate_area_code(v, sp, p, exclude=[first])
     assert other != first and other == ev.order([first])[0]
 

@@ -52,7 +52,7 @@ from pathlib import Path
 import numpy as np
 
 from ..spectra import average_reference_projector
-from ..trust.probability import FEATURES, area_features, named_area
+from ..trust.probability import FEATURES, area_features
 
 #: Between-person SD of the global background scale, natural-log units (≈ 0.2 log10).
 #: Adult between-person SD of log10 absolute band power is about 0.2-0.3 (from memory; cf.
@@ -488,11 +488,15 @@ def point_source_set(setup: SimSetup, n: int, rng: np.random.Generator, *, snr_r
 
 
 def _score_maps(setup, maps, true, src):
+    from ..trust.naming import candidate_naming
+
+    excl = tuple(int(c) for c in setup.exclude)
     x, named = [], []
     for v in maps:
-        a = named_area(v, setup.space, setup.exclude)
+        peak = int(np.argmax(v))
+        a, ev = candidate_naming(v, setup.space, peak, exclude=excl)
         named.append(a)
-        x.append(area_features(v, setup.space, a, setup.own))
+        x.append(area_features(v, setup.space, a, setup.own, peak=peak, evidence=ev))
     named = np.asarray(named)
     return {
         "x": np.asarray(x),
@@ -557,11 +561,8 @@ def deviation_set(
         x0 = np.array([1.0, np.log10(ages_d[i])])
         h = float(x0 @ xtx @ x0) * n_controls / n_kept
         mean = x0 @ coef
-        zs.append(
-            np.abs(
-                predictive_t(np.log10(dev[i]), mean, sd, n=n_kept, degree=1, h0=h)["z_equivalent"]
-            )
-        )
+        z = predictive_t(np.log10(dev[i]), mean, sd, n=n_kept, degree=1, h0=h)["z_equivalent"]
+        zs.append(np.clip(z, 0.0, None))  # the excess map a candidate list names
     out = _score_maps(setup, np.asarray(zs), sp.codes[centres], centres)
     out["peak_z"] = np.array([z.max() for z in zs])
     return out

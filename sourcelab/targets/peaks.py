@@ -98,8 +98,8 @@ def peak_candidates(
 
     from ..headmodel.geometry import mni305_to_mni152
     from ..trust.probability import area_probability
-    from ..trust.localise import clusters, local_maxima
-    from ..trust.naming import candidate_area_code
+    from ..trust.localise import clusters, local_maxima, signed_border_distance
+    from ..trust.naming import candidate_naming
 
     excl = set(int(c) for c in exclude)
     rows = []
@@ -113,7 +113,7 @@ def peak_candidates(
             cl = clusters(v, space.mesh, threshold)
             seen = set()
             for s in peaks:
-                code = candidate_area_code(
+                code, evidence = candidate_naming(
                     v, space, s, exclude=() if include_unresolvable else excl
                 )
                 if code == 0 or code in seen:
@@ -140,12 +140,24 @@ def peak_candidates(
                         x_mni152=round(float(xyz[0]), 1),
                         y_mni152=round(float(xyz[1]), 1),
                         z_mni152=round(float(xyz[2]), 1),
-                        border_mm=round(float(space.border_mm[s]), 1),
+                        border_mm=round(
+                            signed_border_distance(
+                                space.codes, space.mesh, space.border_mm, s, code
+                            ),
+                            1,
+                        ),
                         cluster_size=int(members.size),
                         cluster_areas=spans,
                         own_share=float(own[code]),
                         probability=area_probability(
-                            v, space, code, own, kind="z", model=probability_model
+                            v,
+                            space,
+                            code,
+                            own,
+                            kind="z",
+                            model=probability_model,
+                            peak=s,
+                            evidence=evidence,
                         ),
                         resolvable=resolvable,
                         source=int(s),

@@ -345,21 +345,14 @@ def name_area(values: np.ndarray, space, peak: int, *, exclude=None, **kw) -> in
     return int(o[0]) if o.size else 0
 
 
-#: Whether candidate lists name an area by its evidence (:func:`area_evidence`) instead of the
-#: area holding the peak.  Off in this pipeline version: switching it on changes which area
-#: (and so which own-share and probability) some candidates carry, so it goes with a
-#: PIPELINE_VERSION bump, a refit of the probability model on evidence-named areas and a demo
-#: norms rebuild (see ``benchmarks/bench_localisation.py`` for the measured effect).
-EVIDENCE_NAMING = False
-
-
 @fill_doc
-def candidate_area_code(values: np.ndarray, space, peak: int, *, exclude=()) -> int:
-    """Area code a candidate list names for ``peak`` (the one switch of the naming rule).
+def candidate_naming(
+    values: np.ndarray, space, peak: int, *, exclude=()
+) -> tuple[int, MatchResult | None]:
+    """Area code a candidate list names for ``peak``, with the evidence behind it.
 
-    With :data:`EVIDENCE_NAMING` off (the default of this pipeline version): the area holding
-    the peak.  On: the area of highest evidence (:func:`area_evidence`), areas in ``exclude``
-    left out; the peak's own area when no candidate is eligible.
+    The area of highest evidence (:func:`area_evidence`), areas in ``exclude`` left out; the
+    peak's own area (and no evidence) when no candidate is eligible.
 
     Parameters
     ----------
@@ -370,10 +363,30 @@ def candidate_area_code(values: np.ndarray, space, peak: int, *, exclude=()) -> 
     Returns
     -------
     code : int
-        Area code (0 only where the peak lies outside every area and evidence naming is off).
+        Area code (0 only when no candidate is eligible and the peak lies outside every area).
+    evidence : MatchResult or None
+        The area evidence the name was read from (None in the fallback).
     """
-    own_code = int(space.codes[int(peak)])
-    if not EVIDENCE_NAMING:
-        return own_code
-    o = area_evidence(values, space, peak).order(np.asarray(tuple(exclude), dtype=np.int64))
-    return int(o[0]) if o.size else own_code
+    ev = area_evidence(values, space, peak)
+    o = ev.order(np.asarray(tuple(exclude), dtype=np.int64))
+    if not o.size:
+        return int(space.codes[int(peak)]), None
+    return int(o[0]), ev
+
+
+@fill_doc
+def candidate_area_code(values: np.ndarray, space, peak: int, *, exclude=()) -> int:
+    """Area code a candidate list names for ``peak`` (:func:`candidate_naming`'s code).
+
+    Parameters
+    ----------
+    %(match_map_space_peak)s
+    exclude : sequence of int
+        Area codes that cannot be named (e.g. not resolvable from 19 electrodes).
+
+    Returns
+    -------
+    code : int
+        Area code of highest evidence; the peak's own area when no candidate is eligible.
+    """
+    return candidate_naming(values, space, peak, exclude=exclude)[0]
