@@ -2,8 +2,11 @@
 
 For every band and measure, the per-source z-map (against per-source norms) is searched for local
 maxima of ``z`` (excess) and of ``-z`` (deficit) beyond the deviation threshold on the cortical
-mesh (:mod:`sourcelab.trust.localise`).  Each peak names the Brodmann area that contains it;
-one candidate per (measure, band, direction, area) keeps the strongest peak.  Order:
+mesh (:mod:`sourcelab.trust.localise`).  Each peak names the Brodmann area of highest
+template-match evidence around it (:func:`sourcelab.trust.naming.candidate_naming`; under
+model mismatch more often the true area than the area that contains the peak), and reports its
+signed distance to that area's border (negative when the peak lies outside the named area); one
+candidate per (measure, band, direction, area) keeps the strongest peak.  Order:
 
 1. **absolute-power** candidates, by |peak z|;
 2. then **relative-power** candidates, by |peak z|, labelled ``supporting``: relative power is
@@ -13,9 +16,9 @@ one candidate per (measure, band, direction, area) keeps the strongest peak.  Or
 Areas not resolvable from 19 scalp electrodes (:mod:`sourcelab.trust.resolvability`) are left
 out unless ``include_unresolvable``.  Each candidate carries the area's leakage own-share and the
 calibrated probability that the generator lies in the named area
-(:func:`sourcelab.simulate.localisation.area_probability`; calibrated for the first-named area of a
-map under the simulation model, see that module).  Statistical deviation only: whether an area
-is worth training is for a practitioner to decide.
+(:func:`sourcelab.trust.probability.area_probability`; calibrated for the area named at a map's
+highest peak under the simulation model of :mod:`sourcelab.simulate.localisation`).
+Statistical deviation only: whether an area is worth training is for a practitioner to decide.
 """
 
 from __future__ import annotations
@@ -114,7 +117,7 @@ def peak_candidates(
             seen = set()
             for s in peaks:
                 code, evidence = candidate_naming(
-                    v, space, s, exclude=() if include_unresolvable else excl
+                    v, space, s, exclude=() if include_unresolvable else excl, kind="z"
                 )
                 if code == 0 or code in seen:
                     continue

@@ -60,7 +60,7 @@ def shipped_model() -> dict:
     return json.loads(shipped_bytes(MODEL_FILE)[0].decode("utf-8"))
 
 
-def named_area(values: np.ndarray, space, exclude=None) -> int:
+def named_area(values: np.ndarray, space, exclude=None, *, kind: str = "z") -> int:
     """Code of the area named for a map: highest evidence around its global peak.
 
     Parameters
@@ -71,6 +71,8 @@ def named_area(values: np.ndarray, space, exclude=None) -> int:
         Supplies the kernel, gain, mesh and area codes.
     exclude : array of int, optional
         Area codes left out (e.g. not resolvable from 19 electrodes).
+    kind : {"z", "power"}
+        Map kind (its templates: :data:`~sourcelab.trust.naming.PATCH_MM`).
 
     Returns
     -------
@@ -80,7 +82,7 @@ def named_area(values: np.ndarray, space, exclude=None) -> int:
     from .naming import candidate_area_code
 
     excl = () if exclude is None else tuple(int(c) for c in exclude)
-    return candidate_area_code(values, space, int(np.argmax(values)), exclude=excl)
+    return candidate_area_code(values, space, int(np.argmax(values)), exclude=excl, kind=kind)
 
 
 def area_features(
@@ -89,6 +91,7 @@ def area_features(
     area: int,
     own: np.ndarray,
     *,
+    kind: str = "z",
     peak: int | None = None,
     evidence=None,
 ) -> np.ndarray:
@@ -104,6 +107,8 @@ def area_features(
         Area code (must have sources).
     own : ndarray, shape (n_codes,)
         Leakage own-share per area code, 0..1 (clipped to [1e-4, 1 - 1e-4]).
+    kind : {"z", "power"}
+        Map kind (the templates of the evidence computed when ``evidence`` is not given).
     peak : int, optional
         Source of the peak the area was named for (default the map's maximum).
     evidence : MatchResult, optional
@@ -119,7 +124,7 @@ def area_features(
         logit of its own-share, logit of its evidence share (clipped to [1e-4, 1 - 1e-4]).
     """
     from .localise import peak_margin, signed_border_distance
-    from .naming import area_evidence
+    from .naming import PATCH_MM, area_evidence
 
     v = np.asarray(values, dtype=float)
     sel = np.flatnonzero(space.codes == area)
@@ -127,7 +132,7 @@ def area_features(
         raise InputError(f"area code {area} has no sources")
     peak = int(np.argmax(v)) if peak is None else int(peak)
     if evidence is None:
-        evidence = area_evidence(v, space, peak)
+        evidence = area_evidence(v, space, peak, patch_mm=PATCH_MM[kind])
     best = sel[np.argmax(v[sel])]
     margin = peak_margin(v, space.codes, area, float(v[best]))
     d = signed_border_distance(space.codes, space.mesh, space.border_mm, peak, area)
@@ -210,7 +215,7 @@ def area_probability(
     model = model or shipped_model()
     check_option("kind", kind, sorted(model["coefficients"]))
     coef = np.asarray(model["coefficients"][kind], dtype=float)
-    x = area_features(values, space, area, own, peak=peak, evidence=evidence)
+    x = area_features(values, space, area, own, kind=kind, peak=peak, evidence=evidence)
     if coef.size != x.size + 1:
         raise InputError(
             f"localisation probability model: {coef.size} coefficients for {x.size} features"
