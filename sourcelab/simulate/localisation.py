@@ -621,6 +621,8 @@ def fit_model(
             "n_deviation": n_dev,
             "hit_rate_point": float(pts["hit"].mean()),
             "hit_rate_deviation": float(dev["hit"].mean()),
+            "naming": "sourcelab.trust.naming.candidate_naming (power: point templates, "
+            "z: patch templates)",
             "lambda2": space.op.lambda2,
             "n_src": int(space.n_src),
             "seconds": round(time.perf_counter() - t0, 1),

@@ -4,10 +4,11 @@ The area named for a map is the area of highest evidence around the map's peak
 (:func:`~sourcelab.trust.naming.candidate_naming`; areas not resolvable from 19 electrodes left
 out).  The probability that the generator lies in it is a logistic model
 
-    logit P = c0 + c1 · log1p(border_mm) + c2 · margin + c3 · log(n_sources) + c4 · logit(own)
-              + c5 · logit(posterior)
+    logit P = c0 + c1 · sign(b) log1p(|b|) + c2 · margin + c3 · log(n_sources)
+              + c4 · logit(own) + c5 · logit(posterior)
 
-of five features of the named area: distance along the mesh from its maximum to its border,
+of five features of the named area: the peak's signed distance ``b`` (mm) along the mesh to its
+border (the candidate table's ``border_mm``; negative when the peak lies outside it),
 the margin by which its maximum beats every other source (:func:`~sourcelab.trust.localise.
 peak_margin`; 0 when another area holds the peak), its size, its leakage own-share, and its
 share of the (tempered, uncalibrated) area evidence (:meth:`~sourcelab.trust.naming.
@@ -35,7 +36,7 @@ from ..checks import check_option
 from ..errors import InputError
 
 FEATURES = (
-    "log1p_border_mm",
+    "signed_log1p_border_mm",
     "margin",
     "log_n_sources",
     "logit_own_share",
