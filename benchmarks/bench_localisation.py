@@ -132,7 +132,16 @@ def _stated(maps, orders, true, setup, *, kind):
 
 
 def _resolve_stated(rows):
-    """Fill every deferred stated-probability check (rows hold the placeholders' content)."""
+    """Fill every deferred stated-probability check (rows hold the placeholders' content).
+
+    The shipped manifest and model are re-read (a refit written during the run is used).
+    """
+    from sourcelab import data
+    from sourcelab.trust.probability import shipped_model
+
+    data.manifest.cache_clear()
+    data.shipped_bytes.cache_clear()
+    shipped_model.cache_clear()
     for out, maps, orders, true, setup, kind in _PENDING:
         out.update(_stated_now(maps, orders, true, setup, kind=kind))
         for r in rows:
