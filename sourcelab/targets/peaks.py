@@ -116,9 +116,9 @@ def peak_candidates(
             cl = clusters(v, space.mesh, threshold)
             seen = set()
             for s in peaks:
-                code, evidence = candidate_naming(
-                    v, space, s, exclude=() if include_unresolvable else excl, kind="z"
-                )
+                # every area may be named: a peak whose best area is not resolvable is left
+                # out (below), not renamed after a resolvable neighbour
+                code, evidence = candidate_naming(v, space, s, kind="z")
                 if code == 0 or code in seen:
                     continue
                 seen.add(code)
