@@ -61,9 +61,9 @@ def test_bad_parameters_are_refused():
             evidence_from_corr(np.ones(2), np.ones(2, int), np.zeros(2), 3, **kw)
 
 
-def test_naming_switch_off_names_the_peak_area_and_on_names_the_evidence(rng, monkeypatch):
-    # The shipped default (this pipeline version) names the area that holds the peak; switched
-    # on, the area of highest evidence, never an excluded one.
+def test_candidates_name_the_area_of_highest_evidence(rng):
+    # Issue 14 (pipeline version 4): a candidate list names the area of highest evidence
+    # (area_evidence), never an excluded one; the evidence it read is returned beside the name.
     from sourcelab.trust import naming
     from sourcelab.trust.cortex import cortex_space
 
@@ -71,14 +71,50 @@ def test_naming_switch_off_names_the_peak_area_and_on_names_the_evidence(rng, mo
     s = int(rng.choice(np.flatnonzero(sp.codes > 0)))
     v = (sp.op.kernel @ sp.gain[:, s]) ** 2
     p = int(np.argmax(v))
-    assert naming.EVIDENCE_NAMING is False
-    assert naming.candidate_area_code(v, sp, p) == sp.codes[p]
-    monkeypatch.setattr(naming, "EVIDENCE_NAMING", True)
     ev = naming.area_evidence(v, sp, p)
     first = int(ev.order()[0])
-    assert naming.candidate_area_code(v, sp, p) == first
-    other = naming.candidate_area_code(v, sp, p, exclude=[first])
+    code, used = naming.candidate_naming(v, sp, p, kind="power")
+    assert code == first == naming.candidate_area_code(v, sp, p, kind="power")
+    np.testing.assert_array_equal(used.area_score, ev.area_score)
+    other = naming.candidate_area_code(v, sp, p, exclude=[first], kind="power")
     assert other != first and other == ev.order([first])[0]
+
+
+def test_patch_gain_sums_the_gain_of_the_sources_within_the_radius(rng):
+    # Definition (brute force): column s of the patch gain is the sum of the gain columns of
+    # every source within the radius of s in the same hemisphere, s itself included.
+    from sourcelab.trust.cortex import cortex_space
+    from sourcelab.trust.naming import patch_gain
+
+    sp = cortex_space()
+    gp = patch_gain(sp, 12.0)
+    right = sp.vertices >= 10242
+    for s in rng.choice(sp.n_src, 5, replace=False):
+        d = np.linalg.norm(sp.mesh.pos_mm - sp.mesh.pos_mm[s], axis=1)
+        members = np.flatnonzero((d <= 12.0) & (right == right[s]))
+        assert s in members and members.size > 1
+        np.testing.assert_allclose(gp[:, s], sp.gain[:, members].sum(axis=1), rtol=1e-10)
+    with pytest.raises(InputError, match="radius"):
+        patch_gain(sp, 0.0)
+
+
+def test_z_maps_are_named_with_patch_templates(rng):
+    # The candidate lists' rule (naming.PATCH_MM): excess z-maps use patch templates, power maps
+    # point templates; an unknown kind is refused.
+    from sourcelab.trust import naming
+    from sourcelab.trust.cortex import cortex_space
+
+    sp = cortex_space()
+    s = int(rng.choice(np.flatnonzero(sp.codes > 0)))
+    v = (sp.op.kernel @ naming.patch_gain(sp, naming.ZMAP_PATCH_MM)[:, s]) ** 2
+    p = int(np.argmax(v))
+    code, ev = naming.candidate_naming(v, sp, p, kind="z")
+    want = naming.area_evidence(v, sp, p, patch_mm=naming.ZMAP_PATCH_MM)
+    np.testing.assert_array_equal(ev.area_score, want.area_score)
+    _, evp = naming.candidate_naming(v, sp, p, kind="power")
+    np.testing.assert_array_equal(evp.area_score, naming.area_evidence(v, sp, p).area_score)
+    with pytest.raises(InputError, match="kind"):
+        naming.candidate_naming(v, sp, p, kind="amplitude")
 
 
 @pytest.mark.slow

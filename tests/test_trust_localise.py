@@ -15,6 +15,7 @@ from sourcelab.trust.localise import (
     peak_table,
     rank_areas,
     rank_areas_by_mean,
+    signed_border_distance,
 )
 
 
@@ -47,6 +48,18 @@ def test_local_maxima_clusters_and_borders_known_answer():
     np.testing.assert_array_equal(rank_areas(v, lab, 2), [1, 2])
     np.testing.assert_array_equal(rank_areas(v, lab, 2, exclude=[1]), [2])
     assert peak_margin(v, lab, 1, v[2]) == pytest.approx(1 - v[7] / v[2])
+
+
+def test_signed_border_distance_known_answer():
+    # Constructed mesh with exact answers (1 mm grid): inside an area the distance to its own
+    # border, outside minus the mesh distance to the area's nearest source.
+    faces, pos = _strip(10)
+    mesh = cortical_mesh(faces, pos)
+    lab = np.where(pos[:, 0] < 5, 1, 2)
+    d = border_distance(lab, mesh)
+    assert signed_border_distance(lab, mesh, d, 1, 1) == pytest.approx(3.0)
+    assert signed_border_distance(lab, mesh, d, 8, 1) == pytest.approx(-4.0)  # x = 8 -> x = 4
+    assert signed_border_distance(lab, mesh, d, 2, 2) == pytest.approx(-3.0)
 
 
 def test_peak_and_mean_rankings_differ_as_designed():

@@ -58,7 +58,7 @@ COLUMN_LABELS = {
     "y_mni152": "MNI y",
     "z_mni152": "MNI z",
     "mni": "MNI x, y, z (mm)",
-    "border_mm": "to area border (mm)",
+    "border_mm": "to named area's border (mm; < 0 outside)",
     "cluster_size": "sources above threshold",
     "cluster_areas": "areas the cluster spans",
     "own_share": "own share",

@@ -301,7 +301,8 @@ def report_summary(result, *, when: str | None = None, n_top: int = N_TOP) -> Su
         if peak:
             note = (
                 "Candidates are peaks of the per-source z map, named after the Brodmann "
-                "area holding the peak, absolute power first. How sure: 'probability in "
+                "area whose predicted maps best explain the map around the peak (not always "
+                "the area holding the peak), absolute power first. How sure: 'probability in "
                 "area' is the calibrated chance that the generator lies in the named area "
                 "under a simulated head (a real head can differ more). How blurred: 'own "
                 "share' is the part of the area's estimated power that comes from the area "

@@ -18,18 +18,17 @@ Simulation model (all invented; :mod:`sourcelab.simulate.mismatch` for the true 
 * **focal deviations**: a coherent patch of radius 10-15 mm around a random cortical source
   added to a new person; z-scored per source against a simulated cohort's per-source norms.
 
-Probability model.  The area named for a map is the first of :func:`localise.rank_areas`
-(the area holding the highest value, areas not resolvable from 19 electrodes left out).  The
-probability that the generator lies in it is a logistic model
-
-    logit P = c0 + c1 · log1p(border_mm) + c2 · margin + c3 · log(n_sources) + c4 · logit(own)
-
-of four features of the named area: distance along the mesh from its maximum to its border,
-the margin by which its maximum beats every other source (:func:`localise.peak_margin`), its
-size, and its leakage own-share.  One coefficient set per map kind (``"power"`` for maps
-without norms, ``"z"`` for per-source |z| maps), fitted by maximum likelihood on simulations
-and checked on held-out simulations (other electrode jitters, sources and noise).  The
-probability is calibrated *under this simulation model*; a real head can differ more.
+Probability model (:mod:`sourcelab.trust.probability`).  The area named for a map is the area
+of highest evidence around its maximum (:func:`sourcelab.trust.naming.candidate_naming`, areas
+not resolvable from 19 electrodes left out), as candidate lists name it.  The probability that
+the generator lies in it is a logistic model of five features (:data:`~sourcelab.trust.
+probability.FEATURES`): the peak's signed distance to the named area's border, the margin of
+the area's maximum, its size, its leakage own-share and its share of the evidence.  One
+coefficient set per map kind (``"power"`` for point-source power maps without norms, ``"z"`` for
+the excess z-maps ``max(z, 0)`` of focal deviations), fitted by maximum likelihood on
+simulations of mismatch seed 0 (jitter realisations 1-8) and checked on other seeds (other
+electrode jitters, sources and noise; ``tests/test_trust_localise.py``).  The probability is
+calibrated *under this simulation model*; a real head can differ more.
 
 References
 ----------
@@ -52,7 +51,7 @@ from pathlib import Path
 import numpy as np
 
 from ..spectra import average_reference_projector
-from ..trust.probability import FEATURES, area_features, named_area
+from ..trust.probability import FEATURES, area_features
 
 #: Between-person SD of the global background scale, natural-log units (≈ 0.2 log10).
 #: Adult between-person SD of log10 absolute band power is about 0.2-0.3 (from memory; cf.
@@ -477,22 +476,26 @@ def point_source_set(setup: SimSetup, n: int, rng: np.random.Generator, *, snr_r
     Returns
     -------
     dict
-        ``x`` (n, 4) features, ``hit`` (n,) named area is the true one, ``true``, ``named``,
+        ``x`` (n, 5) features, ``hit`` (n,) named area is the true one, ``true``, ``named``,
         ``sources``.
     """
     sp = setup.space
     src = rng.integers(0, sp.n_src, n)
     snr = np.exp(rng.uniform(np.log(snr_range[0]), np.log(snr_range[1]), n))
     maps, _ = point_source_maps(setup, src, rng=rng, snr=snr)
-    return _score_maps(setup, maps, sp.codes[src], src)
+    return _score_maps(setup, maps, sp.codes[src], src, "power")
 
 
-def _score_maps(setup, maps, true, src):
+def _score_maps(setup, maps, true, src, kind):
+    from ..trust.naming import candidate_naming
+
+    excl = tuple(int(c) for c in setup.exclude)
     x, named = [], []
     for v in maps:
-        a = named_area(v, setup.space, setup.exclude)
+        peak = int(np.argmax(v))
+        a, ev = candidate_naming(v, setup.space, peak, exclude=excl, kind=kind)
         named.append(a)
-        x.append(area_features(v, setup.space, a, setup.own))
+        x.append(area_features(v, setup.space, a, setup.own, peak=peak, evidence=ev))
     named = np.asarray(named)
     return {
         "x": np.asarray(x),
@@ -535,7 +538,8 @@ def deviation_set(
     Returns
     -------
     dict
-        As :func:`point_source_set`, plus ``z`` is not kept (memory); ``peak_z``.
+        As :func:`point_source_set` (features of the excess maps ``max(z, 0)``), plus
+        ``peak_z``, the highest excess z of each map (the maps themselves are not kept).
     """
     from ..norms.source_norms import fit_source_models
     from ..norms.predictive import predictive_t
@@ -557,12 +561,9 @@ def deviation_set(
         x0 = np.array([1.0, np.log10(ages_d[i])])
         h = float(x0 @ xtx @ x0) * n_controls / n_kept
         mean = x0 @ coef
-        zs.append(
-            np.abs(
-                predictive_t(np.log10(dev[i]), mean, sd, n=n_kept, degree=1, h0=h)["z_equivalent"]
-            )
-        )
-    out = _score_maps(setup, np.asarray(zs), sp.codes[centres], centres)
+        z = predictive_t(np.log10(dev[i]), mean, sd, n=n_kept, degree=1, h0=h)["z_equivalent"]
+        zs.append(np.clip(z, 0.0, None))  # the excess map a candidate list names
+    out = _score_maps(setup, np.asarray(zs), sp.codes[centres], centres, "z")
     out["peak_z"] = np.array([z.max() for z in zs])
     return out
 
@@ -606,8 +607,9 @@ def fit_model(
     return {
         "format": "sourcelab-localisation-probability 1",
         "description": "logistic model of P(generator in the named area) from features of the "
-        "named area; fitted on simulations under model mismatch (3-shell sphere "
-        "true head, 10 mm RMS tangential electrode jitter, noise); see "
+        "named area (the area of highest evidence around the map's peak, "
+        "sourcelab.trust.naming.candidate_naming); fitted on simulations under model mismatch "
+        "(3-shell sphere true head, 10 mm RMS tangential electrode jitter, noise); see "
         "sourcelab/trust/probability.py and sourcelab/simulate/localisation.py",
         "features": list(FEATURES),
         "coefficients": coefs,
@@ -619,6 +621,8 @@ def fit_model(
             "n_deviation": n_dev,
             "hit_rate_point": float(pts["hit"].mean()),
             "hit_rate_deviation": float(dev["hit"].mean()),
+            "naming": "sourcelab.trust.naming.candidate_naming (power: point templates, "
+            "z: patch templates)",
             "lambda2": space.op.lambda2,
             "n_src": int(space.n_src),
             "seconds": round(time.perf_counter() - t0, 1),

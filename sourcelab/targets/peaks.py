@@ -2,8 +2,11 @@
 
 For every band and measure, the per-source z-map (against per-source norms) is searched for local
 maxima of ``z`` (excess) and of ``-z`` (deficit) beyond the deviation threshold on the cortical
-mesh (:mod:`sourcelab.trust.localise`).  Each peak names the Brodmann area that contains it;
-one candidate per (measure, band, direction, area) keeps the strongest peak.  Order:
+mesh (:mod:`sourcelab.trust.localise`).  Each peak names the Brodmann area of highest
+template-match evidence around it (:func:`sourcelab.trust.naming.candidate_naming`; under
+model mismatch more often the true area than the area that contains the peak), and reports its
+signed distance to that area's border (negative when the peak lies outside the named area); one
+candidate per (measure, band, direction, area) keeps the strongest peak.  Order:
 
 1. **absolute-power** candidates, by |peak z|;
 2. then **relative-power** candidates, by |peak z|, labelled ``supporting``: relative power is
@@ -13,9 +16,9 @@ one candidate per (measure, band, direction, area) keeps the strongest peak.  Or
 Areas not resolvable from 19 scalp electrodes (:mod:`sourcelab.trust.resolvability`) are left
 out unless ``include_unresolvable``.  Each candidate carries the area's leakage own-share and the
 calibrated probability that the generator lies in the named area
-(:func:`sourcelab.simulate.localisation.area_probability`; calibrated for the first-named area of a
-map under the simulation model, see that module).  Statistical deviation only: whether an area
-is worth training is for a practitioner to decide.
+(:func:`sourcelab.trust.probability.area_probability`; calibrated for the area named at a map's
+highest peak under the simulation model of :mod:`sourcelab.simulate.localisation`).
+Statistical deviation only: whether an area is worth training is for a practitioner to decide.
 """
 
 from __future__ import annotations
@@ -98,8 +101,8 @@ def peak_candidates(
 
     from ..headmodel.geometry import mni305_to_mni152
     from ..trust.probability import area_probability
-    from ..trust.localise import clusters, local_maxima
-    from ..trust.naming import candidate_area_code
+    from ..trust.localise import clusters, local_maxima, signed_border_distance
+    from ..trust.naming import candidate_naming
 
     excl = set(int(c) for c in exclude)
     rows = []
@@ -113,9 +116,9 @@ def peak_candidates(
             cl = clusters(v, space.mesh, threshold)
             seen = set()
             for s in peaks:
-                code = candidate_area_code(
-                    v, space, s, exclude=() if include_unresolvable else excl
-                )
+                # every area may be named: a peak whose best area is not resolvable is left
+                # out (below), not renamed after a resolvable neighbour
+                code, evidence = candidate_naming(v, space, s, kind="z")
                 if code == 0 or code in seen:
                     continue
                 seen.add(code)
@@ -140,12 +143,24 @@ def peak_candidates(
                         x_mni152=round(float(xyz[0]), 1),
                         y_mni152=round(float(xyz[1]), 1),
                         z_mni152=round(float(xyz[2]), 1),
-                        border_mm=round(float(space.border_mm[s]), 1),
+                        border_mm=round(
+                            signed_border_distance(
+                                space.codes, space.mesh, space.border_mm, s, code
+                            ),
+                            1,
+                        ),
                         cluster_size=int(members.size),
                         cluster_areas=spans,
                         own_share=float(own[code]),
                         probability=area_probability(
-                            v, space, code, own, kind="z", model=probability_model
+                            v,
+                            space,
+                            code,
+                            own,
+                            kind="z",
+                            model=probability_model,
+                            peak=s,
+                            evidence=evidence,
                         ),
                         resolvable=resolvable,
                         source=int(s),

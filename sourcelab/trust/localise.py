@@ -218,6 +218,48 @@ def border_distance(labels: np.ndarray, mesh: CorticalMesh) -> np.ndarray:
     return dijkstra(mesh.graph, directed=False, indices=np.flatnonzero(border), min_only=True)
 
 
+def signed_border_distance(
+    labels: np.ndarray, mesh: CorticalMesh, border_mm: np.ndarray, source: int, area: int
+) -> float:
+    """Signed distance (mm) from ``source`` to the border of ``area``, along the mesh.
+
+    Inside the area: its :func:`border_distance` (>= 0).  Outside: minus the mesh distance to
+    the nearest source of the area (minus the straight-line distance when no mesh path
+    of at most 100 mm reaches it).
+
+    Parameters
+    ----------
+    labels : ndarray of int, shape (n_src,)
+        Area code per source.
+    mesh : CorticalMesh
+        Edge lengths in mm.
+    border_mm : ndarray, shape (n_src,)
+        :func:`border_distance` of ``labels``.
+    source : int
+        Source index (e.g. a peak).
+    area : int
+        Area code (e.g. the area named for the peak; must have sources).
+
+    Returns
+    -------
+    d : float
+        mm; positive inside the area, negative outside.
+    """
+    from scipy.sparse.csgraph import dijkstra
+
+    lab = np.asarray(labels)
+    source = int(source)
+    if lab[source] == area:
+        return float(border_mm[source])
+    members = np.flatnonzero(lab == area)
+    if members.size == 0:
+        raise InputError(f"area code {area} has no sources")
+    d = dijkstra(mesh.graph, directed=False, indices=source, limit=100.0)[members].min()
+    if not np.isfinite(d):
+        d = np.linalg.norm(mesh.pos_mm[members] - mesh.pos_mm[source], axis=1).min()
+    return -float(d)
+
+
 def area_maxima(
     values: np.ndarray, labels: np.ndarray, n_areas: int
 ) -> tuple[np.ndarray, np.ndarray]:

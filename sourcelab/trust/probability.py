@@ -1,19 +1,23 @@
 """The calibrated probability that a deviation's generator lies in the area it is named after.
 
-The area named for a map is the first of :func:`~sourcelab.trust.localise.rank_areas` (the area
-holding the highest value; areas not resolvable from 19 electrodes left out).  The probability
-that the generator lies in it is a logistic model
+The area named for a map is the area of highest evidence around the map's peak
+(:func:`~sourcelab.trust.naming.candidate_naming`; areas not resolvable from 19 electrodes left
+out).  The probability that the generator lies in it is a logistic model
 
-    logit P = c0 + c1 · log1p(border_mm) + c2 · margin + c3 · log(n_sources) + c4 · logit(own)
+    logit P = c0 + c1 · sign(b) log1p(|b|) + c2 · margin + c3 · log(n_sources)
+              + c4 · logit(own) + c5 · logit(posterior)
 
-of four features of the named area: distance along the mesh from its maximum to its border, the
-margin by which its maximum beats every other source (:func:`~sourcelab.trust.localise.
-peak_margin`), its size, and its leakage own-share.  One coefficient set per map kind
-(``"power"`` for maps without norms, ``"z"`` for per-source |z| maps), fitted by maximum
-likelihood on simulations under model mismatch (:mod:`sourcelab.simulate.localisation`, which
-also refits and checks it) and shipped in ``sourcelab/data/localisation_probability.json``.  The
-probability is calibrated *under that simulation model* (an independent spherical true head,
-10 mm electrode jitter, noise); a real head can differ more.
+of five features of the named area: the peak's signed distance ``b`` (mm) along the mesh to its
+border (the candidate table's ``border_mm``; negative when the peak lies outside it),
+the margin by which its maximum beats every other source (:func:`~sourcelab.trust.localise.
+peak_margin`; 0 when another area holds the peak), its size, its leakage own-share, and its
+share of the (tempered, uncalibrated) area evidence (:meth:`~sourcelab.trust.naming.
+MatchResult.posterior`).  One coefficient set per map kind (``"power"`` for maps without norms,
+``"z"`` for per-source excess |z| maps), fitted by maximum likelihood on simulations under model
+mismatch (:mod:`sourcelab.simulate.localisation`, which also refits and checks it) and shipped
+in ``sourcelab/data/localisation_probability.json``.  The probability is calibrated *under that
+simulation model* (an independent spherical true head, 10 mm electrode jitter, noise); a real
+head can differ more.
 
 References
 ----------
@@ -31,7 +35,13 @@ import numpy as np
 from ..checks import check_option
 from ..errors import InputError
 
-FEATURES = ("log1p_border_mm", "margin", "log_n_sources", "logit_own_share")
+FEATURES = (
+    "signed_log1p_border_mm",
+    "margin",
+    "log_n_sources",
+    "logit_own_share",
+    "logit_posterior",
+)
 MODEL_FILE = "localisation_probability.json"
 
 
@@ -51,61 +61,95 @@ def shipped_model() -> dict:
     return json.loads(shipped_bytes(MODEL_FILE)[0].decode("utf-8"))
 
 
-def named_area(values: np.ndarray, space, exclude=None) -> int:
-    """Code of the first area of :func:`~sourcelab.trust.localise.rank_areas`.
+def named_area(values: np.ndarray, space, exclude=None, *, kind: str = "z") -> int:
+    """Code of the area named for a map: highest evidence around its global peak.
 
     Parameters
     ----------
     values : ndarray, shape (n_src,)
-        Map over ``space``'s sources (``|z|`` or power).
+        Non-negative map over ``space``'s sources (excess ``|z|`` or power).
     space : CortexSpace
-        Supplies the area code per source and the number of areas.
+        Supplies the kernel, gain, mesh and area codes.
     exclude : array of int, optional
         Area codes left out (e.g. not resolvable from 19 electrodes).
+    kind : {"z", "power"}
+        Map kind (its templates: :data:`~sourcelab.trust.naming.PATCH_MM`).
 
     Returns
     -------
     code : int
-        Area code holding the highest value; 0 when no area is left.
+        :func:`~sourcelab.trust.naming.candidate_area_code` at the map's maximum.
     """
-    from .localise import rank_areas
+    from .naming import candidate_area_code
 
-    order = rank_areas(values, space.codes, space.n_areas, exclude=exclude)
-    return int(order[0]) if order.size else 0
+    excl = () if exclude is None else tuple(int(c) for c in exclude)
+    return candidate_area_code(values, space, int(np.argmax(values)), exclude=excl, kind=kind)
 
 
-def area_features(values: np.ndarray, space, area: int, own: np.ndarray) -> np.ndarray:
-    """The model's features (:data:`FEATURES`) for ``area`` of a non-negative map.
+def area_features(
+    values: np.ndarray,
+    space,
+    area: int,
+    own: np.ndarray,
+    *,
+    kind: str = "z",
+    peak: int | None = None,
+    evidence=None,
+) -> np.ndarray:
+    """The model's features (:data:`FEATURES`) for ``area`` named at ``peak`` of a map.
 
     Parameters
     ----------
     values : ndarray, shape (n_src,)
-        Non-negative map over ``space``'s sources (``|z|`` or power).
+        Non-negative map over ``space``'s sources (excess ``|z|`` or power).
     space : CortexSpace
-        Supplies area codes and each source's distance to its area's border, mm.
+        Supplies area codes, the mesh and each source's distance to its area's border, mm.
     area : int
         Area code (must have sources).
     own : ndarray, shape (n_codes,)
         Leakage own-share per area code, 0..1 (clipped to [1e-4, 1 - 1e-4]).
+    kind : {"z", "power"}
+        Map kind (the templates of the evidence computed when ``evidence`` is not given).
+    peak : int, optional
+        Source of the peak the area was named for (default the map's maximum).
+    evidence : MatchResult, optional
+        :func:`~sourcelab.trust.naming.area_evidence` at ``peak`` (computed when not given).
 
     Returns
     -------
-    ndarray, shape (4,)
-        ``log1p`` of the border distance (mm) at the area's maximum, the peak margin
+    ndarray, shape (5,)
+        In the order of :data:`FEATURES`: ``sign(d) log1p(|d|)`` of the peak's signed distance
+        ``d`` to the named area's border (mm, :func:`~sourcelab.trust.localise.
+        signed_border_distance`), the peak margin of the area's maximum
         (:func:`~sourcelab.trust.localise.peak_margin`), log of the area's number of sources,
-        logit of its own-share (the order of :data:`FEATURES`).
+        logit of its own-share, logit of its evidence share (clipped to [1e-4, 1 - 1e-4]).
     """
-    from .localise import peak_margin
+    from .localise import peak_margin, signed_border_distance
+    from .naming import PATCH_MM, area_evidence
 
     v = np.asarray(values, dtype=float)
     sel = np.flatnonzero(space.codes == area)
     if sel.size == 0:
         raise InputError(f"area code {area} has no sources")
+    peak = int(np.argmax(v)) if peak is None else int(peak)
+    if evidence is None:
+        evidence = area_evidence(v, space, peak, patch_mm=PATCH_MM[kind])
     best = sel[np.argmax(v[sel])]
     margin = peak_margin(v, space.codes, area, float(v[best]))
-    o = float(np.clip(own[area], 1e-4, 1 - 1e-4))
+    d = signed_border_distance(space.codes, space.mesh, space.border_mm, peak, area)
+
+    def logit(x):
+        x = float(np.clip(x, 1e-4, 1 - 1e-4))
+        return np.log(x / (1 - x))
+
     return np.array(
-        [np.log1p(float(space.border_mm[best])), margin, np.log(sel.size), np.log(o / (1 - o))]
+        [
+            np.sign(d) * np.log1p(abs(d)),
+            margin,
+            np.log(sel.size),
+            logit(own[area]),
+            logit(evidence.posterior()[area]),
+        ]
     )
 
 
@@ -129,7 +173,15 @@ def predict_logistic(coef: np.ndarray, x: np.ndarray) -> np.ndarray:
 
 
 def area_probability(
-    values: np.ndarray, space, area: int, own: np.ndarray, *, kind: str, model: dict | None = None
+    values: np.ndarray,
+    space,
+    area: int,
+    own: np.ndarray,
+    *,
+    kind: str,
+    model: dict | None = None,
+    peak: int | None = None,
+    evidence=None,
 ) -> float:
     """Calibrated probability that the generator lies in ``area`` (the named area).
 
@@ -140,12 +192,14 @@ def area_probability(
     space : CortexSpace
         Supplies area codes and border distances (mm).
     area : int
-        Area code named for the map (first of the peak ranking).
+        Area code named for the map (:func:`named_area`, or the candidate list's name).
     own : ndarray
         Own-share per area code.
     kind : {"power", "z"}
     model : dict, optional
         Default :func:`shipped_model`.
+    peak, evidence
+        Of :func:`area_features` (default: the map's maximum and its evidence).
 
     Returns
     -------
@@ -156,9 +210,15 @@ def area_probability(
     Raises
     ------
     sourcelab.errors.InputError
-        When ``kind`` has no coefficients in ``model`` or ``area`` has no sources.
+        When ``kind`` has no coefficients in ``model``, their number does not match
+        :data:`FEATURES`, or ``area`` has no sources.
     """
     model = model or shipped_model()
     check_option("kind", kind, sorted(model["coefficients"]))
     coef = np.asarray(model["coefficients"][kind], dtype=float)
-    return float(predict_logistic(coef, area_features(values, space, area, own))[0])
+    x = area_features(values, space, area, own, kind=kind, peak=peak, evidence=evidence)
+    if coef.size != x.size + 1:
+        raise InputError(
+            f"localisation probability model: {coef.size} coefficients for {x.size} features"
+        )
+    return float(predict_logistic(coef, x)[0])
