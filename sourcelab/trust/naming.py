@@ -249,16 +249,32 @@ def candidate_correlations(
     right = space.vertices >= 10_242
     d = np.linalg.norm(pos - pos[peak], axis=1)
     cand = np.flatnonzero((d <= cand_mm) & (right == right[peak]))
-    rows = slice(0, None, int(row_step))
     gain = space.gain if patch_mm is None else patch_gain(space, float(patch_mm))
-    t = np.abs(space.op.kernel[rows] @ gain[:, cand]) ** (2.0 * power)
-    t -= t.mean(axis=0)
-    t /= np.linalg.norm(t, axis=0) + 1e-300
-    x = np.abs(v[rows]) ** power
+    g = gain[:, cand]
+    a, gram = _row_kernel(space, int(row_step))
+    x = np.abs(v[:: int(row_step)]) ** power
     x = x - x.mean()
     nx = np.linalg.norm(x)
-    corr = t.T @ (x / nx) if nx > 0 else np.zeros(cand.size)
-    return cand, corr
+    if nx == 0:
+        return cand, np.zeros(cand.size)
+    t = a @ g
+    np.abs(t, out=t)
+    if 2.0 * power == 1.0:
+        # |K g| squared sums to g' (K'K) g: the column norms without a second pass over t
+        sq = np.einsum("ij,ij->j", g, gram @ g)
+    else:
+        t **= 2.0 * power
+        sq = np.einsum("ij,ij->j", t, t)
+    total = t.sum(axis=0)
+    spread = np.sqrt(np.maximum(sq - total * total / t.shape[0], 0.0)) + 1e-300
+    return cand, (x / nx) @ t / spread
+
+
+@functools.lru_cache(maxsize=4)
+def _row_kernel(space, row_step: int) -> tuple[np.ndarray, np.ndarray]:
+    """Every ``row_step``-th operator row, contiguous, and its Gram matrix (cached per space)."""
+    a = np.ascontiguousarray(space.op.kernel[::row_step])
+    return a, a.T @ a
 
 
 @functools.lru_cache(maxsize=4)
