@@ -115,10 +115,11 @@ def peak_candidates(
                 continue
             cl = clusters(v, space.mesh, threshold)
             seen = set()
+            memo = np.full(space.n_src, np.nan)  # template correlations shared by v's peaks
             for s in peaks:
                 # every area may be named: a peak whose best area is not resolvable is left
                 # out (below), not renamed after a resolvable neighbour
-                code, evidence = candidate_naming(v, space, s, kind="z")
+                code, evidence = candidate_naming(v, space, s, kind="z", memo=memo)
                 if code == 0 or code in seen:
                     continue
                 seen.add(code)

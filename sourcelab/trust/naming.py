@@ -213,6 +213,7 @@ def candidate_correlations(
     row_step: int = ROW_STEP,
     power: float = POWER,
     patch_mm: float | None = None,
+    memo: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Candidates within ``cand_mm`` of ``peak`` (same hemisphere) and their correlations.
 
@@ -228,6 +229,9 @@ def candidate_correlations(
     patch_mm : float or None
         Template of candidate ``s``: a coherent patch of this radius around it
         (:func:`patch_gain`); None: the single source.
+    memo : ndarray, shape (n_src,), optional
+        Correlations already computed for these ``values`` and options (NaN: not yet), read
+        and filled in place: peaks of one map share their candidates' correlations.
 
     Returns
     -------
@@ -250,13 +254,22 @@ def candidate_correlations(
     d = np.linalg.norm(pos - pos[peak], axis=1)
     cand = np.flatnonzero((d <= cand_mm) & (right == right[peak]))
     gain = space.gain if patch_mm is None else patch_gain(space, float(patch_mm))
-    g = gain[:, cand]
-    a, gram = _row_kernel(space, int(row_step))
-    x = np.abs(v[:: int(row_step)]) ** power
+    todo = cand if memo is None else cand[np.isnan(memo[cand])]
+    corr = _template_correlations(v, space, gain[:, todo], int(row_step), power)
+    if memo is None:
+        return cand, corr
+    memo[todo] = corr
+    return cand, memo[cand]
+
+
+def _template_correlations(v, space, g, row_step: int, power: float) -> np.ndarray:
+    """Correlation of ``|v| ** power`` with the template maps ``|K g| ** (2 power)``."""
+    a, gram = _row_kernel(space, row_step)
+    x = np.abs(v[::row_step]) ** power
     x = x - x.mean()
     nx = np.linalg.norm(x)
     if nx == 0:
-        return cand, np.zeros(cand.size)
+        return np.zeros(g.shape[1])
     t = a @ g
     np.abs(t, out=t)
     if 2.0 * power == 1.0:
@@ -267,7 +280,7 @@ def candidate_correlations(
         sq = np.einsum("ij,ij->j", t, t)
     total = t.sum(axis=0)
     spread = np.sqrt(np.maximum(sq - total * total / t.shape[0], 0.0)) + 1e-300
-    return cand, (x / nx) @ t / spread
+    return (x / nx) @ t / spread
 
 
 @functools.lru_cache(maxsize=4)
@@ -388,7 +401,7 @@ def area_evidence(values: np.ndarray, space, peak: int, **options) -> MatchResul
     **options
         ``beta``, ``radius_mm`` and ``sigma_mm`` of :func:`evidence_from_corr` (defaults
         :data:`EVIDENCE_BETA`, :data:`EVIDENCE_MM`, :data:`EVIDENCE_SIGMA_MM`); ``row_step``,
-        ``power`` and ``patch_mm`` of :func:`candidate_correlations` (defaults
+        ``power``, ``patch_mm`` and ``memo`` of :func:`candidate_correlations` (defaults
         :data:`ROW_STEP`, :data:`POWER`, point templates).
 
     Returns
@@ -428,7 +441,7 @@ def name_area(values: np.ndarray, space, peak: int, *, exclude=None, **kw) -> in
 
 @fill_doc
 def candidate_naming(
-    values: np.ndarray, space, peak: int, *, exclude=(), kind: str = "z"
+    values: np.ndarray, space, peak: int, *, exclude=(), kind: str = "z", memo=None
 ) -> tuple[int, MatchResult | None]:
     """Area code a candidate list names for ``peak``, with the evidence behind it.
 
@@ -444,6 +457,8 @@ def candidate_naming(
     kind : {"z", "power"}
         Map kind: excess z-maps (patch templates; what candidate lists name) or power maps
         without norms (point templates).
+    memo : ndarray, shape (n_src,), optional
+        Shared by the peaks of one map and ``kind`` (:func:`candidate_correlations`).
 
     Returns
     -------
@@ -453,7 +468,7 @@ def candidate_naming(
         The area evidence the name was read from (None in the fallback).
     """
     check_option("kind", kind, sorted(PATCH_MM))
-    ev = area_evidence(values, space, peak, patch_mm=PATCH_MM[kind])
+    ev = area_evidence(values, space, peak, patch_mm=PATCH_MM[kind], memo=memo)
     o = ev.order(np.asarray(tuple(exclude), dtype=np.int64))
     if not o.size:
         return int(space.codes[int(peak)]), None
