@@ -102,7 +102,7 @@ class SimSetup:
 
     @functools.cached_property
     def hemi(self) -> np.ndarray:
-        return self.space.vertices >= 10242
+        return self.space.right
 
 
 def make_setup(

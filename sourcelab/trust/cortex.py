@@ -21,6 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .._docs import fill_doc
+from ..headmodel.model import N_PER_HEMI
 
 
 def area_codes(
@@ -91,6 +92,11 @@ class CortexSpace:
     @property
     def n_src(self) -> int:
         return self.vertices.size
+
+    @property
+    def right(self) -> np.ndarray:
+        """Whether each source lies in the right hemisphere, shape (n_src,) bool."""
+        return self.vertices >= N_PER_HEMI
 
     @property
     def sources(self) -> np.ndarray:
@@ -169,7 +175,7 @@ def build_space(model, *, lambda2: float = 1 / 9) -> CortexSpace:
     # every labelled area, including those lying wholly on the medial wall (no source): they
     # have codes without sources, so the rules that flag them can see them
     numbers = np.unique(ba[ba > 0]).astype(np.int64)
-    codes = area_codes(ba, vertices, 10_242, numbers)
+    codes = area_codes(ba, vertices, N_PER_HEMI, numbers)
     lobe_of = {a: lobe for lobe, areas in groupings()["lobes"]["groups"].items() for a in areas}
     names = ("(none)",) + tuple(f"BA{a}" for a in numbers) * 2
     hemis = ("n/a",) + ("left",) * len(numbers) + ("right",) * len(numbers)
@@ -232,5 +238,5 @@ def template_area_counts(space: CortexSpace) -> np.ndarray:
     numbers = [int(n[2:]) for n in space.names[1 : len(space.names) // 2 + 1]]
     all_vertices = np.arange(ba.size)
     return np.bincount(
-        area_codes(ba, all_vertices, 10_242, np.array(numbers)), minlength=len(space.names)
+        area_codes(ba, all_vertices, N_PER_HEMI, np.array(numbers)), minlength=len(space.names)
     )

@@ -250,7 +250,7 @@ def candidate_correlations(
     if row_step < 1 or cand_mm <= 0 or power <= 0:
         raise InputError("row_step must be >= 1, cand_mm and power > 0")
     pos = space.mesh.pos_mm
-    right = space.vertices >= 10_242
+    right = space.right
     d = np.linalg.norm(pos - pos[peak], axis=1)
     cand = np.flatnonzero((d <= cand_mm) & (right == right[peak]))
     gain = space.gain if patch_mm is None else patch_gain(space, float(patch_mm))
@@ -317,7 +317,7 @@ def patch_gain(space, radius_mm: float) -> np.ndarray:
     if not radius_mm > 0:
         raise InputError(f"patch radius must be > 0 mm, got {radius_mm}")
     pos = space.mesh.pos_mm
-    right = space.vertices >= 10_242
+    right = space.right
     pairs = cKDTree(pos).query_pairs(radius_mm, output_type="ndarray")
     pairs = pairs[right[pairs[:, 0]] == right[pairs[:, 1]]]
     diag = np.arange(space.n_src)
