@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ._threads import thread_limits
 from .config import AnalysisConfig, check_sampling_rate
 from .constants import UNITS
 from .errors import InputError
@@ -31,12 +32,6 @@ from .result import (
 
 log = logging.getLogger("sourcelab")
 
-#: BLAS/OpenMP threads while :func:`analyze` runs.  Its matrices are small (19 channels; the
-#: largest product, the relative-power bootstrap, is a few tens of GFLOP), and on a machine that
-#: is busy with other work, threads that wait for each other cost more than they gain: measured
-#: on 2 shared cores (load average 10-13), a 10-minute analysis took 4.5-4.8 s wall with one
-#: thread against 7.7-11 s with two, and one 19 x 18,715 product 1 ms against 1.6 s.
-BLAS_THREADS = 1
 #: Atlases reported by default.
 DEFAULT_ATLASES = ("brodmann", "lobes", "networks", "yeo7")
 #: Stages shown by the progress bar.
@@ -336,10 +331,8 @@ def analyze(
         nm = norms if not isinstance(norms, (str, Path)) else read_norms(norms)
         if age is None:
             raise InputError("the participant's age is needed with norms (z-scores depend on age)")
-    from threadpoolctl import threadpool_limits
-
     with (
-        threadpool_limits(BLAS_THREADS),
+        thread_limits(),  # every pool, BLAS and OpenMP (see constants.BLAS_THREADS)
         Stages(STAGES, desc="analysis", enabled=progress) as stages,
     ):
         stages.step("reading")

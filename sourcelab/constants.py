@@ -36,6 +36,14 @@ Z_THRESHOLD = 1.96
 #: False-discovery-rate level of the ``fdr`` flags (Benjamini & Hochberg 1995; common practice).
 FDR_ALPHA = 0.05
 
+#: BLAS/OpenMP threads while sourcelab computes (analysis, coupling, ICA, drawing, batch
+#: workers).  Its matrices are small (19 channels; the largest product, the relative-power
+#: bootstrap, is a few tens of GFLOP), and on a machine that is busy with other work, threads that
+#: wait for each other cost more than they gain: measured on 2 shared cores (load average 10-13),
+#: a 10-minute analysis took 4.5-4.8 s wall with one thread against 7.7-11 s with two, and one
+#: 19 x 18,715 product 1 ms against 1.6 s.  Used through :mod:`sourcelab._threads`.
+BLAS_THREADS = 1
+
 #: Inverse methods (``sourcelab.inverse.methods.METHODS`` implements exactly these).
 INVERSE_METHODS: tuple[str, ...] = ("sLORETA", "eLORETA", "dSPM")
 #: Source orientations: surface-normal, or free with Pascual-Marqui's 3x3 standardisation.

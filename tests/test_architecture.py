@@ -19,6 +19,7 @@ PKG = ROOT / "sourcelab"
 LAYERS = {
     "__init__": 0,
     "_docs": 0,
+    "_threads": 0,
     "constants": 0,
     "errors": 0,
     "checks": 0,

@@ -249,6 +249,40 @@ def test_process_pool_gives_identical_numbers(serial_run, tmp_path):
     )
 
 
+def _pools() -> dict:
+    from threadpoolctl import threadpool_info
+
+    return {(lib["user_api"], lib["filepath"]): lib["num_threads"] for lib in threadpool_info()}
+
+
+def test_thread_limits_set_the_pools_they_name_and_restore_them():
+    # The one home of the thread limit (sourcelab._threads): threadpoolctl's own report
+    # (threadpool_info) is the reference.  From a known start of two threads per pool: the
+    # default limits every pool to BLAS_THREADS, user_api="blas" only the BLAS pools (the
+    # coupling step's decorator), and leaving the block restores the start.
+    import scipy.linalg  # noqa: F401 - loads the OpenMP runtime beside BLAS, as the pipeline does
+    from threadpoolctl import threadpool_limits
+
+    from sourcelab._threads import limited_threads, thread_limits
+    from sourcelab.constants import BLAS_THREADS
+
+    with threadpool_limits(2):
+        start = _pools()
+        with thread_limits():
+            assert set(_pools().values()) == {BLAS_THREADS}
+
+        @limited_threads(user_api="blas")
+        def inside():
+            """Docstring kept."""
+            return _pools()
+
+        seen = inside()
+        assert inside.__name__ == "inside" and inside.__doc__ == "Docstring kept."
+        assert {n for (api, _), n in seen.items() if api == "blas"} == {BLAS_THREADS}
+        assert {n for (api, _), n in seen.items() if api != "blas"} <= {2}
+        assert _pools() == start
+
+
 def test_process_workers_start_with_one_blas_thread(monkeypatch):
     # Each worker must run one BLAS/OpenMP thread (workers == cores; oversubscribed threads slow
     # a batch down, common practice).  The libraries read their thread variables when they load,

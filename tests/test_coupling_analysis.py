@@ -80,14 +80,12 @@ def test_tables_equal_the_coupling_functions_on_the_clean_epochs(result, coupled
     from sourcelab.rois import load_atlas
     from sourcelab.spectra import epoch_fourier
 
-    from threadpoolctl import threadpool_limits
-
-    from sourcelab.analysis import BLAS_THREADS
+    from sourcelab._threads import thread_limits
 
     cfg = result.config
     # the same BLAS thread count as the analysis: float32 bootstrap sums round differently
     # with another one (interval ends then differ in the 7th digit)
-    with threadpool_limits(BLAS_THREADS):
+    with thread_limits():
         clean = clean_recording(
             read_recording(coupled_raw), cfg, muscle_uv=cfg.muscle_uv, blink_uv=cfg.blink_uv
         )

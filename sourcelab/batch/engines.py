@@ -28,6 +28,7 @@ import threading
 from collections.abc import Callable, Iterable, Iterator
 from typing import Any
 
+from .._threads import thread_limits
 from ..errors import InputError
 
 log = logging.getLogger("sourcelab")
@@ -119,10 +120,9 @@ def _init_worker(log_level: int = logging.ERROR) -> None:
     # the environment (see one_thread_environment) limits every library loaded later; this
     # limits the ones already loaded in case the user's environment asked for more
     try:
-        from threadpoolctl import threadpool_limits
+        thread_limits()  # kept in force (not a context): for the worker's lifetime
     except ImportError:  # pragma: no cover - optional
         return
-    threadpool_limits(1)
 
 
 class Engine:

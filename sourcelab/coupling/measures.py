@@ -70,6 +70,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .._docs import docdict, fill_doc
+from .._threads import limited_threads
 from ..errors import InputError
 
 # numpydoc fragments shared by the coupling modules (:func:`sourcelab._docs.fill_doc`)
@@ -91,23 +92,12 @@ measures : sequence of str
     Subset of :data:`sourcelab.coupling.measures.BAND_MEASURES`."""
 
 
-def one_blas_thread(fn):
-    """Run ``fn`` with BLAS on one thread (decorator).
-
-    The coupling step's matrix products are many and mid-sized (epochs x replicates x bins x
-    pairs, 300 epochs deep): a second BLAS thread barely shortens them, and on a busy machine its
-    spinning costs more CPU time than it saves (measured in ``benchmarks/bench_coupling.py``).
-    One thread gives the same numbers (each sum runs in the same order).
-    """
-
-    @functools.wraps(fn)
-    def limited(*args, **kwargs):
-        from threadpoolctl import threadpool_limits
-
-        with threadpool_limits(1, user_api="blas"):
-            return fn(*args, **kwargs)
-
-    return limited
+#: Decorator: run the function with BLAS (not OpenMP) on one thread.  The coupling step's matrix
+#: products are many and mid-sized (epochs x replicates x bins x pairs, 300 epochs deep): a
+#: second BLAS thread barely shortens them, and on a busy machine its spinning costs more CPU
+#: time than it saves (measured in ``benchmarks/bench_coupling.py``).  One thread gives the same
+#: numbers (each sum runs in the same order).
+one_blas_thread = limited_threads(user_api="blas")
 
 
 #: Per-epoch statistics kept by :class:`PairStatistics`.

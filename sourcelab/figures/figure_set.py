@@ -23,6 +23,7 @@ import logging
 import matplotlib.pyplot as plt
 import numpy as np
 
+from .._threads import thread_limits
 from ..checks import check_number, check_option
 from ..errors import InputError
 from . import brain, coupling, roi, sensor
@@ -469,9 +470,7 @@ def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
     BLAS thread pool each time, which costs ~0.4 CPU-s per map on a busy machine instead of
     ~0.1 ms.
     """
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(1):
+    with thread_limits():
         return _run_limited(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
 
 

@@ -8,6 +8,7 @@ import matplotlib.pyplot as plt
 import numpy as np
 from matplotlib.figure import Figure
 
+from .._threads import thread_limits
 from ..constants import SITES_1020
 from ..errors import InputError
 from ._shared import save_if_asked
@@ -88,9 +89,7 @@ def sensor_topomaps(
     fig : matplotlib.figure.Figure
         One axes per band (with the interpolated map as an image) and a colour bar.
     """
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(1):  # see figure_set._run: BLAS threads spin on 19-point transforms
+    with thread_limits():  # see figure_set._run: BLAS threads spin on 19-point transforms
         return _sensor_topomaps(
             values,
             band_names=band_names,

@@ -40,6 +40,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .._threads import thread_limits
 from ..checks import check_option
 from ..errors import InputError
 
@@ -306,7 +307,6 @@ def correct_ocular(
         )
     import mne
     from scipy.signal import butter, sosfiltfilt
-    from threadpoolctl import threadpool_limits
 
     step = max(1, len(idx) // (FIT_SAMPLES_PER_COMPONENT2 * n_comp**2))
     # the usable samples are taken row by row, never as a copy of every row at once (memory)
@@ -342,7 +342,7 @@ def correct_ocular(
     # against each other on a shared machine (measured: 4.4 s -> 0.9 s wall for 100 iterations)
     # the lock: warning filters are process-wide, so two threads (Dask's threaded workers) must
     # not interleave their catch_warnings blocks, or one restores "error" inside the other's fit
-    with _FIT_LOCK, warnings.catch_warnings(), threadpool_limits(1):
+    with _FIT_LOCK, warnings.catch_warnings(), thread_limits():
         warnings.simplefilter("ignore")  # convergence / high-pass advice: not for the user
         ica.fit(fit_raw, picks="eeg", verbose="error")
         flagged, scores = ica.find_bads_eog(

@@ -1,0 +1,62 @@
+"""One home for the BLAS/OpenMP thread limit (:data:`sourcelab.constants.BLAS_THREADS`).
+
+Every place that runs linear algebra under a thread limit (the analysis, the coupling step, the
+ocular ICA, figure drawing, batch workers) goes through :func:`thread_limits` or
+:func:`limited_threads`; ``threadpoolctl`` is imported only when a limit is set.
+
+Bottom layer: imports nothing from sourcelab but :mod:`sourcelab.constants`.
+"""
+
+from __future__ import annotations
+
+import functools
+
+from .constants import BLAS_THREADS
+
+
+def thread_limits(n_threads: int = BLAS_THREADS, *, user_api: str | None = None):
+    """Limit the thread pools of the loaded BLAS/OpenMP libraries.
+
+    Parameters
+    ----------
+    n_threads : int
+        Threads per pool; default :data:`~sourcelab.constants.BLAS_THREADS`.
+    user_api : {None, "blas", "openmp"}
+        The pools limited: None every pool (BLAS and OpenMP), ``"blas"`` BLAS only.
+
+    Returns
+    -------
+    threadpoolctl.threadpool_limits
+        The limit, already in force: use it as a context manager (``with thread_limits():``)
+        to restore the previous counts on exit, or keep it to leave the limit in place.
+    """
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(n_threads, user_api=user_api)
+
+
+def limited_threads(n_threads: int = BLAS_THREADS, *, user_api: str | None = None):
+    """Decorator: run the function under :func:`thread_limits` (same arguments).
+
+    Parameters
+    ----------
+    n_threads : int
+        Threads per pool; default :data:`~sourcelab.constants.BLAS_THREADS`.
+    user_api : {None, "blas", "openmp"}
+        The pools limited: None every pool (BLAS and OpenMP), ``"blas"`` BLAS only.
+
+    Returns
+    -------
+    callable
+        ``decorate(fn) -> fn'``, where ``fn'`` calls ``fn`` with the limit in force.
+    """
+
+    def decorate(fn):
+        @functools.wraps(fn)
+        def limited(*args, **kwargs):
+            with thread_limits(n_threads, user_api=user_api):
+                return fn(*args, **kwargs)
+
+        return limited
+
+    return decorate
