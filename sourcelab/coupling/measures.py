@@ -148,6 +148,8 @@ _DERIVED = {
 _WHOLE_BYTES = 24 * 2**20
 #: ... larger ones (longer recordings) in epoch blocks of at most this size per statistic.
 _BLOCK_BYTES = 8 * 2**20
+#: Bytes per statistic of one pass of bootstrap replicates (:func:`band_coupling`).
+_BOOT_BYTES = _BLOCK_BYTES
 #: Elements of the gathered coefficients held at once while a block is made (~4 MB each).
 _GATHER_ELEMENTS = 1_000_000
 
@@ -1142,7 +1144,7 @@ def band_coupling(
         intervals = {}
         if n_boot:
             # as many replicates per pass as fit _BLOCK_BYTES per statistic (usually all)
-            chunk = max(1, _BLOCK_BYTES // (4 * len(idx) * max(1, ps.ia.size)))
+            chunk = max(1, _BOOT_BYTES // (4 * len(idx) * max(1, ps.ia.size)))
             intervals = bootstrap_intervals(
                 sub, one, est, n_boot=n_boot, seed=seed, ci=ci, measures=measures, chunk=chunk
             )

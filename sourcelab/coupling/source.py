@@ -408,6 +408,10 @@ def band_analytic(
     return (np.fft.ifft(x, axis=-1) * m).astype(x.dtype, copy=False)
 
 
+#: Elements of the (epochs, nodes, samples) temporaries of :func:`envelope_moments` per block.
+_ENVELOPE_BLOCK = 2_000_000
+
+
 def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
     """Per-epoch sums behind the orthogonalised envelope correlation of every directed pair.
 
@@ -438,7 +442,7 @@ def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
     # Σ o_ij |a_j| = Σ o_ji |a_i| = Σ |a_i| |a_j| s_ij: half the products of all ordered pairs.
     # Row i's block of epochs keeps its (e, j > i, M) arrays below ~8 MB; per-epoch sums of at
     # most a few hundred samples in the input precision, epochs pooled in float64.
-    step = max(1, 2_000_000 // max(1, n * m))
+    step = max(1, _ENVELOPE_BLOCK // max(1, n * m))
     for i in range(n - 1):
         for s0 in range(0, n_ep, step):
             e = slice(s0, s0 + step)
