@@ -13,6 +13,13 @@ from __future__ import annotations
 #: Fragment name -> numpydoc text (first line unindented, the rest indented by four spaces).
 docdict: dict[str, str] = {}
 
+# ---------------------------------------------------------------------------------- threads
+docdict["thread_limit"] = """\
+n_threads : int
+    Threads per pool; default :data:`~sourcelab.constants.BLAS_THREADS`.
+user_api : {None, "blas", "openmp"}
+    The pools limited: None every pool (BLAS and OpenMP), ``"blas"`` BLAS only."""
+
 # ---------------------------------------------------------------------------------- outputs
 docdict["write_options"] = """\
 figures, report, exports : bool

@@ -4,25 +4,25 @@ Every place that runs linear algebra under a thread limit (the analysis, the cou
 ocular ICA, figure drawing, batch workers) goes through :func:`thread_limits` or
 :func:`limited_threads`; ``threadpoolctl`` is imported only when a limit is set.
 
-Bottom layer: imports nothing from sourcelab but :mod:`sourcelab.constants`.
+Bottom layer: imports nothing from sourcelab but :mod:`sourcelab.constants` and
+:mod:`sourcelab._docs`.
 """
 
 from __future__ import annotations
 
 import functools
 
+from ._docs import fill_doc
 from .constants import BLAS_THREADS
 
 
+@fill_doc
 def thread_limits(n_threads: int = BLAS_THREADS, *, user_api: str | None = None):
     """Limit the thread pools of the loaded BLAS/OpenMP libraries.
 
     Parameters
     ----------
-    n_threads : int
-        Threads per pool; default :data:`~sourcelab.constants.BLAS_THREADS`.
-    user_api : {None, "blas", "openmp"}
-        The pools limited: None every pool (BLAS and OpenMP), ``"blas"`` BLAS only.
+    %(thread_limit)s
 
     Returns
     -------
@@ -35,15 +35,13 @@ def thread_limits(n_threads: int = BLAS_THREADS, *, user_api: str | None = None)
     return threadpool_limits(n_threads, user_api=user_api)
 
 
+@fill_doc
 def limited_threads(n_threads: int = BLAS_THREADS, *, user_api: str | None = None):
     """Decorator: run the function under :func:`thread_limits` (same arguments).
 
     Parameters
     ----------
-    n_threads : int
-        Threads per pool; default :data:`~sourcelab.constants.BLAS_THREADS`.
-    user_api : {None, "blas", "openmp"}
-        The pools limited: None every pool (BLAS and OpenMP), ``"blas"`` BLAS only.
+    %(thread_limit)s
 
     Returns
     -------
