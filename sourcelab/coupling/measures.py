@@ -150,8 +150,23 @@ _WHOLE_BYTES = 24 * 2**20
 _BLOCK_BYTES = 8 * 2**20
 #: Bytes per statistic of one pass of bootstrap replicates (:func:`band_coupling`).
 _BOOT_BYTES = _BLOCK_BYTES
+#: Bytes per statistic of the replicates whose per-bin measures are made at once (cache-sized).
+_POST_BYTES = 256 * 2**10
 #: Elements of the gathered coefficients held at once while a block is made (~4 MB each).
 _GATHER_ELEMENTS = 1_000_000
+
+
+@functools.lru_cache(maxsize=16)
+def _selector(n_nodes: int, ia: bytes, ib: bytes) -> tuple[np.ndarray, np.ndarray]:
+    """One-hot matrices (n_nodes, n_pairs), float32: ``x @ S_a = x[..., ia]``, ``x @ S_b``."""
+    out = []
+    for i in (ia, ib):
+        idx = np.frombuffer(i, dtype=np.int64)
+        m = np.zeros((n_nodes, idx.size), dtype=np.float32)
+        m[idx, np.arange(idx.size)] = 1.0
+        m.setflags(write=False)
+        out.append(m)
+    return tuple(out)
 
 
 def _derive(base: dict, name: str, bins=None) -> np.ndarray:
@@ -237,28 +252,42 @@ class PairStatistics:
         xr, xi = (c[e] for c in self.coef)
         power = self.power[e]
         ia, ib = self.ia, self.ib
-        n_ep, n_bins = xr.shape[:2]
+        n_ep, n_bins, n_nodes = xr.shape
         re, im, inv = (np.empty((n_ep, n_bins, ia.size), dtype=np.float32) for _ in range(3))
+        # the nodes of each pair gathered by products with one-hot selection matrices (for finite
+        # input exactly the gathered values: one term x * 1 plus zeros; about twice as fast as
+        # np.take); non-finite input falls back to np.take
+        sel = None
+        if all(np.isfinite(x).all() for x in (xr, xi, power)):
+            sel = _selector(n_nodes, *(np.asarray(i, np.int64).tobytes() for i in (ia, ib)))
+
+        def gather(x):  # -> (values at a, values at b), each (g, n_bins, n_pairs)
+            if sel is None:
+                return np.take(x, ia, axis=-1), np.take(x, ib, axis=-1)
+            flat, shape = x.reshape(-1, x.shape[-1]), x.shape[:-1] + (ia.size,)
+            # contiguous outputs: the arithmetic below runs its fast loops on them
+            return tuple((flat @ s_).reshape(shape) for s_ in sel)
+
         # a few epochs at a time, so the gathered coefficients are small temporaries
         # (elementwise arithmetic: the same numbers as all at once)
         step = max(1, _GATHER_ELEMENTS // max(1, n_bins * ia.size))
         for s in range(0, n_ep, step):
             g = slice(s, s + step)
-            # np.take (unlike x[..., ia], laid out pair-major) returns C-contiguous arrays
-            ar, ai, br, bi = (
-                np.take(x[g], i, axis=-1) for x, i in ((xr, ia), (xi, ia), (xr, ib), (xi, ib))
-            )
+            (ar, br), (ai, bi) = gather(xr[g]), gather(xi[g])
             # in place, into the outputs (the same operations as ar * br + ai * bi etc.)
             tmp = np.multiply(ai, bi)
             np.add(np.multiply(ar, br, out=re[g]), tmp, out=re[g])  # Re(X_a conj(X_b))
             np.multiply(ar, bi, out=tmp)
             np.subtract(np.multiply(ai, br, out=im[g]), tmp, out=im[g])  # Im(X_a conj(X_b))
-            mag = np.take(power[g], ia, axis=-1)
-            mag *= np.take(power[g], ib, axis=-1)
+            mag, pb = gather(power[g])
+            mag = np.multiply(mag, pb)
             np.sqrt(mag, out=mag)
-            pos = mag > 0
-            inv[g] = 0.0
-            np.divide(1.0, mag, out=inv[g], where=pos)  # 1/|S|, 0 where S = 0
+            # 1/|S|, 0 where S = 0 (unmasked, then the few zeros set: 4x faster than where=)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                np.divide(np.float32(1.0), mag, out=inv[g])
+            bad = ~(mag > 0)
+            if bad.any():
+                inv[g][bad] = 0.0
         base = {"re": re, "im": im, "inv": inv}
         if whole:
             self._kept.update(base)
@@ -729,9 +758,29 @@ def coupling_from_statistics(
 
     def one(w=None, s=None):
         acc, pw = ps.accumulate(w, signs=s, names=stat_names)
-        pb = bin_measures(acc, pw, ps.ia, ps.ib, ps.n_epochs, measures=bin_names)
-        del acc, pw  # free the sums before the band averages' temporaries
-        return band_measures(pb, ps.freqs, band_idx, measures=measures)
+        n_rep = max(x.shape[0] for x in (pw, *acc.values()))
+        # the per-bin formulas and band averages are elementwise per replicate: a few replicates
+        # at a time keep their temporaries in cache (the same numbers as all at once)
+        step = max(1, _POST_BYTES // (4 * max(1, pw.shape[1] * ps.ia.size)))
+        parts = []
+        for r0 in range(0, n_rep, step):
+
+            def sub(x, r0=r0):  # a leading axis of 1 broadcasts (conjugation signs)
+                return x if x.shape[0] == 1 else x[r0 : r0 + step]
+
+            pb = bin_measures(
+                {n: sub(x) for n, x in acc.items()},
+                sub(pw),
+                ps.ia,
+                ps.ib,
+                ps.n_epochs,
+                measures=bin_names,
+            )
+            parts.append(band_measures(pb, ps.freqs, band_idx, measures=measures))
+            del pb
+        if len(parts) == 1:
+            return parts[0]
+        return {m: np.concatenate([p[m] for p in parts], axis=0) for m in measures}
 
     if rows is None:
         return one()
@@ -876,16 +925,19 @@ def bootstrap_intervals(
     w = bootstrap_weights(ps.n_epochs, n_boot=n_boot, seed=seed)
     reps = coupling_from_statistics(ps, band_idx, w, chunk=chunk, measures=measures)
     q = [(1.0 - ci) / 2.0, (1.0 + ci) / 2.0]
+    names = list(reps)
+    for m in names:
+        if m == "phase_deg":  # replicates unwrapped around the estimate
+            reps[m] = _wrap_deg(reps[m] - estimate[m][0][None])
+    # every measure's quantiles in one call (per element: the same numbers as one at a time)
+    ends = _quantile(np.stack([reps[m] for m in names], axis=1), q)  # (2, n_meas, ...)
     out = {}
-    for m, r in reps.items():
+    for i, m in enumerate(names):
+        lo, hi = ends[0, i], ends[1, i]
         if m == "phase_deg":
             est = estimate[m][0]
-            d = _wrap_deg(r - est[None])
-            lo, hi = _quantile(d, q)
-            out[m] = (est + lo, est + hi)
-        else:
-            lo, hi = _quantile(r, q)
-            out[m] = (lo, hi)
+            lo, hi = est + lo, est + hi
+        out[m] = (lo, hi)
     return out
 
 
