@@ -745,7 +745,9 @@ def coupling_from_statistics(
     signs : ndarray, shape (n_rep, n_epochs), optional
         Conjugation signs (see :meth:`PairStatistics.accumulate`).
     chunk : int
-        Replicates per pass (bounds memory: chunk x n_stats x n_bins x n_pairs floats).
+        Replicates per pass (bounds memory: chunk x n_stats x n_bins x n_pairs floats); within a
+        pass the per-bin formulas run on groups of replicates of :data:`_POST_BYTES` per
+        statistic (cache-sized; the same numbers).
     %(band_measures_subset)s
 
     Returns
