@@ -203,8 +203,12 @@ def write_table(
 
     %(returns_path)s
     """
+    from .tsv import table_text
+
     path = Path(path)
-    file_table(table).to_csv(path, sep="\t", index=False, na_rep=na_rep, float_format=float_format)
+    text = table_text(file_table(table), na_rep=na_rep, float_format=float_format)
+    with open(path, "w", encoding="utf-8", newline="") as f:
+        f.write(text)
     path.with_suffix(".json").write_text(
         json.dumps(sidecar, indent=2, ensure_ascii=False) + "\n", encoding="utf-8"
     )

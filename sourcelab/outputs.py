@@ -315,9 +315,11 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
 
         write_candidates(result.candidates, folder / "candidates.tsv")
     if result.leakage_hints is not None:
-        result.leakage_hints.to_csv(
-            folder / "leakage_hints.tsv", sep="\t", index=False, float_format="%.4g"
-        )
+        from .tsv import table_text
+
+        text = table_text(result.leakage_hints, float_format="%.4g")
+        with open(folder / "leakage_hints.tsv", "w", encoding="utf-8", newline="") as f:
+            f.write(text)
     pngs: dict = {}
     n_jobs = 1
     if figures:

@@ -26,6 +26,7 @@ LAYERS = {
     "data": 0,
     "progress": 0,
     "cautions": 0,
+    "tsv": 0,
     "config": 1,
     "provenance": 1,
     "epochfile": 1,

@@ -591,3 +591,72 @@ def test_robust_amplitude_is_the_normal_scaled_mad_and_leaves_its_input(rng):
     ref = 1.4826 * np.median(np.abs(d - np.median(d, axis=1, keepdims=True)), axis=1)
     np.testing.assert_allclose(robust_amplitude(x, 256.0), ref, rtol=1e-12)
     np.testing.assert_array_equal(x, before)
+
+
+# --- the numpy FIR filters against MNE-Python (the filters the pipeline used before) ---------
+
+_FIR_RATES = (256.0, 250.0, 500.0, 200.0, 128.0)
+
+
+@pytest.mark.reference
+@pytest.mark.parametrize("sfreq", _FIR_RATES)
+def test_fir_coefficients_match_mne_create_filter(sfreq):
+    # reference: mne.filter.create_filter with its defaults (firwin, Hamming, zero phase,
+    # "auto" lengths and transition bands); the pipeline's band-pass, muscle band, blink
+    # low-pass, a high-pass, and the mains notches (MNE's notch_filter defaults)
+    from sourcelab.intake import fir
+
+    nyq = sfreq / 2
+    cfg = AnalysisConfig()
+    for lo, hi in (
+        (cfg.l_freq, cfg.h_freq),
+        (25.0, min(45.0, 0.9 * nyq)),
+        (None, 3.0),
+        (1.0, None),
+    ):
+        ref = mne.filter.create_filter(None, sfreq, lo, hi, verbose="error")
+        ours = fir.fir_coefficients(sfreq, lo, hi)
+        assert ours.shape == ref.shape
+        assert np.abs(ours - ref).max() <= 1e-12
+    for mains in (50.0, 60.0):
+        freqs = np.arange(mains, nyq - 1, mains)
+        if not len(freqs):
+            continue
+        lows = [f - f / 400 - 0.5 for f in freqs]  # notch_filter: width f/200, 1 Hz transition
+        highs = [f + f / 400 + 0.5 for f in freqs]
+        ref = mne.filter.create_filter(
+            None, sfreq, highs, lows, l_trans_bandwidth=0.5, h_trans_bandwidth=0.5, verbose="error"
+        )
+        ours = fir.notch_coefficients(sfreq, freqs)
+        assert ours.shape == ref.shape
+        assert np.abs(ours - ref).max() <= 1e-12
+    assert np.array_equal(fir.fir_coefficients(sfreq, None, None), [1.0])
+
+
+@pytest.mark.reference
+@pytest.mark.parametrize("n_times", [60 * 256, 2000, 300, 40])
+def test_fir_filtering_matches_mne_filter_data(rng, n_times):
+    # reference: mne.filter.filter_data / notch_filter (defaults, reflect_limited padding,
+    # overlap-add), including signals shorter than the filter; 1e-10 µV on ~50 µV data
+    from sourcelab.intake import fir
+
+    x = rng.standard_normal((19, n_times)) * 50 + 20
+    for lo, hi in ((1.0, 45.0), (25.0, 45.0), (None, 3.0)):
+        ref = mne.filter.filter_data(x, 256.0, lo, hi, verbose="error")
+        ours = fir.filter_data(x.copy(), 256.0, lo, hi)
+        assert np.abs(ours - ref).max() <= 1e-10
+    freqs = np.arange(50.0, 127.0, 50.0)
+    ref = mne.filter.notch_filter(x, 256.0, freqs, verbose="error")
+    ours = x.copy()
+    assert fir.notch_filter(ours, 256.0, freqs) is ours  # in place
+    assert np.abs(ours - ref).max() <= 1e-10
+    # a 3-D array whose rows cannot be viewed as one 2-D block is filtered in place too
+    blocks = x[:4].copy().reshape(2, 2, -1).transpose(1, 0, 2)
+    expected = mne.filter.filter_data(blocks, 256.0, 1.0, 45.0, verbose="error")
+    assert fir.filter_data(blocks, 256.0, 1.0, 45.0) is blocks
+    assert np.abs(blocks - expected).max() <= 1e-10
+    one = x[0].copy()
+    fir.filter_data(one, 256.0, 1.0, 45.0)
+    assert (
+        np.abs(one - mne.filter.filter_data(x[0], 256.0, 1.0, 45.0, verbose="error")).max() <= 1e-10
+    )

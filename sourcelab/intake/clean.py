@@ -6,12 +6,12 @@ import logging
 import time
 from dataclasses import dataclass, field
 
-import mne
 import numpy as np
 
 from ..config import AnalysisConfig
 from ..constants import SITES_1020
 from ..errors import InputError
+from . import fir
 from .power import long_welch
 from .recording import Recording
 
@@ -563,10 +563,8 @@ def clean_recording(
     def band_pass(x):
         """Notch and band-pass, in place (``x`` is this function's own array)."""
         if mains is not None and mains < nyq - 1:
-            x = mne.filter.notch_filter(
-                x, sf, np.arange(mains, nyq - 1, mains), copy=False, verbose="error"
-            )
-        return mne.filter.filter_data(x, sf, config.l_freq, h_freq, copy=False, verbose="error")
+            x = fir.notch_filter(x, sf, np.arange(mains, nyq - 1, mains))
+        return fir.filter_data(x, sf, config.l_freq, h_freq)
 
     n_per = int(round(config.epoch_s * sf))
     bad = bad_mask(raw)
@@ -629,11 +627,11 @@ def clean_recording(
     hf_sel = np.zeros((len(starts), len(SITES_1020)))
     hf_all = hf_sel if same else np.zeros((len(all_starts), len(SITES_1020))) if learn else None
     if muscle_on:
-        # the muscle band a few sites at a time (MNE filters each row on its own: the same
+        # the muscle band a few sites at a time (each row is filtered on its own: the same
         # numbers, without a band-passed copy of the whole recording)
         rows = max(1, _HF_BLOCK_SAMPLES // data.shape[1])
         for c in range(0, data.shape[0], rows):
-            hf = mne.filter.filter_data(data[c : c + rows], sf, muscle_band[0], hi, verbose="error")
+            hf = fir.filter_data(data[c : c + rows].copy(), sf, muscle_band[0], hi)
             hf_sel[:, c : c + rows] = _window_reduce(hf, starts, n_per, _rms)
             if learn and not same:
                 hf_all[:, c : c + rows] = _window_reduce(hf, all_starts, n_per, _rms)
@@ -657,7 +655,7 @@ def clean_recording(
     if np.isfinite(blink_uv) and not corrected and len(starts):
         occ = [SITES_1020.index("O1"), SITES_1020.index("O2")]
         pair = np.stack([data[fp].mean(0), data[occ].mean(0)])
-        lf = mne.filter.filter_data(pair, sf, None, BLINK_LOWPASS_HZ, verbose="error")
+        lf = fir.filter_data(pair, sf, None, BLINK_LOWPASS_HZ)
         w = _windows(lf, starts, n_per)
         dev = np.abs(w - np.median(w, axis=-1, keepdims=True)).max(-1)
         # frontal deflection, at least BLINK_GRADIENT times the occipital one (blinks fall off

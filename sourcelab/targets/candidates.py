@@ -44,6 +44,7 @@ import numpy as np
 import pandas as pd
 
 from .._docs import fill_doc
+from ..tsv import table_text
 from ..cautions import CAUTIONS
 from ..constants import ROI_KEY, Z_THRESHOLD
 from ..errors import InputError
@@ -576,7 +577,7 @@ def write_candidates(candidates: pd.DataFrame, path: str | Path) -> Path:
         The TSV written.
     """
     path = Path(path)
-    body = candidates.to_csv(sep="\t", index=False, na_rep="n/a", float_format="%.4g")
+    body = table_text(candidates, na_rep="n/a", float_format="%.4g")
     atomic_write_text(
         path.with_suffix(".json"),
         json.dumps(candidates_sidecar(candidates), indent=2, ensure_ascii=False) + "\n",

@@ -271,11 +271,12 @@ class Leakage:
             When the file name does not end in ``.tsv``.
         """
         from ..provenance import atomic_write_text
+        from ..tsv import table_text
 
         path = Path(path)
         if path.suffix.lower() != ".tsv":
             raise InputError("leakage table: file name must end in .tsv", path=path)
-        atomic_write_text(path, self.to_frame().to_csv(sep="\t", index=False, float_format="%.6g"))
+        atomic_write_text(path, table_text(self.to_frame(), float_format="%.6g"))
         return path
 
 

@@ -104,7 +104,11 @@ def cortical_mesh(
     new = np.full(n_t, -1)
     new[vertices] = np.arange(vertices.size)
     e = np.vstack([faces[:, [0, 1]], faces[:, [1, 2]], faces[:, [2, 0]]])
-    e = np.unique(np.sort(e, axis=1), axis=0)
+    e = np.sort(e, axis=1)
+    # unique rows through one int64 key per edge (ascending key = the rows in lexicographic
+    # order, as np.unique(e, axis=0) gives them; ~10x faster than its structured-row path)
+    key = np.unique(e[:, 0] * n_t + e[:, 1])
+    e = np.stack([key // n_t, key % n_t], axis=1)
     a, b = new[e[:, 0]], new[e[:, 1]]
     ok = (a >= 0) & (b >= 0)
     a, b, e = a[ok], b[ok], e[ok]
