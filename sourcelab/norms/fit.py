@@ -346,7 +346,8 @@ def fit_norms(
         Y[i, cols] = v
     keys = list(index)
     qt = pd.DataFrame(keys, columns=list(QUANTITY_COLUMNS))
-    qt["transform"] = [transform_for(k, m) for k, m in zip(qt["kind"], qt["measure"])]
+    transforms = [transform_for(k, m) for k, m in zip(qt["kind"], qt["measure"])]
+    qt["transform"] = transforms
     untrimmed = np.array(
         [
             k in COUPLING_KINDS and m in UNTRIMMED_MEASURES
@@ -357,7 +358,7 @@ def fit_norms(
     # circular quantities: model the deviation from the cohort's circular mean direction
     # (wrapped into one period); the direction is added back to b0 below
     offset = np.zeros(q)
-    for j, name in enumerate(qt["transform"]):
+    for j, name in enumerate(transforms):
         tr = get_transform(name)
         if tr.period is not None:
             col = Y[:, j]
@@ -414,7 +415,7 @@ def fit_norms(
             coef = np.zeros(MAX_DEGREE + 1)
             coef[: deg + 1] = fits.coef[:, j]
             if offset[j]:
-                coef[0] = get_transform(qt["transform"][j]).difference(coef[0] + offset[j], 0.0)
+                coef[0] = get_transform(transforms[j]).difference(coef[0] + offset[j], 0.0)
             rows.append(
                 (
                     *keys[j],
@@ -422,7 +423,7 @@ def fit_norms(
                     hi,
                     model,
                     deg,
-                    qt["transform"][j],
+                    transforms[j],
                     *coef,
                     float(fits.sd[j]),
                     int(fits.n[j]),
