@@ -21,6 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .._docs import fill_doc
+
 #: MAD -> SD for Gaussian data (1 / Phi^-1(3/4)); common practice.
 MAD_TO_SD = 1.482602218505602
 
@@ -184,6 +186,7 @@ def _mad_screen(r: np.ndarray, finite: np.ndarray):
     return centre, s
 
 
+@fill_doc
 def fit_poly_columns(
     age: np.ndarray,
     Y: np.ndarray,
@@ -207,10 +210,7 @@ def fit_poly_columns(
         Polynomial degree, 0..3.
     robust : bool or ndarray of bool, shape (q,)
         :func:`fit_poly`'s exclusion rule, for all columns or per column.
-    threshold : float
-        Exclusion threshold in (robust) SDs (:data:`ROBUST_SD`).
-    max_iter : int
-        Most sigma-clipping passes (:data:`ROBUST_MAX_ITER`).
+    %(robust_clipping)s
 
     Returns
     -------
@@ -287,6 +287,7 @@ def fit_poly_columns(
     )
 
 
+@fill_doc
 def fit_poly(
     age: np.ndarray,
     y: np.ndarray,
@@ -314,10 +315,7 @@ def fit_poly(
         stable (at most ``max_iter`` passes).  Re-testing every control lets one wrongly
         dropped by an unluckily small MAD return.  At most a quarter of the controls is ever
         excluded (the most extreme first).
-    threshold : float
-        Exclusion threshold in (robust) SDs (:data:`ROBUST_SD`).
-    max_iter : int
-        Most sigma-clipping passes (:data:`ROBUST_MAX_ITER`).
+    %(robust_clipping)s
 
     Returns
     -------
