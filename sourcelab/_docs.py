@@ -37,6 +37,13 @@ Returns
 Path
     ``path``."""
 
+# ------------------------------------------------------------------------------------ norms
+docdict["robust_clipping"] = """\
+threshold : float
+    Exclusion threshold in (robust) SDs (:data:`~sourcelab.norms.models.ROBUST_SD`).
+max_iter : int
+    Most sigma-clipping passes (:data:`~sourcelab.norms.models.ROBUST_MAX_ITER`)."""
+
 # ---------------------------------------------------------------------------------- targets
 #: The checks of a parsed target file (``target_from_dict``, ``coupling_target_from_dict``).
 docdict["target_check"] = """\

@@ -216,7 +216,7 @@ def write_cohort_norms(fit, source_norms, out: str | Path):
     report_path = out.with_name(out.stem + "_calibration.tsv")
     figure_path = out.with_name(out.stem + "_calibration.png")
     atomic_write_text(report_path, report.to_csv(sep="\t", index=False, na_rep="n/a"))
-    save_png(plot_calibration(fit), figure_path, dpi=120)
+    save_png(plot_calibration(fit, report=report), figure_path, dpi=120)
     return norms, report, report_path, figure_path
 
 

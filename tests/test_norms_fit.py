@@ -16,7 +16,7 @@ from sourcelab.norms import (
     plot_calibration,
     write_norms,
 )
-from sourcelab.norms.models import fit_poly
+from sourcelab.norms.models import fit_poly, fit_poly_columns
 from sourcelab.simulate import gaussian_cohort
 from sourcelab.provenance import Fingerprint
 
@@ -91,6 +91,56 @@ def test_analytic_loo_equals_refitting():
         x = np.log10(age[i])
         brute.append((y[i] - g.coef @ [1, x, x * x]) / g.sd)
     np.testing.assert_allclose(f.loo_z, brute, rtol=1e-9)
+
+
+def test_column_fits_match_numpy_polyfit_and_scipy():
+    # The column-wise fit (columns keeping the same controls share one solve) against outside
+    # references, column by column: numpy's polyfit on the kept controls, brute-force
+    # leave-one-out refits (Cook & Weisberg 1982, from memory), and for the calibration table
+    # scipy.stats' skew, kurtosis and Shapiro-Wilk of each row's kept residuals.
+    from scipy import stats
+
+    rng = np.random.default_rng(11)
+    n, q = 30, 12
+    age = 10 ** rng.uniform(0.8, 1.9, n)
+    x = np.log10(age)
+    Y = 0.3 + 0.5 * x[:, None] + 0.2 * rng.standard_normal((n, q))
+    Y[3, 1] += 3.0  # gross outliers (15 SD) in two columns
+    Y[7, 2] -= 3.0
+    Y[[0, 5], 3] = np.nan  # missing values: another set of controls
+    Y[:, 4] = np.nan  # too few values: no fit
+    Y[:4, 4] = 1.0
+    fits = fit_poly_columns(age, Y, 2, robust=True)
+    assert not fits.ok[4] and fits.ok[[0, 1, 2, 3, 5]].all()
+    assert not fits.kept[3, 1] and not fits.kept[7, 2] and fits.n[1] == n - 1
+    assert not fits.kept[[0, 5], 3].any()
+    for j in (0, 1, 3):
+        k = fits.kept[:, j]
+        ref = np.polynomial.polynomial.polyfit(x[k], Y[k, j], 2)
+        np.testing.assert_allclose(fits.coef[:, j], ref, rtol=1e-9, atol=1e-12)
+        i = np.flatnonzero(k)[0]
+        keep = k & (np.arange(n) != i)
+        c = np.polynomial.polynomial.polyfit(x[keep], Y[keep, j], 2)
+        e = Y[keep, j] - np.polynomial.polynomial.polyval(x[keep], c)
+        sd = np.sqrt(e @ e / (keep.sum() - 3))
+        z = (Y[i, j] - np.polynomial.polynomial.polyval(x[i], c)) / sd
+        np.testing.assert_allclose(fits.loo_z[i, j], z, rtol=1e-9)
+
+    fit = fit_norms(
+        gaussian_cohort(24, rng=np.random.default_rng(3)).entries,
+        fingerprint=FP,
+        condition="eyes closed",
+    )
+    rep = calibration_report(fit)
+    for r in (0, len(rep) // 2, len(rep) - 1):
+        j, mem = fit.row_quantity[r], fit.row_members[r]
+        e = fit.resid[mem & np.isfinite(fit.resid[:, j]) & ~fit.excluded[:, j], j]
+        assert rep["n"].iloc[r] == e.size
+        np.testing.assert_allclose(rep["skewness"].iloc[r], stats.skew(e, bias=False), rtol=1e-9)
+        np.testing.assert_allclose(
+            rep["excess_kurtosis"].iloc[r], stats.kurtosis(e, bias=False), rtol=1e-9
+        )
+        np.testing.assert_allclose(rep["shapiro_p"].iloc[r], stats.shapiro(e).pvalue, rtol=1e-9)
 
 
 def test_robust_rule_excludes_gross_outliers(cohort):

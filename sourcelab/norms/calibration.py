@@ -21,18 +21,41 @@ from .io import KEY_COLUMNS
 THRESHOLDS = {1.96: 2 * stats.norm.sf(1.96), 2.58: 2 * stats.norm.sf(2.58)}
 
 
-def _moments(r: np.ndarray) -> tuple[float, float, float]:
-    if r.size < 8 or np.ptp(r) == 0:
-        return np.nan, np.nan, np.nan
-    with warnings.catch_warnings():
-        # scipy warns when n > 5000 (p less accurate); irrelevant at cohort sizes
-        warnings.simplefilter("ignore", UserWarning)
-        p = stats.shapiro(r).pvalue
-    return (
-        float(stats.skew(r, bias=False)),
-        float(stats.kurtosis(r, fisher=True, bias=False)),
-        float(p),
-    )
+def _moments(values: np.ndarray, kept: np.ndarray):
+    """Skewness, excess kurtosis and Shapiro-Wilk p of each row's kept values.
+
+    ``values`` and ``kept`` have shape (rows, n); rows with fewer than 8 kept values, or all
+    equal, give NaN.  Rows with the same number of kept values are computed together.
+    """
+    out = np.full((3, len(values)), np.nan)
+    counts = kept.sum(axis=1)
+    for c in np.unique(counts[counts >= 8]):
+        rows = np.flatnonzero(counts == c)
+        r = values[rows][kept[rows]].reshape(rows.size, c)  # kept values in control order
+        varies = np.ptp(r, axis=1) != 0
+        rows, r = rows[varies], r[varies]
+        if not rows.size:
+            continue
+        with warnings.catch_warnings():
+            # scipy warns when n > 5000 (p less accurate); irrelevant at cohort sizes
+            warnings.simplefilter("ignore", UserWarning)
+            p = stats.shapiro(r, axis=1).pvalue
+        out[0, rows] = stats.skew(r, axis=1, bias=False)
+        out[1, rows] = stats.kurtosis(r, axis=1, fisher=True, bias=False)
+        out[2, rows] = p
+    return out
+
+
+def _pooled_z(fit) -> np.ndarray:
+    """Finite leave-one-out z of every norms row's controls, row after row, shape (k,)."""
+    z, has_z = _row_z(fit)
+    return z[has_z]
+
+
+def _row_z(fit) -> tuple[np.ndarray, np.ndarray]:
+    """Leave-one-out z of each norms row's controls, shape (rows, n), and where it is finite."""
+    z = fit.loo_z[:, fit.row_quantity].T
+    return z, fit.row_members & np.isfinite(z)
 
 
 def calibration_report(fit) -> pd.DataFrame:
@@ -52,25 +75,27 @@ def calibration_report(fit) -> pd.DataFrame:
         0.05 and 0.01).  ``attrs["overall"]`` holds :func:`calibration_summary`.
     """
     t = fit.norms.table
-    recs = []
-    for r, (j, mem) in enumerate(zip(fit.row_quantity, fit.row_members)):
-        kept = mem & np.isfinite(fit.resid[:, j]) & ~fit.excluded[:, j]
-        z = fit.loo_z[mem, j]
-        z = z[np.isfinite(z)]
-        sk, ku, p = _moments(fit.resid[kept, j])
-        recs.append(
-            {
-                "n": int(kept.sum()),
-                "n_excluded": int(fit.excluded[mem, j].sum()),
-                "skewness": sk,
-                "excess_kurtosis": ku,
-                "shapiro_p": p,
-                "loo_n": int(z.size),
-                "loo_frac_1.96": float(np.mean(np.abs(z) > 1.96)) if z.size else np.nan,
-                "loo_frac_2.58": float(np.mean(np.abs(z) > 2.58)) if z.size else np.nan,
-            }
-        )
-    rep = pd.concat([t[list(KEY_COLUMNS)].reset_index(drop=True), pd.DataFrame(recs)], axis=1)
+    j, mem = fit.row_quantity, fit.row_members
+    resid = fit.resid[:, j].T  # (rows, n)
+    excluded = fit.excluded[:, j].T & mem
+    kept = mem & np.isfinite(resid) & ~excluded
+    sk, ku, p = _moments(resid, kept)
+    z, has_z = _row_z(fit)
+    loo_n = has_z.sum(axis=1)
+    cols = {
+        "n": kept.sum(axis=1),
+        "n_excluded": excluded.sum(axis=1),
+        "skewness": sk,
+        "excess_kurtosis": ku,
+        "shapiro_p": p,
+        "loo_n": loo_n,
+    }
+    with np.errstate(invalid="ignore"):  # rows without a z: NaN
+        for thr in (1.96, 2.58):
+            above = (has_z & (np.abs(np.where(has_z, z, 0.0)) > thr)).sum(axis=1)
+            cols[f"loo_frac_{thr}"] = np.where(loo_n > 0, above / loo_n, np.nan)
+    recs = pd.DataFrame(cols)
+    rep = pd.concat([t[list(KEY_COLUMNS)].reset_index(drop=True), recs], axis=1)
     rep.attrs["overall"] = calibration_summary(fit, rep)
     return rep
 
@@ -94,13 +119,7 @@ def calibration_summary(fit, report: pd.DataFrame | None = None) -> dict:
         ``n_excluded_values``; with ``report`` also ``median_abs_skewness``,
         ``median_excess_kurtosis`` and ``frac_rows_shapiro_p<0.05`` (expected ~0.05 if Gaussian).
     """
-    members = fit.row_members
-    zs = (
-        np.concatenate([fit.loo_z[m, j] for j, m in zip(fit.row_quantity, members)])
-        if len(members)
-        else np.array([])
-    )
-    zs = zs[np.isfinite(zs)]
+    zs = _pooled_z(fit)
     out = {
         "n_controls": len(fit.participants),
         "n_rows": int(len(fit.norms.table)),
@@ -122,7 +141,7 @@ def calibration_summary(fit, report: pd.DataFrame | None = None) -> dict:
     return out
 
 
-def plot_calibration(fit, *, figure=None):
+def plot_calibration(fit, *, figure=None, report: pd.DataFrame | None = None):
     """Four panels: pooled leave-one-out z histogram vs N(0,1), normal Q-Q plot, per-row
     fraction |z| > 1.96, per-row skewness vs excess kurtosis.
 
@@ -131,6 +150,8 @@ def plot_calibration(fit, *, figure=None):
     fit : NormsFit
     figure : matplotlib Figure | None
         Drawn into (cleared) if given; otherwise a new figure is made (no pyplot state kept).
+    report : DataFrame, optional
+        :func:`calibration_report` of the same fit, when already computed (computed otherwise).
 
     Returns
     -------
@@ -139,13 +160,12 @@ def plot_calibration(fit, *, figure=None):
     """
     from matplotlib.figure import Figure
 
-    rep = calibration_report(fit)
+    rep = calibration_report(fit) if report is None else report
     ov = rep.attrs["overall"]
     fig = figure if figure is not None else Figure(figsize=(10, 8))
     fig.clear()
     ax = fig.subplots(2, 2)
-    zs = np.concatenate([fit.loo_z[m, j] for j, m in zip(fit.row_quantity, fit.row_members)])
-    zs = zs[np.isfinite(zs)]
+    zs = _pooled_z(fit)
     grid = np.linspace(-4.5, 4.5, 301)
     ax[0, 0].hist(
         np.clip(zs, -4.5, 4.5),

@@ -32,7 +32,7 @@ from ..errors import InputError
 from ..provenance import Fingerprint
 from .coupling import COUPLING_KINDS, UNTRIMMED_MEASURES, transform_for_coupling
 from .io import COLUMNS, MAX_DEGREE, NA, QUANTITY_COLUMNS, Norms
-from .models import fit_poly, select_degree
+from .models import fit_poly_columns, select_degree
 from .predictive import pack_v, xtx_inverse
 from .transforms import get_transform, transform_for_measure
 
@@ -346,7 +346,8 @@ def fit_norms(
         Y[i, cols] = v
     keys = list(index)
     qt = pd.DataFrame(keys, columns=list(QUANTITY_COLUMNS))
-    qt["transform"] = [transform_for(k, m) for k, m in zip(qt["kind"], qt["measure"])]
+    transforms = [transform_for(k, m) for k, m in zip(qt["kind"], qt["measure"])]
+    qt["transform"] = transforms
     untrimmed = np.array(
         [
             k in COUPLING_KINDS and m in UNTRIMMED_MEASURES
@@ -357,7 +358,7 @@ def fit_norms(
     # circular quantities: model the deviation from the cohort's circular mean direction
     # (wrapped into one period); the direction is added back to b0 below
     offset = np.zeros(q)
-    for j, name in enumerate(qt["transform"]):
+    for j, name in enumerate(transforms):
         tr = get_transform(name)
         if tr.period is not None:
             col = Y[:, j]
@@ -401,16 +402,20 @@ def fit_norms(
                 min_n_per_bin,
             )
             continue
-        for j in range(q):
-            f = fit_poly(age[inb], Y[inb, j], deg, robust=robust and not untrimmed[j])
-            if f is None or f.n < min_n_per_bin or not f.sd > 0:
-                skipped += 1
-                continue
+        fits = fit_poly_columns(age[inb], Y[inb], deg, robust=robust & ~untrimmed)
+        good = fits.ok & (fits.n >= min_n_per_bin) & (fits.sd > 0)
+        skipped += int(q - good.sum())
+        cols = np.flatnonzero(good)
+        v_of_kept: dict[bytes, np.ndarray] = {}  # (X'X)^-1 per set of kept controls
+        for j in cols:
+            kept = fits.kept[:, j]
+            v = v_of_kept.get(kept.tobytes())
+            if v is None:  # the controls this row kept
+                v = v_of_kept[kept.tobytes()] = pack_v(xtx_inverse(age[inb][kept], deg))
             coef = np.zeros(MAX_DEGREE + 1)
-            coef[: deg + 1] = f.coef
-            v = pack_v(xtx_inverse(age[inb][f.kept], deg))  # the controls this row kept
+            coef[: deg + 1] = fits.coef[:, j]
             if offset[j]:
-                coef[0] = get_transform(qt["transform"][j]).difference(coef[0] + offset[j], 0.0)
+                coef[0] = get_transform(transforms[j]).difference(coef[0] + offset[j], 0.0)
             rows.append(
                 (
                     *keys[j],
@@ -418,19 +423,20 @@ def fit_norms(
                     hi,
                     model,
                     deg,
-                    qt["transform"][j],
+                    transforms[j],
                     *coef,
-                    f.sd,
-                    f.n,
-                    f.n - deg - 1,
+                    float(fits.sd[j]),
+                    int(fits.n[j]),
+                    int(fits.n[j]) - deg - 1,
                     *v,
                 )
             )
-            row_q.append(j)
-            members.append(inb)
-            resid[inb, j] = f.resid
-            loo[inb, j] = f.loo_z
-            excl[inb, j] = np.isfinite(Y[inb, j]) & ~f.kept
+        row_q.extend(cols.tolist())
+        members.extend([inb] * cols.size)
+        block = np.ix_(inb, cols)
+        resid[block] = fits.resid[:, cols]
+        loo[block] = fits.loo_z[:, cols]
+        excl[block] = np.isfinite(Y[block]) & ~fits.kept[:, cols]
     if skipped:
         log.warning(
             "norms: %d rows omitted (fewer than %d usable controls)", skipped, min_n_per_bin

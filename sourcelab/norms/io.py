@@ -29,6 +29,7 @@ John ER, Ahn H, Prichep L, et al. (1980).  Science 210:1255-1258 (from memory).
 
 from __future__ import annotations
 
+import contextvars
 import json
 import math
 import re
@@ -106,6 +107,11 @@ def normalise_condition(condition: str) -> str:
     return CONDITION_ALIASES.get(text, text)
 
 
+#: True while :func:`read_norms` builds a :class:`Norms` from a table it has just validated
+#: (with file line numbers): the constructor then does not validate it a second time.
+_TABLE_VALIDATED = contextvars.ContextVar("norms_table_validated", default=False)
+
+
 @dataclass(frozen=True, eq=False)
 class Norms:
     """A validated norms table with its pipeline fingerprint and recording condition.
@@ -149,7 +155,8 @@ class Norms:
         for note in self.notes:
             if "\n" in note:
                 raise InputError("norms notes must be single lines", path=where)
-        object.__setattr__(self, "table", validate_table(self.table, path=where))
+        if not _TABLE_VALIDATED.get():
+            object.__setattr__(self, "table", validate_table(self.table, path=where))
 
     def summary(self) -> dict:
         """Short description for result provenance (path, sha256, fingerprint, condition).
@@ -705,23 +712,31 @@ def read_norms(path: str | Path) -> Norms:
         rows.append(cells)
     table = pd.DataFrame(rows, columns=names, dtype=object)
     for c in _FLOAT_COLUMNS + _INT_COLUMNS:
-        vals = []
-        for k, v in enumerate(table[c].tolist()):
+        cells = table[c].to_numpy(dtype=object)
+        try:  # float() of every cell, in one cast ("" and "n/a" missing)
+            table[c] = np.where((cells == "") | (cells == NA), "nan", cells).astype(float)
+            continue
+        except ValueError:
+            pass
+        for k, v in enumerate(cells.tolist()):  # name the first bad cell
             try:
-                vals.append(float(v) if v not in ("", NA) else math.nan)
+                float(v) if v not in ("", NA) else math.nan
             except ValueError:
                 raise _bad(f"column {c!r} is not a number ({v!r})", path, first + k) from None
-        table[c] = vals
     table = validate_table(table, path=path, first_line=first)
-    return Norms(
-        table=table,
-        fingerprint=head["fingerprint"],
-        condition=head["condition"],
-        cohort=head["cohort"],
-        notes=head["notes"],
-        path=path,
-        sha256=sha256_file(path),
-    )
+    token = _TABLE_VALIDATED.set(True)
+    try:
+        return Norms(
+            table=table,
+            fingerprint=head["fingerprint"],
+            condition=head["condition"],
+            cohort=head["cohort"],
+            notes=head["notes"],
+            path=path,
+            sha256=sha256_file(path),
+        )
+    finally:
+        _TABLE_VALIDATED.reset(token)
 
 
 def check_norms(path: str | Path) -> str:

@@ -21,6 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .._docs import fill_doc
+
 #: MAD -> SD for Gaussian data (1 / Phi^-1(3/4)); common practice.
 MAD_TO_SD = 1.482602218505602
 
@@ -75,12 +77,36 @@ def design(age: np.ndarray, degree: int) -> np.ndarray:
     return np.vander(x, degree + 1, increasing=True)
 
 
-def _ols(X: np.ndarray, y: np.ndarray):
-    coef, *_ = np.linalg.lstsq(X, y, rcond=None)
-    # hat diagonal h_ii = x_i (X'X)^-1 x_i' via a thin QR (stable)
-    q, _ = np.linalg.qr(X)
-    h = np.einsum("ij,ij->i", q, q)
-    return coef, X @ coef, h
+def _mask_groups(mask: np.ndarray):
+    """Columns of a boolean ``(n, m)`` mask grouped by identical pattern.
+
+    Yields ``(rows, cols)``: the shared row mask, shape (n,), and the column indices.
+    """
+    if not mask.shape[1]:
+        return
+    _, inv = np.unique(np.packbits(mask, axis=0).T, axis=0, return_inverse=True)
+    inv = np.ravel(inv)
+    order = np.argsort(inv, kind="stable")
+    for cols in np.split(order, np.flatnonzero(np.diff(inv[order])) + 1):
+        yield mask[:, cols[0]], cols
+
+
+def _ols_columns(X: np.ndarray, Y: np.ndarray, kept: np.ndarray, *, hat: bool = False):
+    """Least squares of each column of ``Y`` on ``X`` over that column's kept rows.
+
+    Columns with the same kept rows share one ``lstsq`` (and one QR for the hat diagonal).
+    Returns ``coef`` of shape (p, m) and, with ``hat``, a list of ``(rows, cols, h)``.
+    """
+    coef = np.empty((X.shape[1], Y.shape[1]))
+    groups = []
+    for rows, cols in _mask_groups(kept):
+        Xk = X[rows]
+        coef[:, cols], *_ = np.linalg.lstsq(Xk, Y[np.ix_(rows, cols)], rcond=None)
+        if hat:
+            # hat diagonal h_ii = x_i (X'X)^-1 x_i' via a thin QR (stable)
+            q, _ = np.linalg.qr(Xk)
+            groups.append((rows, cols, np.einsum("ij,ij->i", q, q)))
+    return coef, groups
 
 
 #: The robust rule's exclusion threshold, in (robust) SDs (common practice), and its most
@@ -89,6 +115,179 @@ ROBUST_SD = 3.5
 ROBUST_MAX_ITER = 10
 
 
+@dataclass(frozen=True, eq=False)
+class PolyFits:
+    """Fits of many quantities against the same controls' ages (column ``j``: quantity ``j``).
+
+    Attributes
+    ----------
+    ok : ndarray of bool, shape (q,)
+        False where fewer than ``degree + 3`` finite values remain (:func:`fit_poly` gives
+        None); the other attributes hold NaN there (no kept controls, ``n`` 0).
+    coef : ndarray, shape (degree + 1, q)
+        Coefficients ``b_0 .. b_degree`` of the polynomial in ``log10(age)``.
+    sd : ndarray, shape (q,)
+        Residual SD on the transformed scale.
+    n : ndarray of int, shape (q,)
+        Controls kept.
+    kept : ndarray of bool, shape (n_controls, q)
+    resid : ndarray, shape (n_controls, q)
+    loo_z : ndarray, shape (n_controls, q)
+    press : ndarray, shape (q,)
+        As the fields of :class:`PolyFit`, one column per quantity.
+    """
+
+    ok: np.ndarray
+    coef: np.ndarray
+    sd: np.ndarray
+    n: np.ndarray
+    kept: np.ndarray
+    resid: np.ndarray
+    loo_z: np.ndarray
+    press: np.ndarray
+
+    def column(self, j: int) -> PolyFit | None:
+        """Quantity ``j``'s fit.
+
+        Parameters
+        ----------
+        j : int
+            Column index, 0..q-1.
+
+        Returns
+        -------
+        PolyFit | None
+            None where ``ok[j]`` is False.
+        """
+        if not self.ok[j]:
+            return None
+        return PolyFit(
+            coef=self.coef[:, j].copy(),
+            sd=float(self.sd[j]),
+            n=int(self.n[j]),
+            kept=self.kept[:, j].copy(),
+            resid=self.resid[:, j].copy(),
+            loo_z=self.loo_z[:, j].copy(),
+            press=float(self.press[j]),
+        )
+
+
+def _mad_screen(r: np.ndarray, finite: np.ndarray):
+    """Median and 1.4826 x MAD of each column's finite residuals, shape (m,) each."""
+    full = finite.all(axis=0)
+    centre = np.empty(r.shape[1])
+    s = np.empty(r.shape[1])
+    centre[full] = np.median(r[:, full], axis=0)
+    s[full] = MAD_TO_SD * np.median(np.abs(r[:, full] - centre[full]), axis=0)
+    for c in np.flatnonzero(~full):  # columns with missing values, one by one
+        rc = r[finite[:, c], c]
+        centre[c] = np.median(rc)
+        s[c] = MAD_TO_SD * np.median(np.abs(rc - centre[c]))
+    return centre, s
+
+
+@fill_doc
+def fit_poly_columns(
+    age: np.ndarray,
+    Y: np.ndarray,
+    degree: int,
+    *,
+    robust=True,
+    threshold: float = ROBUST_SD,
+    max_iter: int = ROBUST_MAX_ITER,
+) -> PolyFits:
+    """:func:`fit_poly` for every column of ``Y`` at once (same rule, same numbers).
+
+    Columns that keep the same controls share one least-squares solve per pass.
+
+    Parameters
+    ----------
+    age : ndarray, shape (n,)
+        Ages in years (> 0 when ``degree > 0``).
+    Y : ndarray, shape (n, q)
+        Transformed values, one quantity per column; NaN marks a missing value.
+    degree : int
+        Polynomial degree, 0..3.
+    robust : bool or ndarray of bool, shape (q,)
+        :func:`fit_poly`'s exclusion rule, for all columns or per column.
+    %(robust_clipping)s
+
+    Returns
+    -------
+    PolyFits
+        One fit per column (``ok`` False where :func:`fit_poly` would give None).
+    """
+    age = np.asarray(age, dtype=float)
+    Y = np.asarray(Y, dtype=float)
+    n, q = Y.shape
+    p = degree + 1
+    robust = np.broadcast_to(np.asarray(robust, dtype=bool), (q,))
+    finite = np.isfinite(Y) & np.isfinite(age)[:, None]
+    ok = finite.sum(axis=0) >= p + 2
+    X = design(np.where(np.isfinite(age), age, 1.0), degree)
+    kept = finite & ok
+    active = np.flatnonzero(ok & robust)
+    for it in range(max_iter):
+        if not active.size:
+            break
+        k, y, fin = kept[:, active], Y[:, active], finite[:, active]
+        coef, _ = _ols_columns(X, y, k)
+        r = np.where(fin, y - X @ coef, np.nan)
+        if it == 0:
+            # first screen: scale from the MAD of all residuals (not moved by gross outliers)
+            centre, s = _mad_screen(r, fin)
+        else:
+            # then sigma clipping against the SD of the retained controls; every control is
+            # re-tested each pass, so one wrongly dropped by a low MAD comes back
+            centre = 0.0
+            s = np.sqrt(np.sum(np.where(k, r, 0.0) ** 2, axis=0) / (k.sum(axis=0) - p))
+        go = s > 0
+        with np.errstate(divide="ignore", invalid="ignore"):
+            dev = np.abs(r - centre) / np.where(go, s, np.nan)
+        out = fin & (dev > threshold)
+        cap = fin.sum(axis=0) // 4
+        for c in np.flatnonzero(out.sum(axis=0) > cap):
+            # keep the fit anchored: exclude only the most extreme quarter
+            order = np.argsort(np.where(out[:, c], -dev[:, c], np.inf))
+            out[:, c] = False
+            out[order[: cap[c]], c] = True
+        new = fin & ~out
+        stop = (new.sum(axis=0) < p + 2) | ((it > 0) & np.all(new == k, axis=0))
+        move = go & ~stop
+        kept[:, active[move]] = new[:, move]
+        active = active[move]
+
+    coef = np.full((p, q), np.nan)
+    sd = np.full(q, np.nan)
+    press = np.full(q, np.nan)
+    resid = np.full((n, q), np.nan)
+    loo_z = np.full((n, q), np.nan)
+    cols_ok = np.flatnonzero(ok)
+    c_ok, groups = _ols_columns(X, Y[:, cols_ok], kept[:, cols_ok], hat=True)
+    coef[:, cols_ok] = c_ok
+    resid[:, cols_ok] = np.where(finite[:, cols_ok], Y[:, cols_ok] - X @ c_ok, np.nan)
+    n_kept = kept.sum(axis=0)
+    for rows, cols, h in groups:
+        cc = cols_ok[cols]
+        m = int(rows.sum())
+        e = resid[np.ix_(rows, cc)]
+        rss = np.einsum("ij,ij->j", e, e)
+        sd[cc] = np.sqrt(rss / (m - p))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            e_loo = e / (1.0 - h)[:, None]
+            s2_loo = (rss - e * e_loo) / (m - p - 1)  # deleted residual variance
+            loo_z[np.ix_(rows, cc)] = e_loo / np.sqrt(s2_loo)
+        press[cc] = np.mean(e_loo**2, axis=0)
+    # excluded controls: against the final fit, which already excludes them
+    excl = finite & ~kept & ok
+    with np.errstate(divide="ignore", invalid="ignore"):
+        loo_z[excl] = (resid / sd)[excl]
+    return PolyFits(
+        ok=ok, coef=coef, sd=sd, n=n_kept, kept=kept, resid=resid, loo_z=loo_z, press=press
+    )
+
+
+@fill_doc
 def fit_poly(
     age: np.ndarray,
     y: np.ndarray,
@@ -116,65 +315,18 @@ def fit_poly(
         stable (at most ``max_iter`` passes).  Re-testing every control lets one wrongly
         dropped by an unluckily small MAD return.  At most a quarter of the controls is ever
         excluded (the most extreme first).
-    threshold : float
-        Exclusion threshold in (robust) SDs (:data:`ROBUST_SD`).
-    max_iter : int
-        Most sigma-clipping passes (:data:`ROBUST_MAX_ITER`).
+    %(robust_clipping)s
 
     Returns
     -------
     PolyFit | None
         None when fewer than ``degree + 3`` finite values remain.
     """
-    age = np.asarray(age, dtype=float)
     y = np.asarray(y, dtype=float)
-    p = degree + 1
-    finite = np.isfinite(y) & np.isfinite(age)
-    if finite.sum() < p + 2:
-        return None
-    X = design(np.where(finite, age, 1.0), degree)
-    kept = finite.copy()
-    for it in range(max_iter if robust else 1):
-        coef, _, _ = _ols(X[kept], y[kept])
-        r = np.where(finite, y - X @ coef, np.nan)
-        if not robust:
-            break
-        if it == 0:
-            # first screen: scale from the MAD of all residuals (not moved by gross outliers)
-            centre = np.median(r[finite])
-            s = MAD_TO_SD * np.median(np.abs(r[finite] - centre))
-        else:
-            # then sigma clipping against the SD of the retained controls; every control is
-            # re-tested each pass, so one wrongly dropped by a low MAD comes back
-            centre = 0.0
-            s = np.sqrt(np.sum(r[kept] ** 2) / (kept.sum() - p))
-        if not s > 0:
-            break
-        dev = np.abs(r - centre) / s
-        out = finite & (dev > threshold)
-        cap = int(finite.sum()) // 4
-        if out.sum() > cap:  # keep the fit anchored: exclude only the most extreme quarter
-            order = np.argsort(np.where(out, -dev, np.inf))
-            out = np.zeros_like(out)
-            out[order[:cap]] = True
-        new = finite & ~out
-        if new.sum() < p + 2 or (it > 0 and np.array_equal(new, kept)):
-            break
-        kept = new
-    coef, fitted, h = _ols(X[kept], y[kept])
-    n = int(kept.sum())
-    resid = np.where(finite, y - X @ coef, np.nan)
-    e = resid[kept]
-    rss = float(e @ e)
-    sd = np.sqrt(rss / (n - p))
-    loo_z = np.full(y.shape, np.nan)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        e_loo = e / (1.0 - h)
-        s2_loo = (rss - e * e_loo) / (n - p - 1)  # deleted residual variance
-        loo_z[kept] = e_loo / np.sqrt(s2_loo)
-    loo_z[finite & ~kept] = resid[finite & ~kept] / sd
-    press = float(np.mean(e_loo**2))
-    return PolyFit(coef=coef, sd=float(sd), n=n, kept=kept, resid=resid, loo_z=loo_z, press=press)
+    fits = fit_poly_columns(
+        age, y[:, None], degree, robust=robust, threshold=threshold, max_iter=max_iter
+    )
+    return fits.column(0)
 
 
 def select_degree(
@@ -205,11 +357,9 @@ def select_degree(
     """
     logs = {}
     for d in degrees:
-        vals = []
-        for j in range(Y.shape[1]):
-            f = fit_poly(age, Y[:, j], d, robust=robust)
-            vals.append(np.log(f.press) if f is not None and f.press > 0 else np.nan)
-        logs[d] = np.asarray(vals)
+        f = fit_poly_columns(age, Y, d, robust=robust)
+        good = f.ok & (f.press > 0)
+        logs[d] = np.where(good, np.log(np.where(good, f.press, 1.0)), np.nan)
     stack = np.vstack([logs[d] for d in degrees])
     ok = np.all(np.isfinite(stack), axis=0)
     if not ok.any():
