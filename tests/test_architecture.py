@@ -18,6 +18,7 @@ PKG = ROOT / "sourcelab"
 #: top-level module or sub-package of sourcelab -> layer (DEVELOPERS.md)
 LAYERS = {
     "__init__": 0,
+    "__main__": 20,
     "_docs": 0,
     "_threads": 0,
     "constants": 0,

@@ -347,3 +347,34 @@ def test_atlas_plot_has_a_legend(tmp_path, capsys):
     out = tmp_path / "a.png"
     assert main(["atlas", "plot", "yeo7", "--out", str(out)]) == 0
     assert out.read_bytes().startswith(b"\x89PNG")
+
+
+def test_python_dash_m_runs_the_same_command_line(tmp_path):
+    # ``python -m sourcelab`` is the documented fallback when the console script is not on PATH
+    # (Python docs, "__main__ — Top-level code environment"): same version, same refusal code.
+    import os
+    import subprocess
+    import sys
+
+    from sourcelab import __version__
+
+    env = dict(os.environ, MPLBACKEND="Agg")
+    r = subprocess.run(
+        [sys.executable, "-m", "sourcelab", "--version"],
+        capture_output=True,
+        text=True,
+        env=env,
+        cwd=tmp_path,
+        timeout=120,
+    )
+    assert r.returncode == 0 and r.stdout.strip() == f"sourcelab {__version__}", r
+    r = subprocess.run(
+        [sys.executable, "-m", "sourcelab", "analyze", str(tmp_path / "absent.edf"), "--out", "o"],
+        capture_output=True,
+        text=True,
+        env=env,
+        cwd=tmp_path,
+        timeout=120,
+    )
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
+    assert "absent.edf" in r.stderr and not (tmp_path / "o").exists()
