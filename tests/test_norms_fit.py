@@ -208,3 +208,32 @@ def test_check_norms_summary(fit, tmp_path):
     # the fingerprint declares the IFCN delta and gamma (Babiloni et al. 2020), which these
     # norms (theta, alpha, beta: sourcelab.simulate.tables) lack
     assert "without norms: ['delta', 'gamma']" in s
+
+
+def test_check_norms_counts_age_gaps(cohort, tmp_path):
+    # Known answer: binned norms (18-30, 30-45, 45-66 y) with the middle bin of exactly one ROI
+    # quantity removed have one gap between age ranges (30 y to 45 y), and no other.
+    import dataclasses
+
+    binned = fit_norms(
+        cohort.entries,
+        fingerprint=FP,
+        condition="eyes closed",
+        model="binned",
+        bins=[18, 30, 45, 66],
+        min_n_per_bin=10,
+    ).norms
+    t = binned.table
+    roi = t[t["kind"] == "roi"]
+    first = roi.iloc[0]
+    same = (
+        roi[["atlas", "name", "hemisphere", "band", "measure"]]
+        == first[["atlas", "name", "hemisphere", "band", "measure"]]
+    ).all(axis=1)
+    middle = roi.index[same & (roi["age_min"] == 30.0)]
+    assert len(middle) == 1
+    holed = dataclasses.replace(binned, table=t.drop(middle).reset_index(drop=True))
+    s = check_norms(write_norms(holed, tmp_path / "holed.tsv").path)
+    assert "WARNING roi: 1 gaps between age ranges" in s
+    assert s.count("gaps between age ranges") == 1  # none for the sensor rows
+    assert "gaps" not in check_norms(write_norms(binned, tmp_path / "whole.tsv").path)
