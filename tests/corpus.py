@@ -20,6 +20,7 @@ maps.
 
 from __future__ import annotations
 
+import functools
 import json
 import os
 import random
@@ -1244,15 +1245,21 @@ def _(d, base):
 # --- norms files ----------------------------------------------------------------------------
 
 
+@functools.lru_cache(maxsize=2)
+def _legacy_text(norms_path: Path) -> str:
+    """The base norms as format-2 text, made once per corpus (reading and formatting the demo
+    norms takes ~1 s; every format-2 case mutates the same text)."""
+    from sourcelab.norms.io import _format_legacy, read_norms
+
+    return _format_legacy(read_norms(norms_path))
+
+
 def _norms_case(cid: str, mutate, names=("norms.tsv",), v3: bool = False):
     # mutations of the format-2 text (commented header; still read) and, with v3, of the
     # format-3 table beside an intact sidecar
     @case(cid)
     def _(d, base):
-        from sourcelab.norms.io import _format_legacy, read_norms
-
-        text = _format_legacy(read_norms(base.norms))
-        out = mutate(text)
+        out = mutate(_legacy_text(base.norms))
         (d / "norms.tsv").write_bytes(out if isinstance(out, bytes) else out.encode())
         return Case(cid, ["norms", "check", "norms.tsv"], names, out=None)
 
