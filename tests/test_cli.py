@@ -28,9 +28,23 @@ def sim_edf(tmp_path_factory):
     return path
 
 
-def test_analyze_writes_tables_and_provenance(sim_edf, tmp_path, capsys):
-    out = tmp_path / "res"
-    assert main(["analyze", str(sim_edf), "--out", str(out), "--no-figures", "--no-report"]) == 0
+@pytest.fixture(scope="module")
+def analysed(sim_edf, tmp_path_factory):
+    """One default analysis (tables, maps, provenance) of the simulated file and what it printed,
+    shared by the tests that read an analysis folder (it takes ~10 s)."""
+    import contextlib
+    import io
+
+    out = tmp_path_factory.mktemp("analysed") / "res"
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed):
+        code = main(["analyze", str(sim_edf), "--out", str(out), "--no-figures", "--no-report"])
+    assert code == 0
+    return out, printed.getvalue()
+
+
+def test_analyze_writes_tables_and_provenance(analysed):
+    out, printed = analysed
     t = pd.read_csv(out / "roi_table.tsv", sep="\t")
     for col in ("roi", "hemisphere", "atlas", "band", "measure", "value", "z"):
         assert col in t.columns
@@ -39,7 +53,7 @@ def test_analyze_writes_tables_and_provenance(sim_edf, tmp_path, capsys):
     prov = json.loads((out / "provenance.json").read_text())
     assert prov["fingerprint"]["method"] == "sLORETA"
     assert len(prov["inputs"]["recording"]["sha256"]) == 64
-    assert "not a diagnostic device" in capsys.readouterr().out  # the cautions line
+    assert "not a diagnostic device" in printed  # the cautions line
 
 
 def _bad(args, tmp_path, capsys, match):
@@ -93,9 +107,11 @@ def test_bad_norms(sim_edf, tmp_path, capsys):
     _bad(["analyze", str(sim_edf), "--norms", str(n), "--age", "30"], tmp_path, capsys, "norms.tsv")
 
 
-def test_failed_rerun_keeps_previous_output(sim_edf, tmp_path, capsys):
+def test_failed_rerun_keeps_previous_output(analysed, tmp_path, capsys):
+    import shutil
+
     out = tmp_path / "keep"
-    assert main(["analyze", str(sim_edf), "--out", str(out), "--no-figures", "--no-report"]) == 0
+    shutil.copytree(analysed[0], out, symlinks=True)  # a finished output, as a user has it
     before = (out / "roi_table.tsv").read_bytes()
     assert main(["analyze", str(tmp_path / "missing.edf"), "--out", str(out)]) == 2
     assert (out / "roi_table.tsv").read_bytes() == before
