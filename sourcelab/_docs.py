@@ -69,6 +69,19 @@ epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
     Per-epoch broadband cross-spectra (``AnalysisResult.epoch_total``), the denominator of
     relative power."""
 
+# ----------------------------------------------------------------------------------- report
+#: Parameters and Returns of the label look-ups (``column_label``, ``field_label``).
+docdict["label_lookup"] = """\
+Parameters
+----------
+name : object
+    A column or field name (converted to ``str``).
+
+Returns
+-------
+str
+    Its entry in the table; a name not in it with underscores turned into spaces."""
+
 # ---------------------------------------------------------------------------------- targets
 #: The checks of a parsed target file (``target_from_dict``, ``coupling_target_from_dict``).
 docdict["target_check"] = """\
