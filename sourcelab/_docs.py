@@ -44,6 +44,44 @@ threshold : float
 max_iter : int
     Most sigma-clipping passes (:data:`~sourcelab.norms.models.ROBUST_MAX_ITER`)."""
 
+# ------------------------------------------------------------------------------------ trust
+#: The options of ``add_intervals`` and ``add_sensor_intervals`` (trust/bootstrap.py).
+docdict["bootstrap_interval_options"] = """\
+**options
+    Keywords only, the bootstrap options below (an unknown one is a TypeError).
+n_boot : int
+    Bootstrap replicates (default 1,000).
+seed : int
+    Seed of the replicate draw (default 0): the same seed resamples the same epochs for ROI
+    and sensor tables.
+ci : float
+    Interval coverage (default 0.95).
+norm_rows : NormRows, optional
+    The table's matched norms (:func:`sourcelab.norms.match_norms`); gives ``z_lo`` and
+    ``z_hi``.  Without it they are NaN and ``robust`` is NA.
+band_names : sequence of str, optional
+    Band names in ``epoch_csd`` order (default: order of first appearance in the table,
+    which is the pipeline's order).
+z_threshold : float
+    Deviation threshold for ``robust`` (default
+    :data:`~sourcelab.constants.Z_THRESHOLD`, 1.96).
+epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
+    Per-epoch broadband cross-spectra (``AnalysisResult.epoch_total``), the denominator of
+    relative power."""
+
+# ----------------------------------------------------------------------------------- report
+#: Parameters and Returns of the label look-ups (``column_label``, ``field_label``).
+docdict["label_lookup"] = """\
+Parameters
+----------
+name : object
+    A column or field name (converted to ``str``).
+
+Returns
+-------
+str
+    Its entry in the table; a name not in it with underscores turned into spaces."""
+
 # ---------------------------------------------------------------------------------- targets
 #: The checks of a parsed target file (``target_from_dict``, ``coupling_target_from_dict``).
 docdict["target_check"] = """\

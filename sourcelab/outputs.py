@@ -214,16 +214,7 @@ def write_tables(result, folder: Path, *, command=None) -> None:
 
 
 @fill_doc
-def write_analysis(
-    result,
-    out: str | Path,
-    *,
-    figures: bool = True,
-    report: bool = True,
-    exports: bool = True,
-    command=None,
-    progress: bool | None = False,
-) -> Path:
+def write_analysis(result, out: str | Path, **options) -> Path:
     """Write everything for one analysis into ``out`` (replaced atomically).
 
     See :func:`write_analysis_into` for the files.
@@ -234,6 +225,8 @@ def write_analysis(
         The analysis.
     out : str or pathlib.Path
         Output folder; written in a temporary folder beside it and renamed into place.
+    **options
+        Keywords of :func:`write_analysis_into`:
     %(write_options)s
 
     Returns
@@ -243,15 +236,7 @@ def write_analysis(
     """
     out = Path(out)
     with atomic_output_dir(out) as tmp:
-        write_analysis_into(
-            result,
-            tmp,
-            figures=figures,
-            report=report,
-            exports=exports,
-            command=command,
-            progress=progress,
-        )
+        write_analysis_into(result, tmp, **options)
     return out
 
 

@@ -289,26 +289,35 @@ class OutputFolder:
         return KINDS[self.kind]
 
 
-def _read_json_file(path: Path, max_bytes: int = _MARKER_MAX_BYTES):
-    """Parse a small JSON file without following a symlink; None when absent or unreadable."""
-    from .checks import loads_json
-
+def _open_small_file(path: Path, flags: int, max_bytes: int) -> int | None:
+    """A descriptor of ``path`` opened with ``flags`` without following a symlink, when it is a
+    regular file of at most ``max_bytes``; None (nothing left open) otherwise."""
     try:
-        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0))
+        fd = os.open(path, flags | getattr(os, "O_NOFOLLOW", 0))
     except OSError:
         return None
     try:
         st = os.fstat(fd)
-        if not stat.S_ISREG(st.st_mode) or st.st_size > max_bytes:
-            return None
+    except OSError:
+        st = None
+    if st is None or not stat.S_ISREG(st.st_mode) or st.st_size > max_bytes:
+        os.close(fd)
+        return None
+    return fd
+
+
+def _read_json_file(path: Path, max_bytes: int = _MARKER_MAX_BYTES):
+    """Parse a small JSON file without following a symlink; None when absent or unreadable."""
+    from .checks import loads_json
+
+    fd = _open_small_file(path, os.O_RDONLY, max_bytes)
+    if fd is None:
+        return None
+    try:
         with os.fdopen(fd, "rb") as f:
-            fd = None
             data = f.read(max_bytes + 1)
     except OSError:
         return None
-    finally:
-        if fd is not None:
-            os.close(fd)
     try:
         return loads_json(data, where=path, max_depth=64)
     except InputError:
@@ -697,15 +706,10 @@ def _write_tmp_marker(folder: Path, name: str, role: str = "build") -> int:
 def _owner_gone(folder: Path) -> bool | None:
     """For a temporary folder: ``"build"``/``"old"`` (its role) when its marker exists and nobody
     holds its lock; False when a live run holds it; None when there is no valid marker."""
-    path = folder / TMP_MARKER_NAME
-    try:
-        fd = os.open(path, os.O_RDWR | getattr(os, "O_NOFOLLOW", 0))
-    except OSError:
+    fd = _open_small_file(folder / TMP_MARKER_NAME, os.O_RDWR, 4096)
+    if fd is None:
         return None
     try:
-        st = os.fstat(fd)
-        if not stat.S_ISREG(st.st_mode) or st.st_size > 4096:
-            return None
         doc = json.loads(os.read(fd, 4096).decode("utf-8", "replace") or "null")
         if not isinstance(doc, dict) or doc.get("sourcelab_tmp") != 1:
             return None

@@ -86,27 +86,6 @@ CIRCULAR_PERIOD: dict[str, float] = {
 COUPLING_KINDS = {"pair": {"name": "pair"}, "edge": {"atlas": "atlas", "name": "edge"}}
 
 
-def transform_for_coupling(measure: str) -> str:
-    """Transform name for a pair / edge measure.
-
-    Parameters
-    ----------
-    measure : str
-        A key of :data:`TRANSFORM_FOR_COUPLING` (``"msc"``, ``"imcoh"``, ``"phase_deg"``, ...).
-
-    Returns
-    -------
-    str
-        The transform's name (see :mod:`sourcelab.norms.transforms`).
-
-    Raises
-    ------
-    InputError
-        For an unknown measure.
-    """
-    return TRANSFORM_FOR_COUPLING[check_option("measure", measure, sorted(TRANSFORM_FOR_COUPLING))]
-
-
 def transformed(values, measure: str) -> np.ndarray:
     """``T(values)`` for one measure (array-like, any shape).
 
@@ -116,14 +95,20 @@ def transformed(values, measure: str) -> np.ndarray:
         Coupling values in the measure's own unit (dimensionless indices; degrees for
         ``phase_deg`` and ``phase_sd_deg``; ms for ``lag_ms``).
     measure : str
-        Pair / edge measure name.
+        Pair / edge measure name, a key of :data:`TRANSFORM_FOR_COUPLING`.
 
     Returns
     -------
     ndarray of float, same shape
         Values on the measure's normalising scale.
+
+    Raises
+    ------
+    InputError
+        For an unknown measure.
     """
-    return get_transform(transform_for_coupling(measure)).forward(values)
+    name = TRANSFORM_FOR_COUPLING[check_option("measure", measure, sorted(TRANSFORM_FOR_COUPLING))]
+    return get_transform(name).forward(values)
 
 
 def _difference(t: np.ndarray, mean, measure: str) -> np.ndarray:

@@ -12,6 +12,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from .._docs import fill_doc
 from ..rois.names import area_name
 
 #: What a missing value reads as.
@@ -157,36 +158,26 @@ FIELD_LABELS = {
 }
 
 
-def column_label(col) -> str:
-    """Header of a table column (``"peak_z"`` -> ``"peak z"``).
+@fill_doc
+def column_label(name) -> str:
+    """Header of a table column (``"peak_z"`` -> ``"peak z"``), from :data:`COLUMN_LABELS`.
 
-    Parameters
-    ----------
-    col : object
-        Column name (converted to ``str``).
-
-    Returns
-    -------
-    str
-        Its entry in :data:`COLUMN_LABELS`; unknown names with underscores turned into spaces.
+    %(label_lookup)s
     """
-    return COLUMN_LABELS.get(str(col), str(col).replace("_", " "))
+    return _label(COLUMN_LABELS, name)
 
 
-def field_label(key) -> str:
-    """Label of a record field (``"sfreq"`` -> ``"sampling rate (Hz)"``).
+@fill_doc
+def field_label(name) -> str:
+    """Label of a record field (``"sfreq"`` -> ``"sampling rate (Hz)"``), from :data:`FIELD_LABELS`.
 
-    Parameters
-    ----------
-    key : object
-        Field name (converted to ``str``).
-
-    Returns
-    -------
-    str
-        Its entry in :data:`FIELD_LABELS`; unknown names with underscores turned into spaces.
+    %(label_lookup)s
     """
-    return FIELD_LABELS.get(str(key), str(key).replace("_", " "))
+    return _label(FIELD_LABELS, name)
+
+
+def _label(labels: dict, name) -> str:
+    return labels.get(str(name), str(name).replace("_", " "))
 
 
 def _is_missing(v) -> bool:

@@ -65,10 +65,10 @@ from .definition import (
 )
 from .replay import (
     chunk_array,
-    draw_z_panel,
+    draw_offline_value,
+    plot_replay,
     push_in_chunks,
     replay_input,
-    shade_unclean,
     write_replay,
 )
 
@@ -572,61 +572,31 @@ def replay_coupling_array(
     )
 
 
-def plot_coupling_replay(result: CouplingReplay, target: CouplingTarget, *, figure=None):
-    """Windowed value and z over time; offline value dashed; unclean segments shaded.
+def draw_coupling_values(ax, result: CouplingReplay, target: CouplingTarget, **line) -> None:
+    """The value panel of a coupling target's replay figure (:func:`~.replay.plot_replay`).
 
     Parameters
     ----------
+    ax : matplotlib.axes.Axes
     result : CouplingReplay
         From :func:`replay_coupling_array`.
     target : CouplingTarget
-        The replayed target (labels, window, offline value, norm).
-    figure : matplotlib.figure.Figure, optional
-        Figure to draw into; default a new one.
-
-    Returns
-    -------
-    matplotlib.figure.Figure
-        Two panels: windowed value and z (the drawn ``figure`` when given).
+        The replayed target (measure, window, offline value).
+    **line
+        Style of the windowed-value line (``lw``, ``marker``...), in gray.
     """
-    from matplotlib.figure import Figure
-
-    fig = figure if figure is not None else Figure(figsize=(9, 5), layout="constrained")
-    ax_v, ax_z = fig.subplots(2, 1, sharex=True)
-    ax_v.plot(
-        result.time_s,
-        result.value,
-        lw=0.9,
-        color="0.2",
-        marker=".",
-        ms=3,
-        label=f"replayed (last {target.window_segments} segments)",
-    )
-    off = target.offline.get("value")
-    if off is not None and np.isfinite(off):
-        ax_v.axhline(off, ls="--", color="tab:blue", label="offline analysis")
+    label = f"replayed (last {target.window_segments} segments)"
+    ax.plot(result.time_s, result.value, color="0.2", label=label, **line)
+    draw_offline_value(ax, target)
     if np.isfinite(result.pooled_value):
-        ax_v.axhline(
+        ax.axhline(
             result.pooled_value, ls=":", color="tab:orange", label="replay, all clean segments"
         )
-    ax_v.set_ylabel(target.measure)
-    ax_v.set_title(
+    ax.set_ylabel(target.measure)
+    ax.set_title(
         f"{target.name}: {target.segment_s:g}-s segments, window of {target.window_segments}"
     )
-    ax_v.legend(loc="upper right", fontsize=8)
-    draw_z_panel(
-        ax_z,
-        result.time_s,
-        result.z,
-        target.norm,
-        ylabel="z (window)",
-        xlabel="time (s, segment end)",
-        lw=0.9,
-        marker=".",
-        ms=3,
-    )
-    shade_unclean((ax_v, ax_z), result.time_s, result.clean)
-    return fig
+    ax.legend(loc="upper right", fontsize=8)
 
 
 def replay_coupling_recording(target: CouplingTarget, recording, out: str | Path) -> dict:
@@ -678,7 +648,7 @@ def replay_coupling_recording(target: CouplingTarget, recording, out: str | Path
     write_replay(
         out,
         res.to_frame(),
-        plot_coupling_replay(res, target),
+        plot_replay(res, target),
         summary,
         recording=rec,
         target=target,

@@ -555,45 +555,60 @@ def expected_ratio(
     return float(np.sum(np.abs(h) ** 2 * psd) / np.sum(e * psd))
 
 
-def plot_replay(result: ReplayResult, target: TargetDefinition, *, figure=None):
-    """Power and z time courses; unclean windows shaded; offline value as a dashed line.
+def plot_replay(result, target, *, figure=None):
+    """Replayed value and z over time; unclean rows shaded; offline value as a dashed line.
 
     Parameters
     ----------
-    result : ReplayResult
-        From :func:`replay_array`.
-    target : TargetDefinition
-        The replayed target (labels, offline value, norm, live section).
+    result : ReplayResult or CouplingReplay
+        From :func:`replay_array` (band-power target) or
+        :func:`~sourcelab.targets.coupling.replay_coupling_array` (pair or edge target).
+    target : TargetDefinition or CouplingTarget
+        The replayed target (labels, window, offline value, norm).
     figure : matplotlib.figure.Figure, optional
         Figure to draw into; default a new one.
 
     Returns
     -------
     matplotlib.figure.Figure
-        Two panels: power and z (the drawn ``figure`` when given).
+        Two panels: the replayed value (band power, or the pair/edge measure) and z (the drawn
+        ``figure`` when given).
     """
     from matplotlib.figure import Figure
 
+    from .coupling import CouplingTarget, draw_coupling_values
+
     fig = figure if figure is not None else Figure(figsize=(9, 5), layout="constrained")
-    ax_p, ax_z = fig.subplots(2, 1, sharex=True)
-    ax_p.plot(result.time_s, result.power, lw=0.8, color="0.2", label="replayed (causal)")
+    ax_v, ax_z = fig.subplots(2, 1, sharex=True)
+    if isinstance(target, CouplingTarget):
+        line = {"lw": 0.9, "marker": ".", "ms": 3}
+        draw_coupling_values(ax_v, result, target, **line)
+        ylabel, xlabel = "z (window)", "time (s, segment end)"
+    else:
+        line = {"lw": 0.8}
+        ax_v.plot(result.time_s, result.power, color="0.2", label="replayed (causal)", **line)
+        draw_offline_value(ax_v, target)
+        ax_v.set_ylabel(f"{target.measure} power")
+        ax_v.set_title(f"{target.name}: {target.window_s:g}-s windows every {target.step_s:g} s")
+        ax_v.legend(loc="upper right", fontsize=8)
+        ylabel, xlabel = "z", "time (s, window end)"
+    draw_z_panel(ax_z, result.time_s, result.z, target.norm, ylabel=ylabel, xlabel=xlabel, **line)
+    shade_unclean((ax_v, ax_z), result.time_s, result.clean)
+    return fig
+
+
+def draw_offline_value(ax, target) -> None:
+    """The target's offline value as a dashed line on the value panel of a replay figure.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+    target : TargetDefinition or CouplingTarget
+        Nothing is drawn when its offline value is missing or not finite.
+    """
     off = target.offline.get("value")
     if off is not None and np.isfinite(off):
-        ax_p.axhline(off, ls="--", color="tab:blue", label="offline analysis")
-    ax_p.set_ylabel(f"{target.measure} power")
-    ax_p.set_title(f"{target.name}: {target.window_s:g}-s windows every {target.step_s:g} s")
-    ax_p.legend(loc="upper right", fontsize=8)
-    draw_z_panel(
-        ax_z,
-        result.time_s,
-        result.z,
-        target.norm,
-        ylabel="z",
-        xlabel="time (s, window end)",
-        lw=0.8,
-    )
-    shade_unclean((ax_p, ax_z), result.time_s, result.clean)
-    return fig
+        ax.axhline(off, ls="--", color="tab:blue", label="offline analysis")
 
 
 def replay_recording(target: TargetDefinition, recording, out: str | Path) -> dict:

@@ -47,6 +47,7 @@ import numpy as np
 import pandas as pd
 from scipy import sparse
 
+from .._docs import fill_doc
 from ..constants import Z_THRESHOLD
 from ..errors import InputError
 from ..spectra import average_reference
@@ -466,11 +467,18 @@ def _check_ci(ci: float) -> None:
         raise InputError(f"ci: need a coverage in (0, 1), e.g. 0.95, got {ci!r}")
 
 
-def add_intervals(
-    roi_table: pd.DataFrame,
-    epoch_csd: np.ndarray,
-    op,
-    atlases,
+def _epoch_csd(epoch_csd) -> np.ndarray:
+    c = np.asarray(epoch_csd)
+    if c.ndim != 4:
+        raise InputError(f"epoch_csd: need shape (n_epochs, n_bands, n_ch, n_ch), got {c.shape}")
+    return c
+
+
+def _interval_columns(
+    table: pd.DataFrame,
+    c: np.ndarray,
+    columns: np.ndarray,
+    draw,
     *,
     n_boot: int = 1000,
     seed: int = 0,
@@ -479,6 +487,35 @@ def add_intervals(
     band_names: Sequence[str] | None = None,
     z_threshold: float = Z_THRESHOLD,
     epoch_total: np.ndarray | None = None,
+) -> pd.DataFrame:
+    """The part :func:`add_intervals` and :func:`add_sensor_intervals` share.
+
+    ``columns`` (n_rows,) is each row's column in the replicates; ``draw(c, weights,
+    epoch_total)`` returns ``{measure: replicates (n_boot, n_bands, n_columns)}``.  The
+    keywords are documented once, in ``docdict["bootstrap_interval_options"]`` (``_docs.py``).
+    """
+    _check_ci(ci)
+    bands = _band_order(table, band_names, c.shape[1])
+    band_idx = {b: i for i, b in enumerate(bands)}
+    try:
+        bi = np.array([band_idx[b] for b in table["band"].astype(str)])
+    except KeyError as exc:
+        raise InputError(f"band {exc.args[0]!r} is not in band_names {bands}") from None
+    w = bootstrap_weights(c.shape[0], n_boot=n_boot, seed=seed)
+    meas = table["measure"].astype(str).to_numpy()
+    v_lo = np.full(len(table), np.nan)
+    v_hi = np.full(len(table), np.nan)
+    for m, s in draw(c, w, epoch_total).items():
+        a, b = percentile_interval(s, ci=ci)
+        sel = meas == m
+        v_lo[sel] = a[bi[sel], columns[sel]]
+        v_hi[sel] = b[bi[sel], columns[sel]]
+    return _finish(table, v_lo, v_hi, norm_rows, z_threshold, _meta(w, seed, ci, c.shape[0]))
+
+
+@fill_doc
+def add_intervals(
+    roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, **options
 ) -> pd.DataFrame:
     """Add bootstrap confidence intervals of the value and of z to an ROI table.
 
@@ -493,24 +530,7 @@ def add_intervals(
     atlases : sequence of Atlas or str
         Every atlas named in the table (names are loaded with :func:`sourcelab.rois.load_atlas`;
         custom ROIs are passed as their Atlas).
-    n_boot : int
-        Bootstrap replicates (default 1,000).
-    seed : int
-        Seed of the replicate draw: the same seed resamples the same epochs for ROI and sensor
-        tables.
-    ci : float
-        Interval coverage (default 0.95).
-    norm_rows : NormRows, optional
-        The table's matched norms (:func:`sourcelab.norms.match_norms`); gives ``z_lo`` and
-        ``z_hi``.  Without it they are NaN and ``robust`` is NA.
-    band_names : sequence of str, optional
-        Band names in ``epoch_csd`` order (default: order of first appearance in the table,
-        which is the pipeline's order).
-    z_threshold : float
-        Deviation threshold for ``robust`` (default 1.96).
-    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
-        Per-epoch broadband cross-spectra (``AnalysisResult.epoch_total``), the denominator of
-        relative power.
+    %(bootstrap_interval_options)s
 
     Returns
     -------
@@ -525,16 +545,12 @@ def add_intervals(
     """
     from ..rois import load_atlas
 
-    _check_ci(ci)
-    c = np.asarray(epoch_csd)
-    if c.ndim != 4:
-        raise InputError(f"epoch_csd: need shape (n_epochs, n_bands, n_ch, n_ch), got {c.shape}")
+    c = _epoch_csd(epoch_csd)
     need = {"atlas", "roi", "hemisphere", "band", "measure", "value"} - set(roi_table.columns)
     if need:
         raise InputError(f"roi_table lacks columns {sorted(need)}")
     if c.shape[0] < MIN_EPOCHS_WARN:
         log.warning("only %d clean epochs: bootstrap intervals are coarse", c.shape[0])
-    bands = _band_order(roi_table, band_names, c.shape[1])
     objs = [load_atlas(a) if isinstance(a, str) else a for a in atlases]
     col_of: dict[tuple[str, str, str], int] = {}
     verts = []
@@ -559,39 +575,22 @@ def add_intervals(
     unknown = sorted(measures - {"absolute", "relative"})
     if unknown:
         raise InputError(f"measure: {unknown} not one of ['absolute', 'relative']")
-    w = bootstrap_weights(c.shape[0], n_boot=n_boot, seed=seed)
-    samples = roi_bootstrap(
-        c, op, verts, w, relative="relative" in measures, epoch_total=epoch_total
-    )
-    lo = {m: percentile_interval(s, ci=ci) for m, s in samples.items()}
-    band_idx = {b: i for i, b in enumerate(bands)}
-    try:
-        bi = np.array([band_idx[b] for b in roi_table["band"].astype(str)])
-    except KeyError as exc:
-        raise InputError(f"band {exc.args[0]!r} is not in band_names {bands}") from None
-    ci_ = np.array([col_of[k] for k in keys])
-    meas = roi_table["measure"].astype(str).to_numpy()
-    v_lo = np.full(len(roi_table), np.nan)
-    v_hi = np.full(len(roi_table), np.nan)
-    for m, (a, b) in lo.items():
-        sel = meas == m
-        v_lo[sel] = a[bi[sel], ci_[sel]]
-        v_hi[sel] = b[bi[sel], ci_[sel]]
-    return _finish(roi_table, v_lo, v_hi, norm_rows, z_threshold, _meta(w, seed, ci, c.shape[0]))
+
+    def draw(c, w, epoch_total):
+        relative = "relative" in measures
+        return roi_bootstrap(c, op, verts, w, relative=relative, epoch_total=epoch_total)
+
+    columns = np.array([col_of[k] for k in keys])
+    return _interval_columns(roi_table, c, columns, draw, **options)
 
 
+@fill_doc
 def add_sensor_intervals(
     sensor_table: pd.DataFrame,
     epoch_csd: np.ndarray,
     *,
     ch_names: Sequence[str] | None = None,
-    n_boot: int = 1000,
-    seed: int = 0,
-    ci: float = 0.95,
-    norm_rows=None,
-    band_names: Sequence[str] | None = None,
-    z_threshold: float = Z_THRESHOLD,
-    epoch_total: np.ndarray | None = None,
+    **options,
 ) -> pd.DataFrame:
     """Add bootstrap confidence intervals to a sensor table (see :func:`add_intervals`).
 
@@ -602,8 +601,7 @@ def add_sensor_intervals(
     epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch)
     ch_names : sequence of str, optional
         Channel order of ``epoch_csd`` (default :data:`sourcelab.config.SITES_1020`).
-    n_boot, seed, ci, norm_rows, band_names, z_threshold, epoch_total
-        As in :func:`add_intervals`; use the same seed to resample the same epochs.
+    %(bootstrap_interval_options)s
 
     Returns
     -------
@@ -611,31 +609,17 @@ def add_sensor_intervals(
     """
     from ..constants import SITES_1020
 
-    _check_ci(ci)
-    c = np.asarray(epoch_csd)
-    if c.ndim != 4:
-        raise InputError(f"epoch_csd: need shape (n_epochs, n_bands, n_ch, n_ch), got {c.shape}")
+    c = _epoch_csd(epoch_csd)
     names = list(SITES_1020 if ch_names is None else ch_names)
     if len(names) != c.shape[-1]:
         raise InputError(f"ch_names: {len(names)} names for {c.shape[-1]} channels")
-    bands = _band_order(sensor_table, band_names, c.shape[1])
-    w = bootstrap_weights(c.shape[0], n_boot=n_boot, seed=seed)
-    samples = sensor_bootstrap(c, w, epoch_total=epoch_total)
     ch_idx = {n: i for i, n in enumerate(names)}
-    band_idx = {b: i for i, b in enumerate(bands)}
     try:
-        ci_ = np.array([ch_idx[n] for n in sensor_table["channel"].astype(str)])
-        bi = np.array([band_idx[b] for b in sensor_table["band"].astype(str)])
+        columns = np.array([ch_idx[n] for n in sensor_table["channel"].astype(str)])
     except KeyError as exc:
-        raise InputError(
-            f"sensor_table: {exc.args[0]!r} is not a known channel or band ({names}; {bands})"
-        ) from None
-    meas = sensor_table["measure"].astype(str).to_numpy()
-    v_lo = np.full(len(sensor_table), np.nan)
-    v_hi = np.full(len(sensor_table), np.nan)
-    for m, s in samples.items():
-        a, b = percentile_interval(s, ci=ci)
-        sel = meas == m
-        v_lo[sel] = a[bi[sel], ci_[sel]]
-        v_hi[sel] = b[bi[sel], ci_[sel]]
-    return _finish(sensor_table, v_lo, v_hi, norm_rows, z_threshold, _meta(w, seed, ci, c.shape[0]))
+        raise InputError(f"sensor_table: channel {exc.args[0]!r} is not in {names}") from None
+
+    def draw(c, w, epoch_total):
+        return sensor_bootstrap(c, w, epoch_total=epoch_total)
+
+    return _interval_columns(sensor_table, c, columns, draw, **options)
