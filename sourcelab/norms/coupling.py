@@ -107,8 +107,12 @@ def transformed(values, measure: str) -> np.ndarray:
     InputError
         For an unknown measure.
     """
-    name = TRANSFORM_FOR_COUPLING[check_option("measure", measure, sorted(TRANSFORM_FOR_COUPLING))]
-    return get_transform(name).forward(values)
+    return get_transform(coupling_transform_name(measure)).forward(values)
+
+
+def coupling_transform_name(measure: str) -> str:
+    """The transform name of a pair / edge ``measure`` (InputError for an unknown one)."""
+    return TRANSFORM_FOR_COUPLING[check_option("measure", measure, sorted(TRANSFORM_FOR_COUPLING))]
 
 
 def _difference(t: np.ndarray, mean, measure: str) -> np.ndarray:

@@ -30,7 +30,7 @@ import pandas as pd
 from ..checks import check_option
 from ..errors import InputError
 from ..provenance import Fingerprint
-from .coupling import COUPLING_KINDS, TRANSFORM_FOR_COUPLING, UNTRIMMED_MEASURES
+from .coupling import COUPLING_KINDS, UNTRIMMED_MEASURES, coupling_transform_name
 from .io import COLUMNS, MAX_DEGREE, NA, QUANTITY_COLUMNS, Norms
 from .models import fit_poly_columns, select_degree
 from .predictive import pack_v, xtx_inverse
@@ -66,9 +66,7 @@ def transform_for(kind: str, measure: str) -> str:
         Transform name (see :mod:`sourcelab.norms.transforms`).
     """
     if kind in ("pair", "edge"):
-        return TRANSFORM_FOR_COUPLING[
-            check_option("measure", measure, sorted(TRANSFORM_FOR_COUPLING))
-        ]
+        return coupling_transform_name(measure)
     return transform_for_measure(measure)
 
 
