@@ -324,13 +324,39 @@ def analyze(
     t0 = time.perf_counter()
     config = config or AnalysisConfig()
     names = config.bands.names
-    nm = None
-    if norms is not None:  # cheap checks first: a bad norms file fails before the pipeline runs
-        from .norms import read_norms
+    nm = opts = roi_rows = sensor_rows = source_norms = None
+    model = load_head_model()
+    fp = fingerprint_for(config, model.sha256)
+    atlas_objs = tuple(load_atlas(a) for a in (atlases or DEFAULT_ATLASES))
+    if custom_rois is not None:
+        atlas_objs += (custom_rois,)
+    if norms is not None:  # cheap checks first: norms that do not fit fail before the pipeline
+        from .norms import match_norms, read_norms
 
         nm = norms if not isinstance(norms, (str, Path)) else read_norms(norms)
         if age is None:
             raise InputError("the participant's age is needed with norms (z-scores depend on age)")
+        opts = dict(
+            age=age,
+            fingerprint=fp,
+            condition=condition,
+            allow_extrapolation=allow_extrapolation,
+            allow_condition_mismatch=allow_condition_mismatch,
+        )
+        # the rows of the ROI and sensor tables do not depend on the recording: their norms
+        # (fingerprint, condition, age range, bands and measures) are matched on tables of the
+        # same rows with placeholder values, built by the same functions as the real tables
+        blank = np.zeros((len(names), model.src_pos.shape[0]))
+        roi_rows = match_norms(
+            _roi_table(atlas_objs, blank, blank, names, {}), nm, kind="roi", **opts
+        )
+        blank = np.zeros((len(names), len(model.ch_names)))
+        sensor_rows = match_norms(
+            _sensor_table(model.ch_names, blank, blank, names), nm, kind="sensor", **opts
+        )
+        source_norms = _source_norms(
+            nm, fp, age=float(age), allow_extrapolation=allow_extrapolation
+        )
     with (
         thread_limits(),  # every pool, BLAS and OpenMP (see constants.BLAS_THREADS)
         Stages(STAGES, desc="analysis", enabled=progress) as stages,
@@ -345,7 +371,6 @@ def analyze(
         clean = clean_recording(rec, config, select=select, age=age, overwrite=own)
         if own:
             rec = dataclasses.replace(rec, raw=None, eog_uv=None)
-        model = load_head_model()
         if tuple(clean.ch_names) != tuple(model.ch_names):
             raise InputError(
                 f"channels {clean.ch_names} do not match the head model's {model.ch_names}"
@@ -363,14 +388,10 @@ def analyze(
         src_abs = op.power(csd)
         src_rel = relative_power(src_abs, op.power(total))
         stages.step("areas")
-        atlas_objs = tuple(load_atlas(a) for a in (atlases or DEFAULT_ATLASES))
-        if custom_rois is not None:
-            atlas_objs += (custom_rois,)
         roi_table = _roi_table(
             atlas_objs, src_abs, src_rel, names, resolvable_areas(config.lambda2)
         )
         sensor_table = _sensor_table(clean.ch_names, sens_abs, sens_rel, names)
-        fp = fingerprint_for(config, model.sha256)
         slow = _slow_maximum(src_abs, names, model)
         quality = _quality(clean, csd_epochs, op, atlas_objs[0], config, slow)
         stages.step("coupling")
@@ -379,20 +400,11 @@ def analyze(
             pair_table, coupling_table = _coupling(clean, model, op, config)
 
         stages.step("z-scores")
-        norms_info = roi_rows = sensor_rows = None
+        norms_info = None
         notes: list[str] = []
         if nm is not None:
-            from .norms import apply_norms, match_norms
+            from .norms import apply_norms
 
-            opts = dict(
-                age=age,
-                fingerprint=fp,
-                condition=condition,
-                allow_extrapolation=allow_extrapolation,
-                allow_condition_mismatch=allow_condition_mismatch,
-            )
-            roi_rows = match_norms(roi_table, nm, kind="roi", **opts)
-            sensor_rows = match_norms(sensor_table, nm, kind="sensor", **opts)
             roi_table = apply_norms(roi_table, nm, kind="roi", rows=roi_rows, **opts)
             sensor_table = apply_norms(sensor_table, nm, kind="sensor", rows=sensor_rows, **opts)
             scored_any = False
@@ -450,10 +462,8 @@ def analyze(
         )
         candidates = hints = source_z = None
         if nm is not None:
-            source_z = _source_z_maps(
-                nm, fp, src_abs, src_rel, age=float(age), allow_extrapolation=allow_extrapolation
-            )
-            if source_z is not None:
+            if source_norms is not None:
+                source_z = _source_z_maps(*source_norms, src_abs, src_rel)
                 from .targets.peaks import peak_candidates_for
 
                 zmaps = {(m, b): source_z[m][i] for m in source_z for i, b in enumerate(names)}
@@ -513,18 +523,10 @@ def analyze(
     )
 
 
-def _source_z_maps(
-    norms,
-    fp: Fingerprint,
-    src_abs: np.ndarray,
-    src_rel: np.ndarray,
-    *,
-    age: float,
-    allow_extrapolation: bool,
-) -> dict | None:
-    """Per-source predictive z-maps against the per-source norms beside ``norms`` (or None when
-    there are none): ``{"absolute": (n_bands, n_src), "relative": (n_bands, n_src)}``."""
-    from .norms.source_norms import read_source_norms, source_norms_path, source_z
+def _source_norms(norms, fp: Fingerprint, *, age: float, allow_extrapolation: bool):
+    """The per-source norms beside ``norms`` and the age to evaluate them at (clamped into their
+    range when extrapolation is allowed), or None when there are none."""
+    from .norms.source_norms import read_source_norms, source_norms_path
 
     if norms.path is None:
         return None
@@ -542,6 +544,15 @@ def _source_z_maps(
                 path=path,
             )
         age = min(max(age, lo), hi)
+    return sn, age
+
+
+def _source_z_maps(sn, age: float, src_abs: np.ndarray, src_rel: np.ndarray) -> dict:
+    """Per-source predictive z-maps against per-source norms ``sn`` at ``age`` (years):
+    ``{"absolute": (n_bands, n_src), "relative": (n_bands, n_src)}`` (the measures ``sn`` holds).
+    """
+    from .norms.source_norms import source_z
+
     return {
         m: source_z(sn, v, age=age, measure=m).astype(np.float32)
         for m, v in (("absolute", src_abs), ("relative", src_rel))

@@ -104,3 +104,70 @@ def test_overlapping_or_out_of_range_bands_are_refused(occipital_alpha_edf):
     slow = Bands(names=("slow",), edges=((0.5, 4.0),))  # inside the pass band, below 1 Hz
     with pytest.raises(InputError, match="outside the 1-45 Hz"):
         analyze(occipital_alpha_edf, config=AnalysisConfig(bands=slow, n_boot=0))
+
+
+def _stages_must_not_run(monkeypatch):
+    """Make reading, cleaning and the inverse fail loudly: a refusal must come before them."""
+    import sourcelab.intake
+    import sourcelab.inverse
+
+    def never(*args, **kwargs):
+        raise AssertionError("the pipeline ran before the norms were checked")
+
+    for module, name in (
+        (sourcelab.intake, "read_recording"),
+        (sourcelab.intake, "clean_recording"),
+        (sourcelab.inverse, "inverse_operator"),
+    ):
+        monkeypatch.setattr(module, name, never)
+
+
+@pytest.mark.parametrize(
+    "kwargs, message",
+    [
+        # the demo norms' sidecar states eyes closed, ages about 18-65 y and the default
+        # pipeline (lambda2 = 1/9); messages as match_norms words them (this project's contract)
+        (dict(age=30.0, condition="eyes open"), "differs from the norms' condition"),
+        (dict(age=90.0, condition="eyes closed"), "outside the norms' age ranges"),
+        (
+            dict(age=30.0, condition="eyes closed", config=AnalysisConfig(snr=2.0)),
+            r"fingerprint of the norms differs from the analysis \(lambda2: ",
+        ),
+    ],
+)
+def test_norms_that_do_not_fit_are_refused_before_the_pipeline(monkeypatch, kwargs, message):
+    from sourcelab.demo import demo_norms_path
+
+    _stages_must_not_run(monkeypatch)
+    with pytest.raises(InputError, match=message):
+        analyze("never-read.edf", norms=demo_norms_path(), **kwargs)
+
+
+def test_cli_refuses_unfit_norms_before_the_pipeline_without_output(monkeypatch, tmp_path, capsys):
+    from sourcelab.cli.main import main
+    from sourcelab.demo import demo_norms_path
+
+    _stages_must_not_run(monkeypatch)
+    rec = tmp_path / "never-read.edf"
+    rec.write_bytes(b"not read")
+    out = tmp_path / "out"
+    argv = ["analyze", str(rec), "--norms", str(demo_norms_path()), "--out", str(out)]
+    assert main(argv + ["--age", "90", "--condition", "EC"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "--allow-extrapolation" in err
+    assert not out.exists()
+
+
+def test_norms_matched_before_the_pipeline_are_those_of_the_tables(plain_result, demo_result):
+    # the early match (on tables of the same rows) must give each row the z that matching the
+    # finished tables afterwards gives (apply_norms on the table of the same recording)
+    from sourcelab.demo import DEMO_AGE, DEMO_CONDITION, demo_norms_path
+    from sourcelab.norms import apply_norms, read_norms
+
+    nm = read_norms(demo_norms_path())
+    opts = dict(age=DEMO_AGE, fingerprint=plain_result.fingerprint, condition=DEMO_CONDITION)
+    for name, kind in (("roi_table", "roi"), ("sensor_table", "sensor")):
+        late = apply_norms(getattr(plain_result, name), nm, kind=kind, **opts)
+        early = getattr(demo_result, name)
+        np.testing.assert_array_equal(early["z"].to_numpy(), late["z"].to_numpy())
+        np.testing.assert_array_equal(early["norm_n"].to_numpy(), late["norm_n"].to_numpy())
