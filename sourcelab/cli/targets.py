@@ -181,7 +181,7 @@ def _list(args) -> int:
 
 
 def _export(args) -> int:
-    from ..targets import export_coupling_target, export_target, write_target
+    from ..targets import export_coupling_target, export_target
 
     if args.roi is None:
         from ..targets.coupling import WINDOW_SEGMENTS
@@ -198,13 +198,7 @@ def _export(args) -> int:
             allow_extrapolation=args.allow_extrapolation,
             window_segments=args.window_segments or WINDOW_SEGMENTS,
         )
-        write_target(t, args.out)
-        z = t.offline.get("z")
-        zs = f", offline z {z:+.2f}" if z is not None else ", no norm"
-        print(
-            f"sourcelab: wrote {args.out} ({t.name}, value {t.offline['value']:.4g}{zs}, "
-            f"direction {t.direction})"
-        )
+        _wrote_target(t, args.out, f"value {t.offline['value']:.4g}")
         return 0
     measure = args.measure or "absolute"
     if measure not in ("absolute", "relative"):
@@ -223,16 +217,20 @@ def _export(args) -> int:
         time_constant_s=args.time_constant,
         threshold_sd=args.threshold_sd,
     )
-    write_target(t, args.out)
-    z = t.offline.get("z")
-    zs = f", offline z {z:+.2f}" if z is not None else ", no norm"
-    print(
-        f"sourcelab: wrote {args.out} ({t.name}, {t.vertices.size} sources{zs}, "
-        f"direction {t.direction})"
-    )
+    _wrote_target(t, args.out, f"{t.vertices.size} sources")
     for line in live_summary(t):
         print(f"sourcelab: {line}")
     return 0
+
+
+def _wrote_target(t, out, what: str) -> None:
+    """Write target ``t`` to ``out`` and say so: its name, ``what`` it is, offline z, direction."""
+    from ..targets import write_target
+
+    write_target(t, out)
+    z = t.offline.get("z")
+    zs = f", offline z {z:+.2f}" if z is not None else ", no norm"
+    print(f"sourcelab: wrote {out} ({t.name}, {what}{zs}, direction {t.direction})")
 
 
 def live_summary(t) -> list[str]:
