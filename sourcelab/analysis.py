@@ -304,7 +304,8 @@ def analyze(
     Raises
     ------
     InputError
-        Unreadable recording, too little clean data, norms that do not fit, ...
+        Unreadable recording, too little clean data, norms that do not fit (fingerprint,
+        condition, age range, bands: checked before the recording is read), ...
     """
     from .headmodel import load_head_model
     from .intake import Recording, clean_recording, read_recording
