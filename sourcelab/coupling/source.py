@@ -408,9 +408,9 @@ def band_analytic(
     return (np.fft.ifft(x, axis=-1) * m).astype(x.dtype, copy=False)
 
 
-#: Elements of the (epochs, pairs, samples) temporaries of :func:`envelope_moments` per block
-#: (512 kB of single precision: cache-sized).
-_ENVELOPE_BLOCK = 128_000
+#: Elements of the (pairs, epochs, samples) temporaries of :func:`envelope_moments` per block
+#: (1 MB of single precision: cache-sized).
+_ENVELOPE_BLOCK = 256_000
 
 
 def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
@@ -431,12 +431,13 @@ def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
     """
     a = np.asarray(analytic)
     n_ep, n, m = a.shape
-    mag = np.abs(a)
-    so = np.empty((n_ep, n, n))
-    soo = np.empty((n_ep, n, n))
-    soy = np.empty((n_ep, n, n))
+    # node-major (n, n_ep, M): a node's samples of all epochs are one contiguous row, so the
+    # nodes of a block of pairs are gathered as whole rows
+    at = np.ascontiguousarray(a.transpose(1, 0, 2))
+    mag = np.abs(at)
     # contiguous parts: the products below read them in order
-    ar, ai = np.ascontiguousarray(a.real), np.ascontiguousarray(a.imag)
+    ar, ai = np.ascontiguousarray(at.real), np.ascontiguousarray(at.imag)
+    del at
     # the phase factor a/|a| (0 where a = 0) as real parts times 1/|a|: numpy's complex division
     # by a real multiplies by the reciprocal, so the same numbers, ~3x faster than a masked
     # complex division
@@ -444,42 +445,35 @@ def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
         inv = np.divide(np.ones((), dtype=mag.dtype), mag)
     inv[~(mag > 0)] = 0.0
     ur, ui = ar * inv, ai * inv
-    del inv
+    del inv, ar, ai
     # o_ij = |Im(a_i conj(u_j))| = |a_i| s_ij with s_ij = |sin(phase_i - phase_j)| symmetric, so
     # one pass over the upper triangle (i < j) gives both directions (o_ji = |a_j| s_ij), and
     # Σ o_ij |a_j| = Σ o_ji |a_i| = Σ |a_i| |a_j| s_ij: half the products of all ordered pairs.
-    # All pairs of a block of epochs at once, the block's (e, pairs, M) arrays cache-sized
-    # (:data:`_ENVELOPE_BLOCK`): the same elementwise operations and per-row sums as pair by
-    # pair (the same numbers), with far fewer, cache-resident passes.  Per-epoch sums of at most
-    # a few hundred samples in the input precision, epochs pooled in float64.
+    # A block of pairs at a time, its (pairs, n_ep, M) arrays cache-sized (:data:`_ENVELOPE_BLOCK`);
+    # each per-epoch sum runs over one contiguous row of M samples, as pair by pair (the same
+    # numbers).  Per-epoch sums of at most a few hundred samples in the input precision, epochs
+    # pooled in float64.
     iu, ju = np.triu_indices(n, 1)
-    step = max(1, _ENVELOPE_BLOCK // max(1, iu.size * m))
-    for s0 in range(0, n_ep, step):
-        e = slice(s0, s0 + step)
-        ue_r, ue_i, me = ur[e], ui[e], mag[e]
-        o = ue_i[:, iu] * ue_r[:, ju]
-        o -= ue_r[:, iu] * ue_i[:, ju]
+    so, soo, soy = (np.zeros((n, n, n_ep)) for _ in range(3))  # (i, j, epoch)
+    step = max(1, _ENVELOPE_BLOCK // max(1, n_ep * m))
+    for p0 in range(0, iu.size, step):
+        i, j = iu[p0 : p0 + step], ju[p0 : p0 + step]
+        o = np.take(ui, i, axis=0) * np.take(ur, j, axis=0)
+        o -= np.take(ur, i, axis=0) * np.take(ui, j, axis=0)
         np.abs(o, out=o)  # s_ij
-        mj = me[:, ju]
-        t = o * me[:, iu]  # o_ij
-        so[e, iu, ju] = t.sum(-1)
-        soo[e, iu, ju] = np.einsum("epm,epm->ep", t, t)
-        soy[e, iu, ju] = np.einsum("epm,epm->ep", t, mj)
+        mj = np.take(mag, j, axis=0)
+        t = o * np.take(mag, i, axis=0)  # o_ij
+        so[i, j] = t.sum(-1)
+        soo[i, j] = np.einsum("pem,pem->pe", t, t)
+        soy[i, j] = np.einsum("pem,pem->pe", t, mj)
         np.multiply(o, mj, out=o)  # o_ji
-        so[e, ju, iu] = o.sum(-1)
-        soo[e, ju, iu] = np.einsum("epm,epm->ep", o, o)
-    soy[:, ju, iu] = soy[:, iu, ju]
-    idx = np.arange(n)
-    for x in (so, soo, soy):  # a node orthogonalised to itself (o = 0; never used)
-        x[:, idx, idx] = 0.0
-    return {
-        "so": so,
-        "soo": soo,
-        "soy": soy,
-        "sy": mag.sum(-1, dtype=float),
-        "syy": (mag * mag).sum(-1, dtype=float),
-        "m": m,
-    }
+        so[j, i] = o.sum(-1)
+        soo[j, i] = np.einsum("pem,pem->pe", o, o)
+    soy[ju, iu] = soy[iu, ju]
+    # back to epoch-major, contiguous (a node orthogonalised to itself: o = 0, never used)
+    so, soo, soy = (np.ascontiguousarray(x.transpose(2, 0, 1)) for x in (so, soo, soy))
+    sy, syy = (np.ascontiguousarray(x.sum(-1, dtype=float).T) for x in (mag, mag * mag))
+    return {"so": so, "soo": soo, "soy": soy, "sy": sy, "syy": syy, "m": m}
 
 
 def aec_from_moments(mom: dict, weights: np.ndarray | None = None) -> np.ndarray:
