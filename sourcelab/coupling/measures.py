@@ -152,21 +152,8 @@ _BLOCK_BYTES = 8 * 2**20
 _BOOT_BYTES = _BLOCK_BYTES
 #: Bytes per statistic of the replicates whose per-bin measures are made at once (cache-sized).
 _POST_BYTES = 256 * 2**10
-#: Elements of the gathered coefficients held at once while a block is made (~4 MB each).
-_GATHER_ELEMENTS = 1_000_000
-
-
-@functools.lru_cache(maxsize=16)
-def _selector(n_nodes: int, ia: bytes, ib: bytes) -> tuple[np.ndarray, np.ndarray]:
-    """One-hot matrices (n_nodes, n_pairs), float32: ``x @ S_a = x[..., ia]``, ``x @ S_b``."""
-    out = []
-    for i in (ia, ib):
-        idx = np.frombuffer(i, dtype=np.int64)
-        m = np.zeros((n_nodes, idx.size), dtype=np.float32)
-        m[idx, np.arange(idx.size)] = 1.0
-        m.setflags(write=False)
-        out.append(m)
-    return tuple(out)
+#: Elements of the gathered coefficients held at once while a block is made (256 kB each).
+_GATHER_ELEMENTS = 64_000
 
 
 def _derive(base: dict, name: str, bins=None) -> np.ndarray:
@@ -250,44 +237,41 @@ class PairStatistics:
         if whole and self._kept:
             return self._kept
         xr, xi = (c[e] for c in self.coef)
-        power = self.power[e]
         ia, ib = self.ia, self.ib
         n_ep, n_bins, n_nodes = xr.shape
-        re, im, inv = (np.empty((n_ep, n_bins, ia.size), dtype=np.float32) for _ in range(3))
-        # the nodes of each pair gathered by products with one-hot selection matrices (for finite
-        # input exactly the gathered values: one term x * 1 plus zeros; about twice as fast as
-        # np.take); non-finite input falls back to np.take
-        sel = None
-        if all(np.isfinite(x).all() for x in (xr, xi, power)):
-            sel = _selector(n_nodes, *(np.asarray(i, np.int64).tobytes() for i in (ia, ib)))
-
-        def gather(x):  # -> (values at a, values at b), each (g, n_bins, n_pairs)
-            if sel is None:
-                return np.take(x, ia, axis=-1), np.take(x, ib, axis=-1)
-            flat, shape = x.reshape(-1, x.shape[-1]), x.shape[:-1] + (ia.size,)
-            # contiguous outputs: the arithmetic below runs its fast loops on them
-            return tuple((flat @ s_).reshape(shape) for s_ in sel)
-
-        # a few epochs at a time, so the gathered coefficients are small temporaries
-        # (elementwise arithmetic: the same numbers as all at once)
-        step = max(1, _GATHER_ELEMENTS // max(1, n_bins * ia.size))
-        for s in range(0, n_ep, step):
+        n_rows = n_ep * n_bins
+        re, im, inv = (np.empty((n_rows, ia.size), dtype=np.float32) for _ in range(3))
+        # node-major copies (n_nodes, epochs x bins): the nodes of every pair are then gathered
+        # as whole rows (contiguous copies, exact for any input; ~4x faster than gathering
+        # along the short node axis), the products made pair-major and transposed into place
+        nr, ni, npw = (
+            np.ascontiguousarray(x.reshape(n_rows, n_nodes).T) for x in (xr, xi, self.power[e])
+        )
+        # a cache-sized block of epochs x bins at a time (elementwise: the same numbers as all
+        # at once)
+        step = max(1, _GATHER_ELEMENTS // max(1, ia.size))
+        for s in range(0, n_rows, step):
             g = slice(s, s + step)
-            (ar, br), (ai, bi) = gather(xr[g]), gather(xi[g])
-            # in place, into the outputs (the same operations as ar * br + ai * bi etc.)
+            ar, br = np.take(nr[:, g], ia, axis=0), np.take(nr[:, g], ib, axis=0)
+            ai, bi = np.take(ni[:, g], ia, axis=0), np.take(ni[:, g], ib, axis=0)
             tmp = np.multiply(ai, bi)
-            np.add(np.multiply(ar, br, out=re[g]), tmp, out=re[g])  # Re(X_a conj(X_b))
+            x = np.multiply(ar, br)
+            x += tmp
+            re[g] = x.T  # Re(X_a conj(X_b))
             np.multiply(ar, bi, out=tmp)
-            np.subtract(np.multiply(ai, br, out=im[g]), tmp, out=im[g])  # Im(X_a conj(X_b))
-            mag, pb = gather(power[g])
-            mag = np.multiply(mag, pb)
+            np.multiply(ai, br, out=x)
+            x -= tmp
+            im[g] = x.T  # Im(X_a conj(X_b))
+            mag = np.multiply(np.take(npw[:, g], ia, axis=0), np.take(npw[:, g], ib, axis=0))
             np.sqrt(mag, out=mag)
             # 1/|S|, 0 where S = 0 (unmasked, then the few zeros set: 4x faster than where=)
             with np.errstate(divide="ignore", invalid="ignore"):
-                np.divide(np.float32(1.0), mag, out=inv[g])
+                np.divide(np.float32(1.0), mag, out=x)
             bad = ~(mag > 0)
             if bad.any():
-                inv[g][bad] = 0.0
+                x[bad] = 0.0
+            inv[g] = x.T
+        re, im, inv = (y.reshape(n_ep, n_bins, ia.size) for y in (re, im, inv))
         base = {"re": re, "im": im, "inv": inv}
         if whole:
             self._kept.update(base)
