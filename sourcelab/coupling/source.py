@@ -408,7 +408,7 @@ def band_analytic(
     return (np.fft.ifft(x, axis=-1) * m).astype(x.dtype, copy=False)
 
 
-#: Elements of the (pairs, epochs, samples) temporaries of :func:`envelope_moments` per block
+#: Elements of the (nodes, epochs, samples) temporaries of :func:`envelope_moments` per block
 #: (1 MB of single precision: cache-sized).
 _ENVELOPE_BLOCK = 256_000
 
@@ -431,44 +431,43 @@ def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
     """
     a = np.asarray(analytic)
     n_ep, n, m = a.shape
-    # node-major (n, n_ep, M): a node's samples of all epochs are one contiguous row, so the
-    # nodes of a block of pairs are gathered as whole rows
+    # node-major (n, n_ep, M): the nodes j > i of node i are one contiguous slab
     at = np.ascontiguousarray(a.transpose(1, 0, 2))
     mag = np.abs(at)
-    # contiguous parts: the products below read them in order
-    ar, ai = np.ascontiguousarray(at.real), np.ascontiguousarray(at.imag)
-    del at
     # the phase factor a/|a| (0 where a = 0) as real parts times 1/|a|: numpy's complex division
     # by a real multiplies by the reciprocal, so the same numbers, ~3x faster than a masked
     # complex division
     with np.errstate(divide="ignore", invalid="ignore"):
         inv = np.divide(np.ones((), dtype=mag.dtype), mag)
     inv[~(mag > 0)] = 0.0
-    ur, ui = ar * inv, ai * inv
-    del inv, ar, ai
+    ur, ui = np.multiply(at.real, inv), np.multiply(at.imag, inv)  # contiguous outputs
+    del inv, at
     # o_ij = |Im(a_i conj(u_j))| = |a_i| s_ij with s_ij = |sin(phase_i - phase_j)| symmetric, so
     # one pass over the upper triangle (i < j) gives both directions (o_ji = |a_j| s_ij), and
     # Σ o_ij |a_j| = Σ o_ji |a_i| = Σ |a_i| |a_j| s_ij: half the products of all ordered pairs.
-    # A block of pairs at a time, its (pairs, n_ep, M) arrays cache-sized (:data:`_ENVELOPE_BLOCK`);
-    # each per-epoch sum runs over one contiguous row of M samples, as pair by pair (the same
-    # numbers).  Per-epoch sums of at most a few hundred samples in the input precision, epochs
-    # pooled in float64.
-    iu, ju = np.triu_indices(n, 1)
+    # Node i against the nodes j > i (a contiguous slab in the node-major layout: no copies),
+    # a block of epochs at a time whose (j, e, M) arrays stay cache-sized
+    # (:data:`_ENVELOPE_BLOCK`); each per-epoch sum runs over one contiguous row of M samples, as
+    # in any layout (the same numbers).  Per-epoch sums of at most a few hundred samples in the
+    # input precision, epochs pooled in float64.
     so, soo, soy = (np.zeros((n, n, n_ep)) for _ in range(3))  # (i, j, epoch)
-    step = max(1, _ENVELOPE_BLOCK // max(1, n_ep * m))
-    for p0 in range(0, iu.size, step):
-        i, j = iu[p0 : p0 + step], ju[p0 : p0 + step]
-        o = np.take(ui, i, axis=0) * np.take(ur, j, axis=0)
-        o -= np.take(ur, i, axis=0) * np.take(ui, j, axis=0)
-        np.abs(o, out=o)  # s_ij
-        mj = np.take(mag, j, axis=0)
-        t = o * np.take(mag, i, axis=0)  # o_ij
-        so[i, j] = t.sum(-1)
-        soo[i, j] = np.einsum("pem,pem->pe", t, t)
-        soy[i, j] = np.einsum("pem,pem->pe", t, mj)
-        np.multiply(o, mj, out=o)  # o_ji
-        so[j, i] = o.sum(-1)
-        soo[j, i] = np.einsum("pem,pem->pe", o, o)
+    step = max(1, _ENVELOPE_BLOCK // max(1, (n - 1) * m))
+    for s0 in range(0, n_ep, step):
+        e = slice(s0, s0 + step)
+        for i in range(n - 1):
+            j = slice(i + 1, n)
+            o = ui[i, e] * ur[j, e]
+            o -= ur[i, e] * ui[j, e]
+            np.abs(o, out=o)  # s_ij
+            mj = mag[j, e]
+            t = o * mag[i, e]  # o_ij
+            so[i, j, e] = t.sum(-1)
+            soo[i, j, e] = np.einsum("jem,jem->je", t, t)
+            soy[i, j, e] = np.einsum("jem,jem->je", t, mj)
+            np.multiply(o, mj, out=o)  # o_ji
+            so[j, i, e] = o.sum(-1)
+            soo[j, i, e] = np.einsum("jem,jem->je", o, o)
+    iu, ju = np.triu_indices(n, 1)
     soy[ju, iu] = soy[iu, ju]
     # back to epoch-major, contiguous (a node orthogonalised to itself: o = 0, never used)
     so, soo, soy = (np.ascontiguousarray(x.transpose(2, 0, 1)) for x in (so, soo, soy))
