@@ -55,19 +55,15 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 
 def _coupling(clean, model, op, atlases, bands, c0, *, n_boot=0):
-    from sourcelab.coupling.sensor import pair_table, sensor_coupling
-    from sourcelab.coupling.source import coupling_table, network_coupling
-    from sourcelab.spectra import epoch_fourier
+    """The analysis' coupling step (``sourcelab.analysis._coupling``: both Fourier transforms,
+    pairs, edges, nulls, intervals with ``n_boot`` replicates, both tables) on the default
+    atlases and bands; ``c0`` (cached per head model) and ``atlases`` are what it looks up."""
+    from sourcelab.analysis import _coupling as coupling_step
+    from sourcelab.config import AnalysisConfig
 
-    spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, bands, dtype=np.complex64)
-    plain, _ = epoch_fourier(clean.epochs, clean.sfreq, bands, taper=False, dtype=np.complex64)
-    sc = sensor_coupling(
-        spec, freqs, bands, model.ch_names, model.ch_pos, null_cov=c0, n_boot=n_boot
-    )
-    ec = network_coupling(
-        spec, plain, freqs, bands, op, atlases, null_cov=c0, normals=model.src_nn, n_boot=n_boot
-    )
-    return pair_table(sc), coupling_table(ec)
+    cfg = AnalysisConfig().replace(coupling_n_boot=n_boot, bands=bands)
+    assert tuple(a.name for a in atlases) == tuple(cfg.coupling_atlases)
+    return coupling_step(clean, model, op, cfg)
 
 
 def _band_values(con, freqs, bands):

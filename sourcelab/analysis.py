@@ -16,7 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._threads import thread_limits
+from ._threads import limited_threads, thread_limits
 from .config import AnalysisConfig, check_sampling_rate
 from .constants import UNITS
 from .errors import InputError
@@ -120,6 +120,7 @@ def _sensor_table(ch_names, sens_abs: np.ndarray, sens_rel: np.ndarray, band_nam
     return pd.DataFrame(rows, columns=list(SENSOR_COLUMNS))
 
 
+@limited_threads(user_api="blas")  # the coupling step's limit, set once for all its parts
 def _coupling(clean, model, op, config: AnalysisConfig):
     """Pair and network/lobe coupling of the clean epochs (see ``sourcelab/coupling/TABLES.md``).
 

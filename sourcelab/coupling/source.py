@@ -767,6 +767,7 @@ def coupling_table(results) -> pd.DataFrame:
     return pd.concat(frames, ignore_index=True)[list(EDGE_COLUMNS)]
 
 
+@one_blas_thread
 def network_coupling(
     spec: np.ndarray,
     spec_plain: np.ndarray | None,
