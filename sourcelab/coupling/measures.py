@@ -152,6 +152,8 @@ _BLOCK_BYTES = 8 * 2**20
 _BOOT_BYTES = _BLOCK_BYTES
 #: Bytes per statistic of the replicates whose per-bin measures are made at once (cache-sized).
 _POST_BYTES = 256 * 2**10
+#: Key suffix of the pair-major copies of statistics that :meth:`PairStatistics._base` makes.
+_PAIR_MAJOR = "@pairs"
 #: Elements of the gathered coefficients held at once while a block is made (256 kB each).
 _GATHER_ELEMENTS = 64_000
 
@@ -241,6 +243,9 @@ class PairStatistics:
         n_ep, n_bins, n_nodes = xr.shape
         n_rows = n_ep * n_bins
         re, im, inv = (np.empty((n_rows, ia.size), dtype=np.float32) for _ in range(3))
+        # ``im`` and ``u_im`` also pair-major, (n_pairs, epochs x bins), as the grams of the
+        # analytic null read them (:meth:`grams`; no transposition there)
+        im_p, u_im_p = (np.empty((ia.size, n_rows), dtype=np.float32) for _ in range(2))
         # node-major copies (n_nodes, epochs x bins): the nodes of every pair are then gathered
         # as whole rows (contiguous copies, exact for any input; ~4x faster than gathering
         # along the short node axis), the products made pair-major and transposed into place
@@ -262,6 +267,7 @@ class PairStatistics:
             np.multiply(ai, br, out=x)
             x -= tmp
             im[g] = x.T  # Im(X_a conj(X_b))
+            im_p[:, g] = x
             mag = np.multiply(np.take(npw[:, g], ia, axis=0), np.take(npw[:, g], ib, axis=0))
             np.sqrt(mag, out=mag)
             # 1/|S|, 0 where S = 0 (unmasked, then the few zeros set: 4x faster than where=)
@@ -271,8 +277,11 @@ class PairStatistics:
             if bad.any():
                 x[bad] = 0.0
             inv[g] = x.T
+            np.multiply(im_p[:, g], x, out=u_im_p[:, g])  # u_im = im * inv, as _derive
         re, im, inv = (y.reshape(n_ep, n_bins, ia.size) for y in (re, im, inv))
         base = {"re": re, "im": im, "inv": inv}
+        for name, y in (("im", im_p), ("u_im", u_im_p)):
+            base[name + _PAIR_MAJOR] = y.reshape(ia.size, n_ep, n_bins)
         if whole:
             self._kept.update(base)
             return self._kept
@@ -434,9 +443,11 @@ class PairStatistics:
         for e in self.blocks():
             base = self._base(e)
             for n in names:
-                x = self._stat(base, n)
+                pm = base.get(n + _PAIR_MAJOR)  # (n_pairs, n_epochs, n_bins), made by _base
+                x = self._stat(base, n) if pm is None else None
                 for b, idx in enumerate(band_idx):
-                    g = _gram(x[:, _bin_selection(idx)])  # a view where the bins are contiguous
+                    sel = _bin_selection(idx)  # a view where the bins are contiguous
+                    g = _gram(x[:, sel]) if pm is None else _gram_pair_major(pm[:, :, sel])
                     out[n][b] = g if out[n][b] is None else out[n][b] + g
             del base
         return out
@@ -961,6 +972,17 @@ def _gram(xb: np.ndarray) -> np.ndarray:
     """
     xb = np.ascontiguousarray(xb.transpose(2, 1, 0))  # (P, n_b, K)
     return np.matmul(xb, xb.transpose(0, 2, 1)).astype(float)
+
+
+def _gram_pair_major(yb: np.ndarray) -> np.ndarray:
+    """:func:`_gram` of the same statistic held pair-major, ``yb`` shape (n_pairs, n_epochs, n_b).
+
+    ``Yᵀ Y`` per pair: numpy hands ``A Aᵀ`` and ``Aᵀ A`` of one buffer alike to BLAS ``syrk``,
+    which packs the same panels either way, so the numbers are those of :func:`_gram`
+    (checked bit for bit on the benchmark recording's tables).
+    """
+    yb = np.ascontiguousarray(yb)
+    return np.matmul(yb.transpose(0, 2, 1), yb).astype(float)
 
 
 def _quadratic_quantile(gram: np.ndarray, dvec: np.ndarray, level: float) -> tuple:
