@@ -396,16 +396,19 @@ def band_analytic(
     -------
     ndarray, shape (n_epochs, n_nodes, M), complex
         Analytic signals up to a constant scale; single precision for single-precision
-        input.
+        input.  A transposed view of node-major memory (``.transpose(1, 0, 2)`` is contiguous).
     """
     idx = np.asarray(band_bins, dtype=np.int64)
     nb = idx.size
     m = int(samples_per_epoch) if samples_per_epoch else max(16, 4 * nb)
     if m < nb:
         raise InputError(f"samples_per_epoch: need at least {nb} for this band")
-    x = np.zeros(spec_plain.shape[:2] + (m,), dtype=np.result_type(spec_plain.dtype, np.complex64))
-    x[..., :nb] = spec_plain[..., idx]
-    return (np.fft.ifft(x, axis=-1) * m).astype(x.dtype, copy=False)
+    # node-major memory (n_nodes, n_epochs, M), the layout envelope_moments works in; each row's
+    # transform is the same in any layout
+    n_ep, n = spec_plain.shape[:2]
+    x = np.zeros((n, n_ep, m), dtype=np.result_type(spec_plain.dtype, np.complex64))
+    x[..., :nb] = spec_plain.transpose(1, 0, 2)[..., idx]
+    return (np.fft.ifft(x, axis=-1) * m).astype(x.dtype, copy=False).transpose(1, 0, 2)
 
 
 #: Elements of the (nodes, epochs, samples) temporaries of :func:`envelope_moments` per block
