@@ -18,15 +18,19 @@ epochs.  Measured in the same run:
   bands x 6 measures including the orthogonalised envelope correlation, with leakage
   expectations; both tidy tables (median of ``--reps``).  Also with the default 199 (median)
   and 1,000 (once) bootstrap replicates for intervals;
-* ``mne``: the same measures with mne-connectivity from source (ROI) time series - ROI time
-  series ``W x`` of the clean epochs (the same filters), ``spectral_connectivity_epochs(mode=
-  "fourier", method=["coh", "imcoh", "ciplv"], faverage=True)`` per band, and
-  ``envelope_correlation(orthogonalize="pairwise")`` of the band-passed (``mne.filter``),
-  Hilbert-transformed ROI signals; plus ``spectral_connectivity_epochs`` for the sensor pairs
-  (coh, imcoh, wpli, wpli2_debiased, ciplv).  MNE has no lagged coherence, phase lag or leakage
-  null, so this route computes less than ours.  It runs interleaved with the default coupling
-  step (199 replicates, nulls, tables), ``max(3, --reps, --mne-reps)`` runs of ours and
-  ``max(2, --mne-reps)`` of MNE's, medians of process CPU and wall time, load printed.
+* ``mne``: the same measures with mne-connectivity, the edges from source (ROI) time series -
+  ROI time series ``W x`` of the clean epochs (the same filters),
+  ``spectral_connectivity_epochs(mode="fourier", method=["coh", "imcoh", "ciplv", "cohy"])``
+  per bin over the bands' range, and ``envelope_correlation(orthogonalize="pairwise")`` of the
+  band-passed (``mne.filter``), Hilbert-transformed ROI signals per band; the sensor pairs from
+  the average-referenced epochs (as ours) with ``coh, imcoh, wpli, wpli2_debiased, ciplv, cohy,
+  plv``.  Band values are the means over each band's bins (as ours); ``cohy`` gives lagged
+  coherence per bin, phase and lag, ``plv`` the phase dispersion, so both routes compute every
+  pair and edge measure (MNE has no leakage null or bootstrap; the asymmetry of band power is
+  left out: a few sums).  It runs interleaved with ours, both the default coupling step (199
+  replicates, nulls, tables) and measures only (no intervals), ``max(3, --reps, --mne-reps)``
+  runs of ours and ``max(2, --mne-reps)`` of MNE's, medians of process CPU and wall time, load
+  printed; the ratio to both.
 * peak memory (tracemalloc, numpy allocations) of the coupling step and of the full per-bin
   cross-spectra ``epoch_bin_cross_spectra`` (complex64).
 
@@ -51,57 +55,79 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 
 def _coupling(clean, model, op, atlases, bands, c0, *, n_boot=0):
-    from sourcelab.coupling.sensor import pair_table, sensor_coupling
-    from sourcelab.coupling.source import coupling_table, network_coupling
-    from sourcelab.spectra import epoch_fourier
+    """The analysis' coupling step (``sourcelab.analysis._coupling``: both Fourier transforms,
+    pairs, edges, nulls, intervals with ``n_boot`` replicates, both tables) on the default
+    atlases and bands; ``c0`` (cached per head model) and ``atlases`` are what it looks up."""
+    from sourcelab.analysis import _coupling as coupling_step
+    from sourcelab.config import AnalysisConfig
 
-    spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, bands, dtype=np.complex64)
-    plain, _ = epoch_fourier(clean.epochs, clean.sfreq, bands, taper=False, dtype=np.complex64)
-    sc = sensor_coupling(
-        spec, freqs, bands, model.ch_names, model.ch_pos, null_cov=c0, n_boot=n_boot
+    cfg = AnalysisConfig().replace(coupling_n_boot=n_boot, bands=bands)
+    assert tuple(a.name for a in atlases) == tuple(cfg.coupling_atlases)
+    return coupling_step(clean, model, op, cfg)
+
+
+def _band_values(con, freqs, bands):
+    """Per-bin MNE scores (n_pairs, n_freqs) -> band means (n_bands, n_pairs), as ours."""
+    return np.stack([con[:, (freqs >= lo) & (freqs < hi)].mean(axis=1) for lo, hi in bands.edges])
+
+
+def _mne_measures(ep, bands, methods):
+    """``spectral_connectivity_epochs`` per bin over the bands' range, then our band measures.
+
+    ``cohy`` (complex coherency) gives lagged coherence per bin (``Im² / (1 - Re²)``,
+    Pascual-Marqui 2007) and the phase and lag; ``plv`` the phase dispersion
+    (``sqrt(-2 ln PLV)``); the others are MNE's measures, averaged over each band's bins.
+    """
+    from mne_connectivity import spectral_connectivity_epochs
+
+    lo, hi = bands.edges[0][0], max(h for _, h in bands.edges) - 1e-6
+    cons = spectral_connectivity_epochs(
+        ep, method=list(methods), mode="fourier", fmin=lo, fmax=hi, verbose="error"
     )
-    ec = network_coupling(
-        spec, plain, freqs, bands, op, atlases, null_cov=c0, normals=model.src_nn, n_boot=n_boot
-    )
-    return pair_table(sc), coupling_table(ec)
+    freqs = np.asarray(cons[0].freqs)
+    n = len(ep.ch_names)
+    lower = np.tril_indices(n, -1)  # the n (n - 1) / 2 pairs MNE computes by default
+    out = {}
+    for m, c in zip(methods, cons):
+        x = c.get_data(output="dense")[lower]  # (n_pairs, n_freqs)
+        if m == "cohy":
+            out["lagcoh"] = _band_values(x.imag**2 / (1.0 - x.real**2), freqs, bands)
+            mag = np.abs(x)
+            lag = np.angle(x) / (2.0 * np.pi * freqs) * 1e3
+            out["lag_ms"] = _band_values(mag * lag, freqs, bands) / _band_values(mag, freqs, bands)
+            out["phase_deg"] = np.degrees(np.angle(_band_values(x, freqs, bands)))
+        elif m == "plv":
+            sd = np.degrees(np.sqrt(-2.0 * np.log(np.clip(x, 1e-12, 1.0))))
+            out["phase_sd_deg"] = _band_values(sd, freqs, bands)
+        else:
+            out[m] = _band_values(x, freqs, bands)
+    return out
+
+
+#: The measures of the MNE route: sensor pairs (ours: msc, imcoh, lagcoh, wpli, wpli2_debiased,
+#: lps, phase_deg, lag_ms, phase_sd_deg) and ROI edges (ours: msc, imcoh, lagcoh, lps, lag_ms;
+#: aec_orth from envelope_correlation).
+MNE_PAIR_METHODS = ("coh", "imcoh", "wpli", "wpli2_debiased", "ciplv", "cohy", "plv")
+MNE_EDGE_METHODS = ("coh", "imcoh", "ciplv", "cohy")
 
 
 def _mne_route(clean, filters, bands):
     import mne
-    from mne_connectivity import envelope_correlation, spectral_connectivity_epochs
+    from mne_connectivity import envelope_correlation
 
-    fmin = tuple(lo for lo, _ in bands.edges)
-    fmax = tuple(hi - 1e-6 for _, hi in bands.edges)
-    x = clean.epochs - clean.epochs.mean(axis=1, keepdims=True)
     out = []
+    # sensor pairs on the average reference, as ours (MNE removes each epoch's mean itself)
+    x = clean.epochs - clean.epochs.mean(axis=1, keepdims=True)
     info = mne.create_info(x.shape[1], clean.sfreq, "eeg")
     ep = mne.EpochsArray(x, info, verbose="error")
-    out.append(
-        spectral_connectivity_epochs(
-            ep,
-            method=["coh", "imcoh", "wpli", "wpli2_debiased", "ciplv"],
-            mode="fourier",
-            fmin=fmin,
-            fmax=fmax,
-            faverage=True,
-            verbose="error",
-        )
-    )
+    out.append(_mne_measures(ep, bands, MNE_PAIR_METHODS))
+    # band-power asymmetry of homologous and anterior-posterior pairs: a few band sums of the
+    # power spectrum (negligible either way), left out here
     for f in filters:
         roi = np.einsum("rc,ect->ert", f.weights, clean.epochs)
         rinfo = mne.create_info(roi.shape[1], clean.sfreq, "eeg")
         rep = mne.EpochsArray(roi, rinfo, verbose="error")
-        out.append(
-            spectral_connectivity_epochs(
-                rep,
-                method=["coh", "imcoh", "ciplv"],
-                mode="fourier",
-                fmin=fmin,
-                fmax=fmax,
-                faverage=True,
-                verbose="error",
-            )
-        )
+        out.append(_mne_measures(rep, bands, MNE_EDGE_METHODS))
         for lo, hi in bands.edges:
             bp = mne.filter.filter_data(roi, clean.sfreq, lo, hi, verbose="error")
             out.append(envelope_correlation(bp, orthogonalize="pairwise").combine())
@@ -226,32 +252,41 @@ def main(argv=None) -> int:
 
         filters = [roi_filters(op, a, normals=model.src_nn) for a in atlases]
         n_pair = max(3, args.reps, args.mne_reps)
-        ours_w, ours_c, mne_w, mne_c, loads = [], [], [], [], []
-        for i in range(n_pair):
+        routes = {
+            "default": cfg.coupling_n_boot,  # 199 bootstrap replicates, nulls, tables
+            "measures only": 0,  # no intervals: nulls and tables still made
+        }
+        ow = {k: [] for k in routes}
+        oc = {k: [] for k in routes}
+        mne_w, mne_c, loads = [], [], []
+        for i in range(n_pair):  # ours (both variants) and MNE's in turn, same machine load
             loads.append(os.getloadavg()[0])
-            t, tc = time.perf_counter(), cpu_now()
-            _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=cfg.coupling_n_boot)
-            ours_w.append(time.perf_counter() - t)
-            ours_c.append(cpu_now() - tc)
+            for k, nb in routes.items():
+                t, tc = time.perf_counter(), cpu_now()
+                _coupling(clean, model, op, atlases, cfg.bands, c0, n_boot=nb)
+                ow[k].append(time.perf_counter() - t)
+                oc[k].append(cpu_now() - tc)
             if i < max(2, args.mne_reps):
                 t, tc = time.perf_counter(), cpu_now()
                 _mne_route(clean, filters, cfg.bands)
                 mne_w.append(time.perf_counter() - t)
                 mne_c.append(cpu_now() - tc)
-        ow, oc, mw, mc = (med(x) for x in (ours_w, ours_c, mne_w, mne_c))
+        loads.append(os.getloadavg()[0])
+        mw, mc = med(mne_w), med(mne_c)
         print(
-            f"interleaved, load {min(loads):.1f}-{max(loads):.1f}: sourcelab coupling "
-            f"(default, {cfg.coupling_n_boot} replicates; {len(ours_w)} runs) wall {ow:.2f} s, "
-            f"cpu {oc:.2f} s; mne-connectivity route ({len(mne_w)} runs: wall "
-            f"{', '.join(f'{x:.1f}' for x in mne_w)} s) wall {mw:.2f} s, cpu {mc:.2f} s"
+            f"interleaved, load {min(loads):.1f}-{max(loads):.1f}; mne-connectivity route "
+            f"({len(mne_w)} runs: wall {', '.join(f'{x:.1f}' for x in mne_w)} s) wall "
+            f"{mw:.2f} s, cpu {mc:.2f} s"
         )
         # wall time is the goal's measure; on a machine loaded far above its cores a process
         # waits for a core much of the time, so the CPU-time ratio is printed beside it
-        print(
-            f"ratio mne / sourcelab coupling (default step): {mw / ow:6.1f}x wall, "
-            f"{mc / oc:.1f}x cpu (goal >= 20x); without intervals: {mw / t_c:.1f}x wall, "
-            f"{mc / cpu_c:.1f}x cpu"
-        )
+        for k in routes:
+            w, c = med(ow[k]), med(oc[k])
+            print(
+                f"  sourcelab coupling, {k:13s} ({len(ow[k])} runs: wall "
+                f"{', '.join(f'{x:.2f}' for x in ow[k])} s) wall {w:.2f} s, cpu {c:.2f} s; "
+                f"ratio mne / ours {mw / w:5.1f}x wall, {mc / c:5.1f}x cpu (goal >= 20x)"
+            )
     print(f"load average at end {os.getloadavg()[0]:.1f}")
     return 0
 

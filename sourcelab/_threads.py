@@ -11,6 +11,7 @@ Bottom layer: imports nothing from sourcelab but :mod:`sourcelab.constants` and
 from __future__ import annotations
 
 import functools
+import threading
 
 from ._docs import fill_doc
 from .constants import BLAS_THREADS
@@ -46,15 +47,31 @@ def limited_threads(n_threads: int = BLAS_THREADS, *, user_api: str | None = Non
     Returns
     -------
     callable
-        ``decorate(fn) -> fn'``, where ``fn'`` calls ``fn`` with the limit in force.
+        ``decorate(fn) -> fn'``, where ``fn'`` calls ``fn`` with the limit in force (set once
+        for nested calls of functions decorated with the same limit).
     """
+
+    key = (n_threads, user_api)
 
     def decorate(fn):
         @functools.wraps(fn)
         def limited(*args, **kwargs):
-            with thread_limits(n_threads, user_api=user_api):
+            active = _ACTIVE.__dict__.setdefault("keys", [])
+            if key in active:  # a decorated caller has this limit in force: no second scan
                 return fn(*args, **kwargs)
+            active.append(key)
+            try:
+                with thread_limits(n_threads, user_api=user_api):
+                    return fn(*args, **kwargs)
+            finally:
+                active.pop()
 
         return limited
 
     return decorate
+
+
+#: Per thread: the limits in force through :func:`limited_threads` (a decorated function called
+#: from another with the same limit runs under it without re-scanning the loaded libraries,
+#: which costs milliseconds per call).
+_ACTIVE = threading.local()

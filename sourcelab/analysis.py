@@ -16,7 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._threads import thread_limits
+from ._threads import limited_threads, thread_limits
 from .config import AnalysisConfig, check_sampling_rate
 from .constants import UNITS
 from .errors import InputError
@@ -120,13 +120,15 @@ def _sensor_table(ch_names, sens_abs: np.ndarray, sens_rel: np.ndarray, band_nam
     return pd.DataFrame(rows, columns=list(SENSOR_COLUMNS))
 
 
-def _coupling(clean, model, op, config: AnalysisConfig):
+@limited_threads(user_api="blas")  # the coupling step's limit, set once for all its parts
+def _coupling(clean, model, op, config: AnalysisConfig, *, spec=None):
     """Pair and network/lobe coupling of the clean epochs (see ``sourcelab/coupling/TABLES.md``).
 
     Cheap path: the epochs' Fourier coefficients at the analysed bins (single precision, Hann
     taper for the spectral measures, none for the envelopes), no per-bin 19 x 19 matrices; the
     volume-conduction covariance comes from the template leadfield (fixed orientation: the
-    surface-normal gain; free: all three components).
+    surface-normal gain; free: all three components).  ``spec``: the Hann coefficients
+    (complex64, (n_epochs, n_ch, n_bins)) if already made (the band-power transform keeps them).
 
     Returns
     -------
@@ -140,10 +142,13 @@ def _coupling(clean, model, op, config: AnalysisConfig):
         sensor_coupling,
     )
     from .rois import load_atlas
-    from .spectra import epoch_fourier
+    from .spectra import analysed_bins, epoch_fourier
 
     bands = config.bands
-    spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, bands, dtype=np.complex64)
+    if spec is None:
+        spec, freqs = epoch_fourier(clean.epochs, clean.sfreq, bands, dtype=np.complex64)
+    else:  # kept from the band-power transform (epoch_cross_spectra's fourier_out)
+        freqs = analysed_bins(clean.epochs.shape[-1], clean.sfreq, bands)[1]
     plain, _ = epoch_fourier(clean.epochs, clean.sfreq, bands, taper=False, dtype=np.complex64)
     gain = model.gain_fixed if op.n_comp == 1 else model.gain
     c0 = independent_source_covariance(gain)
@@ -313,6 +318,7 @@ def analyze(
     from .progress import Stages
     from .rois import load_atlas
     from .spectra import (
+        analysed_bins,
         average_reference,
         broadband_cross_spectra,
         check_bands_within,
@@ -378,7 +384,12 @@ def analyze(
             )
         stages.step("cross-spectra")
         check_bands_within(config.bands)
-        csd_epochs = epoch_cross_spectra(clean.epochs, clean.sfreq, config.bands)
+        # coupling reads the same Hann coefficients in single precision: kept from this transform
+        spec = None
+        if config.coupling:
+            n_bins = analysed_bins(clean.epochs.shape[-1], clean.sfreq, config.bands)[0].size
+            spec = np.empty(clean.epochs.shape[:2] + (n_bins,), dtype=np.complex64)
+        csd_epochs = epoch_cross_spectra(clean.epochs, clean.sfreq, config.bands, fourier_out=spec)
         csd = csd_epochs.mean(axis=0)
         # relative power: band power / power over the fixed 1-45 Hz range (config.BROADBAND_HZ)
         total_epochs = broadband_cross_spectra(clean.epochs, clean.sfreq)
@@ -398,7 +409,8 @@ def analyze(
         stages.step("coupling")
         pair_table = coupling_table = None
         if config.coupling:
-            pair_table, coupling_table = _coupling(clean, model, op, config)
+            pair_table, coupling_table = _coupling(clean, model, op, config, spec=spec)
+        del spec
 
         stages.step("z-scores")
         norms_info = None

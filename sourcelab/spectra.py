@@ -170,7 +170,9 @@ def epoch_bin_cross_spectra(
 
 
 @fill_doc
-def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.ndarray:
+def epoch_cross_spectra(
+    epochs: np.ndarray, sfreq: float, bands: Bands, *, fourier_out: np.ndarray | None = None
+) -> np.ndarray:
     """Per-epoch band cross-spectral matrices (real part), one Welch segment per epoch.
 
     Each epoch is mean-removed, Hann-windowed and Fourier transformed; the one-sided cross-spectral
@@ -185,6 +187,10 @@ def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.nd
     ----------
     %(spectra_epochs_sfreq)s
     bands : Bands
+    fourier_out : ndarray, shape (n_epochs, n_ch, n_bins), complex, optional
+        Also store the Fourier coefficients of :func:`epoch_fourier` (Hann taper) here, cast to
+        this array's dtype: the values ``epoch_fourier(..., dtype=fourier_out.dtype)`` gives,
+        without a second transform (the analysis passes them on to coupling).
 
     Returns
     -------
@@ -200,9 +206,15 @@ def epoch_cross_spectra(epochs: np.ndarray, sfreq: float, bands: Bands) -> np.nd
         raise InputError(f"epochs: need shape (n_epochs, n_ch, n_times), got {epochs.shape}")
     n_ep, n_ch, n_t = epochs.shape
     _check_bands(n_t, sfreq, bands)
+    if fourier_out is not None:
+        want = (n_ep, n_ch, analysed_bins(n_t, sfreq, bands)[0].size)
+        if fourier_out.shape != want or not np.iscomplexobj(fourier_out):
+            raise InputError(f"fourier_out: need a complex array of shape {want}")
     out = np.empty((n_ep, len(bands), n_ch, n_ch))
     for s in range(0, n_ep, _EPOCH_CHUNK):
         spec, freqs = epoch_fourier(epochs[s : s + _EPOCH_CHUNK], sfreq, bands)
+        if fourier_out is not None:
+            fourier_out[s : s + _EPOCH_CHUNK] = spec
         for b, idx in enumerate(band_bin_indices(freqs, bands)):
             x = spec[..., idx]
             a = np.concatenate([x.real, x.imag], axis=-1)

@@ -9,6 +9,7 @@ from sourcelab.errors import InputError
 from sourcelab.spectra import (
     average_reference,
     epoch_cross_spectra,
+    epoch_fourier,
     relative_power,
     sensor_band_power,
 )
@@ -52,6 +53,24 @@ def test_matches_scipy_welch(rng):
     lo, hi = bands.edges[2]  # alpha
     sel = (f2 >= lo) & (f2 < hi)
     assert csd[2, 0, 1] == pytest.approx(pxy[sel].real.sum() * (f2[1] - f2[0]), rel=1e-10)
+
+
+def test_fourier_out_keeps_the_coefficients(rng):
+    # The analysis hands the band-power transform's Hann coefficients to coupling: they must be
+    # epoch_fourier's single-precision values exactly (the coupling tables depend on them), and
+    # scipy.signal.welch's periodogram per bin (Welch 1967; density times bin width) is |X|².
+    x = _sine_epochs(5.0, 10.0, n_epochs=70, noise=3.0, rng=rng)  # more than one chunk
+    bands = Bands()
+    ref, freqs = epoch_fourier(x, FS, bands, dtype=np.complex64)
+    kept = np.empty_like(ref)
+    csd = epoch_cross_spectra(x, FS, bands, fourier_out=kept)
+    np.testing.assert_array_equal(kept, ref)
+    np.testing.assert_array_equal(csd, epoch_cross_spectra(x, FS, bands))
+    f, p = scipy.signal.welch(x[:, 0], FS, window="hann", nperseg=N, noverlap=0)
+    sel = np.isin(f, freqs)
+    np.testing.assert_allclose(np.abs(kept[:, 0]) ** 2, p[:, sel] * (f[1] - f[0]), rtol=1e-5)
+    with pytest.raises(InputError, match="fourier_out"):
+        epoch_cross_spectra(x, FS, bands, fourier_out=kept[:, :, 1:])
 
 
 def test_average_reference_and_relative(rng):

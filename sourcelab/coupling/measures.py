@@ -152,21 +152,10 @@ _BLOCK_BYTES = 8 * 2**20
 _BOOT_BYTES = _BLOCK_BYTES
 #: Bytes per statistic of the replicates whose per-bin measures are made at once (cache-sized).
 _POST_BYTES = 256 * 2**10
-#: Elements of the gathered coefficients held at once while a block is made (~4 MB each).
-_GATHER_ELEMENTS = 1_000_000
-
-
-@functools.lru_cache(maxsize=16)
-def _selector(n_nodes: int, ia: bytes, ib: bytes) -> tuple[np.ndarray, np.ndarray]:
-    """One-hot matrices (n_nodes, n_pairs), float32: ``x @ S_a = x[..., ia]``, ``x @ S_b``."""
-    out = []
-    for i in (ia, ib):
-        idx = np.frombuffer(i, dtype=np.int64)
-        m = np.zeros((n_nodes, idx.size), dtype=np.float32)
-        m[idx, np.arange(idx.size)] = 1.0
-        m.setflags(write=False)
-        out.append(m)
-    return tuple(out)
+#: Key suffix of the pair-major copies of statistics that :meth:`PairStatistics._base` makes.
+_PAIR_MAJOR = "@pairs"
+#: Elements of the gathered coefficients held at once while a block is made (256 kB each).
+_GATHER_ELEMENTS = 64_000
 
 
 def _derive(base: dict, name: str, bins=None) -> np.ndarray:
@@ -250,45 +239,49 @@ class PairStatistics:
         if whole and self._kept:
             return self._kept
         xr, xi = (c[e] for c in self.coef)
-        power = self.power[e]
         ia, ib = self.ia, self.ib
         n_ep, n_bins, n_nodes = xr.shape
-        re, im, inv = (np.empty((n_ep, n_bins, ia.size), dtype=np.float32) for _ in range(3))
-        # the nodes of each pair gathered by products with one-hot selection matrices (for finite
-        # input exactly the gathered values: one term x * 1 plus zeros; about twice as fast as
-        # np.take); non-finite input falls back to np.take
-        sel = None
-        if all(np.isfinite(x).all() for x in (xr, xi, power)):
-            sel = _selector(n_nodes, *(np.asarray(i, np.int64).tobytes() for i in (ia, ib)))
-
-        def gather(x):  # -> (values at a, values at b), each (g, n_bins, n_pairs)
-            if sel is None:
-                return np.take(x, ia, axis=-1), np.take(x, ib, axis=-1)
-            flat, shape = x.reshape(-1, x.shape[-1]), x.shape[:-1] + (ia.size,)
-            # contiguous outputs: the arithmetic below runs its fast loops on them
-            return tuple((flat @ s_).reshape(shape) for s_ in sel)
-
-        # a few epochs at a time, so the gathered coefficients are small temporaries
-        # (elementwise arithmetic: the same numbers as all at once)
-        step = max(1, _GATHER_ELEMENTS // max(1, n_bins * ia.size))
-        for s in range(0, n_ep, step):
+        n_rows = n_ep * n_bins
+        re, im, inv = (np.empty((n_rows, ia.size), dtype=np.float32) for _ in range(3))
+        # ``im`` and ``u_im`` also pair-major, (n_pairs, epochs x bins), as the grams of the
+        # analytic null read them (:meth:`grams`; no transposition there)
+        im_p, u_im_p = (np.empty((ia.size, n_rows), dtype=np.float32) for _ in range(2))
+        # node-major copies (n_nodes, epochs x bins): the nodes of every pair are then gathered
+        # as whole rows (contiguous copies, exact for any input; ~4x faster than gathering
+        # along the short node axis), the products made pair-major and transposed into place
+        nr, ni, npw = (
+            np.ascontiguousarray(x.reshape(n_rows, n_nodes).T) for x in (xr, xi, self.power[e])
+        )
+        # a cache-sized block of epochs x bins at a time (elementwise: the same numbers as all
+        # at once)
+        step = max(1, _GATHER_ELEMENTS // max(1, ia.size))
+        for s in range(0, n_rows, step):
             g = slice(s, s + step)
-            (ar, br), (ai, bi) = gather(xr[g]), gather(xi[g])
-            # in place, into the outputs (the same operations as ar * br + ai * bi etc.)
+            ar, br = np.take(nr[:, g], ia, axis=0), np.take(nr[:, g], ib, axis=0)
+            ai, bi = np.take(ni[:, g], ia, axis=0), np.take(ni[:, g], ib, axis=0)
             tmp = np.multiply(ai, bi)
-            np.add(np.multiply(ar, br, out=re[g]), tmp, out=re[g])  # Re(X_a conj(X_b))
+            x = np.multiply(ar, br)
+            x += tmp
+            re[g] = x.T  # Re(X_a conj(X_b))
             np.multiply(ar, bi, out=tmp)
-            np.subtract(np.multiply(ai, br, out=im[g]), tmp, out=im[g])  # Im(X_a conj(X_b))
-            mag, pb = gather(power[g])
-            mag = np.multiply(mag, pb)
+            np.multiply(ai, br, out=x)
+            x -= tmp
+            im[g] = x.T  # Im(X_a conj(X_b))
+            im_p[:, g] = x
+            mag = np.multiply(np.take(npw[:, g], ia, axis=0), np.take(npw[:, g], ib, axis=0))
             np.sqrt(mag, out=mag)
             # 1/|S|, 0 where S = 0 (unmasked, then the few zeros set: 4x faster than where=)
             with np.errstate(divide="ignore", invalid="ignore"):
-                np.divide(np.float32(1.0), mag, out=inv[g])
+                np.divide(np.float32(1.0), mag, out=x)
             bad = ~(mag > 0)
             if bad.any():
-                inv[g][bad] = 0.0
+                x[bad] = 0.0
+            inv[g] = x.T
+            np.multiply(im_p[:, g], x, out=u_im_p[:, g])  # u_im = im * inv, as _derive
+        re, im, inv = (y.reshape(n_ep, n_bins, ia.size) for y in (re, im, inv))
         base = {"re": re, "im": im, "inv": inv}
+        for name, y in (("im", im_p), ("u_im", u_im_p)):
+            base[name + _PAIR_MAJOR] = y.reshape(ia.size, n_ep, n_bins)
         if whole:
             self._kept.update(base)
             return self._kept
@@ -450,9 +443,11 @@ class PairStatistics:
         for e in self.blocks():
             base = self._base(e)
             for n in names:
-                x = self._stat(base, n)
+                pm = base.get(n + _PAIR_MAJOR)  # (n_pairs, n_epochs, n_bins), made by _base
+                x = self._stat(base, n) if pm is None else None
                 for b, idx in enumerate(band_idx):
-                    g = _gram(x[:, _bin_selection(idx)])  # a view where the bins are contiguous
+                    sel = _bin_selection(idx)  # a view where the bins are contiguous
+                    g = _gram(x[:, sel]) if pm is None else _gram_pair_major(pm[:, :, sel])
                     out[n][b] = g if out[n][b] is None else out[n][b] + g
             del base
         return out
@@ -578,7 +573,8 @@ def bin_measures(
     n_epochs : int
         Number of epochs ``K`` (the debiased wPLI's correction).
     measures : sequence of str
-        Subset of :data:`BIN_MEASURES` (plus ``"cross"``, the complex mean cross-spectrum).
+        Subset of :data:`BIN_MEASURES` (plus ``"cross"``, the complex mean cross-spectrum, or
+        ``"cross_parts"``: its real and imaginary parts as ``"cross_re"`` and ``"cross_im"``).
 
     Returns
     -------
@@ -618,6 +614,8 @@ def bin_measures(
                 out[m] = np.sqrt(sq2("u_re") + sq2("u_im"))
             elif m == "cross":
                 out[m] = acc["re"] + 1j * acc["im"]
+            elif m == "cross_parts":  # the real and imaginary parts of "cross", as they are
+                out["cross_re"], out["cross_im"] = acc["re"], acc["im"]
             else:
                 raise InputError(f"measure: {m!r} is not one of {BIN_MEASURES}")
     return out
@@ -660,7 +658,8 @@ def band_measures(
     Parameters
     ----------
     per_bin : dict
-        From :func:`bin_measures` (with ``"cross"`` and ``"plv"`` for the phase measures).
+        From :func:`bin_measures` (with ``"cross"`` or ``"cross_parts"``, and ``"plv"``, for the
+        phase measures).
     freqs : ndarray, shape (n_bins,)
         Hz.
     band_idx : sequence of int arrays
@@ -696,12 +695,18 @@ def band_measures(
             if m in ("msc", "imcoh", "lagcoh", "wpli", "wpli2_debiased", "lps"):
                 out[m] = over_bins(per_bin[m], avg)
             elif m == "phase_deg":
-                c = per_bin["cross"]
-                out[m] = np.degrees(np.arctan2(over_bins(c.imag, sums), over_bins(c.real, sums)))
+                re, im = _cross_parts(per_bin)
+                out[m] = np.degrees(np.arctan2(over_bins(im, sums), over_bins(re, sums)))
             elif m == "lag_ms":
-                c = per_bin["cross"]
+                re, im = _cross_parts(per_bin)
+                # |c| of c = re + i im filled in place (numpy's complex absolute value, whose
+                # rounding np.hypot does not share); its angle is arctan2 of the parts, as
+                # np.angle computes it
+                c = np.empty(re.shape, dtype=np.result_type(re.dtype, np.complex64))
+                c.real, c.imag = re, im
                 mag = np.abs(c)
-                lag = np.angle(c) / (2.0 * np.pi * f[None, :, None]) * 1e3
+                del c
+                lag = np.arctan2(im, re) / (2.0 * np.pi * f[None, :, None]) * 1e3
                 out[m] = over_bins(mag * lag, sums) / over_bins(mag, sums)
             elif m == "phase_sd_deg":
                 plv = np.clip(per_bin["plv"], 1e-12, 1.0)
@@ -711,11 +716,19 @@ def band_measures(
     return out
 
 
+def _cross_parts(per_bin: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Real and imaginary parts of the per-bin mean cross-spectrum (:func:`bin_measures`)."""
+    if "cross_re" in per_bin:
+        return per_bin["cross_re"], per_bin["cross_im"]
+    c = per_bin["cross"]
+    return c.real, c.imag
+
+
 def _bin_names(measures) -> tuple[tuple[str, ...], tuple[str, ...]]:
     bins = set()
     for m in measures:
         if m in ("phase_deg", "lag_ms"):
-            bins.add("cross")
+            bins.add("cross_parts")
         elif m == "phase_sd_deg":
             bins.add("plv")
         else:
@@ -865,11 +878,20 @@ def _quantile(x: np.ndarray, q):
     each end of a percentile interval is one replicate (Davison & Hinkley 1997, section 5.2;
     from memory).
     """
-    x = np.asarray(x, dtype=float)
-    out = np.quantile(x, q, axis=0, method="weibull")
-    bad = np.isnan(x).any(axis=0)
+    x = np.asarray(x)
+    # each element's replicates as one contiguous, sorted lane (NaN last): numpy's quantile then
+    # partitions lanes that are already in order, and the order statistics - hence the
+    # numbers - are those of the unsorted replicates; sorting contiguous lanes is several times
+    # faster than partitioning strided ones at several order statistics
+    lanes = np.moveaxis(x, 0, -1).astype(x.dtype, order="C")
+    lanes.sort(axis=-1)
+    bad = np.isnan(lanes[..., -1])
+    out = np.quantile(
+        lanes.astype(float, copy=False), q, axis=-1, method="weibull", overwrite_input=True
+    )
     if bad.any():
-        out[..., bad] = np.nanquantile(x[:, bad], q, axis=0, method="weibull")
+        xf = np.asarray(x, dtype=float)
+        out[..., bad] = np.nanquantile(xf[:, bad], q, axis=0, method="weibull")
     return out
 
 
@@ -950,6 +972,17 @@ def _gram(xb: np.ndarray) -> np.ndarray:
     """
     xb = np.ascontiguousarray(xb.transpose(2, 1, 0))  # (P, n_b, K)
     return np.matmul(xb, xb.transpose(0, 2, 1)).astype(float)
+
+
+def _gram_pair_major(yb: np.ndarray) -> np.ndarray:
+    """:func:`_gram` of the same statistic held pair-major, ``yb`` shape (n_pairs, n_epochs, n_b).
+
+    ``Yᵀ Y`` per pair: numpy hands ``A Aᵀ`` and ``Aᵀ A`` of one buffer alike to BLAS ``syrk``,
+    which packs the same panels either way, so the numbers are those of :func:`_gram`
+    (checked bit for bit on the benchmark recording's tables).
+    """
+    yb = np.ascontiguousarray(yb)
+    return np.matmul(yb.transpose(0, 2, 1), yb).astype(float)
 
 
 def _quadratic_quantile(gram: np.ndarray, dvec: np.ndarray, level: float) -> tuple:

@@ -396,20 +396,24 @@ def band_analytic(
     -------
     ndarray, shape (n_epochs, n_nodes, M), complex
         Analytic signals up to a constant scale; single precision for single-precision
-        input.
+        input.  A transposed view of node-major memory (``.transpose(1, 0, 2)`` is contiguous).
     """
     idx = np.asarray(band_bins, dtype=np.int64)
     nb = idx.size
     m = int(samples_per_epoch) if samples_per_epoch else max(16, 4 * nb)
     if m < nb:
         raise InputError(f"samples_per_epoch: need at least {nb} for this band")
-    x = np.zeros(spec_plain.shape[:2] + (m,), dtype=np.result_type(spec_plain.dtype, np.complex64))
-    x[..., :nb] = spec_plain[..., idx]
-    return (np.fft.ifft(x, axis=-1) * m).astype(x.dtype, copy=False)
+    # node-major memory (n_nodes, n_epochs, M), the layout envelope_moments works in; each row's
+    # transform is the same in any layout
+    n_ep, n = spec_plain.shape[:2]
+    x = np.zeros((n, n_ep, m), dtype=np.result_type(spec_plain.dtype, np.complex64))
+    x[..., :nb] = spec_plain.transpose(1, 0, 2)[..., idx]
+    return (np.fft.ifft(x, axis=-1) * m).astype(x.dtype, copy=False).transpose(1, 0, 2)
 
 
-#: Elements of the (epochs, nodes, samples) temporaries of :func:`envelope_moments` per block.
-_ENVELOPE_BLOCK = 2_000_000
+#: Elements of the (nodes, epochs, samples) temporaries of :func:`envelope_moments` per block
+#: (1 MB of single precision: cache-sized).
+_ENVELOPE_BLOCK = 256_000
 
 
 def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
@@ -430,53 +434,48 @@ def envelope_moments(analytic: np.ndarray) -> dict[str, np.ndarray]:
     """
     a = np.asarray(analytic)
     n_ep, n, m = a.shape
-    mag = np.abs(a)
-    so = np.empty((n_ep, n, n))
-    soo = np.empty((n_ep, n, n))
-    soy = np.empty((n_ep, n, n))
-    # contiguous parts: the products below read them in order
-    ar, ai = np.ascontiguousarray(a.real), np.ascontiguousarray(a.imag)
+    # node-major (n, n_ep, M): the nodes j > i of node i are one contiguous slab
+    at = np.ascontiguousarray(a.transpose(1, 0, 2))
+    mag = np.abs(at)
     # the phase factor a/|a| (0 where a = 0) as real parts times 1/|a|: numpy's complex division
     # by a real multiplies by the reciprocal, so the same numbers, ~3x faster than a masked
     # complex division
     with np.errstate(divide="ignore", invalid="ignore"):
         inv = np.divide(np.ones((), dtype=mag.dtype), mag)
     inv[~(mag > 0)] = 0.0
-    ur, ui = ar * inv, ai * inv
-    del inv
+    ur, ui = np.multiply(at.real, inv), np.multiply(at.imag, inv)  # contiguous outputs
+    del inv, at
     # o_ij = |Im(a_i conj(u_j))| = |a_i| s_ij with s_ij = |sin(phase_i - phase_j)| symmetric, so
     # one pass over the upper triangle (i < j) gives both directions (o_ji = |a_j| s_ij), and
     # Σ o_ij |a_j| = Σ o_ji |a_i| = Σ |a_i| |a_j| s_ij: half the products of all ordered pairs.
-    # Row i's block of epochs keeps its (e, j > i, M) arrays below ~8 MB; per-epoch sums of at
-    # most a few hundred samples in the input precision, epochs pooled in float64.
-    step = max(1, _ENVELOPE_BLOCK // max(1, n * m))
-    for i in range(n - 1):
-        for s0 in range(0, n_ep, step):
-            e = slice(s0, s0 + step)
-            o = ui[e, i, None, :] * ur[e, i + 1 :]
-            o -= ur[e, i, None, :] * ui[e, i + 1 :]
+    # Node i against the nodes j > i (a contiguous slab in the node-major layout: no copies),
+    # a block of epochs at a time whose (j, e, M) arrays stay cache-sized
+    # (:data:`_ENVELOPE_BLOCK`); each per-epoch sum runs over one contiguous row of M samples, as
+    # in any layout (the same numbers).  Per-epoch sums of at most a few hundred samples in the
+    # input precision, epochs pooled in float64.
+    so, soo, soy = (np.zeros((n, n, n_ep)) for _ in range(3))  # (i, j, epoch)
+    step = max(1, _ENVELOPE_BLOCK // max(1, (n - 1) * m))
+    for s0 in range(0, n_ep, step):
+        e = slice(s0, s0 + step)
+        for i in range(n - 1):
+            j = slice(i + 1, n)
+            o = ui[i, e] * ur[j, e]
+            o -= ur[i, e] * ui[j, e]
             np.abs(o, out=o)  # s_ij
-            mj = mag[e, i + 1 :]
-            t = o * mag[e, i, None, :]  # o_ij
-            so[e, i, i + 1 :] = t.sum(-1)
-            soo[e, i, i + 1 :] = np.einsum("ejm,ejm->ej", t, t)
-            soy[e, i, i + 1 :] = np.einsum("ejm,ejm->ej", t, mj)
+            mj = mag[j, e]
+            t = o * mag[i, e]  # o_ij
+            so[i, j, e] = t.sum(-1)
+            soo[i, j, e] = np.einsum("jem,jem->je", t, t)
+            soy[i, j, e] = np.einsum("jem,jem->je", t, mj)
             np.multiply(o, mj, out=o)  # o_ji
-            so[e, i + 1 :, i] = o.sum(-1)
-            soo[e, i + 1 :, i] = np.einsum("ejm,ejm->ej", o, o)
+            so[j, i, e] = o.sum(-1)
+            soo[j, i, e] = np.einsum("jem,jem->je", o, o)
     iu, ju = np.triu_indices(n, 1)
-    soy[:, ju, iu] = soy[:, iu, ju]
-    idx = np.arange(n)
-    for x in (so, soo, soy):  # a node orthogonalised to itself (o = 0; never used)
-        x[:, idx, idx] = 0.0
-    return {
-        "so": so,
-        "soo": soo,
-        "soy": soy,
-        "sy": mag.sum(-1, dtype=float),
-        "syy": (mag * mag).sum(-1, dtype=float),
-        "m": m,
-    }
+    soy[ju, iu] = soy[iu, ju]
+    # back to epoch-major, contiguous (a node orthogonalised to itself: o = 0, never used)
+    so, soo, soy = (np.ascontiguousarray(x.transpose(2, 0, 1)) for x in (so, soo, soy))
+    sy, syy = (np.ascontiguousarray(x.sum(-1, dtype=float).T) for x in (mag, mag * mag))
+    return {"so": so, "soo": soo, "soy": soy, "sy": sy, "syy": syy, "m": m}
 
 
 def aec_from_moments(mom: dict, weights: np.ndarray | None = None) -> np.ndarray:
@@ -771,6 +770,7 @@ def coupling_table(results) -> pd.DataFrame:
     return pd.concat(frames, ignore_index=True)[list(EDGE_COLUMNS)]
 
 
+@one_blas_thread
 def network_coupling(
     spec: np.ndarray,
     spec_plain: np.ndarray | None,
