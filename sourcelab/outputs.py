@@ -309,7 +309,7 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
     n_jobs = 1
     if figures:
         step("figures")
-        from .figures.figure_set import figure_jobs
+        from .figures.warm import figure_jobs
 
         fig_dir = folder / "figures"
         fig_dir.mkdir()
@@ -324,7 +324,10 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         from .report import write_pdf, write_report
 
         pdf = folder / "report.pdf"
-        if n_jobs > 1:  # the PDF (the longest) in a forked process, the HTML and maps here
+        renderer = _warm_renderer() if n_jobs > 1 else None
+        if renderer is not None and renderer.usable:  # the PDF in the warmed figure process
+            pdf_job = renderer.submit(write_pdf, result, pdf, figures=pngs)
+        elif n_jobs > 1:  # the PDF (the longest) in a forked process, the HTML and maps here
             import multiprocessing as mp
             from concurrent.futures import ProcessPoolExecutor
 
@@ -338,7 +341,10 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
                 step("maps")
                 _write_maps(result, folder)
             if pdf_job is not None:
-                pdf_job.result()
+                try:
+                    pdf_job.result()
+                except (EOFError, BrokenPipeError):  # the warmed renderer died: written here
+                    write_pdf(result, pdf, figures=pngs)
         finally:
             if side is not None:
                 side.shutdown(wait=True, cancel_futures=True)
@@ -346,6 +352,13 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         step("maps")
         _write_maps(result, folder)
     return pngs
+
+
+def _warm_renderer():
+    """The warmed figure renderer of an enclosing ``warm_renderer`` block, or None."""
+    from .figures.warm import active
+
+    return active()
 
 
 def _write_maps(result, folder: Path) -> None:

@@ -29,6 +29,7 @@ from ..errors import InputError
 from . import brain, coupling, roi, sensor
 from .colours import Z_LIMIT, Z_THRESHOLD, power_scale, z_scale
 from .geometry import atlas_labels  # noqa: F401  (re-exported)
+from .warm import figure_jobs  # noqa: F401  (re-exported)
 
 logger = logging.getLogger("sourcelab")
 
@@ -433,43 +434,22 @@ def _render(func, args, kwargs, dpi):
     return figure_png(func(*args, **kwargs), dpi=dpi)
 
 
-def figure_jobs() -> int:
-    """Worker processes for drawing a figure set on this machine: the cores this process may
-    use (at most 4), or 1 inside a worker process (a batch worker must not fork its own pool)
-    and where processes cannot be forked.
-
-    The environment variable ``SOURCELAB_FIGURE_JOBS`` (an integer >= 1) overrides it.
-
-    Returns
-    -------
-    int
-        >= 1.
-    """
-    import multiprocessing as mp
-    import os
-
-    env = os.environ.get("SOURCELAB_FIGURE_JOBS")
-    if env:
-        return check_number(
-            "SOURCELAB_FIGURE_JOBS", int(env) if env.strip().isdigit() else env, kind=int, low=1
-        )
-    if mp.parent_process() is not None or "fork" not in mp.get_all_start_methods():
-        return 1  # workers share the parent's caches by forking (not on Windows)
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except AttributeError:  # not on Linux
-        cores = os.cpu_count() or 1
-    return max(1, min(4, cores))
-
-
 def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
     """Draw the queued figures, in this process or in ``n_jobs`` forked workers.
 
     Drawing runs with one BLAS thread: the small linear-algebra calls of plotting (scipy's
     Delaunay transforms behind MNE's topomap interpolation, 19 points) otherwise wake a
     BLAS thread pool each time, which costs ~0.4 CPU-s per map on a busy machine instead of
-    ~0.1 ms.
+    ~0.1 ms.  Inside a :func:`~.warm.warm_renderer` block, PNGs are drawn by the warmed
+    renderer's workers.
     """
+    from . import warm
+
+    renderer = warm.active()
+    if renderer is not None and as_png and n_jobs > 1 and len(jobs) > 1:
+        pngs = renderer.figures(jobs, dpi=dpi, n_jobs=n_jobs)  # None: the renderer was lost
+        if pngs is not None:
+            return pngs
     with thread_limits():
         return _run_limited(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
 
