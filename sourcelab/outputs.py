@@ -292,6 +292,12 @@ def write_analysis_into(
 
 
 def _write_into(result, folder: Path, *, figures, report, exports, command, step) -> dict:
+    from .figures.warm import active, figure_jobs
+
+    n_jobs = figure_jobs() if figures else 1
+    renderer = active() if n_jobs > 1 else None
+    # inside a warm_renderer block the figures are drawn there while the tables are written
+    drawing = renderer.start_figures(result, n_jobs=n_jobs) if renderer is not None else None
     write_tables(result, folder, command=command)
     if result.leakage is not None:
         result.leakage.to_tsv(folder / "leakage_brodmann.tsv")
@@ -306,16 +312,14 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         with open(folder / "leakage_hints.tsv", "w", encoding="utf-8", newline="") as f:
             f.write(text)
     pngs: dict = {}
-    n_jobs = 1
     if figures:
         step("figures")
-        from .figures.warm import figure_jobs
-
         fig_dir = folder / "figures"
         fig_dir.mkdir()
-        n_jobs = figure_jobs()
-        # each figure closed as soon as it is rendered; drawn in parallel when cores allow
-        pngs = result.figures(as_png=True, n_jobs=n_jobs)
+        pngs = renderer.finish_figures(drawing) if drawing is not None else None
+        if pngs is None:  # no warmed renderer (or it was lost): drawn from here
+            # each figure closed as soon as it is rendered; drawn in parallel when cores allow
+            pngs = result.figures(as_png=True, n_jobs=n_jobs)
         for name, png in pngs.items():
             (fig_dir / (name.replace("/", "_") + ".png")).write_bytes(png)
     pdf_job = side = None
@@ -324,9 +328,8 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         from .report import write_pdf, write_report
 
         pdf = folder / "report.pdf"
-        renderer = _warm_renderer() if n_jobs > 1 else None
-        if renderer is not None and renderer.usable:  # the PDF in the warmed figure process
-            pdf_job = renderer.submit(write_pdf, result, pdf, figures=pngs)
+        if drawing is not None and renderer.usable:  # the PDF where the figures were drawn
+            pdf_job = renderer.submit_pdf(pdf)
         elif n_jobs > 1:  # the PDF (the longest) in a forked process, the HTML and maps here
             import multiprocessing as mp
             from concurrent.futures import ProcessPoolExecutor
@@ -352,13 +355,6 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         step("maps")
         _write_maps(result, folder)
     return pngs
-
-
-def _warm_renderer():
-    """The warmed figure renderer of an enclosing ``warm_renderer`` block, or None."""
-    from .figures.warm import active
-
-    return active()
 
 
 def _write_maps(result, folder: Path) -> None:

@@ -6,7 +6,7 @@ returns the :class:`matplotlib.figure.Figure`; none calls ``plt.show()``.  The c
 (z: symmetric ``RdBu_r``; power: sequential ``magma``) lives in :mod:`.colours`.
 """
 
-import importlib
+from .._lazy import lazy_exports
 
 #: Public name -> the submodule defining it, imported on first use (matplotlib and nilearn load
 #: only when a figure is drawn, not when, e.g., :mod:`.warm` is imported by the command line).
@@ -38,25 +38,6 @@ _HOMES = {
 }
 
 
-_SUBMODULES = ("_agg", "_shared", "atlas", "brain", "colours", "coupling", "figure_set")
-_SUBMODULES += ("geometry", "roi", "sensor", "warm")
-
-
-def __getattr__(name):
-    if name in _SUBMODULES:
-        return importlib.import_module(f".{name}", __name__)
-    home = _HOMES.get(name)
-    if home is None:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    value = getattr(importlib.import_module(f".{home}", __name__), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__():
-    return sorted(set(globals()) | set(_HOMES))
-
-
 __all__ = [
     "POWER_CMAP",
     "Z_CMAP",
@@ -83,3 +64,8 @@ __all__ = [
     "surface_views",
     "z_scale",
 ]
+
+_SUBMODULES = ("_agg", "_shared", "atlas", "brain", "colours", "coupling", "figure_set")
+_SUBMODULES += ("geometry", "roi", "sensor", "warm")
+
+__getattr__, __dir__ = lazy_exports(__name__, _HOMES, _SUBMODULES)

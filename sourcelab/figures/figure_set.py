@@ -440,16 +440,8 @@ def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
     Drawing runs with one BLAS thread: the small linear-algebra calls of plotting (scipy's
     Delaunay transforms behind MNE's topomap interpolation, 19 points) otherwise wake a
     BLAS thread pool each time, which costs ~0.4 CPU-s per map on a busy machine instead of
-    ~0.1 ms.  Inside a :func:`~.warm.warm_renderer` block, PNGs are drawn by the warmed
-    renderer's workers.
+    ~0.1 ms.
     """
-    from . import warm
-
-    renderer = warm.active()
-    if renderer is not None and as_png and n_jobs > 1 and len(jobs) > 1:
-        pngs = renderer.figures(jobs, dpi=dpi, n_jobs=n_jobs)  # None: the renderer was lost
-        if pngs is not None:
-            return pngs
     with thread_limits():
         return _run_limited(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
 

@@ -20,6 +20,10 @@ from ..checks import check_number
 
 log = logging.getLogger("sourcelab")
 
+#: Imported before the renderer is forked: the default analysis imports them anyway, so the
+#: renderer shares them instead of importing its own copies (~2 CPU-s).
+SHARED_IMPORTS = ("pandas", "scipy.stats", "sklearn.base", "mne")
+
 #: The renderer of the enclosing :func:`warm_renderer` block (None outside one).
 _ACTIVE = None
 
@@ -86,13 +90,24 @@ def _warm() -> None:
         sensor.sensor_info()
 
 
-def _serve(jobs, dpi: int, n_jobs: int) -> dict:
-    """In the renderer process: draw the queued figures (its forked workers)."""
-    from .._threads import thread_limits
-    from .figure_set import _run_limited
+#: In the renderer process: the result and figure set of the last :func:`_result_figures`.
+_LAST: dict = {}
 
-    with thread_limits():
-        return _run_limited(jobs, as_png=True, dpi=dpi, n_jobs=n_jobs)
+
+def _result_figures(result, n_jobs: int) -> dict:
+    """In the renderer process: the result's figure set as PNG (drawn by forked workers)."""
+    from .figure_set import result_figures
+
+    pngs = result_figures(result, as_png=True, n_jobs=n_jobs)
+    _LAST.update(result=result, figures=pngs)
+    return pngs
+
+
+def _write_pdf(path) -> None:
+    """In the renderer process: the PDF report of the last figure set's result."""
+    from ..report.pdf import write_pdf
+
+    write_pdf(_LAST["result"], path, figures=_LAST["figures"])
 
 
 def _volume_maps() -> dict:
@@ -146,21 +161,26 @@ class _Pending:
         object
         """
         ok, value = self._renderer._conn.recv()
+        self._renderer._waiting -= 1
         if not ok:
             raise value
         return value
 
 
 class WarmRenderer:
-    """A forked process that warms the figure caches, then draws figure sets and PDF reports
-    (one request at a time).
+    """A forked process that warms the figure caches, then draws figure sets and writes PDF
+    reports (one request at a time).
 
     Made by :func:`warm_renderer`; the output writer finds it through :func:`active`.
     """
 
     def __init__(self):
+        import importlib
         import multiprocessing as mp
 
+        for name in SHARED_IMPORTS:
+            with contextlib.suppress(ImportError):
+                importlib.import_module(name)
         ctx = mp.get_context("fork")
         self._conn, child = ctx.Pipe()
         # not a daemon: it forks its own drawing workers
@@ -168,15 +188,27 @@ class WarmRenderer:
         self._process.start()
         child.close()
         self._lost = False
+        self._waiting = 0  # requests whose answer was not read
 
     @property
     def usable(self) -> bool:
         """False once the renderer failed or died."""
         return not self._lost
 
-    def figures(self, jobs, *, dpi: int, n_jobs: int) -> dict | None:
-        """PNG bytes of the queued figure jobs (see :func:`~.figure_set.result_figures`),
-        drawn by ``n_jobs`` workers forked from the warmed process.
+    def start_figures(self, result, *, n_jobs: int) -> _Pending:
+        """Start drawing ``result``'s figure set (as the output writer draws it: PNG, default
+        options) with ``n_jobs`` workers forked from the warmed process.
+
+        Returns
+        -------
+        _Pending
+            Pass it to :meth:`finish_figures`.
+        """
+        return self.submit(_result_figures, result, n_jobs)
+
+    def finish_figures(self, pending: _Pending) -> dict | None:
+        """The figure set started by :meth:`start_figures`, and the renderer's volume lookups
+        (~1 CPU-s each to build) copied into this process for the NIfTI maps.
 
         Returns
         -------
@@ -184,11 +216,8 @@ class WarmRenderer:
             None when the renderer is unusable (its warm-up failed, or it died): the caller
             draws in its own process.
         """
-        if self._lost:
-            return None
         try:
-            pngs = self.submit(_serve, jobs, dpi, n_jobs).result()
-            # its volume lookups (~1 CPU-s each to build) for the NIfTI maps written here
+            pngs = pending.result()
             from . import geometry
 
             geometry.VOLUME_MAPS.update(self.submit(_volume_maps).result())
@@ -197,6 +226,15 @@ class WarmRenderer:
             log.info("warm figure renderer unusable (%r): drawing in this process", exc)
             self._lost = True
             return None
+
+    def submit_pdf(self, path) -> _Pending:
+        """Start writing the PDF report of the last figure set's result to ``path``.
+
+        Returns
+        -------
+        _Pending
+        """
+        return self.submit(_write_pdf, path)
 
     def submit(self, func, *args, **kwargs) -> _Pending:
         """Start ``func(*args, **kwargs)`` in the warmed process (after its warm-up); read the
@@ -207,14 +245,17 @@ class WarmRenderer:
         _Pending
         """
         self._conn.send((func, args, kwargs))
+        self._waiting += 1
         return _Pending(self)
 
     def close(self) -> None:
-        """Stop the renderer process."""
-        try:
-            self._conn.send(None)
-        except OSError:
-            pass
+        """Stop the renderer process (at once when an answer is still awaited: the caller
+        failed meanwhile)."""
+        if self._waiting:
+            self._process.terminate()
+        else:
+            with contextlib.suppress(OSError):
+                self._conn.send(None)
         self._conn.close()
         self._process.join(timeout=10)
         if self._process.is_alive():
