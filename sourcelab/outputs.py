@@ -329,7 +329,7 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
 
         pdf = folder / "report.pdf"
         if drawing is not None and renderer.usable:  # the PDF where the figures were drawn
-            pdf_job = renderer.submit_pdf(pdf)
+            pdf_job = renderer.submit(_pdf_in_renderer, pdf)
         elif n_jobs > 1:  # the PDF (the longest) in a forked process, the HTML and maps here
             import multiprocessing as mp
             from concurrent.futures import ProcessPoolExecutor
@@ -355,6 +355,15 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         step("maps")
         _write_maps(result, folder)
     return pngs
+
+
+def _pdf_in_renderer(path) -> None:
+    """In the warmed figure renderer: the PDF report of the figure set it drew last."""
+    from .figures.warm import last_drawn
+    from .report import write_pdf
+
+    result, pngs = last_drawn()
+    write_pdf(result, path, figures=pngs)
 
 
 def _write_maps(result, folder: Path) -> None:

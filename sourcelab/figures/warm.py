@@ -94,20 +94,24 @@ def _warm() -> None:
 _LAST: dict = {}
 
 
-def _result_figures(result, n_jobs: int) -> dict:
+def _result_figures(result, n_jobs: int, options: dict) -> dict:
     """In the renderer process: the result's figure set as PNG (drawn by forked workers)."""
     from .figure_set import result_figures
 
-    pngs = result_figures(result, as_png=True, n_jobs=n_jobs)
+    pngs = result_figures(result, as_png=True, n_jobs=n_jobs, **options)
     _LAST.update(result=result, figures=pngs)
     return pngs
 
 
-def _write_pdf(path) -> None:
-    """In the renderer process: the PDF report of the last figure set's result."""
-    from ..report.pdf import write_pdf
+def last_drawn() -> tuple:
+    """In the renderer process: the result and PNG figure set it drew last (for the PDF).
 
-    write_pdf(_LAST["result"], path, figures=_LAST["figures"])
+    Returns
+    -------
+    result : AnalysisResult
+    figures : dict of str to bytes
+    """
+    return _LAST["result"], _LAST["figures"]
 
 
 def _volume_maps() -> dict:
@@ -160,6 +164,8 @@ class _Pending:
         -------
         object
         """
+        if self._renderer._conn.closed:
+            raise EOFError("the renderer process is gone")
         ok, value = self._renderer._conn.recv()
         self._renderer._waiting -= 1
         if not ok:
@@ -195,16 +201,25 @@ class WarmRenderer:
         """False once the renderer failed or died."""
         return not self._lost
 
-    def start_figures(self, result, *, n_jobs: int) -> _Pending:
-        """Start drawing ``result``'s figure set (as the output writer draws it: PNG, default
-        options) with ``n_jobs`` workers forked from the warmed process.
+    def start_figures(self, result, *, n_jobs: int, **options) -> _Pending:
+        """Start drawing ``result``'s figure set as PNG with ``n_jobs`` workers forked from the
+        warmed process.
+
+        Parameters
+        ----------
+        result : AnalysisResult
+        n_jobs : int
+            Drawing workers.
+        **options
+            Further keywords of :func:`~.figure_set.result_figures` (none: the output writer's
+            figure set).
 
         Returns
         -------
         _Pending
             Pass it to :meth:`finish_figures`.
         """
-        return self.submit(_result_figures, result, n_jobs)
+        return self.submit(_result_figures, result, n_jobs, options)
 
     def finish_figures(self, pending: _Pending) -> dict | None:
         """The figure set started by :meth:`start_figures`, and the renderer's volume lookups
@@ -227,15 +242,6 @@ class WarmRenderer:
             self._lost = True
             return None
 
-    def submit_pdf(self, path) -> _Pending:
-        """Start writing the PDF report of the last figure set's result to ``path``.
-
-        Returns
-        -------
-        _Pending
-        """
-        return self.submit(_write_pdf, path)
-
     def submit(self, func, *args, **kwargs) -> _Pending:
         """Start ``func(*args, **kwargs)`` in the warmed process (after its warm-up); read the
         answer with ``.result()`` before the next request.
@@ -244,8 +250,13 @@ class WarmRenderer:
         -------
         _Pending
         """
-        self._conn.send((func, args, kwargs))
-        self._waiting += 1
+        try:
+            self._conn.send((func, args, kwargs))
+        except OSError:  # the process is gone: the answer reads as the end of the pipe
+            self._lost = True
+            self._conn.close()
+        else:
+            self._waiting += 1
         return _Pending(self)
 
     def close(self) -> None:
@@ -253,7 +264,7 @@ class WarmRenderer:
         failed meanwhile)."""
         if self._waiting:
             self._process.terminate()
-        else:
+        elif not self._conn.closed:
             with contextlib.suppress(OSError):
                 self._conn.send(None)
         self._conn.close()
