@@ -292,6 +292,12 @@ def write_analysis_into(
 
 
 def _write_into(result, folder: Path, *, figures, report, exports, command, step) -> dict:
+    from .figures.warm import active, figure_jobs
+
+    n_jobs = figure_jobs() if figures else 1
+    renderer = active() if n_jobs > 1 else None
+    # inside a warm_renderer block the figures are drawn there while the tables are written
+    drawing = renderer.start_figures(result, n_jobs=n_jobs) if renderer is not None else None
     write_tables(result, folder, command=command)
     if result.leakage is not None:
         result.leakage.to_tsv(folder / "leakage_brodmann.tsv")
@@ -306,16 +312,14 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         with open(folder / "leakage_hints.tsv", "w", encoding="utf-8", newline="") as f:
             f.write(text)
     pngs: dict = {}
-    n_jobs = 1
     if figures:
         step("figures")
-        from .figures.figure_set import figure_jobs
-
         fig_dir = folder / "figures"
         fig_dir.mkdir()
-        n_jobs = figure_jobs()
-        # each figure closed as soon as it is rendered; drawn in parallel when cores allow
-        pngs = result.figures(as_png=True, n_jobs=n_jobs)
+        pngs = renderer.finish_figures(drawing) if drawing is not None else None
+        if pngs is None:  # no warmed renderer (or it was lost): drawn from here
+            # each figure closed as soon as it is rendered; drawn in parallel when cores allow
+            pngs = result.figures(as_png=True, n_jobs=n_jobs)
         for name, png in pngs.items():
             (fig_dir / (name.replace("/", "_") + ".png")).write_bytes(png)
     pdf_job = side = None
@@ -324,7 +328,9 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         from .report import write_pdf, write_report
 
         pdf = folder / "report.pdf"
-        if n_jobs > 1:  # the PDF (the longest) in a forked process, the HTML and maps here
+        if drawing is not None and renderer.usable:  # the PDF where the figures were drawn
+            pdf_job = renderer.submit(_pdf_in_renderer, pdf)
+        elif n_jobs > 1:  # the PDF (the longest) in a forked process, the HTML and maps here
             import multiprocessing as mp
             from concurrent.futures import ProcessPoolExecutor
 
@@ -338,7 +344,10 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
                 step("maps")
                 _write_maps(result, folder)
             if pdf_job is not None:
-                pdf_job.result()
+                try:
+                    pdf_job.result()
+                except (EOFError, BrokenPipeError):  # the warmed renderer died: written here
+                    write_pdf(result, pdf, figures=pngs)
         finally:
             if side is not None:
                 side.shutdown(wait=True, cancel_futures=True)
@@ -346,6 +355,15 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         step("maps")
         _write_maps(result, folder)
     return pngs
+
+
+def _pdf_in_renderer(path) -> None:
+    """In the warmed figure renderer: the PDF report of the figure set it drew last."""
+    from .figures.warm import last_drawn
+    from .report import write_pdf
+
+    result, pngs = last_drawn()
+    write_pdf(result, path, figures=pngs)
 
 
 def _write_maps(result, folder: Path) -> None:

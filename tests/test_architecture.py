@@ -21,6 +21,7 @@ LAYERS = {
     "__main__": 20,
     "_docs": 0,
     "_threads": 0,
+    "_lazy": 0,
     "constants": 0,
     "errors": 0,
     "checks": 0,

@@ -604,6 +604,42 @@ def test_figure_jobs_follows_cores_workers_and_environment(monkeypatch):
         figure_jobs()
 
 
+def test_warm_renderer_draws_the_same_files(result, tmp_path, monkeypatch):
+    # reference: the same figure set drawn in this process (byte-identical PNG files: the
+    # renderer makes the same calls on the same arguments, only in another process)
+    from sourcelab.figures import warm
+    from sourcelab.outputs import _pdf_in_renderer
+
+    monkeypatch.setenv("SOURCELAB_FIGURE_JOBS", "2")  # also on a one-core machine
+    options = dict(surfaces=False, measures=("absolute",), bands=("alpha",), z_map_atlas=None)
+    serial = result_figures(result, n_jobs=1, as_png=True, **options)
+    with warm.warm_renderer() as renderer:
+        assert warm.active() is renderer
+        with warm.warm_renderer() as inner:  # nested: the outer renderer serves
+            assert inner is None
+        drawn = renderer.finish_figures(renderer.start_figures(result, n_jobs=2, **options))
+        renderer.submit(_pdf_in_renderer, tmp_path / "report.pdf").result()
+    assert warm.active() is None
+    assert drawn == serial
+    assert (tmp_path / "report.pdf").read_bytes().startswith(b"%PDF")
+    with warm.warm_renderer(enabled=False) as off:
+        assert off is None
+
+
+def test_warm_renderer_lost_leaves_drawing_to_the_caller(result):
+    from sourcelab.figures import warm
+
+    renderer = warm.WarmRenderer()
+    try:
+        renderer._process.kill()
+        renderer._process.join()
+        pending = renderer.start_figures(result, n_jobs=2, surfaces=False)
+        assert renderer.finish_figures(pending) is None
+        assert not renderer.usable
+    finally:
+        renderer.close()
+
+
 def test_text_cache_canvas_draws_what_matplotlib_draws():
     # reference: matplotlib's own Agg canvas; the cached text is placed at whole pixels (as
     # matplotlib <= 3.10 did), so a string may move by up to half a pixel, no more

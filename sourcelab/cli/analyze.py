@@ -60,8 +60,6 @@ def run(args) -> int:
 
     %(cli_run_returns)s
     """
-    from ..analysis import analyze
-
     path = Path(args.recording)
     if not path.exists():
         raise InputError("file not found", path=path)
@@ -73,6 +71,16 @@ def run(args) -> int:
         from ..rois import load_custom_rois
 
         custom = load_custom_rois(args.rois)
+    from ..figures.warm import warm_renderer
+
+    with warm_renderer(enabled=not args.no_figures):  # warmed while the analysis runs
+        return _analyze_and_write(args, path, config, custom)
+
+
+def _analyze_and_write(args, path: Path, config, custom) -> int:
+    """The analysis and its output folder (inside :func:`run`'s warmed figure renderer)."""
+    from ..analysis import analyze
+
     result = analyze(
         path,
         config=config,

@@ -31,6 +31,21 @@ def run(args) -> int:
 
     %(cli_run_returns)s
     """
+    from ..figures.warm import warm_renderer
+
+    if args.rebuild_norms:
+        from .. import demo
+
+        out = demo.build_demo_norms(args.rebuild_norms, progress=progress_flag(args))
+        print(f"sourcelab: wrote invented demo norms {out}")
+        return 0
+    # the figure renderer warms up on a core the imports and the analysis leave idle
+    with warm_renderer(enabled=not args.no_figures):
+        return _demo(args)
+
+
+def _demo(args) -> int:
+    """The demo analysis and its output folder (inside :func:`run`'s warmed renderer)."""
     import dataclasses
 
     from .. import demo
@@ -42,10 +57,6 @@ def run(args) -> int:
     from .analyze import print_summary
 
     progress = progress_flag(args)
-    if args.rebuild_norms:
-        out = demo.build_demo_norms(args.rebuild_norms, progress=progress)
-        print(f"sourcelab: wrote invented demo norms {out}")
-        return 0
     out = Path(args.out)  # checked by the CLI pre-flight (sourcelab.cli.main.preflight)
     print(
         "sourcelab: demo — an INVENTED participant (demo-01, 41 y, eyes closed, simulated by "

@@ -29,6 +29,7 @@ from ..errors import InputError
 from . import brain, coupling, roi, sensor
 from .colours import Z_LIMIT, Z_THRESHOLD, power_scale, z_scale
 from .geometry import atlas_labels  # noqa: F401  (re-exported)
+from .warm import figure_jobs  # noqa: F401  (re-exported)
 
 logger = logging.getLogger("sourcelab")
 
@@ -431,35 +432,6 @@ def _render(func, args, kwargs, dpi):
     if func is brain.glass_brain and "output_file" not in kwargs:
         return brain.glass_brain_png(*args, **kwargs)
     return figure_png(func(*args, **kwargs), dpi=dpi)
-
-
-def figure_jobs() -> int:
-    """Worker processes for drawing a figure set on this machine: the cores this process may
-    use (at most 4), or 1 inside a worker process (a batch worker must not fork its own pool)
-    and where processes cannot be forked.
-
-    The environment variable ``SOURCELAB_FIGURE_JOBS`` (an integer >= 1) overrides it.
-
-    Returns
-    -------
-    int
-        >= 1.
-    """
-    import multiprocessing as mp
-    import os
-
-    env = os.environ.get("SOURCELAB_FIGURE_JOBS")
-    if env:
-        return check_number(
-            "SOURCELAB_FIGURE_JOBS", int(env) if env.strip().isdigit() else env, kind=int, low=1
-        )
-    if mp.parent_process() is not None or "fork" not in mp.get_all_start_methods():
-        return 1  # workers share the parent's caches by forking (not on Windows)
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except AttributeError:  # not on Linux
-        cores = os.cpu_count() or 1
-    return max(1, min(4, cores))
 
 
 def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
