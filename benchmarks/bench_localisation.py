@@ -77,6 +77,11 @@ the true one" (>= 0.65 points, >= 0.55 deviations) and ``top3_all_maps`` of the 
 The all-areas rows (``evidence_all``, ``evidence_patch_all_excess``, the earlier headline) are
 what a list with the unresolvable areas brought back (``include_unresolvable``) names at the
 highest peak.
+Both rows also carry the shipped probability model's mean stated probability of the shown
+names against their observed hit rate (deviations: the maps whose first row is the excess map's
+highest peak, the peak the model is applied at).  The model was fitted on names with the
+unresolvable areas *renamed* after the next area (``sourcelab.simulate.localisation``), so this
+checks it on the maps a list actually shows.
 
 ``--ceiling`` adds, for noise-free sources at *every* cortical source (18,715 x one jitter
 realisation each, the first held-out seed): how often the peak vertex lies in the true area
@@ -259,8 +264,8 @@ def _point_shown(orders_all, exclude):
 
 
 def _list_first(z, sp, exclude, *, first_code=None, threshold=None, max_peaks=None):
-    """Area code and direction (+1 excess, -1 deficit, 0 none) of the first row of the
-    candidate list of one z-map (code 0: the list is empty).
+    """Area code, direction (+1 excess, -1 deficit, 0 none) and peak rank (0: the direction's
+    highest) of the first row of the candidate list of one z-map (code 0: the list is empty).
 
     The rule of :func:`sourcelab.targets.peaks.peak_candidates` for one (measure, band) map,
     evaluated lazily: for the excess ``max(z, 0)`` and the deficit ``max(-z, 0)``, the local
@@ -277,7 +282,7 @@ def _list_first(z, sp, exclude, *, first_code=None, threshold=None, max_peaks=No
     threshold = DEVIATION_Z if threshold is None else threshold
     max_peaks = 30 if max_peaks is None else max_peaks
     excl = set(int(c) for c in exclude)
-    best_code, best_value, best_sign = 0, -np.inf, 0
+    best_code, best_value, best_sign, best_k = 0, -np.inf, 0, 0
     for sign in (1.0, -1.0):
         v = np.clip(sign * np.asarray(z, dtype=float), 0.0, None)
         if not v.max() > max(threshold, best_value):
@@ -296,9 +301,9 @@ def _list_first(z, sp, exclude, *, first_code=None, threshold=None, max_peaks=No
             seen.add(code)
             if code in excl:
                 continue
-            best_code, best_value, best_sign = code, float(v[s]), int(sign)
+            best_code, best_value, best_sign, best_k = code, float(v[s]), int(sign), k
             break
-    return best_code, best_sign
+    return best_code, best_sign, best_k
 
 
 def _check_list_first(zs, shown, sp, setup, *, n_check=3):
@@ -428,8 +433,22 @@ def bench_points(setup, full, *, n, snr, rng, jitter_label, store=None):
     # renamed) when the named area is not resolvable; top 3 from the list without them
     shown = _point_shown(ev_all, setup.exclude)
     rates = _shown_rates(shown, true, setup.exclude, top3_orders=ev_default)
+    on = np.asarray(shown) != 0
     rows.append(
-        _summary("evidence_default_shown", rates["first_all_maps"], rates["top3_all_maps"], **rates)
+        _summary(
+            "evidence_default_shown",
+            rates["first_all_maps"],
+            rates["top3_all_maps"],
+            **rates,
+            # the stated probability of the shown names against their observed hit rate
+            _stated=_stated(
+                maps[on],
+                [np.array([c]) for c in np.asarray(shown)[on]],
+                true[on],
+                setup,
+                kind="power",
+            ),
+        )
     )
     for r in rows:
         r.update(
@@ -548,8 +567,9 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80, store=
         _list_first(zs_src[i], sp, setup.exclude, first_code=int(o[0]) if o.size else None)
         for i, o in enumerate(evp)
     ]
-    shown = [c for c, _ in first_rows]
+    shown = [c for c, _, _ in first_rows]
     n_checked = _check_list_first(zs_src, shown, sp, setup)
+    top_row = np.array([c != 0 and d > 0 and k == 0 for c, d, k in first_rows])
     rates = _shown_rates(shown, true, setup.exclude)
     rows.append(
         _summary(
@@ -557,8 +577,18 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80, store=
             rates["first_all_maps"],
             None,
             **rates,
-            share_first_row_deficit=round(float(np.mean([d < 0 for _, d in first_rows])), 3),
+            share_first_row_deficit=round(float(np.mean([d < 0 for _, d, _ in first_rows])), 3),
             maps_checked_against_candidate_list=n_checked,
+            # the stated probability where the first row is the excess map's highest peak
+            # (the peak the model is fitted at), against the observed hit rate there
+            _stated=_stated(
+                ex[top_row],
+                [np.array([c]) for c in np.asarray(shown)[top_row]],
+                true[top_row],
+                setup,
+                kind="z",
+            ),
+            n_first_row_highest_excess_peak=int(top_row.sum()),
         )
     )
     rows += [
@@ -787,6 +817,11 @@ SHOWN_KEYS = (
     "top3_all_maps",
     "n_shown",
     "n_resolvable_truth",
+    "share_first_row_deficit",
+    "n_first_row_highest_excess_peak",
+    "mean_stated_probability",
+    "observed_hit_rate",
+    "calibration_max_gap",
 )
 
 
