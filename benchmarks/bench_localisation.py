@@ -59,6 +59,8 @@ the ``*_default`` rows above do).  Two rows score exactly that:
   z-map (excess and deficit peaks beyond |z| 1.96, at most 30 per direction, the next peak when
   the highest names an unresolvable area, the larger |peak z| first; ``_list_first``, checked
   against ``peak_candidates`` itself on a few maps every run, ``_check_list_first``);
+  ``candidate_list_first_above_norm``: the list's first above-norm row (for a reader who knows
+  the deviation is an excess; the list itself ranks below-norm peaks by |z| alike);
 * ``evidence_default_shown`` (point sources; power maps have no candidate list, so the list's
   rule is applied at the map's highest peak with point templates): the area named there over all
   areas, shown if resolvable; top 3 from the evidence order with the unresolvable areas left
@@ -214,6 +216,12 @@ def _stated_now(maps, orders, true, setup, *, kind):
     }
 
 
+def _stated_shown(maps, shown, sel, true, setup, *, kind):
+    """:func:`_stated` for the shown area codes of the maps selected by the mask ``sel``."""
+    codes = [np.array([c]) for c in np.asarray(shown)[sel]]
+    return _stated(maps[sel], codes, np.asarray(true)[sel], setup, kind=kind)
+
+
 def _radius(store):
     """Candidate radius, mm: the widest any rule uses (with the sweep's when sweeping)."""
     from sourcelab.trust.naming import CAND_MM, EVIDENCE_MM
@@ -268,7 +276,9 @@ def _point_shown(orders_all, exclude):
     return [int(o[0]) if o.size and int(o[0]) not in excl else 0 for o in orders_all]
 
 
-def _list_first(z, sp, exclude, *, first_code=None, threshold=None, max_peaks=None):
+def _list_first(
+    z, sp, exclude, *, first_code=None, threshold=None, max_peaks=None, signs=(1.0, -1.0)
+):
     """Area code, direction (+1 excess, -1 deficit, 0 none) and peak rank (0: the direction's
     highest) of the first row of the candidate list of one z-map (code 0: the list is empty).
 
@@ -278,7 +288,8 @@ def _list_first(z, sp, exclude, *, first_code=None, threshold=None, max_peaks=No
     :func:`~sourcelab.trust.naming.candidate_naming` over all areas, the first one whose area
     is new and resolvable is that direction's first row; the list's first row is the
     direction whose row has the larger |peak z| (the excess on a tie).  ``first_code``: the
-    name of the excess map's highest peak when already known.
+    name of the excess map's highest peak when already known; ``signs=(1.0,)``: the list's
+    first above-norm row.
     """
     from sourcelab.targets.peaks import DEVIATION_Z
     from sourcelab.trust.localise import local_maxima
@@ -288,7 +299,7 @@ def _list_first(z, sp, exclude, *, first_code=None, threshold=None, max_peaks=No
     max_peaks = 30 if max_peaks is None else max_peaks
     excl = set(int(c) for c in exclude)
     best_code, best_value, best_sign, best_k = 0, -np.inf, 0, 0
-    for sign in (1.0, -1.0):
+    for sign in signs:
         v = np.clip(sign * np.asarray(z, dtype=float), 0.0, None)
         if not v.max() > max(threshold, best_value):
             continue
@@ -446,13 +457,7 @@ def bench_points(setup, full, *, n, snr, rng, jitter_label, store=None):
             rates["top3_all_maps"],
             **rates,
             # the stated probability of the shown names against their observed hit rate
-            _stated=_stated(
-                maps[on],
-                [np.array([c]) for c in np.asarray(shown)[on]],
-                true[on],
-                setup,
-                kind="power",
-            ),
+            _stated=_stated_shown(maps, shown, on, true, setup, kind="power"),
         )
     )
     for r in rows:
@@ -586,15 +591,20 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80, store=
             maps_checked_against_candidate_list=n_checked,
             # the stated probability where the first row is the excess map's highest peak
             # (the peak the model is fitted at), against the observed hit rate there
-            _stated=_stated(
-                ex[top_row],
-                [np.array([c]) for c in np.asarray(shown)[top_row]],
-                true[top_row],
-                setup,
-                kind="z",
-            ),
+            _stated=_stated_shown(ex, shown, top_row, true, setup, kind="z"),
             n_first_row_highest_excess_peak=int(top_row.sum()),
         )
+    )
+    # the list's first above-norm row (a reader who knows the deviation is an excess)
+    above = [
+        _list_first(
+            zs_src[i], sp, setup.exclude, first_code=int(o[0]) if o.size else None, signs=(1.0,)
+        )[0]
+        for i, o in enumerate(evp)
+    ]
+    rates_a = _shown_rates(above, true, setup.exclude)
+    rows.append(
+        _summary("candidate_list_first_above_norm", rates_a["first_all_maps"], None, **rates_a)
     )
     # not shipped: the evidence of patch templates over candidates within TRIAL_RADIUS_MM
     # (chosen on training seed 1; see TRIAL_RADIUS_MM), named at the highest excess peak
@@ -882,6 +892,7 @@ def _headline(rows):
         shown = r["ranking"] in (
             "evidence_default_shown",
             "candidate_list_first",
+            "candidate_list_first_above_norm",
             "evidence_patch_r50_shown_excess",
         )
         if shown and r["kind"] == "point":
