@@ -426,11 +426,19 @@ def _ocular_figure(result, keep, dpi) -> None:
     )
 
 
+#: Figure functions with a PNG twin that draws on a figure kept for its layout (same pixels).
+_KEPT_PNG = {
+    brain.glass_brain: brain.glass_brain_png,
+    brain.surface_views: brain.surface_views_png,
+    roi.roi_bars: roi.roi_bars_png,
+}
+
+
 def _render(func, args, kwargs, dpi):
-    """Worker: draw one figure and return its PNG bytes (glass brains on a figure kept for
-    their layout, :func:`~sourcelab.figures.brain.glass_brain_png`)."""
-    if func is brain.glass_brain and "output_file" not in kwargs:
-        return brain.glass_brain_png(*args, **kwargs)
+    """Worker: draw one figure and return its PNG bytes (on a figure kept for its layout when
+    the function has a twin in :data:`_KEPT_PNG`)."""
+    if "output_file" not in kwargs and func in _KEPT_PNG:
+        return _KEPT_PNG[func](*args, **kwargs)
     return figure_png(func(*args, **kwargs), dpi=dpi)
 
 
