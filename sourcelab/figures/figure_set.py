@@ -430,6 +430,7 @@ def _ocular_figure(result, keep, dpi) -> None:
 _KEPT_PNG = {
     brain.glass_brain: brain.glass_brain_png,
     brain.surface_views: brain.surface_views_png,
+    coupling.pair_head_map: coupling.pair_head_map_png,
     roi.roi_bars: roi.roi_bars_png,
 }
 
