@@ -540,6 +540,30 @@ def test_roi_bars_png_on_a_kept_figure_matches_a_fresh_figure(result):
         assert _same_pixels(roi.roi_bars_png(table, **kw), fresh), kw
 
 
+def test_topomaps_png_on_a_kept_figure_matches_a_fresh_figure(result):
+    # reference: figure_png of sensor_topomaps (MNE's plot_topomap on new axes for every map);
+    # the kept figure, whose map axes MNE draws into again, must give the same pixels
+    from sourcelab.figures import figure_png, sensor
+
+    bands = list(result.bands.names)
+    sens = np.asarray(result.sensor_abs)
+    per_band = [power_scale(row, measure="sensor_absolute") for row in sens]
+    z = np.linspace(-4.0, 4.0, sens.size).reshape(sens.shape)
+    charts = [
+        (sens, {"scale": per_band, "title": "power"}),
+        (np.asarray(result.sensor_rel), {"scale": per_band, "title": "relative"}),
+        (sens * 3.0, {"scale": per_band, "title": "power"}),  # beyond the range: arrows
+        (z, {"scale": z_scale(threshold=1.96), "title": "z"}),
+        (np.clip(z, -2.0, 2.0), {"scale": z_scale(threshold=1.96), "title": "z"}),
+        (-z, {"scale": z_scale(), "title": None, "names": False}),
+        (z[:2], {"scale": z_scale(), "band_names": bands[:2]}),  # another layout
+    ]
+    for values, kw in charts:
+        kw = {"band_names": bands, "ch_names": result.ch_names, **kw}
+        fresh = figure_png(sensor_topomaps(values, **kw))
+        assert _same_pixels(sensor.sensor_topomaps_png(values, **kw), fresh), kw.get("title")
+
+
 def test_fully_masked_z_map_draws_quietly():
     # nothing beyond the mask is a valid map (warnings are errors in this suite)
     fig = glass_brain(np.full(N_SRC, 0.5), scale=z_scale(threshold=1.96))

@@ -67,7 +67,9 @@ def agg_figure(figsize, dpi: int):
     return fig
 
 
-def kept_colourbar(state: dict, fig, scale, rect, *, data=None, orientation: str = "vertical"):
+def kept_colourbar(
+    state: dict, fig, scale, rect, *, data=None, orientation: str = "vertical", slot="colourbar"
+):
     """:func:`~sourcelab.figures.colours.add_colourbar` in new axes at ``rect`` of ``fig``, or
     the colour bar kept in ``state`` when it was drawn for the same scale, ends and place (only
     its label, which states the data range, is replaced).
@@ -75,7 +77,7 @@ def kept_colourbar(state: dict, fig, scale, rect, *, data=None, orientation: str
     Parameters
     ----------
     state : dict
-        The figure's kept state (the colour bar is kept under ``"colourbar"``).
+        The figure's kept state (the colour bar is kept under ``slot``).
     fig : Figure
     scale : ColourScale
     rect : (float, float, float, float)
@@ -83,6 +85,8 @@ def kept_colourbar(state: dict, fig, scale, rect, *, data=None, orientation: str
     data : array-like, optional
         The values drawn (extension arrows and label, as in ``add_colourbar``).
     orientation : {"vertical", "horizontal"}
+    slot : hashable
+        Key of this colour bar in ``state`` (one per colour bar of the figure).
 
     Returns
     -------
@@ -93,14 +97,14 @@ def kept_colourbar(state: dict, fig, scale, rect, *, data=None, orientation: str
     extend = None if data is None else extend_for(data, scale)
     key = (scale.cmap, scale.vmin, scale.vmax, scale.threshold, scale.diverging, extend)
     key += (orientation, tuple(rect))
-    old = state.get("colourbar")
+    old = state.get(slot)
     if old is not None and old[0] == key:
         old[1].set_label(colourbar_label(scale, data))
         return old[1]
     if old is not None:
         old[1].ax.remove()
     cb = add_colourbar(fig, scale, cax=fig.add_axes(rect), orientation=orientation, data=data)
-    state["colourbar"] = (key, cb)
+    state[slot] = (key, cb)
     return cb
 
 

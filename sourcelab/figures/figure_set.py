@@ -432,6 +432,7 @@ _KEPT_PNG = {
     brain.surface_views: brain.surface_views_png,
     coupling.pair_head_map: coupling.pair_head_map_png,
     roi.roi_bars: roi.roi_bars_png,
+    sensor.sensor_topomaps: sensor.sensor_topomaps_png,
 }
 
 
