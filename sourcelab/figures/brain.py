@@ -165,8 +165,7 @@ def _glass_cax_rect(width: float) -> tuple:
 
 
 def _draw_glass(fig, ax, cax, v, scale, title, display_mode, resolution) -> None:
-    """The projections of per-source values ``v`` into ``ax``, the colour bar into ``cax``
-    (None: no colour bar)."""
+    """The projections of per-source values ``v`` into ``ax``, the colour bar into ``cax``."""
     from nilearn import plotting
 
     raw = v
@@ -194,8 +193,7 @@ def _draw_glass(fig, ax, cax, v, scale, title, display_mode, resolution) -> None
             annotate=True,
             symmetric_cbar=signed,
         )
-    if cax is not None:
-        add_colourbar(fig, scale, cax=cax, data=raw)
+    add_colourbar(fig, scale, cax=cax, data=raw)
     if title:
         fig.suptitle(title, x=0.45, y=0.99, va="top", fontsize=11)
 
@@ -209,9 +207,8 @@ def glass_brain_png(values: np.ndarray, **options) -> bytes:
 
     nilearn builds a glass brain's projection axes and outlines for every map (most of its
     time); here they are built once per layout (projections, size, resolution, signed or not,
-    titled or not) and each map replaces only the overlay images, annotations and title,
-    through nilearn's own :func:`~nilearn.plotting.plot_glass_brain`, and the colour bar's
-    label (the bar itself is kept while its scale and ends are the same).  The pixels are
+    titled or not) and each map replaces only the overlay images, annotations, colour bar and
+    title, through nilearn's own :func:`~nilearn.plotting.plot_glass_brain`.  The pixels are
     those of ``figure_png(glass_brain(...))`` (see the tests).  Without the nilearn layout
     this relies on (0.10-0.14), the figure is drawn afresh.
 
@@ -258,6 +255,10 @@ def glass_brain_png(values: np.ndarray, **options) -> bytes:
         ax = fig.add_axes((0.0, 0.0, 1.0 - 1.6 / w, 0.88 if title else 1.0))
         kept = _GLASS_LAYOUTS[key] = {"fig": fig, "ax": ax, "display": None}
     fig = kept["fig"]
+    for a in fig.axes:
+        if a is not kept["ax"] and (kept["display"] is None or a not in kept["axes"]):
+            a.remove()  # the previous colour bar
+    cax = fig.add_axes(_glass_cax_rect(figsize[0]))
     original = img_plotting.get_projector
 
     def projector(mode):
@@ -275,13 +276,9 @@ def glass_brain_png(values: np.ndarray, **options) -> bytes:
 
     img_plotting.get_projector = projector
     try:
-        _draw_glass(
-            fig, kept["ax"], None, v, scale, title, opts["display_mode"], opts["resolution"]
-        )
+        _draw_glass(fig, kept["ax"], cax, v, scale, title, opts["display_mode"], opts["resolution"])
     finally:
         img_plotting.get_projector = original
-    # kept while scale and ends are the same (the label, with the data range, replaced)
-    kept_colourbar(kept, fig, scale, _glass_cax_rect(figsize[0]), data=v)
     return figure_png(fig, dpi=dpi, close=False)
 
 
