@@ -46,6 +46,41 @@ def kept_layout(family: str, key, build) -> dict:
     return state
 
 
+def png_options(func, args, options: dict, name: str) -> dict:
+    """The arguments of ``func(*args, **options)`` by name, defaults filled in, for a PNG twin
+    of a figure function (which takes no ``output_file``).
+
+    Parameters
+    ----------
+    func : callable
+        The figure function.
+    args : tuple
+        Its positional arguments.
+    options : dict
+        Its keyword arguments.
+    name : str
+        The twin's name, for the message.
+
+    Returns
+    -------
+    dict
+        Every parameter of ``func`` but ``output_file``.
+
+    Raises
+    ------
+    TypeError
+        Arguments ``func`` does not take, or an ``output_file``.
+    """
+    import inspect
+
+    bound = inspect.signature(func).bind(*args, **options)
+    bound.apply_defaults()
+    out = dict(bound.arguments)
+    if out.pop("output_file", None) is not None:
+        raise TypeError(f"{name}: no output_file (it returns the PNG)")
+    return out
+
+
 def agg_figure(figsize, dpi: int):
     """A figure on a plain Agg canvas, outside pyplot (kept figures are never closed).
 

@@ -15,7 +15,7 @@ from matplotlib.figure import Figure
 
 from ..checks import check_option
 from . import geometry
-from ._shared import agg_figure, kept_colourbar, kept_layout, save_if_asked
+from ._shared import agg_figure, kept_colourbar, kept_layout, png_options, save_if_asked
 from .colours import ColourScale, add_colourbar, clipped
 
 logger = logging.getLogger("sourcelab")
@@ -225,15 +225,9 @@ def glass_brain_png(values: np.ndarray, **options) -> bytes:
     bytes
         The PNG file's content.
     """
-    import inspect
-
     from .figure_set import figure_png
 
-    bound = inspect.signature(glass_brain).bind(values, **options)
-    bound.apply_defaults()
-    opts = dict(bound.arguments)
-    if opts.pop("output_file") is not None:
-        raise TypeError("glass_brain_png: no output_file (it returns the PNG)")
+    opts = png_options(glass_brain, (values,), options, "glass_brain_png")
     v = _check_values(opts.pop("values"))
     check_option("display_mode", opts["display_mode"], _DISPLAY_MODES)
     scale, title, figsize, dpi = opts["scale"], opts["title"], opts["figsize"], opts["dpi"]
@@ -425,15 +419,9 @@ def surface_views_png(values: np.ndarray, **options) -> bytes:
     bytes
         The PNG file's content.
     """
-    import inspect
-
     from .figure_set import figure_png
 
-    bound = inspect.signature(surface_views).bind(values, **options)
-    bound.apply_defaults()
-    o = dict(bound.arguments)
-    if o.pop("output_file") is not None:
-        raise TypeError("surface_views_png: no output_file (it returns the PNG)")
+    o = png_options(surface_views, (values,), options, "surface_views_png")
     dpi, figsize, surface, scale = int(o["dpi"]), tuple(o["figsize"]), o["surface"], o["scale"]
     if not o["raster"]:
         return figure_png(surface_views(**o), dpi=dpi)

@@ -239,16 +239,10 @@ def pair_head_map_png(pair_table: pd.DataFrame, **options) -> bytes:
     bytes
         The PNG file's content.
     """
-    import inspect
-
-    from ._shared import agg_figure, kept_layout
+    from ._shared import agg_figure, kept_layout, png_options
     from .figure_set import figure_png
 
-    bound = inspect.signature(pair_head_map).bind(pair_table, **options)
-    bound.apply_defaults()
-    o = bound.arguments
-    if o["output_file"] is not None:
-        raise TypeError("pair_head_map_png: no output_file (it returns the PNG)")
+    o = png_options(pair_head_map, (pair_table,), options, "pair_head_map_png")
     t, where, scale = _pair_inputs(
         pair_table, o["band"], o["measure"], o["ch_pos"], o["ch_names"], o["scale"], o["pairs"]
     )

@@ -15,6 +15,7 @@ from ._shared import (
     heatmap_cells,
     kept_colourbar,
     kept_layout,
+    png_options,
     save_if_asked,
 )
 from .colours import Z_THRESHOLD, ColourScale, add_colourbar, z_scale
@@ -125,15 +126,9 @@ def roi_bars_png(roi_table: pd.DataFrame, **options) -> bytes:
     bytes
         The PNG file's content.
     """
-    import inspect
-
     from .figure_set import figure_png
 
-    bound = inspect.signature(roi_bars).bind(roi_table, **options)
-    bound.apply_defaults()
-    o = bound.arguments
-    if o["output_file"] is not None:
-        raise TypeError("roi_bars_png: no output_file (it returns the PNG)")
+    o = png_options(roi_bars, (roi_table,), options, "roi_bars_png")
     scale = o["scale"] or z_scale()
     z, labels, label_w = _bars_data(
         roi_table, band=o["band"], measure=o["measure"], atlas=o["atlas"], top=o["top"]

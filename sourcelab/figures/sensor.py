@@ -11,7 +11,7 @@ from matplotlib.figure import Figure
 from .._threads import thread_limits
 from ..constants import SITES_1020
 from ..errors import InputError
-from ._shared import agg_figure, kept_colourbar, kept_layout, save_if_asked
+from ._shared import agg_figure, kept_colourbar, kept_layout, png_options, save_if_asked
 from .colours import clipped
 from .._docs import fill_doc
 
@@ -123,15 +123,9 @@ def sensor_topomaps_png(values: np.ndarray, **options) -> bytes:
     bytes
         The PNG file's content.
     """
-    import inspect
-
     from .figure_set import figure_png
 
-    bound = inspect.signature(sensor_topomaps).bind(values, **options)
-    bound.apply_defaults()
-    o = dict(bound.arguments)
-    if o.pop("output_file") is not None:
-        raise TypeError("sensor_topomaps_png: no output_file (it returns the PNG)")
+    o = png_options(sensor_topomaps, (values,), options, "sensor_topomaps_png")
     with thread_limits():
         v, band_names, scales, per_band = _topomap_inputs(
             o["values"], o["band_names"], o["scale"], o["ch_names"]
