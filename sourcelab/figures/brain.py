@@ -15,6 +15,7 @@ from matplotlib.figure import Figure
 
 from ..checks import check_option
 from . import geometry
+from .._docs import fill_doc
 from ._shared import agg_figure, kept_colourbar, kept_layout, png_options, save_if_asked
 from .colours import ColourScale, add_colourbar, clipped
 
@@ -399,6 +400,7 @@ def surface_views(
     return fig
 
 
+@fill_doc
 def surface_views_png(values: np.ndarray, **options) -> bytes:
     """PNG of :func:`surface_views`, drawn on a figure kept for its layout.
 
@@ -411,13 +413,7 @@ def surface_views_png(values: np.ndarray, **options) -> bytes:
     Parameters
     ----------
     values : ndarray, shape (n_src,)
-    **options
-        The keywords of :func:`surface_views` but ``output_file``.
-
-    Returns
-    -------
-    bytes
-        The PNG file's content.
+    %(png_twin_returns)s
     """
     from .figure_set import figure_png
 

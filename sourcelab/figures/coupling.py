@@ -220,6 +220,7 @@ def pair_head_map(
     return fig
 
 
+@fill_doc
 def pair_head_map_png(pair_table: pd.DataFrame, **options) -> bytes:
     """PNG of :func:`pair_head_map`, drawn on a figure kept for its layout.
 
@@ -231,13 +232,7 @@ def pair_head_map_png(pair_table: pd.DataFrame, **options) -> bytes:
     Parameters
     ----------
     pair_table : DataFrame
-    **options
-        The keywords of :func:`pair_head_map` but ``output_file``.
-
-    Returns
-    -------
-    bytes
-        The PNG file's content.
+    %(png_twin_returns)s
     """
     from ._shared import agg_figure, kept_layout, png_options
     from .figure_set import figure_png

@@ -107,6 +107,7 @@ def roi_bars(
     return fig
 
 
+@fill_doc
 def roi_bars_png(roi_table: pd.DataFrame, **options) -> bytes:
     """PNG of :func:`roi_bars`, drawn on a figure kept for its layout.
 
@@ -118,13 +119,7 @@ def roi_bars_png(roi_table: pd.DataFrame, **options) -> bytes:
     Parameters
     ----------
     roi_table : DataFrame
-    **options
-        The keywords of :func:`roi_bars` but ``output_file``.
-
-    Returns
-    -------
-    bytes
-        The PNG file's content.
+    %(png_twin_returns)s
     """
     from .figure_set import figure_png
 

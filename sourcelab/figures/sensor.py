@@ -103,6 +103,7 @@ def sensor_topomaps(
         )
 
 
+@fill_doc
 def sensor_topomaps_png(values: np.ndarray, **options) -> bytes:
     """PNG of :func:`sensor_topomaps`, drawn on a figure kept for its layout.
 
@@ -115,13 +116,7 @@ def sensor_topomaps_png(values: np.ndarray, **options) -> bytes:
     Parameters
     ----------
     values : ndarray, shape (n_bands, n_ch)
-    **options
-        The keywords of :func:`sensor_topomaps` but ``output_file``.
-
-    Returns
-    -------
-    bytes
-        The PNG file's content.
+    %(png_twin_returns)s
     """
     from .figure_set import figure_png
 
