@@ -118,6 +118,16 @@ Returns
 fig : matplotlib.figure.Figure"""
 )
 
+#: The end of the Parameters section and the Returns section of a figure's PNG twin.
+docdict["png_twin_returns"] = """\
+**options
+    The keywords of the figure function, but ``output_file``.
+
+Returns
+-------
+bytes
+    The PNG file's content."""
+
 # ---------------------------------------------------------------------------- ages and power
 docdict["age_years"] = """\
 age : float

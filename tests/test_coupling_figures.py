@@ -150,3 +150,30 @@ def test_result_figures_coupling_keys(plain_result, tables):
     assert "z against the norm" in figs["coupling/lps"]._suptitle.get_text()
     with pytest.raises(ValueError, match="pair_measures"):
         result_figures(scored, surfaces=False, pair_measures=("gamma",))
+
+
+def test_pair_head_map_png_on_a_kept_figure_matches_a_fresh_figure(tables):
+    # reference: figure_png of pair_head_map on a new figure for every map; the kept figure
+    # must give the same pixels whatever was drawn on it before
+    import io
+
+    import matplotlib.image as mpimg
+
+    from sourcelab.figures import coupling, figure_png
+
+    ptz, _, pt, _ = tables
+    maps = [
+        (ptz, {"band": "alpha", "measure": "lagcoh", "band_label": "alpha (8-12 Hz)"}),
+        (ptz, {"band": "theta", "measure": "msc"}),
+        (ptz, {"band": "alpha", "measure": "asymmetry"}),  # another set of pairs
+        (ptz.assign(z=0.0), {"band": "alpha", "measure": "lagcoh"}),  # nothing deviates
+        (ptz.assign(z=ptz["z"] * 3), {"band": "beta", "measure": "lagcoh"}),  # beyond ±3
+        (ptz, {"band": "alpha", "measure": "msc", "pairs": "all"}),
+        (ptz, {"band": "alpha", "measure": "lagcoh", "z_threshold": 1.0}),
+    ]
+    for table, kw in maps:
+        kept = coupling.pair_head_map_png(table, **kw)
+        fresh = figure_png(pair_head_map(table, **kw))
+        a = mpimg.imread(io.BytesIO(kept), format="png")
+        b = mpimg.imread(io.BytesIO(fresh), format="png")
+        assert a.shape == b.shape and np.array_equal(a, b), kw

@@ -487,6 +487,83 @@ def test_glass_brain_png_on_a_kept_figure_matches_a_fresh_figure(result):
             assert a.shape == b.shape and np.array_equal(a, b), (title, mode)
 
 
+def _same_pixels(png_a: bytes, png_b: bytes) -> bool:
+    import io
+
+    import matplotlib.image as mpimg
+
+    a = mpimg.imread(io.BytesIO(png_a), format="png")
+    b = mpimg.imread(io.BytesIO(png_b), format="png")
+    return a.shape == b.shape and np.array_equal(a, b)
+
+
+def test_surface_png_on_a_kept_figure_matches_a_fresh_figure(result):
+    # reference: figure_png of surface_views, a new figure for every map; the kept figure must
+    # give the same pixels whatever was drawn on it before (other scales, colour-bar ends)
+    from sourcelab.figures import brain, figure_png
+
+    power = np.asarray(result.source_map("alpha"), float)
+    z = np.linspace(-4.0, 4.0, N_SRC)
+    labels = np.arange(20484) // 2000  # an outline: parcels of 2000 vertices
+    maps = [
+        (power, power_scale(power), "alpha power", None),
+        (z, z_scale(threshold=1.96), "z", None),
+        (np.clip(z, -2.0, 2.0), z_scale(threshold=1.96), "z", None),  # no colour-bar arrows
+        (2.0 * power, power_scale(power), "alpha power", None),  # beyond the range: arrows
+        (power, power_scale(power), None, None),
+        (z, z_scale(), "z", labels),
+        (-z, z_scale(), "z", labels),
+    ]
+    for values, scale, title, outline in maps:
+        kept = brain.surface_views_png(values, scale=scale, title=title, outline=outline)
+        fresh = figure_png(surface_views(values, scale=scale, title=title, outline=outline))
+        assert _same_pixels(kept, fresh), (title, outline is None)
+
+
+def test_roi_bars_png_on_a_kept_figure_matches_a_fresh_figure(result):
+    # reference: figure_png of roi_bars on a new figure for every chart
+    from sourcelab.figures import figure_png, roi
+
+    rt = result.roi_table
+    bigger = rt.assign(z=rt["z"] * 3.0)  # beyond the z limits: wider axis, colour-bar arrows
+    charts = [
+        (rt, {"band": "alpha", "measure": "absolute"}),
+        (rt, {"band": "theta", "measure": "relative"}),
+        (bigger, {"band": "alpha", "measure": "absolute"}),
+        (rt, {"band": "beta", "measure": "absolute", "scale": z_scale(threshold=1.96)}),
+        (rt, {"band": "alpha", "measure": "absolute", "top": 12}),  # another layout
+        (rt, {"band": "delta", "measure": "absolute"}),
+    ]
+    for table, kw in charts:
+        kw = {"atlas": "brodmann", **kw}
+        fresh = figure_png(roi_bars(table, **kw))
+        assert _same_pixels(roi.roi_bars_png(table, **kw), fresh), kw
+
+
+def test_topomaps_png_on_a_kept_figure_matches_a_fresh_figure(result):
+    # reference: figure_png of sensor_topomaps (MNE's plot_topomap on new axes for every map);
+    # the kept figure, whose map axes MNE draws into again, must give the same pixels
+    from sourcelab.figures import figure_png, sensor
+
+    bands = list(result.bands.names)
+    sens = np.asarray(result.sensor_abs)
+    per_band = [power_scale(row, measure="sensor_absolute") for row in sens]
+    z = np.linspace(-4.0, 4.0, sens.size).reshape(sens.shape)
+    charts = [
+        (sens, {"scale": per_band, "title": "power"}),
+        (np.asarray(result.sensor_rel), {"scale": per_band, "title": "relative"}),
+        (sens * 3.0, {"scale": per_band, "title": "power"}),  # beyond the range: arrows
+        (z, {"scale": z_scale(threshold=1.96), "title": "z"}),
+        (np.clip(z, -2.0, 2.0), {"scale": z_scale(threshold=1.96), "title": "z"}),
+        (-z, {"scale": z_scale(), "title": None, "names": False}),
+        (z[:2], {"scale": z_scale(), "band_names": bands[:2]}),  # another layout
+    ]
+    for values, kw in charts:
+        kw = {"band_names": bands, "ch_names": result.ch_names, **kw}
+        fresh = figure_png(sensor_topomaps(values, **kw))
+        assert _same_pixels(sensor.sensor_topomaps_png(values, **kw), fresh), kw.get("title")
+
+
 def test_fully_masked_z_map_draws_quietly():
     # nothing beyond the mask is a valid map (warnings are errors in this suite)
     fig = glass_brain(np.full(N_SRC, 0.5), scale=z_scale(threshold=1.96))

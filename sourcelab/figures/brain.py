@@ -15,7 +15,8 @@ from matplotlib.figure import Figure
 
 from ..checks import check_option
 from . import geometry
-from ._shared import save_if_asked
+from .._docs import fill_doc
+from ._shared import agg_figure, kept_colourbar, kept_layout, png_options, save_if_asked
 from .colours import ColourScale, add_colourbar, clipped
 
 logger = logging.getLogger("sourcelab")
@@ -225,15 +226,9 @@ def glass_brain_png(values: np.ndarray, **options) -> bytes:
     bytes
         The PNG file's content.
     """
-    import inspect
-
     from .figure_set import figure_png
 
-    bound = inspect.signature(glass_brain).bind(values, **options)
-    bound.apply_defaults()
-    opts = dict(bound.arguments)
-    if opts.pop("output_file") is not None:
-        raise TypeError("glass_brain_png: no output_file (it returns the PNG)")
+    opts = png_options(glass_brain, (values,), options, "glass_brain_png")
     v = _check_values(opts.pop("values"))
     check_option("display_mode", opts["display_mode"], _DISPLAY_MODES)
     scale, title, figsize, dpi = opts["scale"], opts["title"], opts["figsize"], opts["dpi"]
@@ -390,6 +385,61 @@ def surface_views(
         medial; each titled) and a colour bar; with ``raster=False`` four 3-D axes instead of
         the image.
     """
+    raw, v, outline, top = _surface_inputs(values, outline, title)
+    img, anchors = (
+        _raster_image(v, scale, surface, outline, top, figsize, dpi) if raster else (None, None)
+    )
+    fig = plt.figure(figsize=figsize, dpi=dpi)
+    state = {"fig": fig}
+    if img is None:
+        _draw_views(fig, v, scale, surface, outline, top)
+    else:
+        state["image"] = _paint_views(fig, img, anchors)
+    _surface_frame(state, scale, raw, title, top)
+    save_if_asked(fig, output_file, dpi)
+    return fig
+
+
+@fill_doc
+def surface_views_png(values: np.ndarray, **options) -> bytes:
+    """PNG of :func:`surface_views`, drawn on a figure kept for its layout.
+
+    The figure, its image axes and the view titles are made once per layout (surface, size,
+    resolution, outline, titled or not); each map replaces the image's pixels, the colour bar
+    (kept when its scale and ends are the same, with a new label) and the title.  The pixels
+    are those of ``figure_png(surface_views(...))`` (see the tests).  Drawn afresh with
+    ``raster=False`` or when the cached raster does not fit.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n_src,)
+    %(png_twin_returns)s
+    """
+    from .figure_set import figure_png
+
+    o = png_options(surface_views, (values,), options, "surface_views_png")
+    dpi, figsize, surface, scale = int(o["dpi"]), tuple(o["figsize"]), o["surface"], o["scale"]
+    if not o["raster"]:
+        return figure_png(surface_views(**o), dpi=dpi)
+    raw, v, outline, top = _surface_inputs(o["values"], o["outline"], o["title"])
+    img, anchors = _raster_image(v, scale, surface, outline, top, figsize, dpi)
+    if img is None:
+        return figure_png(surface_views(**o), dpi=dpi)
+    key = (surface, top, figsize, dpi, None if outline is None else outline.tobytes())
+
+    def build():
+        fig = agg_figure(figsize, dpi)
+        return {"fig": fig, "image": _paint_views(fig, img, anchors)}
+
+    state = kept_layout("surface", key, build)
+    state["image"].set_data(img)
+    _surface_frame(state, scale, raw, o["title"], top)
+    return figure_png(state["fig"], dpi=dpi, close=False)
+
+
+def _surface_inputs(values, outline, title):
+    """Per-source and per-vertex values, the outline as a label per vertex (or None) and the
+    views' top edge (figure fraction)."""
     raw = _check_values(values)
     v = geometry.to_surface(raw)
     if outline is not None:
@@ -398,21 +448,14 @@ def surface_views(
         )
         if outline.shape != (geometry.N_SURFACE,):
             raise ValueError(f"outline: need shape ({geometry.N_SURFACE},), got {outline.shape}")
-    top = 0.92 if title else 0.98
-    img, anchors = (
-        _raster_image(v, scale, surface, outline, top, figsize, dpi) if raster else (None, None)
-    )
-    fig = plt.figure(figsize=figsize, dpi=dpi)
-    if img is None:
-        _draw_views(fig, v, scale, surface, outline, top)
-    else:
-        _paint_views(fig, img, anchors)
-    cax = fig.add_axes((0.87, 0.15, 0.02, top * 0.7))
-    add_colourbar(fig, scale, cax=cax, data=raw)
+    return raw, v, outline, 0.92 if title else 0.98
+
+
+def _surface_frame(state: dict, scale, raw, title, top) -> None:
+    """The colour bar and title of a surface figure."""
+    kept_colourbar(state, state["fig"], scale, (0.87, 0.15, 0.02, top * 0.7), data=raw)
     if title:
-        fig.suptitle(title, x=0.43, y=0.995, va="top", fontsize=11)
-    save_if_asked(fig, output_file, dpi)
-    return fig
+        state["fig"].suptitle(title, x=0.43, y=0.995, va="top", fontsize=11)
 
 
 def warm_caches(func, kwargs) -> None:
@@ -623,13 +666,17 @@ def _scratch_axes():
     return fig, [fig.add_axes(rect, projection="3d") for rect in _view_rects(0.98)]
 
 
-def _paint_views(fig, img: np.ndarray, anchors) -> None:
-    """``img`` over the whole figure, and each view's title where its 3-D axes put it."""
+def _paint_views(fig, img: np.ndarray, anchors):
+    """``img`` over the whole figure (the AxesImage is returned), and each view's title where
+    its 3-D axes put it."""
     over = fig.add_axes((0.0, 0.0, 1.0, 1.0))
-    over.imshow(img, interpolation="nearest", aspect="auto", extent=(0, 1, 0, 1), origin="upper")
+    image = over.imshow(
+        img, interpolation="nearest", aspect="auto", extent=(0, 1, 0, 1), origin="upper"
+    )
     over.set_axis_off()
     for (hemi, view), (x, y) in zip(SURFACE_VIEWS, anchors):
         fig.text(x, y, f"{hemi} {view}", fontsize=9, ha="center", va="baseline")
+    return image
 
 
 def _face_colours(coll) -> np.ndarray:

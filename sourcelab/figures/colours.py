@@ -204,6 +204,23 @@ def data_range_text(data) -> str:
     return f"data {v.min():.3g} to {v.max():.3g}"
 
 
+def colourbar_label(scale: ColourScale, data=None) -> str:
+    """The label :func:`add_colourbar` gives: the scale's, and the data range when given.
+
+    Parameters
+    ----------
+    scale : ColourScale
+    data : array-like, optional
+        The values drawn.
+
+    Returns
+    -------
+    str
+    """
+    rng = "" if data is None else data_range_text(data)
+    return f"{scale.label}\n({rng})" if rng else scale.label
+
+
 def add_colourbar(
     fig,
     scale: ColourScale,
@@ -235,12 +252,9 @@ def add_colourbar(
     matplotlib.colorbar.Colorbar
         The colour bar; other keyword arguments go to :meth:`Figure.colorbar`.
     """
-    label = scale.label
     if data is not None:
         kwargs.setdefault("extend", extend_for(data, scale))
-        rng = data_range_text(data)
-        if rng:
-            label = f"{label}\n({rng})"
+    label = colourbar_label(scale, data)
     cb = fig.colorbar(scale.scalar_mappable(), cax=cax, ax=ax, orientation=orientation, **kwargs)
     cb.set_label(label)
     if scale.diverging and scale.threshold:

@@ -212,6 +212,57 @@ def pair_head_map(
         the grey chords of all pairs considered, the second (when any pair deviates) the
         coloured arcs, one per deviating pair, with ``get_array()`` their z.
     """
+    t, where, scale = _pair_inputs(pair_table, band, measure, ch_pos, ch_names, scale, pairs)
+    fig = plt.figure(figsize=(5.6, 6.2), dpi=dpi)
+    state = _pairs_layout(fig, where, t)
+    _pairs_update(state, t, where, band_label or band, measure, z_threshold, scale, pairs)
+    save_if_asked(fig, output_file, dpi)
+    return fig
+
+
+@fill_doc
+def pair_head_map_png(pair_table: pd.DataFrame, **options) -> bytes:
+    """PNG of :func:`pair_head_map`, drawn on a figure kept for its layout.
+
+    The head, the grey chords, the electrodes and their names are made once per layout
+    (electrode positions, pairs considered); each map sets the coloured arcs, which electrodes
+    are bold, the texts and the colour bar.  The pixels are those of
+    ``figure_png(pair_head_map(...))`` (see the tests).
+
+    Parameters
+    ----------
+    pair_table : DataFrame
+    %(png_twin_returns)s
+    """
+    from ._shared import agg_figure, kept_layout, png_options
+    from .figure_set import figure_png
+
+    o = png_options(pair_head_map, (pair_table,), options, "pair_head_map_png")
+    t, where, scale = _pair_inputs(
+        pair_table, o["band"], o["measure"], o["ch_pos"], o["ch_names"], o["scale"], o["pairs"]
+    )
+    dpi = int(o["dpi"])
+    key = (tuple((n, tuple(p)) for n, p in where.items()), _chord_key(t), dpi)
+    state = kept_layout("pairs", key, lambda: _pairs_layout(agg_figure((5.6, 6.2), dpi), where, t))
+    _pairs_update(
+        state,
+        t,
+        where,
+        o["band_label"] or o["band"],
+        o["measure"],
+        o["z_threshold"],
+        scale,
+        o["pairs"],
+    )
+    return figure_png(state["fig"], dpi=dpi, close=False)
+
+
+def _chord_key(t: pd.DataFrame) -> tuple:
+    return tuple(zip(t["channel_a"], t["channel_b"]))
+
+
+def _pair_inputs(pair_table, band, measure, ch_pos, ch_names, scale, pairs):
+    """The rows drawn, the 2-D position of each electrode by name, and the z scale."""
     scale = scale or z_scale()
     if not scale.diverging or scale.vmin != -scale.vmax:
         raise InputError("scale: need a symmetric z scale (z_scale)")
@@ -227,16 +278,44 @@ def pair_head_map(
     unknown = sorted((set(t["channel_a"]) | set(t["channel_b"])) - set(where))
     if unknown:
         raise InputError(f"pair_table: no position for sites {unknown}")
+    return t, where, scale
+
+
+def _pairs_layout(fig, where: dict, t: pd.DataFrame) -> dict:
+    """The static parts of a pair head map: head, grey chords of the pairs considered,
+    electrodes and their names, limits, the texts (empty until :func:`_pairs_update`)."""
+    ax = fig.add_axes((0.04, 0.17, 0.78, 0.71))
+    xy = np.array(list(where.values()))
+    radius = max(1.0, float(np.max(np.linalg.norm(xy, axis=1)))) * 1.06
+    _draw_head(ax, radius)
+    chords = [np.vstack([where[a], where[b]]) for a, b in _chord_key(t)]
+    ax.add_collection(LineCollection(chords, colors="0.82", linewidths=0.6, zorder=2))
+    # one collection for all electrodes (one per electrode: ~0.1 s a figure more)
+    dots = ax.scatter(xy[:, 0], xy[:, 1], s=290, facecolor="white", zorder=4)
+    names = [
+        ax.text(x, y, n, ha="center", va="center", fontsize=7, zorder=5)
+        for n, (x, y) in where.items()
+    ]
+    lim = radius * 1.14
+    ax.set_xlim(-lim, lim)
+    ax.set_ylim(-lim, lim)
+    ax.set_aspect("equal")
+    ax.axis("off")
+    subset = fig.text(0.43, 0.915, "", ha="center", fontsize=8.5, color="0.3")
+    notes = fig.text(0.04, 0.02, "", fontsize=7.5, va="bottom", color="0.15")
+    return {"fig": fig, "ax": ax, "dots": dots, "names": names, "subset": subset, "notes": notes}
+
+
+def _pairs_update(state, t, where, band_text, measure, z_threshold, scale, pairs) -> None:
+    """One map's data on a pair head-map layout: arcs, bold electrodes, texts, colour bar."""
+    from ._shared import kept_colourbar
+
+    fig, ax = state["fig"], state["ax"]
     z = t["z"].to_numpy(dtype=float)
     has_z = bool(np.isfinite(z).any())
     dev = np.isfinite(z) & (np.abs(z) >= z_threshold)
-
-    fig = plt.figure(figsize=(5.6, 6.2), dpi=dpi)
-    ax = fig.add_axes((0.04, 0.17, 0.78, 0.71))
-    radius = max(1.0, float(np.max(np.linalg.norm(xy, axis=1)))) * 1.06
-    _draw_head(ax, radius)
-    chords = [np.vstack([where[a], where[b]]) for a, b in zip(t["channel_a"], t["channel_b"])]
-    ax.add_collection(LineCollection(chords, colors="0.82", linewidths=0.6, zorder=2))
+    if state.get("arcs") is not None:
+        state.pop("arcs").remove()
     order = np.argsort(np.abs(np.where(dev, z, 0.0)))  # strongest drawn on top
     sel = [i for i in order if dev[i]]
     if sel:
@@ -258,49 +337,23 @@ def pair_head_map(
             arcs, cmap=scale.cmap, norm=scale.norm, linewidths=widths, capstyle="round", zorder=3
         )
         lc.set_array(z[sel])
-        ax.add_collection(lc)
+        state["arcs"] = ax.add_collection(lc)
     involved = set(t["channel_a"].to_numpy()[dev]) | set(t["channel_b"].to_numpy()[dev])
     bold = np.array([n in involved for n in where])
-    pts = np.array(list(where.values()))
-    ax.scatter(  # one collection for all electrodes (one per electrode: ~0.1 s a figure more)
-        pts[:, 0],
-        pts[:, 1],
-        s=290,
-        facecolor="white",
-        edgecolor=np.where(bold, "0.1", "0.55").tolist(),
-        linewidths=np.where(bold, 1.4, 0.7),
-        zorder=4,
-    )
-    for n, (x, y) in where.items():
-        bold = n in involved
-        ax.text(
-            x,
-            y,
-            n,
-            ha="center",
-            va="center",
-            fontsize=7,
-            zorder=5,
-            color="0.05" if bold else "0.35",
-            fontweight="bold" if bold else "normal",
-        )
-    lim = radius * 1.14
-    ax.set_xlim(-lim, lim)
-    ax.set_ylim(-lim, lim)
-    ax.set_aspect("equal")
-    ax.axis("off")
-    cax = fig.add_axes((0.84, 0.25, 0.035, 0.55))
-    add_colourbar(fig, scale, cax=cax, data=z[sel] if sel else None)
-    what = _measure_text(measure)
-    fig.suptitle(f"{band_label or band} · {what}", fontsize=11, y=0.975)
-    subset = (
+    state["dots"].set_edgecolor(np.where(bold, "0.1", "0.55").tolist())
+    state["dots"].set_linewidths(np.where(bold, 1.4, 0.7))
+    for text, strong in zip(state["names"], bold):
+        text.set_color("0.05" if strong else "0.35")
+        text.set_fontweight("bold" if strong else "normal")
+    kept_colourbar(state, fig, scale, (0.84, 0.25, 0.035, 0.55), data=z[sel] if sel else None)
+    fig.suptitle(f"{band_text} · {_measure_text(measure)}", fontsize=11, y=0.975)
+    state["subset"].set_text(
         "homologous and anterior-posterior pairs"
         if measure == "asymmetry"
         else "homologous and within-hemisphere pairs"
         if pairs == "figure"
         else "all pairs"
     )
-    fig.text(0.43, 0.915, subset, ha="center", fontsize=8.5, color="0.3")
     n = len(t)
     if has_z:
         lines = [
@@ -311,9 +364,7 @@ def pair_head_map(
         lines = ["no norms: nothing to compare with, no pair is coloured"]
     lines.append(_Z_MEANING.get(measure, "z > 0: above the norm (red); z < 0: below (blue)"))
     lines.append("grey: pairs considered; average reference; template head, 19 electrodes")
-    fig.text(0.04, 0.02, "\n".join(lines), fontsize=7.5, va="bottom", color="0.15")
-    save_if_asked(fig, output_file, dpi)
-    return fig
+    state["notes"].set_text("\n".join(lines))
 
 
 def _roi_order(t: pd.DataFrame) -> list[tuple[str, str]]:

@@ -9,7 +9,15 @@ from matplotlib.figure import Figure
 
 from ..errors import InputError
 from ..rois.names import area_name, brodmann_number, natural_key
-from ._shared import check_columns, heatmap_cells, save_if_asked
+from ._shared import (
+    agg_figure,
+    check_columns,
+    heatmap_cells,
+    kept_colourbar,
+    kept_layout,
+    png_options,
+    save_if_asked,
+)
 from .colours import Z_THRESHOLD, ColourScale, add_colourbar, z_scale
 from .._docs import fill_doc
 
@@ -91,6 +99,49 @@ def roi_bars(
     %(figure_output_returns)s
     """
     scale = scale or z_scale()
+    z, labels, label_w = _bars_data(roi_table, band=band, measure=measure, atlas=atlas, top=top)
+    fig = plt.figure(figsize=_bars_size(len(z), label_w), dpi=dpi)
+    state = _bars_layout(fig, len(z), label_w, guide)
+    _bars_update(state, z, labels, scale, f"{band} · {measure}", guide)
+    save_if_asked(fig, output_file, dpi)
+    return fig
+
+
+@fill_doc
+def roi_bars_png(roi_table: pd.DataFrame, **options) -> bytes:
+    """PNG of :func:`roi_bars`, drawn on a figure kept for its layout.
+
+    The axes, bar rectangles, guides and tick objects are made once per layout (number of
+    bars, label width, guide); each chart sets the bars' lengths and colours, the labels,
+    limits, title and colour bar label.  The pixels are those of ``figure_png(roi_bars(...))``
+    (see the tests).
+
+    Parameters
+    ----------
+    roi_table : DataFrame
+    %(png_twin_returns)s
+    """
+    from .figure_set import figure_png
+
+    o = png_options(roi_bars, (roi_table,), options, "roi_bars_png")
+    scale = o["scale"] or z_scale()
+    z, labels, label_w = _bars_data(
+        roi_table, band=o["band"], measure=o["measure"], atlas=o["atlas"], top=o["top"]
+    )
+    n, dpi, guide = len(z), int(o["dpi"]), o["guide"]
+
+    def build():
+        fig = agg_figure(_bars_size(n, label_w), dpi)
+        return _bars_layout(fig, n, label_w, guide)
+
+    state = kept_layout("roi-bars", (n, label_w, float(guide), dpi), build)
+    _bars_update(state, z, labels, scale, f"{o['band']} · {o['measure']}", guide)
+    return figure_png(state["fig"], dpi=dpi, close=False)
+
+
+def _bars_data(roi_table, *, band, measure, atlas, top):
+    """z of the ``top`` ROIs by |z| (smallest first: drawn from the bottom), their labels and
+    the labels' width (inches)."""
     t = _select(roi_table, atlas=atlas, measure=measure, band=band)
     t = t[np.isfinite(t["z"].astype(float))]
     if t.empty:
@@ -98,36 +149,44 @@ def roi_bars(
     t = t.assign(_abs=t["z"].abs()).sort_values("_abs", ascending=False).head(top)
     t = t.iloc[::-1]
     labels = [_label(r) for r in t.itertuples()]
-    z = t["z"].to_numpy(float)
     label_w = 0.25 + 0.062 * max(len(s) for s in labels)  # inches for the area labels
-    w, h = label_w + 5.2, 0.9 + 0.2 * len(z)
-    fig = plt.figure(figsize=(w, h), dpi=dpi)
-    ax = fig.add_axes((label_w / w, 0.54 / h, 3.8 / w, 0.2 * len(z) / h))
-    sm = scale.scalar_mappable()
-    ax.barh(
-        np.arange(len(z)),
-        z,
-        color=sm.to_rgba(np.clip(z, scale.vmin, scale.vmax)),
-        edgecolor="0.3",
-        linewidth=0.4,
-    )
-    ax.set_yticks(np.arange(len(z)), labels, fontsize=8)
+    return t["z"].to_numpy(float), labels, label_w
+
+
+def _bars_size(n: int, label_w: float) -> tuple[float, float]:
+    return label_w + 5.2, 0.9 + 0.2 * n
+
+
+def _bars_layout(fig, n: int, label_w: float, guide: float) -> dict:
+    """The static parts of a bar chart of ``n`` ROIs: axes, bars (zero length), guides."""
+    w, h = _bars_size(n, label_w)
+    ax = fig.add_axes((label_w / w, 0.54 / h, 3.8 / w, 0.2 * n / h))
+    bars = ax.barh(np.arange(n), np.zeros(n), edgecolor="0.3", linewidth=0.4)
     for g in (-guide, guide):
         ax.axvline(g, color="0.25", ls="--", lw=0.8)
     ax.axvline(0, color="k", lw=0.8)
+    ax.set_ylim(-0.6, n - 0.4)
+    pos = ax.get_position()
+    cax = ((label_w + 4.0) / w, pos.y0, 0.14 / w, pos.height)
+    return {"fig": fig, "ax": ax, "bars": list(bars), "cax": cax}
+
+
+def _bars_update(state: dict, z, labels, scale: ColourScale, what: str, guide: float) -> None:
+    """One chart's data on a bar-chart layout: bar lengths and colours, labels, limits, title,
+    colour bar."""
+    ax = state["ax"]
+    colours = scale.scalar_mappable().to_rgba(np.clip(z, scale.vmin, scale.vmax))
+    for bar, value, colour in zip(state["bars"], z, colours):
+        bar.set_width(value)
+        bar.set_facecolor(colour)
+    ax.set_yticks(np.arange(len(z)), labels, fontsize=8)
     lim = max(scale.vmax, float(np.abs(z).max()) * 1.05)
     ax.set_xlim(-lim, lim)
-    ax.set_ylim(-0.6, len(z) - 0.4)
     ax.set_xlabel(scale.label)
     ax.set_title(  # y given: no search for top decorations (there are none), ~0.05 s a figure
-        f"{band} · {measure} · ROIs ranked by |z| (dashed: ±{guide:g})", fontsize=10, y=1.0
+        f"{what} · ROIs ranked by |z| (dashed: ±{guide:g})", fontsize=10, y=1.0
     )
-    cax = fig.add_axes(
-        ((label_w + 4.0) / w, ax.get_position().y0, 0.14 / w, ax.get_position().height)
-    )
-    add_colourbar(fig, scale, cax=cax, data=z)
-    save_if_asked(fig, output_file, dpi)
-    return fig
+    kept_colourbar(state, state["fig"], scale, state["cax"], data=z)
 
 
 @fill_doc
