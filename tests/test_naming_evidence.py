@@ -80,6 +80,23 @@ def test_candidates_name_the_area_of_highest_evidence(rng):
     assert other != first and other == ev.order([first])[0]
 
 
+def test_listed_naming_names_over_all_areas_and_hides_excluded_ones(rng):
+    # Issue 14, the candidate list's rule (shared by the probability fit): a peak is named over
+    # all areas; when that area is excluded it is not renamed after a neighbour but not shown.
+    from sourcelab.trust import naming
+    from sourcelab.trust.cortex import cortex_space
+
+    sp = cortex_space()
+    s = int(rng.choice(np.flatnonzero(sp.codes > 0)))
+    v = (sp.op.kernel @ sp.gain[:, s]) ** 2
+    p = int(np.argmax(v))
+    first = naming.candidate_area_code(v, sp, p, kind="power")
+    code, ev, shown = naming.listed_naming(v, sp, p, kind="power")
+    assert code == first and shown and ev is not None
+    code, _, shown = naming.listed_naming(v, sp, p, exclude=[first], kind="power")
+    assert code == first and not shown
+
+
 def test_patch_gain_sums_the_gain_of_the_sources_within_the_radius(rng):
     # Definition (brute force): column s of the patch gain is the sum of the gain columns of
     # every source within the radius of s in the same hemisphere, s itself included.

@@ -19,11 +19,13 @@ Simulation model (all invented; :mod:`sourcelab.simulate.mismatch` for the true 
   added to a new person; z-scored per source against a simulated cohort's per-source norms.
 
 Probability model (:mod:`sourcelab.trust.probability`).  The area named for a map is the area
-of highest evidence around its maximum (:func:`sourcelab.trust.naming.candidate_naming`, areas
-not resolvable from 19 electrodes left out), as candidate lists name it.  The probability that
-the generator lies in it is a logistic model of five features (:data:`~sourcelab.trust.
-probability.FEATURES`): the peak's signed distance to the named area's border, the margin of
-the area's maximum, its size, its leakage own-share and its share of the evidence.  One
+of highest evidence around its maximum over all areas, as candidate lists name it
+(:func:`sourcelab.trust.naming.listed_naming`); a map whose named area is not resolvable from
+19 electrodes is not shown by a list, so it is left out of the fit and of the checks.  The
+probability that the generator lies in it is a logistic model of five features
+(:data:`~sourcelab.trust.probability.FEATURES`): the peak's signed distance to the named
+area's border, the margin of the area's maximum, its size, its leakage own-share and its share
+of the evidence.  One
 coefficient set per map kind (``"power"`` for point-source power maps without norms, ``"z"`` for
 the excess z-maps ``max(z, 0)`` of focal deviations), fitted by maximum likelihood on
 simulations of mismatch seed 0 (jitter realisations 1-8) and checked on other seeds (other
@@ -487,22 +489,34 @@ def point_source_set(setup: SimSetup, n: int, rng: np.random.Generator, *, snr_r
 
 
 def _score_maps(setup, maps, true, src, kind):
-    from ..trust.naming import candidate_naming
+    """Name each map at its maximum as a candidate list does; features of the maps it shows.
+
+    :func:`sourcelab.trust.naming.listed_naming`: named over all areas; a map whose named area
+    is not resolvable (``setup.exclude``) is not shown by default, so it is left out of the
+    returned features and outcomes (counted in ``n_left_out``; ``kept`` marks the others).
+    """
+    from ..trust.naming import listed_naming
 
     excl = tuple(int(c) for c in setup.exclude)
-    x, named = [], []
+    x, named, kept = [], [], []
     for v in maps:
         peak = int(np.argmax(v))
-        a, ev = candidate_naming(v, setup.space, peak, exclude=excl, kind=kind)
-        named.append(a)
-        x.append(area_features(v, setup.space, a, setup.own, peak=peak, evidence=ev))
-    named = np.asarray(named)
+        a, ev, shown = listed_naming(v, setup.space, peak, exclude=excl, kind=kind)
+        kept.append(shown)
+        if shown:
+            named.append(a)
+            x.append(area_features(v, setup.space, a, setup.own, peak=peak, evidence=ev))
+    kept = np.asarray(kept, dtype=bool)
+    named = np.asarray(named, dtype=np.int64)
+    true, src = np.asarray(true)[kept], np.asarray(src)[kept]
     return {
-        "x": np.asarray(x),
+        "x": np.asarray(x).reshape(len(named), len(FEATURES)),
         "hit": (named == true).astype(float),
         "true": true,
         "named": named,
         "sources": src,
+        "kept": kept,
+        "n_left_out": int((~kept).sum()),
     }
 
 
@@ -564,7 +578,7 @@ def deviation_set(
         z = predictive_t(np.log10(dev[i]), mean, sd, n=n_kept, degree=1, h0=h)["z_equivalent"]
         zs.append(np.clip(z, 0.0, None))  # the excess map a candidate list names
     out = _score_maps(setup, np.asarray(zs), sp.codes[centres], centres, "z")
-    out["peak_z"] = np.array([z.max() for z in zs])
+    out["peak_z"] = np.array([z.max() for z in zs])[out["kept"]]
     return out
 
 
@@ -607,8 +621,9 @@ def fit_model(
     return {
         "format": "sourcelab-localisation-probability 1",
         "description": "logistic model of P(generator in the named area) from features of the "
-        "named area (the area of highest evidence around the map's peak, "
-        "sourcelab.trust.naming.candidate_naming); fitted on simulations under model mismatch "
+        "named area (the area of highest evidence around the map's peak over all areas, "
+        "sourcelab.trust.naming.listed_naming; maps a candidate list does not show left out); "
+        "fitted on simulations under model mismatch "
         "(3-shell sphere true head, 10 mm RMS tangential electrode jitter, noise); see "
         "sourcelab/trust/probability.py and sourcelab/simulate/localisation.py",
         "features": list(FEATURES),
@@ -619,10 +634,13 @@ def fit_model(
             "sim_seed": sim_seed,
             "n_point": n_point,
             "n_deviation": n_dev,
+            "n_point_left_out": pts["n_left_out"],
+            "n_deviation_left_out": dev["n_left_out"],
             "hit_rate_point": float(pts["hit"].mean()),
             "hit_rate_deviation": float(dev["hit"].mean()),
-            "naming": "sourcelab.trust.naming.candidate_naming (power: point templates, "
-            "z: patch templates)",
+            "naming": "sourcelab.trust.naming.listed_naming (named over all areas; maps whose "
+            "named area is not resolvable are not shown and left out of the fit; power: point "
+            "templates, z: patch templates)",
             "lambda2": space.op.lambda2,
             "n_src": int(space.n_src),
             "seconds": round(time.perf_counter() - t0, 1),

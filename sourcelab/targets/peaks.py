@@ -3,7 +3,7 @@
 For every band and measure, the per-source z-map (against per-source norms) is searched for local
 maxima of ``z`` (excess) and of ``-z`` (deficit) beyond the deviation threshold on the cortical
 mesh (:mod:`sourcelab.trust.localise`).  Each peak names the Brodmann area of highest
-template-match evidence around it (:func:`sourcelab.trust.naming.candidate_naming`; under
+template-match evidence around it (:func:`sourcelab.trust.naming.listed_naming`; under
 model mismatch more often the true area than the area that contains the peak), and reports its
 signed distance to that area's border (negative when the peak lies outside the named area); one
 candidate per (measure, band, direction, area) keeps the strongest peak.  Order:
@@ -102,7 +102,7 @@ def peak_candidates(
     from ..headmodel.geometry import mni305_to_mni152
     from ..trust.probability import area_probability
     from ..trust.localise import clusters, local_maxima, signed_border_distance
-    from ..trust.naming import candidate_naming
+    from ..trust.naming import listed_naming
 
     excl = set(int(c) for c in exclude)
     rows = []
@@ -119,11 +119,12 @@ def peak_candidates(
             for s in peaks:
                 # every area may be named: a peak whose best area is not resolvable is left
                 # out (below), not renamed after a resolvable neighbour
-                code, evidence = candidate_naming(v, space, s, kind="z", memo=memo)
+                code, evidence, resolvable = listed_naming(
+                    v, space, s, exclude=excl, kind="z", memo=memo
+                )
                 if code == 0 or code in seen:
                     continue
                 seen.add(code)
-                resolvable = code not in excl
                 if not resolvable and not include_unresolvable:
                     continue
                 members = np.flatnonzero(cl == cl[s])

@@ -475,6 +475,43 @@ def candidate_naming(
     return int(o[0]), ev
 
 
+@fill_doc
+def listed_naming(
+    values: np.ndarray, space, peak: int, *, exclude=(), kind: str = "z", memo=None
+) -> tuple[int, MatchResult | None, bool]:
+    """What a candidate list names for ``peak``, and whether it shows it by default.
+
+    Every area may be named (:func:`candidate_naming` over all areas); a peak whose named area
+    is in ``exclude`` is not renamed after an eligible neighbour but marked not shown (the list
+    leaves it out unless asked to keep it).  The shared rule of
+    :func:`sourcelab.targets.peaks.peak_candidates` and of the simulations the localisation
+    probability is fitted and checked on (:mod:`sourcelab.simulate.localisation`).
+
+    Parameters
+    ----------
+    %(match_map_space_peak)s
+    exclude : sequence of int
+        Area codes a list does not show by default (e.g. not resolvable from 19 electrodes).
+    kind : {"z", "power"}
+        Map kind, as :func:`candidate_naming`.
+    memo : ndarray, shape (n_src,), optional
+        As :func:`candidate_naming`.
+
+    Returns
+    -------
+    code : int
+        Area code of highest evidence over all areas (0 only when the peak lies outside every
+        area and no candidate is eligible).
+    evidence : MatchResult or None
+        The area evidence the name was read from.
+    shown : bool
+        False when ``code`` is 0 or in ``exclude``.
+    """
+    code, ev = candidate_naming(values, space, peak, kind=kind, memo=memo)
+    shown = code != 0 and code not in {int(c) for c in exclude}
+    return code, ev, shown
+
+
 def candidate_area_code(
     values: np.ndarray, space, peak: int, *, exclude=(), kind: str = "z"
 ) -> int:

@@ -1,8 +1,9 @@
 """The calibrated probability that a deviation's generator lies in the area it is named after.
 
-The area named for a map is the area of highest evidence around the map's peak
-(:func:`~sourcelab.trust.naming.candidate_naming`; areas not resolvable from 19 electrodes left
-out).  The probability that the generator lies in it is a logistic model
+The area named for a map is the area of highest evidence around the map's peak over all areas
+(:func:`~sourcelab.trust.naming.listed_naming`, the candidate list's rule; a peak named after an
+area not resolvable from 19 electrodes is not shown, and such maps are not in the fit).  The
+probability that the generator lies in it is a logistic model
 
     logit P = c0 + c1 · sign(b) log1p(|b|) + c2 · margin + c3 · log(n_sources)
               + c4 · logit(own) + c5 · logit(posterior)
