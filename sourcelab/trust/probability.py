@@ -62,31 +62,6 @@ def shipped_model() -> dict:
     return json.loads(shipped_bytes(MODEL_FILE)[0].decode("utf-8"))
 
 
-def named_area(values: np.ndarray, space, exclude=None, *, kind: str = "z") -> int:
-    """Code of the area named for a map: highest evidence around its global peak.
-
-    Parameters
-    ----------
-    values : ndarray, shape (n_src,)
-        Non-negative map over ``space``'s sources (excess ``|z|`` or power).
-    space : CortexSpace
-        Supplies the kernel, gain, mesh and area codes.
-    exclude : array of int, optional
-        Area codes left out (e.g. not resolvable from 19 electrodes).
-    kind : {"z", "power"}
-        Map kind (its templates: :data:`~sourcelab.trust.naming.PATCH_MM`).
-
-    Returns
-    -------
-    code : int
-        :func:`~sourcelab.trust.naming.candidate_area_code` at the map's maximum.
-    """
-    from .naming import candidate_area_code
-
-    excl = () if exclude is None else tuple(int(c) for c in exclude)
-    return candidate_area_code(values, space, int(np.argmax(values)), exclude=excl, kind=kind)
-
-
 def area_features(
     values: np.ndarray,
     space,
@@ -193,7 +168,8 @@ def area_probability(
     space : CortexSpace
         Supplies area codes and border distances (mm).
     area : int
-        Area code named for the map (:func:`named_area`, or the candidate list's name).
+        Area code named for the map (the candidate list's name,
+        :func:`~sourcelab.trust.naming.listed_naming`).
     own : ndarray
         Own-share per area code.
     kind : {"power", "z"}
