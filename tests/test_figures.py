@@ -717,6 +717,23 @@ def test_warm_renderer_lost_leaves_drawing_to_the_caller(result):
         renderer.close()
 
 
+def test_warm_renderer_is_stopped_at_once_when_the_caller_fails(monkeypatch):
+    # a refused input inside the block (the CLI's analysis) must not wait for the renderer's
+    # warm-up: the process is terminated (exit code -SIGTERM), not asked to finish
+    import signal
+
+    from sourcelab.errors import InputError
+    from sourcelab.figures import warm
+
+    monkeypatch.setenv("SOURCELAB_FIGURE_JOBS", "2")  # also on a one-core machine
+    with pytest.raises(InputError, match="refused"):
+        with warm.warm_renderer() as renderer:
+            raise InputError("refused")
+    assert warm.active() is None
+    assert not renderer._process.is_alive()
+    assert renderer._process.exitcode == -signal.SIGTERM
+
+
 def test_text_cache_canvas_draws_what_matplotlib_draws():
     # reference: matplotlib's own Agg canvas; the cached text is placed at whole pixels (as
     # matplotlib <= 3.10 did), so a string may move by up to half a pixel, no more

@@ -259,10 +259,11 @@ class WarmRenderer:
             self._waiting += 1
         return _Pending(self)
 
-    def close(self) -> None:
-        """Stop the renderer process (at once when an answer is still awaited: the caller
-        failed meanwhile)."""
-        if self._waiting:
+    def close(self, *, abort: bool = False) -> None:
+        """Stop the renderer process: at once when ``abort`` (the caller failed: nothing more
+        will be asked, so its warm-up is not waited for) or when an answer is still awaited
+        (the caller failed meanwhile); otherwise once it has finished what it was asked."""
+        if abort or self._waiting:
             self._process.terminate()
         elif not self._conn.closed:
             with contextlib.suppress(OSError):
@@ -301,6 +302,9 @@ def warm_renderer(enabled: bool = True):
     _ACTIVE = renderer
     try:
         yield renderer
-    finally:
+    except BaseException:  # e.g. a refused input: exit without waiting for the warm-up
         _ACTIVE = None
-        renderer.close()
+        renderer.close(abort=True)
+        raise
+    _ACTIVE = None
+    renderer.close()
