@@ -573,8 +573,9 @@ def bin_measures(
     n_epochs : int
         Number of epochs ``K`` (the debiased wPLI's correction).
     measures : sequence of str
-        Subset of :data:`BIN_MEASURES` (plus ``"cross"``, the complex mean cross-spectrum, or
-        ``"cross_parts"``: its real and imaginary parts as ``"cross_re"`` and ``"cross_im"``).
+        Subset of :data:`BIN_MEASURES`, plus ``"cross_parts"``: the real and imaginary parts
+        of the mean cross-spectrum, returned as ``"cross_re"`` and ``"cross_im"`` (what the
+        phase and lag band measures read).
 
     Returns
     -------
@@ -612,9 +613,7 @@ def bin_measures(
                 out[m] = sq2("u_im") / (1.0 - sq2("u_re"))
             elif m == "plv":
                 out[m] = np.sqrt(sq2("u_re") + sq2("u_im"))
-            elif m == "cross":
-                out[m] = acc["re"] + 1j * acc["im"]
-            elif m == "cross_parts":  # the real and imaginary parts of "cross", as they are
+            elif m == "cross_parts":  # the mean cross-spectrum's parts, as they are
                 out["cross_re"], out["cross_im"] = acc["re"], acc["im"]
             else:
                 raise InputError(f"measure: {m!r} is not one of {BIN_MEASURES}")
@@ -658,8 +657,8 @@ def band_measures(
     Parameters
     ----------
     per_bin : dict
-        From :func:`bin_measures` (with ``"cross"`` or ``"cross_parts"``, and ``"plv"``, for the
-        phase measures).
+        From :func:`bin_measures` (with ``"cross_parts"`` and ``"plv"`` for the phase
+        measures).
     freqs : ndarray, shape (n_bins,)
         Hz.
     band_idx : sequence of int arrays
@@ -695,10 +694,10 @@ def band_measures(
             if m in ("msc", "imcoh", "lagcoh", "wpli", "wpli2_debiased", "lps"):
                 out[m] = over_bins(per_bin[m], avg)
             elif m == "phase_deg":
-                re, im = _cross_parts(per_bin)
+                re, im = per_bin["cross_re"], per_bin["cross_im"]
                 out[m] = np.degrees(np.arctan2(over_bins(im, sums), over_bins(re, sums)))
             elif m == "lag_ms":
-                re, im = _cross_parts(per_bin)
+                re, im = per_bin["cross_re"], per_bin["cross_im"]
                 # |c| of c = re + i im filled in place (numpy's complex absolute value, whose
                 # rounding np.hypot does not share); its angle is arctan2 of the parts, as
                 # np.angle computes it
@@ -714,14 +713,6 @@ def band_measures(
             else:
                 raise InputError(f"measure: {m!r} is not one of {BAND_MEASURES}")
     return out
-
-
-def _cross_parts(per_bin: dict) -> tuple[np.ndarray, np.ndarray]:
-    """Real and imaginary parts of the per-bin mean cross-spectrum (:func:`bin_measures`)."""
-    if "cross_re" in per_bin:
-        return per_bin["cross_re"], per_bin["cross_im"]
-    c = per_bin["cross"]
-    return c.real, c.imag
 
 
 def _bin_names(measures) -> tuple[tuple[str, ...], tuple[str, ...]]:
