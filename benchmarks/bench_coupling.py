@@ -36,10 +36,11 @@ epochs.  Measured in the same run:
   bootstrap intervals over epochs - the epochs resampled with replacement (as many as there
   are) and ``spectral_connectivity_epochs`` + ``envelope_correlation`` rerun per replicate, the
   same 199 replicates as ours.  The ROI projection and band-pass filters act on each epoch
-  alone, so they are made once and resampled (exact, and cheaper than redoing them).  199
-  replicates would take about an hour: ``--mne-boot-reps`` (3) replicates are run, interleaved
-  with the rest, and the cost with intervals is **extrapolated**: point estimates + 199 x the
-  median replicate (the percentiles over the replicates, milliseconds, left out).  Three ratios
+  alone, so they are made once and resampled (exact, and cheaper than redoing them; their
+  share of MNE's point-estimate time is printed).  199 replicates would take some 25 minutes:
+  ``--mne-boot-reps`` (3) replicates are run, interleaved with the rest, and the cost with
+  intervals is **extrapolated**: point estimates + 199 x the median replicate (the
+  percentiles over the replicates, milliseconds, left out).  Three ratios
   from the same run: measures only (MNE's point estimates / ours without intervals), with
   intervals (MNE extrapolated / our default), and the mixed one (MNE's point estimates / our
   default), which compares different work.
@@ -166,15 +167,6 @@ def _mne_connectivity(inputs, sfreq, bands, idx=None):
         for bp in bps:
             out.append(envelope_correlation(bp[sel], orthogonalize="pairwise").combine())
     return out
-
-
-def _mne_route(clean, filters, bands, *, inputs_out=None):
-    """The MNE route's point estimates from the clean epochs (inputs, then connectivity);
-    ``inputs_out``: a list that receives the inputs, for the bootstrap replicates."""
-    inputs = _mne_inputs(clean, filters, bands)
-    if inputs_out is not None:
-        inputs_out.append(inputs)
-    return _mne_connectivity(inputs, clean.sfreq, bands)
 
 
 def _mne_replicate(inputs, sfreq, bands, rng):
@@ -317,7 +309,7 @@ def main(argv=None) -> int:
         }
         ow = {k: [] for k in routes}
         oc = {k: [] for k in routes}
-        mne_w, mne_c, rep_w, rep_c, loads = [], [], [], [], []
+        mne_w, mne_c, mne_in, rep_w, rep_c, loads = [], [], [], [], [], []
         inputs = []
         rng = np.random.default_rng(cfg.boot_seed)
         for i in range(n_pair):  # ours (both variants) and MNE's in turn, same machine load
@@ -329,9 +321,14 @@ def main(argv=None) -> int:
                 oc[k].append(cpu_now() - tc)
             if i < n_mne:  # MNE's point estimates (inputs, then every measure)
                 t, tc = time.perf_counter(), cpu_now()
-                _mne_route(clean, filters, cfg.bands, inputs_out=inputs if not inputs else None)
+                inp = _mne_inputs(clean, filters, cfg.bands)
+                t_in = time.perf_counter() - t
+                _mne_connectivity(inp, clean.sfreq, cfg.bands)
                 mne_w.append(time.perf_counter() - t)
                 mne_c.append(cpu_now() - tc)
+                mne_in.append(t_in)
+                inputs = inputs or [inp]
+                del inp
             if i < k_boot:  # one MNE bootstrap replicate (epochs resampled, measures rerun)
                 t, tc = time.perf_counter(), cpu_now()
                 _mne_replicate(inputs[0], clean.sfreq, cfg.bands, rng)
@@ -347,7 +344,8 @@ def main(argv=None) -> int:
         print(
             f"interleaved, load {min(loads):.1f}-{max(loads):.1f}; mne-connectivity route "
             f"({len(mne_w)} runs: wall {', '.join(f'{x:.1f}' for x in mne_w)} s) wall "
-            f"{mw:.2f} s, cpu {mc:.2f} s"
+            f"{mw:.2f} s, cpu {mc:.2f} s; of which inputs (average reference, ROI time series, "
+            f"band-pass filters for the envelopes) wall {med(mne_in):.2f} s"
         )
         print(
             f"  mne-connectivity bootstrap replicate (epochs resampled with replacement, every "
