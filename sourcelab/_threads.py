@@ -11,6 +11,7 @@ Bottom layer: imports nothing from sourcelab but :mod:`sourcelab.constants` and
 from __future__ import annotations
 
 import functools
+import os
 import threading
 
 from ._docs import fill_doc
@@ -69,6 +70,30 @@ def limited_threads(n_threads: int = BLAS_THREADS, *, user_api: str | None = Non
         return limited
 
     return decorate
+
+
+#: Variables that pin a process to one thread when set to 1 (batch workers get them, see
+#: ``sourcelab.batch.engines.THREAD_ENV``).
+_ONE_THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+def parallel_stages() -> bool:
+    """May this process run two independent stages at once, each with its own core?
+
+    True when more than one core is available to the process and no thread variable
+    (``OMP_NUM_THREADS``, ``OPENBLAS_NUM_THREADS``, ``MKL_NUM_THREADS``) pins it to one thread,
+    as batch workers are (one worker per core).
+
+    Returns
+    -------
+    bool
+    """
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        cores = os.cpu_count() or 1
+    pinned = any(os.environ.get(k, "").strip() == "1" for k in _ONE_THREAD_ENV)
+    return cores > 1 and not pinned
 
 
 #: Per thread: the limits in force through :func:`limited_threads` (a decorated function called

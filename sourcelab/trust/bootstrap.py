@@ -42,6 +42,7 @@ from __future__ import annotations
 import logging
 import weakref
 from collections.abc import Sequence
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -515,7 +516,13 @@ def _interval_columns(
 
 @fill_doc
 def add_intervals(
-    roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, **options
+    roi_table: pd.DataFrame,
+    epoch_csd: np.ndarray,
+    op,
+    atlases,
+    *,
+    replicates: RoiReplicates | None = None,
+    **options,
 ) -> pd.DataFrame:
     """Add bootstrap confidence intervals of the value and of z to an ROI table.
 
@@ -530,6 +537,9 @@ def add_intervals(
     atlases : sequence of Atlas or str
         Every atlas named in the table (names are loaded with :func:`sourcelab.rois.load_atlas`;
         custom ROIs are passed as their Atlas).
+    replicates : RoiReplicates, optional
+        The replicates, drawn ahead by :func:`roi_replicates` with the same epochs, atlases,
+        ``n_boot`` and ``seed`` (checked); drawn here when omitted.
     %(bootstrap_interval_options)s
 
     Returns
@@ -543,21 +553,13 @@ def add_intervals(
     ----------
     Efron B, Tibshirani RJ (1993).  An Introduction to the Bootstrap, ch. 13 (from memory).
     """
-    from ..rois import load_atlas
-
     c = _epoch_csd(epoch_csd)
     need = {"atlas", "roi", "hemisphere", "band", "measure", "value"} - set(roi_table.columns)
     if need:
         raise InputError(f"roi_table lacks columns {sorted(need)}")
     if c.shape[0] < MIN_EPOCHS_WARN:
         log.warning("only %d clean epochs: bootstrap intervals are coarse", c.shape[0])
-    objs = [load_atlas(a) if isinstance(a, str) else a for a in atlases]
-    col_of: dict[tuple[str, str, str], int] = {}
-    verts = []
-    for at in objs:
-        for roi in at.rois:
-            col_of[(at.name, roi.name, roi.hemisphere)] = len(verts)
-            verts.append(roi.vertices)
+    col_of, verts = _roi_columns(atlases)
     keys = list(
         zip(
             roi_table["atlas"].astype(str),
@@ -578,10 +580,99 @@ def add_intervals(
 
     def draw(c, w, epoch_total):
         relative = "relative" in measures
+        if replicates is not None:
+            replicates.check(c.shape[0], w.shape[0], options.get("seed", 0), col_of, relative)
+            return replicates.values
         return roi_bootstrap(c, op, verts, w, relative=relative, epoch_total=epoch_total)
 
     columns = np.array([col_of[k] for k in keys])
     return _interval_columns(roi_table, c, columns, draw, **options)
+
+
+def _roi_columns(atlases) -> tuple[dict[tuple[str, str, str], int], list]:
+    """Each ROI's column in the replicates, ``(atlas, roi, hemisphere) -> column``, and the
+    ROIs' source indices in column order."""
+    from ..rois import load_atlas
+
+    objs = [load_atlas(a) if isinstance(a, str) else a for a in atlases]
+    col_of: dict[tuple[str, str, str], int] = {}
+    verts = []
+    for at in objs:
+        for roi in at.rois:
+            col_of[(at.name, roi.name, roi.hemisphere)] = len(verts)
+            verts.append(roi.vertices)
+    return col_of, verts
+
+
+@dataclass(frozen=True)
+class RoiReplicates:
+    """ROI bootstrap replicates drawn ahead of :func:`add_intervals` (:func:`roi_replicates`).
+
+    Attributes
+    ----------
+    values : dict
+        ``{"absolute": ..., "relative": ...}``, each (n_boot, n_bands, n_rois), as
+        :func:`roi_bootstrap` returns them.
+    n_epochs, n_boot, seed : int
+        The draw they come from.
+    columns : tuple of (atlas, roi, hemisphere)
+        The ROIs in column order.
+    """
+
+    values: dict
+    n_epochs: int
+    n_boot: int
+    seed: int
+    columns: tuple
+
+    def check(self, n_epochs: int, n_boot: int, seed: int, col_of: dict, relative: bool):
+        """Raise InputError unless these replicates are the draw :func:`add_intervals` makes."""
+        mine = (self.n_epochs, self.n_boot, self.seed, self.columns)
+        wanted = (int(n_epochs), int(n_boot), int(seed), tuple(col_of))
+        if mine != wanted or (relative and "relative" not in self.values):
+            raise InputError(
+                "replicates: drawn for other epochs, replicates, seed, ROIs or measures than "
+                "the intervals asked for"
+            )
+
+
+def roi_replicates(
+    epoch_csd: np.ndarray,
+    op,
+    atlases,
+    *,
+    n_boot: int = 1000,
+    seed: int = 0,
+    relative: bool = True,
+    epoch_total: np.ndarray | None = None,
+) -> RoiReplicates:
+    """The ROI replicates :func:`add_intervals` draws, ahead of the table (the same numbers).
+
+    The analysis draws them while other stages run; ``add_intervals(..., replicates=r)`` then
+    reads them instead of drawing again.
+
+    Parameters
+    ----------
+    epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch)
+    op : SourceOperator
+    atlases : sequence of Atlas or str
+        As for :func:`add_intervals`.
+    n_boot, seed : int
+        As for :func:`add_intervals`.
+    relative : bool
+        Also relative power.
+    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
+        Per-epoch broadband cross-spectra (the relative-power denominator).
+
+    Returns
+    -------
+    RoiReplicates
+    """
+    c = _epoch_csd(epoch_csd)
+    col_of, verts = _roi_columns(atlases)
+    w = bootstrap_weights(c.shape[0], n_boot=n_boot, seed=seed)
+    values = roi_bootstrap(c, op, verts, w, relative=relative, epoch_total=epoch_total)
+    return RoiReplicates(values, int(c.shape[0]), int(w.shape[0]), int(seed), tuple(col_of))
 
 
 @fill_doc
