@@ -60,7 +60,10 @@ INTERVAL_COLUMNS = ("value_lo", "value_hi", "z_lo", "z_hi", "robust")
 #: Below this many epochs the bootstrap distribution is too coarse to trust (logged).
 MIN_EPOCHS_WARN = 20
 #: Replicates x bands x sources held in memory at once in the relative-power path (float32).
-_CHUNK_ELEMENTS = 6_000_000
+_CHUNK_ELEMENTS = 3_000_000
+#: Sources per block when the quadratic-form coefficients are made and gathered (memory: the
+#: bootstrap runs beside the coupling stage).
+_SOURCE_BLOCK = 2048
 
 
 # --------------------------------------------------------------------------------------------
@@ -161,8 +164,10 @@ def source_quadratic_forms(op) -> tuple[np.ndarray, np.ndarray]:
     kr = (k @ basis).reshape(op.n_src, op.n_comp, -1)
     iu, ju = np.triu_indices(basis.shape[1])
     q = np.zeros((op.n_src, iu.size))
-    for c in range(op.n_comp):
-        q += kr[:, c, iu] * kr[:, c, ju]
+    for s in range(0, op.n_src, _SOURCE_BLOCK):  # in blocks: no full-size temporaries
+        blk = kr[s : s + _SOURCE_BLOCK]
+        for c in range(op.n_comp):
+            q[s : s + blk.shape[0]] += blk[:, c, iu] * blk[:, c, ju]
     q.setflags(write=False)
     basis.setflags(write=False)
     try:
@@ -284,19 +289,31 @@ def roi_bootstrap(
     used, avg = roi_average_matrix(roi_vertices, op.n_src)
     basis, q_all = source_quadratic_forms(op)
     cv = vech(basis.T @ c @ basis)  # (n_ep, n_bands, n_vech)
-    q_roi = avg @ q_all[used]  # (n_rois, n_vech): vech of B'M_rB
+    # (n_rois, n_vech): vech of B'M_rB; the averaging matrix re-indexed to every source
+    # rather than a copy of the used sources' coefficients (the same products, in order)
+    on_all = sparse.csr_matrix(
+        (avg.data, used[avg.indices], avg.indptr), shape=(avg.shape[0], op.n_src)
+    )
+    q_roi = on_all @ q_all
     per_epoch = cv @ q_roi.T  # (n_ep, n_bands, n_rois)
     out = {"absolute": (w @ per_epoch.reshape(n_ep, -1)).reshape(n_boot, n_all, -1)[:, :n_bands]}
     if not relative:
         return out
     order, starts, group_w = _atoms(avg)
-    q = q_all[used[order]]  # sources grouped by ROI membership
-    n_used, n_vech = q.shape
+    src = used[order]  # sources grouped by ROI membership
+    n_used, n_vech = src.size, q_all.shape[1]
     c_mean = cv.mean(axis=0)  # (n_bands, n_vech)
-    p_mean = (c_mean @ q.T).astype(np.float32)[:, None, :]  # (n_all, 1, n_used)
+    # the grouped coefficients in blocks of sources (memory: no float64 copy of all of them;
+    # each entry of a product is the same dot product, so the same numbers)
+    p_mean = np.empty((n_all, 1, n_used), dtype=np.float32)  # p(C̄), (n_all, 1, n_used)
+    q32 = np.empty((n_used, n_vech), dtype=np.float32)
+    for s in range(0, n_used, _SOURCE_BLOCK):
+        q = q_all[src[s : s + _SOURCE_BLOCK]]
+        p_mean[:, 0, s : s + q.shape[0]] = c_mean @ q.T
+        q32[s : s + q.shape[0]] = q
+    del q
     dev = (w @ (cv - c_mean).reshape(n_ep, -1)).reshape(n_boot, n_all, n_vech)
     dev = dev.astype(np.float32)
-    q32 = q.astype(np.float32)
     rel = np.empty((n_boot, n_bands, avg.shape[0]))
     chunk = max(1, _CHUNK_ELEMENTS // (n_all * n_used))
     for s in range(0, n_boot, chunk):
