@@ -12,6 +12,7 @@ import contextlib
 import dataclasses
 import functools
 import logging
+import sys
 import time
 from pathlib import Path
 
@@ -368,7 +369,7 @@ def analyze(
     with (
         thread_limits(),  # every pool, BLAS and OpenMP (see constants.BLAS_THREADS)
         Stages(STAGES, desc="analysis", enabled=progress) as stages,
-        _beside(bool(config.n_boot) and parallel_stages()) as beside,
+        _beside(bool(config.n_boot) and _second_core_free()) as beside,
     ):
         stages.step("reading")
         rec = recording if isinstance(recording, Recording) else read_recording(recording)
@@ -557,6 +558,17 @@ def analyze(
         pair_table=pair_table,
         coupling_table=coupling_table,
     )
+
+
+def _second_core_free() -> bool:
+    """May a stage run beside the others: a second core, no one-thread pin (batch workers), and
+    no warmed figure renderer (``sourcelab.figures.warm``), which uses the second core
+    meanwhile?"""
+    if not parallel_stages():
+        return False
+    # looked up, not imported: a renderer exists only if its module was loaded
+    warm = sys.modules.get("sourcelab.figures.warm")
+    return warm is None or warm.active() is None
 
 
 @contextlib.contextmanager

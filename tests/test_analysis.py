@@ -198,3 +198,15 @@ def test_processes_pinned_to_one_thread_run_no_stage_beside(monkeypatch):
         monkeypatch.delenv(k, raising=False)
     monkeypatch.setenv("OPENBLAS_NUM_THREADS", "1")
     assert parallel_stages() is False
+
+
+def test_no_stage_beside_while_a_warmed_renderer_uses_the_second_core(monkeypatch):
+    # sourcelab.figures.warm: the renderer forked before the analysis draws on the core the
+    # analysis leaves idle; a stage beside the analysis would take that core from it
+    import sourcelab.analysis as analysis
+    from sourcelab.figures import warm
+
+    monkeypatch.setattr(analysis, "parallel_stages", lambda: True)
+    assert analysis._second_core_free()
+    monkeypatch.setattr(warm, "_ACTIVE", object())
+    assert not analysis._second_core_free()
