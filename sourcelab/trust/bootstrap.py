@@ -61,6 +61,8 @@ INTERVAL_COLUMNS = ("value_lo", "value_hi", "z_lo", "z_hi", "robust")
 MIN_EPOCHS_WARN = 20
 #: Replicates x bands x sources held in memory at once in the relative-power path (float32).
 _CHUNK_ELEMENTS = 3_000_000
+#: Epochs per block when the cross-spectra are taken into the kernel's row space.
+_EPOCH_BLOCK = 128
 #: Sources per block when the quadratic-form coefficients are made and gathered (memory: the
 #: bootstrap runs beside the coupling stage).
 _SOURCE_BLOCK = 2048
@@ -235,6 +237,27 @@ def _atoms(avg) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return order, starts, weights
 
 
+def _row_space_vech(c: np.ndarray, total: np.ndarray | None, basis: np.ndarray) -> np.ndarray:
+    """``vech(Bᵀ C B)`` of each epoch's band cross-spectra and (if given) broadband one, as the
+    last band: (n_epochs, n_bands (+ 1), n_vech), made in blocks of epochs (memory; each
+    epoch's product is the same).
+
+    Laid out in memory as :func:`vech` of the whole array lays it out (its fancy indexing puts
+    the vech axis first in memory): the matrix products made from it round by layout, and this
+    keeps them as they were (tested to the last bit).
+    """
+    n_ep, n_bands = c.shape[:2]
+    r = basis.shape[1]
+    n_all = n_bands + (total is not None)
+    out = np.empty((r * (r + 1) // 2, n_ep, n_all)).transpose(1, 2, 0)
+    for s in range(0, n_ep, _EPOCH_BLOCK):
+        e = min(s + _EPOCH_BLOCK, n_ep)
+        out[s:e, :n_bands] = vech(basis.T @ c[s:e] @ basis)
+        if total is not None:
+            out[s:e, n_bands] = vech(basis.T @ total[s:e] @ basis)
+    return out
+
+
 def roi_bootstrap(
     epoch_csd: np.ndarray,
     op,
@@ -277,18 +300,18 @@ def roi_bootstrap(
     if op.kernel.shape[1] != c.shape[-1]:
         raise InputError(f"epoch_csd: {c.shape[-1]} channels, operator has {op.kernel.shape[1]}")
     n_bands = c.shape[1]
+    t = None
     if relative and epoch_total is not None:
         t = np.asarray(epoch_total, dtype=float)
         if t.shape != (c.shape[0],) + c.shape[2:]:
             raise InputError(
                 f"epoch_total: need shape {(c.shape[0],) + c.shape[2:]}, got {t.shape}"
             )
-        c = np.concatenate([c, t[:, None]], axis=1)  # broadband as a last "band"
-    n_ep, n_all = c.shape[:2]
+    n_ep, n_all = c.shape[0], n_bands + (t is not None)  # broadband as a last "band"
     n_boot = w.shape[0]
     used, avg = roi_average_matrix(roi_vertices, op.n_src)
     basis, q_all = source_quadratic_forms(op)
-    cv = vech(basis.T @ c @ basis)  # (n_ep, n_bands, n_vech)
+    cv = _row_space_vech(c, t, basis)  # (n_ep, n_all, n_vech)
     # (n_rois, n_vech): vech of B'M_rB; the averaging matrix re-indexed to every source
     # rather than a copy of the used sources' coefficients (the same products, in order)
     on_all = sparse.csr_matrix(
@@ -297,6 +320,7 @@ def roi_bootstrap(
     q_roi = on_all @ q_all
     per_epoch = cv @ q_roi.T  # (n_ep, n_bands, n_rois)
     out = {"absolute": (w @ per_epoch.reshape(n_ep, -1)).reshape(n_boot, n_all, -1)[:, :n_bands]}
+    del per_epoch
     if not relative:
         return out
     order, starts, group_w = _atoms(avg)
@@ -312,8 +336,10 @@ def roi_bootstrap(
         p_mean[:, 0, s : s + q.shape[0]] = c_mean @ q.T
         q32[s : s + q.shape[0]] = q
     del q
-    dev = (w @ (cv - c_mean).reshape(n_ep, -1)).reshape(n_boot, n_all, n_vech)
-    dev = dev.astype(np.float32)
+    # the deviations made in C order (the same values; no second copy for the reshape)
+    dev = np.subtract(cv, c_mean, order="C").reshape(n_ep, -1)
+    del cv
+    dev = (w @ dev).reshape(n_boot, n_all, n_vech).astype(np.float32)
     rel = np.empty((n_boot, n_bands, avg.shape[0]))
     chunk = max(1, _CHUNK_ELEMENTS // (n_all * n_used))
     for s in range(0, n_boot, chunk):
