@@ -194,10 +194,31 @@ def test_processes_pinned_to_one_thread_run_no_stage_beside(monkeypatch):
     # batch workers get OMP_NUM_THREADS=1 etc. (one worker per core): no second thread
     from sourcelab._threads import parallel_stages
 
+    import os
+
+    monkeypatch.setattr(os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
+    monkeypatch.setattr(os, "getloadavg", lambda: (0.2, 0.2, 0.2), raising=False)
     for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         monkeypatch.delenv(k, raising=False)
+    assert parallel_stages() is True
     monkeypatch.setenv("OPENBLAS_NUM_THREADS", "1")
     assert parallel_stages() is False
+
+
+def test_no_stage_beside_on_a_busy_machine(monkeypatch):
+    # two cores, both busy with other processes (load average 2.7): a second thread would
+    # only queue behind them
+    import os
+
+    from sourcelab._threads import parallel_stages
+
+    for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        monkeypatch.delenv(k, raising=False)
+    monkeypatch.setattr(os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
+    monkeypatch.setattr(os, "getloadavg", lambda: (2.7, 2.5, 2.0), raising=False)
+    assert parallel_stages() is False
+    monkeypatch.setattr(os, "getloadavg", lambda: (1.1, 1.0, 1.0), raising=False)
+    assert parallel_stages() is True
 
 
 def test_no_stage_beside_while_a_warmed_renderer_uses_the_second_core(monkeypatch):
