@@ -8,15 +8,17 @@ computed (tables, maps, candidates, leakage).  Writing files is :meth:`AnalysisR
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import functools
 import logging
+import sys
 import time
 from pathlib import Path
 
 import numpy as np
 
-from ._threads import limited_threads, thread_limits
+from ._threads import limited_threads, parallel_stages, thread_limits
 from .config import AnalysisConfig, check_sampling_rate
 from .constants import UNITS
 from .errors import InputError
@@ -367,6 +369,7 @@ def analyze(
     with (
         thread_limits(),  # every pool, BLAS and OpenMP (see constants.BLAS_THREADS)
         Stages(STAGES, desc="analysis", enabled=progress) as stages,
+        _beside(bool(config.n_boot) and _second_core_free()) as beside,
     ):
         stages.step("reading")
         rec = recording if isinstance(recording, Recording) else read_recording(recording)
@@ -399,6 +402,21 @@ def analyze(
         op = inverse_operator(config.method, config.orientation, config.lambda2)
         src_abs = op.power(csd)
         src_rel = relative_power(src_abs, op.power(total))
+        # the ROI bootstrap replicates (the largest single cost) need nothing computed after
+        # this point: drawn on a second core while the areas, quality and coupling stages run
+        ahead = None
+        if beside is not None:
+            from .trust import roi_replicates
+
+            ahead = beside.submit(
+                roi_replicates,
+                csd_epochs,
+                op,
+                atlas_objs,
+                n_boot=config.n_boot,
+                seed=config.boot_seed,
+                epoch_total=total_epochs,
+            )
         stages.step("areas")
         roi_table = _roi_table(
             atlas_objs, src_abs, src_rel, names, resolvable_areas(config.lambda2)
@@ -462,7 +480,13 @@ def analyze(
                 epoch_total=total_epochs,
             )
             roi_table = add_intervals(
-                roi_table, csd_epochs, op, atlas_objs, norm_rows=roi_rows, **kw
+                roi_table,
+                csd_epochs,
+                op,
+                atlas_objs,
+                replicates=None if ahead is None else ahead.result(),
+                norm_rows=roi_rows,
+                **kw,
             )
             sensor_table = add_sensor_intervals(
                 sensor_table, csd_epochs, ch_names=clean.ch_names, norm_rows=sensor_rows, **kw
@@ -534,6 +558,36 @@ def analyze(
         pair_table=pair_table,
         coupling_table=coupling_table,
     )
+
+
+def _second_core_free() -> bool:
+    """May a stage run beside the others: a second core, no one-thread pin (batch workers), and
+    no warmed figure renderer (``sourcelab.figures.warm``), which uses the second core
+    meanwhile?"""
+    if not parallel_stages():
+        return False
+    # looked up, not imported: a renderer exists only if its module was loaded
+    warm = sys.modules.get("sourcelab.figures.warm")
+    return warm is None or warm.active() is None
+
+
+@contextlib.contextmanager
+def _beside(enabled: bool):
+    """A one-thread pool for work that runs beside the next stages (None when not enabled).
+
+    On leaving (also on an error) work not yet started is cancelled and the pool is not
+    waited for.
+    """
+    if not enabled:
+        yield None
+        return
+    from concurrent.futures import ThreadPoolExecutor
+
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="sourcelab-beside")
+    try:
+        yield pool
+    finally:
+        pool.shutdown(wait=False, cancel_futures=True)
 
 
 def _source_norms(norms, fp: Fingerprint, *, age: float, allow_extrapolation: bool):

@@ -7,6 +7,7 @@ redirected output stays clean, and ``-q`` on the command line turns it off.
 from __future__ import annotations
 
 import contextlib
+import sys
 
 
 class Stages:
@@ -30,7 +31,8 @@ class Stages:
         self._done = 0
 
     def __enter__(self) -> Stages:
-        if self.enabled is not False:
+        # None: a bar only on a terminal (as tqdm's disable=None), and tqdm imported only then
+        if self.enabled is True or (self.enabled is None and _stderr_is_terminal()):
             from tqdm import tqdm
 
             self._bar = tqdm(
@@ -62,3 +64,10 @@ class Stages:
             with contextlib.suppress(Exception):
                 self._bar.update(1)
                 self._bar.close()
+
+
+def _stderr_is_terminal() -> bool:
+    try:
+        return bool(sys.stderr.isatty())
+    except (AttributeError, ValueError):  # no standard error, or a closed one
+        return False

@@ -171,3 +171,63 @@ def test_norms_matched_before_the_pipeline_are_those_of_the_tables(plain_result,
         early = getattr(demo_result, name)
         np.testing.assert_array_equal(early["z"].to_numpy(), late["z"].to_numpy())
         np.testing.assert_array_equal(early["norm_n"].to_numpy(), late["norm_n"].to_numpy())
+
+
+def test_stages_beside_each_other_give_the_same_tables(monkeypatch):
+    # with a second core the ROI bootstrap is drawn beside the coupling stage: the same draw
+    # (the same seeded replicates, Efron & Tibshirani 1993 ch. 6), so the same tables to the
+    # last bit as the analysis made in one thread
+    import pandas as pd
+
+    import sourcelab.analysis as analysis
+    from sourcelab.demo import demo_recording
+
+    made = {}
+    for beside in (True, False):
+        monkeypatch.setattr(analysis, "parallel_stages", lambda b=beside: b)
+        made[beside] = analyze(demo_recording())
+    for name in ("roi_table", "sensor_table", "pair_table", "coupling_table"):
+        pd.testing.assert_frame_equal(getattr(made[True], name), getattr(made[False], name))
+
+
+def test_processes_pinned_to_one_thread_run_no_stage_beside(monkeypatch):
+    # batch workers get OMP_NUM_THREADS=1 etc. (one worker per core): no second thread
+    from sourcelab._threads import parallel_stages
+
+    import os
+
+    monkeypatch.setattr(os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
+    monkeypatch.setattr(os, "getloadavg", lambda: (0.2, 0.2, 0.2), raising=False)
+    for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        monkeypatch.delenv(k, raising=False)
+    assert parallel_stages() is True
+    monkeypatch.setenv("OPENBLAS_NUM_THREADS", "1")
+    assert parallel_stages() is False
+
+
+def test_no_stage_beside_on_a_busy_machine(monkeypatch):
+    # two cores, both busy with other processes (load average 2.7): a second thread would
+    # only queue behind them
+    import os
+
+    from sourcelab._threads import parallel_stages
+
+    for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        monkeypatch.delenv(k, raising=False)
+    monkeypatch.setattr(os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
+    monkeypatch.setattr(os, "getloadavg", lambda: (2.7, 2.5, 2.0), raising=False)
+    assert parallel_stages() is False
+    monkeypatch.setattr(os, "getloadavg", lambda: (1.1, 1.0, 1.0), raising=False)
+    assert parallel_stages() is True
+
+
+def test_no_stage_beside_while_a_warmed_renderer_uses_the_second_core(monkeypatch):
+    # sourcelab.figures.warm: the renderer forked before the analysis draws on the core the
+    # analysis leaves idle; a stage beside the analysis would take that core from it
+    import sourcelab.analysis as analysis
+    from sourcelab.figures import warm
+
+    monkeypatch.setattr(analysis, "parallel_stages", lambda: True)
+    assert analysis._second_core_free()
+    monkeypatch.setattr(warm, "_ACTIVE", object())
+    assert not analysis._second_core_free()

@@ -388,3 +388,26 @@ def test_coverage_real_head_model_full_size(head_model):
         cov = np.mean(h)
         print(f"full-size coverage {m}: {cov:.3f}")
         assert 0.90 <= cov <= 0.99, (m, cov)
+
+
+def test_replicates_drawn_ahead_give_the_same_intervals(small, rng):
+    # the analysis draws the ROI replicates on a second core while other stages run: the same
+    # draw (bootstrap_weights of the same seed, Efron & Tibshirani 1993 ch. 6: a replicate is
+    # a resample of the epochs), so the same table to the last bit
+    from sourcelab.trust import roi_replicates
+
+    head, atlas, ops = small
+    op = ops["fixed"]
+    csd = _epochs(_true_csd(head, rng), 40, rng)
+    ab, rel = _roi_values(op, csd.mean(0), atlas)
+    table = _table(atlas, ab, rel)
+    opts = dict(n_boot=200, seed=3, band_names=BANDS)
+    drawn = add_intervals(table, csd, op, [atlas], **opts)
+    ahead = roi_replicates(csd, op, [atlas], n_boot=200, seed=3)
+    pd.testing.assert_frame_equal(
+        add_intervals(table, csd, op, [atlas], replicates=ahead, **opts), drawn
+    )
+    # replicates of another draw are refused, not silently used
+    other = roi_replicates(csd, op, [atlas], n_boot=200, seed=4)
+    with pytest.raises(InputError, match="replicates"):
+        add_intervals(table, csd, op, [atlas], replicates=other, **opts)

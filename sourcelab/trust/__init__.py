@@ -10,12 +10,14 @@ Public API::
 
 from .bootstrap import (
     INTERVAL_COLUMNS,
+    RoiReplicates,
     add_intervals,
     add_sensor_intervals,
     bootstrap_weights,
     percentile_interval,
     robust_flags,
     roi_bootstrap,
+    roi_replicates,
     sensor_bootstrap,
     z_interval,
 )
@@ -36,6 +38,7 @@ __all__ = [
     "INTERVAL_COLUMNS",
     "LEAKAGE_COLUMNS",
     "Leakage",
+    "RoiReplicates",
     "activity_gain",
     "add_intervals",
     "add_sensor_intervals",
@@ -48,6 +51,7 @@ __all__ = [
     "point_spread_power",
     "robust_flags",
     "roi_bootstrap",
+    "roi_replicates",
     "sensor_bootstrap",
     "z_interval",
 ]

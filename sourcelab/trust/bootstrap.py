@@ -42,6 +42,7 @@ from __future__ import annotations
 import logging
 import weakref
 from collections.abc import Sequence
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -59,7 +60,12 @@ INTERVAL_COLUMNS = ("value_lo", "value_hi", "z_lo", "z_hi", "robust")
 #: Below this many epochs the bootstrap distribution is too coarse to trust (logged).
 MIN_EPOCHS_WARN = 20
 #: Replicates x bands x sources held in memory at once in the relative-power path (float32).
-_CHUNK_ELEMENTS = 6_000_000
+_CHUNK_ELEMENTS = 3_000_000
+#: Epochs per block when the cross-spectra are taken into the kernel's row space.
+_EPOCH_BLOCK = 128
+#: Sources per block when the quadratic-form coefficients are made and gathered (memory: the
+#: bootstrap runs beside the coupling stage).
+_SOURCE_BLOCK = 2048
 
 
 # --------------------------------------------------------------------------------------------
@@ -160,8 +166,10 @@ def source_quadratic_forms(op) -> tuple[np.ndarray, np.ndarray]:
     kr = (k @ basis).reshape(op.n_src, op.n_comp, -1)
     iu, ju = np.triu_indices(basis.shape[1])
     q = np.zeros((op.n_src, iu.size))
-    for c in range(op.n_comp):
-        q += kr[:, c, iu] * kr[:, c, ju]
+    for s in range(0, op.n_src, _SOURCE_BLOCK):  # in blocks: no full-size temporaries
+        blk = kr[s : s + _SOURCE_BLOCK]
+        for c in range(op.n_comp):
+            q[s : s + blk.shape[0]] += blk[:, c, iu] * blk[:, c, ju]
     q.setflags(write=False)
     basis.setflags(write=False)
     try:
@@ -229,6 +237,27 @@ def _atoms(avg) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return order, starts, weights
 
 
+def _row_space_vech(c: np.ndarray, total: np.ndarray | None, basis: np.ndarray) -> np.ndarray:
+    """``vech(Bᵀ C B)`` of each epoch's band cross-spectra and (if given) broadband one, as the
+    last band: (n_epochs, n_bands (+ 1), n_vech), made in blocks of epochs (memory; each
+    epoch's product is the same).
+
+    Laid out in memory as :func:`vech` of the whole array lays it out (its fancy indexing puts
+    the vech axis first in memory): the matrix products made from it round by layout, and this
+    keeps them as they were (tested to the last bit).
+    """
+    n_ep, n_bands = c.shape[:2]
+    r = basis.shape[1]
+    n_all = n_bands + (total is not None)
+    out = np.empty((r * (r + 1) // 2, n_ep, n_all)).transpose(1, 2, 0)
+    for s in range(0, n_ep, _EPOCH_BLOCK):
+        e = min(s + _EPOCH_BLOCK, n_ep)
+        out[s:e, :n_bands] = vech(basis.T @ c[s:e] @ basis)
+        if total is not None:
+            out[s:e, n_bands] = vech(basis.T @ total[s:e] @ basis)
+    return out
+
+
 def roi_bootstrap(
     epoch_csd: np.ndarray,
     op,
@@ -271,31 +300,46 @@ def roi_bootstrap(
     if op.kernel.shape[1] != c.shape[-1]:
         raise InputError(f"epoch_csd: {c.shape[-1]} channels, operator has {op.kernel.shape[1]}")
     n_bands = c.shape[1]
+    t = None
     if relative and epoch_total is not None:
         t = np.asarray(epoch_total, dtype=float)
         if t.shape != (c.shape[0],) + c.shape[2:]:
             raise InputError(
                 f"epoch_total: need shape {(c.shape[0],) + c.shape[2:]}, got {t.shape}"
             )
-        c = np.concatenate([c, t[:, None]], axis=1)  # broadband as a last "band"
-    n_ep, n_all = c.shape[:2]
+    n_ep, n_all = c.shape[0], n_bands + (t is not None)  # broadband as a last "band"
     n_boot = w.shape[0]
     used, avg = roi_average_matrix(roi_vertices, op.n_src)
     basis, q_all = source_quadratic_forms(op)
-    cv = vech(basis.T @ c @ basis)  # (n_ep, n_bands, n_vech)
-    q_roi = avg @ q_all[used]  # (n_rois, n_vech): vech of B'M_rB
+    cv = _row_space_vech(c, t, basis)  # (n_ep, n_all, n_vech)
+    # (n_rois, n_vech): vech of B'M_rB; the averaging matrix re-indexed to every source
+    # rather than a copy of the used sources' coefficients (the same products, in order)
+    on_all = sparse.csr_matrix(
+        (avg.data, used[avg.indices], avg.indptr), shape=(avg.shape[0], op.n_src)
+    )
+    q_roi = on_all @ q_all
     per_epoch = cv @ q_roi.T  # (n_ep, n_bands, n_rois)
     out = {"absolute": (w @ per_epoch.reshape(n_ep, -1)).reshape(n_boot, n_all, -1)[:, :n_bands]}
+    del per_epoch
     if not relative:
         return out
     order, starts, group_w = _atoms(avg)
-    q = q_all[used[order]]  # sources grouped by ROI membership
-    n_used, n_vech = q.shape
+    src = used[order]  # sources grouped by ROI membership
+    n_used, n_vech = src.size, q_all.shape[1]
     c_mean = cv.mean(axis=0)  # (n_bands, n_vech)
-    p_mean = (c_mean @ q.T).astype(np.float32)[:, None, :]  # (n_all, 1, n_used)
-    dev = (w @ (cv - c_mean).reshape(n_ep, -1)).reshape(n_boot, n_all, n_vech)
-    dev = dev.astype(np.float32)
-    q32 = q.astype(np.float32)
+    # the grouped coefficients in blocks of sources (memory: no float64 copy of all of them;
+    # each entry of a product is the same dot product, so the same numbers)
+    p_mean = np.empty((n_all, 1, n_used), dtype=np.float32)  # p(C̄), (n_all, 1, n_used)
+    q32 = np.empty((n_used, n_vech), dtype=np.float32)
+    for s in range(0, n_used, _SOURCE_BLOCK):
+        q = q_all[src[s : s + _SOURCE_BLOCK]]
+        p_mean[:, 0, s : s + q.shape[0]] = c_mean @ q.T
+        q32[s : s + q.shape[0]] = q
+    del q
+    # the deviations made in C order (the same values; no second copy for the reshape)
+    dev = np.subtract(cv, c_mean, order="C").reshape(n_ep, -1)
+    del cv
+    dev = (w @ dev).reshape(n_boot, n_all, n_vech).astype(np.float32)
     rel = np.empty((n_boot, n_bands, avg.shape[0]))
     chunk = max(1, _CHUNK_ELEMENTS // (n_all * n_used))
     for s in range(0, n_boot, chunk):
@@ -515,7 +559,13 @@ def _interval_columns(
 
 @fill_doc
 def add_intervals(
-    roi_table: pd.DataFrame, epoch_csd: np.ndarray, op, atlases, **options
+    roi_table: pd.DataFrame,
+    epoch_csd: np.ndarray,
+    op,
+    atlases,
+    *,
+    replicates: RoiReplicates | None = None,
+    **options,
 ) -> pd.DataFrame:
     """Add bootstrap confidence intervals of the value and of z to an ROI table.
 
@@ -530,6 +580,9 @@ def add_intervals(
     atlases : sequence of Atlas or str
         Every atlas named in the table (names are loaded with :func:`sourcelab.rois.load_atlas`;
         custom ROIs are passed as their Atlas).
+    replicates : RoiReplicates, optional
+        The replicates, drawn ahead by :func:`roi_replicates` with the same epochs, atlases,
+        ``n_boot`` and ``seed`` (checked); drawn here when omitted.
     %(bootstrap_interval_options)s
 
     Returns
@@ -543,21 +596,13 @@ def add_intervals(
     ----------
     Efron B, Tibshirani RJ (1993).  An Introduction to the Bootstrap, ch. 13 (from memory).
     """
-    from ..rois import load_atlas
-
     c = _epoch_csd(epoch_csd)
     need = {"atlas", "roi", "hemisphere", "band", "measure", "value"} - set(roi_table.columns)
     if need:
         raise InputError(f"roi_table lacks columns {sorted(need)}")
     if c.shape[0] < MIN_EPOCHS_WARN:
         log.warning("only %d clean epochs: bootstrap intervals are coarse", c.shape[0])
-    objs = [load_atlas(a) if isinstance(a, str) else a for a in atlases]
-    col_of: dict[tuple[str, str, str], int] = {}
-    verts = []
-    for at in objs:
-        for roi in at.rois:
-            col_of[(at.name, roi.name, roi.hemisphere)] = len(verts)
-            verts.append(roi.vertices)
+    col_of, verts = _roi_columns(atlases)
     keys = list(
         zip(
             roi_table["atlas"].astype(str),
@@ -578,10 +623,99 @@ def add_intervals(
 
     def draw(c, w, epoch_total):
         relative = "relative" in measures
+        if replicates is not None:
+            replicates.check(c.shape[0], w.shape[0], options.get("seed", 0), col_of, relative)
+            return replicates.values
         return roi_bootstrap(c, op, verts, w, relative=relative, epoch_total=epoch_total)
 
     columns = np.array([col_of[k] for k in keys])
     return _interval_columns(roi_table, c, columns, draw, **options)
+
+
+def _roi_columns(atlases) -> tuple[dict[tuple[str, str, str], int], list]:
+    """Each ROI's column in the replicates, ``(atlas, roi, hemisphere) -> column``, and the
+    ROIs' source indices in column order."""
+    from ..rois import load_atlas
+
+    objs = [load_atlas(a) if isinstance(a, str) else a for a in atlases]
+    col_of: dict[tuple[str, str, str], int] = {}
+    verts = []
+    for at in objs:
+        for roi in at.rois:
+            col_of[(at.name, roi.name, roi.hemisphere)] = len(verts)
+            verts.append(roi.vertices)
+    return col_of, verts
+
+
+@dataclass(frozen=True)
+class RoiReplicates:
+    """ROI bootstrap replicates drawn ahead of :func:`add_intervals` (:func:`roi_replicates`).
+
+    Attributes
+    ----------
+    values : dict
+        ``{"absolute": ..., "relative": ...}``, each (n_boot, n_bands, n_rois), as
+        :func:`roi_bootstrap` returns them.
+    n_epochs, n_boot, seed : int
+        The draw they come from.
+    columns : tuple of (atlas, roi, hemisphere)
+        The ROIs in column order.
+    """
+
+    values: dict
+    n_epochs: int
+    n_boot: int
+    seed: int
+    columns: tuple
+
+    def check(self, n_epochs: int, n_boot: int, seed: int, col_of: dict, relative: bool):
+        """Raise InputError unless these replicates are the draw :func:`add_intervals` makes."""
+        mine = (self.n_epochs, self.n_boot, self.seed, self.columns)
+        wanted = (int(n_epochs), int(n_boot), int(seed), tuple(col_of))
+        if mine != wanted or (relative and "relative" not in self.values):
+            raise InputError(
+                "replicates: drawn for other epochs, replicates, seed, ROIs or measures than "
+                "the intervals asked for"
+            )
+
+
+def roi_replicates(
+    epoch_csd: np.ndarray,
+    op,
+    atlases,
+    *,
+    n_boot: int = 1000,
+    seed: int = 0,
+    relative: bool = True,
+    epoch_total: np.ndarray | None = None,
+) -> RoiReplicates:
+    """The ROI replicates :func:`add_intervals` draws, ahead of the table (the same numbers).
+
+    The analysis draws them while other stages run; ``add_intervals(..., replicates=r)`` then
+    reads them instead of drawing again.
+
+    Parameters
+    ----------
+    epoch_csd : ndarray, shape (n_epochs, n_bands, n_ch, n_ch)
+    op : SourceOperator
+    atlases : sequence of Atlas or str
+        As for :func:`add_intervals`.
+    n_boot, seed : int
+        As for :func:`add_intervals`.
+    relative : bool
+        Also relative power.
+    epoch_total : ndarray, shape (n_epochs, n_ch, n_ch), optional
+        Per-epoch broadband cross-spectra (the relative-power denominator).
+
+    Returns
+    -------
+    RoiReplicates
+    """
+    c = _epoch_csd(epoch_csd)
+    col_of, verts = _roi_columns(atlases)
+    w = bootstrap_weights(c.shape[0], n_boot=n_boot, seed=seed)
+    values = roi_bootstrap(c, op, verts, w, relative=relative, epoch_total=epoch_total)
+    return RoiReplicates(values, int(c.shape[0]), int(w.shape[0]), int(seed), tuple(col_of))
 
 
 @fill_doc
