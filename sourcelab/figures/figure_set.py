@@ -187,9 +187,67 @@ def result_figures(
     -------
     figures : dict of str → bytes | Figure
     """
+    n_jobs = check_number("n_jobs", n_jobs, kind=int, low=1)
+    jobs = queued_figures(
+        result,
+        measures=measures,
+        bands=bands,
+        z_limit=z_limit,
+        z_threshold=z_threshold,
+        atlas=atlas,
+        network_atlas=network_atlas,
+        z_map_atlas=z_map_atlas,
+        outline=outline,
+        display_mode=display_mode,
+        resolution=resolution,
+        surfaces=surfaces,
+        dpi=dpi,
+        pair_measures=pair_measures,
+        edge_measures=edge_measures,
+        coupling_atlas=coupling_atlas,
+    )
+    return _run(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+
+
+def queued_figures(
+    result,
+    *,
+    measures=MEASURES,
+    bands=None,
+    z_limit: float = Z_LIMIT,
+    z_threshold: float | None | str = "config",
+    atlas: str | None = None,
+    network_atlas: str | None = None,
+    z_map_atlas: str | None = "brodmann",
+    outline=None,
+    display_mode: str = "lyrz",
+    resolution: int = 2,
+    surfaces: bool = True,
+    dpi: int = 90,
+    pair_measures=PAIR_FIGURE_MEASURES,
+    edge_measures=EDGE_FIGURE_MEASURES,
+    coupling_atlas: str | None = None,
+) -> list:
+    """The figures :func:`result_figures` draws, queued but not drawn.
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        Or an object with the attributes the queued figures read (see
+        :func:`sourcelab.figures.warm.early_maps`).
+    measures, bands, z_limit, z_threshold, atlas, network_atlas, z_map_atlas, outline
+        As in :func:`result_figures`.
+    display_mode, resolution, surfaces, dpi, pair_measures, edge_measures, coupling_atlas
+        As in :func:`result_figures`.
+
+    Returns
+    -------
+    list of (str, callable, tuple, dict)
+        ``(name, figure function, positional arguments, keyword arguments)`` in the order of
+        :func:`result_figures`' answer.
+    """
     for m in measures:
         check_option("measures", m, MEASURES)
-    n_jobs = check_number("n_jobs", n_jobs, kind=int, low=1)
     jobs: list = []
 
     def keep(key, func, *args, **kwargs):
@@ -348,7 +406,7 @@ def result_figures(
         from ..trust import plot_leakage
 
         keep("leakage", plot_leakage, leak)
-    return _run(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+    return jobs
 
 
 def _coupling_figures(
@@ -445,7 +503,7 @@ def _render(func, args, kwargs, dpi):
     return figure_png(func(*args, **kwargs), dpi=dpi)
 
 
-def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
+def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int, drawn=None, then=None) -> dict:
     """Draw the queued figures, in this process or in ``n_jobs`` forked workers.
 
     Drawing runs with one BLAS thread: the small linear-algebra calls of plotting (scipy's
@@ -453,9 +511,16 @@ def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
     BLAS thread pool each time, which costs ~0.4 CPU-s per map on a busy machine instead of
     ~0.1 ms.  The objects made before it are left out of the garbage collector's full passes
     meanwhile (:func:`_gc_frozen`).
+
+    ``drawn`` (PNG output only): name -> ``(function, args, kwargs, png)`` of figures drawn
+    before; a queued figure with the same name, function and arguments (:func:`same_job`)
+    takes that PNG instead of being drawn again.  ``then`` (PNG output only): ``(names,
+    callback)``; ``callback(pngs)`` runs in this process as soon as those figures are drawn
+    (their PNGs by name), while forked workers draw the others, and its exception is raised
+    once every figure is drawn.
     """
     with thread_limits(), _gc_frozen():
-        return _run_limited(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+        return _run_limited(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs, drawn=drawn, then=then)
 
 
 @contextlib.contextmanager
@@ -477,9 +542,87 @@ def _gc_frozen():
         gc.unfreeze()
 
 
-def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
-    if n_jobs == 1 or not as_png or len(jobs) < 2:
-        return {key: (_render(f, a, k, dpi) if as_png else f(*a, **k)) for key, f, a, k in jobs}
+def same_job(a, b) -> bool:
+    """Whether two figure jobs' arguments are the same: equal types, arrays of the same dtype,
+    shape and bytes, and otherwise equal values (anything else: not the same).
+
+    Parameters
+    ----------
+    a, b : object
+        Positional or keyword arguments of figure functions (nested tuples, lists, dicts,
+        arrays, frozen dataclasses, numbers, strings, None).
+
+    Returns
+    -------
+    bool
+    """
+    import dataclasses
+
+    if type(a) is not type(b):
+        return False
+    if isinstance(a, np.ndarray):
+        return a.dtype == b.dtype and a.shape == b.shape and a.tobytes() == b.tobytes()
+    if isinstance(a, (list, tuple)):
+        return len(a) == len(b) and all(same_job(x, y) for x, y in zip(a, b))
+    if isinstance(a, dict):
+        return a.keys() == b.keys() and all(same_job(a[k], b[k]) for k in a)
+    if dataclasses.is_dataclass(a):
+        return all(same_job(getattr(a, f.name), getattr(b, f.name)) for f in dataclasses.fields(a))
+    if a is None or isinstance(a, (bool, int, float, str, bytes, np.generic)):
+        return bool(a == b) or (a != a and b != b)  # NaN equals NaN here
+    return a is b  # e.g. the same function, or the same atlas object
+
+
+def _take_drawn(jobs, drawn) -> tuple[list, dict]:
+    """The jobs still to draw, and the PNGs of those ``drawn`` holds for the same job."""
+    if not drawn:
+        return list(jobs), {}
+    todo, got = [], {}
+    for key, f, a, k in jobs:
+        old = drawn.get(key)
+        if old is not None and old[0] is f and same_job(old[1], a) and same_job(old[2], k):
+            got[key] = old[3]
+        else:
+            todo.append((key, f, a, k))
+    return todo, got
+
+
+def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int, drawn=None, then=None) -> dict:
+    if not as_png:
+        return {key: f(*a, **k) for key, f, a, k in jobs}
+    todo, got = _take_drawn(jobs, drawn)
+    first = [] if then is None else [key for key in then[0] if key in {j[0] for j in jobs}]
+    if n_jobs == 1 or len(todo) < 2:
+        got.update({key: _render(f, a, k, dpi) for key, f, a, k in todo})
+        if then is not None:
+            then[1]({key: got[key] for key in first})
+        return {key: got[key] for key, _, _, _ in jobs}
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    _warm_for(todo)
+    # the figures ``then`` waits for first; then the slowest kinds (many axes or tick labels,
+    # ~0.5-1 s each), so that no worker is left drawing one of them alone at the end; the
+    # answer keeps the queued order
+    slow = ("coupling", "leakage", "roi-heatmap", "topomap", "topomap-z", "ocular")
+    order = sorted(todo, key=lambda job: (job[0] not in first, job[0].split("/")[0] not in slow))
+    failed = None
+    with ProcessPoolExecutor(max_workers=n_jobs, mp_context=mp.get_context("fork")) as pool:
+        futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in order}
+        if then is not None:
+            ready = {key: got[key] if key in got else futures[key].result() for key in first}
+            try:
+                then[1](ready)
+            except Exception as exc:  # raised once the figures are drawn
+                failed = exc
+        got.update({key: job.result() for key, job in futures.items()})
+    if failed is not None:
+        raise failed
+    return {key: got[key] for key, _, _, _ in jobs}
+
+
+def _warm_for(jobs) -> None:
+    """Fill the caches the queued glass brains and surface views use before workers fork."""
     import multiprocessing as mp
     from concurrent.futures import ProcessPoolExecutor
 
@@ -512,13 +655,6 @@ def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
         if f is brain.glass_brain and layout not in warmed:
             warmed.add(layout)
             brain.warm_caches(f, k)
-    # the slowest kinds (many axes or tick labels, ~0.5-1 s each) first, so that no worker is
-    # left drawing one of them alone at the end; the answer keeps the queued order
-    slow = ("coupling", "leakage", "roi-heatmap", "topomap", "topomap-z", "ocular")
-    order = sorted(jobs, key=lambda job: job[0].split("/")[0] not in slow)
-    with ProcessPoolExecutor(max_workers=n_jobs, mp_context=mp.get_context("fork")) as pool:
-        futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in order}
-        return {key: futures[key].result() for key, _, _, _ in jobs}
 
 
 def _edges(result, band: str) -> str:
