@@ -601,24 +601,63 @@ def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int, drawn=None, then=
     from concurrent.futures import ProcessPoolExecutor
 
     _warm_for(todo)
-    # the figures ``then`` waits for first; then the slowest kinds (many axes or tick labels,
-    # ~0.5-1 s each), so that no worker is left drawing one of them alone at the end; the
-    # answer keeps the queued order
-    slow = ("coupling", "leakage", "roi-heatmap", "topomap", "topomap-z", "ocular")
-    order = sorted(todo, key=lambda job: (job[0] not in first, job[0].split("/")[0] not in slow))
+    tasks = _tasks(todo, first)
     failed = None
     with ProcessPoolExecutor(max_workers=n_jobs, mp_context=mp.get_context("fork")) as pool:
-        futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in order}
+        futures = [(task, pool.submit(_render_all, task, dpi)) for task in tasks]
+        owner = {job[0]: future for task, future in futures for job in task}
         if then is not None:
-            ready = {key: got[key] if key in got else futures[key].result() for key in first}
+            ready = {}
+            for key in first:
+                if key not in got:
+                    task = next(t for t, f in futures if f is owner[key])
+                    got.update(zip((job[0] for job in task), owner[key].result()))
+                ready[key] = got[key]
             try:
                 then[1](ready)
             except Exception as exc:  # raised once the figures are drawn
                 failed = exc
-        got.update({key: job.result() for key, job in futures.items()})
+        for task, future in futures:
+            got.update(zip((job[0] for job in task), future.result()))
     if failed is not None:
         raise failed
     return {key: got[key] for key, _, _, _ in jobs}
+
+
+#: Figure kinds drawn by one worker each (one task): the first of a kind in a process costs
+#: 2-5 times the next (its kept layout, fonts, text rasters), so it is paid once, not per worker.
+_TOGETHER = ("roi-bars", "pairs", "roi-heatmap", "networks", "coupling", "topomap", "topomap-z")
+#: The slowest kinds (many axes or tick labels, ~0.3-1 s each).
+_SLOW = ("coupling", "leakage", "roi-heatmap", "topomap", "topomap-z", "ocular")
+
+
+def _tasks(jobs, first) -> list[list]:
+    """The workers' tasks: the figures of a kind in :data:`_TOGETHER` in one task, the others
+    one by one.  Those holding a figure of ``first`` come first; then kinds together and the
+    slowest kinds, so that no worker is left drawing a long task alone at the end."""
+    groups: dict = {}
+    tasks: list[list] = []
+    for job in jobs:
+        kind = job[0].split("/")[0]
+        if kind in _TOGETHER:
+            if kind not in groups:
+                groups[kind] = []
+                tasks.append(groups[kind])
+            groups[kind].append(job)
+        else:
+            tasks.append([job])
+    wanted = set(first)
+
+    def rank(task):
+        kind = task[0][0].split("/")[0]
+        return (not any(job[0] in wanted for job in task), kind not in _TOGETHER + _SLOW)
+
+    return sorted(tasks, key=rank)
+
+
+def _render_all(jobs, dpi) -> list:
+    """Worker: the PNGs of a task's figures (see :func:`_render`)."""
+    return [_render(f, a, k, dpi) for _, f, a, k in jobs]
 
 
 def _warm_for(jobs) -> None:

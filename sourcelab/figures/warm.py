@@ -150,21 +150,23 @@ class _Early:
         return (self.source_abs if measure == "absolute" else self.source_rel)[i]
 
 
-def _early_figures(early: _Early) -> int:
-    """In the renderer process: draw the figures of the default set that ``early`` allows, one
-    by one, until a new request arrives; returns how many were drawn."""
+def _early_figures(early: _Early, options: dict) -> int:
+    """In the renderer process: draw the figures of the set that ``early`` allows (with the
+    keywords ``options`` of :func:`~.figure_set.result_figures`), one by one, until a new
+    request arrives; returns how many were drawn."""
     from . import figure_set
 
-    jobs = figure_set.queued_figures(early)
+    jobs = figure_set.queued_figures(early, **options)
+    dpi = int(options.get("dpi", 90))
     with figure_set.thread_limits(), figure_set._gc_frozen():
         for key, f, a, k in jobs:
             if _CONN is not None and _CONN.poll():  # the figure set is asked for: stop here
                 break
-            _EARLY[key] = (f, a, k, figure_set._render(f, a, k, 90))
+            _EARLY[key] = (f, a, k, figure_set._render(f, a, k, dpi))
     return len(_EARLY)
 
 
-def early_maps(config, ch_names, source_abs, source_rel, sensor_abs, sensor_rel) -> None:
+def early_maps(config, ch_names, source_abs, source_rel, sensor_abs, sensor_rel, **options):
     """Hand the power maps to the warmed renderer of the enclosing :func:`warm_renderer` block
     (nothing happens outside one): it draws their figures while the analysis goes on.
 
@@ -178,22 +180,19 @@ def early_maps(config, ch_names, source_abs, source_rel, sensor_abs, sensor_rel)
     source_abs, source_rel : ndarray, shape (n_bands, n_src)
         As :attr:`AnalysisResult.source_abs` and ``source_rel`` will hold them.
     sensor_abs, sensor_rel : ndarray, shape (n_bands, n_ch)
-    """
-    if _ACTIVE is None or not _ACTIVE.usable:
-        return
-    early = _Early(config, ch_names, source_abs, source_rel, sensor_abs, sensor_rel)
-    _ACTIVE.submit(_early_figures, early)
-
-
-def last_drawn() -> tuple:
-    """In the renderer process: the result and PNG figure set it drew last (for the PDF).
+    **options
+        Keywords of :func:`~.figure_set.result_figures` (none: the output writer's set).
 
     Returns
     -------
-    result : AnalysisResult
-    figures : dict of str to bytes
+    _Pending | None
+        The request (its answer: how many figures were drawn), or None when no renderer
+        was asked.
     """
-    return _LAST["result"], _LAST["figures"]
+    if _ACTIVE is None or not _ACTIVE.usable:
+        return None
+    early = _Early(config, ch_names, source_abs, source_rel, sensor_abs, sensor_rel)
+    return _ACTIVE.submit(_early_figures, early, options)
 
 
 def _volume_maps() -> dict:
