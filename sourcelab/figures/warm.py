@@ -195,6 +195,17 @@ def early_maps(config, ch_names, source_abs, source_rel, sensor_abs, sensor_rel,
     return _ACTIVE.submit(_early_figures, early, options)
 
 
+def last_drawn() -> tuple:
+    """In the renderer process: the result and PNG figure set it drew last (for the PDF).
+
+    Returns
+    -------
+    result : AnalysisResult
+    figures : dict of str to bytes
+    """
+    return _LAST["result"], _LAST["figures"]
+
+
 def _volume_maps() -> dict:
     """In the renderer process: its voxel-to-source lookups (see ``geometry.VOLUME_MAPS``)."""
     from . import geometry
