@@ -714,14 +714,9 @@ def test_early_power_maps_are_the_figure_sets_own(result, tmp_path, monkeypatch)
     monkeypatch.setenv("SOURCELAB_FIGURE_JOBS", "2")  # also on a one-core machine
     options = dict(surfaces=False, bands=("alpha", "theta"))
     serial = result_figures(result, n_jobs=1, as_png=True, **options)
-    early = warm._Early(
-        result.config,
-        result.ch_names,
-        result.source_abs,
-        result.source_rel,
-        result.sensor_abs,
-        result.sensor_rel,
-    )
+    maps = (result.config, result.ch_names, result.source_abs, result.source_rel)
+    maps += (result.sensor_abs, result.sensor_rel)
+    early = warm._Early(*maps)
     jobs = figure_set.queued_figures(early, **options)
     names = [job[0] for job in jobs]
     assert names and all(n.split("/")[0] in ("glass", "topomap") for n in names)
@@ -737,15 +732,7 @@ def test_early_power_maps_are_the_figure_sets_own(result, tmp_path, monkeypatch)
         (np.array([np.nan]), {"a": [1, "x"]}), (np.array([np.nan]), {"a": [1, "x"]})
     )
     with warm.warm_renderer() as renderer:
-        asked = warm.early_maps(
-            result.config,
-            result.ch_names,
-            result.source_abs,
-            result.source_rel,
-            result.sensor_abs,
-            result.sensor_rel,
-            **options,
-        )
+        asked = warm.early_maps(*maps, **options)
         assert asked.result() == len(jobs)  # all drawn: nothing else was asked meanwhile
         pdf = tmp_path / "report.pdf"
         pending = renderer.start_figures(
