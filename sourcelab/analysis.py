@@ -260,6 +260,23 @@ def _coupling_z(table, nm, kind: str, opts: dict):
     return out
 
 
+def _early_maps(config, ch_names, src_abs, src_rel, sens_abs, sens_rel) -> None:
+    """The power maps handed to a warmed figure renderer, when one is waiting for them
+    (:func:`sourcelab.figures.warm.early_maps`: their figures are drawn while the analysis goes
+    on), as the result will hold them."""
+    from .figures import warm
+
+    if warm.active() is not None:
+        warm.early_maps(
+            config,
+            ch_names,
+            src_abs.astype(np.float32),
+            src_rel.astype(np.float32),
+            sens_abs,
+            sens_rel,
+        )
+
+
 def analyze(
     recording,
     *,
@@ -417,6 +434,7 @@ def analyze(
                 seed=config.boot_seed,
                 epoch_total=total_epochs,
             )
+        _early_maps(config, clean.ch_names, src_abs, src_rel, sens_abs, sens_rel)
         stages.step("areas")
         roi_table = _roi_table(
             atlas_objs, src_abs, src_rel, names, resolvable_areas(config.lambda2)

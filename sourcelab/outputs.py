@@ -277,7 +277,11 @@ def write_analysis_into(
     """
     from .progress import Stages
 
+    from .figures.warm import active
+
     stages = ["tables"] + ["figures"] * figures + ["report"] * report + ["maps"] * exports
+    if exports and figures and active() is not None:  # maps written while figures are drawn
+        stages = ["tables", "maps"] + stages[1:-1]
     with Stages(stages, desc="writing", enabled=progress) as st:
         st.step("tables")
         return _write_into(
@@ -296,8 +300,13 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
 
     n_jobs = figure_jobs() if figures else 1
     renderer = active() if n_jobs > 1 else None
-    # inside a warm_renderer block the figures are drawn there while the tables are written
-    drawing = renderer.start_figures(result, n_jobs=n_jobs) if renderer is not None else None
+    pdf = folder / "report.pdf"
+    # inside a warm_renderer block the figures are drawn there while the tables and maps are
+    # written here, and the PDF report there as soon as the figures it shows are drawn
+    drawing = None
+    if renderer is not None:
+        side = (_pdf_figure_names, _pdf_of_figures, (pdf,)) if report else None
+        drawing = renderer.start_figures(result, n_jobs=n_jobs, side=side)
     write_tables(result, folder, command=command)
     if result.leakage is not None:
         result.leakage.to_tsv(folder / "leakage_brodmann.tsv")
@@ -311,12 +320,19 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         text = table_text(result.leakage_hints, float_format="%.4g")
         with open(folder / "leakage_hints.tsv", "w", encoding="utf-8", newline="") as f:
             f.write(text)
+    maps_done = False
+    if exports and drawing is not None and renderer.volume_maps():
+        step("maps")  # while the renderer draws (its volume lookups copied here)
+        _write_maps(result, folder)
+        maps_done = True
     pngs: dict = {}
+    pdf_done = False
     if figures:
         step("figures")
         fig_dir = folder / "figures"
         fig_dir.mkdir()
         pngs = renderer.finish_figures(drawing) if drawing is not None else None
+        pdf_done = pngs is not None and renderer.side_ran
         if pngs is None:  # no warmed renderer (or it was lost): drawn from here
             # each figure closed as soon as it is rendered; drawn in parallel when cores allow
             pngs = result.figures(as_png=True, n_jobs=n_jobs)
@@ -327,8 +343,9 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         step("report")
         from .report import write_pdf, write_report
 
-        pdf = folder / "report.pdf"
-        if drawing is not None and renderer.usable:  # the PDF where the figures were drawn
+        if pdf_done:
+            pass
+        elif drawing is not None and renderer.usable:  # the PDF where the figures were drawn
             pdf_job = renderer.submit(_pdf_in_renderer, pdf)
         elif n_jobs > 1:  # the PDF (the longest) in a forked process, the HTML and maps here
             import multiprocessing as mp
@@ -338,9 +355,9 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
             pdf_job = side.submit(write_pdf, result, pdf, figures=pngs)
         try:
             write_report(result, folder / "report.html", figures=pngs)
-            if pdf_job is None:
+            if pdf_job is None and not pdf_done:
                 write_pdf(result, pdf, figures=pngs)
-            if exports:
+            if exports and not maps_done:
                 step("maps")
                 _write_maps(result, folder)
             if pdf_job is not None:
@@ -351,10 +368,24 @@ def _write_into(result, folder: Path, *, figures, report, exports, command, step
         finally:
             if side is not None:
                 side.shutdown(wait=True, cancel_futures=True)
-    elif exports:
+    elif exports and not maps_done:
         step("maps")
         _write_maps(result, folder)
     return pngs
+
+
+def _pdf_figure_names(result, names) -> list:
+    """In the warmed renderer: the figures the PDF report shows (drawn first)."""
+    from .report.pdf import figure_names
+
+    return figure_names(result, names)
+
+
+def _pdf_of_figures(result, pngs: dict, path) -> None:
+    """In the warmed renderer: the PDF report, once the figures it shows are drawn."""
+    from .report import write_pdf
+
+    write_pdf(result, path, figures=pngs)
 
 
 def _pdf_in_renderer(path) -> None:

@@ -703,6 +703,47 @@ def test_warm_renderer_draws_the_same_files(result, tmp_path, monkeypatch):
         assert off is None
 
 
+def test_early_power_maps_are_the_figure_sets_own(result, tmp_path, monkeypatch):
+    # reference: the figure set drawn in this process.  The power maps the analysis hands over
+    # (warm.early_maps) are drawn before the result exists; the figure set takes them only for
+    # the same function and arguments, so its PNGs are byte-identical, and the PDF report the
+    # renderer writes as soon as its figures are drawn is a PDF of the pages write_pdf makes
+    from sourcelab.figures import figure_set, warm
+    from sourcelab.outputs import _pdf_figure_names, _pdf_of_figures
+
+    monkeypatch.setenv("SOURCELAB_FIGURE_JOBS", "2")  # also on a one-core machine
+    options = dict(surfaces=False, bands=("alpha", "theta"))
+    serial = result_figures(result, n_jobs=1, as_png=True, **options)
+    maps = (result.config, result.ch_names, result.source_abs, result.source_rel)
+    maps += (result.sensor_abs, result.sensor_rel)
+    early = warm._Early(*maps)
+    jobs = figure_set.queued_figures(early, **options)
+    names = [job[0] for job in jobs]
+    assert names and all(n.split("/")[0] in ("glass", "topomap") for n in names)
+    assert len(jobs) == 2 * 2 + 2  # glass brains of 2 bands x 2 measures, 2 sensor maps
+    drawn = {k: (f, a, kw, serial[k]) for k, f, a, kw in jobs}
+    # the same name with other values is drawn again, not taken
+    f, a, kw, _ = drawn[names[0]]
+    drawn[names[0]] = (f, (a[0] + 1.0,), kw, b"stale")
+    todo, got = figure_set._take_drawn(figure_set.queued_figures(result, **options), drawn)
+    assert set(got) == set(names[1:]) and names[0] in {job[0] for job in todo}
+    assert not figure_set.same_job(np.zeros(3), np.zeros(3, np.float32))
+    assert figure_set.same_job(
+        (np.array([np.nan]), {"a": [1, "x"]}), (np.array([np.nan]), {"a": [1, "x"]})
+    )
+    with warm.warm_renderer() as renderer:
+        asked = warm.early_maps(*maps, **options)
+        assert asked.result() == len(jobs)  # all drawn: nothing else was asked meanwhile
+        pdf = tmp_path / "report.pdf"
+        pending = renderer.start_figures(
+            result, n_jobs=2, side=(_pdf_figure_names, _pdf_of_figures, (pdf,)), **options
+        )
+        drawn = renderer.finish_figures(pending)
+        assert renderer.side_ran
+    assert drawn == serial and list(drawn) == list(serial)
+    assert pdf.read_bytes().startswith(b"%PDF")
+
+
 def test_warm_renderer_lost_leaves_drawing_to_the_caller(result):
     from sourcelab.figures import warm
 

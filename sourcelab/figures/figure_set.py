@@ -187,9 +187,67 @@ def result_figures(
     -------
     figures : dict of str → bytes | Figure
     """
+    n_jobs = check_number("n_jobs", n_jobs, kind=int, low=1)
+    jobs = queued_figures(
+        result,
+        measures=measures,
+        bands=bands,
+        z_limit=z_limit,
+        z_threshold=z_threshold,
+        atlas=atlas,
+        network_atlas=network_atlas,
+        z_map_atlas=z_map_atlas,
+        outline=outline,
+        display_mode=display_mode,
+        resolution=resolution,
+        surfaces=surfaces,
+        dpi=dpi,
+        pair_measures=pair_measures,
+        edge_measures=edge_measures,
+        coupling_atlas=coupling_atlas,
+    )
+    return _run(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+
+
+def queued_figures(
+    result,
+    *,
+    measures=MEASURES,
+    bands=None,
+    z_limit: float = Z_LIMIT,
+    z_threshold: float | None | str = "config",
+    atlas: str | None = None,
+    network_atlas: str | None = None,
+    z_map_atlas: str | None = "brodmann",
+    outline=None,
+    display_mode: str = "lyrz",
+    resolution: int = 2,
+    surfaces: bool = True,
+    dpi: int = 90,
+    pair_measures=PAIR_FIGURE_MEASURES,
+    edge_measures=EDGE_FIGURE_MEASURES,
+    coupling_atlas: str | None = None,
+) -> list:
+    """The figures :func:`result_figures` draws, queued but not drawn.
+
+    Parameters
+    ----------
+    result : AnalysisResult
+        Or an object with the attributes the queued figures read (see
+        :func:`sourcelab.figures.warm.early_maps`).
+    measures, bands, z_limit, z_threshold, atlas, network_atlas, z_map_atlas, outline
+        As in :func:`result_figures`.
+    display_mode, resolution, surfaces, dpi, pair_measures, edge_measures, coupling_atlas
+        As in :func:`result_figures`.
+
+    Returns
+    -------
+    list of (str, callable, tuple, dict)
+        ``(name, figure function, positional arguments, keyword arguments)`` in the order of
+        :func:`result_figures`' answer.
+    """
     for m in measures:
         check_option("measures", m, MEASURES)
-    n_jobs = check_number("n_jobs", n_jobs, kind=int, low=1)
     jobs: list = []
 
     def keep(key, func, *args, **kwargs):
@@ -348,7 +406,7 @@ def result_figures(
         from ..trust import plot_leakage
 
         keep("leakage", plot_leakage, leak)
-    return _run(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+    return jobs
 
 
 def _coupling_figures(
@@ -445,7 +503,7 @@ def _render(func, args, kwargs, dpi):
     return figure_png(func(*args, **kwargs), dpi=dpi)
 
 
-def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
+def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int, drawn=None, then=None) -> dict:
     """Draw the queued figures, in this process or in ``n_jobs`` forked workers.
 
     Drawing runs with one BLAS thread: the small linear-algebra calls of plotting (scipy's
@@ -453,9 +511,16 @@ def _run(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
     BLAS thread pool each time, which costs ~0.4 CPU-s per map on a busy machine instead of
     ~0.1 ms.  The objects made before it are left out of the garbage collector's full passes
     meanwhile (:func:`_gc_frozen`).
+
+    ``drawn`` (PNG output only): name -> ``(function, args, kwargs, png)`` of figures drawn
+    before; a queued figure with the same name, function and arguments (:func:`same_job`)
+    takes that PNG instead of being drawn again.  ``then`` (PNG output only): ``(names,
+    callback)``; ``callback(pngs)`` runs in this process as soon as those figures are drawn
+    (their PNGs by name), while forked workers draw the others, and its exception is raised
+    once every figure is drawn.
     """
     with thread_limits(), _gc_frozen():
-        return _run_limited(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+        return _run_limited(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs, drawn=drawn, then=then)
 
 
 @contextlib.contextmanager
@@ -477,9 +542,126 @@ def _gc_frozen():
         gc.unfreeze()
 
 
-def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
-    if n_jobs == 1 or not as_png or len(jobs) < 2:
-        return {key: (_render(f, a, k, dpi) if as_png else f(*a, **k)) for key, f, a, k in jobs}
+def same_job(a, b) -> bool:
+    """Whether two figure jobs' arguments are the same: equal types, arrays of the same dtype,
+    shape and bytes, and otherwise equal values (anything else: not the same).
+
+    Parameters
+    ----------
+    a, b : object
+        Positional or keyword arguments of figure functions (nested tuples, lists, dicts,
+        arrays, frozen dataclasses, numbers, strings, None).
+
+    Returns
+    -------
+    bool
+    """
+    import dataclasses
+
+    if type(a) is not type(b):
+        return False
+    if isinstance(a, np.ndarray):
+        return a.dtype == b.dtype and a.shape == b.shape and a.tobytes() == b.tobytes()
+    if isinstance(a, (list, tuple)):
+        return len(a) == len(b) and all(same_job(x, y) for x, y in zip(a, b))
+    if isinstance(a, dict):
+        return a.keys() == b.keys() and all(same_job(a[k], b[k]) for k in a)
+    if dataclasses.is_dataclass(a):
+        return all(same_job(getattr(a, f.name), getattr(b, f.name)) for f in dataclasses.fields(a))
+    if a is None or isinstance(a, (bool, int, float, str, bytes, np.generic)):
+        return bool(a == b) or (a != a and b != b)  # NaN equals NaN here
+    return a is b  # e.g. the same function, or the same atlas object
+
+
+def _take_drawn(jobs, drawn) -> tuple[list, dict]:
+    """The jobs still to draw, and the PNGs of those ``drawn`` holds for the same job."""
+    if not drawn:
+        return list(jobs), {}
+    todo, got = [], {}
+    for key, f, a, k in jobs:
+        old = drawn.get(key)
+        if old is not None and old[0] is f and same_job(old[1], a) and same_job(old[2], k):
+            got[key] = old[3]
+        else:
+            todo.append((key, f, a, k))
+    return todo, got
+
+
+def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int, drawn=None, then=None) -> dict:
+    if not as_png:
+        return {key: f(*a, **k) for key, f, a, k in jobs}
+    todo, got = _take_drawn(jobs, drawn)
+    first = [] if then is None else [key for key in then[0] if key in {j[0] for j in jobs}]
+    if n_jobs == 1 or len(todo) < 2:
+        got.update({key: _render(f, a, k, dpi) for key, f, a, k in todo})
+        if then is not None:
+            then[1]({key: got[key] for key in first})
+        return {key: got[key] for key, _, _, _ in jobs}
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    _warm_for(todo)
+    tasks = _tasks(todo, first)
+    failed = None
+    with ProcessPoolExecutor(max_workers=n_jobs, mp_context=mp.get_context("fork")) as pool:
+        futures = [(task, pool.submit(_render_all, task, dpi)) for task in tasks]
+        owner = {job[0]: future for task, future in futures for job in task}
+        if then is not None:
+            ready = {}
+            for key in first:
+                if key not in got:
+                    task = next(t for t, f in futures if f is owner[key])
+                    got.update(zip((job[0] for job in task), owner[key].result()))
+                ready[key] = got[key]
+            try:
+                then[1](ready)
+            except Exception as exc:  # raised once the figures are drawn
+                failed = exc
+        for task, future in futures:
+            got.update(zip((job[0] for job in task), future.result()))
+    if failed is not None:
+        raise failed
+    return {key: got[key] for key, _, _, _ in jobs}
+
+
+#: Figure kinds drawn by one worker each (one task): the first of a kind in a process costs
+#: 2-5 times the next (its kept layout, fonts, text rasters), so it is paid once, not per worker.
+_TOGETHER = ("roi-bars", "pairs", "roi-heatmap", "networks", "coupling", "topomap", "topomap-z")
+#: The slowest kinds (many axes or tick labels, ~0.3-1 s each).
+_SLOW = ("coupling", "leakage", "roi-heatmap", "topomap", "topomap-z", "ocular")
+
+
+def _tasks(jobs, first) -> list[list]:
+    """The workers' tasks: the figures of a kind in :data:`_TOGETHER` in one task, the others
+    one by one.  Those holding a figure of ``first`` come first; then kinds together and the
+    slowest kinds, so that no worker is left drawing a long task alone at the end."""
+    groups: dict = {}
+    tasks: list[list] = []
+    for job in jobs:
+        kind = job[0].split("/")[0]
+        if kind in _TOGETHER:
+            if kind not in groups:
+                groups[kind] = []
+                tasks.append(groups[kind])
+            groups[kind].append(job)
+        else:
+            tasks.append([job])
+    wanted = set(first)
+
+    def rank(task):
+        kind = task[0][0].split("/")[0]
+        return (not any(job[0] in wanted for job in task), kind not in _TOGETHER + _SLOW)
+
+    return sorted(tasks, key=rank)
+
+
+def _render_all(jobs, dpi) -> list:
+    """Worker: the PNGs of a task's figures (see :func:`_render`)."""
+    return [_render(f, a, k, dpi) for _, f, a, k in jobs]
+
+
+def _warm_for(jobs) -> None:
+    """Fill the caches the queued glass brains and surface views use before workers fork."""
     import multiprocessing as mp
     from concurrent.futures import ProcessPoolExecutor
 
@@ -512,13 +694,6 @@ def _run_limited(jobs, *, as_png: bool, dpi: int, n_jobs: int) -> dict:
         if f is brain.glass_brain and layout not in warmed:
             warmed.add(layout)
             brain.warm_caches(f, k)
-    # the slowest kinds (many axes or tick labels, ~0.5-1 s each) first, so that no worker is
-    # left drawing one of them alone at the end; the answer keeps the queued order
-    slow = ("coupling", "leakage", "roi-heatmap", "topomap", "topomap-z", "ocular")
-    order = sorted(jobs, key=lambda job: job[0].split("/")[0] not in slow)
-    with ProcessPoolExecutor(max_workers=n_jobs, mp_context=mp.get_context("fork")) as pool:
-        futures = {key: pool.submit(_render, f, a, k, dpi) for key, f, a, k in order}
-        return {key: futures[key].result() for key, _, _, _ in jobs}
 
 
 def _edges(result, band: str) -> str:

@@ -313,11 +313,14 @@ def _summary_page(lay: _Layout, result, summary, *, scale: float = 1.0) -> None:
         lay.paragraph(c, size=8 * k, color=_CAUTION, indent=0.2, bullet="!")
 
 
-def _pick(figs: dict, keys) -> list:
-    return [(k, figs[k]) for k in keys if k in figs]
+def _figure_groups(result, names) -> list:
+    """The figure pages' groups: ``(title, figure names, largest height in inches)``, the
+    names those of ``names`` (the figures drawn) each group shows, in order."""
+    have = set(names)
 
+    def pick(keys):
+        return [k for k in keys if k in have]
 
-def _figure_pages(lay: _Layout, result, figs: dict, summary) -> None:
     bands = list(result.bands.names)
     c = result.candidates
     top_band = (
@@ -325,40 +328,60 @@ def _figure_pages(lay: _Layout, result, figs: dict, summary) -> None:
         if c is not None and len(c) and "band" in c.columns
         else (bands[0] if bands else None)
     )
-    groups = [
+    return [
         (
             "Sensor maps",
-            _pick(figs, ["topomap-z/absolute", "topomap-z/relative"])
-            or _pick(figs, ["topomap/absolute", "topomap/relative"]),
+            pick(["topomap-z/absolute", "topomap-z/relative"])
+            or pick(["topomap/absolute", "topomap/relative"]),
             4.2,
         ),
         (
             "Source z maps (per-source z, surface)",
-            _pick(figs, [f"surface-z/{top_band}/absolute", f"surface-z/{top_band}/relative"]),
+            pick([f"surface-z/{top_band}/absolute", f"surface-z/{top_band}/relative"]),
             4.3,
         ),
         (
             "Source z maps (area z, glass brain)",
-            _pick(figs, [f"glass-z/{b}/absolute" for b in bands]),
+            pick([f"glass-z/{b}/absolute" for b in bands]),
             1.7,
         ),
         (
             "Source power",
-            _pick(figs, [f"glass/{b}/absolute" for b in bands])
-            if not any(k.startswith("glass-z/") for k in figs)
+            pick([f"glass/{b}/absolute" for b in bands])
+            if not any(k.startswith("glass-z/") for k in have)
             else [],
             1.95,
         ),
-        ("Areas and networks", _pick(figs, ["roi-heatmap/absolute", "networks/absolute"]), 5.0),
-        ("Coupling", _pick(figs, [f"pairs/{top_band}/lagcoh", "coupling/lagcoh"]), 4.6),
+        ("Areas and networks", pick(["roi-heatmap/absolute", "networks/absolute"]), 5.0),
+        ("Coupling", pick([f"pairs/{top_band}/lagcoh", "coupling/lagcoh"]), 4.6),
     ]
-    for title, items, max_h in groups:
-        if not items:
+
+
+def figure_names(result, names) -> list[str]:
+    """The figures the PDF report of ``result`` shows when ``names`` were drawn.
+
+    Parameters
+    ----------
+    result : AnalysisResult
+    names : iterable of str
+        Names of the drawn figures (keys of :func:`sourcelab.figures.result_figures`).
+
+    Returns
+    -------
+    list of str
+        In the order of the pages.
+    """
+    return [k for _, keys, _ in _figure_groups(result, list(names)) for k in keys]
+
+
+def _figure_pages(lay: _Layout, result, figs: dict, summary) -> None:
+    for title, keys, max_h in _figure_groups(result, figs):
+        if not keys:
             continue
         lay.page_break()
         lay.heading(title)
-        for key, png in items:
-            lay.image(png, caption=_caption(key, result), max_h=max_h)
+        for key in keys:
+            lay.image(figs[key], caption=_caption(key, result), max_h=max_h)
 
 
 def _caption(key: str, result) -> str:
