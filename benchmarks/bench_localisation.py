@@ -285,15 +285,16 @@ def _list_first(
     The rule of :func:`sourcelab.targets.peaks.peak_candidates` for one (measure, band) map,
     evaluated lazily: for the excess ``max(z, 0)`` and the deficit ``max(-z, 0)``, the local
     maxima beyond the threshold in decreasing order (at most ``max_peaks``), each named by
-    :func:`~sourcelab.trust.naming.candidate_naming` over all areas, the first one whose area
-    is new and resolvable is that direction's first row; the list's first row is the
-    direction whose row has the larger |peak z| (the excess on a tie).  ``first_code``: the
+    :func:`~sourcelab.trust.naming.listed_naming` (the list's own rule: over all areas, shown
+    when resolvable), the first one whose area is new and shown is that direction's first
+    row; the list's first row is the direction whose row has the larger |peak z| (the excess
+    on a tie).  ``first_code``: the
     name of the excess map's highest peak when already known; ``signs=(1.0,)``: the list's
     first above-norm row.
     """
     from sourcelab.targets.peaks import DEVIATION_Z
     from sourcelab.trust.localise import local_maxima
-    from sourcelab.trust.naming import candidate_naming
+    from sourcelab.trust.naming import listed_naming
 
     threshold = DEVIATION_Z if threshold is None else threshold
     max_peaks = 30 if max_peaks is None else max_peaks
@@ -310,12 +311,13 @@ def _list_first(
                 break
             if sign > 0 and k == 0 and first_code is not None:
                 code = int(first_code)
+                shown = code != 0 and code not in excl
             else:
-                code = candidate_naming(v, sp, int(s), kind="z", memo=memo)[0]
+                code, _, shown = listed_naming(v, sp, int(s), exclude=excl, kind="z", memo=memo)
             if code == 0 or code in seen:
                 continue
             seen.add(code)
-            if code in excl:
+            if not shown:
                 continue
             best_code, best_value, best_sign, best_k = code, float(v[s]), int(sign), k
             break
