@@ -326,13 +326,14 @@ def _list_first_by_peak_z(
 ):
     """:func:`_list_first` under the list's order before the focal-evidence rule: by |peak z|.
 
-    Area code, direction and peak rank of the first row, evaluated lazily: for the excess ``max(z, 0)`` and the deficit ``max(-z, 0)``, the local
-    maxima beyond the threshold in decreasing order (at most ``max_peaks``), each named by
+    Area code, direction and peak rank of the first row, evaluated lazily: for the excess
+    ``max(z, 0)`` and the deficit ``max(-z, 0)``, the local maxima beyond the threshold in
+    decreasing order (at most ``max_peaks``), each named by
     :func:`~sourcelab.trust.naming.candidate_naming` over all areas, the first one whose area
     is new and resolvable is that direction's first row; the list's first row is the
     direction whose row has the larger |peak z| (the excess on a tie).  ``first_code``: the
-    name of the excess map's highest peak when already known; ``signs=(1.0,)``: the list's
-    first above-norm row.
+    name of the excess map's highest peak when already known; ``signs=(1.0,)``: the first
+    above-norm row.
     """
     from sourcelab.targets.peaks import DEVIATION_Z
     from sourcelab.trust.localise import local_maxima

@@ -15,24 +15,29 @@ candidate per (measure, band, direction, area) keeps the strongest peak.  Order:
 
 Focal evidence (:func:`focal_evidence`).  A candidate claims a *focal* generator in the named
 area, and 19 electrodes cannot produce a focal map sharper than sLORETA's blur: the image of
-any single source or patch is a smooth blob some 3-4 cm across.  Each candidate therefore
+any single source or patch is a smooth blob whose half-maximum region is a disc of radius
+~36 mm (:mod:`sourcelab.targets.candidates`).  Each candidate therefore
 carries ``fit``, the correlation of the direction's deviation map (``max(z, 0)`` or
 ``max(-z, 0)``) with the map a 12 mm patch of deviation at the named area's best candidate
 source predicts (the template match the name is read from, :mod:`sourcelab.trust.naming`;
 ``fit ** 2`` is the share of the map's spatial variance a focal generator there explains), and
 is ranked by ``|peak z| x max(fit, 0)``: the peak height discounted by how well a focal
 generator explains the map.  A sharp spike of one or a few sources, which no source seen
-through the blur can produce, or a broad low excursion over much of the cortex (a global or
-regional shift of the person's power, not a focal source) fits badly and ranks below a
-blur-shaped cluster of the same height; between two peaks that fit equally, the higher ranks
-first (ties: the higher |peak z|).  Below-norm peaks are ranked by the same rule as above-norm
-ones.  Chosen on simulated focal deviations of training seeds only
-(``benchmarks/bench_localisation.py``, row ``candidate_list_first``); cluster extent and
-cluster mass (supra-threshold sources, and their summed excess over the threshold) ranked no
-better than |peak z| there, because the noise peaks that outranked planted excesses were
-low, smooth excursions of the person's own variability rather than isolated spikes.  The
-evidence is a ranking key, not a test: ``peak_z`` keeps its p-value meaning, and the rule
-does not make a map's noise peaks go away.
+through the blur can produce, or a map of excursions scattered over several places fits
+badly and ranks below a blur-shaped cluster of the same height; between two peaks that fit
+equally, the higher ranks first (ties: the higher |peak z|).  Below-norm peaks are ranked by
+the same rule as above-norm ones.  Chosen on simulated focal deviations of training seeds only
+(``benchmarks/bench_localisation.py``, row ``candidate_list_first``; its README gives the
+figures).  There, the peaks that outranked a planted excess were the map's own null
+excursions (people without a planted patch have a highest peak of median |z| 2.3-2.4), not
+sources with small norm SDs (the per-source SD at them is typical); they were no sharper
+than the weak planted excesses they outranked (both just above the threshold, a few to a few
+tens of sources), so cluster extent and cluster mass (supra-threshold sources, and their
+summed excess over the threshold) ranked no better than |peak z|; but their maps were
+scattered, with no single focal generator explaining them (median ``fit`` 0.31, against
+0.79 for the planted excess peaks named correctly).  The evidence is a ranking key, not a
+test: ``peak_z`` keeps its p-value meaning, and the rule shows the same rows, so it does not
+make a map's noise peaks go away.
 
 Areas not resolvable from 19 scalp electrodes (:mod:`sourcelab.trust.resolvability`) are left
 out unless ``include_unresolvable``.  Each candidate carries the area's leakage own-share and the
