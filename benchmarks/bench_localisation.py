@@ -56,11 +56,14 @@ area is not resolvable from 19 electrodes (it is not renamed after a resolvable 
 the ``*_default`` rows above do).  Two rows score exactly that:
 
 * ``candidate_list_first`` (deviations): the first row of the candidate list of the signed
-  z-map (excess and deficit peaks beyond |z| 1.96, at most 30 per direction, the next peak when
-  the highest names an unresolvable area, the larger |peak z| first; ``_list_first``, checked
-  against ``peak_candidates`` itself on a few maps every run, ``_check_list_first``);
+  z-map (excess and deficit peaks beyond |z| 1.96, at most 30 per direction, a peak naming an
+  unresolvable area left out, the highest focal evidence ``|peak z| x fit`` first,
+  ``sourcelab.targets.peaks.focal_evidence``; ``_list_first``, checked against
+  ``peak_candidates`` itself on a few maps every run, ``_check_list_first``);
   ``candidate_list_first_above_norm``: the list's first above-norm row (for a reader who knows
-  the deviation is an excess; the list itself ranks below-norm peaks by |z| alike);
+  the deviation is an excess; the list itself ranks below-norm peaks by the same rule);
+  ``candidate_list_first_by_peak_z``: the first row under the order before the focal-evidence
+  rule (the larger |peak z| first), on the same maps;
 * ``evidence_default_shown`` (point sources; power maps have no candidate list, so the list's
   rule is applied at the map's highest peak with point templates): the area named there over all
   areas, shown if resolvable; top 3 from the evidence order with the unresolvable areas left
@@ -276,25 +279,65 @@ def _point_shown(orders_all, exclude):
     return [int(o[0]) if o.size and int(o[0]) not in excl else 0 for o in orders_all]
 
 
-def _list_first(
-    z, sp, exclude, *, first_code=None, threshold=None, max_peaks=None, signs=(1.0, -1.0)
-):
+def _list_first(z, sp, exclude, *, threshold=None, max_peaks=None, signs=(1.0, -1.0)):
     """Area code, direction (+1 excess, -1 deficit, 0 none) and peak rank (0: the direction's
     highest) of the first row of the candidate list of one z-map (code 0: the list is empty).
 
     The rule of :func:`sourcelab.targets.peaks.peak_candidates` for one (measure, band) map,
     evaluated lazily: for the excess ``max(z, 0)`` and the deficit ``max(-z, 0)``, the local
     maxima beyond the threshold in decreasing order (at most ``max_peaks``), each named by
-    :func:`~sourcelab.trust.naming.listed_naming` (the list's own rule: over all areas, shown
-    when resolvable), the first one whose area is new and shown is that direction's first
-    row; the list's first row is the direction whose row has the larger |peak z| (the excess
-    on a tie).  ``first_code``: the
-    name of the excess map's highest peak when already known; ``signs=(1.0,)``: the list's
-    first above-norm row.
+    :func:`~sourcelab.trust.naming.candidate_naming` over all areas; a peak whose area is new
+    (for its direction) and resolvable is a row, and the first row is the one of highest focal
+    evidence (:func:`sourcelab.targets.peaks.focal_evidence`; ties: the larger |peak z|, then
+    the excess, then the higher peak).  The evidence never exceeds |peak z|, so the peaks below
+    the best evidence so far are not named.  ``signs=(1.0,)``: the list's first above-norm row.
+    """
+    from sourcelab.targets.peaks import DEVIATION_Z, _named_fit, focal_evidence
+    from sourcelab.trust.localise import local_maxima
+    from sourcelab.trust.naming import candidate_naming
+
+    threshold = DEVIATION_Z if threshold is None else threshold
+    max_peaks = 30 if max_peaks is None else max_peaks
+    excl = set(int(c) for c in exclude)
+    best, best_key = (0, 0, 0), (-np.inf, -np.inf)
+    for sign in signs:
+        v = np.clip(sign * np.asarray(z, dtype=float), 0.0, None)
+        if not v.max() > threshold:
+            continue
+        memo = np.full(sp.n_src, np.nan)
+        seen = set()
+        for k, s in enumerate(local_maxima(v, sp.mesh, threshold=threshold)[:max_peaks]):
+            if v[s] < best_key[0]:
+                break
+            code, ev = candidate_naming(v, sp, int(s), kind="z", memo=memo)
+            if code == 0 or code in seen:
+                continue
+            seen.add(code)
+            if code in excl:
+                continue
+            key = (float(focal_evidence(v[s], _named_fit(ev, sp, code))), float(v[s]))
+            if key > best_key:
+                best, best_key = (code, int(sign), k), key
+    return best
+
+
+def _list_first_by_peak_z(
+    z, sp, exclude, *, first_code=None, threshold=None, max_peaks=None, signs=(1.0, -1.0)
+):
+    """:func:`_list_first` under the list's order before the focal-evidence rule: by |peak z|.
+
+    Area code, direction and peak rank of the first row, evaluated lazily: for the excess
+    ``max(z, 0)`` and the deficit ``max(-z, 0)``, the local maxima beyond the threshold in
+    decreasing order (at most ``max_peaks``), each named by
+    :func:`~sourcelab.trust.naming.candidate_naming` over all areas, the first one whose area
+    is new and resolvable is that direction's first row; the list's first row is the
+    direction whose row has the larger |peak z| (the excess on a tie).  ``first_code``: the
+    name of the excess map's highest peak when already known; ``signs=(1.0,)``: the first
+    above-norm row.
     """
     from sourcelab.targets.peaks import DEVIATION_Z
     from sourcelab.trust.localise import local_maxima
-    from sourcelab.trust.naming import listed_naming
+    from sourcelab.trust.naming import candidate_naming
 
     threshold = DEVIATION_Z if threshold is None else threshold
     max_peaks = 30 if max_peaks is None else max_peaks
@@ -311,13 +354,12 @@ def _list_first(
                 break
             if sign > 0 and k == 0 and first_code is not None:
                 code = int(first_code)
-                shown = code != 0 and code not in excl
             else:
-                code, _, shown = listed_naming(v, sp, int(s), exclude=excl, kind="z", memo=memo)
+                code = candidate_naming(v, sp, int(s), kind="z", memo=memo)[0]
             if code == 0 or code in seen:
                 continue
             seen.add(code)
-            if not shown:
+            if code in excl:
                 continue
             best_code, best_value, best_sign, best_k = code, float(v[s]), int(sign), k
             break
@@ -575,10 +617,7 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80, store=
     _, evp_default = _rule_orders(info_p, sp, exclude=setup.exclude)
     # what a user's candidate list shows first for this z-map (both directions, |z| > 1.96,
     # later peaks when the highest names an unresolvable area): peaks.peak_candidates' rule
-    first_rows = [
-        _list_first(zs_src[i], sp, setup.exclude, first_code=int(o[0]) if o.size else None)
-        for i, o in enumerate(evp)
-    ]
+    first_rows = [_list_first(z, sp, setup.exclude) for z in zs_src]
     shown = [c for c, _, _ in first_rows]
     n_checked = _check_list_first(zs_src, shown, sp, setup)
     top_row = np.array([c != 0 and d > 0 and k == 0 for c, d, k in first_rows])
@@ -598,15 +637,27 @@ def bench_deviations(setup, full, *, n, rng, jitter_label, n_controls=80, store=
         )
     )
     # the list's first above-norm row (a reader who knows the deviation is an excess)
-    above = [
-        _list_first(
-            zs_src[i], sp, setup.exclude, first_code=int(o[0]) if o.size else None, signs=(1.0,)
-        )[0]
-        for i, o in enumerate(evp)
-    ]
+    above = [_list_first(z, sp, setup.exclude, signs=(1.0,))[0] for z in zs_src]
     rates_a = _shown_rates(above, true, setup.exclude)
     rows.append(
         _summary("candidate_list_first_above_norm", rates_a["first_all_maps"], None, **rates_a)
+    )
+    # the list's order before the focal-evidence rule (by |peak z|), on the same maps
+    before = [
+        _list_first_by_peak_z(
+            zs_src[i], sp, setup.exclude, first_code=int(o[0]) if o.size else None
+        )
+        for i, o in enumerate(evp)
+    ]
+    rates_b = _shown_rates([c for c, _, _ in before], true, setup.exclude)
+    rows.append(
+        _summary(
+            "candidate_list_first_by_peak_z",
+            rates_b["first_all_maps"],
+            None,
+            **rates_b,
+            share_first_row_deficit=round(float(np.mean([d < 0 for _, d, _ in before])), 3),
+        )
     )
     # not shipped: the evidence of patch templates over candidates within TRIAL_RADIUS_MM
     # (chosen on training seed 1; see TRIAL_RADIUS_MM), named at the highest excess peak
@@ -895,6 +946,7 @@ def _headline(rows):
             "evidence_default_shown",
             "candidate_list_first",
             "candidate_list_first_above_norm",
+            "candidate_list_first_by_peak_z",
             "evidence_patch_r50_shown_excess",
         )
         if shown and r["kind"] == "point":

@@ -60,6 +60,7 @@ COLUMN_LABELS = {
     "z_mni152": "MNI z",
     "mni": "MNI x, y, z (mm)",
     "border_mm": "to named area's border (mm; < 0 outside)",
+    "fit": "fit to a focal source",
     "cluster_size": "sources above threshold",
     "cluster_areas": "areas the cluster spans",
     "own_share": "own share",

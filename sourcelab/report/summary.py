@@ -224,6 +224,9 @@ def _peak_candidates(result, c: pd.DataFrame) -> pd.DataFrame:
                 **_candidate_head(result, r, r.area),
                 "peak z": f"{r.peak_z:+.1f}",
                 "MNI x, y, z (mm)": f"{r.x_mni152:.0f}, {r.y_mni152:.0f}, {r.z_mni152:.0f}",
+                "fit to a focal source": (
+                    f"{r.fit:.2f}" if np.isfinite(getattr(r, "fit", np.nan)) else NOT_GIVEN
+                ),
                 "probability in area": (
                     f"{r.probability:.0%}" if np.isfinite(r.probability) else NOT_GIVEN
                 ),
@@ -302,8 +305,12 @@ def report_summary(result, *, when: str | None = None, n_top: int = N_TOP) -> Su
             note = (
                 "Candidates are peaks of the per-source z map, named after the Brodmann "
                 "area whose predicted maps best explain the map around the peak (not always "
-                "the area holding the peak), absolute power first. How sure: 'probability in "
-                "area' is the calibrated chance that the generator lies in the named area "
+                "the area holding the peak), absolute power first, then by the peak's |z| "
+                "times its 'fit to a focal source' (how well the map a focal patch in the "
+                "named area would give through sLORETA's blur matches the map: a spike of a "
+                "few sources or excursions scattered over several places fit badly). How "
+                "sure: 'probability in area' is the calibrated chance that the generator "
+                "lies in the named area "
                 "under a simulated head (a real head can differ more). How blurred: 'own "
                 "share' is the part of the area's estimated power that comes from the area "
                 "itself rather than from its neighbours, and 'spread over' lists the areas "

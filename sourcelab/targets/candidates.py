@@ -515,6 +515,10 @@ CANDIDATE_COLUMN_NOTES = {
     "area": "Brodmann area named for the peak (highest template-match evidence within 35 mm)",
     "lobe": "lobe of that area",
     "peak_z": "z-score at the peak",
+    "fit": (
+        "correlation of the deviation map with the map a focal patch in the named area predicts "
+        "(candidates rank by |peak z| x fit)"
+    ),
     "x_mni152": "x of the peak, MNI152",
     "y_mni152": "y of the peak, MNI152",
     "z_mni152": "z of the peak, MNI152",
