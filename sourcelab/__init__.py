@@ -19,7 +19,7 @@ __version__ = "0.2.0"
 
 #: Bumped whenever a change alters the numbers the pipeline produces.  Norms and results carry it
 #: in their fingerprint, so numbers from different pipelines are never compared.
-PIPELINE_VERSION = 5
+PIPELINE_VERSION = 6
 # 2 (0.2.0): cortex-only sources; relative power over 1-45 Hz; learned rejection, ocular correction
 # 3: default bands of the IFCN recommendation (Babiloni et al. 2020): delta 1-4, theta 4-8,
 #    alpha 8-13, beta 13-30, gamma 30-h_freq Hz (was beta 12-25 and a 25-30 Hz band)
@@ -27,6 +27,8 @@ PIPELINE_VERSION = 5
 #    holding the peak); probability model refitted for it; border_mm signed, to the named area
 # 5: probability model refitted on the maps candidate lists show (named over all areas; maps named
 #    after an unresolvable area left out of the fit), as sourcelab.trust.naming.listed_naming
+# 6: candidate lists ordered by focal evidence, |peak z| x the fit of the deviation map to the
+#    named area's focal template (was |peak z|); candidates carry the fit
 
 #: name -> (module, attribute) of the front door; imported on first use so that
 #: ``import sourcelab`` stays fast.

@@ -40,6 +40,8 @@ MEASURES = ("absolute", "relative")
 PAIR_FIGURE_MEASURES = ("msc", "lagcoh", "asymmetry")
 #: Edge measures drawn as ROI matrices by default: the two that zero-lag leakage cannot create.
 EDGE_FIGURE_MEASURES = ("lagcoh", "aec_orth")
+#: Resolution of the figure set's PNGs, dots per inch.
+FIGURE_DPI = 90
 
 
 #: zlib level of figure PNGs: 1 encodes about twice as fast as PIL's default 6 and, for
@@ -118,32 +120,21 @@ def _pick_network_atlas(table) -> str | None:
     return None
 
 
-def result_figures(
-    result,
-    *,
-    measures=MEASURES,
-    bands=None,
-    z_limit: float = Z_LIMIT,
-    z_threshold: float | None | str = "config",
-    atlas: str | None = None,
-    network_atlas: str | None = None,
-    z_map_atlas: str | None = "brodmann",
-    outline=None,
-    display_mode: str = "lyrz",
-    resolution: int = 2,
-    surfaces: bool = True,
-    dpi: int = 90,
-    as_png: bool = False,
-    n_jobs: int = 1,
-    pair_measures=PAIR_FIGURE_MEASURES,
-    edge_measures=EDGE_FIGURE_MEASURES,
-    coupling_atlas: str | None = None,
-) -> dict:
+def result_figures(result, *, as_png: bool = False, n_jobs: int = 1, **options) -> dict:
     """Make every figure of a result.
 
     Parameters
     ----------
     result : AnalysisResult
+    as_png : bool
+        Return PNG bytes (figures closed as they are made) instead of open Figures (default).
+    n_jobs : int
+        Worker processes drawing figures (PNG output only; forked, so caches are shared).
+        1 draws in this process.
+    **options
+        The figure options, passed to :func:`queued_figures` (its signature holds the
+        defaults):
+
     measures : sequence of {"absolute", "relative"}
     bands : sequence of str | None
         Bands of the per-band figures (default: all); multi-band figures show all bands.
@@ -171,11 +162,6 @@ def result_figures(
     surfaces : bool
         Draw surface views (the slowest figures).
     dpi : int
-    as_png : bool
-        Return PNG bytes (figures closed as they are made) instead of open Figures (default).
-    n_jobs : int
-        Worker processes drawing figures (PNG output only; forked, so caches are shared).
-        1 draws in this process.
     pair_measures : sequence of str
         Pair measures with a head map per band (``pairs/<band>/<measure>``; only with z).
     edge_measures : sequence of str
@@ -188,25 +174,8 @@ def result_figures(
     figures : dict of str → bytes | Figure
     """
     n_jobs = check_number("n_jobs", n_jobs, kind=int, low=1)
-    jobs = queued_figures(
-        result,
-        measures=measures,
-        bands=bands,
-        z_limit=z_limit,
-        z_threshold=z_threshold,
-        atlas=atlas,
-        network_atlas=network_atlas,
-        z_map_atlas=z_map_atlas,
-        outline=outline,
-        display_mode=display_mode,
-        resolution=resolution,
-        surfaces=surfaces,
-        dpi=dpi,
-        pair_measures=pair_measures,
-        edge_measures=edge_measures,
-        coupling_atlas=coupling_atlas,
-    )
-    return _run(jobs, as_png=as_png, dpi=dpi, n_jobs=n_jobs)
+    jobs = queued_figures(result, **options)
+    return _run(jobs, as_png=as_png, dpi=options.get("dpi", FIGURE_DPI), n_jobs=n_jobs)
 
 
 def queued_figures(
@@ -223,7 +192,7 @@ def queued_figures(
     display_mode: str = "lyrz",
     resolution: int = 2,
     surfaces: bool = True,
-    dpi: int = 90,
+    dpi: int = FIGURE_DPI,
     pair_measures=PAIR_FIGURE_MEASURES,
     edge_measures=EDGE_FIGURE_MEASURES,
     coupling_atlas: str | None = None,
