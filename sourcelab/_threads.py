@@ -72,9 +72,10 @@ def limited_threads(n_threads: int = BLAS_THREADS, *, user_api: str | None = Non
     return decorate
 
 
-#: Variables that pin a process to one thread when set to 1 (batch workers get them, see
+#: Thread-count variables of OpenMP and the BLAS libraries numpy and scipy load; set to 1 they pin
+#: a process to one thread (batch workers get them, with the others of
 #: ``sourcelab.batch.engines.THREAD_ENV``).
-_ONE_THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+BLAS_THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
 
 def parallel_stages() -> bool:
@@ -95,7 +96,7 @@ def parallel_stages() -> bool:
         cores = len(os.sched_getaffinity(0))
     except (AttributeError, OSError):
         cores = os.cpu_count() or 1
-    pinned = any(os.environ.get(k, "").strip() == "1" for k in _ONE_THREAD_ENV)
+    pinned = any(os.environ.get(k, "").strip() == "1" for k in BLAS_THREAD_ENV)
     if cores < 2 or pinned:
         return False
     try:

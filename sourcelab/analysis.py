@@ -264,9 +264,8 @@ def _early_maps(config, ch_names, src_abs, src_rel, sens_abs, sens_rel) -> None:
     """The power maps handed to a warmed figure renderer, when one is waiting for them
     (:func:`sourcelab.figures.warm.early_maps`: their figures are drawn while the analysis goes
     on), as the result will hold them."""
-    from .figures import warm
-
-    if warm.active() is not None:
+    warm = _warm_renderer()
+    if warm is not None:
         warm.early_maps(
             config,
             ch_names,
@@ -582,11 +581,17 @@ def _second_core_free() -> bool:
     """May a stage run beside the others: a second core, no one-thread pin (batch workers), and
     no warmed figure renderer (``sourcelab.figures.warm``), which uses the second core
     meanwhile?"""
-    if not parallel_stages():
-        return False
-    # looked up, not imported: a renderer exists only if its module was loaded
+    return parallel_stages() and _warm_renderer() is None
+
+
+def _warm_renderer():
+    """The module :mod:`sourcelab.figures.warm` when a warmed renderer is active, else None.
+
+    Looked up, not imported: a renderer exists only if its module was loaded, so the tables-only
+    path never imports it.
+    """
     warm = sys.modules.get("sourcelab.figures.warm")
-    return warm is None or warm.active() is None
+    return warm if warm is not None and warm.active() is not None else None
 
 
 @contextlib.contextmanager

@@ -28,7 +28,7 @@ import threading
 from collections.abc import Callable, Iterable, Iterator
 from typing import Any
 
-from .._threads import thread_limits
+from .._threads import BLAS_THREAD_ENV, thread_limits
 from ..errors import InputError
 
 log = logging.getLogger("sourcelab")
@@ -43,9 +43,7 @@ DASK_MISSING = (
 #: when it is loaded, so a worker must have them in its environment from the start: a spawned
 #: worker imports numpy (with the parent's main module) before its initialiser runs.
 THREAD_ENV = (
-    "OMP_NUM_THREADS",
-    "OPENBLAS_NUM_THREADS",
-    "MKL_NUM_THREADS",
+    *BLAS_THREAD_ENV,
     "BLIS_NUM_THREADS",
     "VECLIB_MAXIMUM_THREADS",
     "NUMEXPR_NUM_THREADS",
