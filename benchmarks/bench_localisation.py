@@ -286,15 +286,16 @@ def _list_first(z, sp, exclude, *, threshold=None, max_peaks=None, signs=(1.0, -
     The rule of :func:`sourcelab.targets.peaks.peak_candidates` for one (measure, band) map,
     evaluated lazily: for the excess ``max(z, 0)`` and the deficit ``max(-z, 0)``, the local
     maxima beyond the threshold in decreasing order (at most ``max_peaks``), each named by
-    :func:`~sourcelab.trust.naming.candidate_naming` over all areas; a peak whose area is new
-    (for its direction) and resolvable is a row, and the first row is the one of highest focal
+    :func:`~sourcelab.trust.naming.listed_naming` (the list's own rule: over all areas, shown
+    when resolvable); a peak whose area is new (for its direction) and shown is a row, and the
+    first row is the one of highest focal
     evidence (:func:`sourcelab.targets.peaks.focal_evidence`; ties: the larger |peak z|, then
     the excess, then the higher peak).  The evidence never exceeds |peak z|, so the peaks below
     the best evidence so far are not named.  ``signs=(1.0,)``: the list's first above-norm row.
     """
     from sourcelab.targets.peaks import DEVIATION_Z, _named_fit, focal_evidence
     from sourcelab.trust.localise import local_maxima
-    from sourcelab.trust.naming import candidate_naming
+    from sourcelab.trust.naming import listed_naming
 
     threshold = DEVIATION_Z if threshold is None else threshold
     max_peaks = 30 if max_peaks is None else max_peaks
@@ -309,11 +310,11 @@ def _list_first(z, sp, exclude, *, threshold=None, max_peaks=None, signs=(1.0, -
         for k, s in enumerate(local_maxima(v, sp.mesh, threshold=threshold)[:max_peaks]):
             if v[s] < best_key[0]:
                 break
-            code, ev = candidate_naming(v, sp, int(s), kind="z", memo=memo)
+            code, ev, shown = listed_naming(v, sp, int(s), exclude=excl, kind="z", memo=memo)
             if code == 0 or code in seen:
                 continue
             seen.add(code)
-            if code in excl:
+            if not shown:
                 continue
             key = (float(focal_evidence(v[s], _named_fit(ev, sp, code))), float(v[s]))
             if key > best_key:
