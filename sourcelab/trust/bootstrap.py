@@ -335,7 +335,6 @@ def roi_bootstrap(
         q = q_all[src[s : s + _SOURCE_BLOCK]]
         p_mean[:, 0, s : s + q.shape[0]] = c_mean @ q.T
         q32[s : s + q.shape[0]] = q
-    del q
     # the deviations made in C order (the same values; no second copy for the reshape)
     dev = np.subtract(cv, c_mean, order="C").reshape(n_ep, -1)
     del cv
