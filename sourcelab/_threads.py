@@ -78,6 +78,20 @@ def limited_threads(n_threads: int = BLAS_THREADS, *, user_api: str | None = Non
 BLAS_THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
 
+def available_cores() -> int:
+    """Cores this process may run on (its CPU affinity where the system reports it).
+
+    Returns
+    -------
+    int
+        >= 1.
+    """
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):  # not on Linux
+        return os.cpu_count() or 1
+
+
 def parallel_stages() -> bool:
     """May this process run two independent stages at once, each with its own core?
 
@@ -92,10 +106,7 @@ def parallel_stages() -> bool:
     -------
     bool
     """
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except (AttributeError, OSError):
-        cores = os.cpu_count() or 1
+    cores = available_cores()
     pinned = any(os.environ.get(k, "").strip() == "1" for k in BLAS_THREAD_ENV)
     if cores < 2 or pinned:
         return False

@@ -22,6 +22,7 @@ import logging
 import queue
 import threading
 
+from .._threads import available_cores
 from ..checks import check_number
 
 log = logging.getLogger("sourcelab")
@@ -66,11 +67,7 @@ def figure_jobs() -> int:
         )
     if mp.parent_process() is not None or "fork" not in mp.get_all_start_methods():
         return 1  # workers share the parent's caches by forking (not on Windows)
-    try:
-        cores = len(os.sched_getaffinity(0))
-    except AttributeError:  # not on Linux
-        cores = os.cpu_count() or 1
-    return max(1, min(4, cores))
+    return max(1, min(4, available_cores()))
 
 
 def _warm() -> None:
@@ -86,13 +83,14 @@ def _warm() -> None:
     with thread_limits():
         geometry.sulcal_depth()
         geometry.source_positions_mni305()
-        layout = {"resolution": 2, "display_mode": "lyrz", "title": True, "dpi": 90}
+        dpi = figure_set.FIGURE_DPI
+        layout = {"resolution": 2, "display_mode": "lyrz", "title": True, "dpi": dpi}
         brain.warm_caches(brain.glass_brain, layout)
         brain.warm_caches(brain.surface_views, layout)
         flat = np.ones(geometry.load_head_model().n_src)
         # one glass brain per default layout (power, z) builds the figure kept for it
         for scale in (power_scale(flat, measure="absolute"), z_scale()):
-            brain.glass_brain_png(flat, scale=scale, title="warm", resolution=2, dpi=90)
+            brain.glass_brain_png(flat, scale=scale, title="warm", resolution=2, dpi=dpi)
         sensor.sensor_info()
 
 
@@ -107,7 +105,7 @@ def _result_figures(result, n_jobs: int, options: dict, side=None) -> tuple[dict
     the figures named by ``needs(result, names)`` are drawn, while the workers draw the rest)."""
     from . import figure_set
 
-    dpi = int(options.get("dpi", 90))
+    dpi = int(options.get("dpi", figure_set.FIGURE_DPI))
     jobs = figure_set.queued_figures(result, **options)
     then = None
     if side is not None:
@@ -157,7 +155,7 @@ def _early_figures(early: _Early, options: dict) -> int:
     from . import figure_set
 
     jobs = figure_set.queued_figures(early, **options)
-    dpi = int(options.get("dpi", 90))
+    dpi = int(options.get("dpi", figure_set.FIGURE_DPI))
     with figure_set.thread_limits(), figure_set._gc_frozen():
         for key, f, a, k in jobs:
             if _CONN is not None and _CONN.poll():  # the figure set is asked for: stop here
