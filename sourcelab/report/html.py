@@ -112,6 +112,7 @@ tr.hi td{background:#fbeaea}tr.lo td{background:#e8f0fb}
 details summary{cursor:pointer;color:var(--accent);margin:6px 0}
 .bandgrid{display:grid;grid-template-columns:1fr;gap:4px}
 .tablewrap{max-width:100%;overflow-x:auto}
+.tablewrap th{top:0}
 .pager{font-size:12px;color:var(--muted);margin:-6px 0 10px}
 .pager button{font:inherit;margin-right:6px;cursor:pointer}
 .summary .facts th{width:150px}
