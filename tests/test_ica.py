@@ -231,3 +231,52 @@ def test_correct_ocular_unchanged_against_the_mne_route(head_model, eeg):
     np.testing.assert_allclose(out.eog_scores["HEOG"], np.round(scores[1], 4), atol=1e-12)
     ref = ocular.remove_components(ica, data_uv, removed)
     np.testing.assert_allclose(out.data, ref, atol=1e-9 * np.abs(ref).max())
+
+
+_HEAVY = ("scipy.signal", "sklearn", "mne.preprocessing", "scipy.stats")
+_IMPORTS_CHILD = """
+import json, sys
+from sourcelab.cli.main import main
+main(["analyze", sys.argv[1], "--out", sys.argv[2], "--no-figures", "--no-report", "--no-maps"])
+print(json.dumps(sorted(m for m in sys.modules if m.split(".")[0] in ("scipy", "sklearn", "mne"))))
+"""
+
+
+@pytest.fixture(scope="module")
+def tables_only_modules(head_model, tmp_path_factory):
+    """Modules loaded by a fresh ``sourcelab analyze REC --no-figures --no-report --no-maps``."""
+    import json
+    import subprocess
+    import sys
+
+    d = tmp_path_factory.mktemp("tables_only")
+    raw = simulate_raw(head_model, duration_s=60.0, sfreq=SF, rng=np.random.default_rng(1))
+    raw.save(d / "rec_raw.fif", verbose="error")
+    p = subprocess.run(
+        [sys.executable, "-c", _IMPORTS_CHILD, str(d / "rec_raw.fif"), str(d / "out")],
+        capture_output=True,
+        text=True,
+        cwd=d,
+    )
+    assert p.returncode == 0, p.stderr[-2000:]
+    return set(json.loads(p.stdout.strip().splitlines()[-1]))
+
+
+@pytest.mark.parametrize(
+    "module",
+    [
+        pytest.param(
+            m,
+            marks=pytest.mark.xfail(
+                strict=True, reason="coupling.measures' analytic null still calls scipy.stats"
+            ),
+        )
+        if m == "scipy.stats"
+        else m
+        for m in _HEAVY
+    ],
+)
+def test_tables_only_analysis_skips_heavy_imports(tables_only_modules, module):
+    # Contract (issue 19, start-up time): the default tables-only analysis needs none of these
+    # (scipy.signal ~0.8 s, scipy.stats ~0.5 s, scikit-learn, mne.preprocessing).
+    assert module not in tables_only_modules
