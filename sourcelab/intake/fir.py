@@ -83,6 +83,17 @@ def _firwin_design(n: int, freq: np.ndarray, gain: np.ndarray) -> np.ndarray:
     return h
 
 
+def _bandpass_points(l_stop, l_freq, h_freq, h_stop, nyq):
+    """MNE's gain points of a band-pass, Hz: 0 below ``l_stop``, 1 from ``l_freq`` to ``h_freq``,
+    0 from ``h_stop``, with 0 Hz and Nyquist added when not already edges."""
+    freq, gain = [l_stop, l_freq, h_freq, h_stop], [0, 1, 1, 0]
+    if h_stop != nyq:
+        freq, gain = freq + [nyq], gain + [0]
+    if l_stop != 0:
+        freq, gain = [0] + freq, [0] + gain
+    return freq, gain
+
+
 def fir_coefficients(sfreq: float, l_freq: float | None, h_freq: float | None) -> np.ndarray:
     """Coefficients of MNE's default zero-phase FIR high-, low- or band-pass.
 
@@ -131,11 +142,7 @@ def fir_coefficients(sfreq: float, l_freq: float | None, h_freq: float | None) -
     else:
         if not l_freq < h_freq:
             raise ValueError(f"l_freq {l_freq} Hz must be below h_freq {h_freq} Hz")
-        freq, gain = [l_stop, l_freq, h_freq, h_stop], [0, 1, 1, 0]
-        if h_stop != nyq:
-            freq, gain = freq + [nyq], gain + [0]
-        if l_stop != 0:
-            freq, gain = [0] + freq, [0] + gain
+        freq, gain = _bandpass_points(l_stop, l_freq, h_freq, h_stop, nyq)
     n = _n_taps(min(trans), sfreq)
     return _firwin_design(n, np.array(freq) / nyq, np.array(gain))
 
@@ -327,11 +334,7 @@ def firwin2_bandpass(
     l_stop, h_stop = l_freq - float(trans_hz), h_freq + float(trans_hz)
     if l_stop < 0 or h_stop > nyq:
         raise ValueError(f"transition bands of {trans_hz} Hz do not fit in 0 ... {nyq} Hz")
-    freq, gain = [l_stop, l_freq, h_freq, h_stop], [0, 1, 1, 0]
-    if h_stop != nyq:
-        freq, gain = freq + [nyq], gain + [0]
-    if l_stop != 0:
-        freq, gain = [0] + freq, [0] + gain
+    freq, gain = _bandpass_points(l_stop, l_freq, h_freq, h_stop, nyq)
     n = max(int(np.ceil(float(f"{length_s}") * sfreq)), 1)
     n = 2 ** int(np.ceil(np.log2(n)))
     return _firwin2(n, np.array(freq) / nyq, np.array(gain))

@@ -30,7 +30,7 @@ IEEE Trans Neural Netw 10:626-634.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -96,10 +96,16 @@ class FittedICA:
         -------
         ndarray, shape (n_components_, n_times)
         """
-        x = np.array(data, float) / self.pre_whitener_
-        x -= self.pca_mean_[:, None]
-        n = self.n_components_
-        return np.dot(np.dot(self.unmixing_matrix_, self.pca_components_[:n]), x)
+        return _sources(
+            self.pre_whitener_, self.pca_mean_, self.pca_components_, self.unmixing_matrix_, data
+        )
+
+
+def _sources(pre_whitener, mean, pca, unmixing, data):
+    """MNE's ``ICA._transform``: pre-whiten, centre, PCA, unmix."""
+    x = np.array(data, float) / pre_whitener
+    x -= mean[:, None]
+    return np.dot(np.dot(unmixing, pca[: len(unmixing)]), x)
 
 
 def _sym_decorrelation(w: np.ndarray) -> np.ndarray:
@@ -209,29 +215,14 @@ def fit_ica(
     norms = np.sqrt(explained[:n_comp])
     norms[norms == 0] = 1.0
     w /= norms
-    fitted = FittedICA(
-        pre_whitener_=pre_whitener,
-        pca_mean_=mean,
-        pca_components_=v,
-        pca_explained_variance_=explained,
-        n_components_=n_comp,
-        unmixing_matrix_=w,
-        mixing_matrix_=_pinv(w),
-        n_iter_=int(n_iter),
-    )
+    mix = _pinv(w)
     # MNE then orders the components by the variance they explain in the fitted data
     # (``_ica_explained_variance``: column power of the mixing matrix times source power)
-    src = fitted.sources(orig)
-    var = (
-        np.sum(fitted.mixing_matrix_**2, axis=0)
-        * np.sum(src**2, axis=1)
-        / (src.shape[0] * src.shape[1] - 1)
-    )
+    src = _sources(pre_whitener, mean, v, w, orig)
+    var = np.sum(mix**2, axis=0) * np.sum(src**2, axis=1) / (src.shape[0] * src.shape[1] - 1)
     order = var.argsort()[::-1]
-    return replace(
-        fitted,
-        mixing_matrix_=fitted.mixing_matrix_[:, order],
-        unmixing_matrix_=fitted.unmixing_matrix_[order, :],
+    return FittedICA(
+        pre_whitener, mean, v, explained, n_comp, w[order, :], mix[:, order], int(n_iter)
     )
 
 
