@@ -249,7 +249,8 @@ def find_outliers(scores: np.ndarray, *, threshold: float = 3.0, max_iter: int =
     mask = np.zeros(len(x), bool)
     for _ in range(max_iter):
         keep = x[~mask]
-        z = np.abs(x - keep.mean()) / keep.std()
+        with np.errstate(invalid="ignore", divide="ignore"):  # all equal: z NaN, none flagged
+            z = np.abs(x - keep.mean()) / keep.std()
         bad = (z > threshold) & ~mask
         mask |= bad
         if not bad.any():
@@ -261,9 +262,10 @@ def _pearson_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Pearson r of each row of ``a`` with the 1-d ``b`` (as ``scipy.stats.pearsonr``)."""
     am = a - a.mean(axis=1, keepdims=True)
     bm = b - b.mean()
-    am /= np.abs(am).max(axis=1, keepdims=True)
-    bm /= np.abs(bm).max()
-    r = (am / np.linalg.norm(am, axis=1, keepdims=True)) @ (bm / np.linalg.norm(bm))
+    with np.errstate(invalid="ignore", divide="ignore"):  # a constant row: r NaN, as scipy
+        am /= np.abs(am).max(axis=1, keepdims=True)
+        bm /= np.abs(bm).max()
+        r = (am / np.linalg.norm(am, axis=1, keepdims=True)) @ (bm / np.linalg.norm(bm))
     return np.clip(r, -1.0, 1.0)
 
 
