@@ -364,10 +364,10 @@ def compare_sessions(
                 )
         d["change_z_lo"], d["change_z_hi"] = lo, hi
         se = np.nanstd(dt, axis=0, ddof=1)
-        from scipy.stats import norm as _norm
+        from scipy.special import ndtr  # scipy.stats.norm.sf(x) is ndtr(-x)
 
         with np.errstate(invalid="ignore", divide="ignore"):
-            p = 2 * _norm.sf(np.abs(d["change_t"].to_numpy(float)) / se)
+            p = 2 * ndtr(-(np.abs(d["change_t"].to_numpy(float)) / se))
         d["p"] = p
         d["q"] = bh_adjust(p)
         d["excludes_zero"] = (d["change_t_lo"] > 0) | (d["change_t_hi"] < 0)

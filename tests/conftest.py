@@ -43,6 +43,7 @@ MODULE_TIERS = {
     "test_live": "known_answer",
     "test_norms": "known_answer",
     "test_ocular": "known_answer",
+    "test_ica": "reference",
     "test_rois": "known_answer",
     "test_spectra": "known_answer",
     "test_states": "known_answer",

@@ -16,6 +16,8 @@ attenuation below 20 dB) are not repeated: the pipeline ran MNE with ``verbose="
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 #: Filter length per unit transition bandwidth of the Hamming window, s·Hz (MNE's
@@ -81,6 +83,17 @@ def _firwin_design(n: int, freq: np.ndarray, gain: np.ndarray) -> np.ndarray:
     return h
 
 
+def _bandpass_points(l_stop, l_freq, h_freq, h_stop, nyq):
+    """MNE's gain points of a band-pass, Hz: 0 below ``l_stop``, 1 from ``l_freq`` to ``h_freq``,
+    0 from ``h_stop``, with 0 Hz and Nyquist added when not already edges."""
+    freq, gain = [l_stop, l_freq, h_freq, h_stop], [0, 1, 1, 0]
+    if h_stop != nyq:
+        freq, gain = freq + [nyq], gain + [0]
+    if l_stop != 0:
+        freq, gain = [0] + freq, [0] + gain
+    return freq, gain
+
+
 def fir_coefficients(sfreq: float, l_freq: float | None, h_freq: float | None) -> np.ndarray:
     """Coefficients of MNE's default zero-phase FIR high-, low- or band-pass.
 
@@ -129,11 +142,7 @@ def fir_coefficients(sfreq: float, l_freq: float | None, h_freq: float | None) -
     else:
         if not l_freq < h_freq:
             raise ValueError(f"l_freq {l_freq} Hz must be below h_freq {h_freq} Hz")
-        freq, gain = [l_stop, l_freq, h_freq, h_stop], [0, 1, 1, 0]
-        if h_stop != nyq:
-            freq, gain = freq + [nyq], gain + [0]
-        if l_stop != 0:
-            freq, gain = [0] + freq, [0] + gain
+        freq, gain = _bandpass_points(l_stop, l_freq, h_freq, h_stop, nyq)
     n = _n_taps(min(trans), sfreq)
     return _firwin_design(n, np.array(freq) / nyq, np.array(gain))
 
@@ -203,7 +212,7 @@ def _n_fft(n_h: int, n_x: int) -> int:
     return int(sizes[np.argmin(cost)])
 
 
-def apply_fir(x: np.ndarray, h: np.ndarray) -> np.ndarray:
+def apply_fir(x: np.ndarray, h: np.ndarray, *, double: bool = False) -> np.ndarray:
     """Zero-phase FIR filter each row of ``x`` in place, as MNE's overlap-add filter.
 
     Parameters
@@ -211,7 +220,11 @@ def apply_fir(x: np.ndarray, h: np.ndarray) -> np.ndarray:
     x : ndarray, shape (..., n_times)
         Float64 data, filtered in place (row by row: one padded row in memory at a time).
     h : ndarray, shape (n_taps,)
-        Odd-length symmetric coefficients (:func:`fir_coefficients`, :func:`notch_coefficients`).
+        Symmetric coefficients (:func:`fir_coefficients`, :func:`notch_coefficients`: odd
+        length; :func:`firwin2_bandpass`).
+    double : bool
+        Apply ``h`` forwards and backwards (MNE's ``phase="zero-double"``: ``h`` convolved with
+        its reverse, the padding of ``h`` itself).
 
     Returns
     -------
@@ -222,13 +235,15 @@ def apply_fir(x: np.ndarray, h: np.ndarray) -> np.ndarray:
     """
     if x.dtype != np.float64:
         raise TypeError(f"x: need float64 data, got {x.dtype}")
-    n_h = len(h)
-    if n_h == 1:
-        x *= h[0]
+    if len(h) == 1:
+        x *= h[0] ** 2 if double else h[0]
         return x
     rows = x.reshape(-1, x.shape[-1])  # a view of contiguous data (else a copy, put back below)
     n_times = rows.shape[1]
-    n_edge = max(min(n_h, n_times) - 1, 0)
+    n_edge = max(min(len(h), n_times) - 1, 0)
+    if double:
+        h = np.convolve(h, h[::-1])
+    n_h = len(h)
     n_x = n_times + 2 * n_edge
     n_fft = _n_fft(n_h, n_x)
     h_fft = np.fft.rfft(h, n=n_fft)
@@ -253,6 +268,76 @@ def apply_fir(x: np.ndarray, h: np.ndarray) -> np.ndarray:
     if not np.shares_memory(rows, x):
         x[...] = rows.reshape(x.shape)
     return x
+
+
+def _hann(m: int) -> np.ndarray:
+    """Symmetric Hann window (``scipy.signal.windows.hann(m)``)."""
+    if m <= 1:
+        return np.ones(m)
+    return 0.5 + 0.5 * np.cos(np.linspace(-np.pi, np.pi, m))  # scipy's general_cosine order
+
+
+def _firwin2(n: int, freq: np.ndarray, gain: np.ndarray) -> np.ndarray:
+    """``scipy.signal.firwin2(n, freq, gain, window="hann")``, ``freq`` normalised to Nyquist.
+
+    Frequency sampling: the gain interpolated on ``1 + 2**ceil(log2 n)`` points from 0 to
+    Nyquist, delayed by ``(n - 1) / 2`` samples, inverse real FFT, the first ``n`` taps
+    windowed.  Symmetric filters only (types I and II).
+    """
+    freq = np.array(freq, float)
+    gain = np.asarray(gain, float)
+    if n % 2 == 0 and gain[-1] != 0:
+        raise ValueError("a type II filter (even length) needs zero gain at Nyquist")
+    n_freqs = 1 + 2 ** int(math.ceil(math.log(n, 2)))
+    d = np.diff(freq)
+    if np.any(d == 0):  # repeated frequencies: nudged apart by eps, as scipy does
+        eps = np.finfo(np.float64).eps
+        for k in range(len(freq) - 1):
+            if freq[k] == freq[k + 1]:
+                freq[k] -= eps
+                freq[k + 1] += eps
+    x = np.linspace(0.0, 1.0, n_freqs)
+    fx = np.interp(x, freq, gain)
+    shift = np.exp(-(n - 1) / 2.0 * 1j * np.pi * x / 1.0)
+    return np.fft.irfft(fx * shift)[:n] * _hann(n)
+
+
+def firwin2_bandpass(
+    sfreq: float, l_freq: float, h_freq: float, *, trans_hz: float = 0.5, length_s: float = 10.0
+) -> np.ndarray:
+    """The band-pass MNE's ICA scoring applies (``mne.preprocessing.ica._band_pass_filter``).
+
+    Parameters
+    ----------
+    sfreq : float
+        Sampling rate, Hz.
+    l_freq, h_freq : float
+        Pass band, Hz.
+    trans_hz : float
+        Both transition bandwidths, Hz (MNE's 0.5).
+    length_s : float
+        Filter length, s (MNE's ``"10s"``; with ``phase="zero-double"`` MNE rounds the sample
+        count up to a power of two).
+
+    Returns
+    -------
+    ndarray, shape (n_taps,)
+        The coefficients of ``mne.filter.create_filter(None, sfreq, l_freq, h_freq,
+        filter_length="10s", l_trans_bandwidth=0.5, h_trans_bandwidth=0.5, fir_window="hann",
+        fir_design="firwin2", phase="zero-double")``; apply with ``apply_fir(..., double=True)``.
+    """
+    sfreq = float(sfreq)
+    nyq = sfreq / 2.0
+    l_freq, h_freq = float(l_freq), float(h_freq)
+    if not 0 < l_freq < h_freq < nyq:
+        raise ValueError(f"need 0 < l_freq < h_freq < Nyquist ({nyq} Hz), got {l_freq}, {h_freq}")
+    l_stop, h_stop = l_freq - float(trans_hz), h_freq + float(trans_hz)
+    if l_stop < 0 or h_stop > nyq:
+        raise ValueError(f"transition bands of {trans_hz} Hz do not fit in 0 ... {nyq} Hz")
+    freq, gain = _bandpass_points(l_stop, l_freq, h_freq, h_stop, nyq)
+    n = max(int(np.ceil(float(f"{length_s}") * sfreq)), 1)
+    n = 2 ** int(np.ceil(np.log2(n)))
+    return _firwin2(n, np.array(freq) / nyq, np.array(gain))
 
 
 def filter_data(x: np.ndarray, sfreq: float, l_freq, h_freq) -> np.ndarray:

@@ -10,15 +10,16 @@ data they appear as frontal "delta generators".  This module
   a first-order model (the skull, which it ignores, would confine the pattern further to the
   front).  On the real recording of the test suite the blink and horizontal-movement
   components found by ICA match these templates with |r| = 0.97 and 0.99;
-* corrects the data (:func:`correct_ocular`): ICA (``mne.preprocessing.ICA``, FastICA) with the
-  Fp1/Fp2 mean as a vertical and F8 - F7 as a horizontal EOG proxy, components flagged by
-  ``ICA.find_bads_eog`` *and* whose scalp map matches the ocular templates are removed; when
+* corrects the data (:func:`correct_ocular`): ICA (FastICA, :mod:`sourcelab.intake.ica`: the
+  numbers of ``mne.preprocessing.ICA``) with the Fp1/Fp2 mean as a vertical and F8 - F7 as a
+  horizontal EOG proxy, components flagged by the EOG scoring of ``ICA.find_bads_eog``
+  (:func:`sourcelab.intake.ica.eog_scores`) *and* whose scalp map matches the ocular templates
+  are removed; when
   real EOG channels exist, least-squares EOG regression instead (Croft & Barry 2000);
 * checks what is left (:func:`ocular_residual`): the dominant delta-band topography compared
   with the ocular templates.
 
-Pure functions over arrays (µV, positions in metres, head coordinates); MNE objects only
-inside :func:`correct_ocular`.
+Pure functions over arrays (µV, positions in metres, head coordinates).
 
 References
 ----------
@@ -35,7 +36,6 @@ from __future__ import annotations
 import logging
 import threading
 import time
-import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -239,7 +239,8 @@ def correct_ocular(
     seed : int
         ICA random state (results are reproducible).
     highpass_hz : float, optional
-        High-pass edge already applied to ``data_uv`` (recorded for MNE, which advises >= 1 Hz).
+        High-pass edge already applied to ``data_uv``, Hz (accepted for callers; MNE used it
+        only to advise >= 1 Hz, a warning the pipeline silenced).
     overwrite : bool
         Remove ICA components from ``data_uv`` in place (the caller's own float64 array: no
         second copy of the recording); by default ``data_uv`` is left unchanged.
@@ -258,7 +259,8 @@ def correct_ocular(
 
     Notes
     -----
-    ICA: FastICA (Hyvärinen 1999) through ``mne.preprocessing.ICA`` on as many components as
+    ICA: FastICA (Hyvärinen 1999) as ``mne.preprocessing.ICA`` computes it
+    (:func:`sourcelab.intake.ica.fit_ica`, the same matrices) on as many components as
     the data's rank, fitted on evenly strided samples of ``fit_mask`` (at most 40 n²).
     A component is removed when ``find_bads_eog`` flags it against a proxy (|z| > 3 of the
     correlations, MNE's adaptive rule) and its scalp map is ocular (cosine with the template
@@ -305,25 +307,19 @@ def correct_ocular(
                 f"components needs about {min_samples}",
             ),
         )
-    import mne
-    from scipy.signal import butter, sosfiltfilt
+    from .ica import eog_scores, fit_ica
+    from .iir import butter_lowpass_sos, sosfiltfilt
 
     step = max(1, len(idx) // (FIT_SAMPLES_PER_COMPONENT2 * n_comp**2))
     # the usable samples are taken row by row, never as a copy of every row at once (memory)
     veog = data[[names.index(s) for s in VEOG_SITES]][:, idx].mean(axis=0)
     heog = data[names.index(HEOG_SITES[0]), idx] - data[names.index(HEOG_SITES[1]), idx]
-    names_all = names + ["VEOG", "HEOG"]
-    types = ["eeg"] * n_ch + ["eog"] * 2
-    # fitted on evenly strided samples (FastICA ignores the order of samples) ...
-    fit_raw = mne.io.RawArray(
-        data[:, idx[::step]] * 1e-6, mne.create_info(names, sfreq / step, "eeg"), verbose="error"
-    )
-    with fit_raw.info._unlock():
-        fit_raw.info["highpass"] = float(highpass_hz or 0.0)
-    # ... and scored on a low-passed, decimated copy (find_bads_eog filters to 1-10 Hz anyway;
+    # fitted on evenly strided samples (FastICA ignores the order of samples), in volts as MNE
+    fit_v = data[:, idx[::step]] * 1e-6
+    # ... and scored on a low-passed, decimated copy (the scoring filters to 1-10 Hz anyway;
     # this makes its filtering ~20x cheaper)
     q = max(1, int(sfreq // SCORE_HZ))
-    sos = butter(4, min(12.0, 0.4 * sfreq / q), fs=sfreq, output="sos")
+    sos = butter_lowpass_sos(4, min(12.0, 0.4 * sfreq / q), sfreq)
     # row by row (each row is filtered independently: the same numbers, without holding the
     # filter's padded copies of every row at once)
     # filtered and decimated into one preallocated array (a decimated view of each filtered
@@ -334,25 +330,13 @@ def correct_ocular(
         low[i] = sosfiltfilt(sos, row)[::q]
     low *= 1e-6
     del veog, heog
-    score_raw = mne.io.RawArray(low, mne.create_info(names_all, sfreq / q, types), verbose="error")
-    ica = mne.preprocessing.ICA(
-        n_components=n_comp, method="fastica", max_iter=MAX_ITER, rng=seed, verbose="error"
-    )
     # one BLAS thread: the matrices are small (n_comp x ~15,000) and several threads spin
     # against each other on a shared machine (measured: 4.4 s -> 0.9 s wall for 100 iterations)
-    # the lock: warning filters are process-wide, so two threads (Dask's threaded workers) must
-    # not interleave their catch_warnings blocks, or one restores "error" inside the other's fit
-    with _FIT_LOCK, warnings.catch_warnings(), thread_limits():
-        warnings.simplefilter("ignore")  # convergence / high-pass advice: not for the user
-        ica.fit(fit_raw, picks="eeg", verbose="error")
-        flagged, scores = ica.find_bads_eog(
-            score_raw,
-            ch_name=["VEOG", "HEOG"],
-            threshold=EOG_Z,
-            l_freq=1.0,
-            h_freq=10.0,
-            verbose="error",
-        )
+    # the lock: the thread limit is process-wide, so two threads (Dask's threaded workers) must
+    # not interleave theirs, or one restores the other's pools mid-fit
+    with _FIT_LOCK, thread_limits():
+        ica = fit_ica(fit_v, n_components=n_comp, max_iter=MAX_ITER, seed=seed)
+        flagged, scores = eog_scores(ica, low[:n_ch], low[n_ch:], sfreq / q, threshold=EOG_Z)
     maps = ica.get_components() * 1e6  # (n_ch, n_comp), µV per unit source
     cos = subspace_cosine(maps, templates)
     removed = tuple(sorted(int(i) for i in flagged if cos[int(i)] >= OCULAR_R))
@@ -365,7 +349,6 @@ def correct_ocular(
             kept_flagged,
             OCULAR_R,
         )
-    scores = np.atleast_2d(scores)
     eog_scores = {
         "VEOG": [round(float(v), 4) for v in scores[0]],
         "HEOG": [round(float(v), 4) for v in scores[-1]],
@@ -399,11 +382,11 @@ def correct_ocular(
 
 
 def remove_components(ica, data_uv: np.ndarray, removed, *, out=None) -> np.ndarray:
-    """``x - A_r S_r``: the data without the ``removed`` components of a fitted MNE ICA.
+    """``x - A_r S_r``: the data without the ``removed`` components of a fitted ICA.
 
     Parameters
     ----------
-    ica : mne.preprocessing.ICA
+    ica : sourcelab.intake.ica.FittedICA or mne.preprocessing.ICA
         Fitted on EEG in volts (all channels of one type, so one pre-whitening scale).
     data_uv : ndarray, shape (n_ch, n_times)
         µV.

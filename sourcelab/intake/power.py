@@ -114,19 +114,19 @@ def epoch_spectra(epochs: np.ndarray, sfreq: float) -> tuple[np.ndarray, np.ndar
     epochs = np.asarray(epochs, float)
     if epochs.ndim != 3:
         raise InputError(f"epochs: need shape (n_epochs, n_channels, n_times), got {epochs.shape}")
-    from scipy.signal import welch
-
+    # scipy.signal.welch(epochs, fs=sfreq, window="hann", nperseg=n, noverlap=0,
+    # detrend="constant", scaling="density") with one segment, in numpy (importing scipy.signal
+    # costs ~0.8 s): periodic Hann window, mean removed, |FFT|² / (fs Σw²), doubled except at
+    # 0 Hz and (even n) Nyquist
     n = epochs.shape[-1]
-    return welch(
-        epochs,
-        fs=sfreq,
-        window="hann",
-        nperseg=n,
-        noverlap=0,
-        detrend="constant",
-        scaling="density",
-        axis=-1,
-    )
+    win = 0.5 + 0.5 * np.cos(np.linspace(-np.pi, np.pi, n + 1))[:-1]  # scipy's hann(n, sym=False)
+    spec = np.fft.rfft((epochs - epochs.mean(axis=-1, keepdims=True)) * win, axis=-1)
+    psd = (np.conjugate(spec) * spec).real / (float(sfreq) * (win * win).sum())
+    if n % 2:
+        psd[..., 1:] *= 2
+    else:
+        psd[..., 1:-1] *= 2
+    return np.fft.rfftfreq(n, 1.0 / float(sfreq)), psd
 
 
 @fill_doc

@@ -183,7 +183,9 @@ def icc(ratings: np.ndarray, *, kind: str = "2,1", confidence: float = 0.95) -> 
     McGraw KO, Wong SP (1996).  Forming inferences about some intraclass correlation
     coefficients.  Psychol Methods 1:30-46 (correction: Psychol Methods 1:390).
     """
-    from scipy import stats
+    # the F quantile as scipy.stats.f.ppf computes it (scipy.special.fdtri), without importing
+    # scipy.stats (~0.5 s)
+    from scipy.special import fdtri
 
     from ..checks import check_number, check_option
 
@@ -213,8 +215,8 @@ def icc(ratings: np.ndarray, *, kind: str = "2,1", confidence: float = 0.95) -> 
         if mse == 0:
             return ICC(kind, float(value), float(value), float(value), float(confidence), n, k)
         f_obs = msr / mse
-        f_lo = f_obs / stats.f.ppf(1 - alpha / 2, df_r, df_e)
-        f_hi = f_obs * stats.f.ppf(1 - alpha / 2, df_e, df_r)
+        f_lo = f_obs / fdtri(df_r, df_e, 1 - alpha / 2)
+        f_hi = f_obs * fdtri(df_e, df_r, 1 - alpha / 2)
         low, high = (f_lo - 1) / (f_lo + k - 1), (f_hi - 1) / (f_hi + k - 1)
     else:
         den = msr + (k - 1) * mse + k * (msc - mse) / n
@@ -226,8 +228,8 @@ def icc(ratings: np.ndarray, *, kind: str = "2,1", confidence: float = 0.95) -> 
         a = k * value / (n * (1 - value))
         b = 1 + k * value * (n - 1) / (n * (1 - value))
         v = (a * msc + b * mse) ** 2 / ((a * msc) ** 2 / df_c + (b * mse) ** 2 / df_e)
-        fl = stats.f.ppf(1 - alpha / 2, df_r, v)
-        fu = stats.f.ppf(1 - alpha / 2, v, df_r)
+        fl = fdtri(df_r, v, 1 - alpha / 2)
+        fu = fdtri(v, df_r, 1 - alpha / 2)
         c = k * msc + (k * n - k - n) * mse
         low = n * (msr - fl * mse) / (fl * c + n * msr)
         high = n * (fu * msr - mse) / (c + n * fu * msr)

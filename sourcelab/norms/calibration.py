@@ -13,12 +13,13 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy.special import ndtr
 
 from .io import KEY_COLUMNS
 
-#: Two-sided tail probabilities of the standard normal at the report's thresholds.
-THRESHOLDS = {1.96: 2 * stats.norm.sf(1.96), 2.58: 2 * stats.norm.sf(2.58)}
+#: Two-sided tail probabilities of the standard normal at the report's thresholds
+#: (``2 * scipy.stats.norm.sf(t)`` is ``2 * ndtr(-t)``; scipy.stats is imported where needed).
+THRESHOLDS = {1.96: 2 * ndtr(-1.96), 2.58: 2 * ndtr(-2.58)}
 
 
 def _moments(values: np.ndarray, kept: np.ndarray):
@@ -27,6 +28,8 @@ def _moments(values: np.ndarray, kept: np.ndarray):
     ``values`` and ``kept`` have shape (rows, n); rows with fewer than 8 kept values, or all
     equal, give NaN.  Rows with the same number of kept values are computed together.
     """
+    from scipy import stats
+
     out = np.full((3, len(values)), np.nan)
     counts = kept.sum(axis=1)
     for c in np.unique(counts[counts >= 8]):
@@ -159,6 +162,7 @@ def plot_calibration(fit, *, figure=None, report: pd.DataFrame | None = None):
         The drawn figure (``figure`` when given).
     """
     from matplotlib.figure import Figure
+    from scipy import stats
 
     rep = calibration_report(fit) if report is None else report
     ov = rep.attrs["overall"]

@@ -186,7 +186,9 @@ def predictive_t(y, mean, sd, *, n, degree, h0) -> dict[str, np.ndarray]:
     Crawford JR, Howell DC (1998).  Clin Neuropsychol 12:482-486 (from memory).
     Crawford JR, Garthwaite PH (2006).  Neuropsychology 20:259-271 (from memory).
     """
-    from scipy import stats
+    # scipy.stats' t.sf(x, df) and norm.isf(q) are stdtr(df, -x) and -ndtri(q) (the same
+    # numbers), without importing scipy.stats (~0.5 s)
+    from scipy.special import ndtri, stdtr
 
     y, mean, sd = (np.asarray(a, dtype=float) for a in (y, mean, sd))
     df = np.asarray(n, dtype=float) - np.asarray(degree, dtype=float) - 1.0
@@ -194,8 +196,8 @@ def predictive_t(y, mean, sd, *, n, degree, h0) -> dict[str, np.ndarray]:
         raise InputError("predictive_t: every row needs n > degree + 1 controls")
     z_plain = (y - mean) / sd
     t = z_plain / np.sqrt(1.0 + np.asarray(h0, dtype=float))
-    p = 2.0 * stats.t.sf(np.abs(t), df)
-    z_eq = np.sign(t) * stats.norm.isf(p / 2.0)
+    p = 2.0 * stdtr(df, -np.abs(t))
+    z_eq = np.sign(t) * (0.0 - ndtri(p / 2.0))
     return {"t": t, "df": df, "p": p, "z_equivalent": z_eq, "z_plain": z_plain}
 
 
