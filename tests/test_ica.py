@@ -169,8 +169,9 @@ def test_epoch_spectra_match_welch(rng, n):
 
 
 def test_pvalue_functions_are_scipy_stats():
-    # Reference implementation: scipy.stats' norm.sf / norm.isf / t.sf / f.ppf, the numbers
-    # the z-score table and the ICC intervals used before (bit for bit).
+    # Reference implementation: scipy.stats' norm.sf / norm.isf / t.sf / f.ppf / chi2.ppf /
+    # gamma.ppf, the numbers the z-score table, the ICC and coupling intervals used before
+    # (bit for bit).
     from scipy.special import fdtri, ndtr, ndtri, stdtr
 
     x = np.array([0.0, 0.5, 1.96, 2.58, 6.0, 40.0, np.inf, np.nan])
@@ -181,6 +182,13 @@ def test_pvalue_functions_are_scipy_stats():
     np.testing.assert_array_equal(stdtr(df, -x[:, None]), stats.t.sf(x[:, None], df))
     q = np.array([0.9, 0.975, 0.995])
     np.testing.assert_array_equal(fdtri(5.0, 7.3, q), stats.f.ppf(q, 5.0, 7.3))
+    # coupling's analytic null: chi2.ppf(l, h) = 2 gammaincinv(h/2, l) and
+    # gamma.ppf(l, a, scale=s) = s gammaincinv(a, l), degenerate shapes included
+    from scipy.special import gammaincinv
+
+    h = np.array([0.0, 1e-9, 0.5, 3.0, 1e6, np.inf, np.nan])[:, None]
+    np.testing.assert_array_equal(2 * gammaincinv(h / 2, q), stats.chi2.ppf(q, h))
+    np.testing.assert_array_equal(0.3 * gammaincinv(h, q), stats.gamma.ppf(q, h, scale=0.3))
 
 
 def _mne_route(data_uv, fit_mask):
@@ -262,20 +270,7 @@ def tables_only_modules(head_model, tmp_path_factory):
     return set(json.loads(p.stdout.strip().splitlines()[-1]))
 
 
-@pytest.mark.parametrize(
-    "module",
-    [
-        pytest.param(
-            m,
-            marks=pytest.mark.xfail(
-                strict=True, reason="coupling.measures' analytic null still calls scipy.stats"
-            ),
-        )
-        if m == "scipy.stats"
-        else m
-        for m in _HEAVY
-    ],
-)
+@pytest.mark.parametrize("module", _HEAVY)
 def test_tables_only_analysis_skips_heavy_imports(tables_only_modules, module):
     # Contract (issue 19, start-up time): the default tables-only analysis needs none of these
     # (scipy.signal ~0.8 s, scipy.stats ~0.5 s, scikit-learn, mne.preprocessing).
